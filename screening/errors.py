@@ -1,0 +1,72 @@
+"""Domain exceptions and the exit-code contract.
+
+The CLI maps each exception class to one exit code and prints ``str(exc)`` as a
+single line; nothing here prints or exits.
+"""
+
+from __future__ import annotations
+
+EXIT_OK = 0
+EXIT_RUN_FAILED = 1
+EXIT_BAD_INPUT = 2
+EXIT_LOCKED = 3
+
+
+class ScreeningError(Exception):
+    """Base class of every error the tool reports to a user."""
+
+    exit_code = EXIT_RUN_FAILED
+
+
+class InputError(ScreeningError):
+    """A structural problem with an input file: the run stops before writing anything.
+
+    The message names the file, and where known the line, column, value and what was
+    expected, in one line.
+    """
+
+    exit_code = EXIT_BAD_INPUT
+
+    def __init__(self, path, problem: str, *, line: int | None = None,
+                 column: str | None = None, value: object = None, expected: str | None = None):
+        self.path = str(path)
+        self.problem = problem
+        self.line = line
+        self.column = column
+        self.value = value
+        self.expected = expected
+        parts = [self.path]
+        if line is not None:
+            parts.append(f"line {line}")
+        if column is not None:
+            parts.append(f"column {column!r}")
+        msg = ": ".join([", ".join(parts), problem])
+        if value is not None:
+            msg += f" (got {str(value)[:80]!r})"
+        if expected:
+            msg += f"; expected {expected}"
+        super().__init__(msg)
+
+
+class ConfigError(ScreeningError):
+    """A bad configuration file or option: names the key and what is expected."""
+
+    exit_code = EXIT_BAD_INPUT
+
+
+class LockedError(ScreeningError):
+    """Another run holds the lock on the database or output root."""
+
+    exit_code = EXIT_LOCKED
+
+
+class StoreError(ScreeningError):
+    """The database file cannot be opened or written (locked by another program, corrupt, read-only)."""
+
+    exit_code = EXIT_RUN_FAILED
+
+
+class OutputError(ScreeningError):
+    """Outputs cannot be written (read-only folder, full disk); earlier outputs stay intact."""
+
+    exit_code = EXIT_RUN_FAILED
