@@ -1,0 +1,227 @@
+"""Read an input CSV into an all-text polars frame with physical line numbers.
+
+This is the single low-level reader for every input file. It decides the text
+encoding and the delimiter, checks the header, and keeps the line on which each
+record starts, so that every later message can name file, line and column.
+
+Rules
+-----
+* Encoding: UTF-8 (with or without a byte-order mark); otherwise cp1252 (a superset
+  of Latin-1 for printable text), reported as a notice. Bytes that decode under
+  neither, or NUL bytes, make the file unreadable (a structural error).
+* Delimiter: ``,`` or ``;`` (or tab), taken from the header line unless given.
+* Header: names are matched after trimming blanks, case-insensitively; a required
+  column that is missing, or a name that appears twice, is a structural error.
+  Unknown extra columns are ignored and listed once as a notice.
+* Records: blank lines are skipped; a record that repeats the header is skipped and
+  reported; a record with the wrong number of fields is rejected with its line.
+  Quoted fields may contain delimiters and newlines.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import polars as pl
+
+from .errors import InputError
+
+LINE_COL = "_line"
+MAX_FIELD_CHARS = 10_000
+
+
+@dataclass
+class CsvTable:
+    path: str
+    df: pl.DataFrame
+    header: list[str]
+    encoding: str
+    delimiter: str
+    notices: list[str] = field(default_factory=list)
+    rejects: list[dict] = field(default_factory=list)
+
+
+def _decode(raw: bytes, path: str, encoding: str | None) -> tuple[str, str, list[str]]:
+    notices: list[str] = []
+    if b"\x00" in raw[:1_000_000]:
+        line = raw[: raw.index(b"\x00")].count(b"\n") + 1
+        raise InputError(path, "file is not text (contains NUL bytes)", line=line,
+                         expected="a CSV text file (UTF-8 or Latin-1)")
+    if encoding:
+        try:
+            return raw.decode(encoding), encoding, notices
+        except (UnicodeDecodeError, LookupError) as exc:
+            raise InputError(path, f"cannot decode as {encoding}: {exc}") from None
+    try:
+        text = raw.decode("utf-8-sig")
+        return text, "utf-8", notices
+    except UnicodeDecodeError as exc:
+        bad_line = raw[: exc.start].count(b"\n") + 1
+    try:
+        text = raw.decode("cp1252")
+    except UnicodeDecodeError:
+        raise InputError(path, "file is neither UTF-8 nor Latin-1/cp1252 text", line=bad_line,
+                         expected="a CSV text file") from None
+    notices.append(f"{path}: not valid UTF-8 (first at line {bad_line}); read as Latin-1/cp1252")
+    return text, "cp1252", notices
+
+
+def _sniff_delimiter(first_line: str) -> str:
+    counts = {d: first_line.count(d) for d in (",", ";", "\t")}
+    best = max(counts, key=lambda d: (counts[d], d == ","))
+    return best if counts[best] > 0 else ","
+
+
+def _norm(name: str) -> str:
+    return name.strip().strip("\ufeff").strip().lower()
+
+
+def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
+               optional: list[str] | tuple[str, ...] = (), label: str | None = None,
+               delimiter: str | None = None, encoding: str | None = None) -> CsvTable:
+    """Read ``path`` and return its known columns as text plus ``_line``.
+
+    Parameters
+    ----------
+    path : file to read.
+    required : column names that must be present (structural error otherwise).
+    optional : column names that are read when present.
+    label : the name used in messages (defaults to the path).
+    delimiter, encoding : force these instead of detecting them.
+
+    Raises
+    ------
+    InputError
+        The file is unreadable, empty, has no data rows, lacks a required column
+        or repeats a column name.
+    """
+    label = str(label or path)
+    p = Path(path)
+    try:
+        raw = p.read_bytes()
+    except FileNotFoundError:
+        raise InputError(label, "file not found") from None
+    except IsADirectoryError:
+        raise InputError(label, "is a folder, not a file") from None
+    except OSError as exc:
+        raise InputError(label, f"cannot read file ({exc.strerror or exc})") from None
+    text, enc, notices = _decode(raw, label, encoding)
+    if not text.strip():
+        raise InputError(label, "file is empty", line=1, expected="a header line and data rows")
+
+    first_nl = text.find("\n")
+    first_line = text if first_nl < 0 else text[:first_nl]
+    delim = delimiter or _sniff_delimiter(first_line)
+
+    if '"' not in text:
+        header = first_line.rstrip("\r").split(delim)
+    else:
+        reader = csv.reader(io.StringIO(text, newline=""), delimiter=delim, strict=False)
+        try:
+            header = next(reader)
+        except (StopIteration, csv.Error) as exc:
+            raise InputError(label, f"cannot read the header line ({exc})", line=1) from None
+    header_norm = [_norm(h) for h in header]
+    seen: dict[str, int] = {}
+    for i, h in enumerate(header_norm):
+        if h in seen and h:
+            raise InputError(label, "column name appears twice", line=1, column=header[i].strip(),
+                             expected="each column once")
+        seen[h] = i
+    missing = [c for c in required if c not in seen]
+    if missing:
+        raise InputError(label, "missing required column", line=1, column=missing[0],
+                         expected="columns " + ", ".join(required)
+                         + (f" (found: {', '.join(h for h in header_norm if h)[:200]})" if header_norm else ""))
+    wanted = [c for c in list(required) + list(optional) if c in seen]
+    extra = [header[i].strip() for i, h in enumerate(header_norm) if h and h not in wanted]
+    if extra:
+        notices.append(f"{label}: ignored unknown column(s): {', '.join(extra[:20])}"
+                       + (" …" if len(extra) > 20 else ""))
+    idx = [seen[c] for c in wanted]
+    n_fields = len(header)
+
+    if '"' not in text:
+        df, rejects, repeated_headers = _fast_records(text, label, delim, header_norm, idx, wanted)
+    else:
+        df, rejects, repeated_headers = _slow_records(reader, label, delim, header_norm, idx, wanted,
+                                                      n_fields)
+    if repeated_headers:
+        notices.append(f"{label}: skipped {repeated_headers} repeated header line(s)")
+    if not df.height and not rejects:
+        raise InputError(label, "no data rows", line=2, expected="at least one data row after the header")
+    for c in list(required) + list(optional):
+        if c not in df.columns:
+            df = df.with_columns(pl.lit(None, dtype=pl.String).alias(c))
+    return CsvTable(path=label, df=df, header=[h.strip() for h in header], encoding=enc,
+                    delimiter=delim, notices=notices, rejects=rejects)
+
+
+def _fast_records(text, label, delim, header_norm, idx, wanted):
+    """Records of a file without quote characters: one record per physical line."""
+    lines = pl.Series("raw", text.split("\n"), dtype=pl.String).str.strip_suffix("\r")
+    frame = pl.DataFrame({"raw": lines}).with_row_index(LINE_COL, offset=1).slice(1)
+    frame = frame.with_columns(pl.col(LINE_COL).cast(pl.Int64))
+    frame = frame.filter(pl.col("raw").str.replace_all(f"[\\s{re.escape(delim)}]", "") != "")
+    parts = frame["raw"].str.split(delim)
+    header_key = "".join(header_norm).replace(" ", "")
+    is_header = frame["raw"].str.replace_all(f"[\\s{re.escape(delim)}]", "").str.to_lowercase() == header_key
+    repeated = int(is_header.sum())
+    n_fields = len(header_norm)
+    lens = parts.list.len()
+    frame = frame.with_columns(parts.alias("parts"), lens.alias("n"), is_header.alias("hdr"))
+    bad = frame.filter((pl.col("n") != n_fields) & ~pl.col("hdr"))
+    rejects = [{"file": label, "line": int(r[LINE_COL]), "column": "", "value": r["raw"][:80],
+                "reason": f"expected {n_fields} fields, found {r['n']}"}
+               for r in bad.select(LINE_COL, "raw", "n").iter_rows(named=True)]
+    good = frame.filter((pl.col("n") == n_fields) & ~pl.col("hdr"))
+    exprs = []
+    for name, k in zip(wanted, idx):
+        v = pl.col("parts").list.get(k).str.strip_chars().str.slice(0, MAX_FIELD_CHARS)
+        exprs.append(pl.when(v == "").then(None).otherwise(v).alias(name))
+    df = good.select(*exprs, pl.col(LINE_COL))
+    return df, rejects, repeated
+
+
+def _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields):
+    """Records through the csv module (quoted fields, embedded newlines)."""
+    cols: list[list[str | None]] = [[] for _ in wanted]
+    lines: list[int] = []
+    rejects: list[dict] = []
+    repeated_headers = 0
+    start_line = 2
+    while True:
+        try:
+            row = next(reader)
+        except StopIteration:
+            break
+        except csv.Error as exc:
+            rejects.append({"file": label, "line": start_line, "column": "", "value": "",
+                            "reason": f"unreadable record ({exc})"})
+            start_line = reader.line_num + 1
+            continue
+        this_line = start_line
+        start_line = reader.line_num + 1
+        if not row or all(not f.strip() for f in row):
+            continue
+        if [_norm(f) for f in row] == header_norm:
+            repeated_headers += 1
+            continue
+        if len(row) != n_fields:
+            rejects.append({"file": label, "line": this_line, "column": "",
+                            "value": delim.join(row)[:80],
+                            "reason": f"expected {n_fields} fields, found {len(row)}"})
+            continue
+        for j, k in enumerate(idx):
+            v = row[k].strip()
+            if len(v) > MAX_FIELD_CHARS:
+                v = v[:MAX_FIELD_CHARS]
+            cols[j].append(v if v != "" else None)
+        lines.append(this_line)
+    df = pl.DataFrame({name: pl.Series(name, col, dtype=pl.String) for name, col in zip(wanted, cols)}
+                      | {LINE_COL: pl.Series(LINE_COL, lines, dtype=pl.Int64)})
+    return df, rejects, repeated_headers
