@@ -1,0 +1,280 @@
+"""Read and check the three input files; return canonical frames and every rejected row.
+
+Structural problems (unreadable file, missing column, no data rows) raise
+``InputError`` before anything is written. Row-level problems reject the row with
+file, line, column, value and reason; the rest go on. Nothing is guessed.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import polars as pl
+
+from . import refdata
+from .csvread import LINE_COL, read_table
+from .errors import InputError
+from .parse import AmbiguousDates, parse_bool, parse_choice, parse_date, parse_float, parse_int
+
+USE_TYPES = ("office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other")
+FUELS = ("natural_gas", "fuel_oil", "propane", "electricity", "district_steam", "district_hot_water")
+ID_PATTERN = r"^[A-Za-z0-9._-]{1,64}$"
+REJECT_SCHEMA = {"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
+                 "reason": pl.String}
+
+# Column specifications: (csv column, canonical name, kind, required, options).
+# kind: id | text | choice | float | int | bool | date ; "si" names the SI->IP conversion
+# (screening/data/si_conversions.csv) applied when the portfolio's units are SI.
+BUILDING_COLUMNS = [
+    ("building_id", "building_id", "id", True, {}),
+    ("name", "name", "text", True, {}),
+    ("station_id", "station_id", "text", True, {}),
+    ("use_type", "use_type", "choice", True, {"choices": USE_TYPES, "what": "use type"}),
+    ("floor_area", "floor_area_ft2", "float", True, {"min": 0, "excl": True, "max": 1e8, "si": "area"}),
+    ("year_built", "year_built", "int", False, {"min": 1800, "max": "this_year"}),
+    ("stories", "stories", "int", False, {"min": 1, "max": 200}),
+    ("heating_fuel", "heating_fuel", "choice", True, {"choices": FUELS, "what": "heating fuel"}),
+    ("heating_efficiency", "heating_efficiency", "float", False, {"min": 0, "excl": True, "max": 6}),
+    ("ua_total", "ua_total_btu_h_f", "float", False, {"min": 0, "excl": True, "max": 1e9, "si": "conductance"}),
+    ("balance_point", "balance_point_f", "float", False, {"min": 20, "max": 85, "si": "temperature"}),
+    # optional envelope columns (each overrides its default)
+    ("wall_u", "wall_u_btu_h_ft2_f", "float", False, {"min": 0, "excl": True, "max": 2, "si": "u_factor"}),
+    ("roof_u", "roof_u_btu_h_ft2_f", "float", False, {"min": 0, "excl": True, "max": 2, "si": "u_factor"}),
+    ("window_u", "window_u_btu_h_ft2_f", "float", False, {"min": 0, "excl": True, "max": 2, "si": "u_factor"}),
+    ("window_fraction", "window_fraction", "float", False, {"min": 0, "max": 0.95}),
+    ("air_changes", "ach", "float", False, {"min": 0, "max": 10}),
+    ("outdoor_air", "outdoor_air_cfm_ft2", "float", False, {"min": 0, "max": 10, "si": "airflow_density"}),
+    ("heat_recovery", "heat_recovery", "float", False, {"min": 0, "max": 0.95}),
+    ("setpoint", "setpoint_f", "float", False, {"min": 40, "max": 85, "si": "temperature"}),
+    ("setback", "setback_f", "float", False, {"min": 0, "max": 40, "si": "temperature_difference"}),
+    ("setback_hours", "setback_hours", "float", False, {"min": 0, "max": 24}),
+    ("internal_gains", "internal_gains_w_ft2", "float", False, {"min": 0, "max": 50, "si": "power_density"}),
+    ("wall_area", "wall_area_ft2", "float", False, {"min": 0, "max": 1e8, "si": "area"}),
+    ("window_area", "window_area_ft2", "float", False, {"min": 0, "max": 1e8, "si": "area"}),
+    ("roof_area", "roof_area_ft2", "float", False, {"min": 0, "max": 1e8, "si": "area"}),
+    ("address", "address", "text", False, {}),
+    ("city", "city", "text", False, {}),
+    ("heat_content", "heat_content", "float", False, {"min": 0, "excl": True, "max": 1e9}),
+    ("price", "price", "float", False, {"min": 0, "max": 1e6}),
+]
+
+READING_COLUMNS = [
+    ("building_id", "building_id", "id", True, {}),
+    ("fuel", "fuel", "choice", True, {"choices": FUELS, "what": "fuel"}),
+    ("period_start", "period_start", "date", True, {}),
+    ("period_end", "period_end", "date", True, {}),
+    ("quantity", "quantity", "float", True, {"min": 0, "max": 1e12}),
+    ("unit", "unit", "text", True, {}),
+    ("estimated", "estimated", "bool", False, {}),
+    ("cost", "cost", "float", False, {"min": 0, "max": 1e10}),
+    ("meter_id", "meter_id", "text", False, {}),
+]
+
+
+@dataclass
+class ReadOptions:
+    """How to read the files: units of the portfolio and spreadsheet conventions."""
+
+    units: str = "IP"
+    decimal_comma: bool = False
+    date_order: str | None = None
+    delimiter: str | None = None
+    encoding: str | None = None
+    min_date: _dt.date = _dt.date(1900, 1, 1)
+    max_date: _dt.date = field(default_factory=lambda: _dt.date.today() + _dt.timedelta(days=366))
+
+
+@dataclass
+class Loaded:
+    """A checked input file: the good rows, the rejected ones, and notices."""
+
+    path: str
+    df: pl.DataFrame
+    rejects: pl.DataFrame
+    notices: list[str]
+
+
+def empty_rejects() -> pl.DataFrame:
+    return pl.DataFrame(schema=REJECT_SCHEMA)
+
+
+def rejects_frame(rows: list[dict]) -> pl.DataFrame:
+    if not rows:
+        return empty_rejects()
+    return pl.DataFrame(rows, schema=REJECT_SCHEMA, orient="row") if isinstance(rows[0], (list, tuple)) \
+        else pl.DataFrame([{k: r.get(k) for k in REJECT_SCHEMA} for r in rows], schema=REJECT_SCHEMA)
+
+
+def si_factors() -> dict[str, tuple[float, float]]:
+    df = refdata.load("si_conversions")
+    return {r["quantity"]: (float(r["factor"]), float(r["offset"])) for r in df.iter_rows(named=True)}
+
+
+def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tuple[pl.DataFrame, pl.DataFrame]:
+    """Parse every column of ``raw`` per ``spec``; return typed frame (all rows) and problems."""
+    typed: dict[str, pl.Series] = {}
+    problems = []
+    factors = si_factors() if opts.units == "SI" else {}
+    this_year = _dt.date.today().year
+    for col, canon, kind, required, o in spec:
+        s = raw[col]
+        if kind == "id":
+            ok = s.str.contains(ID_PATTERN).fill_null(False)
+            p = pl.select(pl.when(s.is_not_null() & ~ok).then(
+                pl.lit("expected 1-64 letters, digits, '-', '_' or '.'")).otherwise(None)).to_series()
+            v = pl.select(pl.when(ok).then(s).otherwise(None)).to_series()
+        elif kind == "text":
+            v, p = s, pl.Series([None] * len(s), dtype=pl.String)
+        elif kind == "choice":
+            v, p = parse_choice(s, o["choices"], what=o["what"])
+        elif kind in ("float", "int"):
+            lo = o.get("min")
+            hi = this_year if o.get("max") == "this_year" else o.get("max")
+            conv = factors.get(o["si"]) if o.get("si") else None
+            if conv is not None:  # bounds are written in IP; check them in the file's own units
+                f, off = conv
+                lo = None if lo is None else (lo - off) / f
+                hi = None if hi is None else (hi - off) / f
+            fn = parse_int if kind == "int" else parse_float
+            v, p = fn(s, decimal_comma=opts.decimal_comma, min_value=lo, max_value=hi,
+                      min_exclusive=o.get("excl", False))
+            if conv is not None:
+                v = v * conv[0] + conv[1]
+        elif kind == "bool":
+            v, p = parse_bool(s)
+        elif kind == "date":
+            try:
+                v, p = parse_date(s, date_order=opts.date_order, min_date=opts.min_date, max_date=opts.max_date)
+            except AmbiguousDates as exc:
+                raise InputError(label, str(exc), column=col) from None
+        else:  # pragma: no cover - spec is static
+            raise ValueError(kind)
+        if required:
+            p = pl.select(pl.when(s.is_null()).then(pl.lit("required value is empty")).otherwise(p)).to_series()
+        typed[canon] = v.rename(canon)
+        problems.append(pl.DataFrame({"_line": raw[LINE_COL], "column": pl.Series([col] * len(s), dtype=pl.String),
+                                      "value": s.rename("value"), "reason": p.rename("reason")}))
+    typed[LINE_COL] = raw[LINE_COL]
+    prob = pl.concat(problems).filter(pl.col("reason").is_not_null())
+    prob = prob.select(pl.lit(label).alias("file"), pl.col("_line").alias("line"), "column", "value", "reason")
+    return pl.DataFrame(typed), prob
+
+
+def _combine(df: pl.DataFrame, prob: pl.DataFrame, structural: list[dict]) -> tuple[pl.DataFrame, pl.DataFrame]:
+    bad_lines = prob["line"].unique()
+    good = df.filter(~pl.col(LINE_COL).is_in(bad_lines.implode()))
+    rej = pl.concat([rejects_frame(structural), prob.cast(REJECT_SCHEMA)])
+    return good, rej
+
+
+def read_buildings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
+    """Read buildings.csv into the canonical buildings frame (IP units).
+
+    Duplicate ``building_id`` rows with identical data are kept once (notice); with
+    different data every such row is rejected, naming the lines.
+    """
+    opts = opts or ReadOptions()
+    label = str(path)
+    required = [c for c, _, _, r, _ in BUILDING_COLUMNS if r]
+    optional = [c for c, _, _, r, _ in BUILDING_COLUMNS if not r]
+    t = read_table(path, required=required, optional=optional, label=label,
+                   delimiter=opts.delimiter, encoding=opts.encoding)
+    typed, prob = _typed_columns(t.df, BUILDING_COLUMNS, label, opts)
+    good, rej = _combine(typed, prob, t.rejects)
+    notices = list(t.notices)
+    # duplicates
+    data_cols = [c for c in good.columns if c != LINE_COL]
+    dup = good.filter(pl.col("building_id").is_duplicated())
+    if dup.height:
+        distinct = dup.unique(subset=data_cols, keep="first", maintain_order=True)
+        conflicted = distinct.filter(pl.col("building_id").is_duplicated())["building_id"].unique()
+        conflict_rows = good.filter(pl.col("building_id").is_in(conflicted.implode()))
+        lines = conflict_rows.group_by("building_id").agg(pl.col(LINE_COL).sort())
+        line_map = {r["building_id"]: r[LINE_COL] for r in lines.iter_rows(named=True)}
+        extra = [{"file": label, "line": int(r[LINE_COL]), "column": "building_id", "value": r["building_id"],
+                  "reason": "building_id appears with different data on lines "
+                            + ", ".join(str(x) for x in line_map[r["building_id"]])}
+                 for r in conflict_rows.sort(LINE_COL).iter_rows(named=True)]
+        rej = pl.concat([rej, rejects_frame(extra)])
+        good = good.filter(~pl.col("building_id").is_in(conflicted.implode()))
+        n_before = good.height
+        good = good.unique(subset=data_cols, keep="first", maintain_order=True)
+        if good.height < n_before:
+            notices.append(f"{label}: {n_before - good.height} exact duplicate building row(s) kept once")
+    return Loaded(label, good.sort("building_id"), rej.sort("line"), notices)
+
+
+def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
+    """Read readings.csv: one row per meter reading, ``period_end`` inclusive.
+
+    Rows with an end before their start are rejected. Exact duplicate rows are kept
+    once (notice); two rows for the same meter and period with different
+    quantities are both rejected (they cannot both be right).
+    """
+    opts = opts or ReadOptions()
+    label = str(path)
+    required = [c for c, _, _, r, _ in READING_COLUMNS if r]
+    optional = [c for c, _, _, r, _ in READING_COLUMNS if not r]
+    t = read_table(path, required=required, optional=optional, label=label,
+                   delimiter=opts.delimiter, encoding=opts.encoding)
+    typed, prob = _typed_columns(t.df, READING_COLUMNS, label, opts)
+    order = typed.filter(pl.col("period_end") < pl.col("period_start")).select(
+        pl.lit(label).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit("period_end").alias("column"),
+        pl.col("period_end").cast(pl.String).alias("value"),
+        (pl.lit("period ends before it starts (") + pl.col("period_start").cast(pl.String) + pl.lit(")"))
+        .alias("reason"))
+    prob = pl.concat([prob, order.cast(REJECT_SCHEMA)])
+    good, rej = _combine(typed, prob, t.rejects)
+    good = good.with_columns(pl.col("estimated").fill_null(False), pl.col("meter_id").fill_null(""),
+                             pl.col("unit").str.strip_chars())
+    notices = list(t.notices)
+    key = ["building_id", "fuel", "meter_id", "period_start", "period_end"]
+    data_cols = key + ["quantity", "unit", "estimated", "cost"]
+    n_before = good.height
+    good = good.unique(subset=data_cols, keep="first", maintain_order=True)
+    if good.height < n_before:
+        notices.append(f"{label}: {n_before - good.height} exact duplicate reading row(s) kept once")
+    conflict = good.filter(pl.struct(key).is_duplicated())
+    if conflict.height:
+        lines = conflict.group_by(key).agg(pl.col(LINE_COL).sort().alias("lines"))
+        conflict = conflict.join(lines, on=key)
+        extra = [{"file": label, "line": int(r[LINE_COL]), "column": "quantity", "value": str(r["quantity"]),
+                  "reason": f"same meter and period as line(s) {', '.join(str(x) for x in r['lines'] if x != r[LINE_COL])}"
+                            " with different data"}
+                 for r in conflict.sort(LINE_COL).iter_rows(named=True)]
+        rej = pl.concat([rej, rejects_frame(extra)])
+        good = good.filter(~pl.struct(key).is_duplicated())
+    return Loaded(label, good.sort(["building_id", "fuel", "meter_id", "period_start"]), rej.sort("line"), notices)
+
+
+def cross_check(buildings: Loaded, readings: Loaded, station_ids: set[str]) -> tuple[Loaded, Loaded]:
+    """Reject buildings whose station is not in the weather file and readings of unknown buildings."""
+    b = buildings.df
+    unknown_station = b.filter(~pl.col("station_id").is_in(sorted(station_ids)))
+    b_rej = unknown_station.select(
+        pl.lit(buildings.path).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit("station_id").alias("column"),
+        pl.col("station_id").alias("value"), pl.lit("unknown station (not in the weather file)").alias("reason"))
+    b = b.filter(pl.col("station_id").is_in(sorted(station_ids)))
+    r = readings.df
+    known = b["building_id"].implode()
+    unknown_b = r.filter(~pl.col("building_id").is_in(known))
+    r_rej = unknown_b.select(
+        pl.lit(readings.path).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit("building_id").alias("column"),
+        pl.col("building_id").alias("value"),
+        pl.lit("unknown building (not among the accepted rows of the buildings file)").alias("reason"))
+    r = r.filter(pl.col("building_id").is_in(known))
+    return (Loaded(buildings.path, b, pl.concat([buildings.rejects, b_rej.cast(REJECT_SCHEMA)]).sort("line"),
+                   buildings.notices),
+            Loaded(readings.path, r, pl.concat([readings.rejects, r_rej.cast(REJECT_SCHEMA)]).sort("line"),
+                   readings.notices))
+
+
+_SAFE_TEXT = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")
+
+
+def clean_text(s: pl.Series) -> pl.Series:
+    """Remove control characters (never meaningful in a name) from display text."""
+    return s.str.replace_all(_SAFE_TEXT.pattern, "")

@@ -1,0 +1,165 @@
+"""Typed parsing of text columns, with a reason for every value that fails.
+
+Each ``parse_*`` function takes a polars String Series and returns
+``(values, problem)`` where ``problem`` is a String Series holding, per row, ``None``
+when the value is fine (or absent) and otherwise a short reason naming what was
+expected. Nothing is guessed: a value that does not parse is a problem, never a
+zero or a default.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+
+import polars as pl
+
+_TRUE = ["true", "t", "yes", "y", "1", "e", "est", "estimated"]
+_FALSE = ["false", "f", "no", "n", "0", "a", "act", "actual", ""]
+EXCEL_EPOCH = _dt.date(1899, 12, 30)
+DATE_ORDERS = ("ymd", "mdy", "dmy")
+
+
+class AmbiguousDates(ValueError):
+    """Slash dates whose day/month order cannot be told apart and was not configured."""
+
+
+def parse_float(s: pl.Series, *, decimal_comma: bool = False, min_value: float | None = None,
+                max_value: float | None = None, min_exclusive: bool = False,
+                what: str = "a number") -> tuple[pl.Series, pl.Series]:
+    """Parse numbers; reject non-numeric, NaN, infinite and out-of-range values."""
+    text = s.str.strip_chars()
+    if decimal_comma:
+        text = text.str.replace_all(r"\.", "").str.replace(",", ".", literal=True)
+    text = text.str.replace_all(r"^\+", "")
+    values = text.cast(pl.Float64, strict=False)
+    df = pl.DataFrame({"t": text, "v": values})
+    rng = []
+    if min_value is not None:
+        rng.append(f"{'>' if min_exclusive else '≥'} {min_value:g}")
+    if max_value is not None:
+        rng.append(f"≤ {max_value:g}")
+    expected = what + (" " + " and ".join(rng) if rng else "")
+    bad_num = pl.col("t").is_not_null() & (pl.col("v").is_null() | pl.col("v").is_nan() | pl.col("v").is_infinite())
+    cond = bad_num
+    if min_value is not None:
+        low = (pl.col("v") <= min_value) if min_exclusive else (pl.col("v") < min_value)
+        cond = cond | (pl.col("v").is_not_null() & low)
+    if max_value is not None:
+        cond = cond | (pl.col("v").is_not_null() & (pl.col("v") > max_value))
+    out = df.select(
+        pl.when(cond).then(None).otherwise(pl.col("v")).alias("v"),
+        pl.when(cond).then(pl.lit(f"expected {expected}")).otherwise(None).alias("p"),
+    )
+    return out["v"].rename(s.name), out["p"].rename(s.name)
+
+
+def parse_int(s: pl.Series, **kw) -> tuple[pl.Series, pl.Series]:
+    """Parse whole numbers (``12`` or ``12.0``); a fraction is a problem."""
+    what = kw.pop("what", "a whole number")
+    v, p = parse_float(s, what=what, **kw)
+    frac = v.is_not_null() & (v != v.floor())
+    p = pl.select(pl.when(frac).then(pl.lit(f"expected {what}")).otherwise(p)).to_series().rename(s.name)
+    v = pl.select(pl.when(frac).then(None).otherwise(v)).to_series().cast(pl.Int64).rename(s.name)
+    return v, p
+
+
+def parse_bool(s: pl.Series) -> tuple[pl.Series, pl.Series]:
+    """Parse true/false words (true/false, yes/no, 1/0, E/A for estimated/actual)."""
+    t = s.str.strip_chars().str.to_lowercase()
+    df = pl.DataFrame({"t": t})
+    out = df.select(
+        pl.when(pl.col("t").is_in(_TRUE)).then(True)
+        .when(pl.col("t").is_in(_FALSE) | pl.col("t").is_null()).then(False)
+        .otherwise(None).alias("v"),
+        pl.when(pl.col("t").is_not_null() & ~pl.col("t").is_in(_TRUE + _FALSE))
+        .then(pl.lit("expected true or false")).otherwise(None).alias("p"),
+    )
+    return out["v"].rename(s.name), out["p"].rename(s.name)
+
+
+def detect_date_order(s: pl.Series) -> str | None:
+    """Tell the order of slash/dot dates in a column, or None when undecidable.
+
+    Returns ``"mdy"`` when some first field exceeds 12, ``"dmy"`` when some second
+    field does, None when every value fits both (ambiguous) or there are none.
+    """
+    parts = s.drop_nulls().str.strip_chars().str.extract_groups(r"^(\d{1,2})[/.](\d{1,2})[/.](\d{2,4})$")
+    a = parts.struct.field("1").cast(pl.Int64, strict=False).drop_nulls()
+    b = parts.struct.field("2").cast(pl.Int64, strict=False).drop_nulls()
+    if a.len() == 0:
+        return None
+    first_big = bool((a > 12).any())
+    second_big = bool((b > 12).any())
+    if first_big and not second_big:
+        return "dmy"
+    if second_big and not first_big:
+        return "mdy"
+    return None
+
+
+def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.date | None = None,
+               max_date: _dt.date | None = None) -> tuple[pl.Series, pl.Series]:
+    """Parse dates: ISO ``YYYY-MM-DD`` (also ``YYYY/MM/DD``, an ISO timestamp's date part),
+    slash or dot dates in the configured day/month order, and spreadsheet serial numbers
+    (days since 1899-12-30, 20000–80000).
+
+    Raises
+    ------
+    AmbiguousDates
+        Slash dates are present, ``date_order`` is not set, and the values do not
+        show the order (every first and second field ≤ 12 in some rows and neither
+        exceeds 12 consistently).
+    """
+    t = s.str.strip_chars()
+    iso = t.str.replace(r"^(\d{4})/(\d{1,2})/(\d{1,2})", "$1-$2-$3").str.slice(0, 10) \
+        .str.to_date("%Y-%m-%d", strict=False)
+    has_slash = t.str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]\d{2,4}$").fill_null(False)
+    if bool(has_slash.any()):
+        order = date_order or detect_date_order(t.filter(has_slash))
+        if order is None:
+            example = t.filter(has_slash)[0]
+            raise AmbiguousDates(
+                f"dates like {example!r} could be day/month or month/day; "
+                "set date_order = \"dmy\" or \"mdy\" in the config")
+        fmt = {"mdy": "%m/%d/%Y", "dmy": "%d/%m/%Y", "ymd": "%Y/%m/%d"}[order]
+        norm = t.str.replace_all(r"\.", "/")
+        four = norm.str.contains(r"/\d{4}$").fill_null(False)
+        slash4 = norm.str.to_date(fmt, strict=False)
+        slash2 = norm.str.to_date(fmt.replace("%Y", "%y"), strict=False)
+        slash = pl.select(pl.when(four).then(slash4).otherwise(slash2)).to_series()
+    else:
+        slash = pl.Series([None] * len(t), dtype=pl.Date)
+    serial = t.cast(pl.Float64, strict=False)
+    serial_ok = serial.is_not_null() & (serial >= 20000) & (serial <= 80000) & (serial == serial.floor())
+    serial_date = pl.select(
+        pl.when(serial_ok).then(pl.lit(EXCEL_EPOCH) + pl.duration(days=serial.cast(pl.Int64)))
+        .otherwise(None)).to_series().cast(pl.Date)
+    value = pl.select(pl.coalesce(iso, slash, serial_date)).to_series()
+    df = pl.DataFrame({"t": t, "v": value})
+    cond = pl.col("t").is_not_null() & pl.col("v").is_null()
+    expected = "a date (YYYY-MM-DD)"
+    if min_date is not None or max_date is not None:
+        lo = min_date or _dt.date(1, 1, 1)
+        hi = max_date or _dt.date(9999, 12, 31)
+        rng = (pl.col("v") < lo) | (pl.col("v") > hi)
+        out = df.select(
+            pl.when(cond | rng.fill_null(False)).then(None).otherwise(pl.col("v")).alias("v"),
+            pl.when(cond).then(pl.lit(f"expected {expected}"))
+            .when(rng.fill_null(False)).then(pl.lit(f"date out of range; expected {lo} to {hi}"))
+            .otherwise(None).alias("p"))
+    else:
+        out = df.select(pl.when(cond).then(None).otherwise(pl.col("v")).alias("v"),
+                        pl.when(cond).then(pl.lit(f"expected {expected}")).otherwise(None).alias("p"))
+    return out["v"].rename(s.name), out["p"].rename(s.name)
+
+
+def parse_choice(s: pl.Series, choices: list[str] | tuple[str, ...], *, what: str) -> tuple[pl.Series, pl.Series]:
+    """Parse one of a fixed set of words (case-insensitive, blanks/dashes as ``_``)."""
+    t = s.str.strip_chars().str.to_lowercase().str.replace_all(r"[\s\-]+", "_")
+    df = pl.DataFrame({"t": t})
+    ok = pl.col("t").is_in(list(choices))
+    out = df.select(pl.when(ok).then(pl.col("t")).otherwise(None).alias("v"),
+                    pl.when(pl.col("t").is_not_null() & ~ok)
+                    .then(pl.lit(f"unknown {what}; expected one of {', '.join(choices)}"))
+                    .otherwise(None).alias("p"))
+    return out["v"].rename(s.name), out["p"].rename(s.name)

@@ -1,0 +1,112 @@
+"""The DuckDB store: named SQL statements from ``sql/*.sql``, bound parameters only.
+
+A statement block starts with ``-- name: <name>``; the comment lines right after it
+are its description; the block holds exactly one statement. Frames are passed to
+SQL by registering them under the relation name the statement reads
+(``stage_buildings`` …), never by formatting values into SQL text.
+"""
+
+from __future__ import annotations
+
+import re
+from contextlib import contextmanager
+from functools import lru_cache
+from pathlib import Path
+
+import duckdb
+import polars as pl
+
+from .errors import StoreError
+from .resources import sql_dir
+
+_NAME = re.compile(r"^--\s*name:\s*([A-Za-z0-9_]+)\s*$")
+
+
+@lru_cache(maxsize=None)
+def statements() -> dict[str, str]:
+    """All named statements of ``sql/*.sql`` (name → SQL text)."""
+    out: dict[str, str] = {}
+    for path in sorted(sql_dir().glob("*.sql")):
+        name = None
+        buf: list[str] = []
+        for line in path.read_text(encoding="utf-8").splitlines() + ["-- name: __end__"]:
+            m = _NAME.match(line.strip())
+            if m:
+                if name is not None:
+                    sql = "\n".join(x for x in buf if not x.strip().startswith("--")).strip()
+                    if sql.count(";") > 1 or not sql:
+                        raise ValueError(f"{path.name}: block {name!r} must hold exactly one statement")
+                    if name in out:
+                        raise ValueError(f"{path.name}: statement name {name!r} is used twice")
+                    out[name] = sql.rstrip(";")
+                name = m.group(1)
+                buf = []
+            elif name is not None:
+                buf.append(line)
+    out.pop("__end__", None)
+    return out
+
+
+class Store:
+    """One open DuckDB database file (or ``:memory:``)."""
+
+    def __init__(self, path: str | Path = ":memory:", *, read_only: bool = False):
+        self.path = str(path)
+        try:
+            if self.path != ":memory:" and not read_only:
+                Path(self.path).parent.mkdir(parents=True, exist_ok=True)
+            self.con = duckdb.connect(self.path, read_only=read_only)
+        except duckdb.IOException as exc:
+            msg = str(exc).splitlines()[0]
+            if "lock" in msg.lower():
+                raise StoreError(f"{self.path}: database is in use by another program ({msg})") from None
+            raise StoreError(f"{self.path}: cannot open database ({msg})") from None
+        except (duckdb.Error, OSError) as exc:
+            raise StoreError(f"{self.path}: cannot open database ({str(exc).splitlines()[0]})") from None
+        if not read_only:
+            self.create_schema()
+
+    # -- basics -----------------------------------------------------------------------
+    def close(self) -> None:
+        self.con.close()
+
+    def __enter__(self) -> "Store":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def create_schema(self) -> None:
+        for name, sql in statements().items():
+            if name.startswith("create_"):
+                self.con.execute(sql)
+
+    def execute(self, name: str, params: dict | None = None, **frames: pl.DataFrame):
+        """Run the named statement with bound ``params``; ``frames`` are registered first."""
+        sql = statements()[name]
+        for rel, df in frames.items():
+            self.con.register(rel, df)
+        try:
+            return self.con.execute(sql, params or {})
+        finally:
+            for rel in frames:
+                self.con.unregister(rel)
+
+    def frame(self, name: str, params: dict | None = None) -> pl.DataFrame:
+        """The named query's result as a polars frame."""
+        return self.execute(name, params).pl()
+
+    def rows(self, name: str, params: dict | None = None) -> list[tuple]:
+        return self.execute(name, params).fetchall()
+
+    @contextmanager
+    def transaction(self):
+        """Commit on success, roll back on any exception (including KeyboardInterrupt)."""
+        self.execute("tx_begin")
+        try:
+            yield self
+        except BaseException:
+            self.execute("tx_rollback")
+            raise
+        else:
+            self.execute("tx_commit")

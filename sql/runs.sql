@@ -1,0 +1,46 @@
+-- Runs and their results, kept for comparison between quarters.
+
+-- name: insert_run
+INSERT INTO runs (run_id, label, as_of, window_start, window_end, started_at, status, out_dir, config_hash)
+VALUES ($run_id, $label, $as_of, $window_start, $window_end, now()::TIMESTAMP, 'running', $out_dir, $config_hash);
+
+-- name: finish_run
+UPDATE runs SET finished_at = now()::TIMESTAMP, status = $status, input_hashes = $input_hashes,
+    versions = $versions, timings = $timings, counts = $counts, message = $message, out_dir = $out_dir
+WHERE run_id = $run_id;
+
+-- name: mark_stale_runs
+-- Runs left 'running' by a process that died are marked as interrupted.
+UPDATE runs SET status = 'interrupted' WHERE status = 'running';
+
+-- name: delete_results_of_run
+DELETE FROM results WHERE run_id = $run_id;
+
+-- name: insert_results
+INSERT INTO results BY NAME SELECT * FROM stage_results;
+
+-- name: delete_rejects_of_run
+DELETE FROM rejects WHERE run_id = $run_id;
+
+-- name: insert_rejects
+INSERT INTO rejects SELECT $run_id AS run_id, file, line, "column", value, reason FROM stage_rejects;
+
+-- name: list_runs
+SELECT run_id, label, as_of, window_start, window_end, started_at, finished_at, status, out_dir, counts
+FROM runs ORDER BY started_at DESC, run_id DESC LIMIT $limit;
+
+-- name: get_run
+SELECT run_id, label, as_of, window_start, window_end, started_at, finished_at, status, out_dir, counts
+FROM runs WHERE run_id = $run_id;
+
+-- name: previous_ok_run
+-- The latest successful run that started before the given one.
+SELECT run_id FROM runs
+WHERE status = 'ok' AND run_id <> $run_id
+  AND started_at <= (SELECT started_at FROM runs WHERE run_id = $run_id)
+ORDER BY started_at DESC, run_id DESC LIMIT 1;
+
+-- name: results_of_run
+SELECT building_id, rank, tier, needs_review, ratio, actual_heating_kbtu, expected_heating_kbtu,
+       normal_heating_kbtu, excess_energy_kbtu, excess_cost, flags, data_issues
+FROM results WHERE run_id = $run_id ORDER BY building_id;
