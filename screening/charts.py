@@ -1,0 +1,332 @@
+"""Small SVG chart builders for the building sheets and the ranking report.
+
+Layer 1: pure functions, numbers in, an SVG string out; no files, no printing. Every
+label is XML-escaped here, so a chart is safe to place in a page as markup.
+
+Print design: black and greys only; series differ by shape and stroke (solid line,
+dashed line, open circles, solid vs outlined bars), never by colour alone. Text uses the
+DejaVu Sans family that the page stylesheets also use.
+
+Why hand-written SVG rather than a charting library: see ``docs/rendering.md`` (measured
+cost per sheet); the short version is that a chart here costs well under a millisecond
+to build and adds a few dozen SVG elements for WeasyPrint to draw.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from html import escape
+
+import numpy as np
+
+__all__ = ["nice_ticks", "fmt_tick", "scatter_chart", "annual_chart", "peer_chart", "ratio_histogram"]
+
+_FONT = 'font-family="DejaVu Sans, sans-serif"'
+INK = "#000"
+MID = "#555"
+LIGHT = "#bbb"
+FAINT = "#e6e6e6"
+
+
+def _arr(values) -> np.ndarray:
+    """Float array with None turned into NaN."""
+    if values is None:
+        return np.zeros(0, float)
+    return np.array([np.nan if v is None else v for v in values], dtype=float)
+
+
+def nice_ticks(lo: float, hi: float, n: int = 5) -> np.ndarray:
+    """Round tick positions covering ``[lo, hi]`` with about ``n`` intervals.
+
+    Steps are 1, 2, 2.5 or 5 times a power of ten (common practice for axis ticks).
+    """
+    if not (math.isfinite(lo) and math.isfinite(hi)):
+        raise ValueError(f"nice_ticks needs finite bounds, got lo={lo!r}, hi={hi!r}")
+    if n < 1:
+        raise ValueError(f"nice_ticks needs n >= 1, got n={n!r}")
+    if hi < lo:
+        lo, hi = hi, lo
+    if hi == lo:
+        pad = abs(lo) * 0.5 or 1.0
+        lo, hi = lo - pad, hi + pad
+    raw = (hi - lo) / n
+    mag = 10.0 ** math.floor(math.log10(raw))
+    step = next(m * mag for m in (1, 2, 2.5, 5, 10) if m * mag >= raw * 0.999)
+    start = math.floor(lo / step + 1e-9) * step
+    stop = math.ceil(hi / step - 1e-9) * step
+    k = int(round((stop - start) / step))
+    return start + step * np.arange(k + 1)
+
+
+def fmt_tick(v: float) -> str:
+    """Short tick label: 1.5, 20, 3k, 1.2M, 1e+12."""
+    if not math.isfinite(v):
+        return ""
+    a = abs(v)
+    if a == 0:
+        return "0"
+    if a >= 1e9 or a < 1e-3:
+        return f"{v:.0e}"
+    if a >= 1e6:
+        return f"{v / 1e6:.3g}M"
+    if a >= 1e4:
+        return f"{v / 1e3:.3g}k"
+    return f"{v:.4g}"
+
+
+def _svg_open(width: float, height: float, title: str) -> str:
+    return (f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width:g} {height:g}" '
+            f'width="{width:g}" height="{height:g}" role="img"><title>{escape(title)}</title>')
+
+
+def _no_data(width: float, height: float, title: str, message: str) -> str:
+    return (_svg_open(width, height, title)
+            + f'<rect x="0.5" y="0.5" width="{width - 1:g}" height="{height - 1:g}" fill="none" '
+              f'stroke="{LIGHT}" stroke-dasharray="3 3"/>'
+            + f'<text x="{width / 2:g}" y="{height / 2:g}" text-anchor="middle" font-size="10" {_FONT} '
+              f'fill="{MID}">{escape(message)}</text></svg>')
+
+
+class _Frame:
+    """Linear mapping from data to the plot rectangle, and axis drawing."""
+
+    def __init__(self, width, height, xlo, xhi, ylo, yhi, *, left=44, right=8, top=8, bottom=30):
+        self.w, self.h = width, height
+        self.x0, self.x1 = left, width - right
+        self.y0, self.y1 = height - bottom, top  # y0 is the bottom pixel
+        self.xlo, self.xhi, self.ylo, self.yhi = xlo, xhi, ylo, yhi
+
+    def px(self, x):
+        return self.x0 + (np.asarray(x, float) - self.xlo) / (self.xhi - self.xlo) * (self.x1 - self.x0)
+
+    def py(self, y):
+        return self.y0 - (np.asarray(y, float) - self.ylo) / (self.yhi - self.ylo) * (self.y0 - self.y1)
+
+    def axes(self, xticks, yticks, xlabel, ylabel, *, xgrid=False) -> str:
+        out = []
+        for t in yticks:
+            y = float(self.py(t))
+            out.append(f'<line x1="{self.x0:.1f}" y1="{y:.1f}" x2="{self.x1:.1f}" y2="{y:.1f}" stroke="{FAINT}" '
+                       f'stroke-width="0.6"/>')
+            out.append(f'<text x="{self.x0 - 3:.1f}" y="{y + 3:.1f}" text-anchor="end" font-size="8" {_FONT}>'
+                       f'{escape(fmt_tick(float(t)))}</text>')
+        for t in xticks:
+            x = float(self.px(t))
+            if xgrid:
+                out.append(f'<line x1="{x:.1f}" y1="{self.y0:.1f}" x2="{x:.1f}" y2="{self.y1:.1f}" '
+                           f'stroke="{FAINT}" stroke-width="0.6"/>')
+            out.append(f'<line x1="{x:.1f}" y1="{self.y0:.1f}" x2="{x:.1f}" y2="{self.y0 + 3:.1f}" stroke="{INK}" '
+                       f'stroke-width="0.6"/>')
+            out.append(f'<text x="{x:.1f}" y="{self.y0 + 12:.1f}" text-anchor="middle" font-size="8" {_FONT}>'
+                       f'{escape(fmt_tick(float(t)))}</text>')
+        out.append(f'<polyline points="{self.x0:.1f},{self.y1:.1f} {self.x0:.1f},{self.y0:.1f} '
+                   f'{self.x1:.1f},{self.y0:.1f}" fill="none" stroke="{INK}" stroke-width="0.8"/>')
+        out.append(f'<text x="{(self.x0 + self.x1) / 2:.1f}" y="{self.h - 3:.1f}" text-anchor="middle" '
+                   f'font-size="8.5" {_FONT}>{escape(xlabel)}</text>')
+        if ylabel:
+            cy = (self.y0 + self.y1) / 2
+            out.append(f'<text x="9" y="{cy:.1f}" text-anchor="middle" font-size="8.5" {_FONT} '
+                       f'transform="rotate(-90 9 {cy:.1f})">{escape(ylabel)}</text>')
+        return "".join(out)
+
+
+def _clip_line(intercept, slope, xlo, xhi, ylo, yhi):
+    """End points of y = intercept + slope*x inside the box, or None."""
+    if intercept is None or slope is None or not (math.isfinite(intercept) and math.isfinite(slope)):
+        return None
+    a, b = xlo, xhi
+    if slope != 0:
+        xa, xb = (ylo - intercept) / slope, (yhi - intercept) / slope
+        a, b = max(a, min(xa, xb)), min(b, max(xa, xb))
+    elif not (ylo <= intercept <= yhi):
+        return None
+    if a >= b:
+        return None
+    return (a, intercept + slope * a), (b, intercept + slope * b)
+
+
+def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[float | None], *,
+                  fit_line: dict | None, expected_line: dict | None, x_label: str, y_label: str,
+                  width: float = 360, height: float = 210) -> str:
+    """Use per day against degree days per day, one open circle per period.
+
+    ``fit_line`` and ``expected_line`` are ``{"intercept", "slope"}`` in the same units
+    (use per day = intercept + slope * degree days per day); the fitted line is drawn
+    solid, the engineering expectation dashed. Non-finite points are left out and counted
+    in a note.
+    """
+    x, y = _arr(dd_per_day), _arr(use_per_day)
+    if x.shape != y.shape:
+        raise ValueError(f"dd_per_day and use_per_day differ in length: {x.size} != {y.size}")
+    ok = np.isfinite(x) & np.isfinite(y)
+    title = "Use per day against degree days per day"
+    if not ok.any():
+        return _no_data(width, height, title, "no period data to plot")
+    xs, ys = x[ok], y[ok]
+    xlo, xhi = min(0.0, float(xs.min())), float(xs.max())
+    ylo, yhi = min(0.0, float(ys.min())), float(ys.max())
+    for line in (fit_line, expected_line):
+        if line and line.get("intercept") is not None and line.get("slope") is not None:
+            ends = np.array([line["intercept"] + line["slope"] * xlo, line["intercept"] + line["slope"] * xhi])
+            ends = ends[np.isfinite(ends)]
+            # let the lines widen the y range a little, but never let a wild line flatten the points
+            span = max(yhi - ylo, 1e-9)
+            if ends.size:
+                ylo = min(ylo, max(float(ends.min()), ylo - 0.25 * span))
+                yhi = max(yhi, min(float(ends.max()), yhi + 0.25 * span))
+    xt = nice_ticks(xlo, xhi, 5)
+    yt = nice_ticks(ylo, yhi, 4)
+    f = _Frame(width, height, float(xt[0]), float(xt[-1]), float(yt[0]), float(yt[-1]), top=22)
+    out = [_svg_open(width, height, title), f.axes(xt, yt, x_label, y_label, xgrid=True)]
+    legend = []
+    for line, dash, label in ((expected_line, ' stroke-dasharray="5 3"', "engineering expectation"),
+                              (fit_line, "", "fitted to the meter data")):
+        seg = _clip_line(line.get("intercept"), line.get("slope"), f.xlo, f.xhi, f.ylo, f.yhi) if line else None
+        if seg:
+            (xa, ya), (xb, yb) = seg
+            out.append(f'<line x1="{float(f.px(xa)):.1f}" y1="{float(f.py(ya)):.1f}" x2="{float(f.px(xb)):.1f}" '
+                       f'y2="{float(f.py(yb)):.1f}" stroke="{INK}" stroke-width="1.4"{dash}/>')
+            legend.append((dash, label))
+    px, py = f.px(xs), f.py(ys)
+    out.append("".join(f'<circle cx="{a:.1f}" cy="{b:.1f}" r="2.6" fill="#fff" stroke="{INK}" stroke-width="1"/>'
+                       for a, b in zip(px.tolist(), py.tolist())))
+    lx = f.x0 + 4
+    out.append(f'<circle cx="{lx + 9:.1f}" cy="9" r="2.6" fill="#fff" stroke="{INK}"/>'
+               f'<text x="{lx + 22:.1f}" y="12" font-size="8" {_FONT}>period</text>')
+    lx += 60
+    for dash, label in legend:
+        out.append(f'<line x1="{lx:.1f}" y1="9" x2="{lx + 18:.1f}" y2="9" stroke="{INK}" stroke-width="1.4"{dash}/>'
+                   f'<text x="{lx + 22:.1f}" y="12" font-size="8" {_FONT}>{escape(label)}</text>')
+        lx += 22 + 5.2 * len(label) + 10
+    dropped = int((~ok).sum())
+    if dropped:
+        out.append(f'<text x="{f.x1:.1f}" y="{f.y1 + 10:.1f}" text-anchor="end" font-size="7.5" {_FONT} '
+                   f'fill="{MID}">{dropped} period(s) not plotted (missing value)</text>')
+    out.append("</svg>")
+    return "".join(out)
+
+
+def annual_chart(labels: Sequence[str], metered: Sequence[float | None], expected: Sequence[float | None], *,
+                 y_label: str, width: float = 360, height: float = 210) -> str:
+    """Metered (solid bar) against expected (outlined bar) heating, one pair per year."""
+    m, e = _arr(metered), _arr(expected)
+    if not (len(labels) == m.size == e.size):
+        raise ValueError(f"labels, metered and expected differ in length: {len(labels)}, {m.size}, {e.size}")
+    title = "Metered against expected heating by year"
+    vals = np.concatenate([m, e])
+    vals = vals[np.isfinite(vals)]
+    if vals.size == 0:
+        return _no_data(width, height, title, "no annual figures to plot")
+    yt = nice_ticks(min(0.0, float(vals.min())), max(0.0, float(vals.max())), 4)
+    n = len(labels)
+    f = _Frame(width, height, 0.0, float(n), float(yt[0]), float(yt[-1]), top=22)
+    out = [_svg_open(width, height, title), f.axes([], yt, "", y_label)]
+    slot = (f.x1 - f.x0) / n
+    bw = min(slot * 0.34, 40)
+    zero = float(f.py(0.0))
+    for i, lab in enumerate(labels):
+        cx = f.x0 + slot * (i + 0.5)
+        for val, dx, style in ((m[i], -bw, f'fill="{MID}" stroke="{INK}"'),
+                               (e[i], 0.0, f'fill="#fff" stroke="{INK}" stroke-dasharray="3 2"')):
+            if np.isfinite(val):
+                yv = float(f.py(val))
+                out.append(f'<rect x="{cx + dx:.1f}" y="{min(yv, zero):.1f}" width="{bw:.1f}" '
+                           f'height="{abs(zero - yv):.1f}" {style} stroke-width="0.9"/>')
+            else:
+                out.append(f'<text x="{cx + dx + bw / 2:.1f}" y="{zero - 3:.1f}" text-anchor="middle" font-size="7" '
+                           f'{_FONT} fill="{MID}">n/a</text>')
+        out.append(f'<text x="{cx:.1f}" y="{f.y0 + 12:.1f}" text-anchor="middle" font-size="8" {_FONT}>'
+                   f'{escape(str(lab))}</text>')
+    lx = f.x0 + 4
+    out.append(f'<rect x="{lx:.1f}" y="4" width="12" height="8" fill="{MID}" stroke="{INK}"/>'
+               f'<text x="{lx + 16:.1f}" y="11" font-size="8" {_FONT}>metered</text>'
+               f'<rect x="{lx + 70:.1f}" y="4" width="12" height="8" fill="#fff" stroke="{INK}" '
+               f'stroke-dasharray="3 2"/><text x="{lx + 86:.1f}" y="11" font-size="8" {_FONT}>expected</text>')
+    out.append("</svg>")
+    return "".join(out)
+
+
+def peer_chart(peers: Sequence[float | None], value: float | None, median: float | None, *, x_label: str,
+               width: float = 300, height: float = 210, max_ticks: int = 80) -> str:
+    """Where one building sits among its peer group on a single axis.
+
+    Up to ``max_ticks`` peers are drawn as one grey tick each; larger groups as a
+    histogram of 20 bins. The building is a black downward triangle with a label; the
+    peer median a dashed vertical line.
+    """
+    p = _arr(peers)
+    p = p[np.isfinite(p)]
+    title = "Place among peers"
+    v = float(value) if value is not None and math.isfinite(value) else None
+    med = float(median) if median is not None and math.isfinite(median) else None
+    if p.size == 0 and v is None:
+        return _no_data(width, height, title, "no peer figures to plot")
+    pts = np.concatenate([p, [v] if v is not None else [], [med] if med is not None else []])
+    xt = nice_ticks(min(0.0, float(pts.min())), float(pts.max()), 4)
+    f = _Frame(width, height, float(xt[0]), float(xt[-1]), 0.0, 1.0, left=14, right=12, top=30)
+    out = [_svg_open(width, height, title), f.axes(xt, [], x_label, "")]
+    if p.size <= max_ticks:
+        xs = f.px(p).tolist()
+        out.append("".join(f'<line x1="{a:.1f}" y1="{f.y0 - 1:.1f}" x2="{a:.1f}" y2="{f.y0 - 40:.1f}" '
+                           f'stroke="{MID}" stroke-width="1"/>' for a in xs))
+        note = f"{p.size} building(s) in the group, one tick each"
+    else:
+        counts, edges = np.histogram(p, bins=20, range=(f.xlo, f.xhi))
+        hmax = float(counts.max()) or 1.0
+        hpx = (f.y0 - f.y1 - 34) * counts / hmax
+        out.append("".join(
+            f'<rect x="{float(f.px(a)):.1f}" y="{f.y0 - h:.1f}" width="{float(f.px(b) - f.px(a)):.1f}" '
+            f'height="{h:.1f}" fill="{LIGHT}" stroke="{INK}" stroke-width="0.5"/>'
+            for a, b, h in zip(edges[:-1].tolist(), edges[1:].tolist(), hpx.tolist()) if h > 0))
+        note = f"{p.size} buildings in the group, bars count buildings"
+    if med is not None:
+        xm = float(f.px(med))
+        out.append(f'<line x1="{xm:.1f}" y1="{f.y0:.1f}" x2="{xm:.1f}" y2="{f.y1 + 14:.1f}" stroke="{INK}" '
+                   f'stroke-width="1.2" stroke-dasharray="4 2"/>'
+                   f'<text x="{xm:.1f}" y="{f.y1 + 11:.1f}" text-anchor="middle" font-size="8" {_FONT}>peer median</text>')
+    if v is not None:
+        xv = float(f.px(v))
+        ty = f.y0 - 52
+        anchor = "start" if xv < (f.x0 + f.x1) / 2 else "end"
+        dx = 6 if anchor == "start" else -6
+        out.append(f'<path d="M{xv - 6:.1f},{ty - 10:.1f} L{xv + 6:.1f},{ty - 10:.1f} L{xv:.1f},{ty:.1f} Z" '
+                   f'fill="{INK}"/><line x1="{xv:.1f}" y1="{ty:.1f}" x2="{xv:.1f}" y2="{f.y0:.1f}" stroke="{INK}" '
+                   f'stroke-width="2"/><text x="{xv + dx:.1f}" y="{ty - 12:.1f}" text-anchor="{anchor}" '
+                   f'font-size="8.5" font-weight="bold" {_FONT}>this building</text>')
+    out.append(f'<text x="{f.x0:.1f}" y="10" font-size="7.5" {_FONT} fill="{MID}">{escape(note)}</text>')
+    out.append("</svg>")
+    return "".join(out)
+
+
+def ratio_histogram(ratios: Sequence[float | None], *, width: float = 520, height: float = 200,
+                    step: float = 0.1, top: float = 3.0) -> str:
+    """Distribution of metered/expected ratios, bins of ``step`` from 0 to ``top`` plus one
+    overflow bin; a dashed line marks ratio 1 (metered equals expected)."""
+    if not (step > 0 and top > step):
+        raise ValueError(f"ratio_histogram needs 0 < step < top, got step={step!r}, top={top!r}")
+    r = _arr(ratios)
+    r = r[np.isfinite(r)]
+    title = "Distribution of metered / expected ratios"
+    if r.size == 0:
+        return _no_data(width, height, title, "no ratios to plot")
+    nb = int(round(top / step))
+    edges = np.linspace(0.0, top, nb + 1)
+    counts = np.histogram(np.clip(r, 0.0, top - step / 2), bins=edges)[0]
+    yt = nice_ticks(0.0, max(float(counts.max()), 1.0), 4)
+    yt = yt[yt == np.round(yt)]
+    f = _Frame(width, height, 0.0, top, 0.0, float(yt[-1]), top=14)
+    xt = np.arange(0.0, top + 1e-9, 0.5)
+    out = [_svg_open(width, height, title),
+           f.axes(xt, yt, "metered / expected heating (ratio)", "buildings")]
+    x0s, x1s, ys = f.px(edges[:-1]).tolist(), f.px(edges[1:]).tolist(), f.py(counts).tolist()
+    out.append("".join(f'<rect x="{a:.1f}" y="{c:.1f}" width="{b - a:.1f}" height="{f.y0 - c:.1f}" fill="{LIGHT}" '
+                       f'stroke="{INK}" stroke-width="0.6"/>' for a, b, c, n in zip(x0s, x1s, ys, counts) if n))
+    x1 = float(f.px(1.0))
+    out.append(f'<line x1="{x1:.1f}" y1="{f.y0:.1f}" x2="{x1:.1f}" y2="{f.y1:.1f}" stroke="{INK}" stroke-width="1.2" '
+               f'stroke-dasharray="4 2"/><text x="{x1 + 3:.1f}" y="{f.y1 + 8:.1f}" font-size="8" {_FONT}>'
+               f'metered = expected</text>')
+    out.append(f'<text x="{f.x1:.1f}" y="{f.y1 + 8:.1f}" text-anchor="end" font-size="7.5" {_FONT} fill="{MID}">'
+               f'last bar: ratio {top:g} and above; {r.size} building(s)</text>')
+    out.append("</svg>")
+    return "".join(out)

@@ -1,0 +1,699 @@
+"""Rendering: one-page building sheets and the portfolio ranking report (PDF).
+
+Layer 3 (orchestration): takes plain dicts (the sheet and report contracts documented
+in ``docs/rendering.md``), formats every number itself, renders HTML with Jinja
+(autoescaped, ``StrictUndefined``) and lays it out with WeasyPrint.
+
+Speed: many sheets are laid out in one WeasyPrint document (a *chunk*), each sheet on
+its own page; the page count is checked against the sheet count (each sheet's first page
+carries an anchor ``sheet-<k>``), the chunk is written once and split into one file per
+page with pypdf, which also sets each file's ``/Title``. A sheet that runs over one page
+is re-rendered on its own at growing shrink levels. Chunks are spread over a process
+pool; each worker keeps one ``FontConfiguration``, one Jinja environment and the parsed
+stylesheets for its whole life.
+
+Safety: every fetch goes through :class:`AssetFetcher`, which serves only files inside
+``templates_dir()`` and ``data:`` URIs and refuses everything else (no network, no other
+file). Output files are named by :func:`assign_filenames` and written atomically inside
+``out_dir`` only.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import logging
+import math
+import mimetypes
+import multiprocessing
+import os
+import re
+import tempfile
+import unicodedata
+from collections.abc import Iterable, Sequence
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+from typing import Any
+from urllib.parse import unquote, urlsplit
+from urllib.request import url2pathname
+
+import jinja2
+from markupsafe import Markup
+
+from . import __version__, charts
+from .errors import OutputError
+from .resources import templates_dir
+
+__all__ = [
+    "RenderError", "AssetFetcher", "safe_filename", "assign_filenames", "render_sheets", "render_ranking",
+    "sheet_view", "fmt_num", "STANDARD_CAUTION", "PAPERS",
+]
+
+LOGGER = logging.getLogger(__name__)
+
+PAPERS = {"Letter": "letter", "A4": "A4"}
+
+STANDARD_CAUTION = (
+    "This page is a screening estimate from meter readings and weather, for information only: it is not an "
+    "energy audit, a design heat-loss calculation or a code-compliance finding. Follow local codes and the legal "
+    "minimum indoor temperatures for occupied spaces. Have combustion appliances and venting safety-tested by "
+    "qualified people before and after any air sealing. Leave decisions on changes to licensed engineers or "
+    "certified energy auditors."
+)
+
+
+class RenderError(OutputError):
+    """A sheet or report could not be laid out or written (names the building or file)."""
+
+
+# --------------------------------------------------------------------------------------
+# file names
+
+
+_WINDOWS_RESERVED = {"CON", "PRN", "AUX", "NUL", "CLOCK$", "CONIN$", "CONOUT$",
+                     *(f"COM{i}" for i in "0123456789¹²³"), *(f"LPT{i}" for i in "0123456789¹²³")}
+_UNSAFE = re.compile(r"[^A-Za-z0-9._-]+")
+_MAX_READABLE = 60
+_HASH_LEN = 10
+
+
+def _id_hash(building_id: str, n: int = _HASH_LEN) -> str:
+    return hashlib.sha256(building_id.encode("utf-8", "surrogatepass")).hexdigest()[:n]
+
+
+def safe_filename(building_id: str) -> str:
+    """Map a building id to a file stem that is safe on Linux, macOS and Windows.
+
+    The readable part keeps ASCII letters, digits, ``.``, ``_`` and ``-`` (after NFKD
+    folding of accents); every other run of characters becomes one ``_``; leading dots,
+    dashes and underscores and trailing dots are stripped; it is cut to 60 characters.
+    When that changed anything, or the result is empty or a Windows device name
+    (CON, NUL, COM1 ...), ``-`` plus the first 10 hex digits of SHA-256 of the UTF-8 id
+    is appended, so two ids that sanitize alike still get different stems. An id that is
+    already safe is kept unchanged. Deterministic; no I/O.
+    """
+    if not isinstance(building_id, str):
+        raise TypeError(f"building_id must be a str, got {type(building_id).__name__}: {building_id!r}")
+    folded = unicodedata.normalize("NFKD", building_id).encode("ascii", "ignore").decode("ascii")
+    readable = _UNSAFE.sub("_", folded).lstrip("._-").rstrip(". ")[:_MAX_READABLE].rstrip(". ")
+    reserved = readable.split(".")[0].upper() in _WINDOWS_RESERVED
+    if readable == building_id and readable and not reserved:
+        return readable
+    return f"{readable or 'building'}-{_id_hash(building_id)}"
+
+
+def assign_filenames(ids: Sequence[str]) -> dict[str, str]:
+    """Safe, unique, deterministic file stems for a list of distinct building ids.
+
+    Starts from :func:`safe_filename`; stems that are equal when compared without case
+    (they would overwrite each other on Windows and macOS) all get the id's hash appended,
+    and then longer hashes until no two stems collide. The result does not depend on the
+    order of ``ids``.
+    """
+    ids = list(ids)
+    seen: set[str] = set()
+    for bid in ids:
+        if bid in seen:
+            raise ValueError(f"assign_filenames: building id {bid!r} appears more than once")
+        seen.add(bid)
+    stems = {bid: safe_filename(bid) for bid in sorted(ids)}
+    n = _HASH_LEN
+    while True:
+        groups: dict[str, list[str]] = {}
+        for bid, stem in stems.items():
+            groups.setdefault(stem.casefold(), []).append(bid)
+        clashes = [g for g in groups.values() if len(g) > 1]
+        if not clashes:
+            return {bid: stems[bid] for bid in ids}
+        n += 6
+        if n > 64:  # pragma: no cover - would need a SHA-256 collision
+            raise RenderError(f"cannot give distinct file names to ids {clashes[0]!r}")
+        for group in clashes:
+            for bid in group:
+                base = safe_filename(bid)
+                if base != bid:  # strip the short hash again
+                    base = base.rsplit("-", 1)[0]
+                stems[bid] = f"{base}-{_id_hash(bid, n)}"
+
+
+# --------------------------------------------------------------------------------------
+# URL fetcher
+
+
+def _fetcher_class():
+    from weasyprint.urls import URLFetcher, URLFetcherResponse
+
+    class _AssetFetcher(URLFetcher):
+        """Serve only files inside ``root`` (the templates folder) and ``data:`` URIs.
+
+        Everything else (http, https, ftp, file outside ``root``, devices) is refused
+        before any I/O with ``ValueError``; with ``fatal=True`` (the default) WeasyPrint
+        stops the render instead of drawing the page without the resource. Every URL asked
+        for is recorded in ``self.requested`` and every refusal in ``self.refused``.
+        """
+
+        def __init__(self, root: Path | None = None, *, fatal: bool = True):
+            super().__init__(timeout=2, allowed_protocols={"file", "data"}, allow_redirects=False,
+                             fail_on_errors=fatal)
+            self.root = Path(root or templates_dir()).resolve()
+            self.requested: list[str] = []
+            self.refused: list[str] = []
+
+        def fetch(self, url, headers=None):
+            self.requested.append(url)
+            scheme = url.split(":", 1)[0].lower() if ":" in url else ""
+            if scheme == "data":
+                return super().fetch(url, headers)
+            if scheme == "file":
+                parts = urlsplit(url)
+                if parts.netloc in ("", "localhost"):
+                    path = Path(url2pathname(unquote(parts.path))).resolve()
+                    if path.is_relative_to(self.root) and path.is_file():
+                        ctype = mimetypes.guess_type(path.name)[0] or "application/octet-stream"
+                        return URLFetcherResponse(path.as_uri(), path.read_bytes(), {"Content-Type": ctype})
+            self.refused.append(url)
+            raise ValueError(f"refused to fetch {url[:200]!r}: only template assets and data: URIs are served")
+
+    return _AssetFetcher
+
+
+def AssetFetcher(root: Path | None = None, *, fatal: bool = True):  # noqa: N802 - used like a class
+    """A :class:`weasyprint.urls.URLFetcher` serving only ``root`` (default templates_dir()) and ``data:``."""
+    return _fetcher_class()(root, fatal=fatal)
+
+
+# --------------------------------------------------------------------------------------
+# number formatting (documented in docs/rendering.md)
+
+
+def _finite(x) -> bool:
+    return x is not None and isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
+
+
+def fmt_num(x, *, sig: int = 3) -> str:
+    """Format a number for a sheet: ``n/a`` for missing, ``∞`` for infinite, thousands
+    separators and no decimals from 100 up, ``sig`` significant digits below 100,
+    ``1.23e+12`` from one billion up."""
+    if x is None or isinstance(x, bool):
+        return "n/a"
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return "n/a"
+    if math.isnan(x):
+        return "n/a"
+    if math.isinf(x):
+        return "∞" if x > 0 else "-∞"
+    a = abs(x)
+    if a >= 1e9:
+        return f"{x:.2e}"
+    if a >= 100:
+        return f"{x:,.0f}"
+    if a == 0:
+        return "0"
+    if a < 1e-3:
+        return f"{x:.1e}"
+    return f"{x:.{sig}g}"
+
+
+def fmt_ratio(x) -> str:
+    return f"{x:.2f}" if _finite(x) and abs(x) < 1e6 else fmt_num(x)
+
+
+def fmt_pct(x, digits: int = 1) -> str:
+    return f"{100 * x:.{digits}f}%" if _finite(x) and abs(x) < 1e6 else fmt_num(x)
+
+
+def fmt_money(x, currency: str = "$") -> str:
+    if not _finite(x):
+        return fmt_num(x)
+    return f"{'-' if x < 0 else ''}{currency}{fmt_num(abs(x))}"
+
+
+def fmt_co2e(kg) -> tuple[str, str]:
+    """(value, unit): kilograms below 10,000 kg, tonnes with one decimal from there."""
+    if _finite(kg) and abs(kg) >= 10_000:
+        return (f"{kg / 1000:,.1f}" if abs(kg) < 1e12 else fmt_num(kg / 1000)), "t"
+    return fmt_num(kg), "kg"
+
+
+def _ordinal(p) -> str:
+    if not _finite(p):
+        return ""
+    n = int(round(min(max(p, 0.0), 100.0)))
+    suffix = "th" if 10 <= n % 100 <= 20 else {1: "st", 2: "nd", 3: "rd"}.get(n % 10, "th")
+    return f"{n}{suffix} percentile"
+
+
+def _cut(text, n: int) -> str:
+    text = "" if text is None else str(text)
+    return text if len(text) <= n else text[: n - 1].rstrip() + "…"
+
+
+# --------------------------------------------------------------------------------------
+# sheet view: the sheet dict turned into strings for the template
+
+# per shrink level: max items shown and max characters of each text
+_LIMITS = [
+    dict(name=300, text=400, expl=220, flags=7, issues=5, steps=6, cautions=3, asm=12, caution_len=300),
+    dict(name=300, text=400, expl=180, flags=6, issues=4, steps=5, cautions=3, asm=10, caution_len=240),
+    dict(name=160, text=260, expl=140, flags=4, issues=3, steps=3, cautions=2, asm=8, caution_len=200),
+    dict(name=100, text=180, expl=100, flags=3, issues=2, steps=2, cautions=1, asm=6, caution_len=160),
+]
+MAX_LEVEL = len(_LIMITS) - 1
+
+_PART_NAMES = {"walls": "walls", "windows": "windows", "roof": "roof", "ground": "ground floor",
+               "infiltration": "air leakage", "ventilation": "ventilation air"}
+_SPAN_NOTE = {"window": "", "shifted": "moved to the months the readings cover",
+              "uncovered": "readings do not cover the whole window"}
+_BAND_TEXT = {"below": "below the expected band", "within": "within the expected band",
+              "above": "above the expected band"}
+
+
+def _items(seq, n_items, n_chars):
+    seq = list(seq or [])
+    shown = [{"code": _cut(x.get("code"), 40), "explanation": _cut(x.get("explanation"), n_chars)}
+             for x in seq[:n_items]]
+    return shown, len(seq) - len(shown)
+
+
+def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
+    """Everything a sheet template shows, as display strings (plus chart SVG markup)."""
+    if not 0 <= level <= MAX_LEVEL:
+        raise ValueError(f"sheet_view: level must be 0..{MAX_LEVEL}, got {level!r}")
+    lim = _LIMITS[level]
+    eu = s.get("energy_unit") or ""
+    cur = s.get("currency") or "$"
+    name = _cut(s.get("name") or s.get("building_id"), lim["name"])
+    place = ", ".join(str(p) for p in (s.get("address"), s.get("city")) if p)
+    area = s.get("floor_area")
+    tr = s.get("tier_rank")
+    co2_v, co2_u = fmt_co2e(s.get("excess_co2e_kg"))
+
+    periods = s.get("periods") or []
+    if periods:
+        chart1 = charts.scatter_chart([p.get("dd_per_day") for p in periods], [p.get("use_per_day") for p in periods],
+                                      fit_line=s.get("fit_line"), expected_line=s.get("expected_line"),
+                                      x_label=f"degree days per day [{s.get('dd_unit', '')}/day]",
+                                      y_label=f"use per day [{eu}/day]")
+        chart1_title = "Heating use against the weather, by billing period"
+        chart1_caption = ("Each circle is one billing period. Solid line: fitted to the meter data; dashed line: "
+                          "what the envelope (UA) and the weather predict.")
+    else:
+        annual = s.get("annual") or []
+        chart1 = charts.annual_chart([str(a.get("year_label")) for a in annual], [a.get("metered") for a in annual],
+                                     [a.get("expected") for a in annual], y_label=f"heating [{eu}]")
+        chart1_title = "Metered against expected heating, by year"
+        chart1_caption = "Annual readings only, so no per-period fit: solid bars metered, dashed outlines expected."
+    chart2 = charts.peer_chart(s.get("peers") or [], s.get("heating_intensity"), s.get("peer_median_intensity"),
+                               x_label=f"heating per degree day [{s.get('intensity_unit', '')}]")
+    n_peers = len(s.get("peers") or [])
+
+    parts = s.get("ua_parts") or []
+    vals = [p.get("value") for p in parts]
+    vmax = max([v for v in vals if _finite(v) and v > 0], default=0.0)
+    total = s.get("ua_total")
+    ua_parts = [{
+        "part": _PART_NAMES.get(p.get("part"), _cut(p.get("part"), 30)),
+        "value": fmt_num(v),
+        "pct": f"{100.0 * v / vmax:.1f}" if _finite(v) and v > 0 and vmax > 0 else "0",
+        "share": fmt_pct(v / total, 0) if _finite(v) and _finite(total) and total > 0 else "",
+    } for p, v in zip(parts, vals)]
+
+    asm_all = s.get("assumptions") or []
+    assumptions = [{"name": _cut(a.get("name"), 60),
+                    "value": fmt_num(a.get("value")) if not isinstance(a.get("value"), str) else _cut(a["value"], 20),
+                    "unit": _cut(a.get("unit"), 24),
+                    "origin": "given" if a.get("origin") == "given" else "default",
+                    "origin_class": "given" if a.get("origin") == "given" else "default"}
+                   for a in asm_all[: lim["asm"]]]
+
+    fit = s.get("fit") or {}
+    if fit.get("method") == "regression":
+        fit_text = (f"Fit: regression on {fmt_num(fit.get('n_periods'))} periods; R² {fmt_ratio(fit.get('r2'))}, "
+                    f"CV(RMSE) {fmt_pct(fit.get('cv_rmse'))}, NMBE {fmt_pct(fit.get('nmbe'))}; fitted balance point "
+                    f"{fmt_num(fit.get('fitted_base'))} {s.get('temp_unit', '')}; slope {fmt_num(fit.get('slope'))} "
+                    f"{eu} per {s.get('dd_unit', '')}; baseload {fmt_num(fit.get('baseload_per_day'))} {eu}/day.")
+    else:
+        fit_text = ("Fit: none (too few periods); heating taken as a default share of the metered total"
+                    f"; baseload {fmt_num(fit.get('baseload_per_day'))} {eu}/day.")
+    fit_text += (f" Degree days {fmt_num(s.get('hdd'))} {s.get('dd_unit', '')} at base "
+                 f"{fmt_num(s.get('base_temperature'))} {s.get('temp_unit', '')}.")
+
+    flags, flags_more = _items(s.get("flags"), lim["flags"], lim["expl"])
+    issues, issues_more = _items(s.get("data_issues"), lim["issues"], lim["expl"])
+    steps_all = list(s.get("next_steps") or [])
+    cautions_all = list(s.get("cautions") or [])
+    year = s.get("year_built")
+    return {
+        "level": level,
+        "building_id": _cut(s.get("building_id"), 80),
+        "name": name,
+        "name_class": "vlong" if len(name) > 180 else ("long" if len(name) > 90 else ""),
+        "place": _cut(place, lim["name"]),
+        "use_type": _cut(s.get("use_type") or "use type n/a", 40),
+        "floor_area": f"{fmt_num(area)} {s.get('area_unit', '')}",
+        "year_built": str(int(year)) if _finite(year) else "n/a",
+        "station_id": _cut(s.get("station_id") or "n/a", 40),
+        "period_start": s.get("period_start") or "n/a",
+        "period_end": s.get("period_end") or "n/a",
+        "span_note": _SPAN_NOTE.get(s.get("span_kind"), ""),
+        "run_date": s.get("run_date") or "n/a",
+        "run_id": _cut(s.get("run_id"), 60),
+        "verdict": _cut(s.get("verdict"), lim["text"]),
+        "tier": _cut(s.get("tier"), 24),
+        "tier_rank": tr if isinstance(tr, int) else "?",
+        "tier_rank_class": min(max(tr, 1), 5) if isinstance(tr, int) else 5,
+        "needs_review": bool(s.get("needs_review")),
+        "energy_unit": eu,
+        "actual_heating": fmt_num(s.get("actual_heating")),
+        "expected_heating": fmt_num(s.get("expected_heating")),
+        "expected_low": fmt_num(s.get("expected_low")),
+        "expected_high": fmt_num(s.get("expected_high")),
+        "ratio": fmt_ratio(s.get("ratio")),
+        "band_text": _BAND_TEXT.get(s.get("band_position"), "band position n/a"),
+        "heating_intensity": fmt_num(s.get("heating_intensity")),
+        "intensity_unit": s.get("intensity_unit", ""),
+        "peer_median_intensity": fmt_num(s.get("peer_median_intensity")),
+        "peer_percentile": _ordinal(s.get("peer_percentile")),
+        "peer_group": _cut(s.get("peer_group") or "no group", 60),
+        "normal_heating": fmt_num(s.get("normal_heating")),
+        "baseload": fmt_num(s.get("baseload")),
+        "excess_energy": fmt_num(s.get("excess_energy")),
+        "excess_cost": fmt_money(s.get("excess_cost"), cur),
+        "excess_co2e": co2_v, "co2e_unit": co2_u,
+        "chart1": Markup(chart1), "chart1_title": chart1_title, "chart1_caption": chart1_caption,
+        "chart2": Markup(chart2),
+        "chart2_caption": (f"Heating per degree day of the {n_peers} building(s) in the group, this one included."
+                           if n_peers else "No peer group figures for this building."),
+        "ua_parts": ua_parts, "ua_total": fmt_num(total), "ua_unit": s.get("ua_unit", ""),
+        "effective_ua": fmt_num(s.get("effective_ua")),
+        "assumptions": assumptions, "assumptions_more": max(len(asm_all) - lim["asm"], 0),
+        "fit_text": fit_text,
+        "flags": flags, "flags_more": flags_more,
+        "data_issues": issues, "data_issues_more": issues_more,
+        "next_steps": [_cut(t, lim["expl"]) for t in steps_all[: lim["steps"]]],
+        "next_steps_more": max(len(steps_all) - lim["steps"], 0),
+        "cautions": [_cut(t, lim["caution_len"]) for t in cautions_all[: lim["cautions"]]],
+    }
+
+
+def sheet_title(s: dict[str, Any]) -> str:
+    """The /Title of a sheet's PDF file."""
+    return f"{_cut(s.get('name') or s.get('building_id'), 120)} ({_cut(s.get('building_id'), 80)}): " \
+           f"heating screening sheet, run {_cut(s.get('run_id'), 60)}"
+
+
+# --------------------------------------------------------------------------------------
+# per-process renderer state (one FontConfiguration, one Jinja env, parsed CSS once)
+
+_STATE: dict[str, Any] = {}
+
+
+def _state() -> dict[str, Any]:
+    if not _STATE:
+        from weasyprint.text.fonts import FontConfiguration
+
+        tdir = templates_dir()
+        _STATE["tdir"] = tdir
+        _STATE["font_config"] = FontConfiguration()
+        _STATE["fetcher"] = AssetFetcher(tdir)
+        _STATE["env"] = jinja2.Environment(
+            loader=jinja2.FileSystemLoader(tdir),
+            autoescape=jinja2.select_autoescape(enabled_extensions=("html", "j2", "xml"), default=True,
+                                                default_for_string=True),
+            undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True)
+        _STATE["css"] = {}
+    return _STATE
+
+
+def _stylesheets(name: str, paper: str) -> list:
+    from weasyprint import CSS
+
+    st = _state()
+    key = (name, paper)
+    if key not in st["css"]:
+        if paper not in PAPERS:
+            raise ValueError(f"paper must be one of {sorted(PAPERS)}, got {paper!r}")
+        st["css"][key] = [
+            CSS(filename=str(st["tdir"] / name), font_config=st["font_config"], url_fetcher=st["fetcher"],
+                base_url=st["tdir"].as_uri() + "/"),
+            CSS(string=f"@page {{ size: {PAPERS[paper]}; }}", font_config=st["font_config"]),
+        ]
+    return st["css"][key]
+
+
+def _render_html(html: str, css_name: str, paper: str):
+    from weasyprint import HTML
+
+    st = _state()
+    doc = HTML(string=html, base_url=st["tdir"].as_uri() + "/", url_fetcher=st["fetcher"])
+    return doc.render(stylesheets=_stylesheets(css_name, paper), font_config=st["font_config"])
+
+
+def _sheets_html(views: list[dict[str, Any]], title: str) -> str:
+    tpl = _state()["env"].get_template("sheet.html.j2")
+    return tpl.render(sheets=views, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__)
+
+
+def _sheet_starts(doc, n: int) -> list[int] | None:
+    """Page index where each sheet starts (from the ``sheet-<k>`` anchors), or None."""
+    starts: dict[int, int] = {}
+    for i, page in enumerate(doc.pages):
+        for anchor in page.anchors:
+            if anchor.startswith("sheet-") and anchor[6:].isdigit():
+                starts.setdefault(int(anchor[6:]), i)
+    if sorted(starts) != list(range(n)):
+        return None
+    return [starts[k] for k in range(n)]
+
+
+def _atomic_write(data: bytes, target: Path) -> None:
+    fd, tmp = tempfile.mkstemp(prefix=".tmp-", suffix=".pdf", dir=target.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            fh.write(data)
+        os.replace(tmp, target)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+def _write_pages(pdf_bytes: bytes, picks: Iterable[tuple[int, Path, str]]) -> None:
+    """Write chosen pages of one PDF as single-page files, each with its own /Title."""
+    from pypdf import PdfReader, PdfWriter
+
+    reader = PdfReader(io.BytesIO(pdf_bytes))
+    for index, target, title in picks:
+        writer = PdfWriter()
+        writer.add_page(reader.pages[index])
+        writer.add_metadata({"/Title": title, "/Creator": f"ddscreen {__version__}",
+                             "/Producer": "ddscreen via WeasyPrint and pypdf"})
+        buf = io.BytesIO()
+        writer.write(buf)
+        _atomic_write(buf.getvalue(), target)
+
+
+def _render_one(sheet: dict[str, Any], target: Path, paper: str, start_level: int = 0) -> int:
+    """Render one sheet alone, shrinking until it fits one page; returns the level used."""
+    title = sheet_title(sheet)
+    for level in range(start_level, MAX_LEVEL + 1):
+        doc = _render_html(_sheets_html([sheet_view(sheet, level)], title), "sheet.css", paper)
+        if len(doc.pages) == 1:
+            _write_pages(doc.write_pdf(), [(0, target, title)])
+            return level
+        LOGGER.info("sheet %r needs %d pages at shrink level %d", sheet.get("building_id"), len(doc.pages), level)
+    raise RenderError(f"sheet for building {sheet.get('building_id')!r} does not fit on one page "
+                      f"even at the smallest layout (level {MAX_LEVEL})")
+
+
+def _render_chunk(sheets: list[dict[str, Any]], targets: list[str], paper: str) -> dict[str, Any]:
+    """Render a chunk of sheets as one document and split it; returns stats."""
+    targets_p = [Path(t) for t in targets]
+    try:
+        views = [sheet_view(s, 0) for s in sheets]
+        doc = _render_html(_sheets_html(views, "ddscreen building sheets"), "sheet.css", paper)
+        n = len(sheets)
+        starts = _sheet_starts(doc, n)
+        refit: list[int] = []
+        if len(doc.pages) == n and starts == list(range(n)):
+            good = list(range(n))
+        elif starts is not None:
+            ends = starts[1:] + [len(doc.pages)]
+            good = [k for k in range(n) if ends[k] - starts[k] == 1]
+            refit = [k for k in range(n) if ends[k] - starts[k] != 1]
+        else:  # cannot tell which page is whose: every sheet on its own
+            starts, good, refit = [], [], list(range(n))
+        if good:
+            _write_pages(doc.write_pdf(), [(starts[k], targets_p[k], sheet_title(sheets[k])) for k in good])
+        levels = [_render_one(sheets[k], targets_p[k], paper, 1) for k in refit]
+        return {"batched": len(good), "refit": len(refit), "levels": levels}
+    except BaseException as exc:  # FatalURLFetchingError is a BaseException
+        if isinstance(exc, (RenderError, KeyboardInterrupt, SystemExit)):
+            raise
+        ids = ", ".join(repr(s.get("building_id")) for s in sheets[:3])
+        raise RenderError(f"rendering sheets failed for the chunk starting with {ids}: "
+                          f"{type(exc).__name__}: {exc}") from exc
+
+
+def _worker_init() -> None:
+    _state()
+
+
+# --------------------------------------------------------------------------------------
+# public API
+
+
+def render_sheets(sheets: list[dict[str, Any]], out_dir: Path, *, paper: str = "Letter", workers: int = 2,
+                  chunk_size: int = 50, stats: dict[str, Any] | None = None) -> list[Path]:
+    """Write one single-page PDF per sheet into ``out_dir`` (``<safe name>.pdf``).
+
+    Parameters
+    ----------
+    sheets : list of sheet dicts (see docs/rendering.md for the keys).
+    out_dir : an existing or creatable folder; nothing is written outside it.
+    paper : "Letter" or "A4".
+    workers : processes to use; 1 renders in this process.
+    chunk_size : sheets per WeasyPrint document.
+    stats : optional dict filled with counts (chunks, batched, refit, levels).
+
+    Returns
+    -------
+    The written paths, in the order of ``sheets``.
+    """
+    if paper not in PAPERS:
+        raise ValueError(f"paper must be one of {sorted(PAPERS)}, got {paper!r}")
+    if not isinstance(workers, int) or workers < 1:
+        raise ValueError(f"workers must be an int >= 1, got {workers!r}")
+    if not isinstance(chunk_size, int) or chunk_size < 1:
+        raise ValueError(f"chunk_size must be an int >= 1, got {chunk_size!r}")
+    for k, s in enumerate(sheets):
+        if not isinstance(s, dict) or not isinstance(s.get("building_id"), str):
+            raise ValueError(f"sheets[{k}] must be a dict with a str 'building_id', got {type(s).__name__}")
+    out_dir = Path(out_dir)
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"cannot create the sheets folder {str(out_dir)!r}: {exc.strerror or exc}") from exc
+    root = out_dir.resolve()
+    names = assign_filenames([s["building_id"] for s in sheets])
+    targets = []
+    for s in sheets:
+        t = root / f"{names[s['building_id']]}.pdf"
+        if t.parent != root:  # pragma: no cover - safe_filename never yields a separator
+            raise RenderError(f"file name for building {s['building_id']!r} leaves the output folder")
+        targets.append(str(t))
+    if not sheets:
+        return []
+    n = len(sheets)
+    size = max(1, min(chunk_size, math.ceil(n / workers)))
+    chunks = [(sheets[i:i + size], targets[i:i + size]) for i in range(0, n, size)]
+    results = []
+    if workers == 1 or len(chunks) == 1:
+        results = [_render_chunk(c, t, paper) for c, t in chunks]
+    else:
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["screening.report"])
+        with ProcessPoolExecutor(max_workers=min(workers, len(chunks)), mp_context=ctx,
+                                 initializer=_worker_init, max_tasks_per_child=100) as pool:
+            futures = [pool.submit(_render_chunk, c, t, paper) for c, t in chunks]
+            results = [f.result() for f in futures]
+    if stats is not None:
+        stats.update(chunks=len(chunks), chunk_size=size,
+                     batched=sum(r["batched"] for r in results), refit=sum(r["refit"] for r in results),
+                     levels=[lv for r in results for lv in r["levels"]])
+    return [Path(t) for t in targets]
+
+
+def render_sheets_one_by_one(sheets: list[dict[str, Any]], out_dir: Path, *, paper: str = "Letter") -> list[Path]:
+    """One WeasyPrint document per sheet, in this process: the slow baseline the
+    benchmark compares against, and the fallback path for a single sheet."""
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    names = assign_filenames([s["building_id"] for s in sheets])
+    paths = []
+    for s in sheets:
+        t = out_dir.resolve() / f"{names[s['building_id']]}.pdf"
+        _render_one(s, t, paper, 0)
+        paths.append(t)
+    return paths
+
+
+# --------------------------------------------------------------------------------------
+# ranking report
+
+
+def ranking_view(report: dict[str, Any]) -> dict[str, Any]:
+    """Display strings for ranking.html.j2."""
+    run = report.get("run") or {}
+    cur = report.get("currency") or "$"
+    eu = report.get("energy_unit") or ""
+    totals = report.get("totals") or {}
+    co2_v, co2_u = fmt_co2e(totals.get("excess_co2e_kg"))
+
+    def joined(v):
+        if v is None:
+            return ""
+        if isinstance(v, str):
+            return _cut(v, 80)
+        return _cut(", ".join(str(x) for x in v), 80)
+
+    rows = [{
+        "rank": r.get("rank") if isinstance(r.get("rank"), int) else "",
+        "building_id": _cut(r.get("building_id"), 40),
+        "name": _cut(r.get("name"), 80),
+        "use_type": _cut(r.get("use_type"), 20),
+        "tier": _cut(r.get("tier"), 20),
+        "ratio": fmt_ratio(r.get("ratio")),
+        "heating_intensity": fmt_num(r.get("heating_intensity")),
+        "excess_energy": fmt_num(r.get("excess_energy")),
+        "excess_cost": fmt_money(r.get("excess_cost"), cur),
+        "flags": joined(r.get("flags")),
+        "data_issues": joined(r.get("data_issues")),
+    } for r in report.get("rows") or []]
+    counts = report.get("counts") or {}
+    return {
+        "run": {k: _cut(run.get(k, "n/a"), 60) for k in ("run_id", "as_of", "window_start", "window_end",
+                                                         "run_date", "version", "units")},
+        "counts": [{"label": _cut(str(k).replace("_", " "), 40), "value": fmt_num(v)} for k, v in counts.items()],
+        "tiers": [{"tier": _cut(t.get("tier"), 24), "count": fmt_num(t.get("count"))}
+                  for t in report.get("tiers") or []],
+        "total_energy": fmt_num(totals.get("excess_energy")), "energy_unit": eu,
+        "total_cost": fmt_money(totals.get("excess_cost"), cur),
+        "total_co2e": co2_v, "co2e_unit": co2_u,
+        "intensity_unit": report.get("intensity_unit", ""),
+        "chart": Markup(charts.ratio_histogram(report.get("ratios") or [])),
+        "top": rows[:10], "rows": rows,
+        "data_issues": [{"building_id": _cut(d.get("building_id"), 40), "name": _cut(d.get("name"), 80),
+                         "code": _cut(d.get("code"), 40), "explanation": _cut(d.get("explanation"), 300)}
+                        for d in report.get("data_issues") or []],
+    }
+
+
+def render_ranking(report: dict[str, Any], out_path: Path, *, paper: str = "Letter") -> Path:
+    """Write the portfolio report (summary page, ranked table, data issues) to ``out_path``."""
+    if paper not in PAPERS:
+        raise ValueError(f"paper must be one of {sorted(PAPERS)}, got {paper!r}")
+    if not isinstance(report, dict):
+        raise ValueError(f"report must be a dict, got {type(report).__name__}")
+    out_path = Path(out_path)
+    view = ranking_view(report)
+    title = f"Heating screening ranking, run {view['run']['run_id']}"
+    html = _state()["env"].get_template("ranking.html.j2").render(
+        v=view, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__)
+    try:
+        doc = _render_html(html, "ranking.css", paper)
+        pdf = doc.write_pdf()
+    except BaseException as exc:
+        if isinstance(exc, (KeyboardInterrupt, SystemExit)):
+            raise
+        raise RenderError(f"rendering {str(out_path)!r} failed: {type(exc).__name__}: {exc}") from exc
+    try:
+        out_path.parent.mkdir(parents=True, exist_ok=True)
+        _atomic_write(pdf, out_path)
+    except OSError as exc:
+        raise OutputError(f"cannot write {str(out_path)!r}: {exc.strerror or exc}") from exc
+    return out_path
