@@ -1,0 +1,767 @@
+"""Metered heating energy: comparison spans, calendarization, reading issues, and the
+variable-base degree-day regression that splits the heating fuel into heating and baseload.
+
+Layer 1: polars/numpy in, polars/numpy out; no I/O. Degree days come in as arrays computed by
+the caller (``screening.degree_days``); nothing here depends on that module.
+
+Pipeline order (the lead's wiring)::
+
+    conv, rejects = units.convert_to_kbtu(readings, buildings)
+    spans   = choose_spans(conv, window_start, window_end, building_ids=buildings["building_id"])
+    issues  = reading_issues(conv, spans)
+    periods = fit_periods(conv, spans)                      # the bills the regression may use
+    period_hdd = <engine>.period_totals(stations, periods.period_start, periods.period_end, "hdd")
+    result  = metered_heating(conv, spans, buildings, periods=periods, period_hdd=period_hdd,
+                              span_hdd=..., normal_hdd=..., base_grid_f=..., efficiency=...,
+                              engineering_base_f=...)
+
+Conventions: dates are inclusive (``period_end`` is the last day covered); energies [kBtu];
+degree days [°F·day]; temperatures [°F]. Readings of the building's heating fuel are those with
+``is_heating_fuel`` true (added by :func:`screening.units.convert_to_kbtu`); when that column is
+absent every reading given is taken as heating fuel. An optional ``meter_id`` column keeps the
+reads of different meters apart when looking for overlaps.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from datetime import date, timedelta
+
+import numpy as np
+import polars as pl
+import polars.selectors as cs
+
+from . import refdata
+
+SPAN_KINDS = ("window", "shifted", "uncovered")
+
+#: issue codes and whether each blocks a verdict on the building
+ISSUE_CODES = {
+    "duplicate_reads": True,        # the same period read twice: energy would be double counted
+    "overlapping_reads": True,      # periods of one meter overlap: energy would be double counted
+    "low_coverage": True,           # reads cover less than min_coverage of the span
+    "gap_in_reads": False,          # days of the span with no read (coverage says how much)
+    "many_estimated_reads": False,  # more than max_estimated_share of the span's reads estimated
+    "shifted_span": False,          # compared over a span other than the analysis window
+}
+
+_SPAN_SCHEMA = {"building_id": pl.String, "span_start": pl.Date, "span_end": pl.Date,
+                "span_kind": pl.String, "coverage": pl.Float64, "span_days": pl.Int64,
+                "covered_days": pl.Int64}
+
+_ISSUE_SCHEMA = {"building_id": pl.String, "code": pl.String, "detail": pl.String,
+                 "blocking": pl.Boolean}
+
+
+# --------------------------------------------------------------------------------------------
+# helpers
+# --------------------------------------------------------------------------------------------
+
+def _heat(readings: pl.DataFrame) -> pl.DataFrame:
+    if "is_heating_fuel" in readings.columns:
+        return readings.filter(pl.col("is_heating_fuel"))
+    return readings
+
+
+def _require(df: pl.DataFrame, name: str, cols: Sequence[str]) -> None:
+    missing = [c for c in cols if c not in df.columns]
+    if missing:
+        raise ValueError(f"{name}: missing column(s) {missing}")
+
+
+def _add_months(d: date, n: int) -> date:
+    """``d`` moved by ``n`` calendar months, the day clipped to the month's length."""
+    m = d.month - 1 + n
+    y, m = d.year + m // 12, m % 12 + 1
+    nxt = date(y + (m == 12), m % 12 + 1, 1)
+    return min(d.replace(year=y, month=m, day=1) + timedelta(days=d.day - 1), nxt - timedelta(days=1))
+
+
+def _month_end(d: date) -> date:
+    return date(d.year + (d.month == 12), d.month % 12 + 1, 1) - timedelta(days=1)
+
+
+def _ordinal(col: str) -> pl.Expr:
+    return pl.col(col).cast(pl.Date).cast(pl.Int64)
+
+
+def _union_coverage(r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str]) -> pl.DataFrame:
+    """Days of each span covered by at least one reading (overlaps counted once).
+
+    ``r``: ``building_id, period_start, period_end``; ``spans``: ``keys`` (including building_id),
+    ``span_start, span_end``. Returns ``keys, covered_days`` for every span row.
+    """
+    keys = list(keys)
+    j = (spans.select(*keys, "span_start", "span_end")
+         .join(r.select("building_id", "period_start", "period_end"), on="building_id", how="inner")
+         .with_columns(pl.max_horizontal(_ordinal("period_start"), _ordinal("span_start")).alias("_s"),
+                       pl.min_horizontal(_ordinal("period_end"), _ordinal("span_end")).alias("_e"))
+         .filter(pl.col("_s") <= pl.col("_e"))
+         .sort([*keys, "_s", "_e"]))
+    j = j.with_columns(pl.col("_e").cum_max().shift(1).over(keys).alias("_prev"))
+    j = j.with_columns(
+        (pl.col("_e") - pl.max_horizontal(pl.col("_s"), pl.col("_prev").fill_null(-(10 ** 9)) + 1) + 1)
+        .clip(lower_bound=0).alias("_cov"))
+    cov = j.group_by(keys).agg(pl.col("_cov").sum().cast(pl.Int64).alias("covered_days"))
+    return (spans.select(keys).join(cov, on=keys, how="left", nulls_equal=True)
+            .with_columns(pl.col("covered_days").fill_null(0)))
+
+
+# --------------------------------------------------------------------------------------------
+# spans
+# --------------------------------------------------------------------------------------------
+
+def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *,
+                 lookback_months: int = 24, min_coverage: float = 0.9,
+                 building_ids: Sequence[str] | pl.Series | None = None) -> pl.DataFrame:
+    """Pick, per building, the 12 months over which metered and expected use are compared.
+
+    Rule (foundation issue, "Analysis window"), applied to the heating-fuel readings:
+
+    1. ``window``: the analysis window ``[window_start, window_end]`` when the readings cover
+       every day of it;
+    2. ``shifted``: otherwise the latest span of 12 whole calendar months (365 or 366 days, from
+       the 1st of a month to the last day of the month 11 months later) that the readings cover on
+       every day, ending on or before ``window_end`` and starting on or after
+       ``window_end − lookback_months + 1 day``;
+    3. otherwise the candidate (window first, then latest first) with the highest coverage: kind
+       ``window`` or ``shifted`` as above if that coverage ≥ ``min_coverage``, else the analysis
+       window with kind ``uncovered``.
+
+    Parameters
+    ----------
+    readings : pl.DataFrame
+        ``building_id, period_start, period_end`` (and ``is_heating_fuel``, see module notes).
+    window_start, window_end : date
+        The analysis window, inclusive.
+    lookback_months : int
+        How far back before ``window_end`` a shifted span may start [months]; at least 12.
+    min_coverage : float
+        Lowest covered share of a span's days accepted when no span is fully covered, in (0, 1].
+    building_ids : sequence of str, optional
+        Every building to return a span for (those without readings get ``uncovered``, coverage 0);
+        default the buildings present in ``readings``.
+
+    Returns
+    -------
+    pl.DataFrame
+        ``building_id, span_start, span_end, span_kind, coverage, span_days, covered_days``, one
+        row per building, sorted by building_id. ``coverage`` = covered_days / span_days [-].
+    """
+    if window_end < window_start:
+        raise ValueError(f"window_end={window_end} is before window_start={window_start}")
+    if lookback_months < 12:
+        raise ValueError(f"lookback_months={lookback_months!r} must be at least 12")
+    if not (0.0 < min_coverage <= 1.0):
+        raise ValueError(f"min_coverage={min_coverage!r} must be in (0, 1]")
+    _require(readings, "readings", ("building_id", "period_start", "period_end"))
+    r = _heat(readings).select("building_id", "period_start", "period_end")
+    ids = (pl.Series("building_id", list(building_ids), dtype=pl.String) if building_ids is not None
+           else r["building_id"].unique())
+    ids = ids.unique().sort()
+
+    earliest = _add_months(window_end, -lookback_months) + timedelta(days=1)
+    cands = [(0, window_start, window_end)]
+    end = _month_end(window_end)
+    k = 1
+    while True:
+        if end <= window_end:
+            start = _add_months(end + timedelta(days=1), -12)
+            if start < earliest:
+                break
+            if (start, end) != (window_start, window_end):
+                cands.append((k, start, end))
+                k += 1
+        end = date(end.year, end.month, 1) - timedelta(days=1)
+    cand = pl.DataFrame(cands, schema={"_cand": pl.Int64, "span_start": pl.Date, "span_end": pl.Date},
+                        orient="row")
+    grid = pl.DataFrame({"building_id": ids}).join(cand, how="cross")
+    grid = grid.join(_union_coverage(r, grid, ["building_id", "_cand"]), on=["building_id", "_cand"])
+    grid = grid.with_columns(
+        ((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days")).with_columns(
+        (pl.col("covered_days") / pl.col("span_days")).alias("coverage"))
+
+    full = grid.filter(pl.col("covered_days") == pl.col("span_days"))
+    pick_full = full.sort(["building_id", "_cand"]).group_by("building_id", maintain_order=True).first()
+    rest = grid.join(pick_full.select("building_id"), on="building_id", how="anti")
+    pick_best = (rest.sort(["building_id", "coverage", "_cand"], descending=[False, True, False])
+                 .group_by("building_id", maintain_order=True).first())
+    picked = pl.concat([pick_full, pick_best])
+    window_row = grid.filter(pl.col("_cand") == 0)
+    ok = pl.col("coverage") >= min_coverage
+    kind = (pl.when(~ok).then(pl.lit("uncovered"))
+            .when(pl.col("_cand") == 0).then(pl.lit("window")).otherwise(pl.lit("shifted")))
+    picked = picked.with_columns(kind.alias("span_kind"))
+    unc = picked.filter(pl.col("span_kind") == "uncovered").select("building_id", "span_kind").join(
+        window_row.drop("span_kind", strict=False), on="building_id")
+    out = pl.concat([picked.filter(pl.col("span_kind") != "uncovered"),
+                     unc.select(picked.columns)], how="vertical")
+    return out.select(list(_SPAN_SCHEMA)).cast(_SPAN_SCHEMA).sort("building_id")
+
+
+# --------------------------------------------------------------------------------------------
+# calendarization
+# --------------------------------------------------------------------------------------------
+
+def _cum_lookup(weights: pl.DataFrame, q: pl.DataFrame, date_col: str, prefix: str) -> pl.DataFrame:
+    """Cumulative weight and day count up to and including ``q[date_col]`` per building."""
+    q = q.with_row_index("_qi").sort(date_col)
+    j = q.join_asof(weights, left_on=date_col, right_on="date", by="building_id", strategy="backward")
+    return j.sort("_qi").select(pl.col("_cw").fill_null(0.0).alias(f"{prefix}_w"),
+                                pl.col("_cn").fill_null(0).alias(f"{prefix}_n"))
+
+
+def calendarize(readings: pl.DataFrame, spans: pl.DataFrame, *, method: str = "days",
+                daily_weights: pl.DataFrame | None = None) -> pl.DataFrame:
+    """Prorate every reading to its building's span and sum per building and fuel.
+
+    ``part = E × overlap_days / days`` (method ``"days"``), or
+    ``part = E × Σ_overlap w_d / Σ_reading w_d`` (method ``"degree_days"``, w_d the day's heating
+    degree days), the usual ways of assigning billing-period use to calendar periods
+    (e.g. ASHRAE Guideline 14 annex on utility-bill data; degree-day weighting suits heating
+    fuels because a period's use follows its degree days). A reading whose weights are missing
+    for any of its days, or sum to zero (a summer bill), falls back to days.
+
+    Parameters
+    ----------
+    readings : pl.DataFrame
+        Converted readings: ``building_id, fuel, period_start, period_end, energy_kbtu`` [kBtu],
+        ``days`` and optionally ``is_heating_fuel``.
+    spans : pl.DataFrame
+        ``building_id, span_start, span_end`` (see :func:`choose_spans`).
+    method : {"days", "degree_days"}
+    daily_weights : pl.DataFrame, optional
+        Required for ``"degree_days"``: ``building_id, date, weight`` with the day's heating degree
+        days at the building's base [°F·day] (any non-negative daily weight works), one row per
+        building and day, covering the days of the readings.
+
+    Returns
+    -------
+    pl.DataFrame
+        One row per building and fuel with a reading overlapping the span: ``building_id, fuel,
+        is_heating_fuel, span_start, span_end, energy_kbtu`` [kBtu in the span], ``n_reads``,
+        ``covered_days, span_days, coverage`` [-] (days covered by that fuel's reads, overlaps
+        counted once) and ``dd_prorated_share`` [-] (energy share prorated by degree days; 0 for
+        ``"days"``). Sorted by building_id, fuel. For full coverage the parts of every reading that
+        lies inside the span sum to its energy (energy is conserved).
+    """
+    if method not in ("days", "degree_days"):
+        raise ValueError(f"method={method!r} must be 'days' or 'degree_days'")
+    _require(readings, "readings", ("building_id", "fuel", "period_start", "period_end", "energy_kbtu"))
+    _require(spans, "spans", ("building_id", "span_start", "span_end"))
+    r = readings
+    if "days" not in r.columns:
+        r = r.with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
+    if "is_heating_fuel" not in r.columns:
+        r = r.with_columns(pl.lit(True).alias("is_heating_fuel"))
+    j = (r.select("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu",
+                  "days")
+         .join(spans.select("building_id", "span_start", "span_end"), on="building_id", how="inner")
+         .with_columns(pl.max_horizontal("period_start", "span_start").alias("_os"),
+                       pl.min_horizontal("period_end", "span_end").alias("_oe"))
+         .filter(pl.col("_os") <= pl.col("_oe"))
+         .with_columns(((_ordinal("_oe") - _ordinal("_os")) + 1).alias("_od")))
+    part_days = pl.col("energy_kbtu") * pl.col("_od") / pl.col("days")
+    if method == "days":
+        j = j.with_columns(part_days.alias("_part"), pl.lit(False).alias("_by_dd"))
+    else:
+        if daily_weights is None:
+            raise ValueError("method='degree_days' needs daily_weights (building_id, date, weight)")
+        _require(daily_weights, "daily_weights", ("building_id", "date", "weight"))
+        if daily_weights.filter(pl.col("weight") < 0).height:
+            raise ValueError("daily_weights: weight must be non-negative")
+        w = (daily_weights.select("building_id", pl.col("date").cast(pl.Date), pl.col("weight").cast(pl.Float64))
+             .unique(["building_id", "date"], keep="first").sort(["building_id", "date"])
+             .with_columns(pl.col("weight").cum_sum().over("building_id").alias("_cw"),
+                           pl.int_range(1, pl.len() + 1).over("building_id").alias("_cn"))
+             .drop("weight").sort("date"))
+        q = j.select("building_id",
+                     pl.col("period_end").alias("_d1"), (pl.col("period_start") - pl.duration(days=1)).alias("_d2"),
+                     pl.col("_oe").alias("_d3"), (pl.col("_os") - pl.duration(days=1)).alias("_d4"))
+        parts = [_cum_lookup(w, q.select("building_id", c), c, c) for c in ("_d1", "_d2", "_d3", "_d4")]
+        j = pl.concat([j, *parts], how="horizontal").with_columns(
+            (pl.col("_d1_w") - pl.col("_d2_w")).alias("_wr"), (pl.col("_d1_n") - pl.col("_d2_n")).alias("_nr"),
+            (pl.col("_d3_w") - pl.col("_d4_w")).alias("_wo"))
+        use_dd = (pl.col("_nr") == pl.col("days")) & (pl.col("_wr") > 0)
+        j = j.with_columns(
+            pl.when(use_dd).then(pl.col("energy_kbtu") * pl.col("_wo") / pl.col("_wr"))
+            .otherwise(part_days).alias("_part"), use_dd.alias("_by_dd"))
+    agg = (j.group_by("building_id", "fuel").agg(
+        pl.col("is_heating_fuel").first(), pl.col("span_start").first(), pl.col("span_end").first(),
+        pl.col("_part").sum().alias("energy_kbtu"), pl.len().cast(pl.Int64).alias("n_reads"),
+        (pl.col("_part").filter(pl.col("_by_dd")).sum() / pl.col("_part").sum()).fill_nan(0.0)
+        .alias("dd_prorated_share")))
+    keyed = agg.select("building_id", "fuel", "span_start", "span_end")
+    cov = _union_coverage(
+        r.select("building_id", "fuel", "period_start", "period_end").rename({"building_id": "_b"})
+        .with_columns(pl.concat_str("_b", pl.lit("\x1f"), "fuel").alias("building_id")),
+        keyed.with_columns(pl.concat_str("building_id", pl.lit("\x1f"), "fuel").alias("_bf"))
+        .select(pl.col("_bf").alias("building_id"), "span_start", "span_end"), ["building_id"])
+    cov = cov.with_columns(pl.col("building_id").str.split_exact("\x1f", 1)
+                           .struct.rename_fields(["building_id", "fuel"])).unnest("building_id")
+    out = agg.join(cov, on=["building_id", "fuel"], how="left").with_columns(
+        ((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days")).with_columns(
+        (pl.col("covered_days") / pl.col("span_days")).alias("coverage"))
+    return out.select("building_id", "fuel", "is_heating_fuel", "span_start", "span_end", "energy_kbtu",
+                      "n_reads", "covered_days", "span_days", "coverage", "dd_prorated_share").sort(
+        ["building_id", "fuel"])
+
+
+# --------------------------------------------------------------------------------------------
+# reading issues
+# --------------------------------------------------------------------------------------------
+
+def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months: int = 24,
+                   min_coverage: float = 0.9, max_estimated_share: float = 1 / 3) -> pl.DataFrame:
+    """Data issues of each building's readings, each naming the dates concerned.
+
+    Scopes: duplicates and overlaps are looked for among all fuels' reads that end within the
+    ``lookback_months`` before the span end (the bills the regression may use); gaps, estimated
+    reads and coverage among the heating-fuel reads overlapping the span. Codes and whether they
+    block a verdict are in :data:`ISSUE_CODES`. ``max_estimated_share`` (default one third) is our
+    own threshold.
+
+    Returns
+    -------
+    pl.DataFrame
+        ``building_id, code, detail, blocking``, one row per building and code, the dates of
+        every occurrence joined with "; " in ``detail``; sorted by building_id, code.
+    """
+    _require(readings, "readings", ("building_id", "fuel", "period_start", "period_end"))
+    _require(spans, "spans", ("building_id", "span_start", "span_end"))
+    sp = spans.select("building_id", "span_start", "span_end",
+                      *[c for c in ("span_kind", "coverage") if c in spans.columns])
+    sp = sp.with_columns(pl.col("span_end").map_elements(
+        lambda d: _add_months(d, -lookback_months) + timedelta(days=1), return_dtype=pl.Date)
+        .alias("_lb")) if sp.height else sp.with_columns(pl.lit(None, pl.Date).alias("_lb"))
+    line = "_line" if "_line" in readings.columns else ("line" if "line" in readings.columns else None)
+    r = readings.with_columns(
+        (pl.col(line).cast(pl.Int64) if line else pl.lit(None, pl.Int64)).alias("_ln"),
+        (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
+        .alias("_meter"),
+        (pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in readings.columns
+         else pl.lit(False)).alias("_est"),
+        (pl.col("is_heating_fuel") if "is_heating_fuel" in readings.columns else pl.lit(True)).alias("_heat"))
+    r = r.join(sp, on="building_id", how="inner")
+    rng = pl.format("{}..{}", "period_start", "period_end")
+    parts: list[pl.DataFrame] = []
+
+    hist = r.filter((pl.col("period_end") >= pl.col("_lb")) & (pl.col("period_start") <= pl.col("span_end")))
+    keys = ["building_id", "fuel", "_meter"]
+    dup = (hist.group_by([*keys, "period_start", "period_end"])
+           .agg(pl.len().alias("_n"), pl.col("_ln").sort().cast(pl.String).str.join(", ").alias("_lines"))
+           .filter(pl.col("_n") > 1)
+           .with_columns(pl.format("{} {} read {} times (lines {})", "fuel", rng, "_n", "_lines").alias("detail"))
+           .select("building_id", pl.lit("duplicate_reads").alias("code"), "detail", "period_start"))
+    parts.append(dup)
+    u = (hist.unique([*keys, "period_start", "period_end"], keep="first")
+         .sort([*keys, "period_start", "period_end"])
+         .with_columns(pl.col("period_end").cum_max().shift(1).over(keys).alias("_prev_end")))
+    ov = (u.filter(pl.col("_prev_end") >= pl.col("period_start"))
+          .with_columns(pl.format("{} {} overlaps a read ending {}", "fuel", rng, "_prev_end").alias("detail"))
+          .select("building_id", pl.lit("overlapping_reads").alias("code"), "detail", "period_start"))
+    parts.append(ov)
+
+    h = r.filter(pl.col("_heat") & (pl.col("period_end") >= pl.col("span_start"))
+                 & (pl.col("period_start") <= pl.col("span_end")))
+    est = (h.group_by("building_id").agg(
+        pl.len().alias("_n"), pl.col("_est").sum().alias("_ne"),
+        pl.format("{}..{}", "period_start", "period_end").filter(pl.col("_est")).sort().str.join(", ").alias("_d"))
+        .filter(pl.col("_ne") / pl.col("_n") > max_estimated_share)
+        .with_columns(pl.format("{} of {} reads in the span estimated: {}", "_ne", "_n", "_d").alias("detail"))
+        .select("building_id", pl.lit("many_estimated_reads").alias("code"), "detail",
+                pl.lit(None, pl.Date).alias("period_start")))
+    parts.append(est)
+
+    # gaps: stretches of the span with no heating-fuel read, as [gap_start, gap_end]
+    c = (h.with_columns(pl.max_horizontal("period_start", "span_start").alias("_s"),
+                        pl.min_horizontal("period_end", "span_end").alias("_e"))
+         .sort(["building_id", "_s", "_e"])
+         .with_columns(pl.col("_e").cum_max().shift(1).over("building_id").alias("_pe")))
+    inner = (c.filter(pl.col("_pe").is_not_null() & (pl.col("_s") > pl.col("_pe") + pl.duration(days=1)))
+             .select("building_id", (pl.col("_pe") + pl.duration(days=1)).alias("_gs"),
+                     (pl.col("_s") - pl.duration(days=1)).alias("_ge")))
+    first = (c.group_by("building_id").agg(pl.col("_s").min(), pl.col("_e").max(), pl.col("span_start").first(),
+                                           pl.col("span_end").first()))
+    lead = (first.filter(pl.col("_s") > pl.col("span_start"))
+            .select("building_id", pl.col("span_start").alias("_gs"), (pl.col("_s") - pl.duration(days=1)).alias("_ge")))
+    tail = (first.filter(pl.col("_e") < pl.col("span_end"))
+            .select("building_id", (pl.col("_e") + pl.duration(days=1)).alias("_gs"), pl.col("span_end").alias("_ge")))
+    gaps = (pl.concat([inner, lead, tail])
+            .with_columns(pl.format("no read {}..{} ({} days)", "_gs", "_ge",
+                                    ((_ordinal("_ge") - _ordinal("_gs")) + 1)).alias("detail"))
+            .select("building_id", pl.lit("gap_in_reads").alias("code"), "detail",
+                    pl.col("_gs").alias("period_start")))
+    parts.append(gaps)
+
+    if "coverage" in sp.columns:
+        low = (sp.filter(pl.col("coverage") < min_coverage)
+               .with_columns(pl.format("heating-fuel reads cover {} % of the span {}..{}",
+                                       (pl.col("coverage") * 100).round(1), "span_start", "span_end").alias("detail"))
+               .select("building_id", pl.lit("low_coverage").alias("code"), "detail",
+                       pl.lit(None, pl.Date).alias("period_start")))
+        parts.append(low)
+    if "span_kind" in sp.columns:
+        sh = (sp.filter(pl.col("span_kind") == "shifted")
+              .with_columns(pl.format("compared over {}..{}, not the analysis window", "span_start", "span_end")
+                            .alias("detail"))
+              .select("building_id", pl.lit("shifted_span").alias("code"), "detail",
+                      pl.lit(None, pl.Date).alias("period_start")))
+        parts.append(sh)
+
+    allp = pl.concat([p.cast({"period_start": pl.Date}) for p in parts])
+    out = (allp.sort(["building_id", "code", "period_start", "detail"], nulls_last=True)
+           .group_by(["building_id", "code"], maintain_order=True).agg(pl.col("detail").str.join("; "))
+           .with_columns(pl.col("code").replace_strict(ISSUE_CODES, return_dtype=pl.Boolean).alias("blocking")))
+    return out.select(list(_ISSUE_SCHEMA)).cast(_ISSUE_SCHEMA).sort(["building_id", "code"])
+
+
+# --------------------------------------------------------------------------------------------
+# regression inputs
+# --------------------------------------------------------------------------------------------
+
+def fit_periods(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months: int = 24,
+                max_period_days: int = 62) -> pl.DataFrame:
+    """The heating-fuel billing periods the regression may use, one row per building and period.
+
+    Reads of the same period (several meters) are summed. A period is kept when it lies within
+    the ``lookback_months`` ending on the building's span end; ``usable`` marks those of at most
+    ``max_period_days`` days (longer ones, e.g. annual or tank-fill reads, are kept for the record
+    but not fitted).
+
+    Returns
+    -------
+    pl.DataFrame
+        ``building_id, period_start, period_end, days, energy_kbtu, n_reads, any_estimated, usable``,
+        sorted by building_id, period_start, period_end. The caller computes each row's heating
+        degree days at every base of the grid (``period_hdd``, shape (rows, n_bases), [°F·day]).
+    """
+    _require(readings, "readings", ("building_id", "period_start", "period_end", "energy_kbtu"))
+    sp = spans.select("building_id", "span_end").with_columns(pl.col("span_end").map_elements(
+        lambda d: _add_months(d, -lookback_months) + timedelta(days=1), return_dtype=pl.Date).alias("_lb"))
+    r = _heat(readings)
+    est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in r.columns else pl.lit(False)
+    p = (r.join(sp, on="building_id", how="inner")
+         .filter((pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end")))
+         .with_columns(est.alias("_est"))
+         .group_by("building_id", "period_start", "period_end")
+         .agg(pl.col("energy_kbtu").sum(), pl.len().cast(pl.Int64).alias("n_reads"),
+              pl.col("_est").any().alias("any_estimated"))
+         .with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days")))
+    p = p.with_columns((pl.col("days") <= max_period_days).alias("usable"))
+    return p.select("building_id", "period_start", "period_end", "days", "energy_kbtu", "n_reads",
+                    "any_estimated", "usable").sort(["building_id", "period_start", "period_end"])
+
+
+def pad_periods(periods: pl.DataFrame, period_hdd: np.ndarray,
+                building_ids: Sequence[str] | pl.Series) -> dict[str, np.ndarray]:
+    """Pad flat periods into the (n_buildings, max_periods[, n_bases]) arrays of the fit.
+
+    Parameters
+    ----------
+    periods : pl.DataFrame
+        From :func:`fit_periods` (rows sorted by building_id, period_start).
+    period_hdd : np.ndarray, shape (len(periods), n_bases)
+        Heating degree days of each period at each base of the grid [°F·day] (totals, not per day).
+    building_ids : sequence of str
+        Row order of the output (e.g. ``spans["building_id"]``); buildings without periods get
+        all-invalid rows.
+
+    Returns
+    -------
+    dict
+        ``use_per_day`` [kBtu/day], ``days`` [day], ``hdd_per_day`` [°F·day/day], ``valid`` (bool),
+        with ``valid`` = period present and ``usable``.
+    """
+    hdd = np.asarray(period_hdd, dtype=float)
+    if hdd.ndim != 2 or hdd.shape[0] != periods.height:
+        raise ValueError(f"period_hdd has shape {hdd.shape}; expected ({periods.height}, n_bases)")
+    ids = pl.DataFrame({"building_id": pl.Series(list(building_ids), dtype=pl.String)}).with_row_index("_bi")
+    p = periods.with_row_index("_row").join(ids, on="building_id", how="inner").sort("_row")
+    p = p.with_columns(pl.int_range(pl.len()).over("_bi").alias("_pi"))
+    n_b, n_k = ids.height, hdd.shape[1]
+    n_p = max(int(p["_pi"].max()) + 1 if p.height else 0, 1)
+    bi, pi, row = p["_bi"].to_numpy(), p["_pi"].to_numpy(), p["_row"].to_numpy()
+    days = np.zeros((n_b, n_p))
+    use = np.zeros((n_b, n_p))
+    x = np.zeros((n_b, n_p, n_k))
+    valid = np.zeros((n_b, n_p), dtype=bool)
+    d = p["days"].to_numpy().astype(float)
+    days[bi, pi] = d
+    use[bi, pi] = p["energy_kbtu"].to_numpy() / d
+    x[bi, pi, :] = hdd[row] / d[:, None]
+    valid[bi, pi] = p["usable"].to_numpy()
+    return {"use_per_day": use, "days": days, "hdd_per_day": x, "valid": valid}
+
+
+# --------------------------------------------------------------------------------------------
+# the regression
+# --------------------------------------------------------------------------------------------
+
+def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np.ndarray,
+                      base_grid_f: np.ndarray, valid: np.ndarray, *, min_periods: int = 9,
+                      max_period_days: int = 62, chunk: int = 2048) -> dict[str, np.ndarray]:
+    """Variable-base degree-day regression of bills (Fels 1986, PRISM), all buildings at once.
+
+    Model per building b and period i (n_i days, weight n_i)::
+
+        F_i = α + β · H_i(τ),    F_i = use_i / n_i [kBtu/day],  H_i(τ) = HDD_i(τ) / n_i [°F]
+
+    For every base τ of the grid, α and β are the closed-form weighted least-squares estimates
+    (weights n_i): β = Σw(H−H̄)(F−F̄) / Σw(H−H̄)², α = F̄ − β·H̄ (weighted means). τ is the base
+    with the least weighted SSE among those with β > 0 (Fels 1986, Energy and Buildings 9:5-18;
+    degree-days.md §6). If no base gives β > 0 the model is baseload only: α = weighted mean of F,
+    β = 0. A τ on the first or last grid value is marked (``base_at_edge``).
+
+    Statistics at the chosen base:
+
+    - R² = 1 − Σw e² / Σw (F − F̄)² (weighted, as statsmodels WLS ``rsquared``); 0 for baseload only;
+    - SE(α), SE(β) from s² (X'WX)⁻¹, s² = Σw e² / (n − p) (as statsmodels WLS ``bse``);
+    - CV(RMSE) = 100 · sqrt(Σ e² / (n − p)) / ȳ and NMBE = 100 · Σ e / ((n − p) · ȳ) [%] with
+      e = F − F̂ per period (per-day use, unweighted, ȳ its plain mean), the ASHRAE Guideline 14
+      definitions, p = 2 for the heating model and p = 1 for baseload only.
+
+    Parameters
+    ----------
+    use_per_day : (n_b, p) [kBtu/day]
+    days : (n_b, p) [day]
+    hdd_per_day : (n_b, p, n_bases) [°F·day/day]
+    base_grid_f : (n_bases,) [°F], increasing
+    valid : (n_b, p) bool; further restricted to 0 < days ≤ ``max_period_days``.
+    min_periods : buildings with fewer valid periods are ``not_fitted`` (Fels: at least 9 bills of
+        ≤ 62 days in the last 24 months, per the spec).
+    chunk : buildings per block (memory bound; blocks, not buildings, are looped over).
+
+    Returns
+    -------
+    dict of np.ndarray, each (n_b,)
+        ``alpha`` [kBtu/day], ``beta`` [kBtu/(°F·day)], ``base_f`` [°F] (NaN unless heating model),
+        ``base_index`` (−1 unless heating model), ``r2``, ``cv_rmse`` [%], ``nmbe`` [%],
+        ``n`` (periods used), ``se_alpha``, ``se_beta``, ``sse_w`` (weighted SSE),
+        ``model`` ("heating" | "baseload_only" | "not_fitted"), ``base_at_edge`` (bool).
+        NaN where not defined.
+    """
+    y = np.asarray(use_per_day, dtype=float)
+    n_days = np.asarray(days, dtype=float)
+    x = np.asarray(hdd_per_day, dtype=float)
+    grid = np.asarray(base_grid_f, dtype=float)
+    v = np.asarray(valid, dtype=bool)
+    if y.ndim != 2 or n_days.shape != y.shape or v.shape != y.shape:
+        raise ValueError(f"use_per_day {y.shape}, days {n_days.shape} and valid {v.shape} must share "
+                         "one (n_buildings, n_periods) shape")
+    if x.shape != y.shape + grid.shape or grid.ndim != 1:
+        raise ValueError(f"hdd_per_day has shape {x.shape}; expected {y.shape + grid.shape} "
+                         "(n_buildings, n_periods, len(base_grid_f))")
+    if grid.size > 1 and np.any(np.diff(grid) <= 0):
+        raise ValueError("base_grid_f must be strictly increasing")
+    v = v & (n_days > 0) & (n_days <= max_period_days) & np.isfinite(y) & np.all(np.isfinite(x), axis=2)
+    w = np.where(v, n_days, 0.0)
+    y0 = np.where(v, y, 0.0)
+    n = v.sum(axis=1)
+    s0 = w.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ybar = (w * y0).sum(axis=1) / s0
+    yc = np.where(v, y0 - ybar[:, None], 0.0)
+    syy = (w * yc * yc).sum(axis=1)
+
+    n_b, n_k = y.shape[0], grid.size
+    best = np.full(n_b, -1, dtype=np.int64)
+    for a in range(0, n_b, chunk):
+        sl = slice(a, a + chunk)
+        xs = np.where(v[sl, :, None], x[sl], 0.0)
+        wx = w[sl, :, None] * xs
+        sx = wx.sum(axis=1)                                   # (c, k)
+        sxx = np.einsum("cpk,cpk->ck", wx, xs)
+        sxy = np.einsum("cpk,cp->ck", wx, yc[sl])           # y centred: Σw(x)(y−ȳ) = Σw(x−x̄)(y−ȳ)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sxx_c = sxx - sx * sx / s0[sl, None]
+            ok = sxx_c > 1e-12 * np.maximum(sxx, 1e-300)
+            beta_k = np.where(ok, sxy / np.where(ok, sxx_c, 1.0), 0.0)
+            sse_k = np.where(ok & (beta_k > 0), syy[sl, None] - beta_k * sxy, np.inf)
+        has = np.isfinite(sse_k).any(axis=1)
+        best[sl] = np.where(has, np.argmin(sse_k, axis=1), -1)
+
+    fitted = n >= min_periods
+    heating = fitted & (best >= 0)
+    base_only = fitted & ~heating
+    bidx = np.where(heating, best, 0)
+    xb = np.take_along_axis(x, bidx[:, None, None], axis=2)[:, :, 0]
+    xb = np.where(v & heating[:, None], xb, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        xbar = (w * xb).sum(axis=1) / s0
+        xcb = np.where(v, xb - xbar[:, None], 0.0)
+        sxx_c = (w * xcb * xcb).sum(axis=1)
+        beta = np.where(heating, (w * xcb * yc).sum(axis=1) / np.where(heating, sxx_c, 1.0), 0.0)
+        alpha = ybar - beta * xbar
+        yhat = alpha[:, None] + beta[:, None] * xb
+        e = np.where(v, y0 - yhat, 0.0)
+        sse_w = (w * e * e).sum(axis=1)
+        k_par = np.where(heating, 2, 1)
+        dof = n - k_par
+        s2 = sse_w / dof
+        r2 = np.where(heating, 1.0 - sse_w / syy, 0.0)
+        se_beta = np.where(heating, np.sqrt(s2 / sxx_c), np.nan)
+        se_alpha = np.where(heating, np.sqrt(s2 * (1.0 / s0 + xbar ** 2 / sxx_c)), np.sqrt(s2 / s0))
+        ymean = np.where(v, y0, 0.0).sum(axis=1) / n
+        cv = 100.0 * np.sqrt((e * e).sum(axis=1) / dof) / ymean
+        nmbe = 100.0 * e.sum(axis=1) / (dof * ymean)
+    nan = np.nan
+    model = np.where(heating, "heating", np.where(base_only, "baseload_only", "not_fitted"))
+    return {
+        "alpha": np.where(fitted, alpha, nan),
+        "beta": np.where(fitted, beta, nan),
+        "base_f": np.where(heating, grid[bidx], nan),
+        "base_index": np.where(heating, best, -1),
+        "r2": np.where(fitted, r2, nan),
+        "cv_rmse": np.where(fitted, cv, nan),
+        "nmbe": np.where(fitted, nmbe, nan),
+        "n": n.astype(np.int64),
+        "se_alpha": np.where(fitted, se_alpha, nan),
+        "se_beta": np.where(heating, se_beta, nan),
+        "sse_w": np.where(fitted, sse_w, nan),
+        "model": model,
+        "base_at_edge": heating & ((best == 0) | (best == n_k - 1)),
+    }
+
+
+# --------------------------------------------------------------------------------------------
+# combination
+# --------------------------------------------------------------------------------------------
+
+def _at_base(dd: np.ndarray, grid: np.ndarray, base: np.ndarray) -> np.ndarray:
+    """Linear interpolation of each row of ``dd`` (n, n_bases) at its own base [°F]."""
+    j = np.clip(np.searchsorted(grid, base, side="right") - 1, 0, grid.size - 2) if grid.size > 1 \
+        else np.zeros(base.shape, dtype=int)
+    if grid.size == 1:
+        return np.where(base == grid[0], dd[:, 0], np.nan)
+    g0, g1 = grid[j], grid[j + 1]
+    t = (base - g0) / (g1 - g0)
+    rows = np.arange(dd.shape[0])
+    out = dd[rows, j] * (1 - t) + dd[rows, j + 1] * t
+    return np.where((base >= grid[0]) & (base <= grid[-1]), out, np.nan)
+
+
+def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.DataFrame, *,
+                    periods: pl.DataFrame, period_hdd: np.ndarray, span_hdd: np.ndarray,
+                    normal_hdd: np.ndarray, base_grid_f: np.ndarray, efficiency: np.ndarray,
+                    engineering_base_f: np.ndarray, baseload_shares: pl.DataFrame | None = None,
+                    method: str = "days", daily_weights: pl.DataFrame | None = None,
+                    min_periods: int = 9, max_period_days: int = 62) -> pl.DataFrame:
+    """Per building: the heating part of the heating fuel over its span, normalized to a normal year.
+
+    With a regression fit (:func:`fit_variable_base`, ``fit_method`` "regression")::
+
+        baseload = α · covered_days,  actual_heating = max(total_fuel − baseload, 0)
+        normal_heating = β · HDD_normal(τ)               (Fels 1986: NAC = 365·α + β·H₀(τ))
+
+    Otherwise (``fit_method`` "default share", lower confidence) with the documented share s of the
+    use type (``baseload_shares.csv``, CBECS 2003 water-heating shares)::
+
+        baseload = s · total_fuel,  actual_heating = (1 − s) · total_fuel
+        β = actual_heating / HDD_span(T_eng),  normal_heating = β · HDD_normal(T_eng)
+
+    Effective UA from the bills (degree-day method Q = 24 · UA · HDD / η inverted)::
+
+        effective_ua_btu_h_f = β [kBtu/(°F·day)] × 1000 [Btu/kBtu] × η / 24 [h/day]  → [Btu/(h·°F)]
+
+    Parameters
+    ----------
+    readings : converted readings (:func:`screening.units.convert_to_kbtu`).
+    spans : from :func:`choose_spans`; **row i of every array argument belongs to row i of spans**.
+    buildings : ``building_id, use_type, heating_fuel``.
+    periods, period_hdd : from :func:`fit_periods` and the degree-day engine, see :func:`pad_periods`.
+    span_hdd : (n_b, n_bases) HDD of each building's span at each base [°F·day].
+    normal_hdd : (n_b, n_bases) normal-year HDD at each base [°F·day].
+    base_grid_f : (n_bases,) [°F].
+    efficiency : (n_b,) seasonal efficiency η [-] (COP for heat pumps).
+    engineering_base_f : (n_b,) balance point used where there is no heating fit [°F].
+    baseload_shares : default ``refdata.load("baseload_shares")``.
+    method, daily_weights : passed to :func:`calendarize`.
+
+    Returns
+    -------
+    pl.DataFrame
+        ``building_id, span_start, span_end, span_kind, coverage, total_fuel_kbtu, baseload_kbtu,
+        actual_heating_kbtu, normal_heating_kbtu, heating_slope_kbtu_per_dd, fitted_base_f,
+        base_used_f, baseload_kbtu_per_day, r2, cv_rmse, nmbe, n_periods, se_alpha, se_beta,
+        fit_method, fit_model, base_at_edge, baseload_share, confidence, effective_ua_btu_h_f``,
+        in the row order of ``spans``.
+    """
+    _require(buildings, "buildings", ("building_id", "use_type", "heating_fuel"))
+    grid = np.asarray(base_grid_f, dtype=float)
+    sp = spans.select("building_id", "span_start", "span_end", "span_kind", "coverage", "covered_days")
+    n_b = sp.height
+    for name, arr, shape in (("span_hdd", span_hdd, (n_b, grid.size)), ("normal_hdd", normal_hdd, (n_b, grid.size)),
+                             ("efficiency", efficiency, (n_b,)), ("engineering_base_f", engineering_base_f, (n_b,))):
+        if np.shape(arr) != shape:
+            raise ValueError(f"{name} has shape {np.shape(arr)}; expected {shape} (rows in spans order)")
+    span_hdd = np.asarray(span_hdd, float)
+    normal_hdd = np.asarray(normal_hdd, float)
+    eta = np.asarray(efficiency, float)
+    t_eng = np.asarray(engineering_base_f, float)
+
+    cal = calendarize(readings, spans, method=method, daily_weights=daily_weights)
+    cal = cal.filter(pl.col("is_heating_fuel")).group_by("building_id").agg(
+        pl.col("energy_kbtu").sum().alias("total_fuel_kbtu"))
+    shares = baseload_shares if baseload_shares is not None else refdata.load("baseload_shares")
+    b = buildings.select("building_id", "use_type", "heating_fuel").with_columns(
+        pl.when(pl.col("heating_fuel") == "electricity").then(pl.lit("electricity"))
+        .otherwise(pl.lit("combustion")).alias("fuel_class"))
+    b = b.join(shares.select("use_type", "fuel_class", pl.col("nonheating_share").cast(pl.Float64)),
+               on=["use_type", "fuel_class"], how="left")
+    frame = sp.join(cal, on="building_id", how="left", maintain_order="left").join(
+        b, on="building_id", how="left", maintain_order="left")
+    if frame.filter(pl.col("use_type").is_null()).height:
+        bad = frame.filter(pl.col("use_type").is_null())["building_id"][0]
+        raise ValueError(f"buildings: no row (or no use_type) for building_id={bad!r} of spans")
+    if frame.filter(pl.col("nonheating_share").is_null()).height:
+        bad = frame.filter(pl.col("nonheating_share").is_null()).row(0, named=True)
+        raise ValueError(f"baseload_shares: no share for use_type={bad['use_type']!r} "
+                         f"fuel_class={bad['fuel_class']!r}")
+
+    arr = pad_periods(periods, period_hdd, sp["building_id"])
+    fit = fit_variable_base(arr["use_per_day"], arr["days"], arr["hdd_per_day"], grid, arr["valid"],
+                            min_periods=min_periods, max_period_days=max_period_days)
+    total = frame["total_fuel_kbtu"].fill_null(0.0).to_numpy()
+    covered = frame["covered_days"].to_numpy().astype(float)
+    share = frame["nonheating_share"].to_numpy()
+    reg = fit["model"] != "not_fitted"
+    heat = fit["model"] == "heating"
+    kidx = np.where(heat, fit["base_index"], 0)
+    rows = np.arange(n_b)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        base_reg = np.where(reg, fit["alpha"] * covered, share * total)
+        baseload = np.where(reg, base_reg, share * total)
+        actual = np.where(reg, np.maximum(total - baseload, 0.0), (1 - share) * total)
+        hdd_eng_span = _at_base(span_hdd, grid, t_eng)
+        hdd_eng_norm = _at_base(normal_hdd, grid, t_eng)
+        slope_default = np.where(hdd_eng_span > 0, actual / hdd_eng_span, np.nan)
+        slope = np.where(reg, fit["beta"], slope_default)
+        normal = np.where(heat, fit["beta"] * normal_hdd[rows, kidx],
+                          np.where(reg, 0.0, slope_default * hdd_eng_norm))
+        base_used = np.where(heat, fit["base_f"], np.where(reg, np.nan, t_eng))
+        ua = slope * 1000.0 * eta / 24.0
+    fit_method = np.where(reg, "regression", "default share")
+    out = frame.select("building_id", "span_start", "span_end", "span_kind", "coverage").with_columns(
+        pl.Series("total_fuel_kbtu", total),
+        pl.Series("baseload_kbtu", baseload),
+        pl.Series("actual_heating_kbtu", actual),
+        pl.Series("normal_heating_kbtu", normal),
+        pl.Series("heating_slope_kbtu_per_dd", slope),
+        pl.Series("fitted_base_f", fit["base_f"]),
+        pl.Series("base_used_f", base_used),
+        pl.Series("baseload_kbtu_per_day", fit["alpha"]),
+        pl.Series("r2", fit["r2"]),
+        pl.Series("cv_rmse", fit["cv_rmse"]),
+        pl.Series("nmbe", fit["nmbe"]),
+        pl.Series("n_periods", fit["n"]),
+        pl.Series("se_alpha", fit["se_alpha"]),
+        pl.Series("se_beta", fit["se_beta"]),
+        pl.Series("fit_method", fit_method),
+        pl.Series("fit_model", fit["model"]),
+        pl.Series("base_at_edge", fit["base_at_edge"]),
+        pl.Series("baseload_share", np.where(reg, np.nan, share)),
+        pl.Series("confidence", np.where(reg, "regression", "low")),
+        pl.Series("effective_ua_btu_h_f", ua),
+    )
+    return out.with_columns(cs.float().fill_nan(None))
