@@ -1,0 +1,335 @@
+"""Read weather files into the canonical frames (layer 3: reads files, no degree days).
+
+Three readers, all strict and explicit:
+
+* :func:`read_daily_weather` — the daily CSV of the input contract
+  (``station_id, date`` and ``t_min`` with ``t_max``, or ``t_mean``; °F with
+  ``units="IP"``, °C with ``units="SI"``);
+* :func:`read_hourly_weather` — readings ``station_id, timestamp, temperature``;
+* :func:`read_mapped_daily` — any daily-summary layout (as national weather services
+  publish them) through an explicit mapping *source column → our column, unit*; nothing
+  is guessed from names.
+
+Every reader returns ``(frame, rejects)``, a 2-tuple with an extra ``.notices``
+attribute (a list of one-line messages, e.g. identical duplicate rows that were
+dropped or ignored columns). ``rejects`` has ``file, line, column, value, reason``
+for every row not used, so nothing disappears silently. Structural problems
+(unreadable file, missing column) raise :class:`screening.errors.InputError`.
+
+Rejected rows: a date that is not ``YYYY-MM-DD`` (or the mapping's format); a
+non-numeric or non-finite temperature; a temperature beyond ±140 °F (±60 °C in °C
+files); ``t_min > t_max``; ``t_mean`` outside ``[t_min, t_max]``; a row without a
+usable temperature (neither both ``t_min`` and ``t_max`` nor ``t_mean``); every row of a
+station and date that appears more than once with different values. Identical
+duplicates are kept once and reported in ``.notices``.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import polars as pl
+
+from .csvread import LINE_COL, read_table
+from .degree_days import F_PER_C
+from .errors import InputError
+
+__all__ = ["read_daily_weather", "read_hourly_weather", "read_mapped_daily", "WeatherRead",
+           "REJECT_SCHEMA", "TEMP_UNITS"]
+
+REJECT_SCHEMA = {"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
+                 "reason": pl.String}
+#: Physical plausibility limits of a surface air temperature, per file unit (issue 3:
+#: "beyond ±140 °F / ±60 °C"; the recorded extremes are about 134 °F and −128.6 °F, from memory).
+_LIMITS = {"F": 140.0, "C": 60.0}
+#: Temperature units a mapping may name: unit → (factor to °F, offset to °F, limit family).
+#: °F = °C·1.8 + 32 (definition, NIST SP 811); "0.1C"/"0.1F" are tenths, as some services publish.
+TEMP_UNITS = {
+    "F": (1.0, 0.0, "F"), "C": (F_PER_C, 32.0, "C"),
+    "0.1F": (0.1, 0.0, "F"), "0.1C": (0.1 * F_PER_C, 32.0, "C"),
+}
+_SCALE_TO_FILE_UNIT = {"F": 1.0, "C": 1.0, "0.1F": 0.1, "0.1C": 0.1}
+_OUR_DAILY = ("station_id", "date", "t_min", "t_max", "t_mean")
+
+
+class WeatherRead(tuple):
+    """``(frame, rejects)`` with the reader's notices in ``.notices``."""
+
+    notices: list[str]
+
+    def __new__(cls, frame: pl.DataFrame, rejects: pl.DataFrame, notices: list[str]):
+        self = super().__new__(cls, (frame, rejects))
+        self.notices = notices
+        return self
+
+
+def _units_default(units: str) -> str:
+    if units not in ("IP", "SI"):
+        raise ValueError(f"units must be 'IP' or 'SI'; got {units!r}")
+    return "F" if units == "IP" else "C"
+
+
+def _rejects_frame(rows: list[pl.DataFrame], label: str, csv_rejects: list[dict]) -> pl.DataFrame:
+    base = [pl.DataFrame(csv_rejects, schema=REJECT_SCHEMA)] if csv_rejects else []
+    parts = base + [r.select(pl.lit(label).alias("file"), pl.col(LINE_COL).cast(pl.Int64).alias("line"),
+                             pl.col("column").cast(pl.String), pl.col("value").cast(pl.String),
+                             pl.col("reason").cast(pl.String)) for r in rows if r.height]
+    if not parts:
+        return pl.DataFrame(schema=REJECT_SCHEMA)
+    return pl.concat(parts, how="vertical").sort("line", "column")
+
+
+def _reject(df: pl.DataFrame, mask: pl.Expr, column: str, value: pl.Expr, reason: str | pl.Expr):
+    """Split ``df`` into (kept, rejected-with-reason)."""
+    flagged = df.with_columns(mask.fill_null(False).alias("_bad"))
+    bad = flagged.filter(pl.col("_bad")).select(
+        LINE_COL, pl.lit(column).alias("column"), value.cast(pl.String).alias("value"),
+        (reason if isinstance(reason, pl.Expr) else pl.lit(reason)).alias("reason"))
+    return flagged.filter(~pl.col("_bad")).drop("_bad"), bad
+
+
+def _numeric(df: pl.DataFrame, cols: dict[str, str], rejected: list[pl.DataFrame]) -> pl.DataFrame:
+    """Parse text temperature columns (``{column: unit}``), reject bad values, convert to °F.
+
+    Adds ``<col>_f`` columns; keeps the raw text columns for messages.
+    """
+    for c, unit in cols.items():
+        fac, off, fam = TEMP_UNITS[unit]
+        num = pl.col(c).str.strip_chars().cast(pl.Float64, strict=False)
+        df = df.with_columns(num.alias(f"_{c}_num"))
+        df, bad = _reject(df, pl.col(c).is_not_null() & pl.col(f"_{c}_num").is_null(), c, pl.col(c),
+                          "not a number")
+        rejected.append(bad)
+        df, bad = _reject(df, pl.col(f"_{c}_num").is_nan() | pl.col(f"_{c}_num").is_infinite(), c,
+                          pl.col(c), "not a finite number")
+        rejected.append(bad)
+        lim = _LIMITS[fam]
+        in_unit = pl.col(f"_{c}_num") * _SCALE_TO_FILE_UNIT[unit]
+        df, bad = _reject(df, in_unit.abs() > lim, c, pl.col(c),
+                          f"impossible temperature: beyond ±{lim:g} °{fam}")
+        rejected.append(bad)
+        df = df.with_columns((pl.col(f"_{c}_num") * fac + off).alias(f"{c}_f")).drop(f"_{c}_num")
+    return df
+
+
+def _finish_daily(df: pl.DataFrame, label: str, date_format: str, temp_units: dict[str, str],
+                  csv_rejects: list[dict], notices: list[str]) -> WeatherRead:
+    """Validate an all-text frame with our daily column names and ``_line``."""
+    rejected: list[pl.DataFrame] = []
+    df = df.with_columns(pl.col("station_id").str.strip_chars())
+    df, bad = _reject(df, pl.col("station_id").is_null() | (pl.col("station_id") == ""), "station_id",
+                      pl.col("station_id").fill_null(""), "station_id is empty")
+    rejected.append(bad)
+    df = df.with_columns(pl.col("date").str.strip_chars().str.to_date(date_format, strict=False).alias("_d"))
+    df, bad = _reject(df, pl.col("_d").is_null(), "date", pl.col("date").fill_null(""),
+                      f"not a valid date (expected format {date_format})")
+    rejected.append(bad)
+    df = _numeric(df, temp_units, rejected)
+    for c in ("t_min", "t_max", "t_mean"):
+        if f"{c}_f" not in df.columns:
+            df = df.with_columns(pl.lit(None, dtype=pl.Float64).alias(f"{c}_f"), pl.lit(None, dtype=pl.String).alias(c))
+    df, bad = _reject(df, pl.col("t_min_f") > pl.col("t_max_f"), "t_min",
+                      pl.format("t_min={} > t_max={}", pl.col("t_min"), pl.col("t_max")),
+                      "impossible values: t_min greater than t_max")
+    rejected.append(bad)
+    tol = 1e-9
+    df, bad = _reject(df, (pl.col("t_mean_f") < pl.col("t_min_f") - tol) | (pl.col("t_mean_f") > pl.col("t_max_f") + tol),
+                      "t_mean", pl.format("t_mean={} outside [{}, {}]", pl.col("t_mean"), pl.col("t_min"), pl.col("t_max")),
+                      "impossible values: t_mean outside [t_min, t_max]")
+    rejected.append(bad)
+    usable = (pl.col("t_min_f").is_not_null() & pl.col("t_max_f").is_not_null()) | pl.col("t_mean_f").is_not_null()
+    df, bad = _reject(df, ~usable, "t_min", pl.format("t_min={} t_max={} t_mean={}", pl.col("t_min").fill_null(""),
+                                                     pl.col("t_max").fill_null(""), pl.col("t_mean").fill_null("")),
+                      "no usable temperature: needs t_min and t_max, or t_mean")
+    rejected.append(bad)
+    out = df.select(pl.col("station_id"), pl.col("_d").alias("date"), "t_min_f", "t_max_f", "t_mean_f",
+                    pl.col(LINE_COL).cast(pl.Int64))
+    out, dup_rej, dup_notes = _duplicates(out, ["station_id", "date"], ["t_min_f", "t_max_f", "t_mean_f"], label)
+    rejected.append(dup_rej)
+    notices.extend(dup_notes)
+    return WeatherRead(out.sort("station_id", "date"), _rejects_frame(rejected, label, csv_rejects), notices)
+
+
+def _duplicates(df: pl.DataFrame, key: list[str], values: list[str], label: str):
+    """Identical duplicates → keep the first, notice; conflicting → reject every row of the key."""
+    counts = df.with_columns(pl.len().over(key).alias("_n"),
+                             pl.struct(values).n_unique().over(key).alias("_nv"))
+    conflict = counts.filter((pl.col("_n") > 1) & (pl.col("_nv") > 1))
+    notes: list[str] = []
+    rej = pl.DataFrame()
+    if conflict.height:
+        lines = conflict.group_by(key).agg(pl.col(LINE_COL).sort().alias("_lines"))
+        rej = (conflict.join(lines, on=key, how="left")
+               .select(LINE_COL, pl.lit(key[-1]).alias("column"),
+                       (pl.col(key[-1]).dt.strftime("%Y-%m-%d %H:%M:%S") if conflict.schema[key[-1]] != pl.Date
+                        else pl.col(key[-1]).cast(pl.String)).alias("value"),
+                       pl.format("duplicate {} for station {} with different values (lines {})",
+                                 pl.lit(key[-1]), pl.col("station_id"),
+                                 pl.col("_lines").cast(pl.List(pl.String)).list.join(", ")).alias("reason")))
+    keep = counts.filter(~((pl.col("_n") > 1) & (pl.col("_nv") > 1)))
+    ident = keep.filter(pl.col("_n") > 1)
+    if ident.height:
+        dropped = ident.filter(pl.col(LINE_COL) != pl.col(LINE_COL).min().over(key))
+        shown = ", ".join(str(x) for x in dropped[LINE_COL].sort().head(10).to_list())
+        notes.append(f"{label}: dropped {dropped.height} duplicate row(s) identical to an earlier row "
+                     f"(lines {shown}{' …' if dropped.height > 10 else ''})")
+        keep = keep.filter(pl.col(LINE_COL) == pl.col(LINE_COL).min().over(key))
+    return keep.drop("_n", "_nv"), rej, notes
+
+
+def read_daily_weather(path: str | Path, *, units: str = "IP") -> WeatherRead:
+    """Read the daily weather CSV of the input contract.
+
+    Parameters
+    ----------
+    path : file with ``station_id, date`` (``YYYY-MM-DD``) and ``t_min`` with ``t_max``,
+        or ``t_mean`` (any of the three may be present; blanks are null).
+    units : {"IP", "SI"}
+        Temperatures in °F (IP) or °C (SI); converted to °F.
+
+    Returns
+    -------
+    WeatherRead
+        ``(weather, rejects)``: weather has ``station_id, date (pl.Date), t_min_f,
+        t_max_f, t_mean_f`` [°F] and ``_line``, sorted by station_id, date; rejects has
+        ``file, line, column, value, reason``; ``.notices`` lists the notices.
+
+    Raises
+    ------
+    InputError
+        Unreadable file, missing ``station_id``/``date``, or none of the temperature
+        columns (needs ``t_min`` and ``t_max``, or ``t_mean``).
+    """
+    unit = _units_default(units)
+    label = str(path)
+    table = read_table(path, required=["station_id", "date"], optional=["t_min", "t_max", "t_mean"], label=label)
+    present = {h.strip().lower() for h in table.header}
+    has_pair = {"t_min", "t_max"} <= present
+    if not has_pair and "t_mean" not in present:
+        raise InputError(label, "no temperature columns", line=1,
+                         expected="t_min and t_max, or t_mean")
+    temps = {c: unit for c in ("t_min", "t_max", "t_mean") if c in present}
+    return _finish_daily(table.df, label, "%Y-%m-%d", temps, table.rejects, list(table.notices))
+
+
+def read_mapped_daily(path: str | Path, mapping: dict, *, units: str = "IP", date_format: str = "%Y-%m-%d",
+                      station_id: str | None = None) -> WeatherRead:
+    """Read a daily-summary CSV of another layout through an explicit column mapping.
+
+    Parameters
+    ----------
+    path : the file.
+    mapping : dict
+        ``{source column: our column}`` or ``{source column: (our column, unit)}``; our
+        columns are ``station_id, date, t_min, t_max, t_mean``; units ``F``, ``C``,
+        ``0.1F``, ``0.1C`` (tenths). Source columns not named are ignored (listed in the
+        notices); a named column missing from the file is a structural error. Example
+        for a file with ``STATION, DATE, TMAX, TMIN`` in °F:
+        ``{"STATION": "station_id", "DATE": "date", "TMAX": ("t_max", "F"), "TMIN": ("t_min", "F")}``.
+    units : {"IP", "SI"}
+        Unit of temperature columns mapped without a unit: °F (IP) or °C (SI).
+    date_format : str
+        strftime format of the date column (default ``%Y-%m-%d``); no guessing.
+    station_id : str, optional
+        The station of a single-station file that has no station column.
+
+    Returns
+    -------
+    WeatherRead
+        As :func:`read_daily_weather`; reject lines are the file's physical lines and
+        reject columns are the *source* column names.
+    """
+    default_unit = _units_default(units)
+    if not isinstance(mapping, dict) or not mapping:
+        raise ValueError("mapping must be a non-empty dict {source column: our column or (our column, unit)}")
+    ours: dict[str, tuple[str, str | None]] = {}
+    for src, spec in mapping.items():
+        col, unit = (spec, None) if isinstance(spec, str) else tuple(spec)
+        if col not in _OUR_DAILY:
+            raise ValueError(f"mapping target {col!r} (for source column {src!r}) is not one of "
+                             f"{', '.join(_OUR_DAILY)}")
+        if col in ours:
+            raise ValueError(f"mapping names our column {col!r} twice ({ours[col][0]!r} and {src!r})")
+        if unit is not None and col in ("station_id", "date"):
+            raise ValueError(f"mapping gives a unit for {col!r}; units apply to temperatures only")
+        if col.startswith("t_"):
+            unit = unit or default_unit
+            if unit not in TEMP_UNITS:
+                raise ValueError(f"unknown temperature unit {unit!r} for source column {src!r}; "
+                                 f"use one of {', '.join(TEMP_UNITS)}")
+        ours[col] = (str(src), unit)
+    if "date" not in ours:
+        raise ValueError("mapping must name the source column for 'date'")
+    if ("station_id" in ours) == (station_id is not None):
+        raise ValueError("give exactly one of a 'station_id' mapping or station_id=...")
+    if not ({"t_min", "t_max"} <= set(ours) or "t_mean" in ours):
+        raise ValueError("mapping must name t_min and t_max, or t_mean")
+    label = str(path)
+    src_cols = [s.strip().lower() for s, _ in ours.values()]
+    table = read_table(path, required=src_cols, label=label)
+    df = table.df.select(*[pl.col(s.strip().lower()).alias(col) for col, (s, _) in ours.items()], LINE_COL)
+    if station_id is not None:
+        df = df.with_columns(pl.lit(str(station_id)).alias("station_id"))
+    temps = {c: u for c, (_, u) in ours.items() if c.startswith("t_")}
+    notices = list(table.notices)
+    notices.append(f"{label}: read with mapping " + ", ".join(
+        f"{s}→{c}" + (f" [{u}]" if u else "") for c, (s, u) in ours.items()))
+    res = _finish_daily(df, label, date_format, temps, table.rejects, notices)
+    back = {col: s for col, (s, _) in ours.items()}
+    rej = res[1].with_columns(pl.col("column").replace(back))
+    return WeatherRead(res[0], rej, res.notices)
+
+
+def read_hourly_weather(path: str | Path, *, units: str = "IP", timestamps: str = "start") -> WeatherRead:
+    """Read hourly (or sub-hourly) readings ``station_id, timestamp, temperature``.
+
+    Parameters
+    ----------
+    path : file with ``station_id``, ``timestamp`` (``YYYY-MM-DD HH:MM[:SS]`` or with a
+        ``T``; local standard time, no zone; ``24:00`` means the next day's ``00:00``) and
+        ``temperature``.
+    units : {"IP", "SI"}
+        °F or °C; converted to °F.
+    timestamps : {"start", "end"}
+        Whether a stamp marks the start of its interval or the end (hour-ending data
+        such as TMY files). End stamps are moved back by the station's median reading
+        interval so that every reading belongs to the date of its interval's start.
+
+    Returns
+    -------
+    WeatherRead
+        ``(hourly, rejects)``: hourly has ``station_id, timestamp (pl.Datetime, interval
+        start), t_f`` [°F] and ``_line``, sorted by station_id, timestamp.
+    """
+    unit = _units_default(units)
+    if timestamps not in ("start", "end"):
+        raise ValueError(f"timestamps must be 'start' or 'end'; got {timestamps!r}")
+    label = str(path)
+    table = read_table(path, required=["station_id", "timestamp", "temperature"], label=label)
+    rejected: list[pl.DataFrame] = []
+    df = table.df.with_columns(pl.col("station_id").str.strip_chars())
+    df, bad = _reject(df, pl.col("station_id").is_null(), "station_id", pl.lit(""), "station_id is empty")
+    rejected.append(bad)
+    ts = pl.col("timestamp").str.strip_chars().str.replace("T", " ")
+    is24 = ts.str.contains(r"^\d{4}-\d{2}-\d{2} 24:00(:00)?$")
+    base = pl.when(is24).then(ts.str.slice(0, 10) + " 00:00:00").otherwise(ts)
+    full = pl.when(base.str.len_chars() == 16).then(base + ":00").otherwise(base)
+    parsed = full.str.to_datetime("%Y-%m-%d %H:%M:%S", strict=False)
+    parsed = pl.when(is24).then(parsed + pl.duration(days=1)).otherwise(parsed)
+    df = df.with_columns(parsed.alias("_ts"))
+    df, bad = _reject(df, pl.col("_ts").is_null(), "timestamp", pl.col("timestamp").fill_null(""),
+                      "not a valid timestamp (expected YYYY-MM-DD HH:MM[:SS])")
+    rejected.append(bad)
+    df, bad = _reject(df, pl.col("temperature").is_null(), "temperature", pl.lit(""), "temperature is empty")
+    rejected.append(bad)
+    df = _numeric(df, {"temperature": unit}, rejected)
+    out = df.select("station_id", pl.col("_ts").alias("timestamp"), pl.col("temperature_f").alias("t_f"),
+                    pl.col(LINE_COL).cast(pl.Int64))
+    out, dup_rej, notes = _duplicates(out, ["station_id", "timestamp"], ["t_f"], label)
+    rejected.append(dup_rej)
+    out = out.sort("station_id", "timestamp")
+    if timestamps == "end" and out.height:
+        step = pl.col("timestamp").diff().median().over("station_id")
+        out = out.with_columns((pl.col("timestamp") - step.fill_null(pl.duration(hours=1))).alias("timestamp"))
+    notices = list(table.notices) + notes
+    return WeatherRead(out, _rejects_frame(rejected, label, table.rejects), notices)
