@@ -206,7 +206,8 @@ def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *
 def _cum_lookup(weights: pl.DataFrame, q: pl.DataFrame, date_col: str, prefix: str) -> pl.DataFrame:
     """Cumulative weight and day count up to and including ``q[date_col]`` per building."""
     q = q.with_row_index("_qi").sort(date_col)
-    j = q.join_asof(weights, left_on=date_col, right_on="date", by="building_id", strategy="backward")
+    j = q.join_asof(weights, left_on=date_col, right_on="date", by="building_id", strategy="backward",
+                     check_sortedness=False)  # sorted by date above
     return j.sort("_qi").select(pl.col("_cw").fill_null(0.0).alias(f"{prefix}_w"),
                                 pl.col("_cn").fill_null(0).alias(f"{prefix}_n"))
 

@@ -1,0 +1,373 @@
+"""Checks of screening.metered: spans, calendarization, issues, the Fels regression, normalization.
+
+Weather: pvlib's Greensboro NC TMY3 file (site-packages/pvlib/data/723170TYA.CSV), daily mean of
+the 24 hourly dry-bulb temperatures, °C -> °F, tiled over non-leap years from 2021.
+"""
+
+from datetime import date, timedelta
+from functools import lru_cache
+from pathlib import Path
+
+import numpy as np
+import polars as pl
+import pytest
+import pvlib
+import scipy.optimize
+import statsmodels.api as sm
+from pvlib.iotools import read_tmy3
+
+from screening import metered as M
+
+GRID = np.arange(40.0, 75.01, 0.5)  # 71 bases, 40-75 °F by 0.5 (issue 5)
+D0 = date(2021, 1, 1)
+
+
+@lru_cache(maxsize=1)
+def tmy_daily_f() -> np.ndarray:
+    path = Path(pvlib.__file__).parent / "data" / "723170TYA.CSV"
+    df, _ = read_tmy3(str(path), map_variables=True)
+    t = pl.DataFrame({"day": df["Date (MM/DD/YYYY)"].str.slice(0, 5).to_numpy(),
+                      "t": df["temp_air"].to_numpy()})
+    daily = t.group_by("day").agg(pl.col("t").mean()).sort("day")
+    assert daily.height == 365  # TMY3: 365 days x 24 h (degree-days.md §3)
+    return daily["t"].to_numpy() * 9 / 5 + 32
+
+
+def temps(n_days: int) -> np.ndarray:
+    """Daily mean °F from D0 (2021-01-01) on, the TMY year repeated (2021-2023 are not leap years)."""
+    return np.resize(tmy_daily_f(), n_days)
+
+
+def hdd(starts, ends, bases) -> np.ndarray:
+    """Period HDD [°F·day] at each base, mean-temperature method: Σ (base − t_mean)+ (degree-days.md §1)."""
+    t = temps(3 * 365)
+    s = np.array([(d - D0).days for d in starts])
+    e = np.array([(d - D0).days for d in ends])
+    dd = np.maximum(np.asarray(bases)[None, :] - t[:, None], 0.0)
+    c = np.vstack([np.zeros((1, dd.shape[1])), np.cumsum(dd, axis=0)])
+    return c[e + 1] - c[s]
+
+
+def monthly(year=2021, n=12):
+    starts, ends = [], []
+    for k in range(n):
+        y, m = year + k // 12, k % 12 + 1
+        starts.append(date(y, m, 1))
+        ends.append(date(y + (m == 12), m % 12 + 1, 1) - timedelta(days=1))
+    return starts, ends
+
+
+def drifting(rng, n, start=D0):
+    starts, ends, d = [], [], start
+    for _ in range(n):
+        L = int(rng.integers(27, 36))          # billing cycles of 27-35 days (issue 5)
+        starts.append(d)
+        ends.append(d + timedelta(days=L - 1))
+        d = d + timedelta(days=L)
+    return starts, ends
+
+
+def bills(starts, ends, alpha, beta, tau):
+    days = np.array([(e - s).days + 1 for s, e in zip(starts, ends)], float)
+    return alpha * days + beta * hdd(starts, ends, [tau])[:, 0], days
+
+
+def fit_one(starts, ends, use, grid=GRID, **kw):
+    days = np.array([(e - s).days + 1 for s, e in zip(starts, ends)], float)
+    x = hdd(starts, ends, grid) / days[:, None]
+    return M.fit_variable_base((use / days)[None], days[None], x[None], grid,
+                               np.ones((1, len(days)), bool), **kw)
+
+
+# ------------------------------------------------------------------------------ regression
+
+def test_noise_free_recovery_greensboro():
+    # degree-days.md §6 [C]: 12 monthly bills, α = 20/day, β = 0.9/°F·day, τ = 60 °F, no noise
+    # -> 0.5 °F grid returns τ = 60.0, α = 20.000, β = 0.9000, R² = 1.000000
+    s, e = monthly()
+    use, _ = bills(s, e, 20.0, 0.9, 60.0)
+    f = fit_one(s, e, use)
+    assert f["model"][0] == "heating"
+    assert f["base_f"][0] == 60.0
+    assert f["alpha"][0] == pytest.approx(20.0, abs=1e-9)
+    assert f["beta"][0] == pytest.approx(0.9, abs=1e-11)
+    assert f["r2"][0] == pytest.approx(1.0, abs=1e-12)
+    assert abs(f["cv_rmse"][0]) < 1e-9 and abs(f["nmbe"][0]) < 1e-9
+    assert not f["base_at_edge"][0] and f["n"][0] == 12
+
+
+def _noisy_building(seed, n=24):
+    rng = np.random.default_rng(seed)
+    s, e = drifting(rng, n)
+    use, days = bills(s, e, 20.0, 0.9, 60.0)
+    use = use * (1 + 0.05 * rng.standard_normal(n))
+    return s, e, use, days
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_agrees_with_statsmodels_wls_and_scipy_brute(seed):
+    s, e, use, days = _noisy_building(seed)
+    f = fit_one(s, e, use)
+    tau = f["base_f"][0]
+    # statsmodels WLS at the chosen base (test-only reference library), weights = days
+    x = hdd(s, e, [tau])[:, 0] / days
+    y = use / days
+    res = sm.WLS(y, sm.add_constant(x), weights=days).fit()
+    assert f["alpha"][0] == pytest.approx(res.params[0], rel=1e-9)
+    assert f["beta"][0] == pytest.approx(res.params[1], rel=1e-9)
+    assert f["se_alpha"][0] == pytest.approx(res.bse[0], rel=1e-9)
+    assert f["se_beta"][0] == pytest.approx(res.bse[1], rel=1e-9)
+    assert f["r2"][0] == pytest.approx(res.rsquared, rel=1e-9)
+    assert f["sse_w"][0] == pytest.approx(res.ssr, rel=1e-9)
+    # Guideline 14 definitions (degree-days.md §6), p = 2, from statsmodels' unweighted residuals
+    r = res.model.endog - res.fittedvalues
+    n = len(y)
+    assert f["cv_rmse"][0] == pytest.approx(100 * np.sqrt((r ** 2).sum() / (n - 2)) / y.mean(), rel=1e-9)
+    assert f["nmbe"][0] == pytest.approx(100 * r.sum() / ((n - 2) * y.mean()), rel=1e-9, abs=1e-12)
+
+    # brute-force scipy search on the same grid, HDD recomputed from the daily temperatures at each τ
+    def sse(t):
+        xt = hdd(s, e, [float(np.atleast_1d(t)[0])])[:, 0] / days
+        sw = np.sqrt(days)
+        coef, *_ = np.linalg.lstsq(np.c_[sw, sw * xt], sw * y, rcond=None)
+        return float(((sw * y - np.c_[sw, sw * xt] @ coef) ** 2).sum()) if coef[1] > 0 else np.inf
+    t_best = scipy.optimize.brute(sse, (slice(40.0, 75.25, 0.5),), finish=None)
+    assert tau == pytest.approx(float(t_best), abs=1e-12)
+
+
+def test_noise_and_drifting_read_dates_tolerance():
+    # 40 buildings, 24 drifting bills (27-35 days) each, 5 % multiplicative noise (seeded).
+    # Tolerances are our own: τ, α and β trade off against each other under noise, while the
+    # normalized annual consumption NAC = 365·α + β·H(τ) is the well-determined figure (Fels 1986,
+    # degree-days.md §6). Stated: τ within 5 °F (median within 1 °F), β within 25 %, α within 10 %,
+    # NAC within 3 % of the truth (20 x 365 + 0.9 x HDD60 of the TMY year).
+    fits = []
+    for seed in range(40):
+        s, e, use, _ = _noisy_building(100 + seed)
+        fits.append(fit_one(s, e, use))
+    tau = np.array([f["base_f"][0] for f in fits])
+    beta = np.array([f["beta"][0] for f in fits])
+    alpha = np.array([f["alpha"][0] for f in fits])
+    year = ([D0], [date(2021, 12, 31)])
+    nac = np.array([365 * a + b * hdd(*year, [t])[0, 0] for a, b, t in zip(alpha, beta, tau)])
+    nac_true = 365 * 20.0 + 0.9 * hdd(*year, [60.0])[0, 0]
+    assert np.all(np.abs(tau - 60.0) <= 5.0)
+    assert abs(np.median(tau) - 60.0) <= 1.0
+    assert np.all(np.abs(beta / 0.9 - 1) <= 0.25)
+    assert np.all(np.abs(alpha / 20.0 - 1) <= 0.10)
+    assert np.all(np.abs(nac / nac_true - 1) <= 0.03)
+
+
+def test_vectorized_equals_one_at_a_time_with_padding():
+    rng = np.random.default_rng(7)
+    sets = [drifting(rng, n) for n in (24, 15, 10)]
+    truths = [(20.0, 0.9, 60.0), (35.0, 2.1, 55.0), (5.0, 0.3, 65.0)]
+    n_p = 24
+    Y = np.zeros((3, n_p)); Dd = np.zeros((3, n_p)); X = np.zeros((3, n_p, GRID.size)); V = np.zeros((3, n_p), bool)
+    singles = []
+    for i, ((s, e), (a, b, t)) in enumerate(zip(sets, truths)):
+        use, days = bills(s, e, a, b, t)
+        use = use * (1 + 0.03 * rng.standard_normal(len(s)))
+        k = len(s)
+        Y[i, :k] = use / days; Dd[i, :k] = days; X[i, :k] = hdd(s, e, GRID) / days[:, None]; V[i, :k] = True
+        singles.append(fit_one(s, e, use))
+    f = M.fit_variable_base(Y, Dd, X, GRID, V, chunk=2)
+    for i, g in enumerate(singles):
+        for key in ("alpha", "beta", "base_f", "r2", "cv_rmse", "nmbe", "se_alpha", "se_beta"):
+            assert f[key][i] == pytest.approx(g[key][0], rel=1e-12), key
+
+
+def test_baseload_only_edge_and_not_fitted():
+    s, e = monthly(n=12)
+    days = np.array([(b - a).days + 1 for a, b in zip(s, e)], float)
+    # flat use: no base gives β > 0 -> baseload-only, α = day-weighted mean of use per day (by hand)
+    rng = np.random.default_rng(3)
+    use = days * (50 + rng.standard_normal(12))
+    f = fit_one(s, e, use)
+    if f["model"][0] == "baseload_only":
+        assert f["alpha"][0] == pytest.approx(np.average(use / days, weights=days), rel=1e-12)
+        assert f["beta"][0] == 0.0 and np.isnan(f["base_f"][0]) and f["r2"][0] == 0.0
+    # a use that falls with HDD at every base is baseload-only for sure
+    use_neg = 60 * days - 0.1 * hdd(s, e, [65.0])[:, 0]
+    g = fit_one(s, e, use_neg)
+    assert g["model"][0] == "baseload_only"
+    assert g["alpha"][0] == pytest.approx(np.average(use_neg / days, weights=days), rel=1e-12)
+    # true τ = 80 °F lies above the grid -> best τ is the top grid value, marked
+    use80, _ = bills(s, e, 20.0, 0.9, 80.0)
+    h = fit_one(s, e, use80)
+    assert h["base_f"][0] == 75.0 and h["base_at_edge"][0]
+    # 8 monthly periods (< 9) -> not fitted; a 92-day period is not counted
+    s8, e8 = s[:8], e[:8]
+    assert fit_one(s8, e8, bills(s8, e8, 20, 0.9, 60)[0])["model"][0] == "not_fitted"
+    s9 = s[:8] + [date(2021, 9, 1)]; e9 = e[:8] + [date(2021, 11, 30)]
+    k = fit_one(s9, e9, bills(s9, e9, 20, 0.9, 60)[0])
+    assert k["model"][0] == "not_fitted" and k["n"][0] == 8
+
+
+def test_fit_shape_errors():
+    with pytest.raises(ValueError, match=r"hdd_per_day has shape \(1, 3, 2\); expected \(1, 3, 71\)"):
+        M.fit_variable_base(np.ones((1, 3)), np.ones((1, 3)), np.ones((1, 3, 2)), GRID, np.ones((1, 3), bool))
+    with pytest.raises(ValueError, match="strictly increasing"):
+        M.fit_variable_base(np.ones((1, 3)), np.ones((1, 3)), np.ones((1, 3, 2)), np.array([60.0, 50.0]),
+                            np.ones((1, 3), bool))
+
+
+# ------------------------------------------------------------------------------ spans
+
+def _reads(bid, starts, ends, q=None, fuel="natural_gas", heat=True, **extra):
+    n = len(starts)
+    d = {"building_id": [bid] * n, "fuel": [fuel] * n, "period_start": starts, "period_end": ends,
+         "energy_kbtu": list(q) if q is not None else [100.0] * n, "is_heating_fuel": [heat] * n}
+    d.update(extra)
+    df = pl.DataFrame(d)
+    return df.with_columns(((pl.col("period_end") - pl.col("period_start")).dt.total_days() + 1).alias("days"))
+
+
+WS, WE = date(2025, 10, 1), date(2026, 9, 30)  # as-of 2026-10-15 -> this window (foundation issue example)
+
+
+def test_choose_spans_rules():
+    s, e = monthly(2024, 33)                     # 2024-01 .. 2026-09 monthly
+    full = _reads("a_full", s, e)
+    late = _reads("b_late", s[:-1], e[:-1])      # the September 2026 bill is late
+    annual = _reads("c_annual", [date(2024, 1, 1), date(2025, 1, 1)], [date(2024, 12, 31), date(2025, 12, 31)])
+    holey = _reads("d_holey", [x for i, x in enumerate(s) if i % 2 == 0], [x for i, x in enumerate(e) if i % 2 == 0])
+    other = _reads("a_full", [date(2026, 1, 1)], [date(2026, 1, 31)], fuel="electricity", heat=False)
+    r = pl.concat([full, late, annual, holey, other])
+    sp = M.choose_spans(r, WS, WE, building_ids=["a_full", "b_late", "c_annual", "d_holey", "e_none"])
+    rows = {x["building_id"]: x for x in sp.to_dicts()}
+    assert (rows["a_full"]["span_kind"], rows["a_full"]["span_start"], rows["a_full"]["coverage"]) == ("window", WS, 1.0)
+    assert rows["b_late"]["span_kind"] == "shifted"
+    assert (rows["b_late"]["span_start"], rows["b_late"]["span_end"]) == (date(2025, 9, 1), date(2026, 8, 31))
+    assert rows["c_annual"]["span_kind"] == "shifted"
+    assert (rows["c_annual"]["span_start"], rows["c_annual"]["span_end"]) == (date(2025, 1, 1), date(2025, 12, 31))
+    assert rows["c_annual"]["span_days"] == 365
+    assert rows["d_holey"]["span_kind"] == "uncovered" and rows["d_holey"]["span_start"] == WS
+    assert 0.4 < rows["d_holey"]["coverage"] < 0.6
+    assert rows["e_none"]["span_kind"] == "uncovered" and rows["e_none"]["coverage"] == 0.0
+    # a span over leap year 2024 has 366 days: window 2024-10-01..2025-09-30 shifted back to 2024
+    sp2 = M.choose_spans(_reads("x", [date(2023, 10, 1)], [date(2024, 9, 30)]), date(2024, 10, 1), date(2025, 9, 30))
+    assert sp2["span_kind"][0] == "shifted" and sp2["span_days"][0] == 366 and sp2["span_start"][0] == date(2023, 10, 1)
+    with pytest.raises(ValueError, match="window_end=2025-01-01 is before window_start=2025-02-01"):
+        M.choose_spans(full, date(2025, 2, 1), date(2025, 1, 1))
+    with pytest.raises(ValueError, match="lookback_months=6 must be at least 12"):
+        M.choose_spans(full, WS, WE, lookback_months=6)
+
+
+# ------------------------------------------------------------------------------ calendarization
+
+def test_calendarize_by_days_by_hand():
+    r = _reads("a", [date(2025, 9, 22)], [date(2025, 10, 22)], q=[310.0])   # 31 days, 22 in the span
+    sp = pl.DataFrame({"building_id": ["a"], "span_start": [WS], "span_end": [WE]})
+    c = M.calendarize(r, sp)
+    assert c["energy_kbtu"][0] == pytest.approx(310.0 * 22 / 31, rel=1e-15)   # by hand
+    assert c["covered_days"][0] == 22 and c["span_days"][0] == 365
+
+
+def test_calendarize_conserves_energy():
+    rng = np.random.default_rng(11)
+    s, e = drifting(rng, 40, start=date(2021, 1, 1))
+    q = rng.uniform(50, 500, 40)
+    base = _reads("z", s, e, q=q)
+    lo, hi = s[0], e[-1]
+    cut1, cut2 = date(2021, 11, 17), date(2022, 8, 3)
+    # three buildings with the same reads and spans that partition [first start, last end]
+    r = pl.concat([base.with_columns(pl.lit(b).alias("building_id")) for b in ("p1", "p2", "p3")])
+    sp = pl.DataFrame({"building_id": ["p1", "p2", "p3"], "span_start": [lo, cut1, cut2 + timedelta(days=1)],
+                       "span_end": [cut1 - timedelta(days=1), cut2, hi]})
+    days = (hi - lo).days + 1
+    w = pl.DataFrame({"building_id": np.repeat(["p1", "p2", "p3"], days),
+                      "date": [lo + timedelta(days=i) for i in range(days)] * 3,
+                      "weight": np.tile(np.maximum(65 - temps(days), 0.0), 3)})
+    for method in ("days", "degree_days"):
+        c = M.calendarize(r, sp, method=method, daily_weights=w if method == "degree_days" else None)
+        assert c["energy_kbtu"].sum() == pytest.approx(q.sum(), rel=1e-12)
+        assert (c["coverage"] == 1.0).all()
+    c = M.calendarize(r, sp, method="degree_days", daily_weights=w)
+    c_days = M.calendarize(r, sp)
+    # bills with HDD65 fall back to days only in summer (no degree days), so most energy goes by degree days
+    assert c["dd_prorated_share"].min() > 0.5
+    assert np.abs(c["energy_kbtu"].to_numpy() - c_days["energy_kbtu"].to_numpy()).max() > 1.0
+
+
+def test_calendarize_degree_day_weights_by_hand():
+    r = _reads("a", [date(2025, 9, 30)], [date(2025, 10, 1)], q=[100.0])   # 2 days, 1 in the span
+    sp = pl.DataFrame({"building_id": ["a"], "span_start": [WS], "span_end": [WE]})
+    w = pl.DataFrame({"building_id": ["a", "a"], "date": [date(2025, 9, 30), date(2025, 10, 1)], "weight": [1.0, 3.0]})
+    assert M.calendarize(r, sp, method="degree_days", daily_weights=w)["energy_kbtu"][0] == pytest.approx(75.0)  # 100 x 3/4
+    w0 = w.with_columns(pl.lit(0.0).alias("weight"))  # a summer bill: no degree days -> by days
+    assert M.calendarize(r, sp, method="degree_days", daily_weights=w0)["energy_kbtu"][0] == pytest.approx(50.0)
+    with pytest.raises(ValueError, match="method='degree_days' needs daily_weights"):
+        M.calendarize(r, sp, method="degree_days")
+    with pytest.raises(ValueError, match="method='hours' must be"):
+        M.calendarize(r, sp, method="hours")
+
+
+# ------------------------------------------------------------------------------ issues
+
+def test_reading_issues_name_the_dates():
+    s, e = monthly(2025, 12)
+    s = list(s); e = list(e)
+    # gap: drop March 2025; overlap: April read runs to May 10; duplicate: June read twice
+    keep = [i for i in range(12) if i != 2]
+    ss = [s[i] for i in keep]; ee = [e[i] for i in keep]
+    ee[2] = date(2025, 5, 10)
+    ss.append(s[5]); ee.append(e[5])
+    est = [i in (0, 1, 3, 4, 6) for i in range(len(ss))]
+    r = _reads("a", ss, ee, estimated=est, _line=list(range(2, 2 + len(ss))))
+    sp = M.choose_spans(r, date(2025, 1, 1), date(2025, 12, 31))
+    iss = M.reading_issues(r, sp)
+    d = {x["code"]: x for x in iss.to_dicts()}
+    assert "2025-06-01..2025-06-30 read 2 times" in d["duplicate_reads"]["detail"]
+    assert d["duplicate_reads"]["blocking"]
+    assert "2025-05-01..2025-05-31 overlaps a read ending 2025-05-10" in d["overlapping_reads"]["detail"]
+    assert d["overlapping_reads"]["blocking"]
+    assert d["gap_in_reads"]["detail"] == "no read 2025-03-01..2025-03-31 (31 days)"
+    assert not d["gap_in_reads"]["blocking"]
+    assert d["many_estimated_reads"]["detail"].startswith("5 of 12 reads in the span estimated: 2025-01-01..2025-01-31")
+    assert "low_coverage" not in d        # 334/365 = 91.5 % >= 90 %
+    sp_low = sp.with_columns(pl.lit(0.5).alias("coverage"))
+    assert M.reading_issues(r, sp_low).filter(pl.col("code") == "low_coverage")["blocking"][0]
+    assert iss["building_id"].to_list() == ["a"] * iss.height
+    assert set(iss["code"]) <= set(M.ISSUE_CODES)
+
+
+# ------------------------------------------------------------------------------ combination
+
+def test_metered_heating_end_to_end():
+    # building "reg": 24 monthly bills 2021-01..2022-12 (tiled TMY), α 20, β 0.9, τ 60, no noise
+    s, e = monthly(2021, 24)
+    use, days = bills(s, e, 20.0, 0.9, 60.0)
+    reg = _reads("reg", s, e, q=use)
+    ann = _reads("ann", [date(2022, 1, 1)], [date(2022, 12, 31)], q=[50_000.0])
+    r = pl.concat([reg, ann])
+    ws, we = date(2022, 1, 1), date(2022, 12, 31)
+    sp = M.choose_spans(r, ws, we)
+    assert sp["span_kind"].to_list() == ["window", "window"]
+    periods = M.fit_periods(r, sp)
+    p_hdd = hdd(periods["period_start"].to_list(), periods["period_end"].to_list(), GRID)
+    span_hdd = hdd([ws, ws], [we, we], GRID)
+    normal = 1.1 * span_hdd                      # an invented normal year 10 % colder
+    blds = pl.DataFrame({"building_id": ["ann", "reg"], "use_type": ["office", "school"],
+                         "heating_fuel": ["natural_gas", "natural_gas"]})
+    out = M.metered_heating(r, sp, blds, periods=periods, period_hdd=p_hdd, span_hdd=span_hdd,
+                            normal_hdd=normal, base_grid_f=GRID, efficiency=np.array([0.8, 0.8]),
+                            engineering_base_f=np.array([55.0, 55.0]))
+    a, g = out.row(0, named=True), out.row(1, named=True)
+    hdd60 = hdd([ws], [we], [60.0])[0, 0]
+    assert g["fit_method"] == "regression" and g["fitted_base_f"] == 60.0
+    assert g["baseload_kbtu"] == pytest.approx(20.0 * 365, rel=1e-9)           # α x days, by hand
+    assert g["actual_heating_kbtu"] == pytest.approx(0.9 * hdd60, rel=1e-9)     # β x HDD60 of the window, by hand
+    assert g["normal_heating_kbtu"] == pytest.approx(0.9 * 1.1 * hdd60, rel=1e-9)
+    assert g["effective_ua_btu_h_f"] == pytest.approx(0.9 * 1000 * 0.8 / 24, rel=1e-9)   # β·η/24, kBtu->Btu
+    assert g["n_periods"] == 24 and g["r2"] == pytest.approx(1.0, abs=1e-12)
+    # annual reads -> default share: office 5.7 % (CBECS 2003, baseload_shares.csv)
+    assert a["fit_method"] == "default share" and a["fitted_base_f"] is None
+    assert a["baseload_kbtu"] == pytest.approx(0.057 * 50_000.0, rel=1e-12)
+    assert a["actual_heating_kbtu"] == pytest.approx(0.943 * 50_000.0, rel=1e-12)
+    hdd55 = hdd([ws], [we], [55.0])[0, 0]
+    assert a["heating_slope_kbtu_per_dd"] == pytest.approx(0.943 * 50_000.0 / hdd55, rel=1e-9)
+    assert a["normal_heating_kbtu"] == pytest.approx(1.1 * 0.943 * 50_000.0, rel=1e-9)
+    with pytest.raises(ValueError, match=r"efficiency has shape \(3,\); expected \(2,\)"):
+        M.metered_heating(r, sp, blds, periods=periods, period_hdd=p_hdd, span_hdd=span_hdd, normal_hdd=normal,
+                          base_grid_f=GRID, efficiency=np.ones(3), engineering_base_f=np.array([55.0, 55.0]))
