@@ -81,6 +81,11 @@ def _month_end(d: date) -> date:
     return date(d.year + (d.month == 12), d.month % 12 + 1, 1) - timedelta(days=1)
 
 
+def _lookback_start(col: str, months: int) -> pl.Expr:
+    """First day of the ``months`` calendar months ending on ``col`` (inclusive)."""
+    return pl.col(col).dt.offset_by(f"-{int(months)}mo") + pl.duration(days=1)
+
+
 def _ordinal(col: str) -> pl.Expr:
     return pl.col(col).cast(pl.Date).cast(pl.Int64)
 
@@ -332,9 +337,7 @@ def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mont
     _require(spans, "spans", ("building_id", "span_start", "span_end"))
     sp = spans.select("building_id", "span_start", "span_end",
                       *[c for c in ("span_kind", "coverage") if c in spans.columns])
-    sp = sp.with_columns(pl.col("span_end").map_elements(
-        lambda d: _add_months(d, -lookback_months) + timedelta(days=1), return_dtype=pl.Date)
-        .alias("_lb")) if sp.height else sp.with_columns(pl.lit(None, pl.Date).alias("_lb"))
+    sp = sp.with_columns(_lookback_start("span_end", lookback_months).alias("_lb"))
     line = "_line" if "_line" in readings.columns else ("line" if "line" in readings.columns else None)
     r = readings.with_columns(
         (pl.col(line).cast(pl.Int64) if line else pl.lit(None, pl.Int64)).alias("_ln"),
@@ -438,8 +441,8 @@ def fit_periods(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months:
         degree days at every base of the grid (``period_hdd``, shape (rows, n_bases), [°F·day]).
     """
     _require(readings, "readings", ("building_id", "period_start", "period_end", "energy_kbtu"))
-    sp = spans.select("building_id", "span_end").with_columns(pl.col("span_end").map_elements(
-        lambda d: _add_months(d, -lookback_months) + timedelta(days=1), return_dtype=pl.Date).alias("_lb"))
+    sp = spans.select("building_id", "span_end").with_columns(
+        _lookback_start("span_end", lookback_months).alias("_lb"))
     r = _heat(readings)
     est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in r.columns else pl.lit(False)
     p = (r.join(sp, on="building_id", how="inner")
