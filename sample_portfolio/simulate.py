@@ -780,6 +780,7 @@ def _bill(rng, B, days, n_out, annual, label, heat_kbtu, elec_kwh) -> tuple[dict
     ok_h = ok_h & ~(est_h & ~np.roll(ok_h, -1, axis=1))  # no estimated read without its catch-up
     keep_h = ok_h.copy()
     dup = np.zeros((n, n_p), bool)
+    revised = np.zeros(n, bool)
     ue_kind = np.full(n, "", dtype=object)
     ue_factor = np.ones(n)
     detail = np.full(n, "", dtype=object)
@@ -787,11 +788,12 @@ def _bill(rng, B, days, n_out, annual, label, heat_kbtu, elec_kwh) -> tuple[dict
     last = np.where(ok_h.any(1), n_p - 1 - np.argmax(ok_h[:, ::-1], axis=1), 0)
     col = np.arange(n_p)[None, :]
 
-    # -- missing months: drop 2-4 consecutive bills within the last 15
+    # Faults sit among the last 12 bills before the final one (inside the latest 12 months).
+    # -- missing months: drop 2-4 consecutive bills
     m = np.flatnonzero(label == "missing_months")
     if m.size:
         k = rng.integers(2, 5, m.size)
-        i0 = np.maximum(last[m] - rng.integers(k, 15, m.size), 1)
+        i0 = np.maximum(last[m] - rng.integers(k + 1, 12, m.size), 1)
         drop = (col >= i0[:, None]) & (col < (i0 + k)[:, None])
         keep_h[m] &= ~drop
         gone_s = days[s_h[m, np.maximum(i0, 0)]]
@@ -801,16 +803,19 @@ def _bill(rng, B, days, n_out, annual, label, heat_kbtu, elec_kwh) -> tuple[dict
     m = np.flatnonzero(label == "duplicate_readings")
     if m.size:
         k = rng.integers(1, 4, m.size)
-        i0 = np.maximum(last[m] - rng.integers(k, 14, m.size), 0)
+        i0 = np.maximum(last[m] - rng.integers(k + 1, 12, m.size), 0)
         dup[m] = (col >= i0[:, None]) & (col < (i0 + k)[:, None]) & ok_h[m]
-        detail[m] = [f"{kk} bills entered twice from {days[s_h[b, i]]}" for kk, b, i in zip(k, m, i0)]
+        # half of them exact copies, half a re-issued bill: same period, quantity changed by 2-6 %
+        revised[m] = rng.random(m.size) < 0.5
+        detail[m] = [f"{kk} bills entered twice from {days[s_h[b, i]]}" + (", second copy revised" if rv else ", exact copies")
+                     for kk, b, i, rv in zip(k, m, i0, revised[m])]
     # -- overlapping periods: 1-2 bills whose start reaches 5-12 days into the previous bill,
     #    double-counting those days
     m = np.flatnonzero(label == "overlapping_periods")
     if m.size:
         k = rng.integers(1, 3, m.size)
         back = rng.integers(5, 13, m.size)
-        i0 = np.maximum(last[m] - rng.integers(k + 1, 14, m.size), 1)
+        i0 = np.maximum(last[m] - rng.integers(k + 1, 12, m.size), 1)
         sel = (col >= i0[:, None]) & (col < (i0 + k)[:, None])
         prev_q = np.roll(q_h[m], 1, axis=1)
         prev_len = np.roll(e_h[m] - s_h[m] + 1, 1, axis=1)
@@ -823,7 +828,7 @@ def _bill(rng, B, days, n_out, annual, label, heat_kbtu, elec_kwh) -> tuple[dict
     m = np.flatnonzero(label == "estimated_run")
     if m.size:
         k = rng.integers(3, 6, m.size)
-        i0 = np.maximum(last[m] - k - rng.integers(1, 9, m.size), 0)
+        i0 = np.maximum(last[m] - k - rng.integers(1, 12 - k, m.size), 0)
         sel = (col >= i0[:, None]) & (col < (i0 + k)[:, None])
         est_run[m] = sel
         qm = q_h[m]
@@ -847,7 +852,7 @@ def _bill(rng, B, days, n_out, annual, label, heat_kbtu, elec_kwh) -> tuple[dict
         what = np.array([_UE_WHOLE[x][0] for x in uu], dtype=object)
         single_fac = np.where(rng.random(m.size) < 0.5, 10.0, 100.0)
         fac = np.where(kind == "single_reading", single_fac, fac)
-        i0 = np.maximum(last[m] - rng.integers(2, 12, m.size), 0)
+        i0 = np.maximum(last[m] - rng.integers(2, 11, m.size), 0)
         sel = np.where((kind == "whole_history")[:, None], True,
                        np.where((kind == "from_date")[:, None], col >= i0[:, None], col == i0[:, None]))
         q_h[m] = np.where(sel, q_h[m] * fac[:, None], q_h[m])
@@ -872,19 +877,27 @@ def _bill(rng, B, days, n_out, annual, label, heat_kbtu, elec_kwh) -> tuple[dict
     price_e = 0.11 + 0.08 * rng.random(n)
     cost_e = q_e * price_e[:, None] + fixed[:, None] * 0.6 * n_bills[:, None]
 
+    dec = np.array([UNIT_DECIMALS[x] for x in B["unit"]])
+    qh_round = _round_by(q_h, dec[:, None])
     rows_h = keep_h
     reps = np.where(dup, 2, 1)[rows_h]
     bi = np.broadcast_to(np.arange(n)[:, None], (n, n_p))
-    dec = np.array([UNIT_DECIMALS[x] for x in B["unit"]])
-    qh_round = _round_by(q_h, dec[:, None])
+    q_rep = np.repeat(qh_round[rows_h], reps)
+    cost_rep = np.repeat(np.where(cost_on[:, None], np.round(cost_h, 2), np.nan)[rows_h], reps)
+    second = (np.cumsum(reps) - 1)[reps == 2]            # positions of the second copies
+    b_rep = np.repeat(bi[rows_h], reps)
+    rev = second[revised[b_rep[second]]]
+    bump = 1.0 + np.where(rng.random(rev.size) < 0.5, -1, 1) * (0.02 + 0.04 * rng.random(rev.size))
+    q_rep[rev] = _round_by(q_rep[rev] * bump, dec[b_rep[rev]])
+    cost_rep[rev] = np.round(cost_rep[rev] * bump, 2)
     heat = {
-        "b": np.repeat(bi[rows_h], reps),
+        "b": b_rep,
         "fuel": np.repeat(np.broadcast_to(fuel[:, None], (n, n_p))[rows_h], reps),
         "s": np.repeat(s_h[rows_h], reps), "e": np.repeat(e_h[rows_h], reps),
-        "q": np.repeat(qh_round[rows_h], reps),
+        "q": q_rep,
         "unit": np.repeat(np.broadcast_to(B["unit"][:, None], (n, n_p))[rows_h], reps),
         "est": np.repeat(estimated[rows_h], reps),
-        "cost": np.repeat(np.where(cost_on[:, None], np.round(cost_h, 2), np.nan)[rows_h], reps),
+        "cost": cost_rep,
     }
     rows_e = ok_e & B["has_elec_meter"][:, None]
     elec = {
@@ -988,3 +1001,56 @@ def write_portfolio(frames: dict[str, pl.DataFrame], out_dir) -> dict[str, Path]
         frames[name].write_csv(p)
         paths[name] = p
     return paths
+
+
+def add_reject_rows(frames: dict[str, pl.DataFrame]) -> tuple[dict[str, pl.DataFrame], list[dict]]:
+    """Append a few deliberately invalid rows that a loader must reject (and nothing else).
+
+    Planted (ids refer to the first buildings of the frame):
+
+    * readings: a negative quantity; an unknown unit ("bbl"); natural gas in gallons; a reading for
+      a building that does not exist ("ZZ-404"); a period that ends before it starts;
+    * buildings: one extra building ("B-BAD-AREA") with a floor area of 0 and no readings.
+
+    Each planted row is invalid for the one reason listed; dropping the planted rows leaves the
+    portfolio exactly as simulated (the truth frame does not list them).
+
+    Returns
+    -------
+    (frames, planted) : new frames (inputs are not modified) and one dict per planted row with
+    ``file``, ``building_id``, ``column``, ``value`` and ``reason``.
+    """
+    b = frames["buildings"]
+    r = frames["readings"]
+    ids = b["building_id"].to_list()
+    if len(ids) < 3:
+        raise ValueError(f"add_reject_rows needs at least 3 buildings, got {len(ids)}")
+    gas = b.filter(pl.col("heating_fuel") == "natural_gas")["building_id"].to_list()
+    gas_id = gas[0] if gas else ids[2]
+    last = r["period_end"].max()
+    p0 = last - timedelta(days=29)
+    rows = [
+        (ids[0], "electricity", p0, last, -412.0, "kWh", "quantity", "-412", "negative quantity"),
+        (ids[1], "electricity", p0, last, 380.0, "bbl", "unit", "bbl", "unknown unit"),
+        (gas_id, "natural_gas", p0, last, 95.0, "gal", "unit", "gal", "gallons are not a natural gas unit"),
+        ("ZZ-404", "natural_gas", p0, last, 1200.0, "therm", "building_id", "ZZ-404", "unknown building"),
+        (ids[2], "electricity", last, p0, 510.0, "kWh", "period_end", str(p0), "period ends before it starts"),
+    ]
+    bad = pl.DataFrame({
+        "building_id": [x[0] for x in rows], "fuel": [x[1] for x in rows],
+        "period_start": [x[2] for x in rows], "period_end": [x[3] for x in rows],
+        "quantity": [x[4] for x in rows], "unit": [x[5] for x in rows],
+        "estimated": [False] * len(rows), "cost": [None] * len(rows),
+    }, schema=r.schema)
+    planted = [{"file": "readings.csv", "building_id": x[0], "column": x[6], "value": x[7], "reason": x[8]}
+               for x in rows]
+    first = b.row(0, named=True)
+    bad_b = pl.DataFrame([{**first, "building_id": "B-BAD-AREA", "name": "Unsized Annex 1", "floor_area": 0.0,
+                           "ua_total": None, "balance_point": None, "heating_efficiency": None}],
+                         schema=b.schema)
+    planted.append({"file": "buildings.csv", "building_id": "B-BAD-AREA", "column": "floor_area", "value": "0",
+                    "reason": "floor area must be > 0"})
+    out = dict(frames)
+    out["readings"] = pl.concat([r, bad])
+    out["buildings"] = pl.concat([b, bad_b])
+    return out, planted
