@@ -459,7 +459,8 @@ def _resolved_defaults() -> dict[str, tuple[np.ndarray, np.ndarray, tuple[str, .
 
 def _first_bad(values: np.ndarray, mask: np.ndarray, ids=None) -> str:
     i = int(np.flatnonzero(np.ravel(mask))[0])
-    v = np.ravel(values)[i] if np.ndim(values) else values
+    v = np.ravel(values)[i]
+    v = v.item() if isinstance(v, np.generic) else v
     n = int(np.count_nonzero(mask))
     where = f" for building {ids[i]!r}" if ids is not None else ""
     more = f" ({n - 1} more)" if n > 1 else ""
