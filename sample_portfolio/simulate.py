@@ -589,8 +589,8 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
             oa = np.where(mk == "open_dampers", B["ua_oa"][w] * 2.5 + B["ua_env"][w] * 0.8, B["ua_oa"][w])
             qf, _ = _space_heat_chunk(w, B, W, off_days, sp_o, sp_u, oa, lockout=mk != "failed_controls")
             q0 = q[sub]
-            s0 = q0.sum(axis=1)
-            s1 = qf.sum(axis=1)
+            s0 = q0[:, :n_out].sum(axis=1)  # calibrated over the emitted days
+            s1 = qf[:, :n_out].sum(axis=1)
             k = (waste_factor[w] - 1.0) * s0 / np.maximum(s1 - s0, 1e-9 * s0 + 1.0)
             q[sub] = q0 + k[:, None] * (qf - q0)
         space_kbtu_del[idx] = q / 1000.0
@@ -798,7 +798,7 @@ def _bill(rng, B, days, n_out, annual, label, heat_kbtu, elec_kwh) -> tuple[dict
         keep_h[m] &= ~drop
         gone_s = days[s_h[m, np.maximum(i0, 0)]]
         gone_e = days[e_h[m, np.clip(i0 + k - 1, 0, n_p - 1)]]
-        detail[m] = [f"{kk} bills missing {a}..{b}" for kk, a, b in zip(k, gone_s, gone_e)]
+        detail[m] = [f"{kk} bill(s) missing {a}..{b}" for kk, a, b in zip(k, gone_s, gone_e)]
     # -- duplicate readings: 1-3 bills repeated exactly
     m = np.flatnonzero(label == "duplicate_readings")
     if m.size:
@@ -807,7 +807,7 @@ def _bill(rng, B, days, n_out, annual, label, heat_kbtu, elec_kwh) -> tuple[dict
         dup[m] = (col >= i0[:, None]) & (col < (i0 + k)[:, None]) & ok_h[m]
         # half of them exact copies, half a re-issued bill: same period, quantity changed by 2-6 %
         revised[m] = rng.random(m.size) < 0.5
-        detail[m] = [f"{kk} bills entered twice from {days[s_h[b, i]]}" + (", second copy revised" if rv else ", exact copies")
+        detail[m] = [f"{kk} bill(s) entered twice from {days[s_h[b, i]]}" + (", second copy revised" if rv else ", exact copies")
                      for kk, b, i, rv in zip(k, m, i0, revised[m])]
     # -- overlapping periods: 1-2 bills whose start reaches 5-12 days into the previous bill,
     #    double-counting those days
@@ -840,13 +840,14 @@ def _bill(rng, B, days, n_out, annual, label, heat_kbtu, elec_kwh) -> tuple[dict
         cidx = np.minimum(i0 + k, n_p - 1)
         qm[np.arange(m.size), cidx] = np.maximum(qm[np.arange(m.size), cidx] + short, 0.05 * base * 30)
         q_h[m] = qm
-        detail[m] = [f"{kk} estimated bills from {days[s_h[b, i]]}, catch-up read after"
+        detail[m] = [f"{kk} estimated bill(s) from {days[s_h[b, i]]}, catch-up read after"
                      for kk, b, i in zip(k, m, i0)]
     # -- unit errors: whole history, from a date on, or a single bill
     q_before_ue = q_h.copy()
     m = np.flatnonzero(label == "unit_error")
     if m.size:
-        kind = _choice(rng, ("whole_history", "from_date", "single_reading"), (1, 1, 1), m.size)
+        kinds = np.array(["whole_history", "from_date", "single_reading"], dtype=object)
+        kind = kinds[(np.arange(m.size) + rng.integers(0, 3)) % 3]  # the three kinds in turn
         uu = B["unit"][m]
         fac = np.array([_UE_WHOLE[x][1] for x in uu])
         what = np.array([_UE_WHOLE[x][0] for x in uu], dtype=object)
