@@ -101,6 +101,9 @@ def test_air_constants_by_hand_and_pint():
     assert si == pytest.approx(0.3353, abs=5e-5)
     # the SI constant kept in the data file (0.335) is within 0.1 % of it (issue 4 SI tolerance)
     assert ev.constants()["si_air_wh_m3k"] == pytest.approx(si, rel=1e-3)
+    # its airflow equivalent: 1.08 Btu/(h F) per cfm in W/K per L/s (pint), also within 0.1 %
+    per_l_s = (Q_(k, "Btu_it/hour/delta_degF") / Q_(1.0, "ft**3/minute").to("L/s").magnitude).to("W/K").magnitude
+    assert ev.constants()["si_air_w_k_per_l_s"] == pytest.approx(per_l_s, rel=1e-3)
 
 
 def test_infiltration_and_ventilation_by_hand():
@@ -420,9 +423,10 @@ def test_same_building_in_si_and_ip(tmy_daily_c):
     win = si["wwr"] * wall
     vol = si["area_m2"] * h_m
     air = 0.335  # Wh/(m3 K), issue 4 / factors.md s.3
+    air_flow = 1.206  # W/K per L/s = 0.335 x 3.6 (computed)
     h_tot = (si["wall_u"] * (wall - win) + si["window_u"] * win + si["roof_u"] * fp + f_si * per
              + air * si["ach"] * vol
-             + air * 3.6 * si["oa_l_s_m2"] * si["area_m2"] * (1 - si["recovery"]) * e["occupied_fraction"])
+             + air_flow * si["oa_l_s_m2"] * si["area_m2"] * (1 - si["recovery"]) * e["occupied_fraction"])
     gains_w = si["gains_w_m2"] * si["area_m2"] + solar_si * win
     t_eff = si["setpoint_c"] - si["setback_k"] * si["setback_h"] / 24 * e["setback_realization"]
     t_bal = t_eff - gains_w / h_tot
