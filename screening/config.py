@@ -221,3 +221,21 @@ def config_hash(cfg: dict) -> str:
     relevant = {k: v for k, v in cfg.items() if k not in ("inputs", "store", "output")}
     relevant["output"] = {"paper": cfg["output"]["paper"]}
     return hashlib.sha256(json.dumps(relevant, sort_keys=True, default=str).encode()).hexdigest()[:16]
+
+
+def template_comments() -> dict[tuple[str, str], str]:
+    """The comment beside each key of DEFAULTS in this file (used by ``ddscreen init``)."""
+    import re
+    out: dict[tuple[str, str], str] = {}
+    section = None
+    src = Path(__file__).read_text(encoding="utf-8")
+    body = src[src.index("DEFAULTS"):src.index("UNITS = (")]
+    for line in body.splitlines():
+        m = re.match(r'^    "(\w+)": \{', line)
+        if m:
+            section = m.group(1)
+            continue
+        m = re.match(r'^        "(\w+)":.*?#\s*(.*)$', line)
+        if m and section:
+            out[(section, m.group(1))] = m.group(2).strip()
+    return out

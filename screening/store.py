@@ -81,23 +81,30 @@ class Store:
             if name.startswith("create_"):
                 self.con.execute(sql)
 
-    def execute(self, name: str, params: dict | None = None, **frames: pl.DataFrame):
-        """Run the named statement with bound ``params``; ``frames`` are registered first."""
+    def execute(self, name: str, params: dict | None = None, **frames: pl.DataFrame) -> list[tuple]:
+        """Run the named statement with bound ``params`` and return all its rows.
+
+        ``frames`` are registered under their keyword names for the statement's duration.
+        """
         sql = statements()[name]
         for rel, df in frames.items():
             self.con.register(rel, df)
         try:
-            return self.con.execute(sql, params or {})
+            cur = self.con.execute(sql, params or {})
+            try:
+                return cur.fetchall()
+            except duckdb.InvalidInputException:  # statements without a result set
+                return []
         finally:
             for rel in frames:
                 self.con.unregister(rel)
 
     def frame(self, name: str, params: dict | None = None) -> pl.DataFrame:
         """The named query's result as a polars frame."""
-        return self.execute(name, params).pl()
+        return self.con.sql(statements()[name], params=params or None).pl()
 
     def rows(self, name: str, params: dict | None = None) -> list[tuple]:
-        return self.execute(name, params).fetchall()
+        return self.execute(name, params)
 
     @contextmanager
     def transaction(self):

@@ -1,0 +1,280 @@
+"""The ``ddscreen`` command line: parse options, call one library function, map errors to exit codes.
+
+Exit codes: 0 ok · 1 run failed · 2 bad input or configuration · 3 another run holds the lock.
+Data issues in some buildings do not change the exit code (they are results, listed in the outputs).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import logging
+import os
+import sys
+import tempfile
+import traceback
+from pathlib import Path
+from typing import Annotated, Optional
+
+import typer
+
+from . import __version__
+from .errors import EXIT_BAD_INPUT, EXIT_RUN_FAILED, ScreeningError
+
+app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_enable=False,
+                  help="Screen a portfolio of buildings for excess heating use (degree-day method).")
+log = logging.getLogger("ddscreen")
+
+
+def _version(value: bool):
+    if value:
+        typer.echo(f"ddscreen {__version__}")
+        raise typer.Exit()
+
+
+@app.callback()
+def _main(version: Annotated[Optional[bool], typer.Option("--version", callback=_version, is_eager=True,
+                                                          help="Print the version and exit.")] = None):
+    """Screen a portfolio of buildings for excess heating use (degree-day method)."""
+
+
+def _log_to_stderr(quiet: bool, verbose: bool) -> None:
+    level = logging.ERROR if quiet else (logging.DEBUG if verbose else logging.INFO)
+    log.setLevel(logging.DEBUG)
+    for h in list(log.handlers):
+        if getattr(h, "_ddscreen_stderr", False):
+            log.removeHandler(h)
+    h = logging.StreamHandler(sys.stderr)
+    h.setLevel(level)
+    h.setFormatter(logging.Formatter("ddscreen: %(message)s"))
+    h._ddscreen_stderr = True
+    log.addHandler(h)
+
+
+def _fail(exc: BaseException) -> None:
+    """Map an exception to one line on stderr and an exit code (no traceback for users)."""
+    if isinstance(exc, ScreeningError):
+        typer.echo(f"ddscreen: error: {exc}", err=True)
+        raise typer.Exit(exc.exit_code)
+    path = Path(tempfile.gettempdir()) / f"ddscreen-crash-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{os.getpid()}.log"
+    try:
+        path.write_text("".join(traceback.format_exception(exc)), encoding="utf-8")
+        where = f"; details in {path}"
+    except OSError:
+        where = ""
+    typer.echo(f"ddscreen: internal error: {type(exc).__name__}: {str(exc)[:200]}{where}", err=True)
+    raise typer.Exit(EXIT_RUN_FAILED)
+
+
+def _print_summary(res) -> None:
+    c = res.summary["counts"]
+    typer.echo(f"Screened {c['buildings']} buildings ({res.summary['window'][0]} to {res.summary['window'][1]}): "
+               f"{c['needs_review']} need review, {c['blocked_by_data']} need data fixed first, "
+               f"{c['with_data_issues']} with data issues, {c['rejected_rows']} input rows rejected.")
+    tiers = ", ".join(f"{k} {v}" for k, v in c["per_tier"].items())
+    typer.echo(f"Tiers: {tiers}")
+    if res.top:
+        typer.echo("Top buildings to review:")
+        cur = res.summary.get("totals", {})
+        for t in res.top:
+            cost = "" if t["excess_cost"] is None else f", excess about {t['excess_cost']:,.0f} $/yr"
+            typer.echo(f"  {t['rank']:>4}. {t['building_id']}  {t['name'][:40]}  ({t['tier']}, "
+                       f"{t['ratio']:.2f}× expected{cost})")
+        _ = cur
+    else:
+        typer.echo("No building meets the review criteria.")
+    typer.echo(f"Outputs: {res.out_dir}  (database {res.db_path})")
+
+
+@app.command()
+def run(
+    buildings: Annotated[Optional[str], typer.Option(help="buildings CSV (or glob)")] = None,
+    readings: Annotated[Optional[str], typer.Option(help="readings CSV (or glob)")] = None,
+    weather: Annotated[Optional[str], typer.Option(help="daily weather CSV (or glob)")] = None,
+    out: Annotated[Optional[str], typer.Option(help="output folder (default: [output] root/<quarter>)")] = None,
+    db: Annotated[Optional[str], typer.Option(help="DuckDB file (default screening.duckdb)")] = None,
+    as_of: Annotated[Optional[str], typer.Option("--as-of", help="YYYY-MM-DD; default today")] = None,
+    date_from: Annotated[Optional[str], typer.Option("--from", help="window start YYYY-MM-DD")] = None,
+    date_to: Annotated[Optional[str], typer.Option("--to", help="window end YYYY-MM-DD (inclusive)")] = None,
+    units: Annotated[Optional[str], typer.Option(help="IP or SI (units of inputs and outputs)")] = None,
+    config: Annotated[Optional[str], typer.Option(help="TOML config file")] = None,
+    force: Annotated[bool, typer.Option(help="reload every input and replace an existing quarter")] = False,
+    no_sheets: Annotated[bool, typer.Option("--no-sheets", help="skip the per-building PDF sheets")] = False,
+    quiet: Annotated[bool, typer.Option(help="errors only (for cron)")] = False,
+    verbose: Annotated[bool, typer.Option(help="more detail on stderr")] = False,
+):
+    """Load the files, screen the portfolio and write ranking.csv, ranking.pdf, sheets/ and summary.json."""
+    from . import runner
+    _log_to_stderr(quiet, verbose)
+    overrides = {"inputs": {"buildings": buildings, "readings": readings, "weather": weather},
+                 "store": {"database": db},
+                 "analysis": {"as_of": as_of, "window_from": date_from, "window_to": date_to,
+                              "units": units.upper() if units else None},
+                 "output": {"sheets": False if no_sheets else None}}
+    if out is None and config is None:
+        out = "ddscreen-out"
+    try:
+        res = runner.run(config_path=config, overrides=overrides, out_dir=out, force=force, quiet=quiet)
+    except Exception as exc:  # noqa: BLE001 - mapped to exit codes
+        _fail(exc)
+    if not quiet:
+        _print_summary(res)
+
+
+@app.command()
+def demo(
+    out: Annotated[str, typer.Option(help="output folder")] = "ddscreen-demo",
+    no_sheets: Annotated[bool, typer.Option("--no-sheets", help="skip the per-building PDF sheets")] = False,
+    quiet: Annotated[bool, typer.Option(help="errors only")] = False,
+):
+    """Screen the packaged sample portfolio (an invented scenario) into OUT."""
+    from . import runner
+    _log_to_stderr(quiet, False)
+    try:
+        res = runner.demo(out, sheets=not no_sheets)
+    except Exception as exc:  # noqa: BLE001
+        _fail(exc)
+    if not quiet:
+        _print_summary(res)
+
+
+@app.command()
+def validate(
+    buildings: Annotated[str, typer.Option(help="buildings CSV")],
+    readings: Annotated[str, typer.Option(help="readings CSV")],
+    weather: Annotated[str, typer.Option(help="daily weather CSV")],
+    units: Annotated[Optional[str], typer.Option(help="IP or SI")] = None,
+    config: Annotated[Optional[str], typer.Option(help="TOML config file")] = None,
+):
+    """Check the three files and print every problem; load nothing. Exit 0 when clean, 2 otherwise."""
+    from . import runner
+    try:
+        v = runner.validate(buildings, readings, weather, config_path=config,
+                            overrides={"analysis": {"units": units.upper() if units else None}})
+    except Exception as exc:  # noqa: BLE001
+        _fail(exc)
+    for n in v.notices:
+        typer.echo(f"notice: {n}")
+    for p in v.problems:
+        typer.echo(p)
+    counts = ", ".join(f"{k} {n} rows accepted" for k, n in v.rows.items())
+    typer.echo(f"{len(v.problems)} problem(s); {counts}")
+    raise typer.Exit(0 if v.ok else EXIT_BAD_INPUT)
+
+
+@app.command("degree-days")
+def degree_days(
+    weather: Annotated[str, typer.Option(help="daily weather CSV (station_id, date, t_min/t_max or t_mean)")],
+    station: Annotated[str, typer.Option(help="station id")],
+    base: Annotated[float, typer.Option(help="base temperature (°F for IP, °C for SI)")] = 65.0,
+    kind: Annotated[str, typer.Option(help="hdd, cdd or both")] = "both",
+    method: Annotated[str, typer.Option(help="mean, maxmin, hourly or monthly-estimate")] = "mean",
+    by: Annotated[str, typer.Option(help="day, month, year or period")] = "month",
+    periods: Annotated[Optional[str], typer.Option(help="CSV of periods (start, end) for --by period")] = None,
+    hourly: Annotated[Optional[str], typer.Option(help="hourly CSV (station_id, timestamp, temperature) for --method hourly")] = None,
+    date_from: Annotated[Optional[str], typer.Option("--from", help="first day YYYY-MM-DD")] = None,
+    date_to: Annotated[Optional[str], typer.Option("--to", help="last day YYYY-MM-DD (inclusive)")] = None,
+    normal: Annotated[bool, typer.Option(help="normal-year values from the complete years")] = False,
+    units: Annotated[str, typer.Option(help="IP or SI")] = "IP",
+    fmt: Annotated[str, typer.Option("--format", help="csv or table")] = "csv",
+):
+    """Degree days of one station, to stdout."""
+    from . import ddtool
+    try:
+        if fmt not in ("csv", "table"):
+            raise typer.BadParameter("expected csv or table", param_hint="--format")
+        df = ddtool.degree_days_report(weather, station, base=base, kind=kind, method=method, by=by,
+                                       periods_path=periods, date_from=date_from, date_to=date_to, normal=normal,
+                                       units=units.upper(), hourly_path=hourly)
+    except typer.BadParameter:
+        raise
+    except ValueError as exc:
+        typer.echo(f"ddscreen: error: {exc}", err=True)
+        raise typer.Exit(EXIT_BAD_INPUT)
+    except Exception as exc:  # noqa: BLE001
+        _fail(exc)
+    if fmt == "csv":
+        sys.stdout.write(df.write_csv())
+    else:
+        import polars as pl
+        with pl.Config(tbl_rows=-1, tbl_cols=-1, tbl_hide_dataframe_shape=True, tbl_hide_column_data_types=True):
+            typer.echo(str(df))
+
+
+@app.command()
+def init(
+    path: Annotated[str, typer.Argument(help="where to write the config")] = "screening.toml",
+    force: Annotated[bool, typer.Option(help="overwrite an existing file")] = False,
+):
+    """Write a commented configuration template."""
+    from . import runner
+    try:
+        p = runner.init_config(path, overwrite=force)
+    except Exception as exc:  # noqa: BLE001
+        _fail(exc)
+    typer.echo(f"wrote {p}")
+
+
+@app.command()
+def status(
+    db: Annotated[str, typer.Option(help="DuckDB file")] = "screening.duckdb",
+    config: Annotated[Optional[str], typer.Option(help="TOML config file (for its database path)")] = None,
+    limit: Annotated[int, typer.Option(help="how many runs")] = 10,
+):
+    """The last runs: status, window and where their outputs are."""
+    from . import config as cfgmod, runner
+    try:
+        if config:
+            db = cfgmod.load(config)["store"]["database"]
+        runs = runner.status(db, limit)
+    except Exception as exc:  # noqa: BLE001
+        _fail(exc)
+    if runs.height == 0:
+        typer.echo("no runs recorded yet")
+        return
+    for r in runs.iter_rows(named=True):
+        typer.echo(f"{r['run_id']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}  "
+                   f"started {r['started_at']:%Y-%m-%d %H:%M}  {r['out_dir'] or '-'}")
+
+
+@app.command()
+def history(
+    db: Annotated[str, typer.Option(help="DuckDB file")] = "screening.duckdb",
+    older: Annotated[Optional[str], typer.Option(help="run id of the older run")] = None,
+    newer: Annotated[Optional[str], typer.Option(help="run id of the newer run")] = None,
+):
+    """List the runs and show what changed between two of them (default: the last two successful)."""
+    from . import runner
+    try:
+        runs, diff = runner.history(db, older, newer)
+    except Exception as exc:  # noqa: BLE001
+        _fail(exc)
+    for r in runs.iter_rows(named=True):
+        typer.echo(f"{r['run_id']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}")
+    if diff is None:
+        typer.echo("fewer than two successful runs: nothing to compare")
+        return
+    changed = diff.filter(pl_changed(diff))
+    typer.echo(f"{changed.height} building(s) changed rank or flags:")
+    for r in changed.iter_rows(named=True):
+        typer.echo(f"  {r['building_id']}: {r['change']}")
+
+
+def pl_changed(diff):
+    import polars as pl
+    return (pl.col("change") != "same rank")
+
+
+def main() -> None:
+    try:
+        app()
+    except SystemExit:
+        raise
+    except BaseException as exc:  # noqa: BLE001 - last line of defence: no traceback for users
+        try:
+            _fail(exc)
+        except typer.Exit as e:
+            sys.exit(e.exit_code)
+
+
+if __name__ == "__main__":
+    main()

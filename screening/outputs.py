@@ -1,0 +1,271 @@
+"""Turn screening results into the output files: ranking.csv, summary.json, rejects.csv,
+sheets/<id>.pdf and ranking.pdf, in display units (kBtu/ft²/°F for IP, kWh/m²/°C for SI).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import polars as pl
+
+from . import screen
+from .ingest import REJECT_SCHEMA
+
+KBTU_TO_KWH = 0.29307107017222      # NIST SP 811: 1 Btu_IT = 1055.05585262 J; 1 kWh = 3.6e6 J
+FT2_TO_M2 = 0.09290304              # exact
+BTU_H_F_TO_W_K = 0.52752792631      # NIST SP 811: 1 Btu_IT/h = 0.29307107 W; × 1.8
+INTENSITY_IP_TO_SI = 5.678263341    # Btu/(ft²·°F·day) → Wh/(m²·K·day) (factors.md §8; pint check in tests)
+
+CAUTIONS = [
+    "Screening estimate for information only: not an energy audit, a design, or a code-compliance determination.",
+    "Follow local codes and the legal minimum indoor temperatures when changing setpoints or schedules.",
+    "Combustion-safety testing is required before and after any air sealing.",
+    "Defer decisions to licensed professional engineers or certified energy auditors.",
+]
+
+
+class Display:
+    """Display units of a run: conversion from the canonical IP values."""
+
+    def __init__(self, units: str):
+        self.si = units == "SI"
+        self.energy_unit = "kWh" if self.si else "kBtu"
+        self.area_unit = "m²" if self.si else "ft²"
+        self.temp_unit = "°C" if self.si else "°F"
+        self.dd_unit = "°C·day" if self.si else "°F·day"
+        self.intensity_unit = "Wh/m²·K·day" if self.si else "Btu/ft²·°F·day"
+        self.ua_unit = "W/K" if self.si else "Btu/h·°F"
+
+    def energy(self, e: pl.Expr) -> pl.Expr:
+        return e * KBTU_TO_KWH if self.si else e
+
+    def area(self, e: pl.Expr) -> pl.Expr:
+        return e * FT2_TO_M2 if self.si else e
+
+    def temp(self, e: pl.Expr) -> pl.Expr:
+        return (e - 32.0) / 1.8 if self.si else e
+
+    def dd(self, e: pl.Expr) -> pl.Expr:
+        return e / 1.8 if self.si else e
+
+    def intensity(self, e: pl.Expr) -> pl.Expr:
+        return e * INTENSITY_IP_TO_SI if self.si else e
+
+    def ua(self, e: pl.Expr) -> pl.Expr:
+        return e * BTU_H_F_TO_W_K if self.si else e
+
+    def val(self, kind: str, x):
+        if x is None or (isinstance(x, float) and not math.isfinite(x)):
+            return None
+        return pl.select(getattr(self, kind)(pl.lit(float(x)))).item()
+
+
+RANKING_COLUMNS = [
+    "rank", "building_id", "name", "use_type", "floor_area", "year_built", "station_id", "heating_fuel",
+    "period_start", "period_end", "span_kind", "coverage", "hdd", "base_temperature", "hdd65",
+    "actual_heating", "expected_heating", "expected_low", "expected_high", "expected_fixed_base",
+    "expected_modified", "ratio", "band_position", "heating_intensity", "peer_group", "peer_median_intensity",
+    "peer_percentile", "z_score", "normal_heating", "baseload", "heating_slope", "fitted_base", "r2", "cv_rmse",
+    "nmbe", "n_periods", "fit_method", "effective_ua", "ua_walls", "ua_windows", "ua_roof", "ua_ground",
+    "ua_infiltration", "ua_ventilation", "ua_total", "envelope_source", "excess_energy", "excess_cost",
+    "excess_co2e", "tier", "needs_review", "flags", "data_issues", "change", "previous_rank", "energy_unit",
+]
+
+
+def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None = None) -> pl.DataFrame:
+    """The ranking.csv frame: one row per building, documented columns, display units."""
+    d = disp
+    ua_cols = ["ua_walls", "ua_windows", "ua_roof", "ua_ground", "ua_infiltration", "ua_ventilation", "ua_total"]
+    out = res.select(
+        "rank", "building_id", "name", "use_type",
+        d.area(pl.col("floor_area_ft2")).round(1).alias("floor_area"),
+        "year_built", "station_id", "heating_fuel",
+        pl.col("span_start").alias("period_start"), pl.col("span_end").alias("period_end"), "span_kind",
+        pl.col("coverage").round(4),
+        d.dd(pl.col("hdd_balance")).round(1).alias("hdd"),
+        d.temp(pl.col("balance_point_f")).round(2).alias("base_temperature"),
+        d.dd(pl.col("hdd65")).round(1).alias("hdd65"),
+        *[d.energy(pl.col(f"{c}_kbtu")).round(1).alias(c) for c in
+          ("actual_heating", "expected_heating")],
+        d.energy(pl.col("expected_low_kbtu")).round(1).alias("expected_low"),
+        d.energy(pl.col("expected_high_kbtu")).round(1).alias("expected_high"),
+        d.energy(pl.col("expected_fixed_base_kbtu")).round(1).alias("expected_fixed_base"),
+        d.energy(pl.col("expected_modified_kbtu")).round(1).alias("expected_modified"),
+        pl.col("ratio").round(4), "band_position",
+        d.intensity(pl.col("heating_intensity")).round(4).alias("heating_intensity"),
+        "peer_group", d.intensity(pl.col("peer_median_intensity")).round(4).alias("peer_median_intensity"),
+        pl.col("peer_percentile").round(1), pl.col("z_score").round(3),
+        d.energy(pl.col("normal_heating_kbtu")).round(1).alias("normal_heating"),
+        d.energy(pl.col("baseload_kbtu")).round(1).alias("baseload"),
+        (d.energy(pl.col("heating_slope_kbtu_per_dd")) * (1.8 if d.si else 1.0)).round(4).alias("heating_slope"),
+        d.temp(pl.col("fitted_base_f")).round(2).alias("fitted_base"),
+        pl.col("r2").round(4), pl.col("cv_rmse").round(2), pl.col("nmbe").round(3), "n_periods", "fit_method",
+        d.ua(pl.col("effective_ua_btu_h_f")).round(1).alias("effective_ua"),
+        *[d.ua(pl.col(c)).round(1).alias(c) for c in ua_cols],
+        "envelope_source",
+        d.energy(pl.col("excess_energy_kbtu")).round(1).alias("excess_energy"),
+        pl.col("excess_cost").round(2), pl.col("excess_co2e_kg").round(1).alias("excess_co2e"),
+        "tier", "needs_review",
+        pl.col("flag_codes").list.join(";").alias("flags"),
+        pl.col("data_issue_codes").list.join(";").alias("data_issues"),
+        pl.lit(d.energy_unit).alias("energy_unit"),
+    )
+    if change is not None and change.height:
+        out = out.join(change.select("building_id", "change", "previous_rank"), on="building_id", how="left",
+                       maintain_order="left")
+    else:
+        out = out.with_columns(pl.lit("first run").alias("change"), pl.lit(None, dtype=pl.Int64).alias("previous_rank"))
+    return out.select(RANKING_COLUMNS)
+
+
+def neutralize_formulas(df: pl.DataFrame) -> pl.DataFrame:
+    """Prefix text cells that a spreadsheet would run as a formula (= + - @ tab CR) with ``'``.
+
+    The usual defence against CSV formula injection (OWASP "CSV Injection").
+    """
+    exprs = []
+    for name, dtype in df.schema.items():
+        if dtype == pl.String:
+            c = pl.col(name)
+            exprs.append(pl.when(c.str.contains(r"^[=+\-@\t\r]")).then(pl.lit("'") + c).otherwise(c).alias(name))
+    return df.with_columns(exprs) if exprs else df
+
+
+def write_csv(df: pl.DataFrame, path: Path) -> None:
+    neutralize_formulas(df).write_csv(path, null_value="", float_precision=None)
+
+
+def rejects_table(rejects: pl.DataFrame) -> pl.DataFrame:
+    return rejects.cast(REJECT_SCHEMA).unique().sort("file", "line", "column", "reason")
+
+
+def _num(x):
+    if x is None:
+        return None
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
+    return x
+
+
+def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFrame, disp: Display, *,
+                  run_id: str, run_date: str, currency: str) -> list[dict]:
+    """The dicts that the sheet template renders, one per building (see screening.report)."""
+    d = disp
+    ef = 1.8 if d.si else 1.0   # per °F → per K
+    env_rows = {r["building_id"]: r for r in envelope.select("building_id", "assumptions").iter_rows(named=True)}
+    per = {}
+    if periods.height:
+        pp = periods.filter(pl.col("usable")).with_columns(
+            (pl.col("energy_kbtu") / pl.col("days")).alias("upd"))
+        for bid, grp in pp.group_by("building_id", maintain_order=True):
+            per[bid[0]] = grp
+    peers = res.group_by("peer_group").agg(pl.col("heating_intensity").drop_nulls())
+    peer_map = {r["peer_group"]: [d.val("intensity", x) for x in r["heating_intensity"]]
+                for r in peers.iter_rows(named=True)}
+    out = []
+    for r in res.iter_rows(named=True):
+        bid = r["building_id"]
+        grp = per.get(bid)
+        bal = r["balance_point_f"]
+        periods_list, fit_line, exp_line = [], None, None
+        if grp is not None and r["fit_method"] == "regression":
+            base = r["fitted_base_f"] if r["fitted_base_f"] is not None and math.isfinite(r["fitted_base_f"]) else bal
+            periods_list = [{"start": str(p["period_start"]), "end": str(p["period_end"]), "days": p["days"],
+                             "use_per_day": d.val("energy", p["upd"]), "dd_per_day": None}
+                            for p in grp.iter_rows(named=True)]
+            if "hdd_per_day_fit" in grp.columns:
+                for item, p in zip(periods_list, grp.iter_rows(named=True)):
+                    item["dd_per_day"] = d.val("dd", p["hdd_per_day_fit"])
+            beta = r["heating_slope_kbtu_per_dd"]
+            alpha = r.get("baseload_kbtu_per_day")
+            if beta is not None and alpha is not None:
+                fit_line = {"intercept": d.val("energy", alpha), "slope": d.val("energy", beta) * ef
+                            if beta is not None else None}
+            ua, eff = r["ua_total"], r["efficiency"]
+            if ua and eff:
+                exp_line = {"intercept": d.val("energy", alpha) if alpha is not None else 0.0,
+                            "slope": d.val("energy", 24.0 * ua / eff / 1000.0) * ef}
+            _ = base
+        annual = []
+        if not periods_list:
+            annual = [{"year_label": f"{r['span_start']} – {r['span_end']}",
+                       "metered": d.val("energy", r["actual_heating_kbtu"]),
+                       "expected": d.val("energy", r["expected_heating_kbtu"])}]
+        ua_parts = [{"part": p, "value": d.val("ua", r.get(f"ua_{p}"))}
+                    for p in ("walls", "windows", "roof", "ground", "infiltration", "ventilation")]
+        assumptions = env_rows.get(bid, {}).get("assumptions") or []
+        flags = [{"code": c, "explanation": t} for c, t in zip(r["flag_codes"], r["flag_texts"])]
+        issues = [{"code": c, "explanation": t} for c, t in zip(r["data_issue_codes"], r["data_issue_texts"])]
+        slope_ratio = None
+        if r["effective_ua_btu_h_f"] and r["ua_total"]:
+            slope_ratio = r["effective_ua_btu_h_f"] / r["ua_total"]
+        out.append({
+            "building_id": bid, "name": r["name"], "address": r.get("address"), "city": r.get("city"),
+            "use_type": r["use_type"], "floor_area": d.val("area", r["floor_area_ft2"]), "area_unit": d.area_unit,
+            "year_built": r["year_built"], "station_id": r["station_id"],
+            "period_start": str(r["span_start"]), "period_end": str(r["span_end"]), "span_kind": r["span_kind"],
+            "run_date": run_date, "run_id": run_id,
+            "energy_unit": d.energy_unit, "temp_unit": d.temp_unit, "dd_unit": d.dd_unit,
+            "intensity_unit": d.intensity_unit,
+            "verdict": r["verdict"], "tier": r["tier"], "tier_rank": r["tier_rank"], "needs_review": r["needs_review"],
+            "actual_heating": d.val("energy", r["actual_heating_kbtu"]),
+            "expected_heating": d.val("energy", r["expected_heating_kbtu"]),
+            "expected_low": d.val("energy", r["expected_low_kbtu"]),
+            "expected_high": d.val("energy", r["expected_high_kbtu"]),
+            "expected_fixed_base": d.val("energy", r["expected_fixed_base_kbtu"]),
+            "expected_modified": d.val("energy", r["expected_modified_kbtu"]),
+            "ratio": _num(r["ratio"]), "band_position": r["band_position"],
+            "heating_intensity": d.val("intensity", r["heating_intensity"]),
+            "peer_median_intensity": d.val("intensity", r["peer_median_intensity"]),
+            "peer_percentile": _num(r["peer_percentile"]), "peer_group": r["peer_group"],
+            "normal_heating": d.val("energy", r["normal_heating_kbtu"]),
+            "baseload": d.val("energy", r["baseload_kbtu"]),
+            "excess_energy": d.val("energy", r["excess_energy_kbtu"]),
+            "excess_cost": _num(r["excess_cost"]), "currency": currency,
+            "excess_co2e_kg": _num(r["excess_co2e_kg"]),
+            "hdd": d.val("dd", r["hdd_balance"]), "base_temperature": d.val("temp", bal),
+            "fit": {"method": r["fit_method"], "r2": _num(r["r2"]), "cv_rmse": _num(r["cv_rmse"]),
+                    "nmbe": _num(r["nmbe"]), "n_periods": r["n_periods"],
+                    "fitted_base": d.val("temp", r["fitted_base_f"]),
+                    "slope": (d.val("energy", r["heating_slope_kbtu_per_dd"]) or 0) * ef
+                    if r["heating_slope_kbtu_per_dd"] is not None else None,
+                    "baseload_per_day": d.val("energy", r.get("baseload_kbtu_per_day"))},
+            "effective_ua": d.val("ua", r["effective_ua_btu_h_f"]), "ua_unit": d.ua_unit,
+            "ua_parts": ua_parts, "ua_total": d.val("ua", r["ua_total"]),
+            "assumptions": assumptions,
+            "periods": periods_list, "fit_line": fit_line, "expected_line": exp_line, "annual": annual,
+            "peers": peer_map.get(r["peer_group"], []),
+            "flags": flags, "data_issues": issues,
+            "next_steps": screen.next_steps(r["flag_codes"], r["data_issue_codes"], slope_vs_envelope=slope_ratio),
+            "cautions": CAUTIONS,
+        })
+    return out
+
+
+def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp: Display, *,
+                   currency: str) -> dict:
+    """The dict that ranking.pdf renders (see screening.report.render_ranking)."""
+    rows = ranking.select("rank", "building_id", "name", "use_type", "tier", "ratio", "heating_intensity",
+                          "excess_energy", "excess_cost", "flags", "data_issues", "needs_review").to_dicts()
+    issues = []
+    for r in res.filter(pl.col("data_issue_codes").list.len() > 0).sort("building_id").iter_rows(named=True):
+        for c, t in zip(r["data_issue_codes"], r["data_issue_texts"]):
+            issues.append({"building_id": r["building_id"], "name": r["name"], "code": c, "explanation": t})
+    tiers = [{"tier": name, "count": summary["counts"]["per_tier"].get(name, 0), "meaning": meaning}
+             for name, meaning in screen.TIERS]
+    return {
+        "run": {"run_id": summary["run_id"], "as_of": summary["as_of"], "window_start": summary["window"][0],
+                "window_end": summary["window"][1], "run_date": summary["run_date"],
+                "version": summary["versions"]["ddscreen"], "units": summary["units"]},
+        "counts": summary["counts"], "tiers": tiers,
+        "totals": summary["totals"], "rows": rows,
+        "ratios": [x for x in res["ratio"].to_list() if x is not None and math.isfinite(x)],
+        "data_issues": issues, "energy_unit": disp.energy_unit, "intensity_unit": disp.intensity_unit,
+        "currency": currency, "cautions": CAUTIONS,
+    }
+
+
+def write_json(obj, path: Path) -> None:
+    path.write_text(json.dumps(obj, indent=2, sort_keys=True, default=str) + "\n", encoding="utf-8")

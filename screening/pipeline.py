@@ -1,0 +1,440 @@
+"""Orchestration: load the inputs into the store, screen the portfolio, keep the results.
+
+``screen_frames`` is the whole computation on in-memory frames (no files, no database);
+``load_inputs`` puts checked files into the store; ``run`` does both and writes the
+outputs (see :mod:`screening.outputs`).
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import hashlib
+import json
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import polars as pl
+
+from . import degree_days as ddm
+from . import envelope as env
+from . import metered, refdata, screen, units
+from .errors import InputError
+from .ingest import (REJECT_SCHEMA, Loaded, ReadOptions, empty_rejects, read_buildings, read_readings)
+from .store import Store
+from .weather import read_daily_weather
+
+KINDS = ("buildings", "readings", "weather")
+KBTU_TO_KWH = 0.29307107017222  # 1 kBtu = 1055.05585262 J × 1000 / 3.6e6 J (NIST SP 811)
+
+
+# ---------------------------------------------------------------------------- loading
+
+@dataclass
+class FileLoad:
+    kind: str
+    path: str
+    sha256: str
+    status: str            # "loaded" | "unchanged"
+    rows: int
+    rejected: int
+    notices: list[str] = field(default_factory=list)
+
+
+def file_sha256(path: str | Path) -> str:
+    h = hashlib.sha256()
+    try:
+        with open(path, "rb") as f:
+            for chunk in iter(lambda: f.read(1 << 20), b""):
+                h.update(chunk)
+    except FileNotFoundError:
+        raise InputError(path, "file not found") from None
+    except IsADirectoryError:
+        raise InputError(path, "is a folder, not a file") from None
+    except OSError as exc:
+        raise InputError(path, f"cannot read file ({exc.strerror or exc})") from None
+    return h.hexdigest()
+
+
+def read_options(cfg: dict) -> ReadOptions:
+    r = cfg["reading"]
+    return ReadOptions(units=cfg["analysis"]["units"], decimal_comma=r["decimal_comma"],
+                       date_order=r["date_order"] or None, delimiter=r["delimiter"] or None,
+                       encoding=r["encoding"] or None)
+
+
+def _options_hash(opts: ReadOptions) -> str:
+    key = json.dumps([opts.units, opts.decimal_comma, opts.date_order, opts.delimiter, opts.encoding])
+    return hashlib.sha256(key.encode()).hexdigest()[:16]
+
+
+def read_file(kind: str, path: str, opts: ReadOptions) -> Loaded:
+    """Check one input file (no database): the accepted rows, the rejects, the notices."""
+    if kind == "buildings":
+        return read_buildings(path, opts)
+    if kind == "readings":
+        return read_readings(path, opts)
+    weather, rejects, notices = _read_weather(path, opts)
+    return Loaded(str(path), weather, rejects, notices)
+
+
+def _read_weather(path: str, opts: ReadOptions):
+    res = read_daily_weather(path, units=opts.units)
+    if len(res) == 3:
+        return res
+    weather, rejects = res
+    return weather, rejects, []
+
+
+def load_inputs(store: Store, files: dict[str, list[str]], opts: ReadOptions, *, force: bool = False,
+                log=None) -> list[FileLoad]:
+    """Load new or changed input files into the store, all in one transaction.
+
+    Every file is read and checked before anything is written, so a structural error
+    in any file leaves the database unchanged. A file whose content hash and reading
+    options match its last load is not read again.
+    """
+    log = log or (lambda msg: None)
+    oh = _options_hash(opts)
+    plan: list[tuple[str, str, str, Loaded | None]] = []
+    for kind in KINDS:
+        for path in files.get(kind, []):
+            digest = file_sha256(path)
+            prev = store.rows("get_input_file", {"kind": kind, "path": str(path)})
+            if prev and prev[0][0] == digest and prev[0][1] == oh and not force:
+                plan.append((kind, str(path), digest, None))
+                continue
+            log(f"reading {kind} file {path}")
+            plan.append((kind, str(path), digest, read_file(kind, str(path), opts)))
+    out: list[FileLoad] = []
+    with store.transaction():
+        for kind, path, digest, loaded in plan:
+            if loaded is None:
+                r = store.rows("get_input_file", {"kind": kind, "path": path})[0]
+                out.append(FileLoad(kind, path, digest, "unchanged", int(r[2]), int(r[3])))
+                continue
+            p = {"path": path}
+            if kind == "buildings":
+                store.execute("delete_buildings_from_file", p)
+                store.execute("upsert_buildings", p, stage_buildings=loaded.df)
+            elif kind == "readings":
+                store.execute("delete_readings_from_file", p)
+                store.execute("upsert_readings", p, stage_readings=loaded.df)
+            else:
+                store.execute("delete_weather_from_file", p)
+                store.execute("upsert_weather", p, stage_weather=loaded.df)
+            store.execute("delete_load_rejects", {"kind": kind, "path": path})
+            store.execute("insert_load_rejects", {"kind": kind, "path": path},
+                          stage_rejects=loaded.rejects.cast(REJECT_SCHEMA))
+            store.execute("record_input_file", {"path": path, "kind": kind, "sha256": digest, "options_hash": oh,
+                                                "rows_loaded": loaded.df.height,
+                                                "rows_rejected": loaded.rejects.height})
+            out.append(FileLoad(kind, path, digest, "loaded", loaded.df.height, loaded.rejects.height,
+                                loaded.notices))
+    return out
+
+
+# ---------------------------------------------------------------------------- screening
+
+@dataclass
+class Screened:
+    """Everything a run computed, before formatting."""
+
+    results: pl.DataFrame           # one row per screened building, ranked
+    rejects: pl.DataFrame           # cross-file rejects found while screening
+    issues: pl.DataFrame            # building_id, code, detail, blocking
+    periods: pl.DataFrame           # billing periods used for the charts
+    envelope: pl.DataFrame
+    window: tuple[_dt.date, _dt.date]
+    timings: dict[str, float]
+    normal_years: dict[str, list[int]]
+
+
+def base_grid(cfg: dict) -> np.ndarray:
+    a = cfg["analysis"]
+    n = int(round((a["base_max_f"] - a["base_min_f"]) / a["base_step_f"])) + 1
+    return np.round(a["base_min_f"] + a["base_step_f"] * np.arange(n), 6)
+
+
+def _cross_check(b: pl.DataFrame, r: pl.DataFrame, stations: list[str], paths: dict) -> tuple:
+    st = pl.Series(stations, dtype=pl.String).implode()
+    bad_b = b.filter(~pl.col("station_id").is_in(st))
+    rej = [bad_b.select(pl.lit(paths.get("buildings", "buildings")).alias("file"), pl.col("_line").alias("line"),
+                        pl.lit("station_id").alias("column"), pl.col("station_id").alias("value"),
+                        pl.lit("unknown station (not in the weather data)").alias("reason"))]
+    b = b.filter(pl.col("station_id").is_in(st))
+    ids = b["building_id"].implode()
+    bad_r = r.filter(~pl.col("building_id").is_in(ids))
+    rej.append(bad_r.select(pl.lit(paths.get("readings", "readings")).alias("file"), pl.col("_line").alias("line"),
+                            pl.lit("building_id").alias("column"), pl.col("building_id").alias("value"),
+                            pl.lit("unknown building (not among the accepted buildings)").alias("reason")))
+    r = r.filter(pl.col("building_id").is_in(ids))
+    return b, r, pl.concat([x.cast(REJECT_SCHEMA) for x in rej])
+
+
+def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float) -> pl.DataFrame:
+    """Readings that differ from the same calendar month of other years by ≥ ``factor``.
+
+    A factor of about 10, 100 or 1000 between years of one meter is the mark of a
+    unit or entry error (therm vs ccf ×1.036 is too small to see; kBtu vs MMBtu is 1000).
+    """
+    heat = conv.join(b.select("building_id", "heating_fuel"), on="building_id").filter(
+        (pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
+    if heat.height == 0:
+        return pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
+                                    "blocking": pl.Boolean})
+    mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
+    heat = heat.with_columns((pl.col("energy_kbtu") / pl.col("days")).alias("_upd"), mid.dt.month().alias("_m"))
+    heat = heat.with_columns(pl.col("_upd").median().over("building_id", "meter_id", "_m").alias("_med"),
+                             pl.col("_upd").count().over("building_id", "meter_id", "_m").alias("_n"))
+    odd = heat.filter((pl.col("_n") >= 2) & (pl.col("_med") > 0) & (pl.col("_upd") > 0)
+                      & (((pl.col("_upd") / pl.col("_med")) >= factor) | ((pl.col("_med") / pl.col("_upd")) >= factor)))
+    # with two readings the median sits between them: flag both by ratio to each other
+    grp = heat.filter(pl.col("_upd") > 0).group_by("building_id", "meter_id", "_m").agg(
+        (pl.col("_upd").max() / pl.col("_upd").min()).alias("_spread"))
+    grp = grp.filter(pl.col("_spread") >= factor)
+    odd2 = heat.join(grp, on=["building_id", "meter_id", "_m"]).filter(pl.col("_n") == 2)
+    odd = pl.concat([odd.select("building_id", "period_start", "period_end", "_upd", "_med"),
+                     odd2.select("building_id", "period_start", "period_end", "_upd", "_med")]).unique()
+    if odd.height == 0:
+        return pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
+                                    "blocking": pl.Boolean})
+    odd = odd.sort("building_id", "period_start").with_columns(
+        (pl.col("period_start").cast(pl.String) + pl.lit("–") + pl.col("period_end").cast(pl.String)
+         + pl.lit(" (") + (pl.col("_upd") / pl.col("_med")).round(2).cast(pl.String) + pl.lit("× the same month's median)"))
+        .alias("_d"))
+    return odd.group_by("building_id").agg(pl.col("_d").str.join("; ").alias("detail")).select(
+        "building_id", pl.lit("likely_unit_error").alias("code"),
+        (pl.lit("reading(s) about 10×, 100× or 1000× off the building's own history: ") + pl.col("detail"))
+        .alias("detail"), pl.lit(True).alias("blocking")).sort("building_id")
+
+
+def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.DataFrame, cfg: dict, *,
+                  window: tuple[_dt.date, _dt.date], paths: dict | None = None,
+                  previous: pl.DataFrame | None = None) -> Screened:
+    """Screen a portfolio held in memory (canonical IP frames, see DEVELOPERS.md).
+
+    ``previous`` is an earlier run's results (``building_id, normal_heating_kbtu``) for
+    the year-over-year comparison.
+    """
+    paths = paths or {}
+    a = cfg["analysis"]
+    t0 = time.perf_counter()
+    timings: dict[str, float] = {}
+
+    def lap(name: str) -> None:
+        nonlocal t0
+        now = time.perf_counter()
+        timings[name] = round(now - t0, 4)
+        t0 = now
+
+    grid = base_grid(cfg)
+    stations = sorted(weather["station_id"].unique().to_list())
+    b, r, rejects = _cross_check(buildings, readings, stations, paths)
+    b = b.sort("building_id")
+    if b.height == 0:
+        raise InputError(paths.get("buildings", "buildings"), "no building could be screened",
+                         expected="at least one accepted building with a known weather station")
+    ws, we = window
+
+    # weather: short gaps filled, long ones reported; the degree-day cube for every base
+    filled, gaps = ddm.fill_short_gaps(weather)
+    cube = ddm.DegreeDayCube.from_daily(filled, grid, method=a["degree_day_method"])
+    years = range(a["normal_years"][0], a["normal_years"][1] + 1) if a["normal_years"] else None
+    normals = ddm.normal_year(cube, grid, years=years)
+    lap("degree_days")
+
+    # metered side
+    conv, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=a["gas_btu_per_ft3"],
+                                          steam_btu_per_lb=a["steam_btu_per_lb"])
+    if conv_rej.height:
+        rejects = pl.concat([rejects, conv_rej.select(pl.lit(paths.get("readings", "readings")).alias("file"),
+                                                      "line", "column", pl.col("value").cast(pl.String), "reason")
+                             .cast(REJECT_SCHEMA)])
+    thr = cfg["thresholds"]
+    spans = metered.choose_spans(conv, ws, we, lookback_months=a["lookback_months"],
+                                 min_coverage=thr["coverage_min"], building_ids=b["building_id"])
+    spans = spans.join(b.select("building_id", "station_id"), on="building_id", how="left", maintain_order="left")
+    st = spans["station_id"].to_numpy()
+    span_hdd, span_days, span_missing = cube.period_totals(st, spans["span_start"], spans["span_end"])
+    periods = metered.fit_periods(conv, spans, lookback_months=a["lookback_months"])
+    periods = periods.join(b.select("building_id", "station_id"), on="building_id", how="left",
+                           maintain_order="left")
+    if periods.height:
+        period_hdd, _, period_missing = cube.period_totals(periods["station_id"].to_numpy(),
+                                                           periods["period_start"], periods["period_end"])
+        periods = periods.with_columns(
+            (pl.col("usable") & pl.Series(period_missing == 0)).alias("usable"))
+    else:
+        period_hdd = np.zeros((0, grid.size))
+    normal_hdd = normals.for_stations(st) if hasattr(normals, "for_stations") else _normals_for(normals, st, grid)
+    lap("metered_prep")
+
+    envelope = env.estimate_envelope(b)
+    lap("envelope")
+    eff = envelope["efficiency"].to_numpy()
+    met = metered.metered_heating(conv, spans.drop("station_id"), b, periods=periods.drop("station_id"),
+                                  period_hdd=period_hdd, span_hdd=span_hdd, normal_hdd=normal_hdd,
+                                  base_grid_f=grid, efficiency=eff,
+                                  engineering_base_f=envelope["balance_point_f"].to_numpy(),
+                                  method=a["calendarization"],
+                                  daily_weights=_daily_weights(cube, spans, conv, envelope)
+                                  if a["calendarization"] == "degree_days" else None)
+    lap("regression")
+    if periods.height:
+        fb = periods.select("building_id").join(
+            met.select("building_id", "fitted_base_f"), on="building_id", how="left", maintain_order="left")
+        fb = fb.join(envelope.select("building_id", "balance_point_f"), on="building_id", how="left",
+                     maintain_order="left")
+        base = np.where(np.isfinite(fb["fitted_base_f"].fill_null(np.nan).to_numpy()),
+                        fb["fitted_base_f"].fill_null(np.nan).to_numpy(), fb["balance_point_f"].to_numpy())
+        j = np.abs(grid[None, :] - base[:, None]).argmin(axis=1)
+        periods = periods.with_columns(
+            pl.Series("hdd_per_day_fit", period_hdd[np.arange(periods.height), j] / periods["days"].to_numpy()))
+    exp = env.expected_heating(envelope, grid, span_hdd, n_draws=a["draws"], seed=a["seed"])
+    lap("expected")
+    hdd65 = cube.at_base(st, spans["span_start"], spans["span_end"], np.full(len(st), 65.0))[0]
+    hdd_bal = cube.at_base(st, spans["span_start"], spans["span_end"], envelope["balance_point_f"].to_numpy())[0]
+
+    # data issues
+    issues = [metered.reading_issues(conv, spans.drop("station_id"), lookback_months=a["lookback_months"],
+                                     min_coverage=thr["coverage_min"],
+                                     max_estimated_share=thr["estimated_share_max"]),
+              _unit_error_issues(conv, b, thr["unit_error_factor"])]
+    wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
+    if wgap.height:
+        gdetail = _gap_details(gaps, wgap)
+        issues.append(gdetail)
+    no_read = spans.join(conv.select("building_id").unique(), on="building_id", how="anti")
+    if no_read.height:
+        issues.append(no_read.select("building_id", pl.lit("no_readings").alias("code"),
+                                     pl.lit("no usable readings for this building").alias("detail"),
+                                     pl.lit(True).alias("blocking")))
+    issues_df = pl.concat([i.select("building_id", "code", "detail", "blocking") for i in issues]) \
+        .filter(pl.col("code") != "shifted_span").unique().sort("building_id", "code")
+
+    # assemble and screen
+    shares = refdata.load("baseload_shares")
+    frame = (b.select("building_id", "name", "station_id", "use_type", "floor_area_ft2", "year_built",
+                      "heating_fuel", "price", "address", "city")
+             .join(met, on="building_id", how="left", maintain_order="left")
+             .join(exp, on="building_id", how="left", maintain_order="left")
+             .join(envelope.select("building_id", "era", "envelope_source", "balance_point_f", "efficiency",
+                                   *[c for c in envelope.columns if c.startswith("ua_")]),
+                   on="building_id", how="left", maintain_order="left"))
+    frame = frame.with_columns(pl.Series("hdd65", hdd65), pl.Series("hdd_balance", hdd_bal))
+    frame = frame.with_columns(
+        pl.when(pl.col("heating_fuel") == "electricity").then(pl.lit("electricity"))
+        .otherwise(pl.lit("combustion")).alias("_fc"))
+    frame = frame.join(shares.select(pl.col("use_type"), pl.col("fuel_class").alias("_fc"),
+                                     pl.col("nonheating_share").cast(pl.Float64).alias("baseload_share_default")),
+                       on=["use_type", "_fc"], how="left", maintain_order="left").drop("_fc")
+    frame = frame.with_columns(
+        pl.when(pl.col("total_fuel_kbtu") > 0).then(pl.col("baseload_kbtu") / pl.col("total_fuel_kbtu"))
+        .otherwise(None).alias("baseload_share"))
+    frame = frame.join(_prices(b, cfg), on="building_id", how="left", maintain_order="left")
+    agg = issues_df.group_by("building_id").agg(pl.col("blocking").any().alias("blocking"),
+                                                pl.col("code").sort().alias("data_issue_codes"),
+                                                pl.col("detail").sort_by("code").alias("data_issue_texts"))
+    frame = frame.join(agg, on="building_id", how="left", maintain_order="left").with_columns(
+        pl.col("blocking").fill_null(False),
+        pl.col("data_issue_codes").fill_null(pl.lit([], dtype=pl.List(pl.String))),
+        pl.col("data_issue_texts").fill_null(pl.lit([], dtype=pl.List(pl.String))))
+    if previous is not None and previous.height:
+        frame = frame.join(previous.select("building_id", pl.col("normal_heating_kbtu").alias("prev_normal_heating_kbtu")),
+                           on="building_id", how="left", maintain_order="left")
+    else:
+        frame = frame.with_columns(pl.lit(None, dtype=pl.Float64).alias("prev_normal_heating_kbtu"))
+    # a ratio that far off the expectation is a data problem, not waste
+    uf = thr["unit_error_factor"]
+    far = frame.filter(((pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")) >= uf)
+                       | ((pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")) <= 1 / uf))
+    if far.height:
+        extra = far.select("building_id", pl.lit("likely_unit_error").alias("code"),
+                           (pl.lit("metered heating is ") + (pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu"))
+                            .round(3).cast(pl.String) + pl.lit("× the expectation: check units (therm/ccf, kBtu/MMBtu) "
+                                                               "and the floor area")).alias("detail"),
+                           pl.lit(True).alias("blocking"))
+        issues_df = pl.concat([issues_df, extra]).unique(subset=["building_id", "code"], keep="first") \
+            .sort("building_id", "code")
+        agg = issues_df.group_by("building_id").agg(pl.col("blocking").any().alias("blocking"),
+                                                    pl.col("code").sort().alias("data_issue_codes"),
+                                                    pl.col("detail").sort_by("code").alias("data_issue_texts"))
+        frame = frame.drop("blocking", "data_issue_codes", "data_issue_texts").join(
+            agg, on="building_id", how="left", maintain_order="left").with_columns(
+            pl.col("blocking").fill_null(False),
+            pl.col("data_issue_codes").fill_null(pl.lit([], dtype=pl.List(pl.String))),
+            pl.col("data_issue_texts").fill_null(pl.lit([], dtype=pl.List(pl.String))))
+    units_ip = cfg["analysis"]["units"] == "IP"
+    results = screen.screen(frame, thr, energy_factor=1.0 if units_ip else KBTU_TO_KWH,
+                            energy_unit="kBtu" if units_ip else "kWh")
+    lap("screening")
+    ny = normals.years_used if hasattr(normals, "years_used") else {}
+    return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
+                    envelope=envelope, window=window, timings=timings, normal_years=ny)
+
+
+def _normals_for(normals, stations: np.ndarray, grid: np.ndarray) -> np.ndarray:
+    """Normal-year HDD rows for each building's station (NaN where the station has none)."""
+    table = normals.hdd  # (n_stations, n_bases)
+    index = {s: i for i, s in enumerate(normals.stations)}
+    idx = np.array([index.get(s, -1) for s in stations])
+    out = np.full((len(stations), grid.size), np.nan)
+    ok = idx >= 0
+    out[ok] = table[idx[ok]]
+    return out
+
+
+def _gap_details(gaps: pl.DataFrame, wgap: pl.DataFrame) -> pl.DataFrame:
+    j = wgap.select("building_id", "station_id", "span_start", "span_end", "missing").join(
+        gaps, on="station_id", how="left")
+    j = j.filter(pl.col("gap_start").is_null() | ((pl.col("gap_start") <= pl.col("span_end"))
+                                                 & (pl.col("gap_end") >= pl.col("span_start"))))
+    j = j.with_columns(pl.when(pl.col("gap_start").is_null()).then(pl.lit("outside the station's record"))
+                       .otherwise(pl.col("gap_start").cast(pl.String) + pl.lit("–") + pl.col("gap_end").cast(pl.String))
+                       .alias("_d"))
+    return j.group_by("building_id").agg(pl.col("missing").first(), pl.col("_d").unique().sort().str.join("; ")) \
+        .select("building_id", pl.lit("weather_gap").alias("code"),
+                (pl.col("missing").cast(pl.String) + pl.lit(" day(s) of the span have no weather data: ") + pl.col("_d"))
+                .alias("detail"), pl.lit(True).alias("blocking")).sort("building_id")
+
+
+def _daily_weights(cube, spans: pl.DataFrame, conv: pl.DataFrame, envelope: pl.DataFrame) -> pl.DataFrame:
+    """Daily HDD at each building's balance point (nearest grid base) over its readings' days.
+
+    The weights of the degree-day proration option of :func:`screening.metered.calendarize`.
+    """
+    rng = conv.group_by("building_id").agg(pl.col("period_start").min().alias("s"),
+                                           pl.col("period_end").max().alias("e"))
+    rng = spans.select("building_id", "station_id").join(rng, on="building_id", how="inner") \
+        .join(envelope.select("building_id", "balance_point_f"), on="building_id").sort("building_id")
+    d = cube.daily(rng["station_id"].to_numpy(), rng["s"], rng["e"])
+    j = np.abs(cube.bases_f[None, :] - rng["balance_point_f"].to_numpy()[:, None]).argmin(axis=1)
+    w = d.dd[np.arange(d.row.size), j[d.row]]
+    return pl.DataFrame({"building_id": rng["building_id"].to_numpy()[d.row],
+                         "date": d.date.astype("datetime64[D]"),
+                         "weight": np.where(d.missing, np.nan, w)}).with_columns(
+        pl.col("weight").fill_nan(None))
+
+
+def _prices(b: pl.DataFrame, cfg: dict) -> pl.DataFrame:
+    """$ and kg CO2e per kBtu of fuel input for each building."""
+    pu = refdata.load("price_units")
+    ef = refdata.load("emission_factors")
+    rows = []
+    for r in pu.iter_rows(named=True):
+        fuel, unit = r["fuel"], r["price_unit"]
+        kbtu_per_unit = units.btu_per_unit(unit, fuel, heat_contents={
+            "natural_gas": cfg["analysis"]["gas_btu_per_ft3"],
+            "district_steam": cfg["analysis"]["steam_btu_per_lb"]}) / 1000.0
+        kg = float(ef.filter(pl.col("fuel") == fuel)["kg_co2e_per_mmbtu"][0]) / 1000.0
+        if fuel == "electricity" and cfg["emissions"]["electricity_kg_co2e_per_kwh"] is not None:
+            kg = cfg["emissions"]["electricity_kg_co2e_per_kwh"] / units.btu_per_unit("kWh", fuel) * 1000.0
+        rows.append({"heating_fuel": fuel, "_kbtu_per_unit": kbtu_per_unit,
+                     "_price": float(cfg["prices"][fuel]), "kg_co2e_per_kbtu": kg})
+    table = pl.DataFrame(rows)
+    return b.select("building_id", "heating_fuel", "price").join(table, on="heating_fuel", how="left").select(
+        "building_id",
+        (pl.coalesce(pl.col("price"), pl.col("_price")) / pl.col("_kbtu_per_unit")).alias("usd_per_kbtu"),
+        "kg_co2e_per_kbtu")

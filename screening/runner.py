@@ -1,0 +1,546 @@
+"""Whole runs: lock, load, screen, write outputs atomically, record the run.
+
+Everything the command line does is a function here: :func:`run`, :func:`demo`,
+:func:`validate`, :func:`status`, :func:`history`, :func:`init_config`.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import fcntl
+import glob
+import json
+import logging
+import os
+import shutil
+import sys
+import tempfile
+import time
+import traceback
+import uuid
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import polars as pl
+
+from . import __version__, config as cfgmod, outputs, pipeline
+from .errors import (ConfigError, InputError, LockedError, OutputError, ScreeningError, StoreError)
+from .ingest import REJECT_SCHEMA
+from .resources import sample_portfolio_dir
+from .store import Store
+from .window import analysis_window, quarter_label
+
+log = logging.getLogger("ddscreen")
+
+
+@dataclass
+class RunResult:
+    run_id: str
+    label: str
+    out_dir: Path
+    db_path: str
+    summary: dict
+    top: list[dict] = field(default_factory=list)
+    loads: list = field(default_factory=list)
+    skipped: bool = False
+
+
+# ---------------------------------------------------------------------------- helpers
+
+def _expand(pattern: str, kind: str) -> list[str]:
+    if not pattern:
+        raise ConfigError(f"no {kind} file given: pass --{kind} FILE or set [inputs] {kind} in the config")
+    if any(ch in pattern for ch in "*?["):
+        found = sorted(glob.glob(pattern))
+        if not found:
+            raise InputError(pattern, f"no {kind} file matches this pattern")
+        return found
+    return [pattern]
+
+
+def _versions() -> dict:
+    import duckdb
+    import numpy
+    import weasyprint
+    return {"ddscreen": __version__, "python": sys.version.split()[0], "polars": pl.__version__,
+            "duckdb": duckdb.__version__, "numpy": numpy.__version__, "weasyprint": weasyprint.__version__}
+
+
+class _Lock:
+    """An exclusive, non-blocking advisory lock on ``<db>.lock`` (released by the OS if we die)."""
+
+    def __init__(self, path: str):
+        self.path = path
+        self.fh = None
+
+    def __enter__(self):
+        Path(self.path).parent.mkdir(parents=True, exist_ok=True)
+        try:
+            self.fh = open(self.path, "a+")
+        except OSError as exc:
+            raise StoreError(f"{self.path}: cannot create the lock file ({exc.strerror or exc})") from None
+        try:
+            fcntl.flock(self.fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            self.fh.seek(0)
+            holder = self.fh.read().strip() or "another process"
+            self.fh.close()
+            raise LockedError(f"another ddscreen run holds the lock {self.path} ({holder}); "
+                              "nothing was changed") from None
+        self.fh.seek(0)
+        self.fh.truncate()
+        self.fh.write(f"pid {os.getpid()} since {_dt.datetime.now().isoformat(timespec='seconds')}")
+        self.fh.flush()
+        return self
+
+    def __exit__(self, *exc):
+        try:
+            self.fh.seek(0)
+            self.fh.truncate()
+            fcntl.flock(self.fh, fcntl.LOCK_UN)
+        finally:
+            self.fh.close()
+
+
+def _stage(name: str) -> None:
+    """Test hook: DDSCREEN_KILL_AT=<stage> makes the process kill itself at that stage."""
+    if os.environ.get("DDSCREEN_KILL_AT") == name:
+        import signal
+        os.kill(os.getpid(), signal.SIGKILL)
+
+
+def _setup_file_log(path: Path) -> logging.Handler:
+    h = logging.FileHandler(path, encoding="utf-8")
+    h.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+    h.setLevel(logging.DEBUG)
+    log.addHandler(h)
+    return h
+
+
+def _change_table(store: Store, run_id: str, ranking: pl.DataFrame) -> tuple[pl.DataFrame, str | None]:
+    prev = store.rows("previous_ok_run", {"run_id": run_id})
+    if not prev:
+        return pl.DataFrame(), None
+    prev_id = prev[0][0]
+    old = store.frame("results_of_run", {"run_id": prev_id})
+    return diff_results(old, ranking), prev_id
+
+
+def diff_results(old: pl.DataFrame, new: pl.DataFrame) -> pl.DataFrame:
+    """Per building: new, cleared and persisting flags and the rank move between two runs."""
+    o = old.select("building_id", pl.col("rank").alias("previous_rank"), pl.col("flags").alias("_of"))
+    n = new.select("building_id", "rank", pl.col("flags").alias("_nf"))
+    j = n.join(o, on="building_id", how="full", coalesce=True)
+    j = j.with_columns(pl.col("_of").fill_null("").str.split(";").list.eval(pl.element().filter(pl.element() != "")),
+                       pl.col("_nf").fill_null("").str.split(";").list.eval(pl.element().filter(pl.element() != "")))
+    j = j.with_columns(pl.col("_nf").list.set_difference("_of").list.sort().alias("new_flags"),
+                       pl.col("_of").list.set_difference("_nf").list.sort().alias("cleared_flags"),
+                       pl.col("_nf").list.set_intersection("_of").list.sort().alias("persisting_flags"))
+    j = j.with_columns(
+        pl.when(pl.col("previous_rank").is_null()).then(pl.lit("new building"))
+        .when(pl.col("rank").is_null()).then(pl.lit("dropped"))
+        .otherwise(pl.concat_str([
+            pl.when(pl.col("rank") < pl.col("previous_rank")).then(pl.lit("up ") + (pl.col("previous_rank") - pl.col("rank")).cast(pl.String))
+            .when(pl.col("rank") > pl.col("previous_rank")).then(pl.lit("down ") + (pl.col("rank") - pl.col("previous_rank")).cast(pl.String))
+            .otherwise(pl.lit("same rank")),
+            pl.when(pl.col("new_flags").list.len() > 0).then(pl.lit("; new: ") + pl.col("new_flags").list.join(",")).otherwise(pl.lit("")),
+            pl.when(pl.col("cleared_flags").list.len() > 0).then(pl.lit("; cleared: ") + pl.col("cleared_flags").list.join(",")).otherwise(pl.lit("")),
+        ])).alias("change"))
+    return j.select("building_id", "rank", "previous_rank", "change", "new_flags", "cleared_flags",
+                    "persisting_flags").sort("building_id")
+
+
+# ---------------------------------------------------------------------------- run
+
+def run(*, config_path: str | None = None, overrides: dict | None = None, out_dir: str | None = None,
+        force: bool = False, quiet: bool = False, progress: bool = False) -> RunResult:
+    """Load, screen and write one run.
+
+    With ``out_dir`` the outputs go exactly there (replaced as a whole); without it they
+    go to ``[output] root/<quarter label>/`` and ``root/latest`` points at it. Outputs are
+    written into a temporary folder beside the target and renamed into place only when
+    complete, so a failed run leaves earlier outputs untouched.
+    """
+    cfg = cfgmod.load(config_path, overrides)
+    a = cfg["analysis"]
+    as_of = cfgmod.parse_date_value(a["as_of"], "as-of") if a["as_of"] else _dt.date.today()
+    if a["window_from"]:
+        window = (cfgmod.parse_date_value(a["window_from"], "--from"), cfgmod.parse_date_value(a["window_to"], "--to"))
+        if window[1] < window[0]:
+            raise ConfigError(f"--to {window[1]} is before --from {window[0]}")
+        if (window[1] - window[0]).days > 3660:
+            raise ConfigError("--from/--to: the window may span at most ten years")
+    else:
+        window = analysis_window(as_of)
+    label = quarter_label(window[1]) if not a["window_from"] else f"{window[0]}_{window[1]}"
+    files = {k: _expand(cfg["inputs"][k], k) for k in pipeline.KINDS}
+    db_path = cfg["store"]["database"]
+    if out_dir is not None:
+        target = Path(out_dir)
+        root = None
+    else:
+        root = Path(cfg["output"]["root"])
+        target = root / label
+    if target.exists() and root is not None and not force and (target / "summary.json").exists():
+        raise OutputError(f"{target} already holds the outputs of {label}; use --force to replace them")
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OutputError(f"{target.parent}: cannot create the output folder ({exc.strerror or exc})") from None
+    if not os.access(target.parent, os.W_OK):
+        raise OutputError(f"{target.parent}: output folder is not writable; earlier outputs are untouched")
+
+    with _Lock(str(db_path) + ".lock"):
+        return _run_locked(cfg, files, db_path, target, root, label, as_of, window, force=force,
+                           config_path=config_path)
+
+
+def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_of, window, *, force, config_path):
+    t_start = time.perf_counter()
+    run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"
+    try:
+        tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
+    except OSError as exc:
+        raise OutputError(f"{target.parent}: cannot write there ({exc.strerror or exc}); earlier outputs untouched") from None
+    handler = _setup_file_log(tmp / "run.log")
+    timings: dict[str, float] = {}
+    store = None
+    try:
+        log.info("run %s: window %s to %s, database %s", run_id, window[0], window[1], db_path)
+        store = Store(db_path)
+        store.execute("mark_stale_runs")
+        opts = pipeline.read_options(cfg)
+        t = time.perf_counter()
+        loads = pipeline.load_inputs(store, files, opts, force=force, log=log.info)
+        timings["ingest"] = round(time.perf_counter() - t, 4)
+        for fl in loads:
+            log.info("%s %s: %s (%d rows, %d rejected)", fl.kind, fl.path, fl.status, fl.rows, fl.rejected)
+            for n in fl.notices:
+                log.warning("%s", n)
+        _stage("after_load")
+        store.execute("insert_run", {"run_id": run_id, "label": label, "as_of": as_of, "window_start": window[0],
+                                     "window_end": window[1], "out_dir": str(target),
+                                     "config_hash": cfgmod.config_hash(cfg)})
+        b = store.frame("select_buildings")
+        r = store.frame("select_readings")
+        w = store.frame("select_weather")
+        if w.height == 0:
+            raise InputError(files["weather"][0], "no usable weather rows", expected="daily station data")
+        paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
+        res = pipeline.screen_frames(b, r, w, cfg, window=window, paths=paths, previous=_year_ago(store, window))
+        timings.update(res.timings)
+        _stage("after_screen")
+        load_rej = store.frame("select_load_rejects")
+        rejects = outputs.rejects_table(pl.concat([load_rej.cast(REJECT_SCHEMA), res.rejects.cast(REJECT_SCHEMA)]))
+        disp = outputs.Display(cfg["analysis"]["units"])
+        change, prev_id = _change_table(store, run_id, res.results)
+        ranking = outputs.ranking_table(res.results, disp, change)
+        t = time.perf_counter()
+        outputs.write_csv(ranking, tmp / "ranking.csv")
+        outputs.write_csv(rejects, tmp / "rejects.csv")
+        outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
+        timings["csv"] = round(time.perf_counter() - t, 4)
+        summary = _summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id)
+        paper = cfg["output"]["paper"]
+        paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
+        from . import report
+        if cfg["output"]["sheets"]:
+            t = time.perf_counter()
+            sheets = outputs.sheet_records(res.results, res.envelope, res.periods, disp, run_id=run_id,
+                                           run_date=str(_dt.date.today()), currency=cfg["prices"]["currency"])
+            (tmp / "sheets").mkdir()
+            names = report.assign_filenames([s["building_id"] for s in sheets])
+            report.render_sheets(sheets, tmp / "sheets", paper=paper, workers=cfg["output"]["workers"])
+            timings["sheets"] = round(time.perf_counter() - t, 4)
+            outputs.write_csv(pl.DataFrame({"building_id": list(names), "file": [f"sheets/{v}.pdf" for v in names.values()]}),
+                              tmp / "sheets_index.csv")
+        _stage("after_sheets")
+        t = time.perf_counter()
+        report.render_ranking(outputs.ranking_report(ranking, res.results, summary, disp,
+                                                     currency=cfg["prices"]["currency"]),
+                              tmp / "ranking.pdf", paper=paper)
+        timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
+        timings["total"] = round(time.perf_counter() - t_start, 4)
+        summary["timings_s"] = timings
+        outputs.write_json(_deterministic(summary), tmp / "summary.json")
+        # record results, then move the folder into place
+        stage = _results_for_store(run_id, res.results)
+        with store.transaction():
+            store.execute("delete_results_of_run", {"run_id": run_id})
+            store.execute("insert_results", stage_results=stage)
+            store.execute("delete_rejects_of_run", {"run_id": run_id})
+            store.execute("insert_rejects", {"run_id": run_id}, stage_rejects=rejects)
+        _stage("before_publish")
+        log.info("run %s finished in %.1f s", run_id, timings["total"])
+        log.removeHandler(handler)
+        handler.close()
+        _publish(tmp, target)
+        if root is not None:
+            _point_latest(root, target)
+            _prune(root, cfg["output"]["keep"], keep_name=target.name)
+        store.execute("finish_run", {"run_id": run_id, "status": "ok", "input_hashes": json.dumps(
+            {f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads}), "versions": json.dumps(summary["versions"]),
+            "timings": json.dumps(timings), "counts": json.dumps(summary["counts"]), "message": "",
+            "out_dir": str(target)})
+        top = ranking.filter(pl.col("needs_review")).head(5).select("rank", "building_id", "name", "tier", "ratio",
+                                                                    "excess_cost").to_dicts()
+        return RunResult(run_id, label, target, str(db_path), summary, top, loads)
+    except BaseException as exc:
+        log.error("run %s failed: %s", run_id, exc)
+        log.debug("%s", traceback.format_exc())
+        log.removeHandler(handler)
+        handler.close()
+        if store is not None:
+            try:
+                store.execute("finish_run", {"run_id": run_id, "status": "failed", "input_hashes": "{}",
+                                             "versions": "{}", "timings": json.dumps(timings), "counts": "{}",
+                                             "message": str(exc)[:500], "out_dir": ""})
+            except Exception:  # the database itself may be the problem
+                pass
+        _keep_failure_log(tmp, target)
+        raise
+    finally:
+        if store is not None:
+            store.close()
+
+
+def _year_ago(store: Store, window) -> pl.DataFrame | None:
+    """Results of the latest successful run whose window ended about a year earlier."""
+    runs = store.frame("list_runs", {"limit": 1000})
+    if runs.height == 0:
+        return None
+    target = window[1] - _dt.timedelta(days=365)
+    cand = runs.filter((pl.col("status") == "ok")
+                       & ((pl.col("window_end") - pl.lit(target)).dt.total_days().abs() <= 45))
+    if cand.height == 0:
+        return None
+    return store.frame("results_of_run", {"run_id": cand["run_id"][0]})
+
+
+def _results_for_store(run_id: str, res: pl.DataFrame) -> pl.DataFrame:
+    rec_cols = [c for c in res.columns if res.schema[c] != pl.Object]
+    records = [json.dumps(x, default=str, sort_keys=True) for x in res.select(rec_cols).to_dicts()]
+    return res.select(
+        pl.lit(run_id).alias("run_id"), "building_id", pl.col("rank").cast(pl.Int32), "tier", "needs_review",
+        "ratio", "actual_heating_kbtu", "expected_heating_kbtu", "normal_heating_kbtu", "excess_energy_kbtu",
+        "excess_cost", pl.col("flag_codes").list.join(";").alias("flags"),
+        pl.col("data_issue_codes").list.join(";").alias("data_issues"),
+    ).with_columns(pl.Series("record", records, dtype=pl.String))
+
+
+def _summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id) -> dict:
+    r = res.results
+    per_tier = {k: int(v) for k, v in r.group_by("tier").len().iter_rows()}
+    flags = r.select(pl.col("flag_codes").explode().drop_nulls()).to_series().value_counts(sort=True)
+    issues = res.issues.group_by("code").len()
+    disp = outputs.Display(cfg["analysis"]["units"])
+    ee = r["excess_energy_kbtu"].fill_null(0).sum()
+    return {
+        "run_id": run_id, "label": label, "as_of": str(as_of), "window": [str(window[0]), str(window[1])],
+        "run_date": str(_dt.date.today()), "units": cfg["analysis"]["units"], "previous_run": prev_id,
+        "counts": {"buildings": r.height, "needs_review": int(r["needs_review"].sum()),
+                   "with_data_issues": int((r["data_issue_codes"].list.len() > 0).sum()),
+                   "blocked_by_data": int(r["blocking"].sum()),
+                   "rejected_rows": rejects.height,
+                   "per_tier": dict(sorted(per_tier.items())),
+                   "per_flag": {k: int(v) for k, v in sorted(flags.iter_rows())},
+                   "per_data_issue": {k: int(v) for k, v in sorted(issues.iter_rows())}},
+        "totals": {"excess_energy": round(float(ee * (outputs.KBTU_TO_KWH if disp.si else 1.0)), 1),
+                   "energy_unit": disp.energy_unit,
+                   "excess_cost": round(float(r["excess_cost"].fill_null(0).sum()), 2),
+                   "excess_co2e_kg": round(float(r["excess_co2e_kg"].fill_null(0).sum()), 1)},
+        "inputs": [{"kind": fl.kind, "path": fl.path, "sha256": fl.sha256, "status": fl.status,
+                    "rows": fl.rows, "rejected": fl.rejected} for fl in loads],
+        "normal_years": res.normal_years,
+        "versions": _versions(),
+    }
+
+
+def _deterministic(summary: dict) -> dict:
+    """summary.json without the fields that change on every run (kept in the database instead)."""
+    s = dict(summary)
+    s.pop("timings_s", None)
+    s["inputs"] = [{k: v for k, v in i.items() if k != "status"} for i in s["inputs"]]
+    return s
+
+
+def _publish(tmp: Path, target: Path) -> None:
+    try:
+        if target.exists() or target.is_symlink():
+            old = target.with_name(f".{target.name}.old-{uuid.uuid4().hex[:6]}")
+            os.replace(target, old)
+            os.replace(tmp, target)
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.replace(tmp, target)
+    except OSError as exc:
+        raise OutputError(f"{target}: cannot move the outputs into place ({exc.strerror or exc})") from None
+
+
+def _point_latest(root: Path, target: Path) -> None:
+    link = root / "latest"
+    tmp_link = root / f".latest-{uuid.uuid4().hex[:6]}"
+    os.symlink(target.name, tmp_link)
+    os.replace(tmp_link, link)
+
+
+def _prune(root: Path, keep: int, *, keep_name: str) -> None:
+    if keep <= 0:
+        return
+    dirs = sorted([p for p in root.iterdir() if p.is_dir() and not p.is_symlink() and not p.name.startswith(".")
+                   and (p / "summary.json").exists()], key=lambda p: p.name)
+    for p in dirs[:-keep]:
+        if p.name != keep_name:
+            shutil.rmtree(p, ignore_errors=True)
+
+
+def _keep_failure_log(tmp: Path, target: Path) -> None:
+    logf = tmp / "run.log"
+    try:
+        if logf.exists():
+            dest = target.parent / f"{target.name}.failed-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}.log"
+            shutil.move(str(logf), dest)
+            log.error("the log of the failed run is %s", dest)
+    except OSError:
+        pass
+    shutil.rmtree(tmp, ignore_errors=True)
+
+
+# ---------------------------------------------------------------------------- other commands
+
+def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: bool = True) -> RunResult:
+    """Screen the packaged sample portfolio into ``out_dir`` (its own database inside)."""
+    src = sample_portfolio_dir()
+    out = Path(out_dir)
+    overrides = {"inputs": {"buildings": str(src / "buildings.csv"), "readings": str(src / "readings.csv"),
+                            "weather": str(src / "weather.csv")},
+                 "store": {"database": str(out / "screening.duckdb")},
+                 "analysis": {"as_of": as_of}, "output": {"sheets": sheets}}
+    out.mkdir(parents=True, exist_ok=True)
+    return _demo_run(overrides, out)
+
+
+def _demo_run(overrides: dict, out: Path) -> RunResult:
+    """Run into ``out`` directly: files are replaced one by one after a complete run in a temp folder."""
+    tmp_out = out / ".run"
+    if tmp_out.exists():
+        shutil.rmtree(tmp_out)
+    res = run(overrides=overrides, out_dir=str(tmp_out), force=True)
+    for p in tmp_out.iterdir():
+        dest = out / p.name
+        if dest.is_dir():
+            shutil.rmtree(dest)
+        elif dest.exists():
+            dest.unlink()
+        os.replace(p, dest)
+    tmp_out.rmdir()
+    res.out_dir = out
+    return res
+
+
+@dataclass
+class Validation:
+    problems: list[str]
+    rows: dict[str, int]
+    notices: list[str]
+
+    @property
+    def ok(self) -> bool:
+        return not self.problems
+
+
+def validate(buildings: str, readings: str, weather: str, *, config_path: str | None = None,
+             overrides: dict | None = None) -> Validation:
+    """Check the three files; report every problem; load nothing."""
+    cfg = cfgmod.load(config_path, overrides)
+    opts = pipeline.read_options(cfg)
+    problems: list[str] = []
+    notices: list[str] = []
+    rows: dict[str, int] = {}
+    loaded = {}
+    for kind, path in (("buildings", buildings), ("readings", readings), ("weather", weather)):
+        try:
+            ld = pipeline.read_file(kind, path, opts)
+        except InputError as exc:
+            problems.append(str(exc))
+            continue
+        loaded[kind] = ld
+        rows[kind] = ld.df.height
+        notices.extend(ld.notices)
+        for r in ld.rejects.iter_rows(named=True):
+            problems.append(f"{r['file']}, line {r['line']}, column {r['column']!r}: {r['reason']}"
+                            + (f" (got {r['value']!r})" if r["value"] is not None else ""))
+    if len(loaded) == 3:
+        stations = sorted(loaded["weather"].df["station_id"].unique().to_list())
+        _, _, rej = pipeline._cross_check(loaded["buildings"].df, loaded["readings"].df, stations,
+                                          {"buildings": buildings, "readings": readings})
+        for r in rej.iter_rows(named=True):
+            problems.append(f"{r['file']}, line {r['line']}, column {r['column']!r}: {r['reason']} (got {r['value']!r})")
+    return Validation(problems, rows, notices)
+
+
+def status(db_path: str, limit: int = 10) -> pl.DataFrame:
+    """The last runs recorded in the database, newest first."""
+    if not Path(db_path).exists():
+        raise StoreError(f"{db_path}: no database here yet (run ddscreen run first)")
+    with Store(db_path, read_only=True) as store:
+        return store.frame("list_runs", {"limit": limit})
+
+
+def history(db_path: str, run_a: str | None = None, run_b: str | None = None) -> tuple[pl.DataFrame, pl.DataFrame | None]:
+    """The list of runs, and the difference between two runs (default: the last two successful)."""
+    if not Path(db_path).exists():
+        raise StoreError(f"{db_path}: no database here yet (run ddscreen run first)")
+    with Store(db_path, read_only=True) as store:
+        runs = store.frame("list_runs", {"limit": 1000})
+        ok = runs.filter(pl.col("status") == "ok")["run_id"].to_list()
+        if run_a is None and run_b is None:
+            if len(ok) < 2:
+                return runs, None
+            run_b, run_a = ok[0], ok[1]
+        elif run_b is None:
+            raise ConfigError("history: give two run ids (older and newer), or none")
+        for rid in (run_a, run_b):
+            if not store.rows("get_run", {"run_id": rid}):
+                raise ConfigError(f"history: no run {rid!r} in {db_path}")
+        old = store.frame("results_of_run", {"run_id": run_a})
+        new = store.frame("results_of_run", {"run_id": run_b})
+        return runs, diff_results(old, new)
+
+
+CONFIG_TEMPLATE_HEADER = """# ddscreen configuration (TOML). Every key is optional; defaults are shown.
+# Relative paths are taken from this file's folder. Run:  ddscreen run --config {name}
+"""
+
+
+def init_config(path: str, *, overwrite: bool = False) -> Path:
+    """Write a commented configuration template with every key and its default."""
+    p = Path(path)
+    if p.exists() and not overwrite:
+        raise ConfigError(f"{p} exists; use --force to overwrite it")
+    from .config import DEFAULTS, template_comments
+    lines = [CONFIG_TEMPLATE_HEADER.format(name=p.name)]
+    for section, values in DEFAULTS.items():
+        lines.append(f"[{section}]")
+        for key, value in values.items():
+            comment = template_comments().get((section, key), "")
+            if value is None:
+                lines.append(f"# {key} = 0.37" + (f"  # {comment}" if comment else ""))
+                continue
+            lines.append(f"{key} = {_toml_value(value)}" + (f"  # {comment}" if comment else ""))
+        lines.append("")
+    try:
+        p.write_text("\n".join(lines), encoding="utf-8")
+    except OSError as exc:
+        raise OutputError(f"{p}: cannot write ({exc.strerror or exc})") from None
+    return p
+
+
+def _toml_value(v) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, (int, float)):
+        return repr(v)
+    if isinstance(v, list):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    return json.dumps(v)
