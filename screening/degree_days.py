@@ -46,6 +46,7 @@ for exact cancellation in differences over 30-year records): 100 stations × 30 
 
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass, field
 from datetime import date as _date
 
@@ -636,14 +637,14 @@ class DegreeDayCube:
         elif m == "maxmin":
             out = _maxmin_hdd(self.extra["tmax"][ix], self.extra["tmin"][ix], base)
         elif m == "hourly":
-            r = self.extra["hourly"][idx]             # (..., width)
-            b = base if not grid else base             # grid: (1, nb) → r (n, w)
-            if grid:
-                out = np.nanmean(np.maximum(b[:, :, None] - r[:, None, :], 0.0), axis=-1) \
-                    if r.shape[0] else np.zeros((0, base.shape[1]))
-            else:
-                with np.errstate(invalid="ignore"):
-                    out = np.nanmean(np.maximum(b[..., None] - r, 0.0), axis=-1)
+            r = self.extra["hourly"][idx]             # (..., width); all-NaN rows are missing days
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore", RuntimeWarning)     # "Mean of empty slice" on missing days
+                if grid:                                            # base (1, nb), r (n, w) → (n, nb)
+                    out = np.nanmean(np.maximum(base[:, :, None] - r[:, None, :], 0.0), axis=-1) \
+                        if r.shape[0] else np.zeros((0, base.shape[1]))
+                else:                                               # base like idx, r (..., w)
+                    out = np.nanmean(np.maximum(base[..., None] - r, 0.0), axis=-1)
         else:  # monthly-estimate: the month's Erbs estimate spread evenly over its days
             ex = self.extra
             tmc = f_to_c(self.tm[ix])
