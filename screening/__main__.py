@@ -1,0 +1,5 @@
+"""``python -m screening`` runs the ddscreen command line."""
+
+from .cli import main
+
+main()
