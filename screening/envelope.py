@@ -769,7 +769,8 @@ def expected_heating(envelope: pl.DataFrame, base_grid_f: np.ndarray, hdd_curve:
         ``hdd_curve[i, j]``: heating degree days of building i over its comparison span
         at base ``base_grid_f[j]`` [°F·day]. Interpolated linearly in the base; a base
         outside the grid is clipped to the grid's end (reported in ``base_clipped`` and
-        ``draws_clipped_share``).
+        ``draws_clipped_share``). A row containing NaN (no weather) gives null results
+        for that building only; negative or infinite values raise.
     hdd_fixed_base : ndarray, shape (B,), optional
         HDD at 65 °F [°F·day]; interpolated from ``hdd_curve`` when omitted.
     n_draws : int
@@ -810,9 +811,12 @@ def expected_heating(envelope: pl.DataFrame, base_grid_f: np.ndarray, hdd_curve:
         raise ValueError("base_grid_f must be strictly increasing")
     if curve.shape != (b, grid.shape[0]):
         raise ValueError(f"hdd_curve must have shape (buildings, bases) = {(b, grid.shape[0])}, got {curve.shape}")
-    bad = ~(curve >= 0)
+    bad = (curve < 0) | np.isinf(curve)
     if np.any(bad):
         raise ValueError(f"hdd_curve must be finite and >= 0, got {_first_bad(curve, bad)}")
+    no_weather = np.isnan(curve).any(axis=1)  # such a building gets null results, the others go on
+    if no_weather.any():
+        curve = np.where(no_weather[:, None], 0.0, curve)
     if not isinstance(n_draws, (int, np.integer)) or n_draws < 1:
         raise ValueError(f"n_draws must be an integer >= 1, got {n_draws!r}")
     steps = np.diff(grid)
@@ -825,15 +829,18 @@ def expected_heating(envelope: pl.DataFrame, base_grid_f: np.ndarray, hdd_curve:
     eff = envelope["efficiency"].to_numpy().astype(float)
     dd_bal, clip_pt = _interp_rows(curve, grid, bp[:, None], uniform)
     dd_bal, clip_pt = dd_bal[:, 0], clip_pt[:, 0]
+    no_fixed = no_weather
     if hdd_fixed_base is None:
         hdd65 = _interp_rows(curve, grid, np.full((b, 1), c["fixed_base_f"]), uniform)[0][:, 0]
     else:
-        hdd65 = np.asarray(hdd_fixed_base, dtype=float)
+        hdd65 = np.array(hdd_fixed_base, dtype=float)  # a copy: null rows are written below
         if hdd65.shape != (b,):
             raise ValueError(f"hdd_fixed_base must have shape ({b},), got {hdd65.shape}")
-        bad = ~(hdd65 >= 0)
+        bad = (hdd65 < 0) | np.isinf(hdd65)
         if np.any(bad):
-            raise ValueError(f"hdd_fixed_base must be >= 0, got {_first_bad(hdd65, bad)}")
+            raise ValueError(f"hdd_fixed_base must be finite and >= 0, got {_first_bad(hdd65, bad)}")
+        no_fixed = np.isnan(hdd65)
+        hdd65[no_fixed] = 0.0
     point = degree_day_heating_kbtu(ua, dd_bal, eff)
     fixed = degree_day_heating_kbtu(ua, hdd65, eff)
     cd = modified_dd_factor(hdd65)
@@ -883,17 +890,23 @@ def expected_heating(envelope: pl.DataFrame, base_grid_f: np.ndarray, hdd_curve:
         p10[sl], p50[sl], p90[sl] = np.percentile(q, [10.0, 50.0, 90.0], axis=1)
         share[sl] = clip.mean(axis=1)
 
-    return pl.DataFrame({
+    for arr in (p10, p50, p90, point, dd_bal, share):
+        arr[no_weather] = np.nan
+    no_fixed = no_fixed | no_weather
+    for arr in (fixed, hdd65, cd):
+        arr[no_fixed] = np.nan
+    out = pl.DataFrame({
         "building_id": envelope["building_id"],
         "expected_heating_kbtu": p50,
         "expected_low_kbtu": p10,
         "expected_high_kbtu": p90,
         "expected_point_kbtu": point,
         "expected_fixed_base_kbtu": fixed,
-        "expected_modified_kbtu": fixed * cd,
+        "expected_modified_kbtu": fixed * cd,  # NaN where either is
         "hdd_at_balance": dd_bal,
         "hdd_fixed_base": hdd65,
         "modified_dd_factor": cd,
         "base_clipped": clip_pt,
         "draws_clipped_share": share,
     })
+    return out.with_columns(pl.col(pl.Float64).fill_nan(None))

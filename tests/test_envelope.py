@@ -477,3 +477,17 @@ def test_bad_curve_arguments():
         ev.expected_heating(env, GRID_F, linear_curve(1), n_draws=0)
     with pytest.raises(ValueError, match=r"hdd_fixed_base must have shape \(1,\), got \(2,\)"):
         ev.expected_heating(env, GRID_F, linear_curve(1), hdd_fixed_base=np.ones(2))
+
+
+def test_building_without_weather_gets_null_results_only_for_itself(climate_5000):
+    curve = np.tile(climate_5000, (2, 1))
+    curve[1, 10] = np.nan  # a gap in the second building's degree days
+    env = ev.estimate_envelope(frame([office(), office(building_id="OF-2")]))
+    res = ev.expected_heating(env, GRID_F, curve)
+    assert res["expected_heating_kbtu"].null_count() == 1 and res["expected_heating_kbtu"][1] is None
+    assert res["expected_heating_kbtu"][0] > 0
+    hdd65 = np.array([5000.0, np.nan])
+    res = ev.expected_heating(env, GRID_F, np.tile(climate_5000, (2, 1)), hdd_fixed_base=hdd65)
+    assert res["expected_fixed_base_kbtu"][1] is None and res["expected_modified_kbtu"][1] is None
+    assert res["expected_heating_kbtu"][1] > 0  # the variable-base result does not need HDD65
+    assert np.isnan(hdd65[1])  # the caller's array is untouched
