@@ -226,8 +226,9 @@ def effective_setpoint(setpoint_f, setback_f, setback_hours, realization):
     setback_hours = np.asarray(setback_hours, dtype=float)
     realization = np.asarray(realization, dtype=float)
     _nonneg("setback_f", setback_f)
-    if np.any((setback_hours < 0) | (setback_hours > 24)):
-        raise ValueError(f"setback_hours must be within 0-24 h/day, got {_first_bad(setback_hours, (setback_hours < 0) | (setback_hours > 24))}")
+    if setback_hours.size and not (setback_hours.min() >= 0 and setback_hours.max() <= 24):
+        bad = ~((setback_hours >= 0) & (setback_hours <= 24))
+        raise ValueError(f"setback_hours must be within 0-24 h/day, got {_first_bad(setback_hours, bad)}")
     _fraction("realization", realization)
     return setpoint_f - setback_f * setback_hours / constants()["hours_per_day"] * realization
 
@@ -258,8 +259,8 @@ def balance_point(setpoint_f, gains_btu_h, ua_btu_h_f):
     setpoint_f = np.asarray(setpoint_f, dtype=float)
     gains_btu_h = np.asarray(gains_btu_h, dtype=float)
     ua_btu_h_f = np.asarray(ua_btu_h_f, dtype=float)
-    bad = ~(ua_btu_h_f > 0)
-    if np.any(bad):
+    bad = ~(ua_btu_h_f > 0) if not np.all(ua_btu_h_f > 0) else None
+    if bad is not None:
         raise ValueError(f"ua_btu_h_f must be > 0, got {_first_bad(ua_btu_h_f, bad)}")
     return setpoint_f - gains_btu_h / ua_btu_h_f
 
@@ -290,8 +291,8 @@ def degree_day_heating_kbtu(ua, dd, efficiency):
     efficiency = np.asarray(efficiency, dtype=float)
     _nonneg("ua", ua)
     _nonneg("dd", dd)
-    bad = ~(efficiency > 0)
-    if np.any(bad):
+    bad = ~(efficiency > 0) if not np.all(efficiency > 0) else None
+    if bad is not None:
         raise ValueError(f"efficiency must be > 0, got {_first_bad(efficiency, bad)}")
     return constants()["hours_per_day"] * ua * dd / efficiency / 1000.0
 
@@ -472,12 +473,16 @@ def _first_bad(values: np.ndarray, mask: np.ndarray, ids=None) -> str:
 
 
 def _nonneg(name: str, x: np.ndarray) -> None:
+    if np.all(x >= 0):  # fast path: one pass (NaN fails it)
+        return
     bad = ~(x >= 0)
     if np.any(bad):
         raise ValueError(f"{name} must be >= 0, got {_first_bad(x, bad)}")
 
 
 def _fraction(name: str, x: np.ndarray) -> None:
+    if x.size == 0 or (x.min() >= 0 and x.max() <= 1):  # fast path (NaN fails it)
+        return
     bad = ~((x >= 0) & (x <= 1))
     if np.any(bad):
         raise ValueError(f"{name} must be within 0-1, got {_first_bad(x, bad)}")
@@ -690,23 +695,22 @@ def _model(area, p: dict, given: dict) -> dict[str, np.ndarray]:
     c = constants()
     geo = geometry(area, p["stories"], p["aspect_ratio"], p["floor_to_floor_ft"], p["window_fraction"],
                    given["wall_area_ft2"], given["window_area_ft2"], given["roof_area_ft2"])
-    rho_cp, k_air = air_heat_capacity_ip()
     parts = {
         "ua_walls": p["wall_u_btu_h_ft2_f"] * geo["opaque_wall_ft2"],
         "ua_windows": p["window_u_btu_h_ft2_f"] * geo["window_area_ft2"],
         "ua_roof": p["roof_u_btu_h_ft2_f"] * geo["roof_area_ft2"],
         "ua_ground": p["ground_f_btu_h_ft_f"] * geo["perimeter_ft"],
-        "ua_infiltration": rho_cp * p["ach"] * geo["volume_ft3"],
-        "ua_ventilation": k_air * p["outdoor_air_cfm_ft2"] * area
-        * (1.0 - p["heat_recovery"]) * p["occupied_fraction"],
+        "ua_infiltration": infiltration_ua(p["ach"], geo["volume_ft3"]),
+        "ua_ventilation": ventilation_ua(p["outdoor_air_cfm_ft2"] * area, p["heat_recovery"],
+                                         p["occupied_fraction"]),
     }
     ua = (parts["ua_walls"] + parts["ua_windows"] + parts["ua_roof"] + parts["ua_ground"]
           + parts["ua_infiltration"] + parts["ua_ventilation"])
     ua_used = np.where(np.isnan(given["ua_total_btu_h_f"]), ua, given["ua_total_btu_h_f"])
     gains = c["btu_h_per_w"] * (p["internal_gains_w_ft2"] * area
                                 + p["solar_gains_w_ft2_window"] * geo["window_area_ft2"])
-    t_eff = p["setpoint_f"] - p["setback_f"] * p["setback_hours"] / c["hours_per_day"] * p["setback_realization"]
-    t_bal = np.clip(t_eff - gains / ua_used, c["balance_point_min_f"], c["balance_point_max_f"])
+    t_eff = effective_setpoint(p["setpoint_f"], p["setback_f"], p["setback_hours"], p["setback_realization"])
+    t_bal = np.clip(balance_point(t_eff, gains, ua_used), c["balance_point_min_f"], c["balance_point_max_f"])
     t_bal = np.where(np.isnan(given["balance_point_f"]), t_bal, given["balance_point_f"])
     return {**geo, **parts, "ua_total": ua, "ua_total_used": ua_used, "gains_btu_h": gains,
             "setpoint_effective_f": t_eff, "balance_point_f": t_bal}
@@ -886,7 +890,7 @@ def expected_heating(envelope: pl.DataFrame, base_grid_f: np.ndarray, hdd_curve:
         g = {k: v[sl][:, None] for k, v in given.items()}
         m = _model(area_all[sl][:, None], p, g)
         ddm, clip = _interp_rows(curve[sl], grid, m["balance_point_f"], uniform)
-        q = c["hours_per_day"] / 1000.0 * m["ua_total_used"] * ddm / p["efficiency"]
+        q = degree_day_heating_kbtu(m["ua_total_used"], ddm, p["efficiency"])
         p10[sl], p50[sl], p90[sl] = np.percentile(q, [10.0, 50.0, 90.0], axis=1)
         share[sl] = clip.mean(axis=1)
 
