@@ -320,6 +320,9 @@ def test_audit_data_narrows_the_band(climate_5000):
                  setback_hours=14.0, internal_gains_w_ft2=0.9, heating_efficiency=0.78)
     _, res = run([office(), office(building_id="OF-A", **audit)], climate_5000)
     width = ((res["expected_high_kbtu"] - res["expected_low_kbtu"]) / res["expected_heating_kbtu"]).to_list()
+    # issue 4: inputs given in buildings.csv are known (no spread); with the envelope, schedule and
+    # efficiency given, the remaining spread (geometry, ground, solar) must be clearly smaller: 0.6 is a
+    # loose bound (common practice), the measured ratio is about 0.4
     assert width[1] < 0.6 * width[0]
 
 
