@@ -186,6 +186,8 @@ def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float) -> pl
                                     "blocking": pl.Boolean})
     mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
     heat = heat.with_columns((pl.col("energy_kbtu") / pl.col("days")).alias("_upd"), mid.dt.month().alias("_m"))
+    # only months of substantial use: summer use of a heating fuel varies by large factors on its own
+    heat = heat.filter(pl.col("_upd") >= 0.5 * pl.col("_upd").median().over("building_id", "meter_id"))
     heat = heat.with_columns(pl.col("_upd").median().over("building_id", "meter_id", "_m").alias("_med"),
                              pl.col("_upd").count().over("building_id", "meter_id", "_m").alias("_n"))
     odd = heat.filter((pl.col("_n") >= 2) & (pl.col("_med") > 0) & (pl.col("_upd") > 0)
