@@ -294,9 +294,9 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         j = np.abs(grid[None, :] - base[:, None]).argmin(axis=1)
         periods = periods.with_columns(
             pl.Series("hdd_per_day_fit", period_hdd[np.arange(periods.height), j] / periods["days"].to_numpy()))
-    exp = env.expected_heating(envelope, grid, span_hdd, n_draws=a["draws"], seed=a["seed"])
-    lap("expected")
     hdd65 = cube.at_base(st, spans["span_start"], spans["span_end"], np.full(len(st), 65.0))[0]
+    exp = env.expected_heating(envelope, grid, span_hdd, hdd_fixed_base=hdd65, n_draws=a["draws"], seed=a["seed"])
+    lap("expected")
     hdd_bal = cube.at_base(st, spans["span_start"], spans["span_end"], envelope["balance_point_f"].to_numpy())[0]
 
     # data issues
