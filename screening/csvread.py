@@ -14,8 +14,10 @@ Rules
   column that is missing, or a name that appears twice, is a structural error.
   Unknown extra columns are ignored and listed once as a notice.
 * Records: blank lines are skipped; a record that repeats the header is skipped and
-  reported; a record with the wrong number of fields is rejected with its line.
-  Quoted fields may contain delimiters and newlines.
+  reported; a record with the wrong number of fields, or with a field longer than
+  ``MAX_FIELD_CHARS``, is rejected with its line (never truncated). Quoted fields may
+  contain delimiters and newlines; a quote left open to the end of the file is a
+  structural error. CR-only line ends are read as line ends.
 """
 
 from __future__ import annotations
@@ -32,6 +34,7 @@ from .errors import InputError
 
 LINE_COL = "_line"
 MAX_FIELD_CHARS = 10_000
+_LONG_REASON = f"a field is longer than {MAX_FIELD_CHARS:,} characters"
 
 
 @dataclass
@@ -61,8 +64,9 @@ def _decode(raw: bytes, path: str, encoding: str | None) -> tuple[str, str, list
         return text, "utf-8", notices
     except UnicodeDecodeError as exc:
         bad_line = raw[: exc.start].count(b"\n") + 1
+    body = raw[3:] if raw.startswith(b"\xef\xbb\xbf") else raw   # a BOM is not Latin-1 text
     try:
-        text = raw.decode("cp1252")
+        text = body.decode("cp1252")
     except UnicodeDecodeError:
         raise InputError(path, "file is neither UTF-8 nor Latin-1/cp1252 text", line=bad_line,
                          expected="a CSV text file") from None
@@ -110,6 +114,8 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
     except OSError as exc:
         raise InputError(label, f"cannot read file ({exc.strerror or exc})") from None
     text, enc, notices = _decode(raw, label, encoding)
+    if "\n" not in text and "\r" in text:   # old-style CR-only line ends
+        text = text.replace("\r", "\n")
     if not text.strip():
         raise InputError(label, "file is empty", line=1, expected="a header line and data rows")
 
@@ -148,8 +154,9 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
     if '"' not in text:
         df, rejects, repeated_headers = _fast_records(text, label, delim, header_norm, idx, wanted)
     else:
+        n_lines = text.count("\n") + (0 if text.endswith("\n") else 1)
         df, rejects, repeated_headers = _slow_records(reader, label, delim, header_norm, idx, wanted,
-                                                      n_fields)
+                                                      n_fields, n_lines)
     if repeated_headers:
         notices.append(f"{label}: skipped {repeated_headers} repeated header line(s)")
     if not df.height and not rejects:
@@ -173,22 +180,36 @@ def _fast_records(text, label, delim, header_norm, idx, wanted):
     repeated = int(is_header.sum())
     n_fields = len(header_norm)
     lens = parts.list.len()
-    frame = frame.with_columns(parts.alias("parts"), lens.alias("n"), is_header.alias("hdr"))
+    frame = frame.with_columns(parts.alias("parts"), lens.alias("n"), is_header.alias("hdr"),
+                               (frame["raw"].str.len_chars() > MAX_FIELD_CHARS).alias("long"))
     bad = frame.filter((pl.col("n") != n_fields) & ~pl.col("hdr"))
     rejects = [{"file": label, "line": int(r[LINE_COL]), "column": "", "value": r["raw"][:80],
                 "reason": f"expected {n_fields} fields, found {r['n']}"}
                for r in bad.select(LINE_COL, "raw", "n").iter_rows(named=True)]
-    good = frame.filter((pl.col("n") == n_fields) & ~pl.col("hdr"))
+    ok = (pl.col("n") == n_fields) & ~pl.col("hdr")
+    if bool(frame["long"].any()):
+        long_field = pl.col("parts").list.eval(pl.element().str.len_chars()).list.max() > MAX_FIELD_CHARS
+        frame = frame.with_columns((pl.col("long") & long_field).alias("long"))
+        rejects += [{"file": label, "line": int(r[LINE_COL]), "column": "", "value": r["raw"][:80],
+                     "reason": _LONG_REASON}
+                    for r in frame.filter(ok & pl.col("long")).select(LINE_COL, "raw").iter_rows(named=True)]
+        ok = ok & ~pl.col("long")
+    good = frame.filter(ok)
     exprs = []
     for name, k in zip(wanted, idx):
-        v = pl.col("parts").list.get(k).str.strip_chars().str.slice(0, MAX_FIELD_CHARS)
+        v = pl.col("parts").list.get(k).str.strip_chars()
         exprs.append(pl.when(v == "").then(None).otherwise(v).alias(name))
     df = good.select(*exprs, pl.col(LINE_COL))
     return df, rejects, repeated
 
 
-def _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields):
-    """Records through the csv module (quoted fields, embedded newlines)."""
+def _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields, n_lines):
+    """Records through the csv module (quoted fields, embedded newlines).
+
+    A record with too few fields that spans several lines up to the end of the file is
+    an unclosed quote (the csv module reads it to the end): a structural error, since
+    every later record is lost inside it.
+    """
     cols: list[list[str | None]] = [[] for _ in wanted]
     lines: list[int] = []
     rejects: list[dict] = []
@@ -212,16 +233,22 @@ def _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields):
             repeated_headers += 1
             continue
         if len(row) != n_fields:
+            if reader.line_num > this_line and any("\n" in f for f in row) and reader.line_num >= n_lines:
+                raise InputError(label, "a quoted field is never closed", line=this_line,
+                                 expected='a closing " before the end of the file')
             rejects.append({"file": label, "line": this_line, "column": "",
                             "value": delim.join(row)[:80],
                             "reason": f"expected {n_fields} fields, found {len(row)}"})
             continue
+        if any(len(f) > MAX_FIELD_CHARS for f in row):
+            rejects.append({"file": label, "line": this_line, "column": "", "value": delim.join(row)[:80],
+                            "reason": _LONG_REASON})
+            continue
         for j, k in enumerate(idx):
             v = row[k].strip()
-            if len(v) > MAX_FIELD_CHARS:
-                v = v[:MAX_FIELD_CHARS]
             cols[j].append(v if v != "" else None)
         lines.append(this_line)
     df = pl.DataFrame({name: pl.Series(name, col, dtype=pl.String) for name, col in zip(wanted, cols)}
                       | {LINE_COL: pl.Series(LINE_COL, lines, dtype=pl.Int64)})
     return df, rejects, repeated_headers
+

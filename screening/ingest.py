@@ -149,7 +149,10 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tu
             try:
                 v, p = parse_date(s, date_order=opts.date_order, min_date=opts.min_date, max_date=opts.max_date)
             except AmbiguousDates as exc:
-                raise InputError(label, str(exc), column=col) from None
+                slash = s.str.strip_chars().str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]\d{2,4}$").fill_null(False)
+                first = raw.filter(slash)[LINE_COL]
+                raise InputError(label, str(exc), column=col, line=int(first[0]) if first.len() else None,
+                                 expected="YYYY-MM-DD dates, or [reading] date_order set") from None
         else:  # pragma: no cover - spec is static
             raise ValueError(kind)
         if required:
