@@ -1,0 +1,132 @@
+"""End-to-end checks of the screening computation on in-memory frames (no files).
+
+Check values:
+- a year at a constant 35 °F daily mean gives 30 × 365 = 10,950 °F·day at base 65 °F, and a building
+  with UA given loses UA × 30 × 8,760 Btu over it (degree-day method Q = 24·UA·HDD, common practice);
+- bills made exactly by Q = 24·UA·HDD65/η with no baseload are recovered: the regression finds τ = 65 °F,
+  metered heating equals the expectation (ratio 1) and the bills' effective UA equals the given UA.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import numpy as np
+import polars as pl
+import pytest
+
+from screening import config as cfgmod
+from screening.pipeline import screen_frames
+from screening.window import add_months
+
+UA = 5_000.0  # Btu/(h·°F), given
+
+
+def _building(**kw) -> dict:
+    row = {"building_id": "T1", "name": "Test One", "station_id": "S1", "use_type": "office",
+           "floor_area_ft2": 20_000.0, "year_built": 1990, "stories": 2, "heating_fuel": "natural_gas",
+           "heating_efficiency": 1.0, "ua_total_btu_h_f": UA, "balance_point_f": 65.0, "_line": 2}
+    row.update(kw)
+    return row
+
+
+def _buildings(rows: list[dict]) -> pl.DataFrame:
+    from screening.ingest import BUILDING_COLUMNS
+    cols = {canon: None for _, canon, *_ in BUILDING_COLUMNS}
+    frame = pl.DataFrame([cols | r for r in rows], infer_schema_length=None)
+    casts = {c: pl.Float64 for c in frame.columns if frame.schema[c] == pl.Null}
+    casts.update({"address": pl.String, "city": pl.String})
+    return frame.cast(casts).with_columns(pl.col("year_built").cast(pl.Int64), pl.col("stories").cast(pl.Int64),
+                                          pl.col("_line").cast(pl.Int64))
+
+
+def _weather(t_mean_fn, start: dt.date, days: int) -> pl.DataFrame:
+    dates = [start + dt.timedelta(days=i) for i in range(days)]
+    t = np.array([t_mean_fn(i) for i in range(days)])
+    return pl.DataFrame({"station_id": ["S1"] * days, "date": dates, "t_min_f": t - 8.0, "t_max_f": t + 8.0,
+                         "t_mean_f": t})
+
+
+def _monthly_readings(weather: pl.DataFrame, start: dt.date, months: int, ua: float, eta: float) -> pl.DataFrame:
+    rows = []
+    tm = dict(zip(weather["date"].to_list(), weather["t_mean_f"].to_list()))
+    for m in range(months):
+        s = add_months(start, m)
+        e = add_months(start, m + 1) - dt.timedelta(days=1)
+        hdd = sum(max(0.0, 65.0 - tm[s + dt.timedelta(days=i)]) for i in range((e - s).days + 1))
+        therm = 24.0 * ua * hdd / eta / 100_000.0
+        rows.append({"building_id": "T1", "fuel": "natural_gas", "period_start": s, "period_end": e,
+                     "quantity": therm, "unit": "therm", "estimated": False, "cost": None, "meter_id": "",
+                     "_line": m + 2})
+    return pl.DataFrame(rows).with_columns(pl.col("cost").cast(pl.Float64), pl.col("_line").cast(pl.Int64))
+
+
+def _cfg(**analysis) -> dict:
+    return cfgmod.load(None, {"analysis": analysis} if analysis else None)
+
+
+def test_constant_35F_year_gives_10950_hdd65_and_ua_x_30_x_8760():
+    start = dt.date(2025, 1, 1)
+    w = _weather(lambda i: 35.0, dt.date(2023, 1, 1), 365 * 3 + 2)
+    b = _buildings([_building()])
+    r = _monthly_readings(w, start, 12, UA, 1.0)
+    res = screen_frames(b, r, w, _cfg(), window=(start, dt.date(2025, 12, 31))).results
+    row = res.row(0, named=True)
+    assert row["hdd65"] == pytest.approx(10_950.0)          # 30 °F·day × 365 days (common practice)
+    assert row["hdd_balance"] == pytest.approx(10_950.0)    # given balance point 65 °F
+    # Q = UA × 30 × 8,760 Btu, η = 1 (common practice): 5,000 × 30 × 8,760 / 1,000 kBtu
+    assert row["expected_heating_kbtu"] == pytest.approx(UA * 30 * 8760 / 1000, rel=1e-9)
+    assert row["expected_fixed_base_kbtu"] == pytest.approx(UA * 30 * 8760 / 1000, rel=1e-9)
+    # every envelope input known: the band collapses onto the point
+    assert row["expected_low_kbtu"] == pytest.approx(row["expected_high_kbtu"], rel=1e-9)
+
+
+def test_bills_made_by_the_degree_day_method_are_recovered():
+    # a seasonal climate (sinusoid, mean 50 °F, amplitude 25 °F) so the regression sees a range of HDD
+    w = _weather(lambda i: 50.0 - 25.0 * np.cos(2 * np.pi * (i - 15) / 365.25), dt.date(2023, 10, 1), 365 * 3 + 2)
+    b = _buildings([_building(heating_efficiency=0.8)])
+    r = _monthly_readings(w, dt.date(2024, 10, 1), 24, UA, 0.8)
+    res = screen_frames(b, r, w, _cfg(), window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30))).results
+    row = res.row(0, named=True)
+    assert row["fit_method"] == "regression"
+    assert row["fitted_base_f"] == pytest.approx(65.0)
+    assert row["ratio"] == pytest.approx(1.0, rel=1e-6)
+    assert row["effective_ua_btu_h_f"] == pytest.approx(UA, rel=1e-6)   # β·η/24 (degree-day method inverted)
+    assert row["needs_review"] is False
+    assert row["data_issue_codes"] == []
+
+
+def test_doubling_the_bills_is_flagged_above_the_band():
+    w = _weather(lambda i: 50.0 - 25.0 * np.cos(2 * np.pi * (i - 15) / 365.25), dt.date(2023, 10, 1), 365 * 3 + 2)
+    b = _buildings([_building(heating_efficiency=0.8)])
+    r = _monthly_readings(w, dt.date(2024, 10, 1), 24, 2 * UA, 0.8)
+    res = screen_frames(b, r, w, _cfg(), window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30))).results
+    row = res.row(0, named=True)
+    assert row["ratio"] == pytest.approx(2.0, rel=1e-6)
+    assert "above_band" in row["flag_codes"]
+    assert row["band_position"] == "above"
+
+
+def test_unknown_station_is_rejected_with_its_line():
+    w = _weather(lambda i: 35.0, dt.date(2025, 1, 1), 365)
+    b = _buildings([_building(), _building(building_id="T2", station_id="NOWHERE", _line=3)])
+    r = _monthly_readings(w, dt.date(2025, 1, 1), 12, UA, 1.0)
+    out = screen_frames(b, r, w, _cfg(), window=(dt.date(2025, 1, 1), dt.date(2025, 12, 31)),
+                        paths={"buildings": "b.csv", "readings": "r.csv"})
+    rej = out.rejects.to_dicts()
+    assert {"file": "b.csv", "line": 3, "column": "station_id", "value": "NOWHERE",
+            "reason": "unknown station (not in the weather data)"} in rej
+    assert out.results["building_id"].to_list() == ["T1"]
+
+
+def test_weather_gap_longer_than_three_days_is_a_blocking_data_issue():
+    w = _weather(lambda i: 50.0 - 25.0 * np.cos(2 * np.pi * (i - 15) / 365.25), dt.date(2023, 10, 1), 365 * 3 + 2)
+    w = w.filter(~pl.col("date").is_between(dt.date(2026, 1, 10), dt.date(2026, 1, 20)))
+    b = _buildings([_building(heating_efficiency=0.8)])
+    full = _weather(lambda i: 50.0 - 25.0 * np.cos(2 * np.pi * (i - 15) / 365.25), dt.date(2023, 10, 1), 365 * 3 + 2)
+    r = _monthly_readings(full, dt.date(2024, 10, 1), 24, UA, 0.8)
+    res = screen_frames(b, r, w, _cfg(), window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30))).results
+    row = res.row(0, named=True)
+    assert "weather_gap" in row["data_issue_codes"]
+    assert row["tier"] == "Fix data first"
+    assert row["needs_review"] is False
