@@ -5,7 +5,8 @@ label is XML-escaped here, so a chart is safe to place in a page as markup.
 
 Print design: black and greys only; series differ by shape and stroke (solid line,
 dashed line, open circles, solid vs outlined bars), never by colour alone. Text uses the
-DejaVu Sans family that the page stylesheets also use.
+small "ddscreen Sans" faces (regular and bold, cut from DejaVu Sans Condensed) that
+the page stylesheets load, so a PDF embeds two small font subsets.
 
 Why hand-written SVG rather than a charting library: see ``docs/rendering.md`` (measured
 cost per sheet); the short version is that a chart here costs well under a millisecond
@@ -22,7 +23,7 @@ import numpy as np
 
 __all__ = ["nice_ticks", "fmt_tick", "scatter_chart", "annual_chart", "peer_chart", "ratio_histogram"]
 
-_FONT = 'font-family="DejaVu Sans, sans-serif"'
+_FONT = 'font-family="ddscreen Sans, DejaVu Sans Condensed, sans-serif"'
 INK = "#000"
 MID = "#555"
 LIGHT = "#bbb"
@@ -148,7 +149,7 @@ def _clip_line(intercept, slope, xlo, xhi, ylo, yhi):
 
 def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[float | None], *,
                   fit_line: dict | None, expected_line: dict | None, x_label: str, y_label: str,
-                  width: float = 360, height: float = 210) -> str:
+                  width: float = 360, height: float = 200) -> str:
     """Use per day against degree days per day, one open circle per period.
 
     ``fit_line`` and ``expected_line`` are ``{"intercept", "slope"}`` in the same units
@@ -191,14 +192,14 @@ def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[floa
     px, py = f.px(xs), f.py(ys)
     out.append("".join(f'<circle cx="{a:.1f}" cy="{b:.1f}" r="2.6" fill="#fff" stroke="{INK}" stroke-width="1"/>'
                        for a, b in zip(px.tolist(), py.tolist())))
-    lx = f.x0 + 4
-    out.append(f'<circle cx="{lx + 9:.1f}" cy="9" r="2.6" fill="#fff" stroke="{INK}"/>'
-               f'<text x="{lx + 22:.1f}" y="12" font-size="8" {_FONT}>period</text>')
-    lx += 60
+    lx = f.x0 + 2
+    out.append(f'<circle cx="{lx + 4:.1f}" cy="9" r="2.6" fill="#fff" stroke="{INK}"/>'
+               f'<text x="{lx + 10:.1f}" y="12" font-size="8" {_FONT}>period</text>')
+    lx += 44
     for dash, label in legend:
-        out.append(f'<line x1="{lx:.1f}" y1="9" x2="{lx + 18:.1f}" y2="9" stroke="{INK}" stroke-width="1.4"{dash}/>'
-                   f'<text x="{lx + 22:.1f}" y="12" font-size="8" {_FONT}>{escape(label)}</text>')
-        lx += 22 + 5.2 * len(label) + 10
+        out.append(f'<line x1="{lx:.1f}" y1="9" x2="{lx + 16:.1f}" y2="9" stroke="{INK}" stroke-width="1.4"{dash}/>'
+                   f'<text x="{lx + 19:.1f}" y="12" font-size="8" {_FONT}>{escape(label)}</text>')
+        lx += 19 + 4.5 * len(label) + 8
     dropped = int((~ok).sum())
     if dropped:
         out.append(f'<text x="{f.x1:.1f}" y="{f.y1 + 10:.1f}" text-anchor="end" font-size="7.5" {_FONT} '
@@ -248,7 +249,7 @@ def annual_chart(labels: Sequence[str], metered: Sequence[float | None], expecte
 
 
 def peer_chart(peers: Sequence[float | None], value: float | None, median: float | None, *, x_label: str,
-               width: float = 300, height: float = 210, max_ticks: int = 80) -> str:
+               width: float = 300, height: float = 240, max_ticks: int = 80) -> str:
     """Where one building sits among its peer group on a single axis.
 
     Up to ``max_ticks`` peers are drawn as one grey tick each; larger groups as a
@@ -282,9 +283,10 @@ def peer_chart(peers: Sequence[float | None], value: float | None, median: float
         note = f"{p.size} buildings in the group, bars count buildings"
     if med is not None:
         xm = float(f.px(med))
+        xl = min(max(xm, f.x0 + 26), f.x1 - 26)
         out.append(f'<line x1="{xm:.1f}" y1="{f.y0:.1f}" x2="{xm:.1f}" y2="{f.y1 + 14:.1f}" stroke="{INK}" '
                    f'stroke-width="1.2" stroke-dasharray="4 2"/>'
-                   f'<text x="{xm:.1f}" y="{f.y1 + 11:.1f}" text-anchor="middle" font-size="8" {_FONT}>peer median</text>')
+                   f'<text x="{xl:.1f}" y="{f.y1 + 11:.1f}" text-anchor="middle" font-size="8" {_FONT}>peer median</text>')
     if v is not None:
         xv = float(f.px(v))
         ty = f.y0 - 52

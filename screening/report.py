@@ -88,7 +88,7 @@ def safe_filename(building_id: str) -> str:
     folding of accents); every other run of characters becomes one ``_``; leading dots,
     dashes and underscores and trailing dots are stripped; it is cut to 60 characters.
     When that changed anything, or the result is empty or a Windows device name
-    (CON, NUL, COM1 ...), ``-`` plus the first 10 hex digits of SHA-256 of the UTF-8 id
+    (CON, NUL, COM1 ... with any extension; then prefixed with ``id_``), ``-`` plus the first 10 hex digits of SHA-256 of the UTF-8 id
     is appended, so two ids that sanitize alike still get different stems. An id that is
     already safe is kept unchanged. Deterministic; no I/O.
     """
@@ -99,6 +99,8 @@ def safe_filename(building_id: str) -> str:
     reserved = readable.split(".")[0].upper() in _WINDOWS_RESERVED
     if readable == building_id and readable and not reserved:
         return readable
+    if reserved:  # Windows reserves "COM1" with any extension too: move the name off it
+        readable = f"id_{readable}"
     return f"{readable or 'building'}-{_id_hash(building_id)}"
 
 
@@ -277,6 +279,18 @@ def _items(seq, n_items, n_chars):
     return shown, len(seq) - len(shown)
 
 
+def svg_img(svg: str, alt: str) -> Markup:
+    """An ``<img>`` holding an SVG as a base64 ``data:`` URI.
+
+    As an image the chart is parsed by WeasyPrint's SVG reader only, instead of adding
+    each SVG node to the HTML cascade (measured: see docs/rendering.md).
+    """
+    import base64
+
+    data = base64.b64encode(svg.encode("utf-8")).decode("ascii")
+    return Markup('<img class="chart" alt="{}" src="data:image/svg+xml;base64,{}">').format(alt, data)
+
+
 def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     """Everything a sheet template shows, as display strings (plus chart SVG markup)."""
     if not 0 <= level <= MAX_LEVEL:
@@ -317,7 +331,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "part": _PART_NAMES.get(p.get("part"), _cut(p.get("part"), 30)),
         "value": fmt_num(v),
         "pct": f"{100.0 * v / vmax:.1f}" if _finite(v) and v > 0 and vmax > 0 else "0",
-        "share": fmt_pct(v / total, 0) if _finite(v) and _finite(total) and total > 0 else "",
+        "share": fmt_pct(v / total, 0) if _finite(v) and v >= 0 and _finite(total) and total > 0 else "",
     } for p, v in zip(parts, vals)]
 
     asm_all = s.get("assumptions") or []
@@ -382,8 +396,8 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "excess_energy": fmt_num(s.get("excess_energy")),
         "excess_cost": fmt_money(s.get("excess_cost"), cur),
         "excess_co2e": co2_v, "co2e_unit": co2_u,
-        "chart1": Markup(chart1), "chart1_title": chart1_title, "chart1_caption": chart1_caption,
-        "chart2": Markup(chart2),
+        "chart1": svg_img(chart1, chart1_title), "chart1_title": chart1_title, "chart1_caption": chart1_caption,
+        "chart2": svg_img(chart2, "place among peers"),
         "chart2_caption": (f"Heating per degree day of the {n_peers} building(s) in the group, this one included."
                            if n_peers else "No peer group figures for this building."),
         "ua_parts": ua_parts, "ua_total": fmt_num(total), "ua_unit": s.get("ua_unit", ""),
@@ -482,6 +496,30 @@ def _atomic_write(data: bytes, target: Path) -> None:
         raise
 
 
+_DO = re.compile(rb"/([^\s/\[\]()<>{}%]+)\s+Do\b")
+
+
+def _prune_xobjects(page):
+    """Give a page a /Resources dict holding only the form XObjects its content draws.
+
+    WeasyPrint shares one resource dict between all pages of a document, so every page
+    of a 50-sheet chunk would otherwise carry (and a split file would copy) the chart
+    forms of all 50 sheets.
+    """
+    from pypdf.generic import DictionaryObject, NameObject
+
+    res = page["/Resources"].get_object()
+    xo = res.get("/XObject")
+    if xo is None:
+        return page
+    xo = xo.get_object()
+    used = {m.decode("latin-1") for m in _DO.findall(page.get_contents().get_data())}
+    new_res = DictionaryObject({k: v for k, v in res.items() if k != "/XObject"})
+    new_res[NameObject("/XObject")] = DictionaryObject({k: v for k, v in xo.items() if k[1:] in used})
+    page[NameObject("/Resources")] = new_res
+    return page
+
+
 def _write_pages(pdf_bytes: bytes, picks: Iterable[tuple[int, Path, str]]) -> None:
     """Write chosen pages of one PDF as single-page files, each with its own /Title."""
     from pypdf import PdfReader, PdfWriter
@@ -489,7 +527,7 @@ def _write_pages(pdf_bytes: bytes, picks: Iterable[tuple[int, Path, str]]) -> No
     reader = PdfReader(io.BytesIO(pdf_bytes))
     for index, target, title in picks:
         writer = PdfWriter()
-        writer.add_page(reader.pages[index])
+        writer.add_page(_prune_xobjects(reader.pages[index]))
         writer.add_metadata({"/Title": title, "/Creator": f"ddscreen {__version__}",
                              "/Producer": "ddscreen via WeasyPrint and pypdf"})
         buf = io.BytesIO()
@@ -665,7 +703,7 @@ def ranking_view(report: dict[str, Any]) -> dict[str, Any]:
         "total_cost": fmt_money(totals.get("excess_cost"), cur),
         "total_co2e": co2_v, "co2e_unit": co2_u,
         "intensity_unit": report.get("intensity_unit", ""),
-        "chart": Markup(charts.ratio_histogram(report.get("ratios") or [])),
+        "chart": svg_img(charts.ratio_histogram(report.get("ratios") or []), "distribution of ratios"),
         "top": rows[:10], "rows": rows,
         "data_issues": [{"building_id": _cut(d.get("building_id"), 40), "name": _cut(d.get("name"), 80),
                          "code": _cut(d.get("code"), 40), "explanation": _cut(d.get("explanation"), 300)}

@@ -1,0 +1,135 @@
+"""Tests of the SVG chart builders (screening.charts)."""
+
+from __future__ import annotations
+
+import math
+import xml.etree.ElementTree as ET
+
+import numpy as np
+import pytest
+
+from screening import charts
+
+SVG = "{http://www.w3.org/2000/svg}"
+
+
+def parse(svg: str) -> ET.Element:
+    return ET.fromstring(svg)  # raises on anything that is not well-formed XML
+
+
+# --- nice_ticks ---------------------------------------------------------------------
+
+@pytest.mark.parametrize("lo, hi, n, expected", [
+    (0, 37, 5, [0, 10, 20, 30, 40]),        # by hand: raw step 7.4 -> 10
+    (0, 1.3, 4, [0, 0.5, 1.0, 1.5]),         # by hand: raw 0.325 -> 0.5
+    (-3, 12, 5, [-5, 0, 5, 10, 15]),         # by hand: raw 3 -> 5
+    (0, 9, 4, [0, 2.5, 5, 7.5, 10]),         # by hand: raw 2.25 -> 2.5
+])
+def test_nice_ticks_hand_values(lo, hi, n, expected):
+    np.testing.assert_allclose(charts.nice_ticks(lo, hi, n), expected, atol=1e-12)
+
+
+def test_nice_ticks_cover_range_with_round_steps():
+    rng = np.random.default_rng(3)
+    for lo, hi in rng.uniform(-1e6, 1e6, size=(200, 2)):
+        t = charts.nice_ticks(float(lo), float(hi), 5)
+        assert t[0] <= min(lo, hi) + 1e-6 and t[-1] >= max(lo, hi) - 1e-6
+        step = t[1] - t[0]
+        mant = step / 10 ** math.floor(math.log10(step))
+        assert any(math.isclose(mant, m, rel_tol=1e-9) for m in (1, 2, 2.5, 5, 10))
+
+
+def test_nice_ticks_bad_input_messages():
+    with pytest.raises(ValueError, match=r"finite bounds, got lo=nan"):
+        charts.nice_ticks(float("nan"), 1.0)
+    with pytest.raises(ValueError, match=r"n >= 1, got n=0"):
+        charts.nice_ticks(0.0, 1.0, 0)
+
+
+def test_nice_ticks_equal_bounds_widen():
+    t = charts.nice_ticks(5.0, 5.0)
+    assert t[0] < 5.0 < t[-1]
+
+
+# --- scatter ------------------------------------------------------------------------
+
+def test_scatter_draws_one_circle_per_finite_point_and_both_lines():
+    x = [30, 20, 10, None, 2, float("nan")]
+    y = [900, 620, 330, 100, 140, 5]
+    svg = charts.scatter_chart(x, y, fit_line={"intercept": 80, "slope": 27},
+                               expected_line={"intercept": 80, "slope": 22}, x_label="dd", y_label="use")
+    root = parse(svg)
+    circles = root.findall(f"{SVG}circle")
+    assert len(circles) == 4 + 1  # 4 finite points + 1 legend marker
+    dashed = [ln for ln in root.findall(f"{SVG}line") if ln.get("stroke-width") == "1.4"]
+    assert len(dashed) == 4  # two data lines + two legend samples
+    assert "2 period(s) not plotted" in svg
+
+
+def test_scatter_line_is_clipped_inside_the_plot():
+    svg = charts.scatter_chart([0, 10], [0, 10], fit_line={"intercept": 0, "slope": 1e6}, expected_line=None,
+                               x_label="x", y_label="y", width=300, height=200)
+    lines = [ln for ln in parse(svg).findall(f"{SVG}line") if ln.get("stroke-width") == "1.4"]
+    for ln in lines:
+        for k in ("y1", "y2"):
+            assert 0 <= float(ln.get(k)) <= 200
+
+
+def test_scatter_escapes_labels_and_handles_no_data():
+    svg = charts.scatter_chart([1], [2], fit_line=None, expected_line=None, x_label="<b>&x", y_label="y")
+    assert "&lt;b&gt;&amp;x" in svg and "<b>" not in svg
+    parse(svg)
+    empty = charts.scatter_chart([None], [None], fit_line=None, expected_line=None, x_label="x", y_label="y")
+    assert "no period data" in empty
+    parse(empty)
+
+
+def test_scatter_length_mismatch_message():
+    with pytest.raises(ValueError, match=r"differ in length: 2 != 1"):
+        charts.scatter_chart([1, 2], [1], fit_line=None, expected_line=None, x_label="x", y_label="y")
+
+
+# --- annual, peers, histogram -----------------------------------------------------
+
+def test_annual_bars_and_missing_values():
+    svg = charts.annual_chart(["2024", "2025"], [100.0, None], [90.0, 95.0], y_label="kBtu")
+    root = parse(svg)
+    bars = [r for r in root.findall(f"{SVG}rect") if r.get("width") != "12"]
+    assert len(bars) == 3  # three finite values; the missing one is written as n/a
+    assert "n/a" in svg
+    with pytest.raises(ValueError, match=r"differ in length: 1, 2, 2"):
+        charts.annual_chart(["2025"], [1, 2], [1, 2], y_label="x")
+
+
+def test_peer_chart_ticks_or_histogram():
+    few = charts.peer_chart([1, 2, 3, 4], 3.5, 2.5, x_label="i")
+    assert "4 building(s) in the group" in few and "this building" in few
+    many = charts.peer_chart(list(np.linspace(0, 10, 300)), 9.0, 5.0, x_label="i")
+    assert "300 buildings in the group" in many
+    parse(few), parse(many)
+    assert "no peer figures" in charts.peer_chart([], None, None, x_label="i")
+
+
+def test_ratio_histogram_counts_match_numpy():
+    rng = np.random.default_rng(5)
+    r = rng.lognormal(0.1, 0.4, size=500)
+    svg = charts.ratio_histogram(list(r) + [None, float("inf")])
+    root = parse(svg)
+    heights = [float(e.get("height")) for e in root.findall(f"{SVG}rect") if e.get("fill") == charts.LIGHT]
+    # reference: numpy.histogram on the same bins, overflow folded into the last bin
+    ref = np.histogram(np.clip(r, 0, 2.95), bins=np.linspace(0, 3, 31))[0]
+    assert len(heights) == int((ref > 0).sum())
+    # bar heights are proportional to the counts
+    ratios = np.array(heights) / ref[ref > 0]
+    np.testing.assert_allclose(ratios, ratios[0], rtol=1e-2)  # 0.1 px rounding in the SVG
+    assert "500 building(s)" in svg
+    with pytest.raises(ValueError, match=r"0 < step < top, got step=0"):
+        charts.ratio_histogram([1.0], step=0)
+
+
+def test_fmt_tick():
+    assert charts.fmt_tick(0) == "0"
+    assert charts.fmt_tick(25000) == "25k"       # by hand
+    assert charts.fmt_tick(1.5e6) == "1.5M"      # by hand
+    assert charts.fmt_tick(2.5) == "2.5"
+    assert charts.fmt_tick(1e12) == "1e+12"

@@ -1,0 +1,287 @@
+"""Tests of the rendering layer (screening.report): file names, the URL fetcher, the
+one-page building sheets and ranking.pdf. PDFs are checked by page count, page size,
+extracted text and metadata, never by bytes."""
+
+from __future__ import annotations
+
+import logging
+import socket
+from pathlib import Path
+
+import pdfplumber
+import pytest
+from pypdf import PdfReader
+
+from screening import report
+from screening.resources import templates_dir
+from tests.sheet_fixtures import HOSTILE_NAME, clone, extreme_sheets, make_report, make_sheet
+
+# Page sizes in PDF points (1/72 in): US Letter 8.5 x 11 in (ANSI/ASME Y14.1);
+# A4 210 x 297 mm (ISO 216) = 595.28 x 841.89 pt. Tolerance 0.5 pt for rounding.
+LETTER = (612.0, 792.0)
+A4 = (595.28, 841.89)
+
+
+# --- file names ---------------------------------------------------------------------
+
+def test_safe_id_is_kept():
+    assert report.safe_filename("B-1001") == "B-1001"
+    assert report.safe_filename("site_7.north") == "site_7.north"
+
+
+@pytest.mark.parametrize("bid", ["../../etc/passwd", "a/b", "a\\b", "x\x00y", "CON", "nul", "Com1.pdf", "LPT9",
+                                 "", "...", " lead", "trail.", "é" * 5, "x" * 500, "<script>"])
+def test_unsafe_ids_get_a_safe_hashed_stem(bid):
+    stem = report.safe_filename(bid)
+    assert stem != bid
+    assert all(c.isalnum() and c.isascii() or c in "._-" for c in stem)
+    assert not stem.startswith((".", "-", "_")) and len(stem) <= 60 + 1 + 10
+    assert stem.split(".")[0].upper() not in {"CON", "NUL", "COM1", "LPT9", "PRN", "AUX"}
+    assert report.safe_filename(bid) == stem  # deterministic
+
+
+def test_assign_filenames_unique_without_case_and_order_free():
+    ids = ["Alpha", "alpha", "ALPHA", "a/b", "a\\b", "a_b", "CON", "con", "B-1", "x" * 300, "x" * 301]
+    names = report.assign_filenames(ids)
+    folded = [n.casefold() for n in names.values()]
+    assert len(set(folded)) == len(ids)
+    assert report.assign_filenames(list(reversed(ids))) == names
+    assert names["B-1"] == "B-1"  # a safe id that clashes with nothing keeps its name
+    with pytest.raises(ValueError, match=r"building id 'B-1' appears more than once"):
+        report.assign_filenames(["B-1", "B-1"])
+    with pytest.raises(TypeError, match=r"building_id must be a str, got int: 7"):
+        report.safe_filename(7)
+
+
+# --- URL fetcher --------------------------------------------------------------------
+
+@pytest.fixture
+def no_network(monkeypatch):
+    """Any attempt to open a socket or a urllib request fails the test."""
+    def refuse(*a, **k):
+        raise AssertionError(f"network access attempted: {a[:2]}")
+    monkeypatch.setattr(socket.socket, "connect", refuse)
+    monkeypatch.setattr(socket, "create_connection", refuse)
+
+
+def test_fetcher_refuses_remote_and_outside_files(no_network, tmp_path):
+    f = report.AssetFetcher()
+    outside = tmp_path / "secret.css"
+    outside.write_text("body{}")
+    for url in ["http://198.51.100.7/x.png", "https://198.51.100.7/", "ftp://198.51.100.7/a",
+                outside.as_uri(), "file:///etc/passwd", (templates_dir() / ".." / "pyproject.toml").as_uri(),
+                "file://198.51.100.7/share/x.css", "file:///dev/urandom"]:
+        with pytest.raises(ValueError, match="refused to fetch"):
+            f.fetch(url)
+    assert len(f.refused) == 8
+
+
+def test_fetcher_serves_template_assets_and_data(no_network):
+    f = report.AssetFetcher()
+    r = f.fetch((templates_dir() / "sheet.css").as_uri())
+    assert b"@page" in r.read()
+    assert f.fetch("data:text/plain;base64,aGk=").read() == b"hi"
+
+
+def test_render_with_remote_references_never_fetches(no_network, tmp_path, caplog):
+    """Even raw markup that asks for remote resources (which the templates never emit)
+    is refused by the fetcher: the render stops instead of reaching out."""
+    from weasyprint import HTML
+    from weasyprint.urls import FatalURLFetchingError
+
+    f = report.AssetFetcher()
+    html = '<img src="http://198.51.100.7/t.png"><link rel="stylesheet" href="file:///etc/passwd">'
+    with pytest.raises(FatalURLFetchingError):
+        HTML(string=html, base_url=templates_dir().as_uri() + "/", url_fetcher=f).render()
+    assert f.refused and all("198.51.100.7" in u or "/etc/passwd" in u for u in f.refused)
+
+
+# --- formatting ---------------------------------------------------------------------
+
+@pytest.mark.parametrize("x, text", [
+    (None, "n/a"), (float("nan"), "n/a"), (float("inf"), "∞"), (0, "0"), (1234567.8, "1,234,568"),
+    (12.345, "12.3"), (0.0812, "0.0812"), (-3.2, "-3.2"), (1e12, "1.00e+12"), (999.5, "1,000"),
+])
+def test_fmt_num(x, text):  # expected strings by hand from the documented rules
+    assert report.fmt_num(x) == text
+
+
+def test_fmt_money_and_co2e():
+    assert report.fmt_money(12345.6) == "$12,346"
+    assert report.fmt_money(-50.0) == "-$50"
+    assert report.fmt_co2e(25400.0) == ("25.4", "t")   # by hand: 25,400 kg = 25.4 t
+    assert report.fmt_co2e(950.0) == ("950", "kg")
+
+
+# --- sheets -------------------------------------------------------------------------
+
+def known_sheet() -> dict:
+    s = make_sheet(0)
+    s.update({"building_id": "B-KNOWN", "name": "Kestrel Row Depot", "actual_heating": 1234567.8,
+              "expected_heating": 867000.4, "ratio": 1.4234, "excess_energy": 367567.4, "excess_cost": 12345.6,
+              "excess_co2e_kg": 25400.0, "heating_intensity": 7.412, "peer_median_intensity": 5.55})
+    return s
+
+
+@pytest.fixture(scope="module")
+def rendered(tmp_path_factory):
+    """Render a few sheets once (one process): known, annual, extremes; plus one A4 sheet."""
+    out = tmp_path_factory.mktemp("sheets")
+    sheets = [known_sheet(), make_sheet(5, annual=True)] + extreme_sheets()
+    stats: dict = {}
+    records: list[logging.LogRecord] = []
+
+    class Grab(logging.Handler):
+        def emit(self, record):
+            records.append(record)
+
+    h = Grab(level=logging.WARNING)
+    logging.getLogger("weasyprint").addHandler(h)
+    try:
+        paths = report.render_sheets(sheets, out / "letter", workers=1, stats=stats)
+        a4 = report.render_sheets([make_sheet(6, units="SI")], out / "a4", paper="A4", workers=1)
+    finally:
+        logging.getLogger("weasyprint").removeHandler(h)
+    return {"sheets": sheets, "paths": paths, "a4": a4, "stats": stats, "out": out, "records": records}
+
+
+def test_every_sheet_is_one_page_of_the_right_size(rendered):
+    for p in rendered["paths"]:
+        r = PdfReader(p)
+        assert len(r.pages) == 1, p
+        box = r.pages[0].mediabox
+        assert float(box.width) == pytest.approx(LETTER[0], abs=0.5)
+        assert float(box.height) == pytest.approx(LETTER[1], abs=0.5)
+    r = PdfReader(rendered["a4"][0])
+    assert len(r.pages) == 1
+    assert (float(r.pages[0].mediabox.width), float(r.pages[0].mediabox.height)) == pytest.approx(A4, abs=0.5)
+
+
+def test_overflowing_sheet_was_shrunk_not_split(tmp_path, monkeypatch):
+    """A sheet that runs over one page in the batch is re-rendered alone, smaller."""
+    big = extreme_sheets()[0]
+    big["building_id"] = "X-BIG"
+    # let level 0 show every item so this sheet cannot fit; the shrink levels still cut
+    monkeypatch.setattr(report, "_LIMITS", [dict(report._LIMITS[0], flags=40, issues=40, steps=40, asm=40)]
+                        + report._LIMITS[1:])
+    st: dict = {}
+    paths = report.render_sheets([make_sheet(0), big, make_sheet(1)], tmp_path, workers=1, stats=st)
+    assert st["batched"] == 2 and st["refit"] == 1
+    assert all(1 <= lv <= report.MAX_LEVEL for lv in st["levels"])
+    assert all(len(PdfReader(p).pages) == 1 for p in paths)
+    assert "X-BIG" in PdfReader(paths[1]).pages[0].extract_text()
+
+
+def test_key_numbers_in_text(rendered):
+    text = PdfReader(rendered["paths"][0]).pages[0].extract_text()
+    # expected strings by hand from the fixture values and the documented formats
+    for s in ["Kestrel Row Depot", "B-KNOWN", "1,234,568", "867,000", "1.42", "367,567", "$12,346", "25.4",
+              "7.41", "5.55", "screening estimate", "combustion",
+              "minimum indoor temperatures", "licensed"]:
+        assert s in text, s
+
+
+def test_hostile_markup_is_literal_text(rendered):
+    k = [i for i, s in enumerate(rendered["sheets"]) if s["name"] == HOSTILE_NAME][0]
+    with pdfplumber.open(rendered["paths"][k]) as pdf:
+        text = pdf.pages[0].extract_text()
+    flat = text.replace("\n", " ")
+    assert '<script>alert("x")</script>' in flat
+    assert '<img src="http://198.51.100.7/track.png">' in flat
+    assert "Smith &" in flat and "Sons" in flat and "{{ 7*7 }}" in flat
+    assert "<svg onload=alert(1)>" in flat
+
+
+def test_no_fetch_leaves_the_templates(rendered):
+    f = report._state()["fetcher"]
+    root = templates_dir().resolve().as_uri()
+    assert f.refused == []
+    assert f.requested and all(u.startswith(("data:", root)) for u in f.requested)
+
+
+def test_split_files_stand_alone(rendered):
+    for sheet, p in zip(rendered["sheets"], rendered["paths"]):
+        r = PdfReader(p)
+        assert r.metadata.title == report.sheet_title(sheet)
+        fonts = r.pages[0]["/Resources"]["/Font"]
+        assert len(fonts) >= 2
+        for f in fonts.values():
+            desc = f.get_object()["/DescendantFonts"][0].get_object()["/FontDescriptor"].get_object()
+            assert "/FontFile2" in desc  # TrueType program embedded
+    # only the sheets were written, all inside the output folder, with safe names
+    out = rendered["out"] / "letter"
+    assert sorted(p.name for p in out.iterdir()) == sorted(p.name for p in rendered["paths"])
+    assert all(p.parent == out.resolve() for p in rendered["paths"])
+    assert sorted(p.name for p in rendered["out"].iterdir()) == ["a4", "letter"]
+
+
+def test_no_weasyprint_warnings(rendered):
+    # the one environment warning allowed: this image lacks the HarfBuzz-Subset library,
+    # so WeasyPrint subsets fonts with fontTools (slower, same output)
+    msgs = [r.getMessage() for r in rendered["records"] if "HarfBuzz-Subset" not in r.getMessage()]
+    assert msgs == []
+
+
+def test_process_pool_path(tmp_path):
+    sheets = [make_sheet(i) for i in range(4)]
+    st: dict = {}
+    paths = report.render_sheets(sheets, tmp_path, workers=2, chunk_size=2, stats=st)
+    assert st["chunks"] == 2 and st["batched"] == 4
+    assert [p.stem for p in paths] == [s["building_id"] for s in sheets]
+    assert all(len(PdfReader(p).pages) == 1 for p in paths)
+
+
+def test_render_sheets_bad_arguments(tmp_path):
+    with pytest.raises(ValueError, match=r"paper must be one of \['A4', 'Letter'\], got 'A3'"):
+        report.render_sheets([], tmp_path, paper="A3")
+    with pytest.raises(ValueError, match=r"workers must be an int >= 1, got 0"):
+        report.render_sheets([], tmp_path, workers=0)
+    with pytest.raises(ValueError, match=r"sheets\[0\] must be a dict with a str 'building_id'"):
+        report.render_sheets([{"building_id": 3}], tmp_path)
+
+
+def test_sheet_view_with_missing_fields_is_complete():
+    v = report.sheet_view(extreme_sheets()[1], 0)
+    assert v["actual_heating"] == "n/a" and v["excess_cost"] == "n/a" and v["place"] == ""
+    with pytest.raises(ValueError, match=r"level must be 0..3, got 9"):
+        report.sheet_view(make_sheet(0), 9)
+
+
+# --- ranking ------------------------------------------------------------------------
+
+def test_ranking_pdf(tmp_path):
+    rep = make_report(90)
+    rep["rows"][0]["name"] = HOSTILE_NAME
+    out = report.render_ranking(rep, tmp_path / "ranking.pdf")
+    r = PdfReader(out)
+    n = len(r.pages)
+    assert n >= 4  # summary, at least two table pages for 90 rows, data issues
+    assert r.metadata.title == "Heating screening ranking, run run-20260302-01"
+    texts = [p.extract_text() for p in r.pages]
+    first = texts[0]
+    for s in ["Top ten", "By tier", report.fmt_num(rep["totals"]["excess_energy"]),
+              report.fmt_money(rep["totals"]["excess_cost"]), "look closer"]:
+        assert s in first, s
+    table_pages = [t for t in texts if "Owlbrook Court" in t and "Top ten" not in t and "what it means" not in t]
+    assert len(table_pages) >= 2
+    for t in table_pages:  # the header repeats on every page of the table
+        assert "intensity" in t and "excess cost" in t
+    for i, t in enumerate(texts, 1):
+        assert f"page {i} of {n}" in t
+        assert "run run-20260302-01" in t
+    assert "Data issues" in texts[-1] and "estimated_reads" in texts[-1]
+    assert '<script>alert("x")</script>' in "".join(texts).replace("\n", "")
+    # every ranked row's ratio appears, in rank order, in the table pages
+    body = "\n".join(texts[1:])
+    pos = [body.find(f"Owlbrook Court {k}") for k in range(1, 90)]
+    assert all(p >= 0 for p in pos) and pos == sorted(pos)
+
+
+def test_ranking_a4_and_empty(tmp_path):
+    rep = make_report(0)
+    out = report.render_ranking(rep, tmp_path / "r.pdf", paper="A4")
+    r = PdfReader(out)
+    assert (float(r.pages[0].mediabox.width), float(r.pages[0].mediabox.height)) == pytest.approx(A4, abs=0.5)
+    assert "No buildings ranked." in r.pages[0].extract_text()
+    with pytest.raises(ValueError, match=r"report must be a dict, got list"):
+        report.render_ranking([], tmp_path / "x.pdf")
