@@ -70,7 +70,12 @@ DEFAULTS: dict[str, dict[str, Any]] = {
     },
     "thresholds": {
         "band_ratio": 1.0,          # metered above expected_high × this → above the band
-        "z_review": 2.0,            # robust z-score of log(ratio) within peers for needs_review
+        "z_review": 2.0,            # robust z-score of log(ratio) within peers that alone puts a building on watch
+        "review_score": 3.5,        # evidence score (z + weighted balance-point and intensity z) for needs_review
+        "weight_balance_point": 1.0,  # weight of the fitted-minus-engineering balance point z in the score
+        "weight_intensity": 0.5,    # weight of the heating-intensity z within peers in the score
+        "audit_first_ratio": 1.5,   # needs_review with metered/expected at least this …
+        "audit_first_score": 5.0,   # … and an evidence score at least this → the most urgent tier
         "peer_percentile_high": 90.0,  # intensity percentile among peers flagged as high
         "min_peer_group": 8,        # peer groups smaller than this fall back to use type
         "baseload_share_high": 1.5,  # baseload share above this × the use type's default share
@@ -81,7 +86,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "coverage_min": 0.9,        # share of the span covered by readings
         "estimated_share_max": 0.5,  # share of estimated reads above which data is weak
         "unit_error_factor": 8.0,   # ratio beyond this (or below its inverse) suggests a unit error
-        "min_excess_ratio": 1.25,   # metered/expected must exceed this for needs_review
+        "min_excess_ratio": 1.0,    # metered/expected (P50) must reach this for needs_review
     },
 }
 

@@ -71,6 +71,13 @@ def robust_z(values: pl.Expr, group: str) -> pl.Expr:
     return pl.when(mad > 0).then((values - med) / (MAD_TO_SIGMA * mad)).otherwise(None)
 
 
+def _robust_z_all(values: pl.Expr) -> pl.Expr:
+    """Robust z-score of ``values`` over the whole portfolio (nulls ignored) [-]."""
+    med = values.median()
+    mad = (values - med).abs().median()
+    return pl.when(mad > 0).then((values - med) / (MAD_TO_SIGMA * mad)).otherwise(None)
+
+
 def percentile_within(values: pl.Expr, group: str) -> pl.Expr:
     """Mid-rank percentile (0–100) of ``values`` within ``group``; null values get null."""
     n = values.count().over(group)
@@ -144,6 +151,21 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         (pl.col("excess_energy_kbtu") * pl.col("kg_co2e_per_kbtu")).alias("excess_co2e_kg"),
     )
     reg = pl.col("fit_method") == "regression"
+    # evidence that does not lean on the envelope estimate: the building's own fitted balance
+    # point against the engineering one (portfolio-wide robust z) and its intensity among peers
+    fit_ok = reg & (pl.col("r2") >= t["r2_min"]).fill_null(False)
+    out = out.with_columns(
+        pl.when(usable & fit_ok & pl.col("fitted_base_f").is_not_null() & pl.col("balance_point_f").is_not_null())
+        .then(pl.col("fitted_base_f") - pl.col("balance_point_f")).otherwise(None).alias("balance_point_excess_f"),
+        pl.when(pl.col("_int_ok") > 0).then(pl.col("_int_ok").log()).otherwise(None).alias("_logi"),
+    )
+    out = out.with_columns(
+        _robust_z_all(pl.col("balance_point_excess_f")).alias("z_balance_point"),
+        robust_z(pl.col("_logi"), "peer_group").alias("z_intensity"),
+    )
+    out = out.with_columns(
+        (pl.col("z_score") + t["weight_balance_point"] * pl.col("z_balance_point").fill_null(0.0)
+         + t["weight_intensity"] * pl.col("z_intensity").fill_null(0.0)).alias("evidence_score"))
     conds = {
         "above_band": pl.col("band_position") == "above",
         "high_among_peers": pl.col("peer_percentile") >= t["peer_percentile_high"],
@@ -156,15 +178,17 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         "shifted_span": pl.col("span_kind") == "shifted",
     }
     out = out.with_columns([c.fill_null(False).alias(f"_f_{k}") for k, c in conds.items()])
-    strong = (pl.col("_f_above_band") & (pl.col("z_score") >= t["z_review"])
-              & (pl.col("ratio") >= t["min_excess_ratio"])).fill_null(False)
+    # a fit that does not follow the weather is no basis for a verdict (often a meter or entry problem)
+    fit_usable = (~reg) | fit_ok
+    strong = ((pl.col("evidence_score") >= t["review_score"]) & (pl.col("ratio") >= t["min_excess_ratio"])
+              & fit_usable).fill_null(False)
     out = out.with_columns(
         (strong & ~pl.col("blocking")).alias("needs_review"),
     )
     watch = (pl.col("_f_above_band") | pl.col("_f_high_among_peers") | pl.col("_f_poor_fit")
              | pl.col("_f_rising_use") | pl.col("_f_high_balance_point") | pl.col("_f_high_baseload")
              | (pl.col("z_score") >= t["z_review"]).fill_null(False))
-    big = (pl.col("ratio") >= 1.5) & (pl.col("z_score") >= 1.5 * t["z_review"])
+    big = (pl.col("ratio") >= t["audit_first_ratio"]) & (pl.col("evidence_score") >= t["audit_first_score"])
     out = out.with_columns(
         pl.when(pl.col("blocking")).then(pl.lit("Fix data first"))
         .when(pl.col("needs_review") & big.fill_null(False)).then(pl.lit("Audit first"))
@@ -193,7 +217,7 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         "actual_heating_kbtu", "expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu", "ratio",
         "heating_intensity", "peer_median_intensity", "peer_percentile", "peer_group", "z_score",
         "baseload_share", "baseload_share_default", "fitted_base_f", "r2", "cv_rmse", "yoy_change",
-        "tier", "needs_review", "blocking", "excess_energy_kbtu", "span_kind", "data_issue_codes",
+        "tier", "needs_review", "blocking", "excess_energy_kbtu", "evidence_score", "z_balance_point", "z_intensity", "span_kind", "data_issue_codes",
         *[c for c in out.columns if c.startswith("_f_")]).to_dicts()
     e = energy_factor
     codes_all, texts_all, verdicts = [], [], []
@@ -235,8 +259,10 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
             v = ("A data problem (" + ", ".join(r["data_issue_codes"] or []) + ") must be fixed before this "
                  "building can be judged.")
         elif r["needs_review"]:
-            v = (f"Heating is {_fmt(r['ratio'], 1)}× what this building should need and stands out from its "
-                 f"peers: recommend an audit.")
+            v = (f"Heating is {_fmt(r['ratio'], 1)}× what this building should need and the evidence of excess "
+                 f"is strong (score {_fmt(r['evidence_score'], 1)} against {t['review_score']:g}: peers "
+                 f"{_fmt(r['z_score'], 1)}, balance point {_fmt(r['z_balance_point'], 1)}, intensity "
+                 f"{_fmt(r['z_intensity'], 1)}): recommend an audit.")
         elif r["tier"] == "Watch":
             v = "Some signs of excess heating, not yet strong enough for an audit; watch next quarter."
         elif r["ratio"] is None:

@@ -1,0 +1,113 @@
+"""Detection measured on an independent simulated portfolio (issue 6, "Measure it").
+
+The portfolio comes from ``sample_portfolio/simulate.py``, an hourly simulation that never
+imports ``screening`` (partial-day heating, schedules, internal and solar gains, hot water,
+drifting read dates, noise, envelope values drawn from its own curves). Faults are planted
+there and recorded in ``truth.csv``; the tool sees only buildings/readings/weather.
+
+Seed 606 is held out: the thresholds in ``screening/config.py`` were chosen on seeds 11, 101
+and 202 (see docs/detection.md) and the demo's seed 2026 was not used.
+
+Floors: the issue's target is recall >= 90 % with false alarms <= 5 %. The tool does not
+reach that recall (docs/detection.md explains why). The asserts below are the measured
+figures on this seed rounded down to a floor that a regression would break: measured
+recall 15/36 = 42 % (floor 35 %), false alarms 4/246 = 1.6 % (ceiling 5 %, the issue's target).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import importlib.util
+import sys
+from pathlib import Path
+
+import polars as pl
+import pytest
+
+from screening import runner
+
+ROOT = Path(__file__).resolve().parents[1]
+SEED = 606          # held out (thresholds were chosen on seeds 11, 101, 202)
+N = 300
+FAULTS = {"wasteful": 0.12, "unit_error": 0.03, "missing_months": 0.03,
+          "duplicate_readings": 0.0, "overlapping_periods": 0.0, "estimated_run": 0.0}
+
+
+def _simulator():
+    spec = importlib.util.spec_from_file_location("ddscreen_test_simulate", ROOT / "sample_portfolio" / "simulate.py")
+    mod = importlib.util.module_from_spec(spec)
+    sys.modules[spec.name] = mod
+    spec.loader.exec_module(mod)
+    return mod
+
+
+@pytest.fixture(scope="module")
+def screened(tmp_path_factory) -> pl.DataFrame:
+    tmp = tmp_path_factory.mktemp("detection")
+    sim = _simulator()
+    frames = sim.simulate_portfolio(N, seed=SEED, start=dt.date(2023, 10, 1), years=3, fault_rates=FAULTS)
+    paths = sim.write_portfolio(frames, tmp / "in")
+    overrides = {"inputs": {"buildings": str(paths["buildings"]), "readings": str(paths["readings"]),
+                            "weather": str(paths["weather"])},
+                 "store": {"database": str(tmp / "screening.duckdb")},
+                 "analysis": {"as_of": "2026-10-15"},          # window 2025-10-01 .. 2026-09-30
+                 "output": {"sheets": False}}
+    runner.run(overrides=overrides, out_dir=str(tmp / "out"), force=True, quiet=True)
+    ranking = pl.read_csv(tmp / "out" / "ranking.csv", infer_schema_length=None)
+    truth = pl.read_csv(paths["truth"])
+    return ranking.join(truth.select("building_id", "truth_label", "waste_factor"), on="building_id", how="inner")
+
+
+def _flag(df: pl.DataFrame) -> pl.Series:
+    col = df["needs_review"]
+    return col if col.dtype == pl.Boolean else col.cast(pl.String).str.to_lowercase() == "true"
+
+
+def test_every_building_is_ranked(screened):
+    # the simulator's frames carry no reject rows, so every building must come back (by construction)
+    assert screened.height == N
+    assert set(screened["truth_label"].unique()) == {"normal", "wasteful", "unit_error", "missing_months"}
+
+
+def test_recall_and_false_alarms(screened):
+    df = screened.with_columns(_flag(screened).alias("_review"))
+    waste = df.filter(pl.col("truth_label") == "wasteful")
+    normal = df.filter(pl.col("truth_label") == "normal")
+    recall = waste["_review"].mean()
+    false_alarm = normal["_review"].mean()
+    print(f"seed {SEED}, N {N}: recall {waste['_review'].sum()}/{waste.height} = {recall:.1%}, "
+          f"false alarms {normal['_review'].sum()}/{normal.height} = {false_alarm:.1%}")
+    assert waste.height >= 30 and normal.height >= 200
+    assert false_alarm <= 0.05       # the issue's target (issue 6)
+    assert recall >= 0.35            # measured floor (42 % on this seed); the issue's 90 % is not met
+
+
+def test_flagged_buildings_carry_more_waste(screened):
+    # the buildings put on the audit list should, as a group, be the larger wasters: the median
+    # waste factor of detected buildings is not below that of the missed ones (measured: holds on this seed)
+    df = screened.with_columns(_flag(screened).alias("_review")).filter(pl.col("truth_label") == "wasteful")
+    hit = df.filter(pl.col("_review"))["waste_factor"].median()
+    miss = df.filter(~pl.col("_review"))["waste_factor"].median()
+    assert hit is not None and miss is not None
+    assert hit >= miss - 0.1
+
+
+def test_unit_errors_go_to_fix_data_first(screened):
+    df = screened.with_columns(_flag(screened).alias("_review")).filter(pl.col("truth_label") == "unit_error")
+    assert df.height >= 5
+    assert not df["_review"].any()                      # a data fault never passes for waste
+    in_fix = (df["tier"] == "Fix data first").mean()
+    assert in_fix >= 0.8                                # measured 8/9 on this seed
+    assert df.filter(pl.col("tier") == "Fix data first")["data_issues"].str.contains("unit").all()
+
+
+def test_missing_months_are_kept_out_of_the_comparison(screened):
+    df = screened.with_columns(_flag(screened).alias("_review")).filter(pl.col("truth_label") == "missing_months")
+    assert df.height >= 5
+    # either the 12 months compared avoid the gap (shifted span, full coverage) or a data issue is raised
+    handled = (df["span_kind"] == "shifted") | df["data_issues"].fill_null("").str.len_chars().gt(0) \
+        | (df["coverage"] >= 0.9)
+    assert handled.all()
+    # the gap itself does not make waste: the review rate is no higher than one building in five
+    # (on this seed 1/9: a building whose shifted span is genuinely high)
+    assert df["_review"].mean() <= 0.2
