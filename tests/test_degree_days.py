@@ -164,6 +164,14 @@ def test_met_office_identity_property(tmin, rng, tb):
     assert h - c == pytest.approx(tb - (tmax + tmin) / 2, abs=1e-9)
 
 
+@settings(max_examples=200, deadline=None)
+@given(st.floats(-40, 110), st.floats(0, 40), st.floats(30, 80))
+def test_met_office_ramp_form_equals_cases(tmin, rng, tb):
+    # the cube uses ¼(Tb − Tmin)⁺ + ½(Tb − Tm)⁺ + ¼(Tb − Tmax)⁺; it must equal the four published cases (ref §2)
+    from screening.degree_days import _maxmin_hdd, _maxmin_hdd_cases
+    assert _maxmin_hdd(tmin + rng, tmin, tb) == pytest.approx(float(_maxmin_hdd_cases(tmin + rng, tmin, tb)), abs=1e-9)
+
+
 # ----------------------------------------------------------------------------- hourly
 
 
