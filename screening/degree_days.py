@@ -707,29 +707,28 @@ class DegreeDayCube:
         e0 = _day_numbers(ends, "ends")
         n = max(s0.size, e0.size)
         if isinstance(station_ids, str):
-            ids = np.full(n, station_ids, dtype=object)
+            ids = pl.Series("station_id", [station_ids] * n, dtype=pl.String)
+        elif isinstance(station_ids, pl.Series):
+            ids = station_ids.cast(pl.String)
         else:
-            ids = np.asarray(station_ids.to_list() if isinstance(station_ids, pl.Series) else station_ids,
-                             dtype=object)
-            if ids.ndim == 0:
-                ids = np.full(n, ids.item(), dtype=object)
+            arr = np.asarray(station_ids, dtype=object)
+            if arr.ndim == 0:
+                arr = np.full(n, arr.item(), dtype=object)
+            ids = pl.Series("station_id", arr.tolist(), dtype=pl.String)
         s0 = np.broadcast_to(s0, (n,)) if s0.size == 1 else s0
         e0 = np.broadcast_to(e0, (n,)) if e0.size == 1 else e0
-        if not (ids.size == s0.size == e0.size):
+        if not (ids.len() == s0.size == e0.size):
             raise ValueError(f"station_ids, starts and ends must have one length; got "
-                             f"{ids.size}, {s0.size}, {e0.size}")
+                             f"{ids.len()}, {s0.size}, {e0.size}")
         if np.any(e0 < s0):
             k = int(np.argmax(e0 < s0))
             raise ValueError(f"period end before start at row {k}: "
                              f"{_to_dates(s0[k:k+1])[0]} to {_to_dates(e0[k:k+1])[0]}")
-        st = np.array(self.stations, dtype=object)
-        order = np.argsort(st)
-        pos = np.searchsorted(st[order], ids) if st.size else np.zeros(ids.size, dtype=np.int64)
-        pos = np.clip(pos, 0, max(st.size - 1, 0))
-        sidx = order[pos] if st.size else pos
-        bad = (st[sidx] != ids) if st.size else np.ones(ids.size, dtype=bool)
-        if np.any(bad):
-            unknown = sorted({str(x) for x in ids[bad]})
+        mapping = {st_id: i for i, st_id in enumerate(self.stations)}
+        sidx_s = ids.replace_strict(mapping, default=-1, return_dtype=pl.Int64)
+        sidx = sidx_s.fill_null(-1).to_numpy()
+        if np.any(sidx < 0):
+            unknown = sorted({str(x) for x in ids.filter(pl.Series(sidx < 0)).to_list()})
             raise ValueError(f"unknown station_id {unknown[0]!r}"
                              + (f" (and {len(unknown) - 1} more)" if len(unknown) > 1 else "")
                              + f"; the weather data has {', '.join(self.stations[:10])}")
@@ -755,7 +754,8 @@ class DegreeDayCube:
         Returns
         -------
         dd : ndarray (n, n_bases)
-            Sum over the period's days that have data. [°F·day]
+            Sum over the period's days that have data. [°F·day] Column-major (a transposed
+            view), so ``dd[:, j]`` — one base for every period — is contiguous.
         days : ndarray (n,) int64
             Calendar days in the period (``end − start + 1``).
         days_missing : ndarray (n,) int64
@@ -764,14 +764,17 @@ class DegreeDayCube:
         """
         _check_kind(kind)
         _, s0, e0, fa, fb = self._rows(station_ids, starts, ends)
-        hdd = (self.cum_hdd[:, fb] - self.cum_hdd[:, fa]).T
         valid = self.cum_valid[fb] - self.cum_valid[fa]
-        if kind == "hdd":
-            dd = hdd
-        else:
-            sum_tm = self.cum_tm[fb] - self.cum_tm[fa]
-            dd = hdd - (valid[:, None] * self.bases_f[None, :] - sum_tm[:, None])
-        dd[dd < _RESIDUE] = 0.0
+        sum_tm = self.cum_tm[fb] - self.cum_tm[fa] if kind == "cdd" else None
+        out = _alloc_f64((self.bases_f.size, fa.size))      # one row per base, filled row by row
+        for j, b in enumerate(self.bases_f):                 # loop over bases only; rows vectorized
+            row = out[j]
+            c = self.cum_hdd[j]
+            np.subtract(c[fb], c[fa], out=row)
+            if sum_tm is not None:
+                row -= valid * b - sum_tm
+            row[row < _RESIDUE] = 0.0
+        dd = out.T
         days = e0 - s0 + 1
         return dd, days, days - valid
 
