@@ -118,12 +118,14 @@ def _setup_file_log(path: Path) -> logging.Handler:
 
 
 def _change_table(store: Store, run_id: str, ranking: pl.DataFrame) -> tuple[pl.DataFrame, str | None]:
-    prev = store.rows("previous_ok_run", {"run_id": run_id})
+    """The change of each building since the latest successful run of an earlier quarter."""
+    prev = store.rows("previous_quarter_ok_run", {"run_id": run_id})
     if not prev:
         return pl.DataFrame(), None
     prev_id = prev[0][0]
     old = store.frame("results_of_run", {"run_id": prev_id})
-    return diff_results(old, ranking), prev_id
+    new = ranking.select("building_id", "rank", pl.col("flag_codes").list.join(";").alias("flags"))
+    return diff_results(old, new), prev_id
 
 
 def diff_results(old: pl.DataFrame, new: pl.DataFrame) -> pl.DataFrame:
@@ -182,7 +184,8 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
         root = Path(cfg["output"]["root"])
         target = root / label
     if target.exists() and root is not None and not force and (target / "summary.json").exists():
-        raise OutputError(f"{target} already holds the outputs of {label}; use --force to replace them")
+        raise ConfigError(f"{target} already holds the outputs of {label}; nothing was changed "
+                          "(use --force to replace them)")
     try:
         target.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -202,13 +205,20 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
     except OSError as exc:
         raise OutputError(f"{target.parent}: cannot write there ({exc.strerror or exc}); earlier outputs untouched") from None
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes it private; the published folder is for readers
     handler = _setup_file_log(tmp / "run.log")
     timings: dict[str, float] = {}
     store = None
     try:
         log.info("run %s: window %s to %s, database %s", run_id, window[0], window[1], db_path)
         store = Store(db_path)
-        store.execute("mark_stale_runs")
+        store.execute("mark_stale_runs")  # we hold the lock: a run still 'running' has died
+        _clean_stale_temp(target, tmp)
+        store.execute("insert_run", {"run_id": run_id, "label": label, "as_of": as_of, "window_start": window[0],
+                                     "window_end": window[1], "out_dir": str(target),
+                                     "config_hash": cfgmod.config_hash(cfg)})
         opts = pipeline.read_options(cfg)
         t = time.perf_counter()
         loads = pipeline.load_inputs(store, files, opts, force=force, log=log.info)
@@ -218,9 +228,6 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             for n in fl.notices:
                 log.warning("%s", n)
         _stage("after_load")
-        store.execute("insert_run", {"run_id": run_id, "label": label, "as_of": as_of, "window_start": window[0],
-                                     "window_end": window[1], "out_dir": str(target),
-                                     "config_hash": cfgmod.config_hash(cfg)})
         b = store.frame("select_buildings")
         r = store.frame("select_readings")
         w = store.frame("select_weather")
@@ -360,6 +367,8 @@ def _deterministic(summary: dict) -> dict:
     """summary.json without the fields that change on every run (kept in the database instead)."""
     s = dict(summary)
     s.pop("timings_s", None)
+    s.pop("run_id", None)
+    s.pop("run_date", None)
     s["inputs"] = [{k: v for k, v in i.items() if k != "status"} for i in s["inputs"]]
     return s
 
@@ -392,6 +401,25 @@ def _prune(root: Path, keep: int, *, keep_name: str) -> None:
     for p in dirs[:-keep]:
         if p.name != keep_name:
             shutil.rmtree(p, ignore_errors=True)
+
+
+def _clean_stale_temp(target: Path, current: Path) -> None:
+    """Remove the temporary folders of runs that died (called under the lock).
+
+    The log of such a run is kept beside the target as ``<label>.interrupted-<time>.log``.
+    """
+    for p in sorted(target.parent.glob(f".{target.name}.tmp-*")) + sorted(target.parent.glob(f".{target.name}.old-*")):
+        if p == current or not p.is_dir():
+            continue
+        logf = p / "run.log"
+        try:
+            if logf.exists():
+                stamp = _dt.datetime.fromtimestamp(logf.stat().st_mtime).strftime('%Y%m%dT%H%M%S')
+                shutil.move(str(logf), target.parent / f"{target.name}.interrupted-{stamp}.log")
+        except OSError:
+            pass
+        shutil.rmtree(p, ignore_errors=True)
+        log.info("removed %s, left by an interrupted run", p)
 
 
 def _keep_failure_log(tmp: Path, target: Path) -> None:

@@ -44,3 +44,12 @@ ORDER BY started_at DESC, run_id DESC LIMIT 1;
 SELECT building_id, rank, tier, needs_review, ratio, actual_heating_kbtu, expected_heating_kbtu,
        normal_heating_kbtu, excess_energy_kbtu, excess_cost, flags, data_issues
 FROM results WHERE run_id = $run_id ORDER BY building_id;
+
+-- name: previous_quarter_ok_run
+-- The latest successful run of an earlier window than the given run's: what a quarter is
+-- compared with. A rerun of the same quarter is compared with the same earlier quarter,
+-- so its outputs are identical.
+SELECT run_id FROM runs
+WHERE status = 'ok' AND run_id <> $run_id
+  AND window_end < (SELECT window_end FROM runs WHERE run_id = $run_id)
+ORDER BY window_end DESC, started_at DESC, run_id DESC LIMIT 1;
