@@ -57,7 +57,7 @@ import polars as pl
 __all__ = [
     "METHODS", "KINDS", "F_PER_C", "daily_mean_dd", "maxmin_dd", "hourly_dd", "erbs_monthly_hdd",
     "erbs_monthly_cdd", "nws_round_mean", "DegreeDayCube", "DailyDegreeDays", "NormalYear",
-    "normal_year", "fill_short_gaps", "degree_day_table", "f_to_c", "c_to_f", "WEATHER_COLUMNS",
+    "normal_year", "fill_short_gaps", "gaps_in_windows", "degree_day_table", "f_to_c", "c_to_f", "WEATHER_COLUMNS",
 ]
 
 METHODS = ("mean", "maxmin", "hourly", "monthly-estimate")
@@ -859,6 +859,11 @@ class DegreeDayCube:
         return DailyDegreeDays(row=row, date=day.astype("datetime64[D]"), dd=dd, missing=~present,
                                bases_f=self.bases_f)
 
+    @property
+    def estimated(self) -> bool:
+        """True for the ``monthly-estimate`` method: its degree days are estimates, to be marked so."""
+        return self.method == "monthly-estimate"
+
     def record(self) -> pl.DataFrame:
         """Each station's record: station_id, first_date, last_date, days, days_with_data."""
         end = self.offset + self.n_days
@@ -1169,6 +1174,36 @@ def fill_short_gaps(weather: pl.DataFrame, max_gap_days: int = 3) -> tuple[pl.Da
             .sort("station_id", "gap_start").select("station_id", "gap_start", "gap_end", "days"))
     out = out.drop("_gap", "_g", "_run", "_gap_len")
     return out, gaps
+
+
+def gaps_in_windows(gaps: pl.DataFrame, windows: pl.DataFrame, *, start: str = "window_start",
+                    end: str = "window_end") -> pl.DataFrame:
+    """Long weather gaps that touch each window (e.g. each building's comparison span).
+
+    Parameters
+    ----------
+    gaps : pl.DataFrame
+        ``station_id, gap_start, gap_end, days`` from :func:`fill_short_gaps`.
+    windows : pl.DataFrame
+        ``station_id`` plus the ``start``/``end`` date columns (inclusive) and any key
+        columns (``building_id`` …), which are kept.
+
+    Returns
+    -------
+    pl.DataFrame
+        One row per (window, gap) overlap: the window's columns, ``gap_start, gap_end``
+        and ``gap_days_in_window`` (days of the gap inside the window); sorted by the
+        window columns then gap_start. Empty when no gap touches any window.
+    """
+    for c in ("station_id", start, end):
+        if c not in windows.columns:
+            raise ValueError(f"windows frame needs column {c!r}; got {windows.columns}")
+    j = windows.join(gaps.select("station_id", "gap_start", "gap_end"), on="station_id", how="inner")
+    j = j.filter((pl.col("gap_start") <= pl.col(end)) & (pl.col("gap_end") >= pl.col(start)))
+    lo = pl.max_horizontal(pl.col("gap_start"), pl.col(start))
+    hi = pl.min_horizontal(pl.col("gap_end"), pl.col(end))
+    j = j.with_columns(((hi - lo).dt.total_days() + 1).cast(pl.Int64).alias("gap_days_in_window"))
+    return j.sort([*windows.columns, "gap_start"])
 
 
 # ----------------------------------------------------------------------------- tables

@@ -345,6 +345,7 @@ def test_monthly_estimate_tmy_annual():
     # 1 % (Sand Point) of the daily-mean annual HDD65 (3868.9 and 9140.3, ref §7)
     for key, actual, tol in (("greensboro", 3868.9, 0.03), ("sand_point", 9140.3, 0.01)):
         est = DegreeDayCube.from_daily(tmy_daily(key), [65.0], method="monthly-estimate")
+        assert est.estimated
         assert est.period_totals(key, S1, E1)[0][0, 0] == pytest.approx(actual, rel=tol)
 
 
@@ -500,6 +501,7 @@ def test_cube_argument_errors():
     with pytest.raises(ValueError, match="t_min_f > t_max_f for station 'S'"):
         DegreeDayCube.from_daily(one_day(20.0, 25.0), [65.0])
     assert METHODS == ("mean", "maxmin", "hourly", "monthly-estimate")
+    assert not cube.estimated
 
 
 # ----------------------------------------------------------------------------- properties
@@ -626,6 +628,21 @@ def test_fill_short_gaps():
     assert days[0] == 13 and miss[0] == 4                       # the long gap stays missing
     _, g0 = fill_short_gaps(w, max_gap_days=0)
     assert g0["days"].to_list() == [3, 4, 1]
+
+
+def test_gaps_in_windows():
+    from screening.degree_days import gaps_in_windows
+    gaps = pl.DataFrame({"station_id": ["A", "A", "B"],
+                         "gap_start": [dt.date(2024, 1, 5), dt.date(2024, 6, 1), dt.date(2024, 1, 1)],
+                         "gap_end": [dt.date(2024, 1, 20), dt.date(2024, 6, 10), dt.date(2024, 1, 9)],
+                         "days": [16, 10, 9]})
+    win = pl.DataFrame({"building_id": ["b1", "b2", "b3"], "station_id": ["A", "A", "C"],
+                        "window_start": [dt.date(2024, 1, 10), dt.date(2024, 2, 1), dt.date(2024, 1, 1)],
+                        "window_end": [dt.date(2024, 12, 31), dt.date(2024, 5, 31), dt.date(2024, 12, 31)]})
+    g = gaps_in_windows(gaps, win)
+    # by hand: b1 overlaps Jan 10–20 (11 days) and Jun 1–10 (10); b2 touches none; b3's station has no gap
+    assert g["building_id"].to_list() == ["b1", "b1"]
+    assert g["gap_days_in_window"].to_list() == [11, 10]
 
 
 def test_fill_short_gaps_does_not_overwrite_given_mean():
