@@ -85,7 +85,8 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "yoy_rise": 0.15,           # normal-year heating up more than 15 % on last year
         "coverage_min": 0.9,        # share of the span covered by readings
         "estimated_share_max": 0.5,  # share of estimated reads above which data is weak
-        "unit_error_factor": 8.0,   # ratio beyond this (or below its inverse) suggests a unit error
+        "unit_error_factor": 8.0,   # a reading this many times off the same month of other years suggests a unit error
+        "unit_error_factor_expected": 25.0,  # metered/expected beyond this (or below its inverse): likely unit error
         "min_excess_ratio": 1.0,    # metered/expected (P50) must reach this for needs_review
     },
 }

@@ -349,7 +349,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     else:
         frame = frame.with_columns(pl.lit(None, dtype=pl.Float64).alias("prev_normal_heating_kbtu"))
     # a ratio that far off the expectation is a data problem, not waste
-    uf = thr["unit_error_factor"]
+    uf = thr["unit_error_factor_expected"]
     far = frame.filter(((pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")) >= uf)
                        | ((pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")) <= 1 / uf))
     if far.height:

@@ -137,8 +137,7 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     # a group too uniform for a MAD falls back to the whole portfolio's spread
     out = out.with_columns(
         pl.when(pl.col("z_score").is_null() & pl.col("_logr").is_not_null())
-        .then((pl.col("_logr") - pl.col("_logr").median())
-              / (MAD_TO_SIGMA * (pl.col("_logr") - pl.col("_logr").median()).abs().median()))
+        .then(_robust_z_all(pl.col("_logr")))
         .otherwise(pl.col("z_score")).alias("z_score"))
     out = out.with_columns(
         (pl.col("actual_heating_kbtu") - pl.col("expected_high_kbtu")).clip(lower_bound=0).alias("excess_energy_kbtu"),
