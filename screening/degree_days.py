@@ -450,7 +450,7 @@ class DailyDegreeDays:
         return pl.DataFrame(cols)
 
 
-@dataclass
+@dataclass(repr=False)
 class DegreeDayCube:
     """Running sums of daily degree days per station on a grid of bases (see module notes).
 
@@ -858,6 +858,11 @@ class DegreeDayCube:
         dd = np.where(present[:, None], hdd, 0.0)
         return DailyDegreeDays(row=row, date=day.astype("datetime64[D]"), dd=dd, missing=~present,
                                bases_f=self.bases_f)
+
+    def __repr__(self) -> str:
+        return (f"DegreeDayCube(method={self.method!r}, stations={len(self.stations)}, "
+                f"days={int(self.n_days.sum())}, bases={self.bases_f.size} "
+                f"[{self.bases_f[0]:g}..{self.bases_f[-1]:g}], rounding={self.rounding})")
 
     @property
     def estimated(self) -> bool:
