@@ -1003,6 +1003,19 @@ class NormalYear:
     monthly_cdd: np.ndarray
     years_used: dict[str, list[int]]
 
+    def for_stations(self, station_ids, kind: str = "hdd") -> np.ndarray:
+        """Normal-year rows (n, n_bases) for each given station id [°F·day]; NaN for a station
+        without a normal (unknown, or no year with enough data)."""
+        _check_kind(kind)
+        table = self.hdd if kind == "hdd" else self.cdd
+        ids = pl.Series("station_id", np.asarray(station_ids, dtype=object).tolist(), dtype=pl.String)
+        idx = ids.replace_strict({s: i for i, s in enumerate(self.stations)}, default=-1,
+                                 return_dtype=pl.Int64).fill_null(-1).to_numpy()
+        out = np.full((idx.size, self.bases_f.size), np.nan)
+        ok = idx >= 0
+        out[ok] = table[idx[ok]]
+        return out
+
     def to_frame(self) -> pl.DataFrame:
         """Long frame: station_id, base_f, hdd, cdd, n_years, first_year, last_year."""
         ns, nb = self.hdd.shape
@@ -1144,19 +1157,13 @@ def fill_short_gaps(weather: pl.DataFrame, max_gap_days: int = 3) -> tuple[pl.Da
     full = cal.join(w, on=["station_id", "date"], how="left").sort("station_id", "date")
     temps = ["t_min_f", "t_max_f", "t_mean_f"]
 
-    def usable(frame_cols=None):
+    def usable() -> pl.Expr:
         return ((pl.col("t_min_f").is_not_null() & pl.col("t_max_f").is_not_null())
                 | pl.col("t_mean_f").is_not_null())
-
-    def run_len(flag: pl.Expr) -> pl.Expr:
-        run = (flag != flag.shift(1)).fill_null(True).cum_sum()
-        return pl.len().over("station_id", run.over("station_id"))
 
     # a day is filled only when it has no usable value at all, lies in a run of ≤ max_gap_days
     # such days, and the column's own null run is ≤ max_gap_days (bounded on both sides)
     full = full.with_columns((~usable()).alias("_gap"))
-    full = full.with_columns(
-        pl.when(pl.col("_gap")).then(pl.col("_gap").cast(pl.Int64)).otherwise(0).alias("_g"))
     full = full.with_columns(
         (pl.col("_gap") != pl.col("_gap").shift(1).over("station_id")).fill_null(True)
         .cum_sum().over("station_id").alias("_run"))
@@ -1177,7 +1184,7 @@ def fill_short_gaps(weather: pl.DataFrame, max_gap_days: int = 3) -> tuple[pl.Da
             .agg(pl.col("date").min().alias("gap_start"), pl.col("date").max().alias("gap_end"),
                  pl.len().cast(pl.Int64).alias("days"))
             .sort("station_id", "gap_start").select("station_id", "gap_start", "gap_end", "days"))
-    out = out.drop("_gap", "_g", "_run", "_gap_len")
+    out = out.drop("_gap", "_run", "_gap_len")
     return out, gaps
 
 

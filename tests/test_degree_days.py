@@ -154,7 +154,7 @@ def test_met_office_rejects_min_above_max():
         maxmin_dd(np.array([20.0, 10.0]), np.array([5.0, 12.0]), 15.5)
 
 
-@settings(max_examples=200, deadline=None)
+@settings(max_examples=200, deadline=None, derandomize=True)
 @given(st.floats(-40, 110), st.floats(0, 40), st.floats(30, 80))
 def test_met_office_identity_property(tmin, rng, tb):
     # HDD − CDD = Tb − (Tmax+Tmin)/2 in every case; both ≥ 0 (ref §2)
@@ -164,7 +164,7 @@ def test_met_office_identity_property(tmin, rng, tb):
     assert h - c == pytest.approx(tb - (tmax + tmin) / 2, abs=1e-9)
 
 
-@settings(max_examples=200, deadline=None)
+@settings(max_examples=200, deadline=None, derandomize=True)
 @given(st.floats(-40, 110), st.floats(0, 40), st.floats(30, 80))
 def test_met_office_ramp_form_equals_cases(tmin, rng, tb):
     # the cube uses ¼(Tb − Tmin)⁺ + ½(Tb − Tm)⁺ + ¼(Tb − Tmax)⁺; it must equal the four published cases (ref §2)
@@ -190,7 +190,7 @@ def test_hourly_greensboro_first_of_january():
     assert hourly_dd(t, 15.5)[0] == pytest.approx(6.558, abs=5e-4)
 
 
-@settings(max_examples=150, deadline=None)
+@settings(max_examples=150, deadline=None, derandomize=True)
 @given(st.lists(st.floats(-30, 100), min_size=24, max_size=24), st.floats(30, 80))
 def test_hourly_at_least_mean24(temps, tb):
     # integration ≥ the 24-hour-mean method (Jensen; ref §3); HDD − CDD = Tb − mean (identity)
@@ -521,7 +521,7 @@ def small_weather(draw):
                         schema_overrides={"t_mean_f": pl.Float64}), n
 
 
-@settings(max_examples=60, deadline=None)
+@settings(max_examples=60, deadline=None, derandomize=True)
 @given(small_weather(), st.integers(0, 10_000), st.sampled_from(["mean", "maxmin"]))
 def test_properties(wn, seed, method):
     w, n = wn
@@ -577,6 +577,9 @@ def test_normal_year_constant_35f():
     np.testing.assert_allclose(ny.cdd[0], [0.0, 0.0])
     assert ny.years_used["N"] == [2001, 2002, 2003, 2004, 2005]
     np.testing.assert_allclose(ny.monthly_hdd[0, 1, 1], 30 * 28)          # February of a 365-day year
+    rows = ny.for_stations(["N", "X", "N"])
+    np.testing.assert_allclose(rows[[0, 2]], [[25 * 365, 30 * 365]] * 2, rtol=1e-12)
+    assert np.isnan(rows[1]).all()                                          # unknown station → NaN
     f = ny.to_frame()
     assert f.columns == ["station_id", "base_f", "hdd", "cdd", "n_years", "first_year", "last_year"]
     assert f["n_years"].to_list() == [5, 5]
