@@ -17,7 +17,8 @@ import polars as pl
 from . import refdata
 from .csvread import LINE_COL, read_table
 from .errors import InputError
-from .parse import AmbiguousDates, parse_bool, parse_choice, parse_date, parse_float, parse_int
+from .parse import (AmbiguousDates, detect_date_order, parse_bool, parse_choice, parse_date, parse_float,
+                    parse_int)
 
 USE_TYPES = ("office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other")
 FUELS = ("natural_gas", "fuel_oil", "propane", "electricity", "district_steam", "district_hot_water")
@@ -119,6 +120,7 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tu
     problems = []
     factors = si_factors() if opts.units == "SI" else {}
     this_year = _dt.date.today().year
+    date_order = opts.date_order or _file_date_order(raw, [c for c, _, k, _, _ in spec if k == "date"])
     for col, canon, kind, required, o in spec:
         s = raw[col]
         if kind == "id":
@@ -147,7 +149,7 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tu
             v, p = parse_bool(s)
         elif kind == "date":
             try:
-                v, p = parse_date(s, date_order=opts.date_order, min_date=opts.min_date, max_date=opts.max_date)
+                v, p = parse_date(s, date_order=date_order, min_date=opts.min_date, max_date=opts.max_date)
             except AmbiguousDates as exc:
                 slash = s.str.strip_chars().str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]\d{2,4}$").fill_null(False)
                 first = raw.filter(slash)[LINE_COL]
@@ -164,6 +166,17 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tu
     prob = pl.concat(problems).filter(pl.col("reason").is_not_null())
     prob = prob.select(pl.lit(label).alias("file"), pl.col("_line").alias("line"), "column", "value", "reason")
     return pl.DataFrame(typed), prob
+
+
+def _file_date_order(raw: pl.DataFrame, cols: list[str]) -> str | None:
+    """The day/month order shown by all date columns of a file together (None if undecided).
+
+    A column of first-of-month starts (01/03/2024) cannot show the order by itself; the
+    end dates of the same file usually do, and one file has one order.
+    """
+    if len(cols) < 2:
+        return None
+    return detect_date_order(pl.concat([raw[c] for c in cols]))
 
 
 def _combine(df: pl.DataFrame, prob: pl.DataFrame, structural: list[dict]) -> tuple[pl.DataFrame, pl.DataFrame]:
