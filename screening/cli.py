@@ -176,15 +176,18 @@ def degree_days(
     normal: Annotated[bool, typer.Option(help="normal-year values from the complete years")] = False,
     units: Annotated[str, typer.Option(help="IP or SI")] = "IP",
     fmt: Annotated[str, typer.Option("--format", help="csv or table")] = "csv",
+    rounding: Annotated[bool, typer.Option(help="round each daily mean half up first, as weather services publish")] = False,
 ):
-    """Degree days of one station, to stdout."""
+    """Degree days of one station, to stdout (notices on stderr)."""
     from . import ddtool
+    notices: list[str] = []
     try:
         if fmt not in ("csv", "table"):
             raise typer.BadParameter("expected csv or table", param_hint="--format")
         df = ddtool.degree_days_report(weather, station, base=base, kind=kind, method=method, by=by,
                                        periods_path=periods, date_from=date_from, date_to=date_to, normal=normal,
-                                       units=units.upper(), hourly_path=hourly)
+                                       units=units.upper(), hourly_path=hourly, rounding=rounding,
+                                       notices=notices)
     except typer.BadParameter:
         raise
     except ValueError as exc:
@@ -192,11 +195,14 @@ def degree_days(
         raise typer.Exit(EXIT_BAD_INPUT)
     except Exception as exc:  # noqa: BLE001
         _fail(exc)
+    for n in notices:
+        typer.echo(f"notice: {n}", err=True)
     if fmt == "csv":
         sys.stdout.write(df.write_csv())
     else:
         import polars as pl
-        with pl.Config(tbl_rows=-1, tbl_cols=-1, tbl_hide_dataframe_shape=True, tbl_hide_column_data_types=True):
+        with pl.Config(tbl_rows=-1, tbl_cols=-1, tbl_width_chars=250, tbl_hide_dataframe_shape=True,
+                       tbl_hide_column_data_types=True):
             typer.echo(str(df))
 
 

@@ -270,7 +270,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
             (pl.col("usable") & pl.Series(period_missing == 0)).alias("usable"))
     else:
         period_hdd = np.zeros((0, grid.size))
-    normal_hdd = normals.for_stations(st) if hasattr(normals, "for_stations") else _normals_for(normals, st, grid)
+    normal_hdd = normals.for_stations(st)
     lap("metered_prep")
 
     envelope = env.estimate_envelope(b)
@@ -375,17 +375,6 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     ny = normals.years_used if hasattr(normals, "years_used") else {}
     return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
                     envelope=envelope, window=window, timings=timings, normal_years=ny)
-
-
-def _normals_for(normals, stations: np.ndarray, grid: np.ndarray) -> np.ndarray:
-    """Normal-year HDD rows for each building's station (NaN where the station has none)."""
-    table = normals.hdd  # (n_stations, n_bases)
-    index = {s: i for i, s in enumerate(normals.stations)}
-    idx = np.array([index.get(s, -1) for s in stations])
-    out = np.full((len(stations), grid.size), np.nan)
-    ok = idx >= 0
-    out[ok] = table[idx[ok]]
-    return out
 
 
 def _gap_details(gaps: pl.DataFrame, wgap: pl.DataFrame) -> pl.DataFrame:

@@ -1,0 +1,100 @@
+"""Time every stage of a run for portfolios of N buildings; report peak memory.
+
+    python benchmarks/bench_pipeline.py                 # N = 100, 1000, 10000 (no sheets above 1000)
+    python benchmarks/bench_pipeline.py --n 100 1000 --sheets-up-to 1000 --json out.json
+
+Portfolios come from the independent simulator (sample_portfolio/simulate.py), 3 years of daily weather
+and monthly bills. Each N runs in a fresh process so peak memory (ru_maxrss) is that run's own. The
+ingest figure is compared with DuckDB's own read_csv of the same three files in the same process.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import importlib.util
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def _simulator():
+    spec = importlib.util.spec_from_file_location("simulate", ROOT / "sample_portfolio" / "simulate.py")
+    mod = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mod)
+    return mod
+
+
+def one(n: int, sheets: bool, work: Path) -> dict:
+    sim = _simulator()
+    t = time.perf_counter()
+    frames = sim.simulate_portfolio(n, seed=7, start=dt.date(2023, 10, 1), years=3,
+                                    stations=max(5, min(100, n // 100)))
+    paths = sim.write_portfolio(frames, work)
+    gen_s = time.perf_counter() - t
+    import duckdb
+    t = time.perf_counter()
+    con = duckdb.connect()
+    for p in ("buildings.csv", "readings.csv", "weather.csv"):
+        con.execute(f"CREATE TABLE t_{p[:-4]} AS SELECT * FROM read_csv('{work / p}')")
+    duck_s = time.perf_counter() - t
+    con.close()
+    from screening import runner
+    overrides = {"inputs": {k: str(work / f"{k}.csv") for k in ("buildings", "readings", "weather")},
+                 "store": {"database": str(work / "bench.duckdb")},
+                 "analysis": {"as_of": "2026-10-15"}, "output": {"sheets": sheets}}
+    t = time.perf_counter()
+    res = runner.run(overrides=overrides, out_dir=str(work / "out"), force=True)
+    total = time.perf_counter() - t
+    timings = res.summary.get("timings_s") or {}
+    if not timings:
+        import duckdb as d2
+        c = d2.connect(str(work / "bench.duckdb"), read_only=True)
+        timings = json.loads(c.execute("SELECT timings FROM runs ORDER BY started_at DESC LIMIT 1").fetchone()[0])
+        c.close()
+    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    _ = paths
+    return {"n": n, "readings": frames["readings"].height, "generate_s": round(gen_s, 2),
+            "duckdb_read_csv_s": round(duck_s, 3), "stages_s": timings, "wall_s": round(total, 2),
+            "peak_rss_mb": round(peak_mb, 1), "sheets": sheets}
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--n", type=int, nargs="*", default=[100, 1000, 10000])
+    ap.add_argument("--sheets-up-to", type=int, default=1000)
+    ap.add_argument("--json", default=str(ROOT / "benchmarks" / "results" / "pipeline.json"))
+    ap.add_argument("--child", type=int, default=None)
+    ap.add_argument("--with-sheets", action="store_true")
+    a = ap.parse_args()
+    if a.child is not None:
+        with tempfile.TemporaryDirectory() as d:
+            print(json.dumps(one(a.child, a.with_sheets, Path(d))))
+        return
+    rows = []
+    for n in a.n:
+        cmd = [sys.executable, __file__, "--child", str(n)] + (["--with-sheets"] if n <= a.sheets_up_to else [])
+        out = subprocess.run(cmd, capture_output=True, text=True, check=True, env=os.environ | {"PYTHONPATH": str(ROOT)})
+        rows.append(json.loads(out.stdout.strip().splitlines()[-1]))
+    stages = ["ingest", "degree_days", "metered_prep", "envelope", "regression", "expected", "screening", "csv",
+              "sheets", "ranking_pdf", "total"]
+    print(f"{'N':>7} {'readings':>9} " + " ".join(f"{s[:10]:>10}" for s in stages) + f" {'duck csv':>9} {'peak MB':>8}")
+    for r in rows:
+        st = r["stages_s"]
+        print(f"{r['n']:>7} {r['readings']:>9} " + " ".join(f"{st.get(s, float('nan')):>10.2f}" for s in stages)
+              + f" {r['duckdb_read_csv_s']:>9.2f} {r['peak_rss_mb']:>8.0f}")
+    Path(a.json).parent.mkdir(parents=True, exist_ok=True)
+    Path(a.json).write_text(json.dumps({"machine": {"cpus": os.cpu_count(), "python": sys.version.split()[0]},
+                                        "rows": rows}, indent=2))
+    print(f"wrote {a.json}")
+
+
+if __name__ == "__main__":
+    main()
