@@ -534,3 +534,26 @@ def test_run_with_every_row_case(tmp_path):
     assert counts["rejects"] == len(expected)
     # in the database: rows that passed their own file's checks (C18, B77 and the two unit rows are rejected later)
     assert counts["buildings"] == 6 + 1 and counts["readings"] == 156 - 1 + 1 + 3  # −B05 conflict, +overlap
+
+
+# ----------------------------------------------------------------------------- a 50 MB file
+
+def test_50_mb_weather_file(tmp_path):
+    """A 50 MB daily weather file (2,100 stations × 820 days, generated here, not committed) is read
+    whole: every good row accepted, one planted bad row near the end rejected with its exact line."""
+    import datetime as dt
+    import numpy as np
+    days = pl.date_range(dt.date(2022, 10, 1), dt.date(2024, 12, 28), eager=True)
+    st = pl.DataFrame({"station_id": [f"stn-{i:04d}" for i in range(2100)]})
+    df = st.join(pl.DataFrame({"date": days}), how="cross")
+    lo = np.round(np.random.default_rng(7).uniform(-20.0, 70.0, df.height), 1)
+    df = df.with_columns(pl.Series("t_min", lo), pl.Series("t_max", np.round(lo + 15.0, 1)))
+    path = tmp_path / "weather_big.csv"
+    df.write_csv(path)
+    with open(path, "a") as f:
+        f.write("stn-0000,2025-01-01,50.0,10.0\n")                 # t_min above t_max
+        f.write("stn-0000,2025-01-02,10.0,20.0\n")
+    assert path.stat().st_size >= 50_000_000
+    ld = pipeline.read_file("weather", str(path), ReadOptions())
+    assert ld.df.height == df.height + 1
+    assert ld.rejects.select("line", "column").rows() == [(df.height + 2, "t_min")]
