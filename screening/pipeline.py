@@ -80,11 +80,10 @@ def read_file(kind: str, path: str, opts: ReadOptions) -> Loaded:
 
 
 def _read_weather(path: str, opts: ReadOptions):
-    res = read_daily_weather(path, units=opts.units)
-    if len(res) == 3:
-        return res
+    res = read_daily_weather(path, units=opts.units, decimal_comma=opts.decimal_comma, date_order=opts.date_order,
+                             delimiter=opts.delimiter, encoding=opts.encoding)
     weather, rejects = res
-    return weather, rejects, []
+    return weather, rejects, list(getattr(res, "notices", []))
 
 
 def load_inputs(store: Store, files: dict[str, list[str]], opts: ReadOptions, *, force: bool = False,

@@ -177,7 +177,9 @@ def _duplicates(df: pl.DataFrame, key: list[str], values: list[str], label: str)
     return keep.drop("_n", "_nv"), rej, notes
 
 
-def read_daily_weather(path: str | Path, *, units: str = "IP") -> WeatherRead:
+def read_daily_weather(path: str | Path, *, units: str = "IP", decimal_comma: bool = False,
+                       date_order: str | None = None, delimiter: str | None = None,
+                       encoding: str | None = None) -> WeatherRead:
     """Read the daily weather CSV of the input contract.
 
     Parameters
@@ -186,6 +188,10 @@ def read_daily_weather(path: str | Path, *, units: str = "IP") -> WeatherRead:
         or ``t_mean`` (any of the three may be present; blanks are null).
     units : {"IP", "SI"}
         Temperatures in °F (IP) or °C (SI); converted to °F.
+    decimal_comma, date_order, delimiter, encoding :
+        The ``[reading]`` options of the config: numbers written ``-3,5``; the order of slash dates
+        (spreadsheet serial dates and ``YYYY/MM/DD`` are read too, see :func:`screening.parse.parse_date`);
+        forced delimiter and encoding.
 
     Returns
     -------
@@ -202,7 +208,9 @@ def read_daily_weather(path: str | Path, *, units: str = "IP") -> WeatherRead:
     """
     unit = _units_default(units)
     label = str(path)
-    table = read_table(path, required=["station_id", "date"], optional=["t_min", "t_max", "t_mean"], label=label)
+    table = read_table(path, required=["station_id", "date"], optional=["t_min", "t_max", "t_mean"], label=label,
+                       delimiter=delimiter, encoding=encoding)
+    table.df = _normalize_daily_text(table.df, label, decimal_comma=decimal_comma, date_order=date_order)
     present = {h.strip().lower() for h in table.header}
     has_pair = {"t_min", "t_max"} <= present
     if not has_pair and "t_mean" not in present:
@@ -210,6 +218,33 @@ def read_daily_weather(path: str | Path, *, units: str = "IP") -> WeatherRead:
                          expected="t_min and t_max, or t_mean")
     temps = {c: unit for c in ("t_min", "t_max", "t_mean") if c in present}
     return _finish_daily(table.df, label, "%Y-%m-%d", temps, table.rejects, list(table.notices))
+
+
+def _normalize_daily_text(df: pl.DataFrame, label: str, *, decimal_comma: bool,
+                          date_order: str | None) -> pl.DataFrame:
+    """Spreadsheet conventions to the contract's text forms before the strict checks.
+
+    Dates that :func:`screening.parse.parse_date` reads become ``YYYY-MM-DD``; others are left as
+    written so the strict check rejects them with the original value. With ``decimal_comma`` the
+    temperature columns' ``,`` becomes ``.``.
+    """
+    from .errors import InputError
+    from .parse import AmbiguousDates, parse_date
+    iso_share = float(df["date"].str.strip_chars().str.contains(r"^\d{4}-\d{2}-\d{2}$").fill_null(True).mean() or 1.0)
+    d = None
+    if date_order is not None or iso_share < 0.5:
+        # a file written in another date style; an ISO file with a few odd dates instead has
+        # those rows rejected one by one by the strict check
+        try:
+            d, _ = parse_date(df["date"], date_order=date_order)
+        except AmbiguousDates as exc:
+            raise InputError(label, str(exc), column="date") from None
+    if d is not None:
+        df = df.with_columns(pl.coalesce(d.dt.strftime("%Y-%m-%d"), pl.col("date")).alias("date"))
+    if decimal_comma:
+        df = df.with_columns([pl.col(c).str.replace(",", ".", literal=True) for c in ("t_min", "t_max", "t_mean")
+                              if c in df.columns])
+    return df
 
 
 def read_mapped_daily(path: str | Path, mapping: dict, *, units: str = "IP", date_format: str = "%Y-%m-%d",

@@ -458,18 +458,8 @@ def test_row_case_rejected_rest_kept(case, tmp_path, loaded):
 
 # ----------------------------------------------------------------------------- accepted
 
-WEATHER_OPTS_XFAIL = pytest.mark.xfail(strict=True, reason=(
-    "pipeline._read_weather calls weather.read_daily_weather(path, units=...) only: [reading] decimal_comma, "
-    "delimiter and encoding never reach the weather reader (see report)"))
-
-
-WEATHER_NOTICES_XFAIL = pytest.mark.xfail(strict=True, reason=(
-    "pipeline._read_weather drops the weather reader's notices: WeatherRead is a 2-tuple with .notices, "
-    "so `len(res) == 3` is never true and [] is returned (see report)"))
-
-
 def _accepted_params():
-    marks = {"a_decimal_comma": WEATHER_OPTS_XFAIL, "a_repeated_header": WEATHER_NOTICES_XFAIL}
+    marks: dict = {}
     return [pytest.param(c, id=c.id, marks=marks.get(c.id, ())) for c in ACCEPTED]
 
 
