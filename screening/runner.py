@@ -404,18 +404,32 @@ def _prune(root: Path, keep: int, *, keep_name: str) -> None:
 
 
 def _clean_stale_temp(target: Path, current: Path) -> None:
-    """Remove the temporary folders of runs that died (called under the lock).
+    """Tidy what runs that died left in the output folder (called under the lock).
 
-    The log of such a run is kept beside the target as ``<label>.interrupted-<time>.log``.
+    A temporary folder ``.<label>.tmp-*`` is removed; its log is kept beside the target as
+    ``<label>.interrupted-<time>.log``. A folder ``.<label>.old-*`` (earlier outputs set aside
+    by :func:`_publish` just before the rename) is put back when ``<label>`` is missing,
+    removed otherwise.
     """
-    for p in sorted(target.parent.glob(f".{target.name}.tmp-*")) + sorted(target.parent.glob(f".{target.name}.old-*")):
-        if p == current or not p.is_dir():
+    parent = target.parent
+    for p in sorted(parent.glob(".*.old-*")):
+        if not p.is_dir() or p.is_symlink():
             continue
+        home = parent / p.name[1:].rsplit(".old-", 1)[0]
+        if not home.exists() and not home.is_symlink():
+            os.replace(p, home)
+            log.warning("restored %s, set aside by an interrupted run", home)
+        else:
+            shutil.rmtree(p, ignore_errors=True)
+    for p in sorted(parent.glob(".*.tmp-*")):
+        if p == current or not p.is_dir() or p.is_symlink():
+            continue
+        name = p.name[1:].rsplit(".tmp-", 1)[0]
         logf = p / "run.log"
         try:
             if logf.exists():
                 stamp = _dt.datetime.fromtimestamp(logf.stat().st_mtime).strftime('%Y%m%dT%H%M%S')
-                shutil.move(str(logf), target.parent / f"{target.name}.interrupted-{stamp}.log")
+                shutil.move(str(logf), parent / f"{name}.interrupted-{stamp}.log")
         except OSError:
             pass
         shutil.rmtree(p, ignore_errors=True)

@@ -378,3 +378,24 @@ def test_status_and_history_list_the_runs_and_the_changes(simulated, tmp_path):
 def test_status_without_a_database_says_so(tmp_path):
     r = cli(["status", "--db", str(tmp_path / "none.duckdb")])
     assert r.exit_code == 1 and "no database here yet" in r.stderr
+
+
+def test_next_run_tidies_what_dead_runs_left_in_the_output_root(simulated, tmp_path):
+    """A death between the two renames of publishing leaves ``.<label>.old-*`` and no ``<label>``:
+    the next run (of any quarter) puts the earlier outputs back; a dead run's temporary folder is
+    removed and its log kept."""
+    site = Site(tmp_path, simulated)
+    assert site.run("--as-of", Q3_AS_OF).exit_code == 0
+    q3 = tree_digest(site.root / Q3)
+    os.replace(site.root / Q3, site.root / f".{Q3}.old-dead00")          # as _publish leaves it mid-way
+    stale = site.root / f".{Q2}.tmp-dead01"
+    stale.mkdir()
+    (stale / "run.log").write_text("2026-07-02 06:15:00,000 INFO run 2026-Q2-x: window ...\n")
+    (stale / "ranking.csv").write_text("half-written\n")
+    assert site.run("--as-of", Q2_AS_OF).exit_code == 0
+    assert tree_digest(site.root / Q3) == q3                              # earlier outputs restored
+    names = sorted(p.name for p in site.root.iterdir())
+    assert not [n for n in names if n.startswith(".")], names
+    logs = [n for n in names if n.startswith(f"{Q2}.interrupted-")]
+    assert len(logs) == 1 and "run 2026-Q2-x" in (site.root / logs[0]).read_text()
+    assert os.readlink(site.root / "latest") == Q2
