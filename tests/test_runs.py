@@ -4,7 +4,7 @@ incremental loads, config errors, exit codes, status and history.
 The portfolio is invented: ``sample_portfolio/simulate.py`` (12 buildings, seed 5, invented
 climates, daily weather and bills from 2023-10-01 to 2026-09-30), written once per module and
 copied into each test's ``tmp_path``. Every run writes CSV/JSON only (``[output] sheets =
-false``) except the crontab-form test, which also renders the per-building sheets.
+false``) except the crontab-form test, which renders the per-building sheets of 4 of the buildings.
 
 Quarter labels follow the window rule of the foundation issue: the 12 months ending on the
 last day of the last complete calendar quarter before ``as_of`` (by hand from the calendar:
@@ -42,6 +42,7 @@ Q3_AS_OF, Q3 = "2026-10-15", "2026-Q3"   # by hand: window 2025-10-01..2026-09-3
 Q2_AS_OF, Q2 = "2026-07-15", "2026-Q2"   # by hand: window 2025-07-01..2026-06-30
 DETERMINISTIC_FILES = ("ranking.csv", "rejects.csv", "data_issues.csv", "summary.json")
 N_BUILDINGS = 12
+N_KEPT = 4                               # buildings of the crontab-form test (with sheets)
 
 
 # ---------------------------------------------------------------------------- fixtures and helpers
@@ -140,6 +141,15 @@ def test_init_template_runs_from_a_crontab_form_command(simulated, tmp_path):
     assert again.exit_code == 2 and "exists; use --force" in again.stderr
     for kind in ("buildings", "readings", "weather"):
         shutil.copy(simulated / f"{kind}.csv", site_dir / f"{kind}.csv")
+    # four buildings only (fewer sheets to render); the other buildings' bills become rejected rows,
+    # a data problem that must not change the exit code
+    lines = (site_dir / "buildings.csv").read_text().splitlines(keepends=True)
+    (site_dir / "buildings.csv").write_text("".join(lines[:1 + N_KEPT]))
+    kept = [ln.split(",")[0] for ln in lines[1:1 + N_KEPT]]
+    readings = pl.read_csv(site_dir / "readings.csv", infer_schema=False)
+    n_orphan = readings.filter(~pl.col("building_id").is_in(kept)).height
+    assert n_orphan > 0
+    for kind in ("buildings", "readings", "weather"):
         text, n = re.subn(rf'^{kind} = ""', f'{kind} = "{kind}.csv"', text, count=1, flags=re.M)
         assert n == 1
     text, n = re.subn(r'^as_of = ""', f'as_of = "{Q3_AS_OF}"', text, count=1, flags=re.M)
@@ -154,10 +164,14 @@ def test_init_template_runs_from_a_crontab_form_command(simulated, tmp_path):
     out = site_dir / "ddscreen-out" / Q3
     assert os.readlink(site_dir / "ddscreen-out" / "latest") == Q3
     pdfs = sorted((out / "sheets").glob("*.pdf"))
-    assert len(pdfs) == N_BUILDINGS
+    assert len(pdfs) == N_KEPT
     assert all(p.read_bytes()[:5] == b"%PDF-" for p in pdfs)   # ISO 32000-1 §7.5.2 file header
     index = pl.read_csv(out / "sheets_index.csv")
-    assert index.height == N_BUILDINGS and all((out / f).exists() for f in index["file"])
+    assert sorted(index["building_id"]) == sorted(kept) and all((out / f).exists() for f in index["file"])
+    rejects = pl.read_csv(out / "rejects.csv", infer_schema=False)
+    orphan = rejects.filter(pl.col("reason").str.starts_with("unknown building"))
+    assert orphan.height == n_orphan and set(orphan["value"]).isdisjoint(kept)
+    assert json.loads((out / "summary.json").read_text())["counts"]["rejected_rows"] == rejects.height
     assert (site_dir / "screening.duckdb").exists()
 
 
