@@ -18,6 +18,11 @@ Rules
   ``MAX_FIELD_CHARS``, is rejected with its line (never truncated). Quoted fields may
   contain delimiters and newlines; a quote left open to the end of the file is a
   structural error. CR-only line ends are read as line ends.
+* Memory: the file's decoded text is held once; a file without quote characters is then
+  split into records chunk by chunk (``FAST_CHUNK_CHARS`` characters of whole lines at a
+  time), so the peak is about the text plus the output frame plus one chunk. A file with
+  quoted fields goes through the ``csv`` module record by record into Python lists
+  (several times the file size; see docs/reliability.md for measured limits).
 """
 
 from __future__ import annotations
@@ -34,6 +39,7 @@ from .errors import InputError
 
 LINE_COL = "_line"
 MAX_FIELD_CHARS = 10_000
+FAST_CHUNK_CHARS = 1 << 20   # lines per chunk of the quote-free path: about 1 Mi characters
 _LONG_REASON = f"a field is longer than {MAX_FIELD_CHARS:,} characters"
 
 
@@ -114,6 +120,7 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
     except OSError as exc:
         raise InputError(label, f"cannot read file ({exc.strerror or exc})") from None
     text, enc, notices = _decode(raw, label, encoding)
+    del raw   # only the decoded text is kept from here on
     if "\n" not in text and "\r" in text:   # old-style CR-only line ends
         text = text.replace("\r", "\n")
     if not text.strip():
@@ -168,18 +175,57 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
                     delimiter=delim, notices=notices, rejects=rejects)
 
 
-def _fast_records(text, label, delim, header_norm, idx, wanted):
-    """Records of a file without quote characters: one record per physical line."""
-    lines = pl.Series("raw", text.split("\n"), dtype=pl.String).str.strip_suffix("\r")
-    frame = pl.DataFrame({"raw": lines}).with_row_index(LINE_COL, offset=1).slice(1)
+def _fast_records(text, label, delim, header_norm, idx, wanted, chunk_chars=None):
+    """Records of a file without quote characters: one record per physical line.
+
+    The text after the header is processed in chunks of whole lines of about
+    ``chunk_chars`` characters (``FAST_CHUNK_CHARS``), so the working memory beyond the
+    decoded text and the output frame is bounded by the chunk size, whatever the file
+    size. Line numbers, rejects and notices are those of a whole-file pass.
+    """
+    chunk_chars = int(chunk_chars or FAST_CHUNK_CHARS)
+    frames: list[pl.DataFrame] = []
+    rejects: list[dict] = []
+    repeated = 0
+    first_nl = text.find("\n")
+    pos = len(text) if first_nl < 0 else first_nl + 1
+    line = 2
+    while pos < len(text):
+        cut = text.find("\n", pos + chunk_chars)
+        end = len(text) if cut < 0 else cut + 1
+        chunk = text[pos:end]
+        df, rej, rep = _fast_chunk(chunk, line, label, delim, header_norm, idx, wanted)
+        frames.append(df)
+        rejects += rej
+        repeated += rep
+        line += chunk.count("\n")
+        pos = end
+        del chunk
+    if not frames:
+        schema = {name: pl.String for name in wanted} | {LINE_COL: pl.Int64}
+        return pl.DataFrame(schema=schema), rejects, repeated
+    df = frames[0] if len(frames) == 1 else pl.concat(frames, rechunk=False)
+    return df, rejects, repeated
+
+
+def _fast_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
+    """One chunk of whole lines (``first_line`` is the physical line of its first line)."""
+    lines = pl.Series("raw", chunk.split("\n"), dtype=pl.String).str.strip_suffix("\r")
+    frame = pl.DataFrame({"raw": lines}).with_row_index(LINE_COL, offset=first_line)
     frame = frame.with_columns(pl.col(LINE_COL).cast(pl.Int64))
     frame = frame.filter(pl.col("raw").str.replace_all(f"[\\s{re.escape(delim)}]", "") != "")
     parts = frame["raw"].str.split(delim)
-    header_key = "".join(header_norm).replace(" ", "")
-    is_header = frame["raw"].str.replace_all(f"[\\s{re.escape(delim)}]", "").str.to_lowercase() == header_key
-    repeated = int(is_header.sum())
     n_fields = len(header_norm)
     lens = parts.list.len()
+    # a repeated header: the same names field by field (as the quoted path compares them);
+    # the literal test only narrows the candidates checked exactly in Python (rare lines)
+    key = max(wanted, key=len)   # a known (ASCII) column name, always present in the header
+    cand = (lens == n_fields) & frame["raw"].str.to_lowercase().str.contains(key, literal=True)
+    is_header = cand
+    if bool(cand.any()):
+        exact = [[_norm(f) for f in raw.split(delim)] == header_norm for raw in frame["raw"].filter(cand)]
+        is_header = cand.scatter(cand.arg_true(), exact) if exact else cand
+    repeated = int(is_header.sum())
     frame = frame.with_columns(parts.alias("parts"), lens.alias("n"), is_header.alias("hdr"),
                                (frame["raw"].str.len_chars() > MAX_FIELD_CHARS).alias("long"))
     bad = frame.filter((pl.col("n") != n_fields) & ~pl.col("hdr"))
