@@ -200,7 +200,8 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
 
 def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_of, window, *, force, config_path):
     t_start = time.perf_counter()
-    run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"
+    run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
+    run_key = _run_key(label, cfg, files)  # the same for a rerun of the same quarter, inputs and settings
     try:
         tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
     except OSError as exc:
@@ -216,8 +217,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         store = Store(db_path)
         store.execute("mark_stale_runs")  # we hold the lock: a run still 'running' has died
         _clean_stale_temp(target, tmp)
-        store.execute("insert_run", {"run_id": run_id, "label": label, "as_of": as_of, "window_start": window[0],
-                                     "window_end": window[1], "out_dir": str(target),
+        store.execute("insert_run", {"run_id": run_id, "run_key": run_key, "label": label, "as_of": as_of,
+                                     "window_start": window[0], "window_end": window[1], "out_dir": str(target),
                                      "config_hash": cfgmod.config_hash(cfg)})
         opts = pipeline.read_options(cfg)
         t = time.perf_counter()
@@ -247,7 +248,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         outputs.write_csv(rejects, tmp / "rejects.csv")
         outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
         timings["csv"] = round(time.perf_counter() - t, 4)
-        summary = _summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id)
+        summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev_id)
         paper = cfg["output"]["paper"]
         paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
         from . import report
@@ -293,22 +294,41 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                                                                     "excess_cost").to_dicts()
         return RunResult(run_id, label, target, str(db_path), summary, top, loads)
     except BaseException as exc:
-        log.error("run %s failed: %s", run_id, exc)
+        # an expected error is printed once by the CLI; the run log keeps the detail
+        expected = isinstance(exc, ScreeningError)
+        (log.debug if expected else log.error)("run %s failed: %s", run_id, exc)
         log.debug("%s", traceback.format_exc())
         log.removeHandler(handler)
         handler.close()
         if store is not None:
             try:
-                store.execute("finish_run", {"run_id": run_id, "status": "failed", "input_hashes": "{}",
-                                             "versions": "{}", "timings": json.dumps(timings), "counts": "{}",
-                                             "message": str(exc)[:500], "out_dir": ""})
+                if isinstance(exc, (InputError, ConfigError)) and "ingest" not in timings:
+                    # bad input stops the run before anything is written: leave no trace of it
+                    store.execute("delete_run", {"run_id": run_id})
+                else:
+                    store.execute("finish_run", {"run_id": run_id, "status": "failed", "input_hashes": "{}",
+                                                 "versions": "{}", "timings": json.dumps(timings), "counts": "{}",
+                                                 "message": str(exc)[:500], "out_dir": ""})
             except Exception:  # the database itself may be the problem
                 pass
-        _keep_failure_log(tmp, target)
+        _keep_failure_log(tmp, target, quiet=expected)
         raise
     finally:
         if store is not None:
             store.close()
+
+
+def _run_key(label: str, cfg: dict, files: dict[str, list[str]]) -> str:
+    """The run's identity: its quarter label and a hash of the input contents, settings and version."""
+    import hashlib
+    h = hashlib.sha256()
+    h.update(cfgmod.config_hash(cfg).encode())
+    h.update(__version__.encode())
+    for kind in pipeline.KINDS:
+        for p in files.get(kind, []):
+            h.update(kind.encode())
+            h.update(pipeline.file_sha256(p).encode())
+    return f"{label}-{h.hexdigest()[:10]}"
 
 
 def _year_ago(store: Store, window) -> pl.DataFrame | None:
@@ -367,7 +387,6 @@ def _deterministic(summary: dict) -> dict:
     """summary.json without the fields that change on every run (kept in the database instead)."""
     s = dict(summary)
     s.pop("timings_s", None)
-    s.pop("run_id", None)
     s.pop("run_date", None)
     s["inputs"] = [{k: v for k, v in i.items() if k != "status"} for i in s["inputs"]]
     return s
@@ -436,13 +455,13 @@ def _clean_stale_temp(target: Path, current: Path) -> None:
         log.info("removed %s, left by an interrupted run", p)
 
 
-def _keep_failure_log(tmp: Path, target: Path) -> None:
+def _keep_failure_log(tmp: Path, target: Path, *, quiet: bool = False) -> None:
     logf = tmp / "run.log"
     try:
         if logf.exists():
             dest = target.parent / f"{target.name}.failed-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}.log"
             shutil.move(str(logf), dest)
-            log.error("the log of the failed run is %s", dest)
+            (log.debug if quiet else log.error)("the log of the failed run is %s", dest)
     except OSError:
         pass
     shutil.rmtree(tmp, ignore_errors=True)
@@ -518,6 +537,12 @@ def validate(buildings: str, readings: str, weather: str, *, config_path: str | 
                                           {"buildings": buildings, "readings": readings})
         for r in rej.iter_rows(named=True):
             problems.append(f"{r['file']}, line {r['line']}, column {r['column']!r}: {r['reason']} (got {r['value']!r})")
+        from . import units
+        b, r, _ = pipeline._cross_check(loaded["buildings"].df, loaded["readings"].df, stations, {})
+        _, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=cfg["analysis"]["gas_btu_per_ft3"],
+                                           steam_btu_per_lb=cfg["analysis"]["steam_btu_per_lb"])
+        for x in conv_rej.sort("line").iter_rows(named=True):
+            problems.append(f"{readings}, line {x['line']}, column {x['column']!r}: {x['reason']} (got {x['value']!r})")
     return Validation(problems, rows, notices)
 
 

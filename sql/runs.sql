@@ -1,8 +1,13 @@
 -- Runs and their results, kept for comparison between quarters.
 
 -- name: insert_run
-INSERT INTO runs (run_id, label, as_of, window_start, window_end, started_at, status, out_dir, config_hash)
-VALUES ($run_id, $label, $as_of, $window_start, $window_end, now()::TIMESTAMP, 'running', $out_dir, $config_hash);
+INSERT INTO runs (run_id, run_key, label, as_of, window_start, window_end, started_at, status, out_dir, config_hash)
+VALUES ($run_id, $run_key, $label, $as_of, $window_start, $window_end, now()::TIMESTAMP, 'running', $out_dir,
+        $config_hash);
+
+-- name: delete_run
+-- A run stopped by bad input before anything was loaded leaves no row.
+DELETE FROM runs WHERE run_id = $run_id;
 
 -- name: finish_run
 UPDATE runs SET finished_at = now()::TIMESTAMP, status = $status, input_hashes = $input_hashes,
@@ -32,13 +37,6 @@ FROM runs ORDER BY started_at DESC, run_id DESC LIMIT $limit;
 -- name: get_run
 SELECT run_id, label, as_of, window_start, window_end, started_at, finished_at, status, out_dir, counts
 FROM runs WHERE run_id = $run_id;
-
--- name: previous_ok_run
--- The latest successful run that started before the given one.
-SELECT run_id FROM runs
-WHERE status = 'ok' AND run_id <> $run_id
-  AND started_at <= (SELECT started_at FROM runs WHERE run_id = $run_id)
-ORDER BY started_at DESC, run_id DESC LIMIT 1;
 
 -- name: results_of_run
 SELECT building_id, rank, tier, needs_review, ratio, actual_heating_kbtu, expected_heating_kbtu,

@@ -89,7 +89,8 @@ CREATE TABLE IF NOT EXISTS load_rejects (
 
 -- name: create_runs
 CREATE TABLE IF NOT EXISTS runs (
-    run_id VARCHAR PRIMARY KEY,
+    run_id VARCHAR PRIMARY KEY,     -- one execution
+    run_key VARCHAR,                -- the run's identity in summary.json: label + hash of inputs and settings
     label VARCHAR,
     as_of DATE,
     window_start DATE,

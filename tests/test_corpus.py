@@ -404,8 +404,6 @@ def test_structural_cli_leaves_database_unchanged(case, tmp_path, loaded):
     assert not (tmp_path / "out").exists()
 
 
-@pytest.mark.xfail(strict=True, reason="runner._run_locked inserts the runs row before load_inputs, so a "
-                                       "structural error leaves a 'failed' row in runs (see report)")
 def test_structural_error_adds_no_run_row(tmp_path, loaded):
     p, base_db = loaded
     db = tmp_path / "db.duckdb"
@@ -418,8 +416,6 @@ def test_structural_error_adds_no_run_row(tmp_path, loaded):
     assert table_counts(db) == before
 
 
-@pytest.mark.xfail(strict=True, reason="runner._run_locked logs 'run … failed' and 'the log of the failed run is …' "
-                                       "at ERROR to the stderr handler: 3 lines instead of one (see report)")
 def test_structural_error_is_exactly_one_stderr_line(tmp_path, loaded):
     p, base_db = loaded
     db = tmp_path / "db.duckdb"
