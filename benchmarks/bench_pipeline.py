@@ -36,7 +36,7 @@ def one(n: int, sheets: bool, work: Path) -> dict:
     sim = _simulator()
     t = time.perf_counter()
     frames = sim.simulate_portfolio(n, seed=7, start=dt.date(2023, 10, 1), years=3,
-                                    stations=max(5, min(100, n // 100)))
+                                    stations=min(8, max(5, n // 1000 + 4)))
     paths = sim.write_portfolio(frames, work)
     gen_s = time.perf_counter() - t
     import duckdb
