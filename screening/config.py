@@ -31,6 +31,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "paper": "auto",            # auto (Letter for IP, A4 for SI), Letter, A4
         "sheets": True,             # write one PDF sheet per building
         "workers": 2,               # processes for sheet rendering
+        "ranking_pdf_rows": 1000,   # rows of the ranked table in ranking.pdf (0 = all; ranking.csv has all)
     },
     "analysis": {
         "units": "IP",              # IP or SI: units of the input files and of the outputs
@@ -176,6 +177,8 @@ def validate(cfg: dict) -> dict:
             raise ConfigError(f"config key [prices] {k}: got {v}; expected a price ≥ 0")
     if cfg["output"]["keep"] < 0:
         raise ConfigError("config key [output] keep: expected a whole number ≥ 0")
+    if cfg["output"]["ranking_pdf_rows"] < 0:
+        raise ConfigError("config key [output] ranking_pdf_rows: expected a whole number ≥ 0")
     if cfg["output"]["workers"] < 1:
         raise ConfigError("config key [output] workers: expected a whole number ≥ 1")
     return cfg

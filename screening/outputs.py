@@ -246,9 +246,14 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
 
 
 def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp: Display, *,
-                   currency: str) -> dict:
-    """The dict that ranking.pdf renders (see screening.report.render_ranking)."""
-    rows = ranking.select("rank", "building_id", "name", "use_type", "tier", "ratio", "heating_intensity",
+                   currency: str, max_rows: int = 0) -> dict:
+    """The dict that ranking.pdf renders (see screening.report.render_ranking).
+
+    ``max_rows`` > 0 keeps the PDF's table to the first rows of the ranking (the full list is
+    ranking.csv); ``rows_total`` and ``rows_omitted`` say how many there are and were left out.
+    """
+    table = ranking if max_rows <= 0 else ranking.head(max_rows)
+    rows = table.select("rank", "building_id", "name", "use_type", "tier", "ratio", "heating_intensity",
                           "excess_energy", "excess_cost", "flags", "data_issues", "needs_review").to_dicts()
     issues = []
     for r in res.filter(pl.col("data_issue_codes").list.len() > 0).sort("building_id").iter_rows(named=True):
@@ -261,7 +266,8 @@ def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp
                 "window_end": summary["window"][1], "run_date": summary["run_date"],
                 "version": summary["versions"]["ddscreen"], "units": summary["units"]},
         "counts": summary["counts"], "tiers": tiers,
-        "totals": summary["totals"], "rows": rows,
+        "totals": summary["totals"], "rows": rows, "rows_total": ranking.height,
+        "rows_omitted": ranking.height - len(rows),
         "ratios": [x for x in res["ratio"].to_list() if x is not None and math.isfinite(x)],
         "data_issues": issues, "energy_unit": disp.energy_unit, "intensity_unit": disp.intensity_unit,
         "currency": currency, "cautions": CAUTIONS,

@@ -265,7 +265,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         _stage("after_sheets")
         t = time.perf_counter()
         report.render_ranking(outputs.ranking_report(ranking, res.results, summary, disp,
-                                                     currency=cfg["prices"]["currency"]),
+                                                     currency=cfg["prices"]["currency"],
+                                                     max_rows=cfg["output"]["ranking_pdf_rows"]),
                               tmp / "ranking.pdf", paper=paper)
         timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
         timings["total"] = round(time.perf_counter() - t_start, 4)
