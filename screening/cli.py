@@ -113,7 +113,8 @@ def run(
     if out is None and config is None:
         out = "ddscreen-out"
     try:
-        res = runner.run(config_path=config, overrides=overrides, out_dir=out, force=force, quiet=quiet)
+        res = runner.run(config_path=config, overrides=overrides, out_dir=out, force=force, quiet=quiet,
+                         progress=not quiet)
     except Exception as exc:  # noqa: BLE001 - mapped to exit codes
         _fail(exc)
     if not quiet:
@@ -130,7 +131,7 @@ def demo(
     from . import runner
     _log_to_stderr(quiet, False)
     try:
-        res = runner.demo(out, sheets=not no_sheets)
+        res = runner.demo(out, sheets=not no_sheets, progress=not quiet)
     except Exception as exc:  # noqa: BLE001
         _fail(exc)
     if not quiet:

@@ -102,6 +102,32 @@ class _Lock:
             self.fh.close()
 
 
+class _Progress:
+    """A bar of the run's stages on a terminal (stderr); nothing under cron or with --quiet."""
+
+    STAGES = ("load inputs", "screen", "write tables", "render sheets", "render ranking", "publish")
+
+    def __init__(self, enabled: bool):
+        self.bar = None
+        if enabled and sys.stderr.isatty():
+            from rich.console import Console
+            from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+            self.bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
+                                TimeElapsedColumn(), console=Console(stderr=True), transient=True)
+            self.bar.start()
+            self.task = self.bar.add_task("ddscreen", total=len(self.STAGES))
+
+    def stage(self, name: str) -> None:
+        if self.bar is not None:
+            done = self.STAGES.index(name) if name in self.STAGES else 0
+            self.bar.update(self.task, completed=done, description=f"ddscreen: {name}")
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.stop()
+            self.bar = None
+
+
 def _stage(name: str) -> None:
     """Test hook: DDSCREEN_KILL_AT=<stage> makes the process kill itself at that stage."""
     if os.environ.get("DDSCREEN_KILL_AT") == name:
@@ -194,11 +220,17 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
         raise OutputError(f"{target.parent}: output folder is not writable; earlier outputs are untouched")
 
     with _Lock(str(db_path) + ".lock"):
-        return _run_locked(cfg, files, db_path, target, root, label, as_of, window, force=force,
-                           config_path=config_path)
+        bar = _Progress(progress and not quiet)
+        try:
+            return _run_locked(cfg, files, db_path, target, root, label, as_of, window, force=force,
+                               config_path=config_path, bar=bar)
+        finally:
+            bar.close()
 
 
-def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_of, window, *, force, config_path):
+def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_of, window, *, force, config_path,
+                bar: "_Progress | None" = None):
+    bar = bar or _Progress(False)
     t_start = time.perf_counter()
     run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
     run_key = _run_key(label, cfg, files)  # the same for a rerun of the same quarter, inputs and settings
@@ -222,6 +254,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                                      "config_hash": cfgmod.config_hash(cfg)})
         opts = pipeline.read_options(cfg)
         t = time.perf_counter()
+        bar.stage("load inputs")
         loads = pipeline.load_inputs(store, files, opts, force=force, log=log.info)
         timings["ingest"] = round(time.perf_counter() - t, 4)
         for fl in loads:
@@ -229,6 +262,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             for n in fl.notices:
                 log.warning("%s", n)
         _stage("after_load")
+        bar.stage("screen")
         b = store.frame("select_buildings")
         r = store.frame("select_readings")
         w = store.frame("select_weather")
@@ -238,6 +272,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         res = pipeline.screen_frames(b, r, w, cfg, window=window, paths=paths, previous=_year_ago(store, window))
         timings.update(res.timings)
         _stage("after_screen")
+        bar.stage("write tables")
         load_rej = store.frame("select_load_rejects")
         rejects = outputs.rejects_table(pl.concat([load_rej.cast(REJECT_SCHEMA), res.rejects.cast(REJECT_SCHEMA)]))
         disp = outputs.Display(cfg["analysis"]["units"])
@@ -253,6 +288,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
         from . import report
         if cfg["output"]["sheets"]:
+            bar.stage("render sheets")
             t = time.perf_counter()
             sheets = outputs.sheet_records(res.results, res.envelope, res.periods, disp, run_id=run_id,
                                            run_date=str(_dt.date.today()), currency=cfg["prices"]["currency"])
@@ -263,6 +299,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             outputs.write_csv(pl.DataFrame({"building_id": list(names), "file": [f"sheets/{v}.pdf" for v in names.values()]}),
                               tmp / "sheets_index.csv")
         _stage("after_sheets")
+        bar.stage("render ranking")
         t = time.perf_counter()
         report.render_ranking(outputs.ranking_report(ranking, res.results, summary, disp,
                                                      currency=cfg["prices"]["currency"],
@@ -280,6 +317,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             store.execute("delete_rejects_of_run", {"run_id": run_id})
             store.execute("insert_rejects", {"run_id": run_id}, stage_rejects=rejects)
         _stage("before_publish")
+        bar.stage("publish")
         log.info("run %s finished in %.1f s", run_id, timings["total"])
         log.removeHandler(handler)
         handler.close()
@@ -470,7 +508,8 @@ def _keep_failure_log(tmp: Path, target: Path, *, quiet: bool = False) -> None:
 
 # ---------------------------------------------------------------------------- other commands
 
-def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: bool = True) -> RunResult:
+def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: bool = True,
+         progress: bool = False) -> RunResult:
     """Screen the packaged sample portfolio into ``out_dir`` (its own database inside)."""
     src = sample_portfolio_dir()
     out = Path(out_dir)
@@ -479,15 +518,15 @@ def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: b
                  "store": {"database": str(out / "screening.duckdb")},
                  "analysis": {"as_of": as_of}, "output": {"sheets": sheets}}
     out.mkdir(parents=True, exist_ok=True)
-    return _demo_run(overrides, out)
+    return _demo_run(overrides, out, progress=progress)
 
 
-def _demo_run(overrides: dict, out: Path) -> RunResult:
+def _demo_run(overrides: dict, out: Path, *, progress: bool = False) -> RunResult:
     """Run into ``out`` directly: files are replaced one by one after a complete run in a temp folder."""
     tmp_out = out / ".run"
     if tmp_out.exists():
         shutil.rmtree(tmp_out)
-    res = run(overrides=overrides, out_dir=str(tmp_out), force=True)
+    res = run(overrides=overrides, out_dir=str(tmp_out), force=True, progress=progress)
     for p in tmp_out.iterdir():
         dest = out / p.name
         if dest.is_dir():
