@@ -86,6 +86,11 @@ def _sniff_delimiter(first_line: str) -> str:
     return best if counts[best] > 0 else ","
 
 
+def _show(name: str) -> str:
+    """A header name fit for a one-line message (control characters escaped)."""
+    return name if name.isprintable() else repr(name)[1:-1]
+
+
 def _norm(name: str) -> str:
     return name.strip().strip("\ufeff").strip().lower()
 
@@ -133,7 +138,7 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
     if '"' not in text:
         header = first_line.rstrip("\r").split(delim)
     else:
-        reader = csv.reader(io.StringIO(text, newline=""), delimiter=delim, strict=False)
+        reader = csv.reader(io.StringIO(text, newline="\n"), delimiter=delim, strict=False)   # lines end at \n only
         try:
             header = next(reader)
         except (StopIteration, csv.Error) as exc:
@@ -149,9 +154,9 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
     if missing:
         raise InputError(label, "missing required column", line=1, column=missing[0],
                          expected="columns " + ", ".join(required)
-                         + (f" (found: {', '.join(h for h in header_norm if h)[:200]})" if header_norm else ""))
+                         + (f" (found: {', '.join(_show(h) for h in header_norm if h)[:200]})" if header_norm else ""))
     wanted = [c for c in list(required) + list(optional) if c in seen]
-    extra = [header[i].strip() for i, h in enumerate(header_norm) if h and h not in wanted]
+    extra = [_show(header[i].strip()) for i, h in enumerate(header_norm) if h and h not in wanted]
     if extra:
         notices.append(f"{label}: ignored unknown column(s): {', '.join(extra[:20])}"
                        + (" …" if len(extra) > 20 else ""))

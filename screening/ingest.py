@@ -23,6 +23,8 @@ from .parse import (AmbiguousDates, detect_date_order, parse_bool, parse_choice,
 USE_TYPES = ("office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other")
 FUELS = ("natural_gas", "fuel_oil", "propane", "electricity", "district_steam", "district_hot_water")
 ID_PATTERN = r"^[A-Za-z0-9._-]{1,64}$"
+_KIND_DTYPE = {"id": pl.String, "text": pl.String, "choice": pl.String, "float": pl.Float64, "int": pl.Int64,
+               "bool": pl.Boolean, "date": pl.Date}
 REJECT_SCHEMA = {"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
                  "reason": pl.String}
 
@@ -123,6 +125,9 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tu
     date_order = opts.date_order or _file_date_order(raw, [c for c, _, k, _, _ in spec if k == "date"])
     for col, canon, kind, required, o in spec:
         s = raw[col]
+        if not required and s.null_count() == len(s):   # absent or empty optional column: nothing to check
+            typed[canon] = pl.Series(canon, [None] * len(s), dtype=_KIND_DTYPE[kind])
+            continue
         if kind == "id":
             ok = s.str.contains(ID_PATTERN).fill_null(False)
             p = pl.select(pl.when(s.is_not_null() & ~ok).then(
@@ -163,7 +168,8 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tu
         problems.append(pl.DataFrame({"_line": raw[LINE_COL], "column": pl.Series([col] * len(s), dtype=pl.String),
                                       "value": s.rename("value"), "reason": p.rename("reason")}))
     typed[LINE_COL] = raw[LINE_COL]
-    prob = pl.concat(problems).filter(pl.col("reason").is_not_null())
+    prob = pl.concat(problems).filter(pl.col("reason").is_not_null()) if problems else pl.DataFrame(
+        schema={"_line": pl.Int64, "column": pl.String, "value": pl.String, "reason": pl.String})
     prob = prob.select(pl.lit(label).alias("file"), pl.col("_line").alias("line"), "column", "value", "reason")
     return pl.DataFrame(typed), prob
 
