@@ -342,6 +342,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         pl.col("blocking").fill_null(False),
         pl.col("data_issue_codes").fill_null(pl.lit([], dtype=pl.List(pl.String))),
         pl.col("data_issue_texts").fill_null(pl.lit([], dtype=pl.List(pl.String))))
+    frame = frame.join(_year_over_year(conv, spans, met, cube, normals, grid), on="building_id", how="left",
+                       maintain_order="left")
     if previous is not None and previous.height:
         frame = frame.join(previous.select("building_id", pl.col("normal_heating_kbtu").alias("prev_normal_heating_kbtu")),
                            on="building_id", how="left", maintain_order="left")
@@ -374,6 +376,51 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     ny = normals.years_used if hasattr(normals, "years_used") else {}
     return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
                     envelope=envelope, window=window, timings=timings, normal_years=ny)
+
+
+def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, cube, normals,
+                    grid: np.ndarray) -> pl.DataFrame:
+    """Weather-normalized heating of the span against the 12 months before it, from the readings.
+
+    For buildings with a regression fit (baseload α per day, base τ) and readings covering both
+    spans, each year's heating is normalized by the ratio of normal-year to actual degree days at τ
+    (the degree-day normalization of ASHRAE Guideline 14 practice)::
+
+        H_norm = (E − α·days) · HDD_normal(τ) / HDD_year(τ)
+        yoy_change = H_norm(current) / H_norm(previous) − 1
+
+    Returns ``building_id, yoy_change`` for the buildings where it is defined.
+    """
+    fit = met.filter((pl.col("fit_method") == "regression") & pl.col("fitted_base_f").is_not_null()
+                     & (pl.col("coverage") >= 0.99)).select(
+        "building_id", "fitted_base_f", "baseload_kbtu_per_day", "actual_heating_kbtu")
+    sp = spans.join(fit, on="building_id", how="inner").with_columns(
+        pl.col("span_start").dt.offset_by("-1y").alias("prev_start"),
+        (pl.col("span_start") - pl.duration(days=1)).alias("prev_end"))
+    if sp.height == 0:
+        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64})
+    prev = metered.calendarize(conv, sp.select("building_id", pl.col("prev_start").alias("span_start"),
+                                               pl.col("prev_end").alias("span_end")))
+    prev = prev.filter(pl.col("is_heating_fuel")).group_by("building_id").agg(
+        pl.col("energy_kbtu").sum().alias("e_prev"), pl.col("coverage").min().alias("cov_prev"))
+    sp = sp.join(prev, on="building_id", how="inner").filter(pl.col("cov_prev") >= 0.99)
+    if sp.height == 0:
+        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64})
+    st = sp["station_id"].to_numpy()
+    tau = sp["fitted_base_f"].to_numpy()
+    hdd_cur = cube.at_base(st, sp["span_start"], sp["span_end"], tau)[0]
+    hdd_prev, _, miss_prev = cube.at_base(st, sp["prev_start"], sp["prev_end"], tau)
+    j = np.abs(grid[None, :] - tau[:, None]).argmin(axis=1)
+    hdd_norm = normals.for_stations(st)[np.arange(st.size), j]
+    days_prev = (sp["prev_end"] - sp["prev_start"]).dt.total_days().to_numpy() + 1
+    heat_prev = np.maximum(sp["e_prev"].to_numpy() - sp["baseload_kbtu_per_day"].to_numpy() * days_prev, 0.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        norm_prev = heat_prev * hdd_norm / hdd_prev
+        norm_cur = sp["actual_heating_kbtu"].to_numpy() * hdd_norm / hdd_cur
+        yoy = norm_cur / norm_prev - 1.0
+    ok = np.isfinite(yoy) & (miss_prev == 0) & (norm_prev > 0)
+    return pl.DataFrame({"building_id": sp["building_id"], "yoy_change": np.where(ok, yoy, np.nan)}).with_columns(
+        pl.col("yoy_change").fill_nan(None))
 
 
 def _gap_details(gaps: pl.DataFrame, wgap: pl.DataFrame) -> pl.DataFrame:

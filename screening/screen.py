@@ -143,8 +143,10 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         (pl.col("actual_heating_kbtu") - pl.col("expected_high_kbtu")).clip(lower_bound=0).alias("excess_energy_kbtu"),
         (pl.col("actual_heating_kbtu") - pl.col("expected_heating_kbtu")).clip(lower_bound=0)
         .alias("excess_energy_central_kbtu"),
-        pl.when(pl.col("prev_normal_heating_kbtu") > 0)
-        .then(pl.col("normal_heating_kbtu") / pl.col("prev_normal_heating_kbtu") - 1).otherwise(None)
+        pl.coalesce(
+            pl.col("yoy_change") if "yoy_change" in df.columns else pl.lit(None, dtype=pl.Float64),
+            pl.when(pl.col("prev_normal_heating_kbtu") > 0)
+            .then(pl.col("normal_heating_kbtu") / pl.col("prev_normal_heating_kbtu") - 1).otherwise(None))
         .alias("yoy_change"),
     )
     out = out.with_columns(

@@ -130,3 +130,17 @@ def test_weather_gap_longer_than_three_days_is_a_blocking_data_issue():
     assert "weather_gap" in row["data_issue_codes"]
     assert row["tier"] == "Fix data first"
     assert row["needs_review"] is False
+
+
+def test_heating_up_30_percent_on_last_year_is_flagged_rising():
+    # the same seasonal climate every year; the second year's bills come from 1.3 × the UA, so the
+    # degree-day-normalized heating rises by 30 % (by construction; tolerance for the fit's intercept)
+    w = _weather(lambda i: 50.0 - 25.0 * np.cos(2 * np.pi * (i - 15) / 365.25), dt.date(2023, 10, 1), 365 * 3 + 2)
+    b = _buildings([_building(heating_efficiency=0.8)])
+    first = _monthly_readings(w, dt.date(2024, 10, 1), 12, UA, 0.8)
+    second = _monthly_readings(w, dt.date(2025, 10, 1), 12, 1.3 * UA, 0.8).with_columns(pl.col("_line") + 12)
+    res = screen_frames(b, pl.concat([first, second]), w, _cfg(),
+                        window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30))).results
+    row = res.row(0, named=True)
+    assert row["yoy_change"] == pytest.approx(0.30, abs=0.03)
+    assert "rising_use" in row["flag_codes"]
