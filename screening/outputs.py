@@ -57,9 +57,18 @@ class Display:
         return e * BTU_H_F_TO_W_K if self.si else e
 
     def val(self, kind: str, x):
+        """One value in display units (the scalar twin of the expression methods above)."""
         if x is None or (isinstance(x, float) and not math.isfinite(x)):
             return None
-        return pl.select(getattr(self, kind)(pl.lit(float(x)))).item()
+        x = float(x)
+        if not self.si:
+            return x
+        if kind == "temp":
+            return (x - 32.0) / 1.8
+        return x * self._SCALAR[kind]
+
+    _SCALAR = {"energy": KBTU_TO_KWH, "area": FT2_TO_M2, "dd": 1 / 1.8, "intensity": INTENSITY_IP_TO_SI,
+               "ua": BTU_H_F_TO_W_K}
 
 
 RANKING_COLUMNS = [
@@ -157,12 +166,14 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
     d = disp
     ef = 1.8 if d.si else 1.0   # per °F → per K
     env_rows = {r["building_id"]: r for r in envelope.select("building_id", "assumptions").iter_rows(named=True)}
-    per = {}
+    per: dict[str, list[dict]] = {}
     if periods.height:
+        cols = ["building_id", "period_start", "period_end", "days", "upd"] + (
+            ["hdd_per_day_fit"] if "hdd_per_day_fit" in periods.columns else [])
         pp = periods.filter(pl.col("usable")).with_columns(
-            (pl.col("energy_kbtu") / pl.col("days")).alias("upd"))
-        for bid, grp in pp.group_by("building_id", maintain_order=True):
-            per[bid[0]] = grp
+            (pl.col("energy_kbtu") / pl.col("days")).alias("upd")).select(cols)
+        for p in pp.iter_rows(named=True):
+            per.setdefault(p["building_id"], []).append(p)
     peers = res.group_by("peer_group").agg(pl.col("heating_intensity").drop_nulls())
     peer_map = {r["peer_group"]: [d.val("intensity", x) for x in r["heating_intensity"]]
                 for r in peers.iter_rows(named=True)}
@@ -173,13 +184,10 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
         bal = r["balance_point_f"]
         periods_list, fit_line, exp_line = [], None, None
         if grp is not None and r["fit_method"] == "regression":
-            base = r["fitted_base_f"] if r["fitted_base_f"] is not None and math.isfinite(r["fitted_base_f"]) else bal
             periods_list = [{"start": str(p["period_start"]), "end": str(p["period_end"]), "days": p["days"],
-                             "use_per_day": d.val("energy", p["upd"]), "dd_per_day": None}
-                            for p in grp.iter_rows(named=True)]
-            if "hdd_per_day_fit" in grp.columns:
-                for item, p in zip(periods_list, grp.iter_rows(named=True)):
-                    item["dd_per_day"] = d.val("dd", p["hdd_per_day_fit"])
+                             "use_per_day": d.val("energy", p["upd"]),
+                             "dd_per_day": d.val("dd", p.get("hdd_per_day_fit"))}
+                            for p in grp]
             beta = r["heating_slope_kbtu_per_dd"]
             alpha = r.get("baseload_kbtu_per_day")
             if beta is not None and alpha is not None:
@@ -189,7 +197,6 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             if ua and eff:
                 exp_line = {"intercept": d.val("energy", alpha) if alpha is not None else 0.0,
                             "slope": d.val("energy", 24.0 * ua / eff / 1000.0) * ef}
-            _ = base
         annual = []
         if not periods_list:
             annual = [{"year_label": f"{r['span_start']} – {r['span_end']}",
