@@ -335,13 +335,6 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         pl.when(pl.col("total_fuel_kbtu") > 0).then(pl.col("baseload_kbtu") / pl.col("total_fuel_kbtu"))
         .otherwise(None).alias("baseload_share"))
     frame = frame.join(_prices(b, cfg), on="building_id", how="left", maintain_order="left")
-    agg = issues_df.group_by("building_id").agg(pl.col("blocking").any().alias("blocking"),
-                                                pl.col("code").sort().alias("data_issue_codes"),
-                                                pl.col("detail").sort_by("code").alias("data_issue_texts"))
-    frame = frame.join(agg, on="building_id", how="left", maintain_order="left").with_columns(
-        pl.col("blocking").fill_null(False),
-        pl.col("data_issue_codes").fill_null(pl.lit([], dtype=pl.List(pl.String))),
-        pl.col("data_issue_texts").fill_null(pl.lit([], dtype=pl.List(pl.String))))
     frame = frame.join(_year_over_year(conv, spans, met, cube, normals, grid), on="building_id", how="left",
                        maintain_order="left")
     if previous is not None and previous.height:
@@ -351,24 +344,21 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         frame = frame.with_columns(pl.lit(None, dtype=pl.Float64).alias("prev_normal_heating_kbtu"))
     # a ratio that far off the expectation is a data problem, not waste
     uf = thr["unit_error_factor_expected"]
-    far = frame.filter(((pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")) >= uf)
-                       | ((pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")) <= 1 / uf))
-    if far.height:
-        extra = far.select("building_id", pl.lit("likely_unit_error").alias("code"),
-                           (pl.lit("metered heating is ") + (pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu"))
-                            .round(3).cast(pl.String) + pl.lit("× the expectation: check units (therm/ccf, kBtu/MMBtu) "
-                                                               "and the floor area")).alias("detail"),
-                           pl.lit(True).alias("blocking"))
-        issues_df = pl.concat([issues_df, extra]).unique(subset=["building_id", "code"], keep="first") \
-            .sort("building_id", "code")
-        agg = issues_df.group_by("building_id").agg(pl.col("blocking").any().alias("blocking"),
-                                                    pl.col("code").sort().alias("data_issue_codes"),
-                                                    pl.col("detail").sort_by("code").alias("data_issue_texts"))
-        frame = frame.drop("blocking", "data_issue_codes", "data_issue_texts").join(
-            agg, on="building_id", how="left", maintain_order="left").with_columns(
-            pl.col("blocking").fill_null(False),
-            pl.col("data_issue_codes").fill_null(pl.lit([], dtype=pl.List(pl.String))),
-            pl.col("data_issue_texts").fill_null(pl.lit([], dtype=pl.List(pl.String))))
+    ratio = pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")
+    far = frame.filter((ratio >= uf) | (ratio <= 1 / uf)).select(
+        "building_id", pl.lit("likely_unit_error").alias("code"),
+        (pl.lit("metered heating is ") + ratio.round(3).cast(pl.String)
+         + pl.lit("× the expectation: check units (therm/ccf, kBtu/MMBtu) and the floor area")).alias("detail"),
+        pl.lit(True).alias("blocking"))
+    issues_df = pl.concat([issues_df, far]).unique(subset=["building_id", "code"], keep="first") \
+        .sort("building_id", "code")
+    agg = issues_df.group_by("building_id").agg(pl.col("blocking").any().alias("blocking"),
+                                                pl.col("code").sort().alias("data_issue_codes"),
+                                                pl.col("detail").sort_by("code").alias("data_issue_texts"))
+    frame = frame.join(agg, on="building_id", how="left", maintain_order="left").with_columns(
+        pl.col("blocking").fill_null(False),
+        pl.col("data_issue_codes").fill_null(pl.lit([], dtype=pl.List(pl.String))),
+        pl.col("data_issue_texts").fill_null(pl.lit([], dtype=pl.List(pl.String))))
     units_ip = cfg["analysis"]["units"] == "IP"
     results = screen.screen(frame, thr, energy_factor=1.0 if units_ip else KBTU_TO_KWH,
                             energy_unit="kBtu" if units_ip else "kWh")
