@@ -333,6 +333,10 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                                                                     "excess_cost").to_dicts()
         return RunResult(run_id, label, target, str(db_path), summary, top, loads)
     except BaseException as exc:
+        mapped = isinstance(exc, OSError)
+        if mapped:  # e.g. a full disk while writing the outputs
+            exc = OutputError(f"{target}: cannot write the outputs ({exc.strerror or exc}); "
+                              "earlier outputs are untouched")
         # an expected error is printed once by the CLI; the run log keeps the detail
         expected = isinstance(exc, ScreeningError)
         (log.debug if expected else log.error)("run %s failed: %s", run_id, exc)
@@ -351,6 +355,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             except Exception:  # the database itself may be the problem
                 pass
         _keep_failure_log(tmp, target, quiet=expected)
+        if mapped:
+            raise exc from None
         raise
     finally:
         if store is not None:
@@ -432,16 +438,23 @@ def _deterministic(summary: dict) -> dict:
 
 
 def _publish(tmp: Path, target: Path) -> None:
+    """Move the finished folder into place; on failure the earlier outputs are where they were."""
+    old = None
     try:
         if target.exists() or target.is_symlink():
             old = target.with_name(f".{target.name}.old-{uuid.uuid4().hex[:6]}")
             os.replace(target, old)
-            os.replace(tmp, target)
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(tmp, target)
+        os.replace(tmp, target)
     except OSError as exc:
-        raise OutputError(f"{target}: cannot move the outputs into place ({exc.strerror or exc})") from None
+        if old is not None and old.exists() and not target.exists():
+            try:
+                os.replace(old, target)
+            except OSError:
+                pass  # the next run puts them back (see _clean_stale_temp)
+        raise OutputError(f"{target}: cannot move the outputs into place ({exc.strerror or exc}); "
+                          "earlier outputs are untouched") from None
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
 
 
 def _point_latest(root: Path, target: Path) -> None:

@@ -64,7 +64,11 @@ class Store:
         except (duckdb.Error, OSError) as exc:
             raise StoreError(f"{self.path}: cannot open database ({str(exc).splitlines()[0]})") from None
         if not read_only:
-            self.create_schema()
+            try:
+                self.create_schema()
+            except (duckdb.IOException, duckdb.InternalException, duckdb.SerializationException) as exc:
+                self.con.close()
+                raise StoreError(f"{self.path}: the database file is damaged ({str(exc).splitlines()[0]})") from None
 
     # -- basics -----------------------------------------------------------------------
     def close(self) -> None:
@@ -95,13 +99,19 @@ class Store:
                 return cur.fetchall()
             except duckdb.InvalidInputException:  # statements without a result set
                 return []
+        except duckdb.IOException as exc:  # a damaged or vanished file, a full disk
+            raise StoreError(f"{self.path}: cannot read or write the database "
+                             f"({str(exc).splitlines()[0]})") from None
         finally:
             for rel in frames:
                 self.con.unregister(rel)
 
     def frame(self, name: str, params: dict | None = None) -> pl.DataFrame:
         """The named query's result as a polars frame."""
-        return self.con.sql(statements()[name], params=params or None).pl()
+        try:
+            return self.con.sql(statements()[name], params=params or None).pl()
+        except duckdb.IOException as exc:
+            raise StoreError(f"{self.path}: cannot read the database ({str(exc).splitlines()[0]})") from None
 
     def rows(self, name: str, params: dict | None = None) -> list[tuple]:
         return self.execute(name, params)

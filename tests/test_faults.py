@@ -106,9 +106,6 @@ def test_disk_full_while_writing_summary_json(site, monkeypatch):
     site.assert_intact()
 
 
-@pytest.mark.xfail(strict=True, reason="runner._run_locked lets an OSError from writing the outputs escape "
-                                       "unwrapped: the CLI prints 'internal error: OSError' and writes a crash log "
-                                       "instead of an OutputError line (see report)")
 def test_disk_full_is_reported_as_an_output_error_not_a_crash(site, monkeypatch):
     def full(self, *a, **k):
         raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
@@ -165,9 +162,6 @@ def test_read_only_file_system_when_publishing(site, monkeypatch):
     site.assert_intact()
 
 
-@pytest.mark.xfail(strict=True, reason="runner._publish moves the earlier outputs aside, and when the second "
-                                       "rename fails it raises without moving them back: the output folder is "
-                                       "gone until the next run restores it (see report)")
 def test_failed_second_rename_puts_the_earlier_outputs_back(site, monkeypatch):
     _fail_renames(monkeypatch, site, errno.ENOSPC, only_second=True)
     res = site.run()
@@ -203,10 +197,7 @@ def test_database_locked_by_another_process(site):
     assert site.run("--force").exit_code == 0      # released: the next run goes ahead
 
 
-@pytest.mark.parametrize("damage", ["random", pytest.param("truncated", marks=pytest.mark.xfail(
-    strict=True, reason="a truncated file opens; the first read raises duckdb.IOException, which store.Store "
-                        "does not map to StoreError: 'internal error' and a crash log (see report)")),
-    "zeroed_header"])
+@pytest.mark.parametrize("damage", ["random", "truncated", "zeroed_header"])
 def test_corrupt_database_file(site, damage):
     raw = site.db.read_bytes()
     if damage == "random":
