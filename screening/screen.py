@@ -105,7 +105,7 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     basis, the EIA definition], ``peer_group, peer_median_intensity, peer_percentile,
     z_score, balance_point_excess_f`` [°F] (fitted − engineering balance point), ``z_balance_point,
     z_intensity, evidence_score`` (z_score + w_bp·z_balance_point + w_int·z_intensity, the
-    needs_review test; see docs/detection.md), ``excess_energy_kbtu`` (metered − P90, ≥ 0), ``excess_energy_central_kbtu``
+    needs_review test; see README "How the audit list is chosen"), ``excess_energy_kbtu`` (metered − P90, ≥ 0), ``excess_energy_central_kbtu``
     (metered − P50, ≥ 0), ``excess_cost, excess_co2e_kg, yoy_change, flag_codes,
     flag_texts, needs_review, tier, tier_rank, rank, verdict``.
     """

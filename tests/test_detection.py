@@ -6,10 +6,10 @@ drifting read dates, noise, envelope values drawn from its own curves). Faults a
 there and recorded in ``truth.csv``; the tool sees only buildings/readings/weather.
 
 Seed 606 is held out: the thresholds in ``screening/config.py`` were chosen on seeds 11, 101
-and 202 (see docs/detection.md) and the demo's seed 2026 was not used.
+and 202 (see README "How the audit list is chosen") and the demo's seed 2026 was not used.
 
 Floors: the issue's target is recall >= 90 % with false alarms <= 5 %. The tool does not
-reach that recall (docs/detection.md explains why). The asserts below are the measured
+reach that recall (README "How the audit list is chosen" explains why). The asserts below are the measured
 figures on this seed rounded down to a floor that a regression would break: measured
 recall 15/36 = 42 % (floor 35 %), false alarms 4/246 = 1.6 % (ceiling 5 %, the issue's target).
 """

@@ -10,7 +10,7 @@ Quarter labels follow the window rule of the foundation issue: the 12 months end
 last day of the last complete calendar quarter before ``as_of`` (by hand from the calendar:
 2026-10-15 → 2025-10-01..2026-09-30 = "2026-Q3"; 2026-07-15 → 2025-07-01..2026-06-30 = "2026-Q2").
 
-Exit codes are the contract of ``screening/errors.py`` and docs/operations.md:
+Exit codes are the contract of ``screening/errors.py`` and README "Running every quarter from cron":
 0 ok · 1 run failed · 2 bad input or config · 3 another run holds the lock.
 """
 
