@@ -104,28 +104,34 @@ class _Frame:
     def py(self, y):
         return self.y0 - (np.asarray(y, float) - self.ylo) / (self.yhi - self.ylo) * (self.y0 - self.y1)
 
-    def axes(self, xticks, yticks, xlabel, ylabel, *, xgrid=False) -> str:
+    def axes(self, xticks, yticks, xlabel, ylabel, *, xgrid=False, titles=True) -> str:
+        """Grid, ticks, tick labels and (with ``titles``) the axis titles.
+
+        Grid lines and tick marks are one ``<path>`` each: WeasyPrint draws every SVG
+        node with its own style resolution, so fewer nodes draw faster.
+        """
         out = []
+        grid, marks = [], []
         for t in yticks:
             y = float(self.py(t))
-            out.append(f'<line x1="{self.x0:.1f}" y1="{y:.1f}" x2="{self.x1:.1f}" y2="{y:.1f}" stroke="{FAINT}" '
-                       f'stroke-width="0.6"/>')
+            grid.append(f"M{self.x0:.1f} {y:.1f}H{self.x1:.1f}")
             out.append(f'<text x="{self.x0 - 3:.1f}" y="{y + 3:.1f}" text-anchor="end" font-size="8" {_FONT}>'
                        f'{escape(fmt_tick(float(t)))}</text>')
         for t in xticks:
             x = float(self.px(t))
             if xgrid:
-                out.append(f'<line x1="{x:.1f}" y1="{self.y0:.1f}" x2="{x:.1f}" y2="{self.y1:.1f}" '
-                           f'stroke="{FAINT}" stroke-width="0.6"/>')
-            out.append(f'<line x1="{x:.1f}" y1="{self.y0:.1f}" x2="{x:.1f}" y2="{self.y0 + 3:.1f}" stroke="{INK}" '
-                       f'stroke-width="0.6"/>')
+                grid.append(f"M{x:.1f} {self.y0:.1f}V{self.y1:.1f}")
+            marks.append(f"M{x:.1f} {self.y0:.1f}V{self.y0 + 3:.1f}")
             out.append(f'<text x="{x:.1f}" y="{self.y0 + 12:.1f}" text-anchor="middle" font-size="8" {_FONT}>'
                        f'{escape(fmt_tick(float(t)))}</text>')
-        out.append(f'<polyline points="{self.x0:.1f},{self.y1:.1f} {self.x0:.1f},{self.y0:.1f} '
-                   f'{self.x1:.1f},{self.y0:.1f}" fill="none" stroke="{INK}" stroke-width="0.8"/>')
-        out.append(f'<text x="{(self.x0 + self.x1) / 2:.1f}" y="{self.h - 3:.1f}" text-anchor="middle" '
-                   f'font-size="8.5" {_FONT}>{escape(xlabel)}</text>')
-        if ylabel:
+        if grid:
+            out.insert(0, f'<path d="{"".join(grid)}" fill="none" stroke="{FAINT}" stroke-width="0.6"/>')
+        marks.append(f"M{self.x0:.1f} {self.y1:.1f}V{self.y0:.1f}H{self.x1:.1f}")
+        out.append(f'<path d="{"".join(marks)}" fill="none" stroke="{INK}" stroke-width="0.8"/>')
+        if titles and xlabel:
+            out.append(f'<text x="{(self.x0 + self.x1) / 2:.1f}" y="{self.h - 3:.1f}" text-anchor="middle" '
+                       f'font-size="8.5" {_FONT}>{escape(xlabel)}</text>')
+        if titles and ylabel:
             cy = (self.y0 + self.y1) / 2
             out.append(f'<text x="9" y="{cy:.1f}" text-anchor="middle" font-size="8.5" {_FONT} '
                        f'transform="rotate(-90 9 {cy:.1f})">{escape(ylabel)}</text>')
@@ -149,13 +155,15 @@ def _clip_line(intercept, slope, xlo, xhi, ylo, yhi):
 
 def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[float | None], *,
                   fit_line: dict | None, expected_line: dict | None, x_label: str, y_label: str,
-                  width: float = 360, height: float = 200) -> str:
+                  width: float = 360, height: float = 200, annotate: bool = True) -> str:
     """Use per day against degree days per day, one open circle per period.
 
     ``fit_line`` and ``expected_line`` are ``{"intercept", "slope"}`` in the same units
     (use per day = intercept + slope * degree days per day); the fitted line is drawn
     solid, the engineering expectation dashed. Non-finite points are left out and counted
-    in a note.
+    in a note. With ``annotate=False`` the axis titles, the legend and the note are left
+    out (the page prints them as text beside the chart: SVG text is drawn glyph by glyph
+    in WeasyPrint, which is the most expensive part of a chart); tick labels stay.
     """
     x, y = _arr(dd_per_day), _arr(use_per_day)
     if x.shape != y.shape:
@@ -178,8 +186,9 @@ def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[floa
                 yhi = max(yhi, min(float(ends.max()), yhi + 0.25 * span))
     xt = nice_ticks(xlo, xhi, 5)
     yt = nice_ticks(ylo, yhi, 4)
-    f = _Frame(width, height, float(xt[0]), float(xt[-1]), float(yt[0]), float(yt[-1]), top=22)
-    out = [_svg_open(width, height, title), f.axes(xt, yt, x_label, y_label, xgrid=True)]
+    margins = {} if annotate else {"left": 32, "top": 6, "bottom": 16}
+    f = _Frame(width, height, float(xt[0]), float(xt[-1]), float(yt[0]), float(yt[-1]), **({"top": 22} | margins))
+    out = [_svg_open(width, height, title), f.axes(xt, yt, x_label, y_label, xgrid=True, titles=annotate)]
     legend = []
     for line, dash, label in ((expected_line, ' stroke-dasharray="5 3"', "engineering expectation"),
                               (fit_line, "", "fitted to the meter data")):
@@ -190,8 +199,14 @@ def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[floa
                        f'y2="{float(f.py(yb)):.1f}" stroke="{INK}" stroke-width="1.4"{dash}/>')
             legend.append((dash, label))
     px, py = f.px(xs), f.py(ys)
-    out.append("".join(f'<circle cx="{a:.1f}" cy="{b:.1f}" r="2.6" fill="#fff" stroke="{INK}" stroke-width="1"/>'
-                       for a, b in zip(px.tolist(), py.tolist())))
+    # all period circles as one path of two arcs each (one SVG node to draw)
+    out.append('<path class="periods" d="' + "".join(f"M{a - 2.6:.1f} {b:.1f}a2.6 2.6 0 1 0 5.2 0a2.6 2.6 0 1 0 -5.2 0"
+                                                     for a, b in zip(px.tolist(), py.tolist()))
+               + f'" fill="#fff" stroke="{INK}" stroke-width="1"/>')
+    dropped = int((~ok).sum())
+    if not annotate:
+        out.append("</svg>")
+        return "".join(out)
     lx = f.x0 + 2
     out.append(f'<circle cx="{lx + 4:.1f}" cy="9" r="2.6" fill="#fff" stroke="{INK}"/>'
                f'<text x="{lx + 10:.1f}" y="12" font-size="8" {_FONT}>period</text>')
@@ -200,7 +215,6 @@ def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[floa
         out.append(f'<line x1="{lx:.1f}" y1="9" x2="{lx + 16:.1f}" y2="9" stroke="{INK}" stroke-width="1.4"{dash}/>'
                    f'<text x="{lx + 19:.1f}" y="12" font-size="8" {_FONT}>{escape(label)}</text>')
         lx += 19 + 4.5 * len(label) + 8
-    dropped = int((~ok).sum())
     if dropped:
         out.append(f'<text x="{f.x1:.1f}" y="{f.y1 + 10:.1f}" text-anchor="end" font-size="7.5" {_FONT} '
                    f'fill="{MID}">{dropped} period(s) not plotted (missing value)</text>')
@@ -209,8 +223,11 @@ def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[floa
 
 
 def annual_chart(labels: Sequence[str], metered: Sequence[float | None], expected: Sequence[float | None], *,
-                 y_label: str, width: float = 360, height: float = 210) -> str:
-    """Metered (solid bar) against expected (outlined bar) heating, one pair per year."""
+                 y_label: str, width: float = 360, height: float = 210, annotate: bool = True) -> str:
+    """Metered (solid bar) against expected (outlined bar) heating, one pair per year.
+
+    ``annotate=False`` leaves out the y-axis title and the legend (see :func:`scatter_chart`).
+    """
     m, e = _arr(metered), _arr(expected)
     if not (len(labels) == m.size == e.size):
         raise ValueError(f"labels, metered and expected differ in length: {len(labels)}, {m.size}, {e.size}")
@@ -221,8 +238,9 @@ def annual_chart(labels: Sequence[str], metered: Sequence[float | None], expecte
         return _no_data(width, height, title, "no annual figures to plot")
     yt = nice_ticks(min(0.0, float(vals.min())), max(0.0, float(vals.max())), 4)
     n = len(labels)
-    f = _Frame(width, height, 0.0, float(n), float(yt[0]), float(yt[-1]), top=22)
-    out = [_svg_open(width, height, title), f.axes([], yt, "", y_label)]
+    margins = {} if annotate else {"left": 32, "top": 6, "bottom": 16}
+    f = _Frame(width, height, 0.0, float(n), float(yt[0]), float(yt[-1]), **({"top": 22} | margins))
+    out = [_svg_open(width, height, title), f.axes([], yt, "", y_label, titles=annotate)]
     slot = (f.x1 - f.x0) / n
     bw = min(slot * 0.34, 40)
     zero = float(f.py(0.0))
@@ -239,6 +257,9 @@ def annual_chart(labels: Sequence[str], metered: Sequence[float | None], expecte
                            f'{_FONT} fill="{MID}">n/a</text>')
         out.append(f'<text x="{cx:.1f}" y="{f.y0 + 12:.1f}" text-anchor="middle" font-size="8" {_FONT}>'
                    f'{escape(str(lab))}</text>')
+    if not annotate:
+        out.append("</svg>")
+        return "".join(out)
     lx = f.x0 + 4
     out.append(f'<rect x="{lx:.1f}" y="4" width="12" height="8" fill="{MID}" stroke="{INK}"/>'
                f'<text x="{lx + 16:.1f}" y="11" font-size="8" {_FONT}>metered</text>'
@@ -249,12 +270,14 @@ def annual_chart(labels: Sequence[str], metered: Sequence[float | None], expecte
 
 
 def peer_chart(peers: Sequence[float | None], value: float | None, median: float | None, *, x_label: str,
-               width: float = 300, height: float = 240, max_ticks: int = 80) -> str:
+               width: float = 300, height: float = 240, max_ticks: int = 80, annotate: bool = True) -> str:
     """Where one building sits among its peer group on a single axis.
 
     Up to ``max_ticks`` peers are drawn as one grey tick each; larger groups as a
     histogram of 20 bins. The building is a black downward triangle with a label; the
-    peer median a dashed vertical line.
+    peer median a dashed vertical line. ``annotate=False`` leaves out the axis title, the
+    "peer median" label and the group note (see :func:`scatter_chart`); the building's
+    "this building" label stays.
     """
     p = _arr(peers)
     p = p[np.isfinite(p)]
@@ -265,28 +288,32 @@ def peer_chart(peers: Sequence[float | None], value: float | None, median: float
         return _no_data(width, height, title, "no peer figures to plot")
     pts = np.concatenate([p, [v] if v is not None else [], [med] if med is not None else []])
     xt = nice_ticks(min(0.0, float(pts.min())), float(pts.max()), 4)
-    f = _Frame(width, height, float(xt[0]), float(xt[-1]), 0.0, 1.0, left=14, right=12, top=30)
-    out = [_svg_open(width, height, title), f.axes(xt, [], x_label, "")]
+    margins = {} if annotate else {"top": 8, "bottom": 16}
+    f = _Frame(width, height, float(xt[0]), float(xt[-1]), 0.0, 1.0, **({"left": 14, "right": 12, "top": 30} | margins))
+    out = [_svg_open(width, height, title), f.axes(xt, [], x_label, "", titles=annotate)]
     if p.size <= max_ticks:
         xs = f.px(p).tolist()
-        out.append("".join(f'<line x1="{a:.1f}" y1="{f.y0 - 1:.1f}" x2="{a:.1f}" y2="{f.y0 - 40:.1f}" '
-                           f'stroke="{MID}" stroke-width="1"/>' for a in xs))
+        if xs:  # one tick per peer, all in one path
+            out.append('<path class="peers" d="' + "".join(f"M{a:.1f} {f.y0 - 1:.1f}V{f.y0 - 40:.1f}" for a in xs)
+                       + f'" fill="none" stroke="{MID}" stroke-width="1"/>')
         note = f"{p.size} building(s) in the group, one tick each"
     else:
         counts, edges = np.histogram(p, bins=20, range=(f.xlo, f.xhi))
         hmax = float(counts.max()) or 1.0
         hpx = (f.y0 - f.y1 - 34) * counts / hmax
-        out.append("".join(
-            f'<rect x="{float(f.px(a)):.1f}" y="{f.y0 - h:.1f}" width="{float(f.px(b) - f.px(a)):.1f}" '
-            f'height="{h:.1f}" fill="{LIGHT}" stroke="{INK}" stroke-width="0.5"/>'
-            for a, b, h in zip(edges[:-1].tolist(), edges[1:].tolist(), hpx.tolist()) if h > 0))
+        bars = "".join(f"M{float(f.px(a)):.1f} {f.y0:.1f}v{-h:.1f}H{float(f.px(b)):.1f}V{f.y0:.1f}Z"
+                       for a, b, h in zip(edges[:-1].tolist(), edges[1:].tolist(), hpx.tolist()) if h > 0)
+        if bars:  # all bars in one path
+            out.append(f'<path class="bins" d="{bars}" fill="{LIGHT}" stroke="{INK}" stroke-width="0.5"/>')
         note = f"{p.size} buildings in the group, bars count buildings"
     if med is not None:
         xm = float(f.px(med))
         xl = min(max(xm, f.x0 + 26), f.x1 - 26)
         out.append(f'<line x1="{xm:.1f}" y1="{f.y0:.1f}" x2="{xm:.1f}" y2="{f.y1 + 14:.1f}" stroke="{INK}" '
-                   f'stroke-width="1.2" stroke-dasharray="4 2"/>'
-                   f'<text x="{xl:.1f}" y="{f.y1 + 11:.1f}" text-anchor="middle" font-size="8" {_FONT}>peer median</text>')
+                   f'stroke-width="1.2" stroke-dasharray="4 2"/>')
+        if annotate:
+            out.append(f'<text x="{xl:.1f}" y="{f.y1 + 11:.1f}" text-anchor="middle" font-size="8" {_FONT}>'
+                       f'peer median</text>')
     if v is not None:
         xv = float(f.px(v))
         ty = f.y0 - 52
@@ -296,7 +323,8 @@ def peer_chart(peers: Sequence[float | None], value: float | None, median: float
                    f'fill="{INK}"/><line x1="{xv:.1f}" y1="{ty:.1f}" x2="{xv:.1f}" y2="{f.y0:.1f}" stroke="{INK}" '
                    f'stroke-width="2"/><text x="{xv + dx:.1f}" y="{ty - 12:.1f}" text-anchor="{anchor}" '
                    f'font-size="8.5" font-weight="bold" {_FONT}>this building</text>')
-    out.append(f'<text x="{f.x0:.1f}" y="10" font-size="7.5" {_FONT} fill="{MID}">{escape(note)}</text>')
+    if annotate:
+        out.append(f'<text x="{f.x0:.1f}" y="10" font-size="7.5" {_FONT} fill="{MID}">{escape(note)}</text>')
     out.append("</svg>")
     return "".join(out)
 

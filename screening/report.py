@@ -20,6 +20,8 @@ file). Output files are named by :func:`assign_filenames` and written atomically
 
 from __future__ import annotations
 
+import contextlib
+import gc
 import hashlib
 import io
 import logging
@@ -304,24 +306,41 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     tr = s.get("tier_rank")
     co2_v, co2_u = fmt_co2e(s.get("excess_co2e_kg"))
 
+    # Charts carry only their geometry and tick labels (annotate=False): WeasyPrint draws
+    # SVG text glyph by glyph, so axis titles and legends are printed as page text in the
+    # caption instead (measured: docs/rendering.md).
     periods = s.get("periods") or []
+    dd_unit = s.get("dd_unit", "")
     if periods:
-        chart1 = charts.scatter_chart([p.get("dd_per_day") for p in periods], [p.get("use_per_day") for p in periods],
-                                      fit_line=s.get("fit_line"), expected_line=s.get("expected_line"),
-                                      x_label=f"degree days per day [{s.get('dd_unit', '')}/day]",
-                                      y_label=f"use per day [{eu}/day]")
+        xs = [p.get("dd_per_day") for p in periods]
+        ys = [p.get("use_per_day") for p in periods]
+        chart1 = charts.scatter_chart(xs, ys, fit_line=s.get("fit_line"), expected_line=s.get("expected_line"),
+                                      x_label="", y_label="", width=360, height=170, annotate=False)
+        dropped = sum(1 for x, y in zip(xs, ys) if not (_finite(x) and _finite(y)))
         chart1_title = "Heating use against the weather, by billing period"
-        chart1_caption = ("Each circle is one billing period. Solid line: fitted to the meter data; dashed line: "
-                          "what the envelope (UA) and the weather predict.")
+        chart1_axes = f"up: use per day [{eu}/day]; across: degree days per day [{dd_unit}/day]"
+        chart1_caption = ("Circles: billing periods. Solid line: fitted to the meter data; dashed line: what the "
+                          "envelope (UA) and the weather predict."
+                          + (f" {dropped} period(s) not plotted (missing value)." if dropped else ""))
     else:
         annual = s.get("annual") or []
         chart1 = charts.annual_chart([str(a.get("year_label")) for a in annual], [a.get("metered") for a in annual],
-                                     [a.get("expected") for a in annual], y_label=f"heating [{eu}]")
+                                     [a.get("expected") for a in annual], y_label="", width=360, height=170,
+                                     annotate=False)
         chart1_title = "Metered against expected heating, by year"
-        chart1_caption = "Annual readings only, so no per-period fit: solid bars metered, dashed outlines expected."
+        chart1_axes = f"up: heating per year [{eu}]"
+        chart1_caption = ("Annual readings only, so no per-period fit. Grey bars: metered; dashed outlines: "
+                          "expected from the envelope (UA) and the weather.")
     chart2 = charts.peer_chart(s.get("peers") or [], s.get("heating_intensity"), s.get("peer_median_intensity"),
-                               x_label=f"heating per degree day [{s.get('intensity_unit', '')}]")
-    n_peers = len(s.get("peers") or [])
+                               x_label="", width=300, height=136, annotate=False)
+    n_peers = len([v for v in (s.get("peers") or []) if _finite(v)])
+    chart2_axes = f"across: heating per degree day [{s.get('intensity_unit', '')}]"
+    if n_peers:
+        chart2_caption = (f"{n_peers} building(s) in the group, this one included: "
+                          + ("one grey tick each" if n_peers <= 80 else "grey bars count buildings")
+                          + "; dashed line: peer median; black triangle: this building.")
+    else:
+        chart2_caption = "No peer group figures for this building."
 
     parts = s.get("ua_parts") or []
     vals = [p.get("value") for p in parts]
@@ -397,9 +416,9 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "excess_cost": fmt_money(s.get("excess_cost"), cur),
         "excess_co2e": co2_v, "co2e_unit": co2_u,
         "chart1": svg_img(chart1, chart1_title), "chart1_title": chart1_title, "chart1_caption": chart1_caption,
-        "chart2": svg_img(chart2, "place among peers"),
-        "chart2_caption": (f"Heating per degree day of the {n_peers} building(s) in the group, this one included."
-                           if n_peers else "No peer group figures for this building."),
+        "chart1_axes": chart1_axes,
+        "chart2": svg_img(chart2, "place among peers"), "chart2_axes": chart2_axes,
+        "chart2_caption": chart2_caption,
         "ua_parts": ua_parts, "ua_total": fmt_num(total), "ua_unit": s.get("ua_unit", ""),
         "effective_ua": fmt_num(s.get("effective_ua")),
         "assumptions": assumptions, "assumptions_more": max(len(asm_all) - lim["asm"], 0),
@@ -535,14 +554,34 @@ def _write_pages(pdf_bytes: bytes, picks: Iterable[tuple[int, Path, str]]) -> No
         _atomic_write(buf.getvalue(), target)
 
 
+@contextlib.contextmanager
+def _gc_paused():
+    """Switch Python's cyclic garbage collector off while WeasyPrint lays out and writes.
+
+    Layout allocates hundreds of thousands of small objects that live until the chunk is
+    written; each automatic collection walks all of them again. Sampling the render with
+    py-spy showed ~28% of the time in ``gc_collect_main`` (docs/rendering.md). The pause
+    is bounded by one chunk; reference counting still frees everything acyclic and the
+    collector, switched back on, cleans up the rest.
+    """
+    was_on = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_on:
+            gc.enable()
+
+
 def _render_one(sheet: dict[str, Any], target: Path, paper: str, start_level: int = 0) -> int:
     """Render one sheet alone, shrinking until it fits one page; returns the level used."""
     title = sheet_title(sheet)
     for level in range(start_level, MAX_LEVEL + 1):
-        doc = _render_html(_sheets_html([sheet_view(sheet, level)], title), "sheet.css", paper)
-        if len(doc.pages) == 1:
-            _write_pages(doc.write_pdf(), [(0, target, title)])
-            return level
+        with _gc_paused():
+            doc = _render_html(_sheets_html([sheet_view(sheet, level)], title), "sheet.css", paper)
+            if len(doc.pages) == 1:
+                _write_pages(doc.write_pdf(), [(0, target, title)])
+                return level
         LOGGER.info("sheet %r needs %d pages at shrink level %d", sheet.get("building_id"), len(doc.pages), level)
     raise RenderError(f"sheet for building {sheet.get('building_id')!r} does not fit on one page "
                       f"even at the smallest layout (level {MAX_LEVEL})")
@@ -552,23 +591,8 @@ def _render_chunk(sheets: list[dict[str, Any]], targets: list[str], paper: str) 
     """Render a chunk of sheets as one document and split it; returns stats."""
     targets_p = [Path(t) for t in targets]
     try:
-        views = [sheet_view(s, 0) for s in sheets]
-        doc = _render_html(_sheets_html(views, "ddscreen building sheets"), "sheet.css", paper)
-        n = len(sheets)
-        starts = _sheet_starts(doc, n)
-        refit: list[int] = []
-        if len(doc.pages) == n and starts == list(range(n)):
-            good = list(range(n))
-        elif starts is not None:
-            ends = starts[1:] + [len(doc.pages)]
-            good = [k for k in range(n) if ends[k] - starts[k] == 1]
-            refit = [k for k in range(n) if ends[k] - starts[k] != 1]
-        else:  # cannot tell which page is whose: every sheet on its own
-            starts, good, refit = [], [], list(range(n))
-        if good:
-            _write_pages(doc.write_pdf(), [(starts[k], targets_p[k], sheet_title(sheets[k])) for k in good])
-        levels = [_render_one(sheets[k], targets_p[k], paper, 1) for k in refit]
-        return {"batched": len(good), "refit": len(refit), "levels": levels}
+        with _gc_paused():
+            return _render_chunk_inner(sheets, targets_p, paper)
     except BaseException as exc:  # FatalURLFetchingError is a BaseException
         if isinstance(exc, (RenderError, KeyboardInterrupt, SystemExit)):
             raise
@@ -577,8 +601,31 @@ def _render_chunk(sheets: list[dict[str, Any]], targets: list[str], paper: str) 
                           f"{type(exc).__name__}: {exc}") from exc
 
 
+def _render_chunk_inner(sheets: list[dict[str, Any]], targets_p: list[Path], paper: str) -> dict[str, Any]:
+    """Lay out one chunk, split the one-page sheets off, re-render the others alone."""
+    views = [sheet_view(s, 0) for s in sheets]
+    doc = _render_html(_sheets_html(views, "ddscreen building sheets"), "sheet.css", paper)
+    n = len(sheets)
+    starts = _sheet_starts(doc, n)
+    refit: list[int] = []
+    if len(doc.pages) == n and starts == list(range(n)):
+        good = list(range(n))
+    elif starts is not None:
+        ends = starts[1:] + [len(doc.pages)]
+        good = [k for k in range(n) if ends[k] - starts[k] == 1]
+        refit = [k for k in range(n) if ends[k] - starts[k] != 1]
+    else:  # cannot tell which page is whose: every sheet on its own
+        starts, good, refit = [], [], list(range(n))
+    if good:
+        _write_pages(doc.write_pdf(), [(starts[k], targets_p[k], sheet_title(sheets[k])) for k in good])
+    del doc
+    levels = [_render_one(sheets[k], targets_p[k], paper, 1) for k in refit]
+    return {"batched": len(good), "refit": len(refit), "levels": levels}
+
+
 def _worker_init() -> None:
     _state()
+    gc.freeze()  # the modules and renderer state live as long as the worker: keep them out of collections
 
 
 # --------------------------------------------------------------------------------------
@@ -723,8 +770,8 @@ def render_ranking(report: dict[str, Any], out_path: Path, *, paper: str = "Lett
     html = _state()["env"].get_template("ranking.html.j2").render(
         v=view, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__)
     try:
-        doc = _render_html(html, "ranking.css", paper)
-        pdf = doc.write_pdf()
+        with _gc_paused():
+            pdf = _render_html(html, "ranking.css", paper).write_pdf()
     except BaseException as exc:
         if isinstance(exc, (KeyboardInterrupt, SystemExit)):
             raise

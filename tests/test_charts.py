@@ -59,11 +59,35 @@ def test_scatter_draws_one_circle_per_finite_point_and_both_lines():
     svg = charts.scatter_chart(x, y, fit_line={"intercept": 80, "slope": 27},
                                expected_line={"intercept": 80, "slope": 22}, x_label="dd", y_label="use")
     root = parse(svg)
-    circles = root.findall(f"{SVG}circle")
-    assert len(circles) == 4 + 1  # 4 finite points + 1 legend marker
+    # all period circles are one path, one "M" (move-to) per circle
+    periods = [p for p in root.findall(f"{SVG}path") if p.get("class") == "periods"]
+    assert len(periods) == 1 and periods[0].get("d").count("M") == 4  # 4 finite points
+    assert len(root.findall(f"{SVG}circle")) == 1  # the legend marker
     dashed = [ln for ln in root.findall(f"{SVG}line") if ln.get("stroke-width") == "1.4"]
     assert len(dashed) == 4  # two data lines + two legend samples
     assert "2 period(s) not plotted" in svg
+
+
+def test_unannotated_charts_keep_geometry_and_ticks_only():
+    """annotate=False: no axis titles, legend or notes (the page prints them as text)."""
+    x, y = [30, 20, 10], [900, 620, 330]
+    kw = dict(fit_line={"intercept": 80, "slope": 27}, expected_line={"intercept": 80, "slope": 22},
+              x_label="XTITLE", y_label="YTITLE")
+    svg = charts.scatter_chart(x + [None], y + [5], annotate=False, **kw)
+    root = parse(svg)
+    texts = [t.text for t in root.iter(f"{SVG}text")]
+    assert "XTITLE" not in svg and "YTITLE" not in svg and "not plotted" not in svg
+    assert texts
+    assert all(t.replace(".", "").replace("k", "").replace("-", "").isdigit() for t in texts)  # tick labels only
+    lines = [ln for ln in root.findall(f"{SVG}line") if ln.get("stroke-width") == "1.4"]
+    assert len(lines) == 2 and not root.findall(f"{SVG}circle")  # both data lines, no legend
+    peer = parse(charts.peer_chart([1, 2, 3], 2.5, 2.0, x_label="XTITLE", annotate=False))
+    ptexts = [t.text for t in peer.iter(f"{SVG}text")]
+    assert "this building" in ptexts and "peer median" not in ptexts
+    assert not any("group" in t for t in ptexts)
+    ann = parse(charts.annual_chart(["2024"], [1.0], [2.0], y_label="YTITLE", annotate=False))
+    assert "YTITLE" not in [t.text for t in ann.iter(f"{SVG}text")]
+    assert "2024" in [t.text for t in ann.iter(f"{SVG}text")]
 
 
 def test_scatter_line_is_clipped_inside_the_plot():
