@@ -71,6 +71,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
     },
     "thresholds": {
         "band_ratio": 1.0,          # metered above expected_high × this → above the band
+        "band_floor": 0.10,         # the band is at least ±10 % around P50 (common practice: meter/weather uncertainty)
         "z_review": 2.0,            # robust z-score of log(ratio) within peers that alone puts a building on watch
         "review_score": 3.5,        # evidence score (z + weighted balance-point and intensity z) for needs_review
         "weight_balance_point": 1.0,  # weight of the fitted-minus-engineering balance point z in the score

@@ -105,15 +105,22 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     basis, the EIA definition], ``peer_group, peer_median_intensity, peer_percentile,
     z_score, balance_point_excess_f`` [°F] (fitted − engineering balance point), ``z_balance_point,
     z_intensity, evidence_score`` (z_score + w_bp·z_balance_point + w_int·z_intensity, the
-    needs_review test; see README "How the audit list is chosen"), ``excess_energy_kbtu`` (metered − P90, ≥ 0), ``excess_energy_central_kbtu``
+    needs_review test; see README "How the audit list is chosen"), ``excess_energy_kbtu`` (metered − the band's top, ≥ 0; the top is P90, at least P50 × (1 + band_floor)), ``excess_energy_central_kbtu``
     (metered − P50, ≥ 0), ``excess_cost, excess_co2e_kg, yoy_change, flag_codes,
     flag_texts, needs_review, tier, tier_rank, rank, verdict``.
     """
     t = thresholds
+    # the band is never narrower than ±band_floor around P50: metering, weather and calendarization
+    # carry that much uncertainty even when every envelope input is known
+    df = df.with_columns(
+        pl.max_horizontal(pl.col("expected_high_kbtu"),
+                          pl.col("expected_heating_kbtu") * (1 + t["band_floor"])).alias("_band_high"),
+        pl.min_horizontal(pl.col("expected_low_kbtu"),
+                          pl.col("expected_heating_kbtu") * (1 - t["band_floor"])).alias("_band_low"))
     out = df.with_columns(
         (pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")).alias("ratio"),
-        pl.when(pl.col("actual_heating_kbtu") > pl.col("expected_high_kbtu") * t["band_ratio"]).then(pl.lit("above"))
-        .when(pl.col("actual_heating_kbtu") < pl.col("expected_low_kbtu")).then(pl.lit("below"))
+        pl.when(pl.col("actual_heating_kbtu") > pl.col("_band_high") * t["band_ratio"]).then(pl.lit("above"))
+        .when(pl.col("actual_heating_kbtu") < pl.col("_band_low")).then(pl.lit("below"))
         .when(pl.col("actual_heating_kbtu").is_not_null() & pl.col("expected_low_kbtu").is_not_null())
         .then(pl.lit("within")).otherwise(None).alias("band_position"),
         pl.when((pl.col("hdd65") > 0) & (pl.col("floor_area_ft2") > 0) & pl.col("actual_heating_kbtu").is_not_null())
@@ -140,7 +147,7 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         .then(_robust_z_all(pl.col("_logr")))
         .otherwise(pl.col("z_score")).alias("z_score"))
     out = out.with_columns(
-        (pl.col("actual_heating_kbtu") - pl.col("expected_high_kbtu")).clip(lower_bound=0).alias("excess_energy_kbtu"),
+        (pl.col("actual_heating_kbtu") - pl.col("_band_high")).clip(lower_bound=0).alias("excess_energy_kbtu"),
         (pl.col("actual_heating_kbtu") - pl.col("expected_heating_kbtu")).clip(lower_bound=0)
         .alias("excess_energy_central_kbtu"),
         pl.coalesce(
@@ -217,7 +224,7 @@ def _fmt(x: float | None, digits: int = 0) -> str:
 def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: str) -> pl.DataFrame:
     """Flag codes and one-line explanations that carry the numbers; the verdict sentence."""
     rows = out.select(
-        "actual_heating_kbtu", "expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu", "ratio",
+        "actual_heating_kbtu", "expected_heating_kbtu", "_band_low", "_band_high", "ratio",
         "heating_intensity", "peer_median_intensity", "peer_percentile", "peer_group", "z_score",
         "baseload_share", "baseload_share_default", "fitted_base_f", "r2", "cv_rmse", "yoy_change",
         "tier", "needs_review", "blocking", "excess_energy_kbtu", "evidence_score", "z_balance_point", "z_intensity", "span_kind", "data_issue_codes",
@@ -233,7 +240,7 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         if r["_f_above_band"]:
             add("above_band", f"Metered heating {_fmt(r['actual_heating_kbtu'] * e)} {energy_unit} is "
                 f"{_fmt(r['ratio'], 2)}× the expected {_fmt(r['expected_heating_kbtu'] * e)} {energy_unit}, "
-                f"above the likely range {_fmt(r['expected_low_kbtu'] * e)}–{_fmt(r['expected_high_kbtu'] * e)}.")
+                f"above the likely range {_fmt(r['_band_low'] * e)}–{_fmt(r['_band_high'] * e)}.")
         if r["_f_high_among_peers"]:
             add("high_among_peers", f"Heating intensity {_fmt(r['heating_intensity'], 2)} Btu/ft²·°F·day is at the "
                 f"{_fmt(r['peer_percentile'])}th percentile of {r['peer_group']} (median "
