@@ -572,6 +572,7 @@ def validate(buildings: str, readings: str, weather: str, *, config_path: str | 
     notices: list[str] = []
     rows: dict[str, int] = {}
     loaded = {}
+    rejects: list[pl.DataFrame] = []
     for kind, path in (("buildings", buildings), ("readings", readings), ("weather", weather)):
         try:
             ld = pipeline.read_file(kind, path, opts)
@@ -581,21 +582,24 @@ def validate(buildings: str, readings: str, weather: str, *, config_path: str | 
         loaded[kind] = ld
         rows[kind] = ld.df.height
         notices.extend(ld.notices)
-        for r in ld.rejects.iter_rows(named=True):
-            problems.append(f"{r['file']}, line {r['line']}, column {r['column']!r}: {r['reason']}"
-                            + (f" (got {r['value']!r})" if r["value"] is not None else ""))
+        rejects.append(ld.rejects.cast(REJECT_SCHEMA))
     if len(loaded) == 3:
-        stations = sorted(loaded["weather"].df["station_id"].unique().to_list())
-        _, _, rej = pipeline._cross_check(loaded["buildings"].df, loaded["readings"].df, stations,
-                                          {"buildings": buildings, "readings": readings})
-        for r in rej.iter_rows(named=True):
-            problems.append(f"{r['file']}, line {r['line']}, column {r['column']!r}: {r['reason']} (got {r['value']!r})")
         from . import units
-        b, r, _ = pipeline._cross_check(loaded["buildings"].df, loaded["readings"].df, stations, {})
+        stations = sorted(loaded["weather"].df["station_id"].unique().to_list())
+        b, r, rej = pipeline._cross_check(loaded["buildings"].df, loaded["readings"].df, stations,
+                                          {"buildings": buildings, "readings": readings})
+        rejects.append(rej.cast(REJECT_SCHEMA))
         _, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=cfg["analysis"]["gas_btu_per_ft3"],
                                            steam_btu_per_lb=cfg["analysis"]["steam_btu_per_lb"])
-        for x in conv_rej.sort("line").iter_rows(named=True):
-            problems.append(f"{readings}, line {x['line']}, column {x['column']!r}: {x['reason']} (got {x['value']!r})")
+        rejects.append(conv_rej.select(pl.lit(readings).alias("file"), "line", "column",
+                                       pl.col("value").cast(pl.String), "reason").cast(REJECT_SCHEMA))
+    order = {str(p): i for i, p in enumerate((buildings, readings, weather))}
+    if rejects:
+        allrej = pl.concat(rejects).with_columns(pl.col("file").replace_strict(order, default=9).alias("_k")) \
+            .sort("_k", "line", "column")
+        for r in allrej.iter_rows(named=True):
+            problems.append(f"{r['file']}, line {r['line']}, column {r['column']!r}: {r['reason']}"
+                            + (f" (got {r['value']!r})" if r["value"] is not None else ""))
     return Validation(problems, rows, notices)
 
 
