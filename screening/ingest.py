@@ -165,8 +165,11 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tu
         if required:
             p = pl.select(pl.when(s.is_null()).then(pl.lit("required value is empty")).otherwise(p)).to_series()
         typed[canon] = v.rename(canon)
-        problems.append(pl.DataFrame({"_line": raw[LINE_COL], "column": pl.Series([col] * len(s), dtype=pl.String),
-                                      "value": s.rename("value"), "reason": p.rename("reason")}))
+        bad = p.is_not_null()
+        if bool(bad.any()):   # only the rows with a problem (a frame per column of every row is ~8x the file)
+            problems.append(pl.DataFrame({"_line": raw[LINE_COL].filter(bad), "value": s.filter(bad).rename("value"),
+                                          "reason": p.filter(bad).rename("reason")})
+                            .select("_line", pl.lit(col, dtype=pl.String).alias("column"), "value", "reason"))
     typed[LINE_COL] = raw[LINE_COL]
     prob = pl.concat(problems).filter(pl.col("reason").is_not_null()) if problems else pl.DataFrame(
         schema={"_line": pl.Int64, "column": pl.String, "value": pl.String, "reason": pl.String})
