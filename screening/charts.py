@@ -21,7 +21,7 @@ from html import escape
 
 import numpy as np
 
-__all__ = ["nice_ticks", "fmt_tick", "scatter_chart", "annual_chart", "peer_chart", "ratio_histogram"]
+__all__ = ["nice_ticks", "fmt_tick", "scatter_chart", "annual_chart", "peer_chart", "ratio_histogram", "bar_strip"]
 
 _FONT = 'font-family="ddscreen Sans, DejaVu Sans Condensed, sans-serif"'
 INK = "#000"
@@ -358,5 +358,28 @@ def ratio_histogram(ratios: Sequence[float | None], *, width: float = 520, heigh
                f'metered = expected</text>')
     out.append(f'<text x="{f.x1:.1f}" y="{f.y1 + 8:.1f}" text-anchor="end" font-size="7.5" {_FONT} fill="{MID}">'
                f'last bar: ratio {top:g} and above; {r.size} building(s)</text>')
+    out.append("</svg>")
+    return "".join(out)
+
+
+def bar_strip(values: Sequence[float | None], *, width: float = 100, row: float = 10, fill: float = 0.6) -> str:
+    """Horizontal bars only (no text), one per value, scaled to the largest positive value.
+
+    For a text table beside it: bar ``k`` sits in row ``k`` of height ``row``; the SVG
+    is stretched to the table's line height by the page (``preserveAspectRatio="none"``).
+    Missing, negative and non-finite values draw no bar. No text, so it is cheap to draw.
+    """
+    v = _arr(values)
+    n = v.size
+    height = max(n, 1) * row
+    ok = np.isfinite(v) & (v > 0)
+    vmax = float(v[ok].max()) if ok.any() else 0.0
+    out = [f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width:g} {height:g}" width="{width:g}" '
+           f'height="{height:g}" preserveAspectRatio="none"><title>bars</title>']
+    if vmax > 0:
+        pad = row * (1 - fill) / 2
+        d = "".join(f"M0 {k * row + pad:.2f}h{width * float(v[k]) / vmax:.2f}v{row * fill:.2f}H0Z"
+                    for k in range(n) if ok[k])
+        out.append(f'<path d="{d}" fill="{MID}" stroke="{INK}" stroke-width="0.5"/>')
     out.append("</svg>")
     return "".join(out)

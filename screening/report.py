@@ -293,6 +293,23 @@ def svg_img(svg: str, alt: str) -> Markup:
     return Markup('<img class="chart" alt="{}" src="data:image/svg+xml;base64,{}">').format(alt, data)
 
 
+_CONTROL = re.compile(r"[\x00-\x1f\x7f\u2028\u2029]+")
+
+
+def _one_line(text, n: int) -> str:
+    """Text for one line of a ``white-space: pre`` column: no line breaks, at most ``n`` characters."""
+    return _cut(_CONTROL.sub(" ", "" if text is None else str(text)), n)
+
+
+def _strip_img(svg: str, rows: int) -> Markup:
+    """A bar strip as an ``<img>`` exactly ``rows`` text lines high (see .bars in sheet.css)."""
+    import base64
+
+    data = base64.b64encode(svg.encode("utf-8")).decode("ascii")
+    return Markup('<img class="bars" alt="bars" style="height: {}em" src="data:image/svg+xml;base64,{}">').format(
+        f"{1.25 * rows:.2f}", data)
+
+
 def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     """Everything a sheet template shows, as display strings (plus chart SVG markup)."""
     if not 0 <= level <= MAX_LEVEL:
@@ -353,6 +370,17 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "share": fmt_pct(v / total, 0) if _finite(v) and v >= 0 and _finite(total) and total > 0 else "",
     } for p, v in zip(parts, vals)]
 
+    # the UA and assumption tables are columns of newline-separated text (white-space: pre):
+    # one box per column instead of one per cell, measured several times cheaper to lay out
+    ua_rows = ua_parts + [{"part": "total", "value": fmt_num(total), "share": ""}]
+    ua_bars = charts.bar_strip([v if _finite(v) else None for v in vals] + [None])
+    ua_cols = {
+        "names": "\n".join(_one_line(r["part"], 24) for r in ua_rows),
+        "nums": "\n".join(r["value"] for r in ua_rows),
+        "shares": "\n".join(r["share"] for r in ua_rows),
+        "bars": _strip_img(ua_bars, len(ua_rows)),
+    }
+
     asm_all = s.get("assumptions") or []
     assumptions = [{"name": _cut(a.get("name"), 60),
                     "value": fmt_num(a.get("value")) if not isinstance(a.get("value"), str) else _cut(a["value"], 20),
@@ -360,6 +388,13 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
                     "origin": "given" if a.get("origin") == "given" else "default",
                     "origin_class": "given" if a.get("origin") == "given" else "default"}
                    for a in asm_all[: lim["asm"]]]
+
+    asm_cols = {
+        "names": "\n".join(_one_line(x["name"], 34) for x in assumptions),
+        "nums": "\n".join(_one_line(x["value"], 12) for x in assumptions),
+        "units": "\n".join(_one_line(x["unit"], 18) for x in assumptions),
+        "origins": "\n".join(x["origin"] for x in assumptions),
+    }
 
     fit = s.get("fit") or {}
     if fit.get("method") == "regression":
@@ -422,6 +457,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "ua_parts": ua_parts, "ua_total": fmt_num(total), "ua_unit": s.get("ua_unit", ""),
         "effective_ua": fmt_num(s.get("effective_ua")),
         "assumptions": assumptions, "assumptions_more": max(len(asm_all) - lim["asm"], 0),
+        "ua_cols": ua_cols, "asm_cols": asm_cols,
         "fit_text": fit_text,
         "flags": flags, "flags_more": flags_more,
         "data_issues": issues, "data_issues_more": issues_more,
@@ -740,12 +776,26 @@ def ranking_view(report: dict[str, Any]) -> dict[str, Any]:
         "data_issues": joined(r.get("data_issues")),
     } for r in report.get("rows") or []]
     counts = report.get("counts") or {}
+    scalars = {k: v for k, v in counts.items() if not isinstance(v, dict)}
+    nested = {k: v for k, v in counts.items() if isinstance(v, dict)}
+
+    def count_rows(d, codes=False):  # flag and issue codes stay as written (they match the table)
+        return [{"label": _cut(str(k) if codes else str(k).replace("_", " "), 40), "value": fmt_num(v)}
+                for k, v in d.items()]
+
+    tiers_in = report.get("tiers")
+    if not tiers_in and isinstance(nested.get("per_tier"), dict):
+        tiers_in = [{"tier": k, "count": v} for k, v in nested["per_tier"].items()]
+    omitted = report.get("rows_omitted")
     return {
         "run": {k: _cut(run.get(k, "n/a"), 60) for k in ("run_id", "as_of", "window_start", "window_end",
                                                          "run_date", "version", "units")},
-        "counts": [{"label": _cut(str(k).replace("_", " "), 40), "value": fmt_num(v)} for k, v in counts.items()],
-        "tiers": [{"tier": _cut(t.get("tier"), 24), "count": fmt_num(t.get("count"))}
-                  for t in report.get("tiers") or []],
+        "counts": count_rows(scalars),
+        "per_flag": count_rows(nested.get("per_flag") or {}, codes=True),
+        "per_data_issue": count_rows(nested.get("per_data_issue") or {}, codes=True),
+        "tiers": [{"tier": _cut(t.get("tier"), 24), "count": fmt_num(t.get("count")),
+                   "meaning": _cut(t.get("meaning") or "", 80)} for t in tiers_in or []],
+        "rows_omitted": fmt_num(omitted) if isinstance(omitted, int) and omitted > 0 else "",
         "total_energy": fmt_num(totals.get("excess_energy")), "energy_unit": eu,
         "total_cost": fmt_money(totals.get("excess_cost"), cur),
         "total_co2e": co2_v, "co2e_unit": co2_u,

@@ -262,6 +262,13 @@ def test_ranking_pdf(tmp_path):
     for s in ["Top ten", "By tier", report.fmt_num(rep["totals"]["excess_energy"]),
               report.fmt_money(rep["totals"]["excess_cost"]), "look closer"]:
         assert s in first, s
+    # nested counts (per tier / flag / data issue) are shown as their own lists, never as "n/a"
+    assert "n/a" not in first
+    n_high = rep["counts"]["per_flag"]["high_ratio"]
+    assert any(ln.strip() == f"high_ratio {n_high}" for ln in first.splitlines()), first
+    assert any(ln.strip() == f"estimated_reads {rep['counts']['per_data_issue']['estimated_reads']}"
+               for ln in first.splitlines())
+    assert any(ln.strip() == "with data issues 13" for ln in first.splitlines())  # 90 rows, every 7th from 3
     table_pages = [t for t in texts if "Owlbrook Court" in t and "Top ten" not in t and "what it means" not in t]
     assert len(table_pages) >= 2
     for t in table_pages:  # the header repeats on every page of the table
