@@ -180,7 +180,7 @@ def test_random_bytes(work):
         ld = _read(kind, p, ReadOptions())
         if ld is not None:
             _check_frame(kind, ld)
-    _run("random_bytes", inner, 5000)
+    _run("random_bytes", inner, 6000)
 
 
 # ----------------------------------------------------------------------------- CSV-like text
@@ -216,7 +216,7 @@ def test_random_csvish_text(work):
             got = set(ld.df["_line"].to_list()) | set(ld.rejects["line"].to_list())
             assert not set(ld.df["_line"].to_list()) & set(ld.rejects["line"].to_list())
             assert all(2 <= x <= n_lines for x in got), (sorted(got), n_lines)
-    _run("csvish_text", inner, 2000)
+    _run("csvish_text", inner, 1800)
 
 
 # ----------------------------------------------------------------------------- generated files
@@ -296,7 +296,7 @@ def _generated(kind: str, n: int, work: Path):
 
 @pytest.mark.parametrize("kind", KINDS)
 def test_generated_files(kind, work):
-    _generated(kind, {"buildings": 400, "readings": 400, "weather": 500}[kind], work)
+    _generated(kind, {"buildings": 300, "readings": 300, "weather": 400}[kind], work)
 
 
 # ----------------------------------------------------------------------------- the portfolio, mutated
@@ -343,7 +343,7 @@ def test_valid_file_with_random_cells(kind, work):
         lost = untouched - set(ld.df["_line"].to_list())
         rj = ld.rejects.filter(pl.col("line").is_in(sorted(lost)))
         assert rj["reason"].str.contains("different|duplicate|same meter").all(), rj.rows()
-    _run(f"mutated_{kind}", inner, 350)
+    _run(f"mutated_{kind}", inner, 300)
 
 
 # ----------------------------------------------------------------------------- chunked reader
@@ -372,7 +372,7 @@ def test_chunked_reader_equals_whole_file(work):
         finally:
             csvread.FAST_CHUNK_CHARS = old
         assert out[0] == out[1]
-    _run("chunked_reader", inner, 800)
+    _run("chunked_reader", inner, 600)
 
 
 # ----------------------------------------------------------------------------- loading: all or nothing
@@ -428,7 +428,7 @@ def test_load_inputs_all_or_nothing(loaded_store, work):
         assert {fl.path for fl in out} == {x for v in f.values() for x in v}
         n = store.con.execute("SELECT count(*) FROM load_rejects WHERE path = ?", [str(p)]).fetchone()[0]
         assert n == next(fl.rejected for fl in out if fl.path == str(p))
-    _run("load_inputs", inner, 120)
+    _run("load_inputs", inner, 100)
 
 
 def test_load_inputs_rolls_back_a_failure_while_writing(loaded_store, work, monkeypatch):
