@@ -4,7 +4,8 @@
 
 The baseline (one document per sheet, one process) is timed on ``--baseline`` sheets and
 reported per sheet, since it scales linearly; the batched path is timed on all sheets.
-Sheets come from tests/sheet_fixtures.make_sheet (invented buildings). Timings are wall
+Sheets come from tests/sheet_fixtures.make_sheet (invented buildings). Figures measured
+and the conditions (uptime) are in docs/rendering.md. Timings are wall
 clock on this machine; other processes sharing the cores make them vary, so the load
 average is printed beside them.
 """
@@ -52,7 +53,8 @@ def main() -> None:
         print(f"batched+split+{a.workers} procs: {1000 * batched:7.1f} ms/sheet  ({a.sheets} sheets, "
               f"chunks of {stats['chunk_size']}, refit {stats['refit']})")
         print(f"speed-up {one / batched:.2f}x; {1 / batched:.1f} sheets/s; 1,000 sheets ~ {1000 * batched:.0f} s")
-        print(f"load average after: {os.getloadavg()[0]:.2f}")
+        print(f"load average after: {os.getloadavg()[0]:.2f} (1/5/15 min: "
+              f"{', '.join(f'{x:.2f}' for x in os.getloadavg())}; {os.cpu_count()} CPUs)")
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
 
