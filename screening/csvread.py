@@ -289,8 +289,10 @@ def _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields, n_li
         except StopIteration:
             break
         except csv.Error as exc:
+            why = ("a carriage return inside an unquoted field; quote the field or remove it"
+                   if "new-line character" in str(exc) else str(exc))
             rejects.append({"file": label, "line": start_line, "column": "", "value": "",
-                            "reason": f"unreadable record ({exc})"})
+                            "reason": f"unreadable record ({why})"})
             start_line = reader.line_num + 1
             continue
         this_line = start_line

@@ -44,6 +44,7 @@ FUZZ = dict(derandomize=True, deadline=None, database=None,
             suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
                                    HealthCheck.function_scoped_fixture, HealthCheck.filter_too_much])
 COUNTS: dict[str, int] = {}          # examples run per test (reported in docs/reliability.md)
+OUTCOMES = {"structural error": 0, "read": 0, "rows accepted": 0, "rows rejected": 0}
 TARGET = {}                          # max_examples per test
 SCALE = float(__import__("os").environ.get("DDSCREEN_FUZZ_SCALE", "1"))   # >1 for a longer local run
 
@@ -119,11 +120,16 @@ def _run(name: str, fn, n: int) -> None:
 def _read(kind: str, path: Path, opts: ReadOptions):
     """read_file, asserting that only InputError (one line, naming the file) escapes."""
     try:
-        return pipeline.read_file(kind, str(path), opts)
+        ld = pipeline.read_file(kind, str(path), opts)
     except InputError as exc:
+        OUTCOMES["structural error"] += 1
         msg = str(exc)
         assert "\n" not in msg and msg.startswith(str(path)), msg
         return None
+    OUTCOMES["read"] += 1
+    OUTCOMES["rows accepted"] += ld.df.height
+    OUTCOMES["rows rejected"] += ld.rejects["line"].n_unique()
+    return ld
 
 
 def _check_frame(kind: str, ld) -> None:
@@ -482,4 +488,27 @@ def test_total_generated_cases():
         pytest.skip("run the whole module to count")
     total = sum(COUNTS.values())
     print(f"\nfuzz cases: {total} " + " ".join(f"{k}={v}" for k, v in sorted(COUNTS.items())))
+    print("outcomes of read_file: " + ", ".join(f"{k} {v}" for k, v in OUTCOMES.items()))
     assert total >= 10_000 * min(SCALE, 1.0), COUNTS
+
+
+# ----------------------------------------------------------------------------- regressions the fuzzing found
+
+def test_regression_header_name_with_a_newline_gives_a_one_line_message(work):
+    """Found by test_random_bytes: a quoted header name holding a newline broke the one-line message."""
+    p = work / "hdr_newline.csv"
+    p.write_bytes(b'"\x01\n\x01"\nx\n')
+    with pytest.raises(InputError, match=r"missing required column.*\(found: \\x01\\n\\x01\)$") as ei:
+        pipeline.read_file("buildings", str(p), ReadOptions())
+    assert "\n" not in str(ei.value)
+
+
+def test_regression_bare_carriage_return_keeps_line_numbers(work):
+    """Found by test_random_csvish_text: in a file with quotes a bare CR counted as a line end, so
+    later rejects named a line past the end. Lines counted by hand: header 1, a 2, b 3, d 4."""
+    p = work / "bare_cr.csv"
+    p.write_bytes(b'id,name,qty\na,"x",1\nb,B\rc,2\nd,D,3\n')
+    t = csvread.read_table(p, required=["id", "name", "qty"])
+    assert t.df.rows() == [("a", "x", "1", 2), ("d", "D", "3", 4)]
+    assert [(r["line"], r["reason"]) for r in t.rejects] == [
+        (3, "unreadable record (a carriage return inside an unquoted field; quote the field or remove it)")]
