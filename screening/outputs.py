@@ -71,6 +71,52 @@ class Display:
                "ua": BTU_H_F_TO_W_K}
 
 
+# Readable names of the envelope assumptions (screening.envelope.PARAMETERS and given-only inputs)
+ASSUMPTION_LABELS = {
+    "stories": "stories", "aspect_ratio": "plan aspect ratio", "floor_to_floor_ft": "floor-to-floor height",
+    "window_fraction": "window-to-wall ratio", "wall_u_btu_h_ft2_f": "wall U-factor",
+    "window_u_btu_h_ft2_f": "window U-factor", "roof_u_btu_h_ft2_f": "roof U-factor",
+    "ground_f_btu_h_ft_f": "ground loss per perimeter", "ach": "air changes (leakage)",
+    "outdoor_air_cfm_ft2": "outdoor air", "heat_recovery": "heat recovery", "occupied_fraction": "ventilation hours share",
+    "internal_gains_w_ft2": "internal gains", "solar_gains_w_ft2_window": "solar gains per window area",
+    "setpoint_f": "heating setpoint", "setback_f": "setback depth", "setback_hours": "setback hours",
+    "setback_realization": "setback reached", "efficiency": "seasonal efficiency", "wall_area_ft2": "wall area",
+    "window_area_ft2": "window area", "roof_area_ft2": "roof area", "ua_total_btu_h_f": "overall UA",
+    "balance_point_f": "balance point",
+}
+# (IP unit as the envelope writes it) -> (SI unit, factor, offset); NIST SP 811 factors
+_ASSUMPTION_SI = {
+    "Btu/(h*ft2*F)": ("W/(m²·K)", 5.678263341, 0.0), "ft": ("m", 0.3048, 0.0),
+    "Btu/(h*ft*F)": ("W/(m·K)", 1.730734666, 0.0), "cfm/ft2": ("L/(s·m²)", 5.08, 0.0),
+    "W/ft2": ("W/m²", 10.76391042, 0.0), "W per ft2 of window": ("W per m² of window", 10.76391042, 0.0),
+    "ft2": ("m²", FT2_TO_M2, 0.0), "Btu/(h*F)": ("W/K", BTU_H_F_TO_W_K, 0.0),
+}
+_IP_UNIT_TEXT = {"Btu/(h*ft2*F)": "Btu/h·ft²·°F", "Btu/(h*ft*F)": "Btu/h·ft·°F", "ft2": "ft²", "cfm/ft2": "cfm/ft²",
+                 "W/ft2": "W/ft²", "W per ft2 of window": "W per ft² of window", "Btu/(h*F)": "Btu/h·°F"}
+
+
+def display_assumptions(items: list[dict] | None, disp: "Display") -> list[dict]:
+    """Envelope assumptions with readable names, in the run's units (value, low and high)."""
+    out = []
+    for a in items or []:
+        name, unit = a.get("name"), a.get("unit") or ""
+        f, off = 1.0, 0.0
+        if unit == "F":  # a temperature, or a temperature difference for the setback depth
+            delta = name == "setback_f"
+            if disp.si:
+                f, off = 1 / 1.8, (0.0 if delta else -32.0 / 1.8)
+                unit = "K" if delta else "°C"
+            else:
+                unit = "°F"
+        elif disp.si and unit in _ASSUMPTION_SI:
+            unit, f, off = _ASSUMPTION_SI[unit]
+        else:
+            unit = _IP_UNIT_TEXT.get(unit, unit)
+        conv = {k: (None if a.get(k) is None else a[k] * f + off) for k in ("value", "low", "high")}
+        out.append({**a, **conv, "name": ASSUMPTION_LABELS.get(name, str(name).replace("_", " ")), "unit": unit})
+    return out
+
+
 RANKING_COLUMNS = [
     "rank", "building_id", "name", "use_type", "floor_area", "year_built", "station_id", "heating_fuel",
     "period_start", "period_end", "span_kind", "coverage", "hdd", "base_temperature", "hdd65",
@@ -129,6 +175,19 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
     else:
         out = out.with_columns(pl.lit("first run").alias("change"), pl.lit(None, dtype=pl.Int64).alias("previous_rank"))
     return out.select(RANKING_COLUMNS)
+
+
+def assumptions_table(envelope: pl.DataFrame, disp: "Display") -> pl.DataFrame:
+    """assumptions.csv: every envelope assumption of every building, given or default, with its source."""
+    rows = []
+    for r in envelope.select("building_id", "assumptions").sort("building_id").iter_rows(named=True):
+        for a in display_assumptions(r["assumptions"], disp):
+            rows.append({"building_id": r["building_id"], "name": a.get("name"), "value": a.get("value"),
+                         "low": a.get("low"), "high": a.get("high"), "unit": a.get("unit"),
+                         "origin": a.get("origin"), "source": a.get("source")})
+    schema = {"building_id": pl.String, "name": pl.String, "value": pl.Float64, "low": pl.Float64,
+              "high": pl.Float64, "unit": pl.String, "origin": pl.String, "source": pl.String}
+    return pl.DataFrame(rows, schema=schema)
 
 
 def neutralize_formulas(df: pl.DataFrame) -> pl.DataFrame:
@@ -204,7 +263,7 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
                        "expected": d.val("energy", r["expected_heating_kbtu"])}]
         ua_parts = [{"part": p, "value": d.val("ua", r.get(f"ua_{p}"))}
                     for p in ("walls", "windows", "roof", "ground", "infiltration", "ventilation")]
-        assumptions = env_rows.get(bid, {}).get("assumptions") or []
+        assumptions = display_assumptions(env_rows.get(bid, {}).get("assumptions"), d)
         flags = [{"code": c, "explanation": t} for c, t in zip(r["flag_codes"], r["flag_texts"])]
         issues = [{"code": c, "explanation": t} for c, t in zip(r["data_issue_codes"], r["data_issue_texts"])]
         slope_ratio = None
@@ -235,8 +294,10 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             "excess_cost": _num(r["excess_cost"]), "currency": currency,
             "excess_co2e_kg": _num(r["excess_co2e_kg"]),
             "hdd": d.val("dd", r["hdd_balance"]), "base_temperature": d.val("temp", bal),
-            "fit": {"method": r["fit_method"], "r2": _num(r["r2"]), "cv_rmse": _num(r["cv_rmse"]),
-                    "nmbe": _num(r["nmbe"]), "n_periods": r["n_periods"],
+            "fit": {"method": r["fit_method"], "r2": _num(r["r2"]),
+                    # the sheet shows fractions as percentages; the fit reports percent
+                    "cv_rmse": None if _num(r["cv_rmse"]) is None else r["cv_rmse"] / 100.0,
+                    "nmbe": None if _num(r["nmbe"]) is None else r["nmbe"] / 100.0, "n_periods": r["n_periods"],
                     "fitted_base": d.val("temp", r["fitted_base_f"]),
                     "slope": (d.val("energy", r["heating_slope_kbtu_per_dd"]) or 0) * ef
                     if r["heating_slope_kbtu_per_dd"] is not None else None,
@@ -248,7 +309,7 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             "peers": peer_map.get(r["peer_group"], []),
             "flags": flags, "data_issues": issues,
             "next_steps": screen.next_steps(r["flag_codes"], r["data_issue_codes"], slope_vs_envelope=slope_ratio),
-            "cautions": CAUTIONS,
+            "cautions": [],  # the sheet template prints the standard cautions on every sheet
         })
     return out
 

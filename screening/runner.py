@@ -282,6 +282,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         outputs.write_csv(ranking, tmp / "ranking.csv")
         outputs.write_csv(rejects, tmp / "rejects.csv")
         outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
+        outputs.write_csv(outputs.assumptions_table(res.envelope, disp), tmp / "assumptions.csv")
         timings["csv"] = round(time.perf_counter() - t, 4)
         summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev_id)
         paper = cfg["output"]["paper"]
