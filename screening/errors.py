@@ -70,3 +70,7 @@ class OutputError(ScreeningError):
     """Outputs cannot be written (read-only folder, full disk); earlier outputs stay intact."""
 
     exit_code = EXIT_RUN_FAILED
+
+
+class RenderError(OutputError):
+    """A sheet or report could not be laid out or written (names the building or file)."""

@@ -43,7 +43,7 @@ import jinja2
 from markupsafe import Markup
 
 from . import __version__, charts
-from .errors import OutputError
+from .errors import OutputError, RenderError
 from .resources import templates_dir
 
 __all__ = [
@@ -63,9 +63,6 @@ STANDARD_CAUTION = (
     "certified energy auditors."
 )
 
-
-class RenderError(OutputError):
-    """A sheet or report could not be laid out or written (names the building or file)."""
 
 
 # --------------------------------------------------------------------------------------
@@ -542,6 +539,9 @@ def _atomic_write(data: bytes, target: Path) -> None:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes the file private; outputs are for readers
         os.replace(tmp, target)
     except BaseException:
         try:
