@@ -5,7 +5,7 @@
 The baseline (one document per sheet, one process) is timed on ``--baseline`` sheets and
 reported per sheet, since it scales linearly; the batched path is timed on all sheets.
 Sheets come from tests/sheet_fixtures.make_sheet (invented buildings). Figures measured
-and the conditions (uptime) are in docs/rendering.md. Timings are wall
+and the conditions (uptime) are in DEVELOPERS.md "Rendering". Timings are wall
 clock on this machine; other processes sharing the cores make them vary, so the load
 average is printed beside them.
 """

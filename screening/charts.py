@@ -8,7 +8,7 @@ dashed line, open circles, solid vs outlined bars), never by colour alone. Text 
 small "ddscreen Sans" faces (regular and bold, cut from DejaVu Sans Condensed) that
 the page stylesheets load, so a PDF embeds two small font subsets.
 
-Why hand-written SVG rather than a charting library: see ``docs/rendering.md`` (measured
+Why hand-written SVG rather than a charting library: see ``DEVELOPERS.md "Rendering"`` (measured
 cost per sheet); the short version is that a chart here costs well under a millisecond
 to build and adds a few dozen SVG elements for WeasyPrint to draw.
 """

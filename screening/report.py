@@ -1,7 +1,7 @@
 """Rendering: one-page building sheets and the portfolio ranking report (PDF).
 
 Layer 3 (orchestration): takes plain dicts (the sheet and report contracts documented
-in ``docs/rendering.md``), formats every number itself, renders HTML with Jinja
+in ``DEVELOPERS.md "Rendering"``), formats every number itself, renders HTML with Jinja
 (autoescaped, ``StrictUndefined``) and lays it out with WeasyPrint.
 
 Speed: many sheets are laid out in one WeasyPrint document (a *chunk*), each sheet on
@@ -184,7 +184,7 @@ def AssetFetcher(root: Path | None = None, *, fatal: bool = True):  # noqa: N802
 
 
 # --------------------------------------------------------------------------------------
-# number formatting (documented in docs/rendering.md)
+# number formatting (documented in DEVELOPERS.md "Rendering")
 
 
 def _finite(x) -> bool:
@@ -282,7 +282,7 @@ def svg_img(svg: str, alt: str) -> Markup:
     """An ``<img>`` holding an SVG as a base64 ``data:`` URI.
 
     As an image the chart is parsed by WeasyPrint's SVG reader only, instead of adding
-    each SVG node to the HTML cascade (measured: see docs/rendering.md).
+    each SVG node to the HTML cascade (measured: see DEVELOPERS.md "Rendering").
     """
     import base64
 
@@ -322,7 +322,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
 
     # Charts carry only their geometry and tick labels (annotate=False): WeasyPrint draws
     # SVG text glyph by glyph, so axis titles and legends are printed as page text in the
-    # caption instead (measured: docs/rendering.md).
+    # caption instead (measured: DEVELOPERS.md "Rendering").
     periods = s.get("periods") or []
     dd_unit = s.get("dd_unit", "")
     if periods:
@@ -596,7 +596,7 @@ def _gc_paused():
 
     Layout allocates hundreds of thousands of small objects that live until the chunk is
     written; each automatic collection walks all of them again. Sampling the render with
-    py-spy showed ~28% of the time in ``gc_collect_main`` (docs/rendering.md). The pause
+    py-spy showed ~28% of the time in ``gc_collect_main`` (DEVELOPERS.md "Rendering"). The pause
     is bounded by one chunk; reference counting still frees everything acyclic and the
     collector, switched back on, cleans up the rest.
     """
@@ -674,7 +674,7 @@ def render_sheets(sheets: list[dict[str, Any]], out_dir: Path, *, paper: str = "
 
     Parameters
     ----------
-    sheets : list of sheet dicts (see docs/rendering.md for the keys).
+    sheets : list of sheet dicts (see DEVELOPERS.md "Rendering" for the keys).
     out_dir : an existing or creatable folder; nothing is written outside it.
     paper : "Letter" or "A4".
     workers : processes to use; 1 renders in this process.
