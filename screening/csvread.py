@@ -235,14 +235,14 @@ def _fast_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
     lines = pl.Series("raw", chunk.split("\n"), dtype=pl.String).str.strip_suffix("\r")
     frame = pl.DataFrame({"raw": lines}).with_row_index(LINE_COL, offset=first_line)
     frame = frame.with_columns(pl.col(LINE_COL).cast(pl.Int64))
-    frame = frame.filter(pl.col("raw").str.replace_all(f"[\\s{re.escape(delim)}]", "") != "")
+    frame = frame.filter(pl.col("raw").str.contains(f"[^\\s{re.escape(delim)}]"))   # not blank
     parts = frame["raw"].str.split(delim)
     n_fields = len(header_norm)
     lens = parts.list.len()
     # a repeated header: the same names field by field (as the quoted path compares them);
     # the literal test only narrows the candidates checked exactly in Python (rare lines)
     key = max(wanted, key=len)   # a known (ASCII) column name, always present in the header
-    cand = (lens == n_fields) & frame["raw"].str.to_lowercase().str.contains(key, literal=True)
+    cand = (lens == n_fields) & frame["raw"].str.contains("(?i)" + re.escape(key))
     is_header = cand
     if bool(cand.any()):
         exact = [[_norm(f) for f in raw.split(delim)] == header_norm for raw in frame["raw"].filter(cand)]

@@ -83,6 +83,8 @@ def detect_date_order(s: pl.Series) -> str | None:
     Returns ``"mdy"`` when some first field exceeds 12, ``"dmy"`` when some second
     field does, None when every value fits both (ambiguous) or there are none.
     """
+    if not bool(s.str.contains(r"[/.]").any()):   # no slash or dot dates at all (the usual ISO file)
+        return None
     parts = s.drop_nulls().str.strip_chars().str.extract_groups(r"^(\d{1,2})[/.](\d{1,2})[/.](\d{2,4})$")
     a = parts.struct.field("1").cast(pl.Int64, strict=False).drop_nulls()
     b = parts.struct.field("2").cast(pl.Int64, strict=False).drop_nulls()
@@ -111,10 +113,11 @@ def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.dat
         exceeds 12 consistently).
     """
     t = s.str.strip_chars()
-    iso = t.str.replace(r"^(\d{4})/(\d{1,2})/(\d{1,2})", "$1-$2-$3").str.slice(0, 10) \
+    any_sep = bool(t.str.contains(r"[/.]").any())   # else the slash and dot forms need no look
+    iso = (t.str.replace(r"^(\d{4})/(\d{1,2})/(\d{1,2})", "$1-$2-$3") if any_sep else t).str.slice(0, 10) \
         .str.to_date("%Y-%m-%d", strict=False)
-    has_slash = t.str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]\d{2,4}$").fill_null(False)
-    if bool(has_slash.any()):
+    has_slash = t.str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]\d{2,4}$").fill_null(False) if any_sep else None
+    if has_slash is not None and bool(has_slash.any()):
         order = date_order or detect_date_order(t.filter(has_slash))
         if order is None:
             example = t.filter(has_slash)[0]
