@@ -798,6 +798,8 @@ def ranking_view(report: dict[str, Any]) -> dict[str, Any]:
         "rows_omitted": fmt_num(omitted) if isinstance(omitted, int) and omitted > 0 else "",
         "total_energy": fmt_num(totals.get("excess_energy")), "energy_unit": eu,
         "total_cost": fmt_money(totals.get("excess_cost"), cur),
+        "audit_energy": fmt_num(totals.get("audit_list_excess_energy")),
+        "audit_cost": fmt_money(totals.get("audit_list_excess_cost"), cur),
         "total_co2e": co2_v, "co2e_unit": co2_u,
         "intensity_unit": report.get("intensity_unit", ""),
         "chart": svg_img(charts.ratio_histogram(report.get("ratios") or []), "distribution of ratios"),

@@ -418,10 +418,16 @@ def _summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id) ->
                    "per_tier": dict(sorted(per_tier.items())),
                    "per_flag": {k: int(v) for k, v in sorted(flags.iter_rows())},
                    "per_data_issue": {k: int(v) for k, v in sorted(issues.iter_rows())}},
+        # sums over buildings without blocking data problems (those carry no excess)
         "totals": {"excess_energy": round(float(ee * (outputs.KBTU_TO_KWH if disp.si else 1.0)), 1),
                    "energy_unit": disp.energy_unit,
                    "excess_cost": round(float(r["excess_cost"].fill_null(0).sum()), 2),
-                   "excess_co2e_kg": round(float(r["excess_co2e_kg"].fill_null(0).sum()), 1)},
+                   "excess_co2e_kg": round(float(r["excess_co2e_kg"].fill_null(0).sum()), 1),
+                   "audit_list_excess_energy": round(float(
+                       r.filter(pl.col("needs_review"))["excess_energy_kbtu"].fill_null(0).sum()
+                       * (outputs.KBTU_TO_KWH if disp.si else 1.0)), 1),
+                   "audit_list_excess_cost": round(float(
+                       r.filter(pl.col("needs_review"))["excess_cost"].fill_null(0).sum()), 2)},
         "inputs": [{"kind": fl.kind, "path": fl.path, "sha256": fl.sha256, "status": fl.status,
                     "rows": fl.rows, "rejected": fl.rejected} for fl in loads],
         "normal_years": res.normal_years,

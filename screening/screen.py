@@ -147,8 +147,11 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         .then(_robust_z_all(pl.col("_logr")))
         .otherwise(pl.col("z_score")).alias("z_score"))
     out = out.with_columns(
-        (pl.col("actual_heating_kbtu") - pl.col("_band_high")).clip(lower_bound=0).alias("excess_energy_kbtu"),
-        (pl.col("actual_heating_kbtu") - pl.col("expected_heating_kbtu")).clip(lower_bound=0)
+        # no excess is claimed where a data problem blocks the verdict: it would be the data's, not waste
+        pl.when(~pl.col("blocking")).then(
+            (pl.col("actual_heating_kbtu") - pl.col("_band_high")).clip(lower_bound=0)).alias("excess_energy_kbtu"),
+        pl.when(~pl.col("blocking")).then(
+            (pl.col("actual_heating_kbtu") - pl.col("expected_heating_kbtu")).clip(lower_bound=0))
         .alias("excess_energy_central_kbtu"),
         pl.coalesce(
             pl.col("yoy_change") if "yoy_change" in df.columns else pl.lit(None, dtype=pl.Float64),
