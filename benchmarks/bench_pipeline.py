@@ -81,7 +81,9 @@ def main() -> None:
     rows = []
     for n in a.n:
         cmd = [sys.executable, __file__, "--child", str(n)] + (["--with-sheets"] if n <= a.sheets_up_to else [])
-        out = subprocess.run(cmd, capture_output=True, text=True, check=True, env=os.environ | {"PYTHONPATH": str(ROOT)})
+        out = subprocess.run(cmd, capture_output=True, text=True, env=os.environ | {"PYTHONPATH": str(ROOT)})
+        if out.returncode != 0:
+            sys.exit(f"N = {n} failed (exit {out.returncode}):\n" + "\n".join(out.stderr.splitlines()[-15:]))
         rows.append(json.loads(out.stdout.strip().splitlines()[-1]))
     stages = ["ingest", "degree_days", "metered_prep", "envelope", "regression", "expected", "screening", "csv",
               "sheets", "ranking_pdf", "total"]
