@@ -399,7 +399,7 @@ def test_structural_cli_leaves_database_unchanged(case, tmp_path, loaded):
     if case.line is not None:
         assert f"line {case.line}" in errors[0]
     after = table_counts(db)
-    # every data table unchanged; the runs table is checked on its own (xfail below)
+    # every data table unchanged; the runs table is checked on its own (below)
     assert {k: v for k, v in after.items() if k != "runs"} == {k: v for k, v in before.items() if k != "runs"}
     assert not (tmp_path / "out").exists()
 
