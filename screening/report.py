@@ -747,8 +747,50 @@ def render_sheets_one_by_one(sheets: list[dict[str, Any]], out_dir: Path, *, pap
 # ranking report
 
 
-def ranking_view(report: dict[str, Any]) -> dict[str, Any]:
-    """Display strings for ranking.html.j2."""
+# The ranked table is laid out as pages of side-by-side columns of newline-separated text
+# (white-space: pre; one box per column and page instead of one per cell): measured
+# ~8x cheaper than the <table> it replaced (DEVELOPERS.md "Rendering"). Text does not
+# wrap, so every field is cut to its column (RANK_COLUMNS: key, header, width %, chars,
+# right-aligned; widths add up to 99.5%, as 100% wraps the last float on A4 by rounding) and
+# the rows are split into pages here, so each page repeats the header.
+RANK_COLUMNS = [
+    ("rank", "#", 4.0, 6, True), ("building_id", "id", 8.0, 14, False), ("name", "name", 16.0, 34, False),
+    ("use_type", "use", 8.5, 14, False), ("tier", "tier", 8.0, 14, False), ("ratio", "ratio", 5.0, 8, True),
+    ("heating_intensity", "intensity", 7.0, 9, True), ("excess_energy", "excess [{eu}]", 10.5, 14, True),
+    ("excess_cost", "excess cost", 9.0, 13, True), ("flags", "flags", 12.5, 34, False),
+    ("data_issues", "data issues", 11.0, 30, False),
+]
+# Rows per table page. Content heights: page height minus the 14 + 16 mm margins of
+# ranking.css (Letter 792 pt, A4 841.89 pt); one row is the 9.6 pt line of .tbl; the header
+# band, the zebra background's offset and a safety margin take 40 pt; the first table page
+# also carries the section title and its note (58 pt). Checked by test_report's page counts.
+_ROW_PT = 9.6
+_ROWS_PER_PAGE = {paper: int((h - 30 * 72 / 25.4 - 40) // _ROW_PT) for paper, h in (("Letter", 792.0),
+                                                                                     ("A4", 841.89))}
+_FIRST_PAGE_LOSS = 6
+_COLUMN_CSS = [{"cls": f"k{j}", "width": w, "right": right} for j, (_k, _h, w, _c, right) in enumerate(RANK_COLUMNS)]
+MAX_ISSUE_LINES = 1000  # data-issue lines in ranking.pdf; data_issues.csv has them all
+
+
+def _table_pages(rows: list[dict[str, str]], paper: str) -> list[dict[str, Any]]:
+    """The ranked rows cut into pages, each page a list of column texts (one line per row)."""
+    per_page = _ROWS_PER_PAGE[paper]
+    pages, i, first = [], 0, True
+    while i < len(rows):
+        n = per_page - (_FIRST_PAGE_LOSS if first else 0)
+        chunk = rows[i:i + n]
+        pages.append({"first": first, "cols": [
+            {"cls": f"k{j}", "text": "\n".join(_one_line(r[key], chars) for r in chunk)}
+            for j, (key, _h, _w, chars, _right) in enumerate(RANK_COLUMNS)]})
+        i += n
+        first = False
+    return pages
+
+
+def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any]:
+    """Display strings for ranking.html.j2 (``paper`` sets how many rows go on a table page)."""
+    if paper not in PAPERS:
+        raise ValueError(f"paper must be one of {sorted(PAPERS)}, got {paper!r}")
     run = report.get("run") or {}
     cur = report.get("currency") or "$"
     eu = report.get("energy_unit") or ""
@@ -763,7 +805,7 @@ def ranking_view(report: dict[str, Any]) -> dict[str, Any]:
         return _cut(", ".join(str(x) for x in v), 80)
 
     rows = [{
-        "rank": r.get("rank") if isinstance(r.get("rank"), int) else "",
+        "rank": str(r.get("rank")) if isinstance(r.get("rank"), int) else "",
         "building_id": _cut(r.get("building_id"), 40),
         "name": _cut(r.get("name"), 80),
         "use_type": _cut(r.get("use_type"), 20),
@@ -787,6 +829,7 @@ def ranking_view(report: dict[str, Any]) -> dict[str, Any]:
     if not tiers_in and isinstance(nested.get("per_tier"), dict):
         tiers_in = [{"tier": k, "count": v} for k, v in nested["per_tier"].items()]
     omitted = report.get("rows_omitted")
+    issues_in = report.get("data_issues") or []
     return {
         "run": {k: _cut(run.get(k, "n/a"), 60) for k in ("run_id", "as_of", "window_start", "window_end",
                                                          "run_date", "version", "units")},
@@ -803,10 +846,13 @@ def ranking_view(report: dict[str, Any]) -> dict[str, Any]:
         "total_co2e": co2_v, "co2e_unit": co2_u,
         "intensity_unit": report.get("intensity_unit", ""),
         "chart": svg_img(charts.ratio_histogram(report.get("ratios") or []), "distribution of ratios"),
-        "top": rows[:10], "rows": rows,
-        "data_issues": [{"building_id": _cut(d.get("building_id"), 40), "name": _cut(d.get("name"), 80),
-                         "code": _cut(d.get("code"), 40), "explanation": _cut(d.get("explanation"), 300)}
-                        for d in report.get("data_issues") or []],
+        "top": rows[:10],
+        "header": [{"cls": f"k{j}", "text": h.format(eu=eu)} for j, (_k, h, _w, _c, _r) in enumerate(RANK_COLUMNS)],
+        "table_pages": _table_pages(rows, paper),
+        "data_issues": [{"building_id": _one_line(d.get("building_id"), 40), "name": _one_line(d.get("name"), 80),
+                         "code": _one_line(d.get("code"), 40), "explanation": _cut(d.get("explanation"), 300)}
+                        for d in issues_in[:MAX_ISSUE_LINES]],
+        "data_issues_more": fmt_num(len(issues_in) - MAX_ISSUE_LINES) if len(issues_in) > MAX_ISSUE_LINES else "",
     }
 
 
@@ -817,10 +863,10 @@ def render_ranking(report: dict[str, Any], out_path: Path, *, paper: str = "Lett
     if not isinstance(report, dict):
         raise ValueError(f"report must be a dict, got {type(report).__name__}")
     out_path = Path(out_path)
-    view = ranking_view(report)
+    view = ranking_view(report, paper)
     title = f"Heating screening ranking, run {view['run']['run_id']}"
     html = _state()["env"].get_template("ranking.html.j2").render(
-        v=view, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__)
+        v=view, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__, columns=_COLUMN_CSS)
     try:
         with _gc_paused():
             pdf = _render_html(html, "ranking.css", paper).write_pdf()

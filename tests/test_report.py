@@ -5,6 +5,7 @@ extracted text and metadata, never by bytes."""
 from __future__ import annotations
 
 import logging
+import re
 import socket
 from pathlib import Path
 
@@ -269,7 +270,7 @@ def test_ranking_pdf(tmp_path):
     assert any(ln.strip() == f"estimated_reads {rep['counts']['per_data_issue']['estimated_reads']}"
                for ln in first.splitlines())
     assert any(ln.strip() == "with data issues 13" for ln in first.splitlines())  # 90 rows, every 7th from 3
-    table_pages = [t for t in texts if "Owlbrook Court" in t and "Top ten" not in t and "what it means" not in t]
+    table_pages = [t for t in texts if "Owlbrook Court" in t and "Top ten" not in t and "Data issues" not in t]
     assert len(table_pages) >= 2
     for t in table_pages:  # the header repeats on every page of the table
         assert "intensity" in t and "excess cost" in t
@@ -292,3 +293,26 @@ def test_ranking_a4_and_empty(tmp_path):
     assert "No buildings ranked." in r.pages[0].extract_text()
     with pytest.raises(ValueError, match=r"report must be a dict, got list"):
         report.render_ranking([], tmp_path / "x.pdf")
+
+
+@pytest.mark.parametrize("paper", ["Letter", "A4"])
+def test_ranked_table_pages_never_overflow(tmp_path, paper, monkeypatch):
+    """Rows are split into pages in Python (the text columns do not break by themselves):
+    every page must hold its share without spilling, so the page count is exactly
+    summary + table pages + data issues, and every rank shows once, in order, under a header."""
+    monkeypatch.setattr(report, "MAX_ISSUE_LINES", 5)
+    rep = make_report(300)
+    rep["rows"][1]["name"] = "W" * 200            # cut to its column, never wrapped
+    rep["rows"][2]["flags"] = ["high_ratio"] * 12
+    out = report.render_ranking(rep, tmp_path / "r.pdf", paper=paper)
+    per_page, first_loss = report._ROWS_PER_PAGE[paper], report._FIRST_PAGE_LOSS
+    n_table = 1 + -(-(300 - (per_page - first_loss)) // per_page)   # by hand: first page, then full pages
+    texts = [p.extract_text() for p in PdfReader(out).pages]
+    assert len(texts) == 1 + n_table + 1
+    for t in texts[1:1 + n_table]:
+        assert "intensity" in t and "excess cost" in t and "data issues" in t
+    ids = re.findall(r"\bB-(\d+)\b", "\n".join(texts[1:1 + n_table]))
+    assert ids == [str(1000 + k) for k in range(300)]  # make_report: rank k+1 has id B-(1000+k)
+    n_issues = len(rep["data_issues"])
+    assert f"and {n_issues - 5} more in data_issues.csv" in texts[-1]
+    assert sum(c[2] for c in report.RANK_COLUMNS) == pytest.approx(99.5)  # 100% wraps the last float on A4
