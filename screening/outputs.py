@@ -178,16 +178,30 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
 
 
 def assumptions_table(envelope: pl.DataFrame, disp: "Display") -> pl.DataFrame:
-    """assumptions.csv: every envelope assumption of every building, given or default, with its source."""
-    rows = []
-    for r in envelope.select("building_id", "assumptions").sort("building_id").iter_rows(named=True):
-        for a in display_assumptions(r["assumptions"], disp):
-            rows.append({"building_id": r["building_id"], "name": a.get("name"), "value": a.get("value"),
-                         "low": a.get("low"), "high": a.get("high"), "unit": a.get("unit"),
-                         "origin": a.get("origin"), "source": a.get("source")})
-    schema = {"building_id": pl.String, "name": pl.String, "value": pl.Float64, "low": pl.Float64,
-              "high": pl.Float64, "unit": pl.String, "origin": pl.String, "source": pl.String}
-    return pl.DataFrame(rows, schema=schema)
+    """assumptions.csv: every envelope assumption of every building, given or default, with its source.
+
+    One vectorized pass: the per-building lists are exploded, then named and converted by unit.
+    """
+    long = envelope.select("building_id", "assumptions").explode("assumptions").drop_nulls("assumptions") \
+        .unnest("assumptions").sort("building_id", maintain_order=True)
+    labels = pl.col("name").replace_strict(ASSUMPTION_LABELS, default=pl.col("name").str.replace_all("_", " "))
+    unit = pl.col("unit").fill_null("")
+    if disp.si:
+        table = {u: v for u, v in _ASSUMPTION_SI.items()}
+        factor = (pl.when(unit == "F").then(1 / 1.8)
+                  .otherwise(unit.replace_strict({u: v[1] for u, v in table.items()}, default=1.0,
+                                                 return_dtype=pl.Float64)))
+        offset = pl.when((unit == "F") & (pl.col("name") != "setback_f")).then(-32.0 / 1.8).otherwise(0.0)
+        shown = (pl.when(unit == "F").then(pl.when(pl.col("name") == "setback_f").then(pl.lit("K"))
+                                           .otherwise(pl.lit("°C")))
+                 .otherwise(unit.replace_strict({u: v[0] for u, v in table.items()}, default=unit)))
+    else:
+        factor, offset = pl.lit(1.0), pl.lit(0.0)
+        shown = pl.when(unit == "F").then(pl.lit("°F")).otherwise(unit.replace_strict(_IP_UNIT_TEXT, default=unit))
+    return long.select(
+        "building_id", labels.alias("name"),
+        *[(pl.col(c).cast(pl.Float64) * factor + offset).alias(c) for c in ("value", "low", "high")],
+        shown.alias("unit"), "origin", "source")
 
 
 def neutralize_formulas(df: pl.DataFrame) -> pl.DataFrame:
@@ -324,10 +338,13 @@ def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp
     table = ranking if max_rows <= 0 else ranking.head(max_rows)
     rows = table.select("rank", "building_id", "name", "use_type", "tier", "ratio", "heating_intensity",
                           "excess_energy", "excess_cost", "flags", "data_issues", "needs_review").to_dicts()
-    issues = []
-    for r in res.filter(pl.col("data_issue_codes").list.len() > 0).sort("building_id").iter_rows(named=True):
-        for c, t in zip(r["data_issue_codes"], r["data_issue_texts"]):
-            issues.append({"building_id": r["building_id"], "name": r["name"], "code": c, "explanation": t})
+    long = res.filter(pl.col("data_issue_codes").list.len() > 0).select(
+        "building_id", "name", pl.col("data_issue_codes").alias("code"), pl.col("data_issue_texts").alias("explanation")
+    ).explode("code", "explanation").sort("building_id", "code")
+    n_issues = long.height
+    if max_rows > 0:
+        long = long.head(max_rows)
+    issues = long.to_dicts()
     tiers = [{"tier": name, "count": summary["counts"]["per_tier"].get(name, 0), "meaning": meaning}
              for name, meaning in screen.TIERS]
     return {
@@ -338,7 +355,8 @@ def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp
         "totals": summary["totals"], "rows": rows, "rows_total": ranking.height,
         "rows_omitted": ranking.height - len(rows),
         "ratios": [x for x in res["ratio"].to_list() if x is not None and math.isfinite(x)],
-        "data_issues": issues, "energy_unit": disp.energy_unit, "intensity_unit": disp.intensity_unit,
+        "data_issues": issues, "data_issues_total": n_issues, "data_issues_omitted": n_issues - len(issues),
+        "energy_unit": disp.energy_unit, "intensity_unit": disp.intensity_unit,
         "currency": currency, "cautions": CAUTIONS,
     }
 

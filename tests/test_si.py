@@ -83,3 +83,23 @@ def test_si_and_ip_agree_within_0_1_percent(tmp_path):
         # Wh/(m²·K·day) = 5.678263 × Btu/(ft²·°F·day) (factors.md §8), checked with pint
         f = Q(1, "Btu_it/(ft**2*delta_degF)").to("W*hour/(m**2*K)").magnitude
         assert r["heating_intensity_si"] == pytest.approx(r["heating_intensity"] * f, rel=1e-3)
+
+
+def test_si_assumptions_are_converted(tmp_path):
+    text = portfolio_text()
+    _run(tmp_path, "ip", text, "IP")
+    _run(tmp_path, "si", _to_si(text), "SI")
+    ip = pl.read_csv(tmp_path / "ip" / "out" / "assumptions.csv", infer_schema_length=None)
+    si = pl.read_csv(tmp_path / "si" / "out" / "assumptions.csv", infer_schema_length=None)
+    j = ip.join(si, on=["building_id", "name"], suffix="_si")
+    assert j.height == ip.height == si.height
+    u = Q(1, "Btu_it/(hour*ft**2*delta_degF)").to("W/(m**2*K)").magnitude   # 5.678263 (factors.md §8)
+    wall = j.filter(pl.col("name") == "wall U-factor")
+    assert (wall["value_si"] / wall["value"] - u).abs().max() < 1e-6
+    assert set(wall["unit_si"]) == {"W/(m²·K)"} and set(wall["unit"]) == {"Btu/h·ft²·°F"}
+    sp = j.filter(pl.col("name") == "heating setpoint")
+    for r in sp.iter_rows(named=True):
+        assert r["value_si"] == pytest.approx(Q(r["value"], "degF").to("degC").magnitude, abs=1e-9)
+        assert r["high_si"] == pytest.approx(Q(r["high"], "degF").to("degC").magnitude, abs=1e-9)
+    sb = j.filter(pl.col("name") == "setback depth")
+    assert ((sb["value_si"] - sb["value"] / 1.8).abs() < 1e-9).all()   # a difference: K = °F / 1.8
