@@ -119,9 +119,11 @@ def load_inputs(store: Store, files: dict[str, list[str]], opts: ReadOptions, *,
                 store.execute("upsert_buildings", p, stage_buildings=loaded.df)
             elif kind == "readings":
                 store.execute("delete_readings_from_file", p)
+                store.execute("delete_readings_of_stage", stage_readings=loaded.df)
                 store.execute("upsert_readings", p, stage_readings=loaded.df)
             else:
                 store.execute("delete_weather_from_file", p)
+                store.execute("delete_weather_of_stage", stage_weather=loaded.df)
                 store.execute("upsert_weather", p, stage_weather=loaded.df)
             store.execute("delete_load_rejects", {"kind": kind, "path": path})
             store.execute("insert_load_rejects", {"kind": kind, "path": path},

@@ -11,15 +11,25 @@ SELECT * EXCLUDE (_line), $path AS source_file, _line AS source_line FROM stage_
 -- name: delete_readings_from_file
 DELETE FROM readings WHERE source_file = $path;
 
+-- name: delete_readings_of_stage
+-- Rows of other files with a key that the staged file now provides (the newer load wins).
+DELETE FROM readings USING stage_readings AS s
+WHERE readings.building_id = s.building_id AND readings.fuel = s.fuel AND readings.meter_id = s.meter_id
+  AND readings.period_start = s.period_start AND readings.period_end = s.period_end;
+
 -- name: upsert_readings
-INSERT OR REPLACE INTO readings BY NAME
+INSERT INTO readings BY NAME
 SELECT * EXCLUDE (_line), $path AS source_file, _line AS source_line FROM stage_readings;
 
 -- name: delete_weather_from_file
 DELETE FROM weather_daily WHERE source_file = $path;
 
+-- name: delete_weather_of_stage
+DELETE FROM weather_daily USING stage_weather AS s
+WHERE weather_daily.station_id = s.station_id AND weather_daily.date = s.date;
+
 -- name: upsert_weather
-INSERT OR REPLACE INTO weather_daily BY NAME
+INSERT INTO weather_daily BY NAME
 SELECT station_id, date, t_min_f, t_max_f, t_mean_f, $path AS source_file, _line AS source_line
 FROM stage_weather;
 

@@ -48,8 +48,10 @@ CREATE TABLE IF NOT EXISTS readings (
     estimated BOOLEAN,
     cost DOUBLE,
     source_file VARCHAR,
-    source_line BIGINT,
-    PRIMARY KEY (building_id, fuel, meter_id, period_start, period_end)
+    source_line BIGINT
+    -- key (building_id, fuel, meter_id, period_start, period_end): kept unique by load.sql
+    -- (delete the file's old rows and any row with a staged key, then insert); no index, because
+    -- DuckDB's index makes a reload of a large file several times slower
 );
 
 -- name: create_weather_daily
@@ -60,8 +62,8 @@ CREATE TABLE IF NOT EXISTS weather_daily (
     t_max_f DOUBLE,
     t_mean_f DOUBLE,
     source_file VARCHAR,
-    source_line BIGINT,
-    PRIMARY KEY (station_id, date)
+    source_line BIGINT
+    -- key (station_id, date): kept unique by load.sql, as for readings
 );
 
 -- name: create_input_files
