@@ -4,7 +4,8 @@
     python benchmarks/bench_pipeline.py --n 100 1000 --sheets-up-to 1000 --json out.json
 
 Portfolios come from the independent simulator (sample_portfolio/simulate.py), 3 years of daily weather
-and monthly bills. Each N runs in a fresh process so peak memory (ru_maxrss) is that run's own. The
+and monthly bills, written by one process; the run is a second, fresh process, so its peak memory
+(ru_maxrss) is the run's own. The
 ingest figure is compared with DuckDB's own read_csv of the same three files in the same process.
 """
 
@@ -32,19 +33,25 @@ def _simulator():
     return mod
 
 
-def one(n: int, sheets: bool, work: Path) -> dict:
+def generate(n: int, work: Path) -> float:
+    """Write the simulated portfolio into ``work``; returns the seconds it took."""
     sim = _simulator()
     t = time.perf_counter()
     frames = sim.simulate_portfolio(n, seed=7, start=dt.date(2023, 10, 1), years=3,
                                     stations=min(8, max(5, n // 1000 + 4)))
-    paths = sim.write_portfolio(frames, work)
-    gen_s = time.perf_counter() - t
+    sim.write_portfolio(frames, work)
+    return time.perf_counter() - t
+
+
+def one(n: int, sheets: bool, work: Path) -> dict:
+    """Screen the portfolio in ``work`` (in this process, so its peak memory is the run's own)."""
     import duckdb
     t = time.perf_counter()
     con = duckdb.connect()
     for p in ("buildings.csv", "readings.csv", "weather.csv"):
         con.execute(f"CREATE TABLE t_{p[:-4]} AS SELECT * FROM read_csv('{work / p}')")
     duck_s = time.perf_counter() - t
+    n_readings = con.execute("SELECT count(*) FROM t_readings").fetchone()[0]
     con.close()
     from screening import runner
     overrides = {"inputs": {k: str(work / f"{k}.csv") for k in ("buildings", "readings", "weather")},
@@ -54,16 +61,9 @@ def one(n: int, sheets: bool, work: Path) -> dict:
     res = runner.run(overrides=overrides, out_dir=str(work / "out"), force=True)
     total = time.perf_counter() - t
     timings = res.summary.get("timings_s") or {}
-    if not timings:
-        import duckdb as d2
-        c = d2.connect(str(work / "bench.duckdb"), read_only=True)
-        timings = json.loads(c.execute("SELECT timings FROM runs ORDER BY started_at DESC LIMIT 1").fetchone()[0])
-        c.close()
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
-    _ = paths
-    return {"n": n, "readings": frames["readings"].height, "generate_s": round(gen_s, 2),
-            "duckdb_read_csv_s": round(duck_s, 3), "stages_s": timings, "wall_s": round(total, 2),
-            "peak_rss_mb": round(peak_mb, 1), "sheets": sheets}
+    return {"n": n, "readings": n_readings, "duckdb_read_csv_s": round(duck_s, 3), "stages_s": timings,
+            "wall_s": round(total, 2), "peak_rss_mb": round(peak_mb, 1), "sheets": sheets}
 
 
 def main() -> None:
@@ -73,18 +73,29 @@ def main() -> None:
     ap.add_argument("--json", default=str(ROOT / "benchmarks" / "results" / "pipeline.json"))
     ap.add_argument("--child", type=int, default=None)
     ap.add_argument("--with-sheets", action="store_true")
+    ap.add_argument("--generate", action="store_true")
+    ap.add_argument("--work", default=None)
     a = ap.parse_args()
     if a.child is not None:
-        with tempfile.TemporaryDirectory() as d:
-            print(json.dumps(one(a.child, a.with_sheets, Path(d))))
+        if a.generate:
+            print(json.dumps({"generate_s": round(generate(a.child, Path(a.work)), 2)}))
+        else:
+            print(json.dumps(one(a.child, a.with_sheets, Path(a.work))))
         return
     rows = []
+    env = os.environ | {"PYTHONPATH": str(ROOT)}
     for n in a.n:
-        cmd = [sys.executable, __file__, "--child", str(n)] + (["--with-sheets"] if n <= a.sheets_up_to else [])
-        out = subprocess.run(cmd, capture_output=True, text=True, env=os.environ | {"PYTHONPATH": str(ROOT)})
-        if out.returncode != 0:
-            sys.exit(f"N = {n} failed (exit {out.returncode}):\n" + "\n".join(out.stderr.splitlines()[-15:]))
-        rows.append(json.loads(out.stdout.strip().splitlines()[-1]))
+        with tempfile.TemporaryDirectory() as d:
+            steps = [[sys.executable, __file__, "--child", str(n), "--work", d, "--generate"],
+                     [sys.executable, __file__, "--child", str(n), "--work", d]
+                     + (["--with-sheets"] if n <= a.sheets_up_to else [])]
+            result = {}
+            for cmd in steps:
+                out = subprocess.run(cmd, capture_output=True, text=True, env=env)
+                if out.returncode != 0:
+                    sys.exit(f"N = {n} failed (exit {out.returncode}):\n" + "\n".join(out.stderr.splitlines()[-15:]))
+                result.update(json.loads(out.stdout.strip().splitlines()[-1]))
+            rows.append(result)
     stages = ["ingest", "degree_days", "metered_prep", "envelope", "regression", "expected", "screening", "csv",
               "sheets", "ranking_pdf", "total"]
     print(f"{'N':>7} {'readings':>9} " + " ".join(f"{s[:10]:>10}" for s in stages) + f" {'duck csv':>9} {'peak MB':>8}")
