@@ -54,6 +54,8 @@ __all__ = [
 LOGGER = logging.getLogger(__name__)
 
 PAPERS = {"Letter": "letter", "A4": "A4"}
+# content width of a sheet [mm]: paper width minus the 12 mm side margins of sheet.css
+_CONTENT_MM = {"Letter": 215.9 - 24, "A4": 210.0 - 24}
 
 STANDARD_CAUTION = (
     "This page is a screening estimate from meter readings and weather, for information only: it is not an "
@@ -410,7 +412,31 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     steps_all = list(s.get("next_steps") or [])
     cautions_all = list(s.get("cautions") or [])
     year = s.get("year_built")
+
+    # key figures: two groups of three pre-formatted lines (labels, values, units), the four
+    # columns set by tab stops a quarter of the page wide (the tab-size in the per-paper
+    # stylesheet): one line box per row instead of a table cell per figure (measured:
+    # DEVELOPERS.md "Rendering"). Fields are cut so no field runs past its tab stop; the
+    # peer percentile is printed with the peer chart's heading.
+    def tabbed(fields, n):
+        return "\t".join(_one_line(f, n) for f in fields)
+
+    figs = [
+        ("fk", tabbed(["Metered heating", "Expected heating", "Ratio metered / expected",
+                       "Heating per degree day"], 30)),
+        ("fv", tabbed([fmt_num(s.get("actual_heating")), fmt_num(s.get("expected_heating")),
+                       fmt_ratio(s.get("ratio")), fmt_num(s.get("heating_intensity"))], 14)),
+        ("fu", tabbed([f"{eu} per year", f"band {fmt_num(s.get('expected_low'))} to {fmt_num(s.get('expected_high'))}",
+                       _BAND_TEXT.get(s.get("band_position"), "band position n/a"),
+                       f"{s.get('intensity_unit', '')}; peers' median {fmt_num(s.get('peer_median_intensity'))}"], 34)),
+        ("fk", tabbed(["Normal-year heating", "Excess energy", "Excess cost", "Excess emissions"], 30)),
+        ("fv", tabbed([fmt_num(s.get("normal_heating")), fmt_num(s.get("excess_energy")),
+                       fmt_money(s.get("excess_cost"), cur), co2_v], 14)),
+        ("fu", tabbed([f"{eu}; baseload {fmt_num(s.get('baseload'))}", f"{eu} per year",
+                       "per year at the billed price", f"{co2_u} CO₂e per year"], 30)),
+    ]
     return {
+        "figs": figs,
         "level": level,
         "building_id": _cut(s.get("building_id"), 80),
         "name": name,
@@ -504,7 +530,9 @@ def _stylesheets(name: str, paper: str) -> list:
         st["css"][key] = [
             CSS(filename=str(st["tdir"] / name), font_config=st["font_config"], url_fetcher=st["fetcher"],
                 base_url=st["tdir"].as_uri() + "/"),
-            CSS(string=f"@page {{ size: {PAPERS[paper]}; }}", font_config=st["font_config"]),
+            CSS(string=f"@page {{ size: {PAPERS[paper]}; }}"
+                       f" .figs {{ tab-size: {_CONTENT_MM[paper] / 4:.2f}mm; background-size: {_CONTENT_MM[paper] / 4:.2f}mm 100%; }}",
+                font_config=st["font_config"]),
         ]
     return st["css"][key]
 
