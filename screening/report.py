@@ -309,6 +309,16 @@ def _strip_img(svg: str, rows: int) -> Markup:
         f"{1.25 * rows:.2f}", data)
 
 
+_FIGURE_SPACE = "\u2007"  # as wide as a digit
+
+
+def _share_cell(share: str) -> str:
+    """A percentage right-padded to the width of "100%" (figure spaces; "" -> blank of that width)."""
+    if not share:
+        return _FIGURE_SPACE * 3 + "   "  # three digits and three spaces ~ "100%" in our font
+    return share.rjust(4, _FIGURE_SPACE)
+
+
 def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     """Everything a sheet template shows, as display strings (plus chart SVG markup)."""
     if not 0 <= level <= MAX_LEVEL:
@@ -373,10 +383,11 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     # one box per column instead of one per cell, measured several times cheaper to lay out
     ua_rows = ua_parts + [{"part": "total", "value": fmt_num(total), "share": ""}]
     ua_bars = charts.bar_strip([v if _finite(v) else None for v in vals] + [None])
+    # value and share share one right-aligned column: the share is padded to the width of
+    # "100%" with figure spaces (digit-wide in our font), so the values stay aligned
     ua_cols = {
         "names": "\n".join(_one_line(r["part"], 24) for r in ua_rows),
-        "nums": "\n".join(r["value"] for r in ua_rows),
-        "shares": "\n".join(r["share"] for r in ua_rows),
+        "nums": "\n".join(f"{r['value']}  {_share_cell(r['share'])}" for r in ua_rows),
         "bars": _strip_img(ua_bars, len(ua_rows)),
     }
 
@@ -388,11 +399,11 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
                     "origin_class": "given" if a.get("origin") == "given" else "default"}
                    for a in asm_all[: lim["asm"]]]
 
+    # unit and origin share one column: the origin sits at the first tab stop (sheet.css .au)
     asm_cols = {
         "names": "\n".join(_one_line(x["name"], 34) for x in assumptions),
         "nums": "\n".join(_one_line(x["value"], 12) for x in assumptions),
-        "units": "\n".join(_one_line(x["unit"], 18) for x in assumptions),
-        "origins": "\n".join(x["origin"] for x in assumptions),
+        "units": "\n".join(f"{_one_line(x['unit'], 12)}\t{x['origin']}" for x in assumptions),
     }
 
     fit = s.get("fit") or {}
