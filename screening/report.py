@@ -542,7 +542,7 @@ def _stylesheets(name: str, paper: str) -> list:
             CSS(filename=str(st["tdir"] / name), font_config=st["font_config"], url_fetcher=st["fetcher"],
                 base_url=st["tdir"].as_uri() + "/"),
             CSS(string=f"@page {{ size: {PAPERS[paper]}; }}"
-                       f" .figs {{ tab-size: {_CONTENT_MM[paper] / 4:.2f}mm; background-size: {_CONTENT_MM[paper] / 4:.2f}mm 100%; }}",
+                       f" .figs {{ tab-size: {_CONTENT_MM[paper] / 4:.2f}mm; }}",
                 font_config=st["font_config"]),
         ]
     return st["css"][key]
@@ -698,6 +698,69 @@ def _render_chunk_inner(sheets: list[dict[str, Any]], targets_p: list[Path], pap
     return {"batched": len(good), "refit": len(refit), "levels": levels}
 
 
+def _run_chunks(chunks: list[tuple[list, list]], paper: str, workers: int) -> list[dict[str, Any]]:
+    """Render chunks on ``workers`` processes: this one (in a thread) and ``workers - 1`` children.
+
+    This process takes chunks from the back of the list and the children from the front, one
+    chunk in flight per child, so the work balances itself when the machine is shared. The
+    parent renders too instead of waiting: one child fewer to start (importing WeasyPrint and
+    warming a renderer is ~1 s of CPU per process, measured in DEVELOPERS.md "Rendering").
+    """
+    if workers == 1 or len(chunks) == 1:
+        return [_render_chunk(c, t, paper) for c, t in chunks]
+    import threading
+    from collections import deque
+    from concurrent.futures import FIRST_COMPLETED, wait
+
+    results: list[Any] = [None] * len(chunks)
+    todo = deque(range(len(chunks)))
+    lock = threading.Lock()
+    failed: list[BaseException] = []
+
+    def take(front: bool) -> int | None:
+        with lock:
+            if failed or not todo:
+                return None
+            return todo.popleft() if front else todo.pop()
+
+    def here() -> None:
+        try:
+            while (k := take(False)) is not None:
+                results[k] = _render_chunk(*chunks[k], paper)
+        except BaseException as exc:  # handed to the calling thread below
+            with lock:
+                failed.append(exc)
+
+    ctx = multiprocessing.get_context("forkserver")
+    # the fork server imports the renderer's heavy modules once; each child forks from it
+    ctx.set_forkserver_preload(["screening.report", "weasyprint", "pypdf"])
+    n_children = min(workers - 1, len(chunks) - 1)
+    with ProcessPoolExecutor(max_workers=n_children, mp_context=ctx, initializer=_worker_init,
+                             max_tasks_per_child=100) as pool:
+        local = threading.Thread(target=here, name="ddscreen-render", daemon=True)
+        local.start()
+        in_flight: dict[Any, int] = {}
+        try:
+            while True:
+                while len(in_flight) < n_children and (k := take(True)) is not None:
+                    in_flight[pool.submit(_render_chunk, *chunks[k], paper)] = k
+                if not in_flight:
+                    break
+                done, _ = wait(in_flight, return_when=FIRST_COMPLETED)
+                for f in done:
+                    results[in_flight.pop(f)] = f.result()
+        except BaseException as exc:
+            with lock:
+                failed.append(exc)
+            for f in in_flight:
+                f.cancel()
+        finally:
+            local.join()
+    if failed:
+        raise failed[0]
+    return results
+
+
 def _worker_init() -> None:
     _state()
     gc.freeze()  # the modules and renderer state live as long as the worker: keep them out of collections
@@ -749,18 +812,12 @@ def render_sheets(sheets: list[dict[str, Any]], out_dir: Path, *, paper: str = "
     if not sheets:
         return []
     n = len(sheets)
-    size = max(1, min(chunk_size, math.ceil(n / workers)))
+    # an even split: a multiple of `workers` chunks of at most chunk_size sheets each, so no
+    # worker is left with a short tail (100 sheets on 2 workers: 2 x 50; 120: 4 x 30)
+    n_chunks = min(n, workers * math.ceil(n / (workers * chunk_size)))
+    size = math.ceil(n / n_chunks)
     chunks = [(sheets[i:i + size], targets[i:i + size]) for i in range(0, n, size)]
-    results = []
-    if workers == 1 or len(chunks) == 1:
-        results = [_render_chunk(c, t, paper) for c, t in chunks]
-    else:
-        ctx = multiprocessing.get_context("forkserver")
-        ctx.set_forkserver_preload(["screening.report"])
-        with ProcessPoolExecutor(max_workers=min(workers, len(chunks)), mp_context=ctx,
-                                 initializer=_worker_init, max_tasks_per_child=100) as pool:
-            futures = [pool.submit(_render_chunk, c, t, paper) for c, t in chunks]
-            results = [f.result() for f in futures]
+    results = _run_chunks(chunks, paper, workers)
     if stats is not None:
         stats.update(chunks=len(chunks), chunk_size=size,
                      batched=sum(r["batched"] for r in results), refit=sum(r["refit"] for r in results),

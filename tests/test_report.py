@@ -316,3 +316,15 @@ def test_ranked_table_pages_never_overflow(tmp_path, paper, monkeypatch):
     n_issues = len(rep["data_issues"])
     assert f"and {n_issues - 5} more in data_issues.csv" in texts[-1]
     assert sum(c[2] for c in report.RANK_COLUMNS) == pytest.approx(99.5)  # 100% wraps the last float on A4
+
+
+def test_split_file_does_not_carry_other_sheets_resources(tmp_path):
+    """WeasyPrint shares one resource dictionary between the pages of a chunk; a split file
+    must hold only its own page's resources, so its size does not grow with the chunk.
+    (A background gradient, for one, is a shared /Pattern that the split would copy.)"""
+    sheets = [make_sheet(i) for i in range(8)]
+    alone = report.render_sheets(sheets[:1], tmp_path / "one", workers=1)[0].stat().st_size
+    in_chunk = report.render_sheets(sheets, tmp_path / "eight", workers=1)[0].stat().st_size
+    # by hand: the other sheets' charts alone would add several times one sheet's size;
+    # fonts subset over eight sheets' glyphs may add a little, hence 1.3
+    assert in_chunk < 1.3 * alone, (alone, in_chunk)
