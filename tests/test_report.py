@@ -304,6 +304,9 @@ def test_ranked_table_pages_never_overflow(tmp_path, paper, monkeypatch):
     rep = make_report(300)
     rep["rows"][1]["name"] = "W" * 200            # cut to its column, never wrapped
     rep["rows"][2]["flags"] = ["high_ratio"] * 12
+    # a summary as full as the demo's: eight flag kinds, tiers with their meanings
+    rep["counts"]["per_flag"] = {f"flag_kind_{k}": 10 * k for k in range(8)}
+    rep["tiers"] = [dict(t, meaning="strong evidence of excess heating and a large excess") for t in rep["tiers"]]
     out = report.render_ranking(rep, tmp_path / "r.pdf", paper=paper)
     per_page, first_loss = report._ROWS_PER_PAGE[paper], report._FIRST_PAGE_LOSS
     n_table = 1 + -(-(300 - (per_page - first_loss)) // per_page)   # by hand: first page, then full pages
