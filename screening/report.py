@@ -9,8 +9,8 @@ its own page; the page count is checked against the sheet count (each sheet's fi
 carries an anchor ``sheet-<k>``), the chunk is written once and split into one file per
 page with pypdf, which also sets each file's ``/Title``. A sheet that runs over one page
 is re-rendered on its own at growing shrink levels. Chunks are shared by this process
-and a pool of ``workers - 1`` children; each renderer keeps one ``FontConfiguration``, one Jinja environment and the parsed
-stylesheets for its whole life.
+and a pool of ``workers - 1`` children; each renderer keeps one ``FontConfiguration``,
+one Jinja environment and the parsed stylesheets for its whole life.
 
 Safety: every fetch goes through :class:`AssetFetcher`, which serves only files inside
 ``templates_dir()`` and ``data:`` URIs and refuses everything else (no network, no other
