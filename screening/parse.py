@@ -133,9 +133,11 @@ def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.dat
     else:
         slash = pl.Series([None] * len(t), dtype=pl.Date)
     serial = t.cast(pl.Float64, strict=False)
+    # NaN and infinities are not serial dates (and cannot be cast to whole days)
+    serial = pl.select(pl.when(serial.is_finite()).then(serial).otherwise(None)).to_series()
     serial_ok = serial.is_not_null() & (serial >= 20000) & (serial <= 80000) & (serial == serial.floor())
     serial_date = pl.select(
-        pl.when(serial_ok).then(pl.lit(EXCEL_EPOCH) + pl.duration(days=serial.cast(pl.Int64)))
+        pl.when(serial_ok).then(pl.lit(EXCEL_EPOCH) + pl.duration(days=serial.clip(20000, 80000).cast(pl.Int64)))
         .otherwise(None)).to_series().cast(pl.Date)
     value = pl.select(pl.coalesce(iso, slash, serial_date)).to_series()
     df = pl.DataFrame({"t": t, "v": value})

@@ -258,3 +258,12 @@ def test_validate_reads_without_store(portfolio, tmp_path):
     ld = pipeline.read_file("weather", str(portfolio.weather), ReadOptions())
     assert ld.df.height == portfolio.n_weather and ld.rejects.height == 0
     assert not any(tmp_path.rglob("*.duckdb"))
+
+
+def test_nan_and_infinite_dates_are_rejected_not_crashing():
+    # found by tests/test_fuzz.py: "NAN" parsed as a float NaN and crashed the serial-date path
+    from screening.parse import parse_date
+    v, p = parse_date(pl.Series(["NAN", "inf", "-1e300", "45292"]))
+    assert v.to_list()[:3] == [None, None, None]
+    assert all(x is not None for x in p.to_list()[:3])
+    assert str(v[3]) == "2024-01-01"   # spreadsheet serial 45292, 1900 date system (by hand)
