@@ -20,6 +20,7 @@ file). Output files are named by :func:`assign_filenames` and written atomically
 
 from __future__ import annotations
 
+import atexit
 import contextlib
 import gc
 import hashlib
@@ -511,6 +512,14 @@ def sheet_title(s: dict[str, Any]) -> str:
 # per-process renderer state (one FontConfiguration, one Jinja env, parsed CSS once)
 
 _STATE: dict[str, Any] = {}
+
+
+def _drop_state() -> None:
+    """Release the font configuration while the interpreter is still whole (at exit)."""
+    _STATE.clear()
+
+
+atexit.register(_drop_state)
 
 
 def _state() -> dict[str, Any]:
