@@ -45,7 +45,6 @@ always IP with the unit in every column name.
 
 from __future__ import annotations
 
-import math
 from datetime import date, timedelta
 from pathlib import Path
 

@@ -33,7 +33,7 @@ REJECT_SCHEMA = {"file": pl.String, "line": pl.Int64, "column": pl.String, "valu
 # (screening/data/si_conversions.csv) applied when the portfolio's units are SI.
 BUILDING_COLUMNS = [
     ("building_id", "building_id", "id", True, {}),
-    ("name", "name", "text", True, {}),
+    ("name", "name", "text", True, {"display": True}),
     ("station_id", "station_id", "text", True, {}),
     ("use_type", "use_type", "choice", True, {"choices": USE_TYPES, "what": "use type"}),
     ("floor_area", "floor_area_ft2", "float", True, {"min": 0, "excl": True, "max": 1e8, "si": "area"}),
@@ -58,8 +58,8 @@ BUILDING_COLUMNS = [
     ("wall_area", "wall_area_ft2", "float", False, {"min": 0, "max": 1e8, "si": "area"}),
     ("window_area", "window_area_ft2", "float", False, {"min": 0, "max": 1e8, "si": "area"}),
     ("roof_area", "roof_area_ft2", "float", False, {"min": 0, "max": 1e8, "si": "area"}),
-    ("address", "address", "text", False, {}),
-    ("city", "city", "text", False, {}),
+    ("address", "address", "text", False, {"display": True}),
+    ("city", "city", "text", False, {"display": True}),
     ("heat_content", "heat_content", "float", False, {"min": 0, "excl": True, "max": 1e9}),
     ("price", "price", "float", False, {"min": 0, "max": 1e6}),
 ]
@@ -134,7 +134,8 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tu
                 pl.lit("expected 1-64 letters, digits, '-', '_' or '.'")).otherwise(None)).to_series()
             v = pl.select(pl.when(ok).then(s).otherwise(None)).to_series()
         elif kind == "text":
-            v, p = s, pl.Series([None] * len(s), dtype=pl.String)
+            # display text loses control characters (never meaningful in a name); keys are kept as written
+            v, p = (clean_text(s) if o.get("display") else s), pl.Series([None] * len(s), dtype=pl.String)
         elif kind == "choice":
             v, p = parse_choice(s, o["choices"], what=o["what"])
         elif kind in ("float", "int"):
@@ -195,6 +196,17 @@ def _combine(df: pl.DataFrame, prob: pl.DataFrame, structural: list[dict]) -> tu
     return good, rej
 
 
+def _read_typed(path: str | Path, spec, opts: ReadOptions):
+    """Read one file with its column spec: (raw table, typed frame, value problems)."""
+    label = str(path)
+    required = [c for c, _, _, r, _ in spec if r]
+    optional = [c for c, _, _, r, _ in spec if not r]
+    t = read_table(path, required=required, optional=optional, label=label,
+                   delimiter=opts.delimiter, encoding=opts.encoding)
+    typed, prob = _typed_columns(t.df, spec, label, opts)
+    return t, typed, prob
+
+
 def read_buildings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     """Read buildings.csv into the canonical buildings frame (IP units).
 
@@ -203,11 +215,7 @@ def read_buildings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     """
     opts = opts or ReadOptions()
     label = str(path)
-    required = [c for c, _, _, r, _ in BUILDING_COLUMNS if r]
-    optional = [c for c, _, _, r, _ in BUILDING_COLUMNS if not r]
-    t = read_table(path, required=required, optional=optional, label=label,
-                   delimiter=opts.delimiter, encoding=opts.encoding)
-    typed, prob = _typed_columns(t.df, BUILDING_COLUMNS, label, opts)
+    t, typed, prob = _read_typed(path, BUILDING_COLUMNS, opts)
     good, rej = _combine(typed, prob, t.rejects)
     notices = list(t.notices)
     # duplicates
@@ -241,11 +249,7 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     """
     opts = opts or ReadOptions()
     label = str(path)
-    required = [c for c, _, _, r, _ in READING_COLUMNS if r]
-    optional = [c for c, _, _, r, _ in READING_COLUMNS if not r]
-    t = read_table(path, required=required, optional=optional, label=label,
-                   delimiter=opts.delimiter, encoding=opts.encoding)
-    typed, prob = _typed_columns(t.df, READING_COLUMNS, label, opts)
+    t, typed, prob = _read_typed(path, READING_COLUMNS, opts)
     order = typed.filter(pl.col("period_end") < pl.col("period_start")).select(
         pl.lit(label).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit("period_end").alias("column"),
         pl.col("period_end").cast(pl.String).alias("value"),
@@ -273,28 +277,6 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
         rej = pl.concat([rej, rejects_frame(extra)])
         good = good.filter(~pl.struct(key).is_duplicated())
     return Loaded(label, good.sort(["building_id", "fuel", "meter_id", "period_start"]), rej.sort("line"), notices)
-
-
-def cross_check(buildings: Loaded, readings: Loaded, station_ids: set[str]) -> tuple[Loaded, Loaded]:
-    """Reject buildings whose station is not in the weather file and readings of unknown buildings."""
-    b = buildings.df
-    unknown_station = b.filter(~pl.col("station_id").is_in(sorted(station_ids)))
-    b_rej = unknown_station.select(
-        pl.lit(buildings.path).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit("station_id").alias("column"),
-        pl.col("station_id").alias("value"), pl.lit("unknown station (not in the weather file)").alias("reason"))
-    b = b.filter(pl.col("station_id").is_in(sorted(station_ids)))
-    r = readings.df
-    known = b["building_id"].implode()
-    unknown_b = r.filter(~pl.col("building_id").is_in(known))
-    r_rej = unknown_b.select(
-        pl.lit(readings.path).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit("building_id").alias("column"),
-        pl.col("building_id").alias("value"),
-        pl.lit("unknown building (not among the accepted rows of the buildings file)").alias("reason"))
-    r = r.filter(pl.col("building_id").is_in(known))
-    return (Loaded(buildings.path, b, pl.concat([buildings.rejects, b_rej.cast(REJECT_SCHEMA)]).sort("line"),
-                   buildings.notices),
-            Loaded(readings.path, r, pl.concat([readings.rejects, r_rej.cast(REJECT_SCHEMA)]).sort("line"),
-                   readings.notices))
 
 
 _SAFE_TEXT = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")

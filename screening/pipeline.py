@@ -21,7 +21,7 @@ from . import degree_days as ddm
 from . import envelope as env
 from . import metered, refdata, screen, units
 from .errors import InputError
-from .ingest import (REJECT_SCHEMA, Loaded, ReadOptions, empty_rejects, read_buildings, read_readings)
+from .ingest import REJECT_SCHEMA, Loaded, ReadOptions, read_buildings, read_readings
 from .store import Store
 from .weather import read_daily_weather
 

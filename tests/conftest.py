@@ -17,6 +17,7 @@ Other test files may use ``portfolio`` (a :class:`Portfolio`) and the helpers
 from __future__ import annotations
 
 import csv
+import hashlib
 import datetime as dt
 import os
 import subprocess
@@ -198,3 +199,15 @@ def run_module(args: list[str], cwd: Path | str | None = None, timeout: float = 
     env = dict(os.environ, PYTHONIOENCODING="utf-8")
     return subprocess.run([sys.executable, "-m", "screening", *args], cwd=cwd, capture_output=True, text=True,
                           timeout=timeout, env=env)
+
+
+def tree_digest(folder: Path) -> dict[str, str]:
+    """Every file under ``folder`` (relative path → sha256 of its bytes), symlinks as their target."""
+    out = {}
+    for p in sorted(folder.rglob("*")):
+        rel = str(p.relative_to(folder))
+        if p.is_symlink():
+            out[rel] = "-> " + os.readlink(p)
+        elif p.is_file():
+            out[rel] = hashlib.sha256(p.read_bytes()).hexdigest()
+    return out

@@ -12,7 +12,6 @@ POSIX; Linux errno.h).
 from __future__ import annotations
 
 import errno
-import hashlib
 import os
 import subprocess
 import sys
@@ -23,24 +22,15 @@ from pathlib import Path
 import polars as pl
 import pytest
 
+
 from screening import cli as climod
 from screening import pipeline, runner
 
-from .conftest import cli, write_portfolio
+from .conftest import cli, tree_digest, write_portfolio
 
 ENOSPC = OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))    # "No space left on device"
 
 
-def tree(folder: Path) -> dict[str, str]:
-    """Every file under ``folder`` (relative path → sha256), symlinks as their target."""
-    out = {}
-    for p in sorted(folder.rglob("*")):
-        rel = str(p.relative_to(folder))
-        if p.is_symlink():
-            out[rel] = "-> " + os.readlink(p)
-        elif p.is_file():
-            out[rel] = hashlib.sha256(p.read_bytes()).hexdigest()
-    return out
 
 
 class Site:
@@ -53,14 +43,14 @@ class Site:
         self.db = root / "screening.duckdb"
         res = self.run()
         assert res.exit_code == 0, res.stderr
-        self.before = tree(self.out)
+        self.before = tree_digest(self.out)
         assert {"ranking.csv", "rejects.csv", "summary.json", "ranking.pdf"} <= set(self.before)
 
     def run(self, *more):
         return cli(self.p.args(self.out, self.db, "--no-sheets", *more))
 
     def assert_intact(self):
-        assert tree(self.out) == self.before
+        assert tree_digest(self.out) == self.before
         left = [p.name for p in self.out.parent.iterdir() if p.name != "q" and not p.name.endswith(".log")]
         assert left == [], left
 

@@ -23,7 +23,6 @@ from __future__ import annotations
 
 import csv
 import io
-import math
 import re
 from pathlib import Path
 

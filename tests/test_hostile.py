@@ -32,7 +32,7 @@ import pytest
 from screening import store as storemod
 from screening.resources import sql_dir
 
-from .conftest import BUILDING_HEADER, READING_HEADER, cli, portfolio_text, write_portfolio
+from .conftest import BUILDING_HEADER, cli, portfolio_text, write_portfolio
 
 SCREENING = Path(storemod.__file__).parent
 

@@ -7,7 +7,6 @@ from __future__ import annotations
 import logging
 import re
 import socket
-from pathlib import Path
 
 import pdfplumber
 import pytest
@@ -15,7 +14,7 @@ from pypdf import PdfReader
 
 from screening import report
 from screening.resources import templates_dir
-from tests.sheet_fixtures import HOSTILE_NAME, clone, extreme_sheets, make_report, make_sheet
+from tests.sheet_fixtures import HOSTILE_NAME, extreme_sheets, make_report, make_sheet
 
 # Page sizes in PDF points (1/72 in): US Letter 8.5 x 11 in (ANSI/ASME Y14.1);
 # A4 210 x 297 mm (ISO 216) = 595.28 x 841.89 pt. Tolerance 0.5 pt for rounding.

@@ -33,6 +33,8 @@ from pathlib import Path
 import duckdb
 import polars as pl
 import pytest
+
+from tests.conftest import tree_digest
 from typer.testing import CliRunner
 
 from screening.cli import app
@@ -101,16 +103,6 @@ def subprocess_run(args: list[str], *, env_extra: dict | None = None, timeout: f
                           timeout=timeout, env=env)
 
 
-def tree_digest(folder: Path) -> dict[str, str]:
-    """Every file under ``folder`` (symlinks by target) → sha256 of its bytes."""
-    out = {}
-    for p in sorted(folder.rglob("*")):
-        rel = str(p.relative_to(folder))
-        if p.is_symlink():
-            out[rel] = "-> " + os.readlink(p)
-        elif p.is_file():
-            out[rel] = hashlib.sha256(p.read_bytes()).hexdigest()
-    return out
 
 
 def sha256_of(path: Path) -> str:
