@@ -95,6 +95,15 @@ def _norm(name: str) -> str:
     return name.strip().strip("\ufeff").strip().lower()
 
 
+def unreadable(label: str, exc: OSError) -> InputError:
+    """The one-line error for an input file that cannot be opened or read."""
+    if isinstance(exc, FileNotFoundError):
+        return InputError(label, "file not found")
+    if isinstance(exc, IsADirectoryError):
+        return InputError(label, "is a folder, not a file")
+    return InputError(label, f"cannot read file ({exc.strerror or exc})")
+
+
 def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
                optional: list[str] | tuple[str, ...] = (), label: str | None = None,
                delimiter: str | None = None, encoding: str | None = None) -> CsvTable:
@@ -118,12 +127,8 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
     p = Path(path)
     try:
         raw = p.read_bytes()
-    except FileNotFoundError:
-        raise InputError(label, "file not found") from None
-    except IsADirectoryError:
-        raise InputError(label, "is a folder, not a file") from None
     except OSError as exc:
-        raise InputError(label, f"cannot read file ({exc.strerror or exc})") from None
+        raise unreadable(label, exc) from None
     text, enc, notices = _decode(raw, label, encoding)
     del raw   # only the decoded text is kept from here on
     if "\n" not in text and "\r" in text:   # old-style CR-only line ends

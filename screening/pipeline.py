@@ -22,6 +22,7 @@ from . import envelope as env
 from . import metered, refdata, screen, units
 from .errors import InputError
 from .ingest import REJECT_SCHEMA, Loaded, ReadOptions, read_buildings, read_readings
+from .csvread import unreadable
 from .store import Store
 from .weather import read_daily_weather
 
@@ -48,12 +49,8 @@ def file_sha256(path: str | Path) -> str:
         with open(path, "rb") as f:
             for chunk in iter(lambda: f.read(1 << 20), b""):
                 h.update(chunk)
-    except FileNotFoundError:
-        raise InputError(path, "file not found") from None
-    except IsADirectoryError:
-        raise InputError(path, "is a folder, not a file") from None
     except OSError as exc:
-        raise InputError(path, f"cannot read file ({exc.strerror or exc})") from None
+        raise unreadable(str(path), exc) from None
     return h.hexdigest()
 
 
