@@ -74,12 +74,10 @@ def _print_summary(res) -> None:
     typer.echo(f"Tiers: {tiers}")
     if res.top:
         typer.echo("Top buildings to review:")
-        cur = res.summary.get("totals", {})
         for t in res.top:
             cost = "" if t["excess_cost"] is None else f", excess about {t['excess_cost']:,.0f} $/yr"
             typer.echo(f"  {t['rank']:>4}. {t['building_id']}  {t['name'][:40]}  ({t['tier']}, "
                        f"{t['ratio']:.2f}× expected{cost})")
-        _ = cur
     else:
         typer.echo("No building meets the review criteria.")
     typer.echo(f"Outputs: {res.out_dir}  (database {res.db_path})")
@@ -260,15 +258,11 @@ def history(
     if diff is None:
         typer.echo("fewer than two successful runs: nothing to compare")
         return
-    changed = diff.filter(pl_changed(diff))
+    import polars as pl
+    changed = diff.filter(pl.col("change") != "same rank")
     typer.echo(f"{changed.height} building(s) changed rank or flags:")
     for r in changed.iter_rows(named=True):
         typer.echo(f"  {r['building_id']}: {r['change']}")
-
-
-def pl_changed(diff):
-    import polars as pl
-    return (pl.col("change") != "same rank")
 
 
 def main() -> None:

@@ -362,9 +362,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     results = screen.screen(frame, thr, energy_factor=1.0 if units_ip else KBTU_TO_KWH,
                             energy_unit="kBtu" if units_ip else "kWh")
     lap("screening")
-    ny = normals.years_used if hasattr(normals, "years_used") else {}
     return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
-                    envelope=envelope, window=window, timings=timings, normal_years=ny)
+                    envelope=envelope, window=window, timings=timings, normal_years=normals.years_used)
 
 
 def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, cube, normals,
