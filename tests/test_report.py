@@ -215,6 +215,53 @@ def test_split_files_stand_alone(rendered):
     assert sorted(p.name for p in rendered["out"].iterdir()) == ["a4", "letter"]
 
 
+def _resolve_all(obj, reader, seen, missing):
+    """Follow every indirect reference below ``obj``; collect those that do not resolve."""
+    from pypdf.generic import ArrayObject, DictionaryObject, IndirectObject, NullObject, StreamObject
+
+    if isinstance(obj, IndirectObject):
+        if obj.idnum in seen:
+            return
+        seen.add(obj.idnum)
+        target = reader.get_object(obj)
+        if target is None or isinstance(target, NullObject):
+            missing.append(obj.idnum)
+            return
+        obj = target
+    if isinstance(obj, (DictionaryObject, StreamObject)):
+        for v in obj.values():
+            _resolve_all(v, reader, seen, missing)
+    elif isinstance(obj, ArrayObject):
+        for v in obj:
+            _resolve_all(v, reader, seen, missing)
+
+
+def test_split_files_are_well_formed(rendered):
+    """Every object a split file refers to is in it, at the offset its cross-reference
+    table gives (PDF 1.7, ISO 32000-1 sections 7.3.10 and 7.5.8), and the page draws only
+    resources its own dictionary holds."""
+    for p in rendered["paths"][:3] + rendered["a4"]:
+        data = p.read_bytes()
+        assert data.startswith(b"%PDF-1.") and data.rstrip().endswith(b"%%EOF")
+        r = PdfReader(p, strict=True)
+        seen: set[int] = set()
+        missing: list[int] = []
+        for key in ("/Root", "/Info"):
+            _resolve_all(r.trailer.raw_get(key), r, seen, missing)
+        assert missing == [], (p.name, missing)
+        # each listed object starts where the cross-reference stream says
+        offsets = r.xref[0]
+        assert len(offsets) >= 10
+        for num, off in offsets.items():
+            assert data[off:off + 24].startswith(f"{num} 0 obj".encode()), (p.name, num, off)
+        # the only pages object holds this one page
+        assert r.trailer["/Root"]["/Pages"]["/Count"] == 1
+        content = r.pages[0].get_contents().get_data()
+        xobjects = r.pages[0]["/Resources"].get("/XObject", {})
+        drawn = set(re.findall(rb"/([^\s/\[\]()<>{}%]+)\s+Do\b", content))
+        assert {k[1:].encode() for k in xobjects} == drawn
+
+
 def test_no_weasyprint_warnings(rendered):
     # the one environment warning allowed: this image lacks the HarfBuzz-Subset library,
     # so WeasyPrint subsets fonts with fontTools (slower, same output)
