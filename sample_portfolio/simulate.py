@@ -222,7 +222,7 @@ def _choice(rng: np.random.Generator, options: tuple, probs: tuple, n: int) -> n
     return np.asarray(options, dtype=object)[rng.choice(len(options), size=n, p=p / p.sum())]
 
 
-def _check_args(n_buildings, seed, start, years, units, fault_rates, annual_share, stations):
+def _check_args(n_buildings, seed, start, years, units, fault_rates, annual_share, stations, audit_share=0.06):
     if not isinstance(n_buildings, (int, np.integer)) or n_buildings < 1:
         raise ValueError(f"n_buildings must be a positive integer, got {n_buildings!r}")
     if not isinstance(seed, (int, np.integer)):
@@ -235,6 +235,8 @@ def _check_args(n_buildings, seed, start, years, units, fault_rates, annual_shar
         raise ValueError(f"units must be 'IP' or 'SI', got {units!r}")
     if not 0.0 <= annual_share <= 1.0:
         raise ValueError(f"annual_share must be within [0, 1], got {annual_share!r}")
+    if not 0.0 <= audit_share <= 1.0:
+        raise ValueError(f"audit_share must be within [0, 1], got {audit_share!r}")
     if not isinstance(stations, (int, np.integer)) or not 1 <= stations <= len(CLIMATES):
         raise ValueError(f"stations must be an integer from 1 to {len(CLIMATES)}, got {stations!r}")
     rates = dict(DEFAULT_FAULT_RATES)
@@ -489,7 +491,8 @@ def _space_heat_chunk(idx, B, W, off_days, sp_occ, sp_unocc, ua_oa, ua_env_mult=
 # ----------------------------------------------------------------------------------------------
 def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, units: str = "IP",
                        fault_rates: dict | None = None, annual_share: float = 0.1,
-                       stations: int = 5, chunk: int = 64) -> dict[str, pl.DataFrame]:
+                       stations: int = 5, chunk: int = 64, audit_share: float = 0.06,
+                       waste_onset: tuple[date, date] | None = None) -> dict[str, pl.DataFrame]:
     """Simulate a portfolio and return the frames ``buildings, readings, weather, truth``.
 
     Parameters
@@ -505,13 +508,23 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
     annual_share : share of buildings billed only as calendar-year totals
     stations : number of invented climates used (1..8)
     chunk : buildings per vectorised block of the hourly simulation (memory ~ chunk x days x 24)
+    audit_share : share of buildings whose buildings.csv row carries audit values: ``ua_total``
+        (true time-averaged UA x a log-normal error of sd 0.08), ``balance_point`` (true time-averaged
+        balance point + a normal error of sd 1.5 °F) and ``heating_efficiency`` (true). Only the
+        buildings frame depends on it: readings, weather and truth are the same for any value
+    waste_onset : None (the default: wasteful buildings waste over the whole record) or a pair of
+        dates (first, last): each wasteful building starts wasting on a day drawn uniformly between
+        them (a fault that develops, such as a damper actuator or a controller that fails) and is
+        normal before it; the waste factor then holds from that day on. The onset days come from a
+        second generator seeded with (seed, 1), so the rest of the portfolio is the same as without
+        onsets. ``truth`` records ``waste_onset`` (null when the waste holds throughout)
 
     Returns
     -------
     dict of polars DataFrames; ``buildings``, ``readings`` and ``weather`` carry exactly the input
     contract's columns; ``truth`` has one row per building (IP units, unit in every name).
     """
-    rates = _check_args(n_buildings, seed, start, years, units, fault_rates, annual_share, stations)
+    rates = _check_args(n_buildings, seed, start, years, units, fault_rates, annual_share, stations, audit_share)
     rng = np.random.default_rng(seed)
     end = date(start.year + years, start.month, start.day) - timedelta(days=1) if not (
         start.month == 2 and start.day == 29) else date(start.year + years, 3, 1) - timedelta(days=1)
@@ -566,6 +579,14 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
     waste_factor = np.where(wasteful, 1.6 + 0.9 * rng.random(n), 1.0)
     mech = np.where(wasteful, _choice(rng, ("stuck_setpoint", "open_dampers", "failed_controls"),
                                       (1, 1, 1), n), "")
+    onset_day = np.zeros(n, dtype=np.int64)  # index into ``days`` from which the waste holds
+    if waste_onset is not None:
+        first, last = waste_onset
+        if not (isinstance(first, date) and isinstance(last, date) and start <= first <= last <= end):
+            raise ValueError(f"waste_onset must be two dates with {start} <= first <= last <= {end}, "
+                             f"got {waste_onset!r}")
+        lo_d, hi_d = (first - start).days, (last - start).days
+        onset_day = np.where(wasteful, np.random.default_rng((seed, 1)).integers(lo_d, hi_d + 1, n), 0)
 
     # ---- daily energy per building, by chunks ---------------------------------------------
     heat_fuel_kbtu = np.empty((n, n_d))
@@ -589,10 +610,12 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
             oa = np.where(mk == "open_dampers", B["ua_oa"][w] * 2.5 + B["ua_env"][w] * 0.8, B["ua_oa"][w])
             qf, _ = _space_heat_chunk(w, B, W, off_days, sp_o, sp_u, oa, lockout=mk != "failed_controls")
             q0 = q[sub]
-            s0 = q0[:, :n_out].sum(axis=1)  # calibrated over the emitted days
-            s1 = qf[:, :n_out].sum(axis=1)
+            on = (np.arange(n_d)[None, :] >= onset_day[w][:, None])  # the waste holds from its onset
+            emitted = on[:, :n_out]
+            s0 = (q0[:, :n_out] * emitted).sum(axis=1)  # calibrated over the emitted wasting days
+            s1 = (qf[:, :n_out] * emitted).sum(axis=1)
             k = (waste_factor[w] - 1.0) * s0 / np.maximum(s1 - s0, 1e-9 * s0 + 1.0)
-            q[sub] = q0 + k[:, None] * (qf - q0)
+            q[sub] = q0 + (k[:, None] * on) * (qf - q0)
         space_kbtu_del[idx] = q / 1000.0
         st = B["station"][idx]
         area = B["area"][idx]
@@ -643,6 +666,9 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
         "reading_frequency": np.where(annual, "annual", "monthly"),
         "waste_factor": np.round(waste_factor, 4),
         "waste_mechanism": mech.astype(str),
+        "waste_onset": pl.Series([None if not (wasteful[i] and waste_onset is not None)
+                                  else start + timedelta(days=int(onset_day[i])) for i in range(n)],
+                                 dtype=pl.Date),
         "ua_true_btu_h_f": np.round(ua_eff, 1),
         "ua_envelope_btu_h_f": np.round(B["ua_env"], 1),
         "ua_outdoor_air_occupied_btu_h_f": np.round(B["ua_oa"], 1),
@@ -670,7 +696,7 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
         "unit_error_factor": truth_extra["ue_factor"],
         "fault_detail": truth_extra["detail"],
     })
-    buildings = _buildings_frame(rng, B, ids, ua_eff, t_bal, units)
+    buildings = _buildings_frame(rng, B, ids, ua_eff, t_bal, units, audit_share)
     weather = _weather_frame(W, days[:n_out], stations, units)
     return {"buildings": buildings, "readings": frames_rows["readings"], "weather": weather, "truth": truth}
 
@@ -934,7 +960,7 @@ def _round_by(x: np.ndarray, dec: np.ndarray) -> np.ndarray:
 # ----------------------------------------------------------------------------------------------
 # Frames
 # ----------------------------------------------------------------------------------------------
-def _buildings_frame(rng, B, ids, ua_eff, t_bal, units) -> pl.DataFrame:
+def _buildings_frame(rng, B, ids, ua_eff, t_bal, units, audit_share=0.06) -> pl.DataFrame:
     n = B["n"]
     first = np.asarray(NAME_FIRST, dtype=object)[rng.integers(0, len(NAME_FIRST), n)]
     suffix = np.array([NAME_SUFFIX[t][j] for t, j in zip(B["types"], rng.integers(0, 5, n))], dtype=object)
@@ -943,7 +969,7 @@ def _buildings_frame(rng, B, ids, ua_eff, t_bal, units) -> pl.DataFrame:
     street = np.asarray(STREETS, dtype=object)[rng.integers(0, len(STREETS), n)]
     address = [f"{h} {s}" for h, s in zip(rng.integers(10, 2999, n), street)]
     city = np.array([c[1] for c in CLIMATES])[B["station"]]
-    audit = rng.random(n) < 0.06
+    audit = rng.random(n) < audit_share
     eff_given = audit | (rng.random(n) < 0.05)
     ua = np.where(audit, np.round(ua_eff * np.exp(0.08 * rng.standard_normal(n)), -1), np.nan)
     bp = np.where(audit, np.round(t_bal + 1.5 * rng.standard_normal(n), 1), np.nan)
