@@ -85,10 +85,16 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "r2_min": 0.7,              # fit poorer than this → inconsistent use
         "cv_rmse_max": 20.0,        # % (ASHRAE Guideline 14 monthly regression criterion)
         "yoy_rise": 0.15,           # normal-year heating up more than 15 % on last year
+        "yoy_review": 0.25,         # needs_review also when normal-year heating is up at least 25 % on last year …
+        "yoy_review_z": 4.0,        # … and that change is this many robust z above the portfolio's changes …
+        "yoy_review_r2_min": 0.5,   # … and the fit that normalizes both years explains at least this share (R²) …
+        "yoy_review_heating_share_min": 0.25,  # … and heating is at least this share of the fuel's use
         "coverage_min": 0.9,        # share of the span covered by readings
         "estimated_share_max": 0.5,  # share of estimated reads above which data is weak
         "unit_error_factor": 8.0,   # a reading this many times off the same month of other years suggests a unit error
-        "unit_error_factor_expected": 25.0,  # metered/expected beyond this (or below its inverse): likely unit error
+        "unit_error_factor_expected": 10.0,  # metered/expected at or above this: likely unit or entry error
+        "unit_error_factor_expected_low": 25.0,  # metered/expected at or below 1/this: likely unit or entry error
+        "unit_error_factor_fit": 4.0,  # a bill this many times above (or below 1/this of) what its own weather fit predicts
         "min_excess_ratio": 1.0,    # metered/expected (P50) must reach this for needs_review
     },
 }

@@ -210,6 +210,43 @@ def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float) -> pl
         .alias("detail"), pl.lit(True).alias("blocking")).sort("building_id")
 
 
+def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float) -> pl.DataFrame:
+    """Bills far off the building's own weather fit (code ``bill_off_fit``, blocking).
+
+    Each fitted bill's use per day is compared with what the building's variable-base fit
+    predicts for its degree days, ``α + β·HDD(τ)/day`` [kBtu/day]. A bill at ≥ ``factor`` × the
+    prediction, or at ≤ 1/``factor`` of it, is flagged when the larger of the two is substantial
+    (at least half the building's median bill per day): summer use varies by large factors on
+    its own, winter-sized use in a summer bill does not. The same-month comparison across years
+    (:func:`_unit_error_issues`) misses a summer bill, whose other years are too small to count.
+    """
+    empty = pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
+                                 "blocking": pl.Boolean})
+    if periods.height == 0 or "hdd_per_day_fit" not in periods.columns:
+        return empty
+    fit = met.filter(pl.col("fit_method") == "regression").select(
+        "building_id", pl.col("baseload_kbtu_per_day").fill_null(0.0).alias("_a"),
+        pl.col("heating_slope_kbtu_per_dd").fill_null(0.0).alias("_b"))
+    p = periods.filter(pl.col("usable")).join(fit, on="building_id", how="inner").with_columns(
+        (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
+        (pl.col("_a") + pl.col("_b") * pl.col("hdd_per_day_fit")).alias("_pred"))
+    p = p.with_columns(pl.col("_upd").median().over("building_id").alias("_bmed"))
+    odd = p.filter((pl.col("_pred") > 0) & (pl.col("_upd") > 0) & (
+        ((pl.col("_upd") >= factor * pl.col("_pred")) & (pl.col("_upd") >= 0.5 * pl.col("_bmed")))
+        | ((pl.col("_upd") * factor <= pl.col("_pred")) & (pl.col("_pred") >= 0.5 * pl.col("_bmed")))))
+    if odd.height == 0:
+        return empty
+    odd = odd.sort("building_id", "period_start").with_columns(
+        (pl.col("period_start").cast(pl.String) + pl.lit("–") + pl.col("period_end").cast(pl.String)
+         + pl.lit(" (") + (pl.col("_upd") / pl.col("_pred")).round(2).cast(pl.String)
+         + pl.lit("× what the building's weather fit predicts)")).alias("_d"))
+    return odd.group_by("building_id").agg(pl.col("_d").str.join("; ").alias("detail")).select(
+        "building_id", pl.lit("bill_off_fit").alias("code"),
+        (pl.lit("bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
+                "after estimated reads, a meter change): ") + pl.col("detail")).alias("detail"),
+        pl.lit(True).alias("blocking")).sort("building_id")
+
+
 def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.DataFrame, cfg: dict, *,
                   window: tuple[_dt.date, _dt.date], paths: dict | None = None,
                   previous: pl.DataFrame | None = None) -> Screened:
@@ -301,7 +338,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     issues = [metered.reading_issues(conv, spans.drop("station_id"), lookback_months=a["lookback_months"],
                                      min_coverage=thr["coverage_min"],
                                      max_estimated_share=thr["estimated_share_max"]),
-              _unit_error_issues(conv, b, thr["unit_error_factor"])]
+              _unit_error_issues(conv, b, thr["unit_error_factor"]),
+              _fit_outlier_issues(periods, met, thr["unit_error_factor_fit"])]
     wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
     if wgap.height:
         gdetail = _gap_details(gaps, wgap)
@@ -344,7 +382,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     # a ratio that far off the expectation is a data problem, not waste
     uf = thr["unit_error_factor_expected"]
     ratio = pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")
-    far = frame.filter((ratio >= uf) | (ratio <= 1 / uf)).select(
+    far = frame.filter((ratio >= uf) | (ratio <= 1 / thr["unit_error_factor_expected_low"])).select(
         "building_id", pl.lit("likely_unit_error").alias("code"),
         (pl.lit("metered heating is ") + ratio.round(3).cast(pl.String)
          + pl.lit("× the expectation: check units (therm/ccf, kBtu/MMBtu) and the floor area")).alias("detail"),
@@ -377,11 +415,19 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
         H_norm = (E − α·days) · HDD_normal(τ) / HDD_year(τ)
         yoy_change = H_norm(current) / H_norm(previous) − 1
 
+    Buildings without a fit (annual totals; ``fit_method`` "default share") use the use type's
+    non-heating share s and the engineering balance point as τ: ``H = (1 − s)·E``, the same
+    normalization.
+
     Returns ``building_id, yoy_change`` for the buildings where it is defined.
     """
-    fit = met.filter((pl.col("fit_method") == "regression") & pl.col("fitted_base_f").is_not_null()
+    fit = met.filter((((pl.col("fit_method") == "regression") & pl.col("fitted_base_f").is_not_null())
+                      | ((pl.col("fit_method") == "default share") & pl.col("base_used_f").is_not_null()))
                      & (pl.col("coverage") >= 0.99)).select(
-        "building_id", "fitted_base_f", "baseload_kbtu_per_day", "actual_heating_kbtu")
+        "building_id", pl.coalesce("fitted_base_f", "base_used_f").alias("fitted_base_f"),
+        pl.col("baseload_kbtu_per_day").fill_null(0.0), "actual_heating_kbtu",
+        pl.when(pl.col("fit_method") == "default share").then(pl.col("baseload_share")).otherwise(0.0)
+        .fill_null(0.0).alias("_share"))
     sp = spans.join(fit, on="building_id", how="inner").with_columns(
         pl.col("span_start").dt.offset_by("-1y").alias("prev_start"),
         (pl.col("span_start") - pl.duration(days=1)).alias("prev_end"))
@@ -401,7 +447,8 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
     j = np.abs(grid[None, :] - tau[:, None]).argmin(axis=1)
     hdd_norm = normals.for_stations(st)[np.arange(st.size), j]
     days_prev = (sp["prev_end"] - sp["prev_start"]).dt.total_days().to_numpy() + 1
-    heat_prev = np.maximum(sp["e_prev"].to_numpy() - sp["baseload_kbtu_per_day"].to_numpy() * days_prev, 0.0)
+    heat_prev = np.maximum(sp["e_prev"].to_numpy() * (1.0 - sp["_share"].to_numpy())
+                           - sp["baseload_kbtu_per_day"].to_numpy() * days_prev, 0.0)
     with np.errstate(divide="ignore", invalid="ignore"):
         norm_prev = heat_prev * hdd_norm / hdd_prev
         norm_cur = sp["actual_heating_kbtu"].to_numpy() * hdd_norm / hdd_cur

@@ -175,7 +175,13 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     out = out.with_columns(
         _robust_z_all(pl.col("balance_point_excess_f")).alias("z_balance_point"),
         robust_z(pl.col("_logi"), "peer_group").alias("z_intensity"),
+        # the building against its own previous year: the weather-normalized change, as a robust z
+        # over the portfolio (the spread of normal buildings' changes is weather-normalization and
+        # meter noise, common to all)
+        pl.when(usable & (pl.col("yoy_change") > -1))
+        .then((1 + pl.col("yoy_change")).log()).otherwise(None).alias("_logyoy"),
     )
+    out = out.with_columns(_robust_z_all(pl.col("_logyoy")).alias("z_yoy"))
     out = out.with_columns(
         (pl.col("z_score") + t["weight_balance_point"] * pl.col("z_balance_point").fill_null(0.0)
          + t["weight_intensity"] * pl.col("z_intensity").fill_null(0.0)).alias("evidence_score"))
@@ -195,8 +201,17 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     fit_usable = (~reg) | fit_ok
     strong = ((pl.col("evidence_score") >= t["review_score"]) & (pl.col("ratio") >= t["min_excess_ratio"])
               & fit_usable).fill_null(False)
+    # or a step up against the building's own previous year, far beyond the portfolio's spread of
+    # year-on-year changes (a fault that developed: the building is its own baseline)
+    # (a fit that explains little of the use, e.g. a heat pump's few % of heating, gives no such step;
+    # nor does heating that is a small part of the fuel's use, where a small change in the rest moves it)
+    heat_share = pl.when(pl.col("total_fuel_kbtu") > 0).then(pl.col("actual_heating_kbtu") / pl.col("total_fuel_kbtu"))
+    rise = ((pl.col("yoy_change") >= t["yoy_review"]) & (pl.col("z_yoy") >= t["yoy_review_z"])
+            & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"]))
+            & (heat_share >= t["yoy_review_heating_share_min"])).fill_null(False)
     out = out.with_columns(
-        (strong & ~pl.col("blocking")).alias("needs_review"),
+        ((strong | rise) & ~pl.col("blocking")).alias("needs_review"),
+        (rise & ~strong).alias("_rise_only"),
     )
     watch = (pl.col("_f_above_band") | pl.col("_f_high_among_peers") | pl.col("_f_poor_fit")
              | pl.col("_f_rising_use") | pl.col("_f_high_balance_point") | pl.col("_f_high_baseload")
@@ -230,7 +245,8 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         "actual_heating_kbtu", "expected_heating_kbtu", "_band_low", "_band_high", "ratio",
         "heating_intensity", "peer_median_intensity", "peer_percentile", "peer_group", "z_score",
         "baseload_share", "baseload_share_default", "fitted_base_f", "r2", "cv_rmse", "yoy_change",
-        "tier", "needs_review", "blocking", "excess_energy_kbtu", "evidence_score", "z_balance_point", "z_intensity", "span_kind", "data_issue_codes",
+        "tier", "needs_review", "blocking", "excess_energy_kbtu", "evidence_score", "z_balance_point", "z_intensity",
+        "z_yoy", "_rise_only", "span_kind", "data_issue_codes",
         *[c for c in out.columns if c.startswith("_f_")]).to_dicts()
     e = energy_factor
     codes_all, texts_all, verdicts = [], [], []
@@ -271,6 +287,10 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         if r["blocking"]:
             v = ("A data problem (" + ", ".join(r["data_issue_codes"] or []) + ") must be fixed before this "
                  "building can be judged.")
+        elif r["needs_review"] and r["_rise_only"]:
+            v = (f"Weather-normalized heating rose {_fmt(100 * r['yoy_change'])} % on the previous year, far beyond "
+                 f"the portfolio's year-on-year spread (z {_fmt(r['z_yoy'], 1)} against {t['yoy_review_z']:g}), "
+                 f"(now {_fmt(r['ratio'], 2)}× the expectation): something changed; recommend an audit.")
         elif r["needs_review"]:
             v = (f"Heating is {_fmt(r['ratio'], 1)}× what this building should need and the evidence of excess "
                  f"is strong (score {_fmt(r['evidence_score'], 1)} against {t['review_score']:g}: peers "

@@ -8,10 +8,17 @@ there and recorded in ``truth.csv``; the tool sees only buildings/readings/weath
 Seed 606 is held out: the thresholds in ``screening/config.py`` were chosen on seeds 11, 101
 and 202 (see README "How the audit list is chosen") and the demo's seed 2026 was not used.
 
-Floors: the issue's target is recall >= 90 % with false alarms <= 5 %. The tool does not
-reach that recall (README "How the audit list is chosen" explains why). The asserts below are the measured
-figures on this seed rounded down to a floor that a regression would break: measured
-recall 15/36 = 42 % (floor 35 %), false alarms 4/246 = 1.6 % (ceiling 5 %, the issue's target).
+Two kinds of waste are measured on the same portfolio (same buildings, weather and faults):
+
+* **persistent**: the waste holds over the whole three-year record (the simulator's default). The
+  tool does not reach the issue's target (recall >= 90 % with false alarms <= 5 %) here; README
+  "How the audit list is chosen" explains why. The asserts are the measured figures on this seed
+  rounded down to a floor that a regression would break: measured recall 15/36 = 42 % (floor
+  35 %), false alarms 4/246 = 1.6 % (ceiling 5 %, the issue's target).
+* **onset**: each wasteful building starts wasting on a day between 2025-04-01 and 2025-10-01, in
+  the six months before the window (a fault that develops). The building is then its own
+  baseline: measured recall 34/36 = 94 %, false alarms 5/246 = 2.0 %; the asserts are the issue's
+  target itself.
 """
 
 from __future__ import annotations
@@ -41,11 +48,13 @@ def _simulator():
     return mod
 
 
-@pytest.fixture(scope="module")
-def screened(tmp_path_factory) -> pl.DataFrame:
-    tmp = tmp_path_factory.mktemp("detection")
+ONSET = (dt.date(2025, 4, 1), dt.date(2025, 10, 1))  # waste begins in the six months before the window
+
+
+def _screen(tmp: Path, waste_onset=None) -> pl.DataFrame:
     sim = _simulator()
-    frames = sim.simulate_portfolio(N, seed=SEED, start=dt.date(2023, 10, 1), years=3, fault_rates=FAULTS)
+    frames = sim.simulate_portfolio(N, seed=SEED, start=dt.date(2023, 10, 1), years=3, fault_rates=FAULTS,
+                                    waste_onset=waste_onset)
     paths = sim.write_portfolio(frames, tmp / "in")
     overrides = {"inputs": {"buildings": str(paths["buildings"]), "readings": str(paths["readings"]),
                             "weather": str(paths["weather"])},
@@ -56,6 +65,16 @@ def screened(tmp_path_factory) -> pl.DataFrame:
     ranking = pl.read_csv(tmp / "out" / "ranking.csv", infer_schema_length=None)
     truth = pl.read_csv(paths["truth"])
     return ranking.join(truth.select("building_id", "truth_label", "waste_factor"), on="building_id", how="inner")
+
+
+@pytest.fixture(scope="module")
+def screened(tmp_path_factory) -> pl.DataFrame:
+    return _screen(tmp_path_factory.mktemp("detection"))
+
+
+@pytest.fixture(scope="module")
+def screened_onset(tmp_path_factory) -> pl.DataFrame:
+    return _screen(tmp_path_factory.mktemp("detection-onset"), ONSET)
 
 
 def _flag(df: pl.DataFrame) -> pl.Series:
@@ -97,8 +116,10 @@ def test_unit_errors_go_to_fix_data_first(screened):
     assert df.height >= 5
     assert not df["_review"].any()                      # a data fault never passes for waste
     in_fix = (df["tier"] == "Fix data first").mean()
-    assert in_fix >= 0.8                                # measured 8/9 on this seed
-    assert df.filter(pl.col("tier") == "Fix data first")["data_issues"].str.contains("unit").all()
+    assert in_fix >= 0.8                                # measured 9/9 on this seed
+    # each one for a unit check: against its own months, its own weather fit, or the expectation
+    assert df.filter(pl.col("tier") == "Fix data first")["data_issues"].str.contains(
+        "likely_unit_error|bill_off_fit").all()
 
 
 def test_missing_months_are_kept_out_of_the_comparison(screened):
@@ -111,3 +132,26 @@ def test_missing_months_are_kept_out_of_the_comparison(screened):
     # the gap itself does not make waste: the review rate is no higher than one building in five
     # (on this seed 1/9: a building whose shifted span is genuinely high)
     assert df["_review"].mean() <= 0.2
+
+
+def test_waste_that_began_last_year_meets_the_target(screened_onset):
+    df = screened_onset.with_columns(_flag(screened_onset).alias("_review"))
+    waste = df.filter(pl.col("truth_label") == "wasteful")
+    normal = df.filter(pl.col("truth_label") == "normal")
+    recall = waste["_review"].mean()
+    false_alarm = normal["_review"].mean()
+    print(f"seed {SEED}, N {N}, onset {ONSET[0]}..{ONSET[1]}: recall {waste['_review'].sum()}/{waste.height} = "
+          f"{recall:.1%}, false alarms {normal['_review'].sum()}/{normal.height} = {false_alarm:.1%}")
+    assert waste.height >= 30 and normal.height >= 200
+    assert recall >= 0.90          # the issue's target (issue 6); measured 34/36
+    assert false_alarm <= 0.05     # the issue's target; measured 5/246
+    # it is the building's own history that finds them: most detected wasters rose >= 25 % on last year
+    hit = waste.filter(pl.col("_review"))
+    assert (hit["yoy_change"].fill_null(0.0) >= 0.25).mean() >= 0.8
+
+
+def test_data_faults_stay_out_of_the_audit_list_with_onsets(screened_onset):
+    df = screened_onset.with_columns(_flag(screened_onset).alias("_review"))
+    unit = df.filter(pl.col("truth_label") == "unit_error")
+    assert unit.height >= 5 and not unit["_review"].any()   # a unit error is a big "rise", never waste
+    assert df.filter(pl.col("truth_label") == "missing_months")["_review"].mean() <= 0.2

@@ -144,3 +144,62 @@ def test_heating_up_30_percent_on_last_year_is_flagged_rising():
     row = res.row(0, named=True)
     assert row["yoy_change"] == pytest.approx(0.30, abs=0.03)
     assert "rising_use" in row["flag_codes"]
+
+
+def _portfolio_readings(w, ids, factors_year2, *, base_kbtu_day=0.0, noise=0.0, seed=7, level=None):
+    """Two years of monthly bills per building: Q = 24·level·UA·HDD65/η + baseload (η 0.8), the
+    second year's heating × factors_year2[id]; multiplicative noise (seeded) on every bill."""
+    rng = np.random.default_rng(seed)
+    level = level or {}
+    frames = []
+    for k, bid in enumerate(ids):
+        ua = level.get(bid, 1.0) * UA
+        f1 = _monthly_readings(w, dt.date(2024, 10, 1), 12, ua, 0.8)
+        f2 = _monthly_readings(w, dt.date(2025, 10, 1), 12, factors_year2.get(bid, 1.0) * ua, 0.8)
+        r = pl.concat([f1, f2])
+        days = ((r["period_end"] - r["period_start"]).dt.total_days() + 1).to_numpy()
+        q = (r["quantity"].to_numpy() + base_kbtu_day.get(bid, 0.0) * days / 100.0
+             if isinstance(base_kbtu_day, dict) else r["quantity"].to_numpy())
+        q = q * np.exp(noise * rng.standard_normal(q.size))
+        frames.append(r.with_columns(pl.lit(bid).alias("building_id"), pl.Series("quantity", q),
+                                     (pl.col("_line") + 24 * k).alias("_line")))
+    return pl.concat(frames)
+
+
+def test_a_step_up_on_last_year_puts_a_building_on_the_audit_list():
+    # path B of the audit rule (README "How the audit list is chosen"): ten steady buildings whose
+    # bills carry 1 % noise and whose levels spread ×0.5–2 around the expectation, one at 0.8× whose
+    # heating rises 60 % in the second year (by construction; 1.28× the expectation then, ordinary
+    # among these peers), and one that rises 60 % but whose heating is a small part of its use
+    w = _weather(lambda i: 50.0 - 25.0 * np.cos(2 * np.pi * (i - 15) / 365.25), dt.date(2023, 10, 1), 365 * 3 + 2)
+    ids = [f"T{i}" for i in range(1, 13)]
+    b = _buildings([_building(building_id=bid, heating_efficiency=0.8, _line=i + 2) for i, bid in enumerate(ids)])
+    levels = dict(zip(ids, [0.5, 0.6, 0.75, 0.9, 1.0, 1.1, 1.3, 1.5, 1.75, 2.0, 0.8, 1.0]))
+    r = _portfolio_readings(w, ids, {"T11": 1.6, "T12": 1.6}, base_kbtu_day={"T12": 20_000.0}, noise=0.01,
+                            level=levels)
+    res = screen_frames(b, r, w, _cfg(), window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30))).results
+    rows = {x["building_id"]: x for x in res.to_dicts()}
+    up = rows["T11"]
+    assert up["yoy_change"] == pytest.approx(0.60, abs=0.05)
+    assert up["z_yoy"] >= 4.0 and up["needs_review"] is True
+    assert "rose" in up["verdict"] and "previous year" in up["verdict"]
+    small = rows["T12"]
+    assert small["actual_heating_kbtu"] / small["total_fuel_kbtu"] < 0.25   # heating under a quarter of the use
+    assert small["needs_review"] is False
+    assert not any(rows[bid]["needs_review"] for bid in ids[:10])
+
+
+def test_one_summer_bill_ten_times_too_high_is_a_data_issue():
+    # a lost decimal point in one summer bill: 10 × what the building's own weather fit predicts
+    # (by construction); the same-month check cannot see it because other summers are too small
+    w = _weather(lambda i: 50.0 - 25.0 * np.cos(2 * np.pi * (i - 15) / 365.25), dt.date(2023, 10, 1), 365 * 3 + 2)
+    ids = [f"T{i}" for i in range(1, 4)]
+    b = _buildings([_building(building_id=bid, heating_efficiency=0.8, _line=i + 2) for i, bid in enumerate(ids)])
+    r = _portfolio_readings(w, ids, {}, base_kbtu_day={bid: 300.0 for bid in ids}, noise=0.02)
+    july = (pl.col("building_id") == "T2") & (pl.col("period_start") == dt.date(2026, 7, 1))
+    r = r.with_columns(pl.when(july).then(pl.col("quantity") * 10).otherwise(pl.col("quantity")).alias("quantity"))
+    res = screen_frames(b, r, w, _cfg(), window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30))).results
+    rows = {x["building_id"]: x for x in res.to_dicts()}
+    assert "bill_off_fit" in rows["T2"]["data_issue_codes"]
+    assert rows["T2"]["tier"] == "Fix data first" and rows["T2"]["needs_review"] is False
+    assert rows["T1"]["data_issue_codes"] == [] and rows["T3"]["data_issue_codes"] == []
