@@ -90,6 +90,54 @@ def test_unannotated_charts_keep_geometry_and_ticks_only():
     assert "2024" in [t.text for t in ann.iter(f"{SVG}text")]
 
 
+def test_advance_widths_match_the_font_file():
+    """_ADVANCE_EM places tick labels character by character: it must be the regular face's
+    own advance widths (hmtx / unitsPerEm, read here with fontTools), and the face must have
+    no kerning that would move the characters apart."""
+    from fontTools.ttLib import TTFont
+
+    from screening.resources import templates_dir
+
+    font = TTFont(templates_dir() / "fonts" / "ddscreen-sans.ttf")
+    cmap, upm = font.getBestCmap(), font["head"].unitsPerEm
+    for ch, em in charts._ADVANCE_EM.items():
+        assert font["hmtx"][cmap[ord(ch)]][0] / upm == pytest.approx(em, abs=1e-9), ch
+    assert "kern" not in font and "GPOS" not in font
+
+
+def test_tick_labels_are_one_text_node_anchored_by_hand():
+    """All tick labels of a chart are one <text> with an x and y per character; y labels end
+    3 units left of the plot and x labels are centred on their ticks (by hand from the
+    advance widths: "100" at font size 8 is 3 x 8 x 1172/2048 = 13.73 units wide)."""
+    root = parse(charts.scatter_chart([10, 20, 30], [100, 200, 300], fit_line=None, expected_line=None,
+                                      x_label="", y_label="", width=360, height=170, annotate=False))
+    texts = list(root.iter(f"{SVG}text"))
+    assert len(texts) == 1
+    t = texts[0]
+    xs = [float(v) for v in t.get("x").split()]
+    ys = [float(v) for v in t.get("y").split()]
+    assert len(xs) == len(ys) == len(t.text) and t.get("text-anchor") is None
+    digit = 8 * 1172 / 2048
+    # the y labels come first, bottom up: "0", then "100" ... (nice_ticks(0, 300, 5) by hand: 0..300 step 100)
+    assert t.text.startswith("0100200300")
+    x0 = xs[0] + digit  # right edge of "0" = left edge of the plot - 3
+    assert xs[1] + 3 * digit == pytest.approx(x0, abs=0.02)  # "100" ends where "0" ends
+    assert [ys[1], ys[2], ys[3]] == [ys[1]] * 3  # one baseline per label
+    # an x label of two digits is centred on its tick mark
+    marks = [p for p in root.iter(f"{SVG}path") if p.get("stroke") == "#000" and "V" in p.get("d")][0]
+    first_tick_x = float(marks.get("d").split("M")[1].split()[0])
+    k = t.text.index("0", 10)  # the x axis starts with its "0" after the y labels
+    assert xs[k] + digit / 2 == pytest.approx(first_tick_x, abs=0.02)
+
+
+def test_labels_with_other_characters_keep_their_own_node():
+    """A label the advance table does not cover (a year range here) is drawn by WeasyPrint's
+    own anchoring, escaped."""
+    root = parse(charts.annual_chart(["2024/25", "<b>"], [1.0, 2.0], [2.0, 2.0], y_label="", annotate=False))
+    texts = {t.text: t for t in root.iter(f"{SVG}text")}
+    assert texts["2024/25"].get("text-anchor") == "middle" and texts["<b>"].get("text-anchor") == "middle"
+
+
 def test_scatter_line_is_clipped_inside_the_plot():
     svg = charts.scatter_chart([0, 10], [0, 10], fit_line={"intercept": 0, "slope": 1e6}, expected_line=None,
                                x_label="x", y_label="y", width=300, height=200)
