@@ -631,8 +631,8 @@ class _PageSplitter:
 
         objs = pdf.objects
         n_objs = len(objs)
-        kids = pdf.pages["Kids"]
-        page_numbers = [int(kids[i]) for i in range(0, len(kids), 3)]
+        # the page tree's kids as object numbers, whether pydyf keeps them as (n, 0, "R") triples or as references
+        page_numbers = [int(m) for m in _REF.findall(pydyf.Array(pdf.pages["Kids"]).data)]
         skip = {pdf.pages.number, pdf.catalog.number, *page_numbers}
         cache: dict[int, tuple[bytes, list[int]]] = {}
 
