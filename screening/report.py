@@ -857,8 +857,8 @@ def _run_chunks(chunks: list[tuple[list, list]], paper: str, workers: int) -> li
     # the fork server imports the renderer's heavy modules once; each child forks from it
     ctx.set_forkserver_preload(["screening.report", "weasyprint", "pydyf"])
     n_children = min(workers - 1, len(chunks) - 1)
-    with ProcessPoolExecutor(max_workers=n_children, mp_context=ctx, initializer=_worker_init,
-                             max_tasks_per_child=100) as pool:
+    with _main_not_reimported(), ProcessPoolExecutor(
+            max_workers=n_children, mp_context=ctx, initializer=_worker_init, max_tasks_per_child=100) as pool:
         local = threading.Thread(target=here, name="ddscreen-render", daemon=True)
         local.start()
         in_flight: dict[Any, int] = {}
@@ -881,6 +881,34 @@ def _run_chunks(chunks: list[tuple[list, list]], paper: str, workers: int) -> li
     if failed:
         raise failed[0]
     return results
+
+
+@contextlib.contextmanager
+def _main_not_reimported():
+    """Keep the render workers from running the caller's ``__main__`` module again.
+
+    A forkserver (or spawn) child imports the parent's main module, by path or by its
+    ``python -m`` name, before its first task. The workers need nothing from it, and a
+    caller's script without an ``if __name__ == "__main__":`` guard (or one read from
+    stdin) would run again in every child: for :func:`screening.runner.run`, a second run
+    that finds the lock taken and a broken pool. While the pool lives (workers are started
+    on demand and replaced after ``max_tasks_per_child``), ``__main__`` shows the
+    multiprocessing machinery neither a file nor a spec; both are put back afterwards.
+    """
+    import sys
+
+    main = sys.modules.get("__main__")
+    if main is None:
+        yield
+        return
+    saved = {k: main.__dict__[k] for k in ("__file__", "__spec__") if k in main.__dict__}
+    main.__dict__.pop("__file__", None)
+    if "__spec__" in saved:
+        main.__spec__ = None
+    try:
+        yield
+    finally:
+        main.__dict__.update(saved)
 
 
 def _worker_init() -> None:

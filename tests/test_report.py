@@ -278,6 +278,38 @@ def test_process_pool_path(tmp_path):
     assert all(len(PdfReader(p).pages) == 1 for p in paths)
 
 
+@pytest.mark.parametrize("how", ["stdin", "file"])
+def test_a_script_without_a_main_guard_renders_with_workers(tmp_path, how):
+    # A caller's script read from stdin, or a file without `if __name__ == "__main__":`, must not
+    # run again in the render workers (forkserver children import the parent's __main__ first):
+    # the marker file would then hold more than one line.
+    import subprocess
+    import sys
+
+    marker = tmp_path / "ran.txt"
+    script = (
+        "from pathlib import Path\n"
+        "from screening import report\n"
+        "from tests.sheet_fixtures import make_sheet\n"
+        f"with open({str(marker)!r}, 'a') as fh:\n"
+        "    fh.write('x\\n')\n"
+        f"paths = report.render_sheets([make_sheet(i) for i in range(4)], Path({str(tmp_path / 'out')!r}),\n"
+        "                              workers=2, chunk_size=2)\n"
+        "print(len(paths))\n")
+    root = str(templates_dir().parent)
+    if how == "stdin":
+        proc = subprocess.run([sys.executable, "-"], input=script, capture_output=True, text=True, cwd=root,
+                              timeout=120)
+    else:
+        (tmp_path / "job.py").write_text(script, encoding="utf-8")
+        proc = subprocess.run([sys.executable, str(tmp_path / "job.py")], capture_output=True, text=True,
+                              cwd=root, timeout=120, env={**__import__("os").environ, "PYTHONPATH": root})
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    assert proc.stdout.strip() == "4"
+    assert marker.read_text().count("x") == 1
+    assert len(list((tmp_path / "out").glob("*.pdf"))) == 4
+
+
 def test_render_sheets_bad_arguments(tmp_path):
     with pytest.raises(ValueError, match=r"paper must be one of \['A4', 'Letter'\], got 'A3'"):
         report.render_sheets([], tmp_path, paper="A3")
