@@ -744,8 +744,28 @@ def _weasyprint_version() -> str:
 
 
 def _write_split(doc, picks: Iterable[tuple[int, Path, str]]) -> None:
-    """Write chosen pages of a rendered WeasyPrint document as one-page files (see _PageSplitter)."""
-    doc.write_pdf(finisher=_PageSplitter(picks))
+    """Write chosen pages of a rendered WeasyPrint document as one-page files (see _PageSplitter).
+
+    The splitter reads pydyf's objects, which are not a public API: if a WeasyPrint or pydyf
+    release changes them, the pages are written through the public ``Document.copy`` and
+    ``write_pdf`` instead (slower: fonts are subset once per page), with a warning in the log.
+    """
+    picks = list(picks)
+    try:
+        doc.write_pdf(finisher=_PageSplitter(picks))
+    except (AttributeError, KeyError, TypeError, IndexError, ValueError) as exc:
+        LOGGER.warning("fast page split unavailable with this WeasyPrint/pydyf (%s: %s); writing pages "
+                       "one by one", type(exc).__name__, exc)
+        _write_pages_public(doc, picks)
+
+
+def _write_pages_public(doc, picks: Iterable[tuple[int, Path, str]]) -> None:
+    """One ``write_pdf`` per picked page through WeasyPrint's public API, each with its /Title."""
+    for index, target, title in picks:
+        one = doc.copy([doc.pages[index]])
+        one.metadata.title = title
+        one.metadata.generator = f"ddscreen {__version__}"
+        _atomic_write(one.write_pdf(), target)
 
 
 @contextlib.contextmanager

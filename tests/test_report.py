@@ -409,3 +409,19 @@ def test_split_file_does_not_carry_other_sheets_resources(tmp_path):
     # by hand: the other sheets' charts alone would add several times one sheet's size;
     # fonts subset over eight sheets' glyphs may add a little, hence 1.3
     assert in_chunk < 1.3 * alone, (alone, in_chunk)
+
+
+def test_pages_are_still_written_when_the_fast_split_is_unavailable(tmp_path, monkeypatch, caplog):
+    # the splitter reads pydyf internals; if a release changes them, the public API writes the pages
+    def broken(self, document, pdf):
+        raise AttributeError("'PDF' object has no attribute 'objects'")
+
+    monkeypatch.setattr(report._PageSplitter, "__call__", broken)
+    sheets = [make_sheet(i) for i in range(3)]
+    with caplog.at_level(logging.WARNING, logger="screening.report"):
+        paths = report.render_sheets(sheets, tmp_path, workers=1)
+    assert "fast page split unavailable" in caplog.text
+    for p, s in zip(paths, sheets):
+        r = PdfReader(p)
+        assert len(r.pages) == 1 and s["building_id"] in r.metadata.title
+        assert s["building_id"] in r.pages[0].extract_text()
