@@ -385,7 +385,11 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     far = frame.filter((ratio >= uf) | (ratio <= 1 / thr["unit_error_factor_expected_low"])).select(
         "building_id", pl.lit("likely_unit_error").alias("code"),
         (pl.lit("metered heating is ") + ratio.round(3).cast(pl.String)
-         + pl.lit("× the expectation: check units (therm/ccf, kBtu/MMBtu) and the floor area")).alias("detail"),
+         + pl.lit("× the expectation: check units (therm/ccf, kBtu/MMBtu) and the floor area")
+         + pl.when((pl.col("heating_fuel") == "electricity") & (ratio < 1))
+         .then(pl.lit("; for electric heat also a heat pump (give its seasonal COP as heating_efficiency) "
+                      "or a meter whose lights, plugs and cooling leave little to heating"))
+         .otherwise(pl.lit(""))).alias("detail"),
         pl.lit(True).alias("blocking"))
     issues_df = pl.concat([issues_df, far]).unique(subset=["building_id", "code"], keep="first") \
         .sort("building_id", "code")
