@@ -4,7 +4,8 @@ The scenario: Quillmere Estates Trust (an invented management company) holds abo
 of every use type in five invented climates. Weather runs 2022-10-01..2026-09-30 (so
 ``ddscreen demo`` with ``--as-of 2026-10-15`` screens 2025-10-01..2026-09-30); monthly bills
 run to the first read after 2026-09-30; about 10 % of buildings report calendar-year totals only
-(2023, 2024, 2025), about 10 % waste heat, and a handful carry each kind of data defect.
+(2023, 2024, 2025), about 10 % waste heat (about half of them since a day between April and
+October 2025), and a handful carry each kind of data defect.
 A few deliberately invalid rows are appended for the rejects path (see README.md here).
 
 Run from anywhere (seeded; the output is identical on every run):
@@ -27,7 +28,10 @@ HERE = Path(__file__).resolve().parent
 
 DEMO = dict(n_buildings=200, seed=2026, start=date(2022, 10, 1), years=4, annual_share=0.10, stations=5,
             fault_rates={"wasteful": 0.10, "unit_error": 0.03, "missing_months": 0.025,
-                         "duplicate_readings": 0.02, "overlapping_periods": 0.02, "estimated_run": 0.025})
+                         "duplicate_readings": 0.02, "overlapping_periods": 0.02, "estimated_run": 0.025},
+            # about half the wasteful buildings develop their fault between April and October 2025
+            # (the others have always wasted): the demo shows both ways onto the audit list
+            waste_onset=(date(2025, 4, 1), date(2025, 10, 1)), onset_share=0.5)
 
 
 def _load_simulate():

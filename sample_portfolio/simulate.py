@@ -492,7 +492,8 @@ def _space_heat_chunk(idx, B, W, off_days, sp_occ, sp_unocc, ua_oa, ua_env_mult=
 def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, units: str = "IP",
                        fault_rates: dict | None = None, annual_share: float = 0.1,
                        stations: int = 5, chunk: int = 64, audit_share: float = 0.06,
-                       waste_onset: tuple[date, date] | None = None) -> dict[str, pl.DataFrame]:
+                       waste_onset: tuple[date, date] | None = None,
+                       onset_share: float = 1.0) -> dict[str, pl.DataFrame]:
     """Simulate a portfolio and return the frames ``buildings, readings, weather, truth``.
 
     Parameters
@@ -518,6 +519,9 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
         normal before it; the waste factor then holds from that day on. The onset days come from a
         second generator seeded with (seed, 1), so the rest of the portfolio is the same as without
         onsets. ``truth`` records ``waste_onset`` (null when the waste holds throughout)
+    onset_share : with ``waste_onset``, the share of wasteful buildings that get an onset; the
+        others waste over the whole record (drawn after the onset days from the same second
+        generator, so 1.0 gives the same onsets as before this option existed)
 
     Returns
     -------
@@ -585,8 +589,13 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
         if not (isinstance(first, date) and isinstance(last, date) and start <= first <= last <= end):
             raise ValueError(f"waste_onset must be two dates with {start} <= first <= last <= {end}, "
                              f"got {waste_onset!r}")
+        if not 0.0 <= onset_share <= 1.0:
+            raise ValueError(f"onset_share must be within [0, 1], got {onset_share!r}")
         lo_d, hi_d = (first - start).days, (last - start).days
-        onset_day = np.where(wasteful, np.random.default_rng((seed, 1)).integers(lo_d, hi_d + 1, n), 0)
+        g_onset = np.random.default_rng((seed, 1))
+        drawn = g_onset.integers(lo_d, hi_d + 1, n)
+        with_onset = wasteful & (g_onset.random(n) < onset_share)
+        onset_day = np.where(with_onset, drawn, 0)
 
     # ---- daily energy per building, by chunks ---------------------------------------------
     heat_fuel_kbtu = np.empty((n, n_d))
@@ -666,7 +675,7 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
         "reading_frequency": np.where(annual, "annual", "monthly"),
         "waste_factor": np.round(waste_factor, 4),
         "waste_mechanism": mech.astype(str),
-        "waste_onset": pl.Series([None if not (wasteful[i] and waste_onset is not None)
+        "waste_onset": pl.Series([None if not (wasteful[i] and onset_day[i] > 0)
                                   else start + timedelta(days=int(onset_day[i])) for i in range(n)],
                                  dtype=pl.Date),
         "ua_true_btu_h_f": np.round(ua_eff, 1),
