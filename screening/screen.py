@@ -216,7 +216,9 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     watch = (pl.col("_f_above_band") | pl.col("_f_high_among_peers") | pl.col("_f_poor_fit")
              | pl.col("_f_rising_use") | pl.col("_f_high_balance_point") | pl.col("_f_high_baseload")
              | (pl.col("z_score") >= t["z_review"]).fill_null(False))
-    big = (pl.col("ratio") >= t["audit_first_ratio"]) & (pl.col("evidence_score") >= t["audit_first_score"])
+    # the most urgent: a large excess over the expectation with strong evidence, on either path
+    big = (pl.col("ratio") >= t["audit_first_ratio"]) & (
+        (pl.col("evidence_score") >= t["audit_first_score"]) | rise)
     out = out.with_columns(
         pl.when(pl.col("blocking")).then(pl.lit("Fix data first"))
         .when(pl.col("needs_review") & big.fill_null(False)).then(pl.lit("Audit first"))
