@@ -94,8 +94,10 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         floor_area_ft2, actual_heating_kbtu, expected_heating_kbtu, expected_low_kbtu,
         expected_high_kbtu, hdd65, baseload_share, baseload_share_default, fit_method,
         fitted_base_f, r2, cv_rmse, normal_heating_kbtu, prev_normal_heating_kbtu,
-        envelope_source, span_kind, usd_per_kbtu, kg_co2e_per_kbtu, blocking,
-        data_issue_codes (list[str]), data_issue_texts (list[str])``.
+        envelope_source, span_kind, usd_per_kbtu, kg_co2e_per_kbtu, blocking, total_fuel_kbtu,
+        data_issue_codes (list[str]), data_issue_texts (list[str])``; ``yoy_change`` when
+        the pipeline computed it from the readings (the previous run's normal-year heating
+        stands in where it is missing).
     thresholds : the ``[thresholds]`` table of the config.
     energy_factor, energy_unit : display conversion from kBtu (1 for kBtu; 0.29307107 for kWh).
 
@@ -106,8 +108,9 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     z_score, balance_point_excess_f`` [°F] (fitted − engineering balance point), ``z_balance_point,
     z_intensity, evidence_score`` (z_score + w_bp·z_balance_point + w_int·z_intensity, the
     needs_review test; see README "How the audit list is chosen"), ``excess_energy_kbtu`` (metered − the band's top, ≥ 0; the top is P90, at least P50 × (1 + band_floor)), ``excess_energy_central_kbtu``
-    (metered − P50, ≥ 0), ``excess_cost, excess_co2e_kg, yoy_change, flag_codes,
-    flag_texts, needs_review, tier, tier_rank, rank, verdict``.
+    (metered − P50, ≥ 0), ``excess_cost, excess_co2e_kg, yoy_change, z_yoy`` (robust z of
+    ln(1 + yoy_change) over the portfolio: needs_review's second path, a step up against the
+    previous year), ``flag_codes, flag_texts, needs_review, tier, tier_rank, rank, verdict``.
     """
     t = thresholds
     # the band is never narrower than ±band_floor around P50: metering, weather and calendarization
@@ -291,8 +294,8 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
                  "building can be judged.")
         elif r["needs_review"] and r["_rise_only"]:
             v = (f"Weather-normalized heating rose {_fmt(100 * r['yoy_change'])} % on the previous year, far beyond "
-                 f"the portfolio's year-on-year spread (z {_fmt(r['z_yoy'], 1)} against {t['yoy_review_z']:g}), "
-                 f"(now {_fmt(r['ratio'], 2)}× the expectation): something changed; recommend an audit.")
+                 f"the portfolio's year-on-year spread (z {_fmt(r['z_yoy'], 1)} against {t['yoy_review_z']:g}); it is "
+                 f"now {_fmt(r['ratio'], 2)}× the expectation. Something changed: recommend an audit.")
         elif r["needs_review"]:
             v = (f"Heating is {_fmt(r['ratio'], 1)}× what this building should need and the evidence of excess "
                  f"is strong (score {_fmt(r['evidence_score'], 1)} against {t['review_score']:g}: peers "
