@@ -193,8 +193,13 @@ def _clip_line(intercept, slope, xlo, xhi, ylo, yhi):
 
 def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[float | None], *,
                   fit_line: dict | None, expected_line: dict | None, x_label: str, y_label: str,
-                  width: float = 360, height: float = 200, annotate: bool = True) -> str:
-    """Use per day against degree days per day, one open circle per period.
+                  width: float = 360, height: float = 200, annotate: bool = True,
+                  recent: Sequence[bool] | None = None) -> str:
+    """Use per day against degree days per day, one circle per period.
+
+    With ``recent`` (one flag per period), the flagged periods (those of the analysis
+    window) are filled grey and the others (earlier periods of the fit) open, so a step
+    up against the year before shows as two clouds; without it every circle is open.
 
     ``fit_line`` and ``expected_line`` are ``{"intercept", "slope"}`` in the same units
     (use per day = intercept + slope * degree days per day); the fitted line is drawn
@@ -206,6 +211,9 @@ def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[floa
     x, y = _arr(dd_per_day), _arr(use_per_day)
     if x.shape != y.shape:
         raise ValueError(f"dd_per_day and use_per_day differ in length: {x.size} != {y.size}")
+    rec = np.zeros(x.shape, dtype=bool) if recent is None else np.asarray(recent, dtype=bool)
+    if rec.shape != x.shape:
+        raise ValueError(f"recent has {rec.size} flags for {x.size} periods")
     ok = np.isfinite(x) & np.isfinite(y)
     title = "Use per day against degree days per day"
     if not ok.any():
@@ -237,13 +245,16 @@ def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[floa
                        f'y2="{float(f.py(yb)):.1f}" stroke="{INK}" stroke-width="1.4"{dash}/>')
             legend.append((dash, label))
     px, py = f.px(xs), f.py(ys)
-    # all period circles as one path (one SVG node to draw), each circle of radius 2.6 as four
-    # cubic Bezier quarters (control points at 0.55 r, the usual circle approximation):
+    rk = rec[ok]
+    # all period circles of one kind as one path (one SVG node to draw), each circle of radius
+    # 2.6 as four cubic Bezier quarters (control points at 0.55 r, the usual circle approximation):
     # WeasyPrint turns SVG arcs into Beziers in Python, measured 12.5k more Python calls
     # per sheet than writing the Beziers (DEVELOPERS.md "Rendering")
-    out.append('<path class="periods" d="' + "".join(
-        f"M{a - 2.6:.1f} {b:.1f}c0-1.4 1.2-2.6 2.6-2.6s2.6 1.2 2.6 2.6-1.2 2.6-2.6 2.6-2.6-1.2-2.6-2.6z"
-        for a, b in zip(px.tolist(), py.tolist())) + f'" fill="#fff" stroke="{INK}" stroke-width="1"/>')
+    for sel, fill, cls in ((~rk, "#fff", "periods"), (rk, MID, "periods recent")):
+        if sel.any():
+            out.append(f'<path class="{cls}" d="' + "".join(
+                f"M{a - 2.6:.1f} {b:.1f}c0-1.4 1.2-2.6 2.6-2.6s2.6 1.2 2.6 2.6-1.2 2.6-2.6 2.6-2.6-1.2-2.6-2.6z"
+                for a, b in zip(px[sel].tolist(), py[sel].tolist())) + f'" fill="{fill}" stroke="{INK}" stroke-width="1"/>')
     dropped = int((~ok).sum())
     if not annotate:
         out.append("</svg>")

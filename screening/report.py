@@ -343,12 +343,18 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     if periods:
         xs = [p.get("dd_per_day") for p in periods]
         ys = [p.get("use_per_day") for p in periods]
+        # periods that start in the analysis window are drawn filled, earlier ones of the fit open
+        span_start = str(s.get("period_start") or "")
+        recent = [bool(span_start) and str(p.get("start") or "") >= span_start for p in periods]
         chart1 = charts.scatter_chart(xs, ys, fit_line=s.get("fit_line"), expected_line=s.get("expected_line"),
-                                      x_label="", y_label="", width=360, height=170, annotate=False)
+                                      x_label="", y_label="", width=360, height=170, annotate=False,
+                                      recent=recent)
         dropped = sum(1 for x, y in zip(xs, ys) if not (_finite(x) and _finite(y)))
         chart1_title = "Heating use against the weather, by billing period"
         chart1_axes = f"up: use per day [{eu}/day]; across: degree days per day [{dd_unit}/day]"
-        chart1_caption = ("Circles: billing periods. Solid line: fitted to the meter data; dashed line: what the "
+        circles = ("Grey circles: billing periods of the window; open circles: earlier periods of the fit."
+                   if any(recent) and not all(recent) else "Circles: billing periods.")
+        chart1_caption = (circles + " Solid line: fitted to the meter data; dashed line: what the "
                           "envelope (UA) and the weather predict."
                           + (f" {dropped} period(s) not plotted (missing value)." if dropped else ""))
     else:

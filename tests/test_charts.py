@@ -205,3 +205,19 @@ def test_fmt_tick():
     assert charts.fmt_tick(1.5e6) == "1.5M"      # by hand
     assert charts.fmt_tick(2.5) == "2.5"
     assert charts.fmt_tick(1e12) == "1e+12"
+
+
+def test_periods_of_the_window_are_filled_and_earlier_ones_open():
+    root = parse(charts.scatter_chart([5, 10, 15, 20], [50, 100, 150, 200], fit_line=None, expected_line=None,
+                                      x_label="", y_label="", annotate=False, recent=[False, False, True, True]))
+    paths = {p.get("class"): p for p in root.iter(f"{SVG}path") if (p.get("class") or "").startswith("periods")}
+    assert set(paths) == {"periods", "periods recent"}
+    assert paths["periods"].get("fill") == "#fff" and paths["periods recent"].get("fill") == charts.MID
+    assert paths["periods"].get("d").count("M") == 2 and paths["periods recent"].get("d").count("M") == 2
+    plain = parse(charts.scatter_chart([5, 10], [50, 100], fit_line=None, expected_line=None, x_label="",
+                                       y_label="", annotate=False))
+    assert [p.get("class") for p in plain.iter(f"{SVG}path") if (p.get("class") or "").startswith("periods")] \
+        == ["periods"]
+    with pytest.raises(ValueError, match="recent has 1 flags for 2 periods"):
+        charts.scatter_chart([5, 10], [50, 100], fit_line=None, expected_line=None, x_label="", y_label="",
+                             recent=[True])
