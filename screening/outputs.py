@@ -125,7 +125,7 @@ RANKING_COLUMNS = [
     "peer_percentile", "z_score", "z_balance_point", "z_intensity", "evidence_score", "normal_heating", "yoy_change", "z_yoy", "baseload", "heating_slope", "fitted_base", "r2", "cv_rmse",
     "nmbe", "n_periods", "fit_method", "effective_ua", "ua_walls", "ua_windows", "ua_roof", "ua_ground",
     "ua_infiltration", "ua_ventilation", "ua_total", "envelope_source", "excess_energy", "excess_cost",
-    "excess_co2e", "tier", "needs_review", "flags", "data_issues", "change", "previous_rank", "energy_unit",
+    "excess_co2e", "tier", "needs_review", "review_path", "flags", "data_issues", "change", "previous_rank", "energy_unit",
 ]
 
 
@@ -164,7 +164,7 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
         "envelope_source",
         d.energy(pl.col("excess_energy_kbtu")).round(1).alias("excess_energy"),
         pl.col("excess_cost").round(2), pl.col("excess_co2e_kg").round(1).alias("excess_co2e"),
-        "tier", "needs_review",
+        "tier", "needs_review", "review_path",
         pl.col("flag_codes").list.join(";").alias("flags"),
         pl.col("data_issue_codes").list.join(";").alias("data_issues"),
         pl.lit(d.energy_unit).alias("energy_unit"),

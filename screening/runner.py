@@ -416,6 +416,8 @@ def _summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id) ->
                    "blocked_by_data": int(r["blocking"].sum()),
                    "rejected_rows": rejects.height,
                    "per_tier": dict(sorted(per_tier.items())),
+                   "needs_review_by_path": {k: int(v) for k, v in sorted(
+                       r.filter(pl.col("needs_review")).group_by("review_path").len().iter_rows())},
                    "per_flag": {k: int(v) for k, v in sorted(flags.iter_rows())},
                    "per_data_issue": {k: int(v) for k, v in sorted(issues.iter_rows())}},
         # sums over buildings without blocking data problems (those carry no excess)

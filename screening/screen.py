@@ -110,7 +110,8 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     needs_review test; see README "How the audit list is chosen"), ``excess_energy_kbtu`` (metered − the band's top, ≥ 0; the top is P90, at least P50 × (1 + band_floor)), ``excess_energy_central_kbtu``
     (metered − P50, ≥ 0), ``excess_cost, excess_co2e_kg, yoy_change, z_yoy`` (robust z of
     ln(1 + yoy_change) over the portfolio: needs_review's second path, a step up against the
-    previous year), ``flag_codes, flag_texts, needs_review, tier, tier_rank, rank, verdict``.
+    previous year), ``flag_codes, flag_texts, needs_review, review_path`` ("level", "step up",
+    "level and step up" or null), ``tier, tier_rank, rank, verdict``.
     """
     t = thresholds
     # the band is never narrower than ±band_floor around P50: metering, weather and calendarization
@@ -215,6 +216,12 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     out = out.with_columns(
         ((strong | rise) & ~pl.col("blocking")).alias("needs_review"),
         (rise & ~strong).alias("_rise_only"),
+        # which way the building came onto the audit list (README "How the audit list is chosen")
+        pl.when(pl.col("blocking")).then(None)
+        .when(strong & rise).then(pl.lit("level and step up"))
+        .when(strong).then(pl.lit("level"))
+        .when(rise).then(pl.lit("step up"))
+        .otherwise(None).alias("review_path"),
     )
     watch = (pl.col("_f_above_band") | pl.col("_f_high_among_peers") | pl.col("_f_poor_fit")
              | pl.col("_f_rising_use") | pl.col("_f_high_balance_point") | pl.col("_f_high_baseload")

@@ -181,12 +181,13 @@ def test_a_step_up_on_last_year_puts_a_building_on_the_audit_list():
     rows = {x["building_id"]: x for x in res.to_dicts()}
     up = rows["T11"]
     assert up["yoy_change"] == pytest.approx(0.60, abs=0.05)
-    assert up["z_yoy"] >= 4.0 and up["needs_review"] is True
+    assert up["z_yoy"] >= 4.0 and up["needs_review"] is True and up["review_path"] == "step up"
     assert "rose" in up["verdict"] and "previous year" in up["verdict"]
     small = rows["T12"]
     assert small["actual_heating_kbtu"] / small["total_fuel_kbtu"] < 0.25   # heating under a quarter of the use
     assert small["needs_review"] is False
     assert not any(rows[bid]["needs_review"] for bid in ids[:10])
+    assert all(rows[bid]["review_path"] is None for bid in ids[:10] + ["T12"])
 
 
 def test_one_summer_bill_ten_times_too_high_is_a_data_issue():
