@@ -243,7 +243,8 @@ def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float)
     return odd.group_by("building_id").agg(pl.col("_d").str.join("; ").alias("detail")).select(
         "building_id", pl.lit("bill_off_fit").alias("code"),
         (pl.lit("bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
-                "after estimated reads, a meter change): ") + pl.col("detail")).alias("detail"),
+                "after estimated reads, a meter change, or weeks the building stood empty): ")
+         + pl.col("detail")).alias("detail"),
         pl.lit(True).alias("blocking")).sort("building_id")
 
 
