@@ -12,7 +12,8 @@ sheets and reported per sheet (they scale linearly); the batched path is timed o
   production path.
 - **warm** (``report.render_sheets_one_by_one``): one document per sheet, but with every
   saving of the batched path except the batching itself: one shared ``FontConfiguration``,
-  stylesheets parsed once, collector paused, pypdf for the /Title. The stricter comparison.
+  stylesheets parsed once, collector paused, the same page writer (``report._write_split``).
+  The stricter comparison.
 
 Wall time per sheet gives the speed-ups; CPU time per sheet (the baselines' process time; for
 the batched path the render threads' CPU time summed over all processes, without their

@@ -215,7 +215,6 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
             & (heat_share >= t["yoy_review_heating_share_min"])).fill_null(False)
     out = out.with_columns(
         ((strong | rise) & ~pl.col("blocking")).alias("needs_review"),
-        (rise & ~strong).alias("_rise_only"),
         # which way the building came onto the audit list (README "How the audit list is chosen")
         pl.when(pl.col("blocking")).then(None)
         .when(strong & rise).then(pl.lit("level and step up"))
@@ -258,7 +257,7 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         "heating_intensity", "peer_median_intensity", "peer_percentile", "peer_group", "z_score",
         "baseload_share", "baseload_share_default", "fitted_base_f", "r2", "cv_rmse", "yoy_change",
         "tier", "needs_review", "blocking", "excess_energy_kbtu", "evidence_score", "z_balance_point", "z_intensity",
-        "z_yoy", "_rise_only", "span_kind", "data_issue_codes",
+        "z_yoy", "review_path", "span_kind", "data_issue_codes",
         *[c for c in out.columns if c.startswith("_f_")]).to_dicts()
     e = energy_factor
     codes_all, texts_all, verdicts = [], [], []
@@ -299,7 +298,7 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         if r["blocking"]:
             v = ("A data problem (" + ", ".join(r["data_issue_codes"] or []) + ") must be fixed before this "
                  "building can be judged.")
-        elif r["needs_review"] and r["_rise_only"]:
+        elif r["review_path"] == "step up":
             v = (f"Weather-normalized heating rose {_fmt(100 * r['yoy_change'])} % on the previous year, far beyond "
                  f"the portfolio's year-on-year spread (z {_fmt(r['z_yoy'], 1)} against {t['yoy_review_z']:g}); it is "
                  f"now {_fmt(r['ratio'], 2)}× the expectation. Something changed: recommend an audit.")

@@ -28,9 +28,10 @@ from screening import pipeline, runner
 
 from .conftest import cli, tree_digest, write_portfolio
 
-ENOSPC = OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))    # "No space left on device"
 
-
+def _no_space(*a, **k):
+    """A write that finds the disk full ("No space left on device")."""
+    raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
 
 
 class Site:
@@ -73,9 +74,7 @@ def _one_error_line(res, pattern: str) -> str:
 # ----------------------------------------------------------------------------- full disk
 
 def test_disk_full_while_writing_the_csv_files(site, monkeypatch):
-    def full(self, *a, **k):
-        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
-    monkeypatch.setattr(pl.DataFrame, "write_csv", full)
+    monkeypatch.setattr(pl.DataFrame, "write_csv", _no_space)
     res = site.run()
     assert res.exit_code == 1, res.stderr
     _one_error_line(res, "No space left on device")
@@ -87,7 +86,7 @@ def test_disk_full_while_writing_summary_json(site, monkeypatch):
 
     def full(self, *a, **k):
         if self.name == "summary.json":
-            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+            _no_space()
         return real(self, *a, **k)
     monkeypatch.setattr(Path, "write_text", full)
     res = site.run()
@@ -97,9 +96,7 @@ def test_disk_full_while_writing_summary_json(site, monkeypatch):
 
 
 def test_disk_full_is_reported_as_an_output_error_not_a_crash(site, monkeypatch):
-    def full(self, *a, **k):
-        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
-    monkeypatch.setattr(pl.DataFrame, "write_csv", full)
+    monkeypatch.setattr(pl.DataFrame, "write_csv", _no_space)
     res = site.run()
     line = _one_error_line(res, "No space left on device")
     assert line.startswith("ddscreen: error: ") and "internal error" not in line

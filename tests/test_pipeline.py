@@ -146,11 +146,12 @@ def test_heating_up_30_percent_on_last_year_is_flagged_rising():
     assert "rising_use" in row["flag_codes"]
 
 
-def _portfolio_readings(w, ids, factors_year2, *, base_kbtu_day=0.0, noise=0.0, seed=7, level=None):
+def _portfolio_readings(w, ids, factors_year2, *, base_kbtu_day=None, noise=0.0, seed=7, level=None):
     """Two years of monthly bills per building: Q = 24·level·UA·HDD65/η + baseload (η 0.8), the
     second year's heating × factors_year2[id]; multiplicative noise (seeded) on every bill."""
     rng = np.random.default_rng(seed)
     level = level or {}
+    base_kbtu_day = base_kbtu_day or {}
     frames = []
     for k, bid in enumerate(ids):
         ua = level.get(bid, 1.0) * UA
@@ -158,8 +159,7 @@ def _portfolio_readings(w, ids, factors_year2, *, base_kbtu_day=0.0, noise=0.0, 
         f2 = _monthly_readings(w, dt.date(2025, 10, 1), 12, factors_year2.get(bid, 1.0) * ua, 0.8)
         r = pl.concat([f1, f2])
         days = ((r["period_end"] - r["period_start"]).dt.total_days() + 1).to_numpy()
-        q = (r["quantity"].to_numpy() + base_kbtu_day.get(bid, 0.0) * days / 100.0
-             if isinstance(base_kbtu_day, dict) else r["quantity"].to_numpy())
+        q = r["quantity"].to_numpy() + base_kbtu_day.get(bid, 0.0) * days / 100.0  # kBtu -> therm
         q = q * np.exp(noise * rng.standard_normal(q.size))
         frames.append(r.with_columns(pl.lit(bid).alias("building_id"), pl.Series("quantity", q),
                                      (pl.col("_line") + 24 * k).alias("_line")))

@@ -283,6 +283,7 @@ def test_a_script_without_a_main_guard_renders_with_workers(tmp_path, how):
     # A caller's script read from stdin, or a file without `if __name__ == "__main__":`, must not
     # run again in the render workers (forkserver children import the parent's __main__ first):
     # the marker file would then hold more than one line.
+    import os
     import subprocess
     import sys
 
@@ -303,7 +304,7 @@ def test_a_script_without_a_main_guard_renders_with_workers(tmp_path, how):
     else:
         (tmp_path / "job.py").write_text(script, encoding="utf-8")
         proc = subprocess.run([sys.executable, str(tmp_path / "job.py")], capture_output=True, text=True,
-                              cwd=root, timeout=120, env={**__import__("os").environ, "PYTHONPATH": root})
+                              cwd=root, timeout=120, env={**os.environ, "PYTHONPATH": root})
     assert proc.returncode == 0, proc.stderr[-2000:]
     assert proc.stdout.strip() == "4"
     assert marker.read_text().count("x") == 1
