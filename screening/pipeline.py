@@ -113,15 +113,13 @@ def load_inputs(store: Store, files: dict[str, list[str]], opts: ReadOptions, *,
             p = {"path": path}
             if kind == "buildings":
                 store.execute("delete_buildings_from_file", p)
-                store.execute("upsert_buildings", p, stage_buildings=loaded.df)
+                store.execute("insert_buildings", p, stage_buildings=loaded.df)
             elif kind == "readings":
                 store.execute("delete_readings_from_file", p)
-                store.execute("delete_readings_of_stage", stage_readings=loaded.df)
-                store.execute("upsert_readings", p, stage_readings=loaded.df)
+                store.execute("insert_readings", p, stage_readings=loaded.df)
             else:
                 store.execute("delete_weather_from_file", p)
-                store.execute("delete_weather_of_stage", stage_weather=loaded.df)
-                store.execute("upsert_weather", p, stage_weather=loaded.df)
+                store.execute("insert_weather", p, stage_weather=loaded.df)
             store.execute("delete_load_rejects", {"kind": kind, "path": path})
             store.execute("insert_load_rejects", {"kind": kind, "path": path},
                           stage_rejects=loaded.rejects.cast(REJECT_SCHEMA))
@@ -130,7 +128,20 @@ def load_inputs(store: Store, files: dict[str, list[str]], opts: ReadOptions, *,
                                                 "rows_rejected": loaded.rejects.height})
             out.append(FileLoad(kind, path, digest, "loaded", loaded.df.height, loaded.rejects.height,
                                 loaded.notices))
+        _forget_other_files(store, files)
     return out
+
+
+def _forget_other_files(store: Store, files: dict[str, list[str]]) -> None:
+    """Drop the stored rows of files the run does not name (any more): what is screened is
+    exactly the content of the files named now."""
+    forget = {"buildings": "forget_buildings_of_other_files", "readings": "forget_readings_of_other_files",
+              "weather": "forget_weather_of_other_files"}
+    for kind in KINDS:
+        paths = [str(p) for p in files.get(kind, [])]
+        store.execute(forget[kind], {"paths": paths})
+        store.execute("forget_load_rejects_of_other_files", {"kind": kind, "paths": paths})
+        store.execute("forget_other_input_files", {"kind": kind, "paths": paths})
 
 
 # ---------------------------------------------------------------------------- screening
@@ -155,16 +166,21 @@ def base_grid(cfg: dict) -> np.ndarray:
     return np.round(a["base_min_f"] + a["base_step_f"] * np.arange(n), 6)
 
 
+def _source(frame: pl.DataFrame, paths: dict, kind: str) -> pl.Expr:
+    """The file a row came from: its ``_file`` column (several files of a kind) or the kind's one path."""
+    return pl.col("_file") if "_file" in frame.columns else pl.lit(paths.get(kind, kind))
+
+
 def _cross_check(b: pl.DataFrame, r: pl.DataFrame, stations: list[str], paths: dict) -> tuple:
     st = pl.Series(stations, dtype=pl.String).implode()
     bad_b = b.filter(~pl.col("station_id").is_in(st))
-    rej = [bad_b.select(pl.lit(paths.get("buildings", "buildings")).alias("file"), pl.col("_line").alias("line"),
+    rej = [bad_b.select(_source(b, paths, "buildings").alias("file"), pl.col("_line").alias("line"),
                         pl.lit("station_id").alias("column"), pl.col("station_id").alias("value"),
                         pl.lit("unknown station (not in the weather data)").alias("reason"))]
     b = b.filter(pl.col("station_id").is_in(st))
     ids = b["building_id"].implode()
     bad_r = r.filter(~pl.col("building_id").is_in(ids))
-    rej.append(bad_r.select(pl.lit(paths.get("readings", "readings")).alias("file"), pl.col("_line").alias("line"),
+    rej.append(bad_r.select(_source(r, paths, "readings").alias("file"), pl.col("_line").alias("line"),
                             pl.lit("building_id").alias("column"), pl.col("building_id").alias("value"),
                             pl.lit("unknown building (not among the accepted buildings)").alias("reason")))
     r = r.filter(pl.col("building_id").is_in(ids))
@@ -270,7 +286,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     grid = base_grid(cfg)
     stations = sorted(weather["station_id"].unique().to_list())
     b, r, rejects = _cross_check(buildings, readings, stations, paths)
-    b = b.sort("building_id")
+    b = b.drop("_file", strict=False).sort("building_id")
     if b.height == 0:
         raise InputError(paths.get("buildings", "buildings"), "no building could be screened",
                          expected="at least one accepted building with a known weather station")
@@ -286,8 +302,9 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     # metered side
     conv, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=a["gas_btu_per_ft3"],
                                           steam_btu_per_lb=a["steam_btu_per_lb"])
+    conv = conv.drop("_file", strict=False)
     if conv_rej.height:
-        rejects = pl.concat([rejects, conv_rej.select(pl.lit(paths.get("readings", "readings")).alias("file"),
+        rejects = pl.concat([rejects, conv_rej.select(_source(conv_rej, paths, "readings").alias("file"),
                                                       "line", "column", pl.col("value").cast(pl.String), "reason")
                              .cast(REJECT_SCHEMA)])
     thr = cfg["thresholds"]

@@ -18,12 +18,14 @@ import tempfile
 import time
 import traceback
 import uuid
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import duckdb
 import polars as pl
 
-from . import __version__, config as cfgmod, outputs, pipeline
+from . import __version__, config as cfgmod, outputs, pipeline, published, sources
 from .errors import (ConfigError, InputError, LockedError, OutputError, ScreeningError, StoreError)
 from .ingest import REJECT_SCHEMA
 from .resources import sample_portfolio_dir
@@ -50,7 +52,7 @@ class RunResult:
 def _expand(pattern: str, kind: str) -> list[str]:
     if not pattern:
         raise ConfigError(f"no {kind} file given: pass --{kind} FILE or set [inputs] {kind} in the config")
-    if any(ch in pattern for ch in "*?["):
+    if any(ch in pattern for ch in "*?[") and not Path(pattern).exists():  # "bills [2026].csv" is a name
         found = sorted(glob.glob(pattern))
         if not found:
             raise InputError(pattern, f"no {kind} file matches this pattern")
@@ -59,7 +61,6 @@ def _expand(pattern: str, kind: str) -> list[str]:
 
 
 def _versions() -> dict:
-    import duckdb
     import numpy
     import weasyprint
     return {"ddscreen": __version__, "python": sys.version.split()[0], "polars": pl.__version__,
@@ -143,15 +144,12 @@ def _setup_file_log(path: Path) -> logging.Handler:
     return h
 
 
-def _change_table(store: Store, run_id: str, ranking: pl.DataFrame) -> tuple[pl.DataFrame, str | None]:
+def _change_table(prev_results: pl.DataFrame | None, results: pl.DataFrame) -> pl.DataFrame:
     """The change of each building since the latest successful run of an earlier quarter."""
-    prev = store.rows("previous_quarter_ok_run", {"run_id": run_id})
-    if not prev:
-        return pl.DataFrame(), None
-    prev_id = prev[0][0]
-    old = store.frame("results_of_run", {"run_id": prev_id})
-    new = ranking.select("building_id", "rank", pl.col("flag_codes").list.join(";").alias("flags"))
-    return diff_results(old, new), prev_id
+    if prev_results is None:
+        return pl.DataFrame()
+    new = results.select("building_id", "rank", pl.col("flag_codes").list.join(";").alias("flags"))
+    return diff_results(prev_results, new)
 
 
 def diff_results(old: pl.DataFrame, new: pl.DataFrame) -> pl.DataFrame:
@@ -209,9 +207,10 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
     else:
         root = Path(cfg["output"]["root"])
         target = root / label
-    if target.exists() and root is not None and not force and (target / "summary.json").exists():
-        raise ConfigError(f"{target} already holds the outputs of {label}; nothing was changed "
-                          "(use --force to replace them)")
+    if root is not None:
+        published.check_latest_slot(root)
+    if not Path(db_path).exists():
+        published.check_target(None, target, label, force=force)  # no database: nothing here is ours
     try:
         target.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -230,28 +229,46 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
 
 def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_of, window, *, force, config_path,
                 bar: "_Progress | None" = None):
+    """The run under the lock, in three phases.
+
+    1. With the database open: settle what dead runs left, check the output folder (a refusal
+       changes nothing of the user's), record the run, load the inputs, read what the
+       screening needs. 2. With the database closed (``status`` and ``history`` can read it):
+       screen and write every output into a temporary folder. 3. With the database open again:
+       record the results and the files about to be published, rename the folder into place,
+       mark the run ``ok``, point ``latest`` and prune. A kill at any point leaves the folder
+       and the record in a state the next run settles (``published.settle_dead_runs``).
+    """
     bar = bar or _Progress(False)
     t_start = time.perf_counter()
     run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
     run_key = _run_key(label, cfg, files)  # the same for a rerun of the same quarter, inputs and settings
+    store = Store(db_path)
+    try:
+        notes = _clean_stale_temp(target, None)
+        notes += published.settle_dead_runs(store)  # we hold the lock: a run still open has died
+        published.check_target(store, target, label, force=force)
+    except BaseException:
+        store.close()
+        raise
     try:
         tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
     except OSError as exc:
+        store.close()
         raise OutputError(f"{target.parent}: cannot write there ({exc.strerror or exc}); earlier outputs untouched") from None
     umask = os.umask(0)
     os.umask(umask)
     os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes it private; the published folder is for readers
     handler = _setup_file_log(tmp / "run.log")
     timings: dict[str, float] = {}
-    store = None
+    publishing = False
     try:
         log.info("run %s: window %s to %s, database %s", run_id, window[0], window[1], db_path)
-        store = Store(db_path)
-        store.execute("mark_stale_runs")  # we hold the lock: a run still 'running' has died
-        _clean_stale_temp(target, tmp)
+        for n in notes:
+            log.warning("%s", n)
         store.execute("insert_run", {"run_id": run_id, "run_key": run_key, "label": label, "as_of": as_of,
-                                     "window_start": window[0], "window_end": window[1], "out_dir": str(target),
-                                     "config_hash": cfgmod.config_hash(cfg)})
+                                     "window_start": window[0], "window_end": window[1],
+                                     "out_dir": published.folder_key(target), "config_hash": cfgmod.config_hash(cfg)})
         opts = pipeline.read_options(cfg)
         t = time.perf_counter()
         bar.stage("load inputs")
@@ -262,21 +279,25 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             for n in fl.notices:
                 log.warning("%s", n)
         _stage("after_load")
-        bar.stage("screen")
-        b = store.frame("select_buildings")
-        r = store.frame("select_readings")
-        w = store.frame("select_weather")
+        b, r, w, cross_rej = _stored_inputs(store)
         if w.height == 0:
             raise InputError(files["weather"][0], "no usable weather rows", expected="daily station data")
+        load_rej = store.frame("select_load_rejects")
+        previous = _year_ago(store, window)
+        prev = store.rows("previous_quarter_ok_run", {"run_id": run_id})
+        prev_results = store.frame("results_of_run", {"run_id": prev[0][0]}) if prev else None
+        store.close()  # phase 2: the database stays free for readers
+        store = None
+        bar.stage("screen")
         paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
-        res = pipeline.screen_frames(b, r, w, cfg, window=window, paths=paths, previous=_year_ago(store, window))
+        res = pipeline.screen_frames(b, r, w, cfg, window=window, paths=paths, previous=previous)
         timings.update(res.timings)
         _stage("after_screen")
         bar.stage("write tables")
-        load_rej = store.frame("select_load_rejects")
-        rejects = outputs.rejects_table(pl.concat([load_rej.cast(REJECT_SCHEMA), res.rejects.cast(REJECT_SCHEMA)]))
+        rejects = outputs.rejects_table(pl.concat([load_rej.cast(REJECT_SCHEMA), cross_rej.cast(REJECT_SCHEMA),
+                                                   res.rejects.cast(REJECT_SCHEMA)]))
         disp = outputs.Display(cfg["analysis"]["units"])
-        change, prev_id = _change_table(store, run_id, res.results)
+        change = _change_table(prev_results, res.results)
         ranking = outputs.ranking_table(res.results, disp, change)
         t = time.perf_counter()
         outputs.write_csv(ranking, tmp / "ranking.csv")
@@ -284,7 +305,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
         outputs.write_csv(outputs.assumptions_table(res.envelope, disp), tmp / "assumptions.csv")
         timings["csv"] = round(time.perf_counter() - t, 4)
-        summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev_id)
+        summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev[0][1] if prev else None)
         paper = cfg["output"]["paper"]
         paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
         from . import report
@@ -295,7 +316,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                                            run_date=str(_dt.date.today()), currency=cfg["prices"]["currency"])
             (tmp / "sheets").mkdir()
             names = report.assign_filenames([s["building_id"] for s in sheets])
-            report.render_sheets(sheets, tmp / "sheets", paper=paper, workers=cfg["output"]["workers"])
+            report.render_sheets(sheets, tmp / "sheets", paper=paper, workers=_workers(cfg["output"]["workers"]))
             timings["sheets"] = round(time.perf_counter() - t, 4)
             outputs.write_csv(pl.DataFrame({"building_id": list(names), "file": [f"sheets/{v}.pdf" for v in names.values()]}),
                               tmp / "sheets_index.csv")
@@ -310,26 +331,32 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         timings["total"] = round(time.perf_counter() - t_start, 4)
         summary["timings_s"] = timings
         outputs.write_json(_deterministic(summary), tmp / "summary.json")
-        # record results, then move the folder into place
         stage = _results_for_store(run_id, res.results)
+        bar.stage("publish")
+        log.info("run %s finished in %.1f s", run_id, timings["total"])
+        log.removeHandler(handler)
+        handler.close()
+        # phase 3: record what is about to be published, publish, mark it done
+        files_written = published.manifest(tmp)
+        store = Store(db_path)
         with store.transaction():
             store.execute("delete_results_of_run", {"run_id": run_id})
             store.execute("insert_results", stage_results=stage)
             store.execute("delete_rejects_of_run", {"run_id": run_id})
             store.execute("insert_rejects", {"run_id": run_id}, stage_rejects=rejects)
+            store.execute("record_publishing", {
+                "run_id": run_id, "input_hashes": json.dumps({f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads}),
+                "versions": json.dumps(summary["versions"]), "timings": json.dumps(timings),
+                "counts": json.dumps(summary["counts"]), "out_dir": published.folder_key(target),
+                "files": json.dumps(files_written, sort_keys=True)})
+        publishing = True
         _stage("before_publish")
-        bar.stage("publish")
-        log.info("run %s finished in %.1f s", run_id, timings["total"])
-        log.removeHandler(handler)
-        handler.close()
         _publish(tmp, target)
+        _stage("after_publish")
+        store.execute("set_run_status", {"run_id": run_id, "status": "ok", "message": ""})
+        _stage("after_record")
         if root is not None:
-            _point_latest(root, target)
-            _prune(root, cfg["output"]["keep"], keep_name=target.name)
-        store.execute("finish_run", {"run_id": run_id, "status": "ok", "input_hashes": json.dumps(
-            {f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads}), "versions": json.dumps(summary["versions"]),
-            "timings": json.dumps(timings), "counts": json.dumps(summary["counts"]), "message": "",
-            "out_dir": str(target)})
+            _tidy_root(root, store, cfg["output"]["keep"], target)
         top = ranking.filter(pl.col("needs_review")).head(5).select("rank", "building_id", "name", "tier", "ratio",
                                                                     "excess_cost").to_dicts()
         return RunResult(run_id, label, target, str(db_path), summary, top, loads)
@@ -344,17 +371,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         log.debug("%s", traceback.format_exc())
         log.removeHandler(handler)
         handler.close()
-        if store is not None:
-            try:
-                if isinstance(exc, (InputError, ConfigError)) and "ingest" not in timings:
-                    # bad input stops the run before anything is written: leave no trace of it
-                    store.execute("delete_run", {"run_id": run_id})
-                else:
-                    store.execute("finish_run", {"run_id": run_id, "status": "failed", "input_hashes": "{}",
-                                                 "versions": "{}", "timings": json.dumps(timings), "counts": "{}",
-                                                 "message": str(exc)[:500], "out_dir": ""})
-            except Exception:  # the database itself may be the problem
-                pass
+        _record_failure(store, db_path, run_id, exc, timings, publishing=publishing)
+        store = None
         _keep_failure_log(tmp, target, quiet=expected)
         if mapped:
             raise exc from None
@@ -362,6 +380,68 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
     finally:
         if store is not None:
             store.close()
+
+
+def _record_failure(store: Store | None, db_path, run_id: str, exc: BaseException, timings: dict, *,
+                    publishing: bool) -> None:
+    """Mark a failed run in the database (reopening it if the run had closed it)."""
+    try:
+        store = store or Store(db_path)
+    except Exception:  # the database itself may be the problem
+        return
+    try:
+        if isinstance(exc, (InputError, ConfigError)) and "ingest" not in timings:
+            # bad input stops the run before anything is written: leave no trace of it
+            store.execute("delete_run", {"run_id": run_id})
+        elif publishing:  # the rename failed and the earlier outputs were put back (see _publish)
+            store.execute("set_run_status", {"run_id": run_id, "status": "failed", "message": str(exc)[:500]})
+        else:
+            store.execute("finish_run", {"run_id": run_id, "status": "failed", "input_hashes": "{}",
+                                         "versions": "{}", "timings": json.dumps(timings), "counts": "{}",
+                                         "message": str(exc)[:500], "out_dir": ""})
+    except Exception:  # the database itself may be the problem
+        pass
+    finally:
+        store.close()
+
+
+def _tidy_root(root: Path, store: Store, keep: int, target: Path) -> None:
+    """After a published run: ``latest`` to the newest quarter, old quarters pruned.
+
+    The run is published and recorded by now, so a failure here is a warning, not a failed
+    run; the next run does both again.
+    """
+    try:
+        published.point_latest(root, store)
+        for note in published.prune(root, keep, store, current=target):
+            log.info("%s", note)
+    except (OSError, ScreeningError) as exc:
+        log.warning("the outputs are published, but tidying %s failed (%s); the next run tries again", root, exc)
+
+
+def _workers(wanted: int) -> int:
+    """Sheet renderers: as configured, at most one per core of this machine."""
+    cores = os.cpu_count() or 1
+    if wanted > cores:
+        log.info("workers = %d capped to the %d core(s) of this machine", wanted, cores)
+    return max(1, min(wanted, cores))
+
+
+def _stored_inputs(store: Store) -> tuple[pl.DataFrame, pl.DataFrame, pl.DataFrame, pl.DataFrame]:
+    """The stored rows of the files the run names, one row per key across files (see ``sources``)."""
+    frames, rejects = [], []
+    for name, spec in (("select_buildings", sources.BUILDINGS), ("select_readings", sources.READINGS),
+                       ("select_weather", sources.WEATHER)):
+        df, rej, notices = sources.one_row_per_key(store.frame(name), spec)
+        for n in notices:
+            log.warning("%s", n)
+        if df.height == 0 or df[sources.FILE_COL].n_unique() <= 1:
+            df = df.drop(sources.FILE_COL)  # one file: the path is the kind's
+        if name == "select_weather":
+            df = df.drop(sources.LINE_COL, sources.FILE_COL, strict=False)
+        frames.append(df)
+        rejects.append(rej)
+    return frames[0], frames[1], frames[2], pl.concat(rejects)
 
 
 def _run_key(label: str, cfg: dict, files: dict[str, list[str]]) -> str:
@@ -466,24 +546,7 @@ def _publish(tmp: Path, target: Path) -> None:
         shutil.rmtree(old, ignore_errors=True)
 
 
-def _point_latest(root: Path, target: Path) -> None:
-    link = root / "latest"
-    tmp_link = root / f".latest-{uuid.uuid4().hex[:6]}"
-    os.symlink(target.name, tmp_link)
-    os.replace(tmp_link, link)
-
-
-def _prune(root: Path, keep: int, *, keep_name: str) -> None:
-    if keep <= 0:
-        return
-    dirs = sorted([p for p in root.iterdir() if p.is_dir() and not p.is_symlink() and not p.name.startswith(".")
-                   and (p / "summary.json").exists()], key=lambda p: p.name)
-    for p in dirs[:-keep]:
-        if p.name != keep_name:
-            shutil.rmtree(p, ignore_errors=True)
-
-
-def _clean_stale_temp(target: Path, current: Path) -> None:
+def _clean_stale_temp(target: Path, current: Path | None) -> list[str]:
     """Tidy what runs that died left in the output folder (called under the lock).
 
     A temporary folder ``.<label>.tmp-*`` is removed; its log is kept beside the target as
@@ -492,18 +555,21 @@ def _clean_stale_temp(target: Path, current: Path) -> None:
     removed otherwise.
     """
     parent = target.parent
+    notes: list[str] = []
     for p in sorted(parent.glob(".*.old-*")):
-        if not p.is_dir() or p.is_symlink():
-            continue
+        if not p.is_dir() or p.is_symlink() or not (p / published.ANCHOR).is_file():
+            continue  # a set-aside folder of ours always holds its summary
         home = parent / p.name[1:].rsplit(".old-", 1)[0]
         if not home.exists() and not home.is_symlink():
             os.replace(p, home)
-            log.warning("restored %s, set aside by an interrupted run", home)
+            notes.append(f"restored {home}, set aside by an interrupted run")
         else:
             shutil.rmtree(p, ignore_errors=True)
     for p in sorted(parent.glob(".*.tmp-*")):
         if p == current or not p.is_dir() or p.is_symlink():
             continue
+        if any(x.name != "run.log" for x in p.iterdir()) and not (p / "run.log").is_file():
+            continue  # ours start with their run.log at once (or are still empty)
         name = p.name[1:].rsplit(".tmp-", 1)[0]
         logf = p / "run.log"
         try:
@@ -513,7 +579,8 @@ def _clean_stale_temp(target: Path, current: Path) -> None:
         except OSError:
             pass
         shutil.rmtree(p, ignore_errors=True)
-        log.info("removed %s, left by an interrupted run", p)
+        notes.append(f"removed {p}, left by an interrupted run")
+    return notes
 
 
 def _keep_failure_log(tmp: Path, target: Path, *, quiet: bool = False) -> None:
@@ -543,11 +610,27 @@ def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: b
     return _demo_run(overrides, out, progress=progress)
 
 
+# Every top-level name a run writes into its output folder (tests/test_unattended.py checks
+# that a run writes nothing else): the demo, which writes into a folder of its own choosing,
+# replaces only these, and only when they are what its previous run wrote.
+OUTPUT_NAMES = ("assumptions.csv", "data_issues.csv", "ranking.csv", "ranking.pdf", "rejects.csv", "run.log",
+                "sheets", "sheets_index.csv", "summary.json")
+
+
 def _demo_run(overrides: dict, out: Path, *, progress: bool = False) -> RunResult:
-    """Run into ``out`` directly: files are replaced one by one after a complete run in a temp folder."""
+    """Run into ``out`` directly: files are replaced one by one after a complete run in a temp folder.
+
+    An output name in ``out`` that the previous demo run did not write (or that was changed
+    since) stops the demo before anything is written (exit 2).
+    """
     tmp_out = out / ".run"
+    foreign = _demo_foreign(out, Path(overrides["store"]["database"]), tmp_out)
+    if foreign:
+        raise ConfigError(f"{out}: holds {', '.join(foreign[:3])}{' and more' if len(foreign) > 3 else ''}, "
+                          "which ddscreen demo did not write (or which were changed since); nothing was changed "
+                          "(choose another --out folder)")
     if tmp_out.exists():
-        shutil.rmtree(tmp_out)
+        shutil.rmtree(tmp_out)  # what a killed demo left
     res = run(overrides=overrides, out_dir=str(tmp_out), force=True, progress=progress)
     for p in tmp_out.iterdir():
         dest = out / p.name
@@ -559,6 +642,27 @@ def _demo_run(overrides: dict, out: Path, *, progress: bool = False) -> RunResul
     tmp_out.rmdir()
     res.out_dir = out
     return res
+
+
+def _demo_foreign(out: Path, db: Path, tmp_out: Path) -> list[str]:
+    """Output names in ``out`` that the previous demo run (recorded in ``db``) did not write."""
+    files: dict[str, str] = {}
+    if db.exists():
+        with _read_store(str(db)) as store:
+            try:
+                rows = store.rows("published_files_of_folder", {"out_dir": published.folder_key(tmp_out)})
+            except (StoreError, duckdb.Error):  # a database of version 1 records no files
+                rows = []
+        if rows:
+            files = json.loads(rows[0][1])
+    bad: list[str] = []
+    for name in OUTPUT_NAMES:
+        p = out / name
+        if not (p.exists() or p.is_symlink()):
+            continue
+        rels = [f"{name}/{r}" for r in published.entries(p)] if p.is_dir() and not p.is_symlink() else [name]
+        bad += [r for r in rels if not published.matches(out, files, r)]
+    return bad
 
 
 @dataclass
@@ -613,19 +717,19 @@ def validate(buildings: str, readings: str, weather: str, *, config_path: str | 
 
 
 def status(db_path: str, limit: int = 10) -> pl.DataFrame:
-    """The last runs recorded in the database, newest first."""
-    if not Path(db_path).exists():
-        raise StoreError(f"{db_path}: no database here yet (run ddscreen run first)")
-    with Store(db_path, read_only=True) as store:
-        return store.frame("list_runs", {"limit": limit})
+    """The last runs recorded in the database, newest first.
+
+    A run whose process died shows as ``interrupted`` (or ``ok`` when it died after its
+    folder was in place) before the next run records it so; nothing is written here.
+    """
+    with _read_store(db_path) as store:
+        return _as_seen(store, db_path, store.frame("list_runs", {"limit": limit}))
 
 
 def history(db_path: str, run_a: str | None = None, run_b: str | None = None) -> tuple[pl.DataFrame, pl.DataFrame | None]:
     """The list of runs, and the difference between two runs (default: the last two successful)."""
-    if not Path(db_path).exists():
-        raise StoreError(f"{db_path}: no database here yet (run ddscreen run first)")
-    with Store(db_path, read_only=True) as store:
-        runs = store.frame("list_runs", {"limit": 1000})
+    with _read_store(db_path) as store:
+        runs = _as_seen(store, db_path, store.frame("list_runs", {"limit": 1000}))
         ok = runs.filter(pl.col("status") == "ok")["run_id"].to_list()
         if run_a is None and run_b is None:
             if len(ok) < 2:
@@ -639,6 +743,63 @@ def history(db_path: str, run_a: str | None = None, run_b: str | None = None) ->
         old = store.frame("results_of_run", {"run_id": run_a})
         new = store.frame("results_of_run", {"run_id": run_b})
         return runs, diff_results(old, new)
+
+
+READ_WAIT_S = 20.0  # how long status/history wait for a run's brief hold on the database
+
+
+@contextmanager
+def _read_store(db_path: str):
+    """The database opened read-only, waiting while a run holds it for a moment.
+
+    A run holds the database only while it loads inputs and while it records its results
+    (seconds); status and history wait for that, up to ``READ_WAIT_S``.
+    """
+    if not Path(db_path).exists():
+        raise StoreError(f"{db_path}: no database here yet (run ddscreen run first)")
+    deadline = time.monotonic() + READ_WAIT_S
+    while True:
+        try:
+            store = Store(db_path, read_only=True)
+            break
+        except StoreError as exc:
+            if "in use" not in str(exc) or time.monotonic() > deadline:
+                raise
+            time.sleep(0.2)
+    try:
+        yield store
+    finally:
+        store.close()
+
+
+def _lock_held(path: str) -> bool:
+    """Whether a run holds the lock file (tested without creating it)."""
+    try:
+        fh = open(path)
+    except OSError:
+        return False
+    try:
+        fcntl.flock(fh, fcntl.LOCK_SH | fcntl.LOCK_NB)
+    except BlockingIOError:
+        return True
+    finally:
+        fh.close()
+    return False
+
+
+def _as_seen(store: Store, db_path: str, runs: pl.DataFrame) -> pl.DataFrame:
+    """Runs with the status a reader should see: a dead run's open row as the next run will mark it."""
+    open_rows = runs.filter(pl.col("status").is_in(["running", "publishing"]))
+    if open_rows.height == 0:
+        return runs
+    held = _lock_held(str(db_path) + ".lock")
+    try:
+        files = dict((rid, f) for rid, _out, f in store.rows("runs_publishing"))
+    except (StoreError, duckdb.Error):  # a database of version 1 has no files column
+        files = {}
+    seen = [published.display_status(st, od or "", files.get(rid), lock_held=held)
+            for rid, st, od in runs.select("run_id", "status", "out_dir").iter_rows()]
+    return runs.with_columns(pl.Series("status", seen, dtype=pl.String))
 
 
 CONFIG_TEMPLATE_HEADER = """# ddscreen configuration (TOML). Every key is optional; defaults are shown.

@@ -19,6 +19,7 @@ import polars as pl
 from .errors import StoreError
 from .resources import sql_dir
 
+SCHEMA_VERSION = 2  # see sql/schema.sql
 _NAME = re.compile(r"^--\s*name:\s*([A-Za-z0-9_]+)\s*$")
 
 
@@ -81,9 +82,23 @@ class Store:
         self.close()
 
     def create_schema(self) -> None:
+        """Create missing tables and bring a database of an earlier version up to this one."""
+        existed = self._has_table("input_files")
         for name, sql in statements().items():
             if name.startswith("create_"):
                 self.con.execute(sql)
+        version = self.con.execute(statements()["get_schema_version"]).fetchall()
+        if version and int(version[0][0]) >= SCHEMA_VERSION:
+            return
+        if existed:  # a version-1 database: every input is read again on the next load
+            for name in ("migrate_v2_drop_buildings", "migrate_v2_forget_readings", "migrate_v2_forget_weather",
+                         "migrate_v2_forget_rejects", "migrate_v2_forget_inputs", "migrate_v2_runs_files",
+                         "create_buildings"):
+                self.con.execute(statements()[name])
+        self.con.execute(statements()["set_schema_version"], {"version": str(SCHEMA_VERSION)})
+
+    def _has_table(self, table: str) -> bool:
+        return bool(self.con.execute(statements()["has_table"], {"table": table}).fetchall())
 
     def execute(self, name: str, params: dict | None = None, **frames: pl.DataFrame) -> list[tuple]:
         """Run the named statement with bound ``params`` and return all its rows.

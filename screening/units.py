@@ -198,9 +198,11 @@ def convert_to_kbtu(readings: pl.DataFrame, buildings: pl.DataFrame, *,
         .otherwise(None)
     )
     r = r.with_columns(pl.col("quantity").cast(pl.Float64)).with_columns(reason.alias("_reject"))
+    # with several readings files the rows carry their ``_file``, and so do their rejects
+    keep = ["_file"] if "_file" in r.columns else []
     rejects = (r.filter(pl.col("_reject").is_not_null())
-               .select(pl.col("_line").alias("line"), pl.col("_reject").struct.unnest())
-               .select(list(_REJECT_SCHEMA)).cast(_REJECT_SCHEMA).sort("line"))
+               .select(pl.col("_line").alias("line"), pl.col("_reject").struct.unnest(), *keep)
+               .select(*keep, *_REJECT_SCHEMA).cast(_REJECT_SCHEMA).sort(*keep, "line"))
 
     ok = r.filter(pl.col("_reject").is_null())
     is_heat = pl.col("fuel") == pl.col("heating_fuel")

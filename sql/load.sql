@@ -4,31 +4,21 @@
 -- name: delete_buildings_from_file
 DELETE FROM buildings WHERE source_file = $path;
 
--- name: upsert_buildings
-INSERT OR REPLACE INTO buildings BY NAME
+-- name: insert_buildings
+INSERT INTO buildings BY NAME
 SELECT * EXCLUDE (_line), $path AS source_file, _line AS source_line FROM stage_buildings;
 
 -- name: delete_readings_from_file
 DELETE FROM readings WHERE source_file = $path;
 
--- name: delete_readings_of_stage
--- Rows of other files with a key that the staged file now provides (the newer load wins).
-DELETE FROM readings USING stage_readings AS s
-WHERE readings.building_id = s.building_id AND readings.fuel = s.fuel AND readings.meter_id = s.meter_id
-  AND readings.period_start = s.period_start AND readings.period_end = s.period_end;
-
--- name: upsert_readings
+-- name: insert_readings
 INSERT INTO readings BY NAME
 SELECT * EXCLUDE (_line), $path AS source_file, _line AS source_line FROM stage_readings;
 
 -- name: delete_weather_from_file
 DELETE FROM weather_daily WHERE source_file = $path;
 
--- name: delete_weather_of_stage
-DELETE FROM weather_daily USING stage_weather AS s
-WHERE weather_daily.station_id = s.station_id AND weather_daily.date = s.date;
-
--- name: upsert_weather
+-- name: insert_weather
 INSERT INTO weather_daily BY NAME
 SELECT station_id, date, t_min_f, t_max_f, t_mean_f, $path AS source_file, _line AS source_line
 FROM stage_weather;
@@ -48,15 +38,34 @@ SELECT sha256, options_hash, rows_loaded, rows_rejected FROM input_files WHERE k
 INSERT OR REPLACE INTO input_files
 VALUES ($path, $kind, $sha256, $options_hash, $rows_loaded, $rows_rejected, now()::TIMESTAMP);
 
+-- name: forget_buildings_of_other_files
+-- Rows of files the run no longer names (moved away, renamed, a glob that matches less):
+-- a run screens exactly the files it names now.
+DELETE FROM buildings WHERE NOT list_contains($paths, source_file);
+
+-- name: forget_readings_of_other_files
+DELETE FROM readings WHERE NOT list_contains($paths, source_file);
+
+-- name: forget_weather_of_other_files
+DELETE FROM weather_daily WHERE NOT list_contains($paths, source_file);
+
+-- name: forget_load_rejects_of_other_files
+DELETE FROM load_rejects WHERE kind = $kind AND NOT list_contains($paths, path);
+
+-- name: forget_other_input_files
+DELETE FROM input_files WHERE kind = $kind AND NOT list_contains($paths, path);
+
 -- name: select_buildings
-SELECT * EXCLUDE (source_file, source_line), source_line AS _line FROM buildings ORDER BY building_id;
+SELECT * EXCLUDE (source_file, source_line), source_line AS _line, source_file AS _file FROM buildings
+ORDER BY building_id, source_file, source_line;
 
 -- name: select_readings
-SELECT * EXCLUDE (source_file, source_line), source_line AS _line FROM readings
-ORDER BY building_id, fuel, meter_id, period_start;
+SELECT * EXCLUDE (source_file, source_line), source_line AS _line, source_file AS _file FROM readings
+ORDER BY building_id, fuel, meter_id, period_start, source_file, source_line;
 
 -- name: select_weather
-SELECT station_id, date, t_min_f, t_max_f, t_mean_f FROM weather_daily ORDER BY station_id, date;
+SELECT station_id, date, t_min_f, t_max_f, t_mean_f, source_line AS _line, source_file AS _file
+FROM weather_daily ORDER BY station_id, date, source_file, source_line;
 
 -- name: select_station_ids
 SELECT DISTINCT station_id FROM weather_daily ORDER BY station_id;

@@ -14,9 +14,38 @@ UPDATE runs SET finished_at = now()::TIMESTAMP, status = $status, input_hashes =
     versions = $versions, timings = $timings, counts = $counts, message = $message, out_dir = $out_dir
 WHERE run_id = $run_id;
 
+-- name: record_publishing
+-- Everything of a finished run, recorded just before its folder is renamed into place;
+-- 'publishing' becomes 'ok' right after the rename. A run that died in between is settled
+-- by the next one from what the folder holds (its files' hashes against `files`).
+UPDATE runs SET finished_at = now()::TIMESTAMP, status = 'publishing', input_hashes = $input_hashes,
+    versions = $versions, timings = $timings, counts = $counts, message = '', out_dir = $out_dir,
+    files = $files
+WHERE run_id = $run_id;
+
+-- name: set_run_status
+UPDATE runs SET status = $status, message = $message WHERE run_id = $run_id;
+
+-- name: runs_publishing
+SELECT run_id, out_dir, files FROM runs WHERE status = 'publishing' ORDER BY started_at, run_id;
+
 -- name: mark_stale_runs
 -- Runs left 'running' by a process that died are marked as interrupted.
-UPDATE runs SET status = 'interrupted' WHERE status = 'running';
+UPDATE runs SET status = 'interrupted', message = 'the process ended before the run finished'
+WHERE status = 'running';
+
+-- name: published_files_of_folder
+-- What the runs that published into a folder recorded, newest first: the folder is the
+-- tool's own when its files match one of these.
+SELECT run_id, files FROM runs
+WHERE out_dir = $out_dir AND files IS NOT NULL AND status IN ('ok', 'publishing')
+ORDER BY started_at DESC, run_id DESC;
+
+-- name: published_folders
+-- Every folder a successful run published, with the newest window it holds.
+SELECT out_dir, max(window_end) AS window_end, max(started_at) AS started_at FROM runs
+WHERE status = 'ok' AND files IS NOT NULL AND out_dir <> ''
+GROUP BY out_dir ORDER BY window_end DESC, started_at DESC, out_dir;
 
 -- name: delete_results_of_run
 DELETE FROM results WHERE run_id = $run_id;
@@ -47,7 +76,7 @@ FROM results WHERE run_id = $run_id ORDER BY building_id;
 -- The latest successful run of an earlier window than the given run's: what a quarter is
 -- compared with. A rerun of the same quarter is compared with the same earlier quarter,
 -- so its outputs are identical.
-SELECT run_id FROM runs
+SELECT run_id, run_key FROM runs
 WHERE status = 'ok' AND run_id <> $run_id
   AND window_end < (SELECT window_end FROM runs WHERE run_id = $run_id)
 ORDER BY window_end DESC, started_at DESC, run_id DESC LIMIT 1;

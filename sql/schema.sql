@@ -3,7 +3,9 @@
 
 -- name: create_buildings
 CREATE TABLE IF NOT EXISTS buildings (
-    building_id VARCHAR PRIMARY KEY,
+    -- one row per building and source file: a building given by two files is resolved
+    -- when a run selects its rows (screening/sources.py), never by load order
+    building_id VARCHAR,
     name VARCHAR,
     station_id VARCHAR,
     use_type VARCHAR,
@@ -49,9 +51,9 @@ CREATE TABLE IF NOT EXISTS readings (
     cost DOUBLE,
     source_file VARCHAR,
     source_line BIGINT
-    -- key (building_id, fuel, meter_id, period_start, period_end): kept unique by load.sql
-    -- (delete the file's old rows and any row with a staged key, then insert); no index, because
-    -- DuckDB's index makes a reload of a large file several times slower
+    -- key (building_id, fuel, meter_id, period_start, period_end): unique within a file (ingest);
+    -- across the files a run names, resolved when the run selects its rows (screening/sources.py);
+    -- no index, because DuckDB's index makes a reload of a large file several times slower
 );
 
 -- name: create_weather_daily
@@ -63,7 +65,7 @@ CREATE TABLE IF NOT EXISTS weather_daily (
     t_mean_f DOUBLE,
     source_file VARCHAR,
     source_line BIGINT
-    -- key (station_id, date): kept unique by load.sql, as for readings
+    -- key (station_id, date): as for readings
 );
 
 -- name: create_input_files
@@ -106,7 +108,14 @@ CREATE TABLE IF NOT EXISTS runs (
     versions VARCHAR,
     timings VARCHAR,
     counts VARCHAR,
-    message VARCHAR
+    message VARCHAR,
+    files VARCHAR                   -- what the run published: JSON {relative path: sha256}
+);
+
+-- name: create_meta
+CREATE TABLE IF NOT EXISTS meta (
+    key VARCHAR PRIMARY KEY,
+    value VARCHAR
 );
 
 -- name: create_results
@@ -137,3 +146,35 @@ CREATE TABLE IF NOT EXISTS rejects (
     value VARCHAR,
     reason VARCHAR
 );
+
+-- Schema versions. 1: ddscreen 0.1 (buildings keyed by building_id alone; runs without files).
+-- 2: buildings, readings and weather kept per source file; runs record what they published.
+
+-- name: get_schema_version
+SELECT value FROM meta WHERE key = 'schema_version';
+
+-- name: set_schema_version
+INSERT OR REPLACE INTO meta VALUES ('schema_version', $version);
+
+-- name: has_table
+SELECT 1 FROM information_schema.tables WHERE table_name = $table;
+
+-- name: migrate_v2_drop_buildings
+-- The version-1 table has building_id as its primary key; it is made again without it.
+DROP TABLE IF EXISTS buildings;
+
+-- name: migrate_v2_forget_readings
+-- Version-1 rows were kept unique across files by load order; every input is read again.
+DELETE FROM readings;
+
+-- name: migrate_v2_forget_weather
+DELETE FROM weather_daily;
+
+-- name: migrate_v2_forget_rejects
+DELETE FROM load_rejects;
+
+-- name: migrate_v2_forget_inputs
+DELETE FROM input_files;
+
+-- name: migrate_v2_runs_files
+ALTER TABLE runs ADD COLUMN IF NOT EXISTS files VARCHAR;
