@@ -28,10 +28,24 @@ ANCHOR = "run.log"           # the file whose hash identifies the run that wrote
 LATEST = "latest"            # the link to the newest quarter in an output root
 
 
-def folder_key(path: Path | str) -> str:
-    """The form in which a folder is recorded: absolute, with its parent's links resolved."""
+def _base(store: Store) -> Path:
+    """The database's folder: output folders below it are recorded relative to it."""
+    return Path(os.path.realpath(Path(store.path).parent))
+
+
+def folder_key(path: Path | str, store: Store) -> str:
+    """The form in which a folder is recorded: relative to the database's folder when it lies
+    below it (so a site moved or copied whole still knows its folders), else absolute; links in
+    its parent resolved."""
     p = Path(path)
-    return str(Path(os.path.realpath(p.parent)) / p.name)
+    full = Path(os.path.realpath(p.parent)) / p.name
+    rel = os.path.relpath(full, _base(store))
+    return full.as_posix() if rel.startswith("..") else Path(rel).as_posix()
+
+
+def folder_of(key: str, store: Store) -> Path:
+    """The folder a recorded key names (see :func:`folder_key`)."""
+    return _base(store) / key if key and not os.path.isabs(key) else Path(key)
 
 
 def file_sha256(path: Path) -> str:
@@ -68,7 +82,7 @@ def matches(folder: Path, files: dict[str, str], rel: str) -> bool:
 
 def recorded_files(store: Store, folder: Path) -> dict[str, str] | None:
     """The recorded files of the run whose outputs ``folder`` holds, or None if it is not the tool's."""
-    for _run_id, files in store.rows("published_files_of_folder", {"out_dir": folder_key(folder)}):
+    for _run_id, files in store.rows("published_files_of_folder", {"out_dir": folder_key(folder, store)}):
         rec = json.loads(files)
         if ANCHOR in rec and matches(folder, rec, ANCHOR):
             return rec
@@ -133,7 +147,7 @@ def settle_dead_runs(store: Store) -> list[str]:
     """
     notes = []
     for run_id, out_dir, files in store.rows("runs_publishing"):
-        folder = Path(out_dir)
+        folder = folder_of(out_dir, store)
         rec = json.loads(files) if files else {}
         done = ANCHOR in rec and matches(folder, rec, ANCHOR)
         store.execute("set_run_status", {"run_id": run_id, "status": "ok" if done else "interrupted",
@@ -143,13 +157,13 @@ def settle_dead_runs(store: Store) -> list[str]:
     return notes
 
 
-def display_status(status: str, out_dir: str, files: str | None, *, lock_held: bool) -> str:
+def display_status(status: str, folder: Path, files: str | None, *, lock_held: bool) -> str:
     """The status a reader should see for a recorded run (read-only; nothing is written)."""
     if lock_held or status not in ("running", "publishing"):
         return status
     if status == "publishing" and files:
         rec = json.loads(files)
-        if ANCHOR in rec and matches(Path(out_dir), rec, ANCHOR):
+        if ANCHOR in rec and matches(folder, rec, ANCHOR):
             return "ok"
     return "interrupted"
 
@@ -157,10 +171,10 @@ def display_status(status: str, out_dir: str, files: str | None, *, lock_held: b
 def _owned_folders(store: Store, root: Path) -> list[tuple[Path, dict[str, str]]]:
     """The tool's own folders directly under ``root``, newest window first."""
     out = []
-    root_key = folder_key(root)
+    root_dir = folder_of(folder_key(root, store), store)
     for out_dir, _we, _started in store.rows("published_folders"):
-        p = Path(out_dir)
-        if str(p.parent) != root_key or p.name == LATEST:
+        p = folder_of(out_dir, store)
+        if p.parent != root_dir or p.name == LATEST:
             continue
         files = recorded_files(store, p)
         if files is not None:
@@ -208,8 +222,8 @@ def prune(root: Path, keep: int, store: Store, *, current: Path) -> list[str]:
     if keep <= 0:
         return []
     notes = []
-    cur = folder_key(current)
-    for folder, files in [(p, f) for p, f in _owned_folders(store, root)[keep:] if str(p) != cur]:
+    cur = folder_of(folder_key(current, store), store)
+    for folder, files in [(p, f) for p, f in _owned_folders(store, root)[keep:] if p != cur]:
         left = remove_recorded(folder, files)
         if left:
             notes.append(f"kept {folder}: it holds files ddscreen did not write ({_few(left)}); "

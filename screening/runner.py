@@ -130,10 +130,19 @@ class _Progress:
 
 
 def _stage(name: str) -> None:
-    """Test hook: DDSCREEN_KILL_AT=<stage> makes the process kill itself at that stage."""
+    """Test hooks: DDSCREEN_KILL_AT=<stage> makes the process kill itself at that stage;
+    DDSCREEN_PAUSE_AT=<stage>:<seconds> makes it wait there.
+
+    Stages: after_load, after_screen, after_sheets, before_publish (results recorded, folder
+    not yet renamed), after_publish (renamed, not yet marked ok), after_record (marked ok,
+    latest and pruning not yet done).
+    """
     if os.environ.get("DDSCREEN_KILL_AT") == name:
         import signal
         os.kill(os.getpid(), signal.SIGKILL)
+    pause = os.environ.get("DDSCREEN_PAUSE_AT", "")
+    if pause.partition(":")[0] == name:
+        time.sleep(float(pause.partition(":")[2] or 1))
 
 
 def _setup_file_log(path: Path) -> logging.Handler:
@@ -268,7 +277,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             log.warning("%s", n)
         store.execute("insert_run", {"run_id": run_id, "run_key": run_key, "label": label, "as_of": as_of,
                                      "window_start": window[0], "window_end": window[1],
-                                     "out_dir": published.folder_key(target), "config_hash": cfgmod.config_hash(cfg)})
+                                     "out_dir": published.folder_key(target, store), "config_hash": cfgmod.config_hash(cfg)})
         opts = pipeline.read_options(cfg)
         t = time.perf_counter()
         bar.stage("load inputs")
@@ -347,7 +356,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             store.execute("record_publishing", {
                 "run_id": run_id, "input_hashes": json.dumps({f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads}),
                 "versions": json.dumps(summary["versions"]), "timings": json.dumps(timings),
-                "counts": json.dumps(summary["counts"]), "out_dir": published.folder_key(target),
+                "counts": json.dumps(summary["counts"]), "out_dir": published.folder_key(target, store),
                 "files": json.dumps(files_written, sort_keys=True)})
         publishing = True
         _stage("before_publish")
@@ -650,7 +659,7 @@ def _demo_foreign(out: Path, db: Path, tmp_out: Path) -> list[str]:
     if db.exists():
         with _read_store(str(db)) as store:
             try:
-                rows = store.rows("published_files_of_folder", {"out_dir": published.folder_key(tmp_out)})
+                rows = store.rows("published_files_of_folder", {"out_dir": published.folder_key(tmp_out, store)})
             except (StoreError, duckdb.Error):  # a database of version 1 records no files
                 rows = []
         if rows:
@@ -788,7 +797,10 @@ def _lock_held(path: str) -> bool:
 
 
 def _as_seen(store: Store, db_path: str, runs: pl.DataFrame) -> pl.DataFrame:
-    """Runs with the status a reader should see: a dead run's open row as the next run will mark it."""
+    """Runs as a reader should see them: output folders in full, and a dead run's open row with
+    the status the next run will record."""
+    runs = runs.with_columns(pl.Series("out_dir", [str(published.folder_of(od, store)) if od else ""
+                                                   for od in runs["out_dir"]], dtype=pl.String))
     open_rows = runs.filter(pl.col("status").is_in(["running", "publishing"]))
     if open_rows.height == 0:
         return runs
@@ -797,7 +809,7 @@ def _as_seen(store: Store, db_path: str, runs: pl.DataFrame) -> pl.DataFrame:
         files = dict((rid, f) for rid, _out, f in store.rows("runs_publishing"))
     except (StoreError, duckdb.Error):  # a database of version 1 has no files column
         files = {}
-    seen = [published.display_status(st, od or "", files.get(rid), lock_held=held)
+    seen = [published.display_status(st, Path(od), files.get(rid), lock_held=held)
             for rid, st, od in runs.select("run_id", "status", "out_dir").iter_rows()]
     return runs.with_columns(pl.Series("status", seen, dtype=pl.String))
 
