@@ -320,9 +320,11 @@ def _midnight_ends(raw: pl.DataFrame, typed: pl.DataFrame, label: str) -> tuple[
     typed = typed.with_columns(pl.when(move).then(pl.col("period_end") - pl.duration(days=1))
                                .otherwise(pl.col("period_end")).alias("period_end"))
     if n_move:
+        n_eq = int((move & k["_excl"]).sum())
         notes.append(f"{label}: {n_move} period_end value(s) are timestamps at midnight (e.g. "
-                     f"{raw['period_end'].filter(move)[0].strip()!r}) equal to the start of the meter's next "
-                     "period: read as exclusive ends, so the day before is the last day covered")
+                     f"{raw['period_end'].filter(move)[0].strip()!r}) on meters whose end stamp equals the start "
+                     f"of the next period ({n_eq} do): read as exclusive ends, so the day before is the last day "
+                     "covered")
     if n_keep:
         keep = e_st & ~move
         notes.append(f"{label}: {n_keep} period_end value(s) are timestamps at midnight (e.g. "

@@ -302,8 +302,8 @@ ACCEPTED = [
     Case("a_exclusive_end_stamps", "readings", "accepted",
          "midnight timestamps, each end equal to the next period's start: read as exclusive ends (issue 18)",
          make=lambda t: _exclusive_stamps(t),
-         notice=r"156 period_end value\(s\) are timestamps at midnight .* equal to the start of the meter's next "
-                r"period: read as exclusive ends, so the day before is the last day covered"),
+         notice=r"156 period_end value\(s\) are timestamps at midnight .* on meters whose end stamp equals the "
+                r"start of the next period \(150 do\): read as exclusive ends, so the day before is the last day covered"),
     Case("a_midnight_weather_dates", "weather", "accepted", "daily dates written as midnight timestamps (issue 18)",
          make=lambda t: re.sub(r",(\d{4}-\d{2}-\d{2}),", r",\1T00:00:00,", t),
          notice=r"1646 date value\(s\) are timestamps at midnight \(e\.g\. '2022-10-01T00:00:00'\); read as that day"),

@@ -317,9 +317,9 @@ def test_exclusive_end_stamps_are_read_as_the_day_before_with_a_notice(tmp_path)
     assert ld.rejects.height == 0
     assert ld.df["period_end"].to_list() == [dt.date(2025, m + 1, 1) - dt.timedelta(days=1) if m < 12
                                              else dt.date(2025, 12, 31) for m in range(1, 13)]
-    assert f"{f}: 12 period_end value(s) are timestamps at midnight (e.g. '2025-02-01T00:00:00') equal to the " \
-           "start of the meter's next period: read as exclusive ends, so the day before is the last day covered" \
-           in ld.notices
+    assert f"{f}: 12 period_end value(s) are timestamps at midnight (e.g. '2025-02-01T00:00:00') on meters " \
+           "whose end stamp equals the start of the next period (11 do): read as exclusive ends, so the day before " \
+           "is the last day covered" in ld.notices
     assert any("12 period_start value(s) are timestamps at midnight" in n for n in ld.notices)
 
 
