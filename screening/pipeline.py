@@ -378,6 +378,9 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         issues.append(other_only)
     issues_df = pl.concat([i.select("building_id", "code", "detail", "blocking") for i in issues]) \
         .filter(pl.col("code") != "shifted_span").unique().sort("building_id", "code")
+    if other_only.height:   # "0 % covered" says nothing more than "no reading in the heating fuel"
+        issues_df = issues_df.filter(~((pl.col("code") == "low_coverage")
+                                       & pl.col("building_id").is_in(other_only["building_id"].implode())))
 
     # assemble and screen
     shares = refdata.load("baseload_shares")
@@ -409,11 +412,11 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     # a ratio that far off the expectation is a data problem, not waste
     uf = thr["unit_error_factor_expected"]
     ratio = pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")
-    # (only a finite, positive ratio: none at all is a missing fuel or missing weather, with its own issue)
+    # (only a finite ratio over a positive expectation; a missing fuel or missing weather has its own issue)
     no_basis = issues_df.filter(pl.col("code").is_in(list(NO_BASIS_CODES)))["building_id"].implode()
     far = frame.filter(((ratio >= uf) | (ratio <= 1 / thr["unit_error_factor_expected_low"]))
-                       & (pl.col("expected_heating_kbtu") > 0) & (pl.col("actual_heating_kbtu") > 0)
-                       & ratio.is_finite() & ~pl.col("building_id").is_in(no_basis)).select(
+                       & (pl.col("expected_heating_kbtu") > 0) & ratio.is_finite()
+                       & ~pl.col("building_id").is_in(no_basis)).select(
         "building_id", pl.lit("likely_unit_error").alias("code"),
         (pl.lit("metered heating is ") + ratio.round(3).cast(pl.String)
          + pl.lit("× the expectation: check units (therm/ccf, kBtu/MMBtu) and the floor area")

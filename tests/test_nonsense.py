@@ -149,7 +149,7 @@ def test_readings_only_in_another_fuel_are_their_own_issue_not_a_unit_error(port
     portfolio.readings.write_text("\n".join(out) + "\n", encoding="utf-8")
     ranking, issues, text = _run(portfolio, tmp_path)
     b01 = issues.filter(pl.col("building_id") == "B01")
-    assert "likely_unit_error" not in b01["code"].to_list()
+    assert set(b01["code"]) == {"no_heating_fuel_readings"}, b01      # no likely_unit_error, no 0 % coverage
     row = b01.filter(pl.col("code") == "no_heating_fuel_readings").row(0, named=True)
     assert row["detail"].startswith("readings only in electricity, none in the building's heating fuel "
                                     "natural_gas") and row["blocking"]
