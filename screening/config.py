@@ -10,6 +10,7 @@ import copy
 import datetime as _dt
 import hashlib
 import json
+import math
 import tomllib
 from pathlib import Path
 from typing import Any
@@ -149,7 +150,99 @@ def merge(base: dict, overrides: dict, *, origin: str) -> dict:
     return out
 
 
-def validate(cfg: dict) -> dict:
+#: The allowed range of every numeric setting: (section, key) → (low, high, what). NaN and
+#: infinities are refused everywhere. The heat contents take their range from
+#: ``screening/data/units.csv`` (``plausible_min``/``plausible_max``, with its sources) at check time.
+#: Where no published bound exists the range is our own (common practice): wide enough for any
+#: real portfolio, narrow enough that a typo (a sign, a missing decimal point, 5 for 0.5) stops.
+RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
+    ("output", "keep"): (0, 1000, "a whole number"),
+    ("output", "workers"): (1, 64, "a whole number"),
+    ("output", "ranking_pdf_rows"): (0, 10_000_000, "a whole number"),
+    # the whole method compares 12 months; a building's own span may go back up to 10 years
+    ("analysis", "lookback_months"): (12, 120, "a whole number of months"),
+    # balance points of real buildings lie well inside 20-90 °F (common practice)
+    ("analysis", "base_min_f"): (20.0, 90.0, "a temperature in °F"),
+    ("analysis", "base_max_f"): (20.0, 90.0, "a temperature in °F"),
+    ("analysis", "base_step_f"): (0.1, 5.0, "a step in °F"),
+    ("analysis", "draws"): (10, 10_000, "a whole number"),
+    ("analysis", "seed"): (0, 2**32 - 1, "a whole number"),
+    # the worst grids emit about 1 kg CO2e per kWh (coal, from memory); 2 leaves room
+    ("emissions", "electricity_kg_co2e_per_kwh"): (0.0, 2.0, "kg CO2e per kWh"),
+    ("thresholds", "band_ratio"): (0.5, 5.0, "a factor"),
+    ("thresholds", "band_floor"): (0.0, 0.9, "a share"),
+    ("thresholds", "z_review"): (0.1, 20.0, "a robust z-score"),
+    ("thresholds", "review_score"): (0.1, 50.0, "a score"),
+    ("thresholds", "weight_balance_point"): (0.0, 10.0, "a weight"),
+    ("thresholds", "weight_intensity"): (0.0, 10.0, "a weight"),
+    ("thresholds", "audit_first_ratio"): (1.0, 100.0, "a ratio"),
+    ("thresholds", "audit_first_score"): (0.1, 50.0, "a score"),
+    ("thresholds", "peer_percentile_high"): (50.0, 100.0, "a percentile"),
+    ("thresholds", "min_peer_group"): (2, 10_000, "a whole number of buildings"),
+    ("thresholds", "baseload_share_high"): (1.0, 10.0, "a factor"),
+    ("thresholds", "balance_point_high_f"): (40.0, 90.0, "a temperature in °F"),
+    ("thresholds", "r2_min"): (0.0, 1.0, "a share"),
+    ("thresholds", "cv_rmse_max"): (1.0, 1000.0, "a percentage"),
+    ("thresholds", "yoy_rise"): (0.01, 10.0, "a share"),
+    ("thresholds", "yoy_review"): (0.01, 10.0, "a share"),
+    ("thresholds", "yoy_review_z"): (0.1, 50.0, "a robust z-score"),
+    ("thresholds", "yoy_review_r2_min"): (0.0, 1.0, "a share"),
+    ("thresholds", "yoy_review_heating_share_min"): (0.0, 1.0, "a share"),
+    # "covered" below half the span's days means nothing (common practice)
+    ("thresholds", "coverage_min"): (0.5, 1.0, "a share"),
+    ("thresholds", "estimated_share_max"): (0.0, 1.0, "a share"),
+    ("thresholds", "unit_error_factor"): (2.0, 10_000.0, "a factor"),
+    ("thresholds", "unit_error_factor_expected"): (2.0, 10_000.0, "a factor"),
+    ("thresholds", "unit_error_factor_expected_low"): (2.0, 10_000.0, "a factor"),
+    ("thresholds", "unit_error_factor_fit"): (1.5, 10_000.0, "a factor"),
+    ("thresholds", "min_excess_ratio"): (0.5, 10.0, "a ratio"),
+}
+#: Prices are per unit of the fuel in any currency (yen as well as dollars), so only the sign
+#: and a finite size are checked.
+PRICE_MAX = 1_000_000.0
+#: The earliest day a run may be dated (as_of, window_from/window_to, normal_years): degree-day
+#: screening on meter data before this is not what the tool is for (our own).
+EARLIEST = _dt.date(1950, 1, 1)
+#: Window length: the method compares 12 months (365 or 366 days); at most ten years.
+WINDOW_DAYS = (365, 3660)
+
+
+def _fmt(x: float) -> str:
+    if isinstance(x, int) or (isinstance(x, float) and x.is_integer() and abs(x) >= 1000):
+        return f"{int(x):,}"
+    return f"{x:g}"
+
+
+def _range_error(where: str, value: Any, expected: str) -> ConfigError:
+    return ConfigError(f"config key {where}: got {value!r}; expected {expected}")
+
+
+def _check_range(section: str, key: str, value: Any, lo: float, hi: float, what: str) -> None:
+    where = f"[{section}] {key}"
+    if value is None:
+        return
+    if isinstance(value, float) and not math.isfinite(value):
+        raise _range_error(where, value, f"{what} from {_fmt(lo)} to {_fmt(hi)} (not NaN or infinite)")
+    if not (lo <= value <= hi):
+        raise _range_error(where, value, f"{what} from {_fmt(lo)} to {_fmt(hi)}")
+
+
+def _check_text(section: str, key: str, value: str, *, empty_ok: bool = True) -> None:
+    if not empty_ok and not value.strip():
+        raise _range_error(f"[{section}] {key}", value, "a path (not empty)")
+    if any(ord(ch) < 32 for ch in value):
+        raise _range_error(f"[{section}] {key}", value, "text without control characters")
+
+
+def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
+    """Check every setting's range (see :data:`RANGES`); raise ``ConfigError`` naming key, value, range."""
+    today = today or _dt.date.today()
+    for (section, key), (lo, hi, what) in RANGES.items():
+        _check_range(section, key, cfg[section][key], lo, hi, what)
+    for section, key in (("inputs", "buildings"), ("inputs", "readings"), ("inputs", "weather")):
+        _check_text(section, key, cfg[section][key])
+    _check_text("store", "database", cfg["store"]["database"], empty_ok=False)
+    _check_text("output", "root", cfg["output"]["root"], empty_ok=False)
     a = cfg["analysis"]
     if a["units"] not in UNITS:
         raise ConfigError(f"config key [analysis] units: got {a['units']!r}; expected IP or SI")
@@ -161,41 +254,86 @@ def validate(cfg: dict) -> dict:
     if a["calendarization"] not in ("days", "degree_days"):
         raise ConfigError(f"config key [analysis] calendarization: got {a['calendarization']!r}; "
                           "expected days or degree_days")
-    if not (0 < a["base_step_f"] <= 5 and a["base_min_f"] < a["base_max_f"]):
-        raise ConfigError("config keys [analysis] base_min_f/base_max_f/base_step_f: expected min < max "
-                          "and 0 < step ≤ 5")
-    if a["draws"] < 10 or a["draws"] > 10000:
-        raise ConfigError(f"config key [analysis] draws: got {a['draws']}; expected 10 to 10000")
-    for key in ("as_of", "window_from", "window_to"):
-        if a[key]:
-            parse_date_value(a[key], f"[analysis] {key}")
-    if bool(a["window_from"]) != bool(a["window_to"]):
-        raise ConfigError("config keys [analysis] window_from and window_to: give both or neither")
+    if not a["base_min_f"] < a["base_max_f"]:
+        raise ConfigError(f"config keys [analysis] base_min_f/base_max_f: got {a['base_min_f']:g} and "
+                          f"{a['base_max_f']:g}; expected min < max")
+    _check_heat_contents(a)
+    _check_dates(a, today)
     ny = a["normal_years"]
-    if ny and (len(ny) != 2 or not all(isinstance(y, int) for y in ny) or ny[0] > ny[1]):
-        raise ConfigError(f"config key [analysis] normal_years: got {ny!r}; expected [first_year, last_year]")
+    if ny:
+        if len(ny) != 2 or not all(isinstance(y, int) and not isinstance(y, bool) for y in ny) or ny[0] > ny[1]:
+            raise ConfigError(f"config key [analysis] normal_years: got {ny!r}; expected [first_year, last_year]")
+        last_complete = today.year - 1
+        if ny[0] < EARLIEST.year or ny[1] > last_complete:
+            raise ConfigError(f"config key [analysis] normal_years: got {ny!r}; expected complete years from "
+                              f"{EARLIEST.year} to {last_complete}")
     r = cfg["reading"]
     if r["date_order"] not in ("", "dmy", "mdy", "ymd"):
         raise ConfigError(f"config key [reading] date_order: got {r['date_order']!r}; expected dmy, mdy or ymd")
     if r["delimiter"] not in ("", ",", ";", "\t"):
         raise ConfigError(f"config key [reading] delimiter: got {r['delimiter']!r}; expected , ; or a tab")
+    if r["encoding"]:
+        import codecs
+        try:
+            codecs.lookup(r["encoding"])
+        except LookupError:
+            raise _range_error("[reading] encoding", r["encoding"],
+                               "an encoding name such as utf-8, cp1252 or latin-1 (or empty)") from None
     for k, v in cfg["prices"].items():
-        if k != "currency" and v < 0:
-            raise ConfigError(f"config key [prices] {k}: got {v}; expected a price ≥ 0")
-    if cfg["output"]["keep"] < 0:
-        raise ConfigError("config key [output] keep: expected a whole number ≥ 0")
-    if cfg["output"]["ranking_pdf_rows"] < 0:
-        raise ConfigError("config key [output] ranking_pdf_rows: expected a whole number ≥ 0")
-    if cfg["output"]["workers"] < 1:
-        raise ConfigError("config key [output] workers: expected a whole number ≥ 1")
+        if k == "currency":
+            if not (1 <= len(v) <= 8) or any(ord(ch) < 32 for ch in v):
+                raise _range_error("[prices] currency", v, "a symbol or code of 1 to 8 characters")
+            continue
+        _check_range("prices", k, v, 0.0, PRICE_MAX, "a price per unit")
     return cfg
 
 
+def _check_heat_contents(a: dict) -> None:
+    from . import refdata
+    import polars as pl
+    t = refdata.load("units").filter(pl.col("parameter").is_in(["gas_btu_per_ft3", "steam_btu_per_lb"]))
+    for row in t.iter_rows(named=True):
+        key = row["parameter"]
+        lo, hi = float(row["plausible_min"]), float(row["plausible_max"])
+        _check_range("analysis", key, a[key], lo, hi, f"a heat content in {row['base']} (units.csv)")
+
+
+def _check_dates(a: dict, today: _dt.date) -> None:
+    latest = today + _dt.timedelta(days=1)   # one day of slack for a server clock in another time zone
+    for key in ("as_of", "window_from", "window_to"):
+        if a[key]:
+            d = parse_date_value(a[key], f"config key [analysis] {key}")
+            if not (EARLIEST <= d <= latest):
+                raise _range_error(f"[analysis] {key}", a[key], f"a date from {EARLIEST} to {latest} "
+                                   "(no readings exist after today)")
+    if bool(a["window_from"]) != bool(a["window_to"]):
+        raise ConfigError("config keys [analysis] window_from and window_to: give both or neither")
+    if a["window_from"]:
+        lo, hi = parse_date_value(a["window_from"], ""), parse_date_value(a["window_to"], "")
+        days = (hi - lo).days + 1
+        if not (WINDOW_DAYS[0] <= days <= WINDOW_DAYS[1]):
+            raise ConfigError(f"config keys [analysis] window_from/window_to (--from/--to): got {lo} to {hi} "
+                              f"({days} days); expected a window of {WINDOW_DAYS[0]} to {WINDOW_DAYS[1]} days "
+                              "(12 months to ten years) with window_to after window_from")
+
+
+def run_window(cfg: dict, today: _dt.date | None = None) -> tuple[_dt.date, tuple[_dt.date, _dt.date]]:
+    """The run's as-of day and analysis window (start, inclusive end) from checked settings."""
+    from .window import analysis_window
+    a = cfg["analysis"]
+    as_of = parse_date_value(a["as_of"], "config key [analysis] as_of") if a["as_of"] else (today or _dt.date.today())
+    if a["window_from"]:
+        return as_of, (parse_date_value(a["window_from"], "config key [analysis] window_from"),
+                       parse_date_value(a["window_to"], "config key [analysis] window_to"))
+    return as_of, analysis_window(as_of)
+
+
 def parse_date_value(value: str, where: str) -> _dt.date:
-    try:
-        return _dt.date.fromisoformat(value)
-    except (TypeError, ValueError):
-        raise ConfigError(f"{where}: got {value!r}; expected a date YYYY-MM-DD") from None
+    from .parse import iso_date
+    d = iso_date(value)
+    if d is None:
+        raise ConfigError(f"{where}: got {value!r}; expected a date YYYY-MM-DD")
+    return d
 
 
 def load(path: str | Path | None = None, overrides: dict | None = None) -> dict:

@@ -20,6 +20,7 @@ from .csvread import LINE_COL, read_table
 from .degree_days import (METHODS, DegreeDayCube, c_to_f, degree_day_table, f_to_c, fill_short_gaps,
                           normal_year)
 from .errors import InputError
+from .parse import iso_date
 from .weather import read_daily_weather, read_hourly_weather
 
 __all__ = ["degree_days_report", "KIND_CHOICES", "BY_CHOICES"]
@@ -33,10 +34,10 @@ COLUMNS = ["station_id", "period_start", "period_end", "days", "days_missing", "
 def _parse_date(value, name: str) -> date | None:
     if value is None or isinstance(value, date):
         return value
-    try:
-        return date.fromisoformat(str(value).strip())
-    except ValueError:
-        raise ValueError(f"{name} must be a date YYYY-MM-DD; got {value!r}") from None
+    d = iso_date(str(value))
+    if d is None:
+        raise ValueError(f"{name} must be a date YYYY-MM-DD; got {value!r}")
+    return d
 
 
 def _read_periods(path: str | Path, station: str) -> pl.DataFrame:

@@ -17,7 +17,7 @@ import polars as pl
 from . import refdata
 from .csvread import LINE_COL, read_table
 from .errors import InputError
-from .parse import (AmbiguousDates, detect_date_order, parse_bool, parse_choice, parse_date, parse_float,
+from .parse import (AmbiguousDates, detect_date_order, midnight_stamps, parse_bool, parse_choice, parse_date, parse_float,
                     parse_int)
 
 USE_TYPES = ("office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other")
@@ -250,6 +250,7 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     opts = opts or ReadOptions()
     label = str(path)
     t, typed, prob = _read_typed(path, READING_COLUMNS, opts)
+    typed, stamp_notes = _midnight_ends(t.df, typed, label)
     order = typed.filter(pl.col("period_end") < pl.col("period_start")).select(
         pl.lit(label).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit("period_end").alias("column"),
         pl.col("period_end").cast(pl.String).alias("value"),
@@ -259,7 +260,7 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     good, rej = _combine(typed, prob, t.rejects)
     good = good.with_columns(pl.col("estimated").fill_null(False), pl.col("meter_id").fill_null(""),
                              pl.col("unit").str.strip_chars())
-    notices = list(t.notices)
+    notices = list(t.notices) + stamp_notes
     key = ["building_id", "fuel", "meter_id", "period_start", "period_end"]
     data_cols = key + ["quantity", "unit", "estimated", "cost"]
     n_before = good.height
@@ -277,6 +278,60 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
         rej = pl.concat([rej, rejects_frame(extra)])
         good = good.filter(~pl.struct(key).is_duplicated())
     return Loaded(label, good.sort(["building_id", "fuel", "meter_id", "period_start"]), rej.sort("line"), notices)
+
+
+def _midnight_ends(raw: pl.DataFrame, typed: pl.DataFrame, label: str) -> tuple[pl.DataFrame, list[str]]:
+    """Read midnight timestamps in the period columns explicitly, with a notice saying how.
+
+    A start stamp at 00:00 is that day. An end stamp at 00:00 is either the end of the period as an
+    instant (exclusive: the day before is the last day covered) or a spreadsheet's date-with-time
+    export of the inclusive last day. The file tells which: when the stamped ends of the file equal
+    the start of the same meter's next period more often than the day before it, they are exclusive
+    and moved back one day; otherwise they are read as the last day covered.
+    """
+    notes: list[str] = []
+    s_st, e_st = midnight_stamps(raw["period_start"]), midnight_stamps(raw["period_end"])
+    n_s, n_e = int(s_st.sum()), int(e_st.sum())
+    if n_s:
+        notes.append(f"{label}: {n_s} period_start value(s) are timestamps at midnight (e.g. "
+                     f"{raw['period_start'].filter(s_st)[0].strip()!r}); read as that day")
+    if not n_e:
+        return typed, notes
+    on = ["building_id", "fuel", "meter_id"]
+    k = typed.with_columns(pl.col("meter_id").fill_null(""), e_st.alias("_e_st"))
+    starts = k.select(*on, pl.col("period_start").alias("_next"), pl.lit(True).alias("_hit")).drop_nulls().unique()
+    k = k.join(starts.rename({"_hit": "_excl"}), left_on=on + ["period_end"], right_on=on + ["_next"], how="left",
+               maintain_order="left")
+    k = k.with_columns((pl.col("period_end") + pl.duration(days=1)).alias("_d1")).join(
+        starts.rename({"_hit": "_incl"}), left_on=on + ["_d1"], right_on=on + ["_next"], how="left",
+        maintain_order="left")
+    k = k.with_columns((pl.col("_e_st") & pl.col("_excl").fill_null(False)).alias("_excl"),
+                       (pl.col("_e_st") & pl.col("_incl").fill_null(False)).alias("_incl"))
+    # per meter: the relation its stamped ends show; a meter that shows neither follows the file
+    per = k.group_by(on).agg(pl.col("_excl").sum().alias("_ne"), pl.col("_incl").sum().alias("_ni"))
+    file_excl = int(per["_ne"].sum()) > int(per["_ni"].sum())
+    per = per.with_columns(pl.when(pl.col("_ne") > pl.col("_ni")).then(True)
+                           .when(pl.col("_ne") < pl.col("_ni")).then(False)
+                           .otherwise(file_excl).alias("_exclusive"))
+    k = k.join(per.select(*on, "_exclusive"), on=on, how="left", maintain_order="left")
+    move = (k["_e_st"] & k["_exclusive"]).fill_null(False)
+    n_move, n_keep = int(move.sum()), n_e - int(move.sum())
+    example = raw["period_end"].filter(e_st)[0].strip()
+    typed = typed.with_columns(pl.when(move).then(pl.col("period_end") - pl.duration(days=1))
+                               .otherwise(pl.col("period_end")).alias("period_end"))
+    if n_move:
+        n_eq = int((move & k["_excl"]).sum())
+        notes.append(f"{label}: {n_move} period_end value(s) are timestamps at midnight (e.g. "
+                     f"{raw['period_end'].filter(move)[0].strip()!r}) on meters whose end stamp equals the start "
+                     f"of the next period ({n_eq} do): read as exclusive ends, so the day before is the last day "
+                     "covered")
+    if n_keep:
+        keep = e_st & ~move
+        notes.append(f"{label}: {n_keep} period_end value(s) are timestamps at midnight (e.g. "
+                     f"{raw['period_end'].filter(keep)[0].strip()!r}) not equal to the start of the meter's next "
+                     "period: read as the last day covered (inclusive); write plain dates YYYY-MM-DD to avoid "
+                     "this notice")
+    return typed, notes
 
 
 _SAFE_TEXT = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f\x7f]")

@@ -19,6 +19,27 @@ EXCEL_EPOCH = _dt.date(1899, 12, 30)
 DATE_ORDERS = ("ymd", "mdy", "dmy")
 
 
+ISO_DATE = r"^\d{4}-\d{2}-\d{2}$"
+#: an ISO timestamp: the date (group 1), ``T`` or a blank, HH:MM, optional seconds and fraction
+_STAMP = r"^(\d{4}-\d{2}-\d{2})[T ]\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?$"
+_MIDNIGHT = r"^\d{4}-\d{2}-\d{2}[T ]00:00(?::00(?:\.0+)?)?$"
+
+
+def iso_date(value: object) -> _dt.date | None:
+    """One ``YYYY-MM-DD`` date (surrounding blanks allowed), or None when the text is anything else.
+
+    Stricter than :meth:`datetime.date.fromisoformat`, which also takes ``20251001`` and week
+    dates; nothing after the day is allowed (no time, no note).
+    """
+    import re
+    if not isinstance(value, str) or not re.match(ISO_DATE, value.strip()):
+        return None
+    try:
+        return _dt.date.fromisoformat(value.strip())
+    except ValueError:
+        return None
+
+
 class AmbiguousDates(ValueError):
     """Slash dates whose day/month order cannot be told apart and was not configured."""
 
@@ -101,7 +122,8 @@ def detect_date_order(s: pl.Series) -> str | None:
 
 def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.date | None = None,
                max_date: _dt.date | None = None) -> tuple[pl.Series, pl.Series]:
-    """Parse dates: ISO ``YYYY-MM-DD`` (also ``YYYY/MM/DD``, an ISO timestamp's date part),
+    """Parse dates: ISO ``YYYY-MM-DD`` (also ``YYYY/MM/DD``, and an ISO timestamp at midnight as its date;
+    another time of day or any text after the date is a problem with its own reason),
     slash or dot dates in the configured day/month order, and spreadsheet serial numbers
     (days since 1899-12-30, 20000–80000).
 
@@ -114,8 +136,15 @@ def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.dat
     """
     t = s.str.strip_chars()
     any_sep = bool(t.str.contains(r"[/.]").any())   # else the slash and dot forms need no look
-    iso = (t.str.replace(r"^(\d{4})/(\d{1,2})/(\d{1,2})", "$1-$2-$3") if any_sep else t).str.slice(0, 10) \
-        .str.to_date("%Y-%m-%d", strict=False)
+    # a timestamp at midnight is read as its date (callers say how in a notice: see midnight_stamps);
+    # any other time of day, or any other text after the date, is a problem, never cut off
+    stamp = t.str.extract(_STAMP, 1)
+    midnight = t.str.contains(_MIDNIGHT).fill_null(False)
+    day_text = pl.select(pl.when(midnight).then(stamp).otherwise(t)).to_series()
+    if any_sep:
+        day_text = day_text.str.replace(r"^(\d{4})/(\d{1,2})/(\d{1,2})$", "$1-$2-$3")
+    iso = pl.select(pl.when(day_text.str.contains(r"^\d{4}-\d{1,2}-\d{1,2}$").fill_null(False))
+                    .then(day_text).otherwise(None)).to_series().str.to_date("%Y-%m-%d", strict=False)
     has_slash = t.str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]\d{2,4}$").fill_null(False) if any_sep else None
     if has_slash is not None and bool(has_slash.any()):
         order = date_order or detect_date_order(t.filter(has_slash))
@@ -140,22 +169,36 @@ def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.dat
         pl.when(serial_ok).then(pl.lit(EXCEL_EPOCH) + pl.duration(days=serial.clip(20000, 80000).cast(pl.Int64)))
         .otherwise(None)).to_series().cast(pl.Date)
     value = pl.select(pl.coalesce(iso, slash, serial_date)).to_series()
-    df = pl.DataFrame({"t": t, "v": value})
+    timed = t.str.contains(_STAMP).fill_null(False) & ~midnight
+    trailing = (t.str.contains(r"^\d{4}[-/]\d{1,2}[-/]\d{1,2}") & ~t.str.contains(r"^\d{4}[-/]\d{1,2}[-/]\d{1,2}$")) \
+        .fill_null(False) & ~midnight & ~timed
+    df = pl.DataFrame({"t": t, "v": value, "timed": timed, "trailing": trailing})
     cond = pl.col("t").is_not_null() & pl.col("v").is_null()
     expected = "a date (YYYY-MM-DD)"
+    why = (pl.when(pl.col("timed")).then(pl.lit(f"expected {expected}: a time of day other than midnight "
+                                                "cannot be read as a day; give the date only"))
+           .when(pl.col("trailing")).then(pl.lit(f"expected {expected} with nothing after it: "
+                                                 "remove the text after the date"))
+           .otherwise(pl.lit(f"expected {expected}")))
     if min_date is not None or max_date is not None:
         lo = min_date or _dt.date(1, 1, 1)
         hi = max_date or _dt.date(9999, 12, 31)
         rng = (pl.col("v") < lo) | (pl.col("v") > hi)
         out = df.select(
             pl.when(cond | rng.fill_null(False)).then(None).otherwise(pl.col("v")).alias("v"),
-            pl.when(cond).then(pl.lit(f"expected {expected}"))
+            pl.when(cond).then(why)
             .when(rng.fill_null(False)).then(pl.lit(f"date out of range; expected {lo} to {hi}"))
             .otherwise(None).alias("p"))
     else:
         out = df.select(pl.when(cond).then(None).otherwise(pl.col("v")).alias("v"),
-                        pl.when(cond).then(pl.lit(f"expected {expected}")).otherwise(None).alias("p"))
+                        pl.when(cond).then(why).otherwise(None).alias("p"))
     return out["v"].rename(s.name), out["p"].rename(s.name)
+
+
+def midnight_stamps(s: pl.Series) -> pl.Series:
+    """True where a date cell is a timestamp at midnight (``2025-10-31T00:00:00``, ``2025-10-31 00:00``),
+    which :func:`parse_date` reads as its date."""
+    return s.str.strip_chars().str.contains(_MIDNIGHT).fill_null(False).rename(s.name)
 
 
 def parse_choice(s: pl.Series, choices: list[str] | tuple[str, ...], *, what: str) -> tuple[pl.Series, pl.Series]:

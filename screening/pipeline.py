@@ -20,7 +20,7 @@ import polars as pl
 from . import degree_days as ddm
 from . import envelope as env
 from . import metered, refdata, screen, units
-from .errors import InputError
+from .errors import ConfigError, InputError
 from .ingest import REJECT_SCHEMA, Loaded, ReadOptions, read_buildings, read_readings
 from .csvread import unreadable
 from .store import Store
@@ -28,6 +28,20 @@ from .weather import read_daily_weather
 
 KINDS = ("buildings", "readings", "weather")
 KBTU_TO_KWH = 0.29307107017222  # 1 kBtu = 1055.05585262 J × 1000 / 3.6e6 J (NIST SP 811)
+
+
+#: Plain texts of the data issues found here (the per-reading ones are in :mod:`screening.metered`;
+#: README "Data issues" lists every code).
+ISSUE_TEXT = {
+    "no_readings": "no usable readings for this building",
+    "no_heating_fuel_readings": ("readings only in {fuels}, none in the building's heating fuel {heating_fuel}: "
+                                 "check heating_fuel in the buildings file or the fuel column of the readings"),
+    "no_weather_at_station": ("station {station_id} has no weather on any day of the span {span_start} to "
+                              "{span_end} ({record}): add that station's weather for these dates, or correct "
+                              "the building's station_id"),
+}
+#: Issues that leave no basis for a ratio: no likely_unit_error is claimed beside them.
+NO_BASIS_CODES = ("no_readings", "no_heating_fuel_readings", "no_weather_at_station")
 
 
 # ---------------------------------------------------------------------------- loading
@@ -297,6 +311,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     cube = ddm.DegreeDayCube.from_daily(filled, grid, method=a["degree_day_method"])
     years = range(a["normal_years"][0], a["normal_years"][1] + 1) if a["normal_years"] else None
     normals = ddm.normal_year(cube, grid, years=years)
+    if years is not None:
+        _check_normal_years(normals, b, weather, a["normal_years"])
     lap("degree_days")
 
     # metered side
@@ -310,6 +326,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     thr = cfg["thresholds"]
     spans = metered.choose_spans(conv, ws, we, lookback_months=a["lookback_months"],
                                  min_coverage=thr["coverage_min"], building_ids=b["building_id"])
+    if not bool((spans["coverage"].fill_null(0.0) > 0).any()):
+        _no_building_screenable(conv, r, window, a["lookback_months"], paths)
     spans = spans.join(b.select("building_id", "station_id"), on="building_id", how="left", maintain_order="left")
     st = spans["station_id"].to_numpy()
     span_hdd, span_days, span_missing = cube.period_totals(st, spans["span_start"], spans["span_end"])
@@ -359,16 +377,27 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
               _unit_error_issues(conv, b, thr["unit_error_factor"]),
               _fit_outlier_issues(periods, met, thr["unit_error_factor_fit"])]
     wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
+    # a station without a single day of weather in the span: its own issue, not a gap
+    no_wx = wgap.filter(pl.col("missing") >= pl.col("span_days"))
+    wgap = wgap.filter(pl.col("missing") < pl.col("span_days"))
     if wgap.height:
         gdetail = _gap_details(gaps, wgap)
         issues.append(gdetail)
+    if no_wx.height:
+        issues.append(_no_weather_issues(no_wx, weather))
     no_read = spans.join(conv.select("building_id").unique(), on="building_id", how="anti")
     if no_read.height:
         issues.append(no_read.select("building_id", pl.lit("no_readings").alias("code"),
-                                     pl.lit("no usable readings for this building").alias("detail"),
+                                     pl.lit(ISSUE_TEXT["no_readings"]).alias("detail"),
                                      pl.lit(True).alias("blocking")))
+    other_only = _other_fuel_only(conv, b)
+    if other_only.height:
+        issues.append(other_only)
     issues_df = pl.concat([i.select("building_id", "code", "detail", "blocking") for i in issues]) \
         .filter(pl.col("code") != "shifted_span").unique().sort("building_id", "code")
+    if other_only.height:   # "0 % covered" says nothing more than "no reading in the heating fuel"
+        issues_df = issues_df.filter(~((pl.col("code") == "low_coverage")
+                                       & pl.col("building_id").is_in(other_only["building_id"].implode())))
 
     # assemble and screen
     shares = refdata.load("baseload_shares")
@@ -400,7 +429,11 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     # a ratio that far off the expectation is a data problem, not waste
     uf = thr["unit_error_factor_expected"]
     ratio = pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")
-    far = frame.filter((ratio >= uf) | (ratio <= 1 / thr["unit_error_factor_expected_low"])).select(
+    # (only a finite ratio over a positive expectation; a missing fuel or missing weather has its own issue)
+    no_basis = issues_df.filter(pl.col("code").is_in(list(NO_BASIS_CODES)))["building_id"].implode()
+    far = frame.filter(((ratio >= uf) | (ratio <= 1 / thr["unit_error_factor_expected_low"]))
+                       & (pl.col("expected_heating_kbtu") > 0) & ratio.is_finite()
+                       & ~pl.col("building_id").is_in(no_basis)).select(
         "building_id", pl.lit("likely_unit_error").alias("code"),
         (pl.lit("metered heating is ") + ratio.round(3).cast(pl.String)
          + pl.lit("× the expectation: check units (therm/ccf, kBtu/MMBtu) and the floor area")
@@ -418,12 +451,54 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         pl.col("blocking").fill_null(False),
         pl.col("data_issue_codes").fill_null(pl.lit([], dtype=pl.List(pl.String))),
         pl.col("data_issue_texts").fill_null(pl.lit([], dtype=pl.List(pl.String))))
+    # no metered heating without heating-fuel readings, no expectation without weather: shown as n/a
+    no_fuel = pl.col("data_issue_codes").list.set_intersection(["no_readings", "no_heating_fuel_readings"]) \
+        .list.len() > 0
+    no_wx = pl.col("data_issue_codes").list.contains("no_weather_at_station")
+    frame = frame.with_columns(
+        pl.when(no_fuel).then(None).otherwise(pl.col("actual_heating_kbtu")).alias("actual_heating_kbtu"),
+        *[pl.when(no_wx).then(None).otherwise(pl.col(c)).alias(c)
+          for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")])
     units_ip = cfg["analysis"]["units"] == "IP"
     results = screen.screen(frame, thr, energy_factor=1.0 if units_ip else KBTU_TO_KWH,
                             energy_unit="kBtu" if units_ip else "kWh")
     lap("screening")
     return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
                     envelope=envelope, window=window, timings=timings, normal_years=normals.years_used)
+
+
+def _check_normal_years(normals, b: pl.DataFrame, weather: pl.DataFrame, ny: list[int]) -> None:
+    """Configured normal years must be complete years of every station that serves a building.
+
+    Otherwise every normal-year figure of those buildings would be empty and the year-over-year
+    path of the audit list silently off.
+    """
+    used = sorted(set(b["station_id"].to_list()))
+    missing = [s for s in used if not normals.years_used.get(s)]
+    if not missing:
+        return
+    rng = weather.filter(pl.col("station_id").is_in(missing)).group_by("station_id").agg(
+        pl.col("date").min().alias("a"), pl.col("date").max().alias("b")).sort("station_id")
+    have = "; ".join(f"{r['station_id']} has weather {r['a']} to {r['b']}" for r in rng.head(3).iter_rows(named=True))
+    more = f" and {len(missing) - 3} more" if len(missing) > 3 else ""
+    raise ConfigError(f"config key [analysis] normal_years: got {ny!r}; no complete year of weather in "
+                      f"{ny[0]}–{ny[1]} at station(s) {', '.join(missing[:3])}{more} ({have}); "
+                      "expected years the weather files cover (or leave it empty for every complete year)")
+
+
+def _no_building_screenable(conv: pl.DataFrame, r: pl.DataFrame, window, lookback: int, paths: dict) -> None:
+    """No building has a heating-fuel reading on any day of its span: nothing can be screened."""
+    ws, we = window
+    if conv.height:
+        span = f"readings run from {conv['period_start'].min()} to {conv['period_end'].max()}"
+    elif r.height:
+        span = "no reading converts to energy (see rejects)"
+    else:
+        span = "no reading was accepted"
+    raise InputError(paths.get("readings", "readings"),
+                     f"no building can be screened: no heating-fuel reading covers any day of the analysis "
+                     f"window {ws} to {we} ({span})",
+                     expected="readings for the window (check --as-of / --from / --to)")
 
 
 def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, cube, normals,
@@ -478,6 +553,34 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
     ok = np.isfinite(yoy) & (miss_prev == 0) & (norm_prev > 0)
     return pl.DataFrame({"building_id": sp["building_id"], "yoy_change": np.where(ok, yoy, np.nan)}).with_columns(
         pl.col("yoy_change").fill_nan(None))
+
+
+def _other_fuel_only(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
+    """Buildings whose readings are all of fuels other than their heating fuel (``no_heating_fuel_readings``)."""
+    per = conv.group_by("building_id").agg(pl.col("is_heating_fuel").any().alias("_any"),
+                                           pl.col("fuel").unique().sort().str.join(", ").alias("_fuels"))
+    per = per.filter(~pl.col("_any")).join(b.select("building_id", "heating_fuel"), on="building_id")
+    t = ISSUE_TEXT["no_heating_fuel_readings"]
+    return per.select("building_id", pl.lit("no_heating_fuel_readings").alias("code"),
+                      pl.format(t.replace("{fuels}", "{}").replace("{heating_fuel}", "{}"),
+                                pl.col("_fuels"), pl.col("heating_fuel")).alias("detail"),
+                      pl.lit(True).alias("blocking")).sort("building_id")
+
+
+def _no_weather_issues(no_wx: pl.DataFrame, weather: pl.DataFrame) -> pl.DataFrame:
+    """Buildings whose station has no weather on any day of the span (``no_weather_at_station``)."""
+    rec = weather.group_by("station_id").agg(
+        (pl.lit("its weather runs ") + pl.col("date").min().cast(pl.String) + pl.lit(" to ")
+         + pl.col("date").max().cast(pl.String)).alias("_rec"))
+    j = no_wx.join(rec, on="station_id", how="left").with_columns(
+        pl.col("_rec").fill_null("no weather at all"))
+    t = ISSUE_TEXT["no_weather_at_station"]
+    for k in ("{station_id}", "{span_start}", "{span_end}", "{record}"):
+        t = t.replace(k, "{}")
+    return j.select("building_id", pl.lit("no_weather_at_station").alias("code"),
+                    pl.format(t, "station_id", pl.col("span_start").cast(pl.String),
+                              pl.col("span_end").cast(pl.String), "_rec").alias("detail"),
+                    pl.lit(True).alias("blocking")).sort("building_id")
 
 
 def _gap_details(gaps: pl.DataFrame, wgap: pl.DataFrame) -> pl.DataFrame:

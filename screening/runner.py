@@ -30,7 +30,7 @@ from .errors import (ConfigError, InputError, LockedError, OutputError, Screenin
 from .ingest import REJECT_SCHEMA
 from .resources import sample_portfolio_dir
 from .store import Store
-from .window import analysis_window, quarter_label
+from .window import quarter_label
 
 log = logging.getLogger("ddscreen")
 
@@ -198,15 +198,7 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
     """
     cfg = cfgmod.load(config_path, overrides)
     a = cfg["analysis"]
-    as_of = cfgmod.parse_date_value(a["as_of"], "as-of") if a["as_of"] else _dt.date.today()
-    if a["window_from"]:
-        window = (cfgmod.parse_date_value(a["window_from"], "--from"), cfgmod.parse_date_value(a["window_to"], "--to"))
-        if window[1] < window[0]:
-            raise ConfigError(f"--to {window[1]} is before --from {window[0]}")
-        if (window[1] - window[0]).days > 3660:
-            raise ConfigError("--from/--to: the window may span at most ten years")
-    else:
-        window = analysis_window(as_of)
+    as_of, window = cfgmod.run_window(cfg)   # ranges checked by cfgmod.load
     label = quarter_label(window[1]) if not a["window_from"] else f"{window[0]}_{window[1]}"
     files = {k: _expand(cfg["inputs"][k], k) for k in pipeline.KINDS}
     db_path = cfg["store"]["database"]

@@ -122,7 +122,9 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         pl.min_horizontal(pl.col("expected_low_kbtu"),
                           pl.col("expected_heating_kbtu") * (1 - t["band_floor"])).alias("_band_low"))
     out = df.with_columns(
-        (pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")).alias("ratio"),
+        # no ratio without a positive expectation and a metered figure (never inf or NaN in an output)
+        pl.when((pl.col("expected_heating_kbtu") > 0) & pl.col("actual_heating_kbtu").is_finite())
+        .then(pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")).otherwise(None).alias("ratio"),
         pl.when(pl.col("actual_heating_kbtu") > pl.col("_band_high") * t["band_ratio"]).then(pl.lit("above"))
         .when(pl.col("actual_heating_kbtu") < pl.col("_band_low")).then(pl.lit("below"))
         .when(pl.col("actual_heating_kbtu").is_not_null() & pl.col("expected_low_kbtu").is_not_null())

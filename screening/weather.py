@@ -63,6 +63,90 @@ class WeatherRead(tuple):
         return self
 
 
+#: The warmest calendar month of every populated climate averages between 40 °F and 40 °C
+#: (4.4 °C and 104 °F). From memory of climate normals: the coldest settled places' warmest month
+#: is about 41-46 °F (Utqiagvik, Nuuk, Longyearbyen; only a few High Arctic stations lie below),
+#: the hottest about 39 °C (Death Valley in July; Kuwait, Ahvaz 37-38 °C). Read in the wrong unit,
+#: every populated climate falls outside: °C numbers read as °F give a warmest month below
+#: 40 "°F", °F numbers read as °C one above 40 "°C". Used by :func:`check_plausible`.
+WARMEST_MONTH_F = (40.0, 104.0)
+#: ... and its coldest month averages at most 30 °C (86 °F): the warmest coldest months, on tropical
+#: coasts and lowlands, are about 25-28 °C (from memory). Data outside both (a constant test
+#: temperature, random numbers) is no climate in either unit: read as declared, with a notice.
+COLDEST_MONTH_MAX_F = 86.0
+#: Days of data each of the 12 calendar months needs before a station's warmest month is judged.
+PLAUSIBLE_MIN_DAYS = 10
+
+
+def check_plausible(weather: pl.DataFrame, label: str, *, units: str, rejects: pl.DataFrame | None = None) -> list[str]:
+    """Stop when a daily weather file's temperatures look like the other unit (°C read as °F or back).
+
+    Per station, from its daily means (``t_mean_f``, else the mean of ``t_min_f`` and ``t_max_f``)
+    [°F]: the mean of each calendar month over the record, the warmest and coldest of them, and the
+    annual mean (the mean of the 12). A station whose warmest month lies outside
+    :data:`WARMEST_MONTH_F` is not a populated climate in the declared unit; when it is one in the
+    other unit, the file is refused naming the station, the figures and the likely mix-up. Under
+    ``SI``, values beyond ±60 °C that are ordinary °F temperatures (±140) in more than 1 % of the
+    rows (rejected one by one by the readers) tell the same.
+
+    Returns the notices (stations whose record is too short to judge: fewer than
+    :data:`PLAUSIBLE_MIN_DAYS` days in some calendar month). Raises :class:`InputError`.
+    """
+    unit = _units_default(units)
+    other = "C" if unit == "F" else "F"
+    fix = 'set units = "SI" (°C files) or convert' if unit == "F" else 'set units = "IP" (°F files) or convert'
+    if unit == "C" and rejects is not None and rejects.height:
+        num = rejects.filter(pl.col("reason").str.starts_with("impossible temperature")) \
+            .with_columns(pl.col("value").str.strip_chars().str.replace(",", ".", literal=True)
+                          .cast(pl.Float64, strict=False).alias("_v"))
+        f_like = num.filter(pl.col("_v").abs() <= _LIMITS["F"])
+        n_rows = weather.height + rejects.height
+        if f_like.height >= 5 and f_like.height > 0.01 * n_rows:
+            raise InputError(label, f"{f_like.height} of {n_rows} rows hold temperatures above 60 °C that are "
+                             f"ordinary in °F (e.g. {f_like['value'][0]!r} on line {f_like['line'][0]}): looks like "
+                             f"°F read as °C: {fix}")
+    if weather.height == 0:
+        return []
+    daily = weather.select("station_id", "date", pl.coalesce(
+        "t_mean_f", (pl.col("t_min_f") + pl.col("t_max_f")) / 2).alias("_t")).drop_nulls("_t")
+    months = daily.group_by("station_id", pl.col("date").dt.month().alias("_m")).agg(
+        pl.col("_t").mean().alias("_mean"), pl.len().alias("_n"))
+    per = months.group_by("station_id").agg(
+        pl.col("_mean").max().alias("warm"), pl.col("_mean").min().alias("cold"), pl.col("_mean").mean().alias("annual"),
+        ((pl.col("_n") >= PLAUSIBLE_MIN_DAYS).sum() == 12).alias("judged")).sort("station_id")
+    notes = []
+    short = per.filter(~pl.col("judged"))["station_id"].to_list()
+    if short:
+        notes.append(f"{label}: the temperature unit of station(s) {', '.join(short[:5])}"
+                     f"{' …' if len(short) > 5 else ''} was not checked (fewer than {PLAUSIBLE_MIN_DAYS} days of "
+                     "data in some calendar month)")
+    lo, hi = WARMEST_MONTH_F
+    # the station's figures as the other unit would have them [°F]
+    if unit == "F":
+        as_other = {k: pl.col(k) * F_PER_C + 32.0 for k in ("warm", "cold")}
+    else:
+        as_other = {k: (pl.col(k) - 32.0) / F_PER_C for k in ("warm", "cold")}
+    plausible_other = as_other["warm"].is_between(lo, hi) & (as_other["cold"] <= COLDEST_MONTH_MAX_F)
+    wrong_here = ~pl.col("warm").is_between(lo, hi) | (pl.col("cold") > COLDEST_MONTH_MAX_F)
+    per = per.with_columns((pl.col("judged") & wrong_here).alias("_wrong"), plausible_other.alias("_other"))
+    neither = per.filter(pl.col("_wrong") & ~pl.col("_other"))["station_id"].to_list()
+    if neither:
+        notes.append(f"{label}: the temperatures of station(s) {', '.join(neither[:5])}"
+                     f"{' …' if len(neither) > 5 else ''} are no populated climate in °F or °C (warmest month "
+                     f"outside 40 °F to 40 °C, or coldest month above 30 °C); read as °{unit} as declared")
+    odd = per.filter(pl.col("_wrong") & pl.col("_other"))
+    if odd.height:
+        r = odd.row(0, named=True)
+        to_file = (lambda f: f) if unit == "F" else (lambda f: (f - 32.0) / F_PER_C)
+        lim = f"{lo:g} °F" if unit == "F" else f"{(hi - 32) / F_PER_C:g} °C"
+        more = f" (and {odd.height - 1} more station(s))" if odd.height > 1 else ""
+        raise InputError(label, f"station {r['station_id']}{more}: warmest month averages {to_file(r['warm']):.1f} °{unit}, "
+                         f"coldest {to_file(r['cold']):.1f} °{unit}, year {to_file(r['annual']):.1f} °{unit}; no "
+                         f"populated climate has its warmest month {'below' if unit == 'F' else 'above'} {lim}, but as "
+                         f"°{other} these figures are a plausible climate: looks like °{other} read as °{unit}: {fix}")
+    return notes
+
+
 def _units_default(units: str) -> str:
     if units not in ("IP", "SI"):
         raise ValueError(f"units must be 'IP' or 'SI'; got {units!r}")
@@ -210,18 +294,22 @@ def read_daily_weather(path: str | Path, *, units: str = "IP", decimal_comma: bo
     label = str(path)
     table = read_table(path, required=["station_id", "date"], optional=["t_min", "t_max", "t_mean"], label=label,
                        delimiter=delimiter, encoding=encoding)
-    table.df = _normalize_daily_text(table.df, label, decimal_comma=decimal_comma, date_order=date_order)
+    notices = list(table.notices)
+    table.df = _normalize_daily_text(table.df, label, decimal_comma=decimal_comma, date_order=date_order,
+                                     notices=notices)
     present = {h.strip().lower() for h in table.header}
     has_pair = {"t_min", "t_max"} <= present
     if not has_pair and "t_mean" not in present:
         raise InputError(label, "no temperature columns", line=1,
                          expected="t_min and t_max, or t_mean")
     temps = {c: unit for c in ("t_min", "t_max", "t_mean") if c in present}
-    return _finish_daily(table.df, label, "%Y-%m-%d", temps, table.rejects, list(table.notices))
+    res = _finish_daily(table.df, label, "%Y-%m-%d", temps, table.rejects, notices)
+    res.notices.extend(check_plausible(res[0], label, units=units, rejects=res[1]))
+    return res
 
 
 def _normalize_daily_text(df: pl.DataFrame, label: str, *, decimal_comma: bool,
-                          date_order: str | None) -> pl.DataFrame:
+                          date_order: str | None, notices: list[str] | None = None) -> pl.DataFrame:
     """Spreadsheet conventions to the contract's text forms before the strict checks.
 
     Dates that :func:`screening.parse.parse_date` reads become ``YYYY-MM-DD``; others are left as
@@ -229,7 +317,16 @@ def _normalize_daily_text(df: pl.DataFrame, label: str, *, decimal_comma: bool,
     temperature columns' ``,`` becomes ``.``.
     """
     from .errors import InputError
-    from .parse import AmbiguousDates, parse_date
+    from .parse import AmbiguousDates, midnight_stamps, parse_date
+    stamps = midnight_stamps(df["date"])
+    if bool(stamps.any()):
+        # a timestamp at midnight names its day; any other time or text stays and is rejected
+        example = df["date"].filter(stamps)[0].strip()
+        df = df.with_columns(pl.when(stamps).then(pl.col("date").str.strip_chars().str.slice(0, 10))
+                             .otherwise(pl.col("date")).alias("date"))
+        if notices is not None:
+            notices.append(f"{label}: {int(stamps.sum())} date value(s) are timestamps at midnight (e.g. "
+                           f"{example!r}); read as that day")
     iso_share = float(df["date"].str.strip_chars().str.contains(r"^\d{4}-\d{2}-\d{2}$").fill_null(True).mean() or 1.0)
     d = None
     if date_order is not None or iso_share < 0.5:

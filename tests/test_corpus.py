@@ -215,6 +215,18 @@ ROWS = [
          rejects=((1, "period_start", r"date out of range"), (1, "period_end", r"date out of range"))),
     Case("r_no_such_day", "readings", "row", "30 February", append=(r(s="2025-02-30", e="2025-03-29"),),
          rejects=((1, "period_start", r"expected a date \(YYYY-MM-DD\)"),)),
+    Case("r_date_trailing_text", "readings", "row", "a date with letters after it (issue 18)",
+         append=(r(s="2025-03-01xyz", e="2025-03-31"),),
+         rejects=((1, "period_start", r"with nothing after it: remove the text after the date"),)),
+    Case("r_date_extra_digits", "readings", "row", "a date with two digits too many (issue 18)",
+         append=(r(s="2025-04-01", e="2025-04-3099"),),
+         rejects=((1, "period_end", r"with nothing after it: remove the text after the date"),)),
+    Case("r_date_with_note", "readings", "row", "a date followed by a note (issue 18)",
+         append=(r(s="2025-05-01", e="2025-05-31 (estimated)"),),
+         rejects=((1, "period_end", r"with nothing after it: remove the text after the date"),)),
+    Case("r_date_time_of_day", "readings", "row", "a timestamp other than midnight (issue 18)",
+         append=(r(s="2025-06-01 08:30", e="2025-06-30"),),
+         rejects=((1, "period_start", r"a time of day other than midnight cannot be read as a day"),)),
     Case("r_quantity_nan", "readings", "row", "NaN quantity", append=(r(q="nan"),),
          rejects=((1, "quantity", NUM),)),
     Case("r_quantity_inf", "readings", "row", "infinite quantity", append=(r(q="-Infinity"),),
@@ -245,6 +257,8 @@ ROWS = [
          rejects=((1, "t_min", r"not a number"),)),
     Case("w_bad_date", "weather", "row", "month 13", append=(w(d="2025-13-01"),),
          rejects=((1, "date", r"not a valid date"),)),
+    Case("w_date_trailing_text", "weather", "row", "a date with text after it (issue 18)",
+         append=(w(d="2025-01-12xyz"),), rejects=((1, "date", r"not a valid date"),)),
     Case("w_conflicting_duplicate", "weather", "row", "one station and day twice with other values",
          append=(w(d="2025-01-09"), w(d="2025-01-09", lo="21")),
          rejects=((1, "date", r"duplicate date for station alder-flats"), (2, "date", r"duplicate date"))),
@@ -253,6 +267,19 @@ ROWS = [
     Case("w_station_empty", "weather", "row", "empty station id", append=(w(d="2025-01-11", station_id=""),),
          rejects=((1, "station_id", r"station_id is empty"),)),
 ]
+
+
+def _exclusive_stamps(text: str) -> str:
+    """Readings with period_start and period_end as midnight timestamps, the end being the next day's start."""
+    import datetime as dt
+    lines = text.splitlines()
+    out = [lines[0]]
+    for ln in lines[1:]:
+        f = ln.split(",")
+        f[2] = f"{f[2]}T00:00:00"
+        f[3] = f"{dt.date.fromisoformat(f[3]) + dt.timedelta(days=1)}T00:00:00"
+        out.append(",".join(f))
+    return "\n".join(out) + "\n"
 
 
 def _cp1252(t: str) -> bytes:
@@ -272,6 +299,14 @@ ACCEPTED = [
     Case("a_quoted_newline", "buildings", "accepted", "a quoted name spanning two lines",
          make=lambda t: t.replace("Hollin Grade School", '"Hollin Grade\nSchool"')),
     Case("a_crlf", "weather", "accepted", "Windows line ends", make=lambda t: t.replace("\n", "\r\n")),
+    Case("a_exclusive_end_stamps", "readings", "accepted",
+         "midnight timestamps, each end equal to the next period's start: read as exclusive ends (issue 18)",
+         make=lambda t: _exclusive_stamps(t),
+         notice=r"156 period_end value\(s\) are timestamps at midnight .* on meters whose end stamp equals the "
+                r"start of the next period \(150 do\): read as exclusive ends, so the day before is the last day covered"),
+    Case("a_midnight_weather_dates", "weather", "accepted", "daily dates written as midnight timestamps (issue 18)",
+         make=lambda t: re.sub(r",(\d{4}-\d{2}-\d{2}),", r",\1T00:00:00,", t),
+         notice=r"1646 date value\(s\) are timestamps at midnight \(e\.g\. '2022-10-01T00:00:00'\); read as that day"),
     Case("a_spreadsheet_dates", "readings", "accepted", "serial day numbers of the 1900 date system",
          make=lambda t: _serial_dates(t)),
     Case("a_day_first", "readings", "accepted", "dd/mm/yyyy told apart by days above 12",
@@ -532,7 +567,8 @@ def test_50_mb_weather_file(tmp_path):
     days = pl.date_range(dt.date(2022, 10, 1), dt.date(2024, 12, 28), eager=True)
     st = pl.DataFrame({"station_id": [f"stn-{i:04d}" for i in range(2100)]})
     df = st.join(pl.DataFrame({"date": days}), how="cross")
-    lo = np.round(np.random.default_rng(7).uniform(-20.0, 70.0, df.height), 1)
+    # daily means around 42.5 °F: a climate in °F (the reader refuses a warmest month below 40 °F as °C read as °F)
+    lo = np.round(np.random.default_rng(7).uniform(-10.0, 80.0, df.height), 1)
     df = df.with_columns(pl.Series("t_min", lo), pl.Series("t_max", np.round(lo + 15.0, 1)))
     path = tmp_path / "weather_big.csv"
     df.write_csv(path)
