@@ -192,6 +192,19 @@ def test_signal_while_rendering_sheets(simulated, tmp_path, signum):
 
 
 @pytest.mark.slow
+@pytest.mark.parametrize("signum", [signal.SIGINT, signal.SIGTERM], ids=["SIGINT", "SIGTERM"])
+def test_signal_to_the_whole_process_group_while_rendering(simulated, tmp_path, signum):
+    """Ctrl-C in a terminal (and a service manager's stop) signals every process of the group:
+    the fork server and the workers too. Still one line: no helper prints a traceback."""
+    site = Site(tmp_path, simulated)
+    proc = site.start("render_chunk:30")
+    site.wait_mark(proc, "render_chunk", 2)
+    os.killpg(proc.pid, signum)
+    check_interrupted(site, proc, signum)
+    assert not list(site.root.rglob("sheets"))
+
+
+@pytest.mark.slow
 def test_sigint_while_the_render_pool_starts(simulated, tmp_path):
     """SIGINT as soon as the main process's render thread begins, while the pool and its fork
     server are still starting up."""
