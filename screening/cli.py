@@ -53,9 +53,13 @@ def _log_to_stderr(quiet: bool, verbose: bool) -> None:
     log.addHandler(h)
 
 
+_reported: list[BaseException] = []  # what _fail has printed (main() prints a stop signal once)
+
+
 def _fail(exc: BaseException) -> None:
     """Map an exception to one line on stderr and an exit code (no traceback for users)."""
     exc = interrupts.as_interrupted(exc)  # Ctrl-C, SIGTERM, or an error a library raised because of them
+    _reported.append(exc)
     if isinstance(exc, (ScreeningError, Interrupted)):
         typer.echo(f"ddscreen: error: {exc}", err=True)
         raise typer.Exit(exc.exit_code)
@@ -270,16 +274,28 @@ def history(
 
 
 def main() -> None:
-    try:
-        with interrupts.stop_on_signals(ignore_after=True):  # SIGINT/SIGTERM -> errors.Interrupted
-            app()
-    except SystemExit:
-        raise
-    except BaseException as exc:  # noqa: BLE001 - last line of defence: no traceback for users
+    # SIGINT/SIGTERM -> errors.Interrupted; when this is the program (not a test calling main()),
+    # both are ignored once the command is over, while the interpreter shuts down
+    as_program = getattr(sys.modules.get("__main__"), "main", None) is main
+    _reported.clear()
+    with interrupts.stop_on_signals(ignore_after=as_program):
         try:
-            _fail(exc)
-        except typer.Exit as e:
-            sys.exit(e.exit_code)
+            app()
+        except SystemExit:
+            stop = interrupts.stopped()
+            if stop is not None and not _reported:
+                # a stop signal outside a command's own handling (typer turns it into a silent 130)
+                _exit_with(Interrupted(stop))
+            raise
+        except BaseException as exc:  # noqa: BLE001 - last line of defence: no traceback for users
+            _exit_with(exc)
+
+
+def _exit_with(exc: BaseException) -> None:
+    try:
+        _fail(exc)
+    except typer.Exit as e:
+        sys.exit(e.exit_code)
 
 
 if __name__ == "__main__":

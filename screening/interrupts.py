@@ -6,8 +6,9 @@ there only) and sets :data:`stop_event` for other threads (the sheet renderer's 
 checks it). Every later SIGINT or SIGTERM is only counted: the clean-up that the exception
 sets off (temporary folder removed, run recorded as interrupted) is not cut short by a second
 Ctrl-C or a second ``kill``. On leaving, the handlers that were there before come back; with
-``ignore_after=True`` (the command line, about to print its line and exit) both signals stay
-ignored instead once a stop has happened. Contexts nest: only the outermost one installs and
+``ignore_after=True`` (the command line, whose process exits right after) both signals are
+ignored instead, so that one arriving while the interpreter shuts down cannot turn a finished
+command into a silent death. Contexts nest: only the outermost one installs and
 restores. Outside the main thread it does nothing (the caller's arrangement stands), and a
 signal the process ignored when the context was entered (``nohup``, a background job) stays
 ignored.
@@ -70,9 +71,8 @@ def stop_on_signals(*, ignore_after: bool = False) -> Iterator[None]:
     finally:
         _depth -= 1
         if outer:
-            stopped = _stopped is not None
             for s, h in old.items():
-                if stopped and ignore_after:
+                if ignore_after:
                     signal.signal(s, signal.SIG_IGN)
                 else:
                     signal.signal(s, h if h is not None else signal.SIG_DFL)

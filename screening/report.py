@@ -947,12 +947,12 @@ def _stop_workers(pool: ProcessPoolExecutor) -> None:
     for p in procs:
         try:
             p.terminate()
-        except (OSError, ValueError, AttributeError):  # already gone or closed
+        except Exception:  # noqa: BLE001 - already gone, closed, or stopped while it was starting
             pass
     for p in procs:
         try:
             p.join(10)
-        except (OSError, ValueError, AttributeError):
+        except Exception:  # noqa: BLE001
             pass
 
 

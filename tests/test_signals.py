@@ -310,6 +310,31 @@ def test_library_run_raises_interrupted_and_restores_the_handlers(simulated, tmp
     assert not [p.name for p in site.root.iterdir() if p.name.startswith(".")]
 
 
+def test_signal_outside_a_commands_own_handling_is_one_line(monkeypatch, capsys):
+    """``cli.main``: a signal that reaches typer outside a command's ``try`` (while the summary is
+    printed, while options are parsed) is turned by typer into a silent exit 130; main() prints
+    the one line and uses the signal's own code. Called in this process, main() restores the
+    handlers afterwards (only the program itself ignores signals while it exits)."""
+    import screening.cli as climod
+    from screening import interrupts
+
+    def app_like_typer():
+        try:
+            os.kill(os.getpid(), signal.SIGTERM)
+            for _ in range(100):
+                time.sleep(0.01)
+        except KeyboardInterrupt:
+            sys.exit(130)               # what typer does with a KeyboardInterrupt
+
+    old = {s: signal.getsignal(s) for s in interrupts.SIGNALS}
+    monkeypatch.setattr(climod, "app", app_like_typer)
+    with pytest.raises(SystemExit) as info:
+        climod.main()
+    assert info.value.code == 143
+    assert capsys.readouterr().err.splitlines() == ["ddscreen: error: interrupted by SIGTERM"]
+    assert {s: signal.getsignal(s) for s in interrupts.SIGNALS} == old
+
+
 def test_exit_codes_and_ignored_signals():
     """130 and 143 are 128 + the signal number; a signal ignored when the context is entered (a
     background job's SIGINT, nohup) stays ignored, and the old handlers come back on leaving."""
