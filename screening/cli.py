@@ -1,6 +1,9 @@
 """The ``ddscreen`` command line: parse options, call one library function, map errors to exit codes.
 
-Exit codes: 0 ok · 1 run failed · 2 bad input or configuration · 3 another run holds the lock.
+Exit codes: 0 ok · 1 run failed · 2 bad input or configuration · 3 another run holds the lock ·
+130 stopped by SIGINT (Ctrl-C) · 143 stopped by SIGTERM (``errors.Interrupted``; the handlers are
+``screening/interrupts.py``: one ``ddscreen: error: interrupted by …`` line, a second signal during
+the clean-up is ignored).
 Data issues in some buildings do not change the exit code (they are results, listed in the outputs).
 """
 
@@ -17,8 +20,8 @@ from typing import Annotated, Optional
 
 import typer
 
-from . import __version__
-from .errors import EXIT_BAD_INPUT, EXIT_RUN_FAILED, ScreeningError
+from . import __version__, interrupts
+from .errors import EXIT_BAD_INPUT, EXIT_RUN_FAILED, Interrupted, ScreeningError
 
 app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_enable=False,
                   help="Screen a portfolio of buildings for excess heating use (degree-day method).")
@@ -50,9 +53,14 @@ def _log_to_stderr(quiet: bool, verbose: bool) -> None:
     log.addHandler(h)
 
 
+_reported: list[BaseException] = []  # what _fail has printed (main() prints a stop signal once)
+
+
 def _fail(exc: BaseException) -> None:
     """Map an exception to one line on stderr and an exit code (no traceback for users)."""
-    if isinstance(exc, ScreeningError):
+    exc = interrupts.as_interrupted(exc)  # Ctrl-C, SIGTERM, or an error a library raised because of them
+    _reported.append(exc)
+    if isinstance(exc, (ScreeningError, Interrupted)):
         typer.echo(f"ddscreen: error: {exc}", err=True)
         raise typer.Exit(exc.exit_code)
     path = Path(tempfile.gettempdir()) / f"ddscreen-crash-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{os.getpid()}.log"
@@ -113,7 +121,7 @@ def run(
     try:
         res = runner.run(config_path=config, overrides=overrides, out_dir=out, force=force, quiet=quiet,
                          progress=not quiet)
-    except Exception as exc:  # noqa: BLE001 - mapped to exit codes
+    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001 - mapped to exit codes
         _fail(exc)
     if not quiet:
         _print_summary(res)
@@ -130,7 +138,7 @@ def demo(
     _log_to_stderr(quiet, False)
     try:
         res = runner.demo(out, sheets=not no_sheets, progress=not quiet)
-    except Exception as exc:  # noqa: BLE001
+    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     if not quiet:
         _print_summary(res)
@@ -149,7 +157,7 @@ def validate(
     try:
         v = runner.validate(buildings, readings, weather, config_path=config,
                             overrides={"analysis": {"units": units.upper() if units else None}})
-    except Exception as exc:  # noqa: BLE001
+    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     for n in v.notices:
         typer.echo(f"notice: {n}")
@@ -192,7 +200,7 @@ def degree_days(
     except ValueError as exc:
         typer.echo(f"ddscreen: error: {exc}", err=True)
         raise typer.Exit(EXIT_BAD_INPUT)
-    except Exception as exc:  # noqa: BLE001
+    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     for n in notices:
         typer.echo(f"notice: {n}", err=True)
@@ -214,7 +222,7 @@ def init(
     from . import runner
     try:
         p = runner.init_config(path, overwrite=force)
-    except Exception as exc:  # noqa: BLE001
+    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     typer.echo(f"wrote {p}")
 
@@ -231,7 +239,7 @@ def status(
         if config:
             db = cfgmod.load(config)["store"]["database"]
         runs = runner.status(db, limit)
-    except Exception as exc:  # noqa: BLE001
+    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     if runs.height == 0:
         typer.echo("no runs recorded yet")
@@ -251,7 +259,7 @@ def history(
     from . import runner
     try:
         runs, diff = runner.history(db, older, newer)
-    except Exception as exc:  # noqa: BLE001
+    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     for r in runs.iter_rows(named=True):
         typer.echo(f"{r['run_id']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}")
@@ -266,15 +274,28 @@ def history(
 
 
 def main() -> None:
-    try:
-        app()
-    except SystemExit:
-        raise
-    except BaseException as exc:  # noqa: BLE001 - last line of defence: no traceback for users
+    # SIGINT/SIGTERM -> errors.Interrupted; when this is the program (not a test calling main()),
+    # both are ignored once the command is over, while the interpreter shuts down
+    as_program = getattr(sys.modules.get("__main__"), "main", None) is main
+    _reported.clear()
+    with interrupts.stop_on_signals(ignore_after=as_program):
         try:
-            _fail(exc)
-        except typer.Exit as e:
-            sys.exit(e.exit_code)
+            app()
+        except SystemExit:
+            stop = interrupts.stopped()
+            if stop is not None and not _reported:
+                # a stop signal outside a command's own handling (typer turns it into a silent 130)
+                _exit_with(Interrupted(stop))
+            raise
+        except BaseException as exc:  # noqa: BLE001 - last line of defence: no traceback for users
+            _exit_with(exc)
+
+
+def _exit_with(exc: BaseException) -> None:
+    try:
+        _fail(exc)
+    except typer.Exit as e:
+        sys.exit(e.exit_code)
 
 
 if __name__ == "__main__":

@@ -2,6 +2,10 @@
 
 The CLI maps each exception class to one exit code and prints ``str(exc)`` as a
 single line; nothing here prints or exits.
+
+Exit codes: 0 ok · 1 run failed · 2 bad input or configuration · 3 another run holds the lock ·
+130 stopped by SIGINT (Ctrl-C) · 143 stopped by SIGTERM (128 + the signal number, the shell's
+convention; see :class:`Interrupted` and ``screening/interrupts.py``).
 """
 
 from __future__ import annotations
@@ -10,6 +14,8 @@ EXIT_OK = 0
 EXIT_RUN_FAILED = 1
 EXIT_BAD_INPUT = 2
 EXIT_LOCKED = 3
+EXIT_SIGINT = 130   # 128 + SIGINT (2)
+EXIT_SIGTERM = 143  # 128 + SIGTERM (15)
 
 
 class ScreeningError(Exception):
@@ -74,3 +80,26 @@ class OutputError(ScreeningError):
 
 class RenderError(OutputError):
     """A sheet or report could not be laid out or written (names the building or file)."""
+
+
+class Interrupted(KeyboardInterrupt):
+    """The process was asked to stop by SIGINT or SIGTERM (raised by ``screening/interrupts.py``).
+
+    Derived from :class:`KeyboardInterrupt`, not from :class:`ScreeningError`, on purpose: like
+    Ctrl-C it must pass through every ``except Exception`` in this package and in the libraries it
+    calls, and the code that treats Ctrl-C specially (transactions roll back, the renderer stops)
+    treats SIGTERM the same. ``exit_code`` is 128 + the signal number (130 for SIGINT, 143 for
+    SIGTERM); the message is one line, ``detail`` says what became of the outputs where known.
+    """
+
+    NAMES = {2: "SIGINT", 15: "SIGTERM"}
+
+    def __init__(self, signum: int = 2, detail: str | None = None):
+        self.signum = int(signum)
+        self.detail = detail
+        name = self.NAMES.get(self.signum, f"signal {self.signum}")
+        super().__init__(f"interrupted by {name}" + (f"; {detail}" if detail else ""))
+
+    @property
+    def exit_code(self) -> int:
+        return {2: EXIT_SIGINT, 15: EXIT_SIGTERM}.get(self.signum, 128 + self.signum)

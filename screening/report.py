@@ -45,7 +45,7 @@ from urllib.request import url2pathname
 import jinja2
 from markupsafe import Markup
 
-from . import __version__, charts
+from . import __version__, charts, interrupts, lifeline
 from .errors import OutputError, RenderError
 from .resources import templates_dir
 
@@ -816,6 +816,8 @@ def _render_one(sheet: dict[str, Any], target: Path, paper: str, start_level: in
 def _render_chunk(sheets: list[dict[str, Any]], targets: list[str], paper: str) -> dict[str, Any]:
     """Render a chunk of sheets as one document and split it; returns stats."""
     targets_p = [Path(t) for t in targets]
+    interrupts.pause_point("render_chunk")  # test hook (DEVELOPERS.md "Test hooks")
+    interrupts.raise_if_stopped()           # this process was told to stop: render nothing more
     cpu = time.thread_time()
     try:
         with _gc_paused():
@@ -845,10 +847,14 @@ def _render_chunk_inner(sheets: list[dict[str, Any]], targets_p: list[Path], pap
         refit = [k for k in range(n) if ends[k] - starts[k] != 1]
     else:  # cannot tell which page is whose: every sheet on its own
         starts, good, refit = [], [], list(range(n))
+    interrupts.raise_if_stopped()  # told to stop during the layout: write nothing
     if good:
         _write_split(doc, [(starts[k], targets_p[k], sheet_title(sheets[k])) for k in good])
     del doc
-    levels = [_render_one(sheets[k], targets_p[k], paper, 1) for k in refit]
+    levels = []
+    for k in refit:
+        interrupts.raise_if_stopped()
+        levels.append(_render_one(sheets[k], targets_p[k], paper, 1))
     return {"batched": len(good), "refit": len(refit), "levels": levels}
 
 
@@ -887,7 +893,8 @@ def _run_chunks(chunks: list[tuple[list, list]], paper: str, workers: int) -> li
 
     ctx = multiprocessing.get_context("forkserver")
     # the fork server imports the renderer's heavy modules once; each child forks from it
-    ctx.set_forkserver_preload(["screening.report", "weasyprint", "pydyf"])
+    # (screening.lifeline first: there it makes the fork server die with this process)
+    ctx.set_forkserver_preload(["screening.lifeline", "screening.report", "weasyprint", "pydyf"])
     n_children = min(workers - 1, len(chunks) - 1)
     with _main_not_reimported(), ProcessPoolExecutor(
             max_workers=n_children, mp_context=ctx, initializer=_worker_init, max_tasks_per_child=100) as pool:
@@ -900,19 +907,53 @@ def _run_chunks(chunks: list[tuple[list, list]], paper: str, workers: int) -> li
                     in_flight[pool.submit(_render_chunk, *chunks[k], paper)] = k
                 if not in_flight:
                     break
-                done, _ = wait(in_flight, return_when=FIRST_COMPLETED)
+                # short waits: a signal the kernel hands to another thread runs its handler here
+                done, _ = wait(in_flight, timeout=_WAIT_S, return_when=FIRST_COMPLETED)
                 for f in done:
                     results[in_flight.pop(f)] = f.result()
+            while local.is_alive():
+                local.join(_WAIT_S)
         except BaseException as exc:
             with lock:
                 failed.append(exc)
             for f in in_flight:
                 f.cancel()
+            if isinstance(exc, KeyboardInterrupt):  # Ctrl-C or SIGTERM (errors.Interrupted)
+                _stop_workers(pool)
         finally:
             local.join()
     if failed:
         raise failed[0]
     return results
+
+
+# [s] how long the main thread blocks at a time while the renderers work. Python runs signal
+# handlers in the main thread only, and a SIGINT/SIGTERM that the kernel delivers to another
+# thread (the render thread, the pool's threads) does not wake a main thread blocked on a lock.
+_WAIT_S = 0.2
+
+
+def _stop_workers(pool: ProcessPoolExecutor) -> None:
+    """End the pool's workers now, mid-chunk, and wait for them (the run was told to stop).
+
+    Otherwise the pool's shutdown would wait for every chunk in flight, and a worker could
+    still be writing into the run's temporary folder while the run removes it.
+    """
+    terminate = getattr(pool, "terminate_workers", None)  # Python >= 3.14
+    procs = list((getattr(pool, "_processes", None) or {}).values())
+    pool.shutdown(wait=False, cancel_futures=True)
+    if terminate is not None:
+        terminate()
+    for p in procs:
+        try:
+            p.terminate()
+        except Exception:  # noqa: BLE001 - already gone, closed, or stopped while it was starting
+            pass
+    for p in procs:
+        try:
+            p.join(10)
+        except Exception:  # noqa: BLE001
+            pass
 
 
 @contextlib.contextmanager
@@ -944,6 +985,12 @@ def _main_not_reimported():
 
 
 def _worker_init() -> None:
+    # a worker dies with the main process, whatever ends it (screening/lifeline.py), and leaves
+    # Ctrl-C to the main process, which stops the workers itself (_stop_workers)
+    import signal
+    lifeline.die_with_parent()
+    lifeline.watch_parent()
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     _state()
     gc.freeze()  # the modules and renderer state live as long as the worker: keep them out of collections
 

@@ -25,8 +25,9 @@ from pathlib import Path
 import duckdb
 import polars as pl
 
-from . import __version__, config as cfgmod, outputs, pipeline, published, sources
+from . import __version__, config as cfgmod, interrupts, outputs, pipeline, published, sources
 from .errors import (ConfigError, InputError, LockedError, OutputError, ScreeningError, StoreError)
+from .errors import Interrupted
 from .ingest import REJECT_SCHEMA
 from .resources import sample_portfolio_dir
 from .store import Store
@@ -131,18 +132,16 @@ class _Progress:
 
 def _stage(name: str) -> None:
     """Test hooks: DDSCREEN_KILL_AT=<stage> makes the process kill itself at that stage;
-    DDSCREEN_PAUSE_AT=<stage>:<seconds> makes it wait there.
+    DDSCREEN_PAUSE_AT=<stage>:<seconds> makes it wait there (``interrupts.pause_point``).
 
     Stages: after_load, after_screen, after_sheets, before_publish (results recorded, folder
     not yet renamed), after_publish (renamed, not yet marked ok), after_record (marked ok,
     latest and pruning not yet done).
     """
+    interrupts.pause_point(name)
     if os.environ.get("DDSCREEN_KILL_AT") == name:
         import signal
         os.kill(os.getpid(), signal.SIGKILL)
-    pause = os.environ.get("DDSCREEN_PAUSE_AT", "")
-    if pause.partition(":")[0] == name:
-        time.sleep(float(pause.partition(":")[2] or 1))
 
 
 def _setup_file_log(path: Path) -> logging.Handler:
@@ -219,7 +218,7 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
     if not os.access(target.parent, os.W_OK):
         raise OutputError(f"{target.parent}: output folder is not writable; earlier outputs are untouched")
 
-    with _Lock(str(db_path) + ".lock"):
+    with interrupts.stop_on_signals(), _Lock(str(db_path) + ".lock"):  # SIGINT/SIGTERM -> Interrupted
         bar = _Progress(progress and not quiet)
         try:
             return _run_locked(cfg, files, db_path, target, root, label, as_of, window, force=force,
@@ -362,6 +361,9 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                                                                     "excess_cost").to_dicts()
         return RunResult(run_id, label, target, str(db_path), summary, top, loads)
     except BaseException as exc:
+        if isinstance(interrupts.as_interrupted(exc), Interrupted):  # SIGINT/SIGTERM: see _interrupted
+            raise _interrupted(interrupts.as_interrupted(exc), run_id, store, db_path, handler, tmp, target, timings,
+                               publishing=publishing) from None
         mapped = isinstance(exc, OSError)
         if mapped:  # e.g. a full disk while writing the outputs
             exc = OutputError(f"{target}: cannot write the outputs ({exc.strerror or exc}); "
@@ -594,6 +596,55 @@ def _keep_failure_log(tmp: Path, target: Path, *, quiet: bool = False) -> None:
     except OSError:
         pass
     shutil.rmtree(tmp, ignore_errors=True)
+
+
+# ---------------------------------------------------------------------------- SIGINT and SIGTERM
+
+def _interrupted(exc: Interrupted, run_id: str, store: Store | None, db_path, handler: logging.Handler, tmp: Path,
+                 target: Path, timings: dict, *, publishing: bool) -> Interrupted:
+    """Clean up after a stop signal; returns the exception to raise (its message says what became
+    of the outputs). Further SIGINT/SIGTERM are ignored meanwhile (screening/interrupts.py).
+
+    The temporary folder is removed, its log kept beside the target as
+    ``<label>.interrupted-<time>.log`` (as the next run does for a killed one) and the run is
+    recorded as ``interrupted`` with the message. A signal between the two renames of
+    :func:`_publish` finds the earlier outputs set aside: they are put back. A signal after the
+    folder was moved into place leaves the folder, and the run is recorded ``ok`` (its record
+    was complete before the rename); the message says where the outputs are.
+    """
+    interrupts.pause_point("cleanup")  # test hook: a second signal arrives here
+    in_place = publishing and not tmp.exists() and target.exists()
+    exc = Interrupted(exc.signum, f"the outputs were already moved into place ({target})" if in_place
+                      else "nothing was published, earlier outputs are untouched")
+    log.debug("run %s: %s", run_id, exc)
+    log.removeHandler(handler)
+    handler.close()
+    try:
+        store = store or Store(db_path)
+        if in_place:
+            store.execute("set_run_status", {"run_id": run_id, "status": "ok", "message": ""})
+        elif publishing:
+            store.execute("set_run_status", {"run_id": run_id, "status": "interrupted", "message": str(exc)[:500]})
+        else:
+            store.execute("finish_run", {"run_id": run_id, "status": "interrupted", "input_hashes": "{}",
+                                         "versions": "{}", "timings": json.dumps(timings), "counts": "{}",
+                                         "message": str(exc)[:500], "out_dir": ""})
+    except Exception:  # noqa: BLE001 - the database may be what was interrupted; the next run settles it
+        pass
+    finally:
+        if store is not None:
+            store.close()
+    logf = tmp / "run.log"
+    try:
+        if logf.exists():
+            stamp = _dt.datetime.now().strftime('%Y%m%dT%H%M%S')
+            shutil.move(str(logf), target.parent / f"{target.name}.interrupted-{stamp}.log")
+    except OSError:
+        pass
+    shutil.rmtree(tmp, ignore_errors=True)
+    if not target.exists() and not target.is_symlink() and any(target.parent.glob(f".{target.name}.old-*")):
+        _clean_stale_temp(target, tmp)
+    return exc
 
 
 # ---------------------------------------------------------------------------- other commands
