@@ -155,6 +155,55 @@ def base_grid(cfg: dict) -> np.ndarray:
     return np.round(a["base_min_f"] + a["base_step_f"] * np.arange(n), 6)
 
 
+def nearest_base(grid: np.ndarray, base: np.ndarray) -> np.ndarray:
+    """Index of the grid base nearest to each ``base`` (the lower one on a tie, 0 for NaN).
+
+    The same as ``np.abs(grid[None, :] - base[:, None]).argmin(axis=1)`` for an ascending grid,
+    without the (rows × bases) temporary.
+    """
+    grid = np.asarray(grid, dtype=float)
+    base = np.asarray(base, dtype=float)
+    if grid.size < 2:
+        return np.zeros(base.shape, dtype=np.intp)
+    hi = np.clip(np.searchsorted(grid, base), 1, grid.size - 1)
+    lo = hi - 1
+    j = np.where(np.abs(grid[lo] - base) <= np.abs(grid[hi] - base), lo, hi)
+    return np.where(np.isnan(base), 0, j)
+
+
+class _PeriodHdd:
+    """Degree days of each billing period at every grid base, computed for the rows asked for.
+
+    The whole (periods × bases) array is 71 × 8 bytes per period (about 2 GB for 5 million
+    readings), so callers take it a block of rows at a time: ``self(rows)`` is
+    ``cube.period_totals(...)[0][rows]``, ``missing()`` the days without weather of every row,
+    ``at(j)`` row i's value at base index ``j[i]``.
+    """
+
+    BLOCK = 1 << 17
+
+    def __init__(self, cube, periods: pl.DataFrame):
+        self.cube = cube
+        self.st = periods["station_id"].to_numpy()
+        self.start = periods["period_start"].to_numpy()
+        self.end = periods["period_end"].to_numpy()
+        self.n = periods.height
+
+    def __call__(self, rows: np.ndarray) -> np.ndarray:
+        return self.cube.period_totals(self.st[rows], self.start[rows], self.end[rows])[0]
+
+    def _blocks(self):
+        for a in range(0, self.n, self.BLOCK):
+            yield np.arange(a, min(a + self.BLOCK, self.n))
+
+    def missing(self) -> np.ndarray:
+        return np.concatenate([self.cube.period_totals(self.st[r], self.start[r], self.end[r])[2]
+                               for r in self._blocks()])
+
+    def at(self, j: np.ndarray) -> np.ndarray:
+        return np.concatenate([self(r)[np.arange(r.size), j[r]] for r in self._blocks()])
+
+
 def _cross_check(b: pl.DataFrame, r: pl.DataFrame, stations: list[str], paths: dict) -> tuple:
     st = pl.Series(stations, dtype=pl.String).implode()
     bad_b = b.filter(~pl.col("station_id").is_in(st))
@@ -300,10 +349,9 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     periods = periods.join(b.select("building_id", "station_id"), on="building_id", how="left",
                            maintain_order="left")
     if periods.height:
-        period_hdd, _, period_missing = cube.period_totals(periods["station_id"].to_numpy(),
-                                                           periods["period_start"], periods["period_end"])
+        period_hdd = _PeriodHdd(cube, periods)  # rows computed a block at a time, never all at once
         periods = periods.with_columns(
-            (pl.col("usable") & pl.Series(period_missing == 0)).alias("usable"))
+            (pl.col("usable") & pl.Series(period_hdd.missing() == 0)).alias("usable"))
     else:
         period_hdd = np.zeros((0, grid.size))
     normal_hdd = normals.for_stations(st)
@@ -327,9 +375,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
                      maintain_order="left")
         base = np.where(np.isfinite(fb["fitted_base_f"].fill_null(np.nan).to_numpy()),
                         fb["fitted_base_f"].fill_null(np.nan).to_numpy(), fb["balance_point_f"].to_numpy())
-        j = np.abs(grid[None, :] - base[:, None]).argmin(axis=1)
         periods = periods.with_columns(
-            pl.Series("hdd_per_day_fit", period_hdd[np.arange(periods.height), j] / periods["days"].to_numpy()))
+            pl.Series("hdd_per_day_fit", period_hdd.at(nearest_base(grid, base)) / periods["days"].to_numpy()))
     hdd65 = cube.at_base(st, spans["span_start"], spans["span_end"], np.full(len(st), 65.0))[0]
     exp = env.expected_heating(envelope, grid, span_hdd, hdd_fixed_base=hdd65, n_draws=a["draws"], seed=a["seed"])
     lap("expected")
@@ -449,7 +496,7 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
     tau = sp["fitted_base_f"].to_numpy()
     hdd_cur = cube.at_base(st, sp["span_start"], sp["span_end"], tau)[0]
     hdd_prev, _, miss_prev = cube.at_base(st, sp["prev_start"], sp["prev_end"], tau)
-    j = np.abs(grid[None, :] - tau[:, None]).argmin(axis=1)
+    j = nearest_base(grid, tau)
     hdd_norm = normals.for_stations(st)[np.arange(st.size), j]
     days_prev = (sp["prev_end"] - sp["prev_start"]).dt.total_days().to_numpy() + 1
     heat_prev = np.maximum(sp["e_prev"].to_numpy() * (1.0 - sp["_share"].to_numpy())
@@ -487,7 +534,7 @@ def _daily_weights(cube, spans: pl.DataFrame, conv: pl.DataFrame, envelope: pl.D
     rng = spans.select("building_id", "station_id").join(rng, on="building_id", how="inner") \
         .join(envelope.select("building_id", "balance_point_f"), on="building_id").sort("building_id")
     d = cube.daily(rng["station_id"].to_numpy(), rng["s"], rng["e"])
-    j = np.abs(cube.bases_f[None, :] - rng["balance_point_f"].to_numpy()[:, None]).argmin(axis=1)
+    j = nearest_base(cube.bases_f, rng["balance_point_f"].to_numpy())
     w = d.dd[np.arange(d.row.size), j[d.row]]
     return pl.DataFrame({"building_id": rng["building_id"].to_numpy()[d.row],
                          "date": d.date.astype("datetime64[D]"),
