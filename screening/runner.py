@@ -391,14 +391,14 @@ def _year_ago(store: Store, window) -> pl.DataFrame | None:
 
 
 def _results_for_store(run_id: str, res: pl.DataFrame) -> pl.DataFrame:
-    rec_cols = [c for c in res.columns if res.schema[c] != pl.Object]
-    records = [json.dumps(x, default=str, sort_keys=True) for x in res.select(rec_cols).to_dicts()]
+    rec_cols = sorted(c for c in res.columns if res.schema[c] != pl.Object)
+    records = res.select(pl.struct(rec_cols).struct.json_encode())  # one JSON object per building, keys sorted
     return res.select(
         pl.lit(run_id).alias("run_id"), "building_id", pl.col("rank").cast(pl.Int32), "tier", "needs_review",
         "ratio", "actual_heating_kbtu", "expected_heating_kbtu", "normal_heating_kbtu", "excess_energy_kbtu",
         "excess_cost", pl.col("flag_codes").list.join(";").alias("flags"),
         pl.col("data_issue_codes").list.join(";").alias("data_issues"),
-    ).with_columns(pl.Series("record", records, dtype=pl.String))
+    ).with_columns(records.to_series().alias("record"))
 
 
 def _summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id) -> dict:
