@@ -52,6 +52,9 @@ def _log_to_stderr(quiet: bool, verbose: bool) -> None:
 
 def _fail(exc: BaseException) -> None:
     """Map an exception to one line on stderr and an exit code (no traceback for users)."""
+    if isinstance(exc, MemoryError):
+        from .memory import ran_out
+        exc = ran_out(exc, None)
     if isinstance(exc, ScreeningError):
         typer.echo(f"ddscreen: error: {exc}", err=True)
         raise typer.Exit(exc.exit_code)

@@ -74,3 +74,9 @@ class OutputError(ScreeningError):
 
 class RenderError(OutputError):
     """A sheet or report could not be laid out or written (names the building or file)."""
+
+
+class OutOfMemoryError(ScreeningError):
+    """The run needs (or ran out of) more memory than the process may use; names both and what to do."""
+
+    exit_code = EXIT_RUN_FAILED

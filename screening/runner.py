@@ -23,7 +23,7 @@ from pathlib import Path
 
 import polars as pl
 
-from . import __version__, config as cfgmod, outputs, pipeline
+from . import __version__, config as cfgmod, memory, outputs, pipeline
 from .errors import (ConfigError, InputError, LockedError, OutputError, ScreeningError, StoreError)
 from .ingest import REJECT_SCHEMA
 from .resources import sample_portfolio_dir
@@ -231,6 +231,7 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
 def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_of, window, *, force, config_path,
                 bar: "_Progress | None" = None):
     bar = bar or _Progress(False)
+    need = memory.check(files)  # stops here, nothing changed, when the run clearly cannot fit
     t_start = time.perf_counter()
     run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
     run_key = _run_key(label, cfg, files)  # the same for a rerun of the same quarter, inputs and settings
@@ -334,8 +335,10 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                                                                     "excess_cost").to_dicts()
         return RunResult(run_id, label, target, str(db_path), summary, top, loads)
     except BaseException as exc:
-        mapped = isinstance(exc, OSError)
-        if mapped:  # e.g. a full disk while writing the outputs
+        mapped = isinstance(exc, (OSError, MemoryError))
+        if isinstance(exc, MemoryError):
+            exc = memory.ran_out(exc, need)
+        elif mapped:  # e.g. a full disk while writing the outputs
             exc = OutputError(f"{target}: cannot write the outputs ({exc.strerror or exc}); "
                               "earlier outputs are untouched")
         # an expected error is printed once by the CLI; the run log keeps the detail
