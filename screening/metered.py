@@ -380,9 +380,11 @@ def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mont
           .with_columns(pl.format("{} {} overlaps a read ending {}", "fuel", rng, "_prev_end").alias("detail"))
           .select("building_id", pl.lit("overlapping_reads").alias("code"), "detail", "period_start"))
     parts.append(ov)
+    del hist, u
 
     h = r.filter(pl.col("_heat") & (pl.col("period_end") >= pl.col("span_start"))
-                 & (pl.col("period_start") <= pl.col("span_end")))
+                 & (pl.col("period_start") <= pl.col("span_end"))).drop("_ln", "_meter", "_heat", "_lb")
+    del r
     est = (h.group_by("building_id").agg(
         pl.len().alias("_n"), pl.col("_est").sum().alias("_ne"),
         pl.format("{}..{}", "period_start", "period_end").filter(pl.col("_est")).sort().str.join(", ").alias("_d"))
@@ -460,9 +462,9 @@ def fit_periods(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months:
         _lookback_start("span_end", lookback_months).alias("_lb"))
     r = _heat(readings)
     est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in r.columns else pl.lit(False)
+    r = r.select("building_id", "period_start", "period_end", "energy_kbtu", est.alias("_est"))
     p = (r.join(sp, on="building_id", how="inner")
          .filter((pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end")))
-         .with_columns(est.alias("_est"))
          .group_by("building_id", "period_start", "period_end")
          .agg(pl.col("energy_kbtu").sum(), pl.len().cast(pl.Int64).alias("n_reads"),
               pl.col("_est").any().alias("any_estimated"))

@@ -155,6 +155,11 @@ def base_grid(cfg: dict) -> np.ndarray:
     return np.round(a["base_min_f"] + a["base_step_f"] * np.arange(n), 6)
 
 
+#: columns of the converted readings that the screening steps read (quantity, unit, cost are not)
+_CONV_KEEP = ("building_id", "fuel", "meter_id", "period_start", "period_end", "energy_kbtu", "days",
+              "is_heating_fuel", "estimated", "_line")
+
+
 def nearest_base(grid: np.ndarray, base: np.ndarray) -> np.ndarray:
     """Index of the grid base nearest to each ``base`` (the lower one on a tie, 0 for NaN).
 
@@ -226,7 +231,8 @@ def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float) -> pl
     A factor of about 10, 100 or 1000 between years of one meter is the mark of a
     unit or entry error (therm vs ccf ×1.036 is too small to see; kBtu vs MMBtu is 1000).
     """
-    heat = conv.join(b.select("building_id", "heating_fuel"), on="building_id").filter(
+    heat = conv.select("building_id", "meter_id", "fuel", "period_start", "period_end", "days", "energy_kbtu").join(
+        b.select("building_id", "heating_fuel"), on="building_id").filter(
         (pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
     if heat.height == 0:
         return pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
@@ -319,6 +325,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     grid = base_grid(cfg)
     stations = sorted(weather["station_id"].unique().to_list())
     b, r, rejects = _cross_check(buildings, readings, stations, paths)
+    del readings  # the checked copy is all that is needed (a caller passing the store's frame frees it here)
     b = b.sort("building_id")
     if b.height == 0:
         raise InputError(paths.get("buildings", "buildings"), "no building could be screened",
@@ -335,6 +342,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     # metered side
     conv, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=a["gas_btu_per_ft3"],
                                           steam_btu_per_lb=a["steam_btu_per_lb"])
+    del r
+    conv = conv.select([c for c in _CONV_KEEP if c in conv.columns])  # what the later steps read
     if conv_rej.height:
         rejects = pl.concat([rejects, conv_rej.select(pl.lit(paths.get("readings", "readings")).alias("file"),
                                                       "line", "column", pl.col("value").cast(pl.String), "reason")

@@ -265,12 +265,12 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         _stage("after_load")
         bar.stage("screen")
         b = store.frame("select_buildings")
-        r = store.frame("select_readings")
         w = store.frame("select_weather")
         if w.height == 0:
             raise InputError(files["weather"][0], "no usable weather rows", expected="daily station data")
         paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
-        res = pipeline.screen_frames(b, r, w, cfg, window=window, paths=paths, previous=_year_ago(store, window))
+        # the readings frame is passed, not kept here, so screening can free it once checked
+        res = pipeline.screen_frames(b, store.frame("select_readings"), w, cfg, window=window, paths=paths, previous=_year_ago(store, window))
         timings.update(res.timings)
         _stage("after_screen")
         bar.stage("write tables")
