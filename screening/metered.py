@@ -358,7 +358,7 @@ def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mont
         (pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in readings.columns
          else pl.lit(False)).alias("_est"),
         (pl.col("is_heating_fuel") if "is_heating_fuel" in readings.columns else pl.lit(True)).alias("_heat"))
-    r = r.join(sp, on="building_id", how="inner")
+    r = r.join(sp.select("building_id", "span_start", "span_end", "_lb"), on="building_id", how="inner")
     rng = pl.format("{}..{}", "period_start", "period_end")
     parts: list[pl.DataFrame] = []
 

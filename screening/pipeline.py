@@ -189,21 +189,23 @@ class _PeriodHdd:
 
     def __init__(self, cube, periods: pl.DataFrame):
         self.cube = cube
-        self.st = periods["station_id"].to_numpy()
-        self.start = periods["period_start"].to_numpy()
-        self.end = periods["period_end"].to_numpy()
+        self.st = periods["station_id"]
+        self.start = periods["period_start"]
+        self.end = periods["period_end"]
         self.n = periods.height
 
+    def _totals(self, rows: np.ndarray):
+        return self.cube.period_totals(self.st.gather(rows), self.start.gather(rows), self.end.gather(rows))
+
     def __call__(self, rows: np.ndarray) -> np.ndarray:
-        return self.cube.period_totals(self.st[rows], self.start[rows], self.end[rows])[0]
+        return self._totals(rows)[0]
 
     def _blocks(self):
         for a in range(0, self.n, self.BLOCK):
             yield np.arange(a, min(a + self.BLOCK, self.n))
 
     def missing(self) -> np.ndarray:
-        return np.concatenate([self.cube.period_totals(self.st[r], self.start[r], self.end[r])[2]
-                               for r in self._blocks()])
+        return np.concatenate([self._totals(r)[2] for r in self._blocks()])
 
     def at(self, j: np.ndarray) -> np.ndarray:
         return np.concatenate([self(r)[np.arange(r.size), j[r]] for r in self._blocks()])
