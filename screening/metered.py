@@ -329,7 +329,31 @@ def calendarize(readings: pl.DataFrame, spans: pl.DataFrame, *, method: str = "d
 # --------------------------------------------------------------------------------------------
 
 def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months: int = 24,
-                   min_coverage: float = 0.9, max_estimated_share: float = 1 / 3) -> pl.DataFrame:
+                   min_coverage: float = 0.9, max_estimated_share: float = 1 / 3,
+                   block: int = 16384) -> pl.DataFrame:
+    """Data issues of each building's readings (see :func:`_reading_issues`), ``block`` buildings at a time.
+
+    Every issue concerns one building, so the blocks' results are those of one pass over all
+    buildings; the blocks only bound the memory of the joins and sorts (5 million readings at once
+    took about 1.5 GB).
+    """
+    _require(readings, "readings", ("building_id", "fuel", "period_start", "period_end"))
+    _require(spans, "spans", ("building_id", "span_start", "span_end"))
+    kw = {"lookback_months": lookback_months, "min_coverage": min_coverage,
+          "max_estimated_share": max_estimated_share}
+    if spans.height <= block:
+        return _reading_issues(readings, spans, **kw)
+    ids = spans["building_id"]
+    parts = []
+    for a in range(0, spans.height, block):
+        sp = spans.slice(a, block)
+        r = readings.filter(pl.col("building_id").is_in(ids.slice(a, block).implode()))
+        parts.append(_reading_issues(r, sp, **kw))
+    return pl.concat(parts).sort(["building_id", "code"])
+
+
+def _reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months: int = 24,
+                    min_coverage: float = 0.9, max_estimated_share: float = 1 / 3) -> pl.DataFrame:
     """Data issues of each building's readings, each naming the dates concerned.
 
     Scopes: duplicates and overlaps are looked for among all fuels' reads that end within the

@@ -129,3 +129,25 @@ def test_union_coverage_counts_each_covered_day_once():
         want.append(sum(1 for i in range((e - s).days + 1) if s + dt.timedelta(days=i) in days))
     order = sorted(range(len(spans)), key=lambda i: (spans[i][0], spans[i][1]))
     assert got["covered_days"].to_list() == [want[i] for i in order]
+
+
+def test_reading_issues_in_blocks_equal_one_pass():
+    # 30 buildings with random monthly reads: gaps, duplicates, overlaps, estimated reads, two meters
+    rng = np.random.default_rng(11)
+    rows = []
+    for b in range(30):
+        for m in range(24):
+            if rng.random() < 0.08:
+                continue  # a gap
+            s = dt.date(2024 + (m >= 12), m % 12 + 1, 1)
+            e = dt.date(2024 + (m >= 11), (m + 1) % 12 + 1, 1) - dt.timedelta(days=1)
+            if rng.random() < 0.05:
+                e += dt.timedelta(days=9)  # overlaps the next read
+            for _ in range(1 + (rng.random() < 0.06)):  # sometimes read twice
+                rows.append((f"B{b:02d}", "natural_gas", f"M{b % 2}", s, e, bool(rng.random() < 0.3), len(rows) + 2))
+    r = pl.DataFrame(rows, schema=["building_id", "fuel", "meter_id", "period_start", "period_end", "estimated",
+                                   "_line"], orient="row")
+    sp = metered.choose_spans(r, dt.date(2025, 1, 1), dt.date(2025, 12, 31), building_ids=r["building_id"].unique())
+    one = metered.reading_issues(r, sp)
+    assert set(one["code"]) >= {"duplicate_reads", "overlapping_reads", "gap_in_reads", "many_estimated_reads"}
+    assert metered.reading_issues(r, sp, block=7).equals(one)
