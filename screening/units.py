@@ -158,16 +158,27 @@ def convert_to_kbtu(readings: pl.DataFrame, buildings: pl.DataFrame, *,
 
     r = r.with_columns(pl.col("unit").cast(pl.String).str.strip_chars().str.to_lowercase().alias("_key"),
                        pl.col("fuel").cast(pl.String).str.strip_chars().alias("fuel"))
-    r = r.join(allowed.rename({"unit": "_unit"}), left_on=["fuel", "_key"], right_on=["fuel", "key"],
-               how="left")
-    r = r.join(b, on="building_id", how="left")
-    r = r.join(hc.select("fuel", "dimension", pl.col("btu_per_base").alias("_default_hc")),
-               on=["fuel", "dimension"], how="left")
-
     known_units = sorted(set(units["key"].to_list()))
     accepted = (allowed.filter(pl.col("dimension") != "energy").group_by("fuel")
                 .agg(pl.col("unit").unique().sort().str.join(", ").alias("_phys")))
-    r = r.join(accepted, on="fuel", how="left")
+
+    def look_up(x: pl.DataFrame, **kw) -> pl.DataFrame:
+        x = x.join(allowed.rename({"unit": "_unit"}), left_on=["fuel", "_key"], right_on=["fuel", "key"],
+                   how="left", **kw)
+        x = x.join(b, on="building_id", how="left", **kw)
+        x = x.join(hc.select("fuel", "dimension", pl.col("btu_per_base").alias("_default_hc")),
+                   on=["fuel", "dimension"], how="left", **kw)
+        return x.join(accepted, on="fuel", how="left", **kw)
+
+    # the look-ups join a frame of the three keys only (a join copies every column of its left side)
+    # and the found columns are attached to the readings; a key met twice in a table (more rows) or a
+    # column name of the readings met again falls back to joining the whole frame
+    keys = ["building_id", "fuel", "_key"]
+    found = look_up(r.select(keys), maintain_order="left")
+    found = found.drop(keys)
+    clash = set(found.columns) & set(r.columns)
+    r = r.hstack(found) if found.height == r.height and not clash else look_up(r)
+    del found
     reason = (
         pl.when(pl.col("building_id").is_null() | pl.col("heating_fuel").is_null())
         .then(pl.struct(column=pl.lit("building_id"), value=pl.col("building_id").cast(pl.String),
