@@ -16,13 +16,15 @@ from pathlib import Path
 from .errors import OutOfMemoryError
 
 # Peak resident memory of a run, linear in the rows of its inputs. Measured with
-# benchmarks/bench_memory.py (simulated portfolios of 2,000 to 118,000 buildings, 85,000 to
-# 5 million readings, first load and rerun, 2026-12-02; see README "Large files: memory and speed"):
-# the largest of the two runs, rounded up.
-BASE_BYTES = 400e6            # interpreter, libraries, weather cube, fixed tables
-BYTES_PER_READING = 480.0     # readings file rows
-BYTES_PER_BUILDING = 4_000.0  # buildings file rows (envelope draws, results, per-building frames)
-BYTES_PER_WEATHER_ROW = 200.0
+# benchmarks/bench_memory.py on simulated portfolios (2026-12-02; README "Large files: memory and
+# speed"): 2,000 buildings with 84,882 readings peaked at 383 MB, 118,000 with 5,016,061 readings at
+# 3.13-3.33 GB (first load and rerun alike). The slope, 590 bytes per reading at the simulator's 42
+# readings a building, is split into a per-building part (results, envelope draws, per-building
+# frames; set, not fitted: the simulator cannot vary the two apart) and the rest per reading.
+BASE_BYTES = 330e6            # interpreter, libraries, weather cube, fixed tables
+BYTES_PER_READING = 500.0     # readings file rows
+BYTES_PER_BUILDING = 4_000.0  # buildings file rows
+BYTES_PER_WEATHER_ROW = 200.0  # daily weather rows (the degree-day cube: 71 bases of cumulative sums)
 
 
 def count_rows(path: str | Path) -> int:

@@ -36,7 +36,9 @@ def test_check_refuses_a_run_larger_than_the_limit(tmp_path, monkeypatch):
     p = tmp_path / "readings.csv"
     p.write_text("h\n" + "x\n" * 1000)
     monkeypatch.setattr(memory, "available", lambda: (100e6, "the test limit"))
-    with pytest.raises(OutOfMemoryError, match=r"1,000 readings .* need about 400 MB, and the test limit leaves 100 MB"):
+    need = memory.gb(memory.estimate_peak(1000, 0, 0))
+    with pytest.raises(OutOfMemoryError, match=rf"1,000 readings of 0 buildings need about {need}, and the test limit "
+                                               r"leaves 100 MB; nothing was changed"):
         memory.check({"readings": [str(p)], "buildings": [], "weather": []})
     monkeypatch.setattr(memory, "available", lambda: (1e12, "the test limit"))
     assert memory.check({"readings": [str(p)], "buildings": [], "weather": []}) > 0
