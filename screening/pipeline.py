@@ -227,7 +227,18 @@ def _cross_check(b: pl.DataFrame, r: pl.DataFrame, stations: list[str], paths: d
     return b, r, pl.concat([x.cast(REJECT_SCHEMA) for x in rej])
 
 
-def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float) -> pl.DataFrame:
+def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float, *, block: int = 16384) -> pl.DataFrame:
+    """:func:`_unit_error_issues_block` over blocks of ``block`` buildings (each issue is one building's;
+    the blocks bound the memory of the window statistics over every reading)."""
+    if b.height <= block:
+        return _unit_error_issues_block(conv, b, factor)
+    ids = b["building_id"]
+    parts = [_unit_error_issues_block(conv.filter(pl.col("building_id").is_in(ids.slice(a, block).implode())),
+                                      b.slice(a, block), factor) for a in range(0, b.height, block)]
+    return pl.concat(parts).sort("building_id")
+
+
+def _unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float) -> pl.DataFrame:
     """Readings that differ from the same calendar month of other years by ≥ ``factor``.
 
     A factor of about 10, 100 or 1000 between years of one meter is the mark of a

@@ -153,3 +153,23 @@ def test_reading_issues_in_blocks_equal_one_pass():
     one = metered.reading_issues(r, sp)
     assert set(one["code"]) >= {"duplicate_reads", "overlapping_reads", "gap_in_reads", "many_estimated_reads"}
     assert metered.reading_issues(r, sp, block=7).equals(one)
+
+
+def test_unit_error_issues_in_blocks_equal_one_pass():
+    # 12 buildings, 3 years of monthly gas bills; some bills 100x or 1000x off their month's other years
+    rng = np.random.default_rng(17)
+    rows = []
+    for b in range(12):
+        for m in range(36):
+            s = dt.date(2023 + m // 12, m % 12 + 1, 1)
+            e = dt.date(2023 + (m + 1) // 12, (m + 1) % 12 + 1, 1) - dt.timedelta(days=1)
+            use = 100.0 * (1.5 + np.cos(2 * np.pi * (m % 12) / 12)) * (e - s).days
+            if rng.random() < 0.04:
+                use *= rng.choice([100.0, 1000.0])
+            rows.append((f"B{b:02d}", "natural_gas", "", s, e, (e - s).days + 1, use))
+    conv = pl.DataFrame(rows, schema=["building_id", "fuel", "meter_id", "period_start", "period_end", "days",
+                                      "energy_kbtu"], orient="row")
+    b = pl.DataFrame({"building_id": [f"B{i:02d}" for i in range(12)], "heating_fuel": ["natural_gas"] * 12})
+    one = pipeline._unit_error_issues(conv, b, 10.0)
+    assert one.height >= 2
+    assert pipeline._unit_error_issues(conv, b, 10.0, block=5).equals(one)
