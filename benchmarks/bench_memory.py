@@ -168,6 +168,7 @@ def main() -> None:
     print(f"readings file {size_mb:.0f} MB, {n_readings:,} readings; load average before {' '.join(load)}, "
           f"after {' '.join(open('/proc/loadavg').read().split()[:3])}; {dt.datetime.now():%Y-%m-%d %H:%M}")
     if a.json:
+        Path(a.json).parent.mkdir(parents=True, exist_ok=True)
         Path(a.json).write_text(json.dumps({"n": a.n, "readings": n_readings, "file_mb": round(size_mb, 1),
                                             "load": load, "runs": rows}, indent=2))
     if a.stages:

@@ -179,8 +179,8 @@ def nearest_base(grid: np.ndarray, base: np.ndarray) -> np.ndarray:
 class _PeriodHdd:
     """Degree days of each billing period at every grid base, computed for the rows asked for.
 
-    The whole (periods × bases) array is 71 × 8 bytes per period (about 2 GB for 5 million
-    readings), so callers take it a block of rows at a time: ``self(rows)`` is
+    The whole (periods × bases) array is 71 × 8 bytes per period (gigabytes for millions of
+    periods), so callers take it a block of rows at a time: ``self(rows)`` is
     ``cube.period_totals(...)[0][rows]``, ``missing()`` the days without weather of every row,
     ``at(j)`` row i's value at base index ``j[i]``.
     """
