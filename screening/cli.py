@@ -58,6 +58,9 @@ _reported: list[BaseException] = []  # what _fail has printed (main() prints a s
 
 def _fail(exc: BaseException) -> None:
     """Map an exception to one line on stderr and an exit code (no traceback for users)."""
+    if isinstance(exc, MemoryError):
+        from .memory import ran_out
+        exc = ran_out(exc, None)
     exc = interrupts.as_interrupted(exc)  # Ctrl-C, SIGTERM, or an error a library raised because of them
     _reported.append(exc)
     if isinstance(exc, (ScreeningError, Interrupted)):

@@ -103,3 +103,9 @@ class Interrupted(KeyboardInterrupt):
     @property
     def exit_code(self) -> int:
         return {2: EXIT_SIGINT, 15: EXIT_SIGTERM}.get(self.signum, 128 + self.signum)
+
+
+class OutOfMemoryError(ScreeningError):
+    """The run needs (or ran out of) more memory than the process may use; names both and what to do."""
+
+    exit_code = EXIT_RUN_FAILED

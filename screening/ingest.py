@@ -204,6 +204,7 @@ def _read_typed(path: str | Path, spec, opts: ReadOptions):
     t = read_table(path, required=required, optional=optional, label=label,
                    delimiter=opts.delimiter, encoding=opts.encoding)
     typed, prob = _typed_columns(t.df, spec, label, opts)
+    t.df = t.df.clear()  # the text columns are typed now; free them before the duplicate checks
     return t, typed, prob
 
 

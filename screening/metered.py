@@ -90,23 +90,34 @@ def _ordinal(col: str) -> pl.Expr:
     return pl.col(col).cast(pl.Date).cast(pl.Int64)
 
 
+def _merged_intervals(r: pl.DataFrame) -> pl.DataFrame:
+    """Each building's reading periods merged into disjoint day intervals ``_s.._e`` (ordinals).
+
+    Periods that overlap or touch become one interval, so a day read twice is counted once.
+    """
+    o = (r.select("building_id", _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e"))
+         .filter(pl.col("_s") <= pl.col("_e"))
+         .sort(["building_id", "_s", "_e"]))
+    o = o.with_columns(pl.col("_e").cum_max().shift(1).over("building_id").alias("_pe"))
+    o = o.with_columns((pl.col("_pe").is_null() | (pl.col("_s") > pl.col("_pe") + 1)).cum_sum().alias("_g"))
+    return o.group_by("_g").agg(pl.col("building_id").first(), pl.col("_s").min(), pl.col("_e").max()).drop("_g")
+
+
 def _union_coverage(r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str]) -> pl.DataFrame:
     """Days of each span covered by at least one reading (overlaps counted once).
 
     ``r``: ``building_id, period_start, period_end``; ``spans``: ``keys`` (including building_id),
     ``span_start, span_end``. Returns ``keys, covered_days`` for every span row.
+
+    The readings are first merged into disjoint intervals per building (usually one or a few), so
+    the join with the spans has one row per span and interval, not per span and reading.
     """
     keys = list(keys)
-    j = (spans.select(*keys, "span_start", "span_end")
-         .join(r.select("building_id", "period_start", "period_end"), on="building_id", how="inner")
-         .with_columns(pl.max_horizontal(_ordinal("period_start"), _ordinal("span_start")).alias("_s"),
-                       pl.min_horizontal(_ordinal("period_end"), _ordinal("span_end")).alias("_e"))
-         .filter(pl.col("_s") <= pl.col("_e"))
-         .sort([*keys, "_s", "_e"]))
-    j = j.with_columns(pl.col("_e").cum_max().shift(1).over(keys).alias("_prev"))
-    j = j.with_columns(
-        (pl.col("_e") - pl.max_horizontal(pl.col("_s"), pl.col("_prev").fill_null(-(10 ** 9)) + 1) + 1)
-        .clip(lower_bound=0).alias("_cov"))
+    m = _merged_intervals(r)
+    j = (spans.select(*keys, _ordinal("span_start").alias("_ss"), _ordinal("span_end").alias("_se"))
+         .join(m, on="building_id", how="inner")
+         .select(*keys, (pl.min_horizontal("_e", "_se") - pl.max_horizontal("_s", "_ss") + 1)
+                 .clip(lower_bound=0).alias("_cov")))
     cov = j.group_by(keys).agg(pl.col("_cov").sum().cast(pl.Int64).alias("covered_days"))
     return (spans.select(keys).join(cov, on=keys, how="left", nulls_equal=True)
             .with_columns(pl.col("covered_days").fill_null(0)))
@@ -318,7 +329,31 @@ def calendarize(readings: pl.DataFrame, spans: pl.DataFrame, *, method: str = "d
 # --------------------------------------------------------------------------------------------
 
 def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months: int = 24,
-                   min_coverage: float = 0.9, max_estimated_share: float = 1 / 3) -> pl.DataFrame:
+                   min_coverage: float = 0.9, max_estimated_share: float = 1 / 3,
+                   block: int = 16384) -> pl.DataFrame:
+    """Data issues of each building's readings (see :func:`_reading_issues`), ``block`` buildings at a time.
+
+    Every issue concerns one building, so the blocks' results are those of one pass over all
+    buildings; the blocks only bound the memory of the joins and sorts (5 million readings at once
+    took about 1.5 GB).
+    """
+    _require(readings, "readings", ("building_id", "fuel", "period_start", "period_end"))
+    _require(spans, "spans", ("building_id", "span_start", "span_end"))
+    kw = {"lookback_months": lookback_months, "min_coverage": min_coverage,
+          "max_estimated_share": max_estimated_share}
+    if spans.height <= block:
+        return _reading_issues(readings, spans, **kw)
+    ids = spans["building_id"]
+    parts = []
+    for a in range(0, spans.height, block):
+        sp = spans.slice(a, block)
+        r = readings.filter(pl.col("building_id").is_in(ids.slice(a, block).implode()))
+        parts.append(_reading_issues(r, sp, **kw))
+    return pl.concat(parts).sort(["building_id", "code"])
+
+
+def _reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months: int = 24,
+                    min_coverage: float = 0.9, max_estimated_share: float = 1 / 3) -> pl.DataFrame:
     """Data issues of each building's readings, each naming the dates concerned.
 
     Scopes: duplicates and overlaps are looked for among all fuels' reads that end within the
@@ -339,35 +374,41 @@ def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mont
                       *[c for c in ("span_kind", "coverage") if c in spans.columns])
     sp = sp.with_columns(_lookback_start("span_end", lookback_months).alias("_lb"))
     line = "_line" if "_line" in readings.columns else ("line" if "line" in readings.columns else None)
-    r = readings.with_columns(
+    r = readings.select(
+        "building_id", "fuel", "period_start", "period_end",
         (pl.col(line).cast(pl.Int64) if line else pl.lit(None, pl.Int64)).alias("_ln"),
         (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
         .alias("_meter"),
         (pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in readings.columns
          else pl.lit(False)).alias("_est"),
         (pl.col("is_heating_fuel") if "is_heating_fuel" in readings.columns else pl.lit(True)).alias("_heat"))
-    r = r.join(sp, on="building_id", how="inner")
+    r = r.join(sp.select("building_id", "span_start", "span_end", "_lb"), on="building_id", how="inner")
     rng = pl.format("{}..{}", "period_start", "period_end")
     parts: list[pl.DataFrame] = []
 
     hist = r.filter((pl.col("period_end") >= pl.col("_lb")) & (pl.col("period_start") <= pl.col("span_end")))
     keys = ["building_id", "fuel", "_meter"]
-    dup = (hist.group_by([*keys, "period_start", "period_end"])
+    same = [*keys, "period_start", "period_end"]
+    # only the reads that share their key get a line list (most keys occur once)
+    dup = (hist.select(*same, "_ln").filter(pl.len().over(same) > 1)
+           .group_by(same)
            .agg(pl.len().alias("_n"), pl.col("_ln").sort().cast(pl.String).str.join(", ").alias("_lines"))
            .filter(pl.col("_n") > 1)
            .with_columns(pl.format("{} {} read {} times (lines {})", "fuel", rng, "_n", "_lines").alias("detail"))
            .select("building_id", pl.lit("duplicate_reads").alias("code"), "detail", "period_start"))
     parts.append(dup)
-    u = (hist.unique([*keys, "period_start", "period_end"], keep="first")
+    u = (hist.select(*same).unique(keep="first")
          .sort([*keys, "period_start", "period_end"])
          .with_columns(pl.col("period_end").cum_max().shift(1).over(keys).alias("_prev_end")))
     ov = (u.filter(pl.col("_prev_end") >= pl.col("period_start"))
           .with_columns(pl.format("{} {} overlaps a read ending {}", "fuel", rng, "_prev_end").alias("detail"))
           .select("building_id", pl.lit("overlapping_reads").alias("code"), "detail", "period_start"))
     parts.append(ov)
+    del hist, u
 
     h = r.filter(pl.col("_heat") & (pl.col("period_end") >= pl.col("span_start"))
-                 & (pl.col("period_start") <= pl.col("span_end")))
+                 & (pl.col("period_start") <= pl.col("span_end"))).drop("_ln", "_meter", "_heat", "_lb")
+    del r
     est = (h.group_by("building_id").agg(
         pl.len().alias("_n"), pl.col("_est").sum().alias("_ne"),
         pl.format("{}..{}", "period_start", "period_end").filter(pl.col("_est")).sort().str.join(", ").alias("_d"))
@@ -445,9 +486,9 @@ def fit_periods(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months:
         _lookback_start("span_end", lookback_months).alias("_lb"))
     r = _heat(readings)
     est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in r.columns else pl.lit(False)
+    r = r.select("building_id", "period_start", "period_end", "energy_kbtu", est.alias("_est"))
     p = (r.join(sp, on="building_id", how="inner")
          .filter((pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end")))
-         .with_columns(est.alias("_est"))
          .group_by("building_id", "period_start", "period_end")
          .agg(pl.col("energy_kbtu").sum(), pl.len().cast(pl.Int64).alias("n_reads"),
               pl.col("_est").any().alias("any_estimated"))
@@ -659,7 +700,8 @@ def _fit_in_blocks(periods: pl.DataFrame, period_hdd: np.ndarray, building_ids: 
     for start in range(0, max(ids.len(), 1), block):
         bid = ids.slice(start, block)
         pick = rows.filter(pl.col("building_id").is_in(bid.implode()))["_r"].to_numpy()
-        arr = pad_periods(periods[pick], np.asarray(period_hdd)[pick], bid)
+        hdd = period_hdd(pick) if callable(period_hdd) else np.asarray(period_hdd)[pick]
+        arr = pad_periods(periods[pick], hdd, bid)
         parts.append(fit_variable_base(arr["use_per_day"], arr["days"], arr["hdd_per_day"], grid, arr["valid"],
                                        **fit_kw))
     return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
@@ -693,7 +735,9 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
     readings : converted readings (:func:`screening.units.convert_to_kbtu`).
     spans : from :func:`choose_spans`; **row i of every array argument belongs to row i of spans**.
     buildings : ``building_id, use_type, heating_fuel``.
-    periods, period_hdd : from :func:`fit_periods` and the degree-day engine, see :func:`pad_periods`.
+    periods, period_hdd : from :func:`fit_periods` and the degree-day engine, see :func:`pad_periods`;
+        ``period_hdd`` may also be a callable returning the rows of that array for an index array
+        (it is then asked one block of buildings at a time, so the whole array never exists).
     span_hdd : (n_b, n_bases) HDD of each building's span at each base [°F·day].
     normal_hdd : (n_b, n_bases) normal-year HDD at each base [°F·day].
     base_grid_f : (n_bases,) [°F].

@@ -185,6 +185,62 @@ def _source(frame: pl.DataFrame, paths: dict, kind: str) -> pl.Expr:
     return pl.col("_file") if "_file" in frame.columns else pl.lit(paths.get(kind, kind))
 
 
+#: columns of the converted readings that the screening steps read (quantity, unit, cost are not)
+_CONV_KEEP = ("building_id", "fuel", "meter_id", "period_start", "period_end", "energy_kbtu", "days",
+              "is_heating_fuel", "estimated", "_line")
+
+
+def nearest_base(grid: np.ndarray, base: np.ndarray) -> np.ndarray:
+    """Index of the grid base nearest to each ``base`` (the lower one on a tie, 0 for NaN).
+
+    The same as ``np.abs(grid[None, :] - base[:, None]).argmin(axis=1)`` for an ascending grid,
+    without the (rows × bases) temporary.
+    """
+    grid = np.asarray(grid, dtype=float)
+    base = np.asarray(base, dtype=float)
+    if grid.size < 2:
+        return np.zeros(base.shape, dtype=np.intp)
+    hi = np.clip(np.searchsorted(grid, base), 1, grid.size - 1)
+    lo = hi - 1
+    j = np.where(np.abs(grid[lo] - base) <= np.abs(grid[hi] - base), lo, hi)
+    return np.where(np.isnan(base), 0, j)
+
+
+class _PeriodHdd:
+    """Degree days of each billing period at every grid base, computed for the rows asked for.
+
+    The whole (periods × bases) array is 71 × 8 bytes per period (gigabytes for millions of
+    periods), so callers take it a block of rows at a time: ``self(rows)`` is
+    ``cube.period_totals(...)[0][rows]``, ``missing()`` the days without weather of every row,
+    ``at(j)`` row i's value at base index ``j[i]``.
+    """
+
+    BLOCK = 1 << 17
+
+    def __init__(self, cube, periods: pl.DataFrame):
+        self.cube = cube
+        self.st = periods["station_id"]
+        self.start = periods["period_start"]
+        self.end = periods["period_end"]
+        self.n = periods.height
+
+    def _totals(self, rows: np.ndarray):
+        return self.cube.period_totals(self.st.gather(rows), self.start.gather(rows), self.end.gather(rows))
+
+    def __call__(self, rows: np.ndarray) -> np.ndarray:
+        return self._totals(rows)[0]
+
+    def _blocks(self):
+        for a in range(0, self.n, self.BLOCK):
+            yield np.arange(a, min(a + self.BLOCK, self.n))
+
+    def missing(self) -> np.ndarray:
+        return np.concatenate([self._totals(r)[2] for r in self._blocks()])
+
+    def at(self, j: np.ndarray) -> np.ndarray:
+        return np.concatenate([self(r)[np.arange(r.size), j[r]] for r in self._blocks()])
+
+
 def _cross_check(b: pl.DataFrame, r: pl.DataFrame, stations: list[str], paths: dict) -> tuple:
     st = pl.Series(stations, dtype=pl.String).implode()
     bad_b = b.filter(~pl.col("station_id").is_in(st))
@@ -201,13 +257,25 @@ def _cross_check(b: pl.DataFrame, r: pl.DataFrame, stations: list[str], paths: d
     return b, r, pl.concat([x.cast(REJECT_SCHEMA) for x in rej])
 
 
-def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float) -> pl.DataFrame:
+def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float, *, block: int = 16384) -> pl.DataFrame:
+    """:func:`_unit_error_issues_block` over blocks of ``block`` buildings (each issue is one building's;
+    the blocks bound the memory of the window statistics over every reading)."""
+    if b.height <= block:
+        return _unit_error_issues_block(conv, b, factor)
+    ids = b["building_id"]
+    parts = [_unit_error_issues_block(conv.filter(pl.col("building_id").is_in(ids.slice(a, block).implode())),
+                                      b.slice(a, block), factor) for a in range(0, b.height, block)]
+    return pl.concat(parts).sort("building_id")
+
+
+def _unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float) -> pl.DataFrame:
     """Readings that differ from the same calendar month of other years by ≥ ``factor``.
 
     A factor of about 10, 100 or 1000 between years of one meter is the mark of a
     unit or entry error (therm vs ccf ×1.036 is too small to see; kBtu vs MMBtu is 1000).
     """
-    heat = conv.join(b.select("building_id", "heating_fuel"), on="building_id").filter(
+    heat = conv.select("building_id", "meter_id", "fuel", "period_start", "period_end", "days", "energy_kbtu").join(
+        b.select("building_id", "heating_fuel"), on="building_id").filter(
         (pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
     if heat.height == 0:
         return pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
@@ -300,6 +368,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     grid = base_grid(cfg)
     stations = sorted(weather["station_id"].unique().to_list())
     b, r, rejects = _cross_check(buildings, readings, stations, paths)
+    del readings  # the checked copy is all that is needed (a caller passing the store's frame frees it here)
     b = b.drop("_file", strict=False).sort("building_id")
     if b.height == 0:
         raise InputError(paths.get("buildings", "buildings"), "no building could be screened",
@@ -318,7 +387,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     # metered side
     conv, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=a["gas_btu_per_ft3"],
                                           steam_btu_per_lb=a["steam_btu_per_lb"])
-    conv = conv.drop("_file", strict=False)
+    del r
+    conv = conv.select([c for c in _CONV_KEEP if c in conv.columns])  # what the later steps read (not _file)
     if conv_rej.height:
         rejects = pl.concat([rejects, conv_rej.select(_source(conv_rej, paths, "readings").alias("file"),
                                                       "line", "column", pl.col("value").cast(pl.String), "reason")
@@ -335,10 +405,9 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     periods = periods.join(b.select("building_id", "station_id"), on="building_id", how="left",
                            maintain_order="left")
     if periods.height:
-        period_hdd, _, period_missing = cube.period_totals(periods["station_id"].to_numpy(),
-                                                           periods["period_start"], periods["period_end"])
+        period_hdd = _PeriodHdd(cube, periods)  # rows computed a block at a time, never all at once
         periods = periods.with_columns(
-            (pl.col("usable") & pl.Series(period_missing == 0)).alias("usable"))
+            (pl.col("usable") & pl.Series(period_hdd.missing() == 0)).alias("usable"))
     else:
         period_hdd = np.zeros((0, grid.size))
     normal_hdd = normals.for_stations(st)
@@ -362,9 +431,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
                      maintain_order="left")
         base = np.where(np.isfinite(fb["fitted_base_f"].fill_null(np.nan).to_numpy()),
                         fb["fitted_base_f"].fill_null(np.nan).to_numpy(), fb["balance_point_f"].to_numpy())
-        j = np.abs(grid[None, :] - base[:, None]).argmin(axis=1)
         periods = periods.with_columns(
-            pl.Series("hdd_per_day_fit", period_hdd[np.arange(periods.height), j] / periods["days"].to_numpy()))
+            pl.Series("hdd_per_day_fit", period_hdd.at(nearest_base(grid, base)) / periods["days"].to_numpy()))
     hdd65 = cube.at_base(st, spans["span_start"], spans["span_end"], np.full(len(st), 65.0))[0]
     exp = env.expected_heating(envelope, grid, span_hdd, hdd_fixed_base=hdd65, n_draws=a["draws"], seed=a["seed"])
     lap("expected")
@@ -541,7 +609,7 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
     tau = sp["fitted_base_f"].to_numpy()
     hdd_cur = cube.at_base(st, sp["span_start"], sp["span_end"], tau)[0]
     hdd_prev, _, miss_prev = cube.at_base(st, sp["prev_start"], sp["prev_end"], tau)
-    j = np.abs(grid[None, :] - tau[:, None]).argmin(axis=1)
+    j = nearest_base(grid, tau)
     hdd_norm = normals.for_stations(st)[np.arange(st.size), j]
     days_prev = (sp["prev_end"] - sp["prev_start"]).dt.total_days().to_numpy() + 1
     heat_prev = np.maximum(sp["e_prev"].to_numpy() * (1.0 - sp["_share"].to_numpy())
@@ -607,7 +675,7 @@ def _daily_weights(cube, spans: pl.DataFrame, conv: pl.DataFrame, envelope: pl.D
     rng = spans.select("building_id", "station_id").join(rng, on="building_id", how="inner") \
         .join(envelope.select("building_id", "balance_point_f"), on="building_id").sort("building_id")
     d = cube.daily(rng["station_id"].to_numpy(), rng["s"], rng["e"])
-    j = np.abs(cube.bases_f[None, :] - rng["balance_point_f"].to_numpy()[:, None]).argmin(axis=1)
+    j = nearest_base(cube.bases_f, rng["balance_point_f"].to_numpy())
     w = d.dd[np.arange(d.row.size), j[d.row]]
     return pl.DataFrame({"building_id": rng["building_id"].to_numpy()[d.row],
                          "date": d.date.astype("datetime64[D]"),

@@ -25,7 +25,7 @@ from pathlib import Path
 import duckdb
 import polars as pl
 
-from . import __version__, config as cfgmod, interrupts, outputs, pipeline, published, sources
+from . import __version__, config as cfgmod, interrupts, memory, outputs, pipeline, published, sources
 from .errors import (ConfigError, InputError, LockedError, OutputError, ScreeningError, StoreError)
 from .errors import Interrupted
 from .ingest import REJECT_SCHEMA
@@ -240,6 +240,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
        and the record in a state the next run settles (``published.settle_dead_runs``).
     """
     bar = bar or _Progress(False)
+    need = memory.check(files)  # stops here, nothing changed, when the run clearly cannot fit
     t_start = time.perf_counter()
     run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
     run_key = _run_key(label, cfg, files)  # the same for a rerun of the same quarter, inputs and settings
@@ -279,7 +280,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             for n in fl.notices:
                 log.warning("%s", n)
         _stage("after_load")
-        b, r, w, cross_rej = _stored_inputs(store)
+        stored = _stored_inputs(store)
+        b, w, cross_rej = stored["buildings"], stored["weather"], stored["rejects"]
         if w.height == 0:
             raise InputError(files["weather"][0], "no usable weather rows", expected="daily station data")
         load_rej = store.frame("select_load_rejects")
@@ -290,7 +292,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         store = None
         bar.stage("screen")
         paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
-        res = pipeline.screen_frames(b, r, w, cfg, window=window, paths=paths, previous=previous)
+        # the readings frame is passed, not kept here, so screening can free it once checked
+        res = pipeline.screen_frames(b, stored.pop("readings"), w, cfg, window=window, paths=paths, previous=previous)
         timings.update(res.timings)
         _stage("after_screen")
         bar.stage("write tables")
@@ -364,8 +367,10 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         if isinstance(interrupts.as_interrupted(exc), Interrupted):  # SIGINT/SIGTERM: see _interrupted
             raise _interrupted(interrupts.as_interrupted(exc), run_id, store, db_path, handler, tmp, target, timings,
                                publishing=publishing) from None
-        mapped = isinstance(exc, OSError)
-        if mapped:  # e.g. a full disk while writing the outputs
+        mapped = isinstance(exc, (OSError, MemoryError))
+        if isinstance(exc, MemoryError):
+            exc = memory.ran_out(exc, need)
+        elif mapped:  # e.g. a full disk while writing the outputs
             exc = OutputError(f"{target}: cannot write the outputs ({exc.strerror or exc}); "
                               "earlier outputs are untouched")
         # an expected error is printed once by the CLI; the run log keeps the detail
@@ -430,8 +435,9 @@ def _workers(wanted: int) -> int:
     return max(1, min(wanted, cores))
 
 
-def _stored_inputs(store: Store) -> tuple[pl.DataFrame, pl.DataFrame, pl.DataFrame, pl.DataFrame]:
-    """The stored rows of the files the run names, one row per key across files (see ``sources``)."""
+def _stored_inputs(store: Store) -> dict[str, pl.DataFrame]:
+    """The stored rows of the files the run names, one row per key across files (see ``sources``):
+    ``buildings``, ``readings``, ``weather`` and the cross-file ``rejects``."""
     frames, rejects = [], []
     for name, spec in (("select_buildings", sources.BUILDINGS), ("select_readings", sources.READINGS),
                        ("select_weather", sources.WEATHER)):
@@ -444,7 +450,7 @@ def _stored_inputs(store: Store) -> tuple[pl.DataFrame, pl.DataFrame, pl.DataFra
             df = df.drop(sources.LINE_COL, sources.FILE_COL, strict=False)
         frames.append(df)
         rejects.append(rej)
-    return frames[0], frames[1], frames[2], pl.concat(rejects)
+    return {"buildings": frames[0], "readings": frames[1], "weather": frames[2], "rejects": pl.concat(rejects)}
 
 
 def _run_key(label: str, cfg: dict, files: dict[str, list[str]]) -> str:
@@ -474,14 +480,14 @@ def _year_ago(store: Store, window) -> pl.DataFrame | None:
 
 
 def _results_for_store(run_id: str, res: pl.DataFrame) -> pl.DataFrame:
-    rec_cols = [c for c in res.columns if res.schema[c] != pl.Object]
-    records = [json.dumps(x, default=str, sort_keys=True) for x in res.select(rec_cols).to_dicts()]
+    rec_cols = sorted(c for c in res.columns if res.schema[c] != pl.Object)
+    records = res.select(pl.struct(rec_cols).struct.json_encode())  # one JSON object per building, keys sorted
     return res.select(
         pl.lit(run_id).alias("run_id"), "building_id", pl.col("rank").cast(pl.Int32), "tier", "needs_review",
         "ratio", "actual_heating_kbtu", "expected_heating_kbtu", "normal_heating_kbtu", "excess_energy_kbtu",
         "excess_cost", pl.col("flag_codes").list.join(";").alias("flags"),
         pl.col("data_issue_codes").list.join(";").alias("data_issues"),
-    ).with_columns(pl.Series("record", records, dtype=pl.String))
+    ).with_columns(records.to_series().alias("record"))
 
 
 def _summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id) -> dict:

@@ -260,10 +260,10 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         "baseload_share", "baseload_share_default", "fitted_base_f", "r2", "cv_rmse", "yoy_change",
         "tier", "needs_review", "blocking", "excess_energy_kbtu", "evidence_score", "z_balance_point", "z_intensity",
         "z_yoy", "review_path", "span_kind", "data_issue_codes",
-        *[c for c in out.columns if c.startswith("_f_")]).to_dicts()
+        *[c for c in out.columns if c.startswith("_f_")])
     e = energy_factor
     codes_all, texts_all, verdicts = [], [], []
-    for r in rows:
+    for r in rows.iter_rows(named=True):  # one row's dict at a time, not all of them at once
         codes, texts = [], []
 
         def add(code: str, text: str) -> None:

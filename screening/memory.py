@@ -1,0 +1,160 @@
+"""How much memory a run will need, how much this process may use, and the message when it is short.
+
+Layer 3 (reads /proc, /sys/fs/cgroup and the process's resource limits). A run that runs out of
+memory inside the data libraries (polars, DuckDB) cannot be caught: the process aborts. So the
+runner estimates the run's peak from the input row counts before it starts, and stops with one line
+and exit 1 when the estimate is larger than what the process may use; a Python ``MemoryError`` that
+happens anyway becomes the same one-line error.
+"""
+
+from __future__ import annotations
+
+import os
+import resource
+from pathlib import Path
+
+from .errors import OutOfMemoryError
+
+# Peak resident memory of a run, linear in the rows of its inputs. Measured with
+# benchmarks/bench_memory.py on simulated portfolios (2026-12-02; README "Large files: memory and
+# speed"): 2,000 buildings with 84,882 readings peaked at 383 MB, 118,000 with 5,016,061 readings at
+# 3.13-3.33 GB (first load and rerun alike). The slope, 590 bytes per reading at the simulator's 42
+# readings a building, is split into a per-building part (results, envelope draws, per-building
+# frames; set, not fitted: the simulator cannot vary the two apart) and the rest per reading.
+BASE_BYTES = 330e6            # interpreter, libraries, weather cube, fixed tables
+BYTES_PER_READING = 500.0     # readings file rows
+BYTES_PER_BUILDING = 4_000.0  # buildings file rows
+BYTES_PER_WEATHER_ROW = 200.0  # daily weather rows (the degree-day cube: 71 bases of cumulative sums)
+
+
+def count_rows(path: str | Path) -> int:
+    """Lines of a text file less the header (a quick upper bound of its records)."""
+    n = 0
+    last = b"\n"
+    with open(path, "rb") as f:
+        for chunk in iter(lambda: f.read(1 << 22), b""):
+            n += chunk.count(b"\n")
+            last = chunk[-1:]
+    return max(0, n + (last != b"\n") - 1)
+
+
+def estimate_peak(readings: int, buildings: int, weather: int) -> float:
+    """Estimated peak resident memory of a run over inputs of these row counts [bytes]."""
+    return (BASE_BYTES + BYTES_PER_READING * readings + BYTES_PER_BUILDING * buildings
+            + BYTES_PER_WEATHER_ROW * weather)
+
+
+def _read_int(path: str) -> int | None:
+    try:
+        text = Path(path).read_text().strip()
+    except OSError:
+        return None
+    return int(text) if text.isdigit() else None
+
+
+def _stat_value(path: str, keys: tuple[str, ...]) -> int:
+    try:
+        for line in Path(path).read_text().splitlines():
+            k, _, v = line.partition(" ")
+            if k in keys and v.strip().isdigit():
+                return int(v)
+    except OSError:
+        pass
+    return 0
+
+
+def _cgroup_room() -> int | None:
+    """Memory the process's cgroup may still take (limit − usage + reclaimable file cache)."""
+    try:
+        lines = Path("/proc/self/cgroup").read_text().splitlines()
+    except OSError:
+        return None
+    for line in lines:
+        _, ctrl, rel = line.split(":", 2)
+        if ctrl == "":  # cgroup v2
+            d = f"/sys/fs/cgroup{rel.rstrip('/')}"
+            limit, usage = _read_int(f"{d}/memory.max"), _read_int(f"{d}/memory.current")
+            cache = _stat_value(f"{d}/memory.stat", ("inactive_file",))
+        elif "memory" in ctrl.split(","):  # cgroup v1
+            d = f"/sys/fs/cgroup/memory{rel.rstrip('/')}"
+            if not os.path.isdir(d):
+                d = "/sys/fs/cgroup/memory"
+            limit, usage = _read_int(f"{d}/memory.limit_in_bytes"), _read_int(f"{d}/memory.usage_in_bytes")
+            cache = _stat_value(f"{d}/memory.stat", ("total_inactive_file", "inactive_file"))
+        else:
+            continue
+        if limit is not None and limit < (1 << 60):  # "max" or a huge number: no limit
+            return max(0, limit - (usage or 0) + cache)
+    return None
+
+
+def _status_kb(key: str) -> int | None:
+    try:
+        for line in Path("/proc/self/status").read_text().splitlines():
+            if line.startswith(key + ":"):
+                return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    return None
+
+
+def available() -> tuple[float, str]:
+    """What this process may still use [bytes] and what sets it (the smallest of the limits found)."""
+    found: list[tuple[float, str]] = []
+    soft, _ = resource.getrlimit(resource.RLIMIT_AS)
+    if soft != resource.RLIM_INFINITY:
+        found.append((max(0, soft - (_status_kb("VmSize") or 0)), "the address-space limit (ulimit -v)"))
+    room = _cgroup_room()
+    if room is not None:
+        found.append((room, "the memory limit of this container/cgroup"))
+    avail = _status_meminfo("MemAvailable")
+    if avail is not None:
+        found.append((avail, "the memory available on this machine"))
+    if not found:
+        return float("inf"), "no limit found"
+    return min(found)
+
+
+def _status_meminfo(key: str) -> int | None:
+    try:
+        for line in Path("/proc/meminfo").read_text().splitlines():
+            if line.startswith(key + ":"):
+                return int(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    return None
+
+
+def gb(x: float) -> str:
+    return f"{x / 1e9:.1f} GB" if x >= 1e9 else f"{x / 1e6:.0f} MB"
+
+
+def check(files: dict[str, list[str]]) -> float:
+    """Stop (``OutOfMemoryError``) when the run clearly needs more memory than the process may use.
+
+    ``files``: the run's input paths by kind. Returns the estimate [bytes].
+    """
+    def rows_of(path):
+        try:
+            return count_rows(path)
+        except OSError:  # reported with its reason when the file is read
+            return 0
+    rows = {k: sum(rows_of(p) for p in files.get(k, [])) for k in ("readings", "buildings", "weather")}
+    need = estimate_peak(rows["readings"], rows["buildings"], rows["weather"])
+    have, what = available()
+    if need > have:
+        raise OutOfMemoryError(
+            f"not enough memory: {rows['readings']:,} readings of {rows['buildings']:,} buildings need about "
+            f"{gb(need)}, and {what} leaves {gb(have)}; nothing was changed. Run on a machine with more "
+            "free memory, raise the limit, or screen the portfolio in smaller parts (fewer files per run)")
+    return need
+
+
+def ran_out(exc: MemoryError, need: float | None) -> OutOfMemoryError:
+    """The one-line error for a ``MemoryError`` raised during a run."""
+    have, what = available()
+    est = f"; the estimate was {gb(need)}" if need else ""
+    return OutOfMemoryError(
+        f"ran out of memory{est}, and {what} leaves {gb(have)} now; earlier outputs are untouched. Run on a "
+        "machine with more free memory, raise the limit, or screen the portfolio in smaller parts (fewer "
+        "files per run)")
