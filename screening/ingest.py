@@ -196,7 +196,7 @@ def _combine(df: pl.DataFrame, prob: pl.DataFrame, structural: list[dict]) -> tu
     return good, rej
 
 
-def _read_typed(path: str | Path, spec, opts: ReadOptions):
+def _read_typed(path: str | Path, spec, opts: ReadOptions, *, keep_text: tuple[str, ...] = ()):
     """Read one file with its column spec: (raw table, typed frame, value problems)."""
     label = str(path)
     required = [c for c, _, _, r, _ in spec if r]
@@ -204,7 +204,8 @@ def _read_typed(path: str | Path, spec, opts: ReadOptions):
     t = read_table(path, required=required, optional=optional, label=label,
                    delimiter=opts.delimiter, encoding=opts.encoding)
     typed, prob = _typed_columns(t.df, spec, label, opts)
-    t.df = t.df.clear()  # the text columns are typed now; free them before the duplicate checks
+    # the text columns are typed now; free them before the duplicate checks (but those still read)
+    t.df = t.df.select([c for c in keep_text if c in t.df.columns]) if keep_text else t.df.clear()
     return t, typed, prob
 
 
@@ -250,8 +251,9 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     """
     opts = opts or ReadOptions()
     label = str(path)
-    t, typed, prob = _read_typed(path, READING_COLUMNS, opts)
+    t, typed, prob = _read_typed(path, READING_COLUMNS, opts, keep_text=("period_start", "period_end"))
     typed, stamp_notes = _midnight_ends(t.df, typed, label)
+    t.df = t.df.clear()
     order = typed.filter(pl.col("period_end") < pl.col("period_start")).select(
         pl.lit(label).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit("period_end").alias("column"),
         pl.col("period_end").cast(pl.String).alias("value"),

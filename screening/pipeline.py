@@ -387,6 +387,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     # metered side
     conv, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=a["gas_btu_per_ft3"],
                                           steam_btu_per_lb=a["steam_btu_per_lb"])
+    n_readings = r.height
     del r
     conv = conv.select([c for c in _CONV_KEEP if c in conv.columns])  # what the later steps read (not _file)
     if conv_rej.height:
@@ -397,7 +398,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     spans = metered.choose_spans(conv, ws, we, lookback_months=a["lookback_months"],
                                  min_coverage=thr["coverage_min"], building_ids=b["building_id"])
     if not bool((spans["coverage"].fill_null(0.0) > 0).any()):
-        _no_building_screenable(conv, r, window, a["lookback_months"], paths)
+        _no_building_screenable(conv, n_readings, window, a["lookback_months"], paths)
     spans = spans.join(b.select("building_id", "station_id"), on="building_id", how="left", maintain_order="left")
     st = spans["station_id"].to_numpy()
     span_hdd, span_days, span_missing = cube.period_totals(st, spans["span_start"], spans["span_end"])
@@ -554,12 +555,12 @@ def _check_normal_years(normals, b: pl.DataFrame, weather: pl.DataFrame, ny: lis
                       "expected years the weather files cover (or leave it empty for every complete year)")
 
 
-def _no_building_screenable(conv: pl.DataFrame, r: pl.DataFrame, window, lookback: int, paths: dict) -> None:
+def _no_building_screenable(conv: pl.DataFrame, n_readings: int, window, lookback: int, paths: dict) -> None:
     """No building has a heating-fuel reading on any day of its span: nothing can be screened."""
     ws, we = window
     if conv.height:
         span = f"readings run from {conv['period_start'].min()} to {conv['period_end'].max()}"
-    elif r.height:
+    elif n_readings:
         span = "no reading converts to energy (see rejects)"
     else:
         span = "no reading was accepted"
