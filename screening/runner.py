@@ -671,6 +671,7 @@ class Validation:
     problems: list[str]
     rows: dict[str, int]
     notices: list[str]
+    suggestions: list[str] = field(default_factory=list)   # TOML column mappings to confirm, one per file
 
     @property
     def ok(self) -> bool:
@@ -686,12 +687,15 @@ def validate(buildings: str, readings: str, weather: str, *, config_path: str | 
     notices: list[str] = []
     rows: dict[str, int] = {}
     loaded = {}
+    suggestions: list[str] = []
     rejects: list[pl.DataFrame] = []
     for kind, path in (("buildings", buildings), ("readings", readings), ("weather", weather)):
         try:
             ld = pipeline.read_file(kind, path, opts)
         except InputError as exc:
             problems.append(str(exc))
+            if exc.problem == "missing required column":
+                suggestions.extend(_mapping_suggestion(kind, path, opts))
             continue
         loaded[kind] = ld
         rows[kind] = ld.df.height
@@ -714,7 +718,30 @@ def validate(buildings: str, readings: str, weather: str, *, config_path: str | 
         for r in allrej.iter_rows(named=True):
             problems.append(f"{r['file']}, line {r['line']}, column {r['column']!r}: {r['reason']}"
                             + (f" (got {r['value']!r})" if r["value"] is not None else ""))
-    return Validation(problems, rows, notices)
+    return Validation(problems, rows, notices, suggestions)
+
+
+def _mapping_suggestion(kind: str, path: str, opts) -> list[str]:
+    """A ``[inputs.columns.KIND]`` block for a file that lacks required columns (or nothing to suggest)."""
+    from . import colmap
+    from .csvread import read_header
+    try:
+        header = read_header(path, delimiter=opts.delimiter, encoding=opts.encoding)
+    except InputError:
+        return []
+    given = dict(opts.columns.get(kind) or {})
+    norm_given = {k.strip().lower() for k in given}
+    free = [h for h in header if h.strip().lower() not in norm_given]
+    taken = set(given.values())
+    pairs = [(t, o, "") for t, o in given.items()] + [
+        (t, o, w) for t, o, w in colmap.suggest(free, kind) if o not in taken]
+    if len(pairs) == len(given):
+        return []
+    missing = colmap.missing_after(header, kind, {t: o for t, o, _ in pairs})
+    block = colmap.toml_block(kind, pairs)
+    if missing:
+        block += "\n# still missing: " + ", ".join(missing) + " (add a line for each)"
+    return [f"# {path}\n{block}"]
 
 
 def status(db_path: str, limit: int = 10) -> pl.DataFrame:
@@ -811,27 +838,86 @@ CONFIG_TEMPLATE_HEADER = """# ddscreen configuration (TOML). Every key is option
 """
 
 
-def init_config(path: str, *, overwrite: bool = False) -> Path:
-    """Write a commented configuration template with every key and its default."""
+def init_config(path: str, *, overwrite: bool = False, sources: list[str] | None = None,
+                report: list[str] | None = None) -> Path:
+    """Write a commented configuration template with every key and its default.
+
+    With ``sources`` (files, or ``KIND=FILE``) the inputs point at those files, each file's kind
+    is taken from its header where not given, and the column mapping that could be inferred is
+    written as ``[inputs.columns.KIND]`` tables, every line commented with how it was found, for
+    the user to confirm. ``report`` receives one line per file (what was found, what is missing).
+    """
     p = Path(path)
     if p.exists() and not overwrite:
         raise ConfigError(f"{p} exists; use --force to overwrite it")
     from .config import DEFAULTS, template_comments
+    inputs, blocks = _infer_inputs(sources or [], p, report if report is not None else [])
     lines = [CONFIG_TEMPLATE_HEADER.format(name=p.name)]
     for section, values in DEFAULTS.items():
         lines.append(f"[{section}]")
         for key, value in values.items():
             comment = template_comments().get((section, key), "")
+            if section == "inputs" and key in inputs:
+                value = inputs[key]
+            if isinstance(value, dict):
+                lines.append(f"# {key}: your column names → ours, one table per file kind, e.g.")
+                lines.append("#   [inputs.columns.readings]")
+                lines.append('#   "Usage" = "quantity"' + ("   (the tables inferred from your files are at the end)"
+                                                           if blocks else ""))
+                continue
             if value is None:
                 lines.append(f"# {key} = 0.37" + (f"  # {comment}" if comment else ""))
                 continue
             lines.append(f"{key} = {_toml_value(value)}" + (f"  # {comment}" if comment else ""))
         lines.append("")
+    if blocks:
+        lines.append("# Column mappings inferred from your files' headers: check every line (a run uses them as")
+        lines.append("# written and guesses nothing itself), then run:  ddscreen validate --config " + p.name + " ...")
+        lines += blocks
     try:
         p.write_text("\n".join(lines), encoding="utf-8")
     except OSError as exc:
         raise OutputError(f"{p}: cannot write ({exc.strerror or exc})") from None
     return p
+
+
+def _infer_inputs(sources: list[str], cfg_path: Path, report: list[str]) -> tuple[dict[str, str], list[str]]:
+    """For ``init --from``: each file's kind and inferred column mapping (TOML blocks)."""
+    from . import colmap
+    from .config import column_names
+    from .csvread import read_header, split_sheet
+    inputs: dict[str, str] = {}
+    blocks: list[str] = []
+    for src in sources:
+        kind, sep, file = src.partition("=")
+        if not sep or kind.strip().lower() not in column_names():
+            kind, file = "", src
+        kind = kind.strip().lower()
+        if not Path(split_sheet(file)[0]).is_file():
+            raise InputError(file, "file not found")
+        header = read_header(file)
+        if kind:
+            sug = colmap.suggest(header, kind)
+            missing = colmap.missing_after(header, kind, {t: o for t, o, _ in sug})
+        else:
+            kind, sug, missing = colmap.best_kind(header)
+        if kind in inputs:
+            raise ConfigError(f"init --from: {inputs[kind]} and {file} both look like {kind} files; give one file "
+                              "per kind (KIND=FILE to say which), and put a glob in the config for several")
+        try:
+            rel = os.path.relpath(Path(split_sheet(file)[0]).resolve(), cfg_path.resolve().parent)
+            shown = rel + (("#" + split_sheet(file)[1]) if split_sheet(file)[1] else "")
+        except ValueError:
+            shown = str(Path(file).resolve())
+        inputs[kind] = shown
+        if sug:
+            block = colmap.toml_block(kind, sug)
+            if missing:
+                block += "\n# still missing: " + ", ".join(missing) + " (add a line for each)"
+            blocks += [f"# from {file}", block, ""]
+        report.append(f"{file}: read as {kind}; {len(sug)} column(s) mapped"
+                      + (f"; still missing {', '.join(missing)}" if missing else ""))
+    return inputs, blocks
 
 
 def _toml_value(v) -> str:
