@@ -256,6 +256,8 @@ def number_text(s: pl.Series, *, decimal_comma: bool = False, thousands: str = "
         .when(pct & pl.lit(not share)).then(pl.lit("a percent sign in a column that is not a share"))
         .when(problem_grouped & body.str.contains(r"\.").fill_null(False))
         .then(s.str.strip_chars() + pl.lit(': a thousands separator; set [reading] thousands = ","'))
+        .when(pl.lit(not decimal_comma) & body.str.contains(r"^[-+]?\d+,\d+$").fill_null(False) & ~problem_grouped)
+        .then(s.str.strip_chars() + pl.lit(": a decimal comma; set [reading] decimal_comma = true"))
         .when(problem_grouped)
         .then(s.str.strip_chars() + pl.lit(': a thousands separator (or a decimal comma); set [reading] thousands '
                                            '= "," (or decimal_comma = true)'))
