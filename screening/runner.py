@@ -304,7 +304,11 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         outputs.write_csv(ranking, tmp / "ranking.csv")
         outputs.write_csv(rejects, tmp / "rejects.csv")
         outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
-        outputs.write_csv(outputs.assumptions_table(res.envelope, disp), tmp / "assumptions.csv")
+        assumptions = outputs.assumptions_table(res.envelope, disp)
+        outputs.write_csv(assumptions, tmp / "assumptions.csv")
+        from .xlsxout import write_ranking_xlsx
+        write_ranking_xlsx(tmp / "ranking.xlsx", ranking=ranking, issues=res.issues.sort("building_id", "code"),
+                           rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"])
         timings["csv"] = round(time.perf_counter() - t, 4)
         summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev[0][1] if prev else None)
         paper = cfg["output"]["paper"]
@@ -614,7 +618,8 @@ def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: b
 # Every top-level name a run writes into its output folder (tests/test_unattended.py checks
 # that a run writes nothing else): the demo, which writes into a folder of its own choosing,
 # replaces only these, and only when they are what its previous run wrote.
-OUTPUT_NAMES = ("assumptions.csv", "data_issues.csv", "ranking.csv", "ranking.pdf", "rejects.csv", "run.log",
+OUTPUT_NAMES = ("assumptions.csv", "data_issues.csv", "ranking.csv", "ranking.pdf", "ranking.xlsx", "rejects.csv",
+                "run.log",
                 "sheets", "sheets_index.csv", "summary.json")
 
 
@@ -838,6 +843,11 @@ CONFIG_TEMPLATE_HEADER = """# ddscreen configuration (TOML). Every key is option
 """
 
 
+#: Keys the template shows as a commented example while they keep their default (the file then also
+#: loads in versions before the key existed).
+TEMPLATE_EXAMPLES = {("reading", "thousands"): '","'}
+
+
 def init_config(path: str, *, overwrite: bool = False, sources: list[str] | None = None,
                 report: list[str] | None = None) -> Path:
     """Write a commented configuration template with every key and its default.
@@ -867,6 +877,9 @@ def init_config(path: str, *, overwrite: bool = False, sources: list[str] | None
                 continue
             if value is None:
                 lines.append(f"# {key} = 0.37" + (f"  # {comment}" if comment else ""))
+                continue
+            if (section, key) in TEMPLATE_EXAMPLES and value == DEFAULTS[section][key]:
+                lines.append(f"# {key} = {TEMPLATE_EXAMPLES[(section, key)]}" + (f"  # {comment}" if comment else ""))
                 continue
             lines.append(f"{key} = {_toml_value(value)}" + (f"  # {comment}" if comment else ""))
         lines.append("")

@@ -155,3 +155,54 @@ def test_parquet_rows_are_numbered_and_checked(portfolio, tmp_path):
 def test_the_workbook_hash_is_of_the_file_named_before_the_sheet(portfolio, tmp_path):
     r = to_workbook(portfolio.readings, tmp_path / "bills.xlsx", "Bills")
     assert pipeline.file_sha256(f"{r}#Bills") == pipeline.file_sha256(r)
+
+
+# ---------------------------------------------------------------------------- ranking.xlsx out
+
+def test_ranking_xlsx_reads_back_with_sheets_headers_types_and_neutral_text(portfolio, tmp_path):
+    import shutil
+    b = tmp_path / "b.csv"
+    shutil.copy(portfolio.buildings, b)
+    text = b.read_text(encoding="utf-8").replace("Quillmore Offices", "=1+2 Quillmore")
+    b.write_text(text, encoding="utf-8")
+    res = _run(portfolio, tmp_path, b, portfolio.readings, portfolio.weather, "x")
+    assert res.exit_code == 0, res.stderr
+    path = tmp_path / "x" / "ranking.xlsx"
+    wb = openpyxl.load_workbook(path)
+    assert wb.sheetnames == ["ranking", "data issues", "rejects", "assumptions"]
+    ws = wb["ranking"]
+    head = [c.value for c in ws[1]]
+    assert head[:5] == ["rank", "building_id", "name", "use_type", "floor_area [ft²]"]
+    assert "excess_cost [$/yr]" in head and "actual_heating [kBtu]" in head and "hdd [°F·day]" in head
+    assert ws.freeze_panes == "A2"
+    assert [t.autoFilter.ref for t in ws.tables.values()] == [f"A1:{openpyxl.utils.get_column_letter(len(head))}"
+                                                               f"{portfolio.n_buildings + 1}"]
+    rows = {r[1]: r for r in ws.iter_rows(min_row=2, values_only=True)}
+    csv_rank = pl.read_csv(tmp_path / "x" / "ranking.csv")
+    assert set(rows) == set(csv_rank["building_id"])
+    cost = head.index("excess_cost [$/yr]")
+    waste = rows[portfolio.wasteful]
+    assert isinstance(waste[0], int) and isinstance(waste[cost], float)
+    assert waste[cost] == pytest.approx(csv_rank.filter(pl.col("building_id") == portfolio.wasteful)["excess_cost"][0])
+    assert ws.cell(2, cost + 1).number_format == '"$"#,##0'
+    assert isinstance(rows["B01"][head.index("period_start")], dt.datetime)   # a date cell
+    assert rows["B01"][2] == "'=1+2 Quillmore"             # as in ranking.csv: text, never a formula
+    assert ws.cell(2, 3).data_type == "s" or ws.cell(3, 3).data_type == "s"
+    assert ws.column_dimensions["C"].width > 10             # widths fitted to the content
+    assert wb["assumptions"].max_row == pl.read_csv(tmp_path / "x" / "assumptions.csv").height + 1
+
+
+def test_ranking_xlsx_same_results_same_bytes(tmp_path):
+    from screening.outputs import Display
+    from screening.xlsxout import write_ranking_xlsx
+    frames = dict(ranking=pl.DataFrame({"rank": [1], "building_id": ["B1"], "excess_cost": [12.5],
+                                        "period_start": [dt.date(2024, 1, 1)]}),
+                  issues=pl.DataFrame({"building_id": ["B1"], "code": ["x"]}),
+                  rejects=pl.DataFrame(schema={"file": pl.String, "line": pl.Int64}),
+                  assumptions=pl.DataFrame({"building_id": ["B1"], "value": [0.5]}))
+    a = write_ranking_xlsx(tmp_path / "a.xlsx", disp=Display("SI"), currency="€", **frames)
+    b = write_ranking_xlsx(tmp_path / "b.xlsx", disp=Display("SI"), currency="€", **frames)
+    assert a.read_bytes() == b.read_bytes()
+    ws = openpyxl.load_workbook(a)["ranking"]
+    assert [c.value for c in ws[1]] == ["rank", "building_id", "excess_cost [€/yr]", "period_start"]
+    assert ws["C2"].number_format == '"€"#,##0'
