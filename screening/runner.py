@@ -861,7 +861,9 @@ def init_config(path: str, *, overwrite: bool = False, sources: list[str] | None
     if p.exists() and not overwrite:
         raise ConfigError(f"{p} exists; use --force to overwrite it")
     from .config import DEFAULTS, template_comments
-    inputs, blocks = _infer_inputs(sources or [], p, report if report is not None else [])
+    report = report if report is not None else []
+    inputs, blocks = _infer_inputs(sources or [], p, report)
+    reading, why = _infer_number_format(sources or [], report)
     lines = [CONFIG_TEMPLATE_HEADER.format(name=p.name)]
     for section, values in DEFAULTS.items():
         lines.append(f"[{section}]")
@@ -869,6 +871,9 @@ def init_config(path: str, *, overwrite: bool = False, sources: list[str] | None
             comment = template_comments().get((section, key), "")
             if section == "inputs" and key in inputs:
                 value = inputs[key]
+            if section == "reading" and key in reading:
+                lines.append(f"{key} = {_toml_value(reading[key])}  # {why}: check it")
+                continue
             if isinstance(value, dict):
                 lines.append(f"# {key}: your column names → ours, one table per file kind, e.g.")
                 lines.append("#   [inputs.columns.readings]")
@@ -931,6 +936,46 @@ def _infer_inputs(sources: list[str], cfg_path: Path, report: list[str]) -> tupl
         report.append(f"{file}: read as {kind}; {len(sug)} column(s) mapped"
                       + (f"; still missing {', '.join(missing)}" if missing else ""))
     return inputs, blocks
+
+
+def _infer_number_format(sources: list[str], report: list[str]) -> tuple[dict, str]:
+    """For ``init --from``: ``[reading]`` number settings shown by the files' values, with the reason.
+
+    ``1,855.76`` (a comma group before a decimal point) → ``thousands = ","``; ``1.855,76`` →
+    ``decimal_comma = true`` and ``thousands = "."``. Values that fit both (``1,485``) decide nothing.
+    """
+    import polars as pl
+    from .csvread import _norm, read_header, read_table
+    us = r"^[-+]?[$€£¥]?\s*\d{1,3}(,\d{3})+\.\d+\s*[$€£¥]?$"
+    eu = r"^[-+]?[$€£¥]?\s*\d{1,3}(\.\d{3})*\.\d{3},\d+\s*[$€£¥]?$|^[-+]?[$€£¥]?\s*\d+,\d{1,2}\s*[$€£¥]?$"
+    seen = {"us": None, "eu": None}
+    for src in sources:
+        file = src.partition("=")[2] if "=" in src and src.partition("=")[0].strip().lower() in \
+            ("buildings", "readings", "weather") else src
+        try:
+            names = [_norm(h) for h in read_header(file) if _norm(h)]
+            t = read_table(file, required=[], optional=list(dict.fromkeys(names)))
+        except (InputError, ValueError):
+            continue
+        for c in t.df.columns:
+            if c == "_line" or t.df[c].dtype != pl.String:
+                continue
+            col = t.df[c].head(5000).drop_nulls()
+            for kind, pat in (("us", us), ("eu", eu)):
+                hit = col.filter(col.str.contains(pat))
+                if hit.len() and seen[kind] is None:
+                    seen[kind] = (hit[0], c, file)
+    if seen["us"] and not seen["eu"]:
+        v, c, f = seen["us"]
+        why = f"inferred from values like {v!r} in {c} of {f}"
+        report.append(f"[reading] thousands = \",\" ({why})")
+        return {"thousands": ","}, why
+    if seen["eu"] and not seen["us"]:
+        v, c, f = seen["eu"]
+        why = f"inferred from values like {v!r} in {c} of {f}"
+        report.append(f"[reading] decimal_comma = true, thousands = \".\" ({why})")
+        return {"decimal_comma": True, "thousands": "."}, why
+    return {}, ""
 
 
 def _toml_value(v) -> str:

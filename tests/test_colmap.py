@@ -158,3 +158,27 @@ def test_init_from_says_what_it_could_not_find(portfolio, tmp_path):
     assert "# still missing: quantity (add a line for each)" in cfg.read_text(encoding="utf-8")
     again = cli(["init", str(cfg), "--from", str(p)])
     assert again.exit_code == 2 and "exists" in again.stderr   # never overwrites without --force
+
+
+def test_init_from_sets_the_thousands_separator_the_values_show(portfolio, tmp_path):
+    lines = portfolio.lines("readings")
+    head = lines[0].split(",")
+    k = head.index("cost")
+    out = [THEIR_READINGS]
+    for ln in lines[1:]:
+        f = ln.split(",")
+        f[k] = '"${:,.2f}"'.format(float(f[k]) + 1000)
+        out.append(",".join(f))
+    bills = portfolio.folder / "money.csv"
+    bills.write_text("\n".join(out) + "\n", encoding="utf-8")
+    cfg = portfolio.folder / "money.toml"
+    r = cli(["init", str(cfg), "--from", str(bills)])
+    assert r.exit_code == 0 and '[reading] thousands = ","' in r.stdout
+    data = tomllib.loads(cfg.read_text(encoding="utf-8"))
+    assert data["reading"]["thousands"] == ","
+    ok = _validate(portfolio, bills, "--config", str(cfg))
+    assert ok.exit_code == 0, ok.stdout
+    assert "cost: 156 currency symbol(s) removed" in ok.stdout
+    # without the setting every row is rejected, each with the reason naming it
+    no = _validate(portfolio, bills, "--columns", "readings:" + ",".join(f"{a}={b}" for a, b in MAPPING.items()))
+    assert no.exit_code == 2 and no.stdout.count('set [reading] thousands = ","') == 156
