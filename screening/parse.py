@@ -244,13 +244,13 @@ def number_text(s: pl.Series, *, decimal_comma: bool = False, thousands: str = "
         g = _GROUPED[thousands]
         grouped = body.str.contains(f"^[-+]?\\d{{1,3}}({g}\\d{{3}})+({d}\\d*)?$").fill_null(False)
         body = pl.select(pl.when(grouped).then(body.str.replace_all(g, "")).otherwise(body)).to_series()
-        problem_grouped = pl.Series([False] * len(s))
+        problem_grouped = pl.Series([False] * len(s), dtype=pl.Boolean)
     else:
-        grouped = pl.Series([False] * len(s))
+        grouped = pl.Series([False] * len(s), dtype=pl.Boolean)
         problem_grouped = body.str.contains(r"^[-+]?\d{1,3}(,\d{3})+(\.\d*)?$").fill_null(False) \
             if not decimal_comma else body.str.contains(r"^[-+]?\d{1,3}(\.\d{3})+(,\d*)?$").fill_null(False)
         if decimal_comma:   # 1.234,5 is read as before (the dots dropped); only say so for money without ','
-            problem_grouped = pl.Series([False] * len(s))
+            problem_grouped = pl.Series([False] * len(s), dtype=pl.Boolean)
     problem = pl.select(
         pl.when(cur & pl.lit(not money)).then(pl.lit("a currency symbol in a column that is not an amount of money"))
         .when(pct & pl.lit(not share)).then(pl.lit("a percent sign in a column that is not a share"))

@@ -197,3 +197,11 @@ def test_a_fahrenheit_base_on_a_celsius_file_is_named(tmp_path):
     r = cli(["degree-days", "--weather", str(p), "--station", "FERN-7", "--units", "SI", "--base", "65"])
     assert r.exit_code == 0
     assert "warning: base 65 °C is outside 0-32 °C" in r.stderr and "pass --base 18.3, or --units IP" in r.stderr
+
+
+@pytest.mark.parametrize("kw", [{}, {"thousands": ","}, {"decimal_comma": True}, {"money": True, "share": True}])
+def test_number_formats_of_no_values(kw):
+    from screening.parse import number_text
+    out, problem, counts = number_text(pl.Series("q", [], dtype=pl.String), **kw)
+    assert (out.len(), problem.len(), out.dtype, problem.dtype) == (0, 0, pl.String, pl.String)
+    assert counts == {"currency": 0, "percent": 0, "thousands": 0}
