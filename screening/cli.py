@@ -94,6 +94,29 @@ def _print_summary(res) -> None:
     typer.echo(f"Outputs: {res.out_dir}  (database {res.db_path})")
 
 
+COLUMNS_HELP = ("your column names for ours: KIND:Their name=our_name,… (KIND buildings, readings or weather; "
+                "repeat for each kind); adds to [inputs.columns] of the config")
+DATE_ORDER_HELP = "order of slash dates like 03/04/2025: dmy, mdy or ymd ([reading] date_order)"
+
+
+def _reading_overrides(overrides: dict, columns: list[str] | None, date_order: str | None) -> None:
+    """--columns and --date-order into the config overrides (checked with the config)."""
+    from .colmap import parse_option
+    if columns:
+        overrides.setdefault("inputs", {})["columns"] = parse_option(columns)
+    if date_order is not None:
+        overrides.setdefault("reading", {})["date_order"] = date_order.strip().lower()
+
+
+def _date_order(value: str | None) -> str | None:
+    if value is None:
+        return None
+    v = value.strip().lower()
+    if v not in ("dmy", "mdy", "ymd"):
+        raise typer.BadParameter(f"got {value!r}; expected dmy, mdy or ymd", param_hint="--date-order")
+    return v
+
+
 @app.command()
 def run(
     buildings: Annotated[Optional[str], typer.Option(help="buildings CSV (or glob)")] = None,
@@ -110,6 +133,8 @@ def run(
     no_sheets: Annotated[bool, typer.Option("--no-sheets", help="skip the per-building PDF sheets")] = False,
     quiet: Annotated[bool, typer.Option(help="errors only (for cron)")] = False,
     verbose: Annotated[bool, typer.Option(help="more detail on stderr")] = False,
+    columns: Annotated[Optional[list[str]], typer.Option("--columns", help=COLUMNS_HELP)] = None,
+    date_order: Annotated[Optional[str], typer.Option("--date-order", help=DATE_ORDER_HELP)] = None,
 ):
     """Load the files, screen the portfolio and write ranking.csv, ranking.pdf, sheets/ and summary.json."""
     from . import runner
@@ -122,6 +147,7 @@ def run(
     if out is None and config is None:
         out = "ddscreen-out"
     try:
+        _reading_overrides(overrides, columns, date_order)
         res = runner.run(config_path=config, overrides=overrides, out_dir=out, force=force, quiet=quiet,
                          progress=not quiet)
     except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001 - mapped to exit codes
@@ -154,18 +180,29 @@ def validate(
     weather: Annotated[str, typer.Option(help="daily weather CSV")],
     units: Annotated[Optional[str], typer.Option(help="IP or SI")] = None,
     config: Annotated[Optional[str], typer.Option(help="TOML config file")] = None,
+    columns: Annotated[Optional[list[str]], typer.Option("--columns", help=COLUMNS_HELP)] = None,
+    date_order: Annotated[Optional[str], typer.Option("--date-order", help=DATE_ORDER_HELP)] = None,
 ):
-    """Check the three files and print every problem; load nothing. Exit 0 when clean, 2 otherwise."""
+    """Check the three files and print every problem; load nothing. Exit 0 when clean, 2 otherwise.
+
+    When a file lacks required columns, prints a column mapping to check and paste into the config.
+    """
     from . import runner
     try:
-        v = runner.validate(buildings, readings, weather, config_path=config,
-                            overrides={"analysis": {"units": units.upper() if units else None}})
+        overrides = {"analysis": {"units": units.upper() if units else None}}
+        _reading_overrides(overrides, columns, date_order)
+        v = runner.validate(buildings, readings, weather, config_path=config, overrides=overrides)
     except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     for n in v.notices:
         typer.echo(f"notice: {n}")
     for p in v.problems:
         typer.echo(p)
+    if v.suggestions:
+        typer.echo("Suggested column mapping (check each line; paste it into the config file, or pass the same "
+                   "with --columns):")
+        for block in v.suggestions:
+            typer.echo(block)
     counts = ", ".join(f"{k} {n} rows accepted" for k, n in v.rows.items())
     typer.echo(f"{len(v.problems)} problem(s); {counts}")
     raise typer.Exit(0 if v.ok else EXIT_BAD_INPUT)
@@ -187,6 +224,7 @@ def degree_days(
     units: Annotated[str, typer.Option(help="IP or SI")] = "IP",
     fmt: Annotated[str, typer.Option("--format", help="csv or table")] = "csv",
     rounding: Annotated[bool, typer.Option(help="round each daily mean half up first, as weather services publish")] = False,
+    date_order: Annotated[Optional[str], typer.Option("--date-order", help=DATE_ORDER_HELP)] = None,
 ):
     """Degree days of one station, to stdout (notices on stderr)."""
     from . import ddtool
@@ -197,7 +235,7 @@ def degree_days(
         df = ddtool.degree_days_report(weather, station, base=base, kind=kind, method=method, by=by,
                                        periods_path=periods, date_from=date_from, date_to=date_to, normal=normal,
                                        units=units.upper(), hourly_path=hourly, rounding=rounding,
-                                       notices=notices)
+                                       notices=notices, date_order=_date_order(date_order))
     except typer.BadParameter:
         raise
     except ValueError as exc:
@@ -206,7 +244,7 @@ def degree_days(
     except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     for n in notices:
-        typer.echo(f"notice: {n}", err=True)
+        typer.echo(n if n.startswith("warning:") else f"notice: {n}", err=True)
     if fmt == "csv":
         sys.stdout.write(df.write_csv())
     else:
@@ -220,14 +258,20 @@ def degree_days(
 def init(
     path: Annotated[str, typer.Argument(help="where to write the config")] = "screening.toml",
     force: Annotated[bool, typer.Option(help="overwrite an existing file")] = False,
+    sources: Annotated[Optional[list[str]], typer.Option(
+        "--from", help="an input file (or KIND=FILE) to point the config at, with the column mapping inferred "
+                       "from its header; repeat for each file")] = None,
 ):
-    """Write a commented configuration template."""
+    """Write a commented configuration template (with --from: for your own files, mapping to confirm)."""
     from . import runner
+    report: list[str] = []
     try:
-        p = runner.init_config(path, overwrite=force)
+        p = runner.init_config(path, overwrite=force, sources=sources, report=report)
     except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
-    typer.echo(f"wrote {p}")
+    for line in report:
+        typer.echo(line)
+    typer.echo(f"wrote {p}" + ("; check the [inputs.columns] tables at its end before running" if report else ""))
 
 
 @app.command()

@@ -22,6 +22,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "buildings": "",            # path or glob; several files are read in name order
         "readings": "",
         "weather": "",
+        "columns": {},              # your column names → ours, per file kind: [inputs.columns.readings] "Usage" = "quantity"
     },
     "store": {
         "database": "screening.duckdb",
@@ -57,6 +58,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "date_order": "",           # "", "dmy" or "mdy" for slash dates like 03/04/2025
         "delimiter": "",            # "" = detect; "," ";" or "\t"
         "encoding": "",             # "" = UTF-8 with Latin-1 fallback
+        "thousands": "",            # "" = none; "," (or "." with decimal_comma, " " or "'") read 1,485 as 1485
     },
     "prices": {                     # price per unit of energy, by heating fuel
         "natural_gas": 1.20,        # $ per therm
@@ -126,6 +128,11 @@ def _check_type(section: str, key: str, value: Any, default: Any) -> Any:
         if not isinstance(value, str):
             raise ConfigError(f"config key {where}: got {value!r}; expected text in quotes")
         return value
+    if isinstance(default, dict):
+        if not isinstance(value, dict):
+            raise ConfigError(f"config key {where}: got {value!r}; expected a table like "
+                              '[inputs.columns.readings] with "Your name" = "our_name" lines')
+        return value
     if isinstance(default, list):
         if not isinstance(value, list):
             raise ConfigError(f"config key {where}: got {value!r}; expected a list like [2016, 2025]")
@@ -146,7 +153,14 @@ def merge(base: dict, overrides: dict, *, origin: str) -> dict:
             if key not in DEFAULTS[section]:
                 raise ConfigError(f"{origin}: unknown key [{section}] {key}; expected one of "
                                   + ", ".join(DEFAULTS[section]))
-            out[section][key] = _check_type(section, key, value, DEFAULTS[section][key])
+            value = _check_type(section, key, value, DEFAULTS[section][key])
+            if isinstance(DEFAULTS[section][key], dict):   # tables merge per kind (command line over file)
+                merged = dict(out[section][key] or {})
+                for kind, mapping in value.items():
+                    merged[kind] = {**(merged.get(kind) or {}), **mapping} if isinstance(mapping, dict) \
+                        and isinstance(merged.get(kind), dict) else mapping
+                value = merged
+            out[section][key] = value
     return out
 
 
@@ -267,7 +281,13 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
         if ny[0] < EARLIEST.year or ny[1] > last_complete:
             raise ConfigError(f"config key [analysis] normal_years: got {ny!r}; expected complete years from "
                               f"{EARLIEST.year} to {last_complete}")
+    check_columns(cfg["inputs"]["columns"])
     r = cfg["reading"]
+    dec = "," if r["decimal_comma"] else "."
+    if r["thousands"] not in ("", ",", ".", " ", "'") or r["thousands"] == dec:
+        raise _range_error("[reading] thousands", r["thousands"],
+                           f'"" (none), ",", ".", " " or "\'", not the decimal mark {dec!r}'
+                           + (" (decimal_comma = true)" if r["decimal_comma"] else ""))
     if r["date_order"] not in ("", "dmy", "mdy", "ymd"):
         raise ConfigError(f"config key [reading] date_order: got {r['date_order']!r}; expected dmy, mdy or ymd")
     if r["delimiter"] not in ("", ",", ";", "\t"):
@@ -286,6 +306,38 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
             continue
         _check_range("prices", k, v, 0.0, PRICE_MAX, "a price per unit")
     return cfg
+
+
+def column_names() -> dict[str, list[str]]:
+    """Our column names per file kind (what ``[inputs.columns]`` may map to)."""
+    from .ingest import BUILDING_COLUMNS, READING_COLUMNS
+    return {"buildings": [c[0] for c in BUILDING_COLUMNS],
+            "readings": [c[0] for c in READING_COLUMNS] + ["read_date"],
+            "weather": ["station_id", "date", "t_min", "t_max", "t_mean"]}
+
+
+def check_columns(columns: dict) -> None:
+    """``[inputs.columns]``: per kind, a table of "their name" = "our name" (each of ours once)."""
+    known = column_names()
+    for kind, mapping in columns.items():
+        where = f"[inputs.columns] {kind}"
+        if kind not in known:
+            raise ConfigError(f"config key {where}: unknown file kind; expected buildings, readings or weather")
+        if not isinstance(mapping, dict):
+            raise _range_error(where, mapping, f'a table like [inputs.columns.{kind}] with "Your name" = "our_name"')
+        targets: dict[str, str] = {}
+        for theirs, ours in mapping.items():
+            w = f'[inputs.columns.{kind}] "{theirs}"'
+            if not theirs.strip() or any(ord(ch) < 32 for ch in theirs):
+                raise _range_error(w, theirs, "a column name as written in the file (not empty, no control characters)")
+            if not isinstance(ours, str) or ours.strip().lower() not in known[kind]:
+                raise _range_error(w, ours, f"one of our {kind} columns: " + ", ".join(known[kind]))
+            ours = ours.strip().lower()
+            if ours in targets:
+                raise ConfigError(f"config key [inputs.columns.{kind}]: {targets[ours]!r} and {theirs!r} both map to "
+                                  f"{ours!r}; expected each of our columns from one column of the file")
+            targets[ours] = theirs
+            mapping[theirs] = ours
 
 
 def _check_heat_contents(a: dict) -> None:

@@ -106,7 +106,8 @@ def unreadable(label: str, exc: OSError) -> InputError:
 
 def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
                optional: list[str] | tuple[str, ...] = (), label: str | None = None,
-               delimiter: str | None = None, encoding: str | None = None) -> CsvTable:
+               delimiter: str | None = None, encoding: str | None = None,
+               columns: dict[str, str] | None = None) -> CsvTable:
     """Read ``path`` and return its known columns as text plus ``_line``.
 
     Parameters
@@ -116,6 +117,11 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
     optional : column names that are read when present.
     label : the name used in messages (defaults to the path).
     delimiter, encoding : force these instead of detecting them.
+    columns : the user's column names mapped to ours (``[inputs.columns]``); names are matched
+        like header names (blanks and case ignored).
+
+    A workbook (``.xlsx``/``.xlsm``, ``book.xlsx#Sheet`` for a named sheet) or a Parquet file
+    is read by :mod:`screening.tables` into the same text table.
 
     Raises
     ------
@@ -124,6 +130,9 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
         or repeats a column name.
     """
     label = str(label or path)
+    if is_table_file(path):
+        from .tables import read_table_file
+        return read_table_file(path, required=required, optional=optional, label=label, columns=columns)
     p = Path(path)
     try:
         raw = p.read_bytes()
@@ -151,22 +160,7 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
         except (StopIteration, csv.Error) as exc:
             raise InputError(label, f"cannot read the header line ({exc})", line=1) from None
     header_norm = [_norm(h) for h in header]
-    seen: dict[str, int] = {}
-    for i, h in enumerate(header_norm):
-        if h in seen and h:
-            raise InputError(label, "column name appears twice", line=1, column=header[i].strip(),
-                             expected="each column once")
-        seen[h] = i
-    missing = [c for c in required if c not in seen]
-    if missing:
-        raise InputError(label, "missing required column", line=1, column=missing[0],
-                         expected="columns " + ", ".join(required)
-                         + (f" (found: {', '.join(_show(h) for h in header_norm if h)[:200]})" if header_norm else ""))
-    wanted = [c for c in list(required) + list(optional) if c in seen]
-    extra = [_show(header[i].strip()) for i, h in enumerate(header_norm) if h and h not in wanted]
-    if extra:
-        notices.append(f"{label}: ignored unknown column(s): {', '.join(extra[:20])}"
-                       + (" …" if len(extra) > 20 else ""))
+    seen, wanted = header_plan(label, header, required, optional, columns, notices)
     idx = [seen[c] for c in wanted]
     n_fields = len(header)
 
@@ -188,6 +182,94 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
             df = df.with_columns(pl.lit(None, dtype=pl.String).alias(c))
     return CsvTable(path=label, df=df, header=[h.strip() for h in header], encoding=enc,
                     delimiter=delim, notices=notices, rejects=rejects)
+
+
+def split_sheet(path: str | Path) -> tuple[str, str | None]:
+    """``book.xlsx#Sheet`` → (``book.xlsx``, ``Sheet``); any other path → (path, None).
+
+    A file whose own name contains ``#`` is taken as it is when it exists.
+    """
+    text = str(path)
+    if "#" in text and not Path(text).exists():
+        base, sheet = text.rsplit("#", 1)
+        if Path(base).suffix.lower() in WORKBOOK_SUFFIXES:
+            return base, sheet
+    return text, None
+
+
+WORKBOOK_SUFFIXES = (".xlsx", ".xlsm")
+PARQUET_SUFFIXES = (".parquet", ".pq")
+
+
+def is_table_file(path: str | Path) -> bool:
+    """Whether ``path`` is a workbook or a Parquet file (read by :mod:`screening.tables`)."""
+    return Path(split_sheet(path)[0]).suffix.lower() in WORKBOOK_SUFFIXES + PARQUET_SUFFIXES
+
+
+def header_plan(label: str, header: list[str], required, optional, columns: dict[str, str] | None,
+                notices: list[str], *, header_line: int = 1) -> tuple[dict[str, int], list[str]]:
+    """Check a header (after the column mapping): ``(our name → field index, wanted names)``.
+
+    Raises ``InputError`` for a name that appears twice (also after mapping) or a required
+    column that is missing; lists unknown extra columns and the mapping used as notices.
+    """
+    header_norm = [_norm(h) for h in header]
+    names = list(header_norm)
+    if columns:
+        cmap = {_norm(k): v for k, v in columns.items()}
+        used = []
+        for i, h in enumerate(header_norm):
+            if h in cmap and h:
+                names[i] = cmap[h]
+                used.append(f"{_show(header[i].strip())} → {cmap[h]}")
+        if used:
+            notices.append(f"{label}: columns read by the mapping: {', '.join(used[:30])}")
+        absent = [k for k in columns if _norm(k) not in header_norm]
+        if absent:
+            notices.append(f"{label}: mapped column(s) not in this file: {', '.join(_show(a) for a in absent[:20])}")
+    seen: dict[str, int] = {}
+    for i, h in enumerate(names):
+        if h in seen and h:
+            j = seen[h]
+            if names[i] != header_norm[i] or names[j] != header_norm[j]:
+                a, b = _show(header[j].strip()), _show(header[i].strip())
+                raise InputError(label, f"columns {a!r} and {b!r} are both read as {h!r} (column mapping)",
+                                 line=header_line, column=header[i].strip(),
+                                 expected="each of our columns from one column of the file")
+            raise InputError(label, "column name appears twice", line=header_line, column=header[i].strip(),
+                             expected="each column once")
+        seen[h] = i
+    missing = [c for c in required if c not in seen]
+    if missing:
+        raise InputError(label, "missing required column", line=header_line, column=missing[0],
+                         expected="columns " + ", ".join(required)
+                         + (f" (found: {', '.join(_show(h) for h in header_norm if h)[:200]})" if header_norm else ""))
+    wanted = [c for c in list(required) + list(optional) if c in seen]
+    extra = [_show(header[i].strip()) for i, h in enumerate(names) if h and h not in wanted]
+    if extra:
+        notices.append(f"{label}: ignored unknown column(s): {', '.join(extra[:20])}"
+                       + (" …" if len(extra) > 20 else ""))
+    return seen, wanted
+
+
+def read_header(path: str | Path, *, delimiter: str | None = None, encoding: str | None = None) -> list[str]:
+    """The column names of a file as written (for suggesting a column mapping); ``InputError`` if unreadable."""
+    if is_table_file(path):
+        from .tables import read_header_names
+        return read_header_names(path)
+    label = str(path)
+    try:
+        raw = Path(path).read_bytes()[:1_000_000]
+    except OSError as exc:
+        raise unreadable(label, exc) from None
+    text, _enc, _n = _decode(raw, label, encoding)
+    text = text.replace("\r\n", "\n").replace("\r", "\n")
+    first = text.split("\n", 1)[0] if text.strip() else ""
+    delim = delimiter or _sniff_delimiter(first)
+    try:
+        return [h.strip() for h in next(csv.reader([first], delimiter=delim))]
+    except (StopIteration, csv.Error):
+        return []
 
 
 def _lines(text: str, chunk_chars: int | None = None):
@@ -246,7 +328,7 @@ def _fast_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
     lens = parts.list.len()
     # a repeated header: the same names field by field (as the quoted path compares them);
     # the literal test only narrows the candidates checked exactly in Python (rare lines)
-    key = max(wanted, key=len)   # a known (ASCII) column name, always present in the header
+    key = max((header_norm[k] for k in idx), key=len)   # a known column name, always present in the header
     cand = (lens == n_fields) & frame["raw"].str.contains("(?i)" + re.escape(key))
     is_header = cand
     if bool(cand.any()):

@@ -71,7 +71,8 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
                        method: str = "mean", by: str = "month", periods_path: str | Path | None = None,
                        date_from=None, date_to=None, normal: bool = False, units: str = "IP",
                        hourly_path: str | Path | None = None, hourly_timestamps: str = "start",
-                       rounding: bool = False, notices: list[str] | None = None) -> pl.DataFrame:
+                       rounding: bool = False, notices: list[str] | None = None,
+                       date_order: str | None = None) -> pl.DataFrame:
     """Degree days of one station per day, month, year or listed period.
 
     Parameters
@@ -100,7 +101,11 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
     rounding : bool
         Weather-service rounding of the daily mean (mean method only).
     notices : list, optional
-        Receives one-line notices (rejected rows, interpolated days, long gaps).
+        Receives one-line notices (rejected rows, interpolated days, long gaps), and a line
+        starting ``warning:`` for a base that cannot be right in the unit system (see
+        :func:`base_unit_warning`).
+    date_order : {"dmy", "mdy", "ymd"}, optional
+        The order of slash dates in the daily file (``[reading] date_order``).
 
     Returns
     -------
@@ -144,6 +149,9 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
     note = notices.append if notices is not None else (lambda _m: None)
     base_f = base if units == "IP" else float(c_to_f(base))
     bases = np.array([base_f])
+    warn = base_unit_warning(base, units)
+    if warn:
+        note(warn)
 
     if method == "hourly":
         if hourly_path is None:
@@ -154,7 +162,7 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
     else:
         if weather_path is None:
             raise ValueError(f"method {method!r} needs a daily weather file (weather_path)")
-        res = read_daily_weather(weather_path, units=units)
+        res = read_daily_weather(weather_path, units=units, date_order=date_order)
         frame, rejects = res
         label = str(weather_path)
     for n in res.notices:
@@ -189,6 +197,29 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
         return degree_day_table(cube, station_ids=[station], by=by, date_from=d_from, date_to=d_to,
                                 periods=periods, kind=kind, base_f=base_f, unit=unit)
     return _normal_table(cube, station, by, d_from, d_to, kind, base_f, unit)
+
+
+#: Heating and cooling bases used in practice lie within these ranges (common practice: 50-70 °F
+#: and 10-21 °C are the usual published bases); a base outside its unit's wide range is most likely
+#: given in the other unit.
+PLAUSIBLE_BASE = {"IP": (32.0, 90.0), "SI": (0.0, 32.0)}
+
+
+def base_unit_warning(base: float, units: str) -> str | None:
+    """A ``warning:`` line when ``base`` cannot be right for the unit system (18 for °F, 65 for °C)."""
+    lo, hi = PLAUSIBLE_BASE[units]
+    if lo <= base <= hi:
+        return None
+    if units == "IP":
+        as_c = float(c_to_f(base))
+        hint = (f"it looks like a °C base ({base:g} °C = {as_c:.1f} °F): pass --base {as_c:.1f}, or --units SI "
+                "if the file is in °C") if float(PLAUSIBLE_BASE["SI"][0]) <= base <= PLAUSIBLE_BASE["SI"][1] else             "check the value"
+        return (f"warning: base {base:g} °F is outside {lo:g}-{hi:g} °F, where heating and cooling bases lie; "
+                f"{hint}")
+    as_f = float(f_to_c(base))
+    hint = (f"it looks like a °F base ({base:g} °F = {as_f:.1f} °C): pass --base {as_f:.1f}, or --units IP "
+            "if the file is in °F") if PLAUSIBLE_BASE["IP"][0] <= base <= PLAUSIBLE_BASE["IP"][1] else "check the value"
+    return f"warning: base {base:g} °C is outside {lo:g}-{hi:g} °C, where heating and cooling bases lie; {hint}"
 
 
 def _normal_table(cube, station, by, d_from, d_to, kind, base_f, unit) -> pl.DataFrame:

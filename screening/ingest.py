@@ -17,8 +17,8 @@ import polars as pl
 from . import refdata
 from .csvread import LINE_COL, read_table
 from .errors import InputError
-from .parse import (AmbiguousDates, detect_date_order, midnight_stamps, parse_bool, parse_choice, parse_date, parse_float,
-                    parse_int)
+from .parse import (AmbiguousDates, detect_date_order, midnight_stamps, number_text, parse_bool, parse_choice,
+                    parse_date, parse_float, parse_int)
 
 USE_TYPES = ("office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other")
 FUELS = ("natural_gas", "fuel_oil", "propane", "electricity", "district_steam", "district_hot_water")
@@ -86,6 +86,8 @@ class ReadOptions:
     date_order: str | None = None
     delimiter: str | None = None
     encoding: str | None = None
+    columns: dict[str, dict[str, str]] = field(default_factory=dict)   # [inputs.columns]: kind → {theirs: ours}
+    thousands: str = ""                 # [reading] thousands: the thousands separator written in numbers
     min_date: _dt.date = _dt.date(1900, 1, 1)
     max_date: _dt.date = field(default_factory=lambda: _dt.date.today() + _dt.timedelta(days=366))
 
@@ -116,7 +118,26 @@ def si_factors() -> dict[str, tuple[float, float]]:
     return {r["quantity"]: (float(r["factor"]), float(r["offset"])) for r in df.iter_rows(named=True)}
 
 
-def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tuple[pl.DataFrame, pl.DataFrame]:
+#: Amounts of money (a currency symbol is removed, with a notice) and shares (``85%`` is 0.85).
+MONEY_COLUMNS = ("cost", "price")
+SHARE_COLUMNS = ("heating_efficiency", "window_fraction", "heat_recovery")
+
+
+def _number_formats(s: pl.Series, col: str, label: str, opts: ReadOptions, notices: list[str] | None):
+    """Currency symbols, percent signs and thousands separators (see :func:`parse.number_text`)."""
+    text, fmt_problem, counts = number_text(s, decimal_comma=opts.decimal_comma, thousands=opts.thousands,
+                                            money=col in MONEY_COLUMNS, share=col in SHARE_COLUMNS)
+    if notices is not None:
+        what = {"currency": "currency symbol(s) removed", "percent": "percent value(s) read as shares (85% = 0.85)",
+                "thousands": f"value(s) read with the thousands separator {opts.thousands!r}"}
+        for k, n in counts.items():
+            if n:
+                notices.append(f"{label}: {col}: {n} {what[k]}")
+    return text, fmt_problem
+
+
+def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions,
+                   notices: list[str] | None = None) -> tuple[pl.DataFrame, pl.DataFrame]:
     """Parse every column of ``raw`` per ``spec``; return typed frame (all rows) and problems."""
     typed: dict[str, pl.Series] = {}
     problems = []
@@ -147,8 +168,12 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions) -> tu
                 lo = None if lo is None else (lo - off) / f
                 hi = None if hi is None else (hi - off) / f
             fn = parse_int if kind == "int" else parse_float
-            v, p = fn(s, decimal_comma=opts.decimal_comma, min_value=lo, max_value=hi,
+            text, fmt_problem = _number_formats(s, col, label, opts, notices)
+            v, p = fn(text, decimal_comma=opts.decimal_comma, min_value=lo, max_value=hi,
                       min_exclusive=o.get("excl", False))
+            if fmt_problem.null_count() < len(fmt_problem):
+                p = pl.select(pl.when(fmt_problem.is_not_null()).then(fmt_problem).otherwise(p)).to_series()
+                v = pl.select(pl.when(fmt_problem.is_not_null()).then(None).otherwise(v)).to_series()
             if conv is not None:
                 v = v * conv[0] + conv[1]
         elif kind == "bool":
@@ -196,16 +221,19 @@ def _combine(df: pl.DataFrame, prob: pl.DataFrame, structural: list[dict]) -> tu
     return good, rej
 
 
-def _read_typed(path: str | Path, spec, opts: ReadOptions, *, keep_text: tuple[str, ...] = ()):
-    """Read one file with its column spec: (raw table, typed frame, value problems)."""
-    label = str(path)
+def _read_typed(path: str | Path, spec, opts: ReadOptions, kind: str = "", columns: dict | None = None):
+    """Read one file with its column spec: (raw table, typed frame, value problems).
+
+    ``kind`` picks the file's column mapping from ``opts.columns``; the label of messages is
+    the table's (``book.xlsx[Sheet]`` for a workbook).
+    """
     required = [c for c, _, _, r, _ in spec if r]
     optional = [c for c, _, _, r, _ in spec if not r]
-    t = read_table(path, required=required, optional=optional, label=label,
-                   delimiter=opts.delimiter, encoding=opts.encoding)
-    typed, prob = _typed_columns(t.df, spec, label, opts)
-    # the text columns are typed now; free them before the duplicate checks (but those still read)
-    t.df = t.df.select([c for c in keep_text if c in t.df.columns]) if keep_text else t.df.clear()
+    mapping = dict(opts.columns.get(kind) or {}) | dict(columns or {})
+    t = read_table(path, required=required, optional=optional, label=str(path),
+                   delimiter=opts.delimiter, encoding=opts.encoding, columns=mapping or None)
+    label = t.path
+    typed, prob = _typed_columns(t.df, spec, label, opts, t.notices)
     return t, typed, prob
 
 
@@ -216,8 +244,9 @@ def read_buildings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     different data every such row is rejected, naming the lines.
     """
     opts = opts or ReadOptions()
-    label = str(path)
-    t, typed, prob = _read_typed(path, BUILDING_COLUMNS, opts)
+    t, typed, prob = _read_typed(path, BUILDING_COLUMNS, opts, "buildings")
+    t.df = t.df.clear()  # the text columns are typed now; free them before the duplicate checks
+    label = t.path
     good, rej = _combine(typed, prob, t.rejects)
     notices = list(t.notices)
     # duplicates
@@ -250,10 +279,13 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     quantities are both rejected (they cannot both be right).
     """
     opts = opts or ReadOptions()
-    label = str(path)
-    t, typed, prob = _read_typed(path, READING_COLUMNS, opts, keep_text=("period_start", "period_end"))
-    typed, stamp_notes = _midnight_ends(t.df, typed, label)
-    t.df = t.df.clear()
+    t, typed, prob, read_col = _read_readings_typed(path, opts)
+    label = t.path
+    if read_col is None:
+        typed, stamp_notes = _midnight_ends(t.df, typed, label)
+    else:
+        typed, prob, stamp_notes = periods_from_reads(typed, prob, label, read_col)
+    t.df = t.df.clear()  # the text columns are typed and read now; free them before the duplicate checks
     order = typed.filter(pl.col("period_end") < pl.col("period_start")).select(
         pl.lit(label).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit("period_end").alias("column"),
         pl.col("period_end").cast(pl.String).alias("value"),
@@ -281,6 +313,64 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
         rej = pl.concat([rej, rejects_frame(extra)])
         good = good.filter(~pl.struct(key).is_duplicated())
     return Loaded(label, good.sort(["building_id", "fuel", "meter_id", "period_start"]), rej.sort("line"), notices)
+
+
+#: A readings file with read dates and no start dates: ``read_date`` (or ``period_end`` alone) ends each period.
+READ_DATE_COLUMNS = {
+    col: [(c if c != "period_end" else col, canon, kind, (req and canon != "period_start"), o)
+          for c, canon, kind, req, o in READING_COLUMNS]
+    for col in ("read_date", "period_end")
+}
+
+
+def _read_readings_typed(path, opts: ReadOptions):
+    """The readings file typed: with ``period_start``, or else with read dates (``read_date`` or
+    ``period_end`` alone). Returns (table, typed, problems, the read-date column or None)."""
+    try:
+        t, typed, prob = _read_typed(path, READING_COLUMNS, opts, "readings")
+        return t, typed, prob, None
+    except InputError as exc:
+        if not (exc.problem == "missing required column" and exc.column == "period_start"):
+            raise
+        first = exc
+    for col in ("read_date", "period_end"):
+        try:
+            t, typed, prob = _read_typed(path, READ_DATE_COLUMNS[col], opts, "readings")
+            return t, typed, prob, col
+        except InputError as exc:
+            if not (exc.problem == "missing required column" and exc.column == col):
+                raise
+    raise first
+
+
+def periods_from_reads(typed: pl.DataFrame, prob: pl.DataFrame, label: str,
+                       read_col: str) -> tuple[pl.DataFrame, pl.DataFrame, list[str]]:
+    """Bills with a read date only: per meter (building, fuel, meter_id), sorted by read date, each
+    period starts the day after the meter's previous read and ends on its read date (inclusive).
+
+    The first read of each meter only opens the record (the period it closes began before the file
+    starts): it is rejected with that reason, and a notice gives the count. Rows with a problem in
+    another column (a bad quantity) still mark the day of their read.
+    """
+    key = ["building_id", "fuel", "_m"]
+    k = typed.with_columns(pl.col("meter_id").fill_null("").alias("_m"))
+    dates = (k.filter(pl.col("building_id").is_not_null() & pl.col("fuel").is_not_null()
+                      & pl.col("period_end").is_not_null())
+             .select(*key, "period_end").unique().sort(*key, "period_end")
+             .with_columns(pl.col("period_end").shift(1).over(key).alias("_prev")))
+    k = k.join(dates, on=key + ["period_end"], how="left", maintain_order="left")
+    typed = typed.with_columns((k["_prev"] + pl.duration(days=1)).alias("period_start"))
+    first = k.filter(pl.col("period_end").is_not_null() & pl.col("building_id").is_not_null()
+                     & pl.col("fuel").is_not_null() & pl.col("_prev").is_null())
+    opened = first.select(pl.lit(label).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit(read_col).alias("column"),
+                          pl.col("period_end").cast(pl.String).alias("value"),
+                          pl.lit("first read of this meter: it opens the record (the period it closes began "
+                                 "before the file's first read); not counted").alias("reason"))
+    prob = pl.concat([prob, opened.cast(REJECT_SCHEMA)])
+    notes = [f"{label}: read dates without start dates ({read_col}): each period runs from the day after the "
+             f"meter's previous read to its read date; {first.height} first read(s) of a meter only open the "
+             "record (listed in the rejects)"]
+    return typed, prob, notes
 
 
 def _midnight_ends(raw: pl.DataFrame, typed: pl.DataFrame, label: str) -> tuple[pl.DataFrame, list[str]]:

@@ -10,6 +10,7 @@ zero or a default.
 from __future__ import annotations
 
 import datetime as _dt
+import re
 
 import polars as pl
 
@@ -211,3 +212,65 @@ def parse_choice(s: pl.Series, choices: list[str] | tuple[str, ...], *, what: st
                     .then(pl.lit(f"unknown {what}; expected one of {', '.join(choices)}"))
                     .otherwise(None).alias("p"))
     return out["v"].rename(s.name), out["p"].rename(s.name)
+
+
+#: Currency symbols removed from amounts of money (with a notice); elsewhere they reject the value.
+CURRENCY_SYMBOLS = "$€£¥"
+_GROUPED = {",": ",", ".": r"\.", " ": "[ \u00a0\u202f]", "'": "[’']"}
+
+
+def number_text(s: pl.Series, *, decimal_comma: bool = False, thousands: str = "", money: bool = False,
+                share: bool = False) -> tuple[pl.Series, pl.Series, dict[str, int]]:
+    """Spreadsheet number formats to plain number text, before :func:`parse_float`.
+
+    * a currency symbol before or after the number (``$1,855.76``, ``12,5 €``) is removed in a
+      ``money`` column; elsewhere the value gets a problem;
+    * a trailing percent sign (``85%``) is divided by 100 in a ``share`` column; elsewhere a problem;
+    * digits grouped by ``thousands`` in threes (``1,485``, ``1 485``) lose the separator; with no
+      ``thousands`` set, ``1,485`` (decimal point) is a problem that says which setting reads it.
+
+    Returns (text, problem or null, counts of values changed: ``currency``, ``percent``, ``thousands``).
+    Values with none of these are returned unchanged.
+    """
+    t = s.str.strip_chars()
+    dec = "," if decimal_comma else "."
+    sym = f"[{re.escape(CURRENCY_SYMBOLS)}]"
+    cur = t.str.contains(f"^[-+]?\\s*{sym}|{sym}$").fill_null(False)
+    pct = t.str.contains(r"%$").fill_null(False)
+    body = t.str.replace(f"^([-+]?)\\s*{sym}\\s*", "$1").str.replace(f"\\s*{sym}$", "").str.replace(r"\s*%$", "")
+    d = re.escape(dec)
+    counts = {"currency": 0, "percent": 0, "thousands": 0}
+    if thousands:
+        g = _GROUPED[thousands]
+        grouped = body.str.contains(f"^[-+]?\\d{{1,3}}({g}\\d{{3}})+({d}\\d*)?$").fill_null(False)
+        body = pl.select(pl.when(grouped).then(body.str.replace_all(g, "")).otherwise(body)).to_series()
+        problem_grouped = pl.Series([False] * len(s), dtype=pl.Boolean)
+    else:
+        grouped = pl.Series([False] * len(s), dtype=pl.Boolean)
+        problem_grouped = body.str.contains(r"^[-+]?\d{1,3}(,\d{3})+(\.\d*)?$").fill_null(False) \
+            if not decimal_comma else body.str.contains(r"^[-+]?\d{1,3}(\.\d{3})+(,\d*)?$").fill_null(False)
+        if decimal_comma:   # 1.234,5 is read as before (the dots dropped); only say so for money without ','
+            problem_grouped = pl.Series([False] * len(s), dtype=pl.Boolean)
+    problem = pl.select(
+        pl.when(cur & pl.lit(not money)).then(pl.lit("a currency symbol in a column that is not an amount of money"))
+        .when(pct & pl.lit(not share)).then(pl.lit("a percent sign in a column that is not a share"))
+        .when(problem_grouped & body.str.contains(r"\.").fill_null(False))
+        .then(s.str.strip_chars() + pl.lit(': a thousands separator; set [reading] thousands = ","'))
+        .when(pl.lit(not decimal_comma) & body.str.contains(r"^[-+]?\d+,\d+$").fill_null(False) & ~problem_grouped)
+        .then(s.str.strip_chars() + pl.lit(": a decimal comma; set [reading] decimal_comma = true"))
+        .when(problem_grouped)
+        .then(s.str.strip_chars() + pl.lit(': a thousands separator (or a decimal comma); set [reading] thousands '
+                                           '= "," (or decimal_comma = true)'))
+        .otherwise(None)).to_series()
+    if share and bool(pct.any()):
+        num = (body.str.replace(",", ".", literal=True) if decimal_comma else body).cast(pl.Float64, strict=False)
+        scaled = (num / 100.0).cast(pl.String)
+        if decimal_comma:
+            scaled = scaled.str.replace(".", ",", literal=True)
+        body = pl.select(pl.when(pct & num.is_not_null()).then(scaled).otherwise(body)).to_series()
+    ok = problem.is_null()
+    counts["currency"] = int((cur & ok).sum()) if money else 0
+    counts["percent"] = int((pct & ok).sum()) if share else 0
+    counts["thousands"] = int((grouped & ok).sum())
+    out = pl.select(pl.when(cur | pct | grouped).then(body).otherwise(s)).to_series().rename(s.name)
+    return out, problem.rename(s.name), counts

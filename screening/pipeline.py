@@ -22,7 +22,7 @@ from . import envelope as env
 from . import metered, refdata, screen, units
 from .errors import ConfigError, InputError
 from .ingest import REJECT_SCHEMA, Loaded, ReadOptions, read_buildings, read_readings
-from .csvread import unreadable
+from .csvread import split_sheet, unreadable
 from .store import Store
 from .weather import read_daily_weather
 
@@ -59,8 +59,9 @@ class FileLoad:
 
 def file_sha256(path: str | Path) -> str:
     h = hashlib.sha256()
+    src = split_sheet(path)[0]   # book.xlsx#Sheet: the workbook's bytes
     try:
-        with open(path, "rb") as f:
+        with open(src, "rb") as f:
             for chunk in iter(lambda: f.read(1 << 20), b""):
                 h.update(chunk)
     except OSError as exc:
@@ -72,11 +73,13 @@ def read_options(cfg: dict) -> ReadOptions:
     r = cfg["reading"]
     return ReadOptions(units=cfg["analysis"]["units"], decimal_comma=r["decimal_comma"],
                        date_order=r["date_order"] or None, delimiter=r["delimiter"] or None,
-                       encoding=r["encoding"] or None)
+                       encoding=r["encoding"] or None, columns=dict(cfg["inputs"].get("columns") or {}),
+                       thousands=r.get("thousands", ""))
 
 
 def _options_hash(opts: ReadOptions) -> str:
-    key = json.dumps([opts.units, opts.decimal_comma, opts.date_order, opts.delimiter, opts.encoding])
+    key = json.dumps([opts.units, opts.decimal_comma, opts.date_order, opts.delimiter, opts.encoding]
+                     + ([opts.columns, opts.thousands] if opts.columns or opts.thousands else []), sort_keys=True)
     return hashlib.sha256(key.encode()).hexdigest()[:16]
 
 
@@ -92,7 +95,8 @@ def read_file(kind: str, path: str, opts: ReadOptions) -> Loaded:
 
 def _read_weather(path: str, opts: ReadOptions):
     res = read_daily_weather(path, units=opts.units, decimal_comma=opts.decimal_comma, date_order=opts.date_order,
-                             delimiter=opts.delimiter, encoding=opts.encoding)
+                             delimiter=opts.delimiter, encoding=opts.encoding,
+                             columns=opts.columns.get("weather") or None)
     weather, rejects = res
     return weather, rejects, list(getattr(res, "notices", []))
 

@@ -244,7 +244,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
     t_start = time.perf_counter()
     run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
     run_key = _run_key(label, cfg, files)  # the same for a rerun of the same quarter, inputs and settings
-    store = Store(db_path)
+    store = _open_store(db_path)
     try:
         notes = _clean_stale_temp(target, None)
         notes += published.settle_dead_runs(store)  # we hold the lock: a run still open has died
@@ -306,7 +306,11 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         outputs.write_csv(ranking, tmp / "ranking.csv")
         outputs.write_csv(rejects, tmp / "rejects.csv")
         outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
-        outputs.write_csv(outputs.assumptions_table(res.envelope, disp), tmp / "assumptions.csv")
+        assumptions = outputs.assumptions_table(res.envelope, disp)
+        outputs.write_csv(assumptions, tmp / "assumptions.csv")
+        from .xlsxout import write_ranking_xlsx
+        write_ranking_xlsx(tmp / "ranking.xlsx", ranking=ranking, issues=res.issues.sort("building_id", "code"),
+                           rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"])
         timings["csv"] = round(time.perf_counter() - t, 4)
         summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev[0][1] if prev else None)
         paper = cfg["output"]["paper"]
@@ -341,7 +345,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         handler.close()
         # phase 3: record what is about to be published, publish, mark it done
         files_written = published.manifest(tmp)
-        store = Store(db_path)
+        store = _open_store(db_path)
         with store.transaction():
             store.execute("delete_results_of_run", {"run_id": run_id})
             store.execute("insert_results", stage_results=stage)
@@ -394,7 +398,7 @@ def _record_failure(store: Store | None, db_path, run_id: str, exc: BaseExceptio
                     publishing: bool) -> None:
     """Mark a failed run in the database (reopening it if the run had closed it)."""
     try:
-        store = store or Store(db_path)
+        store = store or _open_store(db_path)
     except Exception:  # the database itself may be the problem
         return
     try:
@@ -626,7 +630,7 @@ def _interrupted(exc: Interrupted, run_id: str, store: Store | None, db_path, ha
     log.removeHandler(handler)
     handler.close()
     try:
-        store = store or Store(db_path)
+        store = store or _open_store(db_path)
         if in_place:
             store.execute("set_run_status", {"run_id": run_id, "status": "ok", "message": ""})
         elif publishing:
@@ -671,7 +675,8 @@ def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: b
 # Every top-level name a run writes into its output folder (tests/test_unattended.py checks
 # that a run writes nothing else): the demo, which writes into a folder of its own choosing,
 # replaces only these, and only when they are what its previous run wrote.
-OUTPUT_NAMES = ("assumptions.csv", "data_issues.csv", "ranking.csv", "ranking.pdf", "rejects.csv", "run.log",
+OUTPUT_NAMES = ("assumptions.csv", "data_issues.csv", "ranking.csv", "ranking.pdf", "ranking.xlsx", "rejects.csv",
+                "run.log",
                 "sheets", "sheets_index.csv", "summary.json")
 
 
@@ -728,6 +733,7 @@ class Validation:
     problems: list[str]
     rows: dict[str, int]
     notices: list[str]
+    suggestions: list[str] = field(default_factory=list)   # TOML column mappings to confirm, one per file
 
     @property
     def ok(self) -> bool:
@@ -743,12 +749,15 @@ def validate(buildings: str, readings: str, weather: str, *, config_path: str | 
     notices: list[str] = []
     rows: dict[str, int] = {}
     loaded = {}
+    suggestions: list[str] = []
     rejects: list[pl.DataFrame] = []
     for kind, path in (("buildings", buildings), ("readings", readings), ("weather", weather)):
         try:
             ld = pipeline.read_file(kind, path, opts)
         except InputError as exc:
             problems.append(str(exc))
+            if exc.problem == "missing required column":
+                suggestions.extend(_mapping_suggestion(kind, path, opts))
             continue
         loaded[kind] = ld
         rows[kind] = ld.df.height
@@ -771,7 +780,30 @@ def validate(buildings: str, readings: str, weather: str, *, config_path: str | 
         for r in allrej.iter_rows(named=True):
             problems.append(f"{r['file']}, line {r['line']}, column {r['column']!r}: {r['reason']}"
                             + (f" (got {r['value']!r})" if r["value"] is not None else ""))
-    return Validation(problems, rows, notices)
+    return Validation(problems, rows, notices, suggestions)
+
+
+def _mapping_suggestion(kind: str, path: str, opts) -> list[str]:
+    """A ``[inputs.columns.KIND]`` block for a file that lacks required columns (or nothing to suggest)."""
+    from . import colmap
+    from .csvread import read_header
+    try:
+        header = read_header(path, delimiter=opts.delimiter, encoding=opts.encoding)
+    except InputError:
+        return []
+    given = dict(opts.columns.get(kind) or {})
+    norm_given = {k.strip().lower() for k in given}
+    free = [h for h in header if h.strip().lower() not in norm_given]
+    taken = set(given.values())
+    pairs = [(t, o, "") for t, o in given.items()] + [
+        (t, o, w) for t, o, w in colmap.suggest(free, kind) if o not in taken]
+    if len(pairs) == len(given):
+        return []
+    missing = colmap.missing_after(header, kind, {t: o for t, o, _ in pairs})
+    block = colmap.toml_block(kind, pairs)
+    if missing:
+        block += "\n# still missing: " + ", ".join(missing) + " (add a line for each)"
+    return [f"# {path}\n{block}"]
 
 
 def status(db_path: str, limit: int = 10) -> pl.DataFrame:
@@ -804,6 +836,24 @@ def history(db_path: str, run_a: str | None = None, run_b: str | None = None) ->
 
 
 READ_WAIT_S = 20.0  # how long status/history wait for a run's brief hold on the database
+WRITE_WAIT_S = 5.0  # how long a run waits for a reader's (status, history) brief hold on it
+
+
+def _open_store(db_path, *, read_only: bool = False, wait_s: float = WRITE_WAIT_S) -> Store:
+    """Open the database, waiting while another process holds it for a moment.
+
+    DuckDB lets one process at a time open a database file; ``status`` and ``history``
+    hold it for milliseconds, a run only while it loads and records. A holder that does not
+    let go within ``wait_s`` is reported (StoreError: "in use by another program").
+    """
+    deadline = time.monotonic() + wait_s
+    while True:
+        try:
+            return Store(db_path, read_only=read_only)
+        except StoreError as exc:
+            if "in use" not in str(exc) or time.monotonic() > deadline:
+                raise
+            time.sleep(0.1)
 
 
 @contextmanager
@@ -815,15 +865,7 @@ def _read_store(db_path: str):
     """
     if not Path(db_path).exists():
         raise StoreError(f"{db_path}: no database here yet (run ddscreen run first)")
-    deadline = time.monotonic() + READ_WAIT_S
-    while True:
-        try:
-            store = Store(db_path, read_only=True)
-            break
-        except StoreError as exc:
-            if "in use" not in str(exc) or time.monotonic() > deadline:
-                raise
-            time.sleep(0.2)
+    store = _open_store(db_path, read_only=True, wait_s=READ_WAIT_S)
     try:
         yield store
     finally:
@@ -868,27 +910,139 @@ CONFIG_TEMPLATE_HEADER = """# ddscreen configuration (TOML). Every key is option
 """
 
 
-def init_config(path: str, *, overwrite: bool = False) -> Path:
-    """Write a commented configuration template with every key and its default."""
+#: Keys the template shows as a commented example while they keep their default (the file then also
+#: loads in versions before the key existed).
+TEMPLATE_EXAMPLES = {("reading", "thousands"): '","'}
+
+
+def init_config(path: str, *, overwrite: bool = False, sources: list[str] | None = None,
+                report: list[str] | None = None) -> Path:
+    """Write a commented configuration template with every key and its default.
+
+    With ``sources`` (files, or ``KIND=FILE``) the inputs point at those files, each file's kind
+    is taken from its header where not given, and the column mapping that could be inferred is
+    written as ``[inputs.columns.KIND]`` tables, every line commented with how it was found, for
+    the user to confirm. ``report`` receives one line per file (what was found, what is missing).
+    """
     p = Path(path)
     if p.exists() and not overwrite:
         raise ConfigError(f"{p} exists; use --force to overwrite it")
     from .config import DEFAULTS, template_comments
+    report = report if report is not None else []
+    inputs, blocks = _infer_inputs(sources or [], p, report)
+    reading, why = _infer_number_format(sources or [], report)
     lines = [CONFIG_TEMPLATE_HEADER.format(name=p.name)]
     for section, values in DEFAULTS.items():
         lines.append(f"[{section}]")
         for key, value in values.items():
             comment = template_comments().get((section, key), "")
+            if section == "inputs" and key in inputs:
+                value = inputs[key]
+            if section == "reading" and key in reading:
+                lines.append(f"{key} = {_toml_value(reading[key])}  # {why}: check it")
+                continue
+            if isinstance(value, dict):
+                lines.append(f"# {key}: your column names → ours, one table per file kind, e.g.")
+                lines.append("#   [inputs.columns.readings]")
+                lines.append('#   "Usage" = "quantity"' + ("   (the tables inferred from your files are at the end)"
+                                                           if blocks else ""))
+                continue
             if value is None:
                 lines.append(f"# {key} = 0.37" + (f"  # {comment}" if comment else ""))
                 continue
+            if (section, key) in TEMPLATE_EXAMPLES and value == DEFAULTS[section][key]:
+                lines.append(f"# {key} = {TEMPLATE_EXAMPLES[(section, key)]}" + (f"  # {comment}" if comment else ""))
+                continue
             lines.append(f"{key} = {_toml_value(value)}" + (f"  # {comment}" if comment else ""))
         lines.append("")
+    if blocks:
+        lines.append("# Column mappings inferred from your files' headers: check every line (a run uses them as")
+        lines.append("# written and guesses nothing itself), then run:  ddscreen validate --config " + p.name + " ...")
+        lines += blocks
     try:
         p.write_text("\n".join(lines), encoding="utf-8")
     except OSError as exc:
         raise OutputError(f"{p}: cannot write ({exc.strerror or exc})") from None
     return p
+
+
+def _infer_inputs(sources: list[str], cfg_path: Path, report: list[str]) -> tuple[dict[str, str], list[str]]:
+    """For ``init --from``: each file's kind and inferred column mapping (TOML blocks)."""
+    from . import colmap
+    from .config import column_names
+    from .csvread import read_header, split_sheet
+    inputs: dict[str, str] = {}
+    blocks: list[str] = []
+    for src in sources:
+        kind, sep, file = src.partition("=")
+        if not sep or kind.strip().lower() not in column_names():
+            kind, file = "", src
+        kind = kind.strip().lower()
+        if not Path(split_sheet(file)[0]).is_file():
+            raise InputError(file, "file not found")
+        header = read_header(file)
+        if kind:
+            sug = colmap.suggest(header, kind)
+            missing = colmap.missing_after(header, kind, {t: o for t, o, _ in sug})
+        else:
+            kind, sug, missing = colmap.best_kind(header)
+        if kind in inputs:
+            raise ConfigError(f"init --from: {inputs[kind]} and {file} both look like {kind} files; give one file "
+                              "per kind (KIND=FILE to say which), and put a glob in the config for several")
+        try:
+            rel = os.path.relpath(Path(split_sheet(file)[0]).resolve(), cfg_path.resolve().parent)
+            shown = rel + (("#" + split_sheet(file)[1]) if split_sheet(file)[1] else "")
+        except ValueError:
+            shown = str(Path(file).resolve())
+        inputs[kind] = shown
+        if sug:
+            block = colmap.toml_block(kind, sug)
+            if missing:
+                block += "\n# still missing: " + ", ".join(missing) + " (add a line for each)"
+            blocks += [f"# from {file}", block, ""]
+        report.append(f"{file}: read as {kind}; {len(sug)} column(s) mapped"
+                      + (f"; still missing {', '.join(missing)}" if missing else ""))
+    return inputs, blocks
+
+
+def _infer_number_format(sources: list[str], report: list[str]) -> tuple[dict, str]:
+    """For ``init --from``: ``[reading]`` number settings shown by the files' values, with the reason.
+
+    ``1,855.76`` (a comma group before a decimal point) → ``thousands = ","``; ``1.855,76`` →
+    ``decimal_comma = true`` and ``thousands = "."``. Values that fit both (``1,485``) decide nothing.
+    """
+    import polars as pl
+    from .csvread import _norm, read_header, read_table
+    us = r"^[-+]?[$€£¥]?\s*\d{1,3}(,\d{3})+\.\d+\s*[$€£¥]?$"
+    eu = r"^[-+]?[$€£¥]?\s*\d{1,3}(\.\d{3})*\.\d{3},\d+\s*[$€£¥]?$|^[-+]?[$€£¥]?\s*\d+,\d{1,2}\s*[$€£¥]?$"
+    seen = {"us": None, "eu": None}
+    for src in sources:
+        file = src.partition("=")[2] if "=" in src and src.partition("=")[0].strip().lower() in \
+            ("buildings", "readings", "weather") else src
+        try:
+            names = [_norm(h) for h in read_header(file) if _norm(h)]
+            t = read_table(file, required=[], optional=list(dict.fromkeys(names)))
+        except (InputError, ValueError):
+            continue
+        for c in t.df.columns:
+            if c == "_line" or t.df[c].dtype != pl.String:
+                continue
+            col = t.df[c].head(5000).drop_nulls()
+            for kind, pat in (("us", us), ("eu", eu)):
+                hit = col.filter(col.str.contains(pat))
+                if hit.len() and seen[kind] is None:
+                    seen[kind] = (hit[0], c, file)
+    if seen["us"] and not seen["eu"]:
+        v, c, f = seen["us"]
+        why = f"inferred from values like {v!r} in {c} of {f}"
+        report.append(f"[reading] thousands = \",\" ({why})")
+        return {"thousands": ","}, why
+    if seen["eu"] and not seen["us"]:
+        v, c, f = seen["eu"]
+        why = f"inferred from values like {v!r} in {c} of {f}"
+        report.append(f"[reading] decimal_comma = true, thousands = \".\" ({why})")
+        return {"decimal_comma": True, "thousands": "."}, why
+    return {}, ""
 
 
 def _toml_value(v) -> str:

@@ -263,7 +263,7 @@ def _duplicates(df: pl.DataFrame, key: list[str], values: list[str], label: str)
 
 def read_daily_weather(path: str | Path, *, units: str = "IP", decimal_comma: bool = False,
                        date_order: str | None = None, delimiter: str | None = None,
-                       encoding: str | None = None) -> WeatherRead:
+                       encoding: str | None = None, columns: dict[str, str] | None = None) -> WeatherRead:
     """Read the daily weather CSV of the input contract.
 
     Parameters
@@ -276,6 +276,7 @@ def read_daily_weather(path: str | Path, *, units: str = "IP", decimal_comma: bo
         The ``[reading]`` options of the config: numbers written ``-3,5``; the order of slash dates
         (spreadsheet serial dates and ``YYYY/MM/DD`` are read too, see :func:`screening.parse.parse_date`);
         forced delimiter and encoding.
+    columns : the file's own column names mapped to ours (``[inputs.columns] weather``).
 
     Returns
     -------
@@ -293,11 +294,13 @@ def read_daily_weather(path: str | Path, *, units: str = "IP", decimal_comma: bo
     unit = _units_default(units)
     label = str(path)
     table = read_table(path, required=["station_id", "date"], optional=["t_min", "t_max", "t_mean"], label=label,
-                       delimiter=delimiter, encoding=encoding)
+                       delimiter=delimiter, encoding=encoding, columns=columns)
+    label = table.path
     notices = list(table.notices)
     table.df = _normalize_daily_text(table.df, label, decimal_comma=decimal_comma, date_order=date_order,
                                      notices=notices)
-    present = {h.strip().lower() for h in table.header}
+    cmap = {k.strip().lower(): v for k, v in (columns or {}).items()}
+    present = {cmap.get(h, h) for h in (h.strip().lower() for h in table.header)}
     has_pair = {"t_min", "t_max"} <= present
     if not has_pair and "t_mean" not in present:
         raise InputError(label, "no temperature columns", line=1,

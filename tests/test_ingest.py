@@ -174,7 +174,7 @@ def test_readings_rejects(tmp_path):
         (8, "period_start", "1899-06-01", far), (8, "period_end", "1899-06-30", far),
         (9, "period_start", "2024-02-30", "expected a date (YYYY-MM-DD)"),
         (10, "estimated", "perhaps", "expected true or false"),
-        (12, "quantity", "1,234.5", "expected a number ≥ 0 and ≤ 1e+12"),
+        (12, "quantity", "1,234.5", '1,234.5: a thousands separator; set [reading] thousands = ","'),
         (13, "fuel", "coal", "unknown fuel; expected one of " + ", ".join(FUELS)),
     ])
     assert far.startswith("date out of range; expected 1900-01-01 to ")

@@ -1,0 +1,82 @@
+"""ranking.xlsx: the run's tables as one workbook for sorting, filtering and notes in a spreadsheet.
+
+Sheets ``ranking``, ``data issues``, ``rejects`` and ``assumptions``, each with a frozen
+header row, filters, column widths fitted to the content, number formats, units in the
+headers (``floor_area [ft²]``) and money as currency. Text that a spreadsheet would run as a
+formula is neutralized as in the CSVs (a leading ``'``), and the writer never turns text into
+formulas, links or numbers. Written by xlsxwriter through polars ``write_excel``; the file
+carries a fixed creation date, so the same results give the same bytes.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+from pathlib import Path
+
+import polars as pl
+
+from .outputs import Display, neutralize_formulas
+
+#: The creation date written into the workbook (a fixed one: deterministic output).
+FIXED_CREATED = _dt.datetime(2000, 1, 1)
+
+
+def _ranking_units(d: Display) -> dict[str, str]:
+    e, a, t, dd, i, ua = d.energy_unit, d.area_unit, d.temp_unit, d.dd_unit, d.intensity_unit, d.ua_unit
+    units = {"floor_area": a, "hdd": dd, "hdd65": dd, "base_temperature": t, "fitted_base": t,
+             "heating_intensity": i, "peer_median_intensity": i, "effective_ua": ua,
+             "heating_slope": f"{e}/{dd}", "excess_co2e": "kg CO2e", "coverage": "share", "cv_rmse": "%",
+             "yoy_change": "share", "peer_percentile": "%"}
+    for c in ("actual_heating", "expected_heating", "expected_low", "expected_high", "expected_fixed_base",
+              "expected_modified", "normal_heating", "baseload", "excess_energy"):
+        units[c] = e
+    for c in ("ua_walls", "ua_windows", "ua_roof", "ua_ground", "ua_infiltration", "ua_ventilation", "ua_total"):
+        units[c] = ua
+    return units
+
+
+def _formats(df: pl.DataFrame, currency: str) -> dict[str, str]:
+    money = f'"{currency}"#,##0' if currency else "#,##0"
+    fmt: dict[str, str] = {}
+    for name, dtype in df.schema.items():
+        base = name.split(" [")[0]
+        if base == "excess_cost":
+            fmt[name] = money
+        elif base in ("coverage", "yoy_change"):
+            fmt[name] = "0.0%"
+        elif base in ("ratio", "r2", "z_score", "z_balance_point", "z_intensity", "evidence_score", "z_yoy", "nmbe"):
+            fmt[name] = "0.00"
+        elif dtype.is_float():
+            fmt[name] = "#,##0.0" if base not in ("heating_intensity", "peer_median_intensity", "heating_slope",
+                                                   "value", "low", "high") else "#,##0.000"
+        elif dtype.is_integer() and base not in ("rank", "year_built", "line", "previous_rank", "n_periods"):
+            fmt[name] = "#,##0"
+    return fmt
+
+
+def write_ranking_xlsx(path: Path, *, ranking: pl.DataFrame, issues: pl.DataFrame, rejects: pl.DataFrame,
+                       assumptions: pl.DataFrame, disp: Display, currency: str = "$") -> Path:
+    """Write ``ranking.xlsx`` with one sheet per table (see the module docstring)."""
+    import xlsxwriter
+    units = _ranking_units(disp)
+    ranking = ranking.rename({c: f"{c} [{units[c]}]" for c in ranking.columns if c in units})
+    if "excess_cost" in ranking.columns:
+        ranking = ranking.rename({"excess_cost": f"excess_cost [{currency}/yr]"})
+    sheets = [("ranking", ranking), ("data issues", issues), ("rejects", rejects), ("assumptions", assumptions)]
+    wb = xlsxwriter.Workbook(str(path), {"strings_to_formulas": False, "strings_to_urls": False,
+                                         "strings_to_numbers": False, "nan_inf_to_errors": True})
+    try:
+        wb.set_properties({"title": "ddscreen ranking", "created": FIXED_CREATED})
+        header = {"bold": True, "bottom": 1, "text_wrap": False}
+        for name, df in sheets:
+            df = neutralize_formulas(df)
+            if df.width == 0:
+                df = pl.DataFrame({"(none)": pl.Series([], dtype=pl.String)})
+            date_cols = {c: "yyyy-mm-dd" for c, t in df.schema.items() if t == pl.Date}
+            df.write_excel(workbook=wb, worksheet=name, position="A1", autofilter=True, autofit=True,
+                           freeze_panes=(1, 0), header_format=header, include_header=True,
+                           column_formats={**_formats(df, currency), **date_cols}, dtype_formats={},
+                           hide_gridlines=False)
+    finally:
+        wb.close()
+    return path
