@@ -505,25 +505,45 @@ def pad_periods(periods: pl.DataFrame, period_hdd: np.ndarray,
 def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np.ndarray,
                       base_grid_f: np.ndarray, valid: np.ndarray, *, min_periods: int = 9,
                       max_period_days: int = 62, chunk: int = 2048) -> dict[str, np.ndarray]:
-    """Variable-base degree-day regression of bills (Fels 1986, PRISM), all buildings at once.
+    """Variable-base degree-day regression of bills (Fels 1986, PRISM), all buildings at once,
+    with a baseload that is never negative.
 
     Model per building b and period i (n_i days, weight n_i)::
 
         F_i = α + β · H_i(τ),    F_i = use_i / n_i [kBtu/day],  H_i(τ) = HDD_i(τ) / n_i [°F]
+        subject to α ≥ 0, β ≥ 0
 
-    For every base τ of the grid, α and β are the closed-form weighted least-squares estimates
-    (weights n_i): β = Σw(H−H̄)(F−F̄) / Σw(H−H̄)², α = F̄ − β·H̄ (weighted means). τ is the base
-    with the least weighted SSE among those with β > 0 (Fels 1986, Energy and Buildings 9:5-18;
-    degree-days.md §6). If no base gives β > 0 the model is baseload only: α = weighted mean of F,
-    β = 0. A τ on the first or last grid value is marked (``base_at_edge``).
+    the heating change-point model of PRISM (Fels 1986, "PRISM: an introduction", Energy and
+    Buildings 9:5-18) and of ASHRAE Guideline 14 (the three-parameter heating change-point
+    model, α the baseload, β the slope, τ the change point). A negative α would be a negative
+    non-heating use; it comes from a base too high for the bills or from noise, and is not
+    physical, so α and β are found by non-negative least squares at every base:
 
-    Statistics at the chosen base:
+    1. the closed-form weighted least-squares estimates (weights n_i):
+       β = Σw(H−H̄)(F−F̄) / Σw(H−H̄)², α = F̄ − β·H̄ (weighted means). If α ≥ 0 and β > 0 this is
+       the constrained optimum too;
+    2. otherwise the optimum lies on a bound (the problem is a convex quadratic with two bounds):
+       either α = 0 and β = ΣwHF / ΣwH² (a slope through the origin), or β = 0 and α = F̄
+       (baseload only), whichever has the smaller weighted SSE. The base is a heating candidate
+       when that optimum has β > 0.
 
-    - R² = 1 − Σw e² / Σw (F − F̄)² (weighted, as statsmodels WLS ``rsquared``); 0 for baseload only;
-    - SE(α), SE(β) from s² (X'WX)⁻¹, s² = Σw e² / (n − p) (as statsmodels WLS ``bse``);
+    τ is the heating candidate with the least weighted SSE, every base judged on the same
+    criterion (the SSE of its constrained fit). If no base is a candidate the model is baseload
+    only: α = weighted mean of F, β = 0. A τ on the first or last grid value is marked
+    (``base_at_edge``): the best base may lie beyond the grid. ``alpha_at_zero`` marks a fit whose
+    baseload sits on its bound 0 (a slope through the origin).
+
+    Statistics at the chosen base (p = number of estimated parameters: 2 for the heating model,
+    1 for a slope through the origin or baseload only):
+
+    - R² = 1 − Σw e² / Σw (F − F̄)² (weighted, centred, as statsmodels WLS ``rsquared`` with a
+      constant; the same centred form for a slope through the origin, so R² compares across
+      buildings); 0 for baseload only;
+    - SE(α), SE(β) from s² (X'WX)⁻¹, s² = Σw e² / (n − p) (as statsmodels WLS ``bse``); SE(α) is
+      NaN when α is fixed at 0 (not estimated), SE(β) = sqrt(s² / ΣwH²) then;
     - CV(RMSE) = 100 · sqrt(Σ e² / (n − p)) / ȳ and NMBE = 100 · Σ e / ((n − p) · ȳ) [%] with
       e = F − F̂ per period (per-day use, unweighted, ȳ its plain mean), the ASHRAE Guideline 14
-      definitions, p = 2 for the heating model and p = 1 for baseload only.
+      definitions.
 
     Parameters
     ----------
@@ -539,11 +559,11 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
     Returns
     -------
     dict of np.ndarray, each (n_b,)
-        ``alpha`` [kBtu/day], ``beta`` [kBtu/(°F·day)], ``base_f`` [°F] (NaN unless heating model),
-        ``base_index`` (−1 unless heating model), ``r2``, ``cv_rmse`` [%], ``nmbe`` [%],
-        ``n`` (periods used), ``se_alpha``, ``se_beta``, ``sse_w`` (weighted SSE),
-        ``model`` ("heating" | "baseload_only" | "not_fitted"), ``base_at_edge`` (bool).
-        NaN where not defined.
+        ``alpha`` [kBtu/day] (≥ 0 unless the mean use is negative), ``beta`` [kBtu/(°F·day)],
+        ``base_f`` [°F] (NaN unless heating model), ``base_index`` (−1 unless heating model),
+        ``r2``, ``cv_rmse`` [%], ``nmbe`` [%], ``n`` (periods used), ``se_alpha``, ``se_beta``,
+        ``sse_w`` (weighted SSE), ``model`` ("heating" | "baseload_only" | "not_fitted"),
+        ``base_at_edge`` (bool), ``alpha_at_zero`` (bool). NaN where not defined.
     """
     y = np.asarray(use_per_day, dtype=float)
     n_days = np.asarray(days, dtype=float)
@@ -570,6 +590,7 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
 
     n_b, n_k = y.shape[0], grid.size
     best = np.full(n_b, -1, dtype=np.int64)
+    origin = np.zeros(n_b, dtype=bool)
     for a in range(0, n_b, chunk):
         sl = slice(a, a + chunk)
         xs = np.where(v[sl, :, None], x[sl], 0.0)
@@ -578,16 +599,31 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
         sxx = np.einsum("cpk,cpk->ck", wx, xs)
         sxy = np.einsum("cpk,cp->ck", wx, yc[sl])           # y centred: Σw(x)(y−ȳ) = Σw(x−x̄)(y−ȳ)
         with np.errstate(invalid="ignore", divide="ignore"):
+            # 1. unconstrained weighted least squares at every base
             sxx_c = sxx - sx * sx / s0[sl, None]
             ok = sxx_c > 1e-12 * np.maximum(sxx, 1e-300)
             beta_k = np.where(ok, sxy / np.where(ok, sxx_c, 1.0), 0.0)
-            sse_k = np.where(ok & (beta_k > 0), syy[sl, None] - beta_k * sxy, np.inf)
+            alpha_k = ybar[sl, None] - beta_k * sx / s0[sl, None]
+            sse_u = syy[sl, None] - beta_k * sxy
+            # 2. on the bound α = 0: β = ΣwHF / ΣwH², SSE = ΣwF² − (ΣwHF)² / ΣwH²
+            sxy_raw = sxy + ybar[sl, None] * sx
+            has_x = sxx > 0
+            beta_o = np.where(has_x, sxy_raw / np.where(has_x, sxx, 1.0), 0.0)
+            syy_raw = syy[sl] + s0[sl] * ybar[sl] ** 2
+            sse_o = np.maximum(syy_raw[:, None] - beta_o * sxy_raw, 0.0)
+            free = ok & (beta_k > 0) & (alpha_k >= 0)
+            bound = ~free & has_x & (beta_o > 0) & (sse_o < syy[sl, None])
+            sse_k = np.where(free, sse_u, np.where(bound, sse_o, np.inf))
         has = np.isfinite(sse_k).any(axis=1)
-        best[sl] = np.where(has, np.argmin(sse_k, axis=1), -1)
+        pick = np.where(has, np.argmin(np.where(np.isnan(sse_k), np.inf, sse_k), axis=1), -1)
+        best[sl] = pick
+        origin[sl] = has & np.take_along_axis(bound, np.maximum(pick, 0)[:, None], axis=1)[:, 0]
 
     fitted = n >= min_periods
     heating = fitted & (best >= 0)
     base_only = fitted & ~heating
+    origin = origin & heating
+    free_fit = heating & ~origin
     bidx = np.where(heating, best, 0)
     xb = np.take_along_axis(x, bidx[:, None, None], axis=2)[:, :, 0]
     xb = np.where(v & heating[:, None], xb, 0.0)
@@ -595,17 +631,21 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
         xbar = (w * xb).sum(axis=1) / s0
         xcb = np.where(v, xb - xbar[:, None], 0.0)
         sxx_c = (w * xcb * xcb).sum(axis=1)
-        beta = np.where(heating, (w * xcb * yc).sum(axis=1) / np.where(heating, sxx_c, 1.0), 0.0)
-        alpha = ybar - beta * xbar
+        sxx_raw = (w * xb * xb).sum(axis=1)
+        beta_free = (w * xcb * yc).sum(axis=1) / np.where(free_fit, sxx_c, 1.0)
+        beta_orig = (w * xb * y0).sum(axis=1) / np.where(origin, sxx_raw, 1.0)
+        beta = np.where(free_fit, beta_free, np.where(origin, beta_orig, 0.0))
+        alpha = np.where(origin, 0.0, ybar - beta * xbar)
         yhat = alpha[:, None] + beta[:, None] * xb
         e = np.where(v, y0 - yhat, 0.0)
         sse_w = (w * e * e).sum(axis=1)
-        k_par = np.where(heating, 2, 1)
+        k_par = np.where(free_fit, 2, 1)
         dof = n - k_par
         s2 = sse_w / dof
         r2 = np.where(heating, 1.0 - sse_w / syy, 0.0)
-        se_beta = np.where(heating, np.sqrt(s2 / sxx_c), np.nan)
-        se_alpha = np.where(heating, np.sqrt(s2 * (1.0 / s0 + xbar ** 2 / sxx_c)), np.sqrt(s2 / s0))
+        se_beta = np.where(free_fit, np.sqrt(s2 / sxx_c), np.where(origin, np.sqrt(s2 / sxx_raw), np.nan))
+        se_alpha = np.where(free_fit, np.sqrt(s2 * (1.0 / s0 + xbar ** 2 / sxx_c)),
+                            np.where(origin, np.nan, np.sqrt(s2 / s0)))
         ymean = np.where(v, y0, 0.0).sum(axis=1) / n
         cv = 100.0 * np.sqrt((e * e).sum(axis=1) / dof) / ymean
         nmbe = 100.0 * e.sum(axis=1) / (dof * ymean)
@@ -625,6 +665,7 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
         "sse_w": np.where(fitted, sse_w, nan),
         "model": model,
         "base_at_edge": heating & ((best == 0) | (best == n_k - 1)),
+        "alpha_at_zero": origin,
     }
 
 
@@ -708,7 +749,7 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
         ``building_id, span_start, span_end, span_kind, coverage, total_fuel_kbtu, baseload_kbtu,
         actual_heating_kbtu, normal_heating_kbtu, heating_slope_kbtu_per_dd, fitted_base_f,
         base_used_f, baseload_kbtu_per_day, r2, cv_rmse, nmbe, n_periods, se_alpha, se_beta,
-        fit_method, fit_model, base_at_edge, baseload_share, confidence, effective_ua_btu_h_f``,
+        fit_method, fit_model, base_at_edge, baseload_at_zero, baseload_share, confidence, effective_ua_btu_h_f``,
         in the row order of ``spans``.
     """
     _require(buildings, "buildings", ("building_id", "use_type", "heating_fuel"))
@@ -783,6 +824,7 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
         pl.Series("fit_method", fit_method),
         pl.Series("fit_model", fit["model"]),
         pl.Series("base_at_edge", fit["base_at_edge"]),
+        pl.Series("baseload_at_zero", fit["alpha_at_zero"]),
         pl.Series("baseload_share", np.where(reg, np.nan, share)),
         pl.Series("confidence", np.where(reg, "regression", "low")),
         pl.Series("effective_ua_btu_h_f", ua),

@@ -197,6 +197,80 @@ def test_baseload_only_edge_and_not_fitted():
     assert k["model"][0] == "not_fitted" and k["n"][0] == 8
 
 
+def _heating_only_building(seed, n=24):
+    """Bills of a building with no baseload (α = 0, β 1.2, τ 62 °F) and 15 % noise (seeded)."""
+    rng = np.random.default_rng(seed)
+    s, e = drifting(rng, n)
+    use, days = bills(s, e, 0.0, 1.2, 62.0)
+    return s, e, use * (1 + 0.15 * rng.standard_normal(n)), days
+
+
+def _unconstrained_best(s, e, use, days):
+    """The unconstrained search (the fit before issue 14): WLS at every base, β > 0, least SSE."""
+    y, sw, best = use / days, np.sqrt(days), None
+    x = hdd(s, e, GRID) / days[:, None]
+    for k, t in enumerate(GRID):
+        a = np.c_[sw, sw * x[:, k]]
+        coef, *_ = np.linalg.lstsq(a, sw * y, rcond=None)
+        sse = float(((sw * y - a @ coef) ** 2).sum())
+        if coef[1] > 0 and (best is None or sse < best[0]):
+            best = (sse, t, coef)
+    return best
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2, 3, 4, 5])
+def test_baseload_is_never_negative_and_agrees_with_scipy_nnls(seed):
+    # a building with no baseload: the unconstrained fit of its noisy bills has α < 0 (checked below,
+    # so this test fails on a fit without the bound); the constrained one puts α on its bound 0
+    s, e, use, days = _heating_only_building(seed)
+    assert _unconstrained_best(s, e, use, days)[2][0] < 0
+    f = fit_one(s, e, use)
+    assert f["model"][0] == "heating" and f["alpha"][0] == 0.0 and f["alpha_at_zero"][0]
+    # reference: scipy's non-negative least squares (Lawson-Hanson) at every base of the grid, the
+    # base with the least weighted SSE among those with β > 0 (test-only reference library)
+    y, sw = use / days, np.sqrt(days)
+    x = hdd(s, e, GRID) / days[:, None]
+    ref = []
+    for k in range(GRID.size):
+        coef, rnorm = scipy.optimize.nnls(np.c_[sw, sw * x[:, k]], sw * y)
+        ref.append((rnorm ** 2 if coef[1] > 0 else np.inf, coef))
+    k_best = int(np.argmin([r[0] for r in ref]))
+    assert f["base_f"][0] == GRID[k_best]
+    assert f["beta"][0] == pytest.approx(ref[k_best][1][1], rel=1e-9)
+    assert f["sse_w"][0] == pytest.approx(ref[k_best][0], rel=1e-9)
+    # and scipy's bounded least squares at the chosen base, α ≥ 0, β ≥ 0
+    lsq = scipy.optimize.lsq_linear(np.c_[sw, sw * x[:, k_best]], sw * y, bounds=(0, np.inf), tol=1e-12)
+    assert f["alpha"][0] == pytest.approx(lsq.x[0], abs=1e-9)
+    assert f["beta"][0] == pytest.approx(lsq.x[1], rel=1e-9)
+    # statistics of the one-parameter fit through the origin: p = 1, SE(β) = sqrt(s²/ΣwH²) as
+    # statsmodels WLS without a constant; R² centred (as with a constant)
+    xk = x[:, k_best]
+    res = sm.WLS(y, xk, weights=days).fit()
+    assert f["beta"][0] == pytest.approx(res.params[0], rel=1e-9)
+    assert f["se_beta"][0] == pytest.approx(res.bse[0], rel=1e-9)
+    assert np.isnan(f["se_alpha"][0])
+    assert f["r2"][0] == pytest.approx(1 - res.ssr / (days * (y - np.average(y, weights=days)) ** 2).sum(), rel=1e-9)
+    r = y - res.fittedvalues
+    assert f["cv_rmse"][0] == pytest.approx(100 * np.sqrt((r ** 2).sum() / (len(y) - 1)) / y.mean(), rel=1e-9)
+
+
+def test_constrained_fit_vectorized_equals_one_at_a_time():
+    # buildings with and without the bound in one call, chunked: the same as one at a time
+    cases = [_heating_only_building(3), _noisy_building(1), _heating_only_building(4), _noisy_building(2)]
+    n_p = 24
+    Y = np.zeros((4, n_p)); Dd = np.zeros((4, n_p)); X = np.zeros((4, n_p, GRID.size)); V = np.ones((4, n_p), bool)
+    singles = []
+    for i, (s, e, use, days) in enumerate(cases):
+        Y[i] = use / days; Dd[i] = days; X[i] = hdd(s, e, GRID) / days[:, None]
+        singles.append(fit_one(s, e, use))
+    f = M.fit_variable_base(Y, Dd, X, GRID, V, chunk=3)
+    assert f["alpha_at_zero"].tolist() == [True, False, True, False]
+    assert (f["alpha"] >= 0).all()
+    for i, g in enumerate(singles):
+        for key in ("alpha", "beta", "base_f", "r2", "cv_rmse", "nmbe", "se_beta", "sse_w"):
+            assert f[key][i] == pytest.approx(g[key][0], rel=1e-12), key
+
+
 def test_fit_shape_errors():
     with pytest.raises(ValueError, match=r"hdd_per_day has shape \(1, 3, 2\); expected \(1, 3, 71\)"):
         M.fit_variable_base(np.ones((1, 3)), np.ones((1, 3)), np.ones((1, 3, 2)), GRID, np.ones((1, 3), bool))
