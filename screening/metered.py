@@ -42,12 +42,12 @@ ISSUE_CODES = {
     "low_coverage": True,           # reads cover less than min_coverage of the span
     "gap_in_reads": False,          # days of the span with no read (coverage says how much)
     "many_estimated_reads": False,  # more than max_estimated_share of the span's reads estimated
-    "shifted_span": False,          # compared over a span other than the analysis window
 }
+# (a span other than the analysis window is a flag, ``shifted_span`` in screen.FLAG_TEXT, not a data issue)
 
 _SPAN_SCHEMA = {"building_id": pl.String, "span_start": pl.Date, "span_end": pl.Date,
                 "span_kind": pl.String, "coverage": pl.Float64, "span_days": pl.Int64,
-                "covered_days": pl.Int64}
+                "covered_days": pl.Int64, "filled_days": pl.Int64}
 
 _ISSUE_SCHEMA = {"building_id": pl.String, "code": pl.String, "detail": pl.String,
                  "blocking": pl.Boolean}
@@ -116,15 +116,39 @@ def _union_coverage(r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str]) -
 # spans
 # --------------------------------------------------------------------------------------------
 
+def _end_to_fill(r: pl.DataFrame, ids: pl.Series, window_start: date, window_end: date,
+                 fill_end_days: int) -> pl.DataFrame:
+    """``building_id, filled_days``: buildings whose reads cover every day of the window up to
+    their last read, which ends 1 to ``fill_end_days`` days before ``window_end``."""
+    if fill_end_days <= 0:
+        return pl.DataFrame(schema={"building_id": pl.String, "filled_days": pl.Int64})
+    last = (r.filter(pl.col("period_start") <= window_end).group_by("building_id")
+            .agg(pl.col("period_end").max().alias("span_end"))
+            .filter((pl.col("span_end") >= window_start) & (pl.col("span_end") < window_end)
+                    & (pl.col("span_end") >= window_end - timedelta(days=fill_end_days)))
+            .join(pl.DataFrame({"building_id": ids}), on="building_id", how="semi")
+            .with_columns(pl.lit(window_start).alias("span_start")))
+    cov = _union_coverage(r, last, ["building_id"])
+    last = last.join(cov, on="building_id").filter(
+        pl.col("covered_days") == (_ordinal("span_end") - _ordinal("span_start")) + 1)
+    return last.select("building_id", ((pl.lit(window_end) - pl.col("span_end")).dt.total_days())
+                       .cast(pl.Int64).alias("filled_days"))
+
+
 def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *,
                  lookback_months: int = 24, min_coverage: float = 0.9,
-                 building_ids: Sequence[str] | pl.Series | None = None) -> pl.DataFrame:
+                 building_ids: Sequence[str] | pl.Series | None = None,
+                 fill_end_days: int = 0) -> pl.DataFrame:
     """Pick, per building, the 12 months over which metered and expected use are compared.
 
-    Rule (foundation issue, "Analysis window"), applied to the heating-fuel readings:
+    Rule (foundation issue, "Analysis window"; issue 14 for the filled end), applied to the
+    heating-fuel readings:
 
     1. ``window``: the analysis window ``[window_start, window_end]`` when the readings cover
-       every day of it;
+       every day of it, or every day of it but the last ``filled_days`` (1 to ``fill_end_days``):
+       bills read a few days before the window's end. Those days are filled later from the
+       building's own weather fit (:func:`metered_heating`), so metered and expected use still
+       cover the same days;
     2. ``shifted``: otherwise the latest span of 12 whole calendar months (365 or 366 days, from
        the 1st of a month to the last day of the month 11 months later) that the readings cover on
        every day, ending on or before ``window_end`` and starting on or after
@@ -146,12 +170,15 @@ def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *
     building_ids : sequence of str, optional
         Every building to return a span for (those without readings get ``uncovered``, coverage 0);
         default the buildings present in ``readings``.
+    fill_end_days : int
+        Most days at the window's end that may lack a reading for rule 1 [day]; 0 = none.
 
     Returns
     -------
     pl.DataFrame
-        ``building_id, span_start, span_end, span_kind, coverage, span_days, covered_days``, one
-        row per building, sorted by building_id. ``coverage`` = covered_days / span_days [-].
+        ``building_id, span_start, span_end, span_kind, coverage, span_days, covered_days,
+        filled_days``, one row per building, sorted by building_id. ``coverage`` = covered_days /
+        span_days [-]; ``filled_days`` the days at the span's end to be filled (0 but for rule 1).
     """
     if window_end < window_start:
         raise ValueError(f"window_end={window_end} is before window_start={window_start}")
@@ -159,6 +186,8 @@ def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *
         raise ValueError(f"lookback_months={lookback_months!r} must be at least 12")
     if not (0.0 < min_coverage <= 1.0):
         raise ValueError(f"min_coverage={min_coverage!r} must be in (0, 1]")
+    if fill_end_days < 0:
+        raise ValueError(f"fill_end_days={fill_end_days!r} must be at least 0")
     _require(readings, "readings", ("building_id", "period_start", "period_end"))
     r = _heat(readings).select("building_id", "period_start", "period_end")
     ids = (pl.Series("building_id", list(building_ids), dtype=pl.String) if building_ids is not None
@@ -185,20 +214,24 @@ def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *
     grid = grid.with_columns(
         ((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days")).with_columns(
         (pl.col("covered_days") / pl.col("span_days")).alias("coverage"))
+    grid = grid.join(_end_to_fill(r, ids, window_start, window_end, fill_end_days), on="building_id",
+                     how="left").with_columns(
+        pl.when(pl.col("_cand") == 0).then(pl.col("filled_days").fill_null(0)).otherwise(0).alias("filled_days"))
 
-    full = grid.filter(pl.col("covered_days") == pl.col("span_days"))
+    full = grid.filter(pl.col("covered_days") + pl.col("filled_days") == pl.col("span_days"))
     pick_full = full.sort(["building_id", "_cand"]).group_by("building_id", maintain_order=True).first()
     rest = grid.join(pick_full.select("building_id"), on="building_id", how="anti")
     pick_best = (rest.sort(["building_id", "coverage", "_cand"], descending=[False, True, False])
                  .group_by("building_id", maintain_order=True).first())
-    picked = pl.concat([pick_full, pick_best])
+    picked = pl.concat([pick_full, pick_best.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))])
     window_row = grid.filter(pl.col("_cand") == 0)
     ok = pl.col("coverage") >= min_coverage
     kind = (pl.when(~ok).then(pl.lit("uncovered"))
             .when(pl.col("_cand") == 0).then(pl.lit("window")).otherwise(pl.lit("shifted")))
     picked = picked.with_columns(kind.alias("span_kind"))
     unc = picked.filter(pl.col("span_kind") == "uncovered").select("building_id", "span_kind").join(
-        window_row.drop("span_kind", strict=False), on="building_id")
+        window_row.drop("span_kind", strict=False).with_columns(pl.lit(0, pl.Int64).alias("filled_days")),
+        on="building_id")
     out = pl.concat([picked.filter(pl.col("span_kind") != "uncovered"),
                      unc.select(picked.columns)], how="vertical")
     return out.select(list(_SPAN_SCHEMA)).cast(_SPAN_SCHEMA).sort("building_id")
@@ -405,19 +438,79 @@ def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mont
                .select("building_id", pl.lit("low_coverage").alias("code"), "detail",
                        pl.lit(None, pl.Date).alias("period_start")))
         parts.append(low)
-    if "span_kind" in sp.columns:
-        sh = (sp.filter(pl.col("span_kind") == "shifted")
-              .with_columns(pl.format("compared over {}..{}, not the analysis window", "span_start", "span_end")
-                            .alias("detail"))
-              .select("building_id", pl.lit("shifted_span").alias("code"), "detail",
-                      pl.lit(None, pl.Date).alias("period_start")))
-        parts.append(sh)
 
     allp = pl.concat([p.cast({"period_start": pl.Date}) for p in parts])
     out = (allp.sort(["building_id", "code", "period_start", "detail"], nulls_last=True)
            .group_by(["building_id", "code"], maintain_order=True).agg(pl.col("detail").str.join("; "))
            .with_columns(pl.col("code").replace_strict(ISSUE_CODES, return_dtype=pl.Boolean).alias("blocking")))
     return out.select(list(_ISSUE_SCHEMA)).cast(_ISSUE_SCHEMA).sort(["building_id", "code"])
+
+
+def missing_bills(readings: pl.DataFrame, window_start: date, window_end: date, *,
+                  spans: pl.DataFrame | None = None) -> pl.DataFrame:
+    """Billing periods of the heating fuel missing inside the analysis window, with their dates.
+
+    Two kinds, both clipped to ``[window_start, window_end]``:
+
+    - days of the window that no heating-fuel read covers (``meter_id`` null): before the first
+      read, between reads, and after the last read when that stretch is longer than the building's
+      median billing period (an annual bill for the current year is not due yet) and is not the
+      end that :func:`choose_spans` fills (``spans.filled_days``);
+    - gaps between consecutive reads of one meter that other meters' reads cover (``meter_id``
+      named): that meter's energy for those days is missing even though every day is read.
+
+    Returns
+    -------
+    pl.DataFrame
+        ``building_id, meter_id, gap_start, gap_end, days``, sorted by building_id, gap_start.
+    """
+    _require(readings, "readings", ("building_id", "period_start", "period_end"))
+    out_schema = {"building_id": pl.String, "meter_id": pl.String, "gap_start": pl.Date, "gap_end": pl.Date,
+                  "days": pl.Int64}
+    ws, we = pl.lit(window_start), pl.lit(window_end)
+    one = pl.duration(days=1)
+    meter = (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
+    r = _heat(readings).select("building_id", meter.alias("meter_id"), "period_start", "period_end")
+    # building level: stretches of the window without any read
+    b = (r.sort(["building_id", "period_start", "period_end"])
+         .with_columns(pl.col("period_end").cum_max().shift(1).over("building_id").alias("_pe")))
+    inner = (b.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one))
+             .select("building_id", (pl.col("_pe") + one).alias("gap_start"),
+                     (pl.col("period_start") - one).alias("gap_end")))
+    per = r.group_by("building_id").agg(
+        pl.col("period_start").min().alias("_s"), pl.col("period_end").max().alias("_e"),
+        ((_ordinal("period_end") - _ordinal("period_start")) + 1).median().alias("_len"))
+    if spans is not None and "filled_days" in spans.columns:
+        per = per.join(spans.select("building_id", "filled_days"), on="building_id", how="left")
+    else:
+        per = per.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))
+    lead = per.select("building_id", ws.alias("gap_start"), (pl.col("_s") - one).alias("gap_end"))
+    tail = (per.filter((pl.col("filled_days").fill_null(0) == 0)
+                       & ((_ordinal("_e").cast(pl.Float64) + pl.col("_len")) < pl.lit(window_end).cast(pl.Date)
+                          .cast(pl.Int64)))
+            .select("building_id", (pl.col("_e") + one).alias("gap_start"), we.alias("gap_end")))
+    whole = pl.concat([inner, lead, tail]).with_columns(pl.lit(None, pl.String).alias("meter_id"))
+    # meter level: gaps between consecutive reads of one meter
+    m = (r.sort(["building_id", "meter_id", "period_start", "period_end"])
+         .with_columns(pl.col("period_end").cum_max().shift(1).over("building_id", "meter_id").alias("_pe")))
+    mg = (m.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one))
+          .select("building_id", "meter_id", (pl.col("_pe") + one).alias("gap_start"),
+                  (pl.col("period_start") - one).alias("gap_end")))
+    both = pl.concat([whole.select(list(out_schema)[:4]), mg.select(list(out_schema)[:4])]).with_columns(
+        pl.max_horizontal("gap_start", ws).alias("gap_start"), pl.min_horizontal("gap_end", we).alias("gap_end")
+    ).filter(pl.col("gap_start") <= pl.col("gap_end"))
+    # a meter's gap that no read of the building covers is already named at the building level
+    bl = both.filter(pl.col("meter_id").is_null())
+    named = (both.filter(pl.col("meter_id").is_not_null()).with_row_index("_i")
+             .join(bl.select("building_id", pl.col("gap_start").alias("_bs"), pl.col("gap_end").alias("_be")),
+                   on="building_id", how="inner")
+             .filter((pl.col("gap_start") >= pl.col("_bs")) & (pl.col("gap_end") <= pl.col("_be")))["_i"])
+    mg = both.filter(pl.col("meter_id").is_not_null()).with_row_index("_i").filter(
+        ~pl.col("_i").is_in(named.implode())).drop("_i")
+    out = pl.concat([bl, mg]).with_columns(
+        ((_ordinal("gap_end") - _ordinal("gap_start")) + 1).alias("days"))
+    return out.select(list(out_schema)).cast(out_schema).sort(["building_id", "gap_start", "meter_id"],
+                                                              nulls_last=False)
 
 
 # --------------------------------------------------------------------------------------------
@@ -711,13 +804,21 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
                     normal_hdd: np.ndarray, base_grid_f: np.ndarray, efficiency: np.ndarray,
                     engineering_base_f: np.ndarray, baseload_shares: pl.DataFrame | None = None,
                     method: str = "days", daily_weights: pl.DataFrame | None = None,
-                    min_periods: int = 9, max_period_days: int = 62) -> pl.DataFrame:
+                    min_periods: int = 9, max_period_days: int = 62,
+                    fill_hdd: np.ndarray | None = None) -> pl.DataFrame:
     """Per building: the heating part of the heating fuel over its span, normalized to a normal year.
 
     With a regression fit (:func:`fit_variable_base`, ``fit_method`` "regression")::
 
-        baseload = α · covered_days,  actual_heating = max(total_fuel − baseload, 0)
+        baseload = α · (covered_days + filled_days),  actual_heating = max(total_fuel − baseload, 0)
         normal_heating = β · HDD_normal(τ)               (Fels 1986: NAC = 365·α + β·H₀(τ))
+
+    Days at the span's end without a reading yet (``filled_days`` of :func:`choose_spans`) are
+    filled so that metered and expected use cover the same days: from the building's own fit,
+    ``filled = α · filled_days + β · HDD_filled(τ)``; without a fit, by the days and degree days
+    of the read part, ``filled = E_read · (s · filled_days / covered_days + (1 − s) · HDD_filled(T_eng)
+    / HDD_read(T_eng))`` (by days alone when the read part has no degree days). ``total_fuel``
+    includes the filled energy.
 
     Otherwise (``fit_method`` "default share", lower confidence) with the documented share s of the
     use type (``baseload_shares.csv``, CBECS 2003 water-heating shares)::
@@ -742,6 +843,8 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
     engineering_base_f : (n_b,) balance point used where there is no heating fit [°F].
     baseload_shares : default ``refdata.load("baseload_shares")``.
     method, daily_weights : passed to :func:`calendarize`.
+    fill_hdd : (n_b, n_bases) HDD of each span's filled days at each base [°F·day]; needed when
+        ``spans`` has ``filled_days`` > 0 (zeros elsewhere).
 
     Returns
     -------
@@ -749,19 +852,29 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
         ``building_id, span_start, span_end, span_kind, coverage, total_fuel_kbtu, baseload_kbtu,
         actual_heating_kbtu, normal_heating_kbtu, heating_slope_kbtu_per_dd, fitted_base_f,
         base_used_f, baseload_kbtu_per_day, r2, cv_rmse, nmbe, n_periods, se_alpha, se_beta,
-        fit_method, fit_model, base_at_edge, baseload_at_zero, baseload_share, confidence, effective_ua_btu_h_f``,
+        fit_method, fit_model, base_at_edge, baseload_at_zero, baseload_share, filled_days, filled_kbtu, confidence, effective_ua_btu_h_f``,
         in the row order of ``spans``.
     """
     _require(buildings, "buildings", ("building_id", "use_type", "heating_fuel"))
     grid = np.asarray(base_grid_f, dtype=float)
-    sp = spans.select("building_id", "span_start", "span_end", "span_kind", "coverage", "covered_days")
+    if "filled_days" not in spans.columns:
+        spans = spans.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))
+    sp = spans.select("building_id", "span_start", "span_end", "span_kind", "coverage", "covered_days",
+                      "filled_days")
     n_b = sp.height
+    filled_days = sp["filled_days"].fill_null(0).to_numpy().astype(float)
+    if fill_hdd is None:
+        if np.any(filled_days > 0):
+            raise ValueError("spans has filled_days > 0 but no fill_hdd was given")
+        fill_hdd = np.zeros((n_b, grid.size))
     for name, arr, shape in (("span_hdd", span_hdd, (n_b, grid.size)), ("normal_hdd", normal_hdd, (n_b, grid.size)),
-                             ("efficiency", efficiency, (n_b,)), ("engineering_base_f", engineering_base_f, (n_b,))):
+                             ("efficiency", efficiency, (n_b,)), ("engineering_base_f", engineering_base_f, (n_b,)),
+                             ("fill_hdd", fill_hdd, (n_b, grid.size))):
         if np.shape(arr) != shape:
             raise ValueError(f"{name} has shape {np.shape(arr)}; expected {shape} (rows in spans order)")
     span_hdd = np.asarray(span_hdd, float)
     normal_hdd = np.asarray(normal_hdd, float)
+    fill_hdd = np.asarray(fill_hdd, float)
     eta = np.asarray(efficiency, float)
     t_eng = np.asarray(engineering_base_f, float)
 
@@ -786,7 +899,7 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
 
     fit = _fit_in_blocks(periods, period_hdd, sp["building_id"], grid, min_periods=min_periods,
                          max_period_days=max_period_days)
-    total = frame["total_fuel_kbtu"].fill_null(0.0).to_numpy()
+    read = frame["total_fuel_kbtu"].fill_null(0.0).to_numpy()
     covered = frame["covered_days"].to_numpy().astype(float)
     share = frame["nonheating_share"].to_numpy()
     reg = fit["model"] != "not_fitted"
@@ -794,7 +907,16 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
     kidx = np.where(heat, fit["base_index"], 0)
     rows = np.arange(n_b)
     with np.errstate(invalid="ignore", divide="ignore"):
-        base_reg = np.where(reg, fit["alpha"] * covered, share * total)
+        # the filled days at the span's end: from the fit, or by days and degree days of the read part
+        fill_eng = _at_base(fill_hdd, grid, t_eng)
+        read_eng = _at_base(span_hdd, grid, t_eng) - fill_eng
+        heat_part = np.where(read_eng > 0, fill_eng / read_eng, filled_days / covered)
+        fill_default = read * (share * filled_days / covered + (1 - share) * heat_part)
+        fill_fit = fit["alpha"] * filled_days + np.where(heat, fit["beta"] * fill_hdd[rows, kidx], 0.0)
+        filled = np.where(filled_days > 0, np.where(reg, fill_fit, fill_default), 0.0)
+        filled = np.where(np.isfinite(filled), filled, 0.0)
+        total = read + filled
+        base_reg = np.where(reg, fit["alpha"] * (covered + filled_days), share * total)
         baseload = np.where(reg, base_reg, share * total)
         actual = np.where(reg, np.maximum(total - baseload, 0.0), (1 - share) * total)
         hdd_eng_span = _at_base(span_hdd, grid, t_eng)
@@ -826,6 +948,8 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
         pl.Series("base_at_edge", fit["base_at_edge"]),
         pl.Series("baseload_at_zero", fit["alpha_at_zero"]),
         pl.Series("baseload_share", np.where(reg, np.nan, share)),
+        pl.Series("filled_days", sp["filled_days"].fill_null(0)),
+        pl.Series("filled_kbtu", filled),
         pl.Series("confidence", np.where(reg, "regression", "low")),
         pl.Series("effective_ua_btu_h_f", ua),
     )

@@ -438,3 +438,77 @@ def test_metered_heating_end_to_end():
     with pytest.raises(ValueError, match=r"efficiency has shape \(3,\); expected \(2,\)"):
         M.metered_heating(r, sp, blds, periods=periods, period_hdd=p_hdd, span_hdd=span_hdd, normal_hdd=normal,
                           base_grid_f=GRID, efficiency=np.ones(3), engineering_base_f=np.array([55.0, 55.0]))
+
+
+# ------------------------------------------------------------------------------ issue 14: the window's end, missing bills
+
+def test_bills_read_a_few_days_early_keep_the_window():
+    s, e = monthly(2024, 33)                                   # 2024-01 .. 2026-09 monthly
+    early = _reads("a_early", s, e[:-1] + [date(2026, 9, 24)])  # last read 6 days before the window's end
+    late = _reads("b_late", s[:-1], e[:-1])                    # September 2026 not read yet: 30 days
+    long_ = _reads("c_long", s[:-2], e[:-2])                   # August and September missing: 61 days
+    holey = _reads("d_holey", [x for i, x in enumerate(s) if i != 30], [x for i, x in enumerate(e) if i != 30])
+    r = pl.concat([early, late, long_, holey])
+    sp = {x["building_id"]: x for x in M.choose_spans(r, WS, WE, fill_end_days=35).to_dicts()}
+    assert (sp["a_early"]["span_kind"], sp["a_early"]["span_start"], sp["a_early"]["span_end"]) == ("window", WS, WE)
+    assert sp["a_early"]["filled_days"] == 6 and sp["a_early"]["covered_days"] == 359
+    assert sp["b_late"]["span_kind"] == "window" and sp["b_late"]["filled_days"] == 30
+    # beyond the tolerance, and a hole inside the window, still shift the comparison (nothing filled)
+    assert sp["c_long"]["span_kind"] == "shifted" and sp["c_long"]["filled_days"] == 0
+    assert sp["d_holey"]["span_kind"] == "shifted" and sp["d_holey"]["filled_days"] == 0
+    # without a tolerance (the old rule) the early read shifts the whole comparison a month back
+    old = {x["building_id"]: x for x in M.choose_spans(r, WS, WE).to_dicts()}
+    assert old["a_early"]["span_kind"] == "shifted" and old["a_early"]["span_end"] == date(2026, 8, 31)
+    with pytest.raises(ValueError, match="fill_end_days=-1 must be at least 0"):
+        M.choose_spans(r, WS, WE, fill_end_days=-1)
+
+
+def test_missing_bills_are_named_with_their_dates():
+    s, e = monthly(2024, 33)
+    keep = [i for i in range(33) if i not in (24, 25)]         # January and February 2026 missing
+    one = _reads("a", [s[i] for i in keep], [e[i] for i in keep], meter_id=["M1"] * len(keep))
+    # two meters: M2 misses May 2026 while M1 covers every day
+    m1 = _reads("b", s, e, meter_id=["M1"] * 33)
+    keep2 = [i for i in range(33) if i != 28]
+    m2 = _reads("b", [s[i] for i in keep2], [e[i] for i in keep2], meter_id=["M2"] * len(keep2))
+    annual = _reads("c", [date(2024, 1, 1), date(2025, 1, 1)], [date(2024, 12, 31), date(2025, 12, 31)],
+                    meter_id=["M1", "M1"])
+    early = _reads("d", s, e[:-1] + [date(2026, 9, 24)], meter_id=["M1"] * 33)
+    stopped = _reads("e", s[:-3], e[:-3], meter_id=["M1"] * 30)  # no bill after June 2026
+    r = pl.concat([one, m1, m2, annual, early, stopped])
+    sp = M.choose_spans(r, WS, WE, fill_end_days=35)
+    g = M.missing_bills(r, WS, WE, spans=sp)
+    rows = [(x["building_id"], x["meter_id"], x["gap_start"], x["gap_end"], x["days"]) for x in g.to_dicts()]
+    assert rows == [("a", None, date(2026, 1, 1), date(2026, 2, 28), 59),
+                    ("b", "M2", date(2026, 5, 1), date(2026, 5, 31), 31),
+                    ("e", None, date(2026, 7, 1), date(2026, 9, 30), 92)]
+    # the annual building's 2026 bill is not due yet; the early read's last 6 days are filled, not missing
+
+
+def test_filled_end_days_come_from_the_buildings_fit():
+    # noise-free bills (α 20, β 0.9, τ 60) 2021-01..2022-12, the last one read on 2022-12-25:
+    # the 6 days left are filled from the fit, so the year's total and heating are those of full bills
+    s, e = monthly(2021, 24)
+    use, _ = bills(s, e, 20.0, 0.9, 60.0)
+    e_cut = e[:-1] + [date(2022, 12, 25)]
+    use_cut, _ = bills(s, e_cut, 20.0, 0.9, 60.0)
+    r = _reads("reg", s, e_cut, q=use_cut)
+    ws, we = date(2022, 1, 1), date(2022, 12, 31)
+    sp = M.choose_spans(r, ws, we, fill_end_days=35)
+    assert sp["span_kind"][0] == "window" and sp["filled_days"][0] == 6
+    periods = M.fit_periods(r, sp)
+    p_hdd = hdd(periods["period_start"].to_list(), periods["period_end"].to_list(), GRID)
+    span_hdd = hdd([ws], [we], GRID)
+    fill_hdd = hdd([date(2022, 12, 26)], [we], GRID)
+    blds = pl.DataFrame({"building_id": ["reg"], "use_type": ["school"], "heating_fuel": ["natural_gas"]})
+    kw = dict(periods=periods, period_hdd=p_hdd, span_hdd=span_hdd, normal_hdd=span_hdd, base_grid_f=GRID,
+              efficiency=np.array([0.8]), engineering_base_f=np.array([55.0]))
+    g = M.metered_heating(r, sp, blds, fill_hdd=fill_hdd, **kw).row(0, named=True)
+    hdd60 = hdd([ws], [we], [60.0])[0, 0]
+    assert g["filled_days"] == 6
+    assert g["filled_kbtu"] == pytest.approx(20.0 * 6 + 0.9 * fill_hdd[0, GRID.tolist().index(60.0)], rel=1e-9)
+    assert g["total_fuel_kbtu"] == pytest.approx(use[12:].sum(), rel=1e-9)        # the full year's bills
+    assert g["baseload_kbtu"] == pytest.approx(20.0 * 365, rel=1e-9)
+    assert g["actual_heating_kbtu"] == pytest.approx(0.9 * hdd60, rel=1e-9)
+    with pytest.raises(ValueError, match="filled_days > 0 but no fill_hdd"):
+        M.metered_heating(r, sp, blds, **kw)
