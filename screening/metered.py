@@ -910,7 +910,8 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
         # the filled days at the span's end: from the fit, or by days and degree days of the read part
         fill_eng = _at_base(fill_hdd, grid, t_eng)
         read_eng = _at_base(span_hdd, grid, t_eng) - fill_eng
-        heat_part = np.where(read_eng > 0, fill_eng / read_eng, filled_days / covered)
+        dd_ok = np.isfinite(read_eng) & np.isfinite(fill_eng) & (read_eng > 0)
+        heat_part = np.where(dd_ok, fill_eng / np.where(dd_ok, read_eng, 1.0), filled_days / covered)
         fill_default = read * (share * filled_days / covered + (1 - share) * heat_part)
         fill_fit = fit["alpha"] * filled_days + np.where(heat, fit["beta"] * fill_hdd[rows, kidx], 0.0)
         filled = np.where(filled_days > 0, np.where(reg, fill_fit, fill_default), 0.0)

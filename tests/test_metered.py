@@ -512,3 +512,29 @@ def test_filled_end_days_come_from_the_buildings_fit():
     assert g["actual_heating_kbtu"] == pytest.approx(0.9 * hdd60, rel=1e-9)
     with pytest.raises(ValueError, match="filled_days > 0 but no fill_hdd"):
         M.metered_heating(r, sp, blds, **kw)
+
+
+def test_filled_end_days_without_a_fit_follow_days_and_degree_days():
+    # six two-month bills (fewer than 9 periods: no fit), the last read on 2022-12-25: the office's
+    # default share s (5.7 %, CBECS 2003) is filled by days, the rest by degree days at T_eng (by hand)
+    s = [date(2022, m, 1) for m in (1, 3, 5, 7, 9, 11)]
+    e = [date(2022, 2, 28), date(2022, 4, 30), date(2022, 6, 30), date(2022, 8, 31), date(2022, 10, 31),
+         date(2022, 12, 25)]
+    q = [900.0, 700.0, 300.0, 200.0, 400.0, 800.0]
+    r = _reads("ann", s, e, q=q)
+    ws, we = date(2022, 1, 1), date(2022, 12, 31)
+    sp = M.choose_spans(r, ws, we, fill_end_days=35)
+    assert sp["filled_days"][0] == 6
+    span_hdd = hdd([ws], [we], GRID)
+    fill_hdd = hdd([date(2022, 12, 26)], [we], GRID)
+    blds = pl.DataFrame({"building_id": ["ann"], "use_type": ["office"], "heating_fuel": ["natural_gas"]})
+    periods = M.fit_periods(r, sp)
+    p_hdd = hdd(periods["period_start"].to_list(), periods["period_end"].to_list(), GRID)
+    g = M.metered_heating(r, sp, blds, periods=periods, period_hdd=p_hdd, span_hdd=span_hdd, normal_hdd=span_hdd,
+                          base_grid_f=GRID, efficiency=np.array([0.8]), engineering_base_f=np.array([55.0]),
+                          fill_hdd=fill_hdd).row(0, named=True)
+    k = GRID.tolist().index(55.0)
+    fill = sum(q) * (0.057 * 6 / 359 + 0.943 * fill_hdd[0, k] / (span_hdd[0, k] - fill_hdd[0, k]))
+    assert g["fit_method"] == "default share"
+    assert g["filled_kbtu"] == pytest.approx(fill, rel=1e-9)
+    assert g["total_fuel_kbtu"] == pytest.approx(sum(q) + fill, rel=1e-9)
