@@ -332,9 +332,14 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
 def next_steps(flag_codes: list[str], data_issue_codes: list[str], *, slope_vs_envelope: float | None) -> list[str]:
     """Plain-language checks tied to the flags (printed on the sheet)."""
     steps = []
-    if data_issue_codes:
-        steps.append("Check the data first: " + ", ".join(sorted(set(data_issue_codes)))
+    # the last days of the window filled from the fit need no correction, only the next bill
+    fix = sorted(set(data_issue_codes) - {"end_days_filled"})
+    if fix:
+        steps.append("Check the data first: " + ", ".join(fix)
                      + " — correct the readings or the building record and rerun.")
+    if "end_days_filled" in data_issue_codes:
+        steps.append("The last days of the window had no reading yet and were filled from the building's "
+                     "weather fit: the next run uses the bill once it is read.")
     if "high_balance_point" in flag_codes:
         steps.append("Check controls and setpoints: heating schedules, night and weekend setbacks, "
                      "thermostat settings, simultaneous heating and cooling.")

@@ -279,3 +279,12 @@ def test_readme_lists_the_data_issues_and_the_flags_the_code_declares():
     assert {c: v == "yes" for c, v in issues.items()} == DATA_ISSUE_CODES
     assert set(flags) == set(FLAG_TEXT)
     assert not set(DATA_ISSUE_CODES) & set(FLAG_TEXT)
+
+
+def test_filled_end_days_ask_for_no_data_correction():
+    from screening.screen import next_steps
+    steps = next_steps([], ["end_days_filled"], slope_vs_envelope=None)
+    assert not any(s.startswith("Check the data first") for s in steps)
+    assert any("filled from the building's weather fit" in s for s in steps)
+    both = next_steps([], ["end_days_filled", "missing_bills"], slope_vs_envelope=None)
+    assert "Check the data first: missing_bills — correct" in both[0]
