@@ -41,6 +41,8 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "window_from": "",          # YYYY-MM-DD; overrides the window start
         "window_to": "",            # YYYY-MM-DD; overrides the window end (inclusive)
         "lookback_months": 24,      # how far back a building's own 12-month span may go
+        "fill_end_days": 35,        # up to this many days at the window's end without a reading yet (about
+                                    # one billing cycle) are filled from the building's weather fit; 0 = never
         "degree_day_method": "mean",  # mean or maxmin (daily data); see README
         "calendarization": "days",  # days or degree_days
         "base_min_f": 40.0,         # base-temperature grid for regression and balance point [°F]
@@ -175,6 +177,8 @@ RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("output", "ranking_pdf_rows"): (0, 10_000_000, "a whole number"),
     # the whole method compares 12 months; a building's own span may go back up to 10 years
     ("analysis", "lookback_months"): (12, 120, "a whole number of months"),
+    # at most about two billing cycles may be filled; more is a missing bill, not a late read
+    ("analysis", "fill_end_days"): (0, 62, "a whole number of days"),
     # balance points of real buildings lie well inside 20-90 °F (common practice)
     ("analysis", "base_min_f"): (20.0, 90.0, "a temperature in °F"),
     ("analysis", "base_max_f"): (20.0, 90.0, "a temperature in °F"),

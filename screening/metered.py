@@ -42,12 +42,12 @@ ISSUE_CODES = {
     "low_coverage": True,           # reads cover less than min_coverage of the span
     "gap_in_reads": False,          # days of the span with no read (coverage says how much)
     "many_estimated_reads": False,  # more than max_estimated_share of the span's reads estimated
-    "shifted_span": False,          # compared over a span other than the analysis window
 }
+# (a span other than the analysis window is a flag, ``shifted_span`` in screen.FLAG_TEXT, not a data issue)
 
 _SPAN_SCHEMA = {"building_id": pl.String, "span_start": pl.Date, "span_end": pl.Date,
                 "span_kind": pl.String, "coverage": pl.Float64, "span_days": pl.Int64,
-                "covered_days": pl.Int64}
+                "covered_days": pl.Int64, "filled_days": pl.Int64}
 
 _ISSUE_SCHEMA = {"building_id": pl.String, "code": pl.String, "detail": pl.String,
                  "blocking": pl.Boolean}
@@ -127,15 +127,39 @@ def _union_coverage(r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str]) -
 # spans
 # --------------------------------------------------------------------------------------------
 
+def _end_to_fill(r: pl.DataFrame, ids: pl.Series, window_start: date, window_end: date,
+                 fill_end_days: int) -> pl.DataFrame:
+    """``building_id, filled_days``: buildings whose reads cover every day of the window up to
+    their last read, which ends 1 to ``fill_end_days`` days before ``window_end``."""
+    if fill_end_days <= 0:
+        return pl.DataFrame(schema={"building_id": pl.String, "filled_days": pl.Int64})
+    last = (r.filter(pl.col("period_start") <= window_end).group_by("building_id")
+            .agg(pl.col("period_end").max().alias("span_end"))
+            .filter((pl.col("span_end") >= window_start) & (pl.col("span_end") < window_end)
+                    & (pl.col("span_end") >= window_end - timedelta(days=fill_end_days)))
+            .join(pl.DataFrame({"building_id": ids}), on="building_id", how="semi")
+            .with_columns(pl.lit(window_start).alias("span_start")))
+    cov = _union_coverage(r, last, ["building_id"])
+    last = last.join(cov, on="building_id").filter(
+        pl.col("covered_days") == (_ordinal("span_end") - _ordinal("span_start")) + 1)
+    return last.select("building_id", ((pl.lit(window_end) - pl.col("span_end")).dt.total_days())
+                       .cast(pl.Int64).alias("filled_days"))
+
+
 def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *,
                  lookback_months: int = 24, min_coverage: float = 0.9,
-                 building_ids: Sequence[str] | pl.Series | None = None) -> pl.DataFrame:
+                 building_ids: Sequence[str] | pl.Series | None = None,
+                 fill_end_days: int = 0) -> pl.DataFrame:
     """Pick, per building, the 12 months over which metered and expected use are compared.
 
-    Rule (foundation issue, "Analysis window"), applied to the heating-fuel readings:
+    Rule (foundation issue, "Analysis window"; issue 14 for the filled end), applied to the
+    heating-fuel readings:
 
     1. ``window``: the analysis window ``[window_start, window_end]`` when the readings cover
-       every day of it;
+       every day of it, or every day of it but the last ``filled_days`` (1 to ``fill_end_days``):
+       bills read a few days before the window's end. Those days are filled later from the
+       building's own weather fit (:func:`metered_heating`), so metered and expected use still
+       cover the same days;
     2. ``shifted``: otherwise the latest span of 12 whole calendar months (365 or 366 days, from
        the 1st of a month to the last day of the month 11 months later) that the readings cover on
        every day, ending on or before ``window_end`` and starting on or after
@@ -157,12 +181,15 @@ def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *
     building_ids : sequence of str, optional
         Every building to return a span for (those without readings get ``uncovered``, coverage 0);
         default the buildings present in ``readings``.
+    fill_end_days : int
+        Most days at the window's end that may lack a reading for rule 1 [day]; 0 = none.
 
     Returns
     -------
     pl.DataFrame
-        ``building_id, span_start, span_end, span_kind, coverage, span_days, covered_days``, one
-        row per building, sorted by building_id. ``coverage`` = covered_days / span_days [-].
+        ``building_id, span_start, span_end, span_kind, coverage, span_days, covered_days,
+        filled_days``, one row per building, sorted by building_id. ``coverage`` = covered_days /
+        span_days [-]; ``filled_days`` the days at the span's end to be filled (0 but for rule 1).
     """
     if window_end < window_start:
         raise ValueError(f"window_end={window_end} is before window_start={window_start}")
@@ -170,6 +197,8 @@ def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *
         raise ValueError(f"lookback_months={lookback_months!r} must be at least 12")
     if not (0.0 < min_coverage <= 1.0):
         raise ValueError(f"min_coverage={min_coverage!r} must be in (0, 1]")
+    if fill_end_days < 0:
+        raise ValueError(f"fill_end_days={fill_end_days!r} must be at least 0")
     _require(readings, "readings", ("building_id", "period_start", "period_end"))
     r = _heat(readings).select("building_id", "period_start", "period_end")
     ids = (pl.Series("building_id", list(building_ids), dtype=pl.String) if building_ids is not None
@@ -196,20 +225,24 @@ def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *
     grid = grid.with_columns(
         ((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days")).with_columns(
         (pl.col("covered_days") / pl.col("span_days")).alias("coverage"))
+    grid = grid.join(_end_to_fill(r, ids, window_start, window_end, fill_end_days), on="building_id",
+                     how="left").with_columns(
+        pl.when(pl.col("_cand") == 0).then(pl.col("filled_days").fill_null(0)).otherwise(0).alias("filled_days"))
 
-    full = grid.filter(pl.col("covered_days") == pl.col("span_days"))
+    full = grid.filter(pl.col("covered_days") + pl.col("filled_days") == pl.col("span_days"))
     pick_full = full.sort(["building_id", "_cand"]).group_by("building_id", maintain_order=True).first()
     rest = grid.join(pick_full.select("building_id"), on="building_id", how="anti")
     pick_best = (rest.sort(["building_id", "coverage", "_cand"], descending=[False, True, False])
                  .group_by("building_id", maintain_order=True).first())
-    picked = pl.concat([pick_full, pick_best])
+    picked = pl.concat([pick_full, pick_best.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))])
     window_row = grid.filter(pl.col("_cand") == 0)
     ok = pl.col("coverage") >= min_coverage
     kind = (pl.when(~ok).then(pl.lit("uncovered"))
             .when(pl.col("_cand") == 0).then(pl.lit("window")).otherwise(pl.lit("shifted")))
     picked = picked.with_columns(kind.alias("span_kind"))
     unc = picked.filter(pl.col("span_kind") == "uncovered").select("building_id", "span_kind").join(
-        window_row.drop("span_kind", strict=False), on="building_id")
+        window_row.drop("span_kind", strict=False).with_columns(pl.lit(0, pl.Int64).alias("filled_days")),
+        on="building_id")
     out = pl.concat([picked.filter(pl.col("span_kind") != "uncovered"),
                      unc.select(picked.columns)], how="vertical")
     return out.select(list(_SPAN_SCHEMA)).cast(_SPAN_SCHEMA).sort("building_id")
@@ -446,19 +479,79 @@ def _reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mon
                .select("building_id", pl.lit("low_coverage").alias("code"), "detail",
                        pl.lit(None, pl.Date).alias("period_start")))
         parts.append(low)
-    if "span_kind" in sp.columns:
-        sh = (sp.filter(pl.col("span_kind") == "shifted")
-              .with_columns(pl.format("compared over {}..{}, not the analysis window", "span_start", "span_end")
-                            .alias("detail"))
-              .select("building_id", pl.lit("shifted_span").alias("code"), "detail",
-                      pl.lit(None, pl.Date).alias("period_start")))
-        parts.append(sh)
 
     allp = pl.concat([p.cast({"period_start": pl.Date}) for p in parts])
     out = (allp.sort(["building_id", "code", "period_start", "detail"], nulls_last=True)
            .group_by(["building_id", "code"], maintain_order=True).agg(pl.col("detail").str.join("; "))
            .with_columns(pl.col("code").replace_strict(ISSUE_CODES, return_dtype=pl.Boolean).alias("blocking")))
     return out.select(list(_ISSUE_SCHEMA)).cast(_ISSUE_SCHEMA).sort(["building_id", "code"])
+
+
+def missing_bills(readings: pl.DataFrame, window_start: date, window_end: date, *,
+                  spans: pl.DataFrame | None = None) -> pl.DataFrame:
+    """Billing periods of the heating fuel missing inside the analysis window, with their dates.
+
+    Two kinds, both clipped to ``[window_start, window_end]``:
+
+    - days of the window that no heating-fuel read covers (``meter_id`` null): before the first
+      read, between reads, and after the last read when that stretch is longer than the building's
+      median billing period (an annual bill for the current year is not due yet) and is not the
+      end that :func:`choose_spans` fills (``spans.filled_days``);
+    - gaps between consecutive reads of one meter that other meters' reads cover (``meter_id``
+      named): that meter's energy for those days is missing even though every day is read.
+
+    Returns
+    -------
+    pl.DataFrame
+        ``building_id, meter_id, gap_start, gap_end, days``, sorted by building_id, gap_start.
+    """
+    _require(readings, "readings", ("building_id", "period_start", "period_end"))
+    out_schema = {"building_id": pl.String, "meter_id": pl.String, "gap_start": pl.Date, "gap_end": pl.Date,
+                  "days": pl.Int64}
+    ws, we = pl.lit(window_start), pl.lit(window_end)
+    one = pl.duration(days=1)
+    meter = (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
+    r = _heat(readings).select("building_id", meter.alias("meter_id"), "period_start", "period_end")
+    # building level: stretches of the window without any read
+    b = (r.sort(["building_id", "period_start", "period_end"])
+         .with_columns(pl.col("period_end").cum_max().shift(1).over("building_id").alias("_pe")))
+    inner = (b.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one))
+             .select("building_id", (pl.col("_pe") + one).alias("gap_start"),
+                     (pl.col("period_start") - one).alias("gap_end")))
+    per = r.group_by("building_id").agg(
+        pl.col("period_start").min().alias("_s"), pl.col("period_end").max().alias("_e"),
+        ((_ordinal("period_end") - _ordinal("period_start")) + 1).median().alias("_len"))
+    if spans is not None and "filled_days" in spans.columns:
+        per = per.join(spans.select("building_id", "filled_days"), on="building_id", how="left")
+    else:
+        per = per.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))
+    lead = per.select("building_id", ws.alias("gap_start"), (pl.col("_s") - one).alias("gap_end"))
+    tail = (per.filter((pl.col("filled_days").fill_null(0) == 0)
+                       & ((_ordinal("_e").cast(pl.Float64) + pl.col("_len")) < pl.lit(window_end).cast(pl.Date)
+                          .cast(pl.Int64)))
+            .select("building_id", (pl.col("_e") + one).alias("gap_start"), we.alias("gap_end")))
+    whole = pl.concat([inner, lead, tail]).with_columns(pl.lit(None, pl.String).alias("meter_id"))
+    # meter level: gaps between consecutive reads of one meter
+    m = (r.sort(["building_id", "meter_id", "period_start", "period_end"])
+         .with_columns(pl.col("period_end").cum_max().shift(1).over("building_id", "meter_id").alias("_pe")))
+    mg = (m.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one))
+          .select("building_id", "meter_id", (pl.col("_pe") + one).alias("gap_start"),
+                  (pl.col("period_start") - one).alias("gap_end")))
+    both = pl.concat([whole.select(list(out_schema)[:4]), mg.select(list(out_schema)[:4])]).with_columns(
+        pl.max_horizontal("gap_start", ws).alias("gap_start"), pl.min_horizontal("gap_end", we).alias("gap_end")
+    ).filter(pl.col("gap_start") <= pl.col("gap_end"))
+    # a meter's gap that no read of the building covers is already named at the building level
+    bl = both.filter(pl.col("meter_id").is_null())
+    named = (both.filter(pl.col("meter_id").is_not_null()).with_row_index("_i")
+             .join(bl.select("building_id", pl.col("gap_start").alias("_bs"), pl.col("gap_end").alias("_be")),
+                   on="building_id", how="inner")
+             .filter((pl.col("gap_start") >= pl.col("_bs")) & (pl.col("gap_end") <= pl.col("_be")))["_i"])
+    mg = both.filter(pl.col("meter_id").is_not_null()).with_row_index("_i").filter(
+        ~pl.col("_i").is_in(named.implode())).drop("_i")
+    out = pl.concat([bl, mg]).with_columns(
+        ((_ordinal("gap_end") - _ordinal("gap_start")) + 1).alias("days"))
+    return out.select(list(out_schema)).cast(out_schema).sort(["building_id", "gap_start", "meter_id"],
+                                                              nulls_last=False)
 
 
 # --------------------------------------------------------------------------------------------
@@ -546,25 +639,45 @@ def pad_periods(periods: pl.DataFrame, period_hdd: np.ndarray,
 def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np.ndarray,
                       base_grid_f: np.ndarray, valid: np.ndarray, *, min_periods: int = 9,
                       max_period_days: int = 62, chunk: int = 2048) -> dict[str, np.ndarray]:
-    """Variable-base degree-day regression of bills (Fels 1986, PRISM), all buildings at once.
+    """Variable-base degree-day regression of bills (Fels 1986, PRISM), all buildings at once,
+    with a baseload that is never negative.
 
     Model per building b and period i (n_i days, weight n_i)::
 
         F_i = α + β · H_i(τ),    F_i = use_i / n_i [kBtu/day],  H_i(τ) = HDD_i(τ) / n_i [°F]
+        subject to α ≥ 0, β ≥ 0
 
-    For every base τ of the grid, α and β are the closed-form weighted least-squares estimates
-    (weights n_i): β = Σw(H−H̄)(F−F̄) / Σw(H−H̄)², α = F̄ − β·H̄ (weighted means). τ is the base
-    with the least weighted SSE among those with β > 0 (Fels 1986, Energy and Buildings 9:5-18;
-    degree-days.md §6). If no base gives β > 0 the model is baseload only: α = weighted mean of F,
-    β = 0. A τ on the first or last grid value is marked (``base_at_edge``).
+    the heating change-point model of PRISM (Fels 1986, "PRISM: an introduction", Energy and
+    Buildings 9:5-18) and of ASHRAE Guideline 14 (the three-parameter heating change-point
+    model, α the baseload, β the slope, τ the change point). A negative α would be a negative
+    non-heating use; it comes from a base too high for the bills or from noise, and is not
+    physical, so α and β are found by non-negative least squares at every base:
 
-    Statistics at the chosen base:
+    1. the closed-form weighted least-squares estimates (weights n_i):
+       β = Σw(H−H̄)(F−F̄) / Σw(H−H̄)², α = F̄ − β·H̄ (weighted means). If α ≥ 0 and β > 0 this is
+       the constrained optimum too;
+    2. otherwise the optimum lies on a bound (the problem is a convex quadratic with two bounds):
+       either α = 0 and β = ΣwHF / ΣwH² (a slope through the origin), or β = 0 and α = F̄
+       (baseload only), whichever has the smaller weighted SSE. The base is a heating candidate
+       when that optimum has β > 0.
 
-    - R² = 1 − Σw e² / Σw (F − F̄)² (weighted, as statsmodels WLS ``rsquared``); 0 for baseload only;
-    - SE(α), SE(β) from s² (X'WX)⁻¹, s² = Σw e² / (n − p) (as statsmodels WLS ``bse``);
+    τ is the heating candidate with the least weighted SSE, every base judged on the same
+    criterion (the SSE of its constrained fit). If no base is a candidate the model is baseload
+    only: α = weighted mean of F, β = 0. A τ on the first or last grid value is marked
+    (``base_at_edge``): the best base may lie beyond the grid. ``alpha_at_zero`` marks a fit whose
+    baseload sits on its bound 0 (a slope through the origin).
+
+    Statistics at the chosen base (p = number of estimated parameters: 2 for the heating model,
+    1 for a slope through the origin or baseload only):
+
+    - R² = 1 − Σw e² / Σw (F − F̄)² (weighted, centred, as statsmodels WLS ``rsquared`` with a
+      constant; the same centred form for a slope through the origin, so R² compares across
+      buildings); 0 for baseload only;
+    - SE(α), SE(β) from s² (X'WX)⁻¹, s² = Σw e² / (n − p) (as statsmodels WLS ``bse``); SE(α) is
+      NaN when α is fixed at 0 (not estimated), SE(β) = sqrt(s² / ΣwH²) then;
     - CV(RMSE) = 100 · sqrt(Σ e² / (n − p)) / ȳ and NMBE = 100 · Σ e / ((n − p) · ȳ) [%] with
       e = F − F̂ per period (per-day use, unweighted, ȳ its plain mean), the ASHRAE Guideline 14
-      definitions, p = 2 for the heating model and p = 1 for baseload only.
+      definitions.
 
     Parameters
     ----------
@@ -580,11 +693,11 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
     Returns
     -------
     dict of np.ndarray, each (n_b,)
-        ``alpha`` [kBtu/day], ``beta`` [kBtu/(°F·day)], ``base_f`` [°F] (NaN unless heating model),
-        ``base_index`` (−1 unless heating model), ``r2``, ``cv_rmse`` [%], ``nmbe`` [%],
-        ``n`` (periods used), ``se_alpha``, ``se_beta``, ``sse_w`` (weighted SSE),
-        ``model`` ("heating" | "baseload_only" | "not_fitted"), ``base_at_edge`` (bool).
-        NaN where not defined.
+        ``alpha`` [kBtu/day] (≥ 0 unless the mean use is negative), ``beta`` [kBtu/(°F·day)],
+        ``base_f`` [°F] (NaN unless heating model), ``base_index`` (−1 unless heating model),
+        ``r2``, ``cv_rmse`` [%], ``nmbe`` [%], ``n`` (periods used), ``se_alpha``, ``se_beta``,
+        ``sse_w`` (weighted SSE), ``model`` ("heating" | "baseload_only" | "not_fitted"),
+        ``base_at_edge`` (bool), ``alpha_at_zero`` (bool). NaN where not defined.
     """
     y = np.asarray(use_per_day, dtype=float)
     n_days = np.asarray(days, dtype=float)
@@ -611,6 +724,7 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
 
     n_b, n_k = y.shape[0], grid.size
     best = np.full(n_b, -1, dtype=np.int64)
+    origin = np.zeros(n_b, dtype=bool)
     for a in range(0, n_b, chunk):
         sl = slice(a, a + chunk)
         xs = np.where(v[sl, :, None], x[sl], 0.0)
@@ -619,16 +733,31 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
         sxx = np.einsum("cpk,cpk->ck", wx, xs)
         sxy = np.einsum("cpk,cp->ck", wx, yc[sl])           # y centred: Σw(x)(y−ȳ) = Σw(x−x̄)(y−ȳ)
         with np.errstate(invalid="ignore", divide="ignore"):
+            # 1. unconstrained weighted least squares at every base
             sxx_c = sxx - sx * sx / s0[sl, None]
             ok = sxx_c > 1e-12 * np.maximum(sxx, 1e-300)
             beta_k = np.where(ok, sxy / np.where(ok, sxx_c, 1.0), 0.0)
-            sse_k = np.where(ok & (beta_k > 0), syy[sl, None] - beta_k * sxy, np.inf)
+            alpha_k = ybar[sl, None] - beta_k * sx / s0[sl, None]
+            sse_u = syy[sl, None] - beta_k * sxy
+            # 2. on the bound α = 0: β = ΣwHF / ΣwH², SSE = ΣwF² − (ΣwHF)² / ΣwH²
+            sxy_raw = sxy + ybar[sl, None] * sx
+            has_x = sxx > 0
+            beta_o = np.where(has_x, sxy_raw / np.where(has_x, sxx, 1.0), 0.0)
+            syy_raw = syy[sl] + s0[sl] * ybar[sl] ** 2
+            sse_o = np.maximum(syy_raw[:, None] - beta_o * sxy_raw, 0.0)
+            free = ok & (beta_k > 0) & (alpha_k >= 0)
+            bound = ~free & has_x & (beta_o > 0) & (sse_o < syy[sl, None])
+            sse_k = np.where(free, sse_u, np.where(bound, sse_o, np.inf))
         has = np.isfinite(sse_k).any(axis=1)
-        best[sl] = np.where(has, np.argmin(sse_k, axis=1), -1)
+        pick = np.where(has, np.argmin(np.where(np.isnan(sse_k), np.inf, sse_k), axis=1), -1)
+        best[sl] = pick
+        origin[sl] = has & np.take_along_axis(bound, np.maximum(pick, 0)[:, None], axis=1)[:, 0]
 
     fitted = n >= min_periods
     heating = fitted & (best >= 0)
     base_only = fitted & ~heating
+    origin = origin & heating
+    free_fit = heating & ~origin
     bidx = np.where(heating, best, 0)
     xb = np.take_along_axis(x, bidx[:, None, None], axis=2)[:, :, 0]
     xb = np.where(v & heating[:, None], xb, 0.0)
@@ -636,17 +765,21 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
         xbar = (w * xb).sum(axis=1) / s0
         xcb = np.where(v, xb - xbar[:, None], 0.0)
         sxx_c = (w * xcb * xcb).sum(axis=1)
-        beta = np.where(heating, (w * xcb * yc).sum(axis=1) / np.where(heating, sxx_c, 1.0), 0.0)
-        alpha = ybar - beta * xbar
+        sxx_raw = (w * xb * xb).sum(axis=1)
+        beta_free = (w * xcb * yc).sum(axis=1) / np.where(free_fit, sxx_c, 1.0)
+        beta_orig = (w * xb * y0).sum(axis=1) / np.where(origin, sxx_raw, 1.0)
+        beta = np.where(free_fit, beta_free, np.where(origin, beta_orig, 0.0))
+        alpha = np.where(origin, 0.0, ybar - beta * xbar)
         yhat = alpha[:, None] + beta[:, None] * xb
         e = np.where(v, y0 - yhat, 0.0)
         sse_w = (w * e * e).sum(axis=1)
-        k_par = np.where(heating, 2, 1)
+        k_par = np.where(free_fit, 2, 1)
         dof = n - k_par
         s2 = sse_w / dof
         r2 = np.where(heating, 1.0 - sse_w / syy, 0.0)
-        se_beta = np.where(heating, np.sqrt(s2 / sxx_c), np.nan)
-        se_alpha = np.where(heating, np.sqrt(s2 * (1.0 / s0 + xbar ** 2 / sxx_c)), np.sqrt(s2 / s0))
+        se_beta = np.where(free_fit, np.sqrt(s2 / sxx_c), np.where(origin, np.sqrt(s2 / sxx_raw), np.nan))
+        se_alpha = np.where(free_fit, np.sqrt(s2 * (1.0 / s0 + xbar ** 2 / sxx_c)),
+                            np.where(origin, np.nan, np.sqrt(s2 / s0)))
         ymean = np.where(v, y0, 0.0).sum(axis=1) / n
         cv = 100.0 * np.sqrt((e * e).sum(axis=1) / dof) / ymean
         nmbe = 100.0 * e.sum(axis=1) / (dof * ymean)
@@ -666,6 +799,7 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
         "sse_w": np.where(fitted, sse_w, nan),
         "model": model,
         "base_at_edge": heating & ((best == 0) | (best == n_k - 1)),
+        "alpha_at_zero": origin,
     }
 
 
@@ -712,13 +846,21 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
                     normal_hdd: np.ndarray, base_grid_f: np.ndarray, efficiency: np.ndarray,
                     engineering_base_f: np.ndarray, baseload_shares: pl.DataFrame | None = None,
                     method: str = "days", daily_weights: pl.DataFrame | None = None,
-                    min_periods: int = 9, max_period_days: int = 62) -> pl.DataFrame:
+                    min_periods: int = 9, max_period_days: int = 62,
+                    fill_hdd: np.ndarray | None = None) -> pl.DataFrame:
     """Per building: the heating part of the heating fuel over its span, normalized to a normal year.
 
     With a regression fit (:func:`fit_variable_base`, ``fit_method`` "regression")::
 
-        baseload = α · covered_days,  actual_heating = max(total_fuel − baseload, 0)
+        baseload = α · (covered_days + filled_days),  actual_heating = max(total_fuel − baseload, 0)
         normal_heating = β · HDD_normal(τ)               (Fels 1986: NAC = 365·α + β·H₀(τ))
+
+    Days at the span's end without a reading yet (``filled_days`` of :func:`choose_spans`) are
+    filled so that metered and expected use cover the same days: from the building's own fit,
+    ``filled = α · filled_days + β · HDD_filled(τ)``; without a fit, by the days and degree days
+    of the read part, ``filled = E_read · (s · filled_days / covered_days + (1 − s) · HDD_filled(T_eng)
+    / HDD_read(T_eng))`` (by days alone when the read part has no degree days). ``total_fuel``
+    includes the filled energy.
 
     Otherwise (``fit_method`` "default share", lower confidence) with the documented share s of the
     use type (``baseload_shares.csv``, CBECS 2003 water-heating shares)::
@@ -745,6 +887,8 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
     engineering_base_f : (n_b,) balance point used where there is no heating fit [°F].
     baseload_shares : default ``refdata.load("baseload_shares")``.
     method, daily_weights : passed to :func:`calendarize`.
+    fill_hdd : (n_b, n_bases) HDD of each span's filled days at each base [°F·day]; needed when
+        ``spans`` has ``filled_days`` > 0 (zeros elsewhere).
 
     Returns
     -------
@@ -752,19 +896,29 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
         ``building_id, span_start, span_end, span_kind, coverage, total_fuel_kbtu, baseload_kbtu,
         actual_heating_kbtu, normal_heating_kbtu, heating_slope_kbtu_per_dd, fitted_base_f,
         base_used_f, baseload_kbtu_per_day, r2, cv_rmse, nmbe, n_periods, se_alpha, se_beta,
-        fit_method, fit_model, base_at_edge, baseload_share, confidence, effective_ua_btu_h_f``,
+        fit_method, fit_model, base_at_edge, baseload_at_zero, baseload_share, filled_days, filled_kbtu, confidence, effective_ua_btu_h_f``,
         in the row order of ``spans``.
     """
     _require(buildings, "buildings", ("building_id", "use_type", "heating_fuel"))
     grid = np.asarray(base_grid_f, dtype=float)
-    sp = spans.select("building_id", "span_start", "span_end", "span_kind", "coverage", "covered_days")
+    if "filled_days" not in spans.columns:
+        spans = spans.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))
+    sp = spans.select("building_id", "span_start", "span_end", "span_kind", "coverage", "covered_days",
+                      "filled_days")
     n_b = sp.height
+    filled_days = sp["filled_days"].fill_null(0).to_numpy().astype(float)
+    if fill_hdd is None:
+        if np.any(filled_days > 0):
+            raise ValueError("spans has filled_days > 0 but no fill_hdd was given")
+        fill_hdd = np.zeros((n_b, grid.size))
     for name, arr, shape in (("span_hdd", span_hdd, (n_b, grid.size)), ("normal_hdd", normal_hdd, (n_b, grid.size)),
-                             ("efficiency", efficiency, (n_b,)), ("engineering_base_f", engineering_base_f, (n_b,))):
+                             ("efficiency", efficiency, (n_b,)), ("engineering_base_f", engineering_base_f, (n_b,)),
+                             ("fill_hdd", fill_hdd, (n_b, grid.size))):
         if np.shape(arr) != shape:
             raise ValueError(f"{name} has shape {np.shape(arr)}; expected {shape} (rows in spans order)")
     span_hdd = np.asarray(span_hdd, float)
     normal_hdd = np.asarray(normal_hdd, float)
+    fill_hdd = np.asarray(fill_hdd, float)
     eta = np.asarray(efficiency, float)
     t_eng = np.asarray(engineering_base_f, float)
 
@@ -789,7 +943,7 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
 
     fit = _fit_in_blocks(periods, period_hdd, sp["building_id"], grid, min_periods=min_periods,
                          max_period_days=max_period_days)
-    total = frame["total_fuel_kbtu"].fill_null(0.0).to_numpy()
+    read = frame["total_fuel_kbtu"].fill_null(0.0).to_numpy()
     covered = frame["covered_days"].to_numpy().astype(float)
     share = frame["nonheating_share"].to_numpy()
     reg = fit["model"] != "not_fitted"
@@ -797,7 +951,17 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
     kidx = np.where(heat, fit["base_index"], 0)
     rows = np.arange(n_b)
     with np.errstate(invalid="ignore", divide="ignore"):
-        base_reg = np.where(reg, fit["alpha"] * covered, share * total)
+        # the filled days at the span's end: from the fit, or by days and degree days of the read part
+        fill_eng = _at_base(fill_hdd, grid, t_eng)
+        read_eng = _at_base(span_hdd, grid, t_eng) - fill_eng
+        dd_ok = np.isfinite(read_eng) & np.isfinite(fill_eng) & (read_eng > 0)
+        heat_part = np.where(dd_ok, fill_eng / np.where(dd_ok, read_eng, 1.0), filled_days / covered)
+        fill_default = read * (share * filled_days / covered + (1 - share) * heat_part)
+        fill_fit = fit["alpha"] * filled_days + np.where(heat, fit["beta"] * fill_hdd[rows, kidx], 0.0)
+        filled = np.where(filled_days > 0, np.where(reg, fill_fit, fill_default), 0.0)
+        filled = np.where(np.isfinite(filled), filled, 0.0)
+        total = read + filled
+        base_reg = np.where(reg, fit["alpha"] * (covered + filled_days), share * total)
         baseload = np.where(reg, base_reg, share * total)
         actual = np.where(reg, np.maximum(total - baseload, 0.0), (1 - share) * total)
         hdd_eng_span = _at_base(span_hdd, grid, t_eng)
@@ -827,7 +991,10 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
         pl.Series("fit_method", fit_method),
         pl.Series("fit_model", fit["model"]),
         pl.Series("base_at_edge", fit["base_at_edge"]),
+        pl.Series("baseload_at_zero", fit["alpha_at_zero"]),
         pl.Series("baseload_share", np.where(reg, np.nan, share)),
+        pl.Series("filled_days", sp["filled_days"].fill_null(0)),
+        pl.Series("filled_kbtu", filled),
         pl.Series("confidence", np.where(reg, "regression", "low")),
         pl.Series("effective_ua_btu_h_f", ua),
     )

@@ -119,7 +119,7 @@ def display_assumptions(items: list[dict] | None, disp: "Display") -> list[dict]
 
 RANKING_COLUMNS = [
     "rank", "building_id", "name", "use_type", "floor_area", "year_built", "station_id", "heating_fuel",
-    "period_start", "period_end", "span_kind", "coverage", "hdd", "base_temperature", "hdd65",
+    "period_start", "period_end", "span_kind", "coverage", "filled_days", "hdd", "base_temperature", "hdd65",
     "actual_heating", "expected_heating", "expected_low", "expected_high", "expected_fixed_base",
     "expected_modified", "ratio", "band_position", "heating_intensity", "peer_group", "peer_median_intensity",
     "peer_percentile", "z_score", "z_balance_point", "z_intensity", "evidence_score", "normal_heating", "yoy_change", "z_yoy", "baseload", "heating_slope", "fitted_base", "r2", "cv_rmse",
@@ -138,7 +138,7 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
         d.area(pl.col("floor_area_ft2")).round(1).alias("floor_area"),
         "year_built", "station_id", "heating_fuel",
         pl.col("span_start").alias("period_start"), pl.col("span_end").alias("period_end"), "span_kind",
-        pl.col("coverage").round(4),
+        pl.col("coverage").round(4), "filled_days",
         d.dd(pl.col("hdd_balance")).round(1).alias("hdd"),
         d.temp(pl.col("balance_point_f")).round(2).alias("base_temperature"),
         d.dd(pl.col("hdd65")).round(1).alias("hdd65"),

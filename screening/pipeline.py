@@ -39,7 +39,25 @@ ISSUE_TEXT = {
     "no_weather_at_station": ("station {station_id} has no weather on any day of the span {span_start} to "
                               "{span_end} ({record}): add that station's weather for these dates, or correct "
                               "the building's station_id"),
+    "missing_bills": ("no heating-fuel bill for {gaps} inside the analysis window {window_start} to {window_end}: "
+                      "obtain the missing bills (or readings) and rerun"),
+    "end_days_filled": ("no reading yet for the last {days} day(s) of the span, {fill_start} to {span_end}: filled "
+                        "from {source} ({share} % of the span's use)"),
 }
+#: Every data-issue code found here, beside the per-reading ones of :data:`screening.metered.ISSUE_CODES`,
+#: and whether it blocks a verdict. :data:`DATA_ISSUE_CODES` is the one list of data issues (README
+#: "Data issues"); flags are :data:`screening.screen.FLAG_TEXT`.
+PIPELINE_ISSUE_CODES = {
+    "likely_unit_error": True,         # a bill or the whole use 10x-1000x off (units, entry)
+    "bill_off_fit": True,              # a bill far off the building's own weather fit
+    "weather_gap": True,               # days of the span without weather at the station
+    "no_weather_at_station": True,
+    "no_readings": True,
+    "no_heating_fuel_readings": True,
+    "missing_bills": False,            # bills missing inside the analysis window (dates named)
+    "end_days_filled": False,          # the span's last days had no reading yet and were filled
+}
+DATA_ISSUE_CODES = {**metered.ISSUE_CODES, **PIPELINE_ISSUE_CODES}
 #: Issues that leave no basis for a ratio: no likely_unit_error is claimed beside them.
 NO_BASIS_CODES = ("no_readings", "no_heating_fuel_readings", "no_weather_at_station")
 
@@ -400,12 +418,14 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
                              .cast(REJECT_SCHEMA)])
     thr = cfg["thresholds"]
     spans = metered.choose_spans(conv, ws, we, lookback_months=a["lookback_months"],
-                                 min_coverage=thr["coverage_min"], building_ids=b["building_id"])
+                                 min_coverage=thr["coverage_min"], building_ids=b["building_id"],
+                                 fill_end_days=a["fill_end_days"])
     if not bool((spans["coverage"].fill_null(0.0) > 0).any()):
         _no_building_screenable(conv, n_readings, window, a["lookback_months"], paths)
     spans = spans.join(b.select("building_id", "station_id"), on="building_id", how="left", maintain_order="left")
     st = spans["station_id"].to_numpy()
     span_hdd, span_days, span_missing = cube.period_totals(st, spans["span_start"], spans["span_end"])
+    fill_hdd = _fill_hdd(cube, spans, grid)
     periods = metered.fit_periods(conv, spans, lookback_months=a["lookback_months"])
     periods = periods.join(b.select("building_id", "station_id"), on="building_id", how="left",
                            maintain_order="left")
@@ -425,7 +445,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
                                   period_hdd=period_hdd, span_hdd=span_hdd, normal_hdd=normal_hdd,
                                   base_grid_f=grid, efficiency=eff,
                                   engineering_base_f=envelope["balance_point_f"].to_numpy(),
-                                  method=a["calendarization"],
+                                  method=a["calendarization"], fill_hdd=fill_hdd,
                                   daily_weights=_daily_weights(cube, spans, conv, envelope)
                                   if a["calendarization"] == "degree_days" else None)
     lap("regression")
@@ -444,9 +464,14 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     hdd_bal = cube.at_base(st, spans["span_start"], spans["span_end"], envelope["balance_point_f"].to_numpy())[0]
 
     # data issues
-    issues = [metered.reading_issues(conv, spans.drop("station_id"), lookback_months=a["lookback_months"],
+    # (the days filled at a span's end are their own issue, end_days_filled, not a gap in the reads)
+    read_spans = spans.drop("station_id").with_columns(
+        (pl.col("span_end") - pl.duration(days=pl.col("filled_days"))).alias("span_end"))
+    issues = [metered.reading_issues(conv, read_spans, lookback_months=a["lookback_months"],
                                      min_coverage=thr["coverage_min"],
                                      max_estimated_share=thr["estimated_share_max"]),
+              _missing_bill_issues(conv, spans, window),
+              _filled_end_issues(met),
               _unit_error_issues(conv, b, thr["unit_error_factor"]),
               _fit_outlier_issues(periods, met, thr["unit_error_factor_fit"])]
     wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
@@ -467,7 +492,13 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     if other_only.height:
         issues.append(other_only)
     issues_df = pl.concat([i.select("building_id", "code", "detail", "blocking") for i in issues]) \
-        .filter(pl.col("code") != "shifted_span").unique().sort("building_id", "code")
+        .unique().sort("building_id", "code")
+    # where the span is the window, missing_bills names the days a gap in the span would name again
+    named = issues_df.filter(pl.col("code") == "missing_bills").join(
+        spans.filter(pl.col("span_kind") != "shifted").select("building_id"), on="building_id")["building_id"]
+    issues_df = issues_df.filter(~((pl.col("code") == "gap_in_reads") & pl.col("building_id").is_in(named.implode())))
+    issues_df = issues_df.with_columns(  # whether an issue blocks a verdict: declared once, DATA_ISSUE_CODES
+        pl.col("code").replace_strict(DATA_ISSUE_CODES, return_dtype=pl.Boolean).alias("blocking"))
     if other_only.height:   # "0 % covered" says nothing more than "no reading in the heating fuel"
         issues_df = issues_df.filter(~((pl.col("code") == "low_coverage")
                                        & pl.col("building_id").is_in(other_only["building_id"].implode())))
@@ -593,7 +624,7 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
     """
     fit = met.filter((((pl.col("fit_method") == "regression") & pl.col("fitted_base_f").is_not_null())
                       | ((pl.col("fit_method") == "default share") & pl.col("base_used_f").is_not_null()))
-                     & (pl.col("coverage") >= 0.99)).select(
+                     & (pl.col("coverage") + pl.col("filled_days") / _span_days() >= 0.99)).select(
         "building_id", pl.coalesce("fitted_base_f", "base_used_f").alias("fitted_base_f"),
         pl.col("baseload_kbtu_per_day").fill_null(0.0), "actual_heating_kbtu",
         pl.when(pl.col("fit_method") == "default share").then(pl.col("baseload_share")).otherwise(0.0)
@@ -626,6 +657,54 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
     ok = np.isfinite(yoy) & (miss_prev == 0) & (norm_prev > 0)
     return pl.DataFrame({"building_id": sp["building_id"], "yoy_change": np.where(ok, yoy, np.nan)}).with_columns(
         pl.col("yoy_change").fill_nan(None))
+
+
+def _span_days() -> pl.Expr:
+    return (pl.col("span_end") - pl.col("span_start")).dt.total_days() + 1
+
+
+def _fill_hdd(cube, spans: pl.DataFrame, grid: np.ndarray) -> np.ndarray:
+    """HDD at every grid base over each span's filled days at its end (zeros where none) [°F·day]."""
+    out = np.zeros((spans.height, grid.size))
+    idx = np.flatnonzero(spans["filled_days"].fill_null(0).to_numpy() > 0)
+    if idx.size:
+        sub = spans[idx]
+        start = sub.select(pl.col("span_end") - pl.duration(days=pl.col("filled_days")) + pl.duration(days=1))
+        out[idx] = cube.period_totals(sub["station_id"].to_numpy(), start.to_series(), sub["span_end"])[0]
+    return out
+
+
+def _missing_bill_issues(conv: pl.DataFrame, spans: pl.DataFrame, window) -> pl.DataFrame:
+    """Heating-fuel bills missing inside the analysis window, their dates named (``missing_bills``)."""
+    ws, we = window
+    g = metered.missing_bills(conv, ws, we, spans=spans)
+    g = g.with_columns(
+        (pl.when(pl.col("meter_id").is_null()).then(pl.lit(""))
+         .otherwise(pl.lit("meter ") + pl.col("meter_id") + pl.lit(" ")))
+        .alias("_m"))
+    g = g.with_columns(pl.format("{}{}..{} ({} days)", "_m", "gap_start", "gap_end", "days").alias("_d"))
+    t = ISSUE_TEXT["missing_bills"].replace("{window_start}", str(ws)).replace("{window_end}", str(we))
+    head, tail = t.split("{gaps}")
+    return g.group_by("building_id", maintain_order=True).agg(pl.col("_d").str.join("; ")).select(
+        "building_id", pl.lit("missing_bills").alias("code"),
+        (pl.lit(head) + pl.col("_d") + pl.lit(tail)).alias("detail"),
+        pl.lit(False).alias("blocking")).sort("building_id")
+
+
+def _filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
+    """Spans whose last days had no reading yet and were filled (``end_days_filled``)."""
+    f = met.filter(pl.col("filled_days") > 0)
+    src = (pl.when(pl.col("fit_method") == "regression").then(pl.lit("the building's own weather fit"))
+           .otherwise(pl.lit("the days and degree days of its read part (no weather fit)")))
+    share = (100 * pl.col("filled_kbtu") / pl.col("total_fuel_kbtu")).round(1).fill_nan(0.0).fill_null(0.0)
+    t = ISSUE_TEXT["end_days_filled"]
+    for k in ("{days}", "{fill_start}", "{span_end}", "{source}", "{share}"):
+        t = t.replace(k, "{}")
+    return f.select("building_id", pl.lit("end_days_filled").alias("code"),
+                    pl.format(t, "filled_days",
+                              (pl.col("span_end") - pl.duration(days=pl.col("filled_days") - 1)).cast(pl.String),
+                              pl.col("span_end").cast(pl.String), src, share).alias("detail"),
+                    pl.lit(False).alias("blocking")).sort("building_id")
 
 
 def _other_fuel_only(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:

@@ -38,6 +38,7 @@ FLAG_TEXT = {
     "rising_use": "weather-normalized heating rising against last year",
     "envelope_defaulted": "envelope entirely from defaults (lower confidence)",
     "shifted_span": "compared over the building's latest covered 12 months, not the window",
+    "base_at_grid_edge": "fitted balance point on the edge of the bases searched",
 }
 
 
@@ -201,6 +202,7 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         "rising_use": pl.col("yoy_change") > t["yoy_rise"],
         "envelope_defaulted": pl.col("envelope_source") == "estimated",
         "shifted_span": pl.col("span_kind") == "shifted",
+        "base_at_grid_edge": reg & pl.col("base_at_edge") if "base_at_edge" in out.columns else pl.lit(False),
     }
     out = out.with_columns([c.fill_null(False).alias(f"_f_{k}") for k, c in conds.items()])
     # a fit that does not follow the weather is no basis for a verdict (often a meter or entry problem)
@@ -295,6 +297,10 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         if r["_f_shifted_span"]:
             add("shifted_span", "Readings do not cover the analysis window; the latest covered 12 months were "
                 "compared instead, with the degree days of the same days.")
+        if r["_f_base_at_grid_edge"]:
+            add("base_at_grid_edge", f"The bills fit best at a base of {_fmt(r['fitted_base_f'], 1)} °F, the edge of "
+                "the bases searched: the building's balance point may lie beyond it, and its split of the fuel "
+                "into heating and baseload is less certain.")
         codes_all.append(codes)
         texts_all.append(texts)
         if r["blocking"]:
@@ -326,9 +332,14 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
 def next_steps(flag_codes: list[str], data_issue_codes: list[str], *, slope_vs_envelope: float | None) -> list[str]:
     """Plain-language checks tied to the flags (printed on the sheet)."""
     steps = []
-    if data_issue_codes:
-        steps.append("Check the data first: " + ", ".join(sorted(set(data_issue_codes)))
+    # the last days of the window filled from the fit need no correction, only the next bill
+    fix = sorted(set(data_issue_codes) - {"end_days_filled"})
+    if fix:
+        steps.append("Check the data first: " + ", ".join(fix)
                      + " — correct the readings or the building record and rerun.")
+    if "end_days_filled" in data_issue_codes:
+        steps.append("The last days of the window had no reading yet and were filled from the building's "
+                     "weather fit: the next run uses the bill once it is read.")
     if "high_balance_point" in flag_codes:
         steps.append("Check controls and setpoints: heating schedules, night and weekend setbacks, "
                      "thermostat settings, simultaneous heating and cooling.")

@@ -197,6 +197,80 @@ def test_baseload_only_edge_and_not_fitted():
     assert k["model"][0] == "not_fitted" and k["n"][0] == 8
 
 
+def _heating_only_building(seed, n=24):
+    """Bills of a building with no baseload (α = 0, β 1.2, τ 62 °F) and 15 % noise (seeded)."""
+    rng = np.random.default_rng(seed)
+    s, e = drifting(rng, n)
+    use, days = bills(s, e, 0.0, 1.2, 62.0)
+    return s, e, use * (1 + 0.15 * rng.standard_normal(n)), days
+
+
+def _unconstrained_best(s, e, use, days):
+    """The unconstrained search (the fit before issue 14): WLS at every base, β > 0, least SSE."""
+    y, sw, best = use / days, np.sqrt(days), None
+    x = hdd(s, e, GRID) / days[:, None]
+    for k, t in enumerate(GRID):
+        a = np.c_[sw, sw * x[:, k]]
+        coef, *_ = np.linalg.lstsq(a, sw * y, rcond=None)
+        sse = float(((sw * y - a @ coef) ** 2).sum())
+        if coef[1] > 0 and (best is None or sse < best[0]):
+            best = (sse, t, coef)
+    return best
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2, 3, 4, 5])
+def test_baseload_is_never_negative_and_agrees_with_scipy_nnls(seed):
+    # a building with no baseload: the unconstrained fit of its noisy bills has α < 0 (checked below,
+    # so this test fails on a fit without the bound); the constrained one puts α on its bound 0
+    s, e, use, days = _heating_only_building(seed)
+    assert _unconstrained_best(s, e, use, days)[2][0] < 0
+    f = fit_one(s, e, use)
+    assert f["model"][0] == "heating" and f["alpha"][0] == 0.0 and f["alpha_at_zero"][0]
+    # reference: scipy's non-negative least squares (Lawson-Hanson) at every base of the grid, the
+    # base with the least weighted SSE among those with β > 0 (test-only reference library)
+    y, sw = use / days, np.sqrt(days)
+    x = hdd(s, e, GRID) / days[:, None]
+    ref = []
+    for k in range(GRID.size):
+        coef, rnorm = scipy.optimize.nnls(np.c_[sw, sw * x[:, k]], sw * y)
+        ref.append((rnorm ** 2 if coef[1] > 0 else np.inf, coef))
+    k_best = int(np.argmin([r[0] for r in ref]))
+    assert f["base_f"][0] == GRID[k_best]
+    assert f["beta"][0] == pytest.approx(ref[k_best][1][1], rel=1e-9)
+    assert f["sse_w"][0] == pytest.approx(ref[k_best][0], rel=1e-9)
+    # and scipy's bounded least squares at the chosen base, α ≥ 0, β ≥ 0
+    lsq = scipy.optimize.lsq_linear(np.c_[sw, sw * x[:, k_best]], sw * y, bounds=(0, np.inf), tol=1e-12)
+    assert f["alpha"][0] == pytest.approx(lsq.x[0], abs=1e-9)
+    assert f["beta"][0] == pytest.approx(lsq.x[1], rel=1e-9)
+    # statistics of the one-parameter fit through the origin: p = 1, SE(β) = sqrt(s²/ΣwH²) as
+    # statsmodels WLS without a constant; R² centred (as with a constant)
+    xk = x[:, k_best]
+    res = sm.WLS(y, xk, weights=days).fit()
+    assert f["beta"][0] == pytest.approx(res.params[0], rel=1e-9)
+    assert f["se_beta"][0] == pytest.approx(res.bse[0], rel=1e-9)
+    assert np.isnan(f["se_alpha"][0])
+    assert f["r2"][0] == pytest.approx(1 - res.ssr / (days * (y - np.average(y, weights=days)) ** 2).sum(), rel=1e-9)
+    r = y - res.fittedvalues
+    assert f["cv_rmse"][0] == pytest.approx(100 * np.sqrt((r ** 2).sum() / (len(y) - 1)) / y.mean(), rel=1e-9)
+
+
+def test_constrained_fit_vectorized_equals_one_at_a_time():
+    # buildings with and without the bound in one call, chunked: the same as one at a time
+    cases = [_heating_only_building(3), _noisy_building(1), _heating_only_building(4), _noisy_building(2)]
+    n_p = 24
+    Y = np.zeros((4, n_p)); Dd = np.zeros((4, n_p)); X = np.zeros((4, n_p, GRID.size)); V = np.ones((4, n_p), bool)
+    singles = []
+    for i, (s, e, use, days) in enumerate(cases):
+        Y[i] = use / days; Dd[i] = days; X[i] = hdd(s, e, GRID) / days[:, None]
+        singles.append(fit_one(s, e, use))
+    f = M.fit_variable_base(Y, Dd, X, GRID, V, chunk=3)
+    assert f["alpha_at_zero"].tolist() == [True, False, True, False]
+    assert (f["alpha"] >= 0).all()
+    for i, g in enumerate(singles):
+        for key in ("alpha", "beta", "base_f", "r2", "cv_rmse", "nmbe", "se_beta", "sse_w"):
+            assert f[key][i] == pytest.approx(g[key][0], rel=1e-12), key
+
+
 def test_fit_shape_errors():
     with pytest.raises(ValueError, match=r"hdd_per_day has shape \(1, 3, 2\); expected \(1, 3, 71\)"):
         M.fit_variable_base(np.ones((1, 3)), np.ones((1, 3)), np.ones((1, 3, 2)), GRID, np.ones((1, 3), bool))
@@ -364,3 +438,103 @@ def test_metered_heating_end_to_end():
     with pytest.raises(ValueError, match=r"efficiency has shape \(3,\); expected \(2,\)"):
         M.metered_heating(r, sp, blds, periods=periods, period_hdd=p_hdd, span_hdd=span_hdd, normal_hdd=normal,
                           base_grid_f=GRID, efficiency=np.ones(3), engineering_base_f=np.array([55.0, 55.0]))
+
+
+# ------------------------------------------------------------------------------ issue 14: the window's end, missing bills
+
+def test_bills_read_a_few_days_early_keep_the_window():
+    s, e = monthly(2024, 33)                                   # 2024-01 .. 2026-09 monthly
+    early = _reads("a_early", s, e[:-1] + [date(2026, 9, 24)])  # last read 6 days before the window's end
+    late = _reads("b_late", s[:-1], e[:-1])                    # September 2026 not read yet: 30 days
+    long_ = _reads("c_long", s[:-2], e[:-2])                   # August and September missing: 61 days
+    holey = _reads("d_holey", [x for i, x in enumerate(s) if i != 30], [x for i, x in enumerate(e) if i != 30])
+    r = pl.concat([early, late, long_, holey])
+    sp = {x["building_id"]: x for x in M.choose_spans(r, WS, WE, fill_end_days=35).to_dicts()}
+    assert (sp["a_early"]["span_kind"], sp["a_early"]["span_start"], sp["a_early"]["span_end"]) == ("window", WS, WE)
+    assert sp["a_early"]["filled_days"] == 6 and sp["a_early"]["covered_days"] == 359
+    assert sp["b_late"]["span_kind"] == "window" and sp["b_late"]["filled_days"] == 30
+    # beyond the tolerance, and a hole inside the window, still shift the comparison (nothing filled)
+    assert sp["c_long"]["span_kind"] == "shifted" and sp["c_long"]["filled_days"] == 0
+    assert sp["d_holey"]["span_kind"] == "shifted" and sp["d_holey"]["filled_days"] == 0
+    # without a tolerance (the old rule) the early read shifts the whole comparison a month back
+    old = {x["building_id"]: x for x in M.choose_spans(r, WS, WE).to_dicts()}
+    assert old["a_early"]["span_kind"] == "shifted" and old["a_early"]["span_end"] == date(2026, 8, 31)
+    with pytest.raises(ValueError, match="fill_end_days=-1 must be at least 0"):
+        M.choose_spans(r, WS, WE, fill_end_days=-1)
+
+
+def test_missing_bills_are_named_with_their_dates():
+    s, e = monthly(2024, 33)
+    keep = [i for i in range(33) if i not in (24, 25)]         # January and February 2026 missing
+    one = _reads("a", [s[i] for i in keep], [e[i] for i in keep], meter_id=["M1"] * len(keep))
+    # two meters: M2 misses May 2026 while M1 covers every day
+    m1 = _reads("b", s, e, meter_id=["M1"] * 33)
+    keep2 = [i for i in range(33) if i != 28]
+    m2 = _reads("b", [s[i] for i in keep2], [e[i] for i in keep2], meter_id=["M2"] * len(keep2))
+    annual = _reads("c", [date(2024, 1, 1), date(2025, 1, 1)], [date(2024, 12, 31), date(2025, 12, 31)],
+                    meter_id=["M1", "M1"])
+    early = _reads("d", s, e[:-1] + [date(2026, 9, 24)], meter_id=["M1"] * 33)
+    stopped = _reads("e", s[:-3], e[:-3], meter_id=["M1"] * 30)  # no bill after June 2026
+    r = pl.concat([one, m1, m2, annual, early, stopped])
+    sp = M.choose_spans(r, WS, WE, fill_end_days=35)
+    g = M.missing_bills(r, WS, WE, spans=sp)
+    rows = [(x["building_id"], x["meter_id"], x["gap_start"], x["gap_end"], x["days"]) for x in g.to_dicts()]
+    assert rows == [("a", None, date(2026, 1, 1), date(2026, 2, 28), 59),
+                    ("b", "M2", date(2026, 5, 1), date(2026, 5, 31), 31),
+                    ("e", None, date(2026, 7, 1), date(2026, 9, 30), 92)]
+    # the annual building's 2026 bill is not due yet; the early read's last 6 days are filled, not missing
+
+
+def test_filled_end_days_come_from_the_buildings_fit():
+    # noise-free bills (α 20, β 0.9, τ 60) 2021-01..2022-12, the last one read on 2022-12-25:
+    # the 6 days left are filled from the fit, so the year's total and heating are those of full bills
+    s, e = monthly(2021, 24)
+    use, _ = bills(s, e, 20.0, 0.9, 60.0)
+    e_cut = e[:-1] + [date(2022, 12, 25)]
+    use_cut, _ = bills(s, e_cut, 20.0, 0.9, 60.0)
+    r = _reads("reg", s, e_cut, q=use_cut)
+    ws, we = date(2022, 1, 1), date(2022, 12, 31)
+    sp = M.choose_spans(r, ws, we, fill_end_days=35)
+    assert sp["span_kind"][0] == "window" and sp["filled_days"][0] == 6
+    periods = M.fit_periods(r, sp)
+    p_hdd = hdd(periods["period_start"].to_list(), periods["period_end"].to_list(), GRID)
+    span_hdd = hdd([ws], [we], GRID)
+    fill_hdd = hdd([date(2022, 12, 26)], [we], GRID)
+    blds = pl.DataFrame({"building_id": ["reg"], "use_type": ["school"], "heating_fuel": ["natural_gas"]})
+    kw = dict(periods=periods, period_hdd=p_hdd, span_hdd=span_hdd, normal_hdd=span_hdd, base_grid_f=GRID,
+              efficiency=np.array([0.8]), engineering_base_f=np.array([55.0]))
+    g = M.metered_heating(r, sp, blds, fill_hdd=fill_hdd, **kw).row(0, named=True)
+    hdd60 = hdd([ws], [we], [60.0])[0, 0]
+    assert g["filled_days"] == 6
+    assert g["filled_kbtu"] == pytest.approx(20.0 * 6 + 0.9 * fill_hdd[0, GRID.tolist().index(60.0)], rel=1e-9)
+    assert g["total_fuel_kbtu"] == pytest.approx(use[12:].sum(), rel=1e-9)        # the full year's bills
+    assert g["baseload_kbtu"] == pytest.approx(20.0 * 365, rel=1e-9)
+    assert g["actual_heating_kbtu"] == pytest.approx(0.9 * hdd60, rel=1e-9)
+    with pytest.raises(ValueError, match="filled_days > 0 but no fill_hdd"):
+        M.metered_heating(r, sp, blds, **kw)
+
+
+def test_filled_end_days_without_a_fit_follow_days_and_degree_days():
+    # six two-month bills (fewer than 9 periods: no fit), the last read on 2022-12-25: the office's
+    # default share s (5.7 %, CBECS 2003) is filled by days, the rest by degree days at T_eng (by hand)
+    s = [date(2022, m, 1) for m in (1, 3, 5, 7, 9, 11)]
+    e = [date(2022, 2, 28), date(2022, 4, 30), date(2022, 6, 30), date(2022, 8, 31), date(2022, 10, 31),
+         date(2022, 12, 25)]
+    q = [900.0, 700.0, 300.0, 200.0, 400.0, 800.0]
+    r = _reads("ann", s, e, q=q)
+    ws, we = date(2022, 1, 1), date(2022, 12, 31)
+    sp = M.choose_spans(r, ws, we, fill_end_days=35)
+    assert sp["filled_days"][0] == 6
+    span_hdd = hdd([ws], [we], GRID)
+    fill_hdd = hdd([date(2022, 12, 26)], [we], GRID)
+    blds = pl.DataFrame({"building_id": ["ann"], "use_type": ["office"], "heating_fuel": ["natural_gas"]})
+    periods = M.fit_periods(r, sp)
+    p_hdd = hdd(periods["period_start"].to_list(), periods["period_end"].to_list(), GRID)
+    g = M.metered_heating(r, sp, blds, periods=periods, period_hdd=p_hdd, span_hdd=span_hdd, normal_hdd=span_hdd,
+                          base_grid_f=GRID, efficiency=np.array([0.8]), engineering_base_f=np.array([55.0]),
+                          fill_hdd=fill_hdd).row(0, named=True)
+    k = GRID.tolist().index(55.0)
+    fill = sum(q) * (0.057 * 6 / 359 + 0.943 * fill_hdd[0, k] / (span_hdd[0, k] - fill_hdd[0, k]))
+    assert g["fit_method"] == "default share"
+    assert g["filled_kbtu"] == pytest.approx(fill, rel=1e-9)
+    assert g["total_fuel_kbtu"] == pytest.approx(sum(q) + fill, rel=1e-9)

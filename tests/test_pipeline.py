@@ -204,3 +204,87 @@ def test_one_summer_bill_ten_times_too_high_is_a_data_issue():
     assert "bill_off_fit" in rows["T2"]["data_issue_codes"]
     assert rows["T2"]["tier"] == "Fix data first" and rows["T2"]["needs_review"] is False
     assert rows["T1"]["data_issue_codes"] == [] and rows["T3"]["data_issue_codes"] == []
+
+
+# ---------------------------------------------------------------------------- issue 14: fits, window end, missing bills
+
+def _seasonal():
+    return _weather(lambda i: 50.0 - 25.0 * np.cos(2 * np.pi * (i - 15) / 365.25), dt.date(2023, 10, 1), 365 * 3 + 2)
+
+
+def test_a_late_read_is_filled_and_missing_bills_are_named():
+    w = _seasonal()
+    ids = ["T1", "T2", "T3"]
+    b = _buildings([_building(building_id=bid, heating_efficiency=0.8, _line=i + 2) for i, bid in enumerate(ids)])
+    r = _portfolio_readings(w, ids, {}, base_kbtu_day={bid: 300.0 for bid in ids})
+    last = (pl.col("building_id") == "T2") & (pl.col("period_start") == dt.date(2026, 9, 1))
+    # T2's last bill is read on 2026-09-24 (its energy for 24 of the 30 days); T3 has no February 2026 bill
+    r = r.with_columns(pl.when(last).then(pl.col("quantity") * 24 / 30).otherwise(pl.col("quantity")).alias("quantity"),
+                       pl.when(last).then(pl.lit(dt.date(2026, 9, 24))).otherwise(pl.col("period_end")).alias("period_end"))
+    r = r.filter(~((pl.col("building_id") == "T3") & (pl.col("period_start") == dt.date(2026, 2, 1))))
+    sc = screen_frames(b, r, w, _cfg(), window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30)))
+    rows = {x["building_id"]: x for x in sc.results.to_dicts()}
+    t1, t2, t3 = rows["T1"], rows["T2"], rows["T3"]
+    assert (t1["span_kind"], t1["filled_days"], t1["data_issue_codes"]) == ("window", 0, [])
+    # the window is kept: the 6 days are filled from T2's fit and stated, not a reason to shift
+    assert (t2["span_kind"], t2["span_start"], t2["span_end"]) == ("window", dt.date(2025, 10, 1), dt.date(2026, 9, 30))
+    assert t2["filled_days"] == 6 and t2["data_issue_codes"] == ["end_days_filled"]
+    assert "last 6 day(s) of the span, 2026-09-25 to 2026-09-30" in t2["data_issue_texts"][0]
+    assert "shifted_span" not in t2["flag_codes"] and not t2["blocking"]
+    assert t2["actual_heating_kbtu"] == pytest.approx(t1["actual_heating_kbtu"], rel=0.01)   # same bills but 6 days
+    # the missing bill is a non-blocking data issue with its dates; the shift is a flag, not a data issue
+    assert t3["data_issue_codes"] == ["missing_bills"] and not t3["blocking"]
+    assert "2026-02-01..2026-02-28 (28 days)" in t3["data_issue_texts"][0]
+    assert t3["span_kind"] == "shifted" and "shifted_span" in t3["flag_codes"]
+    from screening.pipeline import DATA_ISSUE_CODES
+    assert all(DATA_ISSUE_CODES[x["code"]] == x["blocking"] for x in sc.issues.to_dicts())
+
+
+def test_a_base_on_the_grid_edge_is_a_flag_and_the_baseload_is_never_negative():
+    # bills of a building heated below 80 °F (above the 40-75 °F grid) with no baseload: the fit
+    # lands on the 75 °F edge, says so, and does not buy a better fit with a negative baseload
+    w = _seasonal()
+    tm = dict(zip(w["date"].to_list(), w["t_mean_f"].to_list()))
+    rows = []
+    for m in range(24):
+        s = add_months(dt.date(2024, 10, 1), m)
+        e = add_months(dt.date(2024, 10, 1), m + 1) - dt.timedelta(days=1)
+        hdd80 = sum(max(0.0, 80.0 - tm[s + dt.timedelta(days=i)]) for i in range((e - s).days + 1))
+        rows.append({"building_id": "T1", "fuel": "natural_gas", "period_start": s, "period_end": e,
+                     "quantity": 24.0 * UA * hdd80 / 0.8 / 100_000.0, "unit": "therm", "estimated": False,
+                     "cost": None, "meter_id": "", "_line": m + 2})
+    r = pl.DataFrame(rows).with_columns(pl.col("cost").cast(pl.Float64), pl.col("_line").cast(pl.Int64))
+    b = _buildings([_building(heating_efficiency=0.8)])
+    row = screen_frames(b, r, w, _cfg(), window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30))).results.row(0, named=True)
+    assert row["fitted_base_f"] == 75.0 and row["base_at_edge"]
+    assert "base_at_grid_edge" in row["flag_codes"]
+    assert any("75.0 °F, the edge of the bases searched" in t for t in row["flag_texts"])
+    assert row["baseload_kbtu_per_day"] >= 0.0 and row["baseload_kbtu"] >= 0.0
+
+
+def test_readme_lists_the_data_issues_and_the_flags_the_code_declares():
+    # one declaration each: data issues (and whether they block) in pipeline.DATA_ISSUE_CODES, flags in
+    # screen.FLAG_TEXT; README's two tables list exactly those, and no code is both
+    import re
+    from pathlib import Path
+    from screening.pipeline import DATA_ISSUE_CODES
+    from screening.screen import FLAG_TEXT
+    text = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
+
+    def table(heading):
+        sec = text.split(heading, 1)[1].split("\n#", 1)[0]
+        return {m.group(1): m.group(2).strip() for m in re.finditer(r"^\| `([a-z_]+)` \| ([^|]+)\|", sec, re.M)}
+    issues = table("### Data issues\n")
+    flags = table("### Flags\n")
+    assert {c: v == "yes" for c, v in issues.items()} == DATA_ISSUE_CODES
+    assert set(flags) == set(FLAG_TEXT)
+    assert not set(DATA_ISSUE_CODES) & set(FLAG_TEXT)
+
+
+def test_filled_end_days_ask_for_no_data_correction():
+    from screening.screen import next_steps
+    steps = next_steps([], ["end_days_filled"], slope_vs_envelope=None)
+    assert not any(s.startswith("Check the data first") for s in steps)
+    assert any("filled from the building's weather fit" in s for s in steps)
+    both = next_steps([], ["end_days_filled", "missing_bills"], slope_vs_envelope=None)
+    assert "Check the data first: missing_bills — correct" in both[0]
