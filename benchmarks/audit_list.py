@@ -119,7 +119,7 @@ def rescreen(d: Path) -> pl.DataFrame:
     """screen.screen (current code and config defaults) on the saved frame: rank, needs_review, issues."""
     from screening import config, screen
     frame = pl.read_parquet(d / "frame.parquet")
-    res = screen.screen(frame, dict(config.DEFAULTS["thresholds"]), energy_factor=1.0,
+    res = screen.screen(frame, dict(config.DEFAULTS["thresholds"]), plan=config.DEFAULTS["plan"], energy_factor=1.0,
                         energy_unit="kBtu")
     return res.select("building_id", "rank", "needs_review",
                       pl.col("data_issue_codes").list.join(";").alias("data_issues"))

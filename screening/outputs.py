@@ -125,7 +125,10 @@ RANKING_COLUMNS = [
     "peer_percentile", "z_score", "z_balance_point", "z_intensity", "evidence_score", "normal_heating", "yoy_change", "z_yoy", "baseload", "heating_slope", "fitted_base", "r2", "cv_rmse",
     "nmbe", "n_periods", "fit_method", "effective_ua", "ua_walls", "ua_windows", "ua_roof", "ua_ground",
     "ua_infiltration", "ua_ventilation", "ua_total", "envelope_source", "excess_energy", "excess_cost",
-    "excess_co2e", "tier", "needs_review", "review_path", "flags", "data_issues", "change", "previous_rank", "energy_unit",
+    "excess_co2e", "expected_recoverable_energy", "expected_recoverable_cost", "expected_recoverable_co2e",
+    "excess_heat_loss", "sure_heat_loss", "excess_controls", "sure_controls", "excess_baseload", "sure_baseload",
+    "evidence_scale", "peer_weight", "waste_kind", "tier", "needs_review", "review_path", "flags", "data_issues",
+    "change", "previous_rank", "energy_unit",
 ]
 
 
@@ -164,6 +167,12 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
         "envelope_source",
         d.energy(pl.col("excess_energy_kbtu")).round(1).alias("excess_energy"),
         pl.col("excess_cost").round(2), pl.col("excess_co2e_kg").round(1).alias("excess_co2e"),
+        d.energy(pl.col("expected_recoverable_kbtu")).round(1).alias("expected_recoverable_energy"),
+        pl.col("expected_recoverable_cost").round(2),
+        pl.col("expected_recoverable_co2e_kg").round(1).alias("expected_recoverable_co2e"),
+        *[e for m in ("heat_loss", "controls", "baseload")
+          for e in (d.energy(pl.col(f"excess_{m}_kbtu")).round(1).alias(f"excess_{m}"), pl.col(f"sure_{m}").round(3))],
+        "evidence_scale", pl.col("peer_weight").round(3), "waste_kind",
         "tier", "needs_review", "review_path",
         pl.col("flag_codes").list.join(";").alias("flags"),
         pl.col("data_issue_codes").list.join(";").alias("data_issues"),
@@ -322,7 +331,8 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             "periods": periods_list, "fit_line": fit_line, "expected_line": exp_line, "annual": annual,
             "peers": peer_map.get(r["peer_group"], []),
             "flags": flags, "data_issues": issues,
-            "next_steps": screen.next_steps(r["flag_codes"], r["data_issue_codes"], slope_vs_envelope=slope_ratio),
+            "next_steps": screen.next_steps(r["flag_codes"], r["data_issue_codes"], slope_vs_envelope=slope_ratio,
+                                            mechanisms=r["mechanisms"], blocking=r["blocking"]),
             "cautions": [],  # the sheet template prints the standard cautions on every sheet
         })
     return out
