@@ -186,6 +186,27 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
     return out.select(RANKING_COLUMNS)
 
 
+AUDIT_PLAN_COLUMNS = ["visit", "rank", "building_id", "name", "use_type", "expected_recoverable_cost",
+                      "expected_recoverable_energy", "waste_kind", "needs_review", "cumulative_share", "energy_unit"]
+
+
+def audit_plan_table(res: pl.DataFrame, disp: Display) -> pl.DataFrame:
+    """audit_plan.csv: this quarter's visits in rank order ([plan] in the config), each with its expected
+    savings per year, the kind of waste to look for, and the cumulative share of the portfolio's
+    estimated recoverable cost that the visits so far hold."""
+    total = res["expected_recoverable_cost"].fill_null(0).fill_nan(0).sum()
+    plan = res.filter(pl.col("in_plan")).sort("rank")
+    return plan.select(
+        pl.int_range(1, plan.height + 1, dtype=pl.Int64).alias("visit"), "rank", "building_id", "name", "use_type",
+        pl.col("expected_recoverable_cost").round(2),
+        disp.energy(pl.col("expected_recoverable_kbtu")).round(1).alias("expected_recoverable_energy"),
+        "waste_kind", "needs_review",
+        (pl.col("expected_recoverable_cost").cum_sum() / total if total > 0 else pl.lit(None, dtype=pl.Float64))
+        .round(4).alias("cumulative_share"),
+        pl.lit(disp.energy_unit).alias("energy_unit"),
+    ).select(AUDIT_PLAN_COLUMNS)
+
+
 def assumptions_table(envelope: pl.DataFrame, disp: "Display") -> pl.DataFrame:
     """assumptions.csv: every envelope assumption of every building, given or default, with its source.
 
