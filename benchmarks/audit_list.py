@@ -121,7 +121,8 @@ def rescreen(d: Path) -> pl.DataFrame:
     frame = pl.read_parquet(d / "frame.parquet")
     res = screen.screen(frame, dict(config.DEFAULTS["thresholds"]), plan=config.DEFAULTS["plan"], energy_factor=1.0,
                         energy_unit="kBtu")
-    return res.select("building_id", "rank", "needs_review",
+    return res.select("building_id", "rank", "needs_review", "tier",
+                      pl.col("expected_recoverable_kbtu").alias("expected_recoverable_energy"),
                       pl.col("data_issue_codes").list.join(";").alias("data_issues"))
 
 
@@ -132,7 +133,9 @@ def _flag(col: pl.Series) -> pl.Series:
 def score(truth: pl.DataFrame, ranking: pl.DataFrame) -> dict:
     """capture@10 % (tool, oracle), recall, false alarms, recall by mechanism and by onset."""
     r = ranking.select(pl.col("building_id").cast(pl.String).str.strip_chars_start("'"),
-                       pl.col("rank").cast(pl.Float64), _flag(ranking["needs_review"]).alias("review"))
+                       pl.col("rank").cast(pl.Float64), _flag(ranking["needs_review"]).alias("review"),
+                       (pl.col("tier") == "Fix data first").alias("blocked"),
+                       pl.col("expected_recoverable_energy").cast(pl.Float64).fill_null(0).alias("exp_rec"))
     df = truth.join(r, on="building_id", how="left").with_columns(
         pl.col("rank").fill_null(float("inf")), pl.col("review").fill_null(False))
     total = df["excess_kbtu"].sum()
@@ -144,7 +147,14 @@ def score(truth: pl.DataFrame, ranking: pl.DataFrame) -> dict:
 
     def frac(sel: pl.DataFrame) -> tuple[int, int]:
         return int(sel["review"].sum()), sel.height
+    # what the bills cannot reach: true excess in buildings whose data block a verdict, and in wasters
+    # with no expected recoverable excess at all (metered at or below their peers' expectation, no step up)
+    blocked = df.filter(pl.col("blocked"))["excess_kbtu"].sum() / total
+    unseen = df.filter(~pl.col("blocked").fill_null(False) & (pl.col("exp_rec") <= 0))["excess_kbtu"].sum() / total
+    top = df.sort(["rank", "building_id"]).head(k)
+    slots = (int((top["label"] != "waste").sum()), k)     # first-10 % slots held by buildings without waste
     return {"capture10": round(tool, 3), "oracle10": round(oracle, 3), "recall": frac(waste),
+            "excess_blocked": round(blocked, 3), "excess_unseen": round(unseen, 3), "slots_without_waste": slots,
             "false_alarms": frac(normal),
             "by_mechanism": {m: frac(waste.filter(pl.col("mechanism") == m))
                              for m in sorted(waste["mechanism"].unique())},
@@ -166,8 +176,9 @@ def main() -> None:
     ap.add_argument("--mechanisms", action="store_true", help="print recall by mechanism")
     a = ap.parse_args()
     rows = []
-    print("| portfolio | seed | capture@10 % | oracle | needs_review recall | false alarms |")
-    print("|---|---|---|---|---|---|")
+    print("| portfolio | seed | capture@10 % | oracle | needs_review recall | false alarms "
+          "| excess in Fix data first | first-10 % slots without waste |")
+    print("|---|---|---|---|---|---|---|---|")
     for kind, seed in SETS[a.set]:
         if a.only and kind not in a.only:
             continue
@@ -181,7 +192,7 @@ def main() -> None:
             s["score_world_capture10"] = sw["capture"]["at_10pct"]["tool"]
         rows.append({"portfolio": kind, "seed": seed, **s})
         print(f"| {kind} | {seed} | {s['capture10']:.2f} | {s['oracle10']:.2f} | {_pct(s['recall'])} | "
-              f"{_pct(s['false_alarms'])} |", flush=True)
+              f"{_pct(s['false_alarms'])} | {s['excess_blocked']:.2f} | {s['slots_without_waste'][0]}/{s['slots_without_waste'][1]} |", flush=True)
         if a.mechanisms:
             print("|  | by mechanism | " + "; ".join(f"{m} {h}/{n}" for m, (h, n) in s["by_mechanism"].items())
                   + " | by onset | " + "; ".join(f"{m} {h}/{n}" for m, (h, n) in s["by_onset"].items()) + " | |")
