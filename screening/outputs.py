@@ -337,6 +337,11 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             "excess_energy": d.val("energy", r["excess_energy_kbtu"]),
             "excess_cost": _num(r["excess_cost"]), "currency": currency,
             "excess_co2e_kg": _num(r["excess_co2e_kg"]),
+            "expected_recoverable_energy": d.val("energy", r["expected_recoverable_kbtu"]),
+            "expected_recoverable_cost": _num(r["expected_recoverable_cost"]),
+            "expected_recoverable_co2e_kg": _num(r["expected_recoverable_co2e_kg"]),
+            "waste_kind": r["waste_kind"], "evidence_scale": r["evidence_scale"],
+            "peer_weight": _num(r["peer_weight"]),
             "hdd": d.val("dd", r["hdd_balance"]), "base_temperature": d.val("temp", bal),
             "fit": {"method": r["fit_method"], "r2": _num(r["r2"]),
                     # the sheet shows fractions as percentages; the fit reports percent
@@ -368,7 +373,8 @@ def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp
     """
     table = ranking if max_rows <= 0 else ranking.head(max_rows)
     rows = table.select("rank", "building_id", "name", "use_type", "tier", "ratio", "heating_intensity",
-                          "excess_energy", "excess_cost", "flags", "data_issues", "needs_review").to_dicts()
+                          "excess_energy", "excess_cost", "expected_recoverable_cost", "flags", "data_issues",
+                          "needs_review").to_dicts()
     long = res.filter(pl.col("data_issue_codes").list.len() > 0).select(
         "building_id", "name", pl.col("data_issue_codes").alias("code"), pl.col("data_issue_texts").alias("explanation")
     ).explode("code", "explanation").sort("building_id", "code")
@@ -378,12 +384,14 @@ def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp
     issues = long.to_dicts()
     tiers = [{"tier": name, "count": summary["counts"]["per_tier"].get(name, 0), "meaning": meaning}
              for name, meaning in screen.TIERS]
+    plan = audit_plan_table(res, disp).with_columns(
+        res.filter(pl.col("in_plan")).sort("rank")["mechanisms"].list.join(", ").alias("mechanisms")).to_dicts()
     return {
         "run": {"run_id": summary["run_id"], "as_of": summary["as_of"], "window_start": summary["window"][0],
                 "window_end": summary["window"][1], "run_date": summary["run_date"],
                 "version": summary["versions"]["ddscreen"], "units": summary["units"]},
         "counts": summary["counts"], "tiers": tiers,
-        "totals": summary["totals"], "rows": rows, "rows_total": ranking.height,
+        "totals": summary["totals"], "rows": rows, "rows_total": ranking.height, "plan": plan,
         "rows_omitted": ranking.height - len(rows),
         "ratios": [x for x in res["ratio"].to_list() if x is not None and math.isfinite(x)],
         "data_issues": issues, "data_issues_total": n_issues, "data_issues_omitted": n_issues - len(issues),

@@ -359,8 +359,10 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         _stage("after_record")
         if root is not None:
             _tidy_root(root, store, cfg["output"]["keep"], target)
-        top = ranking.filter(pl.col("needs_review")).head(5).select("rank", "building_id", "name", "tier", "ratio",
-                                                                    "excess_cost").to_dicts()
+        # the first visits of this quarter's audit plan, for the console
+        top = ranking.filter(pl.col("tier") == "Audit first").head(5).select(
+            "rank", "building_id", "name", "tier", "ratio", "needs_review", "expected_recoverable_cost",
+            pl.lit(cfg["prices"]["currency"]).alias("currency")).to_dicts()
         return RunResult(run_id, label, target, str(db_path), summary, top, loads)
     except BaseException as exc:
         mapped = isinstance(exc, OSError)

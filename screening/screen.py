@@ -25,11 +25,11 @@ WATCH_SHARE = 0.1       # Watch: expected savings of at least this share of one 
 
 # Tiers: plain groups along the audit order (rank), most urgent first. Names are our own.
 TIERS = (
-    ("Audit first", "in this quarter's audit plan: the largest expected recoverable cost"),
-    ("Audit soon", "expected savings worth a visit, beyond this quarter's plan"),
-    ("Watch", "some expected savings, less than a visit costs"),
-    ("No action", "no recoverable excess to speak of"),
-    ("Fix data first", "a data problem blocks a verdict (ordered by the cost of its heating)"),
+    ("Audit first", "this quarter's audit plan"),
+    ("Audit soon", "worth a visit, after the plan"),
+    ("Watch", "expected savings below a visit's cost"),
+    ("No action", "nothing to recover to speak of"),
+    ("Fix data first", "data problems block a verdict"),
 )
 TIER_RANK = {name: i + 1 for i, (name, _) in enumerate(TIERS)}
 
@@ -153,13 +153,14 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     has an excess energy and a sureness on the same blended scale.
     """
     blk = pl.col("blocking")
-    usable = (~blk) & pl.col("_logr").is_not_null()
+    reg = pl.col("fit_method") == "regression"
+    # a monthly fit that does not follow the weather is no basis for judging the level (as for needs_review)
+    usable = (~blk) & pl.col("_logr").is_not_null() & (~reg | (pl.col("r2") >= t["r2_min"])).fill_null(False)
     out = out.with_columns(
         pl.when(usable).then((pl.col("actual_heating_kbtu")
                               - pl.col("expected_heating_kbtu") * pl.col("_center_logr").exp()).clip(lower_bound=0))
         .otherwise(None).alias("_e_level"),
         pl.when(usable).then(_phi(pl.col("z_score") - t["sure_offset"])).otherwise(None).alias("_w_level"))
-    reg = pl.col("fit_method") == "regression"
     step_ok = (~blk) & (pl.col("yoy_change") > 0) & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"])) \
         & (heat_share >= t["yoy_review_heating_share_min"]) & pl.col("z_yoy").is_not_null()
     out = out.with_columns(
@@ -375,8 +376,12 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         .when(pl.col("in_plan")).then(pl.lit("Audit first"))
         .when(worth).then(pl.lit("Audit soon"))
         .when((cost > watch_from) & (cost > 0)).then(pl.lit("Watch"))
+        # above the band, but a fit that does not follow the weather cannot size the excess: watched
+        .when(pl.col("_f_above_band") & pl.col("_f_poor_fit")).then(pl.lit("Watch"))
         .otherwise(pl.lit("No action")).alias("tier"))
     out = out.with_columns(pl.col("tier").replace_strict(TIER_RANK, return_dtype=pl.Int64).alias("tier_rank"))
+    out = out.sort(["tier_rank", "_order_money", "ratio", "building_id"],
+                   descending=[False, True, True, False], nulls_last=True)
     out = out.with_row_index("rank", offset=1).with_columns(pl.col("rank").cast(pl.Int64))
     out = _explain(out, t, energy_factor=energy_factor, energy_unit=energy_unit, currency=currency)
     return out.drop([c for c in out.columns if c.startswith("_")])
@@ -521,6 +526,9 @@ def _waste_kind(r: dict, ms: list[str], t: dict, *, si: bool) -> str:
         return (lead + ". " + body + ".") if lead else body + "."
     if lead:
         return lead + "; the bills do not show which part of the heating rose."
+    if r["_f_poor_fit"] and (r["ratio"] or 0) > 1:
+        return (f"Use does not follow the weather (R² {_fmt(r['r2'], 2)}): these bills cannot size an excess; "
+                "check operation and meters first.")
     if (r["expected_recoverable_kbtu"] or 0) > 0 and (r["ratio"] or 0) > 1:
         if r["fit_method"] != "regression":
             return "Heating above expectation; annual bills cannot show which part is in excess."
