@@ -73,12 +73,12 @@ DEFAULTS: dict[str, dict[str, Any]] = {
     "thresholds": {
         "band_ratio": 1.0,          # metered above expected_high × this → above the band
         "band_floor": 0.10,         # the band is at least ±10 % around P50 (common practice: meter/weather uncertainty)
-        "z_review": 2.0,            # robust z-score of log(ratio) within peers that alone puts a building on watch
+        "z_review": 2.0,            # unused since the audit order (issue 14); kept so config files that set it still load
         "review_score": 3.5,        # evidence score (z + weighted balance-point and intensity z) for needs_review
         "weight_balance_point": 1.0,  # weight of the fitted-minus-engineering balance point z in the score
         "weight_intensity": 0.5,    # weight of the heating-intensity z within peers in the score
-        "audit_first_ratio": 1.5,   # needs_review with metered/expected at least this …
-        "audit_first_score": 5.0,   # … and an evidence score at least this → the most urgent tier
+        "audit_first_ratio": 1.5,   # unused since Audit first is this quarter's plan ([plan]); kept so old configs load
+        "audit_first_score": 5.0,   # unused since Audit first is this quarter's plan ([plan]); kept so old configs load
         "peer_percentile_high": 90.0,  # intensity percentile among peers flagged as high
         "min_peer_group": 8,        # peer groups smaller than this fall back to use type
         "baseload_share_high": 1.5,  # baseload share above this × the use type's default share
