@@ -449,7 +449,10 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         mechs.append(ms)
         kinds.append(_waste_kind(r, ms, t, si=si))
         money = f"{currency}{_fmt(r['expected_recoverable_cost'])}" if r["expected_recoverable_cost"] else None
-        plan = (" It is in this quarter's audit plan." if r["in_plan"] else
+        plan = (" It is in this quarter's audit plan for its expected savings." if r["in_plan"] and not r["needs_review"]
+                else " It is in this quarter's audit plan." if r["in_plan"] else
+                " Its expected savings are below the cost of a visit ([plan] audit_cost), so it is not planned."
+                if r["needs_review"] and r["tier"] in ("Watch", "No action") else
                 " Its expected savings are worth a visit after this quarter's plan." if r["tier"] == "Audit soon" else "")
         if r["blocking"]:
             v = ("A data problem (" + ", ".join(r["data_issue_codes"] or []) + ") must be fixed before this "
@@ -518,9 +521,13 @@ def _waste_kind(r: dict, ms: list[str], t: dict, *, si: bool) -> str:
         else:
             parts.append(f"non-heating use of the heating fuel ({_fmt(100 * r['baseload_share'])} % of it, "
                          f"about {_fmt(100 * r['baseload_share_default'])} % is typical): {MECHANISM_CHECKS[m]}")
-    step = r["_view"] == "step up" and (r["_w_step"] or 0) >= t["mechanism_support"]
+    step = r["_view"] == "step up" and (r["_w_step"] or 0) >= t["mechanism_support"] \
+        and (r["yoy_change"] or 0) >= t["yoy_rise"]
     lead = (f"Heating rose {_fmt(100 * r['yoy_change'])} % on last year: ask what changed (equipment, "
             "schedules, a failed component)") if step else ""
+    if parts and r["tier"] == "No action":
+        return ("Expected savings too small for a visit; the bills point to " + "; and to ".join(parts)
+                + ", at the next routine visit.")
     if parts:
         body = "Likely " + "; and ".join(parts)
         return (lead + ". " + body + ".") if lead else body + "."
@@ -529,34 +536,41 @@ def _waste_kind(r: dict, ms: list[str], t: dict, *, si: bool) -> str:
     if r["_f_poor_fit"] and (r["ratio"] or 0) > 1:
         return (f"Use does not follow the weather (R² {_fmt(r['r2'], 2)}): these bills cannot size an excess; "
                 "check operation and meters first.")
-    if (r["expected_recoverable_kbtu"] or 0) > 0 and (r["ratio"] or 0) > 1:
+    if r["tier"] not in ("No action",) and (r["expected_recoverable_kbtu"] or 0) > 0:
         if r["fit_method"] != "regression":
-            return "Heating above expectation; annual bills cannot show which part is in excess."
-        return "Heating above expectation; no single mechanism stands out in the bills."
-    return "No excess to look for."
+            return "Heating above what its peers' bills suggest; annual bills cannot show which part is in excess."
+        return "Heating above what its peers' bills suggest; no single mechanism stands out in the bills."
+    return "No excess worth a visit."
 
 
 def _not_listed(r: dict, t: dict, money: str | None, plan: str) -> str:
-    """The verdict of a building without strong evidence: where it stands and, if its excess is large, why
-    it is not on the audit list."""
+    """The verdict of a building without strong evidence: where it stands, its expected savings and, when
+    they are large, why it is not on the audit list (needs_review)."""
     ratio = r["ratio"]
-    if ratio < 1 and r["actual_heating_kbtu"] < r["_band_low"]:
-        return f"Heating is below expectation ({_fmt(ratio, 2)}× expected): no sign of excess."
-    if ratio < t["min_excess_ratio"] and not money:
-        return f"Heating is in line with expectation ({_fmt(ratio, 2)}× expected) and with its peers."
     why = []
     if r["fit_method"] == "regression" and r["r2"] is not None and r["r2"] < t["r2_min"]:
         why.append(f"its use follows the weather poorly (R² {_fmt(r['r2'], 2)} against {t['r2_min']:g}), "
                    "so its level is no basis for a verdict: check operation and meters")
+    elif r["_view"] == "step up":
+        why.append(f"its rise on last year ({_fmt(100 * r['yoy_change'])} %, z {_fmt(r['z_yoy'], 1)}) is below "
+                   f"{_fmt(100 * t['yoy_review'])} % at z {t['yoy_review_z']:g}")
     elif ratio < t["min_excess_ratio"]:
-        why.append(f"its heating is not above the central expectation ({_fmt(ratio, 2)}×)")
+        why.append(f"its heating is not above the model's central expectation ({_fmt(ratio, 2)}×)")
     else:
         why.append(f"buildings like it spread this widely (evidence score {_fmt(r['evidence_score'], 1)} "
                    f"against {t['review_score']:g})")
-    head = (f"Heating is {_fmt(ratio, 2)}× the expectation" if ratio >= 1
-            else f"Heating is {_fmt(ratio, 2)}× the expectation (within its range)")
-    cost = f"; expected recoverable about {money} a year" if money else ""
-    return f"{head}{cost}. Not on the audit list: " + "; ".join(why) + "." + plan
+    if r["tier"] == "No action" or not money:
+        if ratio < 1 and r["actual_heating_kbtu"] < r["_band_low"]:
+            return f"Heating is below expectation ({_fmt(ratio, 2)}× expected): no sign of excess."
+        if ratio < t["min_excess_ratio"] or not r["_f_above_band"] and not r["_f_poor_fit"]:
+            return (f"Heating is in line with expectation ({_fmt(ratio, 2)}× expected) and with its peers; "
+                    "no excess worth a visit.")
+        return (f"Heating is {_fmt(ratio, 2)}× the expectation, but no excess can be counted on: "
+                + "; ".join(why) + ".")
+    basis = (f"; it rose {_fmt(100 * r['yoy_change'])} % on last year" if r["_view"] == "step up"
+             else "; its peers' bills put it above what buildings like it use" if ratio < 1 else "")
+    return (f"Heating is {_fmt(ratio, 2)}× the model's expectation{basis}: expected recoverable about {money} a "
+            "year. The evidence is not strong enough for the audit list: " + "; ".join(why) + "." + plan)
 
 
 def next_steps(flag_codes: list[str], data_issue_codes: list[str], *, slope_vs_envelope: float | None = None,
