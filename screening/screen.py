@@ -1,8 +1,11 @@
-"""Screening: metrics, flags, needs_review, tiers and the ranking (pure, over the portfolio).
+"""Screening: metrics, flags, needs_review, expected recoverable cost, the audit order and tiers
+(pure, over the portfolio).
 
-A building goes on the audit list only when its metered heating stands out beyond the
-model's own uncertainty band *and* beyond the spread of its peers, and no data
-problem blocks a verdict. Buildings with blocking data problems form their own tier.
+The audit order (``rank``) sorts the buildings that can be judged by their expected recoverable
+cost (the excess, weighted by how sure the evidence is, on a scale that blends the model's own band
+with the spread of the peers); buildings whose data block a verdict come last. ``needs_review``
+marks strong evidence of excess (the level against expectation and peers, or a step up on last
+year). See README "How the audit list is chosen".
 
 Notation: r = metered / expected (P50); the robust z-score of log r within the peer
 group is z = (ln r − median ln r) / (1.4826 · MAD), Iglewicz & Hoaglin (1993), "How to
@@ -237,7 +240,15 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     (metered − P50, ≥ 0), ``excess_cost, excess_co2e_kg, yoy_change, z_yoy`` (robust z of
     ln(1 + yoy_change) over the portfolio: needs_review's second path, a step up against the
     previous year), ``flag_codes, flag_texts, needs_review, review_path`` ("level", "step up",
-    "level and step up" or null), ``tier, tier_rank, rank, verdict``.
+    "level and step up" or null), ``peer_weight, evidence_scale`` (the blended evidence scale:
+    "peers", "model band" or "blend"), ``expected_recoverable_kbtu, expected_recoverable_cost,
+    expected_recoverable_co2e_kg`` (the larger of the level and step-up views, each weighted by how
+    sure it is), ``excess_heat_loss_kbtu, excess_controls_kbtu, excess_baseload_kbtu, sure_heat_loss,
+    sure_controls, sure_baseload`` (per mechanism), ``in_plan`` (this quarter's audit plan),
+    ``tier, tier_rank, rank`` (the audit order; tiers are plain groups along it), ``verdict,
+    waste_kind`` (plain sentences) and ``mechanisms`` (the supported ones, for the sheet's checks).
+    plan : ``[plan]`` of the config (``audits_per_quarter``, ``audit_cost``); None = no limit, any savings.
+    currency : printed before money in the verdicts.
     """
     t = thresholds
     # the band is never narrower than ±band_floor around P50: metering, weather and calendarization
