@@ -493,7 +493,8 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
                        fault_rates: dict | None = None, annual_share: float = 0.1,
                        stations: int = 5, chunk: int = 64, audit_share: float = 0.06,
                        waste_onset: tuple[date, date] | None = None,
-                       onset_share: float = 1.0) -> dict[str, pl.DataFrame]:
+                       onset_share: float = 1.0,
+                       excess_window: tuple[date, date] | None = None) -> dict[str, pl.DataFrame]:
     """Simulate a portfolio and return the frames ``buildings, readings, weather, truth``.
 
     Parameters
@@ -522,6 +523,11 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
     onset_share : with ``waste_onset``, the share of wasteful buildings that get an onset; the
         others waste over the whole record (drawn after the onset days from the same second
         generator, so 1.0 gives the same onsets as before this option existed)
+    excess_window : None (the default) or a pair of dates (first, last), inclusive: ``truth`` then
+        gains ``excess_kbtu``, each building's recoverable excess over those days: the heating fuel
+        its fault added (the fault's share of space heat, divided by the day's efficiency and times
+        the day's meter noise, exactly as the fuel itself), 0 for buildings without waste. It draws
+        no random numbers, so every other output is the same as without it
 
     Returns
     -------
@@ -584,6 +590,13 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
     mech = np.where(wasteful, _choice(rng, ("stuck_setpoint", "open_dampers", "failed_controls"),
                                       (1, 1, 1), n), "")
     onset_day = np.zeros(n, dtype=np.int64)  # index into ``days`` from which the waste holds
+    excess_win = np.zeros(n)                 # fuel added by the fault over ``excess_window`` [kBtu]
+    if excess_window is not None:
+        ew0, ew1 = excess_window
+        if not (isinstance(ew0, date) and isinstance(ew1, date) and start <= ew0 <= ew1 <= end):
+            raise ValueError(f"excess_window must be two dates with {start} <= first <= last <= {end}, "
+                             f"got {excess_window!r}")
+        in_win = (days >= np.datetime64(ew0, "D")) & (days <= np.datetime64(ew1, "D"))
     if waste_onset is not None:
         first, last = waste_onset
         if not (isinstance(first, date) and isinstance(last, date) and start <= first <= last <= end):
@@ -624,7 +637,8 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
             s0 = (q0[:, :n_out] * emitted).sum(axis=1)  # calibrated over the emitted wasting days
             s1 = (qf[:, :n_out] * emitted).sum(axis=1)
             k = (waste_factor[w] - 1.0) * s0 / np.maximum(s1 - s0, 1e-9 * s0 + 1.0)
-            q[sub] = q0 + (k[:, None] * on) * (qf - q0)
+            added = (k[:, None] * on) * (qf - q0)    # space heat the fault adds [Btu/day]
+            q[sub] = q0 + added
         space_kbtu_del[idx] = q / 1000.0
         st = B["station"][idx]
         area = B["area"][idx]
@@ -647,6 +661,9 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
         is_el = (B["fuel"][idx] == "electricity")[:, None]
         heat_fuel_kbtu[idx] = np.where(is_el, fuel_kbtu + elec * BTU_PER_KWH / 1000.0, fuel_kbtu) * noise[idx]
         elec_kwh[idx] = elec * noise_e[idx]
+        if excess_window is not None and w.size:
+            added_fuel = added / 1000.0 / eff[sub] * noise[w]
+            excess_win[w] = added_fuel[:, in_win].sum(axis=1)
 
     # ---- meter periods --------------------------------------------------------------------
     frames_rows, truth_extra = _bill(rng, B, days, n_out, annual, label, heat_fuel_kbtu, elec_kwh)
@@ -705,6 +722,8 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
         "unit_error_factor": truth_extra["ue_factor"],
         "fault_detail": truth_extra["detail"],
     })
+    if excess_window is not None:
+        truth = truth.with_columns(pl.Series("excess_kbtu", np.round(excess_win, 1)))
     buildings = _buildings_frame(rng, B, ids, ua_eff, t_bal, units, audit_share)
     weather = _weather_frame(W, days[:n_out], stations, units)
     return {"buildings": buildings, "readings": frames_rows["readings"], "weather": weather, "truth": truth}

@@ -84,13 +84,14 @@ def _print_summary(res) -> None:
     tiers = ", ".join(f"{k} {v}" for k, v in c["per_tier"].items())
     typer.echo(f"Tiers: {tiers}")
     if res.top:
-        typer.echo("Top buildings to review:")
+        typer.echo(f"Top buildings to review: this quarter's audit plan, {c['audit_plan']} visit(s) (audit_plan.csv)")
         for t in res.top:
-            cost = "" if t["excess_cost"] is None else f", excess about {t['excess_cost']:,.0f} $/yr"
-            typer.echo(f"  {t['rank']:>4}. {t['building_id']}  {t['name'][:40]}  ({t['tier']}, "
-                       f"{t['ratio']:.2f}× expected{cost})")
+            ratio = "" if t["ratio"] is None else f", {t['ratio']:.2f}× expected"
+            strong = ", strong evidence" if t["needs_review"] else ""
+            typer.echo(f"  {t['rank']:>4}. {t['building_id']}  {t['name'][:40]}  (expected savings about "
+                       f"{t['currency']}{t['expected_recoverable_cost']:,.0f} a year{ratio}{strong})")
     else:
-        typer.echo("No building meets the review criteria.")
+        typer.echo("No building's expected savings are worth a visit ([plan] audit_cost).")
     typer.echo(f"Outputs: {res.out_dir}  (database {res.db_path})")
 
 

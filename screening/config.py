@@ -77,12 +77,12 @@ DEFAULTS: dict[str, dict[str, Any]] = {
     "thresholds": {
         "band_ratio": 1.0,          # metered above expected_high × this → above the band
         "band_floor": 0.10,         # the band is at least ±10 % around P50 (common practice: meter/weather uncertainty)
-        "z_review": 2.0,            # robust z-score of log(ratio) within peers that alone puts a building on watch
+        "z_review": 2.0,            # unused since the audit order (issue 14); kept so config files that set it still load
         "review_score": 3.5,        # evidence score (z + weighted balance-point and intensity z) for needs_review
         "weight_balance_point": 1.0,  # weight of the fitted-minus-engineering balance point z in the score
         "weight_intensity": 0.5,    # weight of the heating-intensity z within peers in the score
-        "audit_first_ratio": 1.5,   # needs_review with metered/expected at least this …
-        "audit_first_score": 5.0,   # … and an evidence score at least this → the most urgent tier
+        "audit_first_ratio": 1.5,   # unused since Audit first is this quarter's plan ([plan]); kept so old configs load
+        "audit_first_score": 5.0,   # unused since Audit first is this quarter's plan ([plan]); kept so old configs load
         "peer_percentile_high": 90.0,  # intensity percentile among peers flagged as high
         "min_peer_group": 8,        # peer groups smaller than this fall back to use type
         "baseload_share_high": 1.5,  # baseload share above this × the use type's default share
@@ -101,6 +101,16 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "unit_error_factor_expected_low": 25.0,  # metered/expected at or below 1/this: likely unit or entry error
         "unit_error_factor_fit": 4.0,  # a bill this many times above (or below 1/this of) what its own weather fit predicts
         "min_excess_ratio": 1.0,    # metered/expected (P50) must reach this for needs_review
+        "peer_prior": 3.0,          # evidence scale: the peers' spread weighs n / (n + this), the model band the rest
+        "sure_offset": 1.0,         # a view's sureness is Φ(z − this): half sure at z = 1
+        "step_sure_z": 3.0,         # the step-up view is half sure at this robust z of the year-on-year change
+        "mechanism_support": 0.5,   # a mechanism is named (with its checks) from this sureness on
+        "balance_point_sd_f": 5.0,  # model scale of fitted − engineering balance point [°F] (our own)
+        "baseload_share_sd": 0.15,  # model scale of the non-heating share against the use type's (our own)
+    },
+    "plan": {
+        "audits_per_quarter": 10,   # buildings to visit this quarter (0 = no limit: every one worth its visit)
+        "audit_cost": 2000.0,       # cost of one visit: expected savings per year below it are not planned (0 = any)
     },
 }
 
@@ -214,6 +224,14 @@ RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("thresholds", "unit_error_factor_expected_low"): (2.0, 10_000.0, "a factor"),
     ("thresholds", "unit_error_factor_fit"): (1.5, 10_000.0, "a factor"),
     ("thresholds", "min_excess_ratio"): (0.5, 10.0, "a ratio"),
+    ("thresholds", "peer_prior"): (0.0, 10_000.0, "a number of buildings"),
+    ("thresholds", "sure_offset"): (-5.0, 10.0, "a robust z-score"),
+    ("thresholds", "step_sure_z"): (0.0, 50.0, "a robust z-score"),
+    ("thresholds", "mechanism_support"): (0.0, 1.0, "a share"),
+    ("thresholds", "balance_point_sd_f"): (0.5, 30.0, "a temperature difference in °F"),
+    ("thresholds", "baseload_share_sd"): (0.01, 1.0, "a share"),
+    ("plan", "audits_per_quarter"): (0, 1_000_000, "a whole number of buildings"),
+    ("plan", "audit_cost"): (0.0, 100_000_000.0, "a cost per visit"),
 }
 #: Prices are per unit of the fuel in any currency (yen as well as dollars), so only the sign
 #: and a finite size are checked.

@@ -125,7 +125,10 @@ RANKING_COLUMNS = [
     "peer_percentile", "z_score", "z_balance_point", "z_intensity", "evidence_score", "normal_heating", "yoy_change", "z_yoy", "baseload", "heating_slope", "fitted_base", "r2", "cv_rmse",
     "nmbe", "n_periods", "fit_method", "effective_ua", "ua_walls", "ua_windows", "ua_roof", "ua_ground",
     "ua_infiltration", "ua_ventilation", "ua_total", "envelope_source", "excess_energy", "excess_cost",
-    "excess_co2e", "tier", "needs_review", "review_path", "flags", "data_issues", "change", "previous_rank", "energy_unit",
+    "excess_co2e", "expected_recoverable_energy", "expected_recoverable_cost", "expected_recoverable_co2e",
+    "excess_heat_loss", "sure_heat_loss", "excess_controls", "sure_controls", "excess_baseload", "sure_baseload",
+    "evidence_scale", "peer_weight", "waste_kind", "tier", "needs_review", "review_path", "flags", "data_issues",
+    "change", "previous_rank", "energy_unit",
 ]
 
 
@@ -164,6 +167,12 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
         "envelope_source",
         d.energy(pl.col("excess_energy_kbtu")).round(1).alias("excess_energy"),
         pl.col("excess_cost").round(2), pl.col("excess_co2e_kg").round(1).alias("excess_co2e"),
+        d.energy(pl.col("expected_recoverable_kbtu")).round(1).alias("expected_recoverable_energy"),
+        pl.col("expected_recoverable_cost").round(2),
+        pl.col("expected_recoverable_co2e_kg").round(1).alias("expected_recoverable_co2e"),
+        *[e for m in ("heat_loss", "controls", "baseload")
+          for e in (d.energy(pl.col(f"excess_{m}_kbtu")).round(1).alias(f"excess_{m}"), pl.col(f"sure_{m}").round(3))],
+        "evidence_scale", pl.col("peer_weight").round(3), "waste_kind",
         "tier", "needs_review", "review_path",
         pl.col("flag_codes").list.join(";").alias("flags"),
         pl.col("data_issue_codes").list.join(";").alias("data_issues"),
@@ -175,6 +184,27 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
     else:
         out = out.with_columns(pl.lit("first run").alias("change"), pl.lit(None, dtype=pl.Int64).alias("previous_rank"))
     return out.select(RANKING_COLUMNS)
+
+
+AUDIT_PLAN_COLUMNS = ["visit", "rank", "building_id", "name", "use_type", "expected_recoverable_cost",
+                      "expected_recoverable_energy", "waste_kind", "needs_review", "cumulative_share", "energy_unit"]
+
+
+def audit_plan_table(res: pl.DataFrame, disp: Display) -> pl.DataFrame:
+    """audit_plan.csv: this quarter's visits in rank order ([plan] in the config), each with its expected
+    savings per year, the kind of waste to look for, and the cumulative share of the portfolio's
+    estimated recoverable cost that the visits so far hold."""
+    total = res["expected_recoverable_cost"].fill_null(0).fill_nan(0).sum()
+    plan = res.filter(pl.col("in_plan")).sort("rank")
+    return plan.select(
+        pl.int_range(1, plan.height + 1, dtype=pl.Int64).alias("visit"), "rank", "building_id", "name", "use_type",
+        pl.col("expected_recoverable_cost").round(2),
+        disp.energy(pl.col("expected_recoverable_kbtu")).round(1).alias("expected_recoverable_energy"),
+        "waste_kind", "needs_review",
+        (pl.col("expected_recoverable_cost").cum_sum() / total if total > 0 else pl.lit(None, dtype=pl.Float64))
+        .round(4).alias("cumulative_share"),
+        pl.lit(disp.energy_unit).alias("energy_unit"),
+    ).select(AUDIT_PLAN_COLUMNS)
 
 
 def assumptions_table(envelope: pl.DataFrame, disp: "Display") -> pl.DataFrame:
@@ -307,6 +337,11 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             "excess_energy": d.val("energy", r["excess_energy_kbtu"]),
             "excess_cost": _num(r["excess_cost"]), "currency": currency,
             "excess_co2e_kg": _num(r["excess_co2e_kg"]),
+            "expected_recoverable_energy": d.val("energy", r["expected_recoverable_kbtu"]),
+            "expected_recoverable_cost": _num(r["expected_recoverable_cost"]),
+            "expected_recoverable_co2e_kg": _num(r["expected_recoverable_co2e_kg"]),
+            "waste_kind": r["waste_kind"], "evidence_scale": r["evidence_scale"],
+            "peer_weight": _num(r["peer_weight"]),
             "hdd": d.val("dd", r["hdd_balance"]), "base_temperature": d.val("temp", bal),
             "fit": {"method": r["fit_method"], "r2": _num(r["r2"]),
                     # the sheet shows fractions as percentages; the fit reports percent
@@ -322,7 +357,8 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             "periods": periods_list, "fit_line": fit_line, "expected_line": exp_line, "annual": annual,
             "peers": peer_map.get(r["peer_group"], []),
             "flags": flags, "data_issues": issues,
-            "next_steps": screen.next_steps(r["flag_codes"], r["data_issue_codes"], slope_vs_envelope=slope_ratio),
+            "next_steps": screen.next_steps(r["flag_codes"], r["data_issue_codes"], slope_vs_envelope=slope_ratio,
+                                            mechanisms=r["mechanisms"], blocking=r["blocking"]),
             "cautions": [],  # the sheet template prints the standard cautions on every sheet
         })
     return out
@@ -337,7 +373,8 @@ def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp
     """
     table = ranking if max_rows <= 0 else ranking.head(max_rows)
     rows = table.select("rank", "building_id", "name", "use_type", "tier", "ratio", "heating_intensity",
-                          "excess_energy", "excess_cost", "flags", "data_issues", "needs_review").to_dicts()
+                          "excess_energy", "excess_cost", "expected_recoverable_cost", "flags", "data_issues",
+                          "needs_review").to_dicts()
     long = res.filter(pl.col("data_issue_codes").list.len() > 0).select(
         "building_id", "name", pl.col("data_issue_codes").alias("code"), pl.col("data_issue_texts").alias("explanation")
     ).explode("code", "explanation").sort("building_id", "code")
@@ -347,12 +384,14 @@ def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp
     issues = long.to_dicts()
     tiers = [{"tier": name, "count": summary["counts"]["per_tier"].get(name, 0), "meaning": meaning}
              for name, meaning in screen.TIERS]
+    plan = audit_plan_table(res, disp).with_columns(
+        res.filter(pl.col("in_plan")).sort("rank")["mechanisms"].list.join(", ").alias("mechanisms")).to_dicts()
     return {
         "run": {"run_id": summary["run_id"], "as_of": summary["as_of"], "window_start": summary["window"][0],
                 "window_end": summary["window"][1], "run_date": summary["run_date"],
                 "version": summary["versions"]["ddscreen"], "units": summary["units"]},
         "counts": summary["counts"], "tiers": tiers,
-        "totals": summary["totals"], "rows": rows, "rows_total": ranking.height,
+        "totals": summary["totals"], "rows": rows, "rows_total": ranking.height, "plan": plan,
         "rows_omitted": ranking.height - len(rows),
         "ratios": [x for x in res["ratio"].to_list() if x is not None and math.isfinite(x)],
         "data_issues": issues, "data_issues_total": n_issues, "data_issues_omitted": n_issues - len(issues),

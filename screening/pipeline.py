@@ -564,7 +564,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         *[pl.when(no_wx).then(None).otherwise(pl.col(c)).alias(c)
           for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")])
     units_ip = cfg["analysis"]["units"] == "IP"
-    results = screen.screen(frame, thr, energy_factor=1.0 if units_ip else KBTU_TO_KWH,
+    results = screen.screen(frame, thr, plan=cfg["plan"], currency=cfg["prices"]["currency"], energy_factor=1.0 if units_ip else KBTU_TO_KWH,
                             energy_unit="kBtu" if units_ip else "kWh")
     lap("screening")
     return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),

@@ -322,6 +322,10 @@ def _share_cell(share: str) -> str:
     return share.rjust(4, _FIGURE_SPACE)
 
 
+_SCALE_TEXT = {"peers": "its peers' spread", "model band": "the model's own band (too few peers)",
+               "blend": "a blend of its peers' spread ({pct} %) and the model's own band"}
+
+
 def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     """Everything a sheet template shows, as display strings (plus chart SVG markup)."""
     if not 0 <= level <= MAX_LEVEL:
@@ -334,6 +338,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     area = s.get("floor_area")
     tr = s.get("tier_rank")
     co2_v, co2_u = fmt_co2e(s.get("excess_co2e_kg"))
+    rco2_v, rco2_u = fmt_co2e(s.get("expected_recoverable_co2e_kg"))
 
     # Charts carry only their geometry and tick labels (annotate=False): WeasyPrint draws
     # SVG text glyph by glyph, so axis titles and legends are printed as page text in the
@@ -449,12 +454,21 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         ("fu", tabbed([f"{eu} per year", f"band {fmt_num(s.get('expected_low'))} to {fmt_num(s.get('expected_high'))}",
                        _BAND_TEXT.get(s.get("band_position"), "band position n/a"),
                        f"{s.get('intensity_unit', '')}; peers' median {fmt_num(s.get('peer_median_intensity'))}"], 34)),
-        ("fk", tabbed(["Normal-year heating", "Excess energy", "Excess cost", "Excess emissions"], 30)),
+        ("fk", tabbed(["Normal-year heating", "Above the expected band", "Expected recoverable",
+                       "Expected emissions saved"], 30)),
         ("fv", tabbed([fmt_num(s.get("normal_heating")), fmt_num(s.get("excess_energy")),
-                       fmt_money(s.get("excess_cost"), cur), co2_v], 14)),
-        ("fu", tabbed([f"{eu}; baseload {fmt_num(s.get('baseload'))}", f"{eu} per year",
-                       "per year at the billed price", f"{co2_u} CO₂e per year"], 30)),
+                       fmt_money(s.get("expected_recoverable_cost"), cur), rco2_v], 14)),
+        ("fu", tabbed([f"{eu}; baseload {fmt_num(s.get('baseload'))}",
+                       f"{eu} per year; {fmt_money(s.get('excess_cost'), cur)}",
+                       f"per year; {fmt_num(s.get('expected_recoverable_energy'))} {eu}",
+                       f"{rco2_u} CO₂e per year"], 30)),
     ]
+    scale = _SCALE_TEXT.get(s.get("evidence_scale"), "")
+    if scale and s.get("evidence_scale") == "blend" and _finite(s.get("peer_weight")):
+        scale = scale.format(pct=round(100 * s["peer_weight"]))
+    kind = s.get("waste_kind") or ""
+    kind_line = _cut((f"What to look for: {kind}" if kind else "") + (f" Judged against {scale}." if scale else ""),
+                     lim["text"])
     return {
         "figs": figs,
         "level": level,
@@ -472,6 +486,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "run_date": s.get("run_date") or "n/a",
         "run_id": _cut(s.get("run_id"), 60),
         "verdict": _cut(s.get("verdict"), lim["text"]),
+        "kind_line": kind_line,
         "tier": _cut(s.get("tier"), 24),
         "tier_rank": tr if isinstance(tr, int) else "?",
         "tier_rank_class": min(max(tr, 1), 5) if isinstance(tr, int) else 5,
@@ -1083,7 +1098,7 @@ def render_sheets_one_by_one(sheets: list[dict[str, Any]], out_dir: Path, *, pap
 RANK_COLUMNS = [
     ("rank", "#", 4.0, 6, True), ("building_id", "id", 8.0, 14, False), ("name", "name", 16.0, 34, False),
     ("use_type", "use", 8.5, 14, False), ("tier", "tier", 8.0, 14, False), ("ratio", "ratio", 5.0, 8, True),
-    ("heating_intensity", "intensity", 7.0, 9, True), ("excess_energy", "excess [{eu}]", 10.5, 14, True),
+    ("heating_intensity", "intensity", 7.0, 9, True), ("expected_recoverable_cost", "exp. savings", 10.5, 14, True),
     ("excess_cost", "excess cost", 9.0, 13, True), ("flags", "flags", 12.5, 34, False),
     ("data_issues", "data issues", 11.0, 30, False),
 ]
@@ -1096,7 +1111,8 @@ _ROWS_PER_PAGE = {paper: int((h - 30 * 72 / 25.4 - 40) // _ROW_PT) for paper, h 
                                                                                      ("A4", 841.89))}
 _FIRST_PAGE_LOSS = 6
 _COLUMN_CSS = [{"cls": f"k{j}", "width": w, "right": right} for j, (_k, _h, w, _c, right) in enumerate(RANK_COLUMNS)]
-MAX_ISSUE_LINES = 1000  # data-issue lines in ranking.pdf; data_issues.csv has them all
+MAX_ISSUE_LINES = 1000
+PLAN_LINES = 10   # audit-plan rows on ranking.pdf's first page (the rest: audit_plan.csv)  # data-issue lines in ranking.pdf; data_issues.csv has them all
 
 
 def _table_pages(rows: list[dict[str, str]], paper: str) -> list[dict[str, Any]]:
@@ -1141,6 +1157,7 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
         "heating_intensity": fmt_num(r.get("heating_intensity")),
         "excess_energy": fmt_num(r.get("excess_energy")),
         "excess_cost": fmt_money(r.get("excess_cost"), cur),
+        "expected_recoverable_cost": fmt_money(r.get("expected_recoverable_cost"), cur),
         "flags": joined(r.get("flags")),
         "data_issues": joined(r.get("data_issues")),
     } for r in report.get("rows") or []]
@@ -1171,9 +1188,22 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
         "audit_energy": fmt_num(totals["audit_list_excess_energy"]) if "audit_list_excess_energy" in totals else "",
         "audit_cost": fmt_money(totals["audit_list_excess_cost"], cur) if "audit_list_excess_cost" in totals else "",
         "total_co2e": co2_v, "co2e_unit": co2_u,
+        "recoverable_cost": fmt_money(totals["expected_recoverable_cost"], cur)
+        if "expected_recoverable_cost" in totals else "",
+        "plan_cost": fmt_money(totals.get("audit_plan_expected_recoverable_cost"), cur),
         "intensity_unit": report.get("intensity_unit", ""),
         "chart": svg_img(charts.ratio_histogram(report.get("ratios") or []), "distribution of ratios"),
         "top": rows[:10],
+        # this quarter's audit plan (ranking_report's "plan"): at most PLAN_LINES rows on the first page
+        "plan": None if report.get("plan") is None else [{
+            "visit": str(p.get("visit")), "rank": str(p.get("rank")),
+            "building_id": _cut(p.get("building_id"), 40), "name": _cut(p.get("name"), 60),
+            "look_for": _cut(p.get("mechanisms") or ("what changed" if "rose" in
+                                                     (p.get("waste_kind") or "") else "not told apart"), 26),
+            "savings": fmt_money(p.get("expected_recoverable_cost"), cur),
+            "share": fmt_pct(p.get("cumulative_share"))} for p in report["plan"][:PLAN_LINES]],
+        "plan_more": fmt_num(len(report.get("plan") or []) - PLAN_LINES)
+        if len(report.get("plan") or []) > PLAN_LINES else "",
         "header": [{"cls": f"k{j}", "text": h.format(eu=eu)} for j, (_k, h, _w, _c, _r) in enumerate(RANK_COLUMNS)],
         "table_pages": _table_pages(rows, paper),
         "data_issues": [{"building_id": _one_line(d.get("building_id"), 40), "name": _one_line(d.get("name"), 80),

@@ -304,6 +304,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         ranking = outputs.ranking_table(res.results, disp, change)
         t = time.perf_counter()
         outputs.write_csv(ranking, tmp / "ranking.csv")
+        outputs.write_csv(outputs.audit_plan_table(res.results, disp), tmp / "audit_plan.csv")
         outputs.write_csv(rejects, tmp / "rejects.csv")
         outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
         assumptions = outputs.assumptions_table(res.envelope, disp)
@@ -364,8 +365,10 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         _stage("after_record")
         if root is not None:
             _tidy_root(root, store, cfg["output"]["keep"], target)
-        top = ranking.filter(pl.col("needs_review")).head(5).select("rank", "building_id", "name", "tier", "ratio",
-                                                                    "excess_cost").to_dicts()
+        # the first visits of this quarter's audit plan, for the console
+        top = ranking.filter(pl.col("tier") == "Audit first").head(5).select(
+            "rank", "building_id", "name", "tier", "ratio", "needs_review", "expected_recoverable_cost",
+            pl.lit(cfg["prices"]["currency"]).alias("currency")).to_dicts()
         return RunResult(run_id, label, target, str(db_path), summary, top, loads)
     except BaseException as exc:
         if isinstance(interrupts.as_interrupted(exc), Interrupted):  # SIGINT/SIGTERM: see _interrupted
@@ -512,6 +515,10 @@ def _summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id) ->
                    "needs_review_by_path": {k: int(v) for k, v in sorted(
                        r.filter(pl.col("needs_review")).group_by("review_path").len().iter_rows())},
                    "per_flag": {k: int(v) for k, v in sorted(flags.iter_rows())},
+                   # which scale judged each building's level: peers, the model's own band, or a blend
+                   "evidence_scale": {k: int(v) for k, v in sorted(
+                       r.filter(pl.col("evidence_scale").is_not_null()).group_by("evidence_scale").len().iter_rows())},
+                   "audit_plan": int(r["in_plan"].sum()),
                    "per_data_issue": {k: int(v) for k, v in sorted(issues.iter_rows())}},
         # sums over buildings without blocking data problems (those carry no excess)
         "totals": {"excess_energy": round(float(ee * (outputs.KBTU_TO_KWH if disp.si else 1.0)), 1),
@@ -522,7 +529,10 @@ def _summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id) ->
                        r.filter(pl.col("needs_review"))["excess_energy_kbtu"].fill_null(0).sum()
                        * (outputs.KBTU_TO_KWH if disp.si else 1.0)), 1),
                    "audit_list_excess_cost": round(float(
-                       r.filter(pl.col("needs_review"))["excess_cost"].fill_null(0).sum()), 2)},
+                       r.filter(pl.col("needs_review"))["excess_cost"].fill_null(0).sum()), 2),
+                   "expected_recoverable_cost": round(float(r["expected_recoverable_cost"].fill_null(0).sum()), 2),
+                   "audit_plan_expected_recoverable_cost": round(float(
+                       r.filter(pl.col("in_plan"))["expected_recoverable_cost"].fill_null(0).sum()), 2)},
         "inputs": [{"kind": fl.kind, "path": fl.path, "sha256": fl.sha256, "status": fl.status,
                     "rows": fl.rows, "rejected": fl.rejected} for fl in loads],
         "normal_years": res.normal_years,
@@ -675,8 +685,8 @@ def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: b
 # Every top-level name a run writes into its output folder (tests/test_unattended.py checks
 # that a run writes nothing else): the demo, which writes into a folder of its own choosing,
 # replaces only these, and only when they are what its previous run wrote.
-OUTPUT_NAMES = ("assumptions.csv", "data_issues.csv", "ranking.csv", "ranking.pdf", "ranking.xlsx", "rejects.csv",
-                "run.log",
+OUTPUT_NAMES = ("assumptions.csv", "audit_plan.csv", "data_issues.csv", "ranking.csv", "ranking.pdf", "ranking.xlsx",
+                "rejects.csv", "run.log",
                 "sheets", "sheets_index.csv", "summary.json")
 
 

@@ -1,8 +1,11 @@
-"""Screening: metrics, flags, needs_review, tiers and the ranking (pure, over the portfolio).
+"""Screening: metrics, flags, needs_review, expected recoverable cost, the audit order and tiers
+(pure, over the portfolio).
 
-A building goes on the audit list only when its metered heating stands out beyond the
-model's own uncertainty band *and* beyond the spread of its peers, and no data
-problem blocks a verdict. Buildings with blocking data problems form their own tier.
+The audit order (``rank``) sorts the buildings that can be judged by their expected recoverable
+cost (the excess, weighted by how sure the evidence is, on a scale that blends the model's own band
+with the spread of the peers); buildings whose data block a verdict come last. ``needs_review``
+marks strong evidence of excess (the level against expectation and peers, or a step up on last
+year). See README "How the audit list is chosen".
 
 Notation: r = metered / expected (P50); the robust z-score of log r within the peer
 group is z = (ln r − median ln r) / (1.4826 · MAD), Iglewicz & Hoaglin (1993), "How to
@@ -18,14 +21,18 @@ import numpy as np
 import polars as pl
 
 MAD_TO_SIGMA = 1.4826  # consistency constant of the MAD for normal data (Iglewicz & Hoaglin 1993)
+P10_P90_SIGMAS = 2 * 1.2816  # a normal distribution's P10..P90 spans 2 × 1.2816 σ
+PEER_SCALE_FROM = 0.75  # peer weight from which the evidence scale is called "peers" (n ≥ 3 × peer_prior)
+LOGISTIC_PHI = 1.702    # Φ(x) ≈ 1 / (1 + exp(−1.702 x)), within 0.01 (Bowling et al. 2009, J. Ind. Eng. Manag. 2(1))
+WATCH_SHARE = 0.1       # Watch: expected savings of at least this share of one visit's cost
 
-# Tiers, most urgent first. Names are our own.
+# Tiers: plain groups along the audit order (rank), most urgent first. Names are our own.
 TIERS = (
-    ("Audit first", "strong evidence of excess heating and a large excess"),
-    ("Audit soon", "strong evidence of excess heating"),
-    ("Fix data first", "a data problem blocks a verdict"),
-    ("Watch", "some signs worth watching, not enough for an audit"),
-    ("No action", "heating in line with expectation and peers"),
+    ("Audit first", "this quarter's audit plan"),
+    ("Audit soon", "worth a visit, after the plan"),
+    ("Watch", "expected savings below a visit's cost"),
+    ("No action", "nothing to recover to speak of"),
+    ("Fix data first", "data problems block a verdict"),
 )
 TIER_RANK = {name: i + 1 for i, (name, _) in enumerate(TIERS)}
 
@@ -86,7 +93,129 @@ def percentile_within(values: pl.Expr, group: str) -> pl.Expr:
     return pl.when(values.is_null()).then(None).otherwise(100.0 * (rank - 0.5) / n)
 
 
-def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_unit: str) -> pl.DataFrame:
+def _phi(x: pl.Expr) -> pl.Expr:
+    """Standard normal CDF, logistic approximation (vectorized; max error 0.01) [-]."""
+    return 1.0 / (1.0 + (-LOGISTIC_PHI * x.clip(-30.0, 30.0)).exp())
+
+
+def _model_sd() -> pl.Expr:
+    """The model's own scale of ln(metered / expected): its P10..P90 band (floored at ±band_floor) [-]."""
+    return pl.when((pl.col("_band_low") > 0) & (pl.col("_band_high") > pl.col("_band_low"))) \
+        .then((pl.col("_band_high") / pl.col("_band_low")).log() / P10_P90_SIGMAS).otherwise(None)
+
+
+def _peer_stats(values: pl.Expr, group: str) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
+    """Median, robust sd (1.4826·MAD) and count of the non-null ``values`` within ``group``."""
+    med = values.median().over(group)
+    sd = MAD_TO_SIGMA * (values - med).abs().median().over(group)
+    return med, sd, values.count().over(group)
+
+
+def _blend_weight(values: pl.Expr, group: str, t: dict) -> pl.Expr:
+    """Peer weight λ = n / (n + peer_prior) for n ≥ 3 peers with a spread; 0 (the model alone) otherwise."""
+    _, sd, n = _peer_stats(values, group)
+    ok = (n >= 3) & (sd > 0)
+    return pl.when(ok).then(n.cast(pl.Float64) / (n + t["peer_prior"])).otherwise(0.0) \
+        if t["peer_prior"] > 0 else pl.when(ok).then(1.0).otherwise(0.0)
+
+
+def _blend_center(values: pl.Expr, group: str, t: dict) -> pl.Expr:
+    """The expected value of ``values`` among peers, shrunk towards 0 (the model) by the peer weight."""
+    med, _, _ = _peer_stats(values, group)
+    return _blend_weight(values, group, t) * med
+
+
+def _blended_z(values: pl.Expr, group: str, model_sd: pl.Expr | float, t: dict) -> pl.Expr:
+    """(x − λ·peer median) / √(λ·peer sd² + (1 − λ)·model sd²): the evidence in units of its own scale.
+
+    With many peers this is the robust z within the group (Iglewicz & Hoaglin 1993); with none, the
+    distance from the model's expectation in units of the model's band; in between a shrinkage blend.
+    """
+    lam = _blend_weight(values, group, t)
+    _, sd, _ = _peer_stats(values, group)
+    msd = model_sd if isinstance(model_sd, pl.Expr) else pl.lit(float(model_sd))
+    scale = (lam * sd.fill_null(0.0) ** 2 + (1 - lam) * msd ** 2).sqrt()
+    return pl.when(values.is_not_null() & (scale > 0)).then((values - lam * _peer_stats(values, group)[0]) / scale) \
+        .otherwise(None)
+
+
+def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFrame:
+    """Excess per mechanism, how sure each is, and the expected recoverable energy, cost and CO2e.
+
+    Two views of a building's recoverable excess (see README "How the audit list is chosen"):
+
+    * **level**: metered heating above the peers' (shrunk) expectation, E = metered − expected·e^c,
+      sure by w = Φ(z − sure_offset) with z the blended z of ln(metered/expected);
+    * **step up**: heating added since last year, E = metered · y / (1 + y) for a weather-normalized
+      rise y, sure by Φ(z_yoy − step_sure_z), with path B's guards (a fit that explains the use, heating
+      a fair share of the fuel).
+
+    The expected recoverable energy is the larger of w·E over the two views (they measure the same
+    excess). Three mechanisms, each from its own evidence in the monthly fit, say where the excess is:
+    heat loss (effective UA from the slope against the envelope UA), controls (fitted against engineering
+    balance point) and non-heating use of the heating fuel (baseload share against the use type's); each
+    has an excess energy and a sureness on the same blended scale.
+    """
+    blk = pl.col("blocking")
+    reg = pl.col("fit_method") == "regression"
+    # a monthly fit that does not follow the weather is no basis for judging the level (as for needs_review)
+    usable = (~blk) & pl.col("_logr").is_not_null() & (~reg | (pl.col("r2") >= t["r2_min"])).fill_null(False)
+    out = out.with_columns(
+        pl.when(usable).then((pl.col("actual_heating_kbtu")
+                              - pl.col("expected_heating_kbtu") * pl.col("_center_logr").exp()).clip(lower_bound=0))
+        .otherwise(None).alias("_e_level"),
+        pl.when(usable).then(_phi(pl.col("z_score") - t["sure_offset"])).otherwise(None).alias("_w_level"))
+    step_ok = (~blk) & (pl.col("yoy_change") > 0) & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"])) \
+        & (heat_share >= t["yoy_review_heating_share_min"]) & pl.col("z_yoy").is_not_null()
+    out = out.with_columns(
+        pl.when(step_ok).then(pl.col("actual_heating_kbtu") * pl.col("yoy_change") / (1 + pl.col("yoy_change")))
+        .otherwise(None).alias("_e_step"),
+        pl.when(step_ok).then(_phi(pl.col("z_yoy") - t["step_sure_z"])).otherwise(None).alias("_w_step"))
+    # mechanisms, from a monthly fit that follows the weather
+    fit = (~blk) & reg & (pl.col("r2") >= t["r2_min"]).fill_null(False) & (pl.col("heating_slope_kbtu_per_dd") > 0) \
+        & (pl.col("actual_heating_kbtu") > 0)
+    out = out.with_columns(
+        pl.when(fit & (pl.col("effective_ua_btu_h_f") > 0) & (pl.col("ua_total") > 0))
+        .then((pl.col("effective_ua_btu_h_f") / pl.col("ua_total")).log()).otherwise(None).alias("_lu"),
+        pl.when(fit & pl.col("fitted_base_f").is_not_null() & pl.col("balance_point_f").is_not_null())
+        .then(pl.col("fitted_base_f") - pl.col("balance_point_f")).otherwise(None).alias("_db"),
+        pl.when(fit & pl.col("baseload_share").is_not_null() & pl.col("baseload_share_default").is_not_null())
+        .then(pl.col("baseload_share") - pl.col("baseload_share_default")).otherwise(None).alias("_dl"),
+        # degree days at the fitted base over the span (metered heating = slope × HDD(fitted base))
+        pl.when(fit).then(pl.col("actual_heating_kbtu") / pl.col("heating_slope_kbtu_per_dd")).alias("_hdd_fit"))
+    out = out.with_columns(
+        (pl.col("_lu") - _blend_center(pl.col("_lu"), "peer_group", t)).alias("_x_hl"),
+        (pl.col("_db") - _blend_center(pl.col("_db"), "peer_group", t)).alias("_x_ct"),
+        (pl.col("_dl") - _blend_center(pl.col("_dl"), "peer_group", t)).alias("_x_bl"),
+        _blended_z(pl.col("_lu"), "peer_group", _model_sd(), t).alias("_z_hl"),
+        _blended_z(pl.col("_db"), "peer_group", t["balance_point_sd_f"], t).alias("_z_ct"),
+        _blended_z(pl.col("_dl"), "peer_group", t["baseload_share_sd"], t).alias("_z_bl"))
+    # heating-season days per °F of base: HDD(T_fit) / (T_fit − 35 °F), 35 °F a typical heating-season
+    # mean outdoor temperature (our own rough figure, only to size the controls excess)
+    days_per_f = pl.col("_hdd_fit") / (pl.col("fitted_base_f") - 35.0).clip(lower_bound=10.0)
+    out = out.with_columns(
+        (pl.col("actual_heating_kbtu") * (1 - (-pl.col("_x_hl")).exp())).clip(lower_bound=0)
+        .alias("excess_heat_loss_kbtu"),
+        (pl.col("heating_slope_kbtu_per_dd") * pl.col("_x_ct") * days_per_f)
+        .clip(lower_bound=0, upper_bound=pl.col("actual_heating_kbtu")).alias("excess_controls_kbtu"),
+        (pl.col("_x_bl") * pl.col("total_fuel_kbtu")).clip(lower_bound=0).alias("excess_baseload_kbtu"),
+        _phi(pl.col("_z_hl") - t["sure_offset"]).alias("sure_heat_loss"),
+        _phi(pl.col("_z_ct") - t["sure_offset"]).alias("sure_controls"),
+        _phi(pl.col("_z_bl") - t["sure_offset"]).alias("sure_baseload"))
+    level = (pl.col("_w_level") * pl.col("_e_level")).fill_null(0.0)
+    step = (pl.col("_w_step") * pl.col("_e_step")).fill_null(0.0)
+    out = out.with_columns(
+        pl.when(blk | (pl.col("_e_level").is_null() & pl.col("_e_step").is_null())).then(None)
+        .otherwise(pl.max_horizontal(level, step)).alias("expected_recoverable_kbtu"),
+        pl.when(step > level).then(pl.lit("step up")).when(level > 0).then(pl.lit("level"))
+        .otherwise(None).alias("_view"))
+    return out.with_columns(
+        (pl.col("expected_recoverable_kbtu") * pl.col("usd_per_kbtu")).alias("expected_recoverable_cost"),
+        (pl.col("expected_recoverable_kbtu") * pl.col("kg_co2e_per_kbtu")).alias("expected_recoverable_co2e_kg"))
+
+
+def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_unit: str,
+           plan: dict | None = None, currency: str = "$") -> pl.DataFrame:
     """Add metrics, flags, needs_review, tier and rank to the per-building frame.
 
     Parameters
@@ -112,7 +241,15 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     (metered − P50, ≥ 0), ``excess_cost, excess_co2e_kg, yoy_change, z_yoy`` (robust z of
     ln(1 + yoy_change) over the portfolio: needs_review's second path, a step up against the
     previous year), ``flag_codes, flag_texts, needs_review, review_path`` ("level", "step up",
-    "level and step up" or null), ``tier, tier_rank, rank, verdict``.
+    "level and step up" or null), ``peer_weight, evidence_scale`` (the blended evidence scale:
+    "peers", "model band" or "blend"), ``expected_recoverable_kbtu, expected_recoverable_cost,
+    expected_recoverable_co2e_kg`` (the larger of the level and step-up views, each weighted by how
+    sure it is), ``excess_heat_loss_kbtu, excess_controls_kbtu, excess_baseload_kbtu, sure_heat_loss,
+    sure_controls, sure_baseload`` (per mechanism), ``in_plan`` (this quarter's audit plan),
+    ``tier, tier_rank, rank`` (the audit order; tiers are plain groups along it), ``verdict,
+    waste_kind`` (plain sentences) and ``mechanisms`` (the supported ones, for the sheet's checks).
+    plan : ``[plan]`` of the config (``audits_per_quarter``, ``audit_cost``); None = no limit, any savings.
+    currency : printed before money in the verdicts.
     """
     t = thresholds
     # the band is never narrower than ±band_floor around P50: metering, weather and calendarization
@@ -148,11 +285,16 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         robust_z(pl.col("_logr"), "peer_group").alias("z_score"),
         pl.col("_int_ok").count().over("peer_group").alias("peer_count"),
     )
-    # a group too uniform for a MAD falls back to the whole portfolio's spread
+    # the evidence scale: the peers' median and spread where there are enough peers, the model's own band
+    # where there are none, blended by the peer weight n / (n + peer_prior) in between (shrinkage)
+    out = out.with_columns(_blended_z(pl.col("_logr"), "peer_group", _model_sd(), t).alias("z_score"),
+                           _blend_weight(pl.col("_logr"), "peer_group", t).alias("peer_weight"),
+                           _blend_center(pl.col("_logr"), "peer_group", t).alias("_center_logr"))
     out = out.with_columns(
-        pl.when(pl.col("z_score").is_null() & pl.col("_logr").is_not_null())
-        .then(_robust_z_all(pl.col("_logr")))
-        .otherwise(pl.col("z_score")).alias("z_score"))
+        pl.when(pl.col("_logr").is_null()).then(None)
+        .when(pl.col("peer_weight") == 0).then(pl.lit("model band"))
+        .when(pl.col("peer_weight") >= PEER_SCALE_FROM).then(pl.lit("peers"))
+        .otherwise(pl.lit("blend")).alias("evidence_scale"))
     out = out.with_columns(
         # no excess is claimed where a data problem blocks the verdict: it would be the data's, not waste
         pl.when(~pl.col("blocking")).then(
@@ -226,23 +368,35 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         .when(rise).then(pl.lit("step up"))
         .otherwise(None).alias("review_path"),
     )
-    watch = (pl.col("_f_above_band") | pl.col("_f_high_among_peers") | pl.col("_f_poor_fit")
-             | pl.col("_f_rising_use") | pl.col("_f_high_balance_point") | pl.col("_f_high_baseload")
-             | (pl.col("z_score") >= t["z_review"]).fill_null(False))
-    # the most urgent: a large excess over the expectation with strong evidence, on either path
-    big = (pl.col("ratio") >= t["audit_first_ratio"]) & (
-        (pl.col("evidence_score") >= t["audit_first_score"]) | rise)
+    out = _recoverable(out, t, heat_share)
+    # the audit order: buildings that can be judged by expected recoverable cost; then those whose data
+    # must be fixed first, by the money at stake (their heating's cost), so a data problem never takes
+    # an audit slot
     out = out.with_columns(
+        pl.when(pl.col("blocking")).then(pl.col("actual_heating_kbtu") * pl.col("usd_per_kbtu"))
+        .otherwise(pl.col("expected_recoverable_cost")).fill_null(0.0).fill_nan(0.0).alias("_order_money"))
+    out = out.sort(["blocking", "_order_money", "ratio", "building_id"],
+                   descending=[False, True, True, False], nulls_last=True)
+    # tiers are plain groups along that order: this quarter's plan, the rest worth a visit, then less
+    p = plan or {"audits_per_quarter": 0, "audit_cost": 0.0}
+    cost = pl.col("expected_recoverable_cost").fill_null(0.0).fill_nan(0.0)
+    worth = (~pl.col("blocking")) & (cost > 0) & (cost >= p["audit_cost"])
+    nth = worth.cast(pl.Int64).cum_sum()
+    in_plan = worth & ((nth <= p["audits_per_quarter"]) if p["audits_per_quarter"] > 0 else pl.lit(True))
+    watch_from = WATCH_SHARE * p["audit_cost"] if p["audit_cost"] > 0 else 0.0
+    out = out.with_columns(in_plan.alias("in_plan")).with_columns(
         pl.when(pl.col("blocking")).then(pl.lit("Fix data first"))
-        .when(pl.col("needs_review") & big.fill_null(False)).then(pl.lit("Audit first"))
-        .when(pl.col("needs_review")).then(pl.lit("Audit soon"))
-        .when(watch).then(pl.lit("Watch"))
+        .when(pl.col("in_plan")).then(pl.lit("Audit first"))
+        .when(worth).then(pl.lit("Audit soon"))
+        .when((cost > watch_from) & (cost > 0)).then(pl.lit("Watch"))
+        # above the band, but a fit that does not follow the weather cannot size the excess: watched
+        .when(pl.col("_f_above_band") & pl.col("_f_poor_fit")).then(pl.lit("Watch"))
         .otherwise(pl.lit("No action")).alias("tier"))
     out = out.with_columns(pl.col("tier").replace_strict(TIER_RANK, return_dtype=pl.Int64).alias("tier_rank"))
-    out = out.sort(["tier_rank", "excess_cost", "ratio", "building_id"],
+    out = out.sort(["tier_rank", "_order_money", "ratio", "building_id"],
                    descending=[False, True, True, False], nulls_last=True)
     out = out.with_row_index("rank", offset=1).with_columns(pl.col("rank").cast(pl.Int64))
-    out = _explain(out, t, energy_factor=energy_factor, energy_unit=energy_unit)
+    out = _explain(out, t, energy_factor=energy_factor, energy_unit=energy_unit, currency=currency)
     return out.drop([c for c in out.columns if c.startswith("_")])
 
 
@@ -254,17 +408,22 @@ def _fmt(x: float | None, digits: int = 0) -> str:
     return f"{x:,.{digits}f}"
 
 
-def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: str) -> pl.DataFrame:
+def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: str,
+             currency: str = "$") -> pl.DataFrame:
     """Flag codes and one-line explanations that carry the numbers; the verdict sentence."""
     rows = out.select(
         "actual_heating_kbtu", "expected_heating_kbtu", "_band_low", "_band_high", "ratio",
         "heating_intensity", "peer_median_intensity", "peer_percentile", "peer_group", "z_score",
         "baseload_share", "baseload_share_default", "fitted_base_f", "r2", "cv_rmse", "yoy_change",
         "tier", "needs_review", "blocking", "excess_energy_kbtu", "evidence_score", "z_balance_point", "z_intensity",
-        "z_yoy", "review_path", "span_kind", "data_issue_codes",
+        "z_yoy", "review_path", "span_kind", "data_issue_codes", "balance_point_f", "effective_ua_btu_h_f",
+        "ua_total", "expected_recoverable_kbtu", "expected_recoverable_cost", "_view", "_w_step",
+        "excess_heat_loss_kbtu", "excess_controls_kbtu", "excess_baseload_kbtu",
+        "sure_heat_loss", "sure_controls", "sure_baseload", "fit_method", "in_plan",
         *[c for c in out.columns if c.startswith("_f_")])
+    si = energy_unit == "kWh"
     e = energy_factor
-    codes_all, texts_all, verdicts = [], [], []
+    codes_all, texts_all, verdicts, kinds, mechs = [], [], [], [], []
     for r in rows.iter_rows(named=True):  # one row's dict at a time, not all of them at once
         codes, texts = [], []
 
@@ -303,34 +462,141 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
                 "into heating and baseload is less certain.")
         codes_all.append(codes)
         texts_all.append(texts)
+        ms = _supported(r, t)
+        mechs.append(ms)
+        kinds.append(_waste_kind(r, ms, t, si=si))
+        money = f"{currency}{_fmt(r['expected_recoverable_cost'])}" if r["expected_recoverable_cost"] else None
+        plan = (" It is in this quarter's audit plan for its expected savings." if r["in_plan"] and not r["needs_review"]
+                else " It is in this quarter's audit plan." if r["in_plan"] else
+                " Its expected savings are below the cost of a visit ([plan] audit_cost), so it is not planned."
+                if r["needs_review"] and r["tier"] in ("Watch", "No action") else
+                " Its expected savings are worth a visit after this quarter's plan." if r["tier"] == "Audit soon" else "")
         if r["blocking"]:
             v = ("A data problem (" + ", ".join(r["data_issue_codes"] or []) + ") must be fixed before this "
-                 "building can be judged.")
+                 "building can be judged; it takes no audit slot until then.")
         elif r["review_path"] == "step up":
             v = (f"Weather-normalized heating rose {_fmt(100 * r['yoy_change'])} % on the previous year, far beyond "
                  f"the portfolio's year-on-year spread (z {_fmt(r['z_yoy'], 1)} against {t['yoy_review_z']:g}); it is "
-                 f"now {_fmt(r['ratio'], 2)}× the expectation. Something changed: recommend an audit.")
+                 f"now {_fmt(r['ratio'], 2)}× the expectation. Something changed: recommend an audit"
+                 + (f" (expected recoverable about {money} a year)." if money else ".") + plan)
         elif r["needs_review"]:
-            v = (f"Heating is {_fmt(r['ratio'], 1)}× what this building should need and the evidence of excess "
+            v = (f"Heating is {_fmt(r['ratio'], 2)}× what this building should need and the evidence of excess "
                  f"is strong (score {_fmt(r['evidence_score'], 1)} against {t['review_score']:g}: peers "
                  f"{_fmt(r['z_score'], 1)}, balance point {_fmt(r['z_balance_point'], 1)}, intensity "
-                 f"{_fmt(r['z_intensity'], 1)}): recommend an audit.")
-        elif r["tier"] == "Watch":
-            v = "Some signs of excess heating, not yet strong enough for an audit; watch next quarter."
+                 f"{_fmt(r['z_intensity'], 1)}): recommend an audit"
+                 + (f" (expected recoverable about {money} a year)." if money else ".") + plan)
         elif r["ratio"] is None:
             v = "No verdict: metered or expected heating is missing."
         else:
-            v = f"Heating is in line with expectation ({_fmt(r['ratio'], 2)}× expected) and with its peers."
+            v = _not_listed(r, t, money, plan)
         verdicts.append(v)
     return out.with_columns(
         pl.Series("flag_codes", codes_all, dtype=pl.List(pl.String)),
         pl.Series("flag_texts", texts_all, dtype=pl.List(pl.String)),
         pl.Series("verdict", verdicts, dtype=pl.String),
+        pl.Series("waste_kind", kinds, dtype=pl.String),
+        pl.Series("mechanisms", mechs, dtype=pl.List(pl.String)),
     )
 
 
-def next_steps(flag_codes: list[str], data_issue_codes: list[str], *, slope_vs_envelope: float | None) -> list[str]:
-    """Plain-language checks tied to the flags (printed on the sheet)."""
+MECHANISM_CHECKS = {
+    "heat loss": "check outdoor air and dampers, the envelope and air leakage, and the plant's efficiency",
+    "controls": "check setpoints, schedules and setbacks, heating in warm weather, and simultaneous heating "
+                "and cooling",
+    "baseload": "check hot water, recirculation and leaks",
+}
+
+
+def _supported(r: dict, t: dict) -> list[str]:
+    """Mechanisms whose own evidence is sure enough (≥ mechanism_support), largest expected excess first."""
+    if r["blocking"]:
+        return []
+    cand = []
+    for name, col in (("heat loss", "heat_loss"), ("controls", "controls"), ("baseload", "baseload")):
+        w, x = r[f"sure_{col}"], r[f"excess_{col}_kbtu"]
+        if w is not None and x is not None and x > 0 and w >= t["mechanism_support"]:
+            cand.append((w * x, name))
+    return [n for _, n in sorted(cand, reverse=True)]
+
+
+def _waste_kind(r: dict, ms: list[str], t: dict, *, si: bool) -> str:
+    """One plain sentence: which mechanism(s) the bills support, and what to check (advice only for those)."""
+    if r["blocking"]:
+        return "Fix the data first; the bills cannot point to a kind of waste until then."
+    parts = []
+    for m in ms:
+        if m == "heat loss":
+            ratio = r["effective_ua_btu_h_f"] / r["ua_total"] if r["ua_total"] else None
+            parts.append(f"heat loss (the heating slope implies {_fmt(ratio, 1)}× the envelope's heat-loss "
+                         f"coefficient): {MECHANISM_CHECKS[m]}")
+        elif m == "controls":
+            d = r["fitted_base_f"] - r["balance_point_f"]
+            tf = (r["fitted_base_f"] - 32) / 1.8 if si else r["fitted_base_f"]
+            unit, du = ("°C", d / 1.8) if si else ("°F", d)
+            parts.append(f"controls (heating starts at {_fmt(tf, 1)} {unit} outdoors, {_fmt(du, 1)} {unit} "
+                         f"above the engineering balance point): {MECHANISM_CHECKS[m]}")
+        else:
+            parts.append(f"non-heating use of the heating fuel ({_fmt(100 * r['baseload_share'])} % of it, "
+                         f"about {_fmt(100 * r['baseload_share_default'])} % is typical): {MECHANISM_CHECKS[m]}")
+    step = r["_view"] == "step up" and (r["_w_step"] or 0) >= t["mechanism_support"] \
+        and (r["yoy_change"] or 0) >= t["yoy_rise"]
+    lead = (f"Heating rose {_fmt(100 * r['yoy_change'])} % on last year: ask what changed (equipment, "
+            "schedules, a failed component)") if step else ""
+    if parts and r["tier"] == "No action":
+        return ("Expected savings too small for a visit; the bills point to " + "; and to ".join(parts)
+                + ", at the next routine visit.")
+    if parts:
+        body = "Likely " + "; and ".join(parts)
+        return (lead + ". " + body + ".") if lead else body + "."
+    if lead:
+        return lead + "; the bills do not show which part of the heating rose."
+    if r["_f_poor_fit"] and (r["ratio"] or 0) > 1:
+        return (f"Use does not follow the weather (R² {_fmt(r['r2'], 2)}): these bills cannot size an excess; "
+                "check operation and meters first.")
+    if r["tier"] not in ("No action",) and (r["expected_recoverable_kbtu"] or 0) > 0:
+        if r["fit_method"] != "regression":
+            return "Heating above what its peers' bills suggest; annual bills cannot show which part is in excess."
+        return "Heating above what its peers' bills suggest; no single mechanism stands out in the bills."
+    return "No excess worth a visit."
+
+
+def _not_listed(r: dict, t: dict, money: str | None, plan: str) -> str:
+    """The verdict of a building without strong evidence: where it stands, its expected savings and, when
+    they are large, why it is not on the audit list (needs_review)."""
+    ratio = r["ratio"]
+    why = []
+    if r["fit_method"] == "regression" and r["r2"] is not None and r["r2"] < t["r2_min"]:
+        why.append(f"its use follows the weather poorly (R² {_fmt(r['r2'], 2)} against {t['r2_min']:g}), "
+                   "so its level is no basis for a verdict: check operation and meters")
+    elif r["_view"] == "step up":
+        why.append(f"its rise on last year ({_fmt(100 * r['yoy_change'])} %, z {_fmt(r['z_yoy'], 1)}) is below "
+                   f"{_fmt(100 * t['yoy_review'])} % at z {t['yoy_review_z']:g}")
+    elif ratio < t["min_excess_ratio"]:
+        why.append(f"its heating is not above the model's central expectation ({_fmt(ratio, 2)}×)")
+    else:
+        why.append(f"buildings like it spread this widely (evidence score {_fmt(r['evidence_score'], 1)} "
+                   f"against {t['review_score']:g})")
+    if r["tier"] == "No action" or not money:
+        if ratio < 1 and r["actual_heating_kbtu"] < r["_band_low"]:
+            return f"Heating is below expectation ({_fmt(ratio, 2)}× expected): no sign of excess."
+        if ratio < t["min_excess_ratio"] or not r["_f_above_band"] and not r["_f_poor_fit"]:
+            return (f"Heating is in line with expectation ({_fmt(ratio, 2)}× expected) and with its peers; "
+                    "no excess worth a visit.")
+        return (f"Heating is {_fmt(ratio, 2)}× the expectation, but no excess can be counted on: "
+                + "; ".join(why) + ".")
+    basis = (f"; it rose {_fmt(100 * r['yoy_change'])} % on last year" if r["_view"] == "step up"
+             else "; its peers' bills put it above what buildings like it use" if ratio < 1 else "")
+    return (f"Heating is {_fmt(ratio, 2)}× the model's expectation{basis}: expected recoverable about {money} a "
+            "year. The evidence is not strong enough for the audit list: " + "; ".join(why) + "." + plan)
+
+
+def next_steps(flag_codes: list[str], data_issue_codes: list[str], *, slope_vs_envelope: float | None = None,
+               mechanisms: list[str] | None = None, blocking: bool = False) -> list[str]:
+    """Plain-language checks (printed on the sheet): a mechanism's checks only where its own evidence
+    supports it (``mechanisms``, from the screen's ``mechanisms`` column); none while a data problem blocks.
+
+    ``slope_vs_envelope`` is kept for callers of the earlier signature; it no longer adds advice.
+    """
     steps = []
     # the last days of the window filled from the fit need no correction, only the next bill
     fix = sorted(set(data_issue_codes) - {"end_days_filled"})
@@ -340,15 +606,10 @@ def next_steps(flag_codes: list[str], data_issue_codes: list[str], *, slope_vs_e
     if "end_days_filled" in data_issue_codes:
         steps.append("The last days of the window had no reading yet and were filled from the building's "
                      "weather fit: the next run uses the bill once it is read.")
-    if "high_balance_point" in flag_codes:
-        steps.append("Check controls and setpoints: heating schedules, night and weekend setbacks, "
-                     "thermostat settings, simultaneous heating and cooling.")
-    if slope_vs_envelope is not None and slope_vs_envelope > 1.5 or "above_band" in flag_codes:
-        steps.append("Check the envelope and air leakage: a heating slope well above what the envelope "
-                     "explains points to air leaks, open dampers or missing insulation "
-                     "(combustion-safety testing before any air sealing).")
-    if "high_baseload" in flag_codes:
-        steps.append("Check hot water and process loads: recirculation, leaks, reheat, kitchen or laundry use.")
+    if blocking:
+        return steps
+    for m in mechanisms or []:
+        steps.append(f"{m[0].upper()}{m[1:]}: {MECHANISM_CHECKS[m]}.")
     if "poor_fit" in flag_codes:
         steps.append("Check operation and meters: irregular occupancy, manual controls, estimated or "
                      "mis-assigned readings.")

@@ -106,13 +106,16 @@ def test_summary_names_the_run(fixture_run):
 def test_ranking_order_is_the_documented_one(fixture_run):
     _, out, _, _ = fixture_run
     rk = _ranking(out)
-    tiers = ["Fix data first", "Audit first", "Audit soon", "Watch", "No action"]
+    tiers = ["Audit first", "Audit soon", "Watch", "No action", "Fix data first"]
     pos = rk["tier"].map_elements(tiers.index, return_dtype=pl.Int64).to_list()
-    assert pos == sorted(pos)                                    # tiers in order
-    for t in rk["tier"].unique():                                # within a tier: excess cost, largest first
-        cost = rk.filter(pl.col("tier") == t)["excess_cost"].fill_null(-1).to_list()
-        assert cost == sorted(cost, reverse=True)
-    assert (rk.filter(pl.col("needs_review"))["tier"].is_in(["Audit first", "Audit soon"])).all()
+    assert pos == sorted(pos)                                    # tiers are plain groups along the order
+    judged = rk.filter(pl.col("tier") != "Fix data first")       # first: by expected recoverable cost
+    cost = judged["expected_recoverable_cost"].fill_null(0).to_list()
+    assert cost == sorted(cost, reverse=True)
+    assert judged["rank"].to_list() == list(range(1, judged.height + 1))   # data problems come after
+    # an audit tier holds only buildings worth a visit (default audit cost 2,000)
+    assert (rk.filter(pl.col("tier").is_in(["Audit first", "Audit soon"]))["expected_recoverable_cost"] >= 2000).all()
+    assert rk.filter(pl.col("tier") == "Audit first").height <= 10          # [plan] audits_per_quarter
 
 
 def test_expected_and_metered_match_the_degree_day_method(fixture_run):

@@ -13,8 +13,11 @@ Two kinds of waste are measured on the same portfolio (same buildings, weather a
 * **persistent**: the waste holds over the whole three-year record (the simulator's default). The
   tool does not reach the issue's target (recall >= 90 % with false alarms <= 5 %) here; README
   "How the audit list is chosen" explains why. The asserts are the measured figures on this seed
-  rounded down to a floor that a regression would break: measured recall 15/36 = 42 % (floor
+  rounded down to a floor that a regression would break: measured recall 16/36 = 44 % (floor
   35 %), false alarms 4/246 = 1.6 % (ceiling 5 %, the issue's target).
+* **the audit order** (issue 14): capture@10 %, the share of the true recoverable excess (the
+  simulator's ``excess_window``) held by the first 10 % of ``rank``: measured 0.80 (persistent) and
+  0.86 (onset) on this seed, oracle 0.99.
 * **onset**: each wasteful building starts wasting on a day between 2025-04-01 and 2025-10-01, in
   the six months before the window (a fault that develops). The building is then its own
   baseline: measured recall 34/36 = 94 %, false alarms 4/246 = 1.6 %; the asserts are the issue's
@@ -49,12 +52,13 @@ def _simulator():
 
 
 ONSET = (dt.date(2025, 4, 1), dt.date(2025, 10, 1))  # waste begins in the six months before the window
+WINDOW = (dt.date(2025, 10, 1), dt.date(2026, 9, 30))  # the analysis window of as_of 2026-10-15
 
 
 def _screen(tmp: Path, waste_onset=None) -> pl.DataFrame:
     sim = _simulator()
     frames = sim.simulate_portfolio(N, seed=SEED, start=dt.date(2023, 10, 1), years=3, fault_rates=FAULTS,
-                                    waste_onset=waste_onset)
+                                    waste_onset=waste_onset, excess_window=WINDOW)
     paths = sim.write_portfolio(frames, tmp / "in")
     overrides = {"inputs": {"buildings": str(paths["buildings"]), "readings": str(paths["readings"]),
                             "weather": str(paths["weather"])},
@@ -64,7 +68,8 @@ def _screen(tmp: Path, waste_onset=None) -> pl.DataFrame:
     runner.run(overrides=overrides, out_dir=str(tmp / "out"), force=True, quiet=True)
     ranking = pl.read_csv(tmp / "out" / "ranking.csv", infer_schema_length=None)
     truth = pl.read_csv(paths["truth"])
-    return ranking.join(truth.select("building_id", "truth_label", "waste_factor"), on="building_id", how="inner")
+    return ranking.join(truth.select("building_id", "truth_label", "waste_factor", "excess_kbtu"), on="building_id",
+                        how="inner")
 
 
 @pytest.fixture(scope="module")
@@ -104,7 +109,7 @@ def _measure(screened: pl.DataFrame, what: str) -> tuple[pl.DataFrame, float, fl
 def test_recall_and_false_alarms(screened):
     _, recall, false_alarm = _measure(screened, "persistent waste")
     assert false_alarm <= 0.05       # the issue's target (issue 6)
-    assert recall >= 0.35            # measured floor (42 % on this seed); the issue's 90 % is not met
+    assert recall >= 0.35            # measured floor (44 % on this seed); the issue's 60 % is not met
 
 
 def test_flagged_buildings_carry_more_waste(screened):
@@ -154,3 +159,33 @@ def test_data_faults_stay_out_of_the_audit_list_with_onsets(screened_onset):
     unit = df.filter(pl.col("truth_label") == "unit_error")
     assert unit.height >= 5 and not unit["_review"].any()   # a unit error is a big "rise", never waste
     assert df.filter(pl.col("truth_label") == "missing_months")["_review"].mean() <= 0.2
+
+
+def _capture(df: pl.DataFrame, what: str) -> tuple[float, float]:
+    """capture@10 %: the share of the true recoverable excess held by the first 10 % of rank; and the oracle's."""
+    k = round(0.1 * df.height)
+    total = df["excess_kbtu"].sum()
+    tool = df.sort("rank").head(k)["excess_kbtu"].sum() / total
+    oracle = df.sort("excess_kbtu", descending=True).head(k)["excess_kbtu"].sum() / total
+    print(f"seed {SEED}, N {N}, {what}: capture@10 % {tool:.3f} (oracle {oracle:.3f})")
+    return tool, oracle
+
+
+def test_the_audit_order_holds_most_of_the_recoverable_excess(screened, screened_onset):
+    # issue 14: the first 10 % of rank should hold >= 85 % of the true recoverable excess. Measured on this
+    # held-out seed: 0.80 (persistent) and 0.86 (onset), oracle 0.99; main before issue 14: 0.38 and 0.49.
+    # The persistent floor is the measured figure rounded down (the target is not met, README says why).
+    tool, oracle = _capture(screened, "persistent waste")
+    assert oracle > 0.95 and tool >= 0.75
+    tool, oracle = _capture(screened_onset, "waste with onset")
+    assert tool >= 0.85                 # the issue's target
+
+
+def test_a_data_fault_never_takes_an_audit_slot(screened, screened_onset):
+    for df in (screened, screened_onset):
+        faults = df.filter(pl.col("truth_label").is_in(["unit_error", "missing_months"]))
+        blocked = faults.filter(pl.col("tier") == "Fix data first")
+        judged = df.filter(pl.col("tier") != "Fix data first")
+        # every building whose data block a verdict is ranked after every building that can be judged
+        assert blocked.height == 0 or blocked["rank"].min() > judged["rank"].max()
+        assert not df.filter(pl.col("truth_label") == "unit_error")["tier"].is_in(["Audit first", "Audit soon"]).any()

@@ -119,7 +119,9 @@ def known_sheet() -> dict:
     s = make_sheet(0)
     s.update({"building_id": "B-KNOWN", "name": "Kestrel Row Depot", "actual_heating": 1234567.8,
               "expected_heating": 867000.4, "ratio": 1.4234, "excess_energy": 367567.4, "excess_cost": 12345.6,
-              "excess_co2e_kg": 25400.0, "heating_intensity": 7.412, "peer_median_intensity": 5.55})
+              "excess_co2e_kg": 25400.0, "heating_intensity": 7.412, "peer_median_intensity": 5.55,
+              "expected_recoverable_cost": 9876.7, "expected_recoverable_co2e_kg": 18300.0,
+              "waste_kind": "Likely heat loss: check outdoor air and dampers.", "evidence_scale": "peers"})
     return s
 
 
@@ -175,7 +177,9 @@ def test_overflowing_sheet_was_shrunk_not_split(tmp_path, monkeypatch):
 def test_key_numbers_in_text(rendered):
     text = PdfReader(rendered["paths"][0]).pages[0].extract_text()
     # expected strings by hand from the fixture values and the documented formats
-    for s in ["Kestrel Row Depot", "B-KNOWN", "1,234,568", "867,000", "1.42", "367,567", "$12,346", "25.4",
+    # (the sheet's emissions figure is the expected recoverable one: 18,300 kg = 18.3 t)
+    for s in ["Kestrel Row Depot", "B-KNOWN", "1,234,568", "867,000", "1.42", "367,567", "$12,346", "$9,877",
+              "18.3", "Likely heat loss", "its peers' spread",
               "7.41", "5.55", "screening estimate", "combustion",
               "minimum indoor temperatures", "licensed"]:
         assert s in text, s

@@ -392,3 +392,22 @@ def test_bad_arguments_are_refused_with_clear_messages(kw, msg):
     n = args.pop("n_buildings")
     with pytest.raises(ValueError, match=msg):
         sim.simulate_portfolio(n, **args)
+
+
+def test_excess_window_adds_the_true_excess_and_changes_nothing_else():
+    kw = dict(seed=21, start=START, years=2, annual_share=0.0, fault_rates={"wasteful": 0.25})
+    plain = sim.simulate_portfolio(40, **kw)
+    win = (date(2024, 10, 1), date(2025, 9, 30))
+    with_ex = sim.simulate_portfolio(40, excess_window=win, **kw)
+    for k in plain:   # no extra random draws: every existing output is the same
+        assert plain[k].equals(with_ex[k].select(plain[k].columns)), k
+    t = with_ex["truth"]
+    assert (t.filter(pl.col("truth_label") != "wasteful")["excess_kbtu"] == 0).all()
+    w = t.filter(pl.col("truth_label") == "wasteful")
+    # the fault adds (factor - 1)/factor of space heat; space heat is at most the fuel's whole use,
+    # so the excess is positive and below that share of the year's heating fuel (by construction)
+    share = w["excess_kbtu"] / w["annual_heating_fuel_kbtu"]
+    assert (share > 0).all()
+    assert (share <= (1 - 1 / w["waste_factor"]) * 1.05).all()
+    with pytest.raises(ValueError):
+        sim.simulate_portfolio(5, excess_window=(date(2020, 1, 1), date(2021, 1, 1)), **kw)
