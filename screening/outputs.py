@@ -126,7 +126,7 @@ RANKING_COLUMNS = [
     "nmbe", "n_periods", "fit_method", "effective_ua", "ua_walls", "ua_windows", "ua_roof", "ua_ground",
     "ua_infiltration", "ua_ventilation", "ua_total", "envelope_source", "excess_energy", "excess_cost",
     "excess_co2e", "expected_recoverable_energy", "expected_recoverable_cost", "expected_recoverable_co2e",
-    "excess_heat_loss", "sure_heat_loss", "excess_controls", "sure_controls", "excess_baseload", "sure_baseload",
+    *[c for m in screen.MECHANISMS for c in (f"excess_{m}", f"excess_{m}_cost", f"excess_{m}_co2e", f"sure_{m}")],
     "evidence_scale", "peer_weight", "waste_kind", "tier", "needs_review", "review_path", "flags", "data_issues",
     "change", "previous_rank", "energy_unit",
 ]
@@ -170,8 +170,10 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
         d.energy(pl.col("expected_recoverable_kbtu")).round(1).alias("expected_recoverable_energy"),
         pl.col("expected_recoverable_cost").round(2),
         pl.col("expected_recoverable_co2e_kg").round(1).alias("expected_recoverable_co2e"),
-        *[e for m in ("heat_loss", "controls", "baseload")
-          for e in (d.energy(pl.col(f"excess_{m}_kbtu")).round(1).alias(f"excess_{m}"), pl.col(f"sure_{m}").round(3))],
+        *[e for m in screen.MECHANISMS
+          for e in (d.energy(pl.col(f"excess_{m}_kbtu")).round(1).alias(f"excess_{m}"),
+                    pl.col(f"excess_{m}_cost").round(2), pl.col(f"excess_{m}_co2e_kg").round(1).alias(f"excess_{m}_co2e"),
+                    pl.col(f"sure_{m}").round(3))],
         "evidence_scale", pl.col("peer_weight").round(3), "waste_kind",
         "tier", "needs_review", "review_path",
         pl.col("flag_codes").list.join(";").alias("flags"),

@@ -211,7 +211,11 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
         .otherwise(None).alias("_view"))
     return out.with_columns(
         (pl.col("expected_recoverable_kbtu") * pl.col("usd_per_kbtu")).alias("expected_recoverable_cost"),
-        (pl.col("expected_recoverable_kbtu") * pl.col("kg_co2e_per_kbtu")).alias("expected_recoverable_co2e_kg"))
+        (pl.col("expected_recoverable_kbtu") * pl.col("kg_co2e_per_kbtu")).alias("expected_recoverable_co2e_kg"),
+        # each mechanism's excess in money and CO2e (the building's price and emission factor per kBtu)
+        *[e for m in MECHANISMS for e in (
+            (pl.col(f"excess_{m}_kbtu") * pl.col("usd_per_kbtu")).alias(f"excess_{m}_cost"),
+            (pl.col(f"excess_{m}_kbtu") * pl.col("kg_co2e_per_kbtu")).alias(f"excess_{m}_co2e_kg"))])
 
 
 def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_unit: str,
@@ -499,6 +503,9 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
     )
 
 
+#: the mechanisms the bills can show, as column stems (``excess_<m>_kbtu``, ``sure_<m>``, ...)
+MECHANISMS = ("heat_loss", "controls", "baseload")
+
 MECHANISM_CHECKS = {
     "heat loss": "check outdoor air and dampers, the envelope and air leakage, and the plant's efficiency",
     "controls": "check setpoints, schedules and setbacks, heating in warm weather, and simultaneous heating "
@@ -512,7 +519,8 @@ def _supported(r: dict, t: dict) -> list[str]:
     if r["blocking"]:
         return []
     cand = []
-    for name, col in (("heat loss", "heat_loss"), ("controls", "controls"), ("baseload", "baseload")):
+    for col in MECHANISMS:
+        name = col.replace("_", " ")
         w, x = r[f"sure_{col}"], r[f"excess_{col}_kbtu"]
         if w is not None and x is not None and x > 0 and w >= t["mechanism_support"]:
             cand.append((w * x, name))

@@ -84,6 +84,15 @@ def test_two_buildings_one_doubled(tmp_path):
     # the sentence names a mechanism only where its own evidence supports it: the doubled slope
     assert "heat loss" in rows["S1"]["waste_kind"] and "outdoor air" in rows["S1"]["waste_kind"]
     assert "check" not in rows["S2"]["waste_kind"]
+    # each mechanism's excess in money and CO2e at the building's own price and factor per unit of energy,
+    # the same as the expected recoverable figures' (by hand: cost / energy is one price)
+    r = rows["S1"]
+    price = r["expected_recoverable_cost"] / r["expected_recoverable_energy"]
+    co2 = r["expected_recoverable_co2e"] / r["expected_recoverable_energy"]
+    assert r["excess_heat_loss"] > 0
+    for m in ("heat_loss", "controls", "baseload"):
+        assert r[f"excess_{m}_cost"] == pytest.approx(r[f"excess_{m}"] * price, rel=1e-3, abs=0.01), m
+        assert r[f"excess_{m}_co2e"] == pytest.approx(r[f"excess_{m}"] * co2, rel=1e-3, abs=0.1), m
 
 
 def test_seven_buildings_two_wasteful(tmp_path):
