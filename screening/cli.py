@@ -241,7 +241,7 @@ def degree_days(
         raise
     except ValueError as exc:
         typer.echo(f"ddscreen: error: {exc}", err=True)
-        raise typer.Exit(EXIT_BAD_INPUT)
+        raise typer.Exit(EXIT_BAD_INPUT) from None
     except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     for n in notices:

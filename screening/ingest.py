@@ -409,7 +409,6 @@ def _midnight_ends(raw: pl.DataFrame, typed: pl.DataFrame, label: str) -> tuple[
     k = k.join(per.select(*on, "_exclusive"), on=on, how="left", maintain_order="left")
     move = (k["_e_st"] & k["_exclusive"]).fill_null(False)
     n_move, n_keep = int(move.sum()), n_e - int(move.sum())
-    example = raw["period_end"].filter(e_st)[0].strip()
     typed = typed.with_columns(pl.when(move).then(pl.col("period_end") - pl.duration(days=1))
                                .otherwise(pl.col("period_end")).alias("period_end"))
     if n_move:
