@@ -40,16 +40,19 @@ def _main(version: Annotated[Optional[bool], typer.Option("--version", callback=
     """Screen a portfolio of buildings for excess heating use (degree-day method)."""
 
 
+class _StderrHandler(logging.StreamHandler):
+    """The console handler :func:`_log_to_stderr` installs (and replaces on its next call)."""
+
+
 def _log_to_stderr(quiet: bool, verbose: bool) -> None:
     level = logging.ERROR if quiet else (logging.DEBUG if verbose else logging.INFO)
     log.setLevel(logging.DEBUG)
-    for h in list(log.handlers):
-        if getattr(h, "_ddscreen_stderr", False):
-            log.removeHandler(h)
-    h = logging.StreamHandler(sys.stderr)
+    for old in list(log.handlers):
+        if isinstance(old, _StderrHandler):
+            log.removeHandler(old)
+    h = _StderrHandler(sys.stderr)
     h.setLevel(level)
     h.setFormatter(logging.Formatter("ddscreen: %(message)s"))
-    h._ddscreen_stderr = True
     log.addHandler(h)
 
 
@@ -241,7 +244,7 @@ def degree_days(
         raise
     except ValueError as exc:
         typer.echo(f"ddscreen: error: {exc}", err=True)
-        raise typer.Exit(EXIT_BAD_INPUT)
+        raise typer.Exit(EXIT_BAD_INPUT) from None
     except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     for n in notices:

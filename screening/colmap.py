@@ -138,7 +138,7 @@ def missing_after(header: list[str], kind: str, mapping: dict[str, str]) -> list
 
 def best_kind(header: list[str]) -> tuple[str, list[tuple[str, str, str]], list[str]]:
     """The file kind a header fits best, with the suggested mapping and what is still missing."""
-    best = None
+    best: tuple[tuple[bool, float, int], str, list[tuple[str, str, str]], list[str]] | None = None
     for kind in ("readings", "buildings", "weather"):
         sug = suggest(header, kind)
         miss = missing_after(header, kind, {t: o for t, o, _ in sug})
@@ -146,6 +146,7 @@ def best_kind(header: list[str]) -> tuple[str, list[tuple[str, str, str]], list[
         score = (len(miss) == 0, found / len(REQUIRED[kind]), found)
         if best is None or score > best[0]:
             best = (score, kind, sug, miss)
+    assert best is not None  # the loop scored three kinds
     return best[1], best[2], best[3]
 
 

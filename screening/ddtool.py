@@ -193,7 +193,8 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
     unit = "F" if units == "IP" else "C"
 
     if not normal:
-        periods = _read_periods(periods_path, station) if by == "period" else None
+        # (by == "period" exactly when a periods file is given: checked above)
+        periods = _read_periods(periods_path, station) if periods_path is not None else None
         return degree_day_table(cube, station_ids=[station], by=by, date_from=d_from, date_to=d_to,
                                 periods=periods, kind=kind, base_f=base_f, unit=unit)
     return _normal_table(cube, station, by, d_from, d_to, kind, base_f, unit)
@@ -240,7 +241,7 @@ def _normal_table(cube, station, by, d_from, d_to, kind, base_f, unit) -> pl.Dat
     if by == "year":
         starts, ends = [date(y0, 1, 1)], [date(y1, 12, 31)]
         h, c = ny.hdd[0, :1], ny.cdd[0, :1]
-        days, months = [365], [None]
+        days, months = [365], [None]  # type: list[int], list[int | None]
     else:
         month_len = [31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31]
         starts = [date(y0, m, 1) for m in range(1, 13)]

@@ -50,6 +50,7 @@ import mmap
 import warnings
 from dataclasses import dataclass, field
 from datetime import date as _date
+from typing import cast
 
 import numpy as np
 import polars as pl
@@ -571,7 +572,7 @@ class DegreeDayCube:
         days = days.with_columns(pl.lit(None, dtype=pl.Float64).alias(c) for c in ("t_min_f", "t_max_f", "t_mean_f"))
         layout = _layout(days)
         n_flat = int(layout["n_flat"])
-        width = int(h["k"].max()) if h.height else 24
+        width = cast(int, h["k"].max()) if h.height else 24
         width = max(width, 24)
         pos = h.join(days.with_columns(pl.Series("flat", layout["flat_index"])).select("station_id", "date", "flat"),
                      on=["station_id", "date"], how="left")

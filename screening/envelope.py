@@ -593,14 +593,14 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
     p_lo: dict[str, np.ndarray] = {}
     p_hi: dict[str, np.ndarray] = {}
     p_given: dict[str, np.ndarray] = {}
-    p_src: dict[str, np.ndarray] = {}
-    for pname, (tname, col, _unit) in PARAMETERS.items():
+    p_src: dict[str, pl.Series] = {}
+    for pname, (tname, gcol, _unit) in PARAMETERS.items():
         vals, codes, texts = defaults[pname]
         if tname == "efficiency_defaults":
             v, s = vals[fuel_idx, era_idx], codes[fuel_idx, era_idx]
         else:
             v, s = vals[era_idx, use_idx], codes[era_idx, use_idx]
-        g = given[col] if col is not None else np.full(n, np.nan)
+        g = given[gcol] if gcol is not None else np.full(n, np.nan)
         is_given = ~np.isnan(g)
         p_given[pname] = is_given
         p_val[pname] = np.where(is_given, g, v[:, 0])

@@ -25,8 +25,8 @@ FUELS = ("natural_gas", "fuel_oil", "propane", "electricity", "district_steam", 
 ID_PATTERN = r"^[A-Za-z0-9._-]{1,64}$"
 _KIND_DTYPE = {"id": pl.String, "text": pl.String, "choice": pl.String, "float": pl.Float64, "int": pl.Int64,
                "bool": pl.Boolean, "date": pl.Date}
-REJECT_SCHEMA = {"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
-                 "reason": pl.String}
+REJECT_SCHEMA = pl.Schema({"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
+                           "reason": pl.String})
 
 # Column specifications: (csv column, canonical name, kind, required, options).
 # kind: id | text | choice | float | int | bool | date ; "si" names the SI->IP conversion
@@ -409,7 +409,6 @@ def _midnight_ends(raw: pl.DataFrame, typed: pl.DataFrame, label: str) -> tuple[
     k = k.join(per.select(*on, "_exclusive"), on=on, how="left", maintain_order="left")
     move = (k["_e_st"] & k["_exclusive"]).fill_null(False)
     n_move, n_keep = int(move.sum()), n_e - int(move.sum())
-    example = raw["period_end"].filter(e_st)[0].strip()
     typed = typed.with_columns(pl.when(move).then(pl.col("period_end") - pl.duration(days=1))
                                .otherwise(pl.col("period_end")).alias("period_end"))
     if n_move:

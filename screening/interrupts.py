@@ -29,7 +29,9 @@ import os
 import signal
 import threading
 import time
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
+from types import FrameType
+from typing import Any
 
 from .errors import Interrupted
 
@@ -59,7 +61,7 @@ def stop_on_signals(*, ignore_after: bool = False) -> Iterator[None]:
         yield
         return
     outer = _depth == 0
-    old: dict[int, object] = {}
+    old: dict[signal.Signals, Callable[[int, FrameType | None], Any] | int | None] = {}
     if outer:
         for s in SIGNALS:
             old[s] = signal.getsignal(s)

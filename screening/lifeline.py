@@ -29,6 +29,7 @@ import os
 import signal
 import sys
 import threading
+from types import FrameType
 
 PR_SET_PDEATHSIG = 1  # <linux/prctl.h>
 
@@ -69,7 +70,7 @@ def watch_parent() -> bool:
 def _in_fork_server() -> bool:
     from multiprocessing import forkserver
     code = forkserver.main.__code__
-    f = sys._getframe(1)
+    f: FrameType | None = sys._getframe(1)
     while f is not None:
         if f.f_code is code:
             return True

@@ -24,8 +24,9 @@ reads of different meters apart when looking for overlaps.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from datetime import date, timedelta
+from typing import Any, cast
 
 import numpy as np
 import polars as pl
@@ -34,6 +35,10 @@ import polars.selectors as cs
 from . import refdata
 
 SPAN_KINDS = ("window", "shifted", "uncovered")
+
+#: degree days of the billing periods at every base: the (periods × bases) array, or a callable
+#: returning its rows for an index array (see :func:`metered_heating`)
+PeriodHdd = np.ndarray | Callable[[np.ndarray], np.ndarray]
 
 #: issue codes and whether each blocks a verdict on the building
 ISSUE_CODES = {
@@ -45,12 +50,12 @@ ISSUE_CODES = {
 }
 # (a span other than the analysis window is a flag, ``shifted_span`` in screen.FLAG_TEXT, not a data issue)
 
-_SPAN_SCHEMA = {"building_id": pl.String, "span_start": pl.Date, "span_end": pl.Date,
-                "span_kind": pl.String, "coverage": pl.Float64, "span_days": pl.Int64,
-                "covered_days": pl.Int64, "filled_days": pl.Int64}
+_SPAN_SCHEMA = pl.Schema({"building_id": pl.String, "span_start": pl.Date, "span_end": pl.Date,
+                          "span_kind": pl.String, "coverage": pl.Float64, "span_days": pl.Int64,
+                          "covered_days": pl.Int64, "filled_days": pl.Int64})
 
-_ISSUE_SCHEMA = {"building_id": pl.String, "code": pl.String, "detail": pl.String,
-                 "blocking": pl.Boolean}
+_ISSUE_SCHEMA = pl.Schema({"building_id": pl.String, "code": pl.String, "detail": pl.String,
+                           "blocking": pl.Boolean})
 
 
 # --------------------------------------------------------------------------------------------
@@ -372,7 +377,7 @@ def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mont
     """
     _require(readings, "readings", ("building_id", "fuel", "period_start", "period_end"))
     _require(spans, "spans", ("building_id", "span_start", "span_end"))
-    kw = {"lookback_months": lookback_months, "min_coverage": min_coverage,
+    kw: dict[str, Any] = {"lookback_months": lookback_months, "min_coverage": min_coverage,
           "max_estimated_share": max_estimated_share}
     if spans.height <= block:
         return _reading_issues(readings, spans, **kw)
@@ -506,8 +511,8 @@ def missing_bills(readings: pl.DataFrame, window_start: date, window_end: date, 
         ``building_id, meter_id, gap_start, gap_end, days``, sorted by building_id, gap_start.
     """
     _require(readings, "readings", ("building_id", "period_start", "period_end"))
-    out_schema = {"building_id": pl.String, "meter_id": pl.String, "gap_start": pl.Date, "gap_end": pl.Date,
-                  "days": pl.Int64}
+    out_schema = pl.Schema({"building_id": pl.String, "meter_id": pl.String, "gap_start": pl.Date, "gap_end": pl.Date,
+                            "days": pl.Int64})
     ws, we = pl.lit(window_start), pl.lit(window_end)
     one = pl.duration(days=1)
     meter = (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
@@ -618,7 +623,7 @@ def pad_periods(periods: pl.DataFrame, period_hdd: np.ndarray,
     p = periods.with_row_index("_row").join(ids, on="building_id", how="inner").sort("_row")
     p = p.with_columns(pl.int_range(pl.len()).over("_bi").alias("_pi"))
     n_b, n_k = ids.height, hdd.shape[1]
-    n_p = max(int(p["_pi"].max()) + 1 if p.height else 0, 1)
+    n_p = max(cast(int, p["_pi"].max()) + 1 if p.height else 0, 1)
     bi, pi, row = p["_bi"].to_numpy(), p["_pi"].to_numpy(), p["_row"].to_numpy()
     days = np.zeros((n_b, n_p))
     use = np.zeros((n_b, n_p))
@@ -820,7 +825,7 @@ def _at_base(dd: np.ndarray, grid: np.ndarray, base: np.ndarray) -> np.ndarray:
     return np.where((base >= grid[0]) & (base <= grid[-1]), out, np.nan)
 
 
-def _fit_in_blocks(periods: pl.DataFrame, period_hdd: np.ndarray, building_ids: pl.Series, grid: np.ndarray, *,
+def _fit_in_blocks(periods: pl.DataFrame, period_hdd: PeriodHdd, building_ids: pl.Series, grid: np.ndarray, *,
                    block: int = 4096, **fit_kw) -> dict[str, np.ndarray]:
     """:func:`pad_periods` + :func:`fit_variable_base` over blocks of buildings.
 
@@ -842,7 +847,7 @@ def _fit_in_blocks(periods: pl.DataFrame, period_hdd: np.ndarray, building_ids: 
 
 
 def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.DataFrame, *,
-                    periods: pl.DataFrame, period_hdd: np.ndarray, span_hdd: np.ndarray,
+                    periods: pl.DataFrame, period_hdd: PeriodHdd, span_hdd: np.ndarray,
                     normal_hdd: np.ndarray, base_grid_f: np.ndarray, efficiency: np.ndarray,
                     engineering_base_f: np.ndarray, baseload_shares: pl.DataFrame | None = None,
                     method: str = "days", daily_weights: pl.DataFrame | None = None,

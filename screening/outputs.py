@@ -72,7 +72,7 @@ class Display:
 
 
 # Readable names of the envelope assumptions (screening.envelope.PARAMETERS and given-only inputs)
-ASSUMPTION_LABELS = {
+ASSUMPTION_LABELS: dict[str | None, str] = {  # looked up by a record's name, which may be missing
     "stories": "stories", "aspect_ratio": "plan aspect ratio", "floor_to_floor_ft": "floor-to-floor height",
     "window_fraction": "window-to-wall ratio", "wall_u_btu_h_ft2_f": "wall U-factor",
     "window_u_btu_h_ft2_f": "window U-factor", "roof_u_btu_h_ft2_f": "roof U-factor",

@@ -166,8 +166,9 @@ def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.dat
     # NaN and infinities are not serial dates (and cannot be cast to whole days)
     serial = pl.select(pl.when(serial.is_finite()).then(serial).otherwise(None)).to_series()
     serial_ok = serial.is_not_null() & (serial >= 20000) & (serial <= 80000) & (serial == serial.floor())
+    serial_days = pl.lit(serial.clip(20000, 80000).cast(pl.Int64))
     serial_date = pl.select(
-        pl.when(serial_ok).then(pl.lit(EXCEL_EPOCH) + pl.duration(days=serial.clip(20000, 80000).cast(pl.Int64)))
+        pl.when(serial_ok).then(pl.lit(EXCEL_EPOCH) + pl.duration(days=serial_days))
         .otherwise(None)).to_series().cast(pl.Date)
     value = pl.select(pl.coalesce(iso, slash, serial_date)).to_series()
     timed = t.str.contains(_STAMP).fill_null(False) & ~midnight

@@ -429,6 +429,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     periods = metered.fit_periods(conv, spans, lookback_months=a["lookback_months"])
     periods = periods.join(b.select("building_id", "station_id"), on="building_id", how="left",
                            maintain_order="left")
+    period_hdd: _PeriodHdd | np.ndarray
     if periods.height:
         period_hdd = _PeriodHdd(cube, periods)  # rows computed a block at a time, never all at once
         periods = periods.with_columns(
@@ -456,6 +457,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
                      maintain_order="left")
         base = np.where(np.isfinite(fb["fitted_base_f"].fill_null(np.nan).to_numpy()),
                         fb["fitted_base_f"].fill_null(np.nan).to_numpy(), fb["balance_point_f"].to_numpy())
+        assert isinstance(period_hdd, _PeriodHdd)  # set so above whenever there are periods
         periods = periods.with_columns(
             pl.Series("hdd_per_day_fit", period_hdd.at(nearest_base(grid, base)) / periods["days"].to_numpy()))
     hdd65 = cube.at_base(st, spans["span_start"], spans["span_end"], np.full(len(st), 65.0))[0]
@@ -558,10 +560,10 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     # no metered heating without heating-fuel readings, no expectation without weather: shown as n/a
     no_fuel = pl.col("data_issue_codes").list.set_intersection(["no_readings", "no_heating_fuel_readings"]) \
         .list.len() > 0
-    no_wx = pl.col("data_issue_codes").list.contains("no_weather_at_station")
+    no_weather = pl.col("data_issue_codes").list.contains("no_weather_at_station")
     frame = frame.with_columns(
         pl.when(no_fuel).then(None).otherwise(pl.col("actual_heating_kbtu")).alias("actual_heating_kbtu"),
-        *[pl.when(no_wx).then(None).otherwise(pl.col(c)).alias(c)
+        *[pl.when(no_weather).then(None).otherwise(pl.col(c)).alias(c)
           for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")])
     units_ip = cfg["analysis"]["units"] == "IP"
     results = screen.screen(frame, thr, plan=cfg["plan"], currency=cfg["prices"]["currency"], energy_factor=1.0 if units_ip else KBTU_TO_KWH,
@@ -594,7 +596,7 @@ def _no_building_screenable(conv: pl.DataFrame, n_readings: int, window, lookbac
     """No building has a heating-fuel reading on any day of its span: nothing can be screened."""
     ws, we = window
     if conv.height:
-        span = f"readings run from {conv['period_start'].min()} to {conv['period_end'].max()}"
+        span = f"readings run from {conv['period_start'].min()!s} to {conv['period_end'].max()!s}"
     elif n_readings:
         span = "no reading converts to energy (see rejects)"
     else:

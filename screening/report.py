@@ -38,7 +38,7 @@ import zlib
 from collections.abc import Iterable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeGuard
 from urllib.parse import unquote, urlsplit
 from urllib.request import url2pathname
 
@@ -192,7 +192,7 @@ def AssetFetcher(root: Path | None = None, *, fatal: bool = True):  # noqa: N802
 # number formatting (documented in DEVELOPERS.md "Rendering")
 
 
-def _finite(x) -> bool:
+def _finite(x: object) -> TypeGuard[float]:
     return x is not None and isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x)
 
 
@@ -270,10 +270,11 @@ MAX_LEVEL = len(_LIMITS) - 1
 
 _PART_NAMES = {"walls": "walls", "windows": "windows", "roof": "roof", "ground": "ground floor",
                "infiltration": "air leakage", "ventilation": "ventilation air"}
-_SPAN_NOTE = {"window": "", "shifted": "moved to the months the readings cover",
-              "uncovered": "readings do not cover the whole window"}
-_BAND_TEXT = {"below": "below the expected band", "within": "within the expected band",
-              "above": "above the expected band"}
+# looked up by a sheet record's field, which may be missing (None)
+_SPAN_NOTE: dict[str | None, str] = {"window": "", "shifted": "moved to the months the readings cover",
+                                     "uncovered": "readings do not cover the whole window"}
+_BAND_TEXT: dict[str | None, str] = {"below": "below the expected band", "within": "within the expected band",
+                                     "above": "above the expected band"}
 
 
 def _items(seq, n_items, n_chars):
@@ -322,8 +323,9 @@ def _share_cell(share: str) -> str:
     return share.rjust(4, _FIGURE_SPACE)
 
 
-_SCALE_TEXT = {"peers": "its peers' spread", "model band": "the model's own band (too few peers)",
-               "blend": "a blend of its peers' spread ({pct} %) and the model's own band"}
+_SCALE_TEXT: dict[str | None, str] = {"peers": "its peers' spread",
+                                      "model band": "the model's own band (too few peers)",
+                                      "blend": "a blend of its peers' spread ({pct} %) and the model's own band"}
 
 
 def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
@@ -624,6 +626,16 @@ def _atomic_write(data: bytes, target: Path) -> None:
 
 _REF = re.compile(rb"(\d+) 0 R\b")
 _NAME = re.compile(rb"/([^\s/\[\]()<>{}%]+)")
+
+
+def _ref_number(ref: bytes) -> int:
+    """The object number of an indirect reference such as ``b"12 0 R"``."""
+    m = _REF.match(ref)
+    if m is None:
+        raise ValueError(f"not an indirect reference: {ref[:40]!r}")
+    return int(m.group(1))
+
+
 _PRUNED = ("XObject", "Pattern", "Shading", "ExtGState")  # per-name resources a page may not use
 
 
@@ -674,8 +686,8 @@ class _PageSplitter:
 
         for index, target, title in self.picks:
             page = objs[page_numbers[index]]
-            res = objs[int(_REF.match(page["Resources"]).group(1))]
-            content = objs[int(_REF.match(page["Contents"]).group(1))]
+            res = objs[_ref_number(page["Resources"])]
+            content = objs[_ref_number(page["Contents"])]
             raws[content.number] = raw = _raw_stream(content)  # to read the resource names it uses
             used = {m.decode("latin-1") for m in _NAME.findall(raw)}
             new_res = pydyf.Dictionary({
@@ -723,7 +735,8 @@ def _pdf_file(objects: dict[int, bytes], *, root_n: int, info_n: int, xref_n: in
     offsets[xref_n] = pos
     index_ranges: list[int] = []
     rows = [b"\x00\x00\x00\x00\x00\xff\xff"]
-    start = prev = None
+    start: int | None = None
+    prev = 0
     for n in [0, *sorted(offsets)]:
         if start is None:
             start = prev = n
@@ -734,6 +747,7 @@ def _pdf_file(objects: dict[int, bytes], *, root_n: int, info_n: int, xref_n: in
             start = prev = n
         if n:
             rows.append(b"\x01" + offsets[n].to_bytes(4, "big") + b"\x00\x00")
+    assert start is not None  # the list starts with object 0, so the loop set it
     index_ranges += [start, prev - start + 1]
     xref = pydyf.Stream([b"".join(rows)], pydyf.Dictionary({
         "Type": "/XRef", "Size": xref_n + 1, "Index": pydyf.Array(index_ranges), "W": pydyf.Array([1, 4, 2]),
@@ -989,7 +1003,7 @@ def _main_not_reimported():
     if main is None:
         yield
         return
-    saved = {k: main.__dict__[k] for k in ("__file__", "__spec__") if k in main.__dict__}
+    saved: dict[str, Any] = {k: main.__dict__[k] for k in ("__file__", "__spec__") if k in main.__dict__}
     main.__dict__.pop("__file__", None)
     if "__spec__" in saved:
         main.__spec__ = None

@@ -21,6 +21,7 @@ import uuid
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any, TextIO
 
 import duckdb
 import polars as pl
@@ -73,7 +74,7 @@ class _Lock:
 
     def __init__(self, path: str):
         self.path = path
-        self.fh = None
+        self.fh: TextIO | None = None
 
     def __enter__(self):
         Path(self.path).parent.mkdir(parents=True, exist_ok=True)
@@ -96,6 +97,7 @@ class _Lock:
         return self
 
     def __exit__(self, *exc):
+        assert self.fh is not None  # opened by __enter__
         try:
             self.fh.seek(0)
             self.fh.truncate()
@@ -244,6 +246,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
     t_start = time.perf_counter()
     run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
     run_key = _run_key(label, cfg, files)  # the same for a rerun of the same quarter, inputs and settings
+    store: Store | None  # None while the database is closed for readers (the screening phase)
     store = _open_store(db_path)
     try:
         notes = _clean_stale_temp(target, None)
@@ -371,13 +374,14 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             pl.lit(cfg["prices"]["currency"]).alias("currency")).to_dicts()
         return RunResult(run_id, label, target, str(db_path), summary, top, loads)
     except BaseException as exc:
-        if isinstance(interrupts.as_interrupted(exc), Interrupted):  # SIGINT/SIGTERM: see _interrupted
-            raise _interrupted(interrupts.as_interrupted(exc), run_id, store, db_path, handler, tmp, target, timings,
+        stop = interrupts.as_interrupted(exc)
+        if isinstance(stop, Interrupted):  # SIGINT/SIGTERM: see _interrupted
+            raise _interrupted(stop, run_id, store, db_path, handler, tmp, target, timings,
                                publishing=publishing) from None
         mapped = isinstance(exc, (OSError, MemoryError))
         if isinstance(exc, MemoryError):
             exc = memory.ran_out(exc, need)
-        elif mapped:  # e.g. a full disk while writing the outputs
+        elif isinstance(exc, OSError):  # e.g. a full disk while writing the outputs
             exc = OutputError(f"{target}: cannot write the outputs ({exc.strerror or exc}); "
                               "earlier outputs are untouched")
         # an expected error is printed once by the CLI; the run log keeps the detail
@@ -1000,8 +1004,9 @@ def _infer_inputs(sources: list[str], cfg_path: Path, report: list[str]) -> tupl
             raise ConfigError(f"init --from: {inputs[kind]} and {file} both look like {kind} files; give one file "
                               "per kind (KIND=FILE to say which), and put a glob in the config for several")
         try:
-            rel = os.path.relpath(Path(split_sheet(file)[0]).resolve(), cfg_path.resolve().parent)
-            shown = rel + (("#" + split_sheet(file)[1]) if split_sheet(file)[1] else "")
+            book, sheet = split_sheet(file)
+            rel = os.path.relpath(Path(book).resolve(), cfg_path.resolve().parent)
+            shown = rel + (("#" + sheet) if sheet else "")
         except ValueError:
             shown = str(Path(file).resolve())
         inputs[kind] = shown
@@ -1025,7 +1030,7 @@ def _infer_number_format(sources: list[str], report: list[str]) -> tuple[dict, s
     from .csvread import _norm, read_header, read_table
     us = r"^[-+]?[$€£¥]?\s*\d{1,3}(,\d{3})+\.\d+\s*[$€£¥]?$"
     eu = r"^[-+]?[$€£¥]?\s*\d{1,3}(\.\d{3})*\.\d{3},\d+\s*[$€£¥]?$|^[-+]?[$€£¥]?\s*\d+,\d{1,2}\s*[$€£¥]?$"
-    seen = {"us": None, "eu": None}
+    seen: dict[str, tuple[Any, str, str] | None] = {"us": None, "eu": None}
     for src in sources:
         file = src.partition("=")[2] if "=" in src and src.partition("=")[0].strip().lower() in \
             ("buildings", "readings", "weather") else src

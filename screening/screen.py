@@ -432,8 +432,8 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         codes, texts = [], []
 
         def add(code: str, text: str) -> None:
-            codes.append(code)
-            texts.append(text)
+            codes.append(code)  # noqa: B023 - add() is called only within this row's iteration
+            texts.append(text)  # noqa: B023 - same
         if r["_f_above_band"]:
             add("above_band", f"Metered heating {_fmt(r['actual_heating_kbtu'] * e)} {energy_unit} is "
                 f"{_fmt(r['ratio'], 2)}× the expected {_fmt(r['expected_heating_kbtu'] * e)} {energy_unit}, "

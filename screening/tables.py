@@ -167,13 +167,14 @@ def _read_workbook(src, sheet, base_label, required, optional, columns) -> CsvTa
             beyond = [j for j in range(n, len(texts)) if texts[j] is not None]
             if beyond:
                 rejects.append({"file": label, "line": r, "column": _column_letter(beyond[0]),
-                                "value": texts[beyond[0]][:80],
+                                "value": (texts[beyond[0]] or "")[:80],
                                 "reason": f"a value in column {_column_letter(beyond[0])}, beyond the last named "
                                           f"column ({n} columns in the header row)"})
                 continue
             long = [j for j, t in enumerate(texts) if t is not None and len(t) > _CELL_TEXT]
             if long:
-                rejects.append({"file": label, "line": r, "column": header[long[0]], "value": texts[long[0]][:80],
+                rejects.append({"file": label, "line": r, "column": header[long[0]],
+                                "value": (texts[long[0]] or "")[:80],
                                 "reason": f"a field is longer than {MAX_FIELD_CHARS:,} characters"})
                 continue
             texts += [None] * (n - len(texts))

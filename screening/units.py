@@ -30,10 +30,14 @@ physical unit (energy-unit readings need no heat content) and wins over the argu
 from __future__ import annotations
 
 from collections.abc import Mapping
+from typing import TYPE_CHECKING
 
 import polars as pl
 
 from . import refdata
+
+if TYPE_CHECKING:
+    from polars.expr.whenthen import ChainedThen, Then
 
 #: fuels of the input contract, plus kerosene
 FUELS = ("natural_gas", "fuel_oil", "propane", "kerosene", "electricity",
@@ -41,7 +45,7 @@ FUELS = ("natural_gas", "fuel_oil", "propane", "kerosene", "electricity",
 
 READING_COLUMNS = ("building_id", "fuel", "period_start", "period_end", "quantity", "unit")
 
-_REJECT_SCHEMA = {"line": pl.Int64, "column": pl.String, "value": pl.String, "reason": pl.String}
+_REJECT_SCHEMA = pl.Schema({"line": pl.Int64, "column": pl.String, "value": pl.String, "reason": pl.String})
 
 
 def unit_table() -> pl.DataFrame:
@@ -195,10 +199,10 @@ def convert_to_kbtu(readings: pl.DataFrame, buildings: pl.DataFrame, *,
          pl.struct(column=pl.lit("period_end"), value=pl.col("period_end").cast(pl.String),
                    reason=pl.format("period_end before period_start {}", pl.col("period_start")))),
     ]
-    reason = pl.when(checks[0][0]).then(checks[0][1])
+    chain: Then | ChainedThen = pl.when(checks[0][0]).then(checks[0][1])
     for cond, rej in checks[1:]:
-        reason = reason.when(cond).then(rej)
-    reason = reason.otherwise(None)
+        chain = chain.when(cond).then(rej)
+    reason = chain.otherwise(None)
     r = r.with_columns(pl.col("quantity").cast(pl.Float64))
     # the reject texts are built for the rejected rows only (for every row they cost ~0.6 KB each)
     r = r.with_columns(pl.any_horizontal([c.fill_null(False) for c, _ in checks]).alias("_reject"))

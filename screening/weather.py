@@ -27,6 +27,7 @@ duplicates are kept once and reported in ``.notices``.
 from __future__ import annotations
 
 from pathlib import Path
+from typing import cast
 
 import polars as pl
 
@@ -37,8 +38,8 @@ from .errors import InputError
 __all__ = ["read_daily_weather", "read_hourly_weather", "read_mapped_daily", "WeatherRead",
            "REJECT_SCHEMA", "TEMP_UNITS"]
 
-REJECT_SCHEMA = {"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
-                 "reason": pl.String}
+REJECT_SCHEMA = pl.Schema({"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
+                           "reason": pl.String})
 #: Physical plausibility limits of a surface air temperature, per file unit (issue 3:
 #: "beyond ±140 °F / ±60 °C"; the recorded extremes are about 134 °F and −128.6 °F, from memory).
 _LIMITS = {"F": 140.0, "C": 60.0}
@@ -305,7 +306,7 @@ def read_daily_weather(path: str | Path, *, units: str = "IP", decimal_comma: bo
     if not has_pair and "t_mean" not in present:
         raise InputError(label, "no temperature columns", line=1,
                          expected="t_min and t_max, or t_mean")
-    temps = {c: unit for c in ("t_min", "t_max", "t_mean") if c in present}
+    temps: dict[str, str] = {c: unit for c in ("t_min", "t_max", "t_mean") if c in present}
     res = _finish_daily(table.df, label, "%Y-%m-%d", temps, table.rejects, notices)
     res.notices.extend(check_plausible(res[0], label, units=units, rejects=res[1]))
     return res
@@ -330,7 +331,8 @@ def _normalize_daily_text(df: pl.DataFrame, label: str, *, decimal_comma: bool,
         if notices is not None:
             notices.append(f"{label}: {int(stamps.sum())} date value(s) are timestamps at midnight (e.g. "
                            f"{example!r}); read as that day")
-    iso_share = float(df["date"].str.strip_chars().str.contains(r"^\d{4}-\d{2}-\d{2}$").fill_null(True).mean() or 1.0)
+    iso_hits = df["date"].str.strip_chars().str.contains(r"^\d{4}-\d{2}-\d{2}$").fill_null(True)
+    iso_share = float(cast("float | None", iso_hits.mean()) or 1.0)
     d = None
     if date_order is not None or iso_share < 0.5:
         # a file written in another date style; an ISO file with a few odd dates instead has
@@ -405,7 +407,7 @@ def read_mapped_daily(path: str | Path, mapping: dict, *, units: str = "IP", dat
     df = table.df.select(*[pl.col(s.strip().lower()).alias(col) for col, (s, _) in ours.items()], LINE_COL)
     if station_id is not None:
         df = df.with_columns(pl.lit(str(station_id)).alias("station_id"))
-    temps = {c: u for c, (_, u) in ours.items() if c.startswith("t_")}
+    temps = {c: u for c, (_, u) in ours.items() if c.startswith("t_") and u is not None}  # always set for t_
     notices = list(table.notices)
     notices.append(f"{label}: read with mapping " + ", ".join(
         f"{s}→{c}" + (f" [{u}]" if u else "") for c, (s, u) in ours.items()))

@@ -75,7 +75,10 @@ def write_ranking_xlsx(path: Path, *, ranking: pl.DataFrame, issues: pl.DataFram
             date_cols = {c: "yyyy-mm-dd" for c, t in df.schema.items() if t == pl.Date}
             df.write_excel(workbook=wb, worksheet=name, position="A1", autofilter=True, autofit=True,
                            freeze_panes=(1, 0), header_format=header, include_header=True,
-                           column_formats={**_formats(df, currency), **date_cols}, dtype_formats={},
+                           # ignore: polars types the keys as str | selector | tuple and a dict's key
+                           # type is invariant; str keys are what it reads
+                           column_formats={**_formats(df, currency), **date_cols},  # type: ignore[dict-item]
+                           dtype_formats={},
                            hide_gridlines=False)
     finally:
         wb.close()

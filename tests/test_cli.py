@@ -122,7 +122,7 @@ def test_expected_and_metered_match_the_degree_day_method(fixture_run):
     p, out, _, _ = fixture_run
     rk = _ranking(out)
     wx = daily_weather()
-    for bid, _, st, _, area, _, _, fuel, eta, ua, bal, waste in BUILDINGS:
+    for bid, _, st, _, _area, _, _, _fuel, eta, ua, bal, waste in BUILDINGS:
         row = rk.filter(pl.col("building_id") == bid).row(0, named=True)
         days, mean = wx[st]
         sel = (days >= np.datetime64("2024-01-01")) & (days <= np.datetime64("2024-12-31"))

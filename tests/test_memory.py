@@ -125,7 +125,7 @@ def test_union_coverage_counts_each_covered_day_once():
     sp = pl.DataFrame(spans, schema=["building_id", "_k", "span_start", "span_end"], orient="row")
     got = metered._union_coverage(r, sp, ["building_id", "_k"]).sort("building_id", "_k")
     want = []
-    for b, k, s, e in spans:
+    for b, _k, s, e in spans:
         days = set()
         for rb, ps, pe in rows:
             if rb == b:

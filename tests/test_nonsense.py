@@ -80,7 +80,7 @@ def test_a_config_file_with_an_impossible_value_exits_2_with_one_line(portfolio,
     res = cli(portfolio.args(tmp_path / "out", None, "--config", str(conf), "--no-sheets"))
     assert res.exit_code == 2
     lines = [x for x in res.stderr.splitlines() if x.strip()]
-    assert lines == [f"ddscreen: error: config key [analysis] seed: got -1; expected a whole number from 0 to "
+    assert lines == ["ddscreen: error: config key [analysis] seed: got -1; expected a whole number from 0 to "
                      "4,294,967,295"], res.stderr
     assert "ValueError" not in res.stderr and not (tmp_path / "out").exists()
 
