@@ -304,14 +304,16 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         ranking = outputs.ranking_table(res.results, disp, change)
         t = time.perf_counter()
         outputs.write_csv(ranking, tmp / "ranking.csv")
-        outputs.write_csv(outputs.audit_plan_table(res.results, disp), tmp / "audit_plan.csv")
+        plan = outputs.audit_plan_table(res.results, disp)
+        outputs.write_csv(plan, tmp / "audit_plan.csv")
         outputs.write_csv(rejects, tmp / "rejects.csv")
         outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
         assumptions = outputs.assumptions_table(res.envelope, disp)
         outputs.write_csv(assumptions, tmp / "assumptions.csv")
         from .xlsxout import write_ranking_xlsx
         write_ranking_xlsx(tmp / "ranking.xlsx", ranking=ranking, issues=res.issues.sort("building_id", "code"),
-                           rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"])
+                           rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"],
+                           plan=plan)
         timings["csv"] = round(time.perf_counter() - t, 4)
         summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev[0][1] if prev else None)
         paper = cfg["output"]["paper"]
