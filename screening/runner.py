@@ -319,6 +319,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         paper = cfg["output"]["paper"]
         paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
         from . import report
+        sheet_files: dict[str, str] | None = None   # building_id -> its sheet, relative to the folder
         if cfg["output"]["sheets"]:
             bar.stage("render sheets")
             t = time.perf_counter()
@@ -328,7 +329,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             names = report.assign_filenames([s["building_id"] for s in sheets])
             report.render_sheets(sheets, tmp / "sheets", paper=paper, workers=_workers(cfg["output"]["workers"]))
             timings["sheets"] = round(time.perf_counter() - t, 4)
-            outputs.write_csv(pl.DataFrame({"building_id": list(names), "file": [f"sheets/{v}.pdf" for v in names.values()]}),
+            sheet_files = {b: f"sheets/{v}.pdf" for b, v in names.items()}
+            outputs.write_csv(pl.DataFrame({"building_id": list(sheet_files), "file": list(sheet_files.values())}),
                               tmp / "sheets_index.csv")
         _stage("after_sheets")
         bar.stage("render ranking")
@@ -338,6 +340,10 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                                                      max_rows=cfg["output"]["ranking_pdf_rows"]),
                               tmp / "ranking.pdf", paper=paper)
         timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
+        from .webpage import write_index
+        write_index(tmp / "index.html", ranking=ranking, results=res.results, plan=plan, summary=summary, disp=disp,
+                    currency=cfg["prices"]["currency"],
+                    sheet_files=sheet_files)
         timings["total"] = round(time.perf_counter() - t_start, 4)
         summary["timings_s"] = timings
         outputs.write_json(_deterministic(summary), tmp / "summary.json")
@@ -687,7 +693,8 @@ def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: b
 # Every top-level name a run writes into its output folder (tests/test_unattended.py checks
 # that a run writes nothing else): the demo, which writes into a folder of its own choosing,
 # replaces only these, and only when they are what its previous run wrote.
-OUTPUT_NAMES = ("assumptions.csv", "audit_plan.csv", "data_issues.csv", "ranking.csv", "ranking.pdf", "ranking.xlsx",
+OUTPUT_NAMES = ("assumptions.csv", "audit_plan.csv", "data_issues.csv", "index.html", "ranking.csv", "ranking.pdf",
+                "ranking.xlsx",
                 "rejects.csv", "run.log",
                 "sheets", "sheets_index.csv", "summary.json")
 
