@@ -16,6 +16,7 @@ The same results give the same bytes (no clock, no random values in the page).
 from __future__ import annotations
 
 import json
+import math
 from pathlib import Path
 from typing import Any
 
@@ -58,8 +59,8 @@ def _env() -> jinja2.Environment:
 
 
 def _num(x) -> float | None:
-    return float(x) if isinstance(x, (int, float)) and not isinstance(x, bool) and x == x and abs(x) != float("inf") \
-        else None
+    """A finite number as float, else None (NaN, infinities, None, booleans)."""
+    return float(x) if isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x) else None
 
 
 def _kinds(mechanisms: list[str] | None, waste_kind: str | None) -> list[str]:

@@ -17,6 +17,7 @@ import shutil
 import subprocess
 from html.parser import HTMLParser
 from pathlib import Path
+from typing import ClassVar
 
 import polars as pl
 import pytest
@@ -42,7 +43,7 @@ HOSTILE = {
 # ---------------------------------------------------------------------------- helpers
 
 class Node:
-    def __init__(self, tag: str, attrs: dict[str, str | None], parent: "Node | None"):
+    def __init__(self, tag: str, attrs: dict[str, str | None], parent: Node | None):
         self.tag, self.attrs, self.parent, self.children, self.text_parts = tag, attrs, parent, [], []
 
     def text(self) -> str:
@@ -53,13 +54,13 @@ class Node:
         for c in self.children:
             yield from c.iter()
 
-    def find_all(self, tag: str | None = None, **attrs) -> list["Node"]:
+    def find_all(self, tag: str | None = None, **attrs) -> list[Node]:
         return [n for n in self.iter() if (tag is None or n.tag == tag)
                 and all(n.attrs.get(k.replace("_", "-")) == v for k, v in attrs.items())]
 
 
 class _Tree(HTMLParser):
-    VOID = {"meta", "img", "br", "input", "link", "hr", "col", "source", "area", "base", "wbr", "path", "rect",
+    VOID: ClassVar[set[str]] = {"meta", "img", "br", "input", "link", "hr", "col", "source", "area", "base", "wbr", "path", "rect",
             "line", "circle"}
 
     def __init__(self):
@@ -106,7 +107,7 @@ def load(page: Path, state: str = "", *, tmp: Path) -> tuple[Node, str, list[str
     proc = subprocess.run(
         [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run", "--disable-extensions",
          f"--user-data-dir={profile}", "--enable-logging=stderr", "--v=0", "--dump-dom", url],
-        capture_output=True, text=True, timeout=120)
+        capture_output=True, text=True, timeout=120, check=False)
     assert proc.returncode == 0, proc.stderr[-2000:]
     console = [ln for ln in proc.stderr.splitlines() if ":CONSOLE" in ln or "Uncaught" in ln]
     return parse(proc.stdout), proc.stdout, console
@@ -251,7 +252,7 @@ def test_every_link_resolves_to_a_file_in_the_output_folder(site):
 
 @needs_browser
 def test_hostile_names_appear_as_text_and_run_nothing(site):
-    dom, html, console = load(site["out"] / "index.html", "sort=name-asc", tmp=site["tmp"])
+    dom, _html, console = load(site["out"] / "index.html", "sort=name-asc", tmp=site["tmp"])
     assert console == [] and errors_of(dom) == ""
     assert "data-pwned" not in dom.find_all("html")[0].attrs                      # no payload ran
     assert not dom.find_all("img") and not any("onerror" in n.attrs or "onmouseover" in n.attrs
@@ -276,3 +277,25 @@ def test_a_script_error_is_seen_both_in_the_console_and_on_the_page(site, tmp_pa
     dom, _h, console = load(broken, tmp=site["tmp"])
     assert any("Uncaught" in ln for ln in console)
     assert errors_of(dom).startswith("Page error:")
+
+
+@needs_browser
+def test_clicking_a_column_title_and_choosing_a_tier_write_the_state_into_the_address(site, tmp_path):
+    """The page's own controls (not only a loaded address): a script added to a copy of the page clicks
+    the cost column's title, picks a tier, and writes the resulting address into the DOM."""
+    html = (site["out"] / "index.html").read_text(encoding="utf-8")
+    driver = ("<script>(function () {"
+              "document.querySelector('button[data-sort=cost]').click();"
+              "var t = document.getElementById('f-tier'); t.value = 'No action';"
+              "t.dispatchEvent(new Event('change'));"
+              "var o = document.createElement('pre'); o.id = 'test-out'; o.textContent = location.hash;"
+              "document.body.appendChild(o); })();</script>")
+    copy = tmp_path / "index.html"
+    copy.write_text(html.replace("</body>", driver + "</body>"), encoding="utf-8")
+    dom, _h, console = load(copy, tmp=site["tmp"])
+    assert console == [] and errors_of(dom) == ""
+    assert dom.find_all(id="test-out")[0].text() == "#sort=cost-desc&tier=No%20action"
+    rk = site["ranking"].with_columns(pl.col("expected_recoverable_cost").fill_nan(None))
+    want = rk.filter(pl.col("tier") == "No action").sort(["expected_recoverable_cost", "rank"],
+                                                         descending=[True, False], nulls_last=True)
+    assert [i for i, _ in table_rows(dom)] == want["building_id"].to_list()
