@@ -19,6 +19,7 @@ import json
 import math
 from pathlib import Path
 from typing import Any
+from urllib.parse import quote
 
 import jinja2
 import polars as pl
@@ -63,6 +64,11 @@ def _num(x) -> float | None:
     return float(x) if isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x) else None
 
 
+def _href(path: str | None) -> str | None:
+    """A relative file path as a URL path (sheet stems are already URL-safe; this keeps it so)."""
+    return None if path is None else quote(path, safe="/")
+
+
 def _kinds(mechanisms: list[str] | None, waste_kind: str | None) -> list[str]:
     if mechanisms:
         return list(mechanisms)
@@ -94,7 +100,7 @@ def page_data(ranking: pl.DataFrame, results: pl.DataFrame, sheet_files: dict[st
             "kind_text": ", ".join(kinds) or (NOT_TOLD_APART if (_num(r["expected_recoverable_cost"]) or 0) > 0 else ""),
             "why": r["waste_kind"] or "", "flags": (r["flags"] or "").replace(";", ", "),
             "issues": (r["data_issues"] or "").replace(";", ", "),
-            "sheet": (sheet_files or {}).get(r["building_id"]),
+            "sheet": _href((sheet_files or {}).get(r["building_id"])),
         })
     return {"rows": out, "tiers": [name for name, _m in screen.TIERS]}
 
@@ -111,7 +117,7 @@ def page_view(summary: dict[str, Any], plan: pl.DataFrame, results: pl.DataFrame
         "look_for": ", ".join(_kinds(p["mechanisms"], p["waste_kind"])) or NOT_TOLD_APART,
         "why": p["waste_kind"] or "", "strong": "yes" if p["needs_review"] else "no",
         "share": fmt_pct(p["cumulative_share"]) if p["cumulative_share"] is not None else "n/a",
-        "sheet": (sheet_files or {}).get(p["building_id"])}
+        "sheet": _href((sheet_files or {}).get(p["building_id"]))}
         for p in plan.join(results.select("building_id", "mechanisms"), on="building_id", how="left",
                            maintain_order="left").iter_rows(named=True)]
     return {
