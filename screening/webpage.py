@@ -34,6 +34,8 @@ from .resources import templates_dir
 STEP_UP_KIND = "what changed"
 #: … and when there is excess to recover but no mechanism stands out.
 NOT_TOLD_APART = "not told apart"
+#: The tiers whose buildings are worth a visit (screen.TIERS: the plan, then the ones after it).
+VISIT_TIERS = tuple(name for name, _m in screen.TIERS[:2])
 
 #: The link texts and files of the run's other outputs, shown at the top of the page.
 OTHER_OUTPUTS = (("ranking.pdf", "the portfolio report (PDF)"), ("ranking.xlsx", "the tables as a workbook"),
@@ -97,7 +99,8 @@ def page_data(ranking: pl.DataFrame, results: pl.DataFrame, sheet_files: dict[st
             "cost_text": fmt_money(r["expected_recoverable_cost"], currency),
             "excess": _num(r["excess_cost"]), "excess_text": fmt_money(r["excess_cost"], currency),
             "review": bool(r["needs_review"]), "kinds": kinds,
-            "kind_text": ", ".join(kinds) or (NOT_TOLD_APART if (_num(r["expected_recoverable_cost"]) or 0) > 0 else ""),
+            # "not told apart" only where a visit is due or the evidence is strong (as in the audit plan)
+            "kind_text": ", ".join(kinds) or (NOT_TOLD_APART if r["needs_review"] or r["tier"] in VISIT_TIERS else ""),
             "why": r["waste_kind"] or "", "flags": (r["flags"] or "").replace(";", ", "),
             "issues": (r["data_issues"] or "").replace(";", ", "),
             "sheet": _href((sheet_files or {}).get(r["building_id"])),

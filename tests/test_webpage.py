@@ -169,6 +169,13 @@ def test_every_run_writes_the_page_and_it_fetches_nothing(site):
     data = json.loads(data_text)
     assert [r["id"] for r in data["rows"]] == site["ranking"]["building_id"].to_list()
     assert {r["id"]: r["name"] for r in data["rows"]}["B02"] == HOSTILE["B02"]
+    # "look for": the mechanisms; "not told apart" only where a visit is due or the evidence is strong
+    for r in data["rows"]:
+        if not r["kinds"]:
+            assert r["kind_text"] == ("not told apart" if r["review"] or r["tier"] in ("Audit first", "Audit soon")
+                                      else "")
+        else:
+            assert r["kind_text"] == ", ".join(r["kinds"])
     # the chart is the ranking's SVG, inline
     assert len(dom.find_all("svg")) == 1 and "Distribution of metered / expected ratios" in html
 
