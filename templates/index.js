@@ -1,6 +1,6 @@
 // index.html's script (inlined by screening/webpage.py): the table of every building, sorted and
 // filtered in the browser. State lives in the URL hash: #sort=<column>-<asc|desc>&tier=…&use=…
-// &station=…&kind=…&q=…  Data are rendered with textContent and setAttribute only, never as markup.
+// &station=…&kind=…&min=…&q=…  Data are rendered with textContent and setAttribute only, never as markup.
 (function () {
   "use strict";
   var errorBox = document.getElementById("page-errors");
@@ -30,7 +30,7 @@
      left: true},
     {key: "flags", title: "flags and data issues", val: function (r) { return r.flags + " " + r.issues; }}
   ];
-  var FILTERS = ["tier", "use", "station", "kind", "q"];
+  var FILTERS = ["tier", "use", "station", "kind", "min", "q"];
   var NONE_KIND = "(none named)";
 
   function readHash() {
@@ -107,6 +107,10 @@
     if (s.use && r.use !== s.use) { return false; }
     if (s.station && r.station !== s.station) { return false; }
     if (s.kind && (s.kind === NONE_KIND ? r.kinds.length > 0 : r.kinds.indexOf(s.kind) < 0)) { return false; }
+    if (s.min) {                                       // expected savings per year of at least this much
+      var m = parseFloat(s.min);
+      if (isFinite(m) && !(r.cost !== null && r.cost >= m)) { return false; }
+    }
     if (s.q) {
       var q = s.q.toLowerCase();
       var hay = [r.id, r.name, r.use, r.station, r.tier, r.kind_text, r.flags, r.issues].join(" ").toLowerCase();

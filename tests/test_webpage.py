@@ -233,6 +233,10 @@ def test_sorting_by_cost_and_filtering_by_tier_change_the_rows_as_the_ranking_sa
     # the text search narrows further: one hostile name, found by a piece of its text
     dom, _h, console = load(site["out"] / "index.html", "q=" + "HYPERLINK", tmp=site["tmp"])
     assert console == [] and [i for i, _ in table_rows(dom)] == ["B05"]
+    # a floor on the expected savings (nulls never pass it)
+    dom, _h, console = load(site["out"] / "index.html", "min=1000&sort=rank-desc", tmp=site["tmp"])
+    want = rk.filter(pl.col("expected_recoverable_cost") >= 1000).sort("rank", descending=True)
+    assert console == [] and [i for i, _ in table_rows(dom)] == want["building_id"].to_list() != []
 
 
 @needs_browser
