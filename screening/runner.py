@@ -307,19 +307,22 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         ranking = outputs.ranking_table(res.results, disp, change)
         t = time.perf_counter()
         outputs.write_csv(ranking, tmp / "ranking.csv")
-        outputs.write_csv(outputs.audit_plan_table(res.results, disp), tmp / "audit_plan.csv")
+        plan = outputs.audit_plan_table(res.results, disp)
+        outputs.write_csv(plan, tmp / "audit_plan.csv")
         outputs.write_csv(rejects, tmp / "rejects.csv")
         outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
         assumptions = outputs.assumptions_table(res.envelope, disp)
         outputs.write_csv(assumptions, tmp / "assumptions.csv")
         from .xlsxout import write_ranking_xlsx
         write_ranking_xlsx(tmp / "ranking.xlsx", ranking=ranking, issues=res.issues.sort("building_id", "code"),
-                           rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"])
+                           rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"],
+                           plan=plan)
         timings["csv"] = round(time.perf_counter() - t, 4)
         summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev[0][1] if prev else None)
         paper = cfg["output"]["paper"]
         paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
         from . import report
+        sheet_files: dict[str, str] | None = None   # building_id -> its sheet, relative to the folder
         if cfg["output"]["sheets"]:
             bar.stage("render sheets")
             t = time.perf_counter()
@@ -329,7 +332,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             names = report.assign_filenames([s["building_id"] for s in sheets])
             report.render_sheets(sheets, tmp / "sheets", paper=paper, workers=_workers(cfg["output"]["workers"]))
             timings["sheets"] = round(time.perf_counter() - t, 4)
-            outputs.write_csv(pl.DataFrame({"building_id": list(names), "file": [f"sheets/{v}.pdf" for v in names.values()]}),
+            sheet_files = {b: f"sheets/{v}.pdf" for b, v in names.items()}
+            outputs.write_csv(pl.DataFrame({"building_id": list(sheet_files), "file": list(sheet_files.values())}),
                               tmp / "sheets_index.csv")
         _stage("after_sheets")
         bar.stage("render ranking")
@@ -339,6 +343,10 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                                                      max_rows=cfg["output"]["ranking_pdf_rows"]),
                               tmp / "ranking.pdf", paper=paper)
         timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
+        from .webpage import write_index
+        write_index(tmp / "index.html", ranking=ranking, results=res.results, plan=plan, summary=summary, disp=disp,
+                    currency=cfg["prices"]["currency"],
+                    sheet_files=sheet_files)
         timings["total"] = round(time.perf_counter() - t_start, 4)
         summary["timings_s"] = timings
         outputs.write_json(_deterministic(summary), tmp / "summary.json")
@@ -689,7 +697,8 @@ def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: b
 # Every top-level name a run writes into its output folder (tests/test_unattended.py checks
 # that a run writes nothing else): the demo, which writes into a folder of its own choosing,
 # replaces only these, and only when they are what its previous run wrote.
-OUTPUT_NAMES = ("assumptions.csv", "audit_plan.csv", "data_issues.csv", "ranking.csv", "ranking.pdf", "ranking.xlsx",
+OUTPUT_NAMES = ("assumptions.csv", "audit_plan.csv", "data_issues.csv", "index.html", "ranking.csv", "ranking.pdf",
+                "ranking.xlsx",
                 "rejects.csv", "run.log",
                 "sheets", "sheets_index.csv", "summary.json")
 

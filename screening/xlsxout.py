@@ -1,6 +1,6 @@
 """ranking.xlsx: the run's tables as one workbook for sorting, filtering and notes in a spreadsheet.
 
-Sheets ``ranking``, ``data issues``, ``rejects`` and ``assumptions``, each with a frozen
+Sheets ``ranking``, ``audit plan`` (audit_plan.csv), ``data issues``, ``rejects`` and ``assumptions``, each with a frozen
 header row, filters, column widths fitted to the content, number formats, units in the
 headers (``floor_area [ft²]``) and money as currency. Text that a spreadsheet would run as a
 formula is neutralized as in the CSVs (a leading ``'``), and the writer never turns text into
@@ -28,7 +28,8 @@ def _ranking_units(d: Display) -> dict[str, str]:
              "heating_slope": f"{e}/{dd}", "excess_co2e": "kg CO2e", "coverage": "share", "cv_rmse": "%",
              "yoy_change": "share", "peer_percentile": "%"}
     for c in ("actual_heating", "expected_heating", "expected_low", "expected_high", "expected_fixed_base",
-              "expected_modified", "normal_heating", "baseload", "excess_energy"):
+              "expected_modified", "normal_heating", "baseload", "excess_energy", "expected_recoverable_energy",
+              "excess_heat_loss", "excess_controls", "excess_baseload"):
         units[c] = e
     for c in ("ua_walls", "ua_windows", "ua_roof", "ua_ground", "ua_infiltration", "ua_ventilation", "ua_total"):
         units[c] = ua
@@ -40,29 +41,37 @@ def _formats(df: pl.DataFrame, currency: str) -> dict[str, str]:
     fmt: dict[str, str] = {}
     for name, dtype in df.schema.items():
         base = name.split(" [")[0]
-        if base == "excess_cost":
+        if base in ("excess_cost", "expected_recoverable_cost"):
             fmt[name] = money
-        elif base in ("coverage", "yoy_change"):
+        elif base in ("coverage", "yoy_change", "cumulative_share"):
             fmt[name] = "0.0%"
         elif base in ("ratio", "r2", "z_score", "z_balance_point", "z_intensity", "evidence_score", "z_yoy", "nmbe"):
             fmt[name] = "0.00"
         elif dtype.is_float():
             fmt[name] = "#,##0.0" if base not in ("heating_intensity", "peer_median_intensity", "heating_slope",
                                                    "value", "low", "high") else "#,##0.000"
-        elif dtype.is_integer() and base not in ("rank", "year_built", "line", "previous_rank", "n_periods"):
+        elif dtype.is_integer() and base not in ("rank", "year_built", "line", "previous_rank", "n_periods", "visit"):
             fmt[name] = "#,##0"
     return fmt
 
 
 def write_ranking_xlsx(path: Path, *, ranking: pl.DataFrame, issues: pl.DataFrame, rejects: pl.DataFrame,
-                       assumptions: pl.DataFrame, disp: Display, currency: str = "$") -> Path:
-    """Write ``ranking.xlsx`` with one sheet per table (see the module docstring)."""
+                       assumptions: pl.DataFrame, disp: Display, currency: str = "$",
+                       plan: pl.DataFrame | None = None) -> Path:
+    """Write ``ranking.xlsx`` with one sheet per table (see the module docstring); ``plan`` is the
+    audit_plan.csv frame (``outputs.audit_plan_table``), its sheet left out when it is None."""
     import xlsxwriter
     units = _ranking_units(disp)
-    ranking = ranking.rename({c: f"{c} [{units[c]}]" for c in ranking.columns if c in units})
-    if "excess_cost" in ranking.columns:
-        ranking = ranking.rename({"excess_cost": f"excess_cost [{currency}/yr]"})
-    sheets = [("ranking", ranking), ("data issues", issues), ("rejects", rejects), ("assumptions", assumptions)]
+
+    def with_units(df: pl.DataFrame) -> pl.DataFrame:
+        df = df.rename({c: f"{c} [{units[c]}]" for c in df.columns if c in units})
+        return df.rename({c: f"{c} [{currency}/yr]" for c in ("excess_cost", "expected_recoverable_cost")
+                          if c in df.columns})
+
+    sheets = [("ranking", with_units(ranking))]
+    if plan is not None:
+        sheets.append(("audit plan", with_units(plan)))
+    sheets += [("data issues", issues), ("rejects", rejects), ("assumptions", assumptions)]
     wb = xlsxwriter.Workbook(str(path), {"strings_to_formulas": False, "strings_to_urls": False,
                                          "strings_to_numbers": False, "nan_inf_to_errors": True})
     try:

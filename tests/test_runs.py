@@ -42,7 +42,7 @@ from screening.cli import app
 REPO = Path(__file__).resolve().parents[1]
 Q3_AS_OF, Q3 = "2026-10-15", "2026-Q3"   # by hand: window 2025-10-01..2026-09-30, calendar Q3 ends 30 Sep
 Q2_AS_OF, Q2 = "2026-07-15", "2026-Q2"   # by hand: window 2025-07-01..2026-06-30
-DETERMINISTIC_FILES = ("ranking.csv", "rejects.csv", "data_issues.csv", "summary.json")
+DETERMINISTIC_FILES = ("ranking.csv", "rejects.csv", "data_issues.csv", "summary.json", "index.html")
 N_BUILDINGS = 12
 N_KEPT = 4                               # buildings of the crontab-form test (with sheets)
 

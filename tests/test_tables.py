@@ -169,7 +169,7 @@ def test_ranking_xlsx_reads_back_with_sheets_headers_types_and_neutral_text(port
     assert res.exit_code == 0, res.stderr
     path = tmp_path / "x" / "ranking.xlsx"
     wb = openpyxl.load_workbook(path)
-    assert wb.sheetnames == ["ranking", "data issues", "rejects", "assumptions"]
+    assert wb.sheetnames == ["ranking", "audit plan", "data issues", "rejects", "assumptions"]
     ws = wb["ranking"]
     head = [c.value for c in ws[1]]
     assert head[:5] == ["rank", "building_id", "name", "use_type", "floor_area [ft²]"]
@@ -190,6 +190,24 @@ def test_ranking_xlsx_reads_back_with_sheets_headers_types_and_neutral_text(port
     assert ws.cell(2, 3).data_type == "s" or ws.cell(3, 3).data_type == "s"
     assert ws.column_dimensions["C"].width > 10             # widths fitted to the content
     assert wb["assumptions"].max_row == pl.read_csv(tmp_path / "x" / "assumptions.csv").height + 1
+    # the audit plan sheet: audit_plan.csv's rows and columns, with units, currency and a percent share
+    plan_csv = pl.read_csv(tmp_path / "x" / "audit_plan.csv")
+    assert plan_csv.height >= 1
+    wp = wb["audit plan"]
+    ph = [c.value for c in wp[1]]
+    assert ph == [{"expected_recoverable_cost": "expected_recoverable_cost [$/yr]",
+                   "expected_recoverable_energy": "expected_recoverable_energy [kBtu]"}.get(c, c)
+                  for c in plan_csv.columns]
+    assert wp.freeze_panes == "A2" and [t.autoFilter.ref for t in wp.tables.values()] == [
+        f"A1:{openpyxl.utils.get_column_letter(len(ph))}{plan_csv.height + 1}"]
+    prow = [list(r) for r in wp.iter_rows(min_row=2, values_only=True)]
+    assert [r[ph.index("building_id")] for r in prow] == plan_csv["building_id"].to_list()
+    assert [r[ph.index("visit")] for r in prow] == list(range(1, plan_csv.height + 1))
+    c = ph.index("expected_recoverable_cost [$/yr]")
+    assert [r[c] for r in prow] == pytest.approx(plan_csv["expected_recoverable_cost"].to_list())
+    assert wp.cell(2, c + 1).number_format == '"$"#,##0'
+    assert wp.cell(2, ph.index("cumulative_share") + 1).number_format == "0.0%"
+    assert "expected_recoverable_cost [$/yr]" in head       # the ranking's money columns are currency too
 
 
 def test_ranking_xlsx_same_results_same_bytes(tmp_path):
