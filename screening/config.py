@@ -118,6 +118,8 @@ DEFAULTS: dict[str, dict[str, Any]] = {
     "plan": {
         "audits_per_quarter": 10,   # buildings to visit this quarter (0 = no limit: every one worth its visit)
         "audit_cost": 2000.0,       # cost of one visit: expected savings per year below it are not planned (0 = any)
+        "clean_audit_rest_quarters": 4,  # an audit that found nothing keeps a building off the plan this many quarters …
+        "clean_audit_regrow": 2.0,  # … unless its expected savings reach this × those of the list it was audited from
     },
 }
 
@@ -244,6 +246,8 @@ RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("savings", "cv_rmse_max"): (0.1, 1000.0, "a percentage"),
     ("savings", "nmbe_max"): (0.0001, 100.0, "a percentage"),
     ("plan", "audit_cost"): (0.0, 100_000_000.0, "a cost per visit"),
+    ("plan", "clean_audit_rest_quarters"): (0, 40, "a whole number of quarters"),
+    ("plan", "clean_audit_regrow"): (1.0, 100.0, "a factor"),
 }
 #: Prices are per unit of the fuel in any currency (yen as well as dollars), so only the sign
 #: and a finite size are checked.

@@ -277,3 +277,100 @@ def savings_totals(s: pl.DataFrame, *, si: bool, kbtu_to_kwh: float) -> dict:
             "avoided_cost": round(float((v["avoided_kbtu"] * v["usd_per_kbtu"]).fill_null(0).sum()), 2),
             "avoided_co2e_kg": round(float((v["avoided_kbtu"] * v["kg_co2e_per_kbtu"]).fill_null(0).sum()), 1),
             "energy_unit": "kWh" if si else "kBtu"}
+
+
+# --------------------------------------------------------------------------------------------
+# the plan and the events: audits that found nothing, confirmed findings not yet fixed, hit rate
+# --------------------------------------------------------------------------------------------
+
+THEN_SCHEMA = {"building_id": pl.String, "audit_date": pl.Date, "in_plan": pl.Boolean, "cost_then": pl.Float64,
+               "mechanism_then": pl.String}
+
+
+def audits_then(store, events: pl.DataFrame) -> pl.DataFrame:
+    """For each audit of the events: what the latest stored successful run before its day said of the
+    building (``in_plan``, ``cost_then`` = its expected recoverable cost, ``mechanism_then``)."""
+    if events.height == 0:
+        return pl.DataFrame(schema=THEN_SCHEMA)
+    a = events.filter(pl.col("kind") == "audit").select("building_id", pl.col("date").alias("audit_date")).unique()
+    if a.height == 0:
+        return pl.DataFrame(schema=THEN_SCHEMA)
+    rows = store.execute("plan_before_events", stage_audits=a)
+    return pl.DataFrame(rows, schema=THEN_SCHEMA, orient="row")
+
+
+def _quarter(col: str) -> pl.Expr:
+    return pl.col(col).dt.year().cast(pl.String) + pl.lit("-Q") + pl.col(col).dt.quarter().cast(pl.String)
+
+
+def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.date, rest_quarters: int,
+                 regrow: float) -> pl.DataFrame:
+    """Per building with an audit finding: whether the plan keeps it off or pins it (for ``screen.screen``).
+
+    - ``_clean_audit_recent``: its latest audit (up to the window end) found nothing (``none_found``),
+      less than ``rest_quarters`` quarters before the window end, and no measure since. The screening
+      keeps it off the plan unless its expected recoverable cost now reaches ``regrow`` × what the
+      list it was audited from gave (``_cost_at_audit``; unknown: it stays off);
+    - ``_pin_plan``: its latest audit confirmed a finding and no measure is recorded on or after it;
+    - ``plan_note``: the sentence for ranking.csv.
+    """
+    schema = {"building_id": pl.String, "_clean_audit_recent": pl.Boolean, "_cost_at_audit": pl.Float64,
+              "_pin_plan": pl.Boolean, "plan_note": pl.String}
+    if events.height == 0:
+        return pl.DataFrame(schema=schema)
+    ev = events.filter(pl.col("date") <= window_end)
+    aud = (ev.filter((pl.col("kind") == "audit") & pl.col("finding").is_not_null())
+           .with_columns(pl.col("finding").replace_strict({"confirmed": 0, "data_error": 1, "none_found": 2},
+                                                          return_dtype=pl.Int64).alias("_prio"))
+           .sort("building_id", "date", "_prio").group_by("building_id", maintain_order=True)
+           .agg(pl.col("date").last().alias("audit_date"), pl.col("finding").last(),
+                pl.col("mechanism").last()))
+    if aud.height == 0:
+        return pl.DataFrame(schema=schema)
+    meas = ev.filter(pl.col("kind") == "measure").group_by("building_id").agg(pl.col("date").max().alias("_m"))
+    months = 3 * rest_quarters
+    a = (aud.join(meas, on="building_id", how="left")
+         .join(then.select("building_id", "audit_date", "cost_then"), on=["building_id", "audit_date"], how="left")
+         .with_columns(pl.col("audit_date").dt.offset_by(f"{months}mo").alias("_until")))
+    fixed = pl.col("_m").is_not_null() & (pl.col("_m") >= pl.col("audit_date"))
+    clean = (pl.col("finding") == "none_found") & (pl.col("_until") > pl.lit(window_end)) & ~fixed
+    pin = (pl.col("finding") == "confirmed") & ~fixed
+    return a.select(
+        "building_id", clean.alias("_clean_audit_recent"), pl.col("cost_then").alias("_cost_at_audit"),
+        pin.alias("_pin_plan"),
+        pl.when(pin).then(pl.lit("audit of ") + pl.col("audit_date").cast(pl.String) + pl.lit(" confirmed a finding")
+                          + pl.when(pl.col("mechanism").is_not_null()).then(pl.lit(" (") + pl.col("mechanism")
+                                                                          + pl.lit(")")).otherwise(pl.lit(""))
+                          + pl.lit(" and no measure is recorded since: kept at the top of the plan"))
+        .when(clean).then(pl.lit("audit of ") + pl.col("audit_date").cast(pl.String)
+                          + pl.lit(" found nothing: kept off the plan until ") + pl.col("_until").cast(pl.String)
+                          + pl.lit(f" unless its expected savings reach {regrow:g}× ")
+                          + pl.when(pl.col("cost_then").is_not_null())
+                          .then(pl.lit("those of the list it was audited from (")
+                                + pl.col("cost_then").round(0).cast(pl.Int64).cast(pl.String) + pl.lit(")"))
+                          .otherwise(pl.lit("those at the audit (not on record: kept off)")))
+        .otherwise(None).alias("plan_note"))
+
+
+def hit_rate(events: pl.DataFrame, then: pl.DataFrame) -> dict:
+    """The list's own hit rate: of the audits of buildings the tool had put on the audit plan (in the
+    latest run before the audit), how many confirmed a finding; by the mechanism the list named first
+    and by the audit's quarter."""
+    aud = events.filter((pl.col("kind") == "audit") & pl.col("finding").is_not_null()).select(
+        "building_id", pl.col("date").alias("audit_date"), "finding")
+    j = aud.join(then, on=["building_id", "audit_date"], how="left")
+    known = j.filter(pl.col("in_plan").is_not_null())
+    planned = known.filter(pl.col("in_plan")).with_columns(
+        pl.col("mechanism_then").fill_null("none named").alias("mechanism"), _quarter("audit_date").alias("quarter"),
+        (pl.col("finding") == "confirmed").alias("hit"))
+
+    def groups(col: str) -> dict:
+        g = planned.group_by(col).agg(pl.len().alias("audited"), pl.col("hit").sum().alias("confirmed")).sort(col)
+        return {r[col]: {"audited": int(r["audited"]), "confirmed": int(r["confirmed"]),
+                         "rate": round(r["confirmed"] / r["audited"], 3)} for r in g.iter_rows(named=True)}
+
+    n, k = planned.height, int(planned["hit"].sum()) if planned.height else 0
+    return {"audits_with_a_finding": aud.height, "audits_without_an_earlier_run": j.height - known.height,
+            "audited_from_plan": n, "confirmed": k, "rate": round(k / n, 3) if n else None,
+            "audited_off_plan": known.height - n,
+            "by_mechanism": groups("mechanism"), "by_quarter": groups("quarter")}

@@ -371,7 +371,8 @@ def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float)
 
 def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.DataFrame, cfg: dict, *,
                   window: tuple[_dt.date, _dt.date], paths: dict | None = None,
-                  previous: pl.DataFrame | None = None, events: pl.DataFrame | None = None) -> Screened:
+                  previous: pl.DataFrame | None = None, events: pl.DataFrame | None = None,
+                  plan_context: pl.DataFrame | None = None) -> Screened:
     """Screen a portfolio held in memory (canonical IP frames, see DEVELOPERS.md).
 
     ``previous`` is an earlier run's results (``building_id, normal_heating_kbtu``) for
@@ -565,6 +566,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         pl.when(no_fuel).then(None).otherwise(pl.col("actual_heating_kbtu")).alias("actual_heating_kbtu"),
         *[pl.when(no_wx).then(None).otherwise(pl.col(c)).alias(c)
           for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")])
+    if plan_context is not None:  # issue 17: events.plan_context (audits that found nothing, confirmed findings)
+        frame = frame.join(plan_context, on="building_id", how="left", maintain_order="left")
     units_ip = cfg["analysis"]["units"] == "IP"
     results = screen.screen(frame, thr, plan=cfg["plan"], currency=cfg["prices"]["currency"], energy_factor=1.0 if units_ip else KBTU_TO_KWH,
                             energy_unit="kBtu" if units_ip else "kWh")

@@ -290,19 +290,23 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         previous = _year_ago(store, window)
         prev = store.rows("previous_quarter_ok_run", {"run_id": run_id})
         prev_results = store.frame("results_of_run", {"run_id": prev[0][0]}) if prev else None
-        store.close()  # phase 2: the database stays free for readers
-        store = None
-        bar.stage("screen")
-        paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
-        events, ev_rej = None, None
-        if files.get("events"):
+        events, ev_rej, then, plan_ctx = None, None, None, None
+        if files.get("events"):  # issue 17: read on every run; what earlier runs said of the audited buildings
             from . import events as evmod
             events, ev_rej, ev_notes = evmod.read_all(files["events"], opts, b["building_id"])
             for n in ev_notes:
                 log.warning("%s", n)
+            then = evmod.audits_then(store, events)
+            plan_ctx = evmod.plan_context(events, then, window_end=window[1],
+                                          rest_quarters=cfg["plan"]["clean_audit_rest_quarters"],
+                                          regrow=cfg["plan"]["clean_audit_regrow"])
+        store.close()  # phase 2: the database stays free for readers
+        store = None
+        bar.stage("screen")
+        paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
         # the readings frame is passed, not kept here, so screening can free it once checked
         res = pipeline.screen_frames(b, stored.pop("readings"), w, cfg, window=window, paths=paths, previous=previous,
-                                     events=events)
+                                     events=events, plan_context=plan_ctx)
         timings.update(res.timings)
         _stage("after_screen")
         bar.stage("write tables")
@@ -328,6 +332,11 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             outputs.write_csv(evmod.savings_table(res.savings, si=disp.si, currency=cfg["prices"]["currency"],
                                                   kbtu_to_kwh=outputs.KBTU_TO_KWH), tmp / "savings.csv")
             summary["savings"] = evmod.savings_totals(res.savings, si=disp.si, kbtu_to_kwh=outputs.KBTU_TO_KWH)
+            summary["audit_hit_rate"] = evmod.hit_rate(events, then)
+            notes_df = res.results.filter(pl.col("plan_note").is_not_null()) if "plan_note" in res.results.columns \
+                else res.results.clear()
+            summary["plan_notes"] = [{"building_id": r["building_id"], "rank": r["rank"], "tier": r["tier"],
+                                      "note": r["plan_note"]} for r in notes_df.sort("rank").iter_rows(named=True)]
         timings["csv"] = round(time.perf_counter() - t, 4)
         paper = cfg["output"]["paper"]
         paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper

@@ -101,3 +101,83 @@ def test_a_measure_on_an_unchanged_building_saves_nothing(portfolio, tmp_path):
     summ = json.loads((out / "summary.json").read_text())["savings"]
     assert summ["measures"] == 1 and summ["measures_meeting_guideline14"] == 1
     assert summ["avoided_u90"] == pytest.approx(row["avoided_high_90"] - row["avoided_energy"], abs=0.2)
+
+
+# ------------------------------------------------------------------------------------------------
+# the plan and the events
+# ------------------------------------------------------------------------------------------------
+
+from screening import runner  # noqa: E402
+
+
+def _run_lib(portfolio, tmp_path, as_of, events_path=None, name="out", **plan):
+    inputs = {"buildings": str(portfolio.buildings), "readings": str(portfolio.readings),
+              "weather": str(portfolio.weather)}
+    if events_path is not None:
+        inputs["events"] = str(events_path)
+    runner.run(overrides={"inputs": inputs, "store": {"database": str(tmp_path / "s.duckdb")},
+                          "analysis": {"as_of": as_of}, "output": {"sheets": False},
+                          "plan": {"audit_cost": 0.0, **plan}},
+               out_dir=str(tmp_path / name), force=True, quiet=True)
+    out = tmp_path / name
+    return pl.read_csv(out / "ranking.csv", infer_schema_length=None), json.loads((out / "summary.json").read_text())
+
+
+def test_clean_audit_keeps_off_the_plan_and_confirmed_finding_is_pinned(portfolio, tmp_path):
+    base, _ = _run_lib(portfolio, tmp_path, AS_OF, name="plain")
+    tier = dict(zip(base["building_id"], base["tier"]))
+    assert tier["B03"] == "Audit first"                    # the wasteful building of the test portfolio
+    last = base.filter(pl.col("tier") == "Audit first").sort("rank")["building_id"][-1]
+    assert last != "B03"
+    p = _write(tmp_path, HEADER + "B03,2024-11-01,audit,none_found,,,,\n"
+               f"{last},2024-06-01,audit,confirmed,controls,schedule stuck,,\n")
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="ev")
+    r = {row["building_id"]: row for row in ranked.iter_rows(named=True)}
+    assert r["B03"]["tier"] != "Audit first"               # kept off the plan (no earlier run on record)
+    assert r[last]["rank"] == 1 and r[last]["tier"] == "Audit first"   # pinned to the top
+    notes = {n["building_id"]: n["note"] for n in summ["plan_notes"]}
+    assert "found nothing: kept off the plan until 2025-11-01" in notes["B03"]
+    assert "confirmed a finding (controls)" in notes[last]
+    # a measure after the confirmed finding: no longer pinned; the rest period over: back on the plan
+    p2 = _write(tmp_path, HEADER + "B03,2023-10-01,audit,none_found,,,,\n"
+                f"{last},2024-06-01,audit,confirmed,controls,,,\n{last},2024-07-01,measure,,controls,fixed,,\n",
+                name="ev2.csv")
+    ranked2, summ2 = _run_lib(portfolio, tmp_path, AS_OF, p2, name="ev2")
+    assert ranked2.select("building_id", "tier", "rank").equals(base.select("building_id", "tier", "rank"))
+    assert summ2["plan_notes"] == []
+
+
+def test_a_clean_audit_comes_back_when_the_savings_grew(portfolio, tmp_path):
+    import duckdb
+    _run_lib(portfolio, tmp_path, "2024-10-15", name="q3")          # the list the audit acted on
+    p = _write(tmp_path, HEADER + "B03,2024-10-20,audit,none_found,,,,\n")
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="q4")
+    assert dict(zip(ranked["building_id"], ranked["tier"]))["B03"] != "Audit first"   # savings as before: off
+    assert "those of the list it was audited from" in summ["plan_notes"][0]["note"]
+    # the earlier list's figure for B03 made small: today's savings are far above 2× it
+    con = duckdb.connect(str(tmp_path / "s.duckdb"))
+    con.execute("UPDATE results SET record = json_merge_patch(record, '{\"expected_recoverable_cost\": 1.0}') "
+                "WHERE building_id = 'B03' AND run_id LIKE '2024-Q3%'")
+    con.close()
+    ranked, _ = _run_lib(portfolio, tmp_path, AS_OF, p, name="q4b")
+    assert dict(zip(ranked["building_id"], ranked["tier"]))["B03"] == "Audit first"
+
+
+def test_the_hit_rate_counts_exactly(portfolio, tmp_path):
+    first, _ = _run_lib(portfolio, tmp_path, "2024-10-15", name="q3")
+    planned = first.filter(pl.col("tier") == "Audit first").sort("rank")["building_id"].to_list()
+    off = first.filter(pl.col("tier") != "Audit first")["building_id"].to_list()
+    assert len(planned) >= 2 and off
+    p = _write(tmp_path, HEADER + "\n".join([
+        f"{planned[0]},2024-10-20,audit,confirmed,,,,",
+        f"{planned[1]},2024-11-20,audit,none_found,,,,",
+        f"{off[0]},2024-10-25,audit,confirmed,,,,",        # audited although not on the plan
+        f"{planned[0]},2023-01-10,audit,none_found,,,,",   # before any run on record
+        f"{planned[1]},2024-10-21,operation,,,,,",         # not an audit
+    ]) + "\n")
+    _, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="q4")
+    h = summ["audit_hit_rate"]
+    assert (h["audits_with_a_finding"], h["audits_without_an_earlier_run"], h["audited_from_plan"],
+            h["confirmed"], h["rate"], h["audited_off_plan"]) == (4, 1, 2, 1, 0.5, 1)
+    assert h["by_quarter"] == {"2024-Q4": {"audited": 2, "confirmed": 1, "rate": 0.5}}
+    assert sum(v["audited"] for v in h["by_mechanism"].values()) == 2
