@@ -18,7 +18,14 @@ import polars as pl
 from . import metered
 from . import savings as sv
 from .csvread import LINE_COL
-from .ingest import REJECT_SCHEMA, Loaded, ReadOptions, _combine, _read_typed, rejects_frame
+from .ingest import (
+    REJECT_SCHEMA,
+    Loaded,
+    ReadOptions,
+    _combine,
+    _read_typed,
+    rejects_frame,
+)
 
 EVENT_KINDS = ("audit", "measure", "operation", "meter_change", "vacancy")
 FINDINGS = ("confirmed", "none_found", "data_error")
@@ -243,7 +250,7 @@ SAVINGS_COLUMNS = ["building_id", "event_date", "report_start", "report_end", "a
 def savings_table(s: pl.DataFrame, *, si: bool, currency: str, kbtu_to_kwh: float) -> pl.DataFrame:
     """savings.csv: one row per measure, energies in the run's unit (kBtu, or kWh under SI)."""
     f = kbtu_to_kwh if si else 1.0
-    e = lambda c: (pl.col(c) * f).round(1)  # noqa: E731
+    e = lambda c: (pl.col(c) * f).round(1)
     return s.select(
         "building_id", "event_date", "report_start", "report_end",
         e("avoided_kbtu").alias("avoided_energy"),

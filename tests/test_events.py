@@ -8,7 +8,7 @@ import json
 import polars as pl
 import pytest
 
-from screening import config, events
+from screening import config, events, runner
 from screening.errors import InputError
 from tests.conftest import AS_OF, cli
 
@@ -22,7 +22,7 @@ def _write(tmp_path, text, name="events.csv"):
 
 
 def test_good_rows_and_every_bad_row_with_its_reason(tmp_path):
-    p = _write(tmp_path, HEADER + "\n".join([
+    rows = [
         "B01,2024-03-01,measure,,controls,new boiler controls,5000,12000",     # line 2: good
         "B02,2024-02-10,audit,confirmed,heat loss,dampers open,,",             # 3: good
         "B03,2024-01-05,audit,none_found,,,,",                                 # 4: good
@@ -36,7 +36,8 @@ def test_good_rows_and_every_bad_row_with_its_reason(tmp_path):
         "B06,2024-05-01,measure,,,b,,",
         "B03,2024-01-05,audit,none_found,,,,",                                 # 13: exact duplicate of 4
         ",2024-01-01,audit,,,,,",                                              # 14: empty id
-    ]) + "\n")
+    ]
+    p = _write(tmp_path, HEADER + "\n".join(rows) + "\n")
     ld = events.read_events(str(p), building_ids=pl.Series(["B01", "B02", "B03", "B04", "B05", "B06"]))
     assert ld.df["building_id"].to_list() == ["B01", "B02", "B03"]
     rej = {(r["line"], r["column"]): r for r in ld.rejects.iter_rows(named=True)}
@@ -106,8 +107,6 @@ def test_a_measure_on_an_unchanged_building_saves_nothing(portfolio, tmp_path):
 # ------------------------------------------------------------------------------------------------
 # the plan and the events
 # ------------------------------------------------------------------------------------------------
-
-from screening import runner  # noqa: E402
 
 
 def _run_lib(portfolio, tmp_path, as_of, events_path=None, name="out", **plan):

@@ -117,7 +117,7 @@ def measured(tmp_path_factory) -> pl.DataFrame:
     sim = _simulator()
     tmp = tmp_path_factory.mktemp("savings")
     cuts = np.where(np.arange(N) % 2 == 0, 0.10 + 0.20 * (np.arange(N) % 7) / 6, 0.0)
-    kw = dict(seed=SEED, start=dt.date(2023, 10, 1), years=3, fault_rates=NO_FAULTS, annual_share=0.0)
+    kw = {"seed": SEED, "start": dt.date(2023, 10, 1), "years": 3, "fault_rates": NO_FAULTS, "annual_share": 0.0}
     cut = sim.simulate_portfolio(N, **kw, space_heat_cut=(CUT_DAY, cuts))
     base = sim.simulate_portfolio(N, **kw)
     paths = sim.write_portfolio(cut, tmp / "in")
