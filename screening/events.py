@@ -311,7 +311,7 @@ def _quarter(col: str) -> pl.Expr:
 
 
 def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.date, rest_quarters: int,
-                 regrow: float) -> pl.DataFrame:
+                 regrow: float, blackout_days: int = 30) -> pl.DataFrame:
     """Per building with an audit finding: whether the plan keeps it off or pins it (for ``screen.screen``).
 
     - ``_clean_audit_recent``: its latest audit (up to the window end) found nothing (``none_found``),
@@ -319,13 +319,27 @@ def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.da
       keeps it off the plan unless its expected recoverable cost now reaches ``regrow`` × what the
       list it was audited from gave (``_cost_at_audit``; unknown: it stays off);
     - ``_pin_plan``: its latest audit confirmed a finding and no measure is recorded on or after it;
-    - ``plan_note``: the sentence for ranking.csv.
+    - ``_measure_recent``: its latest measure (plus ``blackout_days``) is less than 12 months before the
+      window's end, so the compared 12 months mix use before and after it: the building is not planned on
+      them (it is judged again once 12 months after the measure are billed; its savings are in savings.csv);
+    - ``plan_note``: the sentence for summary.json's ``plan_notes``.
     """
     schema = {"building_id": pl.String, "_clean_audit_recent": pl.Boolean, "_cost_at_audit": pl.Float64,
-              "_pin_plan": pl.Boolean, "plan_note": pl.String}
+              "_pin_plan": pl.Boolean, "_measure_recent": pl.Boolean, "plan_note": pl.String}
     if events.height == 0:
         return pl.DataFrame(schema=schema)
     ev = events.filter(pl.col("date") <= window_end)
+    # a measure whose 12 months after the blackout are not all billed yet by the window's end
+    recent = (ev.filter(pl.col("kind") == "measure").group_by("building_id").agg(pl.col("date").max().alias("_md"))
+              .with_columns((pl.col("_md") + pl.duration(days=blackout_days)).alias("_rs"))
+              .with_columns(pl.col("_rs").dt.offset_by("12mo").alias("_full"))
+              .filter(pl.col("_full") > pl.lit(window_end + _dt.timedelta(days=1))))
+    recent_ctx = recent.select(
+        "building_id", pl.lit(False).alias("_clean_audit_recent"), pl.lit(None, dtype=pl.Float64).alias("_cost_at_audit"),
+        pl.lit(False).alias("_pin_plan"), pl.lit(True).alias("_measure_recent"),
+        (pl.lit("measure of ") + pl.col("_md").cast(pl.String) + pl.lit(": the compared 12 months mix use before and "
+         "after it, so it is not planned on them; judged again once the 12 months from ") + pl.col("_rs").cast(pl.String)
+         + pl.lit(" are billed (its savings so far are in savings.csv)")).alias("plan_note"))
     aud = (ev.filter((pl.col("kind") == "audit") & pl.col("finding").is_not_null())
            .with_columns(pl.col("finding").replace_strict({"confirmed": 0, "data_error": 1, "none_found": 2},
                                                           return_dtype=pl.Int64).alias("_prio"))
@@ -333,7 +347,7 @@ def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.da
            .agg(pl.col("date").last().alias("audit_date"), pl.col("finding").last(),
                 pl.col("mechanism").last()))
     if aud.height == 0:
-        return pl.DataFrame(schema=schema)
+        return recent_ctx.cast(schema)
     meas = ev.filter(pl.col("kind") == "measure").group_by("building_id").agg(pl.col("date").max().alias("_m"))
     months = 3 * rest_quarters
     a = (aud.join(meas, on="building_id", how="left")
@@ -342,7 +356,7 @@ def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.da
     fixed = pl.col("_m").is_not_null() & (pl.col("_m") >= pl.col("audit_date"))
     clean = (pl.col("finding") == "none_found") & (pl.col("_until") > pl.lit(window_end)) & ~fixed
     pin = (pl.col("finding") == "confirmed") & ~fixed
-    return a.select(
+    a = a.select(
         "building_id", clean.alias("_clean_audit_recent"), pl.col("cost_then").alias("_cost_at_audit"),
         pin.alias("_pin_plan"),
         pl.when(pin).then(pl.lit("audit of ") + pl.col("audit_date").cast(pl.String) + pl.lit(" confirmed a finding")
@@ -356,7 +370,10 @@ def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.da
                           .then(pl.lit("those of the list it was audited from (")
                                 + pl.col("cost_then").round(0).cast(pl.Int64).cast(pl.String) + pl.lit(")"))
                           .otherwise(pl.lit("those at the audit (not on record: kept off)")))
-        .otherwise(None).alias("plan_note"))
+        .otherwise(None).alias("plan_note"), pl.lit(False).alias("_measure_recent"))
+    a = a.select(list(schema)).cast(schema)
+    # a recent measure takes precedence (a finding it fixed, or a clean audit before it, no longer speaks)
+    return pl.concat([recent_ctx.cast(schema), a.filter(~pl.col("building_id").is_in(recent["building_id"].implode()))])
 
 
 def hit_rate(events: pl.DataFrame, then: pl.DataFrame) -> dict:

@@ -386,7 +386,8 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     if "_pin_plan" in out.columns:
         grown = (cost >= p.get("clean_audit_regrow", 2.0) * pl.col("_cost_at_audit")).fill_null(False)
         out = out.with_columns((pl.col("_pin_plan").fill_null(False) & ~pl.col("blocking")).alias("_pin"),
-                               (pl.col("_clean_audit_recent").fill_null(False) & ~grown).alias("_hold"))
+                               ((pl.col("_clean_audit_recent").fill_null(False) & ~grown)
+                                | pl.col("_measure_recent").fill_null(False)).alias("_hold"))
     else:
         out = out.with_columns(pl.lit(False).alias("_pin"), pl.lit(False).alias("_hold"))
     out = out.sort(["blocking", "_pin", "_order_money", "ratio", "building_id"],

@@ -139,7 +139,7 @@ def test_clean_audit_keeps_off_the_plan_and_confirmed_finding_is_pinned(portfoli
     assert "confirmed a finding (controls)" in notes[last]
     # a measure after the confirmed finding: no longer pinned; the rest period over: back on the plan
     p2 = _write(tmp_path, HEADER + "B03,2023-10-01,audit,none_found,,,,\n"
-                f"{last},2024-06-01,audit,confirmed,controls,,,\n{last},2024-07-01,measure,,controls,fixed,,\n",
+                f"{last},2023-05-01,audit,confirmed,controls,,,\n{last},2023-06-01,measure,,controls,fixed,,\n",
                 name="ev2.csv")
     ranked2, summ2 = _run_lib(portfolio, tmp_path, AS_OF, p2, name="ev2")
     assert ranked2.select("building_id", "tier", "rank").equals(base.select("building_id", "tier", "rank"))
@@ -180,3 +180,19 @@ def test_the_hit_rate_counts_exactly(portfolio, tmp_path):
             h["confirmed"], h["rate"], h["audited_off_plan"]) == (4, 1, 2, 1, 0.5, 1)
     assert h["by_quarter"] == {"2024-Q4": {"audited": 2, "confirmed": 1, "rate": 0.5}}
     assert sum(v["audited"] for v in h["by_mechanism"].values()) == 2
+
+
+def test_a_recent_measure_is_not_planned_on_months_that_mix_before_and_after(portfolio, tmp_path):
+    base, _ = _run_lib(portfolio, tmp_path, AS_OF, name="plain")
+    assert dict(zip(base["building_id"], base["tier"]))["B03"] == "Audit first"
+    # window 2024-01-01..2024-12-31; 2024-06-01 + 30 days blackout + 12 months is after the window: mixed
+    p = _write(tmp_path, HEADER + "B03,2024-05-01,audit,confirmed,controls,,,\nB03,2024-06-01,measure,,controls,,,\n")
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="recent")
+    assert dict(zip(ranked["building_id"], ranked["tier"]))["B03"] != "Audit first"
+    (note,) = [n["note"] for n in summ["plan_notes"] if n["building_id"] == "B03"]
+    assert note.startswith("measure of 2024-06-01") and "12 months from 2024-07-01" in note
+    # a measure whose 12 months after the blackout end by the window's end: judged as usual
+    p = _write(tmp_path, HEADER + "B03,2023-11-01,measure,,controls,,,\n", name="old.csv")
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="old")
+    assert ranked.select("building_id", "tier", "rank").equals(base.select("building_id", "tier", "rank"))
+    assert summ["plan_notes"] == []
