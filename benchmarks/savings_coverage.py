@@ -24,7 +24,7 @@ import polars as pl
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
-from screening import runner  # noqa: E402
+from screening import runner
 
 CUT_DAY = dt.date(2025, 6, 1)
 NO_FAULTS = {k: 0.0 for k in ("wasteful", "unit_error", "missing_months", "duplicate_readings",
