@@ -494,7 +494,8 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
                        stations: int = 5, chunk: int = 64, audit_share: float = 0.06,
                        waste_onset: tuple[date, date] | None = None,
                        onset_share: float = 1.0,
-                       excess_window: tuple[date, date] | None = None) -> dict[str, pl.DataFrame]:
+                       excess_window: tuple[date, date] | None = None,
+                       space_heat_cut: tuple[date, np.ndarray] | None = None) -> dict[str, pl.DataFrame]:
     """Simulate a portfolio and return the frames ``buildings, readings, weather, truth``.
 
     Parameters
@@ -528,6 +529,12 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
         its fault added (the fault's share of space heat, divided by the day's efficiency and times
         the day's meter noise, exactly as the fuel itself), 0 for buildings without waste. It draws
         no random numbers, so every other output is the same as without it
+    space_heat_cut : None (the default) or ``(day, cuts)``: a measure installed on ``day`` cuts each
+        building's delivered space heat by the share ``cuts[i]`` (0 = no measure) from that day on,
+        as a lower-loss envelope or better controls would. It draws no random numbers, so with all
+        cuts 0 every output is the same as without it, and two runs that differ only in the cuts
+        have the same weather, noise and meter-read dates: the difference of their heating-fuel
+        bills is the fuel the measure saved
 
     Returns
     -------
@@ -610,6 +617,16 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
         with_onset = wasteful & (g_onset.random(n) < onset_share)
         onset_day = np.where(with_onset, drawn, 0)
 
+    cut_keep = None
+    if space_heat_cut is not None:
+        cut_day, cuts = space_heat_cut
+        cuts = np.asarray(cuts, dtype=float)
+        if not (isinstance(cut_day, date) and start <= cut_day <= end) or cuts.shape != (n,) \
+                or np.any(~(cuts >= 0) | (cuts >= 1)):
+            raise ValueError(f"space_heat_cut must be (a date within {start}..{end}, {n} shares in [0, 1))")
+        after = days >= np.datetime64(cut_day, "D")
+        cut_keep = 1.0 - cuts[:, None] * after[None, :]
+
     # ---- daily energy per building, by chunks ---------------------------------------------
     heat_fuel_kbtu = np.empty((n, n_d))
     elec_kwh = np.zeros((n, n_d))
@@ -639,6 +656,8 @@ def simulate_portfolio(n_buildings: int, *, seed: int, start: date, years: int, 
             k = (waste_factor[w] - 1.0) * s0 / np.maximum(s1 - s0, 1e-9 * s0 + 1.0)
             added = (k[:, None] * on) * (qf - q0)    # space heat the fault adds [Btu/day]
             q[sub] = q0 + added
+        if cut_keep is not None:
+            q = q * cut_keep[idx]
         space_kbtu_del[idx] = q / 1000.0
         st = B["station"][idx]
         area = B["area"][idx]

@@ -126,6 +126,7 @@ def run(
     buildings: Annotated[Optional[str], typer.Option(help="buildings CSV (or glob)")] = None,
     readings: Annotated[Optional[str], typer.Option(help="readings CSV (or glob)")] = None,
     weather: Annotated[Optional[str], typer.Option(help="daily weather CSV (or glob)")] = None,
+    events: Annotated[Optional[str], typer.Option(help="optional events CSV (or glob): audits, findings, measures")] = None,
     out: Annotated[Optional[str], typer.Option(help="output folder (default: [output] root/<quarter>)")] = None,
     db: Annotated[Optional[str], typer.Option(help="DuckDB file (default screening.duckdb)")] = None,
     as_of: Annotated[Optional[str], typer.Option("--as-of", help="YYYY-MM-DD; default today")] = None,
@@ -143,7 +144,7 @@ def run(
     """Load the files, screen the portfolio and write ranking.csv, ranking.pdf, sheets/ and summary.json."""
     from . import runner
     _log_to_stderr(quiet, verbose)
-    overrides = {"inputs": {"buildings": buildings, "readings": readings, "weather": weather},
+    overrides = {"inputs": {"buildings": buildings, "readings": readings, "weather": weather, "events": events},
                  "store": {"database": db},
                  "analysis": {"as_of": as_of, "window_from": date_from, "window_to": date_to,
                               "units": units.upper() if units else None},

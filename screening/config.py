@@ -22,6 +22,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "buildings": "",            # path or glob; several files are read in name order
         "readings": "",
         "weather": "",
+        "events": "",               # optional: audits, findings and measures (path or glob); see README
         "columns": {},              # your column names → ours, per file kind: [inputs.columns.readings] "Usage" = "quantity"
     },
     "store": {
@@ -108,9 +109,17 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "balance_point_sd_f": 5.0,  # model scale of fitted − engineering balance point [°F] (our own)
         "baseload_share_sd": 0.15,  # model scale of the non-heating share against the use type's (our own)
     },
+    "savings": {                    # savings after a measure (events file kind = measure); README
+        "blackout_days": 30,        # days after the measure left out of the reporting period (commissioning)
+        "baseline_min_periods": 9,  # bills (of at most 62 days) the baseline needs in the 12 months before
+        "cv_rmse_max": 20.0,        # % baseline limit, ASHRAE Guideline 14 (monthly regression; from memory)
+        "nmbe_max": 0.005,          # % |net determination bias| limit, ASHRAE Guideline 14 (from memory)
+    },
     "plan": {
         "audits_per_quarter": 10,   # buildings to visit this quarter (0 = no limit: every one worth its visit)
         "audit_cost": 2000.0,       # cost of one visit: expected savings per year below it are not planned (0 = any)
+        "clean_audit_rest_quarters": 4,  # an audit that found nothing keeps a building off the plan this many quarters …
+        "clean_audit_regrow": 2.0,  # … unless its expected savings reach this × those of the list it was audited from
     },
 }
 
@@ -231,7 +240,14 @@ RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("thresholds", "balance_point_sd_f"): (0.5, 30.0, "a temperature difference in °F"),
     ("thresholds", "baseload_share_sd"): (0.01, 1.0, "a share"),
     ("plan", "audits_per_quarter"): (0, 1_000_000, "a whole number of buildings"),
+    # a commissioning settle-in of up to a year; a baseline needs a fit (2 parameters) and at most 12 monthly bills
+    ("savings", "blackout_days"): (0, 366, "a whole number of days"),
+    ("savings", "baseline_min_periods"): (3, 12, "a whole number of bills"),
+    ("savings", "cv_rmse_max"): (0.1, 1000.0, "a percentage"),
+    ("savings", "nmbe_max"): (0.0001, 100.0, "a percentage"),
     ("plan", "audit_cost"): (0.0, 100_000_000.0, "a cost per visit"),
+    ("plan", "clean_audit_rest_quarters"): (0, 40, "a whole number of quarters"),
+    ("plan", "clean_audit_regrow"): (1.0, 100.0, "a factor"),
 }
 #: Prices are per unit of the fuel in any currency (yen as well as dollars), so only the sign
 #: and a finite size are checked.
@@ -275,7 +291,7 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
     today = today or _dt.date.today()
     for (section, key), (lo, hi, what) in RANGES.items():
         _check_range(section, key, cfg[section][key], lo, hi, what)
-    for section, key in (("inputs", "buildings"), ("inputs", "readings"), ("inputs", "weather")):
+    for section, key in (("inputs", "buildings"), ("inputs", "readings"), ("inputs", "weather"), ("inputs", "events")):
         _check_text(section, key, cfg[section][key])
     _check_text("store", "database", cfg["store"]["database"], empty_ok=False)
     _check_text("output", "root", cfg["output"]["root"], empty_ok=False)

@@ -194,6 +194,7 @@ class Screened:
     window: tuple[_dt.date, _dt.date]
     timings: dict[str, float]
     normal_years: dict[str, list[int]]
+    savings: pl.DataFrame | None = None  # one row per measure of the events file (events.measure_savings)
 
 
 def base_grid(cfg: dict) -> np.ndarray:
@@ -370,11 +371,13 @@ def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float)
 
 def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.DataFrame, cfg: dict, *,
                   window: tuple[_dt.date, _dt.date], paths: dict | None = None,
-                  previous: pl.DataFrame | None = None) -> Screened:
+                  previous: pl.DataFrame | None = None, events: pl.DataFrame | None = None,
+                  plan_context: pl.DataFrame | None = None) -> Screened:
     """Screen a portfolio held in memory (canonical IP frames, see DEVELOPERS.md).
 
     ``previous`` is an earlier run's results (``building_id, normal_heating_kbtu``) for
-    the year-over-year comparison.
+    the year-over-year comparison. ``events`` (from ``events.read_all``) adds the savings after
+    each measure (``Screened.savings``).
     """
     paths = paths or {}
     a = cfg["analysis"]
@@ -565,12 +568,23 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         pl.when(no_fuel).then(None).otherwise(pl.col("actual_heating_kbtu")).alias("actual_heating_kbtu"),
         *[pl.when(no_weather).then(None).otherwise(pl.col(c)).alias(c)
           for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")])
+    if plan_context is not None:  # issue 17: events.plan_context (audits that found nothing, confirmed findings)
+        frame = frame.join(plan_context, on="building_id", how="left", maintain_order="left")
     units_ip = cfg["analysis"]["units"] == "IP"
     results = screen.screen(frame, thr, plan=cfg["plan"], currency=cfg["prices"]["currency"], energy_factor=1.0 if units_ip else KBTU_TO_KWH,
                             energy_unit="kBtu" if units_ip else "kWh")
     lap("screening")
+    saved = None
+    if events is not None:  # savings after a measure (issue 17): screening/events.py, screening/savings.py
+        from . import events as ev
+        sc = cfg["savings"]
+        saved = ev.measure_savings(conv, b, cube, normals, grid, events, _prices(b, cfg), window_end=we,
+                                   blackout_days=sc["blackout_days"], min_periods=sc["baseline_min_periods"],
+                                   cv_max=sc["cv_rmse_max"], nmbe_max=sc["nmbe_max"])
+        lap("savings")
     return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
-                    envelope=envelope, window=window, timings=timings, normal_years=normals.years_used)
+                    envelope=envelope, window=window, timings=timings, normal_years=normals.years_used,
+                    savings=saved)
 
 
 def _check_normal_years(normals, b: pl.DataFrame, weather: pl.DataFrame, ny: list[int]) -> None:

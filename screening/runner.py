@@ -202,6 +202,8 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
     as_of, window = cfgmod.run_window(cfg)   # ranges checked by cfgmod.load
     label = quarter_label(window[1]) if not a["window_from"] else f"{window[0]}_{window[1]}"
     files = {k: _expand(cfg["inputs"][k], k) for k in pipeline.KINDS}
+    if cfg["inputs"]["events"]:  # optional (issue 17); read on every run, not stored
+        files["events"] = _expand(cfg["inputs"]["events"], "events")
     db_path = cfg["store"]["database"]
     if out_dir is not None:
         target = Path(out_dir)
@@ -291,17 +293,30 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         previous = _year_ago(store, window)
         prev = store.rows("previous_quarter_ok_run", {"run_id": run_id})
         prev_results = store.frame("results_of_run", {"run_id": prev[0][0]}) if prev else None
+        events, ev_rej, then, plan_ctx = None, None, None, None
+        if files.get("events"):  # issue 17: read on every run; what earlier runs said of the audited buildings
+            from . import events as evmod
+            events, ev_rej, ev_notes = evmod.read_all(files["events"], opts, b["building_id"])
+            for n in ev_notes:
+                log.warning("%s", n)
+            then = evmod.audits_then(store, events)
+            plan_ctx = evmod.plan_context(events, then, window_end=window[1],
+                                          rest_quarters=cfg["plan"]["clean_audit_rest_quarters"],
+                                          regrow=cfg["plan"]["clean_audit_regrow"],
+                                          blackout_days=cfg["savings"]["blackout_days"])
         store.close()  # phase 2: the database stays free for readers
         store = None
         bar.stage("screen")
         paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
         # the readings frame is passed, not kept here, so screening can free it once checked
-        res = pipeline.screen_frames(b, stored.pop("readings"), w, cfg, window=window, paths=paths, previous=previous)
+        res = pipeline.screen_frames(b, stored.pop("readings"), w, cfg, window=window, paths=paths, previous=previous,
+                                     events=events, plan_context=plan_ctx)
         timings.update(res.timings)
         _stage("after_screen")
         bar.stage("write tables")
         rejects = outputs.rejects_table(pl.concat([load_rej.cast(REJECT_SCHEMA), cross_rej.cast(REJECT_SCHEMA),
-                                                   res.rejects.cast(REJECT_SCHEMA)]))
+                                                   res.rejects.cast(REJECT_SCHEMA)]
+                                                  + ([ev_rej.cast(REJECT_SCHEMA)] if ev_rej is not None else [])))
         disp = outputs.Display(cfg["analysis"]["units"])
         change = _change_table(prev_results, res.results)
         ranking = outputs.ranking_table(res.results, disp, change)
@@ -317,8 +332,19 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         write_ranking_xlsx(tmp / "ranking.xlsx", ranking=ranking, issues=res.issues.sort("building_id", "code"),
                            rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"],
                            plan=plan)
-        timings["csv"] = round(time.perf_counter() - t, 4)
         summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev[0][1] if prev else None)
+        if res.savings is not None:  # savings after a measure (issue 17)
+            from . import events as evmod
+            outputs.write_csv(evmod.savings_table(res.savings, si=disp.si, currency=cfg["prices"]["currency"],
+                                                  kbtu_to_kwh=outputs.KBTU_TO_KWH), tmp / "savings.csv")
+            summary["savings"] = evmod.savings_totals(res.savings, si=disp.si, kbtu_to_kwh=outputs.KBTU_TO_KWH)
+            if events is not None and then is not None:
+                summary["audit_hit_rate"] = evmod.hit_rate(events, then)
+            notes_df = res.results.filter(pl.col("plan_note").is_not_null()) if "plan_note" in res.results.columns \
+                else res.results.clear()
+            summary["plan_notes"] = [{"building_id": r["building_id"], "rank": r["rank"], "tier": r["tier"],
+                                      "note": r["plan_note"]} for r in notes_df.sort("rank").iter_rows(named=True)]
+        timings["csv"] = round(time.perf_counter() - t, 4)
         paper = cfg["output"]["paper"]
         paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
         from . import report
@@ -698,8 +724,7 @@ def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: b
 # that a run writes nothing else): the demo, which writes into a folder of its own choosing,
 # replaces only these, and only when they are what its previous run wrote.
 OUTPUT_NAMES = ("assumptions.csv", "audit_plan.csv", "data_issues.csv", "index.html", "ranking.csv", "ranking.pdf",
-                "ranking.xlsx",
-                "rejects.csv", "run.log",
+                "ranking.xlsx", "rejects.csv", "run.log", "savings.csv",
                 "sheets", "sheets_index.csv", "summary.json")
 
 

@@ -379,12 +379,21 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     out = out.with_columns(
         pl.when(pl.col("blocking")).then(pl.col("actual_heating_kbtu") * pl.col("usd_per_kbtu"))
         .otherwise(pl.col("expected_recoverable_cost")).fill_null(0.0).fill_nan(0.0).alias("_order_money"))
-    out = out.sort(["blocking", "_order_money", "ratio", "building_id"],
-                   descending=[False, True, True, False], nulls_last=True)
-    # tiers are plain groups along that order: this quarter's plan, the rest worth a visit, then less
+    # the events (issue 17, events.plan_context): a confirmed finding not yet fixed is pinned to the top of
+    # the plan; an audit that found nothing keeps the building off it unless its savings grew enough
     p = plan or {"audits_per_quarter": 0, "audit_cost": 0.0}
     cost = pl.col("expected_recoverable_cost").fill_null(0.0).fill_nan(0.0)
-    worth = (~pl.col("blocking")) & (cost > 0) & (cost >= p["audit_cost"])
+    if "_pin_plan" in out.columns:
+        grown = (cost >= p.get("clean_audit_regrow", 2.0) * pl.col("_cost_at_audit")).fill_null(False)
+        out = out.with_columns((pl.col("_pin_plan").fill_null(False) & ~pl.col("blocking")).alias("_pin"),
+                               ((pl.col("_clean_audit_recent").fill_null(False) & ~grown)
+                                | pl.col("_measure_recent").fill_null(False)).alias("_hold"))
+    else:
+        out = out.with_columns(pl.lit(False).alias("_pin"), pl.lit(False).alias("_hold"))
+    out = out.sort(["blocking", "_pin", "_order_money", "ratio", "building_id"],
+                   descending=[False, True, True, True, False], nulls_last=True)
+    # tiers are plain groups along that order: this quarter's plan, the rest worth a visit, then less
+    worth = ((~pl.col("blocking")) & (cost > 0) & (cost >= p["audit_cost"]) & ~pl.col("_hold")) | pl.col("_pin")
     nth = worth.cast(pl.Int64).cum_sum()
     in_plan = worth & ((nth <= p["audits_per_quarter"]) if p["audits_per_quarter"] > 0 else pl.lit(True))
     watch_from = WATCH_SHARE * p["audit_cost"] if p["audit_cost"] > 0 else 0.0
@@ -397,8 +406,8 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         .when(pl.col("_f_above_band") & pl.col("_f_poor_fit")).then(pl.lit("Watch"))
         .otherwise(pl.lit("No action")).alias("tier"))
     out = out.with_columns(pl.col("tier").replace_strict(TIER_RANK, return_dtype=pl.Int64).alias("tier_rank"))
-    out = out.sort(["tier_rank", "_order_money", "ratio", "building_id"],
-                   descending=[False, True, True, False], nulls_last=True)
+    out = out.sort(["tier_rank", "_pin", "_order_money", "ratio", "building_id"],
+                   descending=[False, True, True, True, False], nulls_last=True)
     out = out.with_row_index("rank", offset=1).with_columns(pl.col("rank").cast(pl.Int64))
     out = _explain(out, t, energy_factor=energy_factor, energy_unit=energy_unit, currency=currency)
     return out.drop([c for c in out.columns if c.startswith("_")])

@@ -80,3 +80,20 @@ SELECT run_id, run_key FROM runs
 WHERE status = 'ok' AND run_id <> $run_id
   AND window_end < (SELECT window_end FROM runs WHERE run_id = $run_id)
 ORDER BY window_end DESC, started_at DESC, run_id DESC LIMIT 1;
+
+-- name: plan_before_events
+-- For each (building_id, audit_date) of stage_audits: what the latest successful run whose window
+-- ended before that day said of the building (the list an audit acted on; issue 17).
+SELECT building_id, audit_date, in_plan, cost_then, mechanism_then FROM (
+  SELECT a.building_id, a.audit_date,
+         CAST(json_extract(r.record, '$.in_plan') AS BOOLEAN) AS in_plan,
+         CAST(json_extract(r.record, '$.expected_recoverable_cost') AS DOUBLE) AS cost_then,
+         json_extract_string(r.record, '$.mechanisms[0]') AS mechanism_then,
+         row_number() OVER (PARTITION BY a.building_id, a.audit_date
+                            ORDER BY u.window_end DESC, u.started_at DESC, u.run_id DESC) AS k
+  FROM stage_audits a
+  JOIN results r ON r.building_id = a.building_id
+  JOIN runs u ON u.run_id = r.run_id
+  WHERE u.status = 'ok' AND u.window_end < a.audit_date
+) WHERE k = 1
+ORDER BY building_id, audit_date;

@@ -73,6 +73,31 @@ def test_same_seed_same_frames_other_seed_differs(frames):
     assert not frames["weather"].equals(other["weather"])
 
 
+def test_a_space_heat_cut_of_zero_changes_nothing_and_a_cut_changes_only_quantities():
+    a = sim.simulate_portfolio(40, seed=5, start=START, years=2)
+    zero = sim.simulate_portfolio(40, seed=5, start=START, years=2, space_heat_cut=(date(2024, 6, 1), np.zeros(40)))
+    for k in ("buildings", "readings", "weather", "truth"):
+        assert a[k].equals(zero[k]), k
+    cuts = np.where(np.arange(40) < 20, 0.2, 0.0)
+    cut = sim.simulate_portfolio(40, seed=5, start=START, years=2, space_heat_cut=(date(2024, 6, 1), cuts))
+    key = ["building_id", "fuel", "period_start", "period_end"]
+    assert cut["readings"].select(key).equals(a["readings"].select(key))
+    j = a["readings"].with_columns(cut["readings"]["quantity"].alias("q_cut"))
+    heat = j.join(a["buildings"].select("building_id", "heating_fuel"), on="building_id").filter(
+        pl.col("fuel") == pl.col("heating_fuel"))
+    before = heat.filter(pl.col("period_end") < date(2024, 6, 1))
+    assert (before["quantity"] == before["q_cut"]).all()                   # nothing changes before the day
+    after = heat.filter((pl.col("period_start") >= date(2024, 10, 1)) & (pl.col("period_end") < date(2025, 4, 1)))
+    ids = a["buildings"]["building_id"].to_list()
+    cut_ids = ids[:20]
+    got = after.group_by("building_id").agg((pl.col("q_cut").sum() / pl.col("quantity").sum()).alias("r"))
+    r = dict(got.iter_rows())
+    assert all(r[i] < 0.99 for i in cut_ids if i in r)                     # winter fuel down with the cut
+    assert all(r[i] == 1.0 for i in ids[20:] if i in r)                    # untouched buildings the same
+    with pytest.raises(ValueError, match="space_heat_cut"):
+        sim.simulate_portfolio(4, seed=5, start=START, years=1, space_heat_cut=(date(2024, 6, 1), np.ones(4)))
+
+
 def test_result_does_not_depend_on_chunk_size():
     a = sim.simulate_portfolio(90, seed=5, start=START, years=1, chunk=64)
     b = sim.simulate_portfolio(90, seed=5, start=START, years=1, chunk=7)

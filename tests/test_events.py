@@ -1,0 +1,198 @@
+"""The events file (issue 17): read through the project's reader, bad rows rejected with their reasons,
+optional on a run, and a measure's savings in savings.csv and summary.json."""
+
+from __future__ import annotations
+
+import json
+
+import polars as pl
+import pytest
+
+from screening import config, events, runner
+from screening.errors import InputError
+from tests.conftest import AS_OF, cli
+
+HEADER = "building_id,date,kind,finding,mechanism,description,expected_savings,cost\n"
+
+
+def _write(tmp_path, text, name="events.csv"):
+    p = tmp_path / name
+    p.write_text(text, encoding="utf-8")
+    return p
+
+
+def test_good_rows_and_every_bad_row_with_its_reason(tmp_path):
+    rows = [
+        "B01,2024-03-01,measure,,controls,new boiler controls,5000,12000",     # line 2: good
+        "B02,2024-02-10,audit,confirmed,heat loss,dampers open,,",             # 3: good
+        "B03,2024-01-05,audit,none_found,,,,",                                 # 4: good
+        "B04,2024-02-30,measure,,,,,",                                         # 5: not a date
+        "B99,2024-01-01,audit,,,,,",                                           # 6: unknown building
+        "B05,2024-01-01,sweep,,,,,",                                           # 7: unknown kind
+        "B06,2024-01-01,measure,confirmed,,,,",                                # 8: finding on a measure
+        "B05,2024-01-01,audit,maybe,,,,",                                      # 9: unknown finding
+        "B05,2024-01-01,operation,,,,,-5",                                     # 10: negative cost
+        "B06,2024-05-01,measure,,,a,,",                                        # 11, 12: two measures one day
+        "B06,2024-05-01,measure,,,b,,",
+        "B03,2024-01-05,audit,none_found,,,,",                                 # 13: exact duplicate of 4
+        ",2024-01-01,audit,,,,,",                                              # 14: empty id
+    ]
+    p = _write(tmp_path, HEADER + "\n".join(rows) + "\n")
+    ld = events.read_events(str(p), building_ids=pl.Series(["B01", "B02", "B03", "B04", "B05", "B06"]))
+    assert ld.df["building_id"].to_list() == ["B01", "B02", "B03"]
+    rej = {(r["line"], r["column"]): r for r in ld.rejects.iter_rows(named=True)}
+    assert set(rej) == {(5, "date"), (6, "building_id"), (7, "kind"), (8, "finding"), (9, "finding"), (10, "cost"),
+                        (11, "date"), (12, "date"), (14, "building_id")}
+    assert rej[(6, "building_id")]["reason"] == "unknown building (not among the accepted buildings)"
+    assert "audit, measure, operation, meter_change, vacancy" in rej[(7, "kind")]["reason"]
+    assert "belongs to an audit" in rej[(8, "finding")]["reason"]
+    assert "confirmed, none_found, data_error" in rej[(9, "finding")]["reason"]
+    assert "two different measures" in rej[(11, "date")]["reason"]
+    assert all(r["file"] == str(p) and r["value"] is not None or r["line"] == 14 for r in rej.values())
+    assert any("1 exact duplicate event row" in n for n in ld.notices)
+
+
+def test_missing_required_column_stops(tmp_path):
+    p = _write(tmp_path, "building_id,date\nB01,2024-01-01\n")
+    with pytest.raises(InputError, match="kind"):
+        events.read_events(str(p))
+
+
+def test_config_key_and_its_check():
+    assert config.DEFAULTS["inputs"]["events"] == ""
+    assert config.DEFAULTS["savings"]["blackout_days"] == 30
+    with pytest.raises(Exception, match="blackout_days"):
+        config.load(overrides={"savings": {"blackout_days": -1}})
+
+
+def _run(portfolio, tmp_path, *extra):
+    return cli(["run", "--buildings", str(portfolio.buildings), "--readings", str(portfolio.readings),
+                "--weather", str(portfolio.weather), "--out", str(tmp_path / "out"), "--db",
+                str(tmp_path / "s.duckdb"), "--as-of", AS_OF, "--no-sheets", "--quiet", *extra])
+
+
+def test_a_run_without_events_writes_no_savings(portfolio, tmp_path):
+    res = _run(portfolio, tmp_path)
+    assert res.exit_code == 0, res.output
+    assert not (tmp_path / "out" / "savings.csv").exists()
+    assert "savings" not in json.loads((tmp_path / "out" / "summary.json").read_text())
+
+
+def test_a_measure_on_an_unchanged_building_saves_nothing(portfolio, tmp_path):
+    # the test portfolio's bills follow 24·UA·HDD/η + a constant exactly (conftest), so a measure that
+    # changed nothing must show avoided energy ≈ 0 within the rounding of the bills (0.01 therm)
+    p = _write(tmp_path, HEADER + "B01,2024-01-01,measure,,controls,new controls,,9000\n"
+               "B02,2024-02-01,audit,none_found,,,,\nB77,2024-02-01,audit,,,,,\n")
+    res = _run(portfolio, tmp_path, "--events", str(p))
+    assert res.exit_code == 0, res.output
+    out = tmp_path / "out"
+    s = pl.read_csv(out / "savings.csv", try_parse_dates=True)
+    assert s.height == 1
+    row = s.row(0, named=True)
+    assert row["building_id"] == "B01" and str(row["event_date"]) == "2024-01-01"
+    assert str(row["report_start"]) == "2024-01-31" and str(row["report_end"]) == "2024-12-31"
+    assert row["baseline_n"] >= 11 and row["meets_guideline14"]
+    assert abs(row["avoided_energy"]) < 1e-3 * row["metered"]
+    assert row["avoided_low_90"] <= 0 <= row["avoided_high_90"]
+    assert abs(row["normalized_savings"]) < 1e-3 * row["metered"]
+    assert row["energy_unit"] == "kBtu"
+    rej = pl.read_csv(out / "rejects.csv")
+    bad = rej.filter(pl.col("file") == str(p))
+    assert bad["value"].to_list() == ["B77"] and bad["line"].to_list() == [4]
+    summ = json.loads((out / "summary.json").read_text())["savings"]
+    assert summ["measures"] == 1 and summ["measures_meeting_guideline14"] == 1
+    assert summ["avoided_u90"] == pytest.approx(row["avoided_high_90"] - row["avoided_energy"], abs=0.2)
+
+
+# ------------------------------------------------------------------------------------------------
+# the plan and the events
+# ------------------------------------------------------------------------------------------------
+
+
+def _run_lib(portfolio, tmp_path, as_of, events_path=None, name="out", **plan):
+    inputs = {"buildings": str(portfolio.buildings), "readings": str(portfolio.readings),
+              "weather": str(portfolio.weather)}
+    if events_path is not None:
+        inputs["events"] = str(events_path)
+    runner.run(overrides={"inputs": inputs, "store": {"database": str(tmp_path / "s.duckdb")},
+                          "analysis": {"as_of": as_of}, "output": {"sheets": False},
+                          "plan": {"audit_cost": 0.0, **plan}},
+               out_dir=str(tmp_path / name), force=True, quiet=True)
+    out = tmp_path / name
+    return pl.read_csv(out / "ranking.csv", infer_schema_length=None), json.loads((out / "summary.json").read_text())
+
+
+def test_clean_audit_keeps_off_the_plan_and_confirmed_finding_is_pinned(portfolio, tmp_path):
+    base, _ = _run_lib(portfolio, tmp_path, AS_OF, name="plain")
+    tier = dict(zip(base["building_id"], base["tier"]))
+    assert tier["B03"] == "Audit first"                    # the wasteful building of the test portfolio
+    last = base.filter(pl.col("tier") == "Audit first").sort("rank")["building_id"][-1]
+    assert last != "B03"
+    p = _write(tmp_path, HEADER + "B03,2024-11-01,audit,none_found,,,,\n"
+               f"{last},2024-06-01,audit,confirmed,controls,schedule stuck,,\n")
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="ev")
+    r = {row["building_id"]: row for row in ranked.iter_rows(named=True)}
+    assert r["B03"]["tier"] != "Audit first"               # kept off the plan (no earlier run on record)
+    assert r[last]["rank"] == 1 and r[last]["tier"] == "Audit first"   # pinned to the top
+    notes = {n["building_id"]: n["note"] for n in summ["plan_notes"]}
+    assert "found nothing: kept off the plan until 2025-11-01" in notes["B03"]
+    assert "confirmed a finding (controls)" in notes[last]
+    # a measure after the confirmed finding: no longer pinned; the rest period over: back on the plan
+    p2 = _write(tmp_path, HEADER + "B03,2023-10-01,audit,none_found,,,,\n"
+                f"{last},2023-05-01,audit,confirmed,controls,,,\n{last},2023-06-01,measure,,controls,fixed,,\n",
+                name="ev2.csv")
+    ranked2, summ2 = _run_lib(portfolio, tmp_path, AS_OF, p2, name="ev2")
+    assert ranked2.select("building_id", "tier", "rank").equals(base.select("building_id", "tier", "rank"))
+    assert summ2["plan_notes"] == []
+
+
+def test_a_clean_audit_comes_back_when_the_savings_grew(portfolio, tmp_path):
+    import duckdb
+    _run_lib(portfolio, tmp_path, "2024-10-15", name="q3")          # the list the audit acted on
+    p = _write(tmp_path, HEADER + "B03,2024-10-20,audit,none_found,,,,\n")
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="q4")
+    assert dict(zip(ranked["building_id"], ranked["tier"]))["B03"] != "Audit first"   # savings as before: off
+    assert "those of the list it was audited from" in summ["plan_notes"][0]["note"]
+    # the earlier list's figure for B03 made small: today's savings are far above 2× it
+    con = duckdb.connect(str(tmp_path / "s.duckdb"))
+    con.execute("UPDATE results SET record = json_merge_patch(record, '{\"expected_recoverable_cost\": 1.0}') "
+                "WHERE building_id = 'B03' AND run_id LIKE '2024-Q3%'")
+    con.close()
+    ranked, _ = _run_lib(portfolio, tmp_path, AS_OF, p, name="q4b")
+    assert dict(zip(ranked["building_id"], ranked["tier"]))["B03"] == "Audit first"
+
+
+def test_the_hit_rate_counts_exactly(portfolio, tmp_path):
+    first, _ = _run_lib(portfolio, tmp_path, "2024-10-15", name="q3")
+    planned = first.filter(pl.col("tier") == "Audit first").sort("rank")["building_id"].to_list()
+    off = first.filter(pl.col("tier") != "Audit first")["building_id"].to_list()
+    assert len(planned) >= 2 and off
+    p = _write(tmp_path, HEADER + "\n".join([
+        f"{planned[0]},2024-10-20,audit,confirmed,,,,",
+        f"{planned[1]},2024-11-20,audit,none_found,,,,",
+        f"{off[0]},2024-10-25,audit,confirmed,,,,",        # audited although not on the plan
+        f"{planned[0]},2023-01-10,audit,none_found,,,,",   # before any run on record
+        f"{planned[1]},2024-10-21,operation,,,,,",         # not an audit
+    ]) + "\n")
+    _, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="q4")
+    h = summ["audit_hit_rate"]
+    assert (h["audits_with_a_finding"], h["audits_without_an_earlier_run"], h["audited_from_plan"],
+            h["confirmed"], h["rate"], h["audited_off_plan"]) == (4, 1, 2, 1, 0.5, 1)
+    assert h["by_quarter"] == {"2024-Q4": {"audited": 2, "confirmed": 1, "rate": 0.5}}
+    assert sum(v["audited"] for v in h["by_mechanism"].values()) == 2
+
+
+def test_a_recent_measure_is_not_planned_on_months_that_mix_before_and_after(portfolio, tmp_path):
+    base, _ = _run_lib(portfolio, tmp_path, AS_OF, name="plain")
+    assert dict(zip(base["building_id"], base["tier"]))["B03"] == "Audit first"
+    # window 2024-01-01..2024-12-31; 2024-06-01 + 30 days blackout + 12 months is after the window: mixed
+    p = _write(tmp_path, HEADER + "B03,2024-05-01,audit,confirmed,controls,,,\nB03,2024-06-01,measure,,controls,,,\n")
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="recent")
+    assert dict(zip(ranked["building_id"], ranked["tier"]))["B03"] != "Audit first"
+    (note,) = [n["note"] for n in summ["plan_notes"] if n["building_id"] == "B03"]
+    assert note.startswith("measure of 2024-06-01") and "12 months from 2024-07-01" in note
+    # a measure whose 12 months after the blackout end by the window's end: judged as usual
+    p = _write(tmp_path, HEADER + "B03,2023-11-01,measure,,controls,,,\n", name="old.csv")
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="old")
+    assert ranked.select("building_id", "tier", "rank").equals(base.select("building_id", "tier", "rank"))
+    assert summ["plan_notes"] == []
