@@ -236,16 +236,23 @@ def assumptions_table(envelope: pl.DataFrame, disp: "Display") -> pl.DataFrame:
         shown.alias("unit"), "origin", "source")
 
 
+#: A whole cell that is a plain decimal number (``-412.0``, ``+3``, ``-2e5``, ``.5``): a spreadsheet reads it
+#: as that number, never as a formula, so the guard leaves it alone (``-2+3`` or ``-1e`` are not numbers).
+PLAIN_NUMBER = r"^[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?$"
+
+
 def neutralize_formulas(df: pl.DataFrame) -> pl.DataFrame:
     """Prefix text cells that a spreadsheet would run as a formula (= + - @ tab CR) with ``'``.
 
-    The usual defence against CSV formula injection (OWASP "CSV Injection").
+    The usual defence against CSV formula injection (OWASP "CSV Injection"). A text cell that is
+    a plain number (``PLAIN_NUMBER``, e.g. a rejected value ``-412.0``) is left as it is.
     """
     exprs = []
     for name, dtype in df.schema.items():
         if dtype == pl.String:
             c = pl.col(name)
-            exprs.append(pl.when(c.str.contains(r"^[=+\-@\t\r]")).then(pl.lit("'") + c).otherwise(c).alias(name))
+            risky = c.str.contains(r"^[=+\-@\t\r]") & ~c.str.contains(PLAIN_NUMBER)
+            exprs.append(pl.when(risky).then(pl.lit("'") + c).otherwise(c).alias(name))
     return df.with_columns(exprs) if exprs else df
 
 
