@@ -236,11 +236,15 @@ def fmt_money(x, currency: str = "$") -> str:
     return f"{'-' if x < 0 else ''}{currency}{fmt_num(abs(x))}"
 
 
+#: CO2e is kept in kg in the data files (ranking.csv, summary.json, the database) and shown in tonnes
+#: in every rendered output (sheets, ranking.pdf), formatted as any other figure (fmt_num).
+CO2E_UNIT = "t"
+
+
 def fmt_co2e(kg) -> tuple[str, str]:
-    """(value, unit): kilograms below 10,000 kg, tonnes with one decimal from there."""
-    if _finite(kg) and abs(kg) >= 10_000:
-        return (f"{kg / 1000:,.1f}" if abs(kg) < 1e12 else fmt_num(kg / 1000)), "t"
-    return fmt_num(kg), "kg"
+    """(value, unit) for display: always tonnes (``CO2E_UNIT``), rounded by :func:`fmt_num`
+    (950 kg -> 0.95 t, 25,400 kg -> 25.4 t, 3,809,200 kg -> 3,809 t)."""
+    return fmt_num(kg / 1000 if _finite(kg) else kg), CO2E_UNIT
 
 
 def _ordinal(p) -> str:

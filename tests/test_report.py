@@ -110,7 +110,9 @@ def test_fmt_money_and_co2e():
     assert report.fmt_money(12345.6) == "$12,346"
     assert report.fmt_money(-50.0) == "-$50"
     assert report.fmt_co2e(25400.0) == ("25.4", "t")   # by hand: 25,400 kg = 25.4 t
-    assert report.fmt_co2e(950.0) == ("950", "kg")
+    assert report.fmt_co2e(950.0) == ("0.95", "t")     # one unit in every rendered output
+    assert report.fmt_co2e(0.0) == ("0", "t") and report.fmt_co2e(3_809_200.0) == ("3,809", "t")
+    assert report.fmt_co2e(None) == ("n/a", "t")
 
 
 # --- sheets -------------------------------------------------------------------------
