@@ -920,7 +920,7 @@ def _as_seen(store: Store, db_path: str, runs: pl.DataFrame) -> pl.DataFrame:
         return runs
     held = _lock_held(str(db_path) + ".lock")
     try:
-        files = dict((rid, f) for rid, _out, f in store.rows("runs_publishing"))
+        files = dict((rid, f) for rid, _out, f, _shown in store.rows("runs_publishing"))
     except (StoreError, duckdb.Error):  # a database of version 1 has no files column
         files = {}
     seen = [published.display_status(st, Path(od), files.get(rid), lock_held=held)

@@ -27,7 +27,8 @@ WHERE run_id = $run_id;
 UPDATE runs SET status = $status, message = $message WHERE run_id = $run_id;
 
 -- name: runs_publishing
-SELECT run_id, out_dir, files FROM runs WHERE status = 'publishing' ORDER BY started_at, run_id;
+SELECT run_id, out_dir, files, COALESCE(run_key, run_id) AS run_key FROM runs WHERE status = 'publishing'
+ORDER BY started_at, run_id;
 
 -- name: mark_stale_runs
 -- Runs left 'running' by a process that died are marked as interrupted.
