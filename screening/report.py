@@ -255,8 +255,15 @@ def _ordinal(p) -> str:
     return f"{n}{suffix} percentile"
 
 
+#: Bidirectional embedding, override and isolate controls (U+202A-U+202E, U+2066-U+2069): one in a
+#: building's name would reverse or reorder the rest of a title or line, so no displayed text keeps
+#: them (right-to-left names still show right to left: that comes from their letters, not from these).
+_BIDI_CONTROLS = re.compile(r"[\u202a-\u202e\u2066-\u2069]")
+
+
 def _cut(text, n: int) -> str:
-    text = "" if text is None else str(text)
+    """Text for display: bidirectional controls removed, at most ``n`` characters (then "…")."""
+    text = _BIDI_CONTROLS.sub("", "" if text is None else str(text))
     return text if len(text) <= n else text[: n - 1].rstrip() + "…"
 
 

@@ -457,3 +457,15 @@ def test_pages_are_still_written_when_the_fast_split_is_unavailable(tmp_path, mo
         r = PdfReader(p)
         assert len(r.pages) == 1 and s["building_id"] in r.metadata.title
         assert s["building_id"] in r.pages[0].extract_text()
+
+
+def test_a_bidi_override_in_a_name_does_not_reverse_the_title(tmp_path):
+    """U+202E (right-to-left override) in a name would draw the rest of the title backwards;
+    the sheet shows the name in its own order (issue 15)."""
+    s = make_sheet(0)
+    s.update({"building_id": "B-BIDI", "name": "Kestrel \u202eRow Depot\u202c"})
+    assert report.sheet_title(s).startswith("Kestrel Row Depot")
+    (path,) = report.render_sheets_one_by_one([s], tmp_path)
+    with pdfplumber.open(path) as pdf:
+        text = pdf.pages[0].extract_text()
+    assert "Kestrel Row Depot" in text and "topeD" not in text
