@@ -410,7 +410,7 @@ def ratio_histogram(ratios: Sequence[float | None], *, width: float = 520, heigh
                f'stroke-dasharray="4 2"/><text x="{x1 + 3:.1f}" y="{f.y1 + 8:.1f}" font-size="8" {_FONT}>'
                f'metered = expected</text>')
     out.append(f'<text x="{f.x1:.1f}" y="{f.y1 + 8:.1f}" text-anchor="end" font-size="7.5" {_FONT} fill="{MID}">'
-               f'last bar: ratio {top:g} and above; {r.size} building(s)</text>')
+               f'last bar: ratio {top:g} and above, {int(counts[-1])} building(s) of the {r.size} plotted</text>')
     out.append("</svg>")
     return "".join(out)
 

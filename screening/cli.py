@@ -297,15 +297,15 @@ def status(
         typer.echo("no runs recorded yet")
         return
     for r in runs.iter_rows(named=True):
-        typer.echo(f"{r['run_id']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}  "
+        typer.echo(f"{r['run_key']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}  "
                    f"started {r['started_at']:%Y-%m-%d %H:%M}  {r['out_dir'] or '-'}")
 
 
 @app.command()
 def history(
     db: Annotated[str, typer.Option(help="DuckDB file")] = "screening.duckdb",
-    older: Annotated[Optional[str], typer.Option(help="run id of the older run")] = None,
-    newer: Annotated[Optional[str], typer.Option(help="run id of the newer run")] = None,
+    older: Annotated[Optional[str], typer.Option(help="run id of the older run (as on its outputs)")] = None,
+    newer: Annotated[Optional[str], typer.Option(help="run id of the newer run (as on its outputs)")] = None,
 ):
     """List the runs and show what changed between two of them (default: the last two successful)."""
     from . import runner
@@ -314,7 +314,7 @@ def history(
     except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     for r in runs.iter_rows(named=True):
-        typer.echo(f"{r['run_id']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}")
+        typer.echo(f"{r['run_key']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}")
     if diff is None:
         typer.echo("fewer than two successful runs: nothing to compare")
         return

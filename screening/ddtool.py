@@ -111,7 +111,7 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
     -------
     pl.DataFrame
         ``station_id, period_start, period_end, days, days_missing, hdd, cdd, method, base,
-        unit``, sorted by period.
+        unit``, sorted by period; degree days and base rounded to ``DECIMALS`` (2) places.
 
     Raises
     ------
@@ -195,9 +195,18 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
     if not normal:
         # (by == "period" exactly when a periods file is given: checked above)
         periods = _read_periods(periods_path, station) if periods_path is not None else None
-        return degree_day_table(cube, station_ids=[station], by=by, date_from=d_from, date_to=d_to,
-                                periods=periods, kind=kind, base_f=base_f, unit=unit)
-    return _normal_table(cube, station, by, d_from, d_to, kind, base_f, unit)
+        table = degree_day_table(cube, station_ids=[station], by=by, date_from=d_from, date_to=d_to,
+                                 periods=periods, kind=kind, base_f=base_f, unit=unit)
+    else:
+        table = _normal_table(cube, station, by, d_from, d_to, kind, base_f, unit)
+    return table.with_columns(pl.col("hdd", "cdd", "base").round(DECIMALS))
+
+
+#: Decimals of the degree days and the base in the report. Daily means carry at most 0.05 ° (the mean
+#: of two temperatures given to 0.1 °), so a day's degree days are exact to 2 decimals in °F and to
+#: well under 0.01 in °C (÷ 1.8); a sum printed with more digits shows only floating-point noise
+#: (206.4499999999989 is 206.45).
+DECIMALS = 2
 
 
 #: Heating and cooling bases used in practice lie within these ranges (common practice: 50-70 °F

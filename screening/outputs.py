@@ -118,7 +118,7 @@ def display_assumptions(items: list[dict] | None, disp: "Display") -> list[dict]
 
 
 RANKING_COLUMNS = [
-    "rank", "building_id", "name", "use_type", "floor_area", "year_built", "station_id", "heating_fuel",
+    "rank", "building_id", "name", "address", "city", "use_type", "floor_area", "year_built", "station_id", "heating_fuel",
     "period_start", "period_end", "span_kind", "coverage", "filled_days", "hdd", "base_temperature", "hdd65",
     "actual_heating", "expected_heating", "expected_low", "expected_high", "expected_fixed_base",
     "expected_modified", "ratio", "band_position", "heating_intensity", "peer_group", "peer_median_intensity",
@@ -127,8 +127,8 @@ RANKING_COLUMNS = [
     "ua_infiltration", "ua_ventilation", "ua_total", "envelope_source", "excess_energy", "excess_cost",
     "excess_co2e", "expected_recoverable_energy", "expected_recoverable_cost", "expected_recoverable_co2e",
     *[c for m in screen.MECHANISMS for c in (f"excess_{m}", f"excess_{m}_cost", f"excess_{m}_co2e", f"sure_{m}")],
-    "evidence_scale", "peer_weight", "waste_kind", "tier", "needs_review", "review_path", "flags", "data_issues",
-    "change", "previous_rank", "energy_unit",
+    "evidence_scale", "peer_weight", "waste_kind", "tier", "verdict", "needs_review", "review_path", "flags",
+    "data_issues", "change", "previous_rank", "energy_unit",
 ]
 
 
@@ -137,7 +137,7 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
     d = disp
     ua_cols = ["ua_walls", "ua_windows", "ua_roof", "ua_ground", "ua_infiltration", "ua_ventilation", "ua_total"]
     out = res.select(
-        "rank", "building_id", "name", "use_type",
+        "rank", "building_id", "name", "address", "city", "use_type",
         d.area(pl.col("floor_area_ft2")).round(1).alias("floor_area"),
         "year_built", "station_id", "heating_fuel",
         pl.col("span_start").alias("period_start"), pl.col("span_end").alias("period_end"), "span_kind",
@@ -175,7 +175,7 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
                     pl.col(f"excess_{m}_cost").round(2), pl.col(f"excess_{m}_co2e_kg").round(1).alias(f"excess_{m}_co2e"),
                     pl.col(f"sure_{m}").round(3))],
         "evidence_scale", pl.col("peer_weight").round(3), "waste_kind",
-        "tier", "needs_review", "review_path",
+        "tier", "verdict", "needs_review", "review_path",
         pl.col("flag_codes").list.join(";").alias("flags"),
         pl.col("data_issue_codes").list.join(";").alias("data_issues"),
         pl.lit(d.energy_unit).alias("energy_unit"),
@@ -236,16 +236,23 @@ def assumptions_table(envelope: pl.DataFrame, disp: "Display") -> pl.DataFrame:
         shown.alias("unit"), "origin", "source")
 
 
+#: A whole cell that is a plain decimal number (``-412.0``, ``+3``, ``-2e5``, ``.5``): a spreadsheet reads it
+#: as that number, never as a formula, so the guard leaves it alone (``-2+3`` or ``-1e`` are not numbers).
+PLAIN_NUMBER = r"^[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?$"
+
+
 def neutralize_formulas(df: pl.DataFrame) -> pl.DataFrame:
     """Prefix text cells that a spreadsheet would run as a formula (= + - @ tab CR) with ``'``.
 
-    The usual defence against CSV formula injection (OWASP "CSV Injection").
+    The usual defence against CSV formula injection (OWASP "CSV Injection"). A text cell that is
+    a plain number (``PLAIN_NUMBER``, e.g. a rejected value ``-412.0``) is left as it is.
     """
     exprs = []
     for name, dtype in df.schema.items():
         if dtype == pl.String:
             c = pl.col(name)
-            exprs.append(pl.when(c.str.contains(r"^[=+\-@\t\r]")).then(pl.lit("'") + c).otherwise(c).alias(name))
+            risky = c.str.contains(r"^[=+\-@\t\r]") & ~c.str.contains(PLAIN_NUMBER)
+            exprs.append(pl.when(risky).then(pl.lit("'") + c).otherwise(c).alias(name))
     return df.with_columns(exprs) if exprs else df
 
 

@@ -146,13 +146,13 @@ def settle_dead_runs(store: Store) -> list[str]:
     ``interrupted``, as is every run still ``running``. Returns one note per settled run.
     """
     notes = []
-    for run_id, out_dir, files in store.rows("runs_publishing"):
+    for run_id, out_dir, files, shown in store.rows("runs_publishing"):
         folder = folder_of(out_dir, store)
         rec = json.loads(files) if files else {}
         done = ANCHOR in rec and matches(folder, rec, ANCHOR)
         store.execute("set_run_status", {"run_id": run_id, "status": "ok" if done else "interrupted",
                                          "message": "" if done else "the process ended while publishing"})
-        notes.append(f"run {run_id} ended while publishing: marked {'ok (its outputs are in place)' if done else 'interrupted'}")
+        notes.append(f"run {shown} ended while publishing: marked {'ok (its outputs are in place)' if done else 'interrupted'}")
     store.execute("mark_stale_runs")
     return notes
 

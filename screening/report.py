@@ -236,11 +236,15 @@ def fmt_money(x, currency: str = "$") -> str:
     return f"{'-' if x < 0 else ''}{currency}{fmt_num(abs(x))}"
 
 
+#: CO2e is kept in kg in the data files (ranking.csv, summary.json, the database) and shown in tonnes
+#: in every rendered output (sheets, ranking.pdf), formatted as any other figure (fmt_num).
+CO2E_UNIT = "t"
+
+
 def fmt_co2e(kg) -> tuple[str, str]:
-    """(value, unit): kilograms below 10,000 kg, tonnes with one decimal from there."""
-    if _finite(kg) and abs(kg) >= 10_000:
-        return (f"{kg / 1000:,.1f}" if abs(kg) < 1e12 else fmt_num(kg / 1000)), "t"
-    return fmt_num(kg), "kg"
+    """(value, unit) for display: always tonnes (``CO2E_UNIT``), rounded by :func:`fmt_num`
+    (950 kg -> 0.95 t, 25,400 kg -> 25.4 t, 3,809,200 kg -> 3,809 t)."""
+    return fmt_num(kg / 1000 if _finite(kg) else kg), CO2E_UNIT
 
 
 def _ordinal(p) -> str:
@@ -251,8 +255,15 @@ def _ordinal(p) -> str:
     return f"{n}{suffix} percentile"
 
 
+#: Bidirectional embedding, override and isolate controls (U+202A-U+202E, U+2066-U+2069): one in a
+#: building's name would reverse or reorder the rest of a title or line, so no displayed text keeps
+#: them (right-to-left names still show right to left: that comes from their letters, not from these).
+_BIDI_CONTROLS = re.compile(r"[\u202a-\u202e\u2066-\u2069]")
+
+
 def _cut(text, n: int) -> str:
-    text = "" if text is None else str(text)
+    """Text for display: bidirectional controls removed, at most ``n`` characters (then "…")."""
+    text = _BIDI_CONTROLS.sub("", "" if text is None else str(text))
     return text if len(text) <= n else text[: n - 1].rstrip() + "…"
 
 
@@ -1105,41 +1116,135 @@ def render_sheets_one_by_one(sheets: list[dict[str, Any]], out_dir: Path, *, pap
 
 # The ranked table is laid out as pages of side-by-side columns of newline-separated text
 # (white-space: pre; one box per column and page instead of one per cell): measured
-# ~8x cheaper than the <table> it replaced (DEVELOPERS.md "Rendering"). Text does not
-# wrap, so every field is cut to its column (RANK_COLUMNS: key, header, width %, chars,
-# right-aligned; widths add up to 99.5%, as 100% wraps the last float on A4 by rounding) and
-# the rows are split into pages here, so each page repeats the header.
+# ~8x cheaper than the <table> it replaced (DEVELOPERS.md "Rendering"). The text does not
+# wrap by itself, so every field is wrapped here to its column's width, measured with the
+# font's own advance widths (``_text_width``), and the other columns of that row get blank
+# lines; a row takes as many lines as its tallest field (at most ``MAX_CELL_LINES``). The rows
+# are split into pages here, so each page repeats the header, and a stripe per row (zebra)
+# lies behind the text. RANK_COLUMNS: key, header, width %, right-aligned; widths add up to
+# 99.5%, as 100% wraps the last float on A4 by rounding.
 RANK_COLUMNS = [
-    ("rank", "#", 4.0, 6, True), ("building_id", "id", 8.0, 14, False), ("name", "name", 16.0, 34, False),
-    ("use_type", "use", 8.5, 14, False), ("tier", "tier", 8.0, 14, False), ("ratio", "ratio", 5.0, 8, True),
-    ("heating_intensity", "intensity", 7.0, 9, True), ("expected_recoverable_cost", "exp. savings", 10.5, 14, True),
-    ("excess_cost", "excess cost", 9.0, 13, True), ("flags", "flags", 12.5, 34, False),
-    ("data_issues", "data issues", 11.0, 30, False),
+    ("rank", "#", 4.5, True), ("building_id", "id", 6.5, False), ("name", "name", 12.5, False),
+    ("use_type", "use", 8.0, False), ("tier", "tier", 9.0, False), ("ratio", "ratio", 6.0, True),
+    ("heating_intensity", "intensity", 7.2, True), ("expected_recoverable_cost", "exp. savings", 9.5, True),
+    ("excess_cost", "excess cost", 8.5, True), ("flags", "flags", 15.8, False),
+    ("data_issues", "data issues", 12.0, False),
 ]
-# Rows per table page. Content heights: page height minus the 14 + 16 mm margins of
-# ranking.css (Letter 792 pt, A4 841.89 pt); one row is the 9.6 pt line of .tbl; the header
-# band, the zebra background's offset and a safety margin take 40 pt; the first table page
-# also carries the section title and its note (58 pt). Checked by test_report's page counts.
+# Lines per table page. Content heights: page height minus the 14 + 16 mm margins of
+# ranking.css (Letter 792 pt, A4 841.89 pt); one line is the 9.6 pt line of .tbl; the header
+# band (one line), the page's bottom border and a safety margin take 40 pt; the first table page
+# also carries the section title and its note (58 pt). A header of more lines takes them off
+# every page. Checked by test_report's page counts.
 _ROW_PT = 9.6
 _ROWS_PER_PAGE = {paper: int((h - 30 * 72 / 25.4 - 40) // _ROW_PT) for paper, h in (("Letter", 792.0),
                                                                                      ("A4", 841.89))}
 _FIRST_PAGE_LOSS = 6
-_COLUMN_CSS = [{"cls": f"k{j}", "width": w, "right": right} for j, (_k, _h, w, _c, right) in enumerate(RANK_COLUMNS)]
-MAX_ISSUE_LINES = 1000
-PLAN_LINES = 10   # audit-plan rows on ranking.pdf's first page (the rest: audit_plan.csv)  # data-issue lines in ranking.pdf; data_issues.csv has them all
+MAX_CELL_LINES = 6        # a field longer than this many lines ends its last line with "…"
+_TABLE_PT = {"body": 7.2, "small": 6.6}   # ranking.css: .thead/.tbl font size; .k9/.k10 (flags, issues)
+_CELL_PAD_MM = 0.8                        # ranking.css: padding left and right of each column
+_COLUMN_CSS = [{"cls": f"k{j}", "width": w, "right": right} for j, (_k, _h, w, right) in enumerate(RANK_COLUMNS)]
+MAX_ISSUE_LINES = 1000    # data-issue lines in ranking.pdf; data_issues.csv has them all
+PLAN_LINES = 10   # audit-plan rows on ranking.pdf's first page (the rest: audit_plan.csv)
 
 
-def _table_pages(rows: list[dict[str, str]], paper: str) -> list[dict[str, Any]]:
-    """The ranked rows cut into pages, each page a list of column texts (one line per row)."""
-    per_page = _ROWS_PER_PAGE[paper]
-    pages, i, first = [], 0, True
-    while i < len(rows):
-        n = per_page - (_FIRST_PAGE_LOSS if first else 0)
-        chunk = rows[i:i + n]
-        pages.append({"first": first, "cols": [
-            {"cls": f"k{j}", "text": "\n".join(_one_line(r[key], chars) for r in chunk)}
-            for j, (key, _h, _w, chars, _right) in enumerate(RANK_COLUMNS)]})
-        i += n
+_ADVANCES: dict[bool, dict[int, float]] = {}
+
+
+def _text_width(text: str, size: float, *, bold: bool = False) -> float:
+    """Width [pt] of ``text`` in the report's font at ``size`` pt: the sum of its glyphs' advance
+    widths (the fonts have no kerning or layout tables). A character the font lacks is drawn by a
+    fallback font: counted as 1 em, about the widest (CJK ideographs)."""
+    adv = _ADVANCES.get(bold)
+    if adv is None:
+        from fontTools.ttLib import TTFont   # weasyprint's own dependency
+        f = TTFont(str(templates_dir() / "fonts" / ("ddscreen-sans-bold.ttf" if bold else "ddscreen-sans.ttf")),
+                   lazy=True)
+        upm, hmtx = f["head"].unitsPerEm, f["hmtx"]
+        adv = _ADVANCES[bold] = {cp: hmtx[g][0] / upm for cp, g in f.getBestCmap().items()}
+    return size * sum(adv.get(ord(c), 0.0 if unicodedata.combining(c) else 1.0) for c in text)
+
+
+_BREAK_AFTER = re.compile(r"(?<=[\s;,/])")   # a line may break after a blank, ; , or /
+
+
+def _wrap(text: str, width: float, size: float, *, bold: bool = False, max_lines: int = MAX_CELL_LINES) -> list[str]:
+    """``text`` as lines no wider than ``width`` pt: broken after blanks and ``; , /``, a word too
+    long for a line broken after a ``_`` (flag codes) or else between characters; at most ``max_lines`` lines, the last then ending in …"""
+    text = _CONTROL.sub(" ", text).strip()
+    if not text:
+        return [""]
+
+    def fits(t: str) -> bool:
+        return _text_width(t.rstrip(), size, bold=bold) <= width
+
+    lines: list[str] = []
+    line = ""
+    for tok in _BREAK_AFTER.split(text):
+        if not tok:
+            continue
+        if fits(line + tok):
+            line += tok
+            continue
+        if line:
+            lines.append(line.rstrip())
+            line = ""
+        while not fits(tok):           # a word wider than the column: cut it where it fills a line
+            k = 1
+            while k < len(tok) and fits(tok[:k + 1]):
+                k += 1
+            under = tok.rfind("_", 0, k)
+            k = under + 1 if under > 0 else k
+            lines.append(tok[:k])
+            tok = tok[k:]
+        line = tok
+    if line.strip():
+        lines.append(line.rstrip())
+    if len(lines) > max_lines:
+        last = lines[max_lines - 1]
+        while last and not fits(last + "…"):
+            last = last[:-1]
+        lines = lines[:max_lines - 1] + [last.rstrip() + "…"]
+    return lines
+
+
+def _column_widths(paper: str) -> list[float]:
+    """Each ranked-table column's text width [pt] on ``paper``: its share of the content width
+    (the page less ranking.css's 12 mm side margins) less its padding, and 0.5 pt to spare."""
+    content = (_CONTENT_MM[paper]) * 72 / 25.4
+    return [content * w / 100 - 2 * _CELL_PAD_MM * 72 / 25.4 - 0.5 for _k, _h, w, _r in RANK_COLUMNS]
+
+
+def _table_header(paper: str, eu: str) -> list[dict[str, str]]:
+    cols = [_wrap(h.format(eu=eu), w, _TABLE_PT["body"], bold=True)
+            for (_k, h, _w, _r), w in zip(RANK_COLUMNS, _column_widths(paper))]
+    n = max(len(c) for c in cols)
+    return [{"cls": f"k{j}", "text": "\n".join(c + [""] * (n - len(c)))} for j, c in enumerate(cols)]
+
+
+def _table_pages(rows: list[dict[str, str]], paper: str, header_lines: int = 1) -> list[dict[str, Any]]:
+    """The ranked rows cut into pages: per page the column texts (each row's fields wrapped to
+    their column and padded with blank lines to the row's height) and each row's height [pt]."""
+    widths = _column_widths(paper)
+    sizes = [_TABLE_PT["small"] if key in ("flags", "data_issues") else _TABLE_PT["body"]
+             for key, _h, _w, _r in RANK_COLUMNS]
+    wrapped = []
+    for r in rows:
+        cells = [_wrap(r[key], w, size) for (key, _h, _w, _r), w, size in zip(RANK_COLUMNS, widths, sizes)]
+        wrapped.append((max(len(c) for c in cells), cells))
+    budget = _ROWS_PER_PAGE[paper] - (header_lines - 1)
+    pages: list[dict[str, Any]] = []
+    i, first = 0, True
+    while i < len(wrapped):
+        room = budget - (_FIRST_PAGE_LOSS if first else 0)
+        chunk: list[tuple[int, list[list[str]]]] = []
+        while i < len(wrapped) and (not chunk or sum(n for n, _ in chunk) + wrapped[i][0] <= room):
+            chunk.append(wrapped[i])
+            i += 1
+        pages.append({"first": first, "lines": sum(n for n, _ in chunk),
+                      "stripes": [f"{n * _ROW_PT:g}" for n, _ in chunk],
+                      "cols": [{"cls": f"k{j}", "text": "\n".join(ln for n, cells in chunk
+                                                                   for ln in cells[j] + [""] * (n - len(cells[j])))}
+                               for j in range(len(RANK_COLUMNS))]})
         first = False
     return pages
 
@@ -1154,12 +1259,11 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
     totals = report.get("totals") or {}
     co2_v, co2_u = fmt_co2e(totals.get("excess_co2e_kg"))
 
-    def joined(v):
+    def joined(v):  # flag and issue codes, "; " between them (a line may break there)
         if v is None:
             return ""
-        if isinstance(v, str):
-            return _cut(v, 80)
-        return _cut(", ".join(str(x) for x in v), 80)
+        codes = v.split(";") if isinstance(v, str) else [str(x) for x in v]
+        return _cut("; ".join(c.strip() for c in codes if c.strip()), 200)
 
     rows = [{
         "rank": str(r.get("rank")) if isinstance(r.get("rank"), int) else "",
@@ -1187,6 +1291,7 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
     if not tiers_in and isinstance(nested.get("per_tier"), dict):
         tiers_in = [{"tier": k, "count": v} for k, v in nested["per_tier"].items()]
     omitted = report.get("rows_omitted")
+    header = _table_header(paper, eu)
     issues_in = report.get("data_issues") or []
     return {
         "run": {k: _cut(run.get(k, "n/a"), 60) for k in ("run_id", "as_of", "window_start", "window_end",
@@ -1218,10 +1323,10 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
             "share": fmt_pct(p.get("cumulative_share"))} for p in report["plan"][:PLAN_LINES]],
         "plan_more": fmt_num(len(report.get("plan") or []) - PLAN_LINES)
         if len(report.get("plan") or []) > PLAN_LINES else "",
-        "header": [{"cls": f"k{j}", "text": h.format(eu=eu)} for j, (_k, h, _w, _c, _r) in enumerate(RANK_COLUMNS)],
-        "table_pages": _table_pages(rows, paper),
+        "header": header,
+        "table_pages": _table_pages(rows, paper, header_lines=header[0]["text"].count("\n") + 1),
         "data_issues": [{"building_id": _one_line(d.get("building_id"), 40), "name": _one_line(d.get("name"), 80),
-                         "code": _one_line(d.get("code"), 40), "explanation": _cut(d.get("explanation"), 300)}
+                         "code": _one_line(d.get("code"), 40), "explanation": _cut(d.get("explanation"), 2000)}
                         for d in issues_in[:MAX_ISSUE_LINES]],
         "data_issues_more": fmt_num(len(issues_in) - MAX_ISSUE_LINES) if len(issues_in) > MAX_ISSUE_LINES else "",
     }

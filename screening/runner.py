@@ -47,6 +47,7 @@ class RunResult:
     top: list[dict] = field(default_factory=list)
     loads: list = field(default_factory=list)
     skipped: bool = False
+    execution_id: str = ""  # the database's key of this execution (run log, runs table); users see run_id
 
 
 # ---------------------------------------------------------------------------- helpers
@@ -246,8 +247,11 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
     bar = bar or _Progress(False)
     need = memory.check(files)  # stops here, nothing changed, when the run clearly cannot fit
     t_start = time.perf_counter()
+    # run_key is the one id a user sees (sheets, ranking.pdf, summary.json, stderr, status, history): the
+    # same for a rerun of the same quarter, inputs and settings, so reruns stay byte-identical. run_id
+    # names this execution in the database and the run log; lookups accept either (_resolve_run).
     run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
-    run_key = _run_key(label, cfg, files)  # the same for a rerun of the same quarter, inputs and settings
+    run_key = _run_key(label, cfg, files)  # the id users see: the same for a rerun of the same quarter, inputs, settings
     store: Store | None  # None while the database is closed for readers (the screening phase)
     store = _open_store(db_path)
     try:
@@ -269,7 +273,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
     timings: dict[str, float] = {}
     publishing = False
     try:
-        log.info("run %s: window %s to %s, database %s", run_id, window[0], window[1], db_path)
+        log.info("run %s: window %s to %s, database %s", run_key, window[0], window[1], db_path)
+        log.debug("run %s: execution %s", run_key, run_id)
         for n in notes:
             log.warning("%s", n)
         store.execute("insert_run", {"run_id": run_id, "run_key": run_key, "label": label, "as_of": as_of,
@@ -352,7 +357,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         if cfg["output"]["sheets"]:
             bar.stage("render sheets")
             t = time.perf_counter()
-            sheets = outputs.sheet_records(res.results, res.envelope, res.periods, disp, run_id=run_id,
+            sheets = outputs.sheet_records(res.results, res.envelope, res.periods, disp, run_id=run_key,
                                            run_date=str(_dt.date.today()), currency=cfg["prices"]["currency"])
             (tmp / "sheets").mkdir()
             names = report.assign_filenames([s["building_id"] for s in sheets])
@@ -378,7 +383,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         outputs.write_json(_deterministic(summary), tmp / "summary.json")
         stage = _results_for_store(run_id, res.results)
         bar.stage("publish")
-        log.info("run %s finished in %.1f s", run_id, timings["total"])
+        log.info("run %s finished in %.1f s", run_key, timings["total"])
         log.removeHandler(handler)
         handler.close()
         # phase 3: record what is about to be published, publish, mark it done
@@ -406,7 +411,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         top = ranking.filter(pl.col("tier") == "Audit first").head(5).select(
             "rank", "building_id", "name", "tier", "ratio", "needs_review", "expected_recoverable_cost",
             pl.lit(cfg["prices"]["currency"]).alias("currency")).to_dicts()
-        return RunResult(run_id, label, target, str(db_path), summary, top, loads)
+        return RunResult(run_key, label, target, str(db_path), summary, top, loads, execution_id=run_id)
     except BaseException as exc:
         stop = interrupts.as_interrupted(exc)
         if isinstance(stop, Interrupted):  # SIGINT/SIGTERM: see _interrupted
@@ -420,7 +425,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                               "earlier outputs are untouched")
         # an expected error is printed once by the CLI; the run log keeps the detail
         expected = isinstance(exc, ScreeningError)
-        (log.debug if expected else log.error)("run %s failed: %s", run_id, exc)
+        (log.debug if expected else log.error)("run %s (execution %s) failed: %s", run_key, run_id, exc)
         log.debug("%s", traceback.format_exc())
         log.removeHandler(handler)
         handler.close()
@@ -873,14 +878,22 @@ def history(db_path: str, run_a: str | None = None, run_b: str | None = None) ->
             if len(ok) < 2:
                 return runs, None
             run_b, run_a = ok[0], ok[1]
-        elif run_b is None:
+        elif run_a is None or run_b is None:
             raise ConfigError("history: give two run ids (older and newer), or none")
-        for rid in (run_a, run_b):
-            if not store.rows("get_run", {"run_id": rid}):
-                raise ConfigError(f"history: no run {rid!r} in {db_path}")
+        else:
+            run_a, run_b = (_resolve_run(store, db_path, rid) for rid in (run_a, run_b))
         old = store.frame("results_of_run", {"run_id": run_a})
         new = store.frame("results_of_run", {"run_id": run_b})
         return runs, diff_results(old, new)
+
+
+def _resolve_run(store: Store, db_path, rid: str) -> str:
+    """The execution a user's run id names: the id shown on the outputs (the run key; its newest
+    successful execution, else its newest) or an execution id from the database."""
+    rows = store.rows("resolve_run", {"run": rid})
+    if not rows:
+        raise ConfigError(f"history: no run {rid!r} in {db_path}")
+    return rows[0][0]
 
 
 READ_WAIT_S = 20.0  # how long status/history wait for a run's brief hold on the database
@@ -945,7 +958,7 @@ def _as_seen(store: Store, db_path: str, runs: pl.DataFrame) -> pl.DataFrame:
         return runs
     held = _lock_held(str(db_path) + ".lock")
     try:
-        files = dict((rid, f) for rid, _out, f in store.rows("runs_publishing"))
+        files = dict((rid, f) for rid, _out, f, _shown in store.rows("runs_publishing"))
     except (StoreError, duckdb.Error):  # a database of version 1 has no files column
         files = {}
     seen = [published.display_status(st, Path(od), files.get(rid), lock_held=held)

@@ -446,7 +446,7 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         if r["_f_above_band"]:
             add("above_band", f"Metered heating {_fmt(r['actual_heating_kbtu'] * e)} {energy_unit} is "
                 f"{_fmt(r['ratio'], 2)}× the expected {_fmt(r['expected_heating_kbtu'] * e)} {energy_unit}, "
-                f"above the likely range {_fmt(r['_band_low'] * e)}–{_fmt(r['_band_high'] * e)}.")
+                f"above the expected band {_fmt(r['_band_low'] * e)}–{_fmt(r['_band_high'] * e)}.")
         if r["_f_high_among_peers"]:
             add("high_among_peers", f"Heating intensity {_fmt(r['heating_intensity'], 2)} Btu/ft²·°F·day is at the "
                 f"{_fmt(r['peer_percentile'])}th percentile of {r['peer_group']} (median "

@@ -27,7 +27,8 @@ WHERE run_id = $run_id;
 UPDATE runs SET status = $status, message = $message WHERE run_id = $run_id;
 
 -- name: runs_publishing
-SELECT run_id, out_dir, files FROM runs WHERE status = 'publishing' ORDER BY started_at, run_id;
+SELECT run_id, out_dir, files, COALESCE(run_key, run_id) AS run_key FROM runs WHERE status = 'publishing'
+ORDER BY started_at, run_id;
 
 -- name: mark_stale_runs
 -- Runs left 'running' by a process that died are marked as interrupted.
@@ -60,8 +61,16 @@ DELETE FROM rejects WHERE run_id = $run_id;
 INSERT INTO rejects SELECT $run_id AS run_id, file, line, "column", value, reason FROM stage_rejects;
 
 -- name: list_runs
-SELECT run_id, label, as_of, window_start, window_end, started_at, finished_at, status, out_dir, counts
+-- run_key is the id the outputs show (the same for a rerun of the same inputs); run_id names one execution
+SELECT run_id, label, as_of, window_start, window_end, started_at, finished_at, status, out_dir, counts,
+       COALESCE(run_key, run_id) AS run_key
 FROM runs ORDER BY started_at DESC, run_id DESC LIMIT $limit;
+
+-- name: resolve_run
+-- The execution a user's id names: an execution id, or a run key (the id on the outputs) whose newest
+-- successful execution is taken (else its newest).
+SELECT run_id FROM runs WHERE run_id = $run OR run_key = $run
+ORDER BY (run_id = $run) DESC, (status = 'ok') DESC, started_at DESC, run_id DESC LIMIT 1;
 
 -- name: get_run
 SELECT run_id, label, as_of, window_start, window_end, started_at, finished_at, status, out_dir, counts

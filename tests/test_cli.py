@@ -71,6 +71,11 @@ def test_run_writes_documented_outputs(fixture_run):
     assert {"ranking.csv", "ranking.pdf", "summary.json", "rejects.csv"} <= {x.name for x in out.iterdir()}
     rk = _ranking(out)
     assert rk.columns == RANKING_COLUMNS and set(ISSUE2_COLUMNS) <= set(rk.columns)
+    # issue 15: where the building is and its verdict sentence, as on its sheet
+    assert rk.columns[2:5] == ["name", "address", "city"] and "verdict" in rk.columns
+    by_id = {r["building_id"]: r for r in rk.iter_rows(named=True)}
+    assert by_id["B01"]["address"] == "10 Fernbrake Road" and by_id["B02"]["city"] == "Lowmere"   # conftest rows
+    assert all(v and v.endswith(".") for v in rk["verdict"].to_list())
     assert rk.height == p.n_buildings and rk["rank"].to_list() == list(range(1, p.n_buildings + 1))
     assert rk["period_start"].cast(pl.String).unique().to_list() == ["2024-01-01"]
     assert rk["period_end"].cast(pl.String).unique().to_list() == ["2024-12-31"]

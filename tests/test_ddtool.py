@@ -8,6 +8,7 @@ invented file tests/data/dd_daily_small.csv (spelled out beside each number).
 from __future__ import annotations
 
 import datetime as dt
+import re
 from pathlib import Path
 
 import numpy as np
@@ -155,3 +156,25 @@ def test_argument_errors(tmp_path):
     bad.write_text("period_start,period_end\n2024-01-05,2024-01-01\n")
     with pytest.raises(InputError, match="line 2, column 'period_end': period_end before period_start"):
         degree_days_report(SMALL, "FERN-7", by="period", periods_path=bad)
+
+
+def test_the_command_prints_degree_days_to_two_decimals(tmp_path):
+    """``ddscreen degree-days`` prints what the method carries (2 decimals, ``ddtool.DECIMALS``),
+    not floating-point noise: °C means of one decimal, converted through °F inside, summed."""
+    import csv
+    import io
+    from .conftest import cli
+    temps = [round(-3.7 + 0.9 * i % 17.3, 1) for i in range(31)]   # invented January, one decimal
+    p = tmp_path / "w.csv"
+    p.write_text("station_id,date,t_mean\n" + "".join(f"WREN,2025-01-{d + 1:02d},{t}\n" for d, t in enumerate(temps)),
+                 encoding="utf-8")
+    r = cli(["degree-days", "--weather", str(p), "--station", "WREN", "--units", "SI", "--base", "18",
+             "--kind", "both", "--by", "month"])
+    assert r.exit_code == 0, r.stderr
+    (row,) = list(csv.DictReader(io.StringIO(r.stdout)))
+    by_hand = sum(max(0.0, 18 - t) for t in temps)          # every day below 18 °C here
+    assert float(row["hdd"]) == round(by_hand, 2)
+    assert re.fullmatch(r"\d+(\.\d{1,2})?", row["hdd"]) and row["cdd"] in ("0.0", "0")
+    assert row["base"] in ("18.0", "18")
+    lib = degree_days_report(p, "WREN", units="SI", base=18, kind="hdd")   # the library function rounds too
+    assert lib["hdd"][0] == round(by_hand, 2)

@@ -131,6 +131,20 @@ def test_formula_cells_are_neutralized_in_the_other_csv_files(hostile_run):
                 assert not re.match(r"^-[^\d]", v or ""), (name, col, v)
 
 
+@pytest.mark.parametrize("cell, written", [
+    ("-412.0", "-412.0"), ("+3", "+3"), ("-2e5", "-2e5"), ("-0.0", "-0.0"), (".5", ".5"), ("+.5E-3", "+.5E-3"),
+    ("-2+3", "'-2+3"), ("=1+2", "'=1+2"), ("+A1", "'+A1"), ("@SUM(A1:A9)", "'@SUM(A1:A9)"), ("-1e", "'-1e"),
+    ("-inf", "'-inf"), ("-", "'-"), ("-rf", "'-rf"), ("\tTab", "'\tTab"), ("3-2", "3-2")])
+def test_a_text_cell_that_is_a_number_is_left_alone(tmp_path, cell, written):
+    """A rejected value like -412.0 stays a number in the CSV (README: numbers are left alone);
+    anything else a spreadsheet would compute still gets its leading '."""
+    import polars as pl
+    from screening import outputs
+    outputs.write_csv(pl.DataFrame({"value": [cell], "n": [-412.0]}), tmp_path / "x.csv")
+    (row,) = _csv(tmp_path / "x.csv")
+    assert row == {"value": written, "n": "-412.0"}
+
+
 def test_unsafe_ids_are_rejected_with_their_line(hostile_run):
     rej = _csv(hostile_run["out"] / "rejects.csv")
     bad = {r["value"]: r for r in rej if r["column"] == "building_id" and r["file"].endswith("buildings.csv")}

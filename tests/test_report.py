@@ -110,7 +110,9 @@ def test_fmt_money_and_co2e():
     assert report.fmt_money(12345.6) == "$12,346"
     assert report.fmt_money(-50.0) == "-$50"
     assert report.fmt_co2e(25400.0) == ("25.4", "t")   # by hand: 25,400 kg = 25.4 t
-    assert report.fmt_co2e(950.0) == ("950", "kg")
+    assert report.fmt_co2e(950.0) == ("0.95", "t")     # one unit in every rendered output
+    assert report.fmt_co2e(0.0) == ("0", "t") and report.fmt_co2e(3_809_200.0) == ("3,809", "t")
+    assert report.fmt_co2e(None) == ("n/a", "t")
 
 
 # --- sheets -------------------------------------------------------------------------
@@ -355,8 +357,8 @@ def test_ranking_pdf(tmp_path):
     assert any(ln.strip() == "with data issues 13" for ln in first.splitlines())  # 90 rows, every 7th from 3
     table_pages = [t for t in texts if "Owlbrook Court" in t and "Top ten" not in t and "Data issues" not in t]
     assert len(table_pages) >= 2
-    for t in table_pages:  # the header repeats on every page of the table
-        assert "intensity" in t and "excess cost" in t
+    for t in table_pages:  # the header repeats on every page of the table (a header may wrap)
+        assert "intensity" in t and "excess" in t and "cost" in t
     for i, t in enumerate(texts, 1):
         assert f"page {i} of {n}" in t
         assert "run run-20260302-01" in t
@@ -380,28 +382,53 @@ def test_ranking_a4_and_empty(tmp_path):
 
 @pytest.mark.parametrize("paper", ["Letter", "A4"])
 def test_ranked_table_pages_never_overflow(tmp_path, paper, monkeypatch):
-    """Rows are split into pages in Python (the text columns do not break by themselves):
-    every page must hold its share without spilling, so the page count is exactly
+    """Rows are wrapped and split into pages in Python (the text columns do not break by
+    themselves): every page must hold its lines without spilling, so the page count is exactly
     summary + table pages + data issues, and every rank shows once, in order, under a header."""
     monkeypatch.setattr(report, "MAX_ISSUE_LINES", 5)
     rep = make_report(300)
-    rep["rows"][1]["name"] = "W" * 200            # cut to its column, never wrapped
+    rep["rows"][1]["name"] = "W" * 200            # wrapped to MAX_CELL_LINES lines, the last ending in …
     rep["rows"][2]["flags"] = ["high_ratio"] * 12
     # a summary as full as the demo's: eight flag kinds, tiers with their meanings
     rep["counts"]["per_flag"] = {f"flag_kind_{k}": 10 * k for k in range(8)}
     rep["tiers"] = [dict(t, meaning="strong evidence of excess heating and a large excess") for t in rep["tiers"]]
     out = report.render_ranking(rep, tmp_path / "r.pdf", paper=paper)
-    per_page, first_loss = report._ROWS_PER_PAGE[paper], report._FIRST_PAGE_LOSS
-    n_table = 1 + -(-(300 - (per_page - first_loss)) // per_page)   # by hand: first page, then full pages
+    view = report.ranking_view(rep, paper)
+    pages = view["table_pages"]
+    budget = report._ROWS_PER_PAGE[paper] - view["header"][0]["text"].count("\n")
+    for k, pg in enumerate(pages):
+        assert pg["lines"] <= budget - (report._FIRST_PAGE_LOSS if k == 0 else 0)
+        assert all(c["text"].count("\n") + 1 == pg["lines"] for c in pg["cols"])   # every column as tall
+        assert sum(float(h) for h in pg["stripes"]) == pytest.approx(pg["lines"] * report._ROW_PT)  # a stripe a row
+    n_table = len(pages)
     texts = [p.extract_text() for p in PdfReader(out).pages]
     assert len(texts) == 1 + n_table + 1
     for t in texts[1:1 + n_table]:
-        assert "intensity" in t and "excess cost" in t and "data issues" in t
+        assert "intensity" in t and "excess" in t and "issues" in t
     ids = re.findall(r"\bB-(\d+)\b", "\n".join(texts[1:1 + n_table]))
     assert ids == [str(1000 + k) for k in range(300)]  # make_report: rank k+1 has id B-(1000+k)
+    # the long name: wrapped, at most MAX_CELL_LINES lines, the last cut with …
+    name_col = pages[0]["cols"][2]["text"].split("\n")
+    w_lines = [ln for ln in name_col if ln.startswith("W")]
+    assert len(w_lines) == report.MAX_CELL_LINES and w_lines[-1].endswith("…")
     n_issues = len(rep["data_issues"])
     assert f"and {n_issues - 5} more in data_issues.csv" in texts[-1]
     assert sum(c[2] for c in report.RANK_COLUMNS) == pytest.approx(99.5)  # 100% wraps the last float on A4
+
+
+def test_wrap_measures_the_font():
+    """_wrap breaks after blanks and ; , / (a code too long for a line after a _), never wider than
+    asked by the font's advance widths; a line of one character that does not fit still advances."""
+    size = 7.2
+    lines = report._wrap("above_band; high_among_peers; envelope_defaulted", 70.0, size)
+    assert lines == ["above_band;", "high_among_peers;", "envelope_defaulted"]
+    assert all(report._text_width(ln, size) <= 70.0 for ln in lines)
+    assert report._wrap("high_balance_point", 40.0, size) == ["high_", "balance_", "point"]
+    assert report._wrap("", 40.0, size) == [""]
+    # widths by hand from the font: "B0010" is five glyphs of the condensed face
+    assert report._text_width("B0010", 10.0) == pytest.approx(29.0, abs=2.0)
+    assert report._text_width("漢", 10.0) == 10.0          # not in the font: 1 em
+    assert report._wrap("x" * 400, 20.0, size, max_lines=3)[-1].endswith("…")
 
 
 def test_split_file_does_not_carry_other_sheets_resources(tmp_path):
@@ -430,3 +457,15 @@ def test_pages_are_still_written_when_the_fast_split_is_unavailable(tmp_path, mo
         r = PdfReader(p)
         assert len(r.pages) == 1 and s["building_id"] in r.metadata.title
         assert s["building_id"] in r.pages[0].extract_text()
+
+
+def test_a_bidi_override_in_a_name_does_not_reverse_the_title(tmp_path):
+    """U+202E (right-to-left override) in a name would draw the rest of the title backwards;
+    the sheet shows the name in its own order (issue 15)."""
+    s = make_sheet(0)
+    s.update({"building_id": "B-BIDI", "name": "Kestrel \u202eRow Depot\u202c"})
+    assert report.sheet_title(s).startswith("Kestrel Row Depot")
+    (path,) = report.render_sheets_one_by_one([s], tmp_path)
+    with pdfplumber.open(path) as pdf:
+        text = pdf.pages[0].extract_text()
+    assert "Kestrel Row Depot" in text and "topeD" not in text

@@ -354,9 +354,10 @@ def test_missing_input_file_is_exit_2_and_names_it(simulated, tmp_path):
 # ---------------------------------------------------------------------------- status and history
 
 def test_status_and_history_list_the_runs_and_the_changes(simulated, tmp_path):
-    site = Site(tmp_path, simulated)
+    site = Site(tmp_path, simulated, sheets=True, extra="workers = 1\n")
     assert site.run("--as-of", Q2_AS_OF).exit_code == 0
-    assert site.run("--as-of", Q3_AS_OF).exit_code == 0
+    r3 = site.run("--as-of", Q3_AS_OF)
+    assert r3.exit_code == 0, r3.stderr
     st = cli(["status", "--config", str(site.config)])
     assert st.exit_code == 0, st.stderr
     lines = st.stdout.splitlines()
@@ -382,6 +383,28 @@ def test_status_and_history_list_the_runs_and_the_changes(simulated, tmp_path):
     for r in j.iter_rows(named=True):
         if r["rank"] is not None and r["rank_old"] is not None and r["rank"] < r["rank_old"]:
             assert f"  {r['building_id']}: up {r['rank_old'] - r['rank']}" in h.stdout
+
+    # one run id: summary.json, a sheet, ranking.pdf, stderr, status and history all show the same
+    # one, and history takes it (the execution id stays in the database and run.log)
+    import pdfplumber
+    ids = {q: json.loads((site.root / q / "summary.json").read_text())["run_id"] for q in (Q2, Q3)}
+    assert ids[Q3].startswith(Q3 + "-") and ids[Q2].startswith(Q2 + "-")
+    sheet = sorted((site.root / Q3 / "sheets").glob("*.pdf"))[0]
+    with pdfplumber.open(sheet) as pdf:
+        assert ids[Q3] in pdf.pages[0].extract_text()
+    with pdfplumber.open(site.root / Q3 / "ranking.pdf") as pdf:
+        assert ids[Q3] in pdf.pages[0].extract_text()
+    assert ids[Q3] in r3.stderr
+    assert lines[0].startswith(ids[Q3] + " ") and lines[1].startswith(ids[Q2] + " ")
+    executions = [rid for rid, _, _ in run_rows(site)]
+    assert not any(e in st.stdout or e in r3.stderr for e in executions)
+    assert executions[1] in (site.root / Q3 / "run.log").read_text()
+    h2 = cli(["history", "--db", str(site.db), "--older", ids[Q2], "--newer", ids[Q3]])
+    assert h2.exit_code == 0, h2.stderr
+    assert h2.stdout == h.stdout
+    assert cli(["history", "--db", str(site.db), "--older", executions[0], "--newer", ids[Q3]]).stdout == h.stdout
+    bad = cli(["history", "--db", str(site.db), "--older", "2026-Q1-0000000000", "--newer", ids[Q3]])
+    assert bad.exit_code == 2 and "no run '2026-Q1-0000000000'" in bad.stderr
 
 
 def test_status_without_a_database_says_so(tmp_path):

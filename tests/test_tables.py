@@ -172,7 +172,7 @@ def test_ranking_xlsx_reads_back_with_sheets_headers_types_and_neutral_text(port
     assert wb.sheetnames == ["ranking", "audit plan", "data issues", "rejects", "assumptions"]
     ws = wb["ranking"]
     head = [c.value for c in ws[1]]
-    assert head[:5] == ["rank", "building_id", "name", "use_type", "floor_area [ft²]"]
+    assert head[:7] == ["rank", "building_id", "name", "address", "city", "use_type", "floor_area [ft²]"]
     assert "excess_cost [$/yr]" in head and "actual_heating [kBtu]" in head and "hdd [°F·day]" in head
     assert ws.freeze_panes == "A2"
     assert [t.autoFilter.ref for t in ws.tables.values()] == [f"A1:{openpyxl.utils.get_column_letter(len(head))}"
