@@ -161,13 +161,17 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
         dd = np.ascontiguousarray(dd)
         return frame.with_columns(pl.Series("_missing", missing)), dd
 
+    def fit_bills(frame: pl.DataFrame, dd: np.ndarray) -> tuple[dict, dict]:
+        """The variable-base fit of each measure's bills (monthly-length bills with whole weather)."""
+        if frame.height:
+            frame = frame.with_columns(((pl.col("days") <= 62) & (pl.col("_missing") == 0)).alias("usable"))
+        padded = metered.pad_periods(frame.select(pl.col("_key").alias("building_id"), "days", "energy_kbtu",
+                                                  "usable"), dd, keys)
+        return padded, metered.fit_variable_base(padded["use_per_day"], padded["days"], padded["hdd_per_day"],
+                                                 grid, padded["valid"], min_periods=min_periods)
+
     base, base_dd = hdd(base)
-    if base.height:
-        base = base.with_columns(((pl.col("days") <= 62) & (pl.col("_missing") == 0)).alias("usable"))
-    pb = metered.pad_periods(base.select(pl.col("_key").alias("building_id"), "days", "energy_kbtu", "usable"),
-                             base_dd, keys)
-    fit = metered.fit_variable_base(pb["use_per_day"], pb["days"], pb["hdd_per_day"], grid, pb["valid"],
-                                    min_periods=min_periods)
+    pb, fit = fit_bills(base, base_dd)
     heating = fit["model"] == "heating"
     bi = np.maximum(fit["base_index"], 0)
     alpha = np.nan_to_num(fit["alpha"], nan=np.nan)
@@ -208,12 +212,7 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
            for w, nr in zip(why, no_rep)]
 
     # normalized savings: both periods on the normal year
-    if rep.height:
-        rep = rep.with_columns(((pl.col("days") <= 62) & (pl.col("_missing") == 0)).alias("usable"))
-    pr = metered.pad_periods(rep.select(pl.col("_key").alias("building_id"), "days", "energy_kbtu", "usable"),
-                             rep_dd, keys)
-    fr = metered.fit_variable_base(pr["use_per_day"], pr["days"], pr["hdd_per_day"], grid, pr["valid"],
-                                   min_periods=min_periods)
+    pr, fr = fit_bills(rep, rep_dd)
     nh = normals.for_stations(m["station_id"].to_numpy())
     rows = np.arange(n_m)
 

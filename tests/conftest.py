@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import csv
 import hashlib
+import importlib.util
 import datetime as dt
 import os
 import subprocess
@@ -211,3 +212,20 @@ def tree_digest(folder: Path) -> dict[str, str]:
         elif p.is_file():
             out[rel] = hashlib.sha256(p.read_bytes()).hexdigest()
     return out
+
+
+SIMULATOR_MODULE = "ddscreen_test_simulate"
+
+
+def simulator():
+    """The project simulator ``sample_portfolio/simulate.py`` (a script folder, not a package),
+    loaded once per test session and registered in ``sys.modules`` (its dataclasses need it)."""
+    mod = sys.modules.get(SIMULATOR_MODULE)
+    if mod is None:
+        path = Path(__file__).resolve().parents[1] / "sample_portfolio" / "simulate.py"
+        spec = importlib.util.spec_from_file_location(SIMULATOR_MODULE, path)
+        assert spec is not None and spec.loader is not None
+        mod = importlib.util.module_from_spec(spec)
+        sys.modules[SIMULATOR_MODULE] = mod
+        spec.loader.exec_module(mod)
+    return mod

@@ -27,12 +27,12 @@ Two kinds of waste are measured on the same portfolio (same buildings, weather a
 from __future__ import annotations
 
 import datetime as dt
-import importlib.util
-import sys
 from pathlib import Path
 
 import polars as pl
 import pytest
+
+from tests.conftest import simulator
 
 from screening import runner
 
@@ -44,11 +44,7 @@ FAULTS = {"wasteful": 0.12, "unit_error": 0.03, "missing_months": 0.03,
 
 
 def _simulator():
-    spec = importlib.util.spec_from_file_location("ddscreen_test_simulate", ROOT / "sample_portfolio" / "simulate.py")
-    mod = importlib.util.module_from_spec(spec)
-    sys.modules[spec.name] = mod
-    spec.loader.exec_module(mod)
-    return mod
+    return simulator()
 
 
 ONSET = (dt.date(2025, 4, 1), dt.date(2025, 10, 1))  # waste begins in the six months before the window

@@ -19,7 +19,6 @@ from __future__ import annotations
 import datetime as dt
 import fcntl
 import hashlib
-import importlib.util
 import json
 import os
 import re
@@ -34,7 +33,7 @@ import duckdb
 import polars as pl
 import pytest
 
-from tests.conftest import tree_digest
+from tests.conftest import simulator, tree_digest
 from typer.testing import CliRunner
 
 from screening.cli import app
@@ -52,9 +51,7 @@ N_KEPT = 4                               # buildings of the crontab-form test (w
 @pytest.fixture(scope="module")
 def simulated(tmp_path_factory) -> Path:
     """The simulated portfolio's CSV files, written once for the module."""
-    spec = importlib.util.spec_from_file_location("ddscreen_simulate", REPO / "sample_portfolio" / "simulate.py")
-    sim = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(sim)
+    sim = simulator()
     frames = sim.simulate_portfolio(N_BUILDINGS, seed=5, start=dt.date(2023, 10, 1), years=3)
     folder = tmp_path_factory.mktemp("portfolio")
     sim.write_portfolio(frames, folder)

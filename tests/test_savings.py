@@ -4,13 +4,13 @@ and coverage of the stated intervals on the project simulator."""
 from __future__ import annotations
 
 import datetime as dt
-import importlib.util
-import sys
 from pathlib import Path
 
 import numpy as np
 import polars as pl
 import pytest
+
+from tests.conftest import simulator
 
 from screening import config, metered, runner
 from screening import savings as sv
@@ -100,11 +100,7 @@ NO_FAULTS = {k: 0.0 for k in ("wasteful", "unit_error", "missing_months", "dupli
 
 
 def _simulator():
-    spec = importlib.util.spec_from_file_location("ddscreen_test_simulate_sv", ROOT / "sample_portfolio" / "simulate.py")
-    mod = importlib.util.module_from_spec(spec)
-    sys.modules[spec.name] = mod
-    spec.loader.exec_module(mod)
-    return mod
+    return simulator()
 
 
 @pytest.fixture(scope="module")

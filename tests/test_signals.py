@@ -22,7 +22,6 @@ guards against a hang; nothing asserts how long anything took.
 from __future__ import annotations
 
 import datetime as dt
-import importlib.util
 import os
 import shutil
 import signal
@@ -38,7 +37,7 @@ import pytest
 from typer.testing import CliRunner
 
 from screening.cli import app
-from tests.conftest import tree_digest
+from tests.conftest import simulator, tree_digest
 
 REPO = Path(__file__).resolve().parents[1]
 Q3_AS_OF, Q3 = "2026-10-15", "2026-Q3"   # by hand: window 2025-10-01..2026-09-30 (see test_runs.py)
@@ -48,9 +47,7 @@ NOTHING_PUBLISHED = "nothing was published, earlier outputs are untouched"
 
 @pytest.fixture(scope="module")
 def simulated(tmp_path_factory) -> Path:
-    spec = importlib.util.spec_from_file_location("ddscreen_simulate", REPO / "sample_portfolio" / "simulate.py")
-    sim = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(sim)
+    sim = simulator()
     frames = sim.simulate_portfolio(12, seed=5, start=dt.date(2023, 10, 1), years=3)
     folder = tmp_path_factory.mktemp("portfolio")
     sim.write_portfolio(frames, folder)

@@ -11,7 +11,6 @@ quarter before as_of): 2026-01-15 → 2025-Q4, 2026-04-15 → 2026-Q1, 2026-07-1
 from __future__ import annotations
 
 import datetime as dt
-import importlib.util
 import json
 import os
 import random
@@ -29,16 +28,14 @@ import pytest
 from screening import published, runner
 from screening.errors import ConfigError
 from screening.store import SCHEMA_VERSION, Store
-from tests.conftest import tree_digest
-from tests.test_runs import REPO, Site, cli, run_rows, subprocess_run
+from tests.conftest import simulator, tree_digest
+from tests.test_runs import Site, cli, run_rows, subprocess_run
 
 QUARTERS = {"2025-Q4": "2026-01-15", "2026-Q1": "2026-04-15", "2026-Q2": "2026-07-15", "2026-Q3": "2026-10-15"}
 
 
 def _simulate(n: int, seed: int, start: dt.date, years: int):
-    spec = importlib.util.spec_from_file_location("ddscreen_simulate", REPO / "sample_portfolio" / "simulate.py")
-    sim = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(sim)
+    sim = simulator()
     return sim, sim.simulate_portfolio(n, seed=seed, start=start, years=years)
 
 
