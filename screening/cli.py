@@ -180,9 +180,9 @@ def demo(
 
 @app.command()
 def validate(
-    buildings: Annotated[str, typer.Option(help="buildings CSV")],
-    readings: Annotated[str, typer.Option(help="readings CSV")],
-    weather: Annotated[str, typer.Option(help="daily weather CSV")],
+    buildings: Annotated[Optional[str], typer.Option(help="buildings file (default: [inputs] of --config)")] = None,
+    readings: Annotated[Optional[str], typer.Option(help="readings file (default: [inputs] of --config)")] = None,
+    weather: Annotated[Optional[str], typer.Option(help="daily weather file (default: [inputs] of --config)")] = None,
     units: Annotated[Optional[str], typer.Option(help="IP or SI")] = None,
     config: Annotated[Optional[str], typer.Option(help="TOML config file")] = None,
     columns: Annotated[Optional[list[str]], typer.Option("--columns", help=COLUMNS_HELP)] = None,
@@ -190,6 +190,7 @@ def validate(
 ):
     """Check the three files and print every problem; load nothing. Exit 0 when clean, 2 otherwise.
 
+    A file not given as an option is taken from the config's [inputs] (a glob: every file it matches).
     When a file lacks required columns, prints a column mapping to check and paste into the config.
     """
     from . import runner

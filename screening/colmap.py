@@ -32,6 +32,8 @@ SYNONYMS: dict[str, dict[str, tuple[str, ...]]] = {
         "heating_fuel": ("heating fuel", "heat fuel", "fuel", "primary heating fuel", "heating source",
                          "heating type"),
         "heating_efficiency": ("efficiency", "boiler efficiency", "heating system efficiency"),
+        "ua_total": ("ua", "ua value", "total ua", "heat loss coefficient", "envelope ua"),
+        "balance_point": ("balance point temperature", "balance temperature", "balance temp"),
         "address": ("street address", "street"),
         "city": ("town",),
     },

@@ -793,30 +793,43 @@ class Validation:
         return not self.problems
 
 
-def validate(buildings: str, readings: str, weather: str, *, config_path: str | None = None,
-             overrides: dict | None = None) -> Validation:
-    """Check the three files; report every problem; load nothing."""
+def validate(buildings: str | None = None, readings: str | None = None, weather: str | None = None, *,
+             config_path: str | None = None, overrides: dict | None = None) -> Validation:
+    """Check the three kinds of file; report every problem; load nothing.
+
+    A kind not given here is taken from the config's ``[inputs]`` (a glob: every file it matches, each
+    checked on its own; the checks across files, such as readings of unknown buildings, then run only
+    when each kind is one file, and ``run`` makes them in any case).
+    """
     cfg = cfgmod.load(config_path, overrides)
     opts = pipeline.read_options(cfg)
+    given = {"buildings": buildings, "readings": readings, "weather": weather}
+    paths = {k: ([v] if v else _expand(cfg["inputs"][k], k)) for k, v in given.items()}
     problems: list[str] = []
     notices: list[str] = []
     rows: dict[str, int] = {}
     loaded = {}
     suggestions: list[str] = []
     rejects: list[pl.DataFrame] = []
-    for kind, path in (("buildings", buildings), ("readings", readings), ("weather", weather)):
-        try:
-            ld = pipeline.read_file(kind, path, opts)
-        except InputError as exc:
-            problems.append(str(exc))
-            if exc.problem == "missing required column":
-                suggestions.extend(_mapping_suggestion(kind, path, opts))
-            continue
-        loaded[kind] = ld
-        rows[kind] = ld.df.height
-        notices.extend(ld.notices)
-        rejects.append(ld.rejects.cast(REJECT_SCHEMA))
+    for kind, kind_paths in paths.items():
+        for path in kind_paths:
+            try:
+                ld = pipeline.read_file(kind, path, opts)
+            except InputError as exc:
+                problems.append(str(exc))
+                if exc.problem == "missing required column":
+                    suggestions.extend(_mapping_suggestion(kind, path, opts))
+                continue
+            if len(kind_paths) == 1:
+                loaded[kind] = ld
+            rows[kind] = rows.get(kind, 0) + ld.df.height
+            notices.extend(ld.notices)
+            rejects.append(ld.rejects.cast(REJECT_SCHEMA))
+    if any(len(v) > 1 for v in paths.values()):
+        notices.append("several files of a kind: each was checked on its own; the checks across files "
+                       "(readings of unknown buildings, stations without weather) run with `ddscreen run`")
     if len(loaded) == 3:
+        buildings, readings = paths["buildings"][0], paths["readings"][0]
         from . import units
         stations = sorted(loaded["weather"].df["station_id"].unique().to_list())
         b, r, rej = pipeline._cross_check(loaded["buildings"].df, loaded["readings"].df, stations,
@@ -826,7 +839,7 @@ def validate(buildings: str, readings: str, weather: str, *, config_path: str | 
                                            steam_btu_per_lb=cfg["analysis"]["steam_btu_per_lb"])
         rejects.append(conv_rej.select(pl.lit(readings).alias("file"), "line", "column",
                                        pl.col("value").cast(pl.String), "reason").cast(REJECT_SCHEMA))
-    order = {str(p): i for i, p in enumerate((buildings, readings, weather))}
+    order = {str(p): i for i, p in enumerate(p for v in paths.values() for p in v)}
     if rejects:
         allrej = pl.concat(rejects).with_columns(pl.col("file").replace_strict(order, default=9).alias("_k")) \
             .sort("_k", "line", "column")
@@ -1062,8 +1075,13 @@ def _infer_inputs(sources: list[str], cfg_path: Path, report: list[str]) -> tupl
             if missing:
                 block += "\n# still missing: " + ", ".join(missing) + " (add a line for each)"
             blocks += [f"# from {file}", block, ""]
+        ours = {colmap._key(c) for c in column_names()[kind]}
+        mapped = {t for t, _, _ in sug}
+        unused = [h for h in header if h.strip() and h not in mapped and colmap._key(h) not in ours]
         report.append(f"{file}: read as {kind}; {len(sug)} column(s) mapped"
-                      + (f"; still missing {', '.join(missing)}" if missing else ""))
+                      + (f"; still missing {', '.join(missing)}" if missing else "")
+                      + (f"; not used (no column of ours matches; add a line if one should be): {', '.join(unused)}"
+                         if unused else ""))
     return inputs, blocks
 
 

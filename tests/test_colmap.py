@@ -182,3 +182,53 @@ def test_init_from_sets_the_thousands_separator_the_values_show(portfolio, tmp_p
     # without the setting every row is rejected, each with the reason naming it
     no = _validate(portfolio, bills, "--columns", "readings:" + ",".join(f"{a}={b}" for a, b in MAPPING.items()))
     assert no.exit_code == 2 and no.stdout.count('set [reading] thousands = ","') == 156
+
+
+def test_a_managers_workbooks_screen_after_one_init_from(portfolio, tmp_path):
+    """Issue 16's 'done when': workbooks with the manager's own headers, thousands separators and
+    currency, screened after one ``init --from`` and validated from the config alone."""
+    import polars as pl
+    b = pl.read_csv(portfolio.buildings, infer_schema_length=0)
+    r = pl.read_csv(portfolio.readings, infer_schema_length=0)
+    theirs_b = {"building_id": "Building ID", "name": "Property Name", "station_id": "Weather Station",
+                "use_type": "Property Type", "floor_area": "Gross Floor Area", "heating_fuel": "Heating Fuel"}
+    b = b.rename({k: v for k, v in theirs_b.items() if k in b.columns})
+    b = b.with_columns(pl.col("Gross Floor Area").cast(pl.Float64).map_elements(lambda v: f"{v:,.0f}",
+                                                                                return_dtype=pl.String),
+                       pl.lit("").alias("Notes"))
+    if "ua_total" in b.columns:
+        b = b.rename({"ua_total": "UA"})
+    r = r.rename({"building_id": "Building ID", "fuel": "Fuel Type", "period_start": "Start Date",
+                  "period_end": "End Date", "quantity": "Usage", "unit": "Units"})
+    if "cost" in r.columns:
+        r = r.with_columns(pl.col("cost").cast(pl.Float64).map_elements(lambda v: f"${v:,.2f}",
+                                                                        return_dtype=pl.String)).rename({"cost": "Cost ($)"})
+    book_b, book_r = tmp_path / "portfolio.xlsx", tmp_path / "bills.xlsx"
+    b.write_excel(book_b, worksheet="Properties")
+    r.write_excel(book_r, worksheet="Bills")
+    cfg = tmp_path / "mine.toml"
+    made = cli(["init", str(cfg), "--from", str(book_r), "--from", str(book_b), "--from", str(portfolio.weather)])
+    assert made.exit_code == 0, made.stderr
+    assert "portfolio.xlsx: read as buildings" in made.stdout and "still missing" not in made.stdout
+    assert "not used (no column of ours matches; add a line if one should be): Notes" in made.stdout
+    data = tomllib.loads(cfg.read_text(encoding="utf-8"))
+    assert data["inputs"]["columns"]["buildings"]["Gross Floor Area"] == "floor_area"
+    if "UA" in b.columns:
+        assert data["inputs"]["columns"]["buildings"]["UA"] == "ua_total"
+    # validate takes the files from the config when none is given
+    v = cli(["validate", "--config", str(cfg)])
+    plain = cli(["validate", "--buildings", str(portfolio.buildings), "--readings", str(portfolio.readings),
+                 "--weather", str(portfolio.weather)])
+    assert v.exit_code == plain.exit_code
+    assert v.stdout.count("problem(s)") == 1
+    assert v.stdout.splitlines()[-1].split(";")[0] == plain.stdout.splitlines()[-1].split(";")[0]
+    out = tmp_path / "out"
+    run = cli(["run", "--config", str(cfg), "--out", str(out), "--no-sheets", "--quiet", "--as-of", portfolio.as_of])
+    ref = cli(["run", "--buildings", str(portfolio.buildings), "--readings", str(portfolio.readings),
+               "--weather", str(portfolio.weather), "--db", str(tmp_path / "ref.duckdb"),
+               "--out", str(tmp_path / "ref"), "--no-sheets", "--quiet", "--as-of", portfolio.as_of])
+    assert run.exit_code == ref.exit_code == 0, run.stderr
+    got = pl.read_csv(out / "ranking.csv").select("building_id", "rank", "tier")
+    want = pl.read_csv(tmp_path / "ref" / "ranking.csv").select("building_id", "rank", "tier")
+    assert got.equals(want)
+    assert (out / "ranking.xlsx").is_file() and (out / "index.html").is_file()

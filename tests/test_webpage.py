@@ -310,3 +310,36 @@ def test_clicking_a_column_title_and_choosing_a_tier_write_the_state_into_the_ad
     want = rk.filter(pl.col("tier") == "No action").sort(["expected_recoverable_cost", "rank"],
                                                          descending=[True, False], nulls_last=True)
     assert [i for i, _ in table_rows(dom)] == want["building_id"].to_list()
+
+
+@needs_browser
+def test_a_long_unbroken_name_wraps_instead_of_widening_the_page(tmp_path):
+    """A 170-character name with no blank (invented) wraps in its cell: at 1280 px the building table
+    fits its box, and at 1024 and 800 px the page itself never scrolls sideways (the table may, in its box)."""
+    p = write_portfolio(tmp_path / "in")
+    with open(p.buildings, newline="", encoding="utf-8") as f:
+        rows = list(csv.reader(f))
+    rows[1][1] = "Northfieldcommunityrecreationandaquaticscentreannexwithattachedparkinggarage" * 2
+    with open(p.buildings, "w", newline="", encoding="utf-8") as f:
+        csv.writer(f, lineterminator="\n").writerows(rows)
+    out = tmp_path / "out"
+    r = cli(p.args(out, tmp_path / "a.duckdb", "--quiet", "--no-sheets"))
+    assert r.exit_code == 0, r.stderr
+    probe = out / "probe.html"   # a copy of the page with a script that writes the widths into the DOM
+    probe.write_text((out / "index.html").read_text(encoding="utf-8") + (
+        "<script>window.addEventListener('load',()=>{const t=document.querySelector('#building-rows')"
+        ".closest('table');document.documentElement.setAttribute('data-widths',[t.scrollWidth,"
+        "t.parentElement.clientWidth,document.documentElement.scrollWidth,"
+        "document.documentElement.clientWidth].join(' '));});</script>"), encoding="utf-8")
+    for width in (1280, 1024, 800):
+        proc = subprocess.run(
+            [CHROMIUM or "chromium", "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
+             f"--user-data-dir={tmp_path / f'profile-{width}'}", f"--window-size={width},800", "--dump-dom",
+             probe.resolve().as_uri()], capture_output=True, text=True, timeout=120, check=False)
+        assert proc.returncode == 0, proc.stderr[-2000:]
+        m = re.search(r'data-widths="(\d+) (\d+) (\d+) (\d+)"', proc.stdout)
+        assert m, "the probe did not run"
+        table, box, page, view = map(int, m.groups())
+        assert page <= view, (width, page, view)
+        if width == 1280:
+            assert table <= box, (table, box)
