@@ -17,7 +17,6 @@ import polars as pl
 _TRUE = ["true", "t", "yes", "y", "1", "e", "est", "estimated"]
 _FALSE = ["false", "f", "no", "n", "0", "a", "act", "actual", ""]
 EXCEL_EPOCH = _dt.date(1899, 12, 30)
-DATE_ORDERS = ("ymd", "mdy", "dmy")
 
 
 ISO_DATE = r"^\d{4}-\d{2}-\d{2}$"
