@@ -420,11 +420,8 @@ def run_window(cfg: dict, today: _dt.date | None = None) -> tuple[_dt.date, tupl
 
 
 def parse_date_value(value: str, where: str) -> _dt.date:
-    from .parse import iso_date
-    d = iso_date(value)
-    if d is None:
-        raise ConfigError(f"{where}: got {value!r}; expected a date YYYY-MM-DD")
-    return d
+    from .parse import require_date
+    return require_date(value, lambda v: ConfigError(f"{where}: got {v!r}; expected a date YYYY-MM-DD"))
 
 
 def load(path: str | Path | None = None, overrides: dict | None = None) -> dict:

@@ -34,6 +34,7 @@ import polars as pl
 from .csvread import LINE_COL, read_table
 from .degree_days import F_PER_C
 from .errors import InputError
+from .parse import dates_in_format
 from .schema import REJECT_SCHEMA, WEATHER, column
 
 __all__ = ["read_daily_weather", "read_hourly_weather", "read_mapped_daily", "WeatherRead",
@@ -205,7 +206,7 @@ def _finish_daily(df: pl.DataFrame, label: str, date_format: str, temp_units: di
     df, bad = _reject(df, pl.col("station_id").is_null() | (pl.col("station_id") == ""), "station_id",
                       pl.col("station_id").fill_null(""), "station_id is empty")
     rejected.append(bad)
-    df = df.with_columns(pl.col("date").str.strip_chars().str.to_date(date_format, strict=False).alias("_d"))
+    df = df.with_columns(dates_in_format(df["date"], date_format).alias("_d"))
     df, bad = _reject(df, pl.col("_d").is_null(), "date", pl.col("date").fill_null(""),
                       f"not a valid date (expected format {date_format})")
     rejected.append(bad)
