@@ -16,6 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from .errors import ConfigError
+from .schema import UNIT_SYSTEMS
 
 DEFAULTS: dict[str, dict[str, Any]] = {
     "inputs": {
@@ -123,7 +124,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
     },
 }
 
-UNITS = ("IP", "SI")
+UNITS = UNIT_SYSTEMS
 PAPERS = ("auto", "Letter", "A4")
 
 
@@ -348,10 +349,10 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
 
 def column_names() -> dict[str, list[str]]:
     """Our column names per file kind (what ``[inputs.columns]`` may map to)."""
-    from .ingest import BUILDING_COLUMNS, READING_COLUMNS
-    return {"buildings": [c[0] for c in BUILDING_COLUMNS],
-            "readings": [c[0] for c in READING_COLUMNS] + ["read_date"],
-            "weather": ["station_id", "date", "t_min", "t_max", "t_mean"]}
+    from .schema import BUILDINGS, READ_DATE, READINGS, WEATHER
+    return {"buildings": [c.name for c in BUILDINGS],
+            "readings": [c.name for c in READINGS] + [READ_DATE],
+            "weather": [c.name for c in WEATHER]}
 
 
 def check_columns(columns: dict) -> None:
@@ -419,11 +420,8 @@ def run_window(cfg: dict, today: _dt.date | None = None) -> tuple[_dt.date, tupl
 
 
 def parse_date_value(value: str, where: str) -> _dt.date:
-    from .parse import iso_date
-    d = iso_date(value)
-    if d is None:
-        raise ConfigError(f"{where}: got {value!r}; expected a date YYYY-MM-DD")
-    return d
+    from .parse import require_date
+    return require_date(value, lambda v: ConfigError(f"{where}: got {v!r}; expected a date YYYY-MM-DD"))
 
 
 def load(path: str | Path | None = None, overrides: dict | None = None) -> dict:
@@ -473,7 +471,7 @@ def template_comments() -> dict[tuple[str, str], str]:
     out: dict[tuple[str, str], str] = {}
     section = None
     src = Path(__file__).read_text(encoding="utf-8")
-    body = src[src.index("DEFAULTS"):src.index("UNITS = (")]
+    body = src[src.index("DEFAULTS"):src.index("\nUNITS = ")]
     for line in body.splitlines():
         m = re.match(r'^    "(\w+)": \{', line)
         if m:

@@ -20,7 +20,7 @@ from .csvread import LINE_COL, read_table
 from .degree_days import (METHODS, DegreeDayCube, c_to_f, degree_day_table, f_to_c, fill_short_gaps,
                           normal_year)
 from .errors import InputError
-from .parse import iso_date
+from .parse import dates_in_format, require_date
 from .weather import read_daily_weather, read_hourly_weather
 
 __all__ = ["degree_days_report", "KIND_CHOICES", "BY_CHOICES"]
@@ -34,10 +34,7 @@ COLUMNS = ["station_id", "period_start", "period_end", "days", "days_missing", "
 def _parse_date(value, name: str) -> date | None:
     if value is None or isinstance(value, date):
         return value
-    d = iso_date(str(value))
-    if d is None:
-        raise ValueError(f"{name} must be a date YYYY-MM-DD; got {value!r}")
-    return d
+    return require_date(str(value), lambda _: ValueError(f"{name} must be a date YYYY-MM-DD; got {value!r}"))
 
 
 def _read_periods(path: str | Path, station: str) -> pl.DataFrame:
@@ -47,8 +44,8 @@ def _read_periods(path: str | Path, station: str) -> pl.DataFrame:
         r = t.rejects[0]
         raise InputError(label, r["reason"], line=r["line"])
     df = t.df.with_columns(
-        pl.col("period_start").str.to_date("%Y-%m-%d", strict=False).alias("_s"),
-        pl.col("period_end").str.to_date("%Y-%m-%d", strict=False).alias("_e"))
+        dates_in_format(t.df["period_start"], strip=False).alias("_s"),
+        dates_in_format(t.df["period_end"], strip=False).alias("_e"))
     for raw, parsed in (("period_start", "_s"), ("period_end", "_e")):
         bad = df.filter(pl.col(parsed).is_null())
         if bad.height:

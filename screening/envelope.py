@@ -22,19 +22,12 @@ from functools import lru_cache
 import numpy as np
 import polars as pl
 
-from . import refdata
+from . import refdata, schema
+from .schema import ERA_EDGES as _ERA_EDGES
+from .schema import ERAS
 
-ERAS: tuple[str, ...] = ("pre-1950", "1950-1979", "1980-1999", "2000-2011", "2012+", "unknown")
-"""Construction eras (from ``year_built``); ``unknown`` when year_built is null."""
-
-_ERA_EDGES = (1950, 1980, 2000, 2012)  # era i covers [edge[i-1], edge[i]) in year_built
-
-USE_TYPES: tuple[str, ...] = (
-    "office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other",
-)
-FUELS: tuple[str, ...] = (
-    "natural_gas", "fuel_oil", "propane", "electricity", "district_steam", "district_hot_water",
-)
+USE_TYPES: tuple[str, ...] = tuple(schema.USE_TYPES)
+FUELS: tuple[str, ...] = tuple(schema.FUELS)
 
 # Drawn parameters, in a fixed order (the order fixes the random stream).
 # name -> (defaults table, buildings.csv column that overrides it or None, unit)
@@ -72,28 +65,14 @@ _GIVEN_ONLY = {
 }
 _REQUIRED = ("building_id", "use_type", "floor_area_ft2", "heating_fuel")
 
-# Plausible bounds for given values: (min, max, min inclusive?)
+# Limits of given values, from the declared schema (the ones ingest checks): (min, max, min inclusive?)
 _GIVEN_BOUNDS: dict[str, tuple[float, float, bool]] = {
-    "floor_area_ft2": (0.0, np.inf, False),
-    "stories": (1.0, 200.0, True),
-    "window_fraction": (0.0, 0.95, True),
-    "wall_u_btu_h_ft2_f": (0.0, 5.0, False),
-    "window_u_btu_h_ft2_f": (0.0, 5.0, False),
-    "roof_u_btu_h_ft2_f": (0.0, 5.0, False),
-    "ach": (0.0, 20.0, True),
-    "outdoor_air_cfm_ft2": (0.0, 10.0, True),
-    "heat_recovery": (0.0, 1.0, True),
-    "internal_gains_w_ft2": (0.0, 50.0, True),
-    "setpoint_f": (40.0, 85.0, True),
-    "setback_f": (0.0, 40.0, True),
-    "setback_hours": (0.0, 24.0, True),
-    "heating_efficiency": (0.0, 6.0, False),
-    "wall_area_ft2": (0.0, np.inf, True),
-    "window_area_ft2": (0.0, np.inf, True),
-    "roof_area_ft2": (0.0, np.inf, True),
-    "ua_total_btu_h_f": (0.0, np.inf, False),
-    "balance_point_f": (0.0, 90.0, True),
-}
+    c: b for c, b in schema.numeric_bounds("buildings").items() if c not in ("heat_content", "price")}
+#: year_built: the schema's lower limit; the upper one is the current year at ingest, which a pure
+#: function does not read (any year up to 2100 passes here)
+_YEAR_BUILT = (float(schema.column("buildings", "year_built").lo or 0), 2100.0)
+#: relative slack of the checks: an SI value at its limit converted to IP may land a rounding step beyond it
+_BOUND_SLACK = 1e-9
 
 _GIVEN_SOURCE = "buildings.csv"
 
@@ -396,14 +375,6 @@ def geometry(floor_area_ft2, stories, aspect_ratio, floor_to_floor_ft, window_fr
     }
 
 
-def era_of(year_built) -> np.ndarray:
-    """Construction era label for each year_built (NaN → ``unknown``).
-
-    Bins: pre-1950 (< 1950), 1950-1979, 1980-1999, 2000-2011, 2012+ (≥ 2012).
-    """
-    return np.asarray(ERAS, dtype=object)[_era_index(year_built)]
-
-
 def _era_index(year_built) -> np.ndarray:
     y = np.asarray(year_built, dtype=float)
     idx = np.searchsorted(np.asarray(_ERA_EDGES, dtype=float), y, side="right")
@@ -562,16 +533,18 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
         given[col] = _float_col(buildings, col)
     for col, (lo, hi, incl) in _GIVEN_BOUNDS.items():
         x = given[col]
-        ok = np.isnan(x) | (((x >= lo) if incl else (x > lo)) & (x <= hi))
+        lo_s, hi_s = lo - _BOUND_SLACK * max(1.0, abs(lo)), hi + _BOUND_SLACK * max(1.0, abs(hi))
+        ok = np.isnan(x) | (((x >= lo_s) if incl else (x > lo)) & (x <= hi_s))
         if col == "floor_area_ft2":
-            ok = (x > 0) & np.isfinite(x)
+            ok &= np.isfinite(x)
         if not np.all(ok):
             rng = f"{'[' if incl else '('}{lo:g}, {hi:g}]"
             raise ValueError(f"{col} must be within {rng}; got {_first_bad(x, ~ok, ids)}")
     yb = given["year_built"]
-    bad = ~np.isnan(yb) & ((yb < 1800) | (yb > 2100))
+    bad = ~np.isnan(yb) & ((yb < _YEAR_BUILT[0]) | (yb > _YEAR_BUILT[1]))
     if np.any(bad):
-        raise ValueError(f"year_built must be within 1800-2100; got {_first_bad(yb, bad, ids)}")
+        raise ValueError(f"year_built must be within {_YEAR_BUILT[0]:g}-{_YEAR_BUILT[1]:g}; "
+                         f"got {_first_bad(yb, bad, ids)}")
     eff_g = given["heating_efficiency"]
     bad = (fuel != "electricity") & (eff_g > 1.0)
     if np.any(bad):

@@ -15,7 +15,7 @@ import datetime as _dt
 import numpy as np
 import polars as pl
 
-from . import metered
+from . import metered, schema
 from . import savings as sv
 from .csvread import LINE_COL
 from .ingest import (
@@ -27,19 +27,11 @@ from .ingest import (
     rejects_frame,
 )
 
-EVENT_KINDS = ("audit", "measure", "operation", "meter_change", "vacancy")
-FINDINGS = ("confirmed", "none_found", "data_error")
+EVENT_KINDS = tuple(schema.EVENT_KINDS)
+FINDINGS = tuple(schema.FINDINGS)
 
-EVENT_COLUMNS = [
-    ("building_id", "building_id", "id", True, {}),
-    ("date", "date", "date", True, {}),
-    ("kind", "kind", "choice", True, {"choices": EVENT_KINDS, "what": "event kind"}),
-    ("finding", "finding", "choice", False, {"choices": FINDINGS, "what": "finding"}),
-    ("mechanism", "mechanism", "text", False, {"display": True}),
-    ("description", "description", "text", False, {"display": True}),
-    ("expected_savings", "expected_savings", "float", False, {"min": 0, "max": 1e12}),
-    ("cost", "cost", "float", False, {"min": 0, "max": 1e10}),
-]
+#: the events file's columns, declared in :data:`screening.schema.EVENTS`
+EVENT_COLUMNS = schema.specs("events")
 
 
 def read_events(path: str, opts: ReadOptions | None = None, building_ids: pl.Series | None = None) -> Loaded:

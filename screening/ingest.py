@@ -14,67 +14,23 @@ from pathlib import Path
 
 import polars as pl
 
-from . import refdata
+from . import refdata, schema
 from .csvread import LINE_COL, read_table
 from .errors import InputError
 from .parse import (AmbiguousDates, detect_date_order, midnight_stamps, number_text, parse_bool, parse_choice,
                     parse_date, parse_float, parse_int)
+from .schema import ID_PATTERN, REJECT_SCHEMA, specs
 
-USE_TYPES = ("office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other")
-FUELS = ("natural_gas", "fuel_oil", "propane", "electricity", "district_steam", "district_hot_water")
-ID_PATTERN = r"^[A-Za-z0-9._-]{1,64}$"
+USE_TYPES = tuple(schema.USE_TYPES)
+FUELS = tuple(schema.FUELS)
 _KIND_DTYPE = {"id": pl.String, "text": pl.String, "choice": pl.String, "float": pl.Float64, "int": pl.Int64,
                "bool": pl.Boolean, "date": pl.Date}
-REJECT_SCHEMA = pl.Schema({"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
-                           "reason": pl.String})
 
-# Column specifications: (csv column, canonical name, kind, required, options).
-# kind: id | text | choice | float | int | bool | date ; "si" names the SI->IP conversion
-# (screening/data/si_conversions.csv) applied when the portfolio's units are SI.
-BUILDING_COLUMNS = [
-    ("building_id", "building_id", "id", True, {}),
-    ("name", "name", "text", True, {"display": True}),
-    ("station_id", "station_id", "text", True, {}),
-    ("use_type", "use_type", "choice", True, {"choices": USE_TYPES, "what": "use type"}),
-    ("floor_area", "floor_area_ft2", "float", True, {"min": 0, "excl": True, "max": 1e8, "si": "area"}),
-    ("year_built", "year_built", "int", False, {"min": 1800, "max": "this_year"}),
-    ("stories", "stories", "int", False, {"min": 1, "max": 200}),
-    ("heating_fuel", "heating_fuel", "choice", True, {"choices": FUELS, "what": "heating fuel"}),
-    ("heating_efficiency", "heating_efficiency", "float", False, {"min": 0, "excl": True, "max": 6}),
-    ("ua_total", "ua_total_btu_h_f", "float", False, {"min": 0, "excl": True, "max": 1e9, "si": "conductance"}),
-    ("balance_point", "balance_point_f", "float", False, {"min": 20, "max": 85, "si": "temperature"}),
-    # optional envelope columns (each overrides its default)
-    ("wall_u", "wall_u_btu_h_ft2_f", "float", False, {"min": 0, "excl": True, "max": 2, "si": "u_factor"}),
-    ("roof_u", "roof_u_btu_h_ft2_f", "float", False, {"min": 0, "excl": True, "max": 2, "si": "u_factor"}),
-    ("window_u", "window_u_btu_h_ft2_f", "float", False, {"min": 0, "excl": True, "max": 2, "si": "u_factor"}),
-    ("window_fraction", "window_fraction", "float", False, {"min": 0, "max": 0.95}),
-    ("air_changes", "ach", "float", False, {"min": 0, "max": 10}),
-    ("outdoor_air", "outdoor_air_cfm_ft2", "float", False, {"min": 0, "max": 10, "si": "airflow_density"}),
-    ("heat_recovery", "heat_recovery", "float", False, {"min": 0, "max": 0.95}),
-    ("setpoint", "setpoint_f", "float", False, {"min": 40, "max": 85, "si": "temperature"}),
-    ("setback", "setback_f", "float", False, {"min": 0, "max": 40, "si": "temperature_difference"}),
-    ("setback_hours", "setback_hours", "float", False, {"min": 0, "max": 24}),
-    ("internal_gains", "internal_gains_w_ft2", "float", False, {"min": 0, "max": 50, "si": "power_density"}),
-    ("wall_area", "wall_area_ft2", "float", False, {"min": 0, "max": 1e8, "si": "area"}),
-    ("window_area", "window_area_ft2", "float", False, {"min": 0, "max": 1e8, "si": "area"}),
-    ("roof_area", "roof_area_ft2", "float", False, {"min": 0, "max": 1e8, "si": "area"}),
-    ("address", "address", "text", False, {"display": True}),
-    ("city", "city", "text", False, {"display": True}),
-    ("heat_content", "heat_content", "float", False, {"min": 0, "excl": True, "max": 1e9}),
-    ("price", "price", "float", False, {"min": 0, "max": 1e6}),
-]
-
-READING_COLUMNS = [
-    ("building_id", "building_id", "id", True, {}),
-    ("fuel", "fuel", "choice", True, {"choices": FUELS, "what": "fuel"}),
-    ("period_start", "period_start", "date", True, {}),
-    ("period_end", "period_end", "date", True, {}),
-    ("quantity", "quantity", "float", True, {"min": 0, "max": 1e12}),
-    ("unit", "unit", "text", True, {}),
-    ("estimated", "estimated", "bool", False, {}),
-    ("cost", "cost", "float", False, {"min": 0, "max": 1e10}),
-    ("meter_id", "meter_id", "text", False, {}),
-]
+# Column specifications (csv column, canonical name, kind, required, options), from the declared schema
+# (screening/schema.py: types, units, limits, meanings). kind: id | text | choice | float | int | bool | date;
+# "si" names the SI->IP conversion (screening/data/si_conversions.csv) applied when the portfolio's units are SI.
+BUILDING_COLUMNS = specs("buildings")
+READING_COLUMNS = specs("readings")
 
 
 @dataclass

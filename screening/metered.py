@@ -33,22 +33,17 @@ import polars as pl
 import polars.selectors as cs
 
 from . import refdata
-
-SPAN_KINDS = ("window", "shifted", "uncovered")
+from .schema import issue_codes
+from .window import add_months as _add_months
 
 #: degree days of the billing periods at every base: the (periods × bases) array, or a callable
 #: returning its rows for an index array (see :func:`metered_heating`)
 PeriodHdd = np.ndarray | Callable[[np.ndarray], np.ndarray]
 
 #: issue codes and whether each blocks a verdict on the building
-ISSUE_CODES = {
-    "duplicate_reads": True,        # the same period read twice: energy would be double counted
-    "overlapping_reads": True,      # periods of one meter overlap: energy would be double counted
-    "low_coverage": True,           # reads cover less than min_coverage of the span
-    "gap_in_reads": False,          # days of the span with no read (coverage says how much)
-    "many_estimated_reads": False,  # more than max_estimated_share of the span's reads estimated
-}
-# (a span other than the analysis window is a flag, ``shifted_span`` in screen.FLAG_TEXT, not a data issue)
+#: (declared with their plain text in :data:`screening.schema.DATA_ISSUES`)
+ISSUE_CODES = issue_codes("metered")
+# (a span other than the analysis window is a flag, ``shifted_span`` in schema.FLAGS, not a data issue)
 
 _SPAN_SCHEMA = pl.Schema({"building_id": pl.String, "span_start": pl.Date, "span_end": pl.Date,
                           "span_kind": pl.String, "coverage": pl.Float64, "span_days": pl.Int64,
@@ -72,14 +67,6 @@ def _require(df: pl.DataFrame, name: str, cols: Sequence[str]) -> None:
     missing = [c for c in cols if c not in df.columns]
     if missing:
         raise ValueError(f"{name}: missing column(s) {missing}")
-
-
-def _add_months(d: date, n: int) -> date:
-    """``d`` moved by ``n`` calendar months, the day clipped to the month's length."""
-    m = d.month - 1 + n
-    y, m = d.year + m // 12, m % 12 + 1
-    nxt = date(y + (m == 12), m % 12 + 1, 1)
-    return min(d.replace(year=y, month=m, day=1) + timedelta(days=d.day - 1), nxt - timedelta(days=1))
 
 
 def _month_end(d: date) -> date:

@@ -11,9 +11,8 @@ from pathlib import Path
 import polars as pl
 
 from . import screen
-from .ingest import REJECT_SCHEMA
+from .schema import KBTU_TO_KWH, REJECT_SCHEMA
 
-KBTU_TO_KWH = 0.29307107017222      # NIST SP 811: 1 Btu_IT = 1055.05585262 J; 1 kWh = 3.6e6 J
 FT2_TO_M2 = 0.09290304              # exact
 BTU_H_F_TO_W_K = 0.52752792631      # NIST SP 811: 1 Btu_IT/h = 0.29307107 W; × 1.8
 INTENSITY_IP_TO_SI = 5.678263341    # Btu/(ft²·°F·day) → Wh/(m²·K·day) (factors.md §8; pint check in tests)

@@ -11,13 +11,13 @@ from __future__ import annotations
 
 import datetime as _dt
 import re
+from collections.abc import Callable
 
 import polars as pl
 
 _TRUE = ["true", "t", "yes", "y", "1", "e", "est", "estimated"]
 _FALSE = ["false", "f", "no", "n", "0", "a", "act", "actual", ""]
 EXCEL_EPOCH = _dt.date(1899, 12, 30)
-DATE_ORDERS = ("ymd", "mdy", "dmy")
 
 
 ISO_DATE = r"^\d{4}-\d{2}-\d{2}$"
@@ -26,19 +26,43 @@ _STAMP = r"^(\d{4}-\d{2}-\d{2})[T ]\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?$"
 _MIDNIGHT = r"^\d{4}-\d{2}-\d{2}[T ]00:00(?::00(?:\.0+)?)?$"
 
 
+# The date readers of the package, all here (one rule each):
+# * iso_date / require_date: one date of a setting or an argument, strictly YYYY-MM-DD;
+# * dates_in_format: a column in one declared strftime format (the weather contract, a mapped layout,
+#   the degree-day periods file): nothing else is read;
+# * parse_date: a column of an input file with the spreadsheet conventions (slash dates in an
+#   order, serial numbers, midnight timestamps), each problem with its own reason.
+
 def iso_date(value: object) -> _dt.date | None:
     """One ``YYYY-MM-DD`` date (surrounding blanks allowed), or None when the text is anything else.
 
     Stricter than :meth:`datetime.date.fromisoformat`, which also takes ``20251001`` and week
     dates; nothing after the day is allowed (no time, no note).
     """
-    import re
     if not isinstance(value, str) or not re.match(ISO_DATE, value.strip()):
         return None
     try:
         return _dt.date.fromisoformat(value.strip())
     except ValueError:
         return None
+
+
+def require_date(value: object, error: Callable[[object], Exception]) -> _dt.date:
+    """``value`` as a date: a ``datetime.date`` as it is, else text read by :func:`iso_date`.
+
+    Raises ``error(value)`` (the caller's exception, naming its setting or argument) otherwise.
+    """
+    if isinstance(value, _dt.date) and not isinstance(value, _dt.datetime):
+        return value
+    d = iso_date(value)
+    if d is None:
+        raise error(value)
+    return d
+
+
+def dates_in_format(s: pl.Series, fmt: str = "%Y-%m-%d", *, strip: bool = True) -> pl.Series:
+    """Dates of a text column written in the strftime format ``fmt`` (null where a value is not one)."""
+    return (s.str.strip_chars() if strip else s).str.to_date(fmt, strict=False)
 
 
 class AmbiguousDates(ValueError):

@@ -21,13 +21,13 @@ from . import degree_days as ddm
 from . import envelope as env
 from . import metered, refdata, screen, units
 from .errors import ConfigError, InputError
+from .schema import KBTU_TO_KWH, issue_codes
 from .ingest import REJECT_SCHEMA, Loaded, ReadOptions, read_buildings, read_readings
 from .csvread import split_sheet, unreadable
 from .store import Store
 from .weather import read_daily_weather
 
 KINDS = ("buildings", "readings", "weather")
-KBTU_TO_KWH = 0.29307107017222  # 1 kBtu = 1055.05585262 J × 1000 / 3.6e6 J (NIST SP 811)
 
 
 #: Plain texts of the data issues found here (the per-reading ones are in :mod:`screening.metered`;
@@ -46,17 +46,8 @@ ISSUE_TEXT = {
 }
 #: Every data-issue code found here, beside the per-reading ones of :data:`screening.metered.ISSUE_CODES`,
 #: and whether it blocks a verdict. :data:`DATA_ISSUE_CODES` is the one list of data issues (README
-#: "Data issues"); flags are :data:`screening.screen.FLAG_TEXT`.
-PIPELINE_ISSUE_CODES = {
-    "likely_unit_error": True,         # a bill or the whole use 10x-1000x off (units, entry)
-    "bill_off_fit": True,              # a bill far off the building's own weather fit
-    "weather_gap": True,               # days of the span without weather at the station
-    "no_weather_at_station": True,
-    "no_readings": True,
-    "no_heating_fuel_readings": True,
-    "missing_bills": False,            # bills missing inside the analysis window (dates named)
-    "end_days_filled": False,          # the span's last days had no reading yet and were filled
-}
+#: "Data issues"); flags are :data:`screening.schema.FLAGS`. All declared in :data:`screening.schema.DATA_ISSUES`.
+PIPELINE_ISSUE_CODES = issue_codes("pipeline")
 DATA_ISSUE_CODES = {**metered.ISSUE_CODES, **PIPELINE_ISSUE_CODES}
 #: Issues that leave no basis for a ratio: no likely_unit_error is claimed beside them.
 NO_BASIS_CODES = ("no_readings", "no_heating_fuel_readings", "no_weather_at_station")

@@ -7,7 +7,6 @@ Everything the command line does is a function here: :func:`run`, :func:`demo`,
 from __future__ import annotations
 
 import datetime as _dt
-import fcntl
 import glob
 import json
 import logging
@@ -26,7 +25,7 @@ from typing import Any, TextIO
 import duckdb
 import polars as pl
 
-from . import __version__, config as cfgmod, interrupts, memory, outputs, pipeline, published, sources
+from . import __version__, config as cfgmod, interrupts, locking, memory, outputs, pipeline, published, sources
 from .errors import (ConfigError, InputError, LockedError, OutputError, ScreeningError, StoreError)
 from .errors import Interrupted
 from .ingest import REJECT_SCHEMA
@@ -84,10 +83,16 @@ class _Lock:
         except OSError as exc:
             raise StoreError(f"{self.path}: cannot create the lock file ({exc.strerror or exc})") from None
         try:
-            fcntl.flock(self.fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except BlockingIOError:
+            taken = locking.try_lock(self.fh)   # fcntl on POSIX, msvcrt on Windows (screening/locking.py)
+        except OSError as exc:
+            self.fh.close()
+            raise StoreError(f"{self.path}: cannot lock ({exc})") from None
+        if not taken:
             self.fh.seek(0)
-            holder = self.fh.read().strip() or "another process"
+            try:
+                holder = self.fh.read().strip() or "another process"
+            except OSError:   # Windows: the holder's locked byte cannot be read
+                holder = "another process"
             self.fh.close()
             raise LockedError(f"another ddscreen run holds the lock {self.path} ({holder}); "
                               "nothing was changed") from None
@@ -102,7 +107,7 @@ class _Lock:
         try:
             self.fh.seek(0)
             self.fh.truncate()
-            fcntl.flock(self.fh, fcntl.LOCK_UN)
+            locking.unlock(self.fh)
         finally:
             self.fh.close()
 
@@ -953,12 +958,11 @@ def _lock_held(path: str) -> bool:
     except OSError:
         return False
     try:
-        fcntl.flock(fh, fcntl.LOCK_SH | fcntl.LOCK_NB)
-    except BlockingIOError:
-        return True
+        return not locking.try_lock(fh, shared=True)
+    except OSError:   # no lock on this platform: nothing can hold one
+        return False
     finally:
         fh.close()
-    return False
 
 
 def _as_seen(store: Store, db_path: str, runs: pl.DataFrame) -> pl.DataFrame:

@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
 import polars as pl
 
 MAD_TO_SIGMA = 1.4826  # consistency constant of the MAD for normal data (Iglewicz & Hoaglin 1993)
@@ -35,29 +34,6 @@ TIERS = (
     ("Fix data first", "data problems block a verdict"),
 )
 TIER_RANK = {name: i + 1 for i, (name, _) in enumerate(TIERS)}
-
-FLAG_TEXT = {
-    "above_band": "heating above the expected range",
-    "high_among_peers": "high heating intensity among peers",
-    "high_baseload": "high non-heating use of the heating fuel",
-    "high_balance_point": "heating starts at a high outdoor temperature",
-    "poor_fit": "use does not follow the weather consistently",
-    "rising_use": "weather-normalized heating rising against last year",
-    "envelope_defaulted": "envelope entirely from defaults (lower confidence)",
-    "shifted_span": "compared over the building's latest covered 12 months, not the window",
-    "base_at_grid_edge": "fitted balance point on the edge of the bases searched",
-}
-
-
-def era_of(year_built: pl.Expr) -> pl.Expr:
-    """Construction era label used for peer groups (same bins as the envelope defaults)."""
-    return (pl.when(year_built.is_null()).then(pl.lit("unknown"))
-            .when(year_built < 1950).then(pl.lit("pre-1950"))
-            .when(year_built < 1980).then(pl.lit("1950-1979"))
-            .when(year_built < 2000).then(pl.lit("1980-1999"))
-            .when(year_built < 2012).then(pl.lit("2000-2011"))
-            .otherwise(pl.lit("2012+")))
-
 
 def peer_groups(df: pl.DataFrame, *, min_group: int) -> pl.Series:
     """Peer group per building: ``use_type × era``, or ``use_type`` when that group is small.
@@ -635,11 +611,3 @@ def next_steps(flag_codes: list[str], data_issue_codes: list[str], *, slope_vs_e
     if not steps:
         steps.append("No check needed now; keep the readings coming and review next quarter.")
     return steps
-
-
-def np_safe(x) -> float | None:
-    """A float or None for missing/NaN (for JSON and the sheets)."""
-    if x is None:
-        return None
-    x = float(x)
-    return x if np.isfinite(x) else None

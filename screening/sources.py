@@ -19,6 +19,8 @@ from dataclasses import dataclass
 
 import polars as pl
 
+from .schema import REJECT_SCHEMA as _REJECT_SCHEMA
+
 FILE_COL = "_file"
 LINE_COL = "_line"
 
@@ -38,8 +40,6 @@ READINGS = KeySpec("reading", ("building_id", "fuel", "meter_id", "period_start"
                    "quantity", "quantity")
 WEATHER = KeySpec("weather day", ("station_id", "date"), "date", "date")
 
-_REJECT_SCHEMA = pl.Schema({"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
-                            "reason": pl.String})
 
 
 def one_row_per_key(df: pl.DataFrame, spec: KeySpec) -> tuple[pl.DataFrame, pl.DataFrame, list[str]]:

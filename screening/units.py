@@ -34,18 +34,19 @@ from typing import TYPE_CHECKING
 
 import polars as pl
 
-from . import refdata
+from . import refdata, schema
+from .schema import REJECT_SCHEMA
 
 if TYPE_CHECKING:
     from polars.expr.whenthen import ChainedThen, Then
 
-#: fuels of the input contract, plus kerosene
-FUELS = ("natural_gas", "fuel_oil", "propane", "kerosene", "electricity",
-         "district_steam", "district_hot_water")
+#: fuels of the input contract (:data:`screening.schema.FUELS`)
+FUELS = tuple(schema.FUELS)
 
 READING_COLUMNS = ("building_id", "fuel", "period_start", "period_end", "quantity", "unit")
 
-_REJECT_SCHEMA = pl.Schema({"line": pl.Int64, "column": pl.String, "value": pl.String, "reason": pl.String})
+#: rejects of this layer name no file (the caller adds it): the declared reject columns without ``file``
+_REJECT_SCHEMA = pl.Schema({k: v for k, v in REJECT_SCHEMA.items() if k != "file"})
 
 
 def unit_table() -> pl.DataFrame:

@@ -34,15 +34,16 @@ import polars as pl
 from .csvread import LINE_COL, read_table
 from .degree_days import F_PER_C
 from .errors import InputError
+from .parse import dates_in_format
+from .schema import REJECT_SCHEMA, WEATHER, column
 
 __all__ = ["read_daily_weather", "read_hourly_weather", "read_mapped_daily", "WeatherRead",
            "REJECT_SCHEMA", "TEMP_UNITS"]
 
-REJECT_SCHEMA = pl.Schema({"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
-                           "reason": pl.String})
 #: Physical plausibility limits of a surface air temperature, per file unit (issue 3:
 #: "beyond ±140 °F / ±60 °C"; the recorded extremes are about 134 °F and −128.6 °F, from memory).
-_LIMITS = {"F": 140.0, "C": 60.0}
+#: Declared in :data:`screening.schema.WEATHER` (the same for t_min, t_max and t_mean).
+_LIMITS = {"F": float(column("weather", "t_mean").hi or 0), "C": float(column("weather", "t_mean").hi_si or 0)}
 #: Temperature units a mapping may name: unit → (factor to °F, offset to °F, limit family).
 #: °F = °C·1.8 + 32 (definition, NIST SP 811); "0.1C"/"0.1F" are tenths, as some services publish.
 TEMP_UNITS = {
@@ -50,7 +51,7 @@ TEMP_UNITS = {
     "0.1F": (0.1, 0.0, "F"), "0.1C": (0.1 * F_PER_C, 32.0, "C"),
 }
 _SCALE_TO_FILE_UNIT = {"F": 1.0, "C": 1.0, "0.1F": 0.1, "0.1C": 0.1}
-_OUR_DAILY = ("station_id", "date", "t_min", "t_max", "t_mean")
+_OUR_DAILY = tuple(c.name for c in WEATHER)
 
 
 class WeatherRead(tuple):
@@ -205,7 +206,7 @@ def _finish_daily(df: pl.DataFrame, label: str, date_format: str, temp_units: di
     df, bad = _reject(df, pl.col("station_id").is_null() | (pl.col("station_id") == ""), "station_id",
                       pl.col("station_id").fill_null(""), "station_id is empty")
     rejected.append(bad)
-    df = df.with_columns(pl.col("date").str.strip_chars().str.to_date(date_format, strict=False).alias("_d"))
+    df = df.with_columns(dates_in_format(df["date"], date_format).alias("_d"))
     df, bad = _reject(df, pl.col("_d").is_null(), "date", pl.col("date").fill_null(""),
                       f"not a valid date (expected format {date_format})")
     rejected.append(bad)

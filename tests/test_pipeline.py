@@ -263,12 +263,13 @@ def test_a_base_on_the_grid_edge_is_a_flag_and_the_baseload_is_never_negative():
 
 
 def test_readme_lists_the_data_issues_and_the_flags_the_code_declares():
-    # one declaration each: data issues (and whether they block) in pipeline.DATA_ISSUE_CODES, flags in
-    # screen.FLAG_TEXT; README's two tables list exactly those, and no code is both
+    # one declaration each (screening.schema): data issues (and whether they block) in DATA_ISSUES, seen by
+    # the code as pipeline.DATA_ISSUE_CODES, flags in FLAGS; README's two tables list exactly those, and no code is both
     import re
     from pathlib import Path
     from screening.pipeline import DATA_ISSUE_CODES
-    from screening.screen import FLAG_TEXT
+    from screening.schema import FLAGS as FLAG_TEXT
+    from screening.schema import issue_codes
     text = (Path(__file__).resolve().parents[1] / "README.md").read_text(encoding="utf-8")
 
     def table(heading):
@@ -276,7 +277,7 @@ def test_readme_lists_the_data_issues_and_the_flags_the_code_declares():
         return {m.group(1): m.group(2).strip() for m in re.finditer(r"^\| `([a-z_]+)` \| ([^|]+)\|", sec, re.M)}
     issues = table("### Data issues\n")
     flags = table("### Flags\n")
-    assert {c: v == "yes" for c, v in issues.items()} == DATA_ISSUE_CODES
+    assert {c: v == "yes" for c, v in issues.items()} == DATA_ISSUE_CODES == issue_codes()
     assert set(flags) == set(FLAG_TEXT)
     assert not set(DATA_ISSUE_CODES) & set(FLAG_TEXT)
 

@@ -109,7 +109,7 @@ def test_rejects_and_other_fuels():
             ("zz", "natural_gas", 1.0, "therm"),    # unknown building
             ("o", "electricity", 1.0, "gal"),       # gallons of electricity
             ("g", "electricity", 500.0, "KWH"),     # a second fuel, kept, case-insensitive unit
-            ("o", "kerosene", 2.0, "gal")]
+            ("o", "kerosene", 2.0, "gal")]          # not an input fuel (screening.schema.FUELS)
     ok, rej = convert_to_kbtu(_readings(rows), BLD)
     reasons = dict(zip(rej["line"], rej["reason"]))
     assert rej.columns == ["line", "column", "value", "reason"]
@@ -119,12 +119,12 @@ def test_rejects_and_other_fuels():
     assert reasons[5] == "negative quantity"
     assert reasons[6].startswith("unknown building")
     assert reasons[7].startswith("unit gal is not a unit of electricity")
-    assert set(rej["line"]) == {2, 3, 4, 5, 6, 7}
-    assert ok["unit"].to_list() == ["kWh", "gal"]
-    assert ok["is_heating_fuel"].to_list() == [False, False]
+    assert reasons[9].startswith("unknown fuel")
+    assert set(rej["line"]) == {2, 3, 4, 5, 6, 7, 9}
+    assert ok["unit"].to_list() == ["kWh"]
+    assert ok["is_heating_fuel"].to_list() == [False]
     assert ok["energy_kbtu"][0] == pytest.approx(500 * 3.412141633, rel=1e-9)   # exact kWh (factors.md §8)
-    assert ok["energy_kbtu"][1] == pytest.approx(270.0, rel=1e-15)              # 2 gal x 135,000 Btu/gal (40 CFR 98)
-    assert ok["days"].to_list() == [31, 31]
+    assert ok["days"].to_list() == [31]
 
 
 def test_end_before_start_and_missing_column():
