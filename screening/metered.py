@@ -860,7 +860,7 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
                     engineering_base_f: np.ndarray, baseload_shares: pl.DataFrame | None = None,
                     method: str = "days", daily_weights: pl.DataFrame | None = None,
                     min_periods: int = 9, max_period_days: int = 62,
-                    fill_hdd: np.ndarray | None = None) -> pl.DataFrame:
+                    fill_hdd: np.ndarray | None = None, fit_block: int = 4096) -> pl.DataFrame:
     """Per building: the heating part of the heating fuel over its span, normalized to a normal year.
 
     With a regression fit (:func:`fit_variable_base`, ``fit_method`` "regression")::
@@ -955,7 +955,7 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
                          f"fuel_class={bad['fuel_class']!r}")
 
     fit = _fit_in_blocks(periods, period_hdd, sp["building_id"], grid, min_periods=min_periods,
-                         max_period_days=max_period_days)
+                         max_period_days=max_period_days, block=fit_block)
     read = frame["total_fuel_kbtu"].fill_null(0.0).to_numpy()
     covered = frame["covered_days"].to_numpy().astype(float)
     share = frame["nonheating_share"].to_numpy()

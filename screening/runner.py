@@ -315,7 +315,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
         # the readings frame is passed, not kept here, so screening can free it once checked
         res = pipeline.screen_frames(b, stored.pop("readings"), w, cfg, window=window, paths=paths, previous=previous,
-                                     events=events, plan_context=plan_ctx)
+                                     events=events, plan_context=plan_ctx,
+                                     chunk_buildings=cfg["run"]["chunk_buildings"])
         timings.update(res.timings)
         _stage("after_screen")
         bar.stage("write tables")
