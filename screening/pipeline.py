@@ -270,6 +270,12 @@ FIT_BLOCK = 4096
 REJECTS_EMPTY = pl.DataFrame(schema=REJECT_SCHEMA)
 
 
+def chunk_size(chunk_buildings: int, n_buildings: int, fit_block: int | None = None) -> int:
+    """Buildings per chunk: ``chunk_buildings`` rounded up to whole regression blocks, all of them for 0."""
+    fb = fit_block or FIT_BLOCK
+    return n_buildings if chunk_buildings <= 0 else min(-(-chunk_buildings // fb) * fb, max(n_buildings, 1))
+
+
 class ReadingsSource:
     """Where a screening gets the readings of a chunk of buildings (the readings rows of the canonical
     frame, one row per key). ``self(ids)``: the readings of the buildings ``ids``; ``others(ids)``:
@@ -414,7 +420,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
                   cfg: dict, *, window: tuple[_dt.date, _dt.date], paths: dict | None = None,
                   previous: pl.DataFrame | None = None, events: pl.DataFrame | None = None,
                   plan_context: pl.DataFrame | None = None, chunk_buildings: int = 0,
-                  fit_block: int = FIT_BLOCK) -> Screened:
+                  fit_block: int | None = None) -> Screened:
     """Screen a portfolio (canonical IP frames, see DEVELOPERS.md).
 
     ``previous`` is an earlier run's results (``building_id, normal_heating_kbtu``) for
@@ -427,8 +433,9 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
     :class:`ReadingsSource` that gives a chunk's readings, e.g. from the store); the portfolio
     statistics (peer medians and spreads, year-on-year z, the ranking: :func:`screen.screen`) run
     once over all results. A chunk is a whole number of regression blocks of ``fit_block``
-    buildings (rounded up), so the results are those of one pass.
+    buildings (default :data:`FIT_BLOCK`; :func:`chunk_size`), so the results are those of one pass.
     """
+    fit_block = fit_block or FIT_BLOCK
     paths = paths or {}
     a = cfg["analysis"]
     t0 = time.perf_counter()
@@ -463,7 +470,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
 
 
     # per-building work, a chunk of buildings at a time (each building's rows depend only on its own)
-    size = b.height if chunk_buildings <= 0 else -(-chunk_buildings // fit_block) * fit_block
+    size = chunk_size(chunk_buildings, b.height, fit_block)
     chunked = size < b.height
     parts: list[_Part] = []
     for c0 in range(0, b.height, max(size, 1)):
