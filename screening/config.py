@@ -37,6 +37,9 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "workers": 2,               # processes for sheet rendering
         "ranking_pdf_rows": 1000,   # rows of the ranked table in ranking.pdf (0 = all; ranking.csv has all)
     },
+    "run": {
+        "chunk_buildings": 16384,   # buildings screened at a time (0 = all at once); peak memory grows with it
+    },
     "analysis": {
         "units": "IP",              # IP or SI: units of the input files and of the outputs
         "as_of": "",                # YYYY-MM-DD; empty = today
@@ -195,6 +198,7 @@ RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("output", "keep"): (0, 1000, "a whole number"),
     ("output", "workers"): (1, 64, "a whole number"),
     ("output", "ranking_pdf_rows"): (0, 10_000_000, "a whole number"),
+    ("run", "chunk_buildings"): (0, 100_000_000, "a whole number of buildings"),
     # the whole method compares 12 months; a building's own span may go back up to 10 years
     ("analysis", "lookback_months"): (12, 120, "a whole number of months"),
     # at most about two billing cycles may be filled; more is a missing bill, not a late read

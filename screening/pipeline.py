@@ -255,20 +255,67 @@ class _PeriodHdd:
         return np.concatenate([self(r)[np.arange(r.size), j[r]] for r in self._blocks()])
 
 
-def _cross_check(b: pl.DataFrame, r: pl.DataFrame, stations: list[str], paths: dict) -> tuple:
+#: Buildings per regression block (:func:`screening.metered._fit_in_blocks`); a chunk of the two-pass
+#: screening is a whole number of blocks, so chunked and one-pass results are the same to the bit
+FIT_BLOCK = 4096
+REJECTS_EMPTY = pl.DataFrame(schema=REJECT_SCHEMA)
+
+
+def chunk_size(chunk_buildings: int, n_buildings: int, fit_block: int | None = None) -> int:
+    """Buildings per chunk: ``chunk_buildings`` rounded up to whole regression blocks, all of them for 0."""
+    fb = fit_block or FIT_BLOCK
+    return n_buildings if chunk_buildings <= 0 else min(-(-chunk_buildings // fb) * fb, max(n_buildings, 1))
+
+
+class ReadingsSource:
+    """Where a screening gets the readings of a chunk of buildings (the readings rows of the canonical
+    frame, one row per key). ``self(ids)``: the readings of the buildings ``ids``; ``others(ids)``:
+    those of every other building (rejected as unknown buildings)."""
+
+    def __call__(self, ids: pl.Series) -> pl.DataFrame:
+        raise NotImplementedError
+
+    def others(self, ids: pl.Series) -> pl.DataFrame:
+        raise NotImplementedError
+
+
+class FrameReadings(ReadingsSource):
+    """Readings held in memory as one frame."""
+
+    def __init__(self, readings: pl.DataFrame):
+        self.r = readings
+
+    def __call__(self, ids: pl.Series) -> pl.DataFrame:
+        return self.r.filter(pl.col("building_id").is_in(ids.implode()))
+
+    def others(self, ids: pl.Series) -> pl.DataFrame:
+        return self.r.filter(~pl.col("building_id").is_in(ids.implode()))
+
+
+def _cross_check_buildings(b: pl.DataFrame, stations: list[str], paths: dict) -> tuple[pl.DataFrame, pl.DataFrame]:
+    """Buildings whose station has weather, and the rejects of the others."""
     st = pl.Series(stations, dtype=pl.String).implode()
     bad_b = b.filter(~pl.col("station_id").is_in(st))
-    rej = [bad_b.select(_source(b, paths, "buildings").alias("file"), pl.col("_line").alias("line"),
-                        pl.lit("station_id").alias("column"), pl.col("station_id").alias("value"),
-                        pl.lit("unknown station (not in the weather data)").alias("reason"))]
-    b = b.filter(pl.col("station_id").is_in(st))
+    rej = bad_b.select(_source(b, paths, "buildings").alias("file"), pl.col("_line").alias("line"),
+                       pl.lit("station_id").alias("column"), pl.col("station_id").alias("value"),
+                       pl.lit("unknown station (not in the weather data)").alias("reason"))
+    return b.filter(pl.col("station_id").is_in(st)), rej.cast(REJECT_SCHEMA)
+
+
+def _cross_check(b: pl.DataFrame, r: pl.DataFrame, stations: list[str], paths: dict) -> tuple:
+    """Buildings with a known station, their readings, and the rejects of the rest (both files)."""
+    b, rej = _cross_check_buildings(b, stations, paths)
     ids = b["building_id"].implode()
     bad_r = r.filter(~pl.col("building_id").is_in(ids))
-    rej.append(bad_r.select(_source(r, paths, "readings").alias("file"), pl.col("_line").alias("line"),
-                            pl.lit("building_id").alias("column"), pl.col("building_id").alias("value"),
-                            pl.lit("unknown building (not among the accepted buildings)").alias("reason")))
-    r = r.filter(pl.col("building_id").is_in(ids))
-    return b, r, pl.concat([x.cast(REJECT_SCHEMA) for x in rej])
+    return b, r.filter(pl.col("building_id").is_in(ids)), pl.concat([rej, _unknown_building_rejects(bad_r, paths)])
+
+
+def _unknown_building_rejects(bad_r: pl.DataFrame, paths: dict) -> pl.DataFrame:
+    """Rejects of readings whose building is not among the accepted buildings."""
+    return bad_r.select(_source(bad_r, paths, "readings").alias("file"), pl.col("_line").alias("line"),
+                        pl.lit("building_id").alias("column"), pl.col("building_id").alias("value"),
+                        pl.lit("unknown building (not among the accepted buildings)").alias("reason")
+                        ).cast(REJECT_SCHEMA)
 
 
 def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float, *, block: int = 16384) -> pl.DataFrame:
@@ -360,31 +407,43 @@ def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float)
         pl.lit(True).alias("blocking")).sort("building_id")
 
 
-def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.DataFrame, cfg: dict, *,
-                  window: tuple[_dt.date, _dt.date], paths: dict | None = None,
+def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSource, weather: pl.DataFrame,
+                  cfg: dict, *, window: tuple[_dt.date, _dt.date], paths: dict | None = None,
                   previous: pl.DataFrame | None = None, events: pl.DataFrame | None = None,
-                  plan_context: pl.DataFrame | None = None) -> Screened:
-    """Screen a portfolio held in memory (canonical IP frames, see DEVELOPERS.md).
+                  plan_context: pl.DataFrame | None = None, chunk_buildings: int = 0,
+                  fit_block: int | None = None) -> Screened:
+    """Screen a portfolio (canonical IP frames, see DEVELOPERS.md).
 
     ``previous`` is an earlier run's results (``building_id, normal_heating_kbtu``) for
     the year-over-year comparison. ``events`` (from ``events.read_all``) adds the savings after
     each measure (``Screened.savings``).
+
+    Two passes: the per-building work (spans, periods, fits, envelope, Monte Carlo, excess, data
+    issues, savings) runs over chunks of ``chunk_buildings`` buildings in building_id order (0 = all
+    at once), each chunk with only its own readings (``readings`` is a frame, or a
+    :class:`ReadingsSource` that gives a chunk's readings, e.g. from the store); the portfolio
+    statistics (peer medians and spreads, year-on-year z, the ranking: :func:`screen.screen`) run
+    once over all results. A chunk is a whole number of regression blocks of ``fit_block``
+    buildings (default :data:`FIT_BLOCK`; :func:`chunk_size`), so the results are those of one pass.
     """
+    fit_block = fit_block or FIT_BLOCK
     paths = paths or {}
     a = cfg["analysis"]
     t0 = time.perf_counter()
     timings: dict[str, float] = {}
 
-    def lap(name: str) -> None:
+    def lap(name: str) -> None:  # summed over the chunks
         nonlocal t0
         now = time.perf_counter()
-        timings[name] = round(now - t0, 4)
+        timings[name] = round(timings.get(name, 0.0) + now - t0, 4)
         t0 = now
 
     grid = base_grid(cfg)
     stations = sorted(weather["station_id"].unique().to_list())
-    b, r, rejects = _cross_check(buildings, readings, stations, paths)
-    del readings  # the checked copy is all that is needed (a caller passing the store's frame frees it here)
+    source = readings if isinstance(readings, ReadingsSource) else FrameReadings(readings)
+    del readings  # the source holds the frame (a caller passing the store's frame frees it with the source)
+    b, rejects = _cross_check_buildings(buildings, stations, paths)
+    rejects = pl.concat([rejects, _unknown_building_rejects(source.others(b["building_id"]), paths)])
     b = b.drop("_file", strict=False).sort("building_id")
     if b.height == 0:
         raise InputError(paths.get("buildings", "buildings"), "no building could be screened",
@@ -400,12 +459,80 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         _check_normal_years(normals, b, weather, a["normal_years"])
     lap("degree_days")
 
+
+    # per-building work, a chunk of buildings at a time (each building's rows depend only on its own)
+    size = chunk_size(chunk_buildings, b.height, fit_block)
+    chunked = size < b.height
+    parts: list[_Part] = []
+    for c0 in range(0, b.height, max(size, 1)):
+        bc = b.slice(c0, size)
+        rc = source(bc["building_id"])
+        parts.append(_screen_part(bc, rc, weather, cfg, cube=cube, normals=normals, gaps=gaps, grid=grid,
+                                  window=window, paths=paths, previous=previous, plan_context=plan_context,
+                                  events=events, chunked=chunked, fit_block=fit_block, lap=lap))
+        del rc
+    del source
+    if chunked and not any(p.covered for p in parts):
+        firsts = [p.first for p in parts if p.first is not None]
+        lasts = [p.last for p in parts if p.last is not None]
+        _no_building_screenable_counts(sum(p.n_conv for p in parts), sum(p.n_readings for p in parts),
+                                       min(firsts) if firsts else None, max(lasts) if lasts else None,
+                                       window, paths)
+    frame = pl.concat([p.frame for p in parts], how="vertical_relaxed") if len(parts) > 1 else parts[0].frame
+    rejects = pl.concat([rejects, *[p.rejects for p in parts]])
+    issues_df = pl.concat([p.issues for p in parts]) if len(parts) > 1 else parts[0].issues
+    periods = pl.concat([p.periods for p in parts], how="vertical_relaxed") if len(parts) > 1 else parts[0].periods
+    envelope = pl.concat([p.envelope for p in parts], how="vertical_relaxed") if len(parts) > 1 \
+        else parts[0].envelope
+    saved = None
+    if events is not None:
+        saved = pl.concat([p.savings for p in parts if p.savings is not None], how="vertical_relaxed")
+    del parts
+    thr = cfg["thresholds"]
+    t0 = time.perf_counter()
+
+    # the portfolio pass: peer statistics, year-on-year z, the ranking
+    units_ip = cfg["analysis"]["units"] == "IP"
+    results = screen.screen(frame, thr, plan=cfg["plan"], currency=cfg["prices"]["currency"], energy_factor=1.0 if units_ip else KBTU_TO_KWH,
+                            energy_unit="kBtu" if units_ip else "kWh")
+    lap("screening")
+    return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
+                    envelope=envelope, window=window, timings=timings, normal_years=normals.years_used,
+                    savings=saved)
+
+
+@dataclass
+class _Part:
+    """One chunk's per-building results (before the portfolio pass)."""
+
+    frame: pl.DataFrame = field(default_factory=pl.DataFrame)
+    issues: pl.DataFrame = field(default_factory=pl.DataFrame)
+    periods: pl.DataFrame = field(default_factory=pl.DataFrame)
+    envelope: pl.DataFrame = field(default_factory=pl.DataFrame)
+    rejects: pl.DataFrame = field(default_factory=pl.DataFrame)
+    savings: pl.DataFrame | None = None
+    covered: bool = False
+    first: _dt.date | None = None
+    last: _dt.date | None = None
+    n_conv: int = 0
+    n_readings: int = 0
+
+
+def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: dict, *, cube, normals,
+                 gaps: pl.DataFrame, grid: np.ndarray, window: tuple[_dt.date, _dt.date], paths: dict,
+                 previous: pl.DataFrame | None, plan_context: pl.DataFrame | None,
+                 events: pl.DataFrame | None, chunked: bool, fit_block: int, lap) -> _Part:
+    """The per-building work for the buildings ``b`` (sorted) and their checked readings ``r``."""
+    a = cfg["analysis"]
+    ws, we = window
+    part = _Part()
     # metered side
     conv, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=a["gas_btu_per_ft3"],
                                           steam_btu_per_lb=a["steam_btu_per_lb"])
     n_readings = r.height
     del r
     conv = conv.select([c for c in _CONV_KEEP if c in conv.columns])  # what the later steps read (not _file)
+    rejects = REJECTS_EMPTY
     if conv_rej.height:
         rejects = pl.concat([rejects, conv_rej.select(_source(conv_rej, paths, "readings").alias("file"),
                                                       "line", "column", pl.col("value").cast(pl.String), "reason")
@@ -414,7 +541,11 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     spans = metered.choose_spans(conv, ws, we, lookback_months=a["lookback_months"],
                                  min_coverage=thr["coverage_min"], building_ids=b["building_id"],
                                  fill_end_days=a["fill_end_days"])
-    if not bool((spans["coverage"].fill_null(0.0) > 0).any()):
+    part.covered = bool((spans["coverage"].fill_null(0.0) > 0).any())
+    if conv.height:
+        part.first, part.last = conv["period_start"].min(), conv["period_end"].max()  # type: ignore[assignment]
+    part.n_conv, part.n_readings = conv.height, n_readings
+    if not part.covered and not chunked:
         _no_building_screenable(conv, n_readings, window, a["lookback_months"], paths)
     spans = spans.join(b.select("building_id", "station_id"), on="building_id", how="left", maintain_order="left")
     st = spans["station_id"].to_numpy()
@@ -442,7 +573,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
                                   engineering_base_f=envelope["balance_point_f"].to_numpy(),
                                   method=a["calendarization"], fill_hdd=fill_hdd,
                                   daily_weights=_daily_weights(cube, spans, conv, envelope)
-                                  if a["calendarization"] == "degree_days" else None)
+                                  if a["calendarization"] == "degree_days" else None, fit_block=fit_block)
     lap("regression")
     if periods.height:
         fb = periods.select("building_id").join(
@@ -561,21 +692,18 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
           for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")])
     if plan_context is not None:  # issue 17: events.plan_context (audits that found nothing, confirmed findings)
         frame = frame.join(plan_context, on="building_id", how="left", maintain_order="left")
-    units_ip = cfg["analysis"]["units"] == "IP"
-    results = screen.screen(frame, thr, plan=cfg["plan"], currency=cfg["prices"]["currency"], energy_factor=1.0 if units_ip else KBTU_TO_KWH,
-                            energy_unit="kBtu" if units_ip else "kWh")
-    lap("screening")
-    saved = None
+    part.savings = None
     if events is not None:  # savings after a measure (issue 17): screening/events.py, screening/savings.py
         from . import events as ev
         sc = cfg["savings"]
-        saved = ev.measure_savings(conv, b, cube, normals, grid, events, _prices(b, cfg), window_end=we,
-                                   blackout_days=sc["blackout_days"], min_periods=sc["baseline_min_periods"],
-                                   cv_max=sc["cv_rmse_max"], nmbe_max=sc["nmbe_max"])
+        part.savings = ev.measure_savings(conv, b, cube, normals, grid,
+                                          events.filter(pl.col("building_id").is_in(b["building_id"].implode())),
+                                          _prices(b, cfg), window_end=we, blackout_days=sc["blackout_days"],
+                                          min_periods=sc["baseline_min_periods"], cv_max=sc["cv_rmse_max"],
+                                          nmbe_max=sc["nmbe_max"])
         lap("savings")
-    return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
-                    envelope=envelope, window=window, timings=timings, normal_years=normals.years_used,
-                    savings=saved)
+    part.frame, part.issues, part.periods, part.envelope, part.rejects = frame, issues_df, periods, envelope, rejects
+    return part
 
 
 def _check_normal_years(normals, b: pl.DataFrame, weather: pl.DataFrame, ny: list[int]) -> None:
@@ -599,9 +727,16 @@ def _check_normal_years(normals, b: pl.DataFrame, weather: pl.DataFrame, ny: lis
 
 def _no_building_screenable(conv: pl.DataFrame, n_readings: int, window, lookback: int, paths: dict) -> None:
     """No building has a heating-fuel reading on any day of its span: nothing can be screened."""
+    first = conv["period_start"].min() if conv.height else None
+    last = conv["period_end"].max() if conv.height else None
+    _no_building_screenable_counts(conv.height, n_readings, first, last, window, paths)
+
+
+def _no_building_screenable_counts(n_conv: int, n_readings: int, first, last, window, paths: dict) -> None:
+    """:func:`_no_building_screenable` from the counts and the readings' first and last dates."""
     ws, we = window
-    if conv.height:
-        span = f"readings run from {conv['period_start'].min()!s} to {conv['period_end'].max()!s}"
+    if n_conv:
+        span = f"readings run from {first!s} to {last!s}"
     elif n_readings:
         span = "no reading converts to energy (see rejects)"
     else:

@@ -295,7 +295,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             for n in fl.notices:
                 log.warning("%s", n)
         _stage("after_load")
-        stored = _stored_inputs(store)
+        in_chunks = _readings_in_chunks(store, cfg, db_path, int(store.rows("count_buildings")[0][0]))
+        stored = _stored_inputs(store, readings=not in_chunks)
         b, w, cross_rej = stored["buildings"], stored["weather"], stored["rejects"]
         if w.height == 0:
             raise InputError(files["weather"][0], "no usable weather rows", expected="daily station data")
@@ -318,9 +319,16 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         store = None
         bar.stage("screen")
         paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
-        # the readings frame is passed, not kept here, so screening can free it once checked
-        res = pipeline.screen_frames(b, stored.pop("readings"), w, cfg, window=window, paths=paths, previous=previous,
-                                     events=events, plan_context=plan_ctx)
+        # the readings frame is passed, not kept here, so screening can free it once checked; or each
+        # chunk's readings come from the store (many buildings, one readings file)
+        src = StoreReadings(str(db_path)) if in_chunks else None
+        try:
+            res = pipeline.screen_frames(b, src if src is not None else stored.pop("readings"), w, cfg,
+                                         window=window, paths=paths, previous=previous, events=events,
+                                         plan_context=plan_ctx, chunk_buildings=cfg["run"]["chunk_buildings"])
+        finally:
+            if src is not None:
+                src.close()
         timings.update(res.timings)
         _stage("after_screen")
         bar.stage("write tables")
@@ -490,12 +498,50 @@ def _workers(wanted: int) -> int:
     return max(1, min(wanted, cores))
 
 
-def _stored_inputs(store: Store) -> dict[str, pl.DataFrame]:
+class StoreReadings(pipeline.ReadingsSource):
+    """Each chunk's readings pulled from the store (named statements, the chunk's building ids bound),
+    through a read-only connection held while the screening runs. For one readings file only: rows
+    given by several files are resolved over all of them first (``sources.one_row_per_key``)."""
+
+    def __init__(self, db_path: str):
+        self.db_path = db_path
+        self.store: Store | None = None
+
+    def _frame(self, name: str, ids: pl.Series) -> pl.DataFrame:
+        if self.store is None:
+            self.store = Store(self.db_path, read_only=True)
+        return self.store.frame(name, {"ids": ids.to_list()}).drop(sources.FILE_COL)
+
+    def __call__(self, ids: pl.Series) -> pl.DataFrame:
+        return self._frame("select_readings_of_buildings", ids)
+
+    def others(self, ids: pl.Series) -> pl.DataFrame:
+        return self._frame("select_readings_of_other_buildings", ids)
+
+    def close(self) -> None:
+        if self.store is not None:
+            self.store.close()
+            self.store = None
+
+
+def _readings_in_chunks(store: Store, cfg: dict, db_path: str, n_buildings: int) -> bool:
+    """Whether the screening pulls each chunk's readings from the store: chunks configured and more
+    buildings than one chunk, one readings file, a database file (not ``:memory:``)."""
+    return (pipeline.chunk_size(cfg["run"]["chunk_buildings"], n_buildings) < n_buildings
+            and str(db_path) != ":memory:"
+            and int(store.rows("count_reading_files")[0][0]) <= 1)
+
+
+def _stored_inputs(store: Store, *, readings: bool = True) -> dict[str, pl.DataFrame]:
     """The stored rows of the files the run names, one row per key across files (see ``sources``):
-    ``buildings``, ``readings``, ``weather`` and the cross-file ``rejects``."""
+    ``buildings``, ``readings`` (unless ``readings`` is false: pulled a chunk at a time), ``weather``
+    and the cross-file ``rejects``."""
     frames, rejects = [], []
     for name, spec in (("select_buildings", sources.BUILDINGS), ("select_readings", sources.READINGS),
                        ("select_weather", sources.WEATHER)):
+        if name == "select_readings" and not readings:
+            frames.append(pl.DataFrame())
+            continue
         df, rej, notices = sources.one_row_per_key(store.frame(name), spec)
         for n in notices:
             log.warning("%s", n)

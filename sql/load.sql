@@ -63,6 +63,22 @@ ORDER BY building_id, source_file, source_line;
 SELECT * EXCLUDE (source_file, source_line), source_line AS _line, source_file AS _file FROM readings
 ORDER BY building_id, fuel, meter_id, period_start, source_file, source_line;
 
+-- name: select_readings_of_buildings
+SELECT * EXCLUDE (source_file, source_line), source_line AS _line, source_file AS _file FROM readings
+WHERE building_id IN (SELECT unnest($ids::VARCHAR[]))
+ORDER BY building_id, fuel, meter_id, period_start, source_file, source_line;
+
+-- name: select_readings_of_other_buildings
+SELECT * EXCLUDE (source_file, source_line), source_line AS _line, source_file AS _file FROM readings
+WHERE building_id NOT IN (SELECT unnest($ids::VARCHAR[]))
+ORDER BY building_id, fuel, meter_id, period_start, source_file, source_line;
+
+-- name: count_reading_files
+SELECT count(DISTINCT source_file) FROM readings;
+
+-- name: count_buildings
+SELECT count(*) FROM buildings;
+
 -- name: select_weather
 SELECT station_id, date, t_min_f, t_max_f, t_mean_f, source_line AS _line, source_file AS _file
 FROM weather_daily ORDER BY station_id, date, source_file, source_line;

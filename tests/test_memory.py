@@ -175,3 +175,36 @@ def test_unit_error_issues_in_blocks_equal_one_pass():
     one = pipeline._unit_error_issues(conv, b, 10.0)
     assert one.height >= 2
     assert pipeline._unit_error_issues(conv, b, 10.0, block=5).equals(one)
+
+
+def test_fit_in_blocks_picks_what_the_is_in_filter_picked():
+    # 25 buildings, 10 to 30 monthly periods each (some unusable), in building order as fit_periods gives;
+    # the results depend on the block (its padding to the longest building's periods changes the float
+    # sums' rounding), so each block size is compared with the former is_in pick at that block size
+    rng = np.random.default_rng(23)
+    grid = np.round(40 + 0.5 * np.arange(71), 6)
+    rows, hdd = [], []
+    for b in range(25):
+        for m in range(int(rng.integers(10, 31))):
+            days = int(rng.integers(28, 32))
+            h = np.maximum(grid - rng.uniform(20, 60), 0.0) * days
+            rows.append((f"B{b:02d}", dt.date(2024, 1, 1) + dt.timedelta(days=31 * m), days,
+                         float(rng.uniform(50, 150) * days + 3.0 * h[50]), bool(rng.random() > 0.05)))
+            hdd.append(h)
+    periods = pl.DataFrame(rows, schema=["building_id", "period_start", "days", "energy_kbtu", "usable"],
+                           orient="row")
+    hdd_arr = np.array(hdd)
+    ids = pl.Series("building_id", [f"B{b:02d}" for b in range(27)])  # two buildings without periods
+    rows_ix = periods.select("building_id").with_row_index("_r")
+    for block in (1, 4, 7, 4096):
+        got = metered._fit_in_blocks(periods, hdd_arr, ids, grid, block=block)
+        want = []
+        for a in range(0, ids.len(), block):
+            bid = ids.slice(a, block)
+            p = rows_ix.filter(pl.col("building_id").is_in(bid.implode()))["_r"].to_numpy()
+            arr = metered.pad_periods(periods[p], hdd_arr[p], bid)
+            want.append(metered.fit_variable_base(arr["use_per_day"], arr["days"], arr["hdd_per_day"], grid,
+                                                  arr["valid"]))
+        assert got.keys() == want[0].keys()
+        for k in got:
+            np.testing.assert_array_equal(got[k], np.concatenate([w[k] for w in want]))
