@@ -15,9 +15,13 @@ import os
 import sys
 import tempfile
 import traceback
+from collections.abc import Iterator
+from contextlib import contextmanager
+from enum import Enum
 from pathlib import Path
 from typing import Annotated, Optional
 
+import click
 import typer
 
 from . import __version__, interrupts
@@ -77,6 +81,49 @@ def _fail(exc: BaseException) -> None:
         where = ""
     typer.echo(f"ddscreen: internal error: {type(exc).__name__}: {str(exc)[:200]}{where}", err=True)
     raise typer.Exit(EXIT_RUN_FAILED)
+
+
+@contextmanager
+def _mapped_errors(*, value_error_is_bad_input: bool = False) -> Iterator[None]:
+    """Every command's library call runs inside this: the one place where an exception becomes one line on
+    stderr and an exit code (:func:`_fail`). typer's own exits and usage errors pass through unchanged;
+    with ``value_error_is_bad_input`` a ``ValueError`` (a bad argument of a library function) is one
+    ``ddscreen: error:`` line and exit 2."""
+    try:
+        yield
+    except (click.exceptions.Exit, click.exceptions.ClickException):
+        raise
+    except ValueError as exc:
+        if not value_error_is_bad_input:
+            _fail(exc)
+        typer.echo(f"ddscreen: error: {exc}", err=True)
+        raise typer.Exit(EXIT_BAD_INPUT) from None
+    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001 - mapped to exit codes
+        _fail(exc)
+
+
+class OutputFormat(str, Enum):
+    """``degree-days --format``."""
+
+    csv = "csv"
+    table = "table"
+
+
+class DegreeDayKind(str, Enum):
+    """``degree-days --kind``: :data:`screening.ddtool.KIND_CHOICES` (tests/test_cli.py compares them)."""
+
+    hdd = "hdd"
+    cdd = "cdd"
+    both = "both"
+
+
+class PeriodBy(str, Enum):
+    """``degree-days --by``: :data:`screening.ddtool.BY_CHOICES` (tests/test_cli.py compares them)."""
+
+    day = "day"
+    month = "month"
+    year = "year"
+    period = "period"
 
 
 def _print_summary(res) -> None:
@@ -151,12 +198,10 @@ def run(
                  "output": {"sheets": False if no_sheets else None}}
     if out is None and config is None:
         out = "ddscreen-out"
-    try:
+    with _mapped_errors():
         _reading_overrides(overrides, columns, date_order)
         res = runner.run(config_path=config, overrides=overrides, out_dir=out, force=force, quiet=quiet,
                          progress=not quiet)
-    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001 - mapped to exit codes
-        _fail(exc)
     if not quiet:
         _print_summary(res)
 
@@ -170,10 +215,8 @@ def demo(
     """Screen the packaged sample portfolio (an invented scenario) into OUT."""
     from . import runner
     _log_to_stderr(quiet, False)
-    try:
+    with _mapped_errors():
         res = runner.demo(out, sheets=not no_sheets, progress=not quiet)
-    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
-        _fail(exc)
     if not quiet:
         _print_summary(res)
 
@@ -194,12 +237,10 @@ def validate(
     When a file lacks required columns, prints a column mapping to check and paste into the config.
     """
     from . import runner
-    try:
+    with _mapped_errors():
         overrides = {"analysis": {"units": units.upper() if units else None}}
         _reading_overrides(overrides, columns, date_order)
         v = runner.validate(buildings, readings, weather, config_path=config, overrides=overrides)
-    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
-        _fail(exc)
     for n in v.notices:
         typer.echo(f"notice: {n}")
     for p in v.problems:
@@ -219,39 +260,30 @@ def degree_days(
     weather: Annotated[str, typer.Option(help="daily weather CSV (station_id, date, t_min/t_max or t_mean)")],
     station: Annotated[str, typer.Option(help="station id")],
     base: Annotated[float, typer.Option(help="base temperature (°F for IP, °C for SI)")] = 65.0,
-    kind: Annotated[str, typer.Option(help="hdd, cdd or both")] = "both",
+    kind: Annotated[DegreeDayKind, typer.Option(help="hdd, cdd or both")] = DegreeDayKind.both,
     method: Annotated[str, typer.Option(help="mean, maxmin, hourly or monthly-estimate")] = "mean",
-    by: Annotated[str, typer.Option(help="day, month, year or period")] = "month",
+    by: Annotated[PeriodBy, typer.Option(help="day, month, year or period")] = PeriodBy.month,
     periods: Annotated[Optional[str], typer.Option(help="CSV of periods (start, end) for --by period")] = None,
     hourly: Annotated[Optional[str], typer.Option(help="hourly CSV (station_id, timestamp, temperature) for --method hourly")] = None,
     date_from: Annotated[Optional[str], typer.Option("--from", help="first day YYYY-MM-DD")] = None,
     date_to: Annotated[Optional[str], typer.Option("--to", help="last day YYYY-MM-DD (inclusive)")] = None,
     normal: Annotated[bool, typer.Option(help="normal-year values from the complete years")] = False,
     units: Annotated[str, typer.Option(help="IP or SI")] = "IP",
-    fmt: Annotated[str, typer.Option("--format", help="csv or table")] = "csv",
+    fmt: Annotated[OutputFormat, typer.Option("--format", help="csv or table")] = OutputFormat.csv,
     rounding: Annotated[bool, typer.Option(help="round each daily mean half up first, as weather services publish")] = False,
     date_order: Annotated[Optional[str], typer.Option("--date-order", help=DATE_ORDER_HELP)] = None,
 ):
     """Degree days of one station, to stdout (notices on stderr)."""
     from . import ddtool
     notices: list[str] = []
-    try:
-        if fmt not in ("csv", "table"):
-            raise typer.BadParameter("expected csv or table", param_hint="--format")
-        df = ddtool.degree_days_report(weather, station, base=base, kind=kind, method=method, by=by,
+    with _mapped_errors(value_error_is_bad_input=True):
+        df = ddtool.degree_days_report(weather, station, base=base, kind=kind.value, method=method, by=by.value,
                                        periods_path=periods, date_from=date_from, date_to=date_to, normal=normal,
                                        units=units.upper(), hourly_path=hourly, rounding=rounding,
                                        notices=notices, date_order=_date_order(date_order))
-    except typer.BadParameter:
-        raise
-    except ValueError as exc:
-        typer.echo(f"ddscreen: error: {exc}", err=True)
-        raise typer.Exit(EXIT_BAD_INPUT) from None
-    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
-        _fail(exc)
     for n in notices:
         typer.echo(n if n.startswith("warning:") else f"notice: {n}", err=True)
-    if fmt == "csv":
+    if fmt is OutputFormat.csv:
         sys.stdout.write(df.write_csv())
     else:
         import polars as pl
@@ -271,10 +303,8 @@ def init(
     """Write a commented configuration template (with --from: for your own files, mapping to confirm)."""
     from . import runner
     report: list[str] = []
-    try:
+    with _mapped_errors():
         p = runner.init_config(path, overwrite=force, sources=sources, report=report)
-    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
-        _fail(exc)
     for line in report:
         typer.echo(line)
     typer.echo(f"wrote {p}" + ("; check the [inputs.columns] tables at its end before running" if report else ""))
@@ -288,12 +318,10 @@ def status(
 ):
     """The last runs: status, window and where their outputs are."""
     from . import config as cfgmod, runner
-    try:
+    with _mapped_errors():
         if config:
             db = cfgmod.load(config)["store"]["database"]
         runs = runner.status(db, limit)
-    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
-        _fail(exc)
     if runs.height == 0:
         typer.echo("no runs recorded yet")
         return
@@ -310,10 +338,8 @@ def history(
 ):
     """List the runs and show what changed between two of them (default: the last two successful)."""
     from . import runner
-    try:
+    with _mapped_errors():
         runs, diff = runner.history(db, older, newer)
-    except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
-        _fail(exc)
     for r in runs.iter_rows(named=True):
         typer.echo(f"{r['run_key']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}")
     if diff is None:

@@ -1,5 +1,9 @@
 """Run settings: defaults, a TOML file, and command-line overrides (in that order).
 
+Every setting is declared once below, as a field of a section dataclass (:class:`Settings`): its type,
+default, the comment ``ddscreen init`` writes beside it, and its allowed range or choices. ``DEFAULTS``,
+``RANGES``, ``CHOICES`` and :func:`template_comments` are derived from the declarations; :func:`load`
+returns the checked settings as a dict (section → key → value) and :func:`settings` its typed view.
 Every key is checked against the default's type; an unknown key or a value of the
 wrong type raises ``ConfigError`` naming the key and what is expected.
 """
@@ -12,123 +16,333 @@ import hashlib
 import json
 import math
 import tomllib
+from dataclasses import Field, asdict, dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
 from .errors import ConfigError
 from .schema import UNIT_SYSTEMS
 
-DEFAULTS: dict[str, dict[str, Any]] = {
-    "inputs": {
-        "buildings": "",            # path or glob; several files are read in name order
-        "readings": "",
-        "weather": "",
-        "events": "",               # optional: audits, findings and measures (path or glob); see README
-        "columns": {},              # your column names → ours, per file kind: [inputs.columns.readings] "Usage" = "quantity"
-    },
-    "store": {
-        "database": "screening.duckdb",
-    },
-    "output": {
-        "root": "ddscreen-out",     # config runs write ROOT/<quarter label>/ and ROOT/latest
-        "keep": 8,                  # how many past quarter folders to keep (0 = all)
-        "paper": "auto",            # auto (Letter for IP, A4 for SI), Letter, A4
-        "sheets": True,             # write one PDF sheet per building
-        "workers": 2,               # processes for sheet rendering
-        "ranking_pdf_rows": 1000,   # rows of the ranked table in ranking.pdf (0 = all; ranking.csv has all)
-    },
-    "run": {
-        "chunk_buildings": 16384,   # buildings screened at a time (0 = all at once); peak memory grows with it
-    },
-    "analysis": {
-        "units": "IP",              # IP or SI: units of the input files and of the outputs
-        "as_of": "",                # YYYY-MM-DD; empty = today
-        "window_from": "",          # YYYY-MM-DD; overrides the window start
-        "window_to": "",            # YYYY-MM-DD; overrides the window end (inclusive)
-        "lookback_months": 24,      # how far back a building's own 12-month span may go
-        "fill_end_days": 35,        # up to this many days at the window's end without a reading yet (about
-                                    # one billing cycle) are filled from the building's weather fit; 0 = never
-        "degree_day_method": "mean",  # mean or maxmin (daily data); see README
-        "calendarization": "days",  # days or degree_days
-        "base_min_f": 40.0,         # base-temperature grid for regression and balance point [°F]
-        "base_max_f": 75.0,
-        "base_step_f": 0.5,
-        "normal_years": [],         # e.g. [2016, 2025] = 2016..2025; empty = every complete year
-        "gas_btu_per_ft3": 1036.0,  # natural gas heat content (EIA US average consumed)
-        "steam_btu_per_lb": 1000.0,  # district steam heat content per lb (convention, see units.csv)
-        "draws": 500,               # Monte Carlo draws for the expected band
-        "seed": 20240601,
-        "count_other_fuels": False,  # count non-heating fuels as heating (normally False)
-    },
-    "reading": {
-        "decimal_comma": False,     # numbers written 1.234,5
-        "date_order": "",           # "", "dmy" or "mdy" for slash dates like 03/04/2025
-        "delimiter": "",            # "" = detect; "," ";" or "\t"
-        "encoding": "",             # "" = UTF-8 with Latin-1 fallback
-        "thousands": "",            # "" = none; "," (or "." with decimal_comma, " " or "'") read 1,485 as 1485
-    },
-    "prices": {                     # price per unit of energy, by heating fuel
-        "natural_gas": 1.20,        # $ per therm
-        "fuel_oil": 3.80,           # $ per gallon
-        "propane": 2.90,            # $ per gallon
-        "electricity": 0.15,        # $ per kWh
-        "district_steam": 25.0,     # $ per Mlb
-        "district_hot_water": 20.0,  # $ per MMBtu
-        "currency": "$",
-    },
-    "emissions": {
-        "electricity_kg_co2e_per_kwh": None,  # None = the data file's national value; set your region's
-    },
-    "thresholds": {
-        "band_ratio": 1.0,          # metered above expected_high × this → above the band
-        "band_floor": 0.10,         # the band is at least ±10 % around P50 (common practice: meter/weather uncertainty)
-        "z_review": 2.0,            # unused since the audit order (issue 14); kept so config files that set it still load
-        "review_score": 3.5,        # evidence score (z + weighted balance-point and intensity z) for needs_review
-        "weight_balance_point": 1.0,  # weight of the fitted-minus-engineering balance point z in the score
-        "weight_intensity": 0.5,    # weight of the heating-intensity z within peers in the score
-        "audit_first_ratio": 1.5,   # unused since Audit first is this quarter's plan ([plan]); kept so old configs load
-        "audit_first_score": 5.0,   # unused since Audit first is this quarter's plan ([plan]); kept so old configs load
-        "peer_percentile_high": 90.0,  # intensity percentile among peers flagged as high
-        "min_peer_group": 8,        # peer groups smaller than this fall back to use type
-        "baseload_share_high": 1.5,  # baseload share above this × the use type's default share
-        "balance_point_high_f": 65.0,  # fitted balance point above this → controls/setpoints flag
-        "r2_min": 0.7,              # fit poorer than this → inconsistent use
-        "cv_rmse_max": 20.0,        # % (ASHRAE Guideline 14 monthly regression criterion)
-        "yoy_rise": 0.15,           # normal-year heating up more than 15 % on last year
-        "yoy_review": 0.25,         # needs_review also when normal-year heating is up at least 25 % on last year …
-        "yoy_review_z": 4.0,        # … and that change is this many robust z above the portfolio's changes …
-        "yoy_review_r2_min": 0.5,   # … and the fit that normalizes both years explains at least this share (R²) …
-        "yoy_review_heating_share_min": 0.25,  # … and heating is at least this share of the fuel's use
-        "coverage_min": 0.9,        # share of the span covered by readings
-        "estimated_share_max": 0.5,  # share of estimated reads above which data is weak
-        "unit_error_factor": 8.0,   # a reading this many times off the same month of other years suggests a unit error
-        "unit_error_factor_expected": 10.0,  # metered/expected at or above this: likely unit or entry error
-        "unit_error_factor_expected_low": 25.0,  # metered/expected at or below 1/this: likely unit or entry error
-        "unit_error_factor_fit": 4.0,  # a bill this many times above (or below 1/this of) what its own weather fit predicts
-        "min_excess_ratio": 1.0,    # metered/expected (P50) must reach this for needs_review
-        "peer_prior": 3.0,          # evidence scale: the peers' spread weighs n / (n + this), the model band the rest
-        "sure_offset": 1.0,         # a view's sureness is Φ(z − this): half sure at z = 1
-        "step_sure_z": 3.0,         # the step-up view is half sure at this robust z of the year-on-year change
-        "mechanism_support": 0.5,   # a mechanism is named (with its checks) from this sureness on
-        "balance_point_sd_f": 5.0,  # model scale of fitted − engineering balance point [°F] (our own)
-        "baseload_share_sd": 0.15,  # model scale of the non-heating share against the use type's (our own)
-    },
-    "savings": {                    # savings after a measure (events file kind = measure); README
-        "blackout_days": 30,        # days after the measure left out of the reporting period (commissioning)
-        "baseline_min_periods": 9,  # bills (of at most 62 days) the baseline needs in the 12 months before
-        "cv_rmse_max": 20.0,        # % baseline limit, ASHRAE Guideline 14 (monthly regression; from memory)
-        "nmbe_max": 0.005,          # % |net determination bias| limit, ASHRAE Guideline 14 (from memory)
-    },
-    "plan": {
-        "audits_per_quarter": 10,   # buildings to visit this quarter (0 = no limit: every one worth its visit)
-        "audit_cost": 2000.0,       # cost of one visit: expected savings per year below it are not planned (0 = any)
-        "clean_audit_rest_quarters": 4,  # an audit that found nothing keeps a building off the plan this many quarters …
-        "clean_audit_regrow": 2.0,  # … unless its expected savings reach this × those of the list it was audited from
-    },
-}
 
-UNITS = UNIT_SYSTEMS
+def setting(default: Any, comment: str = "", *, range: tuple[float, float, str] | None = None,
+            choices: tuple[str, ...] | None = None, expected: str = "") -> Any:
+    """One setting: its default, the comment the ``ddscreen init`` template writes beside it, its allowed
+    ``range`` (low, high, what) for numbers, or its ``choices`` and how a message names them (``expected``)."""
+    md = {"comment": comment, "range": range, "choices": choices, "expected": expected}
+    if isinstance(default, (dict, list)):
+        return field(default_factory=lambda: copy.deepcopy(default), metadata=md)
+    return field(default=default, metadata=md)
+
+
 PAPERS = ("auto", "Letter", "A4")
+UNITS = UNIT_SYSTEMS
+
+
+# Every setting, declared once: type, default, comment (the init template), range or choices.
+# Where no published bound exists a range is our own (common practice): wide enough for any real
+# portfolio, narrow enough that a typo (a sign, a missing decimal point, 5 for 0.5) stops. NaN and
+# infinities are refused everywhere. The heat contents take their range from screening/data/units.csv
+# (plausible_min/plausible_max, with its sources) at check time; prices are checked against PRICE_MAX.
+
+@dataclass
+class Inputs:
+    """[inputs]"""
+
+    buildings: str = setting("", "path or glob; several files are read in name order")
+    readings: str = setting("")
+    weather: str = setting("")
+    events: str = setting("", "optional: audits, findings and measures (path or glob); see README")
+    columns: dict[str, dict[str, str]] = setting(
+        {}, 'your column names → ours, per file kind: [inputs.columns.readings] "Usage" = "quantity"')
+
+
+@dataclass
+class Store:
+    """[store]"""
+
+    database: str = setting("screening.duckdb")
+
+
+@dataclass
+class Output:
+    """[output]"""
+
+    root: str = setting("ddscreen-out", "config runs write ROOT/<quarter label>/ and ROOT/latest")
+    keep: int = setting(8, "how many past quarter folders to keep (0 = all)", range=(0, 1000, "a whole number"))
+    paper: str = setting("auto",
+                         "auto (Letter for IP, A4 for SI), Letter, A4", choices=PAPERS, expected="auto, Letter or A4")
+    sheets: bool = setting(True, "write one PDF sheet per building")
+    workers: int = setting(2, "processes for sheet rendering", range=(1, 64, "a whole number"))
+    ranking_pdf_rows: int = setting(1000,
+                                    "rows of the ranked table in ranking.pdf (0 = all; ranking.csv has all)",
+                                    range=(0, 10000000, "a whole number"))
+
+
+@dataclass
+class Run:
+    """[run]"""
+
+    chunk_buildings: int = setting(16384, "buildings screened at a time (0 = all at once); peak memory grows with it",
+                                   range=(0, 100_000_000, "a whole number of buildings"))
+
+
+@dataclass
+class Analysis:
+    """[analysis]"""
+
+    units: str = setting("IP",
+                         "IP or SI: units of the input files and of the outputs", choices=UNIT_SYSTEMS,
+                         expected="IP or SI")
+    as_of: str = setting("", "YYYY-MM-DD; empty = today")
+    window_from: str = setting("", "YYYY-MM-DD; overrides the window start")
+    window_to: str = setting("", "YYYY-MM-DD; overrides the window end (inclusive)")
+    # the whole method compares 12 months; a building's own span may go back up to 10 years
+    lookback_months: int = setting(24,
+                                   "how far back a building's own 12-month span may go",
+                                   range=(12, 120, "a whole number of months"))
+    # at most about two billing cycles may be filled; more is a missing bill, not a late read
+    fill_end_days: int = setting(35,
+                                 "up to this many days at the window's end without a reading yet (about one billing "
+                                 "cycle) are filled from the building's weather fit; 0 = never",
+                                 range=(0, 62, "a whole number of days"))
+    degree_day_method: str = setting("mean",
+                                     "mean or maxmin (daily data); see README", choices=("mean", "maxmin"),
+                                     expected="mean or maxmin")
+    calendarization: str = setting("days",
+                                   "days or degree_days", choices=("days", "degree_days"),
+                                   expected="days or degree_days")
+    # balance points of real buildings lie well inside 20-90 °F (common practice)
+    base_min_f: float = setting(40.0,
+                                "base-temperature grid for regression and balance point [°F]",
+                                range=(20.0, 90.0, "a temperature in °F"))
+    base_max_f: float = setting(75.0, "", range=(20.0, 90.0, "a temperature in °F"))
+    base_step_f: float = setting(0.5, "", range=(0.1, 5.0, "a step in °F"))
+    normal_years: list[int] = setting([], "e.g. [2016, 2025] = 2016..2025; empty = every complete year")
+    gas_btu_per_ft3: float = setting(1036.0, "natural gas heat content (EIA US average consumed)")
+    steam_btu_per_lb: float = setting(1000.0, "district steam heat content per lb (convention, see units.csv)")
+    draws: int = setting(500, "Monte Carlo draws for the expected band", range=(10, 10000, "a whole number"))
+    seed: int = setting(20240601, "", range=(0, 4294967295, "a whole number"))
+    count_other_fuels: bool = setting(False, "count non-heating fuels as heating (normally False)")
+
+
+@dataclass
+class Reading:
+    """[reading]"""
+
+    decimal_comma: bool = setting(False, "numbers written 1.234,5")
+    date_order: str = setting("",
+                              '"", "dmy" or "mdy" for slash dates like 03/04/2025', choices=("", "dmy", "mdy", "ymd"),
+                              expected="dmy, mdy or ymd")
+    delimiter: str = setting("", '"" = detect; "," ";" or "\\t"', choices=("", ",", ";", "\t"), expected=", ; or a tab")
+    encoding: str = setting("", '"" = UTF-8 with Latin-1 fallback')
+    thousands: str = setting("", '"" = none; "," (or "." with decimal_comma, " " or "\'") read 1,485 as 1485')
+
+
+@dataclass
+class Prices:
+    """[prices]: price per unit of energy, by heating fuel"""
+
+    natural_gas: float = setting(1.2, "$ per therm")
+    fuel_oil: float = setting(3.8, "$ per gallon")
+    propane: float = setting(2.9, "$ per gallon")
+    electricity: float = setting(0.15, "$ per kWh")
+    district_steam: float = setting(25.0, "$ per Mlb")
+    district_hot_water: float = setting(20.0, "$ per MMBtu")
+    currency: str = setting("$")
+
+
+@dataclass
+class Emissions:
+    """[emissions]"""
+
+    # the worst grids emit about 1 kg CO2e per kWh (coal, from memory); 2 leaves room
+    electricity_kg_co2e_per_kwh: float | None = setting(None,
+                                                        "None = the data file's national value; set your region's",
+                                                        range=(0.0, 2.0, "kg CO2e per kWh"))
+
+
+@dataclass
+class Thresholds:
+    """[thresholds]"""
+
+    band_ratio: float = setting(1.0,
+                                "metered above expected_high × this → above the band", range=(0.5, 5.0, "a factor"))
+    band_floor: float = setting(0.1,
+                                "the band is at least ±10 % around P50 (common practice: meter/weather uncertainty)",
+                                range=(0.0, 0.9, "a share"))
+    z_review: float = setting(2.0,
+                              "unused since the audit order (issue 14); kept so config files that set it still load",
+                              range=(0.1, 20.0, "a robust z-score"))
+    review_score: float = setting(3.5,
+                                  "evidence score (z + weighted balance-point and intensity z) for needs_review",
+                                  range=(0.1, 50.0, "a score"))
+    weight_balance_point: float = setting(1.0,
+                                          "weight of the fitted-minus-engineering balance point z in the score",
+                                          range=(0.0, 10.0, "a weight"))
+    weight_intensity: float = setting(0.5,
+                                      "weight of the heating-intensity z within peers in the score",
+                                      range=(0.0, 10.0, "a weight"))
+    audit_first_ratio: float = setting(1.5,
+                                       "unused since Audit first is this quarter's plan ([plan]); kept so old "
+                                       "configs load",
+                                       range=(1.0, 100.0, "a ratio"))
+    audit_first_score: float = setting(5.0,
+                                       "unused since Audit first is this quarter's plan ([plan]); kept so old "
+                                       "configs load",
+                                       range=(0.1, 50.0, "a score"))
+    peer_percentile_high: float = setting(90.0,
+                                          "intensity percentile among peers flagged as high",
+                                          range=(50.0, 100.0, "a percentile"))
+    min_peer_group: int = setting(8,
+                                  "peer groups smaller than this fall back to use type",
+                                  range=(2, 10000, "a whole number of buildings"))
+    baseload_share_high: float = setting(1.5,
+                                         "baseload share above this × the use type's default share",
+                                         range=(1.0, 10.0, "a factor"))
+    balance_point_high_f: float = setting(65.0,
+                                          "fitted balance point above this → controls/setpoints flag",
+                                          range=(40.0, 90.0, "a temperature in °F"))
+    r2_min: float = setting(0.7, "fit poorer than this → inconsistent use", range=(0.0, 1.0, "a share"))
+    cv_rmse_max: float = setting(20.0,
+                                 "% (ASHRAE Guideline 14 monthly regression criterion)",
+                                 range=(1.0, 1000.0, "a percentage"))
+    yoy_rise: float = setting(0.15, "normal-year heating up more than 15 % on last year", range=(0.01, 10.0, "a share"))
+    yoy_review: float = setting(0.25,
+                                "needs_review also when normal-year heating is up at least 25 % on last year …",
+                                range=(0.01, 10.0, "a share"))
+    yoy_review_z: float = setting(4.0,
+                                  "… and that change is this many robust z above the portfolio's changes …",
+                                  range=(0.1, 50.0, "a robust z-score"))
+    yoy_review_r2_min: float = setting(
+        0.5, "… and the fit that normalizes both years explains at least this share (R²) …",
+        range=(0.0, 1.0, "a share"))
+    yoy_review_heating_share_min: float = setting(0.25,
+                                                  "… and heating is at least this share of the fuel's use",
+                                                  range=(0.0, 1.0, "a share"))
+    # "covered" below half the span's days means nothing (common practice)
+    coverage_min: float = setting(0.9, "share of the span covered by readings", range=(0.5, 1.0, "a share"))
+    estimated_share_max: float = setting(0.5,
+                                         "share of estimated reads above which data is weak",
+                                         range=(0.0, 1.0, "a share"))
+    unit_error_factor: float = setting(8.0,
+                                       "a reading this many times off the same month of other years suggests a unit "
+                                       "error",
+                                       range=(2.0, 10000.0, "a factor"))
+    unit_error_factor_expected: float = setting(10.0,
+                                                "metered/expected at or above this: likely unit or entry error",
+                                                range=(2.0, 10000.0, "a factor"))
+    unit_error_factor_expected_low: float = setting(25.0,
+                                                    "metered/expected at or below 1/this: likely unit or entry error",
+                                                    range=(2.0, 10000.0, "a factor"))
+    unit_error_factor_fit: float = setting(4.0,
+                                           "a bill this many times above (or below 1/this of) what its own weather "
+                                           "fit predicts",
+                                           range=(1.5, 10000.0, "a factor"))
+    min_excess_ratio: float = setting(1.0,
+                                      "metered/expected (P50) must reach this for needs_review",
+                                      range=(0.5, 10.0, "a ratio"))
+    peer_prior: float = setting(3.0,
+                                "evidence scale: the peers' spread weighs n / (n + this), the model band the rest",
+                                range=(0.0, 10000.0, "a number of buildings"))
+    sure_offset: float = setting(1.0,
+                                 "a view's sureness is Φ(z − this): half sure at z = 1",
+                                 range=(-5.0, 10.0, "a robust z-score"))
+    step_sure_z: float = setting(3.0,
+                                 "the step-up view is half sure at this robust z of the year-on-year change",
+                                 range=(0.0, 50.0, "a robust z-score"))
+    mechanism_support: float = setting(0.5,
+                                       "a mechanism is named (with its checks) from this sureness on",
+                                       range=(0.0, 1.0, "a share"))
+    balance_point_sd_f: float = setting(5.0,
+                                        "model scale of fitted − engineering balance point [°F] (our own)",
+                                        range=(0.5, 30.0, "a temperature difference in °F"))
+    baseload_share_sd: float = setting(0.15,
+                                       "model scale of the non-heating share against the use type's (our own)",
+                                       range=(0.01, 1.0, "a share"))
+
+
+@dataclass
+class Savings:
+    """[savings]: savings after a measure (events file kind = measure); README"""
+
+    # a commissioning settle-in of up to a year; a baseline needs a fit (2 parameters) and at most 12 monthly bills
+    blackout_days: int = setting(30,
+                                 "days after the measure left out of the reporting period (commissioning)",
+                                 range=(0, 366, "a whole number of days"))
+    baseline_min_periods: int = setting(9,
+                                        "bills (of at most 62 days) the baseline needs in the 12 months before",
+                                        range=(3, 12, "a whole number of bills"))
+    cv_rmse_max: float = setting(20.0,
+                                 "% baseline limit, ASHRAE Guideline 14 (monthly regression; from memory)",
+                                 range=(0.1, 1000.0, "a percentage"))
+    nmbe_max: float = setting(0.005,
+                              "% |net determination bias| limit, ASHRAE Guideline 14 (from memory)",
+                              range=(0.0001, 100.0, "a percentage"))
+
+
+@dataclass
+class Plan:
+    """[plan]"""
+
+    audits_per_quarter: int = setting(10,
+                                      "buildings to visit this quarter (0 = no limit: every one worth its visit)",
+                                      range=(0, 1000000, "a whole number of buildings"))
+    audit_cost: float = setting(2000.0,
+                                "cost of one visit: expected savings per year below it are not planned (0 = any)",
+                                range=(0.0, 100000000.0, "a cost per visit"))
+    clean_audit_rest_quarters: int = setting(4,
+                                             "an audit that found nothing keeps a building off the plan this many "
+                                             "quarters …",
+                                             range=(0, 40, "a whole number of quarters"))
+    clean_audit_regrow: float = setting(
+        2.0, "… unless its expected savings reach this × those of the list it was audited from",
+        range=(1.0, 100.0, "a factor"))
+
+@dataclass
+class Settings:
+    """All settings, typed (:func:`settings` gives this view of a checked config)."""
+
+    inputs: Inputs = field(default_factory=Inputs)
+    store: Store = field(default_factory=Store)
+    output: Output = field(default_factory=Output)
+    run: Run = field(default_factory=Run)
+    analysis: Analysis = field(default_factory=Analysis)
+    reading: Reading = field(default_factory=Reading)
+    prices: Prices = field(default_factory=Prices)
+    emissions: Emissions = field(default_factory=Emissions)
+    thresholds: Thresholds = field(default_factory=Thresholds)
+    savings: Savings = field(default_factory=Savings)
+    plan: Plan = field(default_factory=Plan)
+
+
+#: section name → its dataclass
+SECTIONS: dict[str, type] = {f.name: f.type if isinstance(f.type, type) else globals()[f.type]
+                             for f in fields(Settings)}
+
+
+def _keys() -> list[tuple[str, Field]]:
+    return [(s, f) for s, cls in SECTIONS.items() for f in fields(cls)]
+
+
+#: The defaults as a plain dict (section → key → value), in the declared order; a run's config is this
+#: dict with the file's and the command line's values merged in (:func:`load`).
+DEFAULTS: dict[str, dict[str, Any]] = asdict(Settings())
+#: The allowed range of every numeric setting: (section, key) → (low, high, what), from the declarations.
+RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
+    (s, f.name): f.metadata["range"] for s, f in _keys() if f.metadata["range"] is not None}
+#: Settings with a fixed set of values: (section, key) → (choices, how a message names them).
+CHOICES: dict[tuple[str, str], tuple[tuple[str, ...], str]] = {
+    (s, f.name): (f.metadata["choices"], f.metadata["expected"]) for s, f in _keys() if f.metadata["choices"]}
+
+
+def settings(cfg: dict) -> Settings:
+    """The typed view of a config dict (as :func:`load` returns it)."""
+    return Settings(**{s: cls(**cfg[s]) for s, cls in SECTIONS.items()})
+
+
+def template_comments() -> dict[tuple[str, str], str]:
+    """The comment of each setting (used by ``ddscreen init``)."""
+    return {(s, f.name): f.metadata["comment"] for s, f in _keys()}
 
 
 def _check_type(section: str, key: str, value: Any, default: Any) -> Any:
@@ -189,71 +403,6 @@ def merge(base: dict, overrides: dict, *, origin: str) -> dict:
     return out
 
 
-#: The allowed range of every numeric setting: (section, key) → (low, high, what). NaN and
-#: infinities are refused everywhere. The heat contents take their range from
-#: ``screening/data/units.csv`` (``plausible_min``/``plausible_max``, with its sources) at check time.
-#: Where no published bound exists the range is our own (common practice): wide enough for any
-#: real portfolio, narrow enough that a typo (a sign, a missing decimal point, 5 for 0.5) stops.
-RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
-    ("output", "keep"): (0, 1000, "a whole number"),
-    ("output", "workers"): (1, 64, "a whole number"),
-    ("output", "ranking_pdf_rows"): (0, 10_000_000, "a whole number"),
-    ("run", "chunk_buildings"): (0, 100_000_000, "a whole number of buildings"),
-    # the whole method compares 12 months; a building's own span may go back up to 10 years
-    ("analysis", "lookback_months"): (12, 120, "a whole number of months"),
-    # at most about two billing cycles may be filled; more is a missing bill, not a late read
-    ("analysis", "fill_end_days"): (0, 62, "a whole number of days"),
-    # balance points of real buildings lie well inside 20-90 °F (common practice)
-    ("analysis", "base_min_f"): (20.0, 90.0, "a temperature in °F"),
-    ("analysis", "base_max_f"): (20.0, 90.0, "a temperature in °F"),
-    ("analysis", "base_step_f"): (0.1, 5.0, "a step in °F"),
-    ("analysis", "draws"): (10, 10_000, "a whole number"),
-    ("analysis", "seed"): (0, 2**32 - 1, "a whole number"),
-    # the worst grids emit about 1 kg CO2e per kWh (coal, from memory); 2 leaves room
-    ("emissions", "electricity_kg_co2e_per_kwh"): (0.0, 2.0, "kg CO2e per kWh"),
-    ("thresholds", "band_ratio"): (0.5, 5.0, "a factor"),
-    ("thresholds", "band_floor"): (0.0, 0.9, "a share"),
-    ("thresholds", "z_review"): (0.1, 20.0, "a robust z-score"),
-    ("thresholds", "review_score"): (0.1, 50.0, "a score"),
-    ("thresholds", "weight_balance_point"): (0.0, 10.0, "a weight"),
-    ("thresholds", "weight_intensity"): (0.0, 10.0, "a weight"),
-    ("thresholds", "audit_first_ratio"): (1.0, 100.0, "a ratio"),
-    ("thresholds", "audit_first_score"): (0.1, 50.0, "a score"),
-    ("thresholds", "peer_percentile_high"): (50.0, 100.0, "a percentile"),
-    ("thresholds", "min_peer_group"): (2, 10_000, "a whole number of buildings"),
-    ("thresholds", "baseload_share_high"): (1.0, 10.0, "a factor"),
-    ("thresholds", "balance_point_high_f"): (40.0, 90.0, "a temperature in °F"),
-    ("thresholds", "r2_min"): (0.0, 1.0, "a share"),
-    ("thresholds", "cv_rmse_max"): (1.0, 1000.0, "a percentage"),
-    ("thresholds", "yoy_rise"): (0.01, 10.0, "a share"),
-    ("thresholds", "yoy_review"): (0.01, 10.0, "a share"),
-    ("thresholds", "yoy_review_z"): (0.1, 50.0, "a robust z-score"),
-    ("thresholds", "yoy_review_r2_min"): (0.0, 1.0, "a share"),
-    ("thresholds", "yoy_review_heating_share_min"): (0.0, 1.0, "a share"),
-    # "covered" below half the span's days means nothing (common practice)
-    ("thresholds", "coverage_min"): (0.5, 1.0, "a share"),
-    ("thresholds", "estimated_share_max"): (0.0, 1.0, "a share"),
-    ("thresholds", "unit_error_factor"): (2.0, 10_000.0, "a factor"),
-    ("thresholds", "unit_error_factor_expected"): (2.0, 10_000.0, "a factor"),
-    ("thresholds", "unit_error_factor_expected_low"): (2.0, 10_000.0, "a factor"),
-    ("thresholds", "unit_error_factor_fit"): (1.5, 10_000.0, "a factor"),
-    ("thresholds", "min_excess_ratio"): (0.5, 10.0, "a ratio"),
-    ("thresholds", "peer_prior"): (0.0, 10_000.0, "a number of buildings"),
-    ("thresholds", "sure_offset"): (-5.0, 10.0, "a robust z-score"),
-    ("thresholds", "step_sure_z"): (0.0, 50.0, "a robust z-score"),
-    ("thresholds", "mechanism_support"): (0.0, 1.0, "a share"),
-    ("thresholds", "balance_point_sd_f"): (0.5, 30.0, "a temperature difference in °F"),
-    ("thresholds", "baseload_share_sd"): (0.01, 1.0, "a share"),
-    ("plan", "audits_per_quarter"): (0, 1_000_000, "a whole number of buildings"),
-    # a commissioning settle-in of up to a year; a baseline needs a fit (2 parameters) and at most 12 monthly bills
-    ("savings", "blackout_days"): (0, 366, "a whole number of days"),
-    ("savings", "baseline_min_periods"): (3, 12, "a whole number of bills"),
-    ("savings", "cv_rmse_max"): (0.1, 1000.0, "a percentage"),
-    ("savings", "nmbe_max"): (0.0001, 100.0, "a percentage"),
-    ("plan", "audit_cost"): (0.0, 100_000_000.0, "a cost per visit"),
-    ("plan", "clean_audit_rest_quarters"): (0, 40, "a whole number of quarters"),
-    ("plan", "clean_audit_regrow"): (1.0, 100.0, "a factor"),
-}
 #: Prices are per unit of the fuel in any currency (yen as well as dollars), so only the sign
 #: and a finite size are checked.
 PRICE_MAX = 1_000_000.0
@@ -284,6 +433,12 @@ def _check_range(section: str, key: str, value: Any, lo: float, hi: float, what:
         raise _range_error(where, value, f"{what} from {_fmt(lo)} to {_fmt(hi)}")
 
 
+def _check_choice(cfg: dict, section: str, key: str) -> None:
+    choices, expected = CHOICES[(section, key)]
+    if cfg[section][key] not in choices:
+        raise _range_error(f"[{section}] {key}", cfg[section][key], expected)
+
+
 def _check_text(section: str, key: str, value: str, *, empty_ok: bool = True) -> None:
     if not empty_ok and not value.strip():
         raise _range_error(f"[{section}] {key}", value, "a path (not empty)")
@@ -301,16 +456,9 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
     _check_text("store", "database", cfg["store"]["database"], empty_ok=False)
     _check_text("output", "root", cfg["output"]["root"], empty_ok=False)
     a = cfg["analysis"]
-    if a["units"] not in UNITS:
-        raise ConfigError(f"config key [analysis] units: got {a['units']!r}; expected IP or SI")
-    if cfg["output"]["paper"] not in PAPERS:
-        raise ConfigError(f"config key [output] paper: got {cfg['output']['paper']!r}; expected auto, Letter or A4")
-    if a["degree_day_method"] not in ("mean", "maxmin"):
-        raise ConfigError(f"config key [analysis] degree_day_method: got {a['degree_day_method']!r}; "
-                          "expected mean or maxmin")
-    if a["calendarization"] not in ("days", "degree_days"):
-        raise ConfigError(f"config key [analysis] calendarization: got {a['calendarization']!r}; "
-                          "expected days or degree_days")
+    for section, key in (("analysis", "units"), ("output", "paper"), ("analysis", "degree_day_method"),
+                         ("analysis", "calendarization")):
+        _check_choice(cfg, section, key)
     if not a["base_min_f"] < a["base_max_f"]:
         raise ConfigError(f"config keys [analysis] base_min_f/base_max_f: got {a['base_min_f']:g} and "
                           f"{a['base_max_f']:g}; expected min < max")
@@ -331,10 +479,8 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
         raise _range_error("[reading] thousands", r["thousands"],
                            f'"" (none), ",", ".", " " or "\'", not the decimal mark {dec!r}'
                            + (" (decimal_comma = true)" if r["decimal_comma"] else ""))
-    if r["date_order"] not in ("", "dmy", "mdy", "ymd"):
-        raise ConfigError(f"config key [reading] date_order: got {r['date_order']!r}; expected dmy, mdy or ymd")
-    if r["delimiter"] not in ("", ",", ";", "\t"):
-        raise ConfigError(f"config key [reading] delimiter: got {r['delimiter']!r}; expected , ; or a tab")
+    _check_choice(cfg, "reading", "date_order")
+    _check_choice(cfg, "reading", "delimiter")
     if r["encoding"]:
         import codecs
         try:
@@ -467,21 +613,3 @@ def config_hash(cfg: dict) -> str:
     relevant = {k: v for k, v in cfg.items() if k not in ("inputs", "store", "output")}
     relevant["output"] = {"paper": cfg["output"]["paper"]}
     return hashlib.sha256(json.dumps(relevant, sort_keys=True, default=str).encode()).hexdigest()[:16]
-
-
-def template_comments() -> dict[tuple[str, str], str]:
-    """The comment beside each key of DEFAULTS in this file (used by ``ddscreen init``)."""
-    import re
-    out: dict[tuple[str, str], str] = {}
-    section = None
-    src = Path(__file__).read_text(encoding="utf-8")
-    body = src[src.index("DEFAULTS"):src.index("\nUNITS = ")]
-    for line in body.splitlines():
-        m = re.match(r'^    "(\w+)": \{', line)
-        if m:
-            section = m.group(1)
-            continue
-        m = re.match(r'^        "(\w+)":.*?#\s*(.*)$', line)
-        if m and section:
-            out[(section, m.group(1))] = m.group(2).strip()
-    return out

@@ -289,3 +289,26 @@ def test_bad_option_is_a_usage_error(portfolio):
     res = cli(portfolio.args("/nonexistent-dir-for-ddscreen/out", None, "--units", "furlongs"))
     assert res.exit_code == 2
     assert "units" in res.stderr and "Traceback" not in res.stderr
+
+
+def test_cli_choices_are_the_library_ones():
+    from screening import cli as climod, ddtool
+    assert tuple(k.value for k in climod.DegreeDayKind) == ddtool.KIND_CHOICES
+    assert tuple(k.value for k in climod.PeriodBy) == ddtool.BY_CHOICES
+    for opt in ("--kind", "--by", "--format"):
+        res = cli(["degree-days", "--weather", "w.csv", "--station", "S", opt, "weekly"])
+        assert res.exit_code == 2 and opt in res.stderr and "Traceback" not in res.stdout + res.stderr
+
+
+def test_settings_are_declared_once():
+    from screening import config as cfgmod
+    from screening.errors import ConfigError
+    s = cfgmod.settings(cfgmod.load())
+    assert s.analysis.units == "IP" and s.thresholds.r2_min == 0.7 and s.prices.natural_gas == 1.2
+    comments = cfgmod.template_comments()
+    assert set(comments) == {(sec, k) for sec, kv in cfgmod.DEFAULTS.items() for k in kv}
+    # every choice setting refuses a value outside its choices, naming them
+    for (section, key), (choices, expected) in cfgmod.CHOICES.items():
+        assert cfgmod.DEFAULTS[section][key] in choices
+        with pytest.raises(ConfigError, match=re.escape(f"[{section}] {key}: got 'x!'; expected {expected}")):
+            cfgmod.load(overrides={section: {key: "x!"}})
