@@ -132,7 +132,7 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
     """
     if events.height == 0 or "kind" not in events.columns:
         return pl.DataFrame(schema=SAVINGS_SCHEMA)
-    m = (events.filter(pl.col("kind") == "measure").select("building_id", pl.col("date").alias("event_date"))
+    m = (events.filter((pl.col("kind") == "measure") & (pl.col("date") <= window_end)).select("building_id", pl.col("date").alias("event_date"))
          .unique().sort("building_id", "event_date")
          .join(buildings.select("building_id", "station_id"), on="building_id", how="inner")
          .sort("building_id", "event_date"))

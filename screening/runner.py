@@ -714,15 +714,31 @@ def _interrupted(exc: Interrupted, run_id: str, store: Store | None, db_path, ha
 
 def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: bool = True,
          progress: bool = False) -> RunResult:
-    """Screen the packaged sample portfolio into ``out_dir`` (its own database inside)."""
+    """Screen the packaged sample portfolio into ``out_dir`` (its own database inside).
+
+    The sample's events file (audits, measures) goes with it. The quarter two before is screened first,
+    without sheets, into ``out_dir/<its quarter>/``: the audits of the events acted on its list, so the
+    list's hit rate and ``ddscreen history`` have an earlier run to refer to.
+    """
     src = sample_portfolio_dir()
     out = Path(out_dir)
     overrides = {"inputs": {"buildings": str(src / "buildings.csv"), "readings": str(src / "readings.csv"),
-                            "weather": str(src / "weather.csv")},
+                            "weather": str(src / "weather.csv"), "events": str(src / "events.csv")},
                  "store": {"database": str(out / "screening.duckdb")},
                  "analysis": {"as_of": as_of}, "output": {"sheets": sheets}}
     out.mkdir(parents=True, exist_ok=True)
     return _demo_run(overrides, out, progress=progress)
+
+
+def _demo_earlier(overrides: dict, out: Path, *, progress: bool) -> None:
+    """The demo's earlier run: two quarters before ``as_of``, no sheets, into ``out/<its quarter label>``."""
+    as_of = _dt.date.fromisoformat(overrides["analysis"]["as_of"])
+    m = as_of.month - 6
+    earlier = _dt.date(as_of.year + (m - 1) // 12, (m - 1) % 12 + 1, min(as_of.day, 28))
+    ov = {**overrides, "analysis": {**overrides["analysis"], "as_of": str(earlier)},
+          "output": {**overrides["output"], "sheets": False}}
+    _, window = cfgmod.run_window(cfgmod.load(None, ov))
+    run(overrides=ov, out_dir=str(out / quarter_label(window[1])), force=True, quiet=True, progress=progress)
 
 
 # Every top-level name a run writes into its output folder (tests/test_unattended.py checks
@@ -747,6 +763,8 @@ def _demo_run(overrides: dict, out: Path, *, progress: bool = False) -> RunResul
                           "(choose another --out folder)")
     if tmp_out.exists():
         shutil.rmtree(tmp_out)  # what a killed demo left
+    if overrides["inputs"].get("events"):
+        _demo_earlier(overrides, out, progress=progress)
     res = run(overrides=overrides, out_dir=str(tmp_out), force=True, progress=progress)
     for p in tmp_out.iterdir():
         dest = out / p.name
