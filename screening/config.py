@@ -111,6 +111,7 @@ DEFAULTS: dict[str, dict[str, Any]] = {
     },
     "savings": {                    # savings after a measure (events file kind = measure); README
         "blackout_days": 30,        # days after the measure left out of the reporting period (commissioning)
+        "post_measure_min_days": 180,  # measure in the window: judged on the days after it + blackout if this many
         "baseline_min_periods": 9,  # bills (of at most 62 days) the baseline needs in the 12 months before
         "cv_rmse_max": 20.0,        # % baseline limit, ASHRAE Guideline 14 (monthly regression; from memory)
         "nmbe_max": 0.005,          # % |net determination bias| limit, ASHRAE Guideline 14 (from memory)
@@ -242,6 +243,7 @@ RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("plan", "audits_per_quarter"): (0, 1_000_000, "a whole number of buildings"),
     # a commissioning settle-in of up to a year; a baseline needs a fit (2 parameters) and at most 12 monthly bills
     ("savings", "blackout_days"): (0, 366, "a whole number of days"),
+    ("savings", "post_measure_min_days"): (90, 365, "a whole number of days"),
     ("savings", "baseline_min_periods"): (3, 12, "a whole number of bills"),
     ("savings", "cv_rmse_max"): (0.1, 1000.0, "a percentage"),
     ("savings", "nmbe_max"): (0.0001, 100.0, "a percentage"),

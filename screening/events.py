@@ -311,35 +311,69 @@ def _quarter(col: str) -> pl.Expr:
 
 
 def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.date, rest_quarters: int,
-                 regrow: float, blackout_days: int = 30) -> pl.DataFrame:
-    """Per building with an audit finding: whether the plan keeps it off or pins it (for ``screen.screen``).
+                 regrow: float, blackout_days: int = 30, window_start: _dt.date | None = None,
+                 judge_min_days: int = 180) -> pl.DataFrame:
+    """Per building with an audit finding or a measure: how the screening treats it (for ``screen.screen``
+    and ``pipeline.screen_frames``).
 
     - ``_clean_audit_recent``: its latest audit (up to the window end) found nothing (``none_found``),
       less than ``rest_quarters`` quarters before the window end, and no measure since. The screening
       keeps it off the plan unless its expected recoverable cost now reaches ``regrow`` × what the
       list it was audited from gave (``_cost_at_audit``; unknown: it stays off);
     - ``_pin_plan``: its latest audit confirmed a finding and no measure is recorded on or after it;
-    - ``_measure_recent``: its latest measure (plus ``blackout_days``) is less than 12 months before the
-      window's end, so the compared 12 months mix use before and after it: the building is not planned on
-      them (it is judged again once 12 months after the measure are billed; its savings are in savings.csv);
-    - ``plan_note``: the sentence for summary.json's ``plan_notes``.
+    - ``_judge_from``: its latest measure plus ``blackout_days`` falls inside the window (after
+      ``window_start``) and leaves at least ``judge_min_days`` days to the window's end: the building is
+      judged on those post-measure days only (``pipeline.screen_frames`` cuts its span there, when its
+      bills cover them, and fits only the bills from that day on);
+    - ``_measure_recent``: the same, but fewer than ``judge_min_days`` days after the blackout are in the
+      window: the building is not planned on the mixed 12 months (judged again once enough post-measure
+      months are billed; its savings are in savings.csv);
+    - ``_measure_in_years``: a measure within the 12 months before the window or in it: the year-on-year
+      comparison would straddle it, so it is not made (the drop is reported as savings, not as a change);
+    - ``_measure_date``: the latest measure's day (up to the window's end);
+    - ``plan_note``: the sentence for summary.json's ``plan_notes`` (and the sheet's verdict).
     """
     schema = pl.Schema({"building_id": pl.String, "_clean_audit_recent": pl.Boolean, "_cost_at_audit": pl.Float64,
-              "_pin_plan": pl.Boolean, "_measure_recent": pl.Boolean, "plan_note": pl.String})
+              "_pin_plan": pl.Boolean, "_measure_recent": pl.Boolean, "_judge_from": pl.Date,
+              "_measure_in_years": pl.Boolean, "_measure_date": pl.Date, "plan_note": pl.String})
     if events.height == 0:
         return pl.DataFrame(schema=schema)
     ev = events.filter(pl.col("date") <= window_end)
-    # a measure whose 12 months after the blackout are not all billed yet by the window's end
-    recent = (ev.filter(pl.col("kind") == "measure").group_by("building_id").agg(pl.col("date").max().alias("_md"))
-              .with_columns((pl.col("_md") + pl.duration(days=blackout_days)).alias("_rs"))
-              .with_columns(pl.col("_rs").dt.offset_by("12mo").alias("_full"))
-              .filter(pl.col("_full") > pl.lit(window_end + _dt.timedelta(days=1))))
-    recent_ctx = recent.select(
+    w_start = window_start if window_start is not None else _dt.date(window_end.year - 1, window_end.month,
+                                                                          min(window_end.day, 28))
+    last_m = (ev.filter(pl.col("kind") == "measure").group_by("building_id").agg(pl.col("date").max().alias("_md"))
+              .with_columns((pl.col("_md") + pl.duration(days=blackout_days)).alias("_rs")))
+    # a measure whose blackout ends inside the window: the window mixes use before and after it
+    mixed = last_m.filter(pl.col("_rs") > pl.lit(w_start)).with_columns(
+        ((pl.lit(window_end) - pl.col("_rs")).dt.total_days() + 1).alias("_post_days"))
+    judged = pl.col("_post_days") >= judge_min_days
+    recent_ctx = mixed.select(
         "building_id", pl.lit(False).alias("_clean_audit_recent"), pl.lit(None, dtype=pl.Float64).alias("_cost_at_audit"),
-        pl.lit(False).alias("_pin_plan"), pl.lit(True).alias("_measure_recent"),
-        (pl.lit("measure of ") + pl.col("_md").cast(pl.String) + pl.lit(": the compared 12 months mix use before and "
-         "after it, so it is not planned on them; judged again once the 12 months from ") + pl.col("_rs").cast(pl.String)
-         + pl.lit(" are billed (its savings so far are in savings.csv)")).alias("plan_note"))
+        pl.lit(False).alias("_pin_plan"), (~judged).alias("_measure_recent"),
+        pl.when(judged).then(pl.col("_rs")).otherwise(None).alias("_judge_from"),
+        pl.lit(True).alias("_measure_in_years"), pl.col("_md").alias("_measure_date"),
+        pl.when(judged).then(
+            pl.lit("measure of ") + pl.col("_md").cast(pl.String) + pl.lit(": judged on the ")
+            + pl.col("_post_days").cast(pl.String) + pl.lit(" days from ") + pl.col("_rs").cast(pl.String)
+            + pl.lit(f" to {window_end} only (after the measure and {blackout_days} days of blackout); its drop is "
+                     "reported as savings (savings.csv), not as a change on last year"))
+        .otherwise(
+            pl.lit("measure of ") + pl.col("_md").cast(pl.String) + pl.lit(": the compared 12 months mix use before and "
+            "after it, so it is not planned on them; judged on the bills from ") + pl.col("_rs").cast(pl.String)
+            + pl.lit(f" once {judge_min_days} days of them are billed (its savings so far are in savings.csv)"))
+        .alias("plan_note"))
+    # a measure in the 12 months before the window (or in it): no year-on-year comparison
+    year_before = _dt.date(w_start.year - 1, w_start.month, min(w_start.day, 28))
+    straddle = last_m.filter((pl.col("_md") >= pl.lit(year_before))
+                             & ~pl.col("building_id").is_in(mixed["building_id"].implode())).select(
+        "building_id", pl.lit(False).alias("_clean_audit_recent"), pl.lit(None, dtype=pl.Float64).alias("_cost_at_audit"),
+        pl.lit(False).alias("_pin_plan"), pl.lit(False).alias("_measure_recent"),
+        pl.lit(None, dtype=pl.Date).alias("_judge_from"), pl.lit(True).alias("_measure_in_years"),
+        pl.col("_md").alias("_measure_date"),
+        (pl.lit("measure of ") + pl.col("_md").cast(pl.String) + pl.lit(": the compared 12 months are all after it; "
+         "no change on last year is computed (the previous year is before the measure; its savings are in "
+         "savings.csv)")).alias("plan_note"))
+    recent_ctx = pl.concat([recent_ctx.cast(schema), straddle.cast(schema)])
     aud = (ev.filter((pl.col("kind") == "audit") & pl.col("finding").is_not_null())
            .with_columns(pl.col("finding").replace_strict({"confirmed": 0, "data_error": 1, "none_found": 2},
                                                           return_dtype=pl.Int64).alias("_prio"))
@@ -347,7 +381,7 @@ def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.da
            .agg(pl.col("date").last().alias("audit_date"), pl.col("finding").last(),
                 pl.col("mechanism").last()))
     if aud.height == 0:
-        return recent_ctx.cast(schema)
+        return recent_ctx.cast(schema).sort("building_id")
     meas = ev.filter(pl.col("kind") == "measure").group_by("building_id").agg(pl.col("date").max().alias("_m"))
     months = 3 * rest_quarters
     a = (aud.join(meas, on="building_id", how="left")
@@ -370,10 +404,18 @@ def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.da
                           .then(pl.lit("those of the list it was audited from (")
                                 + pl.col("cost_then").round(0).cast(pl.Int64).cast(pl.String) + pl.lit(")"))
                           .otherwise(pl.lit("those at the audit (not on record: kept off)")))
-        .otherwise(None).alias("plan_note"), pl.lit(False).alias("_measure_recent"))
+        .otherwise(None).alias("plan_note"), pl.lit(False).alias("_measure_recent"),
+        pl.lit(None, dtype=pl.Date).alias("_judge_from"), pl.lit(False).alias("_measure_in_years"),
+        pl.lit(None, dtype=pl.Date).alias("_measure_date"))
     a = a.select(list(schema)).cast(schema)
-    # a recent measure takes precedence (a finding it fixed, or a clean audit before it, no longer speaks)
-    return pl.concat([recent_ctx.cast(schema), a.filter(~pl.col("building_id").is_in(recent["building_id"].implode()))])
+    # a measure in the window takes precedence (a finding it fixed, or a clean audit before it, no longer
+    # speaks); one in the year before only stops the year-on-year comparison
+    a = a.filter(~pl.col("building_id").is_in(mixed["building_id"].implode()))
+    a = a.join(straddle.select("building_id", pl.col("_measure_date").alias("_sd")), on="building_id", how="left")
+    a = a.with_columns(pl.col("_sd").is_not_null().alias("_measure_in_years"), pl.col("_sd").alias("_measure_date"),
+                       ).drop("_sd")
+    rest = recent_ctx.filter(~pl.col("building_id").is_in(a["building_id"].implode()))
+    return pl.concat([rest, a.select(list(schema))]).sort("building_id")
 
 
 def hit_rate(events: pl.DataFrame, then: pl.DataFrame) -> dict:

@@ -423,6 +423,10 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     spans = metered.choose_spans(conv, ws, we, lookback_months=a["lookback_months"],
                                  min_coverage=thr["coverage_min"], building_ids=b["building_id"],
                                  fill_end_days=a["fill_end_days"])
+    if plan_context is not None and plan_context.height and "_judge_from" in plan_context.columns:
+        # issue 17: a building with a measure in the window is judged on the days after it (events.plan_context)
+        spans, plan_context = _post_measure_spans(conv, spans, plan_context, we, lookback_months=a["lookback_months"],
+                                                  min_coverage=thr["coverage_min"], fill_end_days=a["fill_end_days"])
     if not bool((spans["coverage"].fill_null(0.0) > 0).any()):
         _no_building_screenable(conv, n_readings, window, a["lookback_months"], paths)
     spans = spans.join(b.select("building_id", "station_id"), on="building_id", how="left", maintain_order="left")
@@ -430,6 +434,10 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     span_hdd, span_days, span_missing = cube.period_totals(st, spans["span_start"], spans["span_end"])
     fill_hdd = _fill_hdd(cube, spans, grid)
     periods = metered.fit_periods(conv, spans, lookback_months=a["lookback_months"])
+    if plan_context is not None and "_judge_from" in plan_context.columns:  # post-measure bills only (issue 17)
+        jf = plan_context.filter(pl.col("_judge_from").is_not_null()).select("building_id", "_judge_from")
+        periods = periods.join(jf, on="building_id", how="left", maintain_order="left").filter(
+            pl.col("_judge_from").is_null() | (pl.col("period_start") >= pl.col("_judge_from"))).drop("_judge_from")
     periods = periods.join(b.select("building_id", "station_id"), on="building_id", how="left",
                            maintain_order="left")
     period_hdd: _PeriodHdd | np.ndarray
@@ -570,9 +578,20 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
           for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")])
     if plan_context is not None:  # issue 17: events.plan_context (audits that found nothing, confirmed findings)
         frame = frame.join(plan_context, on="building_id", how="left", maintain_order="left")
+        if "_measure_in_years" in frame.columns:  # the drop after a measure is savings, not a change on last year
+            no_yoy = pl.col("_measure_in_years").fill_null(False)
+            frame = frame.with_columns([pl.when(no_yoy).then(None).otherwise(pl.col(c)).alias(c)
+                                        for c in ("yoy_change", "prev_normal_heating_kbtu") if c in frame.columns])
     units_ip = cfg["analysis"]["units"] == "IP"
     results = screen.screen(frame, thr, plan=cfg["plan"], currency=cfg["prices"]["currency"], energy_factor=1.0 if units_ip else KBTU_TO_KWH,
                             energy_unit="kBtu" if units_ip else "kWh")
+    if plan_context is not None and "_measure_date" in plan_context.columns:  # the measure's note in the verdict
+        said = plan_context.filter(pl.col("_measure_date").is_not_null()).select(
+            "building_id", pl.col("plan_note").alias("_mnote"))
+        results = results.join(said, on="building_id", how="left", maintain_order="left").with_columns(
+            pl.when(pl.col("_mnote").is_not_null())
+            .then(pl.col("verdict") + pl.lit(" After the ") + pl.col("_mnote") + pl.lit("."))
+            .otherwise(pl.col("verdict")).alias("verdict")).drop("_mnote")
     lap("screening")
     saved = None
     if events is not None:  # savings after a measure (issue 17): screening/events.py, screening/savings.py
@@ -585,6 +604,40 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
                     envelope=envelope, window=window, timings=timings, normal_years=normals.years_used,
                     savings=saved)
+
+
+def _post_measure_spans(conv: pl.DataFrame, spans: pl.DataFrame, ctx: pl.DataFrame, window_end: _dt.date, *,
+                        lookback_months: int, min_coverage: float,
+                        fill_end_days: int) -> tuple[pl.DataFrame, pl.DataFrame]:
+    """The spans of buildings judged on their post-measure days (``events.plan_context`` ``_judge_from``).
+
+    Each such span becomes ``[_judge_from, window_end]`` when the bills cover it (rule 1 of
+    ``metered.choose_spans`` on that window, the filled end included). A building whose bills do not
+    keeps its 12-month span and is held off the plan (``_measure_recent``), its note saying why.
+    """
+    jf = ctx.filter(pl.col("_judge_from").is_not_null()).select("building_id", "_judge_from")
+    if jf.height == 0:
+        return spans, ctx
+    new = []
+    for (day,), grp in jf.group_by("_judge_from", maintain_order=True):  # one call per measure day, not per building
+        ids = grp["building_id"]
+        s = metered.choose_spans(conv.filter(pl.col("building_id").is_in(ids.implode())), day, window_end,
+                                 lookback_months=lookback_months, min_coverage=min_coverage, building_ids=ids,
+                                 fill_end_days=fill_end_days)
+        new.append(s.filter(pl.col("span_kind") == "window").select(spans.columns))
+    cut = pl.concat(new).cast(spans.schema)
+    ok = cut["building_id"].implode()
+    spans = pl.concat([spans.filter(~pl.col("building_id").is_in(ok)), cut]).sort("building_id")
+    failed = pl.col("_judge_from").is_not_null() & ~pl.col("building_id").is_in(ok)
+    ctx = ctx.with_columns(
+        pl.when(failed).then(pl.lit(True)).otherwise(pl.col("_measure_recent")).alias("_measure_recent"),
+        pl.when(failed).then(pl.lit("measure of ") + pl.col("_measure_date").cast(pl.String)
+                             + pl.lit(": the bills do not cover every day from ") + pl.col("_judge_from").cast(pl.String)
+                             + pl.lit(f" to {window_end}, so it is not judged on its post-measure days and not planned "
+                                      "on the mixed 12 months (its savings are in savings.csv)"))
+        .otherwise(pl.col("plan_note")).alias("plan_note"),
+    ).with_columns(pl.when(failed).then(None).otherwise(pl.col("_judge_from")).alias("_judge_from"))
+    return spans, ctx
 
 
 def _check_normal_years(normals, b: pl.DataFrame, weather: pl.DataFrame, ny: list[int]) -> None:

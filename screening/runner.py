@@ -308,7 +308,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             plan_ctx = evmod.plan_context(events, then, window_end=window[1],
                                           rest_quarters=cfg["plan"]["clean_audit_rest_quarters"],
                                           regrow=cfg["plan"]["clean_audit_regrow"],
-                                          blackout_days=cfg["savings"]["blackout_days"])
+                                          blackout_days=cfg["savings"]["blackout_days"], window_start=window[0],
+                                          judge_min_days=cfg["savings"]["post_measure_min_days"])
         store.close()  # phase 2: the database stays free for readers
         store = None
         bar.stage("screen")

@@ -182,17 +182,41 @@ def test_the_hit_rate_counts_exactly(portfolio, tmp_path):
     assert sum(v["audited"] for v in h["by_mechanism"].values()) == 2
 
 
-def test_a_recent_measure_is_not_planned_on_months_that_mix_before_and_after(portfolio, tmp_path):
+def test_a_measure_in_the_window_is_judged_on_the_days_after_it(portfolio, tmp_path):
     base, _ = _run_lib(portfolio, tmp_path, AS_OF, name="plain")
     assert dict(zip(base["building_id"], base["tier"]))["B03"] == "Audit first"
-    # window 2024-01-01..2024-12-31; 2024-06-01 + 30 days blackout + 12 months is after the window: mixed
+    # window 2024-01-01..2024-12-31; 2024-06-01 + 30 days blackout leaves 184 days (≥ 180): judged on them
     p = _write(tmp_path, HEADER + "B03,2024-05-01,audit,confirmed,controls,,,\nB03,2024-06-01,measure,,controls,,,\n")
-    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="recent")
-    assert dict(zip(ranked["building_id"], ranked["tier"]))["B03"] != "Audit first"
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="judged")
+    b03 = ranked.filter(pl.col("building_id") == "B03").row(0, named=True)
+    assert (b03["period_start"], b03["period_end"]) == ("2024-07-01", "2024-12-31")
+    assert b03["yoy_change"] is None
+    # the test portfolio's B03 wastes all year (conftest): a measure that changed nothing leaves it on the plan
+    assert b03["tier"] == "Audit first"
+    # (six bills and half a year of weather instead of twelve: the ratio is near, not equal)
+    assert b03["ratio"] == pytest.approx(dict(zip(base["building_id"], base["ratio"]))["B03"], rel=0.15)
     (note,) = [n["note"] for n in summ["plan_notes"] if n["building_id"] == "B03"]
-    assert note.startswith("measure of 2024-06-01") and "12 months from 2024-07-01" in note
-    # a measure whose 12 months after the blackout end by the window's end: judged as usual
+    assert note.startswith("measure of 2024-06-01: judged on the 184 days from 2024-07-01 to 2024-12-31")
+    assert note in b03["verdict"]
+    # the other buildings are judged as before
+    keep = ~pl.col("building_id").is_in(["B03"])
+    assert ranked.filter(keep).select("building_id", "period_start", "ratio").sort("building_id").equals(
+        base.filter(keep).select("building_id", "period_start", "ratio").sort("building_id"))
+
+
+def test_a_measure_too_recent_to_judge_on_is_not_planned_on_months_that_mix(portfolio, tmp_path):
+    base, _ = _run_lib(portfolio, tmp_path, AS_OF, name="plain")
+    # 2024-08-01 + 30 days leaves 123 days (< [savings] post_measure_min_days 180): not planned on the mix
+    p = _write(tmp_path, HEADER + "B03,2024-05-01,audit,confirmed,controls,,,\nB03,2024-08-01,measure,,controls,,,\n")
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="recent")
+    b03 = ranked.filter(pl.col("building_id") == "B03").row(0, named=True)
+    assert b03["tier"] != "Audit first" and b03["period_start"] == "2024-01-01"
+    (note,) = [n["note"] for n in summ["plan_notes"] if n["building_id"] == "B03"]
+    assert note.startswith("measure of 2024-08-01") and "from 2024-08-31 once 180 days" in note
+    # a measure before the window: its 12 months are all after it, no change on last year is computed
     p = _write(tmp_path, HEADER + "B03,2023-11-01,measure,,controls,,,\n", name="old.csv")
     ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="old")
-    assert ranked.select("building_id", "tier", "rank").equals(base.select("building_id", "tier", "rank"))
-    assert summ["plan_notes"] == []
+    assert ranked.select("building_id", "tier").equals(base.select("building_id", "tier"))
+    assert ranked.filter(pl.col("building_id") == "B03")["yoy_change"].to_list() == [None]
+    assert [n["building_id"] for n in summ["plan_notes"]] == ["B03"]
+    assert "no change on last year is computed" in summ["plan_notes"][0]["note"]
