@@ -118,10 +118,26 @@ def _heating_bills(conv: pl.DataFrame) -> pl.DataFrame:
             .with_columns(((pl.col("period_end") - pl.col("period_start")).dt.total_days() + 1).alias("days")))
 
 
+PERIOD_SCHEMA = pl.Schema({"building_id": pl.String, "event_date": pl.Date, "period_start": pl.Date,
+                           "period_end": pl.Date, "baseline_kbtu": pl.Float64, "metered_kbtu": pl.Float64})
+
+
 def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, grid: np.ndarray,
                     events: pl.DataFrame, prices: pl.DataFrame, *, window_end: _dt.date, blackout_days: int,
                     min_periods: int, cv_max: float, nmbe_max: float) -> pl.DataFrame:
-    """One row per measure (``SAVINGS_SCHEMA``, energies in kBtu).
+    """One row per measure (``SAVINGS_SCHEMA``, energies in kBtu); see :func:`savings_with_periods`."""
+    return savings_with_periods(conv, buildings, cube, normals, grid, events, prices, window_end=window_end,
+                                blackout_days=blackout_days, min_periods=min_periods, cv_max=cv_max,
+                                nmbe_max=nmbe_max)[0]
+
+
+def savings_with_periods(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, grid: np.ndarray,
+                         events: pl.DataFrame, prices: pl.DataFrame, *, window_end: _dt.date, blackout_days: int,
+                         min_periods: int, cv_max: float,
+                         nmbe_max: float) -> tuple[pl.DataFrame, pl.DataFrame]:
+    """One row per measure (``SAVINGS_SCHEMA``, energies in kBtu), and one row per reporting bill
+    (``PERIOD_SCHEMA``: the baseline projected to the bill's weather, α·days + β·HDD(τ), and the
+    metered energy [kBtu]; their differences add up to the measure's ``avoided_kbtu``).
 
     Baseline: the heating-fuel bills lying wholly in the 12 months before the measure date,
     fitted by ``metered.fit_variable_base`` (at least ``min_periods`` bills of ≤ 62 days with
@@ -130,14 +146,15 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
     Σ (α·days + β·HDD(τ)) − metered over those bills; normalized savings = the baseline's and the
     reporting period's own fits, each on the normal year (365·α + β·HDD_normal(τ)), subtracted.
     """
+    none = (pl.DataFrame(schema=SAVINGS_SCHEMA), pl.DataFrame(schema=PERIOD_SCHEMA))
     if events.height == 0 or "kind" not in events.columns:
-        return pl.DataFrame(schema=SAVINGS_SCHEMA)
+        return none
     m = (events.filter((pl.col("kind") == "measure") & (pl.col("date") <= window_end)).select("building_id", pl.col("date").alias("event_date"))
          .unique().sort("building_id", "event_date")
          .join(buildings.select("building_id", "station_id"), on="building_id", how="inner")
          .sort("building_id", "event_date"))
     if m.height == 0:
-        return pl.DataFrame(schema=SAVINGS_SCHEMA)
+        return none
     m = m.with_columns(
         pl.col("event_date").dt.offset_by("-12mo").alias("baseline_start"),
         (pl.col("event_date") - pl.duration(days=1)).alias("baseline_end"),
@@ -195,6 +212,7 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
     proj = np.zeros(n_m)
     met = np.zeros(n_m)
     cnt = np.zeros(n_m, dtype=np.int64)
+    per = pl.DataFrame(schema=PERIOD_SCHEMA)
     if rep.height:
         have = rep["_missing"].to_numpy() == 0
         mi = rep["_mi"].to_numpy().astype(np.int64)
@@ -203,6 +221,10 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
         np.add.at(proj, mi[have], p_i[have])
         np.add.at(met, mi[have], rep["energy_kbtu"].to_numpy()[have])
         np.add.at(cnt, mi[have], 1)
+        per = rep.filter(pl.Series(have)).select(
+            "building_id", "event_date", "period_start", "period_end",
+            pl.Series("baseline_kbtu", p_i[have]), pl.col("energy_kbtu").alias("metered_kbtu"))
+        per = per.filter(pl.col("baseline_kbtu").is_finite()).cast(PERIOD_SCHEMA)
     with np.errstate(invalid="ignore"):
         avoided = np.where(cnt > 0, proj - met, np.nan)
     u68 = sv.savings_uncertainty(st["cv_rmse"], st["n"], n_eff, cnt, proj, n_par, 0.68)
@@ -235,7 +257,46 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
     out = out.with_columns([pl.when(pl.col(c).is_nan()).then(None).otherwise(pl.col(c)).alias(c)
                             for c, t in SAVINGS_SCHEMA.items() if t == pl.Float64 and c in out.columns])
     out = out.join(prices.select("building_id", "usd_per_kbtu", "kg_co2e_per_kbtu"), on="building_id", how="left")
-    return out.select(list(SAVINGS_SCHEMA)).sort("building_id", "event_date")
+    return (out.select(list(SAVINGS_SCHEMA)).sort("building_id", "event_date"),
+            per.sort("building_id", "event_date", "period_start"))
+
+
+def since_measure(s: pl.DataFrame, periods: pl.DataFrame, events: pl.DataFrame, *, si: bool, currency: str,
+                  kbtu_to_kwh: float) -> dict[str, dict]:
+    """The sheet's "since the measure" data, per building: its latest measure with a reporting period.
+
+    ``{"event_date", "description", "periods": [{"start", "end", "baseline", "metered"}], "avoided_energy",
+    "avoided_low_90", "avoided_high_90", "energy_unit", "cost", "currency"}``, energies in the run's unit
+    (kBtu, or kWh under SI); ``cost`` the avoided energy at the building's price (None when unknown).
+    The periods' baseline − metered add up to ``avoided_energy``.
+    """
+    f = kbtu_to_kwh if si else 1.0
+    if s.height == 0:
+        return {}
+    latest = (s.filter(pl.col("avoided_kbtu").is_not_null()).sort("building_id", "event_date")
+              .group_by("building_id", maintain_order=True).last())
+    desc = (events.filter(pl.col("kind") == "measure").select("building_id", pl.col("date").alias("event_date"),
+                                                              "description")
+            .unique(subset=["building_id", "event_date"], keep="first"))
+    latest = latest.join(desc, on=["building_id", "event_date"], how="left")
+    per: dict[tuple, list[dict]] = {}
+    for r in periods.iter_rows(named=True):
+        per.setdefault((r["building_id"], r["event_date"]), []).append(
+            {"start": str(r["period_start"]), "end": str(r["period_end"]), "baseline": r["baseline_kbtu"] * f,
+             "metered": r["metered_kbtu"] * f})
+    out = {}
+    for r in latest.iter_rows(named=True):
+        av, u = r["avoided_kbtu"], r["avoided_u90_kbtu"]
+        price = r["usd_per_kbtu"]
+        out[r["building_id"]] = {
+            "event_date": str(r["event_date"]), "description": r["description"] or "",
+            "periods": per.get((r["building_id"], r["event_date"]), []),
+            "avoided_energy": av * f,
+            "avoided_low_90": (av - u) * f if u is not None else None,
+            "avoided_high_90": (av + u) * f if u is not None else None,
+            "energy_unit": "kWh" if si else "kBtu",
+            "cost": av * price if price is not None else None, "currency": currency}
+    return out
 
 
 SAVINGS_COLUMNS = ["building_id", "event_date", "report_start", "report_end", "avoided_energy", "avoided_low_90",

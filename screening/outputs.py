@@ -273,8 +273,12 @@ def _num(x):
 
 
 def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFrame, disp: Display, *,
-                  run_id: str, run_date: str, currency: str) -> list[dict]:
-    """The dicts that the sheet template renders, one per building (see screening.report)."""
+                  run_id: str, run_date: str, currency: str, since_measure: dict[str, dict] | None = None) -> list[dict]:
+    """The dicts that the sheet template renders, one per building (see screening.report).
+
+    ``since_measure`` (``events.since_measure``, issue 17): per building with a measure, the data of the
+    sheet's "since the measure" box; the record's key ``since_measure`` is that dict or None.
+    """
     d = disp
     ef = 1.8 if d.si else 1.0   # per °F → per K
     env_rows = {r["building_id"]: r for r in envelope.select("building_id", "assumptions").iter_rows(named=True)}
@@ -369,6 +373,7 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             "next_steps": screen.next_steps(r["flag_codes"], r["data_issue_codes"], slope_vs_envelope=slope_ratio,
                                             mechanisms=r["mechanisms"], blocking=r["blocking"]),
             "cautions": [],  # the sheet template prints the standard cautions on every sheet
+            "since_measure": (since_measure or {}).get(bid),
         })
     return out
 

@@ -195,6 +195,7 @@ class Screened:
     timings: dict[str, float]
     normal_years: dict[str, list[int]]
     savings: pl.DataFrame | None = None  # one row per measure of the events file (events.measure_savings)
+    savings_periods: pl.DataFrame | None = None  # one row per reporting bill of each measure (events.PERIOD_SCHEMA)
 
 
 def base_grid(cfg: dict) -> np.ndarray:
@@ -593,17 +594,17 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
             .then(pl.col("verdict") + pl.lit(" After the ") + pl.col("_mnote") + pl.lit("."))
             .otherwise(pl.col("verdict")).alias("verdict")).drop("_mnote")
     lap("screening")
-    saved = None
+    saved, saved_periods = None, None
     if events is not None:  # savings after a measure (issue 17): screening/events.py, screening/savings.py
         from . import events as ev
         sc = cfg["savings"]
-        saved = ev.measure_savings(conv, b, cube, normals, grid, events, _prices(b, cfg), window_end=we,
-                                   blackout_days=sc["blackout_days"], min_periods=sc["baseline_min_periods"],
-                                   cv_max=sc["cv_rmse_max"], nmbe_max=sc["nmbe_max"])
+        saved, saved_periods = ev.savings_with_periods(
+            conv, b, cube, normals, grid, events, _prices(b, cfg), window_end=we, blackout_days=sc["blackout_days"],
+            min_periods=sc["baseline_min_periods"], cv_max=sc["cv_rmse_max"], nmbe_max=sc["nmbe_max"])
         lap("savings")
     return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
                     envelope=envelope, window=window, timings=timings, normal_years=normals.years_used,
-                    savings=saved)
+                    savings=saved, savings_periods=saved_periods)
 
 
 def _post_measure_spans(conv: pl.DataFrame, spans: pl.DataFrame, ctx: pl.DataFrame, window_end: _dt.date, *,

@@ -358,8 +358,14 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         if cfg["output"]["sheets"]:
             bar.stage("render sheets")
             t = time.perf_counter()
+            since = None
+            if res.savings is not None and res.savings_periods is not None and events is not None:
+                from . import events as evmod
+                since = evmod.since_measure(res.savings, res.savings_periods, events, si=disp.si,
+                                            currency=cfg["prices"]["currency"], kbtu_to_kwh=outputs.KBTU_TO_KWH)
             sheets = outputs.sheet_records(res.results, res.envelope, res.periods, disp, run_id=run_key,
-                                           run_date=str(_dt.date.today()), currency=cfg["prices"]["currency"])
+                                           run_date=str(_dt.date.today()), currency=cfg["prices"]["currency"],
+                                           since_measure=since)
             (tmp / "sheets").mkdir()
             names = report.assign_filenames([s["building_id"] for s in sheets])
             report.render_sheets(sheets, tmp / "sheets", paper=paper, workers=_workers(cfg["output"]["workers"]))

@@ -3,6 +3,7 @@ optional on a run, and a measure's savings in savings.csv and summary.json."""
 
 from __future__ import annotations
 
+import datetime as dt
 import json
 
 import polars as pl
@@ -220,3 +221,55 @@ def test_a_measure_too_recent_to_judge_on_is_not_planned_on_months_that_mix(port
     assert ranked.filter(pl.col("building_id") == "B03")["yoy_change"].to_list() == [None]
     assert [n["building_id"] for n in summ["plan_notes"]] == ["B03"]
     assert "no change on last year is computed" in summ["plan_notes"][0]["note"]
+
+
+def test_the_sheet_records_carry_the_since_the_measure_data(portfolio, tmp_path, monkeypatch):
+    from screening import report
+    seen: list[dict] = []
+
+    def capture(sheets, out_dir, **kw):  # the records the sheets would render (rendering is report.py's test)
+        seen.extend(sheets)
+    monkeypatch.setattr(report, "render_sheets", capture)
+    p = _write(tmp_path, HEADER + "B01,2024-01-01,measure,,controls,new boiler controls,,9000\n")
+    inputs = {"buildings": str(portfolio.buildings), "readings": str(portfolio.readings),
+              "weather": str(portfolio.weather), "events": str(p)}
+    runner.run(overrides={"inputs": inputs, "store": {"database": str(tmp_path / "s.duckdb")},
+                          "analysis": {"as_of": AS_OF}, "output": {"sheets": True}},
+               out_dir=str(tmp_path / "out"), force=True, quiet=True)
+    by_id = {r["building_id"]: r for r in seen}
+    assert set(by_id) >= {"B01", "B02"}
+    assert all(r["since_measure"] is None for b, r in by_id.items() if b != "B01")
+    box = by_id["B01"]["since_measure"]
+    assert box["event_date"] == "2024-01-01" and box["description"] == "new boiler controls"
+    assert box["energy_unit"] == "kBtu" and box["currency"] == "$"
+    per = box["periods"]
+    assert len(per) >= 10 and per[0]["start"] >= "2024-01-31" and per[-1]["end"] <= "2024-12-31"
+    assert [p["start"] for p in per] == sorted(p["start"] for p in per)
+    # the periods add up to the avoided energy; the interval holds it; savings.csv says the same
+    assert sum(p["baseline"] - p["metered"] for p in per) == pytest.approx(box["avoided_energy"], abs=1e-6)
+    assert box["avoided_low_90"] <= box["avoided_energy"] <= box["avoided_high_90"]
+    row = pl.read_csv(tmp_path / "out" / "savings.csv").row(0, named=True)
+    assert box["avoided_energy"] == pytest.approx(row["avoided_energy"], abs=0.06)
+    assert box["avoided_high_90"] == pytest.approx(row["avoided_high_90"], abs=0.06)
+    # the test portfolio's bills follow the model exactly (conftest): the projection is the metered use
+    assert all(p["baseline"] == pytest.approx(p["metered"], rel=1e-3) for p in per)
+    assert box["cost"] == pytest.approx(row["avoided_cost"], abs=0.01)
+
+
+def test_since_measure_in_si_units(tmp_path):
+    s = pl.DataFrame({"building_id": ["A"], "event_date": [dt.date(2024, 1, 1)], "avoided_kbtu": [100.0],
+                      "avoided_u90_kbtu": [30.0], "usd_per_kbtu": [0.02]})
+    per = pl.DataFrame({"building_id": ["A", "A"], "event_date": [dt.date(2024, 1, 1)] * 2,
+                        "period_start": [dt.date(2024, 2, 1), dt.date(2024, 3, 1)],
+                        "period_end": [dt.date(2024, 2, 29), dt.date(2024, 3, 31)],
+                        "baseline_kbtu": [500.0, 400.0], "metered_kbtu": [450.0, 350.0]})
+    ev = pl.DataFrame({"building_id": ["A"], "date": [dt.date(2024, 1, 1)], "kind": ["measure"],
+                       "description": [None]}, schema_overrides={"description": pl.String})
+    box = events.since_measure(s, per, ev, si=True, currency="€", kbtu_to_kwh=0.29307107)["A"]
+    # 1 kBtu = 0.29307107 kWh (1 Btu_IT = 1055.05585262 J, ISO 80000-5 / NIST SP 811)
+    assert box["avoided_energy"] == pytest.approx(29.307107)
+    assert (box["avoided_low_90"], box["avoided_high_90"]) == pytest.approx((70 * 0.29307107, 130 * 0.29307107))
+    assert box["periods"][0] == {"start": "2024-02-01", "end": "2024-02-29", "baseline": pytest.approx(146.535535),
+                                 "metered": pytest.approx(131.8819815)}
+    assert box["cost"] == pytest.approx(2.0) and box["currency"] == "€" and box["description"] == ""
+    assert box["energy_unit"] == "kWh"
