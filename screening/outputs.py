@@ -10,7 +10,7 @@ from pathlib import Path
 
 import polars as pl
 
-from . import screen
+from . import savings_page, screen
 from .ingest import REJECT_SCHEMA
 
 KBTU_TO_KWH = 0.29307107017222      # NIST SP 811: 1 Btu_IT = 1055.05585262 J; 1 kWh = 3.6e6 J
@@ -379,7 +379,7 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
 
 
 def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp: Display, *,
-                   currency: str, max_rows: int = 0) -> dict:
+                   currency: str, max_rows: int = 0, savings: pl.DataFrame | None = None) -> dict:
     """The dict that ranking.pdf renders (see screening.report.render_ranking).
 
     ``max_rows`` > 0 keeps the PDF's table to the first rows of the ranking (the full list is
@@ -411,6 +411,8 @@ def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp
         "data_issues": issues, "data_issues_total": n_issues, "data_issues_omitted": n_issues - len(issues),
         "energy_unit": disp.energy_unit, "intensity_unit": disp.intensity_unit,
         "currency": currency, "cautions": CAUTIONS,
+        # the savings page (issue 17; savings.csv's frame): only with an events file
+        "savings": savings_page.savings_report(savings, res, summary),
     }
 
 

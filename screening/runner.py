@@ -339,10 +339,12 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                            rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"],
                            plan=plan)
         summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev[0][1] if prev else None)
+        savings_csv = None
         if res.savings is not None:  # savings after a measure (issue 17)
             from . import events as evmod
-            outputs.write_csv(evmod.savings_table(res.savings, si=disp.si, currency=cfg["prices"]["currency"],
-                                                  kbtu_to_kwh=outputs.KBTU_TO_KWH), tmp / "savings.csv")
+            savings_csv = evmod.savings_table(res.savings, si=disp.si, currency=cfg["prices"]["currency"],
+                                              kbtu_to_kwh=outputs.KBTU_TO_KWH)
+            outputs.write_csv(savings_csv, tmp / "savings.csv")
             summary["savings"] = evmod.savings_totals(res.savings, si=disp.si, kbtu_to_kwh=outputs.KBTU_TO_KWH)
             if events is not None and then is not None:
                 summary["audit_hit_rate"] = evmod.hit_rate(events, then)
@@ -378,7 +380,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         t = time.perf_counter()
         report.render_ranking(outputs.ranking_report(ranking, res.results, summary, disp,
                                                      currency=cfg["prices"]["currency"],
-                                                     max_rows=cfg["output"]["ranking_pdf_rows"]),
+                                                     max_rows=cfg["output"]["ranking_pdf_rows"],
+                                                     savings=savings_csv),
                               tmp / "ranking.pdf", paper=paper)
         timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
         from .webpage import write_index
