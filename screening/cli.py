@@ -306,11 +306,14 @@ def history(
     db: Annotated[str, typer.Option(help="DuckDB file")] = "screening.duckdb",
     older: Annotated[Optional[str], typer.Option(help="run id of the older run (as on its outputs)")] = None,
     newer: Annotated[Optional[str], typer.Option(help="run id of the newer run (as on its outputs)")] = None,
+    events: Annotated[Optional[list[str]], typer.Option(help="events file (path or glob) to show beside the "
+                                                        "changes; default: the newer run's")] = None,
 ):
-    """List the runs and show what changed between two of them (default: the last two successful)."""
+    """List the runs and show what changed between two of them (default: the last two successful),
+    with the events between them beside each building."""
     from . import runner
     try:
-        runs, diff = runner.history(db, older, newer)
+        runs, diff = runner.history(db, older, newer, events=events)
     except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     for r in runs.iter_rows(named=True):
@@ -322,7 +325,12 @@ def history(
     changed = diff.filter(pl.col("change") != "same rank")
     typer.echo(f"{changed.height} building(s) changed rank or flags:")
     for r in changed.iter_rows(named=True):
-        typer.echo(f"  {r['building_id']}: {r['change']}")
+        typer.echo(f"  {r['building_id']}: {r['change']}" + (f"  | events: {r['events']}" if r["events"] else ""))
+    quiet = diff.filter((pl.col("change") == "same rank") & pl.col("events").is_not_null())
+    if quiet.height:
+        typer.echo(f"{quiet.height} building(s) with events and the same rank:")
+        for r in quiet.iter_rows(named=True):
+            typer.echo(f"  {r['building_id']}: events: {r['events']}")
 
 
 def main() -> None:

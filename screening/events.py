@@ -84,7 +84,8 @@ def read_events(path: str, opts: ReadOptions | None = None, building_ids: pl.Ser
     return Loaded(label, good.sort("building_id", "date", LINE_COL), rej.sort("line"), notices)
 
 
-def read_all(paths: list[str], opts: ReadOptions, building_ids: pl.Series) -> tuple[pl.DataFrame, pl.DataFrame, list[str]]:
+def read_all(paths: list[str], opts: ReadOptions,
+             building_ids: pl.Series | None) -> tuple[pl.DataFrame, pl.DataFrame, list[str]]:
     """Several events files: their rows (with ``_file``), their rejects and notices."""
     frames, rejs, notes = [], [], []
     for p in paths:
@@ -501,3 +502,19 @@ def hit_rate(events: pl.DataFrame, then: pl.DataFrame) -> dict:
             "audited_from_plan": n, "confirmed": k, "rate": round(k / n, 3) if n else None,
             "audited_off_plan": known.height - n,
             "by_mechanism": groups("mechanism"), "by_quarter": groups("quarter")}
+
+
+def events_between(events: pl.DataFrame, after: _dt.date, upto: _dt.date) -> pl.DataFrame:
+    """``building_id, events``: per building, its events dated after ``after`` and up to ``upto``, one text
+    (``2026-05-19 audit: confirmed (controls) – valves stuck; 2026-06-02 measure: (controls) – new controls``),
+    in date order."""
+    if events.height == 0:
+        return pl.DataFrame(schema={"building_id": pl.String, "events": pl.String})
+    e = events.filter((pl.col("date") > after) & (pl.col("date") <= upto)).sort("building_id", "date", "kind")
+    head = pl.concat_str([pl.col("finding"), pl.lit("(") + pl.col("mechanism") + pl.lit(")")], separator=" ",
+                         ignore_nulls=True)
+    head = pl.when(head.str.len_chars() > 0).then(head)
+    detail = pl.concat_str([head, pl.col("description")], separator=" – ", ignore_nulls=True)
+    text = (pl.col("date").cast(pl.String) + pl.lit(" ") + pl.col("kind")
+            + pl.when(detail.str.len_chars() > 0).then(pl.lit(": ") + detail).otherwise(pl.lit("")))
+    return e.group_by("building_id", maintain_order=True).agg(text.str.join("; ").alias("events"))

@@ -405,7 +405,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             store.execute("delete_rejects_of_run", {"run_id": run_id})
             store.execute("insert_rejects", {"run_id": run_id}, stage_rejects=rejects)
             store.execute("record_publishing", {
-                "run_id": run_id, "input_hashes": json.dumps({f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads}),
+                "run_id": run_id, "input_hashes": json.dumps({f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads}
+                                                             | _events_hashes(files.get("events") or [])),
                 "versions": json.dumps(summary["versions"]), "timings": json.dumps(timings),
                 "counts": json.dumps(summary["counts"]), "out_dir": published.folder_key(target, store),
                 "files": json.dumps(files_written, sort_keys=True)})
@@ -897,8 +898,14 @@ def status(db_path: str, limit: int = 10) -> pl.DataFrame:
         return _as_seen(store, db_path, store.frame("list_runs", {"limit": limit}))
 
 
-def history(db_path: str, run_a: str | None = None, run_b: str | None = None) -> tuple[pl.DataFrame, pl.DataFrame | None]:
-    """The list of runs, and the difference between two runs (default: the last two successful)."""
+def history(db_path: str, run_a: str | None = None, run_b: str | None = None,
+            events: list[str] | None = None) -> tuple[pl.DataFrame, pl.DataFrame | None]:
+    """The list of runs, and the difference between two runs (default: the last two successful).
+
+    The difference gains ``events``: per building, the events dated after the older run's window
+    and up to the newer run's (issue 17), one text, from ``events`` (paths or globs) or else the
+    events files the newer run recorded (when they are still there); null where none.
+    """
     with _read_store(db_path) as store:
         runs = _as_seen(store, db_path, store.frame("list_runs", {"limit": 1000}))
         ok = runs.filter(pl.col("status") == "ok")["run_id"].to_list()
@@ -912,7 +919,22 @@ def history(db_path: str, run_a: str | None = None, run_b: str | None = None) ->
             run_a, run_b = (_resolve_run(store, db_path, rid) for rid in (run_a, run_b))
         old = store.frame("results_of_run", {"run_id": run_a})
         new = store.frame("results_of_run", {"run_id": run_b})
-        return runs, diff_results(old, new)
+        (_, end_a), = store.rows("run_inputs", {"run_id": run_a})
+        (recorded, end_b), = store.rows("run_inputs", {"run_id": run_b})
+    diff = diff_results(old, new)
+    paths = [p for pat in events for p in _expand(pat, "events")] if events else \
+        [k.split(":", 1)[1] for k in json.loads(recorded or "{}") if k.startswith("events:")]
+    paths = [p for p in paths if Path(p).is_file()]
+    if not paths:
+        return runs, diff.with_columns(pl.lit(None, dtype=pl.String).alias("events"))
+    from . import events as evmod
+    ev, _rej, _notes = evmod.read_all(paths, pipeline.ReadOptions(), None)
+    return runs, diff.join(evmod.events_between(ev, end_a, end_b), on="building_id", how="left")
+
+
+def _events_hashes(paths: list[str]) -> dict[str, str]:
+    """The events files of a run for its record (``events:<path>`` → sha256), so history can find them."""
+    return {f"events:{p}": pipeline.file_sha256(p) for p in paths if Path(p).is_file()}
 
 
 def _resolve_run(store: Store, db_path, rid: str) -> str:

@@ -273,3 +273,26 @@ def test_since_measure_in_si_units(tmp_path):
                                  "metered": pytest.approx(131.8819815)}
     assert box["cost"] == pytest.approx(2.0) and box["currency"] == "€" and box["description"] == ""
     assert box["energy_unit"] == "kWh"
+
+
+def test_history_shows_the_events_between_the_two_runs_beside_the_changes(portfolio, tmp_path):
+    p = _write(tmp_path, HEADER + "B03,2024-03-01,audit,confirmed,controls,valves stuck open,,\n"
+               "B02,2024-11-05,audit,none_found,,nothing found,,\n"
+               "B03,2024-11-20,measure,,controls,new valves,,5000\n"
+               "B01,2025-02-01,vacancy,,,after both windows,,\n")
+    _run_lib(portfolio, tmp_path, "2024-10-15", p, name="q3")    # window ends 2024-09-30
+    _run_lib(portfolio, tmp_path, AS_OF, p, name="q4")           # window ends 2024-12-31
+    db = str(tmp_path / "s.duckdb")
+    runs, diff = runner.history(db)
+    ev = dict(zip(diff["building_id"], diff["events"]))
+    # only what happened after the older window and up to the newer one, in date order
+    assert ev["B02"] == "2024-11-05 audit: none_found – nothing found"
+    assert ev["B03"] == "2024-11-20 measure: (controls) – new valves"
+    assert ev["B01"] is None
+    # the newer run recorded its events file; another one can be given
+    other = _write(tmp_path, HEADER + "B01,2024-12-01,operation,,,boiler serviced,,\n", name="other.csv")
+    ev2 = dict(zip(*runner.history(db, events=[str(other)])[1].select("building_id", "events")))
+    assert ev2["B01"] == "2024-12-01 operation: boiler serviced" and ev2["B03"] is None
+    out = cli(["history", "--db", db]).stdout
+    assert "events: 2024-11-05 audit: none_found – nothing found" in out
+    assert out.count("events:") == 2
