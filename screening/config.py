@@ -116,6 +116,9 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "cv_rmse_max": 20.0,        # % baseline limit, ASHRAE Guideline 14 (monthly regression; from memory)
         "nmbe_max": 0.005,          # % |net determination bias| limit, ASHRAE Guideline 14 (from memory)
     },
+    "learning": {                   # learning from audits (README "Learning from audits")
+        "min_audits": 5,            # an era x use type's default bias is applied from this many audited buildings on
+    },
     "plan": {
         "audits_per_quarter": 10,   # buildings to visit this quarter (0 = no limit: every one worth its visit)
         "audit_cost": 2000.0,       # cost of one visit: expected savings per year below it are not planned (0 = any)
@@ -249,6 +252,7 @@ RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("savings", "nmbe_max"): (0.0001, 100.0, "a percentage"),
     ("plan", "audit_cost"): (0.0, 100_000_000.0, "a cost per visit"),
     ("plan", "clean_audit_rest_quarters"): (0, 40, "a whole number of quarters"),
+    ("learning", "min_audits"): (2, 1_000_000, "a whole number of audited buildings"),
     ("plan", "clean_audit_regrow"): (1.0, 100.0, "a factor"),
 }
 #: Prices are per unit of the fuel in any currency (yen as well as dollars), so only the sign

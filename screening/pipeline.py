@@ -196,6 +196,7 @@ class Screened:
     normal_years: dict[str, list[int]]
     savings: pl.DataFrame | None = None  # one row per measure of the events file (events.measure_savings)
     savings_periods: pl.DataFrame | None = None  # one row per reporting bill of each measure (events.PERIOD_SCHEMA)
+    learning: pl.DataFrame | None = None  # the defaults' bias per era x use type from audited values (learning.py)
 
 
 def base_grid(cfg: dict) -> np.ndarray:
@@ -452,6 +453,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
     lap("metered_prep")
 
     envelope = env.estimate_envelope(b)
+    learned = _audit_bias(b, envelope, cfg["learning"]["min_audits"])
     lap("envelope")
     eff = envelope["efficiency"].to_numpy()
     met = metered.metered_heating(conv, spans.drop("station_id"), b, periods=periods.drop("station_id"),
@@ -474,6 +476,8 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
             pl.Series("hdd_per_day_fit", period_hdd.at(nearest_base(grid, base)) / periods["days"].to_numpy()))
     hdd65 = cube.at_base(st, spans["span_start"], spans["span_end"], np.full(len(st), 65.0))[0]
     exp = env.expected_heating(envelope, grid, span_hdd, hdd_fixed_base=hdd65, n_draws=a["draws"], seed=a["seed"])
+    if learned is not None and bool(learned["applied"].any()):  # issue 17: the defaults corrected by the audits
+        exp = _apply_bias(exp, b, envelope, learned)
     lap("expected")
     hdd_bal = cube.at_base(st, spans["span_start"], spans["span_end"], envelope["balance_point_f"].to_numpy())[0]
 
@@ -604,7 +608,37 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame, weather: pl.D
         lap("savings")
     return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
                     envelope=envelope, window=window, timings=timings, normal_years=normals.years_used,
-                    savings=saved, savings_periods=saved_periods)
+                    savings=saved, savings_periods=saved_periods, learning=learned)
+
+
+_AUDITED = ("ua_total_btu_h_f", "heating_efficiency", "balance_point_f")
+
+
+def _audit_bias(b: pl.DataFrame, envelope: pl.DataFrame, min_audits: int) -> pl.DataFrame | None:
+    """The defaults' bias per era x use type from the buildings' audited values (``learning.audit_bias``);
+    None when no building has one. The defaults are the envelope estimate with the audited values left out."""
+    from . import learning
+    cols = [c for c in _AUDITED if c in b.columns]
+    if not cols or not bool(b.select(pl.any_horizontal([pl.col(c).is_not_null() for c in cols])).to_series().any()):
+        return None
+    dflt = env.estimate_envelope(b.with_columns([pl.lit(None, dtype=pl.Float64).alias(c) for c in cols]))
+    given = b.select("building_id", *[pl.col(c).cast(pl.Float64) if c in cols else pl.lit(None, dtype=pl.Float64)
+                                      .alias(c) for c in _AUDITED]).join(
+        envelope.select("building_id", "era", "use_type"), on="building_id", how="inner")
+    return learning.audit_bias(given, dflt, min_audits=min_audits)
+
+
+def _apply_bias(exp: pl.DataFrame, b: pl.DataFrame, envelope: pl.DataFrame, learned: pl.DataFrame) -> pl.DataFrame:
+    """The expected heating of buildings without their own audited UA or efficiency, times the learned factor."""
+    from . import learning
+    eff_given = (b.select("building_id", pl.col("heating_efficiency").is_not_null().alias("efficiency_given"))
+                 if "heating_efficiency" in b.columns else b.select("building_id", pl.lit(False).alias("efficiency_given")))
+    fr = envelope.select("building_id", "era", "use_type", pl.col("ua_parts_scaled").alias("ua_given")).join(
+        eff_given, on="building_id", how="left", maintain_order="left").with_columns(pl.col("efficiency_given").fill_null(False))
+    f = learning.expectation_factors(fr, learned)["learned_factor"]
+    cols = [c for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu", "expected_point_kbtu",
+                        "expected_fixed_base_kbtu", "expected_modified_kbtu") if c in exp.columns]
+    return exp.with_columns([pl.col(c) * f for c in cols])
 
 
 def _post_measure_spans(conv: pl.DataFrame, spans: pl.DataFrame, ctx: pl.DataFrame, window_end: _dt.date, *,

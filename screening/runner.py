@@ -339,6 +339,9 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                            rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"],
                            plan=plan)
         summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev[0][1] if prev else None)
+        if res.learning is not None:  # learning from audits (issue 17): the defaults' bias per era x use type
+            from . import learning
+            summary["audit_bias"] = learning.bias_summary(res.learning, cfg["learning"]["min_audits"])
         savings_csv = None
         if res.savings is not None:  # savings after a measure (issue 17)
             from . import events as evmod
