@@ -98,7 +98,7 @@ def _print_summary(res) -> None:
     typer.echo(f"Outputs: {res.out_dir}  (database {res.db_path})")
 
 
-COLUMNS_HELP = ("your column names for ours: KIND:Their name=our_name,… (KIND buildings, readings or weather; "
+COLUMNS_HELP = ("your column names for ours: KIND:Their name=our_name,… (KIND buildings, readings, weather or events; "
                 "repeat for each kind); adds to [inputs.columns] of the config")
 DATE_ORDER_HELP = "order of slash dates like 03/04/2025: dmy, mdy or ymd ([reading] date_order)"
 
@@ -187,8 +187,10 @@ def validate(
     config: Annotated[Optional[str], typer.Option(help="TOML config file")] = None,
     columns: Annotated[Optional[list[str]], typer.Option("--columns", help=COLUMNS_HELP)] = None,
     date_order: Annotated[Optional[str], typer.Option("--date-order", help=DATE_ORDER_HELP)] = None,
+    events: Annotated[Optional[str], typer.Option(help="optional events CSV (or glob) to check too")] = None,
 ):
-    """Check the three files and print every problem; load nothing. Exit 0 when clean, 2 otherwise.
+    """Check the three files (and an events file) and print every problem; load nothing. Exit 0 when clean,
+    2 otherwise.
 
     When a file lacks required columns, prints a column mapping to check and paste into the config.
     """
@@ -196,7 +198,7 @@ def validate(
     try:
         overrides = {"analysis": {"units": units.upper() if units else None}}
         _reading_overrides(overrides, columns, date_order)
-        v = runner.validate(buildings, readings, weather, config_path=config, overrides=overrides)
+        v = runner.validate(buildings, readings, weather, config_path=config, overrides=overrides, events=events)
     except (Exception, KeyboardInterrupt) as exc:  # noqa: BLE001
         _fail(exc)
     for n in v.notices:

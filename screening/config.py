@@ -354,10 +354,12 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
 
 def column_names() -> dict[str, list[str]]:
     """Our column names per file kind (what ``[inputs.columns]`` may map to)."""
+    from .events import EVENT_COLUMNS
     from .ingest import BUILDING_COLUMNS, READING_COLUMNS
     return {"buildings": [c[0] for c in BUILDING_COLUMNS],
             "readings": [c[0] for c in READING_COLUMNS] + ["read_date"],
-            "weather": ["station_id", "date", "t_min", "t_max", "t_mean"]}
+            "weather": ["station_id", "date", "t_min", "t_max", "t_mean"],
+            "events": [c[0] for c in EVENT_COLUMNS]}
 
 
 def check_columns(columns: dict) -> None:
@@ -366,7 +368,7 @@ def check_columns(columns: dict) -> None:
     for kind, mapping in columns.items():
         where = f"[inputs.columns] {kind}"
         if kind not in known:
-            raise ConfigError(f"config key {where}: unknown file kind; expected buildings, readings or weather")
+            raise ConfigError(f"config key {where}: unknown file kind; expected buildings, readings, weather or events")
         if not isinstance(mapping, dict):
             raise _range_error(where, mapping, f'a table like [inputs.columns.{kind}] with "Your name" = "our_name"')
         targets: dict[str, str] = {}

@@ -826,8 +826,8 @@ class Validation:
 
 
 def validate(buildings: str, readings: str, weather: str, *, config_path: str | None = None,
-             overrides: dict | None = None) -> Validation:
-    """Check the three files; report every problem; load nothing."""
+             overrides: dict | None = None, events: str | None = None) -> Validation:
+    """Check the three files, and an events file when given; report every problem; load nothing."""
     cfg = cfgmod.load(config_path, overrides)
     opts = pipeline.read_options(cfg)
     problems: list[str] = []
@@ -858,7 +858,20 @@ def validate(buildings: str, readings: str, weather: str, *, config_path: str | 
                                            steam_btu_per_lb=cfg["analysis"]["steam_btu_per_lb"])
         rejects.append(conv_rej.select(pl.lit(readings).alias("file"), "line", "column",
                                        pl.col("value").cast(pl.String), "reason").cast(REJECT_SCHEMA))
-    order = {str(p): i for i, p in enumerate((buildings, readings, weather))}
+    ev_paths = _expand(events, "events") if events else []
+    for path in ev_paths:  # issue 16/17: the events file, against the accepted buildings when they were read
+        from . import events as evmod
+        try:
+            ld = evmod.read_events(path, opts, loaded["buildings"].df["building_id"] if "buildings" in loaded else None)
+        except InputError as exc:
+            problems.append(str(exc))
+            if exc.problem == "missing required column":
+                suggestions.extend(_mapping_suggestion("events", path, opts))
+            continue
+        rows["events"] = rows.get("events", 0) + ld.df.height
+        notices.extend(ld.notices)
+        rejects.append(ld.rejects.cast(REJECT_SCHEMA))
+    order = {str(p): i for i, p in enumerate((buildings, readings, weather, *ev_paths))}
     if rejects:
         allrej = pl.concat(rejects).with_columns(pl.col("file").replace_strict(order, default=9).alias("_k")) \
             .sort("_k", "line", "column")

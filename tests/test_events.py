@@ -296,3 +296,30 @@ def test_history_shows_the_events_between_the_two_runs_beside_the_changes(portfo
     out = cli(["history", "--db", db]).stdout
     assert "events: 2024-11-05 audit: none_found – nothing found" in out
     assert out.count("events:") == 2
+
+
+def test_validate_checks_an_events_file_and_suggests_a_mapping(portfolio, tmp_path):
+    base = ["validate", "--buildings", str(portfolio.buildings), "--readings", str(portfolio.readings),
+            "--weather", str(portfolio.weather)]
+    good = _write(tmp_path, HEADER + "B01,2024-01-01,measure,,controls,new controls,,9000\n"
+                  "B02,2024-02-01,audit,maybe,,,,\nB77,2024-02-01,audit,,,,,\n")
+    r = cli([*base, "--events", str(good)])
+    assert r.exit_code == 2
+    assert f"{good}, line 3, column 'finding'" in r.stdout and "(got 'maybe')" in r.stdout
+    assert f"{good}, line 4, column 'building_id'" in r.stdout and "unknown building" in r.stdout
+    assert "events 1 rows accepted" in r.stdout
+    # their own column names: a mapping is suggested; with it (--columns or the config) the file reads
+    theirs = _write(tmp_path, "Building,Visit date,Event type,Notes\nB01,2024-01-01,measure,new controls\n",
+                    name="theirs.csv")
+    r = cli([*base, "--events", str(theirs)])
+    assert r.exit_code == 2 and "[inputs.columns.events]" in r.stdout
+    assert '"Building" = "building_id"' in r.stdout and '"Visit date" = "date"' in r.stdout
+    assert '"Event type" = "kind"' in r.stdout
+    mapping = "events:Building=building_id,Visit date=date,Event type=kind,Notes=description"
+    r = cli([*base, "--events", str(theirs), "--columns", mapping])
+    assert r.exit_code == 0, r.stdout
+    res = _run(portfolio, tmp_path, "--events", str(theirs), "--columns", mapping)
+    assert res.exit_code == 0, res.output
+    assert pl.read_csv(tmp_path / "out" / "savings.csv")["building_id"].to_list() == ["B01"]
+    with pytest.raises(config.ConfigError, match="unknown file kind; expected buildings, readings, weather or events"):
+        config.check_columns({"audits": {"a": "b"}})
