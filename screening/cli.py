@@ -145,7 +145,7 @@ def _print_summary(res) -> None:
     typer.echo(f"Outputs: {res.out_dir}  (database {res.db_path})")
 
 
-COLUMNS_HELP = ("your column names for ours: KIND:Their name=our_name,… (KIND buildings, readings or weather; "
+COLUMNS_HELP = ("your column names for ours: KIND:Their name=our_name,… (KIND buildings, readings, weather or events; "
                 "repeat for each kind); adds to [inputs.columns] of the config")
 DATE_ORDER_HELP = "order of slash dates like 03/04/2025: dmy, mdy or ymd ([reading] date_order)"
 
@@ -230,8 +230,10 @@ def validate(
     config: Annotated[Optional[str], typer.Option(help="TOML config file")] = None,
     columns: Annotated[Optional[list[str]], typer.Option("--columns", help=COLUMNS_HELP)] = None,
     date_order: Annotated[Optional[str], typer.Option("--date-order", help=DATE_ORDER_HELP)] = None,
+    events: Annotated[Optional[str], typer.Option(help="optional events CSV (or glob) to check too")] = None,
 ):
-    """Check the three files and print every problem; load nothing. Exit 0 when clean, 2 otherwise.
+    """Check the three files (and an events file) and print every problem; load nothing. Exit 0 when clean,
+    2 otherwise.
 
     A file not given as an option is taken from the config's [inputs] (a glob: every file it matches).
     When a file lacks required columns, prints a column mapping to check and paste into the config.
@@ -240,7 +242,7 @@ def validate(
     with _mapped_errors():
         overrides = {"analysis": {"units": units.upper() if units else None}}
         _reading_overrides(overrides, columns, date_order)
-        v = runner.validate(buildings, readings, weather, config_path=config, overrides=overrides)
+        v = runner.validate(buildings, readings, weather, config_path=config, overrides=overrides, events=events)
     for n in v.notices:
         typer.echo(f"notice: {n}")
     for p in v.problems:
@@ -335,11 +337,14 @@ def history(
     db: Annotated[str, typer.Option(help="DuckDB file")] = "screening.duckdb",
     older: Annotated[Optional[str], typer.Option(help="run id of the older run (as on its outputs)")] = None,
     newer: Annotated[Optional[str], typer.Option(help="run id of the newer run (as on its outputs)")] = None,
+    events: Annotated[Optional[list[str]], typer.Option(help="events file (path or glob) to show beside the "
+                                                        "changes; default: the newer run's")] = None,
 ):
-    """List the runs and show what changed between two of them (default: the last two successful)."""
+    """List the runs and show what changed between two of them (default: the last two successful),
+    with the events between them beside each building."""
     from . import runner
     with _mapped_errors():
-        runs, diff = runner.history(db, older, newer)
+        runs, diff = runner.history(db, older, newer, events=events)
     for r in runs.iter_rows(named=True):
         typer.echo(f"{r['run_key']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}")
     if diff is None:
@@ -349,7 +354,12 @@ def history(
     changed = diff.filter(pl.col("change") != "same rank")
     typer.echo(f"{changed.height} building(s) changed rank or flags:")
     for r in changed.iter_rows(named=True):
-        typer.echo(f"  {r['building_id']}: {r['change']}")
+        typer.echo(f"  {r['building_id']}: {r['change']}" + (f"  | events: {r['events']}" if r["events"] else ""))
+    quiet = diff.filter((pl.col("change") == "same rank") & pl.col("events").is_not_null())
+    if quiet.height:
+        typer.echo(f"{quiet.height} building(s) with events and the same rank:")
+        for r in quiet.iter_rows(named=True):
+            typer.echo(f"  {r['building_id']}: events: {r['events']}")
 
 
 def main() -> None:

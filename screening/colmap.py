@@ -64,6 +64,17 @@ SYNONYMS: dict[str, dict[str, tuple[str, ...]]] = {
         "t_mean": ("avg temp", "mean temp", "tavg", "average temperature", "mean temperature", "tmean",
                    "average temp"),
     },
+    "events": {
+        "building_id": ("building id", "bldg id", "building", "bldg", "building no", "building number",
+                        "building code", "site id", "site", "property id", "property code"),
+        "date": ("event date", "day", "date of visit", "visit date", "audit date", "install date", "installed"),
+        "kind": ("event", "event type", "type", "what", "activity"),
+        "finding": ("result", "outcome", "found", "audit result"),
+        "mechanism": ("cause", "problem", "issue", "category"),
+        "description": ("notes", "note", "comment", "comments", "details", "remarks"),
+        "expected_savings": ("expected saving", "estimated savings", "savings estimate"),
+        "cost": ("amount", "price", "measure cost", "installed cost", "total cost"),
+    },
 }
 
 #: The columns each kind must have (after mapping). Readings need a start date, or a read date.
@@ -71,6 +82,7 @@ REQUIRED: dict[str, tuple[str, ...]] = {
     "buildings": ("building_id", "name", "station_id", "use_type", "floor_area", "heating_fuel"),
     "readings": ("building_id", "fuel", "period_start", "period_end", "quantity", "unit"),
     "weather": ("station_id", "date"),
+    "events": ("building_id", "date", "kind"),
 }
 
 
@@ -172,7 +184,7 @@ def parse_option(values: list[str] | None) -> dict[str, dict[str, str]]:
         kind = kind.strip().lower()
         if not sep or kind not in REQUIRED:
             raise ConfigError(f"--columns {v!r}: expected KIND:Their name=our_name,… with KIND buildings, "
-                              "readings or weather")
+                              "readings, weather or events")
         for pair in rest.split(","):
             if not pair.strip():
                 continue

@@ -269,6 +269,8 @@ class Savings:
     blackout_days: int = setting(30,
                                  "days after the measure left out of the reporting period (commissioning)",
                                  range=(0, 366, "a whole number of days"))
+    post_measure_min_days: int = setting(180, "measure in the window: judged on the days after it + blackout if this many",
+                                         range=(90, 365, "a whole number of days"))
     baseline_min_periods: int = setting(9,
                                         "bills (of at most 62 days) the baseline needs in the 12 months before",
                                         range=(3, 12, "a whole number of bills"))
@@ -278,6 +280,14 @@ class Savings:
     nmbe_max: float = setting(0.005,
                               "% |net determination bias| limit, ASHRAE Guideline 14 (from memory)",
                               range=(0.0001, 100.0, "a percentage"))
+
+
+@dataclass
+class Learning:
+    """[learning]: learning from audits (README "Learning from audits")"""
+
+    min_audits: int = setting(5, "an era x use type's default bias is applied from this many audited buildings on",
+                              range=(2, 1_000_000, "a whole number of audited buildings"))
 
 
 @dataclass
@@ -312,6 +322,7 @@ class Settings:
     emissions: Emissions = field(default_factory=Emissions)
     thresholds: Thresholds = field(default_factory=Thresholds)
     savings: Savings = field(default_factory=Savings)
+    learning: Learning = field(default_factory=Learning)
     plan: Plan = field(default_factory=Plan)
 
 
@@ -499,10 +510,11 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
 
 def column_names() -> dict[str, list[str]]:
     """Our column names per file kind (what ``[inputs.columns]`` may map to)."""
-    from .schema import BUILDINGS, READ_DATE, READINGS, WEATHER
+    from .schema import BUILDINGS, EVENTS, READ_DATE, READINGS, WEATHER
     return {"buildings": [c.name for c in BUILDINGS],
             "readings": [c.name for c in READINGS] + [READ_DATE],
-            "weather": [c.name for c in WEATHER]}
+            "weather": [c.name for c in WEATHER],
+            "events": [c.name for c in EVENTS]}
 
 
 def check_columns(columns: dict) -> None:
@@ -511,7 +523,7 @@ def check_columns(columns: dict) -> None:
     for kind, mapping in columns.items():
         where = f"[inputs.columns] {kind}"
         if kind not in known:
-            raise ConfigError(f"config key {where}: unknown file kind; expected buildings, readings or weather")
+            raise ConfigError(f"config key {where}: unknown file kind; expected buildings, readings, weather or events")
         if not isinstance(mapping, dict):
             raise _range_error(where, mapping, f'a table like [inputs.columns.{kind}] with "Your name" = "our_name"')
         targets: dict[str, str] = {}

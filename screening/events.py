@@ -76,7 +76,8 @@ def read_events(path: str, opts: ReadOptions | None = None, building_ids: pl.Ser
     return Loaded(label, good.sort("building_id", "date", LINE_COL), rej.sort("line"), notices)
 
 
-def read_all(paths: list[str], opts: ReadOptions, building_ids: pl.Series) -> tuple[pl.DataFrame, pl.DataFrame, list[str]]:
+def read_all(paths: list[str], opts: ReadOptions,
+             building_ids: pl.Series | None) -> tuple[pl.DataFrame, pl.DataFrame, list[str]]:
     """Several events files: their rows (with ``_file``), their rejects and notices."""
     frames, rejs, notes = [], [], []
     for p in paths:
@@ -110,10 +111,26 @@ def _heating_bills(conv: pl.DataFrame) -> pl.DataFrame:
             .with_columns(((pl.col("period_end") - pl.col("period_start")).dt.total_days() + 1).alias("days")))
 
 
+PERIOD_SCHEMA = pl.Schema({"building_id": pl.String, "event_date": pl.Date, "period_start": pl.Date,
+                           "period_end": pl.Date, "baseline_kbtu": pl.Float64, "metered_kbtu": pl.Float64})
+
+
 def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, grid: np.ndarray,
                     events: pl.DataFrame, prices: pl.DataFrame, *, window_end: _dt.date, blackout_days: int,
                     min_periods: int, cv_max: float, nmbe_max: float) -> pl.DataFrame:
-    """One row per measure (``SAVINGS_SCHEMA``, energies in kBtu).
+    """One row per measure (``SAVINGS_SCHEMA``, energies in kBtu); see :func:`savings_with_periods`."""
+    return savings_with_periods(conv, buildings, cube, normals, grid, events, prices, window_end=window_end,
+                                blackout_days=blackout_days, min_periods=min_periods, cv_max=cv_max,
+                                nmbe_max=nmbe_max)[0]
+
+
+def savings_with_periods(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, grid: np.ndarray,
+                         events: pl.DataFrame, prices: pl.DataFrame, *, window_end: _dt.date, blackout_days: int,
+                         min_periods: int, cv_max: float,
+                         nmbe_max: float) -> tuple[pl.DataFrame, pl.DataFrame]:
+    """One row per measure (``SAVINGS_SCHEMA``, energies in kBtu), and one row per reporting bill
+    (``PERIOD_SCHEMA``: the baseline projected to the bill's weather, α·days + β·HDD(τ), and the
+    metered energy [kBtu]; their differences add up to the measure's ``avoided_kbtu``).
 
     Baseline: the heating-fuel bills lying wholly in the 12 months before the measure date,
     fitted by ``metered.fit_variable_base`` (at least ``min_periods`` bills of ≤ 62 days with
@@ -122,14 +139,15 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
     Σ (α·days + β·HDD(τ)) − metered over those bills; normalized savings = the baseline's and the
     reporting period's own fits, each on the normal year (365·α + β·HDD_normal(τ)), subtracted.
     """
+    none = (pl.DataFrame(schema=SAVINGS_SCHEMA), pl.DataFrame(schema=PERIOD_SCHEMA))
     if events.height == 0 or "kind" not in events.columns:
-        return pl.DataFrame(schema=SAVINGS_SCHEMA)
-    m = (events.filter(pl.col("kind") == "measure").select("building_id", pl.col("date").alias("event_date"))
+        return none
+    m = (events.filter((pl.col("kind") == "measure") & (pl.col("date") <= window_end)).select("building_id", pl.col("date").alias("event_date"))
          .unique().sort("building_id", "event_date")
          .join(buildings.select("building_id", "station_id"), on="building_id", how="inner")
          .sort("building_id", "event_date"))
     if m.height == 0:
-        return pl.DataFrame(schema=SAVINGS_SCHEMA)
+        return none
     m = m.with_columns(
         pl.col("event_date").dt.offset_by("-12mo").alias("baseline_start"),
         (pl.col("event_date") - pl.duration(days=1)).alias("baseline_end"),
@@ -187,6 +205,7 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
     proj = np.zeros(n_m)
     met = np.zeros(n_m)
     cnt = np.zeros(n_m, dtype=np.int64)
+    per = pl.DataFrame(schema=PERIOD_SCHEMA)
     if rep.height:
         have = rep["_missing"].to_numpy() == 0
         mi = rep["_mi"].to_numpy().astype(np.int64)
@@ -195,6 +214,10 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
         np.add.at(proj, mi[have], p_i[have])
         np.add.at(met, mi[have], rep["energy_kbtu"].to_numpy()[have])
         np.add.at(cnt, mi[have], 1)
+        per = rep.filter(pl.Series(have)).select(
+            "building_id", "event_date", "period_start", "period_end",
+            pl.Series("baseline_kbtu", p_i[have]), pl.col("energy_kbtu").alias("metered_kbtu"))
+        per = per.filter(pl.col("baseline_kbtu").is_finite()).cast(PERIOD_SCHEMA)
     with np.errstate(invalid="ignore"):
         avoided = np.where(cnt > 0, proj - met, np.nan)
     u68 = sv.savings_uncertainty(st["cv_rmse"], st["n"], n_eff, cnt, proj, n_par, 0.68)
@@ -227,7 +250,46 @@ def measure_savings(conv: pl.DataFrame, buildings: pl.DataFrame, cube, normals, 
     out = out.with_columns([pl.when(pl.col(c).is_nan()).then(None).otherwise(pl.col(c)).alias(c)
                             for c, t in SAVINGS_SCHEMA.items() if t == pl.Float64 and c in out.columns])
     out = out.join(prices.select("building_id", "usd_per_kbtu", "kg_co2e_per_kbtu"), on="building_id", how="left")
-    return out.select(list(SAVINGS_SCHEMA)).sort("building_id", "event_date")
+    return (out.select(list(SAVINGS_SCHEMA)).sort("building_id", "event_date"),
+            per.sort("building_id", "event_date", "period_start"))
+
+
+def since_measure(s: pl.DataFrame, periods: pl.DataFrame, events: pl.DataFrame, *, si: bool, currency: str,
+                  kbtu_to_kwh: float) -> dict[str, dict]:
+    """The sheet's "since the measure" data, per building: its latest measure with a reporting period.
+
+    ``{"event_date", "description", "periods": [{"start", "end", "baseline", "metered"}], "avoided_energy",
+    "avoided_low_90", "avoided_high_90", "energy_unit", "cost", "currency"}``, energies in the run's unit
+    (kBtu, or kWh under SI); ``cost`` the avoided energy at the building's price (None when unknown).
+    The periods' baseline − metered add up to ``avoided_energy``.
+    """
+    f = kbtu_to_kwh if si else 1.0
+    if s.height == 0:
+        return {}
+    latest = (s.filter(pl.col("avoided_kbtu").is_not_null()).sort("building_id", "event_date")
+              .group_by("building_id", maintain_order=True).last())
+    desc = (events.filter(pl.col("kind") == "measure").select("building_id", pl.col("date").alias("event_date"),
+                                                              "description")
+            .unique(subset=["building_id", "event_date"], keep="first"))
+    latest = latest.join(desc, on=["building_id", "event_date"], how="left")
+    per: dict[tuple, list[dict]] = {}
+    for r in periods.iter_rows(named=True):
+        per.setdefault((r["building_id"], r["event_date"]), []).append(
+            {"start": str(r["period_start"]), "end": str(r["period_end"]), "baseline": r["baseline_kbtu"] * f,
+             "metered": r["metered_kbtu"] * f})
+    out = {}
+    for r in latest.iter_rows(named=True):
+        av, u = r["avoided_kbtu"], r["avoided_u90_kbtu"]
+        price = r["usd_per_kbtu"]
+        out[r["building_id"]] = {
+            "event_date": str(r["event_date"]), "description": r["description"] or "",
+            "periods": per.get((r["building_id"], r["event_date"]), []),
+            "avoided_energy": av * f,
+            "avoided_low_90": (av - u) * f if u is not None else None,
+            "avoided_high_90": (av + u) * f if u is not None else None,
+            "energy_unit": "kWh" if si else "kBtu",
+            "cost": av * price if price is not None else None, "currency": currency}
+    return out
 
 
 SAVINGS_COLUMNS = ["building_id", "event_date", "report_start", "report_end", "avoided_energy", "avoided_low_90",
@@ -303,35 +365,69 @@ def _quarter(col: str) -> pl.Expr:
 
 
 def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.date, rest_quarters: int,
-                 regrow: float, blackout_days: int = 30) -> pl.DataFrame:
-    """Per building with an audit finding: whether the plan keeps it off or pins it (for ``screen.screen``).
+                 regrow: float, blackout_days: int = 30, window_start: _dt.date | None = None,
+                 judge_min_days: int = 180) -> pl.DataFrame:
+    """Per building with an audit finding or a measure: how the screening treats it (for ``screen.screen``
+    and ``pipeline.screen_frames``).
 
     - ``_clean_audit_recent``: its latest audit (up to the window end) found nothing (``none_found``),
       less than ``rest_quarters`` quarters before the window end, and no measure since. The screening
       keeps it off the plan unless its expected recoverable cost now reaches ``regrow`` × what the
       list it was audited from gave (``_cost_at_audit``; unknown: it stays off);
     - ``_pin_plan``: its latest audit confirmed a finding and no measure is recorded on or after it;
-    - ``_measure_recent``: its latest measure (plus ``blackout_days``) is less than 12 months before the
-      window's end, so the compared 12 months mix use before and after it: the building is not planned on
-      them (it is judged again once 12 months after the measure are billed; its savings are in savings.csv);
-    - ``plan_note``: the sentence for summary.json's ``plan_notes``.
+    - ``_judge_from``: its latest measure plus ``blackout_days`` falls inside the window (after
+      ``window_start``) and leaves at least ``judge_min_days`` days to the window's end: the building is
+      judged on those post-measure days only (``pipeline.screen_frames`` cuts its span there, when its
+      bills cover them, and fits only the bills from that day on);
+    - ``_measure_recent``: the same, but fewer than ``judge_min_days`` days after the blackout are in the
+      window: the building is not planned on the mixed 12 months (judged again once enough post-measure
+      months are billed; its savings are in savings.csv);
+    - ``_measure_in_years``: a measure within the 12 months before the window or in it: the year-on-year
+      comparison would straddle it, so it is not made (the drop is reported as savings, not as a change);
+    - ``_measure_date``: the latest measure's day (up to the window's end);
+    - ``plan_note``: the sentence for summary.json's ``plan_notes`` (and the sheet's verdict).
     """
     schema = pl.Schema({"building_id": pl.String, "_clean_audit_recent": pl.Boolean, "_cost_at_audit": pl.Float64,
-              "_pin_plan": pl.Boolean, "_measure_recent": pl.Boolean, "plan_note": pl.String})
+              "_pin_plan": pl.Boolean, "_measure_recent": pl.Boolean, "_judge_from": pl.Date,
+              "_measure_in_years": pl.Boolean, "_measure_date": pl.Date, "plan_note": pl.String})
     if events.height == 0:
         return pl.DataFrame(schema=schema)
     ev = events.filter(pl.col("date") <= window_end)
-    # a measure whose 12 months after the blackout are not all billed yet by the window's end
-    recent = (ev.filter(pl.col("kind") == "measure").group_by("building_id").agg(pl.col("date").max().alias("_md"))
-              .with_columns((pl.col("_md") + pl.duration(days=blackout_days)).alias("_rs"))
-              .with_columns(pl.col("_rs").dt.offset_by("12mo").alias("_full"))
-              .filter(pl.col("_full") > pl.lit(window_end + _dt.timedelta(days=1))))
-    recent_ctx = recent.select(
+    w_start = window_start if window_start is not None else _dt.date(window_end.year - 1, window_end.month,
+                                                                          min(window_end.day, 28))
+    last_m = (ev.filter(pl.col("kind") == "measure").group_by("building_id").agg(pl.col("date").max().alias("_md"))
+              .with_columns((pl.col("_md") + pl.duration(days=blackout_days)).alias("_rs")))
+    # a measure whose blackout ends inside the window: the window mixes use before and after it
+    mixed = last_m.filter(pl.col("_rs") > pl.lit(w_start)).with_columns(
+        ((pl.lit(window_end) - pl.col("_rs")).dt.total_days() + 1).alias("_post_days"))
+    judged = pl.col("_post_days") >= judge_min_days
+    recent_ctx = mixed.select(
         "building_id", pl.lit(False).alias("_clean_audit_recent"), pl.lit(None, dtype=pl.Float64).alias("_cost_at_audit"),
-        pl.lit(False).alias("_pin_plan"), pl.lit(True).alias("_measure_recent"),
-        (pl.lit("measure of ") + pl.col("_md").cast(pl.String) + pl.lit(": the compared 12 months mix use before and "
-         "after it, so it is not planned on them; judged again once the 12 months from ") + pl.col("_rs").cast(pl.String)
-         + pl.lit(" are billed (its savings so far are in savings.csv)")).alias("plan_note"))
+        pl.lit(False).alias("_pin_plan"), (~judged).alias("_measure_recent"),
+        pl.when(judged).then(pl.col("_rs")).otherwise(None).alias("_judge_from"),
+        pl.lit(True).alias("_measure_in_years"), pl.col("_md").alias("_measure_date"),
+        pl.when(judged).then(
+            pl.lit("measure of ") + pl.col("_md").cast(pl.String) + pl.lit(": judged on the ")
+            + pl.col("_post_days").cast(pl.String) + pl.lit(" days from ") + pl.col("_rs").cast(pl.String)
+            + pl.lit(f" to {window_end} only (after the measure and {blackout_days} days of blackout); its drop is "
+                     "reported as savings (savings.csv), not as a change on last year"))
+        .otherwise(
+            pl.lit("measure of ") + pl.col("_md").cast(pl.String) + pl.lit(": the compared 12 months mix use before and "
+            "after it, so it is not planned on them; judged on the bills from ") + pl.col("_rs").cast(pl.String)
+            + pl.lit(f" once {judge_min_days} days of them are billed (its savings so far are in savings.csv)"))
+        .alias("plan_note"))
+    # a measure in the 12 months before the window (or in it): no year-on-year comparison
+    year_before = _dt.date(w_start.year - 1, w_start.month, min(w_start.day, 28))
+    straddle = last_m.filter((pl.col("_md") >= pl.lit(year_before))
+                             & ~pl.col("building_id").is_in(mixed["building_id"].implode())).select(
+        "building_id", pl.lit(False).alias("_clean_audit_recent"), pl.lit(None, dtype=pl.Float64).alias("_cost_at_audit"),
+        pl.lit(False).alias("_pin_plan"), pl.lit(False).alias("_measure_recent"),
+        pl.lit(None, dtype=pl.Date).alias("_judge_from"), pl.lit(True).alias("_measure_in_years"),
+        pl.col("_md").alias("_measure_date"),
+        (pl.lit("measure of ") + pl.col("_md").cast(pl.String) + pl.lit(": the compared 12 months are all after it; "
+         "no change on last year is computed (the previous year is before the measure; its savings are in "
+         "savings.csv)")).alias("plan_note"))
+    recent_ctx = pl.concat([recent_ctx.cast(schema), straddle.cast(schema)])
     aud = (ev.filter((pl.col("kind") == "audit") & pl.col("finding").is_not_null())
            .with_columns(pl.col("finding").replace_strict({"confirmed": 0, "data_error": 1, "none_found": 2},
                                                           return_dtype=pl.Int64).alias("_prio"))
@@ -339,7 +435,7 @@ def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.da
            .agg(pl.col("date").last().alias("audit_date"), pl.col("finding").last(),
                 pl.col("mechanism").last()))
     if aud.height == 0:
-        return recent_ctx.cast(schema)
+        return recent_ctx.cast(schema).sort("building_id")
     meas = ev.filter(pl.col("kind") == "measure").group_by("building_id").agg(pl.col("date").max().alias("_m"))
     months = 3 * rest_quarters
     a = (aud.join(meas, on="building_id", how="left")
@@ -362,10 +458,18 @@ def plan_context(events: pl.DataFrame, then: pl.DataFrame, *, window_end: _dt.da
                           .then(pl.lit("those of the list it was audited from (")
                                 + pl.col("cost_then").round(0).cast(pl.Int64).cast(pl.String) + pl.lit(")"))
                           .otherwise(pl.lit("those at the audit (not on record: kept off)")))
-        .otherwise(None).alias("plan_note"), pl.lit(False).alias("_measure_recent"))
+        .otherwise(None).alias("plan_note"), pl.lit(False).alias("_measure_recent"),
+        pl.lit(None, dtype=pl.Date).alias("_judge_from"), pl.lit(False).alias("_measure_in_years"),
+        pl.lit(None, dtype=pl.Date).alias("_measure_date"))
     a = a.select(list(schema)).cast(schema)
-    # a recent measure takes precedence (a finding it fixed, or a clean audit before it, no longer speaks)
-    return pl.concat([recent_ctx.cast(schema), a.filter(~pl.col("building_id").is_in(recent["building_id"].implode()))])
+    # a measure in the window takes precedence (a finding it fixed, or a clean audit before it, no longer
+    # speaks); one in the year before only stops the year-on-year comparison
+    a = a.filter(~pl.col("building_id").is_in(mixed["building_id"].implode()))
+    a = a.join(straddle.select("building_id", pl.col("_measure_date").alias("_sd")), on="building_id", how="left")
+    a = a.with_columns(pl.col("_sd").is_not_null().alias("_measure_in_years"), pl.col("_sd").alias("_measure_date"),
+                       ).drop("_sd")
+    rest = recent_ctx.filter(~pl.col("building_id").is_in(a["building_id"].implode()))
+    return pl.concat([rest, a.select(list(schema))]).sort("building_id")
 
 
 def hit_rate(events: pl.DataFrame, then: pl.DataFrame) -> dict:
@@ -390,3 +494,19 @@ def hit_rate(events: pl.DataFrame, then: pl.DataFrame) -> dict:
             "audited_from_plan": n, "confirmed": k, "rate": round(k / n, 3) if n else None,
             "audited_off_plan": known.height - n,
             "by_mechanism": groups("mechanism"), "by_quarter": groups("quarter")}
+
+
+def events_between(events: pl.DataFrame, after: _dt.date, upto: _dt.date) -> pl.DataFrame:
+    """``building_id, events``: per building, its events dated after ``after`` and up to ``upto``, one text
+    (``2026-05-19 audit: confirmed (controls) – valves stuck; 2026-06-02 measure: (controls) – new controls``),
+    in date order."""
+    if events.height == 0:
+        return pl.DataFrame(schema={"building_id": pl.String, "events": pl.String})
+    e = events.filter((pl.col("date") > after) & (pl.col("date") <= upto)).sort("building_id", "date", "kind")
+    head = pl.concat_str([pl.col("finding"), pl.lit("(") + pl.col("mechanism") + pl.lit(")")], separator=" ",
+                         ignore_nulls=True)
+    head = pl.when(head.str.len_chars() > 0).then(head)
+    detail = pl.concat_str([head, pl.col("description")], separator=" – ", ignore_nulls=True)
+    text = (pl.col("date").cast(pl.String) + pl.lit(" ") + pl.col("kind")
+            + pl.when(detail.str.len_chars() > 0).then(pl.lit(": ") + detail).otherwise(pl.lit("")))
+    return e.group_by("building_id", maintain_order=True).agg(text.str.join("; ").alias("events"))

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import polars as pl
 
-from . import screen
+from . import savings_page, screen
 from .schema import KBTU_TO_KWH, REJECT_SCHEMA
 
 FT2_TO_M2 = 0.09290304              # exact
@@ -272,8 +272,12 @@ def _num(x):
 
 
 def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFrame, disp: Display, *,
-                  run_id: str, run_date: str, currency: str) -> list[dict]:
-    """The dicts that the sheet template renders, one per building (see screening.report)."""
+                  run_id: str, run_date: str, currency: str, since_measure: dict[str, dict] | None = None) -> list[dict]:
+    """The dicts that the sheet template renders, one per building (see screening.report).
+
+    ``since_measure`` (``events.since_measure``, issue 17): per building with a measure, the data of the
+    sheet's "since the measure" box; the record's key ``since_measure`` is that dict or None.
+    """
     d = disp
     ef = 1.8 if d.si else 1.0   # per °F → per K
     env_rows = {r["building_id"]: r for r in envelope.select("building_id", "assumptions").iter_rows(named=True)}
@@ -368,12 +372,13 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             "next_steps": screen.next_steps(r["flag_codes"], r["data_issue_codes"], slope_vs_envelope=slope_ratio,
                                             mechanisms=r["mechanisms"], blocking=r["blocking"]),
             "cautions": [],  # the sheet template prints the standard cautions on every sheet
+            "since_measure": (since_measure or {}).get(bid),
         })
     return out
 
 
 def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp: Display, *,
-                   currency: str, max_rows: int = 0) -> dict:
+                   currency: str, max_rows: int = 0, savings: pl.DataFrame | None = None) -> dict:
     """The dict that ranking.pdf renders (see screening.report.render_ranking).
 
     ``max_rows`` > 0 keeps the PDF's table to the first rows of the ranking (the full list is
@@ -405,6 +410,8 @@ def ranking_report(ranking: pl.DataFrame, res: pl.DataFrame, summary: dict, disp
         "data_issues": issues, "data_issues_total": n_issues, "data_issues_omitted": n_issues - len(issues),
         "energy_unit": disp.energy_unit, "intensity_unit": disp.intensity_unit,
         "currency": currency, "cautions": CAUTIONS,
+        # the savings page (issue 17; savings.csv's frame): only with an events file
+        "savings": savings_page.savings_report(savings, res, summary),
     }
 
 

@@ -186,6 +186,8 @@ class Screened:
     timings: dict[str, float]
     normal_years: dict[str, list[int]]
     savings: pl.DataFrame | None = None  # one row per measure of the events file (events.measure_savings)
+    savings_periods: pl.DataFrame | None = None  # one row per reporting bill of each measure (events.PERIOD_SCHEMA)
+    learning: pl.DataFrame | None = None  # the defaults' bias per era x use type from audited values (learning.py)
 
 
 def base_grid(cfg: dict) -> np.ndarray:
@@ -460,6 +462,10 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
     lap("degree_days")
 
 
+    # the defaults' bias learned from audited buildings: a portfolio statistic, before the chunks (issue 17)
+    learned = _audit_bias(b, cfg["learning"]["min_audits"])
+    lap("envelope")
+
     # per-building work, a chunk of buildings at a time (each building's rows depend only on its own)
     size = chunk_size(chunk_buildings, b.height, fit_block)
     chunked = size < b.height
@@ -469,7 +475,7 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
         rc = source(bc["building_id"])
         parts.append(_screen_part(bc, rc, weather, cfg, cube=cube, normals=normals, gaps=gaps, grid=grid,
                                   window=window, paths=paths, previous=previous, plan_context=plan_context,
-                                  events=events, chunked=chunked, fit_block=fit_block, lap=lap))
+                                  events=events, chunked=chunked, fit_block=fit_block, lap=lap, learned=learned))
         del rc
     del source
     if chunked and not any(p.covered for p in parts):
@@ -484,9 +490,13 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
     periods = pl.concat([p.periods for p in parts], how="vertical_relaxed") if len(parts) > 1 else parts[0].periods
     envelope = pl.concat([p.envelope for p in parts], how="vertical_relaxed") if len(parts) > 1 \
         else parts[0].envelope
-    saved = None
+    saved, saved_periods = None, None
     if events is not None:
         saved = pl.concat([p.savings for p in parts if p.savings is not None], how="vertical_relaxed")
+        saved_periods = pl.concat([p.savings_periods for p in parts if p.savings_periods is not None],
+                                  how="vertical_relaxed")
+    ctx_parts = [p.plan_context for p in parts if p.plan_context is not None]
+    measure_ctx = pl.concat(ctx_parts, how="vertical_relaxed") if ctx_parts else None
     del parts
     thr = cfg["thresholds"]
     t0 = time.perf_counter()
@@ -495,10 +505,17 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
     units_ip = cfg["analysis"]["units"] == "IP"
     results = screen.screen(frame, thr, plan=cfg["plan"], currency=cfg["prices"]["currency"], energy_factor=1.0 if units_ip else KBTU_TO_KWH,
                             energy_unit="kBtu" if units_ip else "kWh")
+    if measure_ctx is not None and "_measure_date" in measure_ctx.columns:  # the measure's note in the verdict
+        said = measure_ctx.filter(pl.col("_measure_date").is_not_null()).select(
+            "building_id", pl.col("plan_note").alias("_mnote"))
+        results = results.join(said, on="building_id", how="left", maintain_order="left").with_columns(
+            pl.when(pl.col("_mnote").is_not_null())
+            .then(pl.col("verdict") + pl.lit(" After the ") + pl.col("_mnote") + pl.lit("."))
+            .otherwise(pl.col("verdict")).alias("verdict")).drop("_mnote")
     lap("screening")
     return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
                     envelope=envelope, window=window, timings=timings, normal_years=normals.years_used,
-                    savings=saved)
+                    savings=saved, savings_periods=saved_periods, learning=learned)
 
 
 @dataclass
@@ -511,6 +528,8 @@ class _Part:
     envelope: pl.DataFrame = field(default_factory=pl.DataFrame)
     rejects: pl.DataFrame = field(default_factory=pl.DataFrame)
     savings: pl.DataFrame | None = None
+    savings_periods: pl.DataFrame | None = None
+    plan_context: pl.DataFrame | None = None  # the chunk's rows of the plan context, as the measure rules left them
     covered: bool = False
     first: _dt.date | None = None
     last: _dt.date | None = None
@@ -521,7 +540,8 @@ class _Part:
 def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: dict, *, cube, normals,
                  gaps: pl.DataFrame, grid: np.ndarray, window: tuple[_dt.date, _dt.date], paths: dict,
                  previous: pl.DataFrame | None, plan_context: pl.DataFrame | None,
-                 events: pl.DataFrame | None, chunked: bool, fit_block: int, lap) -> _Part:
+                 events: pl.DataFrame | None, chunked: bool, fit_block: int, lap,
+                 learned: pl.DataFrame | None = None) -> _Part:
     """The per-building work for the buildings ``b`` (sorted) and their checked readings ``r``."""
     a = cfg["analysis"]
     ws, we = window
@@ -541,6 +561,13 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
     spans = metered.choose_spans(conv, ws, we, lookback_months=a["lookback_months"],
                                  min_coverage=thr["coverage_min"], building_ids=b["building_id"],
                                  fill_end_days=a["fill_end_days"])
+    if plan_context is not None:
+        plan_context = plan_context.filter(pl.col("building_id").is_in(b["building_id"].implode()))
+    if plan_context is not None and plan_context.height and "_judge_from" in plan_context.columns:
+        # issue 17: a building with a measure in the window is judged on the days after it (events.plan_context)
+        spans, plan_context = _post_measure_spans(conv, spans, plan_context, we, lookback_months=a["lookback_months"],
+                                                  min_coverage=thr["coverage_min"], fill_end_days=a["fill_end_days"])
+    part.plan_context = plan_context
     part.covered = bool((spans["coverage"].fill_null(0.0) > 0).any())
     if conv.height:
         part.first, part.last = conv["period_start"].min(), conv["period_end"].max()  # type: ignore[assignment]
@@ -552,6 +579,10 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
     span_hdd, span_days, span_missing = cube.period_totals(st, spans["span_start"], spans["span_end"])
     fill_hdd = _fill_hdd(cube, spans, grid)
     periods = metered.fit_periods(conv, spans, lookback_months=a["lookback_months"])
+    if plan_context is not None and "_judge_from" in plan_context.columns:  # post-measure bills only (issue 17)
+        jf = plan_context.filter(pl.col("_judge_from").is_not_null()).select("building_id", "_judge_from")
+        periods = periods.join(jf, on="building_id", how="left", maintain_order="left").filter(
+            pl.col("_judge_from").is_null() | (pl.col("period_start") >= pl.col("_judge_from"))).drop("_judge_from")
     periods = periods.join(b.select("building_id", "station_id"), on="building_id", how="left",
                            maintain_order="left")
     period_hdd: _PeriodHdd | np.ndarray
@@ -587,6 +618,8 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
             pl.Series("hdd_per_day_fit", period_hdd.at(nearest_base(grid, base)) / periods["days"].to_numpy()))
     hdd65 = cube.at_base(st, spans["span_start"], spans["span_end"], np.full(len(st), 65.0))[0]
     exp = env.expected_heating(envelope, grid, span_hdd, hdd_fixed_base=hdd65, n_draws=a["draws"], seed=a["seed"])
+    if learned is not None and bool(learned["applied"].any()):  # issue 17: the defaults corrected by the audits
+        exp = _apply_bias(exp, b, envelope, learned)
     lap("expected")
     hdd_bal = cube.at_base(st, spans["span_start"], spans["span_end"], envelope["balance_point_f"].to_numpy())[0]
 
@@ -692,18 +725,86 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
           for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")])
     if plan_context is not None:  # issue 17: events.plan_context (audits that found nothing, confirmed findings)
         frame = frame.join(plan_context, on="building_id", how="left", maintain_order="left")
+        if "_measure_in_years" in frame.columns:  # the drop after a measure is savings, not a change on last year
+            no_yoy = pl.col("_measure_in_years").fill_null(False)
+            frame = frame.with_columns([pl.when(no_yoy).then(None).otherwise(pl.col(c)).alias(c)
+                                        for c in ("yoy_change", "prev_normal_heating_kbtu") if c in frame.columns])
     part.savings = None
     if events is not None:  # savings after a measure (issue 17): screening/events.py, screening/savings.py
         from . import events as ev
         sc = cfg["savings"]
-        part.savings = ev.measure_savings(conv, b, cube, normals, grid,
-                                          events.filter(pl.col("building_id").is_in(b["building_id"].implode())),
-                                          _prices(b, cfg), window_end=we, blackout_days=sc["blackout_days"],
-                                          min_periods=sc["baseline_min_periods"], cv_max=sc["cv_rmse_max"],
-                                          nmbe_max=sc["nmbe_max"])
+        part.savings, part.savings_periods = ev.savings_with_periods(
+            conv, b, cube, normals, grid, events.filter(pl.col("building_id").is_in(b["building_id"].implode())),
+            _prices(b, cfg), window_end=we, blackout_days=sc["blackout_days"],
+            min_periods=sc["baseline_min_periods"], cv_max=sc["cv_rmse_max"], nmbe_max=sc["nmbe_max"])
         lap("savings")
     part.frame, part.issues, part.periods, part.envelope, part.rejects = frame, issues_df, periods, envelope, rejects
     return part
+
+
+_AUDITED = ("ua_total_btu_h_f", "heating_efficiency", "balance_point_f")
+
+
+def _audit_bias(b: pl.DataFrame, min_audits: int) -> pl.DataFrame | None:
+    """The defaults' bias per era x use type from the buildings' audited values (``learning.audit_bias``);
+    None when no building has one. The defaults are the envelope estimate with the audited values left out."""
+    from . import learning
+    cols = [c for c in _AUDITED if c in b.columns]
+    if not cols or not bool(b.select(pl.any_horizontal([pl.col(c).is_not_null() for c in cols])).to_series().any()):
+        return None
+    envelope = env.estimate_envelope(b)
+    dflt = env.estimate_envelope(b.with_columns([pl.lit(None, dtype=pl.Float64).alias(c) for c in cols]))
+    given = b.select("building_id", *[pl.col(c).cast(pl.Float64) if c in cols else pl.lit(None, dtype=pl.Float64)
+                                      .alias(c) for c in _AUDITED]).join(
+        envelope.select("building_id", "era", "use_type"), on="building_id", how="inner")
+    return learning.audit_bias(given, dflt, min_audits=min_audits)
+
+
+def _apply_bias(exp: pl.DataFrame, b: pl.DataFrame, envelope: pl.DataFrame, learned: pl.DataFrame) -> pl.DataFrame:
+    """The expected heating of buildings without their own audited UA or efficiency, times the learned factor."""
+    from . import learning
+    eff_given = (b.select("building_id", pl.col("heating_efficiency").is_not_null().alias("efficiency_given"))
+                 if "heating_efficiency" in b.columns else b.select("building_id", pl.lit(False).alias("efficiency_given")))
+    fr = envelope.select("building_id", "era", "use_type", pl.col("ua_parts_scaled").alias("ua_given")).join(
+        eff_given, on="building_id", how="left", maintain_order="left").with_columns(pl.col("efficiency_given").fill_null(False))
+    f = learning.expectation_factors(fr, learned)["learned_factor"]
+    cols = [c for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu", "expected_point_kbtu",
+                        "expected_fixed_base_kbtu", "expected_modified_kbtu") if c in exp.columns]
+    return exp.with_columns([pl.col(c) * f for c in cols])
+
+
+def _post_measure_spans(conv: pl.DataFrame, spans: pl.DataFrame, ctx: pl.DataFrame, window_end: _dt.date, *,
+                        lookback_months: int, min_coverage: float,
+                        fill_end_days: int) -> tuple[pl.DataFrame, pl.DataFrame]:
+    """The spans of buildings judged on their post-measure days (``events.plan_context`` ``_judge_from``).
+
+    Each such span becomes ``[_judge_from, window_end]`` when the bills cover it (rule 1 of
+    ``metered.choose_spans`` on that window, the filled end included). A building whose bills do not
+    keeps its 12-month span and is held off the plan (``_measure_recent``), its note saying why.
+    """
+    jf = ctx.filter(pl.col("_judge_from").is_not_null()).select("building_id", "_judge_from")
+    if jf.height == 0:
+        return spans, ctx
+    new = []
+    for (day,), grp in jf.group_by("_judge_from", maintain_order=True):  # one call per measure day, not per building
+        ids = grp["building_id"]
+        s = metered.choose_spans(conv.filter(pl.col("building_id").is_in(ids.implode())), day, window_end,
+                                 lookback_months=lookback_months, min_coverage=min_coverage, building_ids=ids,
+                                 fill_end_days=fill_end_days)
+        new.append(s.filter(pl.col("span_kind") == "window").select(spans.columns))
+    cut = pl.concat(new).cast(spans.schema)
+    ok = cut["building_id"].implode()
+    spans = pl.concat([spans.filter(~pl.col("building_id").is_in(ok)), cut]).sort("building_id")
+    failed = pl.col("_judge_from").is_not_null() & ~pl.col("building_id").is_in(ok)
+    ctx = ctx.with_columns(
+        pl.when(failed).then(pl.lit(True)).otherwise(pl.col("_measure_recent")).alias("_measure_recent"),
+        pl.when(failed).then(pl.lit("measure of ") + pl.col("_measure_date").cast(pl.String)
+                             + pl.lit(": the bills do not cover every day from ") + pl.col("_judge_from").cast(pl.String)
+                             + pl.lit(f" to {window_end}, so it is not judged on its post-measure days and not planned "
+                                      "on the mixed 12 months (its savings are in savings.csv)"))
+        .otherwise(pl.col("plan_note")).alias("plan_note"),
+    ).with_columns(pl.when(failed).then(None).otherwise(pl.col("_judge_from")).alias("_judge_from"))
+    return spans, ctx
 
 
 def _check_normal_years(normals, b: pl.DataFrame, weather: pl.DataFrame, ny: list[int]) -> None:

@@ -1340,6 +1340,8 @@ def render_ranking(report: dict[str, Any], out_path: Path, *, paper: str = "Lett
         raise ValueError(f"report must be a dict, got {type(report).__name__}")
     out_path = Path(out_path)
     view = ranking_view(report, paper)
+    from .savings_page import savings_view  # the savings page (issue 17), when the report has "savings"
+    view["savings"] = savings_view(report)
     title = f"Heating screening ranking, run {view['run']['run_id']}"
     html = _state()["env"].get_template("ranking.html.j2").render(
         v=view, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__, columns=_COLUMN_CSS)

@@ -314,7 +314,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             plan_ctx = evmod.plan_context(events, then, window_end=window[1],
                                           rest_quarters=cfg["plan"]["clean_audit_rest_quarters"],
                                           regrow=cfg["plan"]["clean_audit_regrow"],
-                                          blackout_days=cfg["savings"]["blackout_days"])
+                                          blackout_days=cfg["savings"]["blackout_days"], window_start=window[0],
+                                          judge_min_days=cfg["savings"]["post_measure_min_days"])
         store.close()  # phase 2: the database stays free for readers
         store = None
         bar.stage("screen")
@@ -351,10 +352,15 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
                            rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"],
                            plan=plan)
         summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev[0][1] if prev else None)
+        if res.learning is not None:  # learning from audits (issue 17): the defaults' bias per era x use type
+            from . import learning
+            summary["audit_bias"] = learning.bias_summary(res.learning, cfg["learning"]["min_audits"])
+        savings_csv = None
         if res.savings is not None:  # savings after a measure (issue 17)
             from . import events as evmod
-            outputs.write_csv(evmod.savings_table(res.savings, si=disp.si, currency=cfg["prices"]["currency"],
-                                                  kbtu_to_kwh=outputs.KBTU_TO_KWH), tmp / "savings.csv")
+            savings_csv = evmod.savings_table(res.savings, si=disp.si, currency=cfg["prices"]["currency"],
+                                              kbtu_to_kwh=outputs.KBTU_TO_KWH)
+            outputs.write_csv(savings_csv, tmp / "savings.csv")
             summary["savings"] = evmod.savings_totals(res.savings, si=disp.si, kbtu_to_kwh=outputs.KBTU_TO_KWH)
             if events is not None and then is not None:
                 summary["audit_hit_rate"] = evmod.hit_rate(events, then)
@@ -370,8 +376,14 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         if cfg["output"]["sheets"]:
             bar.stage("render sheets")
             t = time.perf_counter()
+            since = None
+            if res.savings is not None and res.savings_periods is not None and events is not None:
+                from . import events as evmod
+                since = evmod.since_measure(res.savings, res.savings_periods, events, si=disp.si,
+                                            currency=cfg["prices"]["currency"], kbtu_to_kwh=outputs.KBTU_TO_KWH)
             sheets = outputs.sheet_records(res.results, res.envelope, res.periods, disp, run_id=run_key,
-                                           run_date=str(_dt.date.today()), currency=cfg["prices"]["currency"])
+                                           run_date=str(_dt.date.today()), currency=cfg["prices"]["currency"],
+                                           since_measure=since)
             (tmp / "sheets").mkdir()
             names = report.assign_filenames([s["building_id"] for s in sheets])
             report.render_sheets(sheets, tmp / "sheets", paper=paper, workers=_workers(cfg["output"]["workers"]))
@@ -384,7 +396,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         t = time.perf_counter()
         report.render_ranking(outputs.ranking_report(ranking, res.results, summary, disp,
                                                      currency=cfg["prices"]["currency"],
-                                                     max_rows=cfg["output"]["ranking_pdf_rows"]),
+                                                     max_rows=cfg["output"]["ranking_pdf_rows"],
+                                                     savings=savings_csv),
                               tmp / "ranking.pdf", paper=paper)
         timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
         from .webpage import write_index
@@ -408,7 +421,8 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             store.execute("delete_rejects_of_run", {"run_id": run_id})
             store.execute("insert_rejects", {"run_id": run_id}, stage_rejects=rejects)
             store.execute("record_publishing", {
-                "run_id": run_id, "input_hashes": json.dumps({f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads}),
+                "run_id": run_id, "input_hashes": json.dumps({f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads}
+                                                             | _events_hashes(files.get("events") or [])),
                 "versions": json.dumps(summary["versions"]), "timings": json.dumps(timings),
                 "counts": json.dumps(summary["counts"]), "out_dir": published.folder_key(target, store),
                 "files": json.dumps(files_written, sort_keys=True)})
@@ -765,15 +779,31 @@ def _interrupted(exc: Interrupted, run_id: str, store: Store | None, db_path, ha
 
 def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: bool = True,
          progress: bool = False) -> RunResult:
-    """Screen the packaged sample portfolio into ``out_dir`` (its own database inside)."""
+    """Screen the packaged sample portfolio into ``out_dir`` (its own database inside).
+
+    The sample's events file (audits, measures) goes with it. The quarter two before is screened first,
+    without sheets, into ``out_dir/<its quarter>/``: the audits of the events acted on its list, so the
+    list's hit rate and ``ddscreen history`` have an earlier run to refer to.
+    """
     src = sample_portfolio_dir()
     out = Path(out_dir)
     overrides = {"inputs": {"buildings": str(src / "buildings.csv"), "readings": str(src / "readings.csv"),
-                            "weather": str(src / "weather.csv")},
+                            "weather": str(src / "weather.csv"), "events": str(src / "events.csv")},
                  "store": {"database": str(out / "screening.duckdb")},
                  "analysis": {"as_of": as_of}, "output": {"sheets": sheets}}
     out.mkdir(parents=True, exist_ok=True)
     return _demo_run(overrides, out, progress=progress)
+
+
+def _demo_earlier(overrides: dict, out: Path, *, progress: bool) -> None:
+    """The demo's earlier run: two quarters before ``as_of``, no sheets, into ``out/<its quarter label>``."""
+    as_of = _dt.date.fromisoformat(overrides["analysis"]["as_of"])
+    m = as_of.month - 6
+    earlier = _dt.date(as_of.year + (m - 1) // 12, (m - 1) % 12 + 1, min(as_of.day, 28))
+    ov = {**overrides, "analysis": {**overrides["analysis"], "as_of": str(earlier)},
+          "output": {**overrides["output"], "sheets": False}}
+    _, window = cfgmod.run_window(cfgmod.load(None, ov))
+    run(overrides=ov, out_dir=str(out / quarter_label(window[1])), force=True, quiet=True, progress=progress)
 
 
 # Every top-level name a run writes into its output folder (tests/test_unattended.py checks
@@ -798,6 +828,8 @@ def _demo_run(overrides: dict, out: Path, *, progress: bool = False) -> RunResul
                           "(choose another --out folder)")
     if tmp_out.exists():
         shutil.rmtree(tmp_out)  # what a killed demo left
+    if overrides["inputs"].get("events"):
+        _demo_earlier(overrides, out, progress=progress)
     res = run(overrides=overrides, out_dir=str(tmp_out), force=True, progress=progress)
     for p in tmp_out.iterdir():
         dest = out / p.name
@@ -845,12 +877,13 @@ class Validation:
 
 
 def validate(buildings: str | None = None, readings: str | None = None, weather: str | None = None, *,
-             config_path: str | None = None, overrides: dict | None = None) -> Validation:
-    """Check the three kinds of file; report every problem; load nothing.
+             config_path: str | None = None, overrides: dict | None = None, events: str | None = None) -> Validation:
+    """Check the three kinds of file, and an events file when given; report every problem; load nothing.
 
     A kind not given here is taken from the config's ``[inputs]`` (a glob: every file it matches, each
     checked on its own; the checks across files, such as readings of unknown buildings, then run only
-    when each kind is one file, and ``run`` makes them in any case).
+    when each kind is one file, and ``run`` makes them in any case). The events file, too, is the
+    config's when not given.
     """
     cfg = cfgmod.load(config_path, overrides)
     opts = pipeline.read_options(cfg)
@@ -890,7 +923,21 @@ def validate(buildings: str | None = None, readings: str | None = None, weather:
                                            steam_btu_per_lb=cfg["analysis"]["steam_btu_per_lb"])
         rejects.append(conv_rej.select(pl.lit(readings).alias("file"), "line", "column",
                                        pl.col("value").cast(pl.String), "reason").cast(REJECT_SCHEMA))
-    order = {str(p): i for i, p in enumerate(p for v in paths.values() for p in v)}
+    events = events or cfg["inputs"]["events"] or None
+    ev_paths = _expand(events, "events") if events else []
+    for path in ev_paths:  # issue 16/17: the events file, against the accepted buildings when they were read
+        from . import events as evmod
+        try:
+            ld = evmod.read_events(path, opts, loaded["buildings"].df["building_id"] if "buildings" in loaded else None)
+        except InputError as exc:
+            problems.append(str(exc))
+            if exc.problem == "missing required column":
+                suggestions.extend(_mapping_suggestion("events", path, opts))
+            continue
+        rows["events"] = rows.get("events", 0) + ld.df.height
+        notices.extend(ld.notices)
+        rejects.append(ld.rejects.cast(REJECT_SCHEMA))
+    order = {str(p): i for i, p in enumerate([*(p for v in paths.values() for p in v), *ev_paths])}
     if rejects:
         allrej = pl.concat(rejects).with_columns(pl.col("file").replace_strict(order, default=9).alias("_k")) \
             .sort("_k", "line", "column")
@@ -933,8 +980,14 @@ def status(db_path: str, limit: int = 10) -> pl.DataFrame:
         return _as_seen(store, db_path, store.frame("list_runs", {"limit": limit}))
 
 
-def history(db_path: str, run_a: str | None = None, run_b: str | None = None) -> tuple[pl.DataFrame, pl.DataFrame | None]:
-    """The list of runs, and the difference between two runs (default: the last two successful)."""
+def history(db_path: str, run_a: str | None = None, run_b: str | None = None,
+            events: list[str] | None = None) -> tuple[pl.DataFrame, pl.DataFrame | None]:
+    """The list of runs, and the difference between two runs (default: the last two successful).
+
+    The difference gains ``events``: per building, the events dated after the older run's window
+    and up to the newer run's (issue 17), one text, from ``events`` (paths or globs) or else the
+    events files the newer run recorded (when they are still there); null where none.
+    """
     with _read_store(db_path) as store:
         runs = _as_seen(store, db_path, store.frame("list_runs", {"limit": 1000}))
         ok = runs.filter(pl.col("status") == "ok")["run_id"].to_list()
@@ -948,7 +1001,22 @@ def history(db_path: str, run_a: str | None = None, run_b: str | None = None) ->
             run_a, run_b = (_resolve_run(store, db_path, rid) for rid in (run_a, run_b))
         old = store.frame("results_of_run", {"run_id": run_a})
         new = store.frame("results_of_run", {"run_id": run_b})
-        return runs, diff_results(old, new)
+        (_, end_a), = store.rows("run_inputs", {"run_id": run_a})
+        (recorded, end_b), = store.rows("run_inputs", {"run_id": run_b})
+    diff = diff_results(old, new)
+    paths = [p for pat in events for p in _expand(pat, "events")] if events else \
+        [k.split(":", 1)[1] for k in json.loads(recorded or "{}") if k.startswith("events:")]
+    paths = [p for p in paths if Path(p).is_file()]
+    if not paths:
+        return runs, diff.with_columns(pl.lit(None, dtype=pl.String).alias("events"))
+    from . import events as evmod
+    ev, _rej, _notes = evmod.read_all(paths, pipeline.ReadOptions(), None)
+    return runs, diff.join(evmod.events_between(ev, end_a, end_b), on="building_id", how="left")
+
+
+def _events_hashes(paths: list[str]) -> dict[str, str]:
+    """The events files of a run for its record (``events:<path>`` → sha256), so history can find them."""
+    return {f"events:{p}": pipeline.file_sha256(p) for p in paths if Path(p).is_file()}
 
 
 def _resolve_run(store: Store, db_path, rid: str) -> str:

@@ -29,6 +29,7 @@ from . import charts, screen
 from .outputs import Display
 from .report import STANDARD_CAUTION, fmt_money, fmt_num, fmt_pct, fmt_ratio
 from .resources import templates_dir
+from .savings_page import hit_rate_lines
 
 #: What the page's "look for" column says when the evidence names no mechanism but the use rose.
 STEP_UP_KIND = "what changed"
@@ -139,6 +140,7 @@ def page_view(summary: dict[str, Any], plan: pl.DataFrame, results: pl.DataFrame
                    ("of which this quarter's audit plan",
                     fmt_money(totals.get("audit_plan_expected_recoverable_cost"), currency))],
         "plan": plan_rows, "currency": currency, "energy_unit": disp.energy_unit,
+        "hit_rate": hit_rate_lines(summary),   # issue 17: the list's own hit rate (None without audits)
     }
 
 

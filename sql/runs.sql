@@ -106,3 +106,7 @@ SELECT building_id, audit_date, in_plan, cost_then, mechanism_then FROM (
   WHERE u.status = 'ok' AND u.window_end < a.audit_date
 ) WHERE k = 1
 ORDER BY building_id, audit_date;
+
+-- name: run_inputs
+-- The input files a run recorded (JSON {"kind:path": sha256}), with its window's end (ddscreen history, issue 17).
+SELECT input_hashes, window_end FROM runs WHERE run_id = $run_id;

@@ -3,6 +3,7 @@ optional on a run, and a measure's savings in savings.csv and summary.json."""
 
 from __future__ import annotations
 
+import datetime as dt
 import json
 
 import polars as pl
@@ -182,17 +183,143 @@ def test_the_hit_rate_counts_exactly(portfolio, tmp_path):
     assert sum(v["audited"] for v in h["by_mechanism"].values()) == 2
 
 
-def test_a_recent_measure_is_not_planned_on_months_that_mix_before_and_after(portfolio, tmp_path):
+def test_a_measure_in_the_window_is_judged_on_the_days_after_it(portfolio, tmp_path):
     base, _ = _run_lib(portfolio, tmp_path, AS_OF, name="plain")
     assert dict(zip(base["building_id"], base["tier"]))["B03"] == "Audit first"
-    # window 2024-01-01..2024-12-31; 2024-06-01 + 30 days blackout + 12 months is after the window: mixed
+    # window 2024-01-01..2024-12-31; 2024-06-01 + 30 days blackout leaves 184 days (≥ 180): judged on them
     p = _write(tmp_path, HEADER + "B03,2024-05-01,audit,confirmed,controls,,,\nB03,2024-06-01,measure,,controls,,,\n")
-    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="recent")
-    assert dict(zip(ranked["building_id"], ranked["tier"]))["B03"] != "Audit first"
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="judged")
+    b03 = ranked.filter(pl.col("building_id") == "B03").row(0, named=True)
+    assert (b03["period_start"], b03["period_end"]) == ("2024-07-01", "2024-12-31")
+    assert b03["yoy_change"] is None
+    # the test portfolio's B03 wastes all year (conftest): a measure that changed nothing leaves it on the plan
+    assert b03["tier"] == "Audit first"
+    # (six bills and half a year of weather instead of twelve: the ratio is near, not equal)
+    assert b03["ratio"] == pytest.approx(dict(zip(base["building_id"], base["ratio"]))["B03"], rel=0.15)
     (note,) = [n["note"] for n in summ["plan_notes"] if n["building_id"] == "B03"]
-    assert note.startswith("measure of 2024-06-01") and "12 months from 2024-07-01" in note
-    # a measure whose 12 months after the blackout end by the window's end: judged as usual
+    assert note.startswith("measure of 2024-06-01: judged on the 184 days from 2024-07-01 to 2024-12-31")
+    assert note in b03["verdict"]
+    # the other buildings are judged as before
+    keep = ~pl.col("building_id").is_in(["B03"])
+    assert ranked.filter(keep).select("building_id", "period_start", "ratio").sort("building_id").equals(
+        base.filter(keep).select("building_id", "period_start", "ratio").sort("building_id"))
+
+
+def test_a_measure_too_recent_to_judge_on_is_not_planned_on_months_that_mix(portfolio, tmp_path):
+    base, _ = _run_lib(portfolio, tmp_path, AS_OF, name="plain")
+    # 2024-08-01 + 30 days leaves 123 days (< [savings] post_measure_min_days 180): not planned on the mix
+    p = _write(tmp_path, HEADER + "B03,2024-05-01,audit,confirmed,controls,,,\nB03,2024-08-01,measure,,controls,,,\n")
+    ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="recent")
+    b03 = ranked.filter(pl.col("building_id") == "B03").row(0, named=True)
+    assert b03["tier"] != "Audit first" and b03["period_start"] == "2024-01-01"
+    (note,) = [n["note"] for n in summ["plan_notes"] if n["building_id"] == "B03"]
+    assert note.startswith("measure of 2024-08-01") and "from 2024-08-31 once 180 days" in note
+    # a measure before the window: its 12 months are all after it, no change on last year is computed
     p = _write(tmp_path, HEADER + "B03,2023-11-01,measure,,controls,,,\n", name="old.csv")
     ranked, summ = _run_lib(portfolio, tmp_path, AS_OF, p, name="old")
-    assert ranked.select("building_id", "tier", "rank").equals(base.select("building_id", "tier", "rank"))
-    assert summ["plan_notes"] == []
+    assert ranked.select("building_id", "tier").equals(base.select("building_id", "tier"))
+    assert ranked.filter(pl.col("building_id") == "B03")["yoy_change"].to_list() == [None]
+    assert [n["building_id"] for n in summ["plan_notes"]] == ["B03"]
+    assert "no change on last year is computed" in summ["plan_notes"][0]["note"]
+
+
+def test_the_sheet_records_carry_the_since_the_measure_data(portfolio, tmp_path, monkeypatch):
+    from screening import report
+    seen: list[dict] = []
+
+    def capture(sheets, out_dir, **kw):  # the records the sheets would render (rendering is report.py's test)
+        seen.extend(sheets)
+    monkeypatch.setattr(report, "render_sheets", capture)
+    p = _write(tmp_path, HEADER + "B01,2024-01-01,measure,,controls,new boiler controls,,9000\n")
+    inputs = {"buildings": str(portfolio.buildings), "readings": str(portfolio.readings),
+              "weather": str(portfolio.weather), "events": str(p)}
+    runner.run(overrides={"inputs": inputs, "store": {"database": str(tmp_path / "s.duckdb")},
+                          "analysis": {"as_of": AS_OF}, "output": {"sheets": True}},
+               out_dir=str(tmp_path / "out"), force=True, quiet=True)
+    by_id = {r["building_id"]: r for r in seen}
+    assert set(by_id) >= {"B01", "B02"}
+    assert all(r["since_measure"] is None for b, r in by_id.items() if b != "B01")
+    box = by_id["B01"]["since_measure"]
+    assert box["event_date"] == "2024-01-01" and box["description"] == "new boiler controls"
+    assert box["energy_unit"] == "kBtu" and box["currency"] == "$"
+    per = box["periods"]
+    assert len(per) >= 10 and per[0]["start"] >= "2024-01-31" and per[-1]["end"] <= "2024-12-31"
+    assert [p["start"] for p in per] == sorted(p["start"] for p in per)
+    # the periods add up to the avoided energy; the interval holds it; savings.csv says the same
+    assert sum(p["baseline"] - p["metered"] for p in per) == pytest.approx(box["avoided_energy"], abs=1e-6)
+    assert box["avoided_low_90"] <= box["avoided_energy"] <= box["avoided_high_90"]
+    row = pl.read_csv(tmp_path / "out" / "savings.csv").row(0, named=True)
+    assert box["avoided_energy"] == pytest.approx(row["avoided_energy"], abs=0.06)
+    assert box["avoided_high_90"] == pytest.approx(row["avoided_high_90"], abs=0.06)
+    # the test portfolio's bills follow the model exactly (conftest): the projection is the metered use
+    assert all(p["baseline"] == pytest.approx(p["metered"], rel=1e-3) for p in per)
+    assert box["cost"] == pytest.approx(row["avoided_cost"], abs=0.01)
+
+
+def test_since_measure_in_si_units(tmp_path):
+    s = pl.DataFrame({"building_id": ["A"], "event_date": [dt.date(2024, 1, 1)], "avoided_kbtu": [100.0],
+                      "avoided_u90_kbtu": [30.0], "usd_per_kbtu": [0.02]})
+    per = pl.DataFrame({"building_id": ["A", "A"], "event_date": [dt.date(2024, 1, 1)] * 2,
+                        "period_start": [dt.date(2024, 2, 1), dt.date(2024, 3, 1)],
+                        "period_end": [dt.date(2024, 2, 29), dt.date(2024, 3, 31)],
+                        "baseline_kbtu": [500.0, 400.0], "metered_kbtu": [450.0, 350.0]})
+    ev = pl.DataFrame({"building_id": ["A"], "date": [dt.date(2024, 1, 1)], "kind": ["measure"],
+                       "description": [None]}, schema_overrides={"description": pl.String})
+    box = events.since_measure(s, per, ev, si=True, currency="€", kbtu_to_kwh=0.29307107)["A"]
+    # 1 kBtu = 0.29307107 kWh (1 Btu_IT = 1055.05585262 J, ISO 80000-5 / NIST SP 811)
+    assert box["avoided_energy"] == pytest.approx(29.307107)
+    assert (box["avoided_low_90"], box["avoided_high_90"]) == pytest.approx((70 * 0.29307107, 130 * 0.29307107))
+    assert box["periods"][0] == {"start": "2024-02-01", "end": "2024-02-29", "baseline": pytest.approx(146.535535),
+                                 "metered": pytest.approx(131.8819815)}
+    assert box["cost"] == pytest.approx(2.0) and box["currency"] == "€" and box["description"] == ""
+    assert box["energy_unit"] == "kWh"
+
+
+def test_history_shows_the_events_between_the_two_runs_beside_the_changes(portfolio, tmp_path):
+    p = _write(tmp_path, HEADER + "B03,2024-03-01,audit,confirmed,controls,valves stuck open,,\n"
+               "B02,2024-11-05,audit,none_found,,nothing found,,\n"
+               "B03,2024-11-20,measure,,controls,new valves,,5000\n"
+               "B01,2025-02-01,vacancy,,,after both windows,,\n")
+    _run_lib(portfolio, tmp_path, "2024-10-15", p, name="q3")    # window ends 2024-09-30
+    _run_lib(portfolio, tmp_path, AS_OF, p, name="q4")           # window ends 2024-12-31
+    db = str(tmp_path / "s.duckdb")
+    runs, diff = runner.history(db)
+    ev = dict(zip(diff["building_id"], diff["events"]))
+    # only what happened after the older window and up to the newer one, in date order
+    assert ev["B02"] == "2024-11-05 audit: none_found – nothing found"
+    assert ev["B03"] == "2024-11-20 measure: (controls) – new valves"
+    assert ev["B01"] is None
+    # the newer run recorded its events file; another one can be given
+    other = _write(tmp_path, HEADER + "B01,2024-12-01,operation,,,boiler serviced,,\n", name="other.csv")
+    ev2 = dict(zip(*runner.history(db, events=[str(other)])[1].select("building_id", "events")))
+    assert ev2["B01"] == "2024-12-01 operation: boiler serviced" and ev2["B03"] is None
+    out = cli(["history", "--db", db]).stdout
+    assert "events: 2024-11-05 audit: none_found – nothing found" in out
+    assert out.count("events:") == 2
+
+
+def test_validate_checks_an_events_file_and_suggests_a_mapping(portfolio, tmp_path):
+    base = ["validate", "--buildings", str(portfolio.buildings), "--readings", str(portfolio.readings),
+            "--weather", str(portfolio.weather)]
+    good = _write(tmp_path, HEADER + "B01,2024-01-01,measure,,controls,new controls,,9000\n"
+                  "B02,2024-02-01,audit,maybe,,,,\nB77,2024-02-01,audit,,,,,\n")
+    r = cli([*base, "--events", str(good)])
+    assert r.exit_code == 2
+    assert f"{good}, line 3, column 'finding'" in r.stdout and "(got 'maybe')" in r.stdout
+    assert f"{good}, line 4, column 'building_id'" in r.stdout and "unknown building" in r.stdout
+    assert "events 1 rows accepted" in r.stdout
+    # their own column names: a mapping is suggested; with it (--columns or the config) the file reads
+    theirs = _write(tmp_path, "Building,Visit date,Event type,Notes\nB01,2024-01-01,measure,new controls\n",
+                    name="theirs.csv")
+    r = cli([*base, "--events", str(theirs)])
+    assert r.exit_code == 2 and "[inputs.columns.events]" in r.stdout
+    assert '"Building" = "building_id"' in r.stdout and '"Visit date" = "date"' in r.stdout
+    assert '"Event type" = "kind"' in r.stdout
+    mapping = "events:Building=building_id,Visit date=date,Event type=kind,Notes=description"
+    r = cli([*base, "--events", str(theirs), "--columns", mapping])
+    assert r.exit_code == 0, r.stdout
+    res = _run(portfolio, tmp_path, "--events", str(theirs), "--columns", mapping)
+    assert res.exit_code == 0, res.output
+    assert pl.read_csv(tmp_path / "out" / "savings.csv")["building_id"].to_list() == ["B01"]
+    with pytest.raises(config.ConfigError, match="unknown file kind; expected buildings, readings, weather or events"):
+        config.check_columns({"audits": {"a": "b"}})

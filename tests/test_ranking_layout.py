@@ -134,3 +134,56 @@ def test_first_page_shows_one_run_id_one_co2e_unit_and_the_excess_definition(run
     ratios = pl.read_csv(runs[paper].with_name("ranking.csv"))["ratio"].drop_nulls()
     note = f"last bar: ratio 3 and above, {(ratios >= 2.95).sum()} building(s) of the {ratios.len()} plotted"
     assert note.replace(" ", "") in "".join(first.split())      # chart text comes out without blanks
+
+
+def test_the_savings_page_shows_the_measures_the_total_and_the_hit_rate(runs):
+    demo = runs["Letter"]
+    summary = json.loads(demo.with_name("summary.json").read_text())
+    saved = pl.read_csv(demo.with_name("savings.csv"))
+    with pdfplumber.open(demo) as pdf:
+        last = pdf.pages[-1].extract_text()
+        other = " ".join(p.extract_text() for p in pdf.pages[:-1])
+    assert last.startswith("Savings after measures") and "Savings after measures" not in other
+    for r in saved.iter_rows(named=True):   # each measure: id, avoided energy and its 90 % interval as in savings.csv
+        line = next(ln for ln in last.splitlines() if ln.startswith(r["building_id"]))
+        assert report.fmt_num(r["avoided_energy"]) in line
+        assert f"{report.fmt_num(r['avoided_low_90'])} to {report.fmt_num(r['avoided_high_90'])}" in line
+        assert report.fmt_money(r["avoided_cost"]) in line
+    tot = summary["savings"]
+    assert report.fmt_num(tot["avoided_energy"]) in last and f"± {report.fmt_num(tot['avoided_u90'])}" in last
+    hr = summary["audit_hit_rate"]
+    assert f"{hr['confirmed']} of {hr['audited_from_plan']} confirmed a finding" in last
+    for q, g in hr["by_quarter"].items():
+        assert f"{q} {g['confirmed']} / {g['audited']}" in last
+    # the page's totals are those of the measures meeting the Guideline 14 limits, in quadrature
+    ok = saved.filter(pl.col("meets_guideline14"))
+    u90 = ((ok["avoided_high_90"] - ok["avoided_energy"]) ** 2).sum() ** 0.5
+    assert abs(u90 - tot["avoided_u90"]) < 0.2
+
+
+def test_the_portfolio_page_shows_the_hit_rate(runs):
+    from html.parser import HTMLParser
+    demo = runs["Letter"]
+    hr = json.loads(demo.with_name("summary.json").read_text())["audit_hit_rate"]
+
+    class Section(HTMLParser):   # the text inside <section id="hit-rate">
+        depth, text = 0, []
+
+        def handle_starttag(self, tag, attrs):
+            if self.depth or (tag == "section" and ("id", "hit-rate") in attrs):
+                self.depth += tag == "section"
+
+        def handle_endtag(self, tag):
+            if self.depth and tag == "section":
+                self.depth -= 1
+
+        def handle_data(self, data):
+            if self.depth:
+                self.text.append(data)
+    p = Section()
+    p.feed(demo.with_name("index.html").read_text(encoding="utf-8"))
+    text = " ".join(" ".join(p.text).split())
+    assert f"{hr['confirmed']} of {hr['audited_from_plan']} confirmed a finding ({100 * hr['rate']:.0f} %)" in text
+    for groups in (hr["by_mechanism"], hr["by_quarter"]):
+        for k, g in groups.items():
+            assert f"{k} {g['confirmed']} / {g['audited']} ({100 * g['rate']:.0f} %)" in text

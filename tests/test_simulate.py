@@ -107,7 +107,7 @@ def test_result_does_not_depend_on_chunk_size():
 def test_committed_demo_files_match_the_generator(tmp_path):
     gen = _load("ddscreen_test_generate", SP / "generate.py")
     assert gen.main(["--out", str(tmp_path)]) == 0
-    for name in ("buildings", "readings", "weather", "truth"):
+    for name in ("buildings", "readings", "weather", "truth", "events"):
         assert (tmp_path / f"{name}.csv").read_bytes() == (SP / f"{name}.csv").read_bytes(), name
 
 
