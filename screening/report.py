@@ -261,9 +261,17 @@ def _ordinal(p) -> str:
 _BIDI_CONTROLS = re.compile(r"[\u202a-\u202e\u2066-\u2069]")
 
 
+#: Runs of more than two combining diacritical marks on one letter (U+0300-036F, U+1AB0-1AFF, U+1DC0-1DFF,
+#: U+20D0-20FF, U+FE20-FE2F): no written language stacks more (Vietnamese stacks two), and a tall stack
+#: would reach into the line above or below, so displayed text keeps the first two of a run.
+_MARK_RUN = re.compile(r"([\u0300-\u036f\u1ab0-\u1aff\u1dc0-\u1dff\u20d0-\u20ff\ufe20-\ufe2f]{2})"
+                       r"[\u0300-\u036f\u1ab0-\u1aff\u1dc0-\u1dff\u20d0-\u20ff\ufe20-\ufe2f]+")
+
+
 def _cut(text, n: int) -> str:
-    """Text for display: bidirectional controls removed, at most ``n`` characters (then "…")."""
-    text = _BIDI_CONTROLS.sub("", "" if text is None else str(text))
+    """Text for display: bidirectional controls removed, stacks of combining marks kept to two, at most
+    ``n`` characters (then "…")."""
+    text = _MARK_RUN.sub(r"\1", _BIDI_CONTROLS.sub("", "" if text is None else str(text)))
     return text if len(text) <= n else text[: n - 1].rstrip() + "…"
 
 
@@ -477,11 +485,15 @@ def owner_verdict(s: dict[str, Any]) -> str:
 def owner_steps(s: dict[str, Any], n: int) -> tuple[list[str], int]:
     """What to do next, plain: the data step names no code (the issues are listed in the engineer's block)."""
     steps = []
+    issues = [x for x in s.get("data_issues") or [] if x.get("code") != "end_days_filled"]
+    first = next((x for x in issues if x.get("blocking")), issues[0] if issues else None)
     for t in s.get("next_steps") or []:
         t = str(t)
         if t.startswith("Check the data first:"):
-            t = ("Fix the data first: correct the readings or the building's record (each problem is described "
-                 "under 'Data issues' below), then run the screening again.")
+            what = str(first.get("explanation") or "").rstrip(".") if first else ""
+            more = f" (and {len(issues) - 1} more problem(s) under 'Data issues' below)" if len(issues) > 1 else ""
+            t = ("Fix the data first" + (f": {what}" if what else "") + more
+                 + ". Correct the readings or the building's record, then run the screening again.")
         steps.append(plain_text(t))
     return steps[:n], max(len(steps) - n, 0)
 
@@ -544,7 +556,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         span_start = str(s.get("period_start") or "")
         recent = [bool(span_start) and str(p.get("start") or "") >= span_start for p in periods]
         chart1 = charts.scatter_chart(xs, ys, fit_line=s.get("fit_line"), expected_line=s.get("expected_line"),
-                                      x_label="", y_label="", width=360, height=170, annotate=False,
+                                      x_label="", y_label="", width=360, height=150, annotate=False,
                                       recent=recent)
         dropped = sum(1 for x, y in zip(xs, ys) if not (_finite(x) and _finite(y)))
         chart1_title = "Heating use against the weather"
@@ -557,7 +569,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     else:
         annual = s.get("annual") or []
         chart1 = charts.annual_chart([str(a.get("year_label")) for a in annual], [a.get("metered") for a in annual],
-                                     [a.get("expected") for a in annual], y_label="", width=360, height=170,
+                                     [a.get("expected") for a in annual], y_label="", width=360, height=150,
                                      annotate=False)
         chart1_title = "Metered against expected heating, by year"
         chart1_axes = f"up: heating per year [{eu}]"
@@ -645,22 +657,28 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     bu = s.get("billed_unit")
     unit_w = _unit_words(bu, eu) if bu else eu
 
+    blocked_figs = bool(s.get("blocking"))
+    not_judged = "not judged until the data are fixed"
     figs = [
         ("fk", tabbed(["Heating used, 12 months", "Should need (middle)", "Above the expected range",
                        "Likely recoverable"], 30)),
-        ("fv", tabbed([billed_text(s, "actual_heating"), billed_text(s, "expected_heating"), billed_text(s, "excess"),
-                       fmt_money(s.get("expected_recoverable_cost"), cur)], 22)),
+        ("fv", tabbed([billed_text(s, "actual_heating"), billed_text(s, "expected_heating"),
+                       "not judged" if blocked_figs else billed_text(s, "excess"),
+                       "not judged" if blocked_figs else fmt_money(s.get("expected_recoverable_cost"), cur)], 22)),
         ("fu", tabbed([(f"{fmt_money(s.get('heating_cost'), cur)} · " if _finite(s.get("heating_cost")) else "")
                        + f"{fmt_num(s.get('actual_heating'))} {eu}",
                        f"range {fmt_num(s.get('expected_low_billed') if bu else s.get('expected_low'))} to "
                        f"{fmt_num(s.get('expected_high_billed') if bu else s.get('expected_high'))} {unit_w}",
+                       not_judged if blocked_figs else
                        f"{fmt_money(s.get('excess_cost'), cur)} a year · {fmt_num(s.get('excess_energy'))} {eu}",
+                       not_judged if blocked_figs else
                        f"a year · {billed_text(s, 'expected_recoverable')} · {rco2_v} {rco2_u} CO₂e"], 36)),
     ]
     scale = _SCALE_TEXT.get(s.get("evidence_scale"), "")
     if scale and s.get("evidence_scale") == "blend" and _finite(s.get("peer_weight")):
         scale = scale.format(pct=round(100 * s["peer_weight"]))
-    kind = plain_text(s.get("waste_kind") or "")
+    # a building whose data block a verdict has no kind of waste yet: its first step says what to fix
+    kind = "" if s.get("blocking") else plain_text(s.get("waste_kind") or "")
     steps, steps_more = owner_steps(s, lim["steps"])
     sc = s.get("scores") or {}
     scores_text = ""
@@ -670,11 +688,10 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
                        f"{fmt_num(sc.get('z_intensity'))}); year on year {fmt_pct(sc.get('yoy_change'))} "
                        f"(z {fmt_num(sc.get('z_yoy'))}).")
     scores_text += (f" Judged against {scale}." if scale else "")
-    scores_text += (f" Ratio metered / expected {fmt_ratio(s.get('ratio'))}, "
-                    f"{_BAND_TEXT.get(s.get('band_position'), 'band position n/a')}; normal-year heating "
-                    f"{fmt_num(s.get('normal_heating'))} {eu}; baseload {fmt_num(s.get('baseload'))} {eu}; "
-                    f"heating per degree day {fmt_num(s.get('heating_intensity'))} {s.get('intensity_unit', '')} "
-                    f"(peers' median {fmt_num(s.get('peer_median_intensity'))}).")
+    scores_text += (f" Metered / expected {fmt_ratio(s.get('ratio'))}, "
+                    f"{_BAND_TEXT.get(s.get('band_position'), 'band position n/a')}; normal year "
+                    f"{fmt_num(s.get('normal_heating'))} {eu}; {fmt_num(s.get('heating_intensity'))} "
+                    f"{s.get('intensity_unit', '')} (peers' median {fmt_num(s.get('peer_median_intensity'))}).")
     since = since_measure_view(s.get("since_measure"), eu)
     is_blocked = bool(s.get("blocking")) or s.get("tier") == "Fix data first"
     return {
