@@ -423,7 +423,7 @@ def confidence_line(s: dict[str, Any]) -> str:
     """How sure the screen is, as one plain sentence (no statistics): from the fit, the flags, the envelope
     inputs and the peers. Levels: fairly sure, moderately sure, not very sure; not yet where data block."""
     if s.get("blocking") or s.get("tier") == "Fix data first":
-        return "Not sure yet: a problem in the data must be fixed before the tool can judge this building."
+        return "How sure the tool is: not yet: a problem in the data must be fixed before it can judge this building."
     fit = s.get("fit") or {}
     codes = set(s.get("flag_codes") or [f.get("code") for f in s.get("flags") or []])
     good, bad = [], []

@@ -9,6 +9,7 @@ from __future__ import annotations
 import os
 import re
 import shutil
+import unicodedata
 
 import pdfplumber
 import pytest
@@ -97,8 +98,9 @@ def test_owner_half_has_no_statistics(kinds):
     for key, p in kinds["pages"].items():
         top = _engineer_top(p)
         owner = " ".join(w["text"] for w in p["words"] if w["bottom"] <= top)
-        for token in ("R²", "CV(RMSE)", "NMBE", "score", "UA", " z "):
-            assert token not in f" {owner} ", (key, token)
+        for token in ("R²", "CV(RMSE)", "NMBE", "score", "UA", "z"):
+            hit = re.search(rf"(?<![\w]){re.escape(token)}(?![\w])", owner)
+            assert hit is None, (key, token, owner[max(hit.start() - 60, 0):hit.end() + 20] if hit else "")
         assert "How sure the tool is:" in owner.replace("\n", " "), key
 
 
@@ -127,7 +129,7 @@ def test_billed_units_and_money_on_the_owner_half(kinds):
     assert "Worth an energy audit after this quarter" in flat["tier_2"]
     assert "Keep an eye on it" in flat["tier_3"]
     assert "No action needed" in flat["tier_4"]
-    assert "Fix the data first" in flat["tier_5"] and "Not sure yet" in flat["tier_5"]
+    assert "Fix the data first" in flat["tier_5"] and "How sure the tool is: not yet" in flat["tier_5"]
     assert "not judged" in flat["tier_5"]
     assert "148.377x the expectation" in flat["tier_5"]   # the issue in plain words in the first step
     assert "yearly totals" in flat["annual"]
@@ -165,7 +167,8 @@ def test_names_in_every_script_render_with_a_font_that_has_them(kinds):
 
 def test_stacked_marks_are_kept_to_two_and_do_not_reach_the_next_line(kinds):
     p = kinds["pages"]["name_stacked"]
-    assert "Ze\u0301\u0302 Hall" in p["text"] or "Zé̂ Hall" in p["text"]
     name_chars = [c for c in p["chars"] if c["size"] > 12]
-    meta_top = min(c["top"] for c in p["chars"] if c["size"] < 12 and c["top"] > max(x["top"] for x in name_chars))
+    assert "".join(c["text"] for c in name_chars if c["text"].isalpha()).startswith("ZeHall")
+    assert sum(1 for c in name_chars if unicodedata.combining(c["text"])) == 2   # of the nine given
+    meta_top = min(w["top"] for w in p["words"] if w["text"] == "id")   # the line under the name
     assert max(c["bottom"] for c in name_chars) <= meta_top + 0.5
