@@ -654,8 +654,6 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     def tabbed(fields, n):
         return "\t".join(_one_line(f, n) for f in fields)
 
-    bu = s.get("billed_unit")
-    unit_w = _unit_words(bu, eu) if bu else eu
 
     blocked_figs = bool(s.get("blocking"))
     not_judged = "not judged until the data are fixed"
@@ -667,8 +665,8 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
                        "not judged" if blocked_figs else fmt_money(s.get("expected_recoverable_cost"), cur)], 22)),
         ("fu", tabbed([(f"{fmt_money(s.get('heating_cost'), cur)} · " if _finite(s.get("heating_cost")) else "")
                        + f"{fmt_num(s.get('actual_heating'))} {eu}",
-                       f"range {fmt_num(s.get('expected_low_billed') if bu else s.get('expected_low'))} to "
-                       f"{fmt_num(s.get('expected_high_billed') if bu else s.get('expected_high'))} {unit_w}",
+                       # its range is in the verdict sentence above
+                       f"{fmt_num(s.get('expected_heating'))} {eu}",
                        not_judged if blocked_figs else
                        f"{fmt_money(s.get('excess_cost'), cur)} a year · {fmt_num(s.get('excess_energy'))} {eu}",
                        not_judged if blocked_figs else
