@@ -348,6 +348,9 @@ def _share_cell(share: str) -> str:
     return share.rjust(4, _FIGURE_SPACE)
 
 
+#: a key figure's column: a quarter of A4's content width (186 mm) less a 2 mm gap [pt]
+_FIG_COL_PT = (_CONTENT_MM["A4"] / 4 - 2) * 72 / 25.4
+
 _SCALE_TEXT: dict[str | None, str] = {"peers": "its peers' spread",
                                       "model band": "the model's own band (too few peers)",
                                       "blend": "a blend of its peers' spread ({pct} %) and the model's own band"}
@@ -478,8 +481,9 @@ def owner_verdict(s: dict[str, Any]) -> str:
         low, high = s.get("expected_low"), s.get("expected_high")
     unit = _unit_words(s.get("billed_unit"), s.get("energy_unit") or "") if s.get("billed_unit") and _finite(
         s.get("expected_low_billed")) else (s.get("energy_unit") or "")
+    need = (f"about {fmt_num(low)}" if fmt_num(low) == fmt_num(high) else f"{fmt_num(low)} to {fmt_num(high)}")
     return (f"{head} Over the 12 months it used {used}{money} for heating; a building like it in this weather "
-            f"should need {fmt_num(low)} to {fmt_num(high)} {unit}.")
+            f"should need {need} {unit}.")
 
 
 def owner_steps(s: dict[str, Any], n: int) -> tuple[list[str], int]:
@@ -491,7 +495,7 @@ def owner_steps(s: dict[str, Any], n: int) -> tuple[list[str], int]:
         t = str(t)
         if t.startswith("Check the data first:"):
             what = str(first.get("explanation") or "").rstrip(".") if first else ""
-            more = f" (and {len(issues) - 1} more problem(s) under 'Data issues' below)" if len(issues) > 1 else ""
+            more = f" (see also the other {len(issues) - 1} problem(s) under 'Data issues' below)" if len(issues) > 1 else ""
             t = ("Fix the data first" + (f": {what}" if what else "") + more
                  + ". Correct the readings or the building's record, then run the screening again.")
         steps.append(plain_text(t))
@@ -657,20 +661,28 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
 
     blocked_figs = bool(s.get("blocking"))
     not_judged = "not judged until the data are fixed"
+    # each unit line's parts after the first are dropped, last first, until the line fits its quarter of
+    # the narrower paper (A4) at the unit line's size: nothing is cut and no field runs past its tab stop
+    def fit(parts, size=7.0):
+        parts = [p for p in parts if p]
+        while len(parts) > 1 and _text_width(" · ".join(parts), size) > _FIG_COL_PT:
+            parts.pop()
+        return " · ".join(parts)
+
+    cost = fmt_money(s.get("heating_cost"), cur) if _finite(s.get("heating_cost")) else ""
     figs = [
         ("fk", tabbed(["Heating used, 12 months", "Should need (middle)", "Above the expected range",
-                       "Likely recoverable"], 30)),
+                       "Likely recoverable"], 60)),
         ("fv", tabbed([billed_text(s, "actual_heating"), billed_text(s, "expected_heating"),
                        "not judged" if blocked_figs else billed_text(s, "excess"),
-                       "not judged" if blocked_figs else fmt_money(s.get("expected_recoverable_cost"), cur)], 22)),
-        ("fu", tabbed([(f"{fmt_money(s.get('heating_cost'), cur)} · " if _finite(s.get("heating_cost")) else "")
-                       + f"{fmt_num(s.get('actual_heating'))} {eu}",
+                       "not judged" if blocked_figs else fmt_money(s.get("expected_recoverable_cost"), cur)], 60)),
+        ("fu", tabbed([fit([cost, f"{fmt_num(s.get('actual_heating'))} {eu}"]),
                        # its range is in the verdict sentence above
-                       f"{fmt_num(s.get('expected_heating'))} {eu}",
+                       fit([f"{fmt_num(s.get('expected_heating'))} {eu}"]),
                        not_judged if blocked_figs else
-                       f"{fmt_money(s.get('excess_cost'), cur)} a year · {fmt_num(s.get('excess_energy'))} {eu}",
+                       fit([f"{fmt_money(s.get('excess_cost'), cur)} a year", f"{fmt_num(s.get('excess_energy'))} {eu}"]),
                        not_judged if blocked_figs else
-                       f"a year · {billed_text(s, 'expected_recoverable')} · {rco2_v} {rco2_u} CO₂e"], 36)),
+                       fit(["a year", billed_text(s, "expected_recoverable"), f"{rco2_v} {rco2_u} CO₂e"])], 80)),
     ]
     scale = _SCALE_TEXT.get(s.get("evidence_scale"), "")
     if scale and s.get("evidence_scale") == "blend" and _finite(s.get("peer_weight")):
