@@ -322,6 +322,48 @@ def annual_chart(labels: Sequence[str], metered: Sequence[float | None], expecte
     return "".join(out)
 
 
+def measure_chart(labels: Sequence[str], baseline: Sequence[float | None], metered: Sequence[float | None], *,
+                  width: float = 300, height: float = 110) -> str:
+    """Since a measure: metered use (grey bars) against the baseline's prediction (a dashed step line),
+    one slot per billing period after the measure. No titles or legend (the sheet prints them as text);
+    tick labels only, ``labels`` under the slots (every second one when there are more than 12).
+    """
+    b, m = _arr(baseline), _arr(metered)
+    if not (len(labels) == b.size == m.size):
+        raise ValueError(f"labels, baseline and metered differ in length: {len(labels)}, {b.size}, {m.size}")
+    title = "Metered against the baseline since the measure"
+    vals = np.concatenate([b, m])
+    vals = vals[np.isfinite(vals)]
+    if vals.size == 0:
+        return _no_data(width, height, title, "no periods since the measure")
+    yt = nice_ticks(min(0.0, float(vals.min())), max(0.0, float(vals.max())), 3)
+    n = len(labels)
+    f = _Frame(width, height, 0.0, float(n), float(yt[0]), float(yt[-1]), left=32, top=6, bottom=16)
+    out = [_svg_open(width, height, title), f.axes([], yt, "", "", titles=False)]
+    slot = (f.x1 - f.x0) / n
+    bw = slot * 0.6
+    zero = float(f.py(0.0))
+    bars, steps, names = [], [], []
+    for i, lab in enumerate(labels):
+        cx = f.x0 + slot * (i + 0.5)
+        if np.isfinite(m[i]):
+            yv = float(f.py(m[i]))
+            bars.append(f"M{cx - bw / 2:.1f} {zero:.1f}V{yv:.1f}H{cx + bw / 2:.1f}V{zero:.1f}Z")
+        if np.isfinite(b[i]):
+            yb = float(f.py(b[i]))
+            steps.append(f"M{f.x0 + slot * i:.1f} {yb:.1f}H{f.x0 + slot * (i + 1):.1f}")
+        if n <= 12 or i % 2 == 0:
+            names.append((cx, f.y0 + 11, str(lab), "middle"))
+    if bars:
+        out.append(f'<path d="{"".join(bars)}" fill="{MID}" stroke="{INK}" stroke-width="0.6"/>')
+    if steps:
+        out.append(f'<path d="{"".join(steps)}" fill="none" stroke="{INK}" stroke-width="1.4" '
+                   'stroke-dasharray="4 2"/>')
+    out.append(_label_run(names))
+    out.append("</svg>")
+    return "".join(out)
+
+
 def peer_chart(peers: Sequence[float | None], value: float | None, median: float | None, *, x_label: str,
                width: float = 300, height: float = 240, max_ticks: int = 80, annotate: bool = True) -> str:
     """Where one building sits among its peer group on a single axis.

@@ -11,7 +11,8 @@ from pathlib import Path
 import polars as pl
 
 from . import savings_page, screen
-from .schema import KBTU_TO_KWH, REJECT_SCHEMA
+from .pipeline import DATA_ISSUE_CODES
+from .schema import FLAGS, KBTU_TO_KWH, REJECT_SCHEMA
 
 FT2_TO_M2 = 0.09290304              # exact
 BTU_H_F_TO_W_K = 0.52752792631      # NIST SP 811: 1 Btu_IT/h = 0.29307107 W; × 1.8
@@ -128,12 +129,21 @@ RANKING_COLUMNS = [
     *[c for m in screen.MECHANISMS for c in (f"excess_{m}", f"excess_{m}_cost", f"excess_{m}_co2e", f"sure_{m}")],
     "evidence_scale", "peer_weight", "waste_kind", "tier", "verdict", "needs_review", "review_path", "flags",
     "data_issues", "change", "previous_rank", "energy_unit",
+    "billed_unit", "actual_heating_billed", "excess_billed", "expected_recoverable_billed",
 ]
+
+
+def _billed_col(res: pl.DataFrame, name: str) -> pl.Expr:
+    """A billed-unit column of the results (pipeline joins ``units.billed_units``), null where absent."""
+    dtype = pl.String if name == "billed_unit" else pl.Float64
+    return pl.col(name) if name in res.columns else pl.lit(None, dtype=dtype).alias(name)
 
 
 def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None = None) -> pl.DataFrame:
     """The ranking.csv frame: one row per building, documented columns, display units."""
     d = disp
+    per_unit = _billed_col(res, "kbtu_per_billed_unit")
+    per_unit = pl.when(per_unit > 0).then(per_unit).otherwise(None)
     ua_cols = ["ua_walls", "ua_windows", "ua_roof", "ua_ground", "ua_infiltration", "ua_ventilation", "ua_total"]
     out = res.select(
         "rank", "building_id", "name", "address", "city", "use_type",
@@ -178,6 +188,11 @@ def ranking_table(res: pl.DataFrame, disp: Display, change: pl.DataFrame | None 
         pl.col("flag_codes").list.join(";").alias("flags"),
         pl.col("data_issue_codes").list.join(";").alias("data_issues"),
         pl.lit(d.energy_unit).alias("energy_unit"),
+        # the same figures in the unit the building's heating bills state (therm, ccf, gal, Mlb, kWh ...)
+        _billed_col(res, "billed_unit"),
+        *[(pl.col(f"{c}_kbtu") / per_unit).round(1).alias(f"{n}_billed")
+          for c, n in (("actual_heating", "actual_heating"), ("excess_energy", "excess"),
+                       ("expected_recoverable", "expected_recoverable"))],
     )
     if change is not None and change.height:
         out = out.join(change.select("building_id", "change", "previous_rank"), on="building_id", how="left",
@@ -289,7 +304,10 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             (pl.col("energy_kbtu") / pl.col("days")).alias("upd")).select(cols)
         for p in pp.iter_rows(named=True):
             per.setdefault(p["building_id"], []).append(p)
-    peers = res.group_by("peer_group").agg(pl.col("heating_intensity").drop_nulls())
+    # peer charts show the buildings the peer statistics use: one whose data problem blocks a verdict
+    # (a unit error puts it at 100x its peers) would squash every other building to the axis
+    peers = res.filter(~pl.col("blocking").fill_null(False)).group_by("peer_group").agg(
+        pl.col("heating_intensity").drop_nulls())
     peer_map = {r["peer_group"]: [d.val("intensity", x) for x in r["heating_intensity"]]
                 for r in peers.iter_rows(named=True)}
     out = []
@@ -320,8 +338,17 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
         ua_parts = [{"part": p, "value": d.val("ua", r.get(f"ua_{p}"))}
                     for p in ("walls", "windows", "roof", "ground", "infiltration", "ventilation")]
         assumptions = display_assumptions(env_rows.get(bid, {}).get("assumptions"), d)
-        flags = [{"code": c, "explanation": t} for c, t in zip(r["flag_codes"], r["flag_texts"])]
-        issues = [{"code": c, "explanation": t} for c, t in zip(r["data_issue_codes"], r["data_issue_texts"])]
+        # the envelope-defaulted flag is on most buildings: it goes into the confidence line, not the flags
+        flags = [{"code": c, "label": FLAGS.get(c, c.replace("_", " ")), "explanation": t}
+                 for c, t in zip(r["flag_codes"], r["flag_texts"]) if c != "envelope_defaulted"]
+        issues = [{"code": c, "explanation": t, "blocking": bool(DATA_ISSUE_CODES.get(c, False))}
+                  for c, t in zip(r["data_issue_codes"], r["data_issue_texts"])]
+        pu = _num(r.get("kbtu_per_billed_unit"))
+        per_unit: float | None = pu if pu is not None and pu > 0 else None
+        price = _num(r.get("usd_per_kbtu"))
+
+        def billed(kbtu, per_unit=per_unit):
+            return None if per_unit is None or _num(kbtu) is None else kbtu / per_unit
         slope_ratio = None
         if r["effective_ua_btu_h_f"] and r["ua_total"]:
             slope_ratio = r["effective_ua_btu_h_f"] / r["ua_total"]
@@ -373,6 +400,23 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
                                             mechanisms=r["mechanisms"], blocking=r["blocking"]),
             "cautions": [],  # the sheet template prints the standard cautions on every sheet
             "since_measure": (since_measure or {}).get(bid),
+            # the owner's half: the bills' own unit, money, the plain kind of waste, how sure
+            "heating_fuel": r.get("heating_fuel"), "efficiency": _num(r.get("efficiency")),
+            "blocking": bool(r.get("blocking")), "envelope_defaulted": "envelope_defaulted" in r["flag_codes"],
+            "flag_codes": list(r["flag_codes"]), "mechanisms": list(r["mechanisms"] or []),
+            "screen_verdict": r["verdict"], "in_plan": bool(r.get("in_plan")),
+            "billed_unit": r.get("billed_unit") if per_unit is not None else None,
+            "actual_heating_billed": billed(r["actual_heating_kbtu"]),
+            "expected_heating_billed": billed(r["expected_heating_kbtu"]),
+            "expected_low_billed": billed(r["expected_low_kbtu"]),
+            "expected_high_billed": billed(r["expected_high_kbtu"]),
+            "excess_billed": billed(r["excess_energy_kbtu"]),
+            "expected_recoverable_billed": billed(r["expected_recoverable_kbtu"]),
+            "heating_cost": None if price is None or _num(r["actual_heating_kbtu"]) is None
+            else r["actual_heating_kbtu"] * price,
+            "scores": {"evidence_score": _num(r.get("evidence_score")), "z_score": _num(r.get("z_score")),
+                       "z_balance_point": _num(r.get("z_balance_point")), "z_intensity": _num(r.get("z_intensity")),
+                       "z_yoy": _num(r.get("z_yoy")), "yoy_change": _num(r.get("yoy_change"))},
         })
     return out
 

@@ -551,6 +551,7 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
                                           steam_btu_per_lb=a["steam_btu_per_lb"])
     n_readings = r.height
     del r
+    billed = units.billed_units(conv)  # the bills' own unit per building (sheets and ranking.csv)
     conv = conv.select([c for c in _CONV_KEEP if c in conv.columns])  # what the later steps read (not _file)
     rejects = REJECTS_EMPTY
     if conv_rej.height:
@@ -683,6 +684,7 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
         pl.when(pl.col("total_fuel_kbtu") > 0).then(pl.col("baseload_kbtu") / pl.col("total_fuel_kbtu"))
         .otherwise(None).alias("baseload_share"))
     frame = frame.join(_prices(b, cfg), on="building_id", how="left", maintain_order="left")
+    frame = frame.join(billed, on="building_id", how="left", maintain_order="left")
     frame = frame.join(_year_over_year(conv, spans, met, cube, normals, grid), on="building_id", how="left",
                        maintain_order="left")
     if previous is not None and previous.height:

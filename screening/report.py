@@ -261,9 +261,17 @@ def _ordinal(p) -> str:
 _BIDI_CONTROLS = re.compile(r"[\u202a-\u202e\u2066-\u2069]")
 
 
+#: Runs of more than two combining diacritical marks on one letter (U+0300-036F, U+1AB0-1AFF, U+1DC0-1DFF,
+#: U+20D0-20FF, U+FE20-FE2F): no written language stacks more (Vietnamese stacks two), and a tall stack
+#: would reach into the line above or below, so displayed text keeps the first two of a run.
+_MARK_RUN = re.compile(r"([\u0300-\u036f\u1ab0-\u1aff\u1dc0-\u1dff\u20d0-\u20ff\ufe20-\ufe2f]{2})"
+                       r"[\u0300-\u036f\u1ab0-\u1aff\u1dc0-\u1dff\u20d0-\u20ff\ufe20-\ufe2f]+")
+
+
 def _cut(text, n: int) -> str:
-    """Text for display: bidirectional controls removed, at most ``n`` characters (then "…")."""
-    text = _BIDI_CONTROLS.sub("", "" if text is None else str(text))
+    """Text for display: bidirectional controls removed, stacks of combining marks kept to two, at most
+    ``n`` characters (then "…")."""
+    text = _MARK_RUN.sub(r"\1", _BIDI_CONTROLS.sub("", "" if text is None else str(text)))
     return text if len(text) <= n else text[: n - 1].rstrip() + "…"
 
 
@@ -272,10 +280,10 @@ def _cut(text, n: int) -> str:
 
 # per shrink level: max items shown and max characters of each text
 _LIMITS = [
-    dict(name=300, text=400, expl=220, flags=7, issues=5, steps=6, cautions=3, asm=12, caution_len=300),
-    dict(name=300, text=400, expl=180, flags=6, issues=4, steps=5, cautions=3, asm=10, caution_len=240),
-    dict(name=160, text=260, expl=140, flags=4, issues=3, steps=3, cautions=2, asm=8, caution_len=200),
-    dict(name=100, text=180, expl=100, flags=3, issues=2, steps=2, cautions=1, asm=6, caution_len=160),
+    dict(name=300, text=600, expl=400, flags=8, issues=6, steps=6, cautions=3, asm=24, caution_len=300),
+    dict(name=300, text=500, expl=260, flags=8, issues=5, steps=5, cautions=3, asm=24, caution_len=240),
+    dict(name=160, text=300, expl=160, flags=5, issues=3, steps=4, cautions=2, asm=16, caution_len=200),
+    dict(name=100, text=200, expl=110, flags=3, issues=2, steps=3, cautions=1, asm=10, caution_len=160),
 ]
 MAX_LEVEL = len(_LIMITS) - 1
 
@@ -289,9 +297,15 @@ _BAND_TEXT: dict[str | None, str] = {"below": "below the expected band", "within
 
 
 def _items(seq, n_items, n_chars):
-    seq = list(seq or [])
-    shown = [{"code": _cut(x.get("code"), 40), "explanation": _cut(x.get("explanation"), n_chars)}
-             for x in seq[:n_items]]
+    """Flags or data issues for the engineer's block: a plain label (never the code) and the explanation."""
+    seq = [x for x in (seq or []) if x.get("code") != "envelope_defaulted"]  # in the confidence line instead
+    shown = []
+    for x in seq[:n_items]:
+        label = x.get("label") or ""
+        if not label and x.get("blocking"):
+            label = "Blocks a verdict"
+        shown.append({"label": _cut(label[:1].upper() + label[1:], 80),
+                      "explanation": _cut(x.get("explanation"), n_chars)})
     return shown, len(seq) - len(shown)
 
 
@@ -334,9 +348,190 @@ def _share_cell(share: str) -> str:
     return share.rjust(4, _FIGURE_SPACE)
 
 
+#: a key figure's column: a quarter of A4's content width (186 mm) less a 2 mm gap [pt]
+_FIG_COL_PT = (_CONTENT_MM["A4"] / 4 - 2) * 72 / 25.4
+
 _SCALE_TEXT: dict[str | None, str] = {"peers": "its peers' spread",
                                       "model band": "the model's own band (too few peers)",
                                       "blend": "a blend of its peers' spread ({pct} %) and the model's own band"}
+
+
+# --------------------------------------------------------------------------------------
+# the owner's half of a sheet: plain words, the bills' own unit, money (issue 15)
+
+_FUEL_TEXT = {"natural_gas": "natural gas", "fuel_oil": "heating oil", "propane": "propane", "kerosene": "kerosene",
+              "electricity": "electricity", "district_steam": "district steam",
+              "district_hot_water": "district hot water"}
+#: how a billed unit reads in a sentence ("12,400 therms"); units not named here read as they are
+_UNIT_PLURAL = {"therm": "therms", "Dth": "dekatherms", "gal": "gallons", "L": "litres", "lb": "lb"}
+
+#: The owner's verdict per tier: what to do, in plain words ({cost} = the expected recoverable cost a year).
+_OWNER_VERDICT = {
+    "Audit first": "Book an energy audit this quarter: this building likely wastes about {cost} of heating a year.",
+    "Audit soon": "Worth an energy audit after this quarter's visits: likely waste about {cost} of heating a year.",
+    "Watch": "Keep an eye on it: there is some excess ({cost} a year), less than an audit visit would cost.",
+    "No action": "No action needed: heating is about what a building like this should use.",
+    "Fix data first": "Fix the data first: the bills or the building's record have a problem, so the tool "
+                      "cannot judge this building yet.",
+}
+_OWNER_VERDICT_NO_COST = {
+    "Audit first": "Book an energy audit this quarter: this building likely wastes heating.",
+    "Audit soon": "Worth an energy audit after this quarter's visits: this building likely wastes heating.",
+    "Watch": "Keep an eye on it: some excess, not yet worth a visit.",
+}
+#: Guideline 14's monthly calibration limit on CV(RMSE) (ASHRAE Guideline 14-2014, 15 % for monthly data):
+#: below it the bills "follow the weather closely" in the confidence line
+_CLOSE_FIT_CV = 0.15
+# figures the owner's half must not print (the engineer's block has them): parentheses holding a statistic
+_STAT_PAREN = re.compile(r"\s*\((?:[^()]*\((?:RMSE)\)[^()]*|[^()]*(?:R²|NMBE|\bz -?\d|score)[^()]*)\)")
+
+
+def plain_text(text) -> str:
+    """A sentence for the owner's half: statistics in parentheses (R², CV(RMSE), z, scores) taken out."""
+    return _STAT_PAREN.sub("", "" if text is None else str(text))
+
+
+def _unit_words(unit: str | None, fallback: str) -> str:
+    return _UNIT_PLURAL.get(unit or "", unit or "") or fallback
+
+
+#: the display-energy key beside each ``<key>_billed`` figure of a sheet record
+_ENERGY_KEY = {"excess": "excess_energy", "expected_recoverable": "expected_recoverable_energy"}
+
+
+def billed_text(s: dict[str, Any], key: str) -> str:
+    """``<key>_billed`` in the bills' unit ("12,400 therms"), or the display energy when the unit is unknown."""
+    unit = s.get("billed_unit")
+    v = s.get(f"{key}_billed")
+    if unit and _finite(v):
+        return f"{fmt_num(v)} {_unit_words(unit, unit)}"
+    return f"{fmt_num(s.get(_ENERGY_KEY.get(key, key)))} {s.get('energy_unit') or ''}".rstrip()
+
+
+def heat_source_text(s: dict[str, Any]) -> str:
+    """"natural gas, billed in therms, seasonal efficiency 80 %" or "electricity (heat pump, seasonal COP 1.94)"."""
+    fuel = s.get("heating_fuel")
+    out = _FUEL_TEXT.get(fuel, str(fuel).replace("_", " ")) if fuel else ""
+    eff = s.get("efficiency")
+    if _finite(eff) and eff > 1:
+        out += f" (heat pump, seasonal COP {eff:.2f})"
+    elif _finite(eff) and eff > 0:
+        out += f", seasonal efficiency {100 * eff:.0f} %"
+    if s.get("billed_unit"):
+        out += f", billed in {_unit_words(s['billed_unit'], s['billed_unit'])}"
+    return out
+
+
+def confidence_line(s: dict[str, Any]) -> str:
+    """How sure the screen is, as one plain sentence (no statistics): from the fit, the flags, the envelope
+    inputs and the peers. Levels: fairly sure, moderately sure, not very sure; not yet where data block."""
+    if s.get("blocking") or s.get("tier") == "Fix data first":
+        return "How sure the tool is: not yet: a problem in the data must be fixed before it can judge this building."
+    fit = s.get("fit") or {}
+    codes = set(s.get("flag_codes") or [f.get("code") for f in s.get("flags") or []])
+    good, bad = [], []
+    level = 3
+    if fit.get("method") != "regression":
+        level = 1
+        bad.append("the bills are yearly totals, so the tool cannot see how heating follows the weather")
+    elif "poor_fit" in codes:
+        level = 1
+        bad.append("heating does not follow the weather closely, so the figures are rough")
+    elif _finite(fit.get("cv_rmse")) and fit["cv_rmse"] <= _CLOSE_FIT_CV:
+        good.append("the bills follow the weather closely")
+    else:
+        level -= 1
+        bad.append("the bills follow the weather only loosely")
+    if s.get("envelope_defaulted") or "envelope_defaulted" in codes:
+        level -= 1
+        bad.append("the building's construction was not given, so what it should use is a broad estimate")
+    if s.get("evidence_scale") == "model band":
+        level -= 1
+        bad.append("there are too few similar buildings to compare it with")
+    if s.get("span_kind") in ("shifted", "uncovered") or "shifted_span" in codes:
+        level -= 1
+        bad.append("the bills do not cover the whole period asked for")
+    if "base_at_grid_edge" in codes:
+        level -= 1
+        bad.append("the split between heating and other uses is uncertain")
+    if s.get("needs_review"):
+        good.append("it stands well above similar buildings")
+    word = "fairly sure" if level >= 3 else "moderately sure" if level == 2 else "not very sure"
+    reasons = good + [("but " if good and i == 0 else "") + b for i, b in enumerate(bad)]
+    return f"How sure the tool is: {word}" + (": " + "; ".join(reasons) if reasons else "") + "."
+
+
+def owner_verdict(s: dict[str, Any]) -> str:
+    """The owner's verdict: what to do, and what the waste costs a year, in plain words."""
+    tier = s.get("tier") or ""
+    cur = s.get("currency") or "$"
+    cost = s.get("expected_recoverable_cost")
+    if tier in _OWNER_VERDICT_NO_COST and not (_finite(cost) and cost > 0):
+        head = _OWNER_VERDICT_NO_COST[tier]
+    elif tier in _OWNER_VERDICT:
+        head = _OWNER_VERDICT[tier].format(cost=fmt_money(cost, cur))
+    else:
+        head = plain_text(s.get("verdict") or "No verdict.")
+    if s.get("blocking") or tier == "Fix data first" or not _finite(s.get("actual_heating")):
+        return head
+    used = billed_text(s, "actual_heating")
+    money = f" ({fmt_money(s['heating_cost'], cur)})" if _finite(s.get("heating_cost")) else ""
+    low, high = s.get("expected_low_billed"), s.get("expected_high_billed")
+    if not (s.get("billed_unit") and _finite(low) and _finite(high)):
+        low, high = s.get("expected_low"), s.get("expected_high")
+    unit = _unit_words(s.get("billed_unit"), s.get("energy_unit") or "") if s.get("billed_unit") and _finite(
+        s.get("expected_low_billed")) else (s.get("energy_unit") or "")
+    need = (f"about {fmt_num(low)}" if fmt_num(low) == fmt_num(high) else f"{fmt_num(low)} to {fmt_num(high)}")
+    return (f"{head} Over the 12 months it used {used}{money} for heating; a building like it in this weather "
+            f"should need {need} {unit}.")
+
+
+def owner_steps(s: dict[str, Any], n: int) -> tuple[list[str], int]:
+    """What to do next, plain: the data step names no code (the issues are listed in the engineer's block)."""
+    steps = []
+    issues = [x for x in s.get("data_issues") or [] if x.get("code") != "end_days_filled"]
+    first = next((x for x in issues if x.get("blocking")), issues[0] if issues else None)
+    for t in s.get("next_steps") or []:
+        t = str(t)
+        if t.startswith("Check the data first:"):
+            what = str(first.get("explanation") or "").rstrip(".") if first else ""
+            more = f" (see also the other {len(issues) - 1} problem(s) under 'Data issues' below)" if len(issues) > 1 else ""
+            t = ("Fix the data first" + (f": {what}" if what else "") + more
+                 + ". Correct the readings or the building's record, then run the screening again.")
+        steps.append(plain_text(t))
+    return steps[:n], max(len(steps) - n, 0)
+
+
+def since_measure_view(m: dict[str, Any] | None, paper_energy_unit: str = "") -> dict[str, Any] | None:
+    """The "since the measure" box: a small chart (metered bars, the baseline's dashed line, by billing period)
+    and one sentence. ``m`` is the sheet record's ``since_measure`` (None or absent: no box)."""
+    if not m:
+        return None
+    periods = list(m.get("periods") or [])
+    labels = []
+    for p in periods:
+        start = str(p.get("start") or "")
+        labels.append(start[5:7] + "/" + start[2:4] if len(start) >= 7 else "?")
+    svg = charts.measure_chart(labels, [p.get("baseline") for p in periods], [p.get("metered") for p in periods])
+    unit = m.get("energy_unit") or paper_energy_unit
+    avoided, lo, hi = m.get("avoided_energy"), m.get("avoided_low_90"), m.get("avoided_high_90")
+    cur = m.get("currency") or "$"
+    what = _cut(m.get("description") or "a measure", 120)
+    if _finite(avoided):
+        verb = "saved" if avoided >= 0 else "used"
+        sentence = (f"Since {what} on {m.get('event_date') or 'n/a'}, the building {verb} about "
+                    f"{fmt_num(abs(avoided))} {unit}"
+                    + (f" ({fmt_money(abs(m['cost']), cur)})" if _finite(m.get("cost")) else "")
+                    + (" more" if avoided < 0 else "")
+                    + f" against what it would have used without it, over {len(periods)} billing period(s)")
+        if _finite(lo) and _finite(hi):
+            sentence += f" (90 % range {fmt_num(lo)} to {fmt_num(hi)} {unit})"
+        sentence += "."
+    else:
+        sentence = f"Since {what} on {m.get('event_date') or 'n/a'}: no saving can be stated yet."
+    return {"chart": svg_img(svg, "metered against the baseline since the measure"), "sentence": sentence,
+            "caption": f"Grey bars: metered per billing period [{unit}]; dashed line: the baseline (what the "
+                       "building would have used without the measure, in the same weather)."}
 
 
 def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
@@ -365,10 +560,10 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         span_start = str(s.get("period_start") or "")
         recent = [bool(span_start) and str(p.get("start") or "") >= span_start for p in periods]
         chart1 = charts.scatter_chart(xs, ys, fit_line=s.get("fit_line"), expected_line=s.get("expected_line"),
-                                      x_label="", y_label="", width=360, height=170, annotate=False,
+                                      x_label="", y_label="", width=360, height=150, annotate=False,
                                       recent=recent)
         dropped = sum(1 for x, y in zip(xs, ys) if not (_finite(x) and _finite(y)))
-        chart1_title = "Heating use against the weather, by billing period"
+        chart1_title = "Heating use against the weather"
         chart1_axes = f"up: use per day [{eu}/day]; across: degree days per day [{dd_unit}/day]"
         circles = ("Grey circles: billing periods of the window; open circles: earlier periods of the fit."
                    if any(recent) and not all(recent) else "Circles: billing periods.")
@@ -378,20 +573,24 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     else:
         annual = s.get("annual") or []
         chart1 = charts.annual_chart([str(a.get("year_label")) for a in annual], [a.get("metered") for a in annual],
-                                     [a.get("expected") for a in annual], y_label="", width=360, height=170,
+                                     [a.get("expected") for a in annual], y_label="", width=360, height=150,
                                      annotate=False)
         chart1_title = "Metered against expected heating, by year"
         chart1_axes = f"up: heating per year [{eu}]"
         chart1_caption = ("Annual readings only, so no per-period fit. Grey bars: metered; dashed outlines: "
                           "expected from the envelope (UA) and the weather.")
-    chart2 = charts.peer_chart(s.get("peers") or [], s.get("heating_intensity"), s.get("peer_median_intensity"),
-                               x_label="", width=300, height=136, annotate=False)
+    # a building whose data block a verdict is not placed among its peers (its figure is the data's)
+    blocked = bool(s.get("blocking"))
+    chart2 = charts.peer_chart(s.get("peers") or [], None if blocked else s.get("heating_intensity"),
+                               s.get("peer_median_intensity"), x_label="", width=300, height=136, annotate=False)
     n_peers = len([v for v in (s.get("peers") or []) if _finite(v)])
     chart2_axes = f"across: heating per degree day [{s.get('intensity_unit', '')}]"
     if n_peers:
-        chart2_caption = (f"{n_peers} building(s) in the group, this one included: "
+        chart2_caption = (f"{n_peers} building(s) in the group" + ("" if blocked else ", this one included") + ": "
                           + ("one grey tick each" if n_peers <= 80 else "grey bars count buildings")
-                          + "; dashed line: peer median; black triangle: this building.")
+                          + "; dashed line: peer median; "
+                          + ("this building is not placed until its data problem is fixed." if blocked
+                             else "black triangle: this building."))
     else:
         chart2_caption = "No peer group figures for this building."
 
@@ -421,16 +620,16 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     asm_all = s.get("assumptions") or []
     assumptions = [{"name": _cut(a.get("name"), 60),
                     "value": fmt_num(a.get("value")) if not isinstance(a.get("value"), str) else _cut(a["value"], 20),
-                    "unit": _cut(a.get("unit"), 24),
+                    "unit": _cut(a.get("unit"), 40),
                     "origin": "given" if a.get("origin") == "given" else "default",
                     "origin_class": "given" if a.get("origin") == "given" else "default"}
                    for a in asm_all[: lim["asm"]]]
 
-    # unit and origin share one column: the origin sits at the first tab stop (sheet.css .au)
     asm_cols = {
-        "names": "\n".join(_one_line(x["name"], 34) for x in assumptions),
-        "nums": "\n".join(_one_line(x["value"], 12) for x in assumptions),
-        "units": "\n".join(f"{_one_line(x['unit'], 12)}\t{x['origin']}" for x in assumptions),
+        "names": "\n".join(_one_line(x["name"], 40) for x in assumptions),
+        "nums": "\n".join(_one_line(x["value"], 14) for x in assumptions),
+        "units": "\n".join(_one_line(x["unit"], 30) for x in assumptions),
+        "origins": "\n".join(x["origin"] for x in assumptions),
     }
 
     fit = s.get("fit") or {}
@@ -459,29 +658,52 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     def tabbed(fields, n):
         return "\t".join(_one_line(f, n) for f in fields)
 
+
+    blocked_figs = bool(s.get("blocking"))
+    not_judged = "not judged until the data are fixed"
+    # each unit line's parts after the first are dropped, last first, until the line fits its quarter of
+    # the narrower paper (A4) at the unit line's size: nothing is cut and no field runs past its tab stop
+    def fit_parts(parts, size=7.0):
+        parts = [p for p in parts if p]
+        while len(parts) > 1 and _text_width(" · ".join(parts), size) > _FIG_COL_PT:
+            parts.pop()
+        return " · ".join(parts)
+
+    cost = fmt_money(s.get("heating_cost"), cur) if _finite(s.get("heating_cost")) else ""
     figs = [
-        ("fk", tabbed(["Metered heating", "Expected heating", "Ratio metered / expected",
-                       "Heating per degree day"], 30)),
-        ("fv", tabbed([fmt_num(s.get("actual_heating")), fmt_num(s.get("expected_heating")),
-                       fmt_ratio(s.get("ratio")), fmt_num(s.get("heating_intensity"))], 14)),
-        ("fu", tabbed([f"{eu} per year", f"band {fmt_num(s.get('expected_low'))} to {fmt_num(s.get('expected_high'))}",
-                       _BAND_TEXT.get(s.get("band_position"), "band position n/a"),
-                       f"{s.get('intensity_unit', '')}; peers' median {fmt_num(s.get('peer_median_intensity'))}"], 34)),
-        ("fk", tabbed(["Normal-year heating", "Above the expected band", "Expected recoverable",
-                       "Expected emissions saved"], 30)),
-        ("fv", tabbed([fmt_num(s.get("normal_heating")), fmt_num(s.get("excess_energy")),
-                       fmt_money(s.get("expected_recoverable_cost"), cur), rco2_v], 14)),
-        ("fu", tabbed([f"{eu}; baseload {fmt_num(s.get('baseload'))}",
-                       f"{eu} per year; {fmt_money(s.get('excess_cost'), cur)}",
-                       f"per year; {fmt_num(s.get('expected_recoverable_energy'))} {eu}",
-                       f"{rco2_u} CO₂e per year"], 30)),
+        ("fk", tabbed(["Heating used, 12 months", "Should need (middle)", "Above the expected range",
+                       "Likely recoverable"], 60)),
+        ("fv", tabbed([billed_text(s, "actual_heating"), billed_text(s, "expected_heating"),
+                       "not judged" if blocked_figs else billed_text(s, "excess"),
+                       "not judged" if blocked_figs else fmt_money(s.get("expected_recoverable_cost"), cur)], 60)),
+        ("fu", tabbed([fit_parts([cost, f"{fmt_num(s.get('actual_heating'))} {eu}"]),
+                       # its range is in the verdict sentence above
+                       fit_parts([f"{fmt_num(s.get('expected_heating'))} {eu}"]),
+                       not_judged if blocked_figs else
+                       fit_parts([f"{fmt_money(s.get('excess_cost'), cur)} a year", f"{fmt_num(s.get('excess_energy'))} {eu}"]),
+                       not_judged if blocked_figs else
+                       fit_parts(["a year", billed_text(s, "expected_recoverable"), f"{rco2_v} {rco2_u} CO₂e"])], 80)),
     ]
     scale = _SCALE_TEXT.get(s.get("evidence_scale"), "")
     if scale and s.get("evidence_scale") == "blend" and _finite(s.get("peer_weight")):
         scale = scale.format(pct=round(100 * s["peer_weight"]))
-    kind = s.get("waste_kind") or ""
-    kind_line = _cut((f"What to look for: {kind}" if kind else "") + (f" Judged against {scale}." if scale else ""),
-                     lim["text"])
+    # a building whose data block a verdict has no kind of waste yet: its first step says what to fix
+    kind = "" if s.get("blocking") else plain_text(s.get("waste_kind") or "")
+    steps, steps_more = owner_steps(s, lim["steps"])
+    sc = s.get("scores") or {}
+    scores_text = ""
+    if sc:
+        scores_text = (f"Scores: evidence {fmt_num(sc.get('evidence_score'))} (peers z {fmt_num(sc.get('z_score'))}, "
+                       f"balance point z {fmt_num(sc.get('z_balance_point'))}, intensity z "
+                       f"{fmt_num(sc.get('z_intensity'))}); year on year {fmt_pct(sc.get('yoy_change'))} "
+                       f"(z {fmt_num(sc.get('z_yoy'))}).")
+    scores_text += (f" Judged against {scale}." if scale else "")
+    scores_text += (f" Metered / expected {fmt_ratio(s.get('ratio'))}, "
+                    f"{_BAND_TEXT.get(s.get('band_position'), 'band position n/a')}; normal year "
+                    f"{fmt_num(s.get('normal_heating'))} {eu}; {fmt_num(s.get('heating_intensity'))} "
+                    f"{s.get('intensity_unit', '')} (peers' median {fmt_num(s.get('peer_median_intensity'))}).")
+    since = since_measure_view(s.get("since_measure"), eu)
+    is_blocked = bool(s.get("blocking")) or s.get("tier") == "Fix data first"
     return {
         "figs": figs,
         "level": level,
@@ -498,8 +720,15 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "span_note": _SPAN_NOTE.get(s.get("span_kind"), ""),
         "run_date": s.get("run_date") or "n/a",
         "run_id": _cut(s.get("run_id"), 60),
-        "verdict": _cut(s.get("verdict"), lim["text"]),
-        "kind_line": kind_line,
+        "verdict": _cut(owner_verdict(s), lim["text"]),
+        "screen_verdict": _cut(s.get("screen_verdict") or s.get("verdict"), lim["text"]),
+        "kind": _cut(kind, lim["text"]),
+        "steps": [_cut(t, lim["expl"]) for t in steps], "steps_more": steps_more,
+        "confidence": _cut(confidence_line(s), lim["text"]),
+        "heat_source": _cut(heat_source_text(s), 160),
+        "scores_text": scores_text,
+        "since": since,
+        "blocked": is_blocked,
         "tier": _cut(s.get("tier"), 24),
         "tier_rank": tr if isinstance(tr, int) else "?",
         "tier_rank_class": min(max(tr, 1), 5) if isinstance(tr, int) else 5,

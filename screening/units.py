@@ -274,3 +274,30 @@ def btu_per_unit(unit: str, fuel: str, *, heat_contents: Mapping[str, float] | N
         if dim in dims:
             return factor * dims[dim]
     raise ValueError(f"unit={unit!r} is not a unit of fuel={fuel!r}")
+
+
+#: columns of :func:`billed_units`
+BILLED_UNIT_COLUMNS = ("building_id", "billed_unit", "kbtu_per_billed_unit")
+
+
+def billed_units(converted: pl.DataFrame) -> pl.DataFrame:
+    """The unit each building's heating-fuel bills are stated in, and its energy [kBtu per that unit].
+
+    From the converted readings (:func:`convert_to_kbtu`'s first result: ``building_id, unit, quantity,
+    energy_kbtu, is_heating_fuel``): the unit of most of the building's heating-fuel readings (ties: the
+    unit's name in sort order), and ``kbtu_per_billed_unit = Σ energy_kbtu / Σ quantity`` over its
+    readings in that unit with a positive quantity, i.e. the factor and heat content the conversion
+    used (``energy_kbtu = quantity × factor × heat content / 1000``), so a figure in kBtu divided by
+    it reads as the bills would state it (therm, ccf, gal, Mlb, kWh ...). A building without such a
+    reading gets no row.
+    """
+    need = ("building_id", "unit", "quantity", "energy_kbtu", "is_heating_fuel")
+    if converted.height == 0 or any(c not in converted.columns for c in need):
+        return pl.DataFrame(schema={"building_id": pl.String, "billed_unit": pl.String,
+                                    "kbtu_per_billed_unit": pl.Float64})
+    h = converted.filter(pl.col("is_heating_fuel") & (pl.col("quantity") > 0)).group_by("building_id", "unit").agg(
+        pl.len().alias("_n"), pl.col("quantity").sum().alias("_q"), pl.col("energy_kbtu").sum().alias("_e"))
+    return (h.sort(["building_id", "_n", "unit"], descending=[False, True, False])
+            .unique("building_id", keep="first", maintain_order=True)
+            .select(pl.col("building_id").cast(pl.String), pl.col("unit").alias("billed_unit"),
+                    (pl.col("_e") / pl.col("_q")).alias("kbtu_per_billed_unit")))

@@ -112,10 +112,94 @@ def make_sheet(i: int = 0, *, units: str = "IP", annual: bool = False, seed: int
         "data_issues": ([{"code": "estimated_reads", "explanation": "Two of twelve readings are estimated by the utility."}]
                         if i % 3 == 0 else []),
         "next_steps": ["Review thermostat schedules and setback settings.",
-                       "Compare the heating slope with the envelope's UA after a walk-through."],
+                       "Compare the heating with the envelope after a walk-through."],
         "cautions": ["Defaults were used for the wall U-factor and air changes."],
+        # the owner's half (issue 15): the bills' unit (therm: 100 kBtu), money, the screen's own sentence
+        "heating_fuel": "natural_gas", "efficiency": eff, "blocking": False, "envelope_defaulted": i % 2 == 0,
+        "flag_codes": ["above_band"] if ratio > 1.25 else [], "mechanisms": ["heat loss"] if ratio > 1.25 else [],
+        "screen_verdict": f"Heating is {ratio:.2f}x the model's expectation (score 4.1 against 3.5).",
+        "in_plan": rank == 1, "billed_unit": "therm",
+        "actual_heating_billed": actual / 100, "expected_heating_billed": expected / 100,
+        "expected_low_billed": expected * 0.8 / 100, "expected_high_billed": expected * 1.25 / 100,
+        "excess_billed": max(actual - expected * 1.25, 0.0) / 100,
+        "expected_recoverable_billed": max(actual - expected, 0.0) * 0.6 / 100,
+        "expected_recoverable_energy": max(actual - expected, 0.0) * 0.6 * k_e,
+        "expected_recoverable_cost": max(actual - expected, 0.0) * 0.6 * 0.011,
+        "expected_recoverable_co2e_kg": max(actual - expected, 0.0) * 0.6 * 0.0531,
+        "heating_cost": actual * 0.011,
+        "scores": {"evidence_score": 4.1, "z_score": 2.2, "z_balance_point": 1.5, "z_intensity": 1.1,
+                   "z_yoy": 0.2, "yoy_change": 0.03},
     }
     return sheet
+
+
+#: one name in each script a sheet must print (invented names): CJK (Chinese, Japanese, Korean), Devanagari,
+#: emoji, Hebrew and Arabic, and a letter with a tall stack of combining marks
+SCRIPT_NAMES = {
+    "chinese": "北京朝阳办公楼 七号", "japanese": "東京ビル 三号館", "korean": "서울 타워 2동",
+    "devanagari": "मुंबई भवन संख्या ४", "emoji": "Sunny Loft 🏢🔥", "hebrew_arabic": "בית ספר مدرسة",
+    "stacked": "Ze\u0301\u0302\u0303\u0304\u0308\u030a\u0327\u0328\u0331 Hall",
+}
+
+# the screen's tier names (screening.screen.TIERS) with their ranks
+_REAL_TIERS = ["Audit first", "Audit soon", "Watch", "No action", "Fix data first"]
+
+
+def since_measure(k: int = 9) -> dict[str, Any]:
+    """A synthetic "since the measure" record (the events step's contract): k monthly periods."""
+    periods = []
+    for m in range(k):
+        base = 900.0 - 60 * abs(m - 3)
+        periods.append({"start": f"2025-{m + 2:02d}-01", "end": f"2025-{m + 2:02d}-28", "baseline": base,
+                        "metered": base * 0.82})
+    avoided = sum(p["baseline"] - p["metered"] for p in periods)
+    return {"event_date": "2025-01-20", "description": "roof insulation and new boiler controls",
+            "periods": periods, "avoided_energy": avoided, "avoided_low_90": avoided * 0.7,
+            "avoided_high_90": avoided * 1.3, "energy_unit": "therm", "cost": avoided * 1.1, "currency": "$"}
+
+
+def sheet_kinds() -> dict[str, dict[str, Any]]:
+    """One sheet per kind the layout must hold: each tier, annual-only, heat pump, steam, SI (A4), a
+    measure's box, and a name in each script of ``SCRIPT_NAMES``. Keys name the kind; SI ones end in ``_si``."""
+    out: dict[str, dict[str, Any]] = {}
+    for k, tier in enumerate(_REAL_TIERS):
+        s = make_sheet(10 + k)
+        s.update({"tier": tier, "tier_rank": k + 1, "building_id": f"K-TIER-{k + 1}"})
+        if tier == "Fix data first":
+            s.update({"blocking": True, "data_issues": [
+                {"code": "likely_unit_error", "blocking": True, "explanation": "metered heating is 148.377x the "
+                 "expectation: check units (therm/ccf, kBtu/MMBtu) and the floor area"}],
+                "next_steps": ["Check the data first: likely_unit_error — correct the readings or the building "
+                               "record and rerun."], "excess_billed": None, "expected_recoverable_cost": None})
+        out[f"tier_{k + 1}"] = s
+    s = make_sheet(20, annual=True)
+    s.update({"building_id": "K-ANNUAL", "tier": "Watch", "tier_rank": 3})
+    out["annual"] = s
+    s = make_sheet(21)
+    s.update({"building_id": "K-HEATPUMP", "heating_fuel": "electricity", "efficiency": 1.94, "billed_unit": "kWh",
+              **{k: s[k] * 100 / 3.412 for k in ("actual_heating_billed", "expected_heating_billed",
+                                                  "expected_low_billed", "expected_high_billed",
+                                                  "expected_recoverable_billed")}})
+    out["heat_pump"] = s
+    s = make_sheet(22)
+    s.update({"building_id": "K-STEAM", "heating_fuel": "district_steam", "efficiency": 0.89, "billed_unit": "Mlb",
+              **{k: s[k] / 10 for k in ("actual_heating_billed", "expected_heating_billed", "expected_low_billed",
+                                        "expected_high_billed", "expected_recoverable_billed")}})
+    out["steam"] = s
+    s = make_sheet(23)
+    s.update({"building_id": "K-MEASURE", "since_measure": since_measure()})
+    out["measure"] = s
+    s = make_sheet(24, units="SI")
+    s.update({"building_id": "K-SI", "billed_unit": "m3", "tier": "Audit soon", "tier_rank": 2})
+    out["plain_si"] = s
+    s = make_sheet(25, units="SI")
+    s.update({"building_id": "K-MEASURE-SI", "since_measure": since_measure(14) | {"energy_unit": "kWh"}})
+    out["measure_si"] = s
+    for k, (key, name) in enumerate(SCRIPT_NAMES.items()):
+        s = make_sheet(30 + k)
+        s.update({"building_id": f"K-NAME-{key}", "name": name})
+        out[f"name_{key}"] = s
+    return out
 
 
 LONG_NAME = ("The Extraordinarily Long-Named Municipal Community Recreation, Aquatics & Lifelong Learning "

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import re
 import xml.etree.ElementTree as ET
 
 import numpy as np
@@ -222,3 +223,15 @@ def test_periods_of_the_window_are_filled_and_earlier_ones_open():
     with pytest.raises(ValueError, match="recent has 1 flags for 2 periods"):
         charts.scatter_chart([5, 10], [50, 100], fit_line=None, expected_line=None, x_label="", y_label="",
                              recent=[True])
+
+
+def test_measure_chart_bars_and_baseline():
+    """Since a measure: one bar per period with a metered value, one dashed baseline step per period."""
+    svg = charts.measure_chart(["02/25", "03/25", "04/25"], [900.0, 840.0, None], [738.0, None, 600.0])
+    bars = re.search(r'<path d="([^"]*)" fill="#555"', svg).group(1)
+    assert bars.count("M") == 2                       # periods 1 and 3 have a metered value
+    steps = re.search(r'<path d="([^"]*)" fill="none" stroke="#000" stroke-width="1.4"', svg).group(1)
+    assert steps.count("M") == 2                      # periods 1 and 2 have a baseline
+    assert "no periods since the measure" in charts.measure_chart([], [], [])
+    with pytest.raises(ValueError, match="differ in length"):
+        charts.measure_chart(["a"], [1.0, 2.0], [1.0])

@@ -289,3 +289,35 @@ def test_filled_end_days_ask_for_no_data_correction():
     assert any("filled from the building's weather fit" in s for s in steps)
     both = next_steps([], ["end_days_filled", "missing_bills"], slope_vs_envelope=None)
     assert "Check the data first: missing_bills — correct" in both[0]
+
+
+def test_sheets_and_ranking_carry_the_bills_unit_and_peers_leave_out_a_blocked_building():
+    """Bills in therms: the sheet records and ranking.csv give the heating in therms (1 therm = 100 kBtu, EIA);
+    a building whose bills are 100x off (a unit error, blocking) is in no peer chart, its own included."""
+    from screening import outputs
+
+    w = _weather(lambda i: 50.0 - 25.0 * np.cos(2 * np.pi * (i - 15) / 365.25), dt.date(2023, 10, 1), 365 * 3 + 2)
+    ids = ["T1", "T2", "T3", "T4"]
+    b = _buildings([_building(building_id=k, heating_efficiency=0.8, _line=i + 2) for i, k in enumerate(ids)])
+    parts = []
+    for k, scale in zip(ids, (1.0, 1.1, 1.2, 100.0)):
+        parts.append(_monthly_readings(w, dt.date(2024, 10, 1), 24, scale * UA, 0.8)
+                     .with_columns(pl.lit(k).alias("building_id")))
+    r = pl.concat(parts).with_columns(pl.int_range(2, pl.len() + 2, dtype=pl.Int64).alias("_line"))
+    sc = screen_frames(b, r, w, _cfg(), window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30)))
+    res = sc.results
+    disp = outputs.Display("IP")
+    recs = {s["building_id"]: s for s in outputs.sheet_records(res, sc.envelope, sc.periods, disp, run_id="x",
+                                                                run_date="2026-10-15", currency="$")}
+    assert recs["T4"]["blocking"] and "likely_unit_error" in res.filter(pl.col("building_id") == "T4")[
+        "data_issue_codes"][0]
+    for k in ids:
+        row = res.filter(pl.col("building_id") == k).row(0, named=True)
+        assert recs[k]["billed_unit"] == "therm"
+        assert recs[k]["actual_heating_billed"] == pytest.approx(row["actual_heating_kbtu"] / 100.0)
+        assert max(recs[k]["peers"]) < 10 * min(recs[k]["peers"])   # T4's 100x intensity is not among them
+        assert len(recs[k]["peers"]) == 3
+    rk = outputs.ranking_table(res, disp)
+    t1 = rk.filter(pl.col("building_id") == "T1").row(0, named=True)
+    assert t1["billed_unit"] == "therm"
+    assert t1["actual_heating_billed"] == pytest.approx(t1["actual_heating"] / 100.0, abs=0.1)

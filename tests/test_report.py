@@ -123,7 +123,9 @@ def known_sheet() -> dict:
               "expected_heating": 867000.4, "ratio": 1.4234, "excess_energy": 367567.4, "excess_cost": 12345.6,
               "excess_co2e_kg": 25400.0, "heating_intensity": 7.412, "peer_median_intensity": 5.55,
               "expected_recoverable_cost": 9876.7, "expected_recoverable_co2e_kg": 18300.0,
-              "waste_kind": "Likely heat loss: check outdoor air and dampers.", "evidence_scale": "peers"})
+              "waste_kind": "Likely heat loss: check outdoor air and dampers.", "evidence_scale": "peers",
+              # the bills' unit: therm = 100 kBtu
+              "actual_heating_billed": 12345.678, "expected_heating_billed": 8670.004, "heating_cost": 13580.2})
     return s
 
 
@@ -181,6 +183,7 @@ def test_key_numbers_in_text(rendered):
     # expected strings by hand from the fixture values and the documented formats
     # (the sheet's emissions figure is the expected recoverable one: 18,300 kg = 18.3 t)
     for s in ["Kestrel Row Depot", "B-KNOWN", "1,234,568", "867,000", "1.42", "367,567", "$12,346", "$9,877",
+              "12,346 therms", "8,670 therms", "$13,580",
               "18.3", "Likely heat loss", "its peers' spread",
               "7.41", "5.55", "screening estimate", "combustion",
               "minimum indoor temperatures", "licensed"]:

@@ -140,3 +140,27 @@ def test_btu_per_unit():
     assert btu_per_unit("gal", "propane") == 91_452                          # EIA
     with pytest.raises(ValueError, match="unit='gal' is not a unit of fuel='natural_gas'"):
         btu_per_unit("gal", "natural_gas")
+
+
+def test_billed_units_name_the_bills_unit_and_its_energy():
+    """The unit of most of a building's heating-fuel readings and kBtu per unit as converted.
+    Check values by definition: 1 therm = 100,000 Btu (EIA); 1 ccf = 100 ft³ × 1,036 Btu/ft³ (the default
+    heat content, EIA US average) = 103.6 kBtu; 1 kWh = 3.412141633 kBtu (NIST SP 811); an energy-unit
+    reading of another fuel does not count."""
+    from screening.units import billed_units
+
+    r = pl.DataFrame({
+        "building_id": ["A", "A", "A", "B", "B", "C", "C"],
+        "fuel": ["natural_gas", "natural_gas", "natural_gas", "natural_gas", "electricity", "electricity",
+                 "electricity"],
+        "period_start": [date(2025, 1, 1)] * 7, "period_end": [date(2025, 1, 31)] * 7,
+        "quantity": [100.0, 200.0, 50.0, 10.0, 999.0, 1000.0, 0.0],
+        "unit": ["ccf", "ccf", "therm", "ccf", "kWh", "kWh", "kWh"]})
+    b = pl.DataFrame({"building_id": ["A", "B", "C"], "heating_fuel": ["natural_gas", "natural_gas", "electricity"]})
+    conv, rej = convert_to_kbtu(r, b)
+    assert rej.height == 0
+    out = {row["building_id"]: row for row in billed_units(conv).iter_rows(named=True)}
+    assert out["A"]["billed_unit"] == "ccf" and out["A"]["kbtu_per_billed_unit"] == pytest.approx(103.6)
+    assert out["B"]["billed_unit"] == "ccf" and out["B"]["kbtu_per_billed_unit"] == pytest.approx(103.6)
+    assert out["C"]["billed_unit"] == "kWh" and out["C"]["kbtu_per_billed_unit"] == pytest.approx(3.412141633)
+    assert billed_units(conv.head(0)).height == 0
