@@ -2,6 +2,7 @@
 
     python benchmarks/bench_memory.py --n 118000            # about 5 million readings (~300 MB file)
     python benchmarks/bench_memory.py --n 2000 --stages     # also per-stage peaks (in-process, sampled)
+    python benchmarks/bench_memory.py --n 100000 --chunk 0 4096 32768   # reruns at these chunk sizes
 
 The portfolio comes from the independent simulator (sample_portfolio/simulate.py, 3 years of daily
 weather, monthly bills), written once into a work folder (kept with ``--work DIR`` so a second
@@ -53,15 +54,22 @@ def _rss_kb() -> int:
     return 0
 
 
-def _args(work: Path) -> list[str]:
-    return ["run", "--no-sheets", "--quiet", "--buildings", str(work / "buildings.csv"),
+def _args(work: Path, chunk: int | None = None, out: str = "out") -> list[str]:
+    extra: list[str] = []
+    if chunk is not None:  # [run] chunk_buildings for this run
+        cfg = work / f"chunk-{chunk}.toml"
+        cfg.write_text(f"[run]\nchunk_buildings = {chunk}\n")
+        extra = ["--config", str(cfg)]
+    return ["run", "--no-sheets", "--quiet", *extra, "--buildings", str(work / "buildings.csv"),
             "--readings", str(work / "readings.csv"), "--weather", str(work / "weather.csv"),
-            "--db", str(work / "bench.duckdb"), "--out", str(work / "out"), "--as-of", "2026-10-15"]
+            "--db", str(work / "bench.duckdb"), "--out", str(work / out), "--as-of", "2026-10-15"]
 
 
-def timed_run(work: Path, env: dict) -> dict:
+def timed_run(work: Path, env: dict, chunk: int | None = None, out: str = "out") -> dict:
+    """One run in a fresh process, into its own output folder ``work/out`` (a folder holding a
+    quarter's outputs is not replaced without --force, which would also reload the inputs)."""
     t = time.perf_counter()
-    p = subprocess.Popen([sys.executable, "-m", "screening", *_args(work)], env=env,
+    p = subprocess.Popen([sys.executable, "-m", "screening", *_args(work, chunk, out)], env=env,
                          stdout=subprocess.PIPE, stderr=subprocess.PIPE)
     _, status, ru = os.wait4(p.pid, 0)
     wall = time.perf_counter() - t
@@ -137,6 +145,8 @@ def main() -> None:
     ap.add_argument("--stages", action="store_true", help="also per-step peaks, in-process")
     ap.add_argument("--child-stages", default=None)
     ap.add_argument("--json", default=None)
+    ap.add_argument("--chunk", type=int, nargs="*", default=[],
+                    help="also a rerun (no input changed) at each of these [run] chunk_buildings")
     a = ap.parse_args()
     if a.child_stages:
         staged(Path(a.child_stages))
@@ -156,11 +166,21 @@ def main() -> None:
         n_readings = sum(buf.count(b"\n") for buf in iter(lambda: f.read(1 << 24), b"")) - 1
     for p in (work / "bench.duckdb", work / "bench.duckdb.wal"):
         p.unlink(missing_ok=True)
+    import shutil
+    for d in [*work.glob("out-[0-9]"), *work.glob("out-chunk-*")]:  # this benchmark's own earlier outputs
+        shutil.rmtree(d)
     load = open("/proc/loadavg").read().split()[:3]
     rows = {}
-    for name in ("first load", "no input changed"):
-        rows[name] = timed_run(work, env)
+    for k, name in enumerate(("first load", "no input changed")):
+        rows[name] = timed_run(work, env, out=f"out-{k}")
         r = rows[name]
+        print(f"{name:<18} exit {r['exit']}  {r['wall_s']:7.1f} s  peak {r['peak_mb']:7.0f} MB  "
+              f"{r['peak_mb'] / size_mb:5.1f}x the readings file", flush=True)
+        if r["exit"] != 0:
+            print(r["stderr"], file=sys.stderr)
+    for c in a.chunk:
+        name = f"rerun, chunk {c}"
+        rows[name] = r = timed_run(work, env, c, out=f"out-chunk-{c}")
         print(f"{name:<18} exit {r['exit']}  {r['wall_s']:7.1f} s  peak {r['peak_mb']:7.0f} MB  "
               f"{r['peak_mb'] / size_mb:5.1f}x the readings file", flush=True)
         if r["exit"] != 0:

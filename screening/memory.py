@@ -15,16 +15,22 @@ from pathlib import Path
 
 from .errors import OutOfMemoryError
 
-# Peak resident memory of a run, linear in the rows of its inputs. Measured with
-# benchmarks/bench_memory.py on simulated portfolios (2026-12-02; README "Large files: memory and
-# speed"): 2,000 buildings with 84,882 readings peaked at 383 MB, 118,000 with 5,016,061 readings at
-# 3.13-3.33 GB (first load and rerun alike). The slope, 590 bytes per reading at the simulator's 42
-# readings a building, is split into a per-building part (results, envelope draws, per-building
-# frames; set, not fitted: the simulator cannot vary the two apart) and the rest per reading.
-BASE_BYTES = 330e6            # interpreter, libraries, weather cube, fixed tables
-BYTES_PER_READING = 500.0     # readings file rows
-BYTES_PER_BUILDING = 4_000.0  # buildings file rows
-BYTES_PER_WEATHER_ROW = 200.0  # daily weather rows (the degree-day cube: 71 bases of cumulative sums)
+# Peak resident memory of a run: the larger of two phases, each linear in row counts.
+# - reading the files (first load only; every row of the files being read is held, typed, until stored):
+#   BYTES_PER_READING_READ per readings row;
+# - screening (issue 20): the per-building work runs over chunks of ``[run] chunk_buildings`` buildings,
+#   so its temporaries grow with the readings of one chunk (BYTES_PER_CHUNK_READING, the chunk's share
+#   of the readings), while the results of every building are kept for the portfolio pass and the
+#   output tables (BYTES_PER_BUILDING).
+# Measured with benchmarks/bench_memory.py on simulated portfolios (42 readings a building; README
+# "Large files: memory and speed", docs/performance.md).
+BASE_BYTES = 330e6                # interpreter, libraries, weather cube, fixed tables
+BYTES_PER_READING_READ = 500.0    # readings file rows while the file is read and checked
+BYTES_PER_CHUNK_READING = 500.0   # readings of the chunk being screened
+BYTES_PER_BUILDING = 4_000.0      # buildings: results kept for the portfolio pass and the outputs
+BYTES_PER_WEATHER_ROW = 200.0     # daily weather rows (the degree-day cube: 71 bases of cumulative sums)
+#: kept for callers of the one-phase model: a readings row counted once
+BYTES_PER_READING = BYTES_PER_READING_READ
 
 
 def count_rows(path: str | Path) -> int:
@@ -38,10 +44,24 @@ def count_rows(path: str | Path) -> int:
     return max(0, n + (last != b"\n") - 1)
 
 
-def estimate_peak(readings: int, buildings: int, weather: int) -> float:
-    """Estimated peak resident memory of a run over inputs of these row counts [bytes]."""
-    return (BASE_BYTES + BYTES_PER_READING * readings + BYTES_PER_BUILDING * buildings
-            + BYTES_PER_WEATHER_ROW * weather)
+def screening_bytes(readings: int, buildings: int, chunk_buildings: int = 0) -> float:
+    """Memory of the screening phase above the base [bytes]: every building's results, and the
+    temporaries of one chunk's readings (``chunk_buildings`` rounded up to whole regression blocks,
+    :func:`screening.pipeline.chunk_size`; 0 = all buildings at once). Linear in the chunk size::
+
+        b·B + r_chunk·R·c/B
+    """
+    from .pipeline import chunk_size
+    share = chunk_size(chunk_buildings, buildings) / buildings if buildings else 1.0
+    return BYTES_PER_BUILDING * buildings + BYTES_PER_CHUNK_READING * readings * share
+
+
+def estimate_peak(readings: int, buildings: int, weather: int, chunk_buildings: int = 0) -> float:
+    """Estimated peak resident memory of a run over inputs of these row counts [bytes]:
+    ``BASE + w·weather + max(r_read·R, screening_bytes(R, B, c))`` (the files are read and stored
+    before the screening starts, and their frames are freed)."""
+    return BASE_BYTES + BYTES_PER_WEATHER_ROW * weather + max(BYTES_PER_READING_READ * readings,
+                                                              screening_bytes(readings, buildings, chunk_buildings))
 
 
 def _read_int(path: str) -> int | None:
@@ -129,10 +149,11 @@ def gb(x: float) -> str:
     return f"{x / 1e9:.1f} GB" if x >= 1e9 else f"{x / 1e6:.0f} MB"
 
 
-def check(files: dict[str, list[str]]) -> float:
+def check(files: dict[str, list[str]], chunk_buildings: int = 0) -> float:
     """Stop (``OutOfMemoryError``) when the run clearly needs more memory than the process may use.
 
-    ``files``: the run's input paths by kind. Returns the estimate [bytes].
+    ``files``: the run's input paths by kind; ``chunk_buildings`` the ``[run]`` setting. Returns the
+    estimate [bytes].
     """
     def rows_of(path):
         try:
@@ -140,13 +161,14 @@ def check(files: dict[str, list[str]]) -> float:
         except OSError:  # reported with its reason when the file is read
             return 0
     rows = {k: sum(rows_of(p) for p in files.get(k, [])) for k in ("readings", "buildings", "weather")}
-    need = estimate_peak(rows["readings"], rows["buildings"], rows["weather"])
+    need = estimate_peak(rows["readings"], rows["buildings"], rows["weather"], chunk_buildings)
     have, what = available()
     if need > have:
         raise OutOfMemoryError(
             f"not enough memory: {rows['readings']:,} readings of {rows['buildings']:,} buildings need about "
             f"{gb(need)}, and {what} leaves {gb(have)}; nothing was changed. Run on a machine with more "
-            "free memory, raise the limit, or screen the portfolio in smaller parts (fewer files per run)")
+            "free memory, raise the limit, lower [run] chunk_buildings, or screen the portfolio in smaller parts "
+            "(fewer files per run)")
     return need
 
 

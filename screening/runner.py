@@ -250,7 +250,7 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
        and the record in a state the next run settles (``published.settle_dead_runs``).
     """
     bar = bar or _Progress(False)
-    need = memory.check(files)  # stops here, nothing changed, when the run clearly cannot fit
+    need = memory.check(files, cfg["run"]["chunk_buildings"])  # stops here, nothing changed, if it cannot fit
     t_start = time.perf_counter()
     # run_key is the one id a user sees (sheets, ranking.pdf, summary.json, stderr, status, history): the
     # same for a rerun of the same quarter, inputs and settings, so reruns stay byte-identical. run_id

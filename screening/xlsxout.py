@@ -1,6 +1,7 @@
 """ranking.xlsx: the run's tables as one workbook for sorting, filtering and notes in a spreadsheet.
 
-Sheets ``ranking``, ``audit plan`` (audit_plan.csv), ``data issues``, ``rejects`` and ``assumptions``, each with a frozen
+Sheets ``ranking``, ``audit plan`` (audit_plan.csv), ``data issues``, ``rejects`` and ``assumptions`` (a table longer
+than a worksheet continues on ``assumptions (2)``, ...), each with a frozen
 header row, filters, column widths fitted to the content, number formats, units in the
 headers (``floor_area [ft²]``) and money as currency. Text that a spreadsheet would run as a
 formula is neutralized as in the CSVs (a leading ``'``), and the writer never turns text into
@@ -19,6 +20,18 @@ from .outputs import Display, neutralize_formulas
 
 #: The creation date written into the workbook (a fixed one: deterministic output).
 FIXED_CREATED = _dt.datetime(2000, 1, 1)
+#: Data rows per worksheet: the format's 1,048,576 rows less the header (ECMA-376 / Excel's limit). A
+#: longer table continues on sheets named ``<name> (2)``, ``<name> (3)``, ... (the assumptions of more
+#: than about 55,000 buildings), every row kept.
+SHEET_ROWS = 1_048_575
+
+
+def _pieces(name: str, df: pl.DataFrame, rows: int = SHEET_ROWS) -> list[tuple[str, pl.DataFrame]]:
+    """A table as one sheet, or as consecutive sheets of at most ``rows`` data rows each."""
+    if df.height <= rows:
+        return [(name, df)]
+    return [(name if k == 0 else f"{name} ({k + 1})", df.slice(k * rows, rows))
+            for k in range(-(-df.height // rows))]
 
 
 def _ranking_units(d: Display) -> dict[str, str]:
@@ -72,6 +85,7 @@ def write_ranking_xlsx(path: Path, *, ranking: pl.DataFrame, issues: pl.DataFram
     if plan is not None:
         sheets.append(("audit plan", with_units(plan)))
     sheets += [("data issues", issues), ("rejects", rejects), ("assumptions", assumptions)]
+    sheets = [piece for name, df in sheets for piece in _pieces(name, df)]
     wb = xlsxwriter.Workbook(str(path), {"strings_to_formulas": False, "strings_to_urls": False,
                                          "strings_to_numbers": False, "nan_inf_to_errors": True})
     try:

@@ -29,7 +29,23 @@ def test_count_rows_and_estimate(tmp_path):
     assert memory.count_rows(p) == 2
     small, big = memory.estimate_peak(1000, 10, 1000), memory.estimate_peak(5_000_000, 118_000, 1000)
     assert memory.BASE_BYTES < small < big
-    assert big == pytest.approx(small + memory.BYTES_PER_READING * 4_999_000 + memory.BYTES_PER_BUILDING * 117_990)
+    one_pass = max(memory.BYTES_PER_READING_READ * 5_000_000,
+                   memory.BYTES_PER_BUILDING * 118_000 + memory.BYTES_PER_CHUNK_READING * 5_000_000)
+    assert big == pytest.approx(memory.BASE_BYTES + memory.BYTES_PER_WEATHER_ROW * 1000 + one_pass)
+
+
+def test_estimate_is_linear_in_the_chunk_size():
+    # 1,000,000 buildings, 42 million readings; chunks of whole 4,096-building blocks
+    est = [memory.screening_bytes(42_000_000, 1_000_000, k * 4096) for k in (4, 8, 12)]
+    assert est[2] - est[1] == pytest.approx(est[1] - est[0]) and est[1] > est[0]
+    assert est[1] - est[0] == pytest.approx(memory.BYTES_PER_CHUNK_READING * 42_000_000 * 4 * 4096 / 1_000_000)
+    # chunk 0 (all at once) is the largest chunk; a size is rounded up to whole regression blocks
+    assert memory.screening_bytes(42_000_000, 1_000_000, 0) > est[2]
+    assert memory.screening_bytes(42_000_000, 1_000_000, 1) == memory.screening_bytes(42_000_000, 1_000_000, 4096)
+    # the run's estimate is the larger of reading the files and screening
+    assert memory.estimate_peak(42_000_000, 1_000_000, 0, 4096) == pytest.approx(
+        memory.BASE_BYTES + max(memory.BYTES_PER_READING_READ * 42_000_000,
+                                memory.screening_bytes(42_000_000, 1_000_000, 4096)))
 
 
 def test_check_refuses_a_run_larger_than_the_limit(tmp_path, monkeypatch):

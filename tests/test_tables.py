@@ -224,3 +224,13 @@ def test_ranking_xlsx_same_results_same_bytes(tmp_path):
     ws = openpyxl.load_workbook(a)["ranking"]
     assert [c.value for c in ws[1]] == ["rank", "building_id", "excess_cost [€/yr]", "period_start"]
     assert ws["C2"].number_format == '"€"#,##0'
+
+
+def test_a_table_longer_than_a_worksheet_continues_on_numbered_sheets():
+    from screening import xlsxout
+    df = pl.DataFrame({"building_id": [f"B{i}" for i in range(7)], "value": list(range(7))})
+    parts = xlsxout._pieces("assumptions", df, rows=3)
+    assert [n for n, _ in parts] == ["assumptions", "assumptions (2)", "assumptions (3)"]
+    assert pl.concat([p for _, p in parts]).equals(df)  # every row, in order
+    assert xlsxout._pieces("rejects", df, rows=7) == [("rejects", df)]
+    assert xlsxout.SHEET_ROWS == 1_048_576 - 1  # the worksheet's rows less the header
