@@ -663,7 +663,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     not_judged = "not judged until the data are fixed"
     # each unit line's parts after the first are dropped, last first, until the line fits its quarter of
     # the narrower paper (A4) at the unit line's size: nothing is cut and no field runs past its tab stop
-    def fit(parts, size=7.0):
+    def unit_line(parts, size=7.0):
         parts = [p for p in parts if p]
         while len(parts) > 1 and _text_width(" · ".join(parts), size) > _FIG_COL_PT:
             parts.pop()
@@ -676,13 +676,13 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         ("fv", tabbed([billed_text(s, "actual_heating"), billed_text(s, "expected_heating"),
                        "not judged" if blocked_figs else billed_text(s, "excess"),
                        "not judged" if blocked_figs else fmt_money(s.get("expected_recoverable_cost"), cur)], 60)),
-        ("fu", tabbed([fit([cost, f"{fmt_num(s.get('actual_heating'))} {eu}"]),
+        ("fu", tabbed([unit_line([cost, f"{fmt_num(s.get('actual_heating'))} {eu}"]),
                        # its range is in the verdict sentence above
-                       fit([f"{fmt_num(s.get('expected_heating'))} {eu}"]),
+                       unit_line([f"{fmt_num(s.get('expected_heating'))} {eu}"]),
                        not_judged if blocked_figs else
-                       fit([f"{fmt_money(s.get('excess_cost'), cur)} a year", f"{fmt_num(s.get('excess_energy'))} {eu}"]),
+                       unit_line([f"{fmt_money(s.get('excess_cost'), cur)} a year", f"{fmt_num(s.get('excess_energy'))} {eu}"]),
                        not_judged if blocked_figs else
-                       fit(["a year", billed_text(s, "expected_recoverable"), f"{rco2_v} {rco2_u} CO₂e"])], 80)),
+                       unit_line(["a year", billed_text(s, "expected_recoverable"), f"{rco2_v} {rco2_u} CO₂e"])], 80)),
     ]
     scale = _SCALE_TEXT.get(s.get("evidence_scale"), "")
     if scale and s.get("evidence_scale") == "blend" and _finite(s.get("peer_weight")):
