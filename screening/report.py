@@ -663,7 +663,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     not_judged = "not judged until the data are fixed"
     # each unit line's parts after the first are dropped, last first, until the line fits its quarter of
     # the narrower paper (A4) at the unit line's size: nothing is cut and no field runs past its tab stop
-    def fit_parts(parts, size=7.0):
+    def unit_line(parts, size=7.0):
         parts = [p for p in parts if p]
         while len(parts) > 1 and _text_width(" · ".join(parts), size) > _FIG_COL_PT:
             parts.pop()
@@ -676,13 +676,13 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         ("fv", tabbed([billed_text(s, "actual_heating"), billed_text(s, "expected_heating"),
                        "not judged" if blocked_figs else billed_text(s, "excess"),
                        "not judged" if blocked_figs else fmt_money(s.get("expected_recoverable_cost"), cur)], 60)),
-        ("fu", tabbed([fit_parts([cost, f"{fmt_num(s.get('actual_heating'))} {eu}"]),
+        ("fu", tabbed([unit_line([cost, f"{fmt_num(s.get('actual_heating'))} {eu}"]),
                        # its range is in the verdict sentence above
-                       fit_parts([f"{fmt_num(s.get('expected_heating'))} {eu}"]),
+                       unit_line([f"{fmt_num(s.get('expected_heating'))} {eu}"]),
                        not_judged if blocked_figs else
-                       fit_parts([f"{fmt_money(s.get('excess_cost'), cur)} a year", f"{fmt_num(s.get('excess_energy'))} {eu}"]),
+                       unit_line([f"{fmt_money(s.get('excess_cost'), cur)} a year", f"{fmt_num(s.get('excess_energy'))} {eu}"]),
                        not_judged if blocked_figs else
-                       fit_parts(["a year", billed_text(s, "expected_recoverable"), f"{rco2_v} {rco2_u} CO₂e"])], 80)),
+                       unit_line(["a year", billed_text(s, "expected_recoverable"), f"{rco2_v} {rco2_u} CO₂e"])], 80)),
     ]
     scale = _SCALE_TEXT.get(s.get("evidence_scale"), "")
     if scale and s.get("evidence_scale") == "blend" and _finite(s.get("peer_weight")):
@@ -1569,8 +1569,6 @@ def render_ranking(report: dict[str, Any], out_path: Path, *, paper: str = "Lett
         raise ValueError(f"report must be a dict, got {type(report).__name__}")
     out_path = Path(out_path)
     view = ranking_view(report, paper)
-    from .savings_page import savings_view  # the savings page (issue 17), when the report has "savings"
-    view["savings"] = savings_view(report)
     title = f"Heating screening ranking, run {view['run']['run_id']}"
     html = _state()["env"].get_template("ranking.html.j2").render(
         v=view, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__, columns=_COLUMN_CSS)
