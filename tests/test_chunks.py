@@ -93,16 +93,25 @@ def test_run_pulling_chunks_from_the_store_writes_the_one_pass_tables(tmp_path, 
         return out
     monkeypatch.setattr(runner.StoreReadings, "__call__", spy)
     src = sample_portfolio_dir()
+    # measures and audits in different chunks: savings after a measure are computed per chunk
+    ev = tmp_path / "events.csv"
+    ev.write_text("building_id,date,kind,finding,mechanism,description,expected_savings,cost\n"
+                  "B0010,2025-04-01,measure,,controls,new controls,5000,12000\n"
+                  "B0120,2025-03-15,measure,,heat loss,air sealing,,\n"
+                  "B0180,2025-02-01,audit,confirmed,controls,schedule stuck,,\n", encoding="utf-8")
     outs = {}
     for chunk in (0, 50):
-        ov = {"inputs": {k: str(src / f"{k}.csv") for k in ("buildings", "readings", "weather")},
+        ov = {"inputs": {**{k: str(src / f"{k}.csv") for k in ("buildings", "readings", "weather")},
+                         "events": str(ev)},
               "store": {"database": str(tmp_path / f"db{chunk}.duckdb")}, "analysis": {"as_of": "2026-10-15"},
               "output": {"sheets": False}, "run": {"chunk_buildings": chunk}}
         runner.run(overrides=ov, out_dir=str(tmp_path / f"out{chunk}"), force=True)
         outs[chunk] = tmp_path / f"out{chunk}"
     assert len(calls) == 4 and all(0 < n <= 50 and rows > 0 for n, rows in calls)
     ids = {c: json.loads((outs[c] / "summary.json").read_text())["run_id"] for c in outs}
-    for name in ("ranking.csv", "audit_plan.csv", "data_issues.csv", "rejects.csv", "assumptions.csv"):
+    assert (outs[0] / "savings.csv").read_text().count("\n") == 3  # a header and the two measures
+    for name in ("ranking.csv", "audit_plan.csv", "data_issues.csv", "rejects.csv", "assumptions.csv",
+                 "savings.csv"):
         assert (outs[0] / name).read_text().replace(ids[0], "") == (outs[50] / name).read_text().replace(ids[50], ""), name
     s0, s50 = (json.loads((outs[c] / "summary.json").read_text()) for c in (0, 50))
     s0.pop("run_id"), s50.pop("run_id")
