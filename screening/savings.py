@@ -158,7 +158,8 @@ def savings_uncertainty(cv_rmse_pct: np.ndarray, n: np.ndarray, n_eff: np.ndarra
     n = np.asarray(n, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         frac = G14_MONTHLY_FACTOR * (cv_rmse_pct / 100.0) * np.sqrt((n / n_eff) * (1.0 + 2.0 / n) / m)
-    u = t * frac * np.abs(baseline_kbtu)
+    with np.errstate(invalid="ignore"):  # no fit or no reporting bill: NaN, masked below
+        u = t * frac * np.abs(baseline_kbtu)
     return np.where((m > 0) & (n_eff > 0), u, np.nan)
 
 
