@@ -320,6 +320,18 @@ def _unknown_building_rejects(bad_r: pl.DataFrame, paths: dict) -> pl.DataFrame:
                         ).cast(REJECT_SCHEMA)
 
 
+#: The unit mix-ups each heating fuel's bills are prone to, named in the likely_unit_error detail (our own
+#: list, common practice in bill checking).
+UNIT_MIXUPS: dict[str, str] = {
+    "natural_gas": "therm against ccf or Mcf, kBtu against MMBtu",
+    "electricity": "kWh against MWh or Wh",
+    "fuel_oil": "gallons against litres",
+    "propane": "gallons against litres or lb",
+    "district_steam": "lb against Mlb",
+    "district_hot_water": "kBtu against MMBtu",
+}
+
+
 def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float, *, block: int = 16384) -> pl.DataFrame:
     """:func:`_unit_error_issues_block` over blocks of ``block`` buildings (each issue is one building's;
     the blocks bound the memory of the window statistics over every reading)."""
@@ -701,8 +713,12 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
                        & (pl.col("expected_heating_kbtu") > 0) & ratio.is_finite()
                        & ~pl.col("building_id").is_in(no_basis)).select(
         "building_id", pl.lit("likely_unit_error").alias("code"),
-        (pl.lit("metered heating is ") + ratio.round(3).cast(pl.String)
-         + pl.lit("× the expectation: check units (therm/ccf, kBtu/MMBtu) and the floor area")
+        (pl.lit("metered heating is ")
+         + pl.when(ratio >= 10).then(ratio.round(0).cast(pl.Int64).cast(pl.String))
+         .otherwise(ratio.round_sig_figs(3).cast(pl.String))
+         + pl.lit("× the expectation: check the units (")
+         + pl.col("heating_fuel").replace_strict(UNIT_MIXUPS, default="the unit column against the bills")
+         + pl.lit(") and the floor area")
          + pl.when((pl.col("heating_fuel") == "electricity") & (ratio < 1))
          .then(pl.lit("; for electric heat also a heat pump (give its seasonal COP as heating_efficiency) "
                       "or a meter whose lights, plugs and cooling leave little to heating"))

@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import atexit
 import contextlib
+import datetime as _dt
 import gc
 import hashlib
 import logging
@@ -433,7 +434,8 @@ def confidence_line(s: dict[str, Any]) -> str:
     level = 3
     if fit.get("method") != "regression":
         level = 1
-        bad.append("the bills are yearly totals, so the tool cannot see how heating follows the weather")
+        bad.append("there are too few bills, or bills too long, in the period judged to see how heating "
+                   "follows the weather")
     elif "poor_fit" in codes:
         level = 1
         bad.append("heating does not follow the weather closely, so the figures are rough")
@@ -482,8 +484,27 @@ def owner_verdict(s: dict[str, Any]) -> str:
     unit = _unit_words(s.get("billed_unit"), s.get("energy_unit") or "") if s.get("billed_unit") and _finite(
         s.get("expected_low_billed")) else (s.get("energy_unit") or "")
     need = (f"about {fmt_num(low)}" if fmt_num(low) == fmt_num(high) else f"{fmt_num(low)} to {fmt_num(high)}")
-    return (f"{head} Over the 12 months it used {used}{money} for heating; a building like it in this weather "
+    return (f"{head} Over the {_span_words(s)} it used {used}{money} for heating; a building like it in this weather "
             f"should need {need} {unit}.")
+
+
+def _codes_to_words(text: Any) -> Any:
+    """A data-issue or flag code in a sentence (``likely_unit_error``) as its plain text (schema)."""
+    if not isinstance(text, str):
+        return text
+    from .schema import DATA_ISSUES, FLAGS
+    words = {**{c: i.text for c, i in DATA_ISSUES.items()}, **FLAGS}
+    return re.sub(r"\b[a-z]+(?:_[a-z0-9]+)+\b", lambda m: words.get(m.group(0), m.group(0)), text)
+
+
+def _span_words(s: dict[str, Any]) -> str:
+    """'12 months', or the days of a shorter span judged (after a measure)."""
+    try:
+        days = (_dt.date.fromisoformat(str(s.get("period_end"))[:10])
+                - _dt.date.fromisoformat(str(s.get("period_start"))[:10])).days + 1
+    except ValueError:
+        return "12 months"
+    return "12 months" if days >= 360 else f"{days} days"
 
 
 def owner_steps(s: dict[str, Any], n: int) -> tuple[list[str], int]:
@@ -502,11 +523,21 @@ def owner_steps(s: dict[str, Any], n: int) -> tuple[list[str], int]:
     return steps[:n], max(len(steps) - n, 0)
 
 
-def since_measure_view(m: dict[str, Any] | None, paper_energy_unit: str = "") -> dict[str, Any] | None:
+def since_measure_view(m: dict[str, Any] | None, paper_energy_unit: str = "", *,
+                       billed_unit: str | None = None, per_billed: float | None = None) -> dict[str, Any] | None:
     """The "since the measure" box: a small chart (metered bars, the baseline's dashed line, by billing period)
-    and one sentence. ``m`` is the sheet record's ``since_measure`` (None or absent: no box)."""
+    and one sentence. ``m`` is the sheet record's ``since_measure`` (None or absent: no box). With
+    ``billed_unit`` and ``per_billed`` (display-unit energy per billed unit) the figures are in the bills' unit."""
     if not m:
         return None
+    if billed_unit and per_billed and _finite(per_billed) and per_billed > 0:
+        def conv(x):
+            return x / per_billed if _finite(x) else x
+        m = {**m, "energy_unit": _unit_words(billed_unit, billed_unit),
+             "avoided_energy": conv(m.get("avoided_energy")), "avoided_low_90": conv(m.get("avoided_low_90")),
+             "avoided_high_90": conv(m.get("avoided_high_90")),
+             "periods": [{**p, "baseline": conv(p.get("baseline")), "metered": conv(p.get("metered"))}
+                         for p in m.get("periods") or []]}
     periods = list(m.get("periods") or [])
     labels = []
     for p in periods:
@@ -525,7 +556,7 @@ def since_measure_view(m: dict[str, Any] | None, paper_energy_unit: str = "") ->
                     + (" more" if avoided < 0 else "")
                     + f" against what it would have used without it, over {len(periods)} billing period(s)")
         if _finite(lo) and _finite(hi):
-            sentence += f" (90 % range {fmt_num(lo)} to {fmt_num(hi)} {unit})"
+            sentence += f" (likely between {fmt_num(lo)} and {fmt_num(hi)} {unit}, at 90 % confidence)"
         sentence += "."
     else:
         sentence = f"Since {what} on {m.get('event_date') or 'n/a'}: no saving can be stated yet."
@@ -671,7 +702,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
 
     cost = fmt_money(s.get("heating_cost"), cur) if _finite(s.get("heating_cost")) else ""
     figs = [
-        ("fk", tabbed(["Heating used, 12 months", "Should need (middle)", "Above the expected range",
+        ("fk", tabbed([f"Heating used, {_span_words(s)}", "Should need (middle)", "Above the expected range",
                        "Likely recoverable"], 60)),
         ("fv", tabbed([billed_text(s, "actual_heating"), billed_text(s, "expected_heating"),
                        "not judged" if blocked_figs else billed_text(s, "excess"),
@@ -702,7 +733,12 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
                     f"{_BAND_TEXT.get(s.get('band_position'), 'band position n/a')}; normal year "
                     f"{fmt_num(s.get('normal_heating'))} {eu}; {fmt_num(s.get('heating_intensity'))} "
                     f"{s.get('intensity_unit', '')} (peers' median {fmt_num(s.get('peer_median_intensity'))}).")
-    since = since_measure_view(s.get("since_measure"), eu)
+    per_billed = (s["actual_heating"] / s["actual_heating_billed"]
+                  if _finite(s.get("actual_heating")) and _finite(s.get("actual_heating_billed"))
+                  and s["actual_heating_billed"] else None)
+    since = since_measure_view(s.get("since_measure"), eu, billed_unit=s.get("billed_unit"), per_billed=per_billed)
+    rank, n_b = s.get("rank"), s.get("n_buildings")
+    span_label = _span_words(s)
     is_blocked = bool(s.get("blocking")) or s.get("tier") == "Fix data first"
     return {
         "figs": figs,
@@ -716,12 +752,15 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "year_built": str(int(year)) if _finite(year) else "n/a",
         "station_id": _cut(s.get("station_id") or "n/a", 40),
         "period_start": s.get("period_start") or "n/a",
+        "span_label": span_label,
+        "order_text": (f"audit order {rank} of {n_b}" if isinstance(rank, int) and isinstance(n_b, int)
+                       else ""),
         "period_end": s.get("period_end") or "n/a",
         "span_note": _SPAN_NOTE.get(s.get("span_kind"), ""),
         "run_date": s.get("run_date") or "n/a",
         "run_id": _cut(s.get("run_id"), 60),
         "verdict": _cut(owner_verdict(s), lim["text"]),
-        "screen_verdict": _cut(s.get("screen_verdict") or s.get("verdict"), lim["text"]),
+        "screen_verdict": _cut(_codes_to_words(s.get("screen_verdict") or s.get("verdict")), lim["text"]),
         "kind": _cut(kind, lim["text"]),
         "steps": [_cut(t, lim["expl"]) for t in steps], "steps_more": steps_more,
         "confidence": _cut(confidence_line(s), lim["text"]),
@@ -1569,6 +1608,8 @@ def render_ranking(report: dict[str, Any], out_path: Path, *, paper: str = "Lett
         raise ValueError(f"report must be a dict, got {type(report).__name__}")
     out_path = Path(out_path)
     view = ranking_view(report, paper)
+    from .savings_page import savings_view  # the savings page (issue 17), when the report has "savings"
+    view["savings"] = savings_view(report)
     title = f"Heating screening ranking, run {view['run']['run_id']}"
     html = _state()["env"].get_template("ranking.html.j2").render(
         v=view, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__, columns=_COLUMN_CSS)

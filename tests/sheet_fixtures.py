@@ -146,16 +146,17 @@ _REAL_TIERS = ["Audit first", "Audit soon", "Watch", "No action", "Fix data firs
 
 
 def since_measure(k: int = 9) -> dict[str, Any]:
-    """A synthetic "since the measure" record (the events step's contract): k monthly periods."""
+    """A synthetic "since the measure" record (the events step's contract: display units, kBtu here; the
+    sheet shows it in the bills' unit): k monthly periods."""
     periods = []
     for m in range(k):
-        base = 900.0 - 60 * abs(m - 3)
+        base = 90000.0 - 6000 * abs(m - 3)
         periods.append({"start": f"2025-{m + 2:02d}-01", "end": f"2025-{m + 2:02d}-28", "baseline": base,
                         "metered": base * 0.82})
     avoided = sum(p["baseline"] - p["metered"] for p in periods)
     return {"event_date": "2025-01-20", "description": "roof insulation and new boiler controls",
             "periods": periods, "avoided_energy": avoided, "avoided_low_90": avoided * 0.7,
-            "avoided_high_90": avoided * 1.3, "energy_unit": "therm", "cost": avoided * 1.1, "currency": "$"}
+            "avoided_high_90": avoided * 1.3, "energy_unit": "kBtu", "cost": avoided * 0.011, "currency": "$"}
 
 
 def sheet_kinds() -> dict[str, dict[str, Any]]:
@@ -168,7 +169,7 @@ def sheet_kinds() -> dict[str, dict[str, Any]]:
         if tier == "Fix data first":
             s.update({"blocking": True, "data_issues": [
                 {"code": "likely_unit_error", "blocking": True, "explanation": "metered heating is 148.377x the "
-                 "expectation: check units (therm/ccf, kBtu/MMBtu) and the floor area"}],
+                 "expectation: check the units (therm against ccf or Mcf, kBtu against MMBtu) and the floor area"}],
                 "next_steps": ["Check the data first: likely_unit_error — correct the readings or the building "
                                "record and rerun."], "excess_billed": None, "expected_recoverable_cost": None})
         out[f"tier_{k + 1}"] = s

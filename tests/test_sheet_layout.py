@@ -132,7 +132,7 @@ def test_billed_units_and_money_on_the_owner_half(kinds):
     assert "Fix the data first" in flat["tier_5"] and "How sure the tool is: not yet" in flat["tier_5"]
     assert "not judged" in flat["tier_5"]
     assert "148.377x the expectation" in flat["tier_5"]   # the issue in plain words in the first step
-    assert "yearly totals" in flat["annual"]
+    assert "too few bills, or bills too long" in flat["annual"]
 
 
 def test_since_the_measure_box_only_when_given(kinds):
@@ -143,8 +143,9 @@ def test_since_the_measure_box_only_when_given(kinds):
     text = pages["measure"]["text"].replace("\n", " ")
     m = pages["measure"]["sheet"]["since_measure"]
     assert "roof insulation and new boiler controls" in text and "2025-01-20" in text
-    assert f"{report.fmt_num(m['avoided_energy'])} therm" in text
-    assert "90 % range" in text
+    # in the bills' unit (the record's figures are kBtu; the fixture bills 100 kBtu per therm)
+    assert f"{report.fmt_num(m['avoided_energy'] / 100)} therm" in text
+    assert "at 90 % confidence" in text
 
 
 def test_names_in_every_script_render_with_a_font_that_has_them(kinds):
