@@ -101,11 +101,13 @@ DEFAULTS: dict[str, dict[str, Any]] = {
         "unit_error_factor_expected": 10.0,  # metered/expected at or above this: likely unit or entry error
         "unit_error_factor_expected_low": 25.0,  # metered/expected at or below 1/this: likely unit or entry error
         "unit_error_factor_fit": 4.0,  # a bill this many times above (or below 1/this of) what its own weather fit predicts
+        "unit_error_isolation": 2.0,  # … and this many times apart from both neighbouring bills (a spike, not a step)
         "min_excess_ratio": 1.0,    # metered/expected (P50) must reach this for needs_review
         "peer_prior": 3.0,          # evidence scale: the peers' spread weighs n / (n + this), the model band the rest
         "sure_offset": 1.0,         # a view's sureness is Φ(z − this): half sure at z = 1
         "step_sure_z": 3.0,         # the step-up view is half sure at this robust z of the year-on-year change
         "mechanism_support": 0.5,   # a mechanism is named (with its checks) from this sureness on
+        "mechanism_weight": 0.5,    # share of the level view's sureness that rests on its surest mechanism
         "balance_point_sd_f": 5.0,  # model scale of fitted − engineering balance point [°F] (our own)
         "baseload_share_sd": 0.15,  # model scale of the non-heating share against the use type's (our own)
     },
@@ -232,11 +234,13 @@ RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
     ("thresholds", "unit_error_factor_expected"): (2.0, 10_000.0, "a factor"),
     ("thresholds", "unit_error_factor_expected_low"): (2.0, 10_000.0, "a factor"),
     ("thresholds", "unit_error_factor_fit"): (1.5, 10_000.0, "a factor"),
+    ("thresholds", "unit_error_isolation"): (1.0, 10_000.0, "a factor"),
     ("thresholds", "min_excess_ratio"): (0.5, 10.0, "a ratio"),
     ("thresholds", "peer_prior"): (0.0, 10_000.0, "a number of buildings"),
     ("thresholds", "sure_offset"): (-5.0, 10.0, "a robust z-score"),
     ("thresholds", "step_sure_z"): (0.0, 50.0, "a robust z-score"),
     ("thresholds", "mechanism_support"): (0.0, 1.0, "a share"),
+    ("thresholds", "mechanism_weight"): (0.0, 1.0, "a share"),
     ("thresholds", "balance_point_sd_f"): (0.5, 30.0, "a temperature difference in °F"),
     ("thresholds", "baseload_share_sd"): (0.01, 1.0, "a share"),
     ("plan", "audits_per_quarter"): (0, 1_000_000, "a whole number of buildings"),

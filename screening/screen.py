@@ -145,7 +145,8 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     Two views of a building's recoverable excess (see README "How the audit list is chosen"):
 
     * **level**: metered heating above the peers' (shrunk) expectation, E = metered − expected·e^c,
-      sure by w = Φ(z − sure_offset) with z the blended z of ln(metered/expected);
+      sure by w = Φ(z − sure_offset) · ((1 − m) + m · S) with z the blended z of ln(metered/expected),
+      S the sureness of the best-supported mechanism (½ without a monthly fit) and m = mechanism_weight;
     * **step up**: heating added since last year, E = metered · y / (1 + y) for a weather-normalized
       rise y, sure by Φ(z_yoy − step_sure_z), with path B's guards (a fit that explains the use, heating
       a fair share of the fuel).
@@ -163,8 +164,7 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     out = out.with_columns(
         pl.when(usable).then((pl.col("actual_heating_kbtu")
                               - pl.col("expected_heating_kbtu") * pl.col("_center_logr").exp()).clip(lower_bound=0))
-        .otherwise(None).alias("_e_level"),
-        pl.when(usable).then(_phi(pl.col("z_score") - t["sure_offset"])).otherwise(None).alias("_w_level"))
+        .otherwise(None).alias("_e_level"))
     step_ok = (~blk) & (pl.col("yoy_change") > 0) & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"])) \
         & (heat_share >= t["yoy_review_heating_share_min"]) & pl.col("z_yoy").is_not_null()
     out = out.with_columns(
@@ -202,6 +202,14 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
         _phi(pl.col("_z_hl") - t["sure_offset"]).alias("sure_heat_loss"),
         _phi(pl.col("_z_ct") - t["sure_offset"]).alias("sure_controls"),
         _phi(pl.col("_z_bl") - t["sure_offset"]).alias("sure_baseload"))
+    # the level view is as sure as its z, and more so where one mechanism's own evidence points the same way:
+    # × ((1 − m) + m · the surest mechanism), m = mechanism_weight; with no monthly fit (no mechanism
+    # evidence either way) the mechanisms count half sure
+    mech = pl.max_horizontal(*[pl.col(f"sure_{m}") for m in MECHANISMS]).fill_null(0.5)
+    out = out.with_columns(
+        pl.when(usable).then(_phi(pl.col("z_score") - t["sure_offset"])
+                             * ((1 - t["mechanism_weight"]) + t["mechanism_weight"] * mech))
+        .otherwise(None).alias("_w_level"))
     level = (pl.col("_w_level") * pl.col("_e_level")).fill_null(0.0)
     step = (pl.col("_w_step") * pl.col("_e_step")).fill_null(0.0)
     out = out.with_columns(
