@@ -674,7 +674,9 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
     non-heating share s and the engineering balance point as τ: ``H = (1 − s)·E``, the same
     normalization.
 
-    Returns ``building_id, yoy_change`` for the buildings where it is defined.
+    Returns ``building_id, yoy_change`` for the buildings where it is defined, and
+    ``prev_fuel_kbtu``: the heating fuel's whole use over the 12 months before the span (not weather
+    normalized), where the readings cover them.
     """
     fit = met.filter((((pl.col("fit_method") == "regression") & pl.col("fitted_base_f").is_not_null())
                       | ((pl.col("fit_method") == "default share") & pl.col("base_used_f").is_not_null()))
@@ -687,14 +689,14 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
         pl.col("span_start").dt.offset_by("-1y").alias("prev_start"),
         (pl.col("span_start") - pl.duration(days=1)).alias("prev_end"))
     if sp.height == 0:
-        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64})
+        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64, "prev_fuel_kbtu": pl.Float64})
     prev = metered.calendarize(conv, sp.select("building_id", pl.col("prev_start").alias("span_start"),
                                                pl.col("prev_end").alias("span_end")))
     prev = prev.filter(pl.col("is_heating_fuel")).group_by("building_id").agg(
         pl.col("energy_kbtu").sum().alias("e_prev"), pl.col("coverage").min().alias("cov_prev"))
     sp = sp.join(prev, on="building_id", how="inner").filter(pl.col("cov_prev") >= 0.99)
     if sp.height == 0:
-        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64})
+        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64, "prev_fuel_kbtu": pl.Float64})
     st = sp["station_id"].to_numpy()
     tau = sp["fitted_base_f"].to_numpy()
     hdd_cur = cube.at_base(st, sp["span_start"], sp["span_end"], tau)[0]
@@ -709,8 +711,8 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
         norm_cur = sp["actual_heating_kbtu"].to_numpy() * hdd_norm / hdd_cur
         yoy = norm_cur / norm_prev - 1.0
     ok = np.isfinite(yoy) & (miss_prev == 0) & (norm_prev > 0)
-    return pl.DataFrame({"building_id": sp["building_id"], "yoy_change": np.where(ok, yoy, np.nan)}).with_columns(
-        pl.col("yoy_change").fill_nan(None))
+    return pl.DataFrame({"building_id": sp["building_id"], "yoy_change": np.where(ok, yoy, np.nan),
+                         "prev_fuel_kbtu": sp["e_prev"]}).with_columns(pl.col("yoy_change").fill_nan(None))
 
 
 def _span_days() -> pl.Expr:
