@@ -336,17 +336,27 @@ def _unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float,
     mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
     heat = heat.with_columns((pl.col("energy_kbtu") / pl.col("days")).alias("_upd"), mid.dt.month().alias("_m"))
     # only months of substantial use: summer use of a heating fuel varies by large factors on its own
-    heat = heat.with_columns((pl.col("_upd") >= 0.5 * pl.col("_upd").median().over("building_id", "meter_id"))
-                             .alias("_big"))
+    heat = heat.with_columns(pl.col("_upd").median().over("building_id", "meter_id").alias("_mmed"))
+    heat = heat.with_columns((pl.col("_upd") >= 0.5 * pl.col("_mmed")).alias("_big"))
     big = pl.col("_upd").filter(pl.col("_big"))
-    heat = heat.with_columns(big.median().over("building_id", "meter_id", "_m").alias("_med"),
-                             big.count().over("building_id", "meter_id", "_m").alias("_n"),
-                             big.sum().over("building_id", "meter_id", "_m").alias("_sum"))
+    grp = ["building_id", "meter_id", "_m"]
+    heat = heat.with_columns(big.median().over(grp).alias("_med"), big.count().over(grp).alias("_n"),
+                             big.sum().over(grp).alias("_sum"), pl.col("_upd").count().over(grp).alias("_n_all"),
+                             pl.col("_upd").sum().over(grp).alias("_sum_all"),
+                             pl.col("_upd").median().over(grp).alias("_med_all"))
     # the reading against the same month of the other years: their median; with two readings the
-    # median sits between them, so each is compared with the other
-    q = pl.when(pl.col("_big") & (pl.col("_n") >= 2) & (pl.col("_med") > 0) & (pl.col("_upd") > 0)).then(
-        pl.when(pl.col("_n") == 2).then(pl.col("_upd") / (pl.col("_sum") - pl.col("_upd")))
-        .otherwise(pl.col("_upd") / pl.col("_med")))
+    # median sits between them, so each is compared with the other. A month of substantial use whose
+    # other years were small (a summer bill ×100) is compared with all of them, and counts only from
+    # UNIT_ERROR_FACTOR_ANY on and at `factor` × the meter's median month: summer use varies by large
+    # factors on its own (heating in warm weather that began on a heating-only fuel: ×124 on the
+    # simulator, seed 707), but never above the winter's bills
+    own = pl.when(pl.col("_n") == 2).then(pl.col("_upd") / (pl.col("_sum") - pl.col("_upd"))) \
+        .otherwise(pl.col("_upd") / pl.col("_med"))
+    all_ = pl.when(pl.col("_n_all") == 2).then(pl.col("_upd") / (pl.col("_sum_all") - pl.col("_upd"))) \
+        .otherwise(pl.col("_upd") / pl.col("_med_all"))
+    q = pl.when(pl.col("_big") & (pl.col("_n") >= 2) & (pl.col("_med") > 0) & (pl.col("_upd") > 0)).then(own) \
+        .when(pl.col("_big") & (pl.col("_n_all") >= 2) & (pl.col("_med_all") > 0) & (pl.col("_upd") > 0)
+              & (all_ >= UNIT_ERROR_FACTOR_ANY) & (pl.col("_upd") >= factor * pl.col("_mmed"))).then(all_)
     heat = heat.sort("building_id", "meter_id", "period_start").with_columns(q.alias("_q"))
     heat = heat.with_columns(_spike(pl.col("_q"), ["building_id", "meter_id"], isolation).alias("_spike"))
     odd = heat.filter(((pl.col("_q") >= factor) | (pl.col("_q") * factor <= 1)) & pl.col("_spike"))
