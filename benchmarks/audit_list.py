@@ -11,7 +11,7 @@ Portfolios (N = 300, window 2025-10-01 .. 2026-09-30, as_of 2026-10-15, no sheet
   2025-10-01. The true recoverable excess comes from the simulator's ``excess_window`` (the fuel each
   fault added over the window). Tuning seeds 11, 101, 202; held out 606, 707.
 * ``rc``: the outside world ``/work/shared/worlds/rc_world.py --onset mixed`` (another physics), scored
-  by its own ``score_world.py``. Tuning seeds 3, 4; held out 1, 2.
+  by its own ``score_world.py``. Tuning seeds 3, 4, 5, 6; held out 1, 2.
 
 Each portfolio is generated once into ``--work`` (default ``/tmp/ddscreen-audit-bench``) and screened by
 the whole tool (``runner.run``); the frame handed to ``screen.screen`` is saved beside it, so
@@ -45,7 +45,8 @@ FAULTS = {"wasteful": 0.12, "unit_error": 0.03, "missing_months": 0.03,
           "duplicate_readings": 0.0, "overlapping_periods": 0.0, "estimated_run": 0.0}
 SETS = {
     "tuning": [("sim-persistent", 11), ("sim-persistent", 101), ("sim-persistent", 202),
-               ("sim-onset", 11), ("sim-onset", 101), ("sim-onset", 202), ("rc", 3), ("rc", 4)],
+               ("sim-onset", 11), ("sim-onset", 101), ("sim-onset", 202), ("rc", 3), ("rc", 4), ("rc", 5),
+               ("rc", 6)],
     "held-out": [("sim-persistent", 606), ("sim-persistent", 707), ("sim-onset", 606), ("sim-onset", 707),
                  ("rc", 1), ("rc", 2)],
 }
@@ -153,8 +154,12 @@ def score(truth: pl.DataFrame, ranking: pl.DataFrame) -> dict:
     unseen = df.filter(~pl.col("blocked").fill_null(False) & (pl.col("exp_rec") <= 0))["excess_kbtu"].sum() / total
     top = df.sort(["rank", "building_id"]).head(k)
     slots = (int((top["label"] != "waste").sum()), k)     # first-10 % slots held by buildings without waste
+    faults = df.filter(pl.col("label") == "fault")
+    fault_top = int((top["label"] == "fault").sum())      # data faults in the first-10 % slots
     return {"capture10": round(tool, 3), "oracle10": round(oracle, 3), "recall": frac(waste),
             "excess_blocked": round(blocked, 3), "excess_unseen": round(unseen, 3), "slots_without_waste": slots,
+            "faults_blocked": (int(faults["blocked"].fill_null(False).sum()), faults.height), "faults_in_top": fault_top,
+            "waste_blocked": int(waste["blocked"].fill_null(False).sum()),
             "false_alarms": frac(normal),
             "by_mechanism": {m: frac(waste.filter(pl.col("mechanism") == m))
                              for m in sorted(waste["mechanism"].unique())},
@@ -177,8 +182,9 @@ def main() -> None:
     a = ap.parse_args()
     rows = []
     print("| portfolio | seed | capture@10 % | oracle | needs_review recall | false alarms "
-          "| excess in Fix data first | first-10 % slots without waste |")
-    print("|---|---|---|---|---|---|---|---|")
+          "| excess in Fix data first | first-10 % slots without waste | wasters / faults in Fix data first "
+          "| faults in the first 10 % |")
+    print("|---|---|---|---|---|---|---|---|---|---|")
     for kind, seed in SETS[a.set]:
         if a.only and kind not in a.only:
             continue
@@ -192,7 +198,8 @@ def main() -> None:
             s["score_world_capture10"] = sw["capture"]["at_10pct"]["tool"]
         rows.append({"portfolio": kind, "seed": seed, **s})
         print(f"| {kind} | {seed} | {s['capture10']:.2f} | {s['oracle10']:.2f} | {_pct(s['recall'])} | "
-              f"{_pct(s['false_alarms'])} | {s['excess_blocked']:.2f} | {s['slots_without_waste'][0]}/{s['slots_without_waste'][1]} |", flush=True)
+              f"{_pct(s['false_alarms'])} | {s['excess_blocked']:.2f} | {s['slots_without_waste'][0]}/{s['slots_without_waste'][1]} | "
+              f"{s['waste_blocked']} / {s['faults_blocked'][0]} of {s['faults_blocked'][1]} | {s['faults_in_top']} |", flush=True)
         if a.mechanisms:
             print("|  | by mechanism | " + "; ".join(f"{m} {h}/{n}" for m, (h, n) in s["by_mechanism"].items())
                   + " | by onset | " + "; ".join(f"{m} {h}/{n}" for m, (h, n) in s["by_onset"].items()) + " | |")

@@ -238,6 +238,9 @@ class Thresholds:
                                            "a bill this many times above (or below 1/this of) what its own weather "
                                            "fit predicts",
                                            range=(1.5, 10000.0, "a factor"))
+    unit_error_isolation: float = setting(2.0,
+                                          "… and this many times apart from both neighbouring bills (a spike, not a step)",
+                                          range=(1.0, 10_000.0, "a factor"))
     min_excess_ratio: float = setting(1.0,
                                       "metered/expected (P50) must reach this for needs_review",
                                       range=(0.5, 10.0, "a ratio"))
@@ -259,6 +262,9 @@ class Thresholds:
     baseload_share_sd: float = setting(0.15,
                                        "model scale of the non-heating share against the use type's (our own)",
                                        range=(0.01, 1.0, "a share"))
+    mechanism_weight: float = setting(0.5,
+                                      "share of the level view's sureness that rests on its surest mechanism",
+                                      range=(0.0, 1.0, "a share"))
 
 
 @dataclass

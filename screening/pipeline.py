@@ -332,50 +332,91 @@ UNIT_MIXUPS: dict[str, str] = {
 }
 
 
-def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float, *, block: int = 16384) -> pl.DataFrame:
+def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float, *, isolation: float = 1.0,
+                       block: int = 16384) -> pl.DataFrame:
     """:func:`_unit_error_issues_block` over blocks of ``block`` buildings (each issue is one building's;
     the blocks bound the memory of the window statistics over every reading)."""
     if b.height <= block:
-        return _unit_error_issues_block(conv, b, factor)
+        return _unit_error_issues_block(conv, b, factor, isolation)
     ids = b["building_id"]
     parts = [_unit_error_issues_block(conv.filter(pl.col("building_id").is_in(ids.slice(a, block).implode())),
-                                      b.slice(a, block), factor) for a in range(0, b.height, block)]
+                                      b.slice(a, block), factor, isolation) for a in range(0, b.height, block)]
     return pl.concat(parts).sort("building_id")
 
 
-def _unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float) -> pl.DataFrame:
-    """Readings that differ from the same calendar month of other years by ≥ ``factor``.
+#: a bill this many times off (or 1/this of) what was expected of it is a data fault even when its neighbours are
+#: off too: no operation multiplies a month's use by it (waste that began measured up to ×20 in a shoulder month
+#: on the outside world, seeds 3 and 4), and it keeps ×100 and ×1000 errors in a run of bills (our own margin)
+UNIT_ERROR_FACTOR_ANY = 50.0
+
+
+def _spike(q: pl.Expr, over: list[str], isolation: float) -> pl.Expr:
+    """A bill off by ``q`` [-] (its use against what was expected of it) that its neighbouring bills do not share.
+
+    ``q`` is compared with the previous and the next bill of the same series (``over``, in time order;
+    a missing neighbour or one with no ``q`` counts as 1): the bill must stand ``isolation`` times apart
+    from both, in its own direction, or be ``UNIT_ERROR_FACTOR_ANY`` times off on its own. A lost decimal
+    point, a wrong unit on one bill or a catch-up after estimated reads is a spike; waste that began, or a
+    building that changed, moves a run of bills together (a step), which this leaves to the comparisons of
+    the whole span.
+    """
+    prev = q.shift(1).over(over).fill_null(1.0)
+    nxt = q.shift(-1).over(over).fill_null(1.0)
+    hi = (q >= isolation * prev) & (q >= isolation * nxt)
+    lo = (q * isolation <= prev) & (q * isolation <= nxt)
+    far = (q >= UNIT_ERROR_FACTOR_ANY) | (q * UNIT_ERROR_FACTOR_ANY <= 1)
+    return (pl.when(q >= 1).then(hi).otherwise(lo) | far).fill_null(False)
+
+
+def _unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, isolation: float = 1.0
+                             ) -> pl.DataFrame:
+    """Readings that differ from the same calendar month of other years by ≥ ``factor``, as a spike.
 
     A factor of about 10, 100 or 1000 between years of one meter is the mark of a
     unit or entry error (therm vs ccf ×1.036 is too small to see; kBtu vs MMBtu is 1000).
+    Such a reading must also stand ``isolation`` × apart from the meter's previous and next
+    readings' own ratios (:func:`_spike`): a run of months off together is a step (waste that
+    began), which the ratio of the whole span to the expectation judges instead.
     """
+    empty = pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
+                                 "blocking": pl.Boolean})
     heat = conv.select("building_id", "meter_id", "fuel", "period_start", "period_end", "days", "energy_kbtu").join(
         b.select("building_id", "heating_fuel"), on="building_id").filter(
         (pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
     if heat.height == 0:
-        return pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
-                                    "blocking": pl.Boolean})
+        return empty
     mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
     heat = heat.with_columns((pl.col("energy_kbtu") / pl.col("days")).alias("_upd"), mid.dt.month().alias("_m"))
     # only months of substantial use: summer use of a heating fuel varies by large factors on its own
-    heat = heat.filter(pl.col("_upd") >= 0.5 * pl.col("_upd").median().over("building_id", "meter_id"))
-    heat = heat.with_columns(pl.col("_upd").median().over("building_id", "meter_id", "_m").alias("_med"),
-                             pl.col("_upd").count().over("building_id", "meter_id", "_m").alias("_n"))
-    odd = heat.filter((pl.col("_n") >= 2) & (pl.col("_med") > 0) & (pl.col("_upd") > 0)
-                      & (((pl.col("_upd") / pl.col("_med")) >= factor) | ((pl.col("_med") / pl.col("_upd")) >= factor)))
-    # with two readings the median sits between them: flag both by ratio to each other
-    grp = heat.filter(pl.col("_upd") > 0).group_by("building_id", "meter_id", "_m").agg(
-        (pl.col("_upd").max() / pl.col("_upd").min()).alias("_spread"))
-    grp = grp.filter(pl.col("_spread") >= factor)
-    odd2 = heat.join(grp, on=["building_id", "meter_id", "_m"]).filter(pl.col("_n") == 2)
-    odd = pl.concat([odd.select("building_id", "period_start", "period_end", "_upd", "_med"),
-                     odd2.select("building_id", "period_start", "period_end", "_upd", "_med")]).unique()
+    heat = heat.with_columns(pl.col("_upd").median().over("building_id", "meter_id").alias("_mmed"))
+    heat = heat.with_columns((pl.col("_upd") >= 0.5 * pl.col("_mmed")).alias("_big"))
+    big = pl.col("_upd").filter(pl.col("_big"))
+    grp = ["building_id", "meter_id", "_m"]
+    heat = heat.with_columns(big.median().over(grp).alias("_med"), big.count().over(grp).alias("_n"),
+                             big.sum().over(grp).alias("_sum"), pl.col("_upd").count().over(grp).alias("_n_all"),
+                             pl.col("_upd").sum().over(grp).alias("_sum_all"),
+                             pl.col("_upd").median().over(grp).alias("_med_all"))
+    # the reading against the same month of the other years: their median; with two readings the
+    # median sits between them, so each is compared with the other. A month of substantial use whose
+    # other years were small (a summer bill ×100) is compared with all of them, and counts only from
+    # UNIT_ERROR_FACTOR_ANY on and at `factor` × the meter's median month: summer use varies by large
+    # factors on its own (heating in warm weather that began on a heating-only fuel: ×124 on the
+    # simulator, seed 707), but never above the winter's bills
+    own = pl.when(pl.col("_n") == 2).then(pl.col("_upd") / (pl.col("_sum") - pl.col("_upd"))) \
+        .otherwise(pl.col("_upd") / pl.col("_med"))
+    all_ = pl.when(pl.col("_n_all") == 2).then(pl.col("_upd") / (pl.col("_sum_all") - pl.col("_upd"))) \
+        .otherwise(pl.col("_upd") / pl.col("_med_all"))
+    q = pl.when(pl.col("_big") & (pl.col("_n") >= 2) & (pl.col("_med") > 0) & (pl.col("_upd") > 0)).then(own) \
+        .when(pl.col("_big") & (pl.col("_n_all") >= 2) & (pl.col("_med_all") > 0) & (pl.col("_upd") > 0)
+              & (all_ >= UNIT_ERROR_FACTOR_ANY) & (pl.col("_upd") >= factor * pl.col("_mmed"))).then(all_)
+    heat = heat.sort("building_id", "meter_id", "period_start").with_columns(q.alias("_q"))
+    heat = heat.with_columns(_spike(pl.col("_q"), ["building_id", "meter_id"], isolation).alias("_spike"))
+    odd = heat.filter(((pl.col("_q") >= factor) | (pl.col("_q") * factor <= 1)) & pl.col("_spike"))
     if odd.height == 0:
-        return pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
-                                    "blocking": pl.Boolean})
+        return empty
     odd = odd.sort("building_id", "period_start").with_columns(
         (pl.col("period_start").cast(pl.String) + pl.lit("–") + pl.col("period_end").cast(pl.String)
-         + pl.lit(" (") + (pl.col("_upd") / pl.col("_med")).round(2).cast(pl.String) + pl.lit("× the same month's median)"))
+         + pl.lit(" (") + pl.col("_q").round(2).cast(pl.String) + pl.lit("× the same month's median)"))
         .alias("_d"))
     return odd.group_by("building_id").agg(pl.col("_d").str.join("; ").alias("detail")).select(
         "building_id", pl.lit("likely_unit_error").alias("code"),
@@ -383,7 +424,8 @@ def _unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float)
         .alias("detail"), pl.lit(True).alias("blocking")).sort("building_id")
 
 
-def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float) -> pl.DataFrame:
+def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float, isolation: float = 1.0
+                        ) -> pl.DataFrame:
     """Bills far off the building's own weather fit (code ``bill_off_fit``, blocking).
 
     Each fitted bill's use per day is compared with what the building's variable-base fit
@@ -392,6 +434,9 @@ def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float)
     (at least half the building's median bill per day): summer use varies by large factors on
     its own, winter-sized use in a summer bill does not. The same-month comparison across years
     (:func:`_unit_error_issues`) misses a summer bill, whose other years are too small to count.
+    The bill must also stand ``isolation`` × apart from its neighbours' own ratios to the fit
+    (:func:`_spike`): when waste begins inside the fitted months, the fit mixes before and after,
+    and a whole run of bills sits off it together (a step, not a data fault).
     """
     empty = pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
                                  "blocking": pl.Boolean})
@@ -403,8 +448,11 @@ def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float)
     p = periods.filter(pl.col("usable")).join(fit, on="building_id", how="inner").with_columns(
         (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
         (pl.col("_a") + pl.col("_b") * pl.col("hdd_per_day_fit")).alias("_pred"))
-    p = p.with_columns(pl.col("_upd").median().over("building_id").alias("_bmed"))
-    odd = p.filter((pl.col("_pred") > 0) & (pl.col("_upd") > 0) & (
+    p = p.sort("building_id", "period_start", "period_end").with_columns(
+        pl.col("_upd").median().over("building_id").alias("_bmed"),
+        pl.when((pl.col("_pred") > 0) & (pl.col("_upd") > 0)).then(pl.col("_upd") / pl.col("_pred")).alias("_q"))
+    p = p.with_columns(_spike(pl.col("_q"), ["building_id"], isolation).alias("_spike"))
+    odd = p.filter((pl.col("_pred") > 0) & (pl.col("_upd") > 0) & pl.col("_spike") & (
         ((pl.col("_upd") >= factor * pl.col("_pred")) & (pl.col("_upd") >= 0.5 * pl.col("_bmed")))
         | ((pl.col("_upd") * factor <= pl.col("_pred")) & (pl.col("_pred") >= 0.5 * pl.col("_bmed")))))
     if odd.height == 0:
@@ -645,8 +693,8 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
                                      max_estimated_share=thr["estimated_share_max"]),
               _missing_bill_issues(conv, spans, window),
               _filled_end_issues(met),
-              _unit_error_issues(conv, b, thr["unit_error_factor"]),
-              _fit_outlier_issues(periods, met, thr["unit_error_factor_fit"])]
+              _unit_error_issues(conv, b, thr["unit_error_factor"], isolation=thr["unit_error_isolation"]),
+              _fit_outlier_issues(periods, met, thr["unit_error_factor_fit"], thr["unit_error_isolation"])]
     wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
     # a station without a single day of weather in the span: its own issue, not a gap
     no_wx = wgap.filter(pl.col("missing") >= pl.col("span_days"))
@@ -881,7 +929,9 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
     non-heating share s and the engineering balance point as τ: ``H = (1 − s)·E``, the same
     normalization.
 
-    Returns ``building_id, yoy_change`` for the buildings where it is defined.
+    Returns ``building_id, yoy_change`` for the buildings where it is defined, and
+    ``prev_fuel_kbtu``: the heating fuel's whole use over the 12 months before the span (not weather
+    normalized), where the readings cover them.
     """
     fit = met.filter((((pl.col("fit_method") == "regression") & pl.col("fitted_base_f").is_not_null())
                       | ((pl.col("fit_method") == "default share") & pl.col("base_used_f").is_not_null()))
@@ -894,14 +944,14 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
         pl.col("span_start").dt.offset_by("-1y").alias("prev_start"),
         (pl.col("span_start") - pl.duration(days=1)).alias("prev_end"))
     if sp.height == 0:
-        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64})
+        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64, "prev_fuel_kbtu": pl.Float64})
     prev = metered.calendarize(conv, sp.select("building_id", pl.col("prev_start").alias("span_start"),
                                                pl.col("prev_end").alias("span_end")))
     prev = prev.filter(pl.col("is_heating_fuel")).group_by("building_id").agg(
         pl.col("energy_kbtu").sum().alias("e_prev"), pl.col("coverage").min().alias("cov_prev"))
     sp = sp.join(prev, on="building_id", how="inner").filter(pl.col("cov_prev") >= 0.99)
     if sp.height == 0:
-        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64})
+        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64, "prev_fuel_kbtu": pl.Float64})
     st = sp["station_id"].to_numpy()
     tau = sp["fitted_base_f"].to_numpy()
     hdd_cur = cube.at_base(st, sp["span_start"], sp["span_end"], tau)[0]
@@ -916,8 +966,8 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
         norm_cur = sp["actual_heating_kbtu"].to_numpy() * hdd_norm / hdd_cur
         yoy = norm_cur / norm_prev - 1.0
     ok = np.isfinite(yoy) & (miss_prev == 0) & (norm_prev > 0)
-    return pl.DataFrame({"building_id": sp["building_id"], "yoy_change": np.where(ok, yoy, np.nan)}).with_columns(
-        pl.col("yoy_change").fill_nan(None))
+    return pl.DataFrame({"building_id": sp["building_id"], "yoy_change": np.where(ok, yoy, np.nan),
+                         "prev_fuel_kbtu": sp["e_prev"]}).with_columns(pl.col("yoy_change").fill_nan(None))
 
 
 def _span_days() -> pl.Expr:

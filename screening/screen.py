@@ -118,15 +118,20 @@ def _blended_z(values: pl.Expr, group: str, model_sd: pl.Expr | float, t: dict) 
 def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFrame:
     """Excess per mechanism, how sure each is, and the expected recoverable energy, cost and CO2e.
 
-    Two views of a building's recoverable excess (see README "How the audit list is chosen"):
+    Three views of a building's recoverable excess (see README "How the audit list is chosen"):
 
     * **level**: metered heating above the peers' (shrunk) expectation, E = metered − expected·e^c,
-      sure by w = Φ(z − sure_offset) with z the blended z of ln(metered/expected);
+      sure by w = Φ(z − sure_offset) · ((1 − m) + m · S) with z the blended z of ln(metered/expected),
+      S the sureness of the best-supported mechanism (½ without a monthly fit) and m = mechanism_weight;
     * **step up**: heating added since last year, E = metered · y / (1 + y) for a weather-normalized
       rise y, sure by Φ(z_yoy − step_sure_z), with path B's guards (a fit that explains the use, heating
-      a fair share of the fuel).
+      a fair share of the fuel);
+    * **fuel step**: the heating fuel's whole use added since last year, E = total · y / (1 + y) for a
+      rise y ≥ yoy_review of the total (not weather normalized), sure by Φ(z − step_sure_z) with z the
+      robust z of ln(1 + y) among the buildings of the same weather station: heating in warm weather,
+      a hot-water leak, or a fit that no longer follows the weather move the total, not the heating.
 
-    The expected recoverable energy is the larger of w·E over the two views (they measure the same
+    The expected recoverable energy is the largest of w·E over the views (they measure the same
     excess). Three mechanisms, each from its own evidence in the monthly fit, say where the excess is:
     heat loss (effective UA from the slope against the envelope UA), controls (fitted against engineering
     balance point) and non-heating use of the heating fuel (baseload share against the use type's); each
@@ -139,14 +144,26 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     out = out.with_columns(
         pl.when(usable).then((pl.col("actual_heating_kbtu")
                               - pl.col("expected_heating_kbtu") * pl.col("_center_logr").exp()).clip(lower_bound=0))
-        .otherwise(None).alias("_e_level"),
-        pl.when(usable).then(_phi(pl.col("z_score") - t["sure_offset"])).otherwise(None).alias("_w_level"))
+        .otherwise(None).alias("_e_level"))
     step_ok = (~blk) & (pl.col("yoy_change") > 0) & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"])) \
         & (heat_share >= t["yoy_review_heating_share_min"]) & pl.col("z_yoy").is_not_null()
     out = out.with_columns(
         pl.when(step_ok).then(pl.col("actual_heating_kbtu") * pl.col("yoy_change") / (1 + pl.col("yoy_change")))
         .otherwise(None).alias("_e_step"),
         pl.when(step_ok).then(_phi(pl.col("z_yoy") - t["step_sure_z"])).otherwise(None).alias("_w_step"))
+    # the heating fuel's whole use against the 12 months before (not weather normalized: the robust z is taken
+    # among the buildings of one weather station, which share the year's weather): heating in warm weather or a
+    # leak moves the fuel's baseload, which the heating fit's step (yoy_change) cannot see
+    fuel_y = pl.when((~blk) & (pl.col("_prev_fuel") > 0) & (pl.col("total_fuel_kbtu") > 0)) \
+        .then(pl.col("total_fuel_kbtu") / pl.col("_prev_fuel"))
+    out = out.with_columns(fuel_y.log().alias("_lfy"), (fuel_y - 1).alias("_yoy_fuel"))
+    out = out.with_columns(robust_z(pl.col("_lfy"), "station_id").alias("_z_fuel"))
+    # (not weather normalized, so it counts only from path B's rise, yoy_review)
+    fstep_ok = (pl.col("_yoy_fuel") >= t["yoy_review"]) & pl.col("_z_fuel").is_not_null()
+    out = out.with_columns(
+        pl.when(fstep_ok).then(pl.col("total_fuel_kbtu") * pl.col("_yoy_fuel") / (1 + pl.col("_yoy_fuel")))
+        .otherwise(None).alias("_e_fstep"),
+        pl.when(fstep_ok).then(_phi(pl.col("_z_fuel") - t["step_sure_z"])).otherwise(None).alias("_w_fstep"))
     # mechanisms, from a monthly fit that follows the weather
     fit = (~blk) & reg & (pl.col("r2") >= t["r2_min"]).fill_null(False) & (pl.col("heating_slope_kbtu_per_dd") > 0) \
         & (pl.col("actual_heating_kbtu") > 0)
@@ -178,12 +195,22 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
         _phi(pl.col("_z_hl") - t["sure_offset"]).alias("sure_heat_loss"),
         _phi(pl.col("_z_ct") - t["sure_offset"]).alias("sure_controls"),
         _phi(pl.col("_z_bl") - t["sure_offset"]).alias("sure_baseload"))
+    # the level view is as sure as its z, and more so where one mechanism's own evidence points the same way:
+    # × ((1 − m) + m · the surest mechanism), m = mechanism_weight; with no monthly fit (no mechanism
+    # evidence either way) the mechanisms count half sure
+    mech = pl.max_horizontal(*[pl.col(f"sure_{m}") for m in MECHANISMS]).fill_null(0.5)
+    out = out.with_columns(
+        pl.when(usable).then(_phi(pl.col("z_score") - t["sure_offset"])
+                             * ((1 - t["mechanism_weight"]) + t["mechanism_weight"] * mech))
+        .otherwise(None).alias("_w_level"))
     level = (pl.col("_w_level") * pl.col("_e_level")).fill_null(0.0)
     step = (pl.col("_w_step") * pl.col("_e_step")).fill_null(0.0)
+    fstep = (pl.col("_w_fstep") * pl.col("_e_fstep")).fill_null(0.0)
     out = out.with_columns(
-        pl.when(blk | (pl.col("_e_level").is_null() & pl.col("_e_step").is_null())).then(None)
-        .otherwise(pl.max_horizontal(level, step)).alias("expected_recoverable_kbtu"),
-        pl.when(step > level).then(pl.lit("step up")).when(level > 0).then(pl.lit("level"))
+        pl.when(blk | (pl.col("_e_level").is_null() & pl.col("_e_step").is_null() & pl.col("_e_fstep").is_null()))
+        .then(None).otherwise(pl.max_horizontal(level, step, fstep)).alias("expected_recoverable_kbtu"),
+        pl.when((fstep > step) & (fstep > level)).then(pl.lit("fuel step"))
+        .when(step > level).then(pl.lit("step up")).when(level > 0).then(pl.lit("level"))
         .otherwise(None).alias("_view"))
     return out.with_columns(
         (pl.col("expected_recoverable_kbtu") * pl.col("usd_per_kbtu")).alias("expected_recoverable_cost"),
@@ -223,7 +250,7 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     previous year), ``flag_codes, flag_texts, needs_review, review_path`` ("level", "step up",
     "level and step up" or null), ``peer_weight, evidence_scale`` (the blended evidence scale:
     "peers", "model band" or "blend"), ``expected_recoverable_kbtu, expected_recoverable_cost,
-    expected_recoverable_co2e_kg`` (the larger of the level and step-up views, each weighted by how
+    expected_recoverable_co2e_kg`` (the largest of the level, step-up and fuel-step views, each weighted by how
     sure it is), ``excess_heat_loss_kbtu, excess_controls_kbtu, excess_baseload_kbtu, sure_heat_loss,
     sure_controls, sure_baseload`` (per mechanism), ``in_plan`` (this quarter's audit plan),
     ``tier, tier_rank, rank`` (the audit order; tiers are plain groups along it), ``verdict,
@@ -348,6 +375,8 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         .when(rise).then(pl.lit("step up"))
         .otherwise(None).alias("review_path"),
     )
+    out = out.with_columns((pl.col("prev_fuel_kbtu") if "prev_fuel_kbtu" in out.columns
+                            else pl.lit(None, dtype=pl.Float64)).alias("_prev_fuel"))
     out = _recoverable(out, t, heat_share)
     # the audit order: buildings that can be judged by expected recoverable cost; then those whose data
     # must be fixed first, by the money at stake (their heating's cost), so a data problem never takes
@@ -406,7 +435,8 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         "baseload_share", "baseload_share_default", "fitted_base_f", "r2", "cv_rmse", "yoy_change",
         "tier", "needs_review", "blocking", "excess_energy_kbtu", "evidence_score", "z_balance_point", "z_intensity",
         "z_yoy", "review_path", "span_kind", "data_issue_codes", "balance_point_f", "effective_ua_btu_h_f",
-        "ua_total", "expected_recoverable_kbtu", "expected_recoverable_cost", "_view", "_w_step",
+        "ua_total", "expected_recoverable_kbtu", "expected_recoverable_cost", "_view", "_w_step", "_w_fstep",
+        "_yoy_fuel", "_z_fuel",
         "excess_heat_loss_kbtu", "excess_controls_kbtu", "excess_baseload_kbtu",
         "sure_heat_loss", "sure_controls", "sure_baseload", "fit_method", "in_plan",
         *[c for c in out.columns if c.startswith("_f_")])
@@ -533,8 +563,12 @@ def _waste_kind(r: dict, ms: list[str], t: dict, *, si: bool) -> str:
                          f"about {_fmt(100 * r['baseload_share_default'])} % is typical): {MECHANISM_CHECKS[m]}")
     step = r["_view"] == "step up" and (r["_w_step"] or 0) >= t["mechanism_support"] \
         and (r["yoy_change"] or 0) >= t["yoy_rise"]
+    fstep = r["_view"] == "fuel step" and (r["_w_fstep"] or 0) >= t["mechanism_support"] \
+        and (r["_yoy_fuel"] or 0) >= t["yoy_rise"]
     lead = (f"Heating rose {_fmt(100 * r['yoy_change'])} % on last year: ask what changed (equipment, "
-            "schedules, a failed component)") if step else ""
+            "schedules, a failed component)") if step else \
+        (f"Use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year, more than its heating explains: "
+         "ask what changed (heating in warm weather, hot water, a leak, a failed component)") if fstep else ""
     if parts and r["tier"] == "No action":
         return ("Expected savings too small for a visit; the bills point to " + "; and to ".join(parts)
                 + ", at the next routine visit.")
@@ -547,6 +581,9 @@ def _waste_kind(r: dict, ms: list[str], t: dict, *, si: bool) -> str:
         return (f"Use does not follow the weather (R² {_fmt(r['r2'], 2)}): these bills cannot size an excess; "
                 "check operation and meters first.")
     if r["tier"] not in ("No action",) and (r["expected_recoverable_kbtu"] or 0) > 0:
+        if r["_view"] == "fuel step":
+            return (f"Use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year, more than its heating "
+                    "explains; the bills do not show where (heating in warm weather, hot water, a leak?).")
         if r["fit_method"] != "regression":
             return "Heating above what its peers' bills suggest; annual bills cannot show which part is in excess."
         return "Heating above what its peers' bills suggest; no single mechanism stands out in the bills."
@@ -564,6 +601,10 @@ def _not_listed(r: dict, t: dict, money: str | None, plan: str) -> str:
     elif r["_view"] == "step up":
         why.append(f"its rise on last year ({_fmt(100 * r['yoy_change'])} %, z {_fmt(r['z_yoy'], 1)}) is below "
                    f"{_fmt(100 * t['yoy_review'])} % at z {t['yoy_review_z']:g}")
+    elif r["_view"] == "fuel step":
+        why.append(f"the rise is in its whole use of the heating fuel ({_fmt(100 * r['_yoy_fuel'])} % on last year, "
+                   f"z {_fmt(r['_z_fuel'], 1)} among the buildings of its weather station), not in its weather-"
+                   "normalized heating")
     elif ratio < t["min_excess_ratio"]:
         why.append(f"its heating is not above the model's central expectation ({_fmt(ratio, 2)}×)")
     else:
@@ -578,6 +619,8 @@ def _not_listed(r: dict, t: dict, money: str | None, plan: str) -> str:
         return (f"Heating is {_fmt(ratio, 2)}× the expectation, but no excess can be counted on: "
                 + "; ".join(why) + ".")
     basis = (f"; it rose {_fmt(100 * r['yoy_change'])} % on last year" if r["_view"] == "step up"
+             else f"; its use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year"
+             if r["_view"] == "fuel step"
              else "; its peers' bills put it above what buildings like it use" if ratio < 1 else "")
     return (f"Heating is {_fmt(ratio, 2)}× the model's expectation{basis}: expected recoverable about {money} a "
             "year. The evidence is not strong enough for the audit list: " + "; ".join(why) + "." + plan)
