@@ -360,7 +360,7 @@ def sheet_records(res: pl.DataFrame, envelope: pl.DataFrame, periods: pl.DataFra
             "run_date": run_date, "run_id": run_id,
             "energy_unit": d.energy_unit, "temp_unit": d.temp_unit, "dd_unit": d.dd_unit,
             "intensity_unit": d.intensity_unit,
-            "verdict": r["verdict"], "tier": r["tier"], "tier_rank": r["tier_rank"], "rank": r.get("rank"), "n_buildings": res.height, "needs_review": r["needs_review"],
+            "verdict": r["verdict"], "tier": r["tier"], "tier_rank": r["tier_rank"], "rank": r.get("rank"), "n_buildings": res.height, "recoverable_basis": r.get("recoverable_basis"), "needs_review": r["needs_review"],
             "actual_heating": d.val("energy", r["actual_heating_kbtu"]),
             "expected_heating": d.val("energy", r["expected_heating_kbtu"]),
             "expected_low": d.val("energy", r["expected_low_kbtu"]),

@@ -488,6 +488,18 @@ def owner_verdict(s: dict[str, Any]) -> str:
             f"should need {need} {unit}.")
 
 
+#: Where the "likely recoverable" figure comes from (screen.py's views), for the owner: it can exceed the
+#: excess above the range, which is measured against this building's own estimate only.
+_BASIS_TEXT: dict[str | None, str] = {
+    "level": ("The likely recoverable figure compares its heating with what similar buildings use against their "
+              "own estimates, weighted by how sure the evidence is."),
+    "step up": "The likely recoverable figure is the rise in its weather-corrected heating on last year, weighted "
+               "by how sure the evidence is.",
+    "fuel step": "The likely recoverable figure is the rise in its heating fuel's whole use on last year, weighted "
+                 "by how sure the evidence is.",
+}
+
+
 def _codes_to_words(text: Any) -> Any:
     """A data-issue or flag code in a sentence (``likely_unit_error``) as its plain text (schema)."""
     if not isinstance(text, str):
@@ -720,6 +732,10 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         scale = scale.format(pct=round(100 * s["peer_weight"]))
     # a building whose data block a verdict has no kind of waste yet: its first step says what to fix
     kind = "" if s.get("blocking") else plain_text(s.get("waste_kind") or "")
+    basis = _BASIS_TEXT.get(s.get("recoverable_basis"))
+    if basis and not s.get("blocking") and _finite(s.get("expected_recoverable_cost")) \
+            and s["expected_recoverable_cost"] > 0:
+        kind = (kind + " " if kind else "") + basis
     steps, steps_more = owner_steps(s, lim["steps"])
     sc = s.get("scores") or {}
     scores_text = ""

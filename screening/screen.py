@@ -415,6 +415,8 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
                    descending=[False, True, True, True, False], nulls_last=True)
     out = out.with_row_index("rank", offset=1).with_columns(pl.col("rank").cast(pl.Int64))
     out = _explain(out, t, energy_factor=energy_factor, energy_unit=energy_unit, currency=currency)
+    # which view sized the expected recoverable energy (level, step up, fuel step): the sheet says it in words
+    out = out.with_columns(pl.col("_view").alias("recoverable_basis"))
     return out.drop([c for c in out.columns if c.startswith("_")])
 
 
