@@ -26,7 +26,7 @@ degree days x an envelope UA with documented defaults; this simulator instead
 
 Envelope values (U-factors, air change rates, window fractions, setpoints, gains, efficiencies)
 are drawn from this module's own era curves and wide log-normal spreads; they are not any
-handbook's default table. Ranges were checked against /work/shared/reference/factors.md for
+handbook's default table. Ranges were checked against docs/factors.md for
 plausibility only (values there tagged (M) are memory ranges).
 
 Public API
@@ -53,19 +53,19 @@ import polars as pl
 
 # ----------------------------------------------------------------------------------------------
 # Constants. Conversion factors are definitions or published values quoted in
-# /work/shared/reference/factors.md; everything else is this simulator's own invention.
+# docs/factors.md; everything else is this simulator's own invention.
 # ----------------------------------------------------------------------------------------------
-BTU_PER_KWH = 3412.1416          # factors.md §8 (C), from the IT Btu definition
-BTU_PER_THERM = 100_000.0        # definition (factors.md §1, [S4])
-BTU_PER_GJ = 947_817.12          # factors.md §1/§8 (C)
-FT3_PER_M3 = 35.314666721        # 1 ft = 0.3048 m exact (factors.md §8)
-L_PER_GAL = 3.785411784          # US gallon, exact (factors.md §8)
-FT2_PER_M2 = 1.0 / 0.09290304    # exact (factors.md §8)
-W_K_PER_BTU_H_F = 0.5275279      # 1 Btu/(h·°F) = 0.5275279 W/K (factors.md §8)
-BTU_H_PER_W = 3.412142           # factors.md §8
-AIR_BTU_FT3_F = 0.018            # 0.075 lb/ft³ x 0.24 Btu/(lb·°F) (factors.md §3)
-OIL_BTU_PER_GAL = 138_500.0      # No. 2 heating oil, EIA (factors.md §1 [S2])
-PROPANE_BTU_PER_GAL = 91_452.0   # EIA 2022 prelim. (factors.md §1 [S2])
+BTU_PER_KWH = 3412.1416          # docs/factors.md §8 (C), from the IT Btu definition
+BTU_PER_THERM = 100_000.0        # definition (docs/factors.md §1, [S4])
+BTU_PER_GJ = 947_817.12          # docs/factors.md §1/§8 (C)
+FT3_PER_M3 = 35.314666721        # 1 ft = 0.3048 m exact (docs/factors.md §8)
+L_PER_GAL = 3.785411784          # US gallon, exact (docs/factors.md §8)
+FT2_PER_M2 = 1.0 / 0.09290304    # exact (docs/factors.md §8)
+W_K_PER_BTU_H_F = 0.5275279      # 1 Btu/(h·°F) = 0.5275279 W/K (docs/factors.md §8)
+BTU_H_PER_W = 3.412142           # docs/factors.md §8
+AIR_BTU_FT3_F = 0.018            # 0.075 lb/ft³ x 0.24 Btu/(lb·°F) (docs/factors.md §3)
+OIL_BTU_PER_GAL = 138_500.0      # No. 2 heating oil, EIA (docs/factors.md §1 [S2])
+PROPANE_BTU_PER_GAL = 91_452.0   # EIA 2022 prelim. (docs/factors.md §1 [S2])
 
 USE_TYPES = ("office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other")
 FUELS = ("natural_gas", "fuel_oil", "propane", "electricity", "district_steam", "district_hot_water")

@@ -70,7 +70,7 @@ _F_AT_0C = 32.0
 WEATHER_COLUMNS = ("station_id", "date", "t_min_f", "t_max_f", "t_mean_f")
 
 # Erbs, Klein & Beckman (1983) correlation constants. RECALLED, not re-read from the
-# paper (see /work/shared/reference/degree-days.md §4, tagged [M]): treat the
+# paper (see docs/degree-days.md §4, tagged [M]): treat the
 # estimates as approximate until checked against the 1983 paper or Duffie & Beckman.
 _ERBS_A = 1.698
 _ERBS_S0, _ERBS_S_TM, _ERBS_S_SY = 1.45, -0.0290, 0.0664
@@ -169,7 +169,7 @@ def nws_round_mean(t_max, t_min):
     References
     ----------
     .. [1] NWS Burlington, "Degree days" (weather.gov/media/btv/degreedays.pdf), as quoted in
-       /work/shared/reference/degree-days.md §1.
+       docs/degree-days.md §1.
     .. [2] NCDC notice on rounding, https://mailinglists.unidata.ucar.edu/archives/nws-changes/2012/msg00193.html
     """
     mx = np.asarray(t_max, dtype=np.float64)
@@ -348,7 +348,7 @@ def erbs_monthly_hdd(t_mean_month_c, n_days, base_c, sigma_yr_c):
     ``N·(Tb − T̄_m)⁺``.
 
     **The constants are recalled, not re-read from the paper** (reference file
-    degree-days.md §4 tags them [M]); on the TMY files shipped with pvlib the recalled
+    docs/degree-days.md §4 tags them [M]); on the TMY files shipped with pvlib the recalled
     form reproduces annual HDD65 within ~2 % in cold and mixed climates and is poor in
     warm climates near the base (Miami 89 vs 130 °F·day). Whether σ_yr uses divisor
     12 or 11 is not confirmed; this package uses 12.

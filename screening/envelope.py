@@ -106,7 +106,7 @@ def air_heat_capacity_ip() -> tuple[float, float]:
 
     References
     ----------
-    .. [1] ASHRAE standard air (sea level); sensible heat equation, factors.md §3 [S9].
+    .. [1] ASHRAE standard air (sea level); sensible heat equation, docs/factors.md §3 [S9].
     """
     c = constants()
     rho_cp = c["air_density_lb_ft3"] * c["air_cp_btu_lb_f"]
@@ -130,7 +130,7 @@ def infiltration_ua(ach, volume_ft3):
 
     References
     ----------
-    .. [1] factors.md §3; ASHRAE Fundamentals, infiltration sensible load (0.018 = ρ·c_p of
+    .. [1] docs/factors.md §3; ASHRAE Fundamentals, infiltration sensible load (0.018 = ρ·c_p of
        standard air).
     """
     ach = np.asarray(ach, dtype=float)
@@ -165,7 +165,7 @@ def ventilation_ua(cfm, recovery, occupied_fraction):
 
     References
     ----------
-    .. [1] Sensible heat equation Q = 1.08·cfm·ΔT, factors.md §3 [S9]; ASHRAE 62.1 rates.
+    .. [1] Sensible heat equation Q = 1.08·cfm·ΔT, docs/factors.md §3 [S9]; ASHRAE 62.1 rates.
     """
     cfm = np.asarray(cfm, dtype=float)
     recovery = np.asarray(recovery, dtype=float)
@@ -232,8 +232,8 @@ def balance_point(setpoint_f, gains_btu_h, ua_btu_h_f):
 
     References
     ----------
-    .. [1] Balance point temperature, factors.md §5 [S13]; ASHRAE Fundamentals,
-       variable-base degree-day method (degree-days.md §5).
+    .. [1] Balance point temperature, docs/factors.md §5 [S13]; ASHRAE Fundamentals,
+       variable-base degree-day method (docs/degree-days.md §5).
     """
     setpoint_f = np.asarray(setpoint_f, dtype=float)
     gains_btu_h = np.asarray(gains_btu_h, dtype=float)
@@ -263,7 +263,7 @@ def degree_day_heating_kbtu(ua, dd, efficiency):
 
     References
     ----------
-    .. [1] Degree-day method, degree-days.md §5 ("BLC × DD × 24 h × eff"); factors.md §5.
+    .. [1] Degree-day method, docs/degree-days.md §5 ("BLC × DD × 24 h × eff"); docs/factors.md §5.
     """
     ua = np.asarray(ua, dtype=float)
     dd = np.asarray(dd, dtype=float)
@@ -307,7 +307,7 @@ def modified_dd_factor(dd):
 
     References
     ----------
-    .. [1] ASHRAE Handbook (1980s), modified degree-day method (from memory; degree-days.md §5).
+    .. [1] ASHRAE Handbook (1980s), modified degree-day method (from memory; docs/degree-days.md §5).
     """
     dd = np.asarray(dd, dtype=float)
     _nonneg("dd", dd)
@@ -514,7 +514,7 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
 
     References
     ----------
-    .. [1] factors.md §3–§6; degree-days.md §5; ASHRAE Fundamentals degree-day methods.
+    .. [1] docs/factors.md §3–§6; docs/degree-days.md §5; ASHRAE Fundamentals degree-day methods.
     """
     missing = [c for c in _REQUIRED if c not in buildings.columns]
     if missing:
@@ -777,7 +777,7 @@ def expected_heating(envelope: pl.DataFrame, base_grid_f: np.ndarray, hdd_curve:
 
     References
     ----------
-    .. [1] degree-days.md §5 (variable base, modified degree-day method); factors.md §5.
+    .. [1] docs/degree-days.md §5 (variable base, modified degree-day method); docs/factors.md §5.
     """
     grid = np.asarray(base_grid_f, dtype=float)
     curve = np.asarray(hdd_curve, dtype=float)

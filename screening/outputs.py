@@ -16,7 +16,7 @@ from .schema import FLAGS, KBTU_TO_KWH, REJECT_SCHEMA
 
 FT2_TO_M2 = 0.09290304              # exact
 BTU_H_F_TO_W_K = 0.52752792631      # NIST SP 811: 1 Btu_IT/h = 0.29307107 W; × 1.8
-INTENSITY_IP_TO_SI = 5.678263341    # Btu/(ft²·°F·day) → Wh/(m²·K·day) (factors.md §8; pint check in tests)
+INTENSITY_IP_TO_SI = 5.678263341    # Btu/(ft²·°F·day) → Wh/(m²·K·day) (docs/factors.md §8; pint check in tests)
 
 CAUTIONS = [
     "Screening estimate for information only: not an energy audit, a design, or a code-compliance determination.",

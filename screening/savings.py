@@ -10,7 +10,7 @@ Sources
 - ASHRAE Guideline 14-2014, *Measurement of Energy, Demand, and Water Savings*, Annex B
   (uncertainty of savings from a regression baseline, monthly data, with the 1.26 correction
   and the autocorrelation adjustment n' = n(1 − ρ)/(1 + ρ)) and its whole-building compliance
-  limits for the baseline model — **from memory**; /work/shared/reference/degree-days.md §6
+  limits for the baseline model — **from memory**; docs/degree-days.md §6
   holds the same regression-baseline limits, marked there as memory too ([M]).
 - Student's t distribution (its density, any real ν as n' − p gives), integrated numerically:
   no table and no runtime dependency on scipy.
@@ -22,7 +22,7 @@ import math
 
 import numpy as np
 
-#: ASHRAE Guideline 14-2014 (from memory; degree-days.md §6 [M]): a whole-building regression
+#: ASHRAE Guideline 14-2014 (from memory; docs/degree-days.md §6 [M]): a whole-building regression
 #: baseline of monthly energy use with CV(RMSE) at most 20 % and a net determination bias
 #: (NMBE on the baseline's own data) of at most 0.005 %. Defaults of ``[savings]`` in config.
 G14_CV_RMSE_MAX_PCT = 20.0

@@ -203,7 +203,7 @@ BUILDINGS: tuple[Column, ...] = (
     Column("window_fraction", "window_fraction", "float", False, "window-to-wall ratio, 0–0.95", "fraction",
            "fraction", lo=0, hi=0.95),
     # infiltration at natural pressures: at most 10 per hour. Leaky old buildings reach 1–2 /h (ACH50 ÷ 20,
-    # common practice; factors.md ACH by age); a blower-door ACH50 of 10–20 entered as natural ACH is the
+    # common practice; docs/factors.md ACH by age); a blower-door ACH50 of 10–20 entered as natural ACH is the
     # likely mistake above 10.
     Column("air_changes", "ach", "float", False, "infiltration, air changes per hour", "1/h", "1/h", lo=0, hi=10),
     Column("outdoor_air", "outdoor_air_cfm_ft2", "float", False, "mechanical ventilation", "cfm/ft²", "L/(s·m²)",

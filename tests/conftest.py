@@ -52,7 +52,7 @@ BUILDINGS = [
 ]
 UNIT_OF = {"natural_gas": "therm", "fuel_oil": "gal", "electricity": "kWh"}
 BTU_PER_UNIT = {"therm": 100_000.0,          # definition (EIA: 1 therm = 100,000 Btu)
-                "gal": 138_500.0,            # EIA No. 2 heating oil, Btu/gal (factors.md §1)
+                "gal": 138_500.0,            # EIA No. 2 heating oil, Btu/gal (docs/factors.md §1)
                 "kWh": 3_412.141633}         # 3.6e6 J / 1055.05585262 J (NIST SP 811)
 BASE_BTU_PER_DAY_FT2 = 8.0                   # invented constant non-heating use of the heating fuel
 N_READINGS = 26

@@ -1,7 +1,7 @@
 """``degree_days_report``: the library function behind ``ddscreen degree-days``.
 
-Check values: weather-service worked examples (NWS Key West, WRCC, NWS Burlington; degree-days.md §1),
-the pvlib TMY files (degree-days.md §7 [C]), the UK fact-sheet example (§3), and hand sums over the
+Check values: weather-service worked examples (NWS Key West, WRCC, NWS Burlington; docs/degree-days.md §1),
+the pvlib TMY files (docs/degree-days.md §7 [C]), the UK fact-sheet example (§3), and hand sums over the
 invented file tests/data/dd_daily_small.csv (spelled out beside each number).
 """
 

@@ -1,6 +1,6 @@
 """Degree-day engine checks against outside references.
 
-Sources (see /work/shared/reference/degree-days.md, "ref §n" below):
+Sources (see docs/degree-days.md, "ref §n" below):
 * weather-service worked examples: NWS Key West (weather.gov/key/climate_heat_cool), WRCC
   tables (wrcc.dri.edu), NWS Burlington rounding example — ref §1;
 * the UK Met Office four-case equations (Met Éireann statement; CIBSE TM41) — ref §2;

@@ -36,11 +36,11 @@ def tmy_daily_c() -> np.ndarray:
 def climate_5000(tmy_daily_c) -> np.ndarray:
     """HDD [F-day] on GRID_F for the Greensboro TMY3 year shifted so that HDD65 = 5,000 F-day.
 
-    Greensboro unshifted: HDD65 3868.9 F-day by (max+min)/2 (degree-days.md s.7 table); the
+    Greensboro unshifted: HDD65 3868.9 F-day by (max+min)/2 (docs/degree-days.md s.7 table); the
     shift gives an invented climate of 'about 5,000 F-day' as in the CBECS comparison.
     """
     t_f = tmy_daily_c * 1.8 + 32.0
-    np.testing.assert_allclose(np.maximum(65.0 - t_f, 0).sum(), 3868.9, atol=0.1)  # degree-days.md s.7
+    np.testing.assert_allclose(np.maximum(65.0 - t_f, 0).sum(), 3868.9, atol=0.1)  # docs/degree-days.md s.7
     def hdd(shift):
         return np.maximum(GRID_F[None, :] - (t_f[:, None] + shift), 0.0).sum(axis=0)
     lo, hi = -20.0, 5.0  # bisection on the shift
@@ -80,11 +80,11 @@ def linear_curve(n: int) -> np.ndarray:
 # --------------------------------------------------------------------------- physics pieces
 
 def test_degree_day_worked_example():
-    # factors.md s.10 item 9 (by hand): UA 500 Btu/(h F), 5,000 F-day -> 24*500*5000 = 60.0 MMBtu delivered
+    # docs/factors.md s.10 item 9 (by hand): UA 500 Btu/(h F), 5,000 F-day -> 24*500*5000 = 60.0 MMBtu delivered
     assert ev.degree_day_heating_kbtu(500.0, 5000.0, 1.0) == pytest.approx(60_000.0, rel=1e-12)
     # at eta = 0.80: 75.0 MMBtu = 750 therm (1 therm = 100 kBtu by definition)
     assert ev.degree_day_heating_kbtu(500.0, 5000.0, 0.80) / 100.0 == pytest.approx(750.0, rel=1e-12)
-    # SI cross-check, factors.md s.10 item 9: 263.764 W/K x 2,777.8 K-day x 24 h = 17.584 MWh = 60.0 MMBtu
+    # SI cross-check, docs/factors.md s.10 item 9: 263.764 W/K x 2,777.8 K-day x 24 h = 17.584 MWh = 60.0 MMBtu
     h_w_k = Q_(500.0, "Btu_it/hour/delta_degF").to("W/K").magnitude
     assert h_w_k == pytest.approx(263.764, abs=1e-3)
     mwh = h_w_k * 5000.0 * 5.0 / 9.0 * 24.0 / 1e6
@@ -94,9 +94,9 @@ def test_degree_day_worked_example():
 
 def test_air_constants_by_hand_and_pint():
     rho_cp, k = ev.air_heat_capacity_ip()
-    assert rho_cp == pytest.approx(0.018, rel=1e-12)  # 0.075 lb/ft3 x 0.24 Btu/(lb F), factors.md s.3
-    assert k == pytest.approx(1.08, rel=1e-12)  # 0.018 x 60 min/h, factors.md s.3 [S9]
-    # pint: the same product in SI is 0.3353 Wh/(m3 K) (factors.md s.10 item 5, 4 digits)
+    assert rho_cp == pytest.approx(0.018, rel=1e-12)  # 0.075 lb/ft3 x 0.24 Btu/(lb F), docs/factors.md s.3
+    assert k == pytest.approx(1.08, rel=1e-12)  # 0.018 x 60 min/h, docs/factors.md s.3 [S9]
+    # pint: the same product in SI is 0.3353 Wh/(m3 K) (docs/factors.md s.10 item 5, 4 digits)
     si = (Q_(0.075, "lb/ft**3") * Q_(0.24, "Btu_it/lb/delta_degF")).to("W*hour/m**3/K").magnitude
     assert si == pytest.approx(0.3353, abs=5e-5)
     # the SI constant kept in the data file (0.335) is within 0.1 % of it (issue 4 SI tolerance)
@@ -117,7 +117,7 @@ def test_infiltration_and_ventilation_by_hand():
 
 
 def test_balance_point_example():
-    # factors.md s.5 / s.10 item 10: UA/A = 0.25 Btu/(h ft2 F), 1 W/ft2 -> 70 - 3.412142/0.25 = 56.35 F
+    # docs/factors.md s.5 / s.10 item 10: UA/A = 0.25 Btu/(h ft2 F), 1 W/ft2 -> 70 - 3.412142/0.25 = 56.35 F
     w_ft2_in_btu = Q_(1.0, "W").to("Btu_it/hour").magnitude  # pint: 3.412142 Btu/h per W
     area = 10_000.0
     tb = ev.balance_point(70.0, w_ft2_in_btu * area, 0.25 * area)
@@ -127,7 +127,7 @@ def test_balance_point_example():
 
 
 def test_u_factor_conversion_with_pint():
-    # factors.md s.8: 1 Btu/(h ft2 F) = 5.678263 W/(m2 K); 1 Btu/(h F) = 0.5275279 W/K (pint, Btu_it)
+    # docs/factors.md s.8: 1 Btu/(h ft2 F) = 5.678263 W/(m2 K); 1 Btu/(h F) = 0.5275279 W/K (pint, Btu_it)
     u = Q_(1.0, "Btu_it/(hour*ft**2*delta_degF)").to("W/(m**2*K)").magnitude
     assert u == pytest.approx(5.678263, abs=5e-7)
     c = ev.constants()
@@ -143,7 +143,7 @@ def test_u_factor_conversion_with_pint():
         "btu_h_per_w": Q_(1.0, "W").to("Btu_it/hour").magnitude,
     }
     for name, ref in checks.items():
-        assert c[name] == pytest.approx(ref, rel=1e-6), name  # factors.md s.8 quotes 7 digits
+        assert c[name] == pytest.approx(ref, rel=1e-6), name  # docs/factors.md s.8 quotes 7 digits
 
 
 def test_geometry_by_hand():
@@ -194,10 +194,10 @@ def test_every_default_resolves_with_a_range_and_source():
 def test_modified_dd_curve_marked_low_confidence():
     df = refdata.load("modified_dd_factor")
     assert df["source"].str.contains("from memory, low confidence").all()
-    # degree-days.md s.5 (M, low confidence): C_D about 0.6-0.75 across 2000-8000 F-day; tolerance 0.05
+    # docs/degree-days.md s.5 (M, low confidence): C_D about 0.6-0.75 across 2000-8000 F-day; tolerance 0.05
     cd = ev.modified_dd_factor(np.arange(2000.0, 8001.0, 250.0))
     assert np.all((cd >= 0.55) & (cd <= 0.80))
-    # "MDD are typically 30 % to 40 % lower than DD" (degree-days.md s.5 [R]) at 3,000-6,000 F-day, +-5 points
+    # "MDD are typically 30 % to 40 % lower than DD" (docs/degree-days.md s.5 [R]) at 3,000-6,000 F-day, +-5 points
     cd = ev.modified_dd_factor(np.array([3000.0, 4000.0, 5000.0, 6000.0]))
     assert np.all((1 - cd >= 0.25) & (1 - cd <= 0.45))
     with pytest.raises(ValueError, match=r"dd must be >= 0, got -1\.0"):
@@ -280,7 +280,7 @@ def test_given_balance_point_and_heat_pump_cop():
     res = ev.expected_heating(env, GRID_F, curve)
     assert env["balance_point_f"].to_list()[:2] == [55.0, 55.0]
     assert res["hdd_at_balance"][0] == pytest.approx(100.0 * (55.0 - 30.0))  # exact on a straight line
-    # electric resistance 1.0 (factors.md s.6) vs a given seasonal COP of 3: one third of the input
+    # electric resistance 1.0 (docs/factors.md s.6) vs a given seasonal COP of 3: one third of the input
     assert res["expected_point_kbtu"][1] == pytest.approx(res["expected_point_kbtu"][0] / 3.0, rel=1e-12)
     # 35 F is below the 40 F grid: clipped to the grid's end and said so
     assert res["base_clipped"].to_list() == [False, False, True]
@@ -358,7 +358,7 @@ def test_percentiles_ordered(climate_5000, specs):
 # --------------------------------------------------------------------------- against the outside world
 
 def test_masonry_walkup_versus_new_office(climate_5000):
-    # factors.md s.4: 9 in masonry 0.30-0.40 vs IECC walls 0.045-0.104; single glazing 0.88-1.3 vs 0.28-0.45;
+    # docs/factors.md s.4: 9 in masonry 0.30-0.40 vs IECC walls 0.045-0.104; single glazing 0.88-1.3 vs 0.28-0.45;
     # s.3: pre-1950 ACH 0.8-1.5 vs 2012+ 0.15-0.25. A factor of 2 in UA per ft2 is the least these imply.
     rows = [dict(building_id="WALKUP", use_type="multifamily", floor_area_ft2=20_000.0, year_built=1924, stories=4,
                  heating_fuel="natural_gas"),
@@ -371,8 +371,8 @@ def test_masonry_walkup_versus_new_office(climate_5000):
 
 
 @pytest.mark.parametrize("use, cbecs_kbtu_ft2", [
-    ("office", 32.8),  # CBECS 2003 E1A/C1A office space heating 400 TBtu / 12,208 Msf (factors.md s.7, s.10 item 11)
-    ("school", 39.4),  # CBECS 2003 E1A/C1A education space heating (factors.md s.7)
+    ("office", 32.8),  # CBECS 2003 E1A/C1A office space heating 400 TBtu / 12,208 Msf (docs/factors.md s.7, s.10 item 11)
+    ("school", 39.4),  # CBECS 2003 E1A/C1A education space heating (docs/factors.md s.7)
 ])
 def test_typical_building_inside_survey_range(climate_5000, use, cbecs_kbtu_ft2):
     # A building of unknown age, 50,000 ft2, in a climate of 5,000 F-day (the 'about 5,000' of issue 4).
@@ -384,7 +384,7 @@ def test_typical_building_inside_survey_range(climate_5000, use, cbecs_kbtu_ft2)
     p50 = r["expected_heating_kbtu"] / 50_000.0
     assert p50 == pytest.approx(cbecs_kbtu_ft2, rel=0.25)
     assert r["expected_low_kbtu"] / 50_000.0 <= cbecs_kbtu_ft2 <= r["expected_high_kbtu"] / 50_000.0
-    # EIA heating intensity (factors.md s.7, M): commercial about 3-12 Btu/(ft2 F day)
+    # EIA heating intensity (docs/factors.md s.7, M): commercial about 3-12 Btu/(ft2 F day)
     assert 3.0 <= r["expected_heating_kbtu"] * 1000.0 / 50_000.0 / 5_000.0 <= 12.0
 
 
@@ -393,7 +393,7 @@ def test_same_building_in_si_and_ip(tmy_daily_c):
 
     The building is specified in SI; its inputs are converted to IP with pint; the IP model's
     answer (converted back to kWh with pint) is compared with an independent SI calculation
-    (0.335 Wh/(m3 K) air constant, W/K, K-day, Q = 0.024 H DD / eta in kWh; degree-days.md s.5).
+    (0.335 Wh/(m3 K) air constant, W/K, K-day, Q = 0.024 H DD / eta in kWh; docs/degree-days.md s.5).
     """
     si = dict(area_m2=4_000.0, stories=3, wall_u=0.5, roof_u=0.25, window_u=2.8, wwr=0.3, ach=0.4,
               oa_l_s_m2=0.4, recovery=0.5, setpoint_c=21.0, setback_k=4.0, setback_h=12.0, gains_w_m2=8.0,
@@ -425,7 +425,7 @@ def test_same_building_in_si_and_ip(tmy_daily_c):
     wall = per * h_m * si["stories"]
     win = si["wwr"] * wall
     vol = si["area_m2"] * h_m
-    air = 0.335  # Wh/(m3 K), issue 4 / factors.md s.3
+    air = 0.335  # Wh/(m3 K), issue 4 / docs/factors.md s.3
     air_flow = 1.206  # W/K per L/s = 0.335 x 3.6 (computed)
     h_tot = (si["wall_u"] * (wall - win) + si["window_u"] * win + si["roof_u"] * fp + f_si * per
              + air * si["ach"] * vol

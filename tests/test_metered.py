@@ -29,7 +29,7 @@ def tmy_daily_f() -> np.ndarray:
     t = pl.DataFrame({"day": df["Date (MM/DD/YYYY)"].str.slice(0, 5).to_numpy(),
                       "t": df["temp_air"].to_numpy()})
     daily = t.group_by("day").agg(pl.col("t").mean()).sort("day")
-    assert daily.height == 365  # TMY3: 365 days x 24 h (degree-days.md §3)
+    assert daily.height == 365  # TMY3: 365 days x 24 h (docs/degree-days.md §3)
     return daily["t"].to_numpy() * 9 / 5 + 32
 
 
@@ -39,7 +39,7 @@ def temps(n_days: int) -> np.ndarray:
 
 
 def hdd(starts, ends, bases) -> np.ndarray:
-    """Period HDD [°F·day] at each base, mean-temperature method: Σ (base − t_mean)+ (degree-days.md §1)."""
+    """Period HDD [°F·day] at each base, mean-temperature method: Σ (base − t_mean)+ (docs/degree-days.md §1)."""
     t = temps(3 * 365)
     s = np.array([(d - D0).days for d in starts])
     e = np.array([(d - D0).days for d in ends])
@@ -82,7 +82,7 @@ def fit_one(starts, ends, use, grid=GRID, **kw):
 # ------------------------------------------------------------------------------ regression
 
 def test_noise_free_recovery_greensboro():
-    # degree-days.md §6 [C]: 12 monthly bills, α = 20/day, β = 0.9/°F·day, τ = 60 °F, no noise
+    # docs/degree-days.md §6 [C]: 12 monthly bills, α = 20/day, β = 0.9/°F·day, τ = 60 °F, no noise
     # -> 0.5 °F grid returns τ = 60.0, α = 20.000, β = 0.9000, R² = 1.000000
     s, e = monthly()
     use, _ = bills(s, e, 20.0, 0.9, 60.0)
@@ -119,7 +119,7 @@ def test_agrees_with_statsmodels_wls_and_scipy_brute(seed):
     assert f["se_beta"][0] == pytest.approx(res.bse[1], rel=1e-9)
     assert f["r2"][0] == pytest.approx(res.rsquared, rel=1e-9)
     assert f["sse_w"][0] == pytest.approx(res.ssr, rel=1e-9)
-    # Guideline 14 definitions (degree-days.md §6), p = 2, from statsmodels' unweighted residuals
+    # Guideline 14 definitions (docs/degree-days.md §6), p = 2, from statsmodels' unweighted residuals
     r = res.model.endog - res.fittedvalues
     n = len(y)
     assert f["cv_rmse"][0] == pytest.approx(100 * np.sqrt((r ** 2).sum() / (n - 2)) / y.mean(), rel=1e-9)
@@ -139,7 +139,7 @@ def test_noise_and_drifting_read_dates_tolerance():
     # 40 buildings, 24 drifting bills (27-35 days) each, 5 % multiplicative noise (seeded).
     # Tolerances are our own: τ, α and β trade off against each other under noise, while the
     # normalized annual consumption NAC = 365·α + β·H(τ) is the well-determined figure (Fels 1986,
-    # degree-days.md §6). Stated: τ within 5 °F (median within 1 °F), β within 25 %, α within 10 %,
+    # docs/degree-days.md §6). Stated: τ within 5 °F (median within 1 °F), β within 25 %, α within 10 %,
     # NAC within 3 % of the truth (20 x 365 + 0.9 x HDD60 of the TMY year).
     fits = []
     for seed in range(40):

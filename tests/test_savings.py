@@ -42,7 +42,7 @@ def test_t_quantile_matches_scipy():
 
 
 def test_guideline14_limits_and_which_fails():
-    # ASHRAE Guideline 14 whole-building regression baseline, monthly energy (from memory; degree-days.md §6 [M]):
+    # ASHRAE Guideline 14 whole-building regression baseline, monthly energy (from memory; docs/degree-days.md §6 [M]):
     # CV(RMSE) ≤ 20 %, net determination bias ≤ 0.005 %
     assert sv.G14_CV_RMSE_MAX_PCT == 20.0
     assert sv.G14_NMBE_MAX_PCT == 0.005

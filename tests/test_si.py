@@ -78,9 +78,9 @@ def test_si_and_ip_agree_within_0_1_percent(tmp_path):
         assert r["floor_area_si"] == pytest.approx(Q(r["floor_area"], "ft**2").to("m**2").magnitude, rel=1e-3)
         assert r["base_temperature_si"] == pytest.approx(
             Q(r["base_temperature"], "degF").to("degC").magnitude, abs=0.02)
-        # K·day = °F·day / 1.8 (degree-days.md §7)
+        # K·day = °F·day / 1.8 (docs/degree-days.md §7)
         assert r["hdd_si"] == pytest.approx(r["hdd"] / 1.8, rel=1e-3)
-        # Wh/(m²·K·day) = 5.678263 × Btu/(ft²·°F·day) (factors.md §8), checked with pint
+        # Wh/(m²·K·day) = 5.678263 × Btu/(ft²·°F·day) (docs/factors.md §8), checked with pint
         f = Q(1, "Btu_it/(ft**2*delta_degF)").to("W*hour/(m**2*K)").magnitude
         assert r["heating_intensity_si"] == pytest.approx(r["heating_intensity"] * f, rel=1e-3)
 
@@ -93,7 +93,7 @@ def test_si_assumptions_are_converted(tmp_path):
     si = pl.read_csv(tmp_path / "si" / "out" / "assumptions.csv", infer_schema_length=None)
     j = ip.join(si, on=["building_id", "name"], suffix="_si")
     assert j.height == ip.height == si.height
-    u = Q(1, "Btu_it/(hour*ft**2*delta_degF)").to("W/(m**2*K)").magnitude   # 5.678263 (factors.md §8)
+    u = Q(1, "Btu_it/(hour*ft**2*delta_degF)").to("W/(m**2*K)").magnitude   # 5.678263 (docs/factors.md §8)
     wall = j.filter(pl.col("name") == "wall U-factor")
     assert (wall["value_si"] / wall["value"] - u).abs().max() < 1e-6
     assert set(wall["unit_si"]) == {"W/(m²·K)"} and set(wall["unit"]) == {"Btu/h·ft²·°F"}

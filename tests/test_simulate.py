@@ -299,7 +299,7 @@ def test_constant_35f_gives_ua_times_30_times_24_per_day():
 
 
 def test_internal_gains_lower_the_balance_point():
-    # factors.md §5 worked example [S13]: UA/A = 0.25 Btu/(h·ft²·°F) and 1 W/ft² give a balance
+    # docs/factors.md §5 worked example [S13]: UA/A = 0.25 Btu/(h·ft²·°F) and 1 W/ft² give a balance
     # point of 70 − 3.412142/0.25 = 56.35 °F; at a constant 50 °F the heat is UA·(56.35 − 50)·24
     ua = 0.25 * 10_000
     q = _one_building(50.0, 0.0, ua=ua, sp=70.0, gains_w_ft2=1.0)
@@ -345,7 +345,7 @@ def test_weather_climates_are_distinct_and_plausible(frames):
 
 
 def test_intensities_are_in_the_commercial_range(frames):
-    # factors.md §7 (EIA heating intensity, (M) ranges): commercial space heating about 3-12
+    # docs/factors.md §7 (EIA heating intensity, (M) ranges): commercial space heating about 3-12
     # Btu/(ft²·°F·day); flag below 1 or above 20. Check the median per use type lands in 1-20.
     w = frames["weather"].with_columns(tm=(pl.col("t_min") + pl.col("t_max")) / 2)
     hdd = w.group_by("station_id").agg(((65 - pl.col("tm")).clip(0).sum() / 3.0).alias("hdd_yr"))
@@ -377,7 +377,7 @@ def test_si_output_is_the_ip_portfolio_converted():
 
 
 def test_conversion_constants_against_pint():
-    # pint reference; the billing therm is 1e5 Btu_it (issue 2 / factors.md §8)
+    # pint reference; the billing therm is 1e5 Btu_it (issue 2 / docs/factors.md §8)
     assert sim.BTU_PER_KWH == pytest.approx(Q(1, "kWh").to("Btu_it").magnitude, rel=1e-7)
     assert sim.BTU_PER_GJ == pytest.approx(Q(1, "GJ").to("Btu_it").magnitude, rel=1e-7)
     assert sim.FT3_PER_M3 == pytest.approx(Q(1, "m**3").to("ft**3").magnitude, rel=1e-9)

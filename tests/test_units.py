@@ -10,7 +10,7 @@ from screening import refdata
 from screening.units import btu_per_unit, convert_to_kbtu, heat_content_table
 
 Q = pint.UnitRegistry()
-Q.define("billing_therm = 1e5 * Btu_it")  # billing therm = 100,000 Btu_IT (factors.md §8; EIA FAQ 987)
+Q.define("billing_therm = 1e5 * Btu_it")  # billing therm = 100,000 Btu_IT (docs/factors.md §8; EIA FAQ 987)
 
 
 def _readings(rows):
@@ -37,21 +37,21 @@ def _kbtu(unit, fuel, q=1.0, bld=None, **kw):
 
 def test_heat_contents_match_their_sources():
     hc = dict(heat_content_table().select("fuel", "btu_per_base").iter_rows())
-    assert hc["natural_gas"] == 1036      # EIA Heat Content of Natural Gas Consumed, US 2025 (factors.md §1 [S1])
-    assert hc["fuel_oil"] == 138_500      # EIA, No. 2 heating oil Btu/gal (factors.md §1 [S2])
-    assert hc["propane"] == 91_452        # EIA, propane Btu/gal (factors.md §1 [S2])
-    assert hc["kerosene"] == 135_000      # 40 CFR 98 Table C-1, 0.135 MMBtu/gal (factors.md §1 [S6])
-    assert hc["district_steam"] == 1_000  # common practice: 1 Mlb = 1 MMBtu (factors.md §1, from memory)
+    assert hc["natural_gas"] == 1036      # EIA Heat Content of Natural Gas Consumed, US 2025 (docs/factors.md §1 [S1])
+    assert hc["fuel_oil"] == 138_500      # EIA, No. 2 heating oil Btu/gal (docs/factors.md §1 [S2])
+    assert hc["propane"] == 91_452        # EIA, propane Btu/gal (docs/factors.md §1 [S2])
+    assert hc["kerosene"] == 135_000      # 40 CFR 98 Table C-1, 0.135 MMBtu/gal (docs/factors.md §1 [S6])
+    assert hc["district_steam"] == 1_000  # common practice: 1 Mlb = 1 MMBtu (docs/factors.md §1, from memory)
     t = refdata.load("units")
     assert t.filter(pl.col("source").str.len_chars() < 10).height == 0
 
 
 def test_definitions():
     assert _kbtu("therm", "natural_gas") == pytest.approx(100.0, rel=1e-15)    # 1 therm = 100,000 Btu (EIA FAQ 987)
-    assert _kbtu("kWh", "electricity") == pytest.approx(3.41214, rel=1e-6)     # 1 kWh = 3,412.14 Btu (factors.md §1)
+    assert _kbtu("kWh", "electricity") == pytest.approx(3.41214, rel=1e-6)     # 1 kWh = 3,412.14 Btu (docs/factors.md §1)
     assert _kbtu("MMBtu", "district_steam") == 1000.0                          # definition
-    assert _kbtu("Dth", "natural_gas") == 1000.0                               # 1 Dth = 10 therm (factors.md §1)
-    assert _kbtu("GJ", "natural_gas") == pytest.approx(947.817, rel=1e-6)      # 1 GJ = 947,817 Btu (factors.md §8)
+    assert _kbtu("Dth", "natural_gas") == 1000.0                               # 1 Dth = 10 therm (docs/factors.md §1)
+    assert _kbtu("GJ", "natural_gas") == pytest.approx(947.817, rel=1e-6)      # 1 GJ = 947,817 Btu (docs/factors.md §8)
     assert _kbtu("Mlb", "district_steam") == pytest.approx(1000.0)            # 1 Mlb ≈ 1 MMBtu at 1,000 Btu/lb (common practice)
 
 
@@ -69,7 +69,7 @@ def test_definitions():
     ("lb", "district_steam", lambda: Q.Quantity(1, "lb") * Q.Quantity(1000, "Btu_it/lb")),
 ])
 def test_round_trips_with_pint(unit, fuel, pint_expr):
-    # reference: pint 0.25 Btu_it (1055.05585262 J) and US gallon; billing therm = 1e5 Btu_it (factors.md §8)
+    # reference: pint 0.25 Btu_it (1055.05585262 J) and US gallon; billing therm = 1e5 Btu_it (docs/factors.md §8)
     ref = pint_expr().to("Btu_it").magnitude / 1000.0  # [kBtu]
     got = _kbtu(unit, fuel, 7.5)
     assert got == pytest.approx(7.5 * ref, rel=1e-12)
@@ -78,7 +78,7 @@ def test_round_trips_with_pint(unit, fuel, pint_expr):
 
 
 def test_worked_example_ccf():
-    # factors.md §10 item 9 (C): 75.0 MMBtu = 723.9 ccf at 1,036 Btu/ft3 (ccf rounded to 0.1 -> rel 1e-4)
+    # docs/factors.md §10 item 9 (C): 75.0 MMBtu = 723.9 ccf at 1,036 Btu/ft3 (ccf rounded to 0.1 -> rel 1e-4)
     assert _kbtu("ccf", "natural_gas", 723.9) == pytest.approx(75_000.0, rel=1e-4)
 
 
@@ -123,7 +123,7 @@ def test_rejects_and_other_fuels():
     assert set(rej["line"]) == {2, 3, 4, 5, 6, 7, 9}
     assert ok["unit"].to_list() == ["kWh"]
     assert ok["is_heating_fuel"].to_list() == [False]
-    assert ok["energy_kbtu"][0] == pytest.approx(500 * 3.412141633, rel=1e-9)   # exact kWh (factors.md §8)
+    assert ok["energy_kbtu"][0] == pytest.approx(500 * 3.412141633, rel=1e-9)   # exact kWh (docs/factors.md §8)
     assert ok["days"].to_list() == [31]
 
 
