@@ -274,18 +274,24 @@ def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[floa
     return "".join(out)
 
 
+def _paired(labels: Sequence[str], a: Sequence[float | None], b: Sequence[float | None],
+            what: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Two series of one value per label, checked for length; with their finite values (for the axis)."""
+    x, y = _arr(a), _arr(b)
+    if not (len(labels) == x.size == y.size):
+        raise ValueError(f"labels, {what} differ in length: {len(labels)}, {x.size}, {y.size}")
+    vals = np.concatenate([x, y])
+    return x, y, vals[np.isfinite(vals)]
+
+
 def annual_chart(labels: Sequence[str], metered: Sequence[float | None], expected: Sequence[float | None], *,
                  y_label: str, width: float = 360, height: float = 210, annotate: bool = True) -> str:
     """Metered (solid bar) against expected (outlined bar) heating, one pair per year.
 
     ``annotate=False`` leaves out the y-axis title and the legend (see :func:`scatter_chart`).
     """
-    m, e = _arr(metered), _arr(expected)
-    if not (len(labels) == m.size == e.size):
-        raise ValueError(f"labels, metered and expected differ in length: {len(labels)}, {m.size}, {e.size}")
+    m, e, vals = _paired(labels, metered, expected, "metered and expected")
     title = "Metered against expected heating by year"
-    vals = np.concatenate([m, e])
-    vals = vals[np.isfinite(vals)]
     if vals.size == 0:
         return _no_data(width, height, title, "no annual figures to plot")
     yt = nice_ticks(min(0.0, float(vals.min())), max(0.0, float(vals.max())), 4)
@@ -328,12 +334,8 @@ def measure_chart(labels: Sequence[str], baseline: Sequence[float | None], meter
     one slot per billing period after the measure. No titles or legend (the sheet prints them as text);
     tick labels only, ``labels`` under the slots (every second one when there are more than 12).
     """
-    b, m = _arr(baseline), _arr(metered)
-    if not (len(labels) == b.size == m.size):
-        raise ValueError(f"labels, baseline and metered differ in length: {len(labels)}, {b.size}, {m.size}")
+    b, m, vals = _paired(labels, baseline, metered, "baseline and metered")
     title = "Metered against the baseline since the measure"
-    vals = np.concatenate([b, m])
-    vals = vals[np.isfinite(vals)]
     if vals.size == 0:
         return _no_data(width, height, title, "no periods since the measure")
     yt = nice_ticks(min(0.0, float(vals.min())), max(0.0, float(vals.max())), 3)
