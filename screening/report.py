@@ -780,6 +780,11 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "kind": _cut(kind, lim["text"]),
         "steps": [_cut(t, lim["expl"]) for t in steps], "steps_more": steps_more,
         "confidence": _cut(confidence_line(s), lim["text"]),
+        # an audit on record (events file): kept off the plan after a clean audit, or pinned by a finding;
+        # a measure's note is in the verdict already
+        "audit_note": (_cut("On record: " + str(s["plan_note"])[0].upper() + str(s["plan_note"])[1:] + ".",
+                            lim["text"]) if s.get("plan_note") and not str(s["plan_note"]).startswith("measure of")
+                       else ""),
         "heat_source": _cut(heat_source_text(s), 160),
         "scores_text": scores_text,
         "since": since,

@@ -173,3 +173,16 @@ def test_stacked_marks_are_kept_to_two_and_do_not_reach_the_next_line(kinds):
     assert sum(1 for c in name_chars if unicodedata.combining(c["text"])) == 2   # of the nine given
     meta_top = min(w["top"] for w in p["words"] if w["text"] == "id")   # the line under the name
     assert max(c["bottom"] for c in name_chars) <= meta_top + 0.5
+
+
+def test_an_audit_on_record_is_said_under_the_verdict_and_a_measure_is_not_repeated():
+    from tests.sheet_fixtures import make_sheet
+    s = make_sheet(0)
+    s["plan_note"] = ("audit of 2026-07-14 found nothing: kept off the plan until 2027-07-14 unless its expected "
+                      "savings reach 2× those of the list it was audited from (15230)")
+    v = report.sheet_view(s)
+    assert v["audit_note"].startswith("On record: Audit of 2026-07-14 found nothing: kept off the plan until 2027-07-14")
+    s["plan_note"] = "measure of 2025-11-17: judged on the 288 days from 2025-12-17 to 2026-09-30 only"
+    assert report.sheet_view(s)["audit_note"] == ""   # the verdict carries the measure's sentence
+    s.pop("plan_note")
+    assert report.sheet_view(s)["audit_note"] == ""
