@@ -1,4 +1,4 @@
-"""Coverage of the savings intervals on the project simulator (README "Savings after a measure").
+"""Coverage of the savings intervals on the project simulator (docs/methods.md "Savings after a measure").
 
     PYTHONPATH=. python benchmarks/savings_coverage.py [N] [SEED ...]
 

@@ -290,7 +290,7 @@ class Savings:
 
 @dataclass
 class Learning:
-    """[learning]: learning from audits (README "Learning from audits")"""
+    """[learning]: learning from audits (docs/methods.md "Learning from audits")"""
 
     min_audits: int = setting(5, "an era x use type's default bias is applied from this many audited buildings on",
                               range=(2, 1_000_000, "a whole number of audited buildings"))

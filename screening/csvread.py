@@ -22,7 +22,7 @@ Rules
   split into records chunk by chunk (``FAST_CHUNK_CHARS`` characters of whole lines at a
   time), so the peak is about the text plus the output frame plus one chunk. A file with
   quoted fields goes through the ``csv`` module record by record into Python lists
-  (several times the file size; see README "Reliability" for measured limits).
+  (several times the file size; see docs/reliability.md "Reliability" for measured limits).
 """
 
 from __future__ import annotations

@@ -1,6 +1,6 @@
 """Expected heating from an envelope estimate (layer 1: pure functions, no I/O).
 
-The model, in IP units (see DEVELOPERS.md glossary and README "Expected heating: the envelope model"):
+The model, in IP units (see DEVELOPERS.md glossary and docs/methods.md "Expected heating: the envelope model"):
 
 * geometry from floor area, stories, an aspect ratio and a floor-to-floor height;
 * ``UA = sum(U*A) [walls, windows, roof] + F*perimeter [ground] + 0.018*ACH*V
@@ -501,7 +501,7 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
         ``gains_btu_h`` [Btu/h]; ``efficiency`` [fraction or COP]; ``envelope_source``;
         ``assumptions`` (list of structs); per drawn parameter its value and
         ``_low``/``_high`` range, and the ``given_*`` columns read by
-        :func:`expected_heating`. See README "Expected heating: the envelope model" for every column.
+        :func:`expected_heating`. See docs/methods.md "Expected heating: the envelope model" for every column.
 
     Notes
     -----

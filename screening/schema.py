@@ -46,7 +46,7 @@ FUELS: dict[str, str] = {
     "district_hot_water": "district hot water",
 }
 #: Construction eras from ``year_built``; era i covers [ERA_EDGES[i-1], ERA_EDGES[i]); ``unknown`` when
-#: year_built is missing (README "Construction eras and defaults").
+#: year_built is missing (docs/methods.md "Construction eras and defaults").
 ERAS: tuple[str, ...] = ("pre-1950", "1950-1979", "1980-1999", "2000-2011", "2012+", "unknown")
 ERA_EDGES: tuple[int, ...] = (1950, 1980, 2000, 2012)
 #: Events file: kinds of event and findings of an audit.

@@ -5,7 +5,7 @@ The audit order (``rank``) sorts the buildings that can be judged by their expec
 cost (the excess, weighted by how sure the evidence is, on a scale that blends the model's own band
 with the spread of the peers); buildings whose data block a verdict come last. ``needs_review``
 marks strong evidence of excess (the level against expectation and peers, or a step up on last
-year). See README "How the audit list is chosen".
+year). See docs/methods.md "How the audit list is chosen".
 
 Notation: r = metered / expected (P50); the robust z-score of log r within the peer
 group is z = (ln r − median ln r) / (1.4826 · MAD), Iglewicz & Hoaglin (1993), "How to
@@ -118,7 +118,7 @@ def _blended_z(values: pl.Expr, group: str, model_sd: pl.Expr | float, t: dict) 
 def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFrame:
     """Excess per mechanism, how sure each is, and the expected recoverable energy, cost and CO2e.
 
-    Three views of a building's recoverable excess (see README "How the audit list is chosen"):
+    Three views of a building's recoverable excess (see docs/methods.md "How the audit list is chosen"):
 
     * **level**: metered heating above the peers' (shrunk) expectation, E = metered − expected·e^c,
       sure by w = Φ(z − sure_offset) · ((1 − m) + m · S) with z the blended z of ln(metered/expected),
@@ -244,7 +244,7 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     basis, the EIA definition], ``peer_group, peer_median_intensity, peer_percentile,
     z_score, balance_point_excess_f`` [°F] (fitted − engineering balance point), ``z_balance_point,
     z_intensity, evidence_score`` (z_score + w_bp·z_balance_point + w_int·z_intensity, the
-    needs_review test; see README "How the audit list is chosen"), ``excess_energy_kbtu`` (metered − the band's top, ≥ 0; the top is P90, at least P50 × (1 + band_floor)), ``excess_energy_central_kbtu``
+    needs_review test; see docs/methods.md "How the audit list is chosen"), ``excess_energy_kbtu`` (metered − the band's top, ≥ 0; the top is P90, at least P50 × (1 + band_floor)), ``excess_energy_central_kbtu``
     (metered − P50, ≥ 0), ``excess_cost, excess_co2e_kg, yoy_change, z_yoy`` (robust z of
     ln(1 + yoy_change) over the portfolio: needs_review's second path, a step up against the
     previous year), ``flag_codes, flag_texts, needs_review, review_path`` ("level", "step up",
@@ -368,7 +368,7 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
             & (heat_share >= t["yoy_review_heating_share_min"])).fill_null(False)
     out = out.with_columns(
         ((strong | rise) & ~pl.col("blocking")).alias("needs_review"),
-        # which way the building came onto the audit list (README "How the audit list is chosen")
+        # which way the building came onto the audit list (docs/methods.md "How the audit list is chosen")
         pl.when(pl.col("blocking")).then(None)
         .when(strong & rise).then(pl.lit("level and step up"))
         .when(strong).then(pl.lit("level"))

@@ -12,7 +12,7 @@ Behaviours (issue 2 "Bad input", issue 9 "Hardening"; README input contract):
 
 The cases are generated from the shared fixture portfolio (tests/conftest.py), so each is a
 small, readable change to known-good files; line numbers are counted from those files (line 1
-is the header). README "Reliability" reports the figures.
+is the header). docs/reliability.md "Reliability" reports the figures.
 """
 
 from __future__ import annotations

@@ -6,7 +6,7 @@ drifting read dates, noise, envelope values drawn from its own curves). Faults a
 there and recorded in ``truth.csv``; the tool sees only buildings/readings/weather.
 
 Seed 606 is held out: the thresholds in ``screening/config.py`` were chosen on seeds 11, 101
-and 202 (see README "How the audit list is chosen") and the demo's seed 2026 was not used.
+and 202 (see docs/methods.md "How the audit list is chosen") and the demo's seed 2026 was not used.
 
 Two kinds of waste are measured on the same portfolio (same buildings, weather and faults):
 

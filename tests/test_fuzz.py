@@ -6,7 +6,7 @@ repeated headers, quoted fields with newlines), and the fixture portfolio with r
 replaced — go through ``screening.pipeline.read_file`` for the three kinds and through
 ``screening.pipeline.load_inputs`` into a temporary in-memory store.
 
-Invariants (the documented input contract, README and README "Reliability"):
+Invariants (the documented input contract, docs/reliability.md and README "Reliability"):
 
 * nothing but ``screening.errors.InputError`` (a structural problem, one line) escapes;
 * every data record is accounted for: accepted, rejected with a reason, or skipped as a blank
@@ -42,7 +42,7 @@ KINDS = ("buildings", "readings", "weather")
 FUZZ = dict(derandomize=True, deadline=None, database=None,
             suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
                                    HealthCheck.function_scoped_fixture, HealthCheck.filter_too_much])
-COUNTS: dict[str, int] = {}          # examples run per test (reported in README "Reliability")
+COUNTS: dict[str, int] = {}          # examples run per test (reported in docs/reliability.md "Reliability")
 OUTCOMES = {"structural error": 0, "read": 0, "rows accepted": 0, "rows rejected": 0}
 TARGET = {}                          # max_examples per test
 SCALE = float(__import__("os").environ.get("DDSCREEN_FUZZ_SCALE", "1"))   # >1 for a longer local run

@@ -8,7 +8,7 @@
 * a building without readings in its heating fuel, or whose station has no weather in the span,
   gets its own blocking data issue, never ``likely_unit_error``, and no ratio is ever inf or NaN.
 
-README "Reliability" counts these cases (table "Nonsense in settings and data").
+docs/reliability.md "Reliability" counts these cases (table "Nonsense in settings and data").
 """
 
 from __future__ import annotations

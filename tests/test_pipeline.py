@@ -167,7 +167,7 @@ def _portfolio_readings(w, ids, factors_year2, *, base_kbtu_day=None, noise=0.0,
 
 
 def test_a_step_up_on_last_year_puts_a_building_on_the_audit_list():
-    # path B of the audit rule (README "How the audit list is chosen"): ten steady buildings whose
+    # path B of the audit rule (docs/methods.md "How the audit list is chosen"): ten steady buildings whose
     # bills carry 1 % noise and whose levels spread ×0.5–2 around the expectation, one at 0.8× whose
     # heating rises 60 % in the second year (by construction; 1.28× the expectation then, ordinary
     # among these peers), and one that rises 60 % but whose heating is a small part of its use
