@@ -498,7 +498,6 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
         saved = pl.concat([p.savings for p in parts if p.savings is not None], how="vertical_relaxed")
     del parts
     thr = cfg["thresholds"]
-    t0 = time.perf_counter()
 
     # the portfolio pass: peer statistics, year-on-year z, the ranking
     units_ip = cfg["analysis"]["units"] == "IP"
@@ -701,6 +700,7 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
           for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")])
     if plan_context is not None:  # issue 17: events.plan_context (audits that found nothing, confirmed findings)
         frame = frame.join(plan_context, on="building_id", how="left", maintain_order="left")
+    lap("screening")  # the data issues and the frame: counted with the screening, as in one pass
     part.savings = None
     if events is not None:  # savings after a measure (issue 17): screening/events.py, screening/savings.py
         from . import events as ev
