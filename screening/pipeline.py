@@ -559,7 +559,6 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
     measure_ctx = pl.concat(ctx_parts, how="vertical_relaxed") if ctx_parts else None
     del parts
     thr = cfg["thresholds"]
-    t0 = time.perf_counter()
 
     # the portfolio pass: peer statistics, year-on-year z, the ranking
     units_ip = cfg["analysis"]["units"] == "IP"
@@ -795,6 +794,7 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
             no_yoy = pl.col("_measure_in_years").fill_null(False)
             frame = frame.with_columns([pl.when(no_yoy).then(None).otherwise(pl.col(c)).alias(c)
                                         for c in ("yoy_change", "prev_normal_heating_kbtu") if c in frame.columns])
+    lap("screening")  # the data issues and the frame: counted with the screening, as in one pass
     part.savings = None
     if events is not None:  # savings after a measure (issue 17): screening/events.py, screening/savings.py
         from . import events as ev
