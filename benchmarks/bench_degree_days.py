@@ -35,12 +35,15 @@ def make_weather(n_stations: int, years: int, seed: int = 42) -> pl.DataFrame:
     swing = rng.uniform(8, 30, n_stations)[:, None]
     tm = mean_annual + swing * np.sin(2 * np.pi * (doy - 105) / 365.25)[None, :] + rng.normal(0, 6, (n_stations, n))
     rngt = rng.uniform(8, 25, (n_stations, n))
-    return pl.DataFrame({
-        "station_id": np.repeat([f"B{i:03d}" for i in range(n_stations)], n),
-        "date": pl.concat([dates] * n_stations),
-        "t_min_f": (tm - rngt / 2).ravel(), "t_max_f": (tm + rngt / 2).ravel(),
-        "t_mean_f": pl.Series([None] * (n_stations * n), dtype=pl.Float64),
-    })
+    return pl.DataFrame(
+        {
+            "station_id": np.repeat([f"B{i:03d}" for i in range(n_stations)], n),
+            "date": pl.concat([dates] * n_stations),
+            "t_min_f": (tm - rngt / 2).ravel(),
+            "t_max_f": (tm + rngt / 2).ravel(),
+            "t_mean_f": pl.Series([None] * (n_stations * n), dtype=pl.Float64),
+        }
+    )
 
 
 def main() -> None:
@@ -76,8 +79,10 @@ def main() -> None:
     rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
     r = np.array(runs)
     best, med = r.min(axis=0), np.median(r, axis=0)
-    print(f"{a.stations} stations × {a.years} years ({weather.height:,} station-days), {bases.size} bases, "
-          f"{a.periods:,} periods, method {a.method}; best / median of {a.repeat} runs")
+    print(
+        f"{a.stations} stations × {a.years} years ({weather.height:,} station-days), {bases.size} bases, "
+        f"{a.periods:,} periods, method {a.method}; best / median of {a.repeat} runs"
+    )
     print(f"  from_daily          {best[0]:7.3f} / {med[0]:.3f} s   (running sums {nbytes / 2**20:,.0f} MiB float64)")
     print(f"  period_totals ×2    {best[1]:7.3f} / {med[1]:.3f} s   (HDD and CDD at all bases)")
     print(f"  at_base             {best[2]:7.3f} / {med[2]:.3f} s   (exact, per-period base)")

@@ -41,8 +41,9 @@ def _simulator():
 
 def generate(n: int, work: Path) -> None:
     sim = _simulator()
-    frames = sim.simulate_portfolio(n, seed=7, start=dt.date(2023, 10, 1), years=3,
-                                    stations=min(8, max(5, n // 1000 + 4)))
+    frames = sim.simulate_portfolio(
+        n, seed=7, start=dt.date(2023, 10, 1), years=3, stations=min(8, max(5, n // 1000 + 4))
+    )
     sim.write_portfolio(frames, work)
 
 
@@ -60,29 +61,53 @@ def _args(work: Path, chunk: int | None = None, out: str = "out") -> list[str]:
         cfg = work / f"chunk-{chunk}.toml"
         cfg.write_text(f"[run]\nchunk_buildings = {chunk}\n")
         extra = ["--config", str(cfg)]
-    return ["run", "--no-sheets", "--quiet", *extra, "--buildings", str(work / "buildings.csv"),
-            "--readings", str(work / "readings.csv"), "--weather", str(work / "weather.csv"),
-            "--db", str(work / "bench.duckdb"), "--out", str(work / out), "--as-of", "2026-10-15"]
+    return [
+        "run",
+        "--no-sheets",
+        "--quiet",
+        *extra,
+        "--buildings",
+        str(work / "buildings.csv"),
+        "--readings",
+        str(work / "readings.csv"),
+        "--weather",
+        str(work / "weather.csv"),
+        "--db",
+        str(work / "bench.duckdb"),
+        "--out",
+        str(work / out),
+        "--as-of",
+        "2026-10-15",
+    ]
 
 
 def timed_run(work: Path, env: dict, chunk: int | None = None, out: str = "out") -> dict:
     """One run in a fresh process, into its own output folder ``work/out`` (a folder holding a
     quarter's outputs is not replaced without --force, which would also reload the inputs)."""
     t = time.perf_counter()
-    p = subprocess.Popen([sys.executable, "-m", "screening", *_args(work, chunk, out)], env=env,
-                         stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    p = subprocess.Popen(
+        [sys.executable, "-m", "screening", *_args(work, chunk, out)],
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+    )
     _, status, ru = os.wait4(p.pid, 0)
     wall = time.perf_counter() - t
     err = p.stderr.read().decode(errors="replace")
     p.stdout.close()
     p.stderr.close()
-    return {"exit": os.waitstatus_to_exitcode(status), "wall_s": round(wall, 2),
-            "peak_mb": round(ru.ru_maxrss / 1024, 1), "stderr": err.strip()[-500:]}
+    return {
+        "exit": os.waitstatus_to_exitcode(status),
+        "wall_s": round(wall, 2),
+        "peak_mb": round(ru.ru_maxrss / 1024, 1),
+        "stderr": err.strip()[-500:],
+    }
 
 
 def staged(work: Path) -> None:
     """In-process: wrap the main steps, sample RSS every 10 ms, print per-step peaks (two runs)."""
     from screening import cli, degree_days, envelope, ingest, metered, outputs, pipeline, runner, screen, store, units
+
     current = ["start"]
     peaks: dict[str, list[int]] = {}
     stop = threading.Event()
@@ -109,17 +134,34 @@ def staged(work: Path) -> None:
             finally:
                 p[1] = max(p[1], _rss_kb())
                 current[0] = prev
+
         setattr(mod, name, inner)
 
-    for mod, name in [(pipeline, "load_inputs"), (pipeline, "read_file"), (store.Store, "frame"),
-                      (pipeline, "_cross_check"), (degree_days, "fill_short_gaps"),
-                      (units, "convert_to_kbtu"), (metered, "choose_spans"), (metered, "fit_periods"),
-                      (degree_days.DegreeDayCube, "period_totals"), (degree_days.DegreeDayCube, "at_base"),
-                      (envelope, "estimate_envelope"), (metered, "metered_heating"), (envelope, "expected_heating"),
-                      (metered, "reading_issues"), (pipeline, "_unit_error_issues"), (pipeline, "_fit_outlier_issues"),
-                      (pipeline, "_year_over_year"), (screen, "screen"), (outputs, "ranking_table"),
-                      (outputs, "write_csv"), (runner, "_results_for_store"), (runner, "_summary"),
-                      (ingest, "read_readings")]:
+    for mod, name in [
+        (pipeline, "load_inputs"),
+        (pipeline, "read_file"),
+        (store.Store, "frame"),
+        (pipeline, "_cross_check"),
+        (degree_days, "fill_short_gaps"),
+        (units, "convert_to_kbtu"),
+        (metered, "choose_spans"),
+        (metered, "fit_periods"),
+        (degree_days.DegreeDayCube, "period_totals"),
+        (degree_days.DegreeDayCube, "at_base"),
+        (envelope, "estimate_envelope"),
+        (metered, "metered_heating"),
+        (envelope, "expected_heating"),
+        (metered, "reading_issues"),
+        (pipeline, "_unit_error_issues"),
+        (pipeline, "_fit_outlier_issues"),
+        (pipeline, "_year_over_year"),
+        (screen, "screen"),
+        (outputs, "ranking_table"),
+        (outputs, "write_csv"),
+        (runner, "_results_for_store"),
+        (runner, "_summary"),
+        (ingest, "read_readings"),
+    ]:
         wrap(mod, name, f"{getattr(mod, '__name__', str(mod)).split('.')[-1]}.{name}")
     th = threading.Thread(target=sampler, daemon=True)
     th.start()
@@ -145,21 +187,34 @@ def main() -> None:
     ap.add_argument("--stages", action="store_true", help="also per-step peaks, in-process")
     ap.add_argument("--child-stages", default=None)
     ap.add_argument("--json", default=None)
-    ap.add_argument("--chunk", type=int, nargs="*", default=[],
-                    help="also a rerun (no input changed) at each of these [run] chunk_buildings")
+    ap.add_argument(
+        "--chunk",
+        type=int,
+        nargs="*",
+        default=[],
+        help="also a rerun (no input changed) at each of these [run] chunk_buildings",
+    )
     a = ap.parse_args()
     if a.child_stages:
         staged(Path(a.child_stages))
         return
     import tempfile
+
     work = Path(a.work) if a.work else Path(tempfile.mkdtemp(prefix="ddscreen-bench-mem-"))
     work.mkdir(parents=True, exist_ok=True)
     env = os.environ | {"PYTHONPATH": str(ROOT)}
     if not (work / "readings.csv").exists():
         t = time.perf_counter()
-        subprocess.run([sys.executable, "-c", f"import sys; sys.path.insert(0, {str(ROOT / 'benchmarks')!r}); "
-                        f"import bench_memory as b; from pathlib import Path; b.generate({a.n}, Path({str(work)!r}))"],
-                       env=env, check=True)
+        subprocess.run(
+            [
+                sys.executable,
+                "-c",
+                f"import sys; sys.path.insert(0, {str(ROOT / 'benchmarks')!r}); "
+                f"import bench_memory as b; from pathlib import Path; b.generate({a.n}, Path({str(work)!r}))",
+            ],
+            env=env,
+            check=True,
+        )
         print(f"generated {a.n} buildings in {time.perf_counter() - t:.0f} s", file=sys.stderr)
     size_mb = (work / "readings.csv").stat().st_size / 1e6
     with open(work / "readings.csv", "rb") as f:
@@ -167,6 +222,7 @@ def main() -> None:
     for p in (work / "bench.duckdb", work / "bench.duckdb.wal"):
         p.unlink(missing_ok=True)
     import shutil
+
     for d in [*work.glob("out-[0-9]"), *work.glob("out-chunk-*")]:  # this benchmark's own earlier outputs
         shutil.rmtree(d)
     load = open("/proc/loadavg").read().split()[:3]
@@ -174,23 +230,34 @@ def main() -> None:
     for k, name in enumerate(("first load", "no input changed")):
         rows[name] = timed_run(work, env, out=f"out-{k}")
         r = rows[name]
-        print(f"{name:<18} exit {r['exit']}  {r['wall_s']:7.1f} s  peak {r['peak_mb']:7.0f} MB  "
-              f"{r['peak_mb'] / size_mb:5.1f}x the readings file", flush=True)
+        print(
+            f"{name:<18} exit {r['exit']}  {r['wall_s']:7.1f} s  peak {r['peak_mb']:7.0f} MB  "
+            f"{r['peak_mb'] / size_mb:5.1f}x the readings file",
+            flush=True,
+        )
         if r["exit"] != 0:
             print(r["stderr"], file=sys.stderr)
     for c in a.chunk:
         name = f"rerun, chunk {c}"
         rows[name] = r = timed_run(work, env, c, out=f"out-chunk-{c}")
-        print(f"{name:<18} exit {r['exit']}  {r['wall_s']:7.1f} s  peak {r['peak_mb']:7.0f} MB  "
-              f"{r['peak_mb'] / size_mb:5.1f}x the readings file", flush=True)
+        print(
+            f"{name:<18} exit {r['exit']}  {r['wall_s']:7.1f} s  peak {r['peak_mb']:7.0f} MB  "
+            f"{r['peak_mb'] / size_mb:5.1f}x the readings file",
+            flush=True,
+        )
         if r["exit"] != 0:
             print(r["stderr"], file=sys.stderr)
-    print(f"readings file {size_mb:.0f} MB, {n_readings:,} readings; load average before {' '.join(load)}, "
-          f"after {' '.join(open('/proc/loadavg').read().split()[:3])}; {dt.datetime.now():%Y-%m-%d %H:%M}")
+    print(
+        f"readings file {size_mb:.0f} MB, {n_readings:,} readings; load average before {' '.join(load)}, "
+        f"after {' '.join(open('/proc/loadavg').read().split()[:3])}; {dt.datetime.now():%Y-%m-%d %H:%M}"
+    )
     if a.json:
         Path(a.json).parent.mkdir(parents=True, exist_ok=True)
-        Path(a.json).write_text(json.dumps({"n": a.n, "readings": n_readings, "file_mb": round(size_mb, 1),
-                                            "load": load, "runs": rows}, indent=2))
+        Path(a.json).write_text(
+            json.dumps(
+                {"n": a.n, "readings": n_readings, "file_mb": round(size_mb, 1), "load": load, "runs": rows}, indent=2
+            )
+        )
     if a.stages:
         for p in (work / "bench.duckdb", work / "bench.duckdb.wal"):
             p.unlink(missing_ok=True)

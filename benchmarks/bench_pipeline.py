@@ -37,8 +37,9 @@ def generate(n: int, work: Path) -> float:
     """Write the simulated portfolio into ``work``; returns the seconds it took."""
     sim = _simulator()
     t = time.perf_counter()
-    frames = sim.simulate_portfolio(n, seed=7, start=dt.date(2023, 10, 1), years=3,
-                                    stations=min(8, max(5, n // 1000 + 4)))
+    frames = sim.simulate_portfolio(
+        n, seed=7, start=dt.date(2023, 10, 1), years=3, stations=min(8, max(5, n // 1000 + 4))
+    )
     sim.write_portfolio(frames, work)
     return time.perf_counter() - t
 
@@ -46,6 +47,7 @@ def generate(n: int, work: Path) -> float:
 def one(n: int, sheets: bool, work: Path) -> dict:
     """Screen the portfolio in ``work`` (in this process, so its peak memory is the run's own)."""
     import duckdb
+
     t = time.perf_counter()
     con = duckdb.connect()
     for p in ("buildings.csv", "readings.csv", "weather.csv"):
@@ -54,16 +56,27 @@ def one(n: int, sheets: bool, work: Path) -> dict:
     n_readings = con.execute("SELECT count(*) FROM t_readings").fetchone()[0]
     con.close()
     from screening import runner
-    overrides = {"inputs": {k: str(work / f"{k}.csv") for k in ("buildings", "readings", "weather")},
-                 "store": {"database": str(work / "bench.duckdb")},
-                 "analysis": {"as_of": "2026-10-15"}, "output": {"sheets": sheets}}
+
+    overrides = {
+        "inputs": {k: str(work / f"{k}.csv") for k in ("buildings", "readings", "weather")},
+        "store": {"database": str(work / "bench.duckdb")},
+        "analysis": {"as_of": "2026-10-15"},
+        "output": {"sheets": sheets},
+    }
     t = time.perf_counter()
     res = runner.run(overrides=overrides, out_dir=str(work / "out"), force=True)
     total = time.perf_counter() - t
     timings = res.summary.get("timings_s") or {}
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
-    return {"n": n, "readings": n_readings, "duckdb_read_csv_s": round(duck_s, 3), "stages_s": timings,
-            "wall_s": round(total, 2), "peak_rss_mb": round(peak_mb, 1), "sheets": sheets}
+    return {
+        "n": n,
+        "readings": n_readings,
+        "duckdb_read_csv_s": round(duck_s, 3),
+        "stages_s": timings,
+        "wall_s": round(total, 2),
+        "peak_rss_mb": round(peak_mb, 1),
+        "sheets": sheets,
+    }
 
 
 def main() -> None:
@@ -86,9 +99,11 @@ def main() -> None:
     env = os.environ | {"PYTHONPATH": str(ROOT)}
     for n in a.n:
         with tempfile.TemporaryDirectory() as d:
-            steps = [[sys.executable, __file__, "--child", str(n), "--work", d, "--generate"],
-                     [sys.executable, __file__, "--child", str(n), "--work", d]
-                     + (["--with-sheets"] if n <= a.sheets_up_to else [])]
+            steps = [
+                [sys.executable, __file__, "--child", str(n), "--work", d, "--generate"],
+                [sys.executable, __file__, "--child", str(n), "--work", d]
+                + (["--with-sheets"] if n <= a.sheets_up_to else []),
+            ]
             result = {}
             for cmd in steps:
                 out = subprocess.run(cmd, capture_output=True, text=True, env=env)
@@ -96,16 +111,31 @@ def main() -> None:
                     sys.exit(f"N = {n} failed (exit {out.returncode}):\n" + "\n".join(out.stderr.splitlines()[-15:]))
                 result.update(json.loads(out.stdout.strip().splitlines()[-1]))
             rows.append(result)
-    stages = ["ingest", "degree_days", "metered_prep", "envelope", "regression", "expected", "screening", "csv",
-              "sheets", "ranking_pdf", "total"]
+    stages = [
+        "ingest",
+        "degree_days",
+        "metered_prep",
+        "envelope",
+        "regression",
+        "expected",
+        "screening",
+        "csv",
+        "sheets",
+        "ranking_pdf",
+        "total",
+    ]
     print(f"{'N':>7} {'readings':>9} " + " ".join(f"{s[:10]:>10}" for s in stages) + f" {'duck csv':>9} {'peak MB':>8}")
     for r in rows:
         st = r["stages_s"]
-        print(f"{r['n']:>7} {r['readings']:>9} " + " ".join(f"{st.get(s, float('nan')):>10.2f}" for s in stages)
-              + f" {r['duckdb_read_csv_s']:>9.2f} {r['peak_rss_mb']:>8.0f}")
+        print(
+            f"{r['n']:>7} {r['readings']:>9} "
+            + " ".join(f"{st.get(s, float('nan')):>10.2f}" for s in stages)
+            + f" {r['duckdb_read_csv_s']:>9.2f} {r['peak_rss_mb']:>8.0f}"
+        )
     Path(a.json).parent.mkdir(parents=True, exist_ok=True)
-    Path(a.json).write_text(json.dumps({"machine": {"cpus": os.cpu_count(), "python": sys.version.split()[0]},
-                                        "rows": rows}, indent=2))
+    Path(a.json).write_text(
+        json.dumps({"machine": {"cpus": os.cpu_count(), "python": sys.version.split()[0]}, "rows": rows}, indent=2)
+    )
     print(f"wrote {a.json}")
 
 

@@ -36,20 +36,20 @@ def _daily_f() -> np.ndarray:
 
 def build(n_b: int, seed: int = 0):
     rng = np.random.default_rng(seed)
-    grid = np.arange(40.0, 75.01, 0.5)                          # 71 bases
+    grid = np.arange(40.0, 75.01, 0.5)  # 71 bases
     t = _daily_f()
     month_len = np.tile([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], 3)
     edges = np.concatenate([[0], np.cumsum(month_len)])
-    fine = np.arange(0.0, 120.01, 0.5)                          # bases for the offset lookup
+    fine = np.arange(0.0, 120.01, 0.5)  # bases for the offset lookup
     dd = np.maximum(fine[None, :] - t[:, None], 0.0)
     c = np.vstack([np.zeros((1, fine.size)), np.cumsum(dd, axis=0)])
-    month_hdd = c[edges[1:]] - c[edges[:-1]]                    # (36, n_fine) [°F·day]
-    offset = rng.integers(-20, 21, n_b) * 0.5                   # building climate offset [°F]
-    k = np.rint((grid[None, :] - offset[:, None] - fine[0]) / 0.5).astype(int)   # (n_b, 71)
-    hdd = month_hdd[:, k].transpose(1, 0, 2)                    # (n_b, 36, 71)
+    month_hdd = c[edges[1:]] - c[edges[:-1]]  # (36, n_fine) [°F·day]
+    offset = rng.integers(-20, 21, n_b) * 0.5  # building climate offset [°F]
+    k = np.rint((grid[None, :] - offset[:, None] - fine[0]) / 0.5).astype(int)  # (n_b, 71)
+    hdd = month_hdd[:, k].transpose(1, 0, 2)  # (n_b, 36, 71)
     days = np.broadcast_to(month_len.astype(float), (n_b, 36)).copy()
     x = hdd / days[:, :, None]
-    tau_i = rng.integers(10, 61, n_b)                           # true τ index within the grid
+    tau_i = rng.integers(10, 61, n_b)  # true τ index within the grid
     alpha = rng.uniform(5, 50, n_b)
     beta = rng.uniform(0.2, 3.0, n_b)
     xt = np.take_along_axis(x, tau_i[:, None, None], axis=2)[:, :, 0]
@@ -72,12 +72,18 @@ def main() -> None:
         fit = fit_variable_base(y, days, x, grid, valid)
         times.append(time.perf_counter() - s)
     err = np.abs(fit["base_index"] - tau_i)
-    print(f"inputs: {a.buildings} buildings x 36 periods x {grid.size} bases "
-          f"({x.nbytes / 1e6:.0f} MB), built in {t1 - t0:.2f} s")
-    print(f"fit_variable_base: best {min(times):.3f} s, median {sorted(times)[len(times) // 2]:.3f} s "
-          f"over {a.repeat} runs (target < 3 s)")
-    print(f"sanity: heating models {np.mean(fit['model'] == 'heating'):.3f}, "
-          f"median |τ error| {np.median(err) * 0.5:.2f} °F")
+    print(
+        f"inputs: {a.buildings} buildings x 36 periods x {grid.size} bases "
+        f"({x.nbytes / 1e6:.0f} MB), built in {t1 - t0:.2f} s"
+    )
+    print(
+        f"fit_variable_base: best {min(times):.3f} s, median {sorted(times)[len(times) // 2]:.3f} s "
+        f"over {a.repeat} runs (target < 3 s)"
+    )
+    print(
+        f"sanity: heating models {np.mean(fit['model'] == 'heating'):.3f}, "
+        f"median |τ error| {np.median(err) * 0.5:.2f} °F"
+    )
 
 
 if __name__ == "__main__":

@@ -67,13 +67,16 @@ def naive_one_document_per_sheet(sheets: list[dict], out_dir: Path, *, paper: st
         target = out_dir / f"{names[s['building_id']]}.pdf"
         for level in range(report.MAX_LEVEL + 1):
             font_config = FontConfiguration()
-            css = [CSS(filename=str(tdir / "sheet.css"), font_config=font_config, url_fetcher=fetcher, base_url=base),
-                   CSS(string=f"@page {{ size: {report.PAPERS[paper]}; }}"
-                              f" .figs {{ tab-size: {report._CONTENT_MM[paper] / 4:.2f}mm; }}",
-                       font_config=font_config)]
+            css = [
+                CSS(filename=str(tdir / "sheet.css"), font_config=font_config, url_fetcher=fetcher, base_url=base),
+                CSS(
+                    string=f"@page {{ size: {report.PAPERS[paper]}; }}"
+                    f" .figs {{ tab-size: {report._CONTENT_MM[paper] / 4:.2f}mm; }}",
+                    font_config=font_config,
+                ),
+            ]
             html = report._sheets_html([report.sheet_view(s, level)], title)
-            doc = HTML(string=html, base_url=base, url_fetcher=fetcher).render(stylesheets=css,
-                                                                               font_config=font_config)
+            doc = HTML(string=html, base_url=base, url_fetcher=fetcher).render(stylesheets=css, font_config=font_config)
             if len(doc.pages) == 1:
                 doc.write_pdf(target)
                 break
@@ -115,8 +118,11 @@ def main() -> None:
                 run = (time.perf_counter() - t, time.process_time() - c)
                 best = run if best is None or run[0] < best[0] else best
             from pypdf import PdfReader
-            ranking = (f"ranking.pdf, {a.ranking_rows} rows: {best[0]:.2f} s wall, {best[1]:.2f} s CPU "
-                       f"({len(PdfReader(out).pages)} pages)")
+
+            ranking = (
+                f"ranking.pdf, {a.ranking_rows} rows: {best[0]:.2f} s wall, {best[1]:.2f} s CPU "
+                f"({len(PdfReader(out).pages)} pages)"
+            )
         report._state()  # warm the in-process renderer for the baseline, as a long-lived run would
         report.render_sheets_one_by_one(sheets[:1], tmp / "warm", paper=a.paper)
         naive_one_document_per_sheet(sheets[:1], tmp / "warm-naive", paper=a.paper)  # imports, template
@@ -131,27 +137,40 @@ def main() -> None:
         print(f"load average before batched: {os.getloadavg()[0]:.2f}")
         stats: dict = {}
         t = time.perf_counter()
-        paths = report.render_sheets(sheets, tmp / "batched", paper=a.paper, workers=a.workers,
-                                     chunk_size=a.chunk, stats=stats)
+        paths = report.render_sheets(
+            sheets, tmp / "batched", paper=a.paper, workers=a.workers, chunk_size=a.chunk, stats=stats
+        )
         batched = (time.perf_counter() - t) / a.sheets
         assert len(paths) == a.sheets and all(p.is_file() for p in paths)
         _check_one_page(paths[:: max(1, a.sheets // 50)])
         cpu = stats["cpu_s"] / a.sheets
-        print(f"baseline NAIVE, one document per sheet : {1000 * naive:7.1f} ms/sheet wall, {1000 * naive_cpu:6.1f} "
-              f"CPU  ({a.baseline} sheets, 1 process; fresh fonts + CSS per sheet, gc on)")
-        print(f"baseline WARM,  one document per sheet : {1000 * one:7.1f} ms/sheet wall, {1000 * one_cpu:6.1f} "
-              f"CPU  ({a.baseline} sheets, 1 process; shared fonts + parsed CSS, gc paused)")
-        print(f"batched+split+{a.workers} procs            : {1000 * batched:7.1f} ms/sheet wall, {1000 * cpu:6.1f} "
-              f"CPU  ({a.sheets} sheets, chunks of {stats['chunk_size']}, refit {stats['refit']}; CPU summed over "
-              f"processes, start-up not counted)")
-        print(f"speed-up (wall) vs NAIVE baseline: {naive / batched:.2f}x; vs WARM baseline: {one / batched:.2f}x; "
-              f"{1 / batched:.1f} sheets/s; 1,000 sheets ~ {1000 * batched:.0f} s")
-        print(f"CPU per sheet, baseline / batched: NAIVE {naive_cpu / cpu:.2f}x, WARM {one_cpu / cpu:.2f}x "
-              f"(the part of the speed-up that is not the second process)")
+        print(
+            f"baseline NAIVE, one document per sheet : {1000 * naive:7.1f} ms/sheet wall, {1000 * naive_cpu:6.1f} "
+            f"CPU  ({a.baseline} sheets, 1 process; fresh fonts + CSS per sheet, gc on)"
+        )
+        print(
+            f"baseline WARM,  one document per sheet : {1000 * one:7.1f} ms/sheet wall, {1000 * one_cpu:6.1f} "
+            f"CPU  ({a.baseline} sheets, 1 process; shared fonts + parsed CSS, gc paused)"
+        )
+        print(
+            f"batched+split+{a.workers} procs            : {1000 * batched:7.1f} ms/sheet wall, {1000 * cpu:6.1f} "
+            f"CPU  ({a.sheets} sheets, chunks of {stats['chunk_size']}, refit {stats['refit']}; CPU summed over "
+            f"processes, start-up not counted)"
+        )
+        print(
+            f"speed-up (wall) vs NAIVE baseline: {naive / batched:.2f}x; vs WARM baseline: {one / batched:.2f}x; "
+            f"{1 / batched:.1f} sheets/s; 1,000 sheets ~ {1000 * batched:.0f} s"
+        )
+        print(
+            f"CPU per sheet, baseline / batched: NAIVE {naive_cpu / cpu:.2f}x, WARM {one_cpu / cpu:.2f}x "
+            f"(the part of the speed-up that is not the second process)"
+        )
         if ranking:
             print(ranking)
-        print(f"load average after: {os.getloadavg()[0]:.2f} (1/5/15 min: "
-              f"{', '.join(f'{x:.2f}' for x in os.getloadavg())}; {os.cpu_count()} CPUs)")
+        print(
+            f"load average after: {os.getloadavg()[0]:.2f} (1/5/15 min: "
+            f"{', '.join(f'{x:.2f}' for x in os.getloadavg())}; {os.cpu_count()} CPUs)"
+        )
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
 

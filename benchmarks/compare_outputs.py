@@ -28,8 +28,9 @@ TABLES = ("ranking.csv", "audit_plan.csv", "data_issues.csv", "rejects.csv", "as
 
 
 def ref_tree(ref: str) -> Path:
-    sha = subprocess.run(["git", "-C", str(ROOT), "rev-parse", ref], capture_output=True, text=True,
-                         check=True).stdout.strip()
+    sha = subprocess.run(
+        ["git", "-C", str(ROOT), "rev-parse", ref], capture_output=True, text=True, check=True
+    ).stdout.strip()
     d = Path(tempfile.gettempdir()) / f"ddscreen-ref-{sha[:12]}"
     if not (d / "screening").is_dir():
         d.mkdir(parents=True, exist_ok=True)
@@ -43,15 +44,15 @@ def simulate(n: int, work: Path) -> None:
     assert spec and spec.loader
     sim = importlib.util.module_from_spec(spec)
     spec.loader.exec_module(sim)
-    frames = sim.simulate_portfolio(n, seed=7, start=dt.date(2023, 10, 1), years=3,
-                                    stations=min(8, max(5, n // 1000 + 4)))
+    frames = sim.simulate_portfolio(
+        n, seed=7, start=dt.date(2023, 10, 1), years=3, stations=min(8, max(5, n // 1000 + 4))
+    )
     sim.write_portfolio(frames, work)
 
 
 def run(tree: Path, args: list[str]) -> None:
     env = os.environ | {"PYTHONPATH": str(tree)}
-    out = subprocess.run([sys.executable, "-m", "screening", *args], cwd=tree, env=env,
-                         capture_output=True, text=True)
+    out = subprocess.run([sys.executable, "-m", "screening", *args], cwd=tree, env=env, capture_output=True, text=True)
     if out.returncode != 0:
         sys.exit(f"{tree}: exit {out.returncode}\n{out.stderr[-2000:]}")
 
@@ -77,8 +78,10 @@ def compare(a: Path, b: Path, roots: tuple[Path, Path] = (ROOT, ROOT)) -> list[s
         lb = fb.read_text().replace(idb, "<run>").replace(rb, "<tree>").splitlines()
         if la != lb:
             i = next((k for k, (x, y) in enumerate(zip(la, lb)) if x != y), min(len(la), len(lb)))
-            diffs.append(f"{name}: {len(la)} vs {len(lb)} lines, first difference at line {i + 1}:\n"
-                         f"  {la[i] if i < len(la) else '<end>'}\n  {lb[i] if i < len(lb) else '<end>'}")
+            diffs.append(
+                f"{name}: {len(la)} vs {len(lb)} lines, first difference at line {i + 1}:\n"
+                f"  {la[i] if i < len(la) else '<end>'}\n  {lb[i] if i < len(lb) else '<end>'}"
+            )
     sa, sb = (json.loads((d / "summary.json").read_text().replace(r, "<tree>")) for d, r in ((a, ra), (b, rb)))
     for s in (sa, sb):
         s.pop("run_id", None)
@@ -92,7 +95,9 @@ def main() -> None:
     ap = argparse.ArgumentParser()
     ap.add_argument("--ref", default="43873bc", help="reference commit (default 43873bc)")
     ap.add_argument("--n", type=int, default=0, help="also a simulated portfolio of N buildings")
-    ap.add_argument("--config", default=None, help="TOML config for this tree's simulated run (e.g. a small chunk size)")
+    ap.add_argument(
+        "--config", default=None, help="TOML config for this tree's simulated run (e.g. a small chunk size)"
+    )
     ap.add_argument("--no-demo", action="store_true")
     a = ap.parse_args()
     ref = ref_tree(a.ref)
@@ -110,10 +115,27 @@ def main() -> None:
             simulate(a.n, w / "sim")
             for tag, tree in (("ref", ref), ("new", ROOT)):
                 s = w / "sim"
-                run(tree, ["run", "--no-sheets", "--quiet", "--buildings", str(s / "buildings.csv"),
-                           "--readings", str(s / "readings.csv"), "--weather", str(s / "weather.csv"),
-                           "--db", str(w / f"sim-{tag}.duckdb"), "--out", str(w / f"sim-{tag}"),
-                           "--as-of", "2026-10-15"] + (extra if tag == "new" else []))
+                run(
+                    tree,
+                    [
+                        "run",
+                        "--no-sheets",
+                        "--quiet",
+                        "--buildings",
+                        str(s / "buildings.csv"),
+                        "--readings",
+                        str(s / "readings.csv"),
+                        "--weather",
+                        str(s / "weather.csv"),
+                        "--db",
+                        str(w / f"sim-{tag}.duckdb"),
+                        "--out",
+                        str(w / f"sim-{tag}"),
+                        "--as-of",
+                        "2026-10-15",
+                    ]
+                    + (extra if tag == "new" else []),
+                )
             diffs = compare(w / "sim-ref", w / "sim-new")
             print(f"simulated {a.n}: {'same' if not diffs else 'DIFFERENT'}")
             bad += diffs

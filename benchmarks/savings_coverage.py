@@ -27,8 +27,10 @@ sys.path.insert(0, str(ROOT))
 from screening import runner  # noqa: E402 - importable from a checkout without installing
 
 CUT_DAY = dt.date(2025, 6, 1)
-NO_FAULTS = {k: 0.0 for k in ("wasteful", "unit_error", "missing_months", "duplicate_readings",
-                              "overlapping_periods", "estimated_run")}
+NO_FAULTS = {
+    k: 0.0
+    for k in ("wasteful", "unit_error", "missing_months", "duplicate_readings", "overlapping_periods", "estimated_run")
+}
 
 
 def _simulator():
@@ -48,20 +50,36 @@ def one_seed(n: int, seed: int, tmp: Path) -> dict:
     paths = sim.write_portfolio(cut, tmp / "in")
     ids = cut["buildings"]["building_id"]
     pl.DataFrame({"building_id": ids, "date": [CUT_DAY] * n, "kind": ["measure"] * n}).write_csv(tmp / "events.csv")
-    runner.run(overrides={"inputs": {k: str(paths[k]) for k in ("buildings", "readings", "weather")}
-                          | {"events": str(tmp / "events.csv")},
-                          "store": {"database": str(tmp / "s.duckdb")}, "analysis": {"as_of": "2026-10-15"},
-                          "output": {"sheets": False}}, out_dir=str(tmp / "out"), force=True, quiet=True)
+    runner.run(
+        overrides={
+            "inputs": {k: str(paths[k]) for k in ("buildings", "readings", "weather")}
+            | {"events": str(tmp / "events.csv")},
+            "store": {"database": str(tmp / "s.duckdb")},
+            "analysis": {"as_of": "2026-10-15"},
+            "output": {"sheets": False},
+        },
+        out_dir=str(tmp / "out"),
+        force=True,
+        quiet=True,
+    )
     s = pl.read_csv(tmp / "out" / "savings.csv", try_parse_dates=True)
     fuel = cut["buildings"].select("building_id", "heating_fuel")
-    heat = [r.join(fuel, on="building_id").filter(pl.col("fuel") == pl.col("heating_fuel"))
-            for r in (cut["readings"], base["readings"])]
-    j = heat[0].with_columns(heat[1]["quantity"].alias("q0")).join(
-        s.select("building_id", "report_start", "report_end"), on="building_id")
+    heat = [
+        r.join(fuel, on="building_id").filter(pl.col("fuel") == pl.col("heating_fuel"))
+        for r in (cut["readings"], base["readings"])
+    ]
+    j = (
+        heat[0]
+        .with_columns(heat[1]["quantity"].alias("q0"))
+        .join(s.select("building_id", "report_start", "report_end"), on="building_id")
+    )
     j = j.filter((pl.col("period_start") >= pl.col("report_start")) & (pl.col("period_end") <= pl.col("report_end")))
     ratio = j.group_by("building_id").agg((pl.col("q0").sum() / pl.col("quantity").sum()).alias("_r"))
-    s = (s.join(ratio, on="building_id").with_columns((pl.col("metered") * (pl.col("_r") - 1)).alias("true"))
-         .join(pl.DataFrame({"building_id": ids, "cut": cuts}), on="building_id"))
+    s = (
+        s.join(ratio, on="building_id")
+        .with_columns((pl.col("metered") * (pl.col("_r") - 1)).alias("true"))
+        .join(pl.DataFrame({"building_id": ids, "cut": cuts}), on="building_id")
+    )
     out = {"meets": int(s["meets_guideline14"].sum()), "of": s.height}
     ok = s.filter(pl.col("meets_guideline14"))
     for lab, f in (("cut", pl.col("cut") > 0), ("none", pl.col("cut") == 0)):
@@ -81,8 +99,10 @@ def main(argv: list[str]) -> None:
             r = one_seed(n, seed, tmp)
         finally:
             shutil.rmtree(tmp, ignore_errors=True)
-        print(f"seed {seed}: meets {r['meets']} of {r['of']}; "
-              + "; ".join(f"{k} {a} of {b}" for k, (a, b) in ((k, v) for k, v in r.items() if k.endswith(("90", "68")))))
+        print(
+            f"seed {seed}: meets {r['meets']} of {r['of']}; "
+            + "; ".join(f"{k} {a} of {b}" for k, (a, b) in ((k, v) for k, v in r.items() if k.endswith(("90", "68"))))
+        )
 
 
 if __name__ == "__main__":

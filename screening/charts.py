@@ -28,8 +28,15 @@ _FONT = 'font-family="ddscreen Sans, DejaVu Sans Condensed, sans-serif"'
 # templates/fonts/ddscreen-sans.ttf (its hmtx table / unitsPerEm 2048; the font has no
 # kerning tables; test_charts checks these against the file). Tick labels are placed one
 # character at a time with them (see _label_run).
-_ADVANCE_EM = {**dict.fromkeys("0123456789", 1172 / 2048), ".": 585 / 2048, "-": 665 / 2048, "+": 1544 / 2048,
-               "e": 1134 / 2048, "k": 1067 / 2048, "M": 1590 / 2048}
+_ADVANCE_EM = {
+    **dict.fromkeys("0123456789", 1172 / 2048),
+    ".": 585 / 2048,
+    "-": 665 / 2048,
+    "+": 1544 / 2048,
+    "e": 1134 / 2048,
+    "k": 1067 / 2048,
+    "M": 1590 / 2048,
+}
 INK = "#000"
 MID = "#555"
 LIGHT = "#bbb"
@@ -83,16 +90,20 @@ def fmt_tick(v: float) -> str:
 
 
 def _svg_open(width: float, height: float, title: str) -> str:
-    return (f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width:g} {height:g}" '
-            f'width="{width:g}" height="{height:g}" role="img"><title>{escape(title)}</title>')
+    return (
+        f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width:g} {height:g}" '
+        f'width="{width:g}" height="{height:g}" role="img"><title>{escape(title)}</title>'
+    )
 
 
 def _no_data(width: float, height: float, title: str, message: str) -> str:
-    return (_svg_open(width, height, title)
-            + f'<rect x="0.5" y="0.5" width="{width - 1:g}" height="{height - 1:g}" fill="none" '
-              f'stroke="{LIGHT}" stroke-dasharray="3 3"/>'
-            + f'<text x="{width / 2:g}" y="{height / 2:g}" text-anchor="middle" font-size="10" {_FONT} '
-              f'fill="{MID}">{escape(message)}</text></svg>')
+    return (
+        _svg_open(width, height, title)
+        + f'<rect x="0.5" y="0.5" width="{width - 1:g}" height="{height - 1:g}" fill="none" '
+        f'stroke="{LIGHT}" stroke-dasharray="3 3"/>'
+        + f'<text x="{width / 2:g}" y="{height / 2:g}" text-anchor="middle" font-size="10" {_FONT} '
+        f'fill="{MID}">{escape(message)}</text></svg>'
+    )
 
 
 def _label_run(labels: Sequence[tuple[float, float, str, str]], font_size: float = 8) -> str:
@@ -113,8 +124,10 @@ def _label_run(labels: Sequence[tuple[float, float, str, str]], font_size: float
         if not text:
             continue
         if any(c not in _ADVANCE_EM for c in text):
-            single.append(f'<text x="{x:.1f}" y="{y:.1f}" text-anchor="{anchor}" font-size="{font_size:g}" '
-                          f'{_FONT}>{escape(text)}</text>')
+            single.append(
+                f'<text x="{x:.1f}" y="{y:.1f}" text-anchor="{anchor}" font-size="{font_size:g}" '
+                f"{_FONT}>{escape(text)}</text>"
+            )
             continue
         widths = [_ADVANCE_EM[c] * font_size for c in text]
         pos = x - {"start": 0.0, "middle": sum(widths) / 2, "end": sum(widths)}[anchor]
@@ -123,8 +136,11 @@ def _label_run(labels: Sequence[tuple[float, float, str, str]], font_size: float
             ys.append(f"{y:.1f}")
             chars.append(c)
             pos += w
-    run = (f'<text x="{" ".join(xs)}" y="{" ".join(ys)}" font-size="{font_size:g}" {_FONT}>{"".join(chars)}</text>'
-           if chars else "")
+    run = (
+        f'<text x="{" ".join(xs)}" y="{" ".join(ys)}" font-size="{font_size:g}" {_FONT}>{"".join(chars)}</text>'
+        if chars
+        else ""
+    )
     return run + "".join(single)
 
 
@@ -167,12 +183,16 @@ class _Frame:
         marks.append(f"M{self.x0:.1f} {self.y1:.1f}V{self.y0:.1f}H{self.x1:.1f}")
         out.append(f'<path d="{"".join(marks)}" fill="none" stroke="{INK}" stroke-width="0.8"/>')
         if titles and xlabel:
-            out.append(f'<text x="{(self.x0 + self.x1) / 2:.1f}" y="{self.h - 3:.1f}" text-anchor="middle" '
-                       f'font-size="8.5" {_FONT}>{escape(xlabel)}</text>')
+            out.append(
+                f'<text x="{(self.x0 + self.x1) / 2:.1f}" y="{self.h - 3:.1f}" text-anchor="middle" '
+                f'font-size="8.5" {_FONT}>{escape(xlabel)}</text>'
+            )
         if titles and ylabel:
             cy = (self.y0 + self.y1) / 2
-            out.append(f'<text x="9" y="{cy:.1f}" text-anchor="middle" font-size="8.5" {_FONT} '
-                       f'transform="rotate(-90 9 {cy:.1f})">{escape(ylabel)}</text>')
+            out.append(
+                f'<text x="9" y="{cy:.1f}" text-anchor="middle" font-size="8.5" {_FONT} '
+                f'transform="rotate(-90 9 {cy:.1f})">{escape(ylabel)}</text>'
+            )
         return "".join(out)
 
 
@@ -191,10 +211,19 @@ def _clip_line(intercept, slope, xlo, xhi, ylo, yhi):
     return (a, intercept + slope * a), (b, intercept + slope * b)
 
 
-def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[float | None], *,
-                  fit_line: dict | None, expected_line: dict | None, x_label: str, y_label: str,
-                  width: float = 360, height: float = 200, annotate: bool = True,
-                  recent: Sequence[bool] | None = None) -> str:
+def scatter_chart(
+    dd_per_day: Sequence[float | None],
+    use_per_day: Sequence[float | None],
+    *,
+    fit_line: dict | None,
+    expected_line: dict | None,
+    x_label: str,
+    y_label: str,
+    width: float = 360,
+    height: float = 200,
+    annotate: bool = True,
+    recent: Sequence[bool] | None = None,
+) -> str:
     """Use per day against degree days per day, one circle per period.
 
     With ``recent`` (one flag per period), the flagged periods (those of the analysis
@@ -236,13 +265,17 @@ def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[floa
     f = _Frame(width, height, float(xt[0]), float(xt[-1]), float(yt[0]), float(yt[-1]), **({"top": 22} | margins))
     out = [_svg_open(width, height, title), f.axes(xt, yt, x_label, y_label, xgrid=True, titles=annotate)]
     legend = []
-    for line, dash, label in ((expected_line, ' stroke-dasharray="5 3"', "engineering expectation"),
-                              (fit_line, "", "fitted to the meter data")):
+    for line, dash, label in (
+        (expected_line, ' stroke-dasharray="5 3"', "engineering expectation"),
+        (fit_line, "", "fitted to the meter data"),
+    ):
         seg = _clip_line(line.get("intercept"), line.get("slope"), f.xlo, f.xhi, f.ylo, f.yhi) if line else None
         if seg:
             (xa, ya), (xb, yb) = seg
-            out.append(f'<line x1="{float(f.px(xa)):.1f}" y1="{float(f.py(ya)):.1f}" x2="{float(f.px(xb)):.1f}" '
-                       f'y2="{float(f.py(yb)):.1f}" stroke="{INK}" stroke-width="1.4"{dash}/>')
+            out.append(
+                f'<line x1="{float(f.px(xa)):.1f}" y1="{float(f.py(ya)):.1f}" x2="{float(f.px(xb)):.1f}" '
+                f'y2="{float(f.py(yb)):.1f}" stroke="{INK}" stroke-width="1.4"{dash}/>'
+            )
             legend.append((dash, label))
     px, py = f.px(xs), f.py(ys)
     rk = rec[ok]
@@ -252,30 +285,42 @@ def scatter_chart(dd_per_day: Sequence[float | None], use_per_day: Sequence[floa
     # per sheet than writing the Beziers (DEVELOPERS.md "Rendering")
     for sel, fill, cls in ((~rk, "#fff", "periods"), (rk, MID, "periods recent")):
         if sel.any():
-            out.append(f'<path class="{cls}" d="' + "".join(
-                f"M{a - 2.6:.1f} {b:.1f}c0-1.4 1.2-2.6 2.6-2.6s2.6 1.2 2.6 2.6-1.2 2.6-2.6 2.6-2.6-1.2-2.6-2.6z"
-                for a, b in zip(px[sel].tolist(), py[sel].tolist())) + f'" fill="{fill}" stroke="{INK}" stroke-width="1"/>')
+            out.append(
+                f'<path class="{cls}" d="'
+                + "".join(
+                    f"M{a - 2.6:.1f} {b:.1f}c0-1.4 1.2-2.6 2.6-2.6s2.6 1.2 2.6 2.6-1.2 2.6-2.6 2.6-2.6-1.2-2.6-2.6z"
+                    for a, b in zip(px[sel].tolist(), py[sel].tolist())
+                )
+                + f'" fill="{fill}" stroke="{INK}" stroke-width="1"/>'
+            )
     dropped = int((~ok).sum())
     if not annotate:
         out.append("</svg>")
         return "".join(out)
     lx = f.x0 + 2
-    out.append(f'<circle cx="{lx + 4:.1f}" cy="9" r="2.6" fill="#fff" stroke="{INK}"/>'
-               f'<text x="{lx + 10:.1f}" y="12" font-size="8" {_FONT}>period</text>')
+    out.append(
+        f'<circle cx="{lx + 4:.1f}" cy="9" r="2.6" fill="#fff" stroke="{INK}"/>'
+        f'<text x="{lx + 10:.1f}" y="12" font-size="8" {_FONT}>period</text>'
+    )
     lx += 44
     for dash, label in legend:
-        out.append(f'<line x1="{lx:.1f}" y1="9" x2="{lx + 16:.1f}" y2="9" stroke="{INK}" stroke-width="1.4"{dash}/>'
-                   f'<text x="{lx + 19:.1f}" y="12" font-size="8" {_FONT}>{escape(label)}</text>')
+        out.append(
+            f'<line x1="{lx:.1f}" y1="9" x2="{lx + 16:.1f}" y2="9" stroke="{INK}" stroke-width="1.4"{dash}/>'
+            f'<text x="{lx + 19:.1f}" y="12" font-size="8" {_FONT}>{escape(label)}</text>'
+        )
         lx += 19 + 4.5 * len(label) + 8
     if dropped:
-        out.append(f'<text x="{f.x1:.1f}" y="{f.y1 + 10:.1f}" text-anchor="end" font-size="7.5" {_FONT} '
-                   f'fill="{MID}">{dropped} period(s) not plotted (missing value)</text>')
+        out.append(
+            f'<text x="{f.x1:.1f}" y="{f.y1 + 10:.1f}" text-anchor="end" font-size="7.5" {_FONT} '
+            f'fill="{MID}">{dropped} period(s) not plotted (missing value)</text>'
+        )
     out.append("</svg>")
     return "".join(out)
 
 
-def _paired(labels: Sequence[str], a: Sequence[float | None], b: Sequence[float | None],
-            what: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _paired(
+    labels: Sequence[str], a: Sequence[float | None], b: Sequence[float | None], what: str
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Two series of one value per label, checked for length; with their finite values (for the axis)."""
     x, y = _arr(a), _arr(b)
     if not (len(labels) == x.size == y.size):
@@ -284,8 +329,16 @@ def _paired(labels: Sequence[str], a: Sequence[float | None], b: Sequence[float 
     return x, y, vals[np.isfinite(vals)]
 
 
-def annual_chart(labels: Sequence[str], metered: Sequence[float | None], expected: Sequence[float | None], *,
-                 y_label: str, width: float = 360, height: float = 210, annotate: bool = True) -> str:
+def annual_chart(
+    labels: Sequence[str],
+    metered: Sequence[float | None],
+    expected: Sequence[float | None],
+    *,
+    y_label: str,
+    width: float = 360,
+    height: float = 210,
+    annotate: bool = True,
+) -> str:
     """Metered (solid bar) against expected (outlined bar) heating, one pair per year.
 
     ``annotate=False`` leaves out the y-axis title and the legend (see :func:`scatter_chart`).
@@ -305,31 +358,45 @@ def annual_chart(labels: Sequence[str], metered: Sequence[float | None], expecte
     years: list[tuple[float, float, str, str]] = []
     for i, lab in enumerate(labels):
         cx = f.x0 + slot * (i + 0.5)
-        for val, dx, style in ((m[i], -bw, f'fill="{MID}" stroke="{INK}"'),
-                               (e[i], 0.0, f'fill="#fff" stroke="{INK}" stroke-dasharray="3 2"')):
+        for val, dx, style in (
+            (m[i], -bw, f'fill="{MID}" stroke="{INK}"'),
+            (e[i], 0.0, f'fill="#fff" stroke="{INK}" stroke-dasharray="3 2"'),
+        ):
             if np.isfinite(val):
                 yv = float(f.py(val))
-                out.append(f'<rect x="{cx + dx:.1f}" y="{min(yv, zero):.1f}" width="{bw:.1f}" '
-                           f'height="{abs(zero - yv):.1f}" {style} stroke-width="0.9"/>')
+                out.append(
+                    f'<rect x="{cx + dx:.1f}" y="{min(yv, zero):.1f}" width="{bw:.1f}" '
+                    f'height="{abs(zero - yv):.1f}" {style} stroke-width="0.9"/>'
+                )
             else:
-                out.append(f'<text x="{cx + dx + bw / 2:.1f}" y="{zero - 3:.1f}" text-anchor="middle" font-size="7" '
-                           f'{_FONT} fill="{MID}">n/a</text>')
+                out.append(
+                    f'<text x="{cx + dx + bw / 2:.1f}" y="{zero - 3:.1f}" text-anchor="middle" font-size="7" '
+                    f'{_FONT} fill="{MID}">n/a</text>'
+                )
         years.append((cx, f.y0 + 12, str(lab), "middle"))
     out.append(_label_run(years))
     if not annotate:
         out.append("</svg>")
         return "".join(out)
     lx = f.x0 + 4
-    out.append(f'<rect x="{lx:.1f}" y="4" width="12" height="8" fill="{MID}" stroke="{INK}"/>'
-               f'<text x="{lx + 16:.1f}" y="11" font-size="8" {_FONT}>metered</text>'
-               f'<rect x="{lx + 70:.1f}" y="4" width="12" height="8" fill="#fff" stroke="{INK}" '
-               f'stroke-dasharray="3 2"/><text x="{lx + 86:.1f}" y="11" font-size="8" {_FONT}>expected</text>')
+    out.append(
+        f'<rect x="{lx:.1f}" y="4" width="12" height="8" fill="{MID}" stroke="{INK}"/>'
+        f'<text x="{lx + 16:.1f}" y="11" font-size="8" {_FONT}>metered</text>'
+        f'<rect x="{lx + 70:.1f}" y="4" width="12" height="8" fill="#fff" stroke="{INK}" '
+        f'stroke-dasharray="3 2"/><text x="{lx + 86:.1f}" y="11" font-size="8" {_FONT}>expected</text>'
+    )
     out.append("</svg>")
     return "".join(out)
 
 
-def measure_chart(labels: Sequence[str], baseline: Sequence[float | None], metered: Sequence[float | None], *,
-                  width: float = 300, height: float = 110) -> str:
+def measure_chart(
+    labels: Sequence[str],
+    baseline: Sequence[float | None],
+    metered: Sequence[float | None],
+    *,
+    width: float = 300,
+    height: float = 110,
+) -> str:
     """Since a measure: metered use (grey bars) against the baseline's prediction (a dashed step line),
     one slot per billing period after the measure. No titles or legend (the sheet prints them as text);
     tick labels only, ``labels`` under the slots (every second one when there are more than 12).
@@ -359,15 +426,23 @@ def measure_chart(labels: Sequence[str], baseline: Sequence[float | None], meter
     if bars:
         out.append(f'<path d="{"".join(bars)}" fill="{MID}" stroke="{INK}" stroke-width="0.6"/>')
     if steps:
-        out.append(f'<path d="{"".join(steps)}" fill="none" stroke="{INK}" stroke-width="1.4" '
-                   'stroke-dasharray="4 2"/>')
+        out.append(f'<path d="{"".join(steps)}" fill="none" stroke="{INK}" stroke-width="1.4" stroke-dasharray="4 2"/>')
     out.append(_label_run(names))
     out.append("</svg>")
     return "".join(out)
 
 
-def peer_chart(peers: Sequence[float | None], value: float | None, median: float | None, *, x_label: str,
-               width: float = 300, height: float = 240, max_ticks: int = 80, annotate: bool = True) -> str:
+def peer_chart(
+    peers: Sequence[float | None],
+    value: float | None,
+    median: float | None,
+    *,
+    x_label: str,
+    width: float = 300,
+    height: float = 240,
+    max_ticks: int = 80,
+    annotate: bool = True,
+) -> str:
     """Where one building sits among its peer group on a single axis.
 
     Up to ``max_ticks`` peers are drawn as one grey tick each; larger groups as a
@@ -391,43 +466,55 @@ def peer_chart(peers: Sequence[float | None], value: float | None, median: float
     if p.size <= max_ticks:
         xs = f.px(p).tolist()
         if xs:  # one tick per peer, all in one path
-            out.append('<path class="peers" d="' + "".join(f"M{a:.1f} {f.y0 - 1:.1f}V{f.y0 - 40:.1f}" for a in xs)
-                       + f'" fill="none" stroke="{MID}" stroke-width="1"/>')
+            out.append(
+                '<path class="peers" d="'
+                + "".join(f"M{a:.1f} {f.y0 - 1:.1f}V{f.y0 - 40:.1f}" for a in xs)
+                + f'" fill="none" stroke="{MID}" stroke-width="1"/>'
+            )
         note = f"{p.size} building(s) in the group, one tick each"
     else:
         counts, edges = np.histogram(p, bins=20, range=(f.xlo, f.xhi))
         hmax = float(counts.max()) or 1.0
         hpx = (f.y0 - f.y1 - 34) * counts / hmax
-        bars = "".join(f"M{float(f.px(a)):.1f} {f.y0:.1f}v{-h:.1f}H{float(f.px(b)):.1f}V{f.y0:.1f}Z"
-                       for a, b, h in zip(edges[:-1].tolist(), edges[1:].tolist(), hpx.tolist()) if h > 0)
+        bars = "".join(
+            f"M{float(f.px(a)):.1f} {f.y0:.1f}v{-h:.1f}H{float(f.px(b)):.1f}V{f.y0:.1f}Z"
+            for a, b, h in zip(edges[:-1].tolist(), edges[1:].tolist(), hpx.tolist())
+            if h > 0
+        )
         if bars:  # all bars in one path
             out.append(f'<path class="bins" d="{bars}" fill="{LIGHT}" stroke="{INK}" stroke-width="0.5"/>')
         note = f"{p.size} buildings in the group, bars count buildings"
     if med is not None:
         xm = float(f.px(med))
         xl = min(max(xm, f.x0 + 26), f.x1 - 26)
-        out.append(f'<line x1="{xm:.1f}" y1="{f.y0:.1f}" x2="{xm:.1f}" y2="{f.y1 + 14:.1f}" stroke="{INK}" '
-                   f'stroke-width="1.2" stroke-dasharray="4 2"/>')
+        out.append(
+            f'<line x1="{xm:.1f}" y1="{f.y0:.1f}" x2="{xm:.1f}" y2="{f.y1 + 14:.1f}" stroke="{INK}" '
+            f'stroke-width="1.2" stroke-dasharray="4 2"/>'
+        )
         if annotate:
-            out.append(f'<text x="{xl:.1f}" y="{f.y1 + 11:.1f}" text-anchor="middle" font-size="8" {_FONT}>'
-                       f'peer median</text>')
+            out.append(
+                f'<text x="{xl:.1f}" y="{f.y1 + 11:.1f}" text-anchor="middle" font-size="8" {_FONT}>peer median</text>'
+            )
     if v is not None:
         xv = float(f.px(v))
         ty = f.y0 - 52
         anchor = "start" if xv < (f.x0 + f.x1) / 2 else "end"
         dx = 6 if anchor == "start" else -6
-        out.append(f'<path d="M{xv - 6:.1f},{ty - 10:.1f} L{xv + 6:.1f},{ty - 10:.1f} L{xv:.1f},{ty:.1f} Z" '
-                   f'fill="{INK}"/><line x1="{xv:.1f}" y1="{ty:.1f}" x2="{xv:.1f}" y2="{f.y0:.1f}" stroke="{INK}" '
-                   f'stroke-width="2"/><text x="{xv + dx:.1f}" y="{ty - 12:.1f}" text-anchor="{anchor}" '
-                   f'font-size="8.5" font-weight="bold" {_FONT}>this building</text>')
+        out.append(
+            f'<path d="M{xv - 6:.1f},{ty - 10:.1f} L{xv + 6:.1f},{ty - 10:.1f} L{xv:.1f},{ty:.1f} Z" '
+            f'fill="{INK}"/><line x1="{xv:.1f}" y1="{ty:.1f}" x2="{xv:.1f}" y2="{f.y0:.1f}" stroke="{INK}" '
+            f'stroke-width="2"/><text x="{xv + dx:.1f}" y="{ty - 12:.1f}" text-anchor="{anchor}" '
+            f'font-size="8.5" font-weight="bold" {_FONT}>this building</text>'
+        )
     if annotate:
         out.append(f'<text x="{f.x0:.1f}" y="10" font-size="7.5" {_FONT} fill="{MID}">{escape(note)}</text>')
     out.append("</svg>")
     return "".join(out)
 
 
-def ratio_histogram(ratios: Sequence[float | None], *, width: float = 520, height: float = 200,
-                    step: float = 0.1, top: float = 3.0) -> str:
+def ratio_histogram(
+    ratios: Sequence[float | None], *, width: float = 520, height: float = 200, step: float = 0.1, top: float = 3.0
+) -> str:
     """Distribution of metered/expected ratios, bins of ``step`` from 0 to ``top`` plus one
     overflow bin; a dashed line marks ratio 1 (metered equals expected)."""
     if not (step > 0 and top > step):
@@ -444,17 +531,26 @@ def ratio_histogram(ratios: Sequence[float | None], *, width: float = 520, heigh
     yt = yt[yt == np.round(yt)]
     f = _Frame(width, height, 0.0, top, 0.0, float(yt[-1]), top=14)
     xt = np.arange(0.0, top + 1e-9, 0.5)
-    out = [_svg_open(width, height, title),
-           f.axes(xt, yt, "metered / expected heating (ratio)", "buildings")]
+    out = [_svg_open(width, height, title), f.axes(xt, yt, "metered / expected heating (ratio)", "buildings")]
     x0s, x1s, ys = f.px(edges[:-1]).tolist(), f.px(edges[1:]).tolist(), f.py(counts).tolist()
-    out.append("".join(f'<rect x="{a:.1f}" y="{c:.1f}" width="{b - a:.1f}" height="{f.y0 - c:.1f}" fill="{LIGHT}" '
-                       f'stroke="{INK}" stroke-width="0.6"/>' for a, b, c, n in zip(x0s, x1s, ys, counts) if n))
+    out.append(
+        "".join(
+            f'<rect x="{a:.1f}" y="{c:.1f}" width="{b - a:.1f}" height="{f.y0 - c:.1f}" fill="{LIGHT}" '
+            f'stroke="{INK}" stroke-width="0.6"/>'
+            for a, b, c, n in zip(x0s, x1s, ys, counts)
+            if n
+        )
+    )
     x1 = float(f.px(1.0))
-    out.append(f'<line x1="{x1:.1f}" y1="{f.y0:.1f}" x2="{x1:.1f}" y2="{f.y1:.1f}" stroke="{INK}" stroke-width="1.2" '
-               f'stroke-dasharray="4 2"/><text x="{x1 + 3:.1f}" y="{f.y1 + 8:.1f}" font-size="8" {_FONT}>'
-               f'metered = expected</text>')
-    out.append(f'<text x="{f.x1:.1f}" y="{f.y1 + 8:.1f}" text-anchor="end" font-size="7.5" {_FONT} fill="{MID}">'
-               f'last bar: ratio {top:g} and above, {int(counts[-1])} building(s) of the {r.size} plotted</text>')
+    out.append(
+        f'<line x1="{x1:.1f}" y1="{f.y0:.1f}" x2="{x1:.1f}" y2="{f.y1:.1f}" stroke="{INK}" stroke-width="1.2" '
+        f'stroke-dasharray="4 2"/><text x="{x1 + 3:.1f}" y="{f.y1 + 8:.1f}" font-size="8" {_FONT}>'
+        f"metered = expected</text>"
+    )
+    out.append(
+        f'<text x="{f.x1:.1f}" y="{f.y1 + 8:.1f}" text-anchor="end" font-size="7.5" {_FONT} fill="{MID}">'
+        f"last bar: ratio {top:g} and above, {int(counts[-1])} building(s) of the {r.size} plotted</text>"
+    )
     out.append("</svg>")
     return "".join(out)
 
@@ -471,12 +567,15 @@ def bar_strip(values: Sequence[float | None], *, width: float = 100, row: float 
     height = max(n, 1) * row
     ok = np.isfinite(v) & (v > 0)
     vmax = float(v[ok].max()) if ok.any() else 0.0
-    out = [f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width:g} {height:g}" width="{width:g}" '
-           f'height="{height:g}" preserveAspectRatio="none"><title>bars</title>']
+    out = [
+        f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width:g} {height:g}" width="{width:g}" '
+        f'height="{height:g}" preserveAspectRatio="none"><title>bars</title>'
+    ]
     if vmax > 0:
         pad = row * (1 - fill) / 2
-        d = "".join(f"M0 {k * row + pad:.2f}h{width * float(v[k]) / vmax:.2f}v{row * fill:.2f}H0Z"
-                    for k in range(n) if ok[k])
+        d = "".join(
+            f"M0 {k * row + pad:.2f}h{width * float(v[k]) / vmax:.2f}v{row * fill:.2f}H0Z" for k in range(n) if ok[k]
+        )
         out.append(f'<path d="{d}" fill="{MID}" stroke="{INK}" stroke-width="0.5"/>')
     out.append("</svg>")
     return "".join(out)

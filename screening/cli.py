@@ -27,8 +27,12 @@ import typer
 from . import __version__, interrupts
 from .errors import EXIT_BAD_INPUT, EXIT_RUN_FAILED, Interrupted, ScreeningError
 
-app = typer.Typer(add_completion=False, no_args_is_help=True, pretty_exceptions_enable=False,
-                  help="Screen a portfolio of buildings for excess heating use (degree-day method).")
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    pretty_exceptions_enable=False,
+    help="Screen a portfolio of buildings for excess heating use (degree-day method).",
+)
 log = logging.getLogger("ddscreen")
 
 
@@ -39,8 +43,11 @@ def _version(value: bool):
 
 
 @app.callback()
-def _main(version: Annotated[Optional[bool], typer.Option("--version", callback=_version, is_eager=True,
-                                                          help="Print the version and exit.")] = None):
+def _main(
+    version: Annotated[
+        Optional[bool], typer.Option("--version", callback=_version, is_eager=True, help="Print the version and exit.")
+    ] = None,
+):
     """Screen a portfolio of buildings for excess heating use (degree-day method)."""
 
 
@@ -67,13 +74,16 @@ def _fail(exc: BaseException) -> None:
     """Map an exception to one line on stderr and an exit code (no traceback for users)."""
     if isinstance(exc, MemoryError):
         from .memory import ran_out
+
         exc = ran_out(exc, None)
     exc = interrupts.as_interrupted(exc)  # Ctrl-C, SIGTERM, or an error a library raised because of them
     _reported.append(exc)
     if isinstance(exc, (ScreeningError, Interrupted)):
         typer.echo(f"ddscreen: error: {exc}", err=True)
         raise typer.Exit(exc.exit_code)
-    path = Path(tempfile.gettempdir()) / f"ddscreen-crash-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{os.getpid()}.log"
+    path = (
+        Path(tempfile.gettempdir()) / f"ddscreen-crash-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{os.getpid()}.log"
+    )
     try:
         path.write_text("".join(traceback.format_exception(exc)), encoding="utf-8")
         where = f"; details in {path}"
@@ -128,9 +138,11 @@ class PeriodBy(str, Enum):
 
 def _print_summary(res) -> None:
     c = res.summary["counts"]
-    typer.echo(f"Screened {c['buildings']} buildings ({res.summary['window'][0]} to {res.summary['window'][1]}): "
-               f"{c['needs_review']} need review, {c['blocked_by_data']} need data fixed first, "
-               f"{c['with_data_issues']} with data issues, {c['rejected_rows']} input rows rejected.")
+    typer.echo(
+        f"Screened {c['buildings']} buildings ({res.summary['window'][0]} to {res.summary['window'][1]}): "
+        f"{c['needs_review']} need review, {c['blocked_by_data']} need data fixed first, "
+        f"{c['with_data_issues']} with data issues, {c['rejected_rows']} input rows rejected."
+    )
     tiers = ", ".join(f"{k} {v}" for k, v in c["per_tier"].items())
     typer.echo(f"Tiers: {tiers}")
     if res.top:
@@ -138,21 +150,26 @@ def _print_summary(res) -> None:
         for t in res.top:
             ratio = "" if t["ratio"] is None else f", {t['ratio']:.2f}× expected"
             strong = ", strong evidence" if t["needs_review"] else ""
-            typer.echo(f"  {t['rank']:>4}. {t['building_id']}  {t['name'][:40]}  (expected savings about "
-                       f"{t['currency']}{t['expected_recoverable_cost']:,.0f} a year{ratio}{strong})")
+            typer.echo(
+                f"  {t['rank']:>4}. {t['building_id']}  {t['name'][:40]}  (expected savings about "
+                f"{t['currency']}{t['expected_recoverable_cost']:,.0f} a year{ratio}{strong})"
+            )
     else:
         typer.echo("No building's expected savings are worth a visit ([plan] audit_cost).")
     typer.echo(f"Outputs: {res.out_dir}  (database {res.db_path})")
 
 
-COLUMNS_HELP = ("your column names for ours: KIND:Their name=our_name,… (KIND buildings, readings, weather or events; "
-                "repeat for each kind); adds to [inputs.columns] of the config")
+COLUMNS_HELP = (
+    "your column names for ours: KIND:Their name=our_name,… (KIND buildings, readings, weather or events; "
+    "repeat for each kind); adds to [inputs.columns] of the config"
+)
 DATE_ORDER_HELP = "order of slash dates like 03/04/2025: dmy, mdy or ymd ([reading] date_order)"
 
 
 def _reading_overrides(overrides: dict, columns: list[str] | None, date_order: str | None) -> None:
     """--columns and --date-order into the config overrides (checked with the config)."""
     from .colmap import parse_option
+
     if columns:
         overrides.setdefault("inputs", {})["columns"] = parse_option(columns)
     if date_order is not None:
@@ -173,7 +190,9 @@ def run(
     buildings: Annotated[Optional[str], typer.Option(help="buildings CSV (or glob)")] = None,
     readings: Annotated[Optional[str], typer.Option(help="readings CSV (or glob)")] = None,
     weather: Annotated[Optional[str], typer.Option(help="daily weather CSV (or glob)")] = None,
-    events: Annotated[Optional[str], typer.Option(help="optional events CSV (or glob): audits, findings, measures")] = None,
+    events: Annotated[
+        Optional[str], typer.Option(help="optional events CSV (or glob): audits, findings, measures")
+    ] = None,
     out: Annotated[Optional[str], typer.Option(help="output folder (default: [output] root/<quarter>)")] = None,
     db: Annotated[Optional[str], typer.Option(help="DuckDB file (default screening.duckdb)")] = None,
     as_of: Annotated[Optional[str], typer.Option("--as-of", help="YYYY-MM-DD; default today")] = None,
@@ -190,18 +209,26 @@ def run(
 ):
     """Load the files, screen the portfolio and write ranking.csv, ranking.pdf, sheets/ and summary.json."""
     from . import runner
+
     _log_to_stderr(quiet, verbose)
-    overrides = {"inputs": {"buildings": buildings, "readings": readings, "weather": weather, "events": events},
-                 "store": {"database": db},
-                 "analysis": {"as_of": as_of, "window_from": date_from, "window_to": date_to,
-                              "units": units.upper() if units else None},
-                 "output": {"sheets": False if no_sheets else None}}
+    overrides = {
+        "inputs": {"buildings": buildings, "readings": readings, "weather": weather, "events": events},
+        "store": {"database": db},
+        "analysis": {
+            "as_of": as_of,
+            "window_from": date_from,
+            "window_to": date_to,
+            "units": units.upper() if units else None,
+        },
+        "output": {"sheets": False if no_sheets else None},
+    }
     if out is None and config is None:
         out = "ddscreen-out"
     with _mapped_errors():
         _reading_overrides(overrides, columns, date_order)
-        res = runner.run(config_path=config, overrides=overrides, out_dir=out, force=force, quiet=quiet,
-                         progress=not quiet)
+        res = runner.run(
+            config_path=config, overrides=overrides, out_dir=out, force=force, quiet=quiet, progress=not quiet
+        )
     if not quiet:
         _print_summary(res)
 
@@ -214,6 +241,7 @@ def demo(
 ):
     """Screen the packaged sample portfolio (an invented scenario) into OUT."""
     from . import runner
+
     _log_to_stderr(quiet, False)
     with _mapped_errors():
         res = runner.demo(out, sheets=not no_sheets, progress=not quiet)
@@ -239,6 +267,7 @@ def validate(
     When a file lacks required columns, prints a column mapping to check and paste into the config.
     """
     from . import runner
+
     with _mapped_errors():
         overrides = {"analysis": {"units": units.upper() if units else None}}
         _reading_overrides(overrides, columns, date_order)
@@ -248,8 +277,10 @@ def validate(
     for p in v.problems:
         typer.echo(p)
     if v.suggestions:
-        typer.echo("Suggested column mapping (check each line; paste it into the config file, or pass the same "
-                   "with --columns):")
+        typer.echo(
+            "Suggested column mapping (check each line; paste it into the config file, or pass the same "
+            "with --columns):"
+        )
         for block in v.suggestions:
             typer.echo(block)
     counts = ", ".join(f"{k} {n} rows accepted" for k, n in v.rows.items())
@@ -266,31 +297,55 @@ def degree_days(
     method: Annotated[str, typer.Option(help="mean, maxmin, hourly or monthly-estimate")] = "mean",
     by: Annotated[PeriodBy, typer.Option(help="day, month, year or period")] = PeriodBy.month,
     periods: Annotated[Optional[str], typer.Option(help="CSV of periods (start, end) for --by period")] = None,
-    hourly: Annotated[Optional[str], typer.Option(help="hourly CSV (station_id, timestamp, temperature) for --method hourly")] = None,
+    hourly: Annotated[
+        Optional[str], typer.Option(help="hourly CSV (station_id, timestamp, temperature) for --method hourly")
+    ] = None,
     date_from: Annotated[Optional[str], typer.Option("--from", help="first day YYYY-MM-DD")] = None,
     date_to: Annotated[Optional[str], typer.Option("--to", help="last day YYYY-MM-DD (inclusive)")] = None,
     normal: Annotated[bool, typer.Option(help="normal-year values from the complete years")] = False,
     units: Annotated[str, typer.Option(help="IP or SI")] = "IP",
     fmt: Annotated[OutputFormat, typer.Option("--format", help="csv or table")] = OutputFormat.csv,
-    rounding: Annotated[bool, typer.Option(help="round each daily mean half up first, as weather services publish")] = False,
+    rounding: Annotated[
+        bool, typer.Option(help="round each daily mean half up first, as weather services publish")
+    ] = False,
     date_order: Annotated[Optional[str], typer.Option("--date-order", help=DATE_ORDER_HELP)] = None,
 ):
     """Degree days of one station, to stdout (notices on stderr)."""
     from . import ddtool
+
     notices: list[str] = []
     with _mapped_errors(value_error_is_bad_input=True):
-        df = ddtool.degree_days_report(weather, station, base=base, kind=kind.value, method=method, by=by.value,
-                                       periods_path=periods, date_from=date_from, date_to=date_to, normal=normal,
-                                       units=units.upper(), hourly_path=hourly, rounding=rounding,
-                                       notices=notices, date_order=_date_order(date_order))
+        df = ddtool.degree_days_report(
+            weather,
+            station,
+            base=base,
+            kind=kind.value,
+            method=method,
+            by=by.value,
+            periods_path=periods,
+            date_from=date_from,
+            date_to=date_to,
+            normal=normal,
+            units=units.upper(),
+            hourly_path=hourly,
+            rounding=rounding,
+            notices=notices,
+            date_order=_date_order(date_order),
+        )
     for n in notices:
         typer.echo(n if n.startswith("warning:") else f"notice: {n}", err=True)
     if fmt is OutputFormat.csv:
         sys.stdout.write(df.write_csv())
     else:
         import polars as pl
-        with pl.Config(tbl_rows=-1, tbl_cols=-1, tbl_width_chars=250, tbl_hide_dataframe_shape=True,
-                       tbl_hide_column_data_types=True):
+
+        with pl.Config(
+            tbl_rows=-1,
+            tbl_cols=-1,
+            tbl_width_chars=250,
+            tbl_hide_dataframe_shape=True,
+            tbl_hide_column_data_types=True,
+        ):
             typer.echo(str(df))
 
 
@@ -298,12 +353,18 @@ def degree_days(
 def init(
     path: Annotated[str, typer.Argument(help="where to write the config")] = "screening.toml",
     force: Annotated[bool, typer.Option(help="overwrite an existing file")] = False,
-    sources: Annotated[Optional[list[str]], typer.Option(
-        "--from", help="an input file (or KIND=FILE) to point the config at, with the column mapping inferred "
-                       "from its header; repeat for each file")] = None,
+    sources: Annotated[
+        Optional[list[str]],
+        typer.Option(
+            "--from",
+            help="an input file (or KIND=FILE) to point the config at, with the column mapping inferred "
+            "from its header; repeat for each file",
+        ),
+    ] = None,
 ):
     """Write a commented configuration template (with --from: for your own files, mapping to confirm)."""
     from . import runner
+
     report: list[str] = []
     with _mapped_errors():
         p = runner.init_config(path, overwrite=force, sources=sources, report=report)
@@ -320,6 +381,7 @@ def status(
 ):
     """The last runs: status, window and where their outputs are."""
     from . import config as cfgmod, runner
+
     with _mapped_errors():
         if config:
             db = cfgmod.load(config)["store"]["database"]
@@ -328,8 +390,10 @@ def status(
         typer.echo("no runs recorded yet")
         return
     for r in runs.iter_rows(named=True):
-        typer.echo(f"{r['run_key']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}  "
-                   f"started {r['started_at']:%Y-%m-%d %H:%M}  {r['out_dir'] or '-'}")
+        typer.echo(
+            f"{r['run_key']}  {r['status']:<11} window {r['window_start']}..{r['window_end']}  "
+            f"started {r['started_at']:%Y-%m-%d %H:%M}  {r['out_dir'] or '-'}"
+        )
 
 
 @app.command()
@@ -337,12 +401,15 @@ def history(
     db: Annotated[str, typer.Option(help="DuckDB file")] = "screening.duckdb",
     older: Annotated[Optional[str], typer.Option(help="run id of the older run (as on its outputs)")] = None,
     newer: Annotated[Optional[str], typer.Option(help="run id of the newer run (as on its outputs)")] = None,
-    events: Annotated[Optional[list[str]], typer.Option(help="events file (path or glob) to show beside the "
-                                                        "changes; default: the newer run's")] = None,
+    events: Annotated[
+        Optional[list[str]],
+        typer.Option(help="events file (path or glob) to show beside the changes; default: the newer run's"),
+    ] = None,
 ):
     """List the runs and show what changed between two of them (default: the last two successful),
     with the events between them beside each building."""
     from . import runner
+
     with _mapped_errors():
         runs, diff = runner.history(db, older, newer, events=events)
     for r in runs.iter_rows(named=True):
@@ -351,6 +418,7 @@ def history(
         typer.echo("fewer than two successful runs: nothing to compare")
         return
     import polars as pl
+
     changed = diff.filter(pl.col("change") != "same rank")
     typer.echo(f"{changed.height} building(s) changed rank or flags:")
     for r in changed.iter_rows(named=True):

@@ -20,17 +20,39 @@ from .errors import ConfigError
 #: everyday header words; a suggestion from it is always shown for confirmation.
 SYNONYMS: dict[str, dict[str, tuple[str, ...]]] = {
     "buildings": {
-        "building_id": ("building id", "bldg id", "building", "bldg", "building no", "building number",
-                        "building code", "site id", "site", "property id", "property code", "id"),
+        "building_id": (
+            "building id",
+            "bldg id",
+            "building",
+            "bldg",
+            "building no",
+            "building number",
+            "building code",
+            "site id",
+            "site",
+            "property id",
+            "property code",
+            "id",
+        ),
         "name": ("building name", "property name", "site name", "property", "description"),
         "station_id": ("station", "weather station", "station id", "station code", "wx station"),
         "use_type": ("use", "use type", "building type", "property type", "type", "primary use", "usage type"),
-        "floor_area": ("floor area", "area", "gross floor area", "gfa", "gross area", "square feet", "sq ft",
-                       "sqft", "square footage", "size", "floor space"),
+        "floor_area": (
+            "floor area",
+            "area",
+            "gross floor area",
+            "gfa",
+            "gross area",
+            "square feet",
+            "sq ft",
+            "sqft",
+            "square footage",
+            "size",
+            "floor space",
+        ),
         "year_built": ("year built", "built", "construction year", "year constructed", "built year"),
         "stories": ("floors", "storeys", "number of floors", "no of floors", "levels"),
-        "heating_fuel": ("heating fuel", "heat fuel", "fuel", "primary heating fuel", "heating source",
-                         "heating type"),
+        "heating_fuel": ("heating fuel", "heat fuel", "fuel", "primary heating fuel", "heating source", "heating type"),
         "heating_efficiency": ("efficiency", "boiler efficiency", "heating system efficiency"),
         "ua_total": ("ua", "ua value", "total ua", "heat loss coefficient", "envelope ua"),
         "balance_point": ("balance point temperature", "balance temperature", "balance temp"),
@@ -38,21 +60,89 @@ SYNONYMS: dict[str, dict[str, tuple[str, ...]]] = {
         "city": ("town",),
     },
     "readings": {
-        "building_id": ("building id", "bldg id", "building", "bldg", "building no", "building number",
-                        "building code", "site id", "site", "property id", "property code", "account"),
-        "fuel": ("fuel", "fuel type", "energy type", "commodity", "utility", "utility type", "meter type",
-                 "service type", "energy source"),
-        "period_start": ("start date", "start", "from", "from date", "period start", "bill start",
-                         "service start", "begin", "begin date", "billing start", "start of period"),
-        "period_end": ("end date", "end", "to", "to date", "period end", "bill end", "service end", "through",
-                       "billing end", "end of period"),
-        "read_date": ("read date", "reading date", "meter read date", "date read", "date of read",
-                      "bill date", "statement date"),
-        "quantity": ("usage", "consumption", "use", "amount used", "volume", "qty", "reading", "total usage",
-                     "energy use", "units used"),
+        "building_id": (
+            "building id",
+            "bldg id",
+            "building",
+            "bldg",
+            "building no",
+            "building number",
+            "building code",
+            "site id",
+            "site",
+            "property id",
+            "property code",
+            "account",
+        ),
+        "fuel": (
+            "fuel",
+            "fuel type",
+            "energy type",
+            "commodity",
+            "utility",
+            "utility type",
+            "meter type",
+            "service type",
+            "energy source",
+        ),
+        "period_start": (
+            "start date",
+            "start",
+            "from",
+            "from date",
+            "period start",
+            "bill start",
+            "service start",
+            "begin",
+            "begin date",
+            "billing start",
+            "start of period",
+        ),
+        "period_end": (
+            "end date",
+            "end",
+            "to",
+            "to date",
+            "period end",
+            "bill end",
+            "service end",
+            "through",
+            "billing end",
+            "end of period",
+        ),
+        "read_date": (
+            "read date",
+            "reading date",
+            "meter read date",
+            "date read",
+            "date of read",
+            "bill date",
+            "statement date",
+        ),
+        "quantity": (
+            "usage",
+            "consumption",
+            "use",
+            "amount used",
+            "volume",
+            "qty",
+            "reading",
+            "total usage",
+            "energy use",
+            "units used",
+        ),
         "unit": ("units", "uom", "unit of measure", "usage unit", "usage units", "measure"),
-        "cost": ("amount", "charges", "total cost", "bill amount", "total charges", "total", "amount due",
-                 "cost usd", "charge"),
+        "cost": (
+            "amount",
+            "charges",
+            "total cost",
+            "bill amount",
+            "total charges",
+            "total",
+            "amount due",
+            "cost usd",
+            "charge",
+        ),
         "meter_id": ("meter", "meter number", "meter id", "meter no", "meter code", "account number"),
         "estimated": ("estimate", "est", "estimated read", "estimated reading", "read type"),
     },
@@ -61,12 +151,22 @@ SYNONYMS: dict[str, dict[str, tuple[str, ...]]] = {
         "date": ("day", "obs date", "observation date", "date time"),
         "t_min": ("min temp", "tmin", "low", "minimum temperature", "min temperature", "low temp", "daily low"),
         "t_max": ("max temp", "tmax", "high", "maximum temperature", "max temperature", "high temp", "daily high"),
-        "t_mean": ("avg temp", "mean temp", "tavg", "average temperature", "mean temperature", "tmean",
-                   "average temp"),
+        "t_mean": ("avg temp", "mean temp", "tavg", "average temperature", "mean temperature", "tmean", "average temp"),
     },
     "events": {
-        "building_id": ("building id", "bldg id", "building", "bldg", "building no", "building number",
-                        "building code", "site id", "site", "property id", "property code"),
+        "building_id": (
+            "building id",
+            "bldg id",
+            "building",
+            "bldg",
+            "building no",
+            "building number",
+            "building code",
+            "site id",
+            "site",
+            "property id",
+            "property code",
+        ),
         "date": ("event date", "day", "date of visit", "visit date", "audit date", "install date", "installed"),
         "kind": ("event", "event type", "type", "what", "activity"),
         "finding": ("result", "outcome", "found", "audit result"),
@@ -102,6 +202,7 @@ def suggest(header: list[str], kind: str) -> list[tuple[str, str, str]]:
     named as one of ours is never re-mapped.
     """
     from .config import column_names
+
     ours = column_names()[kind]
     names = [h for h in header if str(h).strip()]
     keys = {h: _key(h) for h in names}
@@ -168,8 +269,10 @@ def toml_block(kind: str, pairs: list[tuple[str, str, str]], *, comments: bool =
     """``[inputs.columns.KIND]`` with one ``"their name" = "our name"`` line each (TOML, ready to paste)."""
     lines = [f"[inputs.columns.{kind}]"]
     for theirs, ours, why in pairs:
-        lines.append(f"{json.dumps(theirs, ensure_ascii=False)} = {json.dumps(ours)}"
-                     + (f"   # {why}: check it" if comments and why else ""))
+        lines.append(
+            f"{json.dumps(theirs, ensure_ascii=False)} = {json.dumps(ours)}"
+            + (f"   # {why}: check it" if comments and why else "")
+        )
     return "\n".join(lines)
 
 
@@ -183,8 +286,9 @@ def parse_option(values: list[str] | None) -> dict[str, dict[str, str]]:
         kind, sep, rest = v.partition(":")
         kind = kind.strip().lower()
         if not sep or kind not in REQUIRED:
-            raise ConfigError(f"--columns {v!r}: expected KIND:Their name=our_name,… with KIND buildings, "
-                              "readings, weather or events")
+            raise ConfigError(
+                f"--columns {v!r}: expected KIND:Their name=our_name,… with KIND buildings, readings, weather or events"
+            )
         for pair in rest.split(","):
             if not pair.strip():
                 continue

@@ -24,8 +24,14 @@ from .errors import ConfigError
 from .schema import UNIT_SYSTEMS
 
 
-def setting(default: Any, comment: str = "", *, range: tuple[float, float, str] | None = None,
-            choices: tuple[str, ...] | None = None, expected: str = "") -> Any:
+def setting(
+    default: Any,
+    comment: str = "",
+    *,
+    range: tuple[float, float, str] | None = None,
+    choices: tuple[str, ...] | None = None,
+    expected: str = "",
+) -> Any:
     """One setting: its default, the comment the ``ddscreen init`` template writes beside it, its allowed
     ``range`` (low, high, what) for numbers, or its ``choices`` and how a message names them (``expected``)."""
     md = {"comment": comment, "range": range, "choices": choices, "expected": expected}
@@ -44,6 +50,7 @@ UNITS = UNIT_SYSTEMS
 # infinities are refused everywhere. The heat contents take their range from screening/data/units.csv
 # (plausible_min/plausible_max, with its sources) at check time; prices are checked against PRICE_MAX.
 
+
 @dataclass
 class Inputs:
     """[inputs]"""
@@ -53,7 +60,8 @@ class Inputs:
     weather: str = setting("")
     events: str = setting("", "optional: audits, findings and measures (path or glob); see README")
     columns: dict[str, dict[str, str]] = setting(
-        {}, 'your column names → ours, per file kind: [inputs.columns.readings] "Usage" = "quantity"')
+        {}, 'your column names → ours, per file kind: [inputs.columns.readings] "Usage" = "quantity"'
+    )
 
 
 @dataclass
@@ -69,52 +77,60 @@ class Output:
 
     root: str = setting("ddscreen-out", "config runs write ROOT/<quarter label>/ and ROOT/latest")
     keep: int = setting(8, "how many past quarter folders to keep (0 = all)", range=(0, 1000, "a whole number"))
-    paper: str = setting("auto",
-                         "auto (Letter for IP, A4 for SI), Letter, A4", choices=PAPERS, expected="auto, Letter or A4")
+    paper: str = setting(
+        "auto", "auto (Letter for IP, A4 for SI), Letter, A4", choices=PAPERS, expected="auto, Letter or A4"
+    )
     sheets: bool = setting(True, "write one PDF sheet per building")
     workers: int = setting(2, "processes for sheet rendering", range=(1, 64, "a whole number"))
-    ranking_pdf_rows: int = setting(1000,
-                                    "rows of the ranked table in ranking.pdf (0 = all; ranking.csv has all)",
-                                    range=(0, 10000000, "a whole number"))
+    ranking_pdf_rows: int = setting(
+        1000,
+        "rows of the ranked table in ranking.pdf (0 = all; ranking.csv has all)",
+        range=(0, 10000000, "a whole number"),
+    )
 
 
 @dataclass
 class Run:
     """[run]"""
 
-    chunk_buildings: int = setting(16384, "buildings screened at a time (0 = all at once); peak memory grows with it",
-                                   range=(0, 100_000_000, "a whole number of buildings"))
+    chunk_buildings: int = setting(
+        16384,
+        "buildings screened at a time (0 = all at once); peak memory grows with it",
+        range=(0, 100_000_000, "a whole number of buildings"),
+    )
 
 
 @dataclass
 class Analysis:
     """[analysis]"""
 
-    units: str = setting("IP",
-                         "IP or SI: units of the input files and of the outputs", choices=UNIT_SYSTEMS,
-                         expected="IP or SI")
+    units: str = setting(
+        "IP", "IP or SI: units of the input files and of the outputs", choices=UNIT_SYSTEMS, expected="IP or SI"
+    )
     as_of: str = setting("", "YYYY-MM-DD; empty = today")
     window_from: str = setting("", "YYYY-MM-DD; overrides the window start")
     window_to: str = setting("", "YYYY-MM-DD; overrides the window end (inclusive)")
     # the whole method compares 12 months; a building's own span may go back up to 10 years
-    lookback_months: int = setting(24,
-                                   "how far back a building's own 12-month span may go",
-                                   range=(12, 120, "a whole number of months"))
+    lookback_months: int = setting(
+        24, "how far back a building's own 12-month span may go", range=(12, 120, "a whole number of months")
+    )
     # at most about two billing cycles may be filled; more is a missing bill, not a late read
-    fill_end_days: int = setting(35,
-                                 "up to this many days at the window's end without a reading yet (about one billing "
-                                 "cycle) are filled from the building's weather fit; 0 = never",
-                                 range=(0, 62, "a whole number of days"))
-    degree_day_method: str = setting("mean",
-                                     "mean or maxmin (daily data); see README", choices=("mean", "maxmin"),
-                                     expected="mean or maxmin")
-    calendarization: str = setting("days",
-                                   "days or degree_days", choices=("days", "degree_days"),
-                                   expected="days or degree_days")
+    fill_end_days: int = setting(
+        35,
+        "up to this many days at the window's end without a reading yet (about one billing "
+        "cycle) are filled from the building's weather fit; 0 = never",
+        range=(0, 62, "a whole number of days"),
+    )
+    degree_day_method: str = setting(
+        "mean", "mean or maxmin (daily data); see README", choices=("mean", "maxmin"), expected="mean or maxmin"
+    )
+    calendarization: str = setting(
+        "days", "days or degree_days", choices=("days", "degree_days"), expected="days or degree_days"
+    )
     # balance points of real buildings lie well inside 20-90 °F (common practice)
-    base_min_f: float = setting(40.0,
-                                "base-temperature grid for regression and balance point [°F]",
-                                range=(20.0, 90.0, "a temperature in °F"))
+    base_min_f: float = setting(
+        40.0, "base-temperature grid for regression and balance point [°F]", range=(20.0, 90.0, "a temperature in °F")
+    )
     base_max_f: float = setting(75.0, "", range=(20.0, 90.0, "a temperature in °F"))
     base_step_f: float = setting(0.5, "", range=(0.1, 5.0, "a step in °F"))
     normal_years: list[int] = setting([], "e.g. [2016, 2025] = 2016..2025; empty = every complete year")
@@ -130,9 +146,12 @@ class Reading:
     """[reading]"""
 
     decimal_comma: bool = setting(False, "numbers written 1.234,5")
-    date_order: str = setting("",
-                              '"", "dmy" or "mdy" for slash dates like 03/04/2025', choices=("", "dmy", "mdy", "ymd"),
-                              expected="dmy, mdy or ymd")
+    date_order: str = setting(
+        "",
+        '"", "dmy" or "mdy" for slash dates like 03/04/2025',
+        choices=("", "dmy", "mdy", "ymd"),
+        expected="dmy, mdy or ymd",
+    )
     delimiter: str = setting("", '"" = detect; "," ";" or "\\t"', choices=("", ",", ";", "\t"), expected=", ; or a tab")
     encoding: str = setting("", '"" = UTF-8 with Latin-1 fallback')
     thousands: str = setting("", '"" = none; "," (or "." with decimal_comma, " " or "\'") read 1,485 as 1485')
@@ -156,115 +175,138 @@ class Emissions:
     """[emissions]"""
 
     # the worst grids emit about 1 kg CO2e per kWh (coal, from memory); 2 leaves room
-    electricity_kg_co2e_per_kwh: float | None = setting(None,
-                                                        "None = the data file's national value; set your region's",
-                                                        range=(0.0, 2.0, "kg CO2e per kWh"))
+    electricity_kg_co2e_per_kwh: float | None = setting(
+        None, "None = the data file's national value; set your region's", range=(0.0, 2.0, "kg CO2e per kWh")
+    )
 
 
 @dataclass
 class Thresholds:
     """[thresholds]"""
 
-    band_ratio: float = setting(1.0,
-                                "metered above expected_high × this → above the band", range=(0.5, 5.0, "a factor"))
-    band_floor: float = setting(0.1,
-                                "the band is at least ±10 % around P50 (common practice: meter/weather uncertainty)",
-                                range=(0.0, 0.9, "a share"))
-    z_review: float = setting(2.0,
-                              "unused since the audit order (issue 14); kept so config files that set it still load",
-                              range=(0.1, 20.0, "a robust z-score"))
-    review_score: float = setting(3.5,
-                                  "evidence score (z + weighted balance-point and intensity z) for needs_review",
-                                  range=(0.1, 50.0, "a score"))
-    weight_balance_point: float = setting(1.0,
-                                          "weight of the fitted-minus-engineering balance point z in the score",
-                                          range=(0.0, 10.0, "a weight"))
-    weight_intensity: float = setting(0.5,
-                                      "weight of the heating-intensity z within peers in the score",
-                                      range=(0.0, 10.0, "a weight"))
-    audit_first_ratio: float = setting(1.5,
-                                       "unused since Audit first is this quarter's plan ([plan]); kept so old "
-                                       "configs load",
-                                       range=(1.0, 100.0, "a ratio"))
-    audit_first_score: float = setting(5.0,
-                                       "unused since Audit first is this quarter's plan ([plan]); kept so old "
-                                       "configs load",
-                                       range=(0.1, 50.0, "a score"))
-    peer_percentile_high: float = setting(90.0,
-                                          "intensity percentile among peers flagged as high",
-                                          range=(50.0, 100.0, "a percentile"))
-    min_peer_group: int = setting(8,
-                                  "peer groups smaller than this fall back to use type",
-                                  range=(2, 10000, "a whole number of buildings"))
-    baseload_share_high: float = setting(1.5,
-                                         "baseload share above this × the use type's default share",
-                                         range=(1.0, 10.0, "a factor"))
-    balance_point_high_f: float = setting(65.0,
-                                          "fitted balance point above this → controls/setpoints flag",
-                                          range=(40.0, 90.0, "a temperature in °F"))
+    band_ratio: float = setting(
+        1.0, "metered above expected_high × this → above the band", range=(0.5, 5.0, "a factor")
+    )
+    band_floor: float = setting(
+        0.1,
+        "the band is at least ±10 % around P50 (common practice: meter/weather uncertainty)",
+        range=(0.0, 0.9, "a share"),
+    )
+    z_review: float = setting(
+        2.0,
+        "unused since the audit order (issue 14); kept so config files that set it still load",
+        range=(0.1, 20.0, "a robust z-score"),
+    )
+    review_score: float = setting(
+        3.5,
+        "evidence score (z + weighted balance-point and intensity z) for needs_review",
+        range=(0.1, 50.0, "a score"),
+    )
+    weight_balance_point: float = setting(
+        1.0, "weight of the fitted-minus-engineering balance point z in the score", range=(0.0, 10.0, "a weight")
+    )
+    weight_intensity: float = setting(
+        0.5, "weight of the heating-intensity z within peers in the score", range=(0.0, 10.0, "a weight")
+    )
+    audit_first_ratio: float = setting(
+        1.5,
+        "unused since Audit first is this quarter's plan ([plan]); kept so old configs load",
+        range=(1.0, 100.0, "a ratio"),
+    )
+    audit_first_score: float = setting(
+        5.0,
+        "unused since Audit first is this quarter's plan ([plan]); kept so old configs load",
+        range=(0.1, 50.0, "a score"),
+    )
+    peer_percentile_high: float = setting(
+        90.0, "intensity percentile among peers flagged as high", range=(50.0, 100.0, "a percentile")
+    )
+    min_peer_group: int = setting(
+        8, "peer groups smaller than this fall back to use type", range=(2, 10000, "a whole number of buildings")
+    )
+    baseload_share_high: float = setting(
+        1.5, "baseload share above this × the use type's default share", range=(1.0, 10.0, "a factor")
+    )
+    balance_point_high_f: float = setting(
+        65.0, "fitted balance point above this → controls/setpoints flag", range=(40.0, 90.0, "a temperature in °F")
+    )
     r2_min: float = setting(0.7, "fit poorer than this → inconsistent use", range=(0.0, 1.0, "a share"))
-    cv_rmse_max: float = setting(20.0,
-                                 "% (ASHRAE Guideline 14 monthly regression criterion)",
-                                 range=(1.0, 1000.0, "a percentage"))
+    cv_rmse_max: float = setting(
+        20.0, "% (ASHRAE Guideline 14 monthly regression criterion)", range=(1.0, 1000.0, "a percentage")
+    )
     yoy_rise: float = setting(0.15, "normal-year heating up more than 15 % on last year", range=(0.01, 10.0, "a share"))
-    yoy_review: float = setting(0.25,
-                                "needs_review also when normal-year heating is up at least 25 % on last year …",
-                                range=(0.01, 10.0, "a share"))
-    yoy_review_z: float = setting(4.0,
-                                  "… and that change is this many robust z above the portfolio's changes …",
-                                  range=(0.1, 50.0, "a robust z-score"))
+    yoy_review: float = setting(
+        0.25,
+        "needs_review also when normal-year heating is up at least 25 % on last year …",
+        range=(0.01, 10.0, "a share"),
+    )
+    yoy_review_z: float = setting(
+        4.0,
+        "… and that change is this many robust z above the portfolio's changes …",
+        range=(0.1, 50.0, "a robust z-score"),
+    )
     yoy_review_r2_min: float = setting(
-        0.5, "… and the fit that normalizes both years explains at least this share (R²) …",
-        range=(0.0, 1.0, "a share"))
-    yoy_review_heating_share_min: float = setting(0.25,
-                                                  "… and heating is at least this share of the fuel's use",
-                                                  range=(0.0, 1.0, "a share"))
+        0.5, "… and the fit that normalizes both years explains at least this share (R²) …", range=(0.0, 1.0, "a share")
+    )
+    yoy_review_heating_share_min: float = setting(
+        0.25, "… and heating is at least this share of the fuel's use", range=(0.0, 1.0, "a share")
+    )
     # "covered" below half the span's days means nothing (common practice)
     coverage_min: float = setting(0.9, "share of the span covered by readings", range=(0.5, 1.0, "a share"))
-    estimated_share_max: float = setting(0.5,
-                                         "share of estimated reads above which data is weak",
-                                         range=(0.0, 1.0, "a share"))
-    unit_error_factor: float = setting(8.0,
-                                       "a reading this many times off the same month of other years suggests a unit "
-                                       "error",
-                                       range=(2.0, 10000.0, "a factor"))
-    unit_error_factor_expected: float = setting(10.0,
-                                                "metered/expected at or above this: likely unit or entry error",
-                                                range=(2.0, 10000.0, "a factor"))
-    unit_error_factor_expected_low: float = setting(25.0,
-                                                    "metered/expected at or below 1/this: likely unit or entry error",
-                                                    range=(2.0, 10000.0, "a factor"))
-    unit_error_factor_fit: float = setting(4.0,
-                                           "a bill this many times above (or below 1/this of) what its own weather "
-                                           "fit predicts",
-                                           range=(1.5, 10000.0, "a factor"))
-    unit_error_isolation: float = setting(2.0,
-                                          "… and this many times apart from both neighbouring bills (a spike, not a step)",
-                                          range=(1.0, 10_000.0, "a factor"))
-    min_excess_ratio: float = setting(1.0,
-                                      "metered/expected (P50) must reach this for needs_review",
-                                      range=(0.5, 10.0, "a ratio"))
-    peer_prior: float = setting(3.0,
-                                "evidence scale: the peers' spread weighs n / (n + this), the model band the rest",
-                                range=(0.0, 10000.0, "a number of buildings"))
-    sure_offset: float = setting(1.0,
-                                 "a view's sureness is Φ(z − this): half sure at z = 1",
-                                 range=(-5.0, 10.0, "a robust z-score"))
-    step_sure_z: float = setting(3.0,
-                                 "the step-up view is half sure at this robust z of the year-on-year change",
-                                 range=(0.0, 50.0, "a robust z-score"))
-    mechanism_support: float = setting(0.5,
-                                       "a mechanism is named (with its checks) from this sureness on",
-                                       range=(0.0, 1.0, "a share"))
-    balance_point_sd_f: float = setting(5.0,
-                                        "model scale of fitted − engineering balance point [°F] (our own)",
-                                        range=(0.5, 30.0, "a temperature difference in °F"))
-    baseload_share_sd: float = setting(0.15,
-                                       "model scale of the non-heating share against the use type's (our own)",
-                                       range=(0.01, 1.0, "a share"))
-    mechanism_weight: float = setting(0.5,
-                                      "share of the level view's sureness that rests on its surest mechanism",
-                                      range=(0.0, 1.0, "a share"))
+    estimated_share_max: float = setting(
+        0.5, "share of estimated reads above which data is weak", range=(0.0, 1.0, "a share")
+    )
+    unit_error_factor: float = setting(
+        8.0,
+        "a reading this many times off the same month of other years suggests a unit error",
+        range=(2.0, 10000.0, "a factor"),
+    )
+    unit_error_factor_expected: float = setting(
+        10.0, "metered/expected at or above this: likely unit or entry error", range=(2.0, 10000.0, "a factor")
+    )
+    unit_error_factor_expected_low: float = setting(
+        25.0, "metered/expected at or below 1/this: likely unit or entry error", range=(2.0, 10000.0, "a factor")
+    )
+    unit_error_factor_fit: float = setting(
+        4.0,
+        "a bill this many times above (or below 1/this of) what its own weather fit predicts",
+        range=(1.5, 10000.0, "a factor"),
+    )
+    unit_error_isolation: float = setting(
+        2.0,
+        "… and this many times apart from both neighbouring bills (a spike, not a step)",
+        range=(1.0, 10_000.0, "a factor"),
+    )
+    min_excess_ratio: float = setting(
+        1.0, "metered/expected (P50) must reach this for needs_review", range=(0.5, 10.0, "a ratio")
+    )
+    peer_prior: float = setting(
+        3.0,
+        "evidence scale: the peers' spread weighs n / (n + this), the model band the rest",
+        range=(0.0, 10000.0, "a number of buildings"),
+    )
+    sure_offset: float = setting(
+        1.0, "a view's sureness is Φ(z − this): half sure at z = 1", range=(-5.0, 10.0, "a robust z-score")
+    )
+    step_sure_z: float = setting(
+        3.0,
+        "the step-up view is half sure at this robust z of the year-on-year change",
+        range=(0.0, 50.0, "a robust z-score"),
+    )
+    mechanism_support: float = setting(
+        0.5, "a mechanism is named (with its checks) from this sureness on", range=(0.0, 1.0, "a share")
+    )
+    balance_point_sd_f: float = setting(
+        5.0,
+        "model scale of fitted − engineering balance point [°F] (our own)",
+        range=(0.5, 30.0, "a temperature difference in °F"),
+    )
+    baseload_share_sd: float = setting(
+        0.15, "model scale of the non-heating share against the use type's (our own)", range=(0.01, 1.0, "a share")
+    )
+    mechanism_weight: float = setting(
+        0.5, "share of the level view's sureness that rests on its surest mechanism", range=(0.0, 1.0, "a share")
+    )
 
 
 @dataclass
@@ -272,47 +314,69 @@ class Savings:
     """[savings]: savings after a measure (events file kind = measure); README"""
 
     # a commissioning settle-in of up to a year; a baseline needs a fit (2 parameters) and at most 12 monthly bills
-    blackout_days: int = setting(30,
-                                 "days after the measure left out of the reporting period (commissioning)",
-                                 range=(0, 366, "a whole number of days"))
-    post_measure_min_days: int = setting(180, "measure in the window: judged on the days after it + blackout if this many",
-                                         range=(90, 365, "a whole number of days"))
-    baseline_min_periods: int = setting(9,
-                                        "bills (of at most 62 days) the baseline needs in the 12 months before",
-                                        range=(3, 12, "a whole number of bills"))
-    cv_rmse_max: float = setting(20.0,
-                                 "% baseline limit, ASHRAE Guideline 14 (monthly regression; from memory)",
-                                 range=(0.1, 1000.0, "a percentage"))
-    nmbe_max: float = setting(0.005,
-                              "% |net determination bias| limit, ASHRAE Guideline 14 (from memory)",
-                              range=(0.0001, 100.0, "a percentage"))
+    blackout_days: int = setting(
+        30,
+        "days after the measure left out of the reporting period (commissioning)",
+        range=(0, 366, "a whole number of days"),
+    )
+    post_measure_min_days: int = setting(
+        180,
+        "measure in the window: judged on the days after it + blackout if this many",
+        range=(90, 365, "a whole number of days"),
+    )
+    baseline_min_periods: int = setting(
+        9,
+        "bills (of at most 62 days) the baseline needs in the 12 months before",
+        range=(3, 12, "a whole number of bills"),
+    )
+    cv_rmse_max: float = setting(
+        20.0,
+        "% baseline limit, ASHRAE Guideline 14 (monthly regression; from memory)",
+        range=(0.1, 1000.0, "a percentage"),
+    )
+    nmbe_max: float = setting(
+        0.005,
+        "% |net determination bias| limit, ASHRAE Guideline 14 (from memory)",
+        range=(0.0001, 100.0, "a percentage"),
+    )
 
 
 @dataclass
 class Learning:
     """[learning]: learning from audits (docs/methods.md "Learning from audits")"""
 
-    min_audits: int = setting(5, "an era x use type's default bias is applied from this many audited buildings on",
-                              range=(2, 1_000_000, "a whole number of audited buildings"))
+    min_audits: int = setting(
+        5,
+        "an era x use type's default bias is applied from this many audited buildings on",
+        range=(2, 1_000_000, "a whole number of audited buildings"),
+    )
 
 
 @dataclass
 class Plan:
     """[plan]"""
 
-    audits_per_quarter: int = setting(10,
-                                      "buildings to visit this quarter (0 = no limit: every one worth its visit)",
-                                      range=(0, 1000000, "a whole number of buildings"))
-    audit_cost: float = setting(2000.0,
-                                "cost of one visit: expected savings per year below it are not planned (0 = any)",
-                                range=(0.0, 100000000.0, "a cost per visit"))
-    clean_audit_rest_quarters: int = setting(4,
-                                             "an audit that found nothing keeps a building off the plan this many "
-                                             "quarters …",
-                                             range=(0, 40, "a whole number of quarters"))
+    audits_per_quarter: int = setting(
+        10,
+        "buildings to visit this quarter (0 = no limit: every one worth its visit)",
+        range=(0, 1000000, "a whole number of buildings"),
+    )
+    audit_cost: float = setting(
+        2000.0,
+        "cost of one visit: expected savings per year below it are not planned (0 = any)",
+        range=(0.0, 100000000.0, "a cost per visit"),
+    )
+    clean_audit_rest_quarters: int = setting(
+        4,
+        "an audit that found nothing keeps a building off the plan this many quarters …",
+        range=(0, 40, "a whole number of quarters"),
+    )
     clean_audit_regrow: float = setting(
-        2.0, "… unless its expected savings reach this × those of the list it was audited from",
-        range=(1.0, 100.0, "a factor"))
+        2.0,
+        "… unless its expected savings reach this × those of the list it was audited from",
+        range=(1.0, 100.0, "a factor"),
+    )
+
 
 @dataclass
 class Settings:
@@ -333,8 +397,9 @@ class Settings:
 
 
 #: section name → its dataclass
-SECTIONS: dict[str, type] = {f.name: f.type if isinstance(f.type, type) else globals()[f.type]
-                             for f in fields(Settings)}
+SECTIONS: dict[str, type] = {
+    f.name: f.type if isinstance(f.type, type) else globals()[f.type] for f in fields(Settings)
+}
 
 
 def _keys() -> list[tuple[str, Field]]:
@@ -346,10 +411,12 @@ def _keys() -> list[tuple[str, Field]]:
 DEFAULTS: dict[str, dict[str, Any]] = asdict(Settings())
 #: The allowed range of every numeric setting: (section, key) → (low, high, what), from the declarations.
 RANGES: dict[tuple[str, str], tuple[float, float, str]] = {
-    (s, f.name): f.metadata["range"] for s, f in _keys() if f.metadata["range"] is not None}
+    (s, f.name): f.metadata["range"] for s, f in _keys() if f.metadata["range"] is not None
+}
 #: Settings with a fixed set of values: (section, key) → (choices, how a message names them).
 CHOICES: dict[tuple[str, str], tuple[tuple[str, ...], str]] = {
-    (s, f.name): (f.metadata["choices"], f.metadata["expected"]) for s, f in _keys() if f.metadata["choices"]}
+    (s, f.name): (f.metadata["choices"], f.metadata["expected"]) for s, f in _keys() if f.metadata["choices"]
+}
 
 
 def settings(cfg: dict) -> Settings:
@@ -386,8 +453,10 @@ def _check_type(section: str, key: str, value: Any, default: Any) -> Any:
         return value
     if isinstance(default, dict):
         if not isinstance(value, dict):
-            raise ConfigError(f"config key {where}: got {value!r}; expected a table like "
-                              '[inputs.columns.readings] with "Your name" = "our_name" lines')
+            raise ConfigError(
+                f"config key {where}: got {value!r}; expected a table like "
+                '[inputs.columns.readings] with "Your name" = "our_name" lines'
+            )
         return value
     if isinstance(default, list):
         if not isinstance(value, list):
@@ -401,20 +470,25 @@ def merge(base: dict, overrides: dict, *, origin: str) -> dict:
     out = copy.deepcopy(base)
     for section, values in overrides.items():
         if section not in DEFAULTS:
-            raise ConfigError(f"{origin}: unknown section [{section}]; expected one of "
-                              + ", ".join(f"[{s}]" for s in DEFAULTS))
+            raise ConfigError(
+                f"{origin}: unknown section [{section}]; expected one of " + ", ".join(f"[{s}]" for s in DEFAULTS)
+            )
         if not isinstance(values, dict):
             raise ConfigError(f"{origin}: [{section}] must be a table of keys")
         for key, value in values.items():
             if key not in DEFAULTS[section]:
-                raise ConfigError(f"{origin}: unknown key [{section}] {key}; expected one of "
-                                  + ", ".join(DEFAULTS[section]))
+                raise ConfigError(
+                    f"{origin}: unknown key [{section}] {key}; expected one of " + ", ".join(DEFAULTS[section])
+                )
             value = _check_type(section, key, value, DEFAULTS[section][key])
-            if isinstance(DEFAULTS[section][key], dict):   # tables merge per kind (command line over file)
+            if isinstance(DEFAULTS[section][key], dict):  # tables merge per kind (command line over file)
                 merged = dict(out[section][key] or {})
                 for kind, mapping in value.items():
-                    merged[kind] = {**(merged.get(kind) or {}), **mapping} if isinstance(mapping, dict) \
-                        and isinstance(merged.get(kind), dict) else mapping
+                    merged[kind] = (
+                        {**(merged.get(kind) or {}), **mapping}
+                        if isinstance(mapping, dict) and isinstance(merged.get(kind), dict)
+                        else mapping
+                    )
                 value = merged
             out[section][key] = value
     return out
@@ -473,12 +547,18 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
     _check_text("store", "database", cfg["store"]["database"], empty_ok=False)
     _check_text("output", "root", cfg["output"]["root"], empty_ok=False)
     a = cfg["analysis"]
-    for section, key in (("analysis", "units"), ("output", "paper"), ("analysis", "degree_day_method"),
-                         ("analysis", "calendarization")):
+    for section, key in (
+        ("analysis", "units"),
+        ("output", "paper"),
+        ("analysis", "degree_day_method"),
+        ("analysis", "calendarization"),
+    ):
         _check_choice(cfg, section, key)
     if not a["base_min_f"] < a["base_max_f"]:
-        raise ConfigError(f"config keys [analysis] base_min_f/base_max_f: got {a['base_min_f']:g} and "
-                          f"{a['base_max_f']:g}; expected min < max")
+        raise ConfigError(
+            f"config keys [analysis] base_min_f/base_max_f: got {a['base_min_f']:g} and "
+            f"{a['base_max_f']:g}; expected min < max"
+        )
     _check_heat_contents(a)
     _check_dates(a, today)
     ny = a["normal_years"]
@@ -487,24 +567,31 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
             raise ConfigError(f"config key [analysis] normal_years: got {ny!r}; expected [first_year, last_year]")
         last_complete = today.year - 1
         if ny[0] < EARLIEST.year or ny[1] > last_complete:
-            raise ConfigError(f"config key [analysis] normal_years: got {ny!r}; expected complete years from "
-                              f"{EARLIEST.year} to {last_complete}")
+            raise ConfigError(
+                f"config key [analysis] normal_years: got {ny!r}; expected complete years from "
+                f"{EARLIEST.year} to {last_complete}"
+            )
     check_columns(cfg["inputs"]["columns"])
     r = cfg["reading"]
     dec = "," if r["decimal_comma"] else "."
     if r["thousands"] not in ("", ",", ".", " ", "'") or r["thousands"] == dec:
-        raise _range_error("[reading] thousands", r["thousands"],
-                           f'"" (none), ",", ".", " " or "\'", not the decimal mark {dec!r}'
-                           + (" (decimal_comma = true)" if r["decimal_comma"] else ""))
+        raise _range_error(
+            "[reading] thousands",
+            r["thousands"],
+            f'"" (none), ",", ".", " " or "\'", not the decimal mark {dec!r}'
+            + (" (decimal_comma = true)" if r["decimal_comma"] else ""),
+        )
     _check_choice(cfg, "reading", "date_order")
     _check_choice(cfg, "reading", "delimiter")
     if r["encoding"]:
         import codecs
+
         try:
             codecs.lookup(r["encoding"])
         except LookupError:
-            raise _range_error("[reading] encoding", r["encoding"],
-                               "an encoding name such as utf-8, cp1252 or latin-1 (or empty)") from None
+            raise _range_error(
+                "[reading] encoding", r["encoding"], "an encoding name such as utf-8, cp1252 or latin-1 (or empty)"
+            ) from None
     for k, v in cfg["prices"].items():
         if k == "currency":
             if not (1 <= len(v) <= 8) or any(ord(ch) < 32 for ch in v):
@@ -517,10 +604,13 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
 def column_names() -> dict[str, list[str]]:
     """Our column names per file kind (what ``[inputs.columns]`` may map to)."""
     from .schema import BUILDINGS, EVENTS, READ_DATE, READINGS, WEATHER
-    return {"buildings": [c.name for c in BUILDINGS],
-            "readings": [c.name for c in READINGS] + [READ_DATE],
-            "weather": [c.name for c in WEATHER],
-            "events": [c.name for c in EVENTS]}
+
+    return {
+        "buildings": [c.name for c in BUILDINGS],
+        "readings": [c.name for c in READINGS] + [READ_DATE],
+        "weather": [c.name for c in WEATHER],
+        "events": [c.name for c in EVENTS],
+    }
 
 
 def check_columns(columns: dict) -> None:
@@ -541,8 +631,10 @@ def check_columns(columns: dict) -> None:
                 raise _range_error(w, ours, f"one of our {kind} columns: " + ", ".join(known[kind]))
             ours = ours.strip().lower()
             if ours in targets:
-                raise ConfigError(f"config key [inputs.columns.{kind}]: {targets[ours]!r} and {theirs!r} both map to "
-                                  f"{ours!r}; expected each of our columns from one column of the file")
+                raise ConfigError(
+                    f"config key [inputs.columns.{kind}]: {targets[ours]!r} and {theirs!r} both map to "
+                    f"{ours!r}; expected each of our columns from one column of the file"
+                )
             targets[ours] = theirs
             mapping[theirs] = ours
 
@@ -550,6 +642,7 @@ def check_columns(columns: dict) -> None:
 def _check_heat_contents(a: dict) -> None:
     from . import refdata
     import polars as pl
+
     t = refdata.load("units").filter(pl.col("parameter").is_in(["gas_btu_per_ft3", "steam_btu_per_lb"]))
     for row in t.iter_rows(named=True):
         key = row["parameter"]
@@ -558,37 +651,44 @@ def _check_heat_contents(a: dict) -> None:
 
 
 def _check_dates(a: dict, today: _dt.date) -> None:
-    latest = today + _dt.timedelta(days=1)   # one day of slack for a server clock in another time zone
+    latest = today + _dt.timedelta(days=1)  # one day of slack for a server clock in another time zone
     for key in ("as_of", "window_from", "window_to"):
         if a[key]:
             d = parse_date_value(a[key], f"config key [analysis] {key}")
             if not (EARLIEST <= d <= latest):
-                raise _range_error(f"[analysis] {key}", a[key], f"a date from {EARLIEST} to {latest} "
-                                   "(no readings exist after today)")
+                raise _range_error(
+                    f"[analysis] {key}", a[key], f"a date from {EARLIEST} to {latest} (no readings exist after today)"
+                )
     if bool(a["window_from"]) != bool(a["window_to"]):
         raise ConfigError("config keys [analysis] window_from and window_to: give both or neither")
     if a["window_from"]:
         lo, hi = parse_date_value(a["window_from"], ""), parse_date_value(a["window_to"], "")
         days = (hi - lo).days + 1
         if not (WINDOW_DAYS[0] <= days <= WINDOW_DAYS[1]):
-            raise ConfigError(f"config keys [analysis] window_from/window_to (--from/--to): got {lo} to {hi} "
-                              f"({days} days); expected a window of {WINDOW_DAYS[0]} to {WINDOW_DAYS[1]} days "
-                              "(12 months to ten years) with window_to after window_from")
+            raise ConfigError(
+                f"config keys [analysis] window_from/window_to (--from/--to): got {lo} to {hi} "
+                f"({days} days); expected a window of {WINDOW_DAYS[0]} to {WINDOW_DAYS[1]} days "
+                "(12 months to ten years) with window_to after window_from"
+            )
 
 
 def run_window(cfg: dict, today: _dt.date | None = None) -> tuple[_dt.date, tuple[_dt.date, _dt.date]]:
     """The run's as-of day and analysis window (start, inclusive end) from checked settings."""
     from .window import analysis_window
+
     a = cfg["analysis"]
     as_of = parse_date_value(a["as_of"], "config key [analysis] as_of") if a["as_of"] else (today or _dt.date.today())
     if a["window_from"]:
-        return as_of, (parse_date_value(a["window_from"], "config key [analysis] window_from"),
-                       parse_date_value(a["window_to"], "config key [analysis] window_to"))
+        return as_of, (
+            parse_date_value(a["window_from"], "config key [analysis] window_from"),
+            parse_date_value(a["window_to"], "config key [analysis] window_to"),
+        )
     return as_of, analysis_window(as_of)
 
 
 def parse_date_value(value: str, where: str) -> _dt.date:
     from .parse import require_date
+
     return require_date(value, lambda v: ConfigError(f"{where}: got {v!r}; expected a date YYYY-MM-DD"))
 
 
@@ -611,14 +711,22 @@ def load(path: str | Path | None = None, overrides: dict | None = None) -> dict:
             raise ConfigError(f"{p}: not valid TOML ({exc})") from None
         cfg = merge(cfg, data, origin=str(p))
         base = p.resolve().parent
-        for section, key in (("inputs", "buildings"), ("inputs", "readings"), ("inputs", "weather"),
-                             ("store", "database"), ("output", "root")):
+        for section, key in (
+            ("inputs", "buildings"),
+            ("inputs", "readings"),
+            ("inputs", "weather"),
+            ("store", "database"),
+            ("output", "root"),
+        ):
             v = cfg[section][key]
             if v and not Path(v).is_absolute() and (section, key) in _file_keys(data):
                 cfg[section][key] = str(base / v)
     if overrides:
-        cfg = merge(cfg, {s: {k: v for k, v in kv.items() if v is not None} for s, kv in overrides.items()},
-                    origin="command line")
+        cfg = merge(
+            cfg,
+            {s: {k: v for k, v in kv.items() if v is not None} for s, kv in overrides.items()},
+            origin="command line",
+        )
     return validate(cfg)
 
 

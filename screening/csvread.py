@@ -39,7 +39,7 @@ from .errors import InputError
 
 LINE_COL = "_line"
 MAX_FIELD_CHARS = 10_000
-FAST_CHUNK_CHARS = 1 << 20   # lines per chunk of the quote-free path: about 1 Mi characters
+FAST_CHUNK_CHARS = 1 << 20  # lines per chunk of the quote-free path: about 1 Mi characters
 _LONG_REASON = f"a field is longer than {MAX_FIELD_CHARS:,} characters"
 
 
@@ -58,8 +58,9 @@ def _decode(raw: bytes, path: str, encoding: str | None) -> tuple[str, str, list
     notices: list[str] = []
     if b"\x00" in raw[:1_000_000]:
         line = raw[: raw.index(b"\x00")].count(b"\n") + 1
-        raise InputError(path, "file is not text (contains NUL bytes)", line=line,
-                         expected="a CSV text file (UTF-8 or Latin-1)")
+        raise InputError(
+            path, "file is not text (contains NUL bytes)", line=line, expected="a CSV text file (UTF-8 or Latin-1)"
+        )
     if encoding:
         try:
             return raw.decode(encoding), encoding, notices
@@ -70,12 +71,13 @@ def _decode(raw: bytes, path: str, encoding: str | None) -> tuple[str, str, list
         return text, "utf-8", notices
     except UnicodeDecodeError as exc:
         bad_line = raw[: exc.start].count(b"\n") + 1
-    body = raw[3:] if raw.startswith(b"\xef\xbb\xbf") else raw   # a BOM is not Latin-1 text
+    body = raw[3:] if raw.startswith(b"\xef\xbb\xbf") else raw  # a BOM is not Latin-1 text
     try:
         text = body.decode("cp1252")
     except UnicodeDecodeError:
-        raise InputError(path, "file is neither UTF-8 nor Latin-1/cp1252 text", line=bad_line,
-                         expected="a CSV text file") from None
+        raise InputError(
+            path, "file is neither UTF-8 nor Latin-1/cp1252 text", line=bad_line, expected="a CSV text file"
+        ) from None
     notices.append(f"{path}: not valid UTF-8 (first at line {bad_line}); read as Latin-1/cp1252")
     return text, "cp1252", notices
 
@@ -104,10 +106,16 @@ def unreadable(label: str, exc: OSError) -> InputError:
     return InputError(label, f"cannot read file ({exc.strerror or exc})")
 
 
-def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
-               optional: list[str] | tuple[str, ...] = (), label: str | None = None,
-               delimiter: str | None = None, encoding: str | None = None,
-               columns: dict[str, str] | None = None) -> CsvTable:
+def read_table(
+    path: str | Path,
+    *,
+    required: list[str] | tuple[str, ...],
+    optional: list[str] | tuple[str, ...] = (),
+    label: str | None = None,
+    delimiter: str | None = None,
+    encoding: str | None = None,
+    columns: dict[str, str] | None = None,
+) -> CsvTable:
     """Read ``path`` and return its known columns as text plus ``_line``.
 
     Parameters
@@ -132,6 +140,7 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
     label = str(label or path)
     if is_table_file(path):
         from .tables import read_table_file
+
         return read_table_file(path, required=required, optional=optional, label=label, columns=columns)
     p = Path(path)
     try:
@@ -139,8 +148,8 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
     except OSError as exc:
         raise unreadable(label, exc) from None
     text, enc, notices = _decode(raw, label, encoding)
-    del raw   # only the decoded text is kept from here on
-    if "\n" not in text and "\r" in text:   # old-style CR-only line ends
+    del raw  # only the decoded text is kept from here on
+    if "\n" not in text and "\r" in text:  # old-style CR-only line ends
         text = text.replace("\r", "\n")
     if not text.strip():
         raise InputError(label, "file is empty", line=1, expected="a header line and data rows")
@@ -168,10 +177,9 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
         df, rejects, repeated_headers = _fast_records(text, label, delim, header_norm, idx, wanted)
     else:
         n_lines = text.count("\n") + (0 if text.endswith("\n") else 1)
-        df, rejects, repeated_headers = _slow_records(reader, label, delim, header_norm, idx, wanted,
-                                                      n_fields, n_lines)
+        df, rejects, repeated_headers = _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields, n_lines)
         del reader
-    del text          # before joining the chunks: the peak stays about text + frame
+    del text  # before joining the chunks: the peak stays about text + frame
     df = df.rechunk()
     if repeated_headers:
         notices.append(f"{label}: skipped {repeated_headers} repeated header line(s)")
@@ -180,8 +188,15 @@ def read_table(path: str | Path, *, required: list[str] | tuple[str, ...],
     for c in list(required) + list(optional):
         if c not in df.columns:
             df = df.with_columns(pl.lit(None, dtype=pl.String).alias(c))
-    return CsvTable(path=label, df=df, header=[h.strip() for h in header], encoding=enc,
-                    delimiter=delim, notices=notices, rejects=rejects)
+    return CsvTable(
+        path=label,
+        df=df,
+        header=[h.strip() for h in header],
+        encoding=enc,
+        delimiter=delim,
+        notices=notices,
+        rejects=rejects,
+    )
 
 
 def split_sheet(path: str | Path) -> tuple[str, str | None]:
@@ -206,8 +221,16 @@ def is_table_file(path: str | Path) -> bool:
     return Path(split_sheet(path)[0]).suffix.lower() in WORKBOOK_SUFFIXES + PARQUET_SUFFIXES
 
 
-def header_plan(label: str, header: list[str], required, optional, columns: dict[str, str] | None,
-                notices: list[str], *, header_line: int = 1) -> tuple[dict[str, int], list[str]]:
+def header_plan(
+    label: str,
+    header: list[str],
+    required,
+    optional,
+    columns: dict[str, str] | None,
+    notices: list[str],
+    *,
+    header_line: int = 1,
+) -> tuple[dict[str, int], list[str]]:
     """Check a header (after the column mapping): ``(our name → field index, wanted names)``.
 
     Raises ``InputError`` for a name that appears twice (also after mapping) or a required
@@ -233,22 +256,38 @@ def header_plan(label: str, header: list[str], required, optional, columns: dict
             j = seen[h]
             if names[i] != header_norm[i] or names[j] != header_norm[j]:
                 a, b = _show(header[j].strip()), _show(header[i].strip())
-                raise InputError(label, f"columns {a!r} and {b!r} are both read as {h!r} (column mapping)",
-                                 line=header_line, column=header[i].strip(),
-                                 expected="each of our columns from one column of the file")
-            raise InputError(label, "column name appears twice", line=header_line, column=header[i].strip(),
-                             expected="each column once")
+                raise InputError(
+                    label,
+                    f"columns {a!r} and {b!r} are both read as {h!r} (column mapping)",
+                    line=header_line,
+                    column=header[i].strip(),
+                    expected="each of our columns from one column of the file",
+                )
+            raise InputError(
+                label,
+                "column name appears twice",
+                line=header_line,
+                column=header[i].strip(),
+                expected="each column once",
+            )
         seen[h] = i
     missing = [c for c in required if c not in seen]
     if missing:
-        raise InputError(label, "missing required column", line=header_line, column=missing[0],
-                         expected="columns " + ", ".join(required)
-                         + (f" (found: {', '.join(_show(h) for h in header_norm if h)[:200]})" if header_norm else ""))
+        raise InputError(
+            label,
+            "missing required column",
+            line=header_line,
+            column=missing[0],
+            expected="columns "
+            + ", ".join(required)
+            + (f" (found: {', '.join(_show(h) for h in header_norm if h)[:200]})" if header_norm else ""),
+        )
     wanted = [c for c in list(required) + list(optional) if c in seen]
     extra = [_show(header[i].strip()) for i, h in enumerate(names) if h and h not in wanted]
     if extra:
-        notices.append(f"{label}: ignored unknown column(s): {', '.join(extra[:20])}"
-                       + (" …" if len(extra) > 20 else ""))
+        notices.append(
+            f"{label}: ignored unknown column(s): {', '.join(extra[:20])}" + (" …" if len(extra) > 20 else "")
+        )
     return seen, wanted
 
 
@@ -256,6 +295,7 @@ def read_header(path: str | Path, *, delimiter: str | None = None, encoding: str
     """The column names of a file as written (for suggesting a column mapping); ``InputError`` if unreadable."""
     if is_table_file(path):
         from .tables import read_header_names
+
         return read_header_names(path)
     label = str(path)
     try:
@@ -322,32 +362,44 @@ def _fast_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
     lines = pl.Series("raw", chunk.split("\n"), dtype=pl.String).str.strip_suffix("\r")
     frame = pl.DataFrame({"raw": lines}).with_row_index(LINE_COL, offset=first_line)
     frame = frame.with_columns(pl.col(LINE_COL).cast(pl.Int64))
-    frame = frame.filter(pl.col("raw").str.contains(f"[^\\s{re.escape(delim)}]"))   # not blank
+    frame = frame.filter(pl.col("raw").str.contains(f"[^\\s{re.escape(delim)}]"))  # not blank
     parts = frame["raw"].str.split(delim)
     n_fields = len(header_norm)
     lens = parts.list.len()
     # a repeated header: the same names field by field (as the quoted path compares them);
     # the literal test only narrows the candidates checked exactly in Python (rare lines)
-    key = max((header_norm[k] for k in idx), key=len)   # a known column name, always present in the header
+    key = max((header_norm[k] for k in idx), key=len)  # a known column name, always present in the header
     cand = (lens == n_fields) & frame["raw"].str.contains("(?i)" + re.escape(key))
     is_header = cand
     if bool(cand.any()):
         exact = [[_norm(f) for f in raw.split(delim)] == header_norm for raw in frame["raw"].filter(cand)]
         is_header = cand.scatter(cand.arg_true(), exact) if exact else cand
     repeated = int(is_header.sum())
-    frame = frame.with_columns(parts.alias("parts"), lens.alias("n"), is_header.alias("hdr"),
-                               (frame["raw"].str.len_chars() > MAX_FIELD_CHARS).alias("long"))
+    frame = frame.with_columns(
+        parts.alias("parts"),
+        lens.alias("n"),
+        is_header.alias("hdr"),
+        (frame["raw"].str.len_chars() > MAX_FIELD_CHARS).alias("long"),
+    )
     bad = frame.filter((pl.col("n") != n_fields) & ~pl.col("hdr"))
-    rejects = [{"file": label, "line": int(r[LINE_COL]), "column": "", "value": r["raw"][:80],
-                "reason": f"expected {n_fields} fields, found {r['n']}"}
-               for r in bad.select(LINE_COL, "raw", "n").iter_rows(named=True)]
+    rejects = [
+        {
+            "file": label,
+            "line": int(r[LINE_COL]),
+            "column": "",
+            "value": r["raw"][:80],
+            "reason": f"expected {n_fields} fields, found {r['n']}",
+        }
+        for r in bad.select(LINE_COL, "raw", "n").iter_rows(named=True)
+    ]
     ok = (pl.col("n") == n_fields) & ~pl.col("hdr")
     if bool(frame["long"].any()):
         long_field = pl.col("parts").list.eval(pl.element().str.len_chars()).list.max() > MAX_FIELD_CHARS
         frame = frame.with_columns((pl.col("long") & long_field).alias("long"))
-        rejects += [{"file": label, "line": int(r[LINE_COL]), "column": "", "value": r["raw"][:80],
-                     "reason": _LONG_REASON}
-                    for r in frame.filter(ok & pl.col("long")).select(LINE_COL, "raw").iter_rows(named=True)]
+        rejects += [
+            {"file": label, "line": int(r[LINE_COL]), "column": "", "value": r["raw"][:80], "reason": _LONG_REASON}
+            for r in frame.filter(ok & pl.col("long")).select(LINE_COL, "raw").iter_rows(named=True)
+        ]
         ok = ok & ~pl.col("long")
     good = frame.filter(ok)
     exprs = []
@@ -376,10 +428,14 @@ def _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields, n_li
         except StopIteration:
             break
         except csv.Error as exc:
-            why = ("a carriage return inside an unquoted field; quote the field or remove it"
-                   if "new-line character" in str(exc) else str(exc))
-            rejects.append({"file": label, "line": start_line, "column": "", "value": "",
-                            "reason": f"unreadable record ({why})"})
+            why = (
+                "a carriage return inside an unquoted field; quote the field or remove it"
+                if "new-line character" in str(exc)
+                else str(exc)
+            )
+            rejects.append(
+                {"file": label, "line": start_line, "column": "", "value": "", "reason": f"unreadable record ({why})"}
+            )
             start_line = reader.line_num + 1
             continue
         this_line = start_line
@@ -391,21 +447,33 @@ def _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields, n_li
             continue
         if len(row) != n_fields:
             if reader.line_num > this_line and any("\n" in f for f in row) and reader.line_num >= n_lines:
-                raise InputError(label, "a quoted field is never closed", line=this_line,
-                                 expected='a closing " before the end of the file')
-            rejects.append({"file": label, "line": this_line, "column": "",
-                            "value": delim.join(row)[:80],
-                            "reason": f"expected {n_fields} fields, found {len(row)}"})
+                raise InputError(
+                    label,
+                    "a quoted field is never closed",
+                    line=this_line,
+                    expected='a closing " before the end of the file',
+                )
+            rejects.append(
+                {
+                    "file": label,
+                    "line": this_line,
+                    "column": "",
+                    "value": delim.join(row)[:80],
+                    "reason": f"expected {n_fields} fields, found {len(row)}",
+                }
+            )
             continue
         if any(len(f) > MAX_FIELD_CHARS for f in row):
-            rejects.append({"file": label, "line": this_line, "column": "", "value": delim.join(row)[:80],
-                            "reason": _LONG_REASON})
+            rejects.append(
+                {"file": label, "line": this_line, "column": "", "value": delim.join(row)[:80], "reason": _LONG_REASON}
+            )
             continue
         for j, k in enumerate(idx):
             v = row[k].strip()
             cols[j].append(v if v != "" else None)
         lines.append(this_line)
-    df = pl.DataFrame({name: pl.Series(name, col, dtype=pl.String) for name, col in zip(wanted, cols)}
-                      | {LINE_COL: pl.Series(LINE_COL, lines, dtype=pl.Int64)})
+    df = pl.DataFrame(
+        {name: pl.Series(name, col, dtype=pl.String) for name, col in zip(wanted, cols)}
+        | {LINE_COL: pl.Series(LINE_COL, lines, dtype=pl.Int64)}
+    )
     return df, rejects, repeated_headers
-

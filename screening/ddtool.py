@@ -17,8 +17,7 @@ import numpy as np
 import polars as pl
 
 from .csvread import LINE_COL, read_table
-from .degree_days import (METHODS, DegreeDayCube, c_to_f, degree_day_table, f_to_c, fill_short_gaps,
-                          normal_year)
+from .degree_days import METHODS, DegreeDayCube, c_to_f, degree_day_table, f_to_c, fill_short_gaps, normal_year
 from .errors import InputError
 from .parse import dates_in_format, require_date
 from .weather import read_daily_weather, read_hourly_weather
@@ -27,8 +26,7 @@ __all__ = ["degree_days_report", "KIND_CHOICES", "BY_CHOICES"]
 
 KIND_CHOICES = ("hdd", "cdd", "both")
 BY_CHOICES = ("day", "month", "year", "period")
-COLUMNS = ["station_id", "period_start", "period_end", "days", "days_missing", "hdd", "cdd", "method",
-           "base", "unit"]
+COLUMNS = ["station_id", "period_start", "period_end", "days", "days_missing", "hdd", "cdd", "method", "base", "unit"]
 
 
 def _parse_date(value, name: str) -> date | None:
@@ -45,18 +43,21 @@ def _read_periods(path: str | Path, station: str) -> pl.DataFrame:
         raise InputError(label, r["reason"], line=r["line"])
     df = t.df.with_columns(
         dates_in_format(t.df["period_start"], strip=False).alias("_s"),
-        dates_in_format(t.df["period_end"], strip=False).alias("_e"))
+        dates_in_format(t.df["period_end"], strip=False).alias("_e"),
+    )
     for raw, parsed in (("period_start", "_s"), ("period_end", "_e")):
         bad = df.filter(pl.col(parsed).is_null())
         if bad.height:
             r = bad.row(0, named=True)
-            raise InputError(label, "not a valid date", line=r[LINE_COL], column=raw, value=r[raw] or "",
-                             expected="YYYY-MM-DD")
+            raise InputError(
+                label, "not a valid date", line=r[LINE_COL], column=raw, value=r[raw] or "", expected="YYYY-MM-DD"
+            )
     bad = df.filter(pl.col("_e") < pl.col("_s"))
     if bad.height:
         r = bad.row(0, named=True)
-        raise InputError(label, "period_end before period_start", line=r[LINE_COL], column="period_end",
-                         value=r["period_end"])
+        raise InputError(
+            label, "period_end before period_start", line=r[LINE_COL], column="period_end", value=r["period_end"]
+        )
     if df["station_id"].is_not_null().any():
         df = df.filter(pl.col("station_id").is_null() | (pl.col("station_id").str.strip_chars() == station))
         if not df.height:
@@ -64,12 +65,25 @@ def _read_periods(path: str | Path, station: str) -> pl.DataFrame:
     return df.select(pl.col("_s").alias("period_start"), pl.col("_e").alias("period_end"))
 
 
-def degree_days_report(weather_path: str | Path | None, station: str, *, base: float = 65.0, kind: str = "hdd",
-                       method: str = "mean", by: str = "month", periods_path: str | Path | None = None,
-                       date_from=None, date_to=None, normal: bool = False, units: str = "IP",
-                       hourly_path: str | Path | None = None, hourly_timestamps: str = "start",
-                       rounding: bool = False, notices: list[str] | None = None,
-                       date_order: str | None = None) -> pl.DataFrame:
+def degree_days_report(
+    weather_path: str | Path | None,
+    station: str,
+    *,
+    base: float = 65.0,
+    kind: str = "hdd",
+    method: str = "mean",
+    by: str = "month",
+    periods_path: str | Path | None = None,
+    date_from=None,
+    date_to=None,
+    normal: bool = False,
+    units: str = "IP",
+    hourly_path: str | Path | None = None,
+    hourly_timestamps: str = "start",
+    rounding: bool = False,
+    notices: list[str] | None = None,
+    date_order: str | None = None,
+) -> pl.DataFrame:
     """Degree days of one station per day, month, year or listed period.
 
     Parameters
@@ -132,8 +146,7 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
     if not math.isfinite(base):
         raise ValueError(f"base must be finite; got {base!r}")
     if (by == "period") != (periods_path is not None):
-        raise ValueError("by='period' and a periods file go together; got "
-                         f"by={by!r}, periods_path={periods_path!r}")
+        raise ValueError(f"by='period' and a periods file go together; got by={by!r}, periods_path={periods_path!r}")
     if normal and by not in ("month", "year"):
         raise ValueError(f"normal-year values are given by month or year; got by={by!r}")
     if rounding and method != "mean":
@@ -171,8 +184,10 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
     frame = frame.filter(pl.col("station_id") == station)
     n_rej = rejects.height
     if n_rej:
-        note(f"{label}: {n_rej} row(s) rejected (first at line {int(rejects['line'].min())}); "
-             "their days count as missing")
+        note(
+            f"{label}: {n_rej} row(s) rejected (first at line {int(rejects['line'].min())}); "
+            "their days count as missing"
+        )
 
     if method == "hourly":
         cube = DegreeDayCube.from_hourly(frame, bases)
@@ -181,9 +196,11 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
         n_int = int(filled["interpolated"].sum())
         if n_int:
             note(f"{label}: station {station}: {n_int} day(s) in gaps of ≤ 3 days filled by linear interpolation")
-        for g in gaps.iter_rows(named=True):        # report lines, one per long gap
-            note(f"{label}: station {station}: no data {g['gap_start']} to {g['gap_end']} ({g['days']} days); "
-                 "counted as missing")
+        for g in gaps.iter_rows(named=True):  # report lines, one per long gap
+            note(
+                f"{label}: station {station}: no data {g['gap_start']} to {g['gap_end']} ({g['days']} days); "
+                "counted as missing"
+            )
         if method == "maxmin" and not (filled["t_min_f"].is_not_null() & filled["t_max_f"].is_not_null()).any():
             raise ValueError(f"method 'maxmin' needs t_min and t_max; station {station!r} has only t_mean")
         cube = DegreeDayCube.from_daily(filled, bases, method=method, rounding=rounding)
@@ -192,8 +209,17 @@ def degree_days_report(weather_path: str | Path | None, station: str, *, base: f
     if not normal:
         # (by == "period" exactly when a periods file is given: checked above)
         periods = _read_periods(periods_path, station) if periods_path is not None else None
-        table = degree_day_table(cube, station_ids=[station], by=by, date_from=d_from, date_to=d_to,
-                                 periods=periods, kind=kind, base_f=base_f, unit=unit)
+        table = degree_day_table(
+            cube,
+            station_ids=[station],
+            by=by,
+            date_from=d_from,
+            date_to=d_to,
+            periods=periods,
+            kind=kind,
+            base_f=base_f,
+            unit=unit,
+        )
     else:
         table = _normal_table(cube, station, by, d_from, d_to, kind, base_f, unit)
     return table.with_columns(pl.col("hdd", "cdd", "base").round(DECIMALS))
@@ -219,13 +245,24 @@ def base_unit_warning(base: float, units: str) -> str | None:
         return None
     if units == "IP":
         as_c = float(c_to_f(base))
-        hint = (f"it looks like a °C base ({base:g} °C = {as_c:.1f} °F): pass --base {as_c:.1f}, or --units SI "
-                "if the file is in °C") if float(PLAUSIBLE_BASE["SI"][0]) <= base <= PLAUSIBLE_BASE["SI"][1] else             "check the value"
-        return (f"warning: base {base:g} °F is outside {lo:g}-{hi:g} °F, where heating and cooling bases lie; "
-                f"{hint}")
+        hint = (
+            (
+                f"it looks like a °C base ({base:g} °C = {as_c:.1f} °F): pass --base {as_c:.1f}, or --units SI "
+                "if the file is in °C"
+            )
+            if float(PLAUSIBLE_BASE["SI"][0]) <= base <= PLAUSIBLE_BASE["SI"][1]
+            else "check the value"
+        )
+        return f"warning: base {base:g} °F is outside {lo:g}-{hi:g} °F, where heating and cooling bases lie; {hint}"
     as_f = float(f_to_c(base))
-    hint = (f"it looks like a °F base ({base:g} °F = {as_f:.1f} °C): pass --base {as_f:.1f}, or --units IP "
-            "if the file is in °F") if PLAUSIBLE_BASE["IP"][0] <= base <= PLAUSIBLE_BASE["IP"][1] else "check the value"
+    hint = (
+        (
+            f"it looks like a °F base ({base:g} °F = {as_f:.1f} °C): pass --base {as_f:.1f}, or --units IP "
+            "if the file is in °F"
+        )
+        if PLAUSIBLE_BASE["IP"][0] <= base <= PLAUSIBLE_BASE["IP"][1]
+        else "check the value"
+    )
     return f"warning: base {base:g} °C is outside {lo:g}-{hi:g} °C, where heating and cooling bases lie; {hint}"
 
 
@@ -239,8 +276,10 @@ def _normal_table(cube, station, by, d_from, d_to, kind, base_f, unit) -> pl.Dat
     ny = normal_year(cube, years=years)
     used = ny.years_used[station]
     if not used:
-        raise ValueError(f"no year with ≥ 95 % of its days for station {station!r}"
-                         + (f" in {years.start}–{years.stop - 1}" if years else ""))
+        raise ValueError(
+            f"no year with ≥ 95 % of its days for station {station!r}"
+            + (f" in {years.start}–{years.stop - 1}" if years else "")
+        )
     scale = 1.0 if unit == "F" else 1.0 / 1.8
     label = f"{used[0]}-{used[-1]} ({len(used)} years)"
     y0, y1 = used[0], used[-1]
@@ -251,19 +290,27 @@ def _normal_table(cube, station, by, d_from, d_to, kind, base_f, unit) -> pl.Dat
     else:
         month_len = [31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31]
         starts = [date(y0, m, 1) for m in range(1, 13)]
-        ends = [date(y1, m, month_len[m - 1] + (1 if m == 2 and y1 % 4 == 0 and (y1 % 100 or y1 % 400 == 0) else 0))
-                for m in range(1, 13)]
+        ends = [
+            date(y1, m, month_len[m - 1] + (1 if m == 2 and y1 % 4 == 0 and (y1 % 100 or y1 % 400 == 0) else 0))
+            for m in range(1, 13)
+        ]
         h, c = ny.monthly_hdd[0, :, 0], ny.monthly_cdd[0, :, 0]
         days, months = month_len, list(range(1, 13))
     n = len(starts)
     base_out = base_f if unit == "F" else float(f_to_c(base_f))
-    return pl.DataFrame({
-        "station_id": [station] * n, "period_start": pl.Series(starts, dtype=pl.Date),
-        "period_end": pl.Series(ends, dtype=pl.Date), "days": pl.Series(days, dtype=pl.Int64),
-        "days_missing": pl.Series([0] * n, dtype=pl.Int64),
-        "hdd": pl.Series(np.asarray(h) * scale if kind in ("hdd", "both") else [None] * n, dtype=pl.Float64),
-        "cdd": pl.Series(np.asarray(c) * scale if kind in ("cdd", "both") else [None] * n, dtype=pl.Float64),
-        "method": [cube.method] * n, "base": pl.Series([base_out] * n, dtype=pl.Float64),
-        "unit": ["°F·day" if unit == "F" else "°C·day"] * n,
-        "month": pl.Series(months, dtype=pl.Int8), "normal_years": [label] * n,
-    })
+    return pl.DataFrame(
+        {
+            "station_id": [station] * n,
+            "period_start": pl.Series(starts, dtype=pl.Date),
+            "period_end": pl.Series(ends, dtype=pl.Date),
+            "days": pl.Series(days, dtype=pl.Int64),
+            "days_missing": pl.Series([0] * n, dtype=pl.Int64),
+            "hdd": pl.Series(np.asarray(h) * scale if kind in ("hdd", "both") else [None] * n, dtype=pl.Float64),
+            "cdd": pl.Series(np.asarray(c) * scale if kind in ("cdd", "both") else [None] * n, dtype=pl.Float64),
+            "method": [cube.method] * n,
+            "base": pl.Series([base_out] * n, dtype=pl.Float64),
+            "unit": ["°F·day" if unit == "F" else "°C·day"] * n,
+            "month": pl.Series(months, dtype=pl.Int8),
+            "normal_years": [label] * n,
+        }
+    )

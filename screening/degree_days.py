@@ -56,9 +56,25 @@ import numpy as np
 import polars as pl
 
 __all__ = [
-    "METHODS", "KINDS", "F_PER_C", "daily_mean_dd", "maxmin_dd", "hourly_dd", "erbs_monthly_hdd",
-    "erbs_monthly_cdd", "nws_round_mean", "DegreeDayCube", "DailyDegreeDays", "NormalYear",
-    "normal_year", "fill_short_gaps", "gaps_in_windows", "degree_day_table", "f_to_c", "c_to_f", "WEATHER_COLUMNS",
+    "METHODS",
+    "KINDS",
+    "F_PER_C",
+    "daily_mean_dd",
+    "maxmin_dd",
+    "hourly_dd",
+    "erbs_monthly_hdd",
+    "erbs_monthly_cdd",
+    "nws_round_mean",
+    "DegreeDayCube",
+    "DailyDegreeDays",
+    "NormalYear",
+    "normal_year",
+    "fill_short_gaps",
+    "gaps_in_windows",
+    "degree_day_table",
+    "f_to_c",
+    "c_to_f",
+    "WEATHER_COLUMNS",
 ]
 
 METHODS = ("mean", "maxmin", "hourly", "monthly-estimate")
@@ -229,8 +245,10 @@ def maxmin_dd(t_max, t_min, base):
         if np.any(mn > mx):
             bad = np.broadcast_to(mn > mx, np.broadcast_shapes(mn.shape, mx.shape))
             first = tuple(int(i[0]) for i in np.nonzero(bad)) if bad.ndim else ()
-            raise ValueError(f"t_min must not exceed t_max; got t_min={np.broadcast_to(mn, bad.shape)[first]} "
-                             f"> t_max={np.broadcast_to(mx, bad.shape)[first]}")
+            raise ValueError(
+                f"t_min must not exceed t_max; got t_min={np.broadcast_to(mn, bad.shape)[first]} "
+                f"> t_max={np.broadcast_to(mx, bad.shape)[first]}"
+            )
     hdd = _maxmin_hdd_cases(mx, mn, b)
     tm = (mx + mn) / 2.0
     cdd = np.maximum(hdd - (b - tm), 0.0)
@@ -255,12 +273,11 @@ def _maxmin_hdd(mx, mn, b):
 def _maxmin_hdd_cases(mx, mn, b):
     """Met Office HDD by the four published cases (reference form of :func:`_maxmin_hdd`)."""
     tm = (mx + mn) / 2.0
-    case2 = b - tm                                  # Tmax ≤ Tb
-    case3 = (b - mn) / 4.0                          # crossing, Tm ≥ Tb
-    case4 = (b - mn) / 2.0 - (mx - b) / 4.0         # crossing, Tm < Tb
+    case2 = b - tm  # Tmax ≤ Tb
+    case3 = (b - mn) / 4.0  # crossing, Tm ≥ Tb
+    case4 = (b - mn) / 2.0 - (mx - b) / 4.0  # crossing, Tm < Tb
     with np.errstate(invalid="ignore"):
-        out = np.where(mn >= b, 0.0,
-                       np.where(mx <= b, case2, np.where(tm >= b, case3, case4)))
+        out = np.where(mn >= b, 0.0, np.where(mx <= b, case2, np.where(tm >= b, case3, case4)))
         out = np.where(np.isnan(tm) | np.isnan(b), np.nan, out)
     return out
 
@@ -310,12 +327,17 @@ def hourly_dd(t_hourly, base):
 
 
 def _erbs_sigma_m(t_mean_month_c, sigma_yr_c):
-    s = _ERBS_S0 + _ERBS_S_TM * np.asarray(t_mean_month_c, dtype=np.float64) \
+    s = (
+        _ERBS_S0
+        + _ERBS_S_TM * np.asarray(t_mean_month_c, dtype=np.float64)
         + _ERBS_S_SY * np.asarray(sigma_yr_c, dtype=np.float64)
+    )
     with np.errstate(invalid="ignore"):
         if np.any(s <= 0):
-            raise ValueError("Erbs correlation gives a non-positive monthly standard deviation "
-                             f"(min sigma_m={np.nanmin(s):.3f} °C); t_mean_month_c or sigma_yr_c out of range")
+            raise ValueError(
+                "Erbs correlation gives a non-positive monthly standard deviation "
+                f"(min sigma_m={np.nanmin(s):.3f} °C); t_mean_month_c or sigma_yr_c out of range"
+            )
     return s
 
 
@@ -368,7 +390,7 @@ def erbs_monthly_hdd(t_mean_month_c, n_days, base_c, sigma_yr_c):
     s = _erbs_sigma_m(tm, sigma_yr_c)
     h = (b - tm) / (s * np.sqrt(n))
     ah = _ERBS_A * np.abs(h)
-    out = s * n ** 1.5 * (h / 2.0 + (ah + np.log1p(np.exp(-2.0 * ah))) / (2.0 * _ERBS_A))
+    out = s * n**1.5 * (h / 2.0 + (ah + np.log1p(np.exp(-2.0 * ah))) / (2.0 * _ERBS_A))
     return out if np.ndim(out) else float(out)
 
 
@@ -378,9 +400,12 @@ def erbs_monthly_cdd(t_mean_month_c, n_days, base_c, sigma_yr_c):
     Parameters and reference as :func:`erbs_monthly_hdd`. [°C·day]
     """
     hdd = erbs_monthly_hdd(t_mean_month_c, n_days, base_c, sigma_yr_c)
-    out = np.maximum(hdd - np.asarray(n_days, dtype=np.float64)
-                     * (np.asarray(base_c, dtype=np.float64) - np.asarray(t_mean_month_c, dtype=np.float64)),
-                     0.0)
+    out = np.maximum(
+        hdd
+        - np.asarray(n_days, dtype=np.float64)
+        * (np.asarray(base_c, dtype=np.float64) - np.asarray(t_mean_month_c, dtype=np.float64)),
+        0.0,
+    )
     return out if np.ndim(out) else float(out)
 
 
@@ -464,21 +489,22 @@ class DegreeDayCube:
     stations: list[str]
     method: str
     rounding: bool
-    first_day: np.ndarray          # (n_stations,) int64 days since epoch of each station's first day
-    n_days: np.ndarray             # (n_stations,) int64 length of each station's record
-    offset: np.ndarray             # (n_stations,) int64 first flat day of each station
-    valid: np.ndarray              # (n_flat,) bool: day has data
-    tm: np.ndarray                 # (n_flat,) daily mean temperature of the method [°F], NaN if missing
-    cum_hdd: np.ndarray            # (n_bases, n_flat + 1) float64 running sum of daily HDD, one row per base
-    cum_tm: np.ndarray             # (n_flat + 1,) running sum of tm over valid days
-    cum_valid: np.ndarray          # (n_flat + 1,) running count of valid days
-    extra: dict = field(default_factory=dict)   # method-specific per-day data (tmax/tmin, hourly, monthly)
+    first_day: np.ndarray  # (n_stations,) int64 days since epoch of each station's first day
+    n_days: np.ndarray  # (n_stations,) int64 length of each station's record
+    offset: np.ndarray  # (n_stations,) int64 first flat day of each station
+    valid: np.ndarray  # (n_flat,) bool: day has data
+    tm: np.ndarray  # (n_flat,) daily mean temperature of the method [°F], NaN if missing
+    cum_hdd: np.ndarray  # (n_bases, n_flat + 1) float64 running sum of daily HDD, one row per base
+    cum_tm: np.ndarray  # (n_flat + 1,) running sum of tm over valid days
+    cum_valid: np.ndarray  # (n_flat + 1,) running count of valid days
+    extra: dict = field(default_factory=dict)  # method-specific per-day data (tmax/tmin, hourly, monthly)
 
     # ------------------------------------------------------------------ construction
 
     @classmethod
-    def from_daily(cls, weather: pl.DataFrame, bases_f, method: str = "mean",
-                   rounding: bool = False) -> "DegreeDayCube":
+    def from_daily(
+        cls, weather: pl.DataFrame, bases_f, method: str = "mean", rounding: bool = False
+    ) -> "DegreeDayCube":
         """Build the cube from daily station data.
 
         Parameters
@@ -558,24 +584,29 @@ class DegreeDayCube:
         need = {"station_id", "timestamp", "t_f"}
         if not need <= set(hourly.columns):
             raise ValueError(f"hourly frame needs columns {sorted(need)}; got {hourly.columns}")
-        h = (hourly.select(pl.col("station_id").cast(pl.String), pl.col("timestamp"),
-                           pl.col("t_f").cast(pl.Float64))
-             .filter(pl.col("t_f").is_not_null() & pl.col("t_f").is_not_nan())
-             .with_columns(pl.col("timestamp").dt.date().alias("date")))
+        h = (
+            hourly.select(pl.col("station_id").cast(pl.String), pl.col("timestamp"), pl.col("t_f").cast(pl.Float64))
+            .filter(pl.col("t_f").is_not_null() & pl.col("t_f").is_not_nan())
+            .with_columns(pl.col("timestamp").dt.date().alias("date"))
+        )
         dup = h.filter(pl.struct("station_id", "timestamp").is_duplicated())
         if dup.height:
             r = dup.row(0, named=True)
             raise ValueError(f"duplicate reading for station {r['station_id']!r} at {r['timestamp']}")
         h = h.sort("station_id", "timestamp").with_columns(
-            pl.col("timestamp").rank("ordinal").over("station_id", "date").cast(pl.Int64).alias("k"))
+            pl.col("timestamp").rank("ordinal").over("station_id", "date").cast(pl.Int64).alias("k")
+        )
         days = h.group_by("station_id", "date").agg(pl.len().alias("n")).sort("station_id", "date")
         days = days.with_columns(pl.lit(None, dtype=pl.Float64).alias(c) for c in ("t_min_f", "t_max_f", "t_mean_f"))
         layout = _layout(days)
         n_flat = int(layout["n_flat"])
         width = cast(int, h["k"].max()) if h.height else 24
         width = max(width, 24)
-        pos = h.join(days.with_columns(pl.Series("flat", layout["flat_index"])).select("station_id", "date", "flat"),
-                     on=["station_id", "date"], how="left")
+        pos = h.join(
+            days.with_columns(pl.Series("flat", layout["flat_index"])).select("station_id", "date", "flat"),
+            on=["station_id", "date"],
+            how="left",
+        )
         readings = np.full((n_flat, width), np.nan)
         readings[pos["flat"].to_numpy(), pos["k"].to_numpy() - 1] = pos["t_f"].to_numpy()
         count = np.sum(~np.isnan(readings), axis=1)
@@ -601,13 +632,24 @@ class DegreeDayCube:
             long-term calendar-month means (all 12 months must be present).
         """
         bases = _as_bases(bases_f)
-        m = monthly.select(pl.col("station_id").cast(pl.String), pl.col("year").cast(pl.Int32),
-                           pl.col("month").cast(pl.Int8), pl.col("t_mean_f").cast(pl.Float64))
-        days = (m.with_columns(pl.date(pl.col("year"), pl.col("month"), 1).alias("d0"))
-                .with_columns(pl.date_ranges("d0", pl.col("d0").dt.month_end()).alias("date"))
-                .explode("date")
-                .select("station_id", "date", pl.lit(None, dtype=pl.Float64).alias("t_min_f"),
-                        pl.lit(None, dtype=pl.Float64).alias("t_max_f"), pl.col("t_mean_f")))
+        m = monthly.select(
+            pl.col("station_id").cast(pl.String),
+            pl.col("year").cast(pl.Int32),
+            pl.col("month").cast(pl.Int8),
+            pl.col("t_mean_f").cast(pl.Float64),
+        )
+        days = (
+            m.with_columns(pl.date(pl.col("year"), pl.col("month"), 1).alias("d0"))
+            .with_columns(pl.date_ranges("d0", pl.col("d0").dt.month_end()).alias("date"))
+            .explode("date")
+            .select(
+                "station_id",
+                "date",
+                pl.lit(None, dtype=pl.Float64).alias("t_min_f"),
+                pl.lit(None, dtype=pl.Float64).alias("t_max_f"),
+                pl.col("t_mean_f"),
+            )
+        )
         w = _prepare_daily(days)
         layout = _layout(w)
         tm_day = np.full(int(layout["n_flat"]), np.nan)
@@ -618,17 +660,28 @@ class DegreeDayCube:
     @classmethod
     def _finish(cls, bases, layout, method, rounding, tm, extra) -> "DegreeDayCube":
         valid = ~np.isnan(tm)
-        self = cls(bases_f=bases, stations=layout["stations"], method=method, rounding=rounding,
-                   first_day=layout["first_day"], n_days=layout["n_days"], offset=layout["offset"],
-                   valid=valid, tm=tm, cum_hdd=np.empty((0, 0)), cum_tm=np.empty(0),
-                   cum_valid=np.empty(0, dtype=np.int64), extra=extra)
+        self = cls(
+            bases_f=bases,
+            stations=layout["stations"],
+            method=method,
+            rounding=rounding,
+            first_day=layout["first_day"],
+            n_days=layout["n_days"],
+            offset=layout["offset"],
+            valid=valid,
+            tm=tm,
+            cum_hdd=np.empty((0, 0)),
+            cum_tm=np.empty(0),
+            cum_valid=np.empty(0, dtype=np.int64),
+            extra=extra,
+        )
         n_flat = tm.size
         # one contiguous row per base: compute the daily values and accumulate them in place
         # (a loop over the ≤ ~100 bases, each step vectorized over all stations × days)
         cum = _alloc_f64((bases.size, n_flat + 1))
         cum[:, 0] = 0.0
         if self.method == "mean":
-            t_inf = np.where(valid, tm, np.inf)         # a missing day contributes max(0, b − ∞) = 0
+            t_inf = np.where(valid, tm, np.inf)  # a missing day contributes max(0, b − ∞) = 0
             for j, b in enumerate(bases):
                 row = cum[j, 1:]
                 np.subtract(b, t_inf, out=row)
@@ -656,9 +709,9 @@ class DegreeDayCube:
             width = extra["hourly"].shape[1] if "hourly" in extra else 1
             chunk = max(1, 4_000_000 // width)
             for j, b in enumerate(bases):
-                for a in range(0, n_flat, chunk):        # chunks only bound memory (hourly)
+                for a in range(0, n_flat, chunk):  # chunks only bound memory (hourly)
                     idx = np.arange(a, min(a + chunk, n_flat))
-                    cum[j, 1 + a: 1 + a + idx.size] = self._hdd_days(idx, b)
+                    cum[j, 1 + a : 1 + a + idx.size] = self._hdd_days(idx, b)
                 np.cumsum(cum[j], out=cum[j])
         self.cum_hdd = cum
         self.cum_tm = np.concatenate([[0.0], np.cumsum(np.where(valid, tm, 0.0))])
@@ -681,13 +734,16 @@ class DegreeDayCube:
         elif m == "maxmin":
             out = _maxmin_hdd(self.extra["tmax"][ix], self.extra["tmin"][ix], base)
         elif m == "hourly":
-            r = self.extra["hourly"][idx]             # (..., width); all-NaN rows are missing days
+            r = self.extra["hourly"][idx]  # (..., width); all-NaN rows are missing days
             with warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)     # "Mean of empty slice" on missing days
-                if grid:                                            # base (1, nb), r (n, w) → (n, nb)
-                    out = np.nanmean(np.maximum(base[:, :, None] - r[:, None, :], 0.0), axis=-1) \
-                        if r.shape[0] else np.zeros((0, base.shape[1]))
-                else:                                               # base like idx, r (..., w)
+                warnings.simplefilter("ignore", RuntimeWarning)  # "Mean of empty slice" on missing days
+                if grid:  # base (1, nb), r (n, w) → (n, nb)
+                    out = (
+                        np.nanmean(np.maximum(base[:, :, None] - r[:, None, :], 0.0), axis=-1)
+                        if r.shape[0]
+                        else np.zeros((0, base.shape[1]))
+                    )
+                else:  # base like idx, r (..., w)
                     out = np.nanmean(np.maximum(base[..., None] - r, 0.0), axis=-1)
         else:  # monthly-estimate: the month's Erbs estimate spread evenly over its days
             ex = self.extra
@@ -696,8 +752,13 @@ class DegreeDayCube:
             s = ex["sigma_yr_c"][ix]
             safe = ~np.isnan(tmc)
             with np.errstate(invalid="ignore"):
-                out = erbs_monthly_hdd(np.where(safe, tmc, 0.0), np.where(safe, n, 1.0),
-                                       f_to_c(base), np.where(safe, s, 0.0)) * F_PER_C / np.where(safe, n, 1.0)
+                out = (
+                    erbs_monthly_hdd(
+                        np.where(safe, tmc, 0.0), np.where(safe, n, 1.0), f_to_c(base), np.where(safe, s, 0.0)
+                    )
+                    * F_PER_C
+                    / np.where(safe, n, 1.0)
+                )
         out = np.where(self.valid[ix], out, 0.0)
         return np.asarray(out, dtype=np.float64)
 
@@ -719,20 +780,24 @@ class DegreeDayCube:
         s0 = np.broadcast_to(s0, (n,)) if s0.size == 1 else s0
         e0 = np.broadcast_to(e0, (n,)) if e0.size == 1 else e0
         if not (ids.len() == s0.size == e0.size):
-            raise ValueError(f"station_ids, starts and ends must have one length; got "
-                             f"{ids.len()}, {s0.size}, {e0.size}")
+            raise ValueError(
+                f"station_ids, starts and ends must have one length; got {ids.len()}, {s0.size}, {e0.size}"
+            )
         if np.any(e0 < s0):
             k = int(np.argmax(e0 < s0))
-            raise ValueError(f"period end before start at row {k}: "
-                             f"{_to_dates(s0[k:k+1])[0]} to {_to_dates(e0[k:k+1])[0]}")
+            raise ValueError(
+                f"period end before start at row {k}: {_to_dates(s0[k : k + 1])[0]} to {_to_dates(e0[k : k + 1])[0]}"
+            )
         mapping = {st_id: i for i, st_id in enumerate(self.stations)}
         sidx_s = ids.replace_strict(mapping, default=-1, return_dtype=pl.Int64)
         sidx = sidx_s.fill_null(-1).to_numpy()
         if np.any(sidx < 0):
             unknown = sorted({str(x) for x in ids.filter(pl.Series(sidx < 0)).to_list()})
-            raise ValueError(f"unknown station_id {unknown[0]!r}"
-                             + (f" (and {len(unknown) - 1} more)" if len(unknown) > 1 else "")
-                             + f"; the weather data has {', '.join(self.stations[:10])}")
+            raise ValueError(
+                f"unknown station_id {unknown[0]!r}"
+                + (f" (and {len(unknown) - 1} more)" if len(unknown) > 1 else "")
+                + f"; the weather data has {', '.join(self.stations[:10])}"
+            )
         # clipped half-open flat ranges [a, b)
         first = self.first_day[sidx]
         nd = self.n_days[sidx]
@@ -767,8 +832,8 @@ class DegreeDayCube:
         _, s0, e0, fa, fb = self._rows(station_ids, starts, ends)
         valid = self.cum_valid[fb] - self.cum_valid[fa]
         sum_tm = self.cum_tm[fb] - self.cum_tm[fa] if kind == "cdd" else None
-        out = _alloc_f64((self.bases_f.size, fa.size))      # one row per base, filled row by row
-        for j, b in enumerate(self.bases_f):                 # loop over bases only; rows vectorized
+        out = _alloc_f64((self.bases_f.size, fa.size))  # one row per base, filled row by row
+        for j, b in enumerate(self.bases_f):  # loop over bases only; rows vectorized
             row = out[j]
             c = self.cum_hdd[j]
             np.subtract(c[fb], c[fa], out=row)
@@ -811,13 +876,13 @@ class DegreeDayCube:
         budget = max(1, 4_000_000 // width)
         # bucket rows by span length (powers of two: ≤ 2× padding), then blocks of ≤ budget cells
         bucket = np.ceil(np.log2(np.maximum(length, 1))).astype(np.int64)
-        for k in np.unique(bucket[length > 0]):       # ≤ ~15 buckets; blocks only bound memory
+        for k in np.unique(bucket[length > 0]):  # ≤ ~15 buckets; blocks only bound memory
             rows = np.nonzero((bucket == k) & (length > 0))[0]
             lmax = int(length[rows].max())
             step = max(1, budget // lmax)
             ks = np.arange(lmax)
             for i in range(0, rows.size, step):
-                blk = rows[i:i + step]
+                blk = rows[i : i + step]
                 inside = ks[None, :] < length[blk, None]
                 idx = np.where(inside, fa[blk, None] + ks[None, :], 0)
                 d = self._hdd_days(idx, np.broadcast_to(base[blk, None], idx.shape))
@@ -857,13 +922,14 @@ class DegreeDayCube:
         if kind == "cdd":
             hdd = np.maximum(hdd - (self.bases_f[None, :] - np.where(present, self.tm[flat], 0.0)[:, None]), 0.0)
         dd = np.where(present[:, None], hdd, 0.0)
-        return DailyDegreeDays(row=row, date=day.astype("datetime64[D]"), dd=dd, missing=~present,
-                               bases_f=self.bases_f)
+        return DailyDegreeDays(row=row, date=day.astype("datetime64[D]"), dd=dd, missing=~present, bases_f=self.bases_f)
 
     def __repr__(self) -> str:
-        return (f"DegreeDayCube(method={self.method!r}, stations={len(self.stations)}, "
-                f"days={int(self.n_days.sum())}, bases={self.bases_f.size} "
-                f"[{self.bases_f[0]:g}..{self.bases_f[-1]:g}], rounding={self.rounding})")
+        return (
+            f"DegreeDayCube(method={self.method!r}, stations={len(self.stations)}, "
+            f"days={int(self.n_days.sum())}, bases={self.bases_f.size} "
+            f"[{self.bases_f[0]:g}..{self.bases_f[-1]:g}], rounding={self.rounding})"
+        )
 
     @property
     def estimated(self) -> bool:
@@ -873,13 +939,15 @@ class DegreeDayCube:
     def record(self) -> pl.DataFrame:
         """Each station's record: station_id, first_date, last_date, days, days_with_data."""
         end = self.offset + self.n_days
-        return pl.DataFrame({
-            "station_id": self.stations,
-            "first_date": _to_dates(self.first_day),
-            "last_date": _to_dates(self.first_day + self.n_days - 1),
-            "days": self.n_days,
-            "days_with_data": self.cum_valid[end] - self.cum_valid[self.offset],
-        })
+        return pl.DataFrame(
+            {
+                "station_id": self.stations,
+                "first_date": _to_dates(self.first_day),
+                "last_date": _to_dates(self.first_day + self.n_days - 1),
+                "days": self.n_days,
+                "days_with_data": self.cum_valid[end] - self.cum_valid[self.offset],
+            }
+        )
 
 
 def _alloc_f64(shape: tuple[int, int]) -> np.ndarray:
@@ -902,41 +970,57 @@ def _alloc_f64(shape: tuple[int, int]) -> np.ndarray:
 def _prepare_daily(weather: pl.DataFrame) -> pl.DataFrame:
     missing = [c for c in WEATHER_COLUMNS if c not in weather.columns]
     if missing:
-        raise ValueError(f"weather frame is missing column(s) {', '.join(missing)}; "
-                         f"needs {', '.join(WEATHER_COLUMNS)}")
+        raise ValueError(f"weather frame is missing column(s) {', '.join(missing)}; needs {', '.join(WEATHER_COLUMNS)}")
     if weather.schema["date"] != pl.Date:
         raise ValueError(f"weather column 'date' must be pl.Date; got {weather.schema['date']}")
-    w = weather.select(pl.col("station_id").cast(pl.String), pl.col("date"),
-                       *[pl.col(c).cast(pl.Float64).fill_nan(None) for c in ("t_min_f", "t_max_f", "t_mean_f")])
+    w = weather.select(
+        pl.col("station_id").cast(pl.String),
+        pl.col("date"),
+        *[pl.col(c).cast(pl.Float64).fill_nan(None) for c in ("t_min_f", "t_max_f", "t_mean_f")],
+    )
     w = w.filter(pl.col("station_id").is_not_null() & pl.col("date").is_not_null()).sort("station_id", "date")
-    dup = w.filter((pl.col("station_id") == pl.col("station_id").shift(1))
-                   & (pl.col("date") == pl.col("date").shift(1)))
+    dup = w.filter(
+        (pl.col("station_id") == pl.col("station_id").shift(1)) & (pl.col("date") == pl.col("date").shift(1))
+    )
     if dup.height:
         r = dup.row(0, named=True)
         raise ValueError(f"weather has more than one row for station {r['station_id']!r} on {r['date']}")
     bad = w.filter(pl.col("t_min_f") > pl.col("t_max_f"))
     if bad.height:
         r = bad.row(0, named=True)
-        raise ValueError(f"t_min_f > t_max_f for station {r['station_id']!r} on {r['date']}: "
-                         f"{r['t_min_f']} > {r['t_max_f']}")
+        raise ValueError(
+            f"t_min_f > t_max_f for station {r['station_id']!r} on {r['date']}: {r['t_min_f']} > {r['t_max_f']}"
+        )
     return w
 
 
 def _layout(w: pl.DataFrame) -> dict:
     """Flat-day layout of stations sorted by id; ``w`` sorted by station_id, date."""
-    rec = (w.group_by("station_id").agg(pl.col("date").min().alias("d0"), pl.col("date").max().alias("d1"))
-           .sort("station_id"))
+    rec = (
+        w.group_by("station_id")
+        .agg(pl.col("date").min().alias("d0"), pl.col("date").max().alias("d1"))
+        .sort("station_id")
+    )
     first = rec["d0"].cast(pl.Int32).to_numpy().astype(np.int64)
     n_days = rec["d1"].cast(pl.Int32).to_numpy().astype(np.int64) - first + 1
     offset = np.concatenate([[0], np.cumsum(n_days)[:-1]]).astype(np.int64)
     stations = rec["station_id"].to_list()
     # w is sorted by station_id (same order as ``stations``): station index by run boundaries
-    s_idx = (w.select((pl.col("station_id") != pl.col("station_id").shift(1)).fill_null(True)
-                      .cum_sum().cast(pl.Int64) - 1).to_series().to_numpy())
+    s_idx = (
+        w.select((pl.col("station_id") != pl.col("station_id").shift(1)).fill_null(True).cum_sum().cast(pl.Int64) - 1)
+        .to_series()
+        .to_numpy()
+    )
     day = w["date"].cast(pl.Int32).to_numpy().astype(np.int64)
     flat = offset[s_idx] + (day - first[s_idx]) if s_idx.size else np.zeros(0, dtype=np.int64)
-    return {"stations": stations, "first_day": first, "n_days": n_days, "offset": offset,
-            "n_flat": int(n_days.sum()), "flat_index": flat}
+    return {
+        "stations": stations,
+        "first_day": first,
+        "n_days": n_days,
+        "offset": offset,
+        "n_flat": int(n_days.sum()),
+        "flat_index": flat,
+    }
 
 
 def _flat_dates(layout: dict) -> tuple[np.ndarray, np.ndarray]:
@@ -946,8 +1030,7 @@ def _flat_dates(layout: dict) -> tuple[np.ndarray, np.ndarray]:
     return st, day
 
 
-def _monthly_from_daily(tm_day: np.ndarray, layout: dict, *, sigma_yr_c=None,
-                        min_days_missing: int | None = None):
+def _monthly_from_daily(tm_day: np.ndarray, layout: dict, *, sigma_yr_c=None, min_days_missing: int | None = None):
     """Monthly means of daily means per station; returns (per-day month mean, extra)."""
     max_missing = _MAX_MISSING_DAYS_PER_MONTH if min_days_missing is None else min_days_missing
     st, day = _flat_dates(layout)
@@ -955,16 +1038,22 @@ def _monthly_from_daily(tm_day: np.ndarray, layout: dict, *, sigma_yr_c=None,
     ym = d.astype("datetime64[M]")
     month_days = ((ym + 1).astype("datetime64[D]") - ym.astype("datetime64[D]")).astype(np.int64)
     f = pl.DataFrame({"st": st, "ym": ym.astype(np.int64), "t": tm_day, "nd": month_days})
-    g = (f.group_by("st", "ym").agg(pl.col("t").drop_nans().mean().alias("tbar"),
-                                      pl.col("t").is_not_nan().sum().alias("n_ok"),
-                                      pl.col("nd").first().alias("nd")))
-    g = g.with_columns(pl.when(pl.col("nd") - pl.col("n_ok") <= max_missing)
-                       .then(pl.col("tbar")).otherwise(None).alias("tbar"))
+    g = f.group_by("st", "ym").agg(
+        pl.col("t").drop_nans().mean().alias("tbar"),
+        pl.col("t").is_not_nan().sum().alias("n_ok"),
+        pl.col("nd").first().alias("nd"),
+    )
+    g = g.with_columns(
+        pl.when(pl.col("nd") - pl.col("n_ok") <= max_missing).then(pl.col("tbar")).otherwise(None).alias("tbar")
+    )
     # σ_yr: SD (divisor 12) of the 12 long-term calendar-month means, in °C
-    clim = (g.with_columns((pl.col("ym") % 12).alias("m"))
-            .group_by("st", "m").agg(pl.col("tbar").mean().alias("tc"))
-            .group_by("st").agg(pl.col("tc").drop_nulls().std(ddof=0).alias("sd_f"),
-                                pl.col("tc").drop_nulls().len().alias("n_months")))
+    clim = (
+        g.with_columns((pl.col("ym") % 12).alias("m"))
+        .group_by("st", "m")
+        .agg(pl.col("tbar").mean().alias("tc"))
+        .group_by("st")
+        .agg(pl.col("tc").drop_nulls().std(ddof=0).alias("sd_f"), pl.col("tc").drop_nulls().len().alias("n_months"))
+    )
     n_st = len(layout["stations"])
     sig = np.full(n_st, np.nan)
     if sigma_yr_c is None:
@@ -975,13 +1064,15 @@ def _monthly_from_daily(tm_day: np.ndarray, layout: dict, *, sigma_yr_c=None,
             sig[i] = float(sigma_yr_c.get(s, np.nan))
     else:
         sig[:] = float(sigma_yr_c)
-    joined = f.select("st", "ym").join(g.select("st", "ym", "tbar"), on=["st", "ym"], how="left",
-                                       maintain_order="left")
+    joined = f.select("st", "ym").join(g.select("st", "ym", "tbar"), on=["st", "ym"], how="left", maintain_order="left")
     tbar = joined["tbar"].fill_null(np.nan).to_numpy()
     s_day = sig[st]
     tm = np.where(np.isnan(s_day), np.nan, tbar)
-    return tm, {"month_days": month_days.astype(np.float64), "sigma_yr_c": s_day,
-                "sigma_yr_c_station": dict(zip(layout["stations"], sig.tolist()))}
+    return tm, {
+        "month_days": month_days.astype(np.float64),
+        "sigma_yr_c": s_day,
+        "sigma_yr_c_station": dict(zip(layout["stations"], sig.tolist())),
+    }
 
 
 # ----------------------------------------------------------------------------- normals
@@ -1010,8 +1101,11 @@ class NormalYear:
         _check_kind(kind)
         table = self.hdd if kind == "hdd" else self.cdd
         ids = pl.Series("station_id", np.asarray(station_ids, dtype=object).tolist(), dtype=pl.String)
-        idx = ids.replace_strict({s: i for i, s in enumerate(self.stations)}, default=-1,
-                                 return_dtype=pl.Int64).fill_null(-1).to_numpy()
+        idx = (
+            ids.replace_strict({s: i for i, s in enumerate(self.stations)}, default=-1, return_dtype=pl.Int64)
+            .fill_null(-1)
+            .to_numpy()
+        )
         out = np.full((idx.size, self.bases_f.size), np.nan)
         ok = idx >= 0
         out[ok] = table[idx[ok]]
@@ -1022,18 +1116,22 @@ class NormalYear:
         ns, nb = self.hdd.shape
         st = np.repeat(np.array(self.stations, dtype=object), nb)
         yrs = [self.years_used[s] for s in self.stations]
-        return pl.DataFrame({
-            "station_id": st.tolist(),
-            "base_f": np.tile(self.bases_f, ns),
-            "hdd": self.hdd.ravel(), "cdd": self.cdd.ravel(),
-            "n_years": np.repeat([len(y) for y in yrs], nb),
-            "first_year": pl.Series(np.repeat([min(y) if y else None for y in yrs], nb).tolist(), dtype=pl.Int32),
-            "last_year": pl.Series(np.repeat([max(y) if y else None for y in yrs], nb).tolist(), dtype=pl.Int32),
-        })
+        return pl.DataFrame(
+            {
+                "station_id": st.tolist(),
+                "base_f": np.tile(self.bases_f, ns),
+                "hdd": self.hdd.ravel(),
+                "cdd": self.cdd.ravel(),
+                "n_years": np.repeat([len(y) for y in yrs], nb),
+                "first_year": pl.Series(np.repeat([min(y) if y else None for y in yrs], nb).tolist(), dtype=pl.Int32),
+                "last_year": pl.Series(np.repeat([max(y) if y else None for y in yrs], nb).tolist(), dtype=pl.Int32),
+            }
+        )
 
 
-def normal_year(cube_or_weather, bases_f=None, years=None, min_coverage: float = 0.95,
-                method: str = "mean") -> NormalYear:
+def normal_year(
+    cube_or_weather, bases_f=None, years=None, min_coverage: float = 0.95, method: str = "mean"
+) -> NormalYear:
     """Normal-year degree days per station from the complete years of its record.
 
     Parameters
@@ -1081,17 +1179,26 @@ def normal_year(cube_or_weather, bases_f=None, years=None, min_coverage: float =
         cols = np.arange(cube.bases_f.size)
     bases = cube.bases_f[cols]
     ns = len(cube.stations)
-    y_first = (cube.first_day.astype("datetime64[D]").astype("datetime64[Y]").astype(np.int64) + 1970)
-    y_last = ((cube.first_day + cube.n_days - 1).astype("datetime64[D]").astype("datetime64[Y]")
-              .astype(np.int64) + 1970)
-    cand = sorted(set(years)) if years is not None else (
-        list(range(int(y_first.min()), int(y_last.max()) + 1)) if ns else [])
+    y_first = cube.first_day.astype("datetime64[D]").astype("datetime64[Y]").astype(np.int64) + 1970
+    y_last = (cube.first_day + cube.n_days - 1).astype("datetime64[D]").astype("datetime64[Y]").astype(np.int64) + 1970
+    cand = (
+        sorted(set(years))
+        if years is not None
+        else (list(range(int(y_first.min()), int(y_last.max()) + 1)) if ns else [])
+    )
     ny = len(cand)
     nb = bases.size
     empty = np.full((ns, nb), np.nan)
     if ny == 0 or ns == 0:
-        return NormalYear(list(cube.stations), bases, empty, empty.copy(), np.full((ns, 12, nb), np.nan),
-                          np.full((ns, 12, nb), np.nan), {s: [] for s in cube.stations})
+        return NormalYear(
+            list(cube.stations),
+            bases,
+            empty,
+            empty.copy(),
+            np.full((ns, 12, nb), np.nan),
+            np.full((ns, 12, nb), np.nan),
+            {s: [] for s in cube.stations},
+        )
     yr = np.array(cand, dtype=np.int64)
     # (station, year, month) grid of periods
     S, Y, M = np.meshgrid(np.arange(ns), yr, np.arange(12), indexing="ij")
@@ -1105,9 +1212,9 @@ def normal_year(cube_or_weather, bases_f=None, years=None, min_coverage: float =
     c = c[:, cols].reshape(ns, ny, 12, nb)
     valid = (days - miss).reshape(ns, ny, 12)
     cover = valid.sum(axis=2) / days.reshape(ns, ny, 12).sum(axis=2)
-    counted = cover >= min_coverage                                     # (ns, ny)
+    counted = cover >= min_coverage  # (ns, ny)
     w = counted[:, :, None]
-    vsum = np.where(w, valid, 0).sum(axis=1)                            # (ns, 12)
+    vsum = np.where(w, valid, 0).sum(axis=1)  # (ns, 12)
     month_len = np.array([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], dtype=np.float64)
     with np.errstate(invalid="ignore", divide="ignore"):
         mh = np.where(w[..., None], h, 0.0).sum(axis=1) / vsum[..., None] * month_len[None, :, None]
@@ -1150,24 +1257,34 @@ def fill_short_gaps(weather: pl.DataFrame, max_gap_days: int = 3) -> tuple[pl.Da
     w = _prepare_daily(weather)
     extra_cols = [c for c in weather.columns if c not in WEATHER_COLUMNS]
     if extra_cols:
-        w = w.join(weather.select(pl.col("station_id").cast(pl.String), "date", *extra_cols),
-                   on=["station_id", "date"], how="left")
-    cal = (w.group_by("station_id").agg(pl.col("date").min().alias("d0"), pl.col("date").max().alias("d1"))
-           .with_columns(pl.date_ranges("d0", "d1").alias("date")).select("station_id", "date")
-           .explode("date"))
+        w = w.join(
+            weather.select(pl.col("station_id").cast(pl.String), "date", *extra_cols),
+            on=["station_id", "date"],
+            how="left",
+        )
+    cal = (
+        w.group_by("station_id")
+        .agg(pl.col("date").min().alias("d0"), pl.col("date").max().alias("d1"))
+        .with_columns(pl.date_ranges("d0", "d1").alias("date"))
+        .select("station_id", "date")
+        .explode("date")
+    )
     full = cal.join(w, on=["station_id", "date"], how="left").sort("station_id", "date")
     temps = ["t_min_f", "t_max_f", "t_mean_f"]
 
     def usable() -> pl.Expr:
-        return ((pl.col("t_min_f").is_not_null() & pl.col("t_max_f").is_not_null())
-                | pl.col("t_mean_f").is_not_null())
+        return (pl.col("t_min_f").is_not_null() & pl.col("t_max_f").is_not_null()) | pl.col("t_mean_f").is_not_null()
 
     # a day is filled only when it has no usable value at all, lies in a run of ≤ max_gap_days
     # such days, and the column's own null run is ≤ max_gap_days (bounded on both sides)
     full = full.with_columns((~usable()).alias("_gap"))
     full = full.with_columns(
-        (pl.col("_gap") != pl.col("_gap").shift(1).over("station_id")).fill_null(True)
-        .cum_sum().over("station_id").alias("_run"))
+        (pl.col("_gap") != pl.col("_gap").shift(1).over("station_id"))
+        .fill_null(True)
+        .cum_sum()
+        .over("station_id")
+        .alias("_run")
+    )
     full = full.with_columns(pl.len().over("station_id", "_run").alias("_gap_len"))
     exprs = []
     for c in temps:
@@ -1179,18 +1296,31 @@ def fill_short_gaps(weather: pl.DataFrame, max_gap_days: int = 3) -> tuple[pl.Da
     out = full.with_columns(exprs)
     out = out.with_columns((pl.col("_gap") & usable()).alias("interpolated"))
     g = out.with_columns((~usable()).alias("_miss"))
-    g = g.with_columns((pl.col("_miss") != pl.col("_miss").shift(1).over("station_id")).fill_null(True)
-                       .cum_sum().over("station_id").alias("_r2"))
-    gaps = (g.filter(pl.col("_miss")).group_by("station_id", "_r2")
-            .agg(pl.col("date").min().alias("gap_start"), pl.col("date").max().alias("gap_end"),
-                 pl.len().cast(pl.Int64).alias("days"))
-            .sort("station_id", "gap_start").select("station_id", "gap_start", "gap_end", "days"))
+    g = g.with_columns(
+        (pl.col("_miss") != pl.col("_miss").shift(1).over("station_id"))
+        .fill_null(True)
+        .cum_sum()
+        .over("station_id")
+        .alias("_r2")
+    )
+    gaps = (
+        g.filter(pl.col("_miss"))
+        .group_by("station_id", "_r2")
+        .agg(
+            pl.col("date").min().alias("gap_start"),
+            pl.col("date").max().alias("gap_end"),
+            pl.len().cast(pl.Int64).alias("days"),
+        )
+        .sort("station_id", "gap_start")
+        .select("station_id", "gap_start", "gap_end", "days")
+    )
     out = out.drop("_gap", "_run", "_gap_len")
     return out, gaps
 
 
-def gaps_in_windows(gaps: pl.DataFrame, windows: pl.DataFrame, *, start: str = "window_start",
-                    end: str = "window_end") -> pl.DataFrame:
+def gaps_in_windows(
+    gaps: pl.DataFrame, windows: pl.DataFrame, *, start: str = "window_start", end: str = "window_end"
+) -> pl.DataFrame:
     """Long weather gaps that touch each window (e.g. each building's comparison span).
 
     Parameters
@@ -1238,9 +1368,18 @@ def _periods(by: str, start: int, end: int) -> tuple[np.ndarray, np.ndarray]:
     return ps, pe
 
 
-def degree_day_table(cube: DegreeDayCube, *, station_ids=None, by: str = "month", date_from=None,
-                     date_to=None, periods: pl.DataFrame | None = None, kind: str = "both",
-                     base_f: float | None = None, unit: str = "F") -> pl.DataFrame:
+def degree_day_table(
+    cube: DegreeDayCube,
+    *,
+    station_ids=None,
+    by: str = "month",
+    date_from=None,
+    date_to=None,
+    periods: pl.DataFrame | None = None,
+    kind: str = "both",
+    base_f: float | None = None,
+    unit: str = "F",
+) -> pl.DataFrame:
     """Degree days per period as the command-line table.
 
     Parameters
@@ -1286,16 +1425,21 @@ def degree_day_table(cube: DegreeDayCube, *, station_ids=None, by: str = "month"
         pe = _day_numbers(p["period_end"], "period_end")
     else:
         sids, pss, pes = [], [], []
-        known = dict(zip(rec["station_id"].to_list(), zip(rec["first_date"].cast(pl.Int32).to_list(),
-                                                          rec["last_date"].cast(pl.Int32).to_list())))
-        for s in stations:                         # per station (a handful), not per period
+        known = dict(
+            zip(
+                rec["station_id"].to_list(),
+                zip(rec["first_date"].cast(pl.Int32).to_list(), rec["last_date"].cast(pl.Int32).to_list()),
+            )
+        )
+        for s in stations:  # per station (a handful), not per period
             if s not in known:
                 raise ValueError(f"unknown station_id {s!r}; the weather data has {', '.join(cube.stations[:10])}")
             a = known[s][0] if date_from is None else int(_day_numbers([date_from], "date_from")[0])
             b = known[s][1] if date_to is None else int(_day_numbers([date_to], "date_to")[0])
             if b < a:
-                raise ValueError(f"date_to {_to_dates(np.array([b]))[0]} is before date_from "
-                                 f"{_to_dates(np.array([a]))[0]}")
+                raise ValueError(
+                    f"date_to {_to_dates(np.array([b]))[0]} is before date_from {_to_dates(np.array([a]))[0]}"
+                )
             x, y = _periods(by, a, b)
             sids.append(np.full(x.size, s, dtype=object))
             pss.append(x)
@@ -1319,14 +1463,22 @@ def degree_day_table(cube: DegreeDayCube, *, station_ids=None, by: str = "month"
         days = miss = np.zeros(0, dtype=np.int64)
     scale = 1.0 if unit == "F" else 1.0 / F_PER_C
     base_out = base if unit == "F" else float(f_to_c(base))
-    df = pl.DataFrame({
-        "station_id": pl.Series(sid.tolist(), dtype=pl.String),
-        "period_start": _to_dates(ps), "period_end": _to_dates(pe),
-        "days": pl.Series(days, dtype=pl.Int64), "days_missing": pl.Series(miss, dtype=pl.Int64),
-        "hdd": pl.Series(h * scale, dtype=pl.Float64) if kind in ("hdd", "both") else pl.Series([None] * n, dtype=pl.Float64),
-        "cdd": pl.Series(c * scale, dtype=pl.Float64) if kind in ("cdd", "both") else pl.Series([None] * n, dtype=pl.Float64),
-        "method": pl.Series([cube.method] * n, dtype=pl.String),
-        "base": pl.Series([base_out] * n, dtype=pl.Float64),
-        "unit": pl.Series(["°F·day" if unit == "F" else "°C·day"] * n, dtype=pl.String),
-    })
+    df = pl.DataFrame(
+        {
+            "station_id": pl.Series(sid.tolist(), dtype=pl.String),
+            "period_start": _to_dates(ps),
+            "period_end": _to_dates(pe),
+            "days": pl.Series(days, dtype=pl.Int64),
+            "days_missing": pl.Series(miss, dtype=pl.Int64),
+            "hdd": pl.Series(h * scale, dtype=pl.Float64)
+            if kind in ("hdd", "both")
+            else pl.Series([None] * n, dtype=pl.Float64),
+            "cdd": pl.Series(c * scale, dtype=pl.Float64)
+            if kind in ("cdd", "both")
+            else pl.Series([None] * n, dtype=pl.Float64),
+            "method": pl.Series([cube.method] * n, dtype=pl.String),
+            "base": pl.Series([base_out] * n, dtype=pl.Float64),
+            "unit": pl.Series(["°F·day" if unit == "F" else "°C·day"] * n, dtype=pl.String),
+        }
+    )
     return df.sort("station_id", "period_start", "period_end", maintain_order=True)

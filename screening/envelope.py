@@ -55,19 +55,31 @@ PARAMETERS: dict[str, tuple[str, str | None, str]] = {
 
 # Optional buildings.csv columns that count as envelope data for ``envelope_source``.
 _ENVELOPE_INPUTS = (
-    "wall_u_btu_h_ft2_f", "roof_u_btu_h_ft2_f", "window_u_btu_h_ft2_f", "window_fraction", "ach",
-    "outdoor_air_cfm_ft2", "heat_recovery", "wall_area_ft2", "window_area_ft2", "roof_area_ft2",
+    "wall_u_btu_h_ft2_f",
+    "roof_u_btu_h_ft2_f",
+    "window_u_btu_h_ft2_f",
+    "window_fraction",
+    "ach",
+    "outdoor_air_cfm_ft2",
+    "heat_recovery",
+    "wall_area_ft2",
+    "window_area_ft2",
+    "roof_area_ft2",
 )
 # Given-only inputs (no default; estimated when absent).
 _GIVEN_ONLY = {
-    "wall_area_ft2": "ft2", "window_area_ft2": "ft2", "roof_area_ft2": "ft2",
-    "ua_total_btu_h_f": "Btu/(h*F)", "balance_point_f": "F",
+    "wall_area_ft2": "ft2",
+    "window_area_ft2": "ft2",
+    "roof_area_ft2": "ft2",
+    "ua_total_btu_h_f": "Btu/(h*F)",
+    "balance_point_f": "F",
 }
 _REQUIRED = ("building_id", "use_type", "floor_area_ft2", "heating_fuel")
 
 # Limits of given values, from the declared schema (the ones ingest checks): (min, max, min inclusive?)
 _GIVEN_BOUNDS: dict[str, tuple[float, float, bool]] = {
-    c: b for c, b in schema.numeric_bounds("buildings").items() if c not in ("heat_content", "price")}
+    c: b for c, b in schema.numeric_bounds("buildings").items() if c not in ("heat_content", "price")
+}
 #: year_built: the schema's lower limit; the upper one is the current year at ingest, which a pure
 #: function does not read (any year up to 2100 passes here)
 _YEAR_BUILT = (float(schema.column("buildings", "year_built").lo or 0), 2100.0)
@@ -82,6 +94,7 @@ _BLOCK_ELEMENTS = 131_072
 
 
 # --------------------------------------------------------------------------- constants
+
 
 @lru_cache(maxsize=None)
 def constants() -> dict[str, float]:
@@ -315,8 +328,16 @@ def modified_dd_factor(dd):
     return np.interp(dd, x, y)
 
 
-def geometry(floor_area_ft2, stories, aspect_ratio, floor_to_floor_ft, window_fraction,
-             wall_area_ft2=None, window_area_ft2=None, roof_area_ft2=None) -> dict[str, np.ndarray]:
+def geometry(
+    floor_area_ft2,
+    stories,
+    aspect_ratio,
+    floor_to_floor_ft,
+    window_fraction,
+    wall_area_ft2=None,
+    window_area_ft2=None,
+    roof_area_ft2=None,
+) -> dict[str, np.ndarray]:
     """Areas and volume of a rectangular block building.
 
     Parameters
@@ -383,6 +404,7 @@ def _era_index(year_built) -> np.ndarray:
 
 # --------------------------------------------------------------------------- defaults
 
+
 def _check_range_rows(name: str, df: pl.DataFrame) -> None:
     bad = df.filter(~((pl.col("low") <= pl.col("central")) & (pl.col("central") <= pl.col("high"))))
     if bad.height:
@@ -433,6 +455,7 @@ def _resolved_defaults() -> dict[str, tuple[np.ndarray, np.ndarray, tuple[str, .
 
 # --------------------------------------------------------------------------- validation helpers
 
+
 def _first_bad(values: np.ndarray, mask: np.ndarray, ids=None) -> str:
     i = int(np.flatnonzero(np.ravel(mask))[0])
     v = np.ravel(values)[i]
@@ -482,6 +505,7 @@ def _validate_categorical(ids: np.ndarray, name: str, values: np.ndarray, allowe
 
 
 # --------------------------------------------------------------------------- estimate_envelope
+
 
 def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
     """Envelope estimate, UA breakdown and balance point for every building.
@@ -543,20 +567,23 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
     yb = given["year_built"]
     bad = ~np.isnan(yb) & ((yb < _YEAR_BUILT[0]) | (yb > _YEAR_BUILT[1]))
     if np.any(bad):
-        raise ValueError(f"year_built must be within {_YEAR_BUILT[0]:g}-{_YEAR_BUILT[1]:g}; "
-                         f"got {_first_bad(yb, bad, ids)}")
+        raise ValueError(
+            f"year_built must be within {_YEAR_BUILT[0]:g}-{_YEAR_BUILT[1]:g}; got {_first_bad(yb, bad, ids)}"
+        )
     eff_g = given["heating_efficiency"]
     bad = (fuel != "electricity") & (eff_g > 1.0)
     if np.any(bad):
         raise ValueError(
             "heating_efficiency above 1 (a heat-pump COP) is accepted only for heating_fuel "
-            f"electricity; got {_first_bad(eff_g, bad, ids)}")
+            f"electricity; got {_first_bad(eff_g, bad, ids)}"
+        )
     ww, wn = given["wall_area_ft2"], given["window_area_ft2"]
     bad = ~np.isnan(ww) & ~np.isnan(wn) & (wn > ww)
     if np.any(bad):
         raise ValueError(
             "window_area_ft2 must not exceed wall_area_ft2 (the gross wall incl. windows); "
-            f"got {_first_bad(wn, bad, ids)}")
+            f"got {_first_bad(wn, bad, ids)}"
+        )
 
     era_idx = _era_index(yb)
     defaults = _resolved_defaults()
@@ -593,7 +620,8 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
     for c in _ENVELOPE_INPUTS:
         any_env |= ~np.isnan(given[c])
     source = pl.Series(["estimated", "partly given", "given"], dtype=pl.String).gather(
-        np.where(has_ua, 2, np.where(any_env, 1, 0)).astype(np.int32))
+        np.where(has_ua, 2, np.where(any_env, 1, 0)).astype(np.int32)
+    )
 
     data: dict[str, object] = {
         "building_id": buildings["building_id"],
@@ -633,30 +661,45 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
     origin_labels = pl.Series(["default", "given"], dtype=pl.String)
     pieces = []
     for k, (pname, (_t, _c, unit)) in enumerate(PARAMETERS.items()):
-        pieces.append(pl.DataFrame({
-            "row": row, "k": np.full(n, k, dtype=np.int32),
-            "name": pl.Series([pname]).gather(np.zeros(n, dtype=np.int32)),
-            "value": p_val[pname], "low": p_lo[pname], "high": p_hi[pname],
-            "unit": pl.Series([unit]).gather(np.zeros(n, dtype=np.int32)),
-            "origin": origin_labels.gather(p_given[pname].astype(np.int32)),
-            "source": p_src[pname],
-        }))
+        pieces.append(
+            pl.DataFrame(
+                {
+                    "row": row,
+                    "k": np.full(n, k, dtype=np.int32),
+                    "name": pl.Series([pname]).gather(np.zeros(n, dtype=np.int32)),
+                    "value": p_val[pname],
+                    "low": p_lo[pname],
+                    "high": p_hi[pname],
+                    "unit": pl.Series([unit]).gather(np.zeros(n, dtype=np.int32)),
+                    "origin": origin_labels.gather(p_given[pname].astype(np.int32)),
+                    "source": p_src[pname],
+                }
+            )
+        )
     for k, (col, unit) in enumerate(_GIVEN_ONLY.items(), start=len(PARAMETERS)):
         sel = ~np.isnan(given[col])
         m = int(sel.sum())
         if m == 0:
             continue
         v = given[col][sel]
-        pieces.append(pl.DataFrame({
-            "row": row[sel], "k": np.full(m, k, dtype=np.int32),
-            "name": pl.Series([col]).gather(np.zeros(m, dtype=np.int32)),
-            "value": v, "low": v, "high": v,
-            "unit": pl.Series([unit]).gather(np.zeros(m, dtype=np.int32)),
-            "origin": pl.Series(["given"]).gather(np.zeros(m, dtype=np.int32)),
-            "source": pl.Series([_GIVEN_SOURCE]).gather(np.zeros(m, dtype=np.int32)),
-        }))
+        pieces.append(
+            pl.DataFrame(
+                {
+                    "row": row[sel],
+                    "k": np.full(m, k, dtype=np.int32),
+                    "name": pl.Series([col]).gather(np.zeros(m, dtype=np.int32)),
+                    "value": v,
+                    "low": v,
+                    "high": v,
+                    "unit": pl.Series([unit]).gather(np.zeros(m, dtype=np.int32)),
+                    "origin": pl.Series(["given"]).gather(np.zeros(m, dtype=np.int32)),
+                    "source": pl.Series([_GIVEN_SOURCE]).gather(np.zeros(m, dtype=np.int32)),
+                }
+            )
+        )
     assumptions = (
-        pl.concat(pieces).sort("row", "k")
+        pl.concat(pieces)
+        .sort("row", "k")
         .group_by("row", maintain_order=True)
         .agg(pl.struct("name", "value", "low", "high", "unit", "origin", "source").alias("assumptions"))
     )
@@ -666,30 +709,52 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
 def _model(area, p: dict, given: dict) -> dict[str, np.ndarray]:
     """UA parts, gains and balance point; arrays broadcast (building vectors or draw grids)."""
     c = constants()
-    geo = geometry(area, p["stories"], p["aspect_ratio"], p["floor_to_floor_ft"], p["window_fraction"],
-                   given["wall_area_ft2"], given["window_area_ft2"], given["roof_area_ft2"])
+    geo = geometry(
+        area,
+        p["stories"],
+        p["aspect_ratio"],
+        p["floor_to_floor_ft"],
+        p["window_fraction"],
+        given["wall_area_ft2"],
+        given["window_area_ft2"],
+        given["roof_area_ft2"],
+    )
     parts = {
         "ua_walls": p["wall_u_btu_h_ft2_f"] * geo["opaque_wall_ft2"],
         "ua_windows": p["window_u_btu_h_ft2_f"] * geo["window_area_ft2"],
         "ua_roof": p["roof_u_btu_h_ft2_f"] * geo["roof_area_ft2"],
         "ua_ground": p["ground_f_btu_h_ft_f"] * geo["perimeter_ft"],
         "ua_infiltration": infiltration_ua(p["ach"], geo["volume_ft3"]),
-        "ua_ventilation": ventilation_ua(p["outdoor_air_cfm_ft2"] * area, p["heat_recovery"],
-                                         p["occupied_fraction"]),
+        "ua_ventilation": ventilation_ua(p["outdoor_air_cfm_ft2"] * area, p["heat_recovery"], p["occupied_fraction"]),
     }
-    ua = (parts["ua_walls"] + parts["ua_windows"] + parts["ua_roof"] + parts["ua_ground"]
-          + parts["ua_infiltration"] + parts["ua_ventilation"])
+    ua = (
+        parts["ua_walls"]
+        + parts["ua_windows"]
+        + parts["ua_roof"]
+        + parts["ua_ground"]
+        + parts["ua_infiltration"]
+        + parts["ua_ventilation"]
+    )
     ua_used = np.where(np.isnan(given["ua_total_btu_h_f"]), ua, given["ua_total_btu_h_f"])
-    gains = c["btu_h_per_w"] * (p["internal_gains_w_ft2"] * area
-                                + p["solar_gains_w_ft2_window"] * geo["window_area_ft2"])
+    gains = c["btu_h_per_w"] * (
+        p["internal_gains_w_ft2"] * area + p["solar_gains_w_ft2_window"] * geo["window_area_ft2"]
+    )
     t_eff = effective_setpoint(p["setpoint_f"], p["setback_f"], p["setback_hours"], p["setback_realization"])
     t_bal = np.clip(balance_point(t_eff, gains, ua_used), c["balance_point_min_f"], c["balance_point_max_f"])
     t_bal = np.where(np.isnan(given["balance_point_f"]), t_bal, given["balance_point_f"])
-    return {**geo, **parts, "ua_total": ua, "ua_total_used": ua_used, "gains_btu_h": gains,
-            "setpoint_effective_f": t_eff, "balance_point_f": t_bal}
+    return {
+        **geo,
+        **parts,
+        "ua_total": ua,
+        "ua_total_used": ua_used,
+        "gains_btu_h": gains,
+        "setpoint_effective_f": t_eff,
+        "balance_point_f": t_bal,
+    }
 
 
 # --------------------------------------------------------------------------- expected_heating
+
 
 def _interp_rows(curve: np.ndarray, grid: np.ndarray, t: np.ndarray, uniform: bool):
     """Row-wise linear interpolation: curve (B, G), t (B, D) -> (B, D), and a clip mask."""
@@ -731,9 +796,15 @@ def _tri_ppf(u, lo, c, hi):
     return np.where(u < fc, left, right)
 
 
-def expected_heating(envelope: pl.DataFrame, base_grid_f: np.ndarray, hdd_curve: np.ndarray, *,
-                     hdd_fixed_base: np.ndarray | None = None, n_draws: int = 500,
-                     seed: int = 20240601) -> pl.DataFrame:
+def expected_heating(
+    envelope: pl.DataFrame,
+    base_grid_f: np.ndarray,
+    hdd_curve: np.ndarray,
+    *,
+    hdd_fixed_base: np.ndarray | None = None,
+    n_draws: int = 500,
+    seed: int = 20240601,
+) -> pl.DataFrame:
     """Expected heating fuel by three degree-day methods, with a Monte Carlo band.
 
     Parameters
@@ -839,8 +910,7 @@ def expected_heating(envelope: pl.DataFrame, base_grid_f: np.ndarray, hdd_curve:
         full_inv[~known] = inv.ravel()
         tables[pname] = (draws, full_inv, known, lo)
 
-    given = {col: envelope[f"given_{col}"].fill_null(np.nan).to_numpy().astype(float)
-             for col in _GIVEN_ONLY}
+    given = {col: envelope[f"given_{col}"].fill_null(np.nan).to_numpy().astype(float) for col in _GIVEN_ONLY}
     area_all = envelope["floor_area_ft2"].to_numpy().astype(float)
     p10 = np.empty(b)
     p50 = np.empty(b)
@@ -872,18 +942,20 @@ def expected_heating(envelope: pl.DataFrame, base_grid_f: np.ndarray, hdd_curve:
     no_fixed = no_fixed | no_weather
     for arr in (fixed, hdd65, cd):
         arr[no_fixed] = np.nan
-    out = pl.DataFrame({
-        "building_id": envelope["building_id"],
-        "expected_heating_kbtu": p50,
-        "expected_low_kbtu": p10,
-        "expected_high_kbtu": p90,
-        "expected_point_kbtu": point,
-        "expected_fixed_base_kbtu": fixed,
-        "expected_modified_kbtu": fixed * cd,  # NaN where either is
-        "hdd_at_balance": dd_bal,
-        "hdd_fixed_base": hdd65,
-        "modified_dd_factor": cd,
-        "base_clipped": clip_pt,
-        "draws_clipped_share": share,
-    })
+    out = pl.DataFrame(
+        {
+            "building_id": envelope["building_id"],
+            "expected_heating_kbtu": p50,
+            "expected_low_kbtu": p10,
+            "expected_high_kbtu": p90,
+            "expected_point_kbtu": point,
+            "expected_fixed_base_kbtu": fixed,
+            "expected_modified_kbtu": fixed * cd,  # NaN where either is
+            "hdd_at_balance": dd_bal,
+            "hdd_fixed_base": hdd65,
+            "modified_dd_factor": cd,
+            "base_clipped": clip_pt,
+            "draws_clipped_share": share,
+        }
+    )
     return out.with_columns(pl.col(pl.Float64).fill_nan(None))

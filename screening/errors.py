@@ -14,7 +14,7 @@ EXIT_OK = 0
 EXIT_RUN_FAILED = 1
 EXIT_BAD_INPUT = 2
 EXIT_LOCKED = 3
-EXIT_SIGINT = 130   # 128 + SIGINT (2)
+EXIT_SIGINT = 130  # 128 + SIGINT (2)
 EXIT_SIGTERM = 143  # 128 + SIGTERM (15)
 
 
@@ -33,8 +33,16 @@ class InputError(ScreeningError):
 
     exit_code = EXIT_BAD_INPUT
 
-    def __init__(self, path, problem: str, *, line: int | None = None,
-                 column: str | None = None, value: object = None, expected: str | None = None):
+    def __init__(
+        self,
+        path,
+        problem: str,
+        *,
+        line: int | None = None,
+        column: str | None = None,
+        value: object = None,
+        expected: str | None = None,
+    ):
         self.path = str(path)
         self.problem = problem
         self.line = line

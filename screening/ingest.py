@@ -17,14 +17,30 @@ import polars as pl
 from . import refdata, schema
 from .csvread import LINE_COL, read_table
 from .errors import InputError
-from .parse import (AmbiguousDates, detect_date_order, midnight_stamps, number_text, parse_bool, parse_choice,
-                    parse_date, parse_float, parse_int)
+from .parse import (
+    AmbiguousDates,
+    detect_date_order,
+    midnight_stamps,
+    number_text,
+    parse_bool,
+    parse_choice,
+    parse_date,
+    parse_float,
+    parse_int,
+)
 from .schema import ID_PATTERN, REJECT_SCHEMA, specs
 
 USE_TYPES = tuple(schema.USE_TYPES)
 FUELS = tuple(schema.FUELS)
-_KIND_DTYPE = {"id": pl.String, "text": pl.String, "choice": pl.String, "float": pl.Float64, "int": pl.Int64,
-               "bool": pl.Boolean, "date": pl.Date}
+_KIND_DTYPE = {
+    "id": pl.String,
+    "text": pl.String,
+    "choice": pl.String,
+    "float": pl.Float64,
+    "int": pl.Int64,
+    "bool": pl.Boolean,
+    "date": pl.Date,
+}
 
 # Column specifications (csv column, canonical name, kind, required, options), from the declared schema
 # (screening/schema.py: types, units, limits, meanings). kind: id | text | choice | float | int | bool | date;
@@ -42,8 +58,8 @@ class ReadOptions:
     date_order: str | None = None
     delimiter: str | None = None
     encoding: str | None = None
-    columns: dict[str, dict[str, str]] = field(default_factory=dict)   # [inputs.columns]: kind → {theirs: ours}
-    thousands: str = ""                 # [reading] thousands: the thousands separator written in numbers
+    columns: dict[str, dict[str, str]] = field(default_factory=dict)  # [inputs.columns]: kind → {theirs: ours}
+    thousands: str = ""  # [reading] thousands: the thousands separator written in numbers
     min_date: _dt.date = _dt.date(1900, 1, 1)
     max_date: _dt.date = field(default_factory=lambda: _dt.date.today() + _dt.timedelta(days=366))
 
@@ -65,8 +81,11 @@ def empty_rejects() -> pl.DataFrame:
 def rejects_frame(rows: list[dict]) -> pl.DataFrame:
     if not rows:
         return empty_rejects()
-    return pl.DataFrame(rows, schema=REJECT_SCHEMA, orient="row") if isinstance(rows[0], (list, tuple)) \
+    return (
+        pl.DataFrame(rows, schema=REJECT_SCHEMA, orient="row")
+        if isinstance(rows[0], (list, tuple))
         else pl.DataFrame([{k: r.get(k) for k in REJECT_SCHEMA} for r in rows], schema=REJECT_SCHEMA)
+    )
 
 
 def si_factors() -> dict[str, tuple[float, float]]:
@@ -81,19 +100,28 @@ SHARE_COLUMNS = ("heating_efficiency", "window_fraction", "heat_recovery")
 
 def _number_formats(s: pl.Series, col: str, label: str, opts: ReadOptions, notices: list[str] | None):
     """Currency symbols, percent signs and thousands separators (see :func:`parse.number_text`)."""
-    text, fmt_problem, counts = number_text(s, decimal_comma=opts.decimal_comma, thousands=opts.thousands,
-                                            money=col in MONEY_COLUMNS, share=col in SHARE_COLUMNS)
+    text, fmt_problem, counts = number_text(
+        s,
+        decimal_comma=opts.decimal_comma,
+        thousands=opts.thousands,
+        money=col in MONEY_COLUMNS,
+        share=col in SHARE_COLUMNS,
+    )
     if notices is not None:
-        what = {"currency": "currency symbol(s) removed", "percent": "percent value(s) read as shares (85% = 0.85)",
-                "thousands": f"value(s) read with the thousands separator {opts.thousands!r}"}
+        what = {
+            "currency": "currency symbol(s) removed",
+            "percent": "percent value(s) read as shares (85% = 0.85)",
+            "thousands": f"value(s) read with the thousands separator {opts.thousands!r}",
+        }
         for k, n in counts.items():
             if n:
                 notices.append(f"{label}: {col}: {n} {what[k]}")
     return text, fmt_problem
 
 
-def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions,
-                   notices: list[str] | None = None) -> tuple[pl.DataFrame, pl.DataFrame]:
+def _typed_columns(
+    raw: pl.DataFrame, spec, label: str, opts: ReadOptions, notices: list[str] | None = None
+) -> tuple[pl.DataFrame, pl.DataFrame]:
     """Parse every column of ``raw`` per ``spec``; return typed frame (all rows) and problems."""
     typed: dict[str, pl.Series] = {}
     problems = []
@@ -102,13 +130,16 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions,
     date_order = opts.date_order or _file_date_order(raw, [c for c, _, k, _, _ in spec if k == "date"])
     for col, canon, kind, required, o in spec:
         s = raw[col]
-        if not required and s.null_count() == len(s):   # absent or empty optional column: nothing to check
+        if not required and s.null_count() == len(s):  # absent or empty optional column: nothing to check
             typed[canon] = pl.Series(canon, [None] * len(s), dtype=_KIND_DTYPE[kind])
             continue
         if kind == "id":
             ok = s.str.contains(ID_PATTERN).fill_null(False)
-            p = pl.select(pl.when(s.is_not_null() & ~ok).then(
-                pl.lit("expected 1-64 letters, digits, '-', '_' or '.'")).otherwise(None)).to_series()
+            p = pl.select(
+                pl.when(s.is_not_null() & ~ok)
+                .then(pl.lit("expected 1-64 letters, digits, '-', '_' or '.'"))
+                .otherwise(None)
+            ).to_series()
             v = pl.select(pl.when(ok).then(s).otherwise(None)).to_series()
         elif kind == "text":
             # display text loses control characters (never meaningful in a name); keys are kept as written
@@ -125,8 +156,9 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions,
                 hi = None if hi is None else (hi - off) / f
             fn = parse_int if kind == "int" else parse_float
             text, fmt_problem = _number_formats(s, col, label, opts, notices)
-            v, p = fn(text, decimal_comma=opts.decimal_comma, min_value=lo, max_value=hi,
-                      min_exclusive=o.get("excl", False))
+            v, p = fn(
+                text, decimal_comma=opts.decimal_comma, min_value=lo, max_value=hi, min_exclusive=o.get("excl", False)
+            )
             if fmt_problem.null_count() < len(fmt_problem):
                 p = pl.select(pl.when(fmt_problem.is_not_null()).then(fmt_problem).otherwise(p)).to_series()
                 v = pl.select(pl.when(fmt_problem.is_not_null()).then(None).otherwise(v)).to_series()
@@ -140,21 +172,35 @@ def _typed_columns(raw: pl.DataFrame, spec, label: str, opts: ReadOptions,
             except AmbiguousDates as exc:
                 slash = s.str.strip_chars().str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]\d{2,4}$").fill_null(False)
                 first = raw.filter(slash)[LINE_COL]
-                raise InputError(label, str(exc), column=col, line=int(first[0]) if first.len() else None,
-                                 expected="YYYY-MM-DD dates, or [reading] date_order set") from None
+                raise InputError(
+                    label,
+                    str(exc),
+                    column=col,
+                    line=int(first[0]) if first.len() else None,
+                    expected="YYYY-MM-DD dates, or [reading] date_order set",
+                ) from None
         else:  # pragma: no cover - spec is static
             raise ValueError(kind)
         if required:
             p = pl.select(pl.when(s.is_null()).then(pl.lit("required value is empty")).otherwise(p)).to_series()
         typed[canon] = v.rename(canon)
         bad = p.is_not_null()
-        if bool(bad.any()):   # only the rows with a problem (a frame per column of every row is ~8x the file)
-            problems.append(pl.DataFrame({"_line": raw[LINE_COL].filter(bad), "value": s.filter(bad).rename("value"),
-                                          "reason": p.filter(bad).rename("reason")})
-                            .select("_line", pl.lit(col, dtype=pl.String).alias("column"), "value", "reason"))
+        if bool(bad.any()):  # only the rows with a problem (a frame per column of every row is ~8x the file)
+            problems.append(
+                pl.DataFrame(
+                    {
+                        "_line": raw[LINE_COL].filter(bad),
+                        "value": s.filter(bad).rename("value"),
+                        "reason": p.filter(bad).rename("reason"),
+                    }
+                ).select("_line", pl.lit(col, dtype=pl.String).alias("column"), "value", "reason")
+            )
     typed[LINE_COL] = raw[LINE_COL]
-    prob = pl.concat(problems).filter(pl.col("reason").is_not_null()) if problems else pl.DataFrame(
-        schema={"_line": pl.Int64, "column": pl.String, "value": pl.String, "reason": pl.String})
+    prob = (
+        pl.concat(problems).filter(pl.col("reason").is_not_null())
+        if problems
+        else pl.DataFrame(schema={"_line": pl.Int64, "column": pl.String, "value": pl.String, "reason": pl.String})
+    )
     prob = prob.select(pl.lit(label).alias("file"), pl.col("_line").alias("line"), "column", "value", "reason")
     return pl.DataFrame(typed), prob
 
@@ -186,8 +232,15 @@ def _read_typed(path: str | Path, spec, opts: ReadOptions, kind: str = "", colum
     required = [c for c, _, _, r, _ in spec if r]
     optional = [c for c, _, _, r, _ in spec if not r]
     mapping = dict(opts.columns.get(kind) or {}) | dict(columns or {})
-    t = read_table(path, required=required, optional=optional, label=str(path),
-                   delimiter=opts.delimiter, encoding=opts.encoding, columns=mapping or None)
+    t = read_table(
+        path,
+        required=required,
+        optional=optional,
+        label=str(path),
+        delimiter=opts.delimiter,
+        encoding=opts.encoding,
+        columns=mapping or None,
+    )
     label = t.path
     typed, prob = _typed_columns(t.df, spec, label, opts, t.notices)
     return t, typed, prob
@@ -214,10 +267,17 @@ def read_buildings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
         conflict_rows = good.filter(pl.col("building_id").is_in(conflicted.implode()))
         lines = conflict_rows.group_by("building_id").agg(pl.col(LINE_COL).sort())
         line_map = {r["building_id"]: r[LINE_COL] for r in lines.iter_rows(named=True)}
-        extra = [{"file": label, "line": int(r[LINE_COL]), "column": "building_id", "value": r["building_id"],
-                  "reason": "building_id appears with different data on lines "
-                            + ", ".join(str(x) for x in line_map[r["building_id"]])}
-                 for r in conflict_rows.sort(LINE_COL).iter_rows(named=True)]
+        extra = [
+            {
+                "file": label,
+                "line": int(r[LINE_COL]),
+                "column": "building_id",
+                "value": r["building_id"],
+                "reason": "building_id appears with different data on lines "
+                + ", ".join(str(x) for x in line_map[r["building_id"]]),
+            }
+            for r in conflict_rows.sort(LINE_COL).iter_rows(named=True)
+        ]
         rej = pl.concat([rej, rejects_frame(extra)])
         good = good.filter(~pl.col("building_id").is_in(conflicted.implode()))
         n_before = good.height
@@ -243,14 +303,19 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
         typed, prob, stamp_notes = periods_from_reads(typed, prob, label, read_col)
     t.df = t.df.clear()  # the text columns are typed and read now; free them before the duplicate checks
     order = typed.filter(pl.col("period_end") < pl.col("period_start")).select(
-        pl.lit(label).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit("period_end").alias("column"),
+        pl.lit(label).alias("file"),
+        pl.col(LINE_COL).alias("line"),
+        pl.lit("period_end").alias("column"),
         pl.col("period_end").cast(pl.String).alias("value"),
-        (pl.lit("period ends before it starts (") + pl.col("period_start").cast(pl.String) + pl.lit(")"))
-        .alias("reason"))
+        (pl.lit("period ends before it starts (") + pl.col("period_start").cast(pl.String) + pl.lit(")")).alias(
+            "reason"
+        ),
+    )
     prob = pl.concat([prob, order.cast(REJECT_SCHEMA)])
     good, rej = _combine(typed, prob, t.rejects)
-    good = good.with_columns(pl.col("estimated").fill_null(False), pl.col("meter_id").fill_null(""),
-                             pl.col("unit").str.strip_chars())
+    good = good.with_columns(
+        pl.col("estimated").fill_null(False), pl.col("meter_id").fill_null(""), pl.col("unit").str.strip_chars()
+    )
     notices = list(t.notices) + stamp_notes
     key = ["building_id", "fuel", "meter_id", "period_start", "period_end"]
     data_cols = key + ["quantity", "unit", "estimated", "cost"]
@@ -262,10 +327,17 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     if conflict.height:
         lines = conflict.group_by(key).agg(pl.col(LINE_COL).sort().alias("lines"))
         conflict = conflict.join(lines, on=key)
-        extra = [{"file": label, "line": int(r[LINE_COL]), "column": "quantity", "value": str(r["quantity"]),
-                  "reason": f"same meter and period as line(s) {', '.join(str(x) for x in r['lines'] if x != r[LINE_COL])}"
-                            " with different data"}
-                 for r in conflict.sort(LINE_COL).iter_rows(named=True)]
+        extra = [
+            {
+                "file": label,
+                "line": int(r[LINE_COL]),
+                "column": "quantity",
+                "value": str(r["quantity"]),
+                "reason": f"same meter and period as line(s) {', '.join(str(x) for x in r['lines'] if x != r[LINE_COL])}"
+                " with different data",
+            }
+            for r in conflict.sort(LINE_COL).iter_rows(named=True)
+        ]
         rej = pl.concat([rej, rejects_frame(extra)])
         good = good.filter(~pl.struct(key).is_duplicated())
     return Loaded(label, good.sort(["building_id", "fuel", "meter_id", "period_start"]), rej.sort("line"), notices)
@@ -273,8 +345,10 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
 
 #: A readings file with read dates and no start dates: ``read_date`` (or ``period_end`` alone) ends each period.
 READ_DATE_COLUMNS = {
-    col: [(c if c != "period_end" else col, canon, kind, (req and canon != "period_start"), o)
-          for c, canon, kind, req, o in READING_COLUMNS]
+    col: [
+        (c if c != "period_end" else col, canon, kind, (req and canon != "period_start"), o)
+        for c, canon, kind, req, o in READING_COLUMNS
+    ]
     for col in ("read_date", "period_end")
 }
 
@@ -299,8 +373,9 @@ def _read_readings_typed(path, opts: ReadOptions):
     raise first
 
 
-def periods_from_reads(typed: pl.DataFrame, prob: pl.DataFrame, label: str,
-                       read_col: str) -> tuple[pl.DataFrame, pl.DataFrame, list[str]]:
+def periods_from_reads(
+    typed: pl.DataFrame, prob: pl.DataFrame, label: str, read_col: str
+) -> tuple[pl.DataFrame, pl.DataFrame, list[str]]:
     """Bills with a read date only: per meter (building, fuel, meter_id), sorted by read date, each
     period starts the day after the meter's previous read and ends on its read date (inclusive).
 
@@ -310,22 +385,39 @@ def periods_from_reads(typed: pl.DataFrame, prob: pl.DataFrame, label: str,
     """
     key = ["building_id", "fuel", "_m"]
     k = typed.with_columns(pl.col("meter_id").fill_null("").alias("_m"))
-    dates = (k.filter(pl.col("building_id").is_not_null() & pl.col("fuel").is_not_null()
-                      & pl.col("period_end").is_not_null())
-             .select(*key, "period_end").unique().sort(*key, "period_end")
-             .with_columns(pl.col("period_end").shift(1).over(key).alias("_prev")))
+    dates = (
+        k.filter(
+            pl.col("building_id").is_not_null() & pl.col("fuel").is_not_null() & pl.col("period_end").is_not_null()
+        )
+        .select(*key, "period_end")
+        .unique()
+        .sort(*key, "period_end")
+        .with_columns(pl.col("period_end").shift(1).over(key).alias("_prev"))
+    )
     k = k.join(dates, on=key + ["period_end"], how="left", maintain_order="left")
     typed = typed.with_columns((k["_prev"] + pl.duration(days=1)).alias("period_start"))
-    first = k.filter(pl.col("period_end").is_not_null() & pl.col("building_id").is_not_null()
-                     & pl.col("fuel").is_not_null() & pl.col("_prev").is_null())
-    opened = first.select(pl.lit(label).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit(read_col).alias("column"),
-                          pl.col("period_end").cast(pl.String).alias("value"),
-                          pl.lit("first read of this meter: it opens the record (the period it closes began "
-                                 "before the file's first read); not counted").alias("reason"))
+    first = k.filter(
+        pl.col("period_end").is_not_null()
+        & pl.col("building_id").is_not_null()
+        & pl.col("fuel").is_not_null()
+        & pl.col("_prev").is_null()
+    )
+    opened = first.select(
+        pl.lit(label).alias("file"),
+        pl.col(LINE_COL).alias("line"),
+        pl.lit(read_col).alias("column"),
+        pl.col("period_end").cast(pl.String).alias("value"),
+        pl.lit(
+            "first read of this meter: it opens the record (the period it closes began "
+            "before the file's first read); not counted"
+        ).alias("reason"),
+    )
     prob = pl.concat([prob, opened.cast(REJECT_SCHEMA)])
-    notes = [f"{label}: read dates without start dates ({read_col}): each period runs from the day after the "
-             f"meter's previous read to its read date; {first.height} first read(s) of a meter only open the "
-             "record (listed in the rejects)"]
+    notes = [
+        f"{label}: read dates without start dates ({read_col}): each period runs from the day after the "
+        f"meter's previous read to its read date; {first.height} first read(s) of a meter only open the "
+        "record (listed in the rejects)"
+    ]
     return typed, prob, notes
 
 
@@ -342,43 +434,69 @@ def _midnight_ends(raw: pl.DataFrame, typed: pl.DataFrame, label: str) -> tuple[
     s_st, e_st = midnight_stamps(raw["period_start"]), midnight_stamps(raw["period_end"])
     n_s, n_e = int(s_st.sum()), int(e_st.sum())
     if n_s:
-        notes.append(f"{label}: {n_s} period_start value(s) are timestamps at midnight (e.g. "
-                     f"{raw['period_start'].filter(s_st)[0].strip()!r}); read as that day")
+        notes.append(
+            f"{label}: {n_s} period_start value(s) are timestamps at midnight (e.g. "
+            f"{raw['period_start'].filter(s_st)[0].strip()!r}); read as that day"
+        )
     if not n_e:
         return typed, notes
     on = ["building_id", "fuel", "meter_id"]
     k = typed.with_columns(pl.col("meter_id").fill_null(""), e_st.alias("_e_st"))
     starts = k.select(*on, pl.col("period_start").alias("_next"), pl.lit(True).alias("_hit")).drop_nulls().unique()
-    k = k.join(starts.rename({"_hit": "_excl"}), left_on=on + ["period_end"], right_on=on + ["_next"], how="left",
-               maintain_order="left")
+    k = k.join(
+        starts.rename({"_hit": "_excl"}),
+        left_on=on + ["period_end"],
+        right_on=on + ["_next"],
+        how="left",
+        maintain_order="left",
+    )
     k = k.with_columns((pl.col("period_end") + pl.duration(days=1)).alias("_d1")).join(
-        starts.rename({"_hit": "_incl"}), left_on=on + ["_d1"], right_on=on + ["_next"], how="left",
-        maintain_order="left")
-    k = k.with_columns((pl.col("_e_st") & pl.col("_excl").fill_null(False)).alias("_excl"),
-                       (pl.col("_e_st") & pl.col("_incl").fill_null(False)).alias("_incl"))
+        starts.rename({"_hit": "_incl"}),
+        left_on=on + ["_d1"],
+        right_on=on + ["_next"],
+        how="left",
+        maintain_order="left",
+    )
+    k = k.with_columns(
+        (pl.col("_e_st") & pl.col("_excl").fill_null(False)).alias("_excl"),
+        (pl.col("_e_st") & pl.col("_incl").fill_null(False)).alias("_incl"),
+    )
     # per meter: the relation its stamped ends show; a meter that shows neither follows the file
     per = k.group_by(on).agg(pl.col("_excl").sum().alias("_ne"), pl.col("_incl").sum().alias("_ni"))
     file_excl = int(per["_ne"].sum()) > int(per["_ni"].sum())
-    per = per.with_columns(pl.when(pl.col("_ne") > pl.col("_ni")).then(True)
-                           .when(pl.col("_ne") < pl.col("_ni")).then(False)
-                           .otherwise(file_excl).alias("_exclusive"))
+    per = per.with_columns(
+        pl.when(pl.col("_ne") > pl.col("_ni"))
+        .then(True)
+        .when(pl.col("_ne") < pl.col("_ni"))
+        .then(False)
+        .otherwise(file_excl)
+        .alias("_exclusive")
+    )
     k = k.join(per.select(*on, "_exclusive"), on=on, how="left", maintain_order="left")
     move = (k["_e_st"] & k["_exclusive"]).fill_null(False)
     n_move, n_keep = int(move.sum()), n_e - int(move.sum())
-    typed = typed.with_columns(pl.when(move).then(pl.col("period_end") - pl.duration(days=1))
-                               .otherwise(pl.col("period_end")).alias("period_end"))
+    typed = typed.with_columns(
+        pl.when(move)
+        .then(pl.col("period_end") - pl.duration(days=1))
+        .otherwise(pl.col("period_end"))
+        .alias("period_end")
+    )
     if n_move:
         n_eq = int((move & k["_excl"]).sum())
-        notes.append(f"{label}: {n_move} period_end value(s) are timestamps at midnight (e.g. "
-                     f"{raw['period_end'].filter(move)[0].strip()!r}) on meters whose end stamp equals the start "
-                     f"of the next period ({n_eq} do): read as exclusive ends, so the day before is the last day "
-                     "covered")
+        notes.append(
+            f"{label}: {n_move} period_end value(s) are timestamps at midnight (e.g. "
+            f"{raw['period_end'].filter(move)[0].strip()!r}) on meters whose end stamp equals the start "
+            f"of the next period ({n_eq} do): read as exclusive ends, so the day before is the last day "
+            "covered"
+        )
     if n_keep:
         keep = e_st & ~move
-        notes.append(f"{label}: {n_keep} period_end value(s) are timestamps at midnight (e.g. "
-                     f"{raw['period_end'].filter(keep)[0].strip()!r}) not equal to the start of the meter's next "
-                     "period: read as the last day covered (inclusive); write plain dates YYYY-MM-DD to avoid "
-                     "this notice")
+        notes.append(
+            f"{label}: {n_keep} period_end value(s) are timestamps at midnight (e.g. "
+            f"{raw['period_end'].filter(keep)[0].strip()!r}) not equal to the start of the meter's next "
+            "period: read as the last day covered (inclusive); write plain dates YYYY-MM-DD to avoid "
+            "this notice"
+        )
     return typed, notes
 
 

@@ -37,15 +37,15 @@ from .errors import Interrupted
 
 SIGNALS = (signal.SIGINT, signal.SIGTERM)
 
-stop_event = threading.Event()      # set at the first signal; for threads other than the main one
-_stopped: int | None = None         # the first signal's number while a context is active
-_again: list[int] = []              # signals received after the first (ignored during clean-up)
+stop_event = threading.Event()  # set at the first signal; for threads other than the main one
+_stopped: int | None = None  # the first signal's number while a context is active
+_again: list[int] = []  # signals received after the first (ignored during clean-up)
 _depth = 0
 
 
 def _handler(signum, frame) -> None:
     global _stopped
-    if _stopped is not None:        # clean-up under way: note it, do not raise again
+    if _stopped is not None:  # clean-up under way: note it, do not raise again
         _again.append(signum)
         return
     _stopped = signum

@@ -40,6 +40,7 @@ def die_with_parent(sig: int = signal.SIGKILL) -> bool:
         return False
     try:
         import ctypes
+
         libc = ctypes.CDLL(None, use_errno=True)
         return libc.prctl(PR_SET_PDEATHSIG, int(sig), 0, 0, 0) == 0
     except (OSError, AttributeError):
@@ -69,6 +70,7 @@ def watch_parent() -> bool:
 
 def _in_fork_server() -> bool:
     from multiprocessing import forkserver
+
     code = forkserver.main.__code__
     f: FrameType | None = sys._getframe(1)
     while f is not None:

@@ -18,11 +18,11 @@ _fcntl: Any
 _msvcrt: Any
 try:
     import fcntl as _fcntl
-except ImportError:   # Windows
+except ImportError:  # Windows
     _fcntl = None
 try:
     import msvcrt as _msvcrt
-except ImportError:   # POSIX
+except ImportError:  # POSIX
     _msvcrt = None
 
 BACKEND = "fcntl" if _fcntl is not None else "msvcrt" if _msvcrt is not None else "none"

@@ -24,11 +24,11 @@ from .errors import OutOfMemoryError
 #   output tables (BYTES_PER_BUILDING).
 # Measured with benchmarks/bench_memory.py on simulated portfolios (42 readings a building; README
 # "Large files: memory and speed", docs/performance.md).
-BASE_BYTES = 330e6                # interpreter, libraries, weather cube, fixed tables
-BYTES_PER_READING_READ = 500.0    # readings file rows while the file is read and checked
-BYTES_PER_CHUNK_READING = 500.0   # readings of the chunk being screened
-BYTES_PER_BUILDING = 4_000.0      # buildings: results kept for the portfolio pass and the outputs
-BYTES_PER_WEATHER_ROW = 200.0     # daily weather rows (the degree-day cube: 71 bases of cumulative sums)
+BASE_BYTES = 330e6  # interpreter, libraries, weather cube, fixed tables
+BYTES_PER_READING_READ = 500.0  # readings file rows while the file is read and checked
+BYTES_PER_CHUNK_READING = 500.0  # readings of the chunk being screened
+BYTES_PER_BUILDING = 4_000.0  # buildings: results kept for the portfolio pass and the outputs
+BYTES_PER_WEATHER_ROW = 200.0  # daily weather rows (the degree-day cube: 71 bases of cumulative sums)
 #: kept for callers of the one-phase model: a readings row counted once
 BYTES_PER_READING = BYTES_PER_READING_READ
 
@@ -52,6 +52,7 @@ def screening_bytes(readings: int, buildings: int, chunk_buildings: int = 0) -> 
         b·B + r_chunk·R·c/B
     """
     from .pipeline import chunk_size
+
     share = chunk_size(chunk_buildings, buildings) / buildings if buildings else 1.0
     return BYTES_PER_BUILDING * buildings + BYTES_PER_CHUNK_READING * readings * share
 
@@ -60,8 +61,11 @@ def estimate_peak(readings: int, buildings: int, weather: int, chunk_buildings: 
     """Estimated peak resident memory of a run over inputs of these row counts [bytes]:
     ``BASE + w·weather + max(r_read·R, screening_bytes(R, B, c))`` (the files are read and stored
     before the screening starts, and their frames are freed)."""
-    return BASE_BYTES + BYTES_PER_WEATHER_ROW * weather + max(BYTES_PER_READING_READ * readings,
-                                                              screening_bytes(readings, buildings, chunk_buildings))
+    return (
+        BASE_BYTES
+        + BYTES_PER_WEATHER_ROW * weather
+        + max(BYTES_PER_READING_READ * readings, screening_bytes(readings, buildings, chunk_buildings))
+    )
 
 
 def _read_int(path: str) -> int | None:
@@ -155,11 +159,13 @@ def check(files: dict[str, list[str]], chunk_buildings: int = 0) -> float:
     ``files``: the run's input paths by kind; ``chunk_buildings`` the ``[run]`` setting. Returns the
     estimate [bytes].
     """
+
     def rows_of(path):
         try:
             return count_rows(path)
         except OSError:  # reported with its reason when the file is read
             return 0
+
     rows = {k: sum(rows_of(p) for p in files.get(k, [])) for k in ("readings", "buildings", "weather")}
     need = estimate_peak(rows["readings"], rows["buildings"], rows["weather"], chunk_buildings)
     have, what = available()
@@ -168,7 +174,8 @@ def check(files: dict[str, list[str]], chunk_buildings: int = 0) -> float:
             f"not enough memory: {rows['readings']:,} readings of {rows['buildings']:,} buildings need about "
             f"{gb(need)}, and {what} leaves {gb(have)}; nothing was changed. Run on a machine with more "
             "free memory, raise the limit, lower [run] chunk_buildings, or screen the portfolio in smaller parts "
-            "(fewer files per run)")
+            "(fewer files per run)"
+        )
     return need
 
 
@@ -179,4 +186,5 @@ def ran_out(exc: MemoryError, need: float | None) -> OutOfMemoryError:
     return OutOfMemoryError(
         f"ran out of memory{est}, and {what} leaves {gb(have)} now; earlier outputs are untouched. Run on a "
         "machine with more free memory, raise the limit, or screen the portfolio in smaller parts (fewer "
-        "files per run)")
+        "files per run)"
+    )

@@ -45,17 +45,26 @@ PeriodHdd = np.ndarray | Callable[[np.ndarray], np.ndarray]
 ISSUE_CODES = issue_codes("metered")
 # (a span other than the analysis window is a flag, ``shifted_span`` in schema.FLAGS, not a data issue)
 
-_SPAN_SCHEMA = pl.Schema({"building_id": pl.String, "span_start": pl.Date, "span_end": pl.Date,
-                          "span_kind": pl.String, "coverage": pl.Float64, "span_days": pl.Int64,
-                          "covered_days": pl.Int64, "filled_days": pl.Int64})
+_SPAN_SCHEMA = pl.Schema(
+    {
+        "building_id": pl.String,
+        "span_start": pl.Date,
+        "span_end": pl.Date,
+        "span_kind": pl.String,
+        "coverage": pl.Float64,
+        "span_days": pl.Int64,
+        "covered_days": pl.Int64,
+        "filled_days": pl.Int64,
+    }
+)
 
-_ISSUE_SCHEMA = pl.Schema({"building_id": pl.String, "code": pl.String, "detail": pl.String,
-                           "blocking": pl.Boolean})
+_ISSUE_SCHEMA = pl.Schema({"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean})
 
 
 # --------------------------------------------------------------------------------------------
 # helpers
 # --------------------------------------------------------------------------------------------
+
 
 def _heat(readings: pl.DataFrame) -> pl.DataFrame:
     if "is_heating_fuel" in readings.columns:
@@ -87,9 +96,11 @@ def _merged_intervals(r: pl.DataFrame) -> pl.DataFrame:
 
     Periods that overlap or touch become one interval, so a day read twice is counted once.
     """
-    o = (r.select("building_id", _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e"))
-         .filter(pl.col("_s") <= pl.col("_e"))
-         .sort(["building_id", "_s", "_e"]))
+    o = (
+        r.select("building_id", _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e"))
+        .filter(pl.col("_s") <= pl.col("_e"))
+        .sort(["building_id", "_s", "_e"])
+    )
     o = o.with_columns(pl.col("_e").cum_max().shift(1).over("building_id").alias("_pe"))
     o = o.with_columns((pl.col("_pe").is_null() | (pl.col("_s") > pl.col("_pe") + 1)).cum_sum().alias("_g"))
     return o.group_by("_g").agg(pl.col("building_id").first(), pl.col("_s").min(), pl.col("_e").max()).drop("_g")
@@ -106,42 +117,65 @@ def _union_coverage(r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str]) -
     """
     keys = list(keys)
     m = _merged_intervals(r)
-    j = (spans.select(*keys, _ordinal("span_start").alias("_ss"), _ordinal("span_end").alias("_se"))
-         .join(m, on="building_id", how="inner")
-         .select(*keys, (pl.min_horizontal("_e", "_se") - pl.max_horizontal("_s", "_ss") + 1)
-                 .clip(lower_bound=0).alias("_cov")))
+    j = (
+        spans.select(*keys, _ordinal("span_start").alias("_ss"), _ordinal("span_end").alias("_se"))
+        .join(m, on="building_id", how="inner")
+        .select(
+            *keys,
+            (pl.min_horizontal("_e", "_se") - pl.max_horizontal("_s", "_ss") + 1).clip(lower_bound=0).alias("_cov"),
+        )
+    )
     cov = j.group_by(keys).agg(pl.col("_cov").sum().cast(pl.Int64).alias("covered_days"))
-    return (spans.select(keys).join(cov, on=keys, how="left", nulls_equal=True)
-            .with_columns(pl.col("covered_days").fill_null(0)))
+    return (
+        spans.select(keys)
+        .join(cov, on=keys, how="left", nulls_equal=True)
+        .with_columns(pl.col("covered_days").fill_null(0))
+    )
 
 
 # --------------------------------------------------------------------------------------------
 # spans
 # --------------------------------------------------------------------------------------------
 
-def _end_to_fill(r: pl.DataFrame, ids: pl.Series, window_start: date, window_end: date,
-                 fill_end_days: int) -> pl.DataFrame:
+
+def _end_to_fill(
+    r: pl.DataFrame, ids: pl.Series, window_start: date, window_end: date, fill_end_days: int
+) -> pl.DataFrame:
     """``building_id, filled_days``: buildings whose reads cover every day of the window up to
     their last read, which ends 1 to ``fill_end_days`` days before ``window_end``."""
     if fill_end_days <= 0:
         return pl.DataFrame(schema={"building_id": pl.String, "filled_days": pl.Int64})
-    last = (r.filter(pl.col("period_start") <= window_end).group_by("building_id")
-            .agg(pl.col("period_end").max().alias("span_end"))
-            .filter((pl.col("span_end") >= window_start) & (pl.col("span_end") < window_end)
-                    & (pl.col("span_end") >= window_end - timedelta(days=fill_end_days)))
-            .join(pl.DataFrame({"building_id": ids}), on="building_id", how="semi")
-            .with_columns(pl.lit(window_start).alias("span_start")))
+    last = (
+        r.filter(pl.col("period_start") <= window_end)
+        .group_by("building_id")
+        .agg(pl.col("period_end").max().alias("span_end"))
+        .filter(
+            (pl.col("span_end") >= window_start)
+            & (pl.col("span_end") < window_end)
+            & (pl.col("span_end") >= window_end - timedelta(days=fill_end_days))
+        )
+        .join(pl.DataFrame({"building_id": ids}), on="building_id", how="semi")
+        .with_columns(pl.lit(window_start).alias("span_start"))
+    )
     cov = _union_coverage(r, last, ["building_id"])
     last = last.join(cov, on="building_id").filter(
-        pl.col("covered_days") == (_ordinal("span_end") - _ordinal("span_start")) + 1)
-    return last.select("building_id", ((pl.lit(window_end) - pl.col("span_end")).dt.total_days())
-                       .cast(pl.Int64).alias("filled_days"))
+        pl.col("covered_days") == (_ordinal("span_end") - _ordinal("span_start")) + 1
+    )
+    return last.select(
+        "building_id", ((pl.lit(window_end) - pl.col("span_end")).dt.total_days()).cast(pl.Int64).alias("filled_days")
+    )
 
 
-def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *,
-                 lookback_months: int = 24, min_coverage: float = 0.9,
-                 building_ids: Sequence[str] | pl.Series | None = None,
-                 fill_end_days: int = 0) -> pl.DataFrame:
+def choose_spans(
+    readings: pl.DataFrame,
+    window_start: date,
+    window_end: date,
+    *,
+    lookback_months: int = 24,
+    min_coverage: float = 0.9,
+    building_ids: Sequence[str] | pl.Series | None = None,
+    fill_end_days: int = 0,
+) -> pl.DataFrame:
     """Pick, per building, the 12 months over which metered and expected use are compared.
 
     Rule (foundation issue, "Analysis window"; issue 14 for the filled end), applied to the
@@ -193,8 +227,11 @@ def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *
         raise ValueError(f"fill_end_days={fill_end_days!r} must be at least 0")
     _require(readings, "readings", ("building_id", "period_start", "period_end"))
     r = _heat(readings).select("building_id", "period_start", "period_end")
-    ids = (pl.Series("building_id", list(building_ids), dtype=pl.String) if building_ids is not None
-           else r["building_id"].unique())
+    ids = (
+        pl.Series("building_id", list(building_ids), dtype=pl.String)
+        if building_ids is not None
+        else r["building_id"].unique()
+    )
     ids = ids.unique().sort()
 
     earliest = _add_months(window_end, -lookback_months) + timedelta(days=1)
@@ -210,33 +247,46 @@ def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *
                 cands.append((k, start, end))
                 k += 1
         end = date(end.year, end.month, 1) - timedelta(days=1)
-    cand = pl.DataFrame(cands, schema={"_cand": pl.Int64, "span_start": pl.Date, "span_end": pl.Date},
-                        orient="row")
+    cand = pl.DataFrame(cands, schema={"_cand": pl.Int64, "span_start": pl.Date, "span_end": pl.Date}, orient="row")
     grid = pl.DataFrame({"building_id": ids}).join(cand, how="cross")
     grid = grid.join(_union_coverage(r, grid, ["building_id", "_cand"]), on=["building_id", "_cand"])
-    grid = grid.with_columns(
-        ((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days")).with_columns(
-        (pl.col("covered_days") / pl.col("span_days")).alias("coverage"))
-    grid = grid.join(_end_to_fill(r, ids, window_start, window_end, fill_end_days), on="building_id",
-                     how="left").with_columns(
-        pl.when(pl.col("_cand") == 0).then(pl.col("filled_days").fill_null(0)).otherwise(0).alias("filled_days"))
+    grid = grid.with_columns(((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days")).with_columns(
+        (pl.col("covered_days") / pl.col("span_days")).alias("coverage")
+    )
+    grid = grid.join(
+        _end_to_fill(r, ids, window_start, window_end, fill_end_days), on="building_id", how="left"
+    ).with_columns(
+        pl.when(pl.col("_cand") == 0).then(pl.col("filled_days").fill_null(0)).otherwise(0).alias("filled_days")
+    )
 
     full = grid.filter(pl.col("covered_days") + pl.col("filled_days") == pl.col("span_days"))
     pick_full = full.sort(["building_id", "_cand"]).group_by("building_id", maintain_order=True).first()
     rest = grid.join(pick_full.select("building_id"), on="building_id", how="anti")
-    pick_best = (rest.sort(["building_id", "coverage", "_cand"], descending=[False, True, False])
-                 .group_by("building_id", maintain_order=True).first())
+    pick_best = (
+        rest.sort(["building_id", "coverage", "_cand"], descending=[False, True, False])
+        .group_by("building_id", maintain_order=True)
+        .first()
+    )
     picked = pl.concat([pick_full, pick_best.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))])
     window_row = grid.filter(pl.col("_cand") == 0)
     ok = pl.col("coverage") >= min_coverage
-    kind = (pl.when(~ok).then(pl.lit("uncovered"))
-            .when(pl.col("_cand") == 0).then(pl.lit("window")).otherwise(pl.lit("shifted")))
+    kind = (
+        pl.when(~ok)
+        .then(pl.lit("uncovered"))
+        .when(pl.col("_cand") == 0)
+        .then(pl.lit("window"))
+        .otherwise(pl.lit("shifted"))
+    )
     picked = picked.with_columns(kind.alias("span_kind"))
-    unc = picked.filter(pl.col("span_kind") == "uncovered").select("building_id", "span_kind").join(
-        window_row.drop("span_kind", strict=False).with_columns(pl.lit(0, pl.Int64).alias("filled_days")),
-        on="building_id")
-    out = pl.concat([picked.filter(pl.col("span_kind") != "uncovered"),
-                     unc.select(picked.columns)], how="vertical")
+    unc = (
+        picked.filter(pl.col("span_kind") == "uncovered")
+        .select("building_id", "span_kind")
+        .join(
+            window_row.drop("span_kind", strict=False).with_columns(pl.lit(0, pl.Int64).alias("filled_days")),
+            on="building_id",
+        )
+    )
+    out = pl.concat([picked.filter(pl.col("span_kind") != "uncovered"), unc.select(picked.columns)], how="vertical")
     return out.select(list(_SPAN_SCHEMA)).cast(_SPAN_SCHEMA).sort("building_id")
 
 
@@ -244,17 +294,21 @@ def choose_spans(readings: pl.DataFrame, window_start: date, window_end: date, *
 # calendarization
 # --------------------------------------------------------------------------------------------
 
+
 def _cum_lookup(weights: pl.DataFrame, q: pl.DataFrame, date_col: str, prefix: str) -> pl.DataFrame:
     """Cumulative weight and day count up to and including ``q[date_col]`` per building."""
     q = q.with_row_index("_qi").sort(date_col)
-    j = q.join_asof(weights, left_on=date_col, right_on="date", by="building_id", strategy="backward",
-                     check_sortedness=False)  # sorted by date above
-    return j.sort("_qi").select(pl.col("_cw").fill_null(0.0).alias(f"{prefix}_w"),
-                                pl.col("_cn").fill_null(0).alias(f"{prefix}_n"))
+    j = q.join_asof(
+        weights, left_on=date_col, right_on="date", by="building_id", strategy="backward", check_sortedness=False
+    )  # sorted by date above
+    return j.sort("_qi").select(
+        pl.col("_cw").fill_null(0.0).alias(f"{prefix}_w"), pl.col("_cn").fill_null(0).alias(f"{prefix}_n")
+    )
 
 
-def calendarize(readings: pl.DataFrame, spans: pl.DataFrame, *, method: str = "days",
-                daily_weights: pl.DataFrame | None = None) -> pl.DataFrame:
+def calendarize(
+    readings: pl.DataFrame, spans: pl.DataFrame, *, method: str = "days", daily_weights: pl.DataFrame | None = None
+) -> pl.DataFrame:
     """Prorate every reading to its building's span and sum per building and fuel.
 
     ``part = E × overlap_days / days`` (method ``"days"``), or
@@ -296,13 +350,16 @@ def calendarize(readings: pl.DataFrame, spans: pl.DataFrame, *, method: str = "d
         r = r.with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
     if "is_heating_fuel" not in r.columns:
         r = r.with_columns(pl.lit(True).alias("is_heating_fuel"))
-    j = (r.select("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu",
-                  "days")
-         .join(spans.select("building_id", "span_start", "span_end"), on="building_id", how="inner")
-         .with_columns(pl.max_horizontal("period_start", "span_start").alias("_os"),
-                       pl.min_horizontal("period_end", "span_end").alias("_oe"))
-         .filter(pl.col("_os") <= pl.col("_oe"))
-         .with_columns(((_ordinal("_oe") - _ordinal("_os")) + 1).alias("_od")))
+    j = (
+        r.select("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu", "days")
+        .join(spans.select("building_id", "span_start", "span_end"), on="building_id", how="inner")
+        .with_columns(
+            pl.max_horizontal("period_start", "span_start").alias("_os"),
+            pl.min_horizontal("period_end", "span_end").alias("_oe"),
+        )
+        .filter(pl.col("_os") <= pl.col("_oe"))
+        .with_columns(((_ordinal("_oe") - _ordinal("_os")) + 1).alias("_od"))
+    )
     part_days = pl.col("energy_kbtu") * pl.col("_od") / pl.col("days")
     if method == "days":
         j = j.with_columns(part_days.alias("_part"), pl.lit(False).alias("_by_dd"))
@@ -312,50 +369,95 @@ def calendarize(readings: pl.DataFrame, spans: pl.DataFrame, *, method: str = "d
         _require(daily_weights, "daily_weights", ("building_id", "date", "weight"))
         if daily_weights.filter(pl.col("weight") < 0).height:
             raise ValueError("daily_weights: weight must be non-negative")
-        w = (daily_weights.select("building_id", pl.col("date").cast(pl.Date), pl.col("weight").cast(pl.Float64))
-             .unique(["building_id", "date"], keep="first").sort(["building_id", "date"])
-             .with_columns(pl.col("weight").cum_sum().over("building_id").alias("_cw"),
-                           pl.int_range(1, pl.len() + 1).over("building_id").alias("_cn"))
-             .drop("weight").sort("date"))
-        q = j.select("building_id",
-                     pl.col("period_end").alias("_d1"), (pl.col("period_start") - pl.duration(days=1)).alias("_d2"),
-                     pl.col("_oe").alias("_d3"), (pl.col("_os") - pl.duration(days=1)).alias("_d4"))
+        w = (
+            daily_weights.select("building_id", pl.col("date").cast(pl.Date), pl.col("weight").cast(pl.Float64))
+            .unique(["building_id", "date"], keep="first")
+            .sort(["building_id", "date"])
+            .with_columns(
+                pl.col("weight").cum_sum().over("building_id").alias("_cw"),
+                pl.int_range(1, pl.len() + 1).over("building_id").alias("_cn"),
+            )
+            .drop("weight")
+            .sort("date")
+        )
+        q = j.select(
+            "building_id",
+            pl.col("period_end").alias("_d1"),
+            (pl.col("period_start") - pl.duration(days=1)).alias("_d2"),
+            pl.col("_oe").alias("_d3"),
+            (pl.col("_os") - pl.duration(days=1)).alias("_d4"),
+        )
         parts = [_cum_lookup(w, q.select("building_id", c), c, c) for c in ("_d1", "_d2", "_d3", "_d4")]
         j = pl.concat([j, *parts], how="horizontal").with_columns(
-            (pl.col("_d1_w") - pl.col("_d2_w")).alias("_wr"), (pl.col("_d1_n") - pl.col("_d2_n")).alias("_nr"),
-            (pl.col("_d3_w") - pl.col("_d4_w")).alias("_wo"))
+            (pl.col("_d1_w") - pl.col("_d2_w")).alias("_wr"),
+            (pl.col("_d1_n") - pl.col("_d2_n")).alias("_nr"),
+            (pl.col("_d3_w") - pl.col("_d4_w")).alias("_wo"),
+        )
         use_dd = (pl.col("_nr") == pl.col("days")) & (pl.col("_wr") > 0)
         j = j.with_columns(
-            pl.when(use_dd).then(pl.col("energy_kbtu") * pl.col("_wo") / pl.col("_wr"))
-            .otherwise(part_days).alias("_part"), use_dd.alias("_by_dd"))
-    agg = (j.group_by("building_id", "fuel").agg(
-        pl.col("is_heating_fuel").first(), pl.col("span_start").first(), pl.col("span_end").first(),
-        pl.col("_part").sum().alias("energy_kbtu"), pl.len().cast(pl.Int64).alias("n_reads"),
-        (pl.col("_part").filter(pl.col("_by_dd")).sum() / pl.col("_part").sum()).fill_nan(0.0)
-        .alias("dd_prorated_share")))
+            pl.when(use_dd)
+            .then(pl.col("energy_kbtu") * pl.col("_wo") / pl.col("_wr"))
+            .otherwise(part_days)
+            .alias("_part"),
+            use_dd.alias("_by_dd"),
+        )
+    agg = j.group_by("building_id", "fuel").agg(
+        pl.col("is_heating_fuel").first(),
+        pl.col("span_start").first(),
+        pl.col("span_end").first(),
+        pl.col("_part").sum().alias("energy_kbtu"),
+        pl.len().cast(pl.Int64).alias("n_reads"),
+        (pl.col("_part").filter(pl.col("_by_dd")).sum() / pl.col("_part").sum())
+        .fill_nan(0.0)
+        .alias("dd_prorated_share"),
+    )
     keyed = agg.select("building_id", "fuel", "span_start", "span_end")
     cov = _union_coverage(
-        r.select("building_id", "fuel", "period_start", "period_end").rename({"building_id": "_b"})
+        r.select("building_id", "fuel", "period_start", "period_end")
+        .rename({"building_id": "_b"})
         .with_columns(pl.concat_str("_b", pl.lit("\x1f"), "fuel").alias("building_id")),
-        keyed.with_columns(pl.concat_str("building_id", pl.lit("\x1f"), "fuel").alias("_bf"))
-        .select(pl.col("_bf").alias("building_id"), "span_start", "span_end"), ["building_id"])
-    cov = cov.with_columns(pl.col("building_id").str.split_exact("\x1f", 1)
-                           .struct.rename_fields(["building_id", "fuel"])).unnest("building_id")
-    out = agg.join(cov, on=["building_id", "fuel"], how="left").with_columns(
-        ((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days")).with_columns(
-        (pl.col("covered_days") / pl.col("span_days")).alias("coverage"))
-    return out.select("building_id", "fuel", "is_heating_fuel", "span_start", "span_end", "energy_kbtu",
-                      "n_reads", "covered_days", "span_days", "coverage", "dd_prorated_share").sort(
-        ["building_id", "fuel"])
+        keyed.with_columns(pl.concat_str("building_id", pl.lit("\x1f"), "fuel").alias("_bf")).select(
+            pl.col("_bf").alias("building_id"), "span_start", "span_end"
+        ),
+        ["building_id"],
+    )
+    cov = cov.with_columns(
+        pl.col("building_id").str.split_exact("\x1f", 1).struct.rename_fields(["building_id", "fuel"])
+    ).unnest("building_id")
+    out = (
+        agg.join(cov, on=["building_id", "fuel"], how="left")
+        .with_columns(((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days"))
+        .with_columns((pl.col("covered_days") / pl.col("span_days")).alias("coverage"))
+    )
+    return out.select(
+        "building_id",
+        "fuel",
+        "is_heating_fuel",
+        "span_start",
+        "span_end",
+        "energy_kbtu",
+        "n_reads",
+        "covered_days",
+        "span_days",
+        "coverage",
+        "dd_prorated_share",
+    ).sort(["building_id", "fuel"])
 
 
 # --------------------------------------------------------------------------------------------
 # reading issues
 # --------------------------------------------------------------------------------------------
 
-def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months: int = 24,
-                   min_coverage: float = 0.9, max_estimated_share: float = 1 / 3,
-                   block: int = 16384) -> pl.DataFrame:
+
+def reading_issues(
+    readings: pl.DataFrame,
+    spans: pl.DataFrame,
+    *,
+    lookback_months: int = 24,
+    min_coverage: float = 0.9,
+    max_estimated_share: float = 1 / 3,
+    block: int = 16384,
+) -> pl.DataFrame:
     """Data issues of each building's readings (see :func:`_reading_issues`), ``block`` buildings at a time.
 
     Every issue concerns one building, so the blocks' results are those of one pass over all
@@ -364,8 +466,11 @@ def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mont
     """
     _require(readings, "readings", ("building_id", "fuel", "period_start", "period_end"))
     _require(spans, "spans", ("building_id", "span_start", "span_end"))
-    kw: dict[str, Any] = {"lookback_months": lookback_months, "min_coverage": min_coverage,
-          "max_estimated_share": max_estimated_share}
+    kw: dict[str, Any] = {
+        "lookback_months": lookback_months,
+        "min_coverage": min_coverage,
+        "max_estimated_share": max_estimated_share,
+    }
     if spans.height <= block:
         return _reading_issues(readings, spans, **kw)
     ids = spans["building_id"]
@@ -377,8 +482,14 @@ def reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mont
     return pl.concat(parts).sort(["building_id", "code"])
 
 
-def _reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months: int = 24,
-                    min_coverage: float = 0.9, max_estimated_share: float = 1 / 3) -> pl.DataFrame:
+def _reading_issues(
+    readings: pl.DataFrame,
+    spans: pl.DataFrame,
+    *,
+    lookback_months: int = 24,
+    min_coverage: float = 0.9,
+    max_estimated_share: float = 1 / 3,
+) -> pl.DataFrame:
     """Data issues of each building's readings, each naming the dates concerned.
 
     Scopes: duplicates and overlaps are looked for among all fuels' reads that end within the
@@ -395,18 +506,25 @@ def _reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mon
     """
     _require(readings, "readings", ("building_id", "fuel", "period_start", "period_end"))
     _require(spans, "spans", ("building_id", "span_start", "span_end"))
-    sp = spans.select("building_id", "span_start", "span_end",
-                      *[c for c in ("span_kind", "coverage") if c in spans.columns])
+    sp = spans.select(
+        "building_id", "span_start", "span_end", *[c for c in ("span_kind", "coverage") if c in spans.columns]
+    )
     sp = sp.with_columns(_lookback_start("span_end", lookback_months).alias("_lb"))
     line = "_line" if "_line" in readings.columns else ("line" if "line" in readings.columns else None)
     r = readings.select(
-        "building_id", "fuel", "period_start", "period_end",
+        "building_id",
+        "fuel",
+        "period_start",
+        "period_end",
         (pl.col(line).cast(pl.Int64) if line else pl.lit(None, pl.Int64)).alias("_ln"),
-        (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
+        (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit(""))
+        .fill_null("")
         .alias("_meter"),
-        (pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in readings.columns
-         else pl.lit(False)).alias("_est"),
-        (pl.col("is_heating_fuel") if "is_heating_fuel" in readings.columns else pl.lit(True)).alias("_heat"))
+        (
+            pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in readings.columns else pl.lit(False)
+        ).alias("_est"),
+        (pl.col("is_heating_fuel") if "is_heating_fuel" in readings.columns else pl.lit(True)).alias("_heat"),
+    )
     r = r.join(sp.select("building_id", "span_start", "span_end", "_lb"), on="building_id", how="inner")
     rng = pl.format("{}..{}", "period_start", "period_end")
     parts: list[pl.DataFrame] = []
@@ -415,72 +533,121 @@ def _reading_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_mon
     keys = ["building_id", "fuel", "_meter"]
     same = [*keys, "period_start", "period_end"]
     # only the reads that share their key get a line list (most keys occur once)
-    dup = (hist.select(*same, "_ln").filter(pl.len().over(same) > 1)
-           .group_by(same)
-           .agg(pl.len().alias("_n"), pl.col("_ln").sort().cast(pl.String).str.join(", ").alias("_lines"))
-           .filter(pl.col("_n") > 1)
-           .with_columns(pl.format("{} {} read {} times (lines {})", "fuel", rng, "_n", "_lines").alias("detail"))
-           .select("building_id", pl.lit("duplicate_reads").alias("code"), "detail", "period_start"))
+    dup = (
+        hist.select(*same, "_ln")
+        .filter(pl.len().over(same) > 1)
+        .group_by(same)
+        .agg(pl.len().alias("_n"), pl.col("_ln").sort().cast(pl.String).str.join(", ").alias("_lines"))
+        .filter(pl.col("_n") > 1)
+        .with_columns(pl.format("{} {} read {} times (lines {})", "fuel", rng, "_n", "_lines").alias("detail"))
+        .select("building_id", pl.lit("duplicate_reads").alias("code"), "detail", "period_start")
+    )
     parts.append(dup)
-    u = (hist.select(*same).unique(keep="first")
-         .sort([*keys, "period_start", "period_end"])
-         .with_columns(pl.col("period_end").cum_max().shift(1).over(keys).alias("_prev_end")))
-    ov = (u.filter(pl.col("_prev_end") >= pl.col("period_start"))
-          .with_columns(pl.format("{} {} overlaps a read ending {}", "fuel", rng, "_prev_end").alias("detail"))
-          .select("building_id", pl.lit("overlapping_reads").alias("code"), "detail", "period_start"))
+    u = (
+        hist.select(*same)
+        .unique(keep="first")
+        .sort([*keys, "period_start", "period_end"])
+        .with_columns(pl.col("period_end").cum_max().shift(1).over(keys).alias("_prev_end"))
+    )
+    ov = (
+        u.filter(pl.col("_prev_end") >= pl.col("period_start"))
+        .with_columns(pl.format("{} {} overlaps a read ending {}", "fuel", rng, "_prev_end").alias("detail"))
+        .select("building_id", pl.lit("overlapping_reads").alias("code"), "detail", "period_start")
+    )
     parts.append(ov)
     del hist, u
 
-    h = r.filter(pl.col("_heat") & (pl.col("period_end") >= pl.col("span_start"))
-                 & (pl.col("period_start") <= pl.col("span_end"))).drop("_ln", "_meter", "_heat", "_lb")
+    h = r.filter(
+        pl.col("_heat")
+        & (pl.col("period_end") >= pl.col("span_start"))
+        & (pl.col("period_start") <= pl.col("span_end"))
+    ).drop("_ln", "_meter", "_heat", "_lb")
     del r
-    est = (h.group_by("building_id").agg(
-        pl.len().alias("_n"), pl.col("_est").sum().alias("_ne"),
-        pl.format("{}..{}", "period_start", "period_end").filter(pl.col("_est")).sort().str.join(", ").alias("_d"))
+    est = (
+        h.group_by("building_id")
+        .agg(
+            pl.len().alias("_n"),
+            pl.col("_est").sum().alias("_ne"),
+            pl.format("{}..{}", "period_start", "period_end").filter(pl.col("_est")).sort().str.join(", ").alias("_d"),
+        )
         .filter(pl.col("_ne") / pl.col("_n") > max_estimated_share)
         .with_columns(pl.format("{} of {} reads in the span estimated: {}", "_ne", "_n", "_d").alias("detail"))
-        .select("building_id", pl.lit("many_estimated_reads").alias("code"), "detail",
-                pl.lit(None, pl.Date).alias("period_start")))
+        .select(
+            "building_id",
+            pl.lit("many_estimated_reads").alias("code"),
+            "detail",
+            pl.lit(None, pl.Date).alias("period_start"),
+        )
+    )
     parts.append(est)
 
     # gaps: stretches of the span with no heating-fuel read, as [gap_start, gap_end]
-    c = (h.with_columns(pl.max_horizontal("period_start", "span_start").alias("_s"),
-                        pl.min_horizontal("period_end", "span_end").alias("_e"))
-         .sort(["building_id", "_s", "_e"])
-         .with_columns(pl.col("_e").cum_max().shift(1).over("building_id").alias("_pe")))
-    inner = (c.filter(pl.col("_pe").is_not_null() & (pl.col("_s") > pl.col("_pe") + pl.duration(days=1)))
-             .select("building_id", (pl.col("_pe") + pl.duration(days=1)).alias("_gs"),
-                     (pl.col("_s") - pl.duration(days=1)).alias("_ge")))
-    first = (c.group_by("building_id").agg(pl.col("_s").min(), pl.col("_e").max(), pl.col("span_start").first(),
-                                           pl.col("span_end").first()))
-    lead = (first.filter(pl.col("_s") > pl.col("span_start"))
-            .select("building_id", pl.col("span_start").alias("_gs"), (pl.col("_s") - pl.duration(days=1)).alias("_ge")))
-    tail = (first.filter(pl.col("_e") < pl.col("span_end"))
-            .select("building_id", (pl.col("_e") + pl.duration(days=1)).alias("_gs"), pl.col("span_end").alias("_ge")))
-    gaps = (pl.concat([inner, lead, tail])
-            .with_columns(pl.format("no read {}..{} ({} days)", "_gs", "_ge",
-                                    ((_ordinal("_ge") - _ordinal("_gs")) + 1)).alias("detail"))
-            .select("building_id", pl.lit("gap_in_reads").alias("code"), "detail",
-                    pl.col("_gs").alias("period_start")))
+    c = (
+        h.with_columns(
+            pl.max_horizontal("period_start", "span_start").alias("_s"),
+            pl.min_horizontal("period_end", "span_end").alias("_e"),
+        )
+        .sort(["building_id", "_s", "_e"])
+        .with_columns(pl.col("_e").cum_max().shift(1).over("building_id").alias("_pe"))
+    )
+    inner = c.filter(pl.col("_pe").is_not_null() & (pl.col("_s") > pl.col("_pe") + pl.duration(days=1))).select(
+        "building_id",
+        (pl.col("_pe") + pl.duration(days=1)).alias("_gs"),
+        (pl.col("_s") - pl.duration(days=1)).alias("_ge"),
+    )
+    first = c.group_by("building_id").agg(
+        pl.col("_s").min(), pl.col("_e").max(), pl.col("span_start").first(), pl.col("span_end").first()
+    )
+    lead = first.filter(pl.col("_s") > pl.col("span_start")).select(
+        "building_id", pl.col("span_start").alias("_gs"), (pl.col("_s") - pl.duration(days=1)).alias("_ge")
+    )
+    tail = first.filter(pl.col("_e") < pl.col("span_end")).select(
+        "building_id", (pl.col("_e") + pl.duration(days=1)).alias("_gs"), pl.col("span_end").alias("_ge")
+    )
+    gaps = (
+        pl.concat([inner, lead, tail])
+        .with_columns(
+            pl.format("no read {}..{} ({} days)", "_gs", "_ge", ((_ordinal("_ge") - _ordinal("_gs")) + 1)).alias(
+                "detail"
+            )
+        )
+        .select("building_id", pl.lit("gap_in_reads").alias("code"), "detail", pl.col("_gs").alias("period_start"))
+    )
     parts.append(gaps)
 
     if "coverage" in sp.columns:
-        low = (sp.filter(pl.col("coverage") < min_coverage)
-               .with_columns(pl.format("heating-fuel reads cover {} % of the span {}..{}",
-                                       (pl.col("coverage") * 100).round(1), "span_start", "span_end").alias("detail"))
-               .select("building_id", pl.lit("low_coverage").alias("code"), "detail",
-                       pl.lit(None, pl.Date).alias("period_start")))
+        low = (
+            sp.filter(pl.col("coverage") < min_coverage)
+            .with_columns(
+                pl.format(
+                    "heating-fuel reads cover {} % of the span {}..{}",
+                    (pl.col("coverage") * 100).round(1),
+                    "span_start",
+                    "span_end",
+                ).alias("detail")
+            )
+            .select(
+                "building_id",
+                pl.lit("low_coverage").alias("code"),
+                "detail",
+                pl.lit(None, pl.Date).alias("period_start"),
+            )
+        )
         parts.append(low)
 
     allp = pl.concat([p.cast({"period_start": pl.Date}) for p in parts])
-    out = (allp.sort(["building_id", "code", "period_start", "detail"], nulls_last=True)
-           .group_by(["building_id", "code"], maintain_order=True).agg(pl.col("detail").str.join("; "))
-           .with_columns(pl.col("code").replace_strict(ISSUE_CODES, return_dtype=pl.Boolean).alias("blocking")))
+    out = (
+        allp.sort(["building_id", "code", "period_start", "detail"], nulls_last=True)
+        .group_by(["building_id", "code"], maintain_order=True)
+        .agg(pl.col("detail").str.join("; "))
+        .with_columns(pl.col("code").replace_strict(ISSUE_CODES, return_dtype=pl.Boolean).alias("blocking"))
+    )
     return out.select(list(_ISSUE_SCHEMA)).cast(_ISSUE_SCHEMA).sort(["building_id", "code"])
 
 
-def missing_bills(readings: pl.DataFrame, window_start: date, window_end: date, *,
-                  spans: pl.DataFrame | None = None) -> pl.DataFrame:
+def missing_bills(
+    readings: pl.DataFrame, window_start: date, window_end: date, *, spans: pl.DataFrame | None = None
+) -> pl.DataFrame:
     """Billing periods of the heating fuel missing inside the analysis window, with their dates.
 
     Two kinds, both clipped to ``[window_start, window_end]``:
@@ -498,60 +665,84 @@ def missing_bills(readings: pl.DataFrame, window_start: date, window_end: date, 
         ``building_id, meter_id, gap_start, gap_end, days``, sorted by building_id, gap_start.
     """
     _require(readings, "readings", ("building_id", "period_start", "period_end"))
-    out_schema = pl.Schema({"building_id": pl.String, "meter_id": pl.String, "gap_start": pl.Date, "gap_end": pl.Date,
-                            "days": pl.Int64})
+    out_schema = pl.Schema(
+        {"building_id": pl.String, "meter_id": pl.String, "gap_start": pl.Date, "gap_end": pl.Date, "days": pl.Int64}
+    )
     ws, we = pl.lit(window_start), pl.lit(window_end)
     one = pl.duration(days=1)
     meter = (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
     r = _heat(readings).select("building_id", meter.alias("meter_id"), "period_start", "period_end")
     # building level: stretches of the window without any read
-    b = (r.sort(["building_id", "period_start", "period_end"])
-         .with_columns(pl.col("period_end").cum_max().shift(1).over("building_id").alias("_pe")))
-    inner = (b.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one))
-             .select("building_id", (pl.col("_pe") + one).alias("gap_start"),
-                     (pl.col("period_start") - one).alias("gap_end")))
+    b = r.sort(["building_id", "period_start", "period_end"]).with_columns(
+        pl.col("period_end").cum_max().shift(1).over("building_id").alias("_pe")
+    )
+    inner = b.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one)).select(
+        "building_id", (pl.col("_pe") + one).alias("gap_start"), (pl.col("period_start") - one).alias("gap_end")
+    )
     per = r.group_by("building_id").agg(
-        pl.col("period_start").min().alias("_s"), pl.col("period_end").max().alias("_e"),
-        ((_ordinal("period_end") - _ordinal("period_start")) + 1).median().alias("_len"))
+        pl.col("period_start").min().alias("_s"),
+        pl.col("period_end").max().alias("_e"),
+        ((_ordinal("period_end") - _ordinal("period_start")) + 1).median().alias("_len"),
+    )
     if spans is not None and "filled_days" in spans.columns:
         per = per.join(spans.select("building_id", "filled_days"), on="building_id", how="left")
     else:
         per = per.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))
     lead = per.select("building_id", ws.alias("gap_start"), (pl.col("_s") - one).alias("gap_end"))
-    tail = (per.filter((pl.col("filled_days").fill_null(0) == 0)
-                       & ((_ordinal("_e").cast(pl.Float64) + pl.col("_len")) < pl.lit(window_end).cast(pl.Date)
-                          .cast(pl.Int64)))
-            .select("building_id", (pl.col("_e") + one).alias("gap_start"), we.alias("gap_end")))
+    tail = per.filter(
+        (pl.col("filled_days").fill_null(0) == 0)
+        & ((_ordinal("_e").cast(pl.Float64) + pl.col("_len")) < pl.lit(window_end).cast(pl.Date).cast(pl.Int64))
+    ).select("building_id", (pl.col("_e") + one).alias("gap_start"), we.alias("gap_end"))
     whole = pl.concat([inner, lead, tail]).with_columns(pl.lit(None, pl.String).alias("meter_id"))
     # meter level: gaps between consecutive reads of one meter
-    m = (r.sort(["building_id", "meter_id", "period_start", "period_end"])
-         .with_columns(pl.col("period_end").cum_max().shift(1).over("building_id", "meter_id").alias("_pe")))
-    mg = (m.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one))
-          .select("building_id", "meter_id", (pl.col("_pe") + one).alias("gap_start"),
-                  (pl.col("period_start") - one).alias("gap_end")))
-    both = pl.concat([whole.select(list(out_schema)[:4]), mg.select(list(out_schema)[:4])]).with_columns(
-        pl.max_horizontal("gap_start", ws).alias("gap_start"), pl.min_horizontal("gap_end", we).alias("gap_end")
-    ).filter(pl.col("gap_start") <= pl.col("gap_end"))
+    m = r.sort(["building_id", "meter_id", "period_start", "period_end"]).with_columns(
+        pl.col("period_end").cum_max().shift(1).over("building_id", "meter_id").alias("_pe")
+    )
+    mg = m.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one)).select(
+        "building_id",
+        "meter_id",
+        (pl.col("_pe") + one).alias("gap_start"),
+        (pl.col("period_start") - one).alias("gap_end"),
+    )
+    both = (
+        pl.concat([whole.select(list(out_schema)[:4]), mg.select(list(out_schema)[:4])])
+        .with_columns(
+            pl.max_horizontal("gap_start", ws).alias("gap_start"), pl.min_horizontal("gap_end", we).alias("gap_end")
+        )
+        .filter(pl.col("gap_start") <= pl.col("gap_end"))
+    )
     # a meter's gap that no read of the building covers is already named at the building level
     bl = both.filter(pl.col("meter_id").is_null())
-    named = (both.filter(pl.col("meter_id").is_not_null()).with_row_index("_i")
-             .join(bl.select("building_id", pl.col("gap_start").alias("_bs"), pl.col("gap_end").alias("_be")),
-                   on="building_id", how="inner")
-             .filter((pl.col("gap_start") >= pl.col("_bs")) & (pl.col("gap_end") <= pl.col("_be")))["_i"])
-    mg = both.filter(pl.col("meter_id").is_not_null()).with_row_index("_i").filter(
-        ~pl.col("_i").is_in(named.implode())).drop("_i")
-    out = pl.concat([bl, mg]).with_columns(
-        ((_ordinal("gap_end") - _ordinal("gap_start")) + 1).alias("days"))
-    return out.select(list(out_schema)).cast(out_schema).sort(["building_id", "gap_start", "meter_id"],
-                                                              nulls_last=False)
+    named = (
+        both.filter(pl.col("meter_id").is_not_null())
+        .with_row_index("_i")
+        .join(
+            bl.select("building_id", pl.col("gap_start").alias("_bs"), pl.col("gap_end").alias("_be")),
+            on="building_id",
+            how="inner",
+        )
+        .filter((pl.col("gap_start") >= pl.col("_bs")) & (pl.col("gap_end") <= pl.col("_be")))["_i"]
+    )
+    mg = (
+        both.filter(pl.col("meter_id").is_not_null())
+        .with_row_index("_i")
+        .filter(~pl.col("_i").is_in(named.implode()))
+        .drop("_i")
+    )
+    out = pl.concat([bl, mg]).with_columns(((_ordinal("gap_end") - _ordinal("gap_start")) + 1).alias("days"))
+    return (
+        out.select(list(out_schema)).cast(out_schema).sort(["building_id", "gap_start", "meter_id"], nulls_last=False)
+    )
 
 
 # --------------------------------------------------------------------------------------------
 # regression inputs
 # --------------------------------------------------------------------------------------------
 
-def fit_periods(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months: int = 24,
-                max_period_days: int = 62) -> pl.DataFrame:
+
+def fit_periods(
+    readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months: int = 24, max_period_days: int = 62
+) -> pl.DataFrame:
     """The heating-fuel billing periods the regression may use, one row per building and period.
 
     Reads of the same period (several meters) are summed. A period is kept when it lies within
@@ -567,24 +758,30 @@ def fit_periods(readings: pl.DataFrame, spans: pl.DataFrame, *, lookback_months:
         degree days at every base of the grid (``period_hdd``, shape (rows, n_bases), [°F·day]).
     """
     _require(readings, "readings", ("building_id", "period_start", "period_end", "energy_kbtu"))
-    sp = spans.select("building_id", "span_end").with_columns(
-        _lookback_start("span_end", lookback_months).alias("_lb"))
+    sp = spans.select("building_id", "span_end").with_columns(_lookback_start("span_end", lookback_months).alias("_lb"))
     r = _heat(readings)
     est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in r.columns else pl.lit(False)
     r = r.select("building_id", "period_start", "period_end", "energy_kbtu", est.alias("_est"))
-    p = (r.join(sp, on="building_id", how="inner")
-         .filter((pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end")))
-         .group_by("building_id", "period_start", "period_end")
-         .agg(pl.col("energy_kbtu").sum(), pl.len().cast(pl.Int64).alias("n_reads"),
-              pl.col("_est").any().alias("any_estimated"))
-         .with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days")))
+    p = (
+        r.join(sp, on="building_id", how="inner")
+        .filter((pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end")))
+        .group_by("building_id", "period_start", "period_end")
+        .agg(
+            pl.col("energy_kbtu").sum(),
+            pl.len().cast(pl.Int64).alias("n_reads"),
+            pl.col("_est").any().alias("any_estimated"),
+        )
+        .with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
+    )
     p = p.with_columns((pl.col("days") <= max_period_days).alias("usable"))
-    return p.select("building_id", "period_start", "period_end", "days", "energy_kbtu", "n_reads",
-                    "any_estimated", "usable").sort(["building_id", "period_start", "period_end"])
+    return p.select(
+        "building_id", "period_start", "period_end", "days", "energy_kbtu", "n_reads", "any_estimated", "usable"
+    ).sort(["building_id", "period_start", "period_end"])
 
 
-def pad_periods(periods: pl.DataFrame, period_hdd: np.ndarray,
-                building_ids: Sequence[str] | pl.Series) -> dict[str, np.ndarray]:
+def pad_periods(
+    periods: pl.DataFrame, period_hdd: np.ndarray, building_ids: Sequence[str] | pl.Series
+) -> dict[str, np.ndarray]:
     """Pad flat periods into the (n_buildings, max_periods[, n_bases]) arrays of the fit.
 
     Parameters
@@ -628,9 +825,18 @@ def pad_periods(periods: pl.DataFrame, period_hdd: np.ndarray,
 # the regression
 # --------------------------------------------------------------------------------------------
 
-def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np.ndarray,
-                      base_grid_f: np.ndarray, valid: np.ndarray, *, min_periods: int = 9,
-                      max_period_days: int = 62, chunk: int = 2048) -> dict[str, np.ndarray]:
+
+def fit_variable_base(
+    use_per_day: np.ndarray,
+    days: np.ndarray,
+    hdd_per_day: np.ndarray,
+    base_grid_f: np.ndarray,
+    valid: np.ndarray,
+    *,
+    min_periods: int = 9,
+    max_period_days: int = 62,
+    chunk: int = 2048,
+) -> dict[str, np.ndarray]:
     """Variable-base degree-day regression of bills (Fels 1986, PRISM), all buildings at once,
     with a baseload that is never negative.
 
@@ -697,11 +903,15 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
     grid = np.asarray(base_grid_f, dtype=float)
     v = np.asarray(valid, dtype=bool)
     if y.ndim != 2 or n_days.shape != y.shape or v.shape != y.shape:
-        raise ValueError(f"use_per_day {y.shape}, days {n_days.shape} and valid {v.shape} must share "
-                         "one (n_buildings, n_periods) shape")
+        raise ValueError(
+            f"use_per_day {y.shape}, days {n_days.shape} and valid {v.shape} must share "
+            "one (n_buildings, n_periods) shape"
+        )
     if x.shape != y.shape + grid.shape or grid.ndim != 1:
-        raise ValueError(f"hdd_per_day has shape {x.shape}; expected {y.shape + grid.shape} "
-                         "(n_buildings, n_periods, len(base_grid_f))")
+        raise ValueError(
+            f"hdd_per_day has shape {x.shape}; expected {y.shape + grid.shape} "
+            "(n_buildings, n_periods, len(base_grid_f))"
+        )
     if grid.size > 1 and np.any(np.diff(grid) <= 0):
         raise ValueError("base_grid_f must be strictly increasing")
     v = v & (n_days > 0) & (n_days <= max_period_days) & np.isfinite(y) & np.all(np.isfinite(x), axis=2)
@@ -721,9 +931,9 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
         sl = slice(a, a + chunk)
         xs = np.where(v[sl, :, None], x[sl], 0.0)
         wx = w[sl, :, None] * xs
-        sx = wx.sum(axis=1)                                   # (c, k)
+        sx = wx.sum(axis=1)  # (c, k)
         sxx = np.einsum("cpk,cpk->ck", wx, xs)
-        sxy = np.einsum("cpk,cp->ck", wx, yc[sl])           # y centred: Σw(x)(y−ȳ) = Σw(x−x̄)(y−ȳ)
+        sxy = np.einsum("cpk,cp->ck", wx, yc[sl])  # y centred: Σw(x)(y−ȳ) = Σw(x−x̄)(y−ȳ)
         with np.errstate(invalid="ignore", divide="ignore"):
             # 1. unconstrained weighted least squares at every base
             sxx_c = sxx - sx * sx / s0[sl, None]
@@ -770,8 +980,9 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
         s2 = sse_w / dof
         r2 = np.where(heating, 1.0 - sse_w / syy, 0.0)
         se_beta = np.where(free_fit, np.sqrt(s2 / sxx_c), np.where(origin, np.sqrt(s2 / sxx_raw), np.nan))
-        se_alpha = np.where(free_fit, np.sqrt(s2 * (1.0 / s0 + xbar ** 2 / sxx_c)),
-                            np.where(origin, np.nan, np.sqrt(s2 / s0)))
+        se_alpha = np.where(
+            free_fit, np.sqrt(s2 * (1.0 / s0 + xbar**2 / sxx_c)), np.where(origin, np.nan, np.sqrt(s2 / s0))
+        )
         ymean = np.where(v, y0, 0.0).sum(axis=1) / n
         cv = 100.0 * np.sqrt((e * e).sum(axis=1) / dof) / ymean
         nmbe = 100.0 * e.sum(axis=1) / (dof * ymean)
@@ -799,10 +1010,14 @@ def fit_variable_base(use_per_day: np.ndarray, days: np.ndarray, hdd_per_day: np
 # combination
 # --------------------------------------------------------------------------------------------
 
+
 def _at_base(dd: np.ndarray, grid: np.ndarray, base: np.ndarray) -> np.ndarray:
     """Linear interpolation of each row of ``dd`` (n, n_bases) at its own base [°F]."""
-    j = np.clip(np.searchsorted(grid, base, side="right") - 1, 0, grid.size - 2) if grid.size > 1 \
+    j = (
+        np.clip(np.searchsorted(grid, base, side="right") - 1, 0, grid.size - 2)
+        if grid.size > 1
         else np.zeros(base.shape, dtype=int)
+    )
     if grid.size == 1:
         return np.where(base == grid[0], dd[:, 0], np.nan)
     g0, g1 = grid[j], grid[j + 1]
@@ -812,8 +1027,15 @@ def _at_base(dd: np.ndarray, grid: np.ndarray, base: np.ndarray) -> np.ndarray:
     return np.where((base >= grid[0]) & (base <= grid[-1]), out, np.nan)
 
 
-def _fit_in_blocks(periods: pl.DataFrame, period_hdd: PeriodHdd, building_ids: pl.Series, grid: np.ndarray, *,
-                   block: int = 4096, **fit_kw) -> dict[str, np.ndarray]:
+def _fit_in_blocks(
+    periods: pl.DataFrame,
+    period_hdd: PeriodHdd,
+    building_ids: pl.Series,
+    grid: np.ndarray,
+    *,
+    block: int = 4096,
+    **fit_kw,
+) -> dict[str, np.ndarray]:
     """:func:`pad_periods` + :func:`fit_variable_base` over blocks of buildings.
 
     The padded (buildings × periods × bases) array is what bounds memory (10,000 buildings × 48
@@ -824,30 +1046,51 @@ def _fit_in_blocks(periods: pl.DataFrame, period_hdd: PeriodHdd, building_ids: p
     # each period row's block (by its building's position in ``ids``), rows grouped by block in their
     # order: one sort, not an is_in over every period row per block (quadratic in the portfolio)
     pos = pl.DataFrame({"building_id": ids, "_k": np.arange(ids.len(), dtype=np.int64)}).unique(
-        "building_id", keep="first", maintain_order=True)
-    blk = (periods.select("building_id").join(pos, on="building_id", how="left", maintain_order="left")["_k"]
-           .fill_null(-1).to_numpy() // block)
+        "building_id", keep="first", maintain_order=True
+    )
+    blk = (
+        periods.select("building_id")
+        .join(pos, on="building_id", how="left", maintain_order="left")["_k"]
+        .fill_null(-1)
+        .to_numpy()
+        // block
+    )
     order = np.argsort(blk, kind="stable")
     parts: list[dict[str, np.ndarray]] = []
     for start in range(0, max(ids.len(), 1), block):
         bid = ids.slice(start, block)
         k = start // block
-        pick = order[np.searchsorted(blk, k, side="left", sorter=order):
-                     np.searchsorted(blk, k, side="right", sorter=order)]
+        pick = order[
+            np.searchsorted(blk, k, side="left", sorter=order) : np.searchsorted(blk, k, side="right", sorter=order)
+        ]
         hdd = period_hdd(pick) if callable(period_hdd) else np.asarray(period_hdd)[pick]
         arr = pad_periods(periods[pick], hdd, bid)
-        parts.append(fit_variable_base(arr["use_per_day"], arr["days"], arr["hdd_per_day"], grid, arr["valid"],
-                                       **fit_kw))
+        parts.append(
+            fit_variable_base(arr["use_per_day"], arr["days"], arr["hdd_per_day"], grid, arr["valid"], **fit_kw)
+        )
     return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
 
 
-def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.DataFrame, *,
-                    periods: pl.DataFrame, period_hdd: PeriodHdd, span_hdd: np.ndarray,
-                    normal_hdd: np.ndarray, base_grid_f: np.ndarray, efficiency: np.ndarray,
-                    engineering_base_f: np.ndarray, baseload_shares: pl.DataFrame | None = None,
-                    method: str = "days", daily_weights: pl.DataFrame | None = None,
-                    min_periods: int = 9, max_period_days: int = 62,
-                    fill_hdd: np.ndarray | None = None, fit_block: int = 4096) -> pl.DataFrame:
+def metered_heating(
+    readings: pl.DataFrame,
+    spans: pl.DataFrame,
+    buildings: pl.DataFrame,
+    *,
+    periods: pl.DataFrame,
+    period_hdd: PeriodHdd,
+    span_hdd: np.ndarray,
+    normal_hdd: np.ndarray,
+    base_grid_f: np.ndarray,
+    efficiency: np.ndarray,
+    engineering_base_f: np.ndarray,
+    baseload_shares: pl.DataFrame | None = None,
+    method: str = "days",
+    daily_weights: pl.DataFrame | None = None,
+    min_periods: int = 9,
+    max_period_days: int = 62,
+    fill_hdd: np.ndarray | None = None,
+    fit_block: int = 4096,
+) -> pl.DataFrame:
     """Per building: the heating part of the heating fuel over its span, normalized to a normal year.
 
     With a regression fit (:func:`fit_variable_base`, ``fit_method`` "regression")::
@@ -903,17 +1146,20 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
     grid = np.asarray(base_grid_f, dtype=float)
     if "filled_days" not in spans.columns:
         spans = spans.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))
-    sp = spans.select("building_id", "span_start", "span_end", "span_kind", "coverage", "covered_days",
-                      "filled_days")
+    sp = spans.select("building_id", "span_start", "span_end", "span_kind", "coverage", "covered_days", "filled_days")
     n_b = sp.height
     filled_days = sp["filled_days"].fill_null(0).to_numpy().astype(float)
     if fill_hdd is None:
         if np.any(filled_days > 0):
             raise ValueError("spans has filled_days > 0 but no fill_hdd was given")
         fill_hdd = np.zeros((n_b, grid.size))
-    for name, arr, shape in (("span_hdd", span_hdd, (n_b, grid.size)), ("normal_hdd", normal_hdd, (n_b, grid.size)),
-                             ("efficiency", efficiency, (n_b,)), ("engineering_base_f", engineering_base_f, (n_b,)),
-                             ("fill_hdd", fill_hdd, (n_b, grid.size))):
+    for name, arr, shape in (
+        ("span_hdd", span_hdd, (n_b, grid.size)),
+        ("normal_hdd", normal_hdd, (n_b, grid.size)),
+        ("efficiency", efficiency, (n_b,)),
+        ("engineering_base_f", engineering_base_f, (n_b,)),
+        ("fill_hdd", fill_hdd, (n_b, grid.size)),
+    ):
         if np.shape(arr) != shape:
             raise ValueError(f"{name} has shape {np.shape(arr)}; expected {shape} (rows in spans order)")
     span_hdd = np.asarray(span_hdd, float)
@@ -923,26 +1169,42 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
     t_eng = np.asarray(engineering_base_f, float)
 
     cal = calendarize(readings, spans, method=method, daily_weights=daily_weights)
-    cal = cal.filter(pl.col("is_heating_fuel")).group_by("building_id").agg(
-        pl.col("energy_kbtu").sum().alias("total_fuel_kbtu"))
+    cal = (
+        cal.filter(pl.col("is_heating_fuel"))
+        .group_by("building_id")
+        .agg(pl.col("energy_kbtu").sum().alias("total_fuel_kbtu"))
+    )
     shares = baseload_shares if baseload_shares is not None else refdata.load("baseload_shares")
     b = buildings.select("building_id", "use_type", "heating_fuel").with_columns(
-        pl.when(pl.col("heating_fuel") == "electricity").then(pl.lit("electricity"))
-        .otherwise(pl.lit("combustion")).alias("fuel_class"))
-    b = b.join(shares.select("use_type", "fuel_class", pl.col("nonheating_share").cast(pl.Float64)),
-               on=["use_type", "fuel_class"], how="left")
+        pl.when(pl.col("heating_fuel") == "electricity")
+        .then(pl.lit("electricity"))
+        .otherwise(pl.lit("combustion"))
+        .alias("fuel_class")
+    )
+    b = b.join(
+        shares.select("use_type", "fuel_class", pl.col("nonheating_share").cast(pl.Float64)),
+        on=["use_type", "fuel_class"],
+        how="left",
+    )
     frame = sp.join(cal, on="building_id", how="left", maintain_order="left").join(
-        b, on="building_id", how="left", maintain_order="left")
+        b, on="building_id", how="left", maintain_order="left"
+    )
     if frame.filter(pl.col("use_type").is_null()).height:
         bad = frame.filter(pl.col("use_type").is_null())["building_id"][0]
         raise ValueError(f"buildings: no row (or no use_type) for building_id={bad!r} of spans")
     if frame.filter(pl.col("nonheating_share").is_null()).height:
         bad = frame.filter(pl.col("nonheating_share").is_null()).row(0, named=True)
-        raise ValueError(f"baseload_shares: no share for use_type={bad['use_type']!r} "
-                         f"fuel_class={bad['fuel_class']!r}")
+        raise ValueError(f"baseload_shares: no share for use_type={bad['use_type']!r} fuel_class={bad['fuel_class']!r}")
 
-    fit = _fit_in_blocks(periods, period_hdd, sp["building_id"], grid, min_periods=min_periods,
-                         max_period_days=max_period_days, block=fit_block)
+    fit = _fit_in_blocks(
+        periods,
+        period_hdd,
+        sp["building_id"],
+        grid,
+        min_periods=min_periods,
+        max_period_days=max_period_days,
+        block=fit_block,
+    )
     read = frame["total_fuel_kbtu"].fill_null(0.0).to_numpy()
     covered = frame["covered_days"].to_numpy().astype(float)
     share = frame["nonheating_share"].to_numpy()
@@ -968,8 +1230,7 @@ def metered_heating(readings: pl.DataFrame, spans: pl.DataFrame, buildings: pl.D
         hdd_eng_norm = _at_base(normal_hdd, grid, t_eng)
         slope_default = np.where(hdd_eng_span > 0, actual / hdd_eng_span, np.nan)
         slope = np.where(reg, fit["beta"], slope_default)
-        normal = np.where(heat, fit["beta"] * normal_hdd[rows, kidx],
-                          np.where(reg, 0.0, slope_default * hdd_eng_norm))
+        normal = np.where(heat, fit["beta"] * normal_hdd[rows, kidx], np.where(reg, 0.0, slope_default * hdd_eng_norm))
         base_used = np.where(heat, fit["base_f"], np.where(reg, np.nan, t_eng))
         ua = slope * 1000.0 * eta / 24.0
     fit_method = np.where(reg, "regression", "default share")

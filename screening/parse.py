@@ -33,6 +33,7 @@ _MIDNIGHT = r"^\d{4}-\d{2}-\d{2}[T ]00:00(?::00(?:\.0+)?)?$"
 # * parse_date: a column of an input file with the spreadsheet conventions (slash dates in an
 #   order, serial numbers, midnight timestamps), each problem with its own reason.
 
+
 def iso_date(value: object) -> _dt.date | None:
     """One ``YYYY-MM-DD`` date (surrounding blanks allowed), or None when the text is anything else.
 
@@ -69,9 +70,15 @@ class AmbiguousDates(ValueError):
     """Slash dates whose day/month order cannot be told apart and was not configured."""
 
 
-def parse_float(s: pl.Series, *, decimal_comma: bool = False, min_value: float | None = None,
-                max_value: float | None = None, min_exclusive: bool = False,
-                what: str = "a number") -> tuple[pl.Series, pl.Series]:
+def parse_float(
+    s: pl.Series,
+    *,
+    decimal_comma: bool = False,
+    min_value: float | None = None,
+    max_value: float | None = None,
+    min_exclusive: bool = False,
+    what: str = "a number",
+) -> tuple[pl.Series, pl.Series]:
     """Parse numbers; reject non-numeric, NaN, infinite and out-of-range values."""
     text = s.str.strip_chars()
     if decimal_comma:
@@ -114,11 +121,16 @@ def parse_bool(s: pl.Series) -> tuple[pl.Series, pl.Series]:
     t = s.str.strip_chars().str.to_lowercase()
     df = pl.DataFrame({"t": t})
     out = df.select(
-        pl.when(pl.col("t").is_in(_TRUE)).then(True)
-        .when(pl.col("t").is_in(_FALSE) | pl.col("t").is_null()).then(False)
-        .otherwise(None).alias("v"),
+        pl.when(pl.col("t").is_in(_TRUE))
+        .then(True)
+        .when(pl.col("t").is_in(_FALSE) | pl.col("t").is_null())
+        .then(False)
+        .otherwise(None)
+        .alias("v"),
         pl.when(pl.col("t").is_not_null() & ~pl.col("t").is_in(_TRUE + _FALSE))
-        .then(pl.lit("expected true or false")).otherwise(None).alias("p"),
+        .then(pl.lit("expected true or false"))
+        .otherwise(None)
+        .alias("p"),
     )
     return out["v"].rename(s.name), out["p"].rename(s.name)
 
@@ -129,7 +141,7 @@ def detect_date_order(s: pl.Series) -> str | None:
     Returns ``"mdy"`` when some first field exceeds 12, ``"dmy"`` when some second
     field does, None when every value fits both (ambiguous) or there are none.
     """
-    if not bool(s.str.contains(r"[/.]").any()):   # no slash or dot dates at all (the usual ISO file)
+    if not bool(s.str.contains(r"[/.]").any()):  # no slash or dot dates at all (the usual ISO file)
         return None
     parts = s.drop_nulls().str.strip_chars().str.extract_groups(r"^(\d{1,2})[/.](\d{1,2})[/.](\d{2,4})$")
     a = parts.struct.field("1").cast(pl.Int64, strict=False).drop_nulls()
@@ -145,8 +157,9 @@ def detect_date_order(s: pl.Series) -> str | None:
     return None
 
 
-def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.date | None = None,
-               max_date: _dt.date | None = None) -> tuple[pl.Series, pl.Series]:
+def parse_date(
+    s: pl.Series, *, date_order: str | None = None, min_date: _dt.date | None = None, max_date: _dt.date | None = None
+) -> tuple[pl.Series, pl.Series]:
     """Parse dates: ISO ``YYYY-MM-DD`` (also ``YYYY/MM/DD``, and an ISO timestamp at midnight as its date;
     another time of day or any text after the date is a problem with its own reason),
     slash or dot dates in the configured day/month order, and spreadsheet serial numbers
@@ -160,7 +173,7 @@ def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.dat
         exceeds 12 consistently).
     """
     t = s.str.strip_chars()
-    any_sep = bool(t.str.contains(r"[/.]").any())   # else the slash and dot forms need no look
+    any_sep = bool(t.str.contains(r"[/.]").any())  # else the slash and dot forms need no look
     # a timestamp at midnight is read as its date (callers say how in a notice: see midnight_stamps);
     # any other time of day, or any other text after the date, is a problem, never cut off
     stamp = t.str.extract(_STAMP, 1)
@@ -168,16 +181,21 @@ def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.dat
     day_text = pl.select(pl.when(midnight).then(stamp).otherwise(t)).to_series()
     if any_sep:
         day_text = day_text.str.replace(r"^(\d{4})/(\d{1,2})/(\d{1,2})$", "$1-$2-$3")
-    iso = pl.select(pl.when(day_text.str.contains(r"^\d{4}-\d{1,2}-\d{1,2}$").fill_null(False))
-                    .then(day_text).otherwise(None)).to_series().str.to_date("%Y-%m-%d", strict=False)
+    iso = (
+        pl.select(
+            pl.when(day_text.str.contains(r"^\d{4}-\d{1,2}-\d{1,2}$").fill_null(False)).then(day_text).otherwise(None)
+        )
+        .to_series()
+        .str.to_date("%Y-%m-%d", strict=False)
+    )
     has_slash = t.str.contains(r"^\d{1,2}[/.]\d{1,2}[/.]\d{2,4}$").fill_null(False) if any_sep else None
     if has_slash is not None and bool(has_slash.any()):
         order = date_order or detect_date_order(t.filter(has_slash))
         if order is None:
             example = t.filter(has_slash)[0]
             raise AmbiguousDates(
-                f"dates like {example!r} could be day/month or month/day; "
-                "set date_order = \"dmy\" or \"mdy\" in the config")
+                f'dates like {example!r} could be day/month or month/day; set date_order = "dmy" or "mdy" in the config'
+            )
         fmt = {"mdy": "%m/%d/%Y", "dmy": "%d/%m/%Y", "ymd": "%Y/%m/%d"}[order]
         norm = t.str.replace_all(r"\.", "/")
         four = norm.str.contains(r"/\d{4}$").fill_null(False)
@@ -191,33 +209,52 @@ def parse_date(s: pl.Series, *, date_order: str | None = None, min_date: _dt.dat
     serial = pl.select(pl.when(serial.is_finite()).then(serial).otherwise(None)).to_series()
     serial_ok = serial.is_not_null() & (serial >= 20000) & (serial <= 80000) & (serial == serial.floor())
     serial_days = pl.lit(serial.clip(20000, 80000).cast(pl.Int64))
-    serial_date = pl.select(
-        pl.when(serial_ok).then(pl.lit(EXCEL_EPOCH) + pl.duration(days=serial_days))
-        .otherwise(None)).to_series().cast(pl.Date)
+    serial_date = (
+        pl.select(pl.when(serial_ok).then(pl.lit(EXCEL_EPOCH) + pl.duration(days=serial_days)).otherwise(None))
+        .to_series()
+        .cast(pl.Date)
+    )
     value = pl.select(pl.coalesce(iso, slash, serial_date)).to_series()
     timed = t.str.contains(_STAMP).fill_null(False) & ~midnight
-    trailing = (t.str.contains(r"^\d{4}[-/]\d{1,2}[-/]\d{1,2}") & ~t.str.contains(r"^\d{4}[-/]\d{1,2}[-/]\d{1,2}$")) \
-        .fill_null(False) & ~midnight & ~timed
+    trailing = (
+        (t.str.contains(r"^\d{4}[-/]\d{1,2}[-/]\d{1,2}") & ~t.str.contains(r"^\d{4}[-/]\d{1,2}[-/]\d{1,2}$")).fill_null(
+            False
+        )
+        & ~midnight
+        & ~timed
+    )
     df = pl.DataFrame({"t": t, "v": value, "timed": timed, "trailing": trailing})
     cond = pl.col("t").is_not_null() & pl.col("v").is_null()
     expected = "a date (YYYY-MM-DD)"
-    why = (pl.when(pl.col("timed")).then(pl.lit(f"expected {expected}: a time of day other than midnight "
-                                                "cannot be read as a day; give the date only"))
-           .when(pl.col("trailing")).then(pl.lit(f"expected {expected} with nothing after it: "
-                                                 "remove the text after the date"))
-           .otherwise(pl.lit(f"expected {expected}")))
+    why = (
+        pl.when(pl.col("timed"))
+        .then(
+            pl.lit(
+                f"expected {expected}: a time of day other than midnight cannot be read as a day; give the date only"
+            )
+        )
+        .when(pl.col("trailing"))
+        .then(pl.lit(f"expected {expected} with nothing after it: remove the text after the date"))
+        .otherwise(pl.lit(f"expected {expected}"))
+    )
     if min_date is not None or max_date is not None:
         lo = min_date or _dt.date(1, 1, 1)
         hi = max_date or _dt.date(9999, 12, 31)
         rng = (pl.col("v") < lo) | (pl.col("v") > hi)
         out = df.select(
             pl.when(cond | rng.fill_null(False)).then(None).otherwise(pl.col("v")).alias("v"),
-            pl.when(cond).then(why)
-            .when(rng.fill_null(False)).then(pl.lit(f"date out of range; expected {lo} to {hi}"))
-            .otherwise(None).alias("p"))
+            pl.when(cond)
+            .then(why)
+            .when(rng.fill_null(False))
+            .then(pl.lit(f"date out of range; expected {lo} to {hi}"))
+            .otherwise(None)
+            .alias("p"),
+        )
     else:
-        out = df.select(pl.when(cond).then(None).otherwise(pl.col("v")).alias("v"),
-                        pl.when(cond).then(why).otherwise(None).alias("p"))
+        out = df.select(
+            pl.when(cond).then(None).otherwise(pl.col("v")).alias("v"),
+            pl.when(cond).then(why).otherwise(None).alias("p"),
+        )
     return out["v"].rename(s.name), out["p"].rename(s.name)
 
 
@@ -232,10 +269,13 @@ def parse_choice(s: pl.Series, choices: list[str] | tuple[str, ...], *, what: st
     t = s.str.strip_chars().str.to_lowercase().str.replace_all(r"[\s\-]+", "_")
     df = pl.DataFrame({"t": t})
     ok = pl.col("t").is_in(list(choices))
-    out = df.select(pl.when(ok).then(pl.col("t")).otherwise(None).alias("v"),
-                    pl.when(pl.col("t").is_not_null() & ~ok)
-                    .then(pl.lit(f"unknown {what}; expected one of {', '.join(choices)}"))
-                    .otherwise(None).alias("p"))
+    out = df.select(
+        pl.when(ok).then(pl.col("t")).otherwise(None).alias("v"),
+        pl.when(pl.col("t").is_not_null() & ~ok)
+        .then(pl.lit(f"unknown {what}; expected one of {', '.join(choices)}"))
+        .otherwise(None)
+        .alias("p"),
+    )
     return out["v"].rename(s.name), out["p"].rename(s.name)
 
 
@@ -244,8 +284,9 @@ CURRENCY_SYMBOLS = "$€£¥"
 _GROUPED = {",": ",", ".": r"\.", " ": "[ \u00a0\u202f]", "'": "[’']"}
 
 
-def number_text(s: pl.Series, *, decimal_comma: bool = False, thousands: str = "", money: bool = False,
-                share: bool = False) -> tuple[pl.Series, pl.Series, dict[str, int]]:
+def number_text(
+    s: pl.Series, *, decimal_comma: bool = False, thousands: str = "", money: bool = False, share: bool = False
+) -> tuple[pl.Series, pl.Series, dict[str, int]]:
     """Spreadsheet number formats to plain number text, before :func:`parse_float`.
 
     * a currency symbol before or after the number (``$1,855.76``, ``12,5 €``) is removed in a
@@ -272,21 +313,31 @@ def number_text(s: pl.Series, *, decimal_comma: bool = False, thousands: str = "
         problem_grouped = pl.Series([False] * len(s), dtype=pl.Boolean)
     else:
         grouped = pl.Series([False] * len(s), dtype=pl.Boolean)
-        problem_grouped = body.str.contains(r"^[-+]?\d{1,3}(,\d{3})+(\.\d*)?$").fill_null(False) \
-            if not decimal_comma else body.str.contains(r"^[-+]?\d{1,3}(\.\d{3})+(,\d*)?$").fill_null(False)
-        if decimal_comma:   # 1.234,5 is read as before (the dots dropped); only say so for money without ','
+        problem_grouped = (
+            body.str.contains(r"^[-+]?\d{1,3}(,\d{3})+(\.\d*)?$").fill_null(False)
+            if not decimal_comma
+            else body.str.contains(r"^[-+]?\d{1,3}(\.\d{3})+(,\d*)?$").fill_null(False)
+        )
+        if decimal_comma:  # 1.234,5 is read as before (the dots dropped); only say so for money without ','
             problem_grouped = pl.Series([False] * len(s), dtype=pl.Boolean)
     problem = pl.select(
-        pl.when(cur & pl.lit(not money)).then(pl.lit("a currency symbol in a column that is not an amount of money"))
-        .when(pct & pl.lit(not share)).then(pl.lit("a percent sign in a column that is not a share"))
+        pl.when(cur & pl.lit(not money))
+        .then(pl.lit("a currency symbol in a column that is not an amount of money"))
+        .when(pct & pl.lit(not share))
+        .then(pl.lit("a percent sign in a column that is not a share"))
         .when(problem_grouped & body.str.contains(r"\.").fill_null(False))
         .then(s.str.strip_chars() + pl.lit(': a thousands separator; set [reading] thousands = ","'))
         .when(pl.lit(not decimal_comma) & body.str.contains(r"^[-+]?\d+,\d+$").fill_null(False) & ~problem_grouped)
         .then(s.str.strip_chars() + pl.lit(": a decimal comma; set [reading] decimal_comma = true"))
         .when(problem_grouped)
-        .then(s.str.strip_chars() + pl.lit(': a thousands separator (or a decimal comma); set [reading] thousands '
-                                           '= "," (or decimal_comma = true)'))
-        .otherwise(None)).to_series()
+        .then(
+            s.str.strip_chars()
+            + pl.lit(
+                ': a thousands separator (or a decimal comma); set [reading] thousands = "," (or decimal_comma = true)'
+            )
+        )
+        .otherwise(None)
+    ).to_series()
     if share and bool(pct.any()):
         num = (body.str.replace(",", ".", literal=True) if decimal_comma else body).cast(pl.Float64, strict=False)
         scaled = (num / 100.0).cast(pl.String)

@@ -34,15 +34,23 @@ KINDS = ("buildings", "readings", "weather")
 #: README "Data issues" lists every code).
 ISSUE_TEXT = {
     "no_readings": "no usable readings for this building",
-    "no_heating_fuel_readings": ("readings only in {fuels}, none in the building's heating fuel {heating_fuel}: "
-                                 "check heating_fuel in the buildings file or the fuel column of the readings"),
-    "no_weather_at_station": ("station {station_id} has no weather on any day of the span {span_start} to "
-                              "{span_end} ({record}): add that station's weather for these dates, or correct "
-                              "the building's station_id"),
-    "missing_bills": ("no heating-fuel bill for {gaps} inside the analysis window {window_start} to {window_end}: "
-                      "obtain the missing bills (or readings) and rerun"),
-    "end_days_filled": ("no reading yet for the last {days} day(s) of the span, {fill_start} to {span_end}: filled "
-                        "from {source} ({share} % of the span's use)"),
+    "no_heating_fuel_readings": (
+        "readings only in {fuels}, none in the building's heating fuel {heating_fuel}: "
+        "check heating_fuel in the buildings file or the fuel column of the readings"
+    ),
+    "no_weather_at_station": (
+        "station {station_id} has no weather on any day of the span {span_start} to "
+        "{span_end} ({record}): add that station's weather for these dates, or correct "
+        "the building's station_id"
+    ),
+    "missing_bills": (
+        "no heating-fuel bill for {gaps} inside the analysis window {window_start} to {window_end}: "
+        "obtain the missing bills (or readings) and rerun"
+    ),
+    "end_days_filled": (
+        "no reading yet for the last {days} day(s) of the span, {fill_start} to {span_end}: filled "
+        "from {source} ({share} % of the span's use)"
+    ),
 }
 #: Every data-issue code found here, beside the per-reading ones of :data:`screening.metered.ISSUE_CODES`,
 #: and whether it blocks a verdict. :data:`DATA_ISSUE_CODES` is the one list of data issues (README
@@ -55,12 +63,13 @@ NO_BASIS_CODES = ("no_readings", "no_heating_fuel_readings", "no_weather_at_stat
 
 # ---------------------------------------------------------------------------- loading
 
+
 @dataclass
 class FileLoad:
     kind: str
     path: str
     sha256: str
-    status: str            # "loaded" | "unchanged"
+    status: str  # "loaded" | "unchanged"
     rows: int
     rejected: int
     notices: list[str] = field(default_factory=list)
@@ -68,7 +77,7 @@ class FileLoad:
 
 def file_sha256(path: str | Path) -> str:
     h = hashlib.sha256()
-    src = split_sheet(path)[0]   # book.xlsx#Sheet: the workbook's bytes
+    src = split_sheet(path)[0]  # book.xlsx#Sheet: the workbook's bytes
     try:
         with open(src, "rb") as f:
             for chunk in iter(lambda: f.read(1 << 20), b""):
@@ -80,15 +89,23 @@ def file_sha256(path: str | Path) -> str:
 
 def read_options(cfg: dict) -> ReadOptions:
     r = cfg["reading"]
-    return ReadOptions(units=cfg["analysis"]["units"], decimal_comma=r["decimal_comma"],
-                       date_order=r["date_order"] or None, delimiter=r["delimiter"] or None,
-                       encoding=r["encoding"] or None, columns=dict(cfg["inputs"].get("columns") or {}),
-                       thousands=r.get("thousands", ""))
+    return ReadOptions(
+        units=cfg["analysis"]["units"],
+        decimal_comma=r["decimal_comma"],
+        date_order=r["date_order"] or None,
+        delimiter=r["delimiter"] or None,
+        encoding=r["encoding"] or None,
+        columns=dict(cfg["inputs"].get("columns") or {}),
+        thousands=r.get("thousands", ""),
+    )
 
 
 def _options_hash(opts: ReadOptions) -> str:
-    key = json.dumps([opts.units, opts.decimal_comma, opts.date_order, opts.delimiter, opts.encoding]
-                     + ([opts.columns, opts.thousands] if opts.columns or opts.thousands else []), sort_keys=True)
+    key = json.dumps(
+        [opts.units, opts.decimal_comma, opts.date_order, opts.delimiter, opts.encoding]
+        + ([opts.columns, opts.thousands] if opts.columns or opts.thousands else []),
+        sort_keys=True,
+    )
     return hashlib.sha256(key.encode()).hexdigest()[:16]
 
 
@@ -103,15 +120,22 @@ def read_file(kind: str, path: str, opts: ReadOptions) -> Loaded:
 
 
 def _read_weather(path: str, opts: ReadOptions):
-    res = read_daily_weather(path, units=opts.units, decimal_comma=opts.decimal_comma, date_order=opts.date_order,
-                             delimiter=opts.delimiter, encoding=opts.encoding,
-                             columns=opts.columns.get("weather") or None)
+    res = read_daily_weather(
+        path,
+        units=opts.units,
+        decimal_comma=opts.decimal_comma,
+        date_order=opts.date_order,
+        delimiter=opts.delimiter,
+        encoding=opts.encoding,
+        columns=opts.columns.get("weather") or None,
+    )
     weather, rejects = res
     return weather, rejects, list(getattr(res, "notices", []))
 
 
-def load_inputs(store: Store, files: dict[str, list[str]], opts: ReadOptions, *, force: bool = False,
-                log=None) -> list[FileLoad]:
+def load_inputs(
+    store: Store, files: dict[str, list[str]], opts: ReadOptions, *, force: bool = False, log=None
+) -> list[FileLoad]:
     """Load new or changed input files into the store, all in one transaction.
 
     Every file is read and checked before anything is written, so a structural error
@@ -148,13 +172,21 @@ def load_inputs(store: Store, files: dict[str, list[str]], opts: ReadOptions, *,
                 store.execute("delete_weather_from_file", p)
                 store.execute("insert_weather", p, stage_weather=loaded.df)
             store.execute("delete_load_rejects", {"kind": kind, "path": path})
-            store.execute("insert_load_rejects", {"kind": kind, "path": path},
-                          stage_rejects=loaded.rejects.cast(REJECT_SCHEMA))
-            store.execute("record_input_file", {"path": path, "kind": kind, "sha256": digest, "options_hash": oh,
-                                                "rows_loaded": loaded.df.height,
-                                                "rows_rejected": loaded.rejects.height})
-            out.append(FileLoad(kind, path, digest, "loaded", loaded.df.height, loaded.rejects.height,
-                                loaded.notices))
+            store.execute(
+                "insert_load_rejects", {"kind": kind, "path": path}, stage_rejects=loaded.rejects.cast(REJECT_SCHEMA)
+            )
+            store.execute(
+                "record_input_file",
+                {
+                    "path": path,
+                    "kind": kind,
+                    "sha256": digest,
+                    "options_hash": oh,
+                    "rows_loaded": loaded.df.height,
+                    "rows_rejected": loaded.rejects.height,
+                },
+            )
+            out.append(FileLoad(kind, path, digest, "loaded", loaded.df.height, loaded.rejects.height, loaded.notices))
         _forget_other_files(store, files)
     return out
 
@@ -162,8 +194,11 @@ def load_inputs(store: Store, files: dict[str, list[str]], opts: ReadOptions, *,
 def _forget_other_files(store: Store, files: dict[str, list[str]]) -> None:
     """Drop the stored rows of files the run does not name (any more): what is screened is
     exactly the content of the files named now."""
-    forget = {"buildings": "forget_buildings_of_other_files", "readings": "forget_readings_of_other_files",
-              "weather": "forget_weather_of_other_files"}
+    forget = {
+        "buildings": "forget_buildings_of_other_files",
+        "readings": "forget_readings_of_other_files",
+        "weather": "forget_weather_of_other_files",
+    }
     for kind in KINDS:
         paths = [str(p) for p in files.get(kind, [])]
         store.execute(forget[kind], {"paths": paths})
@@ -173,14 +208,15 @@ def _forget_other_files(store: Store, files: dict[str, list[str]]) -> None:
 
 # ---------------------------------------------------------------------------- screening
 
+
 @dataclass
 class Screened:
     """Everything a run computed, before formatting."""
 
-    results: pl.DataFrame           # one row per screened building, ranked
-    rejects: pl.DataFrame           # cross-file rejects found while screening
-    issues: pl.DataFrame            # building_id, code, detail, blocking
-    periods: pl.DataFrame           # billing periods used for the charts
+    results: pl.DataFrame  # one row per screened building, ranked
+    rejects: pl.DataFrame  # cross-file rejects found while screening
+    issues: pl.DataFrame  # building_id, code, detail, blocking
+    periods: pl.DataFrame  # billing periods used for the charts
     envelope: pl.DataFrame
     window: tuple[_dt.date, _dt.date]
     timings: dict[str, float]
@@ -202,8 +238,18 @@ def _source(frame: pl.DataFrame, paths: dict, kind: str) -> pl.Expr:
 
 
 #: columns of the converted readings that the screening steps read (quantity, unit, cost are not)
-_CONV_KEEP = ("building_id", "fuel", "meter_id", "period_start", "period_end", "energy_kbtu", "days",
-              "is_heating_fuel", "estimated", "_line")
+_CONV_KEEP = (
+    "building_id",
+    "fuel",
+    "meter_id",
+    "period_start",
+    "period_end",
+    "energy_kbtu",
+    "days",
+    "is_heating_fuel",
+    "estimated",
+    "_line",
+)
 
 
 def nearest_base(grid: np.ndarray, base: np.ndarray) -> np.ndarray:
@@ -298,9 +344,13 @@ def _cross_check_buildings(b: pl.DataFrame, stations: list[str], paths: dict) ->
     """Buildings whose station has weather, and the rejects of the others."""
     st = pl.Series(stations, dtype=pl.String).implode()
     bad_b = b.filter(~pl.col("station_id").is_in(st))
-    rej = bad_b.select(_source(b, paths, "buildings").alias("file"), pl.col("_line").alias("line"),
-                       pl.lit("station_id").alias("column"), pl.col("station_id").alias("value"),
-                       pl.lit("unknown station (not in the weather data)").alias("reason"))
+    rej = bad_b.select(
+        _source(b, paths, "buildings").alias("file"),
+        pl.col("_line").alias("line"),
+        pl.lit("station_id").alias("column"),
+        pl.col("station_id").alias("value"),
+        pl.lit("unknown station (not in the weather data)").alias("reason"),
+    )
     return b.filter(pl.col("station_id").is_in(st)), rej.cast(REJECT_SCHEMA)
 
 
@@ -314,10 +364,13 @@ def _cross_check(b: pl.DataFrame, r: pl.DataFrame, stations: list[str], paths: d
 
 def _unknown_building_rejects(bad_r: pl.DataFrame, paths: dict) -> pl.DataFrame:
     """Rejects of readings whose building is not among the accepted buildings."""
-    return bad_r.select(_source(bad_r, paths, "readings").alias("file"), pl.col("_line").alias("line"),
-                        pl.lit("building_id").alias("column"), pl.col("building_id").alias("value"),
-                        pl.lit("unknown building (not among the accepted buildings)").alias("reason")
-                        ).cast(REJECT_SCHEMA)
+    return bad_r.select(
+        _source(bad_r, paths, "readings").alias("file"),
+        pl.col("_line").alias("line"),
+        pl.lit("building_id").alias("column"),
+        pl.col("building_id").alias("value"),
+        pl.lit("unknown building (not among the accepted buildings)").alias("reason"),
+    ).cast(REJECT_SCHEMA)
 
 
 #: The unit mix-ups each heating fuel's bills are prone to, named in the likely_unit_error detail (our own
@@ -332,15 +385,23 @@ UNIT_MIXUPS: dict[str, str] = {
 }
 
 
-def _unit_error_issues(conv: pl.DataFrame, b: pl.DataFrame, factor: float, *, isolation: float = 1.0,
-                       block: int = 16384) -> pl.DataFrame:
+def _unit_error_issues(
+    conv: pl.DataFrame, b: pl.DataFrame, factor: float, *, isolation: float = 1.0, block: int = 16384
+) -> pl.DataFrame:
     """:func:`_unit_error_issues_block` over blocks of ``block`` buildings (each issue is one building's;
     the blocks bound the memory of the window statistics over every reading)."""
     if b.height <= block:
         return _unit_error_issues_block(conv, b, factor, isolation)
     ids = b["building_id"]
-    parts = [_unit_error_issues_block(conv.filter(pl.col("building_id").is_in(ids.slice(a, block).implode())),
-                                      b.slice(a, block), factor, isolation) for a in range(0, b.height, block)]
+    parts = [
+        _unit_error_issues_block(
+            conv.filter(pl.col("building_id").is_in(ids.slice(a, block).implode())),
+            b.slice(a, block),
+            factor,
+            isolation,
+        )
+        for a in range(0, b.height, block)
+    ]
     return pl.concat(parts).sort("building_id")
 
 
@@ -368,8 +429,9 @@ def _spike(q: pl.Expr, over: list[str], isolation: float) -> pl.Expr:
     return (pl.when(q >= 1).then(hi).otherwise(lo) | far).fill_null(False)
 
 
-def _unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, isolation: float = 1.0
-                             ) -> pl.DataFrame:
+def _unit_error_issues_block(
+    conv: pl.DataFrame, b: pl.DataFrame, factor: float, isolation: float = 1.0
+) -> pl.DataFrame:
     """Readings that differ from the same calendar month of other years by ≥ ``factor``, as a spike.
 
     A factor of about 10, 100 or 1000 between years of one meter is the mark of a
@@ -378,11 +440,14 @@ def _unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float,
     readings' own ratios (:func:`_spike`): a run of months off together is a step (waste that
     began), which the ratio of the whole span to the expectation judges instead.
     """
-    empty = pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
-                                 "blocking": pl.Boolean})
-    heat = conv.select("building_id", "meter_id", "fuel", "period_start", "period_end", "days", "energy_kbtu").join(
-        b.select("building_id", "heating_fuel"), on="building_id").filter(
-        (pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
+    empty = pl.DataFrame(
+        schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
+    )
+    heat = (
+        conv.select("building_id", "meter_id", "fuel", "period_start", "period_end", "days", "energy_kbtu")
+        .join(b.select("building_id", "heating_fuel"), on="building_id")
+        .filter((pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
+    )
     if heat.height == 0:
         return empty
     mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
@@ -392,40 +457,76 @@ def _unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float,
     heat = heat.with_columns((pl.col("_upd") >= 0.5 * pl.col("_mmed")).alias("_big"))
     big = pl.col("_upd").filter(pl.col("_big"))
     grp = ["building_id", "meter_id", "_m"]
-    heat = heat.with_columns(big.median().over(grp).alias("_med"), big.count().over(grp).alias("_n"),
-                             big.sum().over(grp).alias("_sum"), pl.col("_upd").count().over(grp).alias("_n_all"),
-                             pl.col("_upd").sum().over(grp).alias("_sum_all"),
-                             pl.col("_upd").median().over(grp).alias("_med_all"))
+    heat = heat.with_columns(
+        big.median().over(grp).alias("_med"),
+        big.count().over(grp).alias("_n"),
+        big.sum().over(grp).alias("_sum"),
+        pl.col("_upd").count().over(grp).alias("_n_all"),
+        pl.col("_upd").sum().over(grp).alias("_sum_all"),
+        pl.col("_upd").median().over(grp).alias("_med_all"),
+    )
     # the reading against the same month of the other years: their median; with two readings the
     # median sits between them, so each is compared with the other. A month of substantial use whose
     # other years were small (a summer bill ×100) is compared with all of them, and counts only from
     # UNIT_ERROR_FACTOR_ANY on and at `factor` × the meter's median month: summer use varies by large
     # factors on its own (heating in warm weather that began on a heating-only fuel: ×124 on the
     # simulator, seed 707), but never above the winter's bills
-    own = pl.when(pl.col("_n") == 2).then(pl.col("_upd") / (pl.col("_sum") - pl.col("_upd"))) \
+    own = (
+        pl.when(pl.col("_n") == 2)
+        .then(pl.col("_upd") / (pl.col("_sum") - pl.col("_upd")))
         .otherwise(pl.col("_upd") / pl.col("_med"))
-    all_ = pl.when(pl.col("_n_all") == 2).then(pl.col("_upd") / (pl.col("_sum_all") - pl.col("_upd"))) \
+    )
+    all_ = (
+        pl.when(pl.col("_n_all") == 2)
+        .then(pl.col("_upd") / (pl.col("_sum_all") - pl.col("_upd")))
         .otherwise(pl.col("_upd") / pl.col("_med_all"))
-    q = pl.when(pl.col("_big") & (pl.col("_n") >= 2) & (pl.col("_med") > 0) & (pl.col("_upd") > 0)).then(own) \
-        .when(pl.col("_big") & (pl.col("_n_all") >= 2) & (pl.col("_med_all") > 0) & (pl.col("_upd") > 0)
-              & (all_ >= UNIT_ERROR_FACTOR_ANY) & (pl.col("_upd") >= factor * pl.col("_mmed"))).then(all_)
+    )
+    q = (
+        pl.when(pl.col("_big") & (pl.col("_n") >= 2) & (pl.col("_med") > 0) & (pl.col("_upd") > 0))
+        .then(own)
+        .when(
+            pl.col("_big")
+            & (pl.col("_n_all") >= 2)
+            & (pl.col("_med_all") > 0)
+            & (pl.col("_upd") > 0)
+            & (all_ >= UNIT_ERROR_FACTOR_ANY)
+            & (pl.col("_upd") >= factor * pl.col("_mmed"))
+        )
+        .then(all_)
+    )
     heat = heat.sort("building_id", "meter_id", "period_start").with_columns(q.alias("_q"))
     heat = heat.with_columns(_spike(pl.col("_q"), ["building_id", "meter_id"], isolation).alias("_spike"))
     odd = heat.filter(((pl.col("_q") >= factor) | (pl.col("_q") * factor <= 1)) & pl.col("_spike"))
     if odd.height == 0:
         return empty
     odd = odd.sort("building_id", "period_start").with_columns(
-        (pl.col("period_start").cast(pl.String) + pl.lit("–") + pl.col("period_end").cast(pl.String)
-         + pl.lit(" (") + pl.col("_q").round(2).cast(pl.String) + pl.lit("× the same month's median)"))
-        .alias("_d"))
-    return odd.group_by("building_id").agg(pl.col("_d").str.join("; ").alias("detail")).select(
-        "building_id", pl.lit("likely_unit_error").alias("code"),
-        (pl.lit("reading(s) about 10×, 100× or 1000× off the building's own history: ") + pl.col("detail"))
-        .alias("detail"), pl.lit(True).alias("blocking")).sort("building_id")
+        (
+            pl.col("period_start").cast(pl.String)
+            + pl.lit("–")
+            + pl.col("period_end").cast(pl.String)
+            + pl.lit(" (")
+            + pl.col("_q").round(2).cast(pl.String)
+            + pl.lit("× the same month's median)")
+        ).alias("_d")
+    )
+    return (
+        odd.group_by("building_id")
+        .agg(pl.col("_d").str.join("; ").alias("detail"))
+        .select(
+            "building_id",
+            pl.lit("likely_unit_error").alias("code"),
+            (pl.lit("reading(s) about 10×, 100× or 1000× off the building's own history: ") + pl.col("detail")).alias(
+                "detail"
+            ),
+            pl.lit(True).alias("blocking"),
+        )
+        .sort("building_id")
+    )
 
 
-def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float, isolation: float = 1.0
-                        ) -> pl.DataFrame:
+def _fit_outlier_issues(
+    periods: pl.DataFrame, met: pl.DataFrame, factor: float, isolation: float = 1.0
+) -> pl.DataFrame:
     """Bills far off the building's own weather fit (code ``bill_off_fit``, blocking).
 
     Each fitted bill's use per day is compared with what the building's variable-base fit
@@ -438,42 +539,83 @@ def _fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float,
     (:func:`_spike`): when waste begins inside the fitted months, the fit mixes before and after,
     and a whole run of bills sits off it together (a step, not a data fault).
     """
-    empty = pl.DataFrame(schema={"building_id": pl.String, "code": pl.String, "detail": pl.String,
-                                 "blocking": pl.Boolean})
+    empty = pl.DataFrame(
+        schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
+    )
     if periods.height == 0 or "hdd_per_day_fit" not in periods.columns:
         return empty
     fit = met.filter(pl.col("fit_method") == "regression").select(
-        "building_id", pl.col("baseload_kbtu_per_day").fill_null(0.0).alias("_a"),
-        pl.col("heating_slope_kbtu_per_dd").fill_null(0.0).alias("_b"))
-    p = periods.filter(pl.col("usable")).join(fit, on="building_id", how="inner").with_columns(
-        (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
-        (pl.col("_a") + pl.col("_b") * pl.col("hdd_per_day_fit")).alias("_pred"))
+        "building_id",
+        pl.col("baseload_kbtu_per_day").fill_null(0.0).alias("_a"),
+        pl.col("heating_slope_kbtu_per_dd").fill_null(0.0).alias("_b"),
+    )
+    p = (
+        periods.filter(pl.col("usable"))
+        .join(fit, on="building_id", how="inner")
+        .with_columns(
+            (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
+            (pl.col("_a") + pl.col("_b") * pl.col("hdd_per_day_fit")).alias("_pred"),
+        )
+    )
     p = p.sort("building_id", "period_start", "period_end").with_columns(
         pl.col("_upd").median().over("building_id").alias("_bmed"),
-        pl.when((pl.col("_pred") > 0) & (pl.col("_upd") > 0)).then(pl.col("_upd") / pl.col("_pred")).alias("_q"))
+        pl.when((pl.col("_pred") > 0) & (pl.col("_upd") > 0)).then(pl.col("_upd") / pl.col("_pred")).alias("_q"),
+    )
     p = p.with_columns(_spike(pl.col("_q"), ["building_id"], isolation).alias("_spike"))
-    odd = p.filter((pl.col("_pred") > 0) & (pl.col("_upd") > 0) & pl.col("_spike") & (
-        ((pl.col("_upd") >= factor * pl.col("_pred")) & (pl.col("_upd") >= 0.5 * pl.col("_bmed")))
-        | ((pl.col("_upd") * factor <= pl.col("_pred")) & (pl.col("_pred") >= 0.5 * pl.col("_bmed")))))
+    odd = p.filter(
+        (pl.col("_pred") > 0)
+        & (pl.col("_upd") > 0)
+        & pl.col("_spike")
+        & (
+            ((pl.col("_upd") >= factor * pl.col("_pred")) & (pl.col("_upd") >= 0.5 * pl.col("_bmed")))
+            | ((pl.col("_upd") * factor <= pl.col("_pred")) & (pl.col("_pred") >= 0.5 * pl.col("_bmed")))
+        )
+    )
     if odd.height == 0:
         return empty
     odd = odd.sort("building_id", "period_start").with_columns(
-        (pl.col("period_start").cast(pl.String) + pl.lit("–") + pl.col("period_end").cast(pl.String)
-         + pl.lit(" (") + (pl.col("_upd") / pl.col("_pred")).round(2).cast(pl.String)
-         + pl.lit("× what the building's weather fit predicts)")).alias("_d"))
-    return odd.group_by("building_id").agg(pl.col("_d").str.join("; ").alias("detail")).select(
-        "building_id", pl.lit("bill_off_fit").alias("code"),
-        (pl.lit("bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
-                "after estimated reads, a meter change, or weeks the building stood empty): ")
-         + pl.col("detail")).alias("detail"),
-        pl.lit(True).alias("blocking")).sort("building_id")
+        (
+            pl.col("period_start").cast(pl.String)
+            + pl.lit("–")
+            + pl.col("period_end").cast(pl.String)
+            + pl.lit(" (")
+            + (pl.col("_upd") / pl.col("_pred")).round(2).cast(pl.String)
+            + pl.lit("× what the building's weather fit predicts)")
+        ).alias("_d")
+    )
+    return (
+        odd.group_by("building_id")
+        .agg(pl.col("_d").str.join("; ").alias("detail"))
+        .select(
+            "building_id",
+            pl.lit("bill_off_fit").alias("code"),
+            (
+                pl.lit(
+                    "bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
+                    "after estimated reads, a meter change, or weeks the building stood empty): "
+                )
+                + pl.col("detail")
+            ).alias("detail"),
+            pl.lit(True).alias("blocking"),
+        )
+        .sort("building_id")
+    )
 
 
-def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSource, weather: pl.DataFrame,
-                  cfg: dict, *, window: tuple[_dt.date, _dt.date], paths: dict | None = None,
-                  previous: pl.DataFrame | None = None, events: pl.DataFrame | None = None,
-                  plan_context: pl.DataFrame | None = None, chunk_buildings: int = 0,
-                  fit_block: int | None = None) -> Screened:
+def screen_frames(
+    buildings: pl.DataFrame,
+    readings: pl.DataFrame | ReadingsSource,
+    weather: pl.DataFrame,
+    cfg: dict,
+    *,
+    window: tuple[_dt.date, _dt.date],
+    paths: dict | None = None,
+    previous: pl.DataFrame | None = None,
+    events: pl.DataFrame | None = None,
+    plan_context: pl.DataFrame | None = None,
+    chunk_buildings: int = 0,
+    fit_block: int | None = None,
+) -> Screened:
     """Screen a portfolio (canonical IP frames, see DEVELOPERS.md).
 
     ``previous`` is an earlier run's results (``building_id, normal_heating_kbtu``) for
@@ -508,8 +650,11 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
     rejects = pl.concat([rejects, _unknown_building_rejects(source.others(b["building_id"]), paths)])
     b = b.drop("_file", strict=False).sort("building_id")
     if b.height == 0:
-        raise InputError(paths.get("buildings", "buildings"), "no building could be screened",
-                         expected="at least one accepted building with a known weather station")
+        raise InputError(
+            paths.get("buildings", "buildings"),
+            "no building could be screened",
+            expected="at least one accepted building with a known weather station",
+        )
     ws, we = window
 
     # weather: short gaps filled, long ones reported; the degree-day cube for every base
@@ -520,7 +665,6 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
     if years is not None:
         _check_normal_years(normals, b, weather, a["normal_years"])
     lap("degree_days")
-
 
     # the defaults' bias learned from audited buildings: a portfolio statistic, before the chunks (issue 17)
     learned = _audit_bias(b, cfg["learning"]["min_audits"])
@@ -533,28 +677,51 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
     for c0 in range(0, b.height, max(size, 1)):
         bc = b.slice(c0, size)
         rc = source(bc["building_id"])
-        parts.append(_screen_part(bc, rc, weather, cfg, cube=cube, normals=normals, gaps=gaps, grid=grid,
-                                  window=window, paths=paths, previous=previous, plan_context=plan_context,
-                                  events=events, chunked=chunked, fit_block=fit_block, lap=lap, learned=learned))
+        parts.append(
+            _screen_part(
+                bc,
+                rc,
+                weather,
+                cfg,
+                cube=cube,
+                normals=normals,
+                gaps=gaps,
+                grid=grid,
+                window=window,
+                paths=paths,
+                previous=previous,
+                plan_context=plan_context,
+                events=events,
+                chunked=chunked,
+                fit_block=fit_block,
+                lap=lap,
+                learned=learned,
+            )
+        )
         del rc
     del source
     if chunked and not any(p.covered for p in parts):
         firsts = [p.first for p in parts if p.first is not None]
         lasts = [p.last for p in parts if p.last is not None]
-        _no_building_screenable_counts(sum(p.n_conv for p in parts), sum(p.n_readings for p in parts),
-                                       min(firsts) if firsts else None, max(lasts) if lasts else None,
-                                       window, paths)
+        _no_building_screenable_counts(
+            sum(p.n_conv for p in parts),
+            sum(p.n_readings for p in parts),
+            min(firsts) if firsts else None,
+            max(lasts) if lasts else None,
+            window,
+            paths,
+        )
     frame = pl.concat([p.frame for p in parts], how="vertical_relaxed") if len(parts) > 1 else parts[0].frame
     rejects = pl.concat([rejects, *[p.rejects for p in parts]])
     issues_df = pl.concat([p.issues for p in parts]) if len(parts) > 1 else parts[0].issues
     periods = pl.concat([p.periods for p in parts], how="vertical_relaxed") if len(parts) > 1 else parts[0].periods
-    envelope = pl.concat([p.envelope for p in parts], how="vertical_relaxed") if len(parts) > 1 \
-        else parts[0].envelope
+    envelope = pl.concat([p.envelope for p in parts], how="vertical_relaxed") if len(parts) > 1 else parts[0].envelope
     saved, saved_periods = None, None
     if events is not None:
         saved = pl.concat([p.savings for p in parts if p.savings is not None], how="vertical_relaxed")
-        saved_periods = pl.concat([p.savings_periods for p in parts if p.savings_periods is not None],
-                                  how="vertical_relaxed")
+        saved_periods = pl.concat(
+            [p.savings_periods for p in parts if p.savings_periods is not None], how="vertical_relaxed"
+        )
     ctx_parts = [p.plan_context for p in parts if p.plan_context is not None]
     measure_ctx = pl.concat(ctx_parts, how="vertical_relaxed") if ctx_parts else None
     del parts
@@ -562,19 +729,42 @@ def screen_frames(buildings: pl.DataFrame, readings: pl.DataFrame | ReadingsSour
 
     # the portfolio pass: peer statistics, year-on-year z, the ranking
     units_ip = cfg["analysis"]["units"] == "IP"
-    results = screen.screen(frame, thr, plan=cfg["plan"], currency=cfg["prices"]["currency"], energy_factor=1.0 if units_ip else KBTU_TO_KWH,
-                            energy_unit="kBtu" if units_ip else "kWh")
+    results = screen.screen(
+        frame,
+        thr,
+        plan=cfg["plan"],
+        currency=cfg["prices"]["currency"],
+        energy_factor=1.0 if units_ip else KBTU_TO_KWH,
+        energy_unit="kBtu" if units_ip else "kWh",
+    )
     if measure_ctx is not None and "_measure_date" in measure_ctx.columns:  # the measure's note in the verdict
         said = measure_ctx.filter(pl.col("_measure_date").is_not_null()).select(
-            "building_id", pl.col("plan_note").alias("_mnote"))
-        results = results.join(said, on="building_id", how="left", maintain_order="left").with_columns(
-            pl.when(pl.col("_mnote").is_not_null())
-            .then(pl.col("verdict") + pl.lit(" After the ") + pl.col("_mnote") + pl.lit("."))
-            .otherwise(pl.col("verdict")).alias("verdict")).drop("_mnote")
+            "building_id", pl.col("plan_note").alias("_mnote")
+        )
+        results = (
+            results.join(said, on="building_id", how="left", maintain_order="left")
+            .with_columns(
+                pl.when(pl.col("_mnote").is_not_null())
+                .then(pl.col("verdict") + pl.lit(" After the ") + pl.col("_mnote") + pl.lit("."))
+                .otherwise(pl.col("verdict"))
+                .alias("verdict")
+            )
+            .drop("_mnote")
+        )
     lap("screening")
-    return Screened(results=results, rejects=rejects, issues=issues_df, periods=periods.drop("station_id"),
-                    envelope=envelope, window=window, timings=timings, normal_years=normals.years_used,
-                    savings=saved, savings_periods=saved_periods, learning=learned)
+    return Screened(
+        results=results,
+        rejects=rejects,
+        issues=issues_df,
+        periods=periods.drop("station_id"),
+        envelope=envelope,
+        window=window,
+        timings=timings,
+        normal_years=normals.years_used,
+        savings=saved,
+        savings_periods=saved_periods,
+        learning=learned,
+    )
 
 
 @dataclass
@@ -596,37 +786,75 @@ class _Part:
     n_readings: int = 0
 
 
-def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: dict, *, cube, normals,
-                 gaps: pl.DataFrame, grid: np.ndarray, window: tuple[_dt.date, _dt.date], paths: dict,
-                 previous: pl.DataFrame | None, plan_context: pl.DataFrame | None,
-                 events: pl.DataFrame | None, chunked: bool, fit_block: int, lap,
-                 learned: pl.DataFrame | None = None) -> _Part:
+def _screen_part(
+    b: pl.DataFrame,
+    r: pl.DataFrame,
+    weather: pl.DataFrame,
+    cfg: dict,
+    *,
+    cube,
+    normals,
+    gaps: pl.DataFrame,
+    grid: np.ndarray,
+    window: tuple[_dt.date, _dt.date],
+    paths: dict,
+    previous: pl.DataFrame | None,
+    plan_context: pl.DataFrame | None,
+    events: pl.DataFrame | None,
+    chunked: bool,
+    fit_block: int,
+    lap,
+    learned: pl.DataFrame | None = None,
+) -> _Part:
     """The per-building work for the buildings ``b`` (sorted) and their checked readings ``r``."""
     a = cfg["analysis"]
     ws, we = window
     part = _Part()
     # metered side
-    conv, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=a["gas_btu_per_ft3"],
-                                          steam_btu_per_lb=a["steam_btu_per_lb"])
+    conv, conv_rej = units.convert_to_kbtu(
+        r, b, gas_btu_per_ft3=a["gas_btu_per_ft3"], steam_btu_per_lb=a["steam_btu_per_lb"]
+    )
     n_readings = r.height
     del r
     billed = units.billed_units(conv)  # the bills' own unit per building (sheets and ranking.csv)
     conv = conv.select([c for c in _CONV_KEEP if c in conv.columns])  # what the later steps read (not _file)
     rejects = REJECTS_EMPTY
     if conv_rej.height:
-        rejects = pl.concat([rejects, conv_rej.select(_source(conv_rej, paths, "readings").alias("file"),
-                                                      "line", "column", pl.col("value").cast(pl.String), "reason")
-                             .cast(REJECT_SCHEMA)])
+        rejects = pl.concat(
+            [
+                rejects,
+                conv_rej.select(
+                    _source(conv_rej, paths, "readings").alias("file"),
+                    "line",
+                    "column",
+                    pl.col("value").cast(pl.String),
+                    "reason",
+                ).cast(REJECT_SCHEMA),
+            ]
+        )
     thr = cfg["thresholds"]
-    spans = metered.choose_spans(conv, ws, we, lookback_months=a["lookback_months"],
-                                 min_coverage=thr["coverage_min"], building_ids=b["building_id"],
-                                 fill_end_days=a["fill_end_days"])
+    spans = metered.choose_spans(
+        conv,
+        ws,
+        we,
+        lookback_months=a["lookback_months"],
+        min_coverage=thr["coverage_min"],
+        building_ids=b["building_id"],
+        fill_end_days=a["fill_end_days"],
+    )
     if plan_context is not None:
         plan_context = plan_context.filter(pl.col("building_id").is_in(b["building_id"].implode()))
     if plan_context is not None and plan_context.height and "_judge_from" in plan_context.columns:
         # issue 17: a building with a measure in the window is judged on the days after it (events.plan_context)
-        spans, plan_context = _post_measure_spans(conv, spans, plan_context, we, lookback_months=a["lookback_months"],
-                                                  min_coverage=thr["coverage_min"], fill_end_days=a["fill_end_days"])
+        spans, plan_context = _post_measure_spans(
+            conv,
+            spans,
+            plan_context,
+            we,
+            lookback_months=a["lookback_months"],
+            min_coverage=thr["coverage_min"],
+            fill_end_days=a["fill_end_days"],
+        )
     part.plan_context = plan_context
     part.covered = bool((spans["coverage"].fill_null(0.0) > 0).any())
     if conv.height:
@@ -641,15 +869,16 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
     periods = metered.fit_periods(conv, spans, lookback_months=a["lookback_months"])
     if plan_context is not None and "_judge_from" in plan_context.columns:  # post-measure bills only (issue 17)
         jf = plan_context.filter(pl.col("_judge_from").is_not_null()).select("building_id", "_judge_from")
-        periods = periods.join(jf, on="building_id", how="left", maintain_order="left").filter(
-            pl.col("_judge_from").is_null() | (pl.col("period_start") >= pl.col("_judge_from"))).drop("_judge_from")
-    periods = periods.join(b.select("building_id", "station_id"), on="building_id", how="left",
-                           maintain_order="left")
+        periods = (
+            periods.join(jf, on="building_id", how="left", maintain_order="left")
+            .filter(pl.col("_judge_from").is_null() | (pl.col("period_start") >= pl.col("_judge_from")))
+            .drop("_judge_from")
+        )
+    periods = periods.join(b.select("building_id", "station_id"), on="building_id", how="left", maintain_order="left")
     period_hdd: _PeriodHdd | np.ndarray
     if periods.height:
         period_hdd = _PeriodHdd(cube, periods)  # rows computed a block at a time, never all at once
-        periods = periods.with_columns(
-            (pl.col("usable") & pl.Series(period_hdd.missing() == 0)).alias("usable"))
+        periods = periods.with_columns((pl.col("usable") & pl.Series(period_hdd.missing() == 0)).alias("usable"))
     else:
         period_hdd = np.zeros((0, grid.size))
     normal_hdd = normals.for_stations(st)
@@ -658,24 +887,39 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
     envelope = env.estimate_envelope(b)
     lap("envelope")
     eff = envelope["efficiency"].to_numpy()
-    met = metered.metered_heating(conv, spans.drop("station_id"), b, periods=periods.drop("station_id"),
-                                  period_hdd=period_hdd, span_hdd=span_hdd, normal_hdd=normal_hdd,
-                                  base_grid_f=grid, efficiency=eff,
-                                  engineering_base_f=envelope["balance_point_f"].to_numpy(),
-                                  method=a["calendarization"], fill_hdd=fill_hdd,
-                                  daily_weights=_daily_weights(cube, spans, conv, envelope)
-                                  if a["calendarization"] == "degree_days" else None, fit_block=fit_block)
+    met = metered.metered_heating(
+        conv,
+        spans.drop("station_id"),
+        b,
+        periods=periods.drop("station_id"),
+        period_hdd=period_hdd,
+        span_hdd=span_hdd,
+        normal_hdd=normal_hdd,
+        base_grid_f=grid,
+        efficiency=eff,
+        engineering_base_f=envelope["balance_point_f"].to_numpy(),
+        method=a["calendarization"],
+        fill_hdd=fill_hdd,
+        daily_weights=_daily_weights(cube, spans, conv, envelope) if a["calendarization"] == "degree_days" else None,
+        fit_block=fit_block,
+    )
     lap("regression")
     if periods.height:
         fb = periods.select("building_id").join(
-            met.select("building_id", "fitted_base_f"), on="building_id", how="left", maintain_order="left")
-        fb = fb.join(envelope.select("building_id", "balance_point_f"), on="building_id", how="left",
-                     maintain_order="left")
-        base = np.where(np.isfinite(fb["fitted_base_f"].fill_null(np.nan).to_numpy()),
-                        fb["fitted_base_f"].fill_null(np.nan).to_numpy(), fb["balance_point_f"].to_numpy())
+            met.select("building_id", "fitted_base_f"), on="building_id", how="left", maintain_order="left"
+        )
+        fb = fb.join(
+            envelope.select("building_id", "balance_point_f"), on="building_id", how="left", maintain_order="left"
+        )
+        base = np.where(
+            np.isfinite(fb["fitted_base_f"].fill_null(np.nan).to_numpy()),
+            fb["fitted_base_f"].fill_null(np.nan).to_numpy(),
+            fb["balance_point_f"].to_numpy(),
+        )
         assert isinstance(period_hdd, _PeriodHdd)  # set so above whenever there are periods
         periods = periods.with_columns(
-            pl.Series("hdd_per_day_fit", period_hdd.at(nearest_base(grid, base)) / periods["days"].to_numpy()))
+            pl.Series("hdd_per_day_fit", period_hdd.at(nearest_base(grid, base)) / periods["days"].to_numpy())
+        )
     hdd65 = cube.at_base(st, spans["span_start"], spans["span_end"], np.full(len(st), 65.0))[0]
     exp = env.expected_heating(envelope, grid, span_hdd, hdd_fixed_base=hdd65, n_draws=a["draws"], seed=a["seed"])
     if learned is not None and bool(learned["applied"].any()):  # issue 17: the defaults corrected by the audits
@@ -686,14 +930,21 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
     # data issues
     # (the days filled at a span's end are their own issue, end_days_filled, not a gap in the reads)
     read_spans = spans.drop("station_id").with_columns(
-        (pl.col("span_end") - pl.duration(days=pl.col("filled_days"))).alias("span_end"))
-    issues = [metered.reading_issues(conv, read_spans, lookback_months=a["lookback_months"],
-                                     min_coverage=thr["coverage_min"],
-                                     max_estimated_share=thr["estimated_share_max"]),
-              _missing_bill_issues(conv, spans, window),
-              _filled_end_issues(met),
-              _unit_error_issues(conv, b, thr["unit_error_factor"], isolation=thr["unit_error_isolation"]),
-              _fit_outlier_issues(periods, met, thr["unit_error_factor_fit"], thr["unit_error_isolation"])]
+        (pl.col("span_end") - pl.duration(days=pl.col("filled_days"))).alias("span_end")
+    )
+    issues = [
+        metered.reading_issues(
+            conv,
+            read_spans,
+            lookback_months=a["lookback_months"],
+            min_coverage=thr["coverage_min"],
+            max_estimated_share=thr["estimated_share_max"],
+        ),
+        _missing_bill_issues(conv, spans, window),
+        _filled_end_issues(met),
+        _unit_error_issues(conv, b, thr["unit_error_factor"], isolation=thr["unit_error_isolation"]),
+        _fit_outlier_issues(periods, met, thr["unit_error_factor_fit"], thr["unit_error_isolation"]),
+    ]
     wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
     # a station without a single day of weather in the span: its own issue, not a gap
     no_wx = wgap.filter(pl.col("missing") >= pl.col("span_days"))
@@ -705,50 +956,101 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
         issues.append(_no_weather_issues(no_wx, weather))
     no_read = spans.join(conv.select("building_id").unique(), on="building_id", how="anti")
     if no_read.height:
-        issues.append(no_read.select("building_id", pl.lit("no_readings").alias("code"),
-                                     pl.lit(ISSUE_TEXT["no_readings"]).alias("detail"),
-                                     pl.lit(True).alias("blocking")))
+        issues.append(
+            no_read.select(
+                "building_id",
+                pl.lit("no_readings").alias("code"),
+                pl.lit(ISSUE_TEXT["no_readings"]).alias("detail"),
+                pl.lit(True).alias("blocking"),
+            )
+        )
     other_only = _other_fuel_only(conv, b)
     if other_only.height:
         issues.append(other_only)
-    issues_df = pl.concat([i.select("building_id", "code", "detail", "blocking") for i in issues]) \
-        .unique().sort("building_id", "code")
+    issues_df = (
+        pl.concat([i.select("building_id", "code", "detail", "blocking") for i in issues])
+        .unique()
+        .sort("building_id", "code")
+    )
     # where the span is the window, missing_bills names the days a gap in the span would name again
     named = issues_df.filter(pl.col("code") == "missing_bills").join(
-        spans.filter(pl.col("span_kind") != "shifted").select("building_id"), on="building_id")["building_id"]
+        spans.filter(pl.col("span_kind") != "shifted").select("building_id"), on="building_id"
+    )["building_id"]
     issues_df = issues_df.filter(~((pl.col("code") == "gap_in_reads") & pl.col("building_id").is_in(named.implode())))
     issues_df = issues_df.with_columns(  # whether an issue blocks a verdict: declared once, DATA_ISSUE_CODES
-        pl.col("code").replace_strict(DATA_ISSUE_CODES, return_dtype=pl.Boolean).alias("blocking"))
-    if other_only.height:   # "0 % covered" says nothing more than "no reading in the heating fuel"
-        issues_df = issues_df.filter(~((pl.col("code") == "low_coverage")
-                                       & pl.col("building_id").is_in(other_only["building_id"].implode())))
+        pl.col("code").replace_strict(DATA_ISSUE_CODES, return_dtype=pl.Boolean).alias("blocking")
+    )
+    if other_only.height:  # "0 % covered" says nothing more than "no reading in the heating fuel"
+        issues_df = issues_df.filter(
+            ~((pl.col("code") == "low_coverage") & pl.col("building_id").is_in(other_only["building_id"].implode()))
+        )
 
     # assemble and screen
     shares = refdata.load("baseload_shares")
-    frame = (b.select("building_id", "name", "station_id", "use_type", "floor_area_ft2", "year_built",
-                      "heating_fuel", "price", "address", "city")
-             .join(met, on="building_id", how="left", maintain_order="left")
-             .join(exp, on="building_id", how="left", maintain_order="left")
-             .join(envelope.select("building_id", "era", "envelope_source", "balance_point_f", "efficiency",
-                                   *[c for c in envelope.columns if c.startswith("ua_")]),
-                   on="building_id", how="left", maintain_order="left"))
+    frame = (
+        b.select(
+            "building_id",
+            "name",
+            "station_id",
+            "use_type",
+            "floor_area_ft2",
+            "year_built",
+            "heating_fuel",
+            "price",
+            "address",
+            "city",
+        )
+        .join(met, on="building_id", how="left", maintain_order="left")
+        .join(exp, on="building_id", how="left", maintain_order="left")
+        .join(
+            envelope.select(
+                "building_id",
+                "era",
+                "envelope_source",
+                "balance_point_f",
+                "efficiency",
+                *[c for c in envelope.columns if c.startswith("ua_")],
+            ),
+            on="building_id",
+            how="left",
+            maintain_order="left",
+        )
+    )
     frame = frame.with_columns(pl.Series("hdd65", hdd65), pl.Series("hdd_balance", hdd_bal))
     frame = frame.with_columns(
-        pl.when(pl.col("heating_fuel") == "electricity").then(pl.lit("electricity"))
-        .otherwise(pl.lit("combustion")).alias("_fc"))
-    frame = frame.join(shares.select(pl.col("use_type"), pl.col("fuel_class").alias("_fc"),
-                                     pl.col("nonheating_share").cast(pl.Float64).alias("baseload_share_default")),
-                       on=["use_type", "_fc"], how="left", maintain_order="left").drop("_fc")
+        pl.when(pl.col("heating_fuel") == "electricity")
+        .then(pl.lit("electricity"))
+        .otherwise(pl.lit("combustion"))
+        .alias("_fc")
+    )
+    frame = frame.join(
+        shares.select(
+            pl.col("use_type"),
+            pl.col("fuel_class").alias("_fc"),
+            pl.col("nonheating_share").cast(pl.Float64).alias("baseload_share_default"),
+        ),
+        on=["use_type", "_fc"],
+        how="left",
+        maintain_order="left",
+    ).drop("_fc")
     frame = frame.with_columns(
-        pl.when(pl.col("total_fuel_kbtu") > 0).then(pl.col("baseload_kbtu") / pl.col("total_fuel_kbtu"))
-        .otherwise(None).alias("baseload_share"))
+        pl.when(pl.col("total_fuel_kbtu") > 0)
+        .then(pl.col("baseload_kbtu") / pl.col("total_fuel_kbtu"))
+        .otherwise(None)
+        .alias("baseload_share")
+    )
     frame = frame.join(_prices(b, cfg), on="building_id", how="left", maintain_order="left")
     frame = frame.join(billed, on="building_id", how="left", maintain_order="left")
-    frame = frame.join(_year_over_year(conv, spans, met, cube, normals, grid), on="building_id", how="left",
-                       maintain_order="left")
+    frame = frame.join(
+        _year_over_year(conv, spans, met, cube, normals, grid), on="building_id", how="left", maintain_order="left"
+    )
     if previous is not None and previous.height:
-        frame = frame.join(previous.select("building_id", pl.col("normal_heating_kbtu").alias("prev_normal_heating_kbtu")),
-                           on="building_id", how="left", maintain_order="left")
+        frame = frame.join(
+            previous.select("building_id", pl.col("normal_heating_kbtu").alias("prev_normal_heating_kbtu")),
+            on="building_id",
+            how="left",
+            maintain_order="left",
+        )
     else:
         frame = frame.with_columns(pl.lit(None, dtype=pl.Float64).alias("prev_normal_heating_kbtu"))
     # a ratio that far off the expectation is a data problem, not waste
@@ -756,53 +1058,89 @@ def _screen_part(b: pl.DataFrame, r: pl.DataFrame, weather: pl.DataFrame, cfg: d
     ratio = pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")
     # (only a finite ratio over a positive expectation; a missing fuel or missing weather has its own issue)
     no_basis = issues_df.filter(pl.col("code").is_in(list(NO_BASIS_CODES)))["building_id"].implode()
-    far = frame.filter(((ratio >= uf) | (ratio <= 1 / thr["unit_error_factor_expected_low"]))
-                       & (pl.col("expected_heating_kbtu") > 0) & ratio.is_finite()
-                       & ~pl.col("building_id").is_in(no_basis)).select(
-        "building_id", pl.lit("likely_unit_error").alias("code"),
-        (pl.lit("metered heating is ")
-         + pl.when(ratio >= 10).then(ratio.round(0).cast(pl.Int64).cast(pl.String))
-         .otherwise(ratio.round_sig_figs(3).cast(pl.String))
-         + pl.lit("× the expectation: check the units (")
-         + pl.col("heating_fuel").replace_strict(UNIT_MIXUPS, default="the unit column against the bills")
-         + pl.lit(") and the floor area")
-         + pl.when((pl.col("heating_fuel") == "electricity") & (ratio < 1))
-         .then(pl.lit("; for electric heat also a heat pump (give its seasonal COP as heating_efficiency) "
-                      "or a meter whose lights, plugs and cooling leave little to heating"))
-         .otherwise(pl.lit(""))).alias("detail"),
-        pl.lit(True).alias("blocking"))
-    issues_df = pl.concat([issues_df, far]).unique(subset=["building_id", "code"], keep="first") \
-        .sort("building_id", "code")
-    agg = issues_df.group_by("building_id").agg(pl.col("blocking").any().alias("blocking"),
-                                                pl.col("code").sort().alias("data_issue_codes"),
-                                                pl.col("detail").sort_by("code").alias("data_issue_texts"))
+    far = frame.filter(
+        ((ratio >= uf) | (ratio <= 1 / thr["unit_error_factor_expected_low"]))
+        & (pl.col("expected_heating_kbtu") > 0)
+        & ratio.is_finite()
+        & ~pl.col("building_id").is_in(no_basis)
+    ).select(
+        "building_id",
+        pl.lit("likely_unit_error").alias("code"),
+        (
+            pl.lit("metered heating is ")
+            + pl.when(ratio >= 10)
+            .then(ratio.round(0).cast(pl.Int64).cast(pl.String))
+            .otherwise(ratio.round_sig_figs(3).cast(pl.String))
+            + pl.lit("× the expectation: check the units (")
+            + pl.col("heating_fuel").replace_strict(UNIT_MIXUPS, default="the unit column against the bills")
+            + pl.lit(") and the floor area")
+            + pl.when((pl.col("heating_fuel") == "electricity") & (ratio < 1))
+            .then(
+                pl.lit(
+                    "; for electric heat also a heat pump (give its seasonal COP as heating_efficiency) "
+                    "or a meter whose lights, plugs and cooling leave little to heating"
+                )
+            )
+            .otherwise(pl.lit(""))
+        ).alias("detail"),
+        pl.lit(True).alias("blocking"),
+    )
+    issues_df = (
+        pl.concat([issues_df, far]).unique(subset=["building_id", "code"], keep="first").sort("building_id", "code")
+    )
+    agg = issues_df.group_by("building_id").agg(
+        pl.col("blocking").any().alias("blocking"),
+        pl.col("code").sort().alias("data_issue_codes"),
+        pl.col("detail").sort_by("code").alias("data_issue_texts"),
+    )
     frame = frame.join(agg, on="building_id", how="left", maintain_order="left").with_columns(
         pl.col("blocking").fill_null(False),
         pl.col("data_issue_codes").fill_null(pl.lit([], dtype=pl.List(pl.String))),
-        pl.col("data_issue_texts").fill_null(pl.lit([], dtype=pl.List(pl.String))))
+        pl.col("data_issue_texts").fill_null(pl.lit([], dtype=pl.List(pl.String))),
+    )
     # no metered heating without heating-fuel readings, no expectation without weather: shown as n/a
-    no_fuel = pl.col("data_issue_codes").list.set_intersection(["no_readings", "no_heating_fuel_readings"]) \
-        .list.len() > 0
+    no_fuel = (
+        pl.col("data_issue_codes").list.set_intersection(["no_readings", "no_heating_fuel_readings"]).list.len() > 0
+    )
     no_weather = pl.col("data_issue_codes").list.contains("no_weather_at_station")
     frame = frame.with_columns(
         pl.when(no_fuel).then(None).otherwise(pl.col("actual_heating_kbtu")).alias("actual_heating_kbtu"),
-        *[pl.when(no_weather).then(None).otherwise(pl.col(c)).alias(c)
-          for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")])
+        *[
+            pl.when(no_weather).then(None).otherwise(pl.col(c)).alias(c)
+            for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu")
+        ],
+    )
     if plan_context is not None:  # issue 17: events.plan_context (audits that found nothing, confirmed findings)
         frame = frame.join(plan_context, on="building_id", how="left", maintain_order="left")
         if "_measure_in_years" in frame.columns:  # the drop after a measure is savings, not a change on last year
             no_yoy = pl.col("_measure_in_years").fill_null(False)
-            frame = frame.with_columns([pl.when(no_yoy).then(None).otherwise(pl.col(c)).alias(c)
-                                        for c in ("yoy_change", "prev_normal_heating_kbtu") if c in frame.columns])
+            frame = frame.with_columns(
+                [
+                    pl.when(no_yoy).then(None).otherwise(pl.col(c)).alias(c)
+                    for c in ("yoy_change", "prev_normal_heating_kbtu")
+                    if c in frame.columns
+                ]
+            )
     lap("screening")  # the data issues and the frame: counted with the screening, as in one pass
     part.savings = None
     if events is not None:  # savings after a measure (issue 17): screening/events.py, screening/savings.py
         from . import events as ev
+
         sc = cfg["savings"]
         part.savings, part.savings_periods = ev.savings_with_periods(
-            conv, b, cube, normals, grid, events.filter(pl.col("building_id").is_in(b["building_id"].implode())),
-            _prices(b, cfg), window_end=we, blackout_days=sc["blackout_days"],
-            min_periods=sc["baseline_min_periods"], cv_max=sc["cv_rmse_max"], nmbe_max=sc["nmbe_max"])
+            conv,
+            b,
+            cube,
+            normals,
+            grid,
+            events.filter(pl.col("building_id").is_in(b["building_id"].implode())),
+            _prices(b, cfg),
+            window_end=we,
+            blackout_days=sc["blackout_days"],
+            min_periods=sc["baseline_min_periods"],
+            cv_max=sc["cv_rmse_max"],
+            nmbe_max=sc["nmbe_max"],
+        )
         lap("savings")
     part.frame, part.issues, part.periods, part.envelope, part.rejects = frame, issues_df, periods, envelope, rejects
     return part
@@ -815,33 +1153,59 @@ def _audit_bias(b: pl.DataFrame, min_audits: int) -> pl.DataFrame | None:
     """The defaults' bias per era x use type from the buildings' audited values (``learning.audit_bias``);
     None when no building has one. The defaults are the envelope estimate with the audited values left out."""
     from . import learning
+
     cols = [c for c in _AUDITED if c in b.columns]
     if not cols or not bool(b.select(pl.any_horizontal([pl.col(c).is_not_null() for c in cols])).to_series().any()):
         return None
     envelope = env.estimate_envelope(b)
     dflt = env.estimate_envelope(b.with_columns([pl.lit(None, dtype=pl.Float64).alias(c) for c in cols]))
-    given = b.select("building_id", *[pl.col(c).cast(pl.Float64) if c in cols else pl.lit(None, dtype=pl.Float64)
-                                      .alias(c) for c in _AUDITED]).join(
-        envelope.select("building_id", "era", "use_type"), on="building_id", how="inner")
+    given = b.select(
+        "building_id",
+        *[pl.col(c).cast(pl.Float64) if c in cols else pl.lit(None, dtype=pl.Float64).alias(c) for c in _AUDITED],
+    ).join(envelope.select("building_id", "era", "use_type"), on="building_id", how="inner")
     return learning.audit_bias(given, dflt, min_audits=min_audits)
 
 
 def _apply_bias(exp: pl.DataFrame, b: pl.DataFrame, envelope: pl.DataFrame, learned: pl.DataFrame) -> pl.DataFrame:
     """The expected heating of buildings without their own audited UA or efficiency, times the learned factor."""
     from . import learning
-    eff_given = (b.select("building_id", pl.col("heating_efficiency").is_not_null().alias("efficiency_given"))
-                 if "heating_efficiency" in b.columns else b.select("building_id", pl.lit(False).alias("efficiency_given")))
-    fr = envelope.select("building_id", "era", "use_type", pl.col("ua_parts_scaled").alias("ua_given")).join(
-        eff_given, on="building_id", how="left", maintain_order="left").with_columns(pl.col("efficiency_given").fill_null(False))
+
+    eff_given = (
+        b.select("building_id", pl.col("heating_efficiency").is_not_null().alias("efficiency_given"))
+        if "heating_efficiency" in b.columns
+        else b.select("building_id", pl.lit(False).alias("efficiency_given"))
+    )
+    fr = (
+        envelope.select("building_id", "era", "use_type", pl.col("ua_parts_scaled").alias("ua_given"))
+        .join(eff_given, on="building_id", how="left", maintain_order="left")
+        .with_columns(pl.col("efficiency_given").fill_null(False))
+    )
     f = learning.expectation_factors(fr, learned)["learned_factor"]
-    cols = [c for c in ("expected_heating_kbtu", "expected_low_kbtu", "expected_high_kbtu", "expected_point_kbtu",
-                        "expected_fixed_base_kbtu", "expected_modified_kbtu") if c in exp.columns]
+    cols = [
+        c
+        for c in (
+            "expected_heating_kbtu",
+            "expected_low_kbtu",
+            "expected_high_kbtu",
+            "expected_point_kbtu",
+            "expected_fixed_base_kbtu",
+            "expected_modified_kbtu",
+        )
+        if c in exp.columns
+    ]
     return exp.with_columns([pl.col(c) * f for c in cols])
 
 
-def _post_measure_spans(conv: pl.DataFrame, spans: pl.DataFrame, ctx: pl.DataFrame, window_end: _dt.date, *,
-                        lookback_months: int, min_coverage: float,
-                        fill_end_days: int) -> tuple[pl.DataFrame, pl.DataFrame]:
+def _post_measure_spans(
+    conv: pl.DataFrame,
+    spans: pl.DataFrame,
+    ctx: pl.DataFrame,
+    window_end: _dt.date,
+    *,
+    lookback_months: int,
+    min_coverage: float,
+    fill_end_days: int,
+) -> tuple[pl.DataFrame, pl.DataFrame]:
     """The spans of buildings judged on their post-measure days (``events.plan_context`` ``_judge_from``).
 
     Each such span becomes ``[_judge_from, window_end]`` when the bills cover it (rule 1 of
@@ -854,9 +1218,15 @@ def _post_measure_spans(conv: pl.DataFrame, spans: pl.DataFrame, ctx: pl.DataFra
     new = []
     for (day,), grp in jf.group_by("_judge_from", maintain_order=True):  # one call per measure day, not per building
         ids = grp["building_id"]
-        s = metered.choose_spans(conv.filter(pl.col("building_id").is_in(ids.implode())), day, window_end,
-                                 lookback_months=lookback_months, min_coverage=min_coverage, building_ids=ids,
-                                 fill_end_days=fill_end_days)
+        s = metered.choose_spans(
+            conv.filter(pl.col("building_id").is_in(ids.implode())),
+            day,
+            window_end,
+            lookback_months=lookback_months,
+            min_coverage=min_coverage,
+            building_ids=ids,
+            fill_end_days=fill_end_days,
+        )
         new.append(s.filter(pl.col("span_kind") == "window").select(spans.columns))
     cut = pl.concat(new).cast(spans.schema)
     ok = cut["building_id"].implode()
@@ -864,11 +1234,19 @@ def _post_measure_spans(conv: pl.DataFrame, spans: pl.DataFrame, ctx: pl.DataFra
     failed = pl.col("_judge_from").is_not_null() & ~pl.col("building_id").is_in(ok)
     ctx = ctx.with_columns(
         pl.when(failed).then(pl.lit(True)).otherwise(pl.col("_measure_recent")).alias("_measure_recent"),
-        pl.when(failed).then(pl.lit("measure of ") + pl.col("_measure_date").cast(pl.String)
-                             + pl.lit(": the bills do not cover every day from ") + pl.col("_judge_from").cast(pl.String)
-                             + pl.lit(f" to {window_end}, so it is not judged on its post-measure days and not planned "
-                                      "on the mixed 12 months (its savings are in savings.csv)"))
-        .otherwise(pl.col("plan_note")).alias("plan_note"),
+        pl.when(failed)
+        .then(
+            pl.lit("measure of ")
+            + pl.col("_measure_date").cast(pl.String)
+            + pl.lit(": the bills do not cover every day from ")
+            + pl.col("_judge_from").cast(pl.String)
+            + pl.lit(
+                f" to {window_end}, so it is not judged on its post-measure days and not planned "
+                "on the mixed 12 months (its savings are in savings.csv)"
+            )
+        )
+        .otherwise(pl.col("plan_note"))
+        .alias("plan_note"),
     ).with_columns(pl.when(failed).then(None).otherwise(pl.col("_judge_from")).alias("_judge_from"))
     return spans, ctx
 
@@ -883,13 +1261,19 @@ def _check_normal_years(normals, b: pl.DataFrame, weather: pl.DataFrame, ny: lis
     missing = [s for s in used if not normals.years_used.get(s)]
     if not missing:
         return
-    rng = weather.filter(pl.col("station_id").is_in(missing)).group_by("station_id").agg(
-        pl.col("date").min().alias("a"), pl.col("date").max().alias("b")).sort("station_id")
+    rng = (
+        weather.filter(pl.col("station_id").is_in(missing))
+        .group_by("station_id")
+        .agg(pl.col("date").min().alias("a"), pl.col("date").max().alias("b"))
+        .sort("station_id")
+    )
     have = "; ".join(f"{r['station_id']} has weather {r['a']} to {r['b']}" for r in rng.head(3).iter_rows(named=True))
     more = f" and {len(missing) - 3} more" if len(missing) > 3 else ""
-    raise ConfigError(f"config key [analysis] normal_years: got {ny!r}; no complete year of weather in "
-                      f"{ny[0]}–{ny[1]} at station(s) {', '.join(missing[:3])}{more} ({have}); "
-                      "expected years the weather files cover (or leave it empty for every complete year)")
+    raise ConfigError(
+        f"config key [analysis] normal_years: got {ny!r}; no complete year of weather in "
+        f"{ny[0]}–{ny[1]} at station(s) {', '.join(missing[:3])}{more} ({have}); "
+        "expected years the weather files cover (or leave it empty for every complete year)"
+    )
 
 
 def _no_building_screenable(conv: pl.DataFrame, n_readings: int, window, lookback: int, paths: dict) -> None:
@@ -908,14 +1292,17 @@ def _no_building_screenable_counts(n_conv: int, n_readings: int, first, last, wi
         span = "no reading converts to energy (see rejects)"
     else:
         span = "no reading was accepted"
-    raise InputError(paths.get("readings", "readings"),
-                     f"no building can be screened: no heating-fuel reading covers any day of the analysis "
-                     f"window {ws} to {we} ({span})",
-                     expected="readings for the window (check --as-of / --from / --to)")
+    raise InputError(
+        paths.get("readings", "readings"),
+        f"no building can be screened: no heating-fuel reading covers any day of the analysis "
+        f"window {ws} to {we} ({span})",
+        expected="readings for the window (check --as-of / --from / --to)",
+    )
 
 
-def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, cube, normals,
-                    grid: np.ndarray) -> pl.DataFrame:
+def _year_over_year(
+    conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, cube, normals, grid: np.ndarray
+) -> pl.DataFrame:
     """Weather-normalized heating of the span against the 12 months before it, from the readings.
 
     For buildings with a regression fit (baseload α per day, base τ) and readings covering both
@@ -933,22 +1320,37 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
     ``prev_fuel_kbtu``: the heating fuel's whole use over the 12 months before the span (not weather
     normalized), where the readings cover them.
     """
-    fit = met.filter((((pl.col("fit_method") == "regression") & pl.col("fitted_base_f").is_not_null())
-                      | ((pl.col("fit_method") == "default share") & pl.col("base_used_f").is_not_null()))
-                     & (pl.col("coverage") + pl.col("filled_days") / _span_days() >= 0.99)).select(
-        "building_id", pl.coalesce("fitted_base_f", "base_used_f").alias("fitted_base_f"),
-        pl.col("baseload_kbtu_per_day").fill_null(0.0), "actual_heating_kbtu",
-        pl.when(pl.col("fit_method") == "default share").then(pl.col("baseload_share")).otherwise(0.0)
-        .fill_null(0.0).alias("_share"))
+    fit = met.filter(
+        (
+            ((pl.col("fit_method") == "regression") & pl.col("fitted_base_f").is_not_null())
+            | ((pl.col("fit_method") == "default share") & pl.col("base_used_f").is_not_null())
+        )
+        & (pl.col("coverage") + pl.col("filled_days") / _span_days() >= 0.99)
+    ).select(
+        "building_id",
+        pl.coalesce("fitted_base_f", "base_used_f").alias("fitted_base_f"),
+        pl.col("baseload_kbtu_per_day").fill_null(0.0),
+        "actual_heating_kbtu",
+        pl.when(pl.col("fit_method") == "default share")
+        .then(pl.col("baseload_share"))
+        .otherwise(0.0)
+        .fill_null(0.0)
+        .alias("_share"),
+    )
     sp = spans.join(fit, on="building_id", how="inner").with_columns(
         pl.col("span_start").dt.offset_by("-1y").alias("prev_start"),
-        (pl.col("span_start") - pl.duration(days=1)).alias("prev_end"))
+        (pl.col("span_start") - pl.duration(days=1)).alias("prev_end"),
+    )
     if sp.height == 0:
         return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64, "prev_fuel_kbtu": pl.Float64})
-    prev = metered.calendarize(conv, sp.select("building_id", pl.col("prev_start").alias("span_start"),
-                                               pl.col("prev_end").alias("span_end")))
-    prev = prev.filter(pl.col("is_heating_fuel")).group_by("building_id").agg(
-        pl.col("energy_kbtu").sum().alias("e_prev"), pl.col("coverage").min().alias("cov_prev"))
+    prev = metered.calendarize(
+        conv, sp.select("building_id", pl.col("prev_start").alias("span_start"), pl.col("prev_end").alias("span_end"))
+    )
+    prev = (
+        prev.filter(pl.col("is_heating_fuel"))
+        .group_by("building_id")
+        .agg(pl.col("energy_kbtu").sum().alias("e_prev"), pl.col("coverage").min().alias("cov_prev"))
+    )
     sp = sp.join(prev, on="building_id", how="inner").filter(pl.col("cov_prev") >= 0.99)
     if sp.height == 0:
         return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64, "prev_fuel_kbtu": pl.Float64})
@@ -959,15 +1361,18 @@ def _year_over_year(conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, 
     j = nearest_base(grid, tau)
     hdd_norm = normals.for_stations(st)[np.arange(st.size), j]
     days_prev = (sp["prev_end"] - sp["prev_start"]).dt.total_days().to_numpy() + 1
-    heat_prev = np.maximum(sp["e_prev"].to_numpy() * (1.0 - sp["_share"].to_numpy())
-                           - sp["baseload_kbtu_per_day"].to_numpy() * days_prev, 0.0)
+    heat_prev = np.maximum(
+        sp["e_prev"].to_numpy() * (1.0 - sp["_share"].to_numpy()) - sp["baseload_kbtu_per_day"].to_numpy() * days_prev,
+        0.0,
+    )
     with np.errstate(divide="ignore", invalid="ignore"):
         norm_prev = heat_prev * hdd_norm / hdd_prev
         norm_cur = sp["actual_heating_kbtu"].to_numpy() * hdd_norm / hdd_cur
         yoy = norm_cur / norm_prev - 1.0
     ok = np.isfinite(yoy) & (miss_prev == 0) & (norm_prev > 0)
-    return pl.DataFrame({"building_id": sp["building_id"], "yoy_change": np.where(ok, yoy, np.nan),
-                         "prev_fuel_kbtu": sp["e_prev"]}).with_columns(pl.col("yoy_change").fill_nan(None))
+    return pl.DataFrame(
+        {"building_id": sp["building_id"], "yoy_change": np.where(ok, yoy, np.nan), "prev_fuel_kbtu": sp["e_prev"]}
+    ).with_columns(pl.col("yoy_change").fill_nan(None))
 
 
 def _span_days() -> pl.Expr:
@@ -990,74 +1395,123 @@ def _missing_bill_issues(conv: pl.DataFrame, spans: pl.DataFrame, window) -> pl.
     ws, we = window
     g = metered.missing_bills(conv, ws, we, spans=spans)
     g = g.with_columns(
-        (pl.when(pl.col("meter_id").is_null()).then(pl.lit(""))
-         .otherwise(pl.lit("meter ") + pl.col("meter_id") + pl.lit(" ")))
-        .alias("_m"))
+        (
+            pl.when(pl.col("meter_id").is_null())
+            .then(pl.lit(""))
+            .otherwise(pl.lit("meter ") + pl.col("meter_id") + pl.lit(" "))
+        ).alias("_m")
+    )
     g = g.with_columns(pl.format("{}{}..{} ({} days)", "_m", "gap_start", "gap_end", "days").alias("_d"))
     t = ISSUE_TEXT["missing_bills"].replace("{window_start}", str(ws)).replace("{window_end}", str(we))
     head, tail = t.split("{gaps}")
-    return g.group_by("building_id", maintain_order=True).agg(pl.col("_d").str.join("; ")).select(
-        "building_id", pl.lit("missing_bills").alias("code"),
-        (pl.lit(head) + pl.col("_d") + pl.lit(tail)).alias("detail"),
-        pl.lit(False).alias("blocking")).sort("building_id")
+    return (
+        g.group_by("building_id", maintain_order=True)
+        .agg(pl.col("_d").str.join("; "))
+        .select(
+            "building_id",
+            pl.lit("missing_bills").alias("code"),
+            (pl.lit(head) + pl.col("_d") + pl.lit(tail)).alias("detail"),
+            pl.lit(False).alias("blocking"),
+        )
+        .sort("building_id")
+    )
 
 
 def _filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
     """Spans whose last days had no reading yet and were filled (``end_days_filled``)."""
     f = met.filter(pl.col("filled_days") > 0)
-    src = (pl.when(pl.col("fit_method") == "regression").then(pl.lit("the building's own weather fit"))
-           .otherwise(pl.lit("the days and degree days of its read part (no weather fit)")))
+    src = (
+        pl.when(pl.col("fit_method") == "regression")
+        .then(pl.lit("the building's own weather fit"))
+        .otherwise(pl.lit("the days and degree days of its read part (no weather fit)"))
+    )
     share = (100 * pl.col("filled_kbtu") / pl.col("total_fuel_kbtu")).round(1).fill_nan(0.0).fill_null(0.0)
     t = ISSUE_TEXT["end_days_filled"]
     for k in ("{days}", "{fill_start}", "{span_end}", "{source}", "{share}"):
         t = t.replace(k, "{}")
-    return f.select("building_id", pl.lit("end_days_filled").alias("code"),
-                    pl.format(t, "filled_days",
-                              (pl.col("span_end") - pl.duration(days=pl.col("filled_days") - 1)).cast(pl.String),
-                              pl.col("span_end").cast(pl.String), src, share).alias("detail"),
-                    pl.lit(False).alias("blocking")).sort("building_id")
+    return f.select(
+        "building_id",
+        pl.lit("end_days_filled").alias("code"),
+        pl.format(
+            t,
+            "filled_days",
+            (pl.col("span_end") - pl.duration(days=pl.col("filled_days") - 1)).cast(pl.String),
+            pl.col("span_end").cast(pl.String),
+            src,
+            share,
+        ).alias("detail"),
+        pl.lit(False).alias("blocking"),
+    ).sort("building_id")
 
 
 def _other_fuel_only(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
     """Buildings whose readings are all of fuels other than their heating fuel (``no_heating_fuel_readings``)."""
-    per = conv.group_by("building_id").agg(pl.col("is_heating_fuel").any().alias("_any"),
-                                           pl.col("fuel").unique().sort().str.join(", ").alias("_fuels"))
+    per = conv.group_by("building_id").agg(
+        pl.col("is_heating_fuel").any().alias("_any"), pl.col("fuel").unique().sort().str.join(", ").alias("_fuels")
+    )
     per = per.filter(~pl.col("_any")).join(b.select("building_id", "heating_fuel"), on="building_id")
     t = ISSUE_TEXT["no_heating_fuel_readings"]
-    return per.select("building_id", pl.lit("no_heating_fuel_readings").alias("code"),
-                      pl.format(t.replace("{fuels}", "{}").replace("{heating_fuel}", "{}"),
-                                pl.col("_fuels"), pl.col("heating_fuel")).alias("detail"),
-                      pl.lit(True).alias("blocking")).sort("building_id")
+    return per.select(
+        "building_id",
+        pl.lit("no_heating_fuel_readings").alias("code"),
+        pl.format(
+            t.replace("{fuels}", "{}").replace("{heating_fuel}", "{}"), pl.col("_fuels"), pl.col("heating_fuel")
+        ).alias("detail"),
+        pl.lit(True).alias("blocking"),
+    ).sort("building_id")
 
 
 def _no_weather_issues(no_wx: pl.DataFrame, weather: pl.DataFrame) -> pl.DataFrame:
     """Buildings whose station has no weather on any day of the span (``no_weather_at_station``)."""
     rec = weather.group_by("station_id").agg(
-        (pl.lit("its weather runs ") + pl.col("date").min().cast(pl.String) + pl.lit(" to ")
-         + pl.col("date").max().cast(pl.String)).alias("_rec"))
-    j = no_wx.join(rec, on="station_id", how="left").with_columns(
-        pl.col("_rec").fill_null("no weather at all"))
+        (
+            pl.lit("its weather runs ")
+            + pl.col("date").min().cast(pl.String)
+            + pl.lit(" to ")
+            + pl.col("date").max().cast(pl.String)
+        ).alias("_rec")
+    )
+    j = no_wx.join(rec, on="station_id", how="left").with_columns(pl.col("_rec").fill_null("no weather at all"))
     t = ISSUE_TEXT["no_weather_at_station"]
     for k in ("{station_id}", "{span_start}", "{span_end}", "{record}"):
         t = t.replace(k, "{}")
-    return j.select("building_id", pl.lit("no_weather_at_station").alias("code"),
-                    pl.format(t, "station_id", pl.col("span_start").cast(pl.String),
-                              pl.col("span_end").cast(pl.String), "_rec").alias("detail"),
-                    pl.lit(True).alias("blocking")).sort("building_id")
+    return j.select(
+        "building_id",
+        pl.lit("no_weather_at_station").alias("code"),
+        pl.format(
+            t, "station_id", pl.col("span_start").cast(pl.String), pl.col("span_end").cast(pl.String), "_rec"
+        ).alias("detail"),
+        pl.lit(True).alias("blocking"),
+    ).sort("building_id")
 
 
 def _gap_details(gaps: pl.DataFrame, wgap: pl.DataFrame) -> pl.DataFrame:
     j = wgap.select("building_id", "station_id", "span_start", "span_end", "missing").join(
-        gaps, on="station_id", how="left")
-    j = j.filter(pl.col("gap_start").is_null() | ((pl.col("gap_start") <= pl.col("span_end"))
-                                                 & (pl.col("gap_end") >= pl.col("span_start"))))
-    j = j.with_columns(pl.when(pl.col("gap_start").is_null()).then(pl.lit("outside the station's record"))
-                       .otherwise(pl.col("gap_start").cast(pl.String) + pl.lit("–") + pl.col("gap_end").cast(pl.String))
-                       .alias("_d"))
-    return j.group_by("building_id").agg(pl.col("missing").first(), pl.col("_d").unique().sort().str.join("; ")) \
-        .select("building_id", pl.lit("weather_gap").alias("code"),
-                (pl.col("missing").cast(pl.String) + pl.lit(" day(s) of the span have no weather data: ") + pl.col("_d"))
-                .alias("detail"), pl.lit(True).alias("blocking")).sort("building_id")
+        gaps, on="station_id", how="left"
+    )
+    j = j.filter(
+        pl.col("gap_start").is_null()
+        | ((pl.col("gap_start") <= pl.col("span_end")) & (pl.col("gap_end") >= pl.col("span_start")))
+    )
+    j = j.with_columns(
+        pl.when(pl.col("gap_start").is_null())
+        .then(pl.lit("outside the station's record"))
+        .otherwise(pl.col("gap_start").cast(pl.String) + pl.lit("–") + pl.col("gap_end").cast(pl.String))
+        .alias("_d")
+    )
+    return (
+        j.group_by("building_id")
+        .agg(pl.col("missing").first(), pl.col("_d").unique().sort().str.join("; "))
+        .select(
+            "building_id",
+            pl.lit("weather_gap").alias("code"),
+            (
+                pl.col("missing").cast(pl.String) + pl.lit(" day(s) of the span have no weather data: ") + pl.col("_d")
+            ).alias("detail"),
+            pl.lit(True).alias("blocking"),
+        )
+        .sort("building_id")
+    )
 
 
 def _daily_weights(cube, spans: pl.DataFrame, conv: pl.DataFrame, envelope: pl.DataFrame) -> pl.DataFrame:
@@ -1065,17 +1519,25 @@ def _daily_weights(cube, spans: pl.DataFrame, conv: pl.DataFrame, envelope: pl.D
 
     The weights of the degree-day proration option of :func:`screening.metered.calendarize`.
     """
-    rng = conv.group_by("building_id").agg(pl.col("period_start").min().alias("s"),
-                                           pl.col("period_end").max().alias("e"))
-    rng = spans.select("building_id", "station_id").join(rng, on="building_id", how="inner") \
-        .join(envelope.select("building_id", "balance_point_f"), on="building_id").sort("building_id")
+    rng = conv.group_by("building_id").agg(
+        pl.col("period_start").min().alias("s"), pl.col("period_end").max().alias("e")
+    )
+    rng = (
+        spans.select("building_id", "station_id")
+        .join(rng, on="building_id", how="inner")
+        .join(envelope.select("building_id", "balance_point_f"), on="building_id")
+        .sort("building_id")
+    )
     d = cube.daily(rng["station_id"].to_numpy(), rng["s"], rng["e"])
     j = nearest_base(cube.bases_f, rng["balance_point_f"].to_numpy())
     w = d.dd[np.arange(d.row.size), j[d.row]]
-    return pl.DataFrame({"building_id": rng["building_id"].to_numpy()[d.row],
-                         "date": d.date.astype("datetime64[D]"),
-                         "weight": np.where(d.missing, np.nan, w)}).with_columns(
-        pl.col("weight").fill_nan(None))
+    return pl.DataFrame(
+        {
+            "building_id": rng["building_id"].to_numpy()[d.row],
+            "date": d.date.astype("datetime64[D]"),
+            "weight": np.where(d.missing, np.nan, w),
+        }
+    ).with_columns(pl.col("weight").fill_nan(None))
 
 
 def _prices(b: pl.DataFrame, cfg: dict) -> pl.DataFrame:
@@ -1085,16 +1547,35 @@ def _prices(b: pl.DataFrame, cfg: dict) -> pl.DataFrame:
     rows = []
     for r in pu.iter_rows(named=True):
         fuel, unit = r["fuel"], r["price_unit"]
-        kbtu_per_unit = units.btu_per_unit(unit, fuel, heat_contents={
-            "natural_gas": cfg["analysis"]["gas_btu_per_ft3"],
-            "district_steam": cfg["analysis"]["steam_btu_per_lb"]}) / 1000.0
+        kbtu_per_unit = (
+            units.btu_per_unit(
+                unit,
+                fuel,
+                heat_contents={
+                    "natural_gas": cfg["analysis"]["gas_btu_per_ft3"],
+                    "district_steam": cfg["analysis"]["steam_btu_per_lb"],
+                },
+            )
+            / 1000.0
+        )
         kg = float(ef.filter(pl.col("fuel") == fuel)["kg_co2e_per_mmbtu"][0]) / 1000.0
         if fuel == "electricity" and cfg["emissions"]["electricity_kg_co2e_per_kwh"] is not None:
             kg = cfg["emissions"]["electricity_kg_co2e_per_kwh"] / units.btu_per_unit("kWh", fuel) * 1000.0
-        rows.append({"heating_fuel": fuel, "_kbtu_per_unit": kbtu_per_unit,
-                     "_price": float(cfg["prices"][fuel]), "kg_co2e_per_kbtu": kg})
+        rows.append(
+            {
+                "heating_fuel": fuel,
+                "_kbtu_per_unit": kbtu_per_unit,
+                "_price": float(cfg["prices"][fuel]),
+                "kg_co2e_per_kbtu": kg,
+            }
+        )
     table = pl.DataFrame(rows)
-    return b.select("building_id", "heating_fuel", "price").join(table, on="heating_fuel", how="left").select(
-        "building_id",
-        (pl.coalesce(pl.col("price"), pl.col("_price")) / pl.col("_kbtu_per_unit")).alias("usd_per_kbtu"),
-        "kg_co2e_per_kbtu")
+    return (
+        b.select("building_id", "heating_fuel", "price")
+        .join(table, on="heating_fuel", how="left")
+        .select(
+            "building_id",
+            (pl.coalesce(pl.col("price"), pl.col("_price")) / pl.col("_kbtu_per_unit")).alias("usd_per_kbtu"),
+            "kg_co2e_per_kbtu",
+        )
+    )

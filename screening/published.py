@@ -24,8 +24,8 @@ from .store import Store
 
 log = logging.getLogger("ddscreen")
 
-ANCHOR = "run.log"           # the file whose hash identifies the run that wrote a folder (it names the run)
-LATEST = "latest"            # the link to the newest quarter in an output root
+ANCHOR = "run.log"  # the file whose hash identifies the run that wrote a folder (it names the run)
+LATEST = "latest"  # the link to the newest quarter in an output root
 
 
 def _base(store: Store) -> Path:
@@ -109,23 +109,29 @@ def check_target(store: Store | None, target: Path, label: str, *, force: bool) 
     if target.exists() and not target.is_dir():
         raise ConfigError(f"{target}: exists and is not a folder; nothing was changed (choose another output folder)")
     if target.is_symlink():
-        raise ConfigError(f"{target}: is a link, not a folder ddscreen wrote; nothing was changed "
-                          "(choose another output folder)")
+        raise ConfigError(
+            f"{target}: is a link, not a folder ddscreen wrote; nothing was changed (choose another output folder)"
+        )
     found = entries(target)
     if not found:
         return
     files = recorded_files(store, target) if store is not None else None
     if files is None:
-        raise ConfigError(f"{target}: holds files ddscreen did not write ({_few(found)}); nothing was changed "
-                          "(choose a new or empty output folder)")
+        raise ConfigError(
+            f"{target}: holds files ddscreen did not write ({_few(found)}); nothing was changed "
+            "(choose a new or empty output folder)"
+        )
     if not force:
-        raise ConfigError(f"{target} already holds the outputs of {label}; nothing was changed "
-                          "(use --force to replace them)")
+        raise ConfigError(
+            f"{target} already holds the outputs of {label}; nothing was changed (use --force to replace them)"
+        )
     other = foreign(target, files)
     if other:
-        raise ConfigError(f"{target}: holds files ddscreen did not write or that were changed since "
-                          f"({_few(other)}); --force replaces only a folder exactly as ddscreen wrote it; "
-                          "move them elsewhere first; nothing was changed")
+        raise ConfigError(
+            f"{target}: holds files ddscreen did not write or that were changed since "
+            f"({_few(other)}); --force replaces only a folder exactly as ddscreen wrote it; "
+            "move them elsewhere first; nothing was changed"
+        )
 
 
 def check_latest_slot(root: Path) -> None:
@@ -134,8 +140,10 @@ def check_latest_slot(root: Path) -> None:
     if link.is_symlink() or not link.exists():
         return
     kind = "folder" if link.is_dir() else "file"
-    raise ConfigError(f"{link}: is a {kind} that ddscreen did not write, where it keeps the link to the newest "
-                      f"quarter; rename it; nothing was changed")
+    raise ConfigError(
+        f"{link}: is a {kind} that ddscreen did not write, where it keeps the link to the newest "
+        f"quarter; rename it; nothing was changed"
+    )
 
 
 def settle_dead_runs(store: Store) -> list[str]:
@@ -150,9 +158,17 @@ def settle_dead_runs(store: Store) -> list[str]:
         folder = folder_of(out_dir, store)
         rec = json.loads(files) if files else {}
         done = ANCHOR in rec and matches(folder, rec, ANCHOR)
-        store.execute("set_run_status", {"run_id": run_id, "status": "ok" if done else "interrupted",
-                                         "message": "" if done else "the process ended while publishing"})
-        notes.append(f"run {shown} ended while publishing: marked {'ok (its outputs are in place)' if done else 'interrupted'}")
+        store.execute(
+            "set_run_status",
+            {
+                "run_id": run_id,
+                "status": "ok" if done else "interrupted",
+                "message": "" if done else "the process ended while publishing",
+            },
+        )
+        notes.append(
+            f"run {shown} ended while publishing: marked {'ok (its outputs are in place)' if done else 'interrupted'}"
+        )
     store.execute("mark_stale_runs")
     return notes
 
@@ -226,8 +242,9 @@ def prune(root: Path, keep: int, store: Store, *, current: Path) -> list[str]:
     for folder, files in [(p, f) for p, f in _owned_folders(store, root)[keep:] if p != cur]:
         left = remove_recorded(folder, files)
         if left:
-            notes.append(f"kept {folder}: it holds files ddscreen did not write ({_few(left)}); "
-                         "its own files were removed")
+            notes.append(
+                f"kept {folder}: it holds files ddscreen did not write ({_few(left)}); its own files were removed"
+            )
         else:
             notes.append(f"removed {folder} (older than the {keep} newest quarters)")
     return notes

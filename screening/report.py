@@ -51,8 +51,16 @@ from .errors import OutputError, RenderError
 from .resources import templates_dir
 
 __all__ = [
-    "RenderError", "AssetFetcher", "safe_filename", "assign_filenames", "render_sheets", "render_ranking",
-    "sheet_view", "fmt_num", "STANDARD_CAUTION", "PAPERS",
+    "RenderError",
+    "AssetFetcher",
+    "safe_filename",
+    "assign_filenames",
+    "render_sheets",
+    "render_ranking",
+    "sheet_view",
+    "fmt_num",
+    "STANDARD_CAUTION",
+    "PAPERS",
 ]
 
 LOGGER = logging.getLogger(__name__)
@@ -70,13 +78,21 @@ STANDARD_CAUTION = (
 )
 
 
-
 # --------------------------------------------------------------------------------------
 # file names
 
 
-_WINDOWS_RESERVED = {"CON", "PRN", "AUX", "NUL", "CLOCK$", "CONIN$", "CONOUT$",
-                     *(f"COM{i}" for i in "0123456789¹²³"), *(f"LPT{i}" for i in "0123456789¹²³")}
+_WINDOWS_RESERVED = {
+    "CON",
+    "PRN",
+    "AUX",
+    "NUL",
+    "CLOCK$",
+    "CONIN$",
+    "CONOUT$",
+    *(f"COM{i}" for i in "0123456789¹²³"),
+    *(f"LPT{i}" for i in "0123456789¹²³"),
+}
 _UNSAFE = re.compile(r"[^A-Za-z0-9._-]+")
 _MAX_READABLE = 60
 _HASH_LEN = 10
@@ -160,8 +176,7 @@ def _fetcher_class():
         """
 
         def __init__(self, root: Path | None = None, *, fatal: bool = True):
-            super().__init__(timeout=2, allowed_protocols={"file", "data"}, allow_redirects=False,
-                             fail_on_errors=fatal)
+            super().__init__(timeout=2, allowed_protocols={"file", "data"}, allow_redirects=False, fail_on_errors=fatal)
             self.root = Path(root or templates_dir()).resolve()
             self.requested: list[str] = []
             self.refused: list[str] = []
@@ -265,8 +280,10 @@ _BIDI_CONTROLS = re.compile(r"[\u202a-\u202e\u2066-\u2069]")
 #: Runs of more than two combining diacritical marks on one letter (U+0300-036F, U+1AB0-1AFF, U+1DC0-1DFF,
 #: U+20D0-20FF, U+FE20-FE2F): no written language stacks more (Vietnamese stacks two), and a tall stack
 #: would reach into the line above or below, so displayed text keeps the first two of a run.
-_MARK_RUN = re.compile(r"([\u0300-\u036f\u1ab0-\u1aff\u1dc0-\u1dff\u20d0-\u20ff\ufe20-\ufe2f]{2})"
-                       r"[\u0300-\u036f\u1ab0-\u1aff\u1dc0-\u1dff\u20d0-\u20ff\ufe20-\ufe2f]+")
+_MARK_RUN = re.compile(
+    r"([\u0300-\u036f\u1ab0-\u1aff\u1dc0-\u1dff\u20d0-\u20ff\ufe20-\ufe2f]{2})"
+    r"[\u0300-\u036f\u1ab0-\u1aff\u1dc0-\u1dff\u20d0-\u20ff\ufe20-\ufe2f]+"
+)
 
 
 def _cut(text, n: int) -> str:
@@ -288,13 +305,25 @@ _LIMITS = [
 ]
 MAX_LEVEL = len(_LIMITS) - 1
 
-_PART_NAMES = {"walls": "walls", "windows": "windows", "roof": "roof", "ground": "ground floor",
-               "infiltration": "air leakage", "ventilation": "ventilation air"}
+_PART_NAMES = {
+    "walls": "walls",
+    "windows": "windows",
+    "roof": "roof",
+    "ground": "ground floor",
+    "infiltration": "air leakage",
+    "ventilation": "ventilation air",
+}
 # looked up by a sheet record's field, which may be missing (None)
-_SPAN_NOTE: dict[str | None, str] = {"window": "", "shifted": "moved to the months the readings cover",
-                                     "uncovered": "readings do not cover the whole window"}
-_BAND_TEXT: dict[str | None, str] = {"below": "below the expected band", "within": "within the expected band",
-                                     "above": "above the expected band"}
+_SPAN_NOTE: dict[str | None, str] = {
+    "window": "",
+    "shifted": "moved to the months the readings cover",
+    "uncovered": "readings do not cover the whole window",
+}
+_BAND_TEXT: dict[str | None, str] = {
+    "below": "below the expected band",
+    "within": "within the expected band",
+    "above": "above the expected band",
+}
 
 
 def _items(seq, n_items, n_chars):
@@ -305,8 +334,9 @@ def _items(seq, n_items, n_chars):
         label = x.get("label") or ""
         if not label and x.get("blocking"):
             label = "Blocks a verdict"
-        shown.append({"label": _cut(label[:1].upper() + label[1:], 80),
-                      "explanation": _cut(x.get("explanation"), n_chars)})
+        shown.append(
+            {"label": _cut(label[:1].upper() + label[1:], 80), "explanation": _cut(x.get("explanation"), n_chars)}
+        )
     return shown, len(seq) - len(shown)
 
 
@@ -336,7 +366,8 @@ def _strip_img(svg: str, rows: int) -> Markup:
 
     data = base64.b64encode(svg.encode("utf-8")).decode("ascii")
     return Markup('<img class="bars" alt="bars" style="height: {}em" src="data:image/svg+xml;base64,{}">').format(
-        f"{1.25 * rows:.2f}", data)
+        f"{1.25 * rows:.2f}", data
+    )
 
 
 _FIGURE_SPACE = "\u2007"  # as wide as a digit
@@ -352,17 +383,25 @@ def _share_cell(share: str) -> str:
 #: a key figure's column: a quarter of A4's content width (186 mm) less a 2 mm gap [pt]
 _FIG_COL_PT = (_CONTENT_MM["A4"] / 4 - 2) * 72 / 25.4
 
-_SCALE_TEXT: dict[str | None, str] = {"peers": "its peers' spread",
-                                      "model band": "the model's own band (too few peers)",
-                                      "blend": "a blend of its peers' spread ({pct} %) and the model's own band"}
+_SCALE_TEXT: dict[str | None, str] = {
+    "peers": "its peers' spread",
+    "model band": "the model's own band (too few peers)",
+    "blend": "a blend of its peers' spread ({pct} %) and the model's own band",
+}
 
 
 # --------------------------------------------------------------------------------------
 # the owner's half of a sheet: plain words, the bills' own unit, money (issue 15)
 
-_FUEL_TEXT = {"natural_gas": "natural gas", "fuel_oil": "heating oil", "propane": "propane", "kerosene": "kerosene",
-              "electricity": "electricity", "district_steam": "district steam",
-              "district_hot_water": "district hot water"}
+_FUEL_TEXT = {
+    "natural_gas": "natural gas",
+    "fuel_oil": "heating oil",
+    "propane": "propane",
+    "kerosene": "kerosene",
+    "electricity": "electricity",
+    "district_steam": "district steam",
+    "district_hot_water": "district hot water",
+}
 #: how a billed unit reads in a sentence ("12,400 therms"); units not named here read as they are
 _UNIT_PLURAL = {"therm": "therms", "Dth": "dekatherms", "gal": "gallons", "L": "litres", "lb": "lb"}
 
@@ -373,7 +412,7 @@ _OWNER_VERDICT = {
     "Watch": "Keep an eye on it: there is some excess ({cost} a year), less than an audit visit would cost.",
     "No action": "No action needed: heating is about what a building like this should use.",
     "Fix data first": "Fix the data first: the bills or the building's record have a problem, so the tool "
-                      "cannot judge this building yet.",
+    "cannot judge this building yet.",
 }
 _OWNER_VERDICT_NO_COST = {
     "Audit first": "Book an energy audit this quarter: this building likely wastes heating.",
@@ -410,7 +449,7 @@ def billed_text(s: dict[str, Any], key: str) -> str:
 
 
 def heat_source_text(s: dict[str, Any]) -> str:
-    """"natural gas, billed in therms, seasonal efficiency 80 %" or "electricity (heat pump, seasonal COP 1.94)"."""
+    """ "natural gas, billed in therms, seasonal efficiency 80 %" or "electricity (heat pump, seasonal COP 1.94)"."""
     fuel = s.get("heating_fuel")
     out = _FUEL_TEXT.get(fuel, str(fuel).replace("_", " ")) if fuel else ""
     eff = s.get("efficiency")
@@ -434,8 +473,9 @@ def confidence_line(s: dict[str, Any]) -> str:
     level = 3
     if fit.get("method") != "regression":
         level = 1
-        bad.append("there are too few bills, or bills too long, in the period judged to see how heating "
-                   "follows the weather")
+        bad.append(
+            "there are too few bills, or bills too long, in the period judged to see how heating follows the weather"
+        )
     elif "poor_fit" in codes:
         level = 1
         bad.append("heating does not follow the weather closely, so the figures are rough")
@@ -481,22 +521,29 @@ def owner_verdict(s: dict[str, Any]) -> str:
     low, high = s.get("expected_low_billed"), s.get("expected_high_billed")
     if not (s.get("billed_unit") and _finite(low) and _finite(high)):
         low, high = s.get("expected_low"), s.get("expected_high")
-    unit = _unit_words(s.get("billed_unit"), s.get("energy_unit") or "") if s.get("billed_unit") and _finite(
-        s.get("expected_low_billed")) else (s.get("energy_unit") or "")
-    need = (f"about {fmt_num(low)}" if fmt_num(low) == fmt_num(high) else f"{fmt_num(low)} to {fmt_num(high)}")
-    return (f"{head} Over the {_span_words(s)} it used {used}{money} for heating; a building like it in this weather "
-            f"should need {need} {unit}.")
+    unit = (
+        _unit_words(s.get("billed_unit"), s.get("energy_unit") or "")
+        if s.get("billed_unit") and _finite(s.get("expected_low_billed"))
+        else (s.get("energy_unit") or "")
+    )
+    need = f"about {fmt_num(low)}" if fmt_num(low) == fmt_num(high) else f"{fmt_num(low)} to {fmt_num(high)}"
+    return (
+        f"{head} Over the {_span_words(s)} it used {used}{money} for heating; a building like it in this weather "
+        f"should need {need} {unit}."
+    )
 
 
 #: Where the "likely recoverable" figure comes from (screen.py's views), for the owner: it can exceed the
 #: excess above the range, which is measured against this building's own estimate only.
 _BASIS_TEXT: dict[str | None, str] = {
-    "level": ("The likely recoverable figure compares its heating with what similar buildings use against their "
-              "own estimates, weighted by how sure the evidence is."),
+    "level": (
+        "The likely recoverable figure compares its heating with what similar buildings use against their "
+        "own estimates, weighted by how sure the evidence is."
+    ),
     "step up": "The likely recoverable figure is the rise in its weather-corrected heating on last year, weighted "
-               "by how sure the evidence is.",
+    "by how sure the evidence is.",
     "fuel step": "The likely recoverable figure is the rise in its heating fuel's whole use on last year, weighted "
-                 "by how sure the evidence is.",
+    "by how sure the evidence is.",
 }
 
 
@@ -505,6 +552,7 @@ def _codes_to_words(text: Any) -> Any:
     if not isinstance(text, str):
         return text
     from .schema import DATA_ISSUES, FLAGS
+
     words = {**{c: i.text for c, i in DATA_ISSUES.items()}, **FLAGS}
     return re.sub(r"\b[a-z]+(?:_[a-z0-9]+)+\b", lambda m: words.get(m.group(0), m.group(0)), text)
 
@@ -512,8 +560,10 @@ def _codes_to_words(text: Any) -> Any:
 def _span_words(s: dict[str, Any]) -> str:
     """'12 months', or the days of a shorter span judged (after a measure)."""
     try:
-        days = (_dt.date.fromisoformat(str(s.get("period_end"))[:10])
-                - _dt.date.fromisoformat(str(s.get("period_start"))[:10])).days + 1
+        days = (
+            _dt.date.fromisoformat(str(s.get("period_end"))[:10])
+            - _dt.date.fromisoformat(str(s.get("period_start"))[:10])
+        ).days + 1
     except ValueError:
         return "12 months"
     return "12 months" if days >= 360 else f"{days} days"
@@ -528,28 +578,49 @@ def owner_steps(s: dict[str, Any], n: int) -> tuple[list[str], int]:
         t = str(t)
         if t.startswith("Check the data first:"):
             what = str(first.get("explanation") or "").rstrip(".") if first else ""
-            more = f" (see also the other {len(issues) - 1} problem(s) under 'Data issues' below)" if len(issues) > 1 else ""
-            t = ("Fix the data first" + (f": {what}" if what else "") + more
-                 + ". Correct the readings or the building's record, then run the screening again.")
+            more = (
+                f" (see also the other {len(issues) - 1} problem(s) under 'Data issues' below)"
+                if len(issues) > 1
+                else ""
+            )
+            t = (
+                "Fix the data first"
+                + (f": {what}" if what else "")
+                + more
+                + ". Correct the readings or the building's record, then run the screening again."
+            )
         steps.append(plain_text(t))
     return steps[:n], max(len(steps) - n, 0)
 
 
-def since_measure_view(m: dict[str, Any] | None, paper_energy_unit: str = "", *,
-                       billed_unit: str | None = None, per_billed: float | None = None) -> dict[str, Any] | None:
+def since_measure_view(
+    m: dict[str, Any] | None,
+    paper_energy_unit: str = "",
+    *,
+    billed_unit: str | None = None,
+    per_billed: float | None = None,
+) -> dict[str, Any] | None:
     """The "since the measure" box: a small chart (metered bars, the baseline's dashed line, by billing period)
     and one sentence. ``m`` is the sheet record's ``since_measure`` (None or absent: no box). With
     ``billed_unit`` and ``per_billed`` (display-unit energy per billed unit) the figures are in the bills' unit."""
     if not m:
         return None
     if billed_unit and per_billed and _finite(per_billed) and per_billed > 0:
+
         def conv(x):
             return x / per_billed if _finite(x) else x
-        m = {**m, "energy_unit": _unit_words(billed_unit, billed_unit),
-             "avoided_energy": conv(m.get("avoided_energy")), "avoided_low_90": conv(m.get("avoided_low_90")),
-             "avoided_high_90": conv(m.get("avoided_high_90")),
-             "periods": [{**p, "baseline": conv(p.get("baseline")), "metered": conv(p.get("metered"))}
-                         for p in m.get("periods") or []]}
+
+        m = {
+            **m,
+            "energy_unit": _unit_words(billed_unit, billed_unit),
+            "avoided_energy": conv(m.get("avoided_energy")),
+            "avoided_low_90": conv(m.get("avoided_low_90")),
+            "avoided_high_90": conv(m.get("avoided_high_90")),
+            "periods": [
+                {**p, "baseline": conv(p.get("baseline")), "metered": conv(p.get("metered"))}
+                for p in m.get("periods") or []
+            ],
+        }
     periods = list(m.get("periods") or [])
     labels = []
     for p in periods:
@@ -562,19 +633,24 @@ def since_measure_view(m: dict[str, Any] | None, paper_energy_unit: str = "", *,
     what = _cut(m.get("description") or "a measure", 120)
     if _finite(avoided):
         verb = "saved" if avoided >= 0 else "used"
-        sentence = (f"Since {what} on {m.get('event_date') or 'n/a'}, the building {verb} about "
-                    f"{fmt_num(abs(avoided))} {unit}"
-                    + (f" ({fmt_money(abs(m['cost']), cur)})" if _finite(m.get("cost")) else "")
-                    + (" more" if avoided < 0 else "")
-                    + f" against what it would have used without it, over {len(periods)} billing period(s)")
+        sentence = (
+            f"Since {what} on {m.get('event_date') or 'n/a'}, the building {verb} about "
+            f"{fmt_num(abs(avoided))} {unit}"
+            + (f" ({fmt_money(abs(m['cost']), cur)})" if _finite(m.get("cost")) else "")
+            + (" more" if avoided < 0 else "")
+            + f" against what it would have used without it, over {len(periods)} billing period(s)"
+        )
         if _finite(lo) and _finite(hi):
             sentence += f" (likely between {fmt_num(lo)} and {fmt_num(hi)} {unit}, at 90 % confidence)"
         sentence += "."
     else:
         sentence = f"Since {what} on {m.get('event_date') or 'n/a'}: no saving can be stated yet."
-    return {"chart": svg_img(svg, "metered against the baseline since the measure"), "sentence": sentence,
-            "caption": f"Grey bars: metered per billing period [{unit}]; dashed line: the baseline (what the "
-                       "building would have used without the measure, in the same weather)."}
+    return {
+        "chart": svg_img(svg, "metered against the baseline since the measure"),
+        "sentence": sentence,
+        "caption": f"Grey bars: metered per billing period [{unit}]; dashed line: the baseline (what the "
+        "building would have used without the measure, in the same weather).",
+    }
 
 
 def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
@@ -602,38 +678,74 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         # periods that start in the analysis window are drawn filled, earlier ones of the fit open
         span_start = str(s.get("period_start") or "")
         recent = [bool(span_start) and str(p.get("start") or "") >= span_start for p in periods]
-        chart1 = charts.scatter_chart(xs, ys, fit_line=s.get("fit_line"), expected_line=s.get("expected_line"),
-                                      x_label="", y_label="", width=360, height=150, annotate=False,
-                                      recent=recent)
+        chart1 = charts.scatter_chart(
+            xs,
+            ys,
+            fit_line=s.get("fit_line"),
+            expected_line=s.get("expected_line"),
+            x_label="",
+            y_label="",
+            width=360,
+            height=150,
+            annotate=False,
+            recent=recent,
+        )
         dropped = sum(1 for x, y in zip(xs, ys) if not (_finite(x) and _finite(y)))
         chart1_title = "Heating use against the weather"
         chart1_axes = f"up: use per day [{eu}/day]; across: degree days per day [{dd_unit}/day]"
-        circles = ("Grey circles: billing periods of the window; open circles: earlier periods of the fit."
-                   if any(recent) and not all(recent) else "Circles: billing periods.")
-        chart1_caption = (circles + " Solid line: fitted to the meter data; dashed line: what the "
-                          "envelope (UA) and the weather predict."
-                          + (f" {dropped} period(s) not plotted (missing value)." if dropped else ""))
+        circles = (
+            "Grey circles: billing periods of the window; open circles: earlier periods of the fit."
+            if any(recent) and not all(recent)
+            else "Circles: billing periods."
+        )
+        chart1_caption = (
+            circles + " Solid line: fitted to the meter data; dashed line: what the "
+            "envelope (UA) and the weather predict."
+            + (f" {dropped} period(s) not plotted (missing value)." if dropped else "")
+        )
     else:
         annual = s.get("annual") or []
-        chart1 = charts.annual_chart([str(a.get("year_label")) for a in annual], [a.get("metered") for a in annual],
-                                     [a.get("expected") for a in annual], y_label="", width=360, height=150,
-                                     annotate=False)
+        chart1 = charts.annual_chart(
+            [str(a.get("year_label")) for a in annual],
+            [a.get("metered") for a in annual],
+            [a.get("expected") for a in annual],
+            y_label="",
+            width=360,
+            height=150,
+            annotate=False,
+        )
         chart1_title = "Metered against expected heating, by year"
         chart1_axes = f"up: heating per year [{eu}]"
-        chart1_caption = ("Annual readings only, so no per-period fit. Grey bars: metered; dashed outlines: "
-                          "expected from the envelope (UA) and the weather.")
+        chart1_caption = (
+            "Annual readings only, so no per-period fit. Grey bars: metered; dashed outlines: "
+            "expected from the envelope (UA) and the weather."
+        )
     # a building whose data block a verdict is not placed among its peers (its figure is the data's)
     blocked = bool(s.get("blocking"))
-    chart2 = charts.peer_chart(s.get("peers") or [], None if blocked else s.get("heating_intensity"),
-                               s.get("peer_median_intensity"), x_label="", width=300, height=136, annotate=False)
+    chart2 = charts.peer_chart(
+        s.get("peers") or [],
+        None if blocked else s.get("heating_intensity"),
+        s.get("peer_median_intensity"),
+        x_label="",
+        width=300,
+        height=136,
+        annotate=False,
+    )
     n_peers = len([v for v in (s.get("peers") or []) if _finite(v)])
     chart2_axes = f"across: heating per degree day [{s.get('intensity_unit', '')}]"
     if n_peers:
-        chart2_caption = (f"{n_peers} building(s) in the group" + ("" if blocked else ", this one included") + ": "
-                          + ("one grey tick each" if n_peers <= 80 else "grey bars count buildings")
-                          + "; dashed line: peer median; "
-                          + ("this building is not placed until its data problem is fixed." if blocked
-                             else "black triangle: this building."))
+        chart2_caption = (
+            f"{n_peers} building(s) in the group"
+            + ("" if blocked else ", this one included")
+            + ": "
+            + ("one grey tick each" if n_peers <= 80 else "grey bars count buildings")
+            + "; dashed line: peer median; "
+            + (
+                "this building is not placed until its data problem is fixed."
+                if blocked
+                else "black triangle: this building."
+            )
+        )
     else:
         chart2_caption = "No peer group figures for this building."
 
@@ -641,12 +753,15 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     vals = [p.get("value") for p in parts]
     vmax = max([v for v in vals if _finite(v) and v > 0], default=0.0)
     total = s.get("ua_total")
-    ua_parts = [{
-        "part": _PART_NAMES.get(p.get("part"), _cut(p.get("part"), 30)),
-        "value": fmt_num(v),
-        "pct": f"{100.0 * v / vmax:.1f}" if _finite(v) and v > 0 and vmax > 0 else "0",
-        "share": fmt_pct(v / total, 0) if _finite(v) and v >= 0 and _finite(total) and total > 0 else "",
-    } for p, v in zip(parts, vals)]
+    ua_parts = [
+        {
+            "part": _PART_NAMES.get(p.get("part"), _cut(p.get("part"), 30)),
+            "value": fmt_num(v),
+            "pct": f"{100.0 * v / vmax:.1f}" if _finite(v) and v > 0 and vmax > 0 else "0",
+            "share": fmt_pct(v / total, 0) if _finite(v) and v >= 0 and _finite(total) and total > 0 else "",
+        }
+        for p, v in zip(parts, vals)
+    ]
 
     # the UA and assumption tables are columns of newline-separated text (white-space: pre):
     # one box per column instead of one per cell, measured several times cheaper to lay out
@@ -661,12 +776,16 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     }
 
     asm_all = s.get("assumptions") or []
-    assumptions = [{"name": _cut(a.get("name"), 60),
-                    "value": fmt_num(a.get("value")) if not isinstance(a.get("value"), str) else _cut(a["value"], 20),
-                    "unit": _cut(a.get("unit"), 40),
-                    "origin": "given" if a.get("origin") == "given" else "default",
-                    "origin_class": "given" if a.get("origin") == "given" else "default"}
-                   for a in asm_all[: lim["asm"]]]
+    assumptions = [
+        {
+            "name": _cut(a.get("name"), 60),
+            "value": fmt_num(a.get("value")) if not isinstance(a.get("value"), str) else _cut(a["value"], 20),
+            "unit": _cut(a.get("unit"), 40),
+            "origin": "given" if a.get("origin") == "given" else "default",
+            "origin_class": "given" if a.get("origin") == "given" else "default",
+        }
+        for a in asm_all[: lim["asm"]]
+    ]
 
     asm_cols = {
         "names": "\n".join(_one_line(x["name"], 40) for x in assumptions),
@@ -677,15 +796,21 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
 
     fit = s.get("fit") or {}
     if fit.get("method") == "regression":
-        fit_text = (f"Fit: regression on {fmt_num(fit.get('n_periods'))} periods; R² {fmt_ratio(fit.get('r2'))}, "
-                    f"CV(RMSE) {fmt_pct(fit.get('cv_rmse'))}, NMBE {fmt_pct(fit.get('nmbe'))}; fitted balance point "
-                    f"{fmt_num(fit.get('fitted_base'))} {s.get('temp_unit', '')}; slope {fmt_num(fit.get('slope'))} "
-                    f"{eu} per {s.get('dd_unit', '')}; baseload {fmt_num(fit.get('baseload_per_day'))} {eu}/day.")
+        fit_text = (
+            f"Fit: regression on {fmt_num(fit.get('n_periods'))} periods; R² {fmt_ratio(fit.get('r2'))}, "
+            f"CV(RMSE) {fmt_pct(fit.get('cv_rmse'))}, NMBE {fmt_pct(fit.get('nmbe'))}; fitted balance point "
+            f"{fmt_num(fit.get('fitted_base'))} {s.get('temp_unit', '')}; slope {fmt_num(fit.get('slope'))} "
+            f"{eu} per {s.get('dd_unit', '')}; baseload {fmt_num(fit.get('baseload_per_day'))} {eu}/day."
+        )
     else:
-        fit_text = ("Fit: none (too few periods); heating taken as a default share of the metered total"
-                    f"; baseload {fmt_num(fit.get('baseload_per_day'))} {eu}/day.")
-    fit_text += (f" Degree days {fmt_num(s.get('hdd'))} {s.get('dd_unit', '')} at base "
-                 f"{fmt_num(s.get('base_temperature'))} {s.get('temp_unit', '')}.")
+        fit_text = (
+            "Fit: none (too few periods); heating taken as a default share of the metered total"
+            f"; baseload {fmt_num(fit.get('baseload_per_day'))} {eu}/day."
+        )
+    fit_text += (
+        f" Degree days {fmt_num(s.get('hdd'))} {s.get('dd_unit', '')} at base "
+        f"{fmt_num(s.get('base_temperature'))} {s.get('temp_unit', '')}."
+    )
 
     flags, flags_more = _items(s.get("flags"), lim["flags"], lim["expl"])
     issues, issues_more = _items(s.get("data_issues"), lim["issues"], lim["expl"])
@@ -701,9 +826,9 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     def tabbed(fields, n):
         return "\t".join(_one_line(f, n) for f in fields)
 
-
     blocked_figs = bool(s.get("blocking"))
     not_judged = "not judged until the data are fixed"
+
     # each unit line's parts after the first are dropped, last first, until the line fits its quarter of
     # the narrower paper (A4) at the unit line's size: nothing is cut and no field runs past its tab stop
     def unit_line(parts, size=7.0):
@@ -714,18 +839,49 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
 
     cost = fmt_money(s.get("heating_cost"), cur) if _finite(s.get("heating_cost")) else ""
     figs = [
-        ("fk", tabbed([f"Heating used, {_span_words(s)}", "Should need (middle)", "Above the expected range",
-                       "Likely recoverable"], 60)),
-        ("fv", tabbed([billed_text(s, "actual_heating"), billed_text(s, "expected_heating"),
-                       "not judged" if blocked_figs else billed_text(s, "excess"),
-                       "not judged" if blocked_figs else fmt_money(s.get("expected_recoverable_cost"), cur)], 60)),
-        ("fu", tabbed([unit_line([cost, f"{fmt_num(s.get('actual_heating'))} {eu}"]),
-                       # its range is in the verdict sentence above
-                       unit_line([f"{fmt_num(s.get('expected_heating'))} {eu}"]),
-                       not_judged if blocked_figs else
-                       unit_line([f"{fmt_money(s.get('excess_cost'), cur)} a year", f"{fmt_num(s.get('excess_energy'))} {eu}"]),
-                       not_judged if blocked_figs else
-                       unit_line(["a year", billed_text(s, "expected_recoverable"), f"{rco2_v} {rco2_u} CO₂e"])], 80)),
+        (
+            "fk",
+            tabbed(
+                [
+                    f"Heating used, {_span_words(s)}",
+                    "Should need (middle)",
+                    "Above the expected range",
+                    "Likely recoverable",
+                ],
+                60,
+            ),
+        ),
+        (
+            "fv",
+            tabbed(
+                [
+                    billed_text(s, "actual_heating"),
+                    billed_text(s, "expected_heating"),
+                    "not judged" if blocked_figs else billed_text(s, "excess"),
+                    "not judged" if blocked_figs else fmt_money(s.get("expected_recoverable_cost"), cur),
+                ],
+                60,
+            ),
+        ),
+        (
+            "fu",
+            tabbed(
+                [
+                    unit_line([cost, f"{fmt_num(s.get('actual_heating'))} {eu}"]),
+                    # its range is in the verdict sentence above
+                    unit_line([f"{fmt_num(s.get('expected_heating'))} {eu}"]),
+                    not_judged
+                    if blocked_figs
+                    else unit_line(
+                        [f"{fmt_money(s.get('excess_cost'), cur)} a year", f"{fmt_num(s.get('excess_energy'))} {eu}"]
+                    ),
+                    not_judged
+                    if blocked_figs
+                    else unit_line(["a year", billed_text(s, "expected_recoverable"), f"{rco2_v} {rco2_u} CO₂e"]),
+                ],
+                80,
+            ),
+        ),
     ]
     scale = _SCALE_TEXT.get(s.get("evidence_scale"), "")
     if scale and s.get("evidence_scale") == "blend" and _finite(s.get("peer_weight")):
@@ -733,25 +889,35 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
     # a building whose data block a verdict has no kind of waste yet: its first step says what to fix
     kind = "" if s.get("blocking") else plain_text(s.get("waste_kind") or "")
     basis = _BASIS_TEXT.get(s.get("recoverable_basis"))
-    if basis and not s.get("blocking") and _finite(s.get("expected_recoverable_cost")) \
-            and s["expected_recoverable_cost"] > 0:
+    if (
+        basis
+        and not s.get("blocking")
+        and _finite(s.get("expected_recoverable_cost"))
+        and s["expected_recoverable_cost"] > 0
+    ):
         kind = (kind + " " if kind else "") + basis
     steps, steps_more = owner_steps(s, lim["steps"])
     sc = s.get("scores") or {}
     scores_text = ""
     if sc:
-        scores_text = (f"Scores: evidence {fmt_num(sc.get('evidence_score'))} (peers z {fmt_num(sc.get('z_score'))}, "
-                       f"balance point z {fmt_num(sc.get('z_balance_point'))}, intensity z "
-                       f"{fmt_num(sc.get('z_intensity'))}); year on year {fmt_pct(sc.get('yoy_change'))} "
-                       f"(z {fmt_num(sc.get('z_yoy'))}).")
-    scores_text += (f" Judged against {scale}." if scale else "")
-    scores_text += (f" Metered / expected {fmt_ratio(s.get('ratio'))}, "
-                    f"{_BAND_TEXT.get(s.get('band_position'), 'band position n/a')}; normal year "
-                    f"{fmt_num(s.get('normal_heating'))} {eu}; {fmt_num(s.get('heating_intensity'))} "
-                    f"{s.get('intensity_unit', '')} (peers' median {fmt_num(s.get('peer_median_intensity'))}).")
-    per_billed = (s["actual_heating"] / s["actual_heating_billed"]
-                  if _finite(s.get("actual_heating")) and _finite(s.get("actual_heating_billed"))
-                  and s["actual_heating_billed"] else None)
+        scores_text = (
+            f"Scores: evidence {fmt_num(sc.get('evidence_score'))} (peers z {fmt_num(sc.get('z_score'))}, "
+            f"balance point z {fmt_num(sc.get('z_balance_point'))}, intensity z "
+            f"{fmt_num(sc.get('z_intensity'))}); year on year {fmt_pct(sc.get('yoy_change'))} "
+            f"(z {fmt_num(sc.get('z_yoy'))})."
+        )
+    scores_text += f" Judged against {scale}." if scale else ""
+    scores_text += (
+        f" Metered / expected {fmt_ratio(s.get('ratio'))}, "
+        f"{_BAND_TEXT.get(s.get('band_position'), 'band position n/a')}; normal year "
+        f"{fmt_num(s.get('normal_heating'))} {eu}; {fmt_num(s.get('heating_intensity'))} "
+        f"{s.get('intensity_unit', '')} (peers' median {fmt_num(s.get('peer_median_intensity'))})."
+    )
+    per_billed = (
+        s["actual_heating"] / s["actual_heating_billed"]
+        if _finite(s.get("actual_heating")) and _finite(s.get("actual_heating_billed")) and s["actual_heating_billed"]
+        else None
+    )
     since = since_measure_view(s.get("since_measure"), eu, billed_unit=s.get("billed_unit"), per_billed=per_billed)
     rank, n_b = s.get("rank"), s.get("n_buildings")
     span_label = _span_words(s)
@@ -769,8 +935,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "station_id": _cut(s.get("station_id") or "n/a", 40),
         "period_start": s.get("period_start") or "n/a",
         "span_label": span_label,
-        "order_text": (f"audit order {rank} of {n_b}" if isinstance(rank, int) and isinstance(n_b, int)
-                       else ""),
+        "order_text": (f"audit order {rank} of {n_b}" if isinstance(rank, int) and isinstance(n_b, int) else ""),
         "period_end": s.get("period_end") or "n/a",
         "span_note": _SPAN_NOTE.get(s.get("span_kind"), ""),
         "run_date": s.get("run_date") or "n/a",
@@ -778,13 +943,16 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "verdict": _cut(owner_verdict(s), lim["text"]),
         "screen_verdict": _cut(_codes_to_words(s.get("screen_verdict") or s.get("verdict")), lim["text"]),
         "kind": _cut(kind, lim["text"]),
-        "steps": [_cut(t, lim["expl"]) for t in steps], "steps_more": steps_more,
+        "steps": [_cut(t, lim["expl"]) for t in steps],
+        "steps_more": steps_more,
         "confidence": _cut(confidence_line(s), lim["text"]),
         # an audit on record (events file): kept off the plan after a clean audit, or pinned by a finding;
         # a measure's note is in the verdict already
-        "audit_note": (_cut("On record: " + str(s["plan_note"])[0].upper() + str(s["plan_note"])[1:] + ".",
-                            lim["text"]) if s.get("plan_note") and not str(s["plan_note"]).startswith("measure of")
-                       else ""),
+        "audit_note": (
+            _cut("On record: " + str(s["plan_note"])[0].upper() + str(s["plan_note"])[1:] + ".", lim["text"])
+            if s.get("plan_note") and not str(s["plan_note"]).startswith("measure of")
+            else ""
+        ),
         "heat_source": _cut(heat_source_text(s), 160),
         "scores_text": scores_text,
         "since": since,
@@ -809,18 +977,28 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "baseload": fmt_num(s.get("baseload")),
         "excess_energy": fmt_num(s.get("excess_energy")),
         "excess_cost": fmt_money(s.get("excess_cost"), cur),
-        "excess_co2e": co2_v, "co2e_unit": co2_u,
-        "chart1": svg_img(chart1, chart1_title), "chart1_title": chart1_title, "chart1_caption": chart1_caption,
+        "excess_co2e": co2_v,
+        "co2e_unit": co2_u,
+        "chart1": svg_img(chart1, chart1_title),
+        "chart1_title": chart1_title,
+        "chart1_caption": chart1_caption,
         "chart1_axes": chart1_axes,
-        "chart2": svg_img(chart2, "place among peers"), "chart2_axes": chart2_axes,
+        "chart2": svg_img(chart2, "place among peers"),
+        "chart2_axes": chart2_axes,
         "chart2_caption": chart2_caption,
-        "ua_parts": ua_parts, "ua_total": fmt_num(total), "ua_unit": s.get("ua_unit", ""),
+        "ua_parts": ua_parts,
+        "ua_total": fmt_num(total),
+        "ua_unit": s.get("ua_unit", ""),
         "effective_ua": fmt_num(s.get("effective_ua")),
-        "assumptions": assumptions, "assumptions_more": max(len(asm_all) - lim["asm"], 0),
-        "ua_cols": ua_cols, "asm_cols": asm_cols,
+        "assumptions": assumptions,
+        "assumptions_more": max(len(asm_all) - lim["asm"], 0),
+        "ua_cols": ua_cols,
+        "asm_cols": asm_cols,
         "fit_text": fit_text,
-        "flags": flags, "flags_more": flags_more,
-        "data_issues": issues, "data_issues_more": issues_more,
+        "flags": flags,
+        "flags_more": flags_more,
+        "data_issues": issues,
+        "data_issues_more": issues_more,
         "next_steps": [_cut(t, lim["expl"]) for t in steps_all[: lim["steps"]]],
         "next_steps_more": max(len(steps_all) - lim["steps"], 0),
         "cautions": [_cut(t, lim["caution_len"]) for t in cautions_all[: lim["cautions"]]],
@@ -829,8 +1007,10 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
 
 def sheet_title(s: dict[str, Any]) -> str:
     """The /Title of a sheet's PDF file."""
-    return f"{_cut(s.get('name') or s.get('building_id'), 120)} ({_cut(s.get('building_id'), 80)}): " \
-           f"heating screening sheet, run {_cut(s.get('run_id'), 60)}"
+    return (
+        f"{_cut(s.get('name') or s.get('building_id'), 120)} ({_cut(s.get('building_id'), 80)}): "
+        f"heating screening sheet, run {_cut(s.get('run_id'), 60)}"
+    )
 
 
 # --------------------------------------------------------------------------------------
@@ -857,9 +1037,13 @@ def _state() -> dict[str, Any]:
         _STATE["fetcher"] = AssetFetcher(tdir)
         _STATE["env"] = jinja2.Environment(
             loader=jinja2.FileSystemLoader(tdir),
-            autoescape=jinja2.select_autoescape(enabled_extensions=("html", "j2", "xml"), default=True,
-                                                default_for_string=True),
-            undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True)
+            autoescape=jinja2.select_autoescape(
+                enabled_extensions=("html", "j2", "xml"), default=True, default_for_string=True
+            ),
+            undefined=jinja2.StrictUndefined,
+            trim_blocks=True,
+            lstrip_blocks=True,
+        )
         _STATE["css"] = {}
     return _STATE
 
@@ -873,11 +1057,16 @@ def _stylesheets(name: str, paper: str) -> list:
         if paper not in PAPERS:
             raise ValueError(f"paper must be one of {sorted(PAPERS)}, got {paper!r}")
         st["css"][key] = [
-            CSS(filename=str(st["tdir"] / name), font_config=st["font_config"], url_fetcher=st["fetcher"],
-                base_url=st["tdir"].as_uri() + "/"),
-            CSS(string=f"@page {{ size: {PAPERS[paper]}; }}"
-                       f" .figs {{ tab-size: {_CONTENT_MM[paper] / 4:.2f}mm; }}",
-                font_config=st["font_config"]),
+            CSS(
+                filename=str(st["tdir"] / name),
+                font_config=st["font_config"],
+                url_fetcher=st["fetcher"],
+                base_url=st["tdir"].as_uri() + "/",
+            ),
+            CSS(
+                string=f"@page {{ size: {PAPERS[paper]}; }} .figs {{ tab-size: {_CONTENT_MM[paper] / 4:.2f}mm; }}",
+                font_config=st["font_config"],
+            ),
         ]
     return st["css"][key]
 
@@ -990,19 +1179,35 @@ class _PageSplitter:
             content = objs[_ref_number(page["Contents"])]
             raws[content.number] = raw = _raw_stream(content)  # to read the resource names it uses
             used = {m.decode("latin-1") for m in _NAME.findall(raw)}
-            new_res = pydyf.Dictionary({
-                k: (pydyf.Dictionary({name: v2 for name, v2 in v.items() if name in used})
-                    if k in _PRUNED and isinstance(v, dict) else v)
-                for k, v in res.items()})
+            new_res = pydyf.Dictionary(
+                {
+                    k: (
+                        pydyf.Dictionary({name: v2 for name, v2 in v.items() if name in used})
+                        if k in _PRUNED and isinstance(v, dict)
+                        else v
+                    )
+                    for k, v in res.items()
+                }
+            )
             info_n, res_n, xref_n = n_objs, n_objs + 1, n_objs + 2
             new_page = pydyf.Dictionary(page)
             new_page["Resources"] = f"{res_n} 0 R".encode()
-            info = pydyf.Dictionary({"Title": pydyf.String(title), "Creator": pydyf.String(f"ddscreen {__version__}"),
-                                     "Producer": pydyf.String(f"ddscreen via WeasyPrint {_weasyprint_version()}")})
+            info = pydyf.Dictionary(
+                {
+                    "Title": pydyf.String(title),
+                    "Creator": pydyf.String(f"ddscreen {__version__}"),
+                    "Producer": pydyf.String(f"ddscreen via WeasyPrint {_weasyprint_version()}"),
+                }
+            )
             catalog = pydyf.Dictionary({k: v for k, v in pdf.catalog.items() if k in ("Type", "Pages", "Lang")})
             tree = pydyf.Dictionary({"Type": "/Pages", "Kids": pydyf.Array([page.number, 0, "R"]), "Count": 1})
-            own = {pdf.pages.number: tree.data, pdf.catalog.number: catalog.data, page.number: new_page.data,
-                   info_n: info.data, res_n: new_res.data}
+            own = {
+                pdf.pages.number: tree.data,
+                pdf.catalog.number: catalog.data,
+                page.number: new_page.data,
+                info_n: info.data,
+                res_n: new_res.data,
+            }
             # every object reachable from the page's own dictionaries
             todo = [int(m) for m in _REF.findall(new_page.data + new_res.data)]
             seen: dict[int, bytes] = {}
@@ -1049,9 +1254,20 @@ def _pdf_file(objects: dict[int, bytes], *, root_n: int, info_n: int, xref_n: in
             rows.append(b"\x01" + offsets[n].to_bytes(4, "big") + b"\x00\x00")
     assert start is not None  # the list starts with object 0, so the loop set it
     index_ranges += [start, prev - start + 1]
-    xref = pydyf.Stream([b"".join(rows)], pydyf.Dictionary({
-        "Type": "/XRef", "Size": xref_n + 1, "Index": pydyf.Array(index_ranges), "W": pydyf.Array([1, 4, 2]),
-        "Root": f"{root_n} 0 R".encode(), "Info": f"{info_n} 0 R".encode()}), compress=True)
+    xref = pydyf.Stream(
+        [b"".join(rows)],
+        pydyf.Dictionary(
+            {
+                "Type": "/XRef",
+                "Size": xref_n + 1,
+                "Index": pydyf.Array(index_ranges),
+                "W": pydyf.Array([1, 4, 2]),
+                "Root": f"{root_n} 0 R".encode(),
+                "Info": f"{info_n} 0 R".encode(),
+            }
+        ),
+        compress=True,
+    )
     out.append(b"%d 0 obj\n%s\nendobj\nstartxref\n%d\n%%%%EOF\n" % (xref_n, xref.data, pos))
     return b"".join(out)
 
@@ -1064,7 +1280,7 @@ def _raw_stream(obj) -> bytes:
     import pydyf
 
     data = pydyf.Stream(obj.stream).data  # b"<</Length n>>\nstream\n" + bytes + b"\nendstream"
-    return data[data.index(b"\nstream\n") + 8:-10]
+    return data[data.index(b"\nstream\n") + 8 : -10]
 
 
 def _stream_bytes(obj, raw: bytes | None = None) -> bytes:
@@ -1095,8 +1311,11 @@ def _write_split(doc, picks: Iterable[tuple[int, Path, str]]) -> None:
     try:
         doc.write_pdf(finisher=_PageSplitter(picks))
     except (AttributeError, KeyError, TypeError, IndexError, ValueError) as exc:
-        LOGGER.warning("fast page split unavailable with this WeasyPrint/pydyf (%s: %s); writing pages "
-                       "one by one", type(exc).__name__, exc)
+        LOGGER.warning(
+            "fast page split unavailable with this WeasyPrint/pydyf (%s: %s); writing pages one by one",
+            type(exc).__name__,
+            exc,
+        )
         _write_pages_public(doc, picks)
 
 
@@ -1138,15 +1357,17 @@ def _render_one(sheet: dict[str, Any], target: Path, paper: str, start_level: in
                 _write_split(doc, [(0, target, title)])
                 return level
         LOGGER.info("sheet %r needs %d pages at shrink level %d", sheet.get("building_id"), len(doc.pages), level)
-    raise RenderError(f"sheet for building {sheet.get('building_id')!r} does not fit on one page "
-                      f"even at the smallest layout (level {MAX_LEVEL})")
+    raise RenderError(
+        f"sheet for building {sheet.get('building_id')!r} does not fit on one page "
+        f"even at the smallest layout (level {MAX_LEVEL})"
+    )
 
 
 def _render_chunk(sheets: list[dict[str, Any]], targets: list[str], paper: str) -> dict[str, Any]:
     """Render a chunk of sheets as one document and split it; returns stats."""
     targets_p = [Path(t) for t in targets]
     interrupts.pause_point("render_chunk")  # test hook (DEVELOPERS.md "Test hooks")
-    interrupts.raise_if_stopped()           # this process was told to stop: render nothing more
+    interrupts.raise_if_stopped()  # this process was told to stop: render nothing more
     cpu = time.thread_time()
     try:
         with _gc_paused():
@@ -1157,8 +1378,9 @@ def _render_chunk(sheets: list[dict[str, Any]], targets: list[str], paper: str) 
         if isinstance(exc, (RenderError, KeyboardInterrupt, SystemExit)):
             raise
         ids = ", ".join(repr(s.get("building_id")) for s in sheets[:3])
-        raise RenderError(f"rendering sheets failed for the chunk starting with {ids}: "
-                          f"{type(exc).__name__}: {exc}") from exc
+        raise RenderError(
+            f"rendering sheets failed for the chunk starting with {ids}: {type(exc).__name__}: {exc}"
+        ) from exc
 
 
 def _render_chunk_inner(sheets: list[dict[str, Any]], targets_p: list[Path], paper: str) -> dict[str, Any]:
@@ -1225,8 +1447,12 @@ def _run_chunks(chunks: list[tuple[list, list]], paper: str, workers: int) -> li
     # (screening.lifeline first: there it makes the fork server die with this process)
     ctx.set_forkserver_preload(["screening.lifeline", "screening.report", "weasyprint", "pydyf"])
     n_children = min(workers - 1, len(chunks) - 1)
-    with _main_not_reimported(), ProcessPoolExecutor(
-            max_workers=n_children, mp_context=ctx, initializer=_worker_init, max_tasks_per_child=100) as pool:
+    with (
+        _main_not_reimported(),
+        ProcessPoolExecutor(
+            max_workers=n_children, mp_context=ctx, initializer=_worker_init, max_tasks_per_child=100
+        ) as pool,
+    ):
         local = threading.Thread(target=here, name="ddscreen-render", daemon=True)
         local.start()
         in_flight: dict[Any, int] = {}
@@ -1317,6 +1543,7 @@ def _worker_init() -> None:
     # a worker dies with the main process, whatever ends it (screening/lifeline.py), and leaves
     # Ctrl-C to the main process, which stops the workers itself (_stop_workers)
     import signal
+
     lifeline.die_with_parent()
     lifeline.watch_parent()
     signal.signal(signal.SIGINT, signal.SIG_IGN)
@@ -1328,8 +1555,15 @@ def _worker_init() -> None:
 # public API
 
 
-def render_sheets(sheets: list[dict[str, Any]], out_dir: Path, *, paper: str = "Letter", workers: int = 2,
-                  chunk_size: int = 50, stats: dict[str, Any] | None = None) -> list[Path]:
+def render_sheets(
+    sheets: list[dict[str, Any]],
+    out_dir: Path,
+    *,
+    paper: str = "Letter",
+    workers: int = 2,
+    chunk_size: int = 50,
+    stats: dict[str, Any] | None = None,
+) -> list[Path]:
     """Write one single-page PDF per sheet into ``out_dir`` (``<safe name>.pdf``).
 
     Parameters
@@ -1375,13 +1609,17 @@ def render_sheets(sheets: list[dict[str, Any]], out_dir: Path, *, paper: str = "
     # worker is left with a short tail (100 sheets on 2 workers: 2 x 50; 120: 4 x 30)
     n_chunks = min(n, workers * math.ceil(n / (workers * chunk_size)))
     size = math.ceil(n / n_chunks)
-    chunks = [(sheets[i:i + size], targets[i:i + size]) for i in range(0, n, size)]
+    chunks = [(sheets[i : i + size], targets[i : i + size]) for i in range(0, n, size)]
     results = _run_chunks(chunks, paper, workers)
     if stats is not None:
-        stats.update(chunks=len(chunks), chunk_size=size,
-                     batched=sum(r["batched"] for r in results), refit=sum(r["refit"] for r in results),
-                     levels=[lv for r in results for lv in r["levels"]],
-                     cpu_s=sum(r["cpu_s"] for r in results))
+        stats.update(
+            chunks=len(chunks),
+            chunk_size=size,
+            batched=sum(r["batched"] for r in results),
+            refit=sum(r["refit"] for r in results),
+            levels=[lv for r in results for lv in r["levels"]],
+            cpu_s=sum(r["cpu_s"] for r in results),
+        )
     return [Path(t) for t in targets]
 
 
@@ -1413,10 +1651,16 @@ def render_sheets_one_by_one(sheets: list[dict[str, Any]], out_dir: Path, *, pap
 # lies behind the text. RANK_COLUMNS: key, header, width %, right-aligned; widths add up to
 # 99.5%, as 100% wraps the last float on A4 by rounding.
 RANK_COLUMNS = [
-    ("rank", "#", 4.5, True), ("building_id", "id", 6.5, False), ("name", "name", 12.5, False),
-    ("use_type", "use", 8.0, False), ("tier", "tier", 9.0, False), ("ratio", "ratio", 6.0, True),
-    ("heating_intensity", "intensity", 7.2, True), ("expected_recoverable_cost", "exp. savings", 9.5, True),
-    ("excess_cost", "excess cost", 8.5, True), ("flags", "flags", 15.8, False),
+    ("rank", "#", 4.5, True),
+    ("building_id", "id", 6.5, False),
+    ("name", "name", 12.5, False),
+    ("use_type", "use", 8.0, False),
+    ("tier", "tier", 9.0, False),
+    ("ratio", "ratio", 6.0, True),
+    ("heating_intensity", "intensity", 7.2, True),
+    ("expected_recoverable_cost", "exp. savings", 9.5, True),
+    ("excess_cost", "excess cost", 8.5, True),
+    ("flags", "flags", 15.8, False),
     ("data_issues", "data issues", 12.0, False),
 ]
 # Lines per table page. Content heights: page height minus the 14 + 16 mm margins of
@@ -1425,15 +1669,14 @@ RANK_COLUMNS = [
 # also carries the section title and its note (58 pt). A header of more lines takes them off
 # every page. Checked by test_report's page counts.
 _ROW_PT = 9.6
-_ROWS_PER_PAGE = {paper: int((h - 30 * 72 / 25.4 - 40) // _ROW_PT) for paper, h in (("Letter", 792.0),
-                                                                                     ("A4", 841.89))}
+_ROWS_PER_PAGE = {paper: int((h - 30 * 72 / 25.4 - 40) // _ROW_PT) for paper, h in (("Letter", 792.0), ("A4", 841.89))}
 _FIRST_PAGE_LOSS = 6
-MAX_CELL_LINES = 6        # a field longer than this many lines ends its last line with "…"
-_TABLE_PT = {"body": 7.2, "small": 6.6}   # ranking.css: .thead/.tbl font size; .k9/.k10 (flags, issues)
-_CELL_PAD_MM = 0.8                        # ranking.css: padding left and right of each column
+MAX_CELL_LINES = 6  # a field longer than this many lines ends its last line with "…"
+_TABLE_PT = {"body": 7.2, "small": 6.6}  # ranking.css: .thead/.tbl font size; .k9/.k10 (flags, issues)
+_CELL_PAD_MM = 0.8  # ranking.css: padding left and right of each column
 _COLUMN_CSS = [{"cls": f"k{j}", "width": w, "right": right} for j, (_k, _h, w, right) in enumerate(RANK_COLUMNS)]
-MAX_ISSUE_LINES = 1000    # data-issue lines in ranking.pdf; data_issues.csv has them all
-PLAN_LINES = 10   # audit-plan rows on ranking.pdf's first page (the rest: audit_plan.csv)
+MAX_ISSUE_LINES = 1000  # data-issue lines in ranking.pdf; data_issues.csv has them all
+PLAN_LINES = 10  # audit-plan rows on ranking.pdf's first page (the rest: audit_plan.csv)
 
 
 _ADVANCES: dict[bool, dict[int, float]] = {}
@@ -1445,15 +1688,17 @@ def _text_width(text: str, size: float, *, bold: bool = False) -> float:
     fallback font: counted as 1 em, about the widest (CJK ideographs)."""
     adv = _ADVANCES.get(bold)
     if adv is None:
-        from fontTools.ttLib import TTFont   # weasyprint's own dependency
-        f = TTFont(str(templates_dir() / "fonts" / ("ddscreen-sans-bold.ttf" if bold else "ddscreen-sans.ttf")),
-                   lazy=True)
+        from fontTools.ttLib import TTFont  # weasyprint's own dependency
+
+        f = TTFont(
+            str(templates_dir() / "fonts" / ("ddscreen-sans-bold.ttf" if bold else "ddscreen-sans.ttf")), lazy=True
+        )
         upm, hmtx = f["head"].unitsPerEm, f["hmtx"]
         adv = _ADVANCES[bold] = {cp: hmtx[g][0] / upm for cp, g in f.getBestCmap().items()}
     return size * sum(adv.get(ord(c), 0.0 if unicodedata.combining(c) else 1.0) for c in text)
 
 
-_BREAK_AFTER = re.compile(r"(?<=[\s;,/])")   # a line may break after a blank, ; , or /
+_BREAK_AFTER = re.compile(r"(?<=[\s;,/])")  # a line may break after a blank, ; , or /
 
 
 def _wrap(text: str, width: float, size: float, *, bold: bool = False, max_lines: int = MAX_CELL_LINES) -> list[str]:
@@ -1477,9 +1722,9 @@ def _wrap(text: str, width: float, size: float, *, bold: bool = False, max_lines
         if line:
             lines.append(line.rstrip())
             line = ""
-        while not fits(tok):           # a word wider than the column: cut it where it fills a line
+        while not fits(tok):  # a word wider than the column: cut it where it fills a line
             k = 1
-            while k < len(tok) and fits(tok[:k + 1]):
+            while k < len(tok) and fits(tok[: k + 1]):
                 k += 1
             under = tok.rfind("_", 0, k)
             k = under + 1 if under > 0 else k
@@ -1492,7 +1737,7 @@ def _wrap(text: str, width: float, size: float, *, bold: bool = False, max_lines
         last = lines[max_lines - 1]
         while last and not fits(last + "…"):
             last = last[:-1]
-        lines = lines[:max_lines - 1] + [last.rstrip() + "…"]
+        lines = lines[: max_lines - 1] + [last.rstrip() + "…"]
     return lines
 
 
@@ -1504,8 +1749,10 @@ def _column_widths(paper: str) -> list[float]:
 
 
 def _table_header(paper: str, eu: str) -> list[dict[str, str]]:
-    cols = [_wrap(h.format(eu=eu), w, _TABLE_PT["body"], bold=True)
-            for (_k, h, _w, _r), w in zip(RANK_COLUMNS, _column_widths(paper))]
+    cols = [
+        _wrap(h.format(eu=eu), w, _TABLE_PT["body"], bold=True)
+        for (_k, h, _w, _r), w in zip(RANK_COLUMNS, _column_widths(paper))
+    ]
     n = max(len(c) for c in cols)
     return [{"cls": f"k{j}", "text": "\n".join(c + [""] * (n - len(c)))} for j, c in enumerate(cols)]
 
@@ -1514,8 +1761,9 @@ def _table_pages(rows: list[dict[str, str]], paper: str, header_lines: int = 1) 
     """The ranked rows cut into pages: per page the column texts (each row's fields wrapped to
     their column and padded with blank lines to the row's height) and each row's height [pt]."""
     widths = _column_widths(paper)
-    sizes = [_TABLE_PT["small"] if key in ("flags", "data_issues") else _TABLE_PT["body"]
-             for key, _h, _w, _r in RANK_COLUMNS]
+    sizes = [
+        _TABLE_PT["small"] if key in ("flags", "data_issues") else _TABLE_PT["body"] for key, _h, _w, _r in RANK_COLUMNS
+    ]
     wrapped = []
     for r in rows:
         cells = [_wrap(r[key], w, size) for (key, _h, _w, _r), w, size in zip(RANK_COLUMNS, widths, sizes)]
@@ -1529,11 +1777,20 @@ def _table_pages(rows: list[dict[str, str]], paper: str, header_lines: int = 1) 
         while i < len(wrapped) and (not chunk or sum(n for n, _ in chunk) + wrapped[i][0] <= room):
             chunk.append(wrapped[i])
             i += 1
-        pages.append({"first": first, "lines": sum(n for n, _ in chunk),
-                      "stripes": [f"{n * _ROW_PT:g}" for n, _ in chunk],
-                      "cols": [{"cls": f"k{j}", "text": "\n".join(ln for n, cells in chunk
-                                                                   for ln in cells[j] + [""] * (n - len(cells[j])))}
-                               for j in range(len(RANK_COLUMNS))]})
+        pages.append(
+            {
+                "first": first,
+                "lines": sum(n for n, _ in chunk),
+                "stripes": [f"{n * _ROW_PT:g}" for n, _ in chunk],
+                "cols": [
+                    {
+                        "cls": f"k{j}",
+                        "text": "\n".join(ln for n, cells in chunk for ln in cells[j] + [""] * (n - len(cells[j]))),
+                    }
+                    for j in range(len(RANK_COLUMNS))
+                ],
+            }
+        )
         first = False
     return pages
 
@@ -1554,27 +1811,32 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
         codes = v.split(";") if isinstance(v, str) else [str(x) for x in v]
         return _cut("; ".join(c.strip() for c in codes if c.strip()), 200)
 
-    rows = [{
-        "rank": str(r.get("rank")) if isinstance(r.get("rank"), int) else "",
-        "building_id": _cut(r.get("building_id"), 40),
-        "name": _cut(r.get("name"), 80),
-        "use_type": _cut(r.get("use_type"), 20),
-        "tier": _cut(r.get("tier"), 20),
-        "ratio": fmt_ratio(r.get("ratio")),
-        "heating_intensity": fmt_num(r.get("heating_intensity")),
-        "excess_energy": fmt_num(r.get("excess_energy")),
-        "excess_cost": fmt_money(r.get("excess_cost"), cur),
-        "expected_recoverable_cost": fmt_money(r.get("expected_recoverable_cost"), cur),
-        "flags": joined(r.get("flags")),
-        "data_issues": joined(r.get("data_issues")),
-    } for r in report.get("rows") or []]
+    rows = [
+        {
+            "rank": str(r.get("rank")) if isinstance(r.get("rank"), int) else "",
+            "building_id": _cut(r.get("building_id"), 40),
+            "name": _cut(r.get("name"), 80),
+            "use_type": _cut(r.get("use_type"), 20),
+            "tier": _cut(r.get("tier"), 20),
+            "ratio": fmt_ratio(r.get("ratio")),
+            "heating_intensity": fmt_num(r.get("heating_intensity")),
+            "excess_energy": fmt_num(r.get("excess_energy")),
+            "excess_cost": fmt_money(r.get("excess_cost"), cur),
+            "expected_recoverable_cost": fmt_money(r.get("expected_recoverable_cost"), cur),
+            "flags": joined(r.get("flags")),
+            "data_issues": joined(r.get("data_issues")),
+        }
+        for r in report.get("rows") or []
+    ]
     counts = report.get("counts") or {}
     scalars = {k: v for k, v in counts.items() if not isinstance(v, dict)}
     nested = {k: v for k, v in counts.items() if isinstance(v, dict)}
 
     def count_rows(d, codes=False):  # flag and issue codes stay as written (they match the table)
-        return [{"label": _cut(str(k) if codes else str(k).replace("_", " "), 40), "value": fmt_num(v)}
-                for k, v in d.items()]
+        return [
+            {"label": _cut(str(k) if codes else str(k).replace("_", " "), 40), "value": fmt_num(v)}
+            for k, v in d.items()
+        ]
 
     tiers_in = report.get("tiers")
     if not tiers_in and isinstance(nested.get("per_tier"), dict):
@@ -1583,40 +1845,69 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
     header = _table_header(paper, eu)
     issues_in = report.get("data_issues") or []
     return {
-        "run": {k: _cut(run.get(k, "n/a"), 60) for k in ("run_id", "as_of", "window_start", "window_end",
-                                                         "run_date", "version", "units")},
+        "run": {
+            k: _cut(run.get(k, "n/a"), 60)
+            for k in ("run_id", "as_of", "window_start", "window_end", "run_date", "version", "units")
+        },
         "counts": count_rows(scalars),
         "per_flag": count_rows(nested.get("per_flag") or {}, codes=True),
         "per_data_issue": count_rows(nested.get("per_data_issue") or {}, codes=True),
-        "tiers": [{"tier": _cut(t.get("tier"), 24), "count": fmt_num(t.get("count")),
-                   "meaning": _cut(t.get("meaning") or "", 80)} for t in tiers_in or []],
+        "tiers": [
+            {
+                "tier": _cut(t.get("tier"), 24),
+                "count": fmt_num(t.get("count")),
+                "meaning": _cut(t.get("meaning") or "", 80),
+            }
+            for t in tiers_in or []
+        ],
         "rows_omitted": fmt_num(omitted) if isinstance(omitted, int) and omitted > 0 else "",
-        "total_energy": fmt_num(totals.get("excess_energy")), "energy_unit": eu,
+        "total_energy": fmt_num(totals.get("excess_energy")),
+        "energy_unit": eu,
         "total_cost": fmt_money(totals.get("excess_cost"), cur),
         "audit_energy": fmt_num(totals["audit_list_excess_energy"]) if "audit_list_excess_energy" in totals else "",
         "audit_cost": fmt_money(totals["audit_list_excess_cost"], cur) if "audit_list_excess_cost" in totals else "",
-        "total_co2e": co2_v, "co2e_unit": co2_u,
+        "total_co2e": co2_v,
+        "co2e_unit": co2_u,
         "recoverable_cost": fmt_money(totals["expected_recoverable_cost"], cur)
-        if "expected_recoverable_cost" in totals else "",
+        if "expected_recoverable_cost" in totals
+        else "",
         "plan_cost": fmt_money(totals.get("audit_plan_expected_recoverable_cost"), cur),
         "intensity_unit": report.get("intensity_unit", ""),
         "chart": svg_img(charts.ratio_histogram(report.get("ratios") or []), "distribution of ratios"),
         "top": rows[:10],
         # this quarter's audit plan (ranking_report's "plan"): at most PLAN_LINES rows on the first page
-        "plan": None if report.get("plan") is None else [{
-            "visit": str(p.get("visit")), "rank": str(p.get("rank")),
-            "building_id": _cut(p.get("building_id"), 40), "name": _cut(p.get("name"), 60),
-            "look_for": _cut(p.get("mechanisms") or ("what changed" if "rose" in
-                                                     (p.get("waste_kind") or "") else "not told apart"), 26),
-            "savings": fmt_money(p.get("expected_recoverable_cost"), cur),
-            "share": fmt_pct(p.get("cumulative_share"))} for p in report["plan"][:PLAN_LINES]],
+        "plan": None
+        if report.get("plan") is None
+        else [
+            {
+                "visit": str(p.get("visit")),
+                "rank": str(p.get("rank")),
+                "building_id": _cut(p.get("building_id"), 40),
+                "name": _cut(p.get("name"), 60),
+                "look_for": _cut(
+                    p.get("mechanisms")
+                    or ("what changed" if "rose" in (p.get("waste_kind") or "") else "not told apart"),
+                    26,
+                ),
+                "savings": fmt_money(p.get("expected_recoverable_cost"), cur),
+                "share": fmt_pct(p.get("cumulative_share")),
+            }
+            for p in report["plan"][:PLAN_LINES]
+        ],
         "plan_more": fmt_num(len(report.get("plan") or []) - PLAN_LINES)
-        if len(report.get("plan") or []) > PLAN_LINES else "",
+        if len(report.get("plan") or []) > PLAN_LINES
+        else "",
         "header": header,
         "table_pages": _table_pages(rows, paper, header_lines=header[0]["text"].count("\n") + 1),
-        "data_issues": [{"building_id": _one_line(d.get("building_id"), 40), "name": _one_line(d.get("name"), 80),
-                         "code": _one_line(d.get("code"), 40), "explanation": _cut(d.get("explanation"), 2000)}
-                        for d in issues_in[:MAX_ISSUE_LINES]],
+        "data_issues": [
+            {
+                "building_id": _one_line(d.get("building_id"), 40),
+                "name": _one_line(d.get("name"), 80),
+                "code": _one_line(d.get("code"), 40),
+                "explanation": _cut(d.get("explanation"), 2000),
+            }
+            for d in issues_in[:MAX_ISSUE_LINES]
+        ],
         "data_issues_more": fmt_num(len(issues_in) - MAX_ISSUE_LINES) if len(issues_in) > MAX_ISSUE_LINES else "",
     }
 
@@ -1630,10 +1921,14 @@ def render_ranking(report: dict[str, Any], out_path: Path, *, paper: str = "Lett
     out_path = Path(out_path)
     view = ranking_view(report, paper)
     from .savings_page import savings_view  # the savings page (issue 17), when the report has "savings"
+
     view["savings"] = savings_view(report)
     title = f"Heating screening ranking, run {view['run']['run_id']}"
-    html = _state()["env"].get_template("ranking.html.j2").render(
-        v=view, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__, columns=_COLUMN_CSS)
+    html = (
+        _state()["env"]
+        .get_template("ranking.html.j2")
+        .render(v=view, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__, columns=_COLUMN_CSS)
+    )
     try:
         with _gc_paused():
             pdf = _render_html(html, "ranking.css", paper).write_pdf()

@@ -26,7 +26,7 @@ import duckdb
 import polars as pl
 
 from . import __version__, config as cfgmod, interrupts, locking, memory, outputs, pipeline, published, sources
-from .errors import (ConfigError, InputError, LockedError, OutputError, ScreeningError, StoreError)
+from .errors import ConfigError, InputError, LockedError, OutputError, ScreeningError, StoreError
 from .errors import Interrupted
 from .ingest import REJECT_SCHEMA
 from .resources import sample_portfolio_dir
@@ -51,6 +51,7 @@ class RunResult:
 
 # ---------------------------------------------------------------------------- helpers
 
+
 def _expand(pattern: str, kind: str) -> list[str]:
     if not pattern:
         raise ConfigError(f"no {kind} file given: pass --{kind} FILE or set [inputs] {kind} in the config")
@@ -65,8 +66,15 @@ def _expand(pattern: str, kind: str) -> list[str]:
 def _versions() -> dict:
     import numpy
     import weasyprint
-    return {"ddscreen": __version__, "python": sys.version.split()[0], "polars": pl.__version__,
-            "duckdb": duckdb.__version__, "numpy": numpy.__version__, "weasyprint": weasyprint.__version__}
+
+    return {
+        "ddscreen": __version__,
+        "python": sys.version.split()[0],
+        "polars": pl.__version__,
+        "duckdb": duckdb.__version__,
+        "numpy": numpy.__version__,
+        "weasyprint": weasyprint.__version__,
+    }
 
 
 class _Lock:
@@ -83,7 +91,7 @@ class _Lock:
         except OSError as exc:
             raise StoreError(f"{self.path}: cannot create the lock file ({exc.strerror or exc})") from None
         try:
-            taken = locking.try_lock(self.fh)   # fcntl on POSIX, msvcrt on Windows (screening/locking.py)
+            taken = locking.try_lock(self.fh)  # fcntl on POSIX, msvcrt on Windows (screening/locking.py)
         except OSError as exc:
             self.fh.close()
             raise StoreError(f"{self.path}: cannot lock ({exc})") from None
@@ -91,11 +99,12 @@ class _Lock:
             self.fh.seek(0)
             try:
                 holder = self.fh.read().strip() or "another process"
-            except OSError:   # Windows: the holder's locked byte cannot be read
+            except OSError:  # Windows: the holder's locked byte cannot be read
                 holder = "another process"
             self.fh.close()
-            raise LockedError(f"another ddscreen run holds the lock {self.path} ({holder}); "
-                              "nothing was changed") from None
+            raise LockedError(
+                f"another ddscreen run holds the lock {self.path} ({holder}); nothing was changed"
+            ) from None
         self.fh.seek(0)
         self.fh.truncate()
         self.fh.write(f"pid {os.getpid()} since {_dt.datetime.now().isoformat(timespec='seconds')}")
@@ -122,8 +131,15 @@ class _Progress:
         if enabled and sys.stderr.isatty():
             from rich.console import Console
             from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
-            self.bar = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.completed}/{task.total}"),
-                                TimeElapsedColumn(), console=Console(stderr=True), transient=True)
+
+            self.bar = Progress(
+                TextColumn("{task.description}"),
+                BarColumn(),
+                TextColumn("{task.completed}/{task.total}"),
+                TimeElapsedColumn(),
+                console=Console(stderr=True),
+                transient=True,
+            )
             self.bar.start()
             self.task = self.bar.add_task("ddscreen", total=len(self.STAGES))
 
@@ -149,6 +165,7 @@ def _stage(name: str) -> None:
     interrupts.pause_point(name)
     if os.environ.get("DDSCREEN_KILL_AT") == name:
         import signal
+
         os.kill(os.getpid(), signal.SIGKILL)
 
 
@@ -173,29 +190,56 @@ def diff_results(old: pl.DataFrame, new: pl.DataFrame) -> pl.DataFrame:
     o = old.select("building_id", pl.col("rank").alias("previous_rank"), pl.col("flags").alias("_of"))
     n = new.select("building_id", "rank", pl.col("flags").alias("_nf"))
     j = n.join(o, on="building_id", how="full", coalesce=True)
-    j = j.with_columns(pl.col("_of").fill_null("").str.split(";").list.eval(pl.element().filter(pl.element() != "")),
-                       pl.col("_nf").fill_null("").str.split(";").list.eval(pl.element().filter(pl.element() != "")))
-    j = j.with_columns(pl.col("_nf").list.set_difference("_of").list.sort().alias("new_flags"),
-                       pl.col("_of").list.set_difference("_nf").list.sort().alias("cleared_flags"),
-                       pl.col("_nf").list.set_intersection("_of").list.sort().alias("persisting_flags"))
     j = j.with_columns(
-        pl.when(pl.col("previous_rank").is_null()).then(pl.lit("new building"))
-        .when(pl.col("rank").is_null()).then(pl.lit("dropped"))
-        .otherwise(pl.concat_str([
-            pl.when(pl.col("rank") < pl.col("previous_rank")).then(pl.lit("up ") + (pl.col("previous_rank") - pl.col("rank")).cast(pl.String))
-            .when(pl.col("rank") > pl.col("previous_rank")).then(pl.lit("down ") + (pl.col("rank") - pl.col("previous_rank")).cast(pl.String))
-            .otherwise(pl.lit("same rank")),
-            pl.when(pl.col("new_flags").list.len() > 0).then(pl.lit("; new: ") + pl.col("new_flags").list.join(",")).otherwise(pl.lit("")),
-            pl.when(pl.col("cleared_flags").list.len() > 0).then(pl.lit("; cleared: ") + pl.col("cleared_flags").list.join(",")).otherwise(pl.lit("")),
-        ])).alias("change"))
-    return j.select("building_id", "rank", "previous_rank", "change", "new_flags", "cleared_flags",
-                    "persisting_flags").sort("building_id")
+        pl.col("_of").fill_null("").str.split(";").list.eval(pl.element().filter(pl.element() != "")),
+        pl.col("_nf").fill_null("").str.split(";").list.eval(pl.element().filter(pl.element() != "")),
+    )
+    j = j.with_columns(
+        pl.col("_nf").list.set_difference("_of").list.sort().alias("new_flags"),
+        pl.col("_of").list.set_difference("_nf").list.sort().alias("cleared_flags"),
+        pl.col("_nf").list.set_intersection("_of").list.sort().alias("persisting_flags"),
+    )
+    j = j.with_columns(
+        pl.when(pl.col("previous_rank").is_null())
+        .then(pl.lit("new building"))
+        .when(pl.col("rank").is_null())
+        .then(pl.lit("dropped"))
+        .otherwise(
+            pl.concat_str(
+                [
+                    pl.when(pl.col("rank") < pl.col("previous_rank"))
+                    .then(pl.lit("up ") + (pl.col("previous_rank") - pl.col("rank")).cast(pl.String))
+                    .when(pl.col("rank") > pl.col("previous_rank"))
+                    .then(pl.lit("down ") + (pl.col("rank") - pl.col("previous_rank")).cast(pl.String))
+                    .otherwise(pl.lit("same rank")),
+                    pl.when(pl.col("new_flags").list.len() > 0)
+                    .then(pl.lit("; new: ") + pl.col("new_flags").list.join(","))
+                    .otherwise(pl.lit("")),
+                    pl.when(pl.col("cleared_flags").list.len() > 0)
+                    .then(pl.lit("; cleared: ") + pl.col("cleared_flags").list.join(","))
+                    .otherwise(pl.lit("")),
+                ]
+            )
+        )
+        .alias("change")
+    )
+    return j.select(
+        "building_id", "rank", "previous_rank", "change", "new_flags", "cleared_flags", "persisting_flags"
+    ).sort("building_id")
 
 
 # ---------------------------------------------------------------------------- run
 
-def run(*, config_path: str | None = None, overrides: dict | None = None, out_dir: str | None = None,
-        force: bool = False, quiet: bool = False, progress: bool = False) -> RunResult:
+
+def run(
+    *,
+    config_path: str | None = None,
+    overrides: dict | None = None,
+    out_dir: str | None = None,
+    force: bool = False,
+    quiet: bool = False,
+    progress: bool = False,
+) -> RunResult:
     """Load, screen and write one run.
 
     With ``out_dir`` the outputs go exactly there (replaced as a whole); without it they
@@ -205,7 +249,7 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
     """
     cfg = cfgmod.load(config_path, overrides)
     a = cfg["analysis"]
-    as_of, window = cfgmod.run_window(cfg)   # ranges checked by cfgmod.load
+    as_of, window = cfgmod.run_window(cfg)  # ranges checked by cfgmod.load
     label = quarter_label(window[1]) if not a["window_from"] else f"{window[0]}_{window[1]}"
     files = {k: _expand(cfg["inputs"][k], k) for k in pipeline.KINDS}
     if cfg["inputs"]["events"]:  # optional (issue 17); read on every run, not stored
@@ -231,14 +275,27 @@ def run(*, config_path: str | None = None, overrides: dict | None = None, out_di
     with interrupts.stop_on_signals(), _Lock(str(db_path) + ".lock"):  # SIGINT/SIGTERM -> Interrupted
         bar = _Progress(progress and not quiet)
         try:
-            return _run_locked(cfg, files, db_path, target, root, label, as_of, window, force=force,
-                               config_path=config_path, bar=bar)
+            return _run_locked(
+                cfg, files, db_path, target, root, label, as_of, window, force=force, config_path=config_path, bar=bar
+            )
         finally:
             bar.close()
 
 
-def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_of, window, *, force, config_path,
-                bar: "_Progress | None" = None):
+def _run_locked(
+    cfg,
+    files,
+    db_path,
+    target: Path,
+    root: Path | None,
+    label,
+    as_of,
+    window,
+    *,
+    force,
+    config_path,
+    bar: "_Progress | None" = None,
+):
     """The run under the lock, in three phases.
 
     1. With the database open: settle what dead runs left, check the output folder (a refusal
@@ -256,7 +313,9 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
     # same for a rerun of the same quarter, inputs and settings, so reruns stay byte-identical. run_id
     # names this execution in the database and the run log; lookups accept either (_resolve_run).
     run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
-    run_key = _run_key(label, cfg, files)  # the id users see: the same for a rerun of the same quarter, inputs, settings
+    run_key = _run_key(
+        label, cfg, files
+    )  # the id users see: the same for a rerun of the same quarter, inputs, settings
     store: Store | None  # None while the database is closed for readers (the screening phase)
     store = _open_store(db_path)
     try:
@@ -270,7 +329,9 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.tmp-", dir=target.parent))
     except OSError as exc:
         store.close()
-        raise OutputError(f"{target.parent}: cannot write there ({exc.strerror or exc}); earlier outputs untouched") from None
+        raise OutputError(
+            f"{target.parent}: cannot write there ({exc.strerror or exc}); earlier outputs untouched"
+        ) from None
     umask = os.umask(0)
     os.umask(umask)
     os.chmod(tmp, 0o777 & ~umask)  # mkdtemp makes it private; the published folder is for readers
@@ -282,9 +343,19 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         log.debug("run %s: execution %s", run_key, run_id)
         for n in notes:
             log.warning("%s", n)
-        store.execute("insert_run", {"run_id": run_id, "run_key": run_key, "label": label, "as_of": as_of,
-                                     "window_start": window[0], "window_end": window[1],
-                                     "out_dir": published.folder_key(target, store), "config_hash": cfgmod.config_hash(cfg)})
+        store.execute(
+            "insert_run",
+            {
+                "run_id": run_id,
+                "run_key": run_key,
+                "label": label,
+                "as_of": as_of,
+                "window_start": window[0],
+                "window_end": window[1],
+                "out_dir": published.folder_key(target, store),
+                "config_hash": cfgmod.config_hash(cfg),
+            },
+        )
         opts = pipeline.read_options(cfg)
         t = time.perf_counter()
         bar.stage("load inputs")
@@ -307,15 +378,21 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         events, ev_rej, then, plan_ctx = None, None, None, None
         if files.get("events"):  # issue 17: read on every run; what earlier runs said of the audited buildings
             from . import events as evmod
+
             events, ev_rej, ev_notes = evmod.read_all(files["events"], opts, b["building_id"])
             for n in ev_notes:
                 log.warning("%s", n)
             then = evmod.audits_then(store, events)
-            plan_ctx = evmod.plan_context(events, then, window_end=window[1],
-                                          rest_quarters=cfg["plan"]["clean_audit_rest_quarters"],
-                                          regrow=cfg["plan"]["clean_audit_regrow"],
-                                          blackout_days=cfg["savings"]["blackout_days"], window_start=window[0],
-                                          judge_min_days=cfg["savings"]["post_measure_min_days"])
+            plan_ctx = evmod.plan_context(
+                events,
+                then,
+                window_end=window[1],
+                rest_quarters=cfg["plan"]["clean_audit_rest_quarters"],
+                regrow=cfg["plan"]["clean_audit_regrow"],
+                blackout_days=cfg["savings"]["blackout_days"],
+                window_start=window[0],
+                judge_min_days=cfg["savings"]["post_measure_min_days"],
+            )
         store.close()  # phase 2: the database stays free for readers
         store = None
         bar.stage("screen")
@@ -324,18 +401,30 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         # chunk's readings come from the store (many buildings, one readings file)
         src = StoreReadings(str(db_path)) if in_chunks else None
         try:
-            res = pipeline.screen_frames(b, src if src is not None else stored.pop("readings"), w, cfg,
-                                         window=window, paths=paths, previous=previous, events=events,
-                                         plan_context=plan_ctx, chunk_buildings=cfg["run"]["chunk_buildings"])
+            res = pipeline.screen_frames(
+                b,
+                src if src is not None else stored.pop("readings"),
+                w,
+                cfg,
+                window=window,
+                paths=paths,
+                previous=previous,
+                events=events,
+                plan_context=plan_ctx,
+                chunk_buildings=cfg["run"]["chunk_buildings"],
+            )
         finally:
             if src is not None:
                 src.close()
         timings.update(res.timings)
         _stage("after_screen")
         bar.stage("write tables")
-        rejects = outputs.rejects_table(pl.concat([load_rej.cast(REJECT_SCHEMA), cross_rej.cast(REJECT_SCHEMA),
-                                                   res.rejects.cast(REJECT_SCHEMA)]
-                                                  + ([ev_rej.cast(REJECT_SCHEMA)] if ev_rej is not None else [])))
+        rejects = outputs.rejects_table(
+            pl.concat(
+                [load_rej.cast(REJECT_SCHEMA), cross_rej.cast(REJECT_SCHEMA), res.rejects.cast(REJECT_SCHEMA)]
+                + ([ev_rej.cast(REJECT_SCHEMA)] if ev_rej is not None else [])
+            )
+        )
         disp = outputs.Display(cfg["analysis"]["units"])
         change = _change_table(prev_results, res.results)
         ranking = outputs.ranking_table(res.results, disp, change)
@@ -348,62 +437,111 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         assumptions = outputs.assumptions_table(res.envelope, disp)
         outputs.write_csv(assumptions, tmp / "assumptions.csv")
         from .xlsxout import write_ranking_xlsx
-        write_ranking_xlsx(tmp / "ranking.xlsx", ranking=ranking, issues=res.issues.sort("building_id", "code"),
-                           rejects=rejects, assumptions=assumptions, disp=disp, currency=cfg["prices"]["currency"],
-                           plan=plan)
+
+        write_ranking_xlsx(
+            tmp / "ranking.xlsx",
+            ranking=ranking,
+            issues=res.issues.sort("building_id", "code"),
+            rejects=rejects,
+            assumptions=assumptions,
+            disp=disp,
+            currency=cfg["prices"]["currency"],
+            plan=plan,
+        )
         summary = _summary(run_key, label, as_of, window, cfg, res, rejects, loads, prev[0][1] if prev else None)
         if res.learning is not None:  # learning from audits (issue 17): the defaults' bias per era x use type
             from . import learning
+
             summary["audit_bias"] = learning.bias_summary(res.learning, cfg["learning"]["min_audits"])
         savings_csv = None
         if res.savings is not None:  # savings after a measure (issue 17)
             from . import events as evmod
-            savings_csv = evmod.savings_table(res.savings, si=disp.si, currency=cfg["prices"]["currency"],
-                                              kbtu_to_kwh=outputs.KBTU_TO_KWH)
+
+            savings_csv = evmod.savings_table(
+                res.savings, si=disp.si, currency=cfg["prices"]["currency"], kbtu_to_kwh=outputs.KBTU_TO_KWH
+            )
             outputs.write_csv(savings_csv, tmp / "savings.csv")
             summary["savings"] = evmod.savings_totals(res.savings, si=disp.si, kbtu_to_kwh=outputs.KBTU_TO_KWH)
             if events is not None and then is not None:
                 summary["audit_hit_rate"] = evmod.hit_rate(events, then)
-            notes_df = res.results.filter(pl.col("plan_note").is_not_null()) if "plan_note" in res.results.columns \
+            notes_df = (
+                res.results.filter(pl.col("plan_note").is_not_null())
+                if "plan_note" in res.results.columns
                 else res.results.clear()
-            summary["plan_notes"] = [{"building_id": r["building_id"], "rank": r["rank"], "tier": r["tier"],
-                                      "note": r["plan_note"]} for r in notes_df.sort("rank").iter_rows(named=True)]
+            )
+            summary["plan_notes"] = [
+                {"building_id": r["building_id"], "rank": r["rank"], "tier": r["tier"], "note": r["plan_note"]}
+                for r in notes_df.sort("rank").iter_rows(named=True)
+            ]
         timings["csv"] = round(time.perf_counter() - t, 4)
         paper = cfg["output"]["paper"]
         paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
         from . import report
-        sheet_files: dict[str, str] | None = None   # building_id -> its sheet, relative to the folder
+
+        sheet_files: dict[str, str] | None = None  # building_id -> its sheet, relative to the folder
         if cfg["output"]["sheets"]:
             bar.stage("render sheets")
             t = time.perf_counter()
             since = None
             if res.savings is not None and res.savings_periods is not None and events is not None:
                 from . import events as evmod
-                since = evmod.since_measure(res.savings, res.savings_periods, events, si=disp.si,
-                                            currency=cfg["prices"]["currency"], kbtu_to_kwh=outputs.KBTU_TO_KWH)
-            sheets = outputs.sheet_records(res.results, res.envelope, res.periods, disp, run_id=run_key,
-                                           run_date=str(_dt.date.today()), currency=cfg["prices"]["currency"],
-                                           since_measure=since)
+
+                since = evmod.since_measure(
+                    res.savings,
+                    res.savings_periods,
+                    events,
+                    si=disp.si,
+                    currency=cfg["prices"]["currency"],
+                    kbtu_to_kwh=outputs.KBTU_TO_KWH,
+                )
+            sheets = outputs.sheet_records(
+                res.results,
+                res.envelope,
+                res.periods,
+                disp,
+                run_id=run_key,
+                run_date=str(_dt.date.today()),
+                currency=cfg["prices"]["currency"],
+                since_measure=since,
+            )
             (tmp / "sheets").mkdir()
             names = report.assign_filenames([s["building_id"] for s in sheets])
             report.render_sheets(sheets, tmp / "sheets", paper=paper, workers=_workers(cfg["output"]["workers"]))
             timings["sheets"] = round(time.perf_counter() - t, 4)
             sheet_files = {b: f"sheets/{v}.pdf" for b, v in names.items()}
-            outputs.write_csv(pl.DataFrame({"building_id": list(sheet_files), "file": list(sheet_files.values())}),
-                              tmp / "sheets_index.csv")
+            outputs.write_csv(
+                pl.DataFrame({"building_id": list(sheet_files), "file": list(sheet_files.values())}),
+                tmp / "sheets_index.csv",
+            )
         _stage("after_sheets")
         bar.stage("render ranking")
         t = time.perf_counter()
-        report.render_ranking(outputs.ranking_report(ranking, res.results, summary, disp,
-                                                     currency=cfg["prices"]["currency"],
-                                                     max_rows=cfg["output"]["ranking_pdf_rows"],
-                                                     savings=savings_csv),
-                              tmp / "ranking.pdf", paper=paper)
+        report.render_ranking(
+            outputs.ranking_report(
+                ranking,
+                res.results,
+                summary,
+                disp,
+                currency=cfg["prices"]["currency"],
+                max_rows=cfg["output"]["ranking_pdf_rows"],
+                savings=savings_csv,
+            ),
+            tmp / "ranking.pdf",
+            paper=paper,
+        )
         timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
         from .webpage import write_index
-        write_index(tmp / "index.html", ranking=ranking, results=res.results, plan=plan, summary=summary, disp=disp,
-                    currency=cfg["prices"]["currency"],
-                    sheet_files=sheet_files)
+
+        write_index(
+            tmp / "index.html",
+            ranking=ranking,
+            results=res.results,
+            plan=plan,
+            summary=summary,
+            disp=disp,
+            currency=cfg["prices"]["currency"],
+            sheet_files=sheet_files,
+        )
         timings["total"] = round(time.perf_counter() - t_start, 4)
         summary["timings_s"] = timings
         outputs.write_json(_deterministic(summary), tmp / "summary.json")
@@ -420,12 +558,20 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             store.execute("insert_results", stage_results=stage)
             store.execute("delete_rejects_of_run", {"run_id": run_id})
             store.execute("insert_rejects", {"run_id": run_id}, stage_rejects=rejects)
-            store.execute("record_publishing", {
-                "run_id": run_id, "input_hashes": json.dumps({f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads}
-                                                             | _events_hashes(files.get("events") or [])),
-                "versions": json.dumps(summary["versions"]), "timings": json.dumps(timings),
-                "counts": json.dumps(summary["counts"]), "out_dir": published.folder_key(target, store),
-                "files": json.dumps(files_written, sort_keys=True)})
+            store.execute(
+                "record_publishing",
+                {
+                    "run_id": run_id,
+                    "input_hashes": json.dumps(
+                        {f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads} | _events_hashes(files.get("events") or [])
+                    ),
+                    "versions": json.dumps(summary["versions"]),
+                    "timings": json.dumps(timings),
+                    "counts": json.dumps(summary["counts"]),
+                    "out_dir": published.folder_key(target, store),
+                    "files": json.dumps(files_written, sort_keys=True),
+                },
+            )
         publishing = True
         _stage("before_publish")
         _publish(tmp, target)
@@ -435,21 +581,35 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
         if root is not None:
             _tidy_root(root, store, cfg["output"]["keep"], target)
         # the first visits of this quarter's audit plan, for the console
-        top = ranking.filter(pl.col("tier") == "Audit first").head(5).select(
-            "rank", "building_id", "name", "tier", "ratio", "needs_review", "expected_recoverable_cost",
-            pl.lit(cfg["prices"]["currency"]).alias("currency")).to_dicts()
+        top = (
+            ranking.filter(pl.col("tier") == "Audit first")
+            .head(5)
+            .select(
+                "rank",
+                "building_id",
+                "name",
+                "tier",
+                "ratio",
+                "needs_review",
+                "expected_recoverable_cost",
+                pl.lit(cfg["prices"]["currency"]).alias("currency"),
+            )
+            .to_dicts()
+        )
         return RunResult(run_key, label, target, str(db_path), summary, top, loads, execution_id=run_id)
     except BaseException as exc:
         stop = interrupts.as_interrupted(exc)
         if isinstance(stop, Interrupted):  # SIGINT/SIGTERM: see _interrupted
-            raise _interrupted(stop, run_id, store, db_path, handler, tmp, target, timings,
-                               publishing=publishing) from None
+            raise _interrupted(
+                stop, run_id, store, db_path, handler, tmp, target, timings, publishing=publishing
+            ) from None
         mapped = isinstance(exc, (OSError, MemoryError))
         if isinstance(exc, MemoryError):
             exc = memory.ran_out(exc, need)
         elif isinstance(exc, OSError):  # e.g. a full disk while writing the outputs
-            exc = OutputError(f"{target}: cannot write the outputs ({exc.strerror or exc}); "
-                              "earlier outputs are untouched")
+            exc = OutputError(
+                f"{target}: cannot write the outputs ({exc.strerror or exc}); earlier outputs are untouched"
+            )
         # an expected error is printed once by the CLI; the run log keeps the detail
         expected = isinstance(exc, ScreeningError)
         (log.debug if expected else log.error)("run %s (execution %s) failed: %s", run_key, run_id, exc)
@@ -467,8 +627,9 @@ def _run_locked(cfg, files, db_path, target: Path, root: Path | None, label, as_
             store.close()
 
 
-def _record_failure(store: Store | None, db_path, run_id: str, exc: BaseException, timings: dict, *,
-                    publishing: bool) -> None:
+def _record_failure(
+    store: Store | None, db_path, run_id: str, exc: BaseException, timings: dict, *, publishing: bool
+) -> None:
     """Mark a failed run in the database (reopening it if the run had closed it)."""
     try:
         store = store or _open_store(db_path)
@@ -481,9 +642,19 @@ def _record_failure(store: Store | None, db_path, run_id: str, exc: BaseExceptio
         elif publishing:  # the rename failed and the earlier outputs were put back (see _publish)
             store.execute("set_run_status", {"run_id": run_id, "status": "failed", "message": str(exc)[:500]})
         else:
-            store.execute("finish_run", {"run_id": run_id, "status": "failed", "input_hashes": "{}",
-                                         "versions": "{}", "timings": json.dumps(timings), "counts": "{}",
-                                         "message": str(exc)[:500], "out_dir": ""})
+            store.execute(
+                "finish_run",
+                {
+                    "run_id": run_id,
+                    "status": "failed",
+                    "input_hashes": "{}",
+                    "versions": "{}",
+                    "timings": json.dumps(timings),
+                    "counts": "{}",
+                    "message": str(exc)[:500],
+                    "out_dir": "",
+                },
+            )
     except Exception:  # the database itself may be the problem
         pass
     finally:
@@ -541,9 +712,11 @@ class StoreReadings(pipeline.ReadingsSource):
 def _readings_in_chunks(store: Store, cfg: dict, db_path: str, n_buildings: int) -> bool:
     """Whether the screening pulls each chunk's readings from the store: chunks configured and more
     buildings than one chunk, one readings file, a database file (not ``:memory:``)."""
-    return (pipeline.chunk_size(cfg["run"]["chunk_buildings"], n_buildings) < n_buildings
-            and str(db_path) != ":memory:"
-            and int(store.rows("count_reading_files")[0][0]) <= 1)
+    return (
+        pipeline.chunk_size(cfg["run"]["chunk_buildings"], n_buildings) < n_buildings
+        and str(db_path) != ":memory:"
+        and int(store.rows("count_reading_files")[0][0]) <= 1
+    )
 
 
 def _stored_inputs(store: Store, *, readings: bool = True) -> dict[str, pl.DataFrame]:
@@ -551,8 +724,11 @@ def _stored_inputs(store: Store, *, readings: bool = True) -> dict[str, pl.DataF
     ``buildings``, ``readings`` (unless ``readings`` is false: pulled a chunk at a time), ``weather``
     and the cross-file ``rejects``."""
     frames, rejects = [], []
-    for name, spec in (("select_buildings", sources.BUILDINGS), ("select_readings", sources.READINGS),
-                       ("select_weather", sources.WEATHER)):
+    for name, spec in (
+        ("select_buildings", sources.BUILDINGS),
+        ("select_readings", sources.READINGS),
+        ("select_weather", sources.WEATHER),
+    ):
         if name == "select_readings" and not readings:
             frames.append(pl.DataFrame())
             continue
@@ -571,6 +747,7 @@ def _stored_inputs(store: Store, *, readings: bool = True) -> dict[str, pl.DataF
 def _run_key(label: str, cfg: dict, files: dict[str, list[str]]) -> str:
     """The run's identity: its quarter label and a hash of the input contents, settings and version."""
     import hashlib
+
     h = hashlib.sha256()
     h.update(cfgmod.config_hash(cfg).encode())
     h.update(__version__.encode())
@@ -587,8 +764,9 @@ def _year_ago(store: Store, window) -> pl.DataFrame | None:
     if runs.height == 0:
         return None
     target = window[1] - _dt.timedelta(days=365)
-    cand = runs.filter((pl.col("status") == "ok")
-                       & ((pl.col("window_end") - pl.lit(target)).dt.total_days().abs() <= 45))
+    cand = runs.filter(
+        (pl.col("status") == "ok") & ((pl.col("window_end") - pl.lit(target)).dt.total_days().abs() <= 45)
+    )
     if cand.height == 0:
         return None
     return store.frame("results_of_run", {"run_id": cand["run_id"][0]})
@@ -598,9 +776,18 @@ def _results_for_store(run_id: str, res: pl.DataFrame) -> pl.DataFrame:
     rec_cols = sorted(c for c in res.columns if res.schema[c] != pl.Object)
     records = res.select(pl.struct(rec_cols).struct.json_encode())  # one JSON object per building, keys sorted
     return res.select(
-        pl.lit(run_id).alias("run_id"), "building_id", pl.col("rank").cast(pl.Int32), "tier", "needs_review",
-        "ratio", "actual_heating_kbtu", "expected_heating_kbtu", "normal_heating_kbtu", "excess_energy_kbtu",
-        "excess_cost", pl.col("flag_codes").list.join(";").alias("flags"),
+        pl.lit(run_id).alias("run_id"),
+        "building_id",
+        pl.col("rank").cast(pl.Int32),
+        "tier",
+        "needs_review",
+        "ratio",
+        "actual_heating_kbtu",
+        "expected_heating_kbtu",
+        "normal_heating_kbtu",
+        "excess_energy_kbtu",
+        "excess_cost",
+        pl.col("flag_codes").list.join(";").alias("flags"),
         pl.col("data_issue_codes").list.join(";").alias("data_issues"),
     ).with_columns(records.to_series().alias("record"))
 
@@ -613,36 +800,66 @@ def _summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id) ->
     disp = outputs.Display(cfg["analysis"]["units"])
     ee = r["excess_energy_kbtu"].fill_null(0).sum()
     return {
-        "run_id": run_id, "label": label, "as_of": str(as_of), "window": [str(window[0]), str(window[1])],
-        "run_date": str(_dt.date.today()), "units": cfg["analysis"]["units"], "previous_run": prev_id,
-        "counts": {"buildings": r.height, "needs_review": int(r["needs_review"].sum()),
-                   "with_data_issues": int((r["data_issue_codes"].list.len() > 0).sum()),
-                   "blocked_by_data": int(r["blocking"].sum()),
-                   "rejected_rows": rejects.height,
-                   "per_tier": dict(sorted(per_tier.items())),
-                   "needs_review_by_path": {k: int(v) for k, v in sorted(
-                       r.filter(pl.col("needs_review")).group_by("review_path").len().iter_rows())},
-                   "per_flag": {k: int(v) for k, v in sorted(flags.iter_rows())},
-                   # which scale judged each building's level: peers, the model's own band, or a blend
-                   "evidence_scale": {k: int(v) for k, v in sorted(
-                       r.filter(pl.col("evidence_scale").is_not_null()).group_by("evidence_scale").len().iter_rows())},
-                   "audit_plan": int(r["in_plan"].sum()),
-                   "per_data_issue": {k: int(v) for k, v in sorted(issues.iter_rows())}},
+        "run_id": run_id,
+        "label": label,
+        "as_of": str(as_of),
+        "window": [str(window[0]), str(window[1])],
+        "run_date": str(_dt.date.today()),
+        "units": cfg["analysis"]["units"],
+        "previous_run": prev_id,
+        "counts": {
+            "buildings": r.height,
+            "needs_review": int(r["needs_review"].sum()),
+            "with_data_issues": int((r["data_issue_codes"].list.len() > 0).sum()),
+            "blocked_by_data": int(r["blocking"].sum()),
+            "rejected_rows": rejects.height,
+            "per_tier": dict(sorted(per_tier.items())),
+            "needs_review_by_path": {
+                k: int(v) for k, v in sorted(r.filter(pl.col("needs_review")).group_by("review_path").len().iter_rows())
+            },
+            "per_flag": {k: int(v) for k, v in sorted(flags.iter_rows())},
+            # which scale judged each building's level: peers, the model's own band, or a blend
+            "evidence_scale": {
+                k: int(v)
+                for k, v in sorted(
+                    r.filter(pl.col("evidence_scale").is_not_null()).group_by("evidence_scale").len().iter_rows()
+                )
+            },
+            "audit_plan": int(r["in_plan"].sum()),
+            "per_data_issue": {k: int(v) for k, v in sorted(issues.iter_rows())},
+        },
         # sums over buildings without blocking data problems (those carry no excess)
-        "totals": {"excess_energy": round(float(ee * (outputs.KBTU_TO_KWH if disp.si else 1.0)), 1),
-                   "energy_unit": disp.energy_unit,
-                   "excess_cost": round(float(r["excess_cost"].fill_null(0).sum()), 2),
-                   "excess_co2e_kg": round(float(r["excess_co2e_kg"].fill_null(0).sum()), 1),
-                   "audit_list_excess_energy": round(float(
-                       r.filter(pl.col("needs_review"))["excess_energy_kbtu"].fill_null(0).sum()
-                       * (outputs.KBTU_TO_KWH if disp.si else 1.0)), 1),
-                   "audit_list_excess_cost": round(float(
-                       r.filter(pl.col("needs_review"))["excess_cost"].fill_null(0).sum()), 2),
-                   "expected_recoverable_cost": round(float(r["expected_recoverable_cost"].fill_null(0).sum()), 2),
-                   "audit_plan_expected_recoverable_cost": round(float(
-                       r.filter(pl.col("in_plan"))["expected_recoverable_cost"].fill_null(0).sum()), 2)},
-        "inputs": [{"kind": fl.kind, "path": fl.path, "sha256": fl.sha256, "status": fl.status,
-                    "rows": fl.rows, "rejected": fl.rejected} for fl in loads],
+        "totals": {
+            "excess_energy": round(float(ee * (outputs.KBTU_TO_KWH if disp.si else 1.0)), 1),
+            "energy_unit": disp.energy_unit,
+            "excess_cost": round(float(r["excess_cost"].fill_null(0).sum()), 2),
+            "excess_co2e_kg": round(float(r["excess_co2e_kg"].fill_null(0).sum()), 1),
+            "audit_list_excess_energy": round(
+                float(
+                    r.filter(pl.col("needs_review"))["excess_energy_kbtu"].fill_null(0).sum()
+                    * (outputs.KBTU_TO_KWH if disp.si else 1.0)
+                ),
+                1,
+            ),
+            "audit_list_excess_cost": round(
+                float(r.filter(pl.col("needs_review"))["excess_cost"].fill_null(0).sum()), 2
+            ),
+            "expected_recoverable_cost": round(float(r["expected_recoverable_cost"].fill_null(0).sum()), 2),
+            "audit_plan_expected_recoverable_cost": round(
+                float(r.filter(pl.col("in_plan"))["expected_recoverable_cost"].fill_null(0).sum()), 2
+            ),
+        },
+        "inputs": [
+            {
+                "kind": fl.kind,
+                "path": fl.path,
+                "sha256": fl.sha256,
+                "status": fl.status,
+                "rows": fl.rows,
+                "rejected": fl.rejected,
+            }
+            for fl in loads
+        ],
         "normal_years": res.normal_years,
         "versions": _versions(),
     }
@@ -671,8 +888,9 @@ def _publish(tmp: Path, target: Path) -> None:
                 os.replace(old, target)
             except OSError:
                 pass  # the next run puts them back (see _clean_stale_temp)
-        raise OutputError(f"{target}: cannot move the outputs into place ({exc.strerror or exc}); "
-                          "earlier outputs are untouched") from None
+        raise OutputError(
+            f"{target}: cannot move the outputs into place ({exc.strerror or exc}); earlier outputs are untouched"
+        ) from None
     if old is not None:
         shutil.rmtree(old, ignore_errors=True)
 
@@ -705,7 +923,7 @@ def _clean_stale_temp(target: Path, current: Path | None) -> list[str]:
         logf = p / "run.log"
         try:
             if logf.exists():
-                stamp = _dt.datetime.fromtimestamp(logf.stat().st_mtime).strftime('%Y%m%dT%H%M%S')
+                stamp = _dt.datetime.fromtimestamp(logf.stat().st_mtime).strftime("%Y%m%dT%H%M%S")
                 shutil.move(str(logf), parent / f"{name}.interrupted-{stamp}.log")
         except OSError:
             pass
@@ -728,8 +946,19 @@ def _keep_failure_log(tmp: Path, target: Path, *, quiet: bool = False) -> None:
 
 # ---------------------------------------------------------------------------- SIGINT and SIGTERM
 
-def _interrupted(exc: Interrupted, run_id: str, store: Store | None, db_path, handler: logging.Handler, tmp: Path,
-                 target: Path, timings: dict, *, publishing: bool) -> Interrupted:
+
+def _interrupted(
+    exc: Interrupted,
+    run_id: str,
+    store: Store | None,
+    db_path,
+    handler: logging.Handler,
+    tmp: Path,
+    target: Path,
+    timings: dict,
+    *,
+    publishing: bool,
+) -> Interrupted:
     """Clean up after a stop signal; returns the exception to raise (its message says what became
     of the outputs). Further SIGINT/SIGTERM are ignored meanwhile (screening/interrupts.py).
 
@@ -742,8 +971,12 @@ def _interrupted(exc: Interrupted, run_id: str, store: Store | None, db_path, ha
     """
     interrupts.pause_point("cleanup")  # test hook: a second signal arrives here
     in_place = publishing and not tmp.exists() and target.exists()
-    exc = Interrupted(exc.signum, f"the outputs were already moved into place ({target})" if in_place
-                      else "nothing was published, earlier outputs are untouched")
+    exc = Interrupted(
+        exc.signum,
+        f"the outputs were already moved into place ({target})"
+        if in_place
+        else "nothing was published, earlier outputs are untouched",
+    )
     log.debug("run %s: %s", run_id, exc)
     log.removeHandler(handler)
     handler.close()
@@ -754,9 +987,19 @@ def _interrupted(exc: Interrupted, run_id: str, store: Store | None, db_path, ha
         elif publishing:
             store.execute("set_run_status", {"run_id": run_id, "status": "interrupted", "message": str(exc)[:500]})
         else:
-            store.execute("finish_run", {"run_id": run_id, "status": "interrupted", "input_hashes": "{}",
-                                         "versions": "{}", "timings": json.dumps(timings), "counts": "{}",
-                                         "message": str(exc)[:500], "out_dir": ""})
+            store.execute(
+                "finish_run",
+                {
+                    "run_id": run_id,
+                    "status": "interrupted",
+                    "input_hashes": "{}",
+                    "versions": "{}",
+                    "timings": json.dumps(timings),
+                    "counts": "{}",
+                    "message": str(exc)[:500],
+                    "out_dir": "",
+                },
+            )
     except Exception:  # noqa: BLE001 - the database may be what was interrupted; the next run settles it
         pass
     finally:
@@ -765,7 +1008,7 @@ def _interrupted(exc: Interrupted, run_id: str, store: Store | None, db_path, ha
     logf = tmp / "run.log"
     try:
         if logf.exists():
-            stamp = _dt.datetime.now().strftime('%Y%m%dT%H%M%S')
+            stamp = _dt.datetime.now().strftime("%Y%m%dT%H%M%S")
             shutil.move(str(logf), target.parent / f"{target.name}.interrupted-{stamp}.log")
     except OSError:
         pass
@@ -777,8 +1020,10 @@ def _interrupted(exc: Interrupted, run_id: str, store: Store | None, db_path, ha
 
 # ---------------------------------------------------------------------------- other commands
 
-def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: bool = True,
-         progress: bool = False) -> RunResult:
+
+def demo(
+    out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: bool = True, progress: bool = False
+) -> RunResult:
     """Screen the packaged sample portfolio into ``out_dir`` (its own database inside).
 
     The sample's events file (audits, measures) goes with it. The quarter two before is screened first,
@@ -787,10 +1032,17 @@ def demo(out_dir: str = "ddscreen-demo", *, as_of: str = "2026-10-15", sheets: b
     """
     src = sample_portfolio_dir()
     out = Path(out_dir)
-    overrides = {"inputs": {"buildings": str(src / "buildings.csv"), "readings": str(src / "readings.csv"),
-                            "weather": str(src / "weather.csv"), "events": str(src / "events.csv")},
-                 "store": {"database": str(out / "screening.duckdb")},
-                 "analysis": {"as_of": as_of}, "output": {"sheets": sheets}}
+    overrides = {
+        "inputs": {
+            "buildings": str(src / "buildings.csv"),
+            "readings": str(src / "readings.csv"),
+            "weather": str(src / "weather.csv"),
+            "events": str(src / "events.csv"),
+        },
+        "store": {"database": str(out / "screening.duckdb")},
+        "analysis": {"as_of": as_of},
+        "output": {"sheets": sheets},
+    }
     out.mkdir(parents=True, exist_ok=True)
     return _demo_run(overrides, out, progress=progress)
 
@@ -800,8 +1052,11 @@ def _demo_earlier(overrides: dict, out: Path, *, progress: bool) -> None:
     as_of = _dt.date.fromisoformat(overrides["analysis"]["as_of"])
     m = as_of.month - 6
     earlier = _dt.date(as_of.year + (m - 1) // 12, (m - 1) % 12 + 1, min(as_of.day, 28))
-    ov = {**overrides, "analysis": {**overrides["analysis"], "as_of": str(earlier)},
-          "output": {**overrides["output"], "sheets": False}}
+    ov = {
+        **overrides,
+        "analysis": {**overrides["analysis"], "as_of": str(earlier)},
+        "output": {**overrides["output"], "sheets": False},
+    }
     _, window = cfgmod.run_window(cfgmod.load(None, ov))
     run(overrides=ov, out_dir=str(out / quarter_label(window[1])), force=True, quiet=True, progress=progress)
 
@@ -809,9 +1064,21 @@ def _demo_earlier(overrides: dict, out: Path, *, progress: bool) -> None:
 # Every top-level name a run writes into its output folder (tests/test_unattended.py checks
 # that a run writes nothing else): the demo, which writes into a folder of its own choosing,
 # replaces only these, and only when they are what its previous run wrote.
-OUTPUT_NAMES = ("assumptions.csv", "audit_plan.csv", "data_issues.csv", "index.html", "ranking.csv", "ranking.pdf",
-                "ranking.xlsx", "rejects.csv", "run.log", "savings.csv",
-                "sheets", "sheets_index.csv", "summary.json")
+OUTPUT_NAMES = (
+    "assumptions.csv",
+    "audit_plan.csv",
+    "data_issues.csv",
+    "index.html",
+    "ranking.csv",
+    "ranking.pdf",
+    "ranking.xlsx",
+    "rejects.csv",
+    "run.log",
+    "savings.csv",
+    "sheets",
+    "sheets_index.csv",
+    "summary.json",
+)
 
 
 def _demo_run(overrides: dict, out: Path, *, progress: bool = False) -> RunResult:
@@ -823,9 +1090,11 @@ def _demo_run(overrides: dict, out: Path, *, progress: bool = False) -> RunResul
     tmp_out = out / ".run"
     foreign = _demo_foreign(out, Path(overrides["store"]["database"]), tmp_out)
     if foreign:
-        raise ConfigError(f"{out}: holds {', '.join(foreign[:3])}{' and more' if len(foreign) > 3 else ''}, "
-                          "which ddscreen demo did not write (or which were changed since); nothing was changed "
-                          "(choose another --out folder)")
+        raise ConfigError(
+            f"{out}: holds {', '.join(foreign[:3])}{' and more' if len(foreign) > 3 else ''}, "
+            "which ddscreen demo did not write (or which were changed since); nothing was changed "
+            "(choose another --out folder)"
+        )
     if tmp_out.exists():
         shutil.rmtree(tmp_out)  # what a killed demo left
     if overrides["inputs"].get("events"):
@@ -869,15 +1138,22 @@ class Validation:
     problems: list[str]
     rows: dict[str, int]
     notices: list[str]
-    suggestions: list[str] = field(default_factory=list)   # TOML column mappings to confirm, one per file
+    suggestions: list[str] = field(default_factory=list)  # TOML column mappings to confirm, one per file
 
     @property
     def ok(self) -> bool:
         return not self.problems
 
 
-def validate(buildings: str | None = None, readings: str | None = None, weather: str | None = None, *,
-             config_path: str | None = None, overrides: dict | None = None, events: str | None = None) -> Validation:
+def validate(
+    buildings: str | None = None,
+    readings: str | None = None,
+    weather: str | None = None,
+    *,
+    config_path: str | None = None,
+    overrides: dict | None = None,
+    events: str | None = None,
+) -> Validation:
     """Check the three kinds of file, and an events file when given; report every problem; load nothing.
 
     A kind not given here is taken from the config's ``[inputs]`` (a glob: every file it matches, each
@@ -910,23 +1186,35 @@ def validate(buildings: str | None = None, readings: str | None = None, weather:
             notices.extend(ld.notices)
             rejects.append(ld.rejects.cast(REJECT_SCHEMA))
     if any(len(v) > 1 for v in paths.values()):
-        notices.append("several files of a kind: each was checked on its own; the checks across files "
-                       "(readings of unknown buildings, stations without weather) run with `ddscreen run`")
+        notices.append(
+            "several files of a kind: each was checked on its own; the checks across files "
+            "(readings of unknown buildings, stations without weather) run with `ddscreen run`"
+        )
     if len(loaded) == 3:
         buildings, readings = paths["buildings"][0], paths["readings"][0]
         from . import units
+
         stations = sorted(loaded["weather"].df["station_id"].unique().to_list())
-        b, r, rej = pipeline._cross_check(loaded["buildings"].df, loaded["readings"].df, stations,
-                                          {"buildings": buildings, "readings": readings})
+        b, r, rej = pipeline._cross_check(
+            loaded["buildings"].df, loaded["readings"].df, stations, {"buildings": buildings, "readings": readings}
+        )
         rejects.append(rej.cast(REJECT_SCHEMA))
-        _, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=cfg["analysis"]["gas_btu_per_ft3"],
-                                           steam_btu_per_lb=cfg["analysis"]["steam_btu_per_lb"])
-        rejects.append(conv_rej.select(pl.lit(readings).alias("file"), "line", "column",
-                                       pl.col("value").cast(pl.String), "reason").cast(REJECT_SCHEMA))
+        _, conv_rej = units.convert_to_kbtu(
+            r,
+            b,
+            gas_btu_per_ft3=cfg["analysis"]["gas_btu_per_ft3"],
+            steam_btu_per_lb=cfg["analysis"]["steam_btu_per_lb"],
+        )
+        rejects.append(
+            conv_rej.select(
+                pl.lit(readings).alias("file"), "line", "column", pl.col("value").cast(pl.String), "reason"
+            ).cast(REJECT_SCHEMA)
+        )
     events = events or cfg["inputs"]["events"] or None
     ev_paths = _expand(events, "events") if events else []
     for path in ev_paths:  # issue 16/17: the events file, against the accepted buildings when they were read
         from . import events as evmod
+
         try:
             ld = evmod.read_events(path, opts, loaded["buildings"].df["building_id"] if "buildings" in loaded else None)
         except InputError as exc:
@@ -939,11 +1227,16 @@ def validate(buildings: str | None = None, readings: str | None = None, weather:
         rejects.append(ld.rejects.cast(REJECT_SCHEMA))
     order = {str(p): i for i, p in enumerate([*(p for v in paths.values() for p in v), *ev_paths])}
     if rejects:
-        allrej = pl.concat(rejects).with_columns(pl.col("file").replace_strict(order, default=9).alias("_k")) \
+        allrej = (
+            pl.concat(rejects)
+            .with_columns(pl.col("file").replace_strict(order, default=9).alias("_k"))
             .sort("_k", "line", "column")
+        )
         for r in allrej.iter_rows(named=True):
-            problems.append(f"{r['file']}, line {r['line']}, column {r['column']!r}: {r['reason']}"
-                            + (f" (got {r['value']!r})" if r["value"] is not None else ""))
+            problems.append(
+                f"{r['file']}, line {r['line']}, column {r['column']!r}: {r['reason']}"
+                + (f" (got {r['value']!r})" if r["value"] is not None else "")
+            )
     return Validation(problems, rows, notices, suggestions)
 
 
@@ -951,6 +1244,7 @@ def _mapping_suggestion(kind: str, path: str, opts) -> list[str]:
     """A ``[inputs.columns.KIND]`` block for a file that lacks required columns (or nothing to suggest)."""
     from . import colmap
     from .csvread import read_header
+
     try:
         header = read_header(path, delimiter=opts.delimiter, encoding=opts.encoding)
     except InputError:
@@ -960,7 +1254,8 @@ def _mapping_suggestion(kind: str, path: str, opts) -> list[str]:
     free = [h for h in header if h.strip().lower() not in norm_given]
     taken = set(given.values())
     pairs = [(t, o, "") for t, o in given.items()] + [
-        (t, o, w) for t, o, w in colmap.suggest(free, kind) if o not in taken]
+        (t, o, w) for t, o, w in colmap.suggest(free, kind) if o not in taken
+    ]
     if len(pairs) == len(given):
         return []
     missing = colmap.missing_after(header, kind, {t: o for t, o, _ in pairs})
@@ -980,8 +1275,9 @@ def status(db_path: str, limit: int = 10) -> pl.DataFrame:
         return _as_seen(store, db_path, store.frame("list_runs", {"limit": limit}))
 
 
-def history(db_path: str, run_a: str | None = None, run_b: str | None = None,
-            events: list[str] | None = None) -> tuple[pl.DataFrame, pl.DataFrame | None]:
+def history(
+    db_path: str, run_a: str | None = None, run_b: str | None = None, events: list[str] | None = None
+) -> tuple[pl.DataFrame, pl.DataFrame | None]:
     """The list of runs, and the difference between two runs (default: the last two successful).
 
     The difference gains ``events``: per building, the events dated after the older run's window
@@ -1001,15 +1297,19 @@ def history(db_path: str, run_a: str | None = None, run_b: str | None = None,
             run_a, run_b = (_resolve_run(store, db_path, rid) for rid in (run_a, run_b))
         old = store.frame("results_of_run", {"run_id": run_a})
         new = store.frame("results_of_run", {"run_id": run_b})
-        (_, end_a), = store.rows("run_inputs", {"run_id": run_a})
-        (recorded, end_b), = store.rows("run_inputs", {"run_id": run_b})
+        ((_, end_a),) = store.rows("run_inputs", {"run_id": run_a})
+        ((recorded, end_b),) = store.rows("run_inputs", {"run_id": run_b})
     diff = diff_results(old, new)
-    paths = [p for pat in events for p in _expand(pat, "events")] if events else \
-        [k.split(":", 1)[1] for k in json.loads(recorded or "{}") if k.startswith("events:")]
+    paths = (
+        [p for pat in events for p in _expand(pat, "events")]
+        if events
+        else [k.split(":", 1)[1] for k in json.loads(recorded or "{}") if k.startswith("events:")]
+    )
     paths = [p for p in paths if Path(p).is_file()]
     if not paths:
         return runs, diff.with_columns(pl.lit(None, dtype=pl.String).alias("events"))
     from . import events as evmod
+
     ev, _rej, _notes = evmod.read_all(paths, pipeline.ReadOptions(), None)
     return runs, diff.join(evmod.events_between(ev, end_a, end_b), on="building_id", how="left")
 
@@ -1073,7 +1373,7 @@ def _lock_held(path: str) -> bool:
         return False
     try:
         return not locking.try_lock(fh, shared=True)
-    except OSError:   # no lock on this platform: nothing can hold one
+    except OSError:  # no lock on this platform: nothing can hold one
         return False
     finally:
         fh.close()
@@ -1082,8 +1382,11 @@ def _lock_held(path: str) -> bool:
 def _as_seen(store: Store, db_path: str, runs: pl.DataFrame) -> pl.DataFrame:
     """Runs as a reader should see them: output folders in full, and a dead run's open row with
     the status the next run will record."""
-    runs = runs.with_columns(pl.Series("out_dir", [str(published.folder_of(od, store)) if od else ""
-                                                   for od in runs["out_dir"]], dtype=pl.String))
+    runs = runs.with_columns(
+        pl.Series(
+            "out_dir", [str(published.folder_of(od, store)) if od else "" for od in runs["out_dir"]], dtype=pl.String
+        )
+    )
     open_rows = runs.filter(pl.col("status").is_in(["running", "publishing"]))
     if open_rows.height == 0:
         return runs
@@ -1092,8 +1395,10 @@ def _as_seen(store: Store, db_path: str, runs: pl.DataFrame) -> pl.DataFrame:
         files = dict((rid, f) for rid, _out, f, _shown in store.rows("runs_publishing"))
     except (StoreError, duckdb.Error):  # a database of version 1 has no files column
         files = {}
-    seen = [published.display_status(st, Path(od), files.get(rid), lock_held=held)
-            for rid, st, od in runs.select("run_id", "status", "out_dir").iter_rows()]
+    seen = [
+        published.display_status(st, Path(od), files.get(rid), lock_held=held)
+        for rid, st, od in runs.select("run_id", "status", "out_dir").iter_rows()
+    ]
     return runs.with_columns(pl.Series("status", seen, dtype=pl.String))
 
 
@@ -1107,8 +1412,9 @@ CONFIG_TEMPLATE_HEADER = """# ddscreen configuration (TOML). Every key is option
 TEMPLATE_EXAMPLES = {("reading", "thousands"): '","'}
 
 
-def init_config(path: str, *, overwrite: bool = False, sources: list[str] | None = None,
-                report: list[str] | None = None) -> Path:
+def init_config(
+    path: str, *, overwrite: bool = False, sources: list[str] | None = None, report: list[str] | None = None
+) -> Path:
     """Write a commented configuration template with every key and its default.
 
     With ``sources`` (files, or ``KIND=FILE``) the inputs point at those files, each file's kind
@@ -1120,6 +1426,7 @@ def init_config(path: str, *, overwrite: bool = False, sources: list[str] | None
     if p.exists() and not overwrite:
         raise ConfigError(f"{p} exists; use --force to overwrite it")
     from .config import DEFAULTS, template_comments
+
     report = report if report is not None else []
     inputs, blocks = _infer_inputs(sources or [], p, report)
     reading, why = _infer_number_format(sources or [], report)
@@ -1136,8 +1443,10 @@ def init_config(path: str, *, overwrite: bool = False, sources: list[str] | None
             if isinstance(value, dict):
                 lines.append(f"# {key}: your column names → ours, one table per file kind, e.g.")
                 lines.append("#   [inputs.columns.readings]")
-                lines.append('#   "Usage" = "quantity"' + ("   (the tables inferred from your files are at the end)"
-                                                           if blocks else ""))
+                lines.append(
+                    '#   "Usage" = "quantity"'
+                    + ("   (the tables inferred from your files are at the end)" if blocks else "")
+                )
                 continue
             if value is None:
                 lines.append(f"# {key} = 0.37" + (f"  # {comment}" if comment else ""))
@@ -1163,6 +1472,7 @@ def _infer_inputs(sources: list[str], cfg_path: Path, report: list[str]) -> tupl
     from . import colmap
     from .config import column_names
     from .csvread import read_header, split_sheet
+
     inputs: dict[str, str] = {}
     blocks: list[str] = []
     for src in sources:
@@ -1179,8 +1489,10 @@ def _infer_inputs(sources: list[str], cfg_path: Path, report: list[str]) -> tupl
         else:
             kind, sug, missing = colmap.best_kind(header)
         if kind in inputs:
-            raise ConfigError(f"init --from: {inputs[kind]} and {file} both look like {kind} files; give one file "
-                              "per kind (KIND=FILE to say which), and put a glob in the config for several")
+            raise ConfigError(
+                f"init --from: {inputs[kind]} and {file} both look like {kind} files; give one file "
+                "per kind (KIND=FILE to say which), and put a glob in the config for several"
+            )
         try:
             book, sheet = split_sheet(file)
             rel = os.path.relpath(Path(book).resolve(), cfg_path.resolve().parent)
@@ -1196,10 +1508,15 @@ def _infer_inputs(sources: list[str], cfg_path: Path, report: list[str]) -> tupl
         ours = {colmap._key(c) for c in column_names()[kind]}
         mapped = {t for t, _, _ in sug}
         unused = [h for h in header if h.strip() and h not in mapped and colmap._key(h) not in ours]
-        report.append(f"{file}: read as {kind}; {len(sug)} column(s) mapped"
-                      + (f"; still missing {', '.join(missing)}" if missing else "")
-                      + (f"; not used (no column of ours matches; add a line if one should be): {', '.join(unused)}"
-                         if unused else ""))
+        report.append(
+            f"{file}: read as {kind}; {len(sug)} column(s) mapped"
+            + (f"; still missing {', '.join(missing)}" if missing else "")
+            + (
+                f"; not used (no column of ours matches; add a line if one should be): {', '.join(unused)}"
+                if unused
+                else ""
+            )
+        )
     return inputs, blocks
 
 
@@ -1211,12 +1528,16 @@ def _infer_number_format(sources: list[str], report: list[str]) -> tuple[dict, s
     """
     import polars as pl
     from .csvread import _norm, read_header, read_table
+
     us = r"^[-+]?[$€£¥]?\s*\d{1,3}(,\d{3})+\.\d+\s*[$€£¥]?$"
     eu = r"^[-+]?[$€£¥]?\s*\d{1,3}(\.\d{3})*\.\d{3},\d+\s*[$€£¥]?$|^[-+]?[$€£¥]?\s*\d+,\d{1,2}\s*[$€£¥]?$"
     seen: dict[str, tuple[Any, str, str] | None] = {"us": None, "eu": None}
     for src in sources:
-        file = src.partition("=")[2] if "=" in src and src.partition("=")[0].strip().lower() in \
-            ("buildings", "readings", "weather") else src
+        file = (
+            src.partition("=")[2]
+            if "=" in src and src.partition("=")[0].strip().lower() in ("buildings", "readings", "weather")
+            else src
+        )
         try:
             names = [_norm(h) for h in read_header(file) if _norm(h)]
             t = read_table(file, required=[], optional=list(dict.fromkeys(names)))
@@ -1233,12 +1554,12 @@ def _infer_number_format(sources: list[str], report: list[str]) -> tuple[dict, s
     if seen["us"] and not seen["eu"]:
         v, c, f = seen["us"]
         why = f"inferred from values like {v!r} in {c} of {f}"
-        report.append(f"[reading] thousands = \",\" ({why})")
+        report.append(f'[reading] thousands = "," ({why})')
         return {"thousands": ","}, why
     if seen["eu"] and not seen["us"]:
         v, c, f = seen["eu"]
         why = f"inferred from values like {v!r} in {c} of {f}"
-        report.append(f"[reading] decimal_comma = true, thousands = \".\" ({why})")
+        report.append(f'[reading] decimal_comma = true, thousands = "." ({why})')
         return {"decimal_comma": True, "thousands": "."}, why
     return {}, ""
 

@@ -30,6 +30,7 @@ G14_NMBE_MAX_PCT = 0.005
 #: Guideline 14 Annex B's empirical factor for monthly data (Reddy & Claridge 2000; from memory).
 G14_MONTHLY_FACTOR = 1.26
 
+
 def t_quantile(confidence: float, dof: np.ndarray | float, *, nodes: int = 4001) -> np.ndarray:
     """Two-sided Student t quantile: t with P(|T| ≤ t) = ``confidence`` for ``dof`` degrees of freedom
     (any real ν ≥ 1, as n' − p gives).
@@ -68,15 +69,17 @@ def t_quantile(confidence: float, dof: np.ndarray | float, *, nodes: int = 4001)
     return t if np.ndim(dof) else t[0]
 
 
-def residuals(use_per_day: np.ndarray, hdd_per_day_at_base: np.ndarray, alpha: np.ndarray,
-              beta: np.ndarray, valid: np.ndarray) -> np.ndarray:
+def residuals(
+    use_per_day: np.ndarray, hdd_per_day_at_base: np.ndarray, alpha: np.ndarray, beta: np.ndarray, valid: np.ndarray
+) -> np.ndarray:
     """Residuals e = F − (α + β·H) [kBtu/day] of each period (rows: measures; 0 where not valid)."""
     yhat = alpha[:, None] + beta[:, None] * hdd_per_day_at_base
     return np.where(valid, use_per_day - yhat, 0.0)
 
 
-def fit_statistics(energy: np.ndarray, days: np.ndarray, resid_per_day: np.ndarray, valid: np.ndarray,
-                   n_params: np.ndarray) -> dict[str, np.ndarray]:
+def fit_statistics(
+    energy: np.ndarray, days: np.ndarray, resid_per_day: np.ndarray, valid: np.ndarray, n_params: np.ndarray
+) -> dict[str, np.ndarray]:
     """CV(RMSE) and NMBE [%] of a baseline over its periods' energies (ASHRAE Guideline 14)::
 
         CV(RMSE) = 100 · √(Σ(Eᵢ − Êᵢ)² / (n − p)) / Ē,   NMBE = 100 · Σ(Eᵢ − Êᵢ) / ((n − p) · Ē)
@@ -95,8 +98,9 @@ def fit_statistics(energy: np.ndarray, days: np.ndarray, resid_per_day: np.ndarr
     return {"n": n, "cv_rmse": np.where(ok, cv, np.nan), "nmbe": np.where(ok, nmbe, np.nan)}
 
 
-def g14_check(cv_rmse: np.ndarray, nmbe: np.ndarray, *, cv_max: float = G14_CV_RMSE_MAX_PCT,
-              nmbe_max: float = G14_NMBE_MAX_PCT) -> tuple[np.ndarray, list[str]]:
+def g14_check(
+    cv_rmse: np.ndarray, nmbe: np.ndarray, *, cv_max: float = G14_CV_RMSE_MAX_PCT, nmbe_max: float = G14_NMBE_MAX_PCT
+) -> tuple[np.ndarray, list[str]]:
     """Whether each baseline meets the limits, and which fail ("" when met).
 
     CV(RMSE) ≤ ``cv_max`` and |NMBE| ≤ ``nmbe_max`` [%]; a missing statistic fails its limit.
@@ -141,8 +145,15 @@ def effective_n(n: np.ndarray, rho: np.ndarray) -> np.ndarray:
     return np.asarray(n, dtype=float) * (1.0 - r) / (1.0 + r)
 
 
-def savings_uncertainty(cv_rmse_pct: np.ndarray, n: np.ndarray, n_eff: np.ndarray, m: np.ndarray,
-                        baseline_kbtu: np.ndarray, n_params: np.ndarray, confidence: float) -> np.ndarray:
+def savings_uncertainty(
+    cv_rmse_pct: np.ndarray,
+    n: np.ndarray,
+    n_eff: np.ndarray,
+    m: np.ndarray,
+    baseline_kbtu: np.ndarray,
+    n_params: np.ndarray,
+    confidence: float,
+) -> np.ndarray:
     """Absolute uncertainty of the avoided energy [kBtu] at ``confidence`` (two-sided).
 
     ASHRAE Guideline 14-2014 Annex B, monthly data (from memory)::

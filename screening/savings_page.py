@@ -27,12 +27,27 @@ def savings_report(table: pl.DataFrame | None, names: pl.DataFrame, summary: dic
         return None
     rows: list[dict] = []
     if table is not None and table.height:
-        rows = (table.join(names.select("building_id", "name"), on="building_id", how="left")
-                .sort("event_date", "building_id").select(
-                    "building_id", "name", pl.col("event_date").cast(pl.String), pl.col("report_start").cast(pl.String),
-                    pl.col("report_end").cast(pl.String), "avoided_energy", "avoided_low_90", "avoided_high_90",
-                    "avoided_cost", "avoided_co2e_kg", "meets_guideline14", "guideline14_note", "energy_unit",
-                    "currency").to_dicts())
+        rows = (
+            table.join(names.select("building_id", "name"), on="building_id", how="left")
+            .sort("event_date", "building_id")
+            .select(
+                "building_id",
+                "name",
+                pl.col("event_date").cast(pl.String),
+                pl.col("report_start").cast(pl.String),
+                pl.col("report_end").cast(pl.String),
+                "avoided_energy",
+                "avoided_low_90",
+                "avoided_high_90",
+                "avoided_cost",
+                "avoided_co2e_kg",
+                "meets_guideline14",
+                "guideline14_note",
+                "energy_unit",
+                "currency",
+            )
+            .to_dicts()
+        )
     return {"measures": rows, "totals": summary.get("savings"), "hit_rate": summary.get("audit_hit_rate")}
 
 
@@ -51,35 +66,60 @@ def savings_view(report: dict[str, Any]) -> dict[str, Any] | None:
     for m in measures[:MAX_MEASURE_LINES]:
         ok = bool(m.get("meets_guideline14"))
         lo, hi = m.get("avoided_low_90"), m.get("avoided_high_90")
-        lines.append({
-            "building": _cut(m.get("building_id"), 30), "name": _cut(m.get("name"), 40),
-            "date": _cut(m.get("event_date"), 10),
-            "avoided": fmt_num(m.get("avoided_energy")) + ("" if ok else " *"),
-            "interval": "n/a" if lo is None or hi is None else f"{fmt_num(lo)} to {fmt_num(hi)}",
-            "cost": fmt_money(m.get("avoided_cost"), cur), "co2e": fmt_co2e(m.get("avoided_co2e_kg"))[0],
-            "why": "" if ok else _cut(m.get("guideline14_note"), 120)})
+        lines.append(
+            {
+                "building": _cut(m.get("building_id"), 30),
+                "name": _cut(m.get("name"), 40),
+                "date": _cut(m.get("event_date"), 10),
+                "avoided": fmt_num(m.get("avoided_energy")) + ("" if ok else " *"),
+                "interval": "n/a" if lo is None or hi is None else f"{fmt_num(lo)} to {fmt_num(hi)}",
+                "cost": fmt_money(m.get("avoided_cost"), cur),
+                "co2e": fmt_co2e(m.get("avoided_co2e_kg"))[0],
+                "why": "" if ok else _cut(m.get("guideline14_note"), 120),
+            }
+        )
     co2, co2_unit = fmt_co2e(tot.get("avoided_co2e_kg"))
     hr = s.get("hit_rate") or {}
 
     def groups(d: dict | None) -> list[dict]:
-        return [{"label": _cut(k, 30), "audited": fmt_num(v.get("audited")), "confirmed": fmt_num(v.get("confirmed")),
-                 "rate": fmt_pct(v.get("rate"), 0)} for k, v in (d or {}).items()]
+        return [
+            {
+                "label": _cut(k, 30),
+                "audited": fmt_num(v.get("audited")),
+                "confirmed": fmt_num(v.get("confirmed")),
+                "rate": fmt_pct(v.get("rate"), 0),
+            }
+            for k, v in (d or {}).items()
+        ]
 
     return {
-        "energy_unit": eu, "co2e_unit": co2_unit, "measures": lines,
+        "energy_unit": eu,
+        "co2e_unit": co2_unit,
+        "measures": lines,
         "more": fmt_num(len(measures) - MAX_MEASURE_LINES) if len(measures) > MAX_MEASURE_LINES else "",
         "any_failed": any(not m.get("meets_guideline14") for m in measures[:MAX_MEASURE_LINES]),
-        "total": None if not tot else {
-            "n": fmt_num(tot.get("measures_meeting_guideline14")), "of": fmt_num(tot.get("measures")),
-            "avoided": fmt_num(tot.get("avoided_energy")), "u90": fmt_num(tot.get("avoided_u90")),
-            "u68": fmt_num(tot.get("avoided_u68")), "cost": fmt_money(tot.get("avoided_cost"), cur),
-            "co2e": co2},
-        "hit": None if not hr else {
-            "audited": fmt_num(hr.get("audited_from_plan")), "confirmed": fmt_num(hr.get("confirmed")),
+        "total": None
+        if not tot
+        else {
+            "n": fmt_num(tot.get("measures_meeting_guideline14")),
+            "of": fmt_num(tot.get("measures")),
+            "avoided": fmt_num(tot.get("avoided_energy")),
+            "u90": fmt_num(tot.get("avoided_u90")),
+            "u68": fmt_num(tot.get("avoided_u68")),
+            "cost": fmt_money(tot.get("avoided_cost"), cur),
+            "co2e": co2,
+        },
+        "hit": None
+        if not hr
+        else {
+            "audited": fmt_num(hr.get("audited_from_plan")),
+            "confirmed": fmt_num(hr.get("confirmed")),
             "rate": fmt_pct(hr.get("rate"), 0) if hr.get("rate") is not None else "n/a",
             "off_plan": fmt_num(hr.get("audited_off_plan")),
             "no_run": fmt_num(hr.get("audits_without_an_earlier_run")),
-            "by_mechanism": groups(hr.get("by_mechanism")), "by_quarter": groups(hr.get("by_quarter"))},
+            "by_mechanism": groups(hr.get("by_mechanism")),
+            "by_quarter": groups(hr.get("by_quarter")),
+        },
     }
 
 
@@ -90,12 +130,23 @@ def hit_rate_lines(summary: dict) -> dict[str, Any] | None:
         return None
 
     def groups(d: dict | None) -> list[dict]:
-        return [{"label": str(k), "audited": int(v["audited"]), "confirmed": int(v["confirmed"]),
-                 "rate": f"{100 * v['rate']:.0f} %"} for k, v in (d or {}).items()]
+        return [
+            {
+                "label": str(k),
+                "audited": int(v["audited"]),
+                "confirmed": int(v["confirmed"]),
+                "rate": f"{100 * v['rate']:.0f} %",
+            }
+            for k, v in (d or {}).items()
+        ]
 
     rate = hr.get("rate")
-    return {"audited": int(hr.get("audited_from_plan") or 0), "confirmed": int(hr.get("confirmed") or 0),
-            "rate": "n/a" if rate is None else f"{100 * rate:.0f} %",
-            "off_plan": int(hr.get("audited_off_plan") or 0),
-            "no_run": int(hr.get("audits_without_an_earlier_run") or 0),
-            "by_mechanism": groups(hr.get("by_mechanism")), "by_quarter": groups(hr.get("by_quarter"))}
+    return {
+        "audited": int(hr.get("audited_from_plan") or 0),
+        "confirmed": int(hr.get("confirmed") or 0),
+        "rate": "n/a" if rate is None else f"{100 * rate:.0f} %",
+        "off_plan": int(hr.get("audited_off_plan") or 0),
+        "no_run": int(hr.get("audits_without_an_earlier_run") or 0),
+        "by_mechanism": groups(hr.get("by_mechanism")),
+        "by_quarter": groups(hr.get("by_quarter")),
+    }

@@ -70,8 +70,9 @@ KBTU_TO_KWH = 0.29307107017222
 ID_PATTERN = r"^[A-Za-z0-9._-]{1,64}$"
 
 #: One rejected input row: file, line, column, value and the reason (rejects.csv).
-REJECT_SCHEMA = pl.Schema({"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String,
-                           "reason": pl.String})
+REJECT_SCHEMA = pl.Schema(
+    {"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String, "reason": pl.String}
+)
 
 #: Flags: findings about the building, never data issues; they do not block a verdict (README "Flags").
 FLAGS: dict[str, str] = {
@@ -92,7 +93,7 @@ class Issue:
     """A data-issue code: whether it blocks a verdict, which step finds it, and its plain text."""
 
     blocking: bool
-    found_by: str      # "metered" (per reading, screening.metered) or "pipeline" (screening.pipeline)
+    found_by: str  # "metered" (per reading, screening.metered) or "pipeline" (screening.pipeline)
     text: str
 
 
@@ -128,9 +129,9 @@ class Column:
     file's SI value to IP. ``lo_si``/``hi_si`` give an SI limit that is not the IP one converted.
     """
 
-    name: str                 # as written in the file (the header)
-    canon: str                # the column of the canonical frame (DEVELOPERS.md glossary)
-    kind: str                 # id | text | choice | float | int | bool | date
+    name: str  # as written in the file (the header)
+    canon: str  # the column of the canonical frame (DEVELOPERS.md glossary)
+    kind: str  # id | text | choice | float | int | bool | date
     required: bool
     meaning: str
     unit_ip: str = ""
@@ -142,8 +143,8 @@ class Column:
     lo_si: float | None = None
     hi_si: float | None = None
     choices: tuple[str, ...] = ()
-    what: str = ""            # how a choice is named in messages ("use type")
-    display: bool = False     # display text: control characters are removed
+    what: str = ""  # how a choice is named in messages ("use type")
+    display: bool = False  # display text: control characters are removed
 
     def spec(self) -> tuple[str, str, str, bool, dict]:
         """``(column, canonical name, kind, required, options)``: the form the readers take."""
@@ -171,69 +172,183 @@ BUILDINGS: tuple[Column, ...] = (
     Column("building_id", "building_id", "id", True, "unique; 1–64 characters of letters, digits, `-`, `_`, `.`"),
     Column("name", "name", "text", True, "display name, any text", display=True),
     Column("station_id", "station_id", "text", True, "key into the weather file"),
-    Column("use_type", "use_type", "choice", True, ", ".join(USE_TYPES), choices=tuple(USE_TYPES),
-           what="use type"),
-    Column("floor_area", "floor_area_ft2", "float", True, "gross floor area > 0", "ft²", "m²", "area",
-           0, 1e8, lo_open=True),
-    Column("year_built", "year_built", "int", False, "1800 to the current year", "year", "year",
-           lo=1800, hi="this_year"),
+    Column("use_type", "use_type", "choice", True, ", ".join(USE_TYPES), choices=tuple(USE_TYPES), what="use type"),
+    Column(
+        "floor_area", "floor_area_ft2", "float", True, "gross floor area > 0", "ft²", "m²", "area", 0, 1e8, lo_open=True
+    ),
+    Column(
+        "year_built", "year_built", "int", False, "1800 to the current year", "year", "year", lo=1800, hi="this_year"
+    ),
     Column("stories", "stories", "int", False, "≥ 1 (at most 200)", "floors", "floors", lo=1, hi=200),
-    Column("heating_fuel", "heating_fuel", "choice", True, ", ".join(FUELS), choices=tuple(FUELS),
-           what="heating fuel"),
+    Column("heating_fuel", "heating_fuel", "choice", True, ", ".join(FUELS), choices=tuple(FUELS), what="heating fuel"),
     # above 1 only for electricity (a heat pump's seasonal COP; envelope.estimate_envelope checks the pair)
-    Column("heating_efficiency", "heating_efficiency", "float", False,
-           "seasonal efficiency as a fraction; seasonal COP for heat pumps (up to 6)", "fraction or COP",
-           "fraction or COP", lo=0, hi=6, lo_open=True),
-    Column("ua_total", "ua_total_btu_h_f", "float", False,
-           "known overall heat-loss coefficient; overrides the envelope estimate", "Btu/(h·°F)", "W/K",
-           "conductance", 0, 1e9, lo_open=True),
-    Column("balance_point", "balance_point_f", "float", False,
-           "known balance-point temperature; overrides the estimate", "°F", "°C", "temperature", 20, 85),
+    Column(
+        "heating_efficiency",
+        "heating_efficiency",
+        "float",
+        False,
+        "seasonal efficiency as a fraction; seasonal COP for heat pumps (up to 6)",
+        "fraction or COP",
+        "fraction or COP",
+        lo=0,
+        hi=6,
+        lo_open=True,
+    ),
+    Column(
+        "ua_total",
+        "ua_total_btu_h_f",
+        "float",
+        False,
+        "known overall heat-loss coefficient; overrides the envelope estimate",
+        "Btu/(h·°F)",
+        "W/K",
+        "conductance",
+        0,
+        1e9,
+        lo_open=True,
+    ),
+    Column(
+        "balance_point",
+        "balance_point_f",
+        "float",
+        False,
+        "known balance-point temperature; overrides the estimate",
+        "°F",
+        "°C",
+        "temperature",
+        20,
+        85,
+    ),
     # U-factors: at most 2 Btu/(h·ft²·°F). The surface films alone (inside 0.68, outside 0.17 h·ft²·°F/Btu,
     # ASHRAE Handbook—Fundamentals ch. 26 surface resistances; from memory) hold an opaque wall below about
     # 1.2; single glazing in an aluminium frame without a thermal break is about 1.0–1.3, a single-glazed
     # sloped skylight up to about 2 (ASHRAE Handbook—Fundamentals ch. 15, fenestration U-factors; from
     # memory). Above 2 is an SI value (W/(m²·K)) in an IP file or a typing error.
-    Column("wall_u", "wall_u_btu_h_ft2_f", "float", False, "wall U-factor", _U, _U_SI, "u_factor", 0, 2,
-           lo_open=True),
-    Column("roof_u", "roof_u_btu_h_ft2_f", "float", False, "roof U-factor", _U, _U_SI, "u_factor", 0, 2,
-           lo_open=True),
-    Column("window_u", "window_u_btu_h_ft2_f", "float", False, "window U-factor", _U, _U_SI, "u_factor", 0, 2,
-           lo_open=True),
-    Column("window_fraction", "window_fraction", "float", False, "window-to-wall ratio, 0–0.95", "fraction",
-           "fraction", lo=0, hi=0.95),
+    Column("wall_u", "wall_u_btu_h_ft2_f", "float", False, "wall U-factor", _U, _U_SI, "u_factor", 0, 2, lo_open=True),
+    Column("roof_u", "roof_u_btu_h_ft2_f", "float", False, "roof U-factor", _U, _U_SI, "u_factor", 0, 2, lo_open=True),
+    Column(
+        "window_u", "window_u_btu_h_ft2_f", "float", False, "window U-factor", _U, _U_SI, "u_factor", 0, 2, lo_open=True
+    ),
+    Column(
+        "window_fraction",
+        "window_fraction",
+        "float",
+        False,
+        "window-to-wall ratio, 0–0.95",
+        "fraction",
+        "fraction",
+        lo=0,
+        hi=0.95,
+    ),
     # infiltration at natural pressures: at most 10 per hour. Leaky old buildings reach 1–2 /h (ACH50 ÷ 20,
     # common practice; docs/factors.md ACH by age); a blower-door ACH50 of 10–20 entered as natural ACH is the
     # likely mistake above 10.
     Column("air_changes", "ach", "float", False, "infiltration, air changes per hour", "1/h", "1/h", lo=0, hi=10),
-    Column("outdoor_air", "outdoor_air_cfm_ft2", "float", False, "mechanical ventilation", "cfm/ft²", "L/(s·m²)",
-           "airflow_density", 0, 10),
+    Column(
+        "outdoor_air",
+        "outdoor_air_cfm_ft2",
+        "float",
+        False,
+        "mechanical ventilation",
+        "cfm/ft²",
+        "L/(s·m²)",
+        "airflow_density",
+        0,
+        10,
+    ),
     # sensible effectiveness below 1: ε → 1 only as the exchanger's NTU → ∞ (ε-NTU relations, e.g.
     # Incropera, Fundamentals of Heat and Mass Transfer, ch. 11); rated recovery devices stay below about
     # 0.9 (ASHRAE Handbook—HVAC Systems and Equipment, air-to-air energy recovery; from memory). 1.0 would
     # mean a ventilation load of zero.
-    Column("heat_recovery", "heat_recovery", "float", False, "ventilation heat-recovery effectiveness, 0–0.95",
-           "fraction", "fraction", lo=0, hi=0.95),
+    Column(
+        "heat_recovery",
+        "heat_recovery",
+        "float",
+        False,
+        "ventilation heat-recovery effectiveness, 0–0.95",
+        "fraction",
+        "fraction",
+        lo=0,
+        hi=0.95,
+    ),
     Column("setpoint", "setpoint_f", "float", False, "heating setpoint", "°F", "°C", "temperature", 40, 85),
-    Column("setback", "setback_f", "float", False, "setback depth", "°F (difference)", "K",
-           "temperature_difference", 0, 40),
-    Column("setback_hours", "setback_hours", "float", False, "setback hours per day", "h/day", "h/day",
-           lo=0, hi=24),
-    Column("internal_gains", "internal_gains_w_ft2", "float", False, "24-hour average internal gains", "W/ft²",
-           "W/m²", "power_density", 0, 50),
-    Column("wall_area", "wall_area_ft2", "float", False, "gross wall area; overrides the geometry estimate", "ft²",
-           "m²", "area", 0, 1e8),
-    Column("window_area", "window_area_ft2", "float", False, "window area; overrides the geometry estimate", "ft²",
-           "m²", "area", 0, 1e8),
-    Column("roof_area", "roof_area_ft2", "float", False, "roof area; overrides the geometry estimate", "ft²", "m²",
-           "area", 0, 1e8),
+    Column(
+        "setback", "setback_f", "float", False, "setback depth", "°F (difference)", "K", "temperature_difference", 0, 40
+    ),
+    Column("setback_hours", "setback_hours", "float", False, "setback hours per day", "h/day", "h/day", lo=0, hi=24),
+    Column(
+        "internal_gains",
+        "internal_gains_w_ft2",
+        "float",
+        False,
+        "24-hour average internal gains",
+        "W/ft²",
+        "W/m²",
+        "power_density",
+        0,
+        50,
+    ),
+    Column(
+        "wall_area",
+        "wall_area_ft2",
+        "float",
+        False,
+        "gross wall area; overrides the geometry estimate",
+        "ft²",
+        "m²",
+        "area",
+        0,
+        1e8,
+    ),
+    Column(
+        "window_area",
+        "window_area_ft2",
+        "float",
+        False,
+        "window area; overrides the geometry estimate",
+        "ft²",
+        "m²",
+        "area",
+        0,
+        1e8,
+    ),
+    Column(
+        "roof_area",
+        "roof_area_ft2",
+        "float",
+        False,
+        "roof area; overrides the geometry estimate",
+        "ft²",
+        "m²",
+        "area",
+        0,
+        1e8,
+    ),
     Column("address", "address", "text", False, "shown on the sheet", display=True),
     Column("city", "city", "text", False, "shown on the sheet", display=True),
-    Column("heat_content", "heat_content", "float", False,
-           "the heating fuel's heat content printed on the bill", "Btu per ft³ (gas), gal (oil, propane) or lb "
-           "(steam)", "as IP", lo=0, hi=1e9, lo_open=True),
-    Column("price", "price", "float", False, "price per unit of the heating fuel", "as `[prices]`",
-           "as `[prices]`", lo=0, hi=1e6),
+    Column(
+        "heat_content",
+        "heat_content",
+        "float",
+        False,
+        "the heating fuel's heat content printed on the bill",
+        "Btu per ft³ (gas), gal (oil, propane) or lb (steam)",
+        "as IP",
+        lo=0,
+        hi=1e9,
+        lo_open=True,
+    ),
+    Column(
+        "price",
+        "price",
+        "float",
+        False,
+        "price per unit of the heating fuel",
+        "as `[prices]`",
+        "as `[prices]`",
+        lo=0,
+        hi=1e6,
+    ),
 )
 
 #: readings.csv: one row per meter reading of any length.
@@ -242,8 +357,17 @@ READINGS: tuple[Column, ...] = (
     Column("fuel", "fuel", "choice", True, ", ".join(FUELS), choices=tuple(FUELS), what="fuel"),
     Column("period_start", "period_start", "date", True, "first day covered"),
     Column("period_end", "period_end", "date", True, "last day covered (inclusive)"),
-    Column("quantity", "quantity", "float", True, "metered quantity", "the `unit` column",
-           "the `unit` column", lo=0, hi=1e12),
+    Column(
+        "quantity",
+        "quantity",
+        "float",
+        True,
+        "metered quantity",
+        "the `unit` column",
+        "the `unit` column",
+        lo=0,
+        hi=1e12,
+    ),
     Column("unit", "unit", "text", True, "a unit of screening/data/units.csv that fits the fuel"),
     Column("estimated", "estimated", "bool", False, "true for an estimated read"),
     Column("cost", "cost", "float", False, "amount billed", "currency", "currency", lo=0, hi=1e10),
@@ -257,12 +381,48 @@ READ_DATE = "read_date"
 WEATHER: tuple[Column, ...] = (
     Column("station_id", "station_id", "text", True, "the station, as named in buildings' station_id"),
     Column("date", "date", "date", True, "the day"),
-    Column("t_min", "t_min_f", "float", False, "the day's lowest temperature (with t_max)", "°F", "°C",
-           "temperature", -140, 140, lo_si=-60, hi_si=60),
-    Column("t_max", "t_max_f", "float", False, "the day's highest temperature (with t_min)", "°F", "°C",
-           "temperature", -140, 140, lo_si=-60, hi_si=60),
-    Column("t_mean", "t_mean_f", "float", False, "the day's mean temperature (or t_min with t_max)", "°F", "°C",
-           "temperature", -140, 140, lo_si=-60, hi_si=60),
+    Column(
+        "t_min",
+        "t_min_f",
+        "float",
+        False,
+        "the day's lowest temperature (with t_max)",
+        "°F",
+        "°C",
+        "temperature",
+        -140,
+        140,
+        lo_si=-60,
+        hi_si=60,
+    ),
+    Column(
+        "t_max",
+        "t_max_f",
+        "float",
+        False,
+        "the day's highest temperature (with t_min)",
+        "°F",
+        "°C",
+        "temperature",
+        -140,
+        140,
+        lo_si=-60,
+        hi_si=60,
+    ),
+    Column(
+        "t_mean",
+        "t_mean_f",
+        "float",
+        False,
+        "the day's mean temperature (or t_min with t_max)",
+        "°F",
+        "°C",
+        "temperature",
+        -140,
+        140,
+        lo_si=-60,
+        hi_si=60,
+    ),
 )
 
 #: events.csv (optional): one row per thing that happened at a building.
@@ -270,17 +430,37 @@ EVENTS: tuple[Column, ...] = (
     Column("building_id", "building_id", "id", True, "one of the accepted buildings"),
     Column("date", "date", "date", True, "the day it happened (a measure: its installation day)"),
     Column("kind", "kind", "choice", True, ", ".join(EVENT_KINDS), choices=tuple(EVENT_KINDS), what="event kind"),
-    Column("finding", "finding", "choice", False, "for an audit only: " + ", ".join(FINDINGS),
-           choices=tuple(FINDINGS), what="finding"),
+    Column(
+        "finding",
+        "finding",
+        "choice",
+        False,
+        "for an audit only: " + ", ".join(FINDINGS),
+        choices=tuple(FINDINGS),
+        what="finding",
+    ),
     Column("mechanism", "mechanism", "text", False, "free text", display=True),
     Column("description", "description", "text", False, "free text", display=True),
-    Column("expected_savings", "expected_savings", "float", False, "what the measure was expected to save, ≥ 0",
-           "as given", "as given", lo=0, hi=1e12),
+    Column(
+        "expected_savings",
+        "expected_savings",
+        "float",
+        False,
+        "what the measure was expected to save, ≥ 0",
+        "as given",
+        "as given",
+        lo=0,
+        hi=1e12,
+    ),
     Column("cost", "cost", "float", False, "what it cost, ≥ 0", "currency", "currency", lo=0, hi=1e10),
 )
 
-FILES: dict[str, tuple[Column, ...]] = {"buildings": BUILDINGS, "readings": READINGS, "weather": WEATHER,
-                                        "events": EVENTS}
+FILES: dict[str, tuple[Column, ...]] = {
+    "buildings": BUILDINGS,
+    "readings": READINGS,
+    "weather": WEATHER,
+    "events": EVENTS,
+}
 
 
 def column(kind: str, name: str) -> Column:
@@ -298,5 +478,8 @@ def specs(kind: str) -> list[tuple[str, str, str, bool, dict]]:
 
 def numeric_bounds(kind: str) -> dict[str, tuple[float, float, bool]]:
     """Canonical column → (lo, hi, lo inclusive?) of every numeric column with a fixed upper limit."""
-    return {c.canon: (float(c.lo if c.lo is not None else float("-inf")), float(c.hi), not c.lo_open)
-            for c in FILES[kind] if c.kind in ("float", "int") and isinstance(c.hi, (int, float))}
+    return {
+        c.canon: (float(c.lo if c.lo is not None else float("-inf")), float(c.hi), not c.lo_open)
+        for c in FILES[kind]
+        if c.kind in ("float", "int") and isinstance(c.hi, (int, float))
+    }

@@ -22,8 +22,8 @@ import polars as pl
 MAD_TO_SIGMA = 1.4826  # consistency constant of the MAD for normal data (Iglewicz & Hoaglin 1993)
 P10_P90_SIGMAS = 2 * 1.2816  # a normal distribution's P10..P90 spans 2 × 1.2816 σ
 PEER_SCALE_FROM = 0.75  # peer weight from which the evidence scale is called "peers" (n ≥ 3 × peer_prior)
-LOGISTIC_PHI = 1.702    # Φ(x) ≈ 1 / (1 + exp(−1.702 x)), within 0.01 (Bowling et al. 2009, J. Ind. Eng. Manag. 2(1))
-WATCH_SHARE = 0.1       # Watch: expected savings of at least this share of one visit's cost
+LOGISTIC_PHI = 1.702  # Φ(x) ≈ 1 / (1 + exp(−1.702 x)), within 0.01 (Bowling et al. 2009, J. Ind. Eng. Manag. 2(1))
+WATCH_SHARE = 0.1  # Watch: expected savings of at least this share of one visit's cost
 
 # Tiers: plain groups along the audit order (rank), most urgent first. Names are our own.
 TIERS = (
@@ -35,6 +35,7 @@ TIERS = (
 )
 TIER_RANK = {name: i + 1 for i, (name, _) in enumerate(TIERS)}
 
+
 def peer_groups(df: pl.DataFrame, *, min_group: int) -> pl.Series:
     """Peer group per building: ``use_type × era``, or ``use_type`` when that group is small.
 
@@ -43,9 +44,12 @@ def peer_groups(df: pl.DataFrame, *, min_group: int) -> pl.Series:
     tmp = df.select("use_type", "era", pl.col("heating_intensity").is_not_null().alias("ok"))
     n_fine = tmp.group_by("use_type", "era").agg(pl.col("ok").sum().alias("n"))
     tmp = tmp.join(n_fine, on=["use_type", "era"], how="left", maintain_order="left")
-    return tmp.select(pl.when(pl.col("n") >= min_group)
-                      .then(pl.col("use_type") + pl.lit(" · ") + pl.col("era"))
-                      .otherwise(pl.col("use_type") + pl.lit(" · all eras")).alias("peer_group"))["peer_group"]
+    return tmp.select(
+        pl.when(pl.col("n") >= min_group)
+        .then(pl.col("use_type") + pl.lit(" · ") + pl.col("era"))
+        .otherwise(pl.col("use_type") + pl.lit(" · all eras"))
+        .alias("peer_group")
+    )["peer_group"]
 
 
 def robust_z(values: pl.Expr, group: str) -> pl.Expr:
@@ -76,8 +80,11 @@ def _phi(x: pl.Expr) -> pl.Expr:
 
 def _model_sd() -> pl.Expr:
     """The model's own scale of ln(metered / expected): its P10..P90 band (floored at ±band_floor) [-]."""
-    return pl.when((pl.col("_band_low") > 0) & (pl.col("_band_high") > pl.col("_band_low"))) \
-        .then((pl.col("_band_high") / pl.col("_band_low")).log() / P10_P90_SIGMAS).otherwise(None)
+    return (
+        pl.when((pl.col("_band_low") > 0) & (pl.col("_band_high") > pl.col("_band_low")))
+        .then((pl.col("_band_high") / pl.col("_band_low")).log() / P10_P90_SIGMAS)
+        .otherwise(None)
+    )
 
 
 def _peer_stats(values: pl.Expr, group: str) -> tuple[pl.Expr, pl.Expr, pl.Expr]:
@@ -91,8 +98,11 @@ def _blend_weight(values: pl.Expr, group: str, t: dict) -> pl.Expr:
     """Peer weight λ = n / (n + peer_prior) for n ≥ 3 peers with a spread; 0 (the model alone) otherwise."""
     _, sd, n = _peer_stats(values, group)
     ok = (n >= 3) & (sd > 0)
-    return pl.when(ok).then(n.cast(pl.Float64) / (n + t["peer_prior"])).otherwise(0.0) \
-        if t["peer_prior"] > 0 else pl.when(ok).then(1.0).otherwise(0.0)
+    return (
+        pl.when(ok).then(n.cast(pl.Float64) / (n + t["peer_prior"])).otherwise(0.0)
+        if t["peer_prior"] > 0
+        else pl.when(ok).then(1.0).otherwise(0.0)
+    )
 
 
 def _blend_center(values: pl.Expr, group: str, t: dict) -> pl.Expr:
@@ -110,9 +120,12 @@ def _blended_z(values: pl.Expr, group: str, model_sd: pl.Expr | float, t: dict) 
     lam = _blend_weight(values, group, t)
     _, sd, _ = _peer_stats(values, group)
     msd = model_sd if isinstance(model_sd, pl.Expr) else pl.lit(float(model_sd))
-    scale = (lam * sd.fill_null(0.0) ** 2 + (1 - lam) * msd ** 2).sqrt()
-    return pl.when(values.is_not_null() & (scale > 0)).then((values - lam * _peer_stats(values, group)[0]) / scale) \
+    scale = (lam * sd.fill_null(0.0) ** 2 + (1 - lam) * msd**2).sqrt()
+    return (
+        pl.when(values.is_not_null() & (scale > 0))
+        .then((values - lam * _peer_stats(values, group)[0]) / scale)
         .otherwise(None)
+    )
 
 
 def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFrame:
@@ -142,87 +155,144 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     # a monthly fit that does not follow the weather is no basis for judging the level (as for needs_review)
     usable = (~blk) & pl.col("_logr").is_not_null() & (~reg | (pl.col("r2") >= t["r2_min"])).fill_null(False)
     out = out.with_columns(
-        pl.when(usable).then((pl.col("actual_heating_kbtu")
-                              - pl.col("expected_heating_kbtu") * pl.col("_center_logr").exp()).clip(lower_bound=0))
-        .otherwise(None).alias("_e_level"))
-    step_ok = (~blk) & (pl.col("yoy_change") > 0) & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"])) \
-        & (heat_share >= t["yoy_review_heating_share_min"]) & pl.col("z_yoy").is_not_null()
+        pl.when(usable)
+        .then(
+            (pl.col("actual_heating_kbtu") - pl.col("expected_heating_kbtu") * pl.col("_center_logr").exp()).clip(
+                lower_bound=0
+            )
+        )
+        .otherwise(None)
+        .alias("_e_level")
+    )
+    step_ok = (
+        (~blk)
+        & (pl.col("yoy_change") > 0)
+        & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"]))
+        & (heat_share >= t["yoy_review_heating_share_min"])
+        & pl.col("z_yoy").is_not_null()
+    )
     out = out.with_columns(
-        pl.when(step_ok).then(pl.col("actual_heating_kbtu") * pl.col("yoy_change") / (1 + pl.col("yoy_change")))
-        .otherwise(None).alias("_e_step"),
-        pl.when(step_ok).then(_phi(pl.col("z_yoy") - t["step_sure_z"])).otherwise(None).alias("_w_step"))
+        pl.when(step_ok)
+        .then(pl.col("actual_heating_kbtu") * pl.col("yoy_change") / (1 + pl.col("yoy_change")))
+        .otherwise(None)
+        .alias("_e_step"),
+        pl.when(step_ok).then(_phi(pl.col("z_yoy") - t["step_sure_z"])).otherwise(None).alias("_w_step"),
+    )
     # the heating fuel's whole use against the 12 months before (not weather normalized: the robust z is taken
     # among the buildings of one weather station, which share the year's weather): heating in warm weather or a
     # leak moves the fuel's baseload, which the heating fit's step (yoy_change) cannot see
-    fuel_y = pl.when((~blk) & (pl.col("_prev_fuel") > 0) & (pl.col("total_fuel_kbtu") > 0)) \
-        .then(pl.col("total_fuel_kbtu") / pl.col("_prev_fuel"))
+    fuel_y = pl.when((~blk) & (pl.col("_prev_fuel") > 0) & (pl.col("total_fuel_kbtu") > 0)).then(
+        pl.col("total_fuel_kbtu") / pl.col("_prev_fuel")
+    )
     out = out.with_columns(fuel_y.log().alias("_lfy"), (fuel_y - 1).alias("_yoy_fuel"))
     out = out.with_columns(robust_z(pl.col("_lfy"), "station_id").alias("_z_fuel"))
     # (not weather normalized, so it counts only from path B's rise, yoy_review)
     fstep_ok = (pl.col("_yoy_fuel") >= t["yoy_review"]) & pl.col("_z_fuel").is_not_null()
     out = out.with_columns(
-        pl.when(fstep_ok).then(pl.col("total_fuel_kbtu") * pl.col("_yoy_fuel") / (1 + pl.col("_yoy_fuel")))
-        .otherwise(None).alias("_e_fstep"),
-        pl.when(fstep_ok).then(_phi(pl.col("_z_fuel") - t["step_sure_z"])).otherwise(None).alias("_w_fstep"))
+        pl.when(fstep_ok)
+        .then(pl.col("total_fuel_kbtu") * pl.col("_yoy_fuel") / (1 + pl.col("_yoy_fuel")))
+        .otherwise(None)
+        .alias("_e_fstep"),
+        pl.when(fstep_ok).then(_phi(pl.col("_z_fuel") - t["step_sure_z"])).otherwise(None).alias("_w_fstep"),
+    )
     # mechanisms, from a monthly fit that follows the weather
-    fit = (~blk) & reg & (pl.col("r2") >= t["r2_min"]).fill_null(False) & (pl.col("heating_slope_kbtu_per_dd") > 0) \
+    fit = (
+        (~blk)
+        & reg
+        & (pl.col("r2") >= t["r2_min"]).fill_null(False)
+        & (pl.col("heating_slope_kbtu_per_dd") > 0)
         & (pl.col("actual_heating_kbtu") > 0)
+    )
     out = out.with_columns(
         pl.when(fit & (pl.col("effective_ua_btu_h_f") > 0) & (pl.col("ua_total") > 0))
-        .then((pl.col("effective_ua_btu_h_f") / pl.col("ua_total")).log()).otherwise(None).alias("_lu"),
+        .then((pl.col("effective_ua_btu_h_f") / pl.col("ua_total")).log())
+        .otherwise(None)
+        .alias("_lu"),
         pl.when(fit & pl.col("fitted_base_f").is_not_null() & pl.col("balance_point_f").is_not_null())
-        .then(pl.col("fitted_base_f") - pl.col("balance_point_f")).otherwise(None).alias("_db"),
+        .then(pl.col("fitted_base_f") - pl.col("balance_point_f"))
+        .otherwise(None)
+        .alias("_db"),
         pl.when(fit & pl.col("baseload_share").is_not_null() & pl.col("baseload_share_default").is_not_null())
-        .then(pl.col("baseload_share") - pl.col("baseload_share_default")).otherwise(None).alias("_dl"),
+        .then(pl.col("baseload_share") - pl.col("baseload_share_default"))
+        .otherwise(None)
+        .alias("_dl"),
         # degree days at the fitted base over the span (metered heating = slope × HDD(fitted base))
-        pl.when(fit).then(pl.col("actual_heating_kbtu") / pl.col("heating_slope_kbtu_per_dd")).alias("_hdd_fit"))
+        pl.when(fit).then(pl.col("actual_heating_kbtu") / pl.col("heating_slope_kbtu_per_dd")).alias("_hdd_fit"),
+    )
     out = out.with_columns(
         (pl.col("_lu") - _blend_center(pl.col("_lu"), "peer_group", t)).alias("_x_hl"),
         (pl.col("_db") - _blend_center(pl.col("_db"), "peer_group", t)).alias("_x_ct"),
         (pl.col("_dl") - _blend_center(pl.col("_dl"), "peer_group", t)).alias("_x_bl"),
         _blended_z(pl.col("_lu"), "peer_group", _model_sd(), t).alias("_z_hl"),
         _blended_z(pl.col("_db"), "peer_group", t["balance_point_sd_f"], t).alias("_z_ct"),
-        _blended_z(pl.col("_dl"), "peer_group", t["baseload_share_sd"], t).alias("_z_bl"))
+        _blended_z(pl.col("_dl"), "peer_group", t["baseload_share_sd"], t).alias("_z_bl"),
+    )
     # heating-season days per °F of base: HDD(T_fit) / (T_fit − 35 °F), 35 °F a typical heating-season
     # mean outdoor temperature (our own rough figure, only to size the controls excess)
     days_per_f = pl.col("_hdd_fit") / (pl.col("fitted_base_f") - 35.0).clip(lower_bound=10.0)
     out = out.with_columns(
-        (pl.col("actual_heating_kbtu") * (1 - (-pl.col("_x_hl")).exp())).clip(lower_bound=0)
+        (pl.col("actual_heating_kbtu") * (1 - (-pl.col("_x_hl")).exp()))
+        .clip(lower_bound=0)
         .alias("excess_heat_loss_kbtu"),
         (pl.col("heating_slope_kbtu_per_dd") * pl.col("_x_ct") * days_per_f)
-        .clip(lower_bound=0, upper_bound=pl.col("actual_heating_kbtu")).alias("excess_controls_kbtu"),
+        .clip(lower_bound=0, upper_bound=pl.col("actual_heating_kbtu"))
+        .alias("excess_controls_kbtu"),
         (pl.col("_x_bl") * pl.col("total_fuel_kbtu")).clip(lower_bound=0).alias("excess_baseload_kbtu"),
         _phi(pl.col("_z_hl") - t["sure_offset"]).alias("sure_heat_loss"),
         _phi(pl.col("_z_ct") - t["sure_offset"]).alias("sure_controls"),
-        _phi(pl.col("_z_bl") - t["sure_offset"]).alias("sure_baseload"))
+        _phi(pl.col("_z_bl") - t["sure_offset"]).alias("sure_baseload"),
+    )
     # the level view is as sure as its z, and more so where one mechanism's own evidence points the same way:
     # × ((1 − m) + m · the surest mechanism), m = mechanism_weight; with no monthly fit (no mechanism
     # evidence either way) the mechanisms count half sure
     mech = pl.max_horizontal(*[pl.col(f"sure_{m}") for m in MECHANISMS]).fill_null(0.5)
     out = out.with_columns(
-        pl.when(usable).then(_phi(pl.col("z_score") - t["sure_offset"])
-                             * ((1 - t["mechanism_weight"]) + t["mechanism_weight"] * mech))
-        .otherwise(None).alias("_w_level"))
+        pl.when(usable)
+        .then(_phi(pl.col("z_score") - t["sure_offset"]) * ((1 - t["mechanism_weight"]) + t["mechanism_weight"] * mech))
+        .otherwise(None)
+        .alias("_w_level")
+    )
     level = (pl.col("_w_level") * pl.col("_e_level")).fill_null(0.0)
     step = (pl.col("_w_step") * pl.col("_e_step")).fill_null(0.0)
     fstep = (pl.col("_w_fstep") * pl.col("_e_fstep")).fill_null(0.0)
     out = out.with_columns(
         pl.when(blk | (pl.col("_e_level").is_null() & pl.col("_e_step").is_null() & pl.col("_e_fstep").is_null()))
-        .then(None).otherwise(pl.max_horizontal(level, step, fstep)).alias("expected_recoverable_kbtu"),
-        pl.when((fstep > step) & (fstep > level)).then(pl.lit("fuel step"))
-        .when(step > level).then(pl.lit("step up")).when(level > 0).then(pl.lit("level"))
-        .otherwise(None).alias("_view"))
+        .then(None)
+        .otherwise(pl.max_horizontal(level, step, fstep))
+        .alias("expected_recoverable_kbtu"),
+        pl.when((fstep > step) & (fstep > level))
+        .then(pl.lit("fuel step"))
+        .when(step > level)
+        .then(pl.lit("step up"))
+        .when(level > 0)
+        .then(pl.lit("level"))
+        .otherwise(None)
+        .alias("_view"),
+    )
     return out.with_columns(
         (pl.col("expected_recoverable_kbtu") * pl.col("usd_per_kbtu")).alias("expected_recoverable_cost"),
         (pl.col("expected_recoverable_kbtu") * pl.col("kg_co2e_per_kbtu")).alias("expected_recoverable_co2e_kg"),
         # each mechanism's excess in money and CO2e (the building's price and emission factor per kBtu)
-        *[e for m in MECHANISMS for e in (
-            (pl.col(f"excess_{m}_kbtu") * pl.col("usd_per_kbtu")).alias(f"excess_{m}_cost"),
-            (pl.col(f"excess_{m}_kbtu") * pl.col("kg_co2e_per_kbtu")).alias(f"excess_{m}_co2e_kg"))])
+        *[
+            e
+            for m in MECHANISMS
+            for e in (
+                (pl.col(f"excess_{m}_kbtu") * pl.col("usd_per_kbtu")).alias(f"excess_{m}_cost"),
+                (pl.col(f"excess_{m}_kbtu") * pl.col("kg_co2e_per_kbtu")).alias(f"excess_{m}_co2e_kg"),
+            )
+        ],
+    )
 
 
-def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_unit: str,
-           plan: dict | None = None, currency: str = "$") -> pl.DataFrame:
+def screen(
+    df: pl.DataFrame,
+    thresholds: dict,
+    *,
+    energy_factor: float,
+    energy_unit: str,
+    plan: dict | None = None,
+    currency: str = "$",
+) -> pl.DataFrame:
     """Add metrics, flags, needs_review, tier and rank to the per-building frame.
 
     Parameters
@@ -262,21 +332,31 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     # the band is never narrower than ±band_floor around P50: metering, weather and calendarization
     # carry that much uncertainty even when every envelope input is known
     df = df.with_columns(
-        pl.max_horizontal(pl.col("expected_high_kbtu"),
-                          pl.col("expected_heating_kbtu") * (1 + t["band_floor"])).alias("_band_high"),
-        pl.min_horizontal(pl.col("expected_low_kbtu"),
-                          pl.col("expected_heating_kbtu") * (1 - t["band_floor"])).alias("_band_low"))
+        pl.max_horizontal(pl.col("expected_high_kbtu"), pl.col("expected_heating_kbtu") * (1 + t["band_floor"])).alias(
+            "_band_high"
+        ),
+        pl.min_horizontal(pl.col("expected_low_kbtu"), pl.col("expected_heating_kbtu") * (1 - t["band_floor"])).alias(
+            "_band_low"
+        ),
+    )
     out = df.with_columns(
         # no ratio without a positive expectation and a metered figure (never inf or NaN in an output)
         pl.when((pl.col("expected_heating_kbtu") > 0) & pl.col("actual_heating_kbtu").is_finite())
-        .then(pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")).otherwise(None).alias("ratio"),
-        pl.when(pl.col("actual_heating_kbtu") > pl.col("_band_high") * t["band_ratio"]).then(pl.lit("above"))
-        .when(pl.col("actual_heating_kbtu") < pl.col("_band_low")).then(pl.lit("below"))
+        .then(pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu"))
+        .otherwise(None)
+        .alias("ratio"),
+        pl.when(pl.col("actual_heating_kbtu") > pl.col("_band_high") * t["band_ratio"])
+        .then(pl.lit("above"))
+        .when(pl.col("actual_heating_kbtu") < pl.col("_band_low"))
+        .then(pl.lit("below"))
         .when(pl.col("actual_heating_kbtu").is_not_null() & pl.col("expected_low_kbtu").is_not_null())
-        .then(pl.lit("within")).otherwise(None).alias("band_position"),
+        .then(pl.lit("within"))
+        .otherwise(None)
+        .alias("band_position"),
         pl.when((pl.col("hdd65") > 0) & (pl.col("floor_area_ft2") > 0) & pl.col("actual_heating_kbtu").is_not_null())
         .then(pl.col("actual_heating_kbtu") * 1000.0 / (pl.col("floor_area_ft2") * pl.col("hdd65")))
-        .otherwise(None).alias("heating_intensity"),
+        .otherwise(None)
+        .alias("heating_intensity"),
     )
     # peers use only buildings whose figures are not blocked by data problems
     usable = (~pl.col("blocking")) & pl.col("ratio").is_not_null() & (pl.col("ratio") > 0)
@@ -284,8 +364,11 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         pl.when(usable).then(pl.col("heating_intensity")).otherwise(None).alias("_int_ok"),
         pl.when(usable).then(pl.col("ratio").log()).otherwise(None).alias("_logr"),
     )
-    out = out.with_columns(peer_groups(out.with_columns(pl.col("_int_ok").alias("heating_intensity")),
-                                       min_group=t["min_peer_group"]).alias("peer_group"))
+    out = out.with_columns(
+        peer_groups(
+            out.with_columns(pl.col("_int_ok").alias("heating_intensity")), min_group=t["min_peer_group"]
+        ).alias("peer_group")
+    )
     out = out.with_columns(
         pl.col("_int_ok").median().over("peer_group").alias("peer_median_intensity"),
         percentile_within(pl.col("_int_ok"), "peer_group").alias("peer_percentile"),
@@ -294,26 +377,35 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     )
     # the evidence scale: the peers' median and spread where there are enough peers, the model's own band
     # where there are none, blended by the peer weight n / (n + peer_prior) in between (shrinkage)
-    out = out.with_columns(_blended_z(pl.col("_logr"), "peer_group", _model_sd(), t).alias("z_score"),
-                           _blend_weight(pl.col("_logr"), "peer_group", t).alias("peer_weight"),
-                           _blend_center(pl.col("_logr"), "peer_group", t).alias("_center_logr"))
     out = out.with_columns(
-        pl.when(pl.col("_logr").is_null()).then(None)
-        .when(pl.col("peer_weight") == 0).then(pl.lit("model band"))
-        .when(pl.col("peer_weight") >= PEER_SCALE_FROM).then(pl.lit("peers"))
-        .otherwise(pl.lit("blend")).alias("evidence_scale"))
+        _blended_z(pl.col("_logr"), "peer_group", _model_sd(), t).alias("z_score"),
+        _blend_weight(pl.col("_logr"), "peer_group", t).alias("peer_weight"),
+        _blend_center(pl.col("_logr"), "peer_group", t).alias("_center_logr"),
+    )
+    out = out.with_columns(
+        pl.when(pl.col("_logr").is_null())
+        .then(None)
+        .when(pl.col("peer_weight") == 0)
+        .then(pl.lit("model band"))
+        .when(pl.col("peer_weight") >= PEER_SCALE_FROM)
+        .then(pl.lit("peers"))
+        .otherwise(pl.lit("blend"))
+        .alias("evidence_scale")
+    )
     out = out.with_columns(
         # no excess is claimed where a data problem blocks the verdict: it would be the data's, not waste
-        pl.when(~pl.col("blocking")).then(
-            (pl.col("actual_heating_kbtu") - pl.col("_band_high")).clip(lower_bound=0)).alias("excess_energy_kbtu"),
-        pl.when(~pl.col("blocking")).then(
-            (pl.col("actual_heating_kbtu") - pl.col("expected_heating_kbtu")).clip(lower_bound=0))
+        pl.when(~pl.col("blocking"))
+        .then((pl.col("actual_heating_kbtu") - pl.col("_band_high")).clip(lower_bound=0))
+        .alias("excess_energy_kbtu"),
+        pl.when(~pl.col("blocking"))
+        .then((pl.col("actual_heating_kbtu") - pl.col("expected_heating_kbtu")).clip(lower_bound=0))
         .alias("excess_energy_central_kbtu"),
         pl.coalesce(
             pl.col("yoy_change") if "yoy_change" in df.columns else pl.lit(None, dtype=pl.Float64),
             pl.when(pl.col("prev_normal_heating_kbtu") > 0)
-            .then(pl.col("normal_heating_kbtu") / pl.col("prev_normal_heating_kbtu") - 1).otherwise(None))
-        .alias("yoy_change"),
+            .then(pl.col("normal_heating_kbtu") / pl.col("prev_normal_heating_kbtu") - 1)
+            .otherwise(None),
+        ).alias("yoy_change"),
     )
     out = out.with_columns(
         (pl.col("excess_energy_kbtu") * pl.col("usd_per_kbtu")).alias("excess_cost"),
@@ -325,7 +417,9 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     fit_ok = reg & (pl.col("r2") >= t["r2_min"]).fill_null(False)
     out = out.with_columns(
         pl.when(usable & fit_ok & pl.col("fitted_base_f").is_not_null() & pl.col("balance_point_f").is_not_null())
-        .then(pl.col("fitted_base_f") - pl.col("balance_point_f")).otherwise(None).alias("balance_point_excess_f"),
+        .then(pl.col("fitted_base_f") - pl.col("balance_point_f"))
+        .otherwise(None)
+        .alias("balance_point_excess_f"),
         pl.when(pl.col("_int_ok") > 0).then(pl.col("_int_ok").log()).otherwise(None).alias("_logi"),
     )
     out = out.with_columns(
@@ -335,16 +429,23 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
         # over the portfolio (the spread of normal buildings' changes is weather-normalization and
         # meter noise, common to all)
         pl.when(usable & (pl.col("yoy_change") > -1))
-        .then((1 + pl.col("yoy_change")).log()).otherwise(None).alias("_logyoy"),
+        .then((1 + pl.col("yoy_change")).log())
+        .otherwise(None)
+        .alias("_logyoy"),
     )
     out = out.with_columns(_robust_z_all(pl.col("_logyoy")).alias("z_yoy"))
     out = out.with_columns(
-        (pl.col("z_score") + t["weight_balance_point"] * pl.col("z_balance_point").fill_null(0.0)
-         + t["weight_intensity"] * pl.col("z_intensity").fill_null(0.0)).alias("evidence_score"))
+        (
+            pl.col("z_score")
+            + t["weight_balance_point"] * pl.col("z_balance_point").fill_null(0.0)
+            + t["weight_intensity"] * pl.col("z_intensity").fill_null(0.0)
+        ).alias("evidence_score")
+    )
     conds = {
         "above_band": pl.col("band_position") == "above",
         "high_among_peers": pl.col("peer_percentile") >= t["peer_percentile_high"],
-        "high_baseload": reg & (pl.col("baseload_share") > t["baseload_share_high"] * pl.col("baseload_share_default"))
+        "high_baseload": reg
+        & (pl.col("baseload_share") > t["baseload_share_high"] * pl.col("baseload_share_default"))
         & (pl.col("baseload_share") > 0.2),
         "high_balance_point": reg & (pl.col("fitted_base_f") > t["balance_point_high_f"]),
         "poor_fit": reg & ((pl.col("r2") < t["r2_min"]) | (pl.col("cv_rmse") > t["cv_rmse_max"])),
@@ -356,63 +457,96 @@ def screen(df: pl.DataFrame, thresholds: dict, *, energy_factor: float, energy_u
     out = out.with_columns([c.fill_null(False).alias(f"_f_{k}") for k, c in conds.items()])
     # a fit that does not follow the weather is no basis for a verdict (often a meter or entry problem)
     fit_usable = (~reg) | fit_ok
-    strong = ((pl.col("evidence_score") >= t["review_score"]) & (pl.col("ratio") >= t["min_excess_ratio"])
-              & fit_usable).fill_null(False)
+    strong = (
+        (pl.col("evidence_score") >= t["review_score"]) & (pl.col("ratio") >= t["min_excess_ratio"]) & fit_usable
+    ).fill_null(False)
     # or a step up against the building's own previous year, far beyond the portfolio's spread of
     # year-on-year changes (a fault that developed: the building is its own baseline)
     # (a fit that explains little of the use, e.g. a heat pump's few % of heating, gives no such step;
     # nor does heating that is a small part of the fuel's use, where a small change in the rest moves it)
     heat_share = pl.when(pl.col("total_fuel_kbtu") > 0).then(pl.col("actual_heating_kbtu") / pl.col("total_fuel_kbtu"))
-    rise = ((pl.col("yoy_change") >= t["yoy_review"]) & (pl.col("z_yoy") >= t["yoy_review_z"])
-            & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"]))
-            & (heat_share >= t["yoy_review_heating_share_min"])).fill_null(False)
+    rise = (
+        (pl.col("yoy_change") >= t["yoy_review"])
+        & (pl.col("z_yoy") >= t["yoy_review_z"])
+        & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"]))
+        & (heat_share >= t["yoy_review_heating_share_min"])
+    ).fill_null(False)
     out = out.with_columns(
         ((strong | rise) & ~pl.col("blocking")).alias("needs_review"),
         # which way the building came onto the audit list (docs/methods.md "How the audit list is chosen")
-        pl.when(pl.col("blocking")).then(None)
-        .when(strong & rise).then(pl.lit("level and step up"))
-        .when(strong).then(pl.lit("level"))
-        .when(rise).then(pl.lit("step up"))
-        .otherwise(None).alias("review_path"),
+        pl.when(pl.col("blocking"))
+        .then(None)
+        .when(strong & rise)
+        .then(pl.lit("level and step up"))
+        .when(strong)
+        .then(pl.lit("level"))
+        .when(rise)
+        .then(pl.lit("step up"))
+        .otherwise(None)
+        .alias("review_path"),
     )
-    out = out.with_columns((pl.col("prev_fuel_kbtu") if "prev_fuel_kbtu" in out.columns
-                            else pl.lit(None, dtype=pl.Float64)).alias("_prev_fuel"))
+    out = out.with_columns(
+        (pl.col("prev_fuel_kbtu") if "prev_fuel_kbtu" in out.columns else pl.lit(None, dtype=pl.Float64)).alias(
+            "_prev_fuel"
+        )
+    )
     out = _recoverable(out, t, heat_share)
     # the audit order: buildings that can be judged by expected recoverable cost; then those whose data
     # must be fixed first, by the money at stake (their heating's cost), so a data problem never takes
     # an audit slot
     out = out.with_columns(
-        pl.when(pl.col("blocking")).then(pl.col("actual_heating_kbtu") * pl.col("usd_per_kbtu"))
-        .otherwise(pl.col("expected_recoverable_cost")).fill_null(0.0).fill_nan(0.0).alias("_order_money"))
+        pl.when(pl.col("blocking"))
+        .then(pl.col("actual_heating_kbtu") * pl.col("usd_per_kbtu"))
+        .otherwise(pl.col("expected_recoverable_cost"))
+        .fill_null(0.0)
+        .fill_nan(0.0)
+        .alias("_order_money")
+    )
     # the events (issue 17, events.plan_context): a confirmed finding not yet fixed is pinned to the top of
     # the plan; an audit that found nothing keeps the building off it unless its savings grew enough
     p = plan or {"audits_per_quarter": 0, "audit_cost": 0.0}
     cost = pl.col("expected_recoverable_cost").fill_null(0.0).fill_nan(0.0)
     if "_pin_plan" in out.columns:
         grown = (cost >= p.get("clean_audit_regrow", 2.0) * pl.col("_cost_at_audit")).fill_null(False)
-        out = out.with_columns((pl.col("_pin_plan").fill_null(False) & ~pl.col("blocking")).alias("_pin"),
-                               ((pl.col("_clean_audit_recent").fill_null(False) & ~grown)
-                                | pl.col("_measure_recent").fill_null(False)).alias("_hold"))
+        out = out.with_columns(
+            (pl.col("_pin_plan").fill_null(False) & ~pl.col("blocking")).alias("_pin"),
+            (
+                (pl.col("_clean_audit_recent").fill_null(False) & ~grown) | pl.col("_measure_recent").fill_null(False)
+            ).alias("_hold"),
+        )
     else:
         out = out.with_columns(pl.lit(False).alias("_pin"), pl.lit(False).alias("_hold"))
-    out = out.sort(["blocking", "_pin", "_order_money", "ratio", "building_id"],
-                   descending=[False, True, True, True, False], nulls_last=True)
+    out = out.sort(
+        ["blocking", "_pin", "_order_money", "ratio", "building_id"],
+        descending=[False, True, True, True, False],
+        nulls_last=True,
+    )
     # tiers are plain groups along that order: this quarter's plan, the rest worth a visit, then less
     worth = ((~pl.col("blocking")) & (cost > 0) & (cost >= p["audit_cost"]) & ~pl.col("_hold")) | pl.col("_pin")
     nth = worth.cast(pl.Int64).cum_sum()
     in_plan = worth & ((nth <= p["audits_per_quarter"]) if p["audits_per_quarter"] > 0 else pl.lit(True))
     watch_from = WATCH_SHARE * p["audit_cost"] if p["audit_cost"] > 0 else 0.0
     out = out.with_columns(in_plan.alias("in_plan")).with_columns(
-        pl.when(pl.col("blocking")).then(pl.lit("Fix data first"))
-        .when(pl.col("in_plan")).then(pl.lit("Audit first"))
-        .when(worth).then(pl.lit("Audit soon"))
-        .when((cost > watch_from) & (cost > 0)).then(pl.lit("Watch"))
+        pl.when(pl.col("blocking"))
+        .then(pl.lit("Fix data first"))
+        .when(pl.col("in_plan"))
+        .then(pl.lit("Audit first"))
+        .when(worth)
+        .then(pl.lit("Audit soon"))
+        .when((cost > watch_from) & (cost > 0))
+        .then(pl.lit("Watch"))
         # above the band, but a fit that does not follow the weather cannot size the excess: watched
-        .when(pl.col("_f_above_band") & pl.col("_f_poor_fit")).then(pl.lit("Watch"))
-        .otherwise(pl.lit("No action")).alias("tier"))
+        .when(pl.col("_f_above_band") & pl.col("_f_poor_fit"))
+        .then(pl.lit("Watch"))
+        .otherwise(pl.lit("No action"))
+        .alias("tier")
+    )
     out = out.with_columns(pl.col("tier").replace_strict(TIER_RANK, return_dtype=pl.Int64).alias("tier_rank"))
-    out = out.sort(["tier_rank", "_pin", "_order_money", "ratio", "building_id"],
-                   descending=[False, True, True, True, False], nulls_last=True)
+    out = out.sort(
+        ["tier_rank", "_pin", "_order_money", "ratio", "building_id"],
+        descending=[False, True, True, True, False],
+        nulls_last=True,
+    )
     out = out.with_row_index("rank", offset=1).with_columns(pl.col("rank").cast(pl.Int64))
     out = _explain(out, t, energy_factor=energy_factor, energy_unit=energy_unit, currency=currency)
     # which view sized the expected recoverable energy (level, step up, fuel step): the sheet says it in words
@@ -428,20 +562,58 @@ def _fmt(x: float | None, digits: int = 0) -> str:
     return f"{x:,.{digits}f}"
 
 
-def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: str,
-             currency: str = "$") -> pl.DataFrame:
+def _explain(
+    out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: str, currency: str = "$"
+) -> pl.DataFrame:
     """Flag codes and one-line explanations that carry the numbers; the verdict sentence."""
     rows = out.select(
-        "actual_heating_kbtu", "expected_heating_kbtu", "_band_low", "_band_high", "ratio",
-        "heating_intensity", "peer_median_intensity", "peer_percentile", "peer_group", "z_score",
-        "baseload_share", "baseload_share_default", "fitted_base_f", "r2", "cv_rmse", "yoy_change",
-        "tier", "needs_review", "blocking", "excess_energy_kbtu", "evidence_score", "z_balance_point", "z_intensity",
-        "z_yoy", "review_path", "span_kind", "data_issue_codes", "balance_point_f", "effective_ua_btu_h_f",
-        "ua_total", "expected_recoverable_kbtu", "expected_recoverable_cost", "_view", "_w_step", "_w_fstep",
-        "_yoy_fuel", "_z_fuel",
-        "excess_heat_loss_kbtu", "excess_controls_kbtu", "excess_baseload_kbtu",
-        "sure_heat_loss", "sure_controls", "sure_baseload", "fit_method", "in_plan",
-        *[c for c in out.columns if c.startswith("_f_")])
+        "actual_heating_kbtu",
+        "expected_heating_kbtu",
+        "_band_low",
+        "_band_high",
+        "ratio",
+        "heating_intensity",
+        "peer_median_intensity",
+        "peer_percentile",
+        "peer_group",
+        "z_score",
+        "baseload_share",
+        "baseload_share_default",
+        "fitted_base_f",
+        "r2",
+        "cv_rmse",
+        "yoy_change",
+        "tier",
+        "needs_review",
+        "blocking",
+        "excess_energy_kbtu",
+        "evidence_score",
+        "z_balance_point",
+        "z_intensity",
+        "z_yoy",
+        "review_path",
+        "span_kind",
+        "data_issue_codes",
+        "balance_point_f",
+        "effective_ua_btu_h_f",
+        "ua_total",
+        "expected_recoverable_kbtu",
+        "expected_recoverable_cost",
+        "_view",
+        "_w_step",
+        "_w_fstep",
+        "_yoy_fuel",
+        "_z_fuel",
+        "excess_heat_loss_kbtu",
+        "excess_controls_kbtu",
+        "excess_baseload_kbtu",
+        "sure_heat_loss",
+        "sure_controls",
+        "sure_baseload",
+        "fit_method",
+        "in_plan",
+        *[c for c in out.columns if c.startswith("_f_")],
+    )
     si = energy_unit == "kWh"
     e = energy_factor
     codes_all, texts_all, verdicts, kinds, mechs = [], [], [], [], []
@@ -451,61 +623,99 @@ def _explain(out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: s
         def add(code: str, text: str) -> None:
             codes.append(code)  # noqa: B023 - add() is called only within this row's iteration
             texts.append(text)  # noqa: B023 - same
+
         if r["_f_above_band"]:
-            add("above_band", f"Metered heating {_fmt(r['actual_heating_kbtu'] * e)} {energy_unit} is "
+            add(
+                "above_band",
+                f"Metered heating {_fmt(r['actual_heating_kbtu'] * e)} {energy_unit} is "
                 f"{_fmt(r['ratio'], 2)}× the expected {_fmt(r['expected_heating_kbtu'] * e)} {energy_unit}, "
-                f"above the expected band {_fmt(r['_band_low'] * e)}–{_fmt(r['_band_high'] * e)}.")
+                f"above the expected band {_fmt(r['_band_low'] * e)}–{_fmt(r['_band_high'] * e)}.",
+            )
         if r["_f_high_among_peers"]:
-            add("high_among_peers", f"Heating intensity {_fmt(r['heating_intensity'], 2)} Btu/ft²·°F·day is at the "
+            add(
+                "high_among_peers",
+                f"Heating intensity {_fmt(r['heating_intensity'], 2)} Btu/ft²·°F·day is at the "
                 f"{_fmt(r['peer_percentile'])}th percentile of {r['peer_group']} (median "
-                f"{_fmt(r['peer_median_intensity'], 2)}).")
+                f"{_fmt(r['peer_median_intensity'], 2)}).",
+            )
         if r["_f_high_baseload"]:
-            add("high_baseload", f"Non-heating use is {_fmt(100 * r['baseload_share'])} % of the heating fuel, against "
-                f"about {_fmt(100 * r['baseload_share_default'])} % typical for the use type.")
+            add(
+                "high_baseload",
+                f"Non-heating use is {_fmt(100 * r['baseload_share'])} % of the heating fuel, against "
+                f"about {_fmt(100 * r['baseload_share_default'])} % typical for the use type.",
+            )
         if r["_f_high_balance_point"]:
-            add("high_balance_point", f"Heating starts below {_fmt(r['fitted_base_f'], 1)} °F outdoors "
+            add(
+                "high_balance_point",
+                f"Heating starts below {_fmt(r['fitted_base_f'], 1)} °F outdoors "
                 f"(fitted balance point; above {t['balance_point_high_f']:g} °F suggests high setpoints or "
-                "controls that heat too early).")
+                "controls that heat too early).",
+            )
         if r["_f_poor_fit"]:
-            add("poor_fit", f"Use follows the weather poorly (R² {_fmt(r['r2'], 2)}, CV(RMSE) "
-                f"{_fmt(r['cv_rmse'], 1)} %): irregular operation, controls or meter problems.")
+            add(
+                "poor_fit",
+                f"Use follows the weather poorly (R² {_fmt(r['r2'], 2)}, CV(RMSE) "
+                f"{_fmt(r['cv_rmse'], 1)} %): irregular operation, controls or meter problems.",
+            )
         if r["_f_rising_use"]:
             add("rising_use", f"Weather-normalized heating is up {_fmt(100 * r['yoy_change'])} % on the previous year.")
         if r["_f_envelope_defaulted"]:
-            add("envelope_defaulted", "Every envelope value is a default for the use type and era: the expected "
-                "range is wide.")
+            add(
+                "envelope_defaulted",
+                "Every envelope value is a default for the use type and era: the expected range is wide.",
+            )
         if r["_f_shifted_span"]:
-            add("shifted_span", "Readings do not cover the analysis window; the latest covered 12 months were "
-                "compared instead, with the degree days of the same days.")
+            add(
+                "shifted_span",
+                "Readings do not cover the analysis window; the latest covered 12 months were "
+                "compared instead, with the degree days of the same days.",
+            )
         if r["_f_base_at_grid_edge"]:
-            add("base_at_grid_edge", f"The bills fit best at a base of {_fmt(r['fitted_base_f'], 1)} °F, the edge of "
+            add(
+                "base_at_grid_edge",
+                f"The bills fit best at a base of {_fmt(r['fitted_base_f'], 1)} °F, the edge of "
                 "the bases searched: the building's balance point may lie beyond it, and its split of the fuel "
-                "into heating and baseload is less certain.")
+                "into heating and baseload is less certain.",
+            )
         codes_all.append(codes)
         texts_all.append(texts)
         ms = _supported(r, t)
         mechs.append(ms)
         kinds.append(_waste_kind(r, ms, t, si=si))
         money = f"{currency}{_fmt(r['expected_recoverable_cost'])}" if r["expected_recoverable_cost"] else None
-        plan = (" It is in this quarter's audit plan for its expected savings." if r["in_plan"] and not r["needs_review"]
-                else " It is in this quarter's audit plan." if r["in_plan"] else
-                " Its expected savings are below the cost of a visit ([plan] audit_cost), so it is not planned."
-                if r["needs_review"] and r["tier"] in ("Watch", "No action") else
-                " Its expected savings are worth a visit after this quarter's plan." if r["tier"] == "Audit soon" else "")
+        plan = (
+            " It is in this quarter's audit plan for its expected savings."
+            if r["in_plan"] and not r["needs_review"]
+            else " It is in this quarter's audit plan."
+            if r["in_plan"]
+            else " Its expected savings are below the cost of a visit ([plan] audit_cost), so it is not planned."
+            if r["needs_review"] and r["tier"] in ("Watch", "No action")
+            else " Its expected savings are worth a visit after this quarter's plan."
+            if r["tier"] == "Audit soon"
+            else ""
+        )
         if r["blocking"]:
-            v = ("A data problem (" + ", ".join(r["data_issue_codes"] or []) + ") must be fixed before this "
-                 "building can be judged; it takes no audit slot until then.")
+            v = (
+                "A data problem (" + ", ".join(r["data_issue_codes"] or []) + ") must be fixed before this "
+                "building can be judged; it takes no audit slot until then."
+            )
         elif r["review_path"] == "step up":
-            v = (f"Weather-normalized heating rose {_fmt(100 * r['yoy_change'])} % on the previous year, far beyond "
-                 f"the portfolio's year-on-year spread (z {_fmt(r['z_yoy'], 1)} against {t['yoy_review_z']:g}); it is "
-                 f"now {_fmt(r['ratio'], 2)}× the expectation. Something changed: recommend an audit"
-                 + (f" (expected recoverable about {money} a year)." if money else ".") + plan)
+            v = (
+                f"Weather-normalized heating rose {_fmt(100 * r['yoy_change'])} % on the previous year, far beyond "
+                f"the portfolio's year-on-year spread (z {_fmt(r['z_yoy'], 1)} against {t['yoy_review_z']:g}); it is "
+                f"now {_fmt(r['ratio'], 2)}× the expectation. Something changed: recommend an audit"
+                + (f" (expected recoverable about {money} a year)." if money else ".")
+                + plan
+            )
         elif r["needs_review"]:
-            v = (f"Heating is {_fmt(r['ratio'], 2)}× what this building should need and the evidence of excess "
-                 f"is strong (score {_fmt(r['evidence_score'], 1)} against {t['review_score']:g}: peers "
-                 f"{_fmt(r['z_score'], 1)}, balance point {_fmt(r['z_balance_point'], 1)}, intensity "
-                 f"{_fmt(r['z_intensity'], 1)}): recommend an audit"
-                 + (f" (expected recoverable about {money} a year)." if money else ".") + plan)
+            v = (
+                f"Heating is {_fmt(r['ratio'], 2)}× what this building should need and the evidence of excess "
+                f"is strong (score {_fmt(r['evidence_score'], 1)} against {t['review_score']:g}: peers "
+                f"{_fmt(r['z_score'], 1)}, balance point {_fmt(r['z_balance_point'], 1)}, intensity "
+                f"{_fmt(r['z_intensity'], 1)}): recommend an audit"
+                + (f" (expected recoverable about {money} a year)." if money else ".")
+                + plan
+            )
         elif r["ratio"] is None:
             v = "No verdict: metered or expected heating is missing."
         else:
@@ -526,7 +736,7 @@ MECHANISMS = ("heat_loss", "controls", "baseload")
 MECHANISM_CHECKS = {
     "heat loss": "check outdoor air and dampers, the envelope and air leakage, and the plant's efficiency",
     "controls": "check setpoints, schedules and setbacks, heating in warm weather, and simultaneous heating "
-                "and cooling",
+    "and cooling",
     "baseload": "check hot water, recirculation and leaks",
 }
 
@@ -552,40 +762,68 @@ def _waste_kind(r: dict, ms: list[str], t: dict, *, si: bool) -> str:
     for m in ms:
         if m == "heat loss":
             ratio = r["effective_ua_btu_h_f"] / r["ua_total"] if r["ua_total"] else None
-            parts.append(f"heat loss (the heating slope implies {_fmt(ratio, 1)}× the envelope's heat-loss "
-                         f"coefficient): {MECHANISM_CHECKS[m]}")
+            parts.append(
+                f"heat loss (the heating slope implies {_fmt(ratio, 1)}× the envelope's heat-loss "
+                f"coefficient): {MECHANISM_CHECKS[m]}"
+            )
         elif m == "controls":
             d = r["fitted_base_f"] - r["balance_point_f"]
             tf = (r["fitted_base_f"] - 32) / 1.8 if si else r["fitted_base_f"]
             unit, du = ("°C", d / 1.8) if si else ("°F", d)
-            parts.append(f"controls (heating starts at {_fmt(tf, 1)} {unit} outdoors, {_fmt(du, 1)} {unit} "
-                         f"above the engineering balance point): {MECHANISM_CHECKS[m]}")
+            parts.append(
+                f"controls (heating starts at {_fmt(tf, 1)} {unit} outdoors, {_fmt(du, 1)} {unit} "
+                f"above the engineering balance point): {MECHANISM_CHECKS[m]}"
+            )
         else:
-            parts.append(f"non-heating use of the heating fuel ({_fmt(100 * r['baseload_share'])} % of it, "
-                         f"about {_fmt(100 * r['baseload_share_default'])} % is typical): {MECHANISM_CHECKS[m]}")
-    step = r["_view"] == "step up" and (r["_w_step"] or 0) >= t["mechanism_support"] \
+            parts.append(
+                f"non-heating use of the heating fuel ({_fmt(100 * r['baseload_share'])} % of it, "
+                f"about {_fmt(100 * r['baseload_share_default'])} % is typical): {MECHANISM_CHECKS[m]}"
+            )
+    step = (
+        r["_view"] == "step up"
+        and (r["_w_step"] or 0) >= t["mechanism_support"]
         and (r["yoy_change"] or 0) >= t["yoy_rise"]
-    fstep = r["_view"] == "fuel step" and (r["_w_fstep"] or 0) >= t["mechanism_support"] \
+    )
+    fstep = (
+        r["_view"] == "fuel step"
+        and (r["_w_fstep"] or 0) >= t["mechanism_support"]
         and (r["_yoy_fuel"] or 0) >= t["yoy_rise"]
-    lead = (f"Heating rose {_fmt(100 * r['yoy_change'])} % on last year: ask what changed (equipment, "
-            "schedules, a failed component)") if step else \
-        (f"Use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year, more than its heating explains: "
-         "ask what changed (heating in warm weather, hot water, a leak, a failed component)") if fstep else ""
+    )
+    lead = (
+        (
+            f"Heating rose {_fmt(100 * r['yoy_change'])} % on last year: ask what changed (equipment, "
+            "schedules, a failed component)"
+        )
+        if step
+        else (
+            f"Use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year, more than its heating explains: "
+            "ask what changed (heating in warm weather, hot water, a leak, a failed component)"
+        )
+        if fstep
+        else ""
+    )
     if parts and r["tier"] == "No action":
-        return ("Expected savings too small for a visit; the bills point to " + "; and to ".join(parts)
-                + ", at the next routine visit.")
+        return (
+            "Expected savings too small for a visit; the bills point to "
+            + "; and to ".join(parts)
+            + ", at the next routine visit."
+        )
     if parts:
         body = "Likely " + "; and ".join(parts)
         return (lead + ". " + body + ".") if lead else body + "."
     if lead:
         return lead + "; the bills do not show which part of the heating rose."
     if r["_f_poor_fit"] and (r["ratio"] or 0) > 1:
-        return (f"Use does not follow the weather (R² {_fmt(r['r2'], 2)}): these bills cannot size an excess; "
-                "check operation and meters first.")
+        return (
+            f"Use does not follow the weather (R² {_fmt(r['r2'], 2)}): these bills cannot size an excess; "
+            "check operation and meters first."
+        )
     if r["tier"] not in ("No action",) and (r["expected_recoverable_kbtu"] or 0) > 0:
         if r["_view"] == "fuel step":
-            return (f"Use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year, more than its heating "
-                    "explains; the bills do not show where (heating in warm weather, hot water, a leak?).")
+            return (
+                f"Use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year, more than its heating "
+                "explains; the bills do not show where (heating in warm weather, hot water, a leak?)."
+            )
         if r["fit_method"] != "regression":
             return "Heating above what its peers' bills suggest; annual bills cannot show which part is in excess."
         return "Heating above what its peers' bills suggest; no single mechanism stands out in the bills."
@@ -598,38 +836,60 @@ def _not_listed(r: dict, t: dict, money: str | None, plan: str) -> str:
     ratio = r["ratio"]
     why = []
     if r["fit_method"] == "regression" and r["r2"] is not None and r["r2"] < t["r2_min"]:
-        why.append(f"its use follows the weather poorly (R² {_fmt(r['r2'], 2)} against {t['r2_min']:g}), "
-                   "so its level is no basis for a verdict: check operation and meters")
+        why.append(
+            f"its use follows the weather poorly (R² {_fmt(r['r2'], 2)} against {t['r2_min']:g}), "
+            "so its level is no basis for a verdict: check operation and meters"
+        )
     elif r["_view"] == "step up":
-        why.append(f"its rise on last year ({_fmt(100 * r['yoy_change'])} %, z {_fmt(r['z_yoy'], 1)}) is below "
-                   f"{_fmt(100 * t['yoy_review'])} % at z {t['yoy_review_z']:g}")
+        why.append(
+            f"its rise on last year ({_fmt(100 * r['yoy_change'])} %, z {_fmt(r['z_yoy'], 1)}) is below "
+            f"{_fmt(100 * t['yoy_review'])} % at z {t['yoy_review_z']:g}"
+        )
     elif r["_view"] == "fuel step":
-        why.append(f"the rise is in its whole use of the heating fuel ({_fmt(100 * r['_yoy_fuel'])} % on last year, "
-                   f"z {_fmt(r['_z_fuel'], 1)} among the buildings of its weather station), not in its weather-"
-                   "normalized heating")
+        why.append(
+            f"the rise is in its whole use of the heating fuel ({_fmt(100 * r['_yoy_fuel'])} % on last year, "
+            f"z {_fmt(r['_z_fuel'], 1)} among the buildings of its weather station), not in its weather-"
+            "normalized heating"
+        )
     elif ratio < t["min_excess_ratio"]:
         why.append(f"its heating is not above the model's central expectation ({_fmt(ratio, 2)}×)")
     else:
-        why.append(f"buildings like it spread this widely (evidence score {_fmt(r['evidence_score'], 1)} "
-                   f"against {t['review_score']:g})")
+        why.append(
+            f"buildings like it spread this widely (evidence score {_fmt(r['evidence_score'], 1)} "
+            f"against {t['review_score']:g})"
+        )
     if r["tier"] == "No action" or not money:
         if ratio < 1 and r["actual_heating_kbtu"] < r["_band_low"]:
             return f"Heating is below expectation ({_fmt(ratio, 2)}× expected): no sign of excess."
         if ratio < t["min_excess_ratio"] or not r["_f_above_band"] and not r["_f_poor_fit"]:
-            return (f"Heating is in line with expectation ({_fmt(ratio, 2)}× expected) and with its peers; "
-                    "no excess worth a visit.")
-        return (f"Heating is {_fmt(ratio, 2)}× the expectation, but no excess can be counted on: "
-                + "; ".join(why) + ".")
-    basis = (f"; it rose {_fmt(100 * r['yoy_change'])} % on last year" if r["_view"] == "step up"
-             else f"; its use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year"
-             if r["_view"] == "fuel step"
-             else "; its peers' bills put it above what buildings like it use" if ratio < 1 else "")
-    return (f"Heating is {_fmt(ratio, 2)}× the model's expectation{basis}: expected recoverable about {money} a "
-            "year. The evidence is not strong enough for the audit list: " + "; ".join(why) + "." + plan)
+            return (
+                f"Heating is in line with expectation ({_fmt(ratio, 2)}× expected) and with its peers; "
+                "no excess worth a visit."
+            )
+        return f"Heating is {_fmt(ratio, 2)}× the expectation, but no excess can be counted on: " + "; ".join(why) + "."
+    basis = (
+        f"; it rose {_fmt(100 * r['yoy_change'])} % on last year"
+        if r["_view"] == "step up"
+        else f"; its use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year"
+        if r["_view"] == "fuel step"
+        else "; its peers' bills put it above what buildings like it use"
+        if ratio < 1
+        else ""
+    )
+    return (
+        f"Heating is {_fmt(ratio, 2)}× the model's expectation{basis}: expected recoverable about {money} a "
+        "year. The evidence is not strong enough for the audit list: " + "; ".join(why) + "." + plan
+    )
 
 
-def next_steps(flag_codes: list[str], data_issue_codes: list[str], *, slope_vs_envelope: float | None = None,
-               mechanisms: list[str] | None = None, blocking: bool = False) -> list[str]:
+def next_steps(
+    flag_codes: list[str],
+    data_issue_codes: list[str],
+    *,
+    slope_vs_envelope: float | None = None,
+    mechanisms: list[str] | None = None,
+    blocking: bool = False,
+) -> list[str]:
     """Plain-language checks (printed on the sheet): a mechanism's checks only where its own evidence
     supports it (``mechanisms``, from the screen's ``mechanisms`` column); none while a data problem blocks.
 
@@ -639,18 +899,22 @@ def next_steps(flag_codes: list[str], data_issue_codes: list[str], *, slope_vs_e
     # the last days of the window filled from the fit need no correction, only the next bill
     fix = sorted(set(data_issue_codes) - {"end_days_filled"})
     if fix:
-        steps.append("Check the data first: " + ", ".join(fix)
-                     + " — correct the readings or the building record and rerun.")
+        steps.append(
+            "Check the data first: " + ", ".join(fix) + " — correct the readings or the building record and rerun."
+        )
     if "end_days_filled" in data_issue_codes:
-        steps.append("The last days of the window had no reading yet and were filled from the building's "
-                     "weather fit: the next run uses the bill once it is read.")
+        steps.append(
+            "The last days of the window had no reading yet and were filled from the building's "
+            "weather fit: the next run uses the bill once it is read."
+        )
     if blocking:
         return steps
     for m in mechanisms or []:
         steps.append(f"{m[0].upper()}{m[1:]}: {MECHANISM_CHECKS[m]}.")
     if "poor_fit" in flag_codes:
-        steps.append("Check operation and meters: irregular occupancy, manual controls, estimated or "
-                     "mis-assigned readings.")
+        steps.append(
+            "Check operation and meters: irregular occupancy, manual controls, estimated or mis-assigned readings."
+        )
     if "rising_use" in flag_codes:
         steps.append("Ask what changed since last year: equipment, occupancy, schedules, a failed component.")
     if not steps:

@@ -29,17 +29,15 @@ LINE_COL = "_line"
 class KeySpec:
     """How rows of one input kind are identified and reported."""
 
-    noun: str                 # "building", "reading", "weather day" (for notices and reasons)
-    key: tuple[str, ...]      # the columns that identify a row
-    column: str               # the column named in a reject
-    value: str                # the column whose value a reject shows
+    noun: str  # "building", "reading", "weather day" (for notices and reasons)
+    key: tuple[str, ...]  # the columns that identify a row
+    column: str  # the column named in a reject
+    value: str  # the column whose value a reject shows
 
 
 BUILDINGS = KeySpec("building", ("building_id",), "building_id", "building_id")
-READINGS = KeySpec("reading", ("building_id", "fuel", "meter_id", "period_start", "period_end"),
-                   "quantity", "quantity")
+READINGS = KeySpec("reading", ("building_id", "fuel", "meter_id", "period_start", "period_end"), "quantity", "quantity")
 WEATHER = KeySpec("weather day", ("station_id", "date"), "date", "date")
-
 
 
 def one_row_per_key(df: pl.DataFrame, spec: KeySpec) -> tuple[pl.DataFrame, pl.DataFrame, list[str]]:
@@ -70,26 +68,31 @@ def one_row_per_key(df: pl.DataFrame, spec: KeySpec) -> tuple[pl.DataFrame, pl.D
     notices: list[str] = []
     rejects = empty
     if conflict.height:
-        places = (conflict.group_by(key, maintain_order=True)
-                  .agg((pl.col(FILE_COL) + pl.lit(" line ") + pl.col(LINE_COL).cast(pl.String))
-                       .str.join("; ").alias("_places")))
+        places = conflict.group_by(key, maintain_order=True).agg(
+            (pl.col(FILE_COL) + pl.lit(" line ") + pl.col(LINE_COL).cast(pl.String)).str.join("; ").alias("_places")
+        )
         conflict = conflict.join(places, on=key, how="left", maintain_order="left")
         rejects = conflict.select(
-            pl.col(FILE_COL).alias("file"), pl.col(LINE_COL).alias("line"), pl.lit(spec.column).alias("column"),
+            pl.col(FILE_COL).alias("file"),
+            pl.col(LINE_COL).alias("line"),
+            pl.lit(spec.column).alias("column"),
             pl.col(spec.value).cast(pl.String).alias("value"),
-            (pl.lit(f"the same {spec.noun} is given with different data in more than one input file ("
-                    ) + pl.col("_places") + pl.lit("); none of them is used")).alias("reason"),
+            (
+                pl.lit(f"the same {spec.noun} is given with different data in more than one input file (")
+                + pl.col("_places")
+                + pl.lit("); none of them is used")
+            ).alias("reason"),
         ).cast(_REJECT_SCHEMA)
-        notices.append(f"{conflict.select(key).unique().height} {spec.noun}(s) given with different data "
-                       "in more than one input file: all their rows rejected (see rejects.csv)")
+        notices.append(
+            f"{conflict.select(key).unique().height} {spec.noun}(s) given with different data "
+            "in more than one input file: all their rows rejected (see rejects.csv)"
+        )
     same = multi.filter(pl.col("_versions") == 1)
     # keep the first copy (file name order, then line); drop the others
-    drop = (same.sort(FILE_COL, LINE_COL)
-            .filter(pl.int_range(pl.len()).over(key) > 0)
-            .select(FILE_COL, LINE_COL))
+    drop = same.sort(FILE_COL, LINE_COL).filter(pl.int_range(pl.len()).over(key) > 0).select(FILE_COL, LINE_COL)
     if drop.height:
-        notices.append(f"{drop.height} {spec.noun} row(s) given identically in more than one input file "
-                       "kept once")
-    out = df.join(conflict.select(FILE_COL, LINE_COL), on=[FILE_COL, LINE_COL], how="anti") \
-        .join(drop, on=[FILE_COL, LINE_COL], how="anti")
+        notices.append(f"{drop.height} {spec.noun} row(s) given identically in more than one input file kept once")
+    out = df.join(conflict.select(FILE_COL, LINE_COL), on=[FILE_COL, LINE_COL], how="anti").join(
+        drop, on=[FILE_COL, LINE_COL], how="anti"
+    )
     return out, rejects, notices

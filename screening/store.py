@@ -91,9 +91,15 @@ class Store:
         if version and int(version[0][0]) >= SCHEMA_VERSION:
             return
         if existed:  # a version-1 database: every input is read again on the next load
-            for name in ("migrate_v2_drop_buildings", "migrate_v2_forget_readings", "migrate_v2_forget_weather",
-                         "migrate_v2_forget_rejects", "migrate_v2_forget_inputs", "migrate_v2_runs_files",
-                         "create_buildings"):
+            for name in (
+                "migrate_v2_drop_buildings",
+                "migrate_v2_forget_readings",
+                "migrate_v2_forget_weather",
+                "migrate_v2_forget_rejects",
+                "migrate_v2_forget_inputs",
+                "migrate_v2_runs_files",
+                "create_buildings",
+            ):
                 self.con.execute(statements()[name])
         self.con.execute(statements()["set_schema_version"], {"version": str(SCHEMA_VERSION)})
 
@@ -115,8 +121,7 @@ class Store:
             except duckdb.InvalidInputException:  # statements without a result set
                 return []
         except duckdb.IOException as exc:  # a damaged or vanished file, a full disk
-            raise StoreError(f"{self.path}: cannot read or write the database "
-                             f"({str(exc).splitlines()[0]})") from None
+            raise StoreError(f"{self.path}: cannot read or write the database ({str(exc).splitlines()[0]})") from None
         finally:
             for rel in frames:
                 self.con.unregister(rel)

@@ -27,16 +27,16 @@ from pathlib import Path
 
 import polars as pl
 
-from .csvread import (LINE_COL, MAX_FIELD_CHARS, PARQUET_SUFFIXES, CsvTable, _norm, header_plan, split_sheet,
-                      unreadable)
+from .csvread import LINE_COL, MAX_FIELD_CHARS, PARQUET_SUFFIXES, CsvTable, _norm, header_plan, split_sheet, unreadable
 from .errors import InputError
 
-_OLE_MAGIC = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"   # encrypted OOXML and old .xls are OLE compound files
+_OLE_MAGIC = b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1"  # encrypted OOXML and old .xls are OLE compound files
 _CELL_TEXT = MAX_FIELD_CHARS
 
 
-def read_table_file(path: str | Path, *, required, optional=(), label: str | None = None,
-                    columns: dict[str, str] | None = None) -> CsvTable:
+def read_table_file(
+    path: str | Path, *, required, optional=(), label: str | None = None, columns: dict[str, str] | None = None
+) -> CsvTable:
     """Read a workbook sheet or a Parquet file into the all-text table of :func:`csvread.read_table`."""
     src, sheet = split_sheet(path)
     base_label = split_sheet(label or path)[0] if label else src
@@ -62,23 +62,34 @@ def read_header_names(path: str | Path) -> list[str]:
 
 # ---------------------------------------------------------------------------- workbooks
 
+
 def _open_sheet(src: str, sheet: str | None, label: str):
     try:
         head = Path(src).open("rb").read(8)
     except OSError as exc:
         raise unreadable(label, exc) from None
     if head.startswith(_OLE_MAGIC):
-        raise InputError(label, "an encrypted workbook or an old .xls file", expected="an .xlsx/.xlsm workbook without "
-                         "a password (save it again as .xlsx, or as CSV)")
+        raise InputError(
+            label,
+            "an encrypted workbook or an old .xls file",
+            expected="an .xlsx/.xlsm workbook without a password (save it again as .xlsx, or as CSV)",
+        )
     import openpyxl
+
     try:
         wb = openpyxl.load_workbook(src, read_only=True, data_only=True, keep_links=False)
     except (zipfile.BadZipFile, KeyError, OSError, ValueError, TypeError) as exc:
-        raise InputError(label, f"cannot read the workbook ({type(exc).__name__}: {str(exc)[:120]})",
-                         expected="an .xlsx/.xlsm workbook saved by a spreadsheet program") from None
+        raise InputError(
+            label,
+            f"cannot read the workbook ({type(exc).__name__}: {str(exc)[:120]})",
+            expected="an .xlsx/.xlsm workbook saved by a spreadsheet program",
+        ) from None
     except Exception as exc:  # noqa: BLE001 - openpyxl's own exceptions for a damaged file
-        raise InputError(label, f"cannot read the workbook ({type(exc).__name__}: {str(exc)[:120]})",
-                         expected="an .xlsx/.xlsm workbook saved by a spreadsheet program") from None
+        raise InputError(
+            label,
+            f"cannot read the workbook ({type(exc).__name__}: {str(exc)[:120]})",
+            expected="an .xlsx/.xlsm workbook saved by a spreadsheet program",
+        ) from None
     names = wb.sheetnames
     if sheet is None:
         if not names:
@@ -89,11 +100,12 @@ def _open_sheet(src: str, sheet: str | None, label: str):
         match = [n for n in names if n == sheet] or [n for n in names if n.strip().lower() == sheet.strip().lower()]
         if not match:
             wb.close()
-            raise InputError(label, f"no sheet named {sheet!r}",
-                             expected="one of " + ", ".join(repr(n) for n in names[:20]))
+            raise InputError(
+                label, f"no sheet named {sheet!r}", expected="one of " + ", ".join(repr(n) for n in names[:20])
+            )
         name = match[0]
     ws = wb[name]
-    if not hasattr(ws, "iter_rows"):   # a chart sheet
+    if not hasattr(ws, "iter_rows"):  # a chart sheet
         wb.close()
         raise InputError(label, f"sheet {name!r} holds no cells (a chart sheet)", expected="a sheet of rows")
     return ws, wb, name
@@ -166,16 +178,28 @@ def _read_workbook(src, sheet, base_label, required, optional, columns) -> CsvTa
                 continue
             beyond = [j for j in range(n, len(texts)) if texts[j] is not None]
             if beyond:
-                rejects.append({"file": label, "line": r, "column": _column_letter(beyond[0]),
-                                "value": (texts[beyond[0]] or "")[:80],
-                                "reason": f"a value in column {_column_letter(beyond[0])}, beyond the last named "
-                                          f"column ({n} columns in the header row)"})
+                rejects.append(
+                    {
+                        "file": label,
+                        "line": r,
+                        "column": _column_letter(beyond[0]),
+                        "value": (texts[beyond[0]] or "")[:80],
+                        "reason": f"a value in column {_column_letter(beyond[0])}, beyond the last named "
+                        f"column ({n} columns in the header row)",
+                    }
+                )
                 continue
             long = [j for j, t in enumerate(texts) if t is not None and len(t) > _CELL_TEXT]
             if long:
-                rejects.append({"file": label, "line": r, "column": header[long[0]],
-                                "value": (texts[long[0]] or "")[:80],
-                                "reason": f"a field is longer than {MAX_FIELD_CHARS:,} characters"})
+                rejects.append(
+                    {
+                        "file": label,
+                        "line": r,
+                        "column": header[long[0]],
+                        "value": (texts[long[0]] or "")[:80],
+                        "reason": f"a field is longer than {MAX_FIELD_CHARS:,} characters",
+                    }
+                )
                 continue
             texts += [None] * (n - len(texts))
             for j, k in enumerate(idx):
@@ -187,13 +211,14 @@ def _read_workbook(src, sheet, base_label, required, optional, columns) -> CsvTa
         notices.append(f"{label}: skipped {repeated} repeated header row(s)")
     if not lines and not rejects:
         raise InputError(label, "no data rows", line=header_line + 1, expected="at least one data row after the header")
-    df = pl.DataFrame({c: pl.Series(c, v, dtype=pl.String) for c, v in zip(wanted, cols)}
-                      | {LINE_COL: pl.Series(LINE_COL, lines, dtype=pl.Int64)})
+    df = pl.DataFrame(
+        {c: pl.Series(c, v, dtype=pl.String) for c, v in zip(wanted, cols)}
+        | {LINE_COL: pl.Series(LINE_COL, lines, dtype=pl.Int64)}
+    )
     for c in list(required) + list(optional):
         if c not in df.columns:
             df = df.with_columns(pl.lit(None, dtype=pl.String).alias(c))
-    return CsvTable(path=label, df=df, header=header, encoding="xlsx", delimiter="", notices=notices,
-                    rejects=rejects)
+    return CsvTable(path=label, df=df, header=header, encoding="xlsx", delimiter="", notices=notices, rejects=rejects)
 
 
 def _column_letter(j: int) -> str:
@@ -208,6 +233,7 @@ def _column_letter(j: int) -> str:
 
 # ---------------------------------------------------------------------------- parquet
 
+
 def _parquet_frame(src: str, label: str) -> pl.DataFrame:
     try:
         return pl.read_parquet(src)
@@ -216,8 +242,9 @@ def _parquet_frame(src: str, label: str) -> pl.DataFrame:
     except IsADirectoryError as exc:
         raise unreadable(label, exc) from None
     except Exception as exc:  # noqa: BLE001 - polars/arrow errors for a damaged file
-        raise InputError(label, f"cannot read the Parquet file ({type(exc).__name__}: {str(exc)[:120]})",
-                         expected="a Parquet file") from None
+        raise InputError(
+            label, f"cannot read the Parquet file ({type(exc).__name__}: {str(exc)[:120]})", expected="a Parquet file"
+        ) from None
 
 
 def _as_text(s: pl.Series) -> pl.Series:
@@ -236,8 +263,11 @@ def _as_text(s: pl.Series) -> pl.Series:
         return pl.select(pl.when(s).then(pl.lit("true")).when(~s).then(pl.lit("false"))).to_series().rename(s.name)
     if dt.is_float():
         whole = (s == s.floor()) & (s.abs() < 1e15)
-        return pl.select(pl.when(whole).then(s.cast(pl.Int64, strict=False).cast(pl.String))
-                         .otherwise(s.cast(pl.String))).to_series().rename(s.name)
+        return (
+            pl.select(pl.when(whole).then(s.cast(pl.Int64, strict=False).cast(pl.String)).otherwise(s.cast(pl.String)))
+            .to_series()
+            .rename(s.name)
+        )
     try:
         return s.cast(pl.String)
     except Exception:  # noqa: BLE001 - nested types have no text form
@@ -256,9 +286,16 @@ def _read_parquet(src, label, required, optional, columns) -> CsvTable:
     rejects: list[dict] = []
     too_long = pl.any_horizontal([pl.col(c).str.len_chars() > MAX_FIELD_CHARS for c in wanted]).fill_null(False)
     if df.height and bool(df.select(too_long).to_series().any()):
-        rejects = [{"file": label, "line": int(r[LINE_COL]), "column": "", "value": "",
-                    "reason": f"a field is longer than {MAX_FIELD_CHARS:,} characters"}
-                   for r in df.filter(too_long).iter_rows(named=True)]
+        rejects = [
+            {
+                "file": label,
+                "line": int(r[LINE_COL]),
+                "column": "",
+                "value": "",
+                "reason": f"a field is longer than {MAX_FIELD_CHARS:,} characters",
+            }
+            for r in df.filter(too_long).iter_rows(named=True)
+        ]
         df = df.filter(~too_long)
     blank = pl.all_horizontal([pl.col(c).is_null() for c in wanted])
     n_blank = int(df.select(blank.sum()).item()) if df.height else 0
@@ -268,5 +305,6 @@ def _read_parquet(src, label, required, optional, columns) -> CsvTable:
     for c in list(required) + list(optional):
         if c not in df.columns:
             df = df.with_columns(pl.lit(None, dtype=pl.String).alias(c))
-    return CsvTable(path=label, df=df, header=header, encoding="parquet", delimiter="", notices=notices,
-                    rejects=rejects)
+    return CsvTable(
+        path=label, df=df, header=header, encoding="parquet", delimiter="", notices=notices, rejects=rejects
+    )

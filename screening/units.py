@@ -61,14 +61,13 @@ def unit_table() -> pl.DataFrame:
         keys = [name] + ([a for a in aliases.split(";") if a] if aliases else [])
         for k in keys:
             rows.append((k.strip().lower(), name, dim, float(factor)))
-    out = pl.DataFrame(rows, schema={"key": pl.String, "unit": pl.String, "dimension": pl.String,
-                                     "factor": pl.Float64}, orient="row").unique(
-        ["key", "dimension"], keep="first", maintain_order=True)
+    out = pl.DataFrame(
+        rows, schema={"key": pl.String, "unit": pl.String, "dimension": pl.String, "factor": pl.Float64}, orient="row"
+    ).unique(["key", "dimension"], keep="first", maintain_order=True)
     return out
 
 
-def heat_content_table(*, gas_btu_per_ft3: float | None = None,
-                       steam_btu_per_lb: float | None = None) -> pl.DataFrame:
+def heat_content_table(*, gas_btu_per_ft3: float | None = None, steam_btu_per_lb: float | None = None) -> pl.DataFrame:
     """Heat-content rows of ``units.csv`` with the configurable ones overridden.
 
     Returns ``fuel, dimension, btu_per_base, plausible_min, plausible_max`` where
@@ -79,9 +78,18 @@ def heat_content_table(*, gas_btu_per_ft3: float | None = None,
     ValueError
         When an override is outside the table's plausible range for that fuel.
     """
-    t = refdata.load("units").filter(pl.col("kind") == "heat_content").select(
-        pl.col("name").alias("fuel"), "dimension", pl.col("factor").cast(pl.Float64).alias("btu_per_base"),
-        "parameter", pl.col("plausible_min").cast(pl.Float64), pl.col("plausible_max").cast(pl.Float64))
+    t = (
+        refdata.load("units")
+        .filter(pl.col("kind") == "heat_content")
+        .select(
+            pl.col("name").alias("fuel"),
+            "dimension",
+            pl.col("factor").cast(pl.Float64).alias("btu_per_base"),
+            "parameter",
+            pl.col("plausible_min").cast(pl.Float64),
+            pl.col("plausible_max").cast(pl.Float64),
+        )
+    )
     overrides = {"gas_btu_per_ft3": gas_btu_per_ft3, "steam_btu_per_lb": steam_btu_per_lb}
     for param, value in overrides.items():
         if value is None:
@@ -89,16 +97,26 @@ def heat_content_table(*, gas_btu_per_ft3: float | None = None,
         row = t.filter(pl.col("parameter") == param)
         lo, hi = row["plausible_min"][0], row["plausible_max"][0]
         if not (lo <= float(value) <= hi):
-            raise ValueError(f"{param}={value!r} is outside the plausible range {lo:g} to {hi:g} "
-                             f"(Btu per base unit of {row['fuel'][0]})")
-        t = t.with_columns(pl.when(pl.col("parameter") == param).then(pl.lit(float(value)))
-                           .otherwise(pl.col("btu_per_base")).alias("btu_per_base"))
+            raise ValueError(
+                f"{param}={value!r} is outside the plausible range {lo:g} to {hi:g} "
+                f"(Btu per base unit of {row['fuel'][0]})"
+            )
+        t = t.with_columns(
+            pl.when(pl.col("parameter") == param)
+            .then(pl.lit(float(value)))
+            .otherwise(pl.col("btu_per_base"))
+            .alias("btu_per_base")
+        )
     return t.drop("parameter")
 
 
-def convert_to_kbtu(readings: pl.DataFrame, buildings: pl.DataFrame, *,
-                    gas_btu_per_ft3: float | None = None,
-                    steam_btu_per_lb: float | None = None) -> tuple[pl.DataFrame, pl.DataFrame]:
+def convert_to_kbtu(
+    readings: pl.DataFrame,
+    buildings: pl.DataFrame,
+    *,
+    gas_btu_per_ft3: float | None = None,
+    steam_btu_per_lb: float | None = None,
+) -> tuple[pl.DataFrame, pl.DataFrame]:
     """Convert meter quantities to energy and reject rows that cannot be converted.
 
     ``energy_kbtu = quantity × factor_unit × heat_content / 1000`` where ``factor_unit`` is the
@@ -144,61 +162,109 @@ def convert_to_kbtu(readings: pl.DataFrame, buildings: pl.DataFrame, *,
             raise ValueError(f"buildings: missing column {c!r}")
     line_col = "_line" if "_line" in readings.columns else ("line" if "line" in readings.columns else None)
     r = readings.with_columns(
-        (pl.col(line_col).cast(pl.Int64) if line_col else pl.int_range(1, pl.len() + 1, dtype=pl.Int64))
-        .alias("_line"))
+        (pl.col(line_col).cast(pl.Int64) if line_col else pl.int_range(1, pl.len() + 1, dtype=pl.Int64)).alias("_line")
+    )
     if line_col == "line":
         r = r.drop("line")
 
     hc = heat_content_table(gas_btu_per_ft3=gas_btu_per_ft3, steam_btu_per_lb=steam_btu_per_lb)
-    b = buildings.select("building_id", "heating_fuel",
-                         (pl.col("heat_content").cast(pl.Float64) if "heat_content" in buildings.columns
-                          else pl.lit(None, pl.Float64)).alias("_bld_hc"))
+    b = buildings.select(
+        "building_id",
+        "heating_fuel",
+        (
+            pl.col("heat_content").cast(pl.Float64) if "heat_content" in buildings.columns else pl.lit(None, pl.Float64)
+        ).alias("_bld_hc"),
+    )
     _check_building_heat_contents(b, hc)
 
     units = unit_table()
-    fuel_dims = pl.concat([
-        pl.DataFrame({"fuel": list(FUELS), "dimension": ["energy"] * len(FUELS)}),
-        hc.select("fuel", "dimension")])
+    fuel_dims = pl.concat(
+        [pl.DataFrame({"fuel": list(FUELS), "dimension": ["energy"] * len(FUELS)}), hc.select("fuel", "dimension")]
+    )
     allowed = fuel_dims.join(units, on="dimension", how="inner")  # fuel, dimension, key, unit, factor
 
-    r = r.with_columns(pl.col("unit").cast(pl.String).str.strip_chars().str.to_lowercase().alias("_key"),
-                       pl.col("fuel").cast(pl.String).str.strip_chars().alias("fuel"))
-    r = r.join(allowed.rename({"unit": "_unit"}), left_on=["fuel", "_key"], right_on=["fuel", "key"],
-               how="left")
+    r = r.with_columns(
+        pl.col("unit").cast(pl.String).str.strip_chars().str.to_lowercase().alias("_key"),
+        pl.col("fuel").cast(pl.String).str.strip_chars().alias("fuel"),
+    )
+    r = r.join(allowed.rename({"unit": "_unit"}), left_on=["fuel", "_key"], right_on=["fuel", "key"], how="left")
     r = r.join(b, on="building_id", how="left")
-    r = r.join(hc.select("fuel", "dimension", pl.col("btu_per_base").alias("_default_hc")),
-               on=["fuel", "dimension"], how="left")
+    r = r.join(
+        hc.select("fuel", "dimension", pl.col("btu_per_base").alias("_default_hc")),
+        on=["fuel", "dimension"],
+        how="left",
+    )
 
     known_units = sorted(set(units["key"].to_list()))
-    accepted = (allowed.filter(pl.col("dimension") != "energy").group_by("fuel")
-                .agg(pl.col("unit").unique().sort().str.join(", ").alias("_phys")))
+    accepted = (
+        allowed.filter(pl.col("dimension") != "energy")
+        .group_by("fuel")
+        .agg(pl.col("unit").unique().sort().str.join(", ").alias("_phys"))
+    )
     r = r.join(accepted, on="fuel", how="left")
     # (condition, reject) in order of precedence: the first condition that holds names the reason
     checks = [
-        (pl.col("building_id").is_null() | pl.col("heating_fuel").is_null(),
-         pl.struct(column=pl.lit("building_id"), value=pl.col("building_id").cast(pl.String),
-                   reason=pl.lit("unknown building (not in the buildings table)"))),
-        (~pl.col("fuel").is_in(list(FUELS)) | pl.col("fuel").is_null(),
-         pl.struct(column=pl.lit("fuel"), value=pl.col("fuel"),
-                   reason=pl.lit(f"unknown fuel; expected one of {', '.join(FUELS)}"))),
-        (~pl.col("_key").is_in(known_units) | pl.col("_key").is_null(),
-         pl.struct(column=pl.lit("unit"), value=pl.col("unit").cast(pl.String), reason=pl.lit("unknown unit"))),
-        (pl.col("_unit").is_null(),
-         pl.struct(column=pl.lit("unit"), value=pl.col("unit").cast(pl.String),
-                   reason=pl.format("unit {} is not a unit of {} (energy units or: {})",
-                                    pl.col("unit"), pl.col("fuel"), pl.col("_phys").fill_null("none")))),
-        (pl.col("quantity").is_null() | pl.col("quantity").is_nan(),
-         pl.struct(column=pl.lit("quantity"), value=pl.col("quantity").cast(pl.String),
-                   reason=pl.lit("missing quantity"))),
-        (pl.col("quantity") < 0,
-         pl.struct(column=pl.lit("quantity"), value=pl.col("quantity").cast(pl.String),
-                   reason=pl.lit("negative quantity"))),
-        (pl.col("period_start").is_null() | pl.col("period_end").is_null(),
-         pl.struct(column=pl.lit("period_start"), value=pl.col("period_start").cast(pl.String),
-                   reason=pl.lit("missing period date"))),
-        (pl.col("period_end") < pl.col("period_start"),
-         pl.struct(column=pl.lit("period_end"), value=pl.col("period_end").cast(pl.String),
-                   reason=pl.format("period_end before period_start {}", pl.col("period_start")))),
+        (
+            pl.col("building_id").is_null() | pl.col("heating_fuel").is_null(),
+            pl.struct(
+                column=pl.lit("building_id"),
+                value=pl.col("building_id").cast(pl.String),
+                reason=pl.lit("unknown building (not in the buildings table)"),
+            ),
+        ),
+        (
+            ~pl.col("fuel").is_in(list(FUELS)) | pl.col("fuel").is_null(),
+            pl.struct(
+                column=pl.lit("fuel"),
+                value=pl.col("fuel"),
+                reason=pl.lit(f"unknown fuel; expected one of {', '.join(FUELS)}"),
+            ),
+        ),
+        (
+            ~pl.col("_key").is_in(known_units) | pl.col("_key").is_null(),
+            pl.struct(column=pl.lit("unit"), value=pl.col("unit").cast(pl.String), reason=pl.lit("unknown unit")),
+        ),
+        (
+            pl.col("_unit").is_null(),
+            pl.struct(
+                column=pl.lit("unit"),
+                value=pl.col("unit").cast(pl.String),
+                reason=pl.format(
+                    "unit {} is not a unit of {} (energy units or: {})",
+                    pl.col("unit"),
+                    pl.col("fuel"),
+                    pl.col("_phys").fill_null("none"),
+                ),
+            ),
+        ),
+        (
+            pl.col("quantity").is_null() | pl.col("quantity").is_nan(),
+            pl.struct(
+                column=pl.lit("quantity"), value=pl.col("quantity").cast(pl.String), reason=pl.lit("missing quantity")
+            ),
+        ),
+        (
+            pl.col("quantity") < 0,
+            pl.struct(
+                column=pl.lit("quantity"), value=pl.col("quantity").cast(pl.String), reason=pl.lit("negative quantity")
+            ),
+        ),
+        (
+            pl.col("period_start").is_null() | pl.col("period_end").is_null(),
+            pl.struct(
+                column=pl.lit("period_start"),
+                value=pl.col("period_start").cast(pl.String),
+                reason=pl.lit("missing period date"),
+            ),
+        ),
+        (
+            pl.col("period_end") < pl.col("period_start"),
+            pl.struct(
+                column=pl.lit("period_end"),
+                value=pl.col("period_end").cast(pl.String),
+                reason=pl.format("period_end before period_start {}", pl.col("period_start")),
+            ),
+        ),
     ]
     chain: Then | ChainedThen = pl.when(checks[0][0]).then(checks[0][1])
     for cond, rej in checks[1:]:
@@ -209,44 +275,56 @@ def convert_to_kbtu(readings: pl.DataFrame, buildings: pl.DataFrame, *,
     r = r.with_columns(pl.any_horizontal([c.fill_null(False) for c, _ in checks]).alias("_reject"))
     # with several readings files the rows carry their ``_file``, and so do their rejects
     keep = ["_file"] if "_file" in r.columns else []
-    rejects = (r.filter(pl.col("_reject")).with_columns(reason.alias("_reject"))
-               .select(pl.col("_line").alias("line"), pl.col("_reject").struct.unnest(), *keep)
-               .select(*keep, *_REJECT_SCHEMA).cast(_REJECT_SCHEMA).sort(*keep, "line"))
+    rejects = (
+        r.filter(pl.col("_reject"))
+        .with_columns(reason.alias("_reject"))
+        .select(pl.col("_line").alias("line"), pl.col("_reject").struct.unnest(), *keep)
+        .select(*keep, *_REJECT_SCHEMA)
+        .cast(_REJECT_SCHEMA)
+        .sort(*keep, "line")
+    )
 
     ok = r.filter(~pl.col("_reject"))
     is_heat = pl.col("fuel") == pl.col("heating_fuel")
-    hc_used = (pl.when(pl.col("dimension") == "energy").then(None)
-               .when(is_heat & pl.col("_bld_hc").is_not_null()).then(pl.col("_bld_hc"))
-               .otherwise(pl.col("_default_hc")))
+    hc_used = (
+        pl.when(pl.col("dimension") == "energy")
+        .then(None)
+        .when(is_heat & pl.col("_bld_hc").is_not_null())
+        .then(pl.col("_bld_hc"))
+        .otherwise(pl.col("_default_hc"))
+    )
     ok = ok.with_columns(hc_used.alias("heat_content_used"), is_heat.alias("is_heating_fuel"))
     ok = ok.with_columns(
-        (pl.col("quantity") * pl.col("factor") * pl.col("heat_content_used").fill_null(1.0) / 1000.0)
-        .alias("energy_kbtu"),
+        (pl.col("quantity") * pl.col("factor") * pl.col("heat_content_used").fill_null(1.0) / 1000.0).alias(
+            "energy_kbtu"
+        ),
         ((pl.col("period_end") - pl.col("period_start")).dt.total_days() + 1).cast(pl.Int64).alias("days"),
         pl.col("_unit").alias("unit"),
     )
-    drop = ["_key", "_unit", "dimension", "factor", "heating_fuel", "_bld_hc", "_default_hc", "_phys",
-            "_reject"]
+    drop = ["_key", "_unit", "dimension", "factor", "heating_fuel", "_bld_hc", "_default_hc", "_phys", "_reject"]
     ok = ok.drop([c for c in drop if c in ok.columns]).sort(
-        ["building_id", "fuel", "period_start", "period_end", "_line"])
+        ["building_id", "fuel", "period_start", "period_end", "_line"]
+    )
     return ok, rejects
 
 
 def _check_building_heat_contents(b: pl.DataFrame, hc: pl.DataFrame) -> None:
-    chk = (b.filter(pl.col("_bld_hc").is_not_null())
-           .join(hc, left_on="heating_fuel", right_on="fuel", how="left"))
+    chk = b.filter(pl.col("_bld_hc").is_not_null()).join(hc, left_on="heating_fuel", right_on="fuel", how="left")
     no_phys = chk.filter(pl.col("dimension").is_null())
     if no_phys.height:
         bid, fuel, v = no_phys.row(0)[:3]
-        raise ValueError(f"buildings: heat_content={v!r} for building {bid!r}, but its heating fuel "
-                         f"{fuel!r} is metered in energy units only; leave heat_content empty")
+        raise ValueError(
+            f"buildings: heat_content={v!r} for building {bid!r}, but its heating fuel "
+            f"{fuel!r} is metered in energy units only; leave heat_content empty"
+        )
     bad = chk.filter((pl.col("_bld_hc") < pl.col("plausible_min")) | (pl.col("_bld_hc") > pl.col("plausible_max")))
     if bad.height:
         row = bad.row(0, named=True)
         raise ValueError(
             f"buildings: heat_content={row['_bld_hc']!r} for building {row['building_id']!r} "
             f"({row['heating_fuel']}) is outside {row['plausible_min']:g} to {row['plausible_max']:g} "
-            f"Btu per base unit ({'ft³' if row['dimension'] == 'gas_volume' else 'gal' if row['dimension'] == 'liquid_volume' else 'lb'})")
+            f"Btu per base unit ({'ft³' if row['dimension'] == 'gas_volume' else 'gal' if row['dimension'] == 'liquid_volume' else 'lb'})"
+        )
 
 
 def btu_per_unit(unit: str, fuel: str, *, heat_contents: Mapping[str, float] | None = None) -> float:
@@ -266,9 +344,12 @@ def btu_per_unit(unit: str, fuel: str, *, heat_contents: Mapping[str, float] | N
         raise ValueError(f"unit={unit!r} is unknown")
     hc = heat_content_table()
     if heat_contents:
-        hc = hc.with_columns(pl.col("fuel").replace_strict(
-            heat_contents, default=None, return_dtype=pl.Float64).fill_null(pl.col("btu_per_base"))
-            .alias("btu_per_base"))
+        hc = hc.with_columns(
+            pl.col("fuel")
+            .replace_strict(heat_contents, default=None, return_dtype=pl.Float64)
+            .fill_null(pl.col("btu_per_base"))
+            .alias("btu_per_base")
+        )
     dims = {"energy": 1.0} | dict(hc.filter(pl.col("fuel") == fuel).select("dimension", "btu_per_base").iter_rows())
     for dim, factor in u.select("dimension", "factor").iter_rows():
         if dim in dims:
@@ -293,11 +374,20 @@ def billed_units(converted: pl.DataFrame) -> pl.DataFrame:
     """
     need = ("building_id", "unit", "quantity", "energy_kbtu", "is_heating_fuel")
     if converted.height == 0 or any(c not in converted.columns for c in need):
-        return pl.DataFrame(schema={"building_id": pl.String, "billed_unit": pl.String,
-                                    "kbtu_per_billed_unit": pl.Float64})
-    h = converted.filter(pl.col("is_heating_fuel") & (pl.col("quantity") > 0)).group_by("building_id", "unit").agg(
-        pl.len().alias("_n"), pl.col("quantity").sum().alias("_q"), pl.col("energy_kbtu").sum().alias("_e"))
-    return (h.sort(["building_id", "_n", "unit"], descending=[False, True, False])
-            .unique("building_id", keep="first", maintain_order=True)
-            .select(pl.col("building_id").cast(pl.String), pl.col("unit").alias("billed_unit"),
-                    (pl.col("_e") / pl.col("_q")).alias("kbtu_per_billed_unit")))
+        return pl.DataFrame(
+            schema={"building_id": pl.String, "billed_unit": pl.String, "kbtu_per_billed_unit": pl.Float64}
+        )
+    h = (
+        converted.filter(pl.col("is_heating_fuel") & (pl.col("quantity") > 0))
+        .group_by("building_id", "unit")
+        .agg(pl.len().alias("_n"), pl.col("quantity").sum().alias("_q"), pl.col("energy_kbtu").sum().alias("_e"))
+    )
+    return (
+        h.sort(["building_id", "_n", "unit"], descending=[False, True, False])
+        .unique("building_id", keep="first", maintain_order=True)
+        .select(
+            pl.col("building_id").cast(pl.String),
+            pl.col("unit").alias("billed_unit"),
+            (pl.col("_e") / pl.col("_q")).alias("kbtu_per_billed_unit"),
+        )
+    )

@@ -39,17 +39,21 @@ NOT_TOLD_APART = "not told apart"
 VISIT_TIERS = tuple(name for name, _m in screen.TIERS[:2])
 
 #: The link texts and files of the run's other outputs, shown at the top of the page.
-OTHER_OUTPUTS = (("ranking.pdf", "the portfolio report (PDF)"), ("ranking.xlsx", "the tables as a workbook"),
-                 ("ranking.csv", "the ranking (CSV)"), ("audit_plan.csv", "the audit plan (CSV)"),
-                 ("data_issues.csv", "data issues (CSV)"), ("rejects.csv", "rejected input rows (CSV)"))
+OTHER_OUTPUTS = (
+    ("ranking.pdf", "the portfolio report (PDF)"),
+    ("ranking.xlsx", "the tables as a workbook"),
+    ("ranking.csv", "the ranking (CSV)"),
+    ("audit_plan.csv", "the audit plan (CSV)"),
+    ("data_issues.csv", "data issues (CSV)"),
+    ("rejects.csv", "rejected input rows (CSV)"),
+)
 
 
 def json_for_script(obj: Any) -> Markup:
     """``obj`` as JSON that is safe inside a ``<script>`` element: ``<``, ``>``, ``&`` and the
     two JavaScript line separators escaped, so no value can end the element or open a comment."""
     text = json.dumps(obj, ensure_ascii=False, sort_keys=True, separators=(",", ":"), allow_nan=False)
-    for ch, esc in (("&", "\\u0026"), ("<", "\\u003c"), (">", "\\u003e"), ("\u2028", "\\u2028"),
-                    ("\u2029", "\\u2029")):
+    for ch, esc in (("&", "\\u0026"), ("<", "\\u003c"), (">", "\\u003e"), ("\u2028", "\\u2028"), ("\u2029", "\\u2029")):
         text = text.replace(ch, esc)
     return Markup(text)
 
@@ -57,9 +61,14 @@ def json_for_script(obj: Any) -> Markup:
 def _env() -> jinja2.Environment:
     return jinja2.Environment(
         loader=jinja2.FileSystemLoader(templates_dir()),
-        autoescape=jinja2.select_autoescape(enabled_extensions=("html", "j2", "xml"), default=True,
-                                            default_for_string=True),
-        undefined=jinja2.StrictUndefined, trim_blocks=True, lstrip_blocks=True, keep_trailing_newline=True)
+        autoescape=jinja2.select_autoescape(
+            enabled_extensions=("html", "j2", "xml"), default=True, default_for_string=True
+        ),
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        keep_trailing_newline=True,
+    )
 
 
 def _num(x) -> float | None:
@@ -78,84 +87,152 @@ def _kinds(mechanisms: list[str] | None, waste_kind: str | None) -> list[str]:
     return [STEP_UP_KIND] if "rose" in (waste_kind or "") else []
 
 
-def page_data(ranking: pl.DataFrame, results: pl.DataFrame, sheet_files: dict[str, str] | None,
-              currency: str) -> dict[str, Any]:
+def page_data(
+    ranking: pl.DataFrame, results: pl.DataFrame, sheet_files: dict[str, str] | None, currency: str
+) -> dict[str, Any]:
     """The JSON the page's script renders: one row per building in rank order, with raw numbers
     (for sorting) and display texts; ``sheet`` is the building's PDF relative to the page, or
     None when no sheets were written."""
     mech = results.select("building_id", "mechanisms")
-    rows = ranking.select("rank", "building_id", "name", "tier", "use_type", "station_id", "heating_fuel", "ratio",
-                          "expected_recoverable_cost", "excess_cost", "needs_review", "waste_kind", "flags",
-                          "data_issues").join(mech, on="building_id", how="left", maintain_order="left")
+    rows = ranking.select(
+        "rank",
+        "building_id",
+        "name",
+        "tier",
+        "use_type",
+        "station_id",
+        "heating_fuel",
+        "ratio",
+        "expected_recoverable_cost",
+        "excess_cost",
+        "needs_review",
+        "waste_kind",
+        "flags",
+        "data_issues",
+    ).join(mech, on="building_id", how="left", maintain_order="left")
     tier_order = {name: i for i, (name, _m) in enumerate(screen.TIERS)}
     out = []
     for r in rows.iter_rows(named=True):
         kinds = _kinds(r["mechanisms"], r["waste_kind"])
-        out.append({
-            "rank": r["rank"], "id": r["building_id"], "name": r["name"] or "", "tier": r["tier"] or "",
-            "tier_order": tier_order.get(r["tier"], len(tier_order)), "use": r["use_type"] or "",
-            "station": r["station_id"] or "", "fuel": r["heating_fuel"] or "",
-            "ratio": _num(r["ratio"]), "ratio_text": fmt_ratio(r["ratio"]),
-            "cost": _num(r["expected_recoverable_cost"]),
-            "cost_text": fmt_money(r["expected_recoverable_cost"], currency),
-            "excess": _num(r["excess_cost"]), "excess_text": fmt_money(r["excess_cost"], currency),
-            "review": bool(r["needs_review"]), "kinds": kinds,
-            # "not told apart" only where a visit is due or the evidence is strong (as in the audit plan)
-            "kind_text": ", ".join(kinds) or (NOT_TOLD_APART if r["needs_review"] or r["tier"] in VISIT_TIERS else ""),
-            "why": r["waste_kind"] or "", "flags": (r["flags"] or "").replace(";", ", "),
-            "issues": (r["data_issues"] or "").replace(";", ", "),
-            "sheet": _href((sheet_files or {}).get(r["building_id"])),
-        })
+        out.append(
+            {
+                "rank": r["rank"],
+                "id": r["building_id"],
+                "name": r["name"] or "",
+                "tier": r["tier"] or "",
+                "tier_order": tier_order.get(r["tier"], len(tier_order)),
+                "use": r["use_type"] or "",
+                "station": r["station_id"] or "",
+                "fuel": r["heating_fuel"] or "",
+                "ratio": _num(r["ratio"]),
+                "ratio_text": fmt_ratio(r["ratio"]),
+                "cost": _num(r["expected_recoverable_cost"]),
+                "cost_text": fmt_money(r["expected_recoverable_cost"], currency),
+                "excess": _num(r["excess_cost"]),
+                "excess_text": fmt_money(r["excess_cost"], currency),
+                "review": bool(r["needs_review"]),
+                "kinds": kinds,
+                # "not told apart" only where a visit is due or the evidence is strong (as in the audit plan)
+                "kind_text": ", ".join(kinds)
+                or (NOT_TOLD_APART if r["needs_review"] or r["tier"] in VISIT_TIERS else ""),
+                "why": r["waste_kind"] or "",
+                "flags": (r["flags"] or "").replace(";", ", "),
+                "issues": (r["data_issues"] or "").replace(";", ", "),
+                "sheet": _href((sheet_files or {}).get(r["building_id"])),
+            }
+        )
     return {"rows": out, "tiers": [name for name, _m in screen.TIERS]}
 
 
-def page_view(summary: dict[str, Any], plan: pl.DataFrame, results: pl.DataFrame, disp: Display,
-              currency: str, sheet_files: dict[str, str] | None) -> dict[str, Any]:
+def page_view(
+    summary: dict[str, Any],
+    plan: pl.DataFrame,
+    results: pl.DataFrame,
+    disp: Display,
+    currency: str,
+    sheet_files: dict[str, str] | None,
+) -> dict[str, Any]:
     """Display texts for the summary and the audit plan (everything the template prints)."""
     counts, totals = summary.get("counts") or {}, summary.get("totals") or {}
     per_tier = counts.get("per_tier") or {}
     window = summary.get("window") or ["", ""]
-    plan_rows = [{
-        "visit": str(p["visit"]), "rank": str(p["rank"]), "building_id": p["building_id"], "name": p["name"] or "",
-        "use": p["use_type"] or "", "savings": fmt_money(p["expected_recoverable_cost"], currency),
-        "look_for": ", ".join(_kinds(p["mechanisms"], p["waste_kind"])) or NOT_TOLD_APART,
-        "why": p["waste_kind"] or "", "strong": "yes" if p["needs_review"] else "no",
-        "share": fmt_pct(p["cumulative_share"]) if p["cumulative_share"] is not None else "n/a",
-        "sheet": _href((sheet_files or {}).get(p["building_id"]))}
-        for p in plan.join(results.select("building_id", "mechanisms"), on="building_id", how="left",
-                           maintain_order="left").iter_rows(named=True)]
+    plan_rows = [
+        {
+            "visit": str(p["visit"]),
+            "rank": str(p["rank"]),
+            "building_id": p["building_id"],
+            "name": p["name"] or "",
+            "use": p["use_type"] or "",
+            "savings": fmt_money(p["expected_recoverable_cost"], currency),
+            "look_for": ", ".join(_kinds(p["mechanisms"], p["waste_kind"])) or NOT_TOLD_APART,
+            "why": p["waste_kind"] or "",
+            "strong": "yes" if p["needs_review"] else "no",
+            "share": fmt_pct(p["cumulative_share"]) if p["cumulative_share"] is not None else "n/a",
+            "sheet": _href((sheet_files or {}).get(p["building_id"])),
+        }
+        for p in plan.join(
+            results.select("building_id", "mechanisms"), on="building_id", how="left", maintain_order="left"
+        ).iter_rows(named=True)
+    ]
     return {
-        "run_id": str(summary.get("run_id", "")), "as_of": str(summary.get("as_of", "")),
-        "window_start": str(window[0]), "window_end": str(window[1]), "units": str(summary.get("units", "")),
-        "counts": [("buildings", fmt_num(counts.get("buildings"))),
-                   ("strong evidence of excess (needs review)", fmt_num(counts.get("needs_review"))),
-                   ("with data issues", fmt_num(counts.get("with_data_issues"))),
-                   ("rejected input rows", fmt_num(counts.get("rejected_rows")))],
-        "tiers": [{"tier": name, "meaning": meaning, "count": fmt_num(per_tier.get(name, 0))}
-                  for name, meaning in screen.TIERS],
-        "totals": [("excess over the expected range, cost per year", fmt_money(totals.get("excess_cost"), currency)),
-                   ("excess energy per year", f"{fmt_num(totals.get('excess_energy'))} {disp.energy_unit}"),
-                   ("expected recoverable cost per year",
-                    fmt_money(totals.get("expected_recoverable_cost"), currency)),
-                   ("of which this quarter's audit plan",
-                    fmt_money(totals.get("audit_plan_expected_recoverable_cost"), currency))],
-        "plan": plan_rows, "currency": currency, "energy_unit": disp.energy_unit,
-        "hit_rate": hit_rate_lines(summary),   # issue 17: the list's own hit rate (None without audits)
+        "run_id": str(summary.get("run_id", "")),
+        "as_of": str(summary.get("as_of", "")),
+        "window_start": str(window[0]),
+        "window_end": str(window[1]),
+        "units": str(summary.get("units", "")),
+        "counts": [
+            ("buildings", fmt_num(counts.get("buildings"))),
+            ("strong evidence of excess (needs review)", fmt_num(counts.get("needs_review"))),
+            ("with data issues", fmt_num(counts.get("with_data_issues"))),
+            ("rejected input rows", fmt_num(counts.get("rejected_rows"))),
+        ],
+        "tiers": [
+            {"tier": name, "meaning": meaning, "count": fmt_num(per_tier.get(name, 0))}
+            for name, meaning in screen.TIERS
+        ],
+        "totals": [
+            ("excess over the expected range, cost per year", fmt_money(totals.get("excess_cost"), currency)),
+            ("excess energy per year", f"{fmt_num(totals.get('excess_energy'))} {disp.energy_unit}"),
+            ("expected recoverable cost per year", fmt_money(totals.get("expected_recoverable_cost"), currency)),
+            (
+                "of which this quarter's audit plan",
+                fmt_money(totals.get("audit_plan_expected_recoverable_cost"), currency),
+            ),
+        ],
+        "plan": plan_rows,
+        "currency": currency,
+        "energy_unit": disp.energy_unit,
+        "hit_rate": hit_rate_lines(summary),  # issue 17: the list's own hit rate (None without audits)
     }
 
 
-def render_index(*, ranking: pl.DataFrame, results: pl.DataFrame, plan: pl.DataFrame, summary: dict[str, Any],
-                 disp: Display, currency: str, sheet_files: dict[str, str] | None) -> str:
+def render_index(
+    *,
+    ranking: pl.DataFrame,
+    results: pl.DataFrame,
+    plan: pl.DataFrame,
+    summary: dict[str, Any],
+    disp: Display,
+    currency: str,
+    sheet_files: dict[str, str] | None,
+) -> str:
     """The page's HTML text (see the module docstring)."""
     tdir = templates_dir()
     ratios = [x for x in results["ratio"].to_list() if _num(x) is not None]
-    return _env().get_template("index.html.j2").render(
-        v=page_view(summary, plan, results, disp, currency, sheet_files),
-        data=json_for_script(page_data(ranking, results, sheet_files, currency)),
-        chart=Markup(charts.ratio_histogram(ratios)),
-        css=Markup((tdir / "index.css").read_text(encoding="utf-8")),
-        script=Markup((tdir / "index.js").read_text(encoding="utf-8")),
-        outputs=OTHER_OUTPUTS, sheets=sheet_files is not None, caution=STANDARD_CAUTION)
+    return (
+        _env()
+        .get_template("index.html.j2")
+        .render(
+            v=page_view(summary, plan, results, disp, currency, sheet_files),
+            data=json_for_script(page_data(ranking, results, sheet_files, currency)),
+            chart=Markup(charts.ratio_histogram(ratios)),
+            css=Markup((tdir / "index.css").read_text(encoding="utf-8")),
+            script=Markup((tdir / "index.js").read_text(encoding="utf-8")),
+            outputs=OTHER_OUTPUTS,
+            sheets=sheet_files is not None,
+            caution=STANDARD_CAUTION,
+        )
+    )
 
 
 def write_index(path: Path, **kwargs: Any) -> Path:

@@ -34,5 +34,6 @@ def add_months(d: _dt.date, months: int) -> _dt.date:
     y = d.year + m // 12
     m = m % 12 + 1
     import calendar
+
     day = min(d.day, calendar.monthrange(y, m)[1])
     return _dt.date(y, m, day)

@@ -30,19 +30,42 @@ def _pieces(name: str, df: pl.DataFrame, rows: int = SHEET_ROWS) -> list[tuple[s
     """A table as one sheet, or as consecutive sheets of at most ``rows`` data rows each."""
     if df.height <= rows:
         return [(name, df)]
-    return [(name if k == 0 else f"{name} ({k + 1})", df.slice(k * rows, rows))
-            for k in range(-(-df.height // rows))]
+    return [(name if k == 0 else f"{name} ({k + 1})", df.slice(k * rows, rows)) for k in range(-(-df.height // rows))]
 
 
 def _ranking_units(d: Display) -> dict[str, str]:
     e, a, t, dd, i, ua = d.energy_unit, d.area_unit, d.temp_unit, d.dd_unit, d.intensity_unit, d.ua_unit
-    units = {"floor_area": a, "hdd": dd, "hdd65": dd, "base_temperature": t, "fitted_base": t,
-             "heating_intensity": i, "peer_median_intensity": i, "effective_ua": ua,
-             "heating_slope": f"{e}/{dd}", "excess_co2e": "kg CO2e", "coverage": "share", "cv_rmse": "%",
-             "yoy_change": "share", "peer_percentile": "%"}
-    for c in ("actual_heating", "expected_heating", "expected_low", "expected_high", "expected_fixed_base",
-              "expected_modified", "normal_heating", "baseload", "excess_energy", "expected_recoverable_energy",
-              "excess_heat_loss", "excess_controls", "excess_baseload"):
+    units = {
+        "floor_area": a,
+        "hdd": dd,
+        "hdd65": dd,
+        "base_temperature": t,
+        "fitted_base": t,
+        "heating_intensity": i,
+        "peer_median_intensity": i,
+        "effective_ua": ua,
+        "heating_slope": f"{e}/{dd}",
+        "excess_co2e": "kg CO2e",
+        "coverage": "share",
+        "cv_rmse": "%",
+        "yoy_change": "share",
+        "peer_percentile": "%",
+    }
+    for c in (
+        "actual_heating",
+        "expected_heating",
+        "expected_low",
+        "expected_high",
+        "expected_fixed_base",
+        "expected_modified",
+        "normal_heating",
+        "baseload",
+        "excess_energy",
+        "expected_recoverable_energy",
+        "excess_heat_loss",
+        "excess_controls",
+        "excess_baseload",
+    ):
         units[c] = e
     for c in ("ua_walls", "ua_windows", "ua_roof", "ua_ground", "ua_infiltration", "ua_ventilation", "ua_total"):
         units[c] = ua
@@ -61,33 +84,53 @@ def _formats(df: pl.DataFrame, currency: str) -> dict[str, str]:
         elif base in ("ratio", "r2", "z_score", "z_balance_point", "z_intensity", "evidence_score", "z_yoy", "nmbe"):
             fmt[name] = "0.00"
         elif dtype.is_float():
-            fmt[name] = "#,##0.0" if base not in ("heating_intensity", "peer_median_intensity", "heating_slope",
-                                                   "value", "low", "high") else "#,##0.000"
+            fmt[name] = (
+                "#,##0.0"
+                if base not in ("heating_intensity", "peer_median_intensity", "heating_slope", "value", "low", "high")
+                else "#,##0.000"
+            )
         elif dtype.is_integer() and base not in ("rank", "year_built", "line", "previous_rank", "n_periods", "visit"):
             fmt[name] = "#,##0"
     return fmt
 
 
-def write_ranking_xlsx(path: Path, *, ranking: pl.DataFrame, issues: pl.DataFrame, rejects: pl.DataFrame,
-                       assumptions: pl.DataFrame, disp: Display, currency: str = "$",
-                       plan: pl.DataFrame | None = None) -> Path:
+def write_ranking_xlsx(
+    path: Path,
+    *,
+    ranking: pl.DataFrame,
+    issues: pl.DataFrame,
+    rejects: pl.DataFrame,
+    assumptions: pl.DataFrame,
+    disp: Display,
+    currency: str = "$",
+    plan: pl.DataFrame | None = None,
+) -> Path:
     """Write ``ranking.xlsx`` with one sheet per table (see the module docstring); ``plan`` is the
     audit_plan.csv frame (``outputs.audit_plan_table``), its sheet left out when it is None."""
     import xlsxwriter
+
     units = _ranking_units(disp)
 
     def with_units(df: pl.DataFrame) -> pl.DataFrame:
         df = df.rename({c: f"{c} [{units[c]}]" for c in df.columns if c in units})
-        return df.rename({c: f"{c} [{currency}/yr]" for c in ("excess_cost", "expected_recoverable_cost")
-                          if c in df.columns})
+        return df.rename(
+            {c: f"{c} [{currency}/yr]" for c in ("excess_cost", "expected_recoverable_cost") if c in df.columns}
+        )
 
     sheets = [("ranking", with_units(ranking))]
     if plan is not None:
         sheets.append(("audit plan", with_units(plan)))
     sheets += [("data issues", issues), ("rejects", rejects), ("assumptions", assumptions)]
     sheets = [piece for name, df in sheets for piece in _pieces(name, df)]
-    wb = xlsxwriter.Workbook(str(path), {"strings_to_formulas": False, "strings_to_urls": False,
-                                         "strings_to_numbers": False, "nan_inf_to_errors": True})
+    wb = xlsxwriter.Workbook(
+        str(path),
+        {
+            "strings_to_formulas": False,
+            "strings_to_urls": False,
+            "strings_to_numbers": False,
+            "nan_inf_to_errors": True,
+        },
+    )
     try:
         wb.set_properties({"title": "ddscreen ranking", "created": FIXED_CREATED})
         header = {"bold": True, "bottom": 1, "text_wrap": False}
@@ -96,13 +139,21 @@ def write_ranking_xlsx(path: Path, *, ranking: pl.DataFrame, issues: pl.DataFram
             if df.width == 0:
                 df = pl.DataFrame({"(none)": pl.Series([], dtype=pl.String)})
             date_cols = {c: "yyyy-mm-dd" for c, t in df.schema.items() if t == pl.Date}
-            df.write_excel(workbook=wb, worksheet=name, position="A1", autofilter=True, autofit=True,
-                           freeze_panes=(1, 0), header_format=header, include_header=True,
-                           # ignore: polars types the keys as str | selector | tuple and a dict's key
-                           # type is invariant; str keys are what it reads
-                           column_formats={**_formats(df, currency), **date_cols},  # type: ignore[dict-item]
-                           dtype_formats={},
-                           hide_gridlines=False)
+            df.write_excel(
+                workbook=wb,
+                worksheet=name,
+                position="A1",
+                autofilter=True,
+                autofit=True,
+                freeze_panes=(1, 0),
+                header_format=header,
+                include_header=True,
+                # ignore: polars types the keys as str | selector | tuple and a dict's key
+                # type is invariant; str keys are what it reads
+                column_formats={**_formats(df, currency), **date_cols},  # type: ignore[dict-item]
+                dtype_formats={},
+                hide_gridlines=False,
+            )
     finally:
         wb.close()
     return path

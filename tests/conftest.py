@@ -34,27 +34,55 @@ AS_OF = "2025-01-15"
 WINDOW = (dt.date(2024, 1, 1), dt.date(2024, 12, 31))
 WEATHER_START = dt.date(2022, 10, 1)
 WEATHER_END = dt.date(2024, 12, 31)
-STATIONS = {"alder-flats": 0.0, "brisk-point": 9.0}   # invented stations: °F offset of the mean
+STATIONS = {"alder-flats": 0.0, "brisk-point": 9.0}  # invented stations: °F offset of the mean
 
-BUILDING_HEADER = ["building_id", "name", "station_id", "use_type", "floor_area", "year_built", "stories",
-                   "heating_fuel", "heating_efficiency", "ua_total", "balance_point", "address", "city"]
+BUILDING_HEADER = [
+    "building_id",
+    "name",
+    "station_id",
+    "use_type",
+    "floor_area",
+    "year_built",
+    "stories",
+    "heating_fuel",
+    "heating_efficiency",
+    "ua_total",
+    "balance_point",
+    "address",
+    "city",
+]
 READING_HEADER = ["building_id", "fuel", "period_start", "period_end", "quantity", "unit", "estimated", "cost"]
 WEATHER_HEADER = ["station_id", "date", "t_min", "t_max"]
 
 # building_id, name, station, use, area ft², year, stories, fuel, η, UA Btu/(h·°F), balance °F, waste factor
 BUILDINGS = [
     ("B01", "Quillmore Offices", "alder-flats", "office", 42000.0, 1988, 3, "natural_gas", 0.80, 9000.0, 58.0, 1.0),
-    ("B02", "Tansy Court Flats", "alder-flats", "multifamily", 36000.0, 1965, 4, "natural_gas", 0.78, 11000.0, 60.0, 1.0),
+    (
+        "B02",
+        "Tansy Court Flats",
+        "alder-flats",
+        "multifamily",
+        36000.0,
+        1965,
+        4,
+        "natural_gas",
+        0.78,
+        11000.0,
+        60.0,
+        1.0,
+    ),
     ("B03", "Hollin Grade School", "alder-flats", "school", 55000.0, 1972, 2, "natural_gas", 0.80, 14000.0, 57.0, 2.0),
     ("B04", "Marrow Lane Shops", "brisk-point", "retail", 24000.0, 2004, 1, "fuel_oil", 0.82, 5200.0, 55.0, 1.0),
     ("B05", "Sedge Depot", "brisk-point", "warehouse", 61000.0, 1995, 1, "natural_gas", 0.85, 8000.0, 50.0, 1.0),
     ("B06", "Wrenfield Inn", "brisk-point", "lodging", 30000.0, 2011, 5, "electricity", 3.0, 6500.0, 56.0, 1.0),
 ]
 UNIT_OF = {"natural_gas": "therm", "fuel_oil": "gal", "electricity": "kWh"}
-BTU_PER_UNIT = {"therm": 100_000.0,          # definition (EIA: 1 therm = 100,000 Btu)
-                "gal": 138_500.0,            # EIA No. 2 heating oil, Btu/gal (docs/factors.md §1)
-                "kWh": 3_412.141633}         # 3.6e6 J / 1055.05585262 J (NIST SP 811)
-BASE_BTU_PER_DAY_FT2 = 8.0                   # invented constant non-heating use of the heating fuel
+BTU_PER_UNIT = {
+    "therm": 100_000.0,  # definition (EIA: 1 therm = 100,000 Btu)
+    "gal": 138_500.0,  # EIA No. 2 heating oil, Btu/gal (docs/factors.md §1)
+    "kWh": 3_412.141633,
+}  # 3.6e6 J / 1055.05585262 J (NIST SP 811)
+BASE_BTU_PER_DAY_FT2 = 8.0  # invented constant non-heating use of the heating fuel
 N_READINGS = 26
 
 
@@ -91,9 +119,24 @@ def portfolio_text() -> dict[str, str]:
         for d, t in zip(days.astype(str), mean):
             w_rows.append([st, d, f"{t - 8.0:.1f}", f"{t + 8.0:.1f}"])
     b_rows, r_rows = [], []
-    for (bid, name, st, use, area, year, stories, fuel, eta, ua, bal, waste) in BUILDINGS:
-        b_rows.append([bid, name, st, use, f"{area:.0f}", year, stories, fuel, eta, f"{ua:.0f}", bal,
-                       f"{10 + len(b_rows)} Fernbrake Road", "Lowmere"])
+    for bid, name, st, use, area, year, stories, fuel, eta, ua, bal, waste in BUILDINGS:
+        b_rows.append(
+            [
+                bid,
+                name,
+                st,
+                use,
+                f"{area:.0f}",
+                year,
+                stories,
+                fuel,
+                eta,
+                f"{ua:.0f}",
+                bal,
+                f"{10 + len(b_rows)} Fernbrake Road",
+                "Lowmere",
+            ]
+        )
         days, mean = wx[st]
         # t_mean = (t_min + t_max)/2 = mean exactly; HDD per day = max(0, base − mean) (daily-mean method)
         hdd = np.maximum(0.0, bal - mean)
@@ -101,12 +144,15 @@ def portfolio_text() -> dict[str, str]:
         for s, e in month_periods():
             sel = (days >= np.datetime64(s)) & (days <= np.datetime64(e))
             n_days = int(sel.sum())
-            heat_btu = 24.0 * ua * hdd[sel].sum() / eta * waste        # 24·UA·HDD/η (degree-day method)
+            heat_btu = 24.0 * ua * hdd[sel].sum() / eta * waste  # 24·UA·HDD/η (degree-day method)
             base_btu = BASE_BTU_PER_DAY_FT2 * area * n_days
             q = (heat_btu + base_btu) / BTU_PER_UNIT[unit]
             r_rows.append([bid, fuel, s.isoformat(), e.isoformat(), f"{q:.2f}", unit, "false", f"{q * 0.9:.2f}"])
-    return {"buildings": _csv(BUILDING_HEADER, b_rows), "readings": _csv(READING_HEADER, r_rows),
-            "weather": _csv(WEATHER_HEADER, w_rows)}
+    return {
+        "buildings": _csv(BUILDING_HEADER, b_rows),
+        "readings": _csv(READING_HEADER, r_rows),
+        "weather": _csv(WEATHER_HEADER, w_rows),
+    }
 
 
 def _csv(header, rows) -> str:
@@ -131,9 +177,21 @@ class Portfolio:
 
     def args(self, out: Path | str, db: Path | str | None = None, *more: str) -> list[str]:
         """``ddscreen run`` arguments on these files."""
-        a = ["run", "--buildings", str(self.buildings), "--readings", str(self.readings),
-             "--weather", str(self.weather), "--out", str(out), "--as-of", self.as_of,
-             "--db", str(db or self.folder / "screening.duckdb")]
+        a = [
+            "run",
+            "--buildings",
+            str(self.buildings),
+            "--readings",
+            str(self.readings),
+            "--weather",
+            str(self.weather),
+            "--out",
+            str(out),
+            "--as-of",
+            self.as_of,
+            "--db",
+            str(db or self.folder / "screening.duckdb"),
+        ]
         return a + list(more)
 
     def text(self, kind: str) -> str:
@@ -160,8 +218,9 @@ def portfolio(tmp_path) -> Portfolio:
     return write_portfolio(tmp_path / "in")
 
 
-def write_rows(path: Path, header: list[str] | None, rows: list[list], *, delimiter: str = ",",
-               encoding: str = "utf-8") -> Path:
+def write_rows(
+    path: Path, header: list[str] | None, rows: list[list], *, delimiter: str = ",", encoding: str = "utf-8"
+) -> Path:
     """Write a CSV (csv module quoting) and return its path."""
     path.parent.mkdir(parents=True, exist_ok=True)
     with open(path, "w", newline="", encoding=encoding) as f:
@@ -178,6 +237,7 @@ TABLES = ("buildings", "readings", "weather_daily", "input_files", "load_rejects
 def table_counts(db: Path | str) -> dict[str, int]:
     """Row count of every table of the store (``{}`` when the file does not exist)."""
     import duckdb
+
     if not Path(db).exists():
         return {}
     con = duckdb.connect(str(db), read_only=True)
@@ -192,14 +252,16 @@ def cli(args: list[str]):
     """Invoke the typer app in-process; returns click's Result (stdout and stderr apart)."""
     from typer.testing import CliRunner
     from screening.cli import app
+
     return CliRunner().invoke(app, args, catch_exceptions=True)
 
 
 def run_module(args: list[str], cwd: Path | str | None = None, timeout: float = 120) -> subprocess.CompletedProcess:
     """``python -m screening ARGS`` in a subprocess."""
     env = dict(os.environ, PYTHONIOENCODING="utf-8")
-    return subprocess.run([sys.executable, "-m", "screening", *args], cwd=cwd, capture_output=True, text=True,
-                          timeout=timeout, env=env)
+    return subprocess.run(
+        [sys.executable, "-m", "screening", *args], cwd=cwd, capture_output=True, text=True, timeout=timeout, env=env
+    )
 
 
 def tree_digest(folder: Path) -> dict[str, str]:

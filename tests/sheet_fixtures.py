@@ -24,10 +24,10 @@ def make_sheet(i: int = 0, *, units: str = "IP", annual: bool = False, seed: int
     rng = np.random.default_rng(seed + 1000 * i)
     si = units == "SI"
     area = float(rng.choice([12_500, 48_000, 96_400, 210_000, 7_800]))
-    hdd = float(rng.uniform(4200, 6800))          # °F·day at the balance point
-    ua = float(area * rng.uniform(0.12, 0.30))    # Btu/(h·°F)
+    hdd = float(rng.uniform(4200, 6800))  # °F·day at the balance point
+    ua = float(area * rng.uniform(0.12, 0.30))  # Btu/(h·°F)
     eff = 0.82
-    expected = ua * 24 * hdd / eff / 1000        # kBtu
+    expected = ua * 24 * hdd / eff / 1000  # kBtu
     ratio = float(rng.uniform(0.7, 1.9))
     actual = expected * ratio
     base_per_day = float(actual / 365 * rng.uniform(0.03, 0.18))
@@ -46,15 +46,22 @@ def make_sheet(i: int = 0, *, units: str = "IP", annual: bool = False, seed: int
             s = start + np.timedelta64(30 * m, "D")
             days = 30 if m < 11 else 35
             use = base_per_day + slope * dd_day[m] * rng.uniform(0.9, 1.1)
-            periods.append({"start": str(s), "end": str(s + np.timedelta64(days - 1, "D")), "days": days,
-                            "use_per_day": float(use), "dd_per_day": float(dd_day[m])})
+            periods.append(
+                {
+                    "start": str(s),
+                    "end": str(s + np.timedelta64(days - 1, "D")),
+                    "days": days,
+                    "use_per_day": float(use),
+                    "dd_per_day": float(dd_day[m]),
+                }
+            )
     parts = {"walls": 0.22, "windows": 0.26, "roof": 0.12, "ground": 0.08, "infiltration": 0.2, "ventilation": 0.12}
-    k_e = 0.293071 if si else 1.0          # kBtu -> kWh (for display only)
-    k_ua = 0.5275 if si else 1.0           # Btu/(h·°F) -> W/K
+    k_e = 0.293071 if si else 1.0  # kBtu -> kWh (for display only)
+    k_ua = 0.5275 if si else 1.0  # Btu/(h·°F) -> W/K
     sheet = {
         "building_id": f"B-{1000 + i}",
         "name": f"{['Larkspur', 'Tidewell', 'Owlbrook', 'Quarry Hill', 'Emberly'][i % 5]} "
-                f"{['Annex', 'Hall', 'Court', 'Centre', 'Works'][(i // 5) % 5]} {i}",
+        f"{['Annex', 'Hall', 'Court', 'Centre', 'Works'][(i // 5) % 5]} {i}",
         "address": f"{10 + i} {_STREETS[i % len(_STREETS)]}",
         "city": _CITIES[i % len(_CITIES)],
         "use_type": _USE_TYPES[i % len(_USE_TYPES)],
@@ -62,73 +69,148 @@ def make_sheet(i: int = 0, *, units: str = "IP", annual: bool = False, seed: int
         "area_unit": "m²" if si else "ft²",
         "year_built": int(rng.integers(1925, 2015)),
         "station_id": "WX-NORTHFIELD-03",
-        "period_start": "2025-01-01", "period_end": "2025-12-31",
-        "span_kind": "window", "run_date": "2026-03-02", "run_id": "run-20260302-01",
-        "energy_unit": "kWh" if si else "kBtu", "temp_unit": "°C" if si else "°F",
+        "period_start": "2025-01-01",
+        "period_end": "2025-12-31",
+        "span_kind": "window",
+        "run_date": "2026-03-02",
+        "run_id": "run-20260302-01",
+        "energy_unit": "kWh" if si else "kBtu",
+        "temp_unit": "°C" if si else "°F",
         "dd_unit": "°C·day" if si else "°F·day",
         "intensity_unit": "Wh/m²·K·day" if si else "Btu/ft²·°F·day",
-        "verdict": ("Heating use is well above what the envelope and the weather explain; "
-                    "check controls and setpoints first." if ratio > 1.2 else
-                    "Heating use is in line with what the envelope and the weather explain."),
-        "tier": tier, "tier_rank": rank, "needs_review": ratio > 1.6,
-        "actual_heating": actual * k_e, "expected_heating": expected * k_e,
-        "expected_low": expected * 0.8 * k_e, "expected_high": expected * 1.25 * k_e,
-        "expected_fixed_base": expected * 1.05 * k_e, "expected_modified": expected * 0.97 * k_e,
-        "ratio": ratio, "band_position": "above" if ratio > 1.25 else ("below" if ratio < 0.8 else "within"),
+        "verdict": (
+            "Heating use is well above what the envelope and the weather explain; check controls and setpoints first."
+            if ratio > 1.2
+            else "Heating use is in line with what the envelope and the weather explain."
+        ),
+        "tier": tier,
+        "tier_rank": rank,
+        "needs_review": ratio > 1.6,
+        "actual_heating": actual * k_e,
+        "expected_heating": expected * k_e,
+        "expected_low": expected * 0.8 * k_e,
+        "expected_high": expected * 1.25 * k_e,
+        "expected_fixed_base": expected * 1.05 * k_e,
+        "expected_modified": expected * 0.97 * k_e,
+        "ratio": ratio,
+        "band_position": "above" if ratio > 1.25 else ("below" if ratio < 0.8 else "within"),
         "heating_intensity": intensity * (5.678263 / 1.8 if si else 1.0),
         "peer_median_intensity": median * (5.678263 / 1.8 if si else 1.0),
-        "peer_percentile": pct, "peer_group": f"{_USE_TYPES[i % len(_USE_TYPES)]}, same station",
-        "normal_heating": actual * 0.97 * k_e, "baseload": base_per_day * 365 * k_e,
+        "peer_percentile": pct,
+        "peer_group": f"{_USE_TYPES[i % len(_USE_TYPES)]}, same station",
+        "normal_heating": actual * 0.97 * k_e,
+        "baseload": base_per_day * 365 * k_e,
         "excess_energy": max(actual - expected, 0.0) * k_e,
-        "excess_cost": max(actual - expected, 0.0) * 0.011, "currency": "$",
+        "excess_cost": max(actual - expected, 0.0) * 0.011,
+        "currency": "$",
         "excess_co2e_kg": max(actual - expected, 0.0) * 0.0531,
-        "hdd": hdd / (1.8 if si else 1.0), "base_temperature": 60.0 if not si else 15.6,
-        "fit": {"method": "default share" if annual else "regression", "r2": None if annual else 0.94,
-                "cv_rmse": None if annual else 0.081, "nmbe": None if annual else -0.004,
-                "n_periods": 0 if annual else 12, "fitted_base": None if annual else 58.5,
-                "slope": None if annual else slope * k_e, "baseload_per_day": base_per_day * k_e},
-        "effective_ua": ua * ratio * k_ua, "ua_unit": "W/K" if si else "Btu/h·°F",
+        "hdd": hdd / (1.8 if si else 1.0),
+        "base_temperature": 60.0 if not si else 15.6,
+        "fit": {
+            "method": "default share" if annual else "regression",
+            "r2": None if annual else 0.94,
+            "cv_rmse": None if annual else 0.081,
+            "nmbe": None if annual else -0.004,
+            "n_periods": 0 if annual else 12,
+            "fitted_base": None if annual else 58.5,
+            "slope": None if annual else slope * k_e,
+            "baseload_per_day": base_per_day * k_e,
+        },
+        "effective_ua": ua * ratio * k_ua,
+        "ua_unit": "W/K" if si else "Btu/h·°F",
         "ua_parts": [{"part": p, "value": ua * s * k_ua} for p, s in parts.items()],
         "ua_total": ua * k_ua,
         "assumptions": [
-            {"name": "wall U-factor", "value": 0.09, "unit": "Btu/h·ft²·°F", "origin": "default",
-             "source": "envelope defaults table, era 1960-1979"},
-            {"name": "window U-factor", "value": 0.55, "unit": "Btu/h·ft²·°F", "origin": "given", "source": "portfolio file"},
+            {
+                "name": "wall U-factor",
+                "value": 0.09,
+                "unit": "Btu/h·ft²·°F",
+                "origin": "default",
+                "source": "envelope defaults table, era 1960-1979",
+            },
+            {
+                "name": "window U-factor",
+                "value": 0.55,
+                "unit": "Btu/h·ft²·°F",
+                "origin": "given",
+                "source": "portfolio file",
+            },
             {"name": "air changes", "value": 0.5, "unit": "ach", "origin": "default", "source": "common practice"},
             {"name": "heating efficiency", "value": eff, "unit": "", "origin": "given", "source": "portfolio file"},
             {"name": "balance point", "value": 60.0, "unit": "°F", "origin": "default", "source": "common practice"},
-            {"name": "window fraction", "value": 0.3, "unit": "", "origin": "default", "source": "envelope defaults table"},
+            {
+                "name": "window fraction",
+                "value": 0.3,
+                "unit": "",
+                "origin": "default",
+                "source": "envelope defaults table",
+            },
         ],
         "periods": periods,
         "fit_line": None if annual else {"intercept": base_per_day * k_e, "slope": slope * k_e},
         "expected_line": None if annual else {"intercept": base_per_day * k_e, "slope": expected / hdd * k_e},
-        "annual": ([{"year_label": "2023", "metered": actual * 1.04 * k_e, "expected": expected * k_e},
-                    {"year_label": "2024", "metered": actual * 0.98 * k_e, "expected": expected * 0.99 * k_e},
-                    {"year_label": "2025", "metered": actual * k_e, "expected": expected * k_e}] if annual else []),
+        "annual": (
+            [
+                {"year_label": "2023", "metered": actual * 1.04 * k_e, "expected": expected * k_e},
+                {"year_label": "2024", "metered": actual * 0.98 * k_e, "expected": expected * 0.99 * k_e},
+                {"year_label": "2025", "metered": actual * k_e, "expected": expected * k_e},
+            ]
+            if annual
+            else []
+        ),
         "peers": [p * (5.678263 / 1.8 if si else 1.0) for p in peers],
-        "flags": ([{"code": "high_ratio", "explanation": "Metered heating is more than a quarter above the top of the expected band."},
-                   {"code": "high_balance_point", "explanation": "The fitted balance point is several degrees above the assumed one."}]
-                  if ratio > 1.25 else []),
-        "data_issues": ([{"code": "estimated_reads", "explanation": "Two of twelve readings are estimated by the utility."}]
-                        if i % 3 == 0 else []),
-        "next_steps": ["Review thermostat schedules and setback settings.",
-                       "Compare the heating with the envelope after a walk-through."],
+        "flags": (
+            [
+                {
+                    "code": "high_ratio",
+                    "explanation": "Metered heating is more than a quarter above the top of the expected band.",
+                },
+                {
+                    "code": "high_balance_point",
+                    "explanation": "The fitted balance point is several degrees above the assumed one.",
+                },
+            ]
+            if ratio > 1.25
+            else []
+        ),
+        "data_issues": (
+            [{"code": "estimated_reads", "explanation": "Two of twelve readings are estimated by the utility."}]
+            if i % 3 == 0
+            else []
+        ),
+        "next_steps": [
+            "Review thermostat schedules and setback settings.",
+            "Compare the heating with the envelope after a walk-through.",
+        ],
         "cautions": ["Defaults were used for the wall U-factor and air changes."],
         # the owner's half (issue 15): the bills' unit (therm: 100 kBtu), money, the screen's own sentence
-        "heating_fuel": "natural_gas", "efficiency": eff, "blocking": False, "envelope_defaulted": i % 2 == 0,
-        "flag_codes": ["above_band"] if ratio > 1.25 else [], "mechanisms": ["heat loss"] if ratio > 1.25 else [],
+        "heating_fuel": "natural_gas",
+        "efficiency": eff,
+        "blocking": False,
+        "envelope_defaulted": i % 2 == 0,
+        "flag_codes": ["above_band"] if ratio > 1.25 else [],
+        "mechanisms": ["heat loss"] if ratio > 1.25 else [],
         "screen_verdict": f"Heating is {ratio:.2f}x the model's expectation (score 4.1 against 3.5).",
-        "in_plan": rank == 1, "billed_unit": "therm",
-        "actual_heating_billed": actual / 100, "expected_heating_billed": expected / 100,
-        "expected_low_billed": expected * 0.8 / 100, "expected_high_billed": expected * 1.25 / 100,
+        "in_plan": rank == 1,
+        "billed_unit": "therm",
+        "actual_heating_billed": actual / 100,
+        "expected_heating_billed": expected / 100,
+        "expected_low_billed": expected * 0.8 / 100,
+        "expected_high_billed": expected * 1.25 / 100,
         "excess_billed": max(actual - expected * 1.25, 0.0) / 100,
         "expected_recoverable_billed": max(actual - expected, 0.0) * 0.6 / 100,
         "expected_recoverable_energy": max(actual - expected, 0.0) * 0.6 * k_e,
         "expected_recoverable_cost": max(actual - expected, 0.0) * 0.6 * 0.011,
         "expected_recoverable_co2e_kg": max(actual - expected, 0.0) * 0.6 * 0.0531,
         "heating_cost": actual * 0.011,
-        "scores": {"evidence_score": 4.1, "z_score": 2.2, "z_balance_point": 1.5, "z_intensity": 1.1,
-                   "z_yoy": 0.2, "yoy_change": 0.03},
+        "scores": {
+            "evidence_score": 4.1,
+            "z_score": 2.2,
+            "z_balance_point": 1.5,
+            "z_intensity": 1.1,
+            "z_yoy": 0.2,
+            "yoy_change": 0.03,
+        },
     }
     return sheet
 
@@ -136,8 +218,12 @@ def make_sheet(i: int = 0, *, units: str = "IP", annual: bool = False, seed: int
 #: one name in each script a sheet must print (invented names): CJK (Chinese, Japanese, Korean), Devanagari,
 #: emoji, Hebrew and Arabic, and a letter with a tall stack of combining marks
 SCRIPT_NAMES = {
-    "chinese": "北京朝阳办公楼 七号", "japanese": "東京ビル 三号館", "korean": "서울 타워 2동",
-    "devanagari": "मुंबई भवन संख्या ४", "emoji": "Sunny Loft 🏢🔥", "hebrew_arabic": "בית ספר مدرسة",
+    "chinese": "北京朝阳办公楼 七号",
+    "japanese": "東京ビル 三号館",
+    "korean": "서울 타워 2동",
+    "devanagari": "मुंबई भवन संख्या ४",
+    "emoji": "Sunny Loft 🏢🔥",
+    "hebrew_arabic": "בית ספר مدرسة",
     "stacked": "Ze\u0301\u0302\u0303\u0304\u0308\u030a\u0327\u0328\u0331 Hall",
 }
 
@@ -151,12 +237,21 @@ def since_measure(k: int = 9) -> dict[str, Any]:
     periods = []
     for m in range(k):
         base = 90000.0 - 6000 * abs(m - 3)
-        periods.append({"start": f"2025-{m + 2:02d}-01", "end": f"2025-{m + 2:02d}-28", "baseline": base,
-                        "metered": base * 0.82})
+        periods.append(
+            {"start": f"2025-{m + 2:02d}-01", "end": f"2025-{m + 2:02d}-28", "baseline": base, "metered": base * 0.82}
+        )
     avoided = sum(p["baseline"] - p["metered"] for p in periods)
-    return {"event_date": "2025-01-20", "description": "roof insulation and new boiler controls",
-            "periods": periods, "avoided_energy": avoided, "avoided_low_90": avoided * 0.7,
-            "avoided_high_90": avoided * 1.3, "energy_unit": "kBtu", "cost": avoided * 0.011, "currency": "$"}
+    return {
+        "event_date": "2025-01-20",
+        "description": "roof insulation and new boiler controls",
+        "periods": periods,
+        "avoided_energy": avoided,
+        "avoided_low_90": avoided * 0.7,
+        "avoided_high_90": avoided * 1.3,
+        "energy_unit": "kBtu",
+        "cost": avoided * 0.011,
+        "currency": "$",
+    }
 
 
 def sheet_kinds() -> dict[str, dict[str, Any]]:
@@ -167,25 +262,68 @@ def sheet_kinds() -> dict[str, dict[str, Any]]:
         s = make_sheet(10 + k)
         s.update({"tier": tier, "tier_rank": k + 1, "building_id": f"K-TIER-{k + 1}"})
         if tier == "Fix data first":
-            s.update({"blocking": True, "data_issues": [
-                {"code": "likely_unit_error", "blocking": True, "explanation": "metered heating is 148.377x the "
-                 "expectation: check the units (therm against ccf or Mcf, kBtu against MMBtu) and the floor area"}],
-                "next_steps": ["Check the data first: likely_unit_error — correct the readings or the building "
-                               "record and rerun."], "excess_billed": None, "expected_recoverable_cost": None})
+            s.update(
+                {
+                    "blocking": True,
+                    "data_issues": [
+                        {
+                            "code": "likely_unit_error",
+                            "blocking": True,
+                            "explanation": "metered heating is 148.377x the "
+                            "expectation: check the units (therm against ccf or Mcf, kBtu against MMBtu) and the floor area",
+                        }
+                    ],
+                    "next_steps": [
+                        "Check the data first: likely_unit_error — correct the readings or the building "
+                        "record and rerun."
+                    ],
+                    "excess_billed": None,
+                    "expected_recoverable_cost": None,
+                }
+            )
         out[f"tier_{k + 1}"] = s
     s = make_sheet(20, annual=True)
     s.update({"building_id": "K-ANNUAL", "tier": "Watch", "tier_rank": 3})
     out["annual"] = s
     s = make_sheet(21)
-    s.update({"building_id": "K-HEATPUMP", "heating_fuel": "electricity", "efficiency": 1.94, "billed_unit": "kWh",
-              **{k: s[k] * 100 / 3.412 for k in ("actual_heating_billed", "expected_heating_billed",
-                                                  "expected_low_billed", "expected_high_billed",
-                                                  "expected_recoverable_billed")}})
+    s.update(
+        {
+            "building_id": "K-HEATPUMP",
+            "heating_fuel": "electricity",
+            "efficiency": 1.94,
+            "billed_unit": "kWh",
+            **{
+                k: s[k] * 100 / 3.412
+                for k in (
+                    "actual_heating_billed",
+                    "expected_heating_billed",
+                    "expected_low_billed",
+                    "expected_high_billed",
+                    "expected_recoverable_billed",
+                )
+            },
+        }
+    )
     out["heat_pump"] = s
     s = make_sheet(22)
-    s.update({"building_id": "K-STEAM", "heating_fuel": "district_steam", "efficiency": 0.89, "billed_unit": "Mlb",
-              **{k: s[k] / 10 for k in ("actual_heating_billed", "expected_heating_billed", "expected_low_billed",
-                                        "expected_high_billed", "expected_recoverable_billed")}})
+    s.update(
+        {
+            "building_id": "K-STEAM",
+            "heating_fuel": "district_steam",
+            "efficiency": 0.89,
+            "billed_unit": "Mlb",
+            **{
+                k: s[k] / 10
+                for k in (
+                    "actual_heating_billed",
+                    "expected_heating_billed",
+                    "expected_low_billed",
+                    "expected_high_billed",
+                    "expected_recoverable_billed",
+                )
+            },
+        }
+    )
     out["steam"] = s
     s = make_sheet(23)
     s.update({"building_id": "K-MEASURE", "since_measure": since_measure()})
@@ -203,11 +341,15 @@ def sheet_kinds() -> dict[str, dict[str, Any]]:
     return out
 
 
-LONG_NAME = ("The Extraordinarily Long-Named Municipal Community Recreation, Aquatics & Lifelong Learning "
-             "Centre of Greater Fernhollow-upon-Brackwater, North Wing Annex Building, Including the "
-             "Former Lantern Works Assembly Rooms and the Attached Seasonal Glasshouse Pavilion Block ") * 2
-HOSTILE_NAME = ('<script>alert("x")</script><img src="http://198.51.100.7/track.png"> Smith & Sons '
-                '<b>bold</b> \u05d1\u05d9\u05ea \u05e1\u05e4\u05e8 \u0645\u062f\u0631\u0633\u0629')
+LONG_NAME = (
+    "The Extraordinarily Long-Named Municipal Community Recreation, Aquatics & Lifelong Learning "
+    "Centre of Greater Fernhollow-upon-Brackwater, North Wing Annex Building, Including the "
+    "Former Lantern Works Assembly Rooms and the Attached Seasonal Glasshouse Pavilion Block "
+) * 2
+HOSTILE_NAME = (
+    '<script>alert("x")</script><img src="http://198.51.100.7/track.png"> Smith & Sons '
+    "<b>bold</b> \u05d1\u05d9\u05ea \u05e1\u05e4\u05e8 \u0645\u062f\u0631\u0633\u0629"
+)
 
 
 def extreme_sheets() -> list[dict[str, Any]]:
@@ -219,12 +361,26 @@ def extreme_sheets() -> list[dict[str, Any]]:
     s["name"] = LONG_NAME[:300]
     s["address"] = "Unit 4B, " + "Very Long Industrial Estate Service Road " * 4
     s["city"] = "Cold Ashby Flats-by-the-Marsh " * 3
-    s["verdict"] = ("Heating use is far above what the envelope and weather explain, the fitted balance point is "
-                    "high, the baseload is large and two readings are estimated, so start with the controls. ") * 2
-    s["flags"] = [{"code": f"flag_{k}", "explanation": "An explanation that runs on for a while to use up space "
-                   "on the page and test wrapping of long lines in the flag list. " * 2} for k in range(14)]
-    s["data_issues"] = [{"code": f"issue_{k}", "explanation": "A data issue explained at some length, again to "
-                         "use space and force the layout to shrink. " * 2} for k in range(10)]
+    s["verdict"] = (
+        "Heating use is far above what the envelope and weather explain, the fitted balance point is "
+        "high, the baseload is large and two readings are estimated, so start with the controls. "
+    ) * 2
+    s["flags"] = [
+        {
+            "code": f"flag_{k}",
+            "explanation": "An explanation that runs on for a while to use up space "
+            "on the page and test wrapping of long lines in the flag list. " * 2,
+        }
+        for k in range(14)
+    ]
+    s["data_issues"] = [
+        {
+            "code": f"issue_{k}",
+            "explanation": "A data issue explained at some length, again to "
+            "use space and force the layout to shrink. " * 2,
+        }
+        for k in range(10)
+    ]
     s["next_steps"] = ["A long next step that tells the reader what to check and why it matters here. " * 2] * 9
     s["cautions"] = ["A long caution about the defaults used in this estimate and their uncertainty. " * 2] * 5
     s["assumptions"] = s["assumptions"] * 4
@@ -232,10 +388,29 @@ def extreme_sheets() -> list[dict[str, Any]]:
     out.append(s)
     # 2. every number missing, annual data with holes, no peers
     s = make_sheet(2, annual=True)
-    for k in ["floor_area", "year_built", "actual_heating", "expected_heating", "expected_low", "expected_high",
-              "expected_fixed_base", "expected_modified", "ratio", "heating_intensity", "peer_median_intensity",
-              "peer_percentile", "normal_heating", "baseload", "excess_energy", "excess_cost", "excess_co2e_kg",
-              "hdd", "base_temperature", "effective_ua", "ua_total"]:
+    for k in [
+        "floor_area",
+        "year_built",
+        "actual_heating",
+        "expected_heating",
+        "expected_low",
+        "expected_high",
+        "expected_fixed_base",
+        "expected_modified",
+        "ratio",
+        "heating_intensity",
+        "peer_median_intensity",
+        "peer_percentile",
+        "normal_heating",
+        "baseload",
+        "excess_energy",
+        "excess_cost",
+        "excess_co2e_kg",
+        "hdd",
+        "base_temperature",
+        "effective_ua",
+        "ua_total",
+    ]:
         s[k] = None
     s["address"] = None
     s["city"] = None
@@ -248,9 +423,22 @@ def extreme_sheets() -> list[dict[str, Any]]:
     out.append(s)
     # 3. extreme values: huge, zero, negative, inf/nan
     s = make_sheet(3)
-    s.update({"actual_heating": 1e12, "expected_heating": 0.0, "expected_low": -5.0, "expected_high": 1e15,
-              "ratio": float("inf"), "heating_intensity": -3.2, "excess_energy": 1e12, "excess_cost": -1e9,
-              "excess_co2e_kg": float("nan"), "floor_area": 0.0, "ua_total": 1e12, "effective_ua": -1.0})
+    s.update(
+        {
+            "actual_heating": 1e12,
+            "expected_heating": 0.0,
+            "expected_low": -5.0,
+            "expected_high": 1e15,
+            "ratio": float("inf"),
+            "heating_intensity": -3.2,
+            "excess_energy": 1e12,
+            "excess_cost": -1e9,
+            "excess_co2e_kg": float("nan"),
+            "floor_area": 0.0,
+            "ua_total": 1e12,
+            "effective_ua": -1.0,
+        }
+    )
     s["periods"] = [dict(p) for p in s["periods"]]
     s["periods"][0]["use_per_day"] = 1e12
     s["periods"][1]["dd_per_day"] = -40.0
@@ -283,29 +471,65 @@ def make_report(n_rows: int = 60, *, units: str = "IP", seed: int = 11) -> dict[
         ex = float(max(ratios[r] - 1, 0) * rng.uniform(2e5, 2e6))
         flags = ["high_ratio"] if ratios[r] > 1.25 else []
         di = ["estimated_reads"] if r % 7 == 3 else []
-        rows.append({"rank": r + 1, "building_id": f"B-{1000 + r}", "name": f"Owlbrook Court {r}",
-                     "use_type": _USE_TYPES[r % 8], "tier": tier, "ratio": float(ratios[r]),
-                     "heating_intensity": float(rng.uniform(2, 14)), "excess_energy": ex,
-                     "excess_cost": ex * 0.011, "flags": flags, "data_issues": di})
+        rows.append(
+            {
+                "rank": r + 1,
+                "building_id": f"B-{1000 + r}",
+                "name": f"Owlbrook Court {r}",
+                "use_type": _USE_TYPES[r % 8],
+                "tier": tier,
+                "ratio": float(ratios[r]),
+                "heating_intensity": float(rng.uniform(2, 14)),
+                "excess_energy": ex,
+                "excess_cost": ex * 0.011,
+                "flags": flags,
+                "data_issues": di,
+            }
+        )
         if di:
-            issues.append({"building_id": f"B-{1000 + r}", "name": f"Owlbrook Court {r}", "code": "estimated_reads",
-                           "explanation": "Two of twelve readings are estimated by the utility."})
+            issues.append(
+                {
+                    "building_id": f"B-{1000 + r}",
+                    "name": f"Owlbrook Court {r}",
+                    "code": "estimated_reads",
+                    "explanation": "Two of twelve readings are estimated by the utility.",
+                }
+            )
     tiers = [{"tier": t, "count": sum(1 for x in rows if x["tier"] == t)} for t, _ in _TIERS]
     return {
-        "run": {"run_id": "run-20260302-01", "as_of": "2026-03-01", "window_start": "2025-01-01",
-                "window_end": "2025-12-31", "run_date": "2026-03-02", "version": "0.1.0",
-                "units": "SI" if si else "IP"},
+        "run": {
+            "run_id": "run-20260302-01",
+            "as_of": "2026-03-01",
+            "window_start": "2025-01-01",
+            "window_end": "2025-12-31",
+            "run_date": "2026-03-02",
+            "version": "0.1.0",
+            "units": "SI" if si else "IP",
+        },
         # the shape screening.runner's summary gives: scalars plus nested per-tier/flag/issue dicts
-        "counts": {"buildings": n_rows, "needs_review": 3, "with_data_issues": len(issues), "blocked_by_data": 2,
-                   "rejected_rows": 0, "per_tier": {t["tier"]: t["count"] for t in tiers},
-                   "per_flag": {"high_ratio": sum(1 for x in rows if x["flags"])},
-                   "per_data_issue": {"estimated_reads": len(issues)} if issues else {}},
-        "tiers": tiers, "rows_total": n_rows, "rows_omitted": 0,
-        "totals": {"excess_energy": float(sum(x["excess_energy"] for x in rows)),
-                   "excess_cost": float(sum(x["excess_cost"] for x in rows)),
-                   "excess_co2e_kg": float(sum(x["excess_energy"] for x in rows) * 0.0531)},
-        "rows": rows, "ratios": [float(v) for v in ratios], "data_issues": issues,
-        "energy_unit": "kWh" if si else "kBtu", "intensity_unit": "Wh/m²·K·day" if si else "Btu/ft²·°F·day",
+        "counts": {
+            "buildings": n_rows,
+            "needs_review": 3,
+            "with_data_issues": len(issues),
+            "blocked_by_data": 2,
+            "rejected_rows": 0,
+            "per_tier": {t["tier"]: t["count"] for t in tiers},
+            "per_flag": {"high_ratio": sum(1 for x in rows if x["flags"])},
+            "per_data_issue": {"estimated_reads": len(issues)} if issues else {},
+        },
+        "tiers": tiers,
+        "rows_total": n_rows,
+        "rows_omitted": 0,
+        "totals": {
+            "excess_energy": float(sum(x["excess_energy"] for x in rows)),
+            "excess_cost": float(sum(x["excess_cost"] for x in rows)),
+            "excess_co2e_kg": float(sum(x["excess_energy"] for x in rows) * 0.0531),
+        },
+        "rows": rows,
+        "ratios": [float(v) for v in ratios],
+        "data_issues": issues,
+        "energy_unit": "kWh" if si else "kBtu",
+        "intensity_unit": "Wh/m²·K·day" if si else "Btu/ft²·°F·day",
         "currency": "$",
     }
 

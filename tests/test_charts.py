@@ -20,12 +20,16 @@ def parse(svg: str) -> ET.Element:
 
 # --- nice_ticks ---------------------------------------------------------------------
 
-@pytest.mark.parametrize("lo, hi, n, expected", [
-    (0, 37, 5, [0, 10, 20, 30, 40]),        # by hand: raw step 7.4 -> 10
-    (0, 1.3, 4, [0, 0.5, 1.0, 1.5]),         # by hand: raw 0.325 -> 0.5
-    (-3, 12, 5, [-5, 0, 5, 10, 15]),         # by hand: raw 3 -> 5
-    (0, 9, 4, [0, 2.5, 5, 7.5, 10]),         # by hand: raw 2.25 -> 2.5
-])
+
+@pytest.mark.parametrize(
+    "lo, hi, n, expected",
+    [
+        (0, 37, 5, [0, 10, 20, 30, 40]),  # by hand: raw step 7.4 -> 10
+        (0, 1.3, 4, [0, 0.5, 1.0, 1.5]),  # by hand: raw 0.325 -> 0.5
+        (-3, 12, 5, [-5, 0, 5, 10, 15]),  # by hand: raw 3 -> 5
+        (0, 9, 4, [0, 2.5, 5, 7.5, 10]),  # by hand: raw 2.25 -> 2.5
+    ],
+)
 def test_nice_ticks_hand_values(lo, hi, n, expected):
     np.testing.assert_allclose(charts.nice_ticks(lo, hi, n), expected, atol=1e-12)
 
@@ -54,11 +58,18 @@ def test_nice_ticks_equal_bounds_widen():
 
 # --- scatter ------------------------------------------------------------------------
 
+
 def test_scatter_draws_one_circle_per_finite_point_and_both_lines():
     x = [30, 20, 10, None, 2, float("nan")]
     y = [900, 620, 330, 100, 140, 5]
-    svg = charts.scatter_chart(x, y, fit_line={"intercept": 80, "slope": 27},
-                               expected_line={"intercept": 80, "slope": 22}, x_label="dd", y_label="use")
+    svg = charts.scatter_chart(
+        x,
+        y,
+        fit_line={"intercept": 80, "slope": 27},
+        expected_line={"intercept": 80, "slope": 22},
+        x_label="dd",
+        y_label="use",
+    )
     root = parse(svg)
     # all period circles are one path, one "M" (move-to) per circle
     periods = [p for p in root.findall(f"{SVG}path") if p.get("class") == "periods"]
@@ -72,8 +83,12 @@ def test_scatter_draws_one_circle_per_finite_point_and_both_lines():
 def test_unannotated_charts_keep_geometry_and_ticks_only():
     """annotate=False: no axis titles, legend or notes (the page prints them as text)."""
     x, y = [30, 20, 10], [900, 620, 330]
-    kw = dict(fit_line={"intercept": 80, "slope": 27}, expected_line={"intercept": 80, "slope": 22},
-              x_label="XTITLE", y_label="YTITLE")
+    kw = dict(
+        fit_line={"intercept": 80, "slope": 27},
+        expected_line={"intercept": 80, "slope": 22},
+        x_label="XTITLE",
+        y_label="YTITLE",
+    )
     svg = charts.scatter_chart(x + [None], y + [5], annotate=False, **kw)
     root = parse(svg)
     texts = [t.text for t in root.iter(f"{SVG}text")]
@@ -110,8 +125,19 @@ def test_tick_labels_are_one_text_node_anchored_by_hand():
     """All tick labels of a chart are one <text> with an x and y per character; y labels end
     3 units left of the plot and x labels are centred on their ticks (by hand from the
     advance widths: "100" at font size 8 is 3 x 8 x 1172/2048 = 13.73 units wide)."""
-    root = parse(charts.scatter_chart([10, 20, 30], [100, 200, 300], fit_line=None, expected_line=None,
-                                      x_label="", y_label="", width=360, height=170, annotate=False))
+    root = parse(
+        charts.scatter_chart(
+            [10, 20, 30],
+            [100, 200, 300],
+            fit_line=None,
+            expected_line=None,
+            x_label="",
+            y_label="",
+            width=360,
+            height=170,
+            annotate=False,
+        )
+    )
     texts = list(root.iter(f"{SVG}text"))
     assert len(texts) == 1
     t = texts[0]
@@ -140,8 +166,16 @@ def test_labels_with_other_characters_keep_their_own_node():
 
 
 def test_scatter_line_is_clipped_inside_the_plot():
-    svg = charts.scatter_chart([0, 10], [0, 10], fit_line={"intercept": 0, "slope": 1e6}, expected_line=None,
-                               x_label="x", y_label="y", width=300, height=200)
+    svg = charts.scatter_chart(
+        [0, 10],
+        [0, 10],
+        fit_line={"intercept": 0, "slope": 1e6},
+        expected_line=None,
+        x_label="x",
+        y_label="y",
+        width=300,
+        height=200,
+    )
     lines = [ln for ln in parse(svg).findall(f"{SVG}line") if ln.get("stroke-width") == "1.4"]
     for ln in lines:
         for k in ("y1", "y2"):
@@ -163,6 +197,7 @@ def test_scatter_length_mismatch_message():
 
 
 # --- annual, peers, histogram -----------------------------------------------------
+
 
 def test_annual_bars_and_missing_values():
     svg = charts.annual_chart(["2024", "2025"], [100.0, None], [90.0, 95.0], y_label="kBtu")
@@ -203,35 +238,50 @@ def test_ratio_histogram_counts_match_numpy():
 
 def test_fmt_tick():
     assert charts.fmt_tick(0) == "0"
-    assert charts.fmt_tick(25000) == "25k"       # by hand
-    assert charts.fmt_tick(1.5e6) == "1.5M"      # by hand
+    assert charts.fmt_tick(25000) == "25k"  # by hand
+    assert charts.fmt_tick(1.5e6) == "1.5M"  # by hand
     assert charts.fmt_tick(2.5) == "2.5"
     assert charts.fmt_tick(1e12) == "1e+12"
 
 
 def test_periods_of_the_window_are_filled_and_earlier_ones_open():
-    root = parse(charts.scatter_chart([5, 10, 15, 20], [50, 100, 150, 200], fit_line=None, expected_line=None,
-                                      x_label="", y_label="", annotate=False, recent=[False, False, True, True]))
+    root = parse(
+        charts.scatter_chart(
+            [5, 10, 15, 20],
+            [50, 100, 150, 200],
+            fit_line=None,
+            expected_line=None,
+            x_label="",
+            y_label="",
+            annotate=False,
+            recent=[False, False, True, True],
+        )
+    )
     paths = {p.get("class"): p for p in root.iter(f"{SVG}path") if (p.get("class") or "").startswith("periods")}
     assert set(paths) == {"periods", "periods recent"}
     assert paths["periods"].get("fill") == "#fff" and paths["periods recent"].get("fill") == charts.MID
     assert paths["periods"].get("d").count("M") == 2 and paths["periods recent"].get("d").count("M") == 2
-    plain = parse(charts.scatter_chart([5, 10], [50, 100], fit_line=None, expected_line=None, x_label="",
-                                       y_label="", annotate=False))
-    assert [p.get("class") for p in plain.iter(f"{SVG}path") if (p.get("class") or "").startswith("periods")] \
-        == ["periods"]
+    plain = parse(
+        charts.scatter_chart(
+            [5, 10], [50, 100], fit_line=None, expected_line=None, x_label="", y_label="", annotate=False
+        )
+    )
+    assert [p.get("class") for p in plain.iter(f"{SVG}path") if (p.get("class") or "").startswith("periods")] == [
+        "periods"
+    ]
     with pytest.raises(ValueError, match="recent has 1 flags for 2 periods"):
-        charts.scatter_chart([5, 10], [50, 100], fit_line=None, expected_line=None, x_label="", y_label="",
-                             recent=[True])
+        charts.scatter_chart(
+            [5, 10], [50, 100], fit_line=None, expected_line=None, x_label="", y_label="", recent=[True]
+        )
 
 
 def test_measure_chart_bars_and_baseline():
     """Since a measure: one bar per period with a metered value, one dashed baseline step per period."""
     svg = charts.measure_chart(["02/25", "03/25", "04/25"], [900.0, 840.0, None], [738.0, None, 600.0])
     bars = re.search(r'<path d="([^"]*)" fill="#555"', svg).group(1)
-    assert bars.count("M") == 2                       # periods 1 and 3 have a metered value
+    assert bars.count("M") == 2  # periods 1 and 3 have a metered value
     steps = re.search(r'<path d="([^"]*)" fill="none" stroke="#000" stroke-width="1.4"', svg).group(1)
-    assert steps.count("M") == 2                      # periods 1 and 2 have a baseline
+    assert steps.count("M") == 2  # periods 1 and 2 have a baseline
     assert "no periods since the measure" in charts.measure_chart([], [], [])
     with pytest.raises(ValueError, match="differ in length"):
         charts.measure_chart(["a"], [1.0, 2.0], [1.0])

@@ -83,6 +83,7 @@ def test_run_pulling_chunks_from_the_store_writes_the_one_pass_tables(tmp_path, 
     import json
 
     from screening import runner
+
     monkeypatch.setattr(pipeline, "FIT_BLOCK", 25)  # blocks of 25 buildings: the demo's 200 in chunks of 50
     calls = []
     pulled = runner.StoreReadings.__call__
@@ -91,28 +92,36 @@ def test_run_pulling_chunks_from_the_store_writes_the_one_pass_tables(tmp_path, 
         out = pulled(self, ids)
         calls.append((ids.len(), out.height))
         return out
+
     monkeypatch.setattr(runner.StoreReadings, "__call__", spy)
     src = sample_portfolio_dir()
     # measures and audits in different chunks: savings after a measure are computed per chunk
     ev = tmp_path / "events.csv"
-    ev.write_text("building_id,date,kind,finding,mechanism,description,expected_savings,cost\n"
-                  "B0010,2025-04-01,measure,,controls,new controls,5000,12000\n"
-                  "B0120,2025-03-15,measure,,heat loss,air sealing,,\n"
-                  "B0180,2025-02-01,audit,confirmed,controls,schedule stuck,,\n", encoding="utf-8")
+    ev.write_text(
+        "building_id,date,kind,finding,mechanism,description,expected_savings,cost\n"
+        "B0010,2025-04-01,measure,,controls,new controls,5000,12000\n"
+        "B0120,2025-03-15,measure,,heat loss,air sealing,,\n"
+        "B0180,2025-02-01,audit,confirmed,controls,schedule stuck,,\n",
+        encoding="utf-8",
+    )
     outs = {}
     for chunk in (0, 50):
-        ov = {"inputs": {**{k: str(src / f"{k}.csv") for k in ("buildings", "readings", "weather")},
-                         "events": str(ev)},
-              "store": {"database": str(tmp_path / f"db{chunk}.duckdb")}, "analysis": {"as_of": "2026-10-15"},
-              "output": {"sheets": False}, "run": {"chunk_buildings": chunk}}
+        ov = {
+            "inputs": {**{k: str(src / f"{k}.csv") for k in ("buildings", "readings", "weather")}, "events": str(ev)},
+            "store": {"database": str(tmp_path / f"db{chunk}.duckdb")},
+            "analysis": {"as_of": "2026-10-15"},
+            "output": {"sheets": False},
+            "run": {"chunk_buildings": chunk},
+        }
         runner.run(overrides=ov, out_dir=str(tmp_path / f"out{chunk}"), force=True)
         outs[chunk] = tmp_path / f"out{chunk}"
     assert len(calls) == 4 and all(0 < n <= 50 and rows > 0 for n, rows in calls)
     ids = {c: json.loads((outs[c] / "summary.json").read_text())["run_id"] for c in outs}
     assert (outs[0] / "savings.csv").read_text().count("\n") == 3  # a header and the two measures
-    for name in ("ranking.csv", "audit_plan.csv", "data_issues.csv", "rejects.csv", "assumptions.csv",
-                 "savings.csv"):
-        assert (outs[0] / name).read_text().replace(ids[0], "") == (outs[50] / name).read_text().replace(ids[50], ""), name
+    for name in ("ranking.csv", "audit_plan.csv", "data_issues.csv", "rejects.csv", "assumptions.csv", "savings.csv"):
+        assert (outs[0] / name).read_text().replace(ids[0], "") == (outs[50] / name).read_text().replace(ids[50], ""), (
+            name
+        )
     s0, s50 = (json.loads((outs[c] / "summary.json").read_text()) for c in (0, 50))
     s0.pop("run_id"), s50.pop("run_id")
     assert s0 == s50
@@ -123,15 +132,25 @@ def test_demo_with_events_in_chunks_equals_one_pass(chunk):
     """The events' rules (post-measure spans, savings per measure, the measure's note in the verdict, the
     audit rules) give the same results a chunk at a time as in one pass."""
     from screening import events as evmod
+
     b, r, w = _inputs(sample_portfolio_dir())
     cfg = cfgmod.load(None, None)
     window = analysis_window(dt.date(2026, 10, 15))
-    ev, _rej, _notes = evmod.read_all([str(sample_portfolio_dir() / "events.csv")], ReadOptions(units="IP"),
-                                      b["building_id"])
+    ev, _rej, _notes = evmod.read_all(
+        [str(sample_portfolio_dir() / "events.csv")], ReadOptions(units="IP"), b["building_id"]
+    )
     then = pl.DataFrame(schema=evmod.THEN_SCHEMA)
-    ctx = evmod.plan_context(ev, then, window_end=window[1], rest_quarters=4, regrow=2.0, blackout_days=30,
-                             window_start=window[0], judge_min_days=180)
-    assert ctx["_judge_from"].is_not_null().sum() == 2   # the demo's two measures are judged on their days after
+    ctx = evmod.plan_context(
+        ev,
+        then,
+        window_end=window[1],
+        rest_quarters=4,
+        regrow=2.0,
+        blackout_days=30,
+        window_start=window[0],
+        judge_min_days=180,
+    )
+    assert ctx["_judge_from"].is_not_null().sum() == 2  # the demo's two measures are judged on their days after
     kw = dict(window=window, fit_block=10, events=ev, plan_context=ctx)
     one = pipeline.screen_frames(b, r, w, cfg, **kw)
     parts = pipeline.screen_frames(b, r, w, cfg, chunk_buildings=chunk, **kw)

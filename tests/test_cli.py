@@ -23,14 +23,39 @@ import pytest
 import screening
 from screening.outputs import RANKING_COLUMNS
 
-from .conftest import (BUILDINGS, READING_HEADER, WEATHER_HEADER, cli, daily_weather, run_module, table_counts,
-                       write_portfolio, write_rows)
+from .conftest import (
+    BUILDINGS,
+    READING_HEADER,
+    WEATHER_HEADER,
+    cli,
+    daily_weather,
+    run_module,
+    table_counts,
+    write_portfolio,
+    write_rows,
+)
 
 COMMANDS = ["run", "demo", "validate", "degree-days", "init", "status", "history"]
-ISSUE2_COLUMNS = ["rank", "building_id", "name", "use_type", "floor_area", "period_start", "period_end", "hdd",
-                  "base_temperature", "actual_heating", "expected_heating", "ratio", "heating_intensity",
-                  "needs_review", "flags", "data_issues", "energy_unit"]
-SUMMARY_KEYS = {"as_of", "window", "counts", "versions"}   # and run_id: see test_summary_names_the_run
+ISSUE2_COLUMNS = [
+    "rank",
+    "building_id",
+    "name",
+    "use_type",
+    "floor_area",
+    "period_start",
+    "period_end",
+    "hdd",
+    "base_temperature",
+    "actual_heating",
+    "expected_heating",
+    "ratio",
+    "heating_intensity",
+    "needs_review",
+    "flags",
+    "data_issues",
+    "energy_unit",
+]
+SUMMARY_KEYS = {"as_of", "window", "counts", "versions"}  # and run_id: see test_summary_names_the_run
 
 
 @pytest.fixture(scope="module")
@@ -44,6 +69,7 @@ def fixture_run(tmp_path_factory):
 
 
 # ----------------------------------------------------------------------------- help and version
+
 
 def test_version():
     res = cli(["--version"])
@@ -62,6 +88,7 @@ def test_help_on_every_command(command):
 
 # ----------------------------------------------------------------------------- run on the fixture
 
+
 def _ranking(out: Path) -> pl.DataFrame:
     return pl.read_csv(out / "ranking.csv", infer_schema_length=None)
 
@@ -74,7 +101,7 @@ def test_run_writes_documented_outputs(fixture_run):
     # issue 15: where the building is and its verdict sentence, as on its sheet
     assert rk.columns[2:5] == ["name", "address", "city"] and "verdict" in rk.columns
     by_id = {r["building_id"]: r for r in rk.iter_rows(named=True)}
-    assert by_id["B01"]["address"] == "10 Fernbrake Road" and by_id["B02"]["city"] == "Lowmere"   # conftest rows
+    assert by_id["B01"]["address"] == "10 Fernbrake Road" and by_id["B02"]["city"] == "Lowmere"  # conftest rows
     assert all(v and v.endswith(".") for v in rk["verdict"].to_list())
     assert rk.height == p.n_buildings and rk["rank"].to_list() == list(range(1, p.n_buildings + 1))
     assert rk["period_start"].cast(pl.String).unique().to_list() == ["2024-01-01"]
@@ -87,8 +114,12 @@ def test_run_writes_documented_outputs(fixture_run):
     assert SUMMARY_KEYS <= set(s)
     assert s["as_of"] == p.as_of and s["window"] == ["2024-01-01", "2024-12-31"]
     c = s["counts"]
-    assert (c["buildings"], c["needs_review"], c["with_data_issues"], c["rejected_rows"]) == \
-        (6, int(rk["needs_review"].sum()), 0, 0)
+    assert (c["buildings"], c["needs_review"], c["with_data_issues"], c["rejected_rows"]) == (
+        6,
+        int(rk["needs_review"].sum()),
+        0,
+        0,
+    )
     assert {"ddscreen", "polars", "duckdb"} <= set(s["versions"])
     # the printed summary: counts, top buildings, where the outputs are
     assert re.search(r"Screened 6 buildings \(2024-01-01 to 2024-12-31\)", res.stdout)
@@ -99,6 +130,7 @@ def test_summary_names_the_run(fixture_run):
     _, out, db, _ = fixture_run
     s = json.loads((out / "summary.json").read_text())
     import duckdb
+
     con = duckdb.connect(str(db), read_only=True)
     keys = [r[0] for r in con.execute("SELECT run_key FROM runs WHERE status = 'ok'").fetchall()]
     con.close()
@@ -113,14 +145,14 @@ def test_ranking_order_is_the_documented_one(fixture_run):
     rk = _ranking(out)
     tiers = ["Audit first", "Audit soon", "Watch", "No action", "Fix data first"]
     pos = rk["tier"].map_elements(tiers.index, return_dtype=pl.Int64).to_list()
-    assert pos == sorted(pos)                                    # tiers are plain groups along the order
-    judged = rk.filter(pl.col("tier") != "Fix data first")       # first: by expected recoverable cost
+    assert pos == sorted(pos)  # tiers are plain groups along the order
+    judged = rk.filter(pl.col("tier") != "Fix data first")  # first: by expected recoverable cost
     cost = judged["expected_recoverable_cost"].fill_null(0).to_list()
     assert cost == sorted(cost, reverse=True)
-    assert judged["rank"].to_list() == list(range(1, judged.height + 1))   # data problems come after
+    assert judged["rank"].to_list() == list(range(1, judged.height + 1))  # data problems come after
     # an audit tier holds only buildings worth a visit (default audit cost 2,000)
     assert (rk.filter(pl.col("tier").is_in(["Audit first", "Audit soon"]))["expected_recoverable_cost"] >= 2000).all()
-    assert rk.filter(pl.col("tier") == "Audit first").height <= 10          # [plan] audits_per_quarter
+    assert rk.filter(pl.col("tier") == "Audit first").height <= 10  # [plan] audits_per_quarter
 
 
 def test_expected_and_metered_match_the_degree_day_method(fixture_run):
@@ -131,10 +163,10 @@ def test_expected_and_metered_match_the_degree_day_method(fixture_run):
         row = rk.filter(pl.col("building_id") == bid).row(0, named=True)
         days, mean = wx[st]
         sel = (days >= np.datetime64("2024-01-01")) & (days <= np.datetime64("2024-12-31"))
-        hdd = float(np.maximum(0.0, bal - mean[sel]).sum())       # daily-mean HDD at the balance point, by hand
+        hdd = float(np.maximum(0.0, bal - mean[sel]).sum())  # daily-mean HDD at the balance point, by hand
         assert row["base_temperature"] == bal
-        assert row["hdd"] == pytest.approx(hdd, abs=0.05)          # ranking.csv rounds to 0.1
-        exp_kbtu = 24.0 * ua * hdd / eta / 1000.0                   # 24·UA·HDD/η (degree-day method)
+        assert row["hdd"] == pytest.approx(hdd, abs=0.05)  # ranking.csv rounds to 0.1
+        exp_kbtu = 24.0 * ua * hdd / eta / 1000.0  # 24·UA·HDD/η (degree-day method)
         assert row["expected_heating"] == pytest.approx(exp_kbtu, rel=1e-6, abs=0.05)
         # metered heating recovers the planted waste factor (readings were written to 2 decimals)
         assert row["ratio"] == pytest.approx(waste, rel=2e-3)
@@ -162,6 +194,7 @@ def test_reloading_the_same_files_adds_nothing_twice(fixture_run, tmp_path):
 
 def test_run_with_sheets_one_page_each(tmp_path):
     from pypdf import PdfReader
+
     p = write_portfolio(tmp_path / "in")
     res = cli(p.args(tmp_path / "out", tmp_path / "s.duckdb", "--quiet"))
     assert res.exit_code == 0, res.stderr
@@ -174,9 +207,21 @@ def test_run_with_sheets_one_page_each(tmp_path):
 def test_constant_35f_year_end_to_end(tmp_path):
     # one building, UA 1,000 Btu/(h·°F), balance point 65 °F, η = 1, a 365-day year at a constant 35 °F
     ua = 1000.0
-    b = write_rows(tmp_path / "b.csv", ["building_id", "name", "station_id", "use_type", "floor_area",
-                                        "heating_fuel", "heating_efficiency", "ua_total", "balance_point"],
-                   [["K1", "Even Keel Hall", "still-vale", "office", "20000", "natural_gas", "1.0", ua, "65"]])
+    b = write_rows(
+        tmp_path / "b.csv",
+        [
+            "building_id",
+            "name",
+            "station_id",
+            "use_type",
+            "floor_area",
+            "heating_fuel",
+            "heating_efficiency",
+            "ua_total",
+            "balance_point",
+        ],
+        [["K1", "Even Keel Hall", "still-vale", "office", "20000", "natural_gas", "1.0", ua, "65"]],
+    )
     days = [dt.date(2022, 1, 1) + dt.timedelta(days=i) for i in range(365 * 2)]
     w = write_rows(tmp_path / "w.csv", WEATHER_HEADER, [["still-vale", d.isoformat(), "35", "35"] for d in days])
     rows = []
@@ -185,22 +230,51 @@ def test_constant_35f_year_end_to_end(tmp_path):
             s = dt.date(y, m, 1)
             e = dt.date(y + (m == 12), m % 12 + 1, 1) - dt.timedelta(days=1)
             n = (e - s).days + 1
-            rows.append(["K1", "natural_gas", s.isoformat(), e.isoformat(),
-                         f"{ua * 30 * 24 * n / 1e5:.4f}", "therm", "false", ""])   # heat = UA·30·24 Btu/day
+            rows.append(
+                [
+                    "K1",
+                    "natural_gas",
+                    s.isoformat(),
+                    e.isoformat(),
+                    f"{ua * 30 * 24 * n / 1e5:.4f}",
+                    "therm",
+                    "false",
+                    "",
+                ]
+            )  # heat = UA·30·24 Btu/day
     r = write_rows(tmp_path / "r.csv", READING_HEADER, rows)
-    res = cli(["run", "--buildings", str(b), "--readings", str(r), "--weather", str(w), "--out",
-               str(tmp_path / "out"), "--db", str(tmp_path / "s.duckdb"), "--from", "2023-01-01", "--to",
-               "2023-12-31", "--no-sheets", "--quiet"])
+    res = cli(
+        [
+            "run",
+            "--buildings",
+            str(b),
+            "--readings",
+            str(r),
+            "--weather",
+            str(w),
+            "--out",
+            str(tmp_path / "out"),
+            "--db",
+            str(tmp_path / "s.duckdb"),
+            "--from",
+            "2023-01-01",
+            "--to",
+            "2023-12-31",
+            "--no-sheets",
+            "--quiet",
+        ]
+    )
     assert res.exit_code == 0, res.stderr
     row = _ranking(tmp_path / "out").row(0, named=True)
-    assert row["hdd"] == pytest.approx(10_950.0)                    # 30 × 365 (common practice, issue 2)
+    assert row["hdd"] == pytest.approx(10_950.0)  # 30 × 365 (common practice, issue 2)
     assert row["hdd65"] == pytest.approx(10_950.0)
-    assert row["expected_heating"] == pytest.approx(ua * 30 * 8_760 / 1000.0)   # UA × 30 × 8,760 Btu → kBtu
+    assert row["expected_heating"] == pytest.approx(ua * 30 * 8_760 / 1000.0)  # UA × 30 × 8,760 Btu → kBtu
     # (metered heating is not checked here: with weather that never varies, a regression cannot tell
     # heating from baseload; the fixture-portfolio test checks the metered side)
 
 
 # ----------------------------------------------------------------------------- validate
+
 
 def _validate(p, **over):
     files = {"buildings": p.buildings, "readings": p.readings, "weather": p.weather} | over
@@ -210,8 +284,9 @@ def _validate(p, **over):
 def test_validate_clean(portfolio):
     res = _validate(portfolio)
     assert res.exit_code == 0, res.stdout
-    assert res.stdout.strip().splitlines()[-1] == ("0 problem(s); buildings 6 rows accepted, readings 156 rows "
-                                                   "accepted, weather 1646 rows accepted")
+    assert res.stdout.strip().splitlines()[-1] == (
+        "0 problem(s); buildings 6 rows accepted, readings 156 rows accepted, weather 1646 rows accepted"
+    )
     assert not list(portfolio.folder.rglob("*.duckdb"))
 
 
@@ -252,6 +327,7 @@ def test_validate_reports_unit_problems(portfolio):
 
 # ----------------------------------------------------------------------------- python -m screening
 
+
 def test_module_version_and_help():
     res = run_module(["--version"])
     assert res.returncode == 0 and res.stdout.strip() == f"ddscreen {screening.__version__}"
@@ -268,14 +344,26 @@ def test_module_structural_error(portfolio, tmp_path):
     assert res.returncode == 2
     assert "Traceback" not in res.stderr + res.stdout
     err = [ln for ln in res.stderr.splitlines() if ln.startswith("ddscreen: error: ")]
-    assert err == [f"ddscreen: error: {bad}, line 1: file is not text (contains NUL bytes); "
-                   "expected a CSV text file (UTF-8 or Latin-1)"]
+    assert err == [
+        f"ddscreen: error: {bad}, line 1: file is not text (contains NUL bytes); "
+        "expected a CSV text file (UTF-8 or Latin-1)"
+    ]
     assert not (tmp_path / "out").exists()
 
 
 def test_module_validate_and_run(portfolio, tmp_path):
-    res = run_module(["validate", "--buildings", str(portfolio.buildings), "--readings", str(portfolio.readings),
-                      "--weather", str(portfolio.weather)], cwd=tmp_path)
+    res = run_module(
+        [
+            "validate",
+            "--buildings",
+            str(portfolio.buildings),
+            "--readings",
+            str(portfolio.readings),
+            "--weather",
+            str(portfolio.weather),
+        ],
+        cwd=tmp_path,
+    )
     assert res.returncode == 0 and "0 problem(s)" in res.stdout
     res = run_module(portfolio.args(tmp_path / "out", tmp_path / "s.duckdb", "--no-sheets"), cwd=tmp_path)
     assert res.returncode == 0, res.stderr
@@ -293,6 +381,7 @@ def test_bad_option_is_a_usage_error(portfolio):
 
 def test_cli_choices_are_the_library_ones():
     from screening import cli as climod, ddtool
+
     assert tuple(k.value for k in climod.DegreeDayKind) == ddtool.KIND_CHOICES
     assert tuple(k.value for k in climod.PeriodBy) == ddtool.BY_CHOICES
     for opt in ("--kind", "--by", "--format"):
@@ -303,6 +392,7 @@ def test_cli_choices_are_the_library_ones():
 def test_settings_are_declared_once():
     from screening import config as cfgmod
     from screening.errors import ConfigError
+
     s = cfgmod.settings(cfgmod.load())
     assert s.analysis.units == "IP" and s.thresholds.r2_min == 0.7 and s.prices.natural_gas == 1.2
     comments = cfgmod.template_comments()

@@ -32,7 +32,7 @@ def test_plain_file_keeps_physical_lines(tmp_path):
     t = _read(tmp_path, "id,name,qty\na,Alpha,1\nb,Beta,2\n")
     assert t.df.columns == ["id", "name", "qty", LINE_COL]
     assert t.df.rows() == [("a", "Alpha", "1", 2), ("b", "Beta", "2", 3)]
-    assert t.df.schema["qty"] == pl.String          # text only: typing is parse.py's job
+    assert t.df.schema["qty"] == pl.String  # text only: typing is parse.py's job
     assert (t.encoding, t.delimiter, t.rejects, t.notices) == ("utf-8", ",", [], [])
 
 
@@ -53,7 +53,7 @@ def test_utf8_with_or_without_bom(tmp_path, bom):
 
 
 def test_latin1_fallback_is_reported_with_line(tmp_path):
-    raw = "id,name,qty\na,plain,1\nb,Café Müller,2\n".encode("cp1252")   # é = 0xE9, ü = 0xFC in cp1252
+    raw = "id,name,qty\na,plain,1\nb,Café Müller,2\n".encode("cp1252")  # é = 0xE9, ü = 0xFC in cp1252
     t = _read(tmp_path, raw)
     assert t.encoding == "cp1252" and t.df["name"].to_list() == ["plain", "Café Müller"]
     assert len(t.notices) == 1 and "line 3" in t.notices[0] and "Latin-1" in t.notices[0]
@@ -116,8 +116,10 @@ def test_crlf_and_cr_only_line_ends(tmp_path):
 def test_wrong_field_count_rejected_with_line(tmp_path):
     t = _read(tmp_path, "id,name,qty\na,A,1\nb,B\nc,C,3,extra\nd,D,4\n")
     assert t.df["id"].to_list() == ["a", "d"]
-    assert [(r["line"], r["reason"]) for r in t.rejects] == [(3, "expected 3 fields, found 2"),
-                                                             (4, "expected 3 fields, found 4")]
+    assert [(r["line"], r["reason"]) for r in t.rejects] == [
+        (3, "expected 3 fields, found 2"),
+        (4, "expected 3 fields, found 4"),
+    ]
     assert t.rejects[0]["value"] == "b,B" and t.rejects[0]["file"] == str(tmp_path / "f.csv")
 
 
@@ -152,18 +154,24 @@ def test_optional_columns_present_or_null(tmp_path):
     assert t.notices == [f"{tmp_path / 'f.csv'}: ignored unknown column(s): extra_col"]
 
 
-@pytest.mark.parametrize("data, pattern", [
-    (b"", r"f\.csv, line 1: file is empty; expected a header line and data rows"),
-    (b"\n \n\t\n", r"f\.csv, line 1: file is empty"),
-    (b"\xef\xbb\xbf", r"f\.csv, line 1: file is empty"),
-    (b"id,name,qty\n", r"f\.csv, line 2: no data rows; expected at least one data row after the header"),
-    (b"id,name,qty\n\n,,\n", r"f\.csv, line 2: no data rows"),
-    (b"id,name\na,b\n", r"f\.csv, line 1, column 'qty': missing required column; expected columns id, name, qty "
-                        r"\(found: id, name\)"),
-    (b"id,Name,qty,NAME\na,b,1,c\n", r"f\.csv, line 1, column 'NAME': column name appears twice"),
-    (b"id,name,qty\na,\x00b,1\n", r"f\.csv, line 2: file is not text \(contains NUL bytes\)"),
-    (b"id,name,qty\n\x81\x8d\x8f\x90\x9d\n", r"f\.csv, line 2: file is neither UTF-8 nor Latin-1/cp1252 text"),
-])
+@pytest.mark.parametrize(
+    "data, pattern",
+    [
+        (b"", r"f\.csv, line 1: file is empty; expected a header line and data rows"),
+        (b"\n \n\t\n", r"f\.csv, line 1: file is empty"),
+        (b"\xef\xbb\xbf", r"f\.csv, line 1: file is empty"),
+        (b"id,name,qty\n", r"f\.csv, line 2: no data rows; expected at least one data row after the header"),
+        (b"id,name,qty\n\n,,\n", r"f\.csv, line 2: no data rows"),
+        (
+            b"id,name\na,b\n",
+            r"f\.csv, line 1, column 'qty': missing required column; expected columns id, name, qty "
+            r"\(found: id, name\)",
+        ),
+        (b"id,Name,qty,NAME\na,b,1,c\n", r"f\.csv, line 1, column 'NAME': column name appears twice"),
+        (b"id,name,qty\na,\x00b,1\n", r"f\.csv, line 2: file is not text \(contains NUL bytes\)"),
+        (b"id,name,qty\n\x81\x8d\x8f\x90\x9d\n", r"f\.csv, line 2: file is neither UTF-8 nor Latin-1/cp1252 text"),
+    ],
+)
 def test_structural_errors(tmp_path, data, pattern):
     with pytest.raises(InputError, match=pattern) as ei:
         _read(tmp_path, data)

@@ -32,7 +32,7 @@ SMALL = DATA / "dd_daily_small.csv"
 #   Jan 8: (53+68)/2 = 60.5 → 4.5 HDD65, 4 with weather-service rounding (NWS Burlington example)
 #   Jan 9: (66+90)/2 = 78 → 13 CDD65 (NWS Key West); Jan 10: (51+95)/2 = 73 → 8 CDD65, 13 CDD60 (WRCC)
 #   Jan 11–14 (4 days), 17–30 (14), Feb 2–28 (27): long gaps, missing
-JAN_HDD = 3 * 36 + 17 + 32.25 + 4.5 + 3 * 36      # 269.75
+JAN_HDD = 3 * 36 + 17 + 32.25 + 4.5 + 3 * 36  # 269.75
 JAN_CDD = 13 + 8
 
 
@@ -53,24 +53,25 @@ def test_by_month_hand_sums():
 
 def test_by_day_and_bases_and_rounding():
     d = degree_days_report(SMALL, "FERN-7", by="day", kind="both", date_from="2024-01-04", date_to="2024-01-10")
-    assert d["hdd"].to_list()[:1] == [17.0] and d["hdd"][4] == 4.5 and d["cdd"][5] == 13.0      # by hand (above)
+    assert d["hdd"].to_list()[:1] == [17.0] and d["hdd"][4] == 4.5 and d["cdd"][5] == 13.0  # by hand (above)
     b50 = degree_days_report(SMALL, "FERN-7", by="day", base=50, date_from="2024-01-04", date_to="2024-01-04")
-    assert b50["hdd"].to_list() == [2.0]                                                        # WRCC example
-    c60 = degree_days_report(SMALL, "FERN-7", by="day", base=60, kind="cdd", date_from="2024-01-10",
-                             date_to="2024-01-10")
-    assert c60["cdd"].to_list() == [13.0] and c60["hdd"].null_count() == 1                     # WRCC example
+    assert b50["hdd"].to_list() == [2.0]  # WRCC example
+    c60 = degree_days_report(
+        SMALL, "FERN-7", by="day", base=60, kind="cdd", date_from="2024-01-10", date_to="2024-01-10"
+    )
+    assert c60["cdd"].to_list() == [13.0] and c60["hdd"].null_count() == 1  # WRCC example
     r = degree_days_report(SMALL, "FERN-7", by="day", rounding=True, date_from="2024-01-08", date_to="2024-01-08")
-    assert r["hdd"].to_list() == [4.0]                                                          # NWS Burlington
+    assert r["hdd"].to_list() == [4.0]  # NWS Burlington
     y = degree_days_report(SMALL, "FERN-7", by="year", date_from="2024-01-01", date_to="2024-12-31")
     assert y["hdd"].to_list() == pytest.approx([JAN_HDD + 72]) and y["days"].to_list() == [366]
-    assert y["days_missing"].to_list() == [366 - (12 + 3)]       # 12 dated rows with data + 3 filled days
+    assert y["days_missing"].to_list() == [366 - (12 + 3)]  # 12 dated rows with data + 3 filled days
 
 
 def test_by_period_file():
     t = degree_days_report(SMALL, "FERN-7", by="period", periods_path=DATA / "dd_periods.csv", kind="both")
     # the MOSS-3 row is for another station; sums by hand (above)
     assert t["period_start"].to_list() == [dt.date(2024, 1, 1), dt.date(2024, 1, 4), dt.date(2024, 1, 11)]
-    assert t["hdd"].to_list() == pytest.approx([108.0, 17 + 32.25 + 4.5, 5 * 36.0])   # Jan 15, 16, 31, Feb 1, 29
+    assert t["hdd"].to_list() == pytest.approx([108.0, 17 + 32.25 + 4.5, 5 * 36.0])  # Jan 15, 16, 31, Feb 1, 29
     assert t["cdd"].to_list() == pytest.approx([0.0, 21.0, 0.0])
     assert t["days"].to_list() == [3, 7, 50] and t["days_missing"].to_list() == [0, 0, 4 + 14 + 27]
 
@@ -86,19 +87,23 @@ def test_tmy_greensboro_file_ip_and_si(tmp_path):
     # pvlib TMY3 Greensboro as a daily CSV: annual HDD65 3868.9 / CDD65 1370.5 by (max+min)/2 (ref §7 [C])
     p = tmp_path / "gso.csv"
     w = tmy_daily("greensboro", station="GSO").select(
-        "station_id", pl.col("date").cast(pl.String), pl.col("t_min_f").round(6).alias("t_min"),
-        pl.col("t_max_f").round(6).alias("t_max"))
+        "station_id",
+        pl.col("date").cast(pl.String),
+        pl.col("t_min_f").round(6).alias("t_min"),
+        pl.col("t_max_f").round(6).alias("t_max"),
+    )
     w.write_csv(p)
     y = degree_days_report(p, "GSO", by="year", kind="both")
     assert y["hdd"][0] == pytest.approx(3868.9, abs=0.5) and y["cdd"][0] == pytest.approx(1370.5, abs=0.5)
     m = degree_days_report(p, "GSO", by="year", method="monthly-estimate")
     assert m["method"][0] == "monthly-estimate"
-    assert m["hdd"][0] == pytest.approx(3868.9, rel=0.03)      # Erbs holds within 3 % here (ref §4: +1.9 %)
+    assert m["hdd"][0] == pytest.approx(3868.9, rel=0.03)  # Erbs holds within 3 % here (ref §4: +1.9 %)
     # the same data in °C (24-h means): HDD18 2081.5 °C·day (ref §7 [C, mean24])
     q = tmp_path / "gso_c.csv"
     tmy_daily("greensboro", mean_only=True, station="GSO").select(
-        "station_id", pl.col("date").cast(pl.String),
-        pl.col("t_mean_f").map_batches(lambda s: pl.Series(np.round(f_to_c(s.to_numpy()), 9))).alias("t_mean")
+        "station_id",
+        pl.col("date").cast(pl.String),
+        pl.col("t_mean_f").map_batches(lambda s: pl.Series(np.round(f_to_c(s.to_numpy()), 9))).alias("t_mean"),
     ).write_csv(q)
     c = degree_days_report(q, "GSO", by="year", base=18, units="SI")
     assert c["hdd"][0] == pytest.approx(2081.5, abs=0.05)
@@ -164,17 +169,35 @@ def test_the_command_prints_degree_days_to_two_decimals(tmp_path):
     import csv
     import io
     from .conftest import cli
-    temps = [round(-3.7 + 0.9 * i % 17.3, 1) for i in range(31)]   # invented January, one decimal
+
+    temps = [round(-3.7 + 0.9 * i % 17.3, 1) for i in range(31)]  # invented January, one decimal
     p = tmp_path / "w.csv"
-    p.write_text("station_id,date,t_mean\n" + "".join(f"WREN,2025-01-{d + 1:02d},{t}\n" for d, t in enumerate(temps)),
-                 encoding="utf-8")
-    r = cli(["degree-days", "--weather", str(p), "--station", "WREN", "--units", "SI", "--base", "18",
-             "--kind", "both", "--by", "month"])
+    p.write_text(
+        "station_id,date,t_mean\n" + "".join(f"WREN,2025-01-{d + 1:02d},{t}\n" for d, t in enumerate(temps)),
+        encoding="utf-8",
+    )
+    r = cli(
+        [
+            "degree-days",
+            "--weather",
+            str(p),
+            "--station",
+            "WREN",
+            "--units",
+            "SI",
+            "--base",
+            "18",
+            "--kind",
+            "both",
+            "--by",
+            "month",
+        ]
+    )
     assert r.exit_code == 0, r.stderr
     (row,) = list(csv.DictReader(io.StringIO(r.stdout)))
-    by_hand = sum(max(0.0, 18 - t) for t in temps)          # every day below 18 °C here
+    by_hand = sum(max(0.0, 18 - t) for t in temps)  # every day below 18 °C here
     assert float(row["hdd"]) == round(by_hand, 2)
     assert re.fullmatch(r"\d+(\.\d{1,2})?", row["hdd"]) and row["cdd"] in ("0.0", "0")
     assert row["base"] in ("18.0", "18")
-    lib = degree_days_report(p, "WREN", units="SI", base=18, kind="hdd")   # the library function rounds too
+    lib = degree_days_report(p, "WREN", units="SI", base=18, kind="hdd")  # the library function rounds too
     assert lib["hdd"][0] == round(by_hand, 2)

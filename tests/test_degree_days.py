@@ -20,14 +20,26 @@ import polars as pl
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from screening.degree_days import (METHODS, DegreeDayCube, c_to_f, daily_mean_dd, degree_day_table,
-                                   erbs_monthly_cdd, erbs_monthly_hdd, f_to_c, fill_short_gaps, hourly_dd,
-                                   maxmin_dd, normal_year, nws_round_mean)
+from screening.degree_days import (
+    METHODS,
+    DegreeDayCube,
+    c_to_f,
+    daily_mean_dd,
+    degree_day_table,
+    erbs_monthly_cdd,
+    erbs_monthly_hdd,
+    f_to_c,
+    fill_short_gaps,
+    hourly_dd,
+    maxmin_dd,
+    normal_year,
+    nws_round_mean,
+)
 
 # ----------------------------------------------------------------------------- TMY helpers
 
 TMY_FILES = {"greensboro": "723170TYA.CSV", "miami": "12839.tm2", "sand_point": "703165TY.csv"}
-YEAR = 1990                 # every TMY file has 365 days (no Feb 29); dates are put in one non-leap year
+YEAR = 1990  # every TMY file has 365 days (no Feb 29); dates are put in one non-leap year
 S1, E1 = np.array(["1990-01-01"], dtype="datetime64[D]"), np.array(["1990-12-31"], dtype="datetime64[D]")
 
 
@@ -38,10 +50,11 @@ def tmy_hourly_c(key: str) -> np.ndarray:
     (ref §3); the files hold 8760 rows in date order, so a reshape keeps each date's 24 hours.
     """
     import pvlib
+
     path = os.path.join(os.path.dirname(pvlib.__file__), "data", TMY_FILES[key])
     if path.endswith(".tm2"):
         df, _ = pvlib.iotools.read_tmy2(path)
-        t = df["DryBulb"].to_numpy() / 10.0          # TMY2 stores tenths of °C
+        t = df["DryBulb"].to_numpy() / 10.0  # TMY2 stores tenths of °C
     else:
         df, _ = pvlib.iotools.read_tmy3(path, map_variables=True)
         t = df["temp_air"].to_numpy()
@@ -58,10 +71,16 @@ def tmy_daily(key: str, *, mean_only: bool = False, station: str | None = None) 
         _CACHE[key] = c_to_f(tmy_hourly_c(key))
     h = _CACHE[key]
     dates = pl.date_range(dt.date(YEAR, 1, 1), dt.date(YEAR, 12, 31), eager=True)
-    return pl.DataFrame({
-        "station_id": station or key, "date": dates,
-        "t_min_f": None if mean_only else h.min(axis=1), "t_max_f": None if mean_only else h.max(axis=1),
-        "t_mean_f": h.mean(axis=1)}, schema_overrides={"t_min_f": pl.Float64, "t_max_f": pl.Float64})
+    return pl.DataFrame(
+        {
+            "station_id": station or key,
+            "date": dates,
+            "t_min_f": None if mean_only else h.min(axis=1),
+            "t_max_f": None if mean_only else h.max(axis=1),
+            "t_mean_f": h.mean(axis=1),
+        },
+        schema_overrides={"t_min_f": pl.Float64, "t_max_f": pl.Float64},
+    )
 
 
 def tmy_hourly_frame(key: str) -> pl.DataFrame:
@@ -73,9 +92,10 @@ def tmy_hourly_frame(key: str) -> pl.DataFrame:
 
 
 def one_day(t_max, t_min, t_mean=None, station="S", day=dt.date(2024, 1, 15)) -> pl.DataFrame:
-    return pl.DataFrame({"station_id": [station], "date": [day], "t_min_f": [t_min], "t_max_f": [t_max],
-                         "t_mean_f": [t_mean]},
-                        schema_overrides={"t_min_f": pl.Float64, "t_max_f": pl.Float64, "t_mean_f": pl.Float64})
+    return pl.DataFrame(
+        {"station_id": [station], "date": [day], "t_min_f": [t_min], "t_max_f": [t_max], "t_mean_f": [t_mean]},
+        schema_overrides={"t_min_f": pl.Float64, "t_max_f": pl.Float64, "t_mean_f": pl.Float64},
+    )
 
 
 # ----------------------------------------------------------------------------- worked examples
@@ -104,7 +124,7 @@ def test_weather_service_rounding_example():
         dd, days, miss = cube.period_totals("S", ["2024-01-15"], ["2024-01-15"])
         assert dd[0, 0] == hdd and days[0] == 1 and miss[0] == 0
         cdd, _, _ = cube.period_totals("S", ["2024-01-15"], ["2024-01-15"], "cdd")
-        assert cdd[0, 0] == 0.0           # HDD and CDD never on the same day (NWS Burlington)
+        assert cdd[0, 0] == 0.0  # HDD and CDD never on the same day (NWS Burlington)
 
 
 def test_daily_mean_dd_inputs_and_errors():
@@ -113,8 +133,9 @@ def test_daily_mean_dd_inputs_and_errors():
     np.testing.assert_array_equal(daily_mean_dd(t, 65), [36.0, 0.0, np.nan])
     np.testing.assert_array_equal(daily_mean_dd(pl.Series(t), 65), [36.0, 0.0, np.nan])
     # broadcasting over a grid of bases (by hand)
-    np.testing.assert_array_equal(daily_mean_dd(np.array([29.0])[:, None], np.array([50.0, 65.0])[None, :]),
-                                  [[21.0, 36.0]])
+    np.testing.assert_array_equal(
+        daily_mean_dd(np.array([29.0])[:, None], np.array([50.0, 65.0])[None, :]), [[21.0, 36.0]]
+    )
     with pytest.raises(ValueError, match="kind must be one of hdd, cdd; got 'heating'"):
         daily_mean_dd(29.0, 65, "heating")
 
@@ -122,22 +143,25 @@ def test_daily_mean_dd_inputs_and_errors():
 def test_mean_is_not_half_the_range():
     # pitfall noted in ref §1: the mean is (Tmax + Tmin)/2, not (Tmax − Tmin)/2
     cube = DegreeDayCube.from_daily(one_day(33.0, 25.0), [65.0])
-    assert cube.period_totals("S", ["2024-01-15"], ["2024-01-15"])[0][0, 0] == 36.0   # NWS Key West
+    assert cube.period_totals("S", ["2024-01-15"], ["2024-01-15"])[0][0, 0] == 36.0  # NWS Key West
 
 
 # ----------------------------------------------------------------------------- Met Office
 
 
-@pytest.mark.parametrize("tmax, tmin, hdd, cdd", [
-    (10, 2, 9.5, 0.0),        # case II, Tb 15.5 °C (ref §2 check values, [C] from the [R] formulas)
-    (18, 10, 2.125, 0.625),   # case IV
-    (20, 13, 0.625, 1.625),   # case III
-    (22, 16, 0.0, 3.5),       # case I
-])
+@pytest.mark.parametrize(
+    "tmax, tmin, hdd, cdd",
+    [
+        (10, 2, 9.5, 0.0),  # case II, Tb 15.5 °C (ref §2 check values, [C] from the [R] formulas)
+        (18, 10, 2.125, 0.625),  # case IV
+        (20, 13, 0.625, 1.625),  # case III
+        (22, 16, 0.0, 3.5),  # case I
+    ],
+)
 def test_met_office_four_cases(tmax, tmin, hdd, cdd):
     h, c = maxmin_dd(tmax, tmin, 15.5)
     assert h == pytest.approx(hdd, abs=1e-12) and c == pytest.approx(cdd, abs=1e-12)
-    assert h - c == pytest.approx(15.5 - (tmax + tmin) / 2, abs=1e-12)     # identity, ref §2
+    assert h - c == pytest.approx(15.5 - (tmax + tmin) / 2, abs=1e-12)  # identity, ref §2
 
 
 def test_met_office_vs_mean_method_and_continuity():
@@ -169,6 +193,7 @@ def test_met_office_identity_property(tmin, rng, tb):
 def test_met_office_ramp_form_equals_cases(tmin, rng, tb):
     # the cube uses ¼(Tb − Tmin)⁺ + ½(Tb − Tm)⁺ + ¼(Tb − Tmax)⁺; it must equal the four published cases (ref §2)
     from screening.degree_days import _maxmin_hdd, _maxmin_hdd_cases
+
     assert _maxmin_hdd(tmin + rng, tmin, tb) == pytest.approx(float(_maxmin_hdd_cases(tmin + rng, tmin, tb)), abs=1e-9)
 
 
@@ -229,7 +254,7 @@ def test_tmy_annual_mean_maxmin_hourly(key):
 
 def test_tmy_other_bases_and_grid():
     # ref §7 "Other bases" [C, (max+min)/2, °F·day, given as integers → ±0.5]
-    bases = np.arange(40.0, 75.5, 0.5)                      # a 71-base grid, 40–75 °F by 0.5
+    bases = np.arange(40.0, 75.5, 0.5)  # a 71-base grid, 40–75 °F by 0.5
     g = DegreeDayCube.from_daily(tmy_daily("greensboro"), bases)
     h = g.period_totals("greensboro", S1, E1)[0][0]
     c = g.period_totals("greensboro", S1, E1, "cdd")[0][0]
@@ -247,8 +272,7 @@ def test_tmy_weather_service_rounding():
     # ref §7 "NWS-int": daily max/min of the hourly values rounded to whole °F, mean rounded half up,
     # integer DD: Greensboro HDD65 3812 / CDD65 1408, Miami 135 / 4204, Sand Point 9047 / 0 [C]
     for key, hdd, cdd in (("greensboro", 3812, 1408), ("miami", 135, 4204), ("sand_point", 9047, 0)):
-        w = tmy_daily(key).with_columns(
-            pl.col("t_min_f").add(0.5).floor(), pl.col("t_max_f").add(0.5).floor())
+        w = tmy_daily(key).with_columns(pl.col("t_min_f").add(0.5).floor(), pl.col("t_max_f").add(0.5).floor())
         cube = DegreeDayCube.from_daily(w, [65.0], rounding=True)
         assert cube.period_totals(key, S1, E1)[0][0, 0] == hdd
         assert cube.period_totals(key, S1, E1, "cdd")[0][0, 0] == cdd
@@ -257,9 +281,13 @@ def test_tmy_weather_service_rounding():
 def test_tmy_celsius_bases_and_identity():
     # ref §7 °C bases [C, mean24]: Greensboro HDD18 2081.5, CDD10 2381.2; Miami CDD10 5224.6, HDD18 64.2;
     # Sand Point HDD18 4956.5 (°C·day, ±0.05 at one decimal). The engine is unit-agnostic: °C in, °C·day out.
-    for key, base_c, kind, v in (("greensboro", 18, "hdd", 2081.5), ("greensboro", 10, "cdd", 2381.2),
-                                 ("miami", 10, "cdd", 5224.6), ("miami", 18, "hdd", 64.2),
-                                 ("sand_point", 18, "hdd", 4956.5)):
+    for key, base_c, kind, v in (
+        ("greensboro", 18, "hdd", 2081.5),
+        ("greensboro", 10, "cdd", 2381.2),
+        ("miami", 10, "cdd", 5224.6),
+        ("miami", 18, "hdd", 64.2),
+        ("sand_point", 18, "hdd", 4956.5),
+    ):
         w_f = tmy_daily(key, mean_only=True)
         w_c = w_f.with_columns(pl.col("t_mean_f").map_batches(lambda s: pl.Series(f_to_c(s.to_numpy()))))
         cube_c = DegreeDayCube.from_daily(w_c, [float(base_c)])
@@ -271,11 +299,15 @@ def test_tmy_celsius_bases_and_identity():
     # Greensboro base 15.5 °C: (max+min)/2 1577.3, integration 1694.0, Met Office 1697.7 °C·day (ref §7)
     b = float(c_to_f(15.5))
     w = tmy_daily("greensboro")
-    assert DegreeDayCube.from_daily(w, [b]).period_totals("greensboro", S1, E1)[0][0, 0] / 1.8 == pytest.approx(1577.3, abs=0.05)
-    assert DegreeDayCube.from_daily(w, [b], method="maxmin").period_totals("greensboro", S1, E1)[0][0, 0] / 1.8 \
-        == pytest.approx(1697.7, abs=0.05)
-    assert DegreeDayCube.from_hourly(tmy_hourly_frame("greensboro"), [b]).period_totals(
-        "greensboro", S1, E1)[0][0, 0] / 1.8 == pytest.approx(1694.0, abs=0.05)
+    assert DegreeDayCube.from_daily(w, [b]).period_totals("greensboro", S1, E1)[0][0, 0] / 1.8 == pytest.approx(
+        1577.3, abs=0.05
+    )
+    assert DegreeDayCube.from_daily(w, [b], method="maxmin").period_totals("greensboro", S1, E1)[0][
+        0, 0
+    ] / 1.8 == pytest.approx(1697.7, abs=0.05)
+    assert DegreeDayCube.from_hourly(tmy_hourly_frame("greensboro"), [b]).period_totals("greensboro", S1, E1)[0][
+        0, 0
+    ] / 1.8 == pytest.approx(1694.0, abs=0.05)
 
 
 def test_tmy_monthly_greensboro():
@@ -352,9 +384,11 @@ def test_monthly_estimate_tmy_annual():
 def test_monthly_estimate_from_monthly_means_and_missing_month():
     # 12 monthly means of Greensboro (24-h means) → same annual estimate as from the daily data (ref §4: 3950)
     w = tmy_daily("greensboro", mean_only=True)
-    monthly = (w.group_by(pl.col("date").dt.month().alias("month"))
-               .agg(pl.col("t_mean_f").mean()).with_columns(pl.lit(YEAR).alias("year"),
-                                                            pl.lit("g").alias("station_id")))
+    monthly = (
+        w.group_by(pl.col("date").dt.month().alias("month"))
+        .agg(pl.col("t_mean_f").mean())
+        .with_columns(pl.lit(YEAR).alias("year"), pl.lit("g").alias("station_id"))
+    )
     cube = DegreeDayCube.from_monthly(monthly, [65.0])
     assert cube.period_totals("g", S1, E1)[0][0, 0] == pytest.approx(3950, abs=1.0)
     # a month with ≥ 5 missing days is missing as a whole (WRCC rule, ref §1)
@@ -380,14 +414,16 @@ def synthetic_weather(n_stations=3, n_days=800, seed=7, holes=0.05) -> pl.DataFr
         tmin, tmax = mean - rngt / 2, mean + rngt / 2
         tmean = np.where(rng.random(n_days) < 0.1, mean, np.nan)
         keep = rng.random(n_days) > holes
-        df = pl.DataFrame({"station_id": f"ST{i}", "date": dates, "t_min_f": tmin, "t_max_f": tmax,
-                           "t_mean_f": tmean}).with_columns(pl.col("t_mean_f").fill_nan(None))
+        df = pl.DataFrame(
+            {"station_id": f"ST{i}", "date": dates, "t_min_f": tmin, "t_max_f": tmax, "t_mean_f": tmean}
+        ).with_columns(pl.col("t_mean_f").fill_nan(None))
         nulls = rng.random(n_days) < 0.05
         only_mean = rng.random(n_days) < 0.05
         df = df.with_columns(
             pl.when(pl.Series(nulls | only_mean)).then(None).otherwise(pl.col("t_min_f")).alias("t_min_f"),
             pl.when(pl.Series(nulls)).then(None).otherwise(pl.col("t_max_f")).alias("t_max_f"),
-            pl.when(pl.Series(only_mean)).then(pl.Series(mean)).otherwise(pl.col("t_mean_f")).alias("t_mean_f"))
+            pl.when(pl.Series(only_mean)).then(pl.Series(mean)).otherwise(pl.col("t_mean_f")).alias("t_mean_f"),
+        )
         frames.append(df.filter(pl.Series(keep)))
     return pl.concat(frames)
 
@@ -417,7 +453,7 @@ def test_period_totals_and_at_base_match_brute_force(method):
     n = 40
     sid = [f"ST{int(i)}" for i in rng.integers(0, 3, n)]
     s = [dt.date(2019, 12, 1) + dt.timedelta(days=int(x)) for x in rng.integers(0, 900, n)]
-    e = [a + dt.timedelta(days=int(x)) for a, x in zip(s, rng.integers(0, 400, n))]   # some past the record
+    e = [a + dt.timedelta(days=int(x)) for a, x in zip(s, rng.integers(0, 400, n))]  # some past the record
     b = rng.uniform(35, 80, n)
     for kind in ("hdd", "cdd"):
         grid, days, miss = cube.period_totals(sid, s, e, kind)
@@ -437,9 +473,16 @@ def test_period_totals_and_at_base_match_brute_force(method):
 
 
 def test_missing_days_are_counted_never_zero():
-    w = pl.DataFrame({"station_id": ["A"] * 3, "date": [dt.date(2024, 1, 1), dt.date(2024, 1, 2), dt.date(2024, 1, 5)],
-                      "t_min_f": [25.0, None, 25.0], "t_max_f": [33.0, None, 33.0], "t_mean_f": [None, None, None]},
-                     schema_overrides={"t_mean_f": pl.Float64})
+    w = pl.DataFrame(
+        {
+            "station_id": ["A"] * 3,
+            "date": [dt.date(2024, 1, 1), dt.date(2024, 1, 2), dt.date(2024, 1, 5)],
+            "t_min_f": [25.0, None, 25.0],
+            "t_max_f": [33.0, None, 33.0],
+            "t_mean_f": [None, None, None],
+        },
+        schema_overrides={"t_mean_f": pl.Float64},
+    )
     cube = DegreeDayCube.from_daily(w, [65.0])
     dd, days, miss = cube.period_totals(["A", "A"], ["2023-12-30", "2024-01-01"], ["2024-01-06", "2024-01-01"])
     # Dec 30–31 before the record, Jan 2 null, Jan 3–4 absent, Jan 6 after the record → 6 of 8 days missing;
@@ -477,7 +520,7 @@ def test_hourly_cube_at_base_and_missing_hours():
     ex, _, _ = cube.at_base("greensboro", ["1990-01-01"], ["1990-01-31"], [65.0])
     assert ex[0] == pytest.approx(dd[0, 1], abs=1e-8)
     h = c_to_f(tmy_hourly_c("greensboro"))
-    ref = hourly_dd(np.delete(h[:31], 1, axis=0), 62.5)[0].sum()      # by hand at an off-grid base
+    ref = hourly_dd(np.delete(h[:31], 1, axis=0), 62.5)[0].sum()  # by hand at an off-grid base
     assert cube.at_base("greensboro", ["1990-01-01"], ["1990-01-31"], [62.5])[0][0] == pytest.approx(ref, abs=1e-8)
 
 
@@ -516,9 +559,16 @@ def small_weather(draw):
     present[0] = present[-1] = True
     dates = [dt.date(2023, 1, 1) + dt.timedelta(days=i) for i in range(n)]
     rows = [(d, t - r / 2, t + r / 2) for d, t, r, p in zip(dates, temps, ranges, present) if p]
-    return pl.DataFrame({"station_id": "P", "date": [r[0] for r in rows], "t_min_f": [r[1] for r in rows],
-                         "t_max_f": [r[2] for r in rows], "t_mean_f": [None] * len(rows)},
-                        schema_overrides={"t_mean_f": pl.Float64}), n
+    return pl.DataFrame(
+        {
+            "station_id": "P",
+            "date": [r[0] for r in rows],
+            "t_min_f": [r[1] for r in rows],
+            "t_max_f": [r[2] for r in rows],
+            "t_mean_f": [None] * len(rows),
+        },
+        schema_overrides={"t_mean_f": pl.Float64},
+    ), n
 
 
 @settings(max_examples=60, deadline=None, derandomize=True)
@@ -532,7 +582,7 @@ def test_properties(wn, seed, method):
     m = int(rng.integers(a, n))
     b = int(rng.integers(m, n))
     d0 = dt.date(2023, 1, 1)
-    day = lambda k: d0 + dt.timedelta(days=k)   # noqa: E731
+    day = lambda k: d0 + dt.timedelta(days=k)  # noqa: E731
     for kind in ("hdd", "cdd"):
         full, _, miss = cube.period_totals("P", [day(a)], [day(b)], kind)
         # non-negative
@@ -555,8 +605,9 @@ def test_properties(wn, seed, method):
     # invariant to row order
     shuffled = w.sample(fraction=1.0, shuffle=True, seed=seed)
     c2 = DegreeDayCube.from_daily(shuffled, bases, method=method)
-    np.testing.assert_array_equal(c2.period_totals("P", [day(a)], [day(b)])[0],
-                                  cube.period_totals("P", [day(a)], [day(b)])[0])
+    np.testing.assert_array_equal(
+        c2.period_totals("P", [day(a)], [day(b)])[0], cube.period_totals("P", [day(a)], [day(b)])[0]
+    )
 
 
 # ----------------------------------------------------------------------------- normals
@@ -564,9 +615,10 @@ def test_properties(wn, seed, method):
 
 def constant_years(years, t_mean_f, station="N"):
     dates = pl.date_range(dt.date(years[0], 1, 1), dt.date(years[-1], 12, 31), eager=True)
-    return pl.DataFrame({"station_id": station, "date": dates, "t_min_f": None, "t_max_f": None,
-                         "t_mean_f": t_mean_f}, schema_overrides={"t_min_f": pl.Float64, "t_max_f": pl.Float64,
-                                                                 "t_mean_f": pl.Float64})
+    return pl.DataFrame(
+        {"station_id": station, "date": dates, "t_min_f": None, "t_max_f": None, "t_mean_f": t_mean_f},
+        schema_overrides={"t_min_f": pl.Float64, "t_max_f": pl.Float64, "t_mean_f": pl.Float64},
+    )
 
 
 def test_normal_year_constant_35f():
@@ -576,10 +628,10 @@ def test_normal_year_constant_35f():
     np.testing.assert_allclose(ny.hdd[0], [25 * 365, 30 * 365], rtol=1e-12)
     np.testing.assert_allclose(ny.cdd[0], [0.0, 0.0])
     assert ny.years_used["N"] == [2001, 2002, 2003, 2004, 2005]
-    np.testing.assert_allclose(ny.monthly_hdd[0, 1, 1], 30 * 28)          # February of a 365-day year
+    np.testing.assert_allclose(ny.monthly_hdd[0, 1, 1], 30 * 28)  # February of a 365-day year
     rows = ny.for_stations(["N", "X", "N"])
     np.testing.assert_allclose(rows[[0, 2]], [[25 * 365, 30 * 365]] * 2, rtol=1e-12)
-    assert np.isnan(rows[1]).all()                                          # unknown station → NaN
+    assert np.isnan(rows[1]).all()  # unknown station → NaN
     f = ny.to_frame()
     assert f.columns == ["station_id", "base_f", "hdd", "cdd", "n_years", "first_year", "last_year"]
     assert f["n_years"].to_list() == [5, 5]
@@ -588,10 +640,11 @@ def test_normal_year_constant_35f():
 def test_normal_year_coverage_rule_and_years():
     # 2002 loses 30 days (92 % < 95 %) and is not counted; 2003 loses 15 (95.9 %) and counts
     rng = np.random.default_rng(11)
-    w = constant_years(range(2001, 2005), 0.0).with_columns(
-        pl.Series("t_mean_f", rng.normal(45, 12, 4 * 365 + 1)))
-    w = w.filter(~pl.col("date").is_between(dt.date(2002, 3, 1), dt.date(2002, 3, 30))
-                 & ~pl.col("date").is_between(dt.date(2003, 7, 1), dt.date(2003, 7, 15)))
+    w = constant_years(range(2001, 2005), 0.0).with_columns(pl.Series("t_mean_f", rng.normal(45, 12, 4 * 365 + 1)))
+    w = w.filter(
+        ~pl.col("date").is_between(dt.date(2002, 3, 1), dt.date(2002, 3, 30))
+        & ~pl.col("date").is_between(dt.date(2003, 7, 1), dt.date(2003, 7, 15))
+    )
     cube = DegreeDayCube.from_daily(w, [55.0, 65.0])
     ny = normal_year(cube)
     assert ny.years_used["N"] == [2001, 2003, 2004]
@@ -611,13 +664,17 @@ def test_normal_year_coverage_rule_and_years():
 
 
 def test_fill_short_gaps():
-    d = lambda k: dt.date(2024, 3, 1) + dt.timedelta(days=k)   # noqa: E731
-    w = pl.DataFrame({
-        "station_id": ["G"] * 6,
-        "date": [d(0), d(4), d(9), d(10), d(11), d(12)],             # gap of 3 (d1–d3), gap of 4 (d5–d8)
-        "t_min_f": [20.0, 28.0, 40.0, None, 44.0, 46.0],              # d10 null → gap of 1
-        "t_max_f": [40.0, 48.0, 60.0, None, 64.0, 66.0],
-        "t_mean_f": [None] * 6}, schema_overrides={"t_mean_f": pl.Float64})
+    d = lambda k: dt.date(2024, 3, 1) + dt.timedelta(days=k)  # noqa: E731
+    w = pl.DataFrame(
+        {
+            "station_id": ["G"] * 6,
+            "date": [d(0), d(4), d(9), d(10), d(11), d(12)],  # gap of 3 (d1–d3), gap of 4 (d5–d8)
+            "t_min_f": [20.0, 28.0, 40.0, None, 44.0, 46.0],  # d10 null → gap of 1
+            "t_max_f": [40.0, 48.0, 60.0, None, 64.0, 66.0],
+            "t_mean_f": [None] * 6,
+        },
+        schema_overrides={"t_mean_f": pl.Float64},
+    )
     filled, gaps = fill_short_gaps(w)
     assert filled.height == 13
     # linear interpolation (by hand): d1..d3 = 22, 24, 26 (min) and 42, 44, 46 (max); d10 = 42/62
@@ -628,20 +685,30 @@ def test_fill_short_gaps():
     assert gaps.to_dicts() == [{"station_id": "G", "gap_start": d(5), "gap_end": d(8), "days": 4}]
     cube = DegreeDayCube.from_daily(filled, [65.0])
     _, days, miss = cube.period_totals("G", [d(0)], [d(12)])
-    assert days[0] == 13 and miss[0] == 4                       # the long gap stays missing
+    assert days[0] == 13 and miss[0] == 4  # the long gap stays missing
     _, g0 = fill_short_gaps(w, max_gap_days=0)
     assert g0["days"].to_list() == [3, 4, 1]
 
 
 def test_gaps_in_windows():
     from screening.degree_days import gaps_in_windows
-    gaps = pl.DataFrame({"station_id": ["A", "A", "B"],
-                         "gap_start": [dt.date(2024, 1, 5), dt.date(2024, 6, 1), dt.date(2024, 1, 1)],
-                         "gap_end": [dt.date(2024, 1, 20), dt.date(2024, 6, 10), dt.date(2024, 1, 9)],
-                         "days": [16, 10, 9]})
-    win = pl.DataFrame({"building_id": ["b1", "b2", "b3"], "station_id": ["A", "A", "C"],
-                        "window_start": [dt.date(2024, 1, 10), dt.date(2024, 2, 1), dt.date(2024, 1, 1)],
-                        "window_end": [dt.date(2024, 12, 31), dt.date(2024, 5, 31), dt.date(2024, 12, 31)]})
+
+    gaps = pl.DataFrame(
+        {
+            "station_id": ["A", "A", "B"],
+            "gap_start": [dt.date(2024, 1, 5), dt.date(2024, 6, 1), dt.date(2024, 1, 1)],
+            "gap_end": [dt.date(2024, 1, 20), dt.date(2024, 6, 10), dt.date(2024, 1, 9)],
+            "days": [16, 10, 9],
+        }
+    )
+    win = pl.DataFrame(
+        {
+            "building_id": ["b1", "b2", "b3"],
+            "station_id": ["A", "A", "C"],
+            "window_start": [dt.date(2024, 1, 10), dt.date(2024, 2, 1), dt.date(2024, 1, 1)],
+            "window_end": [dt.date(2024, 12, 31), dt.date(2024, 5, 31), dt.date(2024, 12, 31)],
+        }
+    )
     g = gaps_in_windows(gaps, win)
     # by hand: b1 overlaps Jan 10–20 (11 days) and Jun 1–10 (10); b2 touches none; b3's station has no gap
     assert g["building_id"].to_list() == ["b1", "b1"]
@@ -649,8 +716,15 @@ def test_gaps_in_windows():
 
 
 def test_fill_short_gaps_does_not_overwrite_given_mean():
-    w = pl.DataFrame({"station_id": ["G"] * 3, "date": [dt.date(2024, 1, d) for d in (1, 2, 3)],
-                      "t_min_f": [20.0, None, 30.0], "t_max_f": [40.0, None, 50.0], "t_mean_f": [None, 33.0, None]})
+    w = pl.DataFrame(
+        {
+            "station_id": ["G"] * 3,
+            "date": [dt.date(2024, 1, d) for d in (1, 2, 3)],
+            "t_min_f": [20.0, None, 30.0],
+            "t_max_f": [40.0, None, 50.0],
+            "t_mean_f": [None, 33.0, None],
+        }
+    )
     filled, gaps = fill_short_gaps(w)
     assert filled["interpolated"].to_list() == [False, False, False]
     assert filled["t_min_f"][1] is None and gaps.height == 0
@@ -664,14 +738,32 @@ def test_degree_day_table_periods_and_units():
     cube = DegreeDayCube.from_daily(w, [65.0])
     y = degree_day_table(cube, by="year", station_ids=["ST0"], date_from="2020-03-01", date_to="2021-02-28")
     m = degree_day_table(cube, by="month", station_ids=["ST0"], date_from="2020-03-01", date_to="2021-02-28")
-    assert y.columns == ["station_id", "period_start", "period_end", "days", "days_missing", "hdd", "cdd",
-                         "method", "base", "unit"]
+    assert y.columns == [
+        "station_id",
+        "period_start",
+        "period_end",
+        "days",
+        "days_missing",
+        "hdd",
+        "cdd",
+        "method",
+        "base",
+        "unit",
+    ]
     assert m.height == 12 and y.height == 2
-    assert m["hdd"].sum() == pytest.approx(y["hdd"].sum(), abs=1e-8)        # additivity
+    assert m["hdd"].sum() == pytest.approx(y["hdd"].sum(), abs=1e-8)  # additivity
     d = degree_day_table(cube, by="day", station_ids=["ST0"], date_from="2020-03-01", date_to="2020-03-31")
     assert d.height == 31 and d["hdd"].sum() == pytest.approx(m["hdd"][0], abs=1e-8)
-    c = degree_day_table(cube, by="month", station_ids=["ST0"], date_from="2020-03-01", date_to="2021-02-28",
-                         unit="C", base_f=64.4, kind="hdd")
+    c = degree_day_table(
+        cube,
+        by="month",
+        station_ids=["ST0"],
+        date_from="2020-03-01",
+        date_to="2021-02-28",
+        unit="C",
+        base_f=64.4,
+        kind="hdd",
+    )
     assert c["unit"][0] == "°C·day" and c["base"][0] == pytest.approx(18.0, abs=1e-12)
     assert c["cdd"].null_count() == 12
     ex = cube.at_base(["ST0"] * 12, m["period_start"], m["period_end"], np.full(12, 64.4))[0]

@@ -18,7 +18,7 @@ def test_python_example_runs():
     with contextlib.redirect_stdout(out):
         exec(compile(blocks[0], str(DOC), "exec"), ns)
     res, top, dd = ns["res"], ns["top"], ns["dd"]
-    assert res.results.height == ns["some"].height > 0        # every school screened or listed
+    assert res.results.height == ns["some"].height > 0  # every school screened or listed
     assert set(res.results["building_id"]) == set(ns["some"]["building_id"])
     assert top.columns == ["rank", "building_id", "tier", "ratio", "excess_cost"]
     assert top["rank"].to_list() == sorted(top["rank"].to_list())

@@ -23,6 +23,7 @@ GRID_F = np.arange(40.0, 75.0 + 1e-9, 0.5)
 
 # --------------------------------------------------------------------------- fixtures
 
+
 @pytest.fixture(scope="module")
 def tmy_daily_c() -> np.ndarray:
     """Greensboro NC TMY3 (pvlib/data/723170TYA.CSV): daily (max+min)/2 [degC], 365 days."""
@@ -41,8 +42,10 @@ def climate_5000(tmy_daily_c) -> np.ndarray:
     """
     t_f = tmy_daily_c * 1.8 + 32.0
     np.testing.assert_allclose(np.maximum(65.0 - t_f, 0).sum(), 3868.9, atol=0.1)  # docs/degree-days.md s.7
+
     def hdd(shift):
         return np.maximum(GRID_F[None, :] - (t_f[:, None] + shift), 0.0).sum(axis=0)
+
     lo, hi = -20.0, 5.0  # bisection on the shift
     for _ in range(60):
         mid = (lo + hi) / 2
@@ -59,8 +62,14 @@ def frame(rows: list[dict]) -> pl.DataFrame:
 
 
 def office(**kw) -> dict:
-    row = dict(building_id="OF-1", use_type="office", floor_area_ft2=50_000.0, year_built=1990,
-               stories=3, heating_fuel="natural_gas")
+    row = dict(
+        building_id="OF-1",
+        use_type="office",
+        floor_area_ft2=50_000.0,
+        year_built=1990,
+        stories=3,
+        heating_fuel="natural_gas",
+    )
     row.update(kw)
     return row
 
@@ -78,6 +87,7 @@ def linear_curve(n: int) -> np.ndarray:
 
 
 # --------------------------------------------------------------------------- physics pieces
+
 
 def test_degree_day_worked_example():
     # docs/factors.md s.10 item 9 (by hand): UA 500 Btu/(h F), 5,000 F-day -> 24*500*5000 = 60.0 MMBtu delivered
@@ -163,10 +173,22 @@ def test_geometry_by_hand():
 
 
 def test_era_bins():
-    got = np.asarray(ev.ERAS, dtype=object)[ev._era_index([1890, 1949, 1950, 1979, 1980, 1999, 2000, 2011, 2012,
-                                                               2024, np.nan])]
-    assert list(got) == ["pre-1950", "pre-1950", "1950-1979", "1950-1979", "1980-1999", "1980-1999",
-                         "2000-2011", "2000-2011", "2012+", "2012+", "unknown"]
+    got = np.asarray(ev.ERAS, dtype=object)[
+        ev._era_index([1890, 1949, 1950, 1979, 1980, 1999, 2000, 2011, 2012, 2024, np.nan])
+    ]
+    assert list(got) == [
+        "pre-1950",
+        "pre-1950",
+        "1950-1979",
+        "1950-1979",
+        "1980-1999",
+        "1980-1999",
+        "2000-2011",
+        "2000-2011",
+        "2012+",
+        "2012+",
+        "unknown",
+    ]
 
 
 def test_effective_setpoint_time_weighted():
@@ -179,9 +201,15 @@ def test_effective_setpoint_time_weighted():
 
 # --------------------------------------------------------------------------- data files
 
+
 def test_every_default_resolves_with_a_range_and_source():
-    for name in ("envelope_defaults", "use_type_defaults", "efficiency_defaults", "modified_dd_factor",
-                 "envelope_constants"):
+    for name in (
+        "envelope_defaults",
+        "use_type_defaults",
+        "efficiency_defaults",
+        "modified_dd_factor",
+        "envelope_constants",
+    ):
         df = refdata.load(name)  # refuses rows without a source
         assert df.height > 0
     resolved = ev._resolved_defaults()
@@ -206,17 +234,38 @@ def test_modified_dd_curve_marked_low_confidence():
 
 # --------------------------------------------------------------------------- estimate_envelope
 
+
 def test_outputs_required_columns_and_order():
     rows = [office(building_id=f"B{i}", floor_area_ft2=10_000.0 * (i + 1)) for i in range(5)][::-1]
     env = ev.estimate_envelope(frame(rows))
-    for col in ("building_id", "era", "footprint_ft2", "perimeter_ft", "wall_area_ft2", "window_area_ft2",
-                "roof_area_ft2", "volume_ft3", "ua_walls", "ua_windows", "ua_roof", "ua_ground",
-                "ua_infiltration", "ua_ventilation", "ua_total", "balance_point_f", "setpoint_effective_f",
-                "gains_btu_h", "efficiency", "envelope_source", "assumptions"):
+    for col in (
+        "building_id",
+        "era",
+        "footprint_ft2",
+        "perimeter_ft",
+        "wall_area_ft2",
+        "window_area_ft2",
+        "roof_area_ft2",
+        "volume_ft3",
+        "ua_walls",
+        "ua_windows",
+        "ua_roof",
+        "ua_ground",
+        "ua_infiltration",
+        "ua_ventilation",
+        "ua_total",
+        "balance_point_f",
+        "setpoint_effective_f",
+        "gains_btu_h",
+        "efficiency",
+        "envelope_source",
+        "assumptions",
+    ):
         assert col in env.columns, col
     assert env["building_id"].to_list() == [r["building_id"] for r in rows]
-    parts = env.select(pl.sum_horizontal("ua_walls", "ua_windows", "ua_roof", "ua_ground",
-                                         "ua_infiltration", "ua_ventilation")).to_series()
+    parts = env.select(
+        pl.sum_horizontal("ua_walls", "ua_windows", "ua_roof", "ua_ground", "ua_infiltration", "ua_ventilation")
+    ).to_series()
     np.testing.assert_allclose(parts.to_numpy(), env["ua_total"].to_numpy(), rtol=1e-12)
     assert env["envelope_source"].to_list() == ["estimated"] * 5
     a = env["assumptions"][0].to_list()
@@ -225,19 +274,35 @@ def test_outputs_required_columns_and_order():
 
 
 def test_optional_columns_may_be_absent():
-    env = ev.estimate_envelope(pl.DataFrame({
-        "building_id": ["X"], "use_type": ["school"], "floor_area_ft2": [20_000], "heating_fuel": ["propane"]}))
+    env = ev.estimate_envelope(
+        pl.DataFrame(
+            {"building_id": ["X"], "use_type": ["school"], "floor_area_ft2": [20_000], "heating_fuel": ["propane"]}
+        )
+    )
     assert env["era"].item() == "unknown"
     assert env["ua_total"].item() > 0
 
 
 def test_given_inputs_override_defaults(climate_5000):
     base = office()
-    audit = office(building_id="OF-2", wall_u_btu_h_ft2_f=0.05, window_u_btu_h_ft2_f=0.30,
-                   roof_u_btu_h_ft2_f=0.03, window_fraction=0.4, ach=0.15, outdoor_air_cfm_ft2=0.1,
-                   heat_recovery=0.6, setpoint_f=68.0, setback_f=0.0, setback_hours=0.0,
-                   internal_gains_w_ft2=1.1, wall_area_ft2=30_000.0, window_area_ft2=9_000.0,
-                   roof_area_ft2=16_000.0, heating_efficiency=0.92)
+    audit = office(
+        building_id="OF-2",
+        wall_u_btu_h_ft2_f=0.05,
+        window_u_btu_h_ft2_f=0.30,
+        roof_u_btu_h_ft2_f=0.03,
+        window_fraction=0.4,
+        ach=0.15,
+        outdoor_air_cfm_ft2=0.1,
+        heat_recovery=0.6,
+        setpoint_f=68.0,
+        setback_f=0.0,
+        setback_hours=0.0,
+        internal_gains_w_ft2=1.1,
+        wall_area_ft2=30_000.0,
+        window_area_ft2=9_000.0,
+        roof_area_ft2=16_000.0,
+        heating_efficiency=0.92,
+    )
     env = ev.estimate_envelope(frame([base, audit]))
     r = env.row(1, named=True)
     assert r["ua_walls"] == pytest.approx(0.05 * (30_000.0 - 9_000.0), rel=1e-12)  # U x opaque area (by hand)
@@ -273,9 +338,13 @@ def test_given_ua_total_scales_parts(climate_5000):
 
 def test_given_balance_point_and_heat_pump_cop():
     curve = linear_curve(3)
-    b = frame([office(balance_point_f=55.0, heating_fuel="electricity"),
-               office(building_id="HP", balance_point_f=55.0, heating_fuel="electricity", heating_efficiency=3.0),
-               office(building_id="LOW", balance_point_f=35.0)])
+    b = frame(
+        [
+            office(balance_point_f=55.0, heating_fuel="electricity"),
+            office(building_id="HP", balance_point_f=55.0, heating_fuel="electricity", heating_efficiency=3.0),
+            office(building_id="LOW", balance_point_f=35.0),
+        ]
+    )
     env = ev.estimate_envelope(b)
     res = ev.expected_heating(env, GRID_F, curve)
     assert env["balance_point_f"].to_list()[:2] == [55.0, 55.0]
@@ -295,7 +364,8 @@ def test_fixed_base_and_modified_methods():
     assert r["hdd_fixed_base"] == pytest.approx(3_500.0)
     assert r["expected_fixed_base_kbtu"] == pytest.approx(24 * 10_000.0 * 3_500.0 / 0.8 / 1000.0, rel=1e-12)
     assert r["expected_modified_kbtu"] == pytest.approx(
-        r["expected_fixed_base_kbtu"] * float(ev.modified_dd_factor(3_500.0)), rel=1e-12)
+        r["expected_fixed_base_kbtu"] * float(ev.modified_dd_factor(3_500.0)), rel=1e-12
+    )
     # an explicit HDD65 replaces the interpolated one
     res2 = ev.expected_heating(env, GRID_F, curve, hdd_fixed_base=np.array([4_000.0]))
     assert res2["expected_fixed_base_kbtu"][0] == pytest.approx(24 * 10_000.0 * 4_000.0 / 0.8 / 1000.0)
@@ -303,9 +373,9 @@ def test_fixed_base_and_modified_methods():
 
 # --------------------------------------------------------------------------- the band
 
+
 def test_known_inputs_collapse_the_band(climate_5000):
-    env, res = run([office(ua_total_btu_h_f=12_000.0, balance_point_f=55.0, heating_efficiency=0.85)],
-                   climate_5000)
+    env, res = run([office(ua_total_btu_h_f=12_000.0, balance_point_f=55.0, heating_efficiency=0.85)], climate_5000)
     r = res.row(0, named=True)
     assert r["expected_low_kbtu"] == pytest.approx(r["expected_point_kbtu"], rel=1e-12)
     assert r["expected_heating_kbtu"] == pytest.approx(r["expected_point_kbtu"], rel=1e-12)
@@ -315,9 +385,20 @@ def test_known_inputs_collapse_the_band(climate_5000):
 
 
 def test_audit_data_narrows_the_band(climate_5000):
-    audit = dict(wall_u_btu_h_ft2_f=0.09, window_u_btu_h_ft2_f=0.6, roof_u_btu_h_ft2_f=0.05, window_fraction=0.3,
-                 ach=0.4, outdoor_air_cfm_ft2=0.085, heat_recovery=0.0, setpoint_f=70.0, setback_f=7.0,
-                 setback_hours=14.0, internal_gains_w_ft2=0.9, heating_efficiency=0.78)
+    audit = dict(
+        wall_u_btu_h_ft2_f=0.09,
+        window_u_btu_h_ft2_f=0.6,
+        roof_u_btu_h_ft2_f=0.05,
+        window_fraction=0.3,
+        ach=0.4,
+        outdoor_air_cfm_ft2=0.085,
+        heat_recovery=0.0,
+        setpoint_f=70.0,
+        setback_f=7.0,
+        setback_hours=14.0,
+        internal_gains_w_ft2=0.9,
+        heating_efficiency=0.78,
+    )
     _, res = run([office(), office(building_id="OF-A", **audit)], climate_5000)
     width = ((res["expected_high_kbtu"] - res["expected_low_kbtu"]) / res["expected_heating_kbtu"]).to_list()
     # issue 4: inputs given in buildings.csv are known (no spread); with the envelope, schedule and
@@ -327,8 +408,16 @@ def test_audit_data_narrows_the_band(climate_5000):
 
 
 def test_band_deterministic_and_portfolio_independent(climate_5000):
-    rows = [office(building_id=f"B{i}", floor_area_ft2=5_000.0 * (i + 1), year_built=1900 + 12 * i,
-                   use_type=ev.USE_TYPES[i % 8], stories=None) for i in range(10)]
+    rows = [
+        office(
+            building_id=f"B{i}",
+            floor_area_ft2=5_000.0 * (i + 1),
+            year_built=1900 + 12 * i,
+            use_type=ev.USE_TYPES[i % 8],
+            stories=None,
+        )
+        for i in range(10)
+    ]
     _, r1 = run(rows, climate_5000)
     _, r2 = run(rows, climate_5000)
     assert r1.equals(r2)  # fixed seed
@@ -344,12 +433,24 @@ def test_band_deterministic_and_portfolio_independent(climate_5000):
 
 
 @settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
-@given(st.lists(st.tuples(st.sampled_from(ev.USE_TYPES), st.sampled_from(ev.FUELS),
-                          st.one_of(st.none(), st.integers(1850, 2025)), st.floats(500, 500_000),
-                          st.one_of(st.none(), st.integers(1, 30))), min_size=1, max_size=12))
+@given(
+    st.lists(
+        st.tuples(
+            st.sampled_from(ev.USE_TYPES),
+            st.sampled_from(ev.FUELS),
+            st.one_of(st.none(), st.integers(1850, 2025)),
+            st.floats(500, 500_000),
+            st.one_of(st.none(), st.integers(1, 30)),
+        ),
+        min_size=1,
+        max_size=12,
+    )
+)
 def test_percentiles_ordered(climate_5000, specs):
-    rows = [dict(building_id=f"H{i}", use_type=u, heating_fuel=f, year_built=y, floor_area_ft2=a, stories=s)
-            for i, (u, f, y, a, s) in enumerate(specs)]
+    rows = [
+        dict(building_id=f"H{i}", use_type=u, heating_fuel=f, year_built=y, floor_area_ft2=a, stories=s)
+        for i, (u, f, y, a, s) in enumerate(specs)
+    ]
     _, res = run(rows, climate_5000, n_draws=64)
     lo, mid, hi = (res[c].to_numpy() for c in ("expected_low_kbtu", "expected_heating_kbtu", "expected_high_kbtu"))
     assert np.all(lo <= mid) and np.all(mid <= hi) and np.all(lo > 0)
@@ -357,29 +458,51 @@ def test_percentiles_ordered(climate_5000, specs):
 
 # --------------------------------------------------------------------------- against the outside world
 
+
 def test_masonry_walkup_versus_new_office(climate_5000):
     # docs/factors.md s.4: 9 in masonry 0.30-0.40 vs IECC walls 0.045-0.104; single glazing 0.88-1.3 vs 0.28-0.45;
     # s.3: pre-1950 ACH 0.8-1.5 vs 2012+ 0.15-0.25. A factor of 2 in UA per ft2 is the least these imply.
-    rows = [dict(building_id="WALKUP", use_type="multifamily", floor_area_ft2=20_000.0, year_built=1924, stories=4,
-                 heating_fuel="natural_gas"),
-            dict(building_id="NEW", use_type="office", floor_area_ft2=20_000.0, year_built=2015, stories=4,
-                 heating_fuel="natural_gas")]
+    rows = [
+        dict(
+            building_id="WALKUP",
+            use_type="multifamily",
+            floor_area_ft2=20_000.0,
+            year_built=1924,
+            stories=4,
+            heating_fuel="natural_gas",
+        ),
+        dict(
+            building_id="NEW",
+            use_type="office",
+            floor_area_ft2=20_000.0,
+            year_built=2015,
+            stories=4,
+            heating_fuel="natural_gas",
+        ),
+    ]
     env, res = run(rows, climate_5000)
     ua_ft2 = (env["ua_total"] / env["floor_area_ft2"]).to_list()
     assert ua_ft2[0] > 2.0 * ua_ft2[1]
     assert res["expected_low_kbtu"][0] > res["expected_high_kbtu"][1]  # the bands do not overlap
 
 
-@pytest.mark.parametrize("use, cbecs_kbtu_ft2", [
-    ("office", 32.8),  # CBECS 2003 E1A/C1A office space heating 400 TBtu / 12,208 Msf (docs/factors.md s.7, s.10 item 11)
-    ("school", 39.4),  # CBECS 2003 E1A/C1A education space heating (docs/factors.md s.7)
-])
+@pytest.mark.parametrize(
+    "use, cbecs_kbtu_ft2",
+    [
+        (
+            "office",
+            32.8,
+        ),  # CBECS 2003 E1A/C1A office space heating 400 TBtu / 12,208 Msf (docs/factors.md s.7, s.10 item 11)
+        ("school", 39.4),  # CBECS 2003 E1A/C1A education space heating (docs/factors.md s.7)
+    ],
+)
 def test_typical_building_inside_survey_range(climate_5000, use, cbecs_kbtu_ft2):
     # A building of unknown age, 50,000 ft2, in a climate of 5,000 F-day (the 'about 5,000' of issue 4).
     # Tolerance 25 % on P50: CBECS is a stock mean over climates, sizes, ages and fuels (incl. electric
     # heat), with survey sampling error; and the published value must lie inside the P10-P90 band.
-    _, res = run([dict(building_id="T", use_type=use, floor_area_ft2=50_000.0, heating_fuel="natural_gas")],
-                 climate_5000)
+    _, res = run(
+        [dict(building_id="T", use_type=use, floor_area_ft2=50_000.0, heating_fuel="natural_gas")], climate_5000
+    )
     r = res.row(0, named=True)
     p50 = r["expected_heating_kbtu"] / 50_000.0
     assert p50 == pytest.approx(cbecs_kbtu_ft2, rel=0.25)
@@ -395,21 +518,45 @@ def test_same_building_in_si_and_ip(tmy_daily_c):
     answer (converted back to kWh with pint) is compared with an independent SI calculation
     (0.335 Wh/(m3 K) air constant, W/K, K-day, Q = 0.024 H DD / eta in kWh; docs/degree-days.md s.5).
     """
-    si = dict(area_m2=4_000.0, stories=3, wall_u=0.5, roof_u=0.25, window_u=2.8, wwr=0.3, ach=0.4,
-              oa_l_s_m2=0.4, recovery=0.5, setpoint_c=21.0, setback_k=4.0, setback_h=12.0, gains_w_m2=8.0,
-              eta=0.85)
+    si = dict(
+        area_m2=4_000.0,
+        stories=3,
+        wall_u=0.5,
+        roof_u=0.25,
+        window_u=2.8,
+        wwr=0.3,
+        ach=0.4,
+        oa_l_s_m2=0.4,
+        recovery=0.5,
+        setpoint_c=21.0,
+        setback_k=4.0,
+        setback_h=12.0,
+        gains_w_m2=8.0,
+        eta=0.85,
+    )
     grid_c = np.arange(4.0, 24.0 + 1e-9, 0.5)
     hdd_k = np.maximum(grid_c[None, :] - tmy_daily_c[:, None], 0.0).sum(axis=0)  # K-day per base
     u_conv = Q_(1.0, "W/(m**2*K)").to("Btu_it/(hour*ft**2*delta_degF)").magnitude
-    row = dict(building_id="SI-1", use_type="office", year_built=1990, heating_fuel="natural_gas",
-               floor_area_ft2=Q_(si["area_m2"], "m**2").to("ft**2").magnitude, stories=si["stories"],
-               wall_u_btu_h_ft2_f=si["wall_u"] * u_conv, roof_u_btu_h_ft2_f=si["roof_u"] * u_conv,
-               window_u_btu_h_ft2_f=si["window_u"] * u_conv, window_fraction=si["wwr"], ach=si["ach"],
-               outdoor_air_cfm_ft2=Q_(si["oa_l_s_m2"], "L/s/m**2").to("ft**3/minute/ft**2").magnitude,
-               heat_recovery=si["recovery"], setpoint_f=Q_(si["setpoint_c"], "degC").to("degF").magnitude,
-               setback_f=Q_(si["setback_k"], "K").to("delta_degF").magnitude, setback_hours=si["setback_h"],
-               internal_gains_w_ft2=Q_(si["gains_w_m2"], "W/m**2").to("W/ft**2").magnitude,
-               heating_efficiency=si["eta"])
+    row = dict(
+        building_id="SI-1",
+        use_type="office",
+        year_built=1990,
+        heating_fuel="natural_gas",
+        floor_area_ft2=Q_(si["area_m2"], "m**2").to("ft**2").magnitude,
+        stories=si["stories"],
+        wall_u_btu_h_ft2_f=si["wall_u"] * u_conv,
+        roof_u_btu_h_ft2_f=si["roof_u"] * u_conv,
+        window_u_btu_h_ft2_f=si["window_u"] * u_conv,
+        window_fraction=si["wwr"],
+        ach=si["ach"],
+        outdoor_air_cfm_ft2=Q_(si["oa_l_s_m2"], "L/s/m**2").to("ft**3/minute/ft**2").magnitude,
+        heat_recovery=si["recovery"],
+        setpoint_f=Q_(si["setpoint_c"], "degC").to("degF").magnitude,
+        setback_f=Q_(si["setback_k"], "K").to("delta_degF").magnitude,
+        setback_hours=si["setback_h"],
+        internal_gains_w_ft2=Q_(si["gains_w_m2"], "W/m**2").to("W/ft**2").magnitude,
+        heating_efficiency=si["eta"],
+    )
     grid_f = Q_(grid_c, "degC").to("degF").magnitude
     curve_f = Q_(hdd_k, "K").to("delta_degF").magnitude[None, :]
     env = ev.estimate_envelope(frame([row]))
@@ -427,9 +574,14 @@ def test_same_building_in_si_and_ip(tmy_daily_c):
     vol = si["area_m2"] * h_m
     air = 0.335  # Wh/(m3 K), issue 4 / docs/factors.md s.3
     air_flow = 1.206  # W/K per L/s = 0.335 x 3.6 (computed)
-    h_tot = (si["wall_u"] * (wall - win) + si["window_u"] * win + si["roof_u"] * fp + f_si * per
-             + air * si["ach"] * vol
-             + air_flow * si["oa_l_s_m2"] * si["area_m2"] * (1 - si["recovery"]) * e["occupied_fraction"])
+    h_tot = (
+        si["wall_u"] * (wall - win)
+        + si["window_u"] * win
+        + si["roof_u"] * fp
+        + f_si * per
+        + air * si["ach"] * vol
+        + air_flow * si["oa_l_s_m2"] * si["area_m2"] * (1 - si["recovery"]) * e["occupied_fraction"]
+    )
     gains_w = si["gains_w_m2"] * si["area_m2"] + solar_si * win
     t_eff = si["setpoint_c"] - si["setback_k"] * si["setback_h"] / 24 * e["setback_realization"]
     t_bal = t_eff - gains_w / h_tot
@@ -447,17 +599,21 @@ def test_same_building_in_si_and_ip(tmy_daily_c):
 
 # --------------------------------------------------------------------------- bad input
 
-@pytest.mark.parametrize("change, message", [
-    (dict(use_type="castle"), r"use_type must be one of office, .*; got 'castle' for building 'OF-1'"),
-    (dict(heating_fuel="coal"), r"heating_fuel must be one of .*; got 'coal' for building 'OF-1'"),
-    (dict(floor_area_ft2=0.0), r"floor_area_ft2 must be within \(0, 1e\+08\]; got 0\.0 for building 'OF-1'"),
-    (dict(stories=0), r"stories must be within \[1, 200\]; got 0\.0 for building 'OF-1'"),
-    (dict(window_fraction=1.2), r"window_fraction must be within \[0, 0\.95\]; got 1\.2"),
-    (dict(heat_recovery=-0.1), r"heat_recovery must be within \[0, 0\.95\]; got -0\.1"),
-    (dict(heating_efficiency=1.4), r"heating_efficiency above 1 .* only for heating_fuel electricity; got 1\.4"),
-    (dict(year_built=1700), r"year_built must be within 1800-2100; got 1700\.0"),
-    (dict(wall_area_ft2=1000.0, window_area_ft2=2000.0), r"window_area_ft2 must not exceed wall_area_ft2"),
-])
+
+@pytest.mark.parametrize(
+    "change, message",
+    [
+        (dict(use_type="castle"), r"use_type must be one of office, .*; got 'castle' for building 'OF-1'"),
+        (dict(heating_fuel="coal"), r"heating_fuel must be one of .*; got 'coal' for building 'OF-1'"),
+        (dict(floor_area_ft2=0.0), r"floor_area_ft2 must be within \(0, 1e\+08\]; got 0\.0 for building 'OF-1'"),
+        (dict(stories=0), r"stories must be within \[1, 200\]; got 0\.0 for building 'OF-1'"),
+        (dict(window_fraction=1.2), r"window_fraction must be within \[0, 0\.95\]; got 1\.2"),
+        (dict(heat_recovery=-0.1), r"heat_recovery must be within \[0, 0\.95\]; got -0\.1"),
+        (dict(heating_efficiency=1.4), r"heating_efficiency above 1 .* only for heating_fuel electricity; got 1\.4"),
+        (dict(year_built=1700), r"year_built must be within 1800-2100; got 1700\.0"),
+        (dict(wall_area_ft2=1000.0, window_area_ft2=2000.0), r"window_area_ft2 must not exceed wall_area_ft2"),
+    ],
+)
 def test_bad_buildings_raise(change, message):
     with pytest.raises(ValueError, match=message):
         ev.estimate_envelope(frame([office(**change)]))

@@ -74,6 +74,7 @@ def _one_error_line(res, pattern: str) -> str:
 
 # ----------------------------------------------------------------------------- full disk
 
+
 def test_disk_full_while_writing_the_csv_files(site, monkeypatch):
     monkeypatch.setattr(pl.DataFrame, "write_csv", _no_space)
     res = site.run()
@@ -89,6 +90,7 @@ def test_disk_full_while_writing_summary_json(site, monkeypatch):
         if self.name == "summary.json":
             _no_space()
         return real(self, *a, **k)
+
     monkeypatch.setattr(Path, "write_text", full)
     res = site.run()
     assert res.exit_code == 1, res.stderr
@@ -106,12 +108,14 @@ def test_disk_full_is_reported_as_an_output_error_not_a_crash(site, monkeypatch)
 
 # ----------------------------------------------------------------------------- read-only output folder
 
+
 def test_output_folder_not_writable_access_check(site, monkeypatch):
     """``os.access`` says the folder is not writable (a read-only mount): exit 1 before any work."""
     real = os.access
     parent = str(site.out.parent)
-    monkeypatch.setattr(runner.os, "access", lambda p, mode, *a, **k: False if str(p) == parent
-                        else real(p, mode, *a, **k))
+    monkeypatch.setattr(
+        runner.os, "access", lambda p, mode, *a, **k: False if str(p) == parent else real(p, mode, *a, **k)
+    )
     res = site.run()
     assert res.exit_code == 1, res.stderr
     _one_error_line(res, f"{parent}: output folder is not writable; earlier outputs are untouched")
@@ -120,8 +124,10 @@ def test_output_folder_not_writable_access_check(site, monkeypatch):
 
 def test_output_folder_refuses_the_temporary_folder(site, monkeypatch):
     """The folder passes ``os.access`` but creating the temporary folder fails (EACCES)."""
+
     def denied(*a, **k):
         raise PermissionError(errno.EACCES, os.strerror(errno.EACCES))
+
     monkeypatch.setattr(runner.tempfile, "mkdtemp", denied)
     res = site.run()
     assert res.exit_code == 1, res.stderr
@@ -138,6 +144,7 @@ def _fail_renames(monkeypatch, site, err: int, *, only_second: bool = False):
         if src.parent == site.out.parent and (src.name.startswith(".q.tmp-") or not only_second):
             raise OSError(err, os.strerror(err))
         return real(src, dst, *a, **k)
+
     monkeypatch.setattr(runner.os, "replace", fake)
 
 
@@ -171,8 +178,9 @@ HOLDER = textwrap.dedent("""
 
 
 def test_database_locked_by_another_process(site):
-    proc = subprocess.Popen([sys.executable, "-c", HOLDER, str(site.db)], stdin=subprocess.PIPE,
-                            stdout=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(
+        [sys.executable, "-c", HOLDER, str(site.db)], stdin=subprocess.PIPE, stdout=subprocess.PIPE, text=True
+    )
     try:
         assert proc.stdout.readline().strip() == "ready"
         res = site.run("--force")
@@ -182,14 +190,14 @@ def test_database_locked_by_another_process(site):
     finally:
         proc.stdin.close()
         proc.wait(timeout=30)
-    assert site.run("--force").exit_code == 0      # released: the next run goes ahead
+    assert site.run("--force").exit_code == 0  # released: the next run goes ahead
 
 
 @pytest.mark.parametrize("damage", ["random", "truncated", "zeroed_header"])
 def test_corrupt_database_file(site, damage):
     raw = site.db.read_bytes()
     if damage == "random":
-        data = os.urandom(len(raw) or 4096)      # random bytes are fine here: any content must be refused
+        data = os.urandom(len(raw) or 4096)  # random bytes are fine here: any content must be refused
     elif damage == "truncated":
         data = raw[: len(raw) // 3]
     else:
@@ -200,14 +208,16 @@ def test_corrupt_database_file(site, damage):
     _one_error_line(res, f"{site.db}")
     assert "internal error" not in res.stderr, res.stderr
     site.assert_intact()
-    assert site.db.read_bytes() == data          # the damaged file is left for the user to inspect
+    assert site.db.read_bytes() == data  # the damaged file is left for the user to inspect
 
 
 # ----------------------------------------------------------------------------- unexpected exceptions
 
+
 def test_unexpected_exception_prints_one_line_and_logs_the_traceback(site, monkeypatch):
     def boom(*a, **k):
         raise RuntimeError("planted failure in screen_frames")
+
     monkeypatch.setattr(pipeline, "screen_frames", boom)
     res = site.run("--force")
     assert res.exit_code == 1
@@ -223,15 +233,18 @@ def test_unexpected_exception_prints_one_line_and_logs_the_traceback(site, monke
 
 def test_main_catches_what_escapes_the_app(monkeypatch, capsys):
     """``cli.main`` is the last line of defence: even an exception outside a command is one line."""
+
     def broken_app():
         raise KeyError("outside any command")
+
     monkeypatch.setattr(climod, "app", broken_app)
     with pytest.raises(SystemExit) as ei:
         climod.main()
     assert ei.value.code == 1
     err = capsys.readouterr().err.splitlines()
-    assert len(err) == 1 and err[0].startswith("ddscreen: internal error: KeyError: 'outside any command'; "
-                                               "details in "), err
+    assert len(err) == 1 and err[0].startswith(
+        "ddscreen: internal error: KeyError: 'outside any command'; details in "
+    ), err
     log = Path(err[0].split("; details in ", 1)[1])
     assert "KeyError: 'outside any command'" in log.read_text(encoding="utf-8")
     log.unlink()

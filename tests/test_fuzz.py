@@ -39,19 +39,32 @@ from screening.store import Store
 from .conftest import portfolio_text
 
 KINDS = ("buildings", "readings", "weather")
-FUZZ = dict(derandomize=True, deadline=None, database=None,
-            suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large,
-                                   HealthCheck.function_scoped_fixture, HealthCheck.filter_too_much])
-COUNTS: dict[str, int] = {}          # examples run per test (reported in docs/reliability.md "Reliability")
+FUZZ = dict(
+    derandomize=True,
+    deadline=None,
+    database=None,
+    suppress_health_check=[
+        HealthCheck.too_slow,
+        HealthCheck.data_too_large,
+        HealthCheck.function_scoped_fixture,
+        HealthCheck.filter_too_much,
+    ],
+)
+COUNTS: dict[str, int] = {}  # examples run per test (reported in docs/reliability.md "Reliability")
 OUTCOMES = {"structural error": 0, "read": 0, "rows accepted": 0, "rows rejected": 0}
-TARGET = {}                          # max_examples per test
-SCALE = float(__import__("os").environ.get("DDSCREEN_FUZZ_SCALE", "1"))   # >1 for a longer local run
+TARGET = {}  # max_examples per test
+SCALE = float(__import__("os").environ.get("DDSCREEN_FUZZ_SCALE", "1"))  # >1 for a longer local run
 
 SPEC = {
     "buildings": [(c, kind, req) for c, _, kind, req, _ in BUILDING_COLUMNS],
     "readings": [(c, kind, req) for c, _, kind, req, _ in READING_COLUMNS],
-    "weather": [("station_id", "text", True), ("date", "date", True), ("t_min", "temp", False),
-                ("t_max", "temp", False), ("t_mean", "temp", False)],
+    "weather": [
+        ("station_id", "text", True),
+        ("date", "date", True),
+        ("t_min", "temp", False),
+        ("t_max", "temp", False),
+        ("t_mean", "temp", False),
+    ],
 }
 REQUIRED = {k: [c for c, _, req in v if req] for k, v in SPEC.items()}
 DUP_NOTICE = re.compile(r"(\d+) exact duplicate \w+ row\(s\) kept once|dropped (\d+) duplicate row\(s\)")
@@ -63,10 +76,34 @@ CELL_CHARS = st.characters(blacklist_categories=("Cs", "Cc"), whitelist_characte
 JUNK = st.text(CELL_CHARS, max_size=12)
 NUMBERS = st.one_of(
     st.floats(allow_nan=True, allow_infinity=True).map(repr),
-    st.integers(-10**15, 10**15).map(str),
-    st.sampled_from(["", " ", "0", "-0", "1e400", "-1e-400", "1,5", "1.234,5", "+3", "nan", "NaN", "inf",
-                     "-Infinity", "12k", "١٢", "0x10", "1_000", " 42 ", "=1+1", "3.0", "2.5"]),
-    st.floats(-50, 1e5, allow_nan=False).map(lambda x: f"{x:.2f}"))
+    st.integers(-(10**15), 10**15).map(str),
+    st.sampled_from(
+        [
+            "",
+            " ",
+            "0",
+            "-0",
+            "1e400",
+            "-1e-400",
+            "1,5",
+            "1.234,5",
+            "+3",
+            "nan",
+            "NaN",
+            "inf",
+            "-Infinity",
+            "12k",
+            "١٢",
+            "0x10",
+            "1_000",
+            " 42 ",
+            "=1+1",
+            "3.0",
+            "2.5",
+        ]
+    ),
+    st.floats(-50, 1e5, allow_nan=False).map(lambda x: f"{x:.2f}"),
+)
 DATES = st.one_of(
     st.dates().map(str),
     st.dates().map(lambda d: d.strftime("%d/%m/%Y")),
@@ -74,10 +111,16 @@ DATES = st.one_of(
     st.dates().map(lambda d: d.strftime("%Y/%m/%d")),
     st.integers(0, 100_000).map(str),
     st.sampled_from(["2024-02-30", "2024-13-01", "2024-01-01T00:00", "", "yesterday", "1/2/3", "31.12.2024"]),
-    st.dates(min_value=__import__("datetime").date(2022, 1, 1),
-             max_value=__import__("datetime").date(2025, 1, 1)).map(str))
-IDS = st.one_of(st.sampled_from(["B01", "B02", "b01", "B-7", "x.y_z", "../etc", "a/b", "CON", "", " B01 ",
-                                 "B" * 64, "B" * 65, "<b>", "=cmd"]), JUNK)
+    st.dates(min_value=__import__("datetime").date(2022, 1, 1), max_value=__import__("datetime").date(2025, 1, 1)).map(
+        str
+    ),
+)
+IDS = st.one_of(
+    st.sampled_from(
+        ["B01", "B02", "b01", "B-7", "x.y_z", "../etc", "a/b", "CON", "", " B01 ", "B" * 64, "B" * 65, "<b>", "=cmd"]
+    ),
+    JUNK,
+)
 CHOICES = {"use_type": USE_TYPES, "heating_fuel": FUELS, "fuel": FUELS}
 UNITS = st.sampled_from(["therm", "kWh", "gal", "ccf", "MMBtu", "furlong", "", "THERM"])
 BOOLS = st.sampled_from(["true", "false", "E", "A", "yes", "no", "1", "0", "", "maybe"])
@@ -135,9 +178,11 @@ def _check_frame(kind: str, ld) -> None:
     """Accepted rows carry every required value, typed; numbers finite."""
     df = ld.df
     assert df["_line"].null_count() == 0 and df["_line"].is_unique().all()
-    req = {"buildings": ["building_id", "name", "station_id", "use_type", "floor_area_ft2", "heating_fuel"],
-           "readings": ["building_id", "fuel", "period_start", "period_end", "quantity", "unit"],
-           "weather": ["station_id", "date"]}[kind]
+    req = {
+        "buildings": ["building_id", "name", "station_id", "use_type", "floor_area_ft2", "heating_fuel"],
+        "readings": ["building_id", "fuel", "period_start", "period_end", "quantity", "unit"],
+        "weather": ["station_id", "date"],
+    }[kind]
     for c in req:
         assert df[c].null_count() == 0, (kind, c)
     for c, dt in df.schema.items():
@@ -160,8 +205,15 @@ def _account(ld, record_lines: list[int], blanks: int) -> None:
     assert accepted | rejected <= set(record_lines), sorted((accepted | rejected) - set(record_lines))[:5]
     dups = sum(int(a or b) for n in ld.notices for a, b in DUP_NOTICE.findall(n))
     hdrs = sum(int(x) for n in ld.notices for x in HDR_NOTICE.findall(n))
-    assert len(accepted) + len(rejected) + blanks + hdrs + dups == len(record_lines), \
-        (len(accepted), len(rejected), blanks, hdrs, dups, len(record_lines), ld.notices)
+    assert len(accepted) + len(rejected) + blanks + hdrs + dups == len(record_lines), (
+        len(accepted),
+        len(rejected),
+        blanks,
+        hdrs,
+        dups,
+        len(record_lines),
+        ld.notices,
+    )
 
 
 @pytest.fixture(scope="module")
@@ -171,13 +223,37 @@ def work(tmp_path_factory) -> Path:
 
 # ----------------------------------------------------------------------------- random bytes
 
+
 def test_random_bytes(work):
-    @given(kind=st.sampled_from(KINDS), data=st.one_of(
-        st.binary(max_size=600),
-        st.binary(max_size=300).map(lambda b: b"building_id,name,station_id\n" + b),
-        st.binary(max_size=300).map(lambda b: b"\xef\xbb\xbf" + b),
-        st.lists(st.sampled_from([b",", b";", b"\t", b'"', b"\n", b"\r", b"\r\n", b"a", b"1", b"\xe9", b"\x81",
-                                  b"\xc3", b"\x00", b" "]), max_size=200).map(b"".join)))
+    @given(
+        kind=st.sampled_from(KINDS),
+        data=st.one_of(
+            st.binary(max_size=600),
+            st.binary(max_size=300).map(lambda b: b"building_id,name,station_id\n" + b),
+            st.binary(max_size=300).map(lambda b: b"\xef\xbb\xbf" + b),
+            st.lists(
+                st.sampled_from(
+                    [
+                        b",",
+                        b";",
+                        b"\t",
+                        b'"',
+                        b"\n",
+                        b"\r",
+                        b"\r\n",
+                        b"a",
+                        b"1",
+                        b"\xe9",
+                        b"\x81",
+                        b"\xc3",
+                        b"\x00",
+                        b" ",
+                    ]
+                ),
+                max_size=200,
+            ).map(b"".join),
+        ),
+    )
     def inner(kind, data):
         _count("random_bytes")
         p = work / f"bytes_{kind}.csv"
@@ -185,21 +261,28 @@ def test_random_bytes(work):
         ld = _read(kind, p, ReadOptions())
         if ld is not None:
             _check_frame(kind, ld)
+
     _run("random_bytes", inner, 6000)
 
 
 # ----------------------------------------------------------------------------- CSV-like text
 
-CSVISH = st.lists(st.sampled_from(list(",;\t\"\n\r ab1.-/:éΩ\ufeff") + ["\r\n", "2024-01-05", "B01", "12.5"]),
-                  max_size=150).map("".join)
+CSVISH = st.lists(
+    st.sampled_from(list(',;\t"\n\r ab1.-/:éΩ\ufeff') + ["\r\n", "2024-01-05", "B01", "12.5"]), max_size=150
+).map("".join)
 
 
 def test_random_csvish_text(work):
     """A valid header (random order) then random CSV-like text. Without quote characters the
     records are the physical lines, so the count is exact; with quotes, every accepted or
     rejected line is a line of the file and no line is both."""
-    @given(kind=st.sampled_from(KINDS), order=st.randoms(use_true_random=False), body=CSVISH,
-           delim=st.sampled_from([",", ";", "\t"]))
+
+    @given(
+        kind=st.sampled_from(KINDS),
+        order=st.randoms(use_true_random=False),
+        body=CSVISH,
+        delim=st.sampled_from([",", ";", "\t"]),
+    )
     def inner(kind, order, body, delim):
         _count("csvish_text")
         cols = list(REQUIRED[kind]) + (["t_min", "t_max"] if kind == "weather" else [])
@@ -221,10 +304,12 @@ def test_random_csvish_text(work):
             got = set(ld.df["_line"].to_list()) | set(ld.rejects["line"].to_list())
             assert not set(ld.df["_line"].to_list()) & set(ld.rejects["line"].to_list())
             assert all(2 <= x <= n_lines for x in got), (sorted(got), n_lines)
+
     _run("csvish_text", inner, 1800)
 
 
 # ----------------------------------------------------------------------------- generated files
+
 
 @st.composite
 def generated_file(draw, kind: str):
@@ -277,10 +362,12 @@ def generated_file(draw, kind: str):
         data = text.encode(enc)
     except UnicodeEncodeError:
         enc, data = "utf-8", text.encode("utf-8")
-    opts = ReadOptions(decimal_comma=draw(st.booleans()) if delim != "," else False,
-                       date_order=draw(st.sampled_from([None, None, "mdy", "dmy"])),
-                       delimiter=draw(st.sampled_from([None, delim])),
-                       encoding=draw(st.sampled_from([None, {"utf-8-sig": "utf-8-sig"}.get(enc, None)])))
+    opts = ReadOptions(
+        decimal_comma=draw(st.booleans()) if delim != "," else False,
+        date_order=draw(st.sampled_from([None, None, "mdy", "dmy"])),
+        delimiter=draw(st.sampled_from([None, delim])),
+        encoding=draw(st.sampled_from([None, {"utf-8-sig": "utf-8-sig"}.get(enc, None)])),
+    )
     return data, opts, starts, blanks
 
 
@@ -296,6 +383,7 @@ def _generated(kind: str, n: int, work: Path):
             return
         _check_frame(kind, ld)
         _account(ld, starts, blanks)
+
     _run(f"generated_{kind}", inner, n)
 
 
@@ -305,6 +393,7 @@ def test_generated_files(kind, work):
 
 
 # ----------------------------------------------------------------------------- the portfolio, mutated
+
 
 def _fixture_head(kind: str, n: int = 14) -> list[list[str]]:
     return [ln.split(",") for ln in portfolio_text()[kind].splitlines()[:n]]
@@ -317,9 +406,12 @@ def test_valid_file_with_random_cells(kind, work):
     header, rows = base[0], base[1:]
     kinds = {c: k for c, k, _ in SPEC[kind]}
 
-    @given(edits=st.lists(st.tuples(st.integers(0, len(rows) - 1), st.integers(0, len(header) - 1),
-                                    st.data()), max_size=6),
-           delim=st.sampled_from([",", ";"]))
+    @given(
+        edits=st.lists(
+            st.tuples(st.integers(0, len(rows) - 1), st.integers(0, len(header) - 1), st.data()), max_size=6
+        ),
+        delim=st.sampled_from([",", ";"]),
+    )
     def inner(edits, delim):
         _count(f"mutated_{kind}")
         rr = [list(r) for r in rows]
@@ -348,17 +440,29 @@ def test_valid_file_with_random_cells(kind, work):
         lost = untouched - set(ld.df["_line"].to_list())
         rj = ld.rejects.filter(pl.col("line").is_in(sorted(lost)))
         assert rj["reason"].str.contains("different|duplicate|same meter").all(), rj.rows()
+
     _run(f"mutated_{kind}", inner, 300)
 
 
 # ----------------------------------------------------------------------------- chunked reader
 
+
 def test_chunked_reader_equals_whole_file(work):
     """csvread's quote-free path in tiny chunks gives the same frame, rejects and notices as one chunk."""
-    @given(body=st.lists(st.one_of(
-        st.lists(st.sampled_from(["a", "b", " 1 ", "", "id", "x" * 30]), min_size=1, max_size=5).map(",".join),
-        st.just("id,name,qty"), st.just(""), st.just(",,")), max_size=40),
-        chunk=st.integers(1, 64), crlf=st.booleans())
+
+    @given(
+        body=st.lists(
+            st.one_of(
+                st.lists(st.sampled_from(["a", "b", " 1 ", "", "id", "x" * 30]), min_size=1, max_size=5).map(",".join),
+                st.just("id,name,qty"),
+                st.just(""),
+                st.just(",,"),
+            ),
+            max_size=40,
+        ),
+        chunk=st.integers(1, 64),
+        crlf=st.booleans(),
+    )
     def inner(body, chunk, crlf):
         _count("chunked_reader")
         text = "id,name,qty\n" + "\n".join(body) + "\n"
@@ -377,6 +481,7 @@ def test_chunked_reader_equals_whole_file(work):
         finally:
             csvread.FAST_CHUNK_CHARS = old
         assert out[0] == out[1]
+
     _run("chunked_reader", inner, 600)
 
 
@@ -386,9 +491,17 @@ DATA_TABLES = ("buildings", "readings", "weather_daily", "input_files", "load_re
 
 
 def _snapshot(store: Store) -> dict:
-    return {t: sorted(map(repr, store.con.execute(f'SELECT * EXCLUDE (loaded_at) FROM "{t}"' if t == "input_files"
-                                                  else f'SELECT * FROM "{t}"').fetchall()))
-            for t in DATA_TABLES}
+    return {
+        t: sorted(
+            map(
+                repr,
+                store.con.execute(
+                    f'SELECT * EXCLUDE (loaded_at) FROM "{t}"' if t == "input_files" else f'SELECT * FROM "{t}"'
+                ).fetchall(),
+            )
+        )
+        for t in DATA_TABLES
+    }
 
 
 @pytest.fixture(scope="module")
@@ -433,6 +546,7 @@ def test_load_inputs_all_or_nothing(loaded_store, work):
         assert {fl.path for fl in out} == {x for v in f.values() for x in v}
         n = store.con.execute("SELECT count(*) FROM load_rejects WHERE path = ?", [str(p)]).fetchone()[0]
         assert n == next(fl.rejected for fl in out if fl.path == str(p))
+
     _run("load_inputs", inner, 100)
 
 
@@ -450,12 +564,12 @@ def test_load_inputs_rolls_back_a_failure_while_writing(loaded_store, work, monk
     for k in KINDS:
         Path(new[k][0]).write_text(portfolio_text()[k], encoding="utf-8")
     monkeypatch.setattr(Store, "execute", counting)
-    pipeline.load_inputs(store, new, ReadOptions(), force=True)     # a full load: count its statements
+    pipeline.load_inputs(store, new, ReadOptions(), force=True)  # a full load: count its statements
     total = n_statements["n"]
     monkeypatch.setattr(Store, "execute", real)
     assert total > 10
 
-    @given(fail_at=st.integers(1, total))     # exhausted: each statement once
+    @given(fail_at=st.integers(1, total))  # exhausted: each statement once
     def inner(fail_at):
         _count("load_rollback")
         before = _snapshot(store)
@@ -476,10 +590,11 @@ def test_load_inputs_rolls_back_a_failure_while_writing(loaded_store, work, monk
             assert _snapshot(store) == before
         finally:
             monkeypatch.setattr(Store, "execute", real)
+
     raised: list[int] = []
-    _run("load_rollback", inner, total)      # every statement of the load, one at a time
+    _run("load_rollback", inner, total)  # every statement of the load, one at a time
     if SCALE >= 1:
-        assert len(set(raised)) >= total - 3     # all but the transaction statements themselves
+        assert len(set(raised)) >= total - 3  # all but the transaction statements themselves
 
 
 def test_total_generated_cases():
@@ -493,6 +608,7 @@ def test_total_generated_cases():
 
 
 # ----------------------------------------------------------------------------- regressions the fuzzing found
+
 
 def test_regression_header_name_with_a_newline_gives_a_one_line_message(work):
     """Found by test_random_bytes: a quoted header name holding a newline broke the one-line message."""
@@ -511,4 +627,5 @@ def test_regression_bare_carriage_return_keeps_line_numbers(work):
     t = csvread.read_table(p, required=["id", "name", "qty"])
     assert t.df.rows() == [("a", "x", "1", 2), ("d", "D", "3", 4)]
     assert [(r["line"], r["reason"]) for r in t.rejects] == [
-        (3, "unreadable record (a carriage return inside an unquoted field; quote the field or remove it)")]
+        (3, "unreadable record (a carriage return inside an unquoted field; quote the field or remove it)")
+    ]

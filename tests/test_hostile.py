@@ -37,8 +37,14 @@ from .conftest import BUILDING_HEADER, cli, portfolio_text, write_portfolio
 SCREENING = Path(storemod.__file__).parent
 
 # OWASP "CSV Injection": a cell starting with = + - @ (and tab, carriage return) is run as a formula
-FORMULA_NAMES = ['=HYPERLINK("http://evil.example/x","click")', "+1+cmd|' /C calc'!A0", "-2+3",
-                 "@SUM(A1:A9)", "\tTabbed Hall", " =SUM(1,2)"]   # input cells are trimmed: tab and blank go
+FORMULA_NAMES = [
+    '=HYPERLINK("http://evil.example/x","click")',
+    "+1+cmd|' /C calc'!A0",
+    "-2+3",
+    "@SUM(A1:A9)",
+    "\tTabbed Hall",
+    " =SUM(1,2)",
+]  # input cells are trimmed: tab and blank go
 SQL_NAME = "Robert'); DROP TABLE buildings; --"
 MARKUP_NAME = '<img src="http://evil.example/p.png"><script>fetch("https://evil.example")</script>'
 AWKWARD_IDS = ["CON", "con", "..", ".hidden", "-rf", "AUX.txt", "a.pdf", "B" * 64, "nul"]
@@ -82,11 +88,12 @@ def hostile_run(tmp_path_factory):
 
     real_connect = socket.socket.connect
 
-    def no_connect(self, *a, **k):       # internet sockets only (worker processes talk over AF_UNIX)
+    def no_connect(self, *a, **k):  # internet sockets only (worker processes talk over AF_UNIX)
         if self.family in (socket.AF_INET, socket.AF_INET6):
             attempts.append(a)
             raise OSError("network disabled in this test")
         return real_connect(self, *a, **k)
+
     mp.setattr(socket.socket, "connect", no_connect)
     try:
         res = cli(p.args(root / "out", root / "s.duckdb"))
@@ -94,9 +101,18 @@ def hostile_run(tmp_path_factory):
         mp.undo()
     assert res.exit_code == 0, res.stderr
     written = sorted(x for x in root.rglob("*") if x not in before)
-    return {"root": root, "out": root / "out", "db": root / "s.duckdb", "names": names, "written": written,
-            "attempts": attempts, "accepted": ["B01", "B02", "B03", "B04", "B05", "B06"]
-            + [f"F{i}" for i in range(len(FORMULA_NAMES))] + ["S1", "M1"] + AWKWARD_IDS}
+    return {
+        "root": root,
+        "out": root / "out",
+        "db": root / "s.duckdb",
+        "names": names,
+        "written": written,
+        "attempts": attempts,
+        "accepted": ["B01", "B02", "B03", "B04", "B05", "B06"]
+        + [f"F{i}" for i in range(len(FORMULA_NAMES))]
+        + ["S1", "M1"]
+        + AWKWARD_IDS,
+    }
 
 
 def _csv(path: Path) -> list[dict]:
@@ -105,8 +121,10 @@ def _csv(path: Path) -> list[dict]:
 
 
 def test_formula_cells_are_neutralized_in_ranking_csv(hostile_run):
-    rows = {r["building_id"].removeprefix("'") if r["building_id"] == "'-rf" else r["building_id"]: r
-            for r in _csv(hostile_run["out"] / "ranking.csv")}
+    rows = {
+        r["building_id"].removeprefix("'") if r["building_id"] == "'-rf" else r["building_id"]: r
+        for r in _csv(hostile_run["out"] / "ranking.csv")
+    }
     for i, name in enumerate(FORMULA_NAMES):
         kept = name.strip()
         assert rows[f"F{i}"]["name"] == ("'" + kept if kept[0] in "=+-@" else kept), rows[f"F{i}"]["name"]
@@ -118,7 +136,7 @@ def test_formula_cells_are_neutralized_in_ranking_csv(hostile_run):
     # numbers stay numbers: a numeric cell starting with '-' (here nmbe of -0.0) is not prefixed
     neg = [v for r in rows.values() for c, v in r.items() if v.startswith("-")]
     assert neg and all(float(v) <= 0 for v in neg)
-    assert rows["-rf"]["building_id"] == "'-rf"          # a text id is: it would start a formula
+    assert rows["-rf"]["building_id"] == "'-rf"  # a text id is: it would start a formula
 
 
 def test_formula_cells_are_neutralized_in_the_other_csv_files(hostile_run):
@@ -131,15 +149,33 @@ def test_formula_cells_are_neutralized_in_the_other_csv_files(hostile_run):
                 assert not re.match(r"^-[^\d]", v or ""), (name, col, v)
 
 
-@pytest.mark.parametrize("cell, written", [
-    ("-412.0", "-412.0"), ("+3", "+3"), ("-2e5", "-2e5"), ("-0.0", "-0.0"), (".5", ".5"), ("+.5E-3", "+.5E-3"),
-    ("-2+3", "'-2+3"), ("=1+2", "'=1+2"), ("+A1", "'+A1"), ("@SUM(A1:A9)", "'@SUM(A1:A9)"), ("-1e", "'-1e"),
-    ("-inf", "'-inf"), ("-", "'-"), ("-rf", "'-rf"), ("\tTab", "'\tTab"), ("3-2", "3-2")])
+@pytest.mark.parametrize(
+    "cell, written",
+    [
+        ("-412.0", "-412.0"),
+        ("+3", "+3"),
+        ("-2e5", "-2e5"),
+        ("-0.0", "-0.0"),
+        (".5", ".5"),
+        ("+.5E-3", "+.5E-3"),
+        ("-2+3", "'-2+3"),
+        ("=1+2", "'=1+2"),
+        ("+A1", "'+A1"),
+        ("@SUM(A1:A9)", "'@SUM(A1:A9)"),
+        ("-1e", "'-1e"),
+        ("-inf", "'-inf"),
+        ("-", "'-"),
+        ("-rf", "'-rf"),
+        ("\tTab", "'\tTab"),
+        ("3-2", "3-2"),
+    ],
+)
 def test_a_text_cell_that_is_a_number_is_left_alone(tmp_path, cell, written):
     """A rejected value like -412.0 stays a number in the CSV (README: numbers are left alone);
     anything else a spreadsheet would compute still gets its leading '."""
     import polars as pl
     from screening import outputs
+
     outputs.write_csv(pl.DataFrame({"value": [cell], "n": [-412.0]}), tmp_path / "x.csv")
     (row,) = _csv(tmp_path / "x.csv")
     assert row == {"value": written, "n": "-412.0"}
@@ -165,7 +201,7 @@ def test_every_written_file_is_under_the_output_root(hostile_run):
     assert all(x.parent.resolve() == out / "sheets" for x in sheets)
     assert all(x.suffix == ".pdf" for x in sheets)
     assert len(sheets) == len(hostile_run["accepted"])
-    assert len({x.name.casefold() for x in sheets}) == len(sheets)       # no two collide without case
+    assert len({x.name.casefold() for x in sheets}) == len(sheets)  # no two collide without case
     assert not any(x.name.split(".")[0].upper() in {"CON", "NUL", "AUX", "PRN"} for x in sheets)
     assert not any(x.name.startswith((".", "-")) for x in sheets)
     _ = root
@@ -173,8 +209,10 @@ def test_every_written_file_is_under_the_output_root(hostile_run):
 
 def test_sheets_index_names_a_distinct_file_for_every_building(hostile_run):
     idx = _csv(hostile_run["out"] / "sheets_index.csv")
-    got = {r["building_id"].removeprefix("'") if r["building_id"].startswith("'-") else r["building_id"]: r["file"]
-           for r in idx}
+    got = {
+        r["building_id"].removeprefix("'") if r["building_id"].startswith("'-") else r["building_id"]: r["file"]
+        for r in idx
+    }
     assert sorted(got) == sorted(hostile_run["accepted"])
     for bid, f in got.items():
         path = (hostile_run["out"] / f).resolve()
@@ -195,7 +233,7 @@ def test_sql_text_in_inputs_is_stored_verbatim(hostile_run):
     finally:
         con.close()
     assert names["S1"] == SQL_NAME and names["M1"] == MARKUP_NAME
-    assert names["F0"] == FORMULA_NAMES[0]          # stored as given; neutralized only in the CSV outputs
+    assert names["F0"] == FORMULA_NAMES[0]  # stored as given; neutralized only in the CSV outputs
 
 
 # ----------------------------------------------------------------------------- SQL only with bound parameters
@@ -208,7 +246,7 @@ def test_every_sql_statement_uses_dollar_parameters_only():
     assert len(stmts) >= 30
     for name, sql in stmts.items():
         assert not PY_PLACEHOLDER.search(sql), (name, sql)
-        body = re.sub(r"'[^']*'", "''", sql)                       # string literals aside
+        body = re.sub(r"'[^']*'", "''", sql)  # string literals aside
         assert "?" not in body, (name, "positional parameters: use $name")
     # every .sql file holds only named blocks (no statement outside a block)
     for path in sorted(sql_dir().glob("*.sql")):
@@ -245,13 +283,14 @@ def test_no_module_builds_sql_text():
                 con_calls.append((path.name, call.lineno))
                 assert call.args and not _dynamic(call.args[0]), (path.name, call.lineno)
                 assert not isinstance(call.args[0], ast.Constant), (path.name, call.lineno, "SQL literal in Python")
-            on_store = (isinstance(target, ast.Name) and target.id == "store") or \
-                (isinstance(target, ast.Attribute) and target.attr == "store")
-            if attr in ("execute", "frame", "rows") and on_store:        # store.execute("name", params)
+            on_store = (isinstance(target, ast.Name) and target.id == "store") or (
+                isinstance(target, ast.Attribute) and target.attr == "store"
+            )
+            if attr in ("execute", "frame", "rows") and on_store:  # store.execute("name", params)
                 if call.args and isinstance(call.args[0], ast.Constant) and isinstance(call.args[0].value, str):
                     store_calls.append(call.args[0].value)
                     assert call.args[0].value in names, (path.name, call.lineno, call.args[0].value)
                 else:
                     assert call.args and not _dynamic(call.args[0]), (path.name, call.lineno)
-    assert {f for f, _ in con_calls} == {"store.py"}, con_calls     # only the store talks to DuckDB
+    assert {f for f, _ in con_calls} == {"store.py"}, con_calls  # only the store talks to DuckDB
     assert len(store_calls) >= 20

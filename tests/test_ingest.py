@@ -16,9 +16,16 @@ import pytest
 
 from screening import pipeline
 from screening.errors import InputError
-from screening.ingest import (BUILDING_COLUMNS, FUELS, USE_TYPES, ReadOptions, read_buildings, read_readings)
-from screening.parse import (AmbiguousDates, detect_date_order, parse_bool, parse_choice, parse_date, parse_float,
-                             parse_int)
+from screening.ingest import BUILDING_COLUMNS, FUELS, USE_TYPES, ReadOptions, read_buildings, read_readings
+from screening.parse import (
+    AmbiguousDates,
+    detect_date_order,
+    parse_bool,
+    parse_choice,
+    parse_date,
+    parse_float,
+    parse_int,
+)
 
 from .conftest import BUILDING_HEADER, READING_HEADER, write_rows
 
@@ -38,6 +45,7 @@ ROW = ["X1", "Linden Hall", "alder-flats", "office", "10000", "1990", "2", "natu
 
 # ----------------------------------------------------------------------------- buildings
 
+
 def test_fixture_buildings_canonical_frame(portfolio):
     ld = read_buildings(portfolio.buildings)
     assert ld.rejects.height == 0 and ld.notices == []
@@ -48,9 +56,13 @@ def test_fixture_buildings_canonical_frame(portfolio):
     s = ld.df.schema
     assert s["floor_area_ft2"] == pl.Float64 and s["year_built"] == pl.Int64 and s["stories"] == pl.Int64
     b1 = ld.df.row(0, named=True)
-    assert (b1["building_id"], b1["floor_area_ft2"], b1["ua_total_btu_h_f"], b1["balance_point_f"]) == \
-        ("B01", 42000.0, 9000.0, 58.0)
-    assert b1["wall_u_btu_h_ft2_f"] is None          # optional column absent → null, never a default
+    assert (b1["building_id"], b1["floor_area_ft2"], b1["ua_total_btu_h_f"], b1["balance_point_f"]) == (
+        "B01",
+        42000.0,
+        9000.0,
+        58.0,
+    )
+    assert b1["wall_u_btu_h_ft2_f"] is None  # optional column absent → null, never a default
     assert set(ld.df["use_type"]) <= set(USE_TYPES) and set(ld.df["heating_fuel"]) <= set(FUELS)
 
 
@@ -61,7 +73,8 @@ def test_si_buildings_are_converted_to_ip(tmp_path):
     # pint: 1000 m² in ft²; 500 W/K in Btu_it/(h·°F) (a temperature difference); 15 °C in °F
     assert r["floor_area_ft2"] == pytest.approx(U.Quantity(1000, "m**2").to("ft**2").magnitude, rel=1e-12)
     assert r["ua_total_btu_h_f"] == pytest.approx(
-        U.Quantity(500, "W/delta_degC").to("Btu_it/hour/delta_degF").magnitude, rel=1e-9)
+        U.Quantity(500, "W/delta_degC").to("Btu_it/hour/delta_degF").magnitude, rel=1e-9
+    )
     assert r["balance_point_f"] == pytest.approx(U.Quantity(15, "degC").to("degF").magnitude, rel=1e-12)  # 59 °F
 
 
@@ -76,8 +89,10 @@ def test_si_bounds_are_checked_in_file_units(tmp_path):
 
 def test_decimal_comma_and_semicolons(tmp_path):
     p = tmp_path / "b.csv"
-    p.write_text(";".join(BUILDING_HEADER) + "\n"
-                 + "X1;Ålbo Hus;alder-flats;office;12.345,5;1990;2;natural_gas;0,85;;;;\n", encoding="utf-8")
+    p.write_text(
+        ";".join(BUILDING_HEADER) + "\n" + "X1;Ålbo Hus;alder-flats;office;12.345,5;1990;2;natural_gas;0,85;;;;\n",
+        encoding="utf-8",
+    )
     ld = read_buildings(p, ReadOptions(decimal_comma=True))
     r = ld.df.row(0, named=True)
     assert (r["name"], r["floor_area_ft2"], r["heating_efficiency"]) == ("Ålbo Hus", 12345.5, 0.85)
@@ -135,8 +150,10 @@ def test_choices_are_normalised(tmp_path):
 
 # ----------------------------------------------------------------------------- readings
 
-def _rd(start="2024-01-01", end="2024-01-31", q="10", unit="therm", est="false", cost="12", bid="X1",
-        fuel="natural_gas"):
+
+def _rd(
+    start="2024-01-01", end="2024-01-31", q="10", unit="therm", est="false", cost="12", bid="X1", fuel="natural_gas"
+):
     return [bid, fuel, start, end, q, unit, est, cost]
 
 
@@ -149,34 +166,39 @@ def test_fixture_readings_canonical_frame(portfolio):
 
 
 def test_readings_rejects(tmp_path):
-    rows = [_rd(),                                                   # 2 ok
-            _rd("2024-02-10", "2024-02-01"),                         # 3 end before start
-            _rd("2024-03-01", "2024-03-31", q="-1"),                 # 4 negative
-            _rd("2024-04-01", "2024-04-30", q="nan"),                # 5 NaN
-            _rd("2024-05-01", "2024-05-31", q="inf"),                # 6 inf
-            _rd("2024-06-01", "2024-06-30", q="2e12"),               # 7 huge (> 1e12)
-            _rd("1899-06-01", "1899-06-30"),                         # 8 before 1900
-            _rd("2024-02-30", "2024-03-31"),                         # 9 no such day
-            _rd("2024-07-01", "2024-07-31", est="perhaps"),          # 10 not a boolean
-            _rd("2024-08-01", "2024-08-31", q="0"),                  # 11 zero is a valid reading
-            _rd("2024-09-01", "2024-09-30", q="1,234.5"),            # 12 thousands separator: not guessed
-            _rd("2024-10-01", "2024-10-31", fuel="coal")]            # 13 unknown fuel
+    rows = [
+        _rd(),  # 2 ok
+        _rd("2024-02-10", "2024-02-01"),  # 3 end before start
+        _rd("2024-03-01", "2024-03-31", q="-1"),  # 4 negative
+        _rd("2024-04-01", "2024-04-30", q="nan"),  # 5 NaN
+        _rd("2024-05-01", "2024-05-31", q="inf"),  # 6 inf
+        _rd("2024-06-01", "2024-06-30", q="2e12"),  # 7 huge (> 1e12)
+        _rd("1899-06-01", "1899-06-30"),  # 8 before 1900
+        _rd("2024-02-30", "2024-03-31"),  # 9 no such day
+        _rd("2024-07-01", "2024-07-31", est="perhaps"),  # 10 not a boolean
+        _rd("2024-08-01", "2024-08-31", q="0"),  # 11 zero is a valid reading
+        _rd("2024-09-01", "2024-09-30", q="1,234.5"),  # 12 thousands separator: not guessed
+        _rd("2024-10-01", "2024-10-31", fuel="coal"),
+    ]  # 13 unknown fuel
     ld = _r(tmp_path, rows)
     assert ld.df["period_start"].to_list() == [dt.date(2024, 1, 1), dt.date(2024, 8, 1)]
     got = [(r["line"], r["column"], r["value"], r["reason"]) for r in ld.rejects.iter_rows(named=True)]
     far = ld.rejects.filter(pl.col("line") == 8)["reason"][0]
-    assert sorted(got) == sorted([
-        (3, "period_end", "2024-02-01", "period ends before it starts (2024-02-10)"),
-        (4, "quantity", "-1", "expected a number ≥ 0 and ≤ 1e+12"),
-        (5, "quantity", "nan", "expected a number ≥ 0 and ≤ 1e+12"),
-        (6, "quantity", "inf", "expected a number ≥ 0 and ≤ 1e+12"),
-        (7, "quantity", "2e12", "expected a number ≥ 0 and ≤ 1e+12"),
-        (8, "period_start", "1899-06-01", far), (8, "period_end", "1899-06-30", far),
-        (9, "period_start", "2024-02-30", "expected a date (YYYY-MM-DD)"),
-        (10, "estimated", "perhaps", "expected true or false"),
-        (12, "quantity", "1,234.5", '1,234.5: a thousands separator; set [reading] thousands = ","'),
-        (13, "fuel", "coal", "unknown fuel; expected one of " + ", ".join(FUELS)),
-    ])
+    assert sorted(got) == sorted(
+        [
+            (3, "period_end", "2024-02-01", "period ends before it starts (2024-02-10)"),
+            (4, "quantity", "-1", "expected a number ≥ 0 and ≤ 1e+12"),
+            (5, "quantity", "nan", "expected a number ≥ 0 and ≤ 1e+12"),
+            (6, "quantity", "inf", "expected a number ≥ 0 and ≤ 1e+12"),
+            (7, "quantity", "2e12", "expected a number ≥ 0 and ≤ 1e+12"),
+            (8, "period_start", "1899-06-01", far),
+            (8, "period_end", "1899-06-30", far),
+            (9, "period_start", "2024-02-30", "expected a date (YYYY-MM-DD)"),
+            (10, "estimated", "perhaps", "expected true or false"),
+            (12, "quantity", "1,234.5", '1,234.5: a thousands separator; set [reading] thousands = ","'),
+            (13, "fuel", "coal", "unknown fuel; expected one of " + ", ".join(FUELS)),
+        ]
+    )
     assert far.startswith("date out of range; expected 1900-01-01 to ")
 
 
@@ -185,19 +207,25 @@ def test_readings_duplicates(tmp_path):
     ld = _r(tmp_path, rows)
     assert ld.df.height == 1 and "1 exact duplicate reading row(s) kept once" in ld.notices[0]
     assert ld.rejects.select("line", "column", "value").rows() == [(4, "quantity", "10.0"), (5, "quantity", "11.0")]
-    assert ld.rejects["reason"].to_list() == ["same meter and period as line(s) 5 with different data",
-                                              "same meter and period as line(s) 4 with different data"]
+    assert ld.rejects["reason"].to_list() == [
+        "same meter and period as line(s) 5 with different data",
+        "same meter and period as line(s) 4 with different data",
+    ]
 
 
 def test_spreadsheet_and_slash_dates(tmp_path):
-    rows = [_rd("45292", "45322"),                   # serials: 2024-01-01 and 2024-01-31 (by hand, 1900 system)
-            _rd("2024/02/01", "2024/02/29"),         # ISO with slashes
-            _rd("2024-03-01T00:00:00", "2024-03-31 00:00")]   # a timestamp's date part
+    rows = [
+        _rd("45292", "45322"),  # serials: 2024-01-01 and 2024-01-31 (by hand, 1900 system)
+        _rd("2024/02/01", "2024/02/29"),  # ISO with slashes
+        _rd("2024-03-01T00:00:00", "2024-03-31 00:00"),
+    ]  # a timestamp's date part
     ld = _r(tmp_path, rows)
     assert ld.rejects.height == 0
     assert ld.df.select("period_start", "period_end").rows() == [
-        (dt.date(2024, 1, 1), dt.date(2024, 1, 31)), (dt.date(2024, 2, 1), dt.date(2024, 2, 29)),
-        (dt.date(2024, 3, 1), dt.date(2024, 3, 31))]
+        (dt.date(2024, 1, 1), dt.date(2024, 1, 31)),
+        (dt.date(2024, 2, 1), dt.date(2024, 2, 29)),
+        (dt.date(2024, 3, 1), dt.date(2024, 3, 31)),
+    ]
 
 
 def test_day_month_order(tmp_path):
@@ -205,14 +233,18 @@ def test_day_month_order(tmp_path):
     assert _r(tmp_path, [_rd("13/01/2024", "31/01/2024")]).df["period_start"][0] == dt.date(2024, 1, 13)
     assert _r(tmp_path, [_rd("01/13/2024", "01/31/2024")]).df["period_start"][0] == dt.date(2024, 1, 13)
     amb = [_rd("2024-01-01", "2024-01-31"), _rd("02/03/2024", "03/03/2024")]
-    with pytest.raises(InputError, match=r"readings\.csv, line 3, column 'period_start': dates like '02/03/2024' "
-                                         r"could be day/month or month/day"):
+    with pytest.raises(
+        InputError,
+        match=r"readings\.csv, line 3, column 'period_start': dates like '02/03/2024' "
+        r"could be day/month or month/day",
+    ):
         _r(tmp_path, amb)
     assert _r(tmp_path, amb, date_order="dmy").df["period_start"][1] == dt.date(2024, 3, 2)
     assert _r(tmp_path, amb, date_order="mdy").df["period_start"][1] == dt.date(2024, 2, 3)
 
 
 # ----------------------------------------------------------------------------- parse.py directly
+
 
 def test_parse_float_bounds_and_specials():
     s = pl.Series(["1", "+2.5", " 3 ", None, "NaN", "-inf", "1e309", "abc", "0"])
@@ -247,8 +279,12 @@ def test_detect_date_order_and_ambiguity():
 
 
 def test_parse_date_two_digit_years_and_range():
-    v, p = parse_date(pl.Series(["31.12.23", "1.2.2024"]), date_order="dmy",
-                      min_date=dt.date(2024, 1, 1), max_date=dt.date(2030, 1, 1))
+    v, p = parse_date(
+        pl.Series(["31.12.23", "1.2.2024"]),
+        date_order="dmy",
+        min_date=dt.date(2024, 1, 1),
+        max_date=dt.date(2030, 1, 1),
+    )
     assert v.to_list() == [None, dt.date(2024, 2, 1)]
     assert p.to_list() == ["date out of range; expected 2024-01-01 to 2030-01-01", None]
 
@@ -263,7 +299,8 @@ def test_validate_reads_without_store(portfolio, tmp_path):
 def test_nan_and_infinite_dates_are_rejected_not_crashing():
     # found by tests/test_fuzz.py: "NAN" parsed as a float NaN and crashed the serial-date path
     from screening.parse import parse_date
+
     v, p = parse_date(pl.Series(["NAN", "inf", "-1e300", "45292"]))
     assert v.to_list()[:3] == [None, None, None]
     assert all(x is not None for x in p.to_list()[:3])
-    assert str(v[3]) == "2024-01-01"   # spreadsheet serial 45292, 1900 date system (by hand)
+    assert str(v[3]) == "2024-01-01"  # spreadsheet serial 45292, 1900 date system (by hand)

@@ -42,18 +42,19 @@ _AS_WINDOWS = textwrap.dedent("""
 
 def _py(code: str, *args: str, timeout: float = 120) -> subprocess.CompletedProcess:
     env = dict(os.environ, PYTHONPATH=str(ROOT))
-    return subprocess.run([sys.executable, "-c", code, *args], capture_output=True, text=True, env=env,
-                          timeout=timeout)
+    return subprocess.run([sys.executable, "-c", code, *args], capture_output=True, text=True, env=env, timeout=timeout)
 
 
 def test_runner_imports_without_fcntl_or_msvcrt():
-    r = _py("import sys; sys.modules['fcntl'] = None; sys.modules['msvcrt'] = None\n"
-            "import screening.runner, screening.cli, screening.locking as L\n"
-            "import tempfile, pathlib\n"
-            "p = pathlib.Path(tempfile.mkdtemp()) / 'x.lock'; p.write_text('')\n"
-            "print(L.BACKEND, screening.runner._lock_held(str(p)))\n"
-            "try:\n    screening.runner._Lock(str(p)).__enter__()\n"
-            "except screening.runner.StoreError as e:\n    print('refused:', e)\n")
+    r = _py(
+        "import sys; sys.modules['fcntl'] = None; sys.modules['msvcrt'] = None\n"
+        "import screening.runner, screening.cli, screening.locking as L\n"
+        "import tempfile, pathlib\n"
+        "p = pathlib.Path(tempfile.mkdtemp()) / 'x.lock'; p.write_text('')\n"
+        "print(L.BACKEND, screening.runner._lock_held(str(p)))\n"
+        "try:\n    screening.runner._Lock(str(p)).__enter__()\n"
+        "except screening.runner.StoreError as e:\n    print('refused:', e)\n"
+    )
     assert r.returncode == 0, r.stderr
     backend, held = r.stdout.splitlines()[0].split()
     assert (backend, held) == ("none", "False")
@@ -71,13 +72,15 @@ def test_windows_path_locks_against_a_second_process(tmp_path):
             time.sleep(60)
     """)
     env = dict(os.environ, PYTHONPATH=str(ROOT))
-    p = subprocess.Popen([sys.executable, "-c", holder], env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
-                         text=True)
+    p = subprocess.Popen(
+        [sys.executable, "-c", holder], env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True
+    )
     try:
         for _ in range(600):
             if ready.exists() or p.poll() is not None:
                 break
             import time
+
             time.sleep(0.1)
         assert ready.exists(), p.stderr.read() if p.poll() is not None else "holder not ready"
         second = _AS_WINDOWS + textwrap.dedent(f"""

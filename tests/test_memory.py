@@ -29,8 +29,10 @@ def test_count_rows_and_estimate(tmp_path):
     assert memory.count_rows(p) == 2
     small, big = memory.estimate_peak(1000, 10, 1000), memory.estimate_peak(5_000_000, 118_000, 1000)
     assert memory.BASE_BYTES < small < big
-    one_pass = max(memory.BYTES_PER_READING_READ * 5_000_000,
-                   memory.BYTES_PER_BUILDING * 118_000 + memory.BYTES_PER_CHUNK_READING * 5_000_000)
+    one_pass = max(
+        memory.BYTES_PER_READING_READ * 5_000_000,
+        memory.BYTES_PER_BUILDING * 118_000 + memory.BYTES_PER_CHUNK_READING * 5_000_000,
+    )
     assert big == pytest.approx(memory.BASE_BYTES + memory.BYTES_PER_WEATHER_ROW * 1000 + one_pass)
 
 
@@ -44,8 +46,9 @@ def test_estimate_is_linear_in_the_chunk_size():
     assert memory.screening_bytes(42_000_000, 1_000_000, 1) == memory.screening_bytes(42_000_000, 1_000_000, 4096)
     # the run's estimate is the larger of reading the files and screening
     assert memory.estimate_peak(42_000_000, 1_000_000, 0, 4096) == pytest.approx(
-        memory.BASE_BYTES + max(memory.BYTES_PER_READING_READ * 42_000_000,
-                                memory.screening_bytes(42_000_000, 1_000_000, 4096)))
+        memory.BASE_BYTES
+        + max(memory.BYTES_PER_READING_READ * 42_000_000, memory.screening_bytes(42_000_000, 1_000_000, 4096))
+    )
 
 
 def test_check_refuses_a_run_larger_than_the_limit(tmp_path, monkeypatch):
@@ -53,8 +56,11 @@ def test_check_refuses_a_run_larger_than_the_limit(tmp_path, monkeypatch):
     p.write_text("h\n" + "x\n" * 1000)
     monkeypatch.setattr(memory, "available", lambda: (100e6, "the test limit"))
     need = memory.gb(memory.estimate_peak(1000, 0, 0))
-    with pytest.raises(OutOfMemoryError, match=rf"1,000 readings of 0 buildings need about {need}, and the test limit "
-                                               r"leaves 100 MB; nothing was changed"):
+    with pytest.raises(
+        OutOfMemoryError,
+        match=rf"1,000 readings of 0 buildings need about {need}, and the test limit "
+        r"leaves 100 MB; nothing was changed",
+    ):
         memory.check({"readings": [str(p)], "buildings": [], "weather": []})
     monkeypatch.setattr(memory, "available", lambda: (1e12, "the test limit"))
     assert memory.check({"readings": [str(p)], "buildings": [], "weather": []}) > 0
@@ -75,20 +81,36 @@ def test_run_under_a_memory_limit_exits_1_with_one_line_and_changes_nothing(port
     db_before = db.read_bytes()
     # address space at the check: the interpreter with every library imported
     # (the settings are read first: their check reads units.csv with polars, which starts its threads)
-    probe = subprocess.run([sys.executable, "-c", "import screening.cli, screening.runner, screening.memory as m; "
-                            "from screening import config; config.load(None); "
-                            "print(m._status_kb('VmSize'))"], capture_output=True, text=True, check=True)
+    probe = subprocess.run(
+        [
+            sys.executable,
+            "-c",
+            "import screening.cli, screening.runner, screening.memory as m; "
+            "from screening import config; config.load(None); "
+            "print(m._status_kb('VmSize'))",
+        ],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
     limit = int(probe.stdout) + 100_000_000  # 100 MB more: far below any run's estimate
 
     def cap():
         resource.setrlimit(resource.RLIMIT_AS, (limit, limit))
 
-    res = subprocess.run([sys.executable, "-m", "screening", *portfolio.args(out, db, "--no-sheets", "--quiet")],
-                         capture_output=True, text=True, preexec_fn=cap, timeout=120)
+    res = subprocess.run(
+        [sys.executable, "-m", "screening", *portfolio.args(out, db, "--no-sheets", "--quiet")],
+        capture_output=True,
+        text=True,
+        preexec_fn=cap,
+        timeout=120,
+    )
     assert res.returncode == 1, res.stderr
     line = _one_line(res.stderr)
-    assert line.startswith(f"ddscreen: error: not enough memory: {portfolio.n_readings:,} readings of "
-                           f"{portfolio.n_buildings:,} buildings need about"), line
+    assert line.startswith(
+        f"ddscreen: error: not enough memory: {portfolio.n_readings:,} readings of "
+        f"{portfolio.n_buildings:,} buildings need about"
+    ), line
     assert "the address-space limit (ulimit -v) leaves" in line and "nothing was changed" in line
     assert tree_digest(out) == before
     assert db.read_bytes() == db_before
@@ -103,12 +125,16 @@ def test_memory_error_during_a_run_is_one_line_exit_1(portfolio, tmp_path, monke
         raise MemoryError()
 
     monkeypatch.setattr(pipeline, "screen_frames", boom)
-    res = cli(portfolio.args(out, db, "--no-sheets", "--quiet", "--force"))   # it would replace the outputs
+    res = cli(portfolio.args(out, db, "--no-sheets", "--quiet", "--force"))  # it would replace the outputs
     assert res.exit_code == 1
     line = _one_line(res.stderr)
-    assert line.startswith("ddscreen: error: ran out of memory; the estimate was ") and "earlier outputs are untouched" in line
+    assert (
+        line.startswith("ddscreen: error: ran out of memory; the estimate was ")
+        and "earlier outputs are untouched" in line
+    )
     assert tree_digest(out) == before
     import duckdb
+
     con = duckdb.connect(str(db), read_only=True)
     status, msg = con.execute("SELECT status, message FROM runs ORDER BY started_at DESC LIMIT 1").fetchone()
     con.close()
@@ -116,6 +142,7 @@ def test_memory_error_during_a_run_is_one_line_exit_1(portfolio, tmp_path, monke
 
 
 # -------------------------------------------------------------- rewrites with the same answers
+
 
 def test_nearest_base_is_the_argmin_of_the_distance():
     grid = np.round(40 + 0.5 * np.arange(71), 6)
@@ -165,8 +192,11 @@ def test_reading_issues_in_blocks_equal_one_pass():
                 e += dt.timedelta(days=9)  # overlaps the next read
             for _ in range(1 + (rng.random() < 0.06)):  # sometimes read twice
                 rows.append((f"B{b:02d}", "natural_gas", f"M{b % 2}", s, e, bool(rng.random() < 0.3), len(rows) + 2))
-    r = pl.DataFrame(rows, schema=["building_id", "fuel", "meter_id", "period_start", "period_end", "estimated",
-                                   "_line"], orient="row")
+    r = pl.DataFrame(
+        rows,
+        schema=["building_id", "fuel", "meter_id", "period_start", "period_end", "estimated", "_line"],
+        orient="row",
+    )
     sp = metered.choose_spans(r, dt.date(2025, 1, 1), dt.date(2025, 12, 31), building_ids=r["building_id"].unique())
     one = metered.reading_issues(r, sp)
     assert set(one["code"]) >= {"duplicate_reads", "overlapping_reads", "gap_in_reads", "many_estimated_reads"}
@@ -185,8 +215,11 @@ def test_unit_error_issues_in_blocks_equal_one_pass():
             if rng.random() < 0.04:
                 use *= rng.choice([100.0, 1000.0])
             rows.append((f"B{b:02d}", "natural_gas", "", s, e, (e - s).days + 1, use))
-    conv = pl.DataFrame(rows, schema=["building_id", "fuel", "meter_id", "period_start", "period_end", "days",
-                                      "energy_kbtu"], orient="row")
+    conv = pl.DataFrame(
+        rows,
+        schema=["building_id", "fuel", "meter_id", "period_start", "period_end", "days", "energy_kbtu"],
+        orient="row",
+    )
     b = pl.DataFrame({"building_id": [f"B{i:02d}" for i in range(12)], "heating_fuel": ["natural_gas"] * 12})
     one = pipeline._unit_error_issues(conv, b, 10.0)
     assert one.height >= 2
@@ -204,11 +237,17 @@ def test_fit_in_blocks_picks_what_the_is_in_filter_picked():
         for m in range(int(rng.integers(10, 31))):
             days = int(rng.integers(28, 32))
             h = np.maximum(grid - rng.uniform(20, 60), 0.0) * days
-            rows.append((f"B{b:02d}", dt.date(2024, 1, 1) + dt.timedelta(days=31 * m), days,
-                         float(rng.uniform(50, 150) * days + 3.0 * h[50]), bool(rng.random() > 0.05)))
+            rows.append(
+                (
+                    f"B{b:02d}",
+                    dt.date(2024, 1, 1) + dt.timedelta(days=31 * m),
+                    days,
+                    float(rng.uniform(50, 150) * days + 3.0 * h[50]),
+                    bool(rng.random() > 0.05),
+                )
+            )
             hdd.append(h)
-    periods = pl.DataFrame(rows, schema=["building_id", "period_start", "days", "energy_kbtu", "usable"],
-                           orient="row")
+    periods = pl.DataFrame(rows, schema=["building_id", "period_start", "days", "energy_kbtu", "usable"], orient="row")
     hdd_arr = np.array(hdd)
     ids = pl.Series("building_id", [f"B{b:02d}" for b in range(27)])  # two buildings without periods
     rows_ix = periods.select("building_id").with_row_index("_r")
@@ -219,8 +258,9 @@ def test_fit_in_blocks_picks_what_the_is_in_filter_picked():
             bid = ids.slice(a, block)
             p = rows_ix.filter(pl.col("building_id").is_in(bid.implode()))["_r"].to_numpy()
             arr = metered.pad_periods(periods[p], hdd_arr[p], bid)
-            want.append(metered.fit_variable_base(arr["use_per_day"], arr["days"], arr["hdd_per_day"], grid,
-                                                  arr["valid"]))
+            want.append(
+                metered.fit_variable_base(arr["use_per_day"], arr["days"], arr["hdd_per_day"], grid, arr["valid"])
+            )
         assert got.keys() == want[0].keys()
         for k in got:
             np.testing.assert_array_equal(got[k], np.concatenate([w[k] for w in want]))

@@ -26,8 +26,7 @@ D0 = date(2021, 1, 1)
 def tmy_daily_f() -> np.ndarray:
     path = Path(pvlib.__file__).parent / "data" / "723170TYA.CSV"
     df, _ = read_tmy3(str(path), map_variables=True)
-    t = pl.DataFrame({"day": df["Date (MM/DD/YYYY)"].str.slice(0, 5).to_numpy(),
-                      "t": df["temp_air"].to_numpy()})
+    t = pl.DataFrame({"day": df["Date (MM/DD/YYYY)"].str.slice(0, 5).to_numpy(), "t": df["temp_air"].to_numpy()})
     daily = t.group_by("day").agg(pl.col("t").mean()).sort("day")
     assert daily.height == 365  # TMY3: 365 days x 24 h (docs/degree-days.md §3)
     return daily["t"].to_numpy() * 9 / 5 + 32
@@ -60,7 +59,7 @@ def monthly(year=2021, n=12):
 def drifting(rng, n, start=D0):
     starts, ends, d = [], [], start
     for _ in range(n):
-        L = int(rng.integers(27, 36))          # billing cycles of 27-35 days (issue 5)
+        L = int(rng.integers(27, 36))  # billing cycles of 27-35 days (issue 5)
         starts.append(d)
         ends.append(d + timedelta(days=L - 1))
         d = d + timedelta(days=L)
@@ -75,11 +74,11 @@ def bills(starts, ends, alpha, beta, tau):
 def fit_one(starts, ends, use, grid=GRID, **kw):
     days = np.array([(e - s).days + 1 for s, e in zip(starts, ends)], float)
     x = hdd(starts, ends, grid) / days[:, None]
-    return M.fit_variable_base((use / days)[None], days[None], x[None], grid,
-                               np.ones((1, len(days)), bool), **kw)
+    return M.fit_variable_base((use / days)[None], days[None], x[None], grid, np.ones((1, len(days)), bool), **kw)
 
 
 # ------------------------------------------------------------------------------ regression
+
 
 def test_noise_free_recovery_greensboro():
     # docs/degree-days.md §6 [C]: 12 monthly bills, α = 20/day, β = 0.9/°F·day, τ = 60 °F, no noise
@@ -122,7 +121,7 @@ def test_agrees_with_statsmodels_wls_and_scipy_brute(seed):
     # Guideline 14 definitions (docs/degree-days.md §6), p = 2, from statsmodels' unweighted residuals
     r = res.model.endog - res.fittedvalues
     n = len(y)
-    assert f["cv_rmse"][0] == pytest.approx(100 * np.sqrt((r ** 2).sum() / (n - 2)) / y.mean(), rel=1e-9)
+    assert f["cv_rmse"][0] == pytest.approx(100 * np.sqrt((r**2).sum() / (n - 2)) / y.mean(), rel=1e-9)
     assert f["nmbe"][0] == pytest.approx(100 * r.sum() / ((n - 2) * y.mean()), rel=1e-9, abs=1e-12)
 
     # brute-force scipy search on the same grid, HDD recomputed from the daily temperatures at each τ
@@ -131,6 +130,7 @@ def test_agrees_with_statsmodels_wls_and_scipy_brute(seed):
         sw = np.sqrt(days)
         coef, *_ = np.linalg.lstsq(np.c_[sw, sw * xt], sw * y, rcond=None)
         return float(((sw * y - np.c_[sw, sw * xt] @ coef) ** 2).sum()) if coef[1] > 0 else np.inf
+
     t_best = scipy.optimize.brute(sse, (slice(40.0, 75.25, 0.5),), finish=None)
     assert tau == pytest.approx(float(t_best), abs=1e-12)
 
@@ -163,13 +163,19 @@ def test_vectorized_equals_one_at_a_time_with_padding():
     sets = [drifting(rng, n) for n in (24, 15, 10)]
     truths = [(20.0, 0.9, 60.0), (35.0, 2.1, 55.0), (5.0, 0.3, 65.0)]
     n_p = 24
-    Y = np.zeros((3, n_p)); Dd = np.zeros((3, n_p)); X = np.zeros((3, n_p, GRID.size)); V = np.zeros((3, n_p), bool)
+    Y = np.zeros((3, n_p))
+    Dd = np.zeros((3, n_p))
+    X = np.zeros((3, n_p, GRID.size))
+    V = np.zeros((3, n_p), bool)
     singles = []
     for i, ((s, e), (a, b, t)) in enumerate(zip(sets, truths)):
         use, days = bills(s, e, a, b, t)
         use = use * (1 + 0.03 * rng.standard_normal(len(s)))
         k = len(s)
-        Y[i, :k] = use / days; Dd[i, :k] = days; X[i, :k] = hdd(s, e, GRID) / days[:, None]; V[i, :k] = True
+        Y[i, :k] = use / days
+        Dd[i, :k] = days
+        X[i, :k] = hdd(s, e, GRID) / days[:, None]
+        V[i, :k] = True
         singles.append(fit_one(s, e, use))
     f = M.fit_variable_base(Y, Dd, X, GRID, V, chunk=2)
     for i, g in enumerate(singles):
@@ -192,7 +198,8 @@ def test_baseload_only_edge_and_not_fitted():
     # 8 monthly periods (< 9) -> not fitted; a 92-day period is not counted
     s8, e8 = s[:8], e[:8]
     assert fit_one(s8, e8, bills(s8, e8, 20, 0.9, 60)[0])["model"][0] == "not_fitted"
-    s9 = s[:8] + [date(2021, 9, 1)]; e9 = e[:8] + [date(2021, 11, 30)]
+    s9 = s[:8] + [date(2021, 9, 1)]
+    e9 = e[:8] + [date(2021, 11, 30)]
     k = fit_one(s9, e9, bills(s9, e9, 20, 0.9, 60)[0])
     assert k["model"][0] == "not_fitted" and k["n"][0] == 8
 
@@ -233,7 +240,7 @@ def test_baseload_is_never_negative_and_agrees_with_scipy_nnls(seed):
     ref = []
     for k in range(GRID.size):
         coef, rnorm = scipy.optimize.nnls(np.c_[sw, sw * x[:, k]], sw * y)
-        ref.append((rnorm ** 2 if coef[1] > 0 else np.inf, coef))
+        ref.append((rnorm**2 if coef[1] > 0 else np.inf, coef))
     k_best = int(np.argmin([r[0] for r in ref]))
     assert f["base_f"][0] == GRID[k_best]
     assert f["beta"][0] == pytest.approx(ref[k_best][1][1], rel=1e-9)
@@ -251,17 +258,22 @@ def test_baseload_is_never_negative_and_agrees_with_scipy_nnls(seed):
     assert np.isnan(f["se_alpha"][0])
     assert f["r2"][0] == pytest.approx(1 - res.ssr / (days * (y - np.average(y, weights=days)) ** 2).sum(), rel=1e-9)
     r = y - res.fittedvalues
-    assert f["cv_rmse"][0] == pytest.approx(100 * np.sqrt((r ** 2).sum() / (len(y) - 1)) / y.mean(), rel=1e-9)
+    assert f["cv_rmse"][0] == pytest.approx(100 * np.sqrt((r**2).sum() / (len(y) - 1)) / y.mean(), rel=1e-9)
 
 
 def test_constrained_fit_vectorized_equals_one_at_a_time():
     # buildings with and without the bound in one call, chunked: the same as one at a time
     cases = [_heating_only_building(3), _noisy_building(1), _heating_only_building(4), _noisy_building(2)]
     n_p = 24
-    Y = np.zeros((4, n_p)); Dd = np.zeros((4, n_p)); X = np.zeros((4, n_p, GRID.size)); V = np.ones((4, n_p), bool)
+    Y = np.zeros((4, n_p))
+    Dd = np.zeros((4, n_p))
+    X = np.zeros((4, n_p, GRID.size))
+    V = np.ones((4, n_p), bool)
     singles = []
     for i, (s, e, use, days) in enumerate(cases):
-        Y[i] = use / days; Dd[i] = days; X[i] = hdd(s, e, GRID) / days[:, None]
+        Y[i] = use / days
+        Dd[i] = days
+        X[i] = hdd(s, e, GRID) / days[:, None]
         singles.append(fit_one(s, e, use))
     f = M.fit_variable_base(Y, Dd, X, GRID, V, chunk=3)
     assert f["alpha_at_zero"].tolist() == [True, False, True, False]
@@ -275,16 +287,24 @@ def test_fit_shape_errors():
     with pytest.raises(ValueError, match=r"hdd_per_day has shape \(1, 3, 2\); expected \(1, 3, 71\)"):
         M.fit_variable_base(np.ones((1, 3)), np.ones((1, 3)), np.ones((1, 3, 2)), GRID, np.ones((1, 3), bool))
     with pytest.raises(ValueError, match="strictly increasing"):
-        M.fit_variable_base(np.ones((1, 3)), np.ones((1, 3)), np.ones((1, 3, 2)), np.array([60.0, 50.0]),
-                            np.ones((1, 3), bool))
+        M.fit_variable_base(
+            np.ones((1, 3)), np.ones((1, 3)), np.ones((1, 3, 2)), np.array([60.0, 50.0]), np.ones((1, 3), bool)
+        )
 
 
 # ------------------------------------------------------------------------------ spans
 
+
 def _reads(bid, starts, ends, q=None, fuel="natural_gas", heat=True, **extra):
     n = len(starts)
-    d = {"building_id": [bid] * n, "fuel": [fuel] * n, "period_start": starts, "period_end": ends,
-         "energy_kbtu": list(q) if q is not None else [100.0] * n, "is_heating_fuel": [heat] * n}
+    d = {
+        "building_id": [bid] * n,
+        "fuel": [fuel] * n,
+        "period_start": starts,
+        "period_end": ends,
+        "energy_kbtu": list(q) if q is not None else [100.0] * n,
+        "is_heating_fuel": [heat] * n,
+    }
     d.update(extra)
     df = pl.DataFrame(d)
     return df.with_columns(((pl.col("period_end") - pl.col("period_start")).dt.total_days() + 1).alias("days"))
@@ -294,16 +314,20 @@ WS, WE = date(2025, 10, 1), date(2026, 9, 30)  # as-of 2026-10-15 -> this window
 
 
 def test_choose_spans_rules():
-    s, e = monthly(2024, 33)                     # 2024-01 .. 2026-09 monthly
+    s, e = monthly(2024, 33)  # 2024-01 .. 2026-09 monthly
     full = _reads("a_full", s, e)
-    late = _reads("b_late", s[:-1], e[:-1])      # the September 2026 bill is late
+    late = _reads("b_late", s[:-1], e[:-1])  # the September 2026 bill is late
     annual = _reads("c_annual", [date(2024, 1, 1), date(2025, 1, 1)], [date(2024, 12, 31), date(2025, 12, 31)])
     holey = _reads("d_holey", [x for i, x in enumerate(s) if i % 2 == 0], [x for i, x in enumerate(e) if i % 2 == 0])
     other = _reads("a_full", [date(2026, 1, 1)], [date(2026, 1, 31)], fuel="electricity", heat=False)
     r = pl.concat([full, late, annual, holey, other])
     sp = M.choose_spans(r, WS, WE, building_ids=["a_full", "b_late", "c_annual", "d_holey", "e_none"])
     rows = {x["building_id"]: x for x in sp.to_dicts()}
-    assert (rows["a_full"]["span_kind"], rows["a_full"]["span_start"], rows["a_full"]["coverage"]) == ("window", WS, 1.0)
+    assert (rows["a_full"]["span_kind"], rows["a_full"]["span_start"], rows["a_full"]["coverage"]) == (
+        "window",
+        WS,
+        1.0,
+    )
     assert rows["b_late"]["span_kind"] == "shifted"
     assert (rows["b_late"]["span_start"], rows["b_late"]["span_end"]) == (date(2025, 9, 1), date(2026, 8, 31))
     assert rows["c_annual"]["span_kind"] == "shifted"
@@ -323,11 +347,12 @@ def test_choose_spans_rules():
 
 # ------------------------------------------------------------------------------ calendarization
 
+
 def test_calendarize_by_days_by_hand():
-    r = _reads("a", [date(2025, 9, 22)], [date(2025, 10, 22)], q=[310.0])   # 31 days, 22 in the span
+    r = _reads("a", [date(2025, 9, 22)], [date(2025, 10, 22)], q=[310.0])  # 31 days, 22 in the span
     sp = pl.DataFrame({"building_id": ["a"], "span_start": [WS], "span_end": [WE]})
     c = M.calendarize(r, sp)
-    assert c["energy_kbtu"][0] == pytest.approx(310.0 * 22 / 31, rel=1e-15)   # by hand
+    assert c["energy_kbtu"][0] == pytest.approx(310.0 * 22 / 31, rel=1e-15)  # by hand
     assert c["covered_days"][0] == 22 and c["span_days"][0] == 365
 
 
@@ -340,12 +365,21 @@ def test_calendarize_conserves_energy():
     cut1, cut2 = date(2021, 11, 17), date(2022, 8, 3)
     # three buildings with the same reads and spans that partition [first start, last end]
     r = pl.concat([base.with_columns(pl.lit(b).alias("building_id")) for b in ("p1", "p2", "p3")])
-    sp = pl.DataFrame({"building_id": ["p1", "p2", "p3"], "span_start": [lo, cut1, cut2 + timedelta(days=1)],
-                       "span_end": [cut1 - timedelta(days=1), cut2, hi]})
+    sp = pl.DataFrame(
+        {
+            "building_id": ["p1", "p2", "p3"],
+            "span_start": [lo, cut1, cut2 + timedelta(days=1)],
+            "span_end": [cut1 - timedelta(days=1), cut2, hi],
+        }
+    )
     days = (hi - lo).days + 1
-    w = pl.DataFrame({"building_id": np.repeat(["p1", "p2", "p3"], days),
-                      "date": [lo + timedelta(days=i) for i in range(days)] * 3,
-                      "weight": np.tile(np.maximum(65 - temps(days), 0.0), 3)})
+    w = pl.DataFrame(
+        {
+            "building_id": np.repeat(["p1", "p2", "p3"], days),
+            "date": [lo + timedelta(days=i) for i in range(days)] * 3,
+            "weight": np.tile(np.maximum(65 - temps(days), 0.0), 3),
+        }
+    )
     for method in ("days", "degree_days"):
         c = M.calendarize(r, sp, method=method, daily_weights=w if method == "degree_days" else None)
         assert c["energy_kbtu"].sum() == pytest.approx(q.sum(), rel=1e-12)
@@ -358,10 +392,12 @@ def test_calendarize_conserves_energy():
 
 
 def test_calendarize_degree_day_weights_by_hand():
-    r = _reads("a", [date(2025, 9, 30)], [date(2025, 10, 1)], q=[100.0])   # 2 days, 1 in the span
+    r = _reads("a", [date(2025, 9, 30)], [date(2025, 10, 1)], q=[100.0])  # 2 days, 1 in the span
     sp = pl.DataFrame({"building_id": ["a"], "span_start": [WS], "span_end": [WE]})
     w = pl.DataFrame({"building_id": ["a", "a"], "date": [date(2025, 9, 30), date(2025, 10, 1)], "weight": [1.0, 3.0]})
-    assert M.calendarize(r, sp, method="degree_days", daily_weights=w)["energy_kbtu"][0] == pytest.approx(75.0)  # 100 x 3/4
+    assert M.calendarize(r, sp, method="degree_days", daily_weights=w)["energy_kbtu"][0] == pytest.approx(
+        75.0
+    )  # 100 x 3/4
     w0 = w.with_columns(pl.lit(0.0).alias("weight"))  # a summer bill: no degree days -> by days
     assert M.calendarize(r, sp, method="degree_days", daily_weights=w0)["energy_kbtu"][0] == pytest.approx(50.0)
     with pytest.raises(ValueError, match="method='degree_days' needs daily_weights"):
@@ -372,14 +408,18 @@ def test_calendarize_degree_day_weights_by_hand():
 
 # ------------------------------------------------------------------------------ issues
 
+
 def test_reading_issues_name_the_dates():
     s, e = monthly(2025, 12)
-    s = list(s); e = list(e)
+    s = list(s)
+    e = list(e)
     # gap: drop March 2025; overlap: April read runs to May 10; duplicate: June read twice
     keep = [i for i in range(12) if i != 2]
-    ss = [s[i] for i in keep]; ee = [e[i] for i in keep]
+    ss = [s[i] for i in keep]
+    ee = [e[i] for i in keep]
     ee[2] = date(2025, 5, 10)
-    ss.append(s[5]); ee.append(e[5])
+    ss.append(s[5])
+    ee.append(e[5])
     est = [i in (0, 1, 3, 4, 6) for i in range(len(ss))]
     r = _reads("a", ss, ee, estimated=est, _line=list(range(2, 2 + len(ss))))
     sp = M.choose_spans(r, date(2025, 1, 1), date(2025, 12, 31))
@@ -392,7 +432,7 @@ def test_reading_issues_name_the_dates():
     assert d["gap_in_reads"]["detail"] == "no read 2025-03-01..2025-03-31 (31 days)"
     assert not d["gap_in_reads"]["blocking"]
     assert d["many_estimated_reads"]["detail"].startswith("5 of 12 reads in the span estimated: 2025-01-01..2025-01-31")
-    assert "low_coverage" not in d        # 334/365 = 91.5 % >= 90 %
+    assert "low_coverage" not in d  # 334/365 = 91.5 % >= 90 %
     sp_low = sp.with_columns(pl.lit(0.5).alias("coverage"))
     assert M.reading_issues(r, sp_low).filter(pl.col("code") == "low_coverage")["blocking"][0]
     assert iss["building_id"].to_list() == ["a"] * iss.height
@@ -400,6 +440,7 @@ def test_reading_issues_name_the_dates():
 
 
 # ------------------------------------------------------------------------------ combination
+
 
 def test_metered_heating_end_to_end():
     # building "reg": 24 monthly bills 2021-01..2022-12 (tiled TMY), α 20, β 0.9, τ 60, no noise
@@ -414,19 +455,33 @@ def test_metered_heating_end_to_end():
     periods = M.fit_periods(r, sp)
     p_hdd = hdd(periods["period_start"].to_list(), periods["period_end"].to_list(), GRID)
     span_hdd = hdd([ws, ws], [we, we], GRID)
-    normal = 1.1 * span_hdd                      # an invented normal year 10 % colder
-    blds = pl.DataFrame({"building_id": ["ann", "reg"], "use_type": ["office", "school"],
-                         "heating_fuel": ["natural_gas", "natural_gas"]})
-    out = M.metered_heating(r, sp, blds, periods=periods, period_hdd=p_hdd, span_hdd=span_hdd,
-                            normal_hdd=normal, base_grid_f=GRID, efficiency=np.array([0.8, 0.8]),
-                            engineering_base_f=np.array([55.0, 55.0]))
+    normal = 1.1 * span_hdd  # an invented normal year 10 % colder
+    blds = pl.DataFrame(
+        {
+            "building_id": ["ann", "reg"],
+            "use_type": ["office", "school"],
+            "heating_fuel": ["natural_gas", "natural_gas"],
+        }
+    )
+    out = M.metered_heating(
+        r,
+        sp,
+        blds,
+        periods=periods,
+        period_hdd=p_hdd,
+        span_hdd=span_hdd,
+        normal_hdd=normal,
+        base_grid_f=GRID,
+        efficiency=np.array([0.8, 0.8]),
+        engineering_base_f=np.array([55.0, 55.0]),
+    )
     a, g = out.row(0, named=True), out.row(1, named=True)
     hdd60 = hdd([ws], [we], [60.0])[0, 0]
     assert g["fit_method"] == "regression" and g["fitted_base_f"] == 60.0
-    assert g["baseload_kbtu"] == pytest.approx(20.0 * 365, rel=1e-9)           # α x days, by hand
-    assert g["actual_heating_kbtu"] == pytest.approx(0.9 * hdd60, rel=1e-9)     # β x HDD60 of the window, by hand
+    assert g["baseload_kbtu"] == pytest.approx(20.0 * 365, rel=1e-9)  # α x days, by hand
+    assert g["actual_heating_kbtu"] == pytest.approx(0.9 * hdd60, rel=1e-9)  # β x HDD60 of the window, by hand
     assert g["normal_heating_kbtu"] == pytest.approx(0.9 * 1.1 * hdd60, rel=1e-9)
-    assert g["effective_ua_btu_h_f"] == pytest.approx(0.9 * 1000 * 0.8 / 24, rel=1e-9)   # β·η/24, kBtu->Btu
+    assert g["effective_ua_btu_h_f"] == pytest.approx(0.9 * 1000 * 0.8 / 24, rel=1e-9)  # β·η/24, kBtu->Btu
     assert g["n_periods"] == 24 and g["r2"] == pytest.approx(1.0, abs=1e-12)
     # annual reads -> default share: office 5.7 % (CBECS 2003, baseload_shares.csv)
     assert a["fit_method"] == "default share" and a["fitted_base_f"] is None
@@ -436,17 +491,28 @@ def test_metered_heating_end_to_end():
     assert a["heating_slope_kbtu_per_dd"] == pytest.approx(0.943 * 50_000.0 / hdd55, rel=1e-9)
     assert a["normal_heating_kbtu"] == pytest.approx(1.1 * 0.943 * 50_000.0, rel=1e-9)
     with pytest.raises(ValueError, match=r"efficiency has shape \(3,\); expected \(2,\)"):
-        M.metered_heating(r, sp, blds, periods=periods, period_hdd=p_hdd, span_hdd=span_hdd, normal_hdd=normal,
-                          base_grid_f=GRID, efficiency=np.ones(3), engineering_base_f=np.array([55.0, 55.0]))
+        M.metered_heating(
+            r,
+            sp,
+            blds,
+            periods=periods,
+            period_hdd=p_hdd,
+            span_hdd=span_hdd,
+            normal_hdd=normal,
+            base_grid_f=GRID,
+            efficiency=np.ones(3),
+            engineering_base_f=np.array([55.0, 55.0]),
+        )
 
 
 # ------------------------------------------------------------------------------ issue 14: the window's end, missing bills
 
+
 def test_bills_read_a_few_days_early_keep_the_window():
-    s, e = monthly(2024, 33)                                   # 2024-01 .. 2026-09 monthly
+    s, e = monthly(2024, 33)  # 2024-01 .. 2026-09 monthly
     early = _reads("a_early", s, e[:-1] + [date(2026, 9, 24)])  # last read 6 days before the window's end
-    late = _reads("b_late", s[:-1], e[:-1])                    # September 2026 not read yet: 30 days
-    long_ = _reads("c_long", s[:-2], e[:-2])                   # August and September missing: 61 days
+    late = _reads("b_late", s[:-1], e[:-1])  # September 2026 not read yet: 30 days
+    long_ = _reads("c_long", s[:-2], e[:-2])  # August and September missing: 61 days
     holey = _reads("d_holey", [x for i, x in enumerate(s) if i != 30], [x for i, x in enumerate(e) if i != 30])
     r = pl.concat([early, late, long_, holey])
     sp = {x["building_id"]: x for x in M.choose_spans(r, WS, WE, fill_end_days=35).to_dicts()}
@@ -465,23 +531,26 @@ def test_bills_read_a_few_days_early_keep_the_window():
 
 def test_missing_bills_are_named_with_their_dates():
     s, e = monthly(2024, 33)
-    keep = [i for i in range(33) if i not in (24, 25)]         # January and February 2026 missing
+    keep = [i for i in range(33) if i not in (24, 25)]  # January and February 2026 missing
     one = _reads("a", [s[i] for i in keep], [e[i] for i in keep], meter_id=["M1"] * len(keep))
     # two meters: M2 misses May 2026 while M1 covers every day
     m1 = _reads("b", s, e, meter_id=["M1"] * 33)
     keep2 = [i for i in range(33) if i != 28]
     m2 = _reads("b", [s[i] for i in keep2], [e[i] for i in keep2], meter_id=["M2"] * len(keep2))
-    annual = _reads("c", [date(2024, 1, 1), date(2025, 1, 1)], [date(2024, 12, 31), date(2025, 12, 31)],
-                    meter_id=["M1", "M1"])
+    annual = _reads(
+        "c", [date(2024, 1, 1), date(2025, 1, 1)], [date(2024, 12, 31), date(2025, 12, 31)], meter_id=["M1", "M1"]
+    )
     early = _reads("d", s, e[:-1] + [date(2026, 9, 24)], meter_id=["M1"] * 33)
     stopped = _reads("e", s[:-3], e[:-3], meter_id=["M1"] * 30)  # no bill after June 2026
     r = pl.concat([one, m1, m2, annual, early, stopped])
     sp = M.choose_spans(r, WS, WE, fill_end_days=35)
     g = M.missing_bills(r, WS, WE, spans=sp)
     rows = [(x["building_id"], x["meter_id"], x["gap_start"], x["gap_end"], x["days"]) for x in g.to_dicts()]
-    assert rows == [("a", None, date(2026, 1, 1), date(2026, 2, 28), 59),
-                    ("b", "M2", date(2026, 5, 1), date(2026, 5, 31), 31),
-                    ("e", None, date(2026, 7, 1), date(2026, 9, 30), 92)]
+    assert rows == [
+        ("a", None, date(2026, 1, 1), date(2026, 2, 28), 59),
+        ("b", "M2", date(2026, 5, 1), date(2026, 5, 31), 31),
+        ("e", None, date(2026, 7, 1), date(2026, 9, 30), 92),
+    ]
     # the annual building's 2026 bill is not due yet; the early read's last 6 days are filled, not missing
 
 
@@ -501,13 +570,20 @@ def test_filled_end_days_come_from_the_buildings_fit():
     span_hdd = hdd([ws], [we], GRID)
     fill_hdd = hdd([date(2022, 12, 26)], [we], GRID)
     blds = pl.DataFrame({"building_id": ["reg"], "use_type": ["school"], "heating_fuel": ["natural_gas"]})
-    kw = dict(periods=periods, period_hdd=p_hdd, span_hdd=span_hdd, normal_hdd=span_hdd, base_grid_f=GRID,
-              efficiency=np.array([0.8]), engineering_base_f=np.array([55.0]))
+    kw = dict(
+        periods=periods,
+        period_hdd=p_hdd,
+        span_hdd=span_hdd,
+        normal_hdd=span_hdd,
+        base_grid_f=GRID,
+        efficiency=np.array([0.8]),
+        engineering_base_f=np.array([55.0]),
+    )
     g = M.metered_heating(r, sp, blds, fill_hdd=fill_hdd, **kw).row(0, named=True)
     hdd60 = hdd([ws], [we], [60.0])[0, 0]
     assert g["filled_days"] == 6
     assert g["filled_kbtu"] == pytest.approx(20.0 * 6 + 0.9 * fill_hdd[0, GRID.tolist().index(60.0)], rel=1e-9)
-    assert g["total_fuel_kbtu"] == pytest.approx(use[12:].sum(), rel=1e-9)        # the full year's bills
+    assert g["total_fuel_kbtu"] == pytest.approx(use[12:].sum(), rel=1e-9)  # the full year's bills
     assert g["baseload_kbtu"] == pytest.approx(20.0 * 365, rel=1e-9)
     assert g["actual_heating_kbtu"] == pytest.approx(0.9 * hdd60, rel=1e-9)
     with pytest.raises(ValueError, match="filled_days > 0 but no fill_hdd"):
@@ -518,8 +594,14 @@ def test_filled_end_days_without_a_fit_follow_days_and_degree_days():
     # six two-month bills (fewer than 9 periods: no fit), the last read on 2022-12-25: the office's
     # default share s (5.7 %, CBECS 2003) is filled by days, the rest by degree days at T_eng (by hand)
     s = [date(2022, m, 1) for m in (1, 3, 5, 7, 9, 11)]
-    e = [date(2022, 2, 28), date(2022, 4, 30), date(2022, 6, 30), date(2022, 8, 31), date(2022, 10, 31),
-         date(2022, 12, 25)]
+    e = [
+        date(2022, 2, 28),
+        date(2022, 4, 30),
+        date(2022, 6, 30),
+        date(2022, 8, 31),
+        date(2022, 10, 31),
+        date(2022, 12, 25),
+    ]
     q = [900.0, 700.0, 300.0, 200.0, 400.0, 800.0]
     r = _reads("ann", s, e, q=q)
     ws, we = date(2022, 1, 1), date(2022, 12, 31)
@@ -530,9 +612,19 @@ def test_filled_end_days_without_a_fit_follow_days_and_degree_days():
     blds = pl.DataFrame({"building_id": ["ann"], "use_type": ["office"], "heating_fuel": ["natural_gas"]})
     periods = M.fit_periods(r, sp)
     p_hdd = hdd(periods["period_start"].to_list(), periods["period_end"].to_list(), GRID)
-    g = M.metered_heating(r, sp, blds, periods=periods, period_hdd=p_hdd, span_hdd=span_hdd, normal_hdd=span_hdd,
-                          base_grid_f=GRID, efficiency=np.array([0.8]), engineering_base_f=np.array([55.0]),
-                          fill_hdd=fill_hdd).row(0, named=True)
+    g = M.metered_heating(
+        r,
+        sp,
+        blds,
+        periods=periods,
+        period_hdd=p_hdd,
+        span_hdd=span_hdd,
+        normal_hdd=span_hdd,
+        base_grid_f=GRID,
+        efficiency=np.array([0.8]),
+        engineering_base_f=np.array([55.0]),
+        fill_hdd=fill_hdd,
+    ).row(0, named=True)
     k = GRID.tolist().index(55.0)
     fill = sum(q) * (0.057 * 6 / 359 + 0.943 * fill_hdd[0, k] / (span_hdd[0, k] - fill_hdd[0, k]))
     assert g["fit_method"] == "default share"

@@ -45,10 +45,10 @@ def test_read_dates_chain_per_meter_and_the_first_read_is_listed(tmp_path):
     ld = read_readings(_write(tmp_path, "reads.csv", READS))
     got = ld.df.select("building_id", "meter_id", "period_start", "period_end", "quantity").rows()
     assert got == [
-        ("B01", "G1", D(2024, 1, 16), D(2024, 2, 14), 420.0),   # the day after the previous read
-        ("B01", "G1", D(2024, 2, 15), D(2024, 3, 15), 310.0),   # rows out of order in the file
-        ("B01", "G2", D(2024, 3, 2), D(2024, 4, 1), 40.0),      # the rejected row's read still ends a period
-        ("B02", "", D(2024, 2, 1), D(2024, 2, 29), 80.0),       # an exact duplicate kept once
+        ("B01", "G1", D(2024, 1, 16), D(2024, 2, 14), 420.0),  # the day after the previous read
+        ("B01", "G1", D(2024, 2, 15), D(2024, 3, 15), 310.0),  # rows out of order in the file
+        ("B01", "G2", D(2024, 3, 2), D(2024, 4, 1), 40.0),  # the rejected row's read still ends a period
+        ("B02", "", D(2024, 2, 1), D(2024, 2, 29), 80.0),  # an exact duplicate kept once
     ]
     rej = {(r["line"], r["column"]): r["reason"] for r in ld.rejects.iter_rows(named=True)}
     first = "first read of this meter: it opens the record"
@@ -72,6 +72,7 @@ def test_period_end_without_period_start_is_a_read_date_and_mapping_works(tmp_pa
 
 def test_a_file_without_start_or_read_dates_still_names_period_start(tmp_path):
     from screening.errors import InputError
+
     p = _write(tmp_path, "none.csv", "building_id,fuel,quantity,unit\nB01,natural_gas,3,therm\n")
     with pytest.raises(InputError, match="column 'period_start': missing required column"):
         read_readings(p)
@@ -81,13 +82,28 @@ def test_a_run_on_read_date_bills(portfolio, tmp_path):
     df = pl.read_csv(portfolio.readings, infer_schema_length=0).drop("period_start").rename({"period_end": "read_date"})
     bills = tmp_path / "reads.csv"
     df.write_csv(bills)
-    r = cli(["run", "--buildings", str(portfolio.buildings), "--readings", str(bills), "--weather",
-             str(portfolio.weather), "--as-of", portfolio.as_of, "--no-sheets", "--out", str(tmp_path / "o"),
-             "--db", str(tmp_path / "s.duckdb")])
+    r = cli(
+        [
+            "run",
+            "--buildings",
+            str(portfolio.buildings),
+            "--readings",
+            str(bills),
+            "--weather",
+            str(portfolio.weather),
+            "--as-of",
+            portfolio.as_of,
+            "--no-sheets",
+            "--out",
+            str(tmp_path / "o"),
+            "--db",
+            str(tmp_path / "s.duckdb"),
+        ]
+    )
     assert r.exit_code == 0, r.stderr
     rejects = pl.read_csv(tmp_path / "o" / "rejects.csv")
     firsts = rejects.filter(pl.col("reason").str.starts_with("first read of this meter"))
-    assert firsts.height == portfolio.n_buildings   # one meter each
+    assert firsts.height == portfolio.n_buildings  # one meter each
     ranking = pl.read_csv(tmp_path / "o" / "ranking.csv")
     assert ranking.filter(pl.col("building_id") == portfolio.wasteful)["tier"][0] != "Fix data first"
 
@@ -106,13 +122,14 @@ B01,natural_gas,2024-05-01,2024-05-31,"12,5",therm,10
 def test_separators_and_currency_without_the_setting_are_rejected_with_what_to_set(tmp_path):
     ld = read_readings(_write(tmp_path, "money.csv", MONEY))
     rej = {(r["line"], r["column"]): r["reason"] for r in ld.rejects.iter_rows(named=True)}
-    assert rej[(2, "quantity")] == ('1,485: a thousands separator (or a decimal comma); set [reading] thousands = "," '
-                                    "(or decimal_comma = true)")
+    assert rej[(2, "quantity")] == (
+        '1,485: a thousands separator (or a decimal comma); set [reading] thousands = "," (or decimal_comma = true)'
+    )
     assert rej[(2, "cost")] == '$1,855.76: a thousands separator; set [reading] thousands = ","'
     assert rej[(4, "quantity")] == "a currency symbol in a column that is not an amount of money"
-    assert rej[(5, "quantity")] == "1,48: a decimal comma; set [reading] decimal_comma = true"   # not in threes
+    assert rej[(5, "quantity")] == "1,48: a decimal comma; set [reading] decimal_comma = true"  # not in threes
     assert rej[(6, "quantity")] == "12,5: a decimal comma; set [reading] decimal_comma = true"
-    assert ld.df["cost"].to_list() == [12.0]   # the $ of a cost is removed
+    assert ld.df["cost"].to_list() == [12.0]  # the $ of a cost is removed
     assert any("cost: 1 currency symbol(s) removed" in n for n in ld.notices)
 
 
@@ -121,9 +138,11 @@ def test_separators_are_read_when_the_setting_says_so(tmp_path):
     assert ld.df.select("quantity", "cost").rows() == [(1485.0, 1855.76), (1485.5, 12.0)]
     assert {r["line"] for r in ld.rejects.iter_rows(named=True)} == {4, 5, 6}
     assert any("quantity: 1 value(s) read with the thousands separator ','" in n for n in ld.notices)
-    eu = "building_id,fuel,period_start,period_end,quantity,unit,cost\n" \
-         "B01,natural_gas,2024-01-01,2024-01-31,1.485,therm,\"1.855,76 €\"\n" \
-         "B01,natural_gas,2024-02-01,2024-02-29,1 485,therm,3\n"
+    eu = (
+        "building_id,fuel,period_start,period_end,quantity,unit,cost\n"
+        'B01,natural_gas,2024-01-01,2024-01-31,1.485,therm,"1.855,76 €"\n'
+        "B01,natural_gas,2024-02-01,2024-02-29,1 485,therm,3\n"
+    )
     ld_eu = read_readings(_write(tmp_path, "eu.csv", eu), ReadOptions(decimal_comma=True, thousands="."))
     assert ld_eu.df.select("quantity", "cost").rows() == [(1485.0, 1855.76)]
     assert ld_eu.rejects["line"].to_list() == [3]
@@ -133,8 +152,9 @@ def test_separators_are_read_when_the_setting_says_so(tmp_path):
 
 def test_percent_signs_are_shares_only_where_a_share_is_meant(tmp_path):
     head = "building_id,name,station_id,use_type,floor_area,heating_fuel,heating_efficiency\n"
-    p = _write(tmp_path, "b.csv", head + "B01,One,st,office,1000,natural_gas,85%\n"
-                                         "B02,Two,st,office,50%,natural_gas,0.8\n")
+    p = _write(
+        tmp_path, "b.csv", head + "B01,One,st,office,1000,natural_gas,85%\nB02,Two,st,office,50%,natural_gas,0.8\n"
+    )
     ld = read_buildings(p)
     assert ld.df["heating_efficiency"].to_list() == [pytest.approx(0.85)]
     assert ld.rejects.rows() == [(str(p), 3, "floor_area", "50%", "a percent sign in a column that is not a share")]
@@ -153,11 +173,23 @@ def test_thousands_setting_is_checked(tmp_path, value):
 
 # ---------------------------------------------------------------------------- --date-order
 
+
 def test_date_order_on_the_command_line(portfolio, tmp_path):
-    slash = _write(tmp_path, "slash.csv", "building_id,fuel,period_start,period_end,quantity,unit\n"
-                   "B01,natural_gas,01/03/2024,10/03/2024,5,therm\nB01,natural_gas,11/03/2024,12/04/2024,5,therm\n")
-    base = ["validate", "--buildings", str(portfolio.buildings), "--readings", str(slash),
-            "--weather", str(portfolio.weather)]
+    slash = _write(
+        tmp_path,
+        "slash.csv",
+        "building_id,fuel,period_start,period_end,quantity,unit\n"
+        "B01,natural_gas,01/03/2024,10/03/2024,5,therm\nB01,natural_gas,11/03/2024,12/04/2024,5,therm\n",
+    )
+    base = [
+        "validate",
+        "--buildings",
+        str(portfolio.buildings),
+        "--readings",
+        str(slash),
+        "--weather",
+        str(portfolio.weather),
+    ]
     first = cli(base)
     assert first.exit_code == 2 and "date_order" in first.stdout
     ok = cli(base + ["--date-order", "dmy"])
@@ -179,6 +211,7 @@ def test_degree_days_reads_slash_dates_with_date_order(tmp_path):
 
 
 # ---------------------------------------------------------------------------- degree-day base in the other unit
+
 
 def test_a_celsius_base_on_a_fahrenheit_file_is_named(tmp_path):
     r = cli(["degree-days", "--weather", str(DATA / "dd_daily_small.csv"), "--station", "FERN-7", "--base", "18"])
@@ -202,6 +235,7 @@ def test_a_fahrenheit_base_on_a_celsius_file_is_named(tmp_path):
 @pytest.mark.parametrize("kw", [{}, {"thousands": ","}, {"decimal_comma": True}, {"money": True, "share": True}])
 def test_number_formats_of_no_values(kw):
     from screening.parse import number_text
+
     out, problem, counts = number_text(pl.Series("q", [], dtype=pl.String), **kw)
     assert (out.len(), problem.len(), out.dtype, problem.dtype) == (0, 0, pl.String, pl.String)
     assert counts == {"currency": 0, "percent": 0, "thousands": 0}

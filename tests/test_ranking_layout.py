@@ -25,7 +25,7 @@ from screening.resources import sample_portfolio_dir
 from .conftest import cli
 
 MM = 72 / 25.4
-SIDE = 12 * MM              # ranking.css: 12 mm side margins
+SIDE = 12 * MM  # ranking.css: 12 mm side margins
 PAPER = {"Letter": (612.0, 792.0), "A4": (595.28, 841.89)}
 
 
@@ -37,15 +37,35 @@ def runs(tmp_path_factory):
     src = sample_portfolio_dir()
     b = pl.read_csv(src / "buildings.csv", infer_schema_length=0)
     num = {c: pl.col(c).cast(pl.Float64) for c in ("floor_area", "ua_total", "balance_point")}
-    b.with_columns((num["floor_area"] * 0.09290304).alias("floor_area"),
-                   (num["ua_total"] * 0.5275279).alias("ua_total"),
-                   ((num["balance_point"] - 32) / 1.8).round(3).alias("balance_point")).write_csv(root / "b_si.csv")
+    b.with_columns(
+        (num["floor_area"] * 0.09290304).alias("floor_area"),
+        (num["ua_total"] * 0.5275279).alias("ua_total"),
+        ((num["balance_point"] - 32) / 1.8).round(3).alias("balance_point"),
+    ).write_csv(root / "b_si.csv")
     pl.read_csv(src / "weather.csv", infer_schema_length=0).with_columns(
         [((pl.col(c).cast(pl.Float64) - 32) / 1.8).round(2).alias(c) for c in ("t_min", "t_max")]
     ).write_csv(root / "w_si.csv")
-    res = cli(["run", "--buildings", str(root / "b_si.csv"), "--readings", str(src / "readings.csv"),
-               "--weather", str(root / "w_si.csv"), "--units", "SI", "--out", str(root / "si"),
-               "--db", str(root / "si.duckdb"), "--as-of", "2026-10-15", "--no-sheets", "--quiet"])
+    res = cli(
+        [
+            "run",
+            "--buildings",
+            str(root / "b_si.csv"),
+            "--readings",
+            str(src / "readings.csv"),
+            "--weather",
+            str(root / "w_si.csv"),
+            "--units",
+            "SI",
+            "--out",
+            str(root / "si"),
+            "--db",
+            str(root / "si.duckdb"),
+            "--as-of",
+            "2026-10-15",
+            "--no-sheets",
+            "--quiet",
+        ]
+    )
     assert res.exit_code == 0, res.stderr
     return {"Letter": root / "demo" / "ranking.pdf", "A4": root / "si" / "ranking.pdf"}
 
@@ -67,8 +87,10 @@ def _overlaps(chars: list[dict]) -> list[tuple]:
     for ks in grid.values():
         for a, b in itertools.combinations(ks, 2):
             A, B = chars[a], chars[b]
-            if (min(A["x1"], B["x1"]) - max(A["x0"], B["x0"]) > 0.6
-                    and min(A["bottom"], B["bottom"]) - max(A["top"], B["top"]) > 0.6):
+            if (
+                min(A["x1"], B["x1"]) - max(A["x0"], B["x0"]) > 0.6
+                and min(A["bottom"], B["bottom"]) - max(A["top"], B["top"]) > 0.6
+            ):
                 found.add((A["text"], B["text"], round(A["x0"]), round(A["top"])))
     return sorted(found)
 
@@ -80,9 +102,14 @@ def test_every_character_inside_the_page_and_none_overlapping(runs, paper):
         for i, page in enumerate(pdf.pages, 1):
             assert (page.width, page.height) == pytest.approx(PAPER[paper], abs=0.5)
             chars = _chars(page)
-            outside = [(c["text"], round(c["x0"]), round(c["x1"]), round(c["top"])) for c in chars
-                       if c["x0"] < SIDE - 0.5 or c["x1"] > page.width - SIDE + 0.5
-                       or c["top"] < 0 or c["bottom"] > page.height]
+            outside = [
+                (c["text"], round(c["x0"]), round(c["x1"]), round(c["top"]))
+                for c in chars
+                if c["x0"] < SIDE - 0.5
+                or c["x1"] > page.width - SIDE + 0.5
+                or c["top"] < 0
+                or c["bottom"] > page.height
+            ]
             assert not outside, (paper, i, outside[:5])
             overlapping = _overlaps(chars)
             assert not overlapping, (paper, i, overlapping[:5])
@@ -106,15 +133,17 @@ def test_ranked_table_words_stay_in_their_column_and_nothing_is_cut(runs, paper)
             top = head[0]["top"]
             body = [w for w in words if w["top"] >= top - 0.5 and w["bottom"] < page.height - 16 * MM]
             for w in body:
-                inside = [j for j in range(len(edges) - 1) if edges[j] - 0.5 <= w["x0"] and w["x1"] <= edges[j + 1] + 0.5]
+                inside = [
+                    j for j in range(len(edges) - 1) if edges[j] - 0.5 <= w["x0"] and w["x1"] <= edges[j + 1] + 0.5
+                ]
                 assert inside, (paper, w["text"], round(w["x0"]), round(w["x1"]), [round(e) for e in edges])
             text += page.extract_text() + "\n"
     assert table_pages >= 2
-    assert "…" not in text                                        # nothing of the demo is cut
+    assert "…" not in text  # nothing of the demo is cut
     assert "Fix data first" in text.replace("\n", " ") or "Fix data\nfirst" in text
     ranking = pl.read_csv(runs[paper].with_name("ranking.csv"), schema_overrides={"flags": pl.String})
     flat = text.replace("\n", " ").replace("_ ", "_").replace("; ", ";")
-    for flags in ranking["flags"].drop_nulls().unique().to_list():   # every flag code of every row is there
+    for flags in ranking["flags"].drop_nulls().unique().to_list():  # every flag code of every row is there
         for code in flags.split(";"):
             assert code in flat, code
 
@@ -133,7 +162,7 @@ def test_first_page_shows_one_run_id_one_co2e_unit_and_the_excess_definition(run
     # the histogram's note counts the last bar, not the portfolio
     ratios = pl.read_csv(runs[paper].with_name("ranking.csv"))["ratio"].drop_nulls()
     note = f"last bar: ratio 3 and above, {(ratios >= 2.95).sum()} building(s) of the {ratios.len()} plotted"
-    assert note.replace(" ", "") in "".join(first.split())      # chart text comes out without blanks
+    assert note.replace(" ", "") in "".join(first.split())  # chart text comes out without blanks
 
 
 def test_the_savings_page_shows_the_measures_the_total_and_the_hit_rate(runs):
@@ -144,7 +173,7 @@ def test_the_savings_page_shows_the_measures_the_total_and_the_hit_rate(runs):
         last = pdf.pages[-1].extract_text()
         other = " ".join(p.extract_text() for p in pdf.pages[:-1])
     assert last.startswith("Savings after measures") and "Savings after measures" not in other
-    for r in saved.iter_rows(named=True):   # each measure: id, avoided energy and its 90 % interval as in savings.csv
+    for r in saved.iter_rows(named=True):  # each measure: id, avoided energy and its 90 % interval as in savings.csv
         line = next(ln for ln in last.splitlines() if ln.startswith(r["building_id"]))
         assert report.fmt_num(r["avoided_energy"]) in line
         assert f"{report.fmt_num(r['avoided_low_90'])} to {report.fmt_num(r['avoided_high_90'])}" in line
@@ -163,10 +192,11 @@ def test_the_savings_page_shows_the_measures_the_total_and_the_hit_rate(runs):
 
 def test_the_portfolio_page_shows_the_hit_rate(runs):
     from html.parser import HTMLParser
+
     demo = runs["Letter"]
     hr = json.loads(demo.with_name("summary.json").read_text())["audit_hit_rate"]
 
-    class Section(HTMLParser):   # the text inside <section id="hit-rate">
+    class Section(HTMLParser):  # the text inside <section id="hit-rate">
         depth, text = 0, []
 
         def handle_starttag(self, tag, attrs):
@@ -180,6 +210,7 @@ def test_the_portfolio_page_shows_the_hit_rate(runs):
         def handle_data(self, data):
             if self.depth:
                 self.text.append(data)
+
     p = Section()
     p.feed(demo.with_name("index.html").read_text(encoding="utf-8"))
     text = " ".join(" ".join(p.text).split())

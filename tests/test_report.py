@@ -24,13 +24,32 @@ A4 = (595.28, 841.89)
 
 # --- file names ---------------------------------------------------------------------
 
+
 def test_safe_id_is_kept():
     assert report.safe_filename("B-1001") == "B-1001"
     assert report.safe_filename("site_7.north") == "site_7.north"
 
 
-@pytest.mark.parametrize("bid", ["../../etc/passwd", "a/b", "a\\b", "x\x00y", "CON", "nul", "Com1.pdf", "LPT9",
-                                 "", "...", " lead", "trail.", "é" * 5, "x" * 500, "<script>"])
+@pytest.mark.parametrize(
+    "bid",
+    [
+        "../../etc/passwd",
+        "a/b",
+        "a\\b",
+        "x\x00y",
+        "CON",
+        "nul",
+        "Com1.pdf",
+        "LPT9",
+        "",
+        "...",
+        " lead",
+        "trail.",
+        "é" * 5,
+        "x" * 500,
+        "<script>",
+    ],
+)
 def test_unsafe_ids_get_a_safe_hashed_stem(bid):
     stem = report.safe_filename(bid)
     assert stem != bid
@@ -55,11 +74,14 @@ def test_assign_filenames_unique_without_case_and_order_free():
 
 # --- URL fetcher --------------------------------------------------------------------
 
+
 @pytest.fixture
 def no_network(monkeypatch):
     """Any attempt to open a socket or a urllib request fails the test."""
+
     def refuse(*a, **k):
         raise AssertionError(f"network access attempted: {a[:2]}")
+
     monkeypatch.setattr(socket.socket, "connect", refuse)
     monkeypatch.setattr(socket, "create_connection", refuse)
 
@@ -68,9 +90,16 @@ def test_fetcher_refuses_remote_and_outside_files(no_network, tmp_path):
     f = report.AssetFetcher()
     outside = tmp_path / "secret.css"
     outside.write_text("body{}")
-    for url in ["http://198.51.100.7/x.png", "https://198.51.100.7/", "ftp://198.51.100.7/a",
-                outside.as_uri(), "file:///etc/passwd", (templates_dir() / ".." / "pyproject.toml").as_uri(),
-                "file://198.51.100.7/share/x.css", "file:///dev/urandom"]:
+    for url in [
+        "http://198.51.100.7/x.png",
+        "https://198.51.100.7/",
+        "ftp://198.51.100.7/a",
+        outside.as_uri(),
+        "file:///etc/passwd",
+        (templates_dir() / ".." / "pyproject.toml").as_uri(),
+        "file://198.51.100.7/share/x.css",
+        "file:///dev/urandom",
+    ]:
         with pytest.raises(ValueError, match="refused to fetch"):
             f.fetch(url)
     assert len(f.refused) == 8
@@ -98,10 +127,22 @@ def test_render_with_remote_references_never_fetches(no_network, tmp_path, caplo
 
 # --- formatting ---------------------------------------------------------------------
 
-@pytest.mark.parametrize("x, text", [
-    (None, "n/a"), (float("nan"), "n/a"), (float("inf"), "∞"), (0, "0"), (1234567.8, "1,234,568"),
-    (12.345, "12.3"), (0.0812, "0.0812"), (-3.2, "-3.2"), (1e12, "1.00e+12"), (999.5, "1,000"),
-])
+
+@pytest.mark.parametrize(
+    "x, text",
+    [
+        (None, "n/a"),
+        (float("nan"), "n/a"),
+        (float("inf"), "∞"),
+        (0, "0"),
+        (1234567.8, "1,234,568"),
+        (12.345, "12.3"),
+        (0.0812, "0.0812"),
+        (-3.2, "-3.2"),
+        (1e12, "1.00e+12"),
+        (999.5, "1,000"),
+    ],
+)
 def test_fmt_num(x, text):  # expected strings by hand from the documented rules
     assert report.fmt_num(x) == text
 
@@ -109,23 +150,39 @@ def test_fmt_num(x, text):  # expected strings by hand from the documented rules
 def test_fmt_money_and_co2e():
     assert report.fmt_money(12345.6) == "$12,346"
     assert report.fmt_money(-50.0) == "-$50"
-    assert report.fmt_co2e(25400.0) == ("25.4", "t")   # by hand: 25,400 kg = 25.4 t
-    assert report.fmt_co2e(950.0) == ("0.95", "t")     # one unit in every rendered output
+    assert report.fmt_co2e(25400.0) == ("25.4", "t")  # by hand: 25,400 kg = 25.4 t
+    assert report.fmt_co2e(950.0) == ("0.95", "t")  # one unit in every rendered output
     assert report.fmt_co2e(0.0) == ("0", "t") and report.fmt_co2e(3_809_200.0) == ("3,809", "t")
     assert report.fmt_co2e(None) == ("n/a", "t")
 
 
 # --- sheets -------------------------------------------------------------------------
 
+
 def known_sheet() -> dict:
     s = make_sheet(0)
-    s.update({"building_id": "B-KNOWN", "name": "Kestrel Row Depot", "actual_heating": 1234567.8,
-              "expected_heating": 867000.4, "ratio": 1.4234, "excess_energy": 367567.4, "excess_cost": 12345.6,
-              "excess_co2e_kg": 25400.0, "heating_intensity": 7.412, "peer_median_intensity": 5.55,
-              "expected_recoverable_cost": 9876.7, "expected_recoverable_co2e_kg": 18300.0,
-              "waste_kind": "Likely heat loss: check outdoor air and dampers.", "evidence_scale": "peers",
-              # the bills' unit: therm = 100 kBtu
-              "actual_heating_billed": 12345.678, "expected_heating_billed": 8670.004, "heating_cost": 13580.2})
+    s.update(
+        {
+            "building_id": "B-KNOWN",
+            "name": "Kestrel Row Depot",
+            "actual_heating": 1234567.8,
+            "expected_heating": 867000.4,
+            "ratio": 1.4234,
+            "excess_energy": 367567.4,
+            "excess_cost": 12345.6,
+            "excess_co2e_kg": 25400.0,
+            "heating_intensity": 7.412,
+            "peer_median_intensity": 5.55,
+            "expected_recoverable_cost": 9876.7,
+            "expected_recoverable_co2e_kg": 18300.0,
+            "waste_kind": "Likely heat loss: check outdoor air and dampers.",
+            "evidence_scale": "peers",
+            # the bills' unit: therm = 100 kBtu
+            "actual_heating_billed": 12345.678,
+            "expected_heating_billed": 8670.004,
+            "heating_cost": 13580.2,
+        }
+    )
     return s
 
 
@@ -168,8 +225,9 @@ def test_overflowing_sheet_was_shrunk_not_split(tmp_path, monkeypatch):
     big = extreme_sheets()[0]
     big["building_id"] = "X-BIG"
     # let level 0 show every item so this sheet cannot fit; the shrink levels still cut
-    monkeypatch.setattr(report, "_LIMITS", [dict(report._LIMITS[0], flags=40, issues=40, steps=40, asm=40)]
-                        + report._LIMITS[1:])
+    monkeypatch.setattr(
+        report, "_LIMITS", [dict(report._LIMITS[0], flags=40, issues=40, steps=40, asm=40)] + report._LIMITS[1:]
+    )
     st: dict = {}
     paths = report.render_sheets([make_sheet(0), big, make_sheet(1)], tmp_path, workers=1, stats=st)
     assert st["batched"] == 2 and st["refit"] == 1
@@ -182,11 +240,28 @@ def test_key_numbers_in_text(rendered):
     text = PdfReader(rendered["paths"][0]).pages[0].extract_text()
     # expected strings by hand from the fixture values and the documented formats
     # (the sheet's emissions figure is the expected recoverable one: 18,300 kg = 18.3 t)
-    for s in ["Kestrel Row Depot", "B-KNOWN", "1,234,568", "867,000", "1.42", "367,567", "$12,346", "$9,877",
-              "12,346 therms", "8,670 therms", "$13,580",
-              "18.3", "Likely heat loss", "its peers' spread",
-              "7.41", "5.55", "screening estimate", "combustion",
-              "minimum indoor temperatures", "licensed"]:
+    for s in [
+        "Kestrel Row Depot",
+        "B-KNOWN",
+        "1,234,568",
+        "867,000",
+        "1.42",
+        "367,567",
+        "$12,346",
+        "$9,877",
+        "12,346 therms",
+        "8,670 therms",
+        "$13,580",
+        "18.3",
+        "Likely heat loss",
+        "its peers' spread",
+        "7.41",
+        "5.55",
+        "screening estimate",
+        "combustion",
+        "minimum indoor temperatures",
+        "licensed",
+    ]:
         assert s in text, s
 
 
@@ -262,7 +337,7 @@ def test_split_files_are_well_formed(rendered):
         offsets = r.xref[0]
         assert len(offsets) >= 10
         for num, off in offsets.items():
-            assert data[off:off + 24].startswith(f"{num} 0 obj".encode()), (p.name, num, off)
+            assert data[off : off + 24].startswith(f"{num} 0 obj".encode()), (p.name, num, off)
         # the only pages object holds this one page
         assert r.trailer["/Root"]["/Pages"]["/Count"] == 1
         content = r.pages[0].get_contents().get_data()
@@ -305,15 +380,23 @@ def test_a_script_without_a_main_guard_renders_with_workers(tmp_path, how):
         "    fh.write('x\\n')\n"
         f"paths = report.render_sheets([make_sheet(i) for i in range(4)], Path({str(tmp_path / 'out')!r}),\n"
         "                              workers=2, chunk_size=2)\n"
-        "print(len(paths))\n")
+        "print(len(paths))\n"
+    )
     root = str(templates_dir().parent)
     if how == "stdin":
-        proc = subprocess.run([sys.executable, "-"], input=script, capture_output=True, text=True, cwd=root,
-                              timeout=120)
+        proc = subprocess.run(
+            [sys.executable, "-"], input=script, capture_output=True, text=True, cwd=root, timeout=120
+        )
     else:
         (tmp_path / "job.py").write_text(script, encoding="utf-8")
-        proc = subprocess.run([sys.executable, str(tmp_path / "job.py")], capture_output=True, text=True,
-                              cwd=root, timeout=120, env={**os.environ, "PYTHONPATH": root})
+        proc = subprocess.run(
+            [sys.executable, str(tmp_path / "job.py")],
+            capture_output=True,
+            text=True,
+            cwd=root,
+            timeout=120,
+            env={**os.environ, "PYTHONPATH": root},
+        )
     assert proc.returncode == 0, proc.stderr[-2000:]
     assert proc.stdout.strip() == "4"
     assert marker.read_text().count("x") == 1
@@ -338,6 +421,7 @@ def test_sheet_view_with_missing_fields_is_complete():
 
 # --- ranking ------------------------------------------------------------------------
 
+
 def test_ranking_pdf(tmp_path):
     rep = make_report(90)
     rep["rows"][0]["name"] = HOSTILE_NAME
@@ -348,15 +432,22 @@ def test_ranking_pdf(tmp_path):
     assert r.metadata.title == "Heating screening ranking, run run-20260302-01"
     texts = [p.extract_text() for p in r.pages]
     first = texts[0]
-    for s in ["Top ten", "By tier", report.fmt_num(rep["totals"]["excess_energy"]),
-              report.fmt_money(rep["totals"]["excess_cost"]), "look closer"]:
+    for s in [
+        "Top ten",
+        "By tier",
+        report.fmt_num(rep["totals"]["excess_energy"]),
+        report.fmt_money(rep["totals"]["excess_cost"]),
+        "look closer",
+    ]:
         assert s in first, s
     # nested counts (per tier / flag / data issue) are shown as their own lists, never as "n/a"
     assert "n/a" not in first
     n_high = rep["counts"]["per_flag"]["high_ratio"]
     assert any(ln.strip() == f"high_ratio {n_high}" for ln in first.splitlines()), first
-    assert any(ln.strip() == f"estimated_reads {rep['counts']['per_data_issue']['estimated_reads']}"
-               for ln in first.splitlines())
+    assert any(
+        ln.strip() == f"estimated_reads {rep['counts']['per_data_issue']['estimated_reads']}"
+        for ln in first.splitlines()
+    )
     assert any(ln.strip() == "with data issues 13" for ln in first.splitlines())  # 90 rows, every 7th from 3
     table_pages = [t for t in texts if "Owlbrook Court" in t and "Top ten" not in t and "Data issues" not in t]
     assert len(table_pages) >= 2
@@ -390,7 +481,7 @@ def test_ranked_table_pages_never_overflow(tmp_path, paper, monkeypatch):
     summary + table pages + data issues, and every rank shows once, in order, under a header."""
     monkeypatch.setattr(report, "MAX_ISSUE_LINES", 5)
     rep = make_report(300)
-    rep["rows"][1]["name"] = "W" * 200            # wrapped to MAX_CELL_LINES lines, the last ending in …
+    rep["rows"][1]["name"] = "W" * 200  # wrapped to MAX_CELL_LINES lines, the last ending in …
     rep["rows"][2]["flags"] = ["high_ratio"] * 12
     # a summary as full as the demo's: eight flag kinds, tiers with their meanings
     rep["counts"]["per_flag"] = {f"flag_kind_{k}": 10 * k for k in range(8)}
@@ -401,14 +492,14 @@ def test_ranked_table_pages_never_overflow(tmp_path, paper, monkeypatch):
     budget = report._ROWS_PER_PAGE[paper] - view["header"][0]["text"].count("\n")
     for k, pg in enumerate(pages):
         assert pg["lines"] <= budget - (report._FIRST_PAGE_LOSS if k == 0 else 0)
-        assert all(c["text"].count("\n") + 1 == pg["lines"] for c in pg["cols"])   # every column as tall
+        assert all(c["text"].count("\n") + 1 == pg["lines"] for c in pg["cols"])  # every column as tall
         assert sum(float(h) for h in pg["stripes"]) == pytest.approx(pg["lines"] * report._ROW_PT)  # a stripe a row
     n_table = len(pages)
     texts = [p.extract_text() for p in PdfReader(out).pages]
     assert len(texts) == 1 + n_table + 1
-    for t in texts[1:1 + n_table]:
+    for t in texts[1 : 1 + n_table]:
         assert "intensity" in t and "excess" in t and "issues" in t
-    ids = re.findall(r"\bB-(\d+)\b", "\n".join(texts[1:1 + n_table]))
+    ids = re.findall(r"\bB-(\d+)\b", "\n".join(texts[1 : 1 + n_table]))
     assert ids == [str(1000 + k) for k in range(300)]  # make_report: rank k+1 has id B-(1000+k)
     # the long name: wrapped, at most MAX_CELL_LINES lines, the last cut with …
     name_col = pages[0]["cols"][2]["text"].split("\n")
@@ -430,7 +521,7 @@ def test_wrap_measures_the_font():
     assert report._wrap("", 40.0, size) == [""]
     # widths by hand from the font: "B0010" is five glyphs of the condensed face
     assert report._text_width("B0010", 10.0) == pytest.approx(29.0, abs=2.0)
-    assert report._text_width("漢", 10.0) == 10.0          # not in the font: 1 em
+    assert report._text_width("漢", 10.0) == 10.0  # not in the font: 1 em
     assert report._wrap("x" * 400, 20.0, size, max_lines=3)[-1].endswith("…")
 
 

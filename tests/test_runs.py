@@ -39,14 +39,15 @@ from typer.testing import CliRunner
 from screening.cli import app
 
 REPO = Path(__file__).resolve().parents[1]
-Q3_AS_OF, Q3 = "2026-10-15", "2026-Q3"   # by hand: window 2025-10-01..2026-09-30, calendar Q3 ends 30 Sep
-Q2_AS_OF, Q2 = "2026-07-15", "2026-Q2"   # by hand: window 2025-07-01..2026-06-30
+Q3_AS_OF, Q3 = "2026-10-15", "2026-Q3"  # by hand: window 2025-10-01..2026-09-30, calendar Q3 ends 30 Sep
+Q2_AS_OF, Q2 = "2026-07-15", "2026-Q2"  # by hand: window 2025-07-01..2026-06-30
 DETERMINISTIC_FILES = ("ranking.csv", "rejects.csv", "data_issues.csv", "summary.json", "index.html")
 N_BUILDINGS = 12
-N_KEPT = 4                               # buildings of the crontab-form test (with sheets)
+N_KEPT = 4  # buildings of the crontab-form test (with sheets)
 
 
 # ---------------------------------------------------------------------------- fixtures and helpers
+
 
 @pytest.fixture(scope="module")
 def simulated(tmp_path_factory) -> Path:
@@ -73,7 +74,9 @@ class Site:
         self.config.write_text(
             '[inputs]\nbuildings = "in/buildings.csv"\nreadings = "in/readings.csv"\nweather = "in/weather.csv"\n'
             '[store]\ndatabase = "screening.duckdb"\n'
-            f'[output]\nroot = "out"\nsheets = {"true" if sheets else "false"}\n' + extra, encoding="utf-8")
+            f'[output]\nroot = "out"\nsheets = {"true" if sheets else "false"}\n' + extra,
+            encoding="utf-8",
+        )
 
     def input(self, kind: str) -> Path:
         return self.folder / "in" / f"{kind}.csv"
@@ -96,14 +99,13 @@ def cli(args: list[str]):
 
 def subprocess_run(args: list[str], *, env_extra: dict | None = None, timeout: float = 120):
     env = dict(os.environ, PYTHONIOENCODING="utf-8", **(env_extra or {}))
-    return subprocess.run([sys.executable, "-m", "screening", *args], capture_output=True, text=True,
-                          timeout=timeout, env=env)
-
-
+    return subprocess.run(
+        [sys.executable, "-m", "screening", *args], capture_output=True, text=True, timeout=timeout, env=env
+    )
 
 
 def sha256_of(path: Path) -> str:
-    return hashlib.sha256(path.read_bytes()).hexdigest()   # hashlib: FIPS 180-4 SHA-256
+    return hashlib.sha256(path.read_bytes()).hexdigest()  # hashlib: FIPS 180-4 SHA-256
 
 
 def run_rows(site: Site) -> list[tuple]:
@@ -111,6 +113,7 @@ def run_rows(site: Site) -> list[tuple]:
 
 
 # ---------------------------------------------------------------------------- the config template
+
 
 def test_init_template_runs_from_a_crontab_form_command(simulated, tmp_path):
     """``ddscreen init`` writes a template that a cron-style command accepts once the inputs are set.
@@ -124,7 +127,7 @@ def test_init_template_runs_from_a_crontab_form_command(simulated, tmp_path):
     r = cli(["init", str(site_dir / "screening.toml")])
     assert r.exit_code == 0, r.stderr
     text = (site_dir / "screening.toml").read_text(encoding="utf-8")
-    assert "sheets = true" in text and 'root = "ddscreen-out"' in text   # the documented defaults
+    assert "sheets = true" in text and 'root = "ddscreen-out"' in text  # the documented defaults
     # a second init refuses to overwrite (config error: exit 2) and names the file
     again = cli(["init", str(site_dir / "screening.toml")])
     assert again.exit_code == 2 and "exists; use --force" in again.stderr
@@ -133,8 +136,8 @@ def test_init_template_runs_from_a_crontab_form_command(simulated, tmp_path):
     # four buildings only (fewer sheets to render); the other buildings' bills become rejected rows,
     # a data problem that must not change the exit code
     lines = (site_dir / "buildings.csv").read_text().splitlines(keepends=True)
-    (site_dir / "buildings.csv").write_text("".join(lines[:1 + N_KEPT]))
-    kept = [ln.split(",")[0] for ln in lines[1:1 + N_KEPT]]
+    (site_dir / "buildings.csv").write_text("".join(lines[: 1 + N_KEPT]))
+    kept = [ln.split(",")[0] for ln in lines[1 : 1 + N_KEPT]]
     readings = pl.read_csv(site_dir / "readings.csv", infer_schema=False)
     n_orphan = readings.filter(~pl.col("building_id").is_in(kept)).height
     assert n_orphan > 0
@@ -146,15 +149,21 @@ def test_init_template_runs_from_a_crontab_form_command(simulated, tmp_path):
     (site_dir / "screening.toml").write_text(text, encoding="utf-8")
     ddscreen = Path(sys.executable).with_name("ddscreen")
     line = f"cd {site_dir} && {ddscreen} run --config screening.toml --quiet"
-    p = subprocess.run(["/bin/sh", "-c", line], cwd=tmp_path, capture_output=True, text=True, timeout=120,
-                       env={"PATH": "/usr/bin:/bin", "HOME": str(tmp_path), "SHELL": "/bin/sh"})
+    p = subprocess.run(
+        ["/bin/sh", "-c", line],
+        cwd=tmp_path,
+        capture_output=True,
+        text=True,
+        timeout=120,
+        env={"PATH": "/usr/bin:/bin", "HOME": str(tmp_path), "SHELL": "/bin/sh"},
+    )
     assert p.returncode == 0, p.stderr
-    assert p.stdout == "" and p.stderr == ""           # --quiet: nothing but errors
+    assert p.stdout == "" and p.stderr == ""  # --quiet: nothing but errors
     out = site_dir / "ddscreen-out" / Q3
     assert os.readlink(site_dir / "ddscreen-out" / "latest") == Q3
     pdfs = sorted((out / "sheets").glob("*.pdf"))
     assert len(pdfs) == N_KEPT
-    assert all(p.read_bytes()[:5] == b"%PDF-" for p in pdfs)   # ISO 32000-1 §7.5.2 file header
+    assert all(p.read_bytes()[:5] == b"%PDF-" for p in pdfs)  # ISO 32000-1 §7.5.2 file header
     index = pl.read_csv(out / "sheets_index.csv")
     assert sorted(index["building_id"]) == sorted(kept) and all((out / f).exists() for f in index["file"])
     rejects = pl.read_csv(out / "rejects.csv", infer_schema=False)
@@ -166,6 +175,7 @@ def test_init_template_runs_from_a_crontab_form_command(simulated, tmp_path):
 
 # ---------------------------------------------------------------------------- quarter folders, reruns
 
+
 def test_quarter_folder_latest_refusal_and_force(simulated, tmp_path):
     site = Site(tmp_path, simulated)
     r = site.run("--as-of", Q3_AS_OF)
@@ -175,7 +185,7 @@ def test_quarter_folder_latest_refusal_and_force(simulated, tmp_path):
     for f in (*DETERMINISTIC_FILES, "ranking.pdf", "run.log"):
         assert (target / f).is_file(), f
     summary = json.loads((target / "summary.json").read_text())
-    assert summary["label"] == Q3 and summary["window"] == ["2025-10-01", "2026-09-30"]   # by hand
+    assert summary["label"] == Q3 and summary["window"] == ["2025-10-01", "2026-09-30"]  # by hand
     assert pl.read_csv(target / "ranking.csv").height == summary["counts"]["buildings"] == N_BUILDINGS
     before = tree_digest(site.root)
     runs_before = run_rows(site)
@@ -183,15 +193,15 @@ def test_quarter_folder_latest_refusal_and_force(simulated, tmp_path):
     again = site.run("--as-of", Q3_AS_OF)
     assert again.exit_code == 2
     assert f"already holds the outputs of {Q3}" in again.stderr and "--force" in again.stderr
-    assert tree_digest(site.root) == before and run_rows(site) == runs_before   # touched nothing
+    assert tree_digest(site.root) == before and run_rows(site) == runs_before  # touched nothing
 
     forced = site.run("--as-of", Q3_AS_OF, "--force")
     assert forced.exit_code == 0, forced.stderr
     runs = run_rows(site)
     assert [s for _, _, s in runs] == ["ok", "ok"] and runs[1][0] != runs[0][0]
-    assert runs[1][0] in (target / "run.log").read_text()          # the folder now holds the new run
+    assert runs[1][0] in (target / "run.log").read_text()  # the folder now holds the new run
     assert os.readlink(site.root / "latest") == Q3
-    assert sorted(p.name for p in site.root.iterdir()) == [Q3, "latest"]   # no temporary folder left
+    assert sorted(p.name for p in site.root.iterdir()) == [Q3, "latest"]  # no temporary folder left
 
 
 def test_two_runs_give_identical_outputs_and_compare_with_the_earlier_quarter(simulated, tmp_path):
@@ -199,7 +209,7 @@ def test_two_runs_give_identical_outputs_and_compare_with_the_earlier_quarter(si
     assert site.run("--as-of", Q2_AS_OF).exit_code == 0
     assert site.run("--as-of", Q3_AS_OF).exit_code == 0
     first = {f: (site.root / Q3 / f).read_bytes() for f in DETERMINISTIC_FILES}
-    r = site.run("--as-of", Q3_AS_OF, "--force")          # --force also reloads every input
+    r = site.run("--as-of", Q3_AS_OF, "--force")  # --force also reloads every input
     assert r.exit_code == 0, r.stderr
     for f in DETERMINISTIC_FILES:
         assert (site.root / Q3 / f).read_bytes() == first[f], f"{f} differs between two runs"
@@ -219,14 +229,17 @@ def test_two_runs_give_identical_outputs_and_compare_with_the_earlier_quarter(si
 
 # ---------------------------------------------------------------------------- a run killed mid-way
 
+
 @pytest.mark.parametrize("stage", ["after_load", "after_screen", "before_publish"])
 def test_killed_run_leaves_previous_outputs_and_a_consistent_database(simulated, tmp_path, stage):
     site = Site(tmp_path, simulated)
     assert site.run("--as-of", Q3_AS_OF).exit_code == 0
     before = tree_digest(site.root)
     # the new run reloads every file (--force) and replaces the quarter: the hardest case
-    p = subprocess_run(["run", "--config", str(site.config), "--as-of", Q3_AS_OF, "--force", "--quiet"],
-                       env_extra={"DDSCREEN_KILL_AT": stage})
+    p = subprocess_run(
+        ["run", "--config", str(site.config), "--as-of", Q3_AS_OF, "--force", "--quiet"],
+        env_extra={"DDSCREEN_KILL_AT": stage},
+    )
     assert p.returncode == -signal.SIGKILL, (p.returncode, p.stderr)
     assert {k: v for k, v in tree_digest(site.root).items() if not k.startswith(".")} == before
     runs = run_rows(site)
@@ -241,7 +254,7 @@ def test_killed_run_leaves_previous_outputs_and_a_consistent_database(simulated,
     assert "running" not in runs.values()
     # the database agrees with itself and with the files
     for kind, table in (("buildings", "buildings"), ("readings", "readings"), ("weather", "weather_daily")):
-        (rows_loaded, sha), = site.query(f"SELECT rows_loaded, sha256 FROM input_files WHERE kind = '{kind}'")
+        ((rows_loaded, sha),) = site.query(f"SELECT rows_loaded, sha256 FROM input_files WHERE kind = '{kind}'")
         assert site.query(f"SELECT count(*) FROM {table}")[0][0] == rows_loaded, kind
         assert sha == sha256_of(site.input(kind)), kind
     assert site.query("SELECT count(*) FROM results WHERE run_id NOT IN (SELECT run_id FROM runs)")[0][0] == 0
@@ -256,6 +269,7 @@ def test_killed_run_leaves_previous_outputs_and_a_consistent_database(simulated,
 
 # ---------------------------------------------------------------------------- two runs at once
 
+
 def test_second_run_while_the_lock_is_held_exits_3_touching_nothing(simulated, tmp_path):
     site = Site(tmp_path, simulated)
     assert site.run("--as-of", Q3_AS_OF).exit_code == 0
@@ -263,26 +277,27 @@ def test_second_run_while_the_lock_is_held_exits_3_touching_nothing(simulated, t
     db_before = (sha256_of(site.db), site.db.stat().st_mtime_ns)
     lock = open(str(site.db) + ".lock", "a+")
     try:
-        fcntl.flock(lock, fcntl.LOCK_EX | fcntl.LOCK_NB)      # as a running ddscreen holds it
+        fcntl.flock(lock, fcntl.LOCK_EX | fcntl.LOCK_NB)  # as a running ddscreen holds it
         lock.write("pid 4242 since 2026-10-02T06:15:00")
         lock.flush()
-        for as_of in (Q3_AS_OF, Q2_AS_OF):                    # a rerun and a new quarter alike
+        for as_of in (Q3_AS_OF, Q2_AS_OF):  # a rerun and a new quarter alike
             t0 = time.perf_counter()
             r = site.run("--as-of", as_of, "--force")
             elapsed = time.perf_counter() - t0
             assert r.exit_code == 3, r.stderr
             assert "another ddscreen run holds the lock" in r.stderr and "pid 4242" in r.stderr
             assert "nothing was changed" in r.stderr
-            assert elapsed < 2.0                              # "at once": no wait for the lock
+            assert elapsed < 2.0  # "at once": no wait for the lock
     finally:
         fcntl.flock(lock, fcntl.LOCK_UN)
         lock.close()
     assert tree_digest(site.root) == before
     assert (sha256_of(site.db), site.db.stat().st_mtime_ns) == db_before
-    assert site.run("--as-of", Q2_AS_OF).exit_code == 0       # released: the next run goes ahead
+    assert site.run("--as-of", Q2_AS_OF).exit_code == 0  # released: the next run goes ahead
 
 
 # ---------------------------------------------------------------------------- incremental loads
+
 
 def test_only_a_changed_input_file_is_reloaded(simulated, tmp_path):
     site = Site(tmp_path, simulated)
@@ -310,8 +325,10 @@ def test_only_a_changed_input_file_is_reloaded(simulated, tmp_path):
     after = dict(site.query("SELECT kind, loaded_at FROM input_files"))
     assert after["buildings"] == loaded_at["buildings"] and after["weather"] == loaded_at["weather"]
     assert after["readings"] > loaded_at["readings"]
-    got = site.query(f"SELECT quantity FROM readings WHERE building_id = '{bid}' AND fuel = '{fuel}' "
-                     f"AND period_start = DATE '{start}'")
+    got = site.query(
+        f"SELECT quantity FROM readings WHERE building_id = '{bid}' AND fuel = '{fuel}' "
+        f"AND period_start = DATE '{start}'"
+    )
     assert [round(g[0], 2) for g in got] == [new_q]
     summary = json.loads((site.root / Q3 / "summary.json").read_text())
     hashes = {i["kind"]: i["sha256"] for i in summary["inputs"]}
@@ -320,17 +337,21 @@ def test_only_a_changed_input_file_is_reloaded(simulated, tmp_path):
 
 # ---------------------------------------------------------------------------- config errors
 
-@pytest.mark.parametrize("extra, key, expected", [
-    ('[thresholds]\nz_review = "high"\n', r"[thresholds] z_review", "expected a number"),
-    ("[output]\nkeep = 2.5\n", r"[output] keep", "expected a whole number"),
-    ('[analysis]\nas_of = "2026-13-01"\n', r"[analysis] as_of", "expected a date YYYY-MM-DD"),
-    ('[analysis]\nunits = "metric"\n', r"[analysis] units", "expected IP or SI"),
-    ("[thresholds]\nz_reveiw = 2.0\n", r"unknown key [thresholds] z_reveiw", "expected one of band_ratio"),
-])
+
+@pytest.mark.parametrize(
+    "extra, key, expected",
+    [
+        ('[thresholds]\nz_review = "high"\n', r"[thresholds] z_review", "expected a number"),
+        ("[output]\nkeep = 2.5\n", r"[output] keep", "expected a whole number"),
+        ('[analysis]\nas_of = "2026-13-01"\n', r"[analysis] as_of", "expected a date YYYY-MM-DD"),
+        ('[analysis]\nunits = "metric"\n', r"[analysis] units", "expected IP or SI"),
+        ("[thresholds]\nz_reveiw = 2.0\n", r"unknown key [thresholds] z_reveiw", "expected one of band_ratio"),
+    ],
+)
 def test_config_error_names_the_key_and_what_is_expected(simulated, tmp_path, extra, key, expected):
     site = Site(tmp_path, simulated)
     text = site.config.read_text()
-    if extra.startswith("[output]"):                         # the file has an [output] table already
+    if extra.startswith("[output]"):  # the file has an [output] table already
         text = text.replace("[output]\n", extra)
     else:
         text += extra
@@ -338,7 +359,7 @@ def test_config_error_names_the_key_and_what_is_expected(simulated, tmp_path, ex
     r = site.run("--as-of", Q3_AS_OF) if "as_of" not in extra else site.run()
     assert r.exit_code == 2
     assert key in r.stderr and expected in r.stderr, r.stderr
-    assert not site.db.exists() and not site.root.exists()   # nothing written
+    assert not site.db.exists() and not site.root.exists()  # nothing written
 
 
 def test_missing_input_file_is_exit_2_and_names_it(simulated, tmp_path):
@@ -350,6 +371,7 @@ def test_missing_input_file_is_exit_2_and_names_it(simulated, tmp_path):
 
 # ---------------------------------------------------------------------------- status and history
 
+
 def test_status_and_history_list_the_runs_and_the_changes(simulated, tmp_path):
     site = Site(tmp_path, simulated, sheets=True, extra="workers = 1\n")
     assert site.run("--as-of", Q2_AS_OF).exit_code == 0
@@ -359,10 +381,10 @@ def test_status_and_history_list_the_runs_and_the_changes(simulated, tmp_path):
     assert st.exit_code == 0, st.stderr
     lines = st.stdout.splitlines()
     assert len(lines) == 2
-    assert Q3 in lines[0] and Q2 in lines[1]                 # newest first
+    assert Q3 in lines[0] and Q2 in lines[1]  # newest first
     assert all(" ok " in ln for ln in lines)
     assert str(site.root / Q3) in lines[0] and str(site.root / Q2) in lines[1]
-    assert "window 2025-10-01..2026-09-30" in lines[0]       # by hand (Q3 window)
+    assert "window 2025-10-01..2026-09-30" in lines[0]  # by hand (Q3 window)
 
     h = cli(["history", "--db", str(site.db)])
     assert h.exit_code == 0, h.stderr
@@ -370,10 +392,15 @@ def test_status_and_history_list_the_runs_and_the_changes(simulated, tmp_path):
     old = pl.read_csv(site.root / Q2 / "ranking.csv", schema_overrides={"flags": pl.String})
     new = pl.read_csv(site.root / Q3 / "ranking.csv", schema_overrides={"flags": pl.String})
     j = new.join(old, on="building_id", how="full", coalesce=True, suffix="_old")
+
     def fl(x):
         return set((x or "").split(";")) - {""}
-    changed = sorted(r["building_id"] for r in j.iter_rows(named=True)
-                     if r["rank"] != r["rank_old"] or fl(r["flags"]) != fl(r["flags_old"]))
+
+    changed = sorted(
+        r["building_id"]
+        for r in j.iter_rows(named=True)
+        if r["rank"] != r["rank_old"] or fl(r["flags"]) != fl(r["flags_old"])
+    )
     assert f"{len(changed)} building(s) changed rank or flags:" in h.stdout
     listed = sorted(re.findall(r"^  (\S+): ", h.stdout, flags=re.M))
     assert listed == changed
@@ -384,6 +411,7 @@ def test_status_and_history_list_the_runs_and_the_changes(simulated, tmp_path):
     # one run id: summary.json, a sheet, ranking.pdf, stderr, status and history all show the same
     # one, and history takes it (the execution id stays in the database and run.log)
     import pdfplumber
+
     ids = {q: json.loads((site.root / q / "summary.json").read_text())["run_id"] for q in (Q2, Q3)}
     assert ids[Q3].startswith(Q3 + "-") and ids[Q2].startswith(Q2 + "-")
     sheet = sorted((site.root / Q3 / "sheets").glob("*.pdf"))[0]
@@ -416,15 +444,15 @@ def test_next_run_tidies_what_dead_runs_left_in_the_output_root(simulated, tmp_p
     site = Site(tmp_path, simulated)
     assert site.run("--as-of", Q3_AS_OF).exit_code == 0
     q3 = tree_digest(site.root / Q3)
-    os.replace(site.root / Q3, site.root / f".{Q3}.old-dead00")          # as _publish leaves it mid-way
+    os.replace(site.root / Q3, site.root / f".{Q3}.old-dead00")  # as _publish leaves it mid-way
     stale = site.root / f".{Q2}.tmp-dead01"
     stale.mkdir()
     (stale / "run.log").write_text("2026-07-02 06:15:00,000 INFO run 2026-Q2-x: window ...\n")
     (stale / "ranking.csv").write_text("half-written\n")
     assert site.run("--as-of", Q2_AS_OF).exit_code == 0
-    assert tree_digest(site.root / Q3) == q3                              # earlier outputs restored
+    assert tree_digest(site.root / Q3) == q3  # earlier outputs restored
     names = sorted(p.name for p in site.root.iterdir())
     assert not [n for n in names if n.startswith(".")], names
     logs = [n for n in names if n.startswith(f"{Q2}.interrupted-")]
     assert len(logs) == 1 and "run 2026-Q2-x" in (site.root / logs[0]).read_text()
-    assert os.readlink(site.root / "latest") == Q3            # the newest quarter, not the one run last
+    assert os.readlink(site.root / "latest") == Q3  # the newest quarter, not the one run last

@@ -13,12 +13,21 @@ import pytest
 from screening import config, envelope, events, ingest, metered, pipeline, schema, units, weather
 
 ROOT = Path(__file__).resolve().parents[1]
-SQL_TYPE = {"id": "VARCHAR", "text": "VARCHAR", "choice": "VARCHAR", "float": "DOUBLE", "int": "INTEGER",
-            "bool": "BOOLEAN", "date": "DATE"}
+SQL_TYPE = {
+    "id": "VARCHAR",
+    "text": "VARCHAR",
+    "choice": "VARCHAR",
+    "float": "DOUBLE",
+    "int": "INTEGER",
+    "bool": "BOOLEAN",
+    "date": "DATE",
+}
 
 
-@pytest.mark.parametrize("layer, kind", [(ingest.BUILDING_COLUMNS, "buildings"), (ingest.READING_COLUMNS, "readings"),
-                                         (events.EVENT_COLUMNS, "events")])
+@pytest.mark.parametrize(
+    "layer, kind",
+    [(ingest.BUILDING_COLUMNS, "buildings"), (ingest.READING_COLUMNS, "readings"), (events.EVENT_COLUMNS, "events")],
+)
 def test_readers_check_the_declared_columns_and_limits(layer, kind):
     declared = {c.name: c for c in schema.FILES[kind]}
     assert [s[0] for s in layer] == list(declared)
@@ -47,7 +56,7 @@ def test_vocabularies_are_the_declared_ones():
 
 def test_kbtu_to_kwh_against_pint():
     pint = pytest.importorskip("pint")
-    ref = pint.UnitRegistry().Quantity(1000.0, "Btu_it").to("kWh").magnitude   # pint's Btu_IT, NIST SP 811
+    ref = pint.UnitRegistry().Quantity(1000.0, "Btu_it").to("kWh").magnitude  # pint's Btu_IT, NIST SP 811
     assert schema.KBTU_TO_KWH == pytest.approx(ref, rel=1e-13)
 
 
@@ -72,12 +81,15 @@ def _one_building(**given) -> pl.DataFrame:
     return pl.DataFrame([row | given])
 
 
-@pytest.mark.parametrize("c", [c for c in schema.BUILDINGS if c.kind in ("float", "int")
-                               and c.canon not in ("heat_content", "price")], ids=lambda c: c.name)
+@pytest.mark.parametrize(
+    "c",
+    [c for c in schema.BUILDINGS if c.kind in ("float", "int") and c.canon not in ("heat_content", "price")],
+    ids=lambda c: c.name,
+)
 def test_envelope_refuses_exactly_what_ingest_refuses(c, tmp_path):
     # behaviour, not tables: at the declared limit both layers accept, just beyond it both refuse
     top = 2100.0 if c.hi == "this_year" else float(c.hi)
-    if c.hi == "this_year":   # ingest's upper limit is the clock's year; envelope (pure) takes up to 2100
+    if c.hi == "this_year":  # ingest's upper limit is the clock's year; envelope (pure) takes up to 2100
         assert envelope._YEAR_BUILT == (float(c.lo), 2100.0)
         return
     eff = {"heating_efficiency": "electricity"}
@@ -128,8 +140,9 @@ def _sql_tables() -> dict[str, list[tuple[str, str]]]:
     return out
 
 
-@pytest.mark.parametrize("table, kind", [("buildings", "buildings"), ("readings", "readings"),
-                                         ("weather_daily", "weather")])
+@pytest.mark.parametrize(
+    "table, kind", [("buildings", "buildings"), ("readings", "readings"), ("weather_daily", "weather")]
+)
 def test_sql_tables_hold_the_declared_columns(table, kind):
     cols = dict(_sql_tables()[table])
     assert cols.pop("source_file") == "VARCHAR" and cols.pop("source_line") == "BIGINT"

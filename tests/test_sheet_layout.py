@@ -37,16 +37,22 @@ def kinds(tmp_path_factory):
         with pdfplumber.open(path) as pdf:
             assert len(pdf.pages) == 1, key
             page = pdf.pages[0]
-            pages[key] = {"width": float(page.width), "height": float(page.height), "chars": page.chars,
-                          "words": page.extract_words(keep_blank_chars=False, use_text_flow=False),
-                          "text": page.extract_text(), "sheet": sheets[key]}
+            pages[key] = {
+                "width": float(page.width),
+                "height": float(page.height),
+                "chars": page.chars,
+                "words": page.extract_words(keep_blank_chars=False, use_text_flow=False),
+                "text": page.extract_text(),
+                "sheet": sheets[key],
+            }
     return {"pages": pages, "stats": stats}
 
 
 def _engineer_top(p) -> float:
     lines = [w for w in p["words"] if w["text"] == "building's"]
-    tops = [w["top"] for w in lines if any(v["text"] == "engineer" and abs(v["top"] - w["top"]) < 1
-                                           for v in p["words"])]
+    tops = [
+        w["top"] for w in lines if any(v["text"] == "engineer" and abs(v["top"] - w["top"]) < 1 for v in p["words"])
+    ]
     assert tops, "no engineer heading"
     return min(tops)
 
@@ -75,7 +81,7 @@ def test_no_word_overlaps_another(kinds):
     for key, p in kinds["pages"].items():
         words = sorted(p["words"], key=lambda w: w["top"])
         for i, a in enumerate(words):
-            for b in words[i + 1:]:
+            for b in words[i + 1 :]:
                 if b["top"] > a["bottom"]:
                     break
                 # more than a sliver (0.5 pt² from rounding of neighbouring boxes) is an overlap
@@ -100,7 +106,7 @@ def test_owner_half_has_no_statistics(kinds):
         owner = " ".join(w["text"] for w in p["words"] if w["bottom"] <= top)
         for token in ("R²", "CV(RMSE)", "NMBE", "score", "UA", "z"):
             hit = re.search(rf"(?<![\w]){re.escape(token)}(?![\w])", owner)
-            assert hit is None, (key, token, owner[max(hit.start() - 60, 0):hit.end() + 20] if hit else "")
+            assert hit is None, (key, token, owner[max(hit.start() - 60, 0) : hit.end() + 20] if hit else "")
         assert "How sure the tool is:" in owner.replace("\n", " "), key
 
 
@@ -131,7 +137,7 @@ def test_billed_units_and_money_on_the_owner_half(kinds):
     assert "No action needed" in flat["tier_4"]
     assert "Fix the data first" in flat["tier_5"] and "How sure the tool is: not yet" in flat["tier_5"]
     assert "not judged" in flat["tier_5"]
-    assert "148.377x the expectation" in flat["tier_5"]   # the issue in plain words in the first step
+    assert "148.377x the expectation" in flat["tier_5"]  # the issue in plain words in the first step
     assert "too few bills, or bills too long" in flat["annual"]
 
 
@@ -170,19 +176,24 @@ def test_stacked_marks_are_kept_to_two_and_do_not_reach_the_next_line(kinds):
     p = kinds["pages"]["name_stacked"]
     name_chars = [c for c in p["chars"] if c["size"] > 12]
     assert "".join(c["text"] for c in name_chars if c["text"].isalpha()).startswith("ZeHall")
-    assert sum(1 for c in name_chars if unicodedata.combining(c["text"])) == 2   # of the nine given
-    meta_top = min(w["top"] for w in p["words"] if w["text"] == "id")   # the line under the name
+    assert sum(1 for c in name_chars if unicodedata.combining(c["text"])) == 2  # of the nine given
+    meta_top = min(w["top"] for w in p["words"] if w["text"] == "id")  # the line under the name
     assert max(c["bottom"] for c in name_chars) <= meta_top + 0.5
 
 
 def test_an_audit_on_record_is_said_under_the_verdict_and_a_measure_is_not_repeated():
     from tests.sheet_fixtures import make_sheet
+
     s = make_sheet(0)
-    s["plan_note"] = ("audit of 2026-07-14 found nothing: kept off the plan until 2027-07-14 unless its expected "
-                      "savings reach 2× those of the list it was audited from (15230)")
+    s["plan_note"] = (
+        "audit of 2026-07-14 found nothing: kept off the plan until 2027-07-14 unless its expected "
+        "savings reach 2× those of the list it was audited from (15230)"
+    )
     v = report.sheet_view(s)
-    assert v["audit_note"].startswith("On record: Audit of 2026-07-14 found nothing: kept off the plan until 2027-07-14")
+    assert v["audit_note"].startswith(
+        "On record: Audit of 2026-07-14 found nothing: kept off the plan until 2027-07-14"
+    )
     s["plan_note"] = "measure of 2025-11-17: judged on the 288 days from 2025-12-17 to 2026-09-30 only"
-    assert report.sheet_view(s)["audit_note"] == ""   # the verdict carries the measure's sentence
+    assert report.sheet_view(s)["audit_note"] == ""  # the verdict carries the measure's sentence
     s.pop("plan_note")
     assert report.sheet_view(s)["audit_note"] == ""

@@ -55,9 +55,27 @@ def _run(tmp_path, name: str, text: dict[str, str], units: str) -> pl.DataFrame:
     d.mkdir()
     for k, v in text.items():
         (d / f"{k}.csv").write_text(v, encoding="utf-8")
-    res = cli(["run", "--buildings", str(d / "buildings.csv"), "--readings", str(d / "readings.csv"),
-               "--weather", str(d / "weather.csv"), "--out", str(d / "out"), "--db", str(d / "db.duckdb"),
-               "--as-of", "2025-01-15", "--units", units, "--no-sheets", "--quiet"])
+    res = cli(
+        [
+            "run",
+            "--buildings",
+            str(d / "buildings.csv"),
+            "--readings",
+            str(d / "readings.csv"),
+            "--weather",
+            str(d / "weather.csv"),
+            "--out",
+            str(d / "out"),
+            "--db",
+            str(d / "db.duckdb"),
+            "--as-of",
+            "2025-01-15",
+            "--units",
+            units,
+            "--no-sheets",
+            "--quiet",
+        ]
+    )
     assert res.exit_code == 0, res.stderr
     return pl.read_csv(d / "out" / "ranking.csv", infer_schema_length=None)
 
@@ -77,7 +95,8 @@ def test_si_and_ip_agree_within_0_1_percent(tmp_path):
         assert r["actual_heating_si"] == pytest.approx(r["actual_heating"] * kwh, rel=1e-3)
         assert r["floor_area_si"] == pytest.approx(Q(r["floor_area"], "ft**2").to("m**2").magnitude, rel=1e-3)
         assert r["base_temperature_si"] == pytest.approx(
-            Q(r["base_temperature"], "degF").to("degC").magnitude, abs=0.02)
+            Q(r["base_temperature"], "degF").to("degC").magnitude, abs=0.02
+        )
         # K·day = °F·day / 1.8 (docs/degree-days.md §7)
         assert r["hdd_si"] == pytest.approx(r["hdd"] / 1.8, rel=1e-3)
         # Wh/(m²·K·day) = 5.678263 × Btu/(ft²·°F·day) (docs/factors.md §8), checked with pint
@@ -93,7 +112,7 @@ def test_si_assumptions_are_converted(tmp_path):
     si = pl.read_csv(tmp_path / "si" / "out" / "assumptions.csv", infer_schema_length=None)
     j = ip.join(si, on=["building_id", "name"], suffix="_si")
     assert j.height == ip.height == si.height
-    u = Q(1, "Btu_it/(hour*ft**2*delta_degF)").to("W/(m**2*K)").magnitude   # 5.678263 (docs/factors.md §8)
+    u = Q(1, "Btu_it/(hour*ft**2*delta_degF)").to("W/(m**2*K)").magnitude  # 5.678263 (docs/factors.md §8)
     wall = j.filter(pl.col("name") == "wall U-factor")
     assert (wall["value_si"] / wall["value"] - u).abs().max() < 1e-6
     assert set(wall["unit_si"]) == {"W/(m²·K)"} and set(wall["unit"]) == {"Btu/h·ft²·°F"}
@@ -102,4 +121,4 @@ def test_si_assumptions_are_converted(tmp_path):
         assert r["value_si"] == pytest.approx(Q(r["value"], "degF").to("degC").magnitude, abs=1e-9)
         assert r["high_si"] == pytest.approx(Q(r["high"], "degF").to("degC").magnitude, abs=1e-9)
     sb = j.filter(pl.col("name") == "setback depth")
-    assert ((sb["value_si"] - sb["value"] / 1.8).abs() < 1e-9).all()   # a difference: K = °F / 1.8
+    assert ((sb["value_si"] - sb["value"] / 1.8).abs() < 1e-9).all()  # a difference: K = °F / 1.8

@@ -40,8 +40,8 @@ from screening.cli import app
 from tests.conftest import simulator, tree_digest
 
 REPO = Path(__file__).resolve().parents[1]
-Q3_AS_OF, Q3 = "2026-10-15", "2026-Q3"   # by hand: window 2025-10-01..2026-09-30 (see test_runs.py)
-HANG_GUARD_S = 60.0                      # a deadline against hanging, not a timing assertion
+Q3_AS_OF, Q3 = "2026-10-15", "2026-Q3"  # by hand: window 2025-10-01..2026-09-30 (see test_runs.py)
+HANG_GUARD_S = 60.0  # a deadline against hanging, not a timing assertion
 NOTHING_PUBLISHED = "nothing was published, earlier outputs are untouched"
 
 
@@ -69,7 +69,9 @@ class Site:
         self.mark = folder / "pause.mark"
         self.config.write_text(
             '[inputs]\nbuildings = "in/buildings.csv"\nreadings = "in/readings.csv"\nweather = "in/weather.csv"\n'
-            '[store]\ndatabase = "screening.duckdb"\n[output]\nroot = "out"\nsheets = true\n', encoding="utf-8")
+            '[store]\ndatabase = "screening.duckdb"\n[output]\nroot = "out"\nsheets = true\n',
+            encoding="utf-8",
+        )
         r = CliRunner().invoke(app, self.args("--no-sheets"), catch_exceptions=False)
         assert r.exit_code == 0, r.stderr
         self.before = tree_digest(self.root)
@@ -79,20 +81,27 @@ class Site:
 
     def start(self, pause: str) -> subprocess.Popen:
         """The run of Q3 again (--force: it would replace the published folder), held at ``pause``."""
-        env = dict(os.environ, PYTHONIOENCODING="utf-8", DDSCREEN_PAUSE_AT=pause,
-                   DDSCREEN_PAUSE_MARK=str(self.mark))
+        env = dict(os.environ, PYTHONIOENCODING="utf-8", DDSCREEN_PAUSE_AT=pause, DDSCREEN_PAUSE_MARK=str(self.mark))
         # output to files, not pipes: a helper process left alive would hold a pipe open
         self.out_f = open(self.folder / "stdout.txt", "w+", encoding="utf-8")
         self.err_f = open(self.folder / "stderr.txt", "w+", encoding="utf-8")
-        return subprocess.Popen([sys.executable, "-m", "screening", *self.args()], stdout=self.out_f,
-                                stderr=self.err_f, env=env, start_new_session=True)
+        return subprocess.Popen(
+            [sys.executable, "-m", "screening", *self.args()],
+            stdout=self.out_f,
+            stderr=self.err_f,
+            env=env,
+            start_new_session=True,
+        )
 
     def wait_mark(self, proc: subprocess.Popen, point: str, count: int = 1) -> list[int]:
         """Wait until ``count`` pauses at ``point`` have begun; returns the pausing pids."""
         deadline = time.monotonic() + HANG_GUARD_S
         while True:
-            pids = [int(ln.split()[1]) for ln in (self.mark.read_text().splitlines() if self.mark.exists() else [])
-                    if ln.split()[0] == point]
+            pids = [
+                int(ln.split()[1])
+                for ln in (self.mark.read_text().splitlines() if self.mark.exists() else [])
+                if ln.split()[0] == point
+            ]
             if len(pids) >= count:
                 return pids
             assert proc.poll() is None, f"the run ended ({proc.returncode}) before reaching {point}"
@@ -123,8 +132,8 @@ def live_group(pgid: int) -> dict[int, str]:
             stat = Path(f"/proc/{d}/stat").read_text()
             cmd = Path(f"/proc/{d}/cmdline").read_bytes().replace(b"\0", b" ").decode(errors="replace")
         except OSError:
-            continue                                  # ended meanwhile
-        fields = stat.rsplit(")", 1)[1].split()       # after "(comm)": state, ppid, pgrp, ...
+            continue  # ended meanwhile
+        fields = stat.rsplit(")", 1)[1].split()  # after "(comm)": state, ppid, pgrp, ...
         if int(fields[2]) == pgid and fields[0] != "Z":
             out[int(d)] = cmd[:120]
     return out
@@ -146,23 +155,24 @@ def check_interrupted(site: Site, proc: subprocess.Popen, signum: int) -> None:
     """Everything a stopped run must leave behind (item 10)."""
     rc, out, err = site.finish(proc)
     name = {signal.SIGINT: "SIGINT", signal.SIGTERM: "SIGTERM"}[signum]
-    assert rc == {signal.SIGINT: 130, signal.SIGTERM: 143}[signum], (rc, err)   # 128 + signal number
+    assert rc == {signal.SIGINT: 130, signal.SIGTERM: 143}[signum], (rc, err)  # 128 + signal number
     assert err.splitlines() == [f"ddscreen: error: interrupted by {name}; {NOTHING_PUBLISHED}"], err
     assert out == ""
-    assert wait_group_gone(proc.pid) == {}                        # no helper process outlives the run
+    assert wait_group_gone(proc.pid) == {}  # no helper process outlives the run
     names = sorted(p.name for p in site.root.iterdir())
-    assert not [n for n in names if n.startswith(".")], names    # no temporary folder left
+    assert not [n for n in names if n.startswith(".")], names  # no temporary folder left
     logs = [n for n in names if n.startswith(f"{Q3}.interrupted-") and n.endswith(".log")]
-    assert len(logs) == 1, names                                  # the stopped run's log, kept
+    assert len(logs) == 1, names  # the stopped run's log, kept
     runs = site.runs()
     assert [s for _, s, _ in runs] == ["ok", "interrupted"]
     assert runs[1][2] == f"interrupted by {name}; {NOTHING_PUBLISHED}"
     assert runs[1][0] in (site.root / logs[0]).read_text()
     after = {k: v for k, v in tree_digest(site.root).items() if k not in logs}
-    assert after == site.before                                   # earlier outputs byte for byte
+    assert after == site.before  # earlier outputs byte for byte
 
 
 # ---------------------------------------------------------------------------- one signal at a stage
+
 
 @pytest.mark.parametrize("signum", [signal.SIGINT, signal.SIGTERM], ids=["SIGINT", "SIGTERM"])
 @pytest.mark.parametrize("point", ["after_load", "after_screen"])
@@ -191,11 +201,12 @@ def test_sigterm_just_after_the_rename_leaves_the_new_outputs_recorded_ok(simula
     os.kill(proc.pid, signal.SIGTERM)
     rc, out, err = site.finish(proc)
     assert rc == 143, err
-    assert err.splitlines() == [f"ddscreen: error: interrupted by SIGTERM; the outputs were already moved "
-                                f"into place ({site.root / Q3})"], err
+    assert err.splitlines() == [
+        f"ddscreen: error: interrupted by SIGTERM; the outputs were already moved into place ({site.root / Q3})"
+    ], err
     runs = site.runs()
     assert [s for _, s, _ in runs] == ["ok", "ok"]
-    assert runs[1][0] in (site.root / Q3 / "run.log").read_text()      # the new run's folder
+    assert runs[1][0] in (site.root / Q3 / "run.log").read_text()  # the new run's folder
     assert (site.root / Q3 / "sheets").is_dir()
     assert not [p.name for p in site.root.iterdir() if p.name.startswith(".")]
     assert wait_group_gone(proc.pid) == {}
@@ -209,10 +220,10 @@ def test_signal_while_rendering_sheets(simulated, tmp_path, signum):
     site = Site(tmp_path, simulated)
     proc = site.start("render_chunk:30")
     pids = site.wait_mark(proc, "render_chunk", 2)
-    assert proc.pid in pids and len(set(pids)) == 2                # one pause is in a worker process
+    assert proc.pid in pids and len(set(pids)) == 2  # one pause is in a worker process
     os.kill(proc.pid, signum)
     check_interrupted(site, proc, signum)
-    assert not list(site.root.rglob("sheets"))                     # no sheet anywhere (the earlier run had none)
+    assert not list(site.root.rglob("sheets"))  # no sheet anywhere (the earlier run had none)
 
 
 @pytest.mark.slow
@@ -241,9 +252,12 @@ def test_sigint_while_the_render_pool_starts(simulated, tmp_path):
 
 # ---------------------------------------------------------------------------- a second signal
 
-@pytest.mark.parametrize("first, second", [(signal.SIGTERM, signal.SIGINT), (signal.SIGINT, signal.SIGTERM),
-                                           (signal.SIGTERM, signal.SIGTERM)],
-                         ids=["TERM-then-INT", "INT-then-TERM", "TERM-then-TERM"])
+
+@pytest.mark.parametrize(
+    "first, second",
+    [(signal.SIGTERM, signal.SIGINT), (signal.SIGINT, signal.SIGTERM), (signal.SIGTERM, signal.SIGTERM)],
+    ids=["TERM-then-INT", "INT-then-TERM", "TERM-then-TERM"],
+)
 def test_second_signal_during_clean_up_is_ignored(simulated, tmp_path, first, second):
     """The clean-up pauses 2 s (test hook); two more signals arrive during it. It still finishes:
     the first signal's line and exit code, no temporary folder, the run recorded as interrupted."""
@@ -266,10 +280,11 @@ def test_second_signal_while_the_renderers_are_stopped(simulated, tmp_path):
     site.wait_mark(proc, "cleanup")
     os.kill(proc.pid, signal.SIGINT)
     check_interrupted(site, proc, signal.SIGTERM)
-    assert not list(site.root.rglob("sheets"))                     # no sheet anywhere (the earlier run had none)
+    assert not list(site.root.rglob("sheets"))  # no sheet anywhere (the earlier run had none)
 
 
 # ---------------------------------------------------------------------------- SIGKILL: no orphans
+
 
 @pytest.mark.slow
 def test_sigkill_while_rendering_leaves_no_helper_process_and_no_late_file(simulated, tmp_path):
@@ -281,13 +296,13 @@ def test_sigkill_while_rendering_leaves_no_helper_process_and_no_late_file(simul
     pids = site.wait_mark(proc, "render_chunk", 2)
     helpers = live_group(proc.pid)
     worker = next(p for p in pids if p != proc.pid)
-    assert worker in helpers and len(helpers) >= 3, helpers       # main, fork server, worker (+ tracker)
+    assert worker in helpers and len(helpers) >= 3, helpers  # main, fork server, worker (+ tracker)
     os.kill(proc.pid, signal.SIGKILL)
     rc, _, _ = site.finish(proc)
     assert rc == -signal.SIGKILL
     assert wait_group_gone(proc.pid) == {}
     tmp = [p for p in site.root.iterdir() if p.name.startswith(f".{Q3}.tmp-")]
-    assert len(tmp) == 1                                          # the dead run's folder (the next run tidies it)
+    assert len(tmp) == 1  # the dead run's folder (the next run tidies it)
     listing = files_under(tmp[0])
     assert not [f for f in listing if f.endswith(".pdf")], listing
     # the worker's pause would have ended by now and its chunk taken a moment more to write
@@ -298,16 +313,18 @@ def test_sigkill_while_rendering_leaves_no_helper_process_and_no_late_file(simul
 
 # ---------------------------------------------------------------------------- the library call
 
+
 def test_library_run_raises_interrupted_and_restores_the_handlers(simulated, tmp_path, monkeypatch):
     """``runner.run`` in this process: SIGTERM raises ``errors.Interrupted`` (not SystemExit), the
     clean-up is done, and the caller's handlers are back afterwards."""
     from screening import runner
     from screening.errors import Interrupted
+
     site = Site(tmp_path, simulated)
     monkeypatch.setenv("DDSCREEN_PAUSE_AT", "after_screen:30")
     monkeypatch.setenv("DDSCREEN_PAUSE_MARK", str(site.mark))
     seen = []
-    old_term = signal.signal(signal.SIGTERM, lambda s, f: seen.append(s))   # the caller's own handler
+    old_term = signal.signal(signal.SIGTERM, lambda s, f: seen.append(s))  # the caller's own handler
     old_int = signal.getsignal(signal.SIGINT)
 
     def sender():
@@ -320,13 +337,16 @@ def test_library_run_raises_interrupted_and_restores_the_handlers(simulated, tmp
     t.start()
     try:
         with pytest.raises(Interrupted) as info:
-            runner.run(config_path=str(site.config), overrides={"analysis": {"as_of": Q3_AS_OF},
-                                                                "output": {"sheets": False}},
-                       force=True, quiet=True)
+            runner.run(
+                config_path=str(site.config),
+                overrides={"analysis": {"as_of": Q3_AS_OF}, "output": {"sheets": False}},
+                force=True,
+                quiet=True,
+            )
         t.join()
         assert info.value.exit_code == 143 and str(info.value) == f"interrupted by SIGTERM; {NOTHING_PUBLISHED}"
         assert signal.getsignal(signal.SIGINT) is old_int
-        os.kill(os.getpid(), signal.SIGTERM)                         # the caller's handler is back
+        os.kill(os.getpid(), signal.SIGTERM)  # the caller's handler is back
         assert seen == [signal.SIGTERM]
     finally:
         signal.signal(signal.SIGTERM, old_term)
@@ -348,7 +368,7 @@ def test_signal_outside_a_commands_own_handling_is_one_line(monkeypatch, capsys)
             for _ in range(100):
                 time.sleep(0.01)
         except KeyboardInterrupt:
-            sys.exit(130)               # what typer does with a KeyboardInterrupt
+            sys.exit(130)  # what typer does with a KeyboardInterrupt
 
     old = {s: signal.getsignal(s) for s in interrupts.SIGNALS}
     monkeypatch.setattr(climod, "app", app_like_typer)
@@ -364,9 +384,10 @@ def test_exit_codes_and_ignored_signals():
     background job's SIGINT, nohup) stays ignored, and the old handlers come back on leaving."""
     from screening import interrupts
     from screening.errors import EXIT_SIGINT, EXIT_SIGTERM, Interrupted
+
     assert (EXIT_SIGINT, EXIT_SIGTERM) == (128 + signal.SIGINT, 128 + signal.SIGTERM) == (130, 143)
     assert Interrupted(signal.SIGINT).exit_code == 130 and Interrupted(signal.SIGTERM).exit_code == 143
-    assert not isinstance(Interrupted(signal.SIGTERM), Exception)     # passes every `except Exception`
+    assert not isinstance(Interrupted(signal.SIGTERM), Exception)  # passes every `except Exception`
     old_int = signal.signal(signal.SIGINT, signal.SIG_IGN)
     old_term = signal.getsignal(signal.SIGTERM)
     try:
@@ -375,10 +396,10 @@ def test_exit_codes_and_ignored_signals():
             assert signal.getsignal(signal.SIGTERM) is interrupts._handler
             with pytest.raises(Interrupted) as info:
                 os.kill(os.getpid(), signal.SIGTERM)
-                for _ in range(100):                               # the handler runs between bytecodes
+                for _ in range(100):  # the handler runs between bytecodes
                     time.sleep(0.01)
             assert info.value.signum == signal.SIGTERM and interrupts.stopped() == signal.SIGTERM
-            os.kill(os.getpid(), signal.SIGTERM)                     # a second one: counted, not raised
+            os.kill(os.getpid(), signal.SIGTERM)  # a second one: counted, not raised
             time.sleep(0.05)
             assert interrupts.ignored_signals() == 1
         assert signal.getsignal(signal.SIGINT) is signal.SIG_IGN

@@ -36,8 +36,21 @@ ureg = pint.UnitRegistry()
 Q = ureg.Quantity
 
 # Input contract (issue 2, "Input contract"), columns exactly.
-BUILDING_COLS = ["building_id", "name", "station_id", "use_type", "floor_area", "year_built", "stories",
-                 "heating_fuel", "heating_efficiency", "ua_total", "balance_point", "address", "city"]
+BUILDING_COLS = [
+    "building_id",
+    "name",
+    "station_id",
+    "use_type",
+    "floor_area",
+    "year_built",
+    "stories",
+    "heating_fuel",
+    "heating_efficiency",
+    "ua_total",
+    "balance_point",
+    "address",
+    "city",
+]
 READING_COLS = ["building_id", "fuel", "period_start", "period_end", "quantity", "unit", "estimated", "cost"]
 WEATHER_COLS = ["station_id", "date", "t_min", "t_max"]
 USE_TYPES = {"office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other"}
@@ -84,16 +97,17 @@ def test_a_space_heat_cut_of_zero_changes_nothing_and_a_cut_changes_only_quantit
     assert cut["readings"].select(key).equals(a["readings"].select(key))
     j = a["readings"].with_columns(cut["readings"]["quantity"].alias("q_cut"))
     heat = j.join(a["buildings"].select("building_id", "heating_fuel"), on="building_id").filter(
-        pl.col("fuel") == pl.col("heating_fuel"))
+        pl.col("fuel") == pl.col("heating_fuel")
+    )
     before = heat.filter(pl.col("period_end") < date(2024, 6, 1))
-    assert (before["quantity"] == before["q_cut"]).all()                   # nothing changes before the day
+    assert (before["quantity"] == before["q_cut"]).all()  # nothing changes before the day
     after = heat.filter((pl.col("period_start") >= date(2024, 10, 1)) & (pl.col("period_end") < date(2025, 4, 1)))
     ids = a["buildings"]["building_id"].to_list()
     cut_ids = ids[:20]
     got = after.group_by("building_id").agg((pl.col("q_cut").sum() / pl.col("quantity").sum()).alias("r"))
     r = dict(got.iter_rows())
-    assert all(r[i] < 0.99 for i in cut_ids if i in r)                     # winter fuel down with the cut
-    assert all(r[i] == 1.0 for i in ids[20:] if i in r)                    # untouched buildings the same
+    assert all(r[i] < 0.99 for i in cut_ids if i in r)  # winter fuel down with the cut
+    assert all(r[i] == 1.0 for i in ids[20:] if i in r)  # untouched buildings the same
     with pytest.raises(ValueError, match="space_heat_cut"):
         sim.simulate_portfolio(4, seed=5, start=START, years=1, space_heat_cut=(date(2024, 6, 1), np.ones(4)))
 
@@ -119,7 +133,7 @@ def test_columns_and_values_follow_the_input_contract(frames):
     assert w.columns == WEATHER_COLS
     assert b["building_id"].is_unique().all()
     assert b["building_id"].str.contains(r"^[A-Za-z0-9_.\-]{1,64}$").all()
-    assert set(b["use_type"]) == USE_TYPES            # every use type present
+    assert set(b["use_type"]) == USE_TYPES  # every use type present
     assert set(b["heating_fuel"]) <= FUELS
     assert (b["floor_area"] > 0).all()
     assert b["year_built"].drop_nulls().is_between(1800, date.today().year).all()
@@ -154,11 +168,12 @@ def test_meter_reads_drift_and_straddle_months(frames):
     t = frames["truth"].filter(pl.col("truth_label") == "normal", pl.col("reading_frequency") == "monthly")
     r = frames["readings"].filter(pl.col("building_id").is_in(t["building_id"].implode()))
     days = (r["period_end"] - r["period_start"]).dt.total_days() + 1
-    assert days.min() >= 27 and days.max() <= 35          # the brief: bills of 27-35 days
+    assert days.min() >= 27 and days.max() <= 35  # the brief: bills of 27-35 days
     assert (r["period_start"].dt.day() != 1).mean() > 0.9  # most bills straddle a month end
     # consecutive bills of one meter touch: next start = previous end + 1 day
     g = r.sort("building_id", "fuel", "period_start").with_columns(
-        gap=(pl.col("period_start") - pl.col("period_end").shift(1)).dt.total_days().over("building_id", "fuel"))
+        gap=(pl.col("period_start") - pl.col("period_end").shift(1)).dt.total_days().over("building_id", "fuel")
+    )
     assert (g["gap"].drop_nulls() == 1).all()
     # read days drift: the day of month of one meter's reads is not constant
     spread = r.group_by("building_id", "fuel").agg(pl.col("period_end").dt.day().n_unique().alias("k"))
@@ -171,7 +186,9 @@ def test_annual_buildings_report_calendar_years(frames):
     assert ann.len() == round(0.1 * t.height)
     r = frames["readings"].filter(pl.col("building_id").is_in(ann.implode()))
     assert set(zip(r["period_start"].to_list(), r["period_end"].to_list())) == {
-        (date(2024, 1, 1), date(2024, 12, 31)), (date(2025, 1, 1), date(2025, 12, 31))}
+        (date(2024, 1, 1), date(2024, 12, 31)),
+        (date(2025, 1, 1), date(2025, 12, 31)),
+    }
 
 
 # ------------------------------------------------------------------ planted faults
@@ -213,25 +230,30 @@ def test_duplicates_overlaps_gaps_and_estimated_runs_are_in_the_readings(frames)
 
     t, r = _heat_rows(frames, "overlapping_periods")
     g = r.sort("building_id", "period_start").with_columns(
-        gap=(pl.col("period_start") - pl.col("period_end").shift(1)).dt.total_days().over("building_id"))
+        gap=(pl.col("period_start") - pl.col("period_end").shift(1)).dt.total_days().over("building_id")
+    )
     assert set(g.filter(pl.col("gap") < 0)["building_id"]) == set(t["building_id"])
 
     t, r = _heat_rows(frames, "missing_months")
     g = r.sort("building_id", "period_start").with_columns(
-        gap=(pl.col("period_start") - pl.col("period_end").shift(1)).dt.total_days().over("building_id"))
+        gap=(pl.col("period_start") - pl.col("period_end").shift(1)).dt.total_days().over("building_id")
+    )
     assert set(g.filter(pl.col("gap") > 50)["building_id"]) == set(t["building_id"])
 
     t, r = _heat_rows(frames, "estimated_run")
     runs = r.sort("building_id", "period_start").with_columns(
-        run=pl.col("estimated").cast(pl.Int32).rolling_sum(3).over("building_id"))
+        run=pl.col("estimated").cast(pl.Int32).rolling_sum(3).over("building_id")
+    )
     assert set(runs.filter(pl.col("run") == 3)["building_id"]) == set(t["building_id"])
 
     # normal monthly buildings have no negative gap, no duplicate and no gap
     t, r = _heat_rows(frames, "normal")
-    r = r.filter(pl.col("building_id").is_in(
-        t.filter(pl.col("reading_frequency") == "monthly")["building_id"].implode()))
+    r = r.filter(
+        pl.col("building_id").is_in(t.filter(pl.col("reading_frequency") == "monthly")["building_id"].implode())
+    )
     g = r.sort("building_id", "period_start").with_columns(
-        gap=(pl.col("period_start") - pl.col("period_end").shift(1)).dt.total_days().over("building_id"))
+        gap=(pl.col("period_start") - pl.col("period_end").shift(1)).dt.total_days().over("building_id")
+    )
     assert (g["gap"].drop_nulls() == 1).all()
 
 
@@ -246,18 +268,24 @@ def test_unit_errors_scale_the_billed_numbers_by_the_recorded_factor():
     assert set(t["unit_error_kind"]) == {"whole_history", "from_date", "single_reading"}
     assert set(t["unit_error_factor"]) <= {10.0, 100.0, 1000.0, 0.1, 0.01, 0.001}
     j = r.join(r0, on=["building_id", "fuel", "period_start", "period_end"], suffix="_clean").join(
-        t.select("building_id", "unit_error_kind", "unit_error_factor"), on="building_id")
+        t.select("building_id", "unit_error_kind", "unit_error_factor"), on="building_id"
+    )
     assert j.height == r.height  # the same bills, only the numbers differ
     # bills are rounded after scaling: |q - f*q0| <= half a printed digit x (1 + f)
-    half = pl.col("unit").replace_strict({u: 0.5 * 10.0 ** -d for u, d in sim.UNIT_DECIMALS.items()},
-                                         return_dtype=pl.Float64)
+    half = pl.col("unit").replace_strict(
+        {u: 0.5 * 10.0**-d for u, d in sim.UNIT_DECIMALS.items()}, return_dtype=pl.Float64
+    )
     j = j.with_columns(
         hit=(pl.col("quantity") - pl.col("unit_error_factor") * pl.col("quantity_clean")).abs()
         <= half * (1 + pl.col("unit_error_factor")) + 1e-9,
-        same=(pl.col("quantity") - pl.col("quantity_clean")).abs() < 1e-9)
+        same=(pl.col("quantity") - pl.col("quantity_clean")).abs() < 1e-9,
+    )
     per = j.group_by("building_id", "unit_error_kind").agg(
-        pl.col("hit").sum().alias("n_hit"), pl.col("same").sum().alias("n_same"), pl.len().alias("n"),
-        (pl.col("hit") & ~pl.col("same")).sum().alias("n_changed"))
+        pl.col("hit").sum().alias("n_hit"),
+        pl.col("same").sum().alias("n_same"),
+        pl.len().alias("n"),
+        (pl.col("hit") & ~pl.col("same")).sum().alias("n_changed"),
+    )
     for row in per.iter_rows(named=True):
         if row["unit_error_kind"] == "whole_history":
             assert row["n_hit"] == row["n"], row
@@ -267,8 +295,7 @@ def test_unit_errors_scale_the_billed_numbers_by_the_recorded_factor():
             assert 2 <= row["n_changed"] <= 11 and row["n_hit"] + row["n_same"] >= row["n"], row
     # costs follow the true quantity: with a whole history scaled, the price per billed unit is the
     # tariff divided by the factor (large bills only: the fixed charge, at most 60, is < 4 %)
-    w = r.filter(pl.col("cost") > 1500).join(t.filter(pl.col("unit_error_kind") == "whole_history"),
-                                             on="building_id")
+    w = r.filter(pl.col("cost") > 1500).join(t.filter(pl.col("unit_error_kind") == "whole_history"), on="building_id")
     for (bid,), x in w.group_by(["building_id"]):
         lo, hi = sim.UNIT_PRICE[x["unit"][0]]
         ppu = (x["cost"] / x["quantity"] * x["unit_error_factor"]).median()
@@ -279,13 +306,30 @@ def test_unit_errors_scale_the_billed_numbers_by_the_recorded_factor():
 def _one_building(t_mean_f, dtr_f, *, ua=1000.0, sp=65.0, gains_w_ft2=0.0, days=10):
     """A single building in a single station with constant weather, no sun, no setback."""
     n_d, burn = days, 5
-    W = {"t_mean": np.full((1, n_d + burn), t_mean_f), "range": np.full((1, n_d + burn), dtr_f),
-         "clear": np.zeros((1, n_d + burn)), "burn": burn, "solar_dh": np.zeros((n_d, 24), np.float32)}
-    B = {"station": np.array([0]), "tau_days": np.array([1.0]), "swing": np.array([1.0]),
-         "occ_start": np.array([0]), "occ_end": np.array([24]), "sp_start": np.array([0]),
-         "sp_end": np.array([24]), "weekend_open": np.array([True]), "is_school": np.array([False]),
-         "area": np.array([10_000.0]), "gain_occ": np.array([gains_w_ft2]), "gain_unocc": np.array([gains_w_ft2]),
-         "sol_area": np.array([0.0]), "ua_env": np.array([ua]), "cutoff": np.array([200.0])}
+    W = {
+        "t_mean": np.full((1, n_d + burn), t_mean_f),
+        "range": np.full((1, n_d + burn), dtr_f),
+        "clear": np.zeros((1, n_d + burn)),
+        "burn": burn,
+        "solar_dh": np.zeros((n_d, 24), np.float32),
+    }
+    B = {
+        "station": np.array([0]),
+        "tau_days": np.array([1.0]),
+        "swing": np.array([1.0]),
+        "occ_start": np.array([0]),
+        "occ_end": np.array([24]),
+        "sp_start": np.array([0]),
+        "sp_end": np.array([24]),
+        "weekend_open": np.array([True]),
+        "is_school": np.array([False]),
+        "area": np.array([10_000.0]),
+        "gain_occ": np.array([gains_w_ft2]),
+        "gain_unocc": np.array([gains_w_ft2]),
+        "sol_area": np.array([0.0]),
+        "ua_env": np.array([ua]),
+        "cutoff": np.array([200.0]),
+    }
     off = {"general": np.zeros(n_d, bool), "school": np.zeros(n_d, bool)}
     q, _ = sim._space_heat_chunk(np.array([0]), B, W, off, np.array([sp]), np.array([sp]), np.array([0.0]))
     return q[0]
@@ -323,8 +367,9 @@ def test_ar1_scan_matches_scipy_lfilter():
     rng = np.random.default_rng(0)
     eps = rng.standard_normal((3, 1000))
     for phi in (0.0, 0.5, 0.93):
-        np.testing.assert_allclose(sim._ar1_scan(eps, phi), lfilter([1.0], [1.0, -phi], eps, axis=-1),
-                                   rtol=1e-10, atol=1e-10)
+        np.testing.assert_allclose(
+            sim._ar1_scan(eps, phi), lfilter([1.0], [1.0, -phi], eps, axis=-1), rtol=1e-10, atol=1e-10
+        )
     phis = np.array([[0.2], [0.6], [0.9]])
     ref = np.vstack([lfilter([1.0], [1.0, -p], e) for p, e in zip(phis[:, 0], eps)])
     np.testing.assert_allclose(sim._ar1_scan(eps, phis), ref, rtol=1e-10, atol=1e-10)
@@ -332,8 +377,11 @@ def test_ar1_scan_matches_scipy_lfilter():
 
 def test_weather_climates_are_distinct_and_plausible(frames):
     w = frames["weather"].with_columns(tm=(pl.col("t_min") + pl.col("t_max")) / 2)
-    y = w.filter(pl.col("date").dt.year() == 2025).group_by("station_id").agg(
-        ((65 - pl.col("tm")).clip(0)).sum().alias("hdd"), (pl.col("t_max") - pl.col("t_min")).mean().alias("dtr"))
+    y = (
+        w.filter(pl.col("date").dt.year() == 2025)
+        .group_by("station_id")
+        .agg(((65 - pl.col("tm")).clip(0)).sum().alias("hdd"), (pl.col("t_max") - pl.col("t_min")).mean().alias("dtr"))
+    )
     # ranges from memory: US climates run from ~1,000 to ~10,000 HDD65; daily ranges 10-30 °F
     assert y["hdd"].is_between(1000, 10500).all()
     assert y["hdd"].max() / y["hdd"].min() > 3
@@ -349,9 +397,13 @@ def test_intensities_are_in_the_commercial_range(frames):
     # Btu/(ft²·°F·day); flag below 1 or above 20. Check the median per use type lands in 1-20.
     w = frames["weather"].with_columns(tm=(pl.col("t_min") + pl.col("t_max")) / 2)
     hdd = w.group_by("station_id").agg(((65 - pl.col("tm")).clip(0).sum() / 3.0).alias("hdd_yr"))
-    j = frames["truth"].filter(pl.col("truth_label") == "normal").join(
-        frames["buildings"], on="building_id").join(hdd, on="station_id").with_columns(
-        hi=pl.col("annual_space_heat_delivered_kbtu") * 1000 / pl.col("floor_area") / pl.col("hdd_yr"))
+    j = (
+        frames["truth"]
+        .filter(pl.col("truth_label") == "normal")
+        .join(frames["buildings"], on="building_id")
+        .join(hdd, on="station_id")
+        .with_columns(hi=pl.col("annual_space_heat_delivered_kbtu") * 1000 / pl.col("floor_area") / pl.col("hdd_yr"))
+    )
     med = j.group_by("use_type").agg(pl.col("hi").median())
     assert med["hi"].is_between(1, 20).all()
     assert j["hi"].median() == pytest.approx(6.5, rel=0.6)
@@ -367,12 +419,16 @@ def test_si_output_is_the_ip_portfolio_converted():
     c = Q(ip["weather"]["t_min"].to_numpy(), "degF").to("degC").magnitude
     np.testing.assert_allclose(si["weather"]["t_min"], c, atol=0.08)  # 0.1 rounding on both sides
     assert set(si["readings"]["unit"]) <= {"m3", "GJ", "L", "kWh"}
+
     # same energy whatever the unit: heating-fuel totals in Btu agree within meter rounding
     def btu(fr):
         tr = fr["truth"].select("building_id", "heat_content_btu_per_unit")
         b = fr["buildings"].select("building_id", "heating_fuel")
         r = fr["readings"].join(b, on="building_id").filter(pl.col("fuel") == pl.col("heating_fuel"))
-        return r.join(tr, on="building_id").select((pl.col("quantity") * pl.col("heat_content_btu_per_unit")).sum()).item()
+        return (
+            r.join(tr, on="building_id").select((pl.col("quantity") * pl.col("heat_content_btu_per_unit")).sum()).item()
+        )
+
     assert btu(si) == pytest.approx(btu(ip), rel=2e-3)
 
 
@@ -402,15 +458,21 @@ def test_add_reject_rows_plants_exactly_the_listed_bad_rows(frames):
     assert frames["readings"].height == out["readings"].height - 5  # inputs unchanged
 
 
-@pytest.mark.parametrize("kw, msg", [
-    (dict(n_buildings=0), r"n_buildings must be a positive integer, got 0"),
-    (dict(units="metric"), r"units must be 'IP' or 'SI', got 'metric'"),
-    (dict(years=0), r"years must be an integer from 1 to 20, got 0"),
-    (dict(stations=9), r"stations must be an integer from 1 to 8, got 9"),
-    (dict(annual_share=1.5), r"annual_share must be within \[0, 1\], got 1.5"),
-    (dict(fault_rates={"leaky": 0.1}), r"fault_rates has unknown fault\(s\) \['leaky'\]"),
-    (dict(fault_rates={"wasteful": 0.9, "unit_error": 0.2}), r"fault_rates sum to 1\.200; they must sum to at most 1"),
-])
+@pytest.mark.parametrize(
+    "kw, msg",
+    [
+        (dict(n_buildings=0), r"n_buildings must be a positive integer, got 0"),
+        (dict(units="metric"), r"units must be 'IP' or 'SI', got 'metric'"),
+        (dict(years=0), r"years must be an integer from 1 to 20, got 0"),
+        (dict(stations=9), r"stations must be an integer from 1 to 8, got 9"),
+        (dict(annual_share=1.5), r"annual_share must be within \[0, 1\], got 1.5"),
+        (dict(fault_rates={"leaky": 0.1}), r"fault_rates has unknown fault\(s\) \['leaky'\]"),
+        (
+            dict(fault_rates={"wasteful": 0.9, "unit_error": 0.2}),
+            r"fault_rates sum to 1\.200; they must sum to at most 1",
+        ),
+    ],
+)
 def test_bad_arguments_are_refused_with_clear_messages(kw, msg):
     args = dict(n_buildings=10, seed=1, start=START, years=1)
     args.update(kw)
@@ -424,7 +486,7 @@ def test_excess_window_adds_the_true_excess_and_changes_nothing_else():
     plain = sim.simulate_portfolio(40, **kw)
     win = (date(2024, 10, 1), date(2025, 9, 30))
     with_ex = sim.simulate_portfolio(40, excess_window=win, **kw)
-    for k in plain:   # no extra random draws: every existing output is the same
+    for k in plain:  # no extra random draws: every existing output is the same
         assert plain[k].equals(with_ex[k].select(plain[k].columns)), k
     t = with_ex["truth"]
     assert (t.filter(pl.col("truth_label") != "wasteful")["excess_kbtu"] == 0).all()

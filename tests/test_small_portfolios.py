@@ -18,11 +18,30 @@ import pytest
 
 from screening import runner
 
-from .conftest import (AS_OF, BASE_BTU_PER_DAY_FT2, BTU_PER_UNIT, READING_HEADER, WEATHER_HEADER, _csv,
-                       daily_weather, month_periods)
+from .conftest import (
+    AS_OF,
+    BASE_BTU_PER_DAY_FT2,
+    BTU_PER_UNIT,
+    READING_HEADER,
+    WEATHER_HEADER,
+    _csv,
+    daily_weather,
+    month_periods,
+)
 
-HEADER = ["building_id", "name", "station_id", "use_type", "floor_area", "year_built", "stories",
-          "heating_fuel", "heating_efficiency", "ua_total", "balance_point"]
+HEADER = [
+    "building_id",
+    "name",
+    "station_id",
+    "use_type",
+    "floor_area",
+    "year_built",
+    "stories",
+    "heating_fuel",
+    "heating_efficiency",
+    "ua_total",
+    "balance_point",
+]
 
 
 def _write(folder, buildings, seed=7):
@@ -33,8 +52,21 @@ def _write(folder, buildings, seed=7):
     rng = np.random.default_rng(seed)
     b_rows, r_rows = [], []
     for i, (bid, use, area, ua, eta, bal, factor) in enumerate(buildings):
-        b_rows.append([bid, f"Invented building {i + 1}", "alder-flats", use, f"{area:.0f}", 1990, 2,
-                       "natural_gas", eta, f"{ua:.0f}", bal])
+        b_rows.append(
+            [
+                bid,
+                f"Invented building {i + 1}",
+                "alder-flats",
+                use,
+                f"{area:.0f}",
+                1990,
+                2,
+                "natural_gas",
+                eta,
+                f"{ua:.0f}",
+                bal,
+            ]
+        )
         hdd = np.maximum(0.0, bal - mean)
         for s, e in month_periods():
             sel = (days >= np.datetime64(s)) & (days <= np.datetime64(e))
@@ -49,9 +81,12 @@ def _write(folder, buildings, seed=7):
 
 def _run(tmp_path, buildings):
     _write(tmp_path / "in", buildings)
-    overrides = {"inputs": {k: str(tmp_path / "in" / f"{k}.csv") for k in ("buildings", "readings", "weather")},
-                 "store": {"database": str(tmp_path / "s.duckdb")}, "analysis": {"as_of": AS_OF},
-                 "output": {"sheets": False}}
+    overrides = {
+        "inputs": {k: str(tmp_path / "in" / f"{k}.csv") for k in ("buildings", "readings", "weather")},
+        "store": {"database": str(tmp_path / "s.duckdb")},
+        "analysis": {"as_of": AS_OF},
+        "output": {"sheets": False},
+    }
     runner.run(overrides=overrides, out_dir=str(tmp_path / "out"), force=True, quiet=True)
     rk = pl.read_csv(tmp_path / "out" / "ranking.csv", infer_schema_length=None)
     summary = json.loads((tmp_path / "out" / "summary.json").read_text())
@@ -75,8 +110,10 @@ def test_one_normal_building_is_not(tmp_path):
 
 
 def test_two_buildings_one_doubled(tmp_path):
-    rows, summary = _run(tmp_path, [("S1", "office", 40000.0, 9000.0, 0.80, 58.0, 2.0),
-                                    ("S2", "multifamily", 30000.0, 10000.0, 0.78, 60.0, 1.0)])
+    rows, summary = _run(
+        tmp_path,
+        [("S1", "office", 40000.0, 9000.0, 0.80, 58.0, 2.0), ("S2", "multifamily", 30000.0, 10000.0, 0.78, 60.0, 1.0)],
+    )
     assert rows["S1"]["needs_review"] is True
     assert rows["S2"]["needs_review"] is False
     assert rows["S1"]["rank"] == 1
@@ -97,9 +134,15 @@ def test_two_buildings_one_doubled(tmp_path):
 
 def test_seven_buildings_two_wasteful(tmp_path):
     factors = {"S1": 2.22, "S2": 1.67, "S3": 0.87, "S4": 0.93, "S5": 1.0, "S6": 1.04, "S7": 1.08}
-    sizes = [(38000.0, 8200.0, 0.80, 58.0), (52000.0, 12500.0, 0.82, 57.0), (24000.0, 6100.0, 0.78, 59.0),
-             (61000.0, 13800.0, 0.85, 56.0), (30000.0, 7400.0, 0.80, 60.0), (45000.0, 9900.0, 0.79, 58.5),
-             (27000.0, 6600.0, 0.81, 57.5)]
+    sizes = [
+        (38000.0, 8200.0, 0.80, 58.0),
+        (52000.0, 12500.0, 0.82, 57.0),
+        (24000.0, 6100.0, 0.78, 59.0),
+        (61000.0, 13800.0, 0.85, 56.0),
+        (30000.0, 7400.0, 0.80, 60.0),
+        (45000.0, 9900.0, 0.79, 58.5),
+        (27000.0, 6600.0, 0.81, 57.5),
+    ]
     rows, summary = _run(tmp_path, [(bid, "office", *sz, f) for (bid, f), sz in zip(factors.items(), sizes)])
     for bid, f in factors.items():
         assert rows[bid]["ratio"] == pytest.approx(f, rel=0.06), bid
@@ -113,12 +156,16 @@ def test_seven_buildings_two_wasteful(tmp_path):
 
 def test_audit_plan_lists_this_quarters_visits(tmp_path):
     factors = {"S1": 2.22, "S2": 1.67, "S3": 0.87, "S4": 1.0}
-    sizes = [(38000.0, 8200.0, 0.80, 58.0), (52000.0, 12500.0, 0.82, 57.0), (24000.0, 6100.0, 0.78, 59.0),
-             (61000.0, 13800.0, 0.85, 56.0)]
+    sizes = [
+        (38000.0, 8200.0, 0.80, 58.0),
+        (52000.0, 12500.0, 0.82, 57.0),
+        (24000.0, 6100.0, 0.78, 59.0),
+        (61000.0, 13800.0, 0.85, 56.0),
+    ]
     bld = [(bid, "office", *sz, f) for (bid, f), sz in zip(factors.items(), sizes)]
     rows, summary = _run(tmp_path, bld)
     plan = pl.read_csv(tmp_path / "out" / "audit_plan.csv")
-    assert plan["building_id"].to_list() == ["S1", "S2"]      # the two wasters, in rank order
+    assert plan["building_id"].to_list() == ["S1", "S2"]  # the two wasters, in rank order
     assert plan["rank"].to_list() == [1, 2] and plan["visit"].to_list() == [1, 2]
     share = plan["cumulative_share"].to_list()
     assert share == sorted(share) and 0 < share[-1] <= 1
@@ -126,9 +173,13 @@ def test_audit_plan_lists_this_quarters_visits(tmp_path):
     assert summary["counts"]["audit_plan"] == 2
     # one visit a quarter: only the first; the second is still worth a visit, later
     _write(tmp_path / "in", bld)
-    overrides = {"inputs": {k: str(tmp_path / "in" / f"{k}.csv") for k in ("buildings", "readings", "weather")},
-                 "store": {"database": str(tmp_path / "s.duckdb")}, "analysis": {"as_of": AS_OF},
-                 "output": {"sheets": False}, "plan": {"audits_per_quarter": 1}}
+    overrides = {
+        "inputs": {k: str(tmp_path / "in" / f"{k}.csv") for k in ("buildings", "readings", "weather")},
+        "store": {"database": str(tmp_path / "s.duckdb")},
+        "analysis": {"as_of": AS_OF},
+        "output": {"sheets": False},
+        "plan": {"audits_per_quarter": 1},
+    }
     runner.run(overrides=overrides, out_dir=str(tmp_path / "out1"), force=True, quiet=True)
     assert pl.read_csv(tmp_path / "out1" / "audit_plan.csv")["building_id"].to_list() == ["S1"]
     rk = pl.read_csv(tmp_path / "out1" / "ranking.csv")

@@ -53,7 +53,7 @@ def _split(path: Path, into: list[Path], *, by: str = "building_id") -> None:
     df = pl.read_csv(path, infer_schema=False)
     ids = sorted(df[by].unique().to_list())
     for i, dest in enumerate(into):
-        df.filter(pl.col(by).is_in(ids[i::len(into)])).write_csv(dest)
+        df.filter(pl.col(by).is_in(ids[i :: len(into)])).write_csv(dest)
 
 
 def _glob_site(tmp_path: Path, simulated: Path, *, extra: str = "") -> Site:
@@ -72,6 +72,7 @@ def _ranking(site: Site, label: str = "2026-Q3") -> pl.DataFrame:
 
 # ---------------------------------------------------------------------------- 1. pruning
 
+
 def test_pruning_removes_only_the_tools_own_quarters_never_a_users_folder(simulated, tmp_path):
     site = Site(tmp_path, simulated, extra="keep = 2\n")
     for label in ("2025-Q4", "2026-Q1"):
@@ -88,7 +89,7 @@ def test_pruning_removes_only_the_tools_own_quarters_never_a_users_folder(simula
 
     assert site.run("--as-of", QUARTERS["2026-Q2"]).exit_code == 0
     names = sorted(p.name for p in site.root.iterdir())
-    assert "2025-Q4" not in names and {"2026-Q1", "2026-Q2"} <= set(names)   # keep = 2 of the tool's own
+    assert "2025-Q4" not in names and {"2026-Q1", "2026-Q2"} <= set(names)  # keep = 2 of the tool's own
     (site.root / "2026-Q1" / "notes.txt").write_text("audit booked\n")
 
     r = site.run("--as-of", QUARTERS["2026-Q3"])
@@ -119,18 +120,20 @@ def test_latest_never_moves_back_and_a_real_latest_folder_stops_the_run(simulate
 
 # ---------------------------------------------------------------------------- one rule for existing folders
 
+
 def test_an_existing_output_folder_is_replaced_only_with_force_and_only_if_ddscreen_wrote_all_of_it(
-        simulated, tmp_path):
+    simulated, tmp_path
+):
     site = Site(tmp_path, simulated)
     out = tmp_path / "adhoc"
     args = ["run", "--config", str(site.config), "--as-of", QUARTERS["2026-Q3"], "--out", str(out)]
     assert cli(args).exit_code == 0
-    assert {p.name for p in out.iterdir()} <= set(runner.OUTPUT_NAMES)     # the names the demo may replace
+    assert {p.name for p in out.iterdir()} <= set(runner.OUTPUT_NAMES)  # the names the demo may replace
     first = tree_digest(out)
     again = cli(args)
     assert again.exit_code == 2 and "already holds the outputs" in again.stderr and "--force" in again.stderr
     assert tree_digest(out) == first
-    assert cli(args + ["--force"]).exit_code == 0                          # ours, whole: replaced
+    assert cli(args + ["--force"]).exit_code == 0  # ours, whole: replaced
 
     (out / "notes.txt").write_text("mine\n")
     r = cli(args + ["--force"])
@@ -147,7 +150,9 @@ def test_an_existing_output_folder_is_replaced_only_with_force_and_only_if_ddscr
 
     empty = tmp_path / "empty"
     empty.mkdir()
-    assert cli(["run", "--config", str(site.config), "--as-of", QUARTERS["2026-Q3"], "--out", str(empty)]).exit_code == 0
+    assert (
+        cli(["run", "--config", str(site.config), "--as-of", QUARTERS["2026-Q3"], "--out", str(empty)]).exit_code == 0
+    )
 
 
 def test_the_demo_never_replaces_a_file_it_did_not_write(tmp_path):
@@ -162,12 +167,13 @@ def test_the_demo_never_replaces_a_file_it_did_not_write(tmp_path):
 
 # ---------------------------------------------------------------------------- 2. the files named now
 
+
 def test_a_removed_input_file_is_no_longer_screened(simulated, tmp_path):
     site = _glob_site(tmp_path, simulated)
     assert site.run("--as-of", QUARTERS["2026-Q3"]).exit_code == 0
     assert _ranking(site).height == 12
     bld2 = sorted(pl.read_csv(site.folder / "in" / "bld_2.csv", infer_schema=False)["building_id"].to_list())
-    os.replace(site.folder / "in" / "bld_2.csv", tmp_path / "bld_2.csv")   # moved away
+    os.replace(site.folder / "in" / "bld_2.csv", tmp_path / "bld_2.csv")  # moved away
 
     r = site.run("--as-of", QUARTERS["2026-Q3"], "--force")
     assert r.exit_code == 0, r.stderr
@@ -183,12 +189,12 @@ def test_a_removed_input_file_is_no_longer_screened(simulated, tmp_path):
 
 def test_a_copied_site_reports_each_reject_once(simulated, tmp_path):
     site = _glob_site(tmp_path / "a", simulated)
-    os.remove(site.folder / "in" / "bld_2.csv")                              # their bills: rejects
+    os.remove(site.folder / "in" / "bld_2.csv")  # their bills: rejects
     assert site.run("--as-of", QUARTERS["2026-Q3"]).exit_code == 0
     n = pl.read_csv(site.root / "2026-Q3" / "rejects.csv", infer_schema=False).height
     assert n > 0
     copy = tmp_path / "b"
-    shutil.copytree(site.folder, copy, symlinks=True)                       # database and outputs too
+    shutil.copytree(site.folder, copy, symlinks=True)  # database and outputs too
     r = cli(["run", "--config", str(copy / "screening.toml"), "--as-of", QUARTERS["2026-Q3"], "--force"])
     assert r.exit_code == 0, r.stderr
     rej = pl.read_csv(copy / "out" / "2026-Q3" / "rejects.csv", infer_schema=False)
@@ -197,8 +203,8 @@ def test_a_copied_site_reports_each_reject_once(simulated, tmp_path):
 
 # ---------------------------------------------------------------------------- 3. one key in two files
 
-def test_a_building_in_two_files_with_different_data_is_rejected_in_both_whatever_changed_last(
-        simulated, tmp_path):
+
+def test_a_building_in_two_files_with_different_data_is_rejected_in_both_whatever_changed_last(simulated, tmp_path):
     site = _glob_site(tmp_path, simulated)
     b1, b2 = site.folder / "in" / "bld_1.csv", site.folder / "in" / "bld_2.csv"
     one = pl.read_csv(b1, infer_schema=False)
@@ -206,7 +212,7 @@ def test_a_building_in_two_files_with_different_data_is_rejected_in_both_whateve
     pl.concat([pl.read_csv(b2, infer_schema=False), dup]).write_csv(b2)
     bid = dup["building_id"][0]
     outputs = []
-    for touched in (b1, b2):                         # either file the newer one: the same outcome
+    for touched in (b1, b2):  # either file the newer one: the same outcome
         os.utime(touched, (time.time() + 10, time.time() + 10))
         r = site.run("--as-of", QUARTERS["2026-Q3"], "--force")
         assert r.exit_code == 0, r.stderr
@@ -226,8 +232,10 @@ def test_a_building_given_identically_in_two_files_is_kept_once(simulated, tmp_p
     r = site.run("--as-of", QUARTERS["2026-Q3"])
     assert r.exit_code == 0, r.stderr
     assert _ranking(site).height == 12
-    assert "1 building row(s) given identically in more than one input file kept once" in \
-        (site.root / "2026-Q3" / "run.log").read_text()
+    assert (
+        "1 building row(s) given identically in more than one input file kept once"
+        in (site.root / "2026-Q3" / "run.log").read_text()
+    )
 
 
 def test_a_reading_in_two_files_with_different_data_is_rejected_in_both(simulated, tmp_path):
@@ -248,14 +256,17 @@ def test_a_reading_in_two_files_with_different_data_is_rejected_in_both(simulate
 
 # ---------------------------------------------------------------------------- 4. killed while publishing
 
+
 @pytest.mark.parametrize("stage", ["after_publish", "after_record"])
 def test_a_run_killed_after_publishing_is_settled_as_published(simulated, tmp_path, stage):
     site = Site(tmp_path, simulated)
     assert site.run("--as-of", QUARTERS["2026-Q1"]).exit_code == 0
-    p = subprocess_run(["run", "--config", str(site.config), "--as-of", QUARTERS["2026-Q2"], "--quiet"],
-                       env_extra={"DDSCREEN_KILL_AT": stage})
+    p = subprocess_run(
+        ["run", "--config", str(site.config), "--as-of", QUARTERS["2026-Q2"], "--quiet"],
+        env_extra={"DDSCREEN_KILL_AT": stage},
+    )
     assert p.returncode == -signal.SIGKILL, p.stderr
-    assert (site.root / "2026-Q2" / "summary.json").is_file()              # the folder is in place
+    assert (site.root / "2026-Q2" / "summary.json").is_file()  # the folder is in place
     # status shows what the next run will record, without writing anything
     seen = runner.status(str(site.db))
     assert seen.filter(pl.col("label") == "2026-Q2")["status"].to_list() == ["ok"]
@@ -275,13 +286,28 @@ def test_a_run_killed_after_publishing_is_settled_as_published(simulated, tmp_pa
 
 # ---------------------------------------------------------------------------- 12. smaller things
 
+
 def test_status_and_history_read_the_database_while_a_run_holds_the_lock(simulated, tmp_path):
     site = Site(tmp_path, simulated)
     assert site.run("--as-of", QUARTERS["2026-Q2"]).exit_code == 0
     env = dict(os.environ, DDSCREEN_PAUSE_AT="after_screen:6")
-    proc = subprocess.Popen([sys.executable, "-m", "screening", "run", "--config", str(site.config),
-                             "--as-of", QUARTERS["2026-Q3"], "--quiet"], env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(
+        [
+            sys.executable,
+            "-m",
+            "screening",
+            "run",
+            "--config",
+            str(site.config),
+            "--as-of",
+            QUARTERS["2026-Q3"],
+            "--quiet",
+        ],
+        env=env,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+    )
     try:
         deadline = time.monotonic() + 60
         while time.monotonic() < deadline:
@@ -289,7 +315,7 @@ def test_status_and_history_read_the_database_while_a_run_holds_the_lock(simulat
             if runs.height == 2:
                 break
             time.sleep(0.02)  # polled often: the run must wait for these brief holds, not fail
-        assert runs["status"].to_list() == ["running", "ok"]             # the lock is held: still running
+        assert runs["status"].to_list() == ["running", "ok"]  # the lock is held: still running
         r = cli(["history", "--db", str(site.db)])
         assert r.exit_code == 0, r.stderr
     finally:
@@ -316,22 +342,26 @@ def test_a_version_1_database_is_brought_up_to_date(tmp_path):
     db = tmp_path / "old.duckdb"
     con = duckdb.connect(str(db))
     con.execute("CREATE TABLE buildings (building_id VARCHAR PRIMARY KEY, source_file VARCHAR, source_line BIGINT)")
-    con.execute("CREATE TABLE input_files (path VARCHAR, kind VARCHAR, sha256 VARCHAR, options_hash VARCHAR, "
-                "rows_loaded BIGINT, rows_rejected BIGINT, loaded_at TIMESTAMP, PRIMARY KEY (kind, path))")
+    con.execute(
+        "CREATE TABLE input_files (path VARCHAR, kind VARCHAR, sha256 VARCHAR, options_hash VARCHAR, "
+        "rows_loaded BIGINT, rows_rejected BIGINT, loaded_at TIMESTAMP, PRIMARY KEY (kind, path))"
+    )
     con.execute("INSERT INTO input_files VALUES ('b.csv', 'buildings', 'x', 'y', 1, 0, now()::TIMESTAMP)")
-    con.execute("CREATE TABLE runs (run_id VARCHAR PRIMARY KEY, run_key VARCHAR, label VARCHAR, as_of DATE, "
-                "window_start DATE, window_end DATE, started_at TIMESTAMP, finished_at TIMESTAMP, status VARCHAR, "
-                "out_dir VARCHAR, config_hash VARCHAR, input_hashes VARCHAR, versions VARCHAR, timings VARCHAR, "
-                "counts VARCHAR, message VARCHAR)")
+    con.execute(
+        "CREATE TABLE runs (run_id VARCHAR PRIMARY KEY, run_key VARCHAR, label VARCHAR, as_of DATE, "
+        "window_start DATE, window_end DATE, started_at TIMESTAMP, finished_at TIMESTAMP, status VARCHAR, "
+        "out_dir VARCHAR, config_hash VARCHAR, input_hashes VARCHAR, versions VARCHAR, timings VARCHAR, "
+        "counts VARCHAR, message VARCHAR)"
+    )
     con.execute("INSERT INTO runs (run_id, status) VALUES ('2026-Q2-old', 'ok')")
     con.close()
     with Store(db) as store:
         assert store.rows("get_schema_version") == [(str(SCHEMA_VERSION),)]
-        assert store.con.execute("SELECT count(*) FROM input_files").fetchall() == [(0,)]   # inputs read again
+        assert store.con.execute("SELECT count(*) FROM input_files").fetchall() == [(0,)]  # inputs read again
         assert store.con.execute("SELECT run_id, files FROM runs").fetchall() == [("2026-Q2-old", None)]
         cols = [r[0] for r in store.con.execute("DESCRIBE buildings").fetchall()]
-        assert "floor_area_ft2" in cols                                   # the table of this version
-    with Store(db) as store:                                              # a second open changes nothing
+        assert "floor_area_ft2" in cols  # the table of this version
+    with Store(db) as store:  # a second open changes nothing
         assert store.rows("get_schema_version") == [(str(SCHEMA_VERSION),)]
 
 
@@ -359,9 +389,11 @@ def test_twelve_quarters_with_kills_edits_and_deletions_agree_at_the_end(tmp_pat
     _split(src / "buildings.csv", staged)
     shutil.copy(staged[0], parts[0])
     config = site_dir / "screening.toml"
-    config.write_text('[inputs]\nbuildings = "in/bld_*.csv"\nreadings = "in/readings.csv"\n'
-                      'weather = "in/weather.csv"\n[store]\ndatabase = "screening.duckdb"\n'
-                      '[output]\nroot = "out"\nsheets = false\nkeep = 4\n')
+    config.write_text(
+        '[inputs]\nbuildings = "in/bld_*.csv"\nreadings = "in/readings.csv"\n'
+        'weather = "in/weather.csv"\n[store]\ndatabase = "screening.duckdb"\n'
+        '[output]\nroot = "out"\nsheets = false\nkeep = 4\n'
+    )
     root = site_dir / "out"
     root.mkdir()
     (root / "board copy").mkdir()
@@ -376,24 +408,27 @@ def test_twelve_quarters_with_kills_edits_and_deletions_agree_at_the_end(tmp_pat
         d = dt.date(d.year + (d.month == 10), (d.month + 3 - 1) % 12 + 1, 15)
     killed = 0
     for i, as_of in enumerate(quarters):
-        if i in (2, 5, 8):                                      # the portfolio grows
+        if i in (2, 5, 8):  # the portfolio grows
             shutil.copy(staged[i // 3 + 1], parts[i // 3 + 1])
-        if i == 7:                                              # an input edited: one floor area
+        if i == 7:  # an input edited: one floor area
             b0 = pl.read_csv(parts[0], infer_schema=False)
-            b0.with_columns(pl.when(pl.int_range(pl.len()) == 0)
-                            .then((pl.col("floor_area").cast(pl.Float64) * 1.1).round(0).cast(pl.String))
-                            .otherwise(pl.col("floor_area")).alias("floor_area")).write_csv(parts[0])
-        if i == 10:                                             # a file deleted
+            b0.with_columns(
+                pl.when(pl.int_range(pl.len()) == 0)
+                .then((pl.col("floor_area").cast(pl.Float64) * 1.1).round(0).cast(pl.String))
+                .otherwise(pl.col("floor_area"))
+                .alias("floor_area")
+            ).write_csv(parts[0])
+        if i == 10:  # a file deleted
             parts[1].unlink()
         args = ["run", "--config", str(config), "--as-of", as_of.isoformat(), "--quiet"]
         if rng.random() < 0.35:
-            stage = KILL_STAGES[killed % len(KILL_STAGES)]         # every stage in turn
+            stage = KILL_STAGES[killed % len(KILL_STAGES)]  # every stage in turn
             p = subprocess_run(args, env_extra={"DDSCREEN_KILL_AT": stage})
             assert p.returncode == -signal.SIGKILL, (stage, p.stderr)
             killed += 1
         r = cli(args)
         assert r.exit_code in (0, 2), r.stderr
-        if r.exit_code == 2:                                    # killed after publishing: already there
+        if r.exit_code == 2:  # killed after publishing: already there
             assert "already holds the outputs" in r.stderr
     assert killed >= len(KILL_STAGES)
 
@@ -405,13 +440,14 @@ def test_twelve_quarters_with_kills_edits_and_deletions_agree_at_the_end(tmp_pat
         con.close()
     assert {s for _, _, s, *_ in runs} <= {"ok", "interrupted", "failed"}
     labels = sorted({label for _, label, s, *_ in runs if s == "ok"})
-    assert len(labels) == 12                                    # every quarter published once at least
+    assert len(labels) == 12  # every quarter published once at least
     newest4 = labels[-4:]
-    quarter_dirs = sorted(p.name for p in root.iterdir() if p.is_dir() and not p.is_symlink()
-                          and p.name != "board copy")
-    assert quarter_dirs == newest4                              # keep = 4
+    quarter_dirs = sorted(
+        p.name for p in root.iterdir() if p.is_dir() and not p.is_symlink() and p.name != "board copy"
+    )
+    assert quarter_dirs == newest4  # keep = 4
     assert os.readlink(root / "latest") == labels[-1]
-    for name in newest4:                                        # each folder is what its run recorded
+    for name in newest4:  # each folder is what its run recorded
         rec = [json.loads(f) for _, label, s, _o, f, _w in runs if label == name and s == "ok"]
         assert any(published.foreign(root / name, r) == [] for r in rec), name
     assert not [p for p in root.iterdir() if p.name.startswith(".")]

@@ -17,15 +17,23 @@ def _readings(rows):
     cols = ["building_id", "fuel", "quantity", "unit"]
     df = pl.DataFrame([dict(zip(cols, r)) for r in rows])
     n = df.height
-    return df.with_columns(pl.lit(date(2025, 1, 1)).alias("period_start"),
-                           pl.lit(date(2025, 1, 31)).alias("period_end"),
-                           pl.lit(False).alias("estimated"), pl.lit(None, pl.Float64).alias("cost"),
-                           pl.Series("_line", list(range(2, n + 2)), dtype=pl.Int64))
+    return df.with_columns(
+        pl.lit(date(2025, 1, 1)).alias("period_start"),
+        pl.lit(date(2025, 1, 31)).alias("period_end"),
+        pl.lit(False).alias("estimated"),
+        pl.lit(None, pl.Float64).alias("cost"),
+        pl.Series("_line", list(range(2, n + 2)), dtype=pl.Int64),
+    )
 
 
-BLD = pl.DataFrame({"building_id": ["g", "o", "s", "e"],
-                    "heating_fuel": ["natural_gas", "fuel_oil", "district_steam", "electricity"],
-                    "heat_content": [None, None, None, None]}, schema_overrides={"heat_content": pl.Float64})
+BLD = pl.DataFrame(
+    {
+        "building_id": ["g", "o", "s", "e"],
+        "heating_fuel": ["natural_gas", "fuel_oil", "district_steam", "electricity"],
+        "heat_content": [None, None, None, None],
+    },
+    schema_overrides={"heat_content": pl.Float64},
+)
 
 
 def _kbtu(unit, fuel, q=1.0, bld=None, **kw):
@@ -37,37 +45,40 @@ def _kbtu(unit, fuel, q=1.0, bld=None, **kw):
 
 def test_heat_contents_match_their_sources():
     hc = dict(heat_content_table().select("fuel", "btu_per_base").iter_rows())
-    assert hc["natural_gas"] == 1036      # EIA Heat Content of Natural Gas Consumed, US 2025 (docs/factors.md §1 [S1])
-    assert hc["fuel_oil"] == 138_500      # EIA, No. 2 heating oil Btu/gal (docs/factors.md §1 [S2])
-    assert hc["propane"] == 91_452        # EIA, propane Btu/gal (docs/factors.md §1 [S2])
-    assert hc["kerosene"] == 135_000      # 40 CFR 98 Table C-1, 0.135 MMBtu/gal (docs/factors.md §1 [S6])
+    assert hc["natural_gas"] == 1036  # EIA Heat Content of Natural Gas Consumed, US 2025 (docs/factors.md §1 [S1])
+    assert hc["fuel_oil"] == 138_500  # EIA, No. 2 heating oil Btu/gal (docs/factors.md §1 [S2])
+    assert hc["propane"] == 91_452  # EIA, propane Btu/gal (docs/factors.md §1 [S2])
+    assert hc["kerosene"] == 135_000  # 40 CFR 98 Table C-1, 0.135 MMBtu/gal (docs/factors.md §1 [S6])
     assert hc["district_steam"] == 1_000  # common practice: 1 Mlb = 1 MMBtu (docs/factors.md §1, from memory)
     t = refdata.load("units")
     assert t.filter(pl.col("source").str.len_chars() < 10).height == 0
 
 
 def test_definitions():
-    assert _kbtu("therm", "natural_gas") == pytest.approx(100.0, rel=1e-15)    # 1 therm = 100,000 Btu (EIA FAQ 987)
-    assert _kbtu("kWh", "electricity") == pytest.approx(3.41214, rel=1e-6)     # 1 kWh = 3,412.14 Btu (docs/factors.md §1)
-    assert _kbtu("MMBtu", "district_steam") == 1000.0                          # definition
-    assert _kbtu("Dth", "natural_gas") == 1000.0                               # 1 Dth = 10 therm (docs/factors.md §1)
-    assert _kbtu("GJ", "natural_gas") == pytest.approx(947.817, rel=1e-6)      # 1 GJ = 947,817 Btu (docs/factors.md §8)
-    assert _kbtu("Mlb", "district_steam") == pytest.approx(1000.0)            # 1 Mlb ≈ 1 MMBtu at 1,000 Btu/lb (common practice)
+    assert _kbtu("therm", "natural_gas") == pytest.approx(100.0, rel=1e-15)  # 1 therm = 100,000 Btu (EIA FAQ 987)
+    assert _kbtu("kWh", "electricity") == pytest.approx(3.41214, rel=1e-6)  # 1 kWh = 3,412.14 Btu (docs/factors.md §1)
+    assert _kbtu("MMBtu", "district_steam") == 1000.0  # definition
+    assert _kbtu("Dth", "natural_gas") == 1000.0  # 1 Dth = 10 therm (docs/factors.md §1)
+    assert _kbtu("GJ", "natural_gas") == pytest.approx(947.817, rel=1e-6)  # 1 GJ = 947,817 Btu (docs/factors.md §8)
+    assert _kbtu("Mlb", "district_steam") == pytest.approx(1000.0)  # 1 Mlb ≈ 1 MMBtu at 1,000 Btu/lb (common practice)
 
 
-@pytest.mark.parametrize("unit,fuel,pint_expr", [
-    ("therm", "natural_gas", lambda: Q.Quantity(1, "billing_therm")),
-    ("ccf", "natural_gas", lambda: Q.Quantity(100, "ft**3") * Q.Quantity(1036, "Btu_it/ft**3")),
-    ("mcf", "natural_gas", lambda: Q.Quantity(1000, "ft**3") * Q.Quantity(1036, "Btu_it/ft**3")),
-    ("m3", "natural_gas", lambda: Q.Quantity(1, "m**3").to("ft**3") * Q.Quantity(1036, "Btu_it/ft**3")),
-    ("GJ", "natural_gas", lambda: Q.Quantity(1, "GJ")),
-    ("kWh", "electricity", lambda: Q.Quantity(1, "kWh")),
-    ("MWh", "electricity", lambda: Q.Quantity(1, "MWh")),
-    ("MJ", "electricity", lambda: Q.Quantity(1, "MJ")),
-    ("L", "fuel_oil", lambda: Q.Quantity(1, "L").to("gallon") * Q.Quantity(138_500, "Btu_it/gallon")),
-    ("m3", "fuel_oil", lambda: Q.Quantity(1, "m**3").to("gallon") * Q.Quantity(138_500, "Btu_it/gallon")),
-    ("lb", "district_steam", lambda: Q.Quantity(1, "lb") * Q.Quantity(1000, "Btu_it/lb")),
-])
+@pytest.mark.parametrize(
+    "unit,fuel,pint_expr",
+    [
+        ("therm", "natural_gas", lambda: Q.Quantity(1, "billing_therm")),
+        ("ccf", "natural_gas", lambda: Q.Quantity(100, "ft**3") * Q.Quantity(1036, "Btu_it/ft**3")),
+        ("mcf", "natural_gas", lambda: Q.Quantity(1000, "ft**3") * Q.Quantity(1036, "Btu_it/ft**3")),
+        ("m3", "natural_gas", lambda: Q.Quantity(1, "m**3").to("ft**3") * Q.Quantity(1036, "Btu_it/ft**3")),
+        ("GJ", "natural_gas", lambda: Q.Quantity(1, "GJ")),
+        ("kWh", "electricity", lambda: Q.Quantity(1, "kWh")),
+        ("MWh", "electricity", lambda: Q.Quantity(1, "MWh")),
+        ("MJ", "electricity", lambda: Q.Quantity(1, "MJ")),
+        ("L", "fuel_oil", lambda: Q.Quantity(1, "L").to("gallon") * Q.Quantity(138_500, "Btu_it/gallon")),
+        ("m3", "fuel_oil", lambda: Q.Quantity(1, "m**3").to("gallon") * Q.Quantity(138_500, "Btu_it/gallon")),
+        ("lb", "district_steam", lambda: Q.Quantity(1, "lb") * Q.Quantity(1000, "Btu_it/lb")),
+    ],
+)
 def test_round_trips_with_pint(unit, fuel, pint_expr):
     # reference: pint 0.25 Btu_it (1055.05585262 J) and US gallon; billing therm = 1e5 Btu_it (docs/factors.md §8)
     ref = pint_expr().to("Btu_it").magnitude / 1000.0  # [kBtu]
@@ -102,14 +113,16 @@ def test_overrides():
 
 
 def test_rejects_and_other_fuels():
-    rows = [("g", "natural_gas", 10.0, "gal"),      # gallons of natural gas
-            ("g", "natural_gas", 10.0, "furlong"),  # unknown unit
-            ("g", "coal", 10.0, "lb"),              # unknown fuel
-            ("g", "natural_gas", -1.0, "therm"),    # negative
-            ("zz", "natural_gas", 1.0, "therm"),    # unknown building
-            ("o", "electricity", 1.0, "gal"),       # gallons of electricity
-            ("g", "electricity", 500.0, "KWH"),     # a second fuel, kept, case-insensitive unit
-            ("o", "kerosene", 2.0, "gal")]          # not an input fuel (screening.schema.FUELS)
+    rows = [
+        ("g", "natural_gas", 10.0, "gal"),  # gallons of natural gas
+        ("g", "natural_gas", 10.0, "furlong"),  # unknown unit
+        ("g", "coal", 10.0, "lb"),  # unknown fuel
+        ("g", "natural_gas", -1.0, "therm"),  # negative
+        ("zz", "natural_gas", 1.0, "therm"),  # unknown building
+        ("o", "electricity", 1.0, "gal"),  # gallons of electricity
+        ("g", "electricity", 500.0, "KWH"),  # a second fuel, kept, case-insensitive unit
+        ("o", "kerosene", 2.0, "gal"),
+    ]  # not an input fuel (screening.schema.FUELS)
     ok, rej = convert_to_kbtu(_readings(rows), BLD)
     reasons = dict(zip(rej["line"], rej["reason"]))
     assert rej.columns == ["line", "column", "value", "reason"]
@@ -123,7 +136,7 @@ def test_rejects_and_other_fuels():
     assert set(rej["line"]) == {2, 3, 4, 5, 6, 7, 9}
     assert ok["unit"].to_list() == ["kWh"]
     assert ok["is_heating_fuel"].to_list() == [False]
-    assert ok["energy_kbtu"][0] == pytest.approx(500 * 3.412141633, rel=1e-9)   # exact kWh (docs/factors.md §8)
+    assert ok["energy_kbtu"][0] == pytest.approx(500 * 3.412141633, rel=1e-9)  # exact kWh (docs/factors.md §8)
     assert ok["days"].to_list() == [31]
 
 
@@ -136,8 +149,8 @@ def test_end_before_start_and_missing_column():
 
 
 def test_btu_per_unit():
-    assert btu_per_unit("ccf", "natural_gas") == pytest.approx(103_600.0)   # 100 ft3 x 1,036 (EIA)
-    assert btu_per_unit("gal", "propane") == 91_452                          # EIA
+    assert btu_per_unit("ccf", "natural_gas") == pytest.approx(103_600.0)  # 100 ft3 x 1,036 (EIA)
+    assert btu_per_unit("gal", "propane") == 91_452  # EIA
     with pytest.raises(ValueError, match="unit='gal' is not a unit of fuel='natural_gas'"):
         btu_per_unit("gal", "natural_gas")
 
@@ -149,13 +162,24 @@ def test_billed_units_name_the_bills_unit_and_its_energy():
     reading of another fuel does not count."""
     from screening.units import billed_units
 
-    r = pl.DataFrame({
-        "building_id": ["A", "A", "A", "B", "B", "C", "C"],
-        "fuel": ["natural_gas", "natural_gas", "natural_gas", "natural_gas", "electricity", "electricity",
-                 "electricity"],
-        "period_start": [date(2025, 1, 1)] * 7, "period_end": [date(2025, 1, 31)] * 7,
-        "quantity": [100.0, 200.0, 50.0, 10.0, 999.0, 1000.0, 0.0],
-        "unit": ["ccf", "ccf", "therm", "ccf", "kWh", "kWh", "kWh"]})
+    r = pl.DataFrame(
+        {
+            "building_id": ["A", "A", "A", "B", "B", "C", "C"],
+            "fuel": [
+                "natural_gas",
+                "natural_gas",
+                "natural_gas",
+                "natural_gas",
+                "electricity",
+                "electricity",
+                "electricity",
+            ],
+            "period_start": [date(2025, 1, 1)] * 7,
+            "period_end": [date(2025, 1, 31)] * 7,
+            "quantity": [100.0, 200.0, 50.0, 10.0, 999.0, 1000.0, 0.0],
+            "unit": ["ccf", "ccf", "therm", "ccf", "kWh", "kWh", "kWh"],
+        }
+    )
     b = pl.DataFrame({"building_id": ["A", "B", "C"], "heating_fuel": ["natural_gas", "natural_gas", "electricity"]})
     conv, rej = convert_to_kbtu(r, b)
     assert rej.height == 0

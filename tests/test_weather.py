@@ -40,13 +40,13 @@ def test_daily_rejects_with_line_numbers():
     assert r[5] == ("t_max", "impossible temperature: beyond ±140 °F")
     assert r[8][0] == "date" and "different values (lines 8, 9)" in r[8][1]
     assert r[9][0] == "date" and "different values (lines 8, 9)" in r[9][1]
-    assert r[10] == ("date", "not a valid date (expected format %Y-%m-%d)")          # 2024-02-30
+    assert r[10] == ("date", "not a valid date (expected format %Y-%m-%d)")  # 2024-02-30
     assert r[11] == ("station_id", "station_id is empty")
     assert r[12] == ("t_min", "no usable temperature: needs t_min and t_max, or t_mean")
     assert r[13] == ("t_mean", "impossible values: t_mean outside [t_min, t_max]")
     assert r[14] == ("t_min", "impossible temperature: beyond ±140 °F")
     assert r[15] == ("t_max", "not a finite number")
-    assert r[16] == ("date", "not a valid date (expected format %Y-%m-%d)")          # 01/12/2024: no guessing
+    assert r[16] == ("date", "not a valid date (expected format %Y-%m-%d)")  # 01/12/2024: no guessing
     assert set(r) == set(range(3, 17)) - {6, 7}
     assert rejects.columns == ["file", "line", "column", "value", "reason"]
     assert rejects.filter(pl.col("line") == 3)["value"][0] == "t_min=30 > t_max=20"
@@ -56,16 +56,20 @@ def test_daily_rejects_with_line_numbers():
 
 def test_daily_si_conversion_against_pint(tmp_path):
     p = tmp_path / "si.csv"
-    p.write_text("station_id,date,t_min,t_max,t_mean\nS,2024-07-01,-40,20,\nS,2024-07-02,,,0\n"
-                 "S,2024-07-03,-61,10,\nS,2024-07-04,0,60.5,\n")
+    p.write_text(
+        "station_id,date,t_min,t_max,t_mean\nS,2024-07-01,-40,20,\nS,2024-07-02,,,0\n"
+        "S,2024-07-03,-61,10,\nS,2024-07-04,0,60.5,\n"
+    )
     w, rej = read_daily_weather(p, units="SI")
     # pint as the reference for °C → °F (−40 °C = −40 °F, 20 °C = 68 °F, 0 °C = 32 °F)
     assert w["t_min_f"][0] == pytest.approx(UREG.Quantity(-40, "degC").to("degF").magnitude, abs=1e-12)
     assert w["t_max_f"][0] == pytest.approx(UREG.Quantity(20, "degC").to("degF").magnitude, abs=1e-12)
     assert w["t_mean_f"][1] == pytest.approx(UREG.Quantity(0, "degC").to("degF").magnitude, abs=1e-12)
     # ±60 °C limit applies to °C files (issue 3)
-    assert reasons(rej) == {4: ("t_min", "impossible temperature: beyond ±60 °C"),
-                            5: ("t_max", "impossible temperature: beyond ±60 °C")}
+    assert reasons(rej) == {
+        4: ("t_min", "impossible temperature: beyond ±60 °C"),
+        5: ("t_max", "impossible temperature: beyond ±60 °C"),
+    }
     with pytest.raises(ValueError, match="units must be 'IP' or 'SI'; got 'metric'"):
         read_daily_weather(p, units="metric")
 
@@ -93,14 +97,18 @@ def test_daily_mean_only_file_feeds_the_cube(tmp_path):
 
 
 def test_mapped_daily_layout():
-    mapping = {"STN_CODE": "station_id", "OBS_DAY": "date",
-               "MAXTEMP_TENTHS_C": ("t_max", "0.1C"), "MINTEMP_TENTHS_C": ("t_min", "0.1C")}
+    mapping = {
+        "STN_CODE": "station_id",
+        "OBS_DAY": "date",
+        "MAXTEMP_TENTHS_C": ("t_max", "0.1C"),
+        "MINTEMP_TENTHS_C": ("t_min", "0.1C"),
+    }
     w, rej = res = read_mapped_daily(DATA / "dd_mapped_summary.csv", mapping, date_format="%Y.%m.%d")
     # line 2: 20.0 °C / −5.0 °C → 68 / 23 °F (definition of the scales; pint agrees)
     assert w.rows() == [("QX-11", dt.date(2024, 1, 2), pytest.approx(23.0), pytest.approx(68.0), None, 2)]
     assert UREG.Quantity(-5.0, "degC").to("degF").magnitude == pytest.approx(23.0)
     r = reasons(rej)
-    assert r[3] == ("MAXTEMP_TENTHS_C", "impossible temperature: beyond ±60 °C")     # 70.0 °C
+    assert r[3] == ("MAXTEMP_TENTHS_C", "impossible temperature: beyond ±60 °C")  # 70.0 °C
     assert r[4][1] == "no usable temperature: needs t_min and t_max, or t_mean"
     assert r[5] == ("OBS_DAY", "not a valid date (expected format %Y.%m.%d)")
     assert any("ignored unknown column(s): REMARK" in n for n in res.notices)
@@ -120,22 +128,27 @@ def test_mapped_daily_errors(tmp_path):
     with pytest.raises(InputError, match="missing required column"):
         read_mapped_daily(f, {"STN_CODE": "station_id", "DAY": "date", "MAXTEMP_TENTHS_C": ("t_mean", "0.1C")})
     # a single-station file without a station column
-    w, _ = read_mapped_daily(f, {"OBS_DAY": "date", "MAXTEMP_TENTHS_C": ("t_mean", "0.1C")},
-                             station_id="ONE", date_format="%Y.%m.%d")
+    w, _ = read_mapped_daily(
+        f, {"OBS_DAY": "date", "MAXTEMP_TENTHS_C": ("t_mean", "0.1C")}, station_id="ONE", date_format="%Y.%m.%d"
+    )
     assert w["station_id"].unique().to_list() == ["ONE"] and w.height == 2
 
 
 def test_hourly_reader_stamps_and_rejects():
     h, rej = res = read_hourly_weather(DATA / "dd_hourly_small.csv")
     # 24:00 is the next day's 00:00 (line 4); "T" separator accepted (line 5)
-    assert h["timestamp"].to_list()[:4] == [dt.datetime(2024, 1, 1, 1), dt.datetime(2024, 1, 1, 2),
-                                            dt.datetime(2024, 1, 2, 0), dt.datetime(2024, 1, 2, 1)]
+    assert h["timestamp"].to_list()[:4] == [
+        dt.datetime(2024, 1, 1, 1),
+        dt.datetime(2024, 1, 1, 2),
+        dt.datetime(2024, 1, 2, 0),
+        dt.datetime(2024, 1, 2, 1),
+    ]
     r = reasons(rej)
     assert r[6] == ("temperature", "not a number")
     assert r[7][0] == "timestamp" and "different values (lines 7, 8)" in r[7][1] and 8 in r
-    assert 11 not in r                                   # −61 °F is within ±140 °F (a −61 °C reading would not be)
+    assert 11 not in r  # −61 °F is within ±140 °F (a −61 °C reading would not be)
     assert r[12] == ("timestamp", "not a valid timestamp (expected YYYY-MM-DD HH:MM[:SS])")
-    assert any("lines 10" in n for n in res.notices)                              # identical duplicate
+    assert any("lines 10" in n for n in res.notices)  # identical duplicate
 
 
 def test_hourly_reader_hour_ending_tmy_roundtrip(tmp_path):

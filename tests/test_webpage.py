@@ -27,20 +27,22 @@ from tests.conftest import cli, write_portfolio
 CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
 needs_browser = pytest.mark.skipif(
     CHROMIUM is None and not os.environ.get("CI"),
-    reason="chromium is not installed (Debian: apt-get install chromium); CI installs it and runs these tests")
+    reason="chromium is not installed (Debian: apt-get install chromium); CI installs it and runs these tests",
+)
 
 # invented hostile building names: markup, a script, a closing script tag, an attribute break-out,
 # a comment opener, a spreadsheet formula
 HOSTILE = {
     "B01": "<script>document.documentElement.setAttribute('data-pwned','1')</script>",
     "B02": "</script><img src=x onerror=\"document.documentElement.setAttribute('data-pwned','2')\">",
-    "B03": "<b>Hollin</b> & \"School\" </script><!--",
+    "B03": '<b>Hollin</b> & "School" </script><!--',
     "B04": "\" onmouseover=\"document.documentElement.setAttribute('data-pwned','4')\" x=\"",
-    "B05": "=HYPERLINK(\"http://example.invalid\",\"click me\")",
+    "B05": '=HYPERLINK("http://example.invalid","click me")',
 }
 
 
 # ---------------------------------------------------------------------------- helpers
+
 
 class Node:
     def __init__(self, tag: str, attrs: dict[str, str | None], parent: Node | None):
@@ -55,13 +57,31 @@ class Node:
             yield from c.iter()
 
     def find_all(self, tag: str | None = None, **attrs) -> list[Node]:
-        return [n for n in self.iter() if (tag is None or n.tag == tag)
-                and all(n.attrs.get(k.replace("_", "-")) == v for k, v in attrs.items())]
+        return [
+            n
+            for n in self.iter()
+            if (tag is None or n.tag == tag) and all(n.attrs.get(k.replace("_", "-")) == v for k, v in attrs.items())
+        ]
 
 
 class _Tree(HTMLParser):
-    VOID: ClassVar[set[str]] = {"meta", "img", "br", "input", "link", "hr", "col", "source", "area", "base", "wbr", "path", "rect",
-            "line", "circle"}
+    VOID: ClassVar[set[str]] = {
+        "meta",
+        "img",
+        "br",
+        "input",
+        "link",
+        "hr",
+        "col",
+        "source",
+        "area",
+        "base",
+        "wbr",
+        "path",
+        "rect",
+        "line",
+        "circle",
+    }
 
     def __init__(self):
         super().__init__(convert_charrefs=True)
@@ -105,9 +125,24 @@ def load(page: Path, state: str = "", *, tmp: Path) -> tuple[Node, str, list[str
     url = page.resolve().as_uri() + (f"#{state}" if state else "")
     profile = tmp / f"chromium-profile-{len(list(tmp.glob('chromium-profile-*')))}"
     proc = subprocess.run(
-        [CHROMIUM, "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run", "--disable-extensions",
-         f"--user-data-dir={profile}", "--enable-logging=stderr", "--v=0", "--dump-dom", url],
-        capture_output=True, text=True, timeout=120, check=False)
+        [
+            CHROMIUM,
+            "--headless",
+            "--no-sandbox",
+            "--disable-gpu",
+            "--no-first-run",
+            "--disable-extensions",
+            f"--user-data-dir={profile}",
+            "--enable-logging=stderr",
+            "--v=0",
+            "--dump-dom",
+            url,
+        ],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=False,
+    )
     assert proc.returncode == 0, proc.stderr[-2000:]
     console = [ln for ln in proc.stderr.splitlines() if ":CONSOLE" in ln or "Uncaught" in ln]
     return parse(proc.stdout), proc.stdout, console
@@ -151,6 +186,7 @@ def site(tmp_path_factory) -> dict:
 
 # ---------------------------------------------------------------------------- the file itself
 
+
 def test_every_run_writes_the_page_and_it_fetches_nothing(site):
     page = site["out"] / "index.html"
     html = page.read_text(encoding="utf-8")
@@ -172,8 +208,9 @@ def test_every_run_writes_the_page_and_it_fetches_nothing(site):
     # "look for": the mechanisms; "not told apart" only where a visit is due or the evidence is strong
     for r in data["rows"]:
         if not r["kinds"]:
-            assert r["kind_text"] == ("not told apart" if r["review"] or r["tier"] in ("Audit first", "Audit soon")
-                                      else "")
+            assert r["kind_text"] == (
+                "not told apart" if r["review"] or r["tier"] in ("Audit first", "Audit soon") else ""
+            )
         else:
             assert r["kind_text"] == ", ".join(r["kinds"])
     # the chart is the ranking's SVG, inline
@@ -188,12 +225,14 @@ def test_the_same_results_give_the_same_bytes(site, tmp_path):
 
 def test_json_for_script_escapes_what_could_close_the_element():
     from screening.webpage import json_for_script
+
     text = str(json_for_script({"a": "</script><!-- & \u2028"}))
     assert text == '{"a":"\\u003c/script\\u003e\\u003c!-- \\u0026 \\u2028"}'
     assert json.loads(text) == {"a": "</script><!-- & \u2028"}
 
 
 # ---------------------------------------------------------------------------- in the browser
+
 
 @needs_browser
 def test_the_page_loads_without_errors_and_lists_every_building_in_rank_order(site):
@@ -229,7 +268,7 @@ def test_sorting_by_cost_and_filtering_by_tier_change_the_rows_as_the_ranking_sa
     assert 0 < len(got) < rk.height
     assert [i for i, _ in got] == want["building_id"].to_list()
     assert {c[3] for _, c in got} == {tier}
-    assert dom.find_all("select", id="f-tier")[0].find_all("option", value=tier)   # the filter shows the choice
+    assert dom.find_all("select", id="f-tier")[0].find_all("option", value=tier)  # the filter shows the choice
     # the text search narrows further: one hostile name, found by a piece of its text
     dom, _h, console = load(site["out"] / "index.html", "q=" + "HYPERLINK", tmp=site["tmp"])
     assert console == [] and [i for i, _ in table_rows(dom)] == ["B05"]
@@ -265,16 +304,15 @@ def test_every_link_resolves_to_a_file_in_the_output_folder(site):
 def test_hostile_names_appear_as_text_and_run_nothing(site):
     dom, _html, console = load(site["out"] / "index.html", "sort=name-asc", tmp=site["tmp"])
     assert console == [] and errors_of(dom) == ""
-    assert "data-pwned" not in dom.find_all("html")[0].attrs                      # no payload ran
-    assert not dom.find_all("img") and not any("onerror" in n.attrs or "onmouseover" in n.attrs
-                                               for n in dom.iter())
-    assert len(dom.find_all("script")) == 2                                       # none added
+    assert "data-pwned" not in dom.find_all("html")[0].attrs  # no payload ran
+    assert not dom.find_all("img") and not any("onerror" in n.attrs or "onmouseover" in n.attrs for n in dom.iter())
+    assert len(dom.find_all("script")) == 2  # none added
     names = {i: c[2] for i, c in table_rows(dom)}
     for bid, name in HOSTILE.items():
-        assert names[bid] == name                                                 # the exact text, shown
+        assert names[bid] == name  # the exact text, shown
     assert dom.find_all("title")[0].text().startswith("Heating screening, run ")
     plan = dom.find_all("section", id="plan")[0].text()
-    assert HOSTILE["B03"] in plan                                                 # the template escaped it
+    assert HOSTILE["B03"] in plan  # the template escaped it
 
 
 @needs_browser
@@ -283,7 +321,8 @@ def test_a_script_error_is_seen_both_in_the_console_and_on_the_page(site, tmp_pa
     broken = tmp_path / "index.html"
     html = (site["out"] / "index.html").read_text(encoding="utf-8")
     start = html.index('<script type="application/json" id="page-data">') + len(
-        '<script type="application/json" id="page-data">')
+        '<script type="application/json" id="page-data">'
+    )
     broken.write_text(html[:start] + "{not json" + html[start:], encoding="utf-8")
     dom, _h, console = load(broken, tmp=site["tmp"])
     assert any("Uncaught" in ln for ln in console)
@@ -295,20 +334,23 @@ def test_clicking_a_column_title_and_choosing_a_tier_write_the_state_into_the_ad
     """The page's own controls (not only a loaded address): a script added to a copy of the page clicks
     the cost column's title, picks a tier, and writes the resulting address into the DOM."""
     html = (site["out"] / "index.html").read_text(encoding="utf-8")
-    driver = ("<script>(function () {"
-              "document.querySelector('button[data-sort=cost]').click();"
-              "var t = document.getElementById('f-tier'); t.value = 'No action';"
-              "t.dispatchEvent(new Event('change'));"
-              "var o = document.createElement('pre'); o.id = 'test-out'; o.textContent = location.hash;"
-              "document.body.appendChild(o); })();</script>")
+    driver = (
+        "<script>(function () {"
+        "document.querySelector('button[data-sort=cost]').click();"
+        "var t = document.getElementById('f-tier'); t.value = 'No action';"
+        "t.dispatchEvent(new Event('change'));"
+        "var o = document.createElement('pre'); o.id = 'test-out'; o.textContent = location.hash;"
+        "document.body.appendChild(o); })();</script>"
+    )
     copy = tmp_path / "index.html"
     copy.write_text(html.replace("</body>", driver + "</body>"), encoding="utf-8")
     dom, _h, console = load(copy, tmp=site["tmp"])
     assert console == [] and errors_of(dom) == ""
     assert dom.find_all(id="test-out")[0].text() == "#sort=cost-desc&tier=No%20action"
     rk = site["ranking"].with_columns(pl.col("expected_recoverable_cost").fill_nan(None))
-    want = rk.filter(pl.col("tier") == "No action").sort(["expected_recoverable_cost", "rank"],
-                                                         descending=[True, False], nulls_last=True)
+    want = rk.filter(pl.col("tier") == "No action").sort(
+        ["expected_recoverable_cost", "rank"], descending=[True, False], nulls_last=True
+    )
     assert [i for i, _ in table_rows(dom)] == want["building_id"].to_list()
 
 
@@ -325,17 +367,35 @@ def test_a_long_unbroken_name_wraps_instead_of_widening_the_page(tmp_path):
     out = tmp_path / "out"
     r = cli(p.args(out, tmp_path / "a.duckdb", "--quiet", "--no-sheets"))
     assert r.exit_code == 0, r.stderr
-    probe = out / "probe.html"   # a copy of the page with a script that writes the widths into the DOM
-    probe.write_text((out / "index.html").read_text(encoding="utf-8") + (
-        "<script>window.addEventListener('load',()=>{const t=document.querySelector('#building-rows')"
-        ".closest('table');document.documentElement.setAttribute('data-widths',[t.scrollWidth,"
-        "t.parentElement.clientWidth,document.documentElement.scrollWidth,"
-        "document.documentElement.clientWidth].join(' '));});</script>"), encoding="utf-8")
+    probe = out / "probe.html"  # a copy of the page with a script that writes the widths into the DOM
+    probe.write_text(
+        (out / "index.html").read_text(encoding="utf-8")
+        + (
+            "<script>window.addEventListener('load',()=>{const t=document.querySelector('#building-rows')"
+            ".closest('table');document.documentElement.setAttribute('data-widths',[t.scrollWidth,"
+            "t.parentElement.clientWidth,document.documentElement.scrollWidth,"
+            "document.documentElement.clientWidth].join(' '));});</script>"
+        ),
+        encoding="utf-8",
+    )
     for width in (1280, 1024, 800):
         proc = subprocess.run(
-            [CHROMIUM or "chromium", "--headless", "--no-sandbox", "--disable-gpu", "--no-first-run",
-             f"--user-data-dir={tmp_path / f'profile-{width}'}", f"--window-size={width},800", "--dump-dom",
-             probe.resolve().as_uri()], capture_output=True, text=True, timeout=120, check=False)
+            [
+                CHROMIUM or "chromium",
+                "--headless",
+                "--no-sandbox",
+                "--disable-gpu",
+                "--no-first-run",
+                f"--user-data-dir={tmp_path / f'profile-{width}'}",
+                f"--window-size={width},800",
+                "--dump-dom",
+                probe.resolve().as_uri(),
+            ],
+            capture_output=True,
+            text=True,
+            timeout=120,
+            check=False,
+        )
         assert proc.returncode == 0, proc.stderr[-2000:]
         m = re.search(r'data-widths="(\d+) (\d+) (\d+) (\d+)"', proc.stdout)
         assert m, "the probe did not run"
