@@ -22,8 +22,11 @@ from .errors import OutOfMemoryError
 #   so its temporaries grow with the readings of one chunk (BYTES_PER_CHUNK_READING, the chunk's share
 #   of the readings), while the results of every building are kept for the portfolio pass and the
 #   output tables (BYTES_PER_BUILDING).
-# Measured with benchmarks/bench_memory.py on simulated portfolios (42 readings a building; README
-# "Large files: memory and speed", docs/performance.md).
+# The coefficients are those measured for one pass (benchmarks/bench_memory.py, docs/performance.md "Large files:
+# memory and speed"); the split between the per-building and per-chunk parts is set, not fitted. A check
+# at 100,000 buildings / 4,246,886 readings (docs/performance.md): 1.80 GB after reading (this model:
+# 2.5 GB), screening growth above that 95 MB in chunks of 16,384 and 440 MB all at once (model: 0.75 and
+# 2.5 GB): conservative, not tight.
 BASE_BYTES = 330e6  # interpreter, libraries, weather cube, fixed tables
 BYTES_PER_READING_READ = 500.0  # readings file rows while the file is read and checked
 BYTES_PER_CHUNK_READING = 500.0  # readings of the chunk being screened
