@@ -718,8 +718,11 @@ def plan_context(
             + pl.when(pl.col("cost_then").is_not_null())
             .then(
                 pl.lit("those of the list it was audited from (")
-                + pl.col("cost_then").round(0).cast(pl.Int64).cast(pl.String)
-                + pl.lit(")")
+                + pl.col("cost_then")
+                .round(0)
+                .cast(pl.Int64)
+                .map_elements(lambda v: f"{v:,}", return_dtype=pl.String)  # a few audited rows: thousands shown
+                + pl.lit(" a year)")
             )
             .otherwise(pl.lit("those at the audit (not on record: kept off)"))
         )

@@ -423,7 +423,9 @@ _OWNER_VERDICT_NO_COST = {
 #: below it the bills "follow the weather closely" in the confidence line
 _CLOSE_FIT_CV = 0.15
 # figures the owner's half must not print (the engineer's block has them): parentheses holding a statistic
-_STAT_PAREN = re.compile(r"\s*\((?:[^()]*\((?:RMSE)\)[^()]*|[^()]*(?:R²|NMBE|\bz -?\d|score)[^()]*)\)")
+_STAT_PAREN = re.compile(
+    r"\s*\((?:[^()]*\((?:RMSE)\)[^()]*|[^()]*(?:R²|NMBE|\bz -?\d|score|heat-loss coefficient|balance point)[^()]*)\)"
+)
 
 
 def plain_text(text) -> str:
