@@ -630,7 +630,7 @@ def plan_context(
             + pl.lit(" days from ")
             + pl.col("_rs").cast(pl.String)
             + pl.lit(
-                f" to {window_end} only (after the measure and {blackout_days} days of blackout); its drop is "
+                f" to {window_end} only (after the measure and {blackout_days} days for it to settle in); its drop is "
                 "reported as savings (savings.csv), not as a change on last year"
             )
         )

@@ -403,6 +403,30 @@ _FUEL_TEXT = {
     "district_hot_water": "district hot water",
 }
 #: how a billed unit reads in a sentence ("12,400 therms"); units not named here read as they are
+#: What the energy units on a sheet mean, for the owner (one line in the footer; units in common use).
+_UNIT_MEANING = {
+    "kBtu": "kBtu = thousand British thermal units",
+    "MMBtu": "MMBtu = million Btu",
+    "kWh": "kWh = kilowatt-hour",
+    "therm": "therm = 100,000 Btu of gas",
+    "Dth": "dekatherm = 1,000,000 Btu",
+    "ccf": "ccf = hundred cubic feet of gas",
+    "Mcf": "Mcf = thousand cubic feet of gas",
+    "m3": "m³ = cubic metre of gas",
+    "gal": "gallon of oil or propane",
+    "L": "litre of oil or propane",
+    "lb": "lb = pound of steam",
+    "Mlb": "Mlb = thousand pounds of steam",
+}
+
+
+def units_line(s: dict[str, Any]) -> str:
+    """The footer's line saying what the sheet's energy units and t CO₂e mean."""
+    seen = [u for u in (s.get("billed_unit"), s.get("energy_unit")) if u]
+    parts = [_UNIT_MEANING[u] for u in dict.fromkeys(seen) if u in _UNIT_MEANING]
+    return "Units: " + "; ".join([*parts, "t CO₂e = tonnes of carbon-dioxide equivalent"]) + "."
+
+
 _UNIT_PLURAL = {"therm": "therms", "Dth": "dekatherms", "gal": "gallons", "L": "litres", "lb": "lb"}
 
 #: The owner's verdict per tier: what to do, in plain words ({cost} = the expected recoverable cost a year).
@@ -948,6 +972,7 @@ def sheet_view(s: dict[str, Any], level: int = 0) -> dict[str, Any]:
         "steps": [_cut(t, lim["expl"]) for t in steps],
         "steps_more": steps_more,
         "confidence": _cut(confidence_line(s), lim["text"]),
+        "units_line": units_line(s),
         # an audit on record (events file): kept off the plan after a clean audit, or pinned by a finding;
         # a measure's note is in the verdict already
         "audit_note": (
