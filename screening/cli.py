@@ -21,7 +21,6 @@ from enum import Enum
 from pathlib import Path
 from typing import Annotated, Optional
 
-import click
 import typer
 
 from . import __version__, interrupts
@@ -93,6 +92,15 @@ def _fail(exc: BaseException) -> None:
     raise typer.Exit(EXIT_RUN_FAILED)
 
 
+#: typer's own exits and usage errors (typer vendors click in recent releases, so click is not imported:
+#: it is not a dependency of ours)
+_TYPER_OWN: tuple[type[BaseException], ...] = (
+    typer.Exit,
+    typer.Abort,
+    next(c for c in typer.BadParameter.__mro__ if c.__name__ == "ClickException"),
+)
+
+
 @contextmanager
 def _mapped_errors(*, value_error_is_bad_input: bool = False) -> Iterator[None]:
     """Every command's library call runs inside this: the one place where an exception becomes one line on
@@ -101,7 +109,7 @@ def _mapped_errors(*, value_error_is_bad_input: bool = False) -> Iterator[None]:
     ``ddscreen: error:`` line and exit 2."""
     try:
         yield
-    except (click.exceptions.Exit, click.exceptions.ClickException):
+    except _TYPER_OWN:
         raise
     except ValueError as exc:
         if not value_error_is_bad_input:

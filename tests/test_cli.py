@@ -402,3 +402,21 @@ def test_settings_are_declared_once():
         assert cfgmod.DEFAULTS[section][key] in choices
         with pytest.raises(ConfigError, match=re.escape(f"[{section}] {key}: got 'x!'; expected {expected}")):
             cfgmod.load(overrides={section: {key: "x!"}})
+
+
+def test_typer_exits_and_usage_errors_pass_through_the_error_mapping():
+    """typer vendors click in recent releases: its own Exit and usage errors must not become 'internal error'
+    (and click, not a dependency of ours, is not imported)."""
+
+    import pytest
+    import typer
+
+    from screening import cli as climod
+
+    with pytest.raises(typer.Exit) as ex, climod._mapped_errors():
+        raise typer.Exit(3)
+    assert ex.value.exit_code == 3
+    with pytest.raises(typer.BadParameter), climod._mapped_errors():
+        raise typer.BadParameter("nope", param_hint="--x")
+    src = (Path(climod.__file__)).read_text(encoding="utf-8")
+    assert "import click" not in src
