@@ -8,6 +8,7 @@ outputs (see :mod:`screening.outputs`).
 from __future__ import annotations
 
 import datetime as _dt
+from abc import ABC, abstractmethod
 import hashlib
 import json
 import time
@@ -315,16 +316,18 @@ def chunk_size(chunk_buildings: int, n_buildings: int, fit_block: int | None = N
     return n_buildings if chunk_buildings <= 0 else min(-(-chunk_buildings // fb) * fb, max(n_buildings, 1))
 
 
-class ReadingsSource:
+class ReadingsSource(ABC):
     """Where a screening gets the readings of a chunk of buildings (the readings rows of the canonical
-    frame, one row per key). ``self(ids)``: the readings of the buildings ``ids``; ``others(ids)``:
-    those of every other building (rejected as unknown buildings)."""
+    frame, one row per key): an interface, implemented by :class:`FrameReadings` (a frame in memory) and
+    ``runner.StoreReadings`` (the store)."""
 
+    @abstractmethod
     def __call__(self, ids: pl.Series) -> pl.DataFrame:
-        raise NotImplementedError
+        """The readings of the buildings ``ids``."""
 
+    @abstractmethod
     def others(self, ids: pl.Series) -> pl.DataFrame:
-        raise NotImplementedError
+        """The readings of every other building (rejected as unknown buildings)."""
 
 
 class FrameReadings(ReadingsSource):
