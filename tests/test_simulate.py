@@ -19,6 +19,8 @@ import polars as pl
 import pytest
 from scipy.signal import lfilter
 
+from .conftest import BUILDING_HEADER, READING_HEADER, WEATHER_HEADER
+
 ROOT = Path(__file__).resolve().parents[1]
 SP = ROOT / "sample_portfolio"
 
@@ -36,23 +38,9 @@ ureg = pint.UnitRegistry()
 Q = ureg.Quantity
 
 # Input contract (issue 2, "Input contract"), columns exactly.
-BUILDING_COLS = [
-    "building_id",
-    "name",
-    "station_id",
-    "use_type",
-    "floor_area",
-    "year_built",
-    "stories",
-    "heating_fuel",
-    "heating_efficiency",
-    "ua_total",
-    "balance_point",
-    "address",
-    "city",
-]
-READING_COLS = ["building_id", "fuel", "period_start", "period_end", "quantity", "unit", "estimated", "cost"]
-WEATHER_COLS = ["station_id", "date", "t_min", "t_max"]
+BUILDING_COLS = BUILDING_HEADER
+READING_COLS = READING_HEADER
+WEATHER_COLS = WEATHER_HEADER
 USE_TYPES = {"office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other"}
 FUELS = {"natural_gas", "fuel_oil", "propane", "electricity", "district_steam", "district_hot_water"}
 UNITS = {"therm", "ccf", "mcf", "m3", "kWh", "MWh", "kBtu", "MMBtu", "GJ", "gal", "L", "lb", "Mlb"}

@@ -22,6 +22,7 @@ from .conftest import (
     AS_OF,
     BASE_BTU_PER_DAY_FT2,
     BTU_PER_UNIT,
+    BUILDING_HEADER,
     READING_HEADER,
     WEATHER_HEADER,
     _csv,
@@ -29,19 +30,7 @@ from .conftest import (
     month_periods,
 )
 
-HEADER = [
-    "building_id",
-    "name",
-    "station_id",
-    "use_type",
-    "floor_area",
-    "year_built",
-    "stories",
-    "heating_fuel",
-    "heating_efficiency",
-    "ua_total",
-    "balance_point",
-]
+HEADER = BUILDING_HEADER[:11]  # the fixture buildings without address and city
 
 
 def _write(folder, buildings, seed=7):
