@@ -18,22 +18,24 @@ from .errors import ConfigError
 
 #: Other names people give our columns (lower case, words separated by one blank). Our own list of
 #: everyday header words; a suggestion from it is always shown for confirmation.
+#: the names a building id goes by in every file (buildings add "id", readings "account")
+_BUILDING_ID_NAMES = (
+    "building id",
+    "bldg id",
+    "building",
+    "bldg",
+    "building no",
+    "building number",
+    "building code",
+    "site id",
+    "site",
+    "property id",
+    "property code",
+)
+
 SYNONYMS: dict[str, dict[str, tuple[str, ...]]] = {
     "buildings": {
-        "building_id": (
-            "building id",
-            "bldg id",
-            "building",
-            "bldg",
-            "building no",
-            "building number",
-            "building code",
-            "site id",
-            "site",
-            "property id",
-            "property code",
-            "id",
-        ),
+        "building_id": (*_BUILDING_ID_NAMES, "id"),
         "name": ("building name", "property name", "site name", "property", "description"),
         "station_id": ("station", "weather station", "station id", "station code", "wx station"),
         "use_type": ("use", "use type", "building type", "property type", "type", "primary use", "usage type"),
@@ -60,20 +62,7 @@ SYNONYMS: dict[str, dict[str, tuple[str, ...]]] = {
         "city": ("town",),
     },
     "readings": {
-        "building_id": (
-            "building id",
-            "bldg id",
-            "building",
-            "bldg",
-            "building no",
-            "building number",
-            "building code",
-            "site id",
-            "site",
-            "property id",
-            "property code",
-            "account",
-        ),
+        "building_id": (*_BUILDING_ID_NAMES, "account"),
         "fuel": (
             "fuel",
             "fuel type",
@@ -154,19 +143,7 @@ SYNONYMS: dict[str, dict[str, tuple[str, ...]]] = {
         "t_mean": ("avg temp", "mean temp", "tavg", "average temperature", "mean temperature", "tmean", "average temp"),
     },
     "events": {
-        "building_id": (
-            "building id",
-            "bldg id",
-            "building",
-            "bldg",
-            "building no",
-            "building number",
-            "building code",
-            "site id",
-            "site",
-            "property id",
-            "property code",
-        ),
+        "building_id": _BUILDING_ID_NAMES,
         "date": ("event date", "day", "date of visit", "visit date", "audit date", "install date", "installed"),
         "kind": ("event", "event type", "type", "what", "activity"),
         "finding": ("result", "outcome", "found", "audit result"),
