@@ -10,9 +10,9 @@ sheets and reported per sheet (they scale linearly); the batched path is timed o
   again, ``HTML(string=...)`` rendered and written to its own file, the garbage collector
   left on. Same template, HTML, fetcher and shrink levels as ours. Benchmark only; never a
   production path.
-- **warm** (``report.render_sheets_one_by_one``): one document per sheet, but with every
+- **warm** (``pdf.render_sheets_one_by_one``): one document per sheet, but with every
   saving of the batched path except the batching itself: one shared ``FontConfiguration``,
-  stylesheets parsed once, collector paused, the same page writer (``report._write_split``).
+  stylesheets parsed once, collector paused, the same page writer (``pdfsplit.write_split``).
   The stricter comparison.
 
 Wall time per sheet gives the speed-ups; CPU time per sheet (the baselines' process time; for
@@ -39,7 +39,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from screening import report  # noqa: E402
+from screening.render import filenames, paging, pdf, sheet_view as sv  # noqa: E402
 from tests.sheet_fixtures import make_report, make_sheet  # noqa: E402
 
 
@@ -47,8 +47,8 @@ def naive_one_document_per_sheet(sheets: list[dict], out_dir: Path, *, paper: st
     """The naive baseline: one WeasyPrint document per sheet, nothing reused between sheets.
 
     Per sheet: a new ``FontConfiguration``, ``sheet.css`` and the page-size rule parsed
-    again, the sheet's HTML (the production template and view, via ``report._sheets_html``)
-    rendered with the production :func:`report.AssetFetcher` and written by WeasyPrint
+    again, the sheet's HTML (the production template and view, via ``pdf._sheets_html``)
+    rendered with the production :func:`pdf.AssetFetcher` and written by WeasyPrint
     straight to its own file (the ``<title>`` gives the PDF title). The cyclic garbage
     collector stays on. A sheet over one page is rendered again at the next shrink level, as
     the production path does, so both produce the same one-page sheets.
@@ -57,31 +57,31 @@ def naive_one_document_per_sheet(sheets: list[dict], out_dir: Path, *, paper: st
     from weasyprint.text.fonts import FontConfiguration
 
     out_dir.mkdir(parents=True, exist_ok=True)
-    tdir = report.templates_dir()
+    tdir = pdf.templates_dir()
     base = tdir.as_uri() + "/"
-    fetcher = report.AssetFetcher(tdir)
-    names = report.assign_filenames([s["building_id"] for s in sheets])
+    fetcher = pdf.AssetFetcher(tdir)
+    names = filenames.assign_filenames([s.building_id for s in sheets])
     paths = []
     for s in sheets:
-        title = report.sheet_title(s)
+        title = sv.sheet_title(s)
         target = out_dir / f"{names[s['building_id']]}.pdf"
-        for level in range(report.MAX_LEVEL + 1):
+        for level in range(paging.MAX_LEVEL + 1):
             font_config = FontConfiguration()
             css = [
                 CSS(filename=str(tdir / "sheet.css"), font_config=font_config, url_fetcher=fetcher, base_url=base),
                 CSS(
-                    string=f"@page {{ size: {report.PAPERS[paper]}; }}"
-                    f" .figs {{ tab-size: {report._CONTENT_MM[paper] / 4:.2f}mm; }}",
+                    string=f"@page {{ size: {paging.PAPERS[paper]}; }}"
+                    f" .figs {{ tab-size: {paging.CONTENT_MM[paper] / 4:.2f}mm; }}",
                     font_config=font_config,
                 ),
             ]
-            html = report._sheets_html([report.sheet_view(s, level)], title)
+            html = pdf._sheets_html([sv.sheet_view(s, level)], title)
             doc = HTML(string=html, base_url=base, url_fetcher=fetcher).render(stylesheets=css, font_config=font_config)
             if len(doc.pages) == 1:
                 doc.write_pdf(target)
                 break
         else:
-            raise report.RenderError(f"sheet {s['building_id']!r} does not fit one page")
+            raise pdf.RenderError(f"sheet {s['building_id']!r} does not fit one page")
         paths.append(target)
     return paths
 
@@ -110,11 +110,11 @@ def main() -> None:
         ranking = ""
         if a.ranking_rows:
             rep = make_report(a.ranking_rows)
-            report.render_ranking(make_report(5), tmp / "warm.pdf", paper=a.paper)
+            pdf.render_ranking(make_report(5), tmp / "warm.pdf", paper=a.paper)
             best = None
             for _ in range(2):
                 t, c = time.perf_counter(), time.process_time()
-                out = report.render_ranking(rep, tmp / "ranking.pdf", paper=a.paper)
+                out = pdf.render_ranking(rep, tmp / "ranking.pdf", paper=a.paper)
                 run = (time.perf_counter() - t, time.process_time() - c)
                 best = run if best is None or run[0] < best[0] else best
             from pypdf import PdfReader
@@ -123,8 +123,8 @@ def main() -> None:
                 f"ranking.pdf, {a.ranking_rows} rows: {best[0]:.2f} s wall, {best[1]:.2f} s CPU "
                 f"({len(PdfReader(out).pages)} pages)"
             )
-        report._state()  # warm the in-process renderer for the baseline, as a long-lived run would
-        report.render_sheets_one_by_one(sheets[:1], tmp / "warm", paper=a.paper)
+        pdf._state()  # warm the in-process renderer for the baseline, as a long-lived run would
+        pdf.render_sheets_one_by_one(sheets[:1], tmp / "warm", paper=a.paper)
         naive_one_document_per_sheet(sheets[:1], tmp / "warm-naive", paper=a.paper)  # imports, template
         print(f"load average before the baselines: {os.getloadavg()[0]:.2f}")
         t, c = time.perf_counter(), time.process_time()
@@ -132,12 +132,12 @@ def main() -> None:
         naive, naive_cpu = ((time.perf_counter() - t) / a.baseline, (time.process_time() - c) / a.baseline)
         _check_one_page(naive_paths)
         t, c = time.perf_counter(), time.process_time()
-        report.render_sheets_one_by_one(sheets[: a.baseline], tmp / "one", paper=a.paper)
+        pdf.render_sheets_one_by_one(sheets[: a.baseline], tmp / "one", paper=a.paper)
         one, one_cpu = ((time.perf_counter() - t) / a.baseline, (time.process_time() - c) / a.baseline)
         print(f"load average before batched: {os.getloadavg()[0]:.2f}")
         stats: dict = {}
         t = time.perf_counter()
-        paths = report.render_sheets(
+        paths = pdf.render_sheets(
             sheets, tmp / "batched", paper=a.paper, workers=a.workers, chunk_size=a.chunk, stats=stats
         )
         batched = (time.perf_counter() - t) / a.sheets

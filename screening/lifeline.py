@@ -1,6 +1,6 @@
 """Helper processes die with the process that started them (the sheet renderer's pool).
 
-The renderer (``report._run_chunks``) starts its workers through a multiprocessing fork
+The renderer (``render.pdf._run_chunks``) starts its workers through a multiprocessing fork
 server: the main process starts the fork server, the fork server forks each worker. Killed
 with SIGKILL, the main process runs no clean-up, and without this module the workers (about
 220 MB each) would finish their chunks into the dead run's temporary folder and then wait for

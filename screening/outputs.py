@@ -7,11 +7,14 @@ from __future__ import annotations
 import json
 import math
 from pathlib import Path
+from typing import cast
 
 import polars as pl
 
-from . import savings_page, screen
+from . import screen
 from .pipeline import DATA_ISSUE_CODES
+from .render import savings_page
+from .render.record import AnnualBar, Assumption, DataIssue, Flag, Line, Period, SheetRecord, SinceMeasure, UaPart
 from .schema import FLAGS, KBTU_TO_KWH, REJECT_SCHEMA
 
 FT2_TO_M2 = 0.09290304  # exact
@@ -460,11 +463,12 @@ def sheet_records(
     run_date: str,
     currency: str,
     since_measure: dict[str, dict] | None = None,
-) -> list[dict]:
-    """The dicts that the sheet template renders, one per building (see screening.report).
+) -> list[SheetRecord]:
+    """The sheet records, one per building (``screening.render.record.SheetRecord``; rendered by
+    ``screening.render.pdf.render_sheets``).
 
     ``since_measure`` (``events.since_measure``, issue 17): per building with a measure, the data of the
-    sheet's "since the measure" box; the record's key ``since_measure`` is that dict or None.
+    sheet's "since the measure" box; the record's ``since_measure`` is that dict or None.
     """
     d = disp
     ef = 1.8 if d.si else 1.0  # per °F → per K
@@ -491,12 +495,14 @@ def sheet_records(
     peer_map = {
         r["peer_group"]: [d.val("intensity", x) for x in r["heating_intensity"]] for r in peers.iter_rows(named=True)
     }
-    out = []
+    out: list[SheetRecord] = []
     for r in res.iter_rows(named=True):
         bid = r["building_id"]
         grp = per.get(bid)
         bal = r["balance_point_f"]
-        periods_list, fit_line, exp_line = [], None, None
+        periods_list: list[Period] = []
+        fit_line: Line | None = None
+        exp_line: Line | None = None
         if grp is not None and r["fit_method"] == "regression":
             periods_list = [
                 {
@@ -521,7 +527,7 @@ def sheet_records(
                     "intercept": d.val("energy", alpha) if alpha is not None else 0.0,
                     "slope": d.val("energy", 24.0 * ua / eff / 1000.0) * ef,
                 }
-        annual = []
+        annual: list[AnnualBar] = []
         if not periods_list:
             annual = [
                 {
@@ -530,18 +536,18 @@ def sheet_records(
                     "expected": d.val("energy", r["expected_heating_kbtu"]),
                 }
             ]
-        ua_parts = [
+        ua_parts: list[UaPart] = [
             {"part": p, "value": d.val("ua", r.get(f"ua_{p}"))}
             for p in ("walls", "windows", "roof", "ground", "infiltration", "ventilation")
         ]
-        assumptions = display_assumptions(env_rows.get(bid, {}).get("assumptions"), d)
+        assumptions = cast(list[Assumption], display_assumptions(env_rows.get(bid, {}).get("assumptions"), d))
         # the envelope-defaulted flag is on most buildings: it goes into the confidence line, not the flags
-        flags = [
+        flags: list[Flag] = [
             {"code": c, "label": FLAGS.get(c, c.replace("_", " ")), "explanation": t}
             for c, t in zip(r["flag_codes"], r["flag_texts"])
             if c != "envelope_defaulted"
         ]
-        issues = [
+        issues: list[DataIssue] = [
             {"code": c, "explanation": t, "blocking": bool(DATA_ISSUE_CODES.get(c, False))}
             for c, t in zip(r["data_issue_codes"], r["data_issue_texts"])
         ]
@@ -556,60 +562,60 @@ def sheet_records(
         if r["effective_ua_btu_h_f"] and r["ua_total"]:
             slope_ratio = r["effective_ua_btu_h_f"] / r["ua_total"]
         out.append(
-            {
-                "building_id": bid,
-                "name": r["name"],
-                "address": r.get("address"),
-                "city": r.get("city"),
-                "use_type": r["use_type"],
-                "floor_area": d.val("area", r["floor_area_ft2"]),
-                "area_unit": d.area_unit,
-                "year_built": r["year_built"],
-                "station_id": r["station_id"],
-                "period_start": str(r["span_start"]),
-                "period_end": str(r["span_end"]),
-                "span_kind": r["span_kind"],
-                "run_date": run_date,
-                "run_id": run_id,
-                "energy_unit": d.energy_unit,
-                "temp_unit": d.temp_unit,
-                "dd_unit": d.dd_unit,
-                "intensity_unit": d.intensity_unit,
-                "verdict": r["verdict"],
-                "tier": r["tier"],
-                "tier_rank": r["tier_rank"],
-                "rank": r.get("rank"),
-                "n_buildings": res.height,
-                "recoverable_basis": r.get("recoverable_basis"),
-                "plan_note": r.get("plan_note"),
-                "needs_review": r["needs_review"],
-                "actual_heating": d.val("energy", r["actual_heating_kbtu"]),
-                "expected_heating": d.val("energy", r["expected_heating_kbtu"]),
-                "expected_low": d.val("energy", r["expected_low_kbtu"]),
-                "expected_high": d.val("energy", r["expected_high_kbtu"]),
-                "expected_fixed_base": d.val("energy", r["expected_fixed_base_kbtu"]),
-                "expected_modified": d.val("energy", r["expected_modified_kbtu"]),
-                "ratio": _num(r["ratio"]),
-                "band_position": r["band_position"],
-                "heating_intensity": d.val("intensity", r["heating_intensity"]),
-                "peer_median_intensity": d.val("intensity", r["peer_median_intensity"]),
-                "peer_percentile": _num(r["peer_percentile"]),
-                "peer_group": r["peer_group"],
-                "normal_heating": d.val("energy", r["normal_heating_kbtu"]),
-                "baseload": d.val("energy", r["baseload_kbtu"]),
-                "excess_energy": d.val("energy", r["excess_energy_kbtu"]),
-                "excess_cost": _num(r["excess_cost"]),
-                "currency": currency,
-                "excess_co2e_kg": _num(r["excess_co2e_kg"]),
-                "expected_recoverable_energy": d.val("energy", r["expected_recoverable_kbtu"]),
-                "expected_recoverable_cost": _num(r["expected_recoverable_cost"]),
-                "expected_recoverable_co2e_kg": _num(r["expected_recoverable_co2e_kg"]),
-                "waste_kind": r["waste_kind"],
-                "evidence_scale": r["evidence_scale"],
-                "peer_weight": _num(r["peer_weight"]),
-                "hdd": d.val("dd", r["hdd_balance"]),
-                "base_temperature": d.val("temp", bal),
-                "fit": {
+            SheetRecord(
+                building_id=bid,
+                name=r["name"],
+                address=r.get("address"),
+                city=r.get("city"),
+                use_type=r["use_type"],
+                floor_area=d.val("area", r["floor_area_ft2"]),
+                area_unit=d.area_unit,
+                year_built=r["year_built"],
+                station_id=r["station_id"],
+                period_start=str(r["span_start"]),
+                period_end=str(r["span_end"]),
+                span_kind=r["span_kind"],
+                run_date=run_date,
+                run_id=run_id,
+                energy_unit=d.energy_unit,
+                temp_unit=d.temp_unit,
+                dd_unit=d.dd_unit,
+                intensity_unit=d.intensity_unit,
+                verdict=r["verdict"],
+                tier=r["tier"],
+                tier_rank=r["tier_rank"],
+                rank=r.get("rank"),
+                n_buildings=res.height,
+                recoverable_basis=r.get("recoverable_basis"),
+                plan_note=r.get("plan_note"),
+                needs_review=r["needs_review"],
+                actual_heating=d.val("energy", r["actual_heating_kbtu"]),
+                expected_heating=d.val("energy", r["expected_heating_kbtu"]),
+                expected_low=d.val("energy", r["expected_low_kbtu"]),
+                expected_high=d.val("energy", r["expected_high_kbtu"]),
+                expected_fixed_base=d.val("energy", r["expected_fixed_base_kbtu"]),
+                expected_modified=d.val("energy", r["expected_modified_kbtu"]),
+                ratio=_num(r["ratio"]),
+                band_position=r["band_position"],
+                heating_intensity=d.val("intensity", r["heating_intensity"]),
+                peer_median_intensity=d.val("intensity", r["peer_median_intensity"]),
+                peer_percentile=_num(r["peer_percentile"]),
+                peer_group=r["peer_group"],
+                normal_heating=d.val("energy", r["normal_heating_kbtu"]),
+                baseload=d.val("energy", r["baseload_kbtu"]),
+                excess_energy=d.val("energy", r["excess_energy_kbtu"]),
+                excess_cost=_num(r["excess_cost"]),
+                currency=currency,
+                excess_co2e_kg=_num(r["excess_co2e_kg"]),
+                expected_recoverable_energy=d.val("energy", r["expected_recoverable_kbtu"]),
+                expected_recoverable_cost=_num(r["expected_recoverable_cost"]),
+                expected_recoverable_co2e_kg=_num(r["expected_recoverable_co2e_kg"]),
+                waste_kind=r["waste_kind"],
+                evidence_scale=r["evidence_scale"],
+                peer_weight=_num(r["peer_weight"]),
+                hdd=d.val("dd", r["hdd_balance"]),
+                base_temperature=d.val("temp", bal),
+                fit={
                     "method": r["fit_method"],
                     "r2": _num(r["r2"]),
                     # the sheet shows fractions as percentages; the fit reports percent
@@ -622,47 +628,47 @@ def sheet_records(
                     else None,
                     "baseload_per_day": d.val("energy", r.get("baseload_kbtu_per_day")),
                 },
-                "effective_ua": d.val("ua", r["effective_ua_btu_h_f"]),
-                "ua_unit": d.ua_unit,
-                "ua_parts": ua_parts,
-                "ua_total": d.val("ua", r["ua_total"]),
-                "assumptions": assumptions,
-                "periods": periods_list,
-                "fit_line": fit_line,
-                "expected_line": exp_line,
-                "annual": annual,
-                "peers": peer_map.get(r["peer_group"], []),
-                "flags": flags,
-                "data_issues": issues,
-                "next_steps": screen.next_steps(
+                effective_ua=d.val("ua", r["effective_ua_btu_h_f"]),
+                ua_unit=d.ua_unit,
+                ua_parts=ua_parts,
+                ua_total=d.val("ua", r["ua_total"]),
+                assumptions=assumptions,
+                periods=periods_list,
+                fit_line=fit_line,
+                expected_line=exp_line,
+                annual=annual,
+                peers=peer_map.get(r["peer_group"], []),
+                flags=flags,
+                data_issues=issues,
+                next_steps=screen.next_steps(
                     r["flag_codes"],
                     r["data_issue_codes"],
                     slope_vs_envelope=slope_ratio,
                     mechanisms=r["mechanisms"],
                     blocking=r["blocking"],
                 ),
-                "cautions": [],  # the sheet template prints the standard cautions on every sheet
-                "since_measure": (since_measure or {}).get(bid),
+                cautions=[],  # the sheet template prints the standard cautions on every sheet
+                since_measure=cast(SinceMeasure | None, (since_measure or {}).get(bid)),
                 # the owner's half: the bills' own unit, money, the plain kind of waste, how sure
-                "heating_fuel": r.get("heating_fuel"),
-                "efficiency": _num(r.get("efficiency")),
-                "blocking": bool(r.get("blocking")),
-                "envelope_defaulted": "envelope_defaulted" in r["flag_codes"],
-                "flag_codes": list(r["flag_codes"]),
-                "mechanisms": list(r["mechanisms"] or []),
-                "screen_verdict": r["verdict"],
-                "in_plan": bool(r.get("in_plan")),
-                "billed_unit": r.get("billed_unit") if per_unit is not None else None,
-                "actual_heating_billed": billed(r["actual_heating_kbtu"]),
-                "expected_heating_billed": billed(r["expected_heating_kbtu"]),
-                "expected_low_billed": billed(r["expected_low_kbtu"]),
-                "expected_high_billed": billed(r["expected_high_kbtu"]),
-                "excess_billed": billed(r["excess_energy_kbtu"]),
-                "expected_recoverable_billed": billed(r["expected_recoverable_kbtu"]),
-                "heating_cost": None
+                heating_fuel=r.get("heating_fuel"),
+                efficiency=_num(r.get("efficiency")),
+                blocking=bool(r.get("blocking")),
+                envelope_defaulted="envelope_defaulted" in r["flag_codes"],
+                flag_codes=list(r["flag_codes"]),
+                mechanisms=list(r["mechanisms"] or []),
+                screen_verdict=r["verdict"],
+                in_plan=bool(r.get("in_plan")),
+                billed_unit=r.get("billed_unit") if per_unit is not None else None,
+                actual_heating_billed=billed(r["actual_heating_kbtu"]),
+                expected_heating_billed=billed(r["expected_heating_kbtu"]),
+                expected_low_billed=billed(r["expected_low_kbtu"]),
+                expected_high_billed=billed(r["expected_high_kbtu"]),
+                excess_billed=billed(r["excess_energy_kbtu"]),
+                expected_recoverable_billed=billed(r["expected_recoverable_kbtu"]),
+                heating_cost=None
                 if price is None or _num(r["actual_heating_kbtu"]) is None
                 else r["actual_heating_kbtu"] * price,
-                "scores": {
+                scores={
                     "evidence_score": _num(r.get("evidence_score")),
                     "z_score": _num(r.get("z_score")),
                     "z_balance_point": _num(r.get("z_balance_point")),
@@ -670,7 +676,7 @@ def sheet_records(
                     "z_yoy": _num(r.get("z_yoy")),
                     "yoy_change": _num(r.get("yoy_change")),
                 },
-            }
+            )
         )
     return out
 
@@ -685,7 +691,7 @@ def ranking_report(
     max_rows: int = 0,
     savings: pl.DataFrame | None = None,
 ) -> dict:
-    """The dict that ranking.pdf renders (see screening.report.render_ranking).
+    """The dict that ranking.pdf renders (see screening.render.pdf.render_ranking).
 
     ``max_rows`` > 0 keeps the PDF's table to the first rows of the ranking (the full list is
     ranking.csv); ``rows_total`` and ``rows_omitted`` say how many there are and were left out.

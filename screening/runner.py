@@ -476,7 +476,7 @@ def _run_locked(
         timings["csv"] = round(time.perf_counter() - t, 4)
         paper = cfg["output"]["paper"]
         paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
-        from . import report
+        from .render import filenames, pdf
 
         sheet_files: dict[str, str] | None = None  # building_id -> its sheet, relative to the folder
         if cfg["output"]["sheets"]:
@@ -505,8 +505,8 @@ def _run_locked(
                 since_measure=since,
             )
             (tmp / "sheets").mkdir()
-            names = report.assign_filenames([s["building_id"] for s in sheets])
-            report.render_sheets(sheets, tmp / "sheets", paper=paper, workers=_workers(cfg["output"]["workers"]))
+            names = filenames.assign_filenames([s.building_id for s in sheets])
+            pdf.render_sheets(sheets, tmp / "sheets", paper=paper, workers=_workers(cfg["output"]["workers"]))
             timings["sheets"] = round(time.perf_counter() - t, 4)
             sheet_files = {b: f"sheets/{v}.pdf" for b, v in names.items()}
             outputs.write_csv(
@@ -516,7 +516,7 @@ def _run_locked(
         _stage("after_sheets")
         bar.stage("render ranking")
         t = time.perf_counter()
-        report.render_ranking(
+        pdf.render_ranking(
             outputs.ranking_report(
                 ranking,
                 res.results,

@@ -25,11 +25,12 @@ import jinja2
 import polars as pl
 from markupsafe import Markup
 
-from . import charts, screen
+from . import screen
 from .outputs import Display
-from .report import STANDARD_CAUTION, fmt_money, fmt_num, fmt_pct, fmt_ratio
+from .render import charts
+from .render.display import STANDARD_CAUTION, fmt_money, fmt_num, fmt_pct, fmt_ratio
+from .render.savings_page import hit_rate_lines
 from .resources import templates_dir
-from .savings_page import hit_rate_lines
 
 #: What the page's "look for" column says when the evidence names no mechanism but the use rose.
 STEP_UP_KIND = "what changed"

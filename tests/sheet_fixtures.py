@@ -1,4 +1,4 @@
-"""Builders of sheet dicts and ranking-report dicts for the rendering tests and benchmark.
+"""Builders of sheet records and ranking-report dicts for the rendering tests and benchmark.
 
 All names, addresses, cities and stations are invented. Figures are made up but
 self-consistent in the usual degree-day relation (expected heating = UA * 24 * HDD /
@@ -13,14 +13,21 @@ from typing import Any
 
 import numpy as np
 
+from screening.render.record import SheetRecord
+
 _USE_TYPES = ["office", "multifamily", "school", "retail", "warehouse", "lodging", "healthcare", "other"]
 _STREETS = ["Quillmere Road", "Sandpiper Row", "Old Kiln Lane", "Harrowgate Way", "Lanternfield Ave"]
 _CITIES = ["Fernhollow", "Brackwater", "Mistle Ridge", "Cold Ashby Flats"]
 _TIERS = [("act now", 1), ("look closer", 2), ("watch", 3), ("in line", 4), ("cannot tell", 5)]
 
 
-def make_sheet(i: int = 0, *, units: str = "IP", annual: bool = False, seed: int = 7) -> dict[str, Any]:
-    """A realistic sheet dict for building number ``i`` (deterministic for a given seed)."""
+def make_sheet(i: int = 0, *, units: str = "IP", annual: bool = False, seed: int = 7) -> SheetRecord:
+    """A realistic sheet record for building number ``i`` (deterministic for a given seed)."""
+    return SheetRecord.from_dict(sheet_dict(i, units=units, annual=annual, seed=seed))
+
+
+def sheet_dict(i: int = 0, *, units: str = "IP", annual: bool = False, seed: int = 7) -> dict[str, Any]:
+    """The fields of :func:`make_sheet`'s record as a dict, for builders that change some of them."""
     rng = np.random.default_rng(seed + 1000 * i)
     si = units == "SI"
     area = float(rng.choice([12_500, 48_000, 96_400, 210_000, 7_800]))
@@ -254,12 +261,12 @@ def since_measure(k: int = 9) -> dict[str, Any]:
     }
 
 
-def sheet_kinds() -> dict[str, dict[str, Any]]:
+def sheet_kinds() -> dict[str, SheetRecord]:
     """One sheet per kind the layout must hold: each tier, annual-only, heat pump, steam, SI (A4), a
     measure's box, and a name in each script of ``SCRIPT_NAMES``. Keys name the kind; SI ones end in ``_si``."""
     out: dict[str, dict[str, Any]] = {}
     for k, tier in enumerate(_REAL_TIERS):
-        s = make_sheet(10 + k)
+        s = sheet_dict(10 + k)
         s.update({"tier": tier, "tier_rank": k + 1, "building_id": f"K-TIER-{k + 1}"})
         if tier == "Fix data first":
             s.update(
@@ -282,10 +289,10 @@ def sheet_kinds() -> dict[str, dict[str, Any]]:
                 }
             )
         out[f"tier_{k + 1}"] = s
-    s = make_sheet(20, annual=True)
+    s = sheet_dict(20, annual=True)
     s.update({"building_id": "K-ANNUAL", "tier": "Watch", "tier_rank": 3})
     out["annual"] = s
-    s = make_sheet(21)
+    s = sheet_dict(21)
     s.update(
         {
             "building_id": "K-HEATPUMP",
@@ -305,7 +312,7 @@ def sheet_kinds() -> dict[str, dict[str, Any]]:
         }
     )
     out["heat_pump"] = s
-    s = make_sheet(22)
+    s = sheet_dict(22)
     s.update(
         {
             "building_id": "K-STEAM",
@@ -325,20 +332,20 @@ def sheet_kinds() -> dict[str, dict[str, Any]]:
         }
     )
     out["steam"] = s
-    s = make_sheet(23)
+    s = sheet_dict(23)
     s.update({"building_id": "K-MEASURE", "since_measure": since_measure()})
     out["measure"] = s
-    s = make_sheet(24, units="SI")
+    s = sheet_dict(24, units="SI")
     s.update({"building_id": "K-SI", "billed_unit": "m3", "tier": "Audit soon", "tier_rank": 2})
     out["plain_si"] = s
-    s = make_sheet(25, units="SI")
+    s = sheet_dict(25, units="SI")
     s.update({"building_id": "K-MEASURE-SI", "since_measure": since_measure(14) | {"energy_unit": "kWh"}})
     out["measure_si"] = s
     for k, (key, name) in enumerate(SCRIPT_NAMES.items()):
-        s = make_sheet(30 + k)
+        s = sheet_dict(30 + k)
         s.update({"building_id": f"K-NAME-{key}", "name": name})
         out[f"name_{key}"] = s
-    return out
+    return {k: SheetRecord.from_dict(v) for k, v in out.items()}
 
 
 LONG_NAME = (
@@ -352,11 +359,11 @@ HOSTILE_NAME = (
 )
 
 
-def extreme_sheets() -> list[dict[str, Any]]:
+def extreme_sheets() -> list[SheetRecord]:
     """Sheets that stress the layout: long text, many items, missing and extreme numbers."""
     out = []
     # 1. everything long and many
-    s = make_sheet(1)
+    s = sheet_dict(1)
     s["building_id"] = "../../etc/passwd\\CON" + "x" * 200
     s["name"] = LONG_NAME[:300]
     s["address"] = "Unit 4B, " + "Very Long Industrial Estate Service Road " * 4
@@ -387,7 +394,7 @@ def extreme_sheets() -> list[dict[str, Any]]:
     s["peers"] = list(np.linspace(0.5, 30, 400))
     out.append(s)
     # 2. every number missing, annual data with holes, no peers
-    s = make_sheet(2, annual=True)
+    s = sheet_dict(2, annual=True)
     for k in [
         "floor_area",
         "year_built",
@@ -422,7 +429,7 @@ def extreme_sheets() -> list[dict[str, Any]]:
     s["building_id"] = "X-EMPTY"
     out.append(s)
     # 3. extreme values: huge, zero, negative, inf/nan
-    s = make_sheet(3)
+    s = sheet_dict(3)
     s.update(
         {
             "actual_heating": 1e12,
@@ -448,7 +455,7 @@ def extreme_sheets() -> list[dict[str, Any]]:
     s["building_id"] = "X-EXTREME"
     out.append(s)
     # 4. hostile markup everywhere text goes
-    s = make_sheet(4)
+    s = sheet_dict(4)
     s["name"] = HOSTILE_NAME
     s["address"] = '<a href="http://198.51.100.7/">click</a> & <style>@import url(http://198.51.100.7/x.css)</style>'
     s["city"] = "url(file:///etc/passwd)"
@@ -457,7 +464,7 @@ def extreme_sheets() -> list[dict[str, Any]]:
     s["use_type"] = "<svg onload=alert(1)>"
     s["building_id"] = "<b>X-HOSTILE</b>"
     out.append(s)
-    return out
+    return [SheetRecord.from_dict(s) for s in out]
 
 
 def make_report(n_rows: int = 60, *, units: str = "IP", seed: int = 11) -> dict[str, Any]:

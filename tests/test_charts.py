@@ -1,4 +1,4 @@
-"""Tests of the SVG chart builders (screening.charts)."""
+"""Tests of the SVG chart builders (screening.render.charts)."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import xml.etree.ElementTree as ET
 import numpy as np
 import pytest
 
-from screening import charts
+from screening.render import charts
 
 SVG = "{http://www.w3.org/2000/svg}"
 

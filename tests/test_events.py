@@ -289,14 +289,14 @@ def test_a_measure_too_recent_to_judge_on_is_not_planned_on_months_that_mix(port
 
 
 def test_the_sheet_records_carry_the_since_the_measure_data(portfolio, tmp_path, monkeypatch):
-    from screening import report
+    from screening.render import pdf
 
-    seen: list[dict] = []
+    seen: list = []
 
-    def capture(sheets, out_dir, **kw):  # the records the sheets would render (rendering is report.py's test)
+    def capture(sheets, out_dir, **kw):  # the records the sheets would render (rendering is test_report.py's)
         seen.extend(sheets)
 
-    monkeypatch.setattr(report, "render_sheets", capture)
+    monkeypatch.setattr(pdf, "render_sheets", capture)
     p = _write(tmp_path, HEADER + "B01,2024-01-01,measure,,controls,new boiler controls,,9000\n")
     inputs = {
         "buildings": str(portfolio.buildings),
@@ -315,10 +315,10 @@ def test_the_sheet_records_carry_the_since_the_measure_data(portfolio, tmp_path,
         force=True,
         quiet=True,
     )
-    by_id = {r["building_id"]: r for r in seen}
+    by_id = {r.building_id: r for r in seen}
     assert set(by_id) >= {"B01", "B02"}
-    assert all(r["since_measure"] is None for b, r in by_id.items() if b != "B01")
-    box = by_id["B01"]["since_measure"]
+    assert all(r.since_measure is None for b, r in by_id.items() if b != "B01")
+    box = by_id["B01"].since_measure
     assert box["event_date"] == "2024-01-01" and box["description"] == "new boiler controls"
     assert box["energy_unit"] == "kBtu" and box["currency"] == "$"
     per = box["periods"]

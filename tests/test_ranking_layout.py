@@ -19,7 +19,7 @@ import pdfplumber
 import polars as pl
 import pytest
 
-from screening import report
+from screening.render import display, paging
 from screening.resources import sample_portfolio_dir
 
 from .conftest import cli
@@ -119,7 +119,7 @@ def test_every_character_inside_the_page_and_none_overlapping(runs, paper):
 def test_ranked_table_words_stay_in_their_column_and_nothing_is_cut(runs, paper):
     width = PAPER[paper][0] - 2 * SIDE
     edges = [SIDE]
-    for _key, _h, w, _r in report.RANK_COLUMNS:
+    for _key, _h, w, _r in paging.RANK_COLUMNS:
         edges.append(edges[-1] + width * w / 100)
     table_pages = 0
     text = ""
@@ -156,7 +156,7 @@ def test_first_page_shows_one_run_id_one_co2e_unit_and_the_excess_definition(run
         table = pdf.pages[1].extract_text().replace("\n", " ")
     assert f"Run {summary['run_id']}," in first and f"run {summary['run_id']} ·" in first
     kg = summary["totals"]["excess_co2e_kg"]
-    assert f"{report.fmt_num(kg / 1000)} t CO₂e" in first and " kg" not in first
+    assert f"{display.fmt_num(kg / 1000)} t CO₂e" in first and " kg" not in first
     assert "Excess above the expected band, per year" in first.replace("\n", " ")
     assert "metered heating minus the top of its expected band" in table
     # the histogram's note counts the last bar, not the portfolio
@@ -175,11 +175,11 @@ def test_the_savings_page_shows_the_measures_the_total_and_the_hit_rate(runs):
     assert last.startswith("Savings after measures") and "Savings after measures" not in other
     for r in saved.iter_rows(named=True):  # each measure: id, avoided energy and its 90 % interval as in savings.csv
         line = next(ln for ln in last.splitlines() if ln.startswith(r["building_id"]))
-        assert report.fmt_num(r["avoided_energy"]) in line
-        assert f"{report.fmt_num(r['avoided_low_90'])} to {report.fmt_num(r['avoided_high_90'])}" in line
-        assert report.fmt_money(r["avoided_cost"]) in line
+        assert display.fmt_num(r["avoided_energy"]) in line
+        assert f"{display.fmt_num(r['avoided_low_90'])} to {display.fmt_num(r['avoided_high_90'])}" in line
+        assert display.fmt_money(r["avoided_cost"]) in line
     tot = summary["savings"]
-    assert report.fmt_num(tot["avoided_energy"]) in last and f"± {report.fmt_num(tot['avoided_u90'])}" in last
+    assert display.fmt_num(tot["avoided_energy"]) in last and f"± {display.fmt_num(tot['avoided_u90'])}" in last
     hr = summary["audit_hit_rate"]
     assert f"{hr['confirmed']} of {hr['audited_from_plan']} confirmed a finding" in last
     for q, g in hr["by_quarter"].items():

@@ -1,4 +1,4 @@
-"""Tests of the rendering layer (screening.report): file names, the URL fetcher, the
+"""Tests of the rendering layer (screening.render): file names, the URL fetcher, the
 one-page building sheets and ranking.pdf. PDFs are checked by page count, page size,
 extracted text and metadata, never by bytes."""
 
@@ -7,12 +7,14 @@ from __future__ import annotations
 import logging
 import re
 import socket
+from dataclasses import replace
 
 import pdfplumber
 import pytest
 from pypdf import PdfReader
 
-from screening import report
+from screening.render import display, filenames, paging, pdf, pdfsplit, ranking_view as rv, sheet_view as sv
+from screening.render.record import SheetRecord
 from screening.resources import templates_dir
 from tests.sheet_fixtures import HOSTILE_NAME, extreme_sheets, make_report, make_sheet
 
@@ -26,8 +28,8 @@ A4 = (595.28, 841.89)
 
 
 def test_safe_id_is_kept():
-    assert report.safe_filename("B-1001") == "B-1001"
-    assert report.safe_filename("site_7.north") == "site_7.north"
+    assert filenames.safe_filename("B-1001") == "B-1001"
+    assert filenames.safe_filename("site_7.north") == "site_7.north"
 
 
 @pytest.mark.parametrize(
@@ -51,25 +53,25 @@ def test_safe_id_is_kept():
     ],
 )
 def test_unsafe_ids_get_a_safe_hashed_stem(bid):
-    stem = report.safe_filename(bid)
+    stem = filenames.safe_filename(bid)
     assert stem != bid
     assert all(c.isalnum() and c.isascii() or c in "._-" for c in stem)
     assert not stem.startswith((".", "-", "_")) and len(stem) <= 60 + 1 + 10
     assert stem.split(".")[0].upper() not in {"CON", "NUL", "COM1", "LPT9", "PRN", "AUX"}
-    assert report.safe_filename(bid) == stem  # deterministic
+    assert filenames.safe_filename(bid) == stem  # deterministic
 
 
 def test_assign_filenames_unique_without_case_and_order_free():
     ids = ["Alpha", "alpha", "ALPHA", "a/b", "a\\b", "a_b", "CON", "con", "B-1", "x" * 300, "x" * 301]
-    names = report.assign_filenames(ids)
+    names = filenames.assign_filenames(ids)
     folded = [n.casefold() for n in names.values()]
     assert len(set(folded)) == len(ids)
-    assert report.assign_filenames(list(reversed(ids))) == names
+    assert filenames.assign_filenames(list(reversed(ids))) == names
     assert names["B-1"] == "B-1"  # a safe id that clashes with nothing keeps its name
     with pytest.raises(ValueError, match=r"building id 'B-1' appears more than once"):
-        report.assign_filenames(["B-1", "B-1"])
+        filenames.assign_filenames(["B-1", "B-1"])
     with pytest.raises(TypeError, match=r"building_id must be a str, got int: 7"):
-        report.safe_filename(7)
+        filenames.safe_filename(7)
 
 
 # --- URL fetcher --------------------------------------------------------------------
@@ -87,7 +89,7 @@ def no_network(monkeypatch):
 
 
 def test_fetcher_refuses_remote_and_outside_files(no_network, tmp_path):
-    f = report.AssetFetcher()
+    f = pdf.AssetFetcher()
     outside = tmp_path / "secret.css"
     outside.write_text("body{}")
     for url in [
@@ -106,7 +108,7 @@ def test_fetcher_refuses_remote_and_outside_files(no_network, tmp_path):
 
 
 def test_fetcher_serves_template_assets_and_data(no_network):
-    f = report.AssetFetcher()
+    f = pdf.AssetFetcher()
     r = f.fetch((templates_dir() / "sheet.css").as_uri())
     assert b"@page" in r.read()
     assert f.fetch("data:text/plain;base64,aGk=").read() == b"hi"
@@ -118,7 +120,7 @@ def test_render_with_remote_references_never_fetches(no_network, tmp_path, caplo
     from weasyprint import HTML
     from weasyprint.urls import FatalURLFetchingError
 
-    f = report.AssetFetcher()
+    f = pdf.AssetFetcher()
     html = '<img src="http://198.51.100.7/t.png"><link rel="stylesheet" href="file:///etc/passwd">'
     with pytest.raises(FatalURLFetchingError):
         HTML(string=html, base_url=templates_dir().as_uri() + "/", url_fetcher=f).render()
@@ -144,25 +146,25 @@ def test_render_with_remote_references_never_fetches(no_network, tmp_path, caplo
     ],
 )
 def test_fmt_num(x, text):  # expected strings by hand from the documented rules
-    assert report.fmt_num(x) == text
+    assert display.fmt_num(x) == text
 
 
 def test_fmt_money_and_co2e():
-    assert report.fmt_money(12345.6) == "$12,346"
-    assert report.fmt_money(-50.0) == "-$50"
-    assert report.fmt_co2e(25400.0) == ("25.4", "t")  # by hand: 25,400 kg = 25.4 t
-    assert report.fmt_co2e(950.0) == ("0.95", "t")  # one unit in every rendered output
-    assert report.fmt_co2e(0.0) == ("0", "t") and report.fmt_co2e(3_809_200.0) == ("3,809", "t")
-    assert report.fmt_co2e(None) == ("n/a", "t")
+    assert display.fmt_money(12345.6) == "$12,346"
+    assert display.fmt_money(-50.0) == "-$50"
+    assert display.fmt_co2e(25400.0) == ("25.4", "t")  # by hand: 25,400 kg = 25.4 t
+    assert display.fmt_co2e(950.0) == ("0.95", "t")  # one unit in every rendered output
+    assert display.fmt_co2e(0.0) == ("0", "t") and display.fmt_co2e(3_809_200.0) == ("3,809", "t")
+    assert display.fmt_co2e(None) == ("n/a", "t")
 
 
 # --- sheets -------------------------------------------------------------------------
 
 
-def known_sheet() -> dict:
-    s = make_sheet(0)
-    s.update(
-        {
+def known_sheet() -> SheetRecord:
+    return replace(
+        make_sheet(0),
+        **{
             "building_id": "B-KNOWN",
             "name": "Kestrel Row Depot",
             "actual_heating": 1234567.8,
@@ -181,9 +183,8 @@ def known_sheet() -> dict:
             "actual_heating_billed": 12345.678,
             "expected_heating_billed": 8670.004,
             "heating_cost": 13580.2,
-        }
+        },
     )
-    return s
 
 
 @pytest.fixture(scope="module")
@@ -201,8 +202,8 @@ def rendered(tmp_path_factory):
     h = Grab(level=logging.WARNING)
     logging.getLogger("weasyprint").addHandler(h)
     try:
-        paths = report.render_sheets(sheets, out / "letter", workers=1, stats=stats)
-        a4 = report.render_sheets([make_sheet(6, units="SI")], out / "a4", paper="A4", workers=1)
+        paths = pdf.render_sheets(sheets, out / "letter", workers=1, stats=stats)
+        a4 = pdf.render_sheets([make_sheet(6, units="SI")], out / "a4", paper="A4", workers=1)
     finally:
         logging.getLogger("weasyprint").removeHandler(h)
     return {"sheets": sheets, "paths": paths, "a4": a4, "stats": stats, "out": out, "records": records}
@@ -222,16 +223,15 @@ def test_every_sheet_is_one_page_of_the_right_size(rendered):
 
 def test_overflowing_sheet_was_shrunk_not_split(tmp_path, monkeypatch):
     """A sheet that runs over one page in the batch is re-rendered alone, smaller."""
-    big = extreme_sheets()[0]
-    big["building_id"] = "X-BIG"
+    big = replace(extreme_sheets()[0], building_id="X-BIG")
     # let level 0 show every item so this sheet cannot fit; the shrink levels still cut
     monkeypatch.setattr(
-        report, "_LIMITS", [dict(report._LIMITS[0], flags=40, issues=40, steps=40, asm=40)] + report._LIMITS[1:]
+        sv, "LIMITS", [dict(paging.LIMITS[0], flags=40, issues=40, steps=40, asm=40)] + paging.LIMITS[1:]
     )
     st: dict = {}
-    paths = report.render_sheets([make_sheet(0), big, make_sheet(1)], tmp_path, workers=1, stats=st)
+    paths = pdf.render_sheets([make_sheet(0), big, make_sheet(1)], tmp_path, workers=1, stats=st)
     assert st["batched"] == 2 and st["refit"] == 1
-    assert all(1 <= lv <= report.MAX_LEVEL for lv in st["levels"])
+    assert all(1 <= lv <= paging.MAX_LEVEL for lv in st["levels"])
     assert all(len(PdfReader(p).pages) == 1 for p in paths)
     assert "X-BIG" in PdfReader(paths[1]).pages[0].extract_text()
 
@@ -266,9 +266,9 @@ def test_key_numbers_in_text(rendered):
 
 
 def test_hostile_markup_is_literal_text(rendered):
-    k = [i for i, s in enumerate(rendered["sheets"]) if s["name"] == HOSTILE_NAME][0]
-    with pdfplumber.open(rendered["paths"][k]) as pdf:
-        text = pdf.pages[0].extract_text()
+    k = [i for i, s in enumerate(rendered["sheets"]) if s.name == HOSTILE_NAME][0]
+    with pdfplumber.open(rendered["paths"][k]) as doc:
+        text = doc.pages[0].extract_text()
     flat = text.replace("\n", " ")
     assert '<script>alert("x")</script>' in flat
     assert '<img src="http://198.51.100.7/track.png">' in flat
@@ -277,7 +277,7 @@ def test_hostile_markup_is_literal_text(rendered):
 
 
 def test_no_fetch_leaves_the_templates(rendered):
-    f = report._state()["fetcher"]
+    f = pdf._state()["fetcher"]
     root = templates_dir().resolve().as_uri()
     assert f.refused == []
     assert f.requested and all(u.startswith(("data:", root)) for u in f.requested)
@@ -286,7 +286,7 @@ def test_no_fetch_leaves_the_templates(rendered):
 def test_split_files_stand_alone(rendered):
     for sheet, p in zip(rendered["sheets"], rendered["paths"]):
         r = PdfReader(p)
-        assert r.metadata.title == report.sheet_title(sheet)
+        assert r.metadata.title == sv.sheet_title(sheet)
         fonts = r.pages[0]["/Resources"]["/Font"]
         assert len(fonts) >= 2
         for f in fonts.values():
@@ -356,9 +356,9 @@ def test_no_weasyprint_warnings(rendered):
 def test_process_pool_path(tmp_path):
     sheets = [make_sheet(i) for i in range(4)]
     st: dict = {}
-    paths = report.render_sheets(sheets, tmp_path, workers=2, chunk_size=2, stats=st)
+    paths = pdf.render_sheets(sheets, tmp_path, workers=2, chunk_size=2, stats=st)
     assert st["chunks"] == 2 and st["batched"] == 4
-    assert [p.stem for p in paths] == [s["building_id"] for s in sheets]
+    assert [p.stem for p in paths] == [s.building_id for s in sheets]
     assert all(len(PdfReader(p).pages) == 1 for p in paths)
 
 
@@ -374,11 +374,11 @@ def test_a_script_without_a_main_guard_renders_with_workers(tmp_path, how):
     marker = tmp_path / "ran.txt"
     script = (
         "from pathlib import Path\n"
-        "from screening import report\n"
+        "from screening.render import pdf\n"
         "from tests.sheet_fixtures import make_sheet\n"
         f"with open({str(marker)!r}, 'a') as fh:\n"
         "    fh.write('x\\n')\n"
-        f"paths = report.render_sheets([make_sheet(i) for i in range(4)], Path({str(tmp_path / 'out')!r}),\n"
+        f"paths = pdf.render_sheets([make_sheet(i) for i in range(4)], Path({str(tmp_path / 'out')!r}),\n"
         "                              workers=2, chunk_size=2)\n"
         "print(len(paths))\n"
     )
@@ -405,18 +405,18 @@ def test_a_script_without_a_main_guard_renders_with_workers(tmp_path, how):
 
 def test_render_sheets_bad_arguments(tmp_path):
     with pytest.raises(ValueError, match=r"paper must be one of \['A4', 'Letter'\], got 'A3'"):
-        report.render_sheets([], tmp_path, paper="A3")
+        pdf.render_sheets([], tmp_path, paper="A3")
     with pytest.raises(ValueError, match=r"workers must be an int >= 1, got 0"):
-        report.render_sheets([], tmp_path, workers=0)
-    with pytest.raises(ValueError, match=r"sheets\[0\] must be a dict with a str 'building_id'"):
-        report.render_sheets([{"building_id": 3}], tmp_path)
+        pdf.render_sheets([], tmp_path, workers=0)
+    with pytest.raises(ValueError, match=r"sheets\[0\] must be a SheetRecord with a str building_id, got dict"):
+        pdf.render_sheets([{"building_id": 3}], tmp_path)
 
 
 def test_sheet_view_with_missing_fields_is_complete():
-    v = report.sheet_view(extreme_sheets()[1], 0)
+    v = sv.sheet_view(extreme_sheets()[1], 0)
     assert v["actual_heating"] == "n/a" and v["excess_cost"] == "n/a" and v["place"] == ""
     with pytest.raises(ValueError, match=r"level must be 0..3, got 9"):
-        report.sheet_view(make_sheet(0), 9)
+        sv.sheet_view(make_sheet(0), 9)
 
 
 # --- ranking ------------------------------------------------------------------------
@@ -425,7 +425,7 @@ def test_sheet_view_with_missing_fields_is_complete():
 def test_ranking_pdf(tmp_path):
     rep = make_report(90)
     rep["rows"][0]["name"] = HOSTILE_NAME
-    out = report.render_ranking(rep, tmp_path / "ranking.pdf")
+    out = pdf.render_ranking(rep, tmp_path / "ranking.pdf")
     r = PdfReader(out)
     n = len(r.pages)
     assert n >= 4  # summary, at least two table pages for 90 rows, data issues
@@ -435,8 +435,8 @@ def test_ranking_pdf(tmp_path):
     for s in [
         "Top ten",
         "By tier",
-        report.fmt_num(rep["totals"]["excess_energy"]),
-        report.fmt_money(rep["totals"]["excess_cost"]),
+        display.fmt_num(rep["totals"]["excess_energy"]),
+        display.fmt_money(rep["totals"]["excess_cost"]),
         "look closer",
     ]:
         assert s in first, s
@@ -466,12 +466,12 @@ def test_ranking_pdf(tmp_path):
 
 def test_ranking_a4_and_empty(tmp_path):
     rep = make_report(0)
-    out = report.render_ranking(rep, tmp_path / "r.pdf", paper="A4")
+    out = pdf.render_ranking(rep, tmp_path / "r.pdf", paper="A4")
     r = PdfReader(out)
     assert (float(r.pages[0].mediabox.width), float(r.pages[0].mediabox.height)) == pytest.approx(A4, abs=0.5)
     assert "No buildings ranked." in r.pages[0].extract_text()
     with pytest.raises(ValueError, match=r"report must be a dict, got list"):
-        report.render_ranking([], tmp_path / "x.pdf")
+        pdf.render_ranking([], tmp_path / "x.pdf")
 
 
 @pytest.mark.parametrize("paper", ["Letter", "A4"])
@@ -479,21 +479,21 @@ def test_ranked_table_pages_never_overflow(tmp_path, paper, monkeypatch):
     """Rows are wrapped and split into pages in Python (the text columns do not break by
     themselves): every page must hold its lines without spilling, so the page count is exactly
     summary + table pages + data issues, and every rank shows once, in order, under a header."""
-    monkeypatch.setattr(report, "MAX_ISSUE_LINES", 5)
+    monkeypatch.setattr(rv, "MAX_ISSUE_LINES", 5)
     rep = make_report(300)
     rep["rows"][1]["name"] = "W" * 200  # wrapped to MAX_CELL_LINES lines, the last ending in …
     rep["rows"][2]["flags"] = ["high_ratio"] * 12
     # a summary as full as the demo's: eight flag kinds, tiers with their meanings
     rep["counts"]["per_flag"] = {f"flag_kind_{k}": 10 * k for k in range(8)}
     rep["tiers"] = [dict(t, meaning="strong evidence of excess heating and a large excess") for t in rep["tiers"]]
-    out = report.render_ranking(rep, tmp_path / "r.pdf", paper=paper)
-    view = report.ranking_view(rep, paper)
+    out = pdf.render_ranking(rep, tmp_path / "r.pdf", paper=paper)
+    view = rv.ranking_view(rep, paper)
     pages = view["table_pages"]
-    budget = report._ROWS_PER_PAGE[paper] - view["header"][0]["text"].count("\n")
+    budget = paging.ROWS_PER_PAGE[paper] - view["header"][0]["text"].count("\n")
     for k, pg in enumerate(pages):
-        assert pg["lines"] <= budget - (report._FIRST_PAGE_LOSS if k == 0 else 0)
+        assert pg["lines"] <= budget - (paging.FIRST_PAGE_LOSS if k == 0 else 0)
         assert all(c["text"].count("\n") + 1 == pg["lines"] for c in pg["cols"])  # every column as tall
-        assert sum(float(h) for h in pg["stripes"]) == pytest.approx(pg["lines"] * report._ROW_PT)  # a stripe a row
+        assert sum(float(h) for h in pg["stripes"]) == pytest.approx(pg["lines"] * paging.ROW_PT)  # a stripe a row
     n_table = len(pages)
     texts = [p.extract_text() for p in PdfReader(out).pages]
     assert len(texts) == 1 + n_table + 1
@@ -504,25 +504,25 @@ def test_ranked_table_pages_never_overflow(tmp_path, paper, monkeypatch):
     # the long name: wrapped, at most MAX_CELL_LINES lines, the last cut with …
     name_col = pages[0]["cols"][2]["text"].split("\n")
     w_lines = [ln for ln in name_col if ln.startswith("W")]
-    assert len(w_lines) == report.MAX_CELL_LINES and w_lines[-1].endswith("…")
+    assert len(w_lines) == paging.MAX_CELL_LINES and w_lines[-1].endswith("…")
     n_issues = len(rep["data_issues"])
     assert f"and {n_issues - 5} more in data_issues.csv" in texts[-1]
-    assert sum(c[2] for c in report.RANK_COLUMNS) == pytest.approx(99.5)  # 100% wraps the last float on A4
+    assert sum(c[2] for c in paging.RANK_COLUMNS) == pytest.approx(99.5)  # 100% wraps the last float on A4
 
 
 def test_wrap_measures_the_font():
     """_wrap breaks after blanks and ; , / (a code too long for a line after a _), never wider than
     asked by the font's advance widths; a line of one character that does not fit still advances."""
     size = 7.2
-    lines = report._wrap("above_band; high_among_peers; envelope_defaulted", 70.0, size)
+    lines = paging.wrap("above_band; high_among_peers; envelope_defaulted", 70.0, size)
     assert lines == ["above_band;", "high_among_peers;", "envelope_defaulted"]
-    assert all(report._text_width(ln, size) <= 70.0 for ln in lines)
-    assert report._wrap("high_balance_point", 40.0, size) == ["high_", "balance_", "point"]
-    assert report._wrap("", 40.0, size) == [""]
+    assert all(paging.text_width(ln, size) <= 70.0 for ln in lines)
+    assert paging.wrap("high_balance_point", 40.0, size) == ["high_", "balance_", "point"]
+    assert paging.wrap("", 40.0, size) == [""]
     # widths by hand from the font: "B0010" is five glyphs of the condensed face
-    assert report._text_width("B0010", 10.0) == pytest.approx(29.0, abs=2.0)
-    assert report._text_width("漢", 10.0) == 10.0  # not in the font: 1 em
-    assert report._wrap("x" * 400, 20.0, size, max_lines=3)[-1].endswith("…")
+    assert paging.text_width("B0010", 10.0) == pytest.approx(29.0, abs=2.0)
+    assert paging.text_width("漢", 10.0) == 10.0  # not in the font: 1 em
+    assert paging.wrap("x" * 400, 20.0, size, max_lines=3)[-1].endswith("…")
 
 
 def test_split_file_does_not_carry_other_sheets_resources(tmp_path):
@@ -530,8 +530,8 @@ def test_split_file_does_not_carry_other_sheets_resources(tmp_path):
     must hold only its own page's resources, so its size does not grow with the chunk.
     (A background gradient, for one, is a shared /Pattern that the split would copy.)"""
     sheets = [make_sheet(i) for i in range(8)]
-    alone = report.render_sheets(sheets[:1], tmp_path / "one", workers=1)[0].stat().st_size
-    in_chunk = report.render_sheets(sheets, tmp_path / "eight", workers=1)[0].stat().st_size
+    alone = pdf.render_sheets(sheets[:1], tmp_path / "one", workers=1)[0].stat().st_size
+    in_chunk = pdf.render_sheets(sheets, tmp_path / "eight", workers=1)[0].stat().st_size
     # by hand: the other sheets' charts alone would add several times one sheet's size;
     # fonts subset over eight sheets' glyphs may add a little, hence 1.3
     assert in_chunk < 1.3 * alone, (alone, in_chunk)
@@ -542,24 +542,23 @@ def test_pages_are_still_written_when_the_fast_split_is_unavailable(tmp_path, mo
     def broken(self, document, pdf):
         raise AttributeError("'PDF' object has no attribute 'objects'")
 
-    monkeypatch.setattr(report._PageSplitter, "__call__", broken)
+    monkeypatch.setattr(pdfsplit.PageSplitter, "__call__", broken)
     sheets = [make_sheet(i) for i in range(3)]
-    with caplog.at_level(logging.WARNING, logger="screening.report"):
-        paths = report.render_sheets(sheets, tmp_path, workers=1)
+    with caplog.at_level(logging.WARNING, logger="screening.render.pdfsplit"):
+        paths = pdf.render_sheets(sheets, tmp_path, workers=1)
     assert "fast page split unavailable" in caplog.text
     for p, s in zip(paths, sheets):
         r = PdfReader(p)
-        assert len(r.pages) == 1 and s["building_id"] in r.metadata.title
-        assert s["building_id"] in r.pages[0].extract_text()
+        assert len(r.pages) == 1 and s.building_id in r.metadata.title
+        assert s.building_id in r.pages[0].extract_text()
 
 
 def test_a_bidi_override_in_a_name_does_not_reverse_the_title(tmp_path):
     """U+202E (right-to-left override) in a name would draw the rest of the title backwards;
     the sheet shows the name in its own order (issue 15)."""
-    s = make_sheet(0)
-    s.update({"building_id": "B-BIDI", "name": "Kestrel \u202eRow Depot\u202c"})
-    assert report.sheet_title(s).startswith("Kestrel Row Depot")
-    (path,) = report.render_sheets_one_by_one([s], tmp_path)
-    with pdfplumber.open(path) as pdf:
-        text = pdf.pages[0].extract_text()
+    s = replace(make_sheet(0), building_id="B-BIDI", name="Kestrel \u202eRow Depot\u202c")
+    assert sv.sheet_title(s).startswith("Kestrel Row Depot")
+    (path,) = pdf.render_sheets_one_by_one([s], tmp_path)
+    with pdfplumber.open(path) as doc:
+        text = doc.pages[0].extract_text()
     assert "Kestrel Row Depot" in text and "topeD" not in text

@@ -10,11 +10,12 @@ import os
 import re
 import shutil
 import unicodedata
+from dataclasses import replace
 
 import pdfplumber
 import pytest
 
-from screening import report
+from screening.render import display, pdf, sheet_view as sv
 from tests.sheet_fixtures import SCRIPT_NAMES, sheet_kinds
 
 MM = 72 / 25.4
@@ -30,13 +31,13 @@ def kinds(tmp_path_factory):
     letter = {k: s for k, s in sheets.items() if not k.endswith("_si")}
     si = {k: s for k, s in sheets.items() if k.endswith("_si")}
     stats: dict = {}
-    paths = report.render_sheets(list(letter.values()), out / "letter", workers=1, stats=stats)
-    paths += report.render_sheets(list(si.values()), out / "a4", paper="A4", workers=1)
+    paths = pdf.render_sheets(list(letter.values()), out / "letter", workers=1, stats=stats)
+    paths += pdf.render_sheets(list(si.values()), out / "a4", paper="A4", workers=1)
     pages = {}
     for key, path in zip([*letter, *si], paths):
-        with pdfplumber.open(path) as pdf:
-            assert len(pdf.pages) == 1, key
-            page = pdf.pages[0]
+        with pdfplumber.open(path) as doc:
+            assert len(doc.pages) == 1, key
+            page = doc.pages[0]
             pages[key] = {
                 "width": float(page.width),
                 "height": float(page.height),
@@ -118,7 +119,7 @@ def test_nothing_cut_and_flags_by_plain_label(kinds):
         for code in ("above_band", "envelope_defaulted", "likely_unit_error", "high_balance_point"):
             assert code not in text.replace("likely_unit_error —", ""), (key, code)
         # every assumption of the record is printed, its unit whole
-        for a in p["sheet"]["assumptions"]:
+        for a in p["sheet"].assumptions:
             assert a["name"] in text, (key, a["name"])
 
 
@@ -145,12 +146,13 @@ def test_since_the_measure_box_only_when_given(kinds):
     pages = kinds["pages"]
     for key, p in pages.items():
         has = "Since the measure" in p["text"]
-        assert has == (p["sheet"].get("since_measure") is not None), key
+        assert has == (p["sheet"].since_measure is not None), key
     text = pages["measure"]["text"].replace("\n", " ")
-    m = pages["measure"]["sheet"]["since_measure"]
+    m = pages["measure"]["sheet"].since_measure
+    assert m is not None
     assert "roof insulation and new boiler controls" in text and "2025-01-20" in text
     # in the bills' unit (the record's figures are kBtu; the fixture bills 100 kBtu per therm)
-    assert f"{report.fmt_num(m['avoided_energy'] / 100)} therm" in text
+    assert f"{display.fmt_num(m['avoided_energy'] / 100)} therm" in text
     assert "at 90 % confidence" in text
 
 
@@ -184,16 +186,18 @@ def test_stacked_marks_are_kept_to_two_and_do_not_reach_the_next_line(kinds):
 def test_an_audit_on_record_is_said_under_the_verdict_and_a_measure_is_not_repeated():
     from tests.sheet_fixtures import make_sheet
 
-    s = make_sheet(0)
-    s["plan_note"] = (
-        "audit of 2026-07-14 found nothing: kept off the plan until 2027-07-14 unless its expected "
-        "savings reach 2× those of the list it was audited from (15230)"
+    s = replace(
+        make_sheet(0),
+        plan_note=(
+            "audit of 2026-07-14 found nothing: kept off the plan until 2027-07-14 unless its expected "
+            "savings reach 2× those of the list it was audited from (15230)"
+        ),
     )
-    v = report.sheet_view(s)
+    v = sv.sheet_view(s)
     assert v["audit_note"].startswith(
         "On record: Audit of 2026-07-14 found nothing: kept off the plan until 2027-07-14"
     )
-    s["plan_note"] = "measure of 2025-11-17: judged on the 288 days from 2025-12-17 to 2026-09-30 only"
-    assert report.sheet_view(s)["audit_note"] == ""  # the verdict carries the measure's sentence
-    s.pop("plan_note")
-    assert report.sheet_view(s)["audit_note"] == ""
+    s = replace(s, plan_note="measure of 2025-11-17: judged on the 288 days from 2025-12-17 to 2026-09-30 only")
+    assert sv.sheet_view(s)["audit_note"] == ""  # the verdict carries the measure's sentence
+    s = replace(s, plan_note=None)
+    assert sv.sheet_view(s)["audit_note"] == ""

@@ -16,8 +16,9 @@ to build and adds a few dozen SVG elements for WeasyPrint to draw.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from html import escape
+from typing import Any
 
 import numpy as np
 
@@ -215,8 +216,8 @@ def scatter_chart(
     dd_per_day: Sequence[float | None],
     use_per_day: Sequence[float | None],
     *,
-    fit_line: dict | None,
-    expected_line: dict | None,
+    fit_line: Mapping[str, Any] | None,
+    expected_line: Mapping[str, Any] | None,
     x_label: str,
     y_label: str,
     width: float = 360,

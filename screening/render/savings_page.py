@@ -12,6 +12,8 @@ from typing import Any
 
 import polars as pl
 
+from .display import cut, fmt_co2e, fmt_money, fmt_num, fmt_pct
+
 #: at most this many measures on the page (one page); the rest are in savings.csv
 MAX_MEASURE_LINES = 25
 
@@ -53,8 +55,6 @@ def savings_report(table: pl.DataFrame | None, names: pl.DataFrame, summary: dic
 
 def savings_view(report: dict[str, Any]) -> dict[str, Any] | None:
     """Display strings of the savings page, or None (no ``savings`` in the report)."""
-    from .report import _cut, fmt_co2e, fmt_money, fmt_num, fmt_pct
-
     s = report.get("savings")
     if not s:
         return None
@@ -68,14 +68,14 @@ def savings_view(report: dict[str, Any]) -> dict[str, Any] | None:
         lo, hi = m.get("avoided_low_90"), m.get("avoided_high_90")
         lines.append(
             {
-                "building": _cut(m.get("building_id"), 30),
-                "name": _cut(m.get("name"), 40),
-                "date": _cut(m.get("event_date"), 10),
+                "building": cut(m.get("building_id"), 30),
+                "name": cut(m.get("name"), 40),
+                "date": cut(m.get("event_date"), 10),
                 "avoided": fmt_num(m.get("avoided_energy")) + ("" if ok else " *"),
                 "interval": "n/a" if lo is None or hi is None else f"{fmt_num(lo)} to {fmt_num(hi)}",
                 "cost": fmt_money(m.get("avoided_cost"), cur),
                 "co2e": fmt_co2e(m.get("avoided_co2e_kg"))[0],
-                "why": "" if ok else _cut(m.get("guideline14_note"), 120),
+                "why": "" if ok else cut(m.get("guideline14_note"), 120),
             }
         )
     co2, co2_unit = fmt_co2e(tot.get("avoided_co2e_kg"))
@@ -84,7 +84,7 @@ def savings_view(report: dict[str, Any]) -> dict[str, Any] | None:
     def groups(d: dict | None) -> list[dict]:
         return [
             {
-                "label": _cut(k, 30),
+                "label": cut(k, 30),
                 "audited": fmt_num(v.get("audited")),
                 "confirmed": fmt_num(v.get("confirmed")),
                 "rate": fmt_pct(v.get("rate"), 0),
