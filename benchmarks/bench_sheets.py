@@ -64,7 +64,7 @@ def naive_one_document_per_sheet(sheets: list[dict], out_dir: Path, *, paper: st
     paths = []
     for s in sheets:
         title = sv.sheet_title(s)
-        target = out_dir / f"{names[s['building_id']]}.pdf"
+        target = out_dir / f"{names[s.building_id]}.pdf"
         for level in range(paging.MAX_LEVEL + 1):
             font_config = FontConfiguration()
             css = [
@@ -81,7 +81,7 @@ def naive_one_document_per_sheet(sheets: list[dict], out_dir: Path, *, paper: st
                 doc.write_pdf(target)
                 break
         else:
-            raise pdf.RenderError(f"sheet {s['building_id']!r} does not fit one page")
+            raise pdf.RenderError(f"sheet {s.building_id!r} does not fit one page")
         paths.append(target)
     return paths
 

@@ -366,21 +366,21 @@ def test_sheets_and_ranking_carry_the_bills_unit_and_peers_leave_out_a_blocked_b
     res = sc.results
     disp = outputs.Display("IP")
     recs = {
-        s["building_id"]: s
+        s.building_id: s
         for s in outputs.sheet_records(
             res, sc.envelope, sc.periods, disp, run_id="x", run_date="2026-10-15", currency="$"
         )
     }
     assert (
-        recs["T4"]["blocking"]
+        recs["T4"].blocking
         and "likely_unit_error" in res.filter(pl.col("building_id") == "T4")["data_issue_codes"][0]
     )
     for k in ids:
         row = res.filter(pl.col("building_id") == k).row(0, named=True)
-        assert recs[k]["billed_unit"] == "therm"
-        assert recs[k]["actual_heating_billed"] == pytest.approx(row["actual_heating_kbtu"] / 100.0)
-        assert max(recs[k]["peers"]) < 10 * min(recs[k]["peers"])  # T4's 100x intensity is not among them
-        assert len(recs[k]["peers"]) == 3
+        assert recs[k].billed_unit == "therm"
+        assert recs[k].actual_heating_billed == pytest.approx(row["actual_heating_kbtu"] / 100.0)
+        assert max(recs[k].peers) < 10 * min(recs[k].peers)  # T4's 100x intensity is not among them
+        assert len(recs[k].peers) == 3
     rk = outputs.ranking_table(res, disp)
     t1 = rk.filter(pl.col("building_id") == "T1").row(0, named=True)
     assert t1["billed_unit"] == "therm"
