@@ -372,8 +372,7 @@ def test_sheets_and_ranking_carry_the_bills_unit_and_peers_leave_out_a_blocked_b
         )
     }
     assert (
-        recs["T4"].blocking
-        and "likely_unit_error" in res.filter(pl.col("building_id") == "T4")["data_issue_codes"][0]
+        recs["T4"].blocking and "likely_unit_error" in res.filter(pl.col("building_id") == "T4")["data_issue_codes"][0]
     )
     for k in ids:
         row = res.filter(pl.col("building_id") == k).row(0, named=True)
