@@ -4,9 +4,13 @@ extracted text and metadata, never by bytes."""
 
 from __future__ import annotations
 
+import ast
+import dataclasses
+import inspect
 import logging
 import re
 import socket
+import textwrap
 from dataclasses import replace
 
 import pdfplumber
@@ -562,3 +566,30 @@ def test_a_bidi_override_in_a_name_does_not_reverse_the_title(tmp_path):
     with pdfplumber.open(path) as doc:
         text = doc.pages[0].extract_text()
     assert "Kestrel Row Depot" in text and "topeD" not in text
+
+
+# --- the sheet record -----------------------------------------------------------------
+
+
+def test_the_sheet_record_is_frozen_and_refuses_unknown_fields():
+    s = make_sheet(0)
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        s.name = "changed"  # the point: a frozen record refuses it
+    assert replace(s, name="changed").name == "changed" and s.name != "changed"
+    with pytest.raises(TypeError, match="colour"):
+        SheetRecord.from_dict({"building_id": "B-1", "colour": "red"})
+    assert SheetRecord.from_dict(s.to_dict()) == s
+    bare = SheetRecord(building_id="B-2")  # every other field may be missing
+    assert bare.flags == [] and bare.fit is None and sv.sheet_view(bare)["actual_heating"] == "n/a"
+
+
+def test_outputs_fills_every_field_of_the_sheet_record():
+    """outputs.sheet_records names every field in its one SheetRecord(...) call, so a field added to the
+    record without a value from the results fails here (read from the source: no screening needed)."""
+    from screening import outputs
+
+    tree = ast.parse(textwrap.dedent(inspect.getsource(outputs.sheet_records)))
+    calls = [n for n in ast.walk(tree) if isinstance(n, ast.Call) and getattr(n.func, "id", "") == "SheetRecord"]
+    assert len(calls) == 1
+    named = {k.arg for k in calls[0].keywords}
+    assert named == {f.name for f in dataclasses.fields(SheetRecord)}
