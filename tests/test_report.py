@@ -593,3 +593,26 @@ def test_outputs_fills_every_field_of_the_sheet_record():
     assert len(calls) == 1
     named = {k.arg for k in calls[0].keywords}
     assert named == {f.name for f in dataclasses.fields(SheetRecord)}
+
+
+def test_render_rooms_import_only_the_rooms_listed_above_them():
+    """screening/render/__init__ lists its rooms lowest first: each imports only rooms above it, and from the
+    rest of the package only what sits below the output writers (never outputs, pipeline or runner)."""
+    from pathlib import Path
+
+    import screening.render as pkg
+
+    order = re.findall(r"^- ``(\w+)``", pkg.__doc__ or "", flags=re.M)
+    folder = Path(pkg.__file__).parent
+    assert sorted(order) == sorted(p.stem for p in folder.glob("*.py") if p.stem != "__init__")
+    allowed_outside = {"errors", "resources", "schema", "interrupts", "lifeline", "__version__"}
+    for k, mod in enumerate(order):
+        tree = ast.parse((folder / f"{mod}.py").read_text(encoding="utf-8"))
+        for node in ast.walk(tree):
+            if not isinstance(node, ast.ImportFrom) or not node.level:
+                continue
+            names = [node.module] if node.module else [a.name for a in node.names]
+            if node.level == 1:
+                assert all(n in order[:k] for n in names), (mod, names)
+            else:
+                assert all((n or "").split(".")[0] in allowed_outside for n in names), (mod, names)

@@ -6,6 +6,7 @@ Rooms, lowest first (a module imports only those above it in this list):
 - ``filenames``: one safe, distinct file name per building id (pure);
 - ``record``: :class:`~screening.render.record.SheetRecord`, the typed sheet record that
   ``outputs.sheet_records`` builds and the sheet view reads (pure);
+- ``charts``: the small SVG charts of the sheets and the ranking (pure);
 - ``paging``: fitting on pages: paper sizes, the sheet's shrink levels, text measured with the bundled
   font, the ranked table wrapped to its columns and cut into pages, which page each sheet of a chunk
   starts on (pure; reads the bundled font's metrics once);
