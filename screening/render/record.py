@@ -126,7 +126,10 @@ class SinceMeasure(TypedDict, total=False):
 
 @dataclass(frozen=True, kw_only=True)
 class SheetRecord:
-    """One building's sheet, as ``outputs.sheet_records`` builds it and ``sheet_view.sheet_view`` reads it."""
+    """One building's sheet, as ``outputs.sheet_records`` builds it and ``sheet_view.sheet_view`` reads it.
+
+    The fields come in groups, each opened by a string saying what the group holds; units in comments.
+    """
 
     """Who and what the building is (from the buildings file; ``floor_area`` in ``area_unit``)."""
     building_id: str
