@@ -204,8 +204,10 @@ def year_ago(store: Store, window) -> pl.DataFrame | None:
 
 
 def results_for_store(run_id: str, res: pl.DataFrame) -> pl.DataFrame:
-    rec_cols = sorted(c for c in res.columns if res.schema[c] != pl.Object)
-    records = res.select(pl.struct(rec_cols).struct.json_encode())  # one JSON object per building, keys sorted
+    """The rows of the ``results`` table: the columns the store queries, and ``record``, every column of
+    the building as one JSON object (keys sorted), written by :func:`json_records` in the bytes a
+    ``json.dumps(row, default=str, sort_keys=True)`` per building wrote before (issue 20)."""
+    rec_cols = [c for c in res.columns if res.schema[c] != pl.Object]
     return res.select(
         pl.lit(run_id).alias("run_id"),
         "building_id",
@@ -220,7 +222,137 @@ def results_for_store(run_id: str, res: pl.DataFrame) -> pl.DataFrame:
         "excess_cost",
         pl.col("flag_codes").list.join(";").alias("flags"),
         pl.col("data_issue_codes").list.join(";").alias("data_issues"),
-    ).with_columns(records.to_series().alias("record"))
+    ).with_columns(json_records(res.select(rec_cols)).alias("record"))
+
+
+#: What ``json.dumps`` (``ensure_ascii``) writes as an escape: a backslash, a quote, anything outside ' '..'~'.
+_ESCAPED = r'[\\"]|[^ -~]'
+#: A tiny float as polars writes it (positional ``-0.0000123`` or ``1.23e-7``), taken apart.
+_TINY_POSITIONAL = r"^(-?)0\.(0*)([1-9])(\d*)$"
+_TINY_SCIENTIFIC = r"^(-?\d(?:\.\d+)?)e-(\d+)$"
+
+
+def json_records(frame: pl.DataFrame) -> pl.Series:
+    """One JSON object per row, byte for byte what ``json.dumps(row, default=str, sort_keys=True)`` writes
+    for the row's dict (``frame.to_dicts()``), built column by column with polars expressions.
+
+    Per type: strings escaped as ``ensure_ascii`` does (each distinct character that needs it replaced in one
+    pass, ``str.replace_many``); floats as Python's ``repr`` (polars' text has the same shortest round-trip
+    digits, but writes values below 1e-4 as ``0.000015`` or ``1.5e-7``: those few are rewritten to ``1.5e-05``;
+    ``NaN``, ``Infinity``, ``-Infinity``); integers; ``true``/``false``; dates ``"YYYY-MM-DD"``; lists ``[a, b]``
+    of those; null ``null``. A column of any other type, and any value whose text these rules cannot vouch for,
+    goes through ``json.dumps`` itself.
+    """
+    cols = sorted(frame.columns)
+    pats = _escape_table(frame)
+    encs = {c: _json_text(pl.col(c), frame.schema[c], pats) for c in cols}
+    fast = [enc[0].fill_null("null").alias(c) for c, enc in encs.items() if enc is not None]
+    doubts = [enc[1].fill_null(False).alias(f"doubt:{c}") for c, enc in encs.items() if enc and enc[1] is not None]
+    out = frame.select(fast + doubts)  # every column at once
+    texts: dict[str, pl.Series] = {}
+    for c in cols:
+        if encs[c] is None:  # a type without a rule: Python's own encoder for the column
+            texts[c] = pl.Series(c, [json.dumps(v, default=str, sort_keys=True) for v in frame[c].to_list()])
+            continue
+        t = out[c]
+        if f"doubt:{c}" in out.columns:
+            idx = out[f"doubt:{c}"].arg_true()
+            if idx.len():  # the few values the fast rule cannot write: their own rule, else json.dumps
+                vals = frame[c].gather(idx)
+                fixed = (
+                    _tiny_float_text(vals) if vals.dtype.is_float() else pl.Series([None] * idx.len(), dtype=pl.String)
+                )
+                py = [json.dumps(v, default=str, sort_keys=True) for v in vals.filter(fixed.is_null()).to_list()]
+                t = t.scatter(idx, _fill(fixed, py) if py else fixed)
+        texts[c] = t
+    parts: list[pl.Expr | str] = []
+    for i, c in enumerate(cols):
+        parts += [pl.lit(("{" if i == 0 else ", ") + json.dumps(c) + ": "), pl.col(c)]
+    parts.append(pl.lit("}"))
+    return pl.DataFrame(texts).select(pl.concat_str(parts).alias("record")).to_series()
+
+
+def _fill(fixed: pl.Series, values: list[str]) -> pl.Series:
+    """``fixed`` with its nulls replaced, in order, by ``values``."""
+    it = iter(values)
+    return pl.Series([v if v is not None else next(it) for v in fixed.to_list()], dtype=pl.String)
+
+
+def _tiny_float_text(x: pl.Series) -> pl.Series:
+    """Python's ``repr`` of floats below 1e-4 in magnitude (``1.5e-05``), from polars' text of them
+    (``0.000015`` or ``1.5e-5``); null where that text has neither form."""
+    text = x.cast(pl.Float64).cast(pl.String)
+    pos = [text.str.extract(_TINY_POSITIONAL, i) for i in (1, 2, 3, 4)]
+    df = pl.DataFrame({"sign": pos[0], "zeros": pos[1], "digit": pos[2], "rest": pos[3]})
+    positional = df.select(
+        pl.concat_str(
+            [
+                "sign",
+                "digit",
+                pl.when(pl.col("rest") != "").then(pl.lit(".") + pl.col("rest")).otherwise(pl.lit("")),
+                pl.lit("e-"),
+                (pl.col("zeros").str.len_chars() + 1).cast(pl.String).str.zfill(2),
+            ]
+        )
+    ).to_series()
+    scientific = text.str.extract(_TINY_SCIENTIFIC, 1) + "e-" + text.str.extract(_TINY_SCIENTIFIC, 2).str.zfill(2)
+    return positional.fill_null(scientific)
+
+
+def _escape_table(frame: pl.DataFrame) -> tuple[list[str], list[str]]:
+    """Every distinct character of the frame's strings that JSON escapes, and its escape."""
+    chars: set[str] = set()
+    for c, dt in frame.schema.items():
+        s = frame[c]
+        if dt == pl.List(pl.String):
+            s = s.explode()
+        elif dt != pl.String:
+            continue
+        chars.update(x for x in s.str.extract_all(_ESCAPED).explode().drop_nulls().unique().to_list())
+    found = sorted(chars)
+    return found, [json.dumps(ch)[1:-1] for ch in found]
+
+
+def _json_text(e: pl.Expr, dtype, pats: tuple[list[str], list[str]]) -> tuple[pl.Expr, pl.Expr | None] | None:
+    """The JSON text of a column's values (null where null) and a mask of values to leave to
+    ``json.dumps`` (None: none); None for a type without a rule."""
+    if dtype == pl.String or isinstance(dtype, (pl.Categorical, pl.Enum)):
+        s = e.cast(pl.String)
+        if pats[0]:
+            s = s.str.replace_many(pats[0], pats[1])
+        return pl.concat_str([pl.lit('"'), s, pl.lit('"')]), None
+    if dtype == pl.Boolean:
+        return pl.when(e).then(pl.lit("true")).when(e.not_()).then(pl.lit("false")), None
+    if dtype.is_integer():
+        return e.cast(pl.String), None
+    if dtype.is_float():
+        x = e.cast(pl.Float64)
+        out = (
+            pl.when(x.is_nan())
+            .then(pl.lit("NaN"))
+            .when(x == float("inf"))
+            .then(pl.lit("Infinity"))
+            .when(x == float("-inf"))
+            .then(pl.lit("-Infinity"))
+            .otherwise(x.cast(pl.String))
+        )
+        return out, (x.abs() < 1e-4) & (x != 0)  # polars writes these unlike repr: _tiny_float_text
+    if dtype == pl.Date:
+        return pl.concat_str([pl.lit('"'), e.dt.strftime("%Y-%m-%d"), pl.lit('"')]), (e.dt.year() < 1) | (
+            e.dt.year() > 9999
+        )
+    if isinstance(dtype, pl.List):
+        inner = _json_text(pl.element(), dtype.inner, pats)
+        if inner is None:
+            return None
+        text, doubt = inner
+        body = e.list.eval(text.fill_null("null")).list.join(", ")
+        return pl.concat_str([pl.lit("["), body, pl.lit("]")]), (
+            e.list.eval(doubt).list.any() if doubt is not None else None
+        )
+    if dtype == pl.Null:
+        return pl.lit(None, dtype=pl.String), None
+    return None
 
 
 def run_summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id) -> dict:
