@@ -7,9 +7,7 @@ the lock ``lock``, the stage bar and test hooks ``progress``.
 from __future__ import annotations
 
 import datetime as _dt
-import json
 import logging
-import shutil
 import time
 import traceback
 import uuid
@@ -270,39 +268,6 @@ def _interrupted(
     log.debug("run %s: %s", run_id, exc)
     log.removeHandler(handler)
     handler.close()
-    try:
-        store = store or open_store(db_path)
-        if in_place:
-            store.execute("set_run_status", {"run_id": run_id, "status": "ok", "message": ""})
-        elif publishing:
-            store.execute("set_run_status", {"run_id": run_id, "status": "interrupted", "message": str(exc)[:500]})
-        else:
-            store.execute(
-                "finish_run",
-                {
-                    "run_id": run_id,
-                    "status": "interrupted",
-                    "input_hashes": "{}",
-                    "versions": "{}",
-                    "timings": json.dumps(timings),
-                    "counts": "{}",
-                    "message": str(exc)[:500],
-                    "out_dir": "",
-                },
-            )
-    except Exception:  # noqa: BLE001 - the database may be what was interrupted; the next run settles it
-        pass
-    finally:
-        if store is not None:
-            store.close()
-    logf = tmp / "run.log"
-    try:
-        if logf.exists():
-            stamp = _dt.datetime.now().strftime("%Y%m%dT%H%M%S")
-            shutil.move(str(logf), target.parent / f"{target.name}.interrupted-{stamp}.log")
-    except OSError:
-        pass
-    shutil.rmtree(tmp, ignore_errors=True)
-    if not target.exists() and not target.is_symlink() and any(target.parent.glob(f".{target.name}.old-*")):
-        publish.clean_stale_temp(target, tmp)
+    record.record_interrupted(store, db_path, run_id, str(exc), timings, in_place=in_place, publishing=publishing)
+    publish.discard_interrupted(tmp, target)
     return exc

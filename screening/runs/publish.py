@@ -133,3 +133,18 @@ def keep_failure_log(tmp: Path, target: Path, *, quiet: bool = False) -> None:
     except OSError:
         pass
     shutil.rmtree(tmp, ignore_errors=True)
+
+
+def discard_interrupted(tmp: Path, target: Path) -> None:
+    """After a stop signal: the temporary folder removed, its log kept beside the target as
+    ``<label>.interrupted-<time>.log``; earlier outputs set aside by :func:`publish` put back."""
+    logf = tmp / "run.log"
+    try:
+        if logf.exists():
+            stamp = _dt.datetime.now().strftime("%Y%m%dT%H%M%S")
+            shutil.move(str(logf), target.parent / f"{target.name}.interrupted-{stamp}.log")
+    except OSError:
+        pass
+    shutil.rmtree(tmp, ignore_errors=True)
+    if not target.exists() and not target.is_symlink() and any(target.parent.glob(f".{target.name}.old-*")):
+        clean_stale_temp(target, tmp)

@@ -141,6 +141,38 @@ def mark_ok(store: Store, run_id: str) -> None:
     store.execute("set_run_status", {"run_id": run_id, "status": "ok", "message": ""})
 
 
+def record_interrupted(
+    store: Store | None, db_path, run_id: str, message: str, timings: dict, *, in_place: bool, publishing: bool
+) -> None:
+    """Record a run stopped by a signal (reopening the database if the run had closed it): ``ok`` when its
+    folder was already in place (its record was complete before the rename), else ``interrupted``."""
+    try:
+        store = store or lock.open_store(db_path)
+        if in_place:
+            store.execute("set_run_status", {"run_id": run_id, "status": "ok", "message": ""})
+        elif publishing:
+            store.execute("set_run_status", {"run_id": run_id, "status": "interrupted", "message": message[:500]})
+        else:
+            store.execute(
+                "finish_run",
+                {
+                    "run_id": run_id,
+                    "status": "interrupted",
+                    "input_hashes": "{}",
+                    "versions": "{}",
+                    "timings": json.dumps(timings),
+                    "counts": "{}",
+                    "message": message[:500],
+                    "out_dir": "",
+                },
+            )
+    except Exception:  # noqa: BLE001 - the database may be what was interrupted; the next run settles it
+        pass
+    finally:
+        if store is not None:
+            store.close()
+
+
 def record_failure(
     store: Store | None, db_path, run_id: str, exc: BaseException, timings: dict, *, publishing: bool
 ) -> None:
