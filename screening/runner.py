@@ -7,10 +7,21 @@ in ``screening/runs/__init__.py`` and DEVELOPERS.md's architecture map.
 
 from __future__ import annotations
 
-from .runs.demo import demo
+from .runs.demo import OUTPUT_NAMES, demo
 from .runs.init import init_config
 from .runs.phases import RunResult, run
 from .runs.record import diff_results, history, status
 from .runs.validate import Validation, validate
 
-__all__ = ["RunResult", "Validation", "demo", "diff_results", "history", "init_config", "run", "status", "validate"]
+__all__ = [
+    "OUTPUT_NAMES",
+    "RunResult",
+    "Validation",
+    "demo",
+    "diff_results",
+    "history",
+    "init_config",
+    "run",
+    "status",
+    "validate",
+]
