@@ -106,7 +106,8 @@ def timed_run(work: Path, env: dict, chunk: int | None = None, out: str = "out")
 
 def staged(work: Path) -> None:
     """In-process: wrap the main steps, sample RSS every 10 ms, print per-step peaks (two runs)."""
-    from screening import cli, degree_days, envelope, ingest, metered, outputs, pipeline, runner, screen, store, units
+    from screening import cli, degree_days, envelope, ingest, metered, outputs, pipeline, screen, store, units
+    from screening.runs import record
 
     current = ["start"]
     peaks: dict[str, list[int]] = {}
@@ -158,8 +159,8 @@ def staged(work: Path) -> None:
         (screen, "screen"),
         (outputs, "ranking_table"),
         (outputs, "write_csv"),
-        (runner, "_results_for_store"),
-        (runner, "_summary"),
+        (record, "results_for_store"),
+        (record, "run_summary"),
         (ingest, "read_readings"),
     ]:
         wrap(mod, name, f"{getattr(mod, '__name__', str(mod)).split('.')[-1]}.{name}")

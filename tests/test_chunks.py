@@ -83,17 +83,18 @@ def test_run_pulling_chunks_from_the_store_writes_the_one_pass_tables(tmp_path, 
     import json
 
     from screening import runner
+    from screening.runs import inputs
 
     monkeypatch.setattr(pipeline, "FIT_BLOCK", 25)  # blocks of 25 buildings: the demo's 200 in chunks of 50
     calls = []
-    pulled = runner.StoreReadings.__call__
+    pulled = inputs.StoreReadings.__call__
 
     def spy(self, ids):
         out = pulled(self, ids)
         calls.append((ids.len(), out.height))
         return out
 
-    monkeypatch.setattr(runner.StoreReadings, "__call__", spy)
+    monkeypatch.setattr(inputs.StoreReadings, "__call__", spy)
     src = sample_portfolio_dir()
     # measures and audits in different chunks: savings after a measure are computed per chunk
     ev = tmp_path / "events.csv"

@@ -24,7 +24,7 @@ import pytest
 
 
 from screening import cli as climod
-from screening import pipeline, runner
+from screening import pipeline
 
 from .conftest import cli, tree_digest, write_portfolio
 
@@ -113,9 +113,7 @@ def test_output_folder_not_writable_access_check(site, monkeypatch):
     """``os.access`` says the folder is not writable (a read-only mount): exit 1 before any work."""
     real = os.access
     parent = str(site.out.parent)
-    monkeypatch.setattr(
-        runner.os, "access", lambda p, mode, *a, **k: False if str(p) == parent else real(p, mode, *a, **k)
-    )
+    monkeypatch.setattr(os, "access", lambda p, mode, *a, **k: False if str(p) == parent else real(p, mode, *a, **k))
     res = site.run()
     assert res.exit_code == 1, res.stderr
     _one_error_line(res, f"{parent}: output folder is not writable; earlier outputs are untouched")
@@ -128,7 +126,7 @@ def test_output_folder_refuses_the_temporary_folder(site, monkeypatch):
     def denied(*a, **k):
         raise PermissionError(errno.EACCES, os.strerror(errno.EACCES))
 
-    monkeypatch.setattr(runner.tempfile, "mkdtemp", denied)
+    monkeypatch.setattr(tempfile, "mkdtemp", denied)
     res = site.run()
     assert res.exit_code == 1, res.stderr
     _one_error_line(res, "cannot write there (Permission denied); earlier outputs untouched")
@@ -145,7 +143,7 @@ def _fail_renames(monkeypatch, site, err: int, *, only_second: bool = False):
             raise OSError(err, os.strerror(err))
         return real(src, dst, *a, **k)
 
-    monkeypatch.setattr(runner.os, "replace", fake)
+    monkeypatch.setattr(os, "replace", fake)
 
 
 def test_read_only_file_system_when_publishing(site, monkeypatch):

@@ -273,7 +273,7 @@ def _dynamic(arg: ast.AST) -> bool:
 def test_no_module_builds_sql_text():
     names = set(storemod.statements())
     con_calls, store_calls = [], []
-    for path in sorted(SCREENING.rglob("*.py")):
+    for path in sorted(SCREENING.rglob("*.py")):  # subpackages too (screening/runs/)
         tree = ast.parse(path.read_text(encoding="utf-8"))
         for call in _calls(tree):
             attr = call.func.attr

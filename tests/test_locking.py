@@ -48,12 +48,12 @@ def _py(code: str, *args: str, timeout: float = 120) -> subprocess.CompletedProc
 def test_runner_imports_without_fcntl_or_msvcrt():
     r = _py(
         "import sys; sys.modules['fcntl'] = None; sys.modules['msvcrt'] = None\n"
-        "import screening.runner, screening.cli, screening.locking as L\n"
+        "import screening.runner, screening.cli, screening.locking as L, screening.runs.lock as RL\n"
         "import tempfile, pathlib\n"
         "p = pathlib.Path(tempfile.mkdtemp()) / 'x.lock'; p.write_text('')\n"
-        "print(L.BACKEND, screening.runner._lock_held(str(p)))\n"
-        "try:\n    screening.runner._Lock(str(p)).__enter__()\n"
-        "except screening.runner.StoreError as e:\n    print('refused:', e)\n"
+        "print(L.BACKEND, RL.lock_held(str(p)))\n"
+        "try:\n    RL.Lock(str(p)).__enter__()\n"
+        "except screening.errors.StoreError as e:\n    print('refused:', e)\n"
     )
     assert r.returncode == 0, r.stderr
     backend, held = r.stdout.splitlines()[0].split()
@@ -65,9 +65,9 @@ def test_windows_path_locks_against_a_second_process(tmp_path):
     lock = tmp_path / "screening.duckdb.lock"
     ready = tmp_path / "ready"
     holder = _AS_WINDOWS + textwrap.dedent(f"""
-        import time, pathlib, screening.runner as r, screening.locking as L
+        import time, pathlib, screening.runs.lock as r, screening.locking as L
         assert L.BACKEND == "msvcrt", L.BACKEND
-        with r._Lock({str(lock)!r}):
+        with r.Lock({str(lock)!r}):
             pathlib.Path({str(ready)!r}).write_text("x")
             time.sleep(60)
     """)
@@ -84,11 +84,11 @@ def test_windows_path_locks_against_a_second_process(tmp_path):
             time.sleep(0.1)
         assert ready.exists(), p.stderr.read() if p.poll() is not None else "holder not ready"
         second = _AS_WINDOWS + textwrap.dedent(f"""
-            import screening.runner as r
+            import screening.runs.lock as r
             from screening.errors import LockedError
-            print(r._lock_held({str(lock)!r}))
+            print(r.lock_held({str(lock)!r}))
             try:
-                r._Lock({str(lock)!r}).__enter__()
+                r.Lock({str(lock)!r}).__enter__()
             except LockedError as e:
                 print("locked:", e)
         """)
@@ -101,9 +101,9 @@ def test_windows_path_locks_against_a_second_process(tmp_path):
         p.wait()
     # released with its process: a new holder takes it
     again = _AS_WINDOWS + textwrap.dedent(f"""
-        import screening.runner as r
-        print(r._lock_held({str(lock)!r}))
-        with r._Lock({str(lock)!r}):
+        import screening.runs.lock as r
+        print(r.lock_held({str(lock)!r}))
+        with r.Lock({str(lock)!r}):
             print("taken")
     """)
     r = _py(again)

@@ -225,6 +225,13 @@ def test_two_runs_give_identical_outputs_and_compare_with_the_earlier_quarter(si
     # --force rerun of that quarter on the same inputs leaves this summary unchanged
     q2_key = site.query(f"SELECT run_key FROM runs WHERE label = '{Q2}'")[0][0]
     assert s2["previous_run"] is None and s3["previous_run"] == q2_key == s2["run_id"]
+    # the stored record of each building is the text json.dumps(row, sort_keys=True) writes (issue 20:
+    # built by polars expressions, the bytes of the per-building json.dumps it replaced)
+    stored = site.query("SELECT rank, record FROM results")
+    assert len(stored) == 3 * N_BUILDINGS
+    for rank, rec in stored:
+        assert json.dumps(json.loads(rec), sort_keys=True) == rec
+        assert json.loads(rec)["rank"] == rank
 
 
 # ---------------------------------------------------------------------------- a run killed mid-way
@@ -456,3 +463,52 @@ def test_next_run_tidies_what_dead_runs_left_in_the_output_root(simulated, tmp_p
     logs = [n for n in names if n.startswith(f"{Q2}.interrupted-")]
     assert len(logs) == 1 and "run 2026-Q2-x" in (site.root / logs[0]).read_text()
     assert os.readlink(site.root / "latest") == Q3  # the newest quarter, not the one run last
+
+
+# ---------------------------------------------------------------------------- stored records (issue 20)
+
+
+def _dumps_per_row(frame: pl.DataFrame) -> list[str]:
+    """The reference: what the store held before, one json.dumps per building."""
+    return [json.dumps(row, default=str, sort_keys=True) for row in frame.to_dicts()]
+
+
+def test_json_records_are_the_bytes_of_json_dumps_for_every_kind_of_value():
+    from screening.runs.record import json_records
+
+    tiny = [1e-05, -2.5e-07, 1.5e-09, 1e-10, 5e-324, 9.99e-05, -1.0000000000000001e-05]
+    frame = pl.DataFrame(
+        {
+            "z_float": [0.1, float("nan"), float("inf"), float("-inf"), -0.0, None, 1e16, 1.2345678901234568e17]
+            + tiny
+            + [0.0001, 1234567.0, 0.30000000000000004],
+            "a_text": ['say "hi"', "back\\slash", "tab\tnew\nline\r", "\x01\x1f\x7f", "é × – °", "😀", None, ""]
+            + ["plain"] * 10,
+            "m_list": [["a", None], [], None, ["é", 'q"'], ["x"]] + [["y", "z"]] * 13,
+            "b_bool": [True, False, None] + [True] * 15,
+            "i_int": [0, -1, None, 2**62] + [7] * 14,
+            "u_uint": pl.Series([1, 2, 3] + [4] * 15, dtype=pl.UInt32),
+            "f_32": pl.Series([0.1, None] + [1.5] * 16, dtype=pl.Float32),
+            "d_date": [dt.date(2026, 9, 30), None, dt.date(1, 1, 1)] + [dt.date(2025, 10, 1)] * 15,
+            "t_stamp": [dt.datetime(2026, 1, 2, 3, 4, 5), None] + [dt.datetime(2026, 1, 1)] * 16,  # no rule: json.dumps
+            "c_cat": pl.Series(["x", None] + ["y"] * 16, dtype=pl.Categorical),
+            "e_empty": pl.Series([None] * 18, dtype=pl.Null),
+            'k "key"': [1] * 18,
+        }
+    )
+    assert json_records(frame).to_list() == _dumps_per_row(frame)
+
+
+def test_json_records_write_floats_as_repr():
+    """Python's repr (the shortest round-trip text, exponent at or below 1e-5 and from 1e16) for floats
+    of every magnitude: what json.dumps writes."""
+    import numpy as np
+
+    from screening.runs.record import json_records
+
+    rng = np.random.default_rng(20)  # seeded: the same values every run
+    x = np.concatenate(
+        [10.0 ** rng.uniform(-320, 308, 20000) * rng.choice([-1.0, 1.0], 20000), rng.standard_normal(2000)]
+    )
+    frame = pl.DataFrame({"x": x})
+    assert json_records(frame).to_list() == _dumps_per_row(frame)

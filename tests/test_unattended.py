@@ -26,6 +26,7 @@ import polars as pl
 import pytest
 
 from screening import published, runner
+from screening.runs import demo as demo_mod, stages
 from screening.errors import ConfigError
 from screening.store import SCHEMA_VERSION, Store
 from tests.conftest import simulator, tree_digest
@@ -128,7 +129,7 @@ def test_an_existing_output_folder_is_replaced_only_with_force_and_only_if_ddscr
     out = tmp_path / "adhoc"
     args = ["run", "--config", str(site.config), "--as-of", QUARTERS["2026-Q3"], "--out", str(out)]
     assert cli(args).exit_code == 0
-    assert {p.name for p in out.iterdir()} <= set(runner.OUTPUT_NAMES)  # the names the demo may replace
+    assert {p.name for p in out.iterdir()} <= set(demo_mod.OUTPUT_NAMES)  # the names the demo may replace
     first = tree_digest(out)
     again = cli(args)
     assert again.exit_code == 2 and "already holds the outputs" in again.stderr and "--force" in again.stderr
@@ -324,8 +325,8 @@ def test_status_and_history_read_the_database_while_a_run_holds_the_lock(simulat
 
 
 def test_workers_are_capped_to_the_machine():
-    assert runner._workers(40) == (os.cpu_count() or 1)
-    assert runner._workers(1) == 1
+    assert stages.workers(40) == (os.cpu_count() or 1)
+    assert stages.workers(1) == 1
 
 
 def test_an_input_name_with_brackets_is_read_as_a_name(simulated, tmp_path):
