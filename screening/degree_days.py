@@ -1482,3 +1482,19 @@ def degree_day_table(
         }
     )
     return df.sort("station_id", "period_start", "period_end", maintain_order=True)
+
+
+def nearest_base(grid: np.ndarray, base: np.ndarray) -> np.ndarray:
+    """Index of the grid base nearest to each ``base`` (the lower one on a tie, 0 for NaN).
+
+    The same as ``np.abs(grid[None, :] - base[:, None]).argmin(axis=1)`` for an ascending grid,
+    without the (rows × bases) temporary.
+    """
+    grid = np.asarray(grid, dtype=float)
+    base = np.asarray(base, dtype=float)
+    if grid.size < 2:
+        return np.zeros(base.shape, dtype=np.intp)
+    hi = np.clip(np.searchsorted(grid, base), 1, grid.size - 1)
+    lo = hi - 1
+    j = np.where(np.abs(grid[lo] - base) <= np.abs(grid[hi] - base), lo, hi)
+    return np.where(np.isnan(base), 0, j)
