@@ -20,7 +20,7 @@ import polars as pl
 
 from . import degree_days as ddm
 from . import envelope as env
-from . import data_issues, metered, refdata, screen, units, yoy
+from . import data_issues, metered, refdata, screen, units, wording, yoy
 
 # the old names, re-exported for callers that read them here (outputs.py)
 from .data_issues import DATA_ISSUE_CODES, ISSUE_TEXT, NO_BASIS_CODES, PIPELINE_ISSUE_CODES  # noqa: F401
@@ -460,10 +460,9 @@ def screen_frames(
 
     # the portfolio pass: peer statistics, year-on-year z, the ranking
     units_ip = cfg["analysis"]["units"] == "IP"
-    results = screen.screen(
-        frame,
+    results = wording.explain(  # the sentences, once over the portfolio (screening/wording.py)
+        screen.screen(frame, thr, plan=cfg["plan"]),
         thr,
-        plan=cfg["plan"],
         currency=cfg["prices"]["currency"],
         energy_factor=1.0 if units_ip else KBTU_TO_KWH,
         energy_unit="kBtu" if units_ip else "kWh",

@@ -1,0 +1,489 @@
+"""The screening's sentences: flag explanations, the verdict and the kind of waste, over the whole portfolio.
+
+:func:`screening.screen.screen` computes the numbers, the flags (``flag_codes``) and the supported mechanisms
+(``mechanisms``); :func:`explain` turns them into ``flag_texts``, ``verdict`` and ``waste_kind`` with polars
+expressions, one column at a time (no per-building Python loop). Numbers are printed by :func:`fmt`, which
+gives exactly Python's ``f"{x:,.{digits}f}"`` (``"n/a"`` for a missing or non-finite value).
+No files, no database; called by the orchestration (:func:`screening.pipeline.screen_frames`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+
+import numpy as np
+import polars as pl
+
+from .screen import MECHANISM_CHECKS, TEXT_INPUTS
+
+#: Dekker's splitting constant for float64 (2**27 + 1): a = hi + lo with hi and lo of 26 bits each
+#: (T. J. Dekker 1971, "A floating-point technique for extending the available precision", Numer. Math. 18)
+_SPLIT = 134217729.0
+#: the columns :func:`explain` adds, in the order they follow the screen's columns
+TEXT_COLUMNS = ("flag_codes", "flag_texts", "verdict", "waste_kind", "mechanisms")
+
+
+def _split(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    c = _SPLIT * v
+    hi = c - (c - v)
+    return hi, v - hi
+
+
+def fmt(values: pl.Series | Sequence[float | None] | np.ndarray, digits: int = 0) -> pl.Series:
+    """Each value as ``f"{x:,.{digits}f}"`` (thousands separated by commas), ``"n/a"`` for null, NaN or ±inf.
+
+    Vectorized and exact: Python rounds the exact binary value of ``x`` to ``digits`` decimals, ties to
+    even. Here ``p = |x|·10^digits`` is rounded to the nearest integer (ties to even) and the rounding
+    error of the product, exact by Dekker's two-product, decides the cases where ``p`` landed on a half.
+    Values whose ``p`` reaches 2**53 (beyond any screening figure) are formatted by Python itself.
+    """
+    s = values if isinstance(values, pl.Series) else pl.Series(values, dtype=pl.Float64, strict=False)
+    x = np.ascontiguousarray(s.cast(pl.Float64).fill_null(np.nan).to_numpy(), dtype=float)
+    ok = np.isfinite(x)
+    a = np.abs(np.where(ok, x, 0.0))
+    scale = 10.0**digits
+    p = a * scale
+    ah, al = _split(a)
+    sh, sl = _split(np.array(scale))
+    err = ((ah * sh - p) + ah * sl + al * sh) + al * sl  # p + err == |x|·10^digits exactly
+    n = np.rint(p)
+    tie = np.abs(p - n) == 0.5
+    n = np.where(tie & (err > 0), np.ceil(p), np.where(tie & (err < 0), np.floor(p), n))
+    big = ok & (p >= 2.0**53)
+    k = np.where(big, 0.0, n).astype(np.int64)
+    unit = 10**digits
+    whole = pl.Series(k // unit).cast(pl.String)
+    whole = whole.str.reverse().str.replace_all(r"(\d{3})", "${1},").str.strip_chars_end(",").str.reverse()
+    txt = pl.Series(np.where(np.signbit(x), "-", ""), dtype=pl.String) + whole
+    if digits:
+        txt = txt + "." + pl.Series(k % unit).cast(pl.String).str.zfill(digits)
+    out = pl.Series(np.where(ok, txt.to_numpy(), "n/a"), dtype=pl.String)
+    if big.any():
+        idx = np.flatnonzero(big)
+        out = out.scatter(idx, [f"{v:,.{digits}f}" for v in x[idx]])
+    return out
+
+
+def _g(v: float) -> str:
+    """A setting as printed in a sentence (Python's ``:g``)."""
+    return f"{v:g}"
+
+
+def _f(v: float | None, digits: int = 0) -> str:
+    """One scalar as :func:`fmt` prints it."""
+    return fmt(pl.Series([v], dtype=pl.Float64), digits)[0]
+
+
+def _num(e: pl.Expr) -> pl.Expr:
+    return e.cast(pl.Float64)
+
+
+def _lt(a: pl.Expr, b: pl.Expr | float) -> pl.Expr:
+    """``a < b`` as Python compares floats: False where either side is null or NaN (polars orders NaN last)."""
+    b = b if isinstance(b, pl.Expr) else pl.lit(b, dtype=pl.Float64)
+    return ((_num(a) < _num(b)) & _num(a).is_not_nan() & _num(b).is_not_nan()).fill_null(False)
+
+
+def _gt(a: pl.Expr, b: float) -> pl.Expr:
+    return ((_num(a) > b) & _num(a).is_not_nan()).fill_null(False)
+
+
+def _ge(a: pl.Expr, b: float) -> pl.Expr:
+    return ((_num(a) >= b) & _num(a).is_not_nan()).fill_null(False)
+
+
+def _is(col: str, value: str) -> pl.Expr:
+    return (pl.col(col) == value).fill_null(False)
+
+
+def _flag(col: str) -> pl.Expr:
+    return pl.col(col).fill_null(False)
+
+
+def _cat(*parts: str | pl.Expr) -> pl.Expr:
+    return pl.concat_str([p if isinstance(p, pl.Expr) else pl.lit(p) for p in parts])
+
+
+def _chain(cases: Sequence[tuple[pl.Expr, pl.Expr | str]], otherwise: pl.Expr | str) -> pl.Expr:
+    """The first case whose condition holds (an if/elif chain)."""
+    e = otherwise if isinstance(otherwise, pl.Expr) else pl.lit(otherwise, dtype=pl.String)
+    for cond, v in reversed(cases):
+        e = pl.when(cond).then(v if isinstance(v, pl.Expr) else pl.lit(v, dtype=pl.String)).otherwise(e)
+    return e
+
+
+def explain(
+    out: pl.DataFrame, t: Mapping, *, energy_factor: float, energy_unit: str, currency: str = "$"
+) -> pl.DataFrame:
+    """Add ``flag_texts``, ``verdict`` and ``waste_kind`` to the frame :func:`screening.screen.screen` returned.
+
+    ``t`` is the ``[thresholds]`` table; ``energy_factor``, ``energy_unit`` the display conversion from kBtu
+    (1 and "kBtu", or 0.29307107 and "kWh"); ``currency`` is printed before money. The screen's working
+    columns (:data:`screening.screen.TEXT_INPUTS`, names starting with ``_``) are dropped; the text columns
+    follow the screen's own (:data:`TEXT_COLUMNS`), then ``recoverable_basis``, as before the split.
+    """
+    si = energy_unit == "kWh"
+    e = energy_factor
+    c = pl.col
+
+    num = {  # every number a sentence prints, formatted once for the whole portfolio
+        "act": (c("actual_heating_kbtu") * e, 0),
+        "ratio2": (c("ratio"), 2),
+        "exp": (c("expected_heating_kbtu") * e, 0),
+        "blo": (c("_band_low") * e, 0),
+        "bhi": (c("_band_high") * e, 0),
+        "int2": (c("heating_intensity"), 2),
+        "pct": (c("peer_percentile"), 0),
+        "pmed2": (c("peer_median_intensity"), 2),
+        "bls": (100 * c("baseload_share"), 0),
+        "bld": (100 * c("baseload_share_default"), 0),
+        "fb1": (c("fitted_base_f"), 1),
+        "r2_2": (c("r2"), 2),
+        "cv1": (c("cv_rmse"), 1),
+        "yoy": (100 * c("yoy_change"), 0),
+        "zyoy1": (c("z_yoy"), 1),
+        "score1": (c("evidence_score"), 1),
+        "z1": (c("z_score"), 1),
+        "zbp1": (c("z_balance_point"), 1),
+        "zint1": (c("z_intensity"), 1),
+        "cost": (c("expected_recoverable_cost"), 0),
+        "yf": (100 * c("_yoy_fuel"), 0),
+        "zf1": (c("_z_fuel"), 1),
+        "ua1": (
+            pl.when(c("ua_total").is_not_null() & (c("ua_total") != 0)).then(c("effective_ua_btu_h_f") / c("ua_total")),
+            1,
+        ),
+        "tf1": (((c("fitted_base_f") - 32) / 1.8) if si else c("fitted_base_f"), 1),
+        "du1": (
+            ((c("fitted_base_f") - c("balance_point_f")) / 1.8) if si else (c("fitted_base_f") - c("balance_point_f")),
+            1,
+        ),
+    }
+    vals = out.select([x.cast(pl.Float64).alias(k) for k, (x, _) in num.items()])
+    w = out.with_columns([fmt(vals[k], d).alias(f"_t_{k}") for k, (_, d) in num.items()])
+    T = {k: c(f"_t_{k}") for k in num}
+
+    # the flags' explanations, in the flags' order
+    flag_text = {
+        "above_band": _cat(
+            "Metered heating ",
+            T["act"],
+            f" {energy_unit} is ",
+            T["ratio2"],
+            "× the expected ",
+            T["exp"],
+            f" {energy_unit}, above the expected band ",
+            T["blo"],
+            "–",
+            T["bhi"],
+            ".",
+        ),
+        "high_among_peers": _cat(
+            "Heating intensity ",
+            T["int2"],
+            " Btu/ft²·°F·day is at the ",
+            T["pct"],
+            "th percentile of ",
+            c("peer_group").cast(pl.String).fill_null("None"),
+            " (median ",
+            T["pmed2"],
+            ").",
+        ),
+        "high_baseload": _cat(
+            "Non-heating use is ",
+            T["bls"],
+            " % of the heating fuel, against about ",
+            T["bld"],
+            " % typical for the use type.",
+        ),
+        "high_balance_point": _cat(
+            "Heating starts below ",
+            T["fb1"],
+            " °F outdoors (fitted balance point; above ",
+            _g(t["balance_point_high_f"]),
+            " °F suggests high setpoints or controls that heat too early).",
+        ),
+        "poor_fit": _cat(
+            "Use follows the weather poorly (R² ",
+            T["r2_2"],
+            ", CV(RMSE) ",
+            T["cv1"],
+            " %): irregular operation, controls or meter problems.",
+        ),
+        "rising_use": _cat("Weather-normalized heating is up ", T["yoy"], " % on the previous year."),
+        "envelope_defaulted": pl.lit(
+            "Every envelope value is a default for the use type and era: the expected range is wide."
+        ),
+        "shifted_span": pl.lit(
+            "Readings do not cover the analysis window; the latest covered 12 months were "
+            "compared instead, with the degree days of the same days."
+        ),
+        "base_at_grid_edge": _cat(
+            "The bills fit best at a base of ",
+            T["fb1"],
+            " °F, the edge of the bases searched: the building's "
+            "balance point may lie beyond it, and its split of the fuel into heating and baseload is less certain.",
+        ),
+    }
+    flag_texts = pl.concat_list([pl.when(_flag(f"_f_{k}")).then(x) for k, x in flag_text.items()]).list.drop_nulls()
+
+    # the kind of waste: the supported mechanisms (screen's `mechanisms`, surest first) and what to check
+    unit = "°C" if si else "°F"
+    part = {
+        "heat loss": _cat(
+            "heat loss (the heating slope implies ",
+            T["ua1"],
+            "× the envelope's heat-loss coefficient): ",
+            MECHANISM_CHECKS["heat loss"],
+        ),
+        "controls": _cat(
+            "controls (heating starts at ",
+            T["tf1"],
+            f" {unit} outdoors, ",
+            T["du1"],
+            f" {unit} above the engineering balance point): ",
+            MECHANISM_CHECKS["controls"],
+        ),
+        "baseload": _cat(
+            "non-heating use of the heating fuel (",
+            T["bls"],
+            " % of it, about ",
+            T["bld"],
+            " % is typical): ",
+            MECHANISM_CHECKS["baseload"],
+        ),
+    }
+    nth = [c("mechanisms").list.get(i, null_on_oob=True) for i in range(len(part))]
+    parts = pl.concat_list(
+        [_chain([(m == name, x) for name, x in part.items()], pl.lit(None, dtype=pl.String)) for m in nth]
+    ).list.drop_nulls()
+    has_parts = parts.list.len() > 0
+    sup = t["mechanism_support"]
+    step = (
+        _is("_view", "step up") & _ge(c("_w_step").fill_null(0), sup) & _ge(c("yoy_change").fill_null(0), t["yoy_rise"])
+    )
+    fstep = (
+        _is("_view", "fuel step")
+        & _ge(c("_w_fstep").fill_null(0), sup)
+        & _ge(c("_yoy_fuel").fill_null(0), t["yoy_rise"])
+    )
+    lead = _chain(
+        [
+            (
+                step,
+                _cat(
+                    "Heating rose ",
+                    T["yoy"],
+                    " % on last year: ask what changed (equipment, schedules, a failed component)",
+                ),
+            ),
+            (
+                fstep,
+                _cat(
+                    "Use of the heating fuel rose ",
+                    T["yf"],
+                    " % on last year, more than its heating explains: ask what "
+                    "changed (heating in warm weather, hot water, a leak, a failed component)",
+                ),
+            ),
+        ],
+        "",
+    )
+    has_lead = step | fstep
+    body = _cat("Likely ", parts.list.join("; and "))
+    blocking = _flag("blocking")
+    no_action = _is("tier", "No action")
+    waste_kind = _chain(
+        [
+            (blocking, "Fix the data first; the bills cannot point to a kind of waste until then."),
+            (
+                has_parts & no_action,
+                _cat(
+                    "Expected savings too small for a visit; the bills point to ",
+                    parts.list.join("; and to "),
+                    ", at the next routine visit.",
+                ),
+            ),
+            (has_parts & has_lead, _cat(lead, ". ", body, ".")),
+            (has_parts, _cat(body, ".")),
+            (has_lead, _cat(lead, "; the bills do not show which part of the heating rose.")),
+            (
+                _flag("_f_poor_fit") & _gt(c("ratio").fill_null(0), 1),
+                _cat(
+                    "Use does not follow the weather (R² ",
+                    T["r2_2"],
+                    "): these bills cannot size an excess; check operation and meters first.",
+                ),
+            ),
+            (
+                ~no_action & _gt(c("expected_recoverable_kbtu").fill_null(0), 0) & _is("_view", "fuel step"),
+                _cat(
+                    "Use of the heating fuel rose ",
+                    T["yf"],
+                    " % on last year, more than its heating explains; "
+                    "the bills do not show where (heating in warm weather, hot water, a leak?).",
+                ),
+            ),
+            (
+                ~no_action & _gt(c("expected_recoverable_kbtu").fill_null(0), 0) & ~_is("fit_method", "regression"),
+                "Heating above what its peers' bills suggest; annual bills cannot show which part is in excess.",
+            ),
+            (
+                ~no_action & _gt(c("expected_recoverable_kbtu").fill_null(0), 0),
+                "Heating above what its peers' bills suggest; no single mechanism stands out in the bills.",
+            ),
+        ],
+        "No excess worth a visit.",
+    )
+
+    # the verdict
+    money_ok = c("expected_recoverable_cost").is_not_null() & (c("expected_recoverable_cost") != 0)
+    money = _cat(currency, T["cost"])
+    in_plan, review = _flag("in_plan"), _flag("needs_review")
+    plan = _chain(
+        [
+            (in_plan & ~review, " It is in this quarter's audit plan for its expected savings."),
+            (in_plan, " It is in this quarter's audit plan."),
+            (
+                review & c("tier").is_in(["Watch", "No action"]).fill_null(False),
+                " Its expected savings are below the cost of a visit ([plan] audit_cost), so it is not planned.",
+            ),
+            (_is("tier", "Audit soon"), " Its expected savings are worth a visit after this quarter's plan."),
+        ],
+        "",
+    )
+    audit_end = _chain([(money_ok, _cat(" (expected recoverable about ", money, " a year)."))], ".")
+    ratio = c("ratio")
+    why = _chain(
+        [
+            (
+                _is("fit_method", "regression") & _lt(c("r2"), t["r2_min"]),
+                _cat(
+                    "its use follows the weather poorly (R² ",
+                    T["r2_2"],
+                    f" against {_g(t['r2_min'])}), so its level is no basis for a verdict: check operation and meters",
+                ),
+            ),
+            (
+                _is("_view", "step up"),
+                _cat(
+                    "its rise on last year (",
+                    T["yoy"],
+                    " %, z ",
+                    T["zyoy1"],
+                    ") is below ",
+                    f"{_f(100 * t['yoy_review'])} % at z {_g(t['yoy_review_z'])}",
+                ),
+            ),
+            (
+                _is("_view", "fuel step"),
+                _cat(
+                    "the rise is in its whole use of the heating fuel (",
+                    T["yf"],
+                    " % on last year, z ",
+                    T["zf1"],
+                    " among the buildings of its weather station), not in its weather-normalized heating",
+                ),
+            ),
+            (
+                _lt(ratio, t["min_excess_ratio"]),
+                _cat("its heating is not above the model's central expectation (", T["ratio2"], "×)"),
+            ),
+        ],
+        _cat(
+            "buildings like it spread this widely (evidence score ", T["score1"], f" against {_g(t['review_score'])})"
+        ),
+    )
+    basis = _chain(
+        [
+            (_is("_view", "step up"), _cat("; it rose ", T["yoy"], " % on last year")),
+            (_is("_view", "fuel step"), _cat("; its use of the heating fuel rose ", T["yf"], " % on last year")),
+            (_lt(ratio, 1.0), "; its peers' bills put it above what buildings like it use"),
+        ],
+        "",
+    )
+    no_claim = no_action | ~money_ok
+    not_listed = _chain(
+        [
+            (
+                no_claim & _lt(ratio, 1.0) & _lt(c("actual_heating_kbtu"), c("_band_low")),
+                _cat("Heating is below expectation (", T["ratio2"], "× expected): no sign of excess."),
+            ),
+            (
+                no_claim & (_lt(ratio, t["min_excess_ratio"]) | (~_flag("_f_above_band") & ~_flag("_f_poor_fit"))),
+                _cat(
+                    "Heating is in line with expectation (",
+                    T["ratio2"],
+                    "× expected) and with its peers; no excess worth a visit.",
+                ),
+            ),
+            (
+                no_claim,
+                _cat("Heating is ", T["ratio2"], "× the expectation, but no excess can be counted on: ", why, "."),
+            ),
+        ],
+        _cat(
+            "Heating is ",
+            T["ratio2"],
+            "× the model's expectation",
+            basis,
+            ": expected recoverable about ",
+            money,
+            " a year. The evidence is not strong enough for the audit list: ",
+            why,
+            ".",
+            plan,
+        ),
+    )
+    verdict = _chain(
+        [
+            (
+                blocking,
+                _cat(
+                    "A data problem (",
+                    c("data_issue_codes").list.join(", ").fill_null(""),
+                    ") must be fixed before this building can be judged; it takes no audit slot until then.",
+                ),
+            ),
+            (
+                _is("review_path", "step up"),
+                _cat(
+                    "Weather-normalized heating rose ",
+                    T["yoy"],
+                    " % on the previous year, far beyond the portfolio's year-on-year spread (z ",
+                    T["zyoy1"],
+                    f" against {_g(t['yoy_review_z'])}); it is now ",
+                    T["ratio2"],
+                    "× the expectation. Something changed: recommend an audit",
+                    audit_end,
+                    plan,
+                ),
+            ),
+            (
+                review,
+                _cat(
+                    "Heating is ",
+                    T["ratio2"],
+                    "× what this building should need and the evidence of excess is strong (score ",
+                    T["score1"],
+                    f" against {_g(t['review_score'])}: peers ",
+                    T["z1"],
+                    ", balance point ",
+                    T["zbp1"],
+                    ", intensity ",
+                    T["zint1"],
+                    "): recommend an audit",
+                    audit_end,
+                    plan,
+                ),
+            ),
+            (ratio.is_null(), "No verdict: metered or expected heating is missing."),
+        ],
+        not_listed,
+    )
+    w = w.with_columns(flag_texts.alias("flag_texts"), verdict.alias("verdict"), waste_kind.alias("waste_kind"))
+    keep = [x for x in out.columns if not x.startswith("_") and x not in (*TEXT_COLUMNS, "recoverable_basis")]
+    return w.select(*keep, *TEXT_COLUMNS, "recoverable_basis")
+
+
+__all__ = ["TEXT_COLUMNS", "TEXT_INPUTS", "explain", "fmt"]
