@@ -29,16 +29,10 @@ def _split(v: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return hi, v - hi
 
 
-def fmt(values: pl.Series | Sequence[float | None] | np.ndarray, digits: int = 0) -> pl.Series:
-    """Each value as ``f"{x:,.{digits}f}"`` (thousands separated by commas), ``"n/a"`` for null, NaN or ±inf.
-
-    Vectorized and exact: Python rounds the exact binary value of ``x`` to ``digits`` decimals, ties to
-    even. Here ``p = |x|·10^digits`` is rounded to the nearest integer (ties to even) and the rounding
-    error of the product, exact by Dekker's two-product, decides the cases where ``p`` landed on a half.
-    Values whose ``p`` reaches 2**53 (beyond any screening figure) are formatted by Python itself.
-    """
-    s = values if isinstance(values, pl.Series) else pl.Series(values, dtype=pl.Float64, strict=False)
-    x = np.ascontiguousarray(s.cast(pl.Float64).fill_null(np.nan).to_numpy(), dtype=float)
+def _rounded(values: pl.Series, digits: int) -> tuple[pl.DataFrame, np.ndarray, np.ndarray]:
+    """``|x|·10^digits`` rounded as Python's format rounds it (int64 ``k``), with ``ok`` (finite) and ``neg``
+    (the sign bit) per value; also the values and where they reach 2**53 (left to Python)."""
+    x = np.ascontiguousarray(values.cast(pl.Float64).fill_null(np.nan).to_numpy(), dtype=float)
     ok = np.isfinite(x)
     a = np.abs(np.where(ok, x, 0.0))
     scale = 10.0**digits
@@ -51,17 +45,58 @@ def fmt(values: pl.Series | Sequence[float | None] | np.ndarray, digits: int = 0
     n = np.where(tie & (err > 0), np.ceil(p), np.where(tie & (err < 0), np.floor(p), n))
     big = ok & (p >= 2.0**53)
     k = np.where(big, 0.0, n).astype(np.int64)
+    return pl.DataFrame({"k": k, "ok": ok & ~big, "neg": np.signbit(x)}), x, big
+
+
+def _text(k: pl.Expr, ok: pl.Expr, neg: pl.Expr, digits: int, groups: int = 6) -> pl.Expr:
+    """The text of a rounded value ``k`` (an integer count of 10^-digits) with its sign; "n/a" where not ok.
+
+    ``groups`` is the most groups of three digits any value of the column has (every branch of a polars
+    ``when`` is computed for every row, so a column of small numbers gets the one branch it needs).
+    """
     unit = 10**digits
-    whole = pl.Series(k // unit).cast(pl.String)
-    whole = whole.str.reverse().str.replace_all(r"(\d{3})", "${1},").str.strip_chars_end(",").str.reverse()
-    txt = pl.Series(np.where(np.signbit(x), "-", ""), dtype=pl.String) + whole
+    whole = k // unit
+
+    def group(i: int) -> pl.Expr:  # the i-th group of three digits from the right, zero-padded
+        return ((whole // 1000**i) % 1000).cast(pl.String).str.zfill(3)
+
+    def upto(top: int) -> pl.Expr:  # the number written with `top` commas
+        return pl.concat_str(
+            [(whole // 1000**top).cast(pl.String)]
+            + [e for i in range(top - 1, -1, -1) for e in (pl.lit(","), group(i))]
+        )
+
+    txt = upto(groups - 1)
+    for top in range(groups - 2, -1, -1):
+        txt = pl.when(whole < 1000 ** (top + 1)).then(upto(top)).otherwise(txt)
+    num = pl.concat_str([pl.when(neg).then(pl.lit("-")).otherwise(pl.lit("")), txt])
     if digits:
-        txt = txt + "." + pl.Series(k % unit).cast(pl.String).str.zfill(digits)
-    out = pl.Series(np.where(ok, txt.to_numpy(), "n/a"), dtype=pl.String)
+        num = pl.concat_str([num, pl.lit("."), (k % unit).cast(pl.String).str.zfill(digits)])
+    return pl.when(ok).then(num).otherwise(pl.lit("n/a"))
+
+
+def _groups(r: pl.DataFrame, digits: int) -> int:
+    """Groups of three digits in the largest whole part among the finite values of ``r`` (:func:`_rounded`)."""
+    k = r.filter(pl.col("ok"))["k"].to_numpy()
+    top = int(k.max()) // 10**digits if k.size else 0
+    return max(1, (len(str(top)) + 2) // 3)
+
+
+def fmt(values: pl.Series | Sequence[float | None] | np.ndarray, digits: int = 0) -> pl.Series:
+    """Each value as ``f"{x:,.{digits}f}"`` (thousands separated by commas), ``"n/a"`` for null, NaN or ±inf.
+
+    Vectorized and exact: Python rounds the exact binary value of ``x`` to ``digits`` decimals, ties to
+    even. Here ``p = |x|·10^digits`` is rounded to the nearest integer (ties to even) and the rounding
+    error of the product, exact by Dekker's two-product, decides the cases where ``p`` landed on a half.
+    Values whose ``p`` reaches 2**53 (beyond any screening figure) are formatted by Python itself.
+    """
+    s = values if isinstance(values, pl.Series) else pl.Series(values, dtype=pl.Float64, strict=False)
+    r, x, big = _rounded(s, digits)
+    out = r.select(_text(pl.col("k"), pl.col("ok"), pl.col("neg"), digits, _groups(r, digits))).to_series()
     if big.any():
         idx = np.flatnonzero(big)
         out = out.scatter(idx, [f"{v:,.{digits}f}" for v in x[idx]])
-    return out
+    return out.alias(s.name)
 
 
 def _g(v: float) -> str:
@@ -160,7 +195,22 @@ def explain(
         ),
     }
     vals = out.select([x.cast(pl.Float64).alias(k) for k, (x, _) in num.items()])
-    w = out.with_columns([fmt(vals[k], d).alias(f"_t_{k}") for k, (_, d) in num.items()])
+    rounded = {k: _rounded(vals[k], d) for k, (_, d) in num.items()}
+    if any(big.any() for _, _, big in rounded.values()):  # beyond 2**53: fmt leaves those to Python
+        texts = pl.DataFrame([fmt(vals[k], d).alias(f"_t_{k}") for k, (_, d) in num.items()])
+    else:  # one select: the columns are formatted in parallel
+        parts_k = pl.concat(
+            [r.select(pl.all().name.prefix(f"{k}.")) for k, (r, _, _) in rounded.items()], how="horizontal"
+        )
+        texts = parts_k.select(
+            [
+                _text(pl.col(f"{k}.k"), pl.col(f"{k}.ok"), pl.col(f"{k}.neg"), d, _groups(rounded[k][0], d)).alias(
+                    f"_t_{k}"
+                )
+                for k, (_, d) in num.items()
+            ]
+        )
+    w = out.hstack(texts)
     T = {k: c(f"_t_{k}") for k in num}
 
     # the flags' explanations, in the flags' order
@@ -290,6 +340,10 @@ def explain(
         "",
     )
     has_lead = step | fstep
+    # computed once, read by several sentences
+    w = w.with_columns(parts.alias("_parts"), lead.alias("_lead"), has_lead.alias("_has_lead"))
+    parts, lead, has_lead = c("_parts"), c("_lead"), c("_has_lead")
+    has_parts = parts.list.len() > 0
     body = _cat("Likely ", parts.list.join("; and "))
     blocking = _flag("blocking")
     no_action = _is("tier", "No action")
@@ -402,6 +456,14 @@ def explain(
         ],
         "",
     )
+    w = w.with_columns(
+        why.alias("_why"),
+        basis.alias("_basis"),
+        plan.alias("_plan"),
+        audit_end.alias("_audit_end"),
+        money.alias("_money"),
+    )
+    why, basis, plan, audit_end, money = (c(x) for x in ("_why", "_basis", "_plan", "_audit_end", "_money"))
     no_claim = no_action | ~money_ok
     not_listed = _chain(
         [
