@@ -8,13 +8,16 @@ check once the per-building frame is assembled. No files, no database (orchestra
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from typing import TYPE_CHECKING
 
 import numpy as np
 import polars as pl
 
 from . import metered
 from .schema import issue_codes
+
+if TYPE_CHECKING:
+    from .config import Thresholds
 
 #: Plain texts of the data issues found here (the per-reading ones are in :mod:`screening.metered`;
 #: README "Data issues" lists every code).
@@ -406,14 +409,14 @@ def chunk_issues(
     gaps: pl.DataFrame,
     weather: pl.DataFrame,
     window,
-    thr: Mapping,
+    thr: Thresholds,
     *,
     lookback_months: int,
 ) -> pl.DataFrame:
     """Every data issue of a chunk of buildings but the one against the expectation (:func:`far_from_expectation`).
 
     ``spans`` carries ``station_id``; ``span_missing`` is the days without weather of each span (in ``spans``
-    order); ``thr`` the ``[thresholds]`` settings. Returns ``building_id, code, detail, blocking`` sorted by
+    order); ``thr`` the ``[thresholds]`` settings (:class:`screening.config.Thresholds`). Returns ``building_id, code, detail, blocking`` sorted by
     building and code, ``blocking`` as declared in :data:`DATA_ISSUE_CODES`.
     """
     # (the days filled at a span's end are their own issue, end_days_filled, not a gap in the reads)
@@ -425,13 +428,13 @@ def chunk_issues(
             conv,
             read_spans,
             lookback_months=lookback_months,
-            min_coverage=thr["coverage_min"],
-            max_estimated_share=thr["estimated_share_max"],
+            min_coverage=thr.coverage_min,
+            max_estimated_share=thr.estimated_share_max,
         ),
         missing_bill_issues(conv, spans, window),
         filled_end_issues(met),
-        unit_error_issues(conv, b, thr["unit_error_factor"], isolation=thr["unit_error_isolation"]),
-        fit_outlier_issues(periods, met, thr["unit_error_factor_fit"], thr["unit_error_isolation"]),
+        unit_error_issues(conv, b, thr.unit_error_factor, isolation=thr.unit_error_isolation),
+        fit_outlier_issues(periods, met, thr.unit_error_factor_fit, thr.unit_error_isolation),
     ]
     wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
     # a station without a single day of weather in the span: its own issue, not a gap
@@ -475,19 +478,19 @@ def chunk_issues(
     return issues_df
 
 
-def far_from_expectation(frame: pl.DataFrame, issues_df: pl.DataFrame, thr: Mapping) -> pl.DataFrame:
+def far_from_expectation(frame: pl.DataFrame, issues_df: pl.DataFrame, thr: Thresholds) -> pl.DataFrame:
     """``issues_df`` with ``likely_unit_error`` added where metered heating is far off the expectation.
 
-    A ratio ``actual_heating_kbtu / expected_heating_kbtu`` [-] at or above ``thr["unit_error_factor_expected"]``
-    or at or below 1/``thr["unit_error_factor_expected_low"]`` is a data problem, not waste (only a finite ratio
+    A ratio ``actual_heating_kbtu / expected_heating_kbtu`` [-] at or above ``thr.unit_error_factor_expected``
+    or at or below 1/``thr.unit_error_factor_expected_low`` is a data problem, not waste (only a finite ratio
     over a positive expectation; a missing fuel or missing weather has its own issue, :data:`NO_BASIS_CODES`).
     """
-    uf = thr["unit_error_factor_expected"]
+    uf = thr.unit_error_factor_expected
     ratio = pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")
     # (only a finite ratio over a positive expectation; a missing fuel or missing weather has its own issue)
     no_basis = issues_df.filter(pl.col("code").is_in(list(NO_BASIS_CODES)))["building_id"].implode()
     far = frame.filter(
-        ((ratio >= uf) | (ratio <= 1 / thr["unit_error_factor_expected_low"]))
+        ((ratio >= uf) | (ratio <= 1 / thr.unit_error_factor_expected_low))
         & (pl.col("expected_heating_kbtu") > 0)
         & ratio.is_finite()
         & ~pl.col("building_id").is_in(no_basis)

@@ -20,7 +20,7 @@ import polars as pl
 
 from . import degree_days as ddm
 from . import envelope as env
-from . import data_issues, metered, refdata, screen, units, wording, yoy
+from . import config, data_issues, metered, refdata, screen, units, wording, yoy
 
 # the old names, re-exported for callers that read them here (outputs.py)
 from .data_issues import DATA_ISSUE_CODES, ISSUE_TEXT, NO_BASIS_CODES, PIPELINE_ISSUE_CODES  # noqa: F401
@@ -364,6 +364,7 @@ def screen_frames(
     fit_block = fit_block or FIT_BLOCK
     paths = paths or {}
     a = cfg["analysis"]
+    thr = config.thresholds(cfg)  # the [thresholds] settings, typed and frozen, for every step below
     t0 = time.perf_counter()
     timings: dict[str, float] = {}
 
@@ -427,6 +428,7 @@ def screen_frames(
                 fit_block=fit_block,
                 lap=lap,
                 learned=learned,
+                thresholds=thr,
             )
         )
         del rc
@@ -456,7 +458,6 @@ def screen_frames(
     ctx_parts = [p.plan_context for p in parts if p.plan_context is not None]
     measure_ctx = pl.concat(ctx_parts, how="vertical_relaxed") if ctx_parts else None
     del parts
-    thr = cfg["thresholds"]
 
     # the portfolio pass: peer statistics, year-on-year z, the ranking
     units_ip = cfg["analysis"]["units"] == "IP"
@@ -535,6 +536,7 @@ def _screen_part(
     fit_block: int,
     lap,
     learned: pl.DataFrame | None = None,
+    thresholds: config.Thresholds | None = None,
 ) -> _Part:
     """The per-building work for the buildings ``b`` (sorted) and their checked readings ``r``."""
     a = cfg["analysis"]
@@ -562,13 +564,13 @@ def _screen_part(
                 ).cast(REJECT_SCHEMA),
             ]
         )
-    thr = cfg["thresholds"]
+    thr = thresholds or config.thresholds(cfg)
     spans = metered.choose_spans(
         conv,
         ws,
         we,
         lookback_months=a["lookback_months"],
-        min_coverage=thr["coverage_min"],
+        min_coverage=thr.coverage_min,
         building_ids=b["building_id"],
         fill_end_days=a["fill_end_days"],
     )
@@ -582,7 +584,7 @@ def _screen_part(
             plan_context,
             we,
             lookback_months=a["lookback_months"],
-            min_coverage=thr["coverage_min"],
+            min_coverage=thr.coverage_min,
             fill_end_days=a["fill_end_days"],
         )
     part.plan_context = plan_context

@@ -16,7 +16,12 @@ Detect and Handle Outliers", ASQC Basic References in Quality Control vol. 16, w
 from __future__ import annotations
 
 
+from typing import TYPE_CHECKING
+
 import polars as pl
+
+if TYPE_CHECKING:  # the type only: config.py is read by the orchestration, not imported here
+    from .config import Thresholds
 
 MAD_TO_SIGMA = 1.4826  # consistency constant of the MAD for normal data (Iglewicz & Hoaglin 1993)
 P10_P90_SIGMAS = 2 * 1.2816  # a normal distribution's P10..P90 spans 2 × 1.2816 σ
@@ -116,24 +121,24 @@ def _peer_stats(values: pl.Expr, group: str) -> tuple[pl.Expr, pl.Expr, pl.Expr]
     return med, sd, values.count().over(group)
 
 
-def _blend_weight(values: pl.Expr, group: str, t: dict) -> pl.Expr:
+def _blend_weight(values: pl.Expr, group: str, t: Thresholds) -> pl.Expr:
     """Peer weight λ = n / (n + peer_prior) for n ≥ 3 peers with a spread; 0 (the model alone) otherwise."""
     _, sd, n = _peer_stats(values, group)
     ok = (n >= 3) & (sd > 0)
     return (
-        pl.when(ok).then(n.cast(pl.Float64) / (n + t["peer_prior"])).otherwise(0.0)
-        if t["peer_prior"] > 0
+        pl.when(ok).then(n.cast(pl.Float64) / (n + t.peer_prior)).otherwise(0.0)
+        if t.peer_prior > 0
         else pl.when(ok).then(1.0).otherwise(0.0)
     )
 
 
-def _blend_center(values: pl.Expr, group: str, t: dict) -> pl.Expr:
+def _blend_center(values: pl.Expr, group: str, t: Thresholds) -> pl.Expr:
     """The expected value of ``values`` among peers, shrunk towards 0 (the model) by the peer weight."""
     med, _, _ = _peer_stats(values, group)
     return _blend_weight(values, group, t) * med
 
 
-def _blended_z(values: pl.Expr, group: str, model_sd: pl.Expr | float, t: dict) -> pl.Expr:
+def _blended_z(values: pl.Expr, group: str, model_sd: pl.Expr | float, t: Thresholds) -> pl.Expr:
     """(x − λ·peer median) / √(λ·peer sd² + (1 − λ)·model sd²): the evidence in units of its own scale.
 
     With many peers this is the robust z within the group (Iglewicz & Hoaglin 1993); with none, the
@@ -150,7 +155,7 @@ def _blended_z(values: pl.Expr, group: str, model_sd: pl.Expr | float, t: dict) 
     )
 
 
-def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFrame:
+def _recoverable(out: pl.DataFrame, t: Thresholds, heat_share: pl.Expr) -> pl.DataFrame:
     """Excess per mechanism, how sure each is, and the expected recoverable energy, cost and CO2e.
 
     Three views of a building's recoverable excess (see docs/methods.md "How the audit list is chosen"):
@@ -175,7 +180,7 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     blk = pl.col("blocking")
     reg = pl.col("fit_method") == "regression"
     # a monthly fit that does not follow the weather is no basis for judging the level (as for needs_review)
-    usable = (~blk) & pl.col("_logr").is_not_null() & (~reg | (pl.col("r2") >= t["r2_min"])).fill_null(False)
+    usable = (~blk) & pl.col("_logr").is_not_null() & (~reg | (pl.col("r2") >= t.r2_min)).fill_null(False)
     out = out.with_columns(
         pl.when(usable)
         .then(
@@ -189,8 +194,8 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     step_ok = (
         (~blk)
         & (pl.col("yoy_change") > 0)
-        & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"]))
-        & (heat_share >= t["yoy_review_heating_share_min"])
+        & (~reg | (pl.col("r2") >= t.yoy_review_r2_min))
+        & (heat_share >= t.yoy_review_heating_share_min)
         & pl.col("z_yoy").is_not_null()
     )
     out = out.with_columns(
@@ -198,7 +203,7 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
         .then(pl.col("actual_heating_kbtu") * pl.col("yoy_change") / (1 + pl.col("yoy_change")))
         .otherwise(None)
         .alias("_e_step"),
-        pl.when(step_ok).then(_phi(pl.col("z_yoy") - t["step_sure_z"])).otherwise(None).alias("_w_step"),
+        pl.when(step_ok).then(_phi(pl.col("z_yoy") - t.step_sure_z)).otherwise(None).alias("_w_step"),
     )
     # the heating fuel's whole use against the 12 months before (not weather normalized: the robust z is taken
     # among the buildings of one weather station, which share the year's weather): heating in warm weather or a
@@ -209,19 +214,19 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     out = out.with_columns(fuel_y.log().alias("_lfy"), (fuel_y - 1).alias("_yoy_fuel"))
     out = out.with_columns(robust_z(pl.col("_lfy"), "station_id").alias("_z_fuel"))
     # (not weather normalized, so it counts only from path B's rise, yoy_review)
-    fstep_ok = (pl.col("_yoy_fuel") >= t["yoy_review"]) & pl.col("_z_fuel").is_not_null()
+    fstep_ok = (pl.col("_yoy_fuel") >= t.yoy_review) & pl.col("_z_fuel").is_not_null()
     out = out.with_columns(
         pl.when(fstep_ok)
         .then(pl.col("total_fuel_kbtu") * pl.col("_yoy_fuel") / (1 + pl.col("_yoy_fuel")))
         .otherwise(None)
         .alias("_e_fstep"),
-        pl.when(fstep_ok).then(_phi(pl.col("_z_fuel") - t["step_sure_z"])).otherwise(None).alias("_w_fstep"),
+        pl.when(fstep_ok).then(_phi(pl.col("_z_fuel") - t.step_sure_z)).otherwise(None).alias("_w_fstep"),
     )
     # mechanisms, from a monthly fit that follows the weather
     fit = (
         (~blk)
         & reg
-        & (pl.col("r2") >= t["r2_min"]).fill_null(False)
+        & (pl.col("r2") >= t.r2_min).fill_null(False)
         & (pl.col("heating_slope_kbtu_per_dd") > 0)
         & (pl.col("actual_heating_kbtu") > 0)
     )
@@ -246,8 +251,8 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
         (pl.col("_db") - _blend_center(pl.col("_db"), "peer_group", t)).alias("_x_ct"),
         (pl.col("_dl") - _blend_center(pl.col("_dl"), "peer_group", t)).alias("_x_bl"),
         _blended_z(pl.col("_lu"), "peer_group", _model_sd(), t).alias("_z_hl"),
-        _blended_z(pl.col("_db"), "peer_group", t["balance_point_sd_f"], t).alias("_z_ct"),
-        _blended_z(pl.col("_dl"), "peer_group", t["baseload_share_sd"], t).alias("_z_bl"),
+        _blended_z(pl.col("_db"), "peer_group", t.balance_point_sd_f, t).alias("_z_ct"),
+        _blended_z(pl.col("_dl"), "peer_group", t.baseload_share_sd, t).alias("_z_bl"),
     )
     # heating-season days per °F of base: HDD(T_fit) / (T_fit − 35 °F), 35 °F a typical heating-season
     # mean outdoor temperature (our own rough figure, only to size the controls excess)
@@ -260,9 +265,9 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
         .clip(lower_bound=0, upper_bound=pl.col("actual_heating_kbtu"))
         .alias("excess_controls_kbtu"),
         (pl.col("_x_bl") * pl.col("total_fuel_kbtu")).clip(lower_bound=0).alias("excess_baseload_kbtu"),
-        _phi(pl.col("_z_hl") - t["sure_offset"]).alias("sure_heat_loss"),
-        _phi(pl.col("_z_ct") - t["sure_offset"]).alias("sure_controls"),
-        _phi(pl.col("_z_bl") - t["sure_offset"]).alias("sure_baseload"),
+        _phi(pl.col("_z_hl") - t.sure_offset).alias("sure_heat_loss"),
+        _phi(pl.col("_z_ct") - t.sure_offset).alias("sure_controls"),
+        _phi(pl.col("_z_bl") - t.sure_offset).alias("sure_baseload"),
     )
     # the level view is as sure as its z, and more so where one mechanism's own evidence points the same way:
     # × ((1 − m) + m · the surest mechanism), m = mechanism_weight; with no monthly fit (no mechanism
@@ -270,7 +275,7 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     mech = pl.max_horizontal(*[pl.col(f"sure_{m}") for m in MECHANISMS]).fill_null(0.5)
     out = out.with_columns(
         pl.when(usable)
-        .then(_phi(pl.col("z_score") - t["sure_offset"]) * ((1 - t["mechanism_weight"]) + t["mechanism_weight"] * mech))
+        .then(_phi(pl.col("z_score") - t.sure_offset) * ((1 - t.mechanism_weight) + t.mechanism_weight * mech))
         .otherwise(None)
         .alias("_w_level")
     )
@@ -308,7 +313,7 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
 
 def screen(
     df: pl.DataFrame,
-    thresholds: dict,
+    thresholds: Thresholds,
     *,
     plan: dict | None = None,
 ) -> pl.DataFrame:
@@ -324,7 +329,8 @@ def screen(
         data_issue_codes (list[str]), data_issue_texts (list[str])``; ``yoy_change`` when
         the pipeline computed it from the readings (the previous run's normal-year heating
         stands in where it is missing).
-    thresholds : the ``[thresholds]`` table of the config.
+    thresholds : the ``[thresholds]`` settings, :class:`screening.config.Thresholds` (frozen; built once by
+        :func:`screening.config.thresholds`).
 
     Returns
     -------
@@ -351,10 +357,10 @@ def screen(
     # the band is never narrower than ±band_floor around P50: metering, weather and calendarization
     # carry that much uncertainty even when every envelope input is known
     df = df.with_columns(
-        pl.max_horizontal(pl.col("expected_high_kbtu"), pl.col("expected_heating_kbtu") * (1 + t["band_floor"])).alias(
+        pl.max_horizontal(pl.col("expected_high_kbtu"), pl.col("expected_heating_kbtu") * (1 + t.band_floor)).alias(
             "_band_high"
         ),
-        pl.min_horizontal(pl.col("expected_low_kbtu"), pl.col("expected_heating_kbtu") * (1 - t["band_floor"])).alias(
+        pl.min_horizontal(pl.col("expected_low_kbtu"), pl.col("expected_heating_kbtu") * (1 - t.band_floor)).alias(
             "_band_low"
         ),
     )
@@ -364,7 +370,7 @@ def screen(
         .then(pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu"))
         .otherwise(None)
         .alias("ratio"),
-        pl.when(pl.col("actual_heating_kbtu") > pl.col("_band_high") * t["band_ratio"])
+        pl.when(pl.col("actual_heating_kbtu") > pl.col("_band_high") * t.band_ratio)
         .then(pl.lit("above"))
         .when(pl.col("actual_heating_kbtu") < pl.col("_band_low"))
         .then(pl.lit("below"))
@@ -385,7 +391,7 @@ def screen(
     )
     out = out.with_columns(
         peer_groups(
-            out.with_columns(pl.col("_int_ok").alias("heating_intensity")), min_group=t["min_peer_group"]
+            out.with_columns(pl.col("_int_ok").alias("heating_intensity")), min_group=t.min_peer_group
         ).alias("peer_group")
     )
     out = out.with_columns(
@@ -433,7 +439,7 @@ def screen(
     reg = pl.col("fit_method") == "regression"
     # evidence that does not lean on the envelope estimate: the building's own fitted balance
     # point against the engineering one (portfolio-wide robust z) and its intensity among peers
-    fit_ok = reg & (pl.col("r2") >= t["r2_min"]).fill_null(False)
+    fit_ok = reg & (pl.col("r2") >= t.r2_min).fill_null(False)
     out = out.with_columns(
         pl.when(usable & fit_ok & pl.col("fitted_base_f").is_not_null() & pl.col("balance_point_f").is_not_null())
         .then(pl.col("fitted_base_f") - pl.col("balance_point_f"))
@@ -456,19 +462,19 @@ def screen(
     out = out.with_columns(
         (
             pl.col("z_score")
-            + t["weight_balance_point"] * pl.col("z_balance_point").fill_null(0.0)
-            + t["weight_intensity"] * pl.col("z_intensity").fill_null(0.0)
+            + t.weight_balance_point * pl.col("z_balance_point").fill_null(0.0)
+            + t.weight_intensity * pl.col("z_intensity").fill_null(0.0)
         ).alias("evidence_score")
     )
     conds = {
         "above_band": pl.col("band_position") == "above",
-        "high_among_peers": pl.col("peer_percentile") >= t["peer_percentile_high"],
+        "high_among_peers": pl.col("peer_percentile") >= t.peer_percentile_high,
         "high_baseload": reg
-        & (pl.col("baseload_share") > t["baseload_share_high"] * pl.col("baseload_share_default"))
+        & (pl.col("baseload_share") > t.baseload_share_high * pl.col("baseload_share_default"))
         & (pl.col("baseload_share") > 0.2),
-        "high_balance_point": reg & (pl.col("fitted_base_f") > t["balance_point_high_f"]),
-        "poor_fit": reg & ((pl.col("r2") < t["r2_min"]) | (pl.col("cv_rmse") > t["cv_rmse_max"])),
-        "rising_use": pl.col("yoy_change") > t["yoy_rise"],
+        "high_balance_point": reg & (pl.col("fitted_base_f") > t.balance_point_high_f),
+        "poor_fit": reg & ((pl.col("r2") < t.r2_min) | (pl.col("cv_rmse") > t.cv_rmse_max)),
+        "rising_use": pl.col("yoy_change") > t.yoy_rise,
         "envelope_defaulted": pl.col("envelope_source") == "estimated",
         "shifted_span": pl.col("span_kind") == "shifted",
         "base_at_grid_edge": reg & pl.col("base_at_edge") if "base_at_edge" in out.columns else pl.lit(False),
@@ -478,7 +484,7 @@ def screen(
     # a fit that does not follow the weather is no basis for a verdict (often a meter or entry problem)
     fit_usable = (~reg) | fit_ok
     strong = (
-        (pl.col("evidence_score") >= t["review_score"]) & (pl.col("ratio") >= t["min_excess_ratio"]) & fit_usable
+        (pl.col("evidence_score") >= t.review_score) & (pl.col("ratio") >= t.min_excess_ratio) & fit_usable
     ).fill_null(False)
     # or a step up against the building's own previous year, far beyond the portfolio's spread of
     # year-on-year changes (a fault that developed: the building is its own baseline)
@@ -486,10 +492,10 @@ def screen(
     # nor does heating that is a small part of the fuel's use, where a small change in the rest moves it)
     heat_share = pl.when(pl.col("total_fuel_kbtu") > 0).then(pl.col("actual_heating_kbtu") / pl.col("total_fuel_kbtu"))
     rise = (
-        (pl.col("yoy_change") >= t["yoy_review"])
-        & (pl.col("z_yoy") >= t["yoy_review_z"])
-        & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"]))
-        & (heat_share >= t["yoy_review_heating_share_min"])
+        (pl.col("yoy_change") >= t.yoy_review)
+        & (pl.col("z_yoy") >= t.yoy_review_z)
+        & (~reg | (pl.col("r2") >= t.yoy_review_r2_min))
+        & (heat_share >= t.yoy_review_heating_share_min)
     ).fill_null(False)
     out = out.with_columns(
         ((strong | rise) & ~pl.col("blocking")).alias("needs_review"),
@@ -590,7 +596,7 @@ MECHANISM_CHECKS = {
 }
 
 
-def _mechanisms(t: dict) -> pl.Expr:
+def _mechanisms(t: Thresholds) -> pl.Expr:
     """Mechanisms whose own evidence is sure enough (``sure_<m>`` ≥ mechanism_support and an excess > 0),
     largest expected excess ``sure_<m> · excess_<m>_kbtu`` first (equal ones: the name in reverse
     alphabetical order); none while a data problem blocks the verdict. NaN counts as not sure."""
@@ -602,7 +608,7 @@ def _mechanisms(t: dict) -> pl.Expr:
             ~pl.col("blocking").fill_null(False)
             & (x > 0)
             & x.is_not_nan()
-            & (w >= t["mechanism_support"])
+            & (w >= t.mechanism_support)
             & w.is_not_nan()
         ).fill_null(False)
         key[name] = w * x

@@ -9,12 +9,16 @@ No files, no database; called by the orchestration (:func:`screening.pipeline.sc
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
 import polars as pl
 
 from .screen import MECHANISM_CHECKS, TEXT_INPUTS
+
+if TYPE_CHECKING:
+    from .config import Thresholds
 
 #: Dekker's splitting constant for float64 (2**27 + 1): a = hi + lo with hi and lo of 26 bits each
 #: (T. J. Dekker 1971, "A floating-point technique for extending the available precision", Numer. Math. 18)
@@ -148,11 +152,11 @@ def _chain(cases: Sequence[tuple[pl.Expr, pl.Expr | str]], otherwise: pl.Expr | 
 
 
 def explain(
-    out: pl.DataFrame, t: Mapping, *, energy_factor: float, energy_unit: str, currency: str = "$"
+    out: pl.DataFrame, t: Thresholds, *, energy_factor: float, energy_unit: str, currency: str = "$"
 ) -> pl.DataFrame:
     """Add ``flag_texts``, ``verdict`` and ``waste_kind`` to the frame :func:`screening.screen.screen` returned.
 
-    ``t`` is the ``[thresholds]`` table; ``energy_factor``, ``energy_unit`` the display conversion from kBtu
+    ``t`` is the ``[thresholds]`` settings (:class:`screening.config.Thresholds`); ``energy_factor``, ``energy_unit`` the display conversion from kBtu
     (1 and "kBtu", or 0.29307107 and "kWh"); ``currency`` is printed before money. The screen's working
     columns (:data:`screening.screen.TEXT_INPUTS`, names starting with ``_``) are dropped; the text columns
     follow the screen's own (:data:`TEXT_COLUMNS`), then ``recoverable_basis``, as before the split.
@@ -250,7 +254,7 @@ def explain(
             "Heating starts below ",
             T["fb1"],
             " °F outdoors (fitted balance point; above ",
-            _g(t["balance_point_high_f"]),
+            _g(t.balance_point_high_f),
             " °F suggests high setpoints or controls that heat too early).",
         ),
         "poor_fit": _cat(
@@ -308,14 +312,14 @@ def explain(
         [_chain([(m == name, x) for name, x in part.items()], pl.lit(None, dtype=pl.String)) for m in nth]
     ).list.drop_nulls()
     has_parts = parts.list.len() > 0
-    sup = t["mechanism_support"]
+    sup = t.mechanism_support
     step = (
-        _is("_view", "step up") & _ge(c("_w_step").fill_null(0), sup) & _ge(c("yoy_change").fill_null(0), t["yoy_rise"])
+        _is("_view", "step up") & _ge(c("_w_step").fill_null(0), sup) & _ge(c("yoy_change").fill_null(0), t.yoy_rise)
     )
     fstep = (
         _is("_view", "fuel step")
         & _ge(c("_w_fstep").fill_null(0), sup)
-        & _ge(c("_yoy_fuel").fill_null(0), t["yoy_rise"])
+        & _ge(c("_yoy_fuel").fill_null(0), t.yoy_rise)
     )
     lead = _chain(
         [
@@ -411,11 +415,11 @@ def explain(
     why = _chain(
         [
             (
-                _is("fit_method", "regression") & _lt(c("r2"), t["r2_min"]),
+                _is("fit_method", "regression") & _lt(c("r2"), t.r2_min),
                 _cat(
                     "its use follows the weather poorly (R² ",
                     T["r2_2"],
-                    f" against {_g(t['r2_min'])}), so its level is no basis for a verdict: check operation and meters",
+                    f" against {_g(t.r2_min)}), so its level is no basis for a verdict: check operation and meters",
                 ),
             ),
             (
@@ -426,7 +430,7 @@ def explain(
                     " %, z ",
                     T["zyoy1"],
                     ") is below ",
-                    f"{_f(100 * t['yoy_review'])} % at z {_g(t['yoy_review_z'])}",
+                    f"{_f(100 * t.yoy_review)} % at z {_g(t.yoy_review_z)}",
                 ),
             ),
             (
@@ -440,12 +444,12 @@ def explain(
                 ),
             ),
             (
-                _lt(ratio, t["min_excess_ratio"]),
+                _lt(ratio, t.min_excess_ratio),
                 _cat("its heating is not above the model's central expectation (", T["ratio2"], "×)"),
             ),
         ],
         _cat(
-            "buildings like it spread this widely (evidence score ", T["score1"], f" against {_g(t['review_score'])})"
+            "buildings like it spread this widely (evidence score ", T["score1"], f" against {_g(t.review_score)})"
         ),
     )
     basis = _chain(
@@ -472,7 +476,7 @@ def explain(
                 _cat("Heating is below expectation (", T["ratio2"], "× expected): no sign of excess."),
             ),
             (
-                no_claim & (_lt(ratio, t["min_excess_ratio"]) | (~_flag("_f_above_band") & ~_flag("_f_poor_fit"))),
+                no_claim & (_lt(ratio, t.min_excess_ratio) | (~_flag("_f_above_band") & ~_flag("_f_poor_fit"))),
                 _cat(
                     "Heating is in line with expectation (",
                     T["ratio2"],
@@ -514,7 +518,7 @@ def explain(
                     T["yoy"],
                     " % on the previous year, far beyond the portfolio's year-on-year spread (z ",
                     T["zyoy1"],
-                    f" against {_g(t['yoy_review_z'])}); it is now ",
+                    f" against {_g(t.yoy_review_z)}); it is now ",
                     T["ratio2"],
                     "× the expectation. Something changed: recommend an audit",
                     audit_end,
@@ -528,7 +532,7 @@ def explain(
                     T["ratio2"],
                     "× what this building should need and the evidence of excess is strong (score ",
                     T["score1"],
-                    f" against {_g(t['review_score'])}: peers ",
+                    f" against {_g(t.review_score)}: peers ",
                     T["z1"],
                     ", balance point ",
                     T["zbp1"],

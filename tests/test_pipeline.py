@@ -470,3 +470,15 @@ def test_a_summer_bill_a_hundred_times_its_other_summers_is_a_unit_error():
     # summer's at a spring month's use: far above their own month, but not above the building's winters
     warm = {m: 0.01 for m in (5, 6, 7, 17, 18, 19)} | {m: 3.0 for m in (29, 30, 31)}
     assert data_issues.unit_error_issues(_monthly_gas(warm), b, 8.0, isolation=2.0).height == 0
+
+
+def test_thresholds_are_one_frozen_typed_value():
+    # the [thresholds] table becomes config.Thresholds once; the screening steps read attributes, not keys
+    import dataclasses
+
+    cfg = cfgmod.load(None, {"thresholds": {"r2_min": 0.6}})
+    thr = cfgmod.thresholds(cfg)
+    assert isinstance(thr, cfgmod.Thresholds) and thr.r2_min == 0.6 and thr.band_floor == 0.1
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        thr.r2_min = 0.5  # type: ignore[misc]
+    assert dataclasses.asdict(thr) == cfg["thresholds"]
