@@ -390,9 +390,9 @@ def screen(
         pl.when(usable).then(pl.col("ratio").log()).otherwise(None).alias("_logr"),
     )
     out = out.with_columns(
-        peer_groups(
-            out.with_columns(pl.col("_int_ok").alias("heating_intensity")), min_group=t.min_peer_group
-        ).alias("peer_group")
+        peer_groups(out.with_columns(pl.col("_int_ok").alias("heating_intensity")), min_group=t.min_peer_group).alias(
+            "peer_group"
+        )
     )
     out = out.with_columns(
         pl.col("_int_ok").median().over("peer_group").alias("peer_median_intensity"),

@@ -313,13 +313,9 @@ def explain(
     ).list.drop_nulls()
     has_parts = parts.list.len() > 0
     sup = t.mechanism_support
-    step = (
-        _is("_view", "step up") & _ge(c("_w_step").fill_null(0), sup) & _ge(c("yoy_change").fill_null(0), t.yoy_rise)
-    )
+    step = _is("_view", "step up") & _ge(c("_w_step").fill_null(0), sup) & _ge(c("yoy_change").fill_null(0), t.yoy_rise)
     fstep = (
-        _is("_view", "fuel step")
-        & _ge(c("_w_fstep").fill_null(0), sup)
-        & _ge(c("_yoy_fuel").fill_null(0), t.yoy_rise)
+        _is("_view", "fuel step") & _ge(c("_w_fstep").fill_null(0), sup) & _ge(c("_yoy_fuel").fill_null(0), t.yoy_rise)
     )
     lead = _chain(
         [
@@ -448,9 +444,7 @@ def explain(
                 _cat("its heating is not above the model's central expectation (", T["ratio2"], "×)"),
             ),
         ],
-        _cat(
-            "buildings like it spread this widely (evidence score ", T["score1"], f" against {_g(t.review_score)})"
-        ),
+        _cat("buildings like it spread this widely (evidence score ", T["score1"], f" against {_g(t.review_score)})"),
     )
     basis = _chain(
         [
