@@ -9,7 +9,8 @@ No files, no database; called by the orchestration (:func:`screening.pipeline.sc
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+import re
+from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -139,8 +140,21 @@ def _flag(col: str) -> pl.Expr:
     return pl.col(col).fill_null(False)
 
 
-def _cat(*parts: str | pl.Expr) -> pl.Expr:
-    return pl.concat_str([p if isinstance(p, pl.Expr) else pl.lit(p) for p in parts])
+_FIELD = re.compile(r"\{(\w+)\}")
+
+
+def _say(template: str, fields: Mapping[str, pl.Expr]) -> pl.Expr:
+    """A sentence per row: ``template`` with each ``{name}`` replaced by the column expression ``fields[name]``."""
+    pieces: list[pl.Expr] = []
+    pos = 0
+    for m in _FIELD.finditer(template):
+        if m.start() > pos:
+            pieces.append(pl.lit(template[pos : m.start()]))
+        pieces.append(fields[m.group(1)])
+        pos = m.end()
+    if pos < len(template):
+        pieces.append(pl.lit(template[pos:]))
+    return pl.concat_str(pieces) if pieces else pl.lit("")
 
 
 def _chain(cases: Sequence[tuple[pl.Expr, pl.Expr | str]], otherwise: pl.Expr | str) -> pl.Expr:
@@ -217,101 +231,72 @@ def explain(
     w = out.hstack(texts)
     T = {k: c(f"_t_{k}") for k in num}
 
+    # every field a sentence names: the formatted numbers, the settings it quotes, and the parts made below
+    f: dict[str, pl.Expr] = {
+        **T,
+        "unit": pl.lit(energy_unit),
+        "deg": pl.lit("°C" if si else "°F"),
+        "peer_group": c("peer_group").cast(pl.String).fill_null("None"),
+        "bp_high": pl.lit(_g(t.balance_point_high_f)),
+        "r2_min": pl.lit(_g(t.r2_min)),
+        "yoy_review": pl.lit(_f(100 * t.yoy_review)),
+        "yoy_review_z": pl.lit(_g(t.yoy_review_z)),
+        "review_score": pl.lit(_g(t.review_score)),
+        "codes": c("data_issue_codes").list.join(", ").fill_null(""),
+        **{k.replace(" ", "_"): pl.lit(v) for k, v in MECHANISM_CHECKS.items()},
+    }
+
+    def say(template: str) -> pl.Expr:
+        return _say(template, f)
+
     # the flags' explanations, in the flags' order
     flag_text = {
-        "above_band": _cat(
-            "Metered heating ",
-            T["act"],
-            f" {energy_unit} is ",
-            T["ratio2"],
-            "× the expected ",
-            T["exp"],
-            f" {energy_unit}, above the expected band ",
-            T["blo"],
-            "–",
-            T["bhi"],
-            ".",
+        "above_band": say(
+            "Metered heating {act} {unit} is {ratio2}× the expected {exp} {unit}, above the expected band {blo}–{bhi}."
         ),
-        "high_among_peers": _cat(
-            "Heating intensity ",
-            T["int2"],
-            " Btu/ft²·°F·day is at the ",
-            T["pct"],
-            "th percentile of ",
-            c("peer_group").cast(pl.String).fill_null("None"),
-            " (median ",
-            T["pmed2"],
-            ").",
+        "high_among_peers": say(
+            "Heating intensity {int2} Btu/ft²·°F·day is at the {pct}th percentile of {peer_group} (median {pmed2})."
         ),
-        "high_baseload": _cat(
-            "Non-heating use is ",
-            T["bls"],
-            " % of the heating fuel, against about ",
-            T["bld"],
-            " % typical for the use type.",
+        "high_baseload": say(
+            "Non-heating use is {bls} % of the heating fuel, against about {bld} % typical for the use type."
         ),
-        "high_balance_point": _cat(
-            "Heating starts below ",
-            T["fb1"],
-            " °F outdoors (fitted balance point; above ",
-            _g(t.balance_point_high_f),
-            " °F suggests high setpoints or controls that heat too early).",
+        "high_balance_point": say(
+            "Heating starts below {fb1} °F outdoors (fitted balance point; above {bp_high} °F suggests high setpoints "
+            "or controls that heat too early)."
         ),
-        "poor_fit": _cat(
-            "Use follows the weather poorly (R² ",
-            T["r2_2"],
-            ", CV(RMSE) ",
-            T["cv1"],
-            " %): irregular operation, controls or meter problems.",
+        "poor_fit": say(
+            "Use follows the weather poorly (R² {r2_2}, CV(RMSE) {cv1} %): irregular operation, controls or meter problems."
         ),
-        "rising_use": _cat("Weather-normalized heating is up ", T["yoy"], " % on the previous year."),
-        "envelope_defaulted": pl.lit(
+        "rising_use": say("Weather-normalized heating is up {yoy} % on the previous year."),
+        "envelope_defaulted": say(
             "Every envelope value is a default for the use type and era: the expected range is wide."
         ),
-        "shifted_span": pl.lit(
-            "Readings do not cover the analysis window; the latest covered 12 months were "
-            "compared instead, with the degree days of the same days."
+        "shifted_span": say(
+            "Readings do not cover the analysis window; the latest covered 12 months were compared instead, with the "
+            "degree days of the same days."
         ),
-        "base_at_grid_edge": _cat(
-            "The bills fit best at a base of ",
-            T["fb1"],
-            " °F, the edge of the bases searched: the building's "
-            "balance point may lie beyond it, and its split of the fuel into heating and baseload is less certain.",
+        "base_at_grid_edge": say(
+            "The bills fit best at a base of {fb1} °F, the edge of the bases searched: the building's balance point "
+            "may lie beyond it, and its split of the fuel into heating and baseload is less certain."
         ),
     }
     flag_texts = pl.concat_list([pl.when(_flag(f"_f_{k}")).then(x) for k, x in flag_text.items()]).list.drop_nulls()
 
     # the kind of waste: the supported mechanisms (screen's `mechanisms`, surest first) and what to check
-    unit = "°C" if si else "°F"
     part = {
-        "heat loss": _cat(
-            "heat loss (the heating slope implies ",
-            T["ua1"],
-            "× the envelope's heat-loss coefficient): ",
-            MECHANISM_CHECKS["heat loss"],
+        "heat loss": say(
+            "heat loss (the heating slope implies {ua1}× the envelope's heat-loss coefficient): {heat_loss}"
         ),
-        "controls": _cat(
-            "controls (heating starts at ",
-            T["tf1"],
-            f" {unit} outdoors, ",
-            T["du1"],
-            f" {unit} above the engineering balance point): ",
-            MECHANISM_CHECKS["controls"],
+        "controls": say(
+            "controls (heating starts at {tf1} {deg} outdoors, {du1} {deg} above the engineering balance point): "
+            "{controls}"
         ),
-        "baseload": _cat(
-            "non-heating use of the heating fuel (",
-            T["bls"],
-            " % of it, about ",
-            T["bld"],
-            " % is typical): ",
-            MECHANISM_CHECKS["baseload"],
-        ),
+        "baseload": say("non-heating use of the heating fuel ({bls} % of it, about {bld} % is typical): {baseload}"),
     }
     nth = [c("mechanisms").list.get(i, null_on_oob=True) for i in range(len(part))]
     parts = pl.concat_list(
         [_chain([(m == name, x) for name, x in part.items()], pl.lit(None, dtype=pl.String)) for m in nth]
     ).list.drop_nulls()
-    has_parts = parts.list.len() > 0
     sup = t.mechanism_support
     step = _is("_view", "step up") & _ge(c("_w_step").fill_null(0), sup) & _ge(c("yoy_change").fill_null(0), t.yoy_rise)
     fstep = (
@@ -321,78 +306,66 @@ def explain(
         [
             (
                 step,
-                _cat(
-                    "Heating rose ",
-                    T["yoy"],
-                    " % on last year: ask what changed (equipment, schedules, a failed component)",
-                ),
+                say("Heating rose {yoy} % on last year: ask what changed (equipment, schedules, a failed component)"),
             ),
             (
                 fstep,
-                _cat(
-                    "Use of the heating fuel rose ",
-                    T["yf"],
-                    " % on last year, more than its heating explains: ask what "
-                    "changed (heating in warm weather, hot water, a leak, a failed component)",
+                say(
+                    "Use of the heating fuel rose {yf} % on last year, more than its heating explains: ask what changed "
+                    "(heating in warm weather, hot water, a leak, a failed component)"
                 ),
             ),
         ],
         "",
     )
-    has_lead = step | fstep
     # computed once, read by several sentences
-    w = w.with_columns(parts.alias("_parts"), lead.alias("_lead"), has_lead.alias("_has_lead"))
-    parts, lead, has_lead = c("_parts"), c("_lead"), c("_has_lead")
-    has_parts = parts.list.len() > 0
-    body = _cat("Likely ", parts.list.join("; and "))
+    w = w.with_columns(parts.alias("_parts"), lead.alias("_lead"), (step | fstep).alias("_has_lead"))
+    f["lead"], f["parts"], f["parts_to"] = (
+        c("_lead"),
+        c("_parts").list.join("; and "),
+        c("_parts").list.join("; and to "),
+    )
+    has_parts, has_lead = c("_parts").list.len() > 0, c("_has_lead")
     blocking = _flag("blocking")
     no_action = _is("tier", "No action")
+    recoverable = ~no_action & _gt(c("expected_recoverable_kbtu").fill_null(0), 0)
     waste_kind = _chain(
         [
             (blocking, "Fix the data first; the bills cannot point to a kind of waste until then."),
             (
                 has_parts & no_action,
-                _cat(
-                    "Expected savings too small for a visit; the bills point to ",
-                    parts.list.join("; and to "),
-                    ", at the next routine visit.",
+                say(
+                    "Expected savings too small for a visit; the bills point to {parts_to}, at the next routine visit."
                 ),
             ),
-            (has_parts & has_lead, _cat(lead, ". ", body, ".")),
-            (has_parts, _cat(body, ".")),
-            (has_lead, _cat(lead, "; the bills do not show which part of the heating rose.")),
+            (has_parts & has_lead, say("{lead}. Likely {parts}.")),
+            (has_parts, say("Likely {parts}.")),
+            (has_lead, say("{lead}; the bills do not show which part of the heating rose.")),
             (
                 _flag("_f_poor_fit") & _gt(c("ratio").fill_null(0), 1),
-                _cat(
-                    "Use does not follow the weather (R² ",
-                    T["r2_2"],
-                    "): these bills cannot size an excess; check operation and meters first.",
+                say(
+                    "Use does not follow the weather (R² {r2_2}): these bills cannot size an excess; check operation and meters first."
                 ),
             ),
             (
-                ~no_action & _gt(c("expected_recoverable_kbtu").fill_null(0), 0) & _is("_view", "fuel step"),
-                _cat(
-                    "Use of the heating fuel rose ",
-                    T["yf"],
-                    " % on last year, more than its heating explains; "
-                    "the bills do not show where (heating in warm weather, hot water, a leak?).",
+                recoverable & _is("_view", "fuel step"),
+                say(
+                    "Use of the heating fuel rose {yf} % on last year, more than its heating explains; the bills do "
+                    "not show where (heating in warm weather, hot water, a leak?)."
                 ),
             ),
             (
-                ~no_action & _gt(c("expected_recoverable_kbtu").fill_null(0), 0) & ~_is("fit_method", "regression"),
+                recoverable & ~_is("fit_method", "regression"),
                 "Heating above what its peers' bills suggest; annual bills cannot show which part is in excess.",
             ),
-            (
-                ~no_action & _gt(c("expected_recoverable_kbtu").fill_null(0), 0),
-                "Heating above what its peers' bills suggest; no single mechanism stands out in the bills.",
-            ),
+            (recoverable, "Heating above what its peers' bills suggest; no single mechanism stands out in the bills."),
         ],
         "No excess worth a visit.",
     )
 
     # the verdict
     money_ok = c("expected_recoverable_cost").is_not_null() & (c("expected_recoverable_cost") != 0)
-    money = _cat(currency, T["cost"])
+    f["money"] = pl.concat_str([pl.lit(currency), T["cost"]])
     in_plan, review = _flag("in_plan"), _flag("needs_review")
     plan = _chain(
         [
@@ -406,50 +379,39 @@ def explain(
         ],
         "",
     )
-    audit_end = _chain([(money_ok, _cat(" (expected recoverable about ", money, " a year)."))], ".")
+    audit_end = _chain([(money_ok, say(" (expected recoverable about {money} a year)."))], ".")
     ratio = c("ratio")
     why = _chain(
         [
             (
                 _is("fit_method", "regression") & _lt(c("r2"), t.r2_min),
-                _cat(
-                    "its use follows the weather poorly (R² ",
-                    T["r2_2"],
-                    f" against {_g(t.r2_min)}), so its level is no basis for a verdict: check operation and meters",
+                say(
+                    "its use follows the weather poorly (R² {r2_2} against {r2_min}), so its level is no basis for a "
+                    "verdict: check operation and meters"
                 ),
             ),
             (
                 _is("_view", "step up"),
-                _cat(
-                    "its rise on last year (",
-                    T["yoy"],
-                    " %, z ",
-                    T["zyoy1"],
-                    ") is below ",
-                    f"{_f(100 * t.yoy_review)} % at z {_g(t.yoy_review_z)}",
-                ),
+                say("its rise on last year ({yoy} %, z {zyoy1}) is below {yoy_review} % at z {yoy_review_z}"),
             ),
             (
                 _is("_view", "fuel step"),
-                _cat(
-                    "the rise is in its whole use of the heating fuel (",
-                    T["yf"],
-                    " % on last year, z ",
-                    T["zf1"],
-                    " among the buildings of its weather station), not in its weather-normalized heating",
+                say(
+                    "the rise is in its whole use of the heating fuel ({yf} % on last year, z {zf1} among the buildings "
+                    "of its weather station), not in its weather-normalized heating"
                 ),
             ),
             (
                 _lt(ratio, t.min_excess_ratio),
-                _cat("its heating is not above the model's central expectation (", T["ratio2"], "×)"),
+                say("its heating is not above the model's central expectation ({ratio2}×)"),
             ),
         ],
-        _cat("buildings like it spread this widely (evidence score ", T["score1"], f" against {_g(t.review_score)})"),
+        say("buildings like it spread this widely (evidence score {score1} against {review_score})"),
     )
     basis = _chain(
         [
-            (_is("_view", "step up"), _cat("; it rose ", T["yoy"], " % on last year")),
-            (_is("_view", "fuel step"), _cat("; its use of the heating fuel rose ", T["yf"], " % on last year")),
+            (_is("_view", "step up"), say("; it rose {yoy} % on last year")),
+            (_is("_view", "fuel step"), say("; its use of the heating fuel rose {yf} % on last year")),
             (_lt(ratio, 1.0), "; its peers' bills put it above what buildings like it use"),
         ],
         "",
@@ -459,82 +421,52 @@ def explain(
         basis.alias("_basis"),
         plan.alias("_plan"),
         audit_end.alias("_audit_end"),
-        money.alias("_money"),
+        f["money"].alias("_money"),
     )
-    why, basis, plan, audit_end, money = (c(x) for x in ("_why", "_basis", "_plan", "_audit_end", "_money"))
+    f.update({x: c(f"_{x}") for x in ("why", "basis", "plan", "audit_end", "money")})
     no_claim = no_action | ~money_ok
     not_listed = _chain(
         [
             (
                 no_claim & _lt(ratio, 1.0) & _lt(c("actual_heating_kbtu"), c("_band_low")),
-                _cat("Heating is below expectation (", T["ratio2"], "× expected): no sign of excess."),
+                say("Heating is below expectation ({ratio2}× expected): no sign of excess."),
             ),
             (
                 no_claim & (_lt(ratio, t.min_excess_ratio) | (~_flag("_f_above_band") & ~_flag("_f_poor_fit"))),
-                _cat(
-                    "Heating is in line with expectation (",
-                    T["ratio2"],
-                    "× expected) and with its peers; no excess worth a visit.",
+                say(
+                    "Heating is in line with expectation ({ratio2}× expected) and with its peers; no excess worth a visit."
                 ),
             ),
-            (
-                no_claim,
-                _cat("Heating is ", T["ratio2"], "× the expectation, but no excess can be counted on: ", why, "."),
-            ),
+            (no_claim, say("Heating is {ratio2}× the expectation, but no excess can be counted on: {why}.")),
         ],
-        _cat(
-            "Heating is ",
-            T["ratio2"],
-            "× the model's expectation",
-            basis,
-            ": expected recoverable about ",
-            money,
-            " a year. The evidence is not strong enough for the audit list: ",
-            why,
-            ".",
-            plan,
+        say(
+            "Heating is {ratio2}× the model's expectation{basis}: expected recoverable about {money} a year. The "
+            "evidence is not strong enough for the audit list: {why}.{plan}"
         ),
     )
     verdict = _chain(
         [
             (
                 blocking,
-                _cat(
-                    "A data problem (",
-                    c("data_issue_codes").list.join(", ").fill_null(""),
-                    ") must be fixed before this building can be judged; it takes no audit slot until then.",
+                say(
+                    "A data problem ({codes}) must be fixed before this building can be judged; it takes no audit slot "
+                    "until then."
                 ),
             ),
             (
                 _is("review_path", "step up"),
-                _cat(
-                    "Weather-normalized heating rose ",
-                    T["yoy"],
-                    " % on the previous year, far beyond the portfolio's year-on-year spread (z ",
-                    T["zyoy1"],
-                    f" against {_g(t.yoy_review_z)}); it is now ",
-                    T["ratio2"],
-                    "× the expectation. Something changed: recommend an audit",
-                    audit_end,
-                    plan,
+                say(
+                    "Weather-normalized heating rose {yoy} % on the previous year, far beyond the portfolio's "
+                    "year-on-year spread (z {zyoy1} against {yoy_review_z}); it is now {ratio2}× the expectation. "
+                    "Something changed: recommend an audit{audit_end}{plan}"
                 ),
             ),
             (
                 review,
-                _cat(
-                    "Heating is ",
-                    T["ratio2"],
-                    "× what this building should need and the evidence of excess is strong (score ",
-                    T["score1"],
-                    f" against {_g(t.review_score)}: peers ",
-                    T["z1"],
-                    ", balance point ",
-                    T["zbp1"],
-                    ", intensity ",
-                    T["zint1"],
-                    "): recommend an audit",
-                    audit_end,
-                    plan,
+                say(
+                    "Heating is {ratio2}× what this building should need and the evidence of excess is strong (score "
+                    "{score1} against {review_score}: peers {z1}, balance point {zbp1}, intensity {zint1}): recommend "
+                    "an audit{audit_end}{plan}"
                 ),
             ),
             (ratio.is_null(), "No verdict: metered or expected heating is missing."),
