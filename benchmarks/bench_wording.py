@@ -13,6 +13,7 @@ this tree's, and the sentences of both are compared.
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import importlib.util
 import statistics
 import subprocess
@@ -88,6 +89,7 @@ def main() -> None:
     if ref is not None:
         runs["ref screen (sentences row by row)"] = []
     new = old = None
+    thr_dict = dataclasses.asdict(thr)
     for _ in range(a.repeat):
         t = time.perf_counter()
         s = screen.screen(frame, thr, plan=plan)
@@ -97,7 +99,7 @@ def main() -> None:
         runs["explain"].append(time.perf_counter() - t)
         if ref is not None:
             t = time.perf_counter()
-            old = ref.screen(frame, thr, plan=plan, **kw)
+            old = ref.screen(frame, thr_dict, plan=plan, **kw)  # the reference read the settings as a dict
             runs["ref screen (sentences row by row)"].append(time.perf_counter() - t)
     print(f"{a.n} buildings, medians of {a.repeat}:")
     for k, v in runs.items():
