@@ -28,34 +28,19 @@ sys.path.insert(0, str(ROOT / "benchmarks"))
 
 
 def _frame(n: int, work: Path):
+    """The frame ``screen.screen`` receives in a default run on the simulated portfolio in ``work`` (written
+    first, as bench_pipeline writes it), with the default thresholds and plan the run used."""
     import polars as pl
 
-    from screening import runner, screen
+    from screening import config
 
+    import audit_list
     import bench_pipeline
 
     if not (work / "buildings.csv").exists():
         bench_pipeline.generate(n, work)
-    kept = {}
-    orig = screen.screen
-
-    def keep(frame, thr, **kw):
-        kept["frame"], kept["thr"], kept["plan"] = frame, thr, kw.get("plan")
-        return orig(frame, thr, **kw)
-
-    screen.screen = keep
-    try:
-        overrides = {
-            "inputs": {k: str(work / f"{k}.csv") for k in ("buildings", "readings", "weather")},
-            "store": {"database": str(work / "bench.duckdb")},
-            "analysis": {"as_of": "2026-10-15"},
-            "output": {"sheets": False},
-        }
-        runner.run(overrides=overrides, out_dir=str(work / "out"), force=True, quiet=True)
-    finally:
-        screen.screen = orig
-    assert isinstance(kept["frame"], pl.DataFrame)
-    return kept["frame"], kept["thr"], kept["plan"]
+    audit_list.screen_full(work)  # one whole run; keeps the frame as work/frame.parquet
+    return pl.read_parquet(work / "frame.parquet"), config.thresholds(config.DEFAULTS), config.DEFAULTS["plan"]
 
 
 def _ref_screen(ref: str):
@@ -77,7 +62,7 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=5)
     ap.add_argument("--work", default=None)
     a = ap.parse_args()
-    work = Path(a.work or Path(tempfile.gettempdir()) / f"ddscreen-bench-wording-{a.n}")
+    work = Path(a.work or Path(tempfile.gettempdir()) / f"ddscreen-wording-n{a.n}")
     work.mkdir(parents=True, exist_ok=True)
     frame, thr, plan = _frame(a.n, work)
 

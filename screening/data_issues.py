@@ -174,28 +174,12 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
     odd = heat.filter(((pl.col("_q") >= factor) | (pl.col("_q") * factor <= 1)) & pl.col("_spike"))
     if odd.height == 0:
         return empty
-    odd = odd.sort("building_id", "period_start").with_columns(
-        (
-            pl.col("period_start").cast(pl.String)
-            + pl.lit("–")
-            + pl.col("period_end").cast(pl.String)
-            + pl.lit(" (")
-            + pl.col("_q").round(2).cast(pl.String)
-            + pl.lit("× the same month's median)")
-        ).alias("_d")
-    )
-    return (
-        odd.group_by("building_id")
-        .agg(pl.col("_d").str.join("; ").alias("detail"))
-        .select(
-            "building_id",
-            pl.lit("likely_unit_error").alias("code"),
-            (pl.lit("reading(s) about 10×, 100× or 1000× off the building's own history: ") + pl.col("detail")).alias(
-                "detail"
-            ),
-            pl.lit(True).alias("blocking"),
-        )
-        .sort("building_id")
+    return _odd_bills(
+        odd,
+        pl.col("_q"),
+        "the same month's median",
+        "likely_unit_error",
+        "reading(s) about 10×, 100× or 1000× off the building's own history: ",
     )
 
 
@@ -246,14 +230,27 @@ def fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float, 
     )
     if odd.height == 0:
         return empty
+    return _odd_bills(
+        odd,
+        pl.col("_upd") / pl.col("_pred"),
+        "what the building's weather fit predicts",
+        "bill_off_fit",
+        "bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
+        "after estimated reads, a meter change, or weeks the building stood empty): ",
+    )
+
+
+def _odd_bills(odd: pl.DataFrame, ratio: pl.Expr, against: str, code: str, head: str) -> pl.DataFrame:
+    """One blocking ``code`` issue per building, ``head`` then its odd bills in date order, each as
+    ``start–end (ratio× against)`` [-], joined by "; "."""
     odd = odd.sort("building_id", "period_start").with_columns(
         (
             pl.col("period_start").cast(pl.String)
             + pl.lit("–")
             + pl.col("period_end").cast(pl.String)
             + pl.lit(" (")
-            + (pl.col("_upd") / pl.col("_pred")).round(2).cast(pl.String)
-            + pl.lit("× what the building's weather fit predicts)")
+            + ratio.round(2).cast(pl.String)
+            + pl.lit(f"× {against})")
         ).alias("_d")
     )
     return (
@@ -261,14 +258,8 @@ def fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float, 
         .agg(pl.col("_d").str.join("; ").alias("detail"))
         .select(
             "building_id",
-            pl.lit("bill_off_fit").alias("code"),
-            (
-                pl.lit(
-                    "bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
-                    "after estimated reads, a meter change, or weeks the building stood empty): "
-                )
-                + pl.col("detail")
-            ).alias("detail"),
+            pl.lit(code).alias("code"),
+            (pl.lit(head) + pl.col("detail")).alias("detail"),
             pl.lit(True).alias("blocking"),
         )
         .sort("building_id")
