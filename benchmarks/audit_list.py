@@ -182,9 +182,7 @@ def rescreen(d: Path) -> pl.DataFrame:
     from screening import config, screen
 
     frame = pl.read_parquet(d / "frame.parquet")
-    res = screen.screen(
-        frame, dict(config.DEFAULTS["thresholds"]), plan=config.DEFAULTS["plan"], energy_factor=1.0, energy_unit="kBtu"
-    )
+    res = screen.screen(frame, config.Thresholds(), plan=config.DEFAULTS["plan"])
     return res.select(
         "building_id",
         "rank",

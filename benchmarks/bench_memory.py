@@ -106,7 +106,20 @@ def timed_run(work: Path, env: dict, chunk: int | None = None, out: str = "out")
 
 def staged(work: Path) -> None:
     """In-process: wrap the main steps, sample RSS every 10 ms, print per-step peaks (two runs)."""
-    from screening import cli, degree_days, envelope, ingest, metered, outputs, pipeline, screen, store, units
+    from screening import (
+        cli,
+        data_issues,
+        degree_days,
+        envelope,
+        ingest,
+        metered,
+        outputs,
+        pipeline,
+        screen,
+        store,
+        units,
+        yoy,
+    )
     from screening.runs import record
 
     current = ["start"]
@@ -153,9 +166,9 @@ def staged(work: Path) -> None:
         (metered, "metered_heating"),
         (envelope, "expected_heating"),
         (metered, "reading_issues"),
-        (pipeline, "_unit_error_issues"),
-        (pipeline, "_fit_outlier_issues"),
-        (pipeline, "_year_over_year"),
+        (data_issues, "unit_error_issues"),
+        (data_issues, "fit_outlier_issues"),
+        (yoy, "year_over_year"),
         (screen, "screen"),
         (outputs, "ranking_table"),
         (outputs, "write_csv"),

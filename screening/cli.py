@@ -135,6 +135,30 @@ class DegreeDayKind(str, Enum):
     both = "both"
 
 
+class Units(str, Enum):
+    """``--units``: :data:`screening.schema.UNIT_SYSTEMS` (tests/test_cli.py compares them); any case."""
+
+    IP = "IP"
+    SI = "SI"
+
+
+class DateOrder(str, Enum):
+    """``--date-order``: the ``[reading] date_order`` choices but "" (detect), which is the option left out."""
+
+    dmy = "dmy"
+    mdy = "mdy"
+    ymd = "ymd"
+
+
+class DegreeDayMethod(str, Enum):
+    """``degree-days --method``: :data:`screening.degree_days.METHODS` (tests/test_cli.py compares them)."""
+
+    mean = "mean"
+    maxmin = "maxmin"
+    hourly = "hourly"
+    monthly_estimate = "monthly-estimate"
+
+
 class PeriodBy(str, Enum):
     """``degree-days --by``: :data:`screening.ddtool.BY_CHOICES` (tests/test_cli.py compares them)."""
 
@@ -174,23 +198,14 @@ COLUMNS_HELP = (
 DATE_ORDER_HELP = "order of slash dates like 03/04/2025: dmy, mdy or ymd ([reading] date_order)"
 
 
-def _reading_overrides(overrides: dict, columns: list[str] | None, date_order: str | None) -> None:
+def _reading_overrides(overrides: dict, columns: list[str] | None, date_order: DateOrder | None) -> None:
     """--columns and --date-order into the config overrides (checked with the config)."""
     from .colmap import parse_option
 
     if columns:
         overrides.setdefault("inputs", {})["columns"] = parse_option(columns)
     if date_order is not None:
-        overrides.setdefault("reading", {})["date_order"] = date_order.strip().lower()
-
-
-def _date_order(value: str | None) -> str | None:
-    if value is None:
-        return None
-    v = value.strip().lower()
-    if v not in ("dmy", "mdy", "ymd"):
-        raise typer.BadParameter(f"got {value!r}; expected dmy, mdy or ymd", param_hint="--date-order")
-    return v
+        overrides.setdefault("reading", {})["date_order"] = date_order.value
 
 
 @app.command()
@@ -206,14 +221,18 @@ def run(
     as_of: Annotated[Optional[str], typer.Option("--as-of", help="YYYY-MM-DD; default today")] = None,
     date_from: Annotated[Optional[str], typer.Option("--from", help="window start YYYY-MM-DD")] = None,
     date_to: Annotated[Optional[str], typer.Option("--to", help="window end YYYY-MM-DD (inclusive)")] = None,
-    units: Annotated[Optional[str], typer.Option(help="IP or SI (units of inputs and outputs)")] = None,
+    units: Annotated[
+        Optional[Units], typer.Option(case_sensitive=False, help="IP or SI (units of inputs and outputs)")
+    ] = None,
     config: Annotated[Optional[str], typer.Option(help="TOML config file")] = None,
     force: Annotated[bool, typer.Option(help="reload every input and replace an existing quarter")] = False,
     no_sheets: Annotated[bool, typer.Option("--no-sheets", help="skip the per-building PDF sheets")] = False,
     quiet: Annotated[bool, typer.Option(help="errors only (for cron)")] = False,
     verbose: Annotated[bool, typer.Option(help="more detail on stderr")] = False,
     columns: Annotated[Optional[list[str]], typer.Option("--columns", help=COLUMNS_HELP)] = None,
-    date_order: Annotated[Optional[str], typer.Option("--date-order", help=DATE_ORDER_HELP)] = None,
+    date_order: Annotated[
+        Optional[DateOrder], typer.Option("--date-order", case_sensitive=False, help=DATE_ORDER_HELP)
+    ] = None,
 ):
     """Load the files, screen the portfolio and write ranking.csv, ranking.pdf, sheets/ and summary.json."""
     from . import runner
@@ -226,7 +245,7 @@ def run(
             "as_of": as_of,
             "window_from": date_from,
             "window_to": date_to,
-            "units": units.upper() if units else None,
+            "units": units.value if units else None,
         },
         "output": {"sheets": False if no_sheets else None},
     }
@@ -262,10 +281,12 @@ def validate(
     buildings: Annotated[Optional[str], typer.Option(help="buildings file (default: [inputs] of --config)")] = None,
     readings: Annotated[Optional[str], typer.Option(help="readings file (default: [inputs] of --config)")] = None,
     weather: Annotated[Optional[str], typer.Option(help="daily weather file (default: [inputs] of --config)")] = None,
-    units: Annotated[Optional[str], typer.Option(help="IP or SI")] = None,
+    units: Annotated[Optional[Units], typer.Option(case_sensitive=False, help="IP or SI")] = None,
     config: Annotated[Optional[str], typer.Option(help="TOML config file")] = None,
     columns: Annotated[Optional[list[str]], typer.Option("--columns", help=COLUMNS_HELP)] = None,
-    date_order: Annotated[Optional[str], typer.Option("--date-order", help=DATE_ORDER_HELP)] = None,
+    date_order: Annotated[
+        Optional[DateOrder], typer.Option("--date-order", case_sensitive=False, help=DATE_ORDER_HELP)
+    ] = None,
     events: Annotated[Optional[str], typer.Option(help="optional events CSV (or glob) to check too")] = None,
 ):
     """Check the three files (and an events file) and print every problem; load nothing. Exit 0 when clean,
@@ -277,7 +298,7 @@ def validate(
     from . import runner
 
     with _mapped_errors():
-        overrides = {"analysis": {"units": units.upper() if units else None}}
+        overrides = {"analysis": {"units": units.value if units else None}}
         _reading_overrides(overrides, columns, date_order)
         v = runner.validate(buildings, readings, weather, config_path=config, overrides=overrides, events=events)
     for n in v.notices:
@@ -302,7 +323,9 @@ def degree_days(
     station: Annotated[str, typer.Option(help="station id")],
     base: Annotated[float, typer.Option(help="base temperature (°F for IP, °C for SI)")] = 65.0,
     kind: Annotated[DegreeDayKind, typer.Option(help="hdd, cdd or both")] = DegreeDayKind.both,
-    method: Annotated[str, typer.Option(help="mean, maxmin, hourly or monthly-estimate")] = "mean",
+    method: Annotated[
+        DegreeDayMethod, typer.Option(help="mean, maxmin, hourly or monthly-estimate")
+    ] = DegreeDayMethod.mean,
     by: Annotated[PeriodBy, typer.Option(help="day, month, year or period")] = PeriodBy.month,
     periods: Annotated[Optional[str], typer.Option(help="CSV of periods (start, end) for --by period")] = None,
     hourly: Annotated[
@@ -311,12 +334,14 @@ def degree_days(
     date_from: Annotated[Optional[str], typer.Option("--from", help="first day YYYY-MM-DD")] = None,
     date_to: Annotated[Optional[str], typer.Option("--to", help="last day YYYY-MM-DD (inclusive)")] = None,
     normal: Annotated[bool, typer.Option(help="normal-year values from the complete years")] = False,
-    units: Annotated[str, typer.Option(help="IP or SI")] = "IP",
+    units: Annotated[Units, typer.Option(case_sensitive=False, help="IP or SI")] = Units.IP,
     fmt: Annotated[OutputFormat, typer.Option("--format", help="csv or table")] = OutputFormat.csv,
     rounding: Annotated[
         bool, typer.Option(help="round each daily mean half up first, as weather services publish")
     ] = False,
-    date_order: Annotated[Optional[str], typer.Option("--date-order", help=DATE_ORDER_HELP)] = None,
+    date_order: Annotated[
+        Optional[DateOrder], typer.Option("--date-order", case_sensitive=False, help=DATE_ORDER_HELP)
+    ] = None,
 ):
     """Degree days of one station, to stdout (notices on stderr)."""
     from . import ddtool
@@ -328,17 +353,17 @@ def degree_days(
             station,
             base=base,
             kind=kind.value,
-            method=method,
+            method=method.value,
             by=by.value,
             periods_path=periods,
             date_from=date_from,
             date_to=date_to,
             normal=normal,
-            units=units.upper(),
+            units=units.value,
             hourly_path=hourly,
             rounding=rounding,
             notices=notices,
-            date_order=_date_order(date_order),
+            date_order=date_order.value if date_order else None,
         )
     for n in notices:
         typer.echo(n if n.startswith("warning:") else f"notice: {n}", err=True)

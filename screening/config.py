@@ -180,9 +180,9 @@ class Emissions:
     )
 
 
-@dataclass
+@dataclass(frozen=True)
 class Thresholds:
-    """[thresholds]"""
+    """[thresholds] (frozen: built once per screening by :func:`thresholds` and passed to every step)"""
 
     band_ratio: float = setting(
         1.0, "metered above expected_high × this → above the band", range=(0.5, 5.0, "a factor")
@@ -422,6 +422,11 @@ CHOICES: dict[tuple[str, str], tuple[tuple[str, ...], str]] = {
 def settings(cfg: dict) -> Settings:
     """The typed view of a config dict (as :func:`load` returns it)."""
     return Settings(**{s: cls(**cfg[s]) for s, cls in SECTIONS.items()})
+
+
+def thresholds(cfg: dict) -> Thresholds:
+    """The ``[thresholds]`` settings of a config dict (as :func:`load` returns it) as the frozen :class:`Thresholds`."""
+    return Thresholds(**cfg["thresholds"])
 
 
 def template_comments() -> dict[tuple[str, str], str]:

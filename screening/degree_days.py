@@ -50,6 +50,7 @@ import mmap
 import warnings
 from dataclasses import dataclass, field
 from datetime import date as _date
+from collections.abc import Callable
 from typing import cast
 
 import numpy as np
@@ -531,10 +532,10 @@ class DegreeDayCube:
         ValueError
             Missing columns, duplicate station/date rows, t_min > t_max, bad method.
         """
-        _check_method(method)
-        if method == "hourly":
-            raise ValueError("method 'hourly' needs hourly readings: use DegreeDayCube.from_hourly")
-        if rounding and method != "mean":
+        kernel = KERNELS[_check_method(method)]
+        if kernel.from_daily is None:
+            raise ValueError(f"method {method!r} needs hourly readings: use DegreeDayCube.from_hourly")
+        if rounding and not kernel.rounds:
             raise ValueError(f"rounding applies to the 'mean' method only; got method {method!r}")
         bases = _as_bases(bases_f)
         w = _prepare_daily(weather)
@@ -547,19 +548,7 @@ class DegreeDayCube:
         tmax[flat] = w["t_max_f"].to_numpy()
         tmin[flat] = w["t_min_f"].to_numpy()
         tmean[flat] = w["t_mean_f"].to_numpy()
-        both = ~np.isnan(tmax) & ~np.isnan(tmin)
-        extra: dict = {}
-        if method == "mean":
-            tm = np.where(both, (tmax + tmin) / 2.0, tmean)
-            if rounding:
-                tm = np.where(both, nws_round_mean(tmax, tmin), np.floor(tmean + 0.5))
-        elif method == "maxmin":
-            tm = np.where(both, (tmax + tmin) / 2.0, np.nan)
-            extra["tmax"] = np.where(both, tmax, np.nan)
-            extra["tmin"] = np.where(both, tmin, np.nan)
-        else:  # monthly-estimate
-            tm_day = np.where(both, (tmax + tmin) / 2.0, tmean)
-            tm, extra = _monthly_from_daily(tm_day, layout)
+        tm, extra = kernel.from_daily(tmax, tmin, tmean, layout, rounding)
         return cls._finish(bases, layout, method, rounding, tm, extra)
 
     @classmethod
@@ -680,39 +669,7 @@ class DegreeDayCube:
         # (a loop over the ≤ ~100 bases, each step vectorized over all stations × days)
         cum = _alloc_f64((bases.size, n_flat + 1))
         cum[:, 0] = 0.0
-        if self.method == "mean":
-            t_inf = np.where(valid, tm, np.inf)  # a missing day contributes max(0, b − ∞) = 0
-            for j, b in enumerate(bases):
-                row = cum[j, 1:]
-                np.subtract(b, t_inf, out=row)
-                np.maximum(row, 0.0, out=row)
-                np.cumsum(cum[j], out=cum[j])
-        elif self.method == "maxmin":
-            # Met Office HDD as a sum of ramps: ¼(b − Tmin)⁺ + ½(b − Tm)⁺ + ¼(b − Tmax)⁺ (see _maxmin_hdd)
-            lo = np.where(valid, extra["tmin"], np.inf)
-            mid = np.where(valid, tm, np.inf)
-            hi = np.where(valid, extra["tmax"], np.inf)
-            tmp = np.empty(n_flat)
-            for j, b in enumerate(bases):
-                row = cum[j, 1:]
-                np.subtract(b, lo, out=row)
-                np.maximum(row, 0.0, out=row)
-                for t, w in ((mid, 2.0), (hi, 1.0)):
-                    np.subtract(b, t, out=tmp)
-                    np.maximum(tmp, 0.0, out=tmp)
-                    if w != 1.0:
-                        tmp *= w
-                    row += tmp
-                row *= 0.25
-                np.cumsum(cum[j], out=cum[j])
-        else:
-            width = extra["hourly"].shape[1] if "hourly" in extra else 1
-            chunk = max(1, 4_000_000 // width)
-            for j, b in enumerate(bases):
-                for a in range(0, n_flat, chunk):  # chunks only bound memory (hourly)
-                    idx = np.arange(a, min(a + chunk, n_flat))
-                    cum[j, 1 + a : 1 + a + idx.size] = self._hdd_days(idx, b)
-                np.cumsum(cum[j], out=cum[j])
+        KERNELS[self.method].cumulate(self, cum)
         self.cum_hdd = cum
         self.cum_tm = np.concatenate([[0.0], np.cumsum(np.where(valid, tm, 0.0))])
         self.cum_valid = np.concatenate([[0], np.cumsum(valid, dtype=np.int64)])
@@ -727,38 +684,7 @@ class DegreeDayCube:
         base = np.asarray(base, dtype=np.float64)
         grid = base.ndim == 2 and idx.ndim == 1
         ix = idx[:, None] if grid else idx
-        m = self.method
-        if m == "mean":
-            out = base - self.tm[ix]
-            out = np.maximum(out, 0.0)
-        elif m == "maxmin":
-            out = _maxmin_hdd(self.extra["tmax"][ix], self.extra["tmin"][ix], base)
-        elif m == "hourly":
-            r = self.extra["hourly"][idx]  # (..., width); all-NaN rows are missing days
-            with warnings.catch_warnings():
-                warnings.simplefilter("ignore", RuntimeWarning)  # "Mean of empty slice" on missing days
-                if grid:  # base (1, nb), r (n, w) → (n, nb)
-                    out = (
-                        np.nanmean(np.maximum(base[:, :, None] - r[:, None, :], 0.0), axis=-1)
-                        if r.shape[0]
-                        else np.zeros((0, base.shape[1]))
-                    )
-                else:  # base like idx, r (..., w)
-                    out = np.nanmean(np.maximum(base[..., None] - r, 0.0), axis=-1)
-        else:  # monthly-estimate: the month's Erbs estimate spread evenly over its days
-            ex = self.extra
-            tmc = f_to_c(self.tm[ix])
-            n = ex["month_days"][ix]
-            s = ex["sigma_yr_c"][ix]
-            safe = ~np.isnan(tmc)
-            with np.errstate(invalid="ignore"):
-                out = (
-                    erbs_monthly_hdd(
-                        np.where(safe, tmc, 0.0), np.where(safe, n, 1.0), f_to_c(base), np.where(safe, s, 0.0)
-                    )
-                    * F_PER_C
-                    / np.where(safe, n, 1.0)
-                )
+        out = KERNELS[self.method].hdd_days(self, idx, ix, base, grid)
         out = np.where(self.valid[ix], out, 0.0)
         return np.asarray(out, dtype=np.float64)
 
@@ -934,7 +860,7 @@ class DegreeDayCube:
     @property
     def estimated(self) -> bool:
         """True for the ``monthly-estimate`` method: its degree days are estimates, to be marked so."""
-        return self.method == "monthly-estimate"
+        return KERNELS[self.method].estimate
 
     def record(self) -> pl.DataFrame:
         """Each station's record: station_id, first_date, last_date, days, days_with_data."""
@@ -948,6 +874,149 @@ class DegreeDayCube:
                 "days_with_data": self.cum_valid[end] - self.cum_valid[self.offset],
             }
         )
+
+
+# ---------------------------------------------------------------------------- one kernel per method
+# Each method's three steps, chosen by name through :data:`KERNELS` (no if/elif on the method string):
+# ``from_daily(tmax, tmin, tmean, layout, rounding) -> (tm, extra)`` turns daily station data into the
+# method's daily mean and per-day extras (None: the method cannot be built from daily data);
+# ``cumulate(cube, cum)`` fills the (n_bases, n_flat + 1) running sums at every grid base;
+# ``hdd_days(cube, idx, ix, base, grid)`` gives the daily HDD of flat days (before missing days are zeroed).
+
+
+def _mean_from_daily(tmax, tmin, tmean, layout, rounding):
+    """Tm = (t_max + t_min)/2 where both are given, else t_mean [°F]; rounded as published with ``rounding``."""
+    both = ~np.isnan(tmax) & ~np.isnan(tmin)
+    tm = np.where(both, (tmax + tmin) / 2.0, tmean)
+    if rounding:
+        tm = np.where(both, nws_round_mean(tmax, tmin), np.floor(tmean + 0.5))
+    return tm, {}
+
+
+def _maxmin_from_daily(tmax, tmin, tmean, layout, rounding):
+    """Tm = (t_max + t_min)/2; a day without both is missing; t_max and t_min kept for the Met Office ramps."""
+    both = ~np.isnan(tmax) & ~np.isnan(tmin)
+    tm = np.where(both, (tmax + tmin) / 2.0, np.nan)
+    return tm, {"tmax": np.where(both, tmax, np.nan), "tmin": np.where(both, tmin, np.nan)}
+
+
+def _monthly_estimate_from_daily(tmax, tmin, tmean, layout, rounding):
+    """The Erbs estimate's inputs from each calendar month's mean of the daily means (:func:`_monthly_from_daily`)."""
+    both = ~np.isnan(tmax) & ~np.isnan(tmin)
+    tm_day = np.where(both, (tmax + tmin) / 2.0, tmean)
+    return _monthly_from_daily(tm_day, layout)
+
+
+def _mean_cumulate(cube, cum):
+    """Running sums of (b − Tm)⁺ per grid base b [°F·day]."""
+    valid, tm, bases = cube.valid, cube.tm, cube.bases_f
+    t_inf = np.where(valid, tm, np.inf)  # a missing day contributes max(0, b − ∞) = 0
+    for j, b in enumerate(bases):
+        row = cum[j, 1:]
+        np.subtract(b, t_inf, out=row)
+        np.maximum(row, 0.0, out=row)
+        np.cumsum(cum[j], out=cum[j])
+
+
+def _maxmin_cumulate(cube, cum):
+    """Running sums of the Met Office daily HDD per grid base [°F·day]."""
+    valid, tm, bases, extra = cube.valid, cube.tm, cube.bases_f, cube.extra
+    n_flat = tm.size
+    # Met Office HDD as a sum of ramps: ¼(b − Tmin)⁺ + ½(b − Tm)⁺ + ¼(b − Tmax)⁺ (see _maxmin_hdd)
+    lo = np.where(valid, extra["tmin"], np.inf)
+    mid = np.where(valid, tm, np.inf)
+    hi = np.where(valid, extra["tmax"], np.inf)
+    tmp = np.empty(n_flat)
+    for j, b in enumerate(bases):
+        row = cum[j, 1:]
+        np.subtract(b, lo, out=row)
+        np.maximum(row, 0.0, out=row)
+        for t, w in ((mid, 2.0), (hi, 1.0)):
+            np.subtract(b, t, out=tmp)
+            np.maximum(tmp, 0.0, out=tmp)
+            if w != 1.0:
+                tmp *= w
+            row += tmp
+        row *= 0.25
+        np.cumsum(cum[j], out=cum[j])
+
+
+def _by_day_cumulate(cube, cum):
+    """Running sums of the method's daily HDD (:attr:`Kernel.hdd_days`) per grid base, in chunks of days."""
+    extra, bases = cube.extra, cube.bases_f
+    n_flat = cube.tm.size
+    width = extra["hourly"].shape[1] if "hourly" in extra else 1
+    chunk = max(1, 4_000_000 // width)
+    for j, b in enumerate(bases):
+        for a in range(0, n_flat, chunk):  # chunks only bound memory (hourly)
+            idx = np.arange(a, min(a + chunk, n_flat))
+            cum[j, 1 + a : 1 + a + idx.size] = cube._hdd_days(idx, b)
+        np.cumsum(cum[j], out=cum[j])
+
+
+def _mean_days(cube, idx, ix, base, grid):
+    """(base − Tm)⁺ [°F·day]."""
+    out = base - cube.tm[ix]
+    out = np.maximum(out, 0.0)
+    return out
+
+
+def _maxmin_days(cube, idx, ix, base, grid):
+    """The Met Office daily HDD from t_max and t_min (:func:`_maxmin_hdd`) [°F·day]."""
+    out = _maxmin_hdd(cube.extra["tmax"][ix], cube.extra["tmin"][ix], base)
+    return out
+
+
+def _hourly_days(cube, idx, ix, base, grid):
+    """The mean of (base − T_h)⁺ over the day's readings (:func:`hourly_dd`) [°F·day]."""
+    r = cube.extra["hourly"][idx]  # (..., width); all-NaN rows are missing days
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)  # "Mean of empty slice" on missing days
+        if grid:  # base (1, nb), r (n, w) → (n, nb)
+            out = (
+                np.nanmean(np.maximum(base[:, :, None] - r[:, None, :], 0.0), axis=-1)
+                if r.shape[0]
+                else np.zeros((0, base.shape[1]))
+            )
+        else:  # base like idx, r (..., w)
+            out = np.nanmean(np.maximum(base[..., None] - r, 0.0), axis=-1)
+    return out
+
+
+def _monthly_estimate_days(cube, idx, ix, base, grid):
+    """The month's Erbs estimate (:func:`erbs_monthly_hdd`) spread evenly over its days [°F·day]."""
+    ex = cube.extra
+    tmc = f_to_c(cube.tm[ix])
+    n = ex["month_days"][ix]
+    s = ex["sigma_yr_c"][ix]
+    safe = ~np.isnan(tmc)
+    with np.errstate(invalid="ignore"):
+        out = (
+            erbs_monthly_hdd(np.where(safe, tmc, 0.0), np.where(safe, n, 1.0), f_to_c(base), np.where(safe, s, 0.0))
+            * F_PER_C
+            / np.where(safe, n, 1.0)
+        )
+    return out
+
+
+@dataclass(frozen=True)
+class Kernel:
+    """One degree-day method's steps (see the notes above :func:`_mean_from_daily`)."""
+
+    from_daily: Callable | None
+    cumulate: Callable
+    hdd_days: Callable
+    rounds: bool = False  # the published rounding of the daily mean applies (mean method only)
+    estimate: bool = False  # its degree days are estimates, to be marked so
+
+
+#: method name -> its kernel; the names are :data:`METHODS`
+KERNELS: dict[str, Kernel] = {
+    "mean": Kernel(_mean_from_daily, _mean_cumulate, _mean_days, rounds=True),
+    "maxmin": Kernel(_maxmin_from_daily, _maxmin_cumulate, _maxmin_days),
+    "hourly": Kernel(None, _by_day_cumulate, _hourly_days),
+    "monthly-estimate": Kernel(_monthly_estimate_from_daily, _by_day_cumulate, _monthly_estimate_days, estimate=True),
+}
 
 
 def _alloc_f64(shape: tuple[int, int]) -> np.ndarray:
@@ -1482,3 +1551,19 @@ def degree_day_table(
         }
     )
     return df.sort("station_id", "period_start", "period_end", maintain_order=True)
+
+
+def nearest_base(grid: np.ndarray, base: np.ndarray) -> np.ndarray:
+    """Index of the grid base nearest to each ``base`` (the lower one on a tie, 0 for NaN).
+
+    The same as ``np.abs(grid[None, :] - base[:, None]).argmin(axis=1)`` for an ascending grid,
+    without the (rows × bases) temporary.
+    """
+    grid = np.asarray(grid, dtype=float)
+    base = np.asarray(base, dtype=float)
+    if grid.size < 2:
+        return np.zeros(base.shape, dtype=np.intp)
+    hi = np.clip(np.searchsorted(grid, base), 1, grid.size - 1)
+    lo = hi - 1
+    j = np.where(np.abs(grid[lo] - base) <= np.abs(grid[hi] - base), lo, hi)
+    return np.where(np.isnan(base), 0, j)

@@ -20,46 +20,19 @@ import polars as pl
 
 from . import degree_days as ddm
 from . import envelope as env
-from . import metered, refdata, screen, units
+from . import config, data_issues, metered, refdata, screen, units, wording, yoy
+
+# the old names, re-exported for callers that read them here (outputs.py)
+from .data_issues import DATA_ISSUE_CODES, ISSUE_TEXT, NO_BASIS_CODES, PIPELINE_ISSUE_CODES  # noqa: F401
+from .degree_days import nearest_base
 from .errors import ConfigError, InputError
-from .schema import KBTU_TO_KWH, issue_codes
+from .schema import KBTU_TO_KWH
 from .ingest import REJECT_SCHEMA, Loaded, ReadOptions, read_buildings, read_readings
 from .csvread import split_sheet, unreadable
 from .store import Store
 from .weather import read_daily_weather
 
 KINDS = ("buildings", "readings", "weather")
-
-
-#: Plain texts of the data issues found here (the per-reading ones are in :mod:`screening.metered`;
-#: README "Data issues" lists every code).
-ISSUE_TEXT = {
-    "no_readings": "no usable readings for this building",
-    "no_heating_fuel_readings": (
-        "readings only in {fuels}, none in the building's heating fuel {heating_fuel}: "
-        "check heating_fuel in the buildings file or the fuel column of the readings"
-    ),
-    "no_weather_at_station": (
-        "station {station_id} has no weather on any day of the span {span_start} to "
-        "{span_end} ({record}): add that station's weather for these dates, or correct "
-        "the building's station_id"
-    ),
-    "missing_bills": (
-        "no heating-fuel bill for {gaps} inside the analysis window {window_start} to {window_end}: "
-        "obtain the missing bills (or readings) and rerun"
-    ),
-    "end_days_filled": (
-        "no reading yet for the last {days} day(s) of the span, {fill_start} to {span_end}: filled "
-        "from {source} ({share} % of the span's use)"
-    ),
-}
-#: Every data-issue code found here, beside the per-reading ones of :data:`screening.metered.ISSUE_CODES`,
-#: and whether it blocks a verdict. :data:`DATA_ISSUE_CODES` is the one list of data issues (README
-#: "Data issues"); flags are :data:`screening.schema.FLAGS`. All declared in :data:`screening.schema.DATA_ISSUES`.
-PIPELINE_ISSUE_CODES = issue_codes("pipeline")
-DATA_ISSUE_CODES = {**metered.ISSUE_CODES, **PIPELINE_ISSUE_CODES}
-#: Issues that leave no basis for a ratio: no likely_unit_error is claimed beside them.
-NO_BASIS_CODES = ("no_readings", "no_heating_fuel_readings", "no_weather_at_station")
 
 
 # ---------------------------------------------------------------------------- loading
@@ -253,22 +226,6 @@ _CONV_KEEP = (
 )
 
 
-def nearest_base(grid: np.ndarray, base: np.ndarray) -> np.ndarray:
-    """Index of the grid base nearest to each ``base`` (the lower one on a tie, 0 for NaN).
-
-    The same as ``np.abs(grid[None, :] - base[:, None]).argmin(axis=1)`` for an ascending grid,
-    without the (rows × bases) temporary.
-    """
-    grid = np.asarray(grid, dtype=float)
-    base = np.asarray(base, dtype=float)
-    if grid.size < 2:
-        return np.zeros(base.shape, dtype=np.intp)
-    hi = np.clip(np.searchsorted(grid, base), 1, grid.size - 1)
-    lo = hi - 1
-    j = np.where(np.abs(grid[lo] - base) <= np.abs(grid[hi] - base), lo, hi)
-    return np.where(np.isnan(base), 0, j)
-
-
 class _PeriodHdd:
     """Degree days of each billing period at every grid base, computed for the rows asked for.
 
@@ -319,7 +276,7 @@ def chunk_size(chunk_buildings: int, n_buildings: int, fit_block: int | None = N
 class ReadingsSource(ABC):
     """Where a screening gets the readings of a chunk of buildings (the readings rows of the canonical
     frame, one row per key): an interface, implemented by :class:`FrameReadings` (a frame in memory) and
-    ``runner.StoreReadings`` (the store)."""
+    ``runs.inputs.StoreReadings`` (the store)."""
 
     @abstractmethod
     def __call__(self, ids: pl.Series) -> pl.DataFrame:
@@ -376,235 +333,6 @@ def _unknown_building_rejects(bad_r: pl.DataFrame, paths: dict) -> pl.DataFrame:
     ).cast(REJECT_SCHEMA)
 
 
-#: The unit mix-ups each heating fuel's bills are prone to, named in the likely_unit_error detail (our own
-#: list, common practice in bill checking).
-UNIT_MIXUPS: dict[str, str] = {
-    "natural_gas": "therm against ccf or Mcf, kBtu against MMBtu",
-    "electricity": "kWh against MWh or Wh",
-    "fuel_oil": "gallons against litres",
-    "propane": "gallons against litres or lb",
-    "district_steam": "lb against Mlb",
-    "district_hot_water": "kBtu against MMBtu",
-}
-
-
-def _unit_error_issues(
-    conv: pl.DataFrame, b: pl.DataFrame, factor: float, *, isolation: float = 1.0, block: int = 16384
-) -> pl.DataFrame:
-    """:func:`_unit_error_issues_block` over blocks of ``block`` buildings (each issue is one building's;
-    the blocks bound the memory of the window statistics over every reading)."""
-    if b.height <= block:
-        return _unit_error_issues_block(conv, b, factor, isolation)
-    ids = b["building_id"]
-    parts = [
-        _unit_error_issues_block(
-            conv.filter(pl.col("building_id").is_in(ids.slice(a, block).implode())),
-            b.slice(a, block),
-            factor,
-            isolation,
-        )
-        for a in range(0, b.height, block)
-    ]
-    return pl.concat(parts).sort("building_id")
-
-
-#: a bill this many times off (or 1/this of) what was expected of it is a data fault even when its neighbours are
-#: off too: no operation multiplies a month's use by it (waste that began measured up to ×20 in a shoulder month
-#: on the outside world, seeds 3 and 4), and it keeps ×100 and ×1000 errors in a run of bills (our own margin)
-UNIT_ERROR_FACTOR_ANY = 50.0
-
-
-def _spike(q: pl.Expr, over: list[str], isolation: float) -> pl.Expr:
-    """A bill off by ``q`` [-] (its use against what was expected of it) that its neighbouring bills do not share.
-
-    ``q`` is compared with the previous and the next bill of the same series (``over``, in time order;
-    a missing neighbour or one with no ``q`` counts as 1): the bill must stand ``isolation`` times apart
-    from both, in its own direction, or be ``UNIT_ERROR_FACTOR_ANY`` times off on its own. A lost decimal
-    point, a wrong unit on one bill or a catch-up after estimated reads is a spike; waste that began, or a
-    building that changed, moves a run of bills together (a step), which this leaves to the comparisons of
-    the whole span.
-    """
-    prev = q.shift(1).over(over).fill_null(1.0)
-    nxt = q.shift(-1).over(over).fill_null(1.0)
-    hi = (q >= isolation * prev) & (q >= isolation * nxt)
-    lo = (q * isolation <= prev) & (q * isolation <= nxt)
-    far = (q >= UNIT_ERROR_FACTOR_ANY) | (q * UNIT_ERROR_FACTOR_ANY <= 1)
-    return (pl.when(q >= 1).then(hi).otherwise(lo) | far).fill_null(False)
-
-
-def _unit_error_issues_block(
-    conv: pl.DataFrame, b: pl.DataFrame, factor: float, isolation: float = 1.0
-) -> pl.DataFrame:
-    """Readings that differ from the same calendar month of other years by ≥ ``factor``, as a spike.
-
-    A factor of about 10, 100 or 1000 between years of one meter is the mark of a
-    unit or entry error (therm vs ccf ×1.036 is too small to see; kBtu vs MMBtu is 1000).
-    Such a reading must also stand ``isolation`` × apart from the meter's previous and next
-    readings' own ratios (:func:`_spike`): a run of months off together is a step (waste that
-    began), which the ratio of the whole span to the expectation judges instead.
-    """
-    empty = pl.DataFrame(
-        schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
-    )
-    heat = (
-        conv.select("building_id", "meter_id", "fuel", "period_start", "period_end", "days", "energy_kbtu")
-        .join(b.select("building_id", "heating_fuel"), on="building_id")
-        .filter((pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
-    )
-    if heat.height == 0:
-        return empty
-    mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
-    heat = heat.with_columns((pl.col("energy_kbtu") / pl.col("days")).alias("_upd"), mid.dt.month().alias("_m"))
-    # only months of substantial use: summer use of a heating fuel varies by large factors on its own
-    heat = heat.with_columns(pl.col("_upd").median().over("building_id", "meter_id").alias("_mmed"))
-    heat = heat.with_columns((pl.col("_upd") >= 0.5 * pl.col("_mmed")).alias("_big"))
-    big = pl.col("_upd").filter(pl.col("_big"))
-    grp = ["building_id", "meter_id", "_m"]
-    heat = heat.with_columns(
-        big.median().over(grp).alias("_med"),
-        big.count().over(grp).alias("_n"),
-        big.sum().over(grp).alias("_sum"),
-        pl.col("_upd").count().over(grp).alias("_n_all"),
-        pl.col("_upd").sum().over(grp).alias("_sum_all"),
-        pl.col("_upd").median().over(grp).alias("_med_all"),
-    )
-    # the reading against the same month of the other years: their median; with two readings the
-    # median sits between them, so each is compared with the other. A month of substantial use whose
-    # other years were small (a summer bill ×100) is compared with all of them, and counts only from
-    # UNIT_ERROR_FACTOR_ANY on and at `factor` × the meter's median month: summer use varies by large
-    # factors on its own (heating in warm weather that began on a heating-only fuel: ×124 on the
-    # simulator, seed 707), but never above the winter's bills
-    own = (
-        pl.when(pl.col("_n") == 2)
-        .then(pl.col("_upd") / (pl.col("_sum") - pl.col("_upd")))
-        .otherwise(pl.col("_upd") / pl.col("_med"))
-    )
-    all_ = (
-        pl.when(pl.col("_n_all") == 2)
-        .then(pl.col("_upd") / (pl.col("_sum_all") - pl.col("_upd")))
-        .otherwise(pl.col("_upd") / pl.col("_med_all"))
-    )
-    q = (
-        pl.when(pl.col("_big") & (pl.col("_n") >= 2) & (pl.col("_med") > 0) & (pl.col("_upd") > 0))
-        .then(own)
-        .when(
-            pl.col("_big")
-            & (pl.col("_n_all") >= 2)
-            & (pl.col("_med_all") > 0)
-            & (pl.col("_upd") > 0)
-            & (all_ >= UNIT_ERROR_FACTOR_ANY)
-            & (pl.col("_upd") >= factor * pl.col("_mmed"))
-        )
-        .then(all_)
-    )
-    heat = heat.sort("building_id", "meter_id", "period_start").with_columns(q.alias("_q"))
-    heat = heat.with_columns(_spike(pl.col("_q"), ["building_id", "meter_id"], isolation).alias("_spike"))
-    odd = heat.filter(((pl.col("_q") >= factor) | (pl.col("_q") * factor <= 1)) & pl.col("_spike"))
-    if odd.height == 0:
-        return empty
-    odd = odd.sort("building_id", "period_start").with_columns(
-        (
-            pl.col("period_start").cast(pl.String)
-            + pl.lit("–")
-            + pl.col("period_end").cast(pl.String)
-            + pl.lit(" (")
-            + pl.col("_q").round(2).cast(pl.String)
-            + pl.lit("× the same month's median)")
-        ).alias("_d")
-    )
-    return (
-        odd.group_by("building_id")
-        .agg(pl.col("_d").str.join("; ").alias("detail"))
-        .select(
-            "building_id",
-            pl.lit("likely_unit_error").alias("code"),
-            (pl.lit("reading(s) about 10×, 100× or 1000× off the building's own history: ") + pl.col("detail")).alias(
-                "detail"
-            ),
-            pl.lit(True).alias("blocking"),
-        )
-        .sort("building_id")
-    )
-
-
-def _fit_outlier_issues(
-    periods: pl.DataFrame, met: pl.DataFrame, factor: float, isolation: float = 1.0
-) -> pl.DataFrame:
-    """Bills far off the building's own weather fit (code ``bill_off_fit``, blocking).
-
-    Each fitted bill's use per day is compared with what the building's variable-base fit
-    predicts for its degree days, ``α + β·HDD(τ)/day`` [kBtu/day]. A bill at ≥ ``factor`` × the
-    prediction, or at ≤ 1/``factor`` of it, is flagged when the larger of the two is substantial
-    (at least half the building's median bill per day): summer use varies by large factors on
-    its own, winter-sized use in a summer bill does not. The same-month comparison across years
-    (:func:`_unit_error_issues`) misses a summer bill, whose other years are too small to count.
-    The bill must also stand ``isolation`` × apart from its neighbours' own ratios to the fit
-    (:func:`_spike`): when waste begins inside the fitted months, the fit mixes before and after,
-    and a whole run of bills sits off it together (a step, not a data fault).
-    """
-    empty = pl.DataFrame(
-        schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
-    )
-    if periods.height == 0 or "hdd_per_day_fit" not in periods.columns:
-        return empty
-    fit = met.filter(pl.col("fit_method") == "regression").select(
-        "building_id",
-        pl.col("baseload_kbtu_per_day").fill_null(0.0).alias("_a"),
-        pl.col("heating_slope_kbtu_per_dd").fill_null(0.0).alias("_b"),
-    )
-    p = (
-        periods.filter(pl.col("usable"))
-        .join(fit, on="building_id", how="inner")
-        .with_columns(
-            (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
-            (pl.col("_a") + pl.col("_b") * pl.col("hdd_per_day_fit")).alias("_pred"),
-        )
-    )
-    p = p.sort("building_id", "period_start", "period_end").with_columns(
-        pl.col("_upd").median().over("building_id").alias("_bmed"),
-        pl.when((pl.col("_pred") > 0) & (pl.col("_upd") > 0)).then(pl.col("_upd") / pl.col("_pred")).alias("_q"),
-    )
-    p = p.with_columns(_spike(pl.col("_q"), ["building_id"], isolation).alias("_spike"))
-    odd = p.filter(
-        (pl.col("_pred") > 0)
-        & (pl.col("_upd") > 0)
-        & pl.col("_spike")
-        & (
-            ((pl.col("_upd") >= factor * pl.col("_pred")) & (pl.col("_upd") >= 0.5 * pl.col("_bmed")))
-            | ((pl.col("_upd") * factor <= pl.col("_pred")) & (pl.col("_pred") >= 0.5 * pl.col("_bmed")))
-        )
-    )
-    if odd.height == 0:
-        return empty
-    odd = odd.sort("building_id", "period_start").with_columns(
-        (
-            pl.col("period_start").cast(pl.String)
-            + pl.lit("–")
-            + pl.col("period_end").cast(pl.String)
-            + pl.lit(" (")
-            + (pl.col("_upd") / pl.col("_pred")).round(2).cast(pl.String)
-            + pl.lit("× what the building's weather fit predicts)")
-        ).alias("_d")
-    )
-    return (
-        odd.group_by("building_id")
-        .agg(pl.col("_d").str.join("; ").alias("detail"))
-        .select(
-            "building_id",
-            pl.lit("bill_off_fit").alias("code"),
-            (
-                pl.lit(
-                    "bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
-                    "after estimated reads, a meter change, or weeks the building stood empty): "
-                )
-                + pl.col("detail")
-            ).alias("detail"),
-            pl.lit(True).alias("blocking"),
-        )
-        .sort("building_id")
-    )
-
-
 def screen_frames(
     buildings: pl.DataFrame,
     readings: pl.DataFrame | ReadingsSource,
@@ -636,6 +364,7 @@ def screen_frames(
     fit_block = fit_block or FIT_BLOCK
     paths = paths or {}
     a = cfg["analysis"]
+    thr = config.thresholds(cfg)  # the [thresholds] settings, typed and frozen, for every step below
     t0 = time.perf_counter()
     timings: dict[str, float] = {}
 
@@ -699,6 +428,7 @@ def screen_frames(
                 fit_block=fit_block,
                 lap=lap,
                 learned=learned,
+                thresholds=thr,
             )
         )
         del rc
@@ -728,14 +458,12 @@ def screen_frames(
     ctx_parts = [p.plan_context for p in parts if p.plan_context is not None]
     measure_ctx = pl.concat(ctx_parts, how="vertical_relaxed") if ctx_parts else None
     del parts
-    thr = cfg["thresholds"]
 
     # the portfolio pass: peer statistics, year-on-year z, the ranking
     units_ip = cfg["analysis"]["units"] == "IP"
-    results = screen.screen(
-        frame,
+    results = wording.explain(  # the sentences, once over the portfolio (screening/wording.py)
+        screen.screen(frame, thr, plan=cfg["plan"]),
         thr,
-        plan=cfg["plan"],
         currency=cfg["prices"]["currency"],
         energy_factor=1.0 if units_ip else KBTU_TO_KWH,
         energy_unit="kBtu" if units_ip else "kWh",
@@ -808,6 +536,7 @@ def _screen_part(
     fit_block: int,
     lap,
     learned: pl.DataFrame | None = None,
+    thresholds: config.Thresholds | None = None,
 ) -> _Part:
     """The per-building work for the buildings ``b`` (sorted) and their checked readings ``r``."""
     a = cfg["analysis"]
@@ -835,13 +564,13 @@ def _screen_part(
                 ).cast(REJECT_SCHEMA),
             ]
         )
-    thr = cfg["thresholds"]
+    thr = thresholds or config.thresholds(cfg)
     spans = metered.choose_spans(
         conv,
         ws,
         we,
         lookback_months=a["lookback_months"],
-        min_coverage=thr["coverage_min"],
+        min_coverage=thr.coverage_min,
         building_ids=b["building_id"],
         fill_end_days=a["fill_end_days"],
     )
@@ -855,7 +584,7 @@ def _screen_part(
             plan_context,
             we,
             lookback_months=a["lookback_months"],
-            min_coverage=thr["coverage_min"],
+            min_coverage=thr.coverage_min,
             fill_end_days=a["fill_end_days"],
         )
     part.plan_context = plan_context
@@ -931,62 +660,19 @@ def _screen_part(
     hdd_bal = cube.at_base(st, spans["span_start"], spans["span_end"], envelope["balance_point_f"].to_numpy())[0]
 
     # data issues
-    # (the days filled at a span's end are their own issue, end_days_filled, not a gap in the reads)
-    read_spans = spans.drop("station_id").with_columns(
-        (pl.col("span_end") - pl.duration(days=pl.col("filled_days"))).alias("span_end")
+    issues_df = data_issues.chunk_issues(
+        conv,
+        spans,
+        span_missing,
+        met,
+        periods,
+        b,
+        gaps,
+        weather,
+        window,
+        thr,
+        lookback_months=a["lookback_months"],
     )
-    issues = [
-        metered.reading_issues(
-            conv,
-            read_spans,
-            lookback_months=a["lookback_months"],
-            min_coverage=thr["coverage_min"],
-            max_estimated_share=thr["estimated_share_max"],
-        ),
-        _missing_bill_issues(conv, spans, window),
-        _filled_end_issues(met),
-        _unit_error_issues(conv, b, thr["unit_error_factor"], isolation=thr["unit_error_isolation"]),
-        _fit_outlier_issues(periods, met, thr["unit_error_factor_fit"], thr["unit_error_isolation"]),
-    ]
-    wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
-    # a station without a single day of weather in the span: its own issue, not a gap
-    no_wx = wgap.filter(pl.col("missing") >= pl.col("span_days"))
-    wgap = wgap.filter(pl.col("missing") < pl.col("span_days"))
-    if wgap.height:
-        gdetail = _gap_details(gaps, wgap)
-        issues.append(gdetail)
-    if no_wx.height:
-        issues.append(_no_weather_issues(no_wx, weather))
-    no_read = spans.join(conv.select("building_id").unique(), on="building_id", how="anti")
-    if no_read.height:
-        issues.append(
-            no_read.select(
-                "building_id",
-                pl.lit("no_readings").alias("code"),
-                pl.lit(ISSUE_TEXT["no_readings"]).alias("detail"),
-                pl.lit(True).alias("blocking"),
-            )
-        )
-    other_only = _other_fuel_only(conv, b)
-    if other_only.height:
-        issues.append(other_only)
-    issues_df = (
-        pl.concat([i.select("building_id", "code", "detail", "blocking") for i in issues])
-        .unique()
-        .sort("building_id", "code")
-    )
-    # where the span is the window, missing_bills names the days a gap in the span would name again
-    named = issues_df.filter(pl.col("code") == "missing_bills").join(
-        spans.filter(pl.col("span_kind") != "shifted").select("building_id"), on="building_id"
-    )["building_id"]
-    issues_df = issues_df.filter(~((pl.col("code") == "gap_in_reads") & pl.col("building_id").is_in(named.implode())))
-    issues_df = issues_df.with_columns(  # whether an issue blocks a verdict: declared once, DATA_ISSUE_CODES
-        pl.col("code").replace_strict(DATA_ISSUE_CODES, return_dtype=pl.Boolean).alias("blocking")
-    )
-    if other_only.height:  # "0 % covered" says nothing more than "no reading in the heating fuel"
-        issues_df = issues_df.filter(
-            ~((pl.col("code") == "low_coverage") & pl.col("building_id").is_in(other_only["building_id"].implode()))
-        )
 
     # assemble and screen
     shares = refdata.load("baseload_shares")
@@ -1045,7 +731,7 @@ def _screen_part(
     frame = frame.join(_prices(b, cfg), on="building_id", how="left", maintain_order="left")
     frame = frame.join(billed, on="building_id", how="left", maintain_order="left")
     frame = frame.join(
-        _year_over_year(conv, spans, met, cube, normals, grid), on="building_id", how="left", maintain_order="left"
+        yoy.year_over_year(conv, spans, met, cube, normals, grid), on="building_id", how="left", maintain_order="left"
     )
     if previous is not None and previous.height:
         frame = frame.join(
@@ -1056,41 +742,7 @@ def _screen_part(
         )
     else:
         frame = frame.with_columns(pl.lit(None, dtype=pl.Float64).alias("prev_normal_heating_kbtu"))
-    # a ratio that far off the expectation is a data problem, not waste
-    uf = thr["unit_error_factor_expected"]
-    ratio = pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")
-    # (only a finite ratio over a positive expectation; a missing fuel or missing weather has its own issue)
-    no_basis = issues_df.filter(pl.col("code").is_in(list(NO_BASIS_CODES)))["building_id"].implode()
-    far = frame.filter(
-        ((ratio >= uf) | (ratio <= 1 / thr["unit_error_factor_expected_low"]))
-        & (pl.col("expected_heating_kbtu") > 0)
-        & ratio.is_finite()
-        & ~pl.col("building_id").is_in(no_basis)
-    ).select(
-        "building_id",
-        pl.lit("likely_unit_error").alias("code"),
-        (
-            pl.lit("metered heating is ")
-            + pl.when(ratio >= 10)
-            .then(ratio.round(0).cast(pl.Int64).cast(pl.String))
-            .otherwise(ratio.round_sig_figs(3).cast(pl.String))
-            + pl.lit("× the expectation: check the units (")
-            + pl.col("heating_fuel").replace_strict(UNIT_MIXUPS, default="the unit column against the bills")
-            + pl.lit(") and the floor area")
-            + pl.when((pl.col("heating_fuel") == "electricity") & (ratio < 1))
-            .then(
-                pl.lit(
-                    "; for electric heat also a heat pump (give its seasonal COP as heating_efficiency) "
-                    "or a meter whose lights, plugs and cooling leave little to heating"
-                )
-            )
-            .otherwise(pl.lit(""))
-        ).alias("detail"),
-        pl.lit(True).alias("blocking"),
-    )
-    issues_df = (
-        pl.concat([issues_df, far]).unique(subset=["building_id", "code"], keep="first").sort("building_id", "code")
-    )
+    issues_df = data_issues.far_from_expectation(frame, issues_df, thr)  # a data problem, not waste
     agg = issues_df.group_by("building_id").agg(
         pl.col("blocking").any().alias("blocking"),
         pl.col("code").sort().alias("data_issue_codes"),
@@ -1303,85 +955,6 @@ def _no_building_screenable_counts(n_conv: int, n_readings: int, first, last, wi
     )
 
 
-def _year_over_year(
-    conv: pl.DataFrame, spans: pl.DataFrame, met: pl.DataFrame, cube, normals, grid: np.ndarray
-) -> pl.DataFrame:
-    """Weather-normalized heating of the span against the 12 months before it, from the readings.
-
-    For buildings with a regression fit (baseload α per day, base τ) and readings covering both
-    spans, each year's heating is normalized by the ratio of normal-year to actual degree days at τ
-    (the degree-day normalization of ASHRAE Guideline 14 practice)::
-
-        H_norm = (E − α·days) · HDD_normal(τ) / HDD_year(τ)
-        yoy_change = H_norm(current) / H_norm(previous) − 1
-
-    Buildings without a fit (annual totals; ``fit_method`` "default share") use the use type's
-    non-heating share s and the engineering balance point as τ: ``H = (1 − s)·E``, the same
-    normalization.
-
-    Returns ``building_id, yoy_change`` for the buildings where it is defined, and
-    ``prev_fuel_kbtu``: the heating fuel's whole use over the 12 months before the span (not weather
-    normalized), where the readings cover them.
-    """
-    fit = met.filter(
-        (
-            ((pl.col("fit_method") == "regression") & pl.col("fitted_base_f").is_not_null())
-            | ((pl.col("fit_method") == "default share") & pl.col("base_used_f").is_not_null())
-        )
-        & (pl.col("coverage") + pl.col("filled_days") / _span_days() >= 0.99)
-    ).select(
-        "building_id",
-        pl.coalesce("fitted_base_f", "base_used_f").alias("fitted_base_f"),
-        pl.col("baseload_kbtu_per_day").fill_null(0.0),
-        "actual_heating_kbtu",
-        pl.when(pl.col("fit_method") == "default share")
-        .then(pl.col("baseload_share"))
-        .otherwise(0.0)
-        .fill_null(0.0)
-        .alias("_share"),
-    )
-    sp = spans.join(fit, on="building_id", how="inner").with_columns(
-        pl.col("span_start").dt.offset_by("-1y").alias("prev_start"),
-        (pl.col("span_start") - pl.duration(days=1)).alias("prev_end"),
-    )
-    if sp.height == 0:
-        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64, "prev_fuel_kbtu": pl.Float64})
-    prev = metered.calendarize(
-        conv, sp.select("building_id", pl.col("prev_start").alias("span_start"), pl.col("prev_end").alias("span_end"))
-    )
-    prev = (
-        prev.filter(pl.col("is_heating_fuel"))
-        .group_by("building_id")
-        .agg(pl.col("energy_kbtu").sum().alias("e_prev"), pl.col("coverage").min().alias("cov_prev"))
-    )
-    sp = sp.join(prev, on="building_id", how="inner").filter(pl.col("cov_prev") >= 0.99)
-    if sp.height == 0:
-        return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64, "prev_fuel_kbtu": pl.Float64})
-    st = sp["station_id"].to_numpy()
-    tau = sp["fitted_base_f"].to_numpy()
-    hdd_cur = cube.at_base(st, sp["span_start"], sp["span_end"], tau)[0]
-    hdd_prev, _, miss_prev = cube.at_base(st, sp["prev_start"], sp["prev_end"], tau)
-    j = nearest_base(grid, tau)
-    hdd_norm = normals.for_stations(st)[np.arange(st.size), j]
-    days_prev = (sp["prev_end"] - sp["prev_start"]).dt.total_days().to_numpy() + 1
-    heat_prev = np.maximum(
-        sp["e_prev"].to_numpy() * (1.0 - sp["_share"].to_numpy()) - sp["baseload_kbtu_per_day"].to_numpy() * days_prev,
-        0.0,
-    )
-    with np.errstate(divide="ignore", invalid="ignore"):
-        norm_prev = heat_prev * hdd_norm / hdd_prev
-        norm_cur = sp["actual_heating_kbtu"].to_numpy() * hdd_norm / hdd_cur
-        yoy = norm_cur / norm_prev - 1.0
-    ok = np.isfinite(yoy) & (miss_prev == 0) & (norm_prev > 0)
-    return pl.DataFrame(
-        {"building_id": sp["building_id"], "yoy_change": np.where(ok, yoy, np.nan), "prev_fuel_kbtu": sp["e_prev"]}
-    ).with_columns(pl.col("yoy_change").fill_nan(None))
-
-
-def _span_days() -> pl.Expr:
-    return (pl.col("span_end") - pl.col("span_start")).dt.total_days() + 1
-
-
 def _fill_hdd(cube, spans: pl.DataFrame, grid: np.ndarray) -> np.ndarray:
     """HDD at every grid base over each span's filled days at its end (zeros where none) [°F·day]."""
     out = np.zeros((spans.height, grid.size))
@@ -1391,130 +964,6 @@ def _fill_hdd(cube, spans: pl.DataFrame, grid: np.ndarray) -> np.ndarray:
         start = sub.select(pl.col("span_end") - pl.duration(days=pl.col("filled_days")) + pl.duration(days=1))
         out[idx] = cube.period_totals(sub["station_id"].to_numpy(), start.to_series(), sub["span_end"])[0]
     return out
-
-
-def _missing_bill_issues(conv: pl.DataFrame, spans: pl.DataFrame, window) -> pl.DataFrame:
-    """Heating-fuel bills missing inside the analysis window, their dates named (``missing_bills``)."""
-    ws, we = window
-    g = metered.missing_bills(conv, ws, we, spans=spans)
-    g = g.with_columns(
-        (
-            pl.when(pl.col("meter_id").is_null())
-            .then(pl.lit(""))
-            .otherwise(pl.lit("meter ") + pl.col("meter_id") + pl.lit(" "))
-        ).alias("_m")
-    )
-    g = g.with_columns(pl.format("{}{}..{} ({} days)", "_m", "gap_start", "gap_end", "days").alias("_d"))
-    t = ISSUE_TEXT["missing_bills"].replace("{window_start}", str(ws)).replace("{window_end}", str(we))
-    head, tail = t.split("{gaps}")
-    return (
-        g.group_by("building_id", maintain_order=True)
-        .agg(pl.col("_d").str.join("; "))
-        .select(
-            "building_id",
-            pl.lit("missing_bills").alias("code"),
-            (pl.lit(head) + pl.col("_d") + pl.lit(tail)).alias("detail"),
-            pl.lit(False).alias("blocking"),
-        )
-        .sort("building_id")
-    )
-
-
-def _filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
-    """Spans whose last days had no reading yet and were filled (``end_days_filled``)."""
-    f = met.filter(pl.col("filled_days") > 0)
-    src = (
-        pl.when(pl.col("fit_method") == "regression")
-        .then(pl.lit("the building's own weather fit"))
-        .otherwise(pl.lit("the days and degree days of its read part (no weather fit)"))
-    )
-    share = (100 * pl.col("filled_kbtu") / pl.col("total_fuel_kbtu")).round(1).fill_nan(0.0).fill_null(0.0)
-    t = ISSUE_TEXT["end_days_filled"]
-    for k in ("{days}", "{fill_start}", "{span_end}", "{source}", "{share}"):
-        t = t.replace(k, "{}")
-    return f.select(
-        "building_id",
-        pl.lit("end_days_filled").alias("code"),
-        pl.format(
-            t,
-            "filled_days",
-            (pl.col("span_end") - pl.duration(days=pl.col("filled_days") - 1)).cast(pl.String),
-            pl.col("span_end").cast(pl.String),
-            src,
-            share,
-        ).alias("detail"),
-        pl.lit(False).alias("blocking"),
-    ).sort("building_id")
-
-
-def _other_fuel_only(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
-    """Buildings whose readings are all of fuels other than their heating fuel (``no_heating_fuel_readings``)."""
-    per = conv.group_by("building_id").agg(
-        pl.col("is_heating_fuel").any().alias("_any"), pl.col("fuel").unique().sort().str.join(", ").alias("_fuels")
-    )
-    per = per.filter(~pl.col("_any")).join(b.select("building_id", "heating_fuel"), on="building_id")
-    t = ISSUE_TEXT["no_heating_fuel_readings"]
-    return per.select(
-        "building_id",
-        pl.lit("no_heating_fuel_readings").alias("code"),
-        pl.format(
-            t.replace("{fuels}", "{}").replace("{heating_fuel}", "{}"), pl.col("_fuels"), pl.col("heating_fuel")
-        ).alias("detail"),
-        pl.lit(True).alias("blocking"),
-    ).sort("building_id")
-
-
-def _no_weather_issues(no_wx: pl.DataFrame, weather: pl.DataFrame) -> pl.DataFrame:
-    """Buildings whose station has no weather on any day of the span (``no_weather_at_station``)."""
-    rec = weather.group_by("station_id").agg(
-        (
-            pl.lit("its weather runs ")
-            + pl.col("date").min().cast(pl.String)
-            + pl.lit(" to ")
-            + pl.col("date").max().cast(pl.String)
-        ).alias("_rec")
-    )
-    j = no_wx.join(rec, on="station_id", how="left").with_columns(pl.col("_rec").fill_null("no weather at all"))
-    t = ISSUE_TEXT["no_weather_at_station"]
-    for k in ("{station_id}", "{span_start}", "{span_end}", "{record}"):
-        t = t.replace(k, "{}")
-    return j.select(
-        "building_id",
-        pl.lit("no_weather_at_station").alias("code"),
-        pl.format(
-            t, "station_id", pl.col("span_start").cast(pl.String), pl.col("span_end").cast(pl.String), "_rec"
-        ).alias("detail"),
-        pl.lit(True).alias("blocking"),
-    ).sort("building_id")
-
-
-def _gap_details(gaps: pl.DataFrame, wgap: pl.DataFrame) -> pl.DataFrame:
-    j = wgap.select("building_id", "station_id", "span_start", "span_end", "missing").join(
-        gaps, on="station_id", how="left"
-    )
-    j = j.filter(
-        pl.col("gap_start").is_null()
-        | ((pl.col("gap_start") <= pl.col("span_end")) & (pl.col("gap_end") >= pl.col("span_start")))
-    )
-    j = j.with_columns(
-        pl.when(pl.col("gap_start").is_null())
-        .then(pl.lit("outside the station's record"))
-        .otherwise(pl.col("gap_start").cast(pl.String) + pl.lit("–") + pl.col("gap_end").cast(pl.String))
-        .alias("_d")
-    )
-    return (
-        j.group_by("building_id")
-        .agg(pl.col("missing").first(), pl.col("_d").unique().sort().str.join("; "))
-        .select(
-            "building_id",
-            pl.lit("weather_gap").alias("code"),
-            (
-                pl.col("missing").cast(pl.String) + pl.lit(" day(s) of the span have no weather data: ") + pl.col("_d")
-            ).alias("detail"),
-            pl.lit(True).alias("blocking"),
-        )
-        .sort("building_id")
-    )
 
 
 def _daily_weights(cube, spans: pl.DataFrame, conv: pl.DataFrame, envelope: pl.DataFrame) -> pl.DataFrame:

@@ -15,9 +15,13 @@ Detect and Handle Outliers", ASQC Basic References in Quality Control vol. 16, w
 
 from __future__ import annotations
 
-import math
+
+from typing import TYPE_CHECKING
 
 import polars as pl
+
+if TYPE_CHECKING:  # the type only: config.py is read by the orchestration, not imported here
+    from .config import Thresholds
 
 MAD_TO_SIGMA = 1.4826  # consistency constant of the MAD for normal data (Iglewicz & Hoaglin 1993)
 P10_P90_SIGMAS = 2 * 1.2816  # a normal distribution's P10..P90 spans 2 × 1.2816 σ
@@ -32,6 +36,29 @@ TIERS = (
     ("Watch", "expected savings below a visit's cost"),
     ("No action", "nothing to recover to speak of"),
     ("Fix data first", "data problems block a verdict"),
+)
+#: the flags in the order of ``flag_codes`` (and of their texts)
+FLAG_ORDER = (
+    "above_band",
+    "high_among_peers",
+    "high_baseload",
+    "high_balance_point",
+    "poor_fit",
+    "rising_use",
+    "envelope_defaulted",
+    "shifted_span",
+    "base_at_grid_edge",
+)
+#: the working columns :func:`screen` keeps for the sentences (:func:`screening.wording.explain` drops them)
+TEXT_INPUTS = (
+    "_band_low",
+    "_band_high",
+    "_view",
+    "_w_step",
+    "_w_fstep",
+    "_yoy_fuel",
+    "_z_fuel",
+    *[f"_f_{k}" for k in FLAG_ORDER],
 )
 TIER_RANK = {name: i + 1 for i, (name, _) in enumerate(TIERS)}
 
@@ -94,24 +121,24 @@ def _peer_stats(values: pl.Expr, group: str) -> tuple[pl.Expr, pl.Expr, pl.Expr]
     return med, sd, values.count().over(group)
 
 
-def _blend_weight(values: pl.Expr, group: str, t: dict) -> pl.Expr:
+def _blend_weight(values: pl.Expr, group: str, t: Thresholds) -> pl.Expr:
     """Peer weight λ = n / (n + peer_prior) for n ≥ 3 peers with a spread; 0 (the model alone) otherwise."""
     _, sd, n = _peer_stats(values, group)
     ok = (n >= 3) & (sd > 0)
     return (
-        pl.when(ok).then(n.cast(pl.Float64) / (n + t["peer_prior"])).otherwise(0.0)
-        if t["peer_prior"] > 0
+        pl.when(ok).then(n.cast(pl.Float64) / (n + t.peer_prior)).otherwise(0.0)
+        if t.peer_prior > 0
         else pl.when(ok).then(1.0).otherwise(0.0)
     )
 
 
-def _blend_center(values: pl.Expr, group: str, t: dict) -> pl.Expr:
+def _blend_center(values: pl.Expr, group: str, t: Thresholds) -> pl.Expr:
     """The expected value of ``values`` among peers, shrunk towards 0 (the model) by the peer weight."""
     med, _, _ = _peer_stats(values, group)
     return _blend_weight(values, group, t) * med
 
 
-def _blended_z(values: pl.Expr, group: str, model_sd: pl.Expr | float, t: dict) -> pl.Expr:
+def _blended_z(values: pl.Expr, group: str, model_sd: pl.Expr | float, t: Thresholds) -> pl.Expr:
     """(x − λ·peer median) / √(λ·peer sd² + (1 − λ)·model sd²): the evidence in units of its own scale.
 
     With many peers this is the robust z within the group (Iglewicz & Hoaglin 1993); with none, the
@@ -128,7 +155,7 @@ def _blended_z(values: pl.Expr, group: str, model_sd: pl.Expr | float, t: dict) 
     )
 
 
-def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFrame:
+def _recoverable(out: pl.DataFrame, t: Thresholds, heat_share: pl.Expr) -> pl.DataFrame:
     """Excess per mechanism, how sure each is, and the expected recoverable energy, cost and CO2e.
 
     Three views of a building's recoverable excess (see docs/methods.md "How the audit list is chosen"):
@@ -153,7 +180,7 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     blk = pl.col("blocking")
     reg = pl.col("fit_method") == "regression"
     # a monthly fit that does not follow the weather is no basis for judging the level (as for needs_review)
-    usable = (~blk) & pl.col("_logr").is_not_null() & (~reg | (pl.col("r2") >= t["r2_min"])).fill_null(False)
+    usable = (~blk) & pl.col("_logr").is_not_null() & (~reg | (pl.col("r2") >= t.r2_min)).fill_null(False)
     out = out.with_columns(
         pl.when(usable)
         .then(
@@ -167,8 +194,8 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     step_ok = (
         (~blk)
         & (pl.col("yoy_change") > 0)
-        & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"]))
-        & (heat_share >= t["yoy_review_heating_share_min"])
+        & (~reg | (pl.col("r2") >= t.yoy_review_r2_min))
+        & (heat_share >= t.yoy_review_heating_share_min)
         & pl.col("z_yoy").is_not_null()
     )
     out = out.with_columns(
@@ -176,7 +203,7 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
         .then(pl.col("actual_heating_kbtu") * pl.col("yoy_change") / (1 + pl.col("yoy_change")))
         .otherwise(None)
         .alias("_e_step"),
-        pl.when(step_ok).then(_phi(pl.col("z_yoy") - t["step_sure_z"])).otherwise(None).alias("_w_step"),
+        pl.when(step_ok).then(_phi(pl.col("z_yoy") - t.step_sure_z)).otherwise(None).alias("_w_step"),
     )
     # the heating fuel's whole use against the 12 months before (not weather normalized: the robust z is taken
     # among the buildings of one weather station, which share the year's weather): heating in warm weather or a
@@ -187,19 +214,19 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     out = out.with_columns(fuel_y.log().alias("_lfy"), (fuel_y - 1).alias("_yoy_fuel"))
     out = out.with_columns(robust_z(pl.col("_lfy"), "station_id").alias("_z_fuel"))
     # (not weather normalized, so it counts only from path B's rise, yoy_review)
-    fstep_ok = (pl.col("_yoy_fuel") >= t["yoy_review"]) & pl.col("_z_fuel").is_not_null()
+    fstep_ok = (pl.col("_yoy_fuel") >= t.yoy_review) & pl.col("_z_fuel").is_not_null()
     out = out.with_columns(
         pl.when(fstep_ok)
         .then(pl.col("total_fuel_kbtu") * pl.col("_yoy_fuel") / (1 + pl.col("_yoy_fuel")))
         .otherwise(None)
         .alias("_e_fstep"),
-        pl.when(fstep_ok).then(_phi(pl.col("_z_fuel") - t["step_sure_z"])).otherwise(None).alias("_w_fstep"),
+        pl.when(fstep_ok).then(_phi(pl.col("_z_fuel") - t.step_sure_z)).otherwise(None).alias("_w_fstep"),
     )
     # mechanisms, from a monthly fit that follows the weather
     fit = (
         (~blk)
         & reg
-        & (pl.col("r2") >= t["r2_min"]).fill_null(False)
+        & (pl.col("r2") >= t.r2_min).fill_null(False)
         & (pl.col("heating_slope_kbtu_per_dd") > 0)
         & (pl.col("actual_heating_kbtu") > 0)
     )
@@ -224,8 +251,8 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
         (pl.col("_db") - _blend_center(pl.col("_db"), "peer_group", t)).alias("_x_ct"),
         (pl.col("_dl") - _blend_center(pl.col("_dl"), "peer_group", t)).alias("_x_bl"),
         _blended_z(pl.col("_lu"), "peer_group", _model_sd(), t).alias("_z_hl"),
-        _blended_z(pl.col("_db"), "peer_group", t["balance_point_sd_f"], t).alias("_z_ct"),
-        _blended_z(pl.col("_dl"), "peer_group", t["baseload_share_sd"], t).alias("_z_bl"),
+        _blended_z(pl.col("_db"), "peer_group", t.balance_point_sd_f, t).alias("_z_ct"),
+        _blended_z(pl.col("_dl"), "peer_group", t.baseload_share_sd, t).alias("_z_bl"),
     )
     # heating-season days per °F of base: HDD(T_fit) / (T_fit − 35 °F), 35 °F a typical heating-season
     # mean outdoor temperature (our own rough figure, only to size the controls excess)
@@ -238,9 +265,9 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
         .clip(lower_bound=0, upper_bound=pl.col("actual_heating_kbtu"))
         .alias("excess_controls_kbtu"),
         (pl.col("_x_bl") * pl.col("total_fuel_kbtu")).clip(lower_bound=0).alias("excess_baseload_kbtu"),
-        _phi(pl.col("_z_hl") - t["sure_offset"]).alias("sure_heat_loss"),
-        _phi(pl.col("_z_ct") - t["sure_offset"]).alias("sure_controls"),
-        _phi(pl.col("_z_bl") - t["sure_offset"]).alias("sure_baseload"),
+        _phi(pl.col("_z_hl") - t.sure_offset).alias("sure_heat_loss"),
+        _phi(pl.col("_z_ct") - t.sure_offset).alias("sure_controls"),
+        _phi(pl.col("_z_bl") - t.sure_offset).alias("sure_baseload"),
     )
     # the level view is as sure as its z, and more so where one mechanism's own evidence points the same way:
     # × ((1 − m) + m · the surest mechanism), m = mechanism_weight; with no monthly fit (no mechanism
@@ -248,7 +275,7 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
     mech = pl.max_horizontal(*[pl.col(f"sure_{m}") for m in MECHANISMS]).fill_null(0.5)
     out = out.with_columns(
         pl.when(usable)
-        .then(_phi(pl.col("z_score") - t["sure_offset"]) * ((1 - t["mechanism_weight"]) + t["mechanism_weight"] * mech))
+        .then(_phi(pl.col("z_score") - t.sure_offset) * ((1 - t.mechanism_weight) + t.mechanism_weight * mech))
         .otherwise(None)
         .alias("_w_level")
     )
@@ -286,12 +313,9 @@ def _recoverable(out: pl.DataFrame, t: dict, heat_share: pl.Expr) -> pl.DataFram
 
 def screen(
     df: pl.DataFrame,
-    thresholds: dict,
+    thresholds: Thresholds,
     *,
-    energy_factor: float,
-    energy_unit: str,
     plan: dict | None = None,
-    currency: str = "$",
 ) -> pl.DataFrame:
     """Add metrics, flags, needs_review, tier and rank to the per-building frame.
 
@@ -305,8 +329,8 @@ def screen(
         data_issue_codes (list[str]), data_issue_texts (list[str])``; ``yoy_change`` when
         the pipeline computed it from the readings (the previous run's normal-year heating
         stands in where it is missing).
-    thresholds : the ``[thresholds]`` table of the config.
-    energy_factor, energy_unit : display conversion from kBtu (1 for kBtu; 0.29307107 for kWh).
+    thresholds : the ``[thresholds]`` settings, :class:`screening.config.Thresholds` (frozen; built once by
+        :func:`screening.config.thresholds`).
 
     Returns
     -------
@@ -317,25 +341,26 @@ def screen(
     needs_review test; see docs/methods.md "How the audit list is chosen"), ``excess_energy_kbtu`` (metered − the band's top, ≥ 0; the top is P90, at least P50 × (1 + band_floor)), ``excess_energy_central_kbtu``
     (metered − P50, ≥ 0), ``excess_cost, excess_co2e_kg, yoy_change, z_yoy`` (robust z of
     ln(1 + yoy_change) over the portfolio: needs_review's second path, a step up against the
-    previous year), ``flag_codes, flag_texts, needs_review, review_path`` ("level", "step up",
+    previous year), ``flag_codes, needs_review, review_path`` ("level", "step up",
     "level and step up" or null), ``peer_weight, evidence_scale`` (the blended evidence scale:
     "peers", "model band" or "blend"), ``expected_recoverable_kbtu, expected_recoverable_cost,
     expected_recoverable_co2e_kg`` (the largest of the level, step-up and fuel-step views, each weighted by how
     sure it is), ``excess_heat_loss_kbtu, excess_controls_kbtu, excess_baseload_kbtu, sure_heat_loss,
     sure_controls, sure_baseload`` (per mechanism), ``in_plan`` (this quarter's audit plan),
-    ``tier, tier_rank, rank`` (the audit order; tiers are plain groups along it), ``verdict,
-    waste_kind`` (plain sentences) and ``mechanisms`` (the supported ones, for the sheet's checks).
+    ``tier, tier_rank, rank`` (the audit order; tiers are plain groups along it), ``mechanisms`` (the
+    supported ones, surest first, for the sheet's checks) and ``recoverable_basis``; and the working columns
+    the sentences are made of (:data:`TEXT_INPUTS`). The sentences (``flag_texts, verdict, waste_kind``) are
+    :func:`screening.wording.explain`'s, which drops the working columns.
     plan : ``[plan]`` of the config (``audits_per_quarter``, ``audit_cost``); None = no limit, any savings.
-    currency : printed before money in the verdicts.
     """
     t = thresholds
     # the band is never narrower than ±band_floor around P50: metering, weather and calendarization
     # carry that much uncertainty even when every envelope input is known
     df = df.with_columns(
-        pl.max_horizontal(pl.col("expected_high_kbtu"), pl.col("expected_heating_kbtu") * (1 + t["band_floor"])).alias(
+        pl.max_horizontal(pl.col("expected_high_kbtu"), pl.col("expected_heating_kbtu") * (1 + t.band_floor)).alias(
             "_band_high"
         ),
-        pl.min_horizontal(pl.col("expected_low_kbtu"), pl.col("expected_heating_kbtu") * (1 - t["band_floor"])).alias(
+        pl.min_horizontal(pl.col("expected_low_kbtu"), pl.col("expected_heating_kbtu") * (1 - t.band_floor)).alias(
             "_band_low"
         ),
     )
@@ -345,7 +370,7 @@ def screen(
         .then(pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu"))
         .otherwise(None)
         .alias("ratio"),
-        pl.when(pl.col("actual_heating_kbtu") > pl.col("_band_high") * t["band_ratio"])
+        pl.when(pl.col("actual_heating_kbtu") > pl.col("_band_high") * t.band_ratio)
         .then(pl.lit("above"))
         .when(pl.col("actual_heating_kbtu") < pl.col("_band_low"))
         .then(pl.lit("below"))
@@ -365,9 +390,9 @@ def screen(
         pl.when(usable).then(pl.col("ratio").log()).otherwise(None).alias("_logr"),
     )
     out = out.with_columns(
-        peer_groups(
-            out.with_columns(pl.col("_int_ok").alias("heating_intensity")), min_group=t["min_peer_group"]
-        ).alias("peer_group")
+        peer_groups(out.with_columns(pl.col("_int_ok").alias("heating_intensity")), min_group=t.min_peer_group).alias(
+            "peer_group"
+        )
     )
     out = out.with_columns(
         pl.col("_int_ok").median().over("peer_group").alias("peer_median_intensity"),
@@ -414,7 +439,7 @@ def screen(
     reg = pl.col("fit_method") == "regression"
     # evidence that does not lean on the envelope estimate: the building's own fitted balance
     # point against the engineering one (portfolio-wide robust z) and its intensity among peers
-    fit_ok = reg & (pl.col("r2") >= t["r2_min"]).fill_null(False)
+    fit_ok = reg & (pl.col("r2") >= t.r2_min).fill_null(False)
     out = out.with_columns(
         pl.when(usable & fit_ok & pl.col("fitted_base_f").is_not_null() & pl.col("balance_point_f").is_not_null())
         .then(pl.col("fitted_base_f") - pl.col("balance_point_f"))
@@ -437,28 +462,29 @@ def screen(
     out = out.with_columns(
         (
             pl.col("z_score")
-            + t["weight_balance_point"] * pl.col("z_balance_point").fill_null(0.0)
-            + t["weight_intensity"] * pl.col("z_intensity").fill_null(0.0)
+            + t.weight_balance_point * pl.col("z_balance_point").fill_null(0.0)
+            + t.weight_intensity * pl.col("z_intensity").fill_null(0.0)
         ).alias("evidence_score")
     )
     conds = {
         "above_band": pl.col("band_position") == "above",
-        "high_among_peers": pl.col("peer_percentile") >= t["peer_percentile_high"],
+        "high_among_peers": pl.col("peer_percentile") >= t.peer_percentile_high,
         "high_baseload": reg
-        & (pl.col("baseload_share") > t["baseload_share_high"] * pl.col("baseload_share_default"))
+        & (pl.col("baseload_share") > t.baseload_share_high * pl.col("baseload_share_default"))
         & (pl.col("baseload_share") > 0.2),
-        "high_balance_point": reg & (pl.col("fitted_base_f") > t["balance_point_high_f"]),
-        "poor_fit": reg & ((pl.col("r2") < t["r2_min"]) | (pl.col("cv_rmse") > t["cv_rmse_max"])),
-        "rising_use": pl.col("yoy_change") > t["yoy_rise"],
+        "high_balance_point": reg & (pl.col("fitted_base_f") > t.balance_point_high_f),
+        "poor_fit": reg & ((pl.col("r2") < t.r2_min) | (pl.col("cv_rmse") > t.cv_rmse_max)),
+        "rising_use": pl.col("yoy_change") > t.yoy_rise,
         "envelope_defaulted": pl.col("envelope_source") == "estimated",
         "shifted_span": pl.col("span_kind") == "shifted",
         "base_at_grid_edge": reg & pl.col("base_at_edge") if "base_at_edge" in out.columns else pl.lit(False),
     }
+    assert tuple(conds) == FLAG_ORDER
     out = out.with_columns([c.fill_null(False).alias(f"_f_{k}") for k, c in conds.items()])
     # a fit that does not follow the weather is no basis for a verdict (often a meter or entry problem)
     fit_usable = (~reg) | fit_ok
     strong = (
-        (pl.col("evidence_score") >= t["review_score"]) & (pl.col("ratio") >= t["min_excess_ratio"]) & fit_usable
+        (pl.col("evidence_score") >= t.review_score) & (pl.col("ratio") >= t.min_excess_ratio) & fit_usable
     ).fill_null(False)
     # or a step up against the building's own previous year, far beyond the portfolio's spread of
     # year-on-year changes (a fault that developed: the building is its own baseline)
@@ -466,10 +492,10 @@ def screen(
     # nor does heating that is a small part of the fuel's use, where a small change in the rest moves it)
     heat_share = pl.when(pl.col("total_fuel_kbtu") > 0).then(pl.col("actual_heating_kbtu") / pl.col("total_fuel_kbtu"))
     rise = (
-        (pl.col("yoy_change") >= t["yoy_review"])
-        & (pl.col("z_yoy") >= t["yoy_review_z"])
-        & (~reg | (pl.col("r2") >= t["yoy_review_r2_min"]))
-        & (heat_share >= t["yoy_review_heating_share_min"])
+        (pl.col("yoy_change") >= t.yoy_review)
+        & (pl.col("z_yoy") >= t.yoy_review_z)
+        & (~reg | (pl.col("r2") >= t.yoy_review_r2_min))
+        & (heat_share >= t.yoy_review_heating_share_min)
     ).fill_null(False)
     out = out.with_columns(
         ((strong | rise) & ~pl.col("blocking")).alias("needs_review"),
@@ -548,186 +574,15 @@ def screen(
         nulls_last=True,
     )
     out = out.with_row_index("rank", offset=1).with_columns(pl.col("rank").cast(pl.Int64))
-    out = _explain(out, t, energy_factor=energy_factor, energy_unit=energy_unit, currency=currency)
-    # which view sized the expected recoverable energy (level, step up, fuel step): the sheet says it in words
-    out = out.with_columns(pl.col("_view").alias("recoverable_basis"))
-    return out.drop([c for c in out.columns if c.startswith("_")])
-
-
-def _fmt(x: float | None, digits: int = 0) -> str:
-    if x is None or (isinstance(x, float) and not math.isfinite(x)):
-        return "n/a"
-    if digits == 0:
-        return f"{x:,.0f}"
-    return f"{x:,.{digits}f}"
-
-
-def _explain(
-    out: pl.DataFrame, t: dict, *, energy_factor: float, energy_unit: str, currency: str = "$"
-) -> pl.DataFrame:
-    """Flag codes and one-line explanations that carry the numbers; the verdict sentence."""
-    rows = out.select(
-        "actual_heating_kbtu",
-        "expected_heating_kbtu",
-        "_band_low",
-        "_band_high",
-        "ratio",
-        "heating_intensity",
-        "peer_median_intensity",
-        "peer_percentile",
-        "peer_group",
-        "z_score",
-        "baseload_share",
-        "baseload_share_default",
-        "fitted_base_f",
-        "r2",
-        "cv_rmse",
-        "yoy_change",
-        "tier",
-        "needs_review",
-        "blocking",
-        "excess_energy_kbtu",
-        "evidence_score",
-        "z_balance_point",
-        "z_intensity",
-        "z_yoy",
-        "review_path",
-        "span_kind",
-        "data_issue_codes",
-        "balance_point_f",
-        "effective_ua_btu_h_f",
-        "ua_total",
-        "expected_recoverable_kbtu",
-        "expected_recoverable_cost",
-        "_view",
-        "_w_step",
-        "_w_fstep",
-        "_yoy_fuel",
-        "_z_fuel",
-        "excess_heat_loss_kbtu",
-        "excess_controls_kbtu",
-        "excess_baseload_kbtu",
-        "sure_heat_loss",
-        "sure_controls",
-        "sure_baseload",
-        "fit_method",
-        "in_plan",
-        *[c for c in out.columns if c.startswith("_f_")],
+    out = out.with_columns(
+        pl.concat_list([pl.when(pl.col(f"_f_{k}")).then(pl.lit(k)) for k in FLAG_ORDER])
+        .list.drop_nulls()
+        .alias("flag_codes"),
+        _mechanisms(t).alias("mechanisms"),
+        # which view sized the expected recoverable energy (level, step up, fuel step): the sheet says it in words
+        pl.col("_view").alias("recoverable_basis"),
     )
-    si = energy_unit == "kWh"
-    e = energy_factor
-    codes_all, texts_all, verdicts, kinds, mechs = [], [], [], [], []
-    for r in rows.iter_rows(named=True):  # one row's dict at a time, not all of them at once
-        codes, texts = [], []
-
-        def add(code: str, text: str) -> None:
-            codes.append(code)  # noqa: B023 - add() is called only within this row's iteration
-            texts.append(text)  # noqa: B023 - same
-
-        if r["_f_above_band"]:
-            add(
-                "above_band",
-                f"Metered heating {_fmt(r['actual_heating_kbtu'] * e)} {energy_unit} is "
-                f"{_fmt(r['ratio'], 2)}× the expected {_fmt(r['expected_heating_kbtu'] * e)} {energy_unit}, "
-                f"above the expected band {_fmt(r['_band_low'] * e)}–{_fmt(r['_band_high'] * e)}.",
-            )
-        if r["_f_high_among_peers"]:
-            add(
-                "high_among_peers",
-                f"Heating intensity {_fmt(r['heating_intensity'], 2)} Btu/ft²·°F·day is at the "
-                f"{_fmt(r['peer_percentile'])}th percentile of {r['peer_group']} (median "
-                f"{_fmt(r['peer_median_intensity'], 2)}).",
-            )
-        if r["_f_high_baseload"]:
-            add(
-                "high_baseload",
-                f"Non-heating use is {_fmt(100 * r['baseload_share'])} % of the heating fuel, against "
-                f"about {_fmt(100 * r['baseload_share_default'])} % typical for the use type.",
-            )
-        if r["_f_high_balance_point"]:
-            add(
-                "high_balance_point",
-                f"Heating starts below {_fmt(r['fitted_base_f'], 1)} °F outdoors "
-                f"(fitted balance point; above {t['balance_point_high_f']:g} °F suggests high setpoints or "
-                "controls that heat too early).",
-            )
-        if r["_f_poor_fit"]:
-            add(
-                "poor_fit",
-                f"Use follows the weather poorly (R² {_fmt(r['r2'], 2)}, CV(RMSE) "
-                f"{_fmt(r['cv_rmse'], 1)} %): irregular operation, controls or meter problems.",
-            )
-        if r["_f_rising_use"]:
-            add("rising_use", f"Weather-normalized heating is up {_fmt(100 * r['yoy_change'])} % on the previous year.")
-        if r["_f_envelope_defaulted"]:
-            add(
-                "envelope_defaulted",
-                "Every envelope value is a default for the use type and era: the expected range is wide.",
-            )
-        if r["_f_shifted_span"]:
-            add(
-                "shifted_span",
-                "Readings do not cover the analysis window; the latest covered 12 months were "
-                "compared instead, with the degree days of the same days.",
-            )
-        if r["_f_base_at_grid_edge"]:
-            add(
-                "base_at_grid_edge",
-                f"The bills fit best at a base of {_fmt(r['fitted_base_f'], 1)} °F, the edge of "
-                "the bases searched: the building's balance point may lie beyond it, and its split of the fuel "
-                "into heating and baseload is less certain.",
-            )
-        codes_all.append(codes)
-        texts_all.append(texts)
-        ms = _supported(r, t)
-        mechs.append(ms)
-        kinds.append(_waste_kind(r, ms, t, si=si))
-        money = f"{currency}{_fmt(r['expected_recoverable_cost'])}" if r["expected_recoverable_cost"] else None
-        plan = (
-            " It is in this quarter's audit plan for its expected savings."
-            if r["in_plan"] and not r["needs_review"]
-            else " It is in this quarter's audit plan."
-            if r["in_plan"]
-            else " Its expected savings are below the cost of a visit ([plan] audit_cost), so it is not planned."
-            if r["needs_review"] and r["tier"] in ("Watch", "No action")
-            else " Its expected savings are worth a visit after this quarter's plan."
-            if r["tier"] == "Audit soon"
-            else ""
-        )
-        if r["blocking"]:
-            v = (
-                "A data problem (" + ", ".join(r["data_issue_codes"] or []) + ") must be fixed before this "
-                "building can be judged; it takes no audit slot until then."
-            )
-        elif r["review_path"] == "step up":
-            v = (
-                f"Weather-normalized heating rose {_fmt(100 * r['yoy_change'])} % on the previous year, far beyond "
-                f"the portfolio's year-on-year spread (z {_fmt(r['z_yoy'], 1)} against {t['yoy_review_z']:g}); it is "
-                f"now {_fmt(r['ratio'], 2)}× the expectation. Something changed: recommend an audit"
-                + (f" (expected recoverable about {money} a year)." if money else ".")
-                + plan
-            )
-        elif r["needs_review"]:
-            v = (
-                f"Heating is {_fmt(r['ratio'], 2)}× what this building should need and the evidence of excess "
-                f"is strong (score {_fmt(r['evidence_score'], 1)} against {t['review_score']:g}: peers "
-                f"{_fmt(r['z_score'], 1)}, balance point {_fmt(r['z_balance_point'], 1)}, intensity "
-                f"{_fmt(r['z_intensity'], 1)}): recommend an audit"
-                + (f" (expected recoverable about {money} a year)." if money else ".")
-                + plan
-            )
-        elif r["ratio"] is None:
-            v = "No verdict: metered or expected heating is missing."
-        else:
-            v = _not_listed(r, t, money, plan)
-        verdicts.append(v)
-    return out.with_columns(
-        pl.Series("flag_codes", codes_all, dtype=pl.List(pl.String)),
-        pl.Series("flag_texts", texts_all, dtype=pl.List(pl.String)),
-        pl.Series("verdict", verdicts, dtype=pl.String),
-        pl.Series("waste_kind", kinds, dtype=pl.String),
-        pl.Series("mechanisms", mechs, dtype=pl.List(pl.String)),
-    )
+    return out.drop([c for c in out.columns if c.startswith("_") and c not in TEXT_INPUTS])
 
 
 #: the mechanisms the bills can show, as column stems (``excess_<m>_kbtu``, ``sure_<m>``, ...)
@@ -741,145 +596,40 @@ MECHANISM_CHECKS = {
 }
 
 
-def _supported(r: dict, t: dict) -> list[str]:
-    """Mechanisms whose own evidence is sure enough (≥ mechanism_support), largest expected excess first."""
-    if r["blocking"]:
-        return []
-    cand = []
-    for col in MECHANISMS:
-        name = col.replace("_", " ")
-        w, x = r[f"sure_{col}"], r[f"excess_{col}_kbtu"]
-        if w is not None and x is not None and x > 0 and w >= t["mechanism_support"]:
-            cand.append((w * x, name))
-    return [n for _, n in sorted(cand, reverse=True)]
-
-
-def _waste_kind(r: dict, ms: list[str], t: dict, *, si: bool) -> str:
-    """One plain sentence: which mechanism(s) the bills support, and what to check (advice only for those)."""
-    if r["blocking"]:
-        return "Fix the data first; the bills cannot point to a kind of waste until then."
-    parts = []
-    for m in ms:
-        if m == "heat loss":
-            ratio = r["effective_ua_btu_h_f"] / r["ua_total"] if r["ua_total"] else None
-            parts.append(
-                f"heat loss (the heating slope implies {_fmt(ratio, 1)}× the envelope's heat-loss "
-                f"coefficient): {MECHANISM_CHECKS[m]}"
-            )
-        elif m == "controls":
-            d = r["fitted_base_f"] - r["balance_point_f"]
-            tf = (r["fitted_base_f"] - 32) / 1.8 if si else r["fitted_base_f"]
-            unit, du = ("°C", d / 1.8) if si else ("°F", d)
-            parts.append(
-                f"controls (heating starts at {_fmt(tf, 1)} {unit} outdoors, {_fmt(du, 1)} {unit} "
-                f"above the engineering balance point): {MECHANISM_CHECKS[m]}"
-            )
-        else:
-            parts.append(
-                f"non-heating use of the heating fuel ({_fmt(100 * r['baseload_share'])} % of it, "
-                f"about {_fmt(100 * r['baseload_share_default'])} % is typical): {MECHANISM_CHECKS[m]}"
-            )
-    step = (
-        r["_view"] == "step up"
-        and (r["_w_step"] or 0) >= t["mechanism_support"]
-        and (r["yoy_change"] or 0) >= t["yoy_rise"]
-    )
-    fstep = (
-        r["_view"] == "fuel step"
-        and (r["_w_fstep"] or 0) >= t["mechanism_support"]
-        and (r["_yoy_fuel"] or 0) >= t["yoy_rise"]
-    )
-    lead = (
-        (
-            f"Heating rose {_fmt(100 * r['yoy_change'])} % on last year: ask what changed (equipment, "
-            "schedules, a failed component)"
+def _mechanisms(t: Thresholds) -> pl.Expr:
+    """Mechanisms whose own evidence is sure enough (``sure_<m>`` ≥ mechanism_support and an excess > 0),
+    largest expected excess ``sure_<m> · excess_<m>_kbtu`` first (equal ones: the name in reverse
+    alphabetical order); none while a data problem blocks the verdict. NaN counts as not sure."""
+    names = [m.replace("_", " ") for m in MECHANISMS]
+    ok, key = {}, {}
+    for col, name in zip(MECHANISMS, names):
+        w, x = pl.col(f"sure_{col}"), pl.col(f"excess_{col}_kbtu")
+        ok[name] = (
+            ~pl.col("blocking").fill_null(False)
+            & (x > 0)
+            & x.is_not_nan()
+            & (w >= t.mechanism_support)
+            & w.is_not_nan()
+        ).fill_null(False)
+        key[name] = w * x
+    # each one's place: how many supported others come before it
+    place = {
+        n: pl.sum_horizontal(
+            *[
+                (ok[o] & ((key[o] > key[n]) | ((key[o] == key[n]) & pl.lit(o > n)))).fill_null(False).cast(pl.Int32)
+                for o in names
+                if o != n
+            ]
         )
-        if step
-        else (
-            f"Use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year, more than its heating explains: "
-            "ask what changed (heating in warm weather, hot water, a leak, a failed component)"
-        )
-        if fstep
-        else ""
-    )
-    if parts and r["tier"] == "No action":
-        return (
-            "Expected savings too small for a visit; the bills point to "
-            + "; and to ".join(parts)
-            + ", at the next routine visit."
-        )
-    if parts:
-        body = "Likely " + "; and ".join(parts)
-        return (lead + ". " + body + ".") if lead else body + "."
-    if lead:
-        return lead + "; the bills do not show which part of the heating rose."
-    if r["_f_poor_fit"] and (r["ratio"] or 0) > 1:
-        return (
-            f"Use does not follow the weather (R² {_fmt(r['r2'], 2)}): these bills cannot size an excess; "
-            "check operation and meters first."
-        )
-    if r["tier"] not in ("No action",) and (r["expected_recoverable_kbtu"] or 0) > 0:
-        if r["_view"] == "fuel step":
-            return (
-                f"Use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year, more than its heating "
-                "explains; the bills do not show where (heating in warm weather, hot water, a leak?)."
-            )
-        if r["fit_method"] != "regression":
-            return "Heating above what its peers' bills suggest; annual bills cannot show which part is in excess."
-        return "Heating above what its peers' bills suggest; no single mechanism stands out in the bills."
-    return "No excess worth a visit."
-
-
-def _not_listed(r: dict, t: dict, money: str | None, plan: str) -> str:
-    """The verdict of a building without strong evidence: where it stands, its expected savings and, when
-    they are large, why it is not on the audit list (needs_review)."""
-    ratio = r["ratio"]
-    why = []
-    if r["fit_method"] == "regression" and r["r2"] is not None and r["r2"] < t["r2_min"]:
-        why.append(
-            f"its use follows the weather poorly (R² {_fmt(r['r2'], 2)} against {t['r2_min']:g}), "
-            "so its level is no basis for a verdict: check operation and meters"
-        )
-    elif r["_view"] == "step up":
-        why.append(
-            f"its rise on last year ({_fmt(100 * r['yoy_change'])} %, z {_fmt(r['z_yoy'], 1)}) is below "
-            f"{_fmt(100 * t['yoy_review'])} % at z {t['yoy_review_z']:g}"
-        )
-    elif r["_view"] == "fuel step":
-        why.append(
-            f"the rise is in its whole use of the heating fuel ({_fmt(100 * r['_yoy_fuel'])} % on last year, "
-            f"z {_fmt(r['_z_fuel'], 1)} among the buildings of its weather station), not in its weather-"
-            "normalized heating"
-        )
-    elif ratio < t["min_excess_ratio"]:
-        why.append(f"its heating is not above the model's central expectation ({_fmt(ratio, 2)}×)")
-    else:
-        why.append(
-            f"buildings like it spread this widely (evidence score {_fmt(r['evidence_score'], 1)} "
-            f"against {t['review_score']:g})"
-        )
-    if r["tier"] == "No action" or not money:
-        if ratio < 1 and r["actual_heating_kbtu"] < r["_band_low"]:
-            return f"Heating is below expectation ({_fmt(ratio, 2)}× expected): no sign of excess."
-        if ratio < t["min_excess_ratio"] or not r["_f_above_band"] and not r["_f_poor_fit"]:
-            return (
-                f"Heating is in line with expectation ({_fmt(ratio, 2)}× expected) and with its peers; "
-                "no excess worth a visit."
-            )
-        return f"Heating is {_fmt(ratio, 2)}× the expectation, but no excess can be counted on: " + "; ".join(why) + "."
-    basis = (
-        f"; it rose {_fmt(100 * r['yoy_change'])} % on last year"
-        if r["_view"] == "step up"
-        else f"; its use of the heating fuel rose {_fmt(100 * r['_yoy_fuel'])} % on last year"
-        if r["_view"] == "fuel step"
-        else "; its peers' bills put it above what buildings like it use"
-        if ratio < 1
-        else ""
-    )
-    return (
-        f"Heating is {_fmt(ratio, 2)}× the model's expectation{basis}: expected recoverable about {money} a "
-        "year. The evidence is not strong enough for the audit list: " + "; ".join(why) + "." + plan
-    )
+        for n in names
+    }
+    at = []
+    for i in range(len(names)):
+        e = pl.lit(None, dtype=pl.String)
+        for n in reversed(names):
+            e = pl.when(ok[n] & (place[n] == i)).then(pl.lit(n)).otherwise(e)
+        at.append(e)
+    return pl.concat_list(at).list.drop_nulls()
 
 
 def next_steps(

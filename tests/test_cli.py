@@ -382,9 +382,15 @@ def test_bad_option_is_a_usage_error(portfolio):
 def test_cli_choices_are_the_library_ones():
     from screening import cli as climod, ddtool
 
+    from screening import config as cfgmod, degree_days, schema
+
     assert tuple(k.value for k in climod.DegreeDayKind) == ddtool.KIND_CHOICES
     assert tuple(k.value for k in climod.PeriodBy) == ddtool.BY_CHOICES
-    for opt in ("--kind", "--by", "--format"):
+    assert tuple(k.value for k in climod.Units) == schema.UNIT_SYSTEMS
+    assert tuple(k.value for k in climod.DegreeDayMethod) == degree_days.METHODS
+    date_orders = cfgmod.Reading.__dataclass_fields__["date_order"].metadata["choices"]
+    assert ("", *(k.value for k in climod.DateOrder)) == date_orders
+    for opt in ("--kind", "--by", "--format", "--method", "--units", "--date-order"):
         res = cli(["degree-days", "--weather", "w.csv", "--station", "S", opt, "weekly"])
         assert res.exit_code == 2 and opt in res.stderr and "Traceback" not in res.stdout + res.stderr
 

@@ -21,6 +21,7 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from screening.degree_days import (
+    KERNELS,
     METHODS,
     DegreeDayCube,
     c_to_f,
@@ -544,6 +545,7 @@ def test_cube_argument_errors():
     with pytest.raises(ValueError, match="t_min_f > t_max_f for station 'S'"):
         DegreeDayCube.from_daily(one_day(20.0, 25.0), [65.0])
     assert METHODS == ("mean", "maxmin", "hourly", "monthly-estimate")
+    assert tuple(KERNELS) == METHODS  # one kernel per method, nothing else chooses by name
     assert not cube.estimated
 
 

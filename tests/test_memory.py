@@ -16,7 +16,7 @@ import numpy as np
 import polars as pl
 import pytest
 
-from screening import memory, metered, pipeline
+from screening import data_issues, degree_days, memory, metered, pipeline
 from screening.errors import OutOfMemoryError
 from tests.conftest import cli, tree_digest
 
@@ -149,8 +149,8 @@ def test_nearest_base_is_the_argmin_of_the_distance():
     rng = np.random.default_rng(3)
     base = np.concatenate([rng.uniform(30, 85, 500), grid, grid[:-1] + 0.25, [np.nan, -1e9, 1e9, 40.0, 75.0]])
     want = np.abs(grid[None, :] - base[:, None]).argmin(axis=1)
-    assert np.array_equal(pipeline.nearest_base(grid, base), want)  # ties (x.25 / x.75) take the lower base
-    assert np.array_equal(pipeline.nearest_base(np.array([65.0]), base), np.zeros(base.size, dtype=int))
+    assert np.array_equal(degree_days.nearest_base(grid, base), want)  # ties (x.25 / x.75) take the lower base
+    assert np.array_equal(degree_days.nearest_base(np.array([65.0]), base), np.zeros(base.size, dtype=int))
 
 
 def test_union_coverage_counts_each_covered_day_once():
@@ -221,9 +221,9 @@ def test_unit_error_issues_in_blocks_equal_one_pass():
         orient="row",
     )
     b = pl.DataFrame({"building_id": [f"B{i:02d}" for i in range(12)], "heating_fuel": ["natural_gas"] * 12})
-    one = pipeline._unit_error_issues(conv, b, 10.0)
+    one = data_issues.unit_error_issues(conv, b, 10.0)
     assert one.height >= 2
-    assert pipeline._unit_error_issues(conv, b, 10.0, block=5).equals(one)
+    assert data_issues.unit_error_issues(conv, b, 10.0, block=5).equals(one)
 
 
 def test_fit_in_blocks_picks_what_the_is_in_filter_picked():

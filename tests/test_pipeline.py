@@ -404,24 +404,24 @@ def _monthly_gas(factors: dict[int, float]) -> pl.DataFrame:
 
 def test_a_unit_error_is_a_spike_and_waste_that_began_is_a_step():
     # one winter bill ×10 (a lost decimal point): its neighbours are not off with it -> likely_unit_error
-    from screening import pipeline
+    from screening import data_issues
 
     b = pl.DataFrame({"building_id": ["B1"], "heating_fuel": ["natural_gas"]})
-    one = pipeline._unit_error_issues(_monthly_gas({25: 10.0}), b, 8.0, isolation=2.0)
+    one = data_issues.unit_error_issues(_monthly_gas({25: 10.0}), b, 8.0, isolation=2.0)
     assert one["building_id"].to_list() == ["B1"] and "2025-02-01" in one["detail"][0]
     # the last winter ×10 on every month from 2025-10 (waste that began, e.g. a damper stuck open):
     # a run of bills off together is a step, left to the ratio of the whole span to the expectation
     step = {m: 10.0 for m in range(33, 36)} | {m: 10.0 for m in range(24, 28)}
-    assert pipeline._unit_error_issues(_monthly_gas(step), b, 8.0, isolation=2.0).height == 0
+    assert data_issues.unit_error_issues(_monthly_gas(step), b, 8.0, isolation=2.0).height == 0
     # ... unless the run is beyond any operation (×100: kBtu read as therms), caught even as a step
     far = {m: 100.0 for m in range(24, 28)}
-    assert pipeline._unit_error_issues(_monthly_gas(far), b, 8.0, isolation=2.0).height == 1
+    assert data_issues.unit_error_issues(_monthly_gas(far), b, 8.0, isolation=2.0).height == 1
     # without the isolation rule (1.0: every bill off its month is a spike) the step is taken for an error
-    assert pipeline._unit_error_issues(_monthly_gas(step), b, 8.0, isolation=1.0).height == 1
+    assert data_issues.unit_error_issues(_monthly_gas(step), b, 8.0, isolation=1.0).height == 1
 
 
 def test_a_bill_off_the_fit_blocks_only_when_its_neighbours_are_not_off_with_it():
-    from screening import pipeline
+    from screening import data_issues
 
     days = [31, 28, 31, 30, 31, 30]
     hdd = [30.0, 25.0, 15.0, 8.0, 2.0, 0.0]  # degree days per day at the fitted base (by hand)
@@ -448,24 +448,36 @@ def test_a_bill_off_the_fit_blocks_only_when_its_neighbours_are_not_off_with_it(
             }
         )
 
-    one = pipeline._fit_outlier_issues(periods([1, 10, 1, 1, 1, 1]), met, 4.0, 2.0)  # one bill ×10
+    one = data_issues.fit_outlier_issues(periods([1, 10, 1, 1, 1, 1]), met, 4.0, 2.0)  # one bill ×10
     assert one.height == 1 and "2026-02-01" in one["detail"][0]
-    run = pipeline._fit_outlier_issues(periods([1, 5, 5, 5, 1, 1]), met, 4.0, 2.0)  # three bills ×5 together
+    run = data_issues.fit_outlier_issues(periods([1, 5, 5, 5, 1, 1]), met, 4.0, 2.0)  # three bills ×5 together
     assert run.height == 0
-    assert pipeline._fit_outlier_issues(periods([1, 5, 5, 5, 1, 1]), met, 4.0, 1.0).height == 1
+    assert data_issues.fit_outlier_issues(periods([1, 5, 5, 5, 1, 1]), met, 4.0, 1.0).height == 1
 
 
 def test_a_summer_bill_a_hundred_times_its_other_summers_is_a_unit_error():
     # two adjacent summer bills ×100 (kBtu read as therms): each is the other's neighbour and their
     # month's other years are too small to count as substantial; against all of them they are 100× off
-    from screening import pipeline
+    from screening import data_issues
 
     b = pl.DataFrame({"building_id": ["B1"], "heating_fuel": ["natural_gas"]})
-    got = pipeline._unit_error_issues(_monthly_gas({30: 100.0, 31: 100.0}), b, 8.0, isolation=2.0)
+    got = data_issues.unit_error_issues(_monthly_gas({30: 100.0, 31: 100.0}), b, 8.0, isolation=2.0)
     assert got.height == 1 and "2025-07-01" in got["detail"][0] and "2025-08-01" in got["detail"][0]
     # the same months ×5 (heating in warm weather that began) are not
-    assert pipeline._unit_error_issues(_monthly_gas({30: 5.0, 31: 5.0}), b, 8.0, isolation=2.0).height == 0
+    assert data_issues.unit_error_issues(_monthly_gas({30: 5.0, 31: 5.0}), b, 8.0, isolation=2.0).height == 0
     # heating in warm weather that began on a heating-only fuel: last summer's bills next to nothing, this
     # summer's at a spring month's use: far above their own month, but not above the building's winters
     warm = {m: 0.01 for m in (5, 6, 7, 17, 18, 19)} | {m: 3.0 for m in (29, 30, 31)}
-    assert pipeline._unit_error_issues(_monthly_gas(warm), b, 8.0, isolation=2.0).height == 0
+    assert data_issues.unit_error_issues(_monthly_gas(warm), b, 8.0, isolation=2.0).height == 0
+
+
+def test_thresholds_are_one_frozen_typed_value():
+    # the [thresholds] table becomes config.Thresholds once; the screening steps read attributes, not keys
+    import dataclasses
+
+    cfg = cfgmod.load(None, {"thresholds": {"r2_min": 0.6}})
+    thr = cfgmod.thresholds(cfg)
+    assert isinstance(thr, cfgmod.Thresholds) and thr.r2_min == 0.6 and thr.band_floor == 0.1
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        thr.r2_min = 0.5  # type: ignore[misc]
+    assert dataclasses.asdict(thr) == cfg["thresholds"]

@@ -1,0 +1,510 @@
+"""Data-issue detectors (pure): polars frames in, the issues frame ``building_id, code, detail, blocking`` out.
+
+Every code, whether it blocks and its plain text are declared once in :data:`screening.schema.DATA_ISSUES`;
+the per-reading detectors are in :mod:`screening.metered` (``reading_issues``), the others here.
+:func:`chunk_issues` gathers a chunk's issues; :func:`far_from_expectation` adds the metered-against-expected
+check once the per-building frame is assembled. No files, no database (orchestration: :mod:`screening.pipeline`).
+"""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import numpy as np
+import polars as pl
+
+from . import metered
+from .schema import issue_codes
+
+if TYPE_CHECKING:
+    from .config import Thresholds
+
+#: Plain texts of the data issues found here (the per-reading ones are in :mod:`screening.metered`;
+#: README "Data issues" lists every code).
+ISSUE_TEXT = {
+    "no_readings": "no usable readings for this building",
+    "no_heating_fuel_readings": (
+        "readings only in {fuels}, none in the building's heating fuel {heating_fuel}: "
+        "check heating_fuel in the buildings file or the fuel column of the readings"
+    ),
+    "no_weather_at_station": (
+        "station {station_id} has no weather on any day of the span {span_start} to "
+        "{span_end} ({record}): add that station's weather for these dates, or correct "
+        "the building's station_id"
+    ),
+    "missing_bills": (
+        "no heating-fuel bill for {gaps} inside the analysis window {window_start} to {window_end}: "
+        "obtain the missing bills (or readings) and rerun"
+    ),
+    "end_days_filled": (
+        "no reading yet for the last {days} day(s) of the span, {fill_start} to {span_end}: filled "
+        "from {source} ({share} % of the span's use)"
+    ),
+}
+#: Every data-issue code found here, beside the per-reading ones of :data:`screening.metered.ISSUE_CODES`,
+#: and whether it blocks a verdict. :data:`DATA_ISSUE_CODES` is the one list of data issues (README
+#: "Data issues"); flags are :data:`screening.schema.FLAGS`. All declared in :data:`screening.schema.DATA_ISSUES`.
+PIPELINE_ISSUE_CODES = issue_codes("pipeline")
+DATA_ISSUE_CODES = {**metered.ISSUE_CODES, **PIPELINE_ISSUE_CODES}
+#: Issues that leave no basis for a ratio: no likely_unit_error is claimed beside them.
+NO_BASIS_CODES = ("no_readings", "no_heating_fuel_readings", "no_weather_at_station")
+
+
+#: The unit mix-ups each heating fuel's bills are prone to, named in the likely_unit_error detail (our own
+#: list, common practice in bill checking).
+UNIT_MIXUPS: dict[str, str] = {
+    "natural_gas": "therm against ccf or Mcf, kBtu against MMBtu",
+    "electricity": "kWh against MWh or Wh",
+    "fuel_oil": "gallons against litres",
+    "propane": "gallons against litres or lb",
+    "district_steam": "lb against Mlb",
+    "district_hot_water": "kBtu against MMBtu",
+}
+
+
+def unit_error_issues(
+    conv: pl.DataFrame, b: pl.DataFrame, factor: float, *, isolation: float = 1.0, block: int = 16384
+) -> pl.DataFrame:
+    """:func:`unit_error_issues_block` over blocks of ``block`` buildings (each issue is one building's;
+    the blocks bound the memory of the window statistics over every reading)."""
+    if b.height <= block:
+        return unit_error_issues_block(conv, b, factor, isolation)
+    ids = b["building_id"]
+    parts = [
+        unit_error_issues_block(
+            conv.filter(pl.col("building_id").is_in(ids.slice(a, block).implode())),
+            b.slice(a, block),
+            factor,
+            isolation,
+        )
+        for a in range(0, b.height, block)
+    ]
+    return pl.concat(parts).sort("building_id")
+
+
+#: a bill this many times off (or 1/this of) what was expected of it is a data fault even when its neighbours are
+#: off too: no operation multiplies a month's use by it (waste that began measured up to ×20 in a shoulder month
+#: on the outside world, seeds 3 and 4), and it keeps ×100 and ×1000 errors in a run of bills (our own margin)
+UNIT_ERROR_FACTOR_ANY = 50.0
+
+
+def spike(q: pl.Expr, over: list[str], isolation: float) -> pl.Expr:
+    """A bill off by ``q`` [-] (its use against what was expected of it) that its neighbouring bills do not share.
+
+    ``q`` is compared with the previous and the next bill of the same series (``over``, in time order;
+    a missing neighbour or one with no ``q`` counts as 1): the bill must stand ``isolation`` times apart
+    from both, in its own direction, or be ``UNIT_ERROR_FACTOR_ANY`` times off on its own. A lost decimal
+    point, a wrong unit on one bill or a catch-up after estimated reads is a spike; waste that began, or a
+    building that changed, moves a run of bills together (a step), which this leaves to the comparisons of
+    the whole span.
+    """
+    prev = q.shift(1).over(over).fill_null(1.0)
+    nxt = q.shift(-1).over(over).fill_null(1.0)
+    hi = (q >= isolation * prev) & (q >= isolation * nxt)
+    lo = (q * isolation <= prev) & (q * isolation <= nxt)
+    far = (q >= UNIT_ERROR_FACTOR_ANY) | (q * UNIT_ERROR_FACTOR_ANY <= 1)
+    return (pl.when(q >= 1).then(hi).otherwise(lo) | far).fill_null(False)
+
+
+def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, isolation: float = 1.0) -> pl.DataFrame:
+    """Readings that differ from the same calendar month of other years by ≥ ``factor``, as a spike.
+
+    A factor of about 10, 100 or 1000 between years of one meter is the mark of a
+    unit or entry error (therm vs ccf ×1.036 is too small to see; kBtu vs MMBtu is 1000).
+    Such a reading must also stand ``isolation`` × apart from the meter's previous and next
+    readings' own ratios (:func:`spike`): a run of months off together is a step (waste that
+    began), which the ratio of the whole span to the expectation judges instead.
+    """
+    empty = pl.DataFrame(
+        schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
+    )
+    heat = (
+        conv.select("building_id", "meter_id", "fuel", "period_start", "period_end", "days", "energy_kbtu")
+        .join(b.select("building_id", "heating_fuel"), on="building_id")
+        .filter((pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
+    )
+    if heat.height == 0:
+        return empty
+    mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
+    heat = heat.with_columns((pl.col("energy_kbtu") / pl.col("days")).alias("_upd"), mid.dt.month().alias("_m"))
+    # only months of substantial use: summer use of a heating fuel varies by large factors on its own
+    heat = heat.with_columns(pl.col("_upd").median().over("building_id", "meter_id").alias("_mmed"))
+    heat = heat.with_columns((pl.col("_upd") >= 0.5 * pl.col("_mmed")).alias("_big"))
+    big = pl.col("_upd").filter(pl.col("_big"))
+    grp = ["building_id", "meter_id", "_m"]
+    heat = heat.with_columns(
+        big.median().over(grp).alias("_med"),
+        big.count().over(grp).alias("_n"),
+        big.sum().over(grp).alias("_sum"),
+        pl.col("_upd").count().over(grp).alias("_n_all"),
+        pl.col("_upd").sum().over(grp).alias("_sum_all"),
+        pl.col("_upd").median().over(grp).alias("_med_all"),
+    )
+    # the reading against the same month of the other years: their median; with two readings the
+    # median sits between them, so each is compared with the other. A month of substantial use whose
+    # other years were small (a summer bill ×100) is compared with all of them, and counts only from
+    # UNIT_ERROR_FACTOR_ANY on and at `factor` × the meter's median month: summer use varies by large
+    # factors on its own (heating in warm weather that began on a heating-only fuel: ×124 on the
+    # simulator, seed 707), but never above the winter's bills
+    own = (
+        pl.when(pl.col("_n") == 2)
+        .then(pl.col("_upd") / (pl.col("_sum") - pl.col("_upd")))
+        .otherwise(pl.col("_upd") / pl.col("_med"))
+    )
+    all_ = (
+        pl.when(pl.col("_n_all") == 2)
+        .then(pl.col("_upd") / (pl.col("_sum_all") - pl.col("_upd")))
+        .otherwise(pl.col("_upd") / pl.col("_med_all"))
+    )
+    q = (
+        pl.when(pl.col("_big") & (pl.col("_n") >= 2) & (pl.col("_med") > 0) & (pl.col("_upd") > 0))
+        .then(own)
+        .when(
+            pl.col("_big")
+            & (pl.col("_n_all") >= 2)
+            & (pl.col("_med_all") > 0)
+            & (pl.col("_upd") > 0)
+            & (all_ >= UNIT_ERROR_FACTOR_ANY)
+            & (pl.col("_upd") >= factor * pl.col("_mmed"))
+        )
+        .then(all_)
+    )
+    heat = heat.sort("building_id", "meter_id", "period_start").with_columns(q.alias("_q"))
+    heat = heat.with_columns(spike(pl.col("_q"), ["building_id", "meter_id"], isolation).alias("_spike"))
+    odd = heat.filter(((pl.col("_q") >= factor) | (pl.col("_q") * factor <= 1)) & pl.col("_spike"))
+    if odd.height == 0:
+        return empty
+    return _odd_bills(
+        odd,
+        pl.col("_q"),
+        "the same month's median",
+        "likely_unit_error",
+        "reading(s) about 10×, 100× or 1000× off the building's own history: ",
+    )
+
+
+def fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float, isolation: float = 1.0) -> pl.DataFrame:
+    """Bills far off the building's own weather fit (code ``bill_off_fit``, blocking).
+
+    Each fitted bill's use per day is compared with what the building's variable-base fit
+    predicts for its degree days, ``α + β·HDD(τ)/day`` [kBtu/day]. A bill at ≥ ``factor`` × the
+    prediction, or at ≤ 1/``factor`` of it, is flagged when the larger of the two is substantial
+    (at least half the building's median bill per day): summer use varies by large factors on
+    its own, winter-sized use in a summer bill does not. The same-month comparison across years
+    (:func:`unit_error_issues`) misses a summer bill, whose other years are too small to count.
+    The bill must also stand ``isolation`` × apart from its neighbours' own ratios to the fit
+    (:func:`spike`): when waste begins inside the fitted months, the fit mixes before and after,
+    and a whole run of bills sits off it together (a step, not a data fault).
+    """
+    empty = pl.DataFrame(
+        schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
+    )
+    if periods.height == 0 or "hdd_per_day_fit" not in periods.columns:
+        return empty
+    fit = met.filter(pl.col("fit_method") == "regression").select(
+        "building_id",
+        pl.col("baseload_kbtu_per_day").fill_null(0.0).alias("_a"),
+        pl.col("heating_slope_kbtu_per_dd").fill_null(0.0).alias("_b"),
+    )
+    p = (
+        periods.filter(pl.col("usable"))
+        .join(fit, on="building_id", how="inner")
+        .with_columns(
+            (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
+            (pl.col("_a") + pl.col("_b") * pl.col("hdd_per_day_fit")).alias("_pred"),
+        )
+    )
+    p = p.sort("building_id", "period_start", "period_end").with_columns(
+        pl.col("_upd").median().over("building_id").alias("_bmed"),
+        pl.when((pl.col("_pred") > 0) & (pl.col("_upd") > 0)).then(pl.col("_upd") / pl.col("_pred")).alias("_q"),
+    )
+    p = p.with_columns(spike(pl.col("_q"), ["building_id"], isolation).alias("_spike"))
+    odd = p.filter(
+        (pl.col("_pred") > 0)
+        & (pl.col("_upd") > 0)
+        & pl.col("_spike")
+        & (
+            ((pl.col("_upd") >= factor * pl.col("_pred")) & (pl.col("_upd") >= 0.5 * pl.col("_bmed")))
+            | ((pl.col("_upd") * factor <= pl.col("_pred")) & (pl.col("_pred") >= 0.5 * pl.col("_bmed")))
+        )
+    )
+    if odd.height == 0:
+        return empty
+    return _odd_bills(
+        odd,
+        pl.col("_upd") / pl.col("_pred"),
+        "what the building's weather fit predicts",
+        "bill_off_fit",
+        "bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
+        "after estimated reads, a meter change, or weeks the building stood empty): ",
+    )
+
+
+def _odd_bills(odd: pl.DataFrame, ratio: pl.Expr, against: str, code: str, head: str) -> pl.DataFrame:
+    """One blocking ``code`` issue per building, ``head`` then its odd bills in date order, each as
+    ``start–end (ratio× against)`` [-], joined by "; "."""
+    odd = odd.sort("building_id", "period_start").with_columns(
+        (
+            pl.col("period_start").cast(pl.String)
+            + pl.lit("–")
+            + pl.col("period_end").cast(pl.String)
+            + pl.lit(" (")
+            + ratio.round(2).cast(pl.String)
+            + pl.lit(f"× {against})")
+        ).alias("_d")
+    )
+    return (
+        odd.group_by("building_id")
+        .agg(pl.col("_d").str.join("; ").alias("detail"))
+        .select(
+            "building_id",
+            pl.lit(code).alias("code"),
+            (pl.lit(head) + pl.col("detail")).alias("detail"),
+            pl.lit(True).alias("blocking"),
+        )
+        .sort("building_id")
+    )
+
+
+def missing_bill_issues(conv: pl.DataFrame, spans: pl.DataFrame, window) -> pl.DataFrame:
+    """Heating-fuel bills missing inside the analysis window, their dates named (``missing_bills``)."""
+    ws, we = window
+    g = metered.missing_bills(conv, ws, we, spans=spans)
+    g = g.with_columns(
+        (
+            pl.when(pl.col("meter_id").is_null())
+            .then(pl.lit(""))
+            .otherwise(pl.lit("meter ") + pl.col("meter_id") + pl.lit(" "))
+        ).alias("_m")
+    )
+    g = g.with_columns(pl.format("{}{}..{} ({} days)", "_m", "gap_start", "gap_end", "days").alias("_d"))
+    t = ISSUE_TEXT["missing_bills"].replace("{window_start}", str(ws)).replace("{window_end}", str(we))
+    head, tail = t.split("{gaps}")
+    return (
+        g.group_by("building_id", maintain_order=True)
+        .agg(pl.col("_d").str.join("; "))
+        .select(
+            "building_id",
+            pl.lit("missing_bills").alias("code"),
+            (pl.lit(head) + pl.col("_d") + pl.lit(tail)).alias("detail"),
+            pl.lit(False).alias("blocking"),
+        )
+        .sort("building_id")
+    )
+
+
+def filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
+    """Spans whose last days had no reading yet and were filled (``end_days_filled``)."""
+    f = met.filter(pl.col("filled_days") > 0)
+    src = (
+        pl.when(pl.col("fit_method") == "regression")
+        .then(pl.lit("the building's own weather fit"))
+        .otherwise(pl.lit("the days and degree days of its read part (no weather fit)"))
+    )
+    share = (100 * pl.col("filled_kbtu") / pl.col("total_fuel_kbtu")).round(1).fill_nan(0.0).fill_null(0.0)
+    t = ISSUE_TEXT["end_days_filled"]
+    for k in ("{days}", "{fill_start}", "{span_end}", "{source}", "{share}"):
+        t = t.replace(k, "{}")
+    return f.select(
+        "building_id",
+        pl.lit("end_days_filled").alias("code"),
+        pl.format(
+            t,
+            "filled_days",
+            (pl.col("span_end") - pl.duration(days=pl.col("filled_days") - 1)).cast(pl.String),
+            pl.col("span_end").cast(pl.String),
+            src,
+            share,
+        ).alias("detail"),
+        pl.lit(False).alias("blocking"),
+    ).sort("building_id")
+
+
+def other_fuel_only(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
+    """Buildings whose readings are all of fuels other than their heating fuel (``no_heating_fuel_readings``)."""
+    per = conv.group_by("building_id").agg(
+        pl.col("is_heating_fuel").any().alias("_any"), pl.col("fuel").unique().sort().str.join(", ").alias("_fuels")
+    )
+    per = per.filter(~pl.col("_any")).join(b.select("building_id", "heating_fuel"), on="building_id")
+    t = ISSUE_TEXT["no_heating_fuel_readings"]
+    return per.select(
+        "building_id",
+        pl.lit("no_heating_fuel_readings").alias("code"),
+        pl.format(
+            t.replace("{fuels}", "{}").replace("{heating_fuel}", "{}"), pl.col("_fuels"), pl.col("heating_fuel")
+        ).alias("detail"),
+        pl.lit(True).alias("blocking"),
+    ).sort("building_id")
+
+
+def no_weather_issues(no_wx: pl.DataFrame, weather: pl.DataFrame) -> pl.DataFrame:
+    """Buildings whose station has no weather on any day of the span (``no_weather_at_station``)."""
+    rec = weather.group_by("station_id").agg(
+        (
+            pl.lit("its weather runs ")
+            + pl.col("date").min().cast(pl.String)
+            + pl.lit(" to ")
+            + pl.col("date").max().cast(pl.String)
+        ).alias("_rec")
+    )
+    j = no_wx.join(rec, on="station_id", how="left").with_columns(pl.col("_rec").fill_null("no weather at all"))
+    t = ISSUE_TEXT["no_weather_at_station"]
+    for k in ("{station_id}", "{span_start}", "{span_end}", "{record}"):
+        t = t.replace(k, "{}")
+    return j.select(
+        "building_id",
+        pl.lit("no_weather_at_station").alias("code"),
+        pl.format(
+            t, "station_id", pl.col("span_start").cast(pl.String), pl.col("span_end").cast(pl.String), "_rec"
+        ).alias("detail"),
+        pl.lit(True).alias("blocking"),
+    ).sort("building_id")
+
+
+def gap_details(gaps: pl.DataFrame, wgap: pl.DataFrame) -> pl.DataFrame:
+    j = wgap.select("building_id", "station_id", "span_start", "span_end", "missing").join(
+        gaps, on="station_id", how="left"
+    )
+    j = j.filter(
+        pl.col("gap_start").is_null()
+        | ((pl.col("gap_start") <= pl.col("span_end")) & (pl.col("gap_end") >= pl.col("span_start")))
+    )
+    j = j.with_columns(
+        pl.when(pl.col("gap_start").is_null())
+        .then(pl.lit("outside the station's record"))
+        .otherwise(pl.col("gap_start").cast(pl.String) + pl.lit("–") + pl.col("gap_end").cast(pl.String))
+        .alias("_d")
+    )
+    return (
+        j.group_by("building_id")
+        .agg(pl.col("missing").first(), pl.col("_d").unique().sort().str.join("; "))
+        .select(
+            "building_id",
+            pl.lit("weather_gap").alias("code"),
+            (
+                pl.col("missing").cast(pl.String) + pl.lit(" day(s) of the span have no weather data: ") + pl.col("_d")
+            ).alias("detail"),
+            pl.lit(True).alias("blocking"),
+        )
+        .sort("building_id")
+    )
+
+
+def chunk_issues(
+    conv: pl.DataFrame,
+    spans: pl.DataFrame,
+    span_missing: np.ndarray,
+    met: pl.DataFrame,
+    periods: pl.DataFrame,
+    b: pl.DataFrame,
+    gaps: pl.DataFrame,
+    weather: pl.DataFrame,
+    window,
+    thr: Thresholds,
+    *,
+    lookback_months: int,
+) -> pl.DataFrame:
+    """Every data issue of a chunk of buildings but the one against the expectation (:func:`far_from_expectation`).
+
+    ``spans`` carries ``station_id``; ``span_missing`` is the days without weather of each span (in ``spans``
+    order); ``thr`` the ``[thresholds]`` settings (:class:`screening.config.Thresholds`). Returns ``building_id, code, detail, blocking`` sorted by
+    building and code, ``blocking`` as declared in :data:`DATA_ISSUE_CODES`.
+    """
+    # (the days filled at a span's end are their own issue, end_days_filled, not a gap in the reads)
+    read_spans = spans.drop("station_id").with_columns(
+        (pl.col("span_end") - pl.duration(days=pl.col("filled_days"))).alias("span_end")
+    )
+    issues = [
+        metered.reading_issues(
+            conv,
+            read_spans,
+            lookback_months=lookback_months,
+            min_coverage=thr.coverage_min,
+            max_estimated_share=thr.estimated_share_max,
+        ),
+        missing_bill_issues(conv, spans, window),
+        filled_end_issues(met),
+        unit_error_issues(conv, b, thr.unit_error_factor, isolation=thr.unit_error_isolation),
+        fit_outlier_issues(periods, met, thr.unit_error_factor_fit, thr.unit_error_isolation),
+    ]
+    wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
+    # a station without a single day of weather in the span: its own issue, not a gap
+    no_wx = wgap.filter(pl.col("missing") >= pl.col("span_days"))
+    wgap = wgap.filter(pl.col("missing") < pl.col("span_days"))
+    if wgap.height:
+        gdetail = gap_details(gaps, wgap)
+        issues.append(gdetail)
+    if no_wx.height:
+        issues.append(no_weather_issues(no_wx, weather))
+    no_read = spans.join(conv.select("building_id").unique(), on="building_id", how="anti")
+    if no_read.height:
+        issues.append(
+            no_read.select(
+                "building_id",
+                pl.lit("no_readings").alias("code"),
+                pl.lit(ISSUE_TEXT["no_readings"]).alias("detail"),
+                pl.lit(True).alias("blocking"),
+            )
+        )
+    other_only = other_fuel_only(conv, b)
+    if other_only.height:
+        issues.append(other_only)
+    issues_df = (
+        pl.concat([i.select("building_id", "code", "detail", "blocking") for i in issues])
+        .unique()
+        .sort("building_id", "code")
+    )
+    # where the span is the window, missing_bills names the days a gap in the span would name again
+    named = issues_df.filter(pl.col("code") == "missing_bills").join(
+        spans.filter(pl.col("span_kind") != "shifted").select("building_id"), on="building_id"
+    )["building_id"]
+    issues_df = issues_df.filter(~((pl.col("code") == "gap_in_reads") & pl.col("building_id").is_in(named.implode())))
+    issues_df = issues_df.with_columns(  # whether an issue blocks a verdict: declared once, DATA_ISSUE_CODES
+        pl.col("code").replace_strict(DATA_ISSUE_CODES, return_dtype=pl.Boolean).alias("blocking")
+    )
+    if other_only.height:  # "0 % covered" says nothing more than "no reading in the heating fuel"
+        issues_df = issues_df.filter(
+            ~((pl.col("code") == "low_coverage") & pl.col("building_id").is_in(other_only["building_id"].implode()))
+        )
+    return issues_df
+
+
+def far_from_expectation(frame: pl.DataFrame, issues_df: pl.DataFrame, thr: Thresholds) -> pl.DataFrame:
+    """``issues_df`` with ``likely_unit_error`` added where metered heating is far off the expectation.
+
+    A ratio ``actual_heating_kbtu / expected_heating_kbtu`` [-] at or above ``thr.unit_error_factor_expected``
+    or at or below 1/``thr.unit_error_factor_expected_low`` is a data problem, not waste (only a finite ratio
+    over a positive expectation; a missing fuel or missing weather has its own issue, :data:`NO_BASIS_CODES`).
+    """
+    uf = thr.unit_error_factor_expected
+    ratio = pl.col("actual_heating_kbtu") / pl.col("expected_heating_kbtu")
+    # (only a finite ratio over a positive expectation; a missing fuel or missing weather has its own issue)
+    no_basis = issues_df.filter(pl.col("code").is_in(list(NO_BASIS_CODES)))["building_id"].implode()
+    far = frame.filter(
+        ((ratio >= uf) | (ratio <= 1 / thr.unit_error_factor_expected_low))
+        & (pl.col("expected_heating_kbtu") > 0)
+        & ratio.is_finite()
+        & ~pl.col("building_id").is_in(no_basis)
+    ).select(
+        "building_id",
+        pl.lit("likely_unit_error").alias("code"),
+        (
+            pl.lit("metered heating is ")
+            + pl.when(ratio >= 10)
+            .then(ratio.round(0).cast(pl.Int64).cast(pl.String))
+            .otherwise(ratio.round_sig_figs(3).cast(pl.String))
+            + pl.lit("× the expectation: check the units (")
+            + pl.col("heating_fuel").replace_strict(UNIT_MIXUPS, default="the unit column against the bills")
+            + pl.lit(") and the floor area")
+            + pl.when((pl.col("heating_fuel") == "electricity") & (ratio < 1))
+            .then(
+                pl.lit(
+                    "; for electric heat also a heat pump (give its seasonal COP as heating_efficiency) "
+                    "or a meter whose lights, plugs and cooling leave little to heating"
+                )
+            )
+            .otherwise(pl.lit(""))
+        ).alias("detail"),
+        pl.lit(True).alias("blocking"),
+    )
+    return pl.concat([issues_df, far]).unique(subset=["building_id", "code"], keep="first").sort("building_id", "code")
