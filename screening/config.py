@@ -98,6 +98,11 @@ class Run:
         "buildings screened at a time (0 = all at once); peak memory grows with it",
         range=(0, 100_000_000, "a whole number of buildings"),
     )
+    ingest_chunk_mb: int = setting(
+        32,
+        "MB of a buildings or readings CSV read, checked and stored at a time (0 = each file whole)",
+        range=(0, 1_000_000, "a whole number of MB"),
+    )
 
 
 @dataclass

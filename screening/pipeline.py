@@ -20,7 +20,7 @@ import polars as pl
 
 from . import degree_days as ddm
 from . import envelope as env
-from . import metered, refdata, screen, units
+from . import metered, refdata, screen, streaming, units
 from .errors import ConfigError, InputError
 from .schema import KBTU_TO_KWH, issue_codes
 from .ingest import REJECT_SCHEMA, Loaded, ReadOptions, read_buildings, read_readings
@@ -98,6 +98,7 @@ def read_options(cfg: dict) -> ReadOptions:
         encoding=r["encoding"] or None,
         columns=dict(cfg["inputs"].get("columns") or {}),
         thousands=r.get("thousands", ""),
+        chunk_bytes=int(cfg.get("run", {}).get("ingest_chunk_mb", streaming.STREAM_CHUNK_BYTES >> 20)) << 20,
     )
 
 
@@ -135,16 +136,27 @@ def _read_weather(path: str, opts: ReadOptions):
 
 
 def load_inputs(
-    store: Store, files: dict[str, list[str]], opts: ReadOptions, *, force: bool = False, log=None
+    store: Store,
+    files: dict[str, list[str]],
+    opts: ReadOptions,
+    *,
+    force: bool = False,
+    log=None,
+    chunk_bytes: int | None = None,
 ) -> list[FileLoad]:
     """Load new or changed input files into the store, all in one transaction.
 
-    Every file is read and checked before anything is written, so a structural error
-    in any file leaves the database unchanged. A file whose content hash and reading
-    options match its last load is not read again.
+    A structural error in any file leaves the database unchanged: the files read whole are read
+    and checked before anything is written; a buildings or readings CSV larger than ``chunk_bytes``
+    (default ``opts.chunk_bytes``, ``[run] ingest_chunk_mb``; 0 reads every file whole) is read, checked and
+    written a chunk at a time inside the transaction (:mod:`screening.streaming`), which an error
+    rolls back. A file whose content hash and reading options match its last load is not read again.
     """
     log = log or (lambda msg: None)
     oh = _options_hash(opts)
+    if chunk_bytes is None:
+        chunk_bytes = streaming.STREAM_CHUNK_BYTES if opts.chunk_bytes is None else opts.chunk_bytes
+    chunk = int(chunk_bytes)
     plan: list[tuple[str, str, str, Loaded | None]] = []
     for kind in KINDS:
         for path in files.get(kind, []):
@@ -152,6 +164,9 @@ def load_inputs(
             prev = store.rows("get_input_file", {"kind": kind, "path": str(path)})
             if prev and prev[0][0] == digest and prev[0][1] == oh and not force:
                 plan.append((kind, str(path), digest, None))
+                continue
+            if streaming.streamable(kind, str(path), chunk):
+                plan.append((kind, str(path), digest, _STREAM))
                 continue
             log(f"reading {kind} file {path}")
             plan.append((kind, str(path), digest, read_file(kind, str(path), opts)))
@@ -162,6 +177,18 @@ def load_inputs(
                 r = store.rows("get_input_file", {"kind": kind, "path": path})[0]
                 out.append(FileLoad(kind, path, digest, "unchanged", int(r[2]), int(r[3])))
                 continue
+            if loaded is _STREAM:
+                log(f"reading {kind} file {path} in chunks")
+                try:
+                    st = streaming.load_streamed(store, kind, path, opts, chunk_bytes=chunk)
+                except streaming.WholeFile as why:
+                    log(f"reading {kind} file {path} whole ({why})")
+                    streaming.forget_file(store, kind, path)
+                    loaded = read_file(kind, path, opts)
+                else:
+                    _record_input(store, kind, path, digest, oh, st.rows, st.rejected)
+                    out.append(FileLoad(kind, path, digest, "loaded", st.rows, st.rejected, st.notices))
+                    continue
             p = {"path": path}
             if kind == "buildings":
                 store.execute("delete_buildings_from_file", p)
@@ -176,20 +203,28 @@ def load_inputs(
             store.execute(
                 "insert_load_rejects", {"kind": kind, "path": path}, stage_rejects=loaded.rejects.cast(REJECT_SCHEMA)
             )
-            store.execute(
-                "record_input_file",
-                {
-                    "path": path,
-                    "kind": kind,
-                    "sha256": digest,
-                    "options_hash": oh,
-                    "rows_loaded": loaded.df.height,
-                    "rows_rejected": loaded.rejects.height,
-                },
-            )
+            _record_input(store, kind, path, digest, oh, loaded.df.height, loaded.rejects.height)
             out.append(FileLoad(kind, path, digest, "loaded", loaded.df.height, loaded.rejects.height, loaded.notices))
         _forget_other_files(store, files)
     return out
+
+
+#: In a load plan: the file is read in chunks inside the transaction (screening.streaming).
+_STREAM = Loaded("", pl.DataFrame(), pl.DataFrame(), [])
+
+
+def _record_input(store: Store, kind: str, path: str, digest: str, oh: str, rows: int, rejected: int) -> None:
+    store.execute(
+        "record_input_file",
+        {
+            "path": path,
+            "kind": kind,
+            "sha256": digest,
+            "options_hash": oh,
+            "rows_loaded": rows,
+            "rows_rejected": rejected,
+        },
+    )
 
 
 def _forget_other_files(store: Store, files: dict[str, list[str]]) -> None:
