@@ -12,8 +12,10 @@ from abc import ABC, abstractmethod
 import hashlib
 import json
 import time
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import polars as pl
@@ -365,6 +367,15 @@ class ReadingsSource(ABC):
         """The readings of every other building (rejected as unknown buildings)."""
 
 
+class ChunkExecutor(ABC):
+    """Runs the per-chunk work of :func:`screen_frames` elsewhere (``screening.cluster.DaskChunks``: tasks on
+    Dask); without one, the chunks run one after the other in this process."""
+
+    @abstractmethod
+    def screen_parts(self, chunks: Iterator[tuple[pl.DataFrame, pl.DataFrame]], common: dict) -> list[_Part]:
+        """``_screen_part(buildings, readings, lap=…, **common)`` of every chunk, in the chunks' order."""
+
+
 class FrameReadings(ReadingsSource):
     """Readings held in memory as one frame."""
 
@@ -653,6 +664,7 @@ def screen_frames(
     plan_context: pl.DataFrame | None = None,
     chunk_buildings: int = 0,
     fit_block: int | None = None,
+    executor: ChunkExecutor | None = None,
 ) -> Screened:
     """Screen a portfolio (canonical IP frames, see DEVELOPERS.md).
 
@@ -667,6 +679,7 @@ def screen_frames(
     statistics (peer medians and spreads, year-on-year z, the ranking: :func:`screen.screen`) run
     once over all results. A chunk is a whole number of regression blocks of ``fit_block``
     buildings (default :data:`FIT_BLOCK`; :func:`chunk_size`), so the results are those of one pass.
+    ``executor`` runs the chunks elsewhere (:class:`ChunkExecutor`, e.g. ``cluster.DaskChunks``).
     """
     fit_block = fit_block or FIT_BLOCK
     paths = paths or {}
@@ -711,33 +724,29 @@ def screen_frames(
     # per-building work, a chunk of buildings at a time (each building's rows depend only on its own)
     size = chunk_size(chunk_buildings, b.height, fit_block)
     chunked = size < b.height
-    parts: list[_Part] = []
-    for c0 in range(0, b.height, max(size, 1)):
-        bc = b.slice(c0, size)
-        rc = source(bc["building_id"])
-        parts.append(
-            _screen_part(
-                bc,
-                rc,
-                weather,
-                cfg,
-                cube=cube,
-                normals=normals,
-                gaps=gaps,
-                grid=grid,
-                window=window,
-                paths=paths,
-                previous=previous,
-                plan_context=plan_context,
-                events=events,
-                chunked=chunked,
-                fit_block=fit_block,
-                lap=lap,
-                learned=learned,
-            )
-        )
-        del rc
-    del source
+    common: dict[str, Any] = dict(
+        weather=weather,
+        cfg=cfg,
+        cube=cube,
+        normals=normals,
+        gaps=gaps,
+        grid=grid,
+        window=window,
+        paths=paths,
+        previous=previous,
+        plan_context=plan_context,
+        events=events,
+        chunked=chunked,
+        fit_block=fit_block,
+        learned=learned,
+    )
+    chunks = ((bc, source(bc["building_id"])) for bc in (b.slice(c0, size) for c0 in range(0, b.height, max(size, 1))))
+    if executor is None:
+        parts = [_screen_part(bc, rc, lap=lap, **common) for bc, rc in chunks]
+    else:  # elsewhere (screening.cluster): the per-chunk stages are timed together
+        parts = executor.screen_parts(chunks, common)
+        lap("chunks_elsewhere")
+    del source, chunks
     if chunked and not any(p.covered for p in parts):
         firsts = [p.first for p in parts if p.first is not None]
         lasts = [p.last for p in parts if p.last is not None]

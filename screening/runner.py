@@ -25,7 +25,7 @@ from typing import Any, TextIO
 import duckdb
 import polars as pl
 
-from . import __version__, config as cfgmod, interrupts, locking, memory, outputs, pipeline, published, sources
+from . import __version__, cluster, config as cfgmod, interrupts, locking, memory, outputs, pipeline, published, sources
 from .errors import ConfigError, InputError, LockedError, OutputError, ScreeningError, StoreError
 from .errors import Interrupted
 from .ingest import REJECT_SCHEMA
@@ -274,12 +274,26 @@ def run(
 
     with interrupts.stop_on_signals(), _Lock(str(db_path) + ".lock"):  # SIGINT/SIGTERM -> Interrupted
         bar = _Progress(progress and not quiet)
+        ex = cluster.from_config(cfg, db_path)  # [run] cluster: tasks on Dask (None: this process)
         try:
             return _run_locked(
-                cfg, files, db_path, target, root, label, as_of, window, force=force, config_path=config_path, bar=bar
+                cfg,
+                files,
+                db_path,
+                target,
+                root,
+                label,
+                as_of,
+                window,
+                force=force,
+                config_path=config_path,
+                bar=bar,
+                executor=ex,
             )
         finally:
             bar.close()
+            if ex is not None:
+                ex.close()
 
 
 def _run_locked(
@@ -295,6 +309,7 @@ def _run_locked(
     force,
     config_path,
     bar: "_Progress | None" = None,
+    executor: "cluster.DaskChunks | None" = None,
 ):
     """The run under the lock, in three phases.
 
@@ -412,6 +427,7 @@ def _run_locked(
                 events=events,
                 plan_context=plan_ctx,
                 chunk_buildings=cfg["run"]["chunk_buildings"],
+                executor=executor,
             )
         finally:
             if src is not None:
@@ -506,7 +522,13 @@ def _run_locked(
             )
             (tmp / "sheets").mkdir()
             names = report.assign_filenames([s["building_id"] for s in sheets])
-            report.render_sheets(sheets, tmp / "sheets", paper=paper, workers=_workers(cfg["output"]["workers"]))
+            report.render_sheets(
+                sheets,
+                tmp / "sheets",
+                paper=paper,
+                workers=_workers(cfg["output"]["workers"]),
+                chunk_runner=executor.render_chunks if executor is not None else None,
+            )
             timings["sheets"] = round(time.perf_counter() - t, 4)
             sheet_files = {b: f"sheets/{v}.pdf" for b, v in names.items()}
             outputs.write_csv(

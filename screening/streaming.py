@@ -273,9 +273,9 @@ def load_streamed(
             ingest.building_duplicates(dup, label) if dup.height else (dup, ingest.empty_rejects(), 0)
         )
     if dup.height:
-        drop = sorted(set(dup[LINE_COL].to_list()) - set(kept[LINE_COL].to_list()))
-        store.execute(f"delete_{kind}_of_file_lines", {"path": label, "lines": drop})
-        n_rows -= len(drop)
+        drop = dup.select(pl.col(LINE_COL).alias("line")).filter(~pl.col("line").is_in(kept[LINE_COL].implode()))
+        store.execute(f"delete_{kind}_of_file_lines", {"path": label}, stage_lines=drop)
+        n_rows -= drop.height
     if n_exact:
         notices.append(ingest.duplicate_notice(kind, label, n_exact))
     if extra.height:

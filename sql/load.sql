@@ -105,7 +105,8 @@ WHERE r.source_file = $path
 ORDER BY r.source_line;
 
 -- name: delete_readings_of_file_lines
-DELETE FROM readings WHERE source_file = $path AND list_contains($lines::BIGINT[], source_line);
+-- stage_lines: the lines (column line) to delete, as a registered frame (a hash join, not a list scan)
+DELETE FROM readings WHERE source_file = $path AND source_line IN (SELECT line FROM stage_lines);
 
 -- name: select_repeated_buildings_of_file
 -- Streaming ingest: the rows of one buildings file whose building_id occurs more than once in it.
@@ -117,4 +118,4 @@ WHERE source_file = $path
 ORDER BY source_line;
 
 -- name: delete_buildings_of_file_lines
-DELETE FROM buildings WHERE source_file = $path AND list_contains($lines::BIGINT[], source_line);
+DELETE FROM buildings WHERE source_file = $path AND source_line IN (SELECT line FROM stage_lines);
