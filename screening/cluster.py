@@ -64,9 +64,13 @@ class DaskChunks(pipeline.ChunkExecutor):
         m = CLUSTER_LOCAL.match(address)
         try:
             if m:
-                self._cluster = LocalCluster(
-                    n_workers=int(m.group(1)), threads_per_worker=1, processes=True, dashboard_address=None
-                )
+                from .report import _main_not_reimported
+
+                # the worker processes are spawned: they must not run ``python -m screening`` (an unguarded main) again
+                with _main_not_reimported():
+                    self._cluster = LocalCluster(
+                        n_workers=int(m.group(1)), threads_per_worker=1, processes=True, dashboard_address=None
+                    )
                 self.client = Client(self._cluster)
             else:
                 self.client = Client(address, timeout="30s")
