@@ -10,7 +10,7 @@ names where the tasks run:
   (the chunks' Parquet files are written there) and the output folder (the sheets are written there).
 
 A run then writes each chunk's buildings and readings as Parquet partitions
-(``<database folder>/.ddscreen-cluster-*/chunk-<k>/``), one task per chunk reads them and runs
+(``<database folder>/.ddscreen-cluster-*/screen-*/chunk-<k>/``), one task per chunk reads them and runs
 ``pipeline._screen_part`` (the same function as in one process), writes the chunk's result frames as
 Parquet partitions beside them and returns only their column types; DuckDB reads the partitions back
 (``sql/cluster.sql``), in chunk order, and the portfolio pass runs here as usual. The sheets' chunks
@@ -83,14 +83,16 @@ class DaskChunks(pipeline.ChunkExecutor):
     # -- screening ------------------------------------------------------------------------
     def screen_parts(self, chunks: Iterator[tuple[pl.DataFrame, pl.DataFrame]], common: dict) -> list:
         shared = self.client.scatter(common, broadcast=True, hash=False)
+        call = Path(tempfile.mkdtemp(prefix="screen-", dir=self.work))  # one folder per screening
         futures = []
         for k, (b, r) in enumerate(chunks):  # each chunk's inputs written, then its task submitted at once
-            d = self.work / f"chunk-{k:05d}"
+            d = call / f"chunk-{k:05d}"
             d.mkdir()
             b.write_parquet(d / "buildings.parquet")
             r.write_parquet(d / "readings.parquet")
             del b, r
-            futures.append(self.client.submit(screen_chunk, str(d), shared, key=f"ddscreen-chunk-{k}-{d.parent.name}"))
+            key = f"ddscreen-chunk-{k}-{self.work.name}-{call.name}"
+            futures.append(self.client.submit(screen_chunk, str(d), shared, key=key))
         metas = self.client.gather(futures)
         parts = []
         with Store(":memory:") as store:

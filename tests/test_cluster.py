@@ -37,10 +37,9 @@ def test_chunks_on_dask_equal_one_process(address, tmp_path):
     ex = cluster.DaskChunks(address, work_root=tmp_path)
     try:
         there = pipeline.screen_frames(b, r, w, cfg, window=window, fit_block=10, chunk_buildings=50, executor=ex)
-        written = sorted(p.name for p in ex.work.glob("chunk-*"))
+        written = sorted(ex.work.glob("screen-*/chunk-*"))
         assert len(written) == 4  # 200 buildings in chunks of 50, each a Parquet partition
-        assert {p.name for p in (ex.work / written[0]).iterdir()} >= {"buildings.parquet", "readings.parquet"}
-        assert (ex.work / written[0] / "frame.parquet").exists()
+        assert {p.name for p in written[0].iterdir()} >= {"buildings.parquet", "readings.parquet", "frame.parquet"}
     finally:
         ex.close()
     assert not ex.work.exists()  # its own folder removed
