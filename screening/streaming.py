@@ -44,6 +44,21 @@ _SLASH_DATE = r"^\d{1,2}[/.]\d{1,2}[/.]\d{2,4}$"
 STREAMED_KINDS = ("buildings", "readings")
 
 
+#: The named statements (sql/load.sql) of each streamed kind.
+_STATEMENTS = {
+    "readings": {
+        "insert": "insert_readings",
+        "delete_file": "delete_readings_from_file",
+        "delete_lines": "delete_readings_of_file_lines",
+    },
+    "buildings": {
+        "insert": "insert_buildings",
+        "delete_file": "delete_buildings_from_file",
+        "delete_lines": "delete_buildings_of_file_lines",
+    },
+}
+
+
 class WholeFile(Exception):
     """This file is read by the whole-file path (see the module's docstring); the reason in words."""
 
@@ -244,7 +259,7 @@ def load_streamed(
     tally: dict = {}
     n_rows = n_rej = 0
     p = {"path": label}
-    insert = "insert_readings" if kind == "readings" else "insert_buildings"
+    insert = _STATEMENTS[kind]["insert"]
     for raw, structural in _raw_chunks(path, label, spec, opts, kind, sc, chunk_bytes, notices):
         if raw.height:
             _whole_file_checks(kind, raw, opts)
@@ -274,7 +289,7 @@ def load_streamed(
         )
     if dup.height:
         drop = dup.select(pl.col(LINE_COL).alias("line")).filter(~pl.col("line").is_in(kept[LINE_COL].implode()))
-        store.execute(f"delete_{kind}_of_file_lines", {"path": label}, stage_lines=drop)
+        store.execute(_STATEMENTS[kind]["delete_lines"], {"path": label}, stage_lines=drop)
         n_rows -= drop.height
     if n_exact:
         notices.append(ingest.duplicate_notice(kind, label, n_exact))
@@ -286,7 +301,7 @@ def load_streamed(
 
 def forget_file(store: Store, kind: str, path: str) -> None:
     """Delete a file's stored rows and load rejects (inside the caller's transaction)."""
-    store.execute(f"delete_{kind}_from_file", {"path": str(path)})
+    store.execute(_STATEMENTS[kind]["delete_file"], {"path": str(path)})
     store.execute("delete_load_rejects", {"kind": kind, "path": str(path)})
 
 
