@@ -8,7 +8,7 @@ The reference tree is ``git archive <ref>`` unpacked under the system's temp fol
 reuse). Each run is a fresh ``python -m screening`` process without sheets. Compared byte for
 byte: ranking.csv, audit_plan.csv, data_issues.csv, rejects.csv, assumptions.csv; summary.json
 as parsed JSON without ``run_id`` (a hash that includes the settings); the run id inside the CSVs
-is masked the same way. Exit 1 and the first differing line when anything differs.
+is masked the same way, and so is summary.json's ``previous_run`` (the earlier run's id). Exit 1 and the first differing line when anything differs.
 """
 
 from __future__ import annotations
@@ -85,6 +85,8 @@ def compare(a: Path, b: Path, roots: tuple[Path, Path] = (ROOT, ROOT)) -> list[s
     sa, sb = (json.loads((d / "summary.json").read_text().replace(r, "<tree>")) for d, r in ((a, ra), (b, rb)))
     for s in (sa, sb):
         s.pop("run_id", None)
+        if s.get("previous_run"):  # a run id too (a hash that includes the settings): masked, kept present
+            s["previous_run"] = "<run>"
     if sa != sb:
         keys = sorted(k for k in set(sa) | set(sb) if sa.get(k) != sb.get(k))
         diffs.append(f"summary.json differs in {keys}")

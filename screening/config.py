@@ -11,6 +11,7 @@ wrong type raises ``ConfigError`` naming the key and what is expected.
 from __future__ import annotations
 
 import copy
+import re
 import datetime as _dt
 import hashlib
 import json
@@ -97,6 +98,16 @@ class Run:
         16384,
         "buildings screened at a time (0 = all at once); peak memory grows with it",
         range=(0, 100_000_000, "a whole number of buildings"),
+    )
+    ingest_chunk_mb: int = setting(
+        32,
+        "MB of a buildings or readings CSV read, checked and stored at a time (0 = each file whole)",
+        range=(0, 1_000_000, "a whole number of MB"),
+    )
+    cluster: str = setting(
+        "",
+        "run the screening chunks and the sheets on Dask (pip install 'ddscreen[cluster]'): local:N (a local "
+        "cluster of N worker processes) or a scheduler address tcp://host:8786; empty = this process",
     )
 
 
@@ -577,6 +588,7 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
                 f"{EARLIEST.year} to {last_complete}"
             )
     check_columns(cfg["inputs"]["columns"])
+    check_cluster(cfg["run"]["cluster"])
     r = cfg["reading"]
     dec = "," if r["decimal_comma"] else "."
     if r["thousands"] not in ("", ",", ".", " ", "'") or r["thousands"] == dec:
@@ -604,6 +616,23 @@ def validate(cfg: dict, *, today: _dt.date | None = None) -> dict:
             continue
         _check_range("prices", k, v, 0.0, PRICE_MAX, "a price per unit")
     return cfg
+
+
+#: ``[run] cluster = "local:N"``: a local Dask cluster of N worker processes (screening/cluster.py).
+CLUSTER_LOCAL = re.compile(r"^local:(\d{1,3})$")
+
+
+def check_cluster(address: str) -> None:
+    """``[run] cluster``: empty (this process), ``local:N`` (1 ≤ N ≤ 256) or a scheduler address (``://``)."""
+    m = CLUSTER_LOCAL.match(address)
+    if address == "" or "://" in address or (m and 1 <= int(m.group(1)) <= 256):
+        return
+    raise _range_error(
+        "[run] cluster",
+        address,
+        "empty (this process), local:N (a local Dask cluster of N worker processes, 1-256) or a scheduler "
+        "address such as tcp://host:8786",
+    )
 
 
 def column_names() -> dict[str, list[str]]:
@@ -740,7 +769,8 @@ def _file_keys(data: dict) -> set[tuple[str, str]]:
 
 
 def config_hash(cfg: dict) -> str:
-    """A stable hash of the settings that change results (paths excluded)."""
-    relevant = {k: v for k, v in cfg.items() if k not in ("inputs", "store", "output")}
+    """A stable hash of the settings that change results (paths excluded; [run] only says how a run is
+    executed: chunk sizes, the Dask cluster)."""
+    relevant = {k: v for k, v in cfg.items() if k not in ("inputs", "store", "output", "run")}
     relevant["output"] = {"paper": cfg["output"]["paper"]}
     return hashlib.sha256(json.dumps(relevant, sort_keys=True, default=str).encode()).hexdigest()[:16]

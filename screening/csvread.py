@@ -411,18 +411,43 @@ def _fast_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
 
 
 def _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields, n_lines):
-    """Records through the csv module (quoted fields, embedded newlines).
+    """Records through the csv module (quoted fields, embedded newlines): one frame of the whole file
+    (see :func:`slow_batches`)."""
+    frames, rejects, repeated_headers = [], [], 0
+    for df, rej, rep in slow_batches(reader, label, delim, header_norm, idx, wanted, n_fields, n_lines):
+        frames.append(df)
+        rejects += rej
+        repeated_headers += rep
+    return pl.concat(frames), rejects, repeated_headers
 
-    A record with too few fields that spans several lines up to the end of the file is
-    an unclosed quote (the csv module reads it to the end): a structural error, since
-    every later record is lost inside it.
+
+def slow_batches(reader, label, delim, header_norm, idx, wanted, n_fields, n_lines, batch_records=None):
+    """Records through the csv module (quoted fields, embedded newlines), ``batch_records`` kept
+    records at a time (all at once when None): ``(frame, rejects, repeated headers)`` per batch, the
+    last batch always yielded (possibly empty).
+
+    ``reader`` has read the header line; line numbers are physical lines of the file (the reader's
+    ``line_num``). A record with too few fields that spans several lines up to the end of the file
+    (line ``n_lines``) is an unclosed quote (the csv module reads it to the end): a structural error,
+    since every later record is lost inside it.
     """
     cols: list[list[str | None]] = [[] for _ in wanted]
     lines: list[int] = []
     rejects: list[dict] = []
     repeated_headers = 0
     start_line = 2
+
+    def batch():
+        df = pl.DataFrame(
+            {name: pl.Series(name, col, dtype=pl.String) for name, col in zip(wanted, cols)}
+            | {LINE_COL: pl.Series(LINE_COL, lines, dtype=pl.Int64)}
+        )
+        return df, rejects, repeated_headers
+
     while True:
+        if batch_records and len(lines) >= batch_records:
+            yield batch()
+            cols, lines, rejects, repeated_headers = [[] for _ in wanted], [], [], 0
         try:
             row = next(reader)
         except StopIteration:
@@ -472,8 +497,4 @@ def _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields, n_li
             v = row[k].strip()
             cols[j].append(v if v != "" else None)
         lines.append(this_line)
-    df = pl.DataFrame(
-        {name: pl.Series(name, col, dtype=pl.String) for name, col in zip(wanted, cols)}
-        | {LINE_COL: pl.Series(LINE_COL, lines, dtype=pl.Int64)}
-    )
-    return df, rejects, repeated_headers
+    yield batch()

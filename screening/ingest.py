@@ -62,6 +62,9 @@ class ReadOptions:
     thousands: str = ""  # [reading] thousands: the thousands separator written in numbers
     min_date: _dt.date = _dt.date(1900, 1, 1)
     max_date: _dt.date = field(default_factory=lambda: _dt.date.today() + _dt.timedelta(days=366))
+    chunk_bytes: int | None = (
+        None  # [run] ingest_chunk_mb: streaming ingest's chunk (None: its default; 0: whole files)
+    )
 
 
 @dataclass
@@ -98,8 +101,14 @@ MONEY_COLUMNS = ("cost", "price")
 SHARE_COLUMNS = ("heating_efficiency", "window_fraction", "heat_recovery")
 
 
-def _number_formats(s: pl.Series, col: str, label: str, opts: ReadOptions, notices: list[str] | None):
-    """Currency symbols, percent signs and thousands separators (see :func:`parse.number_text`)."""
+def _number_formats(
+    s: pl.Series, col: str, label: str, opts: ReadOptions, notices: list[str] | None, tally: dict | None = None
+):
+    """Currency symbols, percent signs and thousands separators (see :func:`parse.number_text`).
+
+    With ``tally`` the counts are added up there (``(column, what) → n``, a file read in chunks;
+    :func:`format_notices` words them at the end) instead of worded into ``notices``.
+    """
     text, fmt_problem, counts = number_text(
         s,
         decimal_comma=opts.decimal_comma,
@@ -107,22 +116,31 @@ def _number_formats(s: pl.Series, col: str, label: str, opts: ReadOptions, notic
         money=col in MONEY_COLUMNS,
         share=col in SHARE_COLUMNS,
     )
-    if notices is not None:
-        what = {
-            "currency": "currency symbol(s) removed",
-            "percent": "percent value(s) read as shares (85% = 0.85)",
-            "thousands": f"value(s) read with the thousands separator {opts.thousands!r}",
-        }
+    if tally is not None:
         for k, n in counts.items():
-            if n:
-                notices.append(f"{label}: {col}: {n} {what[k]}")
+            tally[(col, k)] = tally.get((col, k), 0) + n
+    elif notices is not None:
+        notices.extend(format_notices(label, opts, [col], {(col, k): n for k, n in counts.items()}))
     return text, fmt_problem
 
 
+def format_notices(label: str, opts: ReadOptions, cols: list[str], tally: dict) -> list[str]:
+    """The notices of the number formats met in ``cols`` (in that order), from their counts."""
+    what = {
+        "currency": "currency symbol(s) removed",
+        "percent": "percent value(s) read as shares (85% = 0.85)",
+        "thousands": f"value(s) read with the thousands separator {opts.thousands!r}",
+    }
+    return [f"{label}: {col}: {tally[(col, k)]} {what[k]}" for col in cols for k in what if tally.get((col, k))]
+
+
 def _typed_columns(
-    raw: pl.DataFrame, spec, label: str, opts: ReadOptions, notices: list[str] | None = None
+    raw: pl.DataFrame, spec, label: str, opts: ReadOptions, notices: list[str] | None = None, tally: dict | None = None
 ) -> tuple[pl.DataFrame, pl.DataFrame]:
-    """Parse every column of ``raw`` per ``spec``; return typed frame (all rows) and problems."""
+    """Parse every column of ``raw`` per ``spec``; return typed frame (all rows) and problems.
+
+    ``tally``: add up the number-format counts there instead of wording notices (see
+    :func:`_number_formats`)."""
     typed: dict[str, pl.Series] = {}
     problems = []
     factors = si_factors() if opts.units == "SI" else {}
@@ -155,7 +173,7 @@ def _typed_columns(
                 lo = None if lo is None else (lo - off) / f
                 hi = None if hi is None else (hi - off) / f
             fn = parse_int if kind == "int" else parse_float
-            text, fmt_problem = _number_formats(s, col, label, opts, notices)
+            text, fmt_problem = _number_formats(s, col, label, opts, notices, tally)
             v, p = fn(
                 text, decimal_comma=opts.decimal_comma, min_value=lo, max_value=hi, min_exclusive=o.get("excl", False)
             )
@@ -258,33 +276,55 @@ def read_buildings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     label = t.path
     good, rej = _combine(typed, prob, t.rejects)
     notices = list(t.notices)
-    # duplicates
+    good, extra, n_exact = building_duplicates(good, label)
+    if extra.height:
+        rej = pl.concat([rej, extra])
+    if n_exact:
+        notices.append(duplicate_notice("buildings", label, n_exact))
+    return Loaded(label, good.sort("building_id"), rej.sort("line"), notices)
+
+
+def duplicate_notice(kind: str, label: str, n: int) -> str:
+    """The notice of exact duplicate rows kept once."""
+    what = "building" if kind == "buildings" else "reading"
+    return f"{label}: {n} exact duplicate {what} row(s) kept once"
+
+
+def building_duplicates(good: pl.DataFrame, label: str) -> tuple[pl.DataFrame, pl.DataFrame, int]:
+    """Rows of one buildings file (in line order) sharing a ``building_id``: identical data kept once,
+    different data rejected on every such row. Returns (kept rows, rejects, exact duplicates dropped).
+
+    Only rows whose ``building_id`` appears more than once are touched, so the rows of those ids alone
+    (a file read in chunks: :mod:`screening.streaming`) give the same answer for them.
+    """
     data_cols = [c for c in good.columns if c != LINE_COL]
     dup = good.filter(pl.col("building_id").is_duplicated())
-    if dup.height:
-        distinct = dup.unique(subset=data_cols, keep="first", maintain_order=True)
-        conflicted = distinct.filter(pl.col("building_id").is_duplicated())["building_id"].unique()
-        conflict_rows = good.filter(pl.col("building_id").is_in(conflicted.implode()))
-        lines = conflict_rows.group_by("building_id").agg(pl.col(LINE_COL).sort())
-        line_map = {r["building_id"]: r[LINE_COL] for r in lines.iter_rows(named=True)}
-        extra = [
-            {
-                "file": label,
-                "line": int(r[LINE_COL]),
-                "column": "building_id",
-                "value": r["building_id"],
-                "reason": "building_id appears with different data on lines "
-                + ", ".join(str(x) for x in line_map[r["building_id"]]),
-            }
-            for r in conflict_rows.sort(LINE_COL).iter_rows(named=True)
-        ]
-        rej = pl.concat([rej, rejects_frame(extra)])
-        good = good.filter(~pl.col("building_id").is_in(conflicted.implode()))
-        n_before = good.height
-        good = good.unique(subset=data_cols, keep="first", maintain_order=True)
-        if good.height < n_before:
-            notices.append(f"{label}: {n_before - good.height} exact duplicate building row(s) kept once")
-    return Loaded(label, good.sort("building_id"), rej.sort("line"), notices)
+    if not dup.height:
+        return good, empty_rejects(), 0
+    distinct = dup.unique(subset=data_cols, keep="first", maintain_order=True)
+    conflicted = distinct.filter(pl.col("building_id").is_duplicated())["building_id"].unique()
+    conflict_rows = good.filter(pl.col("building_id").is_in(conflicted.implode()))
+    lines = conflict_rows.group_by("building_id").agg(pl.col(LINE_COL).sort())
+    line_map = {r["building_id"]: r[LINE_COL] for r in lines.iter_rows(named=True)}
+    extra = [
+        {
+            "file": label,
+            "line": int(r[LINE_COL]),
+            "column": "building_id",
+            "value": r["building_id"],
+            "reason": "building_id appears with different data on lines "
+            + ", ".join(str(x) for x in line_map[r["building_id"]]),
+        }
+        for r in conflict_rows.sort(LINE_COL).iter_rows(named=True)
+    ]
+    good = good.filter(~pl.col("building_id").is_in(conflicted.implode()))
+    n_before = good.height
+    good = good.unique(subset=data_cols, keep="first", maintain_order=True)
+    return good, rejects_frame(extra), n_before - good.height
+
+
+READING_KEY = ["building_id", "fuel", "meter_id", "period_start", "period_end"]
+READING_DATA = READING_KEY + ["quantity", "unit", "estimated", "cost"]
 
 
 def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
@@ -302,6 +342,21 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
     else:
         typed, prob, stamp_notes = periods_from_reads(typed, prob, label, read_col)
     t.df = t.df.clear()  # the text columns are typed and read now; free them before the duplicate checks
+    good, rej = readings_checked(typed, prob, t.rejects, label)
+    notices = list(t.notices) + stamp_notes
+    good, extra, n_exact = reading_duplicates(good, label)
+    if n_exact:
+        notices.append(duplicate_notice("readings", label, n_exact))
+    if extra.height:
+        rej = pl.concat([rej, extra])
+    return Loaded(label, good.sort(["building_id", "fuel", "meter_id", "period_start"]), rej.sort("line"), notices)
+
+
+def readings_checked(
+    typed: pl.DataFrame, prob: pl.DataFrame, structural: list[dict], label: str
+) -> tuple[pl.DataFrame, pl.DataFrame]:
+    """Typed readings rows → (good rows, rejects): the values' problems, an end before the start, the
+    records' own rejects; each row alone (a chunk of a file gives the same rows as the whole file)."""
     order = typed.filter(pl.col("period_end") < pl.col("period_start")).select(
         pl.lit(label).alias("file"),
         pl.col(LINE_COL).alias("line"),
@@ -312,35 +367,38 @@ def read_readings(path: str | Path, opts: ReadOptions | None = None) -> Loaded:
         ),
     )
     prob = pl.concat([prob, order.cast(REJECT_SCHEMA)])
-    good, rej = _combine(typed, prob, t.rejects)
+    good, rej = _combine(typed, prob, structural)
     good = good.with_columns(
         pl.col("estimated").fill_null(False), pl.col("meter_id").fill_null(""), pl.col("unit").str.strip_chars()
     )
-    notices = list(t.notices) + stamp_notes
-    key = ["building_id", "fuel", "meter_id", "period_start", "period_end"]
-    data_cols = key + ["quantity", "unit", "estimated", "cost"]
+    return good, rej
+
+
+def reading_duplicates(good: pl.DataFrame, label: str) -> tuple[pl.DataFrame, pl.DataFrame, int]:
+    """Rows of one readings file (in line order) for the same meter and period: exact duplicates kept
+    once, different data rejected on every such row. Returns (kept rows, rejects, exact duplicates
+    dropped). Only rows whose key (:data:`READING_KEY`) appears more than once are touched."""
     n_before = good.height
-    good = good.unique(subset=data_cols, keep="first", maintain_order=True)
-    if good.height < n_before:
-        notices.append(f"{label}: {n_before - good.height} exact duplicate reading row(s) kept once")
-    conflict = good.filter(pl.struct(key).is_duplicated())
-    if conflict.height:
-        lines = conflict.group_by(key).agg(pl.col(LINE_COL).sort().alias("lines"))
-        conflict = conflict.join(lines, on=key)
-        extra = [
-            {
-                "file": label,
-                "line": int(r[LINE_COL]),
-                "column": "quantity",
-                "value": str(r["quantity"]),
-                "reason": f"same meter and period as line(s) {', '.join(str(x) for x in r['lines'] if x != r[LINE_COL])}"
-                " with different data",
-            }
-            for r in conflict.sort(LINE_COL).iter_rows(named=True)
-        ]
-        rej = pl.concat([rej, rejects_frame(extra)])
-        good = good.filter(~pl.struct(key).is_duplicated())
-    return Loaded(label, good.sort(["building_id", "fuel", "meter_id", "period_start"]), rej.sort("line"), notices)
+    good = good.unique(subset=READING_DATA, keep="first", maintain_order=True)
+    n_exact = n_before - good.height
+    conflict = good.filter(pl.struct(READING_KEY).is_duplicated())
+    if not conflict.height:
+        return good, empty_rejects(), n_exact
+    lines = conflict.group_by(READING_KEY).agg(pl.col(LINE_COL).sort().alias("lines"))
+    conflict = conflict.join(lines, on=READING_KEY)
+    extra = [
+        {
+            "file": label,
+            "line": int(r[LINE_COL]),
+            "column": "quantity",
+            "value": str(r["quantity"]),
+            "reason": f"same meter and period as line(s) {', '.join(str(x) for x in r['lines'] if x != r[LINE_COL])}"
+            " with different data",
+        }
+        for r in conflict.sort(LINE_COL).iter_rows(named=True)
+    ]
+    good = good.filter(~pl.struct(READING_KEY).is_duplicated())
+    return good, rejects_frame(extra), n_exact
 
 
 #: A readings file with read dates and no start dates: ``read_date`` (or ``period_end`` alone) ends each period.

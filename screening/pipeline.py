@@ -12,15 +12,17 @@ from abc import ABC, abstractmethod
 import hashlib
 import json
 import time
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import polars as pl
 
 from . import degree_days as ddm
 from . import envelope as env
-from . import config, data_issues, metered, refdata, screen, units, wording, yoy
+from . import config, data_issues, metered, refdata, screen, streaming, units, wording, yoy
 
 # the old names, re-exported for callers that read them here (outputs.py)
 from .data_issues import DATA_ISSUE_CODES, ISSUE_TEXT, NO_BASIS_CODES, PIPELINE_ISSUE_CODES  # noqa: F401
@@ -71,6 +73,7 @@ def read_options(cfg: dict) -> ReadOptions:
         encoding=r["encoding"] or None,
         columns=dict(cfg["inputs"].get("columns") or {}),
         thousands=r.get("thousands", ""),
+        chunk_bytes=int(cfg.get("run", {}).get("ingest_chunk_mb", streaming.STREAM_CHUNK_BYTES >> 20)) << 20,
     )
 
 
@@ -108,16 +111,27 @@ def _read_weather(path: str, opts: ReadOptions):
 
 
 def load_inputs(
-    store: Store, files: dict[str, list[str]], opts: ReadOptions, *, force: bool = False, log=None
+    store: Store,
+    files: dict[str, list[str]],
+    opts: ReadOptions,
+    *,
+    force: bool = False,
+    log=None,
+    chunk_bytes: int | None = None,
 ) -> list[FileLoad]:
     """Load new or changed input files into the store, all in one transaction.
 
-    Every file is read and checked before anything is written, so a structural error
-    in any file leaves the database unchanged. A file whose content hash and reading
-    options match its last load is not read again.
+    A structural error in any file leaves the database unchanged: the files read whole are read
+    and checked before anything is written; a buildings or readings CSV larger than ``chunk_bytes``
+    (default ``opts.chunk_bytes``, ``[run] ingest_chunk_mb``; 0 reads every file whole) is read, checked and
+    written a chunk at a time inside the transaction (:mod:`screening.streaming`), which an error
+    rolls back. A file whose content hash and reading options match its last load is not read again.
     """
     log = log or (lambda msg: None)
     oh = _options_hash(opts)
+    if chunk_bytes is None:
+        chunk_bytes = streaming.STREAM_CHUNK_BYTES if opts.chunk_bytes is None else opts.chunk_bytes
+    chunk = int(chunk_bytes)
     plan: list[tuple[str, str, str, Loaded | None]] = []
     for kind in KINDS:
         for path in files.get(kind, []):
@@ -125,6 +139,9 @@ def load_inputs(
             prev = store.rows("get_input_file", {"kind": kind, "path": str(path)})
             if prev and prev[0][0] == digest and prev[0][1] == oh and not force:
                 plan.append((kind, str(path), digest, None))
+                continue
+            if streaming.streamable(kind, str(path), chunk):
+                plan.append((kind, str(path), digest, _STREAM))
                 continue
             log(f"reading {kind} file {path}")
             plan.append((kind, str(path), digest, read_file(kind, str(path), opts)))
@@ -135,6 +152,18 @@ def load_inputs(
                 r = store.rows("get_input_file", {"kind": kind, "path": path})[0]
                 out.append(FileLoad(kind, path, digest, "unchanged", int(r[2]), int(r[3])))
                 continue
+            if loaded is _STREAM:
+                log(f"reading {kind} file {path} in chunks")
+                try:
+                    st = streaming.load_streamed(store, kind, path, opts, chunk_bytes=chunk)
+                except streaming.WholeFile as why:
+                    log(f"reading {kind} file {path} whole ({why})")
+                    streaming.forget_file(store, kind, path)
+                    loaded = read_file(kind, path, opts)
+                else:
+                    _record_input(store, kind, path, digest, oh, st.rows, st.rejected)
+                    out.append(FileLoad(kind, path, digest, "loaded", st.rows, st.rejected, st.notices))
+                    continue
             p = {"path": path}
             if kind == "buildings":
                 store.execute("delete_buildings_from_file", p)
@@ -149,20 +178,28 @@ def load_inputs(
             store.execute(
                 "insert_load_rejects", {"kind": kind, "path": path}, stage_rejects=loaded.rejects.cast(REJECT_SCHEMA)
             )
-            store.execute(
-                "record_input_file",
-                {
-                    "path": path,
-                    "kind": kind,
-                    "sha256": digest,
-                    "options_hash": oh,
-                    "rows_loaded": loaded.df.height,
-                    "rows_rejected": loaded.rejects.height,
-                },
-            )
+            _record_input(store, kind, path, digest, oh, loaded.df.height, loaded.rejects.height)
             out.append(FileLoad(kind, path, digest, "loaded", loaded.df.height, loaded.rejects.height, loaded.notices))
         _forget_other_files(store, files)
     return out
+
+
+#: In a load plan: the file is read in chunks inside the transaction (screening.streaming).
+_STREAM = Loaded("", pl.DataFrame(), pl.DataFrame(), [])
+
+
+def _record_input(store: Store, kind: str, path: str, digest: str, oh: str, rows: int, rejected: int) -> None:
+    store.execute(
+        "record_input_file",
+        {
+            "path": path,
+            "kind": kind,
+            "sha256": digest,
+            "options_hash": oh,
+            "rows_loaded": rows,
+            "rows_rejected": rejected,
+        },
+    )
 
 
 def _forget_other_files(store: Store, files: dict[str, list[str]]) -> None:
@@ -287,6 +324,15 @@ class ReadingsSource(ABC):
         """The readings of every other building (rejected as unknown buildings)."""
 
 
+class ChunkExecutor(ABC):
+    """Runs the per-chunk work of :func:`screen_frames` elsewhere (``screening.cluster.DaskChunks``: tasks on
+    Dask); without one, the chunks run one after the other in this process."""
+
+    @abstractmethod
+    def screen_parts(self, chunks: Iterator[tuple[pl.DataFrame, pl.DataFrame]], common: dict) -> list[_Part]:
+        """``_screen_part(buildings, readings, lap=…, **common)`` of every chunk, in the chunks' order."""
+
+
 class FrameReadings(ReadingsSource):
     """Readings held in memory as one frame."""
 
@@ -346,6 +392,7 @@ def screen_frames(
     plan_context: pl.DataFrame | None = None,
     chunk_buildings: int = 0,
     fit_block: int | None = None,
+    executor: ChunkExecutor | None = None,
 ) -> Screened:
     """Screen a portfolio (canonical IP frames, see DEVELOPERS.md).
 
@@ -360,6 +407,7 @@ def screen_frames(
     statistics (peer medians and spreads, year-on-year z, the ranking: :func:`screen.screen`) run
     once over all results. A chunk is a whole number of regression blocks of ``fit_block``
     buildings (default :data:`FIT_BLOCK`; :func:`chunk_size`), so the results are those of one pass.
+    ``executor`` runs the chunks elsewhere (:class:`ChunkExecutor`, e.g. ``cluster.DaskChunks``).
     """
     fit_block = fit_block or FIT_BLOCK
     paths = paths or {}
@@ -405,34 +453,30 @@ def screen_frames(
     # per-building work, a chunk of buildings at a time (each building's rows depend only on its own)
     size = chunk_size(chunk_buildings, b.height, fit_block)
     chunked = size < b.height
-    parts: list[_Part] = []
-    for c0 in range(0, b.height, max(size, 1)):
-        bc = b.slice(c0, size)
-        rc = source(bc["building_id"])
-        parts.append(
-            _screen_part(
-                bc,
-                rc,
-                weather,
-                cfg,
-                cube=cube,
-                normals=normals,
-                gaps=gaps,
-                grid=grid,
-                window=window,
-                paths=paths,
-                previous=previous,
-                plan_context=plan_context,
-                events=events,
-                chunked=chunked,
-                fit_block=fit_block,
-                lap=lap,
-                learned=learned,
-                thresholds=thr,
-            )
-        )
-        del rc
-    del source
+    common: dict[str, Any] = dict(
+        weather=weather,
+        cfg=cfg,
+        cube=cube,
+        normals=normals,
+        gaps=gaps,
+        grid=grid,
+        window=window,
+        paths=paths,
+        previous=previous,
+        plan_context=plan_context,
+        events=events,
+        chunked=chunked,
+        fit_block=fit_block,
+        learned=learned,
+        thresholds=thr,
+    )
+    chunks = ((bc, source(bc["building_id"])) for bc in (b.slice(c0, size) for c0 in range(0, b.height, max(size, 1))))
+    if executor is None:
+        parts = [_screen_part(bc, rc, lap=lap, **common) for bc, rc in chunks]
+    else:  # elsewhere (screening.cluster): the per-chunk stages are timed together
+        parts = executor.screen_parts(chunks, common)
+        lap("chunks_elsewhere")
+    del source, chunks
     if chunked and not any(p.covered for p in parts):
         firsts = [p.first for p in parts if p.first is not None]
         lasts = [p.last for p in parts if p.last is not None]

@@ -88,3 +88,34 @@ SELECT DISTINCT station_id FROM weather_daily ORDER BY station_id;
 
 -- name: select_load_rejects
 SELECT file, line, "column", value, reason FROM load_rejects ORDER BY kind, path, line, "column";
+
+-- name: select_repeated_reading_keys_of_file
+-- Streaming ingest (screening/streaming.py): the rows of one file whose meter and period occur more
+-- than once in it, in line order, for the duplicate and conflict checks across chunks.
+WITH repeated AS (
+    SELECT building_id, fuel, meter_id, period_start, period_end FROM readings WHERE source_file = $path
+    GROUP BY ALL HAVING count(*) > 1
+)
+SELECT r.building_id, r.fuel, r.meter_id, r.period_start, r.period_end, r.quantity, r.unit, r.estimated, r.cost,
+       r.source_line AS _line
+FROM readings r JOIN repeated k
+  ON r.building_id = k.building_id AND r.fuel = k.fuel AND r.meter_id = k.meter_id
+ AND r.period_start = k.period_start AND r.period_end = k.period_end
+WHERE r.source_file = $path
+ORDER BY r.source_line;
+
+-- name: delete_readings_of_file_lines
+-- stage_lines: the lines (column line) to delete, as a registered frame (a hash join, not a list scan)
+DELETE FROM readings WHERE source_file = $path AND source_line IN (SELECT line FROM stage_lines);
+
+-- name: select_repeated_buildings_of_file
+-- Streaming ingest: the rows of one buildings file whose building_id occurs more than once in it.
+SELECT * EXCLUDE (source_file, source_line), source_line AS _line
+FROM buildings
+WHERE source_file = $path
+  AND building_id IN (SELECT building_id FROM buildings WHERE source_file = $path GROUP BY building_id
+                      HAVING count(*) > 1)
+ORDER BY source_line;
+
+-- name: delete_buildings_of_file_lines
+DELETE FROM buildings WHERE source_file = $path AND source_line IN (SELECT line FROM stage_lines);

@@ -29,6 +29,7 @@ import math
 import mimetypes
 import multiprocessing
 import time
+from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 from typing import Any
@@ -410,6 +411,7 @@ def render_sheets(
     workers: int = 2,
     chunk_size: int = 50,
     stats: dict[str, Any] | None = None,
+    chunk_runner: Callable[[list[tuple[list, list]], str], list[dict[str, Any]]] | None = None,
 ) -> list[Path]:
     """Write one single-page PDF per sheet into ``out_dir`` (``<safe name>.pdf``).
 
@@ -422,6 +424,8 @@ def render_sheets(
     chunk_size : sheets per WeasyPrint document.
     stats : optional dict filled with counts (chunks, batched, refit, levels) and ``cpu_s``,
         the CPU time the renderers spent on the chunks (all processes; not their start-up).
+    chunk_runner : renders the chunks elsewhere instead of ``workers`` processes here
+        (``cluster.DaskChunks.render_chunks``: ``(chunks, paper)`` → each chunk's stats, in order).
 
     Returns
     -------
@@ -457,7 +461,7 @@ def render_sheets(
     n_chunks = min(n, workers * math.ceil(n / (workers * chunk_size)))
     size = math.ceil(n / n_chunks)
     chunks = [(sheets[i : i + size], targets[i : i + size]) for i in range(0, n, size)]
-    results = _run_chunks(chunks, paper, workers)
+    results = chunk_runner(chunks, paper) if chunk_runner is not None else _run_chunks(chunks, paper, workers)
     if stats is not None:
         stats.update(
             chunks=len(chunks),

@@ -16,7 +16,7 @@ from pathlib import Path
 
 import polars as pl
 
-from .. import config as cfgmod, interrupts, memory, outputs, pipeline, published
+from .. import cluster, config as cfgmod, interrupts, memory, outputs, pipeline, published
 from ..errors import Interrupted, OutputError, ScreeningError
 from ..store import Store
 from ..window import quarter_label
@@ -82,12 +82,26 @@ def run(
 
     with interrupts.stop_on_signals(), Lock(str(db_path) + ".lock"):  # SIGINT/SIGTERM -> Interrupted
         bar = Progress(progress and not quiet)
+        ex = cluster.from_config(cfg, db_path)  # [run] cluster: tasks on Dask (None: this process)
         try:
             return _run_locked(
-                cfg, files, db_path, target, root, label, as_of, window, force=force, config_path=config_path, bar=bar
+                cfg,
+                files,
+                db_path,
+                target,
+                root,
+                label,
+                as_of,
+                window,
+                force=force,
+                config_path=config_path,
+                bar=bar,
+                executor=ex,
             )
         finally:
             bar.close()
+            if ex is not None:
+                ex.close()
 
 
 def _run_locked(
@@ -103,6 +117,7 @@ def _run_locked(
     force,
     config_path,
     bar: Progress | None = None,
+    executor: cluster.DaskChunks | None = None,
 ):
     """The run under the lock, in three phases.
 
@@ -147,12 +162,22 @@ def _run_locked(
         store.close()  # phase 2: the database stays free for readers
         store = None
         bar.stage("screen")
-        res = stages.screen(ld, files, cfg, db_path, window)
+        res = stages.screen(ld, files, cfg, db_path, window, executor=executor)
         timings.update(res.timings)
         stage("after_screen")
         bar.stage("write tables")
         ranking, rejects, summary = stages.write_outputs(
-            tmp, res, ld, cfg, run_key=run_key, label=label, as_of=as_of, window=window, timings=timings, bar=bar
+            tmp,
+            res,
+            ld,
+            cfg,
+            run_key=run_key,
+            label=label,
+            as_of=as_of,
+            window=window,
+            timings=timings,
+            bar=bar,
+            executor=executor,
         )
         timings["total"] = round(time.perf_counter() - t_start, 4)
         summary["timings_s"] = timings

@@ -14,7 +14,7 @@ from typing import Any
 
 import polars as pl
 
-from .. import outputs, pipeline
+from .. import cluster, outputs, pipeline
 from ..errors import InputError
 from ..ingest import REJECT_SCHEMA
 from ..store import Store
@@ -82,7 +82,9 @@ def load_inputs(store: Store, files: dict, cfg: dict, db_path, run_id: str, wind
     return ld
 
 
-def screen(ld: Loaded, files: dict, cfg: dict, db_path, window) -> pipeline.Screened:
+def screen(
+    ld: Loaded, files: dict, cfg: dict, db_path, window, *, executor: cluster.DaskChunks | None = None
+) -> pipeline.Screened:
     """The whole computation on the loaded frames (``pipeline.screen_frames``), the database closed."""
     paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
     # the readings frame is passed, not kept here, so screening can free it once checked; or each
@@ -100,6 +102,7 @@ def screen(ld: Loaded, files: dict, cfg: dict, db_path, window) -> pipeline.Scre
             events=ld.events,
             plan_context=ld.plan_context,
             chunk_buildings=cfg["run"]["chunk_buildings"],
+            executor=executor,
         )
     finally:
         if src is not None:
@@ -118,6 +121,7 @@ def write_outputs(
     window,
     timings: dict,
     bar: Progress,
+    executor: cluster.DaskChunks | None = None,
 ) -> tuple[pl.DataFrame, pl.DataFrame, dict]:
     """Every output file but summary.json into ``tmp``; returns the ranking, the rejects and the summary."""
     events, then = ld.events, ld.then
@@ -215,7 +219,13 @@ def write_outputs(
         )
         (tmp / "sheets").mkdir()
         names = filenames.assign_filenames([s.building_id for s in sheets])
-        pdf.render_sheets(sheets, tmp / "sheets", paper=paper, workers=workers(cfg["output"]["workers"]))
+        pdf.render_sheets(
+            sheets,
+            tmp / "sheets",
+            paper=paper,
+            workers=workers(cfg["output"]["workers"]),
+            chunk_runner=executor.render_chunks if executor is not None else None,
+        )
         timings["sheets"] = round(time.perf_counter() - t, 4)
         sheet_files = {b: f"sheets/{v}.pdf" for b, v in names.items()}
         outputs.write_csv(

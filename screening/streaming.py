@@ -1,0 +1,308 @@
+"""Streaming ingest: a large buildings or readings CSV read, checked and stored a chunk at a time.
+
+The whole-file path (:func:`screening.ingest.read_buildings` / ``read_readings``) holds a file's
+decoded text and its frames at once. Here a text file is read ``chunk_bytes`` of whole lines at a
+time; each chunk goes through the same record split (:mod:`screening.csvread`), the same typing and
+checks (:mod:`screening.ingest`) and into the store inside the load's transaction, so only one
+chunk's text and frames are in memory. Duplicates and conflicting rows can sit in different chunks:
+they are found at the end in the store (the rows whose key occurs more than once in the file,
+``sql/load.sql``), and decided by the same functions as in the whole-file path
+(:func:`ingest.reading_duplicates`, :func:`ingest.building_duplicates`). The stored rows, the rejects
+and the notices are those of the whole-file path (``tests/test_streaming.py`` compares them).
+
+What the whole-file path decides from the whole file, and which a chunk cannot tell, sends the file
+to that path instead (:class:`WholeFile`): a workbook or Parquet file; no ``\\n`` line ends (CR-only);
+NUL bytes in the first MB; a forced encoding that fails, or a file that is neither UTF-8 nor cp1252
+(the whole-file path words the error); a readings file with read dates instead of start dates; period
+stamps at midnight (whether they are exclusive ends is judged over the whole file); slash dates without
+``[reading] date_order`` (the day/month order is read from the whole file). The encoding is decided by a
+first pass over the file's bytes (UTF-8, else cp1252, with the notice of the first bad line), which also
+tells whether the file has quote characters: without, every line is a record (``csvread._fast_chunk``);
+with, one ``csv`` reader runs over the whole file, its records taken ``chunk_bytes / 64`` at a time.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from dataclasses import dataclass
+from pathlib import Path
+
+import polars as pl
+
+from . import csvread, ingest
+from .csvread import LINE_COL
+from .errors import InputError
+from .ingest import REJECT_SCHEMA, ReadOptions
+from .parse import midnight_stamps
+from .store import Store
+
+#: Bytes of whole lines read, checked and stored at a time (a chunk peaks at several times this in memory).
+STREAM_CHUNK_BYTES = 32 << 20
+_SCAN_BYTES = 8 << 20
+_SLASH_DATE = r"^\d{1,2}[/.]\d{1,2}[/.]\d{2,4}$"
+STREAMED_KINDS = ("buildings", "readings")
+
+
+#: The named statements (sql/load.sql) of each streamed kind.
+_STATEMENTS = {
+    "readings": {
+        "insert": "insert_readings",
+        "delete_file": "delete_readings_from_file",
+        "delete_lines": "delete_readings_of_file_lines",
+    },
+    "buildings": {
+        "insert": "insert_buildings",
+        "delete_file": "delete_buildings_from_file",
+        "delete_lines": "delete_buildings_of_file_lines",
+    },
+}
+
+
+class WholeFile(Exception):
+    """This file is read by the whole-file path (see the module's docstring); the reason in words."""
+
+
+@dataclass
+class Scan:
+    """What a first pass over a file's bytes tells: its encoding, whether it has quotes, its lines."""
+
+    encoding: str  # "utf-8" or "cp1252" (or the forced one)
+    bom: bool  # a UTF-8 byte-order mark to drop (not with a forced encoding, as the whole-file path)
+    quotes: bool
+    n_lines: int  # as the whole-file reader counts them
+    notices: list[str]
+
+
+@dataclass
+class Streamed:
+    """A file stored by :func:`load_streamed`: rows kept, rows rejected, notices."""
+
+    rows: int
+    rejected: int
+    notices: list[str]
+
+
+def streamable(kind: str, path: str, chunk_bytes: int) -> bool:
+    """Whether ``path`` is a text file of a streamed kind larger than one chunk."""
+    if kind not in STREAMED_KINDS or not chunk_bytes or csvread.is_table_file(path):
+        return False
+    try:
+        return Path(path).stat().st_size > chunk_bytes
+    except OSError:
+        return False
+
+
+def _blocks(f, size: int):
+    """Blocks of whole lines of about ``size`` bytes (the last line of a block read to its end)."""
+    while True:
+        block = f.read(size)
+        if not block:
+            return
+        if not block.endswith(b"\n"):
+            block += f.readline()
+        yield block
+
+
+def scan(path: str, label: str, encoding: str | None) -> Scan:
+    """The first pass: encoding, quotes and line count, without holding the file."""
+    with open(path, "rb") as f:
+        head = f.read(1_000_000)
+        if b"\x00" in head:
+            raise WholeFile("NUL bytes")
+        f.seek(0)
+        bom = head.startswith(b"\xef\xbb\xbf")
+        enc = encoding or "utf-8"
+        quotes = has_lf = False
+        n_nl, last = 0, b""
+        bad_line = None
+        for i, block in enumerate(_blocks(f, _SCAN_BYTES)):
+            quotes = quotes or b'"' in block
+            has_lf = has_lf or b"\n" in block
+            if bad_line is None:
+                try:
+                    block.decode(("utf-8-sig" if i == 0 else "utf-8") if enc == "utf-8" else enc)
+                except (UnicodeDecodeError, LookupError) as exc:
+                    if encoding:
+                        raise WholeFile("cannot decode") from None
+                    start = exc.start if isinstance(exc, UnicodeDecodeError) else 0
+                    bad_line = n_nl + block[:start].count(b"\n") + 1
+            n_nl += block.count(b"\n")
+            last = block[-1:]
+    if not has_lf:
+        raise WholeFile("no LF line ends")
+    notices: list[str] = []
+    if bad_line is not None:
+        with open(path, "rb") as f:
+            for i, block in enumerate(_blocks(f, _SCAN_BYTES)):
+                try:
+                    (block[3:] if i == 0 and bom else block).decode("cp1252")
+                except UnicodeDecodeError:
+                    raise WholeFile("neither UTF-8 nor cp1252") from None
+        enc = "cp1252"
+        notices.append(f"{label}: not valid UTF-8 (first at line {bad_line}); read as Latin-1/cp1252")
+    return Scan(enc, bom and not encoding, quotes, n_nl + (0 if last == b"\n" else 1), notices)
+
+
+def _text_blocks(path: str, sc: Scan, size: int):
+    """The file's decoded text, ``size`` bytes of whole lines at a time."""
+    with open(path, "rb") as f:
+        for i, block in enumerate(_blocks(f, size)):
+            if i == 0 and sc.bom:
+                block = block[3:]
+            yield block.decode(sc.encoding)
+
+
+def _raw_chunks(path: str, label: str, spec, opts: ReadOptions, kind: str, sc: Scan, size: int, notices: list[str]):
+    """The file's records as text frames (``csvread`` columns + ``_line``), a chunk at a time, with
+    each chunk's record rejects; the header's notices into ``notices``; ``(frame, rejects)`` pairs."""
+    required = [c for c, _, _, r, _ in spec if r]
+    optional = [c for c, _, _, r, _ in spec if not r]
+    mapping = dict(opts.columns.get(kind) or {}) or None
+    blocks = _text_blocks(path, sc, size)
+    first = next(blocks, "")
+    if not first.strip():
+        raise WholeFile("empty first block")  # the whole-file path words it (empty, or blank lines first)
+    first_nl = first.find("\n")
+    first_line = first[:first_nl]
+    delim = opts.delimiter or csvread._sniff_delimiter(first_line)
+    if not sc.quotes:
+        header = first_line.rstrip("\r").split(delim)
+    else:
+
+        def lines():
+            yield from io.StringIO(first, newline="\n")
+            for b in blocks:
+                yield from io.StringIO(b, newline="\n")
+
+        reader = csv.reader(lines(), delimiter=delim, strict=False)
+        try:
+            header = next(reader)
+        except (StopIteration, csv.Error) as exc:
+            raise InputError(label, f"cannot read the header line ({exc})", line=1) from None
+    header_norm = [csvread._norm(h) for h in header]
+    try:
+        seen, wanted = csvread.header_plan(label, header, required, optional, mapping, notices)
+    except InputError as exc:
+        if kind == "readings" and exc.problem == "missing required column" and exc.column == "period_start":
+            raise WholeFile("read dates") from None  # periods from read dates: per meter over the whole file
+        raise
+    idx = [seen[c] for c in wanted]
+    repeated = 0
+    n_rows = n_rej = 0
+
+    def full(df: pl.DataFrame) -> pl.DataFrame:
+        for c in required + optional:
+            if c not in df.columns:
+                df = df.with_columns(pl.lit(None, dtype=pl.String).alias(c))
+        return df
+
+    if not sc.quotes:
+        line, text = 2, first[first_nl + 1 :]
+        while True:
+            if text:
+                df, rej, rep = csvread._fast_chunk(text, line, label, delim, header_norm, idx, wanted)
+                line += text.count("\n")
+                repeated += rep
+                n_rows += df.height
+                n_rej += len(rej)
+                yield full(df), rej
+            text = next(blocks, "")
+            if not text:
+                break
+    else:
+        batches = csvread.slow_batches(
+            reader, label, delim, header_norm, idx, wanted, len(header), sc.n_lines, batch_records=max(1, size // 64)
+        )
+        for df, rej, rep in batches:
+            repeated += rep
+            n_rows += df.height
+            n_rej += len(rej)
+            yield full(df), rej
+    if repeated:
+        notices.append(f"{label}: skipped {repeated} repeated header line(s)")
+    if not n_rows and not n_rej:
+        raise InputError(label, "no data rows", line=2, expected="at least one data row after the header")
+
+
+def _whole_file_checks(kind: str, raw: pl.DataFrame, opts: ReadOptions) -> None:
+    """Raise :class:`WholeFile` when this chunk shows what only the whole file can decide."""
+    if kind != "readings":
+        return
+    for col in ("period_start", "period_end"):
+        if bool(midnight_stamps(raw[col]).any()):
+            raise WholeFile("midnight stamps")
+        if opts.date_order is None and bool(
+            raw[col].str.strip_chars().str.contains(_SLASH_DATE).fill_null(False).any()
+        ):
+            raise WholeFile("slash dates without date_order")
+
+
+def load_streamed(
+    store: Store, kind: str, path: str, opts: ReadOptions, *, chunk_bytes: int = STREAM_CHUNK_BYTES
+) -> Streamed:
+    """Read, check and store one buildings or readings file a chunk at a time.
+
+    Runs inside the caller's transaction: the file's earlier rows and rejects are deleted first, and
+    an ``InputError`` (or :class:`WholeFile`) part-way leaves the rollback to the caller. Raises
+    :class:`WholeFile` before or while storing when the file needs the whole-file path; the caller then
+    deletes this file's rows again (:func:`forget_file`) and reads it whole.
+    """
+    label = str(path)
+    try:
+        sc = scan(path, label, opts.encoding)
+    except OSError as exc:
+        raise csvread.unreadable(label, exc) from None
+    spec = ingest.READING_COLUMNS if kind == "readings" else ingest.BUILDING_COLUMNS
+    forget_file(store, kind, path)
+    notices = list(sc.notices)
+    tally: dict = {}
+    n_rows = n_rej = 0
+    p = {"path": label}
+    insert = _STATEMENTS[kind]["insert"]
+    for raw, structural in _raw_chunks(path, label, spec, opts, kind, sc, chunk_bytes, notices):
+        if raw.height:
+            _whole_file_checks(kind, raw, opts)
+            typed, prob = ingest._typed_columns(raw, spec, label, opts, None, tally)
+            del raw
+            if kind == "readings":
+                good, rej = ingest.readings_checked(typed, prob, structural, label)
+            else:
+                good, rej = ingest._combine(typed, prob, structural)
+        else:
+            good, rej = None, ingest.rejects_frame(structural)
+        if good is not None and good.height:
+            store.execute(insert, p, **{f"stage_{kind}": good})
+            n_rows += good.height
+        if rej.height:
+            store.execute("insert_load_rejects", {"kind": kind, "path": label}, stage_rejects=rej.cast(REJECT_SCHEMA))
+            n_rej += rej.height
+    notices += ingest.format_notices(label, opts, [c for c, *_ in spec], tally)
+    # duplicates and conflicts, across the chunks: the rows whose key occurs more than once in the file
+    if kind == "readings":
+        dup = store.frame("select_repeated_reading_keys_of_file", p)
+        kept, extra, n_exact = ingest.reading_duplicates(dup, label) if dup.height else (dup, ingest.empty_rejects(), 0)
+    else:
+        dup = store.frame("select_repeated_buildings_of_file", p)
+        kept, extra, n_exact = (
+            ingest.building_duplicates(dup, label) if dup.height else (dup, ingest.empty_rejects(), 0)
+        )
+    if dup.height:
+        drop = dup.select(pl.col(LINE_COL).alias("line")).filter(~pl.col("line").is_in(kept[LINE_COL].implode()))
+        store.execute(_STATEMENTS[kind]["delete_lines"], {"path": label}, stage_lines=drop)
+        n_rows -= drop.height
+    if n_exact:
+        notices.append(ingest.duplicate_notice(kind, label, n_exact))
+    if extra.height:
+        store.execute("insert_load_rejects", {"kind": kind, "path": label}, stage_rejects=extra.cast(REJECT_SCHEMA))
+        n_rej += extra.height
+    return Streamed(n_rows, n_rej, notices)
+
+
+def forget_file(store: Store, kind: str, path: str) -> None:
+    """Delete a file's stored rows and load rejects (inside the caller's transaction)."""
+    store.execute(_STATEMENTS[kind]["delete_file"], {"path": str(path)})
+    store.execute("delete_load_rejects", {"kind": kind, "path": str(path)})
+
+
+__all__ = ["STREAM_CHUNK_BYTES", "Streamed", "WholeFile", "load_streamed", "streamable", "forget_file"]

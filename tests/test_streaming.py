@@ -1,0 +1,158 @@
+"""Streaming ingest (screening/streaming.py): the same stored rows, rejects and notices as the whole-file path.
+
+Chunks of a few hundred bytes split the files' duplicates and conflicting rows across chunk boundaries.
+"""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import polars as pl
+import pytest
+
+from screening import pipeline, streaming
+from screening.errors import InputError
+from screening.ingest import ReadOptions
+from screening.store import Store
+
+ROOT = Path(__file__).resolve().parent.parent
+DEMO = ROOT / "sample_portfolio"
+SMALL = 300  # bytes a chunk: a few lines
+
+
+def _tables(store: Store) -> dict[str, pl.DataFrame]:
+    con = store.con
+    return {
+        "buildings": con.sql("SELECT * FROM buildings ORDER BY source_file, source_line").pl(),
+        "readings": con.sql("SELECT * FROM readings ORDER BY source_file, source_line").pl(),
+        "weather": con.sql("SELECT * FROM weather_daily ORDER BY source_file, source_line").pl(),
+        "rejects": con.sql("SELECT * FROM load_rejects ORDER BY ALL").pl(),
+        "files": con.sql("SELECT path, kind, rows_loaded, rows_rejected FROM input_files ORDER BY ALL").pl(),
+    }
+
+
+def _load(files: dict, opts: ReadOptions, chunk_bytes: int, logs: list[str] | None = None):
+    store = Store(":memory:")
+    loads = pipeline.load_inputs(store, files, opts, chunk_bytes=chunk_bytes, log=None if logs is None else logs.append)
+    return store, [(f.kind, f.path, f.rows, f.rejected, f.notices) for f in loads]
+
+
+def _same(files: dict, opts: ReadOptions | None = None, chunk: int = SMALL) -> list[str]:
+    """Load ``files`` whole and in chunks; assert the same stores and loads; return the chunked run's log."""
+    opts = opts or ReadOptions()
+    whole, loads_w = _load(files, opts, 0)
+    logs: list[str] = []
+    part, loads_p = _load(files, opts, chunk, logs)
+    assert loads_p == loads_w
+    tw, tp = _tables(whole), _tables(part)
+    for name in tw:
+        assert tp[name].equals(tw[name]), name
+    assert tw["readings"].height > 0
+    return logs
+
+
+def _write(path: Path, header: str, rows: list[str]) -> Path:
+    path.write_text(header + "\n" + "\n".join(rows) + "\n", encoding="utf-8")
+    return path
+
+
+def _messy(tmp_path: Path) -> dict:
+    """Demo buildings and the first readings with exact duplicates, conflicts and bad rows far apart."""
+    b_lines = (DEMO / "buildings.csv").read_text().splitlines()
+    b_rows = b_lines[1:31]
+    b_rows += [b_rows[2], b_rows[5].replace("retail", "office").replace("lodging", "office"), "B9999,x,,retail,-5"]
+    b_rows.insert(10, b_lines[0])  # a repeated header line
+    buildings = _write(tmp_path / "buildings.csv", b_lines[0], b_rows)
+    r_lines = (DEMO / "readings.csv").read_text().splitlines()
+    ids = {r.split(",")[0] for r in b_lines[1:31]}
+    r_rows = [r for r in r_lines[1:] if r.split(",")[0] in ids][:400]
+    first, second = r_rows[3], r_rows[7]
+    parts = second.split(",")
+    parts[4] = str(float(parts[4]) + 1)  # same meter and period, another quantity
+    r_rows += [first, ",".join(parts), "B0001,natural_gas,2024-02-30,2024-03-01,5,therm,false,", "B0001,gas"]
+    r_rows[50] = r_rows[50].rsplit(",", 1)[0] + ",$1234.50"  # a currency symbol (a notice)
+    r_rows.insert(120, r_rows[3])  # an exact duplicate in another chunk
+    readings = _write(tmp_path / "readings.csv", r_lines[0], r_rows)
+    return {"buildings": [str(buildings)], "readings": [str(readings)], "weather": [str(DEMO / "weather.csv")]}
+
+
+def test_chunks_store_what_the_whole_file_path_stores(tmp_path):
+    files = _messy(tmp_path)
+    logs = _same(files)
+    assert any("in chunks" in m for m in logs) and not any(" whole (" in m for m in logs)
+    # the file really holds what the test is about: duplicates and conflicts more than a chunk apart
+    whole, loads = _load(files, ReadOptions(), 0)
+    notes = [n for *_, ns in loads for n in ns]
+    assert any("exact duplicate reading row(s) kept once" in n for n in notes)
+    assert any("exact duplicate building row(s) kept once" in n for n in notes)
+    assert any("repeated header" in n for n in notes)
+    assert any("currency symbol(s) removed" in n for n in notes)
+    reasons = whole.con.sql("SELECT reason FROM load_rejects").pl()["reason"].to_list()
+    assert any("same meter and period as line(s)" in r for r in reasons)
+    assert any("building_id appears with different data" in r for r in reasons)
+    lines = (
+        whole.con.sql("SELECT line FROM load_rejects WHERE reason LIKE 'same meter and period%' ORDER BY line")
+        .pl()["line"]
+        .to_list()
+    )
+    assert lines[-1] - lines[0] > 100  # far more than a 300-byte chunk apart
+    # and the chunked load really went through more than one chunk
+    assert Path(files["readings"][0]).stat().st_size > 20 * SMALL
+
+
+def test_quoted_and_latin1_files_in_chunks(tmp_path):
+    files = _messy(tmp_path)
+    rd = Path(files["readings"][0])
+    rows = rd.read_text().splitlines()
+    # quoted fields, one with a line break inside, in the middle of the file
+    rows[40] = ",".join(f'"{v}"' for v in rows[40].split(","))
+    rows[41] = rows[41].replace(",false,", ',"fal\nse",')
+    rd.write_text("\n".join(rows) + "\n", encoding="utf-8")
+    _same(files)
+    bd = Path(files["buildings"][0])
+    text = bd.read_text().replace("Ashcombe", "Ashcombé")
+    bd.write_bytes(text.encode("cp1252"))
+    logs = _same(files)
+    assert not any(" whole (" in m for m in logs)
+
+
+@pytest.mark.parametrize(
+    "change, why",
+    [
+        (lambda d: d + " 00:00", "midnight stamps"),
+        (lambda d: f"{d[5:7]}/{d[8:10]}/{d[:4]}", "slash dates without date_order"),
+    ],
+)
+def test_what_only_the_whole_file_tells_is_read_whole(tmp_path, change, why):
+    files = _messy(tmp_path)
+    rd = Path(files["readings"][0])
+    rows = rd.read_text().splitlines()
+    f = rows[-60].split(",")  # late in the file: chunks were stored before the chunk that tells
+    f[2] = change(f[2])
+    rows[-60] = ",".join(f)
+    rd.write_text("\n".join(rows) + "\n")
+    logs = _same(files)
+    assert any(f"whole ({why})" in m for m in logs)
+
+
+def test_structural_error_in_a_late_chunk_changes_nothing(tmp_path):
+    files = _messy(tmp_path)
+    store = Store(str(tmp_path / "s.duckdb"))
+    pipeline.load_inputs(store, files, ReadOptions(), chunk_bytes=SMALL)
+    before = _tables(store)
+    rd = Path(files["readings"][0])
+    rd.write_text(rd.read_text() + 'B0001,natural_gas,2024-01-01,2024-01-31,"5\n6\n', encoding="utf-8")
+    with pytest.raises(InputError, match="never closed"):
+        pipeline.load_inputs(store, files, ReadOptions(), chunk_bytes=SMALL)
+    after = _tables(store)
+    for name in before:
+        assert after[name].equals(before[name]), name
+
+
+def test_small_files_and_workbooks_are_read_whole(tmp_path):
+    shutil.copy(DEMO / "weather.csv", tmp_path / "w.csv")
+    assert not streaming.streamable("weather", str(tmp_path / "w.csv"), 10)
+    assert not streaming.streamable("readings", str(DEMO / "readings.csv"), 1 << 30)
+    assert streaming.streamable("readings", str(DEMO / "readings.csv"), 1000)
+    assert not streaming.streamable("readings", str(tmp_path / "r.parquet"), 10)
