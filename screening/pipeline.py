@@ -943,6 +943,7 @@ def _screen_part(
             min_coverage=thr["coverage_min"],
             max_estimated_share=thr["estimated_share_max"],
         ),
+        metered.estimated_run_issues(conv, read_spans, min_run=thr["estimated_run_min"]),
         _missing_bill_issues(conv, spans, window),
         _filled_end_issues(met),
         _unit_error_issues(conv, b, thr["unit_error_factor"], isolation=thr["unit_error_isolation"]),
