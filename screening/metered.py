@@ -777,7 +777,7 @@ def estimated_run_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, min_run
     )
     runs = runs.join(rate, on="building_id", how="left")
     per_day = pl.col("_rate").fill_null(0.0)
-    times = lambda e: pl.when(per_day > 0).then((e / per_day).round(1).cast(pl.String)).otherwise(pl.lit("?"))  # noqa: E731
+    times = lambda e: pl.when(per_day > 0).then((e / per_day).round(2).cast(pl.String)).otherwise(pl.lit("?"))  # noqa: E731
     runs = runs.with_columns(
         pl.when(pl.col("catch_start").is_null())
         .then(

@@ -770,9 +770,11 @@ def _waste_kind(r: dict, ms: list[str], t: dict, *, si: bool) -> str:
             d = r["fitted_base_f"] - r["balance_point_f"]
             tf = (r["fitted_base_f"] - 32) / 1.8 if si else r["fitted_base_f"]
             unit, du = ("°C", d / 1.8) if si else ("°F", d)
+            # the mechanism is judged against the peers' fits: below the engineering point it is high for its peers
+            rel = "above the engineering balance point" if du >= 0 else "below the engineering one, high for its peers"
             parts.append(
-                f"controls (heating starts at {_fmt(tf, 1)} {unit} outdoors, {_fmt(du, 1)} {unit} "
-                f"above the engineering balance point): {MECHANISM_CHECKS[m]}"
+                f"controls (heating starts at {_fmt(tf, 1)} {unit} outdoors, {_fmt(abs(du), 1)} {unit} "
+                f"{rel}): {MECHANISM_CHECKS[m]}"
             )
         else:
             parts.append(
