@@ -612,6 +612,7 @@ def _explain(
         "sure_baseload",
         "fit_method",
         "in_plan",
+        "_hold",
         *[c for c in out.columns if c.startswith("_f_")],
     )
     si = energy_unit == "kWh"
@@ -688,6 +689,8 @@ def _explain(
             if r["in_plan"] and not r["needs_review"]
             else " It is in this quarter's audit plan."
             if r["in_plan"]
+            else " A recent measure, or an audit on record that found nothing, keeps it off the plan (plan_note)."
+            if r["_hold"] and r["tier"] in ("Watch", "No action")
             else " Its expected savings are below the cost of a visit ([plan] audit_cost), so it is not planned."
             if r["needs_review"] and r["tier"] in ("Watch", "No action")
             else " Its expected savings are worth a visit after this quarter's plan."
@@ -864,6 +867,11 @@ def _not_listed(r: dict, t: dict, money: str | None, plan: str) -> str:
         if ratio < 1 and r["actual_heating_kbtu"] < r["_band_low"]:
             return f"Heating is below expectation ({_fmt(ratio, 2)}× expected): no sign of excess."
         if ratio < t["min_excess_ratio"] or not r["_f_above_band"] and not r["_f_poor_fit"]:
+            if ratio < 1:  # inside the model's band, but 0.49× is not "in line with expectation"
+                return (
+                    f"Heating is {_fmt(ratio, 2)}× the central expectation, within the model's range and in line "
+                    "with its peers; no excess worth a visit."
+                )
             return (
                 f"Heating is in line with expectation ({_fmt(ratio, 2)}× expected) and with its peers; "
                 "no excess worth a visit."
