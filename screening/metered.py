@@ -782,7 +782,7 @@ def estimated_run_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, min_run
         pl.when(pl.col("catch_start").is_null())
         .then(
             pl.format(
-                "{} estimated reads {}..{} at {}x the span's daily use, no true read after them yet",
+                "{} estimated reads {}..{} at {}× the span's daily use, no true read after them yet",
                 "n_estimated",
                 "run_start",
                 "run_end",
@@ -791,7 +791,7 @@ def estimated_run_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, min_run
         )
         .otherwise(
             pl.format(
-                "{} estimated reads {}..{} at {}x the span's daily use, then a true read {}..{} at {}x",
+                "{} estimated reads {}..{} at {}× the span's daily use, then a true read {}..{} at {}×",
                 "n_estimated",
                 "run_start",
                 "run_end",
