@@ -284,3 +284,37 @@ def test_a_run_of_estimates_with_its_catch_up_is_a_blocking_data_issue():
     assert "no true read after them yet" in metered.estimated_run_issues(open_run, _SPAN)["detail"][0]
     # min_run 2 would take building C's pair (and normal buildings' pairs on the simulator)
     assert "C" in metered.estimated_runs(r, min_run=2)["building_id"].to_list()
+
+
+def test_a_run_of_estimates_keeps_the_building_off_the_audit_list():
+    # the whole screening (pipeline.screen_frames) on two copies of one building billed monthly from its
+    # own weather: T1 read truly, T2 with Nov..Feb estimated at October's daily rate and a March catch-up
+    from tests.test_pipeline import UA, _building, _buildings, _cfg, _monthly_readings, _seasonal
+
+    from screening.pipeline import screen_frames
+
+    w = _seasonal()
+    t1 = _monthly_readings(w, dt.date(2024, 10, 1), 24, UA, 0.8)
+    t1 = t1.with_columns(pl.col("quantity") + 1000.0)  # and hot water, 1,000 therm a month
+    oct25 = t1.filter(pl.col("period_start") == dt.date(2025, 10, 1)).row(0, named=True)
+    rate = oct25["quantity"] / 31
+    run = pl.col("period_start").is_between(dt.date(2025, 11, 1), dt.date(2026, 2, 1))
+    catch = pl.col("period_start") == dt.date(2026, 3, 1)
+    days = (pl.col("period_end") - pl.col("period_start")).dt.total_days() + 1
+    shortfall = t1.filter(run).select((pl.col("quantity") - rate * days).sum()).item()
+    billed = pl.when(run).then(rate * days).when(catch).then(pl.col("quantity") + shortfall)
+    t2 = t1.with_columns(
+        pl.lit("T2").alias("building_id"),
+        billed.otherwise(pl.col("quantity")).alias("quantity"),
+        run.alias("estimated"),
+        (pl.col("_line") + 100).alias("_line"),
+    )
+    assert t2["quantity"].sum() == pytest.approx(t1["quantity"].sum())  # the catch-up keeps the total
+    b = _buildings([_building(heating_efficiency=0.8), _building(building_id="T2", heating_efficiency=0.8, _line=3)])
+    res = screen_frames(b, pl.concat([t1, t2]), w, _cfg(), window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30)))
+    rows = {r["building_id"]: r for r in res.results.iter_rows(named=True)}
+    assert "estimated_run" in rows["T2"]["data_issue_codes"] and rows["T2"]["tier"] == "Fix data first"
+    assert "estimated_run" not in (rows["T1"]["data_issue_codes"] or []) and rows["T1"]["tier"] != "Fix data first"
+    iss = res.issues.filter(pl.col("code") == "estimated_run")
+    assert iss["building_id"].to_list() == ["T2"] and iss["blocking"].to_list() == [True]
+    assert iss["detail"][0].startswith("4 estimated reads 2025-11-01..2026-02-28 at ")
