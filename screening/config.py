@@ -267,6 +267,11 @@ class Thresholds:
     estimated_share_max: float = setting(
         0.5, "share of estimated reads above which data is weak", range=(0.0, 1.0, "a share")
     )
+    estimated_run_min: int = setting(
+        3,
+        "this many estimated reads in a row, then a true read: the bills' shape is invented (estimated_run)",
+        range=(2, 24, "a whole number"),
+    )
     unit_error_factor: float = setting(
         8.0,
         "a reading this many times off the same month of other years suggests a unit error",

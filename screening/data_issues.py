@@ -422,6 +422,7 @@ def chunk_issues(
             min_coverage=thr.coverage_min,
             max_estimated_share=thr.estimated_share_max,
         ),
+        metered.estimated_run_issues(conv, read_spans, min_run=thr.estimated_run_min),
         missing_bill_issues(conv, spans, window),
         filled_end_issues(met),
         unit_error_issues(conv, b, thr.unit_error_factor, isolation=thr.unit_error_isolation),

@@ -645,6 +645,176 @@ def _reading_issues(
     return out.select(list(_ISSUE_SCHEMA)).cast(_ISSUE_SCHEMA).sort(["building_id", "code"])
 
 
+#: runs of estimated reads, one row each (see :func:`estimated_runs`)
+_RUN_SCHEMA = pl.Schema(
+    {
+        "building_id": pl.String,
+        "meter_id": pl.String,
+        "run_start": pl.Date,
+        "run_end": pl.Date,
+        "n_estimated": pl.Int64,
+        "run_kbtu": pl.Float64,
+        "run_days": pl.Int64,
+        "catch_start": pl.Date,
+        "catch_end": pl.Date,
+        "catch_kbtu": pl.Float64,
+        "catch_days": pl.Int64,
+    }
+)
+
+
+def estimated_runs(readings: pl.DataFrame, *, min_run: int = 3, max_step_days: int = 3) -> pl.DataFrame:
+    """Runs of at least ``min_run`` consecutive estimated heating-fuel reads of one meter, with their catch-up.
+
+    A utility that cannot read a meter bills an estimate; the next true read ("catch-up" or
+    "true-up") bills the difference between the meter's index and the estimates, so the run and its
+    catch-up together hold the right energy while each bill's share of it is invented: a run at last
+    winter's rate carried into summer, or at an autumn rate into winter, draws a weather response the
+    building does not have. The catch-up is the meter's next read when it is not estimated and
+    starts at most ``max_step_days`` days after the run's end (otherwise the run has no catch-up yet,
+    its columns null). Sporadic single estimates (normal practice) are not runs: ``min_run`` is our
+    own threshold (3: no normal building of the tuning portfolios has a run that long, see
+    docs/methods.md).
+
+    Parameters
+    ----------
+    readings : pl.DataFrame
+        ``building_id, period_start, period_end, energy_kbtu`` [kBtu], optional ``estimated``,
+        ``meter_id``, ``is_heating_fuel`` (only heating-fuel reads are looked at).
+
+    Returns
+    -------
+    pl.DataFrame
+        ``building_id, meter_id, run_start, run_end, n_estimated, run_kbtu`` [kBtu], ``run_days``
+        [day], ``catch_start, catch_end, catch_kbtu`` [kBtu], ``catch_days`` [day]; sorted by
+        building_id, run_start, meter_id.
+    """
+    _require(readings, "readings", ("building_id", "period_start", "period_end", "energy_kbtu"))
+    if "estimated" not in readings.columns:
+        return pl.DataFrame(schema=_RUN_SCHEMA)
+    meter = (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
+    keys = ["building_id", "_meter"]
+    r = (
+        _heat(readings)
+        .select(
+            "building_id",
+            meter.alias("_meter"),
+            "period_start",
+            "period_end",
+            pl.col("energy_kbtu").cast(pl.Float64),
+            pl.col("estimated").cast(pl.Boolean).fill_null(False).alias("_est"),
+        )
+        .sort([*keys, "period_start", "period_end"])
+        .with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("_days"))
+        # a new group wherever the read's kind changes or the meter's reads do not follow on
+        .with_columns(
+            (
+                (pl.col("_est") != pl.col("_est").shift(1).over(keys))
+                | ((_ordinal("period_start") - _ordinal("period_end").shift(1).over(keys)) > max_step_days)
+            )
+            .fill_null(True)
+            .cum_sum()
+            .over(keys)
+            .alias("_g")
+        )
+        .with_columns(
+            ((_ordinal("period_start") - _ordinal("period_end").shift(1).over(keys)) <= max_step_days)
+            .fill_null(False)
+            .alias("_follows")
+        )
+    )
+    runs = (
+        r.filter(pl.col("_est"))
+        .group_by([*keys, "_g"])
+        .agg(
+            pl.col("period_start").min().alias("run_start"),
+            pl.col("period_end").max().alias("run_end"),
+            pl.len().cast(pl.Int64).alias("n_estimated"),
+            pl.col("energy_kbtu").sum().alias("run_kbtu"),
+            pl.col("_days").sum().cast(pl.Int64).alias("run_days"),
+        )
+        .filter(pl.col("n_estimated") >= min_run)
+    )
+    catch = (
+        r.filter(~pl.col("_est") & pl.col("_follows"))
+        .group_by([*keys, "_g"])
+        .agg(
+            pl.col("period_start").first().alias("catch_start"),
+            pl.col("period_end").first().alias("catch_end"),
+            pl.col("energy_kbtu").first().alias("catch_kbtu"),
+            pl.col("_days").first().cast(pl.Int64).alias("catch_days"),
+        )
+        .with_columns(pl.col("_g") - 1)
+    )
+    out = runs.join(catch, on=[*keys, "_g"], how="left").rename({"_meter": "meter_id"})
+    return out.select(list(_RUN_SCHEMA)).cast(_RUN_SCHEMA).sort(["building_id", "run_start", "meter_id"])
+
+
+def estimated_run_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, min_run: int = 3) -> pl.DataFrame:
+    """``estimated_run`` data issues: runs of estimated reads (:func:`estimated_runs`) that overlap the span.
+
+    The detail names the run, its catch-up and both daily rates against the span's daily rate
+    (the heating fuel's energy over the span's covered days). It blocks a verdict (declared in
+    ``schema.DATA_ISSUES``): the span's total still holds the estimates' energy, but how much of it
+    is heating, and how it follows the weather, are invented for months.
+
+    Returns
+    -------
+    pl.DataFrame
+        ``building_id, code, detail, blocking``, one row per building, runs joined with "; ".
+    """
+    _require(spans, "spans", ("building_id", "span_start", "span_end"))
+    runs = estimated_runs(readings, min_run=min_run).join(
+        spans.select("building_id", "span_start", "span_end"), on="building_id", how="inner"
+    )
+    runs = runs.filter((pl.col("run_end") >= pl.col("span_start")) & (pl.col("run_start") <= pl.col("span_end")))
+    if not runs.height:
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
+    h = _heat(readings).join(runs.select("building_id", "span_start", "span_end").unique(), on="building_id")
+    h = h.filter((pl.col("period_start") >= pl.col("span_start")) & (pl.col("period_end") <= pl.col("span_end")))
+    rate = h.group_by("building_id").agg(
+        (pl.col("energy_kbtu").sum() / ((_ordinal("period_end") - _ordinal("period_start")) + 1).sum()).alias("_rate")
+    )
+    runs = runs.join(rate, on="building_id", how="left")
+    per_day = pl.col("_rate").fill_null(0.0)
+    times = lambda e: pl.when(per_day > 0).then((e / per_day).round(2).cast(pl.String)).otherwise(pl.lit("?"))  # noqa: E731
+    runs = runs.with_columns(
+        pl.when(pl.col("catch_start").is_null())
+        .then(
+            pl.format(
+                "{} estimated reads {}..{} at {}× the span's daily use, no true read after them yet",
+                "n_estimated",
+                "run_start",
+                "run_end",
+                times(pl.col("run_kbtu") / pl.col("run_days")),
+            )
+        )
+        .otherwise(
+            pl.format(
+                "{} estimated reads {}..{} at {}× the span's daily use, then a true read {}..{} at {}×",
+                "n_estimated",
+                "run_start",
+                "run_end",
+                times(pl.col("run_kbtu") / pl.col("run_days")),
+                "catch_start",
+                "catch_end",
+                times(pl.col("catch_kbtu") / pl.col("catch_days")),
+            )
+        )
+        .alias("detail")
+    )
+    out = (
+        runs.sort(["building_id", "run_start", "meter_id"])
+        .group_by("building_id", maintain_order=True)
+        .agg(pl.col("detail").str.join("; "))
+        .with_columns(
+            pl.lit("estimated_run").alias("code"),
+            pl.lit(ISSUE_CODES["estimated_run"]).alias("blocking"),
+        )
+    )
+    return out.select(list(_ISSUE_SCHEMA)).cast(_ISSUE_SCHEMA).sort("building_id")
+
+
 def missing_bills(
     readings: pl.DataFrame, window_start: date, window_end: date, *, spans: pl.DataFrame | None = None
 ) -> pl.DataFrame:

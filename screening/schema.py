@@ -104,6 +104,9 @@ DATA_ISSUES: dict[str, Issue] = {
     "low_coverage": Issue(True, "metered", "reads cover less than coverage_min of the span"),
     "gap_in_reads": Issue(False, "metered", "days of the span with no read (coverage says how much)"),
     "many_estimated_reads": Issue(False, "metered", "more than estimated_share_max of the span's reads estimated"),
+    "estimated_run": Issue(
+        True, "metered", "a run of estimated reads and its catch-up: months of the bills' shape invented"
+    ),
     "likely_unit_error": Issue(True, "pipeline", "a bill or the whole use 10x-1000x off (units, entry)"),
     "bill_off_fit": Issue(True, "pipeline", "a bill far off the building's own weather fit"),
     "weather_gap": Issue(True, "pipeline", "days of the span without weather at the station"),

@@ -58,6 +58,7 @@ TEXT_INPUTS = (
     "_w_fstep",
     "_yoy_fuel",
     "_z_fuel",
+    "_hold",
     *[f"_f_{k}" for k in FLAG_ORDER],
 )
 TIER_RANK = {name: i + 1 for i, (name, _) in enumerate(TIERS)}

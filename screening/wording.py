@@ -207,8 +207,10 @@ def explain(
             1,
         ),
         "tf1": (((c("fitted_base_f") - 32) / 1.8) if si else c("fitted_base_f"), 1),
-        "du1": (
-            ((c("fitted_base_f") - c("balance_point_f")) / 1.8) if si else (c("fitted_base_f") - c("balance_point_f")),
+        "du1": (  # the distance; which side of the engineering point is said in words ("rel" below)
+            ((c("fitted_base_f") - c("balance_point_f")).abs() / 1.8)
+            if si
+            else (c("fitted_base_f") - c("balance_point_f")).abs(),
             1,
         ),
     }
@@ -243,6 +245,13 @@ def explain(
         "yoy_review_z": pl.lit(_g(t.yoy_review_z)),
         "review_score": pl.lit(_g(t.review_score)),
         "codes": c("data_issue_codes").list.join(", ").fill_null(""),
+        # the controls mechanism is judged against the peers' fits: below the engineering point it is high for its peers
+        "rel": pl.when(
+            ((c("fitted_base_f") - c("balance_point_f")) >= 0).fill_null(False)
+            & (c("fitted_base_f") - c("balance_point_f")).is_not_nan().fill_null(False)
+        )
+        .then(pl.lit("above the engineering balance point"))
+        .otherwise(pl.lit("below the engineering one, high for its peers")),
         **{k.replace(" ", "_"): pl.lit(v) for k, v in MECHANISM_CHECKS.items()},
     }
 
@@ -287,10 +296,7 @@ def explain(
         "heat loss": say(
             "heat loss (the heating slope implies {ua1}× the envelope's heat-loss coefficient): {heat_loss}"
         ),
-        "controls": say(
-            "controls (heating starts at {tf1} {deg} outdoors, {du1} {deg} above the engineering balance point): "
-            "{controls}"
-        ),
+        "controls": say("controls (heating starts at {tf1} {deg} outdoors, {du1} {deg} {rel}): {controls}"),
         "baseload": say("non-heating use of the heating fuel ({bls} % of it, about {bld} % is typical): {baseload}"),
     }
     nth = [c("mechanisms").list.get(i, null_on_oob=True) for i in range(len(part))]
@@ -372,6 +378,10 @@ def explain(
             (in_plan & ~review, " It is in this quarter's audit plan for its expected savings."),
             (in_plan, " It is in this quarter's audit plan."),
             (
+                _flag("_hold") & c("tier").is_in(["Watch", "No action"]).fill_null(False),
+                " A recent measure, or an audit on record that found nothing, keeps it off the plan (plan_note).",
+            ),
+            (
                 review & c("tier").is_in(["Watch", "No action"]).fill_null(False),
                 " Its expected savings are below the cost of a visit ([plan] audit_cost), so it is not planned.",
             ),
@@ -430,6 +440,15 @@ def explain(
             (
                 no_claim & _lt(ratio, 1.0) & _lt(c("actual_heating_kbtu"), c("_band_low")),
                 say("Heating is below expectation ({ratio2}× expected): no sign of excess."),
+            ),
+            (
+                no_claim
+                & (_lt(ratio, t.min_excess_ratio) | (~_flag("_f_above_band") & ~_flag("_f_poor_fit")))
+                & _lt(ratio, 1.0),
+                say(
+                    "Heating is {ratio2}× the central expectation, within the model's range and in line with its "
+                    "peers; no excess worth a visit."
+                ),
             ),
             (
                 no_claim & (_lt(ratio, t.min_excess_ratio) | (~_flag("_f_above_band") & ~_flag("_f_poor_fit"))),

@@ -210,3 +210,111 @@ def test_a_data_fault_never_takes_an_audit_slot(screened, screened_onset):
         # every building whose data block a verdict is ranked after every building that can be judged
         assert blocked.height == 0 or blocked["rank"].min() > judged["rank"].max()
         assert not df.filter(pl.col("truth_label") == "unit_error")["tier"].is_in(["Audit first", "Audit soon"]).any()
+
+
+# --------------------------------------------------------------------------------------------
+# estimated reads followed by a catch-up (issue 14, "data faults never on the audit list")
+# --------------------------------------------------------------------------------------------
+
+
+def _monthly_reads(bid: str, kbtu: list[float], estimated: list[bool], start=dt.date(2025, 10, 1)) -> pl.DataFrame:
+    """Consecutive calendar-month reads of one gas meter from ``start`` [kBtu]."""
+    rows, s = [], start
+    for q, est in zip(kbtu, estimated, strict=True):
+        e = (s.replace(day=28) + dt.timedelta(days=4)).replace(day=1) - dt.timedelta(days=1)
+        rows.append(dict(building_id=bid, meter_id="M1", period_start=s, period_end=e, energy_kbtu=q, estimated=est))
+        s = e + dt.timedelta(days=1)
+    return pl.DataFrame(rows).with_columns(pl.lit(True).alias("is_heating_fuel"))
+
+
+# a heating year Oct..Sep [kBtu]: the shape of a gas-heated building (illustrative, invented)
+_YEAR = [40.0, 90.0, 150.0, 170.0, 140.0, 100.0, 60.0, 30.0, 20.0, 20.0, 20.0, 25.0]
+_SPAN = pl.DataFrame(
+    {
+        "building_id": ["A", "B", "C", "D"],
+        "span_start": [dt.date(2025, 10, 1)] * 4,
+        "span_end": [dt.date(2026, 9, 30)] * 4,
+    }
+)
+
+
+def test_a_run_of_estimates_with_its_catch_up_is_a_blocking_data_issue():
+    from screening import metered
+
+    # A: Nov..Feb estimated at October's rate, then a true March read that catches up (total kept)
+    est_a = [False, True, True, True, True, False, *[False] * 6]
+    q_a = list(_YEAR)
+    q_a[1:5] = [40.0] * 4
+    q_a[5] = sum(_YEAR[1:6]) - 160.0
+    # B: Feb..Jul estimated at January's rate, scaled to 0.9 of the truth; a small true read in August
+    est_b = [False] * 4 + [True] * 6 + [False, False]
+    q_b = list(_YEAR)
+    run = 0.9 * sum(_YEAR[4:11])
+    q_b[4:10] = [run / 6] * 6
+    q_b[10] = sum(_YEAR[4:11]) - run
+    # C, must NOT fire: sporadic single estimates (normal practice), each followed by its catch-up,
+    # and two estimates in a row (the simulator's normal buildings have such pairs)
+    est_c = [False, True, False, False, True, True, False, False, True, False, False, False]
+    # D, must NOT fire: three estimates, but a month without any read breaks the run
+    r = pl.concat(
+        [
+            _monthly_reads("A", q_a, est_a),
+            _monthly_reads("B", q_b, est_b),
+            _monthly_reads("C", _YEAR, est_c),
+            _monthly_reads("D", _YEAR[:2], [True, True]),
+            _monthly_reads("D", _YEAR[3:], [True, *[False] * 8], start=dt.date(2026, 1, 1)),
+        ]
+    )
+    runs = metered.estimated_runs(r)
+    assert runs["building_id"].to_list() == ["A", "B"]
+    a = runs.row(0, named=True)
+    assert (a["run_start"], a["run_end"], a["n_estimated"]) == (dt.date(2025, 11, 1), dt.date(2026, 2, 28), 4)
+    assert a["catch_start"] == dt.date(2026, 3, 1) and a["catch_kbtu"] == pytest.approx(sum(_YEAR[1:6]) - 160.0)
+    iss = metered.estimated_run_issues(r, _SPAN)
+    assert iss["building_id"].to_list() == ["A", "B"]
+    assert iss["code"].unique().to_list() == ["estimated_run"] and iss["blocking"].all()
+    assert "4 estimated reads 2025-11-01..2026-02-28" in iss["detail"][0]
+    assert "then a true read 2026-03-01..2026-03-31 at " in iss["detail"][0]
+    # a run outside the span is not this span's issue; a run with no true read after it is named as such
+    later = _SPAN.with_columns(
+        pl.lit(dt.date(2026, 9, 1)).alias("span_start"), pl.lit(dt.date(2027, 8, 31)).alias("span_end")
+    )
+    assert metered.estimated_run_issues(r, later).height == 0
+    open_run = _monthly_reads("A", _YEAR[:4], [False, True, True, True])
+    assert "no true read after them yet" in metered.estimated_run_issues(open_run, _SPAN)["detail"][0]
+    # min_run 2 would take building C's pair (and normal buildings' pairs on the simulator)
+    assert "C" in metered.estimated_runs(r, min_run=2)["building_id"].to_list()
+
+
+def test_a_run_of_estimates_keeps_the_building_off_the_audit_list():
+    # the whole screening (pipeline.screen_frames) on two copies of one building billed monthly from its
+    # own weather: T1 read truly, T2 with Nov..Feb estimated at October's daily rate and a March catch-up
+    from tests.test_pipeline import UA, _building, _buildings, _cfg, _monthly_readings, _seasonal
+
+    from screening.pipeline import screen_frames
+
+    w = _seasonal()
+    t1 = _monthly_readings(w, dt.date(2024, 10, 1), 24, UA, 0.8)
+    t1 = t1.with_columns(pl.col("quantity") + 1000.0)  # and hot water, 1,000 therm a month
+    oct25 = t1.filter(pl.col("period_start") == dt.date(2025, 10, 1)).row(0, named=True)
+    rate = oct25["quantity"] / 31
+    run = pl.col("period_start").is_between(dt.date(2025, 11, 1), dt.date(2026, 2, 1))
+    catch = pl.col("period_start") == dt.date(2026, 3, 1)
+    days = (pl.col("period_end") - pl.col("period_start")).dt.total_days() + 1
+    shortfall = t1.filter(run).select((pl.col("quantity") - rate * days).sum()).item()
+    billed = pl.when(run).then(rate * days).when(catch).then(pl.col("quantity") + shortfall)
+    t2 = t1.with_columns(
+        pl.lit("T2").alias("building_id"),
+        billed.otherwise(pl.col("quantity")).alias("quantity"),
+        run.alias("estimated"),
+        (pl.col("_line") + 100).alias("_line"),
+    )
+    assert t2["quantity"].sum() == pytest.approx(t1["quantity"].sum())  # the catch-up keeps the total
+    b = _buildings([_building(heating_efficiency=0.8), _building(building_id="T2", heating_efficiency=0.8, _line=3)])
+    res = screen_frames(b, pl.concat([t1, t2]), w, _cfg(), window=(dt.date(2025, 10, 1), dt.date(2026, 9, 30)))
+    rows = {r["building_id"]: r for r in res.results.iter_rows(named=True)}
+    assert "estimated_run" in rows["T2"]["data_issue_codes"] and rows["T2"]["tier"] == "Fix data first"
+    assert "estimated_run" not in (rows["T1"]["data_issue_codes"] or []) and rows["T1"]["tier"] != "Fix data first"
+    iss = res.issues.filter(pl.col("code") == "estimated_run")
+    assert iss["building_id"].to_list() == ["T2"] and iss["blocking"].to_list() == [True]
+    assert iss["detail"][0].startswith("4 estimated reads 2025-11-01..2026-02-28 at ")

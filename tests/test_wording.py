@@ -97,6 +97,8 @@ def reference_row(r: dict, t: dict, *, energy_factor: float, energy_unit: str, c
         if r["in_plan"] and not r["needs_review"]
         else " It is in this quarter's audit plan."
         if r["in_plan"]
+        else " A recent measure, or an audit on record that found nothing, keeps it off the plan (plan_note)."
+        if r["_hold"] and r["tier"] in ("Watch", "No action")
         else " Its expected savings are below the cost of a visit ([plan] audit_cost), so it is not planned."
         if r["needs_review"] and r["tier"] in ("Watch", "No action")
         else " Its expected savings are worth a visit after this quarter's plan."
@@ -161,9 +163,10 @@ def _waste_kind(r: dict, ms: list[str], t: dict, *, si: bool) -> str:
             d = r["fitted_base_f"] - r["balance_point_f"]
             tf = (r["fitted_base_f"] - 32) / 1.8 if si else r["fitted_base_f"]
             unit, du = ("°C", d / 1.8) if si else ("°F", d)
+            rel = "above the engineering balance point" if du >= 0 else "below the engineering one, high for its peers"
             parts.append(
-                f"controls (heating starts at {_fmt(tf, 1)} {unit} outdoors, {_fmt(du, 1)} {unit} "
-                f"above the engineering balance point): {MECHANISM_CHECKS[m]}"
+                f"controls (heating starts at {_fmt(tf, 1)} {unit} outdoors, {_fmt(abs(du), 1)} {unit} "
+                f"{rel}): {MECHANISM_CHECKS[m]}"
             )
         else:
             parts.append(
@@ -253,6 +256,11 @@ def _not_listed(r: dict, t: dict, money: str | None, plan: str) -> str:
         if ratio < 1 and r["actual_heating_kbtu"] < r["_band_low"]:
             return f"Heating is below expectation ({_fmt(ratio, 2)}× expected): no sign of excess."
         if ratio < t["min_excess_ratio"] or not r["_f_above_band"] and not r["_f_poor_fit"]:
+            if ratio < 1:  # inside the model's band, but 0.49× is not "in line with expectation"
+                return (
+                    f"Heating is {_fmt(ratio, 2)}× the central expectation, within the model's range and in line "
+                    "with its peers; no excess worth a visit."
+                )
             return (
                 f"Heating is in line with expectation ({_fmt(ratio, 2)}× expected) and with its peers; "
                 "no excess worth a visit."
@@ -349,6 +357,7 @@ def _random_frame(n: int, seed: int) -> pl.DataFrame:
         "_z_fuel": num(2),
         "fit_method": pick(["regression", "regression", "default share", None]),
         "in_plan": pick([True, False], 0.05),
+        "_hold": pick([True, False, False]),
         "recoverable_basis": pick([None, "level"]),
     }
     for m in MECHANISMS:
