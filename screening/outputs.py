@@ -11,7 +11,7 @@ from typing import cast
 
 import polars as pl
 
-from . import screen
+from . import screen, wording
 from .pipeline import DATA_ISSUE_CODES
 from .render import savings_page
 from .render.record import AnnualBar, Assumption, DataIssue, Flag, Line, Period, SheetRecord, SinceMeasure, UaPart
@@ -640,7 +640,7 @@ def sheet_records(
                 peers=peer_map.get(r["peer_group"], []),
                 flags=flags,
                 data_issues=issues,
-                next_steps=screen.next_steps(
+                next_steps=wording.next_steps(
                     r["flag_codes"],
                     r["data_issue_codes"],
                     slope_vs_envelope=slope_ratio,

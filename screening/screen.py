@@ -589,13 +589,6 @@ def screen(
 #: the mechanisms the bills can show, as column stems (``excess_<m>_kbtu``, ``sure_<m>``, ...)
 MECHANISMS = ("heat_loss", "controls", "baseload")
 
-MECHANISM_CHECKS = {
-    "heat loss": "check outdoor air and dampers, the envelope and air leakage, and the plant's efficiency",
-    "controls": "check setpoints, schedules and setbacks, heating in warm weather, and simultaneous heating "
-    "and cooling",
-    "baseload": "check hot water, recirculation and leaks",
-}
-
 
 def _mechanisms(t: Thresholds) -> pl.Expr:
     """Mechanisms whose own evidence is sure enough (``sure_<m>`` ≥ mechanism_support and an excess > 0),
@@ -631,43 +624,3 @@ def _mechanisms(t: Thresholds) -> pl.Expr:
             e = pl.when(ok[n] & (place[n] == i)).then(pl.lit(n)).otherwise(e)
         at.append(e)
     return pl.concat_list(at).list.drop_nulls()
-
-
-def next_steps(
-    flag_codes: list[str],
-    data_issue_codes: list[str],
-    *,
-    slope_vs_envelope: float | None = None,
-    mechanisms: list[str] | None = None,
-    blocking: bool = False,
-) -> list[str]:
-    """Plain-language checks (printed on the sheet): a mechanism's checks only where its own evidence
-    supports it (``mechanisms``, from the screen's ``mechanisms`` column); none while a data problem blocks.
-
-    ``slope_vs_envelope`` is kept for callers of the earlier signature; it no longer adds advice.
-    """
-    steps = []
-    # the last days of the window filled from the fit need no correction, only the next bill
-    fix = sorted(set(data_issue_codes) - {"end_days_filled"})
-    if fix:
-        steps.append(
-            "Check the data first: " + ", ".join(fix) + " — correct the readings or the building record and rerun."
-        )
-    if "end_days_filled" in data_issue_codes:
-        steps.append(
-            "The last days of the window had no reading yet and were filled from the building's "
-            "weather fit: the next run uses the bill once it is read."
-        )
-    if blocking:
-        return steps
-    for m in mechanisms or []:
-        steps.append(f"{m[0].upper()}{m[1:]}: {MECHANISM_CHECKS[m]}.")
-    if "poor_fit" in flag_codes:
-        steps.append(
-            "Check operation and meters: irregular occupancy, manual controls, estimated or mis-assigned readings."
-        )
-    if "rising_use" in flag_codes:
-        steps.append("Ask what changed since last year: equipment, occupancy, schedules, a failed component.")
-    if not steps:
-        steps.append("No check needed now; keep the readings coming and review next quarter.")
-    return steps

@@ -339,7 +339,7 @@ def test_readme_lists_the_data_issues_and_the_flags_the_code_declares():
 
 
 def test_filled_end_days_ask_for_no_data_correction():
-    from screening.screen import next_steps
+    from screening.wording import next_steps
 
     steps = next_steps([], ["end_days_filled"], slope_vs_envelope=None)
     assert not any(s.startswith("Check the data first") for s in steps)

@@ -15,7 +15,8 @@ import polars as pl
 import pytest
 
 from screening import config, screen, wording
-from screening.screen import MECHANISM_CHECKS, MECHANISMS
+from screening.screen import MECHANISMS
+from screening.wording import MECHANISM_CHECKS
 
 
 def _fmt(x: float | None, digits: int = 0) -> str:
