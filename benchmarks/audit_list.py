@@ -182,7 +182,7 @@ def rescreen(d: Path) -> pl.DataFrame:
     from screening import config, screen
 
     frame = pl.read_parquet(d / "frame.parquet")
-    res = screen.screen(frame, config.Thresholds(), plan=config.DEFAULTS["plan"])
+    res = screen.screen(frame, config.Thresholds(), plan=config.Plan())
     return res.select(
         "building_id",
         "rank",

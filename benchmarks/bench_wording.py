@@ -40,7 +40,7 @@ def _frame(n: int, work: Path):
     if not (work / "buildings.csv").exists():
         bench_pipeline.generate(n, work)
     audit_list.screen_full(work)  # one whole run; keeps the frame as work/frame.parquet
-    return pl.read_parquet(work / "frame.parquet"), config.thresholds(config.DEFAULTS), config.DEFAULTS["plan"]
+    return pl.read_parquet(work / "frame.parquet"), config.Thresholds(), config.Plan()
 
 
 def _ref_screen(ref: str):
@@ -75,6 +75,7 @@ def main() -> None:
         runs["ref screen (sentences row by row)"] = []
     new = old = None
     thr_dict = dataclasses.asdict(thr)
+    plan_dict = dataclasses.asdict(plan)
     for _ in range(a.repeat):
         t = time.perf_counter()
         s = screen.screen(frame, thr, plan=plan)
@@ -84,7 +85,7 @@ def main() -> None:
         runs["explain"].append(time.perf_counter() - t)
         if ref is not None:
             t = time.perf_counter()
-            old = ref.screen(frame, thr_dict, plan=plan, **kw)  # the reference read the settings as a dict
+            old = ref.screen(frame, thr_dict, plan=plan_dict, **kw)  # the reference read the settings as dicts
             runs["ref screen (sentences row by row)"].append(time.perf_counter() - t)
     print(f"{a.n} buildings, medians of {a.repeat}:")
     for k, v in runs.items():

@@ -31,7 +31,7 @@ from typing import Any
 import polars as pl
 
 from . import pipeline
-from .config import CLUSTER_LOCAL, check_cluster
+from .config import CLUSTER_LOCAL, Settings, check_cluster, settings
 from .errors import ConfigError
 from .store import Store
 
@@ -40,9 +40,9 @@ PART_FRAMES = ("frame", "issues", "periods", "envelope", "rejects", "savings", "
 PART_VALUES = ("covered", "first", "last", "n_conv", "n_readings")
 
 
-def from_config(cfg: dict, db_path: str | Path | None = None) -> DaskChunks | None:
+def from_config(cfg: Settings | dict, db_path: str | Path | None = None) -> DaskChunks | None:
     """The executor named by ``[run] cluster`` (None when empty); ``ConfigError`` when Dask is missing."""
-    address = str(cfg.get("run", {}).get("cluster", "") or "")
+    address = settings(cfg).run.cluster
     check_cluster(address)
     if not address:
         return None

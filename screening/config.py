@@ -64,6 +64,10 @@ class Inputs:
         {}, 'your column names → ours, per file kind: [inputs.columns.readings] "Usage" = "quantity"'
     )
 
+    def by_kind(self) -> dict[str, str]:
+        """The path or glob of each of the three kinds of input file (``pipeline.KINDS``), by kind."""
+        return {"buildings": self.buildings, "readings": self.readings, "weather": self.weather}
+
 
 @dataclass
 class Store:
@@ -435,8 +439,14 @@ CHOICES: dict[tuple[str, str], tuple[tuple[str, ...], str]] = {
 }
 
 
-def settings(cfg: dict) -> Settings:
-    """The typed view of a config dict (as :func:`load` returns it)."""
+def settings(cfg: Settings | dict) -> Settings:
+    """The typed view of a config dict (as :func:`load` returns it); a :class:`Settings` is returned as it is.
+
+    The run builds it once, right after :func:`load` checked the dict, and the orchestration reads its
+    attributes (a misspelt key is a type-check or ``AttributeError``, not a ``KeyError`` mid-run); the
+    library's entry points that take a config accept either and convert here, at the boundary."""
+    if isinstance(cfg, Settings):
+        return cfg
     return Settings(**{s: cls(**cfg[s]) for s, cls in SECTIONS.items()})
 
 
@@ -711,16 +721,16 @@ def _check_dates(a: dict, today: _dt.date) -> None:
             )
 
 
-def run_window(cfg: dict, today: _dt.date | None = None) -> tuple[_dt.date, tuple[_dt.date, _dt.date]]:
+def run_window(cfg: Settings | dict, today: _dt.date | None = None) -> tuple[_dt.date, tuple[_dt.date, _dt.date]]:
     """The run's as-of day and analysis window (start, inclusive end) from checked settings."""
     from .window import analysis_window
 
-    a = cfg["analysis"]
-    as_of = parse_date_value(a["as_of"], "config key [analysis] as_of") if a["as_of"] else (today or _dt.date.today())
-    if a["window_from"]:
+    a = settings(cfg).analysis
+    as_of = parse_date_value(a.as_of, "config key [analysis] as_of") if a.as_of else (today or _dt.date.today())
+    if a.window_from:
         return as_of, (
-            parse_date_value(a["window_from"], "config key [analysis] window_from"),
-            parse_date_value(a["window_to"], "config key [analysis] window_to"),
+            parse_date_value(a.window_from, "config key [analysis] window_from"),
+            parse_date_value(a.window_to, "config key [analysis] window_to"),
         )
     return as_of, analysis_window(as_of)
 

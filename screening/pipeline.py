@@ -63,17 +63,18 @@ def file_sha256(path: str | Path) -> str:
     return h.hexdigest()
 
 
-def read_options(cfg: dict) -> ReadOptions:
-    r = cfg["reading"]
+def read_options(cfg: config.Settings | dict) -> ReadOptions:
+    s = config.settings(cfg)
+    r = s.reading
     return ReadOptions(
-        units=cfg["analysis"]["units"],
-        decimal_comma=r["decimal_comma"],
-        date_order=r["date_order"] or None,
-        delimiter=r["delimiter"] or None,
-        encoding=r["encoding"] or None,
-        columns=dict(cfg["inputs"].get("columns") or {}),
-        thousands=r.get("thousands", ""),
-        chunk_bytes=int(cfg.get("run", {}).get("ingest_chunk_mb", streaming.STREAM_CHUNK_BYTES >> 20)) << 20,
+        units=s.analysis.units,
+        decimal_comma=r.decimal_comma,
+        date_order=r.date_order or None,
+        delimiter=r.delimiter or None,
+        encoding=r.encoding or None,
+        columns=dict(s.inputs.columns or {}),
+        thousands=r.thousands,
+        chunk_bytes=s.run.ingest_chunk_mb << 20,
     )
 
 
@@ -237,10 +238,10 @@ class Screened:
     learning: pl.DataFrame | None = None  # the defaults' bias per era x use type from audited values (learning.py)
 
 
-def base_grid(cfg: dict) -> np.ndarray:
-    a = cfg["analysis"]
-    n = int(round((a["base_max_f"] - a["base_min_f"]) / a["base_step_f"])) + 1
-    return np.round(a["base_min_f"] + a["base_step_f"] * np.arange(n), 6)
+def base_grid(cfg: config.Settings | dict) -> np.ndarray:
+    a = config.settings(cfg).analysis
+    n = int(round((a.base_max_f - a.base_min_f) / a.base_step_f)) + 1
+    return np.round(a.base_min_f + a.base_step_f * np.arange(n), 6)
 
 
 def _source(frame: pl.DataFrame, paths: dict, kind: str) -> pl.Expr:
@@ -383,7 +384,7 @@ def screen_frames(
     buildings: pl.DataFrame,
     readings: pl.DataFrame | ReadingsSource,
     weather: pl.DataFrame,
-    cfg: dict,
+    cfg: config.Settings | dict,
     *,
     window: tuple[_dt.date, _dt.date],
     paths: dict | None = None,
@@ -411,8 +412,9 @@ def screen_frames(
     """
     fit_block = fit_block or FIT_BLOCK
     paths = paths or {}
-    a = cfg["analysis"]
-    thr = config.thresholds(cfg)  # the [thresholds] settings, typed and frozen, for every step below
+    s = config.settings(cfg)  # the typed settings (a config dict from a caller converted once, here)
+    a = s.analysis
+    thr = s.thresholds  # the [thresholds] settings, typed and frozen, for every step below
     t0 = time.perf_counter()
     timings: dict[str, float] = {}
 
@@ -422,7 +424,7 @@ def screen_frames(
         timings[name] = round(timings.get(name, 0.0) + now - t0, 4)
         t0 = now
 
-    grid = base_grid(cfg)
+    grid = base_grid(s)
     stations = sorted(weather["station_id"].unique().to_list())
     source = readings if isinstance(readings, ReadingsSource) else FrameReadings(readings)
     del readings  # the source holds the frame (a caller passing the store's frame frees it with the source)
@@ -439,15 +441,15 @@ def screen_frames(
 
     # weather: short gaps filled, long ones reported; the degree-day cube for every base
     filled, gaps = ddm.fill_short_gaps(weather)
-    cube = ddm.DegreeDayCube.from_daily(filled, grid, method=a["degree_day_method"])
-    years = range(a["normal_years"][0], a["normal_years"][1] + 1) if a["normal_years"] else None
+    cube = ddm.DegreeDayCube.from_daily(filled, grid, method=a.degree_day_method)
+    years = range(a.normal_years[0], a.normal_years[1] + 1) if a.normal_years else None
     normals = ddm.normal_year(cube, grid, years=years)
     if years is not None:
-        _check_normal_years(normals, b, weather, a["normal_years"])
+        _check_normal_years(normals, b, weather, a.normal_years)
     lap("degree_days")
 
     # the defaults' bias learned from audited buildings: a portfolio statistic, before the chunks (issue 17)
-    learned = _audit_bias(b, cfg["learning"]["min_audits"])
+    learned = _audit_bias(b, s.learning.min_audits)
     lap("envelope")
 
     # per-building work, a chunk of buildings at a time (each building's rows depend only on its own)
@@ -455,7 +457,7 @@ def screen_frames(
     chunked = size < b.height
     common: dict[str, Any] = dict(
         weather=weather,
-        cfg=cfg,
+        cfg=s,
         cube=cube,
         normals=normals,
         gaps=gaps,
@@ -504,11 +506,11 @@ def screen_frames(
     del parts
 
     # the portfolio pass: peer statistics, year-on-year z, the ranking
-    units_ip = cfg["analysis"]["units"] == "IP"
+    units_ip = a.units == "IP"
     results = wording.explain(  # the sentences, once over the portfolio (screening/wording.py)
-        screen.screen(frame, thr, plan=cfg["plan"]),
+        screen.screen(frame, thr, plan=s.plan),
         thr,
-        currency=cfg["prices"]["currency"],
+        currency=s.prices.currency,
         energy_factor=1.0 if units_ip else KBTU_TO_KWH,
         energy_unit="kBtu" if units_ip else "kWh",
     )
@@ -565,7 +567,7 @@ def _screen_part(
     b: pl.DataFrame,
     r: pl.DataFrame,
     weather: pl.DataFrame,
-    cfg: dict,
+    cfg: config.Settings,
     *,
     cube,
     normals,
@@ -583,13 +585,11 @@ def _screen_part(
     thresholds: config.Thresholds | None = None,
 ) -> _Part:
     """The per-building work for the buildings ``b`` (sorted) and their checked readings ``r``."""
-    a = cfg["analysis"]
+    a = cfg.analysis
     ws, we = window
     part = _Part()
     # metered side
-    conv, conv_rej = units.convert_to_kbtu(
-        r, b, gas_btu_per_ft3=a["gas_btu_per_ft3"], steam_btu_per_lb=a["steam_btu_per_lb"]
-    )
+    conv, conv_rej = units.convert_to_kbtu(r, b, gas_btu_per_ft3=a.gas_btu_per_ft3, steam_btu_per_lb=a.steam_btu_per_lb)
     n_readings = r.height
     del r
     billed = units.billed_units(conv)  # the bills' own unit per building (sheets and ranking.csv)
@@ -608,15 +608,15 @@ def _screen_part(
                 ).cast(REJECT_SCHEMA),
             ]
         )
-    thr = thresholds or config.thresholds(cfg)
+    thr = thresholds or cfg.thresholds
     spans = metered.choose_spans(
         conv,
         ws,
         we,
-        lookback_months=a["lookback_months"],
+        lookback_months=a.lookback_months,
         min_coverage=thr.coverage_min,
         building_ids=b["building_id"],
-        fill_end_days=a["fill_end_days"],
+        fill_end_days=a.fill_end_days,
     )
     if plan_context is not None:
         plan_context = plan_context.filter(pl.col("building_id").is_in(b["building_id"].implode()))
@@ -627,9 +627,9 @@ def _screen_part(
             spans,
             plan_context,
             we,
-            lookback_months=a["lookback_months"],
+            lookback_months=a.lookback_months,
             min_coverage=thr.coverage_min,
-            fill_end_days=a["fill_end_days"],
+            fill_end_days=a.fill_end_days,
         )
     part.plan_context = plan_context
     part.covered = bool((spans["coverage"].fill_null(0.0) > 0).any())
@@ -637,12 +637,12 @@ def _screen_part(
         part.first, part.last = conv["period_start"].min(), conv["period_end"].max()  # type: ignore[assignment]
     part.n_conv, part.n_readings = conv.height, n_readings
     if not part.covered and not chunked:
-        _no_building_screenable(conv, n_readings, window, a["lookback_months"], paths)
+        _no_building_screenable(conv, n_readings, window, a.lookback_months, paths)
     spans = spans.join(b.select("building_id", "station_id"), on="building_id", how="left", maintain_order="left")
     st = spans["station_id"].to_numpy()
     span_hdd, span_days, span_missing = cube.period_totals(st, spans["span_start"], spans["span_end"])
     fill_hdd = _fill_hdd(cube, spans, grid)
-    periods = metered.fit_periods(conv, spans, lookback_months=a["lookback_months"])
+    periods = metered.fit_periods(conv, spans, lookback_months=a.lookback_months)
     if plan_context is not None and "_judge_from" in plan_context.columns:  # post-measure bills only (issue 17)
         jf = plan_context.filter(pl.col("_judge_from").is_not_null()).select("building_id", "_judge_from")
         periods = (
@@ -674,9 +674,9 @@ def _screen_part(
         base_grid_f=grid,
         efficiency=eff,
         engineering_base_f=envelope["balance_point_f"].to_numpy(),
-        method=a["calendarization"],
+        method=a.calendarization,
         fill_hdd=fill_hdd,
-        daily_weights=_daily_weights(cube, spans, conv, envelope) if a["calendarization"] == "degree_days" else None,
+        daily_weights=_daily_weights(cube, spans, conv, envelope) if a.calendarization == "degree_days" else None,
         fit_block=fit_block,
     )
     lap("regression")
@@ -697,7 +697,7 @@ def _screen_part(
             pl.Series("hdd_per_day_fit", period_hdd.at(nearest_base(grid, base)) / periods["days"].to_numpy())
         )
     hdd65 = cube.at_base(st, spans["span_start"], spans["span_end"], np.full(len(st), 65.0))[0]
-    exp = env.expected_heating(envelope, grid, span_hdd, hdd_fixed_base=hdd65, n_draws=a["draws"], seed=a["seed"])
+    exp = env.expected_heating(envelope, grid, span_hdd, hdd_fixed_base=hdd65, n_draws=a.draws, seed=a.seed)
     if learned is not None and bool(learned["applied"].any()):  # issue 17: the defaults corrected by the audits
         exp = _apply_bias(exp, b, envelope, learned)
     lap("expected")
@@ -715,7 +715,7 @@ def _screen_part(
         weather,
         window,
         thr,
-        lookback_months=a["lookback_months"],
+        lookback_months=a.lookback_months,
     )
 
     # assemble and screen
@@ -825,7 +825,7 @@ def _screen_part(
     if events is not None:  # savings after a measure (issue 17): screening/events.py, screening/savings.py
         from . import events as ev
 
-        sc = cfg["savings"]
+        sc = cfg.savings
         part.savings, part.savings_periods = ev.savings_with_periods(
             conv,
             b,
@@ -835,10 +835,10 @@ def _screen_part(
             events.filter(pl.col("building_id").is_in(b["building_id"].implode())),
             _prices(b, cfg),
             window_end=we,
-            blackout_days=sc["blackout_days"],
-            min_periods=sc["baseline_min_periods"],
-            cv_max=sc["cv_rmse_max"],
-            nmbe_max=sc["nmbe_max"],
+            blackout_days=sc.blackout_days,
+            min_periods=sc.baseline_min_periods,
+            cv_max=sc.cv_rmse_max,
+            nmbe_max=sc.nmbe_max,
         )
         lap("savings")
     part.frame, part.issues, part.periods, part.envelope, part.rejects = frame, issues_df, periods, envelope, rejects
@@ -1036,7 +1036,7 @@ def _daily_weights(cube, spans: pl.DataFrame, conv: pl.DataFrame, envelope: pl.D
     ).with_columns(pl.col("weight").fill_nan(None))
 
 
-def _prices(b: pl.DataFrame, cfg: dict) -> pl.DataFrame:
+def _prices(b: pl.DataFrame, cfg: config.Settings) -> pl.DataFrame:
     """$ and kg CO2e per kBtu of fuel input for each building."""
     pu = refdata.load("price_units")
     ef = refdata.load("emission_factors")
@@ -1048,20 +1048,20 @@ def _prices(b: pl.DataFrame, cfg: dict) -> pl.DataFrame:
                 unit,
                 fuel,
                 heat_contents={
-                    "natural_gas": cfg["analysis"]["gas_btu_per_ft3"],
-                    "district_steam": cfg["analysis"]["steam_btu_per_lb"],
+                    "natural_gas": cfg.analysis.gas_btu_per_ft3,
+                    "district_steam": cfg.analysis.steam_btu_per_lb,
                 },
             )
             / 1000.0
         )
         kg = float(ef.filter(pl.col("fuel") == fuel)["kg_co2e_per_mmbtu"][0]) / 1000.0
-        if fuel == "electricity" and cfg["emissions"]["electricity_kg_co2e_per_kwh"] is not None:
-            kg = cfg["emissions"]["electricity_kg_co2e_per_kwh"] / units.btu_per_unit("kWh", fuel) * 1000.0
+        if fuel == "electricity" and cfg.emissions.electricity_kg_co2e_per_kwh is not None:
+            kg = cfg.emissions.electricity_kg_co2e_per_kwh / units.btu_per_unit("kWh", fuel) * 1000.0
         rows.append(
             {
                 "heating_fuel": fuel,
                 "_kbtu_per_unit": kbtu_per_unit,
-                "_price": float(cfg["prices"][fuel]),
+                "_price": float(getattr(cfg.prices, fuel)),
                 "kg_co2e_per_kbtu": kg,
             }
         )

@@ -21,7 +21,7 @@ from typing import TYPE_CHECKING
 import polars as pl
 
 if TYPE_CHECKING:  # the type only: config.py is read by the orchestration, not imported here
-    from .config import Thresholds
+    from .config import Plan, Thresholds
 
 MAD_TO_SIGMA = 1.4826  # consistency constant of the MAD for normal data (Iglewicz & Hoaglin 1993)
 P10_P90_SIGMAS = 2 * 1.2816  # a normal distribution's P10..P90 spans 2 × 1.2816 σ
@@ -316,7 +316,7 @@ def screen(
     df: pl.DataFrame,
     thresholds: Thresholds,
     *,
-    plan: dict | None = None,
+    plan: Plan | None = None,
 ) -> pl.DataFrame:
     """Add metrics, flags, needs_review, tier and rank to the per-building frame.
 
@@ -352,7 +352,8 @@ def screen(
     supported ones, surest first, for the sheet's checks) and ``recoverable_basis``; and the working columns
     the sentences are made of (:data:`TEXT_INPUTS`). The sentences (``flag_texts, verdict, waste_kind``) are
     :func:`screening.wording.explain`'s, which drops the working columns.
-    plan : ``[plan]`` of the config (``audits_per_quarter``, ``audit_cost``); None = no limit, any savings.
+    plan : ``[plan]`` of the config (:class:`screening.config.Plan`: ``audits_per_quarter``, ``audit_cost``,
+        ``clean_audit_regrow``); None = no limit, any savings.
     """
     t = thresholds
     # the band is never narrower than ±band_floor around P50: metering, weather and calendarization
@@ -531,10 +532,12 @@ def screen(
     )
     # the events (issue 17, events.plan_context): a confirmed finding not yet fixed is pinned to the top of
     # the plan; an audit that found nothing keeps the building off it unless its savings grew enough
-    p = plan or {"audits_per_quarter": 0, "audit_cost": 0.0}
+    per_quarter, audit_cost, regrow = (
+        (plan.audits_per_quarter, plan.audit_cost, plan.clean_audit_regrow) if plan is not None else (0, 0.0, 2.0)
+    )
     cost = pl.col("expected_recoverable_cost").fill_null(0.0).fill_nan(0.0)
     if "_pin_plan" in out.columns:
-        grown = (cost >= p.get("clean_audit_regrow", 2.0) * pl.col("_cost_at_audit")).fill_null(False)
+        grown = (cost >= regrow * pl.col("_cost_at_audit")).fill_null(False)
         out = out.with_columns(
             (pl.col("_pin_plan").fill_null(False) & ~pl.col("blocking")).alias("_pin"),
             (
@@ -549,10 +552,10 @@ def screen(
         nulls_last=True,
     )
     # tiers are plain groups along that order: this quarter's plan, the rest worth a visit, then less
-    worth = ((~pl.col("blocking")) & (cost > 0) & (cost >= p["audit_cost"]) & ~pl.col("_hold")) | pl.col("_pin")
+    worth = ((~pl.col("blocking")) & (cost > 0) & (cost >= audit_cost) & ~pl.col("_hold")) | pl.col("_pin")
     nth = worth.cast(pl.Int64).cum_sum()
-    in_plan = worth & ((nth <= p["audits_per_quarter"]) if p["audits_per_quarter"] > 0 else pl.lit(True))
-    watch_from = WATCH_SHARE * p["audit_cost"] if p["audit_cost"] > 0 else 0.0
+    in_plan = worth & ((nth <= per_quarter) if per_quarter > 0 else pl.lit(True))
+    watch_from = WATCH_SHARE * audit_cost if audit_cost > 0 else 0.0
     out = out.with_columns(in_plan.alias("in_plan")).with_columns(
         pl.when(pl.col("blocking"))
         .then(pl.lit("Fix data first"))

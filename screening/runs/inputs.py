@@ -10,6 +10,7 @@ from pathlib import Path
 import polars as pl
 
 from .. import pipeline, sources
+from ..config import Settings
 from ..errors import ConfigError, InputError
 from ..store import Store
 
@@ -53,11 +54,11 @@ class StoreReadings(pipeline.ReadingsSource):
             self.store = None
 
 
-def readings_in_chunks(store: Store, cfg: dict, db_path: str, n_buildings: int) -> bool:
+def readings_in_chunks(store: Store, cfg: Settings, db_path: str, n_buildings: int) -> bool:
     """Whether the screening pulls each chunk's readings from the store: chunks configured and more
     buildings than one chunk, one readings file, a database file (not ``:memory:``)."""
     return (
-        pipeline.chunk_size(cfg["run"]["chunk_buildings"], n_buildings) < n_buildings
+        pipeline.chunk_size(cfg.run.chunk_buildings, n_buildings) < n_buildings
         and str(db_path) != ":memory:"
         and int(store.rows("count_reading_files")[0][0]) <= 1
     )

@@ -16,7 +16,7 @@ from pathlib import Path
 
 import polars as pl
 
-from .. import cluster, config as cfgmod, interrupts, memory, outputs, pipeline, published
+from .. import cluster, config as cfgmod, interrupts, memory, outputs, published
 from ..errors import Interrupted, OutputError, ScreeningError
 from ..store import Store
 from ..window import quarter_label
@@ -65,27 +65,31 @@ def run(
     complete, so a failed run leaves earlier outputs untouched.
     """
     cfg = cfgmod.load(config_path, overrides)
-    a = cfg["analysis"]
-    as_of, window = cfgmod.run_window(cfg)  # ranges checked by cfgmod.load
-    label = quarter_label(window[1]) if not a["window_from"] else f"{window[0]}_{window[1]}"
-    files = {k: inputs.expand(cfg["inputs"][k], k) for k in pipeline.KINDS}
-    if cfg["inputs"]["events"]:  # optional (issue 17); read on every run, not stored
-        files["events"] = inputs.expand(cfg["inputs"]["events"], "events")
-    db_path = cfg["store"]["database"]
+    # the typed settings, built once from the checked dict: every stage below reads these; the dict itself
+    # only gives the settings' hash (the run key and the runs table)
+    s = cfgmod.settings(cfg)
+    config_hash = cfgmod.config_hash(cfg)
+    as_of, window = cfgmod.run_window(s)  # ranges checked by cfgmod.load
+    label = quarter_label(window[1]) if not s.analysis.window_from else f"{window[0]}_{window[1]}"
+    files = {k: inputs.expand(v, k) for k, v in s.inputs.by_kind().items()}
+    if s.inputs.events:  # optional (issue 17); read on every run, not stored
+        files["events"] = inputs.expand(s.inputs.events, "events")
+    db_path = s.store.database
     if out_dir is not None:
         target = Path(out_dir)
         root = None
     else:
-        root = Path(cfg["output"]["root"])
+        root = Path(s.output.root)
         target = root / label
     publish.check_output_folder(target, root, label, db_path, force=force)
 
     with interrupts.stop_on_signals(), Lock(str(db_path) + ".lock"):  # SIGINT/SIGTERM -> Interrupted
         bar = Progress(progress and not quiet)
-        ex = cluster.from_config(cfg, db_path)  # [run] cluster: tasks on Dask (None: this process)
+        ex = cluster.from_config(s, db_path)  # [run] cluster: tasks on Dask (None: this process)
         try:
             return _run_locked(
-                cfg,
+                s,
+                config_hash,
                 files,
                 db_path,
                 target,
@@ -105,7 +109,8 @@ def run(
 
 
 def _run_locked(
-    cfg,
+    cfg: cfgmod.Settings,
+    config_hash: str,
     files,
     db_path,
     target: Path,
@@ -130,13 +135,13 @@ def _run_locked(
        and the record in a state the next run settles (``published.settle_dead_runs``).
     """
     bar = bar or Progress(False)
-    need = memory.check(files, cfg["run"]["chunk_buildings"])  # stops here, nothing changed, if it cannot fit
+    need = memory.check(files, cfg.run.chunk_buildings)  # stops here, nothing changed, if it cannot fit
     t_start = time.perf_counter()
     # run_key is the one id a user sees (sheets, ranking.pdf, summary.json, stderr, status, history): the
     # same for a rerun of the same quarter, inputs and settings, so reruns stay byte-identical. run_id
     # names this execution in the database and the run log; lookups accept either (record.resolve_run).
     run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
-    run_key = record.run_key(label, cfg, files)  # the id users see
+    run_key = record.run_key(label, config_hash, files)  # the id users see
     store: Store | None  # None while the database is closed for readers (the screening phase)
     store = open_store(db_path)
     try:
@@ -156,7 +161,7 @@ def _run_locked(
         for n in notes:
             log.warning("%s", n)
         # phase 1: load
-        record.insert_run(store, run_id, run_key, label, as_of, window, target, cfg)
+        record.insert_run(store, run_id, run_key, label, as_of, window, target, config_hash)
         bar.stage("load inputs")
         ld = stages.load_inputs(store, files, cfg, db_path, run_id, window, force=force, timings=timings)
         store.close()  # phase 2: the database stays free for readers
@@ -209,7 +214,7 @@ def _run_locked(
         record.mark_ok(store, run_id)
         stage("after_record")
         if root is not None:
-            publish.tidy_root(root, store, cfg["output"]["keep"], target)
+            publish.tidy_root(root, store, cfg.output.keep, target)
         # the first visits of this quarter's audit plan, for the console
         top = (
             ranking.filter(pl.col("tier") == "Audit first")
@@ -222,7 +227,7 @@ def _run_locked(
                 "ratio",
                 "needs_review",
                 "expected_recoverable_cost",
-                pl.lit(cfg["prices"]["currency"]).alias("currency"),
+                pl.lit(cfg.prices.currency).alias("currency"),
             )
             .to_dicts()
         )

@@ -83,8 +83,10 @@ def diff_results(old: pl.DataFrame, new: pl.DataFrame) -> pl.DataFrame:
     ).sort("building_id")
 
 
-def insert_run(store: Store, run_id: str, run_key: str, label: str, as_of, window, target: Path, cfg: dict) -> None:
-    """The run's row, status ``running``, before anything is loaded."""
+def insert_run(
+    store: Store, run_id: str, run_key: str, label: str, as_of, window, target: Path, config_hash: str
+) -> None:
+    """The run's row, status ``running``, before anything is loaded (``config_hash``: ``config.config_hash``)."""
     store.execute(
         "insert_run",
         {
@@ -95,7 +97,7 @@ def insert_run(store: Store, run_id: str, run_key: str, label: str, as_of, windo
             "window_start": window[0],
             "window_end": window[1],
             "out_dir": published.folder_key(target, store),
-            "config_hash": cfgmod.config_hash(cfg),
+            "config_hash": config_hash,
         },
     )
 
@@ -207,12 +209,13 @@ def record_failure(
         store.close()
 
 
-def run_key(label: str, cfg: dict, files: dict[str, list[str]]) -> str:
-    """The run's identity: its quarter label and a hash of the input contents, settings and version."""
+def run_key(label: str, config_hash: str, files: dict[str, list[str]]) -> str:
+    """The run's identity: its quarter label and a hash of the input contents, settings
+    (``config_hash``: ``config.config_hash`` of the checked config) and version."""
     import hashlib
 
     h = hashlib.sha256()
-    h.update(cfgmod.config_hash(cfg).encode())
+    h.update(config_hash.encode())
     h.update(__version__.encode())
     for kind in pipeline.KINDS:
         for p in files.get(kind, []):
@@ -387,12 +390,12 @@ def _json_text(e: pl.Expr, dtype, pats: tuple[list[str], list[str]]) -> tuple[pl
     return None
 
 
-def run_summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id) -> dict:
+def run_summary(run_id, label, as_of, window, cfg: cfgmod.Settings, res, rejects, loads, prev_id) -> dict:
     r = res.results
     per_tier = {k: int(v) for k, v in r.group_by("tier").len().iter_rows()}
     flags = r.select(pl.col("flag_codes").explode().drop_nulls()).to_series().value_counts(sort=True)
     issues = res.issues.group_by("code").len()
-    disp = outputs.Display(cfg["analysis"]["units"])
+    disp = outputs.Display(cfg.analysis.units)
     ee = r["excess_energy_kbtu"].fill_null(0).sum()
     return {
         "run_id": run_id,
@@ -400,7 +403,7 @@ def run_summary(run_id, label, as_of, window, cfg, res, rejects, loads, prev_id)
         "as_of": str(as_of),
         "window": [str(window[0]), str(window[1])],
         "run_date": str(_dt.date.today()),
-        "units": cfg["analysis"]["units"],
+        "units": cfg.analysis.units,
         "previous_run": prev_id,
         "counts": {
             "buildings": r.height,

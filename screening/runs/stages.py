@@ -15,6 +15,7 @@ from typing import Any
 import polars as pl
 
 from .. import cluster, outputs, pipeline
+from ..config import Settings
 from ..errors import InputError
 from ..ingest import REJECT_SCHEMA
 from ..store import Store
@@ -41,7 +42,9 @@ class Loaded:
     plan_context: Any = None  # events.plan_context
 
 
-def load_inputs(store: Store, files: dict, cfg: dict, db_path, run_id: str, window, *, force, timings: dict) -> Loaded:
+def load_inputs(
+    store: Store, files: dict, cfg: Settings, db_path, run_id: str, window, *, force, timings: dict
+) -> Loaded:
     """Load the named files into the store (new or changed ones only) and read what the screening needs."""
     opts = pipeline.read_options(cfg)
     t = time.perf_counter()
@@ -73,17 +76,17 @@ def load_inputs(store: Store, files: dict, cfg: dict, db_path, run_id: str, wind
             ld.events,
             ld.then,
             window_end=window[1],
-            rest_quarters=cfg["plan"]["clean_audit_rest_quarters"],
-            regrow=cfg["plan"]["clean_audit_regrow"],
-            blackout_days=cfg["savings"]["blackout_days"],
+            rest_quarters=cfg.plan.clean_audit_rest_quarters,
+            regrow=cfg.plan.clean_audit_regrow,
+            blackout_days=cfg.savings.blackout_days,
             window_start=window[0],
-            judge_min_days=cfg["savings"]["post_measure_min_days"],
+            judge_min_days=cfg.savings.post_measure_min_days,
         )
     return ld
 
 
 def screen(
-    ld: Loaded, files: dict, cfg: dict, db_path, window, *, executor: cluster.DaskChunks | None = None
+    ld: Loaded, files: dict, cfg: Settings, db_path, window, *, executor: cluster.DaskChunks | None = None
 ) -> pipeline.Screened:
     """The whole computation on the loaded frames (``pipeline.screen_frames``), the database closed."""
     paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
@@ -101,7 +104,7 @@ def screen(
             previous=ld.previous,
             events=ld.events,
             plan_context=ld.plan_context,
-            chunk_buildings=cfg["run"]["chunk_buildings"],
+            chunk_buildings=cfg.run.chunk_buildings,
             executor=executor,
         )
     finally:
@@ -113,7 +116,7 @@ def write_outputs(
     tmp: Path,
     res: pipeline.Screened,
     ld: Loaded,
-    cfg: dict,
+    cfg: Settings,
     *,
     run_key: str,
     label: str,
@@ -135,7 +138,7 @@ def write_outputs(
             + ([ld.events_rejects.cast(REJECT_SCHEMA)] if ld.events_rejects is not None else [])
         )
     )
-    disp = outputs.Display(cfg["analysis"]["units"])
+    disp = outputs.Display(cfg.analysis.units)
     change = record.change_table(ld.prev_results, res.results)
     ranking = outputs.ranking_table(res.results, disp, change)
     t = time.perf_counter()
@@ -155,7 +158,7 @@ def write_outputs(
         rejects=rejects,
         assumptions=assumptions,
         disp=disp,
-        currency=cfg["prices"]["currency"],
+        currency=cfg.prices.currency,
         plan=plan,
     )
     prev = ld.prev
@@ -165,13 +168,13 @@ def write_outputs(
     if res.learning is not None:  # learning from audits (issue 17): the defaults' bias per era x use type
         from .. import learning
 
-        summary["audit_bias"] = learning.bias_summary(res.learning, cfg["learning"]["min_audits"])
+        summary["audit_bias"] = learning.bias_summary(res.learning, cfg.learning.min_audits)
     savings_csv = None
     if res.savings is not None:  # savings after a measure (issue 17)
         from .. import events as evmod
 
         savings_csv = evmod.savings_table(
-            res.savings, si=disp.si, currency=cfg["prices"]["currency"], kbtu_to_kwh=outputs.KBTU_TO_KWH
+            res.savings, si=disp.si, currency=cfg.prices.currency, kbtu_to_kwh=outputs.KBTU_TO_KWH
         )
         outputs.write_csv(savings_csv, tmp / "savings.csv")
         summary["savings"] = evmod.savings_totals(res.savings, si=disp.si, kbtu_to_kwh=outputs.KBTU_TO_KWH)
@@ -187,12 +190,12 @@ def write_outputs(
             for r in notes_df.sort("rank").iter_rows(named=True)
         ]
     timings["csv"] = round(time.perf_counter() - t, 4)
-    paper = cfg["output"]["paper"]
+    paper = cfg.output.paper
     paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
     from ..render import filenames, pdf
 
     sheet_files: dict[str, str] | None = None  # building_id -> its sheet, relative to the folder
-    if cfg["output"]["sheets"]:
+    if cfg.output.sheets:
         bar.stage("render sheets")
         t = time.perf_counter()
         since = None
@@ -204,7 +207,7 @@ def write_outputs(
                 res.savings_periods,
                 events,
                 si=disp.si,
-                currency=cfg["prices"]["currency"],
+                currency=cfg.prices.currency,
                 kbtu_to_kwh=outputs.KBTU_TO_KWH,
             )
         sheets = outputs.sheet_records(
@@ -214,7 +217,7 @@ def write_outputs(
             disp,
             run_id=run_key,
             run_date=str(_dt.date.today()),
-            currency=cfg["prices"]["currency"],
+            currency=cfg.prices.currency,
             since_measure=since,
         )
         (tmp / "sheets").mkdir()
@@ -223,7 +226,7 @@ def write_outputs(
             sheets,
             tmp / "sheets",
             paper=paper,
-            workers=workers(cfg["output"]["workers"]),
+            workers=workers(cfg.output.workers),
             chunk_runner=executor.render_chunks if executor is not None else None,
         )
         timings["sheets"] = round(time.perf_counter() - t, 4)
@@ -241,8 +244,8 @@ def write_outputs(
             res.results,
             summary,
             disp,
-            currency=cfg["prices"]["currency"],
-            max_rows=cfg["output"]["ranking_pdf_rows"],
+            currency=cfg.prices.currency,
+            max_rows=cfg.output.ranking_pdf_rows,
             savings=savings_csv,
         ),
         tmp / "ranking.pdf",
@@ -258,7 +261,7 @@ def write_outputs(
         plan=plan,
         summary=summary,
         disp=disp,
-        currency=cfg["prices"]["currency"],
+        currency=cfg.prices.currency,
         sheet_files=sheet_files,
     )
     return ranking, rejects, summary

@@ -40,10 +40,11 @@ def validate(
     when each kind is one file, and ``run`` makes them in any case). The events file, too, is the
     config's when not given.
     """
-    cfg = cfgmod.load(config_path, overrides)
+    cfg = cfgmod.settings(cfgmod.load(config_path, overrides))
     opts = pipeline.read_options(cfg)
     given = {"buildings": buildings, "readings": readings, "weather": weather}
-    paths = {k: ([v] if v else expand(cfg["inputs"][k], k)) for k, v in given.items()}
+    configured = cfg.inputs.by_kind()
+    paths = {k: ([v] if v else expand(configured[k], k)) for k, v in given.items()}
     problems: list[str] = []
     notices: list[str] = []
     rows: dict[str, int] = {}
@@ -81,15 +82,15 @@ def validate(
         _, conv_rej = units.convert_to_kbtu(
             r,
             b,
-            gas_btu_per_ft3=cfg["analysis"]["gas_btu_per_ft3"],
-            steam_btu_per_lb=cfg["analysis"]["steam_btu_per_lb"],
+            gas_btu_per_ft3=cfg.analysis.gas_btu_per_ft3,
+            steam_btu_per_lb=cfg.analysis.steam_btu_per_lb,
         )
         rejects.append(
             conv_rej.select(
                 pl.lit(readings).alias("file"), "line", "column", pl.col("value").cast(pl.String), "reason"
             ).cast(REJECT_SCHEMA)
         )
-    events = events or cfg["inputs"]["events"] or None
+    events = events or cfg.inputs.events or None
     ev_paths = expand(events, "events") if events else []
     for path in ev_paths:  # issue 16/17: the events file, against the accepted buildings when they were read
         from .. import events as evmod
