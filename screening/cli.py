@@ -23,7 +23,7 @@ from typing import Annotated, Optional
 
 import typer
 
-from . import __version__, interrupts
+from . import __version__, choices, interrupts
 from .errors import EXIT_BAD_INPUT, EXIT_RUN_FAILED, Interrupted, ScreeningError
 
 app = typer.Typer(
@@ -127,45 +127,32 @@ class OutputFormat(str, Enum):
     table = "table"
 
 
-class DegreeDayKind(str, Enum):
-    """``degree-days --kind``: :data:`screening.ddtool.KIND_CHOICES` (tests/test_cli.py compares them)."""
-
-    hdd = "hdd"
-    cdd = "cdd"
-    both = "both"
+def _either(values: tuple[str, ...]) -> str:
+    """An option's choices for its help text: "a, b or c"."""
+    return ", ".join(values[:-1]) + " or " + values[-1] if len(values) > 1 else "".join(values)
 
 
-class Units(str, Enum):
-    """``--units``: :data:`screening.schema.UNIT_SYSTEMS` (tests/test_cli.py compares them); any case."""
-
-    IP = "IP"
-    SI = "SI"
+def _members(values: tuple[str, ...]) -> dict[str, str]:
+    """An option's choices as enum members: the name is the value with ``-`` as ``_``."""
+    return {v.replace("-", "_"): v for v in values}
 
 
-class DateOrder(str, Enum):
-    """``--date-order``: the ``[reading] date_order`` choices but "" (detect), which is the option left out."""
-
-    dmy = "dmy"
-    mdy = "mdy"
-    ymd = "ymd"
-
-
-class DegreeDayMethod(str, Enum):
-    """``degree-days --method``: :data:`screening.degree_days.METHODS` (tests/test_cli.py compares them)."""
-
-    mean = "mean"
-    maxmin = "maxmin"
-    hourly = "hourly"
-    monthly_estimate = "monthly-estimate"
-
-
-class PeriodBy(str, Enum):
-    """``degree-days --by``: :data:`screening.ddtool.BY_CHOICES` (tests/test_cli.py compares them)."""
-
-    day = "day"
-    month = "month"
-    year = "year"
-    period = "period"
+# The fixed choices of the options, each declared once in screening/choices.py (no imports: the CLI starts
+# without polars); tests/test_cli.py compares each enum with the library's tuple. mypy cannot list the
+# members of an enum built from a tuple (hence the ignores), so a default is a member taken by value.
+#: ``degree-days --kind``
+DegreeDayKind = Enum("DegreeDayKind", _members(choices.DEGREE_DAY_KINDS), type=str, module=__name__)  # type: ignore[misc]
+#: ``--units`` (any case)
+Units = Enum("Units", _members(choices.UNIT_SYSTEMS), type=str, module=__name__)  # type: ignore[misc]
+#: ``--date-order``: ``[reading] date_order`` but "" (detect), which is the option left out
+DateOrder = Enum("DateOrder", _members(choices.DATE_ORDERS), type=str, module=__name__)  # type: ignore[misc]
+#: ``degree-days --method``
+DegreeDayMethod = Enum("DegreeDayMethod", _members(choices.DEGREE_DAY_METHODS), type=str, module=__name__)  # type: ignore[misc]
+#: ``degree-days --by``
+PeriodBy = Enum("PeriodBy", _members(choices.PERIODS_BY), type=str, module=__name__)  # type: ignore[misc]
+#: the degree-days command's defaults (members by value: a value not in the library's tuple fails at import)
+DEFAULT_KIND, DEFAULT_METHOD, DEFAULT_BY = DegreeDayKind("both"), DegreeDayMethod("mean"), PeriodBy("month")
+DEFAULT_UNITS = Units("IP")
 
 
 def _print_summary(res) -> None:
@@ -193,9 +180,9 @@ def _print_summary(res) -> None:
 
 COLUMNS_HELP = (
     "your column names for ours: KIND:Their name=our_name,… (KIND buildings, readings, weather or events; "
-    "repeat for each kind); adds to [inputs.columns] of the config"
+    "repeat for each kind); adds to \\[inputs.columns] of the config"
 )
-DATE_ORDER_HELP = "order of slash dates like 03/04/2025: dmy, mdy or ymd ([reading] date_order)"
+DATE_ORDER_HELP = f"order of slash dates like 03/04/2025: {_either(choices.DATE_ORDERS)} (\\[reading] date_order)"
 
 
 def _reading_overrides(overrides: dict, columns: list[str] | None, date_order: DateOrder | None) -> None:
@@ -216,13 +203,14 @@ def run(
     events: Annotated[
         Optional[str], typer.Option(help="optional events CSV (or glob): audits, findings, measures")
     ] = None,
-    out: Annotated[Optional[str], typer.Option(help="output folder (default: [output] root/<quarter>)")] = None,
+    out: Annotated[Optional[str], typer.Option(help="output folder (default: \\[output] root/<quarter>)")] = None,
     db: Annotated[Optional[str], typer.Option(help="DuckDB file (default screening.duckdb)")] = None,
     as_of: Annotated[Optional[str], typer.Option("--as-of", help="YYYY-MM-DD; default today")] = None,
     date_from: Annotated[Optional[str], typer.Option("--from", help="window start YYYY-MM-DD")] = None,
     date_to: Annotated[Optional[str], typer.Option("--to", help="window end YYYY-MM-DD (inclusive)")] = None,
     units: Annotated[
-        Optional[Units], typer.Option(case_sensitive=False, help="IP or SI (units of inputs and outputs)")
+        Optional[Units],
+        typer.Option(case_sensitive=False, help=f"{_either(choices.UNIT_SYSTEMS)} (units of inputs and outputs)"),
     ] = None,
     config: Annotated[Optional[str], typer.Option(help="TOML config file")] = None,
     force: Annotated[bool, typer.Option(help="reload every input and replace an existing quarter")] = False,
@@ -278,10 +266,10 @@ def demo(
 
 @app.command()
 def validate(
-    buildings: Annotated[Optional[str], typer.Option(help="buildings file (default: [inputs] of --config)")] = None,
-    readings: Annotated[Optional[str], typer.Option(help="readings file (default: [inputs] of --config)")] = None,
-    weather: Annotated[Optional[str], typer.Option(help="daily weather file (default: [inputs] of --config)")] = None,
-    units: Annotated[Optional[Units], typer.Option(case_sensitive=False, help="IP or SI")] = None,
+    buildings: Annotated[Optional[str], typer.Option(help="buildings file (default: \\[inputs] of --config)")] = None,
+    readings: Annotated[Optional[str], typer.Option(help="readings file (default: \\[inputs] of --config)")] = None,
+    weather: Annotated[Optional[str], typer.Option(help="daily weather file (default: \\[inputs] of --config)")] = None,
+    units: Annotated[Optional[Units], typer.Option(case_sensitive=False, help=_either(choices.UNIT_SYSTEMS))] = None,
     config: Annotated[Optional[str], typer.Option(help="TOML config file")] = None,
     columns: Annotated[Optional[list[str]], typer.Option("--columns", help=COLUMNS_HELP)] = None,
     date_order: Annotated[
@@ -292,7 +280,7 @@ def validate(
     """Check the three files (and an events file) and print every problem; load nothing. Exit 0 when clean,
     2 otherwise.
 
-    A file not given as an option is taken from the config's [inputs] (a glob: every file it matches).
+    A file not given as an option is taken from the config's \\[inputs] (a glob: every file it matches).
     When a file lacks required columns, prints a column mapping to check and paste into the config.
     """
     from . import runner
@@ -322,11 +310,9 @@ def degree_days(
     weather: Annotated[str, typer.Option(help="daily weather CSV (station_id, date, t_min/t_max or t_mean)")],
     station: Annotated[str, typer.Option(help="station id")],
     base: Annotated[float, typer.Option(help="base temperature (°F for IP, °C for SI)")] = 65.0,
-    kind: Annotated[DegreeDayKind, typer.Option(help="hdd, cdd or both")] = DegreeDayKind.both,
-    method: Annotated[
-        DegreeDayMethod, typer.Option(help="mean, maxmin, hourly or monthly-estimate")
-    ] = DegreeDayMethod.mean,
-    by: Annotated[PeriodBy, typer.Option(help="day, month, year or period")] = PeriodBy.month,
+    kind: Annotated[DegreeDayKind, typer.Option(help=_either(choices.DEGREE_DAY_KINDS))] = DEFAULT_KIND,
+    method: Annotated[DegreeDayMethod, typer.Option(help=_either(choices.DEGREE_DAY_METHODS))] = DEFAULT_METHOD,
+    by: Annotated[PeriodBy, typer.Option(help=_either(choices.PERIODS_BY))] = DEFAULT_BY,
     periods: Annotated[Optional[str], typer.Option(help="CSV of periods (start, end) for --by period")] = None,
     hourly: Annotated[
         Optional[str], typer.Option(help="hourly CSV (station_id, timestamp, temperature) for --method hourly")
@@ -334,7 +320,7 @@ def degree_days(
     date_from: Annotated[Optional[str], typer.Option("--from", help="first day YYYY-MM-DD")] = None,
     date_to: Annotated[Optional[str], typer.Option("--to", help="last day YYYY-MM-DD (inclusive)")] = None,
     normal: Annotated[bool, typer.Option(help="normal-year values from the complete years")] = False,
-    units: Annotated[Units, typer.Option(case_sensitive=False, help="IP or SI")] = Units.IP,
+    units: Annotated[Units, typer.Option(case_sensitive=False, help=_either(choices.UNIT_SYSTEMS))] = DEFAULT_UNITS,
     fmt: Annotated[OutputFormat, typer.Option("--format", help="csv or table")] = OutputFormat.csv,
     rounding: Annotated[
         bool, typer.Option(help="round each daily mean half up first, as weather services publish")

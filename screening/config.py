@@ -21,6 +21,7 @@ from dataclasses import Field, asdict, dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
+from .choices import DATE_ORDERS
 from .errors import ConfigError
 from .schema import UNIT_SYSTEMS
 
@@ -164,7 +165,7 @@ class Reading:
     date_order: str = setting(
         "",
         '"", "dmy" or "mdy" for slash dates like 03/04/2025',
-        choices=("", "dmy", "mdy", "ymd"),
+        choices=("", *DATE_ORDERS),
         expected="dmy, mdy or ymd",
     )
     delimiter: str = setting("", '"" = detect; "," ";" or "\\t"', choices=("", ",", ";", "\t"), expected=", ; or a tab")

@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 import polars as pl
 
+from .choices import DEGREE_DAY_KINDS, PERIODS_BY
 from .csvread import LINE_COL, read_table
 from .degree_days import METHODS, DegreeDayCube, c_to_f, degree_day_table, f_to_c, fill_short_gaps, normal_year
 from .errors import InputError
@@ -24,8 +25,9 @@ from .weather import read_daily_weather, read_hourly_weather
 
 __all__ = ["degree_days_report", "KIND_CHOICES", "BY_CHOICES"]
 
-KIND_CHOICES = ("hdd", "cdd", "both")
-BY_CHOICES = ("day", "month", "year", "period")
+#: ``kind`` and ``by`` (declared in ``choices.py``, shared with ``--kind`` and ``--by``)
+KIND_CHOICES = DEGREE_DAY_KINDS
+BY_CHOICES = PERIODS_BY
 COLUMNS = ["station_id", "period_start", "period_end", "days", "days_missing", "hdd", "cdd", "method", "base", "unit"]
 
 

@@ -56,6 +56,8 @@ from typing import cast
 import numpy as np
 import polars as pl
 
+from .choices import DEGREE_DAY_METHODS
+
 __all__ = [
     "METHODS",
     "KINDS",
@@ -78,7 +80,8 @@ __all__ = [
     "WEATHER_COLUMNS",
 ]
 
-METHODS = ("mean", "maxmin", "hourly", "monthly-estimate")
+#: the methods' names, declared in ``choices.py`` (shared with ``ddscreen degree-days --method``)
+METHODS = DEGREE_DAY_METHODS
 KINDS = ("hdd", "cdd")
 #: °F·day per °C·day (= K·day); definition of the Fahrenheit scale, NIST SP 811.
 F_PER_C = 1.8

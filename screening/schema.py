@@ -20,8 +20,11 @@ from dataclasses import dataclass
 
 import polars as pl
 
-#: Unit systems of the input files and the outputs (``[analysis] units``, ``--units``).
-UNIT_SYSTEMS = ("IP", "SI")
+from . import choices
+
+#: Unit systems of the input files and the outputs (``[analysis] units``, ``--units``): declared in
+#: ``choices.py`` (no imports), which the command line reads at start-up.
+UNIT_SYSTEMS = choices.UNIT_SYSTEMS
 
 #: Use types (buildings ``use_type``), with what each covers.
 USE_TYPES: dict[str, str] = {

@@ -393,6 +393,28 @@ def test_cli_choices_are_the_library_ones():
     for opt in ("--kind", "--by", "--format", "--method", "--units", "--date-order"):
         res = cli(["degree-days", "--weather", "w.csv", "--station", "S", opt, "weekly"])
         assert res.exit_code == 2 and opt in res.stderr and "Traceback" not in res.stdout + res.stderr
+    # --help lists every value of each choice (a wide terminal: one line per option)
+    from typer.testing import CliRunner
+
+    res = CliRunner().invoke(climod.app, ["degree-days", "--help"], env={"COLUMNS": "200"})
+    for values in (ddtool.KIND_CHOICES, ddtool.BY_CHOICES, degree_days.METHODS, date_orders[1:]):
+        assert "<" + "|".join(values) + ">" in res.stdout
+    assert "<ip|si>" in res.stdout
+
+
+def test_help_shows_the_config_sections():
+    # the config's [section] names in a help text are printed, not read as markup (issue 19)
+    from typer.testing import CliRunner
+
+    from screening import cli as climod
+
+    def help_of(command: str) -> str:
+        return CliRunner().invoke(climod.app, [command, "--help"], env={"COLUMNS": "200"}).stdout
+
+    assert "(default: [inputs] of --config)" in help_of("validate")
+    run_help = help_of("run")
+    assert "[output] root/<quarter>" in run_help and "[inputs.columns]" in run_help
+    assert "([reading]" in run_help
 
 
 def test_settings_are_declared_once():
