@@ -481,3 +481,32 @@ def test_thresholds_are_one_frozen_typed_value():
     with pytest.raises(dataclasses.FrozenInstanceError):
         thr.r2_min = 0.5  # type: ignore[misc]
     assert dataclasses.asdict(thr) == cfg["thresholds"]
+
+
+def test_the_orchestration_reads_the_typed_settings():
+    # issue 19: the run builds config.Settings once; screen_frames takes it or a config dict (converted once,
+    # by config.settings) with the same results; the orchestration never looks a setting up by key
+    import dataclasses
+    import re
+    from pathlib import Path
+
+    cfg = cfgmod.load(None, {"analysis": {"lookback_months": 36}, "plan": {"audits_per_quarter": 1}})
+    s = cfgmod.settings(cfg)
+    assert cfgmod.settings(s) is s and s.analysis.lookback_months == 36 and s.plan.audits_per_quarter == 1
+    assert dataclasses.asdict(s) == cfg and cfgmod.config_hash(dataclasses.asdict(s)) == cfgmod.config_hash(cfg)
+    start = dt.date(2025, 1, 1)
+    w = _weather(lambda i: 35.0 + 20.0 * np.sin(i / 58.0), dt.date(2023, 1, 1), 365 * 3 + 2)
+    b = _buildings([_building(), _building(building_id="T2", name="Test Two")])
+    r = pl.concat(
+        [
+            _monthly_readings(w, start, 12, UA, 1.0),
+            _monthly_readings(w, start, 12, 2 * UA, 1.0).with_columns(pl.lit("T2").alias("building_id")),
+        ]
+    )
+    window = (start, dt.date(2025, 12, 31))
+    by_dict = screen_frames(b, r, w, cfg, window=window).results
+    by_settings = screen_frames(b, r, w, s, window=window).results
+    assert by_dict.equals(by_settings) and by_settings["in_plan"].sum() <= 1
+    root = Path(__file__).parents[1] / "screening"
+    for f in [root / "pipeline.py", root / "cluster.py", *sorted((root / "runs").glob("*.py"))]:
+        assert not re.search(r"\bcfg(\[|\.get\()", f.read_text(encoding="utf-8")), f
