@@ -141,15 +141,15 @@ def _members(values: tuple[str, ...]) -> dict[str, str]:
 # without polars); tests/test_cli.py compares each enum with the library's tuple. mypy cannot list the
 # members of an enum built from a tuple (hence the ignores), so a default is a member taken by value.
 #: ``degree-days --kind``
-DegreeDayKind = Enum("DegreeDayKind", _members(choices.DEGREE_DAY_KINDS), type=str, module=__name__)  # type: ignore[misc]
+DegreeDayKind = Enum("DegreeDayKind", _members(choices.DEGREE_DAY_KINDS), type=str)  # type: ignore[misc]
 #: ``--units`` (any case)
-Units = Enum("Units", _members(choices.UNIT_SYSTEMS), type=str, module=__name__)  # type: ignore[misc]
+Units = Enum("Units", _members(choices.UNIT_SYSTEMS), type=str)  # type: ignore[misc]
 #: ``--date-order``: ``[reading] date_order`` but "" (detect), which is the option left out
-DateOrder = Enum("DateOrder", _members(choices.DATE_ORDERS), type=str, module=__name__)  # type: ignore[misc]
+DateOrder = Enum("DateOrder", _members(choices.DATE_ORDERS), type=str)  # type: ignore[misc]
 #: ``degree-days --method``
-DegreeDayMethod = Enum("DegreeDayMethod", _members(choices.DEGREE_DAY_METHODS), type=str, module=__name__)  # type: ignore[misc]
+DegreeDayMethod = Enum("DegreeDayMethod", _members(choices.DEGREE_DAY_METHODS), type=str)  # type: ignore[misc]
 #: ``degree-days --by``
-PeriodBy = Enum("PeriodBy", _members(choices.PERIODS_BY), type=str, module=__name__)  # type: ignore[misc]
+PeriodBy = Enum("PeriodBy", _members(choices.PERIODS_BY), type=str)  # type: ignore[misc]
 #: the degree-days command's defaults (members by value: a value not in the library's tuple fails at import)
 DEFAULT_KIND, DEFAULT_METHOD, DEFAULT_BY = DegreeDayKind("both"), DegreeDayMethod("mean"), PeriodBy("month")
 DEFAULT_UNITS = Units("IP")
