@@ -93,6 +93,17 @@ class Output:
         "rows of the ranked table in ranking.pdf (0 = all; ranking.csv has all)",
         range=(0, 10000000, "a whole number"),
     )
+    page_rows: int = setting(
+        20000,
+        "rows of the buildings table in index.html, first in audit order (0 = all; ranking.csv has all)",
+        range=(0, 100_000_000, "a whole number"),
+    )
+    workbook_max_buildings: int = setting(
+        5000,
+        "ranking.xlsx is written for portfolios of at most this many buildings (0 = never); "
+        "the CSV files always hold every table",
+        range=(0, 100_000_000, "a whole number of buildings"),
+    )
 
 
 @dataclass

@@ -216,10 +216,17 @@ def render_index(
     disp: Display,
     currency: str,
     sheet_files: dict[str, str] | None,
+    max_rows: int = 0,
+    workbook: bool = True,
 ) -> str:
-    """The page's HTML text (see the module docstring)."""
+    """The page's HTML text (see the module docstring). ``max_rows`` > 0 keeps the buildings table to
+    the first rows in rank order (the page says so; ranking.csv has all); ``workbook`` False leaves
+    ranking.xlsx out of the links (it was not written)."""
     tdir = templates_dir()
     ratios = [x for x in results["ratio"].to_list() if _num(x) is not None]
+    total = ranking.height
+    if 0 < max_rows < total:
+        ranking = ranking.head(max_rows)
     return (
         _env()
         .get_template("index.html.j2")
@@ -229,7 +236,11 @@ def render_index(
             chart=Markup(charts.ratio_histogram(ratios)),
             css=Markup((tdir / "index.css").read_text(encoding="utf-8")),
             script=Markup((tdir / "index.js").read_text(encoding="utf-8")),
-            outputs=OTHER_OUTPUTS,
+            outputs=[(f, text) for f, text in OTHER_OUTPUTS if workbook or f != "ranking.xlsx"],
+            workbook=workbook,
+            rows_left_out=ranking.height < total,
+            rows_shown=fmt_num(ranking.height),
+            rows_total=fmt_num(total),
             sheets=sheet_files is not None,
             caution=STANDARD_CAUTION,
         )

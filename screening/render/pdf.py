@@ -28,6 +28,7 @@ import logging
 import math
 import mimetypes
 import multiprocessing
+import os
 import time
 from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor
@@ -397,6 +398,51 @@ def _worker_init() -> None:
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _state()
     gc.freeze()  # the modules and renderer state live as long as the worker: keep them out of collections
+
+
+class Background:
+    """One rendering call on a child process while the caller goes on (ranking.pdf beside the other
+    outputs, issue 20): forked from the sheets' fork server, so it starts warm, and it dies with
+    this process (:func:`_worker_init`). :meth:`result` waits in short steps (signals reach the main
+    thread) and hands back the call's value or raises its exception; :meth:`cancel` stops the child
+    mid-call. On a one-core machine nothing is started and :meth:`result` makes the call here.
+    """
+
+    def __init__(self, fn: Callable[..., Any], *args: Any, **kwargs: Any) -> None:
+        self._call = (fn, args, kwargs)
+        self._pool: ProcessPoolExecutor | None = None
+        self._future: Any = None
+        if (os.cpu_count() or 1) < 2:
+            return
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["screening.lifeline", "screening.render.pdf", "weasyprint", "pydyf"])
+        with _main_not_reimported():  # the child starts in submit
+            self._pool = ProcessPoolExecutor(max_workers=1, mp_context=ctx, initializer=_worker_init)
+            self._future = self._pool.submit(fn, *args, **kwargs)
+
+    def result(self) -> Any:
+        if self._pool is None:
+            fn, args, kwargs = self._call
+            return fn(*args, **kwargs)
+        from concurrent.futures import wait
+
+        try:
+            while not wait([self._future], timeout=_WAIT_S).done:
+                pass
+            return self._future.result()
+        except BaseException:
+            self.cancel()
+            raise
+        finally:
+            if self._pool is not None:
+                self._pool.shutdown(wait=True)
+                self._pool = None
+
+    def cancel(self) -> None:
+        """Stop the child now (the run failed or was told to stop); nothing is waited for but its end."""
+        if self._pool is not None:
+            _stop_workers(self._pool)
+            self._pool = None
 
 
 # --------------------------------------------------------------------------------------

@@ -19,8 +19,12 @@ from . import inputs, lock
 
 
 def versions() -> dict:
+    """The versions of the tool and of the libraries its results depend on (summary.json). WeasyPrint's
+    comes from its installed metadata: importing it only for this took 0.7 s of a run that renders no
+    PDF in this process (ranking.pdf renders on a child process)."""
+    from importlib.metadata import version
+
     import numpy
-    import weasyprint
 
     return {
         "ddscreen": __version__,
@@ -28,7 +32,7 @@ def versions() -> dict:
         "polars": pl.__version__,
         "duckdb": duckdb.__version__,
         "numpy": numpy.__version__,
-        "weasyprint": weasyprint.__version__,
+        "weasyprint": version("weasyprint"),
     }
 
 

@@ -149,18 +149,6 @@ def write_outputs(
     outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
     assumptions = outputs.assumptions_table(res.envelope, disp)
     outputs.write_csv(assumptions, tmp / "assumptions.csv")
-    from ..xlsxout import write_ranking_xlsx
-
-    write_ranking_xlsx(
-        tmp / "ranking.xlsx",
-        ranking=ranking,
-        issues=res.issues.sort("building_id", "code"),
-        rejects=rejects,
-        assumptions=assumptions,
-        disp=disp,
-        currency=cfg.prices.currency,
-        plan=plan,
-    )
     prev = ld.prev
     summary = record.run_summary(
         run_key, label, as_of, window, cfg, res, rejects, ld.loads, prev[0][1] if prev else None
@@ -189,56 +177,21 @@ def write_outputs(
             {"building_id": r["building_id"], "rank": r["rank"], "tier": r["tier"], "note": r["plan_note"]}
             for r in notes_df.sort("rank").iter_rows(named=True)
         ]
+    book_max = cfg.output.workbook_max_buildings
+    with_book = 0 < ranking.height <= book_max
+    if not with_book:
+        why = workbook_left_out(ranking.height, book_max)
+        summary["files_left_out"] = {"ranking.xlsx": why}
+        log.warning("ranking.xlsx not written: %s", why)
     timings["csv"] = round(time.perf_counter() - t, 4)
     paper = cfg.output.paper
     paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
-    from ..render import filenames, pdf
+    from ..render import pdf
 
-    sheet_files: dict[str, str] | None = None  # building_id -> its sheet, relative to the folder
-    if cfg.output.sheets:
-        bar.stage("render sheets")
-        t = time.perf_counter()
-        since = None
-        if res.savings is not None and res.savings_periods is not None and events is not None:
-            from .. import events as evmod
-
-            since = evmod.since_measure(
-                res.savings,
-                res.savings_periods,
-                events,
-                si=disp.si,
-                currency=cfg.prices.currency,
-                kbtu_to_kwh=outputs.KBTU_TO_KWH,
-            )
-        sheets = outputs.sheet_records(
-            res.results,
-            res.envelope,
-            res.periods,
-            disp,
-            run_id=run_key,
-            run_date=str(_dt.date.today()),
-            currency=cfg.prices.currency,
-            since_measure=since,
-        )
-        (tmp / "sheets").mkdir()
-        names = filenames.assign_filenames([s.building_id for s in sheets])
-        pdf.render_sheets(
-            sheets,
-            tmp / "sheets",
-            paper=paper,
-            workers=workers(cfg.output.workers),
-            chunk_runner=executor.render_chunks if executor is not None else None,
-        )
-        timings["sheets"] = round(time.perf_counter() - t, 4)
-        sheet_files = {b: f"sheets/{v}.pdf" for b, v in names.items()}
-        outputs.write_csv(
-            pl.DataFrame({"building_id": list(sheet_files), "file": list(sheet_files.values())}),
-            tmp / "sheets_index.csv",
-        )
-    stage("after_sheets")
-    bar.stage("render ranking")
-    t = time.perf_counter()
-    pdf.render_ranking(
+    # ranking.pdf renders on a child process while this one writes the workbook, the sheets and the page
+    t_ranking = time.perf_counter()
+    ranking_pdf = pdf.Background(
+        pdf.render_ranking,
         outputs.ranking_report(
             ranking,
             res.results,
@@ -251,20 +204,110 @@ def write_outputs(
         tmp / "ranking.pdf",
         paper=paper,
     )
-    timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
-    from ..webpage import write_index
+    try:
+        if with_book:
+            from ..xlsxout import write_ranking_xlsx
 
-    write_index(
-        tmp / "index.html",
-        ranking=ranking,
-        results=res.results,
-        plan=plan,
-        summary=summary,
-        disp=disp,
-        currency=cfg.prices.currency,
-        sheet_files=sheet_files,
-    )
+            t = time.perf_counter()
+            write_ranking_xlsx(
+                tmp / "ranking.xlsx",
+                ranking=ranking,
+                issues=res.issues.sort("building_id", "code"),
+                rejects=rejects,
+                assumptions=assumptions,
+                disp=disp,
+                currency=cfg.prices.currency,
+                plan=plan,
+            )
+            timings["xlsx"] = round(time.perf_counter() - t, 4)
+        sheet_files = _sheets(tmp, res, ld, cfg, disp, run_key, paper, timings, bar, executor)
+        stage("after_sheets")
+        from ..webpage import write_index
+
+        t = time.perf_counter()
+        write_index(
+            tmp / "index.html",
+            ranking=ranking,
+            results=res.results,
+            plan=plan,
+            summary=summary,
+            disp=disp,
+            currency=cfg.prices.currency,
+            sheet_files=sheet_files,
+            max_rows=cfg.output.page_rows,
+            workbook=with_book,
+        )
+        timings["index"] = round(time.perf_counter() - t, 4)
+        bar.stage("render ranking")
+        t = time.perf_counter()
+        ranking_pdf.result()
+    except BaseException:
+        ranking_pdf.cancel()
+        raise
+    # [s] what ranking.pdf added after everything else (it started t_ranking_s earlier, overlapping)
+    timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
+    timings["ranking_pdf_started_s"] = round(time.perf_counter() - t_ranking, 4)
     return ranking, rejects, summary
+
+
+def workbook_left_out(buildings: int, limit: int) -> str:
+    """Why ranking.xlsx was not written (run.log and summary.json ``files_left_out``)."""
+    if limit == 0:
+        return "[output] workbook_max_buildings = 0; the CSV files hold every table"
+    return (
+        f"{buildings:,} buildings is more than [output] workbook_max_buildings = {limit:,} "
+        "(a workbook this large is slow to write and to open); the CSV files hold every table"
+    )
+
+
+def _sheets(tmp, res, ld, cfg: Settings, disp, run_key, paper, timings, bar, executor) -> dict[str, str] | None:
+    """One PDF sheet per building into ``tmp/sheets`` and sheets_index.csv, when ``[output] sheets``;
+    returns building_id -> its sheet relative to the folder, or None."""
+    from ..render import filenames, pdf
+
+    if not cfg.output.sheets:
+        return None
+    events = ld.events
+    bar.stage("render sheets")
+    t = time.perf_counter()
+    since = None
+    if res.savings is not None and res.savings_periods is not None and events is not None:
+        from .. import events as evmod
+
+        since = evmod.since_measure(
+            res.savings,
+            res.savings_periods,
+            events,
+            si=disp.si,
+            currency=cfg.prices.currency,
+            kbtu_to_kwh=outputs.KBTU_TO_KWH,
+        )
+    sheets = outputs.sheet_records(
+        res.results,
+        res.envelope,
+        res.periods,
+        disp,
+        run_id=run_key,
+        run_date=str(_dt.date.today()),
+        currency=cfg.prices.currency,
+        since_measure=since,
+    )
+    (tmp / "sheets").mkdir()
+    names = filenames.assign_filenames([s.building_id for s in sheets])
+    pdf.render_sheets(
+        sheets,
+        tmp / "sheets",
+        paper=paper,
+        workers=workers(cfg.output.workers),
+        chunk_runner=executor.render_chunks if executor is not None else None,
+    )
+    timings["sheets"] = round(time.perf_counter() - t, 4)
+    sheet_files = {b: f"sheets/{v}.pdf" for b, v in names.items()}
+    outputs.write_csv(
+        pl.DataFrame({"building_id": list(sheet_files), "file": list(sheet_files.values())}),
+        tmp / "sheets_index.csv",
+    )
+    return sheet_files
 
 
 def workers(wanted: int) -> int:
