@@ -117,9 +117,7 @@ def column_widths(df: pl.DataFrame) -> dict[str, int]:
             n = col.cast(pl.String).str.len_chars()
         exprs.append(n.max().fill_null(0).alias(c))
     longest = df.select(exprs).row(0)
-    return {
-        c: (min(max(int(m or 0), len(c) + 2), MAX_CHARS)) * CHAR_PX + PAD_PX for c, m in zip(df.columns, longest)
-    }
+    return {c: (min(max(int(m or 0), len(c) + 2), MAX_CHARS)) * CHAR_PX + PAD_PX for c, m in zip(df.columns, longest)}
 
 
 def write_ranking_xlsx(
