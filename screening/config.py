@@ -120,6 +120,12 @@ class Run:
         "MB of a buildings or readings CSV read, checked and stored at a time (0 = each file whole)",
         range=(0, 1_000_000, "a whole number of MB"),
     )
+    store_memory_mb: int = setting(
+        2048,
+        "MB of memory the database may use; above it a load or a query spills to <database>.tmp "
+        "(0 = DuckDB's default, 80 % of the machine's memory)",
+        range=(0, 10_000_000, "a whole number of MB"),
+    )
     cluster: str = setting(
         "",
         "run the screening chunks and the sheets on Dask (pip install 'ddscreen[cluster]'): local:N (a local "

@@ -51,12 +51,18 @@ def statements() -> dict[str, str]:
 class Store:
     """One open DuckDB database file (or ``:memory:``)."""
 
-    def __init__(self, path: str | Path = ":memory:", *, read_only: bool = False):
+    def __init__(self, path: str | Path = ":memory:", *, read_only: bool = False, memory_mb: int = 0):
+        """``memory_mb`` > 0 is DuckDB's ``memory_limit`` for this connection: above it, loads, sorts and
+        groupings spill to a temporary folder beside the database (``<database>.tmp``) instead of
+        growing (``[run] store_memory_mb``); 0 leaves DuckDB's default (80 % of the machine's memory)."""
         self.path = str(path)
         try:
             if self.path != ":memory:" and not read_only:
                 Path(self.path).parent.mkdir(parents=True, exist_ok=True)
-            self.con = duckdb.connect(self.path, read_only=read_only)
+            settings: dict[str, str | bool | int | float | list[str]] = (
+                {"memory_limit": f"{int(memory_mb)}MB"} if memory_mb > 0 else {}
+            )
+            self.con = duckdb.connect(self.path, read_only=read_only, config=settings)
         except duckdb.IOException as exc:
             msg = str(exc).splitlines()[0]
             if "lock" in msg.lower():

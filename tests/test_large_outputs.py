@@ -1,5 +1,5 @@
-"""Outputs of large portfolios (issue 20): the workbook's size limit, the page's row limit, the
-workbook's column widths, and ranking.pdf rendered beside the other outputs on a child process."""
+"""Large portfolios (issue 20): the workbook's size limit, the page's row limit, the workbook's column
+widths, ranking.pdf rendered beside the other outputs on a child process, the database's memory limit."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from screening.xlsxout import CHAR_PX, MAX_CHARS, PAD_PX, column_widths
 from tests.conftest import write_portfolio
 
 
-def _run(tmp_path, **output):
+def _run(tmp_path, run=None, **output):
     p = write_portfolio(tmp_path / "in")
     out = tmp_path / "out"
     res = runner.run(
@@ -24,6 +24,7 @@ def _run(tmp_path, **output):
             "store": {"database": str(tmp_path / "s.duckdb")},
             "analysis": {"as_of": p.as_of},
             "output": {"sheets": False, **output},
+            "run": run or {},
         },
         out_dir=str(out),
     )
@@ -124,3 +125,18 @@ def test_on_one_core_the_call_runs_here(monkeypatch):
     monkeypatch.setattr(pdf.os, "cpu_count", lambda: 1)
     job = pdf.Background(sorted, [3, 1, 2])
     assert job._pool is None and job.result() == [1, 2, 3]
+
+
+def test_the_database_memory_limit_reaches_duckdb_and_changes_no_result(tmp_path):
+    from screening.store import Store
+
+    with Store(tmp_path / "m.duckdb", memory_mb=300) as st:
+        limit = st.con.execute("SELECT current_setting('memory_limit')").fetchone()[0]
+    # DuckDB reports 300 MB (10^6 bytes) in MiB
+    assert limit.endswith("MiB") and float(limit.split()[0]) == pytest.approx(300e6 / 2**20, abs=0.2)
+    with Store(tmp_path / "d.duckdb") as st:  # 0: DuckDB's own default, larger
+        default = st.con.execute("SELECT current_setting('memory_limit')").fetchone()[0]
+    assert default != limit
+    _r, a = _run(tmp_path / "a", run={"store_memory_mb": 256})
+    _r, b = _run(tmp_path / "b", run={"store_memory_mb": 0})
+    assert (a / "ranking.csv").read_bytes() == (b / "ranking.csv").read_bytes()

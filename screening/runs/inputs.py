@@ -33,13 +33,14 @@ class StoreReadings(pipeline.ReadingsSource):
     through a read-only connection held while the screening runs. For one readings file only: rows
     given by several files are resolved over all of them first (``sources.one_row_per_key``)."""
 
-    def __init__(self, db_path: str):
+    def __init__(self, db_path: str, memory_mb: int = 0):
         self.db_path = db_path
+        self.memory_mb = memory_mb
         self.store: Store | None = None
 
     def _frame(self, name: str, ids: pl.Series) -> pl.DataFrame:
         if self.store is None:
-            self.store = Store(self.db_path, read_only=True)
+            self.store = Store(self.db_path, read_only=True, memory_mb=self.memory_mb)
         return self.store.frame(name, {"ids": ids.to_list()}).drop(sources.FILE_COL)
 
     def __call__(self, ids: pl.Series) -> pl.DataFrame:

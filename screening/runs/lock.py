@@ -62,7 +62,7 @@ READ_WAIT_S = 20.0  # how long status/history wait for a run's brief hold on the
 WRITE_WAIT_S = 5.0  # how long a run waits for a reader's (status, history) brief hold on it
 
 
-def open_store(db_path, *, read_only: bool = False, wait_s: float = WRITE_WAIT_S) -> Store:
+def open_store(db_path, *, read_only: bool = False, wait_s: float = WRITE_WAIT_S, memory_mb: int = 0) -> Store:
     """Open the database, waiting while another process holds it for a moment.
 
     DuckDB lets one process at a time open a database file; ``status`` and ``history``
@@ -72,7 +72,7 @@ def open_store(db_path, *, read_only: bool = False, wait_s: float = WRITE_WAIT_S
     deadline = time.monotonic() + wait_s
     while True:
         try:
-            return Store(db_path, read_only=read_only)
+            return Store(db_path, read_only=read_only, memory_mb=memory_mb)
         except StoreError as exc:
             if "in use" not in str(exc) or time.monotonic() > deadline:
                 raise

@@ -143,7 +143,7 @@ def _run_locked(
     run_id = f"{label}-{_dt.datetime.now().strftime('%Y%m%dT%H%M%S')}-{uuid.uuid4().hex[:6]}"  # one execution
     run_key = record.run_key(label, config_hash, files)  # the id users see
     store: Store | None  # None while the database is closed for readers (the screening phase)
-    store = open_store(db_path)
+    store = open_store(db_path, memory_mb=cfg.run.store_memory_mb)
     try:
         notes = publish.clean_stale_temp(target, None)
         notes += published.settle_dead_runs(store)  # we hold the lock: a run still open has died
@@ -194,7 +194,7 @@ def _run_locked(
         handler.close()
         # phase 3: record what is about to be published, publish, mark it done
         files_written = published.manifest(tmp)
-        store = open_store(db_path)
+        store = open_store(db_path, memory_mb=cfg.run.store_memory_mb)
         record.record_results(
             store,
             run_id,

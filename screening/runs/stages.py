@@ -92,7 +92,7 @@ def screen(
     paths = {"buildings": files["buildings"][0], "readings": files["readings"][0]}
     # the readings frame is passed, not kept here, so screening can free it once checked; or each
     # chunk's readings come from the store (many buildings, one readings file)
-    src = inputs.StoreReadings(str(db_path)) if ld.in_chunks else None
+    src = inputs.StoreReadings(str(db_path), cfg.run.store_memory_mb) if ld.in_chunks else None
     try:
         return pipeline.screen_frames(
             ld.stored["buildings"],
