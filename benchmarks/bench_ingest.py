@@ -2,6 +2,7 @@
 
     python benchmarks/bench_ingest.py --n 100000 --work /tmp/bench-100k            # this tree, whole and chunked
     python benchmarks/bench_ingest.py --n 100000 --work /tmp/bench-100k --ref 5551e2c --chunk-mb 0 32 8
+    python benchmarks/bench_ingest.py --n 100000 --work /tmp/bench-100k --chunk-mb 32 --store-mb 0 2048 512
 
 The portfolio comes from the independent simulator (sample_portfolio/simulate.py: 3 years of daily
 weather, 36 monthly bills a building and some extra meters), written once into ``--work`` (kept for
@@ -39,7 +40,7 @@ from screening.store import Store
 work, db, chunk = Path(sys.argv[1]), sys.argv[2], sys.argv[3]
 base = hwm()
 files = {k: [str(work / f"{k}.csv")] for k in ("buildings", "readings", "weather")}
-store = Store(db)
+store = Store(db, memory_mb=int(sys.argv[4])) if len(sys.argv) > 4 and sys.argv[4] != "0" else Store(db)
 t = time.perf_counter()
 kw = {} if chunk == "ref" else {"chunk_bytes": int(chunk) << 20}
 loads = pipeline.load_inputs(store, files, ReadOptions(), **kw)
@@ -64,13 +65,13 @@ def generate(n: int, work: Path) -> None:
     gen(n, work)
 
 
-def one(tree: Path, work: Path, chunk: str) -> dict:
+def one(tree: Path, work: Path, chunk: str, store_mb: int = 0) -> dict:
     db = work / f"ingest-{chunk}.duckdb"
     for p in (db, Path(str(db) + ".wal")):
         p.unlink(missing_ok=True)
     env = os.environ | {"PYTHONPATH": str(tree)}
     out = subprocess.run(
-        [sys.executable, "-c", CHILD, str(work), str(db), chunk], env=env, capture_output=True, text=True
+        [sys.executable, "-c", CHILD, str(work), str(db), chunk, str(store_mb)], env=env, capture_output=True, text=True
     )
     db.unlink(missing_ok=True)
     if out.returncode:
@@ -88,6 +89,9 @@ def main() -> None:
     ap.add_argument("--work", required=True)
     ap.add_argument("--chunk-mb", type=int, nargs="*", default=[0, 32])
     ap.add_argument("--ref", default=None, help="also load with this commit's code (its default path)")
+    ap.add_argument(
+        "--store-mb", type=int, nargs="*", default=[0], help="DuckDB memory limits to load with ([run] store_memory_mb)"
+    )
     a = ap.parse_args()
     work = Path(a.work)
     if not (work / "readings.csv").exists():
@@ -101,14 +105,18 @@ def main() -> None:
     if a.ref:
         from compare_outputs import ref_tree
 
-        runs.append((f"{a.ref} (before)", ref_tree(a.ref), "ref"))
-    runs += [(("whole files" if c == 0 else f"chunks of {c} MB"), ROOT, str(c)) for c in a.chunk_mb]
+        runs.append((f"{a.ref} (before)", ref_tree(a.ref), "ref", 0))
+    runs += [
+        (("whole files" if c == 0 else f"chunks of {c} MB") + (f", store_memory_mb {m}" if m else ""), ROOT, str(c), m)
+        for c in a.chunk_mb
+        for m in a.store_mb
+    ]
     checks = []
     print("| code | load before → after | ingest s | peak | above imports |")
     print("|---|---|---|---|---|")
-    for name, tree, chunk in runs:
+    for name, tree, chunk, store_mb in runs:
         before = _load()
-        r = one(tree, work, chunk)
+        r = one(tree, work, chunk, store_mb)
         checks.append(r["check"])
         print(
             f"| {name} | {before} → {_load()} | {r['seconds']:.1f} | {r['peak_kb'] / 1e6:.2f} GB | "

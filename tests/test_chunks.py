@@ -43,6 +43,17 @@ def test_demo_in_chunks_equals_one_pass(chunk):
     _same(one, parts)
 
 
+def test_without_sheets_the_periods_are_dropped_and_nothing_else_changes():
+    b, r, w = _inputs(sample_portfolio_dir())
+    cfg = cfgmod.load(None, None)
+    window = analysis_window(dt.date(2026, 10, 15))
+    kept = pipeline.screen_frames(b, r, w, cfg, window=window, fit_block=10, chunk_buildings=1)
+    dropped = pipeline.screen_frames(b, r, w, cfg, window=window, fit_block=10, chunk_buildings=1, keep_periods=False)
+    assert kept.periods.height > 200 * 10 and dropped.periods.height == 0
+    assert dropped.periods.schema == kept.periods.schema
+    _same(kept, pipeline.Screened(**{**dropped.__dict__, "periods": kept.periods}))
+
+
 def test_readings_source_gives_each_chunk_only_its_readings():
     b, r, w = _inputs(sample_portfolio_dir())
     seen = []

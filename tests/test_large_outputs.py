@@ -140,3 +140,22 @@ def test_the_database_memory_limit_reaches_duckdb_and_changes_no_result(tmp_path
     _r, a = _run(tmp_path / "a", run={"store_memory_mb": 256})
     _r, b = _run(tmp_path / "b", run={"store_memory_mb": 0})
     assert (a / "ranking.csv").read_bytes() == (b / "ranking.csv").read_bytes()
+
+
+def test_results_are_stored_a_piece_at_a_time_with_the_same_rows(tmp_path, monkeypatch):
+    import duckdb
+
+    from screening.runs import record
+
+    def stored(db) -> list[tuple]:
+        con = duckdb.connect(str(db), read_only=True)
+        try:
+            return con.execute("SELECT * EXCLUDE (run_id) FROM results ORDER BY building_id").fetchall()
+        finally:
+            con.close()
+
+    _run(tmp_path / "a")
+    monkeypatch.setattr(record.results_for_store, "__defaults__", (3,))  # pieces of 3 buildings
+    _run(tmp_path / "b")
+    a, b = stored(tmp_path / "a" / "s.duckdb"), stored(tmp_path / "b" / "s.duckdb")
+    assert len(a) == 6 and a == b  # 6 buildings: two pieces of 3

@@ -7,6 +7,7 @@ from __future__ import annotations
 import datetime as _dt
 import json
 import sys
+from collections.abc import Iterable, Iterator
 from pathlib import Path
 
 import duckdb
@@ -110,7 +111,7 @@ def record_results(
     store: Store,
     run_id: str,
     *,
-    stage: pl.DataFrame,
+    stage: Iterable[pl.DataFrame],
     rejects: pl.DataFrame,
     loads: list,
     events_files: list[str],
@@ -123,7 +124,8 @@ def record_results(
     (status ``publishing``; ``published.settle_dead_runs`` reads them if the run dies now)."""
     with store.transaction():
         store.execute("delete_results_of_run", {"run_id": run_id})
-        store.execute("insert_results", stage_results=stage)
+        for piece in stage:  # results_for_store's pieces, built one at a time
+            store.execute("insert_results", stage_results=piece)
         store.execute("delete_rejects_of_run", {"run_id": run_id})
         store.execute("insert_rejects", {"run_id": run_id}, stage_rejects=rejects)
         store.execute(
@@ -242,10 +244,21 @@ def year_ago(store: Store, window) -> pl.DataFrame | None:
     return store.frame("results_of_run", {"run_id": cand["run_id"][0]})
 
 
-def results_for_store(run_id: str, res: pl.DataFrame) -> pl.DataFrame:
-    """The rows of the ``results`` table: the columns the store queries, and ``record``, every column of
-    the building as one JSON object (keys sorted), written by :func:`json_records` in the bytes a
-    ``json.dumps(row, default=str, sort_keys=True)`` per building wrote before (issue 20)."""
+#: Buildings whose stored rows are built and inserted at a time: a record is every column of the building as
+#: JSON, a few kB, and building them for 10^6 buildings at once took about 10 GB (issue 20).
+RECORD_CHUNK = 65_536
+
+
+def results_for_store(run_id: str, res: pl.DataFrame, rows: int = RECORD_CHUNK) -> Iterator[pl.DataFrame]:
+    """The rows of the ``results`` table, ``rows`` buildings at a time (at least one frame, maybe empty):
+    the columns the store queries, and ``record``, every column of the building as one JSON object (keys
+    sorted), written by :func:`json_records` in the bytes a ``json.dumps(row, default=str, sort_keys=True)``
+    per building wrote before (issue 20). A generator: each piece is built when it is inserted."""
+    for k in range(0, max(res.height, 1), rows):
+        yield _results_rows(run_id, res.slice(k, rows))
+
+
+def _results_rows(run_id: str, res: pl.DataFrame) -> pl.DataFrame:
     rec_cols = [c for c in res.columns if res.schema[c] != pl.Object]
     return res.select(
         pl.lit(run_id).alias("run_id"),

@@ -106,6 +106,7 @@ def screen(
             plan_context=ld.plan_context,
             chunk_buildings=cfg.run.chunk_buildings,
             executor=executor,
+            keep_periods=cfg.output.sheets,
         )
     finally:
         if src is not None:
