@@ -32,6 +32,12 @@ BYTES_PER_READING_READ = 500.0  # readings file rows while the file is read and 
 BYTES_PER_CHUNK_READING = 500.0  # readings of the chunk being screened
 BYTES_PER_BUILDING = 4_000.0  # buildings: results kept for the portfolio pass and the outputs
 BYTES_PER_WEATHER_ROW = 200.0  # daily weather rows (the degree-day cube: 71 bases of cumulative sums)
+#: readings rows in a MB of a readings CSV (the simulator's files: 42,467,316 rows in 2,910 MB; a file with
+#: longer lines has fewer, so the streamed estimate is on the safe side for it)
+READINGS_PER_MB = 14_600
+#: DuckDB's memory per reading of a first load without a memory limit (10^6 buildings, 42 million readings:
+#: 9.8 GB at the load's end, benchmarks/bench_pipeline.py --n 1000000, docs/performance.md)
+BYTES_PER_READING_STORED = 230.0
 #: kept for callers of the one-phase model: a readings row counted once
 BYTES_PER_READING = BYTES_PER_READING_READ
 
@@ -60,14 +66,36 @@ def screening_bytes(readings: int, buildings: int, chunk_buildings: int = 0) -> 
     return BYTES_PER_BUILDING * buildings + BYTES_PER_CHUNK_READING * readings * share
 
 
-def estimate_peak(readings: int, buildings: int, weather: int, chunk_buildings: int = 0) -> float:
+def reading_bytes(readings: int, ingest_chunk_mb: int = 0, store_memory_mb: int = 0) -> float:
+    """Memory of a first load of the readings above the base [bytes]. Whole files (``ingest_chunk_mb`` 0):
+    ``r_read·R``. Streamed: the rows of one chunk, ``r_read·min(R, ROWS_PER_MB·chunk_mb)``, plus the database's
+    share: its ``memory_limit`` (``store_memory_mb``) or, without one, ``r_store·R`` (DuckDB keeps the load's
+    rows and its duplicate search in memory up to 80 % of the machine)."""
+    if ingest_chunk_mb <= 0:
+        return BYTES_PER_READING_READ * readings
+    ours = BYTES_PER_READING_READ * min(readings, READINGS_PER_MB * ingest_chunk_mb)
+    return ours + (store_memory_mb * 1e6 if store_memory_mb > 0 else BYTES_PER_READING_STORED * readings)
+
+
+def estimate_peak(
+    readings: int,
+    buildings: int,
+    weather: int,
+    chunk_buildings: int = 0,
+    *,
+    ingest_chunk_mb: int = 0,
+    store_memory_mb: int = 0,
+) -> float:
     """Estimated peak resident memory of a run over inputs of these row counts [bytes]:
-    ``BASE + w·weather + max(r_read·R, screening_bytes(R, B, c))`` (the files are read and stored
+    ``BASE + w·weather + max(reading_bytes(R, …), screening_bytes(R, B, c))`` (the files are read and stored
     before the screening starts, and their frames are freed)."""
     return (
         BASE_BYTES
         + BYTES_PER_WEATHER_ROW * weather
-        + max(BYTES_PER_READING_READ * readings, screening_bytes(readings, buildings, chunk_buildings))
+        + max(
+            reading_bytes(readings, ingest_chunk_mb, store_memory_mb),
+            screening_bytes(readings, buildings, chunk_buildings),
+        )
     )
 
 
@@ -156,11 +184,13 @@ def gb(x: float) -> str:
     return f"{x / 1e9:.1f} GB" if x >= 1e9 else f"{x / 1e6:.0f} MB"
 
 
-def check(files: dict[str, list[str]], chunk_buildings: int = 0) -> float:
+def check(
+    files: dict[str, list[str]], chunk_buildings: int = 0, *, ingest_chunk_mb: int = 0, store_memory_mb: int = 0
+) -> float:
     """Stop (``OutOfMemoryError``) when the run clearly needs more memory than the process may use.
 
-    ``files``: the run's input paths by kind; ``chunk_buildings`` the ``[run]`` setting. Returns the
-    estimate [bytes].
+    ``files``: the run's input paths by kind; ``chunk_buildings``, ``ingest_chunk_mb`` and ``store_memory_mb``
+    the ``[run]`` settings. Returns the estimate [bytes].
     """
 
     def rows_of(path):
@@ -170,7 +200,14 @@ def check(files: dict[str, list[str]], chunk_buildings: int = 0) -> float:
             return 0
 
     rows = {k: sum(rows_of(p) for p in files.get(k, [])) for k in ("readings", "buildings", "weather")}
-    need = estimate_peak(rows["readings"], rows["buildings"], rows["weather"], chunk_buildings)
+    need = estimate_peak(
+        rows["readings"],
+        rows["buildings"],
+        rows["weather"],
+        chunk_buildings,
+        ingest_chunk_mb=ingest_chunk_mb,
+        store_memory_mb=store_memory_mb,
+    )
     have, what = available()
     if need > have:
         raise OutOfMemoryError(

@@ -264,3 +264,21 @@ def test_fit_in_blocks_picks_what_the_is_in_filter_picked():
         assert got.keys() == want[0].keys()
         for k in got:
             np.testing.assert_array_equal(got[k], np.concatenate([w[k] for w in want]))
+
+
+def test_a_streamed_load_is_bounded_by_the_chunk_and_the_database_limit():
+    r = 42_000_000
+    whole = memory.reading_bytes(r)
+    assert whole == memory.BYTES_PER_READING_READ * r
+    limited = memory.reading_bytes(r, ingest_chunk_mb=32, store_memory_mb=2048)
+    assert limited == pytest.approx(memory.BYTES_PER_READING_READ * memory.READINGS_PER_MB * 32 + 2048e6)
+    # the same for 10x the readings: the load no longer grows with the file
+    assert memory.reading_bytes(10 * r, ingest_chunk_mb=32, store_memory_mb=2048) == limited
+    # without a database limit DuckDB's share grows with the readings
+    unlimited = memory.reading_bytes(r, ingest_chunk_mb=32)
+    assert unlimited > limited and memory.reading_bytes(2 * r, ingest_chunk_mb=32) > unlimited
+    # a small file: its rows, not a whole chunk's
+    assert memory.reading_bytes(1000, ingest_chunk_mb=32, store_memory_mb=0) < 1e6
+    # the run's estimate takes the settings
+    est = memory.estimate_peak(r, 1_000_000, 0, 16384, ingest_chunk_mb=32, store_memory_mb=2048)
+    assert est == pytest.approx(memory.BASE_BYTES + max(limited, memory.screening_bytes(r, 1_000_000, 16384)))

@@ -135,7 +135,9 @@ def _run_locked(
        and the record in a state the next run settles (``published.settle_dead_runs``).
     """
     bar = bar or Progress(False)
-    need = memory.check(files, cfg.run.chunk_buildings)  # stops here, nothing changed, if it cannot fit
+    need = memory.check(
+        files, cfg.run.chunk_buildings, ingest_chunk_mb=cfg.run.ingest_chunk_mb, store_memory_mb=cfg.run.store_memory_mb
+    )  # stops here, nothing changed, if it cannot fit
     t_start = time.perf_counter()
     # run_key is the one id a user sees (sheets, ranking.pdf, summary.json, stderr, status, history): the
     # same for a rerun of the same quarter, inputs and settings, so reruns stay byte-identical. run_id
