@@ -172,3 +172,16 @@ def test_demo_with_events_in_chunks_equals_one_pass(chunk):
     assert one.savings_periods is not None and parts.savings_periods is not None
     assert one.savings_periods.equals(parts.savings_periods)
     assert one.results.filter(pl.col("verdict").str.contains("After the measure")).height == 2
+
+
+@pytest.mark.parametrize("units", ["IP", "SI"])
+def test_assumptions_csv_written_in_pieces_has_the_bytes_of_the_whole_table(tmp_path, units):
+    from screening import outputs
+
+    b, r, w = _inputs(sample_portfolio_dir())
+    res = pipeline.screen_frames(b, r, w, cfgmod.load(None, None), window=analysis_window(dt.date(2026, 10, 15)))
+    disp = outputs.Display(units)
+    outputs.write_csv(outputs.assumptions_table(res.envelope, disp), tmp_path / "whole.csv")
+    outputs.write_assumptions_csv(res.envelope, disp, tmp_path / "pieces.csv", rows=7)  # 29 pieces
+    whole = (tmp_path / "whole.csv").read_bytes()
+    assert whole.count(b"\n") > 200 * 10 and (tmp_path / "pieces.csv").read_bytes() == whole

@@ -148,8 +148,16 @@ def write_outputs(
     outputs.write_csv(plan, tmp / "audit_plan.csv")
     outputs.write_csv(rejects, tmp / "rejects.csv")
     outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
-    assumptions = outputs.assumptions_table(res.envelope, disp)
-    outputs.write_csv(assumptions, tmp / "assumptions.csv")
+    book_max = cfg.output.workbook_max_buildings
+    with_book = 0 < ranking.height <= book_max
+    assumptions = None  # the table is kept only for the workbook; else written a piece at a time
+    if with_book:
+        assumptions = outputs.assumptions_table(res.envelope, disp)
+        outputs.write_csv(assumptions, tmp / "assumptions.csv")
+    else:
+        outputs.write_assumptions_csv(res.envelope, disp, tmp / "assumptions.csv")
+    if not cfg.output.sheets:  # after assumptions.csv only the sheets read the envelope (3.9 kB a building)
+        res.envelope = res.envelope.clear()
     prev = ld.prev
     summary = record.run_summary(
         run_key, label, as_of, window, cfg, res, rejects, ld.loads, prev[0][1] if prev else None
@@ -178,8 +186,6 @@ def write_outputs(
             {"building_id": r["building_id"], "rank": r["rank"], "tier": r["tier"], "note": r["plan_note"]}
             for r in notes_df.sort("rank").iter_rows(named=True)
         ]
-    book_max = cfg.output.workbook_max_buildings
-    with_book = 0 < ranking.height <= book_max
     if not with_book:
         why = workbook_left_out(ranking.height, book_max)
         summary["files_left_out"] = {"ranking.xlsx": why}
@@ -206,7 +212,7 @@ def write_outputs(
         paper=paper,
     )
     try:
-        if with_book:
+        if with_book and assumptions is not None:
             from ..xlsxout import write_ranking_xlsx
 
             t = time.perf_counter()
