@@ -77,16 +77,27 @@ def generate(n: int, work: Path) -> float:
 
 
 def _sample_memory(path: Path, every_s: float = 0.5) -> None:
-    """Write this process's resident memory [MB] every ``every_s`` seconds to ``path`` (time, MB), so
-    the peak can be placed against the run's log; a daemon thread."""
+    """Write this process's resident memory [MB] every ``every_s`` seconds to ``path`` (time, MB, the
+    package function the main thread is in), so a peak can be placed in the run; a daemon thread."""
     import threading
+
+    main_id = threading.main_thread().ident
+
+    def where() -> str:  # the innermost frame of the main thread inside the package: what is running
+        frame = sys._current_frames().get(main_id)
+        while frame is not None:
+            if "/screening/" in frame.f_code.co_filename:
+                name = frame.f_code.co_filename.rsplit("/screening/", 1)[1]
+                return f"{name}:{frame.f_lineno} {frame.f_code.co_name}"
+            frame = frame.f_back
+        return ""
 
     def loop() -> None:
         with open(path, "w") as f:
             while True:
                 with open("/proc/self/status") as st:
                     rss = next((ln.split()[1] for ln in st if ln.startswith("VmRSS")), "0")
-                f.write(f"{time.strftime('%H:%M:%S')}\t{int(rss) / 1024:.0f}\n")
+                f.write(f"{time.strftime('%H:%M:%S')}\t{int(rss) / 1024:.0f}\t{where()}\n")
                 f.flush()
                 time.sleep(every_s)
 
