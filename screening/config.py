@@ -122,7 +122,7 @@ class Run:
     )
     store_memory_mb: int = setting(
         2048,
-        "MB of memory the database may use; above it a load or a query spills to <database>.tmp "
+        "MB of memory DuckDB may use for its buffers and queries; above it they spill to <database>.tmp "
         "(0 = DuckDB's default, 80 % of the machine's memory)",
         range=(0, 10_000_000, "a whole number of MB"),
     )
