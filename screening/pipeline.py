@@ -865,7 +865,12 @@ def _audit_bias(b: pl.DataFrame, min_audits: int) -> pl.DataFrame | None:
     from . import learning
 
     cols = [c for c in _AUDITED if c in b.columns]
-    if not cols or not bool(b.select(pl.any_horizontal([pl.col(c).is_not_null() for c in cols])).to_series().any()):
+    if not cols:
+        return None
+    # only audited buildings count (learning.audit_bias keeps the rows with a given value), and a building's
+    # envelope estimate depends on its own row only: two estimates of every building took 10 GB at 10^6
+    b = b.filter(pl.any_horizontal([pl.col(c).is_not_null() for c in cols]))
+    if b.height == 0:
         return None
     envelope = env.estimate_envelope(b)
     dflt = env.estimate_envelope(b.with_columns([pl.lit(None, dtype=pl.Float64).alias(c) for c in cols]))

@@ -151,3 +151,29 @@ def test_a_run_reports_the_bias_and_applies_it_from_min_audits_on(tmp_path):
     same = j.filter(pl.col("building_id").is_in(own.implode()))
     assert same.height and (same["e0"] - same["e1"]).abs().max() <= 1e-6 * same["e0"].abs().max()
     assert (j["e0"] != j["e1"]).any()
+
+
+def test_the_bias_from_the_audited_buildings_alone_equals_the_one_over_every_building():
+    # pipeline._audit_bias estimates the envelope of the audited buildings only (memory at 10^6 buildings);
+    # the bias must be the one computed from every building's estimates
+    from screening import envelope as env
+    from screening import learning, pipeline
+    from screening.ingest import ReadOptions
+    from screening.resources import sample_portfolio_dir
+
+    b = pipeline.read_file("buildings", str(sample_portfolio_dir() / "buildings.csv"), ReadOptions(units="IP")).df
+    cols = [c for c in pipeline._AUDITED if c in b.columns]
+    audited = b.select(pl.any_horizontal([pl.col(c).is_not_null() for c in cols])).to_series()
+    assert 0 < int(audited.sum()) < b.height
+    envelope = env.estimate_envelope(b)
+    dflt = env.estimate_envelope(b.with_columns([pl.lit(None, dtype=pl.Float64).alias(c) for c in cols]))
+    given = b.select(
+        "building_id",
+        *[
+            pl.col(c).cast(pl.Float64) if c in cols else pl.lit(None, dtype=pl.Float64).alias(c)
+            for c in pipeline._AUDITED
+        ],
+    ).join(envelope.select("building_id", "era", "use_type"), on="building_id", how="inner")
+    whole = learning.audit_bias(given, dflt, min_audits=2)
+    got = pipeline._audit_bias(b, 2)
+    assert got is not None and got.height > 0 and got.equals(whole)
