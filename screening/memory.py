@@ -36,7 +36,7 @@ BYTES_PER_WEATHER_ROW = 200.0  # daily weather rows (the degree-day cube: 71 bas
 #: longer lines has fewer, so the streamed estimate is on the safe side for it)
 READINGS_PER_MB = 14_600
 #: DuckDB's memory per reading of a first load without a memory limit (10^6 buildings, 42 million readings:
-#: 9.8 GB at the load's end, benchmarks/bench_pipeline.py --n 1000000, docs/performance.md)
+#: 9.6 GB during the load, benchmarks/bench_pipeline.py --n 1000000 at 054f147, docs/performance.md)
 BYTES_PER_READING_STORED = 230.0
 #: kept for callers of the one-phase model: a readings row counted once
 BYTES_PER_READING = BYTES_PER_READING_READ
