@@ -121,7 +121,7 @@ class Run:
         range=(0, 1_000_000, "a whole number of MB"),
     )
     store_memory_mb: int = setting(
-        2048,
+        1024,
         "MB of memory DuckDB may use for its buffers and queries; above it they spill to <database>.tmp "
         "(0 = DuckDB's default, 80 % of the machine's memory)",
         range=(0, 10_000_000, "a whole number of MB"),

@@ -246,7 +246,7 @@ def year_ago(store: Store, window) -> pl.DataFrame | None:
 
 #: Buildings whose stored rows are built and inserted at a time: a record is every column of the building as
 #: JSON, a few kB, and building them for 10^6 buildings at once took about 10 GB (issue 20).
-RECORD_CHUNK = 65_536
+RECORD_CHUNK = 16_384
 
 
 def results_for_store(run_id: str, res: pl.DataFrame, rows: int = RECORD_CHUNK) -> Iterator[pl.DataFrame]:
