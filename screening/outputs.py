@@ -7,7 +7,7 @@ from __future__ import annotations
 import json
 import math
 from pathlib import Path
-from typing import cast
+from typing import IO, cast
 
 import polars as pl
 
@@ -437,8 +437,10 @@ def neutralize_formulas(df: pl.DataFrame) -> pl.DataFrame:
     return df.with_columns(exprs) if exprs else df
 
 
-def write_csv(df: pl.DataFrame, path: Path) -> None:
-    neutralize_formulas(df).write_csv(path, null_value="", float_precision=None)
+def write_csv(df: pl.DataFrame, path: Path | IO[bytes], *, include_header: bool = True) -> None:
+    """A table as the tool writes every CSV (formulas neutralized, nulls empty, floats round-trip); ``path``
+    may be an open binary file to append a piece to."""
+    neutralize_formulas(df).write_csv(path, include_header=include_header, null_value="", float_precision=None)
 
 
 #: Buildings of assumptions.csv formatted and written at a time (19 rows and about 3.4 kB a building as a
@@ -454,8 +456,7 @@ def write_assumptions_csv(envelope: pl.DataFrame, disp: "Display", path: Path, r
         return
     with open(path, "wb") as f:
         for k in range(0, envelope.height, rows):
-            piece = neutralize_formulas(assumptions_table(envelope.slice(k, rows), disp))
-            piece.write_csv(f, include_header=k == 0, null_value="", float_precision=None)
+            write_csv(assumptions_table(envelope.slice(k, rows), disp), f, include_header=k == 0)
 
 
 def rejects_table(rejects: pl.DataFrame) -> pl.DataFrame:

@@ -291,10 +291,7 @@ def _run_chunks(chunks: list[tuple[list, list]], paper: str, workers: int) -> li
             with lock:
                 failed.append(exc)
 
-    ctx = multiprocessing.get_context("forkserver")
-    # the fork server imports the renderer's heavy modules once; each child forks from it
-    # (screening.lifeline first: there it makes the fork server die with this process)
-    ctx.set_forkserver_preload(["screening.lifeline", "screening.render.pdf", "weasyprint", "pydyf"])
+    ctx = _render_context()
     n_children = min(workers - 1, len(chunks) - 1)
     with (
         _main_not_reimported(),
@@ -400,6 +397,15 @@ def _worker_init() -> None:
     gc.freeze()  # the modules and renderer state live as long as the worker: keep them out of collections
 
 
+def _render_context():
+    """The multiprocessing context of every render child: a fork server that imports the renderer's heavy
+    modules once, each child forked from it (screening.lifeline first: there it makes the fork server die
+    with this process)."""
+    ctx = multiprocessing.get_context("forkserver")
+    ctx.set_forkserver_preload(["screening.lifeline", "screening.render.pdf", "weasyprint", "pydyf"])
+    return ctx
+
+
 class Background:
     """One rendering call on a child process while the caller goes on (ranking.pdf beside the other
     outputs, issue 20): forked from the sheets' fork server, so it starts warm, and it dies with
@@ -414,8 +420,7 @@ class Background:
         self._future: Any = None
         if (os.cpu_count() or 1) < 2:
             return
-        ctx = multiprocessing.get_context("forkserver")
-        ctx.set_forkserver_preload(["screening.lifeline", "screening.render.pdf", "weasyprint", "pydyf"])
+        ctx = _render_context()
         with _main_not_reimported():  # the child starts in submit
             self._pool = ProcessPoolExecutor(max_workers=1, mp_context=ctx, initializer=_worker_init)
             self._future = self._pool.submit(fn, *args, **kwargs)

@@ -251,7 +251,7 @@ def write_outputs(
     except BaseException:
         ranking_pdf.cancel()
         raise
-    # [s] what ranking.pdf added after everything else (it started t_ranking_s earlier, overlapping)
+    # [s] what ranking.pdf added after everything else, and how long it ran in all (it overlapped the rest)
     timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
     timings["ranking_pdf_started_s"] = round(time.perf_counter() - t_ranking, 4)
     return ranking, rejects, summary
