@@ -76,9 +76,39 @@ def generate(n: int, work: Path) -> float:
     return time.perf_counter() - t
 
 
+def _children(pid: int) -> list[int]:
+    """Every descendant process of ``pid`` (Linux /proc: the fork server, the workers, the renderers)."""
+    out: list[int] = []
+    try:
+        tids = os.listdir(f"/proc/{pid}/task")
+    except OSError:
+        return out
+    for tid in tids:
+        try:
+            kids = [int(x) for x in Path(f"/proc/{pid}/task/{tid}/children").read_text().split()]
+        except OSError:
+            continue
+        for k in kids:
+            out += [k, *_children(k)]
+    return out
+
+
+def _rss_mb(pid: int | str) -> float:
+    try:
+        with open(f"/proc/{pid}/status") as st:
+            return int(next((ln.split()[1] for ln in st if ln.startswith("VmRSS")), "0")) / 1024
+    except OSError:
+        return 0.0
+
+
+#: the largest resident memory of this process and all its descendants together seen by the sampler [MB]
+TREE_PEAK = {"mb": 0.0}
+
+
 def _sample_memory(path: Path, every_s: float = 0.5) -> None:
-    """Write this process's resident memory [MB] every ``every_s`` seconds to ``path`` (time, MB, the
-    package function the main thread is in), so a peak can be placed in the run; a daemon thread."""
+    """Write this process's resident memory [MB] every ``every_s`` seconds to ``path`` (time, MB, MB of it and
+    its child processes together, the package function the main thread is in), so a peak can be placed in
+    the run; a daemon thread. The largest sum goes to :data:`TREE_PEAK`."""
     import threading
 
     main_id = threading.main_thread().ident
@@ -94,10 +124,12 @@ def _sample_memory(path: Path, every_s: float = 0.5) -> None:
 
     def loop() -> None:
         with open(path, "w") as f:
+            me = os.getpid()
             while True:
-                with open("/proc/self/status") as st:
-                    rss = next((ln.split()[1] for ln in st if ln.startswith("VmRSS")), "0")
-                f.write(f"{time.strftime('%H:%M:%S')}\t{int(rss) / 1024:.0f}\t{where()}\n")
+                rss = _rss_mb(me)
+                tree = rss + sum(_rss_mb(k) for k in _children(me))
+                TREE_PEAK["mb"] = max(TREE_PEAK["mb"], tree)
+                f.write(f"{time.strftime('%H:%M:%S')}\t{rss:.0f}\t{tree:.0f}\t{where()}\n")
                 f.flush()
                 time.sleep(every_s)
 
@@ -105,7 +137,7 @@ def _sample_memory(path: Path, every_s: float = 0.5) -> None:
         threading.Thread(target=loop, daemon=True).start()
 
 
-def one(n: int, sheets: bool, work: Path) -> dict:
+def one(n: int, sheets: bool, work: Path, workers: int = 1) -> dict:
     """Screen the portfolio in ``work`` (in this process, so its peak memory is the run's own)."""
     import duckdb
 
@@ -128,6 +160,7 @@ def one(n: int, sheets: bool, work: Path) -> dict:
         "store": {"database": str(work / "bench.duckdb")},
         "analysis": {"as_of": "2026-10-15"},
         "output": {"sheets": sheets},
+        "run": {"workers": workers},
     }
     t = time.perf_counter()
     res = runner.run(overrides=overrides, out_dir=str(work / "out"), force=True)
@@ -141,6 +174,9 @@ def one(n: int, sheets: bool, work: Path) -> dict:
         "stages_s": timings,
         "wall_s": round(total, 2),
         "peak_rss_mb": round(peak_mb, 1),
+        # with its child processes (the fork server, screening workers, the ranking.pdf renderer), sampled
+        "peak_tree_mb": round(TREE_PEAK["mb"], 1),
+        "workers": workers,
         "sheets": sheets,
     }
 
@@ -154,12 +190,13 @@ def main() -> None:
     ap.add_argument("--with-sheets", action="store_true")
     ap.add_argument("--generate", action="store_true")
     ap.add_argument("--work", default=None)
+    ap.add_argument("--workers", type=int, default=1, help="[run] workers of the runs (default 1)")
     a = ap.parse_args()
     if a.child is not None:
         if a.generate:
             print(json.dumps({"generate_s": round(generate(a.child, Path(a.work)), 2)}))
         else:
-            print(json.dumps(one(a.child, a.with_sheets, Path(a.work))))
+            print(json.dumps(one(a.child, a.with_sheets, Path(a.work), a.workers)))
         return
     rows = []
     env = os.environ | {"PYTHONPATH": str(ROOT)}
@@ -167,7 +204,7 @@ def main() -> None:
         with tempfile.TemporaryDirectory() as d:
             steps = [
                 [sys.executable, __file__, "--child", str(n), "--work", d, "--generate"],
-                [sys.executable, __file__, "--child", str(n), "--work", d]
+                [sys.executable, __file__, "--child", str(n), "--work", d, "--workers", str(a.workers)]
                 + (["--with-sheets"] if n <= a.sheets_up_to else []),
             ]
             result = {}
@@ -184,19 +221,24 @@ def main() -> None:
         "envelope",
         "regression",
         "expected",
+        "chunks_elsewhere",
         "screening",
         "csv",
         "sheets",
         "ranking_pdf",
         "total",
     ]
-    print(f"{'N':>7} {'readings':>9} " + " ".join(f"{s[:10]:>10}" for s in stages) + f" {'duck csv':>9} {'peak MB':>8}")
+    print(
+        f"{'N':>7} {'readings':>9} "
+        + " ".join(f"{s[:10]:>10}" for s in stages)
+        + f" {'duck csv':>9} {'peak MB':>8} {'w/ child':>8}"
+    )
     for r in rows:
         st = r["stages_s"]
         print(
             f"{r['n']:>7} {r['readings']:>9} "
             + " ".join(f"{st.get(s, float('nan')):>10.2f}" for s in stages)
-            + f" {r['duckdb_read_csv_s'] or float('nan'):>9.2f} {r['peak_rss_mb']:>8.0f}"
+            + f" {r['duckdb_read_csv_s'] or float('nan'):>9.2f} {r['peak_rss_mb']:>8.0f} {r['peak_tree_mb']:>8.0f}"
         )
     Path(a.json).parent.mkdir(parents=True, exist_ok=True)
     Path(a.json).write_text(

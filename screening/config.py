@@ -115,6 +115,11 @@ class Run:
         "buildings screened at a time (0 = all at once); peak memory grows with it",
         range=(0, 100_000_000, "a whole number of buildings"),
     )
+    workers: int = setting(
+        1,
+        "processes that screen chunks of buildings side by side (1 = this process); each holds one chunk",
+        range=(1, 64, "a whole number"),
+    )
     ingest_chunk_mb: int = setting(
         32,
         "MB of a buildings or readings CSV read, checked and stored at a time (0 = each file whole)",

@@ -32,6 +32,9 @@ BYTES_PER_READING_READ = 500.0  # readings file rows while the file is read and 
 BYTES_PER_CHUNK_READING = 500.0  # readings of the chunk being screened
 BYTES_PER_BUILDING = 4_000.0  # buildings: results kept for the portfolio pass and the outputs
 BYTES_PER_WEATHER_ROW = 200.0  # daily weather rows (the degree-day cube: 71 bases of cumulative sums)
+#: a screening worker process (``[run] workers`` ≥ 2) before its chunk: interpreter, libraries, the shared
+#: weather and degree-day cube (set from the children's resident memory at 10^4 buildings, not fitted)
+CHILD_BASE_BYTES = 300e6
 #: readings rows in a MB of a readings CSV (the simulator's files: 42,467,316 rows in 2,910 MB; a file with
 #: longer lines has fewer, so the streamed estimate is on the safe side for it)
 READINGS_PER_MB = 14_600
@@ -53,17 +56,25 @@ def count_rows(path: str | Path) -> int:
     return max(0, n + (last != b"\n") - 1)
 
 
-def screening_bytes(readings: int, buildings: int, chunk_buildings: int = 0) -> float:
+def screening_bytes(readings: int, buildings: int, chunk_buildings: int = 0, workers: int = 1) -> float:
     """Memory of the screening phase above the base [bytes]: every building's results, and the
     temporaries of one chunk's readings (``chunk_buildings`` rounded up to whole regression blocks,
-    :func:`screening.pipeline.chunk_size`; 0 = all buildings at once). Linear in the chunk size::
+    :func:`screening.pipeline.chunk_size`; 0 = all buildings at once) for each of ``workers`` chunks
+    screened side by side, each on a child process of its own when ``workers`` ≥ 2 (``[run] workers``,
+    ``screening/workers.py``). Linear in the chunk size and in the workers::
 
-        b·B + r_chunk·R·c/B
+        b·B + W·r_chunk·R·c/B + (W ≥ 2)·W·child
     """
     from .pipeline import chunk_size
 
-    share = chunk_size(chunk_buildings, buildings) / buildings if buildings else 1.0
-    return BYTES_PER_BUILDING * buildings + BYTES_PER_CHUNK_READING * readings * share
+    size = chunk_size(chunk_buildings, buildings)
+    share = size / buildings if buildings else 1.0
+    w = max(1, min(workers, -(-buildings // size) if size else 1))
+    return (
+        BYTES_PER_BUILDING * buildings
+        + w * BYTES_PER_CHUNK_READING * readings * share
+        + (w * CHILD_BASE_BYTES if w >= 2 else 0.0)
+    )
 
 
 def reading_bytes(readings: int, ingest_chunk_mb: int = 0, store_memory_mb: int = 0) -> float:
@@ -85,6 +96,7 @@ def estimate_peak(
     *,
     ingest_chunk_mb: int = 0,
     store_memory_mb: int = 0,
+    workers: int = 1,
 ) -> float:
     """Estimated peak resident memory of a run over inputs of these row counts [bytes]:
     ``BASE + w·weather + max(reading_bytes(R, …), screening_bytes(R, B, c))`` (the files are read and stored
@@ -94,7 +106,7 @@ def estimate_peak(
         + BYTES_PER_WEATHER_ROW * weather
         + max(
             reading_bytes(readings, ingest_chunk_mb, store_memory_mb),
-            screening_bytes(readings, buildings, chunk_buildings),
+            screening_bytes(readings, buildings, chunk_buildings, workers),
         )
     )
 
@@ -185,12 +197,17 @@ def gb(x: float) -> str:
 
 
 def check(
-    files: dict[str, list[str]], chunk_buildings: int = 0, *, ingest_chunk_mb: int = 0, store_memory_mb: int = 0
+    files: dict[str, list[str]],
+    chunk_buildings: int = 0,
+    *,
+    ingest_chunk_mb: int = 0,
+    store_memory_mb: int = 0,
+    workers: int = 1,
 ) -> float:
     """Stop (``OutOfMemoryError``) when the run clearly needs more memory than the process may use.
 
-    ``files``: the run's input paths by kind; ``chunk_buildings``, ``ingest_chunk_mb`` and ``store_memory_mb``
-    the ``[run]`` settings. Returns the estimate [bytes].
+    ``files``: the run's input paths by kind; ``chunk_buildings``, ``ingest_chunk_mb``, ``store_memory_mb`` and
+    ``workers`` the ``[run]`` settings. Returns the estimate [bytes].
     """
 
     def rows_of(path):
@@ -207,13 +224,14 @@ def check(
         chunk_buildings,
         ingest_chunk_mb=ingest_chunk_mb,
         store_memory_mb=store_memory_mb,
+        workers=workers,
     )
     have, what = available()
     if need > have:
         raise OutOfMemoryError(
             f"not enough memory: {rows['readings']:,} readings of {rows['buildings']:,} buildings need about "
             f"{gb(need)}, and {what} leaves {gb(have)}; nothing was changed. Run on a machine with more "
-            "free memory, raise the limit, lower [run] chunk_buildings, or screen the portfolio in smaller parts "
+            "free memory, raise the limit, lower [run] chunk_buildings or workers, or screen the portfolio in smaller parts "
             "(fewer files per run)"
         )
     return need

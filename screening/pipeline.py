@@ -395,6 +395,7 @@ def screen_frames(
     fit_block: int | None = None,
     executor: ChunkExecutor | None = None,
     keep_periods: bool = True,
+    workers: int = 1,
 ) -> Screened:
     """Screen a portfolio (canonical IP frames, see DEVELOPERS.md).
 
@@ -409,7 +410,9 @@ def screen_frames(
     statistics (peer medians and spreads, year-on-year z, the ranking: :func:`screen.screen`) run
     once over all results. A chunk is a whole number of regression blocks of ``fit_block``
     buildings (default :data:`FIT_BLOCK`; :func:`chunk_size`), so the results are those of one pass.
-    ``executor`` runs the chunks elsewhere (:class:`ChunkExecutor`, e.g. ``cluster.DaskChunks``).
+    ``executor`` runs the chunks elsewhere (:class:`ChunkExecutor`, e.g. ``cluster.DaskChunks``); without
+    one, ``workers`` ≥ 2 screens up to that many chunks side by side on local child processes
+    (``screening.workers.LocalWorkers``).
     ``keep_periods`` False leaves ``Screened.periods`` empty (its columns kept): only the sheets read
     every building's billing periods, about 36 rows a building (gigabytes at 10^6 buildings), so a run
     without sheets drops each chunk's periods as soon as the chunk is screened.
@@ -477,6 +480,10 @@ def screen_frames(
         thresholds=thr,
     )
     chunks = ((bc, source(bc["building_id"])) for bc in (b.slice(c0, size) for c0 in range(0, b.height, max(size, 1))))
+    if executor is None and workers >= 2:
+        from . import workers as local
+
+        executor = local.from_config(workers, -(-b.height // max(size, 1)))
     if executor is None:
         parts = [_periods_kept(_screen_part(bc, rc, lap=lap, **common), keep_periods) for bc, rc in chunks]
     else:  # elsewhere (screening.cluster): the per-chunk stages are timed together

@@ -19,7 +19,7 @@ import polars as pl
 from .errors import StoreError
 from .resources import sql_dir
 
-SCHEMA_VERSION = 2  # see sql/schema.sql
+SCHEMA_VERSION = 3  # see sql/schema.sql
 _NAME = re.compile(r"^--\s*name:\s*([A-Za-z0-9_]+)\s*$")
 
 
@@ -63,6 +63,7 @@ class Store:
                 {"memory_limit": f"{int(memory_mb)}MB"} if memory_mb > 0 else {}
             )
             self.con = duckdb.connect(self.path, read_only=read_only, config=settings)
+            self.con.execute(statements()["session_quiet"])
         except duckdb.IOException as exc:
             msg = str(exc).splitlines()[0]
             if "lock" in msg.lower():
@@ -88,26 +89,44 @@ class Store:
         self.close()
 
     def create_schema(self) -> None:
-        """Create missing tables and bring a database of an earlier version up to this one."""
+        """Create missing tables and bring a database of an earlier version up to this one, in one
+        transaction (a migration that fails part-way leaves the file as it was)."""
         existed = self._has_table("input_files")
-        for name, sql in statements().items():
-            if name.startswith("create_"):
-                self.con.execute(sql)
-        version = self.con.execute(statements()["get_schema_version"]).fetchall()
-        if version and int(version[0][0]) >= SCHEMA_VERSION:
-            return
-        if existed:  # a version-1 database: every input is read again on the next load
-            for name in (
-                "migrate_v2_drop_buildings",
-                "migrate_v2_forget_readings",
-                "migrate_v2_forget_weather",
-                "migrate_v2_forget_rejects",
-                "migrate_v2_forget_inputs",
-                "migrate_v2_runs_files",
-                "create_buildings",
-            ):
-                self.con.execute(statements()[name])
-        self.con.execute(statements()["set_schema_version"], {"version": str(SCHEMA_VERSION)})
+        self.con.execute(statements()["tx_begin"])
+        try:
+            for name, sql in statements().items():
+                if name.startswith("create_"):
+                    self.con.execute(sql)
+            version = self.con.execute(statements()["get_schema_version"]).fetchall()
+            found = int(version[0][0]) if version else (1 if existed else SCHEMA_VERSION)
+            if found < 2:  # a version-1 database: every input is read again on the next load
+                for name in (
+                    "migrate_v2_drop_buildings",
+                    "migrate_v2_forget_readings",
+                    "migrate_v2_forget_weather",
+                    "migrate_v2_forget_rejects",
+                    "migrate_v2_forget_inputs",
+                    "migrate_v2_runs_files",
+                    "create_buildings",
+                ):
+                    self.con.execute(statements()[name])
+            if found < 3:  # results without the primary key, records compressed with zstd
+                for name in (
+                    "migrate_v3_set_aside_results",
+                    "create_results",
+                    "migrate_v3_copy_results",
+                    "migrate_v3_drop_results",
+                ):
+                    self.con.execute(statements()[name])
+            if found < SCHEMA_VERSION or not version:
+                self.con.execute(statements()["set_schema_version"], {"version": str(SCHEMA_VERSION)})
+        except BaseException:
+            try:
+                self.con.execute(statements()["tx_rollback"])
+            except duckdb.Error:  # a damaged file: the caller words the first error
+                pass
+            raise
+        self.con.execute(statements()["tx_commit"])
 
     def _has_table(self, table: str) -> bool:
         return bool(self.con.execute(statements()["has_table"], {"table": table}).fetchall())

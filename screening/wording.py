@@ -173,7 +173,32 @@ def _chain(cases: Sequence[tuple[pl.Expr, pl.Expr | str]], otherwise: pl.Expr | 
     return e
 
 
+#: rows worded at a time: the sentences' temporaries (every number formatted, every clause) are several
+#: times the frame's own size, so 10^6 buildings at once set a run's peak memory (issue 20)
+EXPLAIN_ROWS = 65_536
+
+
 def explain(
+    out: pl.DataFrame,
+    t: Thresholds,
+    *,
+    energy_factor: float,
+    energy_unit: str,
+    currency: str = "$",
+    rows: int = EXPLAIN_ROWS,
+) -> pl.DataFrame:
+    """:func:`explain_rows` over ``rows`` rows at a time (each row's texts are its own), in order."""
+    if out.height <= rows:
+        return explain_rows(out, t, energy_factor=energy_factor, energy_unit=energy_unit, currency=currency)
+    return pl.concat(
+        [
+            explain_rows(out.slice(k, rows), t, energy_factor=energy_factor, energy_unit=energy_unit, currency=currency)
+            for k in range(0, out.height, rows)
+        ]
+    )
+
+
+def explain_rows(
     out: pl.DataFrame, t: Thresholds, *, energy_factor: float, energy_unit: str, currency: str = "$"
 ) -> pl.DataFrame:
     """Add ``flag_texts``, ``verdict`` and ``waste_kind`` to the frame :func:`screening.screen.screen` returned.

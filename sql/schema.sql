@@ -133,8 +133,11 @@ CREATE TABLE IF NOT EXISTS results (
     excess_cost DOUBLE,
     flags VARCHAR,
     data_issues VARCHAR,
-    record VARCHAR,
-    PRIMARY KEY (run_id, building_id)
+    -- every column of the building as one JSON object, about 4 kB; zstd: DuckDB's own choice for it
+    -- took 7 s to write at 10^5 buildings and 2.6 times the space (measured, docs/performance.md)
+    record VARCHAR USING COMPRESSION zstd
+    -- one row per run and building, kept so by the code that records a run (runs/record.py checks it);
+    -- no PRIMARY KEY: its index was rewritten at every commit, 8-15 s of recording 10^5 buildings
 );
 
 -- name: create_run_rejects
@@ -149,6 +152,8 @@ CREATE TABLE IF NOT EXISTS rejects (
 
 -- Schema versions. 1: ddscreen 0.1 (buildings keyed by building_id alone; runs without files).
 -- 2: buildings, readings and weather kept per source file; runs record what they published.
+-- 3: results without the primary-key index, its JSON records compressed with zstd (the table is
+--    copied once, rows and order kept).
 
 -- name: get_schema_version
 SELECT value FROM meta WHERE key = 'schema_version';
@@ -178,3 +183,18 @@ DELETE FROM input_files;
 
 -- name: migrate_v2_runs_files
 ALTER TABLE runs ADD COLUMN IF NOT EXISTS files VARCHAR;
+
+-- name: migrate_v3_set_aside_results
+-- The results table of version 2 (PRIMARY KEY (run_id, building_id), records compressed as DuckDB
+-- chose) is set aside; create_results makes this version's, and the rows are copied into it in order.
+ALTER TABLE results RENAME TO results_v2;
+
+-- name: migrate_v3_copy_results
+INSERT INTO results BY NAME SELECT * FROM results_v2;
+
+-- name: migrate_v3_drop_results
+DROP TABLE results_v2;
+
+-- name: results_primary_keys
+-- The primary-key constraints of the results table (none from version 3 on).
+SELECT count(*) FROM duckdb_constraints() WHERE table_name = 'results' AND constraint_type = 'PRIMARY KEY';

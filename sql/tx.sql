@@ -1,4 +1,4 @@
--- Explicit transactions (DuckDB's context manager only closes; it never commits).
+-- Explicit transactions (DuckDB's context manager only closes; it never commits), and the session's settings.
 
 -- name: tx_begin
 BEGIN TRANSACTION;
@@ -8,3 +8,7 @@ COMMIT;
 
 -- name: tx_rollback
 ROLLBACK;
+
+-- name: session_quiet
+-- No progress bar: DuckDB draws one on stderr for a long statement (a cron mail, a log file).
+SET enable_progress_bar = false;

@@ -51,6 +51,17 @@ def test_estimate_is_linear_in_the_chunk_size():
     )
 
 
+def test_each_worker_adds_a_chunk_and_a_child():
+    r, b = 4_000_000, 100_000
+    one = memory.screening_bytes(r, b, 16384)
+    two = memory.screening_bytes(r, b, 16384, workers=2)
+    chunk = memory.BYTES_PER_CHUNK_READING * r * pipeline.chunk_size(16384, b) / b
+    assert two - one == pytest.approx(chunk + 2 * memory.CHILD_BASE_BYTES)
+    # as many workers as chunks at most, and none for a portfolio screened in one chunk
+    assert memory.screening_bytes(r, b, 16384, workers=64) == memory.screening_bytes(r, b, 16384, workers=7)
+    assert memory.screening_bytes(r, b, 0, workers=4) == memory.screening_bytes(r, b, 0)
+
+
 def test_check_refuses_a_run_larger_than_the_limit(tmp_path, monkeypatch):
     p = tmp_path / "readings.csv"
     p.write_text("h\n" + "x\n" * 1000)

@@ -366,6 +366,46 @@ def test_a_version_1_database_is_brought_up_to_date(tmp_path):
         assert store.rows("get_schema_version") == [(str(SCHEMA_VERSION),)]
 
 
+def test_a_version_2_database_loses_the_results_index_and_keeps_its_rows(tmp_path):
+    db = tmp_path / "v2.duckdb"
+    with Store(db) as store:  # this version's tables, then made into version 2's results table
+        store.con.execute("DROP TABLE results")
+        store.con.execute(
+            "CREATE TABLE results (run_id VARCHAR, building_id VARCHAR, rank INTEGER, tier VARCHAR, "
+            "needs_review BOOLEAN, ratio DOUBLE, actual_heating_kbtu DOUBLE, expected_heating_kbtu DOUBLE, "
+            "normal_heating_kbtu DOUBLE, excess_energy_kbtu DOUBLE, excess_cost DOUBLE, flags VARCHAR, "
+            "data_issues VARCHAR, record VARCHAR, PRIMARY KEY (run_id, building_id))"
+        )
+        store.con.execute(
+            "INSERT INTO results (run_id, building_id, rank, record) VALUES "
+            "('r1', 'B2', 1, '{\"a\": 1}'), ('r1', 'B1', 2, '{}')"
+        )
+        store.con.execute("UPDATE meta SET value = '2' WHERE key = 'schema_version'")
+        assert store.rows("results_primary_keys") == [(1,)]
+    with Store(db) as store:
+        assert store.rows("get_schema_version") == [(str(SCHEMA_VERSION),)]
+        assert store.rows("results_primary_keys") == [(0,)]
+        rows = store.con.execute("SELECT run_id, building_id, rank, record FROM results").fetchall()
+        assert rows == [("r1", "B2", 1, '{"a": 1}'), ("r1", "B1", 2, "{}")]  # rows and their order kept
+        cols = [r[0] for r in store.con.execute("DESCRIBE results").fetchall()]
+        assert cols[0] == "run_id" and cols[-1] == "record" and len(cols) == 14
+        store.con.execute("CHECKPOINT")
+        kinds = store.con.execute(
+            "SELECT DISTINCT compression FROM pragma_storage_info('results') WHERE column_name = 'record'"
+        ).fetchall()
+        assert ("ZSTD",) in kinds
+    with Store(db) as store:  # a second open changes nothing
+        assert store.con.execute("SELECT count(*) FROM results").fetchall() == [(2,)]
+
+
+def test_results_listing_a_building_twice_are_not_recorded():
+    from screening.runs import record
+
+    res = pl.DataFrame({"building_id": ["B1", "B2", "B1"]})
+    with pytest.raises(RuntimeError, match="listed twice.*B1"):
+        next(record.results_for_store("r1", res))
+
+
 # ---------------------------------------------------------------------------- the soak
 
 KILL_STAGES = ("after_load", "after_screen", "before_publish", "after_publish", "after_record")

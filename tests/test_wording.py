@@ -382,6 +382,8 @@ def test_vectorized_sentences_equal_the_per_building_ones(seed, unit):
         screen._mechanisms(t).alias("mechanisms"),
     )
     got = wording.explain(df, t, energy_factor=e, energy_unit=unit, currency="€")
+    # worded in pieces of 700 rows (5 pieces, the last short): the same frame
+    assert got.equals(wording.explain(df, t, energy_factor=e, energy_unit=unit, currency="€", rows=700))
     assert got.columns[-6:] == [*wording.TEXT_COLUMNS, "recoverable_basis"]
     assert not [c for c in got.columns if c.startswith("_")]
     compared = 0

@@ -398,11 +398,13 @@ def _worker_init() -> None:
 
 
 def _render_context():
-    """The multiprocessing context of every render child: a fork server that imports the renderer's heavy
-    modules once, each child forked from it (screening.lifeline first: there it makes the fork server die
-    with this process)."""
+    """The multiprocessing context of every child process of a run (the renderers, and the screening's
+    workers, ``screening/workers.py``): a fork server that imports the heavy modules once, each child
+    forked from it (screening.lifeline first: there it makes the fork server die with this process)."""
     ctx = multiprocessing.get_context("forkserver")
-    ctx.set_forkserver_preload(["screening.lifeline", "screening.render.pdf", "weasyprint", "pydyf"])
+    ctx.set_forkserver_preload(
+        ["screening.lifeline", "screening.render.pdf", "weasyprint", "pydyf", "screening.pipeline"]
+    )
     return ctx
 
 

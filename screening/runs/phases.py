@@ -136,7 +136,11 @@ def _run_locked(
     """
     bar = bar or Progress(False)
     need = memory.check(
-        files, cfg.run.chunk_buildings, ingest_chunk_mb=cfg.run.ingest_chunk_mb, store_memory_mb=cfg.run.store_memory_mb
+        files,
+        cfg.run.chunk_buildings,
+        ingest_chunk_mb=cfg.run.ingest_chunk_mb,
+        store_memory_mb=cfg.run.store_memory_mb,
+        workers=cfg.run.workers,
     )  # stops here, nothing changed, if it cannot fit
     t_start = time.perf_counter()
     # run_key is the one id a user sees (sheets, ranking.pdf, summary.json, stderr, status, history): the

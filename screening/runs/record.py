@@ -253,7 +253,13 @@ def results_for_store(run_id: str, res: pl.DataFrame, rows: int = RECORD_CHUNK) 
     """The rows of the ``results`` table, ``rows`` buildings at a time (at least one frame, maybe empty):
     the columns the store queries, and ``record``, every column of the building as one JSON object (keys
     sorted), written by :func:`json_records` in the bytes a ``json.dumps(row, default=str, sort_keys=True)``
-    per building wrote before (issue 20). A generator: each piece is built when it is inserted."""
+    per building wrote before (issue 20). A generator: each piece is built when it is inserted.
+
+    The table keeps one row per run and building without a primary-key index (schema version 3): a
+    building listed twice is a fault of this program, raised before anything is stored."""
+    if res["building_id"].n_unique() != res.height:
+        twice = res.filter(pl.col("building_id").is_duplicated())["building_id"].unique().sort()
+        raise RuntimeError(f"internal error: building(s) listed twice in the results: {twice.head(3).to_list()}")
     for k in range(0, max(res.height, 1), rows):
         yield _results_rows(run_id, res.slice(k, rows))
 

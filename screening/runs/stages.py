@@ -107,6 +107,7 @@ def screen(
             chunk_buildings=cfg.run.chunk_buildings,
             executor=executor,
             keep_periods=cfg.output.sheets,
+            workers=cfg.run.workers,
         )
     finally:
         if src is not None:

@@ -1,0 +1,70 @@
+"""Screening chunks on local worker processes (``[run] workers``, screening/workers.py): the results are
+those of one process, frame for frame, and a whole run writes the same tables byte for byte."""
+
+from __future__ import annotations
+
+import datetime as dt
+import json
+
+import polars as pl
+
+from screening import config as cfgmod
+from screening import pipeline, workers
+from screening.resources import sample_portfolio_dir
+from screening.window import analysis_window
+from tests.test_chunks import _inputs, _same
+
+
+def test_chunks_on_two_workers_equal_one_process():
+    b, r, w = _inputs(sample_portfolio_dir())
+    cfg = cfgmod.load(None, None)
+    window = analysis_window(dt.date(2026, 10, 15))
+    one = pipeline.screen_frames(b, r, w, cfg, window=window, fit_block=25)
+    # 200 buildings in chunks of 25: 8 chunks over 2 children, taken back in chunk order
+    two = pipeline.screen_frames(b, r, w, cfg, window=window, fit_block=25, chunk_buildings=25, workers=2)
+    assert "chunks_elsewhere" in two.timings and "regression" not in two.timings  # the chunks ran elsewhere
+    _same(one, two)
+
+
+def test_one_chunk_or_one_worker_stays_in_this_process():
+    assert workers.from_config(1, 8) is None
+    assert workers.from_config(4, 1) is None
+    ex = workers.from_config(4, 3)
+    assert isinstance(ex, workers.LocalWorkers) and ex.n == 3
+
+
+def test_a_failing_chunk_fails_the_screening_with_its_error():
+    b, r, w = _inputs(sample_portfolio_dir())
+    cfg = cfgmod.load(None, None)
+    window = analysis_window(dt.date(2026, 10, 15))
+    # a readings frame without its fuel column: the child's KeyError-like polars error comes back here
+    broken = r.drop("fuel")
+    try:
+        pipeline.screen_frames(b, broken, w, cfg, window=window, fit_block=50, chunk_buildings=50, workers=2)
+    except Exception as exc:  # noqa: BLE001 - the type is polars' own
+        assert "fuel" in str(exc)
+        assert type(exc.__cause__).__name__ == "_RemoteTraceback"  # raised in a child, handed back here
+    else:
+        raise AssertionError("a broken chunk must fail the screening")
+
+
+def test_run_with_two_workers_writes_the_tables_of_one_process(tmp_path, monkeypatch):
+    from screening import runner
+
+    monkeypatch.setattr(pipeline, "FIT_BLOCK", 50)  # the demo's 200 buildings in 4 chunks of 50
+    src = sample_portfolio_dir()
+    outs = {}
+    for n in (1, 2):
+        ov = {
+            "inputs": {k: str(src / f"{k}.csv") for k in ("buildings", "readings", "weather")},
+            "store": {"database": str(tmp_path / f"db{n}.duckdb")},
+            "analysis": {"as_of": "2026-10-15"},
+            "output": {"sheets": False},
+            "run": {"chunk_buildings": 50, "workers": n},
+        }
+        runner.run(overrides=ov, out_dir=str(tmp_path / f"out{n}"), force=True)
+        outs[n] = tmp_path / f"out{n}"
+    ids = {n: json.loads((outs[n] / "summary.json").read_text())["run_id"] for n in outs}
+    for name in ("ranking.csv", "audit_plan.csv", "data_issues.csv", "rejects.csv", "assumptions.csv"):
+        assert (outs[1] / name).read_text().replace(ids[1], "") == (outs[2] / name).read_text().replace(ids[2], "")
+    assert pl.read_csv(outs[2] / "ranking.csv").height == 200
