@@ -808,7 +808,7 @@ def _file_keys(data: dict) -> set[tuple[str, str]]:
 
 def config_hash(cfg: dict) -> str:
     """A stable hash of the settings that change results (paths excluded; [run] only says how a run is
-    executed: chunk sizes, the Dask cluster)."""
+    executed: chunk sizes, workers, the Dask cluster)."""
     relevant = {k: v for k, v in cfg.items() if k not in ("inputs", "store", "output", "run")}
     relevant["output"] = {"paper": cfg["output"]["paper"]}
     return hashlib.sha256(json.dumps(relevant, sort_keys=True, default=str).encode()).hexdigest()[:16]

@@ -61,6 +61,14 @@ class InputError(ScreeningError):
             msg += f"; expected {expected}"
         super().__init__(msg)
 
+    def __reduce__(self):
+        """Pickled with its fields (an error raised in a worker process reaches the run whole)."""
+        return (_input_error, (self.path, self.problem, self.line, self.column, self.value, self.expected))
+
+
+def _input_error(path, problem, line, column, value, expected) -> InputError:
+    return InputError(path, problem, line=line, column=column, value=value, expected=expected)
+
 
 class ConfigError(ScreeningError):
     """A bad configuration file or option: names the key and what is expected."""

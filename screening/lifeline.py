@@ -1,4 +1,5 @@
-"""Helper processes die with the process that started them (the sheet renderer's pool).
+"""Helper processes die with the process that started them (the sheet renderer's pool, and the
+``[run] workers`` that check and screen chunks, screening/workers.py).
 
 The renderer (``render.pdf._run_chunks``) starts its workers through a multiprocessing fork
 server: the main process starts the fork server, the fork server forks each worker. Killed

@@ -119,6 +119,7 @@ def load_inputs(
     force: bool = False,
     log=None,
     chunk_bytes: int | None = None,
+    workers: int = 1,
 ) -> list[FileLoad]:
     """Load new or changed input files into the store, all in one transaction.
 
@@ -127,6 +128,7 @@ def load_inputs(
     (default ``opts.chunk_bytes``, ``[run] ingest_chunk_mb``; 0 reads every file whole) is read, checked and
     written a chunk at a time inside the transaction (:mod:`screening.streaming`), which an error
     rolls back. A file whose content hash and reading options match its last load is not read again.
+    ``workers`` ≥ 2 (``[run] workers``) checks a streamed file's chunks on that many child processes.
     """
     log = log or (lambda msg: None)
     oh = _options_hash(opts)
@@ -156,7 +158,7 @@ def load_inputs(
             if loaded is _STREAM:
                 log(f"reading {kind} file {path} in chunks")
                 try:
-                    st = streaming.load_streamed(store, kind, path, opts, chunk_bytes=chunk)
+                    st = streaming.load_streamed(store, kind, path, opts, chunk_bytes=chunk, workers=workers)
                 except streaming.WholeFile as why:
                     log(f"reading {kind} file {path} whole ({why})")
                     streaming.forget_file(store, kind, path)

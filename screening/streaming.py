@@ -153,9 +153,69 @@ def _text_blocks(path: str, sc: Scan, size: int):
             yield block.decode(sc.encoding)
 
 
-def _raw_chunks(path: str, label: str, spec, opts: ReadOptions, kind: str, sc: Scan, size: int, notices: list[str]):
-    """The file's records as text frames (``csvread`` columns + ``_line``), a chunk at a time, with
-    each chunk's record rejects; the header's notices into ``notices``; ``(frame, rejects)`` pairs."""
+@dataclass(frozen=True)
+class _Plan:
+    """How every chunk of one file is read and checked (sent to the workers with each chunk)."""
+
+    label: str
+    kind: str
+    spec: tuple
+    opts: ReadOptions
+    delim: str
+    header_norm: list[str]
+    idx: list[int]
+    wanted: list[str]
+    columns: list[str]  # every column of the spec, required first: a chunk's frame gains the absent ones
+
+
+def _full(df: pl.DataFrame, columns: list[str]) -> pl.DataFrame:
+    """The chunk's frame with every column of the spec (absent ones empty, as the whole-file reader)."""
+    missing = [c for c in columns if c not in df.columns]
+    return df.with_columns(pl.lit(None, dtype=pl.String).alias(c) for c in missing) if missing else df
+
+
+def _checked(raw: pl.DataFrame, structural: list[dict], plan: _Plan) -> tuple[pl.DataFrame | None, pl.DataFrame, dict]:
+    """One chunk's records typed and checked: (rows to store or None, rejects, number-format counts)."""
+    tally: dict = {}
+    if not raw.height:
+        return None, ingest.rejects_frame(structural), tally
+    _whole_file_checks(plan.kind, raw, plan.opts)
+    typed, prob = ingest._typed_columns(raw, plan.spec, plan.label, plan.opts, None, tally)
+    del raw
+    if plan.kind == "readings":
+        good, rej = ingest.readings_checked(typed, prob, structural, plan.label)
+    else:
+        good, rej = ingest._combine(typed, prob, structural)
+    return good, rej, tally
+
+
+def _fast_checked(text: str, line: int, plan: _Plan) -> tuple[pl.DataFrame | None, pl.DataFrame, dict, int, int, int]:
+    """A chunk of whole lines without quotes (``line``: the physical line of its first), split and checked:
+    :func:`_checked`'s three, then the repeated header lines, the records and the record rejects."""
+    df, rej, rep = csvread._fast_chunk(text, line, plan.label, plan.delim, plan.header_norm, plan.idx, plan.wanted)
+    del text
+    n_rows, n_rej = df.height, len(rej)
+    return (*_checked(_full(df, plan.columns), rej, plan), rep, n_rows, n_rej)
+
+
+def _checked_chunks(
+    path: str,
+    label: str,
+    spec,
+    opts: ReadOptions,
+    kind: str,
+    sc: Scan,
+    size: int,
+    notices: list[str],
+    tally: dict,
+    workers: int = 1,
+):
+    """The file's records, typed and checked a chunk at a time: ``(rows to store or None, rejects)`` pairs in
+    the file's order; the header's notices into ``notices``, the number-format counts added into ``tally``.
+
+    Without quotes every line is a record, so the chunks are independent: with ``workers`` ≥ 2 they are
+    split and checked on that many child processes (``screening.workers.in_order``) while this process
+    stores the ones already checked; the pairs are those of one process, in the same order."""
     required = [c for c, _, _, r, _ in spec if r]
     optional = [c for c, _, _, r, _ in spec if not r]
     mapping = dict(opts.columns.get(kind) or {}) or None
@@ -187,38 +247,59 @@ def _raw_chunks(path: str, label: str, spec, opts: ReadOptions, kind: str, sc: S
         if kind == "readings" and exc.problem == "missing required column" and exc.column == "period_start":
             raise WholeFile("read dates") from None  # periods from read dates: per meter over the whole file
         raise
-    idx = [seen[c] for c in wanted]
+    plan = _Plan(
+        label, kind, tuple(spec), opts, delim, header_norm, [seen[c] for c in wanted], wanted, required + optional
+    )
     repeated = 0
     n_rows = n_rej = 0
 
-    def full(df: pl.DataFrame) -> pl.DataFrame:
-        for c in required + optional:
-            if c not in df.columns:
-                df = df.with_columns(pl.lit(None, dtype=pl.String).alias(c))
-        return df
+    def add(counts: dict) -> None:
+        for k, v in counts.items():
+            tally[k] = tally.get(k, 0) + v
 
     if not sc.quotes:
-        line, text = 2, first[first_nl + 1 :]
-        while True:
-            if text:
-                df, rej, rep = csvread._fast_chunk(text, line, label, delim, header_norm, idx, wanted)
-                line += text.count("\n")
-                repeated += rep
-                n_rows += df.height
-                n_rej += len(rej)
-                yield full(df), rej
-            text = next(blocks, "")
-            if not text:
-                break
+
+        def pieces():  # (text, its first line) of every chunk after the header
+            line, text = 2, first[first_nl + 1 :]
+            while True:
+                if text:
+                    yield text, line, plan
+                    line += text.count("\n")
+                text = next(blocks, "")
+                if not text:
+                    break
+
+        if workers >= 2 and Path(path).stat().st_size > 2 * size:
+            from .workers import in_order
+
+            checked = in_order(_fast_checked, pieces(), workers)
+        else:
+            checked = (_fast_checked(*piece) for piece in pieces())
+        for good, rej, counts, rep, rows, rejected in checked:
+            repeated += rep
+            n_rows += rows
+            n_rej += rejected
+            add(counts)
+            yield good, rej
     else:
         batches = csvread.slow_batches(
-            reader, label, delim, header_norm, idx, wanted, len(header), sc.n_lines, batch_records=max(1, size // 64)
+            reader,
+            label,
+            delim,
+            header_norm,
+            plan.idx,
+            wanted,
+            len(header),
+            sc.n_lines,
+            batch_records=max(1, size // 64),
         )
         for df, rej, rep in batches:
             repeated += rep
             n_rows += df.height
             n_rej += len(rej)
-            yield full(df), rej
+            good, rejects, counts = _checked(_full(df, plan.columns), rej, plan)
+            add(counts)
+            yield good, rejects
     if repeated:
         notices.append(f"{label}: skipped {repeated} repeated header line(s)")
     if not n_rows and not n_rej:
@@ -239,14 +320,15 @@ def _whole_file_checks(kind: str, raw: pl.DataFrame, opts: ReadOptions) -> None:
 
 
 def load_streamed(
-    store: Store, kind: str, path: str, opts: ReadOptions, *, chunk_bytes: int = STREAM_CHUNK_BYTES
+    store: Store, kind: str, path: str, opts: ReadOptions, *, chunk_bytes: int = STREAM_CHUNK_BYTES, workers: int = 1
 ) -> Streamed:
     """Read, check and store one buildings or readings file a chunk at a time.
 
     Runs inside the caller's transaction: the file's earlier rows and rejects are deleted first, and
     an ``InputError`` (or :class:`WholeFile`) part-way leaves the rollback to the caller. Raises
     :class:`WholeFile` before or while storing when the file needs the whole-file path; the caller then
-    deletes this file's rows again (:func:`forget_file`) and reads it whole.
+    deletes this file's rows again (:func:`forget_file`) and reads it whole. ``workers`` ≥ 2 checks the
+    chunks of a file without quotes on that many child processes (``[run] workers``; the same rows).
     """
     label = str(path)
     try:
@@ -260,17 +342,7 @@ def load_streamed(
     n_rows = n_rej = 0
     p = {"path": label}
     insert = _STATEMENTS[kind]["insert"]
-    for raw, structural in _raw_chunks(path, label, spec, opts, kind, sc, chunk_bytes, notices):
-        if raw.height:
-            _whole_file_checks(kind, raw, opts)
-            typed, prob = ingest._typed_columns(raw, spec, label, opts, None, tally)
-            del raw
-            if kind == "readings":
-                good, rej = ingest.readings_checked(typed, prob, structural, label)
-            else:
-                good, rej = ingest._combine(typed, prob, structural)
-        else:
-            good, rej = None, ingest.rejects_frame(structural)
+    for good, rej in _checked_chunks(path, label, spec, opts, kind, sc, chunk_bytes, notices, tally, workers):
         if good is not None and good.height:
             store.execute(insert, p, **{f"stage_{kind}": good})
             n_rows += good.height

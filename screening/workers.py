@@ -16,8 +16,9 @@ them mid-chunk (``render.pdf._stop_workers``).
 
 from __future__ import annotations
 
-from collections.abc import Iterator
-from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
+from collections import deque
+from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import Future, ProcessPoolExecutor, wait
 from typing import Any
 
 import polars as pl
@@ -41,39 +42,47 @@ class LocalWorkers(pipeline.ChunkExecutor):
         self.n = n
 
     def screen_parts(self, chunks: Iterator[tuple[pl.DataFrame, pl.DataFrame]], common: dict) -> list:
-        from .render.pdf import _WAIT_S, _main_not_reimported, _render_context, _stop_workers
+        return list(in_order(_screen_chunk, chunks, self.n, common))
 
-        results: dict[int, Any] = {}
-        in_flight: dict[Future, int] = {}
-        # the children start on the first submits: __main__ stays hidden from them while the pool lives
-        with _main_not_reimported():
-            pool = ProcessPoolExecutor(
-                max_workers=self.n, mp_context=_render_context(), initializer=_child_init, initargs=(common,)
-            )
-            try:
-                k = 0
-                pending = iter(chunks)
-                more = True
-                while more or in_flight:
-                    while more and len(in_flight) <= self.n:  # one chunk waiting beside each child's
-                        nxt = next(pending, None)
-                        if nxt is None:
-                            more = False
-                            break
-                        in_flight[pool.submit(_screen_chunk, *nxt)] = k
-                        k += 1
-                        del nxt
-                    if not in_flight:
+
+def in_order(fn: Callable[..., Any], items: Iterable[tuple], n: int, common: dict | None = None) -> Iterator[Any]:
+    """``fn(*item)`` of every item on ``n`` child processes, the results yielded in the items' order.
+
+    At most ``n + 1`` items are in flight (one waiting beside each child's), so the items are taken from
+    ``items`` as the children need them and a caller consumes each result while the children go on (the
+    streamed load stores a chunk while the next ones are checked). ``common`` is handed to every child
+    once, when it starts (:data:`_COMMON`). An exception of ``fn`` is raised here, where its result would
+    have been; an exception here (or the caller's, at a ``yield``) stops the children mid-item.
+    """
+    from .render.pdf import _WAIT_S, _main_not_reimported, _render_context, _stop_workers
+
+    flight: deque[Future] = deque()
+    # the children start on the first submits: __main__ stays hidden from them while the pool lives
+    with _main_not_reimported():
+        pool = ProcessPoolExecutor(
+            max_workers=n, mp_context=_render_context(), initializer=_child_init, initargs=(common or {},)
+        )
+        try:
+            pending = iter(items)
+            more = True
+            while more or flight:
+                while more and len(flight) <= n:
+                    item = next(pending, None)
+                    if item is None:
+                        more = False
                         break
-                    # short waits: a stop signal runs its handler in the main thread (render.pdf._WAIT_S)
-                    done, _ = wait(in_flight, timeout=_WAIT_S, return_when=FIRST_COMPLETED)
-                    for f in done:
-                        results[in_flight.pop(f)] = f.result()
-            except BaseException:
-                _stop_workers(pool)
-                raise
-            pool.shutdown(wait=True)
-        return [results[i] for i in range(len(results))]
+                    flight.append(pool.submit(fn, *item))
+                    del item
+                if not flight:
+                    break
+                # short waits: a stop signal runs its handler in the main thread (render.pdf._WAIT_S)
+                while not flight[0].done():
+                    wait([flight[0]], timeout=_WAIT_S)
+                yield flight.popleft().result()
+        except BaseException:
+            _stop_workers(pool)
+            raise
+        pool.shutdown(wait=True)
 
 
 def _child_init(common: dict) -> None:

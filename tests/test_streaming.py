@@ -32,18 +32,21 @@ def _tables(store: Store) -> dict[str, pl.DataFrame]:
     }
 
 
-def _load(files: dict, opts: ReadOptions, chunk_bytes: int, logs: list[str] | None = None):
+def _load(files: dict, opts: ReadOptions, chunk_bytes: int, logs: list[str] | None = None, workers: int = 1):
     store = Store(":memory:")
-    loads = pipeline.load_inputs(store, files, opts, chunk_bytes=chunk_bytes, log=None if logs is None else logs.append)
+    loads = pipeline.load_inputs(
+        store, files, opts, chunk_bytes=chunk_bytes, log=None if logs is None else logs.append, workers=workers
+    )
     return store, [(f.kind, f.path, f.rows, f.rejected, f.notices) for f in loads]
 
 
-def _same(files: dict, opts: ReadOptions | None = None, chunk: int = SMALL) -> list[str]:
-    """Load ``files`` whole and in chunks; assert the same stores and loads; return the chunked run's log."""
+def _same(files: dict, opts: ReadOptions | None = None, chunk: int = SMALL, workers: int = 1) -> list[str]:
+    """Load ``files`` whole and in chunks (checked on ``workers`` processes); assert the same stores and
+    loads; return the chunked run's log."""
     opts = opts or ReadOptions()
     whole, loads_w = _load(files, opts, 0)
     logs: list[str] = []
-    part, loads_p = _load(files, opts, chunk, logs)
+    part, loads_p = _load(files, opts, chunk, logs, workers)
     assert loads_p == loads_w
     tw, tp = _tables(whole), _tables(part)
     for name in tw:
@@ -99,6 +102,26 @@ def test_chunks_store_what_the_whole_file_path_stores(tmp_path):
     assert lines[-1] - lines[0] > 100  # far more than a 300-byte chunk apart
     # and the chunked load really went through more than one chunk
     assert Path(files["readings"][0]).stat().st_size > 20 * SMALL
+
+
+def test_chunks_checked_on_two_workers_store_what_the_whole_file_path_stores(tmp_path):
+    files = _messy(tmp_path)
+    logs = _same(files, workers=2)  # dozens of 300-byte chunks, two at a time on child processes
+    assert any("in chunks" in m for m in logs) and not any(" whole (" in m for m in logs)
+
+
+def test_what_a_worker_finds_only_the_whole_file_tells_sends_the_file_whole(tmp_path):
+    files = _messy(tmp_path)
+    rd = Path(files["readings"][0])
+    rows = rd.read_text().splitlines()
+    i = next(k for k in range(200, len(rows)) if int(rows[k].split(",")[2][-2:]) > 12)
+    f = rows[i].split(",")
+    y, m, d = f[2].split("-")
+    f[2] = f"{d}/{m}/{y}"  # a day/month date far into the file (the day tells), without [reading] date_order
+    rows[i] = ",".join(f)
+    rd.write_text("\n".join(rows) + "\n", encoding="utf-8")
+    logs = _same(files, workers=2)  # the worker's WholeFile reaches the load: the file is read whole
+    assert any("readings.csv whole (slash dates" in m for m in logs)
 
 
 def test_quoted_and_latin1_files_in_chunks(tmp_path):

@@ -48,7 +48,7 @@ def load_inputs(
     """Load the named files into the store (new or changed ones only) and read what the screening needs."""
     opts = pipeline.read_options(cfg)
     t = time.perf_counter()
-    loads = pipeline.load_inputs(store, files, opts, force=force, log=log.info)
+    loads = pipeline.load_inputs(store, files, opts, force=force, log=log.info, workers=workers(cfg.run.workers))
     timings["ingest"] = round(time.perf_counter() - t, 4)
     for fl in loads:
         log.info("%s %s: %s (%d rows, %d rejected)", fl.kind, fl.path, fl.status, fl.rows, fl.rejected)
@@ -107,7 +107,7 @@ def screen(
             chunk_buildings=cfg.run.chunk_buildings,
             executor=executor,
             keep_periods=cfg.output.sheets,
-            workers=cfg.run.workers,
+            workers=workers(cfg.run.workers),
         )
     finally:
         if src is not None:
@@ -319,7 +319,8 @@ def _sheets(tmp, res, ld, cfg: Settings, disp, run_key, paper, timings, bar, exe
 
 
 def workers(wanted: int) -> int:
-    """Sheet renderers: as configured, at most one per core of this machine."""
+    """Processes (``[output] workers``: sheet renderers; ``[run] workers``: chunks checked and screened side by
+    side): as configured, at most one per core of this machine."""
     cores = os.cpu_count() or 1
     if wanted > cores:
         log.info("workers = %d capped to the %d core(s) of this machine", wanted, cores)
