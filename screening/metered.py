@@ -482,7 +482,7 @@ def reading_issues(
     return pl.concat(parts).sort(["building_id", "code"])
 
 
-def _prev_max(value: pl.Expr, first: pl.Expr, *, inclusive: bool = False) -> pl.Expr:
+def prev_max(value: pl.Expr, first: pl.Expr, *, inclusive: bool = False) -> pl.Expr:
     """The running maximum of ``value`` (an integer, such as a day ordinal, ``|value| < 2**31``) over the
     earlier rows of its group, null on the group's first row (``inclusive``: over the rows up to this one).
 
@@ -497,7 +497,7 @@ def _prev_max(value: pl.Expr, first: pl.Expr, *, inclusive: bool = False) -> pl.
     return pl.when(~first).then(run.cum_max().shift(1) - lift)
 
 
-def _starts(cols: Sequence[str]) -> pl.Expr:
+def group_starts(cols: Sequence[str]) -> pl.Expr:
     """True on each row whose ``cols`` differ from the previous row's (row 0 included; nulls compare equal)."""
     return (pl.int_range(pl.len()) == 0) | pl.any_horizontal(*[pl.col(c).ne_missing(pl.col(c).shift(1)) for c in cols])
 
@@ -556,7 +556,7 @@ def _reading_issues(
         r.filter((pl.col("period_end") >= pl.col("_lb")) & (pl.col("period_start") <= pl.col("span_end")))
         .select(*same, "_ln")
         .sort(same)
-        .with_columns(_starts(keys).alias("_k0"), ~_starts(same).alias("_again"))
+        .with_columns(group_starts(keys).alias("_k0"), ~group_starts(same).alias("_again"))
     )
     # only the reads that share their key get a line list (most keys occur once)
     dup = (
@@ -570,7 +570,7 @@ def _reading_issues(
     parts.append(dup)
     ov = (
         hist.filter(~pl.col("_again"))
-        .with_columns(_prev_max(_ordinal("period_end"), pl.col("_k0")).alias("_prev_end"))
+        .with_columns(prev_max(_ordinal("period_end"), pl.col("_k0")).alias("_prev_end"))
         .filter(pl.col("_prev_end") >= _ordinal("period_start"))
         .rechunk()  # (polars 2.1's format panics on columns chunked unlike each other)
         .with_columns(pl.col("_prev_end").cast(pl.Int32).cast(pl.Date))
@@ -598,10 +598,10 @@ def _reading_issues(
             pl.min_horizontal(_ordinal("period_end"), _ordinal("span_end")).alias("_e"),
         )
         .sort(["building_id", "_s", "_e"])
-        .with_columns(_starts(["building_id"]).alias("_b0"))
+        .with_columns(group_starts(["building_id"]).alias("_b0"))
         .with_columns(
-            _prev_max(pl.col("_e"), pl.col("_b0")).alias("_pe"),
-            _prev_max(pl.col("_e"), pl.col("_b0"), inclusive=True).alias("_emax"),
+            prev_max(pl.col("_e"), pl.col("_b0")).alias("_pe"),
+            prev_max(pl.col("_e"), pl.col("_b0"), inclusive=True).alias("_emax"),
             pl.int_range(pl.len(), dtype=pl.Int64).alias("_i"),
             pl.col("_est").cast(pl.Int64).cum_sum().alias("_ecum"),
         )
