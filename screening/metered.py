@@ -812,6 +812,10 @@ def estimated_run_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, min_run
         ``building_id, code, detail, blocking``, one row per building, runs joined with "; ".
     """
     _require(spans, "spans", ("building_id", "span_start", "span_end"))
+    if "estimated" in readings.columns:  # only buildings with min_run estimated heating-fuel reads can have a run
+        est = _heat(readings).filter(pl.col("estimated").cast(pl.Boolean).fill_null(False))
+        ids = est.group_by("building_id").len().filter(pl.col("len") >= max(min_run, 1))["building_id"]
+        readings = readings.filter(pl.col("building_id").is_in(ids.implode()))
     runs = estimated_runs(readings, min_run=min_run).join(
         spans.select("building_id", "span_start", "span_end"), on="building_id", how="inner"
     )
