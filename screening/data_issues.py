@@ -400,6 +400,8 @@ def filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
 
 def other_fuel_only(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
     """Buildings whose readings are all of fuels other than their heating fuel (``no_heating_fuel_readings``)."""
+    none = conv.group_by("building_id").agg(pl.col("is_heating_fuel").any().alias("_any")).filter(~pl.col("_any"))
+    conv = conv.filter(pl.col("building_id").is_in(none["building_id"].implode()))  # (their fuels only)
     per = conv.group_by("building_id").agg(
         pl.col("is_heating_fuel").any().alias("_any"), pl.col("fuel").unique().sort().str.join(", ").alias("_fuels")
     )
