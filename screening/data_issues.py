@@ -114,37 +114,44 @@ def _ranks(x: np.ndarray) -> np.ndarray:
     return rank
 
 
-def _group_stats(
-    key: np.ndarray, x: np.ndarray, *, rank: np.ndarray | None = None, at: np.ndarray | None = None
-) -> tuple[np.ndarray, ...]:
-    """Count, median and sum of ``x`` [any unit] over the rows of each ``key`` (integers ≥ 0; ``x`` finite), per row.
-
-    The median is polars' own: the middle value, or ``lo + (hi − lo)·0.5`` between the two middle ones;
-    the sum is sequential (exact for a group of two, the only sums used here). With ``at``, the
-    statistics of ``x``'s groups are looked up for the keys ``at`` instead (count 0, median NaN and sum 0
-    where ``x`` has no row of that key); ``rank``, when given, orders ``x`` as :func:`_ranks` does. One
-    sort of the rows by key and value instead of a grouping.
-    """
-    if rank is None:
-        rank = _ranks(x)
-    o = np.argsort(key * (int(rank.max(initial=0)) + 1) + rank, kind="stable")  # by key, then value (keys ≥ 0)
-    k, v = key[o], x[o]
+def _sorted_stats(k: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Over rows sorted by key ``k`` and, within a key, by value ``v``: each group's key, count, median and
+    sum, and the group number of each row. The median is polars' own: the middle value, or
+    ``lo + (hi − lo)·0.5`` between the two middle ones; the sum is sequential (exact for a group of two,
+    the only sums used here)."""
     new = np.ones(len(k), dtype=bool)
     new[1:] = k[1:] != k[:-1]
     st = np.flatnonzero(new)
     n = np.diff(np.append(st, len(k)))
     lo, hi = v[st + (n - 1) // 2], v[st + n // 2]
-    med = lo + (hi - lo) * 0.5
     tot = np.add.reduceat(v, st) if len(st) else np.zeros(0)
-    if at is None:
-        g = np.empty(len(k), dtype=np.int64)
-        g[o] = np.cumsum(new) - 1
-        return n[g], med[g], tot[g]
-    if not len(st):
-        return np.zeros(len(at), dtype=np.int64), np.full(len(at), np.nan), np.zeros(len(at))
-    i = np.minimum(np.searchsorted(k[st], at), len(st) - 1)
-    found = k[st][i] == at
-    return np.where(found, n[i], 0), np.where(found, med[i], np.nan), np.where(found, tot[i], 0.0)
+    return k[st], n, lo + (hi - lo) * 0.5, tot, np.cumsum(new) - 1
+
+
+def _group_stats(
+    key: np.ndarray, x: np.ndarray, rank: np.ndarray, within: np.ndarray | None = None
+) -> tuple[np.ndarray, ...]:
+    """Count, median and sum of ``x`` [any unit] over the rows of each ``key`` (integers ≥ 0; ``x`` finite),
+    per row (:func:`_sorted_stats`); ``rank`` orders ``x`` (:func:`_ranks`). With ``within`` (a mask), also
+    the same over the group's rows inside the mask (count 0, median NaN and sum 0 where there are none).
+    One sort of the rows by key and value instead of a grouping.
+    """
+    o = np.argsort(key * (int(rank.max(initial=0)) + 1) + rank, kind="stable")  # by key, then value (keys ≥ 0)
+    k, v = key[o], x[o]
+    keys, n, med, tot, g_sorted = _sorted_stats(k, v)
+    g = np.empty(len(k), dtype=np.int64)
+    g[o] = g_sorted
+    out = (n[g], med[g], tot[g])
+    if within is None:
+        return out
+    w = within[o]
+    kw, nw, medw, totw, _ = _sorted_stats(k[w], v[w])  # (a subset of sorted rows is sorted)
+    if not len(kw):
+        return (*out, np.zeros(len(x), dtype=np.int64), np.full(len(x), np.nan), np.zeros(len(x)))
+    i = np.minimum(np.searchsorted(kw, keys), len(kw) - 1)
+    found = kw[i] == keys
+    n_in, med_in, tot_in = np.where(found, nw[i], 0), np.where(found, medw[i], np.nan), np.where(found, totw[i], 0.0)
+    return (*out, n_in[g], med_in[g], tot_in[g])
 
 
 def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, isolation: float = 1.0) -> pl.DataFrame:
@@ -179,11 +186,10 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
     meter = heat["_gm"].to_numpy()
     # only months of substantial use: summer use of a heating fuel varies by large factors on its own
     rank = _ranks(x)
-    mmed = _group_stats(meter, x, rank=rank)[1]
+    mmed = _group_stats(meter, x, rank)[1]
     big = x >= 0.5 * mmed
     grp = meter * 16 + heat["_m"].to_numpy()  # the meter and calendar month
-    n, med, tot = _group_stats(grp[big], x[big], rank=rank[big], at=grp)
-    n_all, med_all, tot_all = _group_stats(grp, x, rank=rank)
+    n_all, med_all, tot_all, n, med, tot = _group_stats(grp, x, rank, within=big)
     heat = heat.with_columns(
         pl.Series("_mmed", mmed),
         pl.Series("_big", big),
