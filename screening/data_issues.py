@@ -96,14 +96,62 @@ def spike(q: pl.Expr, over: list[str], isolation: float) -> pl.Expr:
     from both, in its own direction, or be ``UNIT_ERROR_FACTOR_ANY`` times off on its own. A lost decimal
     point, a wrong unit on one bill or a catch-up after estimated reads is a spike; waste that began, or a
     building that changed, moves a run of bills together (a step), which this leaves to the comparisons of
-    the whole span.
+    the whole span. The rows must be sorted by ``over`` and time (each series' bills together).
     """
-    prev = q.shift(1).over(over).fill_null(1.0)
-    nxt = q.shift(-1).over(over).fill_null(1.0)
+    first = metered.group_starts(over)
+    prev = pl.when(first).then(None).otherwise(q.shift(1)).fill_null(1.0)
+    nxt = pl.when(first.shift(-1).fill_null(True)).then(None).otherwise(q.shift(-1)).fill_null(1.0)
     hi = (q >= isolation * prev) & (q >= isolation * nxt)
     lo = (q * isolation <= prev) & (q * isolation <= nxt)
     far = (q >= UNIT_ERROR_FACTOR_ANY) | (q * UNIT_ERROR_FACTOR_ANY <= 1)
     return (pl.when(q >= 1).then(hi).otherwise(lo) | far).fill_null(False)
+
+
+def _ranks(x: np.ndarray) -> np.ndarray:
+    """Each value's place in ``x`` sorted (0, 1, …; ties in any order) [-]."""
+    rank = np.empty(len(x), dtype=np.int64)
+    rank[np.argsort(x)] = np.arange(len(x))
+    return rank
+
+
+def _sorted_stats(k: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Over rows sorted by key ``k`` and, within a key, by value ``v``: each group's key, count, median and
+    sum, and the group number of each row. The median is polars' own: the middle value, or
+    ``lo + (hi − lo)·0.5`` between the two middle ones; the sum is sequential (exact for a group of two,
+    the only sums used here)."""
+    new = np.ones(len(k), dtype=bool)
+    new[1:] = k[1:] != k[:-1]
+    st = np.flatnonzero(new)
+    n = np.diff(np.append(st, len(k)))
+    lo, hi = v[st + (n - 1) // 2], v[st + n // 2]
+    tot = np.add.reduceat(v, st) if len(st) else np.zeros(0)
+    return k[st], n, lo + (hi - lo) * 0.5, tot, np.cumsum(new) - 1
+
+
+def _group_stats(
+    key: np.ndarray, x: np.ndarray, rank: np.ndarray, within: np.ndarray | None = None
+) -> tuple[np.ndarray, ...]:
+    """Count, median and sum of ``x`` [any unit] over the rows of each ``key`` (integers ≥ 0; ``x`` finite),
+    per row (:func:`_sorted_stats`); ``rank`` orders ``x`` (:func:`_ranks`). With ``within`` (a mask), also
+    the same over the group's rows inside the mask (count 0, median NaN and sum 0 where there are none).
+    One sort of the rows by key and value instead of a grouping.
+    """
+    o = np.argsort(key * (int(rank.max(initial=0)) + 1) + rank, kind="stable")  # by key, then value (keys ≥ 0)
+    k, v = key[o], x[o]
+    keys, n, med, tot, g_sorted = _sorted_stats(k, v)
+    g = np.empty(len(k), dtype=np.int64)
+    g[o] = g_sorted
+    out = (n[g], med[g], tot[g])
+    if within is None:
+        return out
+    w = within[o]
+    kw, nw, medw, totw, _ = _sorted_stats(k[w], v[w])  # (a subset of sorted rows is sorted)
+    if not len(kw):
+        return (*out, np.zeros(len(x), dtype=np.int64), np.full(len(x), np.nan), np.zeros(len(x)))
+    i = np.minimum(np.searchsorted(kw, keys), len(kw) - 1)
+    found = kw[i] == keys
+    n_in, med_in, tot_in = np.where(found, nw[i], 0), np.where(found, medw[i], np.nan), np.where(found, totw[i], 0.0)
+    return (*out, n_in[g], med_in[g], tot_in[g])
 
 
 def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, isolation: float = 1.0) -> pl.DataFrame:
@@ -120,18 +168,47 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
     )
     heat = (
         conv.select("building_id", "meter_id", "fuel", "period_start", "period_end", "days", "energy_kbtu")
-        .join(b.select("building_id", "heating_fuel"), on="building_id")
+        .join(b.select("building_id", "heating_fuel"), on="building_id", how="left", maintain_order="left")
         .filter((pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
-    )
+    )  # (a left join, its unmatched rows dropped by the filter: quicker than an inner join)
     if heat.height == 0:
         return empty
     mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
-    heat = heat.with_columns((pl.col("energy_kbtu") / pl.col("days")).alias("_upd"), mid.dt.month().alias("_m"))
+    heat = (
+        heat.sort("building_id", "meter_id", "period_start")
+        .with_columns((pl.col("energy_kbtu") / pl.col("days")).alias("_upd"), mid.dt.month().alias("_m"))
+        .with_columns(metered.group_starts(["building_id", "meter_id"]).cum_sum().cast(pl.Int64).alias("_gm"))
+    )
+    upd = heat["_upd"]
+    if upd.null_count() or not upd.is_finite().all():  # (the sort-based statistics need finite numbers)
+        return _unit_error_windows(heat, factor, isolation)
+    x = upd.to_numpy()
+    meter = heat["_gm"].to_numpy()
     # only months of substantial use: summer use of a heating fuel varies by large factors on its own
-    heat = heat.with_columns(pl.col("_upd").median().over("building_id", "meter_id").alias("_mmed"))
+    rank = _ranks(x)
+    mmed = _group_stats(meter, x, rank)[1]
+    big = x >= 0.5 * mmed
+    grp = meter * 16 + heat["_m"].to_numpy()  # the meter and calendar month
+    n_all, med_all, tot_all, n, med, tot = _group_stats(grp, x, rank, within=big)
+    heat = heat.with_columns(
+        pl.Series("_mmed", mmed),
+        pl.Series("_big", big),
+        pl.Series("_med", med).fill_nan(None),
+        pl.Series("_n", n, dtype=pl.UInt32),
+        pl.Series("_sum", tot),
+        pl.Series("_n_all", n_all, dtype=pl.UInt32),
+        pl.Series("_sum_all", tot_all),
+        pl.Series("_med_all", med_all),
+    )
+    return _unit_error_odd(heat, factor, isolation)
+
+
+def _unit_error_windows(heat: pl.DataFrame, factor: float, isolation: float) -> pl.DataFrame:
+    """:func:`unit_error_issues_block`'s statistics as polars windows (where a use per day is missing or not finite)."""
+    heat = heat.with_columns(pl.col("_upd").median().over("_gm").alias("_mmed"))
     heat = heat.with_columns((pl.col("_upd") >= 0.5 * pl.col("_mmed")).alias("_big"))
     big = pl.col("_upd").filter(pl.col("_big"))
-    grp = ["building_id", "meter_id", "_m"]
+    grp = ["_gm", "_m"]
     heat = heat.with_columns(
         big.median().over(grp).alias("_med"),
         big.count().over(grp).alias("_n"),
@@ -140,6 +217,11 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
         pl.col("_upd").sum().over(grp).alias("_sum_all"),
         pl.col("_upd").median().over(grp).alias("_med_all"),
     )
+    return _unit_error_odd(heat, factor, isolation)
+
+
+def _unit_error_odd(heat: pl.DataFrame, factor: float, isolation: float) -> pl.DataFrame:
+    """The likely_unit_error issues of :func:`unit_error_issues_block` from its statistics per reading."""
     # the reading against the same month of the other years: their median; with two readings the
     # median sits between them, so each is compared with the other. A month of substantial use whose
     # other years were small (a summer bill ×100) is compared with all of them, and counts only from
@@ -169,11 +251,13 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
         )
         .then(all_)
     )
-    heat = heat.sort("building_id", "meter_id", "period_start").with_columns(q.alias("_q"))
-    heat = heat.with_columns(spike(pl.col("_q"), ["building_id", "meter_id"], isolation).alias("_spike"))
+    heat = heat.with_columns(q.alias("_q"))  # (in meter and date order)
+    heat = heat.with_columns(spike(pl.col("_q"), ["_gm"], isolation).alias("_spike"))
     odd = heat.filter(((pl.col("_q") >= factor) | (pl.col("_q") * factor <= 1)) & pl.col("_spike"))
     if odd.height == 0:
-        return empty
+        return pl.DataFrame(
+            schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
+        )
     return _odd_bills(
         odd,
         pl.col("_q"),
@@ -322,6 +406,8 @@ def filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
 
 def other_fuel_only(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
     """Buildings whose readings are all of fuels other than their heating fuel (``no_heating_fuel_readings``)."""
+    none = conv.group_by("building_id").agg(pl.col("is_heating_fuel").any().alias("_any")).filter(~pl.col("_any"))
+    conv = conv.filter(pl.col("building_id").is_in(none["building_id"].implode()))  # (their fuels only)
     per = conv.group_by("building_id").agg(
         pl.col("is_heating_fuel").any().alias("_any"), pl.col("fuel").unique().sort().str.join(", ").alias("_fuels")
     )

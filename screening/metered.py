@@ -482,6 +482,26 @@ def reading_issues(
     return pl.concat(parts).sort(["building_id", "code"])
 
 
+def prev_max(value: pl.Expr, first: pl.Expr, *, inclusive: bool = False) -> pl.Expr:
+    """The running maximum of ``value`` (an integer, such as a day ordinal, ``|value| < 2**31``) over the
+    earlier rows of its group, null on the group's first row (``inclusive``: over the rows up to this one).
+
+    The rows must be sorted by group, ``first`` true on each group's first row (row 0 included): the same
+    as ``value.cum_max().shift(1).over(group)``, as one pass without a grouping (the group's running
+    number lifts its values above every earlier group's).
+    """
+    lift = first.cast(pl.Int64).cum_sum() * 2**32 + 2**31
+    run = value.cast(pl.Int64) + lift
+    if inclusive:
+        return run.cum_max() - lift
+    return pl.when(~first).then(run.cum_max().shift(1) - lift)
+
+
+def group_starts(cols: Sequence[str]) -> pl.Expr:
+    """True on each row whose ``cols`` differ from the previous row's (row 0 included; nulls compare equal)."""
+    return (pl.int_range(pl.len()) == 0) | pl.any_horizontal(*[pl.col(c).ne_missing(pl.col(c).shift(1)) for c in cols])
+
+
 def _reading_issues(
     readings: pl.DataFrame,
     spans: pl.DataFrame,
@@ -525,17 +545,25 @@ def _reading_issues(
         ).alias("_est"),
         (pl.col("is_heating_fuel") if "is_heating_fuel" in readings.columns else pl.lit(True)).alias("_heat"),
     )
-    r = r.join(sp.select("building_id", "span_start", "span_end", "_lb"), on="building_id", how="inner")
+    # (a left join, its unmatched rows dropped by the filters below: quicker than an inner join)
+    r = r.join(
+        sp.select("building_id", "span_start", "span_end", "_lb"), on="building_id", how="left", maintain_order="left"
+    )
     rng = pl.format("{}..{}", "period_start", "period_end")
     parts: list[pl.DataFrame] = []
 
-    hist = r.filter((pl.col("period_end") >= pl.col("_lb")) & (pl.col("period_start") <= pl.col("span_end")))
+    # duplicates and overlaps: one sort by meter and dates puts a read's duplicates next to it
     keys = ["building_id", "fuel", "_meter"]
     same = [*keys, "period_start", "period_end"]
+    hist = (
+        r.filter((pl.col("period_end") >= pl.col("_lb")) & (pl.col("period_start") <= pl.col("span_end")))
+        .select(*same, "_ln")
+        .sort(same)
+        .with_columns(group_starts(keys).alias("_k0"), ~group_starts(same).alias("_again"))
+    )
     # only the reads that share their key get a line list (most keys occur once)
     dup = (
-        hist.select(*same, "_ln")
-        .filter(pl.len().over(same) > 1)
+        hist.filter(pl.col("_again") | pl.col("_again").shift(-1).fill_null(False))
         .group_by(same)
         .agg(pl.len().alias("_n"), pl.col("_ln").sort().cast(pl.String).str.join(", ").alias("_lines"))
         .filter(pl.col("_n") > 1)
@@ -543,75 +571,98 @@ def _reading_issues(
         .select("building_id", pl.lit("duplicate_reads").alias("code"), "detail", "period_start")
     )
     parts.append(dup)
-    u = (
-        hist.select(*same)
-        .unique(keep="first")
-        .sort([*keys, "period_start", "period_end"])
-        .with_columns(pl.col("period_end").cum_max().shift(1).over(keys).alias("_prev_end"))
-    )
     ov = (
-        u.filter(pl.col("_prev_end") >= pl.col("period_start"))
+        hist.filter(~pl.col("_again"))
+        .with_columns(prev_max(_ordinal("period_end"), pl.col("_k0")).alias("_prev_end"))
+        .filter(pl.col("_prev_end") >= _ordinal("period_start"))
+        .rechunk()  # (polars 2.1's format panics on columns chunked unlike each other)
+        .with_columns(pl.col("_prev_end").cast(pl.Int32).cast(pl.Date))
         .with_columns(pl.format("{} {} overlaps a read ending {}", "fuel", rng, "_prev_end").alias("detail"))
         .select("building_id", pl.lit("overlapping_reads").alias("code"), "detail", "period_start")
     )
     parts.append(ov)
-    del hist, u
+    del hist
 
-    h = r.filter(
-        pl.col("_heat")
-        & (pl.col("period_end") >= pl.col("span_start"))
-        & (pl.col("period_start") <= pl.col("span_end"))
-    ).drop("_ln", "_meter", "_heat", "_lb")
-    del r
-    est = (
-        h.group_by("building_id")
-        .agg(
-            pl.len().alias("_n"),
-            pl.col("_est").sum().alias("_ne"),
-            pl.format("{}..{}", "period_start", "period_end").filter(pl.col("_est")).sort().str.join(", ").alias("_d"),
+    # the heating-fuel reads overlapping the span, clipped to it as _s.._e (day ordinals), in date order
+    c = (
+        r.filter(
+            pl.col("_heat")
+            & (pl.col("period_end") >= pl.col("span_start"))
+            & (pl.col("period_start") <= pl.col("span_end"))
         )
-        .filter(pl.col("_ne") / pl.col("_n") > max_estimated_share)
-        .with_columns(pl.format("{} of {} reads in the span estimated: {}", "_ne", "_n", "_d").alias("detail"))
         .select(
             "building_id",
-            pl.lit("many_estimated_reads").alias("code"),
-            "detail",
-            pl.lit(None, pl.Date).alias("period_start"),
-        )
-    )
-    parts.append(est)
-
-    # gaps: stretches of the span with no heating-fuel read, as [gap_start, gap_end]
-    c = (
-        h.with_columns(
-            pl.max_horizontal("period_start", "span_start").alias("_s"),
-            pl.min_horizontal("period_end", "span_end").alias("_e"),
+            "period_start",
+            "period_end",
+            "_est",
+            _ordinal("span_start").alias("_ss"),
+            _ordinal("span_end").alias("_se"),
+            pl.max_horizontal(_ordinal("period_start"), _ordinal("span_start")).alias("_s"),
+            pl.min_horizontal(_ordinal("period_end"), _ordinal("span_end")).alias("_e"),
         )
         .sort(["building_id", "_s", "_e"])
-        .with_columns(pl.col("_e").cum_max().shift(1).over("building_id").alias("_pe"))
-    )
-    inner = c.filter(pl.col("_pe").is_not_null() & (pl.col("_s") > pl.col("_pe") + pl.duration(days=1))).select(
-        "building_id",
-        (pl.col("_pe") + pl.duration(days=1)).alias("_gs"),
-        (pl.col("_s") - pl.duration(days=1)).alias("_ge"),
-    )
-    first = c.group_by("building_id").agg(
-        pl.col("_s").min(), pl.col("_e").max(), pl.col("span_start").first(), pl.col("span_end").first()
-    )
-    lead = first.filter(pl.col("_s") > pl.col("span_start")).select(
-        "building_id", pl.col("span_start").alias("_gs"), (pl.col("_s") - pl.duration(days=1)).alias("_ge")
-    )
-    tail = first.filter(pl.col("_e") < pl.col("span_end")).select(
-        "building_id", (pl.col("_e") + pl.duration(days=1)).alias("_gs"), pl.col("span_end").alias("_ge")
-    )
-    gaps = (
-        pl.concat([inner, lead, tail])
+        .with_columns(group_starts(["building_id"]).alias("_b0"))
         .with_columns(
-            pl.format("no read {}..{} ({} days)", "_gs", "_ge", ((_ordinal("_ge") - _ordinal("_gs")) + 1)).alias(
-                "detail"
+            prev_max(pl.col("_e"), pl.col("_b0")).alias("_pe"),
+            prev_max(pl.col("_e"), pl.col("_b0"), inclusive=True).alias("_emax"),
+            pl.int_range(pl.len(), dtype=pl.Int64).alias("_i"),
+            pl.col("_est").cast(pl.Int64).cum_sum().alias("_ecum"),
+        )
+    )
+    del r
+    # each building's last read: its reads counted from the running totals
+    last = c.filter(pl.col("building_id").ne_missing(pl.col("building_id").shift(-1)).fill_null(True)).select(
+        "building_id",
+        "_ss",
+        "_se",
+        "_emax",
+        (pl.col("_i") - pl.col("_i").shift(1).fill_null(-1)).alias("_n"),
+        (pl.col("_ecum") - pl.col("_ecum").shift(1).fill_null(0)).alias("_ne"),
+    )
+    many = last.filter(pl.col("_ne") / pl.col("_n") > max_estimated_share).select("building_id", "_n", "_ne")
+    if many.height:
+        d = (
+            c.join(many.select("building_id"), on="building_id", how="semi")
+            .group_by("building_id")
+            .agg(
+                pl.format("{}..{}", "period_start", "period_end")
+                .filter(pl.col("_est"))
+                .sort()
+                .str.join(", ")
+                .alias("_d")
             )
         )
-        .select("building_id", pl.lit("gap_in_reads").alias("code"), "detail", pl.col("_gs").alias("period_start"))
+        est = (
+            many.join(d, on="building_id", how="left")
+            .rechunk()
+            .with_columns(pl.format("{} of {} reads in the span estimated: {}", "_ne", "_n", "_d").alias("detail"))
+            .select(
+                "building_id",
+                pl.lit("many_estimated_reads").alias("code"),
+                "detail",
+                pl.lit(None, pl.Date).alias("period_start"),
+            )
+        )
+        parts.append(est)
+
+    # gaps: stretches of the span with no heating-fuel read, as [gap_start, gap_end] (day ordinals)
+    inner = c.filter(pl.col("_pe").is_not_null() & (pl.col("_s") > pl.col("_pe") + 1)).select(
+        "building_id", (pl.col("_pe") + 1).alias("_gs"), (pl.col("_s") - 1).alias("_ge")
+    )
+    lead = c.filter(pl.col("_b0") & (pl.col("_s") > pl.col("_ss"))).select(
+        "building_id", pl.col("_ss").alias("_gs"), (pl.col("_s") - 1).alias("_ge")
+    )
+    tail = last.filter(pl.col("_emax") < pl.col("_se")).select(
+        "building_id", (pl.col("_emax") + 1).alias("_gs"), pl.col("_se").alias("_ge")
+    )
+    day = lambda e: e.cast(pl.Int32).cast(pl.Date)  # noqa: E731
+    gaps = pl.concat([inner, lead, tail], rechunk=True).select(
+        "building_id",
+        pl.lit("gap_in_reads").alias("code"),
+        pl.format(
+            "no read {}..{} ({} days)", day(pl.col("_gs")), day(pl.col("_ge")), pl.col("_ge") - pl.col("_gs") + 1
+        ).alias("detail"),
+        day(pl.col("_gs")).alias("period_start"),
     )
     parts.append(gaps)
 
@@ -764,6 +815,10 @@ def estimated_run_issues(readings: pl.DataFrame, spans: pl.DataFrame, *, min_run
         ``building_id, code, detail, blocking``, one row per building, runs joined with "; ".
     """
     _require(spans, "spans", ("building_id", "span_start", "span_end"))
+    if "estimated" in readings.columns:  # only buildings with min_run estimated heating-fuel reads can have a run
+        est = _heat(readings).filter(pl.col("estimated").cast(pl.Boolean).fill_null(False))
+        ids = est.group_by("building_id").len().filter(pl.col("len") >= max(min_run, 1))["building_id"]
+        readings = readings.filter(pl.col("building_id").is_in(ids.implode()))
     runs = estimated_runs(readings, min_run=min_run).join(
         spans.select("building_id", "span_start", "span_end"), on="building_id", how="inner"
     )
