@@ -413,13 +413,12 @@ def _fast_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
     # blanks around a field are stripped; a chunk of ASCII text without a blank (the whitespace that
     # strip_chars removes: six ASCII characters, the rest not ASCII) has none to strip
     blanks = not chunk.isascii() or any(c in chunk for c in _ASCII_BLANKS)
-    exprs = []
-    for name, k in zip(wanted, idx):
-        v = pl.col("parts").list.get(k)
-        if blanks:
-            v = v.str.strip_chars()
-        exprs.append(pl.when(v == "").then(None).otherwise(v).alias(name))
-    df = good.select(*exprs, pl.col(LINE_COL))
+    fields = [pl.col("parts").list.get(k) for k in idx]
+    if blanks:
+        fields = [v.str.strip_chars() for v in fields]
+    df = good.select(*(v.alias(name) for v, name in zip(fields, wanted)), pl.col(LINE_COL))
+    # an empty field is null (in a second step: each field taken out of the list once)
+    df = df.with_columns(pl.when(pl.col(name) == "").then(None).otherwise(pl.col(name)).alias(name) for name in wanted)
     return df, rejects, repeated
 
 
