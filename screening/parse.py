@@ -201,7 +201,8 @@ def parse_date(
     # a value already written YYYY-MM-DD (or empty) needs none of the other forms: those are read on the
     # rest only, which holds every slash date (the order, its detection and AmbiguousDates see them all)
     plain = t.str.contains(ISO_DATE).fill_null(True)
-    fast = (t.str.to_date("%Y-%m-%d", strict=False), *(2 * (pl.repeat(False, len(t), eager=True),)))
+    # (cache=False: the same dates, read without the table of distinct values, which costs more here)
+    fast = (t.str.to_date("%Y-%m-%d", strict=False, cache=False), *(2 * (pl.repeat(False, len(t), eager=True),)))
     value, timed, trailing = _merge(plain, fast, lambda rows: _date_rules(t.filter(rows), date_order))
     df = pl.DataFrame({"t": t, "v": value, "timed": timed, "trailing": trailing})
     cond = pl.col("t").is_not_null() & pl.col("v").is_null()
@@ -297,6 +298,8 @@ def _date_rules(t: pl.Series, date_order: str | None) -> tuple[pl.Series, pl.Ser
 def midnight_stamps(s: pl.Series) -> pl.Series:
     """True where a date cell is a timestamp at midnight (``2025-10-31T00:00:00``, ``2025-10-31 00:00``),
     which :func:`parse_date` reads as its date."""
+    if not bool(s.str.contains("00:00", literal=True).any()):  # the usual column: no stamp at all
+        return pl.repeat(False, len(s), eager=True).rename(s.name)
     return s.str.strip_chars().str.contains(_MIDNIGHT).fill_null(False).rename(s.name)
 
 
