@@ -305,7 +305,9 @@ def midnight_stamps(s: pl.Series) -> pl.Series:
 
 def parse_choice(s: pl.Series, choices: list[str] | tuple[str, ...], *, what: str) -> tuple[pl.Series, pl.Series]:
     """Parse one of a fixed set of words (case-insensitive, blanks/dashes as ``_``)."""
-    plain = s.is_in(list(choices)).fill_null(True)  # written as the word itself (or empty)
+    # written as the word itself (or empty): a word the rules would not rewrite (lower case, no blank or dash)
+    words = [c for c in choices if c == c.lower() and not re.search(r"[\s\-]", c)]
+    plain = s.is_in(words).fill_null(True)
     fast = (s, _nulls(s.name, len(s)))
     return _merge(plain, fast, lambda rows: _choice_rules(s.filter(rows), choices, what))
 
