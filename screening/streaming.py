@@ -119,7 +119,7 @@ def scan(path: str, label: str, encoding: str | None) -> Scan:
         for i, block in enumerate(_blocks(f, _SCAN_BYTES)):
             quotes = quotes or b'"' in block
             has_lf = has_lf or b"\n" in block
-            if bad_line is None:
+            if bad_line is None and not (enc == "utf-8" and block.isascii()):  # ASCII is UTF-8 as it is
                 try:
                     block.decode(("utf-8-sig" if i == 0 else "utf-8") if enc == "utf-8" else enc)
                 except (UnicodeDecodeError, LookupError) as exc:
