@@ -71,7 +71,11 @@ def one(tree: Path, work: Path, chunk: str, store_mb: int = 0) -> dict:
         p.unlink(missing_ok=True)
     env = os.environ | {"PYTHONPATH": str(tree)}
     out = subprocess.run(
-        [sys.executable, "-c", CHILD, str(work), str(db), chunk, str(store_mb)], env=env, capture_output=True, text=True
+        [sys.executable, "-c", CHILD, str(work), str(db), chunk, str(store_mb)],
+        cwd=tree,  # ``python -c`` puts the working folder first on sys.path: run in the tree being measured
+        env=env,
+        capture_output=True,
+        text=True,
     )
     db.unlink(missing_ok=True)
     if out.returncode:

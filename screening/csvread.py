@@ -41,6 +41,7 @@ LINE_COL = "_line"
 MAX_FIELD_CHARS = 10_000
 FAST_CHUNK_CHARS = 1 << 20  # lines per chunk of the quote-free path: about 1 Mi characters
 _LONG_REASON = f"a field is longer than {MAX_FIELD_CHARS:,} characters"
+_ASCII_BLANKS = " \t\r\x0b\x0c"  # with \n, the ASCII characters of Unicode White_Space
 
 
 @dataclass
@@ -359,7 +360,9 @@ def _fast_records(text, label, delim, header_norm, idx, wanted, chunk_chars=None
 
 def _fast_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
     """One chunk of whole lines (``first_line`` is the physical line of its first line)."""
-    lines = pl.Series("raw", chunk.split("\n"), dtype=pl.String).str.strip_suffix("\r")
+    lines = pl.Series("raw", chunk.split("\n"), dtype=pl.String)
+    if "\r" in chunk:
+        lines = lines.str.strip_suffix("\r")
     frame = pl.DataFrame({"raw": lines}).with_row_index(LINE_COL, offset=first_line)
     frame = frame.with_columns(pl.col(LINE_COL).cast(pl.Int64))
     frame = frame.filter(pl.col("raw").str.contains(f"[^\\s{re.escape(delim)}]"))  # not blank
@@ -379,7 +382,12 @@ def _fast_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
         parts.alias("parts"),
         lens.alias("n"),
         is_header.alias("hdr"),
-        (frame["raw"].str.len_chars() > MAX_FIELD_CHARS).alias("long"),
+        # a line longer than the limit in characters is longer in bytes too (the count in bytes is cheaper)
+        (
+            (frame["raw"].str.len_chars() > MAX_FIELD_CHARS)
+            if bool((frame["raw"].str.len_bytes() > MAX_FIELD_CHARS).any())
+            else pl.repeat(False, frame.height, eager=True)
+        ).alias("long"),
     )
     bad = frame.filter((pl.col("n") != n_fields) & ~pl.col("hdr"))
     rejects = [
@@ -402,11 +410,15 @@ def _fast_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
         ]
         ok = ok & ~pl.col("long")
     good = frame.filter(ok)
-    exprs = []
-    for name, k in zip(wanted, idx):
-        v = pl.col("parts").list.get(k).str.strip_chars()
-        exprs.append(pl.when(v == "").then(None).otherwise(v).alias(name))
-    df = good.select(*exprs, pl.col(LINE_COL))
+    # blanks around a field are stripped; a chunk of ASCII text without a blank (the whitespace that
+    # strip_chars removes: six ASCII characters, the rest not ASCII) has none to strip
+    blanks = not chunk.isascii() or any(c in chunk for c in _ASCII_BLANKS)
+    fields = [pl.col("parts").list.get(k) for k in idx]
+    if blanks:
+        fields = [v.str.strip_chars() for v in fields]
+    df = good.select(*(v.alias(name) for v, name in zip(fields, wanted)), pl.col(LINE_COL))
+    # an empty field is null (in a second step: each field taken out of the list once)
+    df = df.with_columns(pl.when(pl.col(name) == "").then(None).otherwise(pl.col(name)).alias(name) for name in wanted)
     return df, rejects, repeated
 
 

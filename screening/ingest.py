@@ -149,19 +149,22 @@ def _typed_columns(
     for col, canon, kind, required, o in spec:
         s = raw[col]
         if not required and s.null_count() == len(s):  # absent or empty optional column: nothing to check
-            typed[canon] = pl.Series(canon, [None] * len(s), dtype=_KIND_DTYPE[kind])
+            typed[canon] = pl.repeat(None, len(s), dtype=_KIND_DTYPE[kind], eager=True).rename(canon)
             continue
         if kind == "id":
             ok = s.str.contains(ID_PATTERN).fill_null(False)
-            p = pl.select(
-                pl.when(s.is_not_null() & ~ok)
-                .then(pl.lit("expected 1-64 letters, digits, '-', '_' or '.'"))
-                .otherwise(None)
-            ).to_series()
-            v = pl.select(pl.when(ok).then(s).otherwise(None)).to_series()
+            if bool(ok.all()):  # the usual column: every value a well-formed id
+                v, p = s, pl.repeat(None, len(s), dtype=pl.String, eager=True)
+            else:
+                p = pl.select(
+                    pl.when(s.is_not_null() & ~ok)
+                    .then(pl.lit("expected 1-64 letters, digits, '-', '_' or '.'"))
+                    .otherwise(None)
+                ).to_series()
+                v = pl.select(pl.when(ok).then(s).otherwise(None)).to_series()
         elif kind == "text":
             # display text loses control characters (never meaningful in a name); keys are kept as written
-            v, p = (clean_text(s) if o.get("display") else s), pl.Series([None] * len(s), dtype=pl.String)
+            v, p = (clean_text(s) if o.get("display") else s), pl.repeat(None, len(s), dtype=pl.String, eager=True)
         elif kind == "choice":
             v, p = parse_choice(s, o["choices"], what=o["what"])
         elif kind in ("float", "int"):
@@ -199,7 +202,7 @@ def _typed_columns(
                 ) from None
         else:  # pragma: no cover - spec is static
             raise ValueError(kind)
-        if required:
+        if required and s.null_count():
             p = pl.select(pl.when(s.is_null()).then(pl.lit("required value is empty")).otherwise(p)).to_series()
         typed[canon] = v.rename(canon)
         bad = p.is_not_null()

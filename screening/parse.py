@@ -70,6 +70,24 @@ class AmbiguousDates(ValueError):
     """Slash dates whose day/month order cannot be told apart and was not configured."""
 
 
+def _nulls(name: str, n: int, dtype: type[pl.DataType] = pl.String) -> pl.Series:
+    return pl.repeat(None, n, dtype=dtype, eager=True).rename(name)
+
+
+def _merge(plain: pl.Series, fast: tuple[pl.Series, ...], rules: Callable[[pl.Series], tuple]) -> tuple:
+    """The fast path's results where ``plain`` holds, the full rules' elsewhere.
+
+    ``fast`` are the results for every row assuming each is plain; ``rules(mask)`` gives the full
+    rules' results for the rows of the boolean ``mask`` (in order), each scattered back over the
+    fast results (a value in canonical form needs none of the rules, so only the rest is worked).
+    """
+    if bool(plain.all()):
+        return fast
+    rest = ~plain
+    idx = rest.arg_true()
+    return tuple(f.clone().scatter(idx, r) for f, r in zip(fast, rules(rest)))
+
+
 def parse_float(
     s: pl.Series,
     *,
@@ -83,7 +101,7 @@ def parse_float(
     text = s.str.strip_chars()
     if decimal_comma:
         text = text.str.replace_all(r"\.", "").str.replace(",", ".", literal=True)
-    text = text.str.replace_all(r"^\+", "")
+    text = text.str.strip_prefix("+")  # one leading '+' (as the anchored ``^\+``)
     values = text.cast(pl.Float64, strict=False)
     df = pl.DataFrame({"t": text, "v": values})
     rng = []
@@ -118,6 +136,13 @@ def parse_int(s: pl.Series, **kw) -> tuple[pl.Series, pl.Series]:
 
 def parse_bool(s: pl.Series) -> tuple[pl.Series, pl.Series]:
     """Parse true/false words (true/false, yes/no, 1/0, E/A for estimated/actual)."""
+    # a value written as one of the words (lower case, no blanks) or empty needs no rewriting
+    plain = s.is_in(_TRUE + _FALSE).fill_null(True)
+    fast = (s.is_in(_TRUE).fill_null(False).rename(s.name), _nulls(s.name, len(s)))
+    return _merge(plain, fast, lambda rows: _bool_rules(s.filter(rows)))
+
+
+def _bool_rules(s: pl.Series) -> tuple[pl.Series, pl.Series]:
     t = s.str.strip_chars().str.to_lowercase()
     df = pl.DataFrame({"t": t})
     out = df.select(
@@ -173,6 +198,50 @@ def parse_date(
         exceeds 12 consistently).
     """
     t = s.str.strip_chars()
+    # a value already written YYYY-MM-DD (or empty) needs none of the other forms: those are read on the
+    # rest only, which holds every slash date (the order, its detection and AmbiguousDates see them all)
+    plain = t.str.contains(ISO_DATE).fill_null(True)
+    # (cache=False: the same dates, read without the table of distinct values, which costs more here)
+    fast = (t.str.to_date("%Y-%m-%d", strict=False, cache=False), *(2 * (pl.repeat(False, len(t), eager=True),)))
+    value, timed, trailing = _merge(plain, fast, lambda rows: _date_rules(t.filter(rows), date_order))
+    df = pl.DataFrame({"t": t, "v": value, "timed": timed, "trailing": trailing})
+    cond = pl.col("t").is_not_null() & pl.col("v").is_null()
+    expected = "a date (YYYY-MM-DD)"
+    why = (
+        pl.when(pl.col("timed"))
+        .then(
+            pl.lit(
+                f"expected {expected}: a time of day other than midnight cannot be read as a day; give the date only"
+            )
+        )
+        .when(pl.col("trailing"))
+        .then(pl.lit(f"expected {expected} with nothing after it: remove the text after the date"))
+        .otherwise(pl.lit(f"expected {expected}"))
+    )
+    if min_date is not None or max_date is not None:
+        lo = min_date or _dt.date(1, 1, 1)
+        hi = max_date or _dt.date(9999, 12, 31)
+        rng = (pl.col("v") < lo) | (pl.col("v") > hi)
+        out = df.select(
+            pl.when(cond | rng.fill_null(False)).then(None).otherwise(pl.col("v")).alias("v"),
+            pl.when(cond)
+            .then(why)
+            .when(rng.fill_null(False))
+            .then(pl.lit(f"date out of range; expected {lo} to {hi}"))
+            .otherwise(None)
+            .alias("p"),
+        )
+    else:
+        out = df.select(
+            pl.when(cond).then(None).otherwise(pl.col("v")).alias("v"),
+            pl.when(cond).then(why).otherwise(None).alias("p"),
+        )
+    return out["v"].rename(s.name), out["p"].rename(s.name)
+
+
+def _date_rules(t: pl.Series, date_order: str | None) -> tuple[pl.Series, pl.Series, pl.Series]:
+    """:func:`parse_date`'s forms for stripped values ``t``: (date or null, a time of day other than
+    midnight, text after the date)."""
     any_sep = bool(t.str.contains(r"[/.]").any())  # else the slash and dot forms need no look
     # a timestamp at midnight is read as its date (callers say how in a notice: see midnight_stamps);
     # any other time of day, or any other text after the date, is a problem, never cut off
@@ -223,49 +292,27 @@ def parse_date(
         & ~midnight
         & ~timed
     )
-    df = pl.DataFrame({"t": t, "v": value, "timed": timed, "trailing": trailing})
-    cond = pl.col("t").is_not_null() & pl.col("v").is_null()
-    expected = "a date (YYYY-MM-DD)"
-    why = (
-        pl.when(pl.col("timed"))
-        .then(
-            pl.lit(
-                f"expected {expected}: a time of day other than midnight cannot be read as a day; give the date only"
-            )
-        )
-        .when(pl.col("trailing"))
-        .then(pl.lit(f"expected {expected} with nothing after it: remove the text after the date"))
-        .otherwise(pl.lit(f"expected {expected}"))
-    )
-    if min_date is not None or max_date is not None:
-        lo = min_date or _dt.date(1, 1, 1)
-        hi = max_date or _dt.date(9999, 12, 31)
-        rng = (pl.col("v") < lo) | (pl.col("v") > hi)
-        out = df.select(
-            pl.when(cond | rng.fill_null(False)).then(None).otherwise(pl.col("v")).alias("v"),
-            pl.when(cond)
-            .then(why)
-            .when(rng.fill_null(False))
-            .then(pl.lit(f"date out of range; expected {lo} to {hi}"))
-            .otherwise(None)
-            .alias("p"),
-        )
-    else:
-        out = df.select(
-            pl.when(cond).then(None).otherwise(pl.col("v")).alias("v"),
-            pl.when(cond).then(why).otherwise(None).alias("p"),
-        )
-    return out["v"].rename(s.name), out["p"].rename(s.name)
+    return value, timed, trailing
 
 
 def midnight_stamps(s: pl.Series) -> pl.Series:
     """True where a date cell is a timestamp at midnight (``2025-10-31T00:00:00``, ``2025-10-31 00:00``),
     which :func:`parse_date` reads as its date."""
+    if not bool(s.str.contains("00:00", literal=True).any()):  # the usual column: no stamp at all
+        return pl.repeat(False, len(s), eager=True).rename(s.name)
     return s.str.strip_chars().str.contains(_MIDNIGHT).fill_null(False).rename(s.name)
 
 
 def parse_choice(s: pl.Series, choices: list[str] | tuple[str, ...], *, what: str) -> tuple[pl.Series, pl.Series]:
     """Parse one of a fixed set of words (case-insensitive, blanks/dashes as ``_``)."""
+    # written as the word itself (or empty): a word the rules would not rewrite (lower case, no blank or dash)
+    words = [c for c in choices if c == c.lower() and not re.search(r"[\s\-]", c)]
+    plain = s.is_in(words).fill_null(True)
+    fast = (s, _nulls(s.name, len(s)))
+    return _merge(plain, fast, lambda rows: _choice_rules(s.filter(rows), choices, what))
+
+
+def _choice_rules(s: pl.Series, choices: list[str] | tuple[str, ...], what: str) -> tuple[pl.Series, pl.Series]:
     t = s.str.strip_chars().str.to_lowercase().str.replace_all(r"[\s\-]+", "_")
     df = pl.DataFrame({"t": t})
     ok = pl.col("t").is_in(list(choices))
@@ -282,6 +329,8 @@ def parse_choice(s: pl.Series, choices: list[str] | tuple[str, ...], *, what: st
 #: Currency symbols removed from amounts of money (with a notice); elsewhere they reject the value.
 CURRENCY_SYMBOLS = "$€£¥"
 _GROUPED = {",": ",", ".": r"\.", " ": "[ \u00a0\u202f]", "'": "[’']"}
+#: the characters each ``_GROUPED`` pattern matches
+_GROUPED_CHARS = {",": ",", ".": ".", " ": " \u00a0\u202f", "'": "’'"}
 
 
 def number_text(
@@ -298,6 +347,29 @@ def number_text(
     Returns (text, problem or null, counts of values changed: ``currency``, ``percent``, ``thousands``).
     Values with none of these are returned unchanged.
     """
+    # every rule needs one of these characters (a symbol, '%', ',' or the thousands separator): the
+    # values without any are returned as they are with no problem, the rules run on the rest only
+    marks = CURRENCY_SYMBOLS + "%," + _GROUPED_CHARS.get(thousands, "")
+    plain = ~s.str.contains(f"[{marks}]").fill_null(False)
+    counts = {"currency": 0, "percent": 0, "thousands": 0}
+    if bool(plain.all()):
+        return s, _nulls(s.name, len(s)), counts
+    fast = (s, _nulls(s.name, len(s)))
+
+    def rules(rows: pl.Series) -> tuple[pl.Series, pl.Series]:
+        out, problem, n = _number_rules(
+            s.filter(rows), decimal_comma=decimal_comma, thousands=thousands, money=money, share=share
+        )
+        counts.update(n)
+        return out, problem
+
+    out, problem = _merge(plain, fast, rules)
+    return out, problem, counts
+
+
+def _number_rules(
+    s: pl.Series, *, decimal_comma: bool, thousands: str, money: bool, share: bool
+) -> tuple[pl.Series, pl.Series, dict[str, int]]:
     t = s.str.strip_chars()
     dec = "," if decimal_comma else "."
     sym = f"[{re.escape(CURRENCY_SYMBOLS)}]"

@@ -119,7 +119,7 @@ def scan(path: str, label: str, encoding: str | None) -> Scan:
         for i, block in enumerate(_blocks(f, _SCAN_BYTES)):
             quotes = quotes or b'"' in block
             has_lf = has_lf or b"\n" in block
-            if bad_line is None:
+            if bad_line is None and not (enc == "utf-8" and block.isascii()):  # ASCII is UTF-8 as it is
                 try:
                     block.decode(("utf-8-sig" if i == 0 else "utf-8") if enc == "utf-8" else enc)
                 except (UnicodeDecodeError, LookupError) as exc:
@@ -311,10 +311,13 @@ def _whole_file_checks(kind: str, raw: pl.DataFrame, opts: ReadOptions) -> None:
     if kind != "readings":
         return
     for col in ("period_start", "period_end"):
-        if bool(midnight_stamps(raw[col]).any()):
+        s = raw[col]
+        if bool(midnight_stamps(s).any()):
             raise WholeFile("midnight stamps")
-        if opts.date_order is None and bool(
-            raw[col].str.strip_chars().str.contains(_SLASH_DATE).fill_null(False).any()
+        if (
+            opts.date_order is None
+            and bool(s.str.contains(r"[/.]").any())  # only narrows the look: a slash date holds '/' or '.'
+            and bool(s.str.strip_chars().str.contains(_SLASH_DATE).fill_null(False).any())
         ):
             raise WholeFile("slash dates without date_order")
 
