@@ -796,6 +796,37 @@ def _tri_ppf(u, lo, c, hi):
     return np.where(u < fc, left, right)
 
 
+def _row_percentiles(x: np.ndarray, percents: tuple[float, ...]) -> np.ndarray:
+    """``np.percentile(x, percents, axis=1)`` (method "linear") to the bit, with one sort per row.
+
+    Returns shape ``(len(percents), rows)``. The order statistics of a row do not depend on how
+    they are found, so sorting each row once gives the same values as numpy's partition of the
+    transposed copy (several times slower on a (buildings, draws) block); the index and
+    interpolation steps are numpy 2's ``_get_indexes``/``_lerp`` step for step: virtual index
+    ``(n − 1)·p/100``, ``a + (b − a)·γ`` below γ = 0.5 and ``b − (b − a)·(1 − γ)`` from it; a row
+    with a NaN gives NaN.
+    """
+    s = np.sort(x, axis=1)
+    n = s.shape[1]
+    vi = (n - 1) * np.true_divide(np.asarray(percents, dtype=np.float64), 100)
+    prev = np.floor(vi)
+    nxt = prev + 1
+    above = vi >= n - 1
+    prev[above] = -1
+    nxt[above] = -1
+    prev_i, next_i = prev.astype(np.intp), nxt.astype(np.intp)
+    gamma = (vi - prev_i)[:, None]
+    a, b = s[:, prev_i].T, s[:, next_i].T
+    diff = b - a
+    out = np.add(a, diff * gamma)
+    np.subtract(b, diff * (1 - gamma), out=out, where=gamma >= 0.5)
+    last = s[:, -1]
+    has_nan = np.isnan(last)
+    if has_nan.any():
+        np.copyto(out, last, where=has_nan)
+    return out
+
+
 def expected_heating(
     envelope: pl.DataFrame,
     base_grid_f: np.ndarray,
@@ -934,7 +965,7 @@ def expected_heating(
         m = _model(area_all[sl][:, None], p, g)
         ddm, clip = _interp_rows(curve[sl], grid, m["balance_point_f"], uniform)
         q = degree_day_heating_kbtu(m["ua_total_used"], ddm, p["efficiency"])
-        p10[sl], p50[sl], p90[sl] = np.percentile(q, [10.0, 50.0, 90.0], axis=1)
+        p10[sl], p50[sl], p90[sl] = _row_percentiles(q, (10.0, 50.0, 90.0))
         share[sl] = clip.mean(axis=1)
 
     for arr in (p10, p50, p90, point, dd_bal, share):
