@@ -758,7 +758,23 @@ class DegreeDayCube:
             must act on it; nothing is zero-filled silently.
         """
         _check_kind(kind)
+        fa, fb, days = self.flat_ranges(station_ids, starts, ends)
+        return self.range_totals(fa, fb, kind), days, self.range_missing(fa, fb, days)
+
+    def flat_ranges(self, station_ids, starts, ends) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Each period's half-open range ``[fa, fb)`` of flat days with a record, and its calendar days.
+
+        For a set of periods queried several times (:meth:`range_totals`, :meth:`range_at`,
+        :meth:`range_missing`): the stations are looked up and the dates checked once.
+        Arguments and errors as :meth:`period_totals`; returns three int64 arrays (n,).
+        """
         _, s0, e0, fa, fb = self._rows(station_ids, starts, ends)
+        return fa, fb, e0 - s0 + 1
+
+    def range_totals(self, fa: np.ndarray, fb: np.ndarray, kind: str = "hdd") -> np.ndarray:
+        """``period_totals(...)[0]`` of the flat ranges from :meth:`flat_ranges` [°F·day], (n, n_bases)
+        column-major: ``Σ dd = cum[fb] − cum[fa]`` per grid base, residues below 1e-8 set to 0."""
+        _check_kind(kind)
         valid = self.cum_valid[fb] - self.cum_valid[fa]
         sum_tm = self.cum_tm[fb] - self.cum_tm[fa] if kind == "cdd" else None
         out = _alloc_f64((self.bases_f.size, fa.size))  # one row per base, filled row by row
@@ -769,9 +785,18 @@ class DegreeDayCube:
             if sum_tm is not None:
                 row -= valid * b - sum_tm
             row[row < _RESIDUE] = 0.0
-        dd = out.T
-        days = e0 - s0 + 1
-        return dd, days, days - valid
+        return out.T
+
+    def range_at(self, fa: np.ndarray, fb: np.ndarray, base_index: np.ndarray) -> np.ndarray:
+        """HDD of each flat range at its own grid base ``bases_f[base_index[i]]`` [°F·day], (n,):
+        ``range_totals(fa, fb)[i, base_index[i]]`` without the other bases."""
+        out = self.cum_hdd[base_index, fb] - self.cum_hdd[base_index, fa]
+        out[out < _RESIDUE] = 0.0
+        return out
+
+    def range_missing(self, fa: np.ndarray, fb: np.ndarray, days: np.ndarray) -> np.ndarray:
+        """Days without data of each flat range (``days`` its calendar days), int64 (n,)."""
+        return days - (self.cum_valid[fb] - self.cum_valid[fa])
 
     def at_base(self, station_ids, starts, ends, base_f, kind: str = "hdd"):
         """Exact degree days at an arbitrary base per row (not interpolated on the grid).

@@ -775,3 +775,23 @@ def test_degree_day_table_periods_and_units():
     assert t["station_id"].to_list() == ["ST0", "ST1"] and t["days"].to_list() == [31, 31]
     with pytest.raises(ValueError, match="by must be one of day, month, year, period; got 'week'"):
         degree_day_table(cube, by="week")
+
+
+def test_flat_range_queries_equal_period_totals():
+    """range_totals / range_at / range_missing (one station lookup, reused) give period_totals' values
+    to the bit: periods inside, across and beyond the record, one day long, and at every grid base."""
+    bases = np.arange(40.0, 75.5, 0.5)
+    w = tmy_daily("greensboro")
+    w = w.filter(pl.col("date").dt.day() != 17)  # days without data inside the record
+    cube = DegreeDayCube.from_daily(w, bases)
+    rng = np.random.default_rng(5)
+    s = np.datetime64("1989-12-01") + rng.integers(0, 400, 300).astype("timedelta64[D]")
+    e = s + rng.integers(0, 70, 300).astype("timedelta64[D]")
+    dd, days, missing = cube.period_totals("greensboro", s, e)
+    fa, fb, d = cube.flat_ranges("greensboro", s, e)
+    np.testing.assert_array_equal(d, days)
+    np.testing.assert_array_equal(cube.range_missing(fa, fb, d), missing)
+    assert missing.max() > 0 and missing.min() == 0
+    np.testing.assert_array_equal(cube.range_totals(fa, fb), dd)
+    j = rng.integers(0, bases.size, 300)
+    np.testing.assert_array_equal(cube.range_at(fa, fb, j), dd[np.arange(300), j])
