@@ -787,6 +787,19 @@ class DegreeDayCube:
             row[row < _RESIDUE] = 0.0
         return out.T
 
+    def range_rows(self, fa: np.ndarray, fb: np.ndarray) -> np.ndarray:
+        """``range_totals(fa, fb)`` (HDD) as a row-major (n, n_bases) array [°F·day]: the same values,
+        each period's bases contiguous (for consumers that read a row at a time, e.g. the padded
+        regression arrays), taken from a row-major copy of the running sums made once per cube."""
+        rows = self.__dict__.get("_cum_rows")
+        if rows is None:
+            rows = np.ascontiguousarray(self.cum_hdd.T)
+            self.__dict__["_cum_rows"] = rows
+        out = rows[fb]
+        np.subtract(out, rows[fa], out=out)
+        out[out < _RESIDUE] = 0.0
+        return out
+
     def range_at(self, fa: np.ndarray, fb: np.ndarray, base_index: np.ndarray) -> np.ndarray:
         """HDD of each flat range at its own grid base ``bases_f[base_index[i]]`` [°F·day], (n,):
         ``range_totals(fa, fb)[i, base_index[i]]`` without the other bases."""

@@ -91,35 +91,57 @@ def _ordinal(col: str) -> pl.Expr:
     return pl.col(col).cast(pl.Date).cast(pl.Int64)
 
 
-def _merged_intervals(r: pl.DataFrame) -> pl.DataFrame:
-    """Each building's reading periods merged into disjoint day intervals ``_s.._e`` (ordinals).
+def _merged_intervals(r: pl.DataFrame, by: Sequence[str] = ("building_id",)) -> pl.DataFrame:
+    """Each building's (each ``by`` group's) reading periods merged into disjoint day intervals
+    ``_s.._e`` (ordinals), columns ``*by, _s, _e``.
 
-    Periods that overlap or touch become one interval, so a day read twice is counted once.
+    Periods that overlap or touch become one interval, so a day read twice is counted once. Rows
+    sorted by ``by, _s, _e``; an interval starts where a group starts or where ``_s`` lies beyond
+    one day after the running maximum of the group's earlier ends (a running maximum per group:
+    the group's rank times a stride above any ordinal is added, so one cumulative maximum over all
+    rows never reaches back into the previous group).
     """
+    by = list(by)
     o = (
-        r.select("building_id", _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e"))
+        r.select(*by, _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e"))
         .filter(pl.col("_s") <= pl.col("_e"))
-        .sort(["building_id", "_s", "_e"])
+        .sort([*by, "_s", "_e"])
     )
-    o = o.with_columns(pl.col("_e").cum_max().shift(1).over("building_id").alias("_pe"))
-    o = o.with_columns((pl.col("_pe").is_null() | (pl.col("_s") > pl.col("_pe") + 1)).cum_sum().alias("_g"))
-    return o.group_by("_g").agg(pl.col("building_id").first(), pl.col("_s").min(), pl.col("_e").max()).drop("_g")
+    s = o["_s"].to_numpy()
+    e = o["_e"].to_numpy()
+    if s.size == 0:
+        return o
+    grp = (o.select(pl.struct(by).rle_id()).to_series() if len(by) > 1 else o[by[0]].rle_id()).to_numpy()
+    grp = grp.astype(np.int64)
+    lo = min(int(s.min()), int(e.min()))
+    stride = int(e.max()) - lo + 2
+    run_max = np.maximum.accumulate(grp * stride + (e - lo)) - grp * stride + lo  # cum max of _e within group
+    new = np.empty(s.size, dtype=bool)
+    new[0] = True
+    new[1:] = (grp[1:] != grp[:-1]) | (s[1:] > run_max[:-1] + 1)
+    starts = np.flatnonzero(new)
+    return o.select(by).gather(starts).with_columns(
+        pl.Series("_s", s[starts], dtype=o.schema["_s"]),
+        pl.Series("_e", np.maximum.reduceat(e, starts), dtype=o.schema["_e"]),
+    )
 
 
-def _union_coverage(r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str]) -> pl.DataFrame:
+def _union_coverage(
+    r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str], by: Sequence[str] = ("building_id",)
+) -> pl.DataFrame:
     """Days of each span covered by at least one reading (overlaps counted once).
 
-    ``r``: ``building_id, period_start, period_end``; ``spans``: ``keys`` (including building_id),
-    ``span_start, span_end``. Returns ``keys, covered_days`` for every span row.
+    ``r``: ``by, period_start, period_end``; ``spans``: ``keys`` (including ``by``, by default
+    building_id), ``span_start, span_end``. Returns ``keys, covered_days`` for every span row.
 
-    The readings are first merged into disjoint intervals per building (usually one or a few), so
-    the join with the spans has one row per span and interval, not per span and reading.
+    The readings are first merged into disjoint intervals per ``by`` group (usually one or a few),
+    so the join with the spans has one row per span and interval, not per span and reading.
     """
     keys = list(keys)
-    m = _merged_intervals(r)
+    m = _merged_intervals(r, by)
     j = (
         spans.select(*keys, _ordinal("span_start").alias("_ss"), _ordinal("span_end").alias("_se"))
-        .join(m, on="building_id", how="inner")
+        .join(m, on=list(by), how="inner")
         .select(
             *keys,
             (pl.min_horizontal("_e", "_se") - pl.max_horizontal("_s", "_ss") + 1).clip(lower_bound=0).alias("_cov"),
@@ -413,17 +435,11 @@ def calendarize(
     )
     keyed = agg.select("building_id", "fuel", "span_start", "span_end")
     cov = _union_coverage(
-        r.select("building_id", "fuel", "period_start", "period_end")
-        .rename({"building_id": "_b"})
-        .with_columns(pl.concat_str("_b", pl.lit("\x1f"), "fuel").alias("building_id")),
-        keyed.with_columns(pl.concat_str("building_id", pl.lit("\x1f"), "fuel").alias("_bf")).select(
-            pl.col("_bf").alias("building_id"), "span_start", "span_end"
-        ),
-        ["building_id"],
+        r.select("building_id", "fuel", "period_start", "period_end"),
+        keyed,
+        ["building_id", "fuel"],
+        by=["building_id", "fuel"],
     )
-    cov = cov.with_columns(
-        pl.col("building_id").str.split_exact("\x1f", 1).struct.rename_fields(["building_id", "fuel"])
-    ).unnest("building_id")
     out = (
         agg.join(cov, on=["building_id", "fuel"], how="left")
         .with_columns(((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days"))
@@ -986,7 +1002,8 @@ def pad_periods(
     d = p["days"].to_numpy().astype(float)
     days[bi, pi] = d
     use[bi, pi] = p["energy_kbtu"].to_numpy() / d
-    x[bi, pi, :] = hdd[row] / d[:, None]
+    src = hdd if row.size == hdd.shape[0] and np.array_equal(row, np.arange(row.size)) else hdd[row]
+    x.reshape(n_b * n_p, n_k)[bi * n_p + pi] = src / d[:, None]  # one row index: a plain row scatter
     valid[bi, pi] = p["usable"].to_numpy()
     return {"use_per_day": use, "days": days, "hdd_per_day": x, "valid": valid}
 
@@ -1005,7 +1022,7 @@ def fit_variable_base(
     *,
     min_periods: int = 9,
     max_period_days: int = 62,
-    chunk: int = 2048,
+    chunk: int = 256,
 ) -> dict[str, np.ndarray]:
     """Variable-base degree-day regression of bills (Fels 1986, PRISM), all buildings at once,
     with a baseload that is never negative.
@@ -1056,7 +1073,8 @@ def fit_variable_base(
     valid : (n_b, p) bool; further restricted to 0 < days ≤ ``max_period_days``.
     min_periods : buildings with fewer valid periods are ``not_fitted`` (Fels: at least 9 bills of
         ≤ 62 days in the last 24 months, per the spec).
-    chunk : buildings per block (memory bound; blocks, not buildings, are looped over).
+    chunk : buildings per block (memory bound; blocks, not buildings, are looped over; 256 keeps a
+        block's (buildings × periods × bases) temporaries near 4 MB, in cache; results do not depend on it).
 
     Returns
     -------

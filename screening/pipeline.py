@@ -282,7 +282,7 @@ class _PeriodHdd:
         self.n = periods.height
 
     def __call__(self, rows: np.ndarray) -> np.ndarray:
-        return self.cube.range_totals(self.fa[rows], self.fb[rows])
+        return self.cube.range_rows(self.fa[rows], self.fb[rows])
 
     def missing(self) -> np.ndarray:
         return self.cube.range_missing(self.fa, self.fb, self.days)
