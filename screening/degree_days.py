@@ -842,6 +842,7 @@ class DegreeDayCube:
         width = self.extra["hourly"].shape[1] if "hourly" in self.extra else 1
         budget = max(1, 4_000_000 // width)
         # bucket rows by span length (powers of two: ≤ 2× padding), then blocks of ≤ budget cells
+        padded = KERNELS[self.method].padded_days
         bucket = np.ceil(np.log2(np.maximum(length, 1))).astype(np.int64)
         for k in np.unique(bucket[length > 0]):  # ≤ ~15 buckets; blocks only bound memory
             rows = np.nonzero((bucket == k) & (length > 0))[0]
@@ -851,6 +852,10 @@ class DegreeDayCube:
             for i in range(0, rows.size, step):
                 blk = rows[i : i + step]
                 inside = ks[None, :] < length[blk, None]
+                if padded is not None:  # the same values, with a "no day" index instead of two masks
+                    idx = np.where(inside, fa[blk, None] + ks[None, :], self.tm.size)
+                    out[blk] = np.sum(padded(self, idx, base[blk, None]), axis=1)
+                    continue
                 idx = np.where(inside, fa[blk, None] + ks[None, :], 0)
                 d = self._hdd_days(idx, np.broadcast_to(base[blk, None], idx.shape))
                 out[blk] = np.sum(np.where(inside, d, 0.0), axis=1)
@@ -1002,6 +1007,20 @@ def _mean_days(cube, idx, ix, base, grid):
     return out
 
 
+def _mean_padded_days(cube, idx, base):
+    """(base − Tm)⁺ [°F·day] of flat days ``idx`` (broadcast against ``base``), 0 for a missing day
+    and for ``idx == n_flat`` (no day): there Tm is +∞, and (base − ∞)⁺ = 0, the value that
+    :meth:`DegreeDayCube._hdd_days` and the caller's mask give. The +∞-padded daily means are
+    made once per cube."""
+    t = cube.__dict__.get("_tm_or_inf")
+    if t is None:
+        t = np.append(np.where(cube.valid, cube.tm, np.inf), np.inf)
+        cube.__dict__["_tm_or_inf"] = t
+    out = np.subtract(base, t[idx])
+    np.maximum(out, 0.0, out=out)
+    return out
+
+
 def _maxmin_days(cube, idx, ix, base, grid):
     """The Met Office daily HDD from t_max and t_min (:func:`_maxmin_hdd`) [°F·day]."""
     out = _maxmin_hdd(cube.extra["tmax"][ix], cube.extra["tmin"][ix], base)
@@ -1048,12 +1067,15 @@ class Kernel:
     cumulate: Callable
     hdd_days: Callable
     rounds: bool = False  # the published rounding of the daily mean applies (mean method only)
+    # ``padded_days(cube, idx, base)``: hdd_days with missing days and the index n_flat ("no day") at 0,
+    # without masks (at_base's padded blocks); None: at_base masks hdd_days' values
+    padded_days: Callable | None = None
     estimate: bool = False  # its degree days are estimates, to be marked so
 
 
 #: method name -> its kernel; the names are :data:`METHODS`
 KERNELS: dict[str, Kernel] = {
-    "mean": Kernel(_mean_from_daily, _mean_cumulate, _mean_days, rounds=True),
+    "mean": Kernel(_mean_from_daily, _mean_cumulate, _mean_days, rounds=True, padded_days=_mean_padded_days),
     "maxmin": Kernel(_maxmin_from_daily, _maxmin_cumulate, _maxmin_days),
     "hourly": Kernel(None, _by_day_cumulate, _hourly_days),
     "monthly-estimate": Kernel(_monthly_estimate_from_daily, _by_day_cumulate, _monthly_estimate_days, estimate=True),

@@ -795,3 +795,26 @@ def test_flat_range_queries_equal_period_totals():
     np.testing.assert_array_equal(cube.range_totals(fa, fb), dd)
     j = rng.integers(0, bases.size, 300)
     np.testing.assert_array_equal(cube.range_at(fa, fb, j), dd[np.arange(300), j])
+
+
+def test_at_base_padded_fast_path_equals_masked_path(monkeypatch):
+    """The mean method's at_base without masks ("no day" index, +inf for missing days) gives the
+    masked path's bits: spans inside, across and beyond the record, with missing days, HDD and CDD."""
+    import dataclasses
+
+    from screening import degree_days as ddmod
+
+    w = tmy_daily("greensboro").filter(pl.col("date").dt.day() != 9)
+    cube = DegreeDayCube.from_daily(w, np.arange(40.0, 75.5, 0.5))
+    rng = np.random.default_rng(9)
+    s = np.datetime64("1989-10-01") + rng.integers(0, 500, 400).astype("timedelta64[D]")
+    e = s + rng.integers(0, 400, 400).astype("timedelta64[D]")
+    base = rng.uniform(35.0, 80.0, 400)
+    fast = [cube.at_base("greensboro", s, e, base, kind) for kind in ("hdd", "cdd")]
+    slow_kernel = dataclasses.replace(ddmod.KERNELS["mean"], padded_days=None)
+    monkeypatch.setitem(ddmod.KERNELS, "mean", slow_kernel)
+    slow = [cube.at_base("greensboro", s, e, base, kind) for kind in ("hdd", "cdd")]
+    for f, g in zip(fast, slow):
+        assert np.array_equal(f[0].view(np.int64), g[0].view(np.int64))
+        np.testing.assert_array_equal(f[2], g[2])
+    assert fast[0][2].max() > 0 and fast[0][0].max() > 0
