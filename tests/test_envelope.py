@@ -669,3 +669,25 @@ def test_row_percentiles_match_numpy_to_the_bit(draws):
         assert got.shape == ref.shape
         np.testing.assert_array_equal(np.isnan(got), np.isnan(ref))
         assert np.array_equal(np.nan_to_num(got).view(np.int64), np.nan_to_num(ref).view(np.int64))
+
+
+def test_expected_heating_block_size_changes_no_value(monkeypatch):
+    """The Monte Carlo runs in blocks of buildings only to bound memory: one building per block and
+    the whole portfolio in one block give the same bits (given inputs, a 1-D parameter shared by
+    all, buildings without weather)."""
+    rows = [
+        office(building_id=f"B{i}", floor_area_ft2=5_000.0 + 3_000.0 * i, stories=1 + i % 4, year_built=1900 + 9 * i)
+        for i in range(13)
+    ]
+    rows[3]["use_type"] = "retail"
+    rows[5]["ua_total_btu_h_f"] = 9_000.0
+    b = frame(rows)
+    env = ev.estimate_envelope(b)
+    curve = linear_curve(b.height) * np.linspace(0.6, 1.4, b.height)[:, None]
+    curve[7] = np.nan
+    out = []
+    for elements in (40, 10**9):
+        monkeypatch.setattr(ev, "_BLOCK_ELEMENTS", elements)
+        out.append(ev.expected_heating(env, GRID_F, curve, n_draws=40))
+    assert out[0].equals(out[1])
+    assert out[0]["expected_low_kbtu"].null_count() == 1
