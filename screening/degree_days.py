@@ -103,6 +103,8 @@ _EPOCH = _date(1970, 1, 1)
 # Differences of float64 running sums leave residues of order 1e-16 × |sum|; totals
 # below this are reported as exactly 0 [°F·day].
 _RESIDUE = 1e-8
+#: elements per step of the row-major range queries (:meth:`DegreeDayCube.range_rows`): 4 MB of float64
+_ROWS_STEP = 1 << 19
 
 
 def f_to_c(t_f):
@@ -795,9 +797,12 @@ class DegreeDayCube:
         if rows is None:
             rows = np.ascontiguousarray(self.cum_hdd.T)
             self.__dict__["_cum_rows"] = rows
-        out = rows[fb]
-        np.subtract(out, rows[fa], out=out)
-        out[out < _RESIDUE] = 0.0
+        out = np.take(rows, fb, axis=0)
+        step = _ROWS_STEP // max(1, rows.shape[1])  # temporaries of ≤ 4 MB: reused memory, no page faults
+        for a in range(0, fa.size, step):
+            o = out[a : a + step]
+            np.subtract(o, np.take(rows, fa[a : a + step], axis=0), out=o)
+            o[o < _RESIDUE] = 0.0
         return out
 
     def range_at(self, fa: np.ndarray, fb: np.ndarray, base_index: np.ndarray) -> np.ndarray:

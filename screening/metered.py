@@ -120,9 +120,13 @@ def _merged_intervals(r: pl.DataFrame, by: Sequence[str] = ("building_id",)) -> 
     new[0] = True
     new[1:] = (grp[1:] != grp[:-1]) | (s[1:] > run_max[:-1] + 1)
     starts = np.flatnonzero(new)
-    return o.select(by).gather(starts).with_columns(
-        pl.Series("_s", s[starts], dtype=o.schema["_s"]),
-        pl.Series("_e", np.maximum.reduceat(e, starts), dtype=o.schema["_e"]),
+    return (
+        o.select(by)
+        .gather(starts)
+        .with_columns(
+            pl.Series("_s", s[starts], dtype=o.schema["_s"]),
+            pl.Series("_e", np.maximum.reduceat(e, starts), dtype=o.schema["_e"]),
+        )
     )
 
 
@@ -965,6 +969,11 @@ def fit_periods(
     ).sort(["building_id", "period_start", "period_end"])
 
 
+#: elements per step of :func:`pad_periods`' scatter (4 MB of float64: the temporaries stay below the
+#: allocator's mapping threshold, so their memory is reused instead of faulted in afresh)
+_PAD_STEP = 1 << 19
+
+
 def pad_periods(
     periods: pl.DataFrame, period_hdd: np.ndarray, building_ids: Sequence[str] | pl.Series
 ) -> dict[str, np.ndarray]:
@@ -1002,8 +1011,12 @@ def pad_periods(
     d = p["days"].to_numpy().astype(float)
     days[bi, pi] = d
     use[bi, pi] = p["energy_kbtu"].to_numpy() / d
-    src = hdd if row.size == hdd.shape[0] and np.array_equal(row, np.arange(row.size)) else hdd[row]
-    x.reshape(n_b * n_p, n_k)[bi * n_p + pi] = src / d[:, None]  # one row index: a plain row scatter
+    same = row.size == hdd.shape[0] and np.array_equal(row, np.arange(row.size))
+    flat, x2 = bi * n_p + pi, x.reshape(n_b * n_p, n_k)  # one row index: a plain row scatter
+    step = max(1, _PAD_STEP // max(n_k, 1))  # temporaries of ≤ 4 MB: reused memory, no page faults
+    for a in range(0, row.size, step):  # steps only bound the temporaries; each row is one division
+        src = hdd[a : a + step] if same else hdd[row[a : a + step]]
+        x2[flat[a : a + step]] = src / d[a : a + step, None]
     valid[bi, pi] = p["usable"].to_numpy()
     return {"use_per_day": use, "days": days, "hdd_per_day": x, "valid": valid}
 

@@ -795,6 +795,17 @@ def test_flat_range_queries_equal_period_totals():
     np.testing.assert_array_equal(cube.range_totals(fa, fb), dd)
     j = rng.integers(0, bases.size, 300)
     np.testing.assert_array_equal(cube.range_at(fa, fb, j), dd[np.arange(300), j])
+    rows = cube.range_rows(fa, fb)
+    assert rows.flags["C_CONTIGUOUS"]
+    np.testing.assert_array_equal(rows, dd)
+    import screening.degree_days as ddmod
+
+    old = ddmod._ROWS_STEP
+    try:
+        ddmod._ROWS_STEP = 7 * bases.size  # 7 rows a step: the steps only bound the temporaries
+        np.testing.assert_array_equal(cube.range_rows(fa, fb), dd)
+    finally:
+        ddmod._ROWS_STEP = old
 
 
 def test_at_base_padded_fast_path_equals_masked_path(monkeypatch):

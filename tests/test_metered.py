@@ -695,3 +695,40 @@ def test_fit_block_size_does_not_change_a_bit():
                 assert np.array_equal(a.view(np.int64), v.view(np.int64)), (chunk, k)
             else:
                 np.testing.assert_array_equal(a, v, err_msg=f"{chunk} {k}")
+
+
+def test_pad_periods_steps_and_row_order(monkeypatch):
+    """pad_periods puts each period at its building's row and period slot, divided by its days, the
+    same in small steps as in one, for rows in order and for a subset of them (by hand)."""
+    rng = np.random.default_rng(4)
+    n = 60
+    ids = [f"B{i}" for i in sorted(rng.integers(0, 9, n))]
+    s = [date(2024, 1, 1) + timedelta(days=int(k)) for k in range(n)]
+    periods = pl.DataFrame(
+        {
+            "building_id": ids,
+            "period_start": s,
+            "period_end": s,
+            "days": rng.integers(20, 40, n),
+            "energy_kbtu": rng.uniform(1, 100, n),
+            "usable": rng.random(n) < 0.8,
+        }
+    )
+    hdd = rng.uniform(0, 900, (n, GRID.size))
+    order = ["B8", "B0", "B3", "Bx", "B1", "B2", "B4", "B5", "B6", "B7"]
+    ref = M.pad_periods(periods, hdd, order)
+    monkeypatch.setattr(M, "_PAD_STEP", 3 * GRID.size)
+    got = M.pad_periods(periods, hdd, order)
+    for k in ref:
+        np.testing.assert_array_equal(got[k], ref[k])
+    slot: dict = {}
+    for i, b in enumerate(ids):
+        r, p = order.index(b), slot.get(b, 0)
+        slot[b] = p + 1
+        np.testing.assert_array_equal(got["hdd_per_day"][r, p], hdd[i] / periods["days"][i])
+    assert not got["valid"][order.index("Bx")].any()
+    sub = M.pad_periods(periods.filter(pl.col("building_id") != "B3"), hdd[np.array(ids) != "B3"], ["B3", "B0"])
+    assert not sub["valid"][0].any()
+    np.testing.assert_array_equal(
+        sub["hdd_per_day"][1], ref["hdd_per_day"][order.index("B0"), : sub["hdd_per_day"].shape[1]]
+    )
