@@ -103,6 +103,9 @@ _EPOCH = _date(1970, 1, 1)
 # Differences of float64 running sums leave residues of order 1e-16 × |sum|; totals
 # below this are reported as exactly 0 [°F·day].
 _RESIDUE = 1e-8
+#: day cells per padded block of :meth:`DegreeDayCube.at_base` (2 MB of float64: in cache, and below the
+#: allocator's mapping threshold; a row's sum does not depend on the block it is in)
+_AT_BASE_CELLS = 1 << 18
 #: elements per step of the row-major range queries (:meth:`DegreeDayCube.range_rows`): 4 MB of float64
 _ROWS_STEP = 1 << 19
 
@@ -833,7 +836,7 @@ class DegreeDayCube:
         Notes
         -----
         The daily data of every span are gathered into a padded block (rows sorted by
-        span length and processed in blocks of ≤ ~4 million day cells to bound memory)
+        span length and processed in blocks of ≤ 262,144 day cells, 2 MB, to bound memory and stay in cache)
         and the method's daily formula is applied at each row's base; CDD by the identity.
         """
         _check_kind(kind)
@@ -845,7 +848,7 @@ class DegreeDayCube:
         length = fb - fa
         out = np.zeros(n)
         width = self.extra["hourly"].shape[1] if "hourly" in self.extra else 1
-        budget = max(1, 4_000_000 // width)
+        budget = max(1, _AT_BASE_CELLS // width)
         # bucket rows by span length (powers of two: ≤ 2× padding), then blocks of ≤ budget cells
         padded = KERNELS[self.method].padded_days
         bucket = np.ceil(np.log2(np.maximum(length, 1))).astype(np.int64)
