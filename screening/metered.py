@@ -91,6 +91,42 @@ def _ordinal(col: str) -> pl.Expr:
     return pl.col(col).cast(pl.Date).cast(pl.Int64)
 
 
+def _group_rank(df: pl.DataFrame, by: Sequence[str]) -> np.ndarray:
+    """Rank (0, 1, …) of each row's ``by`` group in a frame sorted by ``by``: a new rank where the keys change."""
+    by = list(by)
+    ids = df.select(pl.struct(by).rle_id()).to_series() if len(by) > 1 else df[by[0]].rle_id()
+    return ids.to_numpy().astype(np.int64)
+
+
+def _run_max(x: np.ndarray, grp: np.ndarray) -> np.ndarray:
+    """Running maximum of integers ``x`` within each group (``grp`` non-decreasing ranks, rows sorted by
+    group): the rank times a stride above any ``x`` is added, so one cumulative maximum over all rows
+    never reaches back into the previous group."""
+    if x.size == 0:
+        return x.copy()
+    lo = int(x.min())
+    stride = int(x.max()) - lo + 2
+    return np.maximum.accumulate(grp * stride + (x - lo)) - grp * stride + lo
+
+
+def _prev_run_max(df: pl.DataFrame, by: Sequence[str], col: str) -> pl.Series:
+    """``pl.col(col).cum_max().shift(1).over(by)`` of a frame sorted by ``by`` whose ``col`` (a date or
+    integer): the maximum of the group's earlier rows, null on each group's first row (with nulls in
+    ``col``, polars' own window)."""
+    if df[col].null_count():
+        return df.select(pl.col(col).cum_max().shift(1).over(list(by))).to_series()
+    x = df[col].to_physical().cast(pl.Int64).to_numpy()
+    grp = _group_rank(df, by)
+    prev = np.empty(x.size, dtype=np.int64)
+    first = np.ones(x.size, dtype=bool)
+    if x.size:
+        prev[1:] = _run_max(x, grp)[:-1]
+        prev[0] = 0
+        first[1:] = grp[1:] != grp[:-1]
+    out = pl.Series(col, prev).cast(df.schema[col])
+    return pl.select(pl.when(pl.lit(pl.Series(first))).then(None).otherwise(pl.lit(out))).to_series().alias(col)
+
+
 def _merged_intervals(r: pl.DataFrame, by: Sequence[str] = ("building_id",)) -> pl.DataFrame:
     """Each building's (each ``by`` group's) reading periods merged into disjoint day intervals
     ``_s.._e`` (ordinals), columns ``*by, _s, _e``.
@@ -111,11 +147,8 @@ def _merged_intervals(r: pl.DataFrame, by: Sequence[str] = ("building_id",)) -> 
     e = o["_e"].to_numpy()
     if s.size == 0:
         return o
-    grp = (o.select(pl.struct(by).rle_id()).to_series() if len(by) > 1 else o[by[0]].rle_id()).to_numpy()
-    grp = grp.astype(np.int64)
-    lo = min(int(s.min()), int(e.min()))
-    stride = int(e.max()) - lo + 2
-    run_max = np.maximum.accumulate(grp * stride + (e - lo)) - grp * stride + lo  # cum max of _e within group
+    grp = _group_rank(o, by)
+    run_max = _run_max(e, grp)  # cum max of _e within group
     new = np.empty(s.size, dtype=bool)
     new[0] = True
     new[1:] = (grp[1:] != grp[:-1]) | (s[1:] > run_max[:-1] + 1)
@@ -863,9 +896,8 @@ def missing_bills(
     meter = (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
     r = _heat(readings).select("building_id", meter.alias("meter_id"), "period_start", "period_end")
     # building level: stretches of the window without any read
-    b = r.sort(["building_id", "period_start", "period_end"]).with_columns(
-        pl.col("period_end").cum_max().shift(1).over("building_id").alias("_pe")
-    )
+    b = r.sort(["building_id", "period_start", "period_end"])
+    b = b.with_columns(_prev_run_max(b, ["building_id"], "period_end").alias("_pe"))
     inner = b.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one)).select(
         "building_id", (pl.col("_pe") + one).alias("gap_start"), (pl.col("period_start") - one).alias("gap_end")
     )
@@ -885,9 +917,8 @@ def missing_bills(
     ).select("building_id", (pl.col("_e") + one).alias("gap_start"), we.alias("gap_end"))
     whole = pl.concat([inner, lead, tail]).with_columns(pl.lit(None, pl.String).alias("meter_id"))
     # meter level: gaps between consecutive reads of one meter
-    m = r.sort(["building_id", "meter_id", "period_start", "period_end"]).with_columns(
-        pl.col("period_end").cum_max().shift(1).over("building_id", "meter_id").alias("_pe")
-    )
+    m = r.sort(["building_id", "meter_id", "period_start", "period_end"])
+    m = m.with_columns(_prev_run_max(m, ["building_id", "meter_id"], "period_end").alias("_pe"))
     mg = m.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one)).select(
         "building_id",
         "meter_id",

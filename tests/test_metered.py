@@ -732,3 +732,30 @@ def test_pad_periods_steps_and_row_order(monkeypatch):
     np.testing.assert_array_equal(
         sub["hdd_per_day"][1], ref["hdd_per_day"][order.index("B0"), : sub["hdd_per_day"].shape[1]]
     )
+
+
+@pytest.mark.parametrize("by", [["building_id"], ["building_id", "meter_id"]])
+def test_prev_run_max_equals_the_polars_window(by):
+    """_prev_run_max (one cumulative maximum over rank-offset values) is polars'
+    cum_max().shift(1).over(by) on sorted frames: dates, nulls in the column, one-row groups."""
+    rng = np.random.default_rng(3)
+    n = 500
+    df = pl.DataFrame(
+        {
+            "building_id": [f"B{int(i)}" for i in rng.integers(0, 40, n)],
+            "meter_id": rng.choice(["m1", "m2", ""], n).tolist(),
+            "period_end": [date(2023, 1, 1) + timedelta(days=int(k)) for k in rng.integers(-50, 900, n)],
+        }
+    ).sort([*by, "period_end"])
+    want = df.select(pl.col("period_end").cum_max().shift(1).over(by)).to_series()
+    got = M._prev_run_max(df, by, "period_end")
+    assert got.dtype == pl.Date and got.equals(want)
+    shuffled = df.with_columns(pl.Series("period_end", rng.permutation(df["period_end"].to_numpy())))
+    want = shuffled.select(pl.col("period_end").cum_max().shift(1).over(by)).to_series()
+    assert M._prev_run_max(shuffled, by, "period_end").equals(want)  # not sorted within the group
+    with_nulls = df.with_columns(
+        pl.when(pl.int_range(pl.len()) % 7 == 0).then(None).otherwise("period_end").alias("period_end")
+    )
+    want = with_nulls.select(pl.col("period_end").cum_max().shift(1).over(by)).to_series()
+    assert M._prev_run_max(with_nulls, by, "period_end").equals(want)
+    assert M._prev_run_max(df.head(0), by, "period_end").len() == 0
