@@ -103,6 +103,11 @@ _EPOCH = _date(1970, 1, 1)
 # Differences of float64 running sums leave residues of order 1e-16 × |sum|; totals
 # below this are reported as exactly 0 [°F·day].
 _RESIDUE = 1e-8
+#: day cells per padded block of :meth:`DegreeDayCube.at_base` (2 MB of float64: in cache, and below the
+#: allocator's mapping threshold; a row's sum does not depend on the block it is in)
+_AT_BASE_CELLS = 1 << 18
+#: elements per step of the row-major range queries (:meth:`DegreeDayCube.range_rows`): 4 MB of float64
+_ROWS_STEP = 1 << 19
 
 
 def f_to_c(t_f):
@@ -758,7 +763,23 @@ class DegreeDayCube:
             must act on it; nothing is zero-filled silently.
         """
         _check_kind(kind)
+        fa, fb, days = self.flat_ranges(station_ids, starts, ends)
+        return self.range_totals(fa, fb, kind), days, self.range_missing(fa, fb, days)
+
+    def flat_ranges(self, station_ids, starts, ends) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Each period's half-open range ``[fa, fb)`` of flat days with a record, and its calendar days.
+
+        For a set of periods queried several times (:meth:`range_totals`, :meth:`range_at`,
+        :meth:`range_missing`): the stations are looked up and the dates checked once.
+        Arguments and errors as :meth:`period_totals`; returns three int64 arrays (n,).
+        """
         _, s0, e0, fa, fb = self._rows(station_ids, starts, ends)
+        return fa, fb, e0 - s0 + 1
+
+    def range_totals(self, fa: np.ndarray, fb: np.ndarray, kind: str = "hdd") -> np.ndarray:
+        """``period_totals(...)[0]`` of the flat ranges from :meth:`flat_ranges` [°F·day], (n, n_bases)
+        column-major: ``Σ dd = cum[fb] − cum[fa]`` per grid base, residues below 1e-8 set to 0."""
+        _check_kind(kind)
         valid = self.cum_valid[fb] - self.cum_valid[fa]
         sum_tm = self.cum_tm[fb] - self.cum_tm[fa] if kind == "cdd" else None
         out = _alloc_f64((self.bases_f.size, fa.size))  # one row per base, filled row by row
@@ -769,9 +790,34 @@ class DegreeDayCube:
             if sum_tm is not None:
                 row -= valid * b - sum_tm
             row[row < _RESIDUE] = 0.0
-        dd = out.T
-        days = e0 - s0 + 1
-        return dd, days, days - valid
+        return out.T
+
+    def range_rows(self, fa: np.ndarray, fb: np.ndarray) -> np.ndarray:
+        """``range_totals(fa, fb)`` (HDD) as a row-major (n, n_bases) array [°F·day]: the same values,
+        each period's bases contiguous (for consumers that read a row at a time, e.g. the padded
+        regression arrays), taken from a row-major copy of the running sums made once per cube."""
+        rows = self.__dict__.get("_cum_rows")
+        if rows is None:
+            rows = np.ascontiguousarray(self.cum_hdd.T)
+            self.__dict__["_cum_rows"] = rows
+        out = np.take(rows, fb, axis=0)
+        step = _ROWS_STEP // max(1, rows.shape[1])  # temporaries of ≤ 4 MB: reused memory, no page faults
+        for a in range(0, fa.size, step):
+            o = out[a : a + step]
+            np.subtract(o, np.take(rows, fa[a : a + step], axis=0), out=o)
+            o[o < _RESIDUE] = 0.0
+        return out
+
+    def range_at(self, fa: np.ndarray, fb: np.ndarray, base_index: np.ndarray) -> np.ndarray:
+        """HDD of each flat range at its own grid base ``bases_f[base_index[i]]`` [°F·day], (n,):
+        ``range_totals(fa, fb)[i, base_index[i]]`` without the other bases."""
+        out = self.cum_hdd[base_index, fb] - self.cum_hdd[base_index, fa]
+        out[out < _RESIDUE] = 0.0
+        return out
+
+    def range_missing(self, fa: np.ndarray, fb: np.ndarray, days: np.ndarray) -> np.ndarray:
+        """Days without data of each flat range (``days`` its calendar days), int64 (n,)."""
+        return days - (self.cum_valid[fb] - self.cum_valid[fa])
 
     def at_base(self, station_ids, starts, ends, base_f, kind: str = "hdd"):
         """Exact degree days at an arbitrary base per row (not interpolated on the grid).
@@ -790,7 +836,7 @@ class DegreeDayCube:
         Notes
         -----
         The daily data of every span are gathered into a padded block (rows sorted by
-        span length and processed in blocks of ≤ ~4 million day cells to bound memory)
+        span length and processed in blocks of ≤ 262,144 day cells, 2 MB, to bound memory and stay in cache)
         and the method's daily formula is applied at each row's base; CDD by the identity.
         """
         _check_kind(kind)
@@ -802,8 +848,9 @@ class DegreeDayCube:
         length = fb - fa
         out = np.zeros(n)
         width = self.extra["hourly"].shape[1] if "hourly" in self.extra else 1
-        budget = max(1, 4_000_000 // width)
+        budget = max(1, _AT_BASE_CELLS // width)
         # bucket rows by span length (powers of two: ≤ 2× padding), then blocks of ≤ budget cells
+        padded = KERNELS[self.method].padded_days
         bucket = np.ceil(np.log2(np.maximum(length, 1))).astype(np.int64)
         for k in np.unique(bucket[length > 0]):  # ≤ ~15 buckets; blocks only bound memory
             rows = np.nonzero((bucket == k) & (length > 0))[0]
@@ -813,6 +860,10 @@ class DegreeDayCube:
             for i in range(0, rows.size, step):
                 blk = rows[i : i + step]
                 inside = ks[None, :] < length[blk, None]
+                if padded is not None:  # the same values, with a "no day" index instead of two masks
+                    idx = np.where(inside, fa[blk, None] + ks[None, :], self.tm.size)
+                    out[blk] = np.sum(padded(self, idx, base[blk, None]), axis=1)
+                    continue
                 idx = np.where(inside, fa[blk, None] + ks[None, :], 0)
                 d = self._hdd_days(idx, np.broadcast_to(base[blk, None], idx.shape))
                 out[blk] = np.sum(np.where(inside, d, 0.0), axis=1)
@@ -964,6 +1015,20 @@ def _mean_days(cube, idx, ix, base, grid):
     return out
 
 
+def _mean_padded_days(cube, idx, base):
+    """(base − Tm)⁺ [°F·day] of flat days ``idx`` (broadcast against ``base``), 0 for a missing day
+    and for ``idx == n_flat`` (no day): there Tm is +∞, and (base − ∞)⁺ = 0, the value that
+    :meth:`DegreeDayCube._hdd_days` and the caller's mask give. The +∞-padded daily means are
+    made once per cube."""
+    t = cube.__dict__.get("_tm_or_inf")
+    if t is None:
+        t = np.append(np.where(cube.valid, cube.tm, np.inf), np.inf)
+        cube.__dict__["_tm_or_inf"] = t
+    out = np.subtract(base, t[idx])
+    np.maximum(out, 0.0, out=out)
+    return out
+
+
 def _maxmin_days(cube, idx, ix, base, grid):
     """The Met Office daily HDD from t_max and t_min (:func:`_maxmin_hdd`) [°F·day]."""
     out = _maxmin_hdd(cube.extra["tmax"][ix], cube.extra["tmin"][ix], base)
@@ -1010,12 +1075,15 @@ class Kernel:
     cumulate: Callable
     hdd_days: Callable
     rounds: bool = False  # the published rounding of the daily mean applies (mean method only)
+    # ``padded_days(cube, idx, base)``: hdd_days with missing days and the index n_flat ("no day") at 0,
+    # without masks (at_base's padded blocks); None: at_base masks hdd_days' values
+    padded_days: Callable | None = None
     estimate: bool = False  # its degree days are estimates, to be marked so
 
 
 #: method name -> its kernel; the names are :data:`METHODS`
 KERNELS: dict[str, Kernel] = {
-    "mean": Kernel(_mean_from_daily, _mean_cumulate, _mean_days, rounds=True),
+    "mean": Kernel(_mean_from_daily, _mean_cumulate, _mean_days, rounds=True, padded_days=_mean_padded_days),
     "maxmin": Kernel(_maxmin_from_daily, _maxmin_cumulate, _maxmin_days),
     "hourly": Kernel(None, _by_day_cumulate, _hourly_days),
     "monthly-estimate": Kernel(_monthly_estimate_from_daily, _by_day_cumulate, _monthly_estimate_days, estimate=True),

@@ -91,35 +91,94 @@ def _ordinal(col: str) -> pl.Expr:
     return pl.col(col).cast(pl.Date).cast(pl.Int64)
 
 
-def _merged_intervals(r: pl.DataFrame) -> pl.DataFrame:
-    """Each building's reading periods merged into disjoint day intervals ``_s.._e`` (ordinals).
+def _group_rank(df: pl.DataFrame, by: Sequence[str]) -> np.ndarray:
+    """Rank (0, 1, …) of each row's ``by`` group in a frame sorted by ``by``: a new rank where the keys change."""
+    by = list(by)
+    ids = df.select(pl.struct(by).rle_id()).to_series() if len(by) > 1 else df[by[0]].rle_id()
+    return ids.to_numpy().astype(np.int64)
 
-    Periods that overlap or touch become one interval, so a day read twice is counted once.
+
+def _run_max(x: np.ndarray, grp: np.ndarray) -> np.ndarray:
+    """Running maximum of integers ``x`` within each group (``grp`` non-decreasing ranks, rows sorted by
+    group): the rank times a stride above any ``x`` is added, so one cumulative maximum over all rows
+    never reaches back into the previous group."""
+    if x.size == 0:
+        return x.copy()
+    lo = int(x.min())
+    stride = int(x.max()) - lo + 2
+    return np.maximum.accumulate(grp * stride + (x - lo)) - grp * stride + lo
+
+
+def _prev_run_max(df: pl.DataFrame, by: Sequence[str], col: str) -> pl.Series:
+    """``pl.col(col).cum_max().shift(1).over(by)`` of a frame sorted by ``by`` whose ``col`` (a date or
+    integer): the maximum of the group's earlier rows, null on each group's first row (with nulls in
+    ``col``, polars' own window)."""
+    if df[col].null_count():
+        return df.select(pl.col(col).cum_max().shift(1).over(list(by))).to_series()
+    x = df[col].to_physical().cast(pl.Int64).to_numpy()
+    grp = _group_rank(df, by)
+    prev = np.empty(x.size, dtype=np.int64)
+    first = np.ones(x.size, dtype=bool)
+    if x.size:
+        prev[1:] = _run_max(x, grp)[:-1]
+        prev[0] = 0
+        first[1:] = grp[1:] != grp[:-1]
+    out = pl.Series(col, prev).cast(df.schema[col])
+    return pl.select(pl.when(pl.lit(pl.Series(first))).then(None).otherwise(pl.lit(out))).to_series().alias(col)
+
+
+def _merged_intervals(r: pl.DataFrame, by: Sequence[str] = ("building_id",)) -> pl.DataFrame:
+    """Each building's (each ``by`` group's) reading periods merged into disjoint day intervals
+    ``_s.._e`` (ordinals), columns ``*by, _s, _e``.
+
+    Periods that overlap or touch become one interval, so a day read twice is counted once. Rows
+    sorted by ``by, _s, _e``; an interval starts where a group starts or where ``_s`` lies beyond
+    one day after the running maximum of the group's earlier ends (a running maximum per group:
+    the group's rank times a stride above any ordinal is added, so one cumulative maximum over all
+    rows never reaches back into the previous group).
     """
+    by = list(by)
     o = (
-        r.select("building_id", _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e"))
+        r.select(*by, _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e"))
         .filter(pl.col("_s") <= pl.col("_e"))
-        .sort(["building_id", "_s", "_e"])
+        .sort([*by, "_s", "_e"])
     )
-    o = o.with_columns(pl.col("_e").cum_max().shift(1).over("building_id").alias("_pe"))
-    o = o.with_columns((pl.col("_pe").is_null() | (pl.col("_s") > pl.col("_pe") + 1)).cum_sum().alias("_g"))
-    return o.group_by("_g").agg(pl.col("building_id").first(), pl.col("_s").min(), pl.col("_e").max()).drop("_g")
+    s = o["_s"].to_numpy()
+    e = o["_e"].to_numpy()
+    if s.size == 0:
+        return o
+    grp = _group_rank(o, by)
+    run_max = _run_max(e, grp)  # cum max of _e within group
+    new = np.empty(s.size, dtype=bool)
+    new[0] = True
+    new[1:] = (grp[1:] != grp[:-1]) | (s[1:] > run_max[:-1] + 1)
+    starts = np.flatnonzero(new)
+    return (
+        o.select(by)
+        .gather(starts)
+        .with_columns(
+            pl.Series("_s", s[starts], dtype=o.schema["_s"]),
+            pl.Series("_e", np.maximum.reduceat(e, starts), dtype=o.schema["_e"]),
+        )
+    )
 
 
-def _union_coverage(r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str]) -> pl.DataFrame:
+def _union_coverage(
+    r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str], by: Sequence[str] = ("building_id",)
+) -> pl.DataFrame:
     """Days of each span covered by at least one reading (overlaps counted once).
 
-    ``r``: ``building_id, period_start, period_end``; ``spans``: ``keys`` (including building_id),
-    ``span_start, span_end``. Returns ``keys, covered_days`` for every span row.
+    ``r``: ``by, period_start, period_end``; ``spans``: ``keys`` (including ``by``, by default
+    building_id), ``span_start, span_end``. Returns ``keys, covered_days`` for every span row.
 
-    The readings are first merged into disjoint intervals per building (usually one or a few), so
-    the join with the spans has one row per span and interval, not per span and reading.
+    The readings are first merged into disjoint intervals per ``by`` group (usually one or a few),
+    so the join with the spans has one row per span and interval, not per span and reading.
     """
     keys = list(keys)
-    m = _merged_intervals(r)
+    m = _merged_intervals(r, by)
     j = (
         spans.select(*keys, _ordinal("span_start").alias("_ss"), _ordinal("span_end").alias("_se"))
-        .join(m, on="building_id", how="inner")
+        .join(m, on=list(by), how="inner")
         .select(
             *keys,
             (pl.min_horizontal("_e", "_se") - pl.max_horizontal("_s", "_ss") + 1).clip(lower_bound=0).alias("_cov"),
@@ -413,17 +472,11 @@ def calendarize(
     )
     keyed = agg.select("building_id", "fuel", "span_start", "span_end")
     cov = _union_coverage(
-        r.select("building_id", "fuel", "period_start", "period_end")
-        .rename({"building_id": "_b"})
-        .with_columns(pl.concat_str("_b", pl.lit("\x1f"), "fuel").alias("building_id")),
-        keyed.with_columns(pl.concat_str("building_id", pl.lit("\x1f"), "fuel").alias("_bf")).select(
-            pl.col("_bf").alias("building_id"), "span_start", "span_end"
-        ),
-        ["building_id"],
+        r.select("building_id", "fuel", "period_start", "period_end"),
+        keyed,
+        ["building_id", "fuel"],
+        by=["building_id", "fuel"],
     )
-    cov = cov.with_columns(
-        pl.col("building_id").str.split_exact("\x1f", 1).struct.rename_fields(["building_id", "fuel"])
-    ).unnest("building_id")
     out = (
         agg.join(cov, on=["building_id", "fuel"], how="left")
         .with_columns(((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days"))
@@ -898,9 +951,8 @@ def missing_bills(
     meter = (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
     r = _heat(readings).select("building_id", meter.alias("meter_id"), "period_start", "period_end")
     # building level: stretches of the window without any read
-    b = r.sort(["building_id", "period_start", "period_end"]).with_columns(
-        pl.col("period_end").cum_max().shift(1).over("building_id").alias("_pe")
-    )
+    b = r.sort(["building_id", "period_start", "period_end"])
+    b = b.with_columns(_prev_run_max(b, ["building_id"], "period_end").alias("_pe"))
     inner = b.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one)).select(
         "building_id", (pl.col("_pe") + one).alias("gap_start"), (pl.col("period_start") - one).alias("gap_end")
     )
@@ -920,9 +972,8 @@ def missing_bills(
     ).select("building_id", (pl.col("_e") + one).alias("gap_start"), we.alias("gap_end"))
     whole = pl.concat([inner, lead, tail]).with_columns(pl.lit(None, pl.String).alias("meter_id"))
     # meter level: gaps between consecutive reads of one meter
-    m = r.sort(["building_id", "meter_id", "period_start", "period_end"]).with_columns(
-        pl.col("period_end").cum_max().shift(1).over("building_id", "meter_id").alias("_pe")
-    )
+    m = r.sort(["building_id", "meter_id", "period_start", "period_end"])
+    m = m.with_columns(_prev_run_max(m, ["building_id", "meter_id"], "period_end").alias("_pe"))
     mg = m.filter(pl.col("_pe").is_not_null() & (pl.col("period_start") > pl.col("_pe") + one)).select(
         "building_id",
         "meter_id",
@@ -1004,6 +1055,11 @@ def fit_periods(
     ).sort(["building_id", "period_start", "period_end"])
 
 
+#: elements per step of :func:`pad_periods`' scatter (4 MB of float64: the temporaries stay below the
+#: allocator's mapping threshold, so their memory is reused instead of faulted in afresh)
+_PAD_STEP = 1 << 19
+
+
 def pad_periods(
     periods: pl.DataFrame, period_hdd: np.ndarray, building_ids: Sequence[str] | pl.Series
 ) -> dict[str, np.ndarray]:
@@ -1041,7 +1097,12 @@ def pad_periods(
     d = p["days"].to_numpy().astype(float)
     days[bi, pi] = d
     use[bi, pi] = p["energy_kbtu"].to_numpy() / d
-    x[bi, pi, :] = hdd[row] / d[:, None]
+    same = row.size == hdd.shape[0] and np.array_equal(row, np.arange(row.size))
+    flat, x2 = bi * n_p + pi, x.reshape(n_b * n_p, n_k)  # one row index: a plain row scatter
+    step = max(1, _PAD_STEP // max(n_k, 1))  # temporaries of ≤ 4 MB: reused memory, no page faults
+    for a in range(0, row.size, step):  # steps only bound the temporaries; each row is one division
+        src = hdd[a : a + step] if same else hdd[row[a : a + step]]
+        x2[flat[a : a + step]] = src / d[a : a + step, None]
     valid[bi, pi] = p["usable"].to_numpy()
     return {"use_per_day": use, "days": days, "hdd_per_day": x, "valid": valid}
 
@@ -1060,7 +1121,7 @@ def fit_variable_base(
     *,
     min_periods: int = 9,
     max_period_days: int = 62,
-    chunk: int = 2048,
+    chunk: int = 256,
 ) -> dict[str, np.ndarray]:
     """Variable-base degree-day regression of bills (Fels 1986, PRISM), all buildings at once,
     with a baseload that is never negative.
@@ -1111,7 +1172,8 @@ def fit_variable_base(
     valid : (n_b, p) bool; further restricted to 0 < days ≤ ``max_period_days``.
     min_periods : buildings with fewer valid periods are ``not_fitted`` (Fels: at least 9 bills of
         ≤ 62 days in the last 24 months, per the spec).
-    chunk : buildings per block (memory bound; blocks, not buildings, are looped over).
+    chunk : buildings per block (memory bound; blocks, not buildings, are looped over; 256 keeps a
+        block's (buildings × periods × bases) temporaries near 4 MB, in cache; results do not depend on it).
 
     Returns
     -------

@@ -272,33 +272,25 @@ class _PeriodHdd:
     The whole (periods × bases) array is 71 × 8 bytes per period (gigabytes for millions of
     periods), so callers take it a block of rows at a time: ``self(rows)`` is
     ``cube.period_totals(...)[0][rows]``, ``missing()`` the days without weather of every row,
-    ``at(j)`` row i's value at base index ``j[i]``.
+    ``at(j)`` row i's value at base index ``j[i]`` (these two need no more than one base per row,
+    so they take every row at once). The stations are looked up once, here.
     """
-
-    BLOCK = 1 << 17
 
     def __init__(self, cube, periods: pl.DataFrame):
         self.cube = cube
-        self.st = periods["station_id"]
-        self.start = periods["period_start"]
-        self.end = periods["period_end"]
+        self.fa, self.fb, self.days = cube.flat_ranges(
+            periods["station_id"], periods["period_start"], periods["period_end"]
+        )
         self.n = periods.height
 
-    def _totals(self, rows: np.ndarray):
-        return self.cube.period_totals(self.st.gather(rows), self.start.gather(rows), self.end.gather(rows))
-
     def __call__(self, rows: np.ndarray) -> np.ndarray:
-        return self._totals(rows)[0]
-
-    def _blocks(self):
-        for a in range(0, self.n, self.BLOCK):
-            yield np.arange(a, min(a + self.BLOCK, self.n))
+        return self.cube.range_rows(self.fa[rows], self.fb[rows])
 
     def missing(self) -> np.ndarray:
-        return np.concatenate([self._totals(r)[2] for r in self._blocks()])
+        return self.cube.range_missing(self.fa, self.fb, self.days)
 
     def at(self, j: np.ndarray) -> np.ndarray:
-        return np.concatenate([self(r)[np.arange(r.size), j[r]] for r in self._blocks()])
+        return self.cube.range_at(self.fa, self.fb, j)
 
 
 #: Buildings per regression block (:func:`screening.metered._fit_in_blocks`); a chunk of the two-pass

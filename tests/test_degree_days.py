@@ -775,3 +775,59 @@ def test_degree_day_table_periods_and_units():
     assert t["station_id"].to_list() == ["ST0", "ST1"] and t["days"].to_list() == [31, 31]
     with pytest.raises(ValueError, match="by must be one of day, month, year, period; got 'week'"):
         degree_day_table(cube, by="week")
+
+
+def test_flat_range_queries_equal_period_totals():
+    """range_totals / range_at / range_missing (one station lookup, reused) give period_totals' values
+    to the bit: periods inside, across and beyond the record, one day long, and at every grid base."""
+    bases = np.arange(40.0, 75.5, 0.5)
+    w = tmy_daily("greensboro")
+    w = w.filter(pl.col("date").dt.day() != 17)  # days without data inside the record
+    cube = DegreeDayCube.from_daily(w, bases)
+    rng = np.random.default_rng(5)
+    s = np.datetime64("1989-12-01") + rng.integers(0, 400, 300).astype("timedelta64[D]")
+    e = s + rng.integers(0, 70, 300).astype("timedelta64[D]")
+    dd, days, missing = cube.period_totals("greensboro", s, e)
+    fa, fb, d = cube.flat_ranges("greensboro", s, e)
+    np.testing.assert_array_equal(d, days)
+    np.testing.assert_array_equal(cube.range_missing(fa, fb, d), missing)
+    assert missing.max() > 0 and missing.min() == 0
+    np.testing.assert_array_equal(cube.range_totals(fa, fb), dd)
+    j = rng.integers(0, bases.size, 300)
+    np.testing.assert_array_equal(cube.range_at(fa, fb, j), dd[np.arange(300), j])
+    rows = cube.range_rows(fa, fb)
+    assert rows.flags["C_CONTIGUOUS"]
+    np.testing.assert_array_equal(rows, dd)
+    import screening.degree_days as ddmod
+
+    old = ddmod._ROWS_STEP
+    try:
+        ddmod._ROWS_STEP = 7 * bases.size  # 7 rows a step: the steps only bound the temporaries
+        np.testing.assert_array_equal(cube.range_rows(fa, fb), dd)
+    finally:
+        ddmod._ROWS_STEP = old
+
+
+def test_at_base_padded_fast_path_equals_masked_path(monkeypatch):
+    """The mean method's at_base without masks ("no day" index, +inf for missing days) gives the
+    masked path's bits: spans inside, across and beyond the record, with missing days, HDD and CDD."""
+    import dataclasses
+
+    from screening import degree_days as ddmod
+
+    w = tmy_daily("greensboro").filter(pl.col("date").dt.day() != 9)
+    cube = DegreeDayCube.from_daily(w, np.arange(40.0, 75.5, 0.5))
+    rng = np.random.default_rng(9)
+    s = np.datetime64("1989-10-01") + rng.integers(0, 500, 400).astype("timedelta64[D]")
+    e = s + rng.integers(0, 400, 400).astype("timedelta64[D]")
+    base = rng.uniform(35.0, 80.0, 400)
+    fast = [cube.at_base("greensboro", s, e, base, kind) for kind in ("hdd", "cdd")]
+    slow_kernel = dataclasses.replace(ddmod.KERNELS["mean"], padded_days=None)
+    monkeypatch.setitem(ddmod.KERNELS, "mean", slow_kernel)
+    slow = [cube.at_base("greensboro", s, e, base, kind) for kind in ("hdd", "cdd")]
+    monkeypatch.setattr(ddmod, "_AT_BASE_CELLS", 1500)  # a few rows per block: blocks only bound memory
+    small = [cube.at_base("greensboro", s, e, base, kind) for kind in ("hdd", "cdd")]
+    for f, g in zip(fast + fast, slow + small):
+        assert np.array_equal(f[0].view(np.int64), g[0].view(np.int64))
+        np.testing.assert_array_equal(f[2], g[2])
+    assert fast[0][2].max() > 0 and fast[0][0].max() > 0

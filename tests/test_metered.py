@@ -630,3 +630,132 @@ def test_filled_end_days_without_a_fit_follow_days_and_degree_days():
     assert g["fit_method"] == "default share"
     assert g["filled_kbtu"] == pytest.approx(fill, rel=1e-9)
     assert g["total_fuel_kbtu"] == pytest.approx(sum(q) + fill, rel=1e-9)
+
+
+def _merged_days_by_hand(r: pl.DataFrame, by: list[str]) -> dict:
+    """Days read at least once per group, one by one (the reference of _merged_intervals)."""
+    out: dict = {}
+    for row in r.iter_rows(named=True):
+        k = tuple(row[c] for c in by)
+        d, e = row["period_start"], row["period_end"]
+        while d <= e:
+            out.setdefault(k, set()).add(d.toordinal())
+            d += timedelta(days=1)
+    return out
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+@pytest.mark.parametrize("by", [["building_id"], ["building_id", "fuel"]])
+def test_merged_intervals_disjoint_and_cover_the_read_days(seed, by):
+    """Merged intervals are disjoint, not touching within a group, and cover exactly the days read
+    (overlapping, touching, nested, one-day and reversed periods; several groups)."""
+    rng = np.random.default_rng(seed)
+    n = 400
+    start = date(2024, 1, 1)
+    s = [start + timedelta(days=int(x)) for x in rng.integers(0, 200, n)]
+    e = [a + timedelta(days=int(x)) for a, x in zip(s, rng.integers(-3, 40, n))]
+    r = pl.DataFrame(
+        {
+            "building_id": [f"B{int(x)}" for x in rng.integers(0, 12, n)],
+            "fuel": rng.choice(["gas", "oil"], n).tolist(),
+            "period_start": s,
+            "period_end": e,
+        }
+    )
+    m = M._merged_intervals(r, by)
+    assert m.columns == [*by, "_s", "_e"]
+    got: dict = {}
+    for row in m.sort([*by, "_s"]).iter_rows(named=True):
+        k = tuple(row[c] for c in by)
+        days = got.setdefault(k, set())
+        assert row["_s"] <= row["_e"]
+        assert not days & set(range(row["_s"] - 1, row["_e"] + 2))  # disjoint and not touching
+        days.update(range(row["_s"], row["_e"] + 1))
+    epoch = date(1970, 1, 1).toordinal()
+    want = {k: {d - epoch for d in v} for k, v in _merged_days_by_hand(r, by).items()}
+    assert got == want
+
+
+def test_fit_block_size_does_not_change_a_bit():
+    """fit_variable_base's ``chunk`` only bounds memory: every chunk size gives the same bits
+    (random padded portfolios with invalid periods and bases where the fit hits a bound)."""
+    rng = np.random.default_rng(11)
+    n_b, n_p = 601, 26
+    days = rng.integers(25, 40, (n_b, n_p)).astype(float)
+    x = np.maximum(rng.normal(15.0, 12.0, (n_b, n_p, 1)) - (65.0 - GRID)[None, None, :] * 0.5, 0.0)
+    y = rng.uniform(0.0, 30.0, (n_b, 1)) + rng.uniform(0.0, 3.0, (n_b, 1)) * x[:, :, 20] + rng.normal(0, 2, (n_b, n_p))
+    valid = rng.random((n_b, n_p)) < 0.9
+    valid[::7, 12:] = False
+    ref = M.fit_variable_base(y, days, x, GRID, valid, chunk=2048)
+    for chunk in (1, 7, 64, 256, 600):
+        got = M.fit_variable_base(y, days, x, GRID, valid, chunk=chunk)
+        for k, v in ref.items():
+            a = np.asarray(got[k])
+            if v.dtype.kind == "f":
+                assert np.array_equal(a.view(np.int64), v.view(np.int64)), (chunk, k)
+            else:
+                np.testing.assert_array_equal(a, v, err_msg=f"{chunk} {k}")
+
+
+def test_pad_periods_steps_and_row_order(monkeypatch):
+    """pad_periods puts each period at its building's row and period slot, divided by its days, the
+    same in small steps as in one, for rows in order and for a subset of them (by hand)."""
+    rng = np.random.default_rng(4)
+    n = 60
+    ids = [f"B{i}" for i in sorted(rng.integers(0, 9, n))]
+    s = [date(2024, 1, 1) + timedelta(days=int(k)) for k in range(n)]
+    periods = pl.DataFrame(
+        {
+            "building_id": ids,
+            "period_start": s,
+            "period_end": s,
+            "days": rng.integers(20, 40, n),
+            "energy_kbtu": rng.uniform(1, 100, n),
+            "usable": rng.random(n) < 0.8,
+        }
+    )
+    hdd = rng.uniform(0, 900, (n, GRID.size))
+    order = ["B8", "B0", "B3", "Bx", "B1", "B2", "B4", "B5", "B6", "B7"]
+    ref = M.pad_periods(periods, hdd, order)
+    monkeypatch.setattr(M, "_PAD_STEP", 3 * GRID.size)
+    got = M.pad_periods(periods, hdd, order)
+    for k in ref:
+        np.testing.assert_array_equal(got[k], ref[k])
+    slot: dict = {}
+    for i, b in enumerate(ids):
+        r, p = order.index(b), slot.get(b, 0)
+        slot[b] = p + 1
+        np.testing.assert_array_equal(got["hdd_per_day"][r, p], hdd[i] / periods["days"][i])
+    assert not got["valid"][order.index("Bx")].any()
+    sub = M.pad_periods(periods.filter(pl.col("building_id") != "B3"), hdd[np.array(ids) != "B3"], ["B3", "B0"])
+    assert not sub["valid"][0].any()
+    np.testing.assert_array_equal(
+        sub["hdd_per_day"][1], ref["hdd_per_day"][order.index("B0"), : sub["hdd_per_day"].shape[1]]
+    )
+
+
+@pytest.mark.parametrize("by", [["building_id"], ["building_id", "meter_id"]])
+def test_prev_run_max_equals_the_polars_window(by):
+    """_prev_run_max (one cumulative maximum over rank-offset values) is polars'
+    cum_max().shift(1).over(by) on sorted frames: dates, nulls in the column, one-row groups."""
+    rng = np.random.default_rng(3)
+    n = 500
+    df = pl.DataFrame(
+        {
+            "building_id": [f"B{int(i)}" for i in rng.integers(0, 40, n)],
+            "meter_id": rng.choice(["m1", "m2", ""], n).tolist(),
+            "period_end": [date(2023, 1, 1) + timedelta(days=int(k)) for k in rng.integers(-50, 900, n)],
+        }
+    ).sort([*by, "period_end"])
+    want = df.select(pl.col("period_end").cum_max().shift(1).over(by)).to_series()
+    got = M._prev_run_max(df, by, "period_end")
+    assert got.dtype == pl.Date and got.equals(want)
+    shuffled = df.with_columns(pl.Series("period_end", rng.permutation(df["period_end"].to_numpy())))
+    want = shuffled.select(pl.col("period_end").cum_max().shift(1).over(by)).to_series()
+    assert M._prev_run_max(shuffled, by, "period_end").equals(want)  # not sorted within the group
+    with_nulls = df.with_columns(
+        pl.when(pl.int_range(pl.len()) % 7 == 0).then(None).otherwise("period_end").alias("period_end")
+    )
+    want = with_nulls.select(pl.col("period_end").cum_max().shift(1).over(by)).to_series()
+    assert M._prev_run_max(with_nulls, by, "period_end").equals(want)
+    assert M._prev_run_max(df.head(0), by, "period_end").len() == 0
