@@ -68,3 +68,40 @@ def test_run_with_two_workers_writes_the_tables_of_one_process(tmp_path, monkeyp
     for name in ("ranking.csv", "audit_plan.csv", "data_issues.csv", "rejects.csv", "assumptions.csv"):
         assert (outs[1] / name).read_text().replace(ids[1], "") == (outs[2] / name).read_text().replace(ids[2], "")
     assert pl.read_csv(outs[2] / "ranking.csv").height == 200
+
+
+def test_a_failure_after_the_results_were_stored_keeps_none_of_them(tmp_path, monkeypatch):
+    """The results go into the database while ranking.pdf renders, in a transaction that only commits with
+    the files about to be published: a failure in between leaves the database without them."""
+    import duckdb
+
+    from screening import published, runner
+    from screening.errors import OutputError
+
+    src = sample_portfolio_dir()
+    db = tmp_path / "db.duckdb"
+    ov = {
+        "inputs": {k: str(src / f"{k}.csv") for k in ("buildings", "readings", "weather")},
+        "store": {"database": str(db)},
+        "analysis": {"as_of": "2026-10-15"},
+        "output": {"sheets": False},
+    }
+    runner.run(overrides=ov, out_dir=str(tmp_path / "out1"))
+
+    def broken(folder):
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(published, "manifest", broken)
+    try:
+        runner.run(overrides=ov, out_dir=str(tmp_path / "out2"))
+    except OutputError as exc:
+        assert "cannot write the outputs" in str(exc)
+    else:
+        raise AssertionError("the run must fail")
+    con = duckdb.connect(str(db), read_only=True)
+    runs = con.execute("SELECT run_id, status FROM runs ORDER BY started_at").fetchall()
+    per_run = dict(con.execute("SELECT run_id, count(*) FROM results GROUP BY run_id").fetchall())
+    con.close()
+    assert [st for _, st in runs] == ["ok", "failed"]
+    assert per_run == {runs[0][0]: 200}  # the failed run stored nothing; the earlier run's results are kept
+    assert not (tmp_path / "out2").exists()

@@ -129,8 +129,9 @@ def _run_locked(
     1. With the database open: settle what dead runs left, check the output folder (a refusal
        changes nothing of the user's), record the run, load the inputs, read what the
        screening needs. 2. With the database closed (``status`` and ``history`` can read it):
-       screen and write every output into a temporary folder. 3. With the database open again:
-       record the results and the files about to be published, rename the folder into place,
+       screen and write every output into a temporary folder. 3. With the database open again
+       (from the moment the other outputs are written, while ranking.pdf still renders): record the
+       results, then, in the same transaction, the files about to be published; rename the folder into place,
        mark the run ``ok``, point ``latest`` and prune. A kill at any point leaves the folder
        and the record in a state the next run settles (``published.settle_dead_runs``).
     """
@@ -164,6 +165,7 @@ def _run_locked(
     handler = setup_file_log(tmp / "run.log")
     timings: dict[str, float] = {}
     publishing = False
+    recording: list[Store] = []  # the database, reopened while ranking.pdf renders (phase 3's start)
     try:
         log.info("run %s: window %s to %s, database %s", run_key, window[0], window[1], db_path)
         log.debug("run %s: execution %s", run_key, run_id)
@@ -180,52 +182,45 @@ def _run_locked(
         timings.update(res.timings)
         stage("after_screen")
         bar.stage("write tables")
-        ranking, rejects, summary = stages.write_outputs(
-            tmp,
-            res,
-            ld,
-            cfg,
-            run_key=run_key,
-            label=label,
-            as_of=as_of,
-            window=window,
-            timings=timings,
-            bar=bar,
-            executor=executor,
-        )
-        # the first visits of this quarter's audit plan, for the console
-        top = (
-            ranking.filter(pl.col("tier") == "Audit first")
-            .head(5)
-            .select(
-                "rank",
-                "building_id",
-                "name",
-                "tier",
-                "ratio",
-                "needs_review",
-                "expected_recoverable_cost",
-                pl.lit(cfg.prices.currency).alias("currency"),
+
+        def record_meanwhile(rejects: pl.DataFrame) -> None:
+            # phase 3 begins: the results and rejects go into the recording's transaction (not committed)
+            # while ranking.pdf still renders on its child process
+            recording.append(open_store(db_path, memory_mb=cfg.run.store_memory_mb))
+            record.begin_results(
+                recording[0], run_id, stage=record.results_for_store(run_id, res.results), rejects=rejects
             )
-            .to_dicts()
-        )
-        del ranking  # 1 kB a building (ranking.csv's frame), not kept while the results are recorded
+
+        try:
+            top, rejects, summary = stages.write_outputs(
+                tmp,
+                res,
+                ld,
+                cfg,
+                run_key=run_key,
+                label=label,
+                as_of=as_of,
+                window=window,
+                timings=timings,
+                bar=bar,
+                executor=executor,
+                meanwhile=record_meanwhile,
+            )
+        finally:
+            store = recording[0] if recording else None  # closed, or its transaction rolled back, on failure
         timings["total"] = round(time.perf_counter() - t_start, 4)
         summary["timings_s"] = timings
         outputs.write_json(record.deterministic(summary), tmp / "summary.json")
-        stage_results = record.results_for_store(run_id, res.results)
         bar.stage("publish")
         log.info("run %s finished in %.1f s", run_key, timings["total"])
         log.removeHandler(handler)
         handler.close()
-        # phase 3: record what is about to be published, publish, mark it done
+        # phase 3: record the files about to be published with the results, publish, mark it done
         files_written = published.manifest(tmp)
-        store = open_store(db_path, memory_mb=cfg.run.store_memory_mb)
-        record.record_results(
+        assert store is not None  # write_outputs ran record_meanwhile
+        record.finish_results(
             store,
             run_id,
-            stage=stage_results,
-            rejects=rejects,
             loads=ld.loads,
             events_files=files.get("events") or [],
             summary=summary,
@@ -233,6 +228,7 @@ def _run_locked(
             target=target,
             files_written=files_written,
         )
+        recording.clear()  # committed
         publishing = True
         stage("before_publish")
         publish.publish(tmp, target)
@@ -243,6 +239,8 @@ def _run_locked(
             publish.tidy_root(root, store, cfg.output.keep, target)
         return RunResult(run_key, label, target, str(db_path), summary, top, ld.loads, execution_id=run_id)
     except BaseException as exc:
+        if recording:  # the results were being recorded: nothing of them is kept
+            record.abandon_results(recording[0])
         stop = interrupts.as_interrupted(exc)
         if isinstance(stop, Interrupted):  # SIGINT/SIGTERM: see _interrupted
             raise _interrupted(

@@ -121,27 +121,77 @@ def record_results(
     files_written: dict,
 ) -> None:
     """In one transaction: the run's results and rejects, and the files about to be published
-    (status ``publishing``; ``published.settle_dead_runs`` reads them if the run dies now)."""
-    with store.transaction():
+    (status ``publishing``; ``published.settle_dead_runs`` reads them if the run dies now):
+    :func:`begin_results`, then :func:`finish_results`."""
+    begin_results(store, run_id, stage=stage, rejects=rejects)
+    try:
+        finish_results(
+            store,
+            run_id,
+            loads=loads,
+            events_files=events_files,
+            summary=summary,
+            timings=timings,
+            target=target,
+            files_written=files_written,
+        )
+    except BaseException:
+        abandon_results(store)
+        raise
+
+
+def begin_results(store: Store, run_id: str, *, stage: Iterable[pl.DataFrame], rejects: pl.DataFrame) -> None:
+    """Open the recording's transaction and store the run's results and rejects in it (not committed:
+    :func:`finish_results` commits, :func:`abandon_results` rolls back; the run does this while
+    ranking.pdf renders). Rolled back here if storing fails."""
+    store.execute("tx_begin")
+    try:
         store.execute("delete_results_of_run", {"run_id": run_id})
         for piece in stage:  # results_for_store's pieces, built one at a time
             store.execute("insert_results", stage_results=piece)
         store.execute("delete_rejects_of_run", {"run_id": run_id})
         store.execute("insert_rejects", {"run_id": run_id}, stage_rejects=rejects)
-        store.execute(
-            "record_publishing",
-            {
-                "run_id": run_id,
-                "input_hashes": json.dumps(
-                    {f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads} | events_hashes(events_files)
-                ),
-                "versions": json.dumps(summary["versions"]),
-                "timings": json.dumps(timings),
-                "counts": json.dumps(summary["counts"]),
-                "out_dir": published.folder_key(target, store),
-                "files": json.dumps(files_written, sort_keys=True),
-            },
-        )
+    except BaseException:
+        abandon_results(store)
+        raise
+
+
+def finish_results(
+    store: Store,
+    run_id: str,
+    *,
+    loads: list,
+    events_files: list[str],
+    summary: dict,
+    timings: dict,
+    target: Path,
+    files_written: dict,
+) -> None:
+    """The files about to be published (status ``publishing``) into the transaction :func:`begin_results`
+    opened, and commit it: the results, rejects and files are recorded together or not at all."""
+    store.execute(
+        "record_publishing",
+        {
+            "run_id": run_id,
+            "input_hashes": json.dumps(
+                {f"{fl.kind}:{fl.path}": fl.sha256 for fl in loads} | events_hashes(events_files)
+            ),
+            "versions": json.dumps(summary["versions"]),
+            "timings": json.dumps(timings),
+            "counts": json.dumps(summary["counts"]),
+            "out_dir": published.folder_key(target, store),
+            "files": json.dumps(files_written, sort_keys=True),
+        },
+    )
+    store.execute("tx_commit")
+
+
+def abandon_results(store: Store) -> None:
+    """Roll back the recording's open transaction (a failure or a stop before :func:`finish_results` committed)."""
+    try:
+        store.execute("tx_rollback")
+    except (StoreError, duckdb.Error):  # no transaction open, or the database itself failed
+        pass
 
 
 def mark_ok(store: Store, run_id: str) -> None:

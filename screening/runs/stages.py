@@ -4,6 +4,8 @@ into the temporary folder. The order under the lock, publishing and recording ar
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import datetime as _dt
 import logging
 import os
@@ -127,8 +129,12 @@ def write_outputs(
     timings: dict,
     bar: Progress,
     executor: cluster.DaskChunks | None = None,
-) -> tuple[pl.DataFrame, pl.DataFrame, dict]:
-    """Every output file but summary.json into ``tmp``; returns the ranking, the rejects and the summary."""
+    meanwhile: Callable[[pl.DataFrame], None] | None = None,
+) -> tuple[list[dict], pl.DataFrame, dict]:
+    """Every output file but summary.json into ``tmp``; returns the first visits of the audit plan
+    (:func:`first_visits`), the rejects and the summary. ``meanwhile(rejects)`` runs once every other file
+    is written, while ranking.pdf is still rendering on its child process (the run records its results
+    then); the ranking frame is let go before it."""
     events, then = ld.events, ld.then
     rejects = outputs.rejects_table(
         pl.concat(
@@ -246,6 +252,12 @@ def write_outputs(
             workbook=with_book,
         )
         timings["index"] = round(time.perf_counter() - t, 4)
+        top = first_visits(ranking, cfg.prices.currency)
+        del ranking  # 1 kB a building (ranking.csv's frame), not kept while the results are recorded
+        if meanwhile is not None:
+            t = time.perf_counter()
+            meanwhile(rejects)
+            timings["record_meanwhile"] = round(time.perf_counter() - t, 4)
         bar.stage("render ranking")
         t = time.perf_counter()
         ranking_pdf.result()
@@ -255,7 +267,26 @@ def write_outputs(
     # [s] what ranking.pdf added after everything else, and how long it ran in all (it overlapped the rest)
     timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
     timings["ranking_pdf_started_s"] = round(time.perf_counter() - t_ranking, 4)
-    return ranking, rejects, summary
+    return top, rejects, summary
+
+
+def first_visits(ranking: pl.DataFrame, currency: str, n: int = 5) -> list[dict]:
+    """The first ``n`` visits of this quarter's audit plan, for the console."""
+    return (
+        ranking.filter(pl.col("tier") == "Audit first")
+        .head(n)
+        .select(
+            "rank",
+            "building_id",
+            "name",
+            "tier",
+            "ratio",
+            "needs_review",
+            "expected_recoverable_cost",
+            pl.lit(currency).alias("currency"),
+        )
+        .to_dicts()
+    )
 
 
 def workbook_left_out(buildings: int, limit: int) -> str:
