@@ -107,41 +107,10 @@ def insert_run(
     )
 
 
-def record_results(
-    store: Store,
-    run_id: str,
-    *,
-    stage: Iterable[pl.DataFrame],
-    rejects: pl.DataFrame,
-    loads: list,
-    events_files: list[str],
-    summary: dict,
-    timings: dict,
-    target: Path,
-    files_written: dict,
-) -> None:
-    """In one transaction: the run's results and rejects, and the files about to be published
-    (status ``publishing``; ``published.settle_dead_runs`` reads them if the run dies now):
-    :func:`begin_results`, then :func:`finish_results`."""
-    begin_results(store, run_id, stage=stage, rejects=rejects)
-    try:
-        finish_results(
-            store,
-            run_id,
-            loads=loads,
-            events_files=events_files,
-            summary=summary,
-            timings=timings,
-            target=target,
-            files_written=files_written,
-        )
-    except BaseException:
-        abandon_results(store)
-        raise
-
-
 def begin_results(store: Store, run_id: str, *, stage: Iterable[pl.DataFrame], rejects: pl.DataFrame) -> None:
-    """Open the recording's transaction and store the run's results and rejects in it (not committed:
+    """Recording a run, in one transaction: the run's results and rejects, then (:func:`finish_results`) the
+    files about to be published (status ``publishing``; ``published.settle_dead_runs`` reads them if the run
+    dies after the commit). This opens the transaction and stores the results and rejects (not committed:
     :func:`finish_results` commits, :func:`abandon_results` rolls back; the run does this while
     ranking.pdf renders). Rolled back here if storing fails."""
     store.execute("tx_begin")
