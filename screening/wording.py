@@ -188,12 +188,10 @@ def explain(
     rows: int = EXPLAIN_ROWS,
 ) -> pl.DataFrame:
     """:func:`explain_rows` over ``rows`` rows at a time (each row's texts are its own), in order."""
-    if out.height <= rows:
-        return explain_rows(out, t, energy_factor=energy_factor, energy_unit=energy_unit, currency=currency)
     return pl.concat(
         [
             explain_rows(out.slice(k, rows), t, energy_factor=energy_factor, energy_unit=energy_unit, currency=currency)
-            for k in range(0, out.height, rows)
+            for k in range(0, max(out.height, 1), rows)
         ]
     )
 

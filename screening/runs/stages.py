@@ -4,12 +4,11 @@ into the temporary folder. The order under the lock, publishing and recording ar
 
 from __future__ import annotations
 
-from collections.abc import Callable
-
 import datetime as _dt
 import logging
 import os
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
