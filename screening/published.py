@@ -169,7 +169,10 @@ def settle_dead_runs(store: Store) -> list[str]:
         notes.append(
             f"run {shown} ended while publishing: marked {'ok (its outputs are in place)' if done else 'interrupted'}"
         )
-    store.execute("mark_stale_runs")
+    with store.transaction():  # a run still 'running' died before it recorded its files: none of its rows
+        store.execute("forget_results_of_stale_runs")
+        store.execute("forget_rejects_of_stale_runs")
+        store.execute("mark_stale_runs")
     return notes
 
 

@@ -64,6 +64,8 @@ class Store:
             )
             self.con = duckdb.connect(self.path, read_only=read_only, config=settings)
             self.con.execute(statements()["session_quiet"])
+            if not read_only:
+                self.con.execute(statements()["session_checkpoint_direct"])
         except duckdb.IOException as exc:
             msg = str(exc).splitlines()[0]
             if "lock" in msg.lower():

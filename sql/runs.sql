@@ -30,6 +30,14 @@ UPDATE runs SET status = $status, message = $message WHERE run_id = $run_id;
 SELECT run_id, out_dir, files, COALESCE(run_key, run_id) AS run_key FROM runs WHERE status = 'publishing'
 ORDER BY started_at, run_id;
 
+-- name: forget_results_of_stale_runs
+-- The results and rejects a run stored before it died, still 'running' (it never recorded its files):
+-- a run that did not reach publishing keeps none of them.
+DELETE FROM results WHERE run_id IN (SELECT run_id FROM runs WHERE status = 'running');
+
+-- name: forget_rejects_of_stale_runs
+DELETE FROM rejects WHERE run_id IN (SELECT run_id FROM runs WHERE status = 'running');
+
 -- name: mark_stale_runs
 -- Runs left 'running' by a process that died are marked as interrupted.
 UPDATE runs SET status = 'interrupted', message = 'the process ended before the run finished'

@@ -71,8 +71,8 @@ def test_run_with_two_workers_writes_the_tables_of_one_process(tmp_path, monkeyp
 
 
 def test_a_failure_after_the_results_were_stored_keeps_none_of_them(tmp_path, monkeypatch):
-    """The results go into the database while ranking.pdf renders, in a transaction that only commits with
-    the files about to be published: a failure in between leaves the database without them."""
+    """The results are stored while ranking.pdf renders, provisionally until the files about to be published
+    are recorded: a failure in between removes them."""
     import duckdb
 
     from screening import published, runner
@@ -105,3 +105,46 @@ def test_a_failure_after_the_results_were_stored_keeps_none_of_them(tmp_path, mo
     assert [st for _, st in runs] == ["ok", "failed"]
     assert per_run == {runs[0][0]: 200}  # the failed run stored nothing; the earlier run's results are kept
     assert not (tmp_path / "out2").exists()
+
+
+def test_a_run_that_died_after_storing_its_results_loses_them_when_settled(tmp_path):
+    """A run killed after its results were stored but before it recorded its files (still ``running``): the
+    next run's settling marks it interrupted and deletes its results and rejects, and keeps an ok run's."""
+    import datetime as dt
+
+    import duckdb
+
+    from screening import published, runner
+    from screening.runs import record
+    from screening.store import Store
+
+    src = sample_portfolio_dir()
+    db = tmp_path / "db.duckdb"
+    ov = {
+        "inputs": {k: str(src / f"{k}.csv") for k in ("buildings", "readings", "weather")},
+        "store": {"database": str(db)},
+        "analysis": {"as_of": "2026-10-15"},
+        "output": {"sheets": False},
+    }
+    runner.run(overrides=ov, out_dir=str(tmp_path / "out1"))
+    store = Store(db)
+    window = (dt.date(2025, 10, 1), dt.date(2026, 9, 30))
+    record.insert_run(store, "dead-1", "dead", "2026Q3", dt.date(2026, 10, 15), window, tmp_path / "out2", "h")
+    stored = store.con.sql("SELECT 'dead-1' AS run_id, * EXCLUDE (run_id) FROM results LIMIT 2").pl()
+    rejects = pl.DataFrame(
+        {"file": ["r.csv"], "line": [3], "column": ["kwh"], "value": ["x"], "reason": ["not a number"]},
+        schema={"file": pl.String, "line": pl.Int64, "column": pl.String, "value": pl.String, "reason": pl.String},
+    )
+    record.store_results(store, "dead-1", stage=[stored], rejects=rejects)
+    count = "SELECT count(*) FROM {} WHERE run_id = 'dead-1'"
+    assert store.con.execute(count.format("results")).fetchall() == [(2,)]
+    published.settle_dead_runs(store)
+    assert store.con.execute(count.format("results")).fetchall() == [(0,)]
+    assert store.con.execute(count.format("rejects")).fetchall() == [(0,)]
+    status = dict(store.con.execute("SELECT run_id, status FROM runs").fetchall())
+    store.close()
+    assert status["dead-1"] == "interrupted"
+    con = duckdb.connect(str(db), read_only=True)
+    kept = con.execute("SELECT count(*) FROM results").fetchall()
+    con.close()
+    assert kept == [(200,)]  # the ok run's

@@ -130,8 +130,8 @@ def _run_locked(
        changes nothing of the user's), record the run, load the inputs, read what the
        screening needs. 2. With the database closed (``status`` and ``history`` can read it):
        screen and write every output into a temporary folder. 3. With the database open again
-       (from the moment the other outputs are written, while ranking.pdf still renders): record the
-       results, then, in the same transaction, the files about to be published; rename the folder into place,
+       (from the moment the other outputs are written, while ranking.pdf still renders): store the
+       results (provisional until the files are recorded), then the files about to be published; rename the folder into place,
        mark the run ``ok``, point ``latest`` and prune. A kill at any point leaves the folder
        and the record in a state the next run settles (``published.settle_dead_runs``).
     """
@@ -184,13 +184,13 @@ def _run_locked(
         bar.stage("write tables")
 
         def record_meanwhile(rejects: pl.DataFrame) -> None:
-            # phase 3 begins: the results and rejects go into the recording's transaction (not committed)
-            # while ranking.pdf still renders on its child process. The loaded frames are not read again
+            # phase 3 begins: the results and rejects are stored (committed, the run still 'running') while
+            # ranking.pdf renders on its child process. The loaded frames are not read again
             # (the stored buildings: 0.3-0.4 kB a building; a previous run's results): let go first
             ld.stored.clear()
             ld.previous = ld.prev_results = None
             recording.append(open_store(db_path, memory_mb=cfg.run.store_memory_mb))
-            record.begin_results(
+            record.store_results(
                 recording[0], run_id, stage=record.results_for_store(run_id, res.results), rejects=rejects
             )
 
@@ -218,7 +218,7 @@ def _run_locked(
         log.info("run %s finished in %.1f s", run_key, timings["total"])
         log.removeHandler(handler)
         handler.close()
-        # phase 3: record the files about to be published with the results, publish, mark it done
+        # phase 3: record the files about to be published (the results are stored), publish, mark it done
         files_written = published.manifest(tmp)
         assert store is not None  # write_outputs ran record_meanwhile
         record.finish_results(
@@ -231,7 +231,7 @@ def _run_locked(
             target=target,
             files_written=files_written,
         )
-        recording.clear()  # committed
+        recording.clear()  # recorded: the results are no longer provisional
         publishing = True
         stage("before_publish")
         publish.publish(tmp, target)
@@ -243,7 +243,7 @@ def _run_locked(
         return RunResult(run_key, label, target, str(db_path), summary, top, ld.loads, execution_id=run_id)
     except BaseException as exc:
         if recording:  # the results were being recorded: nothing of them is kept
-            record.abandon_results(recording[0])
+            record.abandon_results(recording[0], run_id)
         stop = interrupts.as_interrupted(exc)
         if isinstance(stop, Interrupted):  # SIGINT/SIGTERM: see _interrupted
             raise _interrupted(

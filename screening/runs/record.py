@@ -107,22 +107,19 @@ def insert_run(
     )
 
 
-def begin_results(store: Store, run_id: str, *, stage: Iterable[pl.DataFrame], rejects: pl.DataFrame) -> None:
-    """Recording a run, in one transaction: the run's results and rejects, then (:func:`finish_results`) the
-    files about to be published (status ``publishing``; ``published.settle_dead_runs`` reads them if the run
-    dies after the commit). This opens the transaction and stores the results and rejects (not committed:
-    :func:`finish_results` commits, :func:`abandon_results` rolls back; the run does this while
-    ranking.pdf renders). Rolled back here if storing fails."""
-    store.execute("tx_begin")
-    try:
+def store_results(store: Store, run_id: str, *, stage: Iterable[pl.DataFrame], rejects: pl.DataFrame) -> None:
+    """Recording a run, first half: the run's results and rejects in one committed transaction, while the
+    run is still ``running`` (the run does this while ranking.pdf renders, so the commit, which writes the
+    records into the database file, overlaps it). :func:`finish_results` then records the files about to be
+    published. Until then the rows are provisional: a failure or a stop removes them
+    (:func:`abandon_results`), and a run that died still ``running`` loses them when the next run settles it
+    (``published.settle_dead_runs``), so a run that did not reach publishing keeps none of them."""
+    with store.transaction():
         store.execute("delete_results_of_run", {"run_id": run_id})
         for piece in stage:  # results_for_store's pieces, built one at a time
             store.execute("insert_results", stage_results=piece)
         store.execute("delete_rejects_of_run", {"run_id": run_id})
         store.execute("insert_rejects", {"run_id": run_id}, stage_rejects=rejects)
-    except BaseException:
-        abandon_results(store)
-        raise
 
 
 def finish_results(
@@ -136,8 +133,9 @@ def finish_results(
     target: Path,
     files_written: dict,
 ) -> None:
-    """The files about to be published (status ``publishing``) into the transaction :func:`begin_results`
-    opened, and commit it: the results, rejects and files are recorded together or not at all."""
+    """Recording a run, second half: the files about to be published (status ``publishing``), once its
+    results are stored (:func:`store_results`); ``published.settle_dead_runs`` reads them if the run dies
+    after this."""
     store.execute(
         "record_publishing",
         {
@@ -152,14 +150,17 @@ def finish_results(
             "files": json.dumps(files_written, sort_keys=True),
         },
     )
-    store.execute("tx_commit")
 
 
-def abandon_results(store: Store) -> None:
-    """Roll back the recording's open transaction (a failure or a stop before :func:`finish_results` committed)."""
+def abandon_results(store: Store, run_id: str) -> None:
+    """Remove what :func:`store_results` stored for a run that failed or was stopped before
+    :func:`finish_results` (nothing of its results or rejects is kept). The database failing here leaves the
+    rows to the next run's ``published.settle_dead_runs``."""
     try:
-        store.execute("tx_rollback")
-    except (StoreError, duckdb.Error):  # no transaction open, or the database itself failed
+        with store.transaction():
+            store.execute("delete_results_of_run", {"run_id": run_id})
+            store.execute("delete_rejects_of_run", {"run_id": run_id})
+    except (StoreError, duckdb.Error):
         pass
 
 
