@@ -428,12 +428,25 @@ def neutralize_formulas(df: pl.DataFrame) -> pl.DataFrame:
     The usual defence against CSV formula injection (OWASP "CSV Injection"). A text cell that is
     a plain number (``PLAIN_NUMBER``, e.g. a rejected value ``-412.0``) is left as it is.
     """
-    exprs = []
-    for name, dtype in df.schema.items():
-        if dtype == pl.String:
-            c = pl.col(name)
-            risky = c.str.contains(r"^[=+\-@\t\r]") & ~c.str.contains(PLAIN_NUMBER)
-            exprs.append(pl.when(risky).then(pl.lit("'") + c).otherwise(c).alias(name))
+    names = [name for name, dtype in df.schema.items() if dtype == pl.String]
+    if not names or df.height == 0:
+        return df
+
+    def starts(c: pl.Expr) -> pl.Expr:
+        return c.str.contains(r"^[=+\-@\t\r]")
+
+    def risky(c: pl.Expr) -> pl.Expr:
+        return starts(c) & ~c.str.contains(PLAIN_NUMBER)
+
+    # only the columns holding a risky cell are rewritten; most hold no cell even starting so (one cheap pass)
+    found = df.select(starts(pl.col(n)).any().alias(n) for n in names).row(0)
+    names = [n for n, hit in zip(names, found) if hit]
+    found = df.select(risky(pl.col(n)).any().alias(n) for n in names).row(0) if names else ()
+    exprs = [
+        pl.when(risky(pl.col(n))).then(pl.lit("'") + pl.col(n)).otherwise(pl.col(n)).alias(n)
+        for n, hit in zip(names, found)
+        if hit
+    ]
     return df.with_columns(exprs) if exprs else df
 
 
