@@ -25,6 +25,8 @@ from __future__ import annotations
 
 import csv
 import io
+import queue
+import threading
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -322,6 +324,94 @@ def _whole_file_checks(kind: str, raw: pl.DataFrame, opts: ReadOptions) -> None:
             raise WholeFile("slash dates without date_order")
 
 
+#: Rows of a DuckDB row group (its default ``ROW_GROUP_SIZE``, https://duckdb.org/docs/stable/internals/storage):
+#: the rows of a streamed file are inserted in whole multiples of it. A statement that appends a part of a row
+#: group leaves the commit to rewrite the parts (10^5 buildings, 4.25 M readings in 9 chunks: the commit took
+#: 1.7-1.9 s of CPU; with whole row groups 0.01-0.1 s; the rows and their order are the same).
+ROW_GROUP_ROWS = 122_880
+
+
+class _Writer:
+    """Stores the checked chunks of one file on a thread of its own, in order, while the caller checks the next.
+
+    One chunk at a time: :meth:`put` waits until the previous chunk is stored, so at most one checked
+    chunk waits here besides the one being checked. The rows to keep are inserted in whole row groups
+    (:data:`ROW_GROUP_ROWS`), the rest carried into the next insert; the rejects as they come. The store's
+    connection is used by this thread only between the first :meth:`put` and :meth:`close`, while the
+    caller does not touch it (DuckDB connections are not for concurrent use). The first error raised
+    here is raised again by the next :meth:`put` or by :meth:`close`; the chunks after it are not stored.
+    """
+
+    def __init__(self, store: Store, kind: str, label: str):
+        self.store, self.kind, self.label = store, kind, label
+        self.rows = self.rejected = 0
+        self._carry: list[pl.DataFrame] = []  # rows to keep not inserted yet (less than a row group)
+        self._error: BaseException | None = None
+        self._todo: queue.Queue = queue.Queue(maxsize=1)
+        self._thread = threading.Thread(target=self._run, name=f"store {kind}", daemon=True)
+        self._thread.start()
+
+    def _run(self) -> None:
+        while True:
+            item = self._todo.get()
+            try:
+                if item is None:
+                    return
+                if self._error is None:
+                    self._store(*item)
+            except BaseException as exc:  # raised again on the caller's thread
+                self._error = exc
+            finally:
+                del item
+                self._todo.task_done()
+
+    def _insert(self, rows: pl.DataFrame) -> None:
+        self.store.execute(_STATEMENTS[self.kind]["insert"], {"path": self.label}, **{f"stage_{self.kind}": rows})
+        self.rows += rows.height
+
+    def _store(self, good: pl.DataFrame | None, rej: pl.DataFrame | None) -> None:
+        if good is not None and good.height:
+            self._carry.append(good)
+            n = sum(df.height for df in self._carry)
+            whole = n - n % ROW_GROUP_ROWS
+            if whole:
+                rows = pl.concat(self._carry, rechunk=False) if len(self._carry) > 1 else self._carry[0]
+                self._insert(rows.slice(0, whole))
+                self._carry = [rows.slice(whole)] if whole < n else []
+        elif good is None and rej is None and self._carry:  # the end of the file: the last part of a row group
+            self._insert(pl.concat(self._carry, rechunk=False) if len(self._carry) > 1 else self._carry[0])
+            self._carry = []
+        if rej is not None and rej.height:
+            self.store.execute(
+                "insert_load_rejects", {"kind": self.kind, "path": self.label}, stage_rejects=rej.cast(REJECT_SCHEMA)
+            )
+            self.rejected += rej.height
+
+    def _raise(self) -> None:
+        if self._error is not None:
+            err, self._error = self._error, None
+            raise err
+
+    def put(self, good: pl.DataFrame | None, rej: pl.DataFrame) -> None:
+        """Store one checked chunk (rows to keep or None, rejects) after the ones before it."""
+        self._todo.join()  # the previous chunk is stored
+        self._raise()
+        self._todo.put((good, rej))
+
+    def close(self, rest: bool = True) -> None:
+        """Store what is left (``rest``; not after an error of the caller's), wait for the thread to end
+        and raise its error, if any (an error of an earlier chunk than the caller's own)."""
+        try:
+            self._todo.join()
+            if rest and self._error is None:
+                self._todo.put((None, None))  # the rows carried over
+                self._todo.join()
+        finally:
+            self._todo.put(None)
+            self._thread.join()
+        self._raise()
+
+
 def load_streamed(
     store: Store, kind: str, path: str, opts: ReadOptions, *, chunk_bytes: int = STREAM_CHUNK_BYTES, workers: int = 1
 ) -> Streamed:
@@ -342,16 +432,16 @@ def load_streamed(
     forget_file(store, kind, path)
     notices = list(sc.notices)
     tally: dict = {}
-    n_rows = n_rej = 0
     p = {"path": label}
-    insert = _STATEMENTS[kind]["insert"]
-    for good, rej in _checked_chunks(path, label, spec, opts, kind, sc, chunk_bytes, notices, tally, workers):
-        if good is not None and good.height:
-            store.execute(insert, p, **{f"stage_{kind}": good})
-            n_rows += good.height
-        if rej.height:
-            store.execute("insert_load_rejects", {"kind": kind, "path": label}, stage_rejects=rej.cast(REJECT_SCHEMA))
-            n_rej += rej.height
+    writer = _Writer(store, kind, label)
+    try:
+        for good, rej in _checked_chunks(path, label, spec, opts, kind, sc, chunk_bytes, notices, tally, workers):
+            writer.put(good, rej)  # stored on the writer's thread while the next chunk is checked here
+    except BaseException:
+        writer.close(rest=False)  # the connection is this thread's again for the caller's rollback
+        raise
+    writer.close()
+    n_rows, n_rej = writer.rows, writer.rejected
     notices += ingest.format_notices(label, opts, [c for c, *_ in spec], tally)
     # duplicates and conflicts, across the chunks: the rows whose key occurs more than once in the file
     if kind == "readings":
