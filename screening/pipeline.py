@@ -127,7 +127,10 @@ def load_inputs(
     and checked before anything is written; a buildings or readings CSV larger than ``chunk_bytes``
     (default ``opts.chunk_bytes``, ``[run] ingest_chunk_mb``; 0 reads every file whole) is read, checked and
     written a chunk at a time inside the transaction (:mod:`screening.streaming`), which an error
-    rolls back. A file whose content hash and reading options match its last load is not read again.
+    rolls back. The repeated keys of the files read in chunks are settled, and those files recorded, in a
+    second transaction (:func:`streaming.settle_repeats`): the first one leaves them unrecorded, so a run
+    stopped between the two reads them again. A file whose content hash and reading options match its last
+    load is not read again.
     ``workers`` ≥ 2 (``[run] workers``) checks a streamed file's chunks on that many child processes.
     """
     log = log or (lambda msg: None)
@@ -149,6 +152,7 @@ def load_inputs(
             log(f"reading {kind} file {path}")
             plan.append((kind, str(path), digest, read_file(kind, str(path), opts)))
     out: list[FileLoad] = []
+    streamed: list[tuple[FileLoad, streaming.Streamed]] = []  # repeated keys settled in a second transaction
     with store.transaction():
         for kind, path, digest, loaded in plan:
             if loaded is None:
@@ -164,8 +168,9 @@ def load_inputs(
                     streaming.forget_file(store, kind, path)
                     loaded = read_file(kind, path, opts)
                 else:
-                    _record_input(store, kind, path, digest, oh, st.rows, st.rejected)
+                    store.execute("forget_input_file", {"kind": kind, "path": path})  # recorded once settled
                     out.append(FileLoad(kind, path, digest, "loaded", st.rows, st.rejected, st.notices))
+                    streamed.append((out[-1], st))
                     continue
             p = {"path": path}
             if kind == "buildings":
@@ -184,6 +189,12 @@ def load_inputs(
             _record_input(store, kind, path, digest, oh, loaded.df.height, loaded.rejects.height)
             out.append(FileLoad(kind, path, digest, "loaded", loaded.df.height, loaded.rejects.height, loaded.notices))
         _forget_other_files(store, files)
+    if streamed:
+        with store.transaction():
+            for fl, st in streamed:
+                st = streaming.settle_repeats(store, fl.kind, fl.path, st)
+                fl.rows, fl.rejected, fl.notices = st.rows, st.rejected, st.notices
+                _record_input(store, fl.kind, fl.path, fl.sha256, oh, fl.rows, fl.rejected)
     return out
 
 

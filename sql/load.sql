@@ -34,6 +34,10 @@ SELECT $kind AS kind, $path AS path, file, line, "column", value, reason FROM st
 -- The hash recorded for an input file at its last load, if any.
 SELECT sha256, options_hash, rows_loaded, rows_rejected FROM input_files WHERE kind = $kind AND path = $path;
 
+-- name: forget_input_file
+-- A file read in chunks is recorded once its repeated keys are settled (screening/pipeline.py load_inputs).
+DELETE FROM input_files WHERE kind = $kind AND path = $path;
+
 -- name: record_input_file
 INSERT OR REPLACE INTO input_files
 VALUES ($path, $kind, $sha256, $options_hash, $rows_loaded, $rows_rejected, now()::TIMESTAMP);
