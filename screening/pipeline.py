@@ -11,6 +11,7 @@ import datetime as _dt
 from abc import ABC, abstractmethod
 import hashlib
 import json
+import os
 import time
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -51,16 +52,49 @@ class FileLoad:
     notices: list[str] = field(default_factory=list)
 
 
-def file_sha256(path: str | Path) -> str:
+#: Digests of the files hashed by this process (:func:`file_sha256`), by path: ``(identity, digest)``.
+_DIGESTS: dict[str, tuple[tuple[int, ...], str]] = {}
+_DIGESTS_KEPT = 64
+#: A digest is kept only for a file last changed this long before its hashing began [ns] (see file_sha256).
+RACY_NS = 3_000_000_000
+
+
+def _identity(st: os.stat_result) -> tuple[int, ...]:
+    return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns, st.st_ctime_ns)
+
+
+def _hash_file(src: str) -> str:
     h = hashlib.sha256()
-    src = split_sheet(path)[0]  # book.xlsx#Sheet: the workbook's bytes
+    with open(src, "rb") as f:
+        for chunk in iter(lambda: f.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def file_sha256(path: str | Path) -> str:
+    """The SHA-256 of a file's bytes (a workbook's for ``book.xlsx#Sheet``), hex.
+
+    A run hashes each input file twice, for its key (``runs/record.run_key``) and for the load; the second
+    is taken from the first when the file is the same (device, inode, size, modification and change times
+    in ns, ``os.stat``). Only a file last changed ``RACY_NS`` before its hashing began is remembered, so
+    that a write after the hashing shows in the change time even with coarse file times (as git treats
+    "racily clean" index entries)."""
+    src = str(split_sheet(path)[0])  # book.xlsx#Sheet: the workbook's bytes
     try:
-        with open(src, "rb") as f:
-            for chunk in iter(lambda: f.read(1 << 20), b""):
-                h.update(chunk)
+        start = time.time_ns()
+        before = _identity(os.stat(src))
+        known = _DIGESTS.get(src)
+        if known is not None and known[0] == before:
+            return known[1]
+        digest = _hash_file(src)
+        if max(before[3], before[4]) < start - RACY_NS and _identity(os.stat(src)) == before:
+            _DIGESTS.pop(src, None)
+            _DIGESTS[src] = (before, digest)
+            while len(_DIGESTS) > _DIGESTS_KEPT:
+                del _DIGESTS[next(iter(_DIGESTS))]
+        return digest
     except OSError as exc:
         raise unreadable(str(path), exc) from None
-    return h.hexdigest()
 
 
 def read_options(cfg: config.Settings | dict) -> ReadOptions:

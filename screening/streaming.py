@@ -485,4 +485,12 @@ def forget_file(store: Store, kind: str, path: str) -> None:
     store.execute("delete_load_rejects", {"kind": kind, "path": str(path)})
 
 
-__all__ = ["STREAM_CHUNK_BYTES", "Streamed", "WholeFile", "load_streamed", "settle_repeats", "streamable", "forget_file"]
+__all__ = [
+    "STREAM_CHUNK_BYTES",
+    "Streamed",
+    "WholeFile",
+    "load_streamed",
+    "settle_repeats",
+    "streamable",
+    "forget_file",
+]
