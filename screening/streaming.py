@@ -201,8 +201,10 @@ def _checked(raw: pl.DataFrame, structural: list[dict], plan: _Plan) -> tuple[pl
     tally: dict = {}
     if not raw.height:
         return None, ingest.rejects_frame(structural), tally
-    _whole_file_checks(plan.kind, raw, plan.opts)
-    typed, prob = ingest._typed_columns(raw, plan.spec, plan.label, plan.opts, None, tally)
+    _whole_file_checks(plan.kind, raw, plan.opts)  # past it, a readings chunk has no slash date without date_order
+    typed, prob = ingest._typed_columns(
+        raw, plan.spec, plan.label, plan.opts, None, tally, find_date_order=plan.kind != "readings"
+    )
     del raw
     if plan.kind == "readings":
         good, rej = ingest.readings_checked(typed, prob, structural, plan.label)
