@@ -4,8 +4,8 @@ The whole-file path (:func:`screening.ingest.read_buildings` / ``read_readings``
 decoded text and its frames at once. Here a text file is read ``chunk_bytes`` of whole lines at a
 time; each chunk goes through the same record split (:mod:`screening.csvread`), the same typing and
 checks (:mod:`screening.ingest`) and into the store inside the load's transaction, so only one
-chunk's text and frames are in memory; a chunk is stored on a thread of its own while the next is
-checked (:class:`_Writer`). Duplicates and conflicting rows can sit in different chunks: they are found
+chunk's text and frames are in memory; a chunk is typed, checked and stored on a thread of its own
+while the next one's records are split (:class:`_Writer`). Duplicates and conflicting rows can sit in different chunks: they are found
 once the load is committed, in the store (the rows whose key occurs more than once in the file,
 ``sql/load.sql``), and decided by the same functions as in the whole-file path
 (:func:`ingest.reading_duplicates`, :func:`ingest.building_duplicates`) in a second transaction
@@ -29,6 +29,7 @@ import csv
 import io
 import queue
 import threading
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -234,8 +235,10 @@ def _checked_chunks(
     tally: dict,
     workers: int = 1,
 ):
-    """The file's records, typed and checked a chunk at a time: ``(rows to store or None, rejects)`` pairs in
-    the file's order; the header's notices into ``notices``, the number-format counts added into ``tally``.
+    """The file's records a chunk at a time, in the file's order: for each, a call that types and checks
+    the chunk's records (split here) and returns ``(rows to store or None, rejects)``, to be made in the
+    same order (on the thread that stores them: :class:`_Writer`); the header's notices into ``notices``,
+    the number-format counts added into ``tally`` by the calls.
 
     Without quotes every line is a record, so the chunks are independent: with ``workers`` ≥ 2 they are
     split and checked on that many child processes (``screening.workers.in_order``) while this process
@@ -281,6 +284,14 @@ def _checked_chunks(
         for k, v in counts.items():
             tally[k] = tally.get(k, 0) + v
 
+    def check(df: pl.DataFrame, rej: list[dict]) -> Callable[[], tuple[pl.DataFrame | None, pl.DataFrame]]:
+        def typed() -> tuple[pl.DataFrame | None, pl.DataFrame]:
+            good, rejects, counts = _checked(_full(df, plan.columns), rej, plan)
+            add(counts)
+            return good, rejects
+
+        return typed
+
     if not sc.quotes:
 
         def pieces():  # (text, its first line) of every chunk after the header
@@ -296,15 +307,21 @@ def _checked_chunks(
         if workers >= 2 and Path(path).stat().st_size > 2 * size:
             from .workers import in_order
 
-            checked = in_order(_fast_checked, pieces(), workers)
+            for good, rej, counts, rep, rows, rejected in in_order(_fast_checked, pieces(), workers):
+                repeated += rep
+                n_rows += rows
+                n_rej += rejected
+                add(counts)
+                yield lambda good=good, rej=rej: (good, rej)
         else:
-            checked = (_fast_checked(*piece) for piece in pieces())
-        for good, rej, counts, rep, rows, rejected in checked:
-            repeated += rep
-            n_rows += rows
-            n_rej += rejected
-            add(counts)
-            yield good, rej
+            for text, line, _ in pieces():
+                df, rej, rep = csvread._fast_chunk(text, line, label, delim, header_norm, plan.idx, wanted)
+                del text
+                repeated += rep
+                n_rows += df.height
+                n_rej += len(rej)
+                yield check(df, rej)  # typed and checked on the storing thread while the next chunk is split here
+                del df, rej
     else:
         batches = csvread.slow_batches(
             reader,
@@ -321,9 +338,8 @@ def _checked_chunks(
             repeated += rep
             n_rows += df.height
             n_rej += len(rej)
-            good, rejects, counts = _checked(_full(df, plan.columns), rej, plan)
-            add(counts)
-            yield good, rejects
+            yield check(df, rej)
+            del df, rej
     if repeated:
         notices.append(f"{label}: skipped {repeated} repeated header line(s)")
     if not n_rows and not n_rej:
@@ -354,10 +370,11 @@ ROW_GROUP_ROWS = 122_880
 
 
 class _Writer:
-    """Stores the checked chunks of one file on a thread of its own, in order, while the caller checks the next.
+    """Checks and stores the chunks of one file on a thread of its own, in order, while the caller splits the
+    next one's records (:func:`_checked_chunks`; polars and DuckDB let go of the GIL while they work).
 
-    One chunk at a time: :meth:`put` waits until the previous chunk is stored, so at most one checked
-    chunk waits here besides the one being checked. The rows to keep are inserted in whole row groups
+    One chunk at a time: :meth:`put` waits until the previous chunk is stored, so at most one chunk
+    waits here besides the one being split. The rows to keep are inserted in whole row groups
     (:data:`ROW_GROUP_ROWS`), the rest carried into the next insert; the rejects as they come. The store's
     connection is used by this thread only between the first :meth:`put` and :meth:`close`, while the
     caller does not touch it (DuckDB connections are not for concurrent use). The first error raised
@@ -380,7 +397,7 @@ class _Writer:
                 if item is None:
                     return
                 if self._error is None:
-                    self._store(*item)
+                    self._store(*(item() if callable(item) else item))
             except BaseException as exc:  # raised again on the caller's thread
                 self._error = exc
             finally:
@@ -414,11 +431,11 @@ class _Writer:
             err, self._error = self._error, None
             raise err
 
-    def put(self, good: pl.DataFrame | None, rej: pl.DataFrame) -> None:
-        """Store one checked chunk (rows to keep or None, rejects) after the ones before it."""
+    def put(self, chunk: Callable[[], tuple[pl.DataFrame | None, pl.DataFrame]]) -> None:
+        """Check (``chunk()``: rows to keep or None, rejects) and store one chunk after the ones before it."""
         self._todo.join()  # the previous chunk is stored
         self._raise()
-        self._todo.put((good, rej))
+        self._todo.put(chunk)
 
     def close(self, rest: bool = True) -> None:
         """Store what is left (``rest``; not after an error of the caller's), wait for the thread to end
@@ -457,8 +474,8 @@ def load_streamed(
     tally: dict = {}
     writer = _Writer(store, kind, label)
     try:
-        for good, rej in _checked_chunks(path, label, spec, opts, kind, sc, chunk_bytes, notices, tally, workers):
-            writer.put(good, rej)  # stored on the writer's thread while the next chunk is checked here
+        for chunk in _checked_chunks(path, label, spec, opts, kind, sc, chunk_bytes, notices, tally, workers):
+            writer.put(chunk)  # checked and stored on the writer's thread while the next chunk is split here
     except BaseException:
         writer.close(rest=False)  # the connection is this thread's again for the caller's rollback
         raise
