@@ -197,12 +197,17 @@ def _full(df: pl.DataFrame, columns: list[str]) -> pl.DataFrame:
     return df.with_columns(pl.lit(None, dtype=pl.String).alias(c) for c in missing) if missing else df
 
 
-def _checked(raw: pl.DataFrame, structural: list[dict], plan: _Plan) -> tuple[pl.DataFrame | None, pl.DataFrame, dict]:
-    """One chunk's records typed and checked: (rows to store or None, rejects, number-format counts)."""
+def _checked(
+    raw: pl.DataFrame, structural: list[dict], plan: _Plan, whole_file_checked: bool = False
+) -> tuple[pl.DataFrame | None, pl.DataFrame, dict]:
+    """One chunk's records typed and checked: (rows to store or None, rejects, number-format counts).
+    ``whole_file_checked``: :func:`_whole_file_checks` has passed ``raw`` already."""
     tally: dict = {}
     if not raw.height:
         return None, ingest.rejects_frame(structural), tally
-    _whole_file_checks(plan.kind, raw, plan.opts)  # past it, a readings chunk has no slash date without date_order
+    if not whole_file_checked:
+        _whole_file_checks(plan.kind, raw, plan.opts)
+    # past the whole-file checks, a readings chunk has no slash date without date_order
     typed, prob = ingest._typed_columns(
         raw, plan.spec, plan.label, plan.opts, None, tally, find_date_order=plan.kind != "readings"
     )
@@ -285,8 +290,12 @@ def _checked_chunks(
             tally[k] = tally.get(k, 0) + v
 
     def check(df: pl.DataFrame, rej: list[dict]) -> Callable[[], tuple[pl.DataFrame | None, pl.DataFrame]]:
+        raw = _full(df, plan.columns)
+        if raw.height:  # what only the whole file tells, found here: raised in the chunk's turn
+            _whole_file_checks(plan.kind, raw, plan.opts)
+
         def typed() -> tuple[pl.DataFrame | None, pl.DataFrame]:
-            good, rejects, counts = _checked(_full(df, plan.columns), rej, plan)
+            good, rejects, counts = _checked(raw, rej, plan, whole_file_checked=True)
             add(counts)
             return good, rejects
 
