@@ -456,7 +456,14 @@ class _Writer:
                 self._todo.join()
         finally:
             self._todo.put(None)
-            self._thread.join()
+            stop: BaseException | None = None
+            while self._thread.is_alive():  # the connection is the caller's again only once the thread has ended
+                try:
+                    self._thread.join()
+                except BaseException as exc:  # a second stop signal while waiting: raised once the thread is done
+                    stop = stop or exc
+            if stop is not None:
+                raise stop
         self._raise()
 
 
