@@ -5,8 +5,9 @@ decoded text and its frames at once. Here a text file is read ``chunk_bytes`` of
 time; each chunk goes through the same record split (:mod:`screening.csvread`), the same typing and
 checks (:mod:`screening.ingest`) and into the store inside the load's transaction, so only one
 chunk's text and frames are in memory; a chunk is typed, checked and stored on a thread of its own
-while the next one's records are split (:class:`_Writer`). Duplicates and conflicting rows can sit in different chunks: they are found
-once the load is committed, in the store (the rows whose key occurs more than once in the file,
+while the next one's records are split (:class:`_Writer`). Duplicates and conflicting rows can sit in
+different chunks: they are found once the load is committed, in the store (the rows whose key occurs
+more than once in the file,
 ``sql/load.sql``), and decided by the same functions as in the whole-file path
 (:func:`ingest.reading_duplicates`, :func:`ingest.building_duplicates`) in a second transaction
 (:func:`settle_repeats`). The stored rows, the rejects and the notices are those of the whole-file path
@@ -371,10 +372,11 @@ def _whole_file_checks(kind: str, raw: pl.DataFrame, opts: ReadOptions) -> None:
             raise WholeFile("slash dates without date_order")
 
 
-#: Rows of a DuckDB row group (its default ``ROW_GROUP_SIZE``, https://duckdb.org/docs/stable/internals/storage):
-#: the rows of a streamed file are inserted in whole multiples of it. A statement that appends a part of a row
-#: group leaves the commit to rewrite the parts (10^5 buildings, 4.25 M readings in 9 chunks: the commit took
-#: 1.7-1.9 s of CPU; with whole row groups 0.01-0.1 s; the rows and their order are the same).
+#: Rows of a DuckDB row group (the default of its database format, 122,880: DuckDB's guide "Tuning Workloads",
+#: https://duckdb.org/docs/stable/guides/performance/how_to_tune_workloads): the rows of a streamed file are
+#: inserted in whole multiples of it. Statements that each append a part of a row group left the commit to
+#: write the parts again (measured, 10^5 buildings, 4.25 M readings in 9 inserts: the commit took 1.7-1.9 s of
+#: CPU; in whole row groups 0.01-0.1 s; the rows and their order are the same).
 ROW_GROUP_ROWS = 122_880
 
 
@@ -506,8 +508,10 @@ def settle_repeats(store: Store, kind: str, path: str, st: Streamed) -> Streamed
     not kept deleted, the conflicts rejected. Returns ``st`` with its rows, rejects and notices settled.
 
     Runs in a transaction after the one of the load (the caller's): rows deleted in the transaction that
-    inserted them make DuckDB's commit write all of that transaction's rows again (10^5 buildings: 1.7-2.7 s
-    of CPU for 4.25 M readings; after the load's commit, deleting the same rows and committing takes 0.03 s).
+    inserted them make DuckDB's commit append all of that transaction's rows again instead of taking the
+    row groups already written (DuckDB's ``LocalStorage::Flush``, src/storage/local_storage.cpp, takes them
+    only without deletes; measured, 10^5 buildings, 4.25 M readings: 2.7 s of CPU at the commit; after the
+    load's commit, deleting the same rows and committing takes 0.03 s).
     """
     label = str(path)
     p = {"path": label}

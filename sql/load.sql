@@ -104,7 +104,8 @@ WITH repeated AS (
 ), candidates AS (
     SELECT building_id, fuel, meter_id, period_start, period_end, quantity, unit, estimated, cost, source_line
     FROM readings
-    WHERE source_file = $path AND hash(building_id, fuel, meter_id, period_start, period_end) IN (SELECT h FROM repeated)
+    WHERE source_file = $path
+      AND hash(building_id, fuel, meter_id, period_start, period_end) IN (SELECT h FROM repeated)
 ), keys AS (
     SELECT building_id, fuel, meter_id, period_start, period_end FROM candidates GROUP BY ALL HAVING count(*) > 1
 )
