@@ -360,7 +360,7 @@ def _fast_records(text, label, delim, header_norm, idx, wanted, chunk_chars=None
 
 def _fast_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
     """One chunk of whole lines (``first_line`` is the physical line of its first line)."""
-    lines = pl.Series("raw", chunk.split("\n"), dtype=pl.String)
+    lines = pl.Series("raw", [chunk], dtype=pl.String).str.split("\n").explode()  # as chunk.split("\n")
     if "\r" in chunk:
         lines = lines.str.strip_suffix("\r")
     frame = pl.DataFrame({"raw": lines}).with_row_index(LINE_COL, offset=first_line)

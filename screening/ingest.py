@@ -135,17 +135,27 @@ def format_notices(label: str, opts: ReadOptions, cols: list[str], tally: dict) 
 
 
 def _typed_columns(
-    raw: pl.DataFrame, spec, label: str, opts: ReadOptions, notices: list[str] | None = None, tally: dict | None = None
+    raw: pl.DataFrame,
+    spec,
+    label: str,
+    opts: ReadOptions,
+    notices: list[str] | None = None,
+    tally: dict | None = None,
+    *,
+    find_date_order: bool = True,
 ) -> tuple[pl.DataFrame, pl.DataFrame]:
     """Parse every column of ``raw`` per ``spec``; return typed frame (all rows) and problems.
 
     ``tally``: add up the number-format counts there instead of wording notices (see
-    :func:`_number_formats`)."""
+    :func:`_number_formats`). ``find_date_order`` False: the caller knows ``raw`` holds no slash date
+    when ``opts.date_order`` is unset, so there is no day/month order to find (:func:`_file_date_order`)."""
     typed: dict[str, pl.Series] = {}
     problems = []
     factors = si_factors() if opts.units == "SI" else {}
     this_year = _dt.date.today().year
-    date_order = opts.date_order or _file_date_order(raw, [c for c, _, k, _, _ in spec if k == "date"])
+    date_order = opts.date_order or (
+        _file_date_order(raw, [c for c, _, k, _, _ in spec if k == "date"]) if find_date_order else None
+    )
     for col, canon, kind, required, o in spec:
         s = raw[col]
         if not required and s.null_count() == len(s):  # absent or empty optional column: nothing to check

@@ -11,6 +11,7 @@ import datetime as _dt
 from abc import ABC, abstractmethod
 import hashlib
 import json
+import os
 import time
 from collections.abc import Iterator
 from dataclasses import dataclass, field
@@ -51,16 +52,49 @@ class FileLoad:
     notices: list[str] = field(default_factory=list)
 
 
-def file_sha256(path: str | Path) -> str:
+#: Digests of the files hashed by this process (:func:`file_sha256`), by path: ``(identity, digest)``.
+_DIGESTS: dict[str, tuple[tuple[int, ...], str]] = {}
+_DIGESTS_KEPT = 64
+#: A digest is kept only for a file last changed this long before its hashing began [ns] (see file_sha256).
+RACY_NS = 3_000_000_000
+
+
+def _identity(st: os.stat_result) -> tuple[int, ...]:
+    return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns, st.st_ctime_ns)
+
+
+def _hash_file(src: str) -> str:
     h = hashlib.sha256()
-    src = split_sheet(path)[0]  # book.xlsx#Sheet: the workbook's bytes
+    with open(src, "rb") as f:
+        for chunk in iter(lambda: f.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def file_sha256(path: str | Path) -> str:
+    """The SHA-256 of a file's bytes (a workbook's for ``book.xlsx#Sheet``), hex.
+
+    A run hashes each input file twice, for its key (``runs/record.run_key``) and for the load; the second
+    is taken from the first when the file is the same (device, inode, size, modification and change times
+    in ns, ``os.stat``). Only a file last changed ``RACY_NS`` before its hashing began is remembered, so
+    that a write after the hashing shows in the change time even with coarse file times (as git treats
+    "racily clean" index entries)."""
+    src = str(split_sheet(path)[0])  # book.xlsx#Sheet: the workbook's bytes
     try:
-        with open(src, "rb") as f:
-            for chunk in iter(lambda: f.read(1 << 20), b""):
-                h.update(chunk)
+        start = time.time_ns()
+        before = _identity(os.stat(src))
+        known = _DIGESTS.get(src)
+        if known is not None and known[0] == before:
+            return known[1]
+        digest = _hash_file(src)
+        if max(before[3], before[4]) < start - RACY_NS and _identity(os.stat(src)) == before:
+            _DIGESTS.pop(src, None)
+            _DIGESTS[src] = (before, digest)
+            while len(_DIGESTS) > _DIGESTS_KEPT:
+                del _DIGESTS[next(iter(_DIGESTS))]
+        return digest
     except OSError as exc:
         raise unreadable(str(path), exc) from None
-    return h.hexdigest()
 
 
 def read_options(cfg: config.Settings | dict) -> ReadOptions:
@@ -127,7 +161,10 @@ def load_inputs(
     and checked before anything is written; a buildings or readings CSV larger than ``chunk_bytes``
     (default ``opts.chunk_bytes``, ``[run] ingest_chunk_mb``; 0 reads every file whole) is read, checked and
     written a chunk at a time inside the transaction (:mod:`screening.streaming`), which an error
-    rolls back. A file whose content hash and reading options match its last load is not read again.
+    rolls back. The repeated keys of the files read in chunks are settled, and those files recorded, in a
+    second transaction (:func:`streaming.settle_repeats`): the first one leaves them unrecorded, so a run
+    stopped between the two reads them again. A file whose content hash and reading options match its last
+    load is not read again.
     ``workers`` ≥ 2 (``[run] workers``) checks a streamed file's chunks on that many child processes.
     """
     log = log or (lambda msg: None)
@@ -149,6 +186,7 @@ def load_inputs(
             log(f"reading {kind} file {path}")
             plan.append((kind, str(path), digest, read_file(kind, str(path), opts)))
     out: list[FileLoad] = []
+    streamed: list[tuple[FileLoad, streaming.Streamed]] = []  # repeated keys settled in a second transaction
     with store.transaction():
         for kind, path, digest, loaded in plan:
             if loaded is None:
@@ -164,8 +202,9 @@ def load_inputs(
                     streaming.forget_file(store, kind, path)
                     loaded = read_file(kind, path, opts)
                 else:
-                    _record_input(store, kind, path, digest, oh, st.rows, st.rejected)
+                    store.execute("forget_input_file", {"kind": kind, "path": path})  # recorded once settled
                     out.append(FileLoad(kind, path, digest, "loaded", st.rows, st.rejected, st.notices))
+                    streamed.append((out[-1], st))
                     continue
             p = {"path": path}
             if kind == "buildings":
@@ -184,6 +223,12 @@ def load_inputs(
             _record_input(store, kind, path, digest, oh, loaded.df.height, loaded.rejects.height)
             out.append(FileLoad(kind, path, digest, "loaded", loaded.df.height, loaded.rejects.height, loaded.notices))
         _forget_other_files(store, files)
+    if streamed:
+        with store.transaction():
+            for fl, st in streamed:
+                st = streaming.settle_repeats(store, fl.kind, fl.path, st)
+                fl.rows, fl.rejected, fl.notices = st.rows, st.rejected, st.notices
+                _record_input(store, fl.kind, fl.path, fl.sha256, oh, fl.rows, fl.rejected)
     return out
 
 

@@ -34,6 +34,10 @@ SELECT $kind AS kind, $path AS path, file, line, "column", value, reason FROM st
 -- The hash recorded for an input file at its last load, if any.
 SELECT sha256, options_hash, rows_loaded, rows_rejected FROM input_files WHERE kind = $kind AND path = $path;
 
+-- name: forget_input_file
+-- A file read in chunks is recorded once its repeated keys are settled (screening/pipeline.py load_inputs).
+DELETE FROM input_files WHERE kind = $kind AND path = $path;
+
 -- name: record_input_file
 INSERT OR REPLACE INTO input_files
 VALUES ($path, $kind, $sha256, $options_hash, $rows_loaded, $rows_rejected, now()::TIMESTAMP);
@@ -91,18 +95,26 @@ SELECT file, line, "column", value, reason FROM load_rejects ORDER BY kind, path
 
 -- name: select_repeated_reading_keys_of_file
 -- Streaming ingest (screening/streaming.py): the rows of one file whose meter and period occur more
--- than once in it, in line order, for the duplicate and conflict checks across chunks.
+-- than once in it, in line order, for the duplicate and conflict checks across chunks. The rows of a
+-- repeated key share its hash: the exact grouping runs on the rows of repeated hashes only (10^5
+-- buildings, 4.25 M readings: 1.0 s of CPU instead of 1.3-1.9 s).
 WITH repeated AS (
-    SELECT building_id, fuel, meter_id, period_start, period_end FROM readings WHERE source_file = $path
-    GROUP BY ALL HAVING count(*) > 1
+    SELECT hash(building_id, fuel, meter_id, period_start, period_end) AS h FROM readings WHERE source_file = $path
+    GROUP BY h HAVING count(*) > 1
+), candidates AS (
+    SELECT building_id, fuel, meter_id, period_start, period_end, quantity, unit, estimated, cost, source_line
+    FROM readings
+    WHERE source_file = $path
+      AND hash(building_id, fuel, meter_id, period_start, period_end) IN (SELECT h FROM repeated)
+), keys AS (
+    SELECT building_id, fuel, meter_id, period_start, period_end FROM candidates GROUP BY ALL HAVING count(*) > 1
 )
-SELECT r.building_id, r.fuel, r.meter_id, r.period_start, r.period_end, r.quantity, r.unit, r.estimated, r.cost,
-       r.source_line AS _line
-FROM readings r JOIN repeated k
-  ON r.building_id = k.building_id AND r.fuel = k.fuel AND r.meter_id = k.meter_id
- AND r.period_start = k.period_start AND r.period_end = k.period_end
-WHERE r.source_file = $path
-ORDER BY r.source_line;
+SELECT c.building_id, c.fuel, c.meter_id, c.period_start, c.period_end, c.quantity, c.unit, c.estimated, c.cost,
+       c.source_line AS _line
+FROM candidates c JOIN keys k
+  ON c.building_id = k.building_id AND c.fuel = k.fuel AND c.meter_id = k.meter_id
+ AND c.period_start = k.period_start AND c.period_end = k.period_end
+ORDER BY c.source_line;
 
 -- name: delete_readings_of_file_lines
 -- stage_lines: the lines (column line) to delete, as a registered frame (a hash join, not a list scan)

@@ -304,3 +304,20 @@ def test_nan_and_infinite_dates_are_rejected_not_crashing():
     assert v.to_list()[:3] == [None, None, None]
     assert all(x is not None for x in p.to_list()[:3])
     assert str(v[3]) == "2024-01-01"  # spreadsheet serial 45292, 1900 date system (by hand)
+
+
+def test_a_file_is_hashed_once_while_it_is_unchanged(tmp_path, monkeypatch):
+    import time
+
+    f = tmp_path / "r.csv"
+    f.write_text("a,b\n1,2\n")
+    hashed: list[str] = []
+    real = pipeline._hash_file
+    monkeypatch.setattr(pipeline, "_hash_file", lambda src: hashed.append(src) or real(src))
+    first = pipeline.file_sha256(f)
+    assert pipeline.file_sha256(f) == first and len(hashed) == 2  # just written: not remembered (racy)
+    monkeypatch.setattr(pipeline, "RACY_NS", -(10**12))  # as if written long ago
+    assert pipeline.file_sha256(f) == first and pipeline.file_sha256(f) == first and len(hashed) == 3
+    time.sleep(0.05)
+    f.write_text("a,b\n1,3\n")  # the same size, other bytes: hashed again
+    assert pipeline.file_sha256(f) != first and len(hashed) == 4

@@ -179,3 +179,66 @@ def test_small_files_and_workbooks_are_read_whole(tmp_path):
     assert not streaming.streamable("readings", str(DEMO / "readings.csv"), 1 << 30)
     assert streaming.streamable("readings", str(DEMO / "readings.csv"), 1000)
     assert not streaming.streamable("readings", str(tmp_path / "r.parquet"), 10)
+
+
+def test_rows_inserted_in_whole_row_groups_carry_the_rest_in_file_order(tmp_path, monkeypatch):
+    monkeypatch.setattr(streaming, "ROW_GROUP_ROWS", 7)  # a few rows of every chunk wait for the next one
+    inserts: list[int] = []
+    execute = Store.execute
+
+    def counting(self, name, params=None, **frames):
+        if name == "insert_readings" and "stage_readings" in frames:
+            inserts.append(frames["stage_readings"].height)
+        return execute(self, name, params, **frames)
+
+    monkeypatch.setattr(Store, "execute", counting)
+    _same(_messy(tmp_path))
+    streamed = inserts[1:]  # the first insert is the whole-file load's
+    assert len(streamed) > 5 and all(n % 7 == 0 for n in streamed[:-1])
+
+
+def test_a_store_error_on_the_writer_thread_is_raised_and_changes_nothing(tmp_path, monkeypatch):
+    from screening.errors import StoreError
+
+    files = _messy(tmp_path)
+    store = Store(str(tmp_path / "s.duckdb"))
+    pipeline.load_inputs(store, files, ReadOptions(), chunk_bytes=SMALL)
+    before = _tables(store)
+    execute = Store.execute
+    calls = []
+
+    def failing(self, name, params=None, **frames):
+        if name == "insert_load_rejects":
+            calls.append(name)
+            raise StoreError("disk full (test)")
+        return execute(self, name, params, **frames)
+
+    monkeypatch.setattr(Store, "execute", failing)
+    with pytest.raises(StoreError, match="disk full"):
+        pipeline.load_inputs(store, files, ReadOptions(), chunk_bytes=SMALL, force=True)
+    assert len(calls) == 1  # the chunks after the failing one are not stored
+    monkeypatch.setattr(Store, "execute", execute)
+    after = _tables(store)
+    for name in before:
+        assert after[name].equals(before[name]), name
+
+
+def test_a_stop_before_the_repeats_are_settled_leaves_the_file_to_be_read_again(tmp_path, monkeypatch):
+    files = _messy(tmp_path)
+    store = Store(str(tmp_path / "s.duckdb"))
+
+    def stop(*args, **kw):
+        raise KeyboardInterrupt
+
+    with monkeypatch.context() as m:
+        m.setattr(streaming, "settle_repeats", stop)
+        with pytest.raises(KeyboardInterrupt):
+            pipeline.load_inputs(store, files, ReadOptions(), chunk_bytes=SMALL)
+    kinds = store.con.sql("SELECT kind FROM input_files ORDER BY kind").pl()["kind"].to_list()
+    assert kinds == ["weather"]  # the files read in chunks are not recorded: the next load reads them again
+    loads = pipeline.load_inputs(store, files, ReadOptions(), chunk_bytes=SMALL)
+    assert [f.status for f in loads] == ["loaded", "loaded", "unchanged"]
+    whole, _ = _load(files, ReadOptions(), 0)
+    tw, tp = _tables(whole), _tables(store)
+    for name in tw:
+        assert tp[name].equals(tw[name]), name
