@@ -379,13 +379,13 @@ def geometry(
     perimeter = 2.0 * np.sqrt(footprint) * (sr + 1.0 / sr)
     wall = perimeter * h * n
     if wall_area_ft2 is not None:
-        wall = np.where(np.isnan(wall_area_ft2), wall, wall_area_ft2)
+        wall = _given_or(wall, wall_area_ft2)
     window = wwr * wall
     if window_area_ft2 is not None:
-        window = np.where(np.isnan(window_area_ft2), window, window_area_ft2)
+        window = _given_or(window, window_area_ft2)
     roof = footprint
     if roof_area_ft2 is not None:
-        roof = np.where(np.isnan(roof_area_ft2), roof, roof_area_ft2)
+        roof = _given_or(roof, roof_area_ft2)
     return {
         "footprint_ft2": footprint,
         "perimeter_ft": perimeter,
@@ -395,6 +395,20 @@ def geometry(
         "roof_area_ft2": roof,
         "volume_ft3": a * h,
     }
+
+
+def _given_or(estimate, given) -> np.ndarray:
+    """``np.where(np.isnan(given), estimate, given)``: the given value where there is one, else the
+    estimate; without the pass over the arrays when ``given`` is all NaN or has no NaN (then the
+    estimate or the given values, broadcast to the same shape: the same values)."""
+    given = np.asarray(given, dtype=float)
+    nan = np.isnan(given)
+    if nan.all() or not nan.any():
+        estimate = np.asarray(estimate, dtype=float)
+        pick = estimate if nan.all() else given
+        shape = np.broadcast_shapes(estimate.shape, given.shape)
+        return pick if pick.shape == shape else np.broadcast_to(pick, shape)
+    return np.where(nan, estimate, given)
 
 
 def _era_index(year_built) -> np.ndarray:
@@ -468,7 +482,7 @@ def _first_bad(values: np.ndarray, mask: np.ndarray, ids=None) -> str:
 
 
 def _nonneg(name: str, x: np.ndarray) -> None:
-    if np.all(x >= 0):  # fast path: one pass (NaN fails it)
+    if x.size and x.min() >= 0:  # fast path: one pass (a NaN is the minimum, and fails it)
         return
     bad = ~(x >= 0)
     if np.any(bad):
@@ -736,13 +750,13 @@ def _model(area, p: dict, given: dict) -> dict[str, np.ndarray]:
         + parts["ua_infiltration"]
         + parts["ua_ventilation"]
     )
-    ua_used = np.where(np.isnan(given["ua_total_btu_h_f"]), ua, given["ua_total_btu_h_f"])
+    ua_used = _given_or(ua, given["ua_total_btu_h_f"])
     gains = c["btu_h_per_w"] * (
         p["internal_gains_w_ft2"] * area + p["solar_gains_w_ft2_window"] * geo["window_area_ft2"]
     )
     t_eff = effective_setpoint(p["setpoint_f"], p["setback_f"], p["setback_hours"], p["setback_realization"])
     t_bal = np.clip(balance_point(t_eff, gains, ua_used), c["balance_point_min_f"], c["balance_point_max_f"])
-    t_bal = np.where(np.isnan(given["balance_point_f"]), t_bal, given["balance_point_f"])
+    t_bal = _given_or(t_bal, given["balance_point_f"])
     return {
         **geo,
         **parts,
@@ -768,12 +782,14 @@ def _interp_rows(curve: np.ndarray, grid: np.ndarray, t: np.ndarray, uniform: bo
         j = np.minimum(((tc - g0) / step).astype(np.intp), ng - 2)
     else:
         j = np.minimum(np.searchsorted(grid, tc, side="right") - 1, ng - 2)
-    frac = (tc - grid[j]) / np.diff(grid)[j]  # np.diff(grid)[j] is grid[j + 1] - grid[j], the same bits
-    flat = curve.ravel()
-    base = (np.arange(curve.shape[0]) * ng).reshape((-1,) + (1,) * (t.ndim - 1))
-    idx = j + base
-    y0 = flat[idx]
-    dd = y0 + frac * (flat[idx + 1] - y0)
+    gaps = np.diff(grid)  # gaps[j] is grid[j + 1] - grid[j], the same bits
+    frac = np.subtract(tc, np.take(grid, j))
+    frac /= gaps[0] if (gaps == gaps[0]).all() else np.take(gaps, j)  # (one gap for all: the same divisor)
+    rise = np.zeros(curve.shape)  # rise[:, j] = curve[:, j + 1] - curve[:, j], the difference taken below
+    np.subtract(curve[:, 1:], curve[:, :-1], out=rise[:, :-1])
+    j += (np.arange(curve.shape[0]) * ng).reshape((-1,) + (1,) * (t.ndim - 1))  # the flat index
+    dd = np.take(curve.ravel(), j)
+    dd += frac * np.take(rise.ravel(), j)
     return dd, clipped
 
 
@@ -828,6 +844,84 @@ def _row_percentiles(x: np.ndarray, percents: tuple[float, ...]) -> np.ndarray:
     return out
 
 
+def _band_blocks(tables: dict, given: dict, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The buildings in an order where neighbours share which parameters are known and which values are given,
+    then their rows of draws; the starts of the blocks of that order (and its end), a block at most ``block``
+    buildings, all with the same known parameters and given values; and per block and parameter whether all
+    its buildings have the same row of draws (or all a known value)."""
+    rows = np.stack([r for _, r, _ in tables.values()], axis=1)  # (B, P), -1 where known
+    pattern = np.concatenate([rows < 0, np.stack([np.isnan(v) for v in given.values()], axis=1)], axis=1)
+    order = np.lexsort(np.concatenate([pattern, rows], axis=1).T[::-1])  # ties in building order
+    k = pattern[order]
+    n = k.shape[0]
+    new = np.ones(n, dtype=bool)
+    new[1:] = (k[1:] != k[:-1]).any(axis=1)
+    first = np.flatnonzero(new)
+    size = np.diff(np.append(first, n))
+    pieces = -(-size // block)
+    starts = np.repeat(first, pieces) + block * (
+        np.arange(pieces.sum()) - np.repeat(np.cumsum(pieces) - pieces, pieces)
+    )
+    r = rows[order]
+    one_row = np.minimum.reduceat(r, starts, axis=0) == np.maximum.reduceat(r, starts, axis=0)
+    return order, np.append(starts, n), one_row
+
+
+def _band(
+    tables: dict,
+    given: dict,
+    area: np.ndarray,
+    curve: np.ndarray,
+    grid: np.ndarray,
+    uniform: bool,
+    d: int,
+    block: int,
+    *,
+    compact: bool,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """P10, P50, P90 of the Monte Carlo heating [kBtu] and the share of draws whose balance point was
+    clipped to the grid, per building; ``tables``: per parameter its draws (K, D), each building's row
+    of them (-1 where known) and the known values.
+
+    ``compact``: buildings in the order of :func:`_band_blocks`, and a parameter one row for its whole
+    block held as (1, D) (known: (B, 1)), broadcast by numpy instead of copied to (B, D); every element
+    is the same operation on the same numbers, so the same bits. Otherwise blocks of ``block``
+    buildings in order, every parameter (B, D): a value out of range is named as it first appears.
+    """
+    b = area.shape[0]
+    if b == 0:
+        return np.empty(0), np.empty(0), np.empty(0), np.empty(0)
+    if compact:
+        order, cuts, one_row = _band_blocks(tables, given, block)
+    else:
+        order, cuts = np.arange(b), np.append(np.arange(0, b, block), b)
+        one_row = np.zeros((cuts.shape[0] - 1, len(tables)), dtype=bool)
+    out = np.empty((4, b))
+    for i, (b0, b1) in enumerate(zip(cuts[:-1].tolist(), cuts[1:].tolist())):
+        ix = order[b0:b1]
+        nb = b1 - b0
+        p = {}
+        for one, (pname, (draws, row, lo)) in zip(one_row[i].tolist(), tables.items()):
+            r = row[ix]
+            if one:
+                x = lo[ix][:, None] if r[0] < 0 else draws[r[0]][None, :]
+            elif (r >= 0).any():
+                x = np.take(draws, np.maximum(r, 0), axis=0)
+                kn = r < 0
+                if kn.any():
+                    x[kn] = lo[ix][kn, None]
+            else:
+                x = np.broadcast_to(lo[ix][:, None], (nb, d))
+            p[pname] = x if compact else np.broadcast_to(x, (nb, d))
+        g = {k: v[ix][:, None] if compact else np.broadcast_to(v[ix][:, None], (nb, d)) for k, v in given.items()}
+        m = _model(area[ix][:, None], p, g)
+        ddm, clip = _interp_rows(curve[ix], grid, m["balance_point_f"], uniform)
+        q = degree_day_heating_kbtu(m["ua_total_used"], ddm, p["efficiency"])
+        out[:3, ix] = _row_percentiles(np.broadcast_to(q, (nb, d)), (10.0, 50.0, 90.0))
+        out[3, ix] = np.count_nonzero(np.broadcast_to(clip, (nb, d)), axis=1) / d  # the mean, exactly
+    return out[0], out[1], out[2], out[3]
+
+
 def expected_heating(
     envelope: pl.DataFrame,
     base_grid_f: np.ndarray,
@@ -876,7 +970,8 @@ def expected_heating(
     stratified, one column of uniforms per parameter shared by all buildings (so a
     building's band does not depend on the rest of the portfolio); given inputs have
     low = high and do not spread. Draws are processed in blocks of buildings, all draws
-    at once.
+    at once; a block holds buildings with the same known and given parameters, so a parameter
+    with one row of draws (or a known value) for the whole block is held once and broadcast.
 
     References
     ----------
@@ -938,38 +1033,16 @@ def expected_heating(
         known = lo == hi
         uniq, inv = _unique_rows(lo[~known], ce[~known], hi[~known])
         draws = _tri_ppf(u[k][None, :], uniq[:, 0:1], uniq[:, 1:2], uniq[:, 2:3])  # (K, D)
-        full_inv = np.full(b, -1, dtype=np.intp)
-        full_inv[~known] = inv.ravel()
-        tables[pname] = (draws, full_inv, known, lo)
-
+        row = np.full(b, -1, dtype=np.intp)  # each building's row of draws, -1 where the value is known
+        row[~known] = inv.ravel()
+        tables[pname] = (draws, row, lo)
     given = {col: envelope[f"given_{col}"].fill_null(np.nan).to_numpy().astype(float) for col in _GIVEN_ONLY}
     area_all = envelope["floor_area_ft2"].to_numpy().astype(float)
-    p10 = np.empty(b)
-    p50 = np.empty(b)
-    p90 = np.empty(b)
-    share = np.empty(b)
     block = max(1, _BLOCK_ELEMENTS // d)
-    for b0 in range(0, b, block):
-        b1 = min(b, b0 + block)
-        sl = slice(b0, b1)
-        p = {}
-        for pname, (draws, inv, known, lo) in tables.items():
-            kn = known[sl]
-            if draws.shape[0] == 1 and not kn.any():  # one set of draws for all: a view, no copy
-                x = np.broadcast_to(draws, (b1 - b0, d))
-            elif draws.shape[0]:
-                x = np.take(draws, np.maximum(inv[sl], 0), axis=0)
-                if kn.any():
-                    x[kn] = lo[sl][kn, None]
-            else:
-                x = np.broadcast_to(lo[sl][:, None], (b1 - b0, d))
-            p[pname] = x
-        g = {k: v[sl][:, None] for k, v in given.items()}
-        m = _model(area_all[sl][:, None], p, g)
-        ddm, clip = _interp_rows(curve[sl], grid, m["balance_point_f"], uniform)
-        q = degree_day_heating_kbtu(m["ua_total_used"], ddm, p["efficiency"])
-        p10[sl], p50[sl], p90[sl] = _row_percentiles(q, (10.0, 50.0, 90.0))
-        share[sl] = clip.mean(axis=1)
+    try:
+        p10, p50, p90, share = _band(tables, given, area_all, curve, grid, uniform, d, block, compact=True)
+    except ValueError:  # a value out of range: raised as the plain blocks raise it (the same first value)
+        p10, p50, p90, share = _band(tables, given, area_all, curve, grid, uniform, d, block, compact=False)
 
     for arr in (p10, p50, p90, point, dd_bal, share):
         arr[no_weather] = np.nan
