@@ -608,7 +608,7 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
     p_lo: dict[str, np.ndarray] = {}
     p_hi: dict[str, np.ndarray] = {}
     p_given: dict[str, np.ndarray] = {}
-    p_src: dict[str, pl.Series] = {}
+    p_src: dict[str, np.ndarray] = {}
     for pname, (tname, gcol, _unit) in PARAMETERS.items():
         vals, codes, texts = defaults[pname]
         if tname == "efficiency_defaults":
@@ -621,7 +621,7 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
         p_val[pname] = np.where(is_given, g, v[:, 0])
         p_lo[pname] = np.where(is_given, g, v[:, 1])
         p_hi[pname] = np.where(is_given, g, v[:, 2])
-        p_src[pname] = pl.Series(texts, dtype=pl.String).gather(np.where(is_given, 0, s).astype(np.int32))
+        p_src[pname] = np.where(is_given, 0, s)  # an index into the parameter's source texts
 
     area = given["floor_area_ft2"]
     parts = _model(area, p_val, given)
@@ -666,55 +666,45 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
         data[f"{pname}_low"] = p_lo[pname]
         data[f"{pname}_high"] = p_hi[pname]
     for col in _GIVEN_ONLY:
-        data[f"given_{col}"] = given[col]
+        data[f"given_{col}"] = pl.Series(given[col], nan_to_null=True)
     out = pl.DataFrame(data)
-    for col in [f"given_{c}" for c in _GIVEN_ONLY]:
-        out = out.with_columns(pl.col(col).fill_nan(None))
 
-    # assumptions: list of {name, value, low, high, unit, origin, source}, built long then grouped
-    row = np.arange(n, dtype=np.int64)
-    origin_labels = pl.Series(["default", "given"], dtype=pl.String)
-    pieces = []
-    for k, (pname, (_t, _c, unit)) in enumerate(PARAMETERS.items()):
-        pieces.append(
-            pl.DataFrame(
-                {
-                    "row": row,
-                    "k": np.full(n, k, dtype=np.int32),
-                    "name": pl.Series([pname]).gather(np.zeros(n, dtype=np.int32)),
-                    "value": p_val[pname],
-                    "low": p_lo[pname],
-                    "high": p_hi[pname],
-                    "unit": pl.Series([unit]).gather(np.zeros(n, dtype=np.int32)),
-                    "origin": origin_labels.gather(p_given[pname].astype(np.int32)),
-                    "source": p_src[pname],
-                }
-            )
-        )
-    for k, (col, unit) in enumerate(_GIVEN_ONLY.items(), start=len(PARAMETERS)):
-        sel = ~np.isnan(given[col])
-        m = int(sel.sum())
-        if m == 0:
-            continue
-        v = given[col][sel]
-        pieces.append(
-            pl.DataFrame(
-                {
-                    "row": row[sel],
-                    "k": np.full(m, k, dtype=np.int32),
-                    "name": pl.Series([col]).gather(np.zeros(m, dtype=np.int32)),
-                    "value": v,
-                    "low": v,
-                    "high": v,
-                    "unit": pl.Series([unit]).gather(np.zeros(m, dtype=np.int32)),
-                    "origin": pl.Series(["given"]).gather(np.zeros(m, dtype=np.int32)),
-                    "source": pl.Series([_GIVEN_SOURCE]).gather(np.zeros(m, dtype=np.int32)),
-                }
-            )
-        )
+    # assumptions: list of {name, value, low, high, unit, origin, source} per building, the parameters in
+    # their order, then the given-only values it has: built long in that order, then grouped
+    kp, kg = len(PARAMETERS), len(_GIVEN_ONLY)
+    value = np.empty((n, kp + kg))
+    low = np.empty((n, kp + kg))
+    high = np.empty((n, kp + kg))
+    origin = np.ones((n, kp + kg), dtype=np.int32)  # 0 default, 1 given
+    src = np.zeros((n, kp + kg), dtype=np.int32)  # into all_texts; 0 is buildings.csv (every table's code 0)
+    all_texts: list[str] = [_GIVEN_SOURCE]
+    for k, pname in enumerate(PARAMETERS):
+        value[:, k], low[:, k], high[:, k] = p_val[pname], p_lo[pname], p_hi[pname]
+        origin[:, k] = p_given[pname]
+        texts = defaults[pname][2]
+        all_texts += [t for t in dict.fromkeys(texts) if t not in all_texts]
+        src[:, k] = np.array([all_texts.index(t) for t in texts], dtype=np.int32)[p_src[pname]]
+    for j, col in enumerate(_GIVEN_ONLY):
+        value[:, kp + j] = low[:, kp + j] = high[:, kp + j] = given[col]
+    keep = np.ones((n, kp + kg), dtype=bool)
+    keep[:, kp:] = ~np.isnan(value[:, kp:])
+    flat = keep.ravel()
+    k_of = np.broadcast_to(np.arange(kp + kg, dtype=np.int32), (n, kp + kg)).ravel()[flat]
+    names = pl.Series([*PARAMETERS, *_GIVEN_ONLY], dtype=pl.String)
+    units = pl.Series([u for _, _, u in PARAMETERS.values()] + list(_GIVEN_ONLY.values()), dtype=pl.String)
     assumptions = (
-        pl.concat(pieces)
-        .sort("row", "k")
+        pl.DataFrame(
+            {
+                "row": np.repeat(np.arange(n, dtype=np.int64), kp + kg)[flat],
+                "name": names.gather(k_of),
+                "value": value.ravel()[flat],
+                "low": low.ravel()[flat],
+                "high": high.ravel()[flat],
+                "unit": units.gather(k_of),
+                "origin": pl.Series(["default", "given"], dtype=pl.String).gather(origin.ravel()[flat]),
+                "source": pl.Series(all_texts, dtype=pl.String).gather(src.ravel()[flat]),
+            }
+        )
         .group_by("row", maintain_order=True)
         .agg(pl.struct("name", "value", "low", "high", "unit", "origin", "source").alias("assumptions"))
     )
