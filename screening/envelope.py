@@ -403,12 +403,14 @@ def _given_or(estimate, given) -> np.ndarray:
     estimate or the given values, broadcast to the same shape: the same values)."""
     given = np.asarray(given, dtype=float)
     nan = np.isnan(given)
-    if nan.all() or not nan.any():
-        estimate = np.asarray(estimate, dtype=float)
-        pick = estimate if nan.all() else given
-        shape = np.broadcast_shapes(estimate.shape, given.shape)
-        return pick if pick.shape == shape else np.broadcast_to(pick, shape)
-    return np.where(nan, estimate, given)
+    if nan.any():
+        if not nan.all():
+            return np.where(nan, estimate, given)
+        pick = estimate = np.asarray(estimate, dtype=float)
+    else:
+        pick, estimate = given, np.asarray(estimate, dtype=float)
+    shape = estimate.shape if estimate.shape == given.shape else np.broadcast(estimate, given).shape
+    return pick if pick.shape == shape else np.broadcast_to(pick, shape)
 
 
 def _era_index(year_built) -> np.ndarray:
@@ -775,11 +777,14 @@ def _interp_rows(curve: np.ndarray, grid: np.ndarray, t: np.ndarray, uniform: bo
     gaps = np.diff(grid)  # gaps[j] is grid[j + 1] - grid[j], the same bits
     frac = np.subtract(tc, np.take(grid, j))
     frac /= gaps[0] if (gaps == gaps[0]).all() else np.take(gaps, j)  # (one gap for all: the same divisor)
-    rise = np.zeros(curve.shape)  # rise[:, j] = curve[:, j + 1] - curve[:, j], the difference taken below
-    np.subtract(curve[:, 1:], curve[:, :-1], out=rise[:, :-1])
+    # each base's HDD and its rise to the next base, side by side (one complex number: one gather for both)
+    pair = np.zeros(curve.shape + (2,))
+    pair[..., 0] = curve
+    np.subtract(curve[:, 1:], curve[:, :-1], out=pair[:, :-1, 1])  # curve[:, j + 1] - curve[:, j]
     j += (np.arange(curve.shape[0]) * ng).reshape((-1,) + (1,) * (t.ndim - 1))  # the flat index
-    dd = np.take(curve.ravel(), j)
-    dd += frac * np.take(rise.ravel(), j)
+    at = np.take(pair.view(np.complex128).ravel(), j)
+    dd = np.multiply(frac, at.imag, out=frac)
+    dd += at.real  # (y0 + frac·rise: the sum is the same either way round)
     return dd, clipped
 
 
@@ -803,7 +808,7 @@ def _tri_ppf(u, lo, c, hi):
     return np.where(u < fc, left, right)
 
 
-def _row_percentiles(x: np.ndarray, percents: tuple[float, ...]) -> np.ndarray:
+def _row_percentiles(x: np.ndarray, percents: tuple[float, ...], *, presorted: bool = False) -> np.ndarray:
     """``np.percentile(x, percents, axis=1)`` (method "linear") to the bit, with one sort per row.
 
     Returns shape ``(len(percents), rows)``. The order statistics of a row do not depend on how
@@ -811,9 +816,9 @@ def _row_percentiles(x: np.ndarray, percents: tuple[float, ...]) -> np.ndarray:
     transposed copy (several times slower on a (buildings, draws) block); the index and
     interpolation steps are numpy 2's ``_get_indexes``/``_lerp`` step for step: virtual index
     ``(n − 1)·p/100``, ``a + (b − a)·γ`` below γ = 0.5 and ``b − (b − a)·(1 − γ)`` from it; a row
-    with a NaN gives NaN.
+    with a NaN gives NaN. ``presorted``: each row of ``x`` is already in ascending order.
     """
-    s = np.sort(x, axis=1)
+    s = x if presorted else np.sort(x, axis=1)
     n = s.shape[1]
     vi = (n - 1) * np.true_divide(np.asarray(percents, dtype=np.float64), 100)
     prev = np.floor(vi)
@@ -892,10 +897,13 @@ def _band(
         nb = b1 - b0
         p = {}
         for one, (pname, (draws, row, lo)) in zip(one_row[i].tolist(), tables.items()):
-            r = row[ix]
             if one:
-                x = lo[ix][:, None] if r[0] < 0 else draws[r[0]][None, :]
-            elif (r >= 0).any():
+                r0 = row[ix[0]]
+                x = lo[ix][:, None] if r0 < 0 else draws[r0][None, :]
+                p[pname] = x
+                continue
+            r = row[ix]
+            if (r >= 0).any():
                 x = np.take(draws, np.maximum(r, 0), axis=0)
                 kn = r < 0
                 if kn.any():
@@ -907,7 +915,11 @@ def _band(
         m = _model(area[ix][:, None], p, g)
         ddm, clip = _interp_rows(curve[ix], grid, m["balance_point_f"], uniform)
         q = degree_day_heating_kbtu(m["ua_total_used"], ddm, p["efficiency"])
-        out[:3, ix] = _row_percentiles(np.broadcast_to(q, (nb, d)), (10.0, 50.0, 90.0))
+        if q.shape == (nb, d) and q.flags.writeable:
+            q.sort(axis=1)  # (the block's own array: sorted where it is)
+        else:
+            q = np.sort(np.broadcast_to(q, (nb, d)), axis=1)
+        out[:3, ix] = _row_percentiles(q, (10.0, 50.0, 90.0), presorted=True)
         out[3, ix] = np.count_nonzero(np.broadcast_to(clip, (nb, d)), axis=1) / d  # the mean, exactly
     return out[0], out[1], out[2], out[3]
 
