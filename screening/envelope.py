@@ -379,13 +379,13 @@ def geometry(
     perimeter = 2.0 * np.sqrt(footprint) * (sr + 1.0 / sr)
     wall = perimeter * h * n
     if wall_area_ft2 is not None:
-        wall = np.where(np.isnan(wall_area_ft2), wall, wall_area_ft2)
+        wall = _given_or(wall, wall_area_ft2)
     window = wwr * wall
     if window_area_ft2 is not None:
-        window = np.where(np.isnan(window_area_ft2), window, window_area_ft2)
+        window = _given_or(window, window_area_ft2)
     roof = footprint
     if roof_area_ft2 is not None:
-        roof = np.where(np.isnan(roof_area_ft2), roof, roof_area_ft2)
+        roof = _given_or(roof, roof_area_ft2)
     return {
         "footprint_ft2": footprint,
         "perimeter_ft": perimeter,
@@ -395,6 +395,22 @@ def geometry(
         "roof_area_ft2": roof,
         "volume_ft3": a * h,
     }
+
+
+def _given_or(estimate, given) -> np.ndarray:
+    """``np.where(np.isnan(given), estimate, given)``: the given value where there is one, else the
+    estimate; without the pass over the arrays when ``given`` is all NaN or has no NaN (then the
+    estimate or the given values, broadcast to the same shape: the same values)."""
+    given = np.asarray(given, dtype=float)
+    nan = np.isnan(given)
+    if nan.any():
+        if not nan.all():
+            return np.where(nan, estimate, given)
+        pick = estimate = np.asarray(estimate, dtype=float)
+    else:
+        pick, estimate = given, np.asarray(estimate, dtype=float)
+    shape = estimate.shape if estimate.shape == given.shape else np.broadcast(estimate, given).shape
+    return pick if pick.shape == shape else np.broadcast_to(pick, shape)
 
 
 def _era_index(year_built) -> np.ndarray:
@@ -468,7 +484,7 @@ def _first_bad(values: np.ndarray, mask: np.ndarray, ids=None) -> str:
 
 
 def _nonneg(name: str, x: np.ndarray) -> None:
-    if np.all(x >= 0):  # fast path: one pass (NaN fails it)
+    if x.size and x.min() >= 0:  # fast path: one pass (a NaN is the minimum, and fails it)
         return
     bad = ~(x >= 0)
     if np.any(bad):
@@ -594,7 +610,7 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
     p_lo: dict[str, np.ndarray] = {}
     p_hi: dict[str, np.ndarray] = {}
     p_given: dict[str, np.ndarray] = {}
-    p_src: dict[str, pl.Series] = {}
+    p_src: dict[str, np.ndarray] = {}
     for pname, (tname, gcol, _unit) in PARAMETERS.items():
         vals, codes, texts = defaults[pname]
         if tname == "efficiency_defaults":
@@ -607,7 +623,7 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
         p_val[pname] = np.where(is_given, g, v[:, 0])
         p_lo[pname] = np.where(is_given, g, v[:, 1])
         p_hi[pname] = np.where(is_given, g, v[:, 2])
-        p_src[pname] = pl.Series(texts, dtype=pl.String).gather(np.where(is_given, 0, s).astype(np.int32))
+        p_src[pname] = np.where(is_given, 0, s)  # an index into the parameter's source texts
 
     area = given["floor_area_ft2"]
     parts = _model(area, p_val, given)
@@ -652,55 +668,45 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
         data[f"{pname}_low"] = p_lo[pname]
         data[f"{pname}_high"] = p_hi[pname]
     for col in _GIVEN_ONLY:
-        data[f"given_{col}"] = given[col]
+        data[f"given_{col}"] = pl.Series(given[col], nan_to_null=True)
     out = pl.DataFrame(data)
-    for col in [f"given_{c}" for c in _GIVEN_ONLY]:
-        out = out.with_columns(pl.col(col).fill_nan(None))
 
-    # assumptions: list of {name, value, low, high, unit, origin, source}, built long then grouped
-    row = np.arange(n, dtype=np.int64)
-    origin_labels = pl.Series(["default", "given"], dtype=pl.String)
-    pieces = []
-    for k, (pname, (_t, _c, unit)) in enumerate(PARAMETERS.items()):
-        pieces.append(
-            pl.DataFrame(
-                {
-                    "row": row,
-                    "k": np.full(n, k, dtype=np.int32),
-                    "name": pl.Series([pname]).gather(np.zeros(n, dtype=np.int32)),
-                    "value": p_val[pname],
-                    "low": p_lo[pname],
-                    "high": p_hi[pname],
-                    "unit": pl.Series([unit]).gather(np.zeros(n, dtype=np.int32)),
-                    "origin": origin_labels.gather(p_given[pname].astype(np.int32)),
-                    "source": p_src[pname],
-                }
-            )
-        )
-    for k, (col, unit) in enumerate(_GIVEN_ONLY.items(), start=len(PARAMETERS)):
-        sel = ~np.isnan(given[col])
-        m = int(sel.sum())
-        if m == 0:
-            continue
-        v = given[col][sel]
-        pieces.append(
-            pl.DataFrame(
-                {
-                    "row": row[sel],
-                    "k": np.full(m, k, dtype=np.int32),
-                    "name": pl.Series([col]).gather(np.zeros(m, dtype=np.int32)),
-                    "value": v,
-                    "low": v,
-                    "high": v,
-                    "unit": pl.Series([unit]).gather(np.zeros(m, dtype=np.int32)),
-                    "origin": pl.Series(["given"]).gather(np.zeros(m, dtype=np.int32)),
-                    "source": pl.Series([_GIVEN_SOURCE]).gather(np.zeros(m, dtype=np.int32)),
-                }
-            )
-        )
+    # assumptions: list of {name, value, low, high, unit, origin, source} per building, the parameters in
+    # their order, then the given-only values it has: built long in that order, then grouped
+    kp, kg = len(PARAMETERS), len(_GIVEN_ONLY)
+    value = np.empty((n, kp + kg))
+    low = np.empty((n, kp + kg))
+    high = np.empty((n, kp + kg))
+    origin = np.ones((n, kp + kg), dtype=np.int32)  # 0 default, 1 given
+    src = np.zeros((n, kp + kg), dtype=np.int32)  # into all_texts; 0 is buildings.csv (every table's code 0)
+    all_texts: list[str] = [_GIVEN_SOURCE]
+    for k, pname in enumerate(PARAMETERS):
+        value[:, k], low[:, k], high[:, k] = p_val[pname], p_lo[pname], p_hi[pname]
+        origin[:, k] = p_given[pname]
+        texts = defaults[pname][2]
+        all_texts += [t for t in dict.fromkeys(texts) if t not in all_texts]
+        src[:, k] = np.array([all_texts.index(t) for t in texts], dtype=np.int32)[p_src[pname]]
+    for j, col in enumerate(_GIVEN_ONLY):
+        value[:, kp + j] = low[:, kp + j] = high[:, kp + j] = given[col]
+    keep = np.ones((n, kp + kg), dtype=bool)
+    keep[:, kp:] = ~np.isnan(value[:, kp:])
+    flat = keep.ravel()
+    k_of = np.broadcast_to(np.arange(kp + kg, dtype=np.int32), (n, kp + kg)).ravel()[flat]
+    names = pl.Series([*PARAMETERS, *_GIVEN_ONLY], dtype=pl.String)
+    units = pl.Series([u for _, _, u in PARAMETERS.values()] + list(_GIVEN_ONLY.values()), dtype=pl.String)
     assumptions = (
-        pl.concat(pieces)
-        .sort("row", "k")
+        pl.DataFrame(
+            {
+                "row": np.repeat(np.arange(n, dtype=np.int64), kp + kg)[flat],
+                "name": names.gather(k_of),
+                "value": value.ravel()[flat],
+                "low": low.ravel()[flat],
+                "high": high.ravel()[flat],
+                "unit": units.gather(k_of),
+                "origin": pl.Series(["default", "given"], dtype=pl.String).gather(origin.ravel()[flat]),
+                "source": pl.Series(all_texts, dtype=pl.String).gather(src.ravel()[flat]),
+            }
+        )
         .group_by("row", maintain_order=True)
         .agg(pl.struct("name", "value", "low", "high", "unit", "origin", "source").alias("assumptions"))
     )
@@ -736,13 +742,13 @@ def _model(area, p: dict, given: dict) -> dict[str, np.ndarray]:
         + parts["ua_infiltration"]
         + parts["ua_ventilation"]
     )
-    ua_used = np.where(np.isnan(given["ua_total_btu_h_f"]), ua, given["ua_total_btu_h_f"])
+    ua_used = _given_or(ua, given["ua_total_btu_h_f"])
     gains = c["btu_h_per_w"] * (
         p["internal_gains_w_ft2"] * area + p["solar_gains_w_ft2_window"] * geo["window_area_ft2"]
     )
     t_eff = effective_setpoint(p["setpoint_f"], p["setback_f"], p["setback_hours"], p["setback_realization"])
     t_bal = np.clip(balance_point(t_eff, gains, ua_used), c["balance_point_min_f"], c["balance_point_max_f"])
-    t_bal = np.where(np.isnan(given["balance_point_f"]), t_bal, given["balance_point_f"])
+    t_bal = _given_or(t_bal, given["balance_point_f"])
     return {
         **geo,
         **parts,
@@ -768,12 +774,17 @@ def _interp_rows(curve: np.ndarray, grid: np.ndarray, t: np.ndarray, uniform: bo
         j = np.minimum(((tc - g0) / step).astype(np.intp), ng - 2)
     else:
         j = np.minimum(np.searchsorted(grid, tc, side="right") - 1, ng - 2)
-    frac = (tc - grid[j]) / np.diff(grid)[j]  # np.diff(grid)[j] is grid[j + 1] - grid[j], the same bits
-    flat = curve.ravel()
-    base = (np.arange(curve.shape[0]) * ng).reshape((-1,) + (1,) * (t.ndim - 1))
-    idx = j + base
-    y0 = flat[idx]
-    dd = y0 + frac * (flat[idx + 1] - y0)
+    gaps = np.diff(grid)  # gaps[j] is grid[j + 1] - grid[j], the same bits
+    frac = np.subtract(tc, np.take(grid, j))
+    frac /= gaps[0] if (gaps == gaps[0]).all() else np.take(gaps, j)  # (one gap for all: the same divisor)
+    # each base's HDD and its rise to the next base, side by side (one complex number: one gather for both)
+    pair = np.zeros(curve.shape + (2,))
+    pair[..., 0] = curve
+    np.subtract(curve[:, 1:], curve[:, :-1], out=pair[:, :-1, 1])  # curve[:, j + 1] - curve[:, j]
+    j += (np.arange(curve.shape[0]) * ng).reshape((-1,) + (1,) * (t.ndim - 1))  # the flat index
+    at = np.take(pair.view(np.complex128).ravel(), j)
+    dd = np.multiply(frac, at.imag, out=frac)
+    dd += at.real  # (y0 + frac·rise: the sum is the same either way round)
     return dd, clipped
 
 
@@ -797,7 +808,7 @@ def _tri_ppf(u, lo, c, hi):
     return np.where(u < fc, left, right)
 
 
-def _row_percentiles(x: np.ndarray, percents: tuple[float, ...]) -> np.ndarray:
+def _row_percentiles(x: np.ndarray, percents: tuple[float, ...], *, presorted: bool = False) -> np.ndarray:
     """``np.percentile(x, percents, axis=1)`` (method "linear") to the bit, with one sort per row.
 
     Returns shape ``(len(percents), rows)``. The order statistics of a row do not depend on how
@@ -805,9 +816,9 @@ def _row_percentiles(x: np.ndarray, percents: tuple[float, ...]) -> np.ndarray:
     transposed copy (several times slower on a (buildings, draws) block); the index and
     interpolation steps are numpy 2's ``_get_indexes``/``_lerp`` step for step: virtual index
     ``(n − 1)·p/100``, ``a + (b − a)·γ`` below γ = 0.5 and ``b − (b − a)·(1 − γ)`` from it; a row
-    with a NaN gives NaN.
+    with a NaN gives NaN. ``presorted``: each row of ``x`` is already in ascending order.
     """
-    s = np.sort(x, axis=1)
+    s = x if presorted else np.sort(x, axis=1)
     n = s.shape[1]
     vi = (n - 1) * np.true_divide(np.asarray(percents, dtype=np.float64), 100)
     prev = np.floor(vi)
@@ -826,6 +837,91 @@ def _row_percentiles(x: np.ndarray, percents: tuple[float, ...]) -> np.ndarray:
     if has_nan.any():
         np.copyto(out, last, where=has_nan)
     return out
+
+
+def _band_blocks(tables: dict, given: dict, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The buildings in an order where neighbours share which parameters are known and which values are given,
+    then their rows of draws; the starts of the blocks of that order (and its end), a block at most ``block``
+    buildings, all with the same known parameters and given values; and per block and parameter whether all
+    its buildings have the same row of draws (or all a known value)."""
+    rows = np.stack([r for _, r, _ in tables.values()], axis=1)  # (B, P), -1 where known
+    pattern = np.concatenate([rows < 0, np.stack([np.isnan(v) for v in given.values()], axis=1)], axis=1)
+    order = np.lexsort(np.concatenate([pattern, rows], axis=1).T[::-1])  # ties in building order
+    k = pattern[order]
+    n = k.shape[0]
+    new = np.ones(n, dtype=bool)
+    new[1:] = (k[1:] != k[:-1]).any(axis=1)
+    first = np.flatnonzero(new)
+    size = np.diff(np.append(first, n))
+    pieces = -(-size // block)
+    starts = np.repeat(first, pieces) + block * (
+        np.arange(pieces.sum()) - np.repeat(np.cumsum(pieces) - pieces, pieces)
+    )
+    r = rows[order]
+    one_row = np.minimum.reduceat(r, starts, axis=0) == np.maximum.reduceat(r, starts, axis=0)
+    return order, np.append(starts, n), one_row
+
+
+def _band(
+    tables: dict,
+    given: dict,
+    area: np.ndarray,
+    curve: np.ndarray,
+    grid: np.ndarray,
+    uniform: bool,
+    d: int,
+    block: int,
+    *,
+    compact: bool,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """P10, P50, P90 of the Monte Carlo heating [kBtu] and the share of draws whose balance point was
+    clipped to the grid, per building; ``tables``: per parameter its draws (K, D), each building's row
+    of them (-1 where known) and the known values.
+
+    ``compact``: buildings in the order of :func:`_band_blocks`, and a parameter one row for its whole
+    block held as (1, D) (known: (B, 1)), broadcast by numpy instead of copied to (B, D); every element
+    is the same operation on the same numbers, so the same bits. Otherwise blocks of ``block``
+    buildings in order, every parameter (B, D): a value out of range is named as it first appears.
+    """
+    b = area.shape[0]
+    if b == 0:
+        return np.empty(0), np.empty(0), np.empty(0), np.empty(0)
+    if compact:
+        order, cuts, one_row = _band_blocks(tables, given, block)
+    else:
+        order, cuts = np.arange(b), np.append(np.arange(0, b, block), b)
+        one_row = np.zeros((cuts.shape[0] - 1, len(tables)), dtype=bool)
+    out = np.empty((4, b))
+    for i, (b0, b1) in enumerate(zip(cuts[:-1].tolist(), cuts[1:].tolist())):
+        ix = order[b0:b1]
+        nb = b1 - b0
+        p = {}
+        for one, (pname, (draws, row, lo)) in zip(one_row[i].tolist(), tables.items()):
+            if one:
+                r0 = row[ix[0]]
+                x = lo[ix][:, None] if r0 < 0 else draws[r0][None, :]
+                p[pname] = x
+                continue
+            r = row[ix]
+            if (r >= 0).any():
+                x = np.take(draws, np.maximum(r, 0), axis=0)
+                kn = r < 0
+                if kn.any():
+                    x[kn] = lo[ix][kn, None]
+            else:
+                x = np.broadcast_to(lo[ix][:, None], (nb, d))
+            p[pname] = x if compact else np.broadcast_to(x, (nb, d))
+        g = {k: v[ix][:, None] if compact else np.broadcast_to(v[ix][:, None], (nb, d)) for k, v in given.items()}
+        m = _model(area[ix][:, None], p, g)
+        ddm, clip = _interp_rows(curve[ix], grid, m["balance_point_f"], uniform)
+        q = degree_day_heating_kbtu(m["ua_total_used"], ddm, p["efficiency"])
+        if q.shape == (nb, d) and q.flags.writeable:
+            q.sort(axis=1)  # (the block's own array: sorted where it is)
+        else:
+            q = np.sort(np.broadcast_to(q, (nb, d)), axis=1)
+        out[:3, ix] = _row_percentiles(q, (10.0, 50.0, 90.0), presorted=True)
+        out[3, ix] = np.count_nonzero(np.broadcast_to(clip, (nb, d)), axis=1) / d  # the mean, exactly
+    return out[0], out[1], out[2], out[3]
 
 
 def expected_heating(
@@ -876,7 +972,8 @@ def expected_heating(
     stratified, one column of uniforms per parameter shared by all buildings (so a
     building's band does not depend on the rest of the portfolio); given inputs have
     low = high and do not spread. Draws are processed in blocks of buildings, all draws
-    at once.
+    at once; a block holds buildings with the same known and given parameters, so a parameter
+    with one row of draws (or a known value) for the whole block is held once and broadcast.
 
     References
     ----------
@@ -938,38 +1035,16 @@ def expected_heating(
         known = lo == hi
         uniq, inv = _unique_rows(lo[~known], ce[~known], hi[~known])
         draws = _tri_ppf(u[k][None, :], uniq[:, 0:1], uniq[:, 1:2], uniq[:, 2:3])  # (K, D)
-        full_inv = np.full(b, -1, dtype=np.intp)
-        full_inv[~known] = inv.ravel()
-        tables[pname] = (draws, full_inv, known, lo)
-
+        row = np.full(b, -1, dtype=np.intp)  # each building's row of draws, -1 where the value is known
+        row[~known] = inv.ravel()
+        tables[pname] = (draws, row, lo)
     given = {col: envelope[f"given_{col}"].fill_null(np.nan).to_numpy().astype(float) for col in _GIVEN_ONLY}
     area_all = envelope["floor_area_ft2"].to_numpy().astype(float)
-    p10 = np.empty(b)
-    p50 = np.empty(b)
-    p90 = np.empty(b)
-    share = np.empty(b)
     block = max(1, _BLOCK_ELEMENTS // d)
-    for b0 in range(0, b, block):
-        b1 = min(b, b0 + block)
-        sl = slice(b0, b1)
-        p = {}
-        for pname, (draws, inv, known, lo) in tables.items():
-            kn = known[sl]
-            if draws.shape[0] == 1 and not kn.any():  # one set of draws for all: a view, no copy
-                x = np.broadcast_to(draws, (b1 - b0, d))
-            elif draws.shape[0]:
-                x = np.take(draws, np.maximum(inv[sl], 0), axis=0)
-                if kn.any():
-                    x[kn] = lo[sl][kn, None]
-            else:
-                x = np.broadcast_to(lo[sl][:, None], (b1 - b0, d))
-            p[pname] = x
-        g = {k: v[sl][:, None] for k, v in given.items()}
-        m = _model(area_all[sl][:, None], p, g)
-        ddm, clip = _interp_rows(curve[sl], grid, m["balance_point_f"], uniform)
-        q = degree_day_heating_kbtu(m["ua_total_used"], ddm, p["efficiency"])
-        p10[sl], p50[sl], p90[sl] = _row_percentiles(q, (10.0, 50.0, 90.0))
-        share[sl] = clip.mean(axis=1)
+    try:
+        p10, p50, p90, share = _band(tables, given, area_all, curve, grid, uniform, d, block, compact=True)
+    except ValueError:  # a value out of range: raised as the plain blocks raise it (the same first value)
+        p10, p50, p90, share = _band(tables, given, area_all, curve, grid, uniform, d, block, compact=False)
 
     for arr in (p10, p50, p90, point, dd_bal, share):
         arr[no_weather] = np.nan

@@ -16,6 +16,7 @@ Detect and Handle Outliers", ASQC Basic References in Quality Control vol. 16, w
 from __future__ import annotations
 
 
+from collections.abc import Sequence
 from typing import TYPE_CHECKING
 
 import polars as pl
@@ -62,6 +63,13 @@ TEXT_INPUTS = (
     *[f"_f_{k}" for k in FLAG_ORDER],
 )
 TIER_RANK = {name: i + 1 for i, (name, _) in enumerate(TIERS)}
+
+
+def _with_shared(df: pl.DataFrame, *exprs: pl.Expr) -> pl.DataFrame:
+    """``df.with_columns(*exprs)``, each subexpression the columns share (a peer group's median and
+    spread, read by several of them) computed once: the lazy engine's common-subexpression elimination,
+    which the eager ``with_columns`` does not do. The same values."""
+    return df.lazy().with_columns(*exprs).collect()
 
 
 def peer_groups(df: pl.DataFrame, *, min_group: int) -> pl.Series:
@@ -247,7 +255,8 @@ def _recoverable(out: pl.DataFrame, t: Thresholds, heat_share: pl.Expr) -> pl.Da
         # degree days at the fitted base over the span (metered heating = slope × HDD(fitted base))
         pl.when(fit).then(pl.col("actual_heating_kbtu") / pl.col("heating_slope_kbtu_per_dd")).alias("_hdd_fit"),
     )
-    out = out.with_columns(
+    out = _with_shared(
+        out,
         (pl.col("_lu") - _blend_center(pl.col("_lu"), "peer_group", t)).alias("_x_hl"),
         (pl.col("_db") - _blend_center(pl.col("_db"), "peer_group", t)).alias("_x_ct"),
         (pl.col("_dl") - _blend_center(pl.col("_dl"), "peer_group", t)).alias("_x_bl"),
@@ -396,7 +405,8 @@ def screen(
             "peer_group"
         )
     )
-    out = out.with_columns(
+    out = _with_shared(
+        out,
         pl.col("_int_ok").median().over("peer_group").alias("peer_median_intensity"),
         percentile_within(pl.col("_int_ok"), "peer_group").alias("peer_percentile"),
         robust_z(pl.col("_logr"), "peer_group").alias("z_score"),
@@ -404,7 +414,8 @@ def screen(
     )
     # the evidence scale: the peers' median and spread where there are enough peers, the model's own band
     # where there are none, blended by the peer weight n / (n + peer_prior) in between (shrinkage)
-    out = out.with_columns(
+    out = _with_shared(
+        out,
         _blended_z(pl.col("_logr"), "peer_group", _model_sd(), t).alias("z_score"),
         _blend_weight(pl.col("_logr"), "peer_group", t).alias("peer_weight"),
         _blend_center(pl.col("_logr"), "peer_group", t).alias("_center_logr"),
@@ -483,6 +494,12 @@ def screen(
     }
     assert tuple(conds) == FLAG_ORDER
     out = out.with_columns([c.fill_null(False).alias(f"_f_{k}") for k, c in conds.items()])
+    # the flags as one number (bit i: FLAG_ORDER[i]), for flag_codes
+    out = out.with_columns(
+        pl.sum_horizontal([pl.col(f"_f_{k}").cast(pl.Int32) * (1 << i) for i, k in enumerate(FLAG_ORDER)]).alias(
+            "_f_code"
+        )
+    )
     # a fit that does not follow the weather is no basis for a verdict (often a meter or entry problem)
     fit_usable = (~reg) | fit_ok
     strong = (
@@ -579,10 +596,8 @@ def screen(
     )
     out = out.with_row_index("rank", offset=1).with_columns(pl.col("rank").cast(pl.Int64))
     out = out.with_columns(
-        pl.concat_list([pl.when(pl.col(f"_f_{k}")).then(pl.lit(k)) for k in FLAG_ORDER])
-        .list.drop_nulls()
-        .alias("flag_codes"),
-        _mechanisms(t).alias("mechanisms"),
+        _names_by_code(out["_f_code"], FLAG_ORDER).alias("flag_codes"),
+        _mechanisms(out, t).alias("mechanisms"),
         # which view sized the expected recoverable energy (level, step up, fuel step): the sheet says it in words
         pl.col("_view").alias("recoverable_basis"),
     )
@@ -593,7 +608,17 @@ def screen(
 MECHANISMS = ("heat_loss", "controls", "baseload")
 
 
-def _mechanisms(t: Thresholds) -> pl.Expr:
+def _names_by_code(code: pl.Series, names: Sequence[str]) -> pl.Series:
+    """Per row the list of ``names[i]`` whose bit i is set in ``code`` (in the order of ``names``), made once
+    per distinct code and gathered: ``concat_list(when(bit i).then(names[i])).list.drop_nulls()``."""
+    u = code.unique().sort()
+    lists = pl.Series(
+        [[n for i, n in enumerate(names) if int(m) >> i & 1] for m in u.to_list()], dtype=pl.List(pl.String)
+    )
+    return lists.gather(u.search_sorted(code))
+
+
+def _mechanisms(out: pl.DataFrame, t: Thresholds) -> pl.Series:
     """Mechanisms whose own evidence is sure enough (``sure_<m>`` ≥ mechanism_support and an excess > 0),
     largest expected excess ``sure_<m> · excess_<m>_kbtu`` first (equal ones: the name in reverse
     alphabetical order); none while a data problem blocks the verdict. NaN counts as not sure."""
@@ -620,10 +645,17 @@ def _mechanisms(t: Thresholds) -> pl.Expr:
         )
         for n in names
     }
-    at = []
+    # the name at each place (the first of the names there, len(names) for none), as one base-4 number
+    code = pl.lit(0, dtype=pl.Int32)
     for i in range(len(names)):
-        e = pl.lit(None, dtype=pl.String)
-        for n in reversed(names):
-            e = pl.when(ok[n] & (place[n] == i)).then(pl.lit(n)).otherwise(e)
-        at.append(e)
-    return pl.concat_list(at).list.drop_nulls()
+        e = pl.lit(len(names), dtype=pl.Int32)
+        for k in reversed(range(len(names))):
+            e = pl.when(ok[names[k]] & (place[names[k]] == i)).then(pl.lit(k, dtype=pl.Int32)).otherwise(e)
+        code = code + e * 4**i
+    c = out.select(code.alias("c"))["c"]
+    u = c.unique().sort()
+    lists = pl.Series(
+        [[names[d] for i in range(len(names)) if (d := int(m) // 4**i % 4) < len(names)] for m in u.to_list()],
+        dtype=pl.List(pl.String),
+    )
+    return lists.gather(u.search_sorted(c))

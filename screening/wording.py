@@ -173,6 +173,23 @@ def _chain(cases: Sequence[tuple[pl.Expr, pl.Expr | str]], otherwise: pl.Expr | 
     return e
 
 
+def _texts_where(w: pl.DataFrame, cases: Sequence[tuple[pl.Expr, pl.Expr]]) -> pl.Series:
+    """Per row, the texts of the cases whose condition holds, in the cases' order (a null text left out):
+    ``concat_list(when(cond).then(text)).list.drop_nulls()``, each text made on its own rows only (a
+    ``when`` makes every branch for every row, and most rows need one or two of the texts)."""
+    rows = w.lazy().with_row_index("_row")
+    long = pl.concat(
+        [
+            rows.filter(cond).select("_row", pl.lit(i, dtype=pl.UInt32).alias("_case"), text.alias("_text"))
+            for i, (cond, text) in enumerate(cases)
+        ]
+    )
+    lists = long.drop_nulls("_text").sort("_row", "_case").group_by("_row", maintain_order=True).agg("_text").collect()
+    every = pl.DataFrame({"_row": pl.int_range(w.height, dtype=pl.UInt32, eager=True)})
+    got = every.join(lists, on="_row", how="left", maintain_order="left")["_text"]
+    return got.fill_null(pl.lit([], dtype=pl.List(pl.String)))
+
+
 #: rows worded at a time: the sentences' temporaries (every number formatted, every clause) are several
 #: times the frame's own size, so 10^6 buildings at once set a run's peak memory (issue 20)
 EXPLAIN_ROWS = 65_536
@@ -320,7 +337,7 @@ def explain_rows(
             "may lie beyond it, and its split of the fuel into heating and baseload is less certain."
         ),
     }
-    flag_texts = pl.concat_list([pl.when(_flag(f"_f_{k}")).then(x) for k, x in flag_text.items()]).list.drop_nulls()
+    flag_cases = [(_flag(f"_f_{k}"), x) for k, x in flag_text.items()]
 
     # the kind of waste: the supported mechanisms (screen's `mechanisms`, surest first) and what to check
     part = {
@@ -331,9 +348,8 @@ def explain_rows(
         "baseload": say("non-heating use of the heating fuel ({bls} % of it, about {bld} % is typical): {baseload}"),
     }
     nth = [c("mechanisms").list.get(i, null_on_oob=True) for i in range(len(part))]
-    parts = pl.concat_list(
-        [_chain([(m == name, x) for name, x in part.items()], pl.lit(None, dtype=pl.String)) for m in nth]
-    ).list.drop_nulls()
+    # (at each place the first name it equals: the names are distinct, so the one it equals)
+    part_cases = [((m == name).fill_null(False), x) for m in nth for name, x in part.items()]
     sup = t.mechanism_support
     step = _is("_view", "step up") & _ge(c("_w_step").fill_null(0), sup) & _ge(c("yoy_change").fill_null(0), t.yoy_rise)
     fstep = (
@@ -356,7 +372,9 @@ def explain_rows(
         "",
     )
     # computed once, read by several sentences
-    w = w.with_columns(parts.alias("_parts"), lead.alias("_lead"), (step | fstep).alias("_has_lead"))
+    w = w.with_columns(
+        _texts_where(w, part_cases).alias("_parts"), lead.alias("_lead"), (step | fstep).alias("_has_lead")
+    )
     f["lead"], f["parts"], f["parts_to"] = (
         c("_lead"),
         c("_parts").list.join("; and "),
@@ -523,7 +541,9 @@ def explain_rows(
         ],
         not_listed,
     )
-    w = w.with_columns(flag_texts.alias("flag_texts"), verdict.alias("verdict"), waste_kind.alias("waste_kind"))
+    w = w.with_columns(
+        _texts_where(w, flag_cases).alias("flag_texts"), verdict.alias("verdict"), waste_kind.alias("waste_kind")
+    )
     keep = [x for x in out.columns if not x.startswith("_") and x not in (*TEXT_COLUMNS, "recoverable_basis")]
     return w.select(*keep, *TEXT_COLUMNS, "recoverable_basis")
 

@@ -691,3 +691,63 @@ def test_expected_heating_block_size_changes_no_value(monkeypatch):
         out.append(ev.expected_heating(env, GRID_F, curve, n_draws=40))
     assert out[0].equals(out[1])
     assert out[0]["expected_low_kbtu"].null_count() == 1
+
+
+def _varied_portfolio(n: int = 90) -> pl.DataFrame:
+    """Buildings of several use types, eras and fuels; some with stories, efficiency, UA or balance point given."""
+    uses = ("office", "retail", "school", "multifamily")
+    fuels = ("natural_gas", "electricity", "fuel_oil")
+    rows = []
+    for i in range(n):
+        row = office(
+            building_id=f"V{i:03d}",
+            use_type=uses[i % 4],
+            heating_fuel=fuels[i % 3],
+            floor_area_ft2=4_000.0 + 1_700.0 * i,
+            year_built=1905 + (7 * i) % 115,
+            stories=None if i % 5 == 0 else 1 + i % 6,
+        )
+        if i % 7 == 0:
+            row["heating_efficiency"] = 0.7 + 0.01 * (i % 20)
+        if i % 11 == 0:
+            row["ua_total_btu_h_f"] = 2_000.0 + 90.0 * i
+        if i % 13 == 0:
+            row["balance_point_f"] = 52.0 + i % 9
+        rows.append(row)
+    return frame(rows)
+
+
+def _plain_band(monkeypatch) -> None:
+    """Every Monte Carlo block in building order with every parameter spread to (buildings, draws)."""
+    band = ev._band
+    monkeypatch.setattr(ev, "_band", lambda *a, compact: band(*a, compact=False))
+
+
+def test_grouped_blocks_give_the_bits_of_plain_blocks(monkeypatch):
+    """The band's blocks of buildings that share their known and given parameters, with one row of draws
+    held once for a block, give the same bits as plain blocks in building order (a building's draws are
+    its own whatever its neighbours)."""
+    env = ev.estimate_envelope(_varied_portfolio())
+    curve = linear_curve(env.height) * np.linspace(0.5, 1.5, env.height)[:, None]
+    curve[17] = np.nan
+    grouped = ev.expected_heating(env, GRID_F, curve, n_draws=60)
+    _plain_band(monkeypatch)
+    plain = ev.expected_heating(env, GRID_F, curve, n_draws=60)
+    assert grouped.equals(plain)
+    assert grouped["expected_low_kbtu"].null_count() == 1
+
+
+def test_band_value_out_of_range_named_as_in_building_order(monkeypatch):
+    """A drawn value out of range (here a negative low ACH in a hand-made envelope frame) raises the
+    message of the plain blocks: the first such value in building order."""
+    env = ev.estimate_envelope(_varied_portfolio())
+    env = env.with_columns(
+        pl.when(pl.col("building_id").is_in(["V040", "V061"])).then(-0.4).otherwise(pl.col("ach_low")).alias("ach_low")
+    )
+    curve = linear_curve(env.height)
+    with pytest.raises(ValueError, match="ach must be >= 0") as grouped:
+        ev.expected_heating(env, GRID_F, curve, n_draws=60)
+    _plain_band(monkeypatch)
+    with pytest.raises(ValueError, match="ach must be >= 0") as plain:
+        ev.expected_heating(env, GRID_F, curve, n_draws=60)
+    assert str(grouped.value) == str(plain.value)

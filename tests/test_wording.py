@@ -379,7 +379,7 @@ def test_vectorized_sentences_equal_the_per_building_ones(seed, unit):
         pl.concat_list([pl.when(pl.col(f"_f_{k}")).then(pl.lit(k)) for k in screen.FLAG_ORDER])
         .list.drop_nulls()
         .alias("flag_codes"),
-        screen._mechanisms(t).alias("mechanisms"),
+        screen._mechanisms(df, t).alias("mechanisms"),
     )
     got = wording.explain(df, t, energy_factor=e, energy_unit=unit, currency="€")
     # worded in pieces of 700 rows (5 pieces, the last short): the same frame
@@ -396,3 +396,65 @@ def test_vectorized_sentences_equal_the_per_building_ones(seed, unit):
         assert (g["flag_codes"], g["flag_texts"], g["verdict"], g["waste_kind"], g["mechanisms"]) == want, r
         compared += 1
     assert compared > 1500
+
+
+def _mechanisms_as_list_expressions(t) -> pl.Expr:
+    """screen._mechanisms as it was written before its lists were looked up by code: a when/then per place."""
+    names = [m.replace("_", " ") for m in screen.MECHANISMS]
+    ok, key = {}, {}
+    for col, name in zip(screen.MECHANISMS, names):
+        w, x = pl.col(f"sure_{col}"), pl.col(f"excess_{col}_kbtu")
+        ok[name] = (
+            ~pl.col("blocking").fill_null(False)
+            & (x > 0)
+            & x.is_not_nan()
+            & (w >= t.mechanism_support)
+            & w.is_not_nan()
+        ).fill_null(False)
+        key[name] = w * x
+    place = {
+        n: pl.sum_horizontal(
+            *[
+                (ok[o] & ((key[o] > key[n]) | ((key[o] == key[n]) & pl.lit(o > n)))).fill_null(False).cast(pl.Int32)
+                for o in names
+                if o != n
+            ]
+        )
+        for n in names
+    }
+    at = []
+    for i in range(len(names)):
+        e = pl.lit(None, dtype=pl.String)
+        for n in reversed(names):
+            e = pl.when(ok[n] & (place[n] == i)).then(pl.lit(n)).otherwise(e)
+        at.append(e)
+    return pl.concat_list(at).list.drop_nulls()
+
+
+@pytest.mark.parametrize("seed", [4, 5])
+def test_lists_by_code_equal_the_list_expressions(seed):
+    """flag_codes and mechanisms, made once per distinct code and gathered, equal the when/then lists per row
+    (ties, NaN, inf, nulls and blocked rows of the random frame)."""
+    t = config.Thresholds()
+    df = _random_frame(3000, seed).with_columns(
+        pl.sum_horizontal([pl.col(f"_f_{k}").cast(pl.Int32) * (1 << i) for i, k in enumerate(screen.FLAG_ORDER)]).alias(
+            "_f_code"
+        )
+    )
+    want = df.select(
+        pl.concat_list([pl.when(pl.col(f"_f_{k}")).then(pl.lit(k)) for k in screen.FLAG_ORDER])
+        .list.drop_nulls()
+        .alias("flag_codes"),
+        _mechanisms_as_list_expressions(t).alias("mechanisms"),
+    )
+    got = pl.DataFrame(
+        [
+            screen._names_by_code(df["_f_code"], screen.FLAG_ORDER).alias("flag_codes"),
+            screen._mechanisms(df, t).alias("mechanisms"),
+        ]
+    )
+    assert got.equals(want)
+    assert want["mechanisms"].list.len().max() == 3 and want["mechanisms"].list.len().min() == 0
+    empty = df.clear()
+    assert screen._mechanisms(empty, t).dtype == screen._names_by_code(empty["_f_code"], screen.FLAG_ORDER).dtype
+    assert screen._mechanisms(empty, t).dtype == pl.List(pl.String) and screen._mechanisms(empty, t).len() == 0
