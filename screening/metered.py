@@ -127,10 +127,11 @@ def _prev_run_max(df: pl.DataFrame, by: Sequence[str], col: str) -> pl.Series:
     return pl.select(pl.when(pl.lit(pl.Series(first))).then(None).otherwise(pl.lit(out))).to_series().alias(col)
 
 
-def strictly_sorted(df: pl.DataFrame, keys: Sequence[str]) -> bool:
-    """Whether every row of ``df`` comes after the one before it in the order of ``keys`` (ascending,
-    no two rows with the same keys, no nulls in them): then ``df.sort(keys)`` is ``df`` itself, so a
-    caller may skip the sort. One pass of comparisons with the previous row, no sort."""
+def strictly_sorted(df: pl.DataFrame, keys: Sequence[str], *, ties: bool = False) -> bool:
+    """Whether every row of ``df`` comes after the one before it in the order of ``keys`` (ascending, no
+    nulls in them; ``ties``: or has the same keys): then ``df.sort(keys)`` is ``df`` itself (with
+    ``ties``, up to the order of rows with the same keys), so a caller may skip the sort. One pass of
+    comparisons with the previous row, no sort."""
     if df.height < 2:
         return True
     if any(df[k].null_count() for k in keys) or not all(
@@ -142,7 +143,7 @@ def strictly_sorted(df: pl.DataFrame, keys: Sequence[str]) -> bool:
         c, prev = pl.col(k), pl.col(k).shift(1)
         after = after | (same & (c > prev))
         same = same & (c == prev)
-    return bool(df.select(after.slice(1).all()).item())
+    return bool(df.select((after | same if ties else after).slice(1).all()).item())
 
 
 def sort_rows(df: pl.DataFrame, keys: Sequence[str]) -> pl.DataFrame:
@@ -167,11 +168,11 @@ def _merged_intervals(r: pl.DataFrame, by: Sequence[str] = ("building_id",)) -> 
     rows never reaches back into the previous group).
     """
     by = list(by)
-    o = (
-        r.select(*by, _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e"))
-        .filter(pl.col("_s") <= pl.col("_e"))
-        .sort([*by, "_s", "_e"])
+    o = r.select(*by, _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e")).filter(
+        pl.col("_s") <= pl.col("_e")
     )
+    if not strictly_sorted(o, [*by, "_s", "_e"], ties=True):  # (rows with the same keys are the same rows)
+        o = o.sort([*by, "_s", "_e"])
     s = o["_s"].to_numpy()
     e = o["_e"].to_numpy()
     if s.size == 0:
@@ -192,33 +193,67 @@ def _merged_intervals(r: pl.DataFrame, by: Sequence[str] = ("building_id",)) -> 
     )
 
 
+def _covered_days(
+    g: np.ndarray, s: np.ndarray, e: np.ndarray, qg: np.ndarray, qs: np.ndarray, qe: np.ndarray
+) -> np.ndarray:
+    """Days of each query ``[qs, qe]`` (day ordinals, inclusive) inside the intervals of its group ``qg``.
+
+    ``g, s, e``: disjoint intervals ``[s, e]`` sorted by group ``g`` (integers) and start. With
+    ``C(t)`` the days of the group's intervals up to day ``t`` (the running total of whole interval
+    lengths before the last interval starting on or before ``t``, plus that interval's days up to
+    ``t``), the answer is ``C(qe) − C(qs − 1)``: the sum over the intervals of
+    ``max(0, min(e, qe) − max(s, qs) + 1)``, in integers (exact), by one binary search per end.
+    """
+    out = np.zeros(qg.size, dtype=np.int64)
+    if s.size == 0 or qg.size == 0:
+        return out
+    lo, hi = int(s.min()), int(e.max())
+    stride = hi - lo + 3
+    key = g * stride + (s - lo + 1)
+    before = np.concatenate([[0], np.cumsum(e - s + 1)])  # days of the intervals before interval i
+    first = np.searchsorted(g, qg, side="left")  # the query group's first interval (or where it would be)
+
+    def upto(t: np.ndarray) -> np.ndarray:
+        t = np.clip(t, lo - 1, hi)
+        i = np.searchsorted(key, qg * stride + (t - lo + 1), side="right") - 1
+        mine = i >= first  # an interval of the group starts on or before t
+        ic = np.maximum(i, 0)
+        return np.where(mine, before[ic] + np.minimum(t, e[ic]) - s[ic] + 1, before[first])
+
+    out[:] = upto(qe) - upto(qs - 1)
+    return out
+
+
 def _union_coverage(
     r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str], by: Sequence[str] = ("building_id",)
 ) -> pl.DataFrame:
     """Days of each span covered by at least one reading (overlaps counted once).
 
     ``r``: ``by, period_start, period_end``; ``spans``: ``keys`` (including ``by``, by default
-    building_id), ``span_start, span_end``. Returns ``keys, covered_days`` for every span row.
+    building_id; one row per keys), ``span_start, span_end``. Returns ``keys, covered_days`` for every
+    span row, in the spans' order.
 
-    The readings are first merged into disjoint intervals per ``by`` group (usually one or a few),
-    so the join with the spans has one row per span and interval, not per span and reading.
+    The readings are first merged into disjoint intervals per ``by`` group (usually one or a few);
+    each span's days are then counted from the running total of its group's interval lengths
+    (:func:`_covered_days`): no join of spans with intervals.
     """
-    keys = list(keys)
+    keys, by = list(keys), list(by)
     m = _merged_intervals(r, by)
-    j = (
-        spans.select(*keys, _ordinal("span_start").alias("_ss"), _ordinal("span_end").alias("_se"))
-        .join(m, on=list(by), how="inner")
-        .select(
-            *keys,
-            (pl.min_horizontal("_e", "_se") - pl.max_horizontal("_s", "_ss") + 1).clip(lower_bound=0).alias("_cov"),
-        )
+    sp = spans.select(*keys, _ordinal("span_start").alias("_ss"), _ordinal("span_end").alias("_se"))
+    if sp["_ss"].null_count() or sp["_se"].null_count():
+        raise ValueError("spans: span_start and span_end must not be null")
+    grp = m.select(by).with_columns(pl.Series("_g", _group_rank(m, by) if m.height else np.zeros(0, np.int64)))
+    firsts = grp.unique(by, keep="first", maintain_order=True)
+    qg = sp.select(by).join(firsts, on=by, how="left", maintain_order="left")["_g"].fill_null(-1).to_numpy()
+    cov = _covered_days(
+        grp["_g"].to_numpy(),
+        m["_s"].to_numpy(),
+        m["_e"].to_numpy(),
+        qg,
+        sp["_ss"].to_numpy(),
+        sp["_se"].to_numpy(),
     )
-    cov = j.group_by(keys).agg(pl.col("_cov").sum().cast(pl.Int64).alias("covered_days"))
-    return (
-        spans.select(keys)
-        .join(cov, on=keys, how="left", nulls_equal=True)
-        .with_columns(pl.col("covered_days").fill_null(0))
-    )
+    return sp.select(keys).with_columns(pl.Series("covered_days", cov, dtype=pl.Int64))
 
 
 # --------------------------------------------------------------------------------------------
@@ -227,12 +262,20 @@ def _union_coverage(
 
 
 def _end_to_fill(
-    r: pl.DataFrame, ids: pl.Series, window_start: date, window_end: date, fill_end_days: int
-) -> pl.DataFrame:
-    """``building_id, filled_days``: buildings whose reads cover every day of the window up to
-    their last read, which ends 1 to ``fill_end_days`` days before ``window_end``."""
+    r: pl.DataFrame,
+    ids: pl.DataFrame,
+    window_start: date,
+    window_end: date,
+    fill_end_days: int,
+    merged: tuple[np.ndarray, np.ndarray, np.ndarray],
+) -> np.ndarray:
+    """Days to fill at the window's end [day] for each building of ``ids`` (``building_id, _i``, its
+    position), 0 for none: buildings whose reads cover every day of the window up to their last read,
+    which ends 1 to ``fill_end_days`` days before ``window_end``. ``merged``: the reads merged into
+    intervals, ``(_i, _s, _e)`` arrays as :func:`_covered_days` takes them."""
+    out = np.zeros(ids.height, dtype=np.int64)
     if fill_end_days <= 0:
-        return pl.DataFrame(schema={"building_id": pl.String, "filled_days": pl.Int64})
+        return out
     last = (
         r.filter(pl.col("period_start") <= window_end)
         .group_by("building_id")
@@ -242,16 +285,15 @@ def _end_to_fill(
             & (pl.col("span_end") < window_end)
             & (pl.col("span_end") >= window_end - timedelta(days=fill_end_days))
         )
-        .join(pl.DataFrame({"building_id": ids}), on="building_id", how="semi")
-        .with_columns(pl.lit(window_start).alias("span_start"))
+        .join(ids, on="building_id", how="inner")
     )
-    cov = _union_coverage(r, last, ["building_id"])
-    last = last.join(cov, on="building_id").filter(
-        pl.col("covered_days") == (_ordinal("span_end") - _ordinal("span_start")) + 1
-    )
-    return last.select(
-        "building_id", ((pl.lit(window_end) - pl.col("span_end")).dt.total_days()).cast(pl.Int64).alias("filled_days")
-    )
+    epoch = date(1970, 1, 1)
+    i = last["_i"].to_numpy().astype(np.int64)
+    end = last.select(_ordinal("span_end")).to_series().to_numpy()
+    start = np.full(i.size, (window_start - epoch).days, dtype=np.int64)
+    whole = _covered_days(*merged, i, start, end) == end - start + 1
+    out[i[whole]] = (window_end - epoch).days - end[whole]
+    return out
 
 
 def choose_spans(
@@ -335,47 +377,43 @@ def choose_spans(
                 cands.append((k, start, end))
                 k += 1
         end = date(end.year, end.month, 1) - timedelta(days=1)
-    cand = pl.DataFrame(cands, schema={"_cand": pl.Int64, "span_start": pl.Date, "span_end": pl.Date}, orient="row")
-    grid = pl.DataFrame({"building_id": ids}).join(cand, how="cross")
-    grid = grid.join(_union_coverage(r, grid, ["building_id", "_cand"]), on=["building_id", "_cand"])
-    grid = grid.with_columns(((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days")).with_columns(
-        (pl.col("covered_days") / pl.col("span_days")).alias("coverage")
+    # every building × candidate as (buildings, candidates) arrays: days covered (the merged reads'
+    # running totals, _covered_days), days to fill (the window only), coverage
+    epoch = date(1970, 1, 1)
+    c_start = np.array([(c[1] - epoch).days for c in cands], dtype=np.int64)
+    c_end = np.array([(c[2] - epoch).days for c in cands], dtype=np.int64)
+    n_b, n_c = ids.len(), len(cands)
+    pos = pl.DataFrame({"building_id": ids}).with_row_index("_i")
+    m = _merged_intervals(r).join(pos, on="building_id", how="inner", maintain_order="left")
+    merged = (m["_i"].to_numpy().astype(np.int64), m["_s"].to_numpy(), m["_e"].to_numpy())
+    bi = np.repeat(np.arange(n_b, dtype=np.int64), n_c)
+    covered = _covered_days(*merged, bi, np.tile(c_start, n_b), np.tile(c_end, n_b)).reshape(n_b, n_c)
+    span_days = c_end - c_start + 1
+    coverage = covered / span_days
+    filled = np.zeros((n_b, n_c), dtype=np.int64)
+    filled[:, 0] = _end_to_fill(r, pos, window_start, window_end, fill_end_days, merged)
+    # the first fully covered candidate, else the best covered (the first of equals); a coverage under
+    # min_coverage is the window, uncovered
+    full = covered + filled == span_days
+    rows = np.arange(n_b)
+    has_full = full.any(axis=1)
+    pick = np.where(has_full, np.argmax(full, axis=1), np.argmax(coverage, axis=1)) if n_c else rows
+    ok = coverage[rows, pick] >= min_coverage
+    k = np.where(ok, pick, 0)
+    kind = np.where(ok, np.where(pick == 0, "window", "shifted"), "uncovered")
+    out = pl.DataFrame(
+        {
+            "building_id": ids,
+            "span_start": pl.Series(c_start[k], dtype=pl.Int32).cast(pl.Date),
+            "span_end": pl.Series(c_end[k], dtype=pl.Int32).cast(pl.Date),
+            "span_kind": pl.Series(kind, dtype=pl.String),
+            "coverage": coverage[rows, k],
+            "span_days": span_days[k],
+            "covered_days": covered[rows, k],
+            "filled_days": np.where(ok & has_full, filled[rows, k], 0),
+        }
     )
-    grid = grid.join(
-        _end_to_fill(r, ids, window_start, window_end, fill_end_days), on="building_id", how="left"
-    ).with_columns(
-        pl.when(pl.col("_cand") == 0).then(pl.col("filled_days").fill_null(0)).otherwise(0).alias("filled_days")
-    )
-
-    full = grid.filter(pl.col("covered_days") + pl.col("filled_days") == pl.col("span_days"))
-    pick_full = full.sort(["building_id", "_cand"]).group_by("building_id", maintain_order=True).first()
-    rest = grid.join(pick_full.select("building_id"), on="building_id", how="anti")
-    pick_best = (
-        rest.sort(["building_id", "coverage", "_cand"], descending=[False, True, False])
-        .group_by("building_id", maintain_order=True)
-        .first()
-    )
-    picked = pl.concat([pick_full, pick_best.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))])
-    window_row = grid.filter(pl.col("_cand") == 0)
-    ok = pl.col("coverage") >= min_coverage
-    kind = (
-        pl.when(~ok)
-        .then(pl.lit("uncovered"))
-        .when(pl.col("_cand") == 0)
-        .then(pl.lit("window"))
-        .otherwise(pl.lit("shifted"))
-    )
-    picked = picked.with_columns(kind.alias("span_kind"))
-    unc = (
-        picked.filter(pl.col("span_kind") == "uncovered")
-        .select("building_id", "span_kind")
-        .join(
-            window_row.drop("span_kind", strict=False).with_columns(pl.lit(0, pl.Int64).alias("filled_days")),
-            on="building_id",
-        )
-    )
-    out = pl.concat([picked.filter(pl.col("span_kind") != "uncovered"), unc.select(picked.columns)], how="vertical")
-    return out.select(list(_SPAN_SCHEMA)).cast(_SPAN_SCHEMA).sort("building_id")
+    return sort_rows(out.select(list(_SPAN_SCHEMA)).cast(_SPAN_SCHEMA), ["building_id"])
 
 
 # --------------------------------------------------------------------------------------------
@@ -1067,10 +1105,12 @@ def fit_periods(
     r = _heat(readings)
     est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in r.columns else pl.lit(False)
     r = r.select("building_id", "period_start", "period_end", "energy_kbtu", est.alias("_est"))
+    # (rows and groups kept in the readings' order: converted readings are sorted, so the sort below finds
+    # its order already)
     p = (
-        r.join(sp, on="building_id", how="inner")
+        r.join(sp, on="building_id", how="inner", maintain_order="left")
         .filter((pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end")))
-        .group_by("building_id", "period_start", "period_end")
+        .group_by("building_id", "period_start", "period_end", maintain_order=True)
         .agg(
             pl.col("energy_kbtu").sum(),
             pl.len().cast(pl.Int64).alias("n_reads"),
@@ -1079,9 +1119,12 @@ def fit_periods(
         .with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
     )
     p = p.with_columns((pl.col("days") <= max_period_days).alias("usable"))
-    return p.select(
-        "building_id", "period_start", "period_end", "days", "energy_kbtu", "n_reads", "any_estimated", "usable"
-    ).sort(["building_id", "period_start", "period_end"])
+    return sort_rows(
+        p.select(
+            "building_id", "period_start", "period_end", "days", "energy_kbtu", "n_reads", "any_estimated", "usable"
+        ),
+        ["building_id", "period_start", "period_end"],
+    )
 
 
 #: elements per step of :func:`pad_periods`' scatter (4 MB of float64: the temporaries stay below the
