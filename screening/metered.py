@@ -130,20 +130,38 @@ def _prev_run_max(df: pl.DataFrame, by: Sequence[str], col: str) -> pl.Series:
 def strictly_sorted(df: pl.DataFrame, keys: Sequence[str], *, ties: bool = False) -> bool:
     """Whether every row of ``df`` comes after the one before it in the order of ``keys`` (ascending, no
     nulls in them; ``ties``: or has the same keys): then ``df.sort(keys)`` is ``df`` itself (with
-    ``ties``, up to the order of rows with the same keys), so a caller may skip the sort. One pass of
-    comparisons with the previous row, no sort."""
-    if df.height < 2:
+    ``ties``, up to the order of rows with the same keys), so a caller may skip the sort.
+
+    One pass over the rows, no sort: numbers and dates are compared with the previous row; a text key
+    only where it changes (its runs' first values compared with each other's: a few thousand building
+    ids, not a comparison of text per row).
+    """
+    n = df.height
+    if n < 2:
         return True
     if any(df[k].null_count() for k in keys) or not all(
         df.schema[k] in (pl.String, pl.Date, pl.Int64, pl.Int32, pl.UInt32, pl.Boolean) for k in keys
     ):
         return False
-    after, same = pl.lit(False), pl.lit(True)
+    after = np.zeros(n - 1, dtype=bool)  # row i+1 after row i on the keys so far
+    same = np.ones(n - 1, dtype=bool)  # row i+1 with row i's keys so far
     for k in keys:
-        c, prev = pl.col(k), pl.col(k).shift(1)
-        after = after | (same & (c > prev))
-        same = same & (c == prev)
-    return bool(df.select((after | same if ties else after).slice(1).all()).item())
+        col = df[k]
+        if col.dtype == pl.String:
+            rid = col.rle_id().to_numpy()
+            eq = rid[1:] == rid[:-1]
+            change = np.flatnonzero(~eq)
+            first = col.gather(np.concatenate([[0], change + 1]))  # each run's value
+            gt = np.zeros(n - 1, dtype=bool)
+            gt[change] = (first.slice(1) > first.slice(0, first.len() - 1)).to_numpy()
+        else:
+            x = col.to_physical().to_numpy()
+            gt, eq = x[1:] > x[:-1], x[1:] == x[:-1]
+        after |= same & gt
+        same &= eq
+        if not same.any():
+            break
+    return bool((after | same).all() if ties else after.all())
 
 
 def sort_rows(df: pl.DataFrame, keys: Sequence[str]) -> pl.DataFrame:
@@ -397,20 +415,20 @@ def choose_spans(
     full = covered + filled == span_days
     rows = np.arange(n_b)
     has_full = full.any(axis=1)
-    pick = np.where(has_full, np.argmax(full, axis=1), np.argmax(coverage, axis=1)) if n_c else rows
+    pick = np.where(has_full, np.argmax(full, axis=1), np.argmax(coverage, axis=1))
     ok = coverage[rows, pick] >= min_coverage
-    k = np.where(ok, pick, 0)
+    kc = np.where(ok, pick, 0)
     kind = np.where(ok, np.where(pick == 0, "window", "shifted"), "uncovered")
     out = pl.DataFrame(
         {
             "building_id": ids,
-            "span_start": pl.Series(c_start[k], dtype=pl.Int32).cast(pl.Date),
-            "span_end": pl.Series(c_end[k], dtype=pl.Int32).cast(pl.Date),
+            "span_start": pl.Series(c_start[kc], dtype=pl.Int32).cast(pl.Date),
+            "span_end": pl.Series(c_end[kc], dtype=pl.Int32).cast(pl.Date),
             "span_kind": pl.Series(kind, dtype=pl.String),
-            "coverage": coverage[rows, k],
-            "span_days": span_days[k],
-            "covered_days": covered[rows, k],
-            "filled_days": np.where(ok & has_full, filled[rows, k], 0),
+            "coverage": coverage[rows, kc],
+            "span_days": span_days[kc],
+            "covered_days": covered[rows, kc],
+            "filled_days": np.where(ok & has_full, filled[rows, kc], 0),
         }
     )
     return sort_rows(out.select(list(_SPAN_SCHEMA)).cast(_SPAN_SCHEMA), ["building_id"])
@@ -1133,7 +1151,11 @@ _PAD_STEP = 1 << 19
 
 
 def pad_periods(
-    periods: pl.DataFrame, period_hdd: np.ndarray, building_ids: Sequence[str] | pl.Series
+    periods: pl.DataFrame,
+    period_hdd: PeriodHdd,
+    building_ids: Sequence[str] | pl.Series,
+    *,
+    out: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
     """Pad flat periods into the (n_buildings, max_periods[, n_bases]) arrays of the fit.
 
@@ -1141,11 +1163,16 @@ def pad_periods(
     ----------
     periods : pl.DataFrame
         From :func:`fit_periods` (rows sorted by building_id, period_start).
-    period_hdd : np.ndarray, shape (len(periods), n_bases)
-        Heating degree days of each period at each base of the grid [°F·day] (totals, not per day).
+    period_hdd : np.ndarray, shape (len(periods), n_bases), or a callable returning its rows for an index array
+        Heating degree days of each period at each base of the grid [°F·day] (totals, not per day). A
+        callable is asked a step of rows at a time (≤ 4 MB), so the block's whole array never exists.
     building_ids : sequence of str
         Row order of the output (e.g. ``spans["building_id"]``); buildings without periods get
         all-invalid rows.
+    out : np.ndarray, optional
+        A float64 buffer for ``hdd_per_day`` (its first n_buildings × max_periods × n_bases elements, used
+        when it holds that many): a caller padding block after block reuses one buffer instead of
+        faulting in fresh memory each time. Default a new array.
 
     Returns
     -------
@@ -1153,29 +1180,75 @@ def pad_periods(
         ``use_per_day`` [kBtu/day], ``days`` [day], ``hdd_per_day`` [°F·day/day], ``valid`` (bool),
         with ``valid`` = period present and ``usable``.
     """
-    hdd = np.asarray(period_hdd, dtype=float)
-    if hdd.ndim != 2 or hdd.shape[0] != periods.height:
-        raise ValueError(f"period_hdd has shape {hdd.shape}; expected ({periods.height}, n_bases)")
+    if callable(period_hdd):
+        rows_of, hdd = period_hdd, None
+        n_k = int(np.shape(rows_of(np.zeros(0, dtype=np.int64)))[1])
+    else:
+        hdd = np.asarray(period_hdd, dtype=float)
+        if hdd.ndim != 2 or hdd.shape[0] != periods.height:
+            raise ValueError(f"period_hdd has shape {hdd.shape}; expected ({periods.height}, n_bases)")
+        n_k = hdd.shape[1]
     ids = pl.DataFrame({"building_id": pl.Series(list(building_ids), dtype=pl.String)}).with_row_index("_bi")
     p = periods.with_row_index("_row").join(ids, on="building_id", how="inner").sort("_row")
     p = p.with_columns(pl.int_range(pl.len()).over("_bi").alias("_pi"))
-    n_b, n_k = ids.height, hdd.shape[1]
-    n_p = max(cast(int, p["_pi"].max()) + 1 if p.height else 0, 1)
-    bi, pi, row = p["_bi"].to_numpy(), p["_pi"].to_numpy(), p["_row"].to_numpy()
+    return _pad(
+        p["_bi"].to_numpy(),
+        p["_pi"].to_numpy(),
+        p["_row"].to_numpy(),
+        p["days"].to_numpy(),
+        p["energy_kbtu"].to_numpy(),
+        p["usable"].to_numpy(),
+        rows_of if hdd is None else hdd,
+        ids.height,
+        n_k,
+        out,
+    )
+
+
+def _pad(
+    bi: np.ndarray,
+    pi: np.ndarray,
+    row: np.ndarray,
+    days_p: np.ndarray,
+    energy: np.ndarray,
+    usable: np.ndarray,
+    period_hdd: PeriodHdd,
+    n_b: int,
+    n_k: int,
+    out: np.ndarray | None,
+) -> dict[str, np.ndarray]:
+    """:func:`pad_periods` from arrays: period i goes to building row ``bi[i]``, period slot ``pi[i]``;
+    its degree days are row ``row[i]`` of ``period_hdd`` (an array, or a callable returning rows)."""
+    n_p = max(int(pi.max()) + 1 if pi.size else 0, 1)
     days = np.zeros((n_b, n_p))
     use = np.zeros((n_b, n_p))
-    x = np.zeros((n_b, n_p, n_k))
     valid = np.zeros((n_b, n_p), dtype=bool)
-    d = p["days"].to_numpy().astype(float)
+    d = days_p.astype(float)
     days[bi, pi] = d
-    use[bi, pi] = p["energy_kbtu"].to_numpy() / d
-    same = row.size == hdd.shape[0] and np.array_equal(row, np.arange(row.size))
-    flat, x2 = bi * n_p + pi, x.reshape(n_b * n_p, n_k)  # one row index: a plain row scatter
+    use[bi, pi] = energy / d
+    flat = bi * n_p + pi  # one row index: a plain row scatter
+    size = n_b * n_p * n_k
+    if out is not None and out.dtype == np.float64 and out.size >= size:
+        x = out.ravel()[:size].reshape(n_b, n_p, n_k)
+        empty = np.ones(n_b * n_p, dtype=bool)
+        empty[flat] = False
+        x.reshape(n_b * n_p, n_k)[empty] = 0.0  # the slots no period fills (the others are written below)
+    else:
+        x = np.zeros((n_b, n_p, n_k))
+    x2 = x.reshape(n_b * n_p, n_k)
+    hdd = None if callable(period_hdd) else period_hdd
+    same = hdd is not None and row.size == hdd.shape[0] and np.array_equal(row, np.arange(row.size))
     step = max(1, _PAD_STEP // max(n_k, 1))  # temporaries of ≤ 4 MB: reused memory, no page faults
     for a in range(0, row.size, step):  # steps only bound the temporaries; each row is one division
-        src = hdd[a : a + step] if same else hdd[row[a : a + step]]
-        x2[flat[a : a + step]] = src / d[a : a + step, None]
-    valid[bi, pi] = p["usable"].to_numpy()
+        if hdd is None:
+            src = np.asarray(cast(Callable, period_hdd)(row[a : a + step]), dtype=float)
+            if src.shape != (min(step, row.size - a), n_k):
+                raise ValueError(f"period_hdd returned shape {src.shape}; expected ({min(step, row.size - a)}, {n_k})")
+            x2[flat[a : a + step]] = np.divide(src, d[a : a + step, None], out=src)
+        else:
+            src = hdd[a : a + step] if same else hdd[row[a : a + step]]
+            x2[flat[a : a + step]] = src / d[a : a + step, None]
+    valid[bi, pi] = usable
     return {"use_per_day": use, "days": days, "hdd_per_day": x, "valid": valid}
 
 
@@ -1273,7 +1346,13 @@ def fit_variable_base(
         )
     if grid.size > 1 and np.any(np.diff(grid) <= 0):
         raise ValueError("base_grid_f must be strictly increasing")
-    v = v & (n_days > 0) & (n_days <= max_period_days) & np.isfinite(y) & np.all(np.isfinite(x), axis=2)
+    # a period whose degree days are all finite: its sum over the bases is finite (a NaN or an infinity
+    # makes it NaN or infinite); only where the sum is not (or overflows) are the values looked at
+    with np.errstate(over="ignore", invalid="ignore"):
+        x_ok = np.isfinite(x.sum(axis=2))
+    if not x_ok.all():
+        x_ok[~x_ok] = np.isfinite(x[~x_ok]).all(axis=1)
+    v = v & (n_days > 0) & (n_days <= max_period_days) & np.isfinite(y) & x_ok
     w = np.where(v, n_days, 0.0)
     y0 = np.where(v, y, 0.0)
     n = v.sum(axis=1)
@@ -1286,10 +1365,14 @@ def fit_variable_base(
     n_b, n_k = y.shape[0], grid.size
     best = np.full(n_b, -1, dtype=np.int64)
     origin = np.zeros(n_b, dtype=bool)
+    # (the two (chunk × periods × bases) temporaries in two buffers, reused from chunk to chunk)
+    xs_buf, wx_buf = np.empty((min(chunk, n_b),) + x.shape[1:]), np.empty((min(chunk, n_b),) + x.shape[1:])
     for a in range(0, n_b, chunk):
         sl = slice(a, a + chunk)
-        xs = np.where(v[sl, :, None], x[sl], 0.0)
-        wx = w[sl, :, None] * xs
+        xs = xs_buf[: x[sl].shape[0]]
+        np.copyto(xs, x[sl])
+        xs[~v[sl]] = 0.0  # the periods not used count as zero
+        wx = np.multiply(w[sl, :, None], xs, out=wx_buf[: xs.shape[0]])
         sx = wx.sum(axis=1)  # (c, k)
         sxx = np.einsum("cpk,cpk->ck", wx, xs)
         sxy = np.einsum("cpk,cp->ck", wx, yc[sl])  # y centred: Σw(x)(y−ȳ) = Σw(x−x̄)(y−ȳ)
@@ -1407,14 +1490,21 @@ def _fit_in_blocks(
     pos = pl.DataFrame({"building_id": ids, "_k": np.arange(ids.len(), dtype=np.int64)}).unique(
         "building_id", keep="first", maintain_order=True
     )
-    blk = (
+    blk_pos = (
         periods.select("building_id")
         .join(pos, on="building_id", how="left", maintain_order="left")["_k"]
         .fill_null(-1)
         .to_numpy()
-        // block
     )
+    blk = blk_pos // block
     order = np.argsort(blk, kind="stable")
+    # one buffer for every block's padded degree days, sized for the fullest block (fresh memory for
+    # each block would be faulted in page by page)
+    per_building = np.bincount(blk_pos[blk_pos >= 0], minlength=1) if blk_pos.size else np.zeros(1, np.int64)
+    n_k = np.asarray(grid).size
+    days_all, energy_all = periods["days"].to_numpy(), periods["energy_kbtu"].to_numpy()
+    usable_all = periods["usable"].to_numpy()
+    buf = np.empty(min(block, max(ids.len(), 1)) * max(int(per_building.max()), 1) * n_k)
     parts: list[dict[str, np.ndarray]] = []
     for start in range(0, max(ids.len(), 1), block):
         bid = ids.slice(start, block)
@@ -1422,8 +1512,21 @@ def _fit_in_blocks(
         pick = order[
             np.searchsorted(blk, k, side="left", sorter=order) : np.searchsorted(blk, k, side="right", sorter=order)
         ]
-        hdd = period_hdd(pick) if callable(period_hdd) else np.asarray(period_hdd)[pick]
-        arr = pad_periods(periods[pick], hdd, bid)
+        if callable(period_hdd):  # asked a step of rows at a time inside _pad
+            hdd: PeriodHdd = lambda rows, _pick=pick: period_hdd(_pick[rows])  # noqa: E731
+        else:
+            hdd = np.asarray(period_hdd)[pick]
+        # each period's building row in the block and its slot (its rank among the building's periods in
+        # row order), as pad_periods finds them, from the positions above
+        bi = blk_pos[pick] - start
+        by_b = np.argsort(bi, kind="stable")
+        sb = bi[by_b]
+        run = np.flatnonzero(np.r_[True, sb[1:] != sb[:-1]]) if sb.size else np.zeros(0, dtype=np.int64)
+        pi = np.empty_like(bi)
+        pi[by_b] = np.arange(sb.size) - np.repeat(run, np.diff(np.r_[run, sb.size]))
+        arr = _pad(
+            bi, pi, np.arange(pick.size), days_all[pick], energy_all[pick], usable_all[pick], hdd, bid.len(), n_k, buf
+        )
         parts.append(
             fit_variable_base(arr["use_per_day"], arr["days"], arr["hdd_per_day"], grid, arr["valid"], **fit_kw)
         )
