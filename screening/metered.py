@@ -1123,19 +1123,37 @@ def fit_periods(
     r = _heat(readings)
     est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in r.columns else pl.lit(False)
     r = r.select("building_id", "period_start", "period_end", "energy_kbtu", est.alias("_est"))
-    # (rows and groups kept in the readings' order: converted readings are sorted, so the sort below finds
-    # its order already)
-    p = (
-        r.join(sp, on="building_id", how="inner", maintain_order="left")
-        .filter((pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end")))
-        .group_by("building_id", "period_start", "period_end", maintain_order=True)
-        .agg(
-            pl.col("energy_kbtu").sum(),
-            pl.len().cast(pl.Int64).alias("n_reads"),
-            pl.col("_est").any().alias("any_estimated"),
-        )
-        .with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
+    keys = ["building_id", "period_start", "period_end"]
+    agg = (
+        pl.col("energy_kbtu").sum(),
+        pl.len().cast(pl.Int64).alias("n_reads"),
+        pl.col("_est").any().alias("any_estimated"),
     )
+    # (rows kept in the readings' order: converted readings are sorted, so the sort below finds its order)
+    f = r.join(sp, on="building_id", how="inner", maintain_order="left").filter(
+        (pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end"))
+    )
+    if f.height and strictly_sorted(f, keys, ties=True) and not f["energy_kbtu"].null_count():
+        # the reads of one period are neighbours: a period read once is its row; only the periods read
+        # more than once (several meters) are grouped, and the rows put back in the periods' order
+        change = np.zeros(f.height - 1, dtype=bool)
+        rid = f["building_id"].rle_id().to_numpy()
+        change |= rid[1:] != rid[:-1]
+        for c in ("period_start", "period_end"):
+            x = f[c].to_physical().to_numpy()
+            change |= x[1:] != x[:-1]
+        first = np.r_[True, change]
+        once = first & np.r_[change, True]
+        p = f.filter(pl.Series(once)).select(*keys, "energy_kbtu", pl.col("_est").alias("any_estimated"))
+        p = p.insert_column(4, pl.Series("n_reads", np.ones(p.height, dtype=np.int64)))  # (no sorted flag)
+        if not once.all():
+            again = f.filter(pl.Series(~once)).group_by(keys, maintain_order=True).agg(*agg)
+            at = np.cumsum(first) - 1  # each row's period number
+            place = np.r_[at[once], at[first & ~once]]
+            p = pl.concat([p, again]).gather(np.argsort(place, kind="stable"))
+    else:
+        p = f.group_by(keys, maintain_order=True).agg(*agg)
+    p = p.with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
     p = p.with_columns((pl.col("days") <= max_period_days).alias("usable"))
     return sort_rows(
         p.select(
