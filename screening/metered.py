@@ -24,6 +24,7 @@ reads of different meters apart when looking for overlaps.
 
 from __future__ import annotations
 
+import inspect
 from collections.abc import Callable, Sequence
 from datetime import date, timedelta
 from typing import Any, cast
@@ -37,8 +38,17 @@ from .schema import issue_codes
 from .window import add_months as _add_months
 
 #: degree days of the billing periods at every base: the (periods × bases) array, or a callable
-#: returning its rows for an index array (see :func:`metered_heating`)
-PeriodHdd = np.ndarray | Callable[[np.ndarray], np.ndarray]
+#: returning its rows for an index array (see :func:`metered_heating`); a callable with an ``out``
+#: keyword (``f(rows, out=array)``, as ``pipeline._PeriodHdd``) fills a buffer the caller reuses
+PeriodHdd = np.ndarray | Callable[..., np.ndarray]
+
+
+def _fills_out(f: Callable) -> bool:
+    """Whether the callable ``f`` takes an ``out`` keyword (see :data:`PeriodHdd`)."""
+    try:
+        return "out" in inspect.signature(f).parameters
+    except (TypeError, ValueError):
+        return False
 
 #: issue codes and whether each blocks a verdict on the building
 #: (declared with their plain text in :data:`screening.schema.DATA_ISSUES`)
@@ -1257,11 +1267,16 @@ def _pad(
     hdd = None if callable(period_hdd) else period_hdd
     same = hdd is not None and row.size == hdd.shape[0] and np.array_equal(row, np.arange(row.size))
     step = max(1, _PAD_STEP // max(n_k, 1))  # temporaries of ≤ 4 MB: reused memory, no page faults
+    fills = hdd is None and _fills_out(cast(Callable, period_hdd))
+    src_buf = np.empty((min(step, row.size), n_k)) if fills else None
     for a in range(0, row.size, step):  # steps only bound the temporaries; each row is one division
         if hdd is None:
-            src = np.asarray(cast(Callable, period_hdd)(row[a : a + step]), dtype=float)
-            if src.shape != (min(step, row.size - a), n_k):
-                raise ValueError(f"period_hdd returned shape {src.shape}; expected ({min(step, row.size - a)}, {n_k})")
+            m = min(step, row.size - a)
+            f = cast(Callable, period_hdd)
+            src = f(row[a : a + step], out=src_buf[:m]) if src_buf is not None else f(row[a : a + step])
+            src = np.asarray(src, dtype=float)
+            if src.shape != (m, n_k):
+                raise ValueError(f"period_hdd returned shape {src.shape}; expected ({m}, {n_k})")
             x2[flat[a : a + step]] = np.divide(src, d[a : a + step, None], out=src)
         else:
             src = hdd[a : a + step] if same else hdd[row[a : a + step]]
@@ -1530,8 +1545,10 @@ def _fit_in_blocks(
         pick = order[
             np.searchsorted(blk, k, side="left", sorter=order) : np.searchsorted(blk, k, side="right", sorter=order)
         ]
-        if callable(period_hdd):  # asked a step of rows at a time inside _pad
-            hdd: PeriodHdd = lambda rows, _pick=pick: period_hdd(_pick[rows])  # noqa: E731
+        if callable(period_hdd) and _fills_out(period_hdd):  # asked a step of rows at a time inside _pad
+            hdd: PeriodHdd = lambda rows, out=None, _pick=pick: period_hdd(_pick[rows], out=out)  # noqa: E731
+        elif callable(period_hdd):
+            hdd = lambda rows, _pick=pick: period_hdd(_pick[rows])  # noqa: E731
         else:
             hdd = np.asarray(period_hdd)[pick]
         # each period's building row in the block and its slot (its rank among the building's periods in

@@ -47,7 +47,7 @@ class StoreReadings(pipeline.ReadingsSource):
         """The readings of ``ids`` (a chunk: the store reads those between its first and last id, in
         the table's order; the ids of other buildings between them are left out here)."""
         rows = self._frame("select_readings_of_buildings", {"lo": ids.min(), "hi": ids.max()})
-        return rows.filter(pl.col("building_id").is_in(ids.implode()))
+        return rows.filter(pl.col("building_id").is_in(ids.implode())).rechunk()  # (DuckDB hands over pieces)
 
     def others(self, ids: pl.Series) -> pl.DataFrame:
         return self._frame("select_readings_of_other_buildings", {"ids": ids.to_list()})
