@@ -103,9 +103,11 @@ def _ordinal(col: str) -> pl.Expr:
 
 def _group_rank(df: pl.DataFrame, by: Sequence[str]) -> np.ndarray:
     """Rank (0, 1, …) of each row's ``by`` group in a frame sorted by ``by``: a new rank where the keys change."""
-    by = list(by)
-    ids = df.select(pl.struct(by).rle_id()).to_series() if len(by) > 1 else df[by[0]].rle_id()
-    return ids.to_numpy().astype(np.int64)
+    change = np.zeros(df.height, dtype=bool)
+    for c in by:  # (each key's runs, a change in any: the runs of the keys together, nulls equal)
+        rid = df[c].rle_id().to_numpy()
+        change[1:] |= rid[1:] != rid[:-1]
+    return np.cumsum(change, dtype=np.int64)
 
 
 def _run_max(x: np.ndarray, grp: np.ndarray) -> np.ndarray:
@@ -270,11 +272,12 @@ def _union_coverage(
     sp = spans.select(*keys, _ordinal("span_start").alias("_ss"), _ordinal("span_end").alias("_se"))
     if sp["_ss"].null_count() or sp["_se"].null_count():
         raise ValueError("spans: span_start and span_end must not be null")
-    grp = m.select(by).with_columns(pl.Series("_g", _group_rank(m, by) if m.height else np.zeros(0, np.int64)))
-    firsts = grp.unique(by, keep="first", maintain_order=True)
+    g = _group_rank(m, by)
+    starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if g.size else np.zeros(0, dtype=np.int64)
+    firsts = m.select(by)[starts].with_columns(pl.Series("_g", g[starts]))  # each group's keys and rank
     qg = sp.select(by).join(firsts, on=by, how="left", maintain_order="left")["_g"].fill_null(-1).to_numpy()
     cov = _covered_days(
-        grp["_g"].to_numpy(),
+        g,
         m["_s"].to_numpy(),
         m["_e"].to_numpy(),
         qg,
