@@ -50,6 +50,7 @@ def _fills_out(f: Callable) -> bool:
     except (TypeError, ValueError):
         return False
 
+
 #: issue codes and whether each blocks a verdict on the building
 #: (declared with their plain text in :data:`screening.schema.DATA_ISSUES`)
 ISSUE_CODES = issue_codes("metered")
@@ -1209,7 +1210,8 @@ def pad_periods(
     -------
     dict
         ``use_per_day`` [kBtu/day], ``days`` [day], ``hdd_per_day`` [°F·day/day], ``valid`` (bool),
-        with ``valid`` = period present and ``usable``.
+        with ``valid`` = period present and ``usable``, ``hdd_finite`` (bool: the period's ``hdd_per_day``
+        all finite; true for empty slots).
     """
     if callable(period_hdd):
         rows_of, hdd = period_hdd, None
@@ -1271,6 +1273,7 @@ def _pad(
     same = hdd is not None and row.size == hdd.shape[0] and np.array_equal(row, np.arange(row.size))
     step = max(1, _PAD_STEP // max(n_k, 1))  # temporaries of ≤ 4 MB: reused memory, no page faults
     fills = hdd is None and _fills_out(cast(Callable, period_hdd))
+    fin = np.ones(row.size, dtype=bool)
     src_buf = np.empty((min(step, row.size), n_k)) if fills else None
     for a in range(0, row.size, step):  # steps only bound the temporaries; each row is one division
         if hdd is None:
@@ -1280,12 +1283,16 @@ def _pad(
             src = np.asarray(src, dtype=float)
             if src.shape != (m, n_k):
                 raise ValueError(f"period_hdd returned shape {src.shape}; expected ({m}, {n_k})")
-            x2[flat[a : a + step]] = np.divide(src, d[a : a + step, None], out=src)
+            q = np.divide(src, d[a : a + step, None], out=src)
         else:
             src = hdd[a : a + step] if same else hdd[row[a : a + step]]
-            x2[flat[a : a + step]] = src / d[a : a + step, None]
+            q = src / d[a : a + step, None]
+        x2[flat[a : a + step]] = q
+        fin[a : a + step] = np.isfinite(q).all(axis=1)  # (the step is in cache: the fit need not look again)
     valid[bi, pi] = usable
-    return {"use_per_day": use, "days": days, "hdd_per_day": x, "valid": valid}
+    finite = np.ones((n_b, n_p), dtype=bool)
+    finite[bi, pi] = fin
+    return {"use_per_day": use, "days": days, "hdd_per_day": x, "valid": valid, "hdd_finite": finite}
 
 
 # --------------------------------------------------------------------------------------------
@@ -1303,6 +1310,8 @@ def fit_variable_base(
     min_periods: int = 9,
     max_period_days: int = 62,
     chunk: int = 256,
+    x_finite: np.ndarray | None = None,
+    x_scratch: bool = False,
 ) -> dict[str, np.ndarray]:
     """Variable-base degree-day regression of bills (Fels 1986, PRISM), all buildings at once,
     with a baseload that is never negative.
@@ -1355,6 +1364,9 @@ def fit_variable_base(
         ≤ 62 days in the last 24 months, per the spec).
     chunk : buildings per block (memory bound; blocks, not buildings, are looped over; 256 keeps a
         block's (buildings × periods × bases) temporaries near 4 MB, in cache; results do not depend on it).
+    x_finite : (n_b, p) bool, optional: whether each period's ``hdd_per_day`` values are all finite, when the
+        caller knows it (:func:`pad_periods` returns it as ``hdd_finite``); default found here.
+    x_scratch : ``hdd_per_day`` may be overwritten (its unused periods set to 0): no copy of it is made.
 
     Returns
     -------
@@ -1384,10 +1396,13 @@ def fit_variable_base(
         raise ValueError("base_grid_f must be strictly increasing")
     # a period whose degree days are all finite: its sum over the bases is finite (a NaN or an infinity
     # makes it NaN or infinite); only where the sum is not (or overflows) are the values looked at
-    with np.errstate(over="ignore", invalid="ignore"):
-        x_ok = np.isfinite(x.sum(axis=2))
-    if not x_ok.all():
-        x_ok[~x_ok] = np.isfinite(x[~x_ok]).all(axis=1)
+    if x_finite is not None and np.shape(x_finite) == y.shape:
+        x_ok = np.asarray(x_finite, dtype=bool)
+    else:
+        with np.errstate(over="ignore", invalid="ignore"):
+            x_ok = np.isfinite(x.sum(axis=2))
+        if not x_ok.all():
+            x_ok[~x_ok] = np.isfinite(x[~x_ok]).all(axis=1)
     v = v & (n_days > 0) & (n_days <= max_period_days) & np.isfinite(y) & x_ok
     w = np.where(v, n_days, 0.0)
     y0 = np.where(v, y, 0.0)
@@ -1402,11 +1417,15 @@ def fit_variable_base(
     best = np.full(n_b, -1, dtype=np.int64)
     origin = np.zeros(n_b, dtype=bool)
     # (the two (chunk × periods × bases) temporaries in two buffers, reused from chunk to chunk)
-    xs_buf, wx_buf = np.empty((min(chunk, n_b),) + x.shape[1:]), np.empty((min(chunk, n_b),) + x.shape[1:])
+    xs_buf = None if x_scratch else np.empty((min(chunk, n_b),) + x.shape[1:])
+    wx_buf = np.empty((min(chunk, n_b),) + x.shape[1:])
     for a in range(0, n_b, chunk):
         sl = slice(a, a + chunk)
-        xs = xs_buf[: x[sl].shape[0]]
-        np.copyto(xs, x[sl])
+        if xs_buf is None:  # (x_scratch)
+            xs = x[sl]
+        else:
+            xs = xs_buf[: x[sl].shape[0]]
+            np.copyto(xs, x[sl])
         xs[~v[sl]] = 0.0  # the periods not used count as zero
         wx = np.multiply(w[sl, :, None], xs, out=wx_buf[: xs.shape[0]])
         sx = wx.sum(axis=1)  # (c, k)
@@ -1565,8 +1584,18 @@ def _fit_in_blocks(
         arr = _pad(
             bi, pi, np.arange(pick.size), days_all[pick], energy_all[pick], usable_all[pick], hdd, bid.len(), n_k, buf
         )
+        x = arr["hdd_per_day"]  # (the buffer: the fit may zero its unused periods in place)
         parts.append(
-            fit_variable_base(arr["use_per_day"], arr["days"], arr["hdd_per_day"], grid, arr["valid"], **fit_kw)
+            fit_variable_base(
+                arr["use_per_day"],
+                arr["days"],
+                x,
+                grid,
+                arr["valid"],
+                x_finite=arr["hdd_finite"],
+                x_scratch=True,
+                **fit_kw,
+            )
         )
     return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
 
