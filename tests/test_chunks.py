@@ -221,6 +221,9 @@ def test_store_readings_of_a_chunk_leave_out_the_buildings_between_its_ids(tmp_p
         assert sorted(got["_line"].to_list()) == [2, 3, 5, 7]
         assert "_file" not in got.columns
         assert src(pl.Series("building_id", [], dtype=pl.String)).height == 0
-        assert sorted(src.others(pl.Series("building_id", ["B1", "B2", "B3"]))["building_id"].to_list()) == ["B10", "B20"]
+        assert sorted(src.others(pl.Series("building_id", ["B1", "B2", "B3"]))["building_id"].to_list()) == [
+            "B10",
+            "B20",
+        ]
     finally:
         src.close()

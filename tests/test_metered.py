@@ -785,7 +785,9 @@ def test_sort_rows_is_the_sort_with_its_flags(seed):
         if rng.random() < 0.6:
             df = df.sort(["building_id", "d", "line"])
         keys = ["building_id", "d", "line"]
-        want_sorted = n < 2 or (df.null_count().sum_horizontal()[0] == 0 and df.equals(df.sort(keys, maintain_order=True)))
+        want_sorted = n < 2 or (
+            df.null_count().sum_horizontal()[0] == 0 and df.equals(df.sort(keys, maintain_order=True))
+        )
         assert M.strictly_sorted(df, keys) == want_sorted  # (line is unique: no ties)
         ties = ["building_id", "d"]
         in_order = n < 2 or (
@@ -833,7 +835,9 @@ def test_fit_periods_groups_several_meters_in_order():
         ("B", date(2024, 1, 1), date(2024, 1, 31), 4.0, False),
         ("B", date(2024, 2, 1), date(2024, 2, 29), 5.0, True),
     ]
-    r = pl.DataFrame(rows, schema=["building_id", "period_start", "period_end", "energy_kbtu", "estimated"], orient="row")
+    r = pl.DataFrame(
+        rows, schema=["building_id", "period_start", "period_end", "energy_kbtu", "estimated"], orient="row"
+    )
     r = r.with_columns(pl.lit(True).alias("is_heating_fuel"))
     spans = pl.DataFrame({"building_id": ["A", "B"], "span_end": [date(2024, 12, 31)] * 2})
     want = (
@@ -889,7 +893,14 @@ def test_pad_periods_from_a_callable_and_a_buffer():
     fit = M.fit_variable_base(ref["use_per_day"], ref["days"], ref["hdd_per_day"], GRID, ref["valid"], min_periods=3)
     x = ref["hdd_per_day"].copy()
     fast = M.fit_variable_base(
-        ref["use_per_day"], ref["days"], x, GRID, ref["valid"], min_periods=3, x_finite=ref["hdd_finite"], x_scratch=True
+        ref["use_per_day"],
+        ref["days"],
+        x,
+        GRID,
+        ref["valid"],
+        min_periods=3,
+        x_finite=ref["hdd_finite"],
+        x_scratch=True,
     )
     for k, v in fit.items():
         np.testing.assert_array_equal(_bits(fast[k]), _bits(v), err_msg=k)
