@@ -570,8 +570,8 @@ def calendarize(
         .alias("dd_prorated_share"),
     )
     keyed = agg.select("building_id", "fuel", "span_start", "span_end")
-    cov = _union_coverage(
-        r.select("building_id", "fuel", "period_start", "period_end"),
+    cov = _union_coverage(  # (the reads that overlap the span: the others add no day of it)
+        j.select("building_id", "fuel", "period_start", "period_end"),
         keyed,
         ["building_id", "fuel"],
         by=["building_id", "fuel"],
