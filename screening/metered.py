@@ -1545,12 +1545,16 @@ def _fit_in_blocks(
     pos = pl.DataFrame({"building_id": ids, "_k": np.arange(ids.len(), dtype=np.int64)}).unique(
         "building_id", keep="first", maintain_order=True
     )
-    blk_pos = (
-        periods.select("building_id")
+    # (looked up once per run of a building's rows: periods come grouped by building)
+    rid = periods["building_id"].rle_id().to_numpy()
+    runs = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]]) if rid.size else np.zeros(0, dtype=np.int64)
+    run_pos = (
+        periods.select("building_id")[runs]
         .join(pos, on="building_id", how="left", maintain_order="left")["_k"]
         .fill_null(-1)
         .to_numpy()
     )
+    blk_pos = run_pos[rid]
     blk = blk_pos // block
     order = np.argsort(blk, kind="stable")
     # one buffer for every block's padded degree days, sized for the fullest block (fresh memory for
