@@ -792,20 +792,32 @@ class DegreeDayCube:
             row[row < _RESIDUE] = 0.0
         return out.T
 
-    def range_rows(self, fa: np.ndarray, fb: np.ndarray) -> np.ndarray:
+    def range_rows(self, fa: np.ndarray, fb: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
         """``range_totals(fa, fb)`` (HDD) as a row-major (n, n_bases) array [°F·day]: the same values,
         each period's bases contiguous (for consumers that read a row at a time, e.g. the padded
-        regression arrays), taken from a row-major copy of the running sums made once per cube."""
+        regression arrays), taken from a row-major copy of the running sums made once per cube.
+        ``out``: a float64 (n, n_bases) array to fill and return (a caller asking step after step
+        reuses one); default a new one."""
         rows = self.__dict__.get("_cum_rows")
         if rows is None:
             rows = np.ascontiguousarray(self.cum_hdd.T)
             self.__dict__["_cum_rows"] = rows
-        out = np.take(rows, fb, axis=0)
-        step = _ROWS_STEP // max(1, rows.shape[1])  # temporaries of ≤ 4 MB: reused memory, no page faults
-        for a in range(0, fa.size, step):
+        n, k = fa.size, rows.shape[1]
+        if out is None:
+            out = np.empty((n, k))
+        elif out.shape != (n, k) or out.dtype != np.float64 or not out.flags.c_contiguous:
+            raise ValueError(f"out has shape {out.shape} {out.dtype}; expected a C-contiguous ({n}, {k}) float64 array")
+        if n and (min(fa.min(), fb.min()) < 0 or max(fa.max(), fb.max()) >= rows.shape[0]):
+            raise IndexError(f"flat range outside the cube's {rows.shape[0]} running sums")
+        step = _ROWS_STEP // max(1, k)  # temporaries of ≤ 4 MB: reused memory, no page faults
+        tmp = np.empty((min(step, n), k))
+        for a in range(0, n, step):
             o = out[a : a + step]
-            np.subtract(o, np.take(rows, fa[a : a + step], axis=0), out=o)
-            o[o < _RESIDUE] = 0.0
+            t = tmp[: o.shape[0]]
+            np.take(rows, fb[a : a + step], axis=0, out=o, mode="clip")  # (indices checked above)
+            np.take(rows, fa[a : a + step], axis=0, out=t, mode="clip")
+            np.subtract(o, t, out=o)
+            np.putmask(o, o < _RESIDUE, 0.0)
         return out
 
     def range_at(self, fa: np.ndarray, fb: np.ndarray, base_index: np.ndarray) -> np.ndarray:

@@ -24,6 +24,7 @@ reads of different meters apart when looking for overlaps.
 
 from __future__ import annotations
 
+import inspect
 from collections.abc import Callable, Sequence
 from datetime import date, timedelta
 from typing import Any, cast
@@ -37,8 +38,18 @@ from .schema import issue_codes
 from .window import add_months as _add_months
 
 #: degree days of the billing periods at every base: the (periods × bases) array, or a callable
-#: returning its rows for an index array (see :func:`metered_heating`)
-PeriodHdd = np.ndarray | Callable[[np.ndarray], np.ndarray]
+#: returning its rows for an index array (see :func:`metered_heating`); a callable with an ``out``
+#: keyword (``f(rows, out=array)``, as ``pipeline._PeriodHdd``) fills a buffer the caller reuses
+PeriodHdd = np.ndarray | Callable[..., np.ndarray]
+
+
+def _fills_out(f: Callable) -> bool:
+    """Whether the callable ``f`` takes an ``out`` keyword (see :data:`PeriodHdd`)."""
+    try:
+        return "out" in inspect.signature(f).parameters
+    except (TypeError, ValueError):
+        return False
+
 
 #: issue codes and whether each blocks a verdict on the building
 #: (declared with their plain text in :data:`screening.schema.DATA_ISSUES`)
@@ -93,9 +104,11 @@ def _ordinal(col: str) -> pl.Expr:
 
 def _group_rank(df: pl.DataFrame, by: Sequence[str]) -> np.ndarray:
     """Rank (0, 1, …) of each row's ``by`` group in a frame sorted by ``by``: a new rank where the keys change."""
-    by = list(by)
-    ids = df.select(pl.struct(by).rle_id()).to_series() if len(by) > 1 else df[by[0]].rle_id()
-    return ids.to_numpy().astype(np.int64)
+    change = np.zeros(df.height, dtype=bool)
+    for c in by:  # (each key's runs, a change in any: the runs of the keys together, nulls equal)
+        rid = df[c].rle_id().to_numpy()
+        change[1:] |= rid[1:] != rid[:-1]
+    return np.cumsum(change, dtype=np.int64)
 
 
 def _run_max(x: np.ndarray, grp: np.ndarray) -> np.ndarray:
@@ -127,6 +140,54 @@ def _prev_run_max(df: pl.DataFrame, by: Sequence[str], col: str) -> pl.Series:
     return pl.select(pl.when(pl.lit(pl.Series(first))).then(None).otherwise(pl.lit(out))).to_series().alias(col)
 
 
+def strictly_sorted(df: pl.DataFrame, keys: Sequence[str], *, ties: bool = False) -> bool:
+    """Whether every row of ``df`` comes after the one before it in the order of ``keys`` (ascending, no
+    nulls in them; ``ties``: or has the same keys): then ``df.sort(keys)`` is ``df`` itself (with
+    ``ties``, up to the order of rows with the same keys), so a caller may skip the sort.
+
+    One pass over the rows, no sort: numbers and dates are compared with the previous row; a text key
+    only where it changes (its runs' first values compared with each other's: a few thousand building
+    ids, not a comparison of text per row).
+    """
+    n = df.height
+    if n < 2:
+        return True
+    if any(df[k].null_count() for k in keys) or not all(
+        df.schema[k] in (pl.String, pl.Date, pl.Int64, pl.Int32, pl.UInt32, pl.Boolean) for k in keys
+    ):
+        return False
+    after = np.zeros(n - 1, dtype=bool)  # row i+1 after row i on the keys so far
+    same = np.ones(n - 1, dtype=bool)  # row i+1 with row i's keys so far
+    for k in keys:
+        col = df[k]
+        if col.dtype == pl.String:
+            rid = col.rle_id().to_numpy()
+            eq = rid[1:] == rid[:-1]
+            change = np.flatnonzero(~eq)
+            first = col.gather(np.concatenate([[0], change + 1]))  # each run's value
+            gt = np.zeros(n - 1, dtype=bool)
+            gt[change] = (first.slice(1) > first.slice(0, first.len() - 1)).to_numpy()
+        else:
+            x = col.to_physical().to_numpy()
+            gt, eq = x[1:] > x[:-1], x[1:] == x[:-1]
+        after |= same & gt
+        same &= eq
+        if not same.any():
+            break
+    return bool((after | same).all() if ties else after.all())
+
+
+def sort_rows(df: pl.DataFrame, keys: Sequence[str]) -> pl.DataFrame:
+    """``df.sort(keys)``, without the sort when the rows are in that order already (:func:`strictly_sorted`):
+    the frame then comes back as a sort leaves it, in one chunk, its first key flagged sorted (polars
+    sums a float column over groups in an order that depends on both, so the results are the same to
+    the bit)."""
+    keys = list(keys)
+    if strictly_sorted(df, keys):
+        return df.rechunk().with_columns(pl.col(keys[0]).set_sorted())
+    return df.sort(keys)
+
+
 def _merged_intervals(r: pl.DataFrame, by: Sequence[str] = ("building_id",)) -> pl.DataFrame:
     """Each building's (each ``by`` group's) reading periods merged into disjoint day intervals
     ``_s.._e`` (ordinals), columns ``*by, _s, _e``.
@@ -138,11 +199,11 @@ def _merged_intervals(r: pl.DataFrame, by: Sequence[str] = ("building_id",)) -> 
     rows never reaches back into the previous group).
     """
     by = list(by)
-    o = (
-        r.select(*by, _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e"))
-        .filter(pl.col("_s") <= pl.col("_e"))
-        .sort([*by, "_s", "_e"])
+    o = r.select(*by, _ordinal("period_start").alias("_s"), _ordinal("period_end").alias("_e")).filter(
+        pl.col("_s") <= pl.col("_e")
     )
+    if not strictly_sorted(o, [*by, "_s", "_e"], ties=True):  # (rows with the same keys are the same rows)
+        o = o.sort([*by, "_s", "_e"])
     s = o["_s"].to_numpy()
     e = o["_e"].to_numpy()
     if s.size == 0:
@@ -163,33 +224,68 @@ def _merged_intervals(r: pl.DataFrame, by: Sequence[str] = ("building_id",)) -> 
     )
 
 
+def _covered_days(
+    g: np.ndarray, s: np.ndarray, e: np.ndarray, qg: np.ndarray, qs: np.ndarray, qe: np.ndarray
+) -> np.ndarray:
+    """Days of each query ``[qs, qe]`` (day ordinals, inclusive) inside the intervals of its group ``qg``.
+
+    ``g, s, e``: disjoint intervals ``[s, e]`` sorted by group ``g`` (integers) and start. With
+    ``C(t)`` the days of the group's intervals up to day ``t`` (the running total of whole interval
+    lengths before the last interval starting on or before ``t``, plus that interval's days up to
+    ``t``), the answer is ``C(qe) − C(qs − 1)``: the sum over the intervals of
+    ``max(0, min(e, qe) − max(s, qs) + 1)``, in integers (exact), by one binary search per end.
+    """
+    out = np.zeros(qg.size, dtype=np.int64)
+    if s.size == 0 or qg.size == 0:
+        return out
+    lo, hi = int(s.min()), int(e.max())
+    stride = hi - lo + 3
+    key = g * stride + (s - lo + 1)
+    before = np.concatenate([[0], np.cumsum(e - s + 1)])  # days of the intervals before interval i
+    first = np.searchsorted(g, qg, side="left")  # the query group's first interval (or where it would be)
+
+    def upto(t: np.ndarray) -> np.ndarray:
+        t = np.clip(t, lo - 1, hi)
+        i = np.searchsorted(key, qg * stride + (t - lo + 1), side="right") - 1
+        mine = i >= first  # an interval of the group starts on or before t
+        ic = np.maximum(i, 0)
+        return np.where(mine, before[ic] + np.minimum(t, e[ic]) - s[ic] + 1, before[first])
+
+    out[:] = upto(qe) - upto(qs - 1)
+    return out
+
+
 def _union_coverage(
     r: pl.DataFrame, spans: pl.DataFrame, keys: Sequence[str], by: Sequence[str] = ("building_id",)
 ) -> pl.DataFrame:
     """Days of each span covered by at least one reading (overlaps counted once).
 
     ``r``: ``by, period_start, period_end``; ``spans``: ``keys`` (including ``by``, by default
-    building_id), ``span_start, span_end``. Returns ``keys, covered_days`` for every span row.
+    building_id; one row per keys), ``span_start, span_end``. Returns ``keys, covered_days`` for every
+    span row, in the spans' order.
 
-    The readings are first merged into disjoint intervals per ``by`` group (usually one or a few),
-    so the join with the spans has one row per span and interval, not per span and reading.
+    The readings are first merged into disjoint intervals per ``by`` group (usually one or a few);
+    each span's days are then counted from the running total of its group's interval lengths
+    (:func:`_covered_days`): no join of spans with intervals.
     """
-    keys = list(keys)
+    keys, by = list(keys), list(by)
     m = _merged_intervals(r, by)
-    j = (
-        spans.select(*keys, _ordinal("span_start").alias("_ss"), _ordinal("span_end").alias("_se"))
-        .join(m, on=list(by), how="inner")
-        .select(
-            *keys,
-            (pl.min_horizontal("_e", "_se") - pl.max_horizontal("_s", "_ss") + 1).clip(lower_bound=0).alias("_cov"),
-        )
+    sp = spans.select(*keys, _ordinal("span_start").alias("_ss"), _ordinal("span_end").alias("_se"))
+    if sp["_ss"].null_count() or sp["_se"].null_count():
+        raise ValueError("spans: span_start and span_end must not be null")
+    g = _group_rank(m, by)
+    starts = np.flatnonzero(np.r_[True, g[1:] != g[:-1]]) if g.size else np.zeros(0, dtype=np.int64)
+    firsts = m.select(by)[starts].with_columns(pl.Series("_g", g[starts]))  # each group's keys and rank
+    qg = sp.select(by).join(firsts, on=by, how="left", maintain_order="left")["_g"].fill_null(-1).to_numpy()
+    cov = _covered_days(
+        g,
+        m["_s"].to_numpy(),
+        m["_e"].to_numpy(),
+        qg,
+        sp["_ss"].to_numpy(),
+        sp["_se"].to_numpy(),
     )
-    cov = j.group_by(keys).agg(pl.col("_cov").sum().cast(pl.Int64).alias("covered_days"))
-    return (
-        spans.select(keys)
-        .join(cov, on=keys, how="left", nulls_equal=True)
-        .with_columns(pl.col("covered_days").fill_null(0))
-    )
+    return sp.select(keys).with_columns(pl.Series("covered_days", cov, dtype=pl.Int64))
 
 
 # --------------------------------------------------------------------------------------------
@@ -198,12 +294,20 @@ def _union_coverage(
 
 
 def _end_to_fill(
-    r: pl.DataFrame, ids: pl.Series, window_start: date, window_end: date, fill_end_days: int
-) -> pl.DataFrame:
-    """``building_id, filled_days``: buildings whose reads cover every day of the window up to
-    their last read, which ends 1 to ``fill_end_days`` days before ``window_end``."""
+    r: pl.DataFrame,
+    ids: pl.DataFrame,
+    window_start: date,
+    window_end: date,
+    fill_end_days: int,
+    merged: tuple[np.ndarray, np.ndarray, np.ndarray],
+) -> np.ndarray:
+    """Days to fill at the window's end [day] for each building of ``ids`` (``building_id, _i``, its
+    position), 0 for none: buildings whose reads cover every day of the window up to their last read,
+    which ends 1 to ``fill_end_days`` days before ``window_end``. ``merged``: the reads merged into
+    intervals, ``(_i, _s, _e)`` arrays as :func:`_covered_days` takes them."""
+    out = np.zeros(ids.height, dtype=np.int64)
     if fill_end_days <= 0:
-        return pl.DataFrame(schema={"building_id": pl.String, "filled_days": pl.Int64})
+        return out
     last = (
         r.filter(pl.col("period_start") <= window_end)
         .group_by("building_id")
@@ -213,16 +317,15 @@ def _end_to_fill(
             & (pl.col("span_end") < window_end)
             & (pl.col("span_end") >= window_end - timedelta(days=fill_end_days))
         )
-        .join(pl.DataFrame({"building_id": ids}), on="building_id", how="semi")
-        .with_columns(pl.lit(window_start).alias("span_start"))
+        .join(ids, on="building_id", how="inner")
     )
-    cov = _union_coverage(r, last, ["building_id"])
-    last = last.join(cov, on="building_id").filter(
-        pl.col("covered_days") == (_ordinal("span_end") - _ordinal("span_start")) + 1
-    )
-    return last.select(
-        "building_id", ((pl.lit(window_end) - pl.col("span_end")).dt.total_days()).cast(pl.Int64).alias("filled_days")
-    )
+    epoch = date(1970, 1, 1)
+    i = last["_i"].to_numpy().astype(np.int64)
+    end = last.select(_ordinal("span_end")).to_series().to_numpy()
+    start = np.full(i.size, (window_start - epoch).days, dtype=np.int64)
+    whole = _covered_days(*merged, i, start, end) == end - start + 1
+    out[i[whole]] = (window_end - epoch).days - end[whole]
+    return out
 
 
 def choose_spans(
@@ -306,47 +409,43 @@ def choose_spans(
                 cands.append((k, start, end))
                 k += 1
         end = date(end.year, end.month, 1) - timedelta(days=1)
-    cand = pl.DataFrame(cands, schema={"_cand": pl.Int64, "span_start": pl.Date, "span_end": pl.Date}, orient="row")
-    grid = pl.DataFrame({"building_id": ids}).join(cand, how="cross")
-    grid = grid.join(_union_coverage(r, grid, ["building_id", "_cand"]), on=["building_id", "_cand"])
-    grid = grid.with_columns(((_ordinal("span_end") - _ordinal("span_start")) + 1).alias("span_days")).with_columns(
-        (pl.col("covered_days") / pl.col("span_days")).alias("coverage")
+    # every building × candidate as (buildings, candidates) arrays: days covered (the merged reads'
+    # running totals, _covered_days), days to fill (the window only), coverage
+    epoch = date(1970, 1, 1)
+    c_start = np.array([(c[1] - epoch).days for c in cands], dtype=np.int64)
+    c_end = np.array([(c[2] - epoch).days for c in cands], dtype=np.int64)
+    n_b, n_c = ids.len(), len(cands)
+    pos = pl.DataFrame({"building_id": ids}).with_row_index("_i")
+    m = _merged_intervals(r).join(pos, on="building_id", how="inner", maintain_order="left")
+    merged = (m["_i"].to_numpy().astype(np.int64), m["_s"].to_numpy(), m["_e"].to_numpy())
+    bi = np.repeat(np.arange(n_b, dtype=np.int64), n_c)
+    covered = _covered_days(*merged, bi, np.tile(c_start, n_b), np.tile(c_end, n_b)).reshape(n_b, n_c)
+    span_days = c_end - c_start + 1
+    coverage = covered / span_days
+    filled = np.zeros((n_b, n_c), dtype=np.int64)
+    filled[:, 0] = _end_to_fill(r, pos, window_start, window_end, fill_end_days, merged)
+    # the first fully covered candidate, else the best covered (the first of equals); a coverage under
+    # min_coverage is the window, uncovered
+    full = covered + filled == span_days
+    rows = np.arange(n_b)
+    has_full = full.any(axis=1)
+    pick = np.where(has_full, np.argmax(full, axis=1), np.argmax(coverage, axis=1))
+    ok = coverage[rows, pick] >= min_coverage
+    kc = np.where(ok, pick, 0)
+    kind = np.where(ok, np.where(pick == 0, "window", "shifted"), "uncovered")
+    out = pl.DataFrame(
+        {
+            "building_id": ids,
+            "span_start": pl.Series(c_start[kc], dtype=pl.Int32).cast(pl.Date),
+            "span_end": pl.Series(c_end[kc], dtype=pl.Int32).cast(pl.Date),
+            "span_kind": pl.Series(kind, dtype=pl.String),
+            "coverage": coverage[rows, kc],
+            "span_days": span_days[kc],
+            "covered_days": covered[rows, kc],
+            "filled_days": np.where(ok & has_full, filled[rows, kc], 0),
+        }
     )
-    grid = grid.join(
-        _end_to_fill(r, ids, window_start, window_end, fill_end_days), on="building_id", how="left"
-    ).with_columns(
-        pl.when(pl.col("_cand") == 0).then(pl.col("filled_days").fill_null(0)).otherwise(0).alias("filled_days")
-    )
-
-    full = grid.filter(pl.col("covered_days") + pl.col("filled_days") == pl.col("span_days"))
-    pick_full = full.sort(["building_id", "_cand"]).group_by("building_id", maintain_order=True).first()
-    rest = grid.join(pick_full.select("building_id"), on="building_id", how="anti")
-    pick_best = (
-        rest.sort(["building_id", "coverage", "_cand"], descending=[False, True, False])
-        .group_by("building_id", maintain_order=True)
-        .first()
-    )
-    picked = pl.concat([pick_full, pick_best.with_columns(pl.lit(0, pl.Int64).alias("filled_days"))])
-    window_row = grid.filter(pl.col("_cand") == 0)
-    ok = pl.col("coverage") >= min_coverage
-    kind = (
-        pl.when(~ok)
-        .then(pl.lit("uncovered"))
-        .when(pl.col("_cand") == 0)
-        .then(pl.lit("window"))
-        .otherwise(pl.lit("shifted"))
-    )
-    picked = picked.with_columns(kind.alias("span_kind"))
-    unc = (
-        picked.filter(pl.col("span_kind") == "uncovered")
-        .select("building_id", "span_kind")
-        .join(
-            window_row.drop("span_kind", strict=False).with_columns(pl.lit(0, pl.Int64).alias("filled_days")),
-            on="building_id",
-        )
-    )
-    out = pl.concat([picked.filter(pl.col("span_kind") != "uncovered"), unc.select(picked.columns)], how="vertical")
-    return out.select(list(_SPAN_SCHEMA)).cast(_SPAN_SCHEMA).sort("building_id")
+    return sort_rows(out.select(list(_SPAN_SCHEMA)).cast(_SPAN_SCHEMA), ["building_id"])
 
 
 # --------------------------------------------------------------------------------------------
@@ -471,8 +570,8 @@ def calendarize(
         .alias("dd_prorated_share"),
     )
     keyed = agg.select("building_id", "fuel", "span_start", "span_end")
-    cov = _union_coverage(
-        r.select("building_id", "fuel", "period_start", "period_end"),
+    cov = _union_coverage(  # (the reads that overlap the span: the others add no day of it)
+        j.select("building_id", "fuel", "period_start", "period_end"),
         keyed,
         ["building_id", "fuel"],
         by=["building_id", "fuel"],
@@ -1038,21 +1137,44 @@ def fit_periods(
     r = _heat(readings)
     est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in r.columns else pl.lit(False)
     r = r.select("building_id", "period_start", "period_end", "energy_kbtu", est.alias("_est"))
-    p = (
-        r.join(sp, on="building_id", how="inner")
-        .filter((pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end")))
-        .group_by("building_id", "period_start", "period_end")
-        .agg(
-            pl.col("energy_kbtu").sum(),
-            pl.len().cast(pl.Int64).alias("n_reads"),
-            pl.col("_est").any().alias("any_estimated"),
-        )
-        .with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
+    keys = ["building_id", "period_start", "period_end"]
+    agg = (
+        pl.col("energy_kbtu").sum(),
+        pl.len().cast(pl.Int64).alias("n_reads"),
+        pl.col("_est").any().alias("any_estimated"),
     )
+    # (rows kept in the readings' order: converted readings are sorted, so the sort below finds its order)
+    f = r.join(sp, on="building_id", how="inner", maintain_order="left").filter(
+        (pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end"))
+    )
+    if f.height and strictly_sorted(f, keys, ties=True) and not f["energy_kbtu"].null_count():
+        # the reads of one period are neighbours: a period read once is its row; only the periods read
+        # more than once (several meters) are grouped, and the rows put back in the periods' order
+        change = np.zeros(f.height - 1, dtype=bool)
+        rid = f["building_id"].rle_id().to_numpy()
+        change |= rid[1:] != rid[:-1]
+        for c in ("period_start", "period_end"):
+            x = f[c].to_physical().to_numpy()
+            change |= x[1:] != x[:-1]
+        first = np.r_[True, change]
+        once = first & np.r_[change, True]
+        p = f.filter(pl.Series(once)).select(*keys, "energy_kbtu", pl.col("_est").alias("any_estimated"))
+        p = p.insert_column(4, pl.Series("n_reads", np.ones(p.height, dtype=np.int64)))  # (no sorted flag)
+        if not once.all():
+            again = f.filter(pl.Series(~once)).group_by(keys, maintain_order=True).agg(*agg)
+            at = np.cumsum(first) - 1  # each row's period number
+            place = np.r_[at[once], at[first & ~once]]
+            p = pl.concat([p, again]).gather(np.argsort(place, kind="stable"))
+    else:
+        p = f.group_by(keys, maintain_order=True).agg(*agg)
+    p = p.with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
     p = p.with_columns((pl.col("days") <= max_period_days).alias("usable"))
-    return p.select(
-        "building_id", "period_start", "period_end", "days", "energy_kbtu", "n_reads", "any_estimated", "usable"
-    ).sort(["building_id", "period_start", "period_end"])
+    return sort_rows(
+        p.select(
+            "building_id", "period_start", "period_end", "days", "energy_kbtu", "n_reads", "any_estimated", "usable"
+        ),
+        ["building_id", "period_start", "period_end"],
+    )
 
 
 #: elements per step of :func:`pad_periods`' scatter (4 MB of float64: the temporaries stay below the
@@ -1061,7 +1183,11 @@ _PAD_STEP = 1 << 19
 
 
 def pad_periods(
-    periods: pl.DataFrame, period_hdd: np.ndarray, building_ids: Sequence[str] | pl.Series
+    periods: pl.DataFrame,
+    period_hdd: PeriodHdd,
+    building_ids: Sequence[str] | pl.Series,
+    *,
+    out: np.ndarray | None = None,
 ) -> dict[str, np.ndarray]:
     """Pad flat periods into the (n_buildings, max_periods[, n_bases]) arrays of the fit.
 
@@ -1069,42 +1195,104 @@ def pad_periods(
     ----------
     periods : pl.DataFrame
         From :func:`fit_periods` (rows sorted by building_id, period_start).
-    period_hdd : np.ndarray, shape (len(periods), n_bases)
-        Heating degree days of each period at each base of the grid [°F·day] (totals, not per day).
+    period_hdd : np.ndarray, shape (len(periods), n_bases), or a callable returning its rows for an index array
+        Heating degree days of each period at each base of the grid [°F·day] (totals, not per day). A
+        callable is asked a step of rows at a time (≤ 4 MB), so the block's whole array never exists.
     building_ids : sequence of str
         Row order of the output (e.g. ``spans["building_id"]``); buildings without periods get
         all-invalid rows.
+    out : np.ndarray, optional
+        A float64 buffer for ``hdd_per_day`` (its first n_buildings × max_periods × n_bases elements, used
+        when it holds that many): a caller padding block after block reuses one buffer instead of
+        faulting in fresh memory each time. Default a new array.
 
     Returns
     -------
     dict
         ``use_per_day`` [kBtu/day], ``days`` [day], ``hdd_per_day`` [°F·day/day], ``valid`` (bool),
-        with ``valid`` = period present and ``usable``.
+        with ``valid`` = period present and ``usable``, ``hdd_finite`` (bool: the period's ``hdd_per_day``
+        all finite; true for empty slots).
     """
-    hdd = np.asarray(period_hdd, dtype=float)
-    if hdd.ndim != 2 or hdd.shape[0] != periods.height:
-        raise ValueError(f"period_hdd has shape {hdd.shape}; expected ({periods.height}, n_bases)")
+    if callable(period_hdd):
+        rows_of, hdd = period_hdd, None
+        n_k = int(np.shape(rows_of(np.zeros(0, dtype=np.int64)))[1])
+    else:
+        hdd = np.asarray(period_hdd, dtype=float)
+        if hdd.ndim != 2 or hdd.shape[0] != periods.height:
+            raise ValueError(f"period_hdd has shape {hdd.shape}; expected ({periods.height}, n_bases)")
+        n_k = hdd.shape[1]
     ids = pl.DataFrame({"building_id": pl.Series(list(building_ids), dtype=pl.String)}).with_row_index("_bi")
     p = periods.with_row_index("_row").join(ids, on="building_id", how="inner").sort("_row")
     p = p.with_columns(pl.int_range(pl.len()).over("_bi").alias("_pi"))
-    n_b, n_k = ids.height, hdd.shape[1]
-    n_p = max(cast(int, p["_pi"].max()) + 1 if p.height else 0, 1)
-    bi, pi, row = p["_bi"].to_numpy(), p["_pi"].to_numpy(), p["_row"].to_numpy()
+    return _pad(
+        p["_bi"].to_numpy(),
+        p["_pi"].to_numpy(),
+        p["_row"].to_numpy(),
+        p["days"].to_numpy(),
+        p["energy_kbtu"].to_numpy(),
+        p["usable"].to_numpy(),
+        rows_of if hdd is None else hdd,
+        ids.height,
+        n_k,
+        out,
+    )
+
+
+def _pad(
+    bi: np.ndarray,
+    pi: np.ndarray,
+    row: np.ndarray,
+    days_p: np.ndarray,
+    energy: np.ndarray,
+    usable: np.ndarray,
+    period_hdd: PeriodHdd,
+    n_b: int,
+    n_k: int,
+    out: np.ndarray | None,
+) -> dict[str, np.ndarray]:
+    """:func:`pad_periods` from arrays: period i goes to building row ``bi[i]``, period slot ``pi[i]``;
+    its degree days are row ``row[i]`` of ``period_hdd`` (an array, or a callable returning rows)."""
+    n_p = max(int(pi.max()) + 1 if pi.size else 0, 1)
     days = np.zeros((n_b, n_p))
     use = np.zeros((n_b, n_p))
-    x = np.zeros((n_b, n_p, n_k))
     valid = np.zeros((n_b, n_p), dtype=bool)
-    d = p["days"].to_numpy().astype(float)
+    d = days_p.astype(float)
     days[bi, pi] = d
-    use[bi, pi] = p["energy_kbtu"].to_numpy() / d
-    same = row.size == hdd.shape[0] and np.array_equal(row, np.arange(row.size))
-    flat, x2 = bi * n_p + pi, x.reshape(n_b * n_p, n_k)  # one row index: a plain row scatter
+    use[bi, pi] = energy / d
+    flat = bi * n_p + pi  # one row index: a plain row scatter
+    size = n_b * n_p * n_k
+    if out is not None and out.dtype == np.float64 and out.size >= size:
+        x = out.ravel()[:size].reshape(n_b, n_p, n_k)
+        empty = np.ones(n_b * n_p, dtype=bool)
+        empty[flat] = False
+        x.reshape(n_b * n_p, n_k)[empty] = 0.0  # the slots no period fills (the others are written below)
+    else:
+        x = np.zeros((n_b, n_p, n_k))
+    x2 = x.reshape(n_b * n_p, n_k)
+    hdd = None if callable(period_hdd) else period_hdd
+    same = hdd is not None and row.size == hdd.shape[0] and np.array_equal(row, np.arange(row.size))
     step = max(1, _PAD_STEP // max(n_k, 1))  # temporaries of ≤ 4 MB: reused memory, no page faults
+    fills = hdd is None and _fills_out(cast(Callable, period_hdd))
+    fin = np.ones(row.size, dtype=bool)
+    src_buf = np.empty((min(step, row.size), n_k)) if fills else None
     for a in range(0, row.size, step):  # steps only bound the temporaries; each row is one division
-        src = hdd[a : a + step] if same else hdd[row[a : a + step]]
-        x2[flat[a : a + step]] = src / d[a : a + step, None]
-    valid[bi, pi] = p["usable"].to_numpy()
-    return {"use_per_day": use, "days": days, "hdd_per_day": x, "valid": valid}
+        if hdd is None:
+            m = min(step, row.size - a)
+            f = cast(Callable, period_hdd)
+            src = f(row[a : a + step], out=src_buf[:m]) if src_buf is not None else f(row[a : a + step])
+            src = np.asarray(src, dtype=float)
+            if src.shape != (m, n_k):
+                raise ValueError(f"period_hdd returned shape {src.shape}; expected ({m}, {n_k})")
+            q = np.divide(src, d[a : a + step, None], out=src)
+        else:
+            src = hdd[a : a + step] if same else hdd[row[a : a + step]]
+            q = src / d[a : a + step, None]
+        x2[flat[a : a + step]] = q
+        fin[a : a + step] = np.isfinite(q).all(axis=1)  # (the step is in cache: the fit need not look again)
+    valid[bi, pi] = usable
+    finite = np.ones((n_b, n_p), dtype=bool)
+    finite[bi, pi] = fin
+    return {"use_per_day": use, "days": days, "hdd_per_day": x, "valid": valid, "hdd_finite": finite}
 
 
 # --------------------------------------------------------------------------------------------
@@ -1122,6 +1310,8 @@ def fit_variable_base(
     min_periods: int = 9,
     max_period_days: int = 62,
     chunk: int = 256,
+    x_finite: np.ndarray | None = None,
+    x_scratch: bool = False,
 ) -> dict[str, np.ndarray]:
     """Variable-base degree-day regression of bills (Fels 1986, PRISM), all buildings at once,
     with a baseload that is never negative.
@@ -1174,6 +1364,9 @@ def fit_variable_base(
         ≤ 62 days in the last 24 months, per the spec).
     chunk : buildings per block (memory bound; blocks, not buildings, are looped over; 256 keeps a
         block's (buildings × periods × bases) temporaries near 4 MB, in cache; results do not depend on it).
+    x_finite : (n_b, p) bool, optional: whether each period's ``hdd_per_day`` values are all finite, when the
+        caller knows it (:func:`pad_periods` returns it as ``hdd_finite``); default found here.
+    x_scratch : ``hdd_per_day`` may be overwritten (its unused periods set to 0): no copy of it is made.
 
     Returns
     -------
@@ -1201,7 +1394,16 @@ def fit_variable_base(
         )
     if grid.size > 1 and np.any(np.diff(grid) <= 0):
         raise ValueError("base_grid_f must be strictly increasing")
-    v = v & (n_days > 0) & (n_days <= max_period_days) & np.isfinite(y) & np.all(np.isfinite(x), axis=2)
+    # a period whose degree days are all finite: its sum over the bases is finite (a NaN or an infinity
+    # makes it NaN or infinite); only where the sum is not (or overflows) are the values looked at
+    if x_finite is not None and np.shape(x_finite) == y.shape:
+        x_ok = np.asarray(x_finite, dtype=bool)
+    else:
+        with np.errstate(over="ignore", invalid="ignore"):
+            x_ok = np.isfinite(x.sum(axis=2))
+        if not x_ok.all():
+            x_ok[~x_ok] = np.isfinite(x[~x_ok]).all(axis=1)
+    v = v & (n_days > 0) & (n_days <= max_period_days) & np.isfinite(y) & x_ok
     w = np.where(v, n_days, 0.0)
     y0 = np.where(v, y, 0.0)
     n = v.sum(axis=1)
@@ -1214,10 +1416,18 @@ def fit_variable_base(
     n_b, n_k = y.shape[0], grid.size
     best = np.full(n_b, -1, dtype=np.int64)
     origin = np.zeros(n_b, dtype=bool)
+    # (the two (chunk × periods × bases) temporaries in two buffers, reused from chunk to chunk)
+    xs_buf = None if x_scratch else np.empty((min(chunk, n_b),) + x.shape[1:])
+    wx_buf = np.empty((min(chunk, n_b),) + x.shape[1:])
     for a in range(0, n_b, chunk):
         sl = slice(a, a + chunk)
-        xs = np.where(v[sl, :, None], x[sl], 0.0)
-        wx = w[sl, :, None] * xs
+        if xs_buf is None:  # (x_scratch)
+            xs = x[sl]
+        else:
+            xs = xs_buf[: x[sl].shape[0]]
+            np.copyto(xs, x[sl])
+        xs[~v[sl]] = 0.0  # the periods not used count as zero
+        wx = np.multiply(w[sl, :, None], xs, out=wx_buf[: xs.shape[0]])
         sx = wx.sum(axis=1)  # (c, k)
         sxx = np.einsum("cpk,cpk->ck", wx, xs)
         sxy = np.einsum("cpk,cp->ck", wx, yc[sl])  # y centred: Σw(x)(y−ȳ) = Σw(x−x̄)(y−ȳ)
@@ -1335,14 +1545,25 @@ def _fit_in_blocks(
     pos = pl.DataFrame({"building_id": ids, "_k": np.arange(ids.len(), dtype=np.int64)}).unique(
         "building_id", keep="first", maintain_order=True
     )
-    blk = (
-        periods.select("building_id")
+    # (looked up once per run of a building's rows: periods come grouped by building)
+    rid = periods["building_id"].rle_id().to_numpy()
+    runs = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]]) if rid.size else np.zeros(0, dtype=np.int64)
+    run_pos = (
+        periods.select("building_id")[runs]
         .join(pos, on="building_id", how="left", maintain_order="left")["_k"]
         .fill_null(-1)
         .to_numpy()
-        // block
     )
+    blk_pos = run_pos[rid]
+    blk = blk_pos // block
     order = np.argsort(blk, kind="stable")
+    # one buffer for every block's padded degree days, sized for the fullest block (fresh memory for
+    # each block would be faulted in page by page)
+    per_building = np.bincount(blk_pos[blk_pos >= 0], minlength=1) if blk_pos.size else np.zeros(1, np.int64)
+    n_k = np.asarray(grid).size
+    days_all, energy_all = periods["days"].to_numpy(), periods["energy_kbtu"].to_numpy()
+    usable_all = periods["usable"].to_numpy()
+    buf = np.empty(min(block, max(ids.len(), 1)) * max(int(per_building.max()), 1) * n_k)
     parts: list[dict[str, np.ndarray]] = []
     for start in range(0, max(ids.len(), 1), block):
         bid = ids.slice(start, block)
@@ -1350,10 +1571,35 @@ def _fit_in_blocks(
         pick = order[
             np.searchsorted(blk, k, side="left", sorter=order) : np.searchsorted(blk, k, side="right", sorter=order)
         ]
-        hdd = period_hdd(pick) if callable(period_hdd) else np.asarray(period_hdd)[pick]
-        arr = pad_periods(periods[pick], hdd, bid)
+        if callable(period_hdd) and _fills_out(period_hdd):  # asked a step of rows at a time inside _pad
+            hdd: PeriodHdd = lambda rows, out=None, _pick=pick: period_hdd(_pick[rows], out=out)  # noqa: E731
+        elif callable(period_hdd):
+            hdd = lambda rows, _pick=pick: period_hdd(_pick[rows])  # noqa: E731
+        else:
+            hdd = np.asarray(period_hdd)[pick]
+        # each period's building row in the block and its slot (its rank among the building's periods in
+        # row order), as pad_periods finds them, from the positions above
+        bi = blk_pos[pick] - start
+        by_b = np.argsort(bi, kind="stable")
+        sb = bi[by_b]
+        run = np.flatnonzero(np.r_[True, sb[1:] != sb[:-1]]) if sb.size else np.zeros(0, dtype=np.int64)
+        pi = np.empty_like(bi)
+        pi[by_b] = np.arange(sb.size) - np.repeat(run, np.diff(np.r_[run, sb.size]))
+        arr = _pad(
+            bi, pi, np.arange(pick.size), days_all[pick], energy_all[pick], usable_all[pick], hdd, bid.len(), n_k, buf
+        )
+        x = arr["hdd_per_day"]  # (the buffer: the fit may zero its unused periods in place)
         parts.append(
-            fit_variable_base(arr["use_per_day"], arr["days"], arr["hdd_per_day"], grid, arr["valid"], **fit_kw)
+            fit_variable_base(
+                arr["use_per_day"],
+                arr["days"],
+                x,
+                grid,
+                arr["valid"],
+                x_finite=arr["hdd_finite"],
+                x_scratch=True,
+                **fit_kw,
+            )
         )
     return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
 

@@ -328,8 +328,8 @@ class _PeriodHdd:
         )
         self.n = periods.height
 
-    def __call__(self, rows: np.ndarray) -> np.ndarray:
-        return self.cube.range_rows(self.fa[rows], self.fb[rows])
+    def __call__(self, rows: np.ndarray, out: np.ndarray | None = None) -> np.ndarray:
+        return self.cube.range_rows(self.fa[rows], self.fb[rows], out=out)
 
     def missing(self) -> np.ndarray:
         return self.cube.range_missing(self.fa, self.fb, self.days)

@@ -35,6 +35,7 @@ from typing import TYPE_CHECKING
 import polars as pl
 
 from . import refdata, schema
+from .metered import sort_rows
 from .schema import REJECT_SCHEMA
 
 if TYPE_CHECKING:
@@ -182,26 +183,50 @@ def convert_to_kbtu(
         [pl.DataFrame({"fuel": list(FUELS), "dimension": ["energy"] * len(FUELS)}), hc.select("fuel", "dimension")]
     )
     allowed = fuel_dims.join(units, on="dimension", how="inner")  # fuel, dimension, key, unit, factor
-
-    r = r.with_columns(
-        pl.col("unit").cast(pl.String).str.strip_chars().str.to_lowercase().alias("_key"),
-        pl.col("fuel").cast(pl.String).str.strip_chars().alias("fuel"),
-    )
-    r = r.join(allowed.rename({"unit": "_unit"}), left_on=["fuel", "_key"], right_on=["fuel", "key"], how="left")
-    r = r.join(b, on="building_id", how="left")
-    r = r.join(
-        hc.select("fuel", "dimension", pl.col("btu_per_base").alias("_default_hc")),
-        on=["fuel", "dimension"],
-        how="left",
-    )
-
     known_units = sorted(set(units["key"].to_list()))
     accepted = (
         allowed.filter(pl.col("dimension") != "energy")
         .group_by("fuel")
         .agg(pl.col("unit").unique().sort().str.join(", ").alias("_phys"))
     )
-    r = r.join(accepted, on="fuel", how="left")
+    # what depends on the fuel and unit alone is worked out once per distinct (fuel, unit) pair of the
+    # readings (a handful), then joined to the rows: the unit's key, dimension, canonical name and
+    # factor, the fuel's default heat content and physical units, and the three checks on them
+    pairs = (
+        r.select(pl.col("fuel").cast(pl.String).alias("_fuel_in"), pl.col("unit").cast(pl.String).alias("_unit_in"))
+        .unique()
+        .with_columns(
+            pl.col("_unit_in").str.strip_chars().str.to_lowercase().alias("_key"),
+            pl.col("_fuel_in").str.strip_chars().alias("_fuel"),
+        )
+        .join(allowed.rename({"unit": "_unit"}), left_on=["_fuel", "_key"], right_on=["fuel", "key"], how="left")
+        .join(
+            hc.select("fuel", "dimension", pl.col("btu_per_base").alias("_default_hc")),
+            left_on=["_fuel", "dimension"],
+            right_on=["fuel", "dimension"],
+            how="left",
+        )
+        .join(accepted, left_on="_fuel", right_on="fuel", how="left")
+        .with_columns(
+            (~pl.col("_fuel").is_in(list(FUELS)) | pl.col("_fuel").is_null()).alias("_bad_fuel"),
+            (~pl.col("_key").is_in(known_units) | pl.col("_key").is_null()).alias("_bad_key"),
+            pl.col("_unit").is_null().alias("_bad_unit"),
+        )
+    )
+    r = (
+        r.join(
+            pairs,
+            left_on=[pl.col("fuel").cast(pl.String), pl.col("unit").cast(pl.String)],
+            right_on=["_fuel_in", "_unit_in"],
+            how="left",
+            nulls_equal=True,
+            maintain_order="left",
+        )
+        .with_columns(pl.col("_fuel").alias("fuel"))
+        .drop("_fuel")
+        .join(b, on="building_id", how="left", maintain_order="left")
+    )
+
     # (condition, reject) in order of precedence: the first condition that holds names the reason
     checks = [
         (
@@ -213,7 +238,7 @@ def convert_to_kbtu(
             ),
         ),
         (
-            ~pl.col("fuel").is_in(list(FUELS)) | pl.col("fuel").is_null(),
+            pl.col("_bad_fuel"),
             pl.struct(
                 column=pl.lit("fuel"),
                 value=pl.col("fuel"),
@@ -221,11 +246,11 @@ def convert_to_kbtu(
             ),
         ),
         (
-            ~pl.col("_key").is_in(known_units) | pl.col("_key").is_null(),
+            pl.col("_bad_key"),
             pl.struct(column=pl.lit("unit"), value=pl.col("unit").cast(pl.String), reason=pl.lit("unknown unit")),
         ),
         (
-            pl.col("_unit").is_null(),
+            pl.col("_bad_unit"),
             pl.struct(
                 column=pl.lit("unit"),
                 value=pl.col("unit").cast(pl.String),
@@ -302,9 +327,10 @@ def convert_to_kbtu(
         pl.col("_unit").alias("unit"),
     )
     drop = ["_key", "_unit", "dimension", "factor", "heating_fuel", "_bld_hc", "_default_hc", "_phys", "_reject"]
-    ok = ok.drop([c for c in drop if c in ok.columns]).sort(
-        ["building_id", "fuel", "period_start", "period_end", "_line"]
-    )
+    drop += ["_fuel_in", "_unit_in", "_bad_fuel", "_bad_key", "_bad_unit"]
+    ok = ok.drop([c for c in drop if c in ok.columns])
+    order = ["building_id", "fuel", "period_start", "period_end", "_line"]
+    ok = sort_rows(ok, order)  # (readings pulled from the store a chunk at a time come in this order already)
     return ok, rejects
 
 

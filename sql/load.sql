@@ -68,9 +68,12 @@ SELECT * EXCLUDE (source_file, source_line), source_line AS _line, source_file A
 ORDER BY building_id, fuel, meter_id, period_start, source_file, source_line;
 
 -- name: select_readings_of_buildings
-SELECT * EXCLUDE (source_file, source_line), source_line AS _line, source_file AS _file FROM readings
-WHERE building_id IN (SELECT unnest($ids::VARCHAR[]))
-ORDER BY building_id, fuel, meter_id, period_start, source_file, source_line;
+-- The readings of the building ids from $lo to $hi (a chunk's first and last; the caller keeps its own
+-- ids of them), in the table's order: DuckDB keeps the insertion order, a file's order, so a file
+-- sorted by building reads only the blocks of the chunk, and no sort (units.convert_to_kbtu sorts,
+-- unless the rows come in its order already).
+SELECT * EXCLUDE (source_file, source_line), source_line AS _line FROM readings
+WHERE building_id BETWEEN $lo AND $hi;
 
 -- name: select_readings_of_other_buildings
 SELECT * EXCLUDE (source_file, source_line), source_line AS _line, source_file AS _file FROM readings

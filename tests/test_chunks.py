@@ -185,3 +185,45 @@ def test_assumptions_csv_written_in_pieces_has_the_bytes_of_the_whole_table(tmp_
     outputs.write_assumptions_csv(res.envelope, disp, tmp_path / "pieces.csv", rows=7)  # 29 pieces
     whole = (tmp_path / "whole.csv").read_bytes()
     assert whole.count(b"\n") > 200 * 10 and (tmp_path / "pieces.csv").read_bytes() == whole
+
+
+def test_store_readings_of_a_chunk_leave_out_the_buildings_between_its_ids(tmp_path):
+    """A chunk's readings come from the store by the range of its ids; the rows of other buildings whose ids
+    fall in that range (unknown buildings, or another chunk's) are left out, in any table order."""
+    from datetime import date
+
+    from screening.runs import inputs
+    from screening.store import Store
+
+    ids = ["B2", "B1", "B10", "B3", "B20", "B1"]  # B10 and B20 lie between B1 and B3 as text
+    stage = pl.DataFrame(
+        {
+            "building_id": ids,
+            "fuel": "natural_gas",
+            "meter_id": None,
+            "period_start": [date(2025, 1, 1 + k) for k in range(len(ids))],
+            "period_end": [date(2025, 1, 2 + k) for k in range(len(ids))],
+            "quantity": [float(k) for k in range(len(ids))],
+            "unit": "therm",
+            "estimated": False,
+            "cost": None,
+            "_line": list(range(2, 2 + len(ids))),
+        },
+        schema_overrides={"meter_id": pl.String, "cost": pl.Float64},
+    )
+    db = tmp_path / "s.duckdb"
+    with Store(db) as st:
+        st.execute("insert_readings", {"path": "readings.csv"}, stage_readings=stage)
+    src = inputs.StoreReadings(str(db))
+    try:
+        got = src(pl.Series("building_id", ["B1", "B2", "B3"]))
+        assert sorted(got["building_id"].to_list()) == ["B1", "B1", "B2", "B3"]
+        assert sorted(got["_line"].to_list()) == [2, 3, 5, 7]
+        assert "_file" not in got.columns
+        assert src(pl.Series("building_id", [], dtype=pl.String)).height == 0
+        assert sorted(src.others(pl.Series("building_id", ["B1", "B2", "B3"]))["building_id"].to_list()) == [
+            "B10",
+            "B20",
+        ]
+    finally:
+        src.close()

@@ -804,8 +804,15 @@ def test_flat_range_queries_equal_period_totals():
     try:
         ddmod._ROWS_STEP = 7 * bases.size  # 7 rows a step: the steps only bound the temporaries
         np.testing.assert_array_equal(cube.range_rows(fa, fb), dd)
+        buf = np.full((fa.size, bases.size), np.nan)  # a caller's buffer, filled and returned
+        assert cube.range_rows(fa, fb, out=buf) is buf
+        np.testing.assert_array_equal(buf, dd)
     finally:
         ddmod._ROWS_STEP = old
+    with pytest.raises(ValueError):
+        cube.range_rows(fa, fb, out=np.empty((fa.size, 3)))
+    with pytest.raises(IndexError):
+        cube.range_rows(fa, fb + cube.cum_hdd.shape[1])
 
 
 def test_at_base_padded_fast_path_equals_masked_path(monkeypatch):

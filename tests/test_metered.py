@@ -759,3 +759,148 @@ def test_prev_run_max_equals_the_polars_window(by):
     want = with_nulls.select(pl.col("period_end").cum_max().shift(1).over(by)).to_series()
     assert M._prev_run_max(with_nulls, by, "period_end").equals(want)
     assert M._prev_run_max(df.head(0), by, "period_end").len() == 0
+
+
+def _bits(a) -> np.ndarray:
+    a = np.asarray(a)
+    return a.view(np.int64) if a.dtype == np.float64 else a
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2, 3])
+def test_sort_rows_is_the_sort_with_its_flags(seed):
+    """sort_rows gives df.sort(keys) with the same flags and one chunk, sorting only when the rows are out
+    of order; strictly_sorted agrees with its definition (text, date and integer keys, ties, nulls)."""
+    rng = np.random.default_rng(seed)
+    for _ in range(60):
+        n = int(rng.integers(0, 30))
+        df = pl.DataFrame(
+            {
+                "building_id": rng.choice(["B1", "B10", "B2", "b1", "A"], n).tolist(),
+                "d": [date(2024, 1, 1) + timedelta(days=int(k)) for k in rng.integers(0, 4, n)],
+                "line": rng.permutation(n),
+            }
+        )
+        if rng.random() < 0.15 and n:
+            df = df.with_columns(pl.when(pl.int_range(pl.len()) == 0).then(None).otherwise(pl.col("d")).alias("d"))
+        if rng.random() < 0.6:
+            df = df.sort(["building_id", "d", "line"])
+        keys = ["building_id", "d", "line"]
+        want_sorted = n < 2 or (
+            df.null_count().sum_horizontal()[0] == 0 and df.equals(df.sort(keys, maintain_order=True))
+        )
+        assert M.strictly_sorted(df, keys) == want_sorted  # (line is unique: no ties)
+        ties = ["building_id", "d"]
+        in_order = n < 2 or (
+            df.select(ties).null_count().sum_horizontal()[0] == 0
+            and df.select(ties).equals(df.select(ties).sort(ties, maintain_order=True))
+        )
+        assert M.strictly_sorted(df, ties, ties=True) == in_order
+        got, ref = M.sort_rows(df, keys), df.sort(keys)
+        assert got.equals(ref)
+        assert [got[c].flags for c in got.columns] == [ref[c].flags for c in ref.columns]
+        assert got.n_chunks() == 1
+
+
+def test_covered_days_by_hand():
+    """_covered_days counts each query's days inside its group's intervals, as a loop over the days does."""
+    rng = np.random.default_rng(7)
+    g, s, e = [], [], []
+    for grp in range(6):
+        t = int(rng.integers(-5, 5))
+        for _ in range(int(rng.integers(0, 5))):
+            t += int(rng.integers(2, 9))
+            a = t
+            t += int(rng.integers(0, 6))
+            g.append(grp), s.append(a), e.append(t)
+    g, s, e = np.array(g, dtype=np.int64), np.array(s, dtype=np.int64), np.array(e, dtype=np.int64)
+    qg = rng.integers(-1, 7, 300)
+    qs = rng.integers(-20, 60, 300)
+    qe = qs + rng.integers(0, 40, 300)
+    got = M._covered_days(g, s, e, qg, qs, qe)
+    for i in range(qg.size):
+        days = {d for gg, a, b in zip(g, s, e) if gg == qg[i] for d in range(a, b + 1)}
+        assert got[i] == len(days & set(range(qs[i], qe[i] + 1))), i
+
+
+def test_fit_periods_groups_several_meters_in_order():
+    """Reads of one period by several meters are summed (as a group-by sums them), periods read once
+    keep their row, and the result is in period order, sorted or not on the way in."""
+    rows = [
+        ("A", date(2024, 1, 1), date(2024, 1, 31), 10.0, False),
+        ("A", date(2024, 2, 1), date(2024, 2, 29), 1.5, True),
+        ("A", date(2024, 2, 1), date(2024, 2, 29), 2.25, False),
+        ("A", date(2024, 2, 1), date(2024, 2, 29), 0.125, False),
+        ("A", date(2024, 3, 1), date(2024, 3, 31), 7.0, False),
+        ("B", date(2024, 1, 1), date(2024, 1, 31), 3.0, False),
+        ("B", date(2024, 1, 1), date(2024, 1, 31), 4.0, False),
+        ("B", date(2024, 2, 1), date(2024, 2, 29), 5.0, True),
+    ]
+    r = pl.DataFrame(
+        rows, schema=["building_id", "period_start", "period_end", "energy_kbtu", "estimated"], orient="row"
+    )
+    r = r.with_columns(pl.lit(True).alias("is_heating_fuel"))
+    spans = pl.DataFrame({"building_id": ["A", "B"], "span_end": [date(2024, 12, 31)] * 2})
+    want = (
+        r.group_by("building_id", "period_start", "period_end")
+        .agg(pl.col("energy_kbtu").sum(), pl.len().cast(pl.Int64).alias("n_reads"), pl.col("estimated").any())
+        .sort("building_id", "period_start")
+    )
+    for frame in (r, r.reverse()):
+        got = M.fit_periods(frame, spans)
+        assert got["n_reads"].to_list() == want["n_reads"].to_list() == [1, 3, 1, 2, 1]
+        assert got["energy_kbtu"].to_list() == want["energy_kbtu"].to_list()
+        assert got["any_estimated"].to_list() == want["estimated"].to_list()
+        assert got.select("building_id", "period_start").equals(want.select("building_id", "period_start"))
+
+
+def test_pad_periods_from_a_callable_and_a_buffer():
+    """pad_periods gives the same arrays from the degree-day array, from a callable returning its rows, and
+    from one filling a buffer, into a fresh array or a reused (dirty) buffer; hdd_finite marks NaN rows, and
+    fit_variable_base with x_finite and x_scratch gives the same bits as without."""
+    rng = np.random.default_rng(9)
+    n = 90
+    ids = [f"B{i}" for i in sorted(rng.integers(0, 12, n))]
+    s = [date(2024, 1, 1) + timedelta(days=int(k)) for k in range(n)]
+    periods = pl.DataFrame(
+        {
+            "building_id": ids,
+            "period_start": s,
+            "period_end": s,
+            "days": rng.integers(20, 40, n),
+            "energy_kbtu": rng.uniform(1, 100, n),
+            "usable": rng.random(n) < 0.85,
+        }
+    )
+    hdd = rng.uniform(0, 900, (n, GRID.size))
+    hdd[5, 3] = np.nan
+    order = sorted(set(ids)) + ["Bx"]
+    ref = M.pad_periods(periods, hdd, order)
+
+    def rows(i, out=None):
+        got = hdd[i]
+        if out is None:
+            return got
+        out[:] = got
+        return out
+
+    dirty = np.full(len(order) * 40 * GRID.size, 7.0)
+    for src, buf in ((lambda i: hdd[i], None), (rows, None), (rows, dirty), (hdd, dirty)):
+        got = M.pad_periods(periods, src, order, out=buf)
+        for k in ref:
+            np.testing.assert_array_equal(got[k], ref[k])
+    assert not ref["hdd_finite"][order.index(ids[5]), list(np.array(ids)[:5]).count(ids[5])]
+    assert ref["hdd_finite"].sum() == ref["hdd_finite"].size - 1
+    fit = M.fit_variable_base(ref["use_per_day"], ref["days"], ref["hdd_per_day"], GRID, ref["valid"], min_periods=3)
+    x = ref["hdd_per_day"].copy()
+    fast = M.fit_variable_base(
+        ref["use_per_day"],
+        ref["days"],
+        x,
+        GRID,
+        ref["valid"],
+        min_periods=3,
+        x_finite=ref["hdd_finite"],
+        x_scratch=True,
+    )
+    for k, v in fit.items():
+        np.testing.assert_array_equal(_bits(fast[k]), _bits(v), err_msg=k)

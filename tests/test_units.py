@@ -188,3 +188,32 @@ def test_billed_units_name_the_bills_unit_and_its_energy():
     assert out["B"]["billed_unit"] == "ccf" and out["B"]["kbtu_per_billed_unit"] == pytest.approx(103.6)
     assert out["C"]["billed_unit"] == "kWh" and out["C"]["kbtu_per_billed_unit"] == pytest.approx(3.412141633)
     assert billed_units(conv.head(0)).height == 0
+
+
+def test_rows_in_order_or_not_convert_the_same():
+    """Readings in their sorted order (as the store hands a chunk over: no sort) and shuffled give the same
+    frames, the same flags and one chunk; unit spellings, padded fuels and rejects are worked out per pair."""
+    rows = [
+        ("g", "natural_gas", 10.0, "ccf"),
+        ("g", " natural_gas", 12.0, " CCF"),
+        ("g", "natural_gas", 3.0, "therm"),
+        ("o", "fuel_oil", 100.0, "gal"),
+        ("o", "fuel_oil", 5.0, "ccf"),  # not a unit of oil
+        ("s", "district_steam", 2.0, "Mlb"),
+        ("e", "electricity", 900.0, "kWh"),
+        ("x", "electricity", 1.0, "kWh"),  # unknown building
+        ("e", "coal", 1.0, "kWh"),  # unknown fuel
+        ("e", "electricity", None, "kWh"),
+    ]
+    r = _readings(rows).with_columns(
+        pl.Series("period_start", [date(2025, 1 + k % 3, 1) for k in range(len(rows))]),
+        pl.Series("period_end", [date(2025, 1 + k % 3, 28) for k in range(len(rows))]),
+    )
+    a_ok, a_rej = convert_to_kbtu(r.sample(fraction=1.0, shuffle=True, seed=3), BLD)
+    b_ok, b_rej = convert_to_kbtu(r.sort("building_id", "fuel", "period_start", "period_end", "_line"), BLD)
+    assert a_ok.equals(b_ok) and a_rej.equals(b_rej)
+    assert [a_ok[c].flags for c in a_ok.columns] == [b_ok[c].flags for c in b_ok.columns]
+    assert b_ok.n_chunks() == 1
+    assert sorted(a_rej["reason"].to_list())[0].startswith("missing quantity")
+    assert a_rej.height == 4 and a_ok.height == 6
+    assert set(a_ok["unit"].to_list()) == {"ccf", "therm", "gal", "Mlb", "kWh"}
