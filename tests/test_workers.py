@@ -70,13 +70,9 @@ def test_run_with_two_workers_writes_the_tables_of_one_process(tmp_path, monkeyp
     assert pl.read_csv(outs[2] / "ranking.csv").height == 200
 
 
-def test_a_failure_after_the_results_were_stored_keeps_none_of_them(tmp_path, monkeypatch):
-    """The results are stored while ranking.pdf renders, provisionally until the files about to be published
-    are recorded: a failure in between removes them."""
-    import duckdb
-
-    from screening import published, runner
-    from screening.errors import OutputError
+def _first_run(tmp_path):
+    """The demo portfolio screened once into ``tmp_path/out1`` (no sheets): its database and overrides."""
+    from screening import runner
 
     src = sample_portfolio_dir()
     db = tmp_path / "db.duckdb"
@@ -87,6 +83,18 @@ def test_a_failure_after_the_results_were_stored_keeps_none_of_them(tmp_path, mo
         "output": {"sheets": False},
     }
     runner.run(overrides=ov, out_dir=str(tmp_path / "out1"))
+    return db, ov
+
+
+def test_a_failure_after_the_results_were_stored_keeps_none_of_them(tmp_path, monkeypatch):
+    """The results are stored while ranking.pdf renders, provisionally until the files about to be published
+    are recorded: a failure in between removes them."""
+    import duckdb
+
+    from screening import published, runner
+    from screening.errors import OutputError
+
+    db, ov = _first_run(tmp_path)
 
     def broken(folder):
         raise OSError(28, "No space left on device")
@@ -114,19 +122,11 @@ def test_a_run_that_died_after_storing_its_results_loses_them_when_settled(tmp_p
 
     import duckdb
 
-    from screening import published, runner
+    from screening import published
     from screening.runs import record
     from screening.store import Store
 
-    src = sample_portfolio_dir()
-    db = tmp_path / "db.duckdb"
-    ov = {
-        "inputs": {k: str(src / f"{k}.csv") for k in ("buildings", "readings", "weather")},
-        "store": {"database": str(db)},
-        "analysis": {"as_of": "2026-10-15"},
-        "output": {"sheets": False},
-    }
-    runner.run(overrides=ov, out_dir=str(tmp_path / "out1"))
+    db, ov = _first_run(tmp_path)
     store = Store(db)
     window = (dt.date(2025, 10, 1), dt.date(2026, 9, 30))
     record.insert_run(store, "dead-1", "dead", "2026Q3", dt.date(2026, 10, 15), window, tmp_path / "out2", "h")
