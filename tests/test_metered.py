@@ -697,12 +697,11 @@ def test_fit_block_size_does_not_change_a_bit():
                 np.testing.assert_array_equal(a, v, err_msg=f"{chunk} {k}")
 
 
-def test_pad_periods_steps_and_row_order(monkeypatch):
-    """pad_periods puts each period at its building's row and period slot, divided by its days, the
-    same in small steps as in one, for rows in order and for a subset of them (by hand)."""
-    rng = np.random.default_rng(4)
-    n = 60
-    ids = [f"B{i}" for i in sorted(rng.integers(0, 9, n))]
+def _random_periods(seed: int, *, buildings: int, n: int, usable: float):
+    """``n`` one-day periods of up to ``buildings`` buildings in id order, random days, energy and usable
+    flags, and random degree days on the base grid: (the generator, n, the ids, the periods, the degree days)."""
+    rng = np.random.default_rng(seed)
+    ids = [f"B{i}" for i in sorted(rng.integers(0, buildings, n))]
     s = [date(2024, 1, 1) + timedelta(days=int(k)) for k in range(n)]
     periods = pl.DataFrame(
         {
@@ -711,10 +710,17 @@ def test_pad_periods_steps_and_row_order(monkeypatch):
             "period_end": s,
             "days": rng.integers(20, 40, n),
             "energy_kbtu": rng.uniform(1, 100, n),
-            "usable": rng.random(n) < 0.8,
+            "usable": rng.random(n) < usable,
         }
     )
     hdd = rng.uniform(0, 900, (n, GRID.size))
+    return rng, n, ids, periods, hdd
+
+
+def test_pad_periods_steps_and_row_order(monkeypatch):
+    """pad_periods puts each period at its building's row and period slot, divided by its days, the
+    same in small steps as in one, for rows in order and for a subset of them (by hand)."""
+    rng, n, ids, periods, hdd = _random_periods(4, buildings=9, n=60, usable=0.8)
     order = ["B8", "B0", "B3", "Bx", "B1", "B2", "B4", "B5", "B6", "B7"]
     ref = M.pad_periods(periods, hdd, order)
     monkeypatch.setattr(M, "_PAD_STEP", 3 * GRID.size)
@@ -857,21 +863,7 @@ def test_pad_periods_from_a_callable_and_a_buffer():
     """pad_periods gives the same arrays from the degree-day array, from a callable returning its rows, and
     from one filling a buffer, into a fresh array or a reused (dirty) buffer; hdd_finite marks NaN rows, and
     fit_variable_base with x_finite and x_scratch gives the same bits as without."""
-    rng = np.random.default_rng(9)
-    n = 90
-    ids = [f"B{i}" for i in sorted(rng.integers(0, 12, n))]
-    s = [date(2024, 1, 1) + timedelta(days=int(k)) for k in range(n)]
-    periods = pl.DataFrame(
-        {
-            "building_id": ids,
-            "period_start": s,
-            "period_end": s,
-            "days": rng.integers(20, 40, n),
-            "energy_kbtu": rng.uniform(1, 100, n),
-            "usable": rng.random(n) < 0.85,
-        }
-    )
-    hdd = rng.uniform(0, 900, (n, GRID.size))
+    rng, n, ids, periods, hdd = _random_periods(9, buildings=12, n=90, usable=0.85)
     hdd[5, 3] = np.nan
     order = sorted(set(ids)) + ["Bx"]
     ref = M.pad_periods(periods, hdd, order)
