@@ -23,7 +23,7 @@ import polars as pl
 
 from . import degree_days as ddm
 from . import envelope as env
-from . import config, data_issues, metered, refdata, screen, streaming, units, wording, yoy
+from . import config, data_issues, metered, published, refdata, screen, streaming, units, wording, yoy
 
 # the old names, re-exported for callers that read them here (outputs.py)
 from .data_issues import DATA_ISSUE_CODES, ISSUE_TEXT, NO_BASIS_CODES, PIPELINE_ISSUE_CODES  # noqa: F401
@@ -63,14 +63,6 @@ def _identity(st: os.stat_result) -> tuple[int, ...]:
     return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns, st.st_ctime_ns)
 
 
-def _hash_file(src: str) -> str:
-    h = hashlib.sha256()
-    with open(src, "rb") as f:
-        for chunk in iter(lambda: f.read(1 << 20), b""):
-            h.update(chunk)
-    return h.hexdigest()
-
-
 def file_sha256(path: str | Path) -> str:
     """The SHA-256 of a file's bytes (a workbook's for ``book.xlsx#Sheet``), hex.
 
@@ -86,7 +78,7 @@ def file_sha256(path: str | Path) -> str:
         known = _DIGESTS.get(src)
         if known is not None and known[0] == before:
             return known[1]
-        digest = _hash_file(src)
+        digest = published.file_sha256(Path(src))  # the bytes, as an output folder's files are hashed
         if max(before[3], before[4]) < start - RACY_NS and _identity(os.stat(src)) == before:
             _DIGESTS.pop(src, None)
             _DIGESTS[src] = (before, digest)

@@ -136,14 +136,23 @@ class Store:
     def execute(self, name: str, params: dict | None = None, **frames: pl.DataFrame) -> list[tuple]:
         """Run the named statement with bound ``params`` and return all its rows.
 
-        ``frames`` are registered under their keyword names for the statement's duration.
+        ``frames`` are registered under their keyword names for the statement's duration. A statement
+        reading one frame and no parameters (an insert of a staged frame) scans it as a relation of this
+        connection under that name instead: DuckDB kept what it inserted from a registered frame in memory
+        until the end of the transaction (10^5 results, 1.3 GB of JSON records: 1.5 GB more, also past
+        ``memory_limit``; 10^6: 5 GB, the run's peak), and what it inserts from a relation it writes out as
+        its row groups fill (0.4 GB; measured with DuckDB 2.0.1).
         """
         sql = statements()[name]
-        if len(frames) == 1 and not params:  # e.g. an insert of a staged frame: see _with_frame
-            return self._with_frame(name, sql, *next(iter(frames.items())))
-        for rel, df in frames.items():
-            self.con.register(rel, df)
+        one = len(frames) == 1 and not params
+        if not one:
+            for rel, df in frames.items():
+                self.con.register(rel, df)
         try:
+            if one:
+                ((rel, df),) = frames.items()
+                res = self.con.from_arrow(df.to_arrow()).query(rel, sql)
+                return [] if res is None else res.fetchall()
             cur = self.con.execute(sql, params or {})
             try:
                 return cur.fetchall()
@@ -152,20 +161,9 @@ class Store:
         except duckdb.IOException as exc:  # a damaged or vanished file, a full disk
             raise StoreError(f"{self.path}: cannot read or write the database ({str(exc).splitlines()[0]})") from None
         finally:
-            for rel in frames:
-                self.con.unregister(rel)
-
-    def _with_frame(self, name: str, sql: str, rel: str, df: pl.DataFrame) -> list[tuple]:
-        """A statement reading one frame under the name ``rel``, the frame scanned as a relation of this
-        connection instead of a registered view: DuckDB kept what it inserted from a registered frame in
-        memory until the end of the transaction (10^5 results, 1.3 GB of JSON records: 1.5 GB more, also
-        past ``memory_limit``; 10^6: 5 GB, the run's peak), and what it inserts from a relation it writes
-        out as its row groups fill (0.4 GB; measured with DuckDB 2.0.1)."""
-        try:
-            res = self.con.from_arrow(df.to_arrow()).query(rel, sql)
-            return [] if res is None else res.fetchall()
-        except duckdb.IOException as exc:  # a damaged or vanished file, a full disk
-            raise StoreError(f"{self.path}: cannot read or write the database ({str(exc).splitlines()[0]})") from None
+            if not one:
+                for rel in frames:
+                    self.con.unregister(rel)
 
     def frame(self, name: str, params: dict | None = None) -> pl.DataFrame:
         """The named query's result as a polars frame."""

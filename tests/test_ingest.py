@@ -312,8 +312,10 @@ def test_a_file_is_hashed_once_while_it_is_unchanged(tmp_path, monkeypatch):
     f = tmp_path / "r.csv"
     f.write_text("a,b\n1,2\n")
     hashed: list[str] = []
-    real = pipeline._hash_file
-    monkeypatch.setattr(pipeline, "_hash_file", lambda src: hashed.append(src) or real(src))
+    from screening import published
+
+    real = published.file_sha256  # the bytes' digest, which pipeline.file_sha256 remembers
+    monkeypatch.setattr(published, "file_sha256", lambda src: hashed.append(src) or real(src))
     first = pipeline.file_sha256(f)
     assert pipeline.file_sha256(f) == first and len(hashed) == 2  # just written: not remembered (racy)
     monkeypatch.setattr(pipeline, "RACY_NS", -(10**12))  # as if written long ago
