@@ -5,8 +5,10 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+import time
 
 import polars as pl
+import pytest
 
 from screening import config as cfgmod
 from screening import pipeline, workers
@@ -112,6 +114,60 @@ def test_a_failure_after_the_results_were_stored_keeps_none_of_them(tmp_path, mo
     con.close()
     assert [st for _, st in runs] == ["ok", "failed"]
     assert per_run == {runs[0][0]: 200}  # the failed run stored nothing; the earlier run's results are kept
+    assert not (tmp_path / "out2").exists()
+
+
+def test_a_failure_while_the_results_are_being_stored_waits_for_them_and_keeps_none(tmp_path, monkeypatch):
+    """The results are stored on a thread beside the output files: a file that cannot be written while that
+    thread is still storing fails the run only once the thread is done, and nothing of its results stays."""
+    import threading
+
+    import duckdb
+
+    from screening import runner, webpage
+    from screening.errors import OutputError
+    from screening.runs import record
+
+    db, ov = _first_run(tmp_path)
+    started, stored = threading.Event(), threading.Event()
+    real = record.store_results
+
+    def slow(*a, **k):  # still storing when index.html fails
+        started.set()
+        time.sleep(1.0)
+        real(*a, **k)
+        stored.set()
+
+    def broken(*a, **k):
+        assert started.wait(10)
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(record, "store_results", slow)
+    monkeypatch.setattr(webpage, "write_index", broken)
+    with pytest.raises(OutputError, match="cannot write the outputs"):
+        runner.run(overrides=ov, out_dir=str(tmp_path / "out2"))
+    assert stored.is_set()  # the failure waited for the thread
+    con = duckdb.connect(str(db), read_only=True)
+    runs = con.execute("SELECT run_id, status FROM runs ORDER BY started_at").fetchall()
+    per_run = dict(con.execute("SELECT run_id, count(*) FROM results GROUP BY run_id").fetchall())
+    con.close()
+    assert [st for _, st in runs] == ["ok", "failed"]
+    assert per_run == {runs[0][0]: 200}
+
+
+def test_a_recording_that_fails_on_its_thread_fails_the_run_with_its_error(tmp_path, monkeypatch):
+    from screening import runner
+    from screening.errors import StoreError
+    from screening.runs import record
+
+    db, ov = _first_run(tmp_path)
+
+    def broken(*a, **k):
+        raise StoreError("the database refused the results")
+
+    monkeypatch.setattr(record, "store_results", broken)
+    with pytest.raises(StoreError, match="refused the results"):
+        runner.run(overrides=ov, out_dir=str(tmp_path / "out2"))
     assert not (tmp_path / "out2").exists()
 
 

@@ -184,11 +184,8 @@ def _run_locked(
         bar.stage("write tables")
 
         def record_meanwhile(rejects: pl.DataFrame) -> None:
-            # phase 3 begins: the results and rejects are stored (committed, the run still 'running') while
-            # ranking.pdf renders on its child process. The loaded frames are not read again
-            # (the stored buildings: 0.3-0.4 kB a building; a previous run's results): let go first
-            ld.stored.clear()
-            ld.previous = ld.prev_results = None
+            # phase 3 begins: the results and rejects are stored (committed, the run still 'running') on a
+            # thread while the output files are written and ranking.pdf renders on its child process
             recording.append(open_store(db_path, memory_mb=cfg.run.store_memory_mb))
             record.store_results(
                 recording[0], run_id, stage=record.results_for_store(run_id, res.results), rejects=rejects

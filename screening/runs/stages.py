@@ -7,6 +7,7 @@ from __future__ import annotations
 import datetime as _dt
 import logging
 import os
+import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -115,6 +116,44 @@ def screen(
             src.close()
 
 
+class Beside:
+    """``fn(*args)`` on a thread of its own while this one goes on (the recording beside the output files).
+    :meth:`result` waits for it in short steps, so a stop signal still reaches this (the main) thread, and
+    returns its duration [s] or raises its exception; :meth:`settle` only waits, for the clean-up after a
+    failure here: the caller must not use the thread's database connection before it ended."""
+
+    def __init__(self, fn: Callable[..., None], *args: Any) -> None:
+        self._error: BaseException | None = None
+        self._seconds = 0.0
+
+        def call() -> None:
+            t = time.perf_counter()
+            try:
+                fn(*args)
+            except BaseException as exc:  # handed to the main thread by result()
+                self._error = exc
+            self._seconds = time.perf_counter() - t
+
+        self._thread = threading.Thread(target=call, name="ddscreen-record", daemon=True)
+        self._thread.start()
+
+    def settle(self) -> None:
+        stop: BaseException | None = None
+        while self._thread.is_alive():
+            try:
+                self._thread.join(0.05)
+            except BaseException as exc:  # a stop signal: raised once the thread is done with the database
+                stop = stop or exc
+        if stop is not None:
+            raise stop
+
+    def result(self) -> float:
+        self.settle()
+        if self._error is not None:
+            raise self._error
+        return round(self._seconds, 4)
+
+
 def write_outputs(
     tmp: Path,
     res: pipeline.Screened,
@@ -131,10 +170,10 @@ def write_outputs(
     meanwhile: Callable[[pl.DataFrame], None] | None = None,
 ) -> tuple[list[dict], pl.DataFrame, dict]:
     """Every output file but summary.json into ``tmp``; returns the first visits of the audit plan
-    (:func:`first_visits`), the rejects and the summary. ``meanwhile(rejects)`` runs once every other file
-    is written, while ranking.pdf is still rendering on its child process (the run records its results
-    then); the ranking frame is let go before it."""
-    events, then = ld.events, ld.then
+    (:func:`first_visits`), the rejects and the summary. ``meanwhile(rejects)`` (the run records its results)
+    runs on a thread (:class:`Beside`) from the moment the rejects are known, beside the other files, and is
+    waited for before ranking.pdf, which renders on its child process meanwhile; if this fails, it is waited
+    for before the exception goes on."""
     rejects = outputs.rejects_table(
         pl.concat(
             [
@@ -147,6 +186,53 @@ def write_outputs(
     )
     disp = outputs.Display(cfg.analysis.units)
     change = record.change_table(ld.prev_results, res.results)
+    # the results are recorded on a thread beside the tables, the workbook, the sheets and the page (polars
+    # and DuckDB work outside the GIL); joined before ranking.pdf is waited for
+    recorder = Beside(meanwhile, rejects) if meanwhile is not None else None
+    try:
+        return _write_files(
+            tmp,
+            res,
+            ld,
+            cfg,
+            rejects=rejects,
+            disp=disp,
+            change=change,
+            recorder=recorder,
+            run_key=run_key,
+            label=label,
+            as_of=as_of,
+            window=window,
+            timings=timings,
+            bar=bar,
+            executor=executor,
+        )
+    except BaseException:
+        if recorder is not None:
+            recorder.settle()  # the caller then abandons what it stored, on this thread
+        raise
+
+
+def _write_files(
+    tmp: Path,
+    res: pipeline.Screened,
+    ld: Loaded,
+    cfg: Settings,
+    *,
+    rejects: pl.DataFrame,
+    disp: outputs.Display,
+    change: pl.DataFrame,
+    recorder: Beside | None,
+    run_key: str,
+    label: str,
+    as_of,
+    window,
+    timings: dict,
+    bar: Progress,
+    executor: cluster.DaskChunks | None,
+) -> tuple[list[dict], pl.DataFrame, dict]:
+    """:func:`write_outputs` once the rejects are known and the recording is under way."""
+    events, then = ld.events, ld.then
     ranking = outputs.ranking_table(res.results, disp, change)
     t = time.perf_counter()
     outputs.write_csv(ranking, tmp / "ranking.csv")
@@ -253,10 +339,13 @@ def write_outputs(
         timings["index"] = round(time.perf_counter() - t, 4)
         top = first_visits(ranking, cfg.prices.currency)
         del ranking  # 1 kB a building (ranking.csv's frame), not kept while the results are recorded
-        if meanwhile is not None:
+        # the stored inputs (0.3-0.4 kB a building) and a previous run's results are not read again
+        ld.stored.clear()
+        ld.previous = ld.prev_results = None
+        if recorder is not None:
             t = time.perf_counter()
-            meanwhile(rejects)
-            timings["record_meanwhile"] = round(time.perf_counter() - t, 4)
+            timings["record_meanwhile"] = recorder.result()
+            timings["record_waited"] = round(time.perf_counter() - t, 4)
         bar.stage("render ranking")
         t = time.perf_counter()
         ranking_pdf.result()
