@@ -234,22 +234,9 @@ def _write_files(
     """:func:`write_outputs` once the rejects are known and the recording is under way."""
     events, then = ld.events, ld.then
     ranking = outputs.ranking_table(res.results, disp, change)
-    t = time.perf_counter()
-    outputs.write_csv(ranking, tmp / "ranking.csv")
     plan = outputs.audit_plan_table(res.results, disp)
-    outputs.write_csv(plan, tmp / "audit_plan.csv")
-    outputs.write_csv(rejects, tmp / "rejects.csv")
-    outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
     book_max = cfg.output.workbook_max_buildings
     with_book = 0 < ranking.height <= book_max
-    assumptions = None  # the table is kept only for the workbook; else written a piece at a time
-    if with_book:
-        assumptions = outputs.assumptions_table(res.envelope, disp)
-        outputs.write_csv(assumptions, tmp / "assumptions.csv")
-    else:
-        outputs.write_assumptions_csv(res.envelope, disp, tmp / "assumptions.csv")
-    if not cfg.output.sheets:  # after assumptions.csv only the sheets read the envelope (3.9 kB a building)
-        res.envelope = res.envelope.clear()
     prev = ld.prev
     summary = record.run_summary(
         run_key, label, as_of, window, cfg, res, rejects, ld.loads, prev[0][1] if prev else None
@@ -265,7 +252,6 @@ def _write_files(
         savings_csv = evmod.savings_table(
             res.savings, si=disp.si, currency=cfg.prices.currency, kbtu_to_kwh=outputs.KBTU_TO_KWH
         )
-        outputs.write_csv(savings_csv, tmp / "savings.csv")
         summary["savings"] = evmod.savings_totals(res.savings, si=disp.si, kbtu_to_kwh=outputs.KBTU_TO_KWH)
         if events is not None and then is not None:
             summary["audit_hit_rate"] = evmod.hit_rate(events, then)
@@ -282,12 +268,12 @@ def _write_files(
         why = workbook_left_out(ranking.height, book_max)
         summary["files_left_out"] = {"ranking.xlsx": why}
         log.warning("ranking.xlsx not written: %s", why)
-    timings["csv"] = round(time.perf_counter() - t, 4)
     paper = cfg.output.paper
     paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
     from ..render import pdf
 
-    # ranking.pdf renders on a child process while this one writes the workbook, the sheets and the page
+    # ranking.pdf renders on a child process from here, while this one writes the tables, the workbook,
+    # the sheets and the page (and a thread stores the results)
     t_ranking = time.perf_counter()
     ranking_pdf = pdf.Background(
         pdf.render_ranking,
@@ -304,6 +290,22 @@ def _write_files(
         paper=paper,
     )
     try:
+        t = time.perf_counter()
+        outputs.write_csv(ranking, tmp / "ranking.csv")
+        outputs.write_csv(plan, tmp / "audit_plan.csv")
+        outputs.write_csv(rejects, tmp / "rejects.csv")
+        outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
+        assumptions = None  # the table is kept only for the workbook; else written a piece at a time
+        if with_book:
+            assumptions = outputs.assumptions_table(res.envelope, disp)
+            outputs.write_csv(assumptions, tmp / "assumptions.csv")
+        else:
+            outputs.write_assumptions_csv(res.envelope, disp, tmp / "assumptions.csv")
+        if not cfg.output.sheets:  # after assumptions.csv only the sheets read the envelope (3.9 kB a building)
+            res.envelope = res.envelope.clear()
+        if savings_csv is not None:
+            outputs.write_csv(savings_csv, tmp / "savings.csv")
+        timings["csv"] = round(time.perf_counter() - t, 4)
         if with_book and assumptions is not None:
             from ..xlsxout import write_ranking_xlsx
 
