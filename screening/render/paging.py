@@ -114,11 +114,10 @@ def wrap(
     *,
     bold: bool = False,
     max_lines: int = MAX_CELL_LINES,
-    first: float | None = None,
 ) -> list[str]:
-    """``text`` as lines no wider than ``width`` pt (the first line ``first`` pt, if given): broken
-    after blanks and ``; , /``, a word too long for a line broken after a ``_`` (flag codes) or else
-    between characters; at most ``max_lines`` lines, the last then ending in …"""
+    """``text`` as lines no wider than ``width`` pt: broken after blanks and ``; , /``, a word too
+    long for a line broken after a ``_`` (flag codes) or else between characters; at most
+    ``max_lines`` lines, the last then ending in …"""
     text = CONTROL_CHARS.sub(" ", text).strip()
     if not text:
         return [""]
@@ -128,11 +127,8 @@ def wrap(
     def em(t: str) -> float:  # as text_width, in em (advances are multiples of 1/unitsPerEm: sums are exact)
         return sum(adv.get(ord(c), 0.0 if unicodedata.combining(c) else 1.0) for c in t)
 
-    def room() -> float:
-        return width if lines or first is None else first
-
     def fits(t: str) -> bool:
-        return size * em(t.rstrip()) <= room()
+        return size * em(t.rstrip()) <= width
 
     line, line_em = "", 0.0  # the line so far and its width [em], trailing blanks included
     for tok in _BREAK_AFTER.split(text):
@@ -140,7 +136,7 @@ def wrap(
             continue
         word = tok.rstrip()
         word_em = em(word)
-        if not word or size * (line_em + word_em) <= room():
+        if not word or size * (line_em + word_em) <= width:
             line += tok
             line_em += word_em + em(tok[len(word) :])
             continue
@@ -150,7 +146,7 @@ def wrap(
         while not fits(tok):  # a word wider than the column: cut it where it fills a line
             ends = list(itertools.accumulate(em(c) for c in tok))
             k = 1
-            while k < len(tok) and size * ends[k] <= room():
+            while k < len(tok) and size * ends[k] <= width:
                 k += 1
             under = tok.rfind("_", 0, k)
             k = under + 1 if under > 0 else k
@@ -168,12 +164,12 @@ def wrap(
 
 
 # The space characters of the bundled faces (all "Zs", so text extraction splits words at them):
-# em spaces cover a distance but its last 0.6-1.5 em, which the nearest sum of up to four of the
+# em spaces cover a distance but its last 0.6-1.5 em, which the nearest sum of up to three of the
 # others (en, figure, ASCII, three-, four-per-em, medium mathematical, thin, six-per-em, hair)
-# makes up to within 12 font units (0.006 em, 0.04 pt at 7.2 pt; test_report checks it).
+# makes up to within 0.016 em (0.11 pt at 7.2 pt; test_report checks it).
 _EM_SPACE = "\u2003"
 _FINE_SPACES = " \u2002\u2007\u2004\u2005\u205f\u2009\u2006\u200a"
-_FINE_MAX = 4
+_FINE_MAX = 3
 _SPACING: dict[bool, tuple[float, np.ndarray, list[str]]] = {}
 
 
@@ -361,29 +357,6 @@ def table_pages(rows: list[dict[str, str]], paper: str, header_lines: int = 1) -
         )
         first = False
     return pages
-
-
-# The data issues: one paragraph each (ranking.css .di: the body size, a 3 mm hanging indent), wrapped
-# here to the content width as lines of a white-space: pre block (~3x cheaper than WeasyPrint's own
-# line breaking, DEVELOPERS.md "ranking.pdf: the ranked table as text lines"); a continuation line
-# starts with space characters up to the indent.
-_ISSUE_PT = 8.4  # ranking.css: the html font size
-_ISSUE_INDENT_MM = 3.0  # ranking.css: .di's padding-left and negative text-indent
-_COLLAPSIBLE = re.compile(r"[ \t\n\r\f]+")  # what CSS white-space collapses in running text
-
-
-def hanging_lines(text: str, paper: str) -> str | None:
-    """A data-issue paragraph as the text of a white-space: pre block: the first line the content
-    width [pt] of ``paper`` less 0.5 pt, the others indented by ``_ISSUE_INDENT_MM``; None when the
-    bundled face does not draw the text plainly (``_plain``: the paragraph is then left to WeasyPrint)."""
-    text = _COLLAPSIBLE.sub(" ", CONTROL_CHARS.sub(" ", text)).strip()
-    if not _plain([text]):
-        return None
-    content = CONTENT_MM[paper] * 72 / 25.4 - 0.5
-    indent = _ISSUE_INDENT_MM * 72 / 25.4
-    lines = wrap(text, content - indent, _ISSUE_PT, first=content, max_lines=len(text) + 1)
-    lead, _adv = _spacing(indent / _ISSUE_PT, False)
-    return "\n".join([lines[0]] + [lead + ln for ln in lines[1:]])
 
 
 def sheet_starts(doc, n: int) -> list[int] | None:

@@ -10,25 +10,10 @@ from typing import Any
 
 from . import charts
 from .display import cut, fmt_co2e, fmt_money, fmt_num, fmt_pct, fmt_ratio, one_line, svg_img
-from .paging import PAPERS, hanging_lines, table_header, table_pages
+from .paging import PAPERS, table_header, table_pages
 
 MAX_ISSUE_LINES = 1000  # data-issue lines in ranking.pdf; data_issues.csv has them all
 PLAN_LINES = 10  # audit-plan rows on ranking.pdf's first page (the rest: audit_plan.csv)
-
-
-def _issue_view(d: dict[str, Any], paper: str) -> dict[str, Any]:
-    """One data issue's paragraph, "id · name · code: explanation"; ``lines``: wrapped for a
-    white-space: pre block (``paging.hanging_lines``), or None to leave it to WeasyPrint."""
-    view: dict[str, str | None] = {
-        "building_id": one_line(d.get("building_id"), 40),
-        "name": one_line(d.get("name"), 80),
-        "code": one_line(d.get("code"), 40),
-        "explanation": cut(d.get("explanation"), 2000),
-    }
-    view["lines"] = hanging_lines(
-        f"{view['building_id']} · {view['name']} · {view['code']}: {view['explanation']}", paper
-    )
-    return view
 
 
 def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any]:
@@ -134,6 +119,14 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
         else "",
         "header": header,
         "table_pages": table_pages(rows, paper, header_lines=header["lines"]),
-        "data_issues": [_issue_view(d, paper) for d in issues_in[:MAX_ISSUE_LINES]],
+        "data_issues": [
+            {
+                "building_id": one_line(d.get("building_id"), 40),
+                "name": one_line(d.get("name"), 80),
+                "code": one_line(d.get("code"), 40),
+                "explanation": cut(d.get("explanation"), 2000),
+            }
+            for d in issues_in[:MAX_ISSUE_LINES]
+        ],
         "data_issues_more": fmt_num(len(issues_in) - MAX_ISSUE_LINES) if len(issues_in) > MAX_ISSUE_LINES else "",
     }
