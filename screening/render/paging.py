@@ -5,7 +5,7 @@ view shows; the renderer (``pdf``) tries level 0 for a whole chunk and re-render
 at levels 1..``MAX_LEVEL``, finding each sheet's first page with ``sheet_starts``. The ranked table of
 ranking.pdf is wrapped to its columns with the bundled font's advance widths (``text_width``, ``wrap``)
 and cut into pages here (``table_pages``), so each page repeats its header (DEVELOPERS.md "ranking.pdf:
-the ranked table as text columns").
+the ranked table as text lines").
 """
 
 from __future__ import annotations
@@ -35,19 +35,19 @@ LIMITS = [
 ]
 MAX_LEVEL = len(LIMITS) - 1
 
-# The ranked table is laid out per page as a header band and a few `white-space: pre` blocks of
-# text, each visual line of a block holding every column of that line: WeasyPrint's cost goes
-# with its line boxes (~0.25 ms CPU each, blank or not), and one block for all the columns has
-# ~10x fewer than a block per column (DEVELOPERS.md "ranking.pdf: the ranked table as text
-# lines"). The text does not wrap by itself, so every field is wrapped here to its column's width,
-# measured with the font's own advance widths (``text_width``); a row takes as many lines as its
-# tallest field (at most ``MAX_CELL_LINES``). Each field is moved to its column by the font's
-# space characters (``_spacing``: their advances are exact, so the pen position is known to
-# ~0.05 pt), right-aligned fields by their own width. Flags and data issues are set smaller, so
-# they are a second block beside the first. A row with a character the font lacks (drawn by a
-# fallback font of unknown width) or a right-to-left one is set the earlier way, one block per
-# column (``_fits_lines``). The rows are split into pages here, so each page repeats the header,
-# and a stripe per row (zebra) lies behind the text. RANK_COLUMNS: key, header, width %,
+# The ranked table is laid out per page as a header band and two `white-space: pre` blocks of
+# text, each visual line holding every column of that line: WeasyPrint's cost goes with its line
+# boxes (~0.25 ms CPU each, blank or not), and a line of all the columns makes ~5x fewer than a
+# block per column (DEVELOPERS.md "ranking.pdf: the ranked table as text lines"). The text does not
+# wrap by itself, so every field is wrapped here to its column's width, measured with the font's
+# own advance widths (``text_width``); a row takes as many lines as its tallest field (at most
+# ``MAX_CELL_LINES``). Each field is moved to its column by the font's space characters
+# (``_spacing``, within 0.11 pt: the advances are exact, so the pen position is known), a
+# right-aligned one by its own width less. Flags and data issues are set smaller: the second
+# block. A row with text the face does not draw plainly (a character it lacks, drawn by a fallback
+# font of unknown width, or a right-to-left one: ``_plain``) is set as before, one block per
+# column. The rows are split into pages here, so each page repeats the header; the zebra (every
+# second row) is the page's SVG background (``_stripes_uri``). RANK_COLUMNS: key, header, width %,
 # right-aligned; widths add up to 99.5%, as 100% wrapped the last float on A4 by rounding.
 RANK_COLUMNS = [
     ("rank", "#", 4.5, True),
@@ -285,10 +285,10 @@ def _column_texts(rows: list[tuple[int, list[list[str]]]]) -> list[dict[str, str
 
 def _block_texts(rows: list[tuple[int, list[list[str]]]], paper: str) -> tuple[str, str]:
     """Rows as the two blocks' texts (a line each): the columns in the body size, and from
-    ``SMALL_LEFT_PCT`` on the flags and data issues in the small size."""
+    ``SMALL_LEFT_PCT`` on (the flags' padding in) the flags and data issues in the small size."""
     cols = _columns(paper)
     split = [c[0] for c in RANK_COLUMNS].index(_SMALL[0])
-    origin = CONTENT_MM[paper] * 72 / 25.4 * SMALL_LEFT_PCT / 100
+    origin = CONTENT_MM[paper] * 72 / 25.4 * SMALL_LEFT_PCT / 100 + _CELL_PAD_MM * 72 / 25.4  # .tb's padding
     a: list[str] = []
     b: list[str] = []
     for n, cells in rows:
