@@ -493,10 +493,14 @@ def test_ranked_table_pages_never_overflow(tmp_path, paper, monkeypatch):
     out = pdf.render_ranking(rep, tmp_path / "r.pdf", paper=paper)
     view = rv.ranking_view(rep, paper)
     pages = view["table_pages"]
-    budget = paging.ROWS_PER_PAGE[paper] - view["header"][0]["text"].count("\n")
+    budget = paging.ROWS_PER_PAGE[paper] - (view["header"]["lines"] - 1)
     for k, pg in enumerate(pages):
         assert pg["lines"] <= budget - (paging.FIRST_PAGE_LOSS if k == 0 else 0)
-        assert all(c["text"].count("\n") + 1 == pg["lines"] for c in pg["cols"])  # every column as tall
+        assert sum(p["lines"] for p in pg["parts"]) == pg["lines"]
+        for p in pg["parts"]:  # every block (or column) of a part as tall as the part
+            texts = [c["text"] for c in p["cols"]] if p["cols"] else [p["a"], p["b"]]
+            assert all(t.count("\n") + 1 == p["lines"] for t in texts)
+            assert float(p["height"]) == pytest.approx(p["lines"] * paging.ROW_PT)
         assert sum(float(h) for h in pg["stripes"]) == pytest.approx(pg["lines"] * paging.ROW_PT)  # a stripe a row
     n_table = len(pages)
     texts = [p.extract_text() for p in PdfReader(out).pages]
@@ -506,12 +510,101 @@ def test_ranked_table_pages_never_overflow(tmp_path, paper, monkeypatch):
     ids = re.findall(r"\bB-(\d+)\b", "\n".join(texts[1 : 1 + n_table]))
     assert ids == [str(1000 + k) for k in range(300)]  # make_report: rank k+1 has id B-(1000+k)
     # the long name: wrapped, at most MAX_CELL_LINES lines, the last cut with …
-    name_col = pages[0]["cols"][2]["text"].split("\n")
-    w_lines = [ln for ln in name_col if ln.startswith("W")]
+    lines = "\n".join(p["a"] for p in pages[0]["parts"]).split("\n")
+    w_lines = [w for ln in lines for w in ln.split() if w.startswith("WW")]  # split() splits at the spacing too
     assert len(w_lines) == paging.MAX_CELL_LINES and w_lines[-1].endswith("…")
     n_issues = len(rep["data_issues"])
     assert f"and {n_issues - 5} more in data_issues.csv" in texts[-1]
     assert sum(c[2] for c in paging.RANK_COLUMNS) == pytest.approx(99.5)  # 100% wraps the last float on A4
+
+
+def test_spacing_reaches_a_distance_with_space_characters():
+    """Fields of the ranked table are moved to their column by space characters (paging._spacing):
+    their advances (from the font, as text_width) add up to the distance asked for, to within
+    0.016 em (0.11 pt at 7.2 pt), and every one of them is whitespace to text extraction."""
+    import numpy as np
+
+    for bold in (False, True):
+        for dist in np.linspace(0.4, 80.0, 4000):
+            spaces, adv = paging._spacing(float(dist), bold)
+            assert abs(adv - dist) <= 0.016, (bold, dist, adv)
+            assert adv == pytest.approx(paging.text_width(spaces, 1.0, bold=bold), abs=1e-9)
+            assert spaces.isspace() and len(spaces) <= dist / 0.9 + 5
+    assert paging._spacing(0.0, False) == ("", 0.0) and paging._spacing(-3.0, False) == ("", 0.0)
+
+
+def _table_geometry(path, paper):
+    """Per table page of a rendered ranking.pdf: its words (pdfplumber) from the header down and
+    the column edges [pt] of paging.RANK_COLUMNS."""
+    side = 12 * 72 / 25.4
+    width = {"Letter": 612.0, "A4": 595.28}[paper] - 2 * side
+    edges = [side]
+    for _key, _h, w, _r in paging.RANK_COLUMNS:
+        edges.append(edges[-1] + width * w / 100)
+    out = []
+    with pdfplumber.open(path) as doc:
+        for page in doc.pages:
+            words = page.extract_words(x_tolerance=1.5, y_tolerance=1)
+            head = [w for w in words if w["text"] == "intensity"]
+            if head:
+                out.append([w for w in words if w["top"] >= head[0]["top"] - 3 and w["bottom"] < page.height - 40])
+    return out, edges
+
+
+@pytest.mark.parametrize("paper", ["Letter", "A4"])
+def test_ranked_table_columns_line_up(tmp_path, paper):
+    """Set as lines of text with space characters, every column still lines up: on every line of
+    every table page the left-aligned fields start 0.8 mm inside their column and the right-aligned
+    ones end 0.8 mm inside it, to within 0.1 pt (pdfplumber's glyph boxes: the font's advances),
+    the header and the rows set as one block per column (a name in Hebrew and one in CJK
+    ideographs, drawn by fallback fonts) included."""
+    rep = make_report(120)
+    rep["rows"][4]["name"] = "בית ספר הגפן"
+    rep["rows"][70]["name"] = "梅園会館 East"
+    rep["rows"][9]["name"] = "Ashcombe Courtyard Residences North Wing"  # wraps
+    out = pdf.render_ranking(rep, tmp_path / "r.pdf", paper=paper)
+    view = rv.ranking_view(rep, paper)
+    assert sum(1 for pg in view["table_pages"] for p in pg["parts"] if p["cols"]) == 2  # the two fallback rows
+    pages, edges = _table_geometry(out, paper)
+    assert len(pages) == len(view["table_pages"]) >= 2
+    pad = 0.8 * 72 / 25.4
+    checked = 0
+    for words in pages:
+        lines: dict[float, list[dict]] = {}
+        for w in words:
+            lines.setdefault(round(w["top"]), []).append(w)
+        for top, ws in lines.items():
+            for j, (_key, _h, _w, right) in enumerate(paging.RANK_COLUMNS):
+                cell = [w for w in ws if edges[j] - 0.5 <= w["x0"] and w["x1"] <= edges[j + 1] + 0.5]
+                if not cell:
+                    continue
+                checked += 1
+                if right:
+                    assert max(w["x1"] for w in cell) == pytest.approx(edges[j + 1] - pad, abs=0.1), (top, cell)
+                else:
+                    assert min(w["x0"] for w in cell) == pytest.approx(edges[j] + pad, abs=0.1), (top, cell)
+    assert checked > 120 * 8
+
+
+def test_ranked_table_text_reads_in_row_order(tmp_path):
+    """Text extraction gives each row's fields on one line, left to right (with whitespace between
+    them: the spacing characters are whitespace), and no other characters than the fields'."""
+    rep = make_report(30)
+    out = pdf.render_ranking(rep, tmp_path / "r.pdf")
+    text = PdfReader(out).pages[1].extract_text()  # in drawing order: flags and issues are a second block
+    with pdfplumber.open(out) as doc:
+        placed = doc.pages[1].extract_text()  # by position
+    assert "\t" not in text
+    for extracted, by_position in ((text, False), (placed, True)):
+        lines = [" ".join(ln.split()) for ln in extracted.splitlines()]
+        for r in rep["rows"][:20]:
+            start = f"{r['rank']} {r['building_id']} {r['name']} {r['use_type']} {r['tier']} {display.fmt_ratio(r['ratio'])}"
+            line = next((ln for ln in lines if ln.startswith(start)), None)
+            assert line is not None, (start, lines[:8])
+            end = " ".join(
+                [display.fmt_money(r["excess_cost"])] + (r["flags"] + r["data_issues"] if by_position else [])
+            )
+            assert line.endswith(end), (line, end)
 
 
 def test_wrap_measures_the_font():

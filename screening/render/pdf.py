@@ -44,7 +44,7 @@ from ..errors import OutputError, RenderError
 from ..resources import templates_dir
 from .display import STANDARD_CAUTION
 from .filenames import assign_filenames
-from .paging import CONTENT_MM, COLUMN_CSS, MAX_LEVEL, PAPERS, sheet_starts
+from .paging import CONTENT_MM, COLUMN_CSS, MAX_LEVEL, PAPERS, SMALL_LEFT_PCT, sheet_starts
 from .pdfsplit import atomic_write, write_split
 from .ranking_view import ranking_view
 from .record import SheetRecord
@@ -569,7 +569,14 @@ def render_ranking(report: dict[str, Any], out_path: Path, *, paper: str = "Lett
     html = (
         _state()["env"]
         .get_template("ranking.html.j2")
-        .render(v=view, doc_title=title, standard_caution=STANDARD_CAUTION, version=__version__, columns=COLUMN_CSS)
+        .render(
+            v=view,
+            doc_title=title,
+            standard_caution=STANDARD_CAUTION,
+            version=__version__,
+            columns=COLUMN_CSS,
+            small_left=f"{SMALL_LEFT_PCT:.4f}",
+        )
     )
     try:
         with _gc_paused():

@@ -118,7 +118,7 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
         if len(report.get("plan") or []) > PLAN_LINES
         else "",
         "header": header,
-        "table_pages": table_pages(rows, paper, header_lines=header[0]["text"].count("\n") + 1),
+        "table_pages": table_pages(rows, paper, header_lines=header["lines"]),
         "data_issues": [
             {
                 "building_id": one_line(d.get("building_id"), 40),
