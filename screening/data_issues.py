@@ -48,6 +48,8 @@ PIPELINE_ISSUE_CODES = issue_codes("pipeline")
 DATA_ISSUE_CODES = {**metered.ISSUE_CODES, **PIPELINE_ISSUE_CODES}
 #: Issues that leave no basis for a ratio: no likely_unit_error is claimed beside them.
 NO_BASIS_CODES = ("no_readings", "no_heating_fuel_readings", "no_weather_at_station")
+#: The issues frame every detector returns.
+_ISSUE_SCHEMA = pl.Schema({"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean})
 
 
 #: The unit mix-ups each heating fuel's bills are prone to, named in the likely_unit_error detail (our own
@@ -107,51 +109,80 @@ def spike(q: pl.Expr, over: list[str], isolation: float) -> pl.Expr:
     return (pl.when(q >= 1).then(hi).otherwise(lo) | far).fill_null(False)
 
 
-def _ranks(x: np.ndarray) -> np.ndarray:
-    """Each value's place in ``x`` sorted (0, 1, …; ties in any order) [-]."""
-    rank = np.empty(len(x), dtype=np.int64)
-    rank[np.argsort(x)] = np.arange(len(x))
-    return rank
+class _ByValue:
+    """Rows of values ``x`` [any unit] (finite) in increasing order, for statistics over groups of them:
+    ``order`` the rows in that order, ``rank`` each row's place in it, ``sorted`` the values in it, ``bits``
+    the bits of a place."""
+
+    def __init__(self, x: np.ndarray):
+        self.order = np.argsort(x)
+        self.bits = max(int(len(x)).bit_length(), 1)
+        self.rank = np.empty(len(x), dtype=np.int64)
+        self.rank[self.order] = np.arange(len(x))
+        self.sorted = x[self.order]
+
+    def stats(self, g: np.ndarray, size: int, within: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
+        """Count, median and sum of the values over the rows of each group, per row: ``g`` the rows' group
+        numbers (integers in ``[0, size)``). With ``within`` (a mask, in the order of the values), also the
+        same over the group's rows inside the mask (count 0, median NaN and sum 0 where there are none).
+
+        The median is polars' own: the middle value, or ``lo + (hi − lo)·0.5`` between the two middle ones;
+        the sum runs over the group's values in increasing order (exact for a group of two, the only sums
+        used here). One sort of the integers ``g·2^bits + rank`` (no ties) puts the rows by group and value;
+        the statistics go into tables indexed by the group number.
+        """
+        key = np.sort((g.astype(np.int64) << self.bits) | self.rank)
+        place = key & ((1 << self.bits) - 1)
+        gs, v = key >> self.bits, self.sorted[place]
+
+        def per_row(gs: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            new = np.ones(len(gs), dtype=bool)
+            new[1:] = gs[1:] != gs[:-1]
+            st = np.flatnonzero(new)
+            n = np.diff(np.append(st, len(gs)))
+            lo, hi = v[st + (n - 1) // 2], v[st + n // 2]
+            count, med, tot = np.zeros(size, dtype=np.int64), np.full(size, np.nan), np.zeros(size)
+            count[gs[st]], med[gs[st]] = n, lo + (hi - lo) * 0.5
+            if len(st):
+                tot[gs[st]] = np.add.reduceat(v, st)
+            return count[g], med[g], tot[g]
+
+        out = per_row(gs, v)
+        if within is None:
+            return out
+        w = within[place]  # (a subset of sorted rows is sorted)
+        return (*out, *per_row(gs[w], v[w]))
 
 
-def _sorted_stats(k: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, ...]:
-    """Over rows sorted by key ``k`` and, within a key, by value ``v``: each group's key, count, median and
-    sum, and the group number of each row. The median is polars' own: the middle value, or
-    ``lo + (hi − lo)·0.5`` between the two middle ones; the sum is sequential (exact for a group of two,
-    the only sums used here)."""
-    new = np.ones(len(k), dtype=bool)
-    new[1:] = k[1:] != k[:-1]
-    st = np.flatnonzero(new)
-    n = np.diff(np.append(st, len(k)))
-    lo, hi = v[st + (n - 1) // 2], v[st + n // 2]
-    tot = np.add.reduceat(v, st) if len(st) else np.zeros(0)
-    return k[st], n, lo + (hi - lo) * 0.5, tot, np.cumsum(new) - 1
+def _spike(q: np.ndarray, first: np.ndarray, isolation: float) -> np.ndarray:
+    """:func:`spike` over arrays: ``q`` [-] (NaN where there is none), ``first`` true on each series' first
+    row (rows sorted by series and time)."""
+    prev, nxt = np.ones(len(q)), np.ones(len(q))
+    prev[1:], nxt[:-1] = q[:-1], q[1:]
+    last = np.ones(len(q), dtype=bool)
+    last[:-1] = first[1:]
+    prev = np.where(first | np.isnan(prev), 1.0, prev)
+    nxt = np.where(last | np.isnan(nxt), 1.0, nxt)
+    hi = (q >= isolation * prev) & (q >= isolation * nxt)
+    lo = (q * isolation <= prev) & (q * isolation <= nxt)
+    far = (q >= UNIT_ERROR_FACTOR_ANY) | (q * UNIT_ERROR_FACTOR_ANY <= 1)
+    return np.where(q >= 1, hi, lo) | far
 
 
-def _group_stats(
-    key: np.ndarray, x: np.ndarray, rank: np.ndarray, within: np.ndarray | None = None
-) -> tuple[np.ndarray, ...]:
-    """Count, median and sum of ``x`` [any unit] over the rows of each ``key`` (integers ≥ 0; ``x`` finite),
-    per row (:func:`_sorted_stats`); ``rank`` orders ``x`` (:func:`_ranks`). With ``within`` (a mask), also
-    the same over the group's rows inside the mask (count 0, median NaN and sum 0 where there are none).
-    One sort of the rows by key and value instead of a grouping.
-    """
-    o = np.argsort(key * (int(rank.max(initial=0)) + 1) + rank, kind="stable")  # by key, then value (keys ≥ 0)
-    k, v = key[o], x[o]
-    keys, n, med, tot, g_sorted = _sorted_stats(k, v)
-    g = np.empty(len(k), dtype=np.int64)
-    g[o] = g_sorted
-    out = (n[g], med[g], tot[g])
-    if within is None:
-        return out
-    w = within[o]
-    kw, nw, medw, totw, _ = _sorted_stats(k[w], v[w])  # (a subset of sorted rows is sorted)
-    if not len(kw):
-        return (*out, np.zeros(len(x), dtype=np.int64), np.full(len(x), np.nan), np.zeros(len(x)))
-    i = np.minimum(np.searchsorted(kw, keys), len(kw) - 1)
-    found = kw[i] == keys
-    n_in, med_in, tot_in = np.where(found, nw[i], 0), np.where(found, medw[i], np.nan), np.where(found, totw[i], 0.0)
-    return (*out, n_in[g], med_in[g], tot_in[g])
+def _heating_bills(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
+    """The readings of each building's heating fuel that are monthly bills (20 to 62 days), in their order:
+    by ``is_heating_fuel`` where the readings carry it (:func:`screening.units.convert_to_kbtu`: the fuel
+    is the building's ``heating_fuel``), else by ``b.heating_fuel``."""
+    cols = ["building_id", "meter_id", "period_start", "period_end", "days", "energy_kbtu"]
+    monthly = (pl.col("days") <= 62) & (pl.col("days") >= 20)
+    if "is_heating_fuel" in conv.columns:
+        return conv.filter(pl.col("is_heating_fuel") & monthly).select(cols)
+    return (
+        conv.select(*cols, "fuel")
+        .join(b.select("building_id", "heating_fuel"), on="building_id", how="left", maintain_order="left")
+        .filter((pl.col("fuel") == pl.col("heating_fuel")) & monthly)
+        .select(cols)
+    )  # (a left join, its unmatched rows dropped by the filter: quicker than an inner join)
 
 
 def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, isolation: float = 1.0) -> pl.DataFrame:
@@ -163,44 +194,52 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
     readings' own ratios (:func:`spike`): a run of months off together is a step (waste that
     began), which the ratio of the whole span to the expectation judges instead.
     """
-    empty = pl.DataFrame(
-        schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
-    )
-    heat = (
-        conv.select("building_id", "meter_id", "fuel", "period_start", "period_end", "days", "energy_kbtu")
-        .join(b.select("building_id", "heating_fuel"), on="building_id", how="left", maintain_order="left")
-        .filter((pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
-    )  # (a left join, its unmatched rows dropped by the filter: quicker than an inner join)
+    heat = _heating_bills(conv, b)
     if heat.height == 0:
-        return empty
-    mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
-    heat = (
-        heat.sort("building_id", "meter_id", "period_start")
-        .with_columns((pl.col("energy_kbtu") / pl.col("days")).alias("_upd"), mid.dt.month().alias("_m"))
-        .with_columns(metered.group_starts(["building_id", "meter_id"]).cum_sum().cast(pl.Int64).alias("_gm"))
-    )
-    upd = heat["_upd"]
-    if upd.null_count() or not upd.is_finite().all():  # (the sort-based statistics need finite numbers)
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
+    heat = metered.sort_rows(heat, ["building_id", "meter_id", "period_start"])
+    meter = np.cumsum(heat.select(metered.group_starts(["building_id", "meter_id"])).to_series().to_numpy())
+    days = heat["days"].to_numpy()
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x = heat["energy_kbtu"].to_numpy() / days  # [kBtu/day]
+    if any(heat[c].null_count() for c in ("period_start", "days", "energy_kbtu")) or not np.isfinite(x).all():
+        # (the sort-based statistics need finite numbers)
+        mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
+        heat = heat.with_columns(
+            (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
+            mid.dt.month().alias("_m"),
+            pl.Series("_gm", meter, dtype=pl.Int64),
+        )
         return _unit_error_windows(heat, factor, isolation)
-    x = upd.to_numpy()
-    meter = heat["_gm"].to_numpy()
+    mid = heat["period_start"].to_physical().to_numpy() + days // 2  # the middle day of the bill (day ordinal)
+    lo = int(mid.min())
+    months = np.arange(lo, int(mid.max()) + 1).astype("datetime64[D]").astype("datetime64[M]").astype(np.int64) % 12
+    month = months[mid - lo] + 1  # (1 to 12)
+    by_x = _ByValue(x)
     # only months of substantial use: summer use of a heating fuel varies by large factors on its own
-    rank = _ranks(x)
-    mmed = _group_stats(meter, x, rank)[1]
+    mmed = by_x.stats(meter, int(meter[-1]) + 1)[1]
     big = x >= 0.5 * mmed
-    grp = meter * 16 + heat["_m"].to_numpy()  # the meter and calendar month
-    n_all, med_all, tot_all, n, med, tot = _group_stats(grp, x, rank, within=big)
-    heat = heat.with_columns(
-        pl.Series("_mmed", mmed),
-        pl.Series("_big", big),
-        pl.Series("_med", med).fill_nan(None),
-        pl.Series("_n", n, dtype=pl.UInt32),
-        pl.Series("_sum", tot),
-        pl.Series("_n_all", n_all, dtype=pl.UInt32),
-        pl.Series("_sum_all", tot_all),
-        pl.Series("_med_all", med_all),
+    grp = meter * 16 + month  # the meter and calendar month
+    n_all, med_all, tot_all, n, med, tot = by_x.stats(grp, int(meter[-1]) * 16 + 16, within=big[by_x.order])
+    # (as _unit_error_odd; no statistic is null or NaN here but ``med`` of a month without substantial use)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        own = np.where(n == 2, x / (tot - x), x / med)
+        all_ = np.where(n_all == 2, x / (tot_all - x), x / med_all)
+        use_own = big & (n >= 2) & (med > 0) & (x > 0)
+        use_all = big & (n_all >= 2) & (med_all > 0) & (x > 0) & (all_ >= UNIT_ERROR_FACTOR_ANY) & (x >= factor * mmed)
+        q = np.where(use_own, own, np.where(use_all, all_, np.nan))
+        first = np.ones(len(meter), dtype=bool)
+        first[1:] = meter[1:] != meter[:-1]
+        odd = ((q >= factor) | (q * factor <= 1)) & _spike(q, first, isolation)
+    if not odd.any():
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
+    return _odd_bills(
+        heat.filter(pl.Series(odd)).with_columns(pl.Series("_q", q[odd])),
+        pl.col("_q"),
+        "the same month's median",
+        "likely_unit_error",
+        "reading(s) about 10×, 100× or 1000× off the building's own history: ",
     )
-    return _unit_error_odd(heat, factor, isolation)
 
 
 def _unit_error_windows(heat: pl.DataFrame, factor: float, isolation: float) -> pl.DataFrame:
@@ -280,23 +319,84 @@ def fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float, 
     (:func:`spike`): when waste begins inside the fitted months, the fit mixes before and after,
     and a whole run of bills sits off it together (a step, not a data fault).
     """
-    empty = pl.DataFrame(
-        schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
-    )
     if periods.height == 0 or "hdd_per_day_fit" not in periods.columns:
-        return empty
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
     fit = met.filter(pl.col("fit_method") == "regression").select(
         "building_id",
         pl.col("baseload_kbtu_per_day").fill_null(0.0).alias("_a"),
         pl.col("heating_slope_kbtu_per_dd").fill_null(0.0).alias("_b"),
     )
-    p = (
-        periods.filter(pl.col("usable"))
-        .join(fit, on="building_id", how="inner")
-        .with_columns(
-            (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
-            (pl.col("_a") + pl.col("_b") * pl.col("hdd_per_day_fit")).alias("_pred"),
+    p = periods.filter(pl.col("usable")).select(
+        "building_id", "period_start", "period_end", "days", "energy_kbtu", "hdd_per_day_fit"
+    )
+    fast = _fit_outlier_arrays(p, fit, factor, isolation)
+    if fast is None:
+        return _fit_outlier_frames(p, fit, factor, isolation)
+    p, odd, ratio = fast
+    if not odd.any():
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
+    return _odd_bills(
+        p.filter(pl.Series(odd)).with_columns(pl.Series("_q", ratio[odd])),
+        pl.col("_q"),
+        "what the building's weather fit predicts",
+        "bill_off_fit",
+        _FIT_HEAD,
+    )
+
+
+#: the head of a bill_off_fit detail
+_FIT_HEAD = (
+    "bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
+    "after estimated reads, a meter change, or weeks the building stood empty): "
+)
+
+
+def _fit_outlier_arrays(
+    p: pl.DataFrame, fit: pl.DataFrame, factor: float, isolation: float
+) -> tuple[pl.DataFrame, np.ndarray, np.ndarray] | None:
+    """:func:`fit_outlier_issues` over arrays: the fitted bills ``p`` (of buildings with a fit), whether each is
+    odd and its use over the prediction [-]; None where the bills are not in building and date order
+    without ties, a building has two fits, or a use or prediction is missing or not finite (then
+    :func:`_fit_outlier_frames`)."""
+    keys = ["building_id", "period_start", "period_end"]
+    if not metered.strictly_sorted(p, keys) or fit["building_id"].n_unique() != fit.height:
+        return None
+    if any(p[c].null_count() for c in ("days", "energy_kbtu", "hdd_per_day_fit")):
+        return None
+    # each building's fit, looked up once per building (the bills are in building order)
+    rid = p["building_id"].rle_id().to_numpy()
+    st = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]]) if p.height else np.zeros(0, dtype=np.int64)
+    per = p.select("building_id").gather(st).join(fit, on="building_id", how="left", maintain_order="left")
+    has = np.repeat(per["_a"].is_not_null().to_numpy(), np.diff(np.append(st, p.height)))
+    if not has.all():
+        p = p.filter(pl.Series(has))
+        per = per.filter(pl.col("_a").is_not_null())
+        rid = p["building_id"].rle_id().to_numpy()
+    if p.height == 0:
+        return p, np.zeros(0, dtype=bool), np.zeros(0)
+    first = np.r_[True, rid[1:] != rid[:-1]]
+    bld = np.cumsum(first) - 1
+    upd = p["energy_kbtu"].to_numpy() / p["days"].to_numpy()
+    pred = per["_a"].to_numpy()[bld] + per["_b"].to_numpy()[bld] * p["hdd_per_day_fit"].to_numpy()
+    if not (np.isfinite(upd).all() and np.isfinite(pred).all()):
+        return None
+    bmed = _ByValue(upd).stats(bld, int(bld[-1]) + 1)[1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        on = (pred > 0) & (upd > 0)
+        q = np.where(on, upd / pred, np.nan)
+        odd = (
+            on
+            & _spike(q, first, isolation)
+            & (((upd >= factor * pred) & (upd >= 0.5 * bmed)) | ((upd * factor <= pred) & (pred >= 0.5 * bmed)))
         )
+    return p, odd, q
+
+
+def _fit_outlier_frames(p: pl.DataFrame, fit: pl.DataFrame, factor: float, isolation: float) -> pl.DataFrame:
+    """:func:`fit_outlier_issues` as polars frames and windows (bills out of order, missing numbers)."""
+    p = p.join(fit, on="building_id", how="inner").with_columns(
+        (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
+        (pl.col("_a") + pl.col("_b") * pl.col("hdd_per_day_fit")).alias("_pred"),
     )
     p = p.sort("building_id", "period_start", "period_end").with_columns(
         pl.col("_upd").median().over("building_id").alias("_bmed"),
@@ -313,14 +413,13 @@ def fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float, 
         )
     )
     if odd.height == 0:
-        return empty
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
     return _odd_bills(
         odd,
         pl.col("_upd") / pl.col("_pred"),
         "what the building's weather fit predicts",
         "bill_off_fit",
-        "bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
-        "after estimated reads, a meter change, or weeks the building stood empty): ",
+        _FIT_HEAD,
     )
 
 
@@ -406,8 +505,13 @@ def filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
 
 def other_fuel_only(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
     """Buildings whose readings are all of fuels other than their heating fuel (``no_heating_fuel_readings``)."""
-    none = conv.group_by("building_id").agg(pl.col("is_heating_fuel").any().alias("_any")).filter(~pl.col("_any"))
-    conv = conv.filter(pl.col("building_id").is_in(none["building_id"].implode()))  # (their fuels only)
+    # the buildings of the runs of rows (one building's rows in a row) without a heating-fuel reading: every
+    # building without one (and, where a building's rows are not together, perhaps others: checked below)
+    heat = conv["is_heating_fuel"].fill_null(False).to_numpy()
+    rid = conv["building_id"].rle_id().to_numpy()
+    st = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]]) if conv.height else np.zeros(0, dtype=np.int64)
+    maybe = conv["building_id"].gather(st[~np.logical_or.reduceat(heat, st)] if len(st) else st)
+    conv = conv.filter(pl.col("building_id").is_in(maybe.implode())) if maybe.len() else conv.clear()
     per = conv.group_by("building_id").agg(
         pl.col("is_heating_fuel").any().alias("_any"), pl.col("fuel").unique().sort().str.join(", ").alias("_fuels")
     )
@@ -500,6 +604,9 @@ def chunk_issues(
     read_spans = spans.drop("station_id").with_columns(
         (pl.col("span_end") - pl.duration(days=pl.col("filled_days"))).alias("span_end")
     )
+    # the heating-fuel readings, taken once: the three detectors below look at no other (metered's take every
+    # reading of a frame without is_heating_fuel for one of the heating fuel)
+    heat = conv.filter(pl.col("is_heating_fuel")) if "is_heating_fuel" in conv.columns else conv
     issues = [
         metered.reading_issues(
             conv,
@@ -508,10 +615,12 @@ def chunk_issues(
             min_coverage=thr.coverage_min,
             max_estimated_share=thr.estimated_share_max,
         ),
-        metered.estimated_run_issues(conv, read_spans, min_run=thr.estimated_run_min),
-        missing_bill_issues(conv, spans, window),
+        metered.estimated_run_issues(
+            heat.drop("is_heating_fuel", strict=False), read_spans, min_run=thr.estimated_run_min
+        ),
+        missing_bill_issues(heat.select("building_id", "meter_id", "period_start", "period_end"), spans, window),
         filled_end_issues(met),
-        unit_error_issues(conv, b, thr.unit_error_factor, isolation=thr.unit_error_isolation),
+        unit_error_issues(heat, b, thr.unit_error_factor, isolation=thr.unit_error_isolation),
         fit_outlier_issues(periods, met, thr.unit_error_factor_fit, thr.unit_error_isolation),
     ]
     wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
