@@ -8,6 +8,7 @@ check once the per-building frame is assembled. No files, no database (orchestra
 
 from __future__ import annotations
 
+from datetime import date
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -122,20 +123,20 @@ class _ByValue:
         self.sorted = x[self.order]
 
     def stats(self, g: np.ndarray, size: int, within: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
-        """Count, median and sum of the values over the rows of each group, per row: ``g`` the rows' group
-        numbers (integers in ``[0, size)``). With ``within`` (a mask, in the order of the values), also the
-        same over the group's rows inside the mask (count 0, median NaN and sum 0 where there are none).
+        """Count, median and sum of the values over the rows of each group, per group: ``g`` the rows' group
+        numbers (integers in ``[0, size)``; index the tables with them for each row's). With ``within`` (a
+        mask, in the order of the values), also the same over the group's rows inside the mask (count 0,
+        median NaN and sum 0 where there are none, as for a group without rows).
 
         The median is polars' own: the middle value, or ``lo + (hi − lo)·0.5`` between the two middle ones;
         the sum runs over the group's values in increasing order (exact for a group of two, the only sums
-        used here). One sort of the integers ``g·2^bits + rank`` (no ties) puts the rows by group and value;
-        the statistics go into tables indexed by the group number.
+        used here). One sort of the integers ``g·2^bits + rank`` (no ties) puts the rows by group and value.
         """
         key = np.sort((g.astype(np.int64) << self.bits) | self.rank)
         place = key & ((1 << self.bits) - 1)
         gs, v = key >> self.bits, self.sorted[place]
 
-        def per_row(gs: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        def tables(gs: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
             new = np.ones(len(gs), dtype=bool)
             new[1:] = gs[1:] != gs[:-1]
             st = np.flatnonzero(new)
@@ -145,13 +146,13 @@ class _ByValue:
             count[gs[st]], med[gs[st]] = n, lo + (hi - lo) * 0.5
             if len(st):
                 tot[gs[st]] = np.add.reduceat(v, st)
-            return count[g], med[g], tot[g]
+            return count, med, tot
 
-        out = per_row(gs, v)
+        out = tables(gs, v)
         if within is None:
             return out
         w = within[place]  # (a subset of sorted rows is sorted)
-        return (*out, *per_row(gs[w], v[w]))
+        return (*out, *tables(gs[w], v[w]))
 
 
 def _spike(q: np.ndarray, first: np.ndarray, isolation: float) -> np.ndarray:
@@ -217,10 +218,11 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
     month = months[mid - lo] + 1  # (1 to 12)
     by_x = _ByValue(x)
     # only months of substantial use: summer use of a heating fuel varies by large factors on its own
-    mmed = by_x.stats(meter, int(meter[-1]) + 1)[1]
+    mmed = by_x.stats(meter, int(meter[-1]) + 1)[1][meter]
     big = x >= 0.5 * mmed
     grp = meter * 16 + month  # the meter and calendar month
-    n_all, med_all, tot_all, n, med, tot = by_x.stats(grp, int(meter[-1]) * 16 + 16, within=big[by_x.order])
+    per_month = by_x.stats(grp, int(meter[-1]) * 16 + 16, within=big[by_x.order])
+    n_all, med_all, tot_all, n, med, tot = (t[grp] for t in per_month)
     # (as _unit_error_odd; no statistic is null or NaN here but ``med`` of a month without substantial use)
     with np.errstate(divide="ignore", invalid="ignore"):
         own = np.where(n == 2, x / (tot - x), x / med)
@@ -380,7 +382,7 @@ def _fit_outlier_arrays(
     pred = per["_a"].to_numpy()[bld] + per["_b"].to_numpy()[bld] * p["hdd_per_day_fit"].to_numpy()
     if not (np.isfinite(upd).all() and np.isfinite(pred).all()):
         return None
-    bmed = _ByValue(upd).stats(bld, int(bld[-1]) + 1)[1]
+    bmed = _ByValue(upd).stats(bld, int(bld[-1]) + 1)[1][bld]
     with np.errstate(divide="ignore", invalid="ignore"):
         on = (pred > 0) & (upd > 0)
         q = np.where(on, upd / pred, np.nan)
@@ -452,7 +454,10 @@ def _odd_bills(odd: pl.DataFrame, ratio: pl.Expr, against: str, code: str, head:
 def missing_bill_issues(conv: pl.DataFrame, spans: pl.DataFrame, window) -> pl.DataFrame:
     """Heating-fuel bills missing inside the analysis window, their dates named (``missing_bills``)."""
     ws, we = window
-    g = metered.missing_bills(conv, ws, we, spans=spans)
+    if "is_heating_fuel" in conv.columns:  # (metered.missing_bills looks at no other reading)
+        conv = conv.filter(pl.col("is_heating_fuel"))
+    keep = _maybe_missing(conv, ws, we)
+    g = metered.missing_bills(conv if keep is None else conv.filter(pl.Series(keep)), ws, we, spans=spans)
     g = g.with_columns(
         (
             pl.when(pl.col("meter_id").is_null())
@@ -474,6 +479,46 @@ def missing_bill_issues(conv: pl.DataFrame, spans: pl.DataFrame, window) -> pl.D
         )
         .sort("building_id")
     )
+
+
+def _maybe_missing(r: pl.DataFrame, ws: date, we: date) -> np.ndarray | None:
+    """Which heating-fuel readings ``r`` (``building_id, period_start, period_end``, optional ``meter_id``) are
+    of a building that may miss a bill in ``[ws, we]`` (:func:`screening.metered.missing_bills`, whose every
+    result is one building's): all but those of the buildings with one meter whose reads leave no day of
+    the window unread (then there is no gap before, between or after the reads inside the window, and a
+    meter's gaps are the building's). None (every building) where a building's rows are not together,
+    in date order and read forwards, or a key is missing.
+
+    One pass over the rows in their order: the running latest end of the building's earlier reads
+    (day ordinals), a gap where a read starts more than a day after it.
+    """
+    cols = ["building_id", "period_start", "period_end"]
+    if r.height == 0 or any(r[c].null_count() for c in cols):
+        return None
+    bid = r["building_id"].rle_id().to_numpy()
+    first = np.r_[True, bid[1:] != bid[:-1]]
+    st = np.flatnonzero(first)
+    if r["building_id"].gather(st).n_unique() != len(st):  # (a building's rows apart)
+        return None
+    s = r["period_start"].to_physical().to_numpy().astype(np.int64)
+    e = r["period_end"].to_physical().to_numpy().astype(np.int64)
+    later = ~first[1:]
+    if (e < s).any() or (later & (s[1:] < s[:-1])).any():
+        return None
+    grp = np.cumsum(first) - 1
+    lo = int(e.min())
+    lift = grp * (int(e.max()) - lo + 2)
+    prev = np.maximum.accumulate(lift + (e - lo)) - lift + lo  # the latest end up to each row
+    epoch = date(1970, 1, 1)
+    w0, w1 = (ws - epoch).days, (we - epoch).days
+    # a gap [prev + 1, s − 1] before a read that reaches into the window
+    bad = np.r_[False, later & (s[1:] > prev[:-1] + 1) & (prev[:-1] + 1 <= w1) & (s[1:] - 1 >= w0)]
+    if "meter_id" in r.columns:  # (a second meter: its own gaps, which other meters' reads may cover)
+        mid = r["meter_id"].rle_id().to_numpy()
+        bad[1:] |= later & (mid[1:] != mid[:-1])
+    n = np.diff(np.append(st, len(s)))
+    may = np.logical_or.reduceat(bad, st) | (s[st] > w0) | (np.maximum.reduceat(e, st) < w1)
+    return np.repeat(may, n)
 
 
 def filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
