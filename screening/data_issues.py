@@ -521,6 +521,117 @@ def _maybe_missing(r: pl.DataFrame, ws: date, we: date) -> np.ndarray | None:
     return np.repeat(may, n)
 
 
+def reading_issues(
+    conv: pl.DataFrame,
+    spans: pl.DataFrame,
+    *,
+    lookback_months: int,
+    min_coverage: float,
+    max_estimated_share: float,
+) -> pl.DataFrame:
+    """:func:`screening.metered.reading_issues` (same arguments, same frame) over the readings of the buildings
+    that may have one (:func:`_maybe_reading_issue`)."""
+    may = _maybe_reading_issue(conv, spans, max_estimated_share)
+    return metered.reading_issues(
+        conv if may is None else conv.filter(pl.Series(may)),
+        spans,
+        lookback_months=lookback_months,
+        min_coverage=min_coverage,
+        max_estimated_share=max_estimated_share,
+    )
+
+
+def _maybe_reading_issue(r: pl.DataFrame, spans: pl.DataFrame, max_estimated_share: float) -> np.ndarray | None:
+    """Which readings ``r`` are of a building that may have an issue of :func:`screening.metered.reading_issues`
+    (whose every result is one building's; ``low_coverage`` comes from ``spans`` alone): all but those of
+    the buildings whose reads of each fuel and meter never start before an earlier one ends (no duplicate,
+    no overlap), whose heating-fuel reads in the span (``spans``: ``building_id, span_start, span_end``) are
+    not more than ``max_estimated_share`` estimated, and that have one heating-fuel meter whose reads leave
+    no day of the span unread (no gap). None (every
+    building) where the rows are not in building, fuel, meter and date order, a key is missing, a read
+    ends before it starts or ``is_heating_fuel`` differs within a fuel and meter.
+
+    One pass over the rows in their order: the running latest end of the earlier reads of the same fuel
+    and meter (day ordinals); a read that starts on or before it may overlap, one that starts more than a
+    day after it leaves a gap.
+    """
+    cols = ["building_id", "fuel", "period_start", "period_end"]
+    if r.height == 0 or max_estimated_share < 0 or any(r[c].null_count() for c in cols):
+        return None
+    if spans["building_id"].n_unique() != spans.height:
+        return None
+    keys = r.select(
+        "building_id",
+        "fuel",
+        *([pl.col("meter_id").cast(pl.String).fill_null("")] if "meter_id" in r.columns else []),
+        "period_start",
+        "period_end",
+    ).rechunk()
+    s = keys["period_start"].to_physical().to_numpy().astype(np.int64)
+    e = keys["period_end"].to_physical().to_numpy().astype(np.int64)
+    if (e < s).any():
+        return None
+    bid = keys["building_id"].rle_id().to_numpy()
+    new_b = np.r_[True, bid[1:] != bid[:-1]]
+    new_g = new_b.copy()  # a new fuel and meter
+    for c in keys.columns[1:-2]:
+        rid = keys[c].rle_id().to_numpy()
+        new_g[1:] |= rid[1:] != rid[:-1]
+    # in order (metered.strictly_sorted with ties, its text keys compared where they change only): dates
+    # within a fuel and meter, and each fuel and meter after the one before
+    later = ~new_g[1:]
+    if (later & ((s[1:] < s[:-1]) | ((s[1:] == s[:-1]) & (e[1:] < e[:-1])))).any():
+        return None
+    at = np.flatnonzero(new_g[1:])
+    after, same = np.zeros(len(at), dtype=bool), np.ones(len(at), dtype=bool)
+    for c in keys.columns[:-2]:
+        x, y = keys[c].gather(at), keys[c].gather(at + 1)
+        after |= same & (y > x).to_numpy()
+        same &= (y == x).to_numpy()
+    if not after.all():
+        return None
+    g = np.cumsum(new_g) - 1
+    lo = int(e.min())
+    lift = g * (int(e.max()) - lo + 2)
+    run = np.maximum.accumulate(lift + (e - lo)) - lift + lo  # the latest end up to each row, by fuel and meter
+    heat = r["is_heating_fuel"].fill_null(False).to_numpy() if "is_heating_fuel" in r.columns else np.ones(len(s), bool)
+    if (later & (heat[1:] != heat[:-1])).any():  # (a fuel and meter's reads the heating fuel's and not)
+        return None
+    # the span of each building's rows
+    st = np.flatnonzero(new_b)
+    n = np.diff(np.append(st, len(s)))
+    span = (
+        keys.select("building_id")
+        .gather(st)
+        .join(
+            spans.select("building_id", "span_start", "span_end"), on="building_id", how="left", maintain_order="left"
+        )
+    )
+    no_span = (span["span_start"].is_null() | span["span_end"].is_null()).to_numpy()
+    ss = np.repeat(span["span_start"].to_physical().fill_null(0).to_numpy().astype(np.int64), n)
+    se = np.repeat(span["span_end"].to_physical().fill_null(0).to_numpy().astype(np.int64), n)
+    bad = np.zeros(len(s), dtype=bool)
+    bad[1:] = later & (s[1:] <= run[:-1])  # (a duplicate or an overlap)
+    gap = later & (s[1:] > run[:-1] + 1) & (run[:-1] + 1 <= se[1:]) & (s[1:] - 1 >= ss[1:])
+    bad[1:] |= heat[1:] & gap
+    many = np.zeros(len(st), dtype=bool)
+    if "estimated" in r.columns:  # (the share of estimated reads among the heating-fuel reads in the span)
+        in_span = heat & (s <= se) & (e >= ss)
+        n_est = np.add.reduceat(in_span & r["estimated"].cast(pl.Boolean).fill_null(False).to_numpy(), st)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            many = (n_est > 0) & (n_est / np.add.reduceat(in_span, st) > max_estimated_share * (1 - 1e-9))
+    big = np.iinfo(np.int64).max
+    may = (
+        np.logical_or.reduceat(bad, st)
+        | many
+        | no_span
+        | (np.add.reduceat(heat & new_g, st) != 1)  # (no heating-fuel read, or reads of two meters)
+        | (np.minimum.reduceat(np.where(heat, s, big), st) > ss[st])
+        | (np.maximum.reduceat(np.where(heat, e, -big), st) < se[st])
+    )
+    return np.repeat(may, n)
+
+
 def filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
     """Spans whose last days had no reading yet and were filled (``end_days_filled``)."""
     f = met.filter(pl.col("filled_days") > 0)
@@ -641,7 +752,8 @@ def chunk_issues(
 ) -> pl.DataFrame:
     """Every data issue of a chunk of buildings but the one against the expectation (:func:`far_from_expectation`).
 
-    ``spans`` carries ``station_id``; ``span_missing`` is the days without weather of each span (in ``spans``
+    ``conv`` as :func:`screening.units.convert_to_kbtu` returns it for ``b`` (its ``is_heating_fuel`` is the
+    fuel against the building's ``heating_fuel``); ``spans`` carries ``station_id``; ``span_missing`` is the days without weather of each span (in ``spans``
     order); ``thr`` the ``[thresholds]`` settings (:class:`screening.config.Thresholds`). Returns ``building_id, code, detail, blocking`` sorted by
     building and code, ``blocking`` as declared in :data:`DATA_ISSUE_CODES`.
     """
@@ -653,7 +765,7 @@ def chunk_issues(
     # reading of a frame without is_heating_fuel for one of the heating fuel)
     heat = conv.filter(pl.col("is_heating_fuel")) if "is_heating_fuel" in conv.columns else conv
     issues = [
-        metered.reading_issues(
+        reading_issues(
             conv,
             read_spans,
             lookback_months=lookback_months,
