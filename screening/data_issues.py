@@ -186,6 +186,24 @@ def _heating_bills(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
     )  # (a left join, its unmatched rows dropped by the filter: quicker than an inner join)
 
 
+def _wide_meters(x: np.ndarray, meter: np.ndarray, grp: np.ndarray, factor: float) -> np.ndarray | None:
+    """The rows (indices, in order) of the meters that may hold a bill ``factor`` off in
+    :func:`unit_error_issues_block`: those with a calendar month (``grp``) whose largest use per day ``x``
+    is ``factor`` × its smallest or more (1 % margin for rounding), or whose smallest is not positive.
+    A bill's ratio to its month's median, or to the month's other bill, lies between the month's smallest
+    and largest bill over each other, so no other month can give one; whole meters are kept, for the
+    meter's median and a bill's neighbours. None (every row) for a factor outside (1, 10^6]."""
+    if not 1.0 < factor <= 1e6:
+        return None
+    size = int(meter[-1]) * 16 + 16
+    hi, lo = np.full(size, -np.inf), np.full(size, np.inf)
+    np.maximum.at(hi, grp, x)
+    np.minimum.at(lo, grp, x)
+    wide = np.zeros(int(meter[-1]) + 1, dtype=bool)
+    wide[np.flatnonzero((lo <= 0) | (hi >= lo * factor * 0.99)) // 16] = True
+    return np.flatnonzero(wide[meter])
+
+
 def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, isolation: float = 1.0) -> pl.DataFrame:
     """Readings that differ from the same calendar month of other years by ≥ ``factor``, as a spike.
 
@@ -215,12 +233,16 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
     mid = heat["period_start"].to_physical().to_numpy() + days // 2  # the middle day of the bill (day ordinal)
     lo = int(mid.min())
     months = np.arange(lo, int(mid.max()) + 1).astype("datetime64[D]").astype("datetime64[M]").astype(np.int64) % 12
-    month = months[mid - lo] + 1  # (1 to 12)
+    grp = meter * 16 + months[mid - lo] + 1  # the meter and calendar month (1 to 12)
+    rows = _wide_meters(x, meter, grp, factor)
+    if rows is not None:  # (the other meters' bills cannot be `factor` off)
+        if not len(rows):
+            return pl.DataFrame(schema=_ISSUE_SCHEMA)
+        x, meter, grp = x[rows], meter[rows], grp[rows]
     by_x = _ByValue(x)
     # only months of substantial use: summer use of a heating fuel varies by large factors on its own
     mmed = by_x.stats(meter, int(meter[-1]) + 1)[1][meter]
     big = x >= 0.5 * mmed
-    grp = meter * 16 + month  # the meter and calendar month
     per_month = by_x.stats(grp, int(meter[-1]) * 16 + 16, within=big[by_x.order])
     n_all, med_all, tot_all, n, med, tot = (t[grp] for t in per_month)
     # (as _unit_error_odd; no statistic is null or NaN here but ``med`` of a month without substantial use)
@@ -235,8 +257,9 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
         odd = ((q >= factor) | (q * factor <= 1)) & _spike(q, first, isolation)
     if not odd.any():
         return pl.DataFrame(schema=_ISSUE_SCHEMA)
+    at = np.flatnonzero(odd) if rows is None else rows[odd]
     return _odd_bills(
-        heat.filter(pl.Series(odd)).with_columns(pl.Series("_q", q[odd])),
+        heat[at].with_columns(pl.Series("_q", q[odd])),
         pl.col("_q"),
         "the same month's median",
         "likely_unit_error",
