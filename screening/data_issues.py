@@ -405,13 +405,21 @@ def _fit_outlier_arrays(
     pred = per["_a"].to_numpy()[bld] + per["_b"].to_numpy()[bld] * p["hdd_per_day_fit"].to_numpy()
     if not (np.isfinite(upd).all() and np.isfinite(pred).all()):
         return None
-    bmed = _ByValue(upd).stats(bld, int(bld[-1]) + 1)[1][bld]
     with np.errstate(divide="ignore", invalid="ignore"):
         on = (pred > 0) & (upd > 0)
         q = np.where(on, upd / pred, np.nan)
-        odd = (
-            on
-            & _spike(q, first, isolation)
+        far = on & ((upd >= factor * pred) | (upd * factor <= pred))
+        # the median and the neighbours only for the buildings with a bill that far off (all their bills)
+        st = np.flatnonzero(first)
+        rows = np.flatnonzero(np.repeat(np.logical_or.reduceat(far, st), np.diff(np.append(st, len(upd)))))
+        odd = np.zeros(len(upd), dtype=bool)
+        if not len(rows):
+            return p, odd, q
+        upd, pred, bld, q_in = upd[rows], pred[rows], bld[rows], q[rows]
+        bmed = _ByValue(upd).stats(bld, int(bld[-1]) + 1)[1][bld]
+        odd[rows] = (
+            far[rows]
+            & _spike(q_in, first[rows], isolation)
             & (((upd >= factor * pred) & (upd >= 0.5 * bmed)) | ((upd * factor <= pred) & (pred >= 0.5 * bmed)))
         )
     return p, odd, q
