@@ -110,6 +110,40 @@ def spike(q: pl.Expr, over: list[str], isolation: float) -> pl.Expr:
     return (pl.when(q >= 1).then(hi).otherwise(lo) | far).fill_null(False)
 
 
+def _starts(df: pl.DataFrame, keys: list[str], also: np.ndarray | None = None) -> np.ndarray:
+    """True on each row whose ``keys`` differ from the previous row's (row 0 included; runs of equal values,
+    nulls equal), or where ``also`` is true."""
+    new = np.zeros(df.height, dtype=bool) if also is None else also.copy()
+    new[:1] = True
+    for c in keys:
+        rid = df[c].rle_id().to_numpy()
+        new[1:] |= rid[1:] != rid[:-1]
+    return new
+
+
+def _in_order(df: pl.DataFrame, keys: list[str], dates: tuple[np.ndarray, ...], new: np.ndarray, *, ties: bool) -> bool:
+    """:func:`screening.metered.strictly_sorted` of ``df`` by the text ``keys`` and then ``dates`` (day
+    ordinals, in their order), ``new`` the rows where the keys change (:func:`_starts`): within a group the
+    dates after the previous row's (or equal, with ``ties``), and each group's keys after the previous
+    group's, those compared where they change only. No nulls in the keys."""
+    if any(df[c].null_count() for c in keys):
+        return False
+    later = ~new[1:]
+    after, same = np.zeros(len(later), dtype=bool), np.ones(len(later), dtype=bool)
+    for d in dates:
+        after |= same & (d[1:] > d[:-1])
+        same &= d[1:] == d[:-1]
+    if not (~later | after | (same & ties)).all():
+        return False
+    at = np.flatnonzero(new[1:])
+    after, same = np.zeros(len(at), dtype=bool), np.ones(len(at), dtype=bool)
+    for c in keys:
+        x, y = df[c].gather(at), df[c].gather(at + 1)
+        after |= same & (y > x).to_numpy()
+        same &= (y == x).to_numpy()
+    return bool(after.all())
+
+
 class _ByValue:
     """Rows of values ``x`` [any unit] (finite) in increasing order, for statistics over groups of them:
     ``order`` the rows in that order, ``rank`` each row's place in it, ``sorted`` the values in it, ``bits``
@@ -216,8 +250,13 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
     heat = _heating_bills(conv, b)
     if heat.height == 0:
         return pl.DataFrame(schema=_ISSUE_SCHEMA)
-    heat = metered.sort_rows(heat, ["building_id", "meter_id", "period_start"])
-    meter = np.cumsum(heat.select(metered.group_starts(["building_id", "meter_id"])).to_series().to_numpy())
+    heat = heat.rechunk()
+    new = _starts(heat, ["building_id", "meter_id"])
+    start = heat["period_start"].to_physical().to_numpy()
+    if heat["period_start"].null_count() or not _in_order(heat, ["building_id", "meter_id"], (start,), new, ties=False):
+        heat = heat.sort("building_id", "meter_id", "period_start")  # (ties kept as this sort leaves them)
+        new = heat.select(metered.group_starts(["building_id", "meter_id"])).to_series().to_numpy()
+    meter = np.cumsum(new)
     days = heat["days"].to_numpy()
     with np.errstate(divide="ignore", invalid="ignore"):
         x = heat["energy_kbtu"].to_numpy() / days  # [kBtu/day]
@@ -602,25 +641,11 @@ def _maybe_reading_issue(r: pl.DataFrame, spans: pl.DataFrame, max_estimated_sha
     e = keys["period_end"].to_physical().to_numpy().astype(np.int64)
     if (e < s).any():
         return None
-    bid = keys["building_id"].rle_id().to_numpy()
-    new_b = np.r_[True, bid[1:] != bid[:-1]]
-    new_g = new_b.copy()  # a new fuel and meter
-    for c in keys.columns[1:-2]:
-        rid = keys[c].rle_id().to_numpy()
-        new_g[1:] |= rid[1:] != rid[:-1]
-    # in order (metered.strictly_sorted with ties, its text keys compared where they change only): dates
-    # within a fuel and meter, and each fuel and meter after the one before
+    new_b = _starts(keys, ["building_id"])
+    new_g = _starts(keys, keys.columns[:-2], new_b)  # a new fuel and meter
+    if not _in_order(keys, keys.columns[:-2], (s, e), new_g, ties=True):
+        return None
     later = ~new_g[1:]
-    if (later & ((s[1:] < s[:-1]) | ((s[1:] == s[:-1]) & (e[1:] < e[:-1])))).any():
-        return None
-    at = np.flatnonzero(new_g[1:])
-    after, same = np.zeros(len(at), dtype=bool), np.ones(len(at), dtype=bool)
-    for c in keys.columns[:-2]:
-        x, y = keys[c].gather(at), keys[c].gather(at + 1)
-        after |= same & (y > x).to_numpy()
-        same &= (y == x).to_numpy()
-    if not after.all():
-        return None
     g = np.cumsum(new_g) - 1
     lo = int(e.min())
     lift = g * (int(e.max()) - lo + 2)
