@@ -556,8 +556,8 @@ def _maybe_missing(r: pl.DataFrame, ws: date, we: date) -> np.ndarray | None:
     of a building that may miss a bill in ``[ws, we]`` (:func:`screening.metered.missing_bills`, whose every
     result is one building's): all but those of the buildings with one meter whose reads leave no day of
     the window unread (then there is no gap before, between or after the reads inside the window, and a
-    meter's gaps are the building's). None (every building) where a building's rows are not together,
-    in date order and read forwards, or a key is missing.
+    meter's gaps are the building's), of rows in date order and read forwards. None (every building) where
+    a building's rows are not together, or a key is missing.
 
     One pass over the rows in their order: the running latest end of the building's earlier reads
     (day ordinals), a gap where a read starts more than a day after it.
@@ -573,8 +573,6 @@ def _maybe_missing(r: pl.DataFrame, ws: date, we: date) -> np.ndarray | None:
     s = r["period_start"].to_physical().to_numpy().astype(np.int64)
     e = r["period_end"].to_physical().to_numpy().astype(np.int64)
     later = ~first[1:]
-    if (e < s).any() or (later & (s[1:] < s[:-1])).any():
-        return None
     grp = np.cumsum(first) - 1
     lo = int(e.min())
     lift = grp * (int(e.max()) - lo + 2)
@@ -583,6 +581,8 @@ def _maybe_missing(r: pl.DataFrame, ws: date, we: date) -> np.ndarray | None:
     w0, w1 = (ws - epoch).days, (we - epoch).days
     # a gap [prev + 1, s − 1] before a read that reaches into the window
     bad = np.r_[False, later & (s[1:] > prev[:-1] + 1) & (prev[:-1] + 1 <= w1) & (s[1:] - 1 >= w0)]
+    bad |= e < s  # (a read backwards, or out of date order: the building is looked at)
+    bad[1:] |= later & (s[1:] < s[:-1])
     if "meter_id" in r.columns:  # (a second meter: its own gaps, which other meters' reads may cover)
         mid = r["meter_id"].rle_id().to_numpy()
         bad[1:] |= later & (mid[1:] != mid[:-1])
