@@ -8,6 +8,7 @@ check once the per-building frame is assembled. No files, no database (orchestra
 
 from __future__ import annotations
 
+from datetime import date
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -48,6 +49,8 @@ PIPELINE_ISSUE_CODES = issue_codes("pipeline")
 DATA_ISSUE_CODES = {**metered.ISSUE_CODES, **PIPELINE_ISSUE_CODES}
 #: Issues that leave no basis for a ratio: no likely_unit_error is claimed beside them.
 NO_BASIS_CODES = ("no_readings", "no_heating_fuel_readings", "no_weather_at_station")
+#: The issues frame every detector returns.
+_ISSUE_SCHEMA = pl.Schema({"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean})
 
 
 #: The unit mix-ups each heating fuel's bills are prone to, named in the likely_unit_error detail (our own
@@ -107,51 +110,132 @@ def spike(q: pl.Expr, over: list[str], isolation: float) -> pl.Expr:
     return (pl.when(q >= 1).then(hi).otherwise(lo) | far).fill_null(False)
 
 
-def _ranks(x: np.ndarray) -> np.ndarray:
-    """Each value's place in ``x`` sorted (0, 1, …; ties in any order) [-]."""
-    rank = np.empty(len(x), dtype=np.int64)
-    rank[np.argsort(x)] = np.arange(len(x))
-    return rank
+def _starts(df: pl.DataFrame, keys: list[str], also: np.ndarray | None = None) -> np.ndarray:
+    """True on each row whose ``keys`` differ from the previous row's (row 0 included; runs of equal values,
+    nulls equal), or where ``also`` is true."""
+    new = np.zeros(df.height, dtype=bool) if also is None else also.copy()
+    new[:1] = True
+    for c in keys:
+        rid = df[c].rle_id().to_numpy()
+        new[1:] |= rid[1:] != rid[:-1]
+    return new
 
 
-def _sorted_stats(k: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, ...]:
-    """Over rows sorted by key ``k`` and, within a key, by value ``v``: each group's key, count, median and
-    sum, and the group number of each row. The median is polars' own: the middle value, or
-    ``lo + (hi − lo)·0.5`` between the two middle ones; the sum is sequential (exact for a group of two,
-    the only sums used here)."""
-    new = np.ones(len(k), dtype=bool)
-    new[1:] = k[1:] != k[:-1]
-    st = np.flatnonzero(new)
-    n = np.diff(np.append(st, len(k)))
-    lo, hi = v[st + (n - 1) // 2], v[st + n // 2]
-    tot = np.add.reduceat(v, st) if len(st) else np.zeros(0)
-    return k[st], n, lo + (hi - lo) * 0.5, tot, np.cumsum(new) - 1
+def _in_order(df: pl.DataFrame, keys: list[str], dates: tuple[np.ndarray, ...], new: np.ndarray, *, ties: bool) -> bool:
+    """:func:`screening.metered.strictly_sorted` of ``df`` by the text ``keys`` and then ``dates`` (day
+    ordinals, in their order), ``new`` the rows where the keys change (:func:`_starts`): within a group the
+    dates after the previous row's (or equal, with ``ties``), and each group's keys after the previous
+    group's, those compared where they change only. No nulls in the keys."""
+    if any(df[c].null_count() for c in keys):
+        return False
+    later = ~new[1:]
+    after, same = np.zeros(len(later), dtype=bool), np.ones(len(later), dtype=bool)
+    for d in dates:
+        after |= same & (d[1:] > d[:-1])
+        same &= d[1:] == d[:-1]
+    if not (~later | after | (same & ties)).all():
+        return False
+    at = np.flatnonzero(new[1:])
+    after, same = np.zeros(len(at), dtype=bool), np.ones(len(at), dtype=bool)
+    for c in keys:
+        x, y = df[c].gather(at), df[c].gather(at + 1)
+        after |= same & (y > x).to_numpy()
+        same &= (y == x).to_numpy()
+    return bool(after.all())
 
 
-def _group_stats(
-    key: np.ndarray, x: np.ndarray, rank: np.ndarray, within: np.ndarray | None = None
-) -> tuple[np.ndarray, ...]:
-    """Count, median and sum of ``x`` [any unit] over the rows of each ``key`` (integers ≥ 0; ``x`` finite),
-    per row (:func:`_sorted_stats`); ``rank`` orders ``x`` (:func:`_ranks`). With ``within`` (a mask), also
-    the same over the group's rows inside the mask (count 0, median NaN and sum 0 where there are none).
-    One sort of the rows by key and value instead of a grouping.
-    """
-    o = np.argsort(key * (int(rank.max(initial=0)) + 1) + rank, kind="stable")  # by key, then value (keys ≥ 0)
-    k, v = key[o], x[o]
-    keys, n, med, tot, g_sorted = _sorted_stats(k, v)
-    g = np.empty(len(k), dtype=np.int64)
-    g[o] = g_sorted
-    out = (n[g], med[g], tot[g])
-    if within is None:
-        return out
-    w = within[o]
-    kw, nw, medw, totw, _ = _sorted_stats(k[w], v[w])  # (a subset of sorted rows is sorted)
-    if not len(kw):
-        return (*out, np.zeros(len(x), dtype=np.int64), np.full(len(x), np.nan), np.zeros(len(x)))
-    i = np.minimum(np.searchsorted(kw, keys), len(kw) - 1)
-    found = kw[i] == keys
-    n_in, med_in, tot_in = np.where(found, nw[i], 0), np.where(found, medw[i], np.nan), np.where(found, totw[i], 0.0)
-    return (*out, n_in[g], med_in[g], tot_in[g])
+class _ByValue:
+    """Rows of values ``x`` [any unit] (finite) in increasing order, for statistics over groups of them:
+    ``order`` the rows in that order, ``rank`` each row's place in it, ``sorted`` the values in it, ``bits``
+    the bits of a place."""
+
+    def __init__(self, x: np.ndarray):
+        self.order = np.argsort(x)
+        self.bits = max(int(len(x)).bit_length(), 1)
+        self.rank = np.empty(len(x), dtype=np.int64)
+        self.rank[self.order] = np.arange(len(x))
+        self.sorted = x[self.order]
+
+    def stats(self, g: np.ndarray, size: int, within: np.ndarray | None = None) -> tuple[np.ndarray, ...]:
+        """Count, median and sum of the values over the rows of each group, per group: ``g`` the rows' group
+        numbers (integers in ``[0, size)``; index the tables with them for each row's). With ``within`` (a
+        mask, in the order of the values), also the same over the group's rows inside the mask (count 0,
+        median NaN and sum 0 where there are none, as for a group without rows).
+
+        The median is polars' own: the middle value, or ``lo + (hi − lo)·0.5`` between the two middle ones;
+        the sum runs over the group's values in increasing order (exact for a group of two, the only sums
+        used here). One sort of the integers ``g·2^bits + rank`` (no ties) puts the rows by group and value.
+        """
+        key = np.sort((g.astype(np.int64) << self.bits) | self.rank)
+        place = key & ((1 << self.bits) - 1)
+        gs, v = key >> self.bits, self.sorted[place]
+
+        def tables(gs: np.ndarray, v: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+            new = np.ones(len(gs), dtype=bool)
+            new[1:] = gs[1:] != gs[:-1]
+            st = np.flatnonzero(new)
+            n = np.diff(np.append(st, len(gs)))
+            lo, hi = v[st + (n - 1) // 2], v[st + n // 2]
+            count, med, tot = np.zeros(size, dtype=np.int64), np.full(size, np.nan), np.zeros(size)
+            count[gs[st]], med[gs[st]] = n, lo + (hi - lo) * 0.5
+            if len(st):
+                tot[gs[st]] = np.add.reduceat(v, st)
+            return count, med, tot
+
+        out = tables(gs, v)
+        if within is None:
+            return out
+        w = within[place]  # (a subset of sorted rows is sorted)
+        return (*out, *tables(gs[w], v[w]))
+
+
+def _spike(q: np.ndarray, first: np.ndarray, isolation: float) -> np.ndarray:
+    """:func:`spike` over arrays: ``q`` [-] (NaN where there is none), ``first`` true on each series' first
+    row (rows sorted by series and time)."""
+    prev, nxt = np.ones(len(q)), np.ones(len(q))
+    prev[1:], nxt[:-1] = q[:-1], q[1:]
+    last = np.ones(len(q), dtype=bool)
+    last[:-1] = first[1:]
+    prev = np.where(first | np.isnan(prev), 1.0, prev)
+    nxt = np.where(last | np.isnan(nxt), 1.0, nxt)
+    hi = (q >= isolation * prev) & (q >= isolation * nxt)
+    lo = (q * isolation <= prev) & (q * isolation <= nxt)
+    far = (q >= UNIT_ERROR_FACTOR_ANY) | (q * UNIT_ERROR_FACTOR_ANY <= 1)
+    return np.where(q >= 1, hi, lo) | far
+
+
+def _heating_bills(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
+    """The readings of each building's heating fuel that are monthly bills (20 to 62 days), in their order:
+    by ``is_heating_fuel`` where the readings carry it (:func:`screening.units.convert_to_kbtu`: the fuel
+    is the building's ``heating_fuel``), else by ``b.heating_fuel``."""
+    cols = ["building_id", "meter_id", "period_start", "period_end", "days", "energy_kbtu"]
+    monthly = (pl.col("days") <= 62) & (pl.col("days") >= 20)
+    if "is_heating_fuel" in conv.columns:
+        return conv.filter(pl.col("is_heating_fuel") & monthly).select(cols)
+    return (
+        conv.select(*cols, "fuel")
+        .join(b.select("building_id", "heating_fuel"), on="building_id", how="left", maintain_order="left")
+        .filter((pl.col("fuel") == pl.col("heating_fuel")) & monthly)
+        .select(cols)
+    )  # (a left join, its unmatched rows dropped by the filter: quicker than an inner join)
+
+
+def _wide_meters(x: np.ndarray, meter: np.ndarray, grp: np.ndarray, factor: float) -> np.ndarray | None:
+    """The rows (indices, in order) of the meters that may hold a bill ``factor`` off in
+    :func:`unit_error_issues_block`: those with a calendar month (``grp``) whose largest use per day ``x``
+    is ``factor`` × its smallest or more (1 % margin for rounding), or whose smallest is not positive.
+    A bill's ratio to its month's median, or to the month's other bill, lies between the month's smallest
+    and largest bill over each other, so no other month can give one; whole meters are kept, for the
+    meter's median and a bill's neighbours. None (every row) for a factor outside (1, 10^6]."""
+    if not 1.0 < factor <= 1e6:
+        return None
+    size = int(meter[-1]) * 16 + 16
+    hi, lo = np.full(size, -np.inf), np.full(size, np.inf)
+    np.maximum.at(hi, grp, x)
+    np.minimum.at(lo, grp, x)
+    wide = np.zeros(int(meter[-1]) + 1, dtype=bool)
+    wide[np.flatnonzero((lo <= 0) | (hi >= lo * factor * 0.99)) // 16] = True
+    return np.flatnonzero(wide[meter])
 
 
 def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, isolation: float = 1.0) -> pl.DataFrame:
@@ -163,44 +247,63 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
     readings' own ratios (:func:`spike`): a run of months off together is a step (waste that
     began), which the ratio of the whole span to the expectation judges instead.
     """
-    empty = pl.DataFrame(
-        schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
-    )
-    heat = (
-        conv.select("building_id", "meter_id", "fuel", "period_start", "period_end", "days", "energy_kbtu")
-        .join(b.select("building_id", "heating_fuel"), on="building_id", how="left", maintain_order="left")
-        .filter((pl.col("fuel") == pl.col("heating_fuel")) & (pl.col("days") <= 62) & (pl.col("days") >= 20))
-    )  # (a left join, its unmatched rows dropped by the filter: quicker than an inner join)
+    heat = _heating_bills(conv, b)
     if heat.height == 0:
-        return empty
-    mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
-    heat = (
-        heat.sort("building_id", "meter_id", "period_start")
-        .with_columns((pl.col("energy_kbtu") / pl.col("days")).alias("_upd"), mid.dt.month().alias("_m"))
-        .with_columns(metered.group_starts(["building_id", "meter_id"]).cum_sum().cast(pl.Int64).alias("_gm"))
-    )
-    upd = heat["_upd"]
-    if upd.null_count() or not upd.is_finite().all():  # (the sort-based statistics need finite numbers)
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
+    heat = heat.rechunk()
+    new = _starts(heat, ["building_id", "meter_id"])
+    start = heat["period_start"].to_physical().to_numpy()
+    if heat["period_start"].null_count() or not _in_order(heat, ["building_id", "meter_id"], (start,), new, ties=False):
+        heat = heat.sort("building_id", "meter_id", "period_start")  # (ties kept as this sort leaves them)
+        new = heat.select(metered.group_starts(["building_id", "meter_id"])).to_series().to_numpy()
+    meter = np.cumsum(new)
+    days = heat["days"].to_numpy()
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x = heat["energy_kbtu"].to_numpy() / days  # [kBtu/day]
+    if any(heat[c].null_count() for c in ("period_start", "days", "energy_kbtu")) or not np.isfinite(x).all():
+        # (the sort-based statistics need finite numbers)
+        mid = pl.col("period_start") + pl.duration(days=(pl.col("days") // 2))
+        heat = heat.with_columns(
+            (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
+            mid.dt.month().alias("_m"),
+            pl.Series("_gm", meter, dtype=pl.Int64),
+        )
         return _unit_error_windows(heat, factor, isolation)
-    x = upd.to_numpy()
-    meter = heat["_gm"].to_numpy()
+    mid = heat["period_start"].to_physical().to_numpy() + days // 2  # the middle day of the bill (day ordinal)
+    lo = int(mid.min())
+    months = np.arange(lo, int(mid.max()) + 1).astype("datetime64[D]").astype("datetime64[M]").astype(np.int64) % 12
+    grp = meter * 16 + months[mid - lo] + 1  # the meter and calendar month (1 to 12)
+    rows = _wide_meters(x, meter, grp, factor)
+    if rows is not None:  # (the other meters' bills cannot be `factor` off)
+        if not len(rows):
+            return pl.DataFrame(schema=_ISSUE_SCHEMA)
+        x, meter, grp = x[rows], meter[rows], grp[rows]
+    by_x = _ByValue(x)
     # only months of substantial use: summer use of a heating fuel varies by large factors on its own
-    rank = _ranks(x)
-    mmed = _group_stats(meter, x, rank)[1]
+    mmed = by_x.stats(meter, int(meter[-1]) + 1)[1][meter]
     big = x >= 0.5 * mmed
-    grp = meter * 16 + heat["_m"].to_numpy()  # the meter and calendar month
-    n_all, med_all, tot_all, n, med, tot = _group_stats(grp, x, rank, within=big)
-    heat = heat.with_columns(
-        pl.Series("_mmed", mmed),
-        pl.Series("_big", big),
-        pl.Series("_med", med).fill_nan(None),
-        pl.Series("_n", n, dtype=pl.UInt32),
-        pl.Series("_sum", tot),
-        pl.Series("_n_all", n_all, dtype=pl.UInt32),
-        pl.Series("_sum_all", tot_all),
-        pl.Series("_med_all", med_all),
+    per_month = by_x.stats(grp, int(meter[-1]) * 16 + 16, within=big[by_x.order])
+    n_all, med_all, tot_all, n, med, tot = (t[grp] for t in per_month)
+    # (as _unit_error_odd; no statistic is null or NaN here but ``med`` of a month without substantial use)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        own = np.where(n == 2, x / (tot - x), x / med)
+        all_ = np.where(n_all == 2, x / (tot_all - x), x / med_all)
+        use_own = big & (n >= 2) & (med > 0) & (x > 0)
+        use_all = big & (n_all >= 2) & (med_all > 0) & (x > 0) & (all_ >= UNIT_ERROR_FACTOR_ANY) & (x >= factor * mmed)
+        q = np.where(use_own, own, np.where(use_all, all_, np.nan))
+        first = np.ones(len(meter), dtype=bool)
+        first[1:] = meter[1:] != meter[:-1]
+        odd = ((q >= factor) | (q * factor <= 1)) & _spike(q, first, isolation)
+    if not odd.any():
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
+    at = np.flatnonzero(odd) if rows is None else rows[odd]
+    return _odd_bills(
+        heat[at].with_columns(pl.Series("_q", q[odd])),
+        pl.col("_q"),
+        "the same month's median",
+        "likely_unit_error",
+        "reading(s) about 10×, 100× or 1000× off the building's own history: ",
     )
-    return _unit_error_odd(heat, factor, isolation)
 
 
 def _unit_error_windows(heat: pl.DataFrame, factor: float, isolation: float) -> pl.DataFrame:
@@ -280,23 +383,92 @@ def fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float, 
     (:func:`spike`): when waste begins inside the fitted months, the fit mixes before and after,
     and a whole run of bills sits off it together (a step, not a data fault).
     """
-    empty = pl.DataFrame(
-        schema={"building_id": pl.String, "code": pl.String, "detail": pl.String, "blocking": pl.Boolean}
-    )
     if periods.height == 0 or "hdd_per_day_fit" not in periods.columns:
-        return empty
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
     fit = met.filter(pl.col("fit_method") == "regression").select(
         "building_id",
         pl.col("baseload_kbtu_per_day").fill_null(0.0).alias("_a"),
         pl.col("heating_slope_kbtu_per_dd").fill_null(0.0).alias("_b"),
     )
-    p = (
-        periods.filter(pl.col("usable"))
-        .join(fit, on="building_id", how="inner")
-        .with_columns(
-            (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
-            (pl.col("_a") + pl.col("_b") * pl.col("hdd_per_day_fit")).alias("_pred"),
+    p = periods.filter(pl.col("usable")).select(
+        "building_id", "period_start", "period_end", "days", "energy_kbtu", "hdd_per_day_fit"
+    )
+    fast = _fit_outlier_arrays(p, fit, factor, isolation)
+    if fast is None:
+        return _fit_outlier_frames(p, fit, factor, isolation)
+    p, odd, ratio = fast
+    if not odd.any():
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
+    return _odd_bills(
+        p.filter(pl.Series(odd)).with_columns(pl.Series("_q", ratio[odd])),
+        pl.col("_q"),
+        "what the building's weather fit predicts",
+        "bill_off_fit",
+        _FIT_HEAD,
+    )
+
+
+#: the head of a bill_off_fit detail
+_FIT_HEAD = (
+    "bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
+    "after estimated reads, a meter change, or weeks the building stood empty): "
+)
+
+
+def _fit_outlier_arrays(
+    p: pl.DataFrame, fit: pl.DataFrame, factor: float, isolation: float
+) -> tuple[pl.DataFrame, np.ndarray, np.ndarray] | None:
+    """:func:`fit_outlier_issues` over arrays: the fitted bills ``p`` (of buildings with a fit), whether each is
+    odd and its use over the prediction [-]; None where the bills are not in building and date order
+    without ties, a building has two fits, or a use or prediction is missing or not finite (then
+    :func:`_fit_outlier_frames`)."""
+    keys = ["building_id", "period_start", "period_end"]
+    if not metered.strictly_sorted(p, keys) or fit["building_id"].n_unique() != fit.height:
+        return None
+    if any(p[c].null_count() for c in ("days", "energy_kbtu", "hdd_per_day_fit")):
+        return None
+    # each building's fit, looked up once per building (the bills are in building order)
+    rid = p["building_id"].rle_id().to_numpy()
+    st = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]]) if p.height else np.zeros(0, dtype=np.int64)
+    per = p.select("building_id").gather(st).join(fit, on="building_id", how="left", maintain_order="left")
+    has = np.repeat(per["_a"].is_not_null().to_numpy(), np.diff(np.append(st, p.height)))
+    if not has.all():
+        p = p.filter(pl.Series(has))
+        per = per.filter(pl.col("_a").is_not_null())
+        rid = p["building_id"].rle_id().to_numpy()
+    if p.height == 0:
+        return p, np.zeros(0, dtype=bool), np.zeros(0)
+    first = np.r_[True, rid[1:] != rid[:-1]]
+    bld = np.cumsum(first) - 1
+    upd = p["energy_kbtu"].to_numpy() / p["days"].to_numpy()
+    pred = per["_a"].to_numpy()[bld] + per["_b"].to_numpy()[bld] * p["hdd_per_day_fit"].to_numpy()
+    if not (np.isfinite(upd).all() and np.isfinite(pred).all()):
+        return None
+    with np.errstate(divide="ignore", invalid="ignore"):
+        on = (pred > 0) & (upd > 0)
+        q = np.where(on, upd / pred, np.nan)
+        far = on & ((upd >= factor * pred) | (upd * factor <= pred))
+        # the median and the neighbours only for the buildings with a bill that far off (all their bills)
+        st = np.flatnonzero(first)
+        rows = np.flatnonzero(np.repeat(np.logical_or.reduceat(far, st), np.diff(np.append(st, len(upd)))))
+        odd = np.zeros(len(upd), dtype=bool)
+        if not len(rows):
+            return p, odd, q
+        upd, pred, bld, q_in = upd[rows], pred[rows], bld[rows], q[rows]
+        bmed = _ByValue(upd).stats(bld, int(bld[-1]) + 1)[1][bld]
+        odd[rows] = (
+            far[rows]
+            & _spike(q_in, first[rows], isolation)
+            & (((upd >= factor * pred) & (upd >= 0.5 * bmed)) | ((upd * factor <= pred) & (pred >= 0.5 * bmed)))
         )
+    return p, odd, q
+
+
+def _fit_outlier_frames(p: pl.DataFrame, fit: pl.DataFrame, factor: float, isolation: float) -> pl.DataFrame:
+    """:func:`fit_outlier_issues` as polars frames and windows (bills out of order, missing numbers)."""
+    p = p.join(fit, on="building_id", how="inner").with_columns(
+        (pl.col("energy_kbtu") / pl.col("days")).alias("_upd"),
+        (pl.col("_a") + pl.col("_b") * pl.col("hdd_per_day_fit")).alias("_pred"),
     )
     p = p.sort("building_id", "period_start", "period_end").with_columns(
         pl.col("_upd").median().over("building_id").alias("_bmed"),
@@ -313,14 +485,13 @@ def fit_outlier_issues(periods: pl.DataFrame, met: pl.DataFrame, factor: float, 
         )
     )
     if odd.height == 0:
-        return empty
+        return pl.DataFrame(schema=_ISSUE_SCHEMA)
     return _odd_bills(
         odd,
         pl.col("_upd") / pl.col("_pred"),
         "what the building's weather fit predicts",
         "bill_off_fit",
-        "bill(s) far off the building's own weather fit (a lost decimal point or unit, a catch-up "
-        "after estimated reads, a meter change, or weeks the building stood empty): ",
+        _FIT_HEAD,
     )
 
 
@@ -353,7 +524,10 @@ def _odd_bills(odd: pl.DataFrame, ratio: pl.Expr, against: str, code: str, head:
 def missing_bill_issues(conv: pl.DataFrame, spans: pl.DataFrame, window) -> pl.DataFrame:
     """Heating-fuel bills missing inside the analysis window, their dates named (``missing_bills``)."""
     ws, we = window
-    g = metered.missing_bills(conv, ws, we, spans=spans)
+    if "is_heating_fuel" in conv.columns:  # (metered.missing_bills looks at no other reading)
+        conv = conv.filter(pl.col("is_heating_fuel"))
+    keep = _maybe_missing(conv, ws, we)
+    g = metered.missing_bills(conv if keep is None else conv.filter(pl.Series(keep)), ws, we, spans=spans)
     g = g.with_columns(
         (
             pl.when(pl.col("meter_id").is_null())
@@ -375,6 +549,143 @@ def missing_bill_issues(conv: pl.DataFrame, spans: pl.DataFrame, window) -> pl.D
         )
         .sort("building_id")
     )
+
+
+def _maybe_missing(r: pl.DataFrame, ws: date, we: date) -> np.ndarray | None:
+    """Which heating-fuel readings ``r`` (``building_id, period_start, period_end``, optional ``meter_id``) are
+    of a building that may miss a bill in ``[ws, we]`` (:func:`screening.metered.missing_bills`, whose every
+    result is one building's): all but those of the buildings with one meter whose reads leave no day of
+    the window unread (then there is no gap before, between or after the reads inside the window, and a
+    meter's gaps are the building's), of rows in date order and read forwards. None (every building) where
+    a building's rows are not together, or a key is missing.
+
+    One pass over the rows in their order: the running latest end of the building's earlier reads
+    (day ordinals), a gap where a read starts more than a day after it.
+    """
+    cols = ["building_id", "period_start", "period_end"]
+    if r.height == 0 or any(r[c].null_count() for c in cols):
+        return None
+    bid = r["building_id"].rle_id().to_numpy()
+    first = np.r_[True, bid[1:] != bid[:-1]]
+    st = np.flatnonzero(first)
+    if r["building_id"].gather(st).n_unique() != len(st):  # (a building's rows apart)
+        return None
+    s = r["period_start"].to_physical().to_numpy().astype(np.int64)
+    e = r["period_end"].to_physical().to_numpy().astype(np.int64)
+    later = ~first[1:]
+    grp = np.cumsum(first) - 1
+    lo = int(e.min())
+    lift = grp * (int(e.max()) - lo + 2)
+    prev = np.maximum.accumulate(lift + (e - lo)) - lift + lo  # the latest end up to each row
+    epoch = date(1970, 1, 1)
+    w0, w1 = (ws - epoch).days, (we - epoch).days
+    # a gap [prev + 1, s − 1] before a read that reaches into the window
+    bad = np.r_[False, later & (s[1:] > prev[:-1] + 1) & (prev[:-1] + 1 <= w1) & (s[1:] - 1 >= w0)]
+    bad |= e < s  # (a read backwards, or out of date order: the building is looked at)
+    bad[1:] |= later & (s[1:] < s[:-1])
+    if "meter_id" in r.columns:  # (a second meter: its own gaps, which other meters' reads may cover)
+        mid = r["meter_id"].rle_id().to_numpy()
+        bad[1:] |= later & (mid[1:] != mid[:-1])
+    n = np.diff(np.append(st, len(s)))
+    may = np.logical_or.reduceat(bad, st) | (s[st] > w0) | (np.maximum.reduceat(e, st) < w1)
+    return np.repeat(may, n)
+
+
+def reading_issues(
+    conv: pl.DataFrame,
+    spans: pl.DataFrame,
+    *,
+    lookback_months: int,
+    min_coverage: float,
+    max_estimated_share: float,
+) -> pl.DataFrame:
+    """:func:`screening.metered.reading_issues` (same arguments, same frame) over the readings of the buildings
+    that may have one (:func:`_maybe_reading_issue`)."""
+    may = _maybe_reading_issue(conv, spans, max_estimated_share)
+    return metered.reading_issues(
+        conv if may is None else conv.filter(pl.Series(may)),
+        spans,
+        lookback_months=lookback_months,
+        min_coverage=min_coverage,
+        max_estimated_share=max_estimated_share,
+    )
+
+
+def _maybe_reading_issue(r: pl.DataFrame, spans: pl.DataFrame, max_estimated_share: float) -> np.ndarray | None:
+    """Which readings ``r`` are of a building that may have an issue of :func:`screening.metered.reading_issues`
+    (whose every result is one building's; ``low_coverage`` comes from ``spans`` alone): all but those of
+    the buildings whose reads of each fuel and meter never start before an earlier one ends (no duplicate,
+    no overlap), whose heating-fuel reads in the span (``spans``: ``building_id, span_start, span_end``) are
+    not more than ``max_estimated_share`` estimated, and that have one heating-fuel meter whose reads leave
+    no day of the span unread (no gap). None (every
+    building) where the rows are not in building, fuel, meter and date order, a key is missing, a read
+    ends before it starts or ``is_heating_fuel`` differs within a fuel and meter.
+
+    One pass over the rows in their order: the running latest end of the earlier reads of the same fuel
+    and meter (day ordinals); a read that starts on or before it may overlap, one that starts more than a
+    day after it leaves a gap.
+    """
+    cols = ["building_id", "fuel", "period_start", "period_end"]
+    if r.height == 0 or max_estimated_share < 0 or any(r[c].null_count() for c in cols):
+        return None
+    if spans["building_id"].n_unique() != spans.height:
+        return None
+    keys = r.select(
+        "building_id",
+        "fuel",
+        *([pl.col("meter_id").cast(pl.String).fill_null("")] if "meter_id" in r.columns else []),
+        "period_start",
+        "period_end",
+    ).rechunk()
+    s = keys["period_start"].to_physical().to_numpy().astype(np.int64)
+    e = keys["period_end"].to_physical().to_numpy().astype(np.int64)
+    if (e < s).any():
+        return None
+    new_b = _starts(keys, ["building_id"])
+    new_g = _starts(keys, keys.columns[:-2], new_b)  # a new fuel and meter
+    if not _in_order(keys, keys.columns[:-2], (s, e), new_g, ties=True):
+        return None
+    later = ~new_g[1:]
+    g = np.cumsum(new_g) - 1
+    lo = int(e.min())
+    lift = g * (int(e.max()) - lo + 2)
+    run = np.maximum.accumulate(lift + (e - lo)) - lift + lo  # the latest end up to each row, by fuel and meter
+    heat = r["is_heating_fuel"].fill_null(False).to_numpy() if "is_heating_fuel" in r.columns else np.ones(len(s), bool)
+    if (later & (heat[1:] != heat[:-1])).any():  # (a fuel and meter's reads the heating fuel's and not)
+        return None
+    # the span of each building's rows
+    st = np.flatnonzero(new_b)
+    n = np.diff(np.append(st, len(s)))
+    span = (
+        keys.select("building_id")
+        .gather(st)
+        .join(
+            spans.select("building_id", "span_start", "span_end"), on="building_id", how="left", maintain_order="left"
+        )
+    )
+    no_span = (span["span_start"].is_null() | span["span_end"].is_null()).to_numpy()
+    ss = np.repeat(span["span_start"].to_physical().fill_null(0).to_numpy().astype(np.int64), n)
+    se = np.repeat(span["span_end"].to_physical().fill_null(0).to_numpy().astype(np.int64), n)
+    bad = np.zeros(len(s), dtype=bool)
+    bad[1:] = later & (s[1:] <= run[:-1])  # (a duplicate or an overlap)
+    gap = later & (s[1:] > run[:-1] + 1) & (run[:-1] + 1 <= se[1:]) & (s[1:] - 1 >= ss[1:])
+    bad[1:] |= heat[1:] & gap
+    many = np.zeros(len(st), dtype=bool)
+    if "estimated" in r.columns:  # (the share of estimated reads among the heating-fuel reads in the span)
+        in_span = heat & (s <= se) & (e >= ss)
+        n_est = np.add.reduceat(in_span & r["estimated"].cast(pl.Boolean).fill_null(False).to_numpy(), st)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            many = (n_est > 0) & (n_est / np.add.reduceat(in_span, st) > max_estimated_share * (1 - 1e-9))
+    big = np.iinfo(np.int64).max
+    may = (
+        np.logical_or.reduceat(bad, st)
+        | many
+        | no_span
+        | (np.add.reduceat(heat & new_g, st) != 1)  # (no heating-fuel read, or reads of two meters)
+        | (np.minimum.reduceat(np.where(heat, s, big), st) > ss[st])
+        | (np.maximum.reduceat(np.where(heat, e, -big), st) < se[st])
+    )
+    return np.repeat(may, n)
 
 
 def filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
@@ -406,8 +717,13 @@ def filled_end_issues(met: pl.DataFrame) -> pl.DataFrame:
 
 def other_fuel_only(conv: pl.DataFrame, b: pl.DataFrame) -> pl.DataFrame:
     """Buildings whose readings are all of fuels other than their heating fuel (``no_heating_fuel_readings``)."""
-    none = conv.group_by("building_id").agg(pl.col("is_heating_fuel").any().alias("_any")).filter(~pl.col("_any"))
-    conv = conv.filter(pl.col("building_id").is_in(none["building_id"].implode()))  # (their fuels only)
+    # the buildings of the runs of rows (one building's rows in a row) without a heating-fuel reading: every
+    # building without one (and, where a building's rows are not together, perhaps others: checked below)
+    heat = conv["is_heating_fuel"].fill_null(False).to_numpy()
+    rid = conv["building_id"].rle_id().to_numpy()
+    st = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]]) if conv.height else np.zeros(0, dtype=np.int64)
+    maybe = conv["building_id"].gather(st[~np.logical_or.reduceat(heat, st)] if len(st) else st)
+    conv = conv.filter(pl.col("building_id").is_in(maybe.implode())) if maybe.len() else conv.clear()
     per = conv.group_by("building_id").agg(
         pl.col("is_heating_fuel").any().alias("_any"), pl.col("fuel").unique().sort().str.join(", ").alias("_fuels")
     )
@@ -492,7 +808,8 @@ def chunk_issues(
 ) -> pl.DataFrame:
     """Every data issue of a chunk of buildings but the one against the expectation (:func:`far_from_expectation`).
 
-    ``spans`` carries ``station_id``; ``span_missing`` is the days without weather of each span (in ``spans``
+    ``conv`` as :func:`screening.units.convert_to_kbtu` returns it for ``b`` (its ``is_heating_fuel`` is the
+    fuel against the building's ``heating_fuel``); ``spans`` carries ``station_id``; ``span_missing`` is the days without weather of each span (in ``spans``
     order); ``thr`` the ``[thresholds]`` settings (:class:`screening.config.Thresholds`). Returns ``building_id, code, detail, blocking`` sorted by
     building and code, ``blocking`` as declared in :data:`DATA_ISSUE_CODES`.
     """
@@ -500,18 +817,23 @@ def chunk_issues(
     read_spans = spans.drop("station_id").with_columns(
         (pl.col("span_end") - pl.duration(days=pl.col("filled_days"))).alias("span_end")
     )
+    # the heating-fuel readings, taken once: the three detectors below look at no other (metered's take every
+    # reading of a frame without is_heating_fuel for one of the heating fuel)
+    heat = conv.filter(pl.col("is_heating_fuel")) if "is_heating_fuel" in conv.columns else conv
     issues = [
-        metered.reading_issues(
+        reading_issues(
             conv,
             read_spans,
             lookback_months=lookback_months,
             min_coverage=thr.coverage_min,
             max_estimated_share=thr.estimated_share_max,
         ),
-        metered.estimated_run_issues(conv, read_spans, min_run=thr.estimated_run_min),
-        missing_bill_issues(conv, spans, window),
+        metered.estimated_run_issues(
+            heat.drop("is_heating_fuel", strict=False), read_spans, min_run=thr.estimated_run_min
+        ),
+        missing_bill_issues(heat.select("building_id", "meter_id", "period_start", "period_end"), spans, window),
         filled_end_issues(met),
-        unit_error_issues(conv, b, thr.unit_error_factor, isolation=thr.unit_error_isolation),
+        unit_error_issues(heat, b, thr.unit_error_factor, isolation=thr.unit_error_isolation),
         fit_outlier_issues(periods, met, thr.unit_error_factor_fit, thr.unit_error_isolation),
     ]
     wgap = spans.with_columns(pl.Series("missing", span_missing)).filter(pl.col("missing") > 0)
