@@ -190,174 +190,136 @@ def write_outputs(
     # and DuckDB work outside the GIL); joined before ranking.pdf is waited for
     recorder = Beside(meanwhile, rejects) if meanwhile is not None else None
     try:
-        return _write_files(
-            tmp,
-            res,
-            ld,
-            cfg,
-            rejects=rejects,
-            disp=disp,
-            change=change,
-            recorder=recorder,
-            run_key=run_key,
-            label=label,
-            as_of=as_of,
-            window=window,
-            timings=timings,
-            bar=bar,
-            executor=executor,
+        events, then = ld.events, ld.then
+        ranking = outputs.ranking_table(res.results, disp, change)
+        plan = outputs.audit_plan_table(res.results, disp)
+        book_max = cfg.output.workbook_max_buildings
+        with_book = 0 < ranking.height <= book_max
+        prev = ld.prev
+        summary = record.run_summary(
+            run_key, label, as_of, window, cfg, res, rejects, ld.loads, prev[0][1] if prev else None
         )
+        if res.learning is not None:  # learning from audits (issue 17): the defaults' bias per era x use type
+            from .. import learning
+
+            summary["audit_bias"] = learning.bias_summary(res.learning, cfg.learning.min_audits)
+        savings_csv = None
+        if res.savings is not None:  # savings after a measure (issue 17)
+            from .. import events as evmod
+
+            savings_csv = evmod.savings_table(
+                res.savings, si=disp.si, currency=cfg.prices.currency, kbtu_to_kwh=outputs.KBTU_TO_KWH
+            )
+            summary["savings"] = evmod.savings_totals(res.savings, si=disp.si, kbtu_to_kwh=outputs.KBTU_TO_KWH)
+            if events is not None and then is not None:
+                summary["audit_hit_rate"] = evmod.hit_rate(events, then)
+            notes_df = (
+                res.results.filter(pl.col("plan_note").is_not_null())
+                if "plan_note" in res.results.columns
+                else res.results.clear()
+            )
+            summary["plan_notes"] = [
+                {"building_id": r["building_id"], "rank": r["rank"], "tier": r["tier"], "note": r["plan_note"]}
+                for r in notes_df.sort("rank").iter_rows(named=True)
+            ]
+        if not with_book:
+            why = workbook_left_out(ranking.height, book_max)
+            summary["files_left_out"] = {"ranking.xlsx": why}
+            log.warning("ranking.xlsx not written: %s", why)
+        paper = cfg.output.paper
+        paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
+        from ..render import pdf
+
+        # ranking.pdf renders on a child process from here, while this one writes the tables, the workbook,
+        # the sheets and the page (and a thread stores the results)
+        t_ranking = time.perf_counter()
+        ranking_pdf = pdf.Background(
+            pdf.render_ranking,
+            outputs.ranking_report(
+                ranking,
+                res.results,
+                summary,
+                disp,
+                currency=cfg.prices.currency,
+                max_rows=cfg.output.ranking_pdf_rows,
+                savings=savings_csv,
+            ),
+            tmp / "ranking.pdf",
+            paper=paper,
+        )
+        try:
+            t = time.perf_counter()
+            outputs.write_csv(ranking, tmp / "ranking.csv")
+            outputs.write_csv(plan, tmp / "audit_plan.csv")
+            outputs.write_csv(rejects, tmp / "rejects.csv")
+            outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
+            assumptions = None  # the table is kept only for the workbook; else written a piece at a time
+            if with_book:
+                assumptions = outputs.assumptions_table(res.envelope, disp)
+                outputs.write_csv(assumptions, tmp / "assumptions.csv")
+            else:
+                outputs.write_assumptions_csv(res.envelope, disp, tmp / "assumptions.csv")
+            if not cfg.output.sheets:  # after assumptions.csv only the sheets read the envelope (3.9 kB a building)
+                res.envelope = res.envelope.clear()
+            if savings_csv is not None:
+                outputs.write_csv(savings_csv, tmp / "savings.csv")
+            timings["csv"] = round(time.perf_counter() - t, 4)
+            if with_book and assumptions is not None:
+                from ..xlsxout import write_ranking_xlsx
+
+                t = time.perf_counter()
+                write_ranking_xlsx(
+                    tmp / "ranking.xlsx",
+                    ranking=ranking,
+                    issues=res.issues.sort("building_id", "code"),
+                    rejects=rejects,
+                    assumptions=assumptions,
+                    disp=disp,
+                    currency=cfg.prices.currency,
+                    plan=plan,
+                )
+                timings["xlsx"] = round(time.perf_counter() - t, 4)
+            sheet_files = _sheets(tmp, res, ld, cfg, disp, run_key, paper, timings, bar, executor)
+            stage("after_sheets")
+            from ..webpage import write_index
+
+            t = time.perf_counter()
+            write_index(
+                tmp / "index.html",
+                ranking=ranking,
+                results=res.results,
+                plan=plan,
+                summary=summary,
+                disp=disp,
+                currency=cfg.prices.currency,
+                sheet_files=sheet_files,
+                max_rows=cfg.output.page_rows,
+                workbook=with_book,
+            )
+            timings["index"] = round(time.perf_counter() - t, 4)
+            top = first_visits(ranking, cfg.prices.currency)
+            del ranking  # 1 kB a building (ranking.csv's frame), let go before the wait for the recording
+            # the stored inputs (0.3-0.4 kB a building) and a previous run's results are not read again
+            ld.stored.clear()
+            ld.previous = ld.prev_results = None
+            if recorder is not None:
+                t = time.perf_counter()
+                timings["record_meanwhile"] = recorder.result()
+                timings["record_waited"] = round(time.perf_counter() - t, 4)
+            bar.stage("render ranking")
+            t = time.perf_counter()
+            ranking_pdf.result()
+        except BaseException:
+            ranking_pdf.cancel()
+            raise
+        # [s] what ranking.pdf added after everything else, and how long it ran in all (it overlapped the rest)
+        timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
+        timings["ranking_pdf_started_s"] = round(time.perf_counter() - t_ranking, 4)
+        return top, rejects, summary
     except BaseException:
         if recorder is not None:
             recorder.settle()  # the caller then abandons what it stored, on this thread
         raise
-
-
-def _write_files(
-    tmp: Path,
-    res: pipeline.Screened,
-    ld: Loaded,
-    cfg: Settings,
-    *,
-    rejects: pl.DataFrame,
-    disp: outputs.Display,
-    change: pl.DataFrame,
-    recorder: Beside | None,
-    run_key: str,
-    label: str,
-    as_of,
-    window,
-    timings: dict,
-    bar: Progress,
-    executor: cluster.DaskChunks | None,
-) -> tuple[list[dict], pl.DataFrame, dict]:
-    """:func:`write_outputs` once the rejects are known and the recording is under way."""
-    events, then = ld.events, ld.then
-    ranking = outputs.ranking_table(res.results, disp, change)
-    plan = outputs.audit_plan_table(res.results, disp)
-    book_max = cfg.output.workbook_max_buildings
-    with_book = 0 < ranking.height <= book_max
-    prev = ld.prev
-    summary = record.run_summary(
-        run_key, label, as_of, window, cfg, res, rejects, ld.loads, prev[0][1] if prev else None
-    )
-    if res.learning is not None:  # learning from audits (issue 17): the defaults' bias per era x use type
-        from .. import learning
-
-        summary["audit_bias"] = learning.bias_summary(res.learning, cfg.learning.min_audits)
-    savings_csv = None
-    if res.savings is not None:  # savings after a measure (issue 17)
-        from .. import events as evmod
-
-        savings_csv = evmod.savings_table(
-            res.savings, si=disp.si, currency=cfg.prices.currency, kbtu_to_kwh=outputs.KBTU_TO_KWH
-        )
-        summary["savings"] = evmod.savings_totals(res.savings, si=disp.si, kbtu_to_kwh=outputs.KBTU_TO_KWH)
-        if events is not None and then is not None:
-            summary["audit_hit_rate"] = evmod.hit_rate(events, then)
-        notes_df = (
-            res.results.filter(pl.col("plan_note").is_not_null())
-            if "plan_note" in res.results.columns
-            else res.results.clear()
-        )
-        summary["plan_notes"] = [
-            {"building_id": r["building_id"], "rank": r["rank"], "tier": r["tier"], "note": r["plan_note"]}
-            for r in notes_df.sort("rank").iter_rows(named=True)
-        ]
-    if not with_book:
-        why = workbook_left_out(ranking.height, book_max)
-        summary["files_left_out"] = {"ranking.xlsx": why}
-        log.warning("ranking.xlsx not written: %s", why)
-    paper = cfg.output.paper
-    paper = ("A4" if disp.si else "Letter") if paper == "auto" else paper
-    from ..render import pdf
-
-    # ranking.pdf renders on a child process from here, while this one writes the tables, the workbook,
-    # the sheets and the page (and a thread stores the results)
-    t_ranking = time.perf_counter()
-    ranking_pdf = pdf.Background(
-        pdf.render_ranking,
-        outputs.ranking_report(
-            ranking,
-            res.results,
-            summary,
-            disp,
-            currency=cfg.prices.currency,
-            max_rows=cfg.output.ranking_pdf_rows,
-            savings=savings_csv,
-        ),
-        tmp / "ranking.pdf",
-        paper=paper,
-    )
-    try:
-        t = time.perf_counter()
-        outputs.write_csv(ranking, tmp / "ranking.csv")
-        outputs.write_csv(plan, tmp / "audit_plan.csv")
-        outputs.write_csv(rejects, tmp / "rejects.csv")
-        outputs.write_csv(res.issues.sort("building_id", "code"), tmp / "data_issues.csv")
-        assumptions = None  # the table is kept only for the workbook; else written a piece at a time
-        if with_book:
-            assumptions = outputs.assumptions_table(res.envelope, disp)
-            outputs.write_csv(assumptions, tmp / "assumptions.csv")
-        else:
-            outputs.write_assumptions_csv(res.envelope, disp, tmp / "assumptions.csv")
-        if not cfg.output.sheets:  # after assumptions.csv only the sheets read the envelope (3.9 kB a building)
-            res.envelope = res.envelope.clear()
-        if savings_csv is not None:
-            outputs.write_csv(savings_csv, tmp / "savings.csv")
-        timings["csv"] = round(time.perf_counter() - t, 4)
-        if with_book and assumptions is not None:
-            from ..xlsxout import write_ranking_xlsx
-
-            t = time.perf_counter()
-            write_ranking_xlsx(
-                tmp / "ranking.xlsx",
-                ranking=ranking,
-                issues=res.issues.sort("building_id", "code"),
-                rejects=rejects,
-                assumptions=assumptions,
-                disp=disp,
-                currency=cfg.prices.currency,
-                plan=plan,
-            )
-            timings["xlsx"] = round(time.perf_counter() - t, 4)
-        sheet_files = _sheets(tmp, res, ld, cfg, disp, run_key, paper, timings, bar, executor)
-        stage("after_sheets")
-        from ..webpage import write_index
-
-        t = time.perf_counter()
-        write_index(
-            tmp / "index.html",
-            ranking=ranking,
-            results=res.results,
-            plan=plan,
-            summary=summary,
-            disp=disp,
-            currency=cfg.prices.currency,
-            sheet_files=sheet_files,
-            max_rows=cfg.output.page_rows,
-            workbook=with_book,
-        )
-        timings["index"] = round(time.perf_counter() - t, 4)
-        top = first_visits(ranking, cfg.prices.currency)
-        del ranking  # 1 kB a building (ranking.csv's frame), not kept while the results are recorded
-        # the stored inputs (0.3-0.4 kB a building) and a previous run's results are not read again
-        ld.stored.clear()
-        ld.previous = ld.prev_results = None
-        if recorder is not None:
-            t = time.perf_counter()
-            timings["record_meanwhile"] = recorder.result()
-            timings["record_waited"] = round(time.perf_counter() - t, 4)
-        bar.stage("render ranking")
-        t = time.perf_counter()
-        ranking_pdf.result()
-    except BaseException:
-        ranking_pdf.cancel()
-        raise
-    # [s] what ranking.pdf added after everything else, and how long it ran in all (it overlapped the rest)
-    timings["ranking_pdf"] = round(time.perf_counter() - t, 4)
-    timings["ranking_pdf_started_s"] = round(time.perf_counter() - t_ranking, 4)
-    return top, rejects, summary
 
 
 def first_visits(ranking: pl.DataFrame, currency: str, n: int = 5) -> list[dict]:
