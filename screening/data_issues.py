@@ -121,29 +121,6 @@ def _starts(df: pl.DataFrame, keys: list[str], also: np.ndarray | None = None) -
     return new
 
 
-def _in_order(df: pl.DataFrame, keys: list[str], dates: tuple[np.ndarray, ...], new: np.ndarray, *, ties: bool) -> bool:
-    """:func:`screening.metered.strictly_sorted` of ``df`` by the text ``keys`` and then ``dates`` (day
-    ordinals, in their order), ``new`` the rows where the keys change (:func:`_starts`): within a group the
-    dates after the previous row's (or equal, with ``ties``), and each group's keys after the previous
-    group's, those compared where they change only. No nulls in the keys."""
-    if any(df[c].null_count() for c in keys):
-        return False
-    later = ~new[1:]
-    after, same = np.zeros(len(later), dtype=bool), np.ones(len(later), dtype=bool)
-    for d in dates:
-        after |= same & (d[1:] > d[:-1])
-        same &= d[1:] == d[:-1]
-    if not (~later | after | (same & ties)).all():
-        return False
-    at = np.flatnonzero(new[1:])
-    after, same = np.zeros(len(at), dtype=bool), np.ones(len(at), dtype=bool)
-    for c in keys:
-        x, y = df[c].gather(at), df[c].gather(at + 1)
-        after |= same & (y > x).to_numpy()
-        same &= (y == x).to_numpy()
-    return bool(after.all())
-
-
 class _ByValue:
     """Rows of values ``x`` [any unit] (finite) in increasing order, for statistics over groups of them:
     ``order`` the rows in that order, ``rank`` each row's place in it, ``sorted`` the values in it, ``bits``
@@ -251,12 +228,9 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
     if heat.height == 0:
         return pl.DataFrame(schema=_ISSUE_SCHEMA)
     heat = heat.rechunk()
-    new = _starts(heat, ["building_id", "meter_id"])
-    start = heat["period_start"].to_physical().to_numpy()
-    if heat["period_start"].null_count() or not _in_order(heat, ["building_id", "meter_id"], (start,), new, ties=False):
+    if not metered.strictly_sorted(heat, ["building_id", "meter_id", "period_start"]):
         heat = heat.sort("building_id", "meter_id", "period_start")  # (ties kept as this sort leaves them)
-        new = heat.select(metered.group_starts(["building_id", "meter_id"])).to_series().to_numpy()
-    meter = np.cumsum(new)
+    meter = np.cumsum(_starts(heat, ["building_id", "meter_id"]))
     days = heat["days"].to_numpy()
     with np.errstate(divide="ignore", invalid="ignore"):
         x = heat["energy_kbtu"].to_numpy() / days  # [kBtu/day]
@@ -643,7 +617,7 @@ def _maybe_reading_issue(r: pl.DataFrame, spans: pl.DataFrame, max_estimated_sha
         return None
     new_b = _starts(keys, ["building_id"])
     new_g = _starts(keys, keys.columns[:-2], new_b)  # a new fuel and meter
-    if not _in_order(keys, keys.columns[:-2], (s, e), new_g, ties=True):
+    if not metered.strictly_sorted(keys, keys.columns, ties=True):
         return None
     later = ~new_g[1:]
     g = np.cumsum(new_g) - 1
