@@ -726,6 +726,8 @@ def ranking_report(
 
     ``max_rows`` > 0 keeps the PDF's table to the first rows of the ranking (the full list is
     ranking.csv); ``rows_total`` and ``rows_omitted`` say how many there are and were left out.
+    ``data_issues`` are those of the table's buildings in rank order (at most ``max_rows`` of them);
+    ``data_issues_total`` counts every building's, ``data_issues_omitted`` those not listed.
     """
     table = ranking if max_rows <= 0 else ranking.head(max_rows)
     rows = table.select(
@@ -743,18 +745,22 @@ def ranking_report(
         "data_issues",
         "needs_review",
     ).to_dicts()
+    # the data issues of the table's buildings, in the table's order (rank, then code): those a visit in
+    # audit order meets first; data_issues.csv has every building's
+    has_issue = pl.col("data_issue_codes").list.len() > 0
+    n_issues = int(res.select(pl.col("data_issue_codes").list.len().sum()).item() or 0)
     long = (
-        res.filter(pl.col("data_issue_codes").list.len() > 0)
+        res.filter(has_issue & pl.col("building_id").is_in(table["building_id"].implode()))
         .select(
+            "rank",
             "building_id",
             "name",
             pl.col("data_issue_codes").alias("code"),
             pl.col("data_issue_texts").alias("explanation"),
         )
         .explode("code", "explanation")
-        .sort("building_id", "code")
+        .sort("rank", "code", nulls_last=True, maintain_order=True)
     )
-    n_issues = long.height
     if max_rows > 0:
         long = long.head(max_rows)
     issues = long.to_dicts()

@@ -64,6 +64,8 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
     omitted = report.get("rows_omitted")
     header = table_header(paper, eu)
     issues_in = report.get("data_issues") or []
+    total = report.get("data_issues_total")
+    issues_more = (total if isinstance(total, int) else len(issues_in)) - min(len(issues_in), MAX_ISSUE_LINES)
     return {
         "run": {
             k: cut(run.get(k, "n/a"), 60)
@@ -119,8 +121,15 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
         else "",
         "header": header,
         "table_pages": table_pages(rows, paper, header_lines=header["lines"]),
+        # the data issues of the table's buildings in its order (outputs.ranking_report); the count of those
+        # not listed comes from the report's total when it has one (every building's issues)
+        "data_issues_scope": f"Those of the {fmt_num(len(rows))} buildings in the table above, in its order; "
+        "data_issues.csv lists every building's."
+        if isinstance(omitted, int) and omitted > 0
+        else "",
         "data_issues": [
             {
+                "rank": str(d.get("rank")) if isinstance(d.get("rank"), int) else "",
                 "building_id": one_line(d.get("building_id"), 40),
                 "name": one_line(d.get("name"), 80),
                 "code": one_line(d.get("code"), 40),
@@ -128,5 +137,5 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
             }
             for d in issues_in[:MAX_ISSUE_LINES]
         ],
-        "data_issues_more": fmt_num(len(issues_in) - MAX_ISSUE_LINES) if len(issues_in) > MAX_ISSUE_LINES else "",
+        "data_issues_more": fmt_num(issues_more) if issues_more > 0 else "",
     }
