@@ -227,3 +227,43 @@ def test_store_readings_of_a_chunk_leave_out_the_buildings_between_its_ids(tmp_p
         ]
     finally:
         src.close()
+
+
+def test_read_ahead_keeps_the_order_holds_one_item_ahead_and_raises_where_asked():
+    """pipeline._read_ahead: the next chunk is made on a thread while the caller works on the one before;
+    the items come in their order, at most one is made ahead of the caller, and an error making an item
+    reaches the caller when it asks for that item (the items before it were handed over)."""
+    import threading
+
+    made: list[int] = []
+    gate = threading.Event()
+
+    def items():
+        for k in range(5):
+            if k == 3:
+                raise ValueError("item 3 is broken")
+            made.append(k)
+            yield k
+
+    got = []
+    with pytest.raises(ValueError, match="item 3 is broken"):
+        for x in pipeline._read_ahead(items()):
+            gate.wait(0.05)  # the caller's work on x: the next item is made meanwhile, not the one after
+            assert made[-1] <= x + 1
+            got.append(x)
+    assert got == [0, 1, 2]
+    # a caller that stops early: nothing more is made once the item in hand is done
+    made.clear()
+
+    def counted():
+        for k in range(10):
+            made.append(k)
+            yield k
+
+    ahead = pipeline._read_ahead(counted())
+    for x in ahead:
+        if x == 1:
+            break
+    ahead.close()  # (the for loop's end): waits for the item in hand
+    assert made == [0, 1, 2]
+    assert list(pipeline._read_ahead(iter([]))) == []
