@@ -16,7 +16,6 @@ The same results give the same bytes (no clock, no random values in the page).
 from __future__ import annotations
 
 import json
-import math
 from pathlib import Path
 from typing import Any
 from urllib.parse import quote
@@ -28,7 +27,7 @@ from markupsafe import Markup
 from . import screen
 from .outputs import Display
 from .render import charts
-from .render.display import STANDARD_CAUTION, fmt_money, fmt_num, fmt_pct, fmt_ratio
+from .render.display import STANDARD_CAUTION, fmt_money, fmt_money_col, fmt_num, fmt_pct, fmt_ratio_col
 from .render.savings_page import hit_rate_lines
 from .resources import templates_dir
 
@@ -50,11 +49,15 @@ OTHER_OUTPUTS = (
 )
 
 
+#: What a JSON text inside a ``<script>`` element escapes beyond JSON itself: ``<``, ``>``, ``&`` (no value
+#: can end the element or open a comment) and the two JavaScript line separators.
+SCRIPT_ESCAPES = (("&", "\\u0026"), ("<", "\\u003c"), (">", "\\u003e"), ("\u2028", "\\u2028"), ("\u2029", "\\u2029"))
+
+
 def json_for_script(obj: Any) -> Markup:
-    """``obj`` as JSON that is safe inside a ``<script>`` element: ``<``, ``>``, ``&`` and the
-    two JavaScript line separators escaped, so no value can end the element or open a comment."""
+    """``obj`` as JSON that is safe inside a ``<script>`` element (:data:`SCRIPT_ESCAPES`)."""
     text = json.dumps(obj, ensure_ascii=False, sort_keys=True, separators=(",", ":"), allow_nan=False)
-    for ch, esc in (("&", "\\u0026"), ("<", "\\u003c"), (">", "\\u003e"), ("\u2028", "\\u2028"), ("\u2029", "\\u2029")):
+    for ch, esc in SCRIPT_ESCAPES:
         text = text.replace(ch, esc)
     return Markup(text)
 
@@ -72,11 +75,6 @@ def _env() -> jinja2.Environment:
     )
 
 
-def _num(x) -> float | None:
-    """A finite number as float, else None (NaN, infinities, None, booleans)."""
-    return float(x) if isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x) else None
-
-
 def _href(path: str | None) -> str | None:
     """A relative file path as a URL path (sheet stems are already URL-safe; this keeps it so)."""
     return None if path is None else quote(path, safe="/")
@@ -88,13 +86,67 @@ def _kinds(mechanisms: list[str] | None, waste_kind: str | None) -> list[str]:
     return [STEP_UP_KIND] if "rose" in (waste_kind or "") else []
 
 
-def page_data(
+#: Each character a string value's JSON text escapes (``json.dumps(..., ensure_ascii=False)``: the quote,
+#: the backslash and the control characters) and, for the page's script element, :data:`SCRIPT_ESCAPES`.
+_STRING_ESCAPES = {
+    **{ch: json.dumps(ch)[1:-1] for ch in ['"', "\\", *map(chr, range(0x20))]},
+    **dict(SCRIPT_ESCAPES),
+}
+#: The characters :func:`_href` writes as they are (``urllib.parse.quote``'s unreserved ones and "/").
+_URL_SAFE = r"^[A-Za-z0-9_.~/-]*$"
+
+
+def _json_string(e: pl.Expr) -> pl.Expr:
+    """A String column's values as JSON strings for the page's script (null stays null)."""
+    text = e.str.replace_many(list(_STRING_ESCAPES), list(_STRING_ESCAPES.values()))
+    return pl.concat_str([pl.lit('"'), text, pl.lit('"')])
+
+
+def _json_number(x: pl.Series) -> pl.Series:
+    """Finite floats as JSON numbers, byte for byte Python's ``repr``; ``null`` for null, NaN and ±inf.
+
+    polars writes the same shortest round-trip digits as ``repr`` but values below 1e-4 in magnitude in
+    its own way (``0.000015``, ``1.5e-7``): those (rare) are written by ``repr`` itself.
+    """
+    v = x.cast(pl.Float64)
+    out = pl.select(pl.when(v.is_finite()).then(v.cast(pl.String)).otherwise(pl.lit("null"))).to_series()
+    tiny = (v.abs() < 1e-4) & (v != 0)
+    idx = tiny.fill_null(False).arg_true()
+    if idx.len():
+        out = out.scatter(idx, [repr(float(t)) for t in v.gather(idx).to_list()])
+    return out
+
+
+def _sheet_paths(building_id: pl.Series, sheet_files: dict[str, str] | None) -> pl.Series:
+    """Each building's sheet as :func:`_href` writes it (null without one), looked up column-wise."""
+    if not sheet_files:
+        return pl.Series("sheet", [None] * building_id.len(), dtype=pl.String)
+    files = pl.DataFrame(
+        {"building_id": list(sheet_files), "sheet": list(sheet_files.values())},
+        schema={"building_id": pl.String, "sheet": pl.String},
+    )
+    path = building_id.to_frame("building_id").join(files, on="building_id", how="left", maintain_order="left")["sheet"]
+    odd = (~path.str.contains(_URL_SAFE)).fill_null(False).arg_true()  # rare: quote() itself
+    if odd.len():
+        path = path.scatter(odd, [_href(t) for t in path.gather(odd).to_list()])
+    return path
+
+
+def page_json(
     ranking: pl.DataFrame, results: pl.DataFrame, sheet_files: dict[str, str] | None, currency: str
-) -> dict[str, Any]:
-    """The JSON the page's script renders: one row per building in rank order, with raw numbers
-    (for sorting) and display texts; ``sheet`` is the building's PDF relative to the page, or
-    None when no sheets were written."""
-    mech = results.select("building_id", "mechanisms")
+) -> Markup:
+    """The JSON the page's script renders, safe inside its ``<script>`` element (:func:`json_for_script`'s
+    bytes for ``{"rows": [...], "tiers": [...]}``), built column by column with polars expressions.
+
+    One row per building in rank order, with raw numbers (for sorting; null where not finite) and display
+    texts: ``rank``, ``id``, ``name``, ``tier``, ``tier_order`` (its place in screen.TIERS), ``use``,
+    ``station``, ``fuel``, ``ratio`` and ``ratio_text``, ``cost`` and ``cost_text`` (expected recoverable
+    cost), ``excess`` and ``excess_text``, ``review``, ``kinds`` (the mechanisms; "what changed" where the
+    use rose without one), ``kind_text`` ("not told apart" where none, if a visit is due or the evidence is
+    strong, as in the audit plan), ``why``, ``flags``, ``issues``, and ``sheet``: the building's PDF relative
+    to the page, null when no sheets were written.
+    """
+    tiers = [name for name, _m in screen.TIERS]
     rows = ranking.select(
         "rank",
         "building_id",
@@ -110,39 +162,67 @@ def page_data(
         "waste_kind",
         "flags",
         "data_issues",
-    ).join(mech, on="building_id", how="left", maintain_order="left")
-    tier_order = {name: i for i, (name, _m) in enumerate(screen.TIERS)}
-    out = []
-    for r in rows.iter_rows(named=True):
-        kinds = _kinds(r["mechanisms"], r["waste_kind"])
-        out.append(
-            {
-                "rank": r["rank"],
-                "id": r["building_id"],
-                "name": r["name"] or "",
-                "tier": r["tier"] or "",
-                "tier_order": tier_order.get(r["tier"], len(tier_order)),
-                "use": r["use_type"] or "",
-                "station": r["station_id"] or "",
-                "fuel": r["heating_fuel"] or "",
-                "ratio": _num(r["ratio"]),
-                "ratio_text": fmt_ratio(r["ratio"]),
-                "cost": _num(r["expected_recoverable_cost"]),
-                "cost_text": fmt_money(r["expected_recoverable_cost"], currency),
-                "excess": _num(r["excess_cost"]),
-                "excess_text": fmt_money(r["excess_cost"], currency),
-                "review": bool(r["needs_review"]),
-                "kinds": kinds,
-                # "not told apart" only where a visit is due or the evidence is strong (as in the audit plan)
-                "kind_text": ", ".join(kinds)
-                or (NOT_TOLD_APART if r["needs_review"] or r["tier"] in VISIT_TIERS else ""),
-                "why": r["waste_kind"] or "",
-                "flags": (r["flags"] or "").replace(";", ", "),
-                "issues": (r["data_issues"] or "").replace(";", ", "),
-                "sheet": _href((sheet_files or {}).get(r["building_id"])),
-            }
-        )
-    return {"rows": out, "tiers": [name for name, _m in screen.TIERS]}
+    ).join(results.select("building_id", "mechanisms"), on="building_id", how="left", maintain_order="left")
+    rows = rows.with_columns(
+        _json_number(rows["ratio"]).alias("ratio_json"),
+        _json_number(rows["expected_recoverable_cost"]).alias("cost_json"),
+        _json_number(rows["excess_cost"]).alias("excess_json"),
+        fmt_ratio_col(rows["ratio"]).alias("ratio_text"),
+        fmt_money_col(rows["expected_recoverable_cost"], currency).alias("cost_text"),
+        fmt_money_col(rows["excess_cost"], currency).alias("excess_text"),
+        _sheet_paths(rows["building_id"], sheet_files).alias("sheet"),
+    )
+
+    def text(c: str) -> pl.Expr:  # a text shown as is ("" for missing)
+        return _json_string(pl.col(c).cast(pl.String).fill_null(""))
+
+    def listed(c: str) -> pl.Expr:  # "a;b" shown as "a, b"
+        return _json_string(pl.col(c).cast(pl.String).fill_null("").str.replace_all(";", ", ", literal=True))
+
+    mech = pl.col("mechanisms")
+    has = (mech.list.len() > 0).fill_null(False)
+    rose = pl.col("waste_kind").fill_null("").str.contains("rose", literal=True)
+    review = pl.col("needs_review").fill_null(False)
+    kinds = pl.when(has).then(mech.list.join(", ")).when(rose).then(pl.lit(STEP_UP_KIND)).otherwise(pl.lit(""))
+    visit = review | pl.col("tier").is_in(VISIT_TIERS).fill_null(False)
+    fields = {
+        "rank": pl.col("rank").cast(pl.String).fill_null("null"),
+        "id": _json_string(pl.col("building_id").cast(pl.String)).fill_null("null"),
+        "name": text("name"),
+        "tier": text("tier"),
+        "tier_order": pl.col("tier")
+        .replace_strict(tiers, list(range(len(tiers))), default=len(tiers), return_dtype=pl.Int64)
+        .fill_null(len(tiers))
+        .cast(pl.String),
+        "use": text("use_type"),
+        "station": text("station_id"),
+        "fuel": text("heating_fuel"),
+        "ratio": pl.col("ratio_json"),
+        "ratio_text": _json_string(pl.col("ratio_text")),
+        "cost": pl.col("cost_json"),
+        "cost_text": _json_string(pl.col("cost_text")),
+        "excess": pl.col("excess_json"),
+        "excess_text": _json_string(pl.col("excess_text")),
+        "review": pl.when(review).then(pl.lit("true")).otherwise(pl.lit("false")),
+        "kinds": pl.when(has)
+        .then(pl.concat_str([pl.lit("["), mech.list.eval(_json_string(pl.element())).list.join(","), pl.lit("]")]))
+        .when(rose)
+        .then(pl.lit(json.dumps([STEP_UP_KIND])))
+        .otherwise(pl.lit("[]")),
+        "kind_text": _json_string(
+            pl.when(kinds != "").then(kinds).when(visit).then(pl.lit(NOT_TOLD_APART)).otherwise(pl.lit(""))
+        ),
+        "why": text("waste_kind"),
+        "flags": listed("flags"),
+        "issues": listed("data_issues"),
+        "sheet": _json_string(pl.col("sheet")).fill_null("null"),
+    }
+    parts: list[pl.Expr] = []
+    for i, key in enumerate(sorted(fields)):  # json.dumps(sort_keys=True)
+        parts += [pl.lit(("{" if i == 0 else ",") + json.dumps(key) + ":"), fields[key]]
+    parts.append(pl.lit("}"))
+    objects = rows.select(pl.concat_str(parts).alias("row")).to_series().str.join(",")[0]
+    return Markup(f'{{"rows":[{objects}],"tiers":{json_for_script(tiers)}}}')
 
 
 def page_view(
@@ -223,7 +303,7 @@ def render_index(
     the first rows in rank order (the page says so; ranking.csv has all); ``workbook`` False leaves
     ranking.xlsx out of the links (it was not written)."""
     tdir = templates_dir()
-    ratios = [x for x in results["ratio"].to_list() if _num(x) is not None]
+    ratios = results["ratio"].filter(results["ratio"].is_finite()).to_list()
     total = ranking.height
     if 0 < max_rows < total:
         ranking = ranking.head(max_rows)
@@ -232,7 +312,7 @@ def render_index(
         .get_template("index.html.j2")
         .render(
             v=page_view(summary, plan, results, disp, currency, sheet_files),
-            data=json_for_script(page_data(ranking, results, sheet_files, currency)),
+            data=page_json(ranking, results, sheet_files, currency),
             chart=Markup(charts.ratio_histogram(ratios)),
             css=Markup((tdir / "index.css").read_text(encoding="utf-8")),
             script=Markup((tdir / "index.js").read_text(encoding="utf-8")),
