@@ -135,8 +135,16 @@ def _sheet_paths(building_id: pl.Series, sheet_files: dict[str, str] | None) -> 
 def page_json(
     ranking: pl.DataFrame, results: pl.DataFrame, sheet_files: dict[str, str] | None, currency: str
 ) -> Markup:
-    """The JSON the page's script renders, safe inside its ``<script>`` element (:func:`json_for_script`'s
-    bytes for ``{"rows": [...], "tiers": [...]}``), built column by column with polars expressions.
+    """The JSON the page's script renders (:func:`page_json_utf8` as text)."""
+    return Markup(page_json_utf8(ranking, results, sheet_files, currency).decode("utf-8"))
+
+
+def page_json_utf8(
+    ranking: pl.DataFrame, results: pl.DataFrame, sheet_files: dict[str, str] | None, currency: str
+) -> bytes:
+    """The JSON the page's script renders, safe inside its ``<script>`` element, as UTF-8: the bytes of
+    :func:`json_for_script` for ``{"rows": [...], "tiers": [...]}``, built column by column with polars
+    expressions (no per-building loop, no ``json.dumps`` of the rows).
 
     One row per building in rank order, with raw numbers (for sorting; null where not finite) and display
     texts: ``rank``, ``id``, ``name``, ``tier``, ``tier_order`` (its place in screen.TIERS), ``use``,
@@ -221,8 +229,8 @@ def page_json(
     for i, key in enumerate(sorted(fields)):  # json.dumps(sort_keys=True)
         parts += [pl.lit(("{" if i == 0 else ",") + json.dumps(key) + ":"), fields[key]]
     parts.append(pl.lit("}"))
-    objects = rows.select(pl.concat_str(parts).alias("row")).to_series().str.join(",")[0]
-    return Markup(f'{{"rows":[{objects}],"tiers":{json_for_script(tiers)}}}')
+    objects = rows.select(pl.concat_str(parts).alias("row")).to_series().str.join(",").cast(pl.Binary)[0]
+    return b'{"rows":[' + objects + b'],"tiers":' + str(json_for_script(tiers)).encode("utf-8") + b"}"
 
 
 def page_view(
@@ -287,6 +295,55 @@ def page_view(
     }
 
 
+#: Where the buildings' JSON goes in the rendered page: the template is rendered with this mark as ``data``
+#: and the page split there, so that the rows (megabytes) go from polars to the file as UTF-8 bytes, never
+#: through a Python string, the template or ``str.encode``. Every text from the data is HTML-escaped
+#: (``<`` as ``&lt;``), so only the template, the stylesheet, the script or the chart could hold the mark.
+_DATA_MARK = "<!--ddscreen:page-data-->"
+
+
+def _index_parts(
+    *,
+    ranking: pl.DataFrame,
+    results: pl.DataFrame,
+    plan: pl.DataFrame,
+    summary: dict[str, Any],
+    disp: Display,
+    currency: str,
+    sheet_files: dict[str, str] | None,
+    max_rows: int = 0,
+    workbook: bool = True,
+) -> tuple[str, bytes, str]:
+    """The page as (text before the buildings' JSON, the JSON as UTF-8, text after it): :func:`render_index`."""
+    tdir = templates_dir()
+    ratios = results["ratio"].filter(results["ratio"].is_finite()).to_list()
+    total = ranking.height
+    if 0 < max_rows < total:
+        ranking = ranking.head(max_rows)
+    text = (
+        _env()
+        .get_template("index.html.j2")
+        .render(
+            v=page_view(summary, plan, results, disp, currency, sheet_files),
+            data=Markup(_DATA_MARK),
+            chart=Markup(charts.ratio_histogram(ratios)),
+            css=Markup((tdir / "index.css").read_text(encoding="utf-8")),
+            script=Markup((tdir / "index.js").read_text(encoding="utf-8")),
+            outputs=[(f, text) for f, text in OTHER_OUTPUTS if workbook or f != "ranking.xlsx"],
+            workbook=workbook,
+            rows_left_out=ranking.height < total,
+            rows_shown=fmt_num(ranking.height),
+            rows_total=fmt_num(total),
+            sheets=sheet_files is not None,
+            caution=STANDARD_CAUTION,
+        )
+    )
+    head, mark, tail = text.partition(_DATA_MARK)
+    if not mark or _DATA_MARK in tail:
+        raise RuntimeError(f"index.html: the template must print the mark {_DATA_MARK!r} exactly once")
+    return head, page_json_utf8(ranking, results, sheet_files, currency), tail
+
+
 def render_index(
     *,
     ranking: pl.DataFrame,
@@ -302,32 +359,26 @@ def render_index(
     """The page's HTML text (see the module docstring). ``max_rows`` > 0 keeps the buildings table to
     the first rows in rank order (the page says so; ranking.csv has all); ``workbook`` False leaves
     ranking.xlsx out of the links (it was not written)."""
-    tdir = templates_dir()
-    ratios = results["ratio"].filter(results["ratio"].is_finite()).to_list()
-    total = ranking.height
-    if 0 < max_rows < total:
-        ranking = ranking.head(max_rows)
-    return (
-        _env()
-        .get_template("index.html.j2")
-        .render(
-            v=page_view(summary, plan, results, disp, currency, sheet_files),
-            data=page_json(ranking, results, sheet_files, currency),
-            chart=Markup(charts.ratio_histogram(ratios)),
-            css=Markup((tdir / "index.css").read_text(encoding="utf-8")),
-            script=Markup((tdir / "index.js").read_text(encoding="utf-8")),
-            outputs=[(f, text) for f, text in OTHER_OUTPUTS if workbook or f != "ranking.xlsx"],
-            workbook=workbook,
-            rows_left_out=ranking.height < total,
-            rows_shown=fmt_num(ranking.height),
-            rows_total=fmt_num(total),
-            sheets=sheet_files is not None,
-            caution=STANDARD_CAUTION,
-        )
+    head, data, tail = _index_parts(
+        ranking=ranking,
+        results=results,
+        plan=plan,
+        summary=summary,
+        disp=disp,
+        currency=currency,
+        sheet_files=sheet_files,
+        max_rows=max_rows,
+        workbook=workbook,
     )
+    return head + data.decode("utf-8") + tail
 
 
 def write_index(path: Path, **kwargs: Any) -> Path:
-    """Write ``index.html`` (UTF-8, ``\\n`` line ends) with :func:`render_index`'s text."""
-    Path(path).write_bytes(render_index(**kwargs).encode("utf-8"))
+    """Write ``index.html`` (UTF-8, ``\\n`` line ends): :func:`render_index`'s text, the buildings' JSON
+    written as the bytes polars made."""
+    head, data, tail = _index_parts(**kwargs)
+    with open(path, "wb") as f:
+        f.write(head.encode("utf-8"))
+        f.write(data)
+        f.write(tail.encode("utf-8"))
     return Path(path)

@@ -418,6 +418,59 @@ def test_page_json_writes_the_bytes_of_the_per_building_loop(n, currency):
         assert got == want
 
 
+def _page_inputs(n: int) -> dict:
+    from screening.outputs import Display
+
+    ranking, results, sheet_files = _awkward_page_frames(n)
+    plan = ranking.head(3).select(
+        pl.Series("visit", [1, 2, 3][: min(n, 3)], dtype=pl.Int64),
+        "rank",
+        "building_id",
+        "name",
+        "use_type",
+        "expected_recoverable_cost",
+        "waste_kind",
+        "needs_review",
+        pl.Series("cumulative_share", [0.2, 0.5, None][: min(n, 3)], dtype=pl.Float64),
+    )
+    results = results.join(ranking.select("building_id", "ratio"), on="building_id", how="left")
+    return {
+        "ranking": ranking,
+        "results": results,
+        "plan": plan,
+        "summary": {"run_id": "r1", "counts": {"buildings": n}},
+        "disp": Display("IP"),
+        "currency": "$",
+        "sheet_files": sheet_files,
+        "max_rows": 200,
+    }
+
+
+def test_the_written_page_is_the_rendered_text_with_the_rows_json_inside(tmp_path):
+    """write_index writes the bytes of render_index's text; the rows' JSON (spliced in as bytes) sits
+    in the data element, whole, and the same inputs give the same bytes."""
+    from screening.webpage import page_json, render_index, write_index
+
+    kw = _page_inputs(300)
+    text = render_index(**kw)
+    write_index(tmp_path / "index.html", **kw)
+    assert (tmp_path / "index.html").read_bytes() == text.encode("utf-8")
+    data = str(page_json(kw["ranking"].head(200), kw["results"], kw["sheet_files"], "$"))
+    assert text.count(data) == 1 and '<script type="application/json" id="page-data">' + data + "</script>" in text
+    assert json.loads(data)["rows"][199]["id"] == "B00199" and "B00200" not in data
+    assert render_index(**kw) == text
+
+
+def test_a_page_mark_outside_the_data_element_is_refused(monkeypatch):
+    """The rows go in where the template prints the mark: a second mark (here in the chart) is an error,
+    not a page with the rows in the wrong place."""
+    from screening import webpage
+
+    monkeypatch.setattr(webpage.charts, "ratio_histogram", lambda _r: "<svg>" + webpage._DATA_MARK + "</svg>")
+    with pytest.raises(RuntimeError, match="exactly once"):
+        webpage.render_index(**_page_inputs(5))
+
+
 # ---------------------------------------------------------------------------- in the browser
 
 
