@@ -16,20 +16,24 @@ The same results give the same bytes (no clock, no random values in the page).
 from __future__ import annotations
 
 import json
+import math
+from fractions import Fraction
 from pathlib import Path
 from typing import Any
 from urllib.parse import quote
 
 import jinja2
+import numpy as np
 import polars as pl
 from markupsafe import Markup
 
 from . import screen
 from .outputs import Display
 from .render import charts
-from .render.display import STANDARD_CAUTION, fmt_money, fmt_money_col, fmt_num, fmt_pct, fmt_ratio_col
+from .render.display import STANDARD_CAUTION, fmt_money, fmt_num, fmt_pct
 from .render.savings_page import hit_rate_lines
 from .resources import templates_dir
+from .wording import fmt
 
 #: What the page's "look for" column says when the evidence names no mechanism but the use rose.
 STEP_UP_KIND = "what changed"
@@ -84,6 +88,96 @@ def _kinds(mechanisms: list[str] | None, waste_kind: str | None) -> list[str]:
     if mechanisms:
         return list(mechanisms)
     return [STEP_UP_KIND] if "rose" in (waste_kind or "") else []
+
+
+# ---------------------------------------------------------------- display texts over a column
+# render.display's per-value formats (fmt_num, fmt_ratio, fmt_money) over a whole column: the same texts
+# (tests/test_webpage.py compares them on awkward values). Here rather than in render.display, whose room
+# imports nothing from the rest of the package; the exact rounding is wording.fmt's.
+
+
+def _at_least(power: int) -> float:
+    """The smallest float64 at or above 10**power exactly (10**power itself when exact)."""
+    t = float(Fraction(10) ** power)
+    return t if Fraction(t) >= Fraction(10) ** power else math.nextafter(t, math.inf)
+
+
+#: The decade edges 10^-2 … 10^1 as floats compared exactly (``x >= edge`` exactly when x >= 10^k), for
+#: the exponent of a value from 1e-3 to 100 (fmt_num's 3 significant digits).
+_DECADE_EDGES = np.array([_at_least(k) for k in (-2, -1, 0, 1)])
+
+
+def _floats(x: pl.Series) -> np.ndarray:
+    """A numeric Series as float64 values, null as NaN."""
+    return np.ascontiguousarray(x.cast(pl.Float64).fill_null(np.nan).to_numpy(), dtype=float)
+
+
+def _gathered(n: int, parts: list[tuple[np.ndarray, pl.Series]]) -> pl.Series:
+    """One String Series of ``n`` values from ``parts`` (row positions, their texts) that cover each row once."""
+    if not parts:
+        return pl.Series([], dtype=pl.String)
+    rows = np.concatenate([idx for idx, _t in parts])
+    where = np.empty(n, dtype=np.int64)
+    where[rows] = np.arange(rows.size)
+    return pl.concat([t.cast(pl.String) for _idx, t in parts]).gather(where)
+
+
+def _same(text: str, idx: np.ndarray) -> tuple[np.ndarray, pl.Series]:
+    return idx, pl.Series([text], dtype=pl.String).new_from_index(0, idx.size)
+
+
+def _num_parts(x: np.ndarray, rows: np.ndarray) -> list[tuple[np.ndarray, pl.Series]]:
+    """:func:`~screening.render.display.fmt_num` (``sig`` = 3) of ``x[rows]`` [float64, NaN for missing], column-wise, as
+    (row positions, texts) parts for :func:`_gathered`.
+
+    The figures from 1e-3 to 1e9 in magnitude are rounded exactly as Python's format rounds them (the exact
+    binary value, ties to even: :func:`screening.wording.fmt`); 3 significant digits are ``f"{x:.{k}f}"`` with
+    ``k`` = 2 - the value's decade, trailing zeros and point removed (what the ``g`` format does). Values
+    below 1e-3 or from 1e9 (rare: ``1.2e-05``, ``3.40e+09``) are formatted by :func:`~screening.render.display.fmt_num` itself.
+    """
+    v = x[rows]
+    a = np.abs(v)
+    finite = np.isfinite(v)
+    parts = [_same("n/a", rows[np.isnan(v)]), _same("0", rows[a == 0])]
+    parts += [_same("∞", rows[v == np.inf]), _same("-∞", rows[v == -np.inf])]
+    whole = (a >= 100) & (a < 1e9)
+    parts.append((rows[whole], fmt(pl.Series(v[whole], dtype=pl.Float64), 0)))
+    sig = (a >= 1e-3) & (a < 100)
+    decimals = 5 - np.searchsorted(_DECADE_EDGES, a, side="right")  # 2 - floor(log10 a), exact
+    for k in np.unique(decimals[sig]):
+        at = sig & (decimals == k)
+        text = fmt(pl.Series(v[at], dtype=pl.Float64), int(k)).str.strip_chars_end("0").str.strip_chars_end(".")
+        parts.append((rows[at], text))
+    rare = finite & (a > 0) & ((a < 1e-3) | (a >= 1e9))
+    parts.append((rows[rare], pl.Series([fmt_num(float(t)) for t in v[rare]], dtype=pl.String)))
+    return parts
+
+
+def fmt_num_col(x: pl.Series) -> pl.Series:
+    """:func:`~screening.render.display.fmt_num` of every value of a numeric Series (3 significant digits), the same texts, column-wise."""
+    v = _floats(x)
+    return _gathered(v.size, _num_parts(v, np.arange(v.size))).alias(x.name)
+
+
+def fmt_ratio_col(x: pl.Series) -> pl.Series:
+    """:func:`~screening.render.display.fmt_ratio` of every value of a numeric Series, the same texts, column-wise: 2 decimals below
+    1e6 in magnitude (``-0.00`` keeps its sign, as Python's format does), else :func:`fmt_num_col`."""
+    v = _floats(x)
+    two = np.isfinite(v) & (np.abs(v) < 1e6)
+    rows = np.arange(v.size)
+    parts = [(rows[two], fmt(pl.Series(v[two], dtype=pl.Float64), 2).str.replace_all(",", "", literal=True))]
+    return _gathered(v.size, parts + _num_parts(v, rows[~two])).alias(x.name)
+
+
+def fmt_money_col(x: pl.Series, currency: str = "$") -> pl.Series:
+    """:func:`~screening.render.display.fmt_money` of every value of a numeric Series, the same texts, column-wise: ``-`` for a
+    negative amount, ``currency``, then :func:`fmt_num_col` of the magnitude; ``n/a``/``∞`` as fmt_num."""
+    v = _floats(x)
+    ok = np.isfinite(v)
+    texts = _gathered(v.size, _num_parts(np.where(ok, np.abs(v), v), np.arange(v.size)))
+    frame = pl.DataFrame({"text": texts, "ok": ok, "neg": ok & (v < 0)})
+    lead = pl.when("neg").then(pl.lit("-" + currency)).when("ok").then(pl.lit(currency)).otherwise(pl.lit(""))
+    return frame.select(pl.concat_str([lead, pl.col("text")]).alias(x.name)).to_series()
 
 
 #: Each character a string value's JSON text escapes (``json.dumps(..., ensure_ascii=False)``: the quote,

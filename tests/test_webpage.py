@@ -273,14 +273,8 @@ def _awkward_values() -> list[float | None]:
 
 
 def test_the_column_formatters_write_what_the_per_value_formatters_write():
-    from screening.render.display import (
-        fmt_money,
-        fmt_money_col,
-        fmt_num,
-        fmt_num_col,
-        fmt_ratio,
-        fmt_ratio_col,
-    )
+    from screening.render.display import fmt_money, fmt_num, fmt_ratio
+    from screening.webpage import fmt_money_col, fmt_num_col, fmt_ratio_col
 
     values = _awkward_values()
     col = pl.Series("x", values, dtype=pl.Float64)
@@ -297,7 +291,7 @@ def test_the_column_formatters_write_what_the_per_value_formatters_write():
 def test_the_decade_edges_are_exact():
     from fractions import Fraction
 
-    from screening.render.display import _DECADE_EDGES
+    from screening.webpage import _DECADE_EDGES
 
     for k, edge in zip((-2, -1, 0, 1), _DECADE_EDGES.tolist()):
         below = __import__("math").nextafter(edge, 0.0)
