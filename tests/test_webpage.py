@@ -231,6 +231,240 @@ def test_json_for_script_escapes_what_could_close_the_element():
     assert json.loads(text) == {"a": "</script><!-- & \u2028"}
 
 
+# ---------------------------------------------------------------------------- column-wise texts
+
+#: awkward numbers for the column-wise formatters: missing, NaN, infinities, signed zeros, halves that round
+#: to even (0.125 -> 0.12, 0.375 -> 0.38), values whose decimal text looks like a half but is not (2.675 is
+#: 2.67499999…), the edges of every branch of fmt_num and fmt_ratio (1e-3, 100, 1e6, 1e9) and the floats
+#: next to them, carries into the next decade (9.995, 99.95, 999999.995), the smallest and largest floats
+AWKWARD = [
+    None, float("nan"), float("inf"), float("-inf"), 0.0, -0.0, 0.125, 0.375, -0.125, 2.675, 1.005, 0.005,
+    0.015, 0.0049999, 9.995, 99.95, 99.949999, 999.5, 1000.5, 2.5, 3.5, 999999.995, 999999.994, 1e6, -1e6,
+    999999999.5, 999999999.4, 1e9, -1e9, 1e-3, 0.000999, 0.0009995, 0.0095, 0.00995, 5e-324,
+    1.7976931348623157e308, -3.2e-12, 1234567.891, -1234.5, 12.345, 0.1 + 0.2, 1.5e-5, 1e-7,
+]  # fmt: skip
+#: currencies as [prices] currency allows them (1 to 8 characters, a symbol or a code)
+CURRENCIES = ["$", "€", "£", "¥", "CHF ", "kr", "R$", "US$ ", "<&>\"'"]
+
+
+def _awkward_values() -> list[float | None]:
+    import math
+
+    import numpy as np
+
+    rng = np.random.default_rng(20)
+    edges = [
+        x
+        for k in range(-5, 11)
+        for m in (1.0, 0.5, 0.05, 0.005, 0.125, 0.375, 0.995, 0.9995, 0.99995, 2.5)
+        for v in (m * 10.0**k,)
+        for x in (v, math.nextafter(v, math.inf), math.nextafter(v, -math.inf))
+    ]
+    rand = np.concatenate(
+        [
+            rng.integers(0, 2**63, 3000, dtype=np.int64).view(np.float64),  # any float64 bit pattern
+            rng.lognormal(0, 7, 3000),
+            np.round(rng.uniform(0, 100, 3000), 2) + 0.005,  # near-halves at the second decimal
+            rng.integers(0, 2**31, 3000) / 8.0,  # exact halves and quarters
+        ]
+    )
+    values = AWKWARD + edges + rand.tolist()
+    return values + [-v if v is not None else None for v in values]
+
+
+def test_the_column_formatters_write_what_the_per_value_formatters_write():
+    from screening.render.display import fmt_money, fmt_num, fmt_ratio
+    from screening.webpage import fmt_money_col, fmt_num_col, fmt_ratio_col
+
+    values = _awkward_values()
+    col = pl.Series("x", values, dtype=pl.Float64)
+    assert fmt_num_col(col).to_list() == [fmt_num(v) for v in values]
+    assert fmt_ratio_col(col).to_list() == [fmt_ratio(v) for v in values]
+    for cur in CURRENCIES:
+        assert fmt_money_col(col, cur).to_list() == [fmt_money(v, cur) for v in values], cur
+    # integers (a column of whole numbers) and an empty column
+    ints = pl.Series("n", [0, -7, 100, 123456789, None], dtype=pl.Int64)
+    assert fmt_money_col(ints, "$").to_list() == [fmt_money(v, "$") for v in ints.to_list()]
+    assert fmt_ratio_col(pl.Series("x", [], dtype=pl.Float64)).to_list() == []
+
+
+def test_the_decade_edges_are_exact():
+    from fractions import Fraction
+
+    from screening.webpage import _DECADE_EDGES
+
+    for k, edge in zip((-2, -1, 0, 1), _DECADE_EDGES.tolist()):
+        below = __import__("math").nextafter(edge, 0.0)
+        assert Fraction(edge) >= Fraction(10) ** k > Fraction(below), k
+
+
+def _rows_one_by_one(ranking: pl.DataFrame, results: pl.DataFrame, sheet_files, currency: str) -> dict:
+    """The page's data as the per-building loop built it before issue 20 (the oracle of page_json)."""
+    import math
+    from urllib.parse import quote
+
+    from screening import screen
+    from screening.render.display import fmt_money, fmt_ratio
+    from screening.webpage import NOT_TOLD_APART, STEP_UP_KIND, VISIT_TIERS
+
+    def num(x):
+        return float(x) if isinstance(x, (int, float)) and not isinstance(x, bool) and math.isfinite(x) else None
+
+    def kinds_of(mechanisms, waste_kind):
+        if mechanisms:
+            return list(mechanisms)
+        return [STEP_UP_KIND] if "rose" in (waste_kind or "") else []
+
+    rows = ranking.join(
+        results.select("building_id", "mechanisms"), on="building_id", how="left", maintain_order="left"
+    )
+    tier_order = {name: i for i, (name, _m) in enumerate(screen.TIERS)}
+    out = []
+    for r in rows.iter_rows(named=True):
+        kinds = kinds_of(r["mechanisms"], r["waste_kind"])
+        sheet = (sheet_files or {}).get(r["building_id"])
+        out.append(
+            {
+                "rank": r["rank"],
+                "id": r["building_id"],
+                "name": r["name"] or "",
+                "tier": r["tier"] or "",
+                "tier_order": tier_order.get(r["tier"], len(tier_order)),
+                "use": r["use_type"] or "",
+                "station": r["station_id"] or "",
+                "fuel": r["heating_fuel"] or "",
+                "ratio": num(r["ratio"]),
+                "ratio_text": fmt_ratio(r["ratio"]),
+                "cost": num(r["expected_recoverable_cost"]),
+                "cost_text": fmt_money(r["expected_recoverable_cost"], currency),
+                "excess": num(r["excess_cost"]),
+                "excess_text": fmt_money(r["excess_cost"], currency),
+                "review": bool(r["needs_review"]),
+                "kinds": kinds,
+                "kind_text": ", ".join(kinds)
+                or (NOT_TOLD_APART if r["needs_review"] or r["tier"] in VISIT_TIERS else ""),
+                "why": r["waste_kind"] or "",
+                "flags": (r["flags"] or "").replace(";", ", "),
+                "issues": (r["data_issues"] or "").replace(";", ", "),
+                "sheet": None if sheet is None else quote(sheet, safe="/"),
+            }
+        )
+    return {"rows": out, "tiers": [name for name, _m in screen.TIERS]}
+
+
+def _awkward_page_frames(n: int) -> tuple[pl.DataFrame, pl.DataFrame, dict[str, str]]:
+    """A ranking of ``n`` invented buildings whose every column cycles through awkward values (cycles of
+    different lengths and paces, so that 300 rows hold every pair of mechanisms, waste kind, tier and review)."""
+    texts = [
+        None, "", "Hollin School", '<b>"x"</b> & \\ </script><!--', "tab\there\nnew line\r\x00\x1f\x7f",
+        "Åsgård Hall — 北 \u2028\u2029 🏫", "a;b;c", ";", "use rose 12%", "Audit first", "Audit soon", "Watch",
+    ]  # fmt: skip
+    mechanisms = [None, [], ["heat loss"], ["controls", "baseload"], [""], ['"q"', "<&>"]]
+    numbers = AWKWARD + [3471.3, 4521090.49, 0.87, 1.5]
+    tiers = [None, "Audit first", "Audit soon", "Watch", "No action", "Fix data first", "Unknown tier"]
+    why = [None, "", "The use rose 40% in a year", "Likely heat loss", "Rose"]
+    ids = [f"B{i:05d}" for i in range(n)]
+    ranking = pl.DataFrame(
+        {
+            "rank": [None if i % 97 == 5 else i + 1 for i in range(n)],
+            "building_id": ids,
+            "name": [texts[i % len(texts)] for i in range(n)],
+            "tier": [tiers[i % len(tiers)] for i in range(n)],
+            "use_type": [texts[(i + 1) % len(texts)] for i in range(n)],
+            "station_id": [texts[(i + 2) % len(texts)] for i in range(n)],
+            "heating_fuel": [texts[(i + 3) % len(texts)] for i in range(n)],
+            "ratio": [numbers[i % len(numbers)] for i in range(n)],
+            "expected_recoverable_cost": [numbers[(i * 7) % len(numbers)] for i in range(n)],
+            "excess_cost": [numbers[(i * 11 + 3) % len(numbers)] for i in range(n)],
+            "needs_review": [(None, True, False)[(i // 6) % 3] for i in range(n)],
+            "waste_kind": [why[(i // 2) % len(why)] for i in range(n)],  # every pair with a tier, mechanisms
+            "flags": [texts[(i + 6) % len(texts)] for i in range(n)],
+            "data_issues": [texts[(i + 5) % len(texts)] for i in range(n)],
+        },
+        schema_overrides={
+            "rank": pl.Int64,
+            **{c: pl.String for c in ("building_id", "name", "tier", "use_type", "station_id", "heating_fuel")},
+            **{c: pl.Float64 for c in ("ratio", "expected_recoverable_cost", "excess_cost")},
+            **{"needs_review": pl.Boolean, "waste_kind": pl.String, "flags": pl.String, "data_issues": pl.String},
+        },
+    )
+    results = pl.DataFrame(  # one building missing from the results: no mechanisms at all
+        {"building_id": ids[1:], "mechanisms": [mechanisms[i % len(mechanisms)] for i in range(1, n)]},
+        schema={"building_id": pl.String, "mechanisms": pl.List(pl.String)},
+    )
+    paths = ["sheets/B1.pdf", "sheets/a b#?.pdf", "sheets/Åsgård.pdf", "sheets/100%.pdf", "x/~_.-y.pdf"]
+    sheet_files = {b: paths[i % len(paths)] for i, b in enumerate(ids) if i % 4}
+    return ranking, results, sheet_files
+
+
+@pytest.mark.parametrize("n", [0, 1, 300])
+@pytest.mark.parametrize("currency", ["$", "CHF ", "<&>\"'"])
+def test_page_json_writes_the_bytes_of_the_per_building_loop(n, currency):
+    """page_json (column-wise) against the loop it replaced, json-encoded as before: the same bytes for
+    awkward texts (quotes, markup, control characters, line separators, emoji), missing values, mechanisms
+    null, empty or odd, unknown tiers, awkward numbers and sheet paths that need quoting."""
+    from screening.webpage import json_for_script, page_json
+
+    ranking, results, sheet_files = _awkward_page_frames(n)
+    for sheets in (sheet_files, None, {}):
+        want = str(json_for_script(_rows_one_by_one(ranking, results, sheets, currency)))
+        got = str(page_json(ranking, results, sheets, currency))
+        assert got == want
+
+
+def _page_inputs(n: int) -> dict:
+    from screening.outputs import Display
+
+    ranking, results, sheet_files = _awkward_page_frames(n)
+    plan = ranking.head(3).select(
+        pl.Series("visit", [1, 2, 3][: min(n, 3)], dtype=pl.Int64),
+        "rank",
+        "building_id",
+        "name",
+        "use_type",
+        "expected_recoverable_cost",
+        "waste_kind",
+        "needs_review",
+        pl.Series("cumulative_share", [0.2, 0.5, None][: min(n, 3)], dtype=pl.Float64),
+    )
+    results = results.join(ranking.select("building_id", "ratio"), on="building_id", how="left")
+    return {
+        "ranking": ranking,
+        "results": results,
+        "plan": plan,
+        "summary": {"run_id": "r1", "counts": {"buildings": n}},
+        "disp": Display("IP"),
+        "currency": "$",
+        "sheet_files": sheet_files,
+        "max_rows": 200,
+    }
+
+
+def test_the_written_page_is_the_rendered_text_with_the_rows_json_inside(tmp_path):
+    """write_index writes the bytes of render_index's text; the rows' JSON (spliced in as bytes) sits
+    in the data element, whole, and the same inputs give the same bytes."""
+    from screening.webpage import page_json, render_index, write_index
+
+    kw = _page_inputs(300)
+    text = render_index(**kw)
+    write_index(tmp_path / "index.html", **kw)
+    assert (tmp_path / "index.html").read_bytes() == text.encode("utf-8")
+    data = str(page_json(kw["ranking"].head(200), kw["results"], kw["sheet_files"], "$"))
+    assert text.count(data) == 1 and '<script type="application/json" id="page-data">' + data + "</script>" in text
+    assert json.loads(data)["rows"][199]["id"] == "B00199" and "B00200" not in data
+    assert render_index(**kw) == text
+
+
+def test_a_page_mark_outside_the_data_element_is_refused(monkeypatch):
+    """The rows go in where the template prints the mark: a second mark (here in the chart) is an error,
+    not a page with the rows in the wrong place."""
+    from screening import webpage
+
+    monkeypatch.setattr(webpage.charts, "ratio_histogram", lambda _r: "<svg>" + webpage._DATA_MARK + "</svg>")
+    with pytest.raises(RuntimeError, match="exactly once"):
+        webpage.render_index(**_page_inputs(5))
+
+
 # ---------------------------------------------------------------------------- in the browser
 
 
