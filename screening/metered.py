@@ -453,6 +453,37 @@ def choose_spans(
 # --------------------------------------------------------------------------------------------
 
 
+def _with_spans(r: pl.DataFrame, spans: pl.DataFrame) -> pl.DataFrame:
+    """``r.join(spans, on="building_id", how="inner")`` where ``spans`` has one row per building: the rows of
+    ``r`` whose building has a span, in ``r``'s order, with the span's other columns.
+
+    The building of each run of equal ids in ``r`` (readings come grouped by building) is looked up
+    once, not once per row. A building's rows keep their order, as in the join, so sums over
+    (building, fuel) groups are the same to the bit; ``spans`` with a building twice: the join itself.
+    """
+    key = spans["building_id"]
+    if r.height == 0 or key.is_duplicated().any():
+        return r.join(spans, on="building_id", how="inner")
+    rid = r["building_id"].rle_id().to_numpy()
+    starts = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]])
+    run_pos = (
+        r["building_id"]
+        .gather(starts)
+        .to_frame()
+        .join(spans.select("building_id").with_row_index("_k"), on="building_id", how="left", maintain_order="left")[
+            "_k"
+        ]
+        .cast(pl.Int64)
+        .fill_null(-1)
+        .to_numpy()
+    )
+    pos = run_pos[rid]
+    keep = pos >= 0
+    if not keep.all():
+        r, pos = r.filter(pl.Series(keep)), pos[keep]
+    return r.with_columns(spans[c].gather(pos) for c in spans.columns if c != "building_id")
+
+
 def _cum_lookup(weights: pl.DataFrame, q: pl.DataFrame, date_col: str, prefix: str) -> pl.DataFrame:
     """Cumulative weight and day count up to and including ``q[date_col]`` per building."""
     q = q.with_row_index("_qi").sort(date_col)
@@ -509,8 +540,10 @@ def calendarize(
     if "is_heating_fuel" not in r.columns:
         r = r.with_columns(pl.lit(True).alias("is_heating_fuel"))
     j = (
-        r.select("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu", "days")
-        .join(spans.select("building_id", "span_start", "span_end"), on="building_id", how="inner")
+        _with_spans(
+            r.select("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu", "days"),
+            spans.select("building_id", "span_start", "span_end"),
+        )
         .with_columns(
             pl.max_horizontal("period_start", "span_start").alias("_os"),
             pl.min_horizontal("period_end", "span_end").alias("_oe"),

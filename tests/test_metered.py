@@ -896,3 +896,42 @@ def test_pad_periods_from_a_callable_and_a_buffer():
     )
     for k, v in fit.items():
         np.testing.assert_array_equal(_bits(fast[k]), _bits(v), err_msg=k)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_with_spans_is_the_inner_join(seed):
+    """_with_spans (one look-up per run of a building's rows) gives the rows, values and order of
+    the inner join it replaces in calendarize: readings grouped or shuffled, buildings without a
+    span, spans of buildings without readings, and spans with a building twice (the join itself)."""
+    rng = np.random.default_rng(seed)
+    n_b = int(rng.integers(1, 40))
+    ids = [f"B{i:03d}" for i in range(n_b)]
+    rid = rng.integers(0, n_b + 3, int(rng.integers(0, 300)))  # ids n_b.. have no span
+    r = pl.DataFrame(
+        {"building_id": [f"B{i:03d}" for i in rid], "energy_kbtu": rng.random(rid.size)},
+        schema={"building_id": pl.String, "energy_kbtu": pl.Float64},
+    )
+    if seed % 2:
+        r = r.sort("building_id")
+    keep = rng.random(n_b) < 0.8
+    spans = pl.DataFrame(
+        {
+            "building_id": [b for b, k in zip(ids, keep) if k],
+            "span_start": [D0 + timedelta(days=int(d)) for d in rng.integers(0, 400, int(keep.sum()))],
+        },
+        schema={"building_id": pl.String, "span_start": pl.Date},
+    ).sample(fraction=1.0, shuffle=True, seed=seed)
+    if seed == 5 and spans.height:
+        spans = pl.concat([spans, spans.head(1)])
+    joined = r.join(spans, on="building_id", how="inner")
+    got = M._with_spans(r, spans)
+    assert got.columns == joined.columns and got.schema == joined.schema
+    if seed == 5 or r.height <= spans.height:  # (polars may order a join with the smaller side first)
+        key = ["building_id", "energy_kbtu"]
+        assert got.sort(key).equals(joined.sort(key))
+    else:
+        assert got.equals(joined)
+    # each building's rows in r's order (what sums per building and fuel see; a span twice doubles them)
+    for b in set(got["building_id"].to_list()) if seed != 5 else ():
+        mine = pl.col("building_id") == b
+        assert got.filter(mine)["energy_kbtu"].to_list() == r.filter(mine)["energy_kbtu"].to_list()
