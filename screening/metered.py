@@ -453,35 +453,63 @@ def choose_spans(
 # --------------------------------------------------------------------------------------------
 
 
+def _rows_in(keys: pl.Series, *tables: pl.Series) -> list[np.ndarray] | None:
+    """For each element of ``keys``, the row of each of ``tables`` holding the same value, -1 for none (nor
+    for a null); None when a table holds a looked-up value twice. Looked up once per run of equal keys
+    (rows come grouped by building), not once per row; the runs' values matched by a join, as a join
+    matches them, all tables in one query."""
+    if keys.len() == 0:
+        return [np.zeros(0, dtype=np.int64) for _ in tables]
+    rid = keys.rle_id().to_numpy()
+    starts = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]])
+    name = keys.name
+    q = keys.gather(starts).to_frame(name).lazy()
+    for i, t in enumerate(tables):
+        q = q.join(t.alias(name).to_frame().lazy().with_row_index(f"_k{i}"), on=name, how="left", maintain_order="left")
+    runs = q.select(pl.col(f"_k{i}").cast(pl.Int64).fill_null(-1) for i in range(len(tables))).collect()
+    if runs.height != starts.size:  # (a table with a value twice: a row per match)
+        return None
+    return [runs[f"_k{i}"].to_numpy()[rid] for i in range(len(tables))]
+
+
 def _with_spans(r: pl.DataFrame, spans: pl.DataFrame) -> pl.DataFrame:
     """``r.join(spans, on="building_id", how="inner")`` where ``spans`` has one row per building: the rows of
     ``r`` whose building has a span, in ``r``'s order, with the span's other columns.
 
     The building of each run of equal ids in ``r`` (readings come grouped by building) is looked up
-    once, not once per row. A building's rows keep their order, as in the join, so sums over
-    (building, fuel) groups are the same to the bit; ``spans`` with a building twice: the join itself.
+    once (:func:`_rows_in`), not once per row. A building's rows keep their order, as in the join, so
+    sums over (building, fuel) groups are the same to the bit; ``spans`` with a building twice: the
+    join itself.
     """
-    key = spans["building_id"]
-    if r.height == 0 or key.is_duplicated().any():
+    found = _rows_in(r["building_id"], spans["building_id"])
+    if found is None:
         return r.join(spans, on="building_id", how="inner")
-    rid = r["building_id"].rle_id().to_numpy()
-    starts = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]])
-    run_pos = (
-        r["building_id"]
-        .gather(starts)
-        .to_frame()
-        .join(spans.select("building_id").with_row_index("_k"), on="building_id", how="left", maintain_order="left")[
-            "_k"
-        ]
-        .cast(pl.Int64)
-        .fill_null(-1)
-        .to_numpy()
-    )
-    pos = run_pos[rid]
+    pos = found[0]
     keep = pos >= 0
     if not keep.all():
         r, pos = r.filter(pl.Series(keep)), pos[keep]
     return r.with_columns(spans[c].gather(pos) for c in spans.columns if c != "building_id")
+
+
+def base_per_period(periods: pl.DataFrame, met: pl.DataFrame, envelope: pl.DataFrame) -> np.ndarray:
+    """The base [°F] of each billing period's degree days at the fit, rows in ``periods`` order: its
+    building's fitted base (``met.fitted_base_f``, :func:`metered_heating`) where finite, else the
+    building's engineering balance point (``envelope.balance_point_f``); NaN for a building in
+    neither. ``met`` and ``envelope`` hold a building once (else their left joins, as before)."""
+    found = _rows_in(periods["building_id"], met["building_id"], envelope["building_id"])
+    if found is None:
+        fb = periods.select("building_id").join(
+            met.select("building_id", "fitted_base_f"), on="building_id", how="left", maintain_order="left"
+        )
+        fb = fb.join(
+            envelope.select("building_id", "balance_point_f"), on="building_id", how="left", maintain_order="left"
+        )
+        fitted, bal = fb["fitted_base_f"].fill_null(np.nan).to_numpy(), fb["balance_point_f"].to_numpy()
+    else:
+        # each table's values with a NaN after them: row -1 (no such building) reads the NaN
+        fitted = np.append(met["fitted_base_f"].fill_null(np.nan).to_numpy(), np.nan)[found[0]]
+        bal = np.append(envelope["balance_point_f"].fill_null(np.nan).to_numpy(), np.nan)[found[1]]
+    return np.where(np.isfinite(fitted), fitted, bal)
 
 
 def _cum_lookup(weights: pl.DataFrame, q: pl.DataFrame, date_col: str, prefix: str) -> pl.DataFrame:

@@ -935,3 +935,34 @@ def test_with_spans_is_the_inner_join(seed):
     for b in set(got["building_id"].to_list()) if seed != 5 else ():
         mine = pl.col("building_id") == b
         assert got.filter(mine)["energy_kbtu"].to_list() == r.filter(mine)["energy_kbtu"].to_list()
+
+
+def test_base_per_period_is_the_joins_it_replaces():
+    """base_per_period (one look-up per run of a building's periods) gives, to the bit, the left joins
+    of the periods with the fits and the envelope it replaces in the pipeline: the fitted base where
+    finite, else the balance point; NaN for a building in neither; a table with a building twice
+    falls back to the joins."""
+    rng = np.random.default_rng(3)
+    ids = [f"B{i:02d}" for i in range(30)]
+    periods = pl.DataFrame({"building_id": sorted(rng.choice(ids + ["X1"], 400).tolist())})
+    fitted = rng.normal(58, 4, 25)
+    fitted[::4] = np.nan
+    met = pl.DataFrame({"building_id": ids[:25], "fitted_base_f": fitted}).with_columns(
+        pl.when(pl.int_range(pl.len()) % 7 == 3).then(None).otherwise(pl.col("fitted_base_f")).alias("fitted_base_f")
+    )
+    envelope = pl.DataFrame({"building_id": ids[5:], "balance_point_f": rng.normal(55, 3, 25)})
+
+    def joins(periods, met, envelope):
+        fb = periods.select("building_id").join(met, on="building_id", how="left", maintain_order="left")
+        fb = fb.join(envelope, on="building_id", how="left", maintain_order="left")
+        f = fb["fitted_base_f"].fill_null(np.nan).to_numpy()
+        return np.where(np.isfinite(f), f, fb["balance_point_f"].to_numpy())
+
+    got = M.base_per_period(periods, met, envelope)
+    want = joins(periods, met, envelope)
+    assert got.shape == (periods.height,) and np.array_equal(got, want, equal_nan=True)
+    assert np.isnan(got[(periods["building_id"] == "X1").to_numpy()]).all()
+    assert np.isfinite(got).sum() > 300  # (most periods have a base)
+    met2 = pl.concat([met, met.head(1)])  # a building twice: one row per match, as the joins give
+    got2 = M.base_per_period(periods, met2, envelope)
+    assert np.array_equal(got2, joins(periods, met2, envelope), equal_nan=True)
