@@ -77,10 +77,15 @@ _ISSUE_SCHEMA = pl.Schema({"building_id": pl.String, "code": pl.String, "detail"
 # --------------------------------------------------------------------------------------------
 
 
-def _heat(readings: pl.DataFrame) -> pl.DataFrame:
+def _heat(readings: pl.DataFrame, *columns: str | pl.Expr) -> pl.DataFrame:
+    """The heating-fuel readings (all without ``is_heating_fuel``); only ``columns`` (names or expressions)
+    when given, chosen before the rows are filtered (the other columns are not copied)."""
+    if not columns:
+        return readings.filter(pl.col("is_heating_fuel")) if "is_heating_fuel" in readings.columns else readings
+    q = readings.lazy()
     if "is_heating_fuel" in readings.columns:
-        return readings.filter(pl.col("is_heating_fuel"))
-    return readings
+        q = q.filter(pl.col("is_heating_fuel"))
+    return q.select(*columns).collect()
 
 
 def _require(df: pl.DataFrame, name: str, cols: Sequence[str]) -> None:
@@ -388,7 +393,7 @@ def choose_spans(
     if fill_end_days < 0:
         raise ValueError(f"fill_end_days={fill_end_days!r} must be at least 0")
     _require(readings, "readings", ("building_id", "period_start", "period_end"))
-    r = _heat(readings).select("building_id", "period_start", "period_end")
+    r = _heat(readings, "building_id", "period_start", "period_end")
     ids = (
         pl.Series("building_id", list(building_ids), dtype=pl.String)
         if building_ids is not None
@@ -472,18 +477,18 @@ def _rows_in(keys: pl.Series, *tables: pl.Series) -> list[np.ndarray] | None:
     return [runs[f"_k{i}"].to_numpy()[rid] for i in range(len(tables))]
 
 
-def _with_spans(r: pl.DataFrame, spans: pl.DataFrame) -> pl.DataFrame:
+def _with_spans(r: pl.DataFrame, spans: pl.DataFrame, maintain_order: Any = "none") -> pl.DataFrame:
     """``r.join(spans, on="building_id", how="inner")`` where ``spans`` has one row per building: the rows of
     ``r`` whose building has a span, in ``r``'s order, with the span's other columns.
 
     The building of each run of equal ids in ``r`` (readings come grouped by building) is looked up
     once (:func:`_rows_in`), not once per row. A building's rows keep their order, as in the join, so
     sums over (building, fuel) groups are the same to the bit; ``spans`` with a building twice: the
-    join itself.
+    join itself (with ``maintain_order``).
     """
     found = _rows_in(r["building_id"], spans["building_id"])
     if found is None:
-        return r.join(spans, on="building_id", how="inner")
+        return r.join(spans, on="building_id", how="inner", maintain_order=maintain_order)
     pos = found[0]
     keep = pos >= 0
     if not keep.all():
@@ -1109,7 +1114,7 @@ def missing_bills(
     ws, we = pl.lit(window_start), pl.lit(window_end)
     one = pl.duration(days=1)
     meter = (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
-    r = _heat(readings).select("building_id", meter.alias("meter_id"), "period_start", "period_end")
+    r = _heat(readings, "building_id", meter.alias("meter_id"), "period_start", "period_end")
     # building level: stretches of the window without any read
     b = r.sort(["building_id", "period_start", "period_end"])
     b = b.with_columns(_prev_run_max(b, ["building_id"], "period_end").alias("_pe"))
@@ -1195,9 +1200,8 @@ def fit_periods(
     """
     _require(readings, "readings", ("building_id", "period_start", "period_end", "energy_kbtu"))
     sp = spans.select("building_id", "span_end").with_columns(_lookback_start("span_end", lookback_months).alias("_lb"))
-    r = _heat(readings)
-    est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in r.columns else pl.lit(False)
-    r = r.select("building_id", "period_start", "period_end", "energy_kbtu", est.alias("_est"))
+    est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in readings.columns else pl.lit(False)
+    r = _heat(readings, "building_id", "period_start", "period_end", "energy_kbtu", est.alias("_est"))
     keys = ["building_id", "period_start", "period_end"]
     agg = (
         pl.col("energy_kbtu").sum(),
@@ -1205,7 +1209,7 @@ def fit_periods(
         pl.col("_est").any().alias("any_estimated"),
     )
     # (rows kept in the readings' order: converted readings are sorted, so the sort below finds its order)
-    f = r.join(sp, on="building_id", how="inner", maintain_order="left").filter(
+    f = _with_spans(r, sp, "left").filter(
         (pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end"))
     )
     if f.height and strictly_sorted(f, keys, ties=True) and not f["energy_kbtu"].null_count():
