@@ -572,11 +572,12 @@ def calendarize(
         r = r.with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
     if "is_heating_fuel" not in r.columns:
         r = r.with_columns(pl.lit(True).alias("is_heating_fuel"))
-    j = (
+    overlap = (  # (one query: the overlaps and, by days, the parts)
         _with_spans(
             r.select("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu", "days"),
             spans.select("building_id", "span_start", "span_end"),
         )
+        .lazy()
         .with_columns(
             pl.max_horizontal("period_start", "span_start").alias("_os"),
             pl.min_horizontal("period_end", "span_end").alias("_oe"),
@@ -586,8 +587,9 @@ def calendarize(
     )
     part_days = pl.col("energy_kbtu") * pl.col("_od") / pl.col("days")
     if method == "days":
-        j = j.with_columns(part_days.alias("_part"), pl.lit(False).alias("_by_dd"))
+        j = overlap.with_columns(part_days.alias("_part"), pl.lit(False).alias("_by_dd")).collect()
     else:
+        j = overlap.collect()
         if daily_weights is None:
             raise ValueError("method='degree_days' needs daily_weights (building_id, date, weight)")
         _require(daily_weights, "daily_weights", ("building_id", "date", "weight"))
