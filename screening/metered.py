@@ -80,12 +80,11 @@ _ISSUE_SCHEMA = pl.Schema({"building_id": pl.String, "code": pl.String, "detail"
 def _heat(readings: pl.DataFrame, *columns: str | pl.Expr) -> pl.DataFrame:
     """The heating-fuel readings (all without ``is_heating_fuel``); only ``columns`` (names or expressions)
     when given, chosen before the rows are filtered (the other columns are not copied)."""
+    if "is_heating_fuel" not in readings.columns:
+        return readings.select(*columns) if columns else readings
     if not columns:
-        return readings.filter(pl.col("is_heating_fuel")) if "is_heating_fuel" in readings.columns else readings
-    q = readings.lazy()
-    if "is_heating_fuel" in readings.columns:
-        q = q.filter(pl.col("is_heating_fuel"))
-    return q.select(*columns).collect()
+        return readings.filter(pl.col("is_heating_fuel"))
+    return readings.lazy().filter(pl.col("is_heating_fuel")).select(*columns).collect()
 
 
 def _require(df: pl.DataFrame, name: str, cols: Sequence[str]) -> None:
