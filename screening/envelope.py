@@ -611,12 +611,13 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
     p_hi: dict[str, np.ndarray] = {}
     p_given: dict[str, np.ndarray] = {}
     p_src: dict[str, np.ndarray] = {}
+    # each building's cell of the (fuel, era) and (era, use type) tables: one flat index per table
+    cell = {"efficiency_defaults": fuel_idx * len(ERAS) + era_idx}
+    cell_era_use = era_idx * len(USE_TYPES) + use_idx
     for pname, (tname, gcol, _unit) in PARAMETERS.items():
         vals, codes, texts = defaults[pname]
-        if tname == "efficiency_defaults":
-            v, s = vals[fuel_idx, era_idx], codes[fuel_idx, era_idx]
-        else:
-            v, s = vals[era_idx, use_idx], codes[era_idx, use_idx]
+        k = cell.get(tname, cell_era_use)
+        v, s = vals.reshape(-1, 3)[k], codes.ravel()[k]
         g = given[gcol] if gcol is not None else np.full(n, np.nan)
         is_given = ~np.isnan(g)
         p_given[pname] = is_given
