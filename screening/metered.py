@@ -528,7 +528,12 @@ def _cum_lookup(weights: pl.DataFrame, q: pl.DataFrame, date_col: str, prefix: s
 
 
 def calendarize(
-    readings: pl.DataFrame, spans: pl.DataFrame, *, method: str = "days", daily_weights: pl.DataFrame | None = None
+    readings: pl.DataFrame,
+    spans: pl.DataFrame,
+    *,
+    method: str = "days",
+    daily_weights: pl.DataFrame | None = None,
+    heating_only: bool = False,
 ) -> pl.DataFrame:
     """Prorate every reading to its building's span and sum per building and fuel.
 
@@ -547,6 +552,9 @@ def calendarize(
     spans : pl.DataFrame
         ``building_id, span_start, span_end`` (see :func:`choose_spans`).
     method : {"days", "degree_days"}
+    heating_only : bool
+        Only the heating fuels' rows (``is_heating_fuel``): the others are not prorated (each row of the
+        result depends on its own building and fuel only, so the heating rows are the same).
     daily_weights : pl.DataFrame, optional
         Required for ``"degree_days"``: ``building_id, date, weight`` with the day's heating degree
         days at the building's base [°F·day] (any non-negative daily weight works), one row per
@@ -571,9 +579,10 @@ def calendarize(
         r = r.with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
     if "is_heating_fuel" not in r.columns:
         r = r.with_columns(pl.lit(True).alias("is_heating_fuel"))
+    cols = ("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu", "days")
     overlap = (  # (one query: the overlaps and, by days, the parts)
         _with_spans(
-            r.select("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu", "days"),
+            _heat(r, *cols) if heating_only else r.select(*cols),
             spans.select("building_id", "span_start", "span_end"),
         )
         .lazy()
@@ -1767,7 +1776,7 @@ def metered_heating(
     eta = np.asarray(efficiency, float)
     t_eng = np.asarray(engineering_base_f, float)
 
-    cal = calendarize(readings, spans, method=method, daily_weights=daily_weights)
+    cal = calendarize(readings, spans, method=method, daily_weights=daily_weights, heating_only=True)
     cal = (
         cal.filter(pl.col("is_heating_fuel"))
         .group_by("building_id")

@@ -966,3 +966,32 @@ def test_base_per_period_is_the_joins_it_replaces():
     met2 = pl.concat([met, met.head(1)])  # a building twice: one row per match, as the joins give
     got2 = M.base_per_period(periods, met2, envelope)
     assert np.array_equal(got2, joins(periods, met2, envelope), equal_nan=True)
+
+
+def test_calendarize_heating_only_is_the_heating_rows():
+    """heating_only (what metered_heating asks for) gives, to the bit, the heating-fuel rows of the full
+    result: each row depends on its own building and fuel only; both methods."""
+    rng = np.random.default_rng(5)
+    parts = []
+    for b in ("h1", "h2", "h3"):
+        s, e = drifting(rng, 30, start=date(2024, 6, 1))
+        for fuel, heat in (("natural_gas", True), ("electricity", False), ("fuel_oil", True)):
+            if fuel == "fuel_oil" and b != "h2":
+                continue
+            parts.append(_reads(b, s, e, q=rng.uniform(50, 500, len(s)), fuel=fuel, heat=heat))
+    r = pl.concat(parts).sort("building_id", "fuel", "period_start")
+    sp = pl.DataFrame({"building_id": ["h1", "h2", "h3"], "span_start": [WS] * 3, "span_end": [WE] * 3})
+    days = (WE - date(2024, 6, 1)).days + 400
+    w = pl.DataFrame(
+        {
+            "building_id": np.repeat(["h1", "h2", "h3"], days),
+            "date": [date(2024, 6, 1) + timedelta(days=i) for i in range(days)] * 3,
+            "weight": np.tile(np.maximum(65 - temps(days), 0.0), 3),
+        }
+    )
+    for method in ("days", "degree_days"):
+        kw = {"method": method, "daily_weights": w if method == "degree_days" else None}
+        full = M.calendarize(r, sp, **kw)
+        heat = M.calendarize(r, sp, heating_only=True, **kw)
+        assert heat.height == 4 and full.height == 7
+        assert heat.equals(full.filter(pl.col("is_heating_fuel")))
