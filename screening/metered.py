@@ -87,6 +87,13 @@ def _heat(readings: pl.DataFrame, *columns: str | pl.Expr) -> pl.DataFrame:
     return readings.lazy().filter(pl.col("is_heating_fuel")).select(*columns).collect()
 
 
+def _id_series(building_ids: Sequence[str] | pl.Series) -> pl.Series:
+    """``building_ids`` as a String series named building_id (a String series as it is, not via a list)."""
+    if isinstance(building_ids, pl.Series) and building_ids.dtype == pl.String:
+        return building_ids.alias("building_id")
+    return pl.Series("building_id", list(building_ids), dtype=pl.String)
+
+
 def _require(df: pl.DataFrame, name: str, cols: Sequence[str]) -> None:
     missing = [c for c in cols if c not in df.columns]
     if missing:
@@ -393,11 +400,7 @@ def choose_spans(
         raise ValueError(f"fill_end_days={fill_end_days!r} must be at least 0")
     _require(readings, "readings", ("building_id", "period_start", "period_end"))
     r = _heat(readings, "building_id", "period_start", "period_end")
-    ids = (
-        pl.Series("building_id", list(building_ids), dtype=pl.String)
-        if building_ids is not None
-        else r["building_id"].unique()
-    )
+    ids = _id_series(building_ids) if building_ids is not None else r["building_id"].unique()
     ids = ids.unique().sort()
 
     earliest = _add_months(window_end, -lookback_months) + timedelta(days=1)
@@ -1614,7 +1617,7 @@ def _fit_in_blocks(
     periods × 71 bases is 270 MB in float64), so it is built one block of buildings at a time;
     the results are the same as one call over all buildings.
     """
-    ids = pl.Series("building_id", list(building_ids), dtype=pl.String)
+    ids = _id_series(building_ids)
     # each period row's block (by its building's position in ``ids``), rows grouped by block in their
     # order: one sort, not an is_in over every period row per block (quadratic in the portfolio)
     pos = pl.DataFrame({"building_id": ids, "_k": np.arange(ids.len(), dtype=np.int64)}).unique(
