@@ -84,7 +84,7 @@ def _heat(readings: pl.DataFrame, *columns: str | pl.Expr) -> pl.DataFrame:
         return readings.select(*columns) if columns else readings
     if not columns:
         return readings.filter(pl.col("is_heating_fuel"))
-    return readings.lazy().filter(pl.col("is_heating_fuel")).select(*columns).collect()
+    return readings.select(*columns).filter(readings["is_heating_fuel"])
 
 
 def _id_series(building_ids: Sequence[str] | pl.Series) -> pl.Series:
@@ -583,12 +583,10 @@ def calendarize(
     if "is_heating_fuel" not in r.columns:
         r = r.with_columns(pl.lit(True).alias("is_heating_fuel"))
     cols = ("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu", "days")
-    overlap = (  # (one query: the overlaps and, by days, the parts)
+    j = (
         _with_spans(
-            _heat(r, *cols) if heating_only else r.select(*cols),
-            spans.select("building_id", "span_start", "span_end"),
+            _heat(r, *cols) if heating_only else r.select(*cols), spans.select("building_id", "span_start", "span_end")
         )
-        .lazy()
         .with_columns(
             pl.max_horizontal("period_start", "span_start").alias("_os"),
             pl.min_horizontal("period_end", "span_end").alias("_oe"),
@@ -598,9 +596,8 @@ def calendarize(
     )
     part_days = pl.col("energy_kbtu") * pl.col("_od") / pl.col("days")
     if method == "days":
-        j = overlap.with_columns(part_days.alias("_part"), pl.lit(False).alias("_by_dd")).collect()
+        j = j.with_columns(part_days.alias("_part"), pl.lit(False).alias("_by_dd"))
     else:
-        j = overlap.collect()
         if daily_weights is None:
             raise ValueError("method='degree_days' needs daily_weights (building_id, date, weight)")
         _require(daily_weights, "daily_weights", ("building_id", "date", "weight"))
