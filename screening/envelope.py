@@ -611,12 +611,13 @@ def estimate_envelope(buildings: pl.DataFrame) -> pl.DataFrame:
     p_hi: dict[str, np.ndarray] = {}
     p_given: dict[str, np.ndarray] = {}
     p_src: dict[str, np.ndarray] = {}
+    # each building's cell of the (fuel, era) and (era, use type) tables: one flat index per table
+    cell = {"efficiency_defaults": fuel_idx * len(ERAS) + era_idx}
+    cell_era_use = era_idx * len(USE_TYPES) + use_idx
     for pname, (tname, gcol, _unit) in PARAMETERS.items():
         vals, codes, texts = defaults[pname]
-        if tname == "efficiency_defaults":
-            v, s = vals[fuel_idx, era_idx], codes[fuel_idx, era_idx]
-        else:
-            v, s = vals[era_idx, use_idx], codes[era_idx, use_idx]
+        k = cell.get(tname, cell_era_use)
+        v, s = vals.reshape(-1, 3)[k], codes.ravel()[k]
         g = given[gcol] if gcol is not None else np.full(n, np.nan)
         is_given = ~np.isnan(g)
         p_given[pname] = is_given
@@ -763,26 +764,45 @@ def _model(area, p: dict, given: dict) -> dict[str, np.ndarray]:
 # --------------------------------------------------------------------------- expected_heating
 
 
-def _interp_rows(curve: np.ndarray, grid: np.ndarray, t: np.ndarray, uniform: bool):
-    """Row-wise linear interpolation: curve (B, G), t (B, D) -> (B, D), and a clip mask."""
+def _curve_pairs(curve: np.ndarray) -> np.ndarray:
+    """Each base's HDD and its rise to the next base, side by side as one complex number (B, G): one
+    gather of :func:`_interp_rows` reads both. ``rise[j] = curve[j + 1] − curve[j]`` [°F·day], 0 at the
+    last base."""
+    pair = np.zeros(curve.shape + (2,))
+    pair[..., 0] = curve
+    np.subtract(curve[:, 1:], curve[:, :-1], out=pair[:, :-1, 1])  # curve[:, j + 1] - curve[:, j]
+    return pair.view(np.complex128)[..., 0]
+
+
+def _interp_rows(
+    curve: np.ndarray, grid: np.ndarray, t: np.ndarray, uniform: bool, *, pairs=None, rows=None
+) -> tuple[np.ndarray, np.ndarray]:
+    """Row-wise linear interpolation: curve (B, G), t (B, D) -> (B, D), and a clip mask.
+
+    ``pairs`` (:func:`_curve_pairs` of a larger curve, made once) and ``rows`` (the rows of it that
+    ``t``'s rows interpolate in) replace ``curve``: the same values, without a block's own copy.
+    ``HDD(T) = y_j + (T − g_j)/(g_{j+1} − g_j) · (y_{j+1} − y_j)``, T clipped to the grid.
+    """
     g0, g1 = grid[0], grid[-1]
     clipped = (t < g0) | (t > g1)
     tc = np.clip(t, g0, g1)
     ng = grid.shape[0]
     if uniform:
         step = (g1 - g0) / (ng - 1)
-        j = np.minimum(((tc - g0) / step).astype(np.intp), ng - 2)
+        u = np.subtract(tc, g0)
+        u /= step
+        j = u.astype(np.intp)
+        np.minimum(j, ng - 2, out=j)
     else:
         j = np.minimum(np.searchsorted(grid, tc, side="right") - 1, ng - 2)
     gaps = np.diff(grid)  # gaps[j] is grid[j + 1] - grid[j], the same bits
-    frac = np.subtract(tc, np.take(grid, j))
+    frac = np.subtract(tc, np.take(grid, j), out=tc)
     frac /= gaps[0] if (gaps == gaps[0]).all() else np.take(gaps, j)  # (one gap for all: the same divisor)
     # each base's HDD and its rise to the next base, side by side (one complex number: one gather for both)
-    pair = np.zeros(curve.shape + (2,))
-    pair[..., 0] = curve
-    np.subtract(curve[:, 1:], curve[:, :-1], out=pair[:, :-1, 1])  # curve[:, j + 1] - curve[:, j]
-    j += (np.arange(curve.shape[0]) * ng).reshape((-1,) + (1,) * (t.ndim - 1))  # the flat index
-    at = np.take(pair.view(np.complex128).ravel(), j)
+    if pairs is None:
+        pairs, rows = _curve_pairs(curve), np.arange(curve.shape[0])
+    j += (np.asarray(rows) * ng).reshape((-1,) + (1,) * (t.ndim - 1))  # the flat index
+    at = np.take(pairs.ravel(), j)
     dd = np.multiply(frac, at.imag, out=frac)
     dd += at.real  # (y0 + frac·rise: the sum is the same either way round)
     return dd, clipped
@@ -892,6 +912,7 @@ def _band(
         order, cuts = np.arange(b), np.append(np.arange(0, b, block), b)
         one_row = np.zeros((cuts.shape[0] - 1, len(tables)), dtype=bool)
     out = np.empty((4, b))
+    pairs = _curve_pairs(curve)  # (once for every block)
     for i, (b0, b1) in enumerate(zip(cuts[:-1].tolist(), cuts[1:].tolist())):
         ix = order[b0:b1]
         nb = b1 - b0
@@ -913,7 +934,7 @@ def _band(
             p[pname] = x if compact else np.broadcast_to(x, (nb, d))
         g = {k: v[ix][:, None] if compact else np.broadcast_to(v[ix][:, None], (nb, d)) for k, v in given.items()}
         m = _model(area[ix][:, None], p, g)
-        ddm, clip = _interp_rows(curve[ix], grid, m["balance_point_f"], uniform)
+        ddm, clip = _interp_rows(curve, grid, m["balance_point_f"], uniform, pairs=pairs, rows=ix)
         q = degree_day_heating_kbtu(m["ua_total_used"], ddm, p["efficiency"])
         if q.shape == (nb, d) and q.flags.writeable:
             q.sort(axis=1)  # (the block's own array: sorted where it is)

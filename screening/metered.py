@@ -77,10 +77,21 @@ _ISSUE_SCHEMA = pl.Schema({"building_id": pl.String, "code": pl.String, "detail"
 # --------------------------------------------------------------------------------------------
 
 
-def _heat(readings: pl.DataFrame) -> pl.DataFrame:
-    if "is_heating_fuel" in readings.columns:
+def _heat(readings: pl.DataFrame, *columns: str | pl.Expr) -> pl.DataFrame:
+    """The heating-fuel readings (all without ``is_heating_fuel``); only ``columns`` (names or expressions)
+    when given, chosen before the rows are filtered (the other columns are not copied)."""
+    if "is_heating_fuel" not in readings.columns:
+        return readings.select(*columns) if columns else readings
+    if not columns:
         return readings.filter(pl.col("is_heating_fuel"))
-    return readings
+    return readings.select(*columns).filter(readings["is_heating_fuel"])
+
+
+def _id_series(building_ids: Sequence[str] | pl.Series) -> pl.Series:
+    """``building_ids`` as a String series named building_id (a String series as it is, not via a list)."""
+    if isinstance(building_ids, pl.Series) and building_ids.dtype == pl.String:
+        return building_ids.alias("building_id")
+    return pl.Series("building_id", list(building_ids), dtype=pl.String)
 
 
 def _require(df: pl.DataFrame, name: str, cols: Sequence[str]) -> None:
@@ -388,12 +399,8 @@ def choose_spans(
     if fill_end_days < 0:
         raise ValueError(f"fill_end_days={fill_end_days!r} must be at least 0")
     _require(readings, "readings", ("building_id", "period_start", "period_end"))
-    r = _heat(readings).select("building_id", "period_start", "period_end")
-    ids = (
-        pl.Series("building_id", list(building_ids), dtype=pl.String)
-        if building_ids is not None
-        else r["building_id"].unique()
-    )
+    r = _heat(readings, "building_id", "period_start", "period_end")
+    ids = _id_series(building_ids) if building_ids is not None else r["building_id"].unique()
     ids = ids.unique().sort()
 
     earliest = _add_months(window_end, -lookback_months) + timedelta(days=1)
@@ -453,6 +460,65 @@ def choose_spans(
 # --------------------------------------------------------------------------------------------
 
 
+def _rows_in(keys: pl.Series, *tables: pl.Series) -> list[np.ndarray] | None:
+    """For each element of ``keys``, the row of each of ``tables`` holding the same value, -1 for none (nor
+    for a null); None when a table holds a looked-up value twice. Looked up once per run of equal keys
+    (rows come grouped by building), not once per row; the runs' values matched by a join, as a join
+    matches them, all tables in one query."""
+    if keys.len() == 0:
+        return [np.zeros(0, dtype=np.int64) for _ in tables]
+    rid = keys.rle_id().to_numpy()
+    starts = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]])
+    name = keys.name
+    q = keys.gather(starts).to_frame(name).lazy()
+    for i, t in enumerate(tables):
+        q = q.join(t.alias(name).to_frame().lazy().with_row_index(f"_k{i}"), on=name, how="left", maintain_order="left")
+    runs = q.select(pl.col(f"_k{i}").cast(pl.Int64).fill_null(-1) for i in range(len(tables))).collect()
+    if runs.height != starts.size:  # (a table with a value twice: a row per match)
+        return None
+    return [runs[f"_k{i}"].to_numpy()[rid] for i in range(len(tables))]
+
+
+def _with_spans(r: pl.DataFrame, spans: pl.DataFrame, maintain_order: Any = "none") -> pl.DataFrame:
+    """``r.join(spans, on="building_id", how="inner")`` where ``spans`` has one row per building: the rows of
+    ``r`` whose building has a span, in ``r``'s order, with the span's other columns.
+
+    The building of each run of equal ids in ``r`` (readings come grouped by building) is looked up
+    once (:func:`_rows_in`), not once per row. A building's rows keep their order, as in the join, so
+    sums over (building, fuel) groups are the same to the bit; ``spans`` with a building twice: the
+    join itself (with ``maintain_order``).
+    """
+    found = _rows_in(r["building_id"], spans["building_id"])
+    if found is None:
+        return r.join(spans, on="building_id", how="inner", maintain_order=maintain_order)
+    pos = found[0]
+    keep = pos >= 0
+    if not keep.all():
+        r, pos = r.filter(pl.Series(keep)), pos[keep]
+    return r.with_columns(spans[c].gather(pos) for c in spans.columns if c != "building_id")
+
+
+def base_per_period(periods: pl.DataFrame, met: pl.DataFrame, envelope: pl.DataFrame) -> np.ndarray:
+    """The base [°F] of each billing period's degree days at the fit, rows in ``periods`` order: its
+    building's fitted base (``met.fitted_base_f``, :func:`metered_heating`) where finite, else the
+    building's engineering balance point (``envelope.balance_point_f``); NaN for a building in
+    neither. ``met`` and ``envelope`` hold a building once (else their left joins, as before)."""
+    found = _rows_in(periods["building_id"], met["building_id"], envelope["building_id"])
+    if found is None:
+        fb = periods.select("building_id").join(
+            met.select("building_id", "fitted_base_f"), on="building_id", how="left", maintain_order="left"
+        )
+        fb = fb.join(
+            envelope.select("building_id", "balance_point_f"), on="building_id", how="left", maintain_order="left"
+        )
+        fitted, bal = fb["fitted_base_f"].fill_null(np.nan).to_numpy(), fb["balance_point_f"].to_numpy()
+    else:
+        # each table's values with a NaN after them: row -1 (no such building) reads the NaN
+        fitted = np.append(met["fitted_base_f"].fill_null(np.nan).to_numpy(), np.nan)[found[0]]
+        bal = np.append(envelope["balance_point_f"].fill_null(np.nan).to_numpy(), np.nan)[found[1]]
+    return np.where(np.isfinite(fitted), fitted, bal)
+
+
 def _cum_lookup(weights: pl.DataFrame, q: pl.DataFrame, date_col: str, prefix: str) -> pl.DataFrame:
     """Cumulative weight and day count up to and including ``q[date_col]`` per building."""
     q = q.with_row_index("_qi").sort(date_col)
@@ -465,7 +531,12 @@ def _cum_lookup(weights: pl.DataFrame, q: pl.DataFrame, date_col: str, prefix: s
 
 
 def calendarize(
-    readings: pl.DataFrame, spans: pl.DataFrame, *, method: str = "days", daily_weights: pl.DataFrame | None = None
+    readings: pl.DataFrame,
+    spans: pl.DataFrame,
+    *,
+    method: str = "days",
+    daily_weights: pl.DataFrame | None = None,
+    heating_only: bool = False,
 ) -> pl.DataFrame:
     """Prorate every reading to its building's span and sum per building and fuel.
 
@@ -484,6 +555,9 @@ def calendarize(
     spans : pl.DataFrame
         ``building_id, span_start, span_end`` (see :func:`choose_spans`).
     method : {"days", "degree_days"}
+    heating_only : bool
+        Only the heating fuels' rows (``is_heating_fuel``): the others are not prorated (each row of the
+        result depends on its own building and fuel only, so the heating rows are the same).
     daily_weights : pl.DataFrame, optional
         Required for ``"degree_days"``: ``building_id, date, weight`` with the day's heating degree
         days at the building's base [°F·day] (any non-negative daily weight works), one row per
@@ -508,9 +582,11 @@ def calendarize(
         r = r.with_columns(((_ordinal("period_end") - _ordinal("period_start")) + 1).alias("days"))
     if "is_heating_fuel" not in r.columns:
         r = r.with_columns(pl.lit(True).alias("is_heating_fuel"))
+    cols = ("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu", "days")
     j = (
-        r.select("building_id", "fuel", "is_heating_fuel", "period_start", "period_end", "energy_kbtu", "days")
-        .join(spans.select("building_id", "span_start", "span_end"), on="building_id", how="inner")
+        _with_spans(
+            _heat(r, *cols) if heating_only else r.select(*cols), spans.select("building_id", "span_start", "span_end")
+        )
         .with_columns(
             pl.max_horizontal("period_start", "span_start").alias("_os"),
             pl.min_horizontal("period_end", "span_end").alias("_oe"),
@@ -1048,7 +1124,7 @@ def missing_bills(
     ws, we = pl.lit(window_start), pl.lit(window_end)
     one = pl.duration(days=1)
     meter = (pl.col("meter_id").cast(pl.String) if "meter_id" in readings.columns else pl.lit("")).fill_null("")
-    r = _heat(readings).select("building_id", meter.alias("meter_id"), "period_start", "period_end")
+    r = _heat(readings, "building_id", meter.alias("meter_id"), "period_start", "period_end")
     # building level: stretches of the window without any read
     b = r.sort(["building_id", "period_start", "period_end"])
     b = b.with_columns(_prev_run_max(b, ["building_id"], "period_end").alias("_pe"))
@@ -1134,9 +1210,8 @@ def fit_periods(
     """
     _require(readings, "readings", ("building_id", "period_start", "period_end", "energy_kbtu"))
     sp = spans.select("building_id", "span_end").with_columns(_lookback_start("span_end", lookback_months).alias("_lb"))
-    r = _heat(readings)
-    est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in r.columns else pl.lit(False)
-    r = r.select("building_id", "period_start", "period_end", "energy_kbtu", est.alias("_est"))
+    est = pl.col("estimated").cast(pl.Boolean).fill_null(False) if "estimated" in readings.columns else pl.lit(False)
+    r = _heat(readings, "building_id", "period_start", "period_end", "energy_kbtu", est.alias("_est"))
     keys = ["building_id", "period_start", "period_end"]
     agg = (
         pl.col("energy_kbtu").sum(),
@@ -1144,7 +1219,7 @@ def fit_periods(
         pl.col("_est").any().alias("any_estimated"),
     )
     # (rows kept in the readings' order: converted readings are sorted, so the sort below finds its order)
-    f = r.join(sp, on="building_id", how="inner", maintain_order="left").filter(
+    f = _with_spans(r, sp, "left").filter(
         (pl.col("period_start") >= pl.col("_lb")) & (pl.col("period_end") <= pl.col("span_end"))
     )
     if f.height and strictly_sorted(f, keys, ties=True) and not f["energy_kbtu"].null_count():
@@ -1539,7 +1614,7 @@ def _fit_in_blocks(
     periods × 71 bases is 270 MB in float64), so it is built one block of buildings at a time;
     the results are the same as one call over all buildings.
     """
-    ids = pl.Series("building_id", list(building_ids), dtype=pl.String)
+    ids = _id_series(building_ids)
     # each period row's block (by its building's position in ``ids``), rows grouped by block in their
     # order: one sort, not an is_in over every period row per block (quadratic in the portfolio)
     pos = pl.DataFrame({"building_id": ids, "_k": np.arange(ids.len(), dtype=np.int64)}).unique(
@@ -1701,7 +1776,7 @@ def metered_heating(
     eta = np.asarray(efficiency, float)
     t_eng = np.asarray(engineering_base_f, float)
 
-    cal = calendarize(readings, spans, method=method, daily_weights=daily_weights)
+    cal = calendarize(readings, spans, method=method, daily_weights=daily_weights, heating_only=True)
     cal = (
         cal.filter(pl.col("is_heating_fuel"))
         .group_by("building_id")

@@ -748,17 +748,7 @@ def _screen_part(
     )
     lap("regression")
     if periods.height:
-        fb = periods.select("building_id").join(
-            met.select("building_id", "fitted_base_f"), on="building_id", how="left", maintain_order="left"
-        )
-        fb = fb.join(
-            envelope.select("building_id", "balance_point_f"), on="building_id", how="left", maintain_order="left"
-        )
-        base = np.where(
-            np.isfinite(fb["fitted_base_f"].fill_null(np.nan).to_numpy()),
-            fb["fitted_base_f"].fill_null(np.nan).to_numpy(),
-            fb["balance_point_f"].to_numpy(),
-        )
+        base = metered.base_per_period(periods, met, envelope)
         assert isinstance(period_hdd, _PeriodHdd)  # set so above whenever there are periods
         periods = periods.with_columns(
             pl.Series("hdd_per_day_fit", period_hdd.at(nearest_base(grid, base)) / periods["days"].to_numpy())

@@ -896,3 +896,102 @@ def test_pad_periods_from_a_callable_and_a_buffer():
     )
     for k, v in fit.items():
         np.testing.assert_array_equal(_bits(fast[k]), _bits(v), err_msg=k)
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_with_spans_is_the_inner_join(seed):
+    """_with_spans (one look-up per run of a building's rows) gives the rows, values and order of
+    the inner join it replaces in calendarize: readings grouped or shuffled, buildings without a
+    span, spans of buildings without readings, and spans with a building twice (the join itself)."""
+    rng = np.random.default_rng(seed)
+    n_b = int(rng.integers(1, 40))
+    ids = [f"B{i:03d}" for i in range(n_b)]
+    rid = rng.integers(0, n_b + 3, int(rng.integers(0, 300)))  # ids n_b.. have no span
+    r = pl.DataFrame(
+        {"building_id": [f"B{i:03d}" for i in rid], "energy_kbtu": rng.random(rid.size)},
+        schema={"building_id": pl.String, "energy_kbtu": pl.Float64},
+    )
+    if seed % 2:
+        r = r.sort("building_id")
+    keep = rng.random(n_b) < 0.8
+    spans = pl.DataFrame(
+        {
+            "building_id": [b for b, k in zip(ids, keep) if k],
+            "span_start": [D0 + timedelta(days=int(d)) for d in rng.integers(0, 400, int(keep.sum()))],
+        },
+        schema={"building_id": pl.String, "span_start": pl.Date},
+    ).sample(fraction=1.0, shuffle=True, seed=seed)
+    if seed == 5 and spans.height:
+        spans = pl.concat([spans, spans.head(1)])
+    joined = r.join(spans, on="building_id", how="inner")
+    got = M._with_spans(r, spans)
+    assert got.columns == joined.columns and got.schema == joined.schema
+    if seed == 5 or r.height <= spans.height:  # (polars may order a join with the smaller side first)
+        key = ["building_id", "energy_kbtu"]
+        assert got.sort(key).equals(joined.sort(key))
+    else:
+        assert got.equals(joined)
+    # each building's rows in r's order (what sums per building and fuel see; a span twice doubles them)
+    for b in set(got["building_id"].to_list()) if seed != 5 else ():
+        mine = pl.col("building_id") == b
+        assert got.filter(mine)["energy_kbtu"].to_list() == r.filter(mine)["energy_kbtu"].to_list()
+
+
+def test_base_per_period_is_the_joins_it_replaces():
+    """base_per_period (one look-up per run of a building's periods) gives, to the bit, the left joins
+    of the periods with the fits and the envelope it replaces in the pipeline: the fitted base where
+    finite, else the balance point; NaN for a building in neither; a table with a building twice
+    falls back to the joins."""
+    rng = np.random.default_rng(3)
+    ids = [f"B{i:02d}" for i in range(30)]
+    periods = pl.DataFrame({"building_id": sorted(rng.choice(ids + ["X1"], 400).tolist())})
+    fitted = rng.normal(58, 4, 25)
+    fitted[::4] = np.nan
+    met = pl.DataFrame({"building_id": ids[:25], "fitted_base_f": fitted}).with_columns(
+        pl.when(pl.int_range(pl.len()) % 7 == 3).then(None).otherwise(pl.col("fitted_base_f")).alias("fitted_base_f")
+    )
+    envelope = pl.DataFrame({"building_id": ids[5:], "balance_point_f": rng.normal(55, 3, 25)})
+
+    def joins(periods, met, envelope):
+        fb = periods.select("building_id").join(met, on="building_id", how="left", maintain_order="left")
+        fb = fb.join(envelope, on="building_id", how="left", maintain_order="left")
+        f = fb["fitted_base_f"].fill_null(np.nan).to_numpy()
+        return np.where(np.isfinite(f), f, fb["balance_point_f"].to_numpy())
+
+    got = M.base_per_period(periods, met, envelope)
+    want = joins(periods, met, envelope)
+    assert got.shape == (periods.height,) and np.array_equal(got, want, equal_nan=True)
+    assert np.isnan(got[(periods["building_id"] == "X1").to_numpy()]).all()
+    assert np.isfinite(got).sum() > 300  # (most periods have a base)
+    met2 = pl.concat([met, met.head(1)])  # a building twice: one row per match, as the joins give
+    got2 = M.base_per_period(periods, met2, envelope)
+    assert np.array_equal(got2, joins(periods, met2, envelope), equal_nan=True)
+
+
+def test_calendarize_heating_only_is_the_heating_rows():
+    """heating_only (what metered_heating asks for) gives, to the bit, the heating-fuel rows of the full
+    result: each row depends on its own building and fuel only; both methods."""
+    rng = np.random.default_rng(5)
+    parts = []
+    for b in ("h1", "h2", "h3"):
+        s, e = drifting(rng, 30, start=date(2024, 6, 1))
+        for fuel, heat in (("natural_gas", True), ("electricity", False), ("fuel_oil", True)):
+            if fuel == "fuel_oil" and b != "h2":
+                continue
+            parts.append(_reads(b, s, e, q=rng.uniform(50, 500, len(s)), fuel=fuel, heat=heat))
+    r = pl.concat(parts).sort("building_id", "fuel", "period_start")
+    sp = pl.DataFrame({"building_id": ["h1", "h2", "h3"], "span_start": [WS] * 3, "span_end": [WE] * 3})
+    days = (WE - date(2024, 6, 1)).days + 400
+    w = pl.DataFrame(
+        {
+            "building_id": np.repeat(["h1", "h2", "h3"], days),
+            "date": [date(2024, 6, 1) + timedelta(days=i) for i in range(days)] * 3,
+            "weight": np.tile(np.maximum(65 - temps(days), 0.0), 3),
+        }
+    )
+    for method in ("days", "degree_days"):
+        kw = {"method": method, "daily_weights": w if method == "degree_days" else None}
+        full = M.calendarize(r, sp, **kw)
+        heat = M.calendarize(r, sp, heating_only=True, **kw)
+        assert heat.height == 4 and full.height == 7
+        assert heat.equals(full.filter(pl.col("is_heating_fuel")))
