@@ -52,8 +52,10 @@ def year_over_year(
     )
     if sp.height == 0:
         return pl.DataFrame(schema={"building_id": pl.String, "yoy_change": pl.Float64, "prev_fuel_kbtu": pl.Float64})
-    prev = metered.calendarize(
-        conv, sp.select("building_id", pl.col("prev_start").alias("span_start"), pl.col("prev_end").alias("span_end"))
+    prev = metered.calendarize(  # the heating fuels' rows only: the others are dropped below
+        conv,
+        sp.select("building_id", pl.col("prev_start").alias("span_start"), pl.col("prev_end").alias("span_end")),
+        heating_only=True,
     )
     prev = (
         prev.filter(pl.col("is_heating_fuel"))
