@@ -408,7 +408,9 @@ def _index_parts(
     max_rows: int = 0,
     workbook: bool = True,
 ) -> tuple[str, bytes, str]:
-    """The page as (text before the buildings' JSON, the JSON as UTF-8, text after it): :func:`render_index`."""
+    """The page as (text before the buildings' JSON, the JSON as UTF-8, text after it): :func:`render_index`.
+    ``max_rows`` > 0 keeps the buildings table to the first rows in rank order (the page says so; ranking.csv
+    has all); ``workbook`` False leaves ranking.xlsx out of the links (it was not written)."""
     tdir = templates_dir()
     ratios = results["ratio"].filter(results["ratio"].is_finite()).to_list()
     total = ranking.height
@@ -438,32 +440,9 @@ def _index_parts(
     return head, page_json_utf8(ranking, results, sheet_files, currency), tail
 
 
-def render_index(
-    *,
-    ranking: pl.DataFrame,
-    results: pl.DataFrame,
-    plan: pl.DataFrame,
-    summary: dict[str, Any],
-    disp: Display,
-    currency: str,
-    sheet_files: dict[str, str] | None,
-    max_rows: int = 0,
-    workbook: bool = True,
-) -> str:
-    """The page's HTML text (see the module docstring). ``max_rows`` > 0 keeps the buildings table to
-    the first rows in rank order (the page says so; ranking.csv has all); ``workbook`` False leaves
-    ranking.xlsx out of the links (it was not written)."""
-    head, data, tail = _index_parts(
-        ranking=ranking,
-        results=results,
-        plan=plan,
-        summary=summary,
-        disp=disp,
-        currency=currency,
-        sheet_files=sheet_files,
-        max_rows=max_rows,
-        workbook=workbook,
-    )
+def render_index(**kwargs: Any) -> str:
+    """The page's HTML text (see the module docstring); the arguments are :func:`_index_parts`'s."""
+    head, data, tail = _index_parts(**kwargs)
     return head + data.decode("utf-8") + tail
 
 
