@@ -194,6 +194,6 @@ def test_ranking_pdf_lists_the_data_issues_of_its_table_in_rank_order_and_counts
     want = [f"rank {r} · {b}" for r, b in table.select("rank", "building_id").iter_rows() if b in listed["building_id"]]
     with pdfplumber.open(out / "ranking.pdf") as doc:
         text = "\n".join(pg.extract_text() or "" for pg in doc.pages)
-    section = text[text.index("Data issues\nThose of the 3 buildings in the table above") :]
+    section = text[text.index("Data issues\nThose of the 3 building(s) in the table above") :]
     assert re.findall(r"rank \d+ · B\d+", section) == want
     assert f"and {issues.height - listed.height} more in data_issues.csv." in section

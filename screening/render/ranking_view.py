@@ -123,7 +123,7 @@ def ranking_view(report: dict[str, Any], paper: str = "Letter") -> dict[str, Any
         "table_pages": table_pages(rows, paper, header_lines=header["lines"]),
         # the data issues of the table's buildings in its order (outputs.ranking_report); the count of those
         # not listed comes from the report's total when it has one (every building's issues)
-        "data_issues_scope": f"Those of the {fmt_num(len(rows))} buildings in the table above, in its order; "
+        "data_issues_scope": f"Those of the {fmt_num(len(rows))} building(s) in the table above, in its order; "
         "data_issues.csv lists every building's."
         if isinstance(omitted, int) and omitted > 0
         else "",
