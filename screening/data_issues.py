@@ -110,17 +110,6 @@ def spike(q: pl.Expr, over: list[str], isolation: float) -> pl.Expr:
     return (pl.when(q >= 1).then(hi).otherwise(lo) | far).fill_null(False)
 
 
-def _starts(df: pl.DataFrame, keys: list[str], also: np.ndarray | None = None) -> np.ndarray:
-    """True on each row whose ``keys`` differ from the previous row's (row 0 included; runs of equal values,
-    nulls equal), or where ``also`` is true."""
-    new = np.zeros(df.height, dtype=bool) if also is None else also.copy()
-    new[:1] = True
-    for c in keys:
-        rid = df[c].rle_id().to_numpy()
-        new[1:] |= rid[1:] != rid[:-1]
-    return new
-
-
 class _ByValue:
     """Rows of values ``x`` [any unit] (finite) in increasing order, for statistics over groups of them:
     ``order`` the rows in that order, ``rank`` each row's place in it, ``sorted`` the values in it, ``bits``
@@ -230,7 +219,7 @@ def unit_error_issues_block(conv: pl.DataFrame, b: pl.DataFrame, factor: float, 
     heat = heat.rechunk()
     if not metered.strictly_sorted(heat, ["building_id", "meter_id", "period_start"]):
         heat = heat.sort("building_id", "meter_id", "period_start")  # (ties kept as this sort leaves them)
-    meter = np.cumsum(_starts(heat, ["building_id", "meter_id"]))
+    meter = np.cumsum(metered.run_starts(heat, ["building_id", "meter_id"]))
     days = heat["days"].to_numpy()
     with np.errstate(divide="ignore", invalid="ignore"):
         x = heat["energy_kbtu"].to_numpy() / days  # [kBtu/day]
@@ -615,8 +604,8 @@ def _maybe_reading_issue(r: pl.DataFrame, spans: pl.DataFrame, max_estimated_sha
     e = keys["period_end"].to_physical().to_numpy().astype(np.int64)
     if (e < s).any():
         return None
-    new_b = _starts(keys, ["building_id"])
-    new_g = _starts(keys, keys.columns[:-2], new_b)  # a new fuel and meter
+    new_b = metered.run_starts(keys, ["building_id"])
+    new_g = metered.run_starts(keys, keys.columns[:-2], new_b)  # a new fuel and meter
     if not metered.strictly_sorted(keys, keys.columns, ties=True):
         return None
     later = ~new_g[1:]

@@ -467,8 +467,8 @@ def _rows_in(keys: pl.Series, *tables: pl.Series) -> list[np.ndarray] | None:
     matches them, all tables in one query."""
     if keys.len() == 0:
         return [np.zeros(0, dtype=np.int64) for _ in tables]
-    rid = keys.rle_id().to_numpy()
-    starts = np.flatnonzero(np.r_[True, rid[1:] != rid[:-1]])
+    new = run_starts(keys.to_frame(), [keys.name])
+    starts, rid = np.flatnonzero(new), np.cumsum(new) - 1
     name = keys.name
     q = keys.gather(starts).to_frame(name).lazy()
     for i, t in enumerate(tables):
@@ -723,6 +723,17 @@ def prev_max(value: pl.Expr, first: pl.Expr, *, inclusive: bool = False) -> pl.E
     if inclusive:
         return run.cum_max() - lift
     return pl.when(~first).then(run.cum_max().shift(1) - lift)
+
+
+def run_starts(df: pl.DataFrame, keys: Sequence[str], also: np.ndarray | None = None) -> np.ndarray:
+    """True on each row whose ``keys`` differ from the previous row's (row 0 included; runs of equal values,
+    nulls equal), or where ``also`` is true: :func:`group_starts` as a numpy mask, from polars' run ids."""
+    new = np.zeros(df.height, dtype=bool) if also is None else also.copy()
+    new[:1] = True
+    for c in keys:
+        rid = df[c].rle_id().to_numpy()
+        new[1:] |= rid[1:] != rid[:-1]
+    return new
 
 
 def group_starts(cols: Sequence[str]) -> pl.Expr:
