@@ -107,8 +107,9 @@ TREE_PEAK = {"mb": 0.0}
 
 def _sample_memory(path: Path, every_s: float = 0.5) -> None:
     """Write this process's resident memory [MB] every ``every_s`` seconds to ``path`` (time, MB, MB of it and
-    its child processes together, the package function the main thread is in), so a peak can be placed in
-    the run; a daemon thread. The largest sum goes to :data:`TREE_PEAK`."""
+    its child processes together, the package function the main thread is in, and the CPU seconds this
+    process has used so far, user and system, all its threads), so a peak can be placed in the run and the
+    use of the cores read from the CPU column's slope; a daemon thread. The largest sum goes to :data:`TREE_PEAK`."""
     import threading
 
     main_id = threading.main_thread().ident
@@ -129,7 +130,10 @@ def _sample_memory(path: Path, every_s: float = 0.5) -> None:
                 rss = _rss_mb(me)
                 tree = rss + sum(_rss_mb(k) for k in _children(me))
                 TREE_PEAK["mb"] = max(TREE_PEAK["mb"], tree)
-                f.write(f"{time.strftime('%H:%M:%S')}\t{rss:.0f}\t{tree:.0f}\t{where()}\n")
+                cpu = os.times()
+                f.write(
+                    f"{time.strftime('%H:%M:%S')}\t{rss:.0f}\t{tree:.0f}\t{where()}\t{cpu.user + cpu.system:.1f}\n"
+                )
                 f.flush()
                 time.sleep(every_s)
 
@@ -137,7 +141,7 @@ def _sample_memory(path: Path, every_s: float = 0.5) -> None:
         threading.Thread(target=loop, daemon=True).start()
 
 
-def one(n: int, sheets: bool, work: Path, workers: int = 1) -> dict:
+def one(n: int, sheets: bool, work: Path, workers: int = 1, threads: int | None = None) -> dict:
     """Screen the portfolio in ``work`` (in this process, so its peak memory is the run's own)."""
     import duckdb
 
@@ -160,7 +164,7 @@ def one(n: int, sheets: bool, work: Path, workers: int = 1) -> dict:
         "store": {"database": str(work / "bench.duckdb")},
         "analysis": {"as_of": "2026-10-15"},
         "output": {"sheets": sheets},
-        "run": {"workers": workers},
+        "run": {"workers": workers} | ({} if threads is None else {"threads": threads}),
     }
     t = time.perf_counter()
     res = runner.run(overrides=overrides, out_dir=str(work / "out"), force=True)
@@ -180,6 +184,7 @@ def one(n: int, sheets: bool, work: Path, workers: int = 1) -> dict:
         # with its child processes (the fork server, screening workers, the ranking.pdf renderer), sampled
         "peak_tree_mb": round(TREE_PEAK["mb"], 1),
         "workers": workers,
+        "threads": threads,
         "sheets": sheets,
     }
 
@@ -194,12 +199,13 @@ def main() -> None:
     ap.add_argument("--generate", action="store_true")
     ap.add_argument("--work", default=None)
     ap.add_argument("--workers", type=int, default=1, help="[run] workers of the runs (default 1)")
+    ap.add_argument("--threads", type=int, default=None, help="[run] threads of the runs (default: the setting's)")
     a = ap.parse_args()
     if a.child is not None:
         if a.generate:
             print(json.dumps({"generate_s": round(generate(a.child, Path(a.work)), 2)}))
         else:
-            print(json.dumps(one(a.child, a.with_sheets, Path(a.work), a.workers)))
+            print(json.dumps(one(a.child, a.with_sheets, Path(a.work), a.workers, a.threads)))
         return
     rows = []
     env = os.environ | {"PYTHONPATH": str(ROOT)}
@@ -208,6 +214,7 @@ def main() -> None:
             steps = [
                 [sys.executable, __file__, "--child", str(n), "--work", d, "--generate"],
                 [sys.executable, __file__, "--child", str(n), "--work", d, "--workers", str(a.workers)]
+                + ([] if a.threads is None else ["--threads", str(a.threads)])
                 + (["--with-sheets"] if n <= a.sheets_up_to else []),
             ]
             result = {}

@@ -120,6 +120,12 @@ class Run:
         "processes that screen chunks of buildings side by side (1 = this process); each holds one chunk",
         range=(1, 64, "a whole number"),
     )
+    threads: int = setting(
+        2,
+        "threads of this process that screen chunks of buildings side by side when workers = 1 (1 = one "
+        "chunk at a time); each holds one chunk; at most one per core",
+        range=(1, 64, "a whole number"),
+    )
     ingest_chunk_mb: int = setting(
         32,
         "MB of a buildings or readings CSV read, checked and stored at a time (0 = each file whole)",

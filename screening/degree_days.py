@@ -47,7 +47,6 @@ for exact cancellation in differences over 30-year records): 100 stations × 30 
 from __future__ import annotations
 
 import mmap
-import warnings
 from dataclasses import dataclass, field
 from datetime import date as _date
 from collections.abc import Callable
@@ -1050,17 +1049,24 @@ def _maxmin_days(cube, idx, ix, base, grid):
 def _hourly_days(cube, idx, ix, base, grid):
     """The mean of (base − T_h)⁺ over the day's readings (:func:`hourly_dd`) [°F·day]."""
     r = cube.extra["hourly"][idx]  # (..., width); all-NaN rows are missing days
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # "Mean of empty slice" on missing days
-        if grid:  # base (1, nb), r (n, w) → (n, nb)
-            out = (
-                np.nanmean(np.maximum(base[:, :, None] - r[:, None, :], 0.0), axis=-1)
-                if r.shape[0]
-                else np.zeros((0, base.shape[1]))
-            )
-        else:  # base like idx, r (..., w)
-            out = np.nanmean(np.maximum(base[..., None] - r, 0.0), axis=-1)
-    return out
+    if grid:  # base (1, nb), r (n, w) → (n, nb)
+        return (
+            _nanmean_last(np.maximum(base[:, :, None] - r[:, None, :], 0.0))
+            if r.shape[0]
+            else np.zeros((0, base.shape[1]))
+        )
+    return _nanmean_last(np.maximum(base[..., None] - r, 0.0))  # base like idx, r (..., w)
+
+
+def _nanmean_last(x: np.ndarray) -> np.ndarray:
+    """``np.nanmean(x, axis=-1)``, the same bits (numpy's own steps: NaN set to 0, summed, divided by the
+    count), NaN where a row is all NaN (a missing day) without numpy's "Mean of empty slice" warning, so
+    no ``warnings.catch_warnings`` (not thread-safe; chunks run on threads, ``pipeline._side_by_side``)."""
+    nan = np.isnan(x)
+    total = np.where(nan, 0.0, x).sum(axis=-1)
+    count = np.sum(~nan, axis=-1, dtype=np.intp)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.true_divide(total, count)
 
 
 def _monthly_estimate_days(cube, idx, ix, base, grid):

@@ -56,24 +56,29 @@ def count_rows(path: str | Path) -> int:
     return max(0, n + (last != b"\n") - 1)
 
 
-def screening_bytes(readings: int, buildings: int, chunk_buildings: int = 0, workers: int = 1) -> float:
+def screening_bytes(
+    readings: int, buildings: int, chunk_buildings: int = 0, workers: int = 1, threads: int = 1
+) -> float:
     """Memory of the screening phase above the base [bytes]: every building's results, and the
     temporaries of one chunk's readings (``chunk_buildings`` rounded up to whole regression blocks,
-    :func:`screening.pipeline.chunk_size`; 0 = all buildings at once) for each of ``workers`` chunks
-    screened side by side, each on a child process of its own when ``workers`` ≥ 2 (``[run] workers``,
-    ``screening/workers.py``). Linear in the chunk size and in the workers::
+    :func:`screening.pipeline.chunk_size`; 0 = all buildings at once) for each of W chunks screened side
+    by side: ``workers`` ≥ 2, each on a child process of its own (``[run] workers``,
+    ``screening/workers.py``), else ``threads`` on threads of this process (``[run] threads``). Linear in
+    the chunk size and in W::
 
-        b·B + W·r_chunk·R·c/B + (W ≥ 2)·W·child
+        b·B + W·r_chunk·R·c/B + (workers ≥ 2)·W·child
     """
     from .pipeline import chunk_size
 
     size = chunk_size(chunk_buildings, buildings)
     share = size / buildings if buildings else 1.0
-    w = max(1, min(workers, -(-buildings // size) if size else 1))
+    n_chunks = -(-buildings // size) if size else 1
+    side = workers if workers >= 2 else threads
+    w = max(1, min(side, n_chunks))
     return (
         BYTES_PER_BUILDING * buildings
         + w * BYTES_PER_CHUNK_READING * readings * share
-        + (w * CHILD_BASE_BYTES if w >= 2 else 0.0)
+        + (w * CHILD_BASE_BYTES if workers >= 2 and w >= 2 else 0.0)
     )
 
 
@@ -97,6 +102,7 @@ def estimate_peak(
     ingest_chunk_mb: int = 0,
     store_memory_mb: int = 0,
     workers: int = 1,
+    threads: int = 1,
 ) -> float:
     """Estimated peak resident memory of a run over inputs of these row counts [bytes]:
     ``BASE + w·weather + max(reading_bytes(R, …), screening_bytes(R, B, c))`` (the files are read and stored
@@ -106,7 +112,7 @@ def estimate_peak(
         + BYTES_PER_WEATHER_ROW * weather
         + max(
             reading_bytes(readings, ingest_chunk_mb, store_memory_mb),
-            screening_bytes(readings, buildings, chunk_buildings, workers),
+            screening_bytes(readings, buildings, chunk_buildings, workers, threads),
         )
     )
 
@@ -203,11 +209,12 @@ def check(
     ingest_chunk_mb: int = 0,
     store_memory_mb: int = 0,
     workers: int = 1,
+    threads: int = 1,
 ) -> float:
     """Stop (``OutOfMemoryError``) when the run clearly needs more memory than the process may use.
 
-    ``files``: the run's input paths by kind; ``chunk_buildings``, ``ingest_chunk_mb``, ``store_memory_mb`` and
-    ``workers`` the ``[run]`` settings. Returns the estimate [bytes].
+    ``files``: the run's input paths by kind; ``chunk_buildings``, ``ingest_chunk_mb``, ``store_memory_mb``,
+    ``workers`` and ``threads`` the ``[run]`` settings. Returns the estimate [bytes].
     """
 
     def rows_of(path):
@@ -225,13 +232,14 @@ def check(
         ingest_chunk_mb=ingest_chunk_mb,
         store_memory_mb=store_memory_mb,
         workers=workers,
+        threads=threads,
     )
     have, what = available()
     if need > have:
         raise OutOfMemoryError(
             f"not enough memory: {rows['readings']:,} readings of {rows['buildings']:,} buildings need about "
             f"{gb(need)}, and {what} leaves {gb(have)}; nothing was changed. Run on a machine with more "
-            "free memory, raise the limit, lower [run] chunk_buildings or workers, or screen the portfolio in smaller parts "
+            "free memory, raise the limit, lower [run] chunk_buildings, workers or threads, or screen the portfolio in smaller parts "
             "(fewer files per run)"
         )
     return need

@@ -12,8 +12,11 @@ from abc import ABC, abstractmethod
 import hashlib
 import json
 import os
+import threading
 import time
-from collections.abc import Iterator
+from collections import deque
+from collections.abc import Callable, Iterator
+from concurrent.futures import Executor, Future, ThreadPoolExecutor, wait
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -353,6 +356,63 @@ def _read_ahead(items: Iterator[Any]) -> Iterator[Any]:
             del item
 
 
+def in_order(pool: Executor, fn: Callable[..., Any], items: Iterator[tuple], n: int) -> Iterator[Any]:
+    """``fn(*item)`` of every item submitted to ``pool`` (``n`` workers), the results yielded in the items'
+    order. Items are taken from ``items`` in the calling thread as the workers need them, at most ``n + 1``
+    in flight (one waiting beside each worker's), so the caller consumes each result while the workers go
+    on. The waits are short (``render.pdf._WAIT_S``): a stop signal still reaches the main thread. An
+    exception of ``fn`` is raised here, where its result would have been; stopping the pool on an exception
+    is the caller's (``workers.in_order``: child processes; :func:`_side_by_side`: threads)."""
+    from .render.pdf import _WAIT_S
+
+    flight: deque[Future] = deque()
+    more = True
+    while more or flight:
+        while more and len(flight) <= n:
+            item = next(items, None)
+            if item is None:
+                more = False
+                break
+            flight.append(pool.submit(fn, *item))
+            del item
+        if not flight:
+            break
+        while not flight[0].done():
+            wait([flight[0]], timeout=_WAIT_S)
+        yield flight.popleft().result()
+
+
+def _side_by_side(fn: Callable[..., Any], items: Iterator[tuple], n: int) -> Iterator[Any]:
+    """``fn(*item)`` of every item on ``n`` threads of this process, in the items' order (:func:`in_order`).
+
+    A chunk's work is mostly polars and numpy, which run outside the GIL, so two chunks on two threads keep
+    both cores busier than one chunk at a time (issue 20). On any exception the items not started are
+    dropped, and a thread mid-item finishes it in the background (a chunk's work touches no file and not
+    the store)."""
+    pool = ThreadPoolExecutor(n, thread_name_prefix="chunk")
+    try:
+        yield from in_order(pool, fn, items, n)
+    except BaseException:
+        pool.shutdown(wait=False, cancel_futures=True)
+        raise
+    pool.shutdown(wait=True)
+
+
+def _summing_lap(timings: dict[str, float], lock: threading.Lock) -> Callable[[str], None]:
+    """A ``lap`` for one chunk on a thread of its own: each stage's seconds added to ``timings`` under
+    ``lock`` (summed over the chunks; chunks side by side overlap, so the sum exceeds the wall time)."""
+    t0 = time.perf_counter()
+
+    def lap(name: str) -> None:
+        nonlocal t0
+        now = time.perf_counter()
+        with lock:
+            timings[name] = round(timings.get(name, 0.0) + now - t0, 4)
+        t0 = now
+
+    return lap
+
+
 def chunk_size(chunk_buildings: int, n_buildings: int, fit_block: int | None = None) -> int:
     """Buildings per chunk: ``chunk_buildings`` rounded up to whole regression blocks, all of them for 0."""
     fb = fit_block or FIT_BLOCK
@@ -444,6 +504,7 @@ def screen_frames(
     executor: ChunkExecutor | None = None,
     keep_periods: bool = True,
     workers: int = 1,
+    threads: int = 1,
 ) -> Screened:
     """Screen a portfolio (canonical IP frames, see DEVELOPERS.md).
 
@@ -460,7 +521,9 @@ def screen_frames(
     buildings (default :data:`FIT_BLOCK`; :func:`chunk_size`), so the results are those of one pass.
     ``executor`` runs the chunks elsewhere (:class:`ChunkExecutor`, e.g. ``cluster.DaskChunks``); without
     one, ``workers`` ≥ 2 screens up to that many chunks side by side on local child processes
-    (``screening.workers.LocalWorkers``).
+    (``screening.workers.LocalWorkers``), else ``threads`` ≥ 2 up to that many on threads of this process
+    (:func:`_side_by_side`; the chunk stages' timings are then summed over the threads, and
+    ``chunks_side_by_side`` is the phase's wall time).
     ``keep_periods`` False leaves ``Screened.periods`` empty (its columns kept): only the sheets read
     every building's billing periods, about 36 rows a building (gigabytes at 10^6 buildings), so a run
     without sheets drops each chunk's periods as soon as the chunk is screened.
@@ -528,11 +591,20 @@ def screen_frames(
         thresholds=thr,
     )
     chunks = ((bc, source(bc["building_id"])) for bc in (b.slice(c0, size) for c0 in range(0, b.height, max(size, 1))))
+    n_chunks = -(-b.height // max(size, 1))
     if executor is None and workers >= 2:
         from . import workers as local
 
-        executor = local.from_config(workers, -(-b.height // max(size, 1)))
-    if executor is None:
+        executor = local.from_config(workers, n_chunks)
+    if executor is None and threads >= 2 and n_chunks >= 2:  # chunks side by side on threads of this process
+        lock = threading.Lock()
+
+        def on_thread(bc: pl.DataFrame, rc: pl.DataFrame) -> _Part:
+            return _periods_kept(_screen_part(bc, rc, lap=_summing_lap(timings, lock), **common), keep_periods)
+
+        parts = list(_side_by_side(on_thread, chunks, min(threads, n_chunks)))
+        lap("chunks_side_by_side")
+    elif executor is None:
         ahead = _read_ahead(chunks) if chunked else chunks  # the next chunk's readings read during this one's work
         parts = [_periods_kept(_screen_part(bc, rc, lap=lap, **common), keep_periods) for bc, rc in ahead]
     else:  # elsewhere (screening.cluster): the per-chunk stages are timed together

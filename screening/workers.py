@@ -16,9 +16,8 @@ them mid-chunk (``render.pdf._stop_workers``).
 
 from __future__ import annotations
 
-from collections import deque
 from collections.abc import Callable, Iterable, Iterator
-from concurrent.futures import Future, ProcessPoolExecutor, wait
+from concurrent.futures import ProcessPoolExecutor
 from typing import Any
 
 import polars as pl
@@ -54,31 +53,15 @@ def in_order(fn: Callable[..., Any], items: Iterable[tuple], n: int, common: dic
     once, when it starts (:data:`_COMMON`). An exception of ``fn`` is raised here, where its result would
     have been; an exception here (or the caller's, at a ``yield``) stops the children mid-item.
     """
-    from .render.pdf import _WAIT_S, _main_not_reimported, _render_context, _stop_workers
+    from .render.pdf import _main_not_reimported, _render_context, _stop_workers
 
-    flight: deque[Future] = deque()
     # the children start on the first submits: __main__ stays hidden from them while the pool lives
     with _main_not_reimported():
         pool = ProcessPoolExecutor(
             max_workers=n, mp_context=_render_context(), initializer=_child_init, initargs=(common or {},)
         )
         try:
-            pending = iter(items)
-            more = True
-            while more or flight:
-                while more and len(flight) <= n:
-                    item = next(pending, None)
-                    if item is None:
-                        more = False
-                        break
-                    flight.append(pool.submit(fn, *item))
-                    del item
-                if not flight:
-                    break
-                # short waits: a stop signal runs its handler in the main thread (render.pdf._WAIT_S)
-                while not flight[0].done():
-                    wait([flight[0]], timeout=_WAIT_S)
-                yield flight.popleft().result()
+            yield from pipeline.in_order(pool, fn, iter(items), n)
         except BaseException:
             _stop_workers(pool)
             raise

@@ -267,3 +267,54 @@ def test_read_ahead_keeps_the_order_holds_one_item_ahead_and_raises_where_asked(
     ahead.close()  # (the for loop's end): waits for the item in hand
     assert made == [0, 1, 2]
     assert list(pipeline._read_ahead(iter([]))) == []
+
+
+def test_demo_in_chunks_on_two_threads_equals_one_pass():
+    """[run] threads: the chunks screened side by side on two threads give the one-pass frames, and the
+    chunk stages' timings are summed over the threads beside the phase's wall time."""
+    b, r, w = _inputs(sample_portfolio_dir())
+    cfg = cfgmod.load(None, None)
+    window = analysis_window(dt.date(2026, 10, 15))
+    one = pipeline.screen_frames(b, r, w, cfg, window=window, fit_block=10)
+    two = pipeline.screen_frames(b, r, w, cfg, window=window, fit_block=10, chunk_buildings=1, threads=2)
+    assert "chunks_side_by_side" in two.timings and "chunks_side_by_side" not in one.timings
+    assert two.timings["regression"] > 0  # summed over the 20 chunks
+    _same(one, two)
+
+
+def test_side_by_side_runs_two_at_once_in_order_with_a_bounded_flight():
+    """pipeline._side_by_side: two items are worked on at the same time (a barrier of two parties would
+    time out one at a time), the results come in the items' order, at most n + 1 items are taken ahead of
+    the results handed over, an item's error is raised where its result would be, and the items not
+    started after it are dropped."""
+    import threading
+
+    both = threading.Barrier(2, timeout=10)
+    taken: list[int] = []
+
+    def items(k_bad=None, n=8):
+        for k in range(n):
+            taken.append(k)
+            yield (k, k == k_bad)
+
+    def work(k, bad):
+        if k < 2:
+            both.wait()  # items 0 and 1 must be in work together
+        if bad:
+            raise ValueError(f"item {k} is broken")
+        return k * 10
+
+    got = []
+    for x in pipeline._side_by_side(work, items(), 2):
+        assert len(taken) <= len(got) + 3  # in flight: at most n + 1 = 3 beyond what was handed over
+        got.append(x)
+    assert got == [0, 10, 20, 30, 40, 50, 60, 70]
+
+    taken.clear()
+    both.reset()
+    got = []
+    with pytest.raises(ValueError, match="item 4 is broken"):
+        for x in pipeline._side_by_side(work, items(k_bad=4, n=100), 2):
+            got.append(x)
+    assert got == [0, 10, 20, 30]
+    assert len(taken) <= 4 + 3  # the items after the broken one were not taken

@@ -62,6 +62,17 @@ def test_each_worker_adds_a_chunk_and_a_child():
     assert memory.screening_bytes(r, b, 0, workers=4) == memory.screening_bytes(r, b, 0)
 
 
+def test_each_thread_adds_a_chunk_and_no_child():
+    r, b = 4_000_000, 100_000
+    one = memory.screening_bytes(r, b, 16384)
+    chunk = memory.BYTES_PER_CHUNK_READING * r * pipeline.chunk_size(16384, b) / b
+    assert memory.screening_bytes(r, b, 16384, threads=2) - one == pytest.approx(chunk)
+    assert memory.screening_bytes(r, b, 16384, threads=64) == memory.screening_bytes(r, b, 16384, threads=7)
+    assert memory.screening_bytes(r, b, 0, threads=4) == memory.screening_bytes(r, b, 0)
+    # worker processes take the chunks when there are two or more: threads then add nothing
+    assert memory.screening_bytes(r, b, 16384, workers=2, threads=4) == memory.screening_bytes(r, b, 16384, workers=2)
+
+
 def test_check_refuses_a_run_larger_than_the_limit(tmp_path, monkeypatch):
     p = tmp_path / "readings.csv"
     p.write_text("h\n" + "x\n" * 1000)

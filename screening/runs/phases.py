@@ -142,6 +142,7 @@ def _run_locked(
         ingest_chunk_mb=cfg.run.ingest_chunk_mb,
         store_memory_mb=cfg.run.store_memory_mb,
         workers=cfg.run.workers,
+        threads=cfg.run.threads,
     )  # stops here, nothing changed, if it cannot fit
     t_start = time.perf_counter()
     from ..render import pdf

@@ -110,6 +110,7 @@ def screen(
             executor=executor,
             keep_periods=cfg.output.sheets,
             workers=workers(cfg.run.workers),
+            threads=workers(cfg.run.threads, "threads"),
         )
     finally:
         if src is not None:
@@ -401,10 +402,11 @@ def _sheets(tmp, res, ld, cfg: Settings, disp, run_key, paper, timings, bar, exe
     return sheet_files
 
 
-def workers(wanted: int) -> int:
+def workers(wanted: int, name: str = "workers") -> int:
     """Processes (``[output] workers``: sheet renderers; ``[run] workers``: chunks checked and screened side by
-    side): as configured, at most one per core of this machine."""
+    side) or threads (``[run] threads``: chunks screened side by side): as configured, at most one per core
+    of this machine."""
     cores = os.cpu_count() or 1
     if wanted > cores:
-        log.info("workers = %d capped to the %d core(s) of this machine", wanted, cores)
+        log.info("%s = %d capped to the %d core(s) of this machine", name, wanted, cores)
     return max(1, min(wanted, cores))
