@@ -131,9 +131,7 @@ def _sample_memory(path: Path, every_s: float = 0.5) -> None:
                 tree = rss + sum(_rss_mb(k) for k in _children(me))
                 TREE_PEAK["mb"] = max(TREE_PEAK["mb"], tree)
                 cpu = os.times()
-                f.write(
-                    f"{time.strftime('%H:%M:%S')}\t{rss:.0f}\t{tree:.0f}\t{where()}\t{cpu.user + cpu.system:.1f}\n"
-                )
+                f.write(f"{time.strftime('%H:%M:%S')}\t{rss:.0f}\t{tree:.0f}\t{where()}\t{cpu.user + cpu.system:.1f}\n")
                 f.flush()
                 time.sleep(every_s)
 
