@@ -4,6 +4,7 @@ gives the one-pass results (every frame equal, not close), on the demo portfolio
 from __future__ import annotations
 
 import datetime as dt
+import os
 
 import polars as pl
 import pytest
@@ -125,8 +126,11 @@ def test_run_pulling_chunks_from_the_store_writes_the_one_pass_tables(tmp_path, 
             "output": {"sheets": False},
             "run": {"chunk_buildings": chunk},
         }
-        runner.run(overrides=ov, out_dir=str(tmp_path / f"out{chunk}"), force=True)
+        res = runner.run(overrides=ov, out_dir=str(tmp_path / f"out{chunk}"), force=True)
         outs[chunk] = tmp_path / f"out{chunk}"
+        # [run] threads = 2 (the default): the 4 chunks two at a time, on a machine of 2 cores or more
+        side_by_side = "chunks_side_by_side" in res.summary["timings_s"]
+        assert side_by_side == (chunk == 50 and (os.cpu_count() or 1) >= 2)
     assert len(calls) == 4 and all(0 < n <= 50 and rows > 0 for n, rows in calls)
     ids = {c: json.loads((outs[c] / "summary.json").read_text())["run_id"] for c in outs}
     assert (outs[0] / "savings.csv").read_text().count("\n") == 3  # a header and the two measures
