@@ -322,3 +322,13 @@ def test_side_by_side_runs_two_at_once_in_order_with_a_bounded_flight():
             got.append(x)
     assert got == [0, 10, 20, 30]
     assert len(taken) <= 4 + 3  # the items after the broken one were not taken
+
+
+def test_a_failing_chunk_on_a_thread_fails_the_screening_with_its_own_error():
+    b, r, w = _inputs(sample_portfolio_dir())
+    cfg = cfgmod.load(None, None)
+    window = analysis_window(dt.date(2026, 10, 15))
+    broken = r.drop("fuel")  # every chunk's readings without their fuel column: polars' own error, raised here
+    with pytest.raises(Exception, match="fuel") as caught:
+        pipeline.screen_frames(b, broken, w, cfg, window=window, fit_block=50, chunk_buildings=50, threads=2)
+    assert caught.value.__traceback__ is not None and "_RemoteTraceback" not in repr(caught.value.__cause__)
