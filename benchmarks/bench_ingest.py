@@ -3,13 +3,15 @@
     python benchmarks/bench_ingest.py --n 100000 --work /tmp/bench-100k            # this tree, whole and chunked
     python benchmarks/bench_ingest.py --n 100000 --work /tmp/bench-100k --ref 5551e2c --chunk-mb 0 32 8
     python benchmarks/bench_ingest.py --n 100000 --work /tmp/bench-100k --chunk-mb 32 --store-mb 0 2048 512
+    python benchmarks/bench_ingest.py --n 100000 --work /tmp/bench-100k --chunk-mb 0 32 --threads 1 2
 
 The portfolio comes from the independent simulator (sample_portfolio/simulate.py: 3 years of daily
 weather, 36 monthly bills a building and some extra meters), written once into ``--work`` (kept for
 reuse). Each load is ``pipeline.load_inputs`` into a new DuckDB file in a fresh child process; its
 peak is the child's ``VmHWM`` (its own peak resident memory), also given above the memory after the imports. ``--chunk-mb 0`` is
 the whole-file path; ``--ref`` also loads with that commit's code (``git archive``, as
-compare_outputs.py). Every load must store the same rows: the script prints the stored tables'
+compare_outputs.py); ``--threads`` gives ``load_inputs``' threads (``[run] threads``: files read whole side by
+side, a streamed file's chunks checked side by side; the default 1 is one at a time). Every load must store the same rows: the script prints the stored tables'
 row counts and an order-independent hash of their rows, and exits 1 when they differ.
 """
 
@@ -37,12 +39,12 @@ t0 = time.perf_counter()
 from screening import pipeline
 from screening.ingest import ReadOptions
 from screening.store import Store
-work, db, chunk = Path(sys.argv[1]), sys.argv[2], sys.argv[3]
+work, db, chunk, threads = Path(sys.argv[1]), sys.argv[2], sys.argv[3], int(sys.argv[5])
 base = hwm()
 files = {k: [str(work / f"{k}.csv")] for k in ("buildings", "readings", "weather")}
 store = Store(db, memory_mb=int(sys.argv[4])) if len(sys.argv) > 4 and sys.argv[4] != "0" else Store(db)
 t = time.perf_counter()
-kw = {} if chunk == "ref" else {"chunk_bytes": int(chunk) << 20}
+kw = {} if chunk == "ref" else {"chunk_bytes": int(chunk) << 20} | ({"threads": threads} if threads > 1 else {})
 loads = pipeline.load_inputs(store, files, ReadOptions(), **kw)
 secs = time.perf_counter() - t
 peak = hwm()
@@ -65,13 +67,13 @@ def generate(n: int, work: Path) -> None:
     gen(n, work)
 
 
-def one(tree: Path, work: Path, chunk: str, store_mb: int = 0) -> dict:
+def one(tree: Path, work: Path, chunk: str, store_mb: int = 0, threads: int = 1) -> dict:
     db = work / f"ingest-{chunk}.duckdb"
     for p in (db, Path(str(db) + ".wal")):
         p.unlink(missing_ok=True)
     env = os.environ | {"PYTHONPATH": str(tree)}
     out = subprocess.run(
-        [sys.executable, "-c", CHILD, str(work), str(db), chunk, str(store_mb)],
+        [sys.executable, "-c", CHILD, str(work), str(db), chunk, str(store_mb), str(threads)],
         cwd=tree,  # ``python -c`` puts the working folder first on sys.path: run in the tree being measured
         env=env,
         capture_output=True,
@@ -96,6 +98,7 @@ def main() -> None:
     ap.add_argument(
         "--store-mb", type=int, nargs="*", default=[0], help="DuckDB memory limits to load with ([run] store_memory_mb)"
     )
+    ap.add_argument("--threads", type=int, nargs="*", default=[1], help="threads of the loads ([run] threads)")
     a = ap.parse_args()
     work = Path(a.work)
     if not (work / "readings.csv").exists():
@@ -109,18 +112,27 @@ def main() -> None:
     if a.ref:
         from compare_outputs import ref_tree
 
-        runs.append((f"{a.ref} (before)", ref_tree(a.ref), "ref", 0))
+        runs.append((f"{a.ref} (before)", ref_tree(a.ref), "ref", 0, 1))
     runs += [
-        (("whole files" if c == 0 else f"chunks of {c} MB") + (f", store_memory_mb {m}" if m else ""), ROOT, str(c), m)
+        (
+            ("whole files" if c == 0 else f"chunks of {c} MB")
+            + (f", store_memory_mb {m}" if m else "")
+            + (f", {t} threads" if t > 1 else ""),
+            ROOT,
+            str(c),
+            m,
+            t,
+        )
         for c in a.chunk_mb
         for m in a.store_mb
+        for t in a.threads
     ]
     checks = []
     print("| code | load before → after | ingest s | peak | above imports |")
     print("|---|---|---|---|---|")
-    for name, tree, chunk, store_mb in runs:
+    for name, tree, chunk, store_mb, threads in runs:
         before = _load()
-        r = one(tree, work, chunk, store_mb)
+        r = one(tree, work, chunk, store_mb, threads)
         checks.append(r["check"])
         print(
             f"| {name} | {before} → {_load()} | {r['seconds']:.1f} | {r['peak_kb'] / 1e6:.2f} GB | "

@@ -122,8 +122,8 @@ class Run:
     )
     threads: int = setting(
         2,
-        "threads of this process that screen chunks of buildings side by side when workers = 1 (1 = one "
-        "chunk at a time); each holds one chunk; at most one per core",
+        "threads of this process that read the input files and, when workers = 1, check a large file's chunks "
+        "and screen chunks of buildings side by side (1 = one at a time); each holds one chunk; at most one per core",
         range=(1, 64, "a whole number"),
     )
     ingest_chunk_mb: int = setting(

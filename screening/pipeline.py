@@ -149,6 +149,7 @@ def load_inputs(
     log=None,
     chunk_bytes: int | None = None,
     workers: int = 1,
+    threads: int = 1,
 ) -> list[FileLoad]:
     """Load new or changed input files into the store, all in one transaction.
 
@@ -161,6 +162,9 @@ def load_inputs(
     stopped between the two reads them again. A file whose content hash and reading options match its last
     load is not read again.
     ``workers`` ≥ 2 (``[run] workers``) checks a streamed file's chunks on that many child processes.
+    ``threads`` ≥ 2 (``[run] threads``) reads and checks the files read whole side by side on that many threads
+    (:func:`_side_by_side`; polars works outside the GIL): the buildings and weather files beside the readings.
+    The files' errors are raised in the files' order, as one read at a time would raise them.
     """
     log = log or (lambda msg: None)
     oh = _options_hash(opts)
@@ -168,6 +172,7 @@ def load_inputs(
         chunk_bytes = streaming.STREAM_CHUNK_BYTES if opts.chunk_bytes is None else opts.chunk_bytes
     chunk = int(chunk_bytes)
     plan: list[tuple[str, str, str, Loaded | None]] = []
+    whole: list[int] = []  # the plan's files read whole, read below
     for kind in KINDS:
         for path in files.get(kind, []):
             digest = file_sha256(path)
@@ -178,8 +183,15 @@ def load_inputs(
             if streaming.streamable(kind, str(path), chunk):
                 plan.append((kind, str(path), digest, _STREAM))
                 continue
-            log(f"reading {kind} file {path}")
-            plan.append((kind, str(path), digest, read_file(kind, str(path), opts)))
+            whole.append(len(plan))
+            plan.append((kind, str(path), digest, _READ))
+    for k in whole:
+        log(f"reading {plan[k][0]} file {plan[k][1]}")
+    items = ((plan[k][0], plan[k][1], opts) for k in whole)
+    n_threads = min(threads, len(whole))
+    got = _side_by_side(read_file, items, n_threads) if n_threads >= 2 else (read_file(*item) for item in items)
+    read = dict(zip(whole, got, strict=True))
+    plan = [(kind, path, digest, read.get(k, loaded)) for k, (kind, path, digest, loaded) in enumerate(plan)]
     out: list[FileLoad] = []
     streamed: list[tuple[FileLoad, streaming.Streamed]] = []  # repeated keys settled in a second transaction
     with store.transaction():
@@ -191,7 +203,9 @@ def load_inputs(
             if loaded is _STREAM:
                 log(f"reading {kind} file {path} in chunks")
                 try:
-                    st = streaming.load_streamed(store, kind, path, opts, chunk_bytes=chunk, workers=workers)
+                    st = streaming.load_streamed(
+                        store, kind, path, opts, chunk_bytes=chunk, workers=workers, threads=threads
+                    )
                 except streaming.WholeFile as why:
                     log(f"reading {kind} file {path} whole ({why})")
                     streaming.forget_file(store, kind, path)
@@ -229,6 +243,8 @@ def load_inputs(
 
 #: In a load plan: the file is read in chunks inside the transaction (screening.streaming).
 _STREAM = Loaded("", pl.DataFrame(), pl.DataFrame(), [])
+#: In a load plan being made: the file is read whole, before the transaction.
+_READ = Loaded("", pl.DataFrame(), pl.DataFrame(), [])
 
 
 def _record_input(store: Store, kind: str, path: str, digest: str, oh: str, rows: int, rejected: int) -> None:

@@ -240,6 +240,7 @@ def _checked_chunks(
     notices: list[str],
     tally: dict,
     workers: int = 1,
+    threads: int = 1,
 ):
     """The file's records a chunk at a time, in the file's order: for each, a call that types and checks
     the chunk's records (split here) and returns ``(rows to store or None, rejects)``, to be made in the
@@ -248,7 +249,9 @@ def _checked_chunks(
 
     Without quotes every line is a record, so the chunks are independent: with ``workers`` ≥ 2 they are
     split and checked on that many child processes (``screening.workers.in_order``) while this process
-    stores the ones already checked; the pairs are those of one process, in the same order."""
+    stores the ones already checked; else, with ``threads`` ≥ 2, on that many threads of this process
+    (``pipeline._side_by_side``; polars works outside the GIL). The pairs are those of one process, in the
+    same order."""
     required = [c for c, _, _, r, _ in spec if r]
     optional = [c for c, _, _, r, _ in spec if not r]
     mapping = dict(opts.columns.get(kind) or {}) or None
@@ -314,10 +317,17 @@ def _checked_chunks(
                 if not text:
                     break
 
-        if workers >= 2 and Path(path).stat().st_size > 2 * size:
-            from .workers import in_order
+        side = workers >= 2 or threads >= 2
+        if side and Path(path).stat().st_size > 2 * size:
+            if workers >= 2:
+                from .workers import in_order
 
-            for good, rej, counts, rep, rows, rejected in in_order(_fast_checked, pieces(), workers):
+                done = in_order(_fast_checked, pieces(), workers)
+            else:
+                from .pipeline import _side_by_side
+
+                done = _side_by_side(_fast_checked, pieces(), threads)
+            for good, rej, counts, rep, rows, rejected in done:
                 repeated += rep
                 n_rows += rows
                 n_rej += rejected
@@ -470,7 +480,14 @@ class _Writer:
 
 
 def load_streamed(
-    store: Store, kind: str, path: str, opts: ReadOptions, *, chunk_bytes: int = STREAM_CHUNK_BYTES, workers: int = 1
+    store: Store,
+    kind: str,
+    path: str,
+    opts: ReadOptions,
+    *,
+    chunk_bytes: int = STREAM_CHUNK_BYTES,
+    workers: int = 1,
+    threads: int = 1,
 ) -> Streamed:
     """Read, check and store one buildings or readings file a chunk at a time: every checked row, its
     repeated keys not settled yet (:func:`settle_repeats` does, in a transaction of its own).
@@ -479,7 +496,8 @@ def load_streamed(
     an ``InputError`` (or :class:`WholeFile`) part-way leaves the rollback to the caller. Raises
     :class:`WholeFile` before or while storing when the file needs the whole-file path; the caller then
     deletes this file's rows again (:func:`forget_file`) and reads it whole. ``workers`` ≥ 2 checks the
-    chunks of a file without quotes on that many child processes (``[run] workers``; the same rows).
+    chunks of a file without quotes on that many child processes (``[run] workers``; the same rows), else
+    ``threads`` ≥ 2 on that many threads (``[run] threads``).
     """
     label = str(path)
     try:
@@ -492,7 +510,7 @@ def load_streamed(
     tally: dict = {}
     writer = _Writer(store, kind, label)
     try:
-        for chunk in _checked_chunks(path, label, spec, opts, kind, sc, chunk_bytes, notices, tally, workers):
+        for chunk in _checked_chunks(path, label, spec, opts, kind, sc, chunk_bytes, notices, tally, workers, threads):
             writer.put(chunk)  # checked and stored on the writer's thread while the next chunk is split here
     except BaseException:
         writer.close(rest=False)  # the connection is this thread's again for the caller's rollback

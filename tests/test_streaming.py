@@ -32,21 +32,36 @@ def _tables(store: Store) -> dict[str, pl.DataFrame]:
     }
 
 
-def _load(files: dict, opts: ReadOptions, chunk_bytes: int, logs: list[str] | None = None, workers: int = 1):
+def _load(
+    files: dict,
+    opts: ReadOptions,
+    chunk_bytes: int,
+    logs: list[str] | None = None,
+    workers: int = 1,
+    threads: int = 1,
+):
     store = Store(":memory:")
     loads = pipeline.load_inputs(
-        store, files, opts, chunk_bytes=chunk_bytes, log=None if logs is None else logs.append, workers=workers
+        store,
+        files,
+        opts,
+        chunk_bytes=chunk_bytes,
+        log=None if logs is None else logs.append,
+        workers=workers,
+        threads=threads,
     )
     return store, [(f.kind, f.path, f.rows, f.rejected, f.notices) for f in loads]
 
 
-def _same(files: dict, opts: ReadOptions | None = None, chunk: int = SMALL, workers: int = 1) -> list[str]:
-    """Load ``files`` whole and in chunks (checked on ``workers`` processes); assert the same stores and
-    loads; return the chunked run's log."""
+def _same(
+    files: dict, opts: ReadOptions | None = None, chunk: int = SMALL, workers: int = 1, threads: int = 1
+) -> list[str]:
+    """Load ``files`` whole, one file at a time, and in chunks (checked on ``workers`` processes or
+    ``threads`` threads); assert the same stores and loads; return the chunked run's log."""
     opts = opts or ReadOptions()
     whole, loads_w = _load(files, opts, 0)
     logs: list[str] = []
-    part, loads_p = _load(files, opts, chunk, logs, workers)
+    part, loads_p = _load(files, opts, chunk, logs, workers, threads)
     assert loads_p == loads_w
     tw, tp = _tables(whole), _tables(part)
     for name in tw:
@@ -110,7 +125,58 @@ def test_chunks_checked_on_two_workers_store_what_the_whole_file_path_stores(tmp
     assert any("in chunks" in m for m in logs) and not any(" whole (" in m for m in logs)
 
 
-def test_what_a_worker_finds_only_the_whole_file_tells_sends_the_file_whole(tmp_path):
+def _counting_side_by_side(monkeypatch) -> list[int]:
+    """Count the items ``pipeline._side_by_side`` is given (it still does the work)."""
+    seen: list[int] = []
+    real = pipeline._side_by_side
+
+    def counting(fn, items, n):
+        def counted():
+            for item in items:
+                seen.append(n)
+                yield item
+
+        return real(fn, counted(), n)
+
+    monkeypatch.setattr(pipeline, "_side_by_side", counting)
+    return seen
+
+
+def test_chunks_checked_on_two_threads_store_what_the_whole_file_path_stores(tmp_path, monkeypatch):
+    files = _messy(tmp_path)
+    seen = _counting_side_by_side(monkeypatch)
+    logs = _same(files, threads=2)  # dozens of 300-byte chunks, two at a time on threads of this process
+    assert any("in chunks" in m for m in logs) and not any(" whole (" in m for m in logs)
+    assert len(seen) > 20 and set(seen) == {2}  # the chunks went through the threads (the weather read alone)
+
+
+def test_files_read_whole_on_two_threads_store_what_one_at_a_time_stores(tmp_path, monkeypatch):
+    files = _messy(tmp_path)
+    one, loads_1 = _load(files, ReadOptions(), 0)
+    seen = _counting_side_by_side(monkeypatch)
+    two, loads_2 = _load(files, ReadOptions(), 0, threads=2)  # buildings, readings, weather side by side
+    assert seen == [2, 2, 2]
+    assert loads_2 == loads_1
+    t1, t2 = _tables(one), _tables(two)
+    for name in t1:
+        assert t2[name].equals(t1[name]), name
+
+
+def test_files_read_whole_on_two_threads_raise_the_first_files_error(tmp_path):
+    files = _messy(tmp_path)
+    b, r = Path(files["buildings"][0]), Path(files["readings"][0])
+    b.write_text("name,floor_area\nx,5\n", encoding="utf-8")  # no building_id column
+    r.write_text("building_id,fuel\nB0001,gas\n", encoding="utf-8")  # no period columns either
+    errors = []
+    for threads in (1, 2):
+        with pytest.raises(InputError) as exc:
+            _load(files, ReadOptions(), 0, threads=threads)
+        errors.append(str(exc.value))
+    assert errors[0] == errors[1] and "buildings.csv" in errors[0]
+
+
+@pytest.mark.parametrize("workers,threads", [(2, 1), (1, 2)])
+def test_what_a_worker_finds_only_the_whole_file_tells_sends_the_file_whole(tmp_path, workers, threads):
     files = _messy(tmp_path)
     rd = Path(files["readings"][0])
     rows = rd.read_text().splitlines()
@@ -120,7 +186,7 @@ def test_what_a_worker_finds_only_the_whole_file_tells_sends_the_file_whole(tmp_
     f[2] = f"{d}/{m}/{y}"  # a day/month date far into the file (the day tells), without [reading] date_order
     rows[i] = ",".join(f)
     rd.write_text("\n".join(rows) + "\n", encoding="utf-8")
-    logs = _same(files, workers=2)  # the worker's WholeFile reaches the load: the file is read whole
+    logs = _same(files, workers=workers, threads=threads)  # the chunk's WholeFile reaches the load: read whole
     assert any("readings.csv whole (slash dates" in m for m in logs)
 
 

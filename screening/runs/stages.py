@@ -50,7 +50,15 @@ def load_inputs(
     """Load the named files into the store (new or changed ones only) and read what the screening needs."""
     opts = pipeline.read_options(cfg)
     t = time.perf_counter()
-    loads = pipeline.load_inputs(store, files, opts, force=force, log=log.info, workers=workers(cfg.run.workers))
+    loads = pipeline.load_inputs(
+        store,
+        files,
+        opts,
+        force=force,
+        log=log.info,
+        workers=workers(cfg.run.workers),
+        threads=workers(cfg.run.threads, "threads"),
+    )
     timings["ingest"] = round(time.perf_counter() - t, 4)
     for fl in loads:
         log.info("%s %s: %s (%d rows, %d rejected)", fl.kind, fl.path, fl.status, fl.rows, fl.rejected)
