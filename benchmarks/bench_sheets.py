@@ -21,7 +21,8 @@ start-up) shows how much of the speed-up is batching rather than the second core
 less with the other jobs on the machine.
 ranking.pdf is timed for ``--ranking-rows`` ranked rows (the default cap of
 ``[output] ranking_pdf_rows``), best of two, wall and CPU time.
-Sheets come from tests/sheet_fixtures.make_sheet (invented buildings). Figures measured
+The renderers' fork server is started before the baselines, as a run starts it while its inputs load
+(``pdf.warm_up``). Sheets come from tests/sheet_fixtures.make_sheet (invented buildings). Figures measured
 and the conditions (uptime) are in DEVELOPERS.md "Rendering". Timings are wall
 clock on this machine; other processes sharing the cores make them vary, so the load
 average is printed beside them.
@@ -123,6 +124,10 @@ def main() -> None:
                 f"ranking.pdf, {a.ranking_rows} rows: {best[0]:.2f} s wall, {best[1]:.2f} s CPU "
                 f"({len(PdfReader(out).pages)} pages)"
             )
+        # the renderers' fork server started first, as a run starts it (runs/phases.py: pdf.warm_up, while the
+        # inputs load): it imports WeasyPrint (about 1 s of CPU) beside the baselines, so the batched timing
+        # holds the child's fork and warm-up, not the fork server's start (1 s in a 13-s window at 200 sheets)
+        pdf.warm_up()
         pdf._state()  # warm the in-process renderer for the baseline, as a long-lived run would
         pdf.render_sheets_one_by_one(sheets[:1], tmp / "warm", paper=a.paper)
         naive_one_document_per_sheet(sheets[:1], tmp / "warm-naive", paper=a.paper)  # imports, template
