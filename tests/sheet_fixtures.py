@@ -234,6 +234,29 @@ SCRIPT_NAMES = {
     "stacked": "Ze\u0301\u0302\u0303\u0304\u0308\u030a\u0327\u0328\u0331 Hall",
 }
 
+#: The system font family (a part of its name, as ``fc-list : family`` prints it) each name of
+#: ``SCRIPT_NAMES`` needs beyond the bundled face and DejaVu (README "Fonts"; .ci/run installs them).
+SCRIPT_FONTS = {
+    "chinese": "Noto Sans CJK",
+    "japanese": "Noto Sans CJK",
+    "korean": "Noto Sans CJK",
+    "devanagari": "Devanagari",
+    "emoji": "Noto Color Emoji",
+}
+
+
+def scripts_without_font() -> list[str]:
+    """The keys of ``SCRIPT_NAMES`` whose font (``SCRIPT_FONTS``) this machine lacks. WeasyPrint draws such a
+    name as .notdef boxes, and then pdfminer (pdfplumber, pypdf) reads no text of the bold face from any
+    page of that document: seen on a machine without the fonts, 2026-12-03; pdfium reads it. Tests that
+    read text keep those names out of the documents they read."""
+    import os
+    import shutil
+
+    fams = os.popen("fc-list : family").read() if shutil.which("fc-list") else ""
+    return [k for k, fam in SCRIPT_FONTS.items() if fam not in fams]
+
+
 # the screen's tier names (screening.screen.TIERS) with their ranks
 _REAL_TIERS = ["Audit first", "Audit soon", "Watch", "No action", "Fix data first"]
 
