@@ -190,8 +190,8 @@ def load_inputs(
     items = ((plan[k][0], plan[k][1], opts) for k in whole)
     n_threads = min(threads, len(whole))
     got = _side_by_side(read_file, items, n_threads) if n_threads >= 2 else (read_file(*item) for item in items)
-    read = dict(zip(whole, got, strict=True))
-    plan = [(kind, path, digest, read.get(k, loaded)) for k, (kind, path, digest, loaded) in enumerate(plan)]
+    for k, loaded in zip(whole, got, strict=True):
+        plan[k] = (*plan[k][:3], loaded)
     out: list[FileLoad] = []
     streamed: list[tuple[FileLoad, streaming.Streamed]] = []  # repeated keys settled in a second transaction
     with store.transaction():
