@@ -391,10 +391,18 @@ def reading_duplicates(good: pl.DataFrame, label: str) -> tuple[pl.DataFrame, pl
     """Rows of one readings file (in line order) for the same meter and period: exact duplicates kept
     once, different data rejected on every such row. Returns (kept rows, rejects, exact duplicates
     dropped). Only rows whose key (:data:`READING_KEY`) appears more than once are touched."""
-    n_before = good.height
-    good = good.unique(subset=READING_DATA, keep="first", maintain_order=True)
-    n_exact = n_before - good.height
-    conflict = good.filter(pl.struct(READING_KEY).is_duplicated())
+    twice = good.select(pl.struct(READING_KEY).is_duplicated()).to_series()
+    if not twice.any():
+        return good, empty_rejects(), 0
+    # a row given twice has its key twice (the key is part of the data): only those rows are compared whole
+    rows = good.with_row_index("_row").filter(twice)
+    kept = rows.unique(subset=READING_DATA, keep="first", maintain_order=True)
+    n_exact = rows.height - kept.height
+    conflict = kept.filter(pl.struct(READING_KEY).is_duplicated())
+    # the other rows' keys are once in the file: a key twice among the kept rows is twice among all of them
+    keep = kept.filter(~pl.struct(READING_KEY).is_duplicated())["_row"]
+    good = good.filter(~twice | pl.int_range(pl.len(), dtype=pl.UInt32).is_in(keep.implode()))
+    conflict = conflict.drop("_row")
     if not conflict.height:
         return good, empty_rejects(), n_exact
     lines = conflict.group_by(READING_KEY).agg(pl.col(LINE_COL).sort().alias("lines"))
@@ -410,7 +418,6 @@ def reading_duplicates(good: pl.DataFrame, label: str) -> tuple[pl.DataFrame, pl
         }
         for r in conflict.sort(LINE_COL).iter_rows(named=True)
     ]
-    good = good.filter(~pl.struct(READING_KEY).is_duplicated())
     return good, rejects_frame(extra), n_exact
 
 

@@ -8,7 +8,10 @@ from __future__ import annotations
 
 import polars as pl
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
+from screening import csvread
 from screening.csvread import LINE_COL, MAX_FIELD_CHARS, read_table
 from screening.errors import InputError
 
@@ -188,3 +191,56 @@ def test_missing_path_and_folder(tmp_path):
 def test_label_is_used_in_messages(tmp_path):
     with pytest.raises(InputError, match=r"^buildings\.csv, line 2: no data rows"):
         read_table(_write(tmp_path, "id,name,qty\n"), required=REQ, label="buildings.csv")
+
+
+# ----------------------------------------------------------------------------- polars' parser for regular chunks
+
+_HEADER = ["id", "name", "qty"]
+# fields of every kind the rules treat apart: plain, empty, blanks around or inside, non-ASCII, a bare CR, the
+# header's own names in other cases (a repeated header), long ones
+_FIELD = st.sampled_from(
+    ["a", "B7", "", " 1 ", "\t", "x y", "é", "\u3000z", "ID", " Name ", "qty", "b\rc", "x" * 40, "y" * 10_001]
+)
+_LINE = st.one_of(
+    st.lists(_FIELD, min_size=3, max_size=3),  # a regular record
+    st.lists(_FIELD, min_size=0, max_size=5),  # any number of fields, blank lines
+)
+
+
+@settings(max_examples=300, deadline=None)
+@given(
+    lines=st.lists(_LINE, min_size=1, max_size=12),
+    delim=st.sampled_from([",", ";", "\t"]),
+    crlf=st.booleans(),
+    last_nl=st.booleans(),
+    first=st.integers(2, 10_000),
+)
+def test_regular_chunks_through_polars_read_as_line_by_line(lines, delim, crlf, last_nl, first):
+    """The native path gives the frame, rejects and repeated-header count of the line-by-line path, or
+    declines (None) and leaves the chunk to it."""
+    eol = "\r\n" if crlf else "\n"
+    chunk = eol.join(delim.join(f for f in fields) for fields in lines) + (eol if last_nl else "")
+    idx, wanted = [0, 1, 2], list(_HEADER)
+    native = csvread._native_chunk(chunk, first, delim, _HEADER, idx, wanted)
+    split = csvread._split_chunk(chunk, first, "f.csv", delim, _HEADER, idx, wanted)
+    if native is not None:
+        assert native[0].equals(split[0]) and native[0].schema == split[0].schema
+        assert native[1] == split[1] == [] and native[2] == split[2]
+    assert csvread._fast_chunk(chunk, first, "f.csv", delim, _HEADER, idx, wanted)[0].equals(split[0])
+
+
+@pytest.mark.parametrize("crlf", [False, True])
+def test_a_regular_chunk_takes_polars_parser(crlf):
+    """Regular records (blanks, non-ASCII, a repeated header among them) are parsed natively, as the line-by-line
+    path reads them; a blank line, a short line or a long field leaves the chunk to that path."""
+    eol = "\r\n" if crlf else "\n"
+    rows = ["B1,gas, 3 ", "B2,oil,", "ID, Name ,QTY", "Bé,\u3000x,7"]
+    chunk = eol.join(rows) + eol
+    native = csvread._native_chunk(chunk, 5, ",", _HEADER, [0, 1, 2], _HEADER)
+    assert native is not None
+    split = csvread._split_chunk(chunk, 5, "f.csv", ",", _HEADER, [0, 1, 2], _HEADER)
+    assert native[0].equals(split[0]) and native[2] == split[2] == 1
+    assert native[0][LINE_COL].to_list() == [5, 6, 8]
+    assert native[0]["qty"].to_list() == ["3", None, "7"]
+    for odd in (["B1,gas,3", "", "B2,oil,4"], ["B1,gas,3", "B2,oil"], ["B1,gas," + "9" * (MAX_FIELD_CHARS + 1)]):
+        assert csvread._native_chunk(eol.join(odd) + eol, 2, ",", _HEADER, [0, 1, 2], _HEADER) is None

@@ -323,3 +323,61 @@ def test_a_file_is_hashed_once_while_it_is_unchanged(tmp_path, monkeypatch):
     time.sleep(0.05)
     f.write_text("a,b\n1,3\n")  # the same size, other bytes: hashed again
     assert pipeline.file_sha256(f) != first and len(hashed) == 4
+
+
+def _duplicates_in_one_pass(good: pl.DataFrame, label: str):
+    """The rule of ``ingest.reading_duplicates`` written plainly over every row: exact duplicates kept once, then
+    every row of a key still twice rejected (the reference the faster version is checked against)."""
+    from screening import ingest
+
+    n = good.height
+    good = good.unique(subset=ingest.READING_DATA, keep="first", maintain_order=True)
+    conflict = good.filter(pl.struct(ingest.READING_KEY).is_duplicated())
+    return (
+        good.filter(~pl.struct(ingest.READING_KEY).is_duplicated()),
+        sorted(conflict["_line"].to_list()),
+        n - good.height,
+    )
+
+
+def test_reading_duplicates_compare_only_rows_whose_key_repeats():
+    """Exact repeats, conflicting repeats and a key three times, among rows given once: the
+    kept rows (in line order), the rejected lines and the count of exact repeats are those of the plain rule."""
+    from hypothesis import given, settings
+    from hypothesis import strategies as st
+
+    from screening import ingest
+
+    row = st.tuples(
+        st.sampled_from(["B1", "B2"]),
+        st.sampled_from(["gas", "oil"]),
+        st.sampled_from(["", "m1"]),  # (a key has no nulls here: a missing meter is "")
+        st.sampled_from([dt.date(2025, 1, 1), dt.date(2025, 2, 1)]),
+        st.sampled_from([1.0, 2.0, None]),
+        st.booleans(),
+    )
+
+    @settings(max_examples=200, deadline=None)
+    @given(rows=st.lists(row, min_size=1, max_size=25))
+    def check(rows):
+        good = pl.DataFrame(
+            {
+                "building_id": [r[0] for r in rows],
+                "fuel": [r[1] for r in rows],
+                "meter_id": pl.Series([r[2] for r in rows], dtype=pl.String),
+                "period_start": [r[3] for r in rows],
+                "period_end": [r[3] + dt.timedelta(days=30) for r in rows],
+                "quantity": pl.Series([r[4] for r in rows], dtype=pl.Float64),
+                "unit": ["therm"] * len(rows),
+                "estimated": [r[5] for r in rows],
+                "cost": pl.Series([None] * len(rows), dtype=pl.Float64),
+                "_line": list(range(2, len(rows) + 2)),
+            }
+        )
+        kept, rejects, n_exact = ingest.reading_duplicates(good, "r.csv")
+        want_kept, want_lines, want_exact = _duplicates_in_one_pass(good, "r.csv")
+        assert kept.equals(want_kept)
+        assert sorted(rejects["line"].to_list()) == want_lines
+        assert n_exact == want_exact
+
+    check()
