@@ -285,7 +285,8 @@ def results_for_store(run_id: str, res: pl.DataFrame, rows: int = RECORD_CHUNK) 
 
 
 def _results_rows(run_id: str, res: pl.DataFrame) -> pl.DataFrame:
-    rec_cols = [c for c in res.columns if res.schema[c] != pl.Object]
+    schema = res.schema  # (built anew on every access)
+    rec_cols = [c for c in res.columns if schema[c] != pl.Object]
     return res.select(
         pl.lit(run_id).alias("run_id"),
         "building_id",
@@ -322,18 +323,22 @@ def json_records(frame: pl.DataFrame) -> pl.Series:
     goes through ``json.dumps`` itself.
     """
     cols = sorted(frame.columns)
+    schema = frame.schema  # (built anew on every access)
     pats = _escape_table(frame)
-    encs = {c: _json_text(pl.col(c), frame.schema[c], pats) for c in cols}
+    encs = {c: _json_text(pl.col(c), schema[c], pats) for c in cols}
     fast = [enc[0].fill_null("null").alias(c) for c, enc in encs.items() if enc is not None]
     doubts = [enc[1].fill_null(False).alias(f"doubt:{c}") for c, enc in encs.items() if enc and enc[1] is not None]
     out = frame.select(fast + doubts)  # every column at once
+    # the columns with a value to check, found in one pass
+    anyd = out.select(pl.col(f"doubt:{c}").any() for c in cols if f"doubt:{c}" in out.columns)
+    doubtful = {d.removeprefix("doubt:") for d, a in zip(anyd.columns, anyd.row(0) if anyd.width else ()) if a}
     texts: dict[str, pl.Series] = {}
     for c in cols:
         if encs[c] is None:  # a type without a rule: Python's own encoder for the column
             texts[c] = pl.Series(c, [json.dumps(v, default=str, sort_keys=True) for v in frame[c].to_list()])
             continue
         t = out[c]
-        if f"doubt:{c}" in out.columns:
+        if c in doubtful:  # (a few columns: the others have no value to check)
             idx = out[f"doubt:{c}"].arg_true()
             if idx.len():  # the few values the fast rule cannot write: their own rule, else json.dumps
                 vals = frame[c].gather(idx)
