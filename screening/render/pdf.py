@@ -397,25 +397,33 @@ def _worker_init() -> None:
     gc.freeze()  # the modules and renderer state live as long as the worker: keep them out of collections
 
 
+#: whether the fork server, when it starts, also imports the screening (polars, numpy, DuckDB: about 0.25 s
+#: of CPU more) for the ``[run] workers`` children; the renderers do not need it (:func:`warm_up`)
+_PRELOAD_SCREENING = [True]
+
+
 def _render_context():
     """The multiprocessing context of every child process of a run (the renderers, and the screening's
     workers, ``screening/workers.py``): a fork server that imports the heavy modules once, each child
     forked from it (screening.lifeline first: there it makes the fork server die with this process)."""
     ctx = multiprocessing.get_context("forkserver")
     ctx.set_forkserver_preload(
-        ["screening.lifeline", "screening.render.pdf", "weasyprint", "pydyf", "screening.pipeline"]
+        ["screening.lifeline", "screening.render.pdf", "weasyprint", "pydyf"]
+        + (["screening.pipeline"] if _PRELOAD_SCREENING[0] else [])
     )
     return ctx
 
 
-def warm_up() -> None:
+def warm_up(*, screening: bool = True) -> None:
     """Start the children's fork server now (a run calls this first): it imports WeasyPrint and the package
-    (about a second) while the run loads its inputs, instead of holding up the first child, ranking.pdf's
-    or a ``[run] workers`` child. Starting it takes milliseconds; nothing on a one-core machine."""
+    (about a CPU-second) while the run loads its inputs, instead of holding up the first child, ranking.pdf's
+    or a ``[run] workers`` child. ``screening`` False (a run without ``[run] workers`` children) leaves the
+    screening's modules out of it. Starting it takes milliseconds; nothing on a one-core machine."""
     if (os.cpu_count() or 1) < 2:
         return
     from multiprocessing import forkserver
 
+    _PRELOAD_SCREENING[0] = screening
     _render_context()
     with _main_not_reimported():  # the fork server would run the caller's main module again
         forkserver.ensure_running()

@@ -147,7 +147,8 @@ def _run_locked(
     t_start = time.perf_counter()
     from ..render import pdf
 
-    pdf.warm_up()  # the children's fork server imports its modules while the inputs load
+    # the children's fork server imports its modules while the inputs load (the screening's only for workers)
+    pdf.warm_up(screening=cfg.run.workers >= 2)
     # run_key is the one id a user sees (sheets, ranking.pdf, summary.json, stderr, status, history): the
     # same for a rerun of the same quarter, inputs and settings, so reruns stay byte-identical. run_id
     # names this execution in the database and the run log; lookups accept either (record.resolve_run).
