@@ -566,3 +566,10 @@ def make_report(n_rows: int = 60, *, units: str = "IP", seed: int = 11) -> dict[
 
 def clone(d: dict[str, Any]) -> dict[str, Any]:
     return copy.deepcopy(d)
+
+
+def loaded_modules(names: tuple[str, ...]) -> list[str]:
+    """Which of ``names`` this process has imported (called in a render child by tests/test_report.py)."""
+    import sys
+
+    return sorted(n for n in names if n in sys.modules)

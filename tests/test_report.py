@@ -712,3 +712,34 @@ def test_render_rooms_import_only_the_rooms_listed_above_them():
                 assert all(n in order[:k] for n in names), (mod, names)
             else:
                 assert all((n or "").split(".")[0] in allowed_outside for n in names), (mod, names)
+
+
+@pytest.mark.parametrize("screening_children", [False, True])
+def test_fork_server_preloads_the_screening_only_for_workers(screening_children):
+    """A run without ``[run] workers`` children starts the fork server without polars and DuckDB, and
+    ranking.pdf's renderer does not import them (about 0.25 CPU-s a run); with workers they are preloaded
+    once, for every child. In a fresh process: the fork server is one per process."""
+    import subprocess
+    import sys
+
+    script = (
+        "from screening.render import pdf\n"
+        "from tests.sheet_fixtures import loaded_modules\n"
+        f"pdf.warm_up(screening={screening_children})\n"
+        "b = pdf.Background(loaded_modules, ('polars', 'duckdb', 'weasyprint', 'screening.pipeline'))\n"
+        "print(b.result())\n"
+    )
+    root = str(templates_dir().parent)
+    proc = subprocess.run([sys.executable, "-"], input=script, capture_output=True, text=True, cwd=root, timeout=120)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    got = proc.stdout.strip().splitlines()[-1]
+    if screening_children:
+        assert got == "['duckdb', 'polars', 'screening.pipeline', 'weasyprint']"
+    else:
+        assert got == "['weasyprint']"
+        # and what ranking.pdf's renderer imports (render_ranking imports the savings page) brings no polars
+        check = (
+            "import sys\nimport screening.render.pdf, screening.render.savings_page\nprint('polars' in sys.modules)\n"
+        )
+        proc = subprocess.run([sys.executable, "-"], input=check, capture_output=True, text=True, cwd=root, timeout=60)
+        assert proc.returncode == 0 and proc.stdout.strip() == "False", proc.stderr[-2000:]
