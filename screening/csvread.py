@@ -403,7 +403,7 @@ def _native_chunk(chunk, first_line, delim, header_norm, idx, wanted):
         return None
     if frame.height != n_lines:
         return None
-    blanks = not chunk.isascii() or any(c in chunk for c in _ASCII_BLANKS)
+    blanks = _has_blanks(chunk)
     if bool(frame.select(pl.any_horizontal(pl.all().str.len_bytes() > MAX_FIELD_CHARS).any()).item()):
         return None  # (a field longer in characters is longer in bytes; the exact test is the other path's)
     empty = [
@@ -412,7 +412,7 @@ def _native_chunk(chunk, first_line, delim, header_norm, idx, wanted):
     if bool(frame.select(pl.all_horizontal(empty).any()).item()):
         return None  # a blank line
     frame = frame.with_row_index(LINE_COL, offset=first_line).with_columns(pl.col(LINE_COL).cast(pl.Int64))
-    key_k = max(idx, key=lambda k: len(header_norm[k]))  # a known column name, always present in the header
+    key_k = _header_key(header_norm, idx)
     cand = frame[names[key_k]].fill_null("").str.contains("(?i)" + re.escape(header_norm[key_k]))
     repeated = 0
     if bool(cand.any()):
@@ -421,12 +421,30 @@ def _native_chunk(chunk, first_line, delim, header_norm, idx, wanted):
         is_header = cand.scatter(cand.arg_true(), exact)
         repeated = int(is_header.sum())
         frame = frame.filter(~is_header)
-    fields = [pl.col(names[k]) for k in idx]
+    return _records(frame, [pl.col(names[k]) for k in idx], wanted, blanks), [], repeated
+
+
+def _has_blanks(chunk: str) -> bool:
+    """Whether a chunk's fields may have blanks around them to strip: a chunk of ASCII text without a blank (the
+    whitespace that ``strip_chars`` removes: six ASCII characters, the rest not ASCII) has none."""
+    return not chunk.isascii() or any(c in chunk for c in _ASCII_BLANKS)
+
+
+def _header_key(header_norm: list[str], idx: list[int]) -> int:
+    """The field of the longest known column name (the first if several), always present in the header: a line
+    that repeats the header contains it there, which narrows the lines compared name by name."""
+    return max(idx, key=lambda k: len(header_norm[k]))
+
+
+def _records(frame: pl.DataFrame, fields: list[pl.Expr], wanted: list[str], blanks: bool) -> pl.DataFrame:
+    """The wanted columns from the ``fields`` (stripped of blanks where ``blanks``), an empty field null, and
+    the line: each field is taken out once, then nulled in a second step."""
     if blanks:
         fields = [v.str.strip_chars() for v in fields]
     df = frame.select(*(v.alias(name) for v, name in zip(fields, wanted)), pl.col(LINE_COL))
-    df = df.with_columns(pl.when(pl.col(name) == "").then(None).otherwise(pl.col(name)).alias(name) for name in wanted)
-    return df, [], repeated
+    return df.with_columns(
+        pl.when(pl.col(name) == "").then(None).otherwise(pl.col(name)).alias(name) for name in wanted
+    )
 
 
 def _split_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
@@ -443,7 +461,7 @@ def _split_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
     lens = parts.list.len()
     # a repeated header: the same names field by field (as the quoted path compares them);
     # the literal test only narrows the candidates checked exactly in Python (rare lines)
-    key = max((header_norm[k] for k in idx), key=len)  # a known column name, always present in the header
+    key = header_norm[_header_key(header_norm, idx)]
     cand = (lens == n_fields) & frame["raw"].str.contains("(?i)" + re.escape(key))
     is_header = cand
     if bool(cand.any()):
@@ -482,16 +500,7 @@ def _split_chunk(chunk, first_line, label, delim, header_norm, idx, wanted):
         ]
         ok = ok & ~pl.col("long")
     good = frame.filter(ok)
-    # blanks around a field are stripped; a chunk of ASCII text without a blank (the whitespace that
-    # strip_chars removes: six ASCII characters, the rest not ASCII) has none to strip
-    blanks = not chunk.isascii() or any(c in chunk for c in _ASCII_BLANKS)
-    fields = [pl.col("parts").list.get(k) for k in idx]
-    if blanks:
-        fields = [v.str.strip_chars() for v in fields]
-    df = good.select(*(v.alias(name) for v, name in zip(fields, wanted)), pl.col(LINE_COL))
-    # an empty field is null (in a second step: each field taken out of the list once)
-    df = df.with_columns(pl.when(pl.col(name) == "").then(None).otherwise(pl.col(name)).alias(name) for name in wanted)
-    return df, rejects, repeated
+    return _records(good, [pl.col("parts").list.get(k) for k in idx], wanted, _has_blanks(chunk)), rejects, repeated
 
 
 def _slow_records(reader, label, delim, header_norm, idx, wanted, n_fields, n_lines):

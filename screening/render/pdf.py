@@ -397,19 +397,17 @@ def _worker_init() -> None:
     gc.freeze()  # the modules and renderer state live as long as the worker: keep them out of collections
 
 
-#: whether the fork server, when it starts, also imports the screening (polars, numpy, DuckDB: about 0.25 s
-#: of CPU more) for the ``[run] workers`` children; the renderers do not need it (:func:`warm_up`)
-_PRELOAD_SCREENING = [True]
-
-
-def _render_context():
+def _render_context(screening: bool = True):
     """The multiprocessing context of every child process of a run (the renderers, and the screening's
     workers, ``screening/workers.py``): a fork server that imports the heavy modules once, each child
-    forked from it (screening.lifeline first: there it makes the fork server die with this process)."""
+    forked from it (screening.lifeline first: there it makes the fork server die with this process).
+    ``screening``: it also imports the screening (polars, NumPy, DuckDB: about 0.25 CPU-s more) for the
+    ``[run] workers`` children; the renderers do not need it. The list counts only when the fork server
+    starts (:func:`warm_up` in a run), so a later call does not change a running one's modules."""
     ctx = multiprocessing.get_context("forkserver")
     ctx.set_forkserver_preload(
         ["screening.lifeline", "screening.render.pdf", "weasyprint", "pydyf"]
-        + (["screening.pipeline"] if _PRELOAD_SCREENING[0] else [])
+        + (["screening.pipeline"] if screening else [])
     )
     return ctx
 
@@ -423,8 +421,7 @@ def warm_up(*, screening: bool = True) -> None:
         return
     from multiprocessing import forkserver
 
-    _PRELOAD_SCREENING[0] = screening
-    _render_context()
+    _render_context(screening)
     with _main_not_reimported():  # the fork server would run the caller's main module again
         forkserver.ensure_running()
 
